@@ -1,0 +1,1 @@
+"""calibration layer of phantomlab (see DESIGN.md)."""

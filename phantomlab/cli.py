@@ -1,0 +1,109 @@
+"""The ``phantomlab`` command line (layer 5): argument parsing and output, no physics.
+
+Each sub-command lives in a module of :mod:`phantomlab.commands` that defines
+``register(subparsers)``; the module adds its parser and sets ``handler`` to a function
+``handler(args) -> CommandResult``.  This module owns the automation contract of DESIGN.md:
+
+* ``--json`` prints exactly one JSON object on stdout and nothing else;
+* every :class:`~phantomlab.errors.PhantomlabWarning` raised while the command ran is
+  collected into the ``warnings`` list of that object (and printed after the readable text);
+* an :class:`~phantomlab.errors.InputError` (or any ``ValueError`` raised on bad input) ends
+  the command with its one-line reason on stderr and exit status 2.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import json
+import sys
+import warnings
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+from phantomlab import __version__
+from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.jsonable import to_jsonable
+
+#: Modules that contribute sub-commands, in the order ``--help`` lists them.
+COMMAND_MODULES: tuple[str, ...] = (
+)
+
+
+@dataclass
+class CommandResult:
+    """What a command hands back: the JSON payload and the readable text for a person."""
+
+    payload: dict[str, Any]
+    text: str = ""
+    warnings: list[str] = field(default_factory=list)
+
+
+Handler = Callable[[argparse.Namespace], CommandResult]
+
+
+def add_json_option(parser: argparse.ArgumentParser) -> None:
+    """Add the ``--json`` switch every computing command carries."""
+    parser.add_argument(
+        "--json", action="store_true", help="print one JSON object on stdout and nothing else"
+    )
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="phantomlab",
+        description="Design, mix, log and correct tissue-simulating optical phantoms.",
+    )
+    parser.add_argument("--version", action="version", version=f"phantomlab {__version__}")
+    subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for module_name in COMMAND_MODULES:
+        importlib.import_module(module_name).register(subparsers)
+    return parser
+
+
+class _OneLineParserError(Exception):
+    pass
+
+
+def _emit_error(message: str) -> int:
+    print(f"phantomlab: error: {' '.join(str(message).split())}", file=sys.stderr)
+    return 2
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the command line; return the process exit status."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    handler: Handler | None = getattr(args, "handler", None)
+    if handler is None:
+        parser.print_help(sys.stderr)
+        return 2
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", PhantomlabWarning)
+        try:
+            result = handler(args)
+        except InputError as exc:
+            return _emit_error(str(exc))
+        except (ValueError, KeyError, FileNotFoundError, IsADirectoryError) as exc:
+            return _emit_error(str(exc) or type(exc).__name__)
+    collected = list(result.warnings)
+    for item in caught:
+        if issubclass(item.category, PhantomlabWarning):
+            message = " ".join(str(item.message).split())
+            if message not in collected:
+                collected.append(message)
+    payload = dict(result.payload)
+    existing = [w for w in payload.get("warnings", []) if w not in collected]
+    payload["warnings"] = existing + collected
+    if getattr(args, "json", False):
+        sys.stdout.write(json.dumps(to_jsonable(payload), allow_nan=False) + "\n")
+    else:
+        if result.text:
+            sys.stdout.write(result.text.rstrip("\n") + "\n")
+        for message in payload["warnings"]:
+            sys.stdout.write(f"warning: {message}\n")
+    return 0
+
+
+def entry_point() -> None:  # console script
+    sys.exit(main())

@@ -1,0 +1,1 @@
+"""materials layer of phantomlab (see DESIGN.md)."""

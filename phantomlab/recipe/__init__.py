@@ -1,0 +1,1 @@
+"""recipe layer of phantomlab (see DESIGN.md)."""

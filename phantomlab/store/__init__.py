@@ -1,0 +1,1 @@
+"""store layer of phantomlab (see DESIGN.md)."""

@@ -1,0 +1,1 @@
+"""transport layer of phantomlab (see DESIGN.md)."""

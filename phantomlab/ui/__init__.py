@@ -1,0 +1,1 @@
+"""ui layer of phantomlab (see DESIGN.md)."""
