@@ -1,0 +1,351 @@
+"""numba-compiled photon transport: one batch of photons per call, batches run in parallel.
+
+Everything here works in canonical units (mm, 1/mm) on plain floats and arrays; the public
+front end (:mod:`phantomlab.transport.montecarlo.simulate`) checks inputs, seeds the
+streams and turns the per-batch tallies into estimates with standard errors.
+
+The photon step follows the classic layout of tissue Monte Carlo (Wang, Jacques & Zheng
+1995, Comput Methods Programs Biomed 47:131): a dimensionless optical depth s = −ln ξ is
+drawn, spent in hops that stop at boundaries, and the rest carried across a boundary
+reflection.  Scattering directions come from the Henyey–Greenstein phase function
+(Henyey & Greenstein 1941, Astrophys J 93:70) by its inverse cumulative distribution.
+Boundaries reflect with the unpolarised Fresnel reflectance (Born & Wolf, *Principles of
+Optics*, eqs. 1.5.20–21); a parallel, non-absorbing slide adds its two interfaces with
+incoherent multiple reflections, R = r₁ + (1 − r₁)² r₂ / (1 − r₁ r₂).
+
+Estimators
+----------
+analog
+    each interaction absorbs the photon with probability μa/μt; a boundary reflects it with
+    probability R(θ).  Every photon keeps its launch weight 1 − R_specular.
+weighted
+    absorption weighting (the photon loses the fraction μa/μt of its weight at each
+    interaction) and partial escape (the fraction 1 − R(θ) leaves, the rest is reflected);
+    below a threshold weight, Russian roulette keeps it with probability 1/10 at ten times
+    the weight.  Roulette conserves energy only on average: the weight it creates minus the
+    weight it destroys is tallied as ``roulette`` so that the tallies add up exactly.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit, prange
+
+from phantomlab.transport.montecarlo._random import uniform
+
+__all__ = ["TALLY_NAMES", "run_3d", "run_rod", "boundary_reflectance", "fresnel_reflectance"]
+
+#: Names of the per-batch tally columns, in order.
+TALLY_NAMES = (
+    "diffuse_reflectance",
+    "unscattered_reflectance",
+    "diffuse_transmittance",
+    "unscattered_transmittance",
+    "absorbed_fraction",
+    "roulette",
+    "interactions",
+)
+_DR, _UR, _DT, _UT, _ABS, _ROUL, _INTER = range(7)
+
+#: Roulette is played below this fraction of the launch weight (common practice, no source).
+ROULETTE_THRESHOLD = 1.0e-4
+#: Survival probability of a roulette game (the weight is divided by it on survival).
+ROULETTE_SURVIVAL = 0.1
+#: Largest scattering count a baseline record holds (uint16); higher counts saturate.
+MAX_RECORDED_SCATTERINGS = 65535
+
+_COS_NEARLY_ONE = 1.0 - 1.0e-12
+_COS_GRAZING = 1.0e-6
+_TWO_PI = 2.0 * math.pi
+
+
+@njit(cache=True)
+def fresnel_reflectance(n1, n2, cos_incidence):
+    """Unpolarised Fresnel reflectance from index n1 into n2 at incidence cosine ≥ 0."""
+    if n1 == n2:
+        return 0.0
+    if cos_incidence > _COS_NEARLY_ONE:
+        r = (n1 - n2) / (n1 + n2)
+        return r * r
+    if cos_incidence < _COS_GRAZING:
+        return 1.0
+    sin_incidence = math.sqrt(1.0 - cos_incidence * cos_incidence)
+    sin_refracted = n1 * sin_incidence / n2
+    if sin_refracted >= 1.0:
+        return 1.0
+    cos_refracted = math.sqrt(1.0 - sin_refracted * sin_refracted)
+    # Born & Wolf eqs. 1.5.20-21 (amplitude ratios), averaged in intensity over polarisations
+    rs = (n1 * cos_incidence - n2 * cos_refracted) / (n1 * cos_incidence + n2 * cos_refracted)
+    rp = (n1 * cos_refracted - n2 * cos_incidence) / (n1 * cos_refracted + n2 * cos_incidence)
+    return 0.5 * (rs * rs + rp * rp)
+
+
+@njit(cache=True)
+def boundary_reflectance(n_medium, n_slide, n_outside, cos_incidence):
+    """Reflectance seen from inside the medium at a face, with an optional slide.
+
+    ``n_slide <= 0`` means no slide.  With a slide, the two interfaces combine with
+    incoherent multiple reflections inside the (non-absorbing) slide.
+    """
+    if n_slide <= 0.0:
+        return fresnel_reflectance(n_medium, n_outside, cos_incidence)
+    r1 = fresnel_reflectance(n_medium, n_slide, cos_incidence)
+    if r1 >= 1.0:
+        return 1.0
+    sin_slide = n_medium * math.sqrt(max(0.0, 1.0 - cos_incidence * cos_incidence)) / n_slide
+    cos_slide = math.sqrt(max(0.0, 1.0 - sin_slide * sin_slide))
+    r2 = fresnel_reflectance(n_slide, n_outside, cos_slide)
+    if r1 * r2 >= 1.0:
+        return 1.0
+    return r1 + (1.0 - r1) * (1.0 - r1) * r2 / (1.0 - r1 * r2)
+
+
+@njit(cache=True, inline="always")
+def _roulette(state, weight, tallies):
+    """Russian roulette; returns the new weight (0 when the photon is ended)."""
+    if uniform(state) < ROULETTE_SURVIVAL:
+        boosted = weight / ROULETTE_SURVIVAL
+        tallies[_ROUL] += boosted - weight
+        return boosted
+    tallies[_ROUL] -= weight
+    return 0.0
+
+
+@njit(cache=True)
+def _photons_3d(
+    n_photons, state, mua, mus, g, n_medium, n_top, n_slide_top, n_bottom, n_slide_bottom,
+    thickness, analog, launch_weight, rho_edges, tallies, rho_weights,
+    record, rec_rho, rec_path, rec_nscat,
+):
+    mut = mua + mus
+    albedo = mus / mut if mut > 0.0 else 0.0
+    threshold = ROULETTE_THRESHOLD * launch_weight
+    n_edges = rho_edges.shape[0]
+    has_rho = n_edges >= 2
+    rho_lo = rho_edges[0] if has_rho else 0.0
+    rho_hi = rho_edges[n_edges - 1] if has_rho else 0.0
+    isotropic = g == 0.0
+    g2 = g * g
+    recorded = 0
+    interactions = 0
+    for _ in range(n_photons):
+        x = 0.0
+        y = 0.0
+        z = 0.0
+        ux = 0.0
+        uy = 0.0
+        uz = 1.0
+        weight = launch_weight
+        nscat = 0
+        path = 0.0
+        alive = True
+        while alive:
+            depth = -math.log(1.0 - uniform(state))
+            while True:
+                if uz > 0.0:
+                    to_boundary = (thickness - z) / uz
+                elif uz < 0.0:
+                    to_boundary = -z / uz
+                else:
+                    to_boundary = math.inf
+                step = depth / mut if mut > 0.0 else math.inf
+                if step < to_boundary:
+                    x += step * ux
+                    y += step * uy
+                    z += step * uz
+                    path += step
+                    break
+                x += to_boundary * ux
+                y += to_boundary * uy
+                path += to_boundary
+                depth -= to_boundary * mut
+                at_top = uz < 0.0
+                if at_top:
+                    z = 0.0
+                    reflect = boundary_reflectance(n_medium, n_slide_top, n_top, -uz)
+                else:
+                    z = thickness
+                    reflect = boundary_reflectance(n_medium, n_slide_bottom, n_bottom, uz)
+                if analog:
+                    if uniform(state) < reflect:
+                        uz = -uz
+                        continue
+                    escaped = weight
+                    weight = 0.0
+                else:
+                    escaped = weight * (1.0 - reflect)
+                    weight = weight * reflect
+                    uz = -uz
+                if escaped > 0.0:
+                    if at_top:
+                        if nscat == 0:
+                            tallies[_UR] += escaped
+                        else:
+                            tallies[_DR] += escaped
+                        radius = math.sqrt(x * x + y * y)
+                        if has_rho and radius >= rho_lo and radius < rho_hi:
+                            index = np.searchsorted(rho_edges, radius, side="right") - 1
+                            rho_weights[index] += escaped
+                        if record:
+                            rec_rho[recorded] = radius
+                            rec_path[recorded] = path
+                            rec_nscat[recorded] = min(nscat, MAX_RECORDED_SCATTERINGS)
+                            recorded += 1
+                    else:
+                        if nscat == 0:
+                            tallies[_UT] += escaped
+                        else:
+                            tallies[_DT] += escaped
+                if weight > 0.0 and weight < threshold:
+                    weight = _roulette(state, weight, tallies)
+                if weight == 0.0:
+                    alive = False
+                    break
+            if not alive:
+                break
+            # an interaction: absorption, then Henyey-Greenstein scattering
+            interactions += 1
+            if analog:
+                if uniform(state) >= albedo:
+                    tallies[_ABS] += weight
+                    break
+            else:
+                absorbed = weight * (1.0 - albedo)
+                tallies[_ABS] += absorbed
+                weight -= absorbed
+            xi = uniform(state)
+            if isotropic:
+                cos_theta = 2.0 * xi - 1.0
+            else:
+                # inverse CDF of Henyey-Greenstein (Henyey & Greenstein 1941; Wang et al. 1995 eq. 3.28)
+                tmp = (1.0 - g2) / (1.0 - g + 2.0 * g * xi)
+                cos_theta = (1.0 + g2 - tmp * tmp) / (2.0 * g)
+                if cos_theta > 1.0:
+                    cos_theta = 1.0
+                elif cos_theta < -1.0:
+                    cos_theta = -1.0
+            sin_theta = math.sqrt(1.0 - cos_theta * cos_theta)
+            phi = _TWO_PI * uniform(state)
+            cos_phi = math.cos(phi)
+            sin_phi = math.sin(phi)
+            if abs(uz) > 0.99999:
+                ux = sin_theta * cos_phi
+                uy = sin_theta * sin_phi
+                uz = cos_theta if uz > 0.0 else -cos_theta
+            else:
+                # direction update (Wang et al. 1995 eq. 3.24)
+                root = math.sqrt(1.0 - uz * uz)
+                new_ux = sin_theta * (ux * uz * cos_phi - uy * sin_phi) / root + ux * cos_theta
+                new_uy = sin_theta * (uy * uz * cos_phi + ux * sin_phi) / root + uy * cos_theta
+                uz = -sin_theta * cos_phi * root + uz * cos_theta
+                ux = new_ux
+                uy = new_uy
+            nscat += 1
+            if not analog and weight < threshold:
+                weight = _roulette(state, weight, tallies)
+                if weight == 0.0:
+                    alive = False
+    tallies[_INTER] += interactions
+    return recorded
+
+
+@njit(cache=True)
+def _photons_rod(
+    n_photons, state, mua, mus, backscatter, n_medium, n_top, n_slide_top, n_bottom,
+    n_slide_bottom, thickness, analog, launch_weight, tallies,
+):
+    mut = mua + mus
+    albedo = mus / mut if mut > 0.0 else 0.0
+    threshold = ROULETTE_THRESHOLD * launch_weight
+    reflect_top = boundary_reflectance(n_medium, n_slide_top, n_top, 1.0)
+    reflect_bottom = boundary_reflectance(n_medium, n_slide_bottom, n_bottom, 1.0)
+    interactions = 0
+    for _ in range(n_photons):
+        z = 0.0
+        uz = 1.0
+        weight = launch_weight
+        nscat = 0
+        alive = True
+        while alive:
+            depth = -math.log(1.0 - uniform(state))
+            while True:
+                to_boundary = (thickness - z) if uz > 0.0 else z
+                step = depth / mut if mut > 0.0 else math.inf
+                if step < to_boundary:
+                    z += step * uz
+                    break
+                depth -= to_boundary * mut
+                at_top = uz < 0.0
+                z = 0.0 if at_top else thickness
+                reflect = reflect_top if at_top else reflect_bottom
+                if analog:
+                    if uniform(state) < reflect:
+                        uz = -uz
+                        continue
+                    escaped = weight
+                    weight = 0.0
+                else:
+                    escaped = weight * (1.0 - reflect)
+                    weight = weight * reflect
+                    uz = -uz
+                if escaped > 0.0:
+                    if at_top:
+                        tallies[_UR if nscat == 0 else _DR] += escaped
+                    else:
+                        tallies[_UT if nscat == 0 else _DT] += escaped
+                if weight > 0.0 and weight < threshold:
+                    weight = _roulette(state, weight, tallies)
+                if weight == 0.0:
+                    alive = False
+                    break
+            if not alive:
+                break
+            interactions += 1
+            if analog:
+                if uniform(state) >= albedo:
+                    tallies[_ABS] += weight
+                    break
+            else:
+                absorbed = weight * (1.0 - albedo)
+                tallies[_ABS] += absorbed
+                weight -= absorbed
+            if uniform(state) < backscatter:
+                uz = -uz
+            nscat += 1
+            if not analog and weight < threshold:
+                weight = _roulette(state, weight, tallies)
+                if weight == 0.0:
+                    alive = False
+    tallies[_INTER] += interactions
+
+
+@njit(cache=True, parallel=True)
+def run_3d(
+    photons_per_batch, states, mua, mus, g, n_medium, n_top, n_slide_top, n_bottom,
+    n_slide_bottom, thickness, analog, launch_weight, rho_edges, tallies, rho_weights,
+    record, rec_rho, rec_path, rec_nscat, rec_count,
+):
+    """Run every batch (row) of photons in three dimensions; fill the per-batch arrays."""
+    for batch in prange(photons_per_batch.shape[0]):
+        rec_count[batch] = _photons_3d(
+            photons_per_batch[batch], states[batch], mua, mus, g, n_medium, n_top,
+            n_slide_top, n_bottom, n_slide_bottom, thickness, analog, launch_weight,
+            rho_edges, tallies[batch], rho_weights[batch], record, rec_rho[batch],
+            rec_path[batch], rec_nscat[batch],
+        )
+
+
+@njit(cache=True, parallel=True)
+def run_rod(
+    photons_per_batch, states, mua, mus, backscatter, n_medium, n_top, n_slide_top, n_bottom,
+    n_slide_bottom, thickness, analog, launch_weight, tallies,
+):
+    """Run every batch (row) of photons in the one-dimensional rod geometry."""
+    for batch in prange(photons_per_batch.shape[0]):
+        _photons_rod(
+            photons_per_batch[batch], states[batch], mua, mus, backscatter, n_medium, n_top,
+            n_slide_top, n_bottom, n_slide_bottom, thickness, analog, launch_weight,
+            tallies[batch],
+        )

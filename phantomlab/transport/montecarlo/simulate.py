@@ -1,0 +1,473 @@
+"""Monte Carlo photon transport in a semi-infinite medium or a slab (layer 2).
+
+:func:`simulate` launches a pencil beam at normal incidence on the top face (z = 0) of a
+homogeneous medium (μa, μs, Henyey–Greenstein g, index n) under an outside medium of index
+``n_outside``, optionally through a non-absorbing glass slide of index ``n_slide`` on each
+face, and tallies where the light goes.  The kernels are in
+:mod:`phantomlab.transport.montecarlo._kernels`; this module checks inputs, splits the
+photons into independent batches with their own random streams, runs them in parallel and
+turns the batch tallies into estimates with standard errors.
+
+Every tally is a fraction of the incident power, so for every run
+``total_reflectance + total_transmittance + absorbed_fraction = 1 + roulette_balance``
+to rounding, where ``roulette_balance`` is zero for the analog estimator and zero on
+average (within its standard error) for the weighted one.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import asdict, dataclass
+
+import numba
+import numpy as np
+
+from phantomlab.errors import InputError
+from phantomlab.transport.montecarlo import _kernels
+from phantomlab.transport.montecarlo._random import batch_states
+from phantomlab.transport.montecarlo._validate import (
+    check_anisotropy,
+    check_choice,
+    check_coefficient,
+    check_count,
+    check_index,
+    check_rho_grid,
+    check_threads,
+)
+
+__all__ = [
+    "MonteCarloResult",
+    "simulate",
+    "rho_bin_edges_mm",
+    "specular_reflectance",
+    "warm_up",
+    "ESTIMATORS",
+    "GEOMETRIES",
+]
+
+ESTIMATORS = ("weighted", "analog")
+GEOMETRIES = ("3d", "rod")
+#: Default number of independent batches (the standard errors come from their spread).
+DEFAULT_BATCHES = 32
+
+
+@dataclass(frozen=True)
+class MonteCarloResult:
+    """Tallies of one Monte Carlo run; every reflectance/transmittance is a fraction of the
+    incident power, each with its standard error (``*_sd``) from the spread of independent
+    batches.
+
+    Attributes
+    ----------
+    specular_reflectance : float
+        Reflection of the incident beam at the entry face (outside → slide → medium),
+        exact (no sampling), so ``specular_reflectance_sd`` is 0.
+    diffuse_reflectance : float
+        Light leaving the top face after at least one scattering.
+    unscattered_reflectance : float
+        Light leaving the top face without scattering (bounced back by the bottom face of a
+        mismatched slab); 0 for a semi-infinite medium.
+    total_reflectance : float
+        specular + unscattered + diffuse reflectance (what an integrating sphere sees).
+    diffuse_transmittance, unscattered_transmittance, total_transmittance : float
+        Light leaving the bottom face with / without scattering, and their sum (0 for a
+        semi-infinite medium).
+    absorbed_fraction : float
+        Light absorbed in the medium.
+    roulette_balance : float
+        Weight created minus weight destroyed by Russian roulette (weighted estimator);
+        zero on average, exactly 0 for the analog estimator.
+    rho_mm, rho_edges_mm : ndarray or None [mm]
+        Radial bin centres as given and the bin edges used (midpoints between centres).
+    reflectance_per_mm2, reflectance_per_mm2_sd : ndarray or None [1/mm²]
+        Spatially resolved reflectance: power leaving the top face in each annulus, per unit
+        area and per unit incident power (average over the annulus).
+    photons, batches, seed, threads : int
+        Launched photons, independent batches, master seed, threads used.
+    interactions : int
+        Interaction (collision) events simulated.
+    seconds : float [s]
+        Simulation wall time, JIT compilation excluded.
+    figure_of_merit : float [1/s]
+        1 / (σ² t) with σ the standard error of the diffuse reflectance and t ``seconds``.
+    """
+
+    geometry: str
+    estimator: str
+    mua_per_mm: float
+    mus_per_mm: float
+    g: float
+    n: float
+    n_outside: float
+    n_slide: float | None
+    thickness_mm: float | None
+    backscatter_probability: float | None
+    specular_reflectance: float
+    specular_reflectance_sd: float
+    diffuse_reflectance: float
+    diffuse_reflectance_sd: float
+    unscattered_reflectance: float
+    unscattered_reflectance_sd: float
+    total_reflectance: float
+    total_reflectance_sd: float
+    diffuse_transmittance: float
+    diffuse_transmittance_sd: float
+    unscattered_transmittance: float
+    unscattered_transmittance_sd: float
+    total_transmittance: float
+    total_transmittance_sd: float
+    absorbed_fraction: float
+    absorbed_fraction_sd: float
+    roulette_balance: float
+    roulette_balance_sd: float
+    rho_mm: np.ndarray | None
+    rho_edges_mm: np.ndarray | None
+    reflectance_per_mm2: np.ndarray | None
+    reflectance_per_mm2_sd: np.ndarray | None
+    photons: int
+    batches: int
+    seed: int
+    threads: int
+    interactions: int
+    seconds: float
+    figure_of_merit: float
+
+    @property
+    def interactions_per_second(self) -> float:
+        """Interaction events per second of simulation wall time [1/s]."""
+        return self.interactions / self.seconds if self.seconds > 0 else math.inf
+
+    def to_json(self) -> dict:
+        """The result as a plain dict with the DESIGN.md ``forward --kind mc`` keys (and more).
+
+        ``rho_mm`` and ``reflectance_per_mm2`` (with ``reflectance_per_mm2_sd`` and
+        ``rho_edges_mm``) appear only when a radial grid was given.
+        """
+        payload = asdict(self)
+        if self.rho_mm is None:
+            for key in ("rho_mm", "rho_edges_mm", "reflectance_per_mm2", "reflectance_per_mm2_sd"):
+                payload.pop(key)
+        payload["interactions_per_second"] = self.interactions_per_second
+        return payload
+
+
+def rho_bin_edges_mm(rho_mm) -> np.ndarray:
+    """Bin edges [mm] for radial bin centres ``rho_mm``: midpoints between neighbours.
+
+    The first lower edge lies as far below the first centre as the first midpoint lies
+    above it (clipped at 0), and likewise the last upper edge above the last centre.
+
+    Parameters
+    ----------
+    rho_mm : array_like [mm]
+        At least two strictly increasing distances >= 0 (bin centres).
+
+    Returns
+    -------
+    ndarray [mm], shape (R + 1,)
+    """
+    centres = check_rho_grid(rho_mm)
+    edges = np.empty(centres.size + 1)
+    edges[1:-1] = 0.5 * (centres[1:] + centres[:-1])
+    edges[0] = max(0.0, centres[0] - 0.5 * (centres[1] - centres[0]))
+    edges[-1] = centres[-1] + 0.5 * (centres[-1] - centres[-2])
+    return edges
+
+
+def specular_reflectance(*, n, n_outside=1.0, n_slide=None) -> float:
+    """Reflectance of a normal beam entering the medium, through an optional slide.
+
+    Parameters
+    ----------
+    n, n_outside : float
+        Indices of the medium and of the outside.
+    n_slide : float or None
+        Index of a non-absorbing slide on the entry face, or None.
+
+    Returns
+    -------
+    float
+        ((n_out − n)/(n_out + n))² without a slide (Fresnel at normal incidence, Born & Wolf
+        eq. 1.5.23); with a slide, r₁ + (1 − r₁)² r₂ / (1 − r₁ r₂) for the two interfaces.
+    """
+    n = check_index("n", n)
+    n_outside = check_index("n_outside", n_outside)
+    if n_slide is None:
+        return float(_kernels.fresnel_reflectance(n_outside, n, 1.0))
+    n_slide = check_index("n_slide", n_slide)
+    r1 = float(_kernels.fresnel_reflectance(n_outside, n_slide, 1.0))
+    r2 = float(_kernels.fresnel_reflectance(n_slide, n, 1.0))
+    return r1 + (1.0 - r1) ** 2 * r2 / (1.0 - r1 * r2)
+
+
+def _split(photons: int, batches: int) -> np.ndarray:
+    per_batch = np.full(batches, photons // batches, dtype=np.int64)
+    per_batch[: photons % batches] += 1
+    return per_batch
+
+
+def _mean_and_se(values: np.ndarray, counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Overall per-photon mean of batch totals ``values`` (B, ...) and its standard error."""
+    total = counts.sum()
+    mean = values.sum(axis=0) / total
+    batches = counts.size
+    if batches < 2:
+        return mean, np.full_like(mean, np.nan)
+    shape = (batches,) + (1,) * (values.ndim - 1)
+    per_batch = values / counts.reshape(shape)
+    spread = (counts.reshape(shape) * (per_batch - mean) ** 2).sum(axis=0)
+    return mean, np.sqrt(spread / ((batches - 1) * total))
+
+
+_WARMED: set[str] = set()
+
+
+def _empty_records(batches: int):
+    return (
+        np.zeros((batches, 0), dtype=np.float32),
+        np.zeros((batches, 0), dtype=np.float32),
+        np.zeros((batches, 0), dtype=np.uint16),
+        np.zeros(batches, dtype=np.int64),
+    )
+
+
+def warm_up() -> float:
+    """Compile (or load from numba's on-disk cache) both kernels; return the seconds spent.
+
+    :func:`simulate` calls this before it starts its clock, so ``seconds`` never includes
+    compilation.  Only the first call in a process does work.
+    """
+    start = time.perf_counter()
+    if "kernels" in _WARMED:
+        return 0.0
+    states = batch_states(0, 1)
+    counts = np.ones(1, dtype=np.int64)
+    tallies = np.zeros((1, len(_kernels.TALLY_NAMES)))
+    edges = np.array([0.0, 1.0])
+    rho = np.zeros((1, 1))
+    rec = _empty_records(1)
+    for analog in (False, True):
+        _kernels.run_3d(counts, states.copy(), 0.1, 1.0, 0.5, 1.4, 1.0, 0.0, 1.0, 0.0, math.inf,
+                        analog, 1.0, edges, tallies, rho, False, *rec)
+        _kernels.run_rod(counts, states.copy(), 0.1, 1.0, 0.2, 1.4, 1.0, 0.0, 1.0, 0.0, 1.0,
+                         analog, 1.0, tallies)
+    _WARMED.add("kernels")
+    return time.perf_counter() - start
+
+
+def _check_common(*, mua_per_mm, mus_per_mm, g, n, n_outside, n_slide, thickness_mm):
+    mua = check_coefficient("mua_per_mm", mua_per_mm)
+    mus = check_coefficient("mus_per_mm", mus_per_mm)
+    g = check_anisotropy(g)
+    n = check_index("n", n)
+    n_outside = check_index("n_outside", n_outside)
+    slide = None if n_slide is None else check_index("n_slide", n_slide)
+    if thickness_mm is None:
+        thickness = None
+        if mua == 0.0:
+            raise InputError(
+                "mua_per_mm = 0 in a semi-infinite medium gives unbounded photon paths; "
+                "give mua_per_mm > 0 or a thickness_mm"
+            )
+    else:
+        thickness = check_coefficient("thickness_mm", thickness_mm)
+        if thickness <= 0.0:
+            raise InputError(f"thickness_mm must be > 0 [mm] (or None: semi-infinite), got {thickness:g}")
+    return mua, mus, g, n, n_outside, slide, thickness
+
+
+def simulate(
+    *,
+    mua_per_mm,
+    mus_per_mm,
+    g,
+    n,
+    n_outside=1.0,
+    thickness_mm=None,
+    rho_mm=None,
+    photons,
+    seed=0,
+    threads=None,
+    estimator="weighted",
+    geometry="3d",
+    backscatter_probability=None,
+    n_slide=None,
+    batches=DEFAULT_BATCHES,
+) -> MonteCarloResult:
+    """Monte Carlo reflectance, transmittance and absorption of a pencil beam.
+
+    A beam at normal incidence enters the top face (z = 0) of a homogeneous medium filling
+    0 < z < ``thickness_mm`` (a slab) or z > 0 (semi-infinite, ``thickness_mm=None``).
+    Scattering follows the Henyey–Greenstein phase function; both faces reflect by Fresnel's
+    law for unpolarised light (through an optional slide).  One set of scalar optical
+    properties per call (loop over wavelengths outside).
+
+    Parameters
+    ----------
+    mua_per_mm : float [1/mm]
+        Absorption coefficient, >= 0 (> 0 for a semi-infinite medium).
+    mus_per_mm : float [1/mm]
+        Scattering coefficient, >= 0.
+    g : float [dimensionless]
+        Henyey–Greenstein anisotropy, inside (−1, 1).
+    n : float
+        Refractive index of the medium, >= 1.
+    n_outside : float, default 1.0
+        Refractive index above (and below) the medium, >= 1.
+    thickness_mm : float or None [mm]
+        Slab thickness; None for a semi-infinite medium.
+    rho_mm : array_like or None [mm]
+        Radial bin centres for R(ρ) (>= 2, increasing); bin edges are the midpoints between
+        neighbours (see :func:`rho_bin_edges_mm`).  Not allowed in rod geometry.
+    photons : int
+        Photons launched, >= 1.
+    seed : int, default 0
+        Master seed, >= 0; the result depends on it, on ``photons`` and ``batches``, never on
+        ``threads``.
+    threads : int or None
+        Threads (None: every core numba sees).
+    estimator : {'weighted', 'analog'}
+        Absorption weighting with partial escape and Russian roulette, or analog absorption
+        and probabilistic boundary reflection.  Both are unbiased.
+    geometry : {'3d', 'rod'}
+        Three-dimensional transport, or the one-dimensional rod model in which photons move
+        only along ±z and a scattering reverses the direction with probability
+        ``backscatter_probability`` (Kubelka 1948).  In the rod every face is met at normal
+        incidence, and a forward scattering also counts as a scattering.
+    backscatter_probability : float or None
+        Rod geometry only: p_b in [0, 1]; None gives (1 − g)/2 (the same mean cosine).
+    n_slide : float or None
+        Index of a non-absorbing glass slide on the entry face and, for a slab, the exit face.
+        Slides change where light exits by a lateral shift that is not modelled, so R(ρ)
+        with a slide is the distribution at the medium surface.
+    batches : int, default 32
+        Independent batches (each its own random stream) for the standard errors.
+
+    Returns
+    -------
+    MonteCarloResult
+
+    Raises
+    ------
+    InputError
+        Negative or non-finite coefficients, g outside (−1, 1), an index below 1, a
+        non-positive thickness, μa = 0 in a semi-infinite medium, photons < 1, threads
+        outside 1..cores, an unknown estimator or geometry, a bad radial grid.
+
+    References
+    ----------
+    Wang L, Jacques SL, Zheng L (1995), Comput Methods Programs Biomed 47:131–146 (photon
+    stepping, absorption weighting, roulette, direction update).
+    Henyey LG, Greenstein JL (1941), Astrophys J 93:70–83 (phase function).
+    Kubelka P (1948), J Opt Soc Am 38:448–457 (the rod model's exact slab solution).
+    """
+    mua, mus, g, n, n_outside, slide, thickness = _check_common(
+        mua_per_mm=mua_per_mm, mus_per_mm=mus_per_mm, g=g, n=n, n_outside=n_outside,
+        n_slide=n_slide, thickness_mm=thickness_mm,
+    )
+    photons = check_count("photons", photons)
+    seed = check_count("seed", seed, minimum=0)
+    threads = check_threads(threads)
+    batches = check_count("batches", batches)
+    estimator = check_choice("estimator", estimator, ESTIMATORS)
+    geometry = check_choice("geometry", geometry, GEOMETRIES)
+    if geometry == "rod":
+        if rho_mm is not None:
+            raise InputError("rho_mm is not available in rod geometry (every photon exits at rho = 0)")
+        if backscatter_probability is None:
+            backscatter = 0.5 * (1.0 - g)
+        else:
+            backscatter = check_coefficient("backscatter_probability", backscatter_probability)
+            if backscatter > 1.0:
+                raise InputError(f"backscatter_probability must lie in [0, 1], got {backscatter:g}")
+    else:
+        if backscatter_probability is not None:
+            raise InputError("backscatter_probability is for geometry='rod' only")
+        backscatter = None
+    edges = rho_bin_edges_mm(rho_mm) if rho_mm is not None else None
+    batches = min(batches, photons)
+
+    specular = specular_reflectance(n=n, n_outside=n_outside, n_slide=slide)
+    launch_weight = 1.0 - specular
+    analog = estimator == "analog"
+    slide_index = 0.0 if slide is None else slide
+    depth = math.inf if thickness is None else thickness
+    counts = _split(photons, batches)
+    states = batch_states(seed, batches)
+    tallies = np.zeros((batches, len(_kernels.TALLY_NAMES)))
+    n_bins = 0 if edges is None else edges.size - 1
+    rho_weights = np.zeros((batches, max(n_bins, 1)))
+    kernel_edges = np.zeros(0) if edges is None else edges
+
+    warm_up()
+    previous_threads = numba.get_num_threads()
+    numba.set_num_threads(threads)
+    try:
+        start = time.perf_counter()
+        if geometry == "3d":
+            _kernels.run_3d(
+                counts, states, mua, mus, g, n, n_outside, slide_index, n_outside, slide_index,
+                depth, analog, launch_weight, kernel_edges, tallies, rho_weights, False,
+                *_empty_records(batches),
+            )
+        else:
+            _kernels.run_rod(
+                counts, states, mua, mus, backscatter, n, n_outside, slide_index, n_outside,
+                slide_index, depth, analog, launch_weight, tallies,
+            )
+        seconds = time.perf_counter() - start
+    finally:
+        numba.set_num_threads(previous_threads)
+
+    names = _kernels.TALLY_NAMES
+    columns = {name: tallies[:, i] for i, name in enumerate(names)}
+    derived = {
+        "total_reflectance": columns["diffuse_reflectance"] + columns["unscattered_reflectance"],
+        "total_transmittance": columns["diffuse_transmittance"] + columns["unscattered_transmittance"],
+    }
+    estimates: dict[str, float] = {}
+    for name in names[:-1]:
+        mean, se = _mean_and_se(columns[name], counts)
+        estimates[name], estimates[name + "_sd"] = float(mean), float(se)
+    for name, values in derived.items():
+        mean, se = _mean_and_se(values, counts)
+        estimates[name], estimates[name + "_sd"] = float(mean), float(se)
+    estimates["total_reflectance"] += specular
+    estimates["roulette_balance"] = estimates.pop("roulette")
+    estimates["roulette_balance_sd"] = estimates.pop("roulette_sd")
+
+    rho_values = rho_sd = None
+    if edges is not None:
+        areas = math.pi * (edges[1:] ** 2 - edges[:-1] ** 2)
+        mean, se = _mean_and_se(rho_weights, counts)
+        rho_values, rho_sd = mean / areas, se / areas
+    sigma = estimates["diffuse_reflectance_sd"]
+    figure_of_merit = 1.0 / (sigma**2 * seconds) if sigma > 0 and seconds > 0 else math.inf
+
+    return MonteCarloResult(
+        geometry=geometry,
+        estimator=estimator,
+        mua_per_mm=mua,
+        mus_per_mm=mus,
+        g=g,
+        n=n,
+        n_outside=n_outside,
+        n_slide=slide,
+        thickness_mm=thickness,
+        backscatter_probability=backscatter,
+        specular_reflectance=specular,
+        specular_reflectance_sd=0.0,
+        rho_mm=None if edges is None else check_rho_grid(rho_mm),
+        rho_edges_mm=edges,
+        reflectance_per_mm2=rho_values,
+        reflectance_per_mm2_sd=rho_sd,
+        photons=photons,
+        batches=batches,
+        seed=seed,
+        threads=threads,
+        interactions=int(tallies[:, names.index("interactions")].sum()),
+        seconds=seconds,
+        figure_of_merit=figure_of_merit,
+        **estimates,
+    )
