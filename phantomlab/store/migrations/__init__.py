@@ -1,0 +1,1 @@
+"""Alembic migrations of the batch log, run by :func:`phantomlab.store.open_store`."""

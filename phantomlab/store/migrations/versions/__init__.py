@@ -1,0 +1,1 @@
+"""One module per schema revision, oldest first (``0001_...``, ``0002_...``)."""
