@@ -41,7 +41,7 @@ def main() -> None:
     # Intrinsic attenuation of the undiluted ink: 320 (lambda/600 nm)^-0.85 [1/mm].
     attenuation = 320.0 * (w / 600.0) ** -0.85
     rows = []
-    for fraction in (2.0e-4, 4.0e-4, 6.0e-4, 8.0e-4):
+    for fraction in (1.5e-4, 3.0e-4, 4.5e-4, 6.0e-4):
         absorbance = attenuation * fraction * 10.0 / np.log(10.0)
         # a small invented scatter of the readings (fixed, reproducible)
         wobble = 1.0 + 0.004 * np.sin(w / 37.0 + fraction * 1.0e4)
