@@ -1,0 +1,426 @@
+"""Diffusion-approximation reflectance of a semi-infinite turbid medium (layer 2).
+
+Three measurements, one physical picture: a pencil beam (or a sinusoidal pattern) falls
+normally on a homogeneous half-space of absorption μa and reduced scattering μs′ with
+refractive index ``n`` under a medium of index ``n_outside``; the first reduced
+interaction at depth z0 = 1/μt′ (μt′ = μa + μs′) is an isotropic source of strength
+a′ = μs′/μt′; the index mismatch enters through the extrapolated boundary z_b = 2 A D
+(D = 1/(3 μt′)), with A from :mod:`phantomlab.transport.boundary`.
+
+* :func:`srdr_reflectance` — spatially resolved reflectance R(ρ) [1/mm²], models in
+  :data:`SRDR_MODELS`: ``farrell1992`` (the flux, Farrell, Patterson & Wilson 1992) and
+  ``kienle1997`` (fluence plus flux, Kienle & Patterson 1997);
+* :func:`total_diffuse_reflectance` — R(ρ) integrated over the surface, in closed form;
+* :func:`sfdi_reflectance` — diffuse reflectance of a pattern of spatial frequency fx
+  (Cuccia et al. 2009).
+
+All are vectorised: per-wavelength inputs (``mua_per_mm``, ``musp_per_mm``, ``n``,
+``n_outside``) broadcast to one shape S (usually (W,)); a grid ``rho_mm`` or ``fx_per_mm``
+of shape G gives a result of shape S + G, e.g. (W,) × (R,) → (W, R).
+
+Diffusion is poor within about one transport mean free path 1/μt′ of the source and when
+μs′ is not much larger than μa; both cases raise a :class:`PhantomlabWarning` naming the
+value and the range, and the numbers are still returned.
+
+References
+----------
+Farrell TJ, Patterson MS, Wilson B 1992, Med Phys 19:879–888, doi:10.1118/1.596777.
+Kienle A, Patterson MS 1997, J Opt Soc Am A 14:246–254, doi:10.1364/JOSAA.14.000246.
+Cuccia DJ, Bevilacqua F, Durkin AJ, Ayers FR, Tromberg BJ 2009, J Biomed Opt 14:024012,
+doi:10.1117/1.3088140.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+from phantomlab.errors import PhantomlabWarning
+from phantomlab.transport.arguments import (
+    as_coefficient,
+    as_index,
+    as_length_grid,
+    as_spectral,
+    choose,
+)
+from phantomlab.transport.boundary import (
+    boundary_coefficient,
+    effective_reflection_coefficient,
+    fluence_flux_coefficients_Kienle1997,
+)
+
+__all__ = [
+    "SRDR_MODELS",
+    "DEFAULT_BOUNDARY",
+    "srdr_reflectance",
+    "srdr_diffusion_Farrell1992",
+    "srdr_diffusion_Kienle1997",
+    "total_diffuse_reflectance",
+    "sfdi_reflectance",
+    "sfdi_diffusion_Cuccia2009",
+    "MIN_MUSP_TO_MUA_RATIO",
+]
+
+#: Below this μs′/μa the diffusion approximation is flagged as poor.
+#: common practice, no source (diffusion texts ask for μs′ ≫ μa; a factor 10 is the usual line)
+MIN_MUSP_TO_MUA_RATIO = 10.0
+
+#: The boundary method each model was published with (used when ``boundary=None``).
+DEFAULT_BOUNDARY = {"farrell1992": "groenhuis1983", "kienle1997": "haskell1994"}
+
+
+@dataclass(frozen=True)
+class _Medium:
+    """Per-wavelength diffusion quantities, all of one broadcast shape S."""
+
+    mua: np.ndarray  # [1/mm]
+    musp: np.ndarray  # [1/mm]
+    mutp: np.ndarray  # μt′ = μa + μs′ [1/mm]
+    albedo: np.ndarray  # a′ = μs′/μt′
+    d: np.ndarray  # D = 1/(3 μt′) [mm]
+    mueff: np.ndarray  # √(3 μa μt′) [1/mm]
+    z0: np.ndarray  # 1/μt′ [mm]
+    zb: np.ndarray  # 2 A D [mm]
+    n: np.ndarray  # index of the medium
+    n_outside: np.ndarray  # index outside
+
+
+def _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary: str) -> _Medium:
+    mua = as_coefficient(mua_per_mm, "mua_per_mm")
+    musp = as_coefficient(musp_per_mm, "musp_per_mm", strictly_positive=True)
+    n = as_index(n, "n")
+    n_outside = as_index(n_outside, "n_outside")
+    mua, musp, n, n_outside = as_spectral(
+        mua_per_mm=mua, musp_per_mm=musp, n=n, n_outside=n_outside
+    )
+    a_coef = np.asarray(boundary_coefficient(n=n, n_outside=n_outside, method=boundary))
+    _warn_scattering_dominance(mua, musp)
+    mutp = mua + musp
+    d = 1.0 / (3.0 * mutp)
+    return _Medium(
+        mua=mua,
+        musp=musp,
+        mutp=mutp,
+        albedo=musp / mutp,
+        d=d,
+        mueff=np.sqrt(3.0 * mua * mutp),
+        z0=1.0 / mutp,
+        zb=2.0 * a_coef * d,
+        n=n,
+        n_outside=n_outside,
+    )
+
+
+def _warn_scattering_dominance(mua: np.ndarray, musp: np.ndarray) -> None:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = np.where(mua > 0, musp / mua, np.inf)
+    finite = ratio[np.isfinite(ratio)]
+    if finite.size and finite.min() < MIN_MUSP_TO_MUA_RATIO:
+        warnings.warn(
+            f"diffusion is poor unless musp >> mua: musp/mua = {finite.min():.3g} here,"
+            f" wanted >= {MIN_MUSP_TO_MUA_RATIO:g}",
+            PhantomlabWarning,
+            stacklevel=4,
+        )
+
+
+def _warn_close_to_source(rho: np.ndarray, medium: _Medium) -> None:
+    mfp = medium.z0[np.isfinite(medium.z0)]
+    near = rho[np.isfinite(rho)]
+    if mfp.size and near.size and near.min() < mfp.max():
+        warnings.warn(
+            f"diffusion R(rho) is poor within one transport mean free path of the source:"
+            f" rho_mm = {near.min():.3g} < 1/(mua+musp) = {mfp.max():.3g} mm",
+            PhantomlabWarning,
+            stacklevel=4,
+        )
+
+
+def _expand(medium: _Medium, grid: np.ndarray):
+    """Broadcast S-shaped medium arrays against a G-shaped grid → S + G."""
+    extra = (None,) * grid.ndim
+
+    def spread(values):
+        return values[(Ellipsis,) + extra]
+
+    return spread, grid[(None,) * medium.mua.ndim + (Ellipsis,)]
+
+
+def _dipole_terms(medium: _Medium, rho: np.ndarray):
+    """Fluence Φ(ρ, 0) and outward flux j(ρ, 0) of the extrapolated-boundary dipole."""
+    spread, r = _expand(medium, rho)
+    z0, zb, mueff, d, albedo = (
+        spread(v) for v in (medium.z0, medium.zb, medium.mueff, medium.d, medium.albedo)
+    )
+    zp = z0 + 2.0 * zb  # depth of the image source above the extrapolated boundary
+    r1 = np.sqrt(z0 * z0 + r * r)
+    r2 = np.sqrt(zp * zp + r * r)
+    e1 = np.exp(-mueff * r1)
+    e2 = np.exp(-mueff * r2)
+    # Farrell et al. 1992: the flux −D ∂Φ/∂z through the surface z = 0.
+    flux = albedo / (4.0 * np.pi) * (
+        z0 * (mueff + 1.0 / r1) * e1 / (r1 * r1) + zp * (mueff + 1.0 / r2) * e2 / (r2 * r2)
+    )
+    # Fluence of the same source and its image at z = 0 (Kienle & Patterson 1997).
+    fluence = albedo / (4.0 * np.pi * d) * (e1 / r1 - e2 / r2)
+    return fluence, flux
+
+
+def srdr_diffusion_Farrell1992(
+    *, mua_per_mm, musp_per_mm, rho_mm, n, n_outside=1.0, boundary="groenhuis1983"
+):
+    """Spatially resolved reflectance R(ρ) as the diffuse flux through the surface.
+
+    R(ρ) = a′/(4π) [ z0 (μeff + 1/r1) e^(−μeff r1)/r1² + (z0 + 2z_b)(μeff + 1/r2) e^(−μeff r2)/r2² ],
+    r1² = z0² + ρ², r2² = (z0 + 2z_b)² + ρ², z0 = 1/μt′, z_b = 2AD, D = 1/(3μt′),
+    μeff = √(3 μa μt′).
+
+    Parameters
+    ----------
+    mua_per_mm : float or array (S) [1/mm]
+        Absorption coefficient (>= 0).
+    musp_per_mm : float or array (S) [1/mm]
+        Reduced scattering coefficient (> 0).
+    rho_mm : float or array (G) [mm]
+        Source–detector distances (>= 0).
+    n, n_outside : float or array (S) [dimensionless]
+        Refractive index of the medium and of what is outside.
+    boundary : str
+        Method for A (:data:`phantomlab.transport.boundary.BOUNDARY_METHODS`).  The paper
+        used the Groenhuis polynomial.
+
+    Returns
+    -------
+    ndarray (S + G) [1/mm²]
+        Reflected power per unit area per unit incident power.
+
+    References
+    ----------
+    Farrell, Patterson & Wilson 1992, Med Phys 19:879 (the dipole reflectance).
+    """
+    medium = _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary)
+    rho = as_length_grid(rho_mm, "rho_mm")
+    _warn_close_to_source(rho, medium)
+    _, flux = _dipole_terms(medium, rho)
+    return flux[()] if flux.ndim == 0 else flux
+
+
+def srdr_diffusion_Kienle1997(
+    *, mua_per_mm, musp_per_mm, rho_mm, n, n_outside=1.0, boundary="haskell1994"
+):
+    """Spatially resolved reflectance R(ρ) = C1 Φ(ρ, 0) + C2 j(ρ, 0).
+
+    Φ = a′/(4πD) [e^(−μeff r1)/r1 − e^(−μeff r2)/r2] and j is the flux of
+    :func:`srdr_diffusion_Farrell1992`; C1 = (1 − R_φ)/4, C2 = (1 − R_j)/2 from the Fresnel
+    integrals (:func:`~phantomlab.transport.boundary.fluence_flux_coefficients_Kienle1997`).
+
+    Departure from the paper: the source strength is a′ (as in Farrell et al. 1992) so that
+    the two models differ only in how light crosses the surface; the paper's comparison of
+    the two boundary treatments is unaffected by this common factor.
+
+    Parameters
+    ----------
+    mua_per_mm, musp_per_mm, rho_mm, n, n_outside, boundary
+        As :func:`srdr_diffusion_Farrell1992` (A by ``haskell1994`` by default, as in the paper).
+
+    Returns
+    -------
+    ndarray (S + G) [1/mm²]
+
+    References
+    ----------
+    Kienle & Patterson 1997, J Opt Soc Am A 14:246 (R = C1 Φ + C2 j).
+    """
+    medium = _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary)
+    rho = as_length_grid(rho_mm, "rho_mm")
+    _warn_close_to_source(rho, medium)
+    fluence, flux = _dipole_terms(medium, rho)
+    c1, c2 = fluence_flux_coefficients_Kienle1997(n=medium.n, n_outside=medium.n_outside)
+    spread, _ = _expand(medium, rho)
+    value = spread(np.asarray(c1)) * fluence + spread(np.asarray(c2)) * flux
+    return value[()] if value.ndim == 0 else value
+
+
+#: Registry of spatially resolved reflectance models (name → function).
+SRDR_MODELS: dict[str, Callable] = {
+    "farrell1992": srdr_diffusion_Farrell1992,
+    "kienle1997": srdr_diffusion_Kienle1997,
+}
+
+
+def srdr_reflectance(
+    *, mua_per_mm, musp_per_mm, rho_mm, n, n_outside=1.0, model="farrell1992", boundary=None
+):
+    """Spatially resolved diffuse reflectance R(ρ) by a named diffusion model.
+
+    Parameters
+    ----------
+    mua_per_mm : float or array (S) [1/mm]
+    musp_per_mm : float or array (S) [1/mm]
+    rho_mm : float or array (G) [mm]
+    n, n_outside : float or array (S) [dimensionless]
+    model : {'farrell1992', 'kienle1997'}
+        See :data:`SRDR_MODELS`; an unknown name is refused with the valid list.
+    boundary : {'groenhuis1983', 'haskell1994'} or None
+        Method for the boundary coefficient A; None takes the model's published choice
+        (:data:`DEFAULT_BOUNDARY`).
+
+    Returns
+    -------
+    ndarray (S + G) [1/mm²]
+
+    References
+    ----------
+    Farrell et al. 1992, Med Phys 19:879; Kienle & Patterson 1997, J Opt Soc Am A 14:246.
+    """
+    function = choose(SRDR_MODELS, model, "srdr model")
+    method = DEFAULT_BOUNDARY[model] if boundary is None else boundary
+    return function(
+        mua_per_mm=mua_per_mm,
+        musp_per_mm=musp_per_mm,
+        rho_mm=rho_mm,
+        n=n,
+        n_outside=n_outside,
+        boundary=method,
+    )
+
+
+def total_diffuse_reflectance(
+    *, mua_per_mm, musp_per_mm, n, n_outside=1.0, boundary=None, model="farrell1992"
+):
+    """Diffuse reflectance of the half-space, R(ρ) integrated over the surface.
+
+    For ``farrell1992`` (the flux):
+    Rd = (a′/2) e^(−√(3(1 − a′))) [1 + e^(−(4/3) A √(3(1 − a′)))]  (CHECKS.md; the closed-form
+    integral 2π ∫ R ρ dρ of the Farrell dipole).  For ``kienle1997``:
+    Rd = C1 a′/(2 D μeff) [e^(−μeff z0) − e^(−μeff (z0 + 2z_b))] + C2 (a′/2) [e^(−μeff z0) +
+    e^(−μeff (z0 + 2z_b))], the same integral of C1 Φ + C2 j (its μa → 0 limit is
+    C1 · 2A a′ + C2 a′).
+
+    Parameters
+    ----------
+    mua_per_mm, musp_per_mm, n, n_outside : float or array (S)
+    boundary : str or None
+        Method for A; None takes the model's published choice.
+    model : {'farrell1992', 'kienle1997'}
+
+    Returns
+    -------
+    ndarray (S) [dimensionless]
+        Fraction of the incident power reflected diffusely (no specular part).
+
+    References
+    ----------
+    Farrell et al. 1992, Med Phys 19:879; Kienle & Patterson 1997, J Opt Soc Am A 14:246.
+    """
+    choose(SRDR_MODELS, model, "srdr model")
+    method = DEFAULT_BOUNDARY[model] if boundary is None else boundary
+    medium = _medium(mua_per_mm, musp_per_mm, n, n_outside, method)
+    near = np.exp(-medium.mueff * medium.z0)
+    far = np.exp(-medium.mueff * (medium.z0 + 2.0 * medium.zb))
+    flux_total = 0.5 * medium.albedo * (near + far)
+    if model == "farrell1992":
+        value = flux_total
+    else:
+        # ∫ Φ dA = a′/(2 D μeff) (near − far); its μeff → 0 limit is a′ 2 z_b / (2D) = 2 A a′.
+        gap = 2.0 * medium.zb
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio = np.where(
+                medium.mueff > 0,
+                -near * np.expm1(-medium.mueff * gap) / medium.mueff,
+                gap,
+            )
+        fluence_total = medium.albedo / (2.0 * medium.d) * ratio
+        c1, c2 = fluence_flux_coefficients_Kienle1997(n=medium.n, n_outside=medium.n_outside)
+        value = c1 * fluence_total + c2 * flux_total
+    value = np.asarray(value)
+    return value[()] if value.ndim == 0 else value
+
+
+def sfdi_diffusion_Cuccia2009(
+    *, mua_per_mm, musp_per_mm, fx_per_mm, n, n_outside=1.0, boundary="groenhuis1983"
+):
+    """Diffuse reflectance of a sinusoidal illumination pattern of spatial frequency fx.
+
+    R(fx) = 3A a′ / ((μeff′/μtr + 1)(μeff′/μtr + 3A)), μeff′ = √(μeff² + (2π fx)²),
+    μtr = μa + μs′, a′ = μs′/μtr, with the paper's own boundary convention
+    A = (1 − R_eff) / (2 (1 + R_eff)) (not the A of the extrapolated boundary).
+
+    Parameters
+    ----------
+    mua_per_mm : float or array (S) [1/mm]
+    musp_per_mm : float or array (S) [1/mm]
+    fx_per_mm : float or array (G) [1/mm]
+        Spatial frequencies of the pattern (>= 0).
+    n, n_outside : float or array (S) [dimensionless]
+    boundary : str
+        Method for R_eff; the paper used the Groenhuis-type polynomial.
+
+    Returns
+    -------
+    ndarray (S + G) [dimensionless]
+        1 for μa = 0 at fx = 0; → 0 as fx → ∞.
+
+    References
+    ----------
+    Cuccia et al. 2009, J Biomed Opt 14:024012 (diffuse reflectance R_d(k), k = 2π fx).
+    """
+    mua = as_coefficient(mua_per_mm, "mua_per_mm")
+    musp = as_coefficient(musp_per_mm, "musp_per_mm", strictly_positive=True)
+    n_arr = as_index(n, "n")
+    n_out = as_index(n_outside, "n_outside")
+    mua, musp, n_arr, n_out = as_spectral(
+        mua_per_mm=mua, musp_per_mm=musp, n=n_arr, n_outside=n_out
+    )
+    fx = as_length_grid(fx_per_mm, "fx_per_mm", "1/mm")
+    _warn_scattering_dominance(mua, musp)
+    r_eff = np.asarray(effective_reflection_coefficient(n=n_arr, n_outside=n_out, method=boundary))
+    a_cuccia = (1.0 - r_eff) / (2.0 * (1.0 + r_eff))  # Cuccia et al. 2009, their A
+    mutr = mua + musp
+    high = fx[np.isfinite(fx)]
+    limit = mutr[np.isfinite(mutr)]
+    if high.size and limit.size and 2.0 * np.pi * high.max() > limit.min():
+        warnings.warn(
+            f"diffusion R(fx) is poor when the pattern is finer than a transport mean free path:"
+            f" fx_per_mm = {high.max():.3g} > (mua+musp)/(2 pi) = {limit.min() / (2 * np.pi):.3g} /mm",
+            PhantomlabWarning,
+            stacklevel=3,
+        )
+    extra = (None,) * fx.ndim
+    k = 2.0 * np.pi * fx[(None,) * mua.ndim + (Ellipsis,)]
+    mutr_g = mutr[(Ellipsis,) + extra]
+    a_g = a_cuccia[(Ellipsis,) + extra]
+    albedo = (musp / mutr)[(Ellipsis,) + extra]
+    mueff2 = (3.0 * mua * mutr)[(Ellipsis,) + extra]
+    ratio = np.sqrt(mueff2 + k * k) / mutr_g
+    value = 3.0 * a_g * albedo / ((ratio + 1.0) * (ratio + 3.0 * a_g))
+    return value[()] if value.ndim == 0 else value
+
+
+def sfdi_reflectance(
+    *, mua_per_mm, musp_per_mm, fx_per_mm, n, n_outside=1.0, boundary="groenhuis1983"
+):
+    """Spatial-frequency-domain diffuse reflectance R(fx) (diffusion, Cuccia et al. 2009).
+
+    Front function of :func:`sfdi_diffusion_Cuccia2009` (the one published model so far);
+    ``boundary`` selects the method for R_eff.
+
+    Returns
+    -------
+    ndarray (S + G) [dimensionless]
+
+    References
+    ----------
+    Cuccia et al. 2009, J Biomed Opt 14:024012.
+    """
+    return sfdi_diffusion_Cuccia2009(
+        mua_per_mm=mua_per_mm,
+        musp_per_mm=musp_per_mm,
+        fx_per_mm=fx_per_mm,
+        n=n,
+        n_outside=n_outside,
+        boundary=boundary,
+    )
