@@ -1,0 +1,496 @@
+"""Refractive-index formulas of phantom materials (layer 1), one function per published formula.
+
+Every formula takes ``wavelength_nm`` (vacuum wavelength, nm) keyword-only and returns the
+real refractive index as a float array of the same shape.  Outside the band a formula was
+fitted on, a :class:`~phantomlab.errors.PhantomlabWarning` names the value and the band.
+
+The front function :func:`refractive_index` picks a formula from :data:`INDEX_MODELS` by
+material name; an unknown name is refused with the list of valid ones.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.materials.water import water_density_Kell1975
+
+__all__ = [
+    "IndexModel",
+    "INDEX_MODELS",
+    "refractive_index",
+    "index_model",
+    "water_index_IAPWS1997",
+    "polystyrene_index_Ma2003",
+    "silica_index_Malitson1965",
+    "rutile_index_DeVore1951",
+    "alumina_index_MalitsonDodge1972",
+    "pmma_index_Sultanova2009",
+    "silicone_index_constant",
+    "epoxy_index_constant",
+    "gelatin_index_water_offset",
+    "agar_index_water_offset",
+]
+
+
+def _wavelength_um(wavelength_nm) -> np.ndarray:
+    try:
+        wavelength = np.asarray(wavelength_nm, dtype=float)
+    except (TypeError, ValueError):
+        raise InputError(
+            f"wavelength_nm must be a number or an array of numbers [nm], got {wavelength_nm!r}"
+        ) from None
+    finite = wavelength[np.isfinite(wavelength)]
+    if finite.size and finite.min() <= 0:
+        raise InputError(f"wavelength_nm must be > 0 nm, got {finite.min():g}")
+    return wavelength / 1000.0
+
+
+def _check_band(name: str, wavelength_um: np.ndarray, band_nm: tuple[float, float]) -> None:
+    finite = wavelength_um[np.isfinite(wavelength_um)] * 1000.0
+    lo, hi = band_nm
+    if finite.size and (finite.min() < lo - 1e-9 or finite.max() > hi + 1e-9):
+        warnings.warn(
+            f"{name}: wavelength {finite.min():g}–{finite.max():g} nm outside the "
+            f"{lo:g}–{hi:g} nm the formula was fitted on",
+            PhantomlabWarning,
+            stacklevel=3,
+        )
+
+
+def _sellmeier(wavelength_um, b, c_um):
+    """n² − 1 = Σ B_i λ² / (λ² − C_i²), resonances C_i in µm."""
+    l2 = wavelength_um**2
+    n2 = 1.0 + sum(bi * l2 / (l2 - ci**2) for bi, ci in zip(b, c_um))
+    return np.sqrt(n2)
+
+
+# ---- water ------------------------------------------------------------------------------------
+
+#: IAPWS R9-97 coefficients a0…a7 (ref. eq. 1) and reduced constants.
+_IAPWS_A = (
+    0.244257733,
+    9.74634476e-3,
+    -3.73234996e-3,
+    2.68678472e-4,
+    1.58920570e-3,
+    2.45934259e-3,
+    0.900704920,
+    -1.66626219e-2,
+)
+_IAPWS_LAMBDA_UV = 0.2292020  # reduced, λ*/0.589 µm
+_IAPWS_LAMBDA_IR = 5.432937
+_IAPWS_T_REF_K = 273.15
+_IAPWS_RHO_REF_KG_M3 = 1000.0
+_IAPWS_LAMBDA_REF_UM = 0.589
+WATER_IAPWS1997_BAND_NM = (200.0, 1100.0)
+
+
+def water_index_IAPWS1997(*, wavelength_nm, temperature_c=20.0, density_kg_m3=None) -> np.ndarray:
+    """Refractive index of liquid water, IAPWS R9-97.
+
+    Parameters
+    ----------
+    wavelength_nm : float or array [nm]
+        Vacuum wavelength; the formula covers 200–1100 nm (warning outside).
+    temperature_c : float or array [°C]
+        The release covers −12 to 500 °C; the density default (Kell 1975) covers 0–150 °C.
+    density_kg_m3 : float or array [kg/m³], optional
+        Density of the water; by default the density of liquid water at 1 atm from
+        :func:`~phantomlab.materials.water.water_density_Kell1975` (Kell 1975).
+
+    Returns
+    -------
+    ndarray [dimensionless]
+
+    Notes
+    -----
+    (n² − 1)/(n² + 2) · 1/ρ̄ = a0 + a1 ρ̄ + a2 T̄ + a3 λ̄² T̄ + a4/λ̄² + a5/(λ̄² − λ̄UV²)
+    + a6/(λ̄² − λ̄IR²) + a7 ρ̄²  with T̄ = T/273.15 K, ρ̄ = ρ/1000 kg/m³, λ̄ = λ/0.589 µm.
+
+    References
+    ----------
+    1. IAPWS (1997). Release on the Refractive Index of Ordinary Water Substance as a
+       Function of Wavelength, Temperature and Pressure (R9-97), eq. 1 and Table 1.
+    2. Harvey, A. H., Gallagher, J. S. & Levelt Sengers, J. M. H. (1998). Revised formulation
+       for the refractive index of water and steam as a function of wavelength, temperature
+       and density. J. Phys. Chem. Ref. Data 27(4), 761–774. doi:10.1063/1.556029
+    3. Kell, G. S. (1975). J. Chem. Eng. Data 20(1), 97–105 (the density default).
+    """
+    wavelength_um = _wavelength_um(wavelength_nm)
+    _check_band("water (IAPWS R9-97)", wavelength_um, WATER_IAPWS1997_BAND_NM)
+    temperature = np.asarray(temperature_c, dtype=float)
+    if density_kg_m3 is None:
+        density = water_density_Kell1975(temperature_c=temperature) * 1000.0
+    else:
+        density = np.asarray(density_kg_m3, dtype=float)
+    t = (temperature + 273.15) / _IAPWS_T_REF_K
+    rho = density / _IAPWS_RHO_REF_KG_M3
+    lam = wavelength_um / _IAPWS_LAMBDA_REF_UM
+    a = _IAPWS_A
+    lam2 = lam**2
+    rhs = (  # R9-97 eq. 1
+        a[0]
+        + a[1] * rho
+        + a[2] * t
+        + a[3] * lam2 * t
+        + a[4] / lam2
+        + a[5] / (lam2 - _IAPWS_LAMBDA_UV**2)
+        + a[6] / (lam2 - _IAPWS_LAMBDA_IR**2)
+        + a[7] * rho**2
+    )
+    lorentz = rhs * rho  # (n² − 1)/(n² + 2)
+    return np.sqrt((1.0 + 2.0 * lorentz) / (1.0 - lorentz))
+
+
+# ---- polymers, oxides -------------------------------------------------------------------------
+
+POLYSTYRENE_MA2003_BAND_NM = (370.0, 1610.0)
+
+
+def polystyrene_index_Ma2003(*, wavelength_nm, temperature_c=20.0) -> np.ndarray:
+    """Refractive index of polystyrene microspheres (Cauchy form).
+
+    n = 1.5725 + 0.0031080/λ² + 0.00034779/λ⁴, λ in µm, fitted 370–1610 nm.
+
+    Parameters
+    ----------
+    wavelength_nm : float or array [nm]
+    temperature_c : float or array [°C]
+        Accepted for a uniform interface; not used (the paper gives no temperature term).
+
+    Returns
+    -------
+    ndarray [dimensionless]
+
+    References
+    ----------
+    1. Ma, X., Lu, J. Q., Brock, R. S., Jacobs, K. M., Yang, P. & Hu, X.-H. (2003).
+       Determination of complex refractive index of polystyrene microspheres from 370 to
+       1610 nm. Phys. Med. Biol. 48(24), 4165–4172. doi:10.1088/0031-9155/48/24/013
+    """
+    wavelength_um = _wavelength_um(wavelength_nm)
+    _check_band("polystyrene (Ma 2003)", wavelength_um, POLYSTYRENE_MA2003_BAND_NM)
+    return 1.5725 + 0.0031080 / wavelength_um**2 + 0.00034779 / wavelength_um**4  # Ma 2003
+
+
+SILICA_MALITSON1965_BAND_NM = (210.0, 3710.0)
+
+
+def silica_index_Malitson1965(*, wavelength_nm, temperature_c=20.0) -> np.ndarray:
+    """Refractive index of fused silica, three-term Sellmeier, 20 °C.
+
+    Parameters
+    ----------
+    wavelength_nm : float or array [nm]
+        Fitted 210–3710 nm.
+    temperature_c : float or array [°C]
+        Not used (the formula is for 20 °C).
+
+    Returns
+    -------
+    ndarray [dimensionless]
+
+    References
+    ----------
+    1. Malitson, I. H. (1965). Interspecimen comparison of the refractive index of fused
+       silica. J. Opt. Soc. Am. 55(10), 1205–1209. doi:10.1364/JOSA.55.001205
+    """
+    wavelength_um = _wavelength_um(wavelength_nm)
+    _check_band("silica (Malitson 1965)", wavelength_um, SILICA_MALITSON1965_BAND_NM)
+    return _sellmeier(  # Malitson 1965, Sellmeier with three terms
+        wavelength_um, (0.6961663, 0.4079426, 0.8974794), (0.0684043, 0.1162414, 9.896161)
+    )
+
+
+RUTILE_DEVORE1951_BAND_NM = (430.0, 1530.0)
+
+
+def rutile_index_DeVore1951(*, wavelength_nm, temperature_c=20.0) -> np.ndarray:
+    """Ordinary-ray refractive index of rutile TiO₂.
+
+    n_o² = 5.913 + 0.2441/(λ² − 0.0803), λ in µm.
+
+    Parameters
+    ----------
+    wavelength_nm : float or array [nm]
+        The measurements span about 430–1530 nm (band from memory; warning outside).
+    temperature_c : float or array [°C]
+        Not used.
+
+    Returns
+    -------
+    ndarray [dimensionless]
+
+    Notes
+    -----
+    Rutile is birefringent (n_e ≈ n_o + 0.29).  Pigment grains are randomly oriented, and
+    the ordinary index is used as the grain index; Mie for a powder is a first guess that
+    the calibration loop corrects, and the birefringence is one reason why.
+
+    References
+    ----------
+    1. DeVore, J. R. (1951). Refractive indices of rutile and sphalerite. J. Opt. Soc. Am.
+       41(6), 416–419. doi:10.1364/JOSA.41.000416
+    """
+    wavelength_um = _wavelength_um(wavelength_nm)
+    _check_band("rutile (DeVore 1951)", wavelength_um, RUTILE_DEVORE1951_BAND_NM)
+    return np.sqrt(5.913 + 0.2441 / (wavelength_um**2 - 0.0803))  # DeVore 1951, ordinary ray
+
+
+ALUMINA_MALITSONDODGE1972_BAND_NM = (200.0, 5500.0)
+
+
+def alumina_index_MalitsonDodge1972(*, wavelength_nm, temperature_c=20.0) -> np.ndarray:
+    """Ordinary-ray refractive index of α-Al₂O₃ (sapphire), three-term Sellmeier.
+
+    Parameters
+    ----------
+    wavelength_nm : float or array [nm]
+        Fitted about 200–5500 nm (band from memory; warning outside).
+    temperature_c : float or array [°C]
+        Not used.
+
+    Returns
+    -------
+    ndarray [dimensionless]
+
+    References
+    ----------
+    1. Malitson, I. H. & Dodge, M. J. (1972). Refractive index and birefringence of
+       synthetic sapphire. J. Opt. Soc. Am. 62, 1405 (abstract).
+    """
+    wavelength_um = _wavelength_um(wavelength_nm)
+    _check_band("alumina (Malitson & Dodge 1972)", wavelength_um, ALUMINA_MALITSONDODGE1972_BAND_NM)
+    return _sellmeier(  # Malitson & Dodge 1972, ordinary ray
+        wavelength_um, (1.4313493, 0.65054713, 5.3414021), (0.0726631, 0.1193242, 18.028251)
+    )
+
+
+PMMA_SULTANOVA2009_BAND_NM = (437.0, 1052.0)
+
+
+def pmma_index_Sultanova2009(*, wavelength_nm, temperature_c=20.0) -> np.ndarray:
+    """Refractive index of PMMA, one-term Sellmeier.
+
+    n² − 1 = 1.1819 λ²/(λ² − 0.011313), λ in µm.
+
+    Parameters
+    ----------
+    wavelength_nm : float or array [nm]
+        Measured about 437–1052 nm (band from memory; warning outside).
+    temperature_c : float or array [°C]
+        Not used.
+
+    Returns
+    -------
+    ndarray [dimensionless]
+
+    References
+    ----------
+    1. Sultanova, N., Kasarova, S. & Nikolov, I. (2009). Dispersion properties of optical
+       polymers. Acta Phys. Pol. A 116(4), 585–587. doi:10.12693/APhysPolA.116.585
+    """
+    wavelength_um = _wavelength_um(wavelength_nm)
+    _check_band("PMMA (Sultanova 2009)", wavelength_um, PMMA_SULTANOVA2009_BAND_NM)
+    l2 = wavelength_um**2
+    return np.sqrt(1.0 + 1.1819 * l2 / (l2 - 0.011313))  # Sultanova 2009
+
+
+# ---- matrices given as constants or offsets (common practice) --------------------------------
+
+#: Index of cured PDMS silicone, vis–NIR.  Common practice, no source: FIELD notes give
+#: 1.40–1.43 for platinum-cure PDMS; 1.41 is the value usually quoted for the common
+#: two-part 10:1 kits.  No published dispersion formula is used.
+SILICONE_INDEX = 1.41
+#: Index of cured epoxy, vis–NIR.  Common practice, no source (FIELD notes: 1.54–1.57).
+EPOXY_INDEX = 1.55
+#: Offset of a 5–20 % w/v gelatin gel above water.  Common practice, no source: FIELD notes
+#: give n ≈ 1.35 for such gels against 1.33 for water.
+GELATIN_OFFSET = 0.02
+#: Offset of a 0.5–2 % agar/agarose gel above water.  Common practice, no source (FIELD
+#: notes: n ≈ 1.33–1.34).
+AGAR_OFFSET = 0.003
+
+
+def _constant(value: float, wavelength_nm) -> np.ndarray:
+    wavelength_um = _wavelength_um(wavelength_nm)
+    return np.where(np.isfinite(wavelength_um), value, np.nan)
+
+
+def silicone_index_constant(*, wavelength_nm, temperature_c=20.0) -> np.ndarray:
+    """Refractive index of cured PDMS silicone: the constant 1.41 (common practice, no source).
+
+    Parameters
+    ----------
+    wavelength_nm : float or array [nm]
+    temperature_c : float or array [°C]
+        Not used.
+
+    Returns
+    -------
+    ndarray [dimensionless]
+
+    Notes
+    -----
+    No dispersion formula is applied: the kits differ more between brands (1.40–1.43) than
+    the dispersion changes the index over 400–1000 nm.  Measure your own cured base when
+    silica or another low-contrast scatterer is used in silicone.
+    """
+    return _constant(SILICONE_INDEX, wavelength_nm)
+
+
+def epoxy_index_constant(*, wavelength_nm, temperature_c=20.0) -> np.ndarray:
+    """Refractive index of cured epoxy: the constant 1.55 (common practice, no source).
+
+    Parameters
+    ----------
+    wavelength_nm : float or array [nm]
+    temperature_c : float or array [°C]
+        Not used.
+
+    Returns
+    -------
+    ndarray [dimensionless]
+    """
+    return _constant(EPOXY_INDEX, wavelength_nm)
+
+
+def gelatin_index_water_offset(*, wavelength_nm, temperature_c=20.0) -> np.ndarray:
+    """Refractive index of a gelatin gel: water (IAPWS R9-97) + 0.02 (common practice).
+
+    Parameters
+    ----------
+    wavelength_nm : float or array [nm]
+    temperature_c : float or array [°C]
+        Temperature of the water term.
+
+    Returns
+    -------
+    ndarray [dimensionless]
+    """
+    return water_index_IAPWS1997(wavelength_nm=wavelength_nm, temperature_c=temperature_c) + (
+        GELATIN_OFFSET
+    )
+
+
+def agar_index_water_offset(*, wavelength_nm, temperature_c=20.0) -> np.ndarray:
+    """Refractive index of an agar/agarose gel: water (IAPWS R9-97) + 0.003 (common practice).
+
+    Parameters
+    ----------
+    wavelength_nm : float or array [nm]
+    temperature_c : float or array [°C]
+        Temperature of the water term.
+
+    Returns
+    -------
+    ndarray [dimensionless]
+    """
+    return water_index_IAPWS1997(wavelength_nm=wavelength_nm, temperature_c=temperature_c) + (
+        AGAR_OFFSET
+    )
+
+
+# ---- registry ---------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class IndexModel:
+    """One entry of the refractive-index registry.
+
+    Attributes
+    ----------
+    name : str
+        Material name used in stock files (``material = "polystyrene"``).
+    function : callable
+        ``function(*, wavelength_nm, temperature_c) -> ndarray``.
+    source : str
+        Short citation, or "common practice, no source".
+    band_nm : tuple of float or None
+        Fitted band [nm]; None for constants.
+    water_based : bool
+        True when the material is mostly water (its background absorption is water's).
+    """
+
+    name: str
+    function: Callable[..., np.ndarray]
+    source: str
+    band_nm: tuple[float, float] | None
+    water_based: bool = False
+
+
+INDEX_MODELS: dict[str, IndexModel] = {
+    model.name: model
+    for model in (
+        IndexModel("water", water_index_IAPWS1997, "IAPWS R9-97 (1997)", WATER_IAPWS1997_BAND_NM, True),
+        IndexModel("polystyrene", polystyrene_index_Ma2003, "Ma et al. 2003", POLYSTYRENE_MA2003_BAND_NM),
+        IndexModel("silica", silica_index_Malitson1965, "Malitson 1965", SILICA_MALITSON1965_BAND_NM),
+        IndexModel("rutile", rutile_index_DeVore1951, "DeVore 1951 (ordinary ray)", RUTILE_DEVORE1951_BAND_NM),
+        IndexModel(
+            "alumina",
+            alumina_index_MalitsonDodge1972,
+            "Malitson & Dodge 1972 (ordinary ray)",
+            ALUMINA_MALITSONDODGE1972_BAND_NM,
+        ),
+        IndexModel("pmma", pmma_index_Sultanova2009, "Sultanova et al. 2009", PMMA_SULTANOVA2009_BAND_NM),
+        IndexModel("silicone", silicone_index_constant, "constant 1.41, common practice, no source", None),
+        IndexModel("epoxy", epoxy_index_constant, "constant 1.55, common practice, no source", None),
+        IndexModel(
+            "gelatin",
+            gelatin_index_water_offset,
+            "IAPWS R9-97 water + 0.02, common practice, no source",
+            WATER_IAPWS1997_BAND_NM,
+            True,
+        ),
+        IndexModel(
+            "agar",
+            agar_index_water_offset,
+            "IAPWS R9-97 water + 0.003, common practice, no source",
+            WATER_IAPWS1997_BAND_NM,
+            True,
+        ),
+    )
+}
+
+
+def index_model(material: str) -> IndexModel:
+    """Return the registry entry of ``material``; an unknown name is refused with the list."""
+    try:
+        return INDEX_MODELS[material]
+    except (KeyError, TypeError):
+        raise InputError(
+            f"unknown material {material!r}; known materials: {', '.join(sorted(INDEX_MODELS))}"
+        ) from None
+
+
+def refractive_index(material: str, *, wavelength_nm, temperature_c=20.0) -> np.ndarray:
+    """Refractive index of a registered material on any wavelength grid.
+
+    Parameters
+    ----------
+    material : str
+        A name of :data:`INDEX_MODELS` (water, polystyrene, silica, rutile, alumina, pmma,
+        silicone, epoxy, gelatin, agar).
+    wavelength_nm : float or array [nm]
+        Vacuum wavelength.
+    temperature_c : float [°C]
+        Used by the water-based models; the others ignore it.
+
+    Returns
+    -------
+    ndarray [dimensionless], the shape of ``wavelength_nm``
+
+    Raises
+    ------
+    InputError
+        Unknown material (the message lists the known ones) or a non-positive wavelength.
+    """
+    model = index_model(material)
+    return np.asarray(
+        model.function(wavelength_nm=wavelength_nm, temperature_c=temperature_c), dtype=float
+    )

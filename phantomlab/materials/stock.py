@@ -1,0 +1,884 @@
+"""The stock model and the stock file (layer 1): what is on the shelf.
+
+A stock file is TOML with one table per bottle under ``[stocks.KEY]`` (DESIGN.md).  Kinds:
+
+``matrix``
+    the base the phantom is made of: ``material`` (a refractive-index model name),
+    ``density_g_per_ml``; background absorption from ``water_volume_fraction`` (default 1
+    for water-based materials, else 0) × water (Hale & Querry 1973) + a constant
+    ``background_mua_per_mm``, or a measured ``spectrum_csv`` (wavelength_nm,mua_per_mm).
+``spheres``
+    a suspension of spheres: ``material``, ``diameter_um``, ``size_distribution`` (normal |
+    lognormal | histogram), ``size_cv``, or ``size_histogram_csv`` (diameter_um and
+    number_weight or volume_weight); strength ``solids_percent_w_v`` or
+    ``solids_percent_w_w``; ``particle_density_g_per_ml``; ``carrier`` (default water).
+``powder``
+    a dry powder (the stock *is* the particles): as spheres without strength or carrier.
+    Mie for separate spheres is only a first guess: grains aggregate.
+``emulsion``
+    a lipid emulsion described by a published empirical model: ``model = "michels2008"``
+    (20 % soybean-oil emulsion), ``lipid_percent_w_v``.
+``absorber``
+    exactly one of ``spectrum_csv`` (wavelength_nm,mua_per_mm or wavelength_nm,mut_per_mm),
+    ``extinction_csv`` (+ ``concentration_mol_per_l`` or ``concentration_mg_per_ml``, +
+    ``molar_mass_g_per_mol`` when needed) or ``cuvette_csv`` (+ ``cuvette_path_mm``); an
+    optional ``albedo`` and ``g`` for absorbers that also scatter (inks).
+
+Every stock carries ``potency`` (a factor on its whole strength), ``potency_sd``, ``lot``,
+an optional ``expiry`` date and ``hazards`` (keys of :data:`HAZARD_KEYS`).  A bad file is
+refused with one line naming the stock, the field and what is expected.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime as _dt
+import difflib
+import math
+import tomllib
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Iterator, Mapping
+
+import numpy as np
+
+from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.materials.refractive_index import INDEX_MODELS, index_model
+from phantomlab.materials.sizes import (
+    SizeDistribution,
+    histogram_sizes,
+    lognormal_sizes,
+    normal_sizes,
+)
+from phantomlab.materials.spectra import (
+    CsvTable,
+    DilutionFit,
+    fit_dilution_series,
+    mua_from_molar_extinction,
+    mua_from_specific_extinction,
+    read_csv_table,
+)
+
+__all__ = [
+    "KINDS",
+    "HAZARD_KEYS",
+    "EMULSION_MODELS",
+    "MatrixSpec",
+    "SpheresSpec",
+    "PowderSpec",
+    "EmulsionSpec",
+    "AbsorberSpec",
+    "Stock",
+    "Shelf",
+    "load_shelf",
+    "parse_shelf",
+]
+
+KINDS = ("matrix", "spheres", "powder", "emulsion", "absorber")
+
+#: Hazard keys a stock may carry, each with the caution a mixing sheet shows for it.
+HAZARD_KEYS: dict[str, str] = {
+    "nano_powder": "fine/nano powder: weigh in a ventilated enclosure, add powder to liquid, "
+    "clean up wet, wear a respirator rated for nano particles",
+    "powder": "fine powder: weigh in a ventilated enclosure, add powder to liquid, clean up wet",
+    "dye": "dye: gloves and eye protection; stains skin and benches",
+    "ink": "ink: gloves; carbon inks stain; treat every bottle as its own lot",
+    "solvent": "solvent: flammable; keep away from hot plates and sonicators, work in a fume hood",
+    "resin": "resin / hardener: sensitiser; gloves and ventilation; large pours can overheat",
+    "isocyanate": "isocyanate: respiratory sensitiser; fume hood and suitable respirator",
+    "hot_gel": "hot gel: scald risk; boiling agar and microwave superheating, use heat-proof gloves",
+    "biohazard": "blood product / biological: follow your institution's biohazard rules",
+}
+
+#: Emulsion models: name → (lipid percent w/v it describes, citation).
+EMULSION_MODELS: dict[str, tuple[float, str]] = {
+    "michels2008": (20.0, "Michels, Foschum & Kienle 2008, Opt. Express 16:5907"),
+}
+
+#: Density of soybean oil [g/mL] used to turn lipid % w/v into an oil volume fraction.
+#: From memory (soybean oil 0.917–0.921 g/mL at 20–25 °C); a stock may give
+#: ``solids_volume_fraction`` instead.
+SOYBEAN_OIL_DENSITY_G_PER_ML = 0.92
+
+_COMMON = {
+    "kind": "the stock kind",
+    "name": "a description",
+    "supplier": "who sold it",
+    "notes": "free text",
+    "lot": "the lot or bottle identifier",
+    "expiry": "a date YYYY-MM-DD",
+    "potency": "a number > 0",
+    "potency_sd": "a number >= 0",
+    "hazards": f"a list of hazard keys ({', '.join(HAZARD_KEYS)})",
+}
+_SIZE_FIELDS = {
+    "material": "a refractive-index model name",
+    "diameter_um": "the mean diameter, a number > 0 in µm",
+    "size_distribution": "normal, lognormal or histogram",
+    "size_cv": "the relative SD of the diameter, a number in [0, 1)",
+    "size_histogram_csv": "a CSV file diameter_um,number_weight (or volume_weight)",
+    "particle_density_g_per_ml": "the particle density, a number > 0 in g/mL",
+}
+_FIELDS: dict[str, dict[str, str]] = {
+    "matrix": {
+        **_COMMON,
+        "material": "a refractive-index model name",
+        "density_g_per_ml": "a number > 0 in g/mL",
+        "water_volume_fraction": "a number in [0, 1]",
+        "background_mua_per_mm": "a number >= 0 in 1/mm",
+        "spectrum_csv": "a CSV file wavelength_nm,mua_per_mm",
+    },
+    "spheres": {
+        **_COMMON,
+        **_SIZE_FIELDS,
+        "solids_percent_w_v": "g of particles per 100 mL of stock, a number in (0, 100)",
+        "solids_percent_w_w": "g of particles per 100 g of stock, a number in (0, 100)",
+        "carrier": "the liquid the spheres come in, a refractive-index model name",
+        "carrier_density_g_per_ml": "a number > 0 in g/mL",
+        "density_g_per_ml": "a number > 0 in g/mL",
+    },
+    "powder": {**_COMMON, **_SIZE_FIELDS, "density_g_per_ml": "a number > 0 in g/mL"},
+    "emulsion": {
+        **_COMMON,
+        "model": f"an emulsion model ({', '.join(EMULSION_MODELS)})",
+        "lipid_percent_w_v": "the lipid content in % w/v",
+        "solids_volume_fraction": "the oil-droplet volume fraction, a number in (0, 1)",
+        "density_g_per_ml": "a number > 0 in g/mL",
+    },
+    "absorber": {
+        **_COMMON,
+        "spectrum_csv": "a CSV file wavelength_nm,mua_per_mm (or mut_per_mm)",
+        "extinction_csv": "a CSV file wavelength_nm,epsilon_per_molar_per_cm "
+        "(or epsilon_per_mg_per_ml_per_cm)",
+        "concentration_mol_per_l": "a number > 0 in mol/L",
+        "concentration_mg_per_ml": "a number > 0 in mg/mL",
+        "molar_mass_g_per_mol": "a number > 0 in g/mol",
+        "cuvette_csv": "a CSV file wavelength_nm,stock_volume_fraction,absorbance",
+        "cuvette_path_mm": "the cuvette path length, a number > 0 in mm",
+        "albedo": "the single-scattering albedo, a number in [0, 1)",
+        "g": "the scattering anisotropy, a number in (-1, 1)",
+        "density_g_per_ml": "a number > 0 in g/mL",
+    },
+}
+
+
+# ---- kind-specific specs --------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class MatrixSpec:
+    """A matrix: index model, water content and background absorption.
+
+    Attributes
+    ----------
+    material : str
+    water_volume_fraction : float
+    background_mua_per_mm : float [1/mm]
+        Added to the water part.
+    background_spectrum : CsvTable or None
+        A measured background (wavelength_nm, mua_per_mm) that replaces water + constant.
+    """
+
+    material: str
+    water_volume_fraction: float
+    background_mua_per_mm: float = 0.0
+    background_spectrum: CsvTable | None = None
+
+
+@dataclass(frozen=True)
+class SpheresSpec:
+    """Spheres in a liquid carrier.
+
+    Attributes
+    ----------
+    material : str
+    sizes : SizeDistribution
+    particle_density_g_per_ml : float [g/mL]
+    carrier : str
+        Index model name of the carrier liquid.
+    carrier_water_volume_fraction : float
+        Water content of the carrier (1 for water, 0 otherwise): its absorption.
+    """
+
+    material: str
+    sizes: SizeDistribution
+    particle_density_g_per_ml: float
+    carrier: str = "water"
+    carrier_water_volume_fraction: float = 1.0
+
+
+@dataclass(frozen=True)
+class PowderSpec:
+    """A dry powder treated as separate spheres (a first guess; grains aggregate).
+
+    Attributes
+    ----------
+    material : str
+    sizes : SizeDistribution
+    particle_density_g_per_ml : float [g/mL]
+    """
+
+    material: str
+    sizes: SizeDistribution
+    particle_density_g_per_ml: float
+
+
+@dataclass(frozen=True)
+class EmulsionSpec:
+    """A lipid emulsion described by a published empirical model.
+
+    Attributes
+    ----------
+    model : str
+        Key of :data:`EMULSION_MODELS`.
+    lipid_percent_w_v : float [% w/v]
+    """
+
+    model: str
+    lipid_percent_w_v: float
+
+
+@dataclass(frozen=True)
+class AbsorberSpec:
+    """An absorber's intrinsic spectrum (undiluted stock) and how it was obtained.
+
+    Attributes
+    ----------
+    method : str
+        ``"spectrum"``, ``"extinction"`` or ``"cuvette"``.
+    wavelength_nm : ndarray [nm]
+    coefficient_per_mm : ndarray [1/mm]
+        Intrinsic μa (``quantity == "absorption"``) or collimated attenuation μt
+        (``quantity == "attenuation"``: cuvette readings, ``mut_per_mm`` spectra).
+    coefficient_sd_per_mm : ndarray [1/mm]
+        Its SD (zero when the source gives none).
+    quantity : str
+        ``"absorption"`` or ``"attenuation"``.
+    albedo : float
+        Single-scattering albedo a = μs/(μa + μs) of the stock's particles (0 for dyes).
+    g : float
+        Scattering anisotropy of the stock's particles.
+    dilution_fit : DilutionFit or None
+        The cuvette fit, with its curvature and non-linearity flags.
+    source : str or None
+        The provenance line of the CSV file.
+    """
+
+    method: str
+    wavelength_nm: np.ndarray
+    coefficient_per_mm: np.ndarray
+    coefficient_sd_per_mm: np.ndarray
+    quantity: str
+    albedo: float = 0.0
+    g: float = 0.0
+    dilution_fit: DilutionFit | None = None
+    source: str | None = None
+
+
+# ---- the stock and the shelf ----------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Stock:
+    """One bottle on the shelf.
+
+    Attributes
+    ----------
+    key : str
+        Short name of the bottle (its table name in the stock file).
+    kind : str
+        One of :data:`KINDS`.
+    lot : str
+        Lot or bottle identifier ("" when not given).
+    expiry : datetime.date or None
+    potency : float
+        Factor on the stock's whole strength (all of its μa and μs scale together).
+    potency_sd : float
+    hazards : tuple of str
+        Keys of :data:`HAZARD_KEYS`.
+    density_g_per_ml : float [g/mL]
+        Density of the undiluted stock (for masses on the sheet).
+    solids_volume_fraction : float
+        Particle volume fraction inside the undiluted stock (1 for a powder, 0 for absorbers
+        and matrices).
+    definition : dict
+        The TOML table as given (dates as ISO strings) plus ``"resolved"``: the contents of
+        every CSV file it names, for database snapshots.
+    spec : MatrixSpec | SpheresSpec | PowderSpec | EmulsionSpec | AbsorberSpec
+    name : str
+        Free description.
+    """
+
+    key: str
+    kind: str
+    lot: str
+    expiry: _dt.date | None
+    potency: float
+    potency_sd: float
+    hazards: tuple[str, ...]
+    density_g_per_ml: float
+    solids_volume_fraction: float
+    definition: dict
+    spec: Any
+    name: str = ""
+
+    @property
+    def cautions(self) -> tuple[str, ...]:
+        """The caution text of each hazard key."""
+        return tuple(HAZARD_KEYS[h] for h in self.hazards)
+
+
+@dataclass(frozen=True)
+class Shelf:
+    """The stocks of one stock file, by key.
+
+    Attributes
+    ----------
+    path : Path or None
+    stocks : dict of str to Stock
+    name : str
+    """
+
+    path: Path | None
+    stocks: Mapping[str, Stock]
+    name: str = ""
+
+    def __getitem__(self, key: str) -> Stock:
+        try:
+            return self.stocks[key]
+        except (KeyError, TypeError):
+            hint = _suggest(key, self.stocks)
+            raise InputError(
+                f"unknown stock {key!r}{hint}; stocks on the shelf: {', '.join(self.stocks)}"
+            ) from None
+
+    def __contains__(self, key: object) -> bool:
+        return key in self.stocks
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self.stocks)
+
+    def __len__(self) -> int:
+        return len(self.stocks)
+
+    def keys(self):
+        return self.stocks.keys()
+
+    def values(self):
+        return self.stocks.values()
+
+    def items(self):
+        return self.stocks.items()
+
+    def of_kind(self, kind: str) -> tuple[str, ...]:
+        """Keys of the stocks of one kind, in file order."""
+        if kind not in KINDS:
+            raise InputError(f"unknown stock kind {kind!r}; kinds: {', '.join(KINDS)}")
+        return tuple(k for k, s in self.stocks.items() if s.kind == kind)
+
+    def matrix(self, key: str | None = None) -> Stock:
+        """The matrix stock named ``key``, or the only matrix on the shelf.
+
+        Raises
+        ------
+        InputError
+            ``key`` is not a matrix, or ``key`` is None and the shelf has no or several
+            matrices (the message lists them).
+        """
+        matrices = self.of_kind("matrix")
+        if key is not None:
+            stock = self[key]
+            if stock.kind != "matrix":
+                raise InputError(
+                    f"stock {key!r} is a {stock.kind}, not a matrix; matrices on the shelf: "
+                    f"{', '.join(matrices) or 'none'}"
+                )
+            return stock
+        if len(matrices) == 1:
+            return self.stocks[matrices[0]]
+        if not matrices:
+            raise InputError("the shelf has no matrix stock (kind = \"matrix\"); add one, e.g. water")
+        raise InputError(f"the shelf has several matrices ({', '.join(matrices)}); choose one")
+
+    def with_potency(self, key: str, potency: float, potency_sd: float) -> "Shelf":
+        """A copy of the shelf with one stock's potency and its SD replaced."""
+        stock = self[key]
+        _number(potency, key, "potency", _COMMON["potency"], lambda v: v > 0)
+        _number(potency_sd, key, "potency_sd", _COMMON["potency_sd"], lambda v: v >= 0)
+        stocks = dict(self.stocks)
+        stocks[key] = dataclasses.replace(stock, potency=float(potency), potency_sd=float(potency_sd))
+        return dataclasses.replace(self, stocks=stocks)
+
+
+# ---- parsing --------------------------------------------------------------------------------
+
+
+def _suggest(word: object, candidates) -> str:
+    if not isinstance(word, str):
+        return ""
+    close = difflib.get_close_matches(word, list(candidates), n=1, cutoff=0.6)
+    return f" (did you mean {close[0]!r}?)" if close else ""
+
+
+def _fail(key: str, field_name: str, message: str) -> InputError:
+    return InputError(f"stock {key}, field {field_name}: {message}")
+
+
+def _number(value, key: str, field_name: str, expected: str, ok=lambda v: True) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise _fail(key, field_name, f"expected {expected}, got {value!r}")
+    number = float(value)
+    if not math.isfinite(number) or not ok(number):
+        raise _fail(key, field_name, f"expected {expected}, got {value!r}")
+    return number
+
+
+def _get_number(table, key, name, ok, *, default=None, required=False):
+    expected = _FIELDS[table["kind"]][name]
+    if name not in table:
+        if required:
+            raise _fail(key, name, f"missing; expected {expected}")
+        return default
+    return _number(table[name], key, name, expected, ok)
+
+
+def _get_string(table, key, name, *, default=None, required=False, choices=None):
+    expected = _FIELDS[table["kind"]][name]
+    if name not in table:
+        if required:
+            raise _fail(key, name, f"missing; expected {expected}")
+        return default
+    value = table[name]
+    if not isinstance(value, str) or not value.strip():
+        raise _fail(key, name, f"expected {expected}, got {value!r}")
+    if choices is not None and value not in choices:
+        raise _fail(key, name, f"{value!r} is not one of {', '.join(choices)}{_suggest(value, choices)}")
+    return value
+
+
+def _get_material(table, key, name="material", *, default=None, required=True):
+    value = _get_string(table, key, name, default=default, required=required)
+    if value is None:
+        return None
+    if value not in INDEX_MODELS:
+        raise _fail(
+            key,
+            name,
+            f"unknown material {value!r}{_suggest(value, INDEX_MODELS)}; known: {', '.join(sorted(INDEX_MODELS))}",
+        )
+    return value
+
+
+def _get_csv(table, key, name, base: Path, *, required, optional=()):
+    path_text = _get_string(table, key, name, required=True)
+    path = Path(path_text)
+    if not path.is_absolute():
+        path = base / path
+    return read_csv_table(path, required=required, optional=optional, context=f"stock {key}, field {name}")
+
+
+def _parse_expiry(value, key):
+    if value is None:
+        return None
+    if isinstance(value, _dt.datetime):
+        return value.date()
+    if isinstance(value, _dt.date):
+        return value
+    if isinstance(value, str):
+        try:
+            return _dt.date.fromisoformat(value.strip())
+        except ValueError:
+            pass
+    raise _fail(key, "expiry", f"expected a date YYYY-MM-DD, got {value!r}")
+
+
+def _parse_hazards(value, key):
+    if value is None:
+        return ()
+    if isinstance(value, str) or not isinstance(value, list):
+        raise _fail(key, "hazards", f"expected a list of hazard keys ({', '.join(HAZARD_KEYS)}), got {value!r}")
+    out = []
+    for item in value:
+        if item not in HAZARD_KEYS:
+            raise _fail(
+                key,
+                "hazards",
+                f"unknown hazard key {item!r}{_suggest(item, HAZARD_KEYS)}; known: {', '.join(HAZARD_KEYS)}",
+            )
+        if item not in out:
+            out.append(item)
+    return tuple(out)
+
+
+def _plain(value):
+    if isinstance(value, dict):
+        return {k: _plain(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_plain(v) for v in value]
+    if isinstance(value, (_dt.date, _dt.datetime, _dt.time)):
+        return value.isoformat()
+    return value
+
+
+def _sizes(table, key, base, resolved) -> SizeDistribution:
+    shape = _get_string(
+        table, key, "size_distribution", default=None, choices=("normal", "lognormal", "histogram")
+    )
+    if shape is None:
+        shape = "histogram" if "size_histogram_csv" in table else "normal"
+    if shape == "histogram":
+        if "size_histogram_csv" not in table:
+            raise _fail(key, "size_histogram_csv", "missing; expected a CSV file diameter_um,number_weight (or volume_weight) for size_distribution = \"histogram\"")
+        for extra in ("size_cv",):
+            if extra in table:
+                raise _fail(key, extra, "not used with a tabulated histogram; remove it")
+        csv_table = _get_csv(
+            table, key, "size_histogram_csv", base, required=("diameter_um",), optional=("number_weight", "volume_weight")
+        )
+        cols = csv_table.columns
+        have = [c for c in ("number_weight", "volume_weight") if c in cols]
+        if len(have) != 1:
+            raise _fail(key, "size_histogram_csv", f"{csv_table.path!r} needs exactly one of the columns number_weight, volume_weight")
+        resolved["size_histogram_csv"] = csv_table.to_definition()
+        try:
+            sizes = histogram_sizes(
+                diameters_um=cols["diameter_um"], weights=cols[have[0]], weighting=have[0].split("_")[0]
+            )
+        except InputError as exc:
+            raise _fail(key, "size_histogram_csv", str(exc)) from None
+        if "diameter_um" in table:
+            stated = _get_number(table, key, "diameter_um", lambda v: v > 0)
+            if abs(stated - sizes.mean_diameter_um) > 0.05 * stated:
+                raise _fail(
+                    key,
+                    "diameter_um",
+                    f"{stated:g} µm disagrees with the histogram's number-mean {sizes.mean_diameter_um:.4g} µm; remove one",
+                )
+        return sizes
+    if "size_histogram_csv" in table:
+        raise _fail(key, "size_histogram_csv", f"given with size_distribution = {shape!r}; use \"histogram\" or remove the file")
+    diameter = _get_number(table, key, "diameter_um", lambda v: v > 0, required=True)
+    cv = _get_number(table, key, "size_cv", lambda v: 0 <= v < 1, default=0.0)
+    try:
+        if shape == "normal":
+            return normal_sizes(diameter_um=diameter, cv=cv)
+        return lognormal_sizes(diameter_um=diameter, cv=cv)
+    except InputError as exc:
+        raise _fail(key, "size_cv", str(exc)) from None
+
+
+def _parse_matrix(table, key, base, resolved):
+    material = _get_material(table, key)
+    density = _get_number(table, key, "density_g_per_ml", lambda v: v > 0, required=True)
+    water_default = 1.0 if index_model(material).water_based else 0.0
+    water = _get_number(table, key, "water_volume_fraction", lambda v: 0 <= v <= 1, default=water_default)
+    background = _get_number(table, key, "background_mua_per_mm", lambda v: v >= 0, default=0.0)
+    spectrum = None
+    if "spectrum_csv" in table:
+        for clash in ("water_volume_fraction", "background_mua_per_mm"):
+            if clash in table:
+                raise _fail(key, clash, "not used with a measured spectrum_csv; give one or the other")
+        spectrum = _get_csv(table, key, "spectrum_csv", base, required=("wavelength_nm", "mua_per_mm"))
+        _check_spectrum(spectrum, key, "spectrum_csv", "mua_per_mm")
+        resolved["spectrum_csv"] = spectrum.to_definition()
+    spec = MatrixSpec(material, water, background, spectrum)
+    return spec, density, 0.0
+
+
+def _parse_spheres(table, key, base, resolved):
+    material = _get_material(table, key)
+    sizes = _sizes(table, key, base, resolved)
+    particle_density = _get_number(table, key, "particle_density_g_per_ml", lambda v: v > 0, required=True)
+    carrier = _get_material(table, key, "carrier", default="water", required=False)
+    carrier_water = 1.0 if index_model(carrier).water_based else 0.0
+    carrier_density = _get_number(table, key, "carrier_density_g_per_ml", lambda v: v > 0, default=1.0)
+    have = [f for f in ("solids_percent_w_v", "solids_percent_w_w") if f in table]
+    if not have:
+        raise _fail(key, "solids_percent_w_v", "missing; expected the strength as solids_percent_w_v or solids_percent_w_w")
+    if len(have) == 2:
+        raise _fail(key, "solids_percent_w_w", "give the strength once: solids_percent_w_v or solids_percent_w_w")
+    percent = _get_number(table, key, have[0], lambda v: 0 < v < 100, required=True)
+    if have[0] == "solids_percent_w_v":
+        fraction = percent / 100.0 / particle_density  # g/mL of particles / (g/mL) = v/v
+    else:
+        w = percent / 100.0
+        # volume of 1 g of stock: w/ρp + (1 − w)/ρc; particle volume w/ρp
+        fraction = (w / particle_density) / (w / particle_density + (1.0 - w) / carrier_density)
+    if not 0 < fraction < 1:
+        raise _fail(key, have[0], f"{percent:g} % with particle density {particle_density:g} g/mL gives a particle volume fraction {fraction:.3g}, impossible")
+    density_default = fraction * particle_density + (1.0 - fraction) * carrier_density
+    density = _get_number(table, key, "density_g_per_ml", lambda v: v > 0, default=density_default)
+    spec = SpheresSpec(material, sizes, particle_density, carrier, carrier_water)
+    return spec, density, fraction
+
+
+def _parse_powder(table, key, base, resolved):
+    material = _get_material(table, key)
+    sizes = _sizes(table, key, base, resolved)
+    particle_density = _get_number(table, key, "particle_density_g_per_ml", lambda v: v > 0, required=True)
+    if "density_g_per_ml" in table:
+        stated = _get_number(table, key, "density_g_per_ml", lambda v: v > 0)
+        if abs(stated - particle_density) > 1e-9 * particle_density:
+            raise _fail(key, "density_g_per_ml", "a powder's density is its particle_density_g_per_ml; give that one only")
+    return PowderSpec(material, sizes, particle_density), particle_density, 1.0
+
+
+def _parse_emulsion(table, key, base, resolved):
+    model = _get_string(table, key, "model", required=True, choices=tuple(EMULSION_MODELS))
+    described, citation = EMULSION_MODELS[model]
+    lipid = _get_number(table, key, "lipid_percent_w_v", lambda v: 0 < v < 100, default=described)
+    if abs(lipid - described) > 1e-9:
+        raise _fail(
+            key,
+            "lipid_percent_w_v",
+            f"{lipid:g} % is not what model {model!r} describes ({described:g} % soybean-oil emulsion, "
+            f"{citation}); no cited model for {lipid:g} % is built in (a diluted 20 % stock is not a "
+            "10 % product: droplet sizes differ); measure the stock and give it as spheres or a calibrated stock",
+        )
+    fraction_default = lipid / 100.0 / SOYBEAN_OIL_DENSITY_G_PER_ML
+    fraction = _get_number(table, key, "solids_volume_fraction", lambda v: 0 < v < 1, default=fraction_default)
+    density = _get_number(table, key, "density_g_per_ml", lambda v: v > 0, default=1.0)
+    return EmulsionSpec(model, lipid), density, fraction
+
+
+def _check_spectrum(csv_table: CsvTable, key, name, column):
+    wavelength = csv_table.columns["wavelength_nm"]
+    if np.any(np.diff(wavelength) <= 0):
+        raise _fail(key, name, f"{csv_table.path!r}: wavelength_nm must increase strictly from row to row")
+    if np.any(wavelength <= 0):
+        raise _fail(key, name, f"{csv_table.path!r}: wavelength_nm must be > 0")
+    if np.any(csv_table.columns[column] < 0):
+        raise _fail(key, name, f"{csv_table.path!r}: {column} must be >= 0")
+
+
+def _parse_absorber(table, key, base, resolved):
+    sources = [f for f in ("spectrum_csv", "extinction_csv", "cuvette_csv") if f in table]
+    if not sources:
+        raise _fail(key, "spectrum_csv", "missing; an absorber needs one of spectrum_csv, extinction_csv, cuvette_csv")
+    if len(sources) > 1:
+        raise _fail(key, sources[1], f"give one of spectrum_csv, extinction_csv, cuvette_csv (found {', '.join(sources)})")
+    albedo = _get_number(table, key, "albedo", lambda v: 0 <= v < 1, default=0.0)
+    g = _get_number(table, key, "g", lambda v: -1 < v < 1, default=0.0)
+    density = _get_number(table, key, "density_g_per_ml", lambda v: v > 0, default=1.0)
+    source = sources[0]
+    extinction_only = ("concentration_mol_per_l", "concentration_mg_per_ml", "molar_mass_g_per_mol")
+    if source != "extinction_csv":
+        for name in extinction_only:
+            if name in table:
+                raise _fail(key, name, "only used with extinction_csv; remove it")
+    if source != "cuvette_csv" and "cuvette_path_mm" in table:
+        raise _fail(key, "cuvette_path_mm", "only used with cuvette_csv; remove it")
+    fit = None
+    if source == "spectrum_csv":
+        csv_table = _get_csv(
+            table, key, source, base, required=("wavelength_nm",), optional=("mua_per_mm", "mut_per_mm", "sd_per_mm")
+        )
+        values = [c for c in ("mua_per_mm", "mut_per_mm") if c in csv_table.columns]
+        if len(values) != 1:
+            raise _fail(key, source, f"{csv_table.path!r} needs exactly one of the columns mua_per_mm, mut_per_mm")
+        _check_spectrum(csv_table, key, source, values[0])
+        wavelength = csv_table.columns["wavelength_nm"]
+        coefficient = csv_table.columns[values[0]]
+        sd = csv_table.columns.get("sd_per_mm", np.zeros_like(coefficient))
+        quantity = "absorption" if values[0] == "mua_per_mm" else "attenuation"
+        method = "spectrum"
+    elif source == "extinction_csv":
+        csv_table = _get_csv(
+            table,
+            key,
+            source,
+            base,
+            required=("wavelength_nm",),
+            optional=("epsilon_per_molar_per_cm", "epsilon_per_mg_per_ml_per_cm"),
+        )
+        cols = [c for c in ("epsilon_per_molar_per_cm", "epsilon_per_mg_per_ml_per_cm") if c in csv_table.columns]
+        if len(cols) != 1:
+            raise _fail(key, source, f"{csv_table.path!r} needs exactly one of the columns epsilon_per_molar_per_cm, epsilon_per_mg_per_ml_per_cm")
+        _check_spectrum(csv_table, key, source, cols[0])
+        wavelength = csv_table.columns["wavelength_nm"]
+        epsilon = csv_table.columns[cols[0]]
+        molar_c = _get_number(table, key, "concentration_mol_per_l", lambda v: v > 0)
+        mass_c = _get_number(table, key, "concentration_mg_per_ml", lambda v: v > 0)
+        molar_mass = _get_number(table, key, "molar_mass_g_per_mol", lambda v: v > 0)
+        if (molar_c is None) == (mass_c is None):
+            raise _fail(key, "concentration_mol_per_l", "give the stock's concentration once: concentration_mol_per_l or concentration_mg_per_ml")
+        if cols[0] == "epsilon_per_molar_per_cm":
+            if molar_c is None:
+                if molar_mass is None:
+                    raise _fail(key, "molar_mass_g_per_mol", "missing; a molar extinction table with concentration_mg_per_ml needs the molar mass in g/mol")
+                molar_c = mass_c / molar_mass  # mg/mL = g/L; / (g/mol) = mol/L
+            coefficient = mua_from_molar_extinction(epsilon_per_molar_per_cm=epsilon, concentration_mol_per_l=molar_c)
+        else:
+            if mass_c is None:
+                if molar_mass is None:
+                    raise _fail(key, "molar_mass_g_per_mol", "missing; a specific (per mg/mL) extinction table with concentration_mol_per_l needs the molar mass in g/mol")
+                mass_c = molar_c * molar_mass
+            coefficient = mua_from_specific_extinction(epsilon_per_mg_per_ml_per_cm=epsilon, concentration_mg_per_ml=mass_c)
+        sd = np.zeros_like(coefficient)
+        quantity = "absorption"
+        method = "extinction"
+    else:
+        path_mm = _get_number(table, key, "cuvette_path_mm", lambda v: v > 0, required=True)
+        csv_table = _get_csv(
+            table, key, source, base, required=("wavelength_nm", "stock_volume_fraction", "absorbance")
+        )
+        cols = csv_table.columns
+        fit = fit_dilution_series(
+            wavelength_nm=cols["wavelength_nm"],
+            stock_volume_fraction=cols["stock_volume_fraction"],
+            absorbance=cols["absorbance"],
+            path_length_mm=path_mm,
+            context=f"stock {key}, field {source}",
+        )
+        wavelength = fit.wavelength_nm
+        coefficient = fit.coefficient_per_mm
+        sd = fit.coefficient_sd_per_mm
+        quantity = "attenuation"
+        method = "cuvette"
+    resolved[source] = csv_table.to_definition()
+    if wavelength.size < 2:
+        raise _fail(key, source, "needs at least two wavelengths")
+    for array in (wavelength, coefficient, sd):
+        array = np.asarray(array)
+    spec = AbsorberSpec(
+        method=method,
+        wavelength_nm=np.array(wavelength, dtype=float),
+        coefficient_per_mm=np.array(coefficient, dtype=float),
+        coefficient_sd_per_mm=np.array(sd, dtype=float),
+        quantity=quantity,
+        albedo=albedo,
+        g=g,
+        dilution_fit=fit,
+        source=csv_table.source,
+    )
+    return spec, density, 0.0
+
+
+_PARSERS = {
+    "matrix": _parse_matrix,
+    "spheres": _parse_spheres,
+    "powder": _parse_powder,
+    "emulsion": _parse_emulsion,
+    "absorber": _parse_absorber,
+}
+
+
+def _parse_stock(key: str, table, base: Path) -> Stock:
+    if not isinstance(table, dict):
+        raise InputError(f"stock {key}: expected a table [stocks.{key}], got {table!r}")
+    if "kind" not in table:
+        raise _fail(key, "kind", f"missing; expected one of {', '.join(KINDS)}")
+    kind = table["kind"]
+    if kind not in KINDS:
+        raise _fail(key, "kind", f"{kind!r} is not one of {', '.join(KINDS)}{_suggest(kind, KINDS)}")
+    allowed = _FIELDS[kind]
+    for name in table:
+        if name not in allowed:
+            raise InputError(
+                f"stock {key}: unknown field {name!r}{_suggest(name, allowed)}; fields of a {kind} stock: "
+                f"{', '.join(allowed)}"
+            )
+    resolved: dict = {}
+    spec, density, solids = _PARSERS[kind](table, key, base, resolved)
+    potency = _get_number(table, key, "potency", lambda v: v > 0, default=1.0)
+    potency_sd = _get_number(table, key, "potency_sd", lambda v: v >= 0, default=0.0)
+    lot = table.get("lot", "")
+    if not isinstance(lot, (str, int)) or isinstance(lot, bool):
+        raise _fail(key, "lot", f"expected {_COMMON['lot']} as text, got {lot!r}")
+    name = table.get("name", "")
+    if not isinstance(name, str):
+        raise _fail(key, "name", f"expected {_COMMON['name']} as text, got {name!r}")
+    expiry = _parse_expiry(table.get("expiry"), key)
+    hazards = _parse_hazards(table.get("hazards"), key)
+    definition = _plain(dict(table))
+    if resolved:
+        definition["resolved"] = resolved
+    return Stock(
+        key=key,
+        kind=kind,
+        lot=str(lot),
+        expiry=expiry,
+        potency=potency,
+        potency_sd=potency_sd,
+        hazards=hazards,
+        density_g_per_ml=float(density),
+        solids_volume_fraction=float(solids),
+        definition=definition,
+        spec=spec,
+        name=name,
+    )
+
+
+def parse_shelf(document: Mapping, *, base: Path, path: Path | None = None, today: _dt.date | None = None) -> Shelf:
+    """Build a :class:`Shelf` from a parsed stock document (the TOML as a dict).
+
+    Parameters
+    ----------
+    document : mapping
+        ``{"stocks": {KEY: {...}}, "shelf": {"name": ...}}``.
+    base : Path
+        Folder that relative CSV paths are resolved against.
+    path : Path, optional
+        The file the document came from (kept on the shelf).
+    today : datetime.date, optional
+        Date for the expiry check (default: today); an expired stock raises a
+        :class:`PhantomlabWarning`.
+
+    Returns
+    -------
+    Shelf
+    """
+    where = str(path) if path is not None else "stock document"
+    unknown = [k for k in document if k not in ("stocks", "shelf")]
+    if unknown:
+        raise InputError(f"{where}: unknown top-level entry {unknown[0]!r}{_suggest(unknown[0], ('stocks', 'shelf'))}; expected [stocks.KEY] tables and an optional [shelf]")
+    stocks_table = document.get("stocks")
+    if not isinstance(stocks_table, dict) or not stocks_table:
+        raise InputError(f"{where}: no stocks; expected one table [stocks.KEY] per bottle")
+    shelf_table = document.get("shelf", {})
+    if not isinstance(shelf_table, dict) or any(k != "name" for k in shelf_table):
+        raise InputError(f"{where}: [shelf] takes only name = \"...\"")
+    stocks = {}
+    for key, table in stocks_table.items():
+        stocks[key] = _parse_stock(key, table, base)
+    today = today or _dt.date.today()
+    for stock in stocks.values():
+        if stock.expiry is not None and stock.expiry < today:
+            warnings.warn(
+                f"stock {stock.key} (lot {stock.lot or '?'}) expired on {stock.expiry.isoformat()}",
+                PhantomlabWarning,
+                stacklevel=3,
+            )
+    return Shelf(path=path, stocks=stocks, name=str(shelf_table.get("name", "")))
+
+
+def load_shelf(path) -> Shelf:
+    """Load a stock file (TOML): every bottle on the shelf, checked.
+
+    Parameters
+    ----------
+    path : str or Path
+        The stock file; CSV paths inside it are relative to its folder.
+
+    Returns
+    -------
+    Shelf
+
+    Raises
+    ------
+    InputError
+        One line naming the stock, the field and what is expected: missing or misspelt
+        fields (with the nearest valid name), impossible values, missing CSV files, CSV
+        files with bad columns, TOML syntax errors.
+    """
+    file = Path(path)
+    if not file.is_file():
+        raise InputError(f"stock file {str(file)!r} not found")
+    try:
+        document = tomllib.loads(file.read_text(encoding="utf-8"))
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"stock file {str(file)!r} is not valid TOML: {exc}") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read stock file {str(file)!r}: {exc}") from None
+    return parse_shelf(document, base=file.resolve().parent, path=file)

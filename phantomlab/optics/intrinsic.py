@@ -1,0 +1,264 @@
+"""Intrinsic optics of a stock (layer 2): μa, μs, g per volume fraction of the stock.
+
+"Intrinsic" means per unit volume fraction of the *undiluted* stock in the final mix: a
+dose of volume fraction f adds f·μa and f·μs (independent scattering; the mixing rule in
+:mod:`phantomlab.optics.mixing` sums the doses).
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.materials.refractive_index import refractive_index
+from phantomlab.materials.stock import Stock
+from phantomlab.materials.water import water_absorption_per_mm
+from phantomlab.optics.emulsion import EMULSION_SCATTERING
+from phantomlab.optics.mie import sphere_ensemble_optics
+
+__all__ = ["IntrinsicOptics", "intrinsic_optics", "wavelength_grid"]
+
+
+def wavelength_grid(wavelength_nm) -> np.ndarray:
+    """Check a wavelength grid: 1-D, finite, > 0 nm.  A scalar becomes a 1-element array."""
+    try:
+        grid = np.atleast_1d(np.asarray(wavelength_nm, dtype=float))
+    except (TypeError, ValueError):
+        raise InputError(f"wavelength_nm must be numbers in nm, got {wavelength_nm!r}") from None
+    if grid.ndim != 1 or grid.size == 0:
+        raise InputError("wavelength_nm must be a number or a 1-D list of numbers [nm]")
+    if not np.all(np.isfinite(grid)):
+        raise InputError("wavelength_nm holds NaN or infinite values; give finite wavelengths in nm")
+    if np.any(grid <= 0):
+        raise InputError(f"wavelength_nm must be > 0 nm, got {grid.min():g}")
+    return grid
+
+
+@dataclass(frozen=True)
+class IntrinsicOptics:
+    """Optics of one stock per unit volume fraction of it in the final mix.
+
+    Attributes
+    ----------
+    stock : Stock or str
+        The stock (or its key, when built by hand).
+    wavelength_nm : ndarray [nm]
+    mua_per_mm : ndarray [1/mm]
+    mus_per_mm : ndarray [1/mm]
+    g : ndarray [dimensionless]
+        0 where μs = 0.
+    solids_volume_fraction : float
+        Particle volume fraction inside the undiluted stock (for the independent-scattering
+        check of the mixing rule); taken from ``stock`` when it is a :class:`Stock`.
+    mua_sd_per_mm : ndarray [1/mm]
+        SD of μa from the stock's own data (a cuvette fit; 0 otherwise).  The potency SD is
+        not included: it is the stock's ``potency_sd``.
+    """
+
+    stock: Any
+    wavelength_nm: np.ndarray
+    mua_per_mm: np.ndarray
+    mus_per_mm: np.ndarray
+    g: np.ndarray
+    solids_volume_fraction: float | None = None
+    mua_sd_per_mm: np.ndarray | None = field(default=None)
+
+    def __post_init__(self) -> None:
+        grid = wavelength_grid(self.wavelength_nm)
+        grid.setflags(write=False)
+        object.__setattr__(self, "wavelength_nm", grid)
+        for name in ("mua_per_mm", "mus_per_mm", "g"):
+            values = np.broadcast_to(np.asarray(getattr(self, name), dtype=float), grid.shape).copy()
+            values.setflags(write=False)
+            object.__setattr__(self, name, values)
+        sd = self.mua_sd_per_mm if self.mua_sd_per_mm is not None else 0.0
+        sd = np.broadcast_to(np.asarray(sd, dtype=float), grid.shape).copy()
+        sd.setflags(write=False)
+        object.__setattr__(self, "mua_sd_per_mm", sd)
+        if self.solids_volume_fraction is None:
+            solids = getattr(self.stock, "solids_volume_fraction", 0.0)
+            object.__setattr__(self, "solids_volume_fraction", float(solids))
+        if np.any(self.mua_per_mm < 0) or np.any(self.mus_per_mm < 0):
+            raise InputError(f"intrinsic optics of {self.stock_key}: mua_per_mm and mus_per_mm must be >= 0")
+        if np.any(np.abs(self.g) >= 1):
+            raise InputError(f"intrinsic optics of {self.stock_key}: g must lie in (-1, 1)")
+
+    @property
+    def stock_key(self) -> str:
+        """The stock's key."""
+        return getattr(self.stock, "key", str(self.stock))
+
+    @property
+    def musp_per_mm(self) -> np.ndarray:
+        """Reduced scattering μs′ = μs (1 − g) [1/mm]."""
+        return self.mus_per_mm * (1.0 - self.g)
+
+    def to_json(self) -> dict:
+        """The keys of ``phantomlab stock optics --json``."""
+        return {
+            "stock": self.stock_key,
+            "wavelength_nm": self.wavelength_nm,
+            "mua_per_mm": self.mua_per_mm,
+            "mus_per_mm": self.mus_per_mm,
+            "g": self.g,
+            "musp_per_mm": self.musp_per_mm,
+        }
+
+
+def _interpolate_spectrum(key: str, field_name: str, table_nm, values, grid) -> np.ndarray:
+    lo, hi = float(table_nm[0]), float(table_nm[-1])
+    if grid.min() < lo - 1e-9 or grid.max() > hi + 1e-9:
+        raise InputError(
+            f"stock {key}: {field_name} covers {lo:g}–{hi:g} nm; asked {grid.min():g}–{grid.max():g} nm"
+        )
+    return np.interp(grid, table_nm, values)
+
+
+def _water(grid, fraction) -> np.ndarray:
+    if fraction == 0:
+        return np.zeros_like(grid)
+    return fraction * water_absorption_per_mm(grid)
+
+
+def _matrix_background(stock: Stock, grid) -> np.ndarray:
+    spec = stock.spec
+    if spec.background_spectrum is not None:
+        cols = spec.background_spectrum.columns
+        return _interpolate_spectrum(stock.key, "spectrum_csv", cols["wavelength_nm"], cols["mua_per_mm"], grid)
+    return _water(grid, spec.water_volume_fraction) + spec.background_mua_per_mm
+
+
+def _require_matrix(matrix, stock: Stock) -> Stock:
+    if matrix is None:
+        raise InputError(f"stock {stock.key}: a {stock.kind} stock needs matrix= (the matrix stock it goes into)")
+    if getattr(matrix, "kind", None) != "matrix":
+        raise InputError(f"matrix= must be a matrix stock, got {getattr(matrix, 'key', matrix)!r}")
+    return matrix
+
+
+def _spheres(stock: Stock, grid, matrix: Stock, temperature_c, *, solids: float, carrier_water: float):
+    spec = stock.spec
+    n_matrix = refractive_index(matrix.spec.material, wavelength_nm=grid, temperature_c=temperature_c)
+    n_particle = refractive_index(spec.material, wavelength_nm=grid, temperature_c=temperature_c)
+    ensemble = sphere_ensemble_optics(
+        wavelength_nm=grid,
+        particle_index=n_particle,
+        matrix_index=n_matrix,
+        diameters_um=spec.sizes.diameters_um,
+        number_weights=spec.sizes.number_weights,
+        volume_fraction=solids,
+    )
+    mua = ensemble.mua_per_mm + (1.0 - solids) * _water(grid, carrier_water)
+    return mua, ensemble.mus_per_mm, ensemble.g
+
+
+def intrinsic_optics(stock: Stock, *, wavelength_nm, matrix: Stock | None, potency=None, temperature_c=20.0) -> IntrinsicOptics:
+    """Intrinsic μa, μs and g of a stock on any wavelength grid.
+
+    Per unit volume fraction of the undiluted stock in the final mix.  Every coefficient
+    (μa and μs) is multiplied by ``potency``; g is not.
+
+    Parameters
+    ----------
+    stock : Stock
+        Any kind (matrix, spheres, powder, emulsion, absorber).
+    wavelength_nm : float or array [nm]
+        Vacuum wavelengths.
+    matrix : Stock or None
+        The matrix the stock goes into (its index sets the Mie relative index and size
+        parameter).  May be None for matrices, emulsions and absorbers.
+    potency : float, optional
+        Factor on the stock's strength; None uses ``stock.potency``.
+    temperature_c : float [°C]
+        Temperature for the water-based indices.
+
+    Returns
+    -------
+    IntrinsicOptics
+
+    Notes
+    -----
+    By kind:
+
+    * **matrix** — its own background absorption (water fraction × water μa of Hale & Querry
+      1973 + a constant, or its measured spectrum); μs = 0.  For the matrix itself, "per
+      volume fraction" is simply its μa.
+    * **spheres** — Mie for the size distribution (:func:`~phantomlab.optics.mie.sphere_ensemble_optics`),
+      relative index particle/matrix at each wavelength, at the stock's particle volume
+      fraction f.  Its μa is the carrier's absorption (water, for an aqueous suspension)
+      times (1 − f) plus the particles' own absorption (zero for the real indices of the
+      registry).
+    * **powder** — as spheres with f = 1 and no carrier.  A first guess: grains aggregate, so
+      a :class:`PhantomlabWarning` says the result needs calibration.
+    * **emulsion** — the published empirical model (Michels et al. 2008) for μs and g; μa is
+      the water of the continuous phase, (1 − oil fraction) × water; the absorption of the
+      oil itself is neglected.
+    * **absorber** — the stock's intrinsic spectrum, linearly interpolated (refused outside
+      the spectrum's range).  With an albedo a: an attenuation spectrum μt (cuvette, or a
+      ``mut_per_mm`` column) splits into μa = (1 − a) μt and μs = a μt; an absorption
+      spectrum μa gets μs = μa a/(1 − a).  The solvent of the absorber stock is not given
+      an absorption of its own.
+
+    References
+    ----------
+    1. Bohren & Huffman (1983), ch. 4 (Mie theory).
+    2. Michels, Foschum & Kienle (2008), Opt. Express 16:5907 (emulsion).
+    3. Hale & Querry (1973), Appl. Opt. 12:555 (water absorption).
+    """
+    if not isinstance(stock, Stock):
+        raise InputError(f"intrinsic_optics needs a Stock from load_shelf, got {stock!r}")
+    grid = wavelength_grid(wavelength_nm)
+    if potency is None:
+        potency = stock.potency
+    if isinstance(potency, bool) or not isinstance(potency, (int, float)) or not np.isfinite(potency) or potency <= 0:
+        raise InputError(f"stock {stock.key}: potency must be a number > 0, got {potency!r}")
+    sd = 0.0
+    g = np.zeros_like(grid)
+    if stock.kind == "matrix":
+        mua = _matrix_background(stock, grid)
+        mus = np.zeros_like(grid)
+    elif stock.kind == "spheres":
+        matrix = _require_matrix(matrix, stock)
+        mua, mus, g = _spheres(
+            stock, grid, matrix, temperature_c,
+            solids=stock.solids_volume_fraction, carrier_water=stock.spec.carrier_water_volume_fraction,
+        )
+    elif stock.kind == "powder":
+        matrix = _require_matrix(matrix, stock)
+        mua, mus, g = _spheres(stock, grid, matrix, temperature_c, solids=1.0, carrier_water=0.0)
+        warnings.warn(
+            f"stock {stock.key}: powder optics from Mie for separate {stock.spec.material} spheres are a "
+            "first guess (grains aggregate); calibrate the potency on a pilot batch",
+            PhantomlabWarning,
+            stacklevel=2,
+        )
+    elif stock.kind == "emulsion":
+        mus, g = EMULSION_SCATTERING[stock.spec.model](wavelength_nm=grid)
+        mua = _water(grid, 1.0 - stock.solids_volume_fraction)
+    elif stock.kind == "absorber":
+        spec = stock.spec
+        field_name = {"spectrum": "spectrum_csv", "extinction": "extinction_csv", "cuvette": "cuvette_csv"}[spec.method]
+        value = _interpolate_spectrum(stock.key, field_name, spec.wavelength_nm, spec.coefficient_per_mm, grid)
+        value_sd = np.interp(grid, spec.wavelength_nm, spec.coefficient_sd_per_mm)
+        a = spec.albedo
+        if spec.quantity == "attenuation":
+            mua, mus, sd = (1.0 - a) * value, a * value, (1.0 - a) * value_sd
+        else:
+            mua, mus, sd = value, value * a / (1.0 - a), value_sd
+        g = np.full_like(grid, spec.g) if a > 0 else np.zeros_like(grid)
+    else:  # pragma: no cover - the loader admits only KINDS
+        raise InputError(f"stock {stock.key}: unknown kind {stock.kind!r}")
+    mus = np.asarray(mus, dtype=float)
+    g = np.where(mus > 0, g, 0.0)
+    return IntrinsicOptics(
+        stock=stock,
+        wavelength_nm=grid,
+        mua_per_mm=potency * np.asarray(mua, dtype=float),
+        mus_per_mm=potency * mus,
+        g=g,
+        mua_sd_per_mm=potency * np.asarray(sd, dtype=float),
+    )
