@@ -1,0 +1,101 @@
+"""``phantomlab stock optics``: the intrinsic optics of one stock (layer 5, no physics).
+
+    phantomlab stock optics STOCKS.toml KEY --wavelength-nm LIST [--matrix KEY]
+                            [--temperature-c T] [--potency P] [--json]
+
+JSON keys (DESIGN.md): ``stock``, ``wavelength_nm``, ``mua_per_mm``, ``mus_per_mm``, ``g``,
+``musp_per_mm``; extras: ``kind``, ``matrix``, ``temperature_c``, ``potency``, ``lot``,
+``solids_volume_fraction``, ``mua_sd_per_mm``; ``warnings`` is added by the command line.
+"""
+
+from __future__ import annotations
+
+import argparse
+
+from phantomlab.cli import CommandResult, add_json_option
+from phantomlab.errors import InputError
+from phantomlab.units import parse_number_list
+
+__all__ = ["register"]
+
+
+def register(subparsers) -> None:
+    stock = subparsers.add_parser("stock", help="what is on the shelf: the optics of one stock")
+    actions = stock.add_subparsers(dest="stock_command", metavar="ACTION")
+    optics = actions.add_parser(
+        "optics",
+        help="intrinsic mua, mus, g, mus' of a stock per volume fraction of it in the final mix",
+        description="Intrinsic optics of one stock: per unit volume fraction of the undiluted "
+        "stock in the final mix, in the shelf's matrix.",
+    )
+    optics.add_argument("stocks_file", metavar="STOCKS.toml", help="the stock file (shelf)")
+    optics.add_argument("key", metavar="KEY", help="the stock's key in the file")
+    optics.add_argument(
+        "--wavelength-nm", required=True, metavar="LIST",
+        help="wavelengths in nm: 650,750,850 or START:STOP:STEP (STOP included)",
+    )
+    optics.add_argument(
+        "--matrix", metavar="KEY", default=None,
+        help="the matrix stock the stock goes into (default: the only matrix on the shelf)",
+    )
+    optics.add_argument("--temperature-c", type=float, default=20.0, metavar="T", help="temperature in °C (default 20)")
+    optics.add_argument("--potency", type=float, default=None, metavar="P", help="override the stock's potency")
+    add_json_option(optics)
+    optics.set_defaults(handler=_optics)
+    stock.set_defaults(handler=_no_action(stock))
+
+
+def _no_action(parser: argparse.ArgumentParser):
+    def handler(args):
+        raise InputError("stock: give an action: optics")
+
+    return handler
+
+
+def _table(optics) -> str:
+    header = f"{'wavelength_nm':>13}  {'mua [1/mm]':>12}  {'mus [1/mm]':>12}  {'g [-]':>7}  {'musp [1/mm]':>12}"
+    lines = [header, "-" * len(header)]
+    for w, a, s, g, sp in zip(optics.wavelength_nm, optics.mua_per_mm, optics.mus_per_mm, optics.g, optics.musp_per_mm):
+        lines.append(f"{w:13.1f}  {a:12.5g}  {s:12.5g}  {g:7.4f}  {sp:12.5g}")
+    return "\n".join(lines)
+
+
+def _optics(args) -> CommandResult:
+    from phantomlab.materials import load_shelf
+    from phantomlab.optics import intrinsic_optics
+
+    wavelength = parse_number_list(args.wavelength_nm, name="--wavelength-nm")
+    shelf = load_shelf(args.stocks_file)
+    stock = shelf[args.key]
+    if stock.kind == "matrix" and args.matrix is None:
+        matrix = stock
+    elif args.matrix is None and len(shelf.of_kind("matrix")) > 1:
+        raise InputError(
+            f"the shelf has several matrices ({', '.join(shelf.of_kind('matrix'))}); choose one with --matrix KEY"
+        )
+    else:
+        matrix = shelf.matrix(args.matrix)
+    if args.potency is not None and not args.potency > 0:
+        raise InputError(f"--potency must be > 0, got {args.potency:g}")
+    optics = intrinsic_optics(
+        stock, wavelength_nm=wavelength, matrix=matrix, potency=args.potency, temperature_c=args.temperature_c
+    )
+    potency = stock.potency if args.potency is None else args.potency
+    payload = optics.to_json()
+    payload.update(
+        {
+            "kind": stock.kind,
+            "matrix": matrix.key,
+            "temperature_c": args.temperature_c,
+            "potency": potency,
+            "lot": stock.lot,
+            "solids_volume_fraction": stock.solids_volume_fraction,
+            "mua_sd_per_mm": optics.mua_sd_per_mm,
+        }
+    )
+    title = (
+        f"stock {stock.key} ({stock.kind}{', lot ' + stock.lot if stock.lot else ''}) in matrix {matrix.key}, "
+        f"{args.temperature_c:g} °C, potency {potency:g}\n"
+        "intrinsic optics: per unit volume fraction of the undiluted stock in the final mix"
+    )
+    return CommandResult(payload=payload, text=title + "\n" + _table(optics))
