@@ -48,7 +48,7 @@ def new_uid() -> str:
     return uuid.uuid4().hex
 
 
-def new_record(session: Session, model: type[Row], *, recorded_by: str | None = None, **fields: Any) -> Row:
+def new_record(session: Session, model: type[Row], /, *, recorded_by: str | None = None, **fields: Any) -> Row:
     """Insert version 1 of a new record and return it (flushed, so it has an ``id``)."""
     row = model(
         uid=new_uid(),
@@ -133,7 +133,7 @@ def _next_version(
     return new
 
 
-def correct(session: Session, row: Row, *, note: str, recorded_by: str | None = None, **changes: Any) -> Row:
+def correct(session: Session, row: Row, /, *, note: str, recorded_by: str | None = None, **changes: Any) -> Row:
     """Write a corrected version of ``row`` (the head of its record) with ``changes``."""
     if row.retracted:
         raise InputError(
