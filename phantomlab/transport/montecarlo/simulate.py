@@ -249,9 +249,9 @@ def warm_up() -> float:
     rec = _empty_records(1)
     for analog in (False, True):
         _kernels.run_3d(counts, states.copy(), 0.1, 1.0, 0.5, 1.4, 1.0, 0.0, 1.0, 0.0, math.inf,
-                        analog, 1.0, edges, tallies, rho, False, *rec)
+                        analog, 1.0, 1e-4, 0.1, edges, tallies, rho, False, *rec)
         _kernels.run_rod(counts, states.copy(), 0.1, 1.0, 0.2, 1.4, 1.0, 0.0, 1.0, 0.0, 1.0,
-                         analog, 1.0, tallies)
+                         analog, 1.0, 1e-4, 0.1, tallies)
     _WARMED.add("kernels")
     return time.perf_counter() - start
 
@@ -294,6 +294,8 @@ def simulate(
     backscatter_probability=None,
     n_slide=None,
     batches=DEFAULT_BATCHES,
+    roulette_threshold=_kernels.ROULETTE_THRESHOLD,
+    roulette_survival=_kernels.ROULETTE_SURVIVAL,
 ) -> MonteCarloResult:
     """Monte Carlo reflectance, transmittance and absorption of a pencil beam.
 
@@ -370,6 +372,10 @@ def simulate(
     seed = check_count("seed", seed, minimum=0)
     threads = check_threads(threads)
     batches = check_count("batches", batches)
+    roulette_threshold = check_coefficient("roulette_threshold", roulette_threshold)
+    roulette_survival = check_coefficient("roulette_survival", roulette_survival)
+    if not (roulette_threshold < 1.0 and 0.0 < roulette_survival <= 1.0):
+        raise InputError("roulette_threshold must lie in [0, 1) and roulette_survival in (0, 1]")
     estimator = check_choice("estimator", estimator, ESTIMATORS)
     geometry = check_choice("geometry", geometry, GEOMETRIES)
     if geometry == "rod":
@@ -408,13 +414,15 @@ def simulate(
         if geometry == "3d":
             _kernels.run_3d(
                 counts, states, mua, mus, g, n, n_outside, slide_index, n_outside, slide_index,
-                depth, analog, launch_weight, kernel_edges, tallies, rho_weights, False,
+                depth, analog, launch_weight, roulette_threshold * launch_weight, roulette_survival,
+                kernel_edges, tallies, rho_weights, False,
                 *_empty_records(batches),
             )
         else:
             _kernels.run_rod(
                 counts, states, mua, mus, backscatter, n, n_outside, slide_index, n_outside,
-                slide_index, depth, analog, launch_weight, tallies,
+                slide_index, depth, analog, launch_weight, roulette_threshold * launch_weight,
+                roulette_survival, tallies,
             )
         seconds = time.perf_counter() - start
     finally:
