@@ -1,0 +1,150 @@
+"""The linear mixing model the dose solver works on (layer 3).
+
+A batch is the matrix plus stocks at volume fractions ``f_i`` of the *undiluted* stock in the
+final mix; the matrix fills the rest, ``1 − Σ f_i`` (the additions displace matrix, the final
+volume is fixed).  With each stock's intrinsic optics per unit volume fraction at potency 1
+(``a_i`` absorption, ``s_i`` scattering, ``g_i`` anisotropy) and its potency ``p_i``
+(DESIGN.md: potency scales all of a stock's μa and μs together), the mixing rule of the
+optics layer (``phantomlab.optics.mix_optics``, independent scattering) reads
+
+    μa   = (1 − Σ f_i) μa_m + Σ f_i p_i a_i  =  μa_m + Σ f_i (p_i a_i − μa_m)
+    μs   = Σ f_i p_i s_i
+    μs′  = Σ f_i p_i s_i (1 − g_i)
+    μs·g = Σ f_i p_i s_i g_i
+
+Every line is linear in the doses ``f``: the solver is a linear least-squares problem.
+
+References
+----------
+van de Hulst H C 1957, *Light Scattering by Small Particles* (Wiley), ch. 4: additivity of
+    extinction and scattering of independent particles, used for the sums above.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from phantomlab.errors import InputError
+
+__all__ = ["IntrinsicTable", "design_matrices", "mix_coefficients"]
+
+
+@dataclass(frozen=True)
+class IntrinsicTable:
+    """Intrinsic optics of the stocks of one recipe on one wavelength grid, at potency 1.
+
+    Attributes
+    ----------
+    wavelength_nm : ndarray (W,) [nm]
+    stock_keys : tuple of str (S,)
+        The added stocks, in the order of the rows below (the matrix is not among them).
+    mua_per_mm, mus_per_mm : ndarray (S, W) [1/mm]
+        Per unit volume fraction of the undiluted stock in the final mix, potency 1.
+    g : ndarray (S, W) [dimensionless]
+    matrix_mua_per_mm : ndarray (W,) [1/mm]
+        The matrix's own absorption.
+    solids_volume_fraction : ndarray (S,) [fraction]
+        Particle volume fraction inside each undiluted stock (0 for absorbers).
+    density_g_per_ml : ndarray (S,) [g/mL]
+    matrix_density_g_per_ml : float [g/mL]
+    """
+
+    wavelength_nm: np.ndarray
+    stock_keys: tuple
+    mua_per_mm: np.ndarray
+    mus_per_mm: np.ndarray
+    g: np.ndarray
+    matrix_mua_per_mm: np.ndarray
+    solids_volume_fraction: np.ndarray
+    density_g_per_ml: np.ndarray
+    matrix_density_g_per_ml: float = 1.0
+
+    def __post_init__(self) -> None:
+        wavelength = np.atleast_1d(np.asarray(self.wavelength_nm, dtype=float))
+        count = len(self.stock_keys)
+        shape = (count, wavelength.size)
+        object.__setattr__(self, "wavelength_nm", wavelength)
+        object.__setattr__(self, "stock_keys", tuple(self.stock_keys))
+        for name in ("mua_per_mm", "mus_per_mm", "g"):
+            values = np.asarray(getattr(self, name), dtype=float).reshape(shape)
+            object.__setattr__(self, name, values)
+        object.__setattr__(
+            self,
+            "matrix_mua_per_mm",
+            np.broadcast_to(np.asarray(self.matrix_mua_per_mm, float), wavelength.shape).copy(),
+        )
+        for name in ("solids_volume_fraction", "density_g_per_ml"):
+            values = np.broadcast_to(np.asarray(getattr(self, name), float), (count,)).copy()
+            object.__setattr__(self, name, values)
+        arrays = (self.mua_per_mm, self.mus_per_mm, self.matrix_mua_per_mm)
+        if any(np.any(~np.isfinite(a)) or np.any(a < 0) for a in arrays):
+            raise InputError("intrinsic optics: mua and mus must be finite and >= 0 [1/mm]")
+        if np.any(~np.isfinite(self.g)) or np.any(np.abs(self.g) >= 1):
+            raise InputError("intrinsic optics: g must be finite and inside (-1, 1)")
+        if np.any(self.density_g_per_ml <= 0) or self.matrix_density_g_per_ml <= 0:
+            raise InputError("intrinsic optics: densities must be > 0 g/mL")
+
+    @property
+    def musp_per_mm(self) -> np.ndarray:
+        """Intrinsic reduced scattering s_i (1 − g_i) at potency 1 [1/mm], shape (S, W)."""
+        return self.mus_per_mm * (1.0 - self.g)
+
+    def index_of(self, key: str) -> int:
+        try:
+            return self.stock_keys.index(key)
+        except ValueError:
+            raise InputError(
+                f"stock {key!r} is not in this recipe; its stocks: {', '.join(self.stock_keys)}"
+            ) from None
+
+
+def design_matrices(table: IntrinsicTable, *, potencies) -> dict[str, np.ndarray]:
+    """Columns of the linear model, one per stock, for given potencies.
+
+    Parameters
+    ----------
+    table : IntrinsicTable
+    potencies : array (S,) [dimensionless]
+
+    Returns
+    -------
+    dict of ndarray (W, S)
+        ``mua`` (μa − μa_m per unit f, displacement included), ``mus``, ``musp`` and ``gmus``
+        (μs·g per unit f) [1/mm].
+    """
+    p = np.asarray(potencies, dtype=float)[:, None]
+    return {
+        "mua": (p * table.mua_per_mm - table.matrix_mua_per_mm[None, :]).T,
+        "mus": (p * table.mus_per_mm).T,
+        "musp": (p * table.musp_per_mm).T,
+        "gmus": (p * table.mus_per_mm * table.g).T,
+    }
+
+
+def mix_coefficients(table: IntrinsicTable, *, volume_fractions, potencies) -> dict[str, np.ndarray]:
+    """μa, μs, μs′ and g of the mix; vectorised over leading sample dimensions.
+
+    Parameters
+    ----------
+    table : IntrinsicTable
+    volume_fractions : array (..., S) [fraction]
+        Volume fraction of each undiluted stock in the final mix.
+    potencies : array (..., S) [dimensionless]
+
+    Returns
+    -------
+    dict of ndarray (..., W)
+        ``mua_per_mm``, ``mus_per_mm``, ``musp_per_mm`` [1/mm] and ``g`` (0 where μs = 0).
+    """
+    f = np.asarray(volume_fractions, dtype=float)
+    p = np.asarray(potencies, dtype=float)
+    fp = f * p
+    matrix_fraction = 1.0 - f.sum(axis=-1, keepdims=True)
+    mua = matrix_fraction * table.matrix_mua_per_mm + fp @ table.mua_per_mm
+    mus = fp @ table.mus_per_mm
+    musp = fp @ table.musp_per_mm
+    gmus = fp @ (table.mus_per_mm * table.g)
+    g = np.divide(gmus, mus, out=np.zeros_like(mus), where=mus > 0)
+    return {"mua_per_mm": mua, "mus_per_mm": mus, "musp_per_mm": musp, "g": g}

@@ -1,0 +1,612 @@
+"""From a recipe to a plan: doses, pre-dilutions, predicted optics with SDs (layer 3).
+
+:func:`solve` is the one entry the command line, the batch log and the page use: it builds
+the stocks' intrinsic optics on the target grid (``phantomlab.optics.intrinsic_optics`` at
+potency 1), solves the doses (:mod:`phantomlab.recipe.solver`), turns volume fractions into
+amounts to pipette or weigh, plans pre-dilutions (:mod:`phantomlab.recipe.dilution`) and
+propagates uncertainty (:mod:`phantomlab.recipe.uncertainty`).  :func:`predict` gives the
+optics of any doses (what was really dispensed) with the same model.
+
+A batch given by mass (silicone, resin) is solved in volume fractions too (the optics are
+per volume): with volumes adding, the mix density is ρ = Σ f_j ρ_j over all components
+(matrix included), the batch volume is M/ρ and each mass is f_j ρ_j M/ρ.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import math
+import warnings
+from dataclasses import dataclass, field
+from typing import Any, Mapping
+
+import numpy as np
+
+from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.recipe.dilution import DilutionInfeasible, DilutionPlan, plan_dilution
+from phantomlab.recipe.mixmodel import IntrinsicTable, mix_coefficients
+from phantomlab.recipe.recipe_file import Recipe
+from phantomlab.recipe.solver import BindingLimit, solve_fractions
+from phantomlab.recipe.targets import Target
+from phantomlab.recipe.uncertainty import dose_relative_sd, propagate_sd
+
+__all__ = ["Dose", "MatrixAmounts", "Plan", "Prediction", "intrinsic_table", "predict", "solve",
+           "resolve_potencies"]
+
+#: Doses below this volume fraction count as "not used".
+_UNUSED = 1e-12
+
+
+@dataclass(frozen=True)
+class Prediction:
+    """Predicted optics of a mix, with standard deviations.
+
+    Attributes
+    ----------
+    wavelength_nm : ndarray (W,) [nm]
+    mua_per_mm, mus_per_mm, musp_per_mm : ndarray (W,) [1/mm]
+    g : ndarray (W,) — from the scattering model (Mie / emulsion model), not a measurement
+    mua_sd_per_mm, musp_sd_per_mm : ndarray (W,) [1/mm]
+    """
+
+    wavelength_nm: np.ndarray
+    mua_per_mm: np.ndarray
+    mus_per_mm: np.ndarray
+    musp_per_mm: np.ndarray
+    g: np.ndarray
+    mua_sd_per_mm: np.ndarray
+    musp_sd_per_mm: np.ndarray
+
+    def to_json(self) -> dict[str, Any]:
+        return {
+            "wavelength_nm": self.wavelength_nm,
+            "mua_per_mm": self.mua_per_mm,
+            "musp_per_mm": self.musp_per_mm,
+            "g": self.g,
+            "mua_sd_per_mm": self.mua_sd_per_mm,
+            "musp_sd_per_mm": self.musp_sd_per_mm,
+            "mus_per_mm": self.mus_per_mm,
+        }
+
+
+@dataclass(frozen=True)
+class Dose:
+    """One stock's share of the batch and how to dispense it.
+
+    Attributes
+    ----------
+    stock, kind, lot : str
+    expiry : datetime.date or None
+    volume_fraction : float [fraction] — of the undiluted stock in the final mix
+    volume_ml, mass_g : float [mL], [g] — of the undiluted stock
+    by : str — ``"pipette"`` (amount in mL) or ``"balance"`` (amount in g); ``""`` if unused
+    dilution : DilutionPlan or None
+    dispense_amount : float [mL or g] — what goes into the batch (stock, or last dilution)
+    tolerance : float [same unit] — ± k = 2 dispensing error (at least the balance resolution)
+    relative_sd : float — of the delivered dose, dilution steps included
+    potency, potency_sd : float; potency_source : str (``"shelf"`` or ``"calibrated"``)
+    """
+
+    stock: str
+    kind: str
+    lot: str
+    expiry: _dt.date | None
+    volume_fraction: float
+    volume_ml: float
+    mass_g: float
+    by: str
+    dilution: DilutionPlan | None
+    dispense_amount: float
+    tolerance: float
+    relative_sd: float
+    potency: float
+    potency_sd: float
+    potency_source: str = "shelf"
+
+    @property
+    def used(self) -> bool:
+        return self.volume_fraction > _UNUSED
+
+    @property
+    def unit(self) -> str:
+        return "g" if self.by == "balance" else "mL"
+
+    def to_json(self) -> dict[str, Any]:
+        return {
+            "stock": self.stock,
+            "volume_fraction": self.volume_fraction,
+            "volume_ml": self.volume_ml,
+            "mass_g": self.mass_g,
+            "dilution": _dilution_json(self.dilution),
+            "kind": self.kind,
+            "lot": self.lot,
+            "expiry": self.expiry,
+            "dispense_by": self.by or None,
+            "dispense_amount": self.dispense_amount,
+            "dispense_unit": self.unit if self.used else None,
+            "dispense_from": self.dilution.dispense_from if self.dilution else f"{self.stock} stock",
+            "tolerance": self.tolerance,
+            "relative_sd": self.relative_sd,
+            "potency": self.potency,
+            "potency_sd": self.potency_sd,
+            "potency_source": self.potency_source,
+        }
+
+
+def _dilution_json(dilution: DilutionPlan | None):
+    if dilution is None or not dilution.steps:
+        return None
+    return [
+        {
+            "label": step.label,
+            "source": step.source,
+            "source_amount": step.source_amount,
+            "diluent": dilution.diluent,
+            "diluent_amount": step.diluent_amount,
+            "total_amount": step.total_amount,
+            "factor": step.factor,
+            "unit": dilution.unit,
+        }
+        for step in dilution.steps
+    ]
+
+
+@dataclass(frozen=True)
+class MatrixAmounts:
+    """The matrix part of the batch, as the technician measures it.
+
+    Attributes
+    ----------
+    volume_fraction : float — of the matrix in the final mix (1 − Σ f_i)
+    volume_ml, mass_g : float — total matrix in the batch (carried diluent included)
+    carried_diluent_volume_ml, carried_diluent_mass_g : float — brought in by pre-dilutions
+    parts : tuple of (label, amount, unit, tolerance)
+        What to measure: water (liquid), gel powder + water (gels), base + curing agent
+        (silicone), resin + hardener (resin).
+    """
+
+    volume_fraction: float
+    volume_ml: float
+    mass_g: float
+    carried_diluent_volume_ml: float
+    carried_diluent_mass_g: float
+    parts: tuple
+
+    def to_json(self) -> dict[str, Any]:
+        return {
+            "volume_fraction": self.volume_fraction,
+            "volume_ml": self.volume_ml,
+            "mass_g": self.mass_g,
+            "carried_diluent_volume_ml": self.carried_diluent_volume_ml,
+            "carried_diluent_mass_g": self.carried_diluent_mass_g,
+            "parts": [{"label": a, "amount": b, "unit": c, "tolerance": d} for a, b, c, d in self.parts],
+        }
+
+
+@dataclass(frozen=True)
+class Plan:
+    """Everything the sheet, the batch log and the page need about one planned batch."""
+
+    recipe: Recipe
+    batch_volume_ml: float
+    batch_mass_g: float
+    doses: tuple
+    matrix: MatrixAmounts
+    predicted: Prediction
+    curve: Prediction | None
+    target: Target
+    residuals: dict
+    binding_limits: tuple
+    warnings: tuple
+    created: _dt.date = field(default_factory=_dt.date.today)
+
+    def dose(self, stock: str) -> Dose:
+        for dose in self.doses:
+            if dose.stock == stock:
+                return dose
+        raise InputError(f"plan: no dose for {stock!r}; stocks: {', '.join(d.stock for d in self.doses)}")
+
+    @property
+    def volume_fractions(self) -> dict[str, float]:
+        return {d.stock: d.volume_fraction for d in self.doses}
+
+    def to_json(self) -> dict[str, Any]:
+        """The ``phantomlab plan`` JSON object (DESIGN.md keys first, then extras)."""
+        recipe = self.recipe
+        return {
+            "recipe": recipe.name,
+            "batch_volume_ml": self.batch_volume_ml,
+            "doses": [d.to_json() for d in self.doses],
+            "predicted": self.predicted.to_json(),
+            "target": self.target.to_json(),
+            "warnings": list(self.warnings),
+            "recipe_version": recipe.version,
+            "recipe_hash": recipe.content_hash,
+            "recipe_path": str(recipe.path) if recipe.path else None,
+            "batch_mass_g": self.batch_mass_g,
+            "by_mass": recipe.by_mass,
+            "matrix": {"stock": recipe.matrix_key, "lot": recipe.matrix.lot, **self.matrix.to_json()},
+            "preparation": recipe.preparation.to_json(),
+            "limits": recipe.limits.to_json(),
+            "residuals": self.residuals,
+            "binding_limits": [
+                {"limit": b.limit, "needed": b.needed, "allowed": b.allowed, "message": b.message}
+                for b in self.binding_limits
+            ],
+            "g_source": "scattering model (Mie / emulsion model), not a measurement",
+            "created": self.created,
+        }
+
+
+# ---- building blocks ------------------------------------------------------------------------
+
+
+def intrinsic_table(recipe: Recipe, wavelength_nm) -> IntrinsicTable:
+    """Intrinsic optics (potency 1) of the recipe's stocks and matrix on a wavelength grid.
+
+    Raises
+    ------
+    InputError
+        From the optics layer, e.g. a wavelength outside a stock's measured spectrum.
+    """
+    from phantomlab.optics import intrinsic_optics  # layer 2
+
+    grid = np.atleast_1d(np.asarray(wavelength_nm, dtype=float))
+    matrix = recipe.matrix
+    temperature = recipe.preparation.temperature_c
+    matrix_optics = intrinsic_optics(matrix, wavelength_nm=grid, matrix=matrix, temperature_c=temperature)
+    rows = [
+        intrinsic_optics(recipe.stock(key), wavelength_nm=grid, matrix=matrix, potency=1.0,
+                         temperature_c=temperature)
+        for key in recipe.stock_keys
+    ]
+    stocks = [recipe.stock(key) for key in recipe.stock_keys]
+    return IntrinsicTable(
+        wavelength_nm=grid,
+        stock_keys=recipe.stock_keys,
+        mua_per_mm=np.array([r.mua_per_mm for r in rows]),
+        mus_per_mm=np.array([r.mus_per_mm for r in rows]),
+        g=np.array([np.broadcast_to(r.g, grid.shape) for r in rows]),
+        matrix_mua_per_mm=np.asarray(matrix_optics.mua_per_mm, dtype=float),
+        solids_volume_fraction=np.array([s.solids_volume_fraction for s in stocks]),
+        density_g_per_ml=np.array([s.density_g_per_ml for s in stocks]),
+        matrix_density_g_per_ml=matrix.density_g_per_ml,
+    )
+
+
+def resolve_potencies(recipe: Recipe, potencies: Mapping[str, tuple] | None):
+    """Potency, SD and source of each stock: the override where given, else the shelf.
+
+    An override may be ``(potency, sd)`` or ``(potency, sd, lot)``; with a lot that is not
+    the shelf's lot, it is ignored (a new lot starts from the stock file's prior) and a
+    warning says so.
+
+    Returns
+    -------
+    values : ndarray (S,), sds : ndarray (S,), sources : list of str, notes : list of str
+    """
+    potencies = dict(potencies or {})
+    unknown = sorted(set(potencies) - set(recipe.stock_keys) - {recipe.matrix_key})
+    values, sds, sources, notes = [], [], [], []
+    for key in recipe.stock_keys:
+        stock = recipe.stock(key)
+        value, sd, source = stock.potency, stock.potency_sd, "shelf"
+        if key in potencies:
+            entry = tuple(potencies[key])
+            if len(entry) not in (2, 3):
+                raise InputError(f"potencies[{key!r}] must be (potency, sd) or (potency, sd, lot)")
+            if len(entry) == 3 and entry[2] not in (None, "", stock.lot):
+                notes.append(f"{key}: calibrated potency is for lot {entry[2]!r}, the shelf holds "
+                             f"lot {stock.lot!r}; using the stock file's prior")
+            else:
+                value, sd, source = float(entry[0]), float(entry[1]), "calibrated"
+                if not (math.isfinite(value) and value > 0 and math.isfinite(sd) and sd >= 0):
+                    raise InputError(f"potencies[{key!r}] = {entry!r}; potency must be > 0, sd >= 0")
+        values.append(value)
+        sds.append(sd)
+        sources.append(source)
+    return np.array(values), np.array(sds), sources, notes + (
+        [f"potencies given for stocks not in the recipe ignored: {', '.join(unknown)}"] if unknown else []
+    )
+
+
+def _batch_volume(recipe: Recipe, table: IntrinsicTable, fractions: np.ndarray) -> float:
+    if not recipe.by_mass:
+        return float(recipe.batch_volume_ml)
+    density = fractions @ table.density_g_per_ml + (1 - fractions.sum()) * table.matrix_density_g_per_ml
+    return float(recipe.batch_mass_g / density)
+
+
+def _diluent_name(recipe: Recipe) -> str:
+    kind = recipe.preparation.kind
+    if kind == "silicone":
+        return "silicone base (part A)"
+    if kind == "resin":
+        return "resin (part A)"
+    if kind in ("gelatin", "agar"):
+        return "water"
+    return f"{recipe.matrix_key} (matrix)"
+
+
+def _dispense_tolerance(amount: float, by: str, limits) -> float:
+    if by == "pipette":
+        return 2.0 * limits.pipette_rel_error * amount
+    return max(2.0 * limits.balance_resolution_g / math.sqrt(6.0), limits.balance_resolution_g)
+
+
+def _doses(recipe, table, fractions, potencies, potency_sds, sources, volume_ml, notes, binding):
+    limits = recipe.limits
+    matrix_density = table.matrix_density_g_per_ml
+    doses = []
+    for i, key in enumerate(table.stock_keys):
+        stock = recipe.stock(key)
+        f = float(fractions[i])
+        v = f * volume_ml
+        m = v * table.density_g_per_ml[i]
+        used = f > _UNUSED
+        if not used:
+            doses.append(Dose(key, stock.kind, stock.lot, stock.expiry, 0.0, 0.0, 0.0, "", None,
+                              0.0, 0.0, 0.0, float(potencies[i]), float(potency_sds[i]), sources[i]))
+            continue
+        by = "balance" if (recipe.by_mass or stock.kind == "powder") else "pipette"
+        amount, unit = (m, "g") if by == "balance" else (v, "mL")
+        minimum = limits.min_weigh_g if by == "balance" else limits.min_dispense_ml
+        scale = matrix_density if unit == "g" else 1.0
+        try:
+            dilution = plan_dilution(
+                stock=key, dose_amount=amount, unit=unit, min_amount=minimum,
+                max_steps=limits.max_dilution_steps, dead_amount=limits.dead_volume_ml * scale,
+                max_step_factor=limits.max_dilution_factor_per_step,
+                max_vessel_amount=limits.max_dilution_vessel_ml * scale, diluent=_diluent_name(recipe),
+            )
+        except DilutionInfeasible as exc:
+            binding.append(BindingLimit("max_dilution_steps", float(exc.needed_steps or math.inf),
+                                        float(limits.max_dilution_steps), str(exc)))
+            notes.append(f"{exc}; the dose is listed undiluted and cannot be dispensed as it stands")
+            dilution = DilutionPlan(stock=key, unit=unit, dose_amount=amount, steps=(),
+                                    dispense_amount=amount, diluent=_diluent_name(recipe))
+        rel_sd = dose_relative_sd(dispense_amount=dilution.dispense_amount, steps=dilution.steps, by=by,
+                                  pipette_rel_error=limits.pipette_rel_error,
+                                  balance_resolution_g=limits.balance_resolution_g)
+        doses.append(Dose(
+            stock=key, kind=stock.kind, lot=stock.lot, expiry=stock.expiry, volume_fraction=f,
+            volume_ml=v, mass_g=m, by=by, dilution=dilution if dilution.steps else None,
+            dispense_amount=dilution.dispense_amount,
+            tolerance=_dispense_tolerance(dilution.dispense_amount, by, limits),
+            relative_sd=rel_sd, potency=float(potencies[i]), potency_sd=float(potency_sds[i]),
+            potency_source=sources[i],
+        ))
+    return tuple(doses)
+
+
+def _matrix_amounts(recipe, table, fractions, volume_ml, doses) -> MatrixAmounts:
+    limits = recipe.limits
+    f_matrix = float(1.0 - fractions.sum())
+    volume = f_matrix * volume_ml
+    density = table.matrix_density_g_per_ml
+    mass = volume * density
+    carried_v = carried_m = 0.0
+    for dose in doses:
+        if dose.dilution is None:
+            continue
+        carried = dose.dilution.carried_diluent_amount
+        if dose.dilution.unit == "g":
+            carried_m += carried
+            carried_v += carried / density
+        else:
+            carried_v += carried
+            carried_m += carried * density
+    prep = recipe.preparation
+    weigh = lambda amount: (amount, "g", max(2 * limits.balance_resolution_g / math.sqrt(6), limits.balance_resolution_g))  # noqa: E731
+    measure = lambda amount: (amount, "mL", 2 * limits.matrix_rel_error * amount)  # noqa: E731
+    if prep.kind == "silicone":
+        ratio = prep["base_to_curing_agent"]
+        parts = (
+            ("silicone base (part A)", *weigh(mass * ratio / (ratio + 1) - carried_m)),
+            ("curing agent (part B)", *weigh(mass / (ratio + 1))),
+        )
+    elif prep.kind == "resin":
+        hardener = prep["hardener_parts_per_100_resin"]
+        parts = (
+            ("resin (part A)", *weigh(mass * 100 / (100 + hardener) - carried_m)),
+            ("hardener (part B)", *weigh(mass * hardener / (100 + hardener))),
+        )
+    elif prep.kind in ("gelatin", "agar"):
+        powder = prep["gel_percent_w_v"] / 100.0 * volume
+        parts = (
+            (f"{prep.kind} powder", *weigh(powder)),
+            (f"water, to make {volume - carried_v:.4g} mL of gel", *measure(volume - carried_v)),
+        )
+    elif recipe.by_mass:
+        parts = ((f"{recipe.matrix_key} (matrix)", *weigh(mass - carried_m)),)
+    else:
+        parts = ((f"{recipe.matrix_key} (matrix)", *measure(volume - carried_v)),)
+    for label, amount, _, _ in parts:
+        if amount <= 0:
+            raise InputError(
+                f"plan: the matrix part {label!r} comes out at {amount:.3g}; the pre-dilutions bring "
+                "in more diluent than the batch holds (lower dead_volume_ml or allow a larger batch)"
+            )
+    return MatrixAmounts(f_matrix, volume, mass, carried_v, carried_m, parts)
+
+
+def _residuals(target: Target, predicted: Prediction) -> dict[str, Any]:
+    def relative(pred, want):
+        out = np.full(want.shape, np.nan)
+        has = np.isfinite(want)
+        out[has] = pred[has] / want[has] - 1.0
+        return out
+
+    mua = relative(predicted.mua_per_mm, target.mua_per_mm)
+    musp = relative(predicted.musp_per_mm, target.musp_per_mm)
+    g = predicted.g - target.g
+    return {
+        "wavelength_nm": target.wavelength_nm,
+        "mua_relative": mua,
+        "musp_relative": musp,
+        "g_absolute": g,
+        "mua_met": bool(np.all(np.abs(mua[np.isfinite(mua)]) <= target.mua_tolerance * (1 + 1e-9))),
+        "musp_met": bool(np.all(np.abs(musp[np.isfinite(musp)]) <= target.musp_tolerance * (1 + 1e-9))),
+        "g_met": bool(np.all(np.abs(g[np.isfinite(g)]) <= target.g_tolerance * (1 + 1e-9))),
+    }
+
+
+def _miss_notes(target: Target, residuals: dict) -> list[str]:
+    notes = []
+    for name, key, tol, scale, unit in (
+        ("mua", "mua_relative", target.mua_tolerance, 100.0, "%"),
+        ("musp", "musp_relative", target.musp_tolerance, 100.0, "%"),
+        ("g", "g_absolute", target.g_tolerance, 1.0, ""),
+    ):
+        values = residuals[key]
+        finite = np.isfinite(values)
+        if not np.any(finite):
+            continue
+        worst = int(np.nanargmax(np.where(finite, np.abs(values), -1.0)))
+        if abs(values[worst]) > tol * (1 + 1e-9):
+            fmt = "+.1f" if unit else "+.3f"
+            notes.append(
+                f"{name} not met within tolerance: at {target.wavelength_nm[worst]:g} nm "
+                f"{scale * values[worst]:{fmt}}{unit} (tolerance ±{scale * tol:g}{unit})"
+            )
+    return notes
+
+
+def _curve_grid(target: Target) -> np.ndarray | None:
+    lo, hi = float(target.wavelength_nm.min()), float(target.wavelength_nm.max())
+    if hi - lo < 1.0:
+        return None
+    if target.wavelength_nm.size >= 30:
+        return target.wavelength_nm
+    return np.union1d(np.linspace(lo, hi, 41), target.wavelength_nm)
+
+
+def _prediction(table, fractions, potencies, potency_sds, dose_sds, matrix_rel_sd) -> Prediction:
+    mix = mix_coefficients(table, volume_fractions=fractions, potencies=potencies)
+    sd = propagate_sd(table, volume_fractions=fractions, potencies=potencies, potency_sd=potency_sds,
+                      dose_rel_sd=dose_sds, matrix_rel_sd=matrix_rel_sd)
+    return Prediction(table.wavelength_nm, mix["mua_per_mm"], mix["mus_per_mm"], mix["musp_per_mm"],
+                      mix["g"], sd["mua_sd_per_mm"], sd["musp_sd_per_mm"])
+
+
+# ---- public API ------------------------------------------------------------------------------
+
+
+def solve(recipe: Recipe, *, potencies: Mapping[str, tuple] | None = None,
+          table: IntrinsicTable | None = None, curve: bool = True) -> Plan:
+    """Doses that bring the recipe's stocks closest to its target, with their uncertainty.
+
+    Parameters
+    ----------
+    recipe : Recipe
+    potencies : mapping of stock key to (potency, sd) or (potency, sd, lot), optional
+        Overrides the shelf's potency and potency_sd (calibrated values from the batch log).
+    table : IntrinsicTable, optional
+        Precomputed intrinsic optics on the target grid (benchmarks, tests).
+    curve : bool
+        Also predict a dense spectrum over the target band for the sheet's plot.
+
+    Returns
+    -------
+    Plan
+        Doses, pre-dilutions, matrix amounts, predicted μa, μs′, g with SDs at the target
+        wavelengths, residuals, binding limits and warnings.  When the target is out of reach
+        the plan is the closest feasible recipe and ``binding_limits`` says which limit binds
+        and by how much.
+    """
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", PhantomlabWarning)
+        plan = _solve(recipe, potencies=potencies, table=table, curve=curve)
+    physics = []
+    for item in caught:
+        if issubclass(item.category, PhantomlabWarning):
+            message = " ".join(str(item.message).split())
+            if message not in physics:
+                physics.append(message)
+                warnings.warn(message, PhantomlabWarning, stacklevel=2)
+        else:
+            warnings.warn_explicit(item.message, item.category, item.filename, item.lineno)
+    if physics:
+        from dataclasses import replace
+
+        plan = replace(plan, warnings=plan.warnings + tuple(m for m in physics if m not in plan.warnings))
+    return plan
+
+
+def _solve(recipe, *, potencies, table, curve) -> Plan:
+    target = recipe.target
+    values, sds, sources, notes = resolve_potencies(recipe, potencies)
+    if table is None:
+        table = intrinsic_table(recipe, target.wavelength_nm)
+    outcome = solve_fractions(table, target, potencies=values,
+                              max_solids_volume_fraction=recipe.limits.max_solids_volume_fraction)
+    fractions = outcome.volume_fractions
+    binding = list(outcome.binding_limits)
+    volume_ml = _batch_volume(recipe, table, fractions)
+    doses = _doses(recipe, table, fractions, values, sds, sources, volume_ml, notes, binding)
+    matrix = _matrix_amounts(recipe, table, fractions, volume_ml, doses)
+    dose_sds = np.array([d.relative_sd for d in doses])
+    predicted = _prediction(table, fractions, values, sds, dose_sds, recipe.limits.matrix_rel_error)
+    dense = None
+    grid = _curve_grid(target) if curve else None
+    if grid is not None:
+        dense_table = table if grid is target.wavelength_nm else intrinsic_table(recipe, grid)
+        dense = _prediction(dense_table, fractions, values, sds, dose_sds, recipe.limits.matrix_rel_error)
+    residuals = _residuals(target, predicted)
+    messages = [b.message for b in binding]
+    if binding:
+        messages.append("closest feasible recipe given")
+    messages += _miss_notes(target, residuals) + notes
+    today = _dt.date.today()
+    for key in (recipe.matrix_key, *recipe.stock_keys):
+        stock = recipe.stock(key)
+        if stock.expiry is not None and stock.expiry < today:
+            messages.append(f"{key}: lot {stock.lot or '(none)'} expired on {stock.expiry.isoformat()}")
+    mass = volume_ml * (fractions @ table.density_g_per_ml
+                        + (1 - fractions.sum()) * table.matrix_density_g_per_ml)
+    return Plan(
+        recipe=recipe, batch_volume_ml=volume_ml, batch_mass_g=float(mass), doses=doses, matrix=matrix,
+        predicted=predicted, curve=dense, target=target, residuals=residuals,
+        binding_limits=tuple(binding), warnings=tuple(dict.fromkeys(messages)),
+    )
+
+
+def predict(recipe: Recipe, *, volume_fractions: Mapping[str, float], potencies=None,
+            wavelength_nm=None, dose_relative_sd: Mapping[str, float] | None = None,
+            table: IntrinsicTable | None = None) -> Prediction:
+    """Optics of given doses (e.g. what was really dispensed), with SDs.
+
+    Parameters
+    ----------
+    recipe : Recipe
+    volume_fractions : mapping of stock key to volume fraction [fraction]
+        Of the undiluted stock in the final mix; stocks left out count as 0.
+    potencies : mapping, optional
+        As :func:`solve`.
+    wavelength_nm : array, optional [nm]
+        Defaults to the target's grid.
+    dose_relative_sd : mapping of stock key to relative SD, optional
+        Dispensing uncertainty of each dose; by default 0 (the doses are taken as known, only
+        potency SDs propagate).
+    table : IntrinsicTable, optional
+        Precomputed intrinsic optics on ``wavelength_nm``.
+
+    Returns
+    -------
+    Prediction
+    """
+    unknown = sorted(set(volume_fractions) - set(recipe.stock_keys))
+    if unknown:
+        raise InputError(f"predict: {unknown[0]!r} is not a stock of this recipe; its stocks: "
+                         f"{', '.join(recipe.stock_keys)}")
+    fractions = np.array([float(volume_fractions.get(k, 0.0)) for k in recipe.stock_keys])
+    if np.any(~np.isfinite(fractions)) or np.any(fractions < 0) or fractions.sum() > 1:
+        raise InputError("predict: volume fractions must be finite, >= 0 and sum to at most 1")
+    grid = recipe.target.wavelength_nm if wavelength_nm is None else np.atleast_1d(
+        np.asarray(wavelength_nm, dtype=float))
+    if table is None:
+        table = intrinsic_table(recipe, grid)
+    values, sds, _, _ = resolve_potencies(recipe, potencies)
+    rel = dict(dose_relative_sd or {})
+    dose_sds = np.array([float(rel.get(k, 0.0)) for k in recipe.stock_keys])
+    return _prediction(table, fractions, values, sds, dose_sds, 0.0)
