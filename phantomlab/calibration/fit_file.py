@@ -1,0 +1,152 @@
+"""From a measurement file to fitted optics: the one call the commands and the store use (layer 3).
+
+:func:`fit_measurement_file` reads the file (and its TOML sidecar), calibrates raw readings
+with the reference phantom, picks the fit for the kind, and returns a
+:class:`~phantomlab.calibration.fitting.FitResult` whose ``to_json()`` is the ``fit``
+object of DESIGN.md.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import replace
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from phantomlab.calibration.fitting import FitResult
+from phantomlab.calibration.measurements import KINDS, Measurement, combine_replicates, read_measurement
+from phantomlab.errors import InputError, PhantomlabWarning
+
+__all__ = ["fit_measurement_file", "fit_measurement", "DEFAULT_MODELS", "FIT_MODELS"]
+
+#: Forward models accepted by ``model=`` per kind, the first being the default.
+FIT_MODELS: dict[str, tuple[str, ...]] = {
+    "srdr": ("farrell1992", "kienle1997", "mc"),
+    "sfdi": ("cuccia2009", "mc"),
+    "slab": ("adding-doubling",),
+    "optics": ("direct",),
+}
+DEFAULT_MODELS = {kind: models[0] for kind, models in FIT_MODELS.items()}
+
+_METADATA_OPTIONS = ("n", "n_outside", "thickness_mm", "g", "n_slide", "slide_thickness_mm", "slides",
+                     "specular_included", "port_diameter_mm", "beam_diameter_mm", "reference", "sidecar")
+
+
+def _load_baseline(baseline):
+    if baseline is None or not isinstance(baseline, (str, Path)):
+        return baseline
+    path = Path(baseline)
+    if not path.is_file():
+        raise InputError(f"baseline file {str(path)!r} not found")
+    from phantomlab.transport.montecarlo import load_baseline
+
+    return load_baseline(path)
+
+
+def fit_measurement(
+    measurement: Measurement,
+    *,
+    model: str | None = None,
+    baseline=None,
+    constraint=None,
+    n: float | None = None,
+    n_outside: float | None = None,
+    g: float | None = None,
+) -> FitResult:
+    """Fit an already-read :class:`Measurement` with the fit of its kind.
+
+    Parameters
+    ----------
+    measurement : Measurement
+    model : str, optional
+        One of :data:`FIT_MODELS` for the kind (default the first).
+    baseline : Baseline or path, optional
+        Monte Carlo baseline for ``model='mc'``.
+    constraint : SpectralConstraint, optional
+    n, n_outside, g : float, optional
+        Override the metadata.
+
+    Returns
+    -------
+    FitResult
+    """
+    kind = measurement.kind
+    model = DEFAULT_MODELS[kind] if model is None else model
+    if model not in FIT_MODELS[kind]:
+        raise InputError(f"unknown {kind} fit model {model!r}; accepted: {', '.join(FIT_MODELS[kind])}")
+    baseline = _load_baseline(baseline)
+    if measurement.scale == "raw":
+        from phantomlab.calibration.reference import calibrate_reading
+
+        measurement = calibrate_reading(measurement, model=model, baseline=baseline, n=n, n_outside=n_outside)
+    if kind == "srdr":
+        from phantomlab.calibration.fit_srdr import fit_srdr
+
+        return fit_srdr(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline, constraint=constraint)
+    if kind == "sfdi":
+        from phantomlab.calibration.fit_sfdi import fit_sfdi
+
+        return fit_sfdi(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline, constraint=constraint)
+    if kind == "slab":
+        from phantomlab.calibration.fit_slab import fit_slab
+
+        return fit_slab(measurement, n=n, n_outside=n_outside, g=g, constraint=constraint)
+    from phantomlab.calibration.fit_optics import fit_optics
+
+    return fit_optics(measurement)
+
+
+def fit_measurement_file(path_or_text, *, kind: str, **metadata: Any) -> FitResult:
+    """Read a measurement file and fit it: the entry point of ``fit`` and ``batch measure``.
+
+    Parameters
+    ----------
+    path_or_text : str, pathlib.Path, or a list of them
+        A CSV file (its TOML sidecar ``NAME.toml`` is read when present), or the CSV text
+        itself (a string with a line break).  A list or tuple gives replicate measurements
+        of one phantom, combined with their spread before the fit.
+    kind : {'srdr', 'sfdi', 'slab', 'optics'}
+    **metadata
+        Options that win over the sidecar: ``n``, ``n_outside``, ``thickness_mm`` [mm],
+        ``g``, ``n_slide``, ``slide_thickness_mm`` [mm], ``slides``, ``specular_included``,
+        ``port_diameter_mm``, ``beam_diameter_mm``, ``reference`` (a mapping like the
+        sidecar's ``[reference]`` table), ``sidecar`` (a mapping used instead of the TOML
+        file, e.g. the metadata stored with a measurement); and the fit's own ``model``,
+        ``baseline`` (a Baseline or a path to one) and ``constraint`` (SpectralConstraint).
+        None values are ignored.
+
+    Returns
+    -------
+    FitResult
+        ``.to_json()`` gives the ``fit`` object: wavelength_nm, mua_per_mm, musp_per_mm,
+        mua_sd_per_mm, musp_sd_per_mm, model, chi2_red, warnings (plus extras).
+
+    Raises
+    ------
+    InputError
+        One line for a file that does not parse or validate, a missing index or thickness,
+        an unknown model.
+    """
+    if kind not in KINDS:
+        raise InputError(f"unknown measurement kind {kind!r}; accepted: {', '.join(KINDS)}")
+    fit_options = {key: metadata.pop(key, None) for key in ("model", "baseline", "constraint")}
+    unknown = sorted(set(metadata) - set(_METADATA_OPTIONS))
+    if unknown:
+        raise InputError(
+            f"fit_measurement_file: unknown option {unknown[0]!r}; accepted: "
+            f"{', '.join(_METADATA_OPTIONS + ('model', 'baseline', 'constraint'))}"
+        )
+    sources = list(path_or_text) if isinstance(path_or_text, (list, tuple)) else [path_or_text]
+    measurements = [read_measurement(item, kind=kind, **metadata) for item in sources]
+    measurement = combine_replicates(measurements)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", PhantomlabWarning)
+        result = fit_measurement(measurement, model=fit_options["model"], baseline=fit_options["baseline"],
+                                 constraint=fit_options["constraint"])
+    extra = [" ".join(str(w.message).split()) for w in caught if issubclass(w.category, PhantomlabWarning)]
+    result = result.with_warnings(extra)
+    for message in result.warnings:
+        warnings.warn(message, PhantomlabWarning, stacklevel=2)
+    return result

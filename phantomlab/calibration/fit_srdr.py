@@ -1,0 +1,193 @@
+"""Inverse fit of spatially resolved reflectance R(ρ) (layer 3).
+
+Two forward models (from :mod:`phantomlab.transport`):
+
+* diffusion (``farrell1992``, ``kienle1997``): fitted only to distances beyond
+  ``min_transport_mfp`` transport mean free paths 1/μt′ (default 1; the fit runs once on
+  all distances, then again without those too close to the source);
+* ``mc``: a Monte Carlo lookup built on a stored baseline (``Baseline.srdr``, re-weighting
+  and scaling of one run), valid at every distance, near the source included.  The baseline
+  was run at one anisotropy g; the fit reports μs′ = μs (1 − g).
+
+Absolute data give μa and μs′ directly; relative data (``reflectance_relative``) fit an
+unknown scale factor per wavelength too.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+
+from phantomlab.calibration.fitting import FitResult
+from phantomlab.calibration.identifiability import (
+    diffusion_range_warnings,
+    outcome_warnings,
+    srdr_design_warnings,
+)
+from phantomlab.calibration.measurements import Measurement
+from phantomlab.calibration.spectral import SpectralConstraint, fit_spectrum
+from phantomlab.errors import InputError, PhantomlabWarning
+
+__all__ = ["SRDR_FIT_MODELS", "fit_srdr", "srdr_forward"]
+
+#: Forward models of the srdr fit.
+SRDR_FIT_MODELS = ("farrell1992", "kienle1997", "mc")
+
+
+def baseline_anisotropy(baseline) -> float:
+    """The anisotropy g a Monte Carlo baseline was run with."""
+    for name in ("g", "anisotropy"):
+        if hasattr(baseline, name):
+            return float(getattr(baseline, name))
+    inputs = getattr(baseline, "inputs", None) or {}
+    if "g" in inputs:
+        return float(inputs["g"])
+    raise InputError("the Monte Carlo baseline does not say which g it was run with")
+
+
+def srdr_forward(*, model: str, rho_mm, n: float, n_outside: float = 1.0, baseline=None):
+    """The forward model R(ρ) of the fit as ``forward(mua (N,), musp (N,)) -> (N, R)`` [1/mm²].
+
+    Parameters
+    ----------
+    model : {'farrell1992', 'kienle1997', 'mc'}
+    rho_mm : array (R,) [mm]
+    n, n_outside : float
+    baseline : Baseline, optional
+        Needed for ``mc``.
+    """
+    rho = np.asarray(rho_mm, float)
+    if model == "mc":
+        if baseline is None:
+            raise InputError("srdr model 'mc' needs a Monte Carlo baseline (--baseline FILE)")
+        g = baseline_anisotropy(baseline)
+
+        def forward(mua, musp):
+            mus = np.asarray(musp, float) / (1.0 - g)
+            return np.asarray(baseline.srdr(mua_per_mm=np.asarray(mua, float), mus_per_mm=mus, rho_mm=rho), float)
+
+        return forward
+    if model not in SRDR_FIT_MODELS:
+        raise InputError(f"unknown srdr fit model {model!r}; accepted: {', '.join(SRDR_FIT_MODELS)}")
+    from phantomlab.transport.diffusion import srdr_reflectance
+
+    def forward(mua, musp):
+        return srdr_reflectance(mua_per_mm=np.asarray(mua, float), musp_per_mm=np.asarray(musp, float),
+                                rho_mm=rho, n=n, n_outside=n_outside, model=model)
+
+    return forward
+
+
+def fit_srdr(
+    measurement: Measurement,
+    *,
+    model: str = "farrell1992",
+    n: float | None = None,
+    n_outside: float | None = None,
+    baseline=None,
+    constraint: SpectralConstraint | None = None,
+    min_transport_mfp: float = 1.0,
+) -> FitResult:
+    """Fit μa and μs′ to a spatially resolved reflectance measurement.
+
+    Parameters
+    ----------
+    measurement : Measurement
+        ``kind='srdr'``, scale ``absolute`` or ``relative`` (raw readings are calibrated
+        first, see :func:`phantomlab.calibration.reference.calibrate_reading`).
+    model : {'farrell1992', 'kienle1997', 'mc'}
+    n, n_outside : float, optional
+        Phantom and outside refractive index (default: the measurement's metadata).
+    baseline : Baseline, optional
+        Monte Carlo baseline for ``model='mc'``.
+    constraint : SpectralConstraint, optional
+        Joint fit across the band (power-law μs′, μa from stock spectra).
+    min_transport_mfp : float
+        Diffusion fits ignore distances closer than this many 1/μt′ to the source.
+
+    Returns
+    -------
+    FitResult
+        With warnings (also raised as PhantomlabWarning) on identifiability and model range.
+
+    References
+    ----------
+    Farrell TJ, Patterson MS, Wilson B 1992, Med Phys 19:879 (diffusion R(ρ) and its use to
+    recover μa and μs′ by non-linear least squares).
+    """
+    if measurement.kind != "srdr":
+        raise InputError(f"fit_srdr needs an srdr measurement, got {measurement.kind}")
+    if measurement.scale == "raw":
+        raise InputError("raw srdr readings must be calibrated with the reference phantom first")
+    if model not in SRDR_FIT_MODELS:
+        raise InputError(f"unknown srdr fit model {model!r}; accepted: {', '.join(SRDR_FIT_MODELS)}")
+    meta = measurement.metadata
+    n = meta.n if n is None else n
+    if n is None:
+        raise InputError("the srdr fit needs the phantom's refractive index: give --n N or n = ... in the sidecar")
+    n_outside = meta.n_outside if n_outside is None else n_outside
+    relative = measurement.scale == "relative"
+    rho = measurement.axis
+    forward = srdr_forward(model=model, rho_mm=rho, n=n, n_outside=n_outside, baseline=baseline)
+    label = "mc-lookup" if model == "mc" else f"diffusion-{model}"
+    kwargs = dict(kind="srdr", model=label, wavelength_nm=measurement.wavelength_nm,
+                  data=measurement.values, sd=measurement.sd, relative=relative, constraint=constraint)
+    design = srdr_design_warnings(rho_mm=rho, wavelength_nm=measurement.wavelength_nm,
+                                  mua_per_mm=np.zeros(1), musp_per_mm=np.full(1, np.inf),
+                                  relative=relative)
+    design = [m for m in design if m.startswith("too few")]
+    result, correlation = fit_spectrum(forward, **kwargs)
+    messages = list(design)
+    kept_near = np.zeros(measurement.wavelength_nm.shape, bool)
+    if model != "mc" and min_transport_mfp > 0:
+        finite = np.isfinite(measurement.values)
+        mutr = result.mua_per_mm + result.musp_per_mm
+        near = (rho[None, :] * mutr[:, None] < min_transport_mfp) & finite
+        enough = (finite & ~near).sum(axis=1) >= (4 if relative else 3)
+        kept_near = near.any(axis=1) & ~enough
+        mask = np.where(enough[:, None], finite & ~near, finite)
+        dropped = int((finite & ~mask).sum())
+        if dropped:
+            result, correlation = fit_spectrum(
+                forward, start=(result.mua_per_mm, result.musp_per_mm), mask=mask, **kwargs)
+            messages.append(
+                f"diffusion fit: left out {dropped} points within {min_transport_mfp:g} transport "
+                f"mean free path of the source"
+            )
+    messages += srdr_design_warnings(rho_mm=rho, wavelength_nm=measurement.wavelength_nm,
+                                     mua_per_mm=result.mua_per_mm, musp_per_mm=result.musp_per_mm,
+                                     relative=relative)
+    messages = list(dict.fromkeys(messages))
+    if model != "mc":
+        # near-source points are reported where they had to stay in the fit (too few others)
+        rho_check = np.where(kept_near | (min_transport_mfp <= 0), rho.min(), np.inf)
+        messages += diffusion_range_warnings(
+            rho_mm=rho_check, wavelength_nm=measurement.wavelength_nm,
+            mua_per_mm=result.mua_per_mm, musp_per_mm=result.musp_per_mm,
+            min_transport_mfp=max(min_transport_mfp, 1.0))
+    else:
+        messages += _baseline_range_warnings(forward, result)
+    messages += outcome_warnings(
+        wavelength_nm=result.wavelength_nm, mua_per_mm=result.mua_per_mm,
+        musp_per_mm=result.musp_per_mm, mua_sd_per_mm=result.mua_sd_per_mm,
+        musp_sd_per_mm=result.musp_sd_per_mm, correlation=correlation)
+    return _finish(result, measurement, messages)
+
+
+def _baseline_range_warnings(forward, result) -> list[str]:
+    """Warnings the baseline lookup itself raises at the fitted optics."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", PhantomlabWarning)
+        forward(result.mua_per_mm, result.musp_per_mm)
+    return [" ".join(str(w.message).split()) for w in caught if issubclass(w.category, PhantomlabWarning)]
+
+
+def _finish(result: FitResult, measurement: Measurement, messages) -> FitResult:
+    from dataclasses import replace
+
+    unique = list(dict.fromkeys(list(result.warnings) + list(messages)))
+    for message in unique:
+        warnings.warn(message, PhantomlabWarning, stacklevel=3)
+    return replace(result, warnings=tuple(unique), source=measurement.source, name=measurement.name,
+                   replicates=measurement.replicates)

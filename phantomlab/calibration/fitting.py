@@ -1,0 +1,431 @@
+"""The fitting framework shared by every inverse fit (layer 3).
+
+Weighted non-linear least squares with :func:`scipy.optimize.least_squares`; the covariance
+of the parameters from the Jacobian at the solution, C = (JᵀJ)⁻¹ for residuals already
+divided by their SDs (Press et al. 1992, *Numerical Recipes*, 2nd ed., sec. 15.5, eq.
+15.5.15), scaled by the reduced χ² when the data carry no SDs of their own.  Coefficients
+are fitted as natural logarithms (they stay positive, and the problem is better
+conditioned); the covariance is carried back to linear units by the delta method,
+C_lin = D C_log D with D = diag(x).
+
+Two entry points:
+
+* :func:`fit_blocks` — many independent small problems (one per wavelength), solved as one
+  sparse problem so the forward model is called vectorised over all wavelengths at once;
+* :func:`fit_joint` — one problem whose parameters are shared across the band (spectral
+  constraints).
+
+:class:`FitResult` is what every fit returns; its :meth:`FitResult.to_json` gives the
+``fit`` object of DESIGN.md.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+from typing import Any, Callable, Mapping
+
+import numpy as np
+from scipy import sparse
+from scipy.optimize import least_squares
+
+from phantomlab.errors import InputError, PhantomlabWarning
+
+__all__ = ["BlockOutcome", "JointOutcome", "FitResult", "fit_blocks", "fit_joint", "finite_jacobian"]
+
+#: Relative step of the forward-difference Jacobian in log-parameters.
+_STEP = 1e-6
+
+
+@dataclass(frozen=True)
+class BlockOutcome:
+    """Solution of W independent problems of P parameters each.
+
+    Attributes
+    ----------
+    x : ndarray, shape (W, P)
+        Parameters at the solution (in the fitted, e.g. log, space).
+    covariance : ndarray, shape (W, P, P)
+        Covariance of ``x`` (inf on the diagonal where the data do not determine a parameter).
+    residuals : ndarray, shape (W, M)
+        Normalised residuals (model − data)/SD at the solution; NaN where no data.
+    chi2 : ndarray, shape (W,)
+    dof : ndarray, shape (W,)
+        Number of data points minus number of parameters.
+    chi2_red : ndarray, shape (W,)
+        χ²/dof (NaN where dof ≤ 0).
+    success : bool
+    nfev : int
+    """
+
+    x: np.ndarray
+    covariance: np.ndarray
+    residuals: np.ndarray
+    chi2: np.ndarray
+    dof: np.ndarray
+    chi2_red: np.ndarray
+    success: bool
+    nfev: int
+
+
+@dataclass(frozen=True)
+class JointOutcome:
+    """Solution of one problem of P parameters: ``x`` (P,), ``covariance`` (P, P), and the rest."""
+
+    x: np.ndarray
+    covariance: np.ndarray
+    residuals: np.ndarray
+    chi2: float
+    dof: int
+    chi2_red: float
+    success: bool
+    nfev: int
+
+
+def _masked(residual_fn: Callable[[np.ndarray], np.ndarray], mask: np.ndarray):
+    def wrapped(x):
+        r = np.asarray(residual_fn(x), dtype=float)
+        return np.where(mask, r, 0.0)
+
+    return wrapped
+
+
+def _inside(x, lo, hi):
+    """Clip a starting point strictly inside finite bounds."""
+    span = np.where(np.isfinite(hi - lo), hi - lo, 1.0)
+    with np.errstate(invalid="ignore"):
+        low = np.where(np.isfinite(lo), lo + 1e-9 * span, -np.inf)
+        high = np.where(np.isfinite(hi), hi - 1e-9 * span, np.inf)
+    return np.clip(x, low, high)
+
+
+def finite_jacobian(residual_fn: Callable[[np.ndarray], np.ndarray], x: np.ndarray) -> np.ndarray:
+    """Forward-difference Jacobian of a block residual function.
+
+    Parameters
+    ----------
+    residual_fn : callable
+        Maps parameters of shape (W, P) to residuals of shape (W, M).
+    x : ndarray, shape (W, P)
+
+    Returns
+    -------
+    ndarray, shape (W, M, P)
+    """
+    base = residual_fn(x)
+    jac = np.empty(base.shape + (x.shape[1],))
+    for p in range(x.shape[1]):
+        step = _STEP * np.maximum(1.0, np.abs(x[:, p]))
+        shifted = x.copy()
+        shifted[:, p] += step
+        jac[:, :, p] = (residual_fn(shifted) - base) / step[:, None]
+    return jac
+
+
+def _invert_normal(jac: np.ndarray) -> np.ndarray:
+    """Batched (JᵀJ)⁻¹ with inf where the normal matrix is singular."""
+    normal = np.einsum("wmp,wmq->wpq", jac, jac)
+    out = np.empty_like(normal)
+    for w in range(normal.shape[0]):
+        matrix = normal[w]
+        try:
+            cond = np.linalg.cond(matrix)
+        except np.linalg.LinAlgError:
+            cond = np.inf
+        if not np.isfinite(cond) or cond > 1e14:
+            inverse = np.linalg.pinv(matrix)
+            diag = np.diag(matrix)
+            # a parameter with (near) no information gets an infinite variance
+            weak = np.abs(np.linalg.eigh(matrix)[0]).min() <= 1e-14 * max(np.abs(diag).max(), 1e-300)
+            if weak:
+                inverse = inverse.copy()
+                np.fill_diagonal(inverse, np.inf)
+            out[w] = inverse
+        else:
+            out[w] = np.linalg.inv(matrix)
+    return out
+
+
+def fit_blocks(
+    residual_fn: Callable[[np.ndarray], np.ndarray],
+    x0: np.ndarray,
+    *,
+    mask: np.ndarray,
+    lower: np.ndarray | float = -np.inf,
+    upper: np.ndarray | float = np.inf,
+    scale_by_chi2: bool = False,
+    max_nfev: int | None = None,
+) -> BlockOutcome:
+    """Solve W independent least-squares problems at once.
+
+    Parameters
+    ----------
+    residual_fn : callable
+        Maps parameters (W, P) to normalised residuals (W, M): (model − data)/SD.
+    x0 : ndarray, shape (W, P)
+        Starting point.
+    mask : ndarray of bool, shape (W, M)
+        True where a data point exists.
+    lower, upper : float or array broadcastable to (W, P)
+        Bounds.
+    scale_by_chi2 : bool
+        Multiply each block's covariance by its reduced χ² (data without SDs of their own).
+    max_nfev : int, optional
+
+    Returns
+    -------
+    BlockOutcome
+
+    Notes
+    -----
+    Handing the W problems to ``scipy.optimize.least_squares`` as one sparse problem makes
+    them share one trust region and one stopping rule (slow, and some wavelengths stop
+    early); they are solved instead by a batched Levenberg–Marquardt with a damping factor
+    per wavelength, every forward call vectorised over all wavelengths.  The covariance is
+    (JᵀJ)⁻¹ at the solution, as for :func:`fit_joint`.
+
+    References
+    ----------
+    Marquardt DW 1963, J Soc Ind Appl Math 11:431 (damped Gauss–Newton steps).
+    """
+    x0 = np.atleast_2d(np.asarray(x0, dtype=float))
+    W, P = x0.shape
+    mask = np.asarray(mask, dtype=bool)
+    lo = np.broadcast_to(np.asarray(lower, dtype=float), (W, P))
+    hi = np.broadcast_to(np.asarray(upper, dtype=float), (W, P))
+    block_fn = _masked(residual_fn, mask)
+    x, nfev, success = _batched_levenberg_marquardt(block_fn, _inside(x0, lo, hi), lo, hi,
+                                                    max_iterations=max_nfev or 60)
+    jac = finite_jacobian(block_fn, x)
+    covariance = _invert_normal(jac)
+    residuals = np.where(mask, block_fn(x), np.nan)
+    chi2 = np.nansum(residuals**2, axis=1)
+    dof = mask.sum(axis=1) - P
+    with np.errstate(invalid="ignore", divide="ignore"):
+        chi2_red = np.where(dof > 0, chi2 / np.maximum(dof, 1), np.nan)
+    if scale_by_chi2:
+        factor = np.where(np.isfinite(chi2_red), chi2_red, np.inf)
+        covariance = covariance * factor[:, None, None]
+    return BlockOutcome(
+        x=x, covariance=covariance, residuals=residuals, chi2=chi2, dof=dof,
+        chi2_red=chi2_red, success=success, nfev=nfev,
+    )
+
+
+def _batched_levenberg_marquardt(block_fn, x, lo, hi, *, max_iterations=60, tolerance=1e-10):
+    """Levenberg–Marquardt on W independent problems at once, each with its own damping.
+
+    Steps solve (JᵀJ + λ diag(JᵀJ)) δ = −Jᵀr per block (Marquardt 1963), are projected onto
+    the bounds, accepted where the cost falls (λ /= 3) and refused elsewhere (λ *= 4);
+    a block stops when its relative cost change and step fall below ``tolerance``.
+    """
+    W, P = x.shape
+    r = block_fn(x)
+    cost = np.sum(r**2, axis=1)
+    lam = np.full(W, 1e-3)
+    active = np.ones(W, bool)
+    nfev = 1
+    for _ in range(max_iterations):
+        jac = finite_jacobian(block_fn, x)
+        nfev += P
+        grad = np.einsum("wmp,wm->wp", jac, r)
+        normal = np.einsum("wmp,wmq->wpq", jac, jac)
+        diag = np.maximum(np.diagonal(normal, axis1=1, axis2=2), 1e-12)
+        for _inner in range(8):
+            damped = normal + (lam[:, None] * diag)[:, :, None] * np.eye(P)[None]
+            try:
+                step = -np.linalg.solve(damped, grad[..., None])[..., 0]
+            except np.linalg.LinAlgError:
+                step = -np.einsum("wpq,wq->wp", np.linalg.pinv(damped), grad)
+            step = np.where(active[:, None], np.nan_to_num(step), 0.0)
+            trial = np.clip(x + step, lo, hi)
+            r_trial = block_fn(trial)
+            nfev += 1
+            cost_trial = np.sum(r_trial**2, axis=1)
+            better = active & np.isfinite(cost_trial) & (cost_trial <= cost)
+            change = np.abs(cost - cost_trial) / np.maximum(cost, 1e-300)
+            moved = np.max(np.abs(trial - x), axis=1)
+            x = np.where(better[:, None], trial, x)
+            r = np.where(better[:, None], r_trial, r)
+            done = better & (change < tolerance) & (moved < 1e-8)
+            cost = np.where(better, cost_trial, cost)
+            lam = np.where(better, np.maximum(lam / 3.0, 1e-12), np.where(active, lam * 4.0, lam))
+            stalled = active & (lam > 1e10)
+            active = active & ~done & ~stalled
+            if np.all(better | ~active):
+                break
+        if not np.any(active):
+            break
+    return x, nfev, not np.any(active)
+
+
+def fit_joint(
+    residual_fn: Callable[[np.ndarray], np.ndarray],
+    x0: np.ndarray,
+    *,
+    lower: np.ndarray | float = -np.inf,
+    upper: np.ndarray | float = np.inf,
+    scale_by_chi2: bool = False,
+    jac_sparsity=None,
+    max_nfev: int | None = None,
+) -> JointOutcome:
+    """Solve one weighted least-squares problem with shared parameters.
+
+    Parameters
+    ----------
+    residual_fn : callable
+        Maps parameters (P,) to normalised residuals of any shape (NaN entries are ignored).
+    x0 : ndarray, shape (P,)
+    lower, upper : float or ndarray (P,)
+    scale_by_chi2 : bool
+        Multiply the covariance by the reduced χ².
+    jac_sparsity : optional
+        Passed to ``least_squares`` (for many parameters with local influence).
+
+    Returns
+    -------
+    JointOutcome
+    """
+    x0 = np.asarray(x0, dtype=float).ravel()
+    P = x0.size
+    probe = np.asarray(residual_fn(x0), dtype=float).ravel()
+    mask = np.isfinite(probe)
+
+    def flat(x):
+        r = np.asarray(residual_fn(x), dtype=float).ravel()
+        return np.where(mask, np.nan_to_num(r, nan=0.0), 0.0)
+
+    lo = np.broadcast_to(np.asarray(lower, dtype=float), (P,))
+    hi = np.broadcast_to(np.asarray(upper, dtype=float), (P,))
+    start = _inside(x0, lo, hi)
+    result = least_squares(
+        flat, start, bounds=(lo, hi), method="trf", x_scale="jac",
+        jac_sparsity=jac_sparsity, tr_solver="lsmr" if jac_sparsity is not None else None,
+        max_nfev=max_nfev or 100 * P, xtol=1e-10, ftol=1e-10, gtol=1e-10,
+    )
+    x = result.x
+    jac = finite_jacobian(lambda xx: flat(xx[0])[None, :], x[None, :])
+    covariance = _invert_normal(jac)[0]
+    residuals = np.where(mask, flat(x), np.nan)
+    chi2 = float(np.nansum(residuals**2))
+    dof = int(mask.sum() - P)
+    chi2_red = chi2 / dof if dof > 0 else float("nan")
+    if scale_by_chi2:
+        covariance = covariance * (chi2_red if np.isfinite(chi2_red) else np.inf)
+    return JointOutcome(
+        x=x, covariance=covariance, residuals=residuals, chi2=chi2, dof=dof,
+        chi2_red=chi2_red, success=bool(result.success), nfev=int(result.nfev),
+    )
+
+
+def log_to_linear(x_log: np.ndarray, cov_log: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Delta method: values exp(x) and covariance D C D with D = diag(exp(x)), batched."""
+    values = np.exp(x_log)
+    with np.errstate(invalid="ignore"):
+        cov = cov_log * values[..., :, None] * values[..., None, :]
+    return values, cov
+
+
+@dataclass(frozen=True)
+class FitResult:
+    """Fitted optical properties of one measurement, with their uncertainty.
+
+    Attributes
+    ----------
+    kind : str
+        Measurement kind (srdr, sfdi, slab, optics).
+    model : str
+        Forward model used (``diffusion-farrell1992``, ``mc-lookup``, ``adding-doubling``, ...).
+    wavelength_nm : ndarray (W,) [nm]
+    mua_per_mm, musp_per_mm : ndarray (W,) [1/mm]
+    mua_sd_per_mm, musp_sd_per_mm : ndarray (W,) [1/mm]
+        Standard uncertainties (inf where the data do not determine the value).
+    covariance : ndarray (W, 2, 2) [1/mm^2]
+        Covariance of (mua, musp) at each wavelength.
+    chi2_red : float
+        Reduced χ² over the whole measurement (NaN when there are no degrees of freedom).
+    chi2_red_per_wavelength : ndarray (W,)
+    residuals : ndarray
+        Normalised residuals (model − data)/SD, shape of the data.
+    warnings : tuple of str
+        Identifiability and model-range warnings (also raised as PhantomlabWarning).
+    scale_factor, scale_factor_sd : ndarray (W,) or None
+        Fitted scale of relative data (data = scale · model).
+    parameters : dict
+        Extra fitted parameters (spectral constraints), each ``{"value":..., "sd":...}``.
+    source, name : str or None
+        The file's ``# source:`` line and name.
+    replicates : int
+    """
+
+    kind: str
+    model: str
+    wavelength_nm: np.ndarray
+    mua_per_mm: np.ndarray
+    musp_per_mm: np.ndarray
+    mua_sd_per_mm: np.ndarray
+    musp_sd_per_mm: np.ndarray
+    covariance: np.ndarray
+    chi2_red: float
+    chi2_red_per_wavelength: np.ndarray
+    residuals: np.ndarray
+    warnings: tuple[str, ...] = ()
+    scale_factor: np.ndarray | None = None
+    scale_factor_sd: np.ndarray | None = None
+    parameters: Mapping[str, Any] = field(default_factory=dict)
+    source: str | None = None
+    name: str | None = None
+    replicates: int = 1
+
+    def to_json(self) -> dict[str, Any]:
+        """The ``fit`` object of DESIGN.md (exact keys first, extras after), JSON-ready."""
+        from phantomlab.jsonable import to_jsonable
+
+        payload = {
+            "wavelength_nm": self.wavelength_nm,
+            "mua_per_mm": self.mua_per_mm,
+            "musp_per_mm": self.musp_per_mm,
+            "mua_sd_per_mm": self.mua_sd_per_mm,
+            "musp_sd_per_mm": self.musp_sd_per_mm,
+            "model": self.model,
+            "chi2_red": self.chi2_red,
+            "warnings": list(self.warnings),
+            "kind": self.kind,
+            "covariance_mua_musp": self.covariance,
+            "chi2_red_per_wavelength": self.chi2_red_per_wavelength,
+            "residuals": self.residuals,
+            "parameters": dict(self.parameters),
+            "source": self.source,
+            "replicates": self.replicates,
+        }
+        if self.scale_factor is not None:
+            payload["scale_factor"] = self.scale_factor
+            payload["scale_factor_sd"] = self.scale_factor_sd
+        return to_jsonable(payload)
+
+    def with_warnings(self, messages) -> "FitResult":
+        from dataclasses import replace
+
+        merged = list(self.warnings)
+        for message in messages:
+            if message not in merged:
+                merged.append(message)
+        return replace(self, warnings=tuple(merged))
+
+
+def warn(message: str) -> str:
+    """Raise a PhantomlabWarning with a one-line ``message`` and return it (for FitResult)."""
+    line = " ".join(str(message).split())
+    warnings.warn(line, PhantomlabWarning, stacklevel=3)
+    return line
+
+
+def require_positive(name: str, value) -> float:
+    """One-line refusal of a non-positive or non-finite scalar option."""
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        raise InputError(f"{name} = {value!r}; accepted: a positive number") from None
+    if not np.isfinite(number) or number <= 0:
+        raise InputError(f"{name} = {value!r}; accepted: a positive number")
+    return number

@@ -1,0 +1,228 @@
+"""Can the data tell μa from μs′?  Warnings on the measurement design and on the fit (layer 3).
+
+Two kinds of check, each returning one-line messages (the fit modules raise them as
+:class:`~phantomlab.errors.PhantomlabWarning` and keep them in ``FitResult.warnings``):
+
+* design checks, before looking at the numbers: too few or too close source–detector
+  distances, too few or too close spatial frequencies;
+* outcome checks, from the fitted covariance: a strong correlation between the fitted log μa
+  and log μs′ together with a large relative SD, and forward models used outside their range
+  (diffusion near the source or at low albedo, diffusion at high spatial frequency).
+
+The thresholds are rules of thumb of the trade, marked as such.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = [
+    "MIN_SPAN_TRANSPORT_MFP",
+    "MAX_CORRELATION",
+    "MAX_RELATIVE_SD",
+    "srdr_design_warnings",
+    "sfdi_design_warnings",
+    "outcome_warnings",
+    "diffusion_range_warnings",
+    "sfdi_diffusion_range_warnings",
+    "slab_edge_warnings",
+]
+
+#: Smallest span of source–detector distances, in transport mean free paths 1/μt′, over which
+#: μa and μs′ separate (common practice, no source).
+MIN_SPAN_TRANSPORT_MFP = 2.0
+#: Fewest distinct spatial frequencies for an sfdi fit, and the smallest frequency span [1/mm]
+#: (common practice, no source: a planar and one patterned frequency near 0.1 /mm).
+MIN_FREQUENCIES = 2
+MIN_FREQUENCY_SPAN_PER_MM = 0.05
+#: |correlation| of fitted log μa and log μs′ above which, with a large SD, they are confounded.
+MAX_CORRELATION = 0.95
+#: Relative SD above which a fitted coefficient is reported as undetermined.
+MAX_RELATIVE_SD = 0.25
+#: Diffusion in the spatial-frequency domain is flagged above fx/μt′ = 0.3 (common practice,
+#: no source; Cuccia et al. 2009 compare with Monte Carlo up to about this point).
+MAX_FX_OVER_MUTR = 0.3
+#: Light beyond about 3 lateral spread lengths of the port edge is negligible
+#: (common practice, no source).
+EDGE_SPREAD_FACTOR = 3.0
+
+
+def _bands(wavelength_nm, flags) -> str:
+    """A compact list of the wavelengths where ``flags`` holds: '650-700 nm (3 of 11)'."""
+    wl = np.asarray(wavelength_nm)[np.asarray(flags, bool)]
+    if wl.size == 1:
+        return f"{wl[0]:g} nm"
+    return f"{wl.min():g}-{wl.max():g} nm ({wl.size} of {np.size(wavelength_nm)} wavelengths)"
+
+
+def srdr_design_warnings(*, rho_mm, wavelength_nm, mua_per_mm, musp_per_mm, relative: bool) -> list[str]:
+    """Design checks of a spatially resolved reflectance measurement.
+
+    Parameters
+    ----------
+    rho_mm : array (R,) [mm]
+        Source–detector distances used by the fit.
+    wavelength_nm : array (W,) [nm]
+    mua_per_mm, musp_per_mm : array (W,) [1/mm]
+        Fitted (or expected) optics, for the span in transport mean free paths.
+    relative : bool
+        Relative data need one more distance (the scale factor).
+
+    Returns
+    -------
+    list of str
+    """
+    messages = []
+    rho = np.unique(np.asarray(rho_mm, float))
+    needed = 4 if relative else 3
+    if rho.size < needed:
+        messages.append(
+            f"too few source-detector distances ({rho.size}) to separate mua from musp"
+            f"{' and the scale factor' if relative else ''}; accepted: at least {needed}"
+        )
+        return messages
+    mutr = np.asarray(mua_per_mm) + np.asarray(musp_per_mm)
+    span = (rho.max() - rho.min()) * mutr
+    short = span < MIN_SPAN_TRANSPORT_MFP
+    if np.any(short):
+        messages.append(
+            f"too short a distance range: rho {rho.min():g}-{rho.max():g} mm spans "
+            f"{np.min(span):.2g} transport mean free paths at {_bands(wavelength_nm, short)}; "
+            f"mua and musp separate poorly below {MIN_SPAN_TRANSPORT_MFP:g}"
+        )
+    return messages
+
+
+def sfdi_design_warnings(*, fx_per_mm) -> list[str]:
+    """Design checks of a spatial-frequency-domain measurement: enough distinct frequencies."""
+    fx = np.unique(np.asarray(fx_per_mm, float))
+    if fx.size < MIN_FREQUENCIES:
+        return [
+            f"too few spatial frequencies ({fx.size}) to separate mua from musp; "
+            f"accepted: at least {MIN_FREQUENCIES} (e.g. 0 and 0.1 /mm)"
+        ]
+    if fx.max() - fx.min() < MIN_FREQUENCY_SPAN_PER_MM:
+        return [
+            f"spatial frequencies {fx.min():g}-{fx.max():g} /mm are too close to separate mua "
+            f"from musp; accepted: a span of at least {MIN_FREQUENCY_SPAN_PER_MM:g} /mm"
+        ]
+    return []
+
+
+def outcome_warnings(*, wavelength_nm, mua_per_mm, musp_per_mm, mua_sd_per_mm, musp_sd_per_mm,
+                     correlation) -> list[str]:
+    """Checks of the fitted covariance: confounded or undetermined coefficients."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rel_a = np.asarray(mua_sd_per_mm) / np.asarray(mua_per_mm)
+        rel_s = np.asarray(musp_sd_per_mm) / np.asarray(musp_per_mm)
+        corr = np.abs(np.nan_to_num(np.asarray(correlation, float), nan=1.0))
+        undetermined = ~np.isfinite(rel_a) | ~np.isfinite(rel_s)
+        large = (np.nan_to_num(rel_a, nan=np.inf) > MAX_RELATIVE_SD) | (np.nan_to_num(rel_s, nan=np.inf) > MAX_RELATIVE_SD)
+    messages = []
+    if np.any(undetermined):
+        messages.append(
+            f"the data cannot tell mua from musp at {_bands(wavelength_nm, undetermined)}: "
+            f"the fit leaves them undetermined (infinite SD)"
+        )
+    confounded = large & ~undetermined & (corr > MAX_CORRELATION)
+    if np.any(confounded):
+        messages.append(
+            f"the data cannot tell mua from musp at {_bands(wavelength_nm, confounded)}: "
+            f"correlation {np.max(corr[confounded]):.3f} between them, relative SD up to "
+            f"{100 * np.nanmax(np.fmax(rel_a, rel_s)[confounded]):.0f} % (accepted: below "
+            f"{100 * MAX_RELATIVE_SD:.0f} %)"
+        )
+    loose = large & ~undetermined & ~confounded
+    if np.any(loose):
+        messages.append(
+            f"fitted mua or musp has a relative SD above {100 * MAX_RELATIVE_SD:.0f} % at "
+            f"{_bands(wavelength_nm, loose)}"
+        )
+    return messages
+
+
+def diffusion_range_warnings(*, rho_mm, wavelength_nm, mua_per_mm, musp_per_mm,
+                             min_transport_mfp: float = 1.0) -> list[str]:
+    """Where diffusion is poor for srdr: close to the source, or at low albedo.
+
+    ``rho_mm`` is either the distances used (R,) or the smallest used per wavelength (W,).
+
+    References
+    ----------
+    Farrell et al. 1992, Med Phys 19:879 (diffusion fails within about one transport mean
+    free path of the source and when μs′ is not much larger than μa).
+    """
+    messages = []
+    mua = np.asarray(mua_per_mm)
+    musp = np.asarray(musp_per_mm)
+    mutr = mua + musp
+    rho = np.asarray(rho_mm, float)
+    rho_min = rho if rho.shape == mutr.shape else np.full(mutr.shape, rho.min())
+    near = rho_min * mutr < min_transport_mfp
+    if np.any(near):
+        messages.append(
+            f"diffusion used within {min_transport_mfp:g} transport mean free path of the source "
+            f"(rho {np.min(rho_min[near]):g} mm, 1/mutr up to {np.max(1 / mutr[near]):.3g} mm at "
+            f"{_bands(wavelength_nm, near)}); diffusion is poor there: use the Monte Carlo lookup"
+        )
+    low = musp / np.maximum(mua, 1e-300) < 10.0
+    if np.any(low):
+        messages.append(
+            f"diffusion used at musp/mua = {np.min(musp / mua):.3g} (below 10) at "
+            f"{_bands(wavelength_nm, low)}; diffusion is poor there: use the Monte Carlo lookup"
+        )
+    return messages
+
+
+def sfdi_diffusion_range_warnings(*, fx_per_mm, wavelength_nm, mua_per_mm, musp_per_mm) -> list[str]:
+    """Where diffusion is poor for sfdi: high spatial frequency, low albedo."""
+    messages = []
+    mua = np.asarray(mua_per_mm)
+    musp = np.asarray(musp_per_mm)
+    ratio = np.max(fx_per_mm) / (mua + musp)
+    high = ratio > MAX_FX_OVER_MUTR
+    if np.any(high):
+        messages.append(
+            f"diffusion used at fx/mutr = {np.max(ratio):.2g} (above {MAX_FX_OVER_MUTR:g}) at "
+            f"{_bands(wavelength_nm, high)}; diffusion is poor at high spatial frequency: "
+            f"use the Monte Carlo lookup"
+        )
+    low = musp / np.maximum(mua, 1e-300) < 10.0
+    if np.any(low):
+        messages.append(
+            f"diffusion used at musp/mua = {np.min(musp / mua):.3g} (below 10) at "
+            f"{_bands(wavelength_nm, low)}; use the Monte Carlo lookup"
+        )
+    return messages
+
+
+def slab_edge_warnings(*, thickness_mm, port_diameter_mm, wavelength_nm, mua_per_mm, musp_per_mm) -> list[str]:
+    """Warn about light lost at the edges of the sphere port (not modelled by adding-doubling).
+
+    The lateral spread of light in the slab is taken as the larger of the thickness and the
+    diffusion length 1/μeff (μeff = √(3 μa (μa + μs′))); a port radius below
+    :data:`EDGE_SPREAD_FACTOR` spread lengths loses a noticeable part of it.
+
+    References
+    ----------
+    Lemaillet P et al. 2015, J Biomed Opt 20:121310 (edge losses turn a 2–3 % error in R and
+    T into a 5–30 % error in μa).
+    """
+    if port_diameter_mm is None:
+        return [
+            "edge losses not checked: give port_diameter_mm in the sidecar; light lost at the "
+            "slab edges (not in adding-doubling) turns a 2-3 % R/T error into 5-30 % in mua"
+        ]
+    mua = np.asarray(mua_per_mm)
+    musp = np.asarray(musp_per_mm)
+    mueff = np.sqrt(3 * mua * (mua + musp))
+    spread = np.maximum(thickness_mm, 1.0 / np.maximum(mueff, 1e-12))
+    lossy = port_diameter_mm / 2 < EDGE_SPREAD_FACTOR * spread
+    if np.any(lossy):
+        return [
+            f"light lost at the slab edges: port radius {port_diameter_mm / 2:g} mm is below "
+            f"{EDGE_SPREAD_FACTOR:g} lateral spread lengths (up to {np.max(spread[lossy]):.3g} mm) at "
+            f"{_bands(wavelength_nm, lossy)}; adding-doubling does not model this, so mua is "
+            f"overestimated"
+        ]
+    return []

@@ -1,0 +1,637 @@
+"""Measurement files: reading, validating and combining what an instrument recorded (layer 3).
+
+The CSV layouts are those of DESIGN.md ("Measurement CSV files"); one header row, one row
+per point, an optional first line ``# source: ...``:
+
+* ``srdr``  ``wavelength_nm,rho_mm,reflectance_per_mm2[,sd]`` (absolute) or
+  ``wavelength_nm,rho_mm,reflectance_relative[,sd]`` (scale unknown, fitted) or
+  ``wavelength_nm,rho_mm,reading[,sd]`` (raw instrument reading, calibrated with a reference
+  phantom named in the sidecar, see :mod:`phantomlab.calibration.reference`);
+* ``sfdi``  ``wavelength_nm,fx_per_mm,reflectance[,sd]`` or ``...,reading[,sd]`` (raw);
+* ``slab``  ``wavelength_nm,total_reflectance,total_transmittance[,sd_r,sd_t]``;
+* ``optics`` ``wavelength_nm,mua_per_mm,musp_per_mm[,mua_sd_per_mm,musp_sd_per_mm]``.
+
+Metadata sit in a TOML file of the same name beside the CSV (``m1.csv`` → ``m1.toml``) or
+come as keyword arguments (which win over the sidecar).  Everything that cannot be accepted
+is refused with one :class:`~phantomlab.errors.InputError` line naming the row (and the file
+line) and the column.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+import tomllib
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+
+from phantomlab.errors import InputError
+from phantomlab.units import parse_quantity
+
+__all__ = [
+    "KINDS",
+    "Measurement",
+    "MeasurementMetadata",
+    "ReferenceSpec",
+    "read_measurement",
+    "parse_measurement_text",
+    "read_sidecar",
+    "combine_replicates",
+]
+
+#: Measurement kinds and the abscissa column each one has (None: one point per wavelength).
+KINDS: dict[str, str | None] = {"srdr": "rho_mm", "sfdi": "fx_per_mm", "slab": None, "optics": None}
+
+#: Plausible wavelength range of an optical phantom measurement [nm]; outside it, the number is
+#: most likely in another unit (um) and is refused.
+WAVELENGTH_RANGE_NM = (200.0, 3000.0)
+
+_VALUE_COLUMNS: dict[str, tuple[tuple[str, ...], ...]] = {
+    # each alternative: the value column(s); sd columns follow in _SD_COLUMNS
+    "srdr": (("reflectance_per_mm2",), ("reflectance_relative",), ("reading",)),
+    "sfdi": (("reflectance",), ("reading",)),
+    "slab": (("total_reflectance", "total_transmittance"),),
+    "optics": (("mua_per_mm", "musp_per_mm"),),
+}
+_SD_COLUMNS: dict[str, tuple[str, ...]] = {
+    "srdr": ("sd",),
+    "sfdi": ("sd",),
+    "slab": ("sd_r", "sd_t"),
+    "optics": ("mua_sd_per_mm", "musp_sd_per_mm"),
+}
+# Unit-bearing stems: a column with this stem but another unit suffix is a unit slip.
+_UNIT_STEMS = {
+    "wavelength": "wavelength_nm",
+    "rho": "rho_mm",
+    "fx": "fx_per_mm",
+    "mua": "mua_per_mm",
+    "musp": "musp_per_mm",
+    "reflectance_per": "reflectance_per_mm2",
+}
+
+_METADATA_KEYS = {
+    "n", "n_outside", "thickness_mm", "g", "n_slide", "slide_thickness_mm", "slides",
+    "specular_included", "instrument", "date", "port_diameter_mm", "beam_diameter_mm",
+    "probe", "operator", "notes", "reference", "phantom_age_days", "temperature_c",
+}
+
+
+@dataclass(frozen=True)
+class ReferenceSpec:
+    """A reference phantom of known optics measured on the same instrument.
+
+    Attributes
+    ----------
+    wavelength_nm : ndarray [nm]
+        Grid on which the reference optics are given (one value broadcasts to all).
+    mua_per_mm, musp_per_mm : ndarray [1/mm]
+        The reference phantom's known optics.
+    mua_sd_per_mm, musp_sd_per_mm : ndarray [1/mm]
+        Their standard uncertainties; they enter the SD of the calibrated reflectance.
+    n : float or None
+        Refractive index of the reference phantom (defaults to the sample's).
+    reading : Measurement or None
+        The reference phantom's raw reading, same kind and layout as the sample's.
+    """
+
+    wavelength_nm: np.ndarray
+    mua_per_mm: np.ndarray
+    musp_per_mm: np.ndarray
+    mua_sd_per_mm: np.ndarray
+    musp_sd_per_mm: np.ndarray
+    n: float | None = None
+    reading: "Measurement | None" = None
+
+
+@dataclass(frozen=True)
+class MeasurementMetadata:
+    """What the fit needs to know beside the numbers (sidecar TOML or options).
+
+    Attributes
+    ----------
+    n : float or None
+        Refractive index of the phantom.
+    n_outside : float
+        Index of what touches the surface (air 1.0, a probe's glass, ...).
+    thickness_mm : float or None [mm]
+        Slab thickness (slab kind).
+    g : float or None
+        Anisotropy assumed for slab and Monte Carlo fits.
+    n_slide : float or None
+        Index of glass slides on the slab faces.
+    slide_thickness_mm : float [mm]
+    slides : str
+        Which faces carry a slide: ``none``, ``top``, ``bottom`` or ``both``.
+    specular_included : bool
+        Whether the total reflectance includes the specular part (sphere with the specular
+        port closed).
+    port_diameter_mm, beam_diameter_mm : float or None [mm]
+        Integrating-sphere sample port and beam diameters (edge-loss check).
+    instrument, date : str or None
+    reference : ReferenceSpec or None
+    extra : dict
+        Any other sidecar keys, kept for the record.
+    """
+
+    n: float | None = None
+    n_outside: float = 1.0
+    thickness_mm: float | None = None
+    g: float | None = None
+    n_slide: float | None = None
+    slide_thickness_mm: float = 0.0
+    slides: str = "none"
+    specular_included: bool = True
+    port_diameter_mm: float | None = None
+    beam_diameter_mm: float | None = None
+    instrument: str | None = None
+    date: str | None = None
+    reference: ReferenceSpec | None = None
+    extra: Mapping[str, Any] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class Measurement:
+    """One measurement on a wavelength grid, validated, in canonical units.
+
+    Attributes
+    ----------
+    kind : str
+        ``srdr``, ``sfdi``, ``slab`` or ``optics``.
+    scale : str
+        ``absolute``, ``relative`` (unknown scale factor) or ``raw`` (instrument reading
+        to be calibrated with a reference phantom).
+    wavelength_nm : ndarray, shape (W,) [nm]
+    axis : ndarray, shape (R,)
+        ``rho_mm`` [mm] for srdr, ``fx_per_mm`` [1/mm] for sfdi; empty for slab and optics.
+    values : ndarray, shape (W, R) or (W, 2)
+        Reflectance [1/mm^2 for srdr, dimensionless for sfdi]; for slab the columns are
+        total reflectance and total transmittance; for optics mua and musp [1/mm].
+        NaN where a wavelength lacks a point of the common axis.
+    sd : ndarray or None
+        Standard uncertainties of ``values`` (None when the file gives none).
+    source : str or None
+        The ``# source:`` line.
+    metadata : MeasurementMetadata
+    replicates : int
+        How many files were combined into this one.
+    name : str
+        File name (or ``<text>``), used in messages.
+    """
+
+    kind: str
+    scale: str
+    wavelength_nm: np.ndarray
+    axis: np.ndarray
+    values: np.ndarray
+    sd: np.ndarray | None
+    source: str | None
+    metadata: MeasurementMetadata
+    replicates: int = 1
+    name: str = "<text>"
+
+    @property
+    def axis_name(self) -> str | None:
+        """``rho_mm``, ``fx_per_mm`` or None."""
+        return KINDS[self.kind]
+
+
+def _check_kind(kind: str) -> str:
+    if kind not in KINDS:
+        raise InputError(f"unknown measurement kind {kind!r}; accepted: {', '.join(KINDS)}")
+    return kind
+
+
+def _number(cell: str, *, where: str, column: str) -> float:
+    text = cell.strip()
+    if text == "":
+        raise InputError(f"{where}, column {column}: empty cell; every cell needs a number")
+    try:
+        value = float(text)
+    except ValueError:
+        raise InputError(
+            f"{where}, column {column}: {text!r} is not a number "
+            f"(cells hold bare numbers in the unit the header names)"
+        ) from None
+    if not math.isfinite(value):
+        raise InputError(f"{where}, column {column}: {text!r} is not a finite number")
+    return value
+
+
+def _check_header(header: list[str], kind: str, name: str) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    seen = set()
+    for column in header:
+        if column in seen:
+            raise InputError(f"{name}: header, column {column}: appears twice")
+        seen.add(column)
+    for column in header:
+        for stem, canonical in _UNIT_STEMS.items():
+            if column != canonical and column.startswith(stem + "_") and column not in (
+                "reflectance_relative",
+            ) and not column.startswith("mua_sd") and not column.startswith("musp_sd"):
+                raise InputError(
+                    f"{name}: header, column {column}: unit not accepted; "
+                    f"this column must be {canonical}"
+                )
+    axis = KINDS[kind]
+    required = ["wavelength_nm"] + ([axis] if axis else [])
+    for column in required:
+        if column not in header:
+            raise InputError(
+                f"{name}: header lacks column {column}; a {kind} file needs "
+                f"{_layout(kind)}"
+            )
+    values = None
+    for alternative in _VALUE_COLUMNS[kind]:
+        if all(c in header for c in alternative):
+            if values is not None:
+                raise InputError(
+                    f"{name}: header has both {','.join(values)} and {','.join(alternative)}; "
+                    f"give one value column ({_layout(kind)})"
+                )
+            values = alternative
+    if values is None:
+        raise InputError(f"{name}: header lacks the value column(s); a {kind} file needs {_layout(kind)}")
+    sds = tuple(c for c in _SD_COLUMNS[kind][: len(values)] if c in header)
+    if sds and len(sds) != len(values):
+        raise InputError(
+            f"{name}: header gives {','.join(sds)} but not all of "
+            f"{','.join(_SD_COLUMNS[kind][: len(values)])}; give all SD columns or none"
+        )
+    known = set(required) | set(values) | set(_SD_COLUMNS[kind])
+    for column in header:
+        if column not in known:
+            raise InputError(
+                f"{name}: header, column {column}: not a column of a {kind} file ({_layout(kind)})"
+            )
+    return values, sds
+
+
+def _layout(kind: str) -> str:
+    axis = KINDS[kind]
+    lead = "wavelength_nm" + (f",{axis}" if axis else "")
+    alternatives = " or ".join(",".join(a) for a in _VALUE_COLUMNS[kind])
+    sds = ",".join(_SD_COLUMNS[kind])
+    return f"{lead},{alternatives}[,{sds}]"
+
+
+def parse_measurement_text(
+    text: str, *, kind: str, name: str = "<text>", metadata: MeasurementMetadata | None = None
+) -> Measurement:
+    """Parse the CSV text of a measurement file and validate it.
+
+    Parameters
+    ----------
+    text : str
+        The file content.
+    kind : str
+        ``srdr``, ``sfdi``, ``slab`` or ``optics``.
+    name : str
+        Shown in error messages.
+    metadata : MeasurementMetadata, optional
+
+    Returns
+    -------
+    Measurement
+
+    Raises
+    ------
+    InputError
+        One line naming the row (and file line) and the column of the first problem.
+    """
+    _check_kind(kind)
+    metadata = metadata or MeasurementMetadata()
+    lines = text.splitlines()
+    source = None
+    body_start = 0
+    while body_start < len(lines) and (not lines[body_start].strip() or lines[body_start].lstrip().startswith("#")):
+        stripped = lines[body_start].strip()
+        if stripped.lower().startswith("# source:"):
+            source = stripped.split(":", 1)[1].strip() or None
+        body_start += 1
+    if body_start >= len(lines):
+        raise InputError(f"{name}: no header row; a {kind} file needs {_layout(kind)}")
+    reader = csv.reader(io.StringIO("\n".join(lines[body_start:])))
+    rows = list(reader)
+    header = [h.strip() for h in rows[0]]
+    value_columns, sd_columns = _check_header(header, kind, name)
+    index = {c: i for i, c in enumerate(header)}
+    axis_name = KINDS[kind]
+    data_rows = [(i, r) for i, r in enumerate(rows[1:], start=1) if any(c.strip() for c in r)]
+    if not data_rows:
+        raise InputError(f"{name}: no data rows after the header")
+    records = []
+    for row_number, row in data_rows:
+        where = f"{name}: row {row_number} (file line {body_start + 1 + row_number})"
+        if len(row) != len(header):
+            raise InputError(f"{where}: {len(row)} cells, the header has {len(header)}")
+        record = {c: _number(row[index[c]], where=where, column=c) for c in header}
+        _check_ranges(record, kind, where, value_columns, sd_columns)
+        records.append((where, record))
+    # ordering: wavelength non-decreasing; inside one wavelength, the axis strictly increasing
+    previous = None
+    for where, record in records:
+        wl = record["wavelength_nm"]
+        if previous is not None:
+            pwl, paxis = previous
+            if wl < pwl:
+                raise InputError(
+                    f"{where}, column wavelength_nm: {wl:g} after {pwl:g}; rows must be sorted "
+                    f"by wavelength_nm increasing" + (f", then {axis_name} increasing" if axis_name else "")
+                )
+            if wl == pwl:
+                if axis_name is None:
+                    raise InputError(f"{where}, column wavelength_nm: {wl:g} appears twice; one row per wavelength")
+                if record[axis_name] <= paxis:
+                    raise InputError(
+                        f"{where}, column {axis_name}: {record[axis_name]:g} after {paxis:g} at "
+                        f"{wl:g} nm; {axis_name} must increase within each wavelength"
+                    )
+        previous = (wl, record[axis_name] if axis_name else None)
+    wavelengths = np.unique([r["wavelength_nm"] for _, r in records])
+    if axis_name:
+        axis = np.unique([r[axis_name] for _, r in records])
+        values = np.full((wavelengths.size, axis.size), np.nan)
+        sd = np.full_like(values, np.nan) if sd_columns else None
+        for _, r in records:
+            i = np.searchsorted(wavelengths, r["wavelength_nm"])
+            j = np.searchsorted(axis, r[axis_name])
+            values[i, j] = r[value_columns[0]]
+            if sd is not None:
+                sd[i, j] = r[sd_columns[0]]
+    else:
+        axis = np.zeros(0)
+        values = np.array([[r[c] for c in value_columns] for _, r in records])
+        sd = np.array([[r[c] for c in sd_columns] for _, r in records]) if sd_columns else None
+    scale = {"reflectance_relative": "relative", "reading": "raw"}.get(value_columns[0], "absolute")
+    if scale == "raw" and metadata.reference is None:
+        raise InputError(
+            f"{name}: column {value_columns[0]} holds raw readings but no reference phantom is "
+            f"given; add a [reference] table to the sidecar TOML (mua_per_mm, musp_per_mm, reading_csv)"
+        )
+    for array in (values, sd):
+        if array is not None:
+            array.setflags(write=False)
+    return Measurement(
+        kind=kind, scale=scale, wavelength_nm=wavelengths, axis=axis, values=values, sd=sd,
+        source=source, metadata=metadata, name=name,
+    )
+
+
+def _check_ranges(record, kind, where, value_columns, sd_columns) -> None:
+    lo, hi = WAVELENGTH_RANGE_NM
+    wl = record["wavelength_nm"]
+    if not lo <= wl <= hi:
+        raise InputError(
+            f"{where}, column wavelength_nm: {wl:g} outside {lo:g}-{hi:g} nm (is it in um?)"
+        )
+    axis_name = KINDS[kind]
+    if axis_name and record[axis_name] < 0:
+        raise InputError(f"{where}, column {axis_name}: {record[axis_name]:g} is negative; accepted: >= 0")
+    if axis_name == "rho_mm" and record[axis_name] == 0:
+        raise InputError(f"{where}, column rho_mm: 0 mm; source-detector distances must be > 0")
+    for column in value_columns:
+        value = record[column]
+        if value < 0:
+            raise InputError(f"{where}, column {column}: {value:g} is negative; accepted: >= 0")
+        if kind == "slab" and value > 1:
+            raise InputError(f"{where}, column {column}: {value:g} above 1; accepted: 0 to 1 (a fraction, not %)")
+        if kind == "optics" and column == "musp_per_mm" and value == 0:
+            raise InputError(f"{where}, column musp_per_mm: 0; accepted: > 0")
+    if kind == "slab" and record["total_reflectance"] + record["total_transmittance"] > 1.0:
+        raise InputError(
+            f"{where}, column total_transmittance: R + T = "
+            f"{record['total_reflectance'] + record['total_transmittance']:g} exceeds 1"
+        )
+    for column in sd_columns:
+        if record[column] <= 0:
+            raise InputError(f"{where}, column {column}: {record[column]:g}; accepted: > 0")
+
+
+def _float_value(value, key: str, kind_of_quantity: str | None, where: str) -> float:
+    if isinstance(value, bool):
+        raise InputError(f"{where}: {key} = {value!r}; accepted: a number")
+    if isinstance(value, (int, float)):
+        return float(value)
+    if isinstance(value, str) and kind_of_quantity:
+        return parse_quantity(value, kind_of_quantity)
+    raise InputError(f"{where}: {key} = {value!r}; accepted: a number")
+
+
+def _array_value(value, key: str, where: str) -> np.ndarray:
+    try:
+        array = np.atleast_1d(np.asarray(value, dtype=float))
+    except (TypeError, ValueError):
+        raise InputError(f"{where}: {key} = {value!r}; accepted: a number or a list of numbers") from None
+    if array.ndim != 1 or not np.all(np.isfinite(array)):
+        raise InputError(f"{where}: {key} must be a number or a list of finite numbers")
+    return array
+
+
+def metadata_from_mapping(
+    table: Mapping[str, Any], *, where: str, base_dir: Path | None = None, kind: str | None = None
+) -> MeasurementMetadata:
+    """Build :class:`MeasurementMetadata` from a sidecar table or option values.
+
+    Lengths are given as ``*_mm`` numbers or as strings with units (``"2 mm"``).
+    """
+    unknown = sorted(set(table) - _METADATA_KEYS)
+    extra = {k: table[k] for k in unknown}
+    kwargs: dict[str, Any] = {}
+    for key, quantity_kind in (("n", None), ("n_outside", None), ("g", None), ("n_slide", None),
+                               ("thickness_mm", "length"), ("slide_thickness_mm", "length"),
+                               ("port_diameter_mm", "length"), ("beam_diameter_mm", "length")):
+        if key in table and table[key] is not None:
+            kwargs[key] = _float_value(table[key], key, quantity_kind, where)
+    for key in ("n", "n_outside", "n_slide"):
+        if key in kwargs and not 1.0 <= kwargs[key] <= 3.0:
+            raise InputError(f"{where}: {key} = {kwargs[key]:g}; accepted: 1.0 to 3.0")
+    if "g" in kwargs and not -1.0 < kwargs["g"] < 1.0:
+        raise InputError(f"{where}: g = {kwargs['g']:g}; accepted: -1 < g < 1")
+    for key in ("thickness_mm", "port_diameter_mm", "beam_diameter_mm"):
+        if key in kwargs and kwargs[key] <= 0:
+            raise InputError(f"{where}: {key} = {kwargs[key]:g}; accepted: > 0")
+    if "slide_thickness_mm" in kwargs and kwargs["slide_thickness_mm"] < 0:
+        raise InputError(f"{where}: slide_thickness_mm = {kwargs['slide_thickness_mm']:g}; accepted: >= 0")
+    if "slides" in table and table["slides"] is not None:
+        if table["slides"] not in ("none", "top", "bottom", "both"):
+            raise InputError(f"{where}: slides = {table['slides']!r}; accepted: none, top, bottom, both")
+        kwargs["slides"] = table["slides"]
+    if "specular_included" in table and table["specular_included"] is not None:
+        if not isinstance(table["specular_included"], bool):
+            raise InputError(f"{where}: specular_included = {table['specular_included']!r}; accepted: true or false")
+        kwargs["specular_included"] = table["specular_included"]
+    for key in ("instrument", "date"):
+        if key in table and table[key] is not None:
+            kwargs[key] = str(table[key])
+    if table.get("reference") is not None:
+        kwargs["reference"] = _reference_from_table(table["reference"], where=where, base_dir=base_dir, kind=kind)
+    for key in ("probe", "operator", "notes", "phantom_age_days", "temperature_c"):
+        if key in table:
+            extra[key] = table[key]
+    return MeasurementMetadata(extra=extra, **kwargs)
+
+
+def _reference_from_table(table, *, where: str, base_dir: Path | None, kind: str | None) -> ReferenceSpec:
+    if isinstance(table, ReferenceSpec):
+        return table
+    if not isinstance(table, Mapping):
+        raise InputError(f"{where}: [reference] must be a table (mua_per_mm, musp_per_mm, reading_csv)")
+    where_ref = f"{where} [reference]"
+    for key in ("mua_per_mm", "musp_per_mm"):
+        if key not in table:
+            raise InputError(f"{where_ref}: lacks {key}; accepted keys: wavelength_nm, mua_per_mm, "
+                             f"musp_per_mm, mua_sd_per_mm, musp_sd_per_mm, n, reading_csv")
+    mua = _array_value(table["mua_per_mm"], "mua_per_mm", where_ref)
+    musp = _array_value(table["musp_per_mm"], "musp_per_mm", where_ref)
+    wavelength = _array_value(table.get("wavelength_nm", [float("nan")]), "wavelength_nm", where_ref) \
+        if "wavelength_nm" in table else np.array([np.nan])
+    size = max(mua.size, musp.size, wavelength.size)
+    arrays = {}
+    for key, array in (("mua_per_mm", mua), ("musp_per_mm", musp), ("wavelength_nm", wavelength)):
+        if array.size not in (1, size):
+            raise InputError(f"{where_ref}: {key} has {array.size} values, expected 1 or {size}")
+        arrays[key] = np.broadcast_to(array, (size,)).copy()
+    if np.any(arrays["mua_per_mm"] < 0) or np.any(arrays["musp_per_mm"] <= 0):
+        raise InputError(f"{where_ref}: mua_per_mm must be >= 0 and musp_per_mm > 0")
+    sds = {}
+    for key, base in (("mua_sd_per_mm", "mua_per_mm"), ("musp_sd_per_mm", "musp_per_mm")):
+        if key in table:
+            sd = _array_value(table[key], key, where_ref)
+            if sd.size not in (1, size) or np.any(sd < 0):
+                raise InputError(f"{where_ref}: {key} must be 1 or {size} values >= 0")
+            sds[key] = np.broadcast_to(sd, (size,)).copy()
+        else:
+            sds[key] = np.zeros(size)
+    reading = None
+    if "reading_csv" in table:
+        path = Path(str(table["reading_csv"]))
+        if base_dir is not None and not path.is_absolute():
+            path = base_dir / path
+        if kind is None:
+            raise InputError(f"{where_ref}: reading_csv needs the measurement kind")
+        if not path.is_file():
+            raise InputError(f"{where_ref}: reading_csv file {str(path)!r} not found")
+        reading = parse_measurement_text(
+            path.read_text(encoding="utf-8"), kind=kind, name=path.name,
+            metadata=MeasurementMetadata(reference=_PLACEHOLDER_REFERENCE),
+        )
+        if reading.scale != "raw":
+            raise InputError(f"{where_ref}: reading_csv {path.name} must hold a 'reading' column")
+    n = _float_value(table["n"], "n", None, where_ref) if "n" in table else None
+    return ReferenceSpec(
+        wavelength_nm=arrays["wavelength_nm"], mua_per_mm=arrays["mua_per_mm"],
+        musp_per_mm=arrays["musp_per_mm"], mua_sd_per_mm=sds["mua_sd_per_mm"],
+        musp_sd_per_mm=sds["musp_sd_per_mm"], n=n, reading=reading,
+    )
+
+
+# A reference reading file is itself a raw reading; it needs no reference of its own.
+_PLACEHOLDER_REFERENCE = ReferenceSpec(
+    wavelength_nm=np.array([np.nan]), mua_per_mm=np.array([0.0]), musp_per_mm=np.array([1.0]),
+    mua_sd_per_mm=np.array([0.0]), musp_sd_per_mm=np.array([0.0]),
+)
+
+
+def read_sidecar(csv_path: Path, *, kind: str | None = None) -> dict[str, Any]:
+    """Read the TOML sidecar beside a measurement CSV (``m1.csv`` → ``m1.toml``); {} if absent."""
+    sidecar = Path(csv_path).with_suffix(".toml")
+    if not sidecar.is_file():
+        return {}
+    try:
+        return tomllib.loads(sidecar.read_text(encoding="utf-8"))
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"{sidecar.name}: not valid TOML ({exc})") from None
+
+
+def read_measurement(path_or_text, *, kind: str, **options) -> Measurement:
+    """Read a measurement file (or its text) with its sidecar metadata and options.
+
+    Parameters
+    ----------
+    path_or_text : str or pathlib.Path
+        A path to the CSV file, or the CSV text itself (a string holding a line break).
+    kind : str
+        ``srdr``, ``sfdi``, ``slab`` or ``optics``.
+    **options
+        Metadata that win over the sidecar (``n``, ``n_outside``, ``thickness_mm``, ``g``,
+        ``n_slide``, ``slide_thickness_mm``, ``slides``, ``specular_included``, ``reference``
+        (a mapping as in the sidecar's ``[reference]`` table, or a ReferenceSpec),
+        ``sidecar`` (a mapping used instead of the TOML file)). None values are ignored.
+
+    Returns
+    -------
+    Measurement
+    """
+    _check_kind(kind)
+    options = {k: v for k, v in options.items() if v is not None}
+    sidecar_given = options.pop("sidecar", None)
+    if isinstance(path_or_text, Path) or ("\n" not in str(path_or_text)):
+        path = Path(path_or_text)
+        if not path.is_file():
+            raise InputError(f"measurement file {str(path)!r} not found")
+        text = path.read_text(encoding="utf-8")
+        name = path.name
+        base_dir = path.parent
+        table = dict(sidecar_given) if sidecar_given is not None else read_sidecar(path, kind=kind)
+        where = path.with_suffix(".toml").name
+    else:
+        text = str(path_or_text)
+        name = "<text>"
+        base_dir = None
+        table = dict(sidecar_given or {})
+        where = "metadata"
+    table.update(options)
+    metadata = metadata_from_mapping(table, where=where, base_dir=base_dir, kind=kind)
+    return parse_measurement_text(text, kind=kind, name=name, metadata=metadata)
+
+
+def combine_replicates(measurements: Sequence[Measurement]) -> Measurement:
+    """Combine replicate measurements of one phantom into one, with their spread.
+
+    The combined value is the mean; its SD is the larger of (a) the standard error from the
+    replicates' own spread, s/√k, and (b) the standard error from the stated SDs,
+    √(Σσ²)/k. Points missing in some replicates use the others.
+
+    Parameters
+    ----------
+    measurements : sequence of Measurement
+        Same kind, scale and grid (wavelengths and axis).
+
+    Returns
+    -------
+    Measurement
+        ``replicates`` holds the number of files combined.
+    """
+    items = list(measurements)
+    if not items:
+        raise InputError("combine_replicates: no measurements given")
+    first = items[0]
+    for other in items[1:]:
+        if other.kind != first.kind or other.scale != first.scale:
+            raise InputError(
+                f"replicates: {other.name} is {other.kind}/{other.scale}, {first.name} is "
+                f"{first.kind}/{first.scale}; replicates must be of one kind"
+            )
+        if other.wavelength_nm.shape != first.wavelength_nm.shape or not np.allclose(
+            other.wavelength_nm, first.wavelength_nm
+        ) or other.axis.shape != first.axis.shape or not np.allclose(other.axis, first.axis):
+            raise InputError(f"replicates: {other.name} has another wavelength or distance grid than {first.name}")
+    if len(items) == 1:
+        return first
+    stack = np.stack([m.values for m in items])
+    count = np.sum(np.isfinite(stack), axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.nanmean(stack, axis=0)
+        spread = np.nanstd(stack, axis=0, ddof=1) / np.sqrt(count)
+        spread = np.where(count > 1, spread, np.nan)
+        if all(m.sd is not None for m in items):
+            stated = np.sqrt(np.nansum(np.stack([m.sd for m in items]) ** 2, axis=0)) / count
+            sd = np.fmax(spread, stated)
+        else:
+            sd = spread
+    return replace(first, values=mean, sd=sd, replicates=sum(m.replicates for m in items),
+                   name="+".join(m.name for m in items))

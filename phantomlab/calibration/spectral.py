@@ -1,0 +1,399 @@
+"""Fitting optical properties over a band, per wavelength or with spectral constraints (layer 3).
+
+The measurement-specific modules (:mod:`fit_srdr`, :mod:`fit_sfdi`, :mod:`fit_slab`) supply a
+forward model ``forward(mua_per_mm, musp_per_mm) -> (W, M)`` and the data; this module does
+the rest: starting values, the fit per wavelength (independent problems solved together) or
+jointly across the band, and the covariance of (μa, μs′) at each wavelength.
+
+Spectral constraints (:class:`SpectralConstraint`):
+
+* μs′(λ) = a (λ/λ₀)^−b, the empirical power law of tissue optics (Jacques 2013, Phys Med
+  Biol 58:R37, eq. 2);
+* μa(λ) = μa_m(λ) + Σ_k c_k ε_k(λ), c_k ≥ 0: a non-negative combination of the stocks'
+  intrinsic absorption spectra ε_k plus the matrix's absorption, so the fit reports stock
+  amounts c_k (volume fraction × potency) directly.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+from scipy import sparse
+
+from phantomlab.calibration.fitting import FitResult, fit_blocks, fit_joint, log_to_linear
+from phantomlab.errors import InputError, PhantomlabWarning
+
+__all__ = ["SpectralConstraint", "fit_spectrum", "grid_start"]
+
+#: forward(mua_per_mm (N,), musp_per_mm (N,)) -> model (N, M), the same at every wavelength.
+Forward = Callable[[np.ndarray, np.ndarray], np.ndarray]
+
+#: Bounds of the fitted coefficients [1/mm]: far outside any phantom, inside what models take.
+MUA_BOUNDS_PER_MM = (1e-6, 50.0)
+MUSP_BOUNDS_PER_MM = (1e-3, 500.0)
+
+
+@dataclass(frozen=True)
+class SpectralConstraint:
+    """Optional constraints that tie the wavelengths of a fit together.
+
+    Attributes
+    ----------
+    musp_power_law : bool
+        Fit μs′ = a (λ/λ₀)^−b instead of one μs′ per wavelength.
+    reference_nm : float [nm]
+        λ₀ of the power law.
+    mua_basis_per_mm : ndarray (K, W) or None [1/mm]
+        Intrinsic absorption spectra ε_k of the stocks, on the measurement's grid.
+    mua_basis_names : tuple of str
+        Names of the K spectra (stock keys), used in ``FitResult.parameters``.
+    mua_offset_per_mm : ndarray (W,) or None [1/mm]
+        The matrix's own absorption μa_m(λ) (0 if None).
+    """
+
+    musp_power_law: bool = False
+    reference_nm: float = 500.0
+    mua_basis_per_mm: np.ndarray | None = None
+    mua_basis_names: tuple = ()
+    mua_offset_per_mm: np.ndarray | None = None
+
+    @property
+    def active(self) -> bool:
+        return self.musp_power_law or self.mua_basis_per_mm is not None
+
+
+def grid_start(forward: Forward, data: np.ndarray, *, relative: bool, W: int,
+               candidates: int = 1) -> tuple[np.ndarray, np.ndarray]:
+    """Starting (μa, μs′) per wavelength from a coarse logarithmic grid search.
+
+    Compares log model and log data (after the best common scale when ``relative``).
+    With ``candidates`` > 1, returns the best few grid points, shape (candidates, W) each,
+    for restarts where the first start lands in a local minimum.
+    """
+    mua_grid = np.geomspace(1e-4, 2.0, 14)
+    musp_grid = np.geomspace(0.05, 10.0, 12)
+    A, S = np.meshgrid(mua_grid, musp_grid, indexing="ij")
+    pairs_a, pairs_s = A.ravel(), S.ravel()
+    G = pairs_a.size
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        model = np.asarray(forward(pairs_a, pairs_s), float).reshape(1, G, -1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ld = np.log(np.where(data > 0, data, np.nan))[:, None, :]
+            lm = np.log(np.where(model > 0, model, np.nan))
+            diff = lm - ld
+            if relative:
+                diff = diff - np.nanmean(diff, axis=2, keepdims=True)
+            cost = np.nanmean(diff**2, axis=2)
+    cost = np.where(np.isfinite(cost), cost, np.inf)
+    if candidates == 1:
+        best = np.argmin(cost, axis=1)
+        return pairs_a[best], pairs_s[best]
+    order = np.argsort(cost, axis=1)[:, :candidates].T
+    return pairs_a[order], pairs_s[order]
+
+
+def _block_fit(forward, data, sd, mask, relative, start, scale_by_chi2):
+    W = data.shape[0]
+    P = 3 if relative else 2
+    mua0, musp0 = start
+    x0 = np.stack([np.log(mua0), np.log(musp0)] + ([np.zeros(W)] if relative else []), axis=1)
+    if relative:
+        with warnings.catch_warnings(), np.errstate(all="ignore"):
+            warnings.simplefilter("ignore")
+            m0 = forward(mua0, musp0)
+            x0[:, 2] = np.nanmean(np.log(np.where(mask, data, np.nan)) - np.log(np.where(mask, m0, np.nan)), axis=1)
+    lower = [np.log(MUA_BOUNDS_PER_MM[0]), np.log(MUSP_BOUNDS_PER_MM[0])] + ([-np.inf] if relative else [])
+    upper = [np.log(MUA_BOUNDS_PER_MM[1]), np.log(MUSP_BOUNDS_PER_MM[1])] + ([np.inf] if relative else [])
+    safe = np.where(mask, data, 0.0)
+
+    def residuals(x):
+        model = forward(np.exp(x[:, 0]), np.exp(x[:, 1]))
+        if relative:
+            model = model * np.exp(x[:, 2:3])
+        return (model - safe) / sd
+
+    outcome = fit_blocks(residuals, x0, mask=mask, lower=np.array(lower), upper=np.array(upper),
+                         scale_by_chi2=scale_by_chi2)
+    values, cov = log_to_linear(outcome.x, outcome.covariance)
+    mua, musp = values[:, 0], values[:, 1]
+    cov2 = cov[:, :2, :2]
+    scale = scale_sd = None
+    if relative:
+        scale = values[:, 2]
+        scale_sd = np.sqrt(cov[:, 2, 2])
+    corr = outcome.covariance[:, 0, 1] / np.sqrt(outcome.covariance[:, 0, 0] * outcome.covariance[:, 1, 1])
+    return dict(mua=mua, musp=musp, cov=cov2, chi2=outcome.chi2, dof=outcome.dof,
+                chi2_red_w=outcome.chi2_red, residuals=outcome.residuals, scale=scale,
+                scale_sd=scale_sd, parameters={}, correlation=corr)
+
+
+#: A wavelength whose reduced χ² exceeds this many times the median (and 2) is refitted from
+#: other starting points: a sign of a local minimum.
+_RESTART_FACTOR = 3.0
+
+
+def _restart_poor_blocks(forward, data, sd, mask, relative, scale_by_chi2, parts, candidates=6):
+    chi2_red = parts["chi2_red_w"]
+    if not np.any(np.isfinite(chi2_red)):
+        return parts
+    limit = max(2.0, _RESTART_FACTOR * float(np.nanmedian(chi2_red)))
+    poor = np.where(np.nan_to_num(chi2_red, nan=0.0) > limit)[0]
+    if poor.size == 0:
+        return parts
+    starts_a, starts_s = grid_start(forward, np.where(mask, data, np.nan)[poor], relative=relative,
+                                    W=poor.size, candidates=candidates)
+    best = {key: (value.copy() if isinstance(value, np.ndarray) else value) for key, value in parts.items()}
+    best_chi2 = parts["chi2"][poor].copy()
+    for c in range(candidates):
+        trial = _block_fit(forward, data[poor], sd[poor], mask[poor], relative,
+                           (starts_a[c], starts_s[c]), scale_by_chi2)
+        better = trial["chi2"] < best_chi2
+        if np.any(better):
+            rows = poor[better]
+            best_chi2[better] = trial["chi2"][better]
+            for key in ("mua", "musp", "cov", "chi2", "dof", "chi2_red_w", "residuals", "correlation",
+                        "scale", "scale_sd"):
+                if best[key] is not None:
+                    best[key][rows] = trial[key][better]
+    return best
+
+
+class _JointMap:
+    """θ ↦ (μa(λ), μs′(λ), log scale(λ)) for the joint fit with constraints."""
+
+    def __init__(self, constraint: SpectralConstraint, wavelength_nm: np.ndarray, relative: bool):
+        self.c = constraint
+        self.wl = wavelength_nm
+        self.W = wavelength_nm.size
+        self.relative = relative
+        if constraint.mua_basis_per_mm is not None:
+            basis = np.atleast_2d(np.asarray(constraint.mua_basis_per_mm, float))
+            if basis.shape[1] != self.W:
+                raise InputError(f"mua basis has {basis.shape[1]} wavelengths, the measurement {self.W}")
+            if np.any(basis < 0) or not np.all(np.isfinite(basis)):
+                raise InputError("mua basis spectra must be finite and >= 0 [1/mm]")
+            self.basis = basis
+            self.offset = (np.zeros(self.W) if constraint.mua_offset_per_mm is None
+                           else np.broadcast_to(np.asarray(constraint.mua_offset_per_mm, float), (self.W,)))
+            self.n_mua = basis.shape[0]
+        else:
+            self.basis = None
+            self.n_mua = self.W
+        self.n_musp = 2 if constraint.musp_power_law else self.W
+        self.n_scale = self.W if relative else 0
+        self.P = self.n_mua + self.n_musp + self.n_scale
+
+    def split(self, theta):
+        a = theta[: self.n_mua]
+        s = theta[self.n_mua: self.n_mua + self.n_musp]
+        k = theta[self.n_mua + self.n_musp:]
+        if self.basis is not None:
+            mua = self.offset + a @ self.basis
+            mua = np.maximum(mua, MUA_BOUNDS_PER_MM[0])
+        else:
+            mua = np.exp(a)
+        if self.c.musp_power_law:
+            musp = np.exp(s[0]) * (self.wl / self.c.reference_nm) ** (-s[1])
+        else:
+            musp = np.exp(s)
+        return mua, musp, (k if self.relative else None)
+
+    def start(self, mua0, musp0, log_scale0):
+        if self.basis is not None:
+            from scipy.optimize import nnls
+
+            c, _ = nnls(self.basis.T, np.maximum(mua0 - self.offset, 0.0))
+            a = np.maximum(c, 1e-6)
+        else:
+            a = np.log(mua0)
+        if self.c.musp_power_law:
+            slope, intercept = np.polyfit(np.log(self.wl / self.c.reference_nm), np.log(musp0), 1) \
+                if self.W > 1 else (0.0, np.log(musp0[0]))
+            s = np.array([intercept, -slope])
+        else:
+            s = np.log(musp0)
+        parts = [a, s] + ([log_scale0] if self.relative else [])
+        return np.concatenate(parts)
+
+    def bounds(self):
+        if self.basis is not None:
+            lo_a, hi_a = np.zeros(self.n_mua), np.full(self.n_mua, np.inf)
+        else:
+            lo_a, hi_a = np.full(self.W, np.log(MUA_BOUNDS_PER_MM[0])), np.full(self.W, np.log(MUA_BOUNDS_PER_MM[1]))
+        if self.c.musp_power_law:
+            lo_s, hi_s = np.array([np.log(MUSP_BOUNDS_PER_MM[0]), -2.0]), np.array([np.log(MUSP_BOUNDS_PER_MM[1]), 6.0])
+        else:
+            lo_s, hi_s = np.full(self.W, np.log(MUSP_BOUNDS_PER_MM[0])), np.full(self.W, np.log(MUSP_BOUNDS_PER_MM[1]))
+        lo_k, hi_k = np.full(self.n_scale, -np.inf), np.full(self.n_scale, np.inf)
+        return np.concatenate([lo_a, lo_s, lo_k]), np.concatenate([hi_a, hi_s, hi_k])
+
+    def sparsity(self, M):
+        rows = []
+        W = self.W
+        blocks_a = np.ones((W, self.n_mua)) if self.basis is not None else np.eye(W)
+        blocks_s = np.ones((W, 2)) if self.c.musp_power_law else np.eye(W)
+        pattern = [blocks_a, blocks_s] + ([np.eye(W)] if self.relative else [])
+        per_w = np.concatenate(pattern, axis=1)  # (W, P)
+        rows = np.repeat(per_w, M, axis=0)  # (W*M, P) row order = w-major
+        return sparse.csr_matrix(rows)
+
+    def optics_jacobian(self, theta):
+        """d(μa, μs′)/dθ at each wavelength, shape (W, 2, P), by forward differences."""
+        base_a, base_s, _ = self.split(theta)
+        jac = np.zeros((self.W, 2, self.P))
+        for p in range(self.n_mua + self.n_musp):
+            step = 1e-7 * max(1.0, abs(theta[p]))
+            t = theta.copy()
+            t[p] += step
+            a, s, _ = self.split(t)
+            jac[:, 0, p] = (a - base_a) / step
+            jac[:, 1, p] = (s - base_s) / step
+        return jac
+
+
+def _joint_fit(forward, data, sd, mask, relative, start, scale_by_chi2, constraint, wavelength_nm):
+    mapping = _JointMap(constraint, wavelength_nm, relative)
+    W, M = data.shape
+    mua0, musp0 = start
+    log_scale0 = np.zeros(W)
+    if relative:
+        with warnings.catch_warnings(), np.errstate(all="ignore"):
+            warnings.simplefilter("ignore")
+            m0 = forward(mua0, musp0)
+            log_scale0 = np.nanmean(np.log(np.where(mask, data, np.nan)) - np.log(np.where(mask, m0, np.nan)), axis=1)
+    theta0 = mapping.start(mua0, musp0, log_scale0)
+    lower, upper = mapping.bounds()
+    safe = np.where(mask, data, 0.0)
+
+    def residuals(theta):
+        mua, musp, log_scale = mapping.split(theta)
+        model = forward(mua, musp)
+        if relative:
+            model = model * np.exp(log_scale)[:, None]
+        return np.where(mask, (model - safe) / sd, np.nan)
+
+    outcome = fit_joint(residuals, theta0, lower=lower, upper=upper, scale_by_chi2=scale_by_chi2,
+                        jac_sparsity=mapping.sparsity(M) if mapping.P > 20 else None)
+    theta = outcome.x
+    mua, musp, log_scale = mapping.split(theta)
+    J = mapping.optics_jacobian(theta)
+    with np.errstate(invalid="ignore"):
+        cov = np.einsum("wip,pq,wjq->wij", J, np.nan_to_num(outcome.covariance, posinf=1e300), J)
+    cov = np.where(np.isfinite(np.diag(outcome.covariance)).all(), cov, np.where(cov > 1e290, np.inf, cov))
+    residual_grid = outcome.residuals.reshape(W, M)
+    chi2_w = np.nansum(residual_grid**2, axis=1)
+    dof_w = mask.sum(axis=1) - mapping.P / W
+    parameters = {}
+    csd = np.sqrt(np.diag(outcome.covariance))
+    if mapping.basis is not None:
+        for k, name in enumerate(constraint.mua_basis_names or [f"spectrum{k}" for k in range(mapping.n_mua)]):
+            parameters[f"amount_{name}"] = {"value": float(theta[k]), "sd": float(csd[k])}
+    if constraint.musp_power_law:
+        i = mapping.n_mua
+        a = float(np.exp(theta[i]))
+        parameters["musp_power_law"] = {
+            "a_per_mm": a, "a_sd_per_mm": float(a * csd[i]), "b": float(theta[i + 1]),
+            "b_sd": float(csd[i + 1]), "reference_nm": float(constraint.reference_nm),
+        }
+    scale = scale_sd = None
+    if relative:
+        i0 = mapping.n_mua + mapping.n_musp
+        scale = np.exp(log_scale)
+        scale_sd = scale * csd[i0:]
+    corr = cov[:, 0, 1] / np.sqrt(cov[:, 0, 0] * cov[:, 1, 1])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        chi2_red_w = np.where(dof_w > 0, chi2_w / np.maximum(dof_w, 1e-12), np.nan)
+    return dict(mua=mua, musp=musp, cov=cov, chi2=np.array([outcome.chi2]), dof=np.array([outcome.dof]),
+                chi2_red_w=chi2_red_w, residuals=residual_grid, scale=scale, scale_sd=scale_sd,
+                parameters=parameters, correlation=corr)
+
+
+def fit_spectrum(
+    forward: Forward,
+    *,
+    kind: str,
+    model: str,
+    wavelength_nm: np.ndarray,
+    data: np.ndarray,
+    sd: np.ndarray | None,
+    relative: bool = False,
+    constraint: SpectralConstraint | None = None,
+    start: tuple[np.ndarray, np.ndarray] | None = None,
+    mask: np.ndarray | None = None,
+) -> tuple[FitResult, np.ndarray]:
+    """Fit μa and μs′ over a band with a forward model.
+
+    Parameters
+    ----------
+    forward : callable
+        ``forward(mua_per_mm (W,), musp_per_mm (W,)) -> (W, M)`` model of the data; it must
+        be the same function at every wavelength, so any number N of (μa, μs′) pairs gives
+        (N, M) (the grid search uses this).
+    kind, model : str
+        Recorded in the result.
+    wavelength_nm : ndarray (W,) [nm]
+    data : ndarray (W, M)
+        Measured values (NaN where missing).
+    sd : ndarray (W, M) or None
+        Their SDs; None means relative weighting (1 per value) with the covariance scaled by
+        the reduced χ².
+    relative : bool
+        Fit an unknown scale factor per wavelength (data = scale · model).
+    constraint : SpectralConstraint, optional
+        Joint fit across the band.
+    start : (mua (W,), musp (W,)), optional
+        Starting values (else a grid search).
+    mask : ndarray of bool (W, M), optional
+        Points to use (default: finite data).
+
+    Returns
+    -------
+    (FitResult, ndarray)
+        The result (without warnings) and the correlation of log μa with log μs′ per
+        wavelength, for the identifiability checks.
+    """
+    data = np.asarray(data, float)
+    W = data.shape[0]
+    use = np.isfinite(data) if mask is None else (np.asarray(mask, bool) & np.isfinite(data))
+    scale_by_chi2 = sd is None
+    if sd is None:
+        sigma = np.where(use, np.abs(data), 1.0)
+        sigma = np.where(sigma > 0, sigma, 1.0)
+    else:
+        sigma = np.where(use, np.asarray(sd, float), 1.0)
+    if start is None:
+        start = grid_start(forward, np.where(use, data, np.nan), relative=relative, W=W)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PhantomlabWarning)
+        if constraint is not None and constraint.active:
+            parts = _joint_fit(forward, data, sigma, use, relative, start, scale_by_chi2, constraint, wavelength_nm)
+        else:
+            parts = _block_fit(forward, data, sigma, use, relative, start, scale_by_chi2)
+            parts = _restart_poor_blocks(forward, data, sigma, use, relative, scale_by_chi2, parts)
+    total_dof = parts["dof"].sum()
+    chi2_red = float(parts["chi2"].sum() / total_dof) if total_dof > 0 else float("nan")
+    notes = []
+    chi2_red_w = parts["chi2_red_w"]
+    if scale_by_chi2:
+        # relative weights of 1: the "chi2" is the mean square relative residual, no test of fit
+        parts["parameters"]["relative_rms_residual"] = float(np.sqrt(chi2_red)) if np.isfinite(chi2_red) else None
+        chi2_red = float("nan")
+        chi2_red_w = np.full_like(chi2_red_w, np.nan)
+        notes.append("the file gives no sd column: SDs are estimated from the scatter of the residuals "
+                     "and chi2_red is not available")
+    cov = parts["cov"]
+    with np.errstate(invalid="ignore"):
+        mua_sd = np.sqrt(np.diagonal(cov, axis1=1, axis2=2)[:, 0])
+        musp_sd = np.sqrt(np.diagonal(cov, axis1=1, axis2=2)[:, 1])
+    result = FitResult(
+        kind=kind, model=model, wavelength_nm=np.asarray(wavelength_nm, float),
+        mua_per_mm=parts["mua"], musp_per_mm=parts["musp"], mua_sd_per_mm=mua_sd,
+        musp_sd_per_mm=musp_sd, covariance=cov, chi2_red=chi2_red,
+        chi2_red_per_wavelength=chi2_red_w, residuals=parts["residuals"], warnings=tuple(notes),
+        scale_factor=parts["scale"], scale_factor_sd=parts["scale_sd"], parameters=parts["parameters"],
+    )
+    return result, parts["correlation"]
