@@ -101,6 +101,10 @@ EMULSION_MODELS: dict[str, tuple[float, str]] = {
 #: ``solids_volume_fraction`` instead.
 SOYBEAN_OIL_DENSITY_G_PER_ML = 0.92
 
+#: Volume fraction of randomly close-packed equal spheres: no suspension holds more.
+#: Scott & Kilgour 1969, J. Phys. D 2:863 (0.637) # from memory
+RANDOM_CLOSE_PACKING = 0.64
+
 _COMMON = {
     "kind": "the stock kind",
     "name": "a description",
@@ -605,8 +609,13 @@ def _parse_spheres(table, key, base, resolved):
         w = percent / 100.0
         # volume of 1 g of stock: w/ρp + (1 − w)/ρc; particle volume w/ρp
         fraction = (w / particle_density) / (w / particle_density + (1.0 - w) / carrier_density)
-    if not 0 < fraction < 1:
-        raise _fail(key, have[0], f"{percent:g} % with particle density {particle_density:g} g/mL gives a particle volume fraction {fraction:.3g}, impossible")
+    if not 0 < fraction <= RANDOM_CLOSE_PACKING:
+        raise _fail(
+            key,
+            have[0],
+            f"{percent:g} % with particle density {particle_density:g} g/mL gives a particle volume fraction "
+            f"{fraction:.3g}, above the {RANDOM_CLOSE_PACKING:g} of randomly packed spheres: not a suspension",
+        )
     density_default = fraction * particle_density + (1.0 - fraction) * carrier_density
     density = _get_number(table, key, "density_g_per_ml", lambda v: v > 0, default=density_default)
     spec = SpheresSpec(material, sizes, particle_density, carrier, carrier_water)
