@@ -223,6 +223,10 @@ def _photons_3d(
                 absorbed = weight * (1.0 - albedo)
                 tallies[_ABS] += absorbed
                 weight -= absorbed
+                if weight < threshold:  # roulette before the scattering is drawn
+                    weight = _roulette(state, weight, survival, tallies)
+                    if weight == 0.0:
+                        break
             xi = uniform(state)
             if isotropic:
                 cos_theta = 2.0 * xi - 1.0
@@ -251,10 +255,6 @@ def _photons_3d(
                 ux = new_ux
                 uy = new_uy
             nscat += 1
-            if not analog and weight < threshold:
-                weight = _roulette(state, weight, survival, tallies)
-                if weight == 0.0:
-                    alive = False
     tallies[_INTER] += interactions
     return recorded
 
@@ -318,13 +318,13 @@ def _photons_rod(
                 absorbed = weight * (1.0 - albedo)
                 tallies[_ABS] += absorbed
                 weight -= absorbed
+                if weight < threshold:
+                    weight = _roulette(state, weight, survival, tallies)
+                    if weight == 0.0:
+                        break
             if uniform(state) < backscatter:
                 uz = -uz
             nscat += 1
-            if not analog and weight < threshold:
-                weight = _roulette(state, weight, survival, tallies)
-                if weight == 0.0:
-                    alive = False
     tallies[_INTER] += interactions
 
 
