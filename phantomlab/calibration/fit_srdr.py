@@ -167,7 +167,7 @@ def fit_srdr(
             mua_per_mm=result.mua_per_mm, musp_per_mm=result.musp_per_mm,
             min_transport_mfp=max(min_transport_mfp, 1.0))
     else:
-        messages += _baseline_range_warnings(forward, result)
+        messages += model_range_warnings(forward, result)
     messages += outcome_warnings(
         wavelength_nm=result.wavelength_nm, mua_per_mm=result.mua_per_mm,
         musp_per_mm=result.musp_per_mm, mua_sd_per_mm=result.mua_sd_per_mm,
@@ -175,8 +175,8 @@ def fit_srdr(
     return _finish(result, measurement, messages)
 
 
-def _baseline_range_warnings(forward, result) -> list[str]:
-    """Warnings the baseline lookup itself raises at the fitted optics."""
+def model_range_warnings(forward, result) -> list[str]:
+    """Warnings the forward model itself raises at the fitted optics (its own validity range)."""
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", PhantomlabWarning)
         forward(result.mua_per_mm, result.musp_per_mm)

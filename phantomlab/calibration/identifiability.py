@@ -39,9 +39,9 @@ MIN_FREQUENCY_SPAN_PER_MM = 0.05
 MAX_CORRELATION = 0.95
 #: Relative SD above which a fitted coefficient is reported as undetermined.
 MAX_RELATIVE_SD = 0.25
-#: Diffusion in the spatial-frequency domain is flagged above fx/μt′ = 0.3 (common practice,
-#: no source; Cuccia et al. 2009 compare with Monte Carlo up to about this point).
-MAX_FX_OVER_MUTR = 0.3
+#: Diffusion in the spatial-frequency domain is flagged above fx/μt′ = 1/(2π): a pattern
+#: finer than one transport mean free path (the transport layer's own criterion).
+MAX_FX_OVER_MUTR = 1.0 / (2.0 * np.pi)
 #: Light beyond about 3 lateral spread lengths of the port edge is negligible
 #: (common practice, no source).
 EDGE_SPREAD_FACTOR = 3.0
@@ -183,7 +183,7 @@ def sfdi_diffusion_range_warnings(*, fx_per_mm, wavelength_nm, mua_per_mm, musp_
     high = ratio > MAX_FX_OVER_MUTR
     if np.any(high):
         messages.append(
-            f"diffusion used at fx/mutr = {np.max(ratio):.2g} (above {MAX_FX_OVER_MUTR:g}) at "
+            f"diffusion used at fx/mutr = {np.max(ratio):.2g} (above 1/(2 pi)) at "
             f"{_bands(wavelength_nm, high)}; diffusion is poor at high spatial frequency: "
             f"use the Monte Carlo lookup"
         )

@@ -1,0 +1,145 @@
+"""Inverse fit of spatial-frequency-domain reflectance R(fx) (layer 3).
+
+Forward models:
+
+* ``cuccia2009``: the diffusion model of Cuccia et al. 2009 (``phantomlab.transport.diffusion.
+  sfdi_reflectance``);
+* ``mc``: a Monte Carlo lookup from a stored baseline: the baseline's R(ρ) (re-weighted and
+  scaled to the trial μa, μs) is Hankel-transformed,
+  R(fx) = 2π ∫₀^∞ R(ρ) J₀(2π fx ρ) ρ dρ (Cuccia et al. 2009, eq. 8; the planar pattern
+  as the zero-order Hankel transform of the point-source response), on a logarithmic
+  grid in units of the transport mean free path.  Valid where diffusion is poor (high
+  spatial frequency, low albedo).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy.special import j0
+
+from phantomlab.calibration.fit_srdr import model_range_warnings, _finish, baseline_anisotropy
+from phantomlab.calibration.fitting import FitResult
+from phantomlab.calibration.identifiability import (
+    outcome_warnings,
+    sfdi_design_warnings,
+    sfdi_diffusion_range_warnings,
+)
+from phantomlab.calibration.measurements import Measurement
+from phantomlab.calibration.spectral import SpectralConstraint, fit_spectrum
+from phantomlab.errors import InputError
+
+__all__ = ["SFDI_FIT_MODELS", "fit_sfdi", "sfdi_forward", "hankel_sfdi_from_srdr"]
+
+SFDI_FIT_MODELS = ("cuccia2009", "mc")
+
+#: Radial grid of the Hankel transform, in transport mean free paths 1/μt′ (log spaced).
+_RHO_GRID_TMFP = np.geomspace(1e-3, 200.0, 400)
+
+
+def hankel_sfdi_from_srdr(*, srdr_per_mm2: np.ndarray, rho_mm: np.ndarray, fx_per_mm: np.ndarray) -> np.ndarray:
+    """R(fx) = 2π ∫ R(ρ) J₀(2π fx ρ) ρ dρ by the trapezoidal rule on a given radial grid.
+
+    Parameters
+    ----------
+    srdr_per_mm2 : ndarray (..., G) [1/mm²]
+    rho_mm : ndarray (..., G) or (G,) [mm]
+    fx_per_mm : ndarray (F,) [1/mm]
+
+    Returns
+    -------
+    ndarray (..., F) [dimensionless]
+    """
+    rho = np.asarray(rho_mm, float)
+    R = np.asarray(srdr_per_mm2, float)
+    fx = np.asarray(fx_per_mm, float)
+    kernel = j0(2 * np.pi * fx[..., :, None] * rho[..., None, :])  # (..., F, G)
+    integrand = 2 * np.pi * R[..., None, :] * kernel * rho[..., None, :]
+    return np.trapezoid(integrand, rho[..., None, :], axis=-1)
+
+
+def sfdi_forward(*, model: str, fx_per_mm, n: float, n_outside: float = 1.0, baseline=None):
+    """The forward model R(fx) as ``forward(mua (N,), musp (N,)) -> (N, F)``."""
+    fx = np.asarray(fx_per_mm, float)
+    if model == "mc":
+        if baseline is None:
+            raise InputError("sfdi model 'mc' needs a Monte Carlo baseline (--baseline FILE)")
+        g = baseline_anisotropy(baseline)
+
+        def forward(mua, musp):
+            mua = np.asarray(mua, float)
+            musp = np.asarray(musp, float)
+            out = np.empty((mua.size, fx.size))
+            mus = musp / (1.0 - g)
+            for i in range(mua.size):  # each pair on its own grid in transport mean free paths
+                rho = _RHO_GRID_TMFP / (mua[i] + musp[i])
+                R = np.asarray(baseline.srdr(mua_per_mm=mua[i:i + 1], mus_per_mm=mus[i:i + 1], rho_mm=rho), float)
+                out[i] = hankel_sfdi_from_srdr(srdr_per_mm2=R.reshape(-1), rho_mm=rho, fx_per_mm=fx)
+            return out
+
+        return forward
+    if model not in SFDI_FIT_MODELS:
+        raise InputError(f"unknown sfdi fit model {model!r}; accepted: {', '.join(SFDI_FIT_MODELS)}")
+    from phantomlab.transport.diffusion import sfdi_reflectance
+
+    def forward(mua, musp):
+        return sfdi_reflectance(mua_per_mm=np.asarray(mua, float), musp_per_mm=np.asarray(musp, float),
+                                fx_per_mm=fx, n=n, n_outside=n_outside)
+
+    return forward
+
+
+def fit_sfdi(
+    measurement: Measurement,
+    *,
+    model: str = "cuccia2009",
+    n: float | None = None,
+    n_outside: float | None = None,
+    baseline=None,
+    constraint: SpectralConstraint | None = None,
+) -> FitResult:
+    """Fit μa and μs′ to spatial-frequency-domain reflectance at two or more frequencies.
+
+    Parameters
+    ----------
+    measurement : Measurement
+        ``kind='sfdi'``, absolute (calibrated) diffuse reflectance.
+    model : {'cuccia2009', 'mc'}
+    n, n_outside : float, optional
+    baseline : Baseline, optional
+        For ``model='mc'``.
+    constraint : SpectralConstraint, optional
+
+    Returns
+    -------
+    FitResult
+
+    References
+    ----------
+    Cuccia DJ et al. 2009, J Biomed Opt 14:024012.
+    """
+    if measurement.kind != "sfdi":
+        raise InputError(f"fit_sfdi needs an sfdi measurement, got {measurement.kind}")
+    if measurement.scale == "raw":
+        raise InputError("raw sfdi readings must be calibrated with the reference phantom first")
+    meta = measurement.metadata
+    n = meta.n if n is None else n
+    if n is None:
+        raise InputError("the sfdi fit needs the phantom's refractive index: give --n N or n = ... in the sidecar")
+    n_outside = meta.n_outside if n_outside is None else n_outside
+    fx = measurement.axis
+    forward = sfdi_forward(model=model, fx_per_mm=fx, n=n, n_outside=n_outside, baseline=baseline)
+    messages = sfdi_design_warnings(fx_per_mm=fx)
+    label = "mc-lookup" if model == "mc" else "diffusion-cuccia2009"
+    result, correlation = fit_spectrum(
+        forward, kind="sfdi", model=label, wavelength_nm=measurement.wavelength_nm,
+        data=measurement.values, sd=measurement.sd, relative=False, constraint=constraint)
+    messages += model_range_warnings(forward, result)
+    if model != "mc":
+        messages += sfdi_diffusion_range_warnings(
+            fx_per_mm=fx, wavelength_nm=result.wavelength_nm, mua_per_mm=result.mua_per_mm,
+            musp_per_mm=result.musp_per_mm)
+    messages += outcome_warnings(
+        wavelength_nm=result.wavelength_nm, mua_per_mm=result.mua_per_mm,
+        musp_per_mm=result.musp_per_mm, mua_sd_per_mm=result.mua_sd_per_mm,
+        musp_sd_per_mm=result.musp_sd_per_mm, correlation=correlation)
+    return _finish(result, measurement, messages)
