@@ -69,6 +69,8 @@ def _optics(args) -> CommandResult:
     stock = shelf[args.key]
     if stock.kind == "matrix" and args.matrix is None:
         matrix = stock
+    elif stock.kind in ("absorber", "emulsion") and args.matrix is None:
+        matrix = None  # their optics do not depend on the matrix index
     elif args.matrix is None and len(shelf.of_kind("matrix")) > 1:
         raise InputError(
             f"the shelf has several matrices ({', '.join(shelf.of_kind('matrix'))}); choose one with --matrix KEY"
@@ -85,7 +87,7 @@ def _optics(args) -> CommandResult:
     payload.update(
         {
             "kind": stock.kind,
-            "matrix": matrix.key,
+            "matrix": None if matrix is None else matrix.key,
             "temperature_c": args.temperature_c,
             "potency": potency,
             "lot": stock.lot,
@@ -94,7 +96,8 @@ def _optics(args) -> CommandResult:
         }
     )
     title = (
-        f"stock {stock.key} ({stock.kind}{', lot ' + stock.lot if stock.lot else ''}) in matrix {matrix.key}, "
+        f"stock {stock.key} ({stock.kind}{', lot ' + stock.lot if stock.lot else ''})"
+        f"{'' if matrix is None else ' in matrix ' + matrix.key}, "
         f"{args.temperature_c:g} °C, potency {potency:g}\n"
         "intrinsic optics: per unit volume fraction of the undiluted stock in the final mix"
     )

@@ -395,7 +395,7 @@ class Shelf:
             stock = self[key]
             if stock.kind != "matrix":
                 raise InputError(
-                    f"stock {key!r} is a {stock.kind}, not a matrix; matrices on the shelf: "
+                    f"stock {key!r} is of kind {stock.kind}, not a matrix; matrices on the shelf: "
                     f"{', '.join(matrices) or 'none'}"
                 )
             return stock

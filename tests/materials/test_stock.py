@@ -135,7 +135,7 @@ def test_shelf_matrix_choice():
     with pytest.raises(InputError, match=r"several matrices \(water, gelatin10, silicone\)"):
         shelf.matrix()
     assert shelf.matrix("gelatin10").key == "gelatin10"
-    with pytest.raises(InputError, match="stock 'ps1000' is a spheres, not a matrix; matrices on the shelf: water"):
+    with pytest.raises(InputError, match="stock 'ps1000' is of kind spheres, not a matrix; matrices on the shelf: water"):
         shelf.matrix("ps1000")
 
 
