@@ -208,10 +208,10 @@ def _face_layer(r_seen_from_outside, r_seen_from_inside, t, *, sample_below: boo
 
 
 def _pair(value, name: str):
-    """A per-face option: one value for both faces, or (top, bottom)."""
-    if isinstance(value, (tuple, list)) and len(value) == 2 and not np.ndim(value[0]) > 0:
-        return value[0], value[1]
-    if isinstance(value, (tuple, list)) and len(value) == 2:
+    """A per-face option: a tuple ``(top, bottom)``, or one value (or array) for both faces."""
+    if isinstance(value, tuple):
+        if len(value) != 2:
+            raise InputError(f"{name}: a tuple must be (top, bottom), got {value!r}")
         return value[0], value[1]
     return value, value
 
@@ -255,12 +255,13 @@ def slab_reflectance_transmittance(
         Refractive index of the sample (>= 1).
     n_outside : float or array (W) [dimensionless]
         Refractive index of the medium on both sides (air 1.0).
-    n_slide : None, float, array (W), or (top, bottom)
-        Glass slides: None for bare faces; one index for a slide on each face; a pair such
-        as ``(1.52, None)`` for a slide on the illuminated (top) face only.
-    slide_thickness_mm : float or (top, bottom) [mm]
+    n_slide : None, float, array (W), or tuple (top, bottom)
+        Glass slides: None for bare faces; one index (or per-wavelength array) for a slide
+        on each face; a tuple such as ``(1.52, None)`` for a slide on the illuminated (top)
+        face only.
+    slide_thickness_mm : float or tuple (top, bottom) [mm]
         Slide thickness; it matters only through ``slide_mua_per_mm``.
-    slide_mua_per_mm : float, array (W) or (top, bottom) [1/mm]
+    slide_mua_per_mm : float, array (W) or tuple (top, bottom) [1/mm]
         Absorption of the slide glass (0: clear glass).
     incidence : {'collimated', 'diffuse'}
         A normally incident collimated beam, or diffuse (Lambertian) light.
