@@ -1,9 +1,10 @@
 """Monte Carlo photon transport (numba, CPU only): :func:`simulate` and stored baselines.
 
-See :mod:`phantomlab.transport.montecarlo.simulate` and
-:mod:`phantomlab.transport.montecarlo.baseline`.
+See :mod:`phantomlab.transport.montecarlo.simulate` (the engine's front end) and
+:mod:`phantomlab.transport.montecarlo.baseline` (one run, then R(ρ) for other μa and μs).
 """
 
+from phantomlab.transport.montecarlo.baseline import Baseline, build_baseline, load_baseline
 from phantomlab.transport.montecarlo.simulate import (
     MonteCarloResult,
     rho_bin_edges_mm,
@@ -12,4 +13,13 @@ from phantomlab.transport.montecarlo.simulate import (
     warm_up,
 )
 
-__all__ = ["MonteCarloResult", "rho_bin_edges_mm", "simulate", "specular_reflectance", "warm_up"]
+__all__ = [
+    "Baseline",
+    "MonteCarloResult",
+    "build_baseline",
+    "load_baseline",
+    "rho_bin_edges_mm",
+    "simulate",
+    "specular_reflectance",
+    "warm_up",
+]
