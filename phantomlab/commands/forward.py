@@ -1,0 +1,403 @@
+"""``phantomlab forward``: what an instrument would measure for given optical properties
+(layer 5: input and output only; the physics is in :mod:`phantomlab.transport`).
+
+    phantomlab forward --kind srdr  --mua-per-mm L --musp-per-mm L --n L --rho-mm L [--model M] [--boundary B]
+    phantomlab forward --kind sfdi  --mua-per-mm L --musp-per-mm L --n L --fx-per-mm L [--boundary B]
+    phantomlab forward --kind total --mua-per-mm L --musp-per-mm L --n L [--model M] [--boundary B]
+    phantomlab forward --kind slab  --mua-per-mm L --mus-per-mm L --g L --n L --thickness-mm D
+                                    [--n-slide N --slides both|top|bottom] [--incidence collimated|diffuse]
+    phantomlab forward --kind mc    --mua-per-mm L --mus-per-mm L --g L --n L [--thickness-mm D]
+                                    [--rho-mm L] --photons N [--seed S] [--threads T]
+
+Every list (``L``) is comma-separated or ``START:STOP:STEP``; the coefficient lists (and
+``--g``, ``--n``) hold one entry per set of optical properties ("entry", usually one per
+wavelength) and a single value is repeated for every entry.  Per-entry results in the JSON
+are lists over the entries; spatially resolved results are lists (entries) of lists
+(distances or frequencies).  The diffusion kinds take ``--musp-per-mm`` or
+``--mus-per-mm`` with ``--g``; the slab and Monte Carlo kinds take ``--mus-per-mm`` with
+``--g`` or ``--musp-per-mm`` with ``--g``.
+"""
+
+from __future__ import annotations
+
+import argparse
+
+import numpy as np
+
+from phantomlab.cli import CommandResult, add_json_option
+from phantomlab.errors import InputError
+from phantomlab.units import parse_number_list
+
+__all__ = ["register", "KINDS", "MODELS"]
+
+KINDS = ("srdr", "sfdi", "total", "slab", "mc")
+
+#: The models each kind accepts (the first is the default).
+MODELS = {
+    "srdr": ("farrell1992", "kienle1997"),
+    "total": ("farrell1992", "kienle1997"),
+    "sfdi": ("cuccia2009",),
+    "slab": ("adding-doubling",),
+    "mc": ("weighted", "analog"),
+}
+
+_SLAB_KEYS = (
+    "total_reflectance",
+    "specular_reflectance",
+    "diffuse_reflectance",
+    "unscattered_reflectance",
+    "total_transmittance",
+    "unscattered_transmittance",
+    "diffuse_transmittance",
+    "absorbed_fraction",
+)
+
+
+def register(subparsers) -> None:
+    parser = subparsers.add_parser(
+        "forward",
+        help="forward models: diffusion R(rho), R(fx), total Rd; adding-doubling slab; Monte Carlo",
+        description="Compute what a measurement would read for given optical properties.",
+    )
+    parser.add_argument("--kind", required=True, choices=KINDS, help="which measurement to model")
+    parser.add_argument(
+        "--model",
+        default=None,
+        help="srdr/total: farrell1992 (default) or kienle1997; sfdi: cuccia2009; "
+        "slab: adding-doubling; mc: the estimator, weighted (default) or analog",
+    )
+    parser.add_argument(
+        "--boundary",
+        default=None,
+        help="diffusion kinds: method for the boundary coefficient, groenhuis1983 or haskell1994 "
+        "(default: the model's published choice; groenhuis1983 for sfdi)",
+    )
+    parser.add_argument("--mua-per-mm", metavar="LIST", required=True, help="absorption coefficient [1/mm]")
+    parser.add_argument("--musp-per-mm", metavar="LIST", help="reduced scattering coefficient [1/mm]")
+    parser.add_argument("--mus-per-mm", metavar="LIST", help="scattering coefficient [1/mm]")
+    parser.add_argument("--g", metavar="LIST", help="Henyey-Greenstein anisotropy, in (-1, 1)")
+    parser.add_argument("--n", metavar="LIST", required=True, help="refractive index of the medium")
+    parser.add_argument("--n-outside", metavar="N", default="1.0", help="refractive index outside (default 1.0)")
+    parser.add_argument("--rho-mm", metavar="LIST", help="source-detector distances [mm] (srdr; mc)")
+    parser.add_argument("--fx-per-mm", metavar="LIST", help="spatial frequencies [1/mm] (sfdi)")
+    parser.add_argument(
+        "--thickness-mm", metavar="D", help="slab thickness [mm] (slab: required; mc: absent = semi-infinite)"
+    )
+    parser.add_argument("--n-slide", metavar="N", help="index of glass slides on the slab (slab; mc: both faces)")
+    parser.add_argument(
+        "--slides", choices=("both", "top", "bottom"), default="both", help="which faces carry a slide (slab)"
+    )
+    parser.add_argument("--slide-thickness-mm", metavar="D", default="0", help="slide thickness [mm] (slab)")
+    parser.add_argument(
+        "--slide-mua-per-mm", metavar="MUA", default="0", help="absorption of the slide glass [1/mm] (slab)"
+    )
+    parser.add_argument(
+        "--incidence", choices=("collimated", "diffuse"), default="collimated", help="illumination (slab)"
+    )
+    parser.add_argument("--photons", type=int, help="photons launched per entry (mc)")
+    parser.add_argument("--seed", type=int, default=0, help="master random seed (mc; default 0)")
+    parser.add_argument("--threads", type=int, default=None, help="threads (mc; default all cores)")
+    parser.add_argument("--wavelength-nm", metavar="LIST", help="optional wavelength label of each entry [nm]")
+    add_json_option(parser)
+    parser.set_defaults(handler=handle)
+
+
+# ---- reading the options ------------------------------------------------------------------
+
+
+def _list(text, option: str):
+    return None if text is None else parse_number_list(text, name=option)
+
+
+def _number(text, option: str) -> float:
+    values = parse_number_list(text, name=option)
+    if values.size != 1:
+        raise InputError(f"{option} takes one number, got {text!r}")
+    return float(values[0])
+
+
+def _entries(**lists) -> tuple[int, dict[str, np.ndarray]]:
+    sizes = {name: values.size for name, values in lists.items() if values is not None}
+    count = max(sizes.values())
+    for name, size in sizes.items():
+        if size not in (1, count):
+            shown = ", ".join(f"{k} {v}" for k, v in sizes.items())
+            raise InputError(
+                f"per-entry lists must have one value or the same length; got {shown} values"
+            )
+    return count, {
+        name: (np.broadcast_to(values, (count,)).copy() if values is not None else None)
+        for name, values in lists.items()
+    }
+
+
+def _model(args) -> str:
+    valid = MODELS[args.kind]
+    if args.model is None:
+        return valid[0]
+    if args.model not in valid:
+        raise InputError(f"--model {args.model!r} is not a {args.kind} model; valid: {', '.join(valid)}")
+    return args.model
+
+
+def _scattering(args):
+    """The scattering list given, which one it is ('musp' or 'mus'), and --g if given."""
+    musp = _list(args.musp_per_mm, "--musp-per-mm")
+    mus = _list(args.mus_per_mm, "--mus-per-mm")
+    g = _list(args.g, "--g")
+    if (musp is None) == (mus is None):
+        raise InputError(f"--kind {args.kind} needs exactly one of --musp-per-mm or --mus-per-mm")
+    return (musp, "musp", g) if musp is not None else (mus, "mus", g)
+
+
+def _check_g(g, text) -> None:
+    if np.any(np.abs(g) >= 1):
+        raise InputError(f"--g must lie in (-1, 1), got {text}")
+
+
+# ---- the kinds ----------------------------------------------------------------------------
+
+
+def handle(args: argparse.Namespace) -> CommandResult:
+    model = _model(args)
+    if args.kind in ("srdr", "sfdi", "total"):
+        return _diffusion(args, model)
+    if args.kind == "slab":
+        return _slab(args)
+    return _monte_carlo(args, model)
+
+
+def _common_inputs(args, scattering: np.ndarray, g):
+    mua = _list(args.mua_per_mm, "--mua-per-mm")
+    n = _list(args.n, "--n")
+    wavelength = _list(args.wavelength_nm, "--wavelength-nm")
+    count, lists = _entries(mua=mua, scattering=scattering, g=g, n=n, wavelength=wavelength)
+    return count, lists
+
+
+def _diffusion(args, model: str) -> CommandResult:
+    from phantomlab.transport import diffusion
+
+    scattering, which, g = _scattering(args)
+    if which == "mus" and g is None:
+        raise InputError("--mus-per-mm needs --g to give the reduced scattering musp = mus (1 - g)")
+    count, lists = _common_inputs(args, scattering, g)
+    musp = lists["scattering"]
+    if which == "mus":  # μs′ = μs (1 − g)
+        _check_g(lists["g"], args.g)
+        musp = musp * (1.0 - lists["g"])
+    n_outside = _number(args.n_outside, "--n-outside")
+    common = dict(mua_per_mm=lists["mua"], musp_per_mm=musp, n=lists["n"], n_outside=n_outside)
+    payload = {
+        "kind": args.kind,
+        "model": model,
+        "mua_per_mm": lists["mua"],
+        "musp_per_mm": musp,
+        "n": lists["n"],
+        "n_outside": n_outside,
+    }
+    if lists["wavelength"] is not None:
+        payload["wavelength_nm"] = lists["wavelength"]
+    if args.kind == "srdr":
+        if args.rho_mm is None:
+            raise InputError("--kind srdr needs --rho-mm LIST (source-detector distances in mm)")
+        rho = _list(args.rho_mm, "--rho-mm")
+        boundary = args.boundary or diffusion.DEFAULT_BOUNDARY[model]
+        values = diffusion.srdr_reflectance(rho_mm=rho, model=model, boundary=boundary, **common)
+        payload.update(boundary=boundary, rho_mm=rho, reflectance_per_mm2=np.reshape(values, (count, rho.size)))
+        text = _grid_table("rho_mm", rho, "R [1/mm^2]", payload["reflectance_per_mm2"], payload)
+    elif args.kind == "sfdi":
+        if args.fx_per_mm is None:
+            raise InputError("--kind sfdi needs --fx-per-mm LIST (spatial frequencies in 1/mm)")
+        fx = _list(args.fx_per_mm, "--fx-per-mm")
+        boundary = args.boundary or "groenhuis1983"
+        values = diffusion.sfdi_reflectance(fx_per_mm=fx, boundary=boundary, **common)
+        payload.update(boundary=boundary, fx_per_mm=fx, reflectance=np.reshape(values, (count, fx.size)))
+        text = _grid_table("fx_per_mm", fx, "R [-]", payload["reflectance"], payload)
+    else:
+        boundary = args.boundary or diffusion.DEFAULT_BOUNDARY[model]
+        values = diffusion.total_diffuse_reflectance(model=model, boundary=boundary, **common)
+        payload.update(boundary=boundary, diffuse_reflectance=np.reshape(values, (count,)))
+        text = _entry_table(payload, ["diffuse_reflectance"])
+    return CommandResult(payload=payload, text=text)
+
+
+def _slab_scattering(args):
+    scattering, which, g = _scattering(args)
+    if g is None:
+        raise InputError(f"--kind {args.kind} needs --g (Henyey-Greenstein anisotropy)")
+    count, lists = _common_inputs(args, scattering, g)
+    g_values = lists["g"]
+    _check_g(g_values, args.g)
+    mus = lists["scattering"] / (1.0 - g_values) if which == "musp" else lists["scattering"]
+    return count, lists, mus, g_values
+
+
+def _slab(args) -> CommandResult:
+    from phantomlab.transport.adding_doubling import slab_reflectance_transmittance
+
+    count, lists, mus, g = _slab_scattering(args)
+    if args.thickness_mm is None:
+        raise InputError("--kind slab needs --thickness-mm D (sample thickness in mm)")
+    thickness = _number(args.thickness_mm, "--thickness-mm")
+    n_outside = _number(args.n_outside, "--n-outside")
+    n_slide = None
+    if args.n_slide is not None:
+        index = _number(args.n_slide, "--n-slide")
+        n_slide = {"both": index, "top": (index, None), "bottom": (None, index)}[args.slides]
+    result = slab_reflectance_transmittance(
+        mua_per_mm=lists["mua"],
+        mus_per_mm=mus,
+        g=g,
+        thickness_mm=thickness,
+        n=lists["n"],
+        n_outside=n_outside,
+        n_slide=n_slide,
+        slide_thickness_mm=_number(args.slide_thickness_mm, "--slide-thickness-mm"),
+        slide_mua_per_mm=_number(args.slide_mua_per_mm, "--slide-mua-per-mm"),
+        incidence=args.incidence,
+    )
+    payload = {
+        "kind": "slab",
+        "model": "adding-doubling",
+        "incidence": args.incidence,
+        "mua_per_mm": lists["mua"],
+        "mus_per_mm": mus,
+        "g": g,
+        "musp_per_mm": mus * (1.0 - g),
+        "n": lists["n"],
+        "n_outside": n_outside,
+        "thickness_mm": thickness,
+        "n_slide": None if args.n_slide is None else _number(args.n_slide, "--n-slide"),
+        "slides": None if args.n_slide is None else args.slides,
+        "quadrature_points": result.quadrature_points,
+    }
+    if lists["wavelength"] is not None:
+        payload["wavelength_nm"] = lists["wavelength"]
+    for key in _SLAB_KEYS:
+        payload[key] = np.reshape(getattr(result, key), (count,))
+    text = _entry_table(payload, ["total_reflectance", "specular_reflectance", "total_transmittance",
+                                  "unscattered_transmittance"])
+    return CommandResult(payload=payload, text=text)
+
+
+def _monte_carlo(args, estimator: str) -> CommandResult:
+    try:
+        from phantomlab.transport.montecarlo import simulate
+    except ImportError as exc:  # the engine is a separate module of the transport layer
+        raise InputError(f"the Monte Carlo engine is not available here ({exc})") from None
+
+    count, lists, mus, g = _slab_scattering(args)
+    if args.photons is None:
+        raise InputError("--kind mc needs --photons N (photons launched per entry)")
+    thickness = None if args.thickness_mm is None else _number(args.thickness_mm, "--thickness-mm")
+    rho = _list(args.rho_mm, "--rho-mm")
+    n_outside = _number(args.n_outside, "--n-outside")
+    n_slide = None if args.n_slide is None else _number(args.n_slide, "--n-slide")
+    runs = [
+        simulate(
+            mua_per_mm=float(lists["mua"][k]),
+            mus_per_mm=float(mus[k]),
+            g=float(g[k]),
+            n=float(lists["n"][k]),
+            n_outside=n_outside,
+            thickness_mm=thickness,
+            rho_mm=rho,
+            photons=args.photons,
+            seed=args.seed,
+            threads=args.threads,
+            estimator=estimator,
+            n_slide=n_slide,
+        )
+        for k in range(count)
+    ]
+    payload = {
+        "kind": "mc",
+        "model": estimator,
+        "estimator": estimator,
+        "mua_per_mm": lists["mua"],
+        "mus_per_mm": mus,
+        "g": g,
+        "musp_per_mm": mus * (1.0 - g),
+        "n": lists["n"],
+        "n_outside": n_outside,
+        "thickness_mm": thickness,
+        "n_slide": n_slide,
+        "photons": int(args.photons),
+        "seed": int(args.seed),
+        "threads": runs[0].threads,
+        "seconds": float(sum(run.seconds for run in runs)),
+        "seconds_each": [float(run.seconds) for run in runs],
+        "figure_of_merit": [float(run.figure_of_merit) for run in runs],
+        "interactions": [int(run.interactions) for run in runs],
+    }
+    if lists["wavelength"] is not None:
+        payload["wavelength_nm"] = lists["wavelength"]
+    for key in _SLAB_KEYS:
+        payload[key] = np.array([float(getattr(run, key)) for run in runs])
+        sd = f"{key}_sd"
+        if hasattr(runs[0], sd):
+            payload[sd] = np.array([float(getattr(run, sd)) for run in runs])
+    columns = ["total_reflectance", "specular_reflectance", "total_transmittance"]
+    text = _entry_table(payload, columns, with_sd=True)
+    if rho is not None:
+        payload["rho_mm"] = rho
+        payload["reflectance_per_mm2"] = np.array([run.reflectance_per_mm2 for run in runs])
+        payload["reflectance_per_mm2_sd"] = np.array([run.reflectance_per_mm2_sd for run in runs])
+        text += "\n" + _grid_table("rho_mm", rho, "R [1/mm^2]", payload["reflectance_per_mm2"], payload)
+    text += (
+        f"\n{args.photons} photons per entry, seed {args.seed}, {payload['seconds']:.3g} s simulated"
+        " (compilation excluded)"
+    )
+    return CommandResult(payload=payload, text=text)
+
+
+# ---- readable output ------------------------------------------------------------------------
+
+
+def _labels(payload) -> list[str]:
+    count = len(payload["mua_per_mm"])
+    if "wavelength_nm" in payload:
+        return [f"{w:g} nm" for w in payload["wavelength_nm"]]
+    return [f"#{k + 1}" for k in range(count)]
+
+
+def _header(payload) -> str:
+    scatter = "musp_per_mm" if payload["kind"] in ("srdr", "sfdi", "total") else "mus_per_mm"
+    unit_name = "mus' [1/mm]" if scatter == "musp_per_mm" else "mus [1/mm]"
+    lines = [f"{payload['kind']} by {payload['model']}"
+             + (f", boundary {payload['boundary']}" if "boundary" in payload else "")
+             + f", n_outside {payload['n_outside']:g}"]
+    for label, mua, sc, n, k in zip(
+        _labels(payload), payload["mua_per_mm"], payload[scatter], payload["n"], range(len(payload["n"]))
+    ):
+        g = f"  g {payload['g'][k]:.4g}" if "g" in payload else ""
+        lines.append(f"  {label}: mua {mua:.4g} [1/mm]  {unit_name} {sc:.4g}{g}  n {n:.4g}")
+    return "\n".join(lines)
+
+
+def _grid_table(grid_name: str, grid, value_name: str, values, payload) -> str:
+    labels = _labels(payload)
+    width = max(14, *(len(label) + 2 for label in labels))
+    lines = [_header(payload), "", f"{grid_name:>10}" + "".join(f"{label:>{width}}" for label in labels)]
+    lines.append(f"{'':>10}" + "".join(f"{value_name:>{width}}" for _ in labels))
+    for j, x in enumerate(grid):
+        lines.append(f"{x:>10.4g}" + "".join(f"{row[j]:>{width}.5g}" for row in values))
+    return "\n".join(lines)
+
+
+def _entry_table(payload, keys: list[str], *, with_sd: bool = False) -> str:
+    labels = _labels(payload)
+    lines = [_header(payload), ""]
+    head = f"{'entry':>10}" + "".join(f"{key:>28}" for key in keys)
+    lines.append(head)
+    for k, label in enumerate(labels):
+        cells = []
+        for key in keys:
+            value = payload[key][k]
+            sd = payload.get(f"{key}_sd")
+            cell = f"{value:.5g}" + (f" ± {sd[k]:.2g}" if with_sd and sd is not None else "")
+            cells.append(f"{cell:>28}")
+        lines.append(f"{label:>10}" + "".join(cells))
+    lines.append("(fractions of the incident power)")
+    return "\n".join(lines)
