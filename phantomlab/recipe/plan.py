@@ -30,8 +30,8 @@ from phantomlab.recipe.solver import BindingLimit, solve_fractions
 from phantomlab.recipe.targets import Target
 from phantomlab.recipe.uncertainty import dose_relative_sd, propagate_sd
 
-__all__ = ["Dose", "MatrixAmounts", "Plan", "Prediction", "intrinsic_table", "predict", "solve",
-           "resolve_potencies"]
+__all__ = ["Dose", "MatrixAmounts", "Plan", "Prediction", "intrinsic_table", "plan_for_fractions",
+           "predict", "solve", "resolve_potencies"]
 
 #: Doses below this volume fraction count as "not used".
 _UNUSED = 1e-12
@@ -415,7 +415,7 @@ def _matrix_amounts(recipe, table, fractions, volume_ml, doses) -> MatrixAmounts
         powder = prep["gel_percent_w_v"] / 100.0 * volume
         parts = (
             (f"{prep.kind} powder", *weigh(powder)),
-            (f"water, to make {volume - carried_v:.4g} mL of gel", *measure(volume - carried_v)),
+            ("water: make the gel up to", *measure(volume - carried_v)),
         )
     elif recipe.by_mass:
         parts = ((f"{recipe.matrix_key} (matrix)", *weigh(mass - carried_m)),)
@@ -534,14 +534,21 @@ def solve(recipe: Recipe, *, potencies: Mapping[str, tuple] | None = None,
 
 
 def _solve(recipe, *, potencies, table, curve) -> Plan:
+    return _assemble(recipe, potencies=potencies, table=table, curve=curve, fractions=None)
+
+
+def _assemble(recipe, *, potencies, table, curve, fractions, check_target=True) -> Plan:
     target = recipe.target
     values, sds, sources, notes = resolve_potencies(recipe, potencies)
     if table is None:
         table = intrinsic_table(recipe, target.wavelength_nm)
-    outcome = solve_fractions(table, target, potencies=values,
-                              max_solids_volume_fraction=recipe.limits.max_solids_volume_fraction)
-    fractions = outcome.volume_fractions
-    binding = list(outcome.binding_limits)
+    if fractions is None:
+        outcome = solve_fractions(table, target, potencies=values,
+                                  max_solids_volume_fraction=recipe.limits.max_solids_volume_fraction)
+        fractions = outcome.volume_fractions
+        binding = list(outcome.binding_limits)
+    else:
+        binding = []
     volume_ml = _batch_volume(recipe, table, fractions)
     doses = _doses(recipe, table, fractions, values, sds, sources, volume_ml, notes, binding)
     matrix = _matrix_amounts(recipe, table, fractions, volume_ml, doses)
@@ -556,7 +563,7 @@ def _solve(recipe, *, potencies, table, curve) -> Plan:
     messages = [b.message for b in binding]
     if binding:
         messages.append("closest feasible recipe given")
-    messages += _miss_notes(target, residuals) + notes
+    messages += (_miss_notes(target, residuals) if check_target else []) + notes
     today = _dt.date.today()
     for key in (recipe.matrix_key, *recipe.stock_keys):
         stock = recipe.stock(key)
@@ -569,6 +576,37 @@ def _solve(recipe, *, potencies, table, curve) -> Plan:
         predicted=predicted, curve=dense, target=target, residuals=residuals,
         binding_limits=tuple(binding), warnings=tuple(dict.fromkeys(messages)),
     )
+
+
+def plan_for_fractions(recipe: Recipe, volume_fractions: Mapping[str, float], *, potencies=None,
+                       table: IntrinsicTable | None = None, curve: bool = False,
+                       check_target: bool = True) -> Plan:
+    """A plan for given doses (no solving): amounts, pre-dilutions, prediction with SDs.
+
+    Used for the levels of a calibration series and for re-planning fixed doses.
+
+    Parameters
+    ----------
+    recipe : Recipe
+    volume_fractions : mapping of stock key to volume fraction [fraction]
+    potencies : mapping, optional
+        As :func:`solve`.
+    table : IntrinsicTable, optional
+        Precomputed intrinsic optics on the target grid.
+    curve : bool
+        Also predict a dense spectrum for the sheet's plot.
+    check_target : bool
+        Warn where the doses miss the recipe's target (off for calibration-series levels).
+    """
+    unknown = sorted(set(volume_fractions) - set(recipe.stock_keys))
+    if unknown:
+        raise InputError(f"plan: {unknown[0]!r} is not a stock of this recipe; its stocks: "
+                         f"{', '.join(recipe.stock_keys)}")
+    fractions = np.array([float(volume_fractions.get(k, 0.0)) for k in recipe.stock_keys])
+    if np.any(~np.isfinite(fractions)) or np.any(fractions < 0) or fractions.sum() > 1:
+        raise InputError("plan: volume fractions must be finite, >= 0 and sum to at most 1")
+    return _assemble(recipe, potencies=potencies, table=table, curve=curve, fractions=fractions,
+                     check_target=check_target)
 
 
 def predict(recipe: Recipe, *, volume_fractions: Mapping[str, float], potencies=None,

@@ -1,0 +1,150 @@
+"""Calibration series for a new stock lot: small batches spanning the stock's working range.
+
+Labs characterise a new bottle with 3–5 concentrations and a linear fit (FIELD.md: μa =
+μa,base + ε c, μs′ = μs′,base + σ c).  The series here holds every other stock at the
+recipe's solved dose (the base, of known optics, measured as its own level 0) and gives the
+stock under test at evenly spaced multiples of its solved dose, from ``low`` to ``high``
+(defaults 0.25 and 2).  Even spacing makes the straight-line fit well conditioned; the base
+level anchors the intercept, so cross-talk (an ink's scattering, a scatterer's absorption)
+shows as a slope in the other coefficient.  Each level is a small batch with its own doses,
+pre-dilutions and predicted optics (at the stock file's prior potency, or the calibrated one).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+from typing import Any
+
+import numpy as np
+
+from phantomlab.errors import InputError
+from phantomlab.recipe.plan import Plan, intrinsic_table, plan_for_fractions, solve
+from phantomlab.recipe.recipe_file import Recipe
+
+__all__ = ["CalibrationSeries", "SeriesLevel", "plan_series"]
+
+DEFAULT_LOW, DEFAULT_HIGH, DEFAULT_LEVELS = 0.25, 2.0, 4
+DEFAULT_SERIES_VOLUME_ML, DEFAULT_SERIES_MASS_G = 50.0, 50.0
+
+
+@dataclass(frozen=True)
+class SeriesLevel:
+    """One small batch of the series: ``multiple`` × the recipe's dose of the stock under test."""
+
+    level: int
+    multiple: float
+    plan: Plan
+
+
+@dataclass(frozen=True)
+class CalibrationSeries:
+    """The levels of a calibration series (level 0 is the base without the stock under test)."""
+
+    recipe: Recipe
+    stock: str
+    recipe_plan: Plan
+    levels: tuple
+    readout_index: int = 0
+
+    @property
+    def readout_wavelength_nm(self) -> float:
+        """Target wavelength where the stock under test changes the optics most [nm]."""
+        return float(self.recipe.target.wavelength_nm[self.readout_index])
+
+    def to_json(self) -> dict[str, Any]:
+        return {
+            "recipe": self.recipe.name,
+            "series_stock": self.stock,
+            "lot": self.recipe.stock(self.stock).lot,
+            "batch_volume_ml": self.levels[0].plan.batch_volume_ml,
+            "batch_mass_g": self.recipe.batch_mass_g,
+            "recipe_volume_fraction": self.recipe_plan.dose(self.stock).volume_fraction,
+            "levels": [
+                {
+                    "level": lv.level,
+                    "multiple_of_recipe_dose": lv.multiple,
+                    "volume_fraction": lv.plan.dose(self.stock).volume_fraction,
+                    "doses": [d.to_json() for d in lv.plan.doses],
+                    "matrix": lv.plan.matrix.to_json(),
+                    "predicted": lv.plan.predicted.to_json(),
+                }
+                for lv in self.levels
+            ],
+            "warnings": list(dict.fromkeys(w for lv in self.levels for w in lv.plan.warnings)),
+            "readout_wavelength_nm": self.readout_wavelength_nm,
+            "fit_model": "mua = mua_base + epsilon * volume_fraction; musp = musp_base + sigma * volume_fraction",
+        }
+
+
+def plan_series(recipe: Recipe, stock: str, *, levels: int | None = None, low: float | None = None,
+                high: float | None = None, batch_volume_ml: float | None = None,
+                batch_mass_g: float | None = None, potencies=None) -> CalibrationSeries:
+    """Plan a calibration series of one stock around the recipe's working point.
+
+    Parameters
+    ----------
+    recipe : Recipe
+    stock : str
+        Key of the stock under test (one of the recipe's stocks).
+    levels : int, optional
+        Concentrations of the stock, 3 to 5 (default the recipe's ``[series] levels``, else 4);
+        the base (level 0) comes on top.
+    low, high : float, optional
+        Smallest and largest multiple of the recipe's dose (defaults 0.25 and 2).
+    batch_volume_ml, batch_mass_g : float, optional
+        Size of each small batch (defaults from ``[series]``, else 50 mL or 50 g).
+    potencies : mapping, optional
+        As :func:`phantomlab.recipe.solve`.
+
+    Returns
+    -------
+    CalibrationSeries
+
+    Raises
+    ------
+    InputError
+        Unknown stock, a stock the recipe does not dose, levels outside 3–5, a bad range.
+    """
+    if stock not in recipe.stock_keys:
+        raise InputError(f"series: {stock!r} is not a stock of this recipe; its stocks: "
+                         f"{', '.join(recipe.stock_keys)}")
+    defaults = recipe.series
+    levels = int(levels if levels is not None else defaults.get("levels", DEFAULT_LEVELS))
+    low = float(low if low is not None else defaults.get("low", DEFAULT_LOW))
+    high = float(high if high is not None else defaults.get("high", DEFAULT_HIGH))
+    if not 3 <= levels <= 5:
+        raise InputError(f"series: {levels} levels; give 3 to 5 concentrations")
+    if not (0 < low < high):
+        raise InputError(f"series: range {low:g}-{high:g} × the recipe dose; need 0 < low < high")
+    plan = solve(recipe, potencies=potencies, curve=False)
+    dose = plan.dose(stock).volume_fraction
+    if dose <= 0:
+        raise InputError(f"series: the recipe gives {stock!r} no dose; the series spans multiples of its dose")
+    if recipe.by_mass:
+        size = float(batch_mass_g or defaults.get("batch_mass_g", DEFAULT_SERIES_MASS_G))
+        small = replace(recipe, batch_mass_g=size, batch_volume_ml=None)
+    else:
+        size = float(batch_volume_ml or defaults.get("batch_volume_ml", DEFAULT_SERIES_VOLUME_ML))
+        small = replace(recipe, batch_volume_ml=size, batch_mass_g=None)
+    if not size > 0:
+        raise InputError("series: the batch size must be > 0")
+    table = intrinsic_table(recipe, recipe.target.wavelength_nm)
+    base = {d.stock: d.volume_fraction for d in plan.doses if d.stock != stock}
+    out = []
+    multiples = np.concatenate([[0.0], np.linspace(low, high, levels)])
+    for number, multiple in enumerate(multiples):
+        fractions = {**base, stock: float(multiple * dose)}
+        level_plan = plan_for_fractions(small, fractions, potencies=potencies, table=table, check_target=False)
+        out.append(SeriesLevel(level=number, multiple=float(multiple), plan=level_plan))
+    solids = recipe.limits.max_solids_volume_fraction
+    if solids is not None:
+        phi = np.array([recipe.stock(k).solids_volume_fraction for k in recipe.stock_keys])
+        top = out[-1].plan
+        used = float(phi @ np.array([top.dose(k).volume_fraction for k in recipe.stock_keys]))
+        if used > solids:
+            raise InputError(f"series: the top level needs {100 * used:.2f} % v/v solids; limit "
+                             f"{100 * solids:g} % (lower --high)")
+    row = table.index_of(stock)
+    signal = table.mua_per_mm[row] if recipe.stock(stock).kind == "absorber" else table.musp_per_mm[row]
+    return CalibrationSeries(recipe=recipe, stock=stock, recipe_plan=plan, levels=tuple(out),
+                             readout_index=int(np.argmax(signal)))

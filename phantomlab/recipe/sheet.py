@@ -1,0 +1,309 @@
+"""The mixing sheet: one A4 page of HTML, a CSV and a JSON object from one plan (layer 3).
+
+One rendering code path for ``phantomlab plan`` (a draft, marked "DRAFT — not a logged
+batch") and ``phantomlab batch add`` (with the batch ID).  The sheet holds: batch ID or draft
+mark, date, recipe name, version and hash; the stocks with lots, expiry (an expired lot is a
+visible warning) and potencies; the pre-dilutions; the amounts to measure, each with its
+tolerance and an empty field for the actual amount; the ordered steps of the matrix
+preparation; predicted μa and μs′ with SD at the target wavelengths and a small inline SVG
+plot; the warnings of the plan; the cautions of the stocks and matrix; and the closing line.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as _dt
+import io
+import math
+from html import escape
+from typing import Any
+
+import numpy as np
+
+from phantomlab.recipe.cautions import CLOSING_LINE, cautions_for
+from phantomlab.recipe.procedure import amount_lines, format_amount, procedure_steps
+from phantomlab.recipe.svgplot import spectra_svg
+
+__all__ = ["render_sheet_html", "render_sheet_csv", "render_series_html", "sheet_json", "DRAFT_MARK", "G_NOTE"]
+
+DRAFT_MARK = "DRAFT — not a logged batch"
+G_NOTE = "g comes from the scattering model (Mie / emulsion model), not from a measurement."
+TOLERANCE_NOTE = ("Tolerances are twice the lab's dispensing error (pipette relative error; "
+                  "balance: at least its resolution).")
+_MAX_TABLE_WAVELENGTHS = 8
+
+
+def _when(date) -> str:
+    return (date or _dt.date.today()).isoformat()
+
+
+def _expired(stock, date) -> bool:
+    return stock.expiry is not None and stock.expiry < (date or _dt.date.today())
+
+
+def _used_stocks(plan):
+    recipe = plan.recipe
+    return [recipe.matrix] + [recipe.stock(d.stock) for d in plan.doses if d.used]
+
+
+def _table_rows(plan) -> np.ndarray:
+    """Indices of the target wavelengths shown in the sheet's table (at most 8)."""
+    count = plan.target.wavelength_nm.size
+    if count <= _MAX_TABLE_WAVELENGTHS:
+        return np.arange(count)
+    return np.unique(np.round(np.linspace(0, count - 1, _MAX_TABLE_WAVELENGTHS)).astype(int))
+
+
+def _fmt(value: float, digits: int = 3) -> str:
+    if value is None or not math.isfinite(value):
+        return "—"
+    return f"{value:.{digits}g}"
+
+
+def sheet_json(plan, *, batch_id: str | None = None, draft: bool = True, date=None) -> dict[str, Any]:
+    """``Plan.to_json()`` plus the sheet's own fields (batch, steps, amounts, cautions)."""
+    payload = plan.to_json()
+    cautions = cautions_for(stocks=_used_stocks(plan), preparation_kind=plan.recipe.preparation.kind)
+    payload.update({
+        "batch_id": batch_id,
+        "draft": bool(draft or batch_id is None),
+        "sheet_date": _when(date),
+        "expired_lots": [
+            {"stock": s.key, "lot": s.lot, "expiry": s.expiry} for s in _used_stocks(plan) if _expired(s, date)
+        ],
+        "amounts": [
+            {"line": ln.number, "what": ln.label, "from": ln.source, "amount": ln.amount, "unit": ln.unit,
+             "tolerance": ln.tolerance, "how": ln.how, "actual": None}
+            for ln in amount_lines(plan)
+        ],
+        "procedure": procedure_steps(plan),
+        "cautions": [{"source": c.source, "text": c.text} for c in cautions],
+        "closing_line": CLOSING_LINE,
+        "g_note": G_NOTE,
+    })
+    return payload
+
+
+_CSS = """
+@page { size: A4; margin: 10mm 11mm; }
+* { box-sizing: border-box; }
+body { font-family: sans-serif; font-size: 8pt; line-height: 1.2; color: #000; margin: 0; }
+.page { width: 188mm; margin: 0 auto; }
+header { display: flex; justify-content: space-between; gap: 4mm; border-bottom: 1.5pt solid #000; padding-bottom: 1.5mm; }
+h1 { font-size: 11.5pt; margin: 0 0 0.8mm 0; }
+h2 { font-size: 9pt; margin: 1.8mm 0 0.8mm 0; border-bottom: 0.5pt solid #888; }
+.batch { text-align: right; white-space: nowrap; }
+.batch .id { font-size: 12pt; font-weight: bold; }
+.draft { font-size: 10pt; font-weight: bold; border: 1.2pt dashed #000; padding: 0.8mm 2mm; }
+.alert { border: 1.5pt solid #000; font-weight: bold; padding: 0.8mm 2mm; margin: 1.2mm 0; }
+table { border-collapse: collapse; width: 100%; }
+th, td { border: 0.4pt solid #999; padding: 0.35mm 1.2mm; text-align: left; vertical-align: top; }
+th { background: #eee; }
+td.num { text-align: right; white-space: nowrap; }
+td.actual { width: 28mm; }
+ol, ul { margin: 0; padding-left: 5mm; }
+li { margin: 0.15mm 0; }
+.small { font-size: 7pt; }
+svg.spectra { display: block; margin: 0.5mm auto 0 auto; }
+.closing { font-weight: bold; border-top: 1pt solid #000; margin: 1.5mm 0 0 0; padding-top: 1mm; }
+.sign { margin-top: 1.5mm; }
+.sign td { height: 6mm; width: 30mm; }
+@media print { .page { width: auto; } }
+"""
+
+
+def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, date=None,
+                      title: str = "Mixing sheet") -> str:
+    """The printable one-page A4 mixing sheet as a self-contained HTML document.
+
+    Parameters
+    ----------
+    plan : Plan
+    batch_id : str, optional
+        The logged batch's ID (``batch add``); without one the sheet is a draft.
+    draft : bool
+        Mark the sheet "DRAFT — not a logged batch" (always so without ``batch_id``).
+    date : datetime.date, optional
+        The sheet's date (default today); also the date expiry is checked against.
+
+    Returns
+    -------
+    str
+        HTML5 with inline CSS and SVG (no external files, scripts or fonts).
+    """
+    recipe = plan.recipe
+    draft = draft or batch_id is None
+    e = escape
+    out: list[str] = ["<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">',
+                      f"<title>{e(title)}: {e(recipe.name)}</title><style>{_CSS}</style></head><body>",
+                      '<div class="page">']
+    size = (f"{recipe.batch_mass_g:g} g (≈ {plan.batch_volume_ml:.4g} mL)" if recipe.by_mass
+            else f"{recipe.batch_volume_ml:g} mL")
+    mark = (f'<div class="draft">{e(DRAFT_MARK)}</div>' if draft
+            else f'<div class="id">Batch {e(str(batch_id))}</div>')
+    out.append(
+        f'<header><div><h1>{e(title)}: {e(recipe.name)}</h1>'
+        f'<div>Recipe version {e(recipe.version)} · hash {e(recipe.content_hash[:12])} · '
+        f'batch size {e(size)} · matrix {e(recipe.matrix_key)} ({e(recipe.preparation.kind)})</div>'
+        + (f'<div class="small">{e(recipe.notes)}</div>' if recipe.notes else "")
+        + f'</div><div class="batch">{mark}<div>Date {e(_when(date))}</div></div></header>'
+    )
+    for stock in _used_stocks(plan):
+        if _expired(stock, date):
+            out.append(f'<div class="alert expired">EXPIRED LOT: {e(stock.key)} lot {e(stock.lot or "(none)")} '
+                       f'expired on {e(stock.expiry.isoformat())}. Do not use without approval.</div>')
+    for limit in plan.binding_limits:
+        out.append(f'<div class="alert binding">Target out of reach: {e(limit.message)}; '
+                   'this sheet gives the closest feasible recipe.</div>')
+
+    # stocks
+    out.append("<h2>Stocks</h2><table><tr><th>stock</th><th>kind</th><th>lot</th><th>expiry</th>"
+               "<th>potency (± SD)</th><th>hazards</th></tr>")
+    for stock in _used_stocks(plan):
+        dose = next((d for d in plan.doses if d.stock == stock.key), None)
+        potency = (f"{dose.potency:.3g} ± {dose.potency_sd:.2g} ({dose.potency_source})" if dose else "—")
+        expiry = stock.expiry.isoformat() if stock.expiry else "none given"
+        if _expired(stock, date):
+            expiry = f"<strong>EXPIRED {e(expiry)}</strong>"
+        else:
+            expiry = e(expiry)
+        out.append(f"<tr><td>{e(stock.key)}</td><td>{e(stock.kind)}</td><td>{e(stock.lot or '—')}</td>"
+                   f"<td>{expiry}</td><td>{e(potency)}</td><td>{e(', '.join(stock.hazards) or '—')}</td></tr>")
+    out.append("</table>")
+
+    # pre-dilutions
+    diluted = [d for d in plan.doses if d.dilution]
+    if diluted:
+        out.append("<h2>Pre-dilutions (make in this order)</h2><table><tr><th>make</th><th>take</th>"
+                   "<th>of</th><th>add diluent</th><th>total</th><th>actual taken</th><th>actual diluent</th></tr>")
+        for dose in diluted:
+            unit = dose.dilution.unit
+            for step in dose.dilution.steps:
+                out.append(
+                    f"<tr><td>{e(step.label)}</td><td class='num'>{e(format_amount(step.source_amount, unit))}</td>"
+                    f"<td>{e(step.source)}</td><td class='num'>{e(format_amount(step.diluent_amount, unit))} "
+                    f"{e(dose.dilution.diluent)}</td><td class='num'>{e(format_amount(step.total_amount, unit))} "
+                    f"(1:{1 / step.factor:.4g})</td><td class='actual'></td><td class='actual'></td></tr>")
+        out.append("</table>")
+
+    # amounts
+    out.append("<h2>Amounts into the batch</h2><table><tr><th>line</th><th>what</th><th>from</th>"
+               "<th>how</th><th>amount</th><th>tolerance</th><th>actual</th></tr>")
+    for line in amount_lines(plan):
+        out.append(f"<tr><td>{line.number}</td><td>{e(line.label)}</td><td>{e(line.source)}</td>"
+                   f"<td>{e(line.how)}</td><td class='num'>{e(line.text)}</td>"
+                   f"<td class='num'>{e(line.tolerance_text)}</td><td class='actual'></td></tr>")
+    out.append(f"</table><div class='small'>{e(TOLERANCE_NOTE)} Each dose is the undiluted stock "
+               "that must end in the batch; a pre-diluted dose is given as the amount of its last "
+               "dilution.</div>")
+
+    # procedure
+    out.append("<h2>Steps</h2><ol>")
+    out += [f"<li>{e(step)}</li>" for step in procedure_steps(plan)]
+    out.append("</ol>")
+
+    # predicted
+    rows = _table_rows(plan)
+    target, pred = plan.target, plan.predicted
+    out.append("<h2>Predicted optics at the target wavelengths</h2><table><tr><th>λ [nm]</th>"
+               "<th>target μa [1/mm]</th><th>predicted μa ± SD</th><th>target μs′ [1/mm]</th>"
+               "<th>predicted μs′ ± SD</th><th>target g</th><th>model g</th></tr>")
+    for i in rows:
+        out.append(
+            f"<tr><td class='num'>{target.wavelength_nm[i]:g}</td><td class='num'>{_fmt(target.mua_per_mm[i])}</td>"
+            f"<td class='num'>{_fmt(pred.mua_per_mm[i])} ± {_fmt(pred.mua_sd_per_mm[i], 2)}</td>"
+            f"<td class='num'>{_fmt(target.musp_per_mm[i])}</td>"
+            f"<td class='num'>{_fmt(pred.musp_per_mm[i])} ± {_fmt(pred.musp_sd_per_mm[i], 2)}</td>"
+            f"<td class='num'>{_fmt(target.g[i])}</td><td class='num'>{_fmt(pred.g[i])}</td></tr>")
+    out.append("</table>")
+    shown = "" if rows.size == target.wavelength_nm.size else (
+        f" Table shows {rows.size} of {target.wavelength_nm.size} target wavelengths; the CSV and JSON hold all.")
+    out.append(f"<div class='small'>{e(G_NOTE)} SDs propagate the stocks' potency SDs and the "
+               f"dispensing errors.{e(shown)} Plot: line = predicted, grey band = ±1 SD, "
+               "circles (or dashed line) = target.</div>")
+    out.append(spectra_svg(plan, height=150))
+
+    # warnings and cautions
+    others = [w for w in plan.warnings if w not in {b.message for b in plan.binding_limits}]
+    if others:
+        out.append("<h2>Notes from the planner</h2><ul class='small'>")
+        out += [f"<li>{e(w)}</li>" for w in others]
+        out.append("</ul>")
+    out.append("<h2>Cautions</h2><ul>")
+    for caution in cautions_for(stocks=_used_stocks(plan), preparation_kind=recipe.preparation.kind):
+        out.append(f"<li class='caution'>{e(caution.text)} <span class='small'>({e(caution.source)})</span></li>")
+    out.append("</ul>")
+    out.append("<table class='sign'><tr><th>mixed by</th><td></td><th>date / time</th><td></td>"
+               "<th>room temperature</th><td></td></tr></table>")
+    out.append(f"<p class='closing'>{e(CLOSING_LINE)}</p></div></body></html>")
+    return "\n".join(out)
+
+
+def render_sheet_csv(plan, *, batch_id: str | None = None, draft: bool = True, date=None) -> str:
+    """The mixing sheet as CSV: ``section,item,value,unit,tolerance,actual,note`` rows.
+
+    Sections: ``batch`` (ID or draft mark, date, recipe), ``stock``, ``predilution``,
+    ``amount`` (the empty ``actual`` column is for the technician), ``step``, ``predicted``
+    (every target wavelength; ``tolerance`` holds the SD), ``warning``, ``caution``,
+    ``closing``.
+    """
+    recipe = plan.recipe
+    draft = draft or batch_id is None
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    writer.writerow(["section", "item", "value", "unit", "tolerance", "actual", "note"])
+    writer.writerow(["batch", "batch_id", DRAFT_MARK if draft else batch_id, "", "", "", ""])
+    writer.writerow(["batch", "date", _when(date), "", "", "", ""])
+    writer.writerow(["batch", "recipe", recipe.name, "", "", "", f"version {recipe.version}"])
+    writer.writerow(["batch", "recipe_hash", recipe.content_hash, "", "", "", ""])
+    if recipe.by_mass:
+        writer.writerow(["batch", "batch_mass", f"{recipe.batch_mass_g:g}", "g", "", "", ""])
+    writer.writerow(["batch", "batch_volume", f"{plan.batch_volume_ml:.6g}", "mL", "", "", ""])
+    for stock in _used_stocks(plan):
+        note = "EXPIRED" if _expired(stock, date) else ""
+        writer.writerow(["stock", stock.key, stock.lot, "", "", "",
+                         f"expiry {stock.expiry.isoformat() if stock.expiry else 'none given'} {note}".strip()])
+    for dose in plan.doses:
+        if not dose.dilution:
+            continue
+        unit = dose.dilution.unit
+        for step in dose.dilution.steps:
+            writer.writerow(["predilution", f"{step.label}: take", f"{step.source_amount:.6g}", unit, "", "",
+                             f"of {step.source}"])
+            writer.writerow(["predilution", f"{step.label}: add diluent", f"{step.diluent_amount:.6g}", unit,
+                             "", "", dose.dilution.diluent])
+    for line in amount_lines(plan):
+        writer.writerow(["amount", f"{line.number} {line.label}", f"{line.amount:.6g}", line.unit,
+                         f"{line.tolerance:.3g}", "", f"{line.how} from {line.source}"])
+    for number, step in enumerate(procedure_steps(plan), start=1):
+        writer.writerow(["step", number, step, "", "", "", ""])
+    pred = plan.predicted
+    for i, lam in enumerate(pred.wavelength_nm):
+        writer.writerow(["predicted", f"mua at {lam:g} nm", f"{pred.mua_per_mm[i]:.5g}", "1/mm",
+                         f"{pred.mua_sd_per_mm[i]:.3g}", "", f"SD; target {_fmt(plan.target.mua_per_mm[i], 4)}"])
+        writer.writerow(["predicted", f"musp at {lam:g} nm", f"{pred.musp_per_mm[i]:.5g}", "1/mm",
+                         f"{pred.musp_sd_per_mm[i]:.3g}", "", f"SD; target {_fmt(plan.target.musp_per_mm[i], 4)}"])
+        writer.writerow(["predicted", f"g at {lam:g} nm", f"{pred.g[i]:.4g}", "", "", "",
+                         f"scattering model, not a measurement; target {_fmt(plan.target.g[i], 3)}"])
+    for warning in plan.warnings:
+        writer.writerow(["warning", "", warning, "", "", "", ""])
+    for caution in cautions_for(stocks=_used_stocks(plan), preparation_kind=recipe.preparation.kind):
+        writer.writerow(["caution", caution.source, caution.text, "", "", "", ""])
+    writer.writerow(["closing", "", CLOSING_LINE, "", "", "", ""])
+    return buffer.getvalue()
+
+
+def render_series_html(series, *, date=None) -> str:
+    """The sheets of a calibration series in one HTML document, one A4 page per level."""
+    pages = []
+    head = None
+    for level in series.levels:
+        title = f"Calibration series {series.stock}, level {level.level} ({level.multiple:.3g} × recipe dose)"
+        html = render_sheet_html(level.plan, draft=True, date=date, title=title)
+        start = html.index('<div class="page">')
+        end = html.rindex("</body>")
+        if head is None:
+            head = html[:start]
+        pages.append(html[start:end])
+    joiner = '\n<div style="break-before: page"></div>\n'
+    return head + joiner.join(pages) + "</body></html>"
