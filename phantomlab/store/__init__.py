@@ -21,6 +21,7 @@ from phantomlab.store.calibrations import (
     calibration_potencies,
     latest_calibration_state,
     latest_potencies,
+    latest_potency_states,
     potencies_for_shelf,
     record_calibration,
 )
@@ -58,6 +59,7 @@ __all__ = [
     "history_of",
     "latest_calibration_state",
     "latest_potencies",
+    "latest_potency_states",
     "list_batches",
     "measurements_of",
     "next_batch_code",

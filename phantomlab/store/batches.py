@@ -219,8 +219,14 @@ def record_actual(
     alarms: list[str],
     recorded_by: str | None = None,
     mixed_on: _dt.date | None = None,
+    cure_details: Mapping[str, Any] | None = None,
+    notes: str | None = None,
 ) -> Batch:
-    """Record what was really dispensed (a new version; status ``mixed`` if it was planned)."""
+    """Record what was really dispensed (a new version; status ``mixed`` if it was planned).
+
+    ``cure_details`` (e.g. ``{"schedule": "24 h at 21 °C", "mixing_temperature_c": 38}``)
+    replace the batch's; ``notes`` are appended to its notes.
+    """
     if batch.retracted:
         raise InputError(f"batch {batch.code} is retracted; amounts cannot be recorded")
     if batch.status not in ("planned", "mixed"):
@@ -235,8 +241,12 @@ def record_actual(
         "actual_alarms": list(alarms),
         "status": "mixed",
     }
-    if batch.mixed_on is None:
+    if mixed_on is not None or batch.mixed_on is None:
         changes["mixed_on"] = mixed_on or _dt.date.today()
+    if cure_details:
+        changes["cure_details"] = to_jsonable(dict(cure_details))
+    if notes:
+        changes["notes"] = "\n".join(x for x in (batch.notes, notes) if x)
     return correct(session, batch, note=note, recorded_by=recorded_by, **changes)
 
 

@@ -23,6 +23,7 @@ __all__ = [
     "calibration_potencies",
     "latest_calibration_state",
     "latest_potencies",
+    "latest_potency_states",
     "potencies_for_shelf",
     "record_calibration",
 ]
@@ -126,6 +127,21 @@ def _potency_entries(session: Session) -> list[tuple[CalibrationState, Calibrati
     return entries
 
 
+def _latest_entries(session: Session, shelf) -> dict[str, tuple[CalibrationState, CalibrationPotency]]:
+    result: dict[str, tuple[CalibrationState, CalibrationPotency]] = {}
+    keys = set(shelf.keys()) if shelf is not None else None
+    for state, row in _potency_entries(session):  # oldest first: later ones overwrite
+        if keys is not None:
+            if row.stock_key not in keys:
+                continue
+            shelf_lot = getattr(shelf[row.stock_key], "lot", None)
+            shelf_lot = None if shelf_lot in (None, "") else str(shelf_lot)
+            if shelf_lot != row.lot:
+                continue
+        result[row.stock_key] = (state, row)
+    return result
+
+
 def latest_potencies(store_or_session, *, shelf=None) -> dict[str, tuple[float, float, str | None]]:
     """The newest calibrated potency of each stock: ``{stock_key: (potency, sd, lot)}``.
 
@@ -142,22 +158,18 @@ def latest_potencies(store_or_session, *, shelf=None) -> dict[str, tuple[float, 
     dict
         Retracted calibration states are ignored.
     """
-    session = getattr(store_or_session, "reading", None)
-    if session is not None:
+    if hasattr(store_or_session, "reading"):
         with store_or_session.reading() as inner:
             return latest_potencies(inner, shelf=shelf)
-    entries = _potency_entries(store_or_session)
-    result: dict[str, tuple[float, float, str | None]] = {}
-    for _state, row in entries:  # oldest first: later ones overwrite
-        if shelf is not None:
-            if row.stock_key not in set(shelf.keys()):
-                continue
-            shelf_lot = getattr(shelf[row.stock_key], "lot", None)
-            shelf_lot = None if shelf_lot in (None, "") else str(shelf_lot)
-            if shelf_lot != row.lot:
-                continue
-        result[row.stock_key] = (row.potency, row.potency_sd, row.lot)
-    return result
+    return {
+        key: (row.potency, row.potency_sd, row.lot)
+        for key, (_state, row) in _latest_entries(store_or_session, shelf).items()
+    }
+
+
+def latest_potency_states(session: Session, *, shelf=None) -> dict[str, int]:
+    """Which calibration state each of :func:`latest_potencies` comes from (state ids)."""
+    return {key: state.id for key, (state, _row) in _latest_entries(session, shelf).items()}
 
 
 def potencies_for_shelf(store_or_session, shelf) -> dict[str, tuple[float, float]]:

@@ -1,0 +1,367 @@
+"""The printable batch record for review (layer 4): what went in, what came out, pass or fail.
+
+:func:`batch_record` gathers, from the batch log alone, everything a reviewer needs about
+one batch: recipe and version, stocks and lots, the calibration state used, the software
+version, planned and actual amounts, measured against target optics with SD and a pass or
+fail against the recipe's tolerance, and, across all batches of the same recipe, the spread
+(coefficient of variation) of the measured optics and their drift with phantom age.
+:func:`render_batch_record_html` prints it as one self-contained HTML page.
+
+The statistics are plain descriptive ones: CV = sample SD / mean (n − 1 in the SD) over the
+batches' newest fits; drift = least-squares slope of the measured value against phantom
+age over every fit, with its standard error, given relative to the mean per 30 days.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import html
+import math
+from typing import Any
+
+import numpy as np
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from phantomlab import __version__
+from phantomlab.store.batches import batch_history, batch_lots, get_batch, plan_of, recipe_of
+from phantomlab.store.calibrations import calibration_potencies
+from phantomlab.store.history import current
+from phantomlab.store.measurements import fits_of, measurements_of
+from phantomlab.store.schema import Batch, BatchPlan, CalibrationState, Recipe
+
+__all__ = ["NOT_A_STANDARD", "batch_record", "render_batch_record_html", "series_statistics"]
+
+NOT_A_STANDARD = (
+    "This phantom is not a certified reference standard. Its optical properties are as "
+    "measured and fitted above, with the uncertainties shown; follow the safety data sheets "
+    "and your local rules when making, handling and measuring it."
+)
+
+
+def _values(sequence) -> np.ndarray:
+    return np.asarray([np.nan if v is None else v for v in (sequence or [])], dtype=float)
+
+
+def _on_grid(fit: dict[str, Any], key: str, grid: np.ndarray) -> np.ndarray:
+    """A fitted spectrum on the target grid (linear interpolation inside the fitted band)."""
+    wavelength = _values(fit.get("wavelength_nm"))
+    values = _values(fit.get(key))
+    out = np.full(grid.shape, np.nan)
+    if wavelength.size == 0 or values.shape != wavelength.shape:
+        return out
+    order = np.argsort(wavelength)
+    wavelength, values = wavelength[order], values[order]
+    inside = (grid >= wavelength[0] - 1e-9) & (grid <= wavelength[-1] + 1e-9)
+    out[inside] = np.interp(grid[inside], wavelength, values)
+    return out
+
+
+def _newest_fit(session: Session, batch: Batch):
+    """(measurement, fit) of the newest current fit of a batch, or (None, None)."""
+    best = (None, None)
+    for measurement in measurements_of(session, batch):
+        for fit in fits_of(session, measurement):
+            if best[1] is None or fit.id > best[1].id:
+                best = (measurement, fit)
+    return best
+
+
+def _checks(target: dict[str, Any], fit: dict[str, Any] | None) -> list[dict[str, Any]]:
+    grid = _values(target.get("wavelength_nm"))
+    rows = []
+    tolerances = {"mua": target.get("mua_tolerance_percent"), "musp": target.get("musp_tolerance_percent")}
+    for name in ("mua", "musp"):
+        want = _values(target.get(f"{name}_per_mm"))
+        if want.shape != grid.shape:
+            continue
+        have = _on_grid(fit, f"{name}_per_mm", grid) if fit else np.full(grid.shape, np.nan)
+        sd = _on_grid(fit, f"{name}_sd_per_mm", grid) if fit else np.full(grid.shape, np.nan)
+        tol = tolerances[name]
+        for w, a, b, s in zip(grid, want, have, sd):
+            if not np.isfinite(a):
+                continue
+            deviation = b / a - 1.0 if np.isfinite(b) and a > 0 else None
+            passed = None if deviation is None or tol is None else abs(deviation) <= tol / 100.0 * (1 + 1e-9)
+            rows.append({
+                "quantity": name, "wavelength_nm": float(w), "target_per_mm": float(a),
+                "measured_per_mm": float(b) if np.isfinite(b) else None,
+                "measured_sd_per_mm": float(s) if np.isfinite(s) else None,
+                "deviation_percent": None if deviation is None else 100.0 * deviation,
+                "tolerance_percent": tol, "pass": passed,
+            })
+    return rows
+
+
+def series_statistics(points: list[dict[str, Any]], *, grid: np.ndarray) -> dict[str, Any]:
+    """CV across batches and drift with phantom age of measured μa and μs′ on ``grid``.
+
+    Parameters
+    ----------
+    points : list of dict
+        One per fit: ``batch_id``, ``fit_id``, ``phantom_age_days`` [days] (or None),
+        ``newest`` (the batch's newest fit), ``mua_per_mm`` and ``musp_per_mm`` on ``grid``.
+    grid : ndarray [nm]
+
+    Returns
+    -------
+    dict
+        ``cv_percent`` per quantity and wavelength (None with fewer than 2 batches),
+        ``drift_percent_per_30_days`` and its ``drift_se_percent_per_30_days`` (None with
+        fewer than 3 aged points or a single age), and the counts.
+    """
+    result: dict[str, Any] = {"wavelength_nm": grid.tolist(), "batches": 0, "fits": len(points)}
+    newest = [p for p in points if p["newest"]]
+    result["batches"] = len(newest)
+    for name in ("mua", "musp"):
+        cv, drift, drift_se = [], [], []
+        for i in range(grid.size):
+            values = np.array([p[f"{name}_per_mm"][i] for p in newest], dtype=float)
+            values = values[np.isfinite(values)]
+            if values.size >= 2 and values.mean() > 0:
+                cv.append(float(100.0 * values.std(ddof=1) / values.mean()))
+            else:
+                cv.append(None)
+            aged = [(p["phantom_age_days"], p[f"{name}_per_mm"][i]) for p in points
+                    if p["phantom_age_days"] is not None and np.isfinite(p[f"{name}_per_mm"][i])]
+            ages = np.array([a for a, _ in aged], dtype=float)
+            ys = np.array([y for _, y in aged], dtype=float)
+            if ages.size >= 3 and np.ptp(ages) > 0 and ys.mean() > 0:
+                design = np.column_stack([np.ones_like(ages), ages])
+                coef, *_ = np.linalg.lstsq(design, ys, rcond=None)
+                residual = ys - design @ coef
+                dof = ages.size - 2
+                sigma2 = float(residual @ residual) / dof if dof > 0 else math.nan
+                cov = sigma2 * np.linalg.inv(design.T @ design)
+                scale = 100.0 * 30.0 / ys.mean()
+                drift.append(float(coef[1] * scale))
+                drift_se.append(float(math.sqrt(cov[1, 1]) * scale) if math.isfinite(sigma2) else None)
+            else:
+                drift.append(None)
+                drift_se.append(None)
+        result[f"{name}_cv_percent"] = cv
+        result[f"{name}_drift_percent_per_30_days"] = drift
+        result[f"{name}_drift_se_percent_per_30_days"] = drift_se
+    return result
+
+
+def _series(session: Session, recipe: Recipe, grid: np.ndarray) -> dict[str, Any]:
+    versions = select(Recipe.id).where(Recipe.uid == recipe.uid)
+    plans = select(BatchPlan.id).where(BatchPlan.recipe_id.in_(versions))
+    batches = list(session.scalars(current(session, Batch).where(Batch.plan_id.in_(plans))))
+    points = []
+    for batch in sorted(batches, key=lambda b: b.code):
+        newest_measurement, newest_fit = _newest_fit(session, batch)
+        for measurement in measurements_of(session, batch):
+            for fit in fits_of(session, measurement):
+                points.append({
+                    "batch_id": batch.code, "fit_id": fit.id, "phantom_age_days": measurement.phantom_age_days,
+                    "newest": newest_fit is not None and fit.id == newest_fit.id,
+                    "mua_per_mm": _on_grid(fit.results, "mua_per_mm", grid).tolist(),
+                    "musp_per_mm": _on_grid(fit.results, "musp_per_mm", grid).tolist(),
+                })
+    stats = series_statistics(points, grid=grid)
+    stats["points"] = [{**p, "mua_per_mm": [None if not math.isfinite(v) else v for v in p["mua_per_mm"]],
+                        "musp_per_mm": [None if not math.isfinite(v) else v for v in p["musp_per_mm"]]}
+                       for p in points]
+    stats["recipe"] = recipe.name
+    return stats
+
+
+def batch_record(session: Session, code: str) -> dict[str, Any]:
+    """Everything the printable record shows about batch ``code`` (plain JSON values)."""
+    batch = get_batch(session, code)
+    plan_row = plan_of(session, batch)
+    recipe = recipe_of(session, batch)
+    plan = plan_row.plan
+    target = plan.get("target") or {}
+    today = _dt.date.today()
+    lots = [{"stock": key, "kind": lot.kind, "lot": lot.lot, "expiry": lot.expiry,
+             "expired": bool(lot.expiry and lot.expiry < batch.planned_on),
+             "definition_sha256": lot.definition_sha256, "snapshot_version": lot.version}
+            for key, lot in batch_lots(session, batch).items()]
+    state = session.get(CalibrationState, plan_row.calibration_state_id) if plan_row.calibration_state_id else None
+    calibration = None
+    if state is not None:
+        calibration = {
+            "state_id": state.id, "recorded_at": state.recorded_at, "method": state.method,
+            "computed_from": state.computed_from, "retracted_since": _retracted_later(session, state),
+            "potencies": [{"stock": p.stock_key, "lot": p.lot, "potency": p.potency, "potency_sd": p.potency_sd}
+                          for p in calibration_potencies(session, state)],
+        }
+    actual = {a["stock"]: a for a in (batch.actual_amounts or [])}
+    amounts = []
+    for dose in plan.get("doses", []):
+        got = actual.get(dose["stock"], {})
+        planned_ml, actual_ml = dose.get("volume_ml"), got.get("volume_ml")
+        amounts.append({
+            "stock": dose["stock"], "planned_volume_ml": planned_ml, "planned_mass_g": dose.get("mass_g"),
+            "actual_volume_ml": actual_ml, "actual_mass_g": got.get("mass_g"),
+            "difference_percent": (100.0 * (actual_ml / planned_ml - 1.0)
+                                   if actual_ml is not None and planned_ml else None),
+        })
+    measurement, fit = _newest_fit(session, batch)
+    checks = _checks(target, fit.results if fit else None)
+    verdicts = [c["pass"] for c in checks if c["pass"] is not None]
+    grid = _values(target.get("wavelength_nm"))
+    return {
+        "batch_id": batch.code, "status": batch.status, "retracted": batch.retracted,
+        "version": batch.version, "operator": batch.operator, "planned_on": batch.planned_on,
+        "mixed_on": batch.mixed_on, "notes": batch.notes, "cure_details": batch.cure_details,
+        "matrix_details": batch.matrix_details,
+        "recipe": {"name": recipe.name, "version": recipe.recipe_version, "content_hash": recipe.content_hash,
+                   "record_version": recipe.version, "source_path": recipe.source_path},
+        "software_version_at_planning": plan_row.software_version, "software_version_now": __version__,
+        "lots": lots, "potencies_used": plan_row.potencies_used, "calibration": calibration,
+        "amounts": amounts, "planned_prediction": plan.get("predicted"),
+        "actual_prediction": batch.actual_prediction, "alarms": batch.actual_alarms or [],
+        "target": target, "plan_warnings": plan.get("warnings", []),
+        "measurement": None if measurement is None else {
+            "measurement_id": measurement.id, "kind": measurement.kind, "file": measurement.file_name,
+            "measured_on": measurement.measured_on, "phantom_age_days": measurement.phantom_age_days,
+            "instrument": measurement.instrument, "fit_id": fit.id, "model": fit.model,
+            "chi2_red": fit.chi2_red, "fit_warnings": fit.warnings},
+        "checks": checks, "pass": (all(verdicts) if verdicts else None),
+        "series": _series(session, recipe, grid),
+        "history": [{"version": v.version, "status": v.status, "retracted": v.retracted,
+                     "recorded_at": v.recorded_at, "recorded_by": v.recorded_by, "change_note": v.change_note}
+                    for v in batch_history(session, batch.code)],
+        "printed_on": today, "not_a_standard": NOT_A_STANDARD,
+    }
+
+
+def _retracted_later(session: Session, state: CalibrationState) -> bool:
+    newest = session.scalars(
+        select(CalibrationState).where(CalibrationState.uid == state.uid).order_by(CalibrationState.version.desc())
+    ).first()
+    return bool(newest is not None and newest.retracted)
+
+
+# ---- HTML ------------------------------------------------------------------------------------
+
+
+def _cell(value: Any, digits: int = 4) -> str:
+    if value is None:
+        return "–"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, float):
+        return f"{value:.{digits}g}" if math.isfinite(value) else "–"
+    if isinstance(value, (_dt.datetime,)):
+        return value.strftime("%Y-%m-%d %H:%M UTC")
+    return html.escape(str(value))
+
+
+def _table(header: list[str], rows: list[list[Any]], *, classes: list[str] | None = None) -> str:
+    head = "".join(f"<th>{html.escape(h)}</th>" for h in header)
+    body = []
+    for i, row in enumerate(rows):
+        css = f' class="{classes[i]}"' if classes and classes[i] else ""
+        body.append(f"<tr{css}>" + "".join(f"<td>{_cell(v)}</td>" for v in row) + "</tr>")
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+
+
+_STYLE = """
+body { font-family: sans-serif; margin: 2em; color: #222; }
+h1 { font-size: 1.5em; } h2 { font-size: 1.15em; margin-top: 1.6em; border-bottom: 1px solid #999; }
+table { border-collapse: collapse; margin: 0.5em 0; } td, th { border: 1px solid #bbb; padding: 0.2em 0.6em; }
+th { background: #eee; } tr.fail td { background: #f6d5d5; } tr.pass td { background: #dcefdc; }
+.verdict { font-size: 1.2em; font-weight: bold; } .caution { border: 2px solid #a33; padding: 0.6em; }
+@media print { body { margin: 1cm; } }
+"""
+
+
+def render_batch_record_html(record: dict[str, Any]) -> str:
+    """The batch record as one self-contained, printable HTML page."""
+    r = record
+    verdict = {True: "PASS: every targeted value within tolerance",
+               False: "FAIL: at least one targeted value outside tolerance",
+               None: "not decided: no fitted measurement yet"}[r["pass"]]
+    parts = [
+        "<!DOCTYPE html><html><head><meta charset='utf-8'>",
+        f"<title>Batch record {html.escape(r['batch_id'])}</title><style>{_STYLE}</style></head><body>",
+        f"<h1>Batch record {html.escape(r['batch_id'])}"
+        f"{' — RETRACTED' if r['retracted'] else ''}</h1>",
+        f"<p class='verdict'>{html.escape(verdict)}</p>",
+        _table(["field", "value"], [
+            ["recipe", r["recipe"]["name"]], ["recipe version", r["recipe"]["version"]],
+            ["recipe content hash", r["recipe"]["content_hash"]], ["status", r["status"]],
+            ["operator", r["operator"]], ["planned on", r["planned_on"]], ["mixed on", r["mixed_on"]],
+            ["cure / setting", (r["cure_details"] or {}).get("schedule")],
+            ["mixing temperature [°C]", (r["cure_details"] or {}).get("mixing_temperature_c")],
+            ["notes", r["notes"]],
+            ["software version (planning / this record)",
+             f"{r['software_version_at_planning']} / {r['software_version_now']}"],
+            ["record printed on", r["printed_on"]],
+        ]),
+        "<h2>Stocks and lots</h2>",
+        _table(["stock", "kind", "lot", "expiry", "expired when planned", "snapshot"],
+               [[x["stock"], x["kind"], x["lot"], x["expiry"], x["expired"],
+                 f"v{x['snapshot_version']} {x['definition_sha256'][:12]}"] for x in r["lots"]],
+               classes=["fail" if x["expired"] else "" for x in r["lots"]]),
+        "<h2>Calibration state used</h2>",
+    ]
+    used = r["potencies_used"] or {}
+    parts.append(_table(["stock", "potency", "SD", "lot", "source", "calibration state"],
+                        [[k, v.get("potency"), v.get("potency_sd"), v.get("lot"), v.get("source"),
+                          v.get("calibration_state_id")] for k, v in used.items()]))
+    if r["calibration"]:
+        c = r["calibration"]
+        parts.append(f"<p>Calibration state {c['state_id']} of {_cell(c['recorded_at'])}, method "
+                     f"{_cell(c['method'])}{' (retracted since)' if c['retracted_since'] else ''}.</p>")
+    else:
+        parts.append("<p>No calibrated potencies applied: every stock at its stock-file prior.</p>")
+    parts += [
+        "<h2>Planned and actual amounts (undiluted stock)</h2>",
+        _table(["stock", "planned [mL]", "planned [g]", "actual [mL]", "actual [g]", "difference [%]"],
+               [[a["stock"], a["planned_volume_ml"], a["planned_mass_g"], a["actual_volume_ml"],
+                 a["actual_mass_g"], a["difference_percent"]] for a in r["amounts"]]),
+    ]
+    for alarm in r["alarms"]:
+        parts.append(f"<p class='caution'>{html.escape(alarm)}</p>")
+    parts.append("<h2>Measured against target optics</h2>")
+    m = r["measurement"]
+    if m:
+        parts.append(f"<p>Measurement {m['measurement_id']} ({_cell(m['kind'])}, {_cell(m['file'])}, "
+                     f"{_cell(m['instrument'])}), measured {_cell(m['measured_on'])} at phantom age "
+                     f"{_cell(m['phantom_age_days'])} days; fit {m['fit_id']} with {_cell(m['model'])}, "
+                     f"reduced χ² {_cell(m['chi2_red'], 3)}.</p>")
+        for warning in m["fit_warnings"] or []:
+            parts.append(f"<p>fit warning: {html.escape(str(warning))}</p>")
+    parts.append(_table(
+        ["quantity", "λ [nm]", "target [1/mm]", "measured [1/mm]", "SD [1/mm]", "deviation [%]",
+         "tolerance [±%]", "result"],
+        [[c["quantity"].replace("musp", "μs′").replace("mua", "μa"), c["wavelength_nm"], c["target_per_mm"],
+          c["measured_per_mm"], c["measured_sd_per_mm"], c["deviation_percent"], c["tolerance_percent"],
+          {True: "pass", False: "FAIL", None: "–"}[c["pass"]]] for c in r["checks"]],
+        classes=[{True: "pass", False: "fail", None: ""}[c["pass"]] for c in r["checks"]],
+    ))
+    s = r["series"]
+    parts.append(f"<h2>All batches of this recipe ({s['batches']} batches with fits, {s['fits']} fits)</h2>")
+    rows = []
+    for i, w in enumerate(s["wavelength_nm"]):
+        rows.append([w, s["mua_cv_percent"][i], s["musp_cv_percent"][i],
+                     _drift(s, "mua", i), _drift(s, "musp", i)])
+    parts.append(_table(["λ [nm]", "μa CV [%]", "μs′ CV [%]", "μa drift [%/30 d] ± SE",
+                         "μs′ drift [%/30 d] ± SE"], rows))
+    parts.append(_table(["batch", "fit", "age [days]", "newest"] + [f"μa {w:g} nm" for w in s["wavelength_nm"]]
+                        + [f"μs′ {w:g} nm" for w in s["wavelength_nm"]],
+                        [[p["batch_id"], p["fit_id"], p["phantom_age_days"], p["newest"], *p["mua_per_mm"],
+                          *p["musp_per_mm"]] for p in s["points"]]))
+    parts += [
+        "<h2>History of this record</h2>",
+        _table(["version", "recorded", "by", "status", "retracted", "change"],
+               [[h["version"], h["recorded_at"], h["recorded_by"], h["status"], h["retracted"],
+                 h["change_note"] or "recorded"] for h in r["history"]]),
+        f"<p class='caution'>{html.escape(r['not_a_standard'])}</p>",
+        "</body></html>",
+    ]
+    return "\n".join(parts)
+
+
+def _drift(series: dict[str, Any], name: str, i: int) -> str | None:
+    value = series[f"{name}_drift_percent_per_30_days"][i]
+    se = series[f"{name}_drift_se_percent_per_30_days"][i]
+    if value is None:
+        return None
+    return f"{value:+.2f} ± {se:.2f}" if se is not None else f"{value:+.2f}"
