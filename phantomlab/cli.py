@@ -28,6 +28,8 @@ from phantomlab.jsonable import to_jsonable
 #: Modules that contribute sub-commands, in the order ``--help`` lists them.
 COMMAND_MODULES: tuple[str, ...] = (
     "phantomlab.commands.stock",
+    "phantomlab.commands.batch",
+    "phantomlab.commands.lab",
     "phantomlab.commands.forward",
     "phantomlab.commands.plan",
 )
