@@ -1,12 +1,19 @@
 """Mie scattering of sphere ensembles (layer 2): size-distribution averages, one call.
 
-The efficiencies come from miepython (Prahl, miepython documentation), which takes the
-relative index with the sign convention m = n − i k (absorbing particles have a negative
-imaginary part).  This module wires sizes, indices and units around it:
+The efficiencies come from a Mie engine of :data:`MIE_ENGINES`, all with the sign
+convention m = n − i k (absorbing particles have a negative imaginary part):
+
+* ``"numpy"`` (default) — :func:`phantomlab.optics.mie_series.mie_efficiencies`, the Mie
+  series evaluated for the whole flattened (wavelength × size) grid at once;
+* ``"miepython"`` — one call of :func:`miepython.efficiencies_mx` on the flattened grid
+  (miepython 3.3 loops over the pairs in Python inside that call, so it is ~60× slower;
+  kept as the library reference and for cross-checks).
+
+This module wires sizes, indices and units around the engine:
 
 * relative index m(λ) = n_particle(λ) / n_matrix(λ) at each wavelength;
 * size parameter x = π d n_matrix(λ) / λ₀, i.e. with the wavelength in the matrix;
-* one call of :func:`miepython.efficiencies_mx` on the flattened (wavelength × size) grid;
+* one engine call on the flattened (wavelength × size) grid;
 * number-weighted averages over the size nodes: cross sections C = Q π d²/4, volumes
   V = π d³/6, μs = f ⟨Csca⟩/⟨V⟩, μa = f ⟨Cabs⟩/⟨V⟩, g = ⟨Csca g⟩/⟨Csca⟩ for a particle
   volume fraction f (independent scattering; for one size μs = 1.5 f Qsca / d).
@@ -26,7 +33,24 @@ import numpy as np
 
 from phantomlab.errors import InputError
 
-__all__ = ["EnsembleOptics", "sphere_ensemble_optics", "sphere_ensemble_optics_naive"]
+__all__ = ["EnsembleOptics", "MIE_ENGINES", "sphere_ensemble_optics", "sphere_ensemble_optics_naive"]
+
+
+def _engine_numpy(m, x):
+    from phantomlab.optics.mie_series import mie_efficiencies
+
+    return mie_efficiencies(m, x)
+
+
+def _engine_miepython(m, x):
+    import miepython
+
+    qext, qsca, _qback, g = miepython.efficiencies_mx(m, x)
+    return qext, qsca, g
+
+
+#: Mie engines by name: ``engine(m, x) -> (qext, qsca, g)`` for flattened arrays.
+MIE_ENGINES = {"numpy": _engine_numpy, "miepython": _engine_miepython}
 
 
 @dataclass(frozen=True)
@@ -84,7 +108,8 @@ def _average(wavelength, d_um, w, qext, qsca, gsca, volume_fraction):
 
 
 def sphere_ensemble_optics(
-    *, wavelength_nm, particle_index, matrix_index, diameters_um, number_weights, volume_fraction=1.0
+    *, wavelength_nm, particle_index, matrix_index, diameters_um, number_weights, volume_fraction=1.0,
+    engine="numpy",
 ) -> EnsembleOptics:
     """μa, μs and g of spheres with a size distribution, in one vectorised Mie call.
 
@@ -102,6 +127,8 @@ def sphere_ensemble_optics(
         Number weight of each node (normalised here).
     volume_fraction : float [dimensionless]
         Particle volume fraction f; the result scales linearly with it.
+    engine : str
+        A key of :data:`MIE_ENGINES` (``"numpy"`` or ``"miepython"``).
 
     Returns
     -------
@@ -112,14 +139,16 @@ def sphere_ensemble_optics(
     1. Bohren & Huffman (1983), ch. 4; independent-scattering sum μs = N ⟨Csca⟩ with
        N = f/⟨V⟩ (ch. 3.4).
     """
-    import miepython
-
+    try:
+        efficiencies = MIE_ENGINES[engine]
+    except (KeyError, TypeError):
+        raise InputError(f"unknown Mie engine {engine!r}; engines: {', '.join(MIE_ENGINES)}") from None
     wavelength, n_particle, n_matrix, d, w = _inputs(
         wavelength_nm, particle_index, matrix_index, diameters_um, number_weights
     )
     m = (n_particle / n_matrix)[:, None] * np.ones((1, d.size))
     x = np.pi * (d * 1000.0)[None, :] * n_matrix[:, None] / wavelength[:, None]  # BH eq. 4.61, λ in the medium
-    qext, qsca, _qback, gsca = miepython.efficiencies_mx(m.ravel(), x.ravel())
+    qext, qsca, gsca = efficiencies(m.ravel(), x.ravel())
     shape = (wavelength.size, d.size)
     return _average(
         wavelength,
@@ -135,7 +164,7 @@ def sphere_ensemble_optics(
 def sphere_ensemble_optics_naive(
     *, wavelength_nm, particle_index, matrix_index, diameters_um, number_weights, volume_fraction=1.0
 ) -> EnsembleOptics:
-    """The same as :func:`sphere_ensemble_optics` with one miepython call per (λ, d) pair.
+    """The same as :func:`sphere_ensemble_optics` with one scalar miepython call per (λ, d) pair.
 
     Kept as the baseline of ``bench/optics.py`` and as a cross-check in the tests.
     """
