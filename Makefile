@@ -16,8 +16,11 @@ $(STAMP): pyproject.toml
 	$(BIN)/python -m pip install --quiet -e ".[test]"
 	touch $(STAMP)
 
+# make run             - the page on the demo database demo-data/phantomlab-demo.sqlite
+# make run DB=URL       - the page on your lab's own database (never receives demo data)
 run: $(STAMP)
-	$(BIN)/python -m phantomlab demo
+	$(BIN)/python -m streamlit run app.py --server.headless true \
+	  --browser.gatherUsageStats false $(if $(DB),-- --db "$(DB)")
 
 test: $(STAMP)
 	$(BIN)/python -m pytest

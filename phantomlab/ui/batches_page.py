@@ -1,0 +1,421 @@
+"""Page "Batch log": list and filter batches; open one to record amounts, measurements, status.
+
+Flows:
+
+* the list of batches (newest version of each) filtered by status, recipe and text;
+* one batch: its sheet as stored, the amounts actually dispensed entered against the sheet
+  (the recipe layer predicts what was really made, with an alarm outside the tolerance),
+  measurement files attached (fitted by the calibration layer on the way in), the status
+  moved forward, and the full history of every version;
+* across the batches of one recipe: the spread of the fitted μa and μs′ (CV per
+  wavelength) and their drift with phantom age, as plots.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+
+import numpy as np
+import pandas as pd
+import streamlit as st
+
+from phantomlab.ui import services
+from phantomlab.ui.plots import Series, line_figure, show_figure
+from phantomlab.ui.widgets import call_layer, show_warnings
+from phantomlab.ui.workspace import Workspace
+
+__all__ = ["show"]
+
+TITLE = "Batch log"
+STATUSES = ("planned", "mixed", "characterised", "retired")
+KINDS = ("srdr", "sfdi", "slab", "optics")
+KIND_HELP = {
+    "srdr": "wavelength_nm,rho_mm,reflectance_per_mm2[,sd] (or reflectance_relative)",
+    "sfdi": "wavelength_nm,fx_per_mm,reflectance[,sd]",
+    "slab": "wavelength_nm,total_reflectance,total_transmittance[,sd_r,sd_t]",
+    "optics": "wavelength_nm,mua_per_mm,musp_per_mm[,mua_sd_per_mm,musp_sd_per_mm]",
+}
+
+
+# ---- reading the log ----------------------------------------------------------------------------
+
+
+def read_log(store) -> list[dict]:
+    """Every batch (newest version) with its recipe, measurements and fits, as plain values."""
+    from phantomlab.store import fits_of, list_batches, measurements_of, plan_of, recipe_of  # layer 4
+
+    out = []
+    with store.reading() as session:
+        for batch in list_batches(session, include_retracted=True):
+            recipe = recipe_of(session, batch)
+            plan = plan_of(session, batch)
+            measurements = []
+            for measurement in measurements_of(session, batch):
+                fits = fits_of(session, measurement)
+                measurements.append({
+                    "id": measurement.id, "kind": measurement.kind, "file_name": measurement.file_name,
+                    "measured_on": measurement.measured_on, "phantom_age_days": measurement.phantom_age_days,
+                    "instrument": measurement.instrument, "recorded_at": measurement.recorded_at,
+                    "fits": [{"id": f.id, "model": f.model, "results": dict(f.results),
+                              "chi2_red": f.chi2_red, "recorded_at": f.recorded_at} for f in fits],
+                })
+            out.append({
+                "code": batch.code, "uid": batch.uid, "version": batch.version, "status": batch.status,
+                "retracted": batch.retracted, "operator": batch.operator, "planned_on": batch.planned_on,
+                "mixed_on": batch.mixed_on, "notes": batch.notes, "recipe": recipe.name,
+                "recipe_version": recipe.recipe_version, "plan": dict(plan.plan),
+                "sheet_html": plan.sheet_html, "actual_amounts": batch.actual_amounts,
+                "actual_prediction": batch.actual_prediction, "actual_alarms": batch.actual_alarms,
+                "measurements": measurements,
+            })
+    return out
+
+
+def read_history(store, code: str) -> pd.DataFrame:
+    from phantomlab.store import batch_history  # layer 4
+
+    with store.reading() as session:
+        rows = [{
+            "version": row.version, "recorded at (UTC)": row.recorded_at, "by": row.recorded_by or "",
+            "status": row.status, "change": row.change_note or "first record",
+            "retracted": "yes" if row.retracted else "",
+        } for row in batch_history(session, code)]
+    return pd.DataFrame(rows)
+
+
+def _latest_fit(measurement: dict) -> dict | None:
+    fits = sorted(measurement["fits"], key=lambda f: (f["recorded_at"], f["id"]))
+    return fits[-1]["results"] if fits else None
+
+
+def _log_table(batches: list[dict]) -> pd.DataFrame:
+    rows = []
+    for batch in batches:
+        rows.append({
+            "batch": batch["code"], "recipe": batch["recipe"], "status": batch["status"]
+            + (" (retracted)" if batch["retracted"] else ""),
+            "planned on": batch["planned_on"], "mixed on": batch["mixed_on"] or "",
+            "operator": batch["operator"] or "", "measurements": len(batch["measurements"]),
+            "alarms": len(batch["actual_alarms"] or []), "notes": batch["notes"] or "",
+        })
+    return pd.DataFrame(rows)
+
+
+# ---- one batch ------------------------------------------------------------------------------------
+
+
+def _planned_rows(batch: dict) -> pd.DataFrame:
+    rows = []
+    actual = {a["stock"]: a for a in (batch["actual_amounts"] or [])}
+    for dose in batch["plan"].get("doses", []):
+        if not dose.get("volume_fraction"):
+            continue
+        unit = "g" if dose.get("dispense_by") == "balance" else "mL"
+        planned = dose["mass_g"] if unit == "g" else dose["volume_ml"]
+        recorded = actual.get(dose["stock"], {})
+        value = recorded.get("mass_g" if unit == "g" else "volume_ml", np.nan)
+        rows.append({"stock": dose["stock"], "lot": dose.get("lot") or "",
+                     "planned (undiluted stock)": float(planned), "unit": unit,
+                     "dispensed (undiluted stock)": float(value) if value is not None else np.nan})
+    return pd.DataFrame(rows)
+
+
+def _amounts_section(workspace: Workspace, store, batch: dict) -> None:
+    from phantomlab.ui.recording import record_dispensed
+
+    st.markdown("**Amounts actually dispensed** — against the sheet; amounts of the undiluted "
+                "stock (a pre-dilution's amount divided by its factor).")
+    if batch["status"] not in ("planned", "mixed") or batch["retracted"]:
+        st.caption(f"The batch is {batch['status']}: amounts are recorded while it is planned or mixed.")
+        if batch["actual_amounts"]:
+            st.dataframe(pd.DataFrame(batch["actual_amounts"]), hide_index=True, width="stretch")
+        return
+    table = _planned_rows(batch)
+    if table.empty:
+        st.info("The plan of this batch doses no stock.")
+        return
+    with st.form(f"batches.amounts.{batch['code']}"):
+        edited = st.data_editor(
+            table, hide_index=True, width="stretch", disabled=["stock", "lot", "planned (undiluted stock)", "unit"],
+            key=f"batches.amounts_editor.{batch['code']}",
+            column_config={"dispensed (undiluted stock)": st.column_config.NumberColumn(min_value=0.0, format="%.5g")},
+        )
+        operator = st.text_input("Recorded by", key=f"batches.amounts_by.{batch['code']}")
+        pressed = st.form_submit_button("Record the amounts", type="primary")
+    if not pressed:
+        return
+    values = edited["dispensed (undiluted stock)"]
+    if values.isna().any():
+        st.error("Dispensed: fill every row (give 0 for a stock left out).")
+        return
+    amounts = {row["stock"]: (float(row["dispensed (undiluted stock)"]), row["unit"])
+               for _, row in edited.iterrows()}
+    outcome = call_layer("Recording the amounts", record_dispensed, store, batch["code"], amounts,
+                         recorded_by=operator.strip() or None, recipes_folder=workspace.recipes_folder)
+    if outcome.ok:
+        version, prediction, alarms = outcome.value
+        st.session_state["batches.notice"] = (
+            f"Amounts of batch {batch['code']} recorded (version {version}); "
+            + ("within the recipe tolerance." if not alarms else f"{len(alarms)} alarm(s).")
+        )
+        st.rerun()
+
+
+def _prediction_plot(batch: dict) -> None:
+    made = batch.get("actual_prediction")
+    if not made:
+        return
+    target = batch["plan"].get("target", {})
+    planned = batch["plan"].get("predicted", {})
+    columns = st.columns(2)
+    for column, quantity, symbol in ((columns[0], "mua", "μa"), (columns[1], "musp", "μs′")):
+        key = f"{quantity}_per_mm"
+        series = [Series(f"what was dispensed, predicted {symbol}", made["wavelength_nm"], made[key],
+                         sd=made.get(f"{quantity}_sd_per_mm"), mode="lines+markers")]
+        if planned.get(key):
+            series.append(Series(f"planned {symbol}", planned["wavelength_nm"], planned[key], mode="markers"))
+        wanted = np.asarray([np.nan if v is None else v for v in target.get(key, [])], dtype=float)
+        if wanted.size and np.any(np.isfinite(wanted)):
+            has = np.isfinite(wanted)
+            series.append(Series(f"target {symbol}", np.asarray(target["wavelength_nm"])[has], wanted[has],
+                                 mode="markers"))
+        figure = line_figure(series, x_label="wavelength [nm]", y_label=f"{symbol} [1/mm]",
+                             title=f"{symbol} of what was dispensed")
+        table = pd.DataFrame({"wavelength_nm": made["wavelength_nm"], key: made[key],
+                              f"{quantity}_sd_per_mm": made.get(f"{quantity}_sd_per_mm")})
+        with column:
+            show_figure(figure, table=table, file_stem=f"{batch['code']}-dispensed-{quantity}",
+                        key=f"batches.made.{quantity}")
+    for alarm in batch.get("actual_alarms") or []:
+        st.error(alarm)
+
+
+def _measure_section(workspace: Workspace, store, batch: dict) -> None:
+    from phantomlab.calibration.fit_file import FIT_MODELS  # layer 3
+    from phantomlab.ui.recording import attach_measurement
+
+    st.markdown("**Attach a measurement** — the file is fitted on the way in and kept byte for byte.")
+    if batch["retracted"]:
+        st.caption("The batch is retracted: measurements cannot be attached.")
+        return
+    c1, c2, c3 = st.columns(3)
+    kind = c1.selectbox("Kind of measurement", KINDS, key="batches.kind",
+                        help="srdr: fibre probe R(ρ); sfdi: camera R(fx); slab: integrating sphere R, T; "
+                             "optics: μa and μs′ from another instrument")
+    model = c2.selectbox("Fit model", FIT_MODELS[kind], key=f"batches.model.{kind}")
+    c3.caption(f"Columns: `{KIND_HELP[kind]}`")
+    with st.form(f"batches.measure.{batch['code']}"):
+        upload = st.file_uploader("Measurement file (CSV)", type=["csv"], key="batches.file")
+        sidecar = st.file_uploader("Its metadata file (TOML, optional: n, thickness, instrument, reference)",
+                                   type=["toml"], key="batches.sidecar")
+        d1, d2, d3, d4 = st.columns(4)
+        n = d1.number_input("Phantom refractive index n [dimensionless]", min_value=1.0, max_value=3.0,
+                            value=1.33, step=0.01, key="batches.n")
+        thickness = d2.number_input("Slab thickness [mm] (slab only)", min_value=0.0, value=0.0, step=0.1,
+                                    key="batches.thickness")
+        measured_on = d3.date_input("Measured on", value=_dt.date.today(), key="batches.measured_on")
+        instrument = d4.text_input("Instrument", key="batches.instrument")
+        pressed = st.form_submit_button("Fit and attach", type="primary")
+    if not pressed:
+        return
+    if upload is None:
+        st.error("Measurement file: choose a CSV file first.")
+        return
+    age = None
+    if batch["mixed_on"]:
+        age = float((measured_on - batch["mixed_on"]).days)
+        if age < 0:
+            st.error(f"Measured on {measured_on} is before the batch was mixed ({batch['mixed_on']}).")
+            return
+    options = {"n": n, "thickness_mm": thickness if thickness > 0 else None}
+    with st.spinner("Fitting the measurement…"):
+        outcome = call_layer(
+            "Attaching the measurement", attach_measurement, store, batch["code"], kind=kind,
+            file_name=upload.name, raw_content=upload.getvalue(),
+            sidecar_toml=sidecar.getvalue().decode("utf-8", "replace") if sidecar is not None else None,
+            model=model, measured_on=measured_on, phantom_age_days=age,
+            instrument=instrument.strip() or None, options=options,
+        )
+    if outcome.ok:
+        measurement_id, result = outcome.value
+        st.session_state["batches.notice"] = (
+            f"Measurement {upload.name} attached to batch {batch['code']} (id {measurement_id}) and fitted "
+            f"with {result.model}, reduced χ² {result.chi2_red:.3g}."
+        )
+        st.rerun()
+
+
+def _status_section(store, batch: dict) -> None:
+    from phantomlab.store import get_batch, set_status  # layer 4
+
+    present = STATUSES.index(batch["status"])
+    later = list(STATUSES[present + 1:])
+    st.markdown(f"**Status:** {batch['status']} (moves forward only: {' → '.join(STATUSES)})")
+    if not later or batch["retracted"]:
+        return
+    c1, c2, c3 = st.columns([1, 2, 1])
+    wanted = c1.selectbox("New status", later, key=f"batches.status.{batch['code']}")
+    note = c2.text_input("Why (kept in the history)", key=f"batches.status_note.{batch['code']}")
+    if c3.button("Change the status", key=f"batches.status_button.{batch['code']}"):
+        def change():
+            with store.transaction() as session:
+                return set_status(session, get_batch(session, batch["code"]), wanted,
+                                  note=note.strip() or None).version
+
+        outcome = call_layer("Changing the status", change)
+        if outcome.ok:
+            st.session_state["batches.notice"] = f"Batch {batch['code']} is now {wanted} (version {outcome.value})."
+            st.rerun()
+
+
+def _measurements_table(batch: dict) -> pd.DataFrame:
+    rows = []
+    for m in batch["measurements"]:
+        fit = _latest_fit(m) or {}
+        rows.append({
+            "id": m["id"], "file": m["file_name"], "kind": m["kind"], "measured on": m["measured_on"] or "",
+            "phantom age [days]": m["phantom_age_days"], "instrument": m["instrument"] or "",
+            "fit model": fit.get("model", ""), "reduced χ²": fit.get("chi2_red"),
+            "fit warnings": len(fit.get("warnings", [])),
+        })
+    return pd.DataFrame(rows)
+
+
+def _one_batch(workspace: Workspace, store, batch: dict) -> None:
+    st.subheader(f"Batch {batch['code']}")
+    st.markdown(
+        f"Recipe **{batch['recipe']}** (version {batch['recipe_version']}) · planned {batch['planned_on']}"
+        + (f" · mixed {batch['mixed_on']}" if batch["mixed_on"] else "")
+        + (f" · operator {batch['operator']}" if batch["operator"] else "")
+    )
+    if batch["sheet_html"]:
+        st.download_button(f"Download the sheet of batch {batch['code']} as printed (HTML)",
+                           data=batch["sheet_html"].encode("utf-8"), file_name=f"sheet-{batch['code']}.html",
+                           mime="text/html", key="batches.sheet", on_click="ignore")
+    _status_section(store, batch)
+    amounts, measure, history = st.tabs(["Amounts dispensed", "Measurements", "History"])
+    with amounts:
+        _amounts_section(workspace, store, batch)
+        _prediction_plot(batch)
+    with measure:
+        if batch["measurements"]:
+            st.dataframe(_measurements_table(batch), hide_index=True, width="stretch")
+        else:
+            st.caption("No measurement attached yet.")
+        _measure_section(workspace, store, batch)
+    with history:
+        st.dataframe(read_history(store, batch["code"]), hide_index=True, width="stretch")
+        if batch["measurements"]:
+            st.caption("Measurements and fits are records of their own; each keeps its versions too.")
+
+
+# ---- across batches --------------------------------------------------------------------------------
+
+
+def _fit_points(batches: list[dict]) -> pd.DataFrame:
+    """One row per (batch, measurement, wavelength) with the newest fit's μa and μs′."""
+    rows = []
+    for batch in batches:
+        for m in batch["measurements"]:
+            fit = _latest_fit(m)
+            if not fit:
+                continue
+            for i, w in enumerate(fit.get("wavelength_nm", [])):
+                rows.append({
+                    "batch": batch["code"], "measurement": m["id"], "phantom_age_days": m["phantom_age_days"],
+                    "wavelength_nm": float(w), "mua_per_mm": fit["mua_per_mm"][i],
+                    "mua_sd_per_mm": fit["mua_sd_per_mm"][i], "musp_per_mm": fit["musp_per_mm"][i],
+                    "musp_sd_per_mm": fit["musp_sd_per_mm"][i],
+                })
+    return pd.DataFrame(rows)
+
+
+def _spread_section(batches: list[dict]) -> None:
+    st.subheader("Across the batches of one recipe")
+    recipes = sorted({b["recipe"] for b in batches})
+    if not recipes:
+        return
+    recipe = st.selectbox("Recipe", recipes, key="batches.spread_recipe")
+    chosen = [b for b in batches if b["recipe"] == recipe and not b["retracted"]]
+    points = _fit_points(chosen)
+    if points.empty:
+        st.info("No fitted measurement of this recipe's batches yet.")
+        return
+    # per batch: the mean of its measurements at each wavelength; then spread across batches
+    per_batch = points.groupby(["batch", "wavelength_nm"], as_index=False)[["mua_per_mm", "musp_per_mm"]].mean()
+    spread = per_batch.groupby("wavelength_nm").agg(
+        batches=("batch", "nunique"), mua_mean=("mua_per_mm", "mean"), mua_sd=("mua_per_mm", "std"),
+        musp_mean=("musp_per_mm", "mean"), musp_sd=("musp_per_mm", "std")).reset_index()
+    spread["mua_cv_percent"] = 100 * spread["mua_sd"] / spread["mua_mean"]
+    spread["musp_cv_percent"] = 100 * spread["musp_sd"] / spread["musp_mean"]
+    count = per_batch["batch"].nunique()
+    st.caption(f"{count} measured batch(es) of this recipe; CV = SD across batches / mean "
+               "(each batch: the mean of its measurements).")
+    target = chosen[0]["plan"].get("target", {}) if chosen else {}
+    left, right = st.columns(2)
+    for column, quantity, symbol in ((left, "mua", "μa"), (right, "musp", "μs′")):
+        series = [Series(f"batch {code}", group["wavelength_nm"].to_numpy(), group[f"{quantity}_per_mm"].to_numpy(),
+                         mode="lines+markers")
+                  for code, group in per_batch.groupby("batch")]
+        wanted = np.asarray([np.nan if v is None else v for v in target.get(f"{quantity}_per_mm", [])], dtype=float)
+        if wanted.size and np.any(np.isfinite(wanted)):
+            has = np.isfinite(wanted)
+            series.append(Series(f"target {symbol}", np.asarray(target["wavelength_nm"])[has], wanted[has],
+                                 mode="markers"))
+        figure = line_figure(series, x_label="wavelength [nm]", y_label=f"fitted {symbol} [1/mm]",
+                             title=f"Spread of {symbol} across batches")
+        with column:
+            show_figure(figure, table=per_batch, file_stem=f"spread-{quantity}", key=f"batches.spread.{quantity}")
+    shown = spread[["wavelength_nm", "batches", "mua_mean", "mua_cv_percent", "musp_mean", "musp_cv_percent"]]
+    st.dataframe(shown.rename(columns={
+        "wavelength_nm": "wavelength [nm]", "mua_mean": "mean μa [1/mm]", "mua_cv_percent": "μa CV [%]",
+        "musp_mean": "mean μs′ [1/mm]", "musp_cv_percent": "μs′ CV [%]"}), hide_index=True, width="stretch")
+
+    aged = points.dropna(subset=["phantom_age_days"])
+    if aged.empty:
+        st.caption("No measurement has a phantom age (the batch's mixing date) yet.")
+        return
+    wavelengths = sorted(aged["wavelength_nm"].unique())
+    at = st.selectbox("Drift with phantom age at wavelength [nm]", wavelengths, key="batches.drift_wavelength",
+                      format_func=lambda w: f"{w:g} nm")
+    picked = aged[aged["wavelength_nm"] == at].sort_values("phantom_age_days")
+    left, right = st.columns(2)
+    for column, quantity, symbol in ((left, "mua", "μa"), (right, "musp", "μs′")):
+        series = [Series(f"batch {code}", group["phantom_age_days"].to_numpy(), group[f"{quantity}_per_mm"].to_numpy(),
+                         sd=group[f"{quantity}_sd_per_mm"].to_numpy(), mode="lines+markers")
+                  for code, group in picked.groupby("batch")]
+        figure = line_figure(series, x_label="phantom age [days]", y_label=f"fitted {symbol} at {at:g} nm [1/mm]",
+                             title=f"Drift of {symbol} with phantom age")
+        with column:
+            show_figure(figure, table=picked, file_stem=f"drift-{quantity}-{at:g}nm", key=f"batches.drift.{quantity}")
+
+
+def show(workspace: Workspace) -> None:
+    st.header(TITLE)
+    store = services.store_for(workspace)
+    notice = st.session_state.pop("batches.notice", None)
+    if notice:
+        st.success(notice)
+    loaded = call_layer("Reading the batch log", read_log, store)
+    if not loaded.ok:
+        return
+    batches = loaded.value
+    if not batches:
+        st.info("No batch yet: design a phantom and save it as a new batch.")
+        return
+    c1, c2, c3 = st.columns(3)
+    statuses = c1.multiselect("Status", STATUSES, default=list(STATUSES[:3]), key="batches.filter_status")
+    recipes = sorted({b["recipe"] for b in batches})
+    recipe = c2.selectbox("Recipe", ["(all recipes)"] + recipes, key="batches.filter_recipe")
+    text = c3.text_input("Search batch ID, operator or notes", key="batches.filter_text").strip().lower()
+    shown = [b for b in batches
+             if b["status"] in statuses and (recipe == "(all recipes)" or b["recipe"] == recipe)
+             and (not text or text in " ".join(str(b[k] or "") for k in ("code", "operator", "notes")).lower())]
+    st.dataframe(_log_table(shown), hide_index=True, width="stretch")
+    if not shown:
+        st.caption("No batch matches the filter.")
+    else:
+        codes = [b["code"] for b in shown]
+        code = st.selectbox("Open batch", codes, index=len(codes) - 1, key="batches.open")
+        _one_batch(workspace, store, next(b for b in shown if b["code"] == code))
+    _spread_section(batches)

@@ -1,0 +1,44 @@
+"""The cautions the page shows (layer 5): the very lines the mixing sheet prints.
+
+The design page shows :func:`phantomlab.recipe.cautions.cautions_for` (stock hazards, the
+matrix preparation, characterisation) and its closing line, so the page and the sheet can
+never disagree.  The fit page shows the characterisation caution with one more line for
+bright broadband sources (FIELD.md, "Cautions the tool must show").
+"""
+
+from __future__ import annotations
+
+from typing import Iterable
+
+import streamlit as st
+
+__all__ = ["BRIGHT_SOURCES", "show_cautions", "show_light_source_caution"]
+
+#: Lamps and LEDs used in characterisation (in addition to the sheet's laser line).
+BRIGHT_SOURCES = (
+    "bright sources: halogen and xenon lamps and high-power LEDs in spectrometers and "
+    "cameras can harm eyes (blue and UV content, heat); do not look into the source or the "
+    "fibre end, and keep shields in place"
+)
+
+
+def show_cautions(stocks: Iterable, *, preparation_kind: str = "liquid") -> None:
+    """The cautions block of the design page (the sheet's cautions, same text)."""
+    from phantomlab.recipe.cautions import CLOSING_LINE, cautions_for  # layer 3
+
+    found = cautions_for(stocks=list(stocks), preparation_kind=preparation_kind)
+    lines = [f"- **{caution.source}**: {caution.text}" for caution in found]
+    with st.container(border=True):
+        st.markdown("**⚠ Cautions**")
+        st.markdown("\n".join(lines + [f"- {CLOSING_LINE}"]))
+
+
+def show_light_source_caution() -> None:
+    """The caution for lasers and bright sources used to characterise a phantom."""
+    from phantomlab.recipe.cautions import CHARACTERISATION_CAUTION, CLOSING_LINE  # layer 3
+
+    with st.container(border=True):
+        st.markdown("**⚠ Lasers and bright sources**")
+        st.markdown(
+            "\n".join(f"- {text}" for text in (CHARACTERISATION_CAUTION, BRIGHT_SOURCES, CLOSING_LINE))
+        )

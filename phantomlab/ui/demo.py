@@ -1,0 +1,152 @@
+"""The demo database: an invented lab's shelf and two demo batches (layer 5; demo data, invented).
+
+On first use the page seeds a database file of its own (never a lab's database, see
+:mod:`phantomlab.ui.workspace`) through the store layer's public API:
+
+* every stock of the demo shelf ``recipes/demo-stocks.toml`` as a stock lot;
+* two batches of the demo recipe ``recipes/demo-nir-liquid.toml``, planned, "mixed" with
+  invented small deviations from the sheet, and "measured" with a fibre probe: the
+  reflectance files are synthetic, made here by the transport layer's diffusion model
+  (Farrell et al. 1992) from the optics the recipe layer predicts for what was dispensed
+  with invented "true" stock potencies, plus a fixed invented noise; the first batch is
+  measured twice (day 1 and day 15) so the page can show drift with phantom age.
+
+Nothing here is a real measurement; every file says so in its ``# source:`` line.  The
+seeding writes to a temporary file that replaces the demo file only when complete, so a
+killed first run never leaves a half-seeded demo database.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import os
+import threading
+from pathlib import Path
+
+import numpy as np
+
+from phantomlab.ui.widgets import Outcome
+from phantomlab.ui.workspace import Workspace
+
+__all__ = ["DEMO_RECIPE", "ensure_demo_database", "seed_demo_database", "synthetic_srdr_csv"]
+
+#: The demo recipe both demo batches are planned from.
+DEMO_RECIPE = "demo-nir-liquid.toml"
+#: Invented "true" potencies of the demo lots (what the calibration loop should find).
+DEMO_TRUE_POTENCIES = {"lipid20": 1.06, "ink_black": 0.85, "dye_nir": 1.08}
+#: Invented dispensing deviations (fraction of the planned amount) of the two demo batches.
+DEMO_DEVIATIONS = ({"lipid20": 0.008, "ink_black": -0.015, "dye_nir": 0.005},
+                   {"lipid20": -0.004, "ink_black": 0.010, "dye_nir": -0.012})
+#: Invented slow loss of μs′ with phantom age (creaming of the emulsion), per day.
+DEMO_MUSP_LOSS_PER_DAY = 0.0015
+#: Source distances of the synthetic probe [mm] and the relative SD of its readings.
+DEMO_RHO_MM = np.arange(2.0, 12.0 + 0.5, 1.0)
+DEMO_RELATIVE_SD = 0.02
+DEMO_OPERATOR = "demo: K. Tern"
+#: How many days before the first run each demo batch was "mixed".
+DEMO_MIXED_DAYS_AGO = (20, 12)
+DEMO_INDEX = 1.33
+DEMO_SIDECAR = f'n = {DEMO_INDEX}\ninstrument = "demo fibre probe (invented)"\n'
+
+_lock = threading.Lock()
+
+
+def synthetic_srdr_csv(*, wavelength_nm, mua_per_mm, musp_per_mm, seed: int, label: str) -> str:
+    """An srdr measurement file (DESIGN.md format) made by the diffusion model, with noise.
+
+    Demo data, invented: R(ρ) from Farrell et al. 1992 (the transport layer), multiplied by
+    (1 + 0.02 ε) with ε drawn from a seeded normal generator; the ``sd`` column is 2 %.
+    """
+    from phantomlab.transport.diffusion import srdr_reflectance  # layer 2
+
+    generator = np.random.default_rng(seed)
+    lines = [f"# source: demo data, invented ({label}; synthetic, diffusion model Farrell 1992 + 2 % noise)",
+             "wavelength_nm,rho_mm,reflectance_per_mm2,sd"]
+    for wavelength, mua, musp in zip(wavelength_nm, mua_per_mm, musp_per_mm):
+        clean = np.asarray(srdr_reflectance(mua_per_mm=float(mua), musp_per_mm=float(musp),
+                                            rho_mm=DEMO_RHO_MM, n=DEMO_INDEX), dtype=float).ravel()
+        noisy = clean * (1.0 + DEMO_RELATIVE_SD * generator.standard_normal(clean.size))
+        for rho, value, exact in zip(DEMO_RHO_MM, noisy, clean):
+            lines.append(f"{wavelength:g},{rho:g},{value:.6e},{DEMO_RELATIVE_SD * exact:.3e}")
+    return "\n".join(lines) + "\n"
+
+
+def seed_demo_database(workspace: Workspace) -> None:
+    """Write the demo shelf and the two demo batches into the workspace's demo database."""
+    from phantomlab.materials import load_shelf  # layer 1
+    from phantomlab.recipe import load_recipe, predict, solve  # layer 3
+    from phantomlab.store import open_store, record_stock_lot, set_status, get_batch  # layer 4
+    from phantomlab.ui.recording import attach_measurement, record_dispensed, record_planned_batch
+
+    if not workspace.is_demo:
+        raise RuntimeError("demo data go into the demo database only")
+    store = open_store(workspace.database_url)
+    try:
+        shelf = load_shelf(workspace.shelf_path)
+        with store.transaction() as session:
+            for stock in shelf.values():
+                record_stock_lot(session, stock, shelf_path=str(workspace.shelf_path),
+                                 recorded_by=DEMO_OPERATOR)
+        recipe = load_recipe(workspace.recipes_folder / DEMO_RECIPE)
+        plan = solve(recipe)
+        today = _dt.date.today()
+        truth = {k: (v, 0.0) for k, v in DEMO_TRUE_POTENCIES.items() if k in recipe.stock_keys}
+        measured_days = ((1.0, 15.0), (2.0,))
+        for number, deviations in enumerate(DEMO_DEVIATIONS):
+            mixed_on = today - _dt.timedelta(days=DEMO_MIXED_DAYS_AGO[number])
+            code = record_planned_batch(store, plan, operator=DEMO_OPERATOR,
+                                        notes="demo data, invented",
+                                        planned_on=mixed_on - _dt.timedelta(days=1))
+            amounts = {d.stock: (d.volume_ml * (1.0 + deviations.get(d.stock, 0.0)), "mL")
+                       for d in plan.doses if d.used}
+            record_dispensed(store, code, amounts, recorded_by=DEMO_OPERATOR, mixed_on=mixed_on)
+            fractions = {k: v / plan.batch_volume_ml for k, (v, _unit) in amounts.items()}
+            made = predict(recipe, volume_fractions=fractions, potencies=truth or None)
+            for index, age in enumerate(measured_days[number]):
+                musp = made.musp_per_mm * (1.0 - DEMO_MUSP_LOSS_PER_DAY * age)
+                text = synthetic_srdr_csv(
+                    wavelength_nm=made.wavelength_nm, mua_per_mm=made.mua_per_mm, musp_per_mm=musp,
+                    seed=100 * number + index, label=f"batch {code}, day {age:g}",
+                )
+                attach_measurement(
+                    store, code, kind="srdr", file_name=f"demo-{code}-day{age:g}.csv",
+                    raw_content=text.encode("utf-8"), sidecar_toml=DEMO_SIDECAR,
+                    measured_on=mixed_on + _dt.timedelta(days=int(age)), phantom_age_days=age,
+                    instrument="demo fibre probe (invented)", recorded_by=DEMO_OPERATOR,
+                )
+            with store.transaction() as session:
+                set_status(session, get_batch(session, code), "characterised",
+                           note="demo: measured", recorded_by=DEMO_OPERATOR)
+    finally:
+        store.close()
+
+
+def _seed_into_place(workspace: Workspace) -> None:
+    final = Path(workspace.demo_file)
+    final.parent.mkdir(parents=True, exist_ok=True)
+    partial = final.with_name(final.name + f".seeding-{os.getpid()}")
+    for leftover in (partial, Path(f"{partial}-wal"), Path(f"{partial}-shm")):
+        leftover.unlink(missing_ok=True)
+    seeding = Workspace(database_url=f"sqlite:///{partial}", shelf_path=workspace.shelf_path,
+                        is_demo=True, demo_file=partial)
+    seed_demo_database(seeding)
+    os.replace(partial, final)
+    for leftover in (Path(f"{partial}-wal"), Path(f"{partial}-shm")):
+        leftover.unlink(missing_ok=True)
+
+
+def ensure_demo_database(workspace: Workspace) -> Outcome:
+    """Seed the demo database on first use; later runs find it and leave it as it is."""
+    import streamlit as st
+
+    from phantomlab.ui.widgets import call_layer
+
+    if not workspace.is_demo or workspace.demo_file is None:
+        return Outcome(error="the demo seeding was asked for a lab database; refused")
+    with _lock:
+        if Path(workspace.demo_file).is_file():
+            return Outcome(value=False)
+        with st.spinner("First run: writing the demo shelf and two demo batches into the demo "
+                        "database (demo data, invented)…"):
+            outcome = call_layer("Seeding the demo database", _seed_into_place, workspace, show=False)
+    return outcome if not outcome.ok else Outcome(value=True)

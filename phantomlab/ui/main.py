@@ -1,0 +1,85 @@
+"""The frame of the page: settings, the demo notice, and moving between pages (layer 5)."""
+
+from __future__ import annotations
+
+import importlib
+from typing import Sequence
+
+import streamlit as st
+
+from phantomlab import __version__
+from phantomlab.errors import InputError
+from phantomlab.ui.workspace import Workspace, environment, resolve_workspace
+
+__all__ = ["PAGES", "main"]
+
+#: The pages, in the order the side bar lists them: plain name -> module with show(workspace).
+PAGES: dict[str, str] = {
+    "Design a phantom": "phantomlab.ui.design_page",
+    "Stock shelf": "phantomlab.ui.shelf_page",
+    "Batch log": "phantomlab.ui.batches_page",
+    "Fit and correct": "phantomlab.ui.refit_page",
+}
+
+
+def _workspace(argv: Sequence[str]) -> Workspace | None:
+    try:
+        return resolve_workspace(argv, environment())
+    except InputError as exc:
+        st.error(f"Cannot start: {exc}")
+        return None
+
+
+def _side_bar(workspace: Workspace) -> str:
+    with st.sidebar:
+        st.title("phantomlab")
+        st.caption("Design, mix, log and correct tissue-simulating optical phantoms.")
+        page = st.radio("Go to", list(PAGES), key="page")
+        st.divider()
+        if workspace.is_demo:
+            st.markdown("**Database:** demo (invented lab)")
+            st.caption(f"`{workspace.demo_file}`")
+        else:
+            st.markdown("**Database:** your lab's")
+            st.caption(f"`{_hide_password(workspace.database_url)}`")
+        st.caption(f"Stock file: `{workspace.shelf_path.name}`")
+        st.caption(f"phantomlab {__version__}")
+    return page
+
+
+def _hide_password(url: str) -> str:
+    if "@" in url and "://" in url:
+        scheme, rest = url.split("://", 1)
+        credentials, host = rest.rsplit("@", 1)
+        user = credentials.split(":", 1)[0]
+        return f"{scheme}://{user}:***@{host}"
+    return url
+
+
+def _demo_notice(workspace: Workspace) -> None:
+    st.info(
+        "**Demo data.** This page runs on the demo database of an invented lab (the Kestrel "
+        "Bay Optics Lab): its stocks, lots, batches and measurements are made up. Start the "
+        "page with `--db URL` or `PHANTOMLAB_DB` to work on your own lab's database, which "
+        "never receives demo data.",
+        icon="ℹ️",
+    )
+
+
+def main(argv: Sequence[str]) -> None:
+    """Draw the page the side bar selects."""
+    st.set_page_config(page_title="phantomlab", layout="wide")
+    workspace = _workspace(argv)
+    if workspace is None:
+        return
+    page = _side_bar(workspace)
+    if workspace.is_demo:
+        from phantomlab.ui.demo import ensure_demo_database
+
+        ready = ensure_demo_database(workspace)
+        if not ready.ok:
+            st.error(ready.error)
+            return
+        _demo_notice(workspace)
+    module = importlib.import_module(PAGES[page])
+    module.show(workspace)

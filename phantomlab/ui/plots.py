@@ -1,0 +1,158 @@
+"""Interactive plots of the page (layer 5): plotly figures with hover values and downloads.
+
+Every figure names the quantity and its unit on both axes, shows the values under the
+pointer, can be saved as PNG from its tool bar, and comes with a CSV of the plotted numbers.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+import plotly.graph_objects as go
+import streamlit as st
+
+__all__ = ["Series", "line_figure", "show_figure"]
+
+# A plain palette of our own: predicted / fitted lines dark, targets and data as markers.
+COLOURS = ("#1f4e79", "#b5462f", "#3b7d3b", "#7a5195", "#c08a00", "#4b4b4b", "#00838f")
+
+
+@dataclass(frozen=True)
+class Series:
+    """One trace: x and y with units, an optional ± band (1 SD) and how to draw it."""
+
+    name: str
+    x: np.ndarray
+    y: np.ndarray
+    sd: np.ndarray | None = None
+    mode: str = "lines"  # "lines", "markers", "lines+markers"
+    dash: str | None = None
+
+
+def line_figure(
+    series: list[Series],
+    *,
+    x_label: str,
+    y_label: str,
+    title: str | None = None,
+    log_y: bool = False,
+    height: int = 340,
+) -> go.Figure:
+    """A figure of spectra (or any x–y series) with shaded ±1 SD bands where given."""
+    figure = go.Figure()
+    for index, item in enumerate(series):
+        colour = COLOURS[index % len(COLOURS)]
+        x = np.asarray(item.x, dtype=float)
+        y = np.asarray(item.y, dtype=float)
+        if item.sd is not None:
+            sd = np.asarray(item.sd, dtype=float)
+            figure.add_trace(
+                go.Scatter(
+                    x=np.concatenate([x, x[::-1]]),
+                    y=np.concatenate([y + sd, (y - sd)[::-1]]),
+                    fill="toself",
+                    fillcolor=_with_alpha(colour, 0.18),
+                    line={"width": 0},
+                    hoverinfo="skip",
+                    name=f"{item.name} ± 1 SD",
+                    showlegend=True,
+                )
+            )
+        hover = f"{item.name}<br>{x_label}: %{{x:.4g}}<br>{y_label}: %{{y:.4g}}"
+        if item.sd is not None:
+            hover += " ± %{customdata:.2g}"
+        figure.add_trace(
+            go.Scatter(
+                x=x,
+                y=y,
+                mode=item.mode,
+                name=item.name,
+                line={"color": colour, "dash": item.dash} if "lines" in item.mode else None,
+                marker={"color": colour, "size": 8} if "markers" in item.mode else None,
+                customdata=None if item.sd is None else np.asarray(item.sd, dtype=float),
+                hovertemplate=hover + "<extra></extra>",
+            )
+        )
+    figure.update_layout(
+        title=title,
+        xaxis_title=x_label,
+        yaxis_title=y_label,
+        height=height,
+        margin={"l": 60, "r": 20, "t": 40 if title else 20, "b": 50},
+        legend={"orientation": "h", "yanchor": "bottom", "y": 1.02, "x": 0},
+        hovermode="closest",
+        template="plotly_white",
+    )
+    if log_y:
+        figure.update_yaxes(type="log")
+    return figure
+
+
+def _with_alpha(hex_colour: str, alpha: float) -> str:
+    red, green, blue = (int(hex_colour[i : i + 2], 16) for i in (1, 3, 5))
+    return f"rgba({red},{green},{blue},{alpha})"
+
+
+def show_figure(figure: go.Figure, *, table: pd.DataFrame, file_stem: str, key: str) -> None:
+    """Show a figure (PNG from its tool bar) with a CSV download of the numbers it plots."""
+    st.plotly_chart(
+        figure,
+        width="stretch",
+        key=f"{key}-chart",
+        config={
+            "displaylogo": False,
+            "toImageButtonOptions": {"format": "png", "filename": file_stem, "scale": 2},
+        },
+    )
+    st.download_button(
+        "Download the plotted numbers (CSV)",
+        data=table.to_csv(index=False).encode("utf-8"),
+        file_name=f"{file_stem}.csv",
+        mime="text/csv",
+        key=f"{key}-csv",
+    )
+
+
+def bar_figure(
+    x: np.ndarray,
+    bars: dict[str, np.ndarray],
+    *,
+    x_label: str,
+    y_label: str,
+    title: str | None = None,
+    bands: dict[str, float] | None = None,
+    height: int = 300,
+) -> go.Figure:
+    """Grouped bars per x (e.g. residual per wavelength), with ± tolerance lines per series."""
+    figure = go.Figure()
+    for index, (name, values) in enumerate(bars.items()):
+        colour = COLOURS[index % len(COLOURS)]
+        figure.add_trace(
+            go.Bar(
+                x=np.asarray(x, dtype=float),
+                y=np.asarray(values, dtype=float),
+                name=name,
+                marker_color=colour,
+                hovertemplate=f"{name}<br>{x_label}: %{{x:.4g}}<br>{y_label}: %{{y:.3g}}<extra></extra>",
+            )
+        )
+        if bands and name in bands:
+            for sign in (1.0, -1.0):
+                figure.add_hline(
+                    y=sign * bands[name], line_dash="dot", line_color=colour,
+                    annotation_text=f"{name} tolerance ±{bands[name]:g}" if sign > 0 else None,
+                    annotation_position="top left",
+                )
+    figure.update_layout(
+        title=title,
+        xaxis_title=x_label,
+        yaxis_title=y_label,
+        height=height,
+        barmode="group",
+        margin={"l": 60, "r": 20, "t": 40 if title else 20, "b": 50},
+        legend={"orientation": "h", "yanchor": "bottom", "y": 1.02, "x": 0},
+        template="plotly_white",
+    )
+    return figure

@@ -1,0 +1,268 @@
+"""Writing to the batch log from the page (layer 5): each action is one store transaction.
+
+Only calls: the store layer's repository functions do the writing, the recipe layer renders
+the sheet.  A refusal (unknown batch, wrong unit, busy database) arrives as an
+:class:`~phantomlab.errors.InputError` and the page shows its one line.
+"""
+
+from __future__ import annotations
+
+from typing import Any, Mapping
+
+from phantomlab import __version__
+from phantomlab.ui.services import PAGE_STOCK_SOURCE
+
+__all__ = ["record_planned_batch", "record_page_stock"]
+
+
+def record_planned_batch(
+    store,
+    plan,
+    *,
+    potencies: Mapping[str, Any] | None = None,
+    origin: Mapping[str, str] | None = None,
+    operator: str | None = None,
+    notes: str | None = None,
+    planned_on=None,
+) -> str:
+    """Record a solved plan as a new batch (status ``planned``) and return its batch ID.
+
+    The sheet stored with the batch is rendered with that ID (not a draft).  ``origin`` says,
+    per stock key, whether the definition came from the stock file or the page.
+    """
+    from phantomlab.store import (  # layer 4
+        add_batch,
+        latest_calibration_state,
+        next_batch_code,
+        record_recipe,
+        record_stock_lot,
+    )
+
+    recipe = plan.recipe
+    origin = dict(origin or {})
+    shelf_path = str(recipe.shelf.path) if recipe.shelf.path is not None else None
+    with store.transaction() as session:
+        recipe_row = record_recipe(session, recipe, recorded_by=operator)
+        lots = {}
+        for key in (recipe.matrix_key, *recipe.stock_keys):
+            source = PAGE_STOCK_SOURCE if origin.get(key, "").startswith("page") else shelf_path
+            lots[key] = record_stock_lot(session, recipe.stock(key), shelf_path=source,
+                                         recorded_by=operator)
+        code = next_batch_code(session)
+        state = latest_calibration_state(session) if potencies else None
+        used = {dose.stock: {"potency": dose.potency, "potency_sd": dose.potency_sd,
+                             "source": dose.potency_source, "lot": dose.lot}
+                for dose in plan.doses}
+        add_batch(
+            session,
+            code=code,
+            recipe=recipe_row,
+            plan=plan.to_json(),
+            sheet_html=_sheet_html(plan, code),
+            potencies_used=used,
+            lots=lots,
+            software_version=__version__,
+            calibration_state_id=state.id if state is not None else None,
+            operator=operator,
+            notes=notes,
+            planned_on=planned_on,
+        )
+    return code
+
+
+def _sheet_html(plan, code: str) -> str:
+    from phantomlab.recipe.sheet import render_sheet_html  # layer 3
+
+    return render_sheet_html(plan, batch_id=code, draft=False)
+
+
+def record_page_stock(store, stock, *, recorded_by: str | None = None):
+    """Record a stock added or edited on the page as a (new version of a) stock lot."""
+    from phantomlab.store import record_stock_lot  # layer 4
+
+    with store.transaction() as session:
+        row = record_stock_lot(session, stock, shelf_path=PAGE_STOCK_SOURCE, recorded_by=recorded_by)
+        version = row.version
+    return version
+
+
+# ---- a recorded batch: its recipe, what was dispensed, its measurements -------------------------
+
+
+def batch_recipe(store, code: str, *, recipes_folder=None):
+    """The recipe of a recorded batch, rebuilt from the snapshots the batch log keeps.
+
+    The shelf is the stock-lot snapshots the plan used (their spectra included), so the
+    recipe is the one the batch was planned from even if the stock file changed since.
+    """
+    from pathlib import Path
+
+    from phantomlab.materials import parse_shelf  # layer 1
+    from phantomlab.recipe import parse_recipe  # layer 3
+    from phantomlab.store import batch_lots, get_batch, recipe_of  # layer 4
+    from phantomlab.ui.services import _cache_folder, _materialise_resolved
+
+    with store.reading() as session:
+        batch = get_batch(session, code)
+        recipe_row = recipe_of(session, batch)
+        lots = batch_lots(session, batch)
+        definition = dict(recipe_row.definition)
+        source_path = recipe_row.source_path
+        stocks = {key: dict(lot.definition) for key, lot in lots.items()}
+    folder = _cache_folder()
+    document = {"stocks": {key: _materialise_resolved(key, table, folder) for key, table in stocks.items()}}
+    base = Path(source_path).parent if source_path else Path(recipes_folder or ".")
+    shelf = parse_shelf(document, base=base, path=None, today=_far_past())
+    return parse_recipe(definition, base_dir=base, shelf=shelf)
+
+
+def _far_past():
+    import datetime as _dt
+
+    return _dt.date(1970, 1, 1)  # an old batch's lots are not re-checked for expiry here
+
+
+def plan_potencies(store, code: str) -> dict[str, tuple[float, float]]:
+    """The potencies a batch was planned with: ``{stock: (potency, sd)}``."""
+    from phantomlab.store import get_batch, plan_of  # layer 4
+
+    with store.reading() as session:
+        used = dict(plan_of(session, get_batch(session, code)).potencies_used or {})
+    out = {}
+    for key, value in used.items():
+        if isinstance(value, dict) and "potency" in value:
+            out[key] = (float(value["potency"]), float(value.get("potency_sd", 0.0)))
+    return out
+
+
+def record_dispensed(store, code: str, amounts: Mapping[str, tuple[float, str]], *,
+                     recorded_by: str | None = None, recipes_folder=None, mixed_on=None):
+    """Record the amounts really dispensed and predict the optics of what was really made.
+
+    Parameters
+    ----------
+    amounts : mapping of stock key to (amount, unit)
+        Of the *undiluted* stock in the batch: unit ``"mL"`` (volume) or ``"g"`` (mass).
+
+    Returns
+    -------
+    (batch version, Prediction, list of alarm lines)
+    """
+    import numpy as np
+
+    from phantomlab.errors import InputError
+    from phantomlab.recipe import predict  # layer 3
+    from phantomlab.store import get_batch, plan_of, record_actual  # layer 4
+
+    recipe = batch_recipe(store, code, recipes_folder=recipes_folder)
+    with store.reading() as session:
+        plan_json = dict(plan_of(session, get_batch(session, code)).plan)
+    volume_ml = float(plan_json["batch_volume_ml"])
+    fractions: dict[str, float] = {}
+    rows = []
+    for key, (amount, unit) in amounts.items():
+        if key not in recipe.stock_keys:
+            raise InputError(f"{key!r} is not a stock of this batch; its stocks: {', '.join(recipe.stock_keys)}")
+        if not (np.isfinite(amount) and amount >= 0):
+            raise InputError(f"{key}: amount {amount!r} must be a number >= 0")
+        stock = recipe.stock(key)
+        if unit == "mL":
+            volume = float(amount)
+            rows.append({"stock": key, "volume_ml": volume})
+        elif unit == "g":
+            volume = float(amount) / stock.density_g_per_ml
+            rows.append({"stock": key, "mass_g": float(amount)})
+        else:
+            raise InputError(f"{key}: unit {unit!r} not accepted; accepted: mL, g")
+        fractions[key] = volume / volume_ml
+    prediction = predict(recipe, volume_fractions=fractions, potencies=plan_potencies(store, code) or None)
+    alarms = tolerance_alarms(recipe.target, prediction)
+    with store.transaction() as session:
+        batch = record_actual(session, get_batch(session, code), amounts=rows,
+                              prediction=prediction.to_json(), alarms=alarms, recorded_by=recorded_by,
+                              mixed_on=mixed_on)
+        version = batch.version
+    return version, prediction, alarms
+
+
+def tolerance_alarms(target, prediction) -> list[str]:
+    """One line per quantity whose prediction leaves the target's tolerance (worst wavelength)."""
+    import numpy as np
+
+    alarms = []
+    for symbol, name, tolerance in (("mua", "mua_per_mm", target.mua_tolerance),
+                                    ("musp", "musp_per_mm", target.musp_tolerance)):
+        wanted = np.asarray(getattr(target, name), dtype=float)
+        got = np.interp(target.wavelength_nm, prediction.wavelength_nm, getattr(prediction, name))
+        has = np.isfinite(wanted)
+        if not np.any(has):
+            continue
+        relative = got[has] / wanted[has] - 1.0
+        worst = int(np.argmax(np.abs(relative)))
+        if abs(relative[worst]) > tolerance:
+            alarms.append(
+                f"{symbol} of what was dispensed leaves the tolerance: {100 * relative[worst]:+.1f} % at "
+                f"{target.wavelength_nm[has][worst]:g} nm (tolerance ±{100 * tolerance:g} %)"
+            )
+    return alarms
+
+
+def attach_measurement(
+    store,
+    code: str,
+    *,
+    kind: str,
+    file_name: str,
+    raw_content: bytes,
+    sidecar_toml: str | None = None,
+    model: str | None = None,
+    measured_on=None,
+    phantom_age_days: float | None = None,
+    instrument: str | None = None,
+    recorded_by: str | None = None,
+    baseline=None,
+    options: Mapping[str, Any] | None = None,
+):
+    """Fit a measurement file and store the file (byte for byte) with its fit.
+
+    The file is fitted first: a file that does not parse is refused and nothing is written.
+
+    Returns
+    -------
+    (measurement id, FitResult)
+    """
+    import tomllib
+
+    from phantomlab.calibration import fit_measurement_file  # layer 3
+    from phantomlab.errors import InputError
+    from phantomlab.store import add_fit, add_measurement, get_batch  # layer 4
+
+    try:
+        text = raw_content.decode("utf-8")
+    except UnicodeDecodeError:
+        raise InputError(f"measurement file {file_name!r} is not UTF-8 text; a CSV file is expected") from None
+    if "\n" not in text:
+        text += "\n"
+    sidecar = {}
+    if sidecar_toml:
+        try:
+            sidecar = tomllib.loads(sidecar_toml)
+        except tomllib.TOMLDecodeError as exc:
+            raise InputError(f"measurement metadata (TOML) not readable: {exc}") from None
+    fit_options = {k: v for k, v in dict(options or {}).items() if v is not None}
+    result = fit_measurement_file(text, kind=kind, sidecar=sidecar, model=model, baseline=baseline,
+                                  **fit_options)
+    with store.transaction() as session:
+        batch = get_batch(session, code)
+        measurement = add_measurement(
+            session, batch, kind=kind, file_name=file_name, raw_content=raw_content,
+            metadata_toml=sidecar_toml or None, instrument=instrument or sidecar.get("instrument"),
+            measured_on=measured_on, phantom_age_days=phantom_age_days, recorded_by=recorded_by,
+        )
+        payload = result.to_json()
+        add_fit(session, measurement, results=payload, model=result.model,
+                covariance=payload.get("covariance_mua_musp"), warnings=list(result.warnings),
+                chi2_red=None if result.chi2_red != result.chi2_red else float(result.chi2_red),
+                recorded_by=recorded_by)
+        measurement_id = measurement.id
+    return measurement_id, result

@@ -1,0 +1,161 @@
+"""Glue between the pages and the lower layers (layer 5): open, load, cache, no physics.
+
+The pages ask this module for the batch log (one :class:`~phantomlab.store.Store` per
+database URL and process), the shelf (the stock file plus the stock versions added on the
+page and kept in the batch log), the recipe files beside the shelf, and the calibrated
+potencies.  Everything computed comes from the layers under the page.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import tempfile
+import tomllib
+from pathlib import Path
+from typing import Any
+
+import streamlit as st
+
+from phantomlab.errors import InputError
+from phantomlab.ui.workspace import Workspace
+
+__all__ = [
+    "PAGE_STOCK_SOURCE",
+    "store_for",
+    "shelf_document",
+    "load_page_shelf",
+    "recipe_files",
+    "calibrated_potencies",
+]
+
+#: ``shelf_path`` of the stock-lot records added or edited on the page (not from a file).
+PAGE_STOCK_SOURCE = "added on the page"
+
+
+@st.cache_resource(show_spinner=False)
+def _open_store(url: str):
+    from phantomlab.store import open_store  # layer 4
+
+    return open_store(url)
+
+
+def store_for(workspace: Workspace):
+    """The batch log of this workspace (opened once per process, created when new)."""
+    return _open_store(workspace.database_url)
+
+
+def shelf_document(path: Path) -> dict:
+    """The stock file as a TOML document (for the page to lay edits over it)."""
+    try:
+        return tomllib.loads(Path(path).read_text(encoding="utf-8"))
+    except (OSError, tomllib.TOMLDecodeError) as exc:
+        raise InputError(f"cannot read the stock file {str(path)!r}: {exc}") from None
+
+
+def _materialise_resolved(key: str, table: dict, folder: Path) -> dict:
+    """Write the CSV contents a stock snapshot carries back to files the stock parser reads.
+
+    A stock added on the page keeps its spectra inside the batch log (``definition["resolved"]``
+    holds every CSV file the definition names, as columns).  The stock parser reads files, so
+    each is written once to a cache folder, named by the hash of its content.
+    """
+    table = dict(table)
+    resolved = table.pop("resolved", None) or {}
+    for field_name, content in resolved.items():
+        if field_name not in table or not isinstance(content, dict) or "columns" not in content:
+            continue
+        columns = content["columns"]
+        names = list(columns)
+        source = content.get("source") or "source: stored in the batch log"
+        lines = [f"# {source}", ",".join(names)]
+        rows = zip(*(columns[name] for name in names))
+        lines += [",".join(repr(float(v)) for v in row) for row in rows]
+        text = "\n".join(lines) + "\n"
+        digest = hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
+        target = folder / f"{key}-{field_name}-{digest}.csv"
+        if not target.exists():
+            target.write_text(text, encoding="utf-8")
+        table[field_name] = str(target)
+    return table
+
+
+def _cache_folder() -> Path:
+    folder = Path(tempfile.gettempdir()) / "phantomlab-page-spectra"
+    folder.mkdir(parents=True, exist_ok=True)
+    return folder
+
+
+def page_stock_rows(store) -> list:
+    """The newest version of each stock lot added or edited on the page (not retracted)."""
+    from phantomlab.store.history import current  # layer 4
+    from phantomlab.store.schema import StockLot
+
+    with store.reading() as session:
+        rows = list(
+            session.scalars(current(session, StockLot).where(StockLot.shelf_path == PAGE_STOCK_SOURCE))
+        )
+        for row in rows:
+            session.expunge(row)
+    return sorted(rows, key=lambda row: (row.recorded_at, row.id))
+
+
+def page_document(workspace: Workspace, store) -> tuple[dict, dict[str, str]]:
+    """The stock document the page works with: the file, with page additions laid over it.
+
+    Returns the document and, per stock key, where its definition came from
+    (``"stock file"`` or ``"page, version N"``).
+    """
+    document = shelf_document(workspace.shelf_path)
+    stocks = dict(document.get("stocks", {}))
+    origin = {key: "stock file" for key in stocks}
+    folder = _cache_folder()
+    for row in page_stock_rows(store):
+        definition = dict(row.definition)
+        stocks[row.stock_key] = _materialise_resolved(row.stock_key, definition, folder)
+        origin[row.stock_key] = f"page, version {row.version}"
+    document = dict(document)
+    document["stocks"] = stocks
+    return document, origin
+
+
+@st.cache_resource(show_spinner=False, max_entries=8)
+def _parse_shelf_cached(document_json: str, base: str, path: str):
+    from phantomlab.materials import parse_shelf  # layer 1
+
+    return parse_shelf(json.loads(document_json), base=Path(base), path=Path(path))
+
+
+def load_page_shelf(workspace: Workspace, store):
+    """The shelf the page designs with (stock file + page additions), and each stock's origin."""
+    document, origin = page_document(workspace, store)
+    text = json.dumps(document, default=str)
+    shelf = _parse_shelf_cached(text, str(workspace.shelf_path.parent), str(workspace.shelf_path))
+    return shelf, origin
+
+
+def recipe_files(workspace: Workspace) -> list[Path]:
+    """Recipe files beside the shelf (TOML files with a ``[target]`` table), by name."""
+    found = []
+    for path in sorted(workspace.recipes_folder.glob("*.toml")):
+        try:
+            document = tomllib.loads(path.read_text(encoding="utf-8"))
+        except (OSError, tomllib.TOMLDecodeError):
+            continue
+        if "target" in document and "name" in document:
+            found.append(path)
+    return found
+
+
+def calibrated_potencies(store, shelf) -> dict[str, tuple[float, float]]:
+    """``{stock: (potency, sd)}`` of the lots now on the shelf, from the newest calibration."""
+    from phantomlab.store import potencies_for_shelf  # layer 4
+
+    return potencies_for_shelf(store, shelf)
+
+
+def plain(value: Any) -> Any:
+    """A JSON-ready copy (numpy arrays and dates made plain)."""
+    from phantomlab.jsonable import to_jsonable
+
+    return to_jsonable(value)

@@ -1,0 +1,88 @@
+"""Which database and shelf the page works on (layer 5).
+
+The page runs either on a lab's own database or on a demo database of its own:
+
+* ``streamlit run app.py -- --db URL`` or the ``PHANTOMLAB_DB`` environment variable name the
+  lab's database (an SQLAlchemy URL).  It never receives demo data.
+* With neither, the page opens the demo database file ``demo-data/phantomlab-demo.sqlite``
+  beside ``app.py`` (or the file ``PHANTOMLAB_DEMO_DB`` names) and seeds it on first use with
+  the invented demo shelf and two demo batches (:mod:`phantomlab.ui.demo`).
+
+The stock file (the shelf) comes from ``--shelf FILE`` or ``PHANTOMLAB_SHELF``; the demo uses
+``recipes/demo-stocks.toml``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Mapping, Sequence
+
+from phantomlab.errors import InputError
+
+__all__ = ["Workspace", "resolve_workspace", "REPO_ROOT", "DEMO_SHELF", "DEMO_DATABASE"]
+
+#: The folder holding app.py, recipes/ and demo-data/.
+REPO_ROOT = Path(__file__).resolve().parents[2]
+#: The invented demo shelf (demo data, invented).
+DEMO_SHELF = REPO_ROOT / "recipes" / "demo-stocks.toml"
+#: Where the demo database lives unless PHANTOMLAB_DEMO_DB says otherwise.
+DEMO_DATABASE = REPO_ROOT / "demo-data" / "phantomlab-demo.sqlite"
+
+
+@dataclass(frozen=True)
+class Workspace:
+    """The database URL, the stock file, and whether this is the demo."""
+
+    database_url: str
+    shelf_path: Path
+    is_demo: bool
+    demo_file: Path | None = None  # the demo database file, when is_demo
+
+    @property
+    def recipes_folder(self) -> Path:
+        """Where recipe files are looked for (the shelf's folder)."""
+        return self.shelf_path.parent
+
+
+def _parse_arguments(argv: Sequence[str]) -> argparse.Namespace:
+    parser = argparse.ArgumentParser(prog="streamlit run app.py --", add_help=False)
+    parser.add_argument("--db", default=None)
+    parser.add_argument("--shelf", default=None)
+    known, _unknown = parser.parse_known_args(list(argv))
+    return known
+
+
+def resolve_workspace(argv: Sequence[str], environ: Mapping[str, str]) -> Workspace:
+    """Decide the database and the shelf from the script arguments and the environment.
+
+    Parameters
+    ----------
+    argv : sequence of str
+        The arguments after ``--`` of ``streamlit run app.py -- ...``.
+    environ : mapping
+        The environment (``PHANTOMLAB_DB``, ``PHANTOMLAB_SHELF``, ``PHANTOMLAB_DEMO_DB``).
+    """
+    arguments = _parse_arguments(argv)
+    url = arguments.db or environ.get("PHANTOMLAB_DB") or None
+    shelf_text = arguments.shelf or environ.get("PHANTOMLAB_SHELF") or None
+    shelf_path = Path(shelf_text).expanduser().resolve() if shelf_text else DEMO_SHELF
+    if shelf_text and not shelf_path.is_file():
+        raise InputError(f"stock file {shelf_text!r} not found; give a stocks TOML file")
+    if url:
+        return Workspace(database_url=url, shelf_path=shelf_path, is_demo=False)
+    demo_text = environ.get("PHANTOMLAB_DEMO_DB")
+    demo_file = Path(demo_text).expanduser().resolve() if demo_text else DEMO_DATABASE
+    return Workspace(
+        database_url=f"sqlite:///{demo_file}",
+        shelf_path=DEMO_SHELF if not shelf_text else shelf_path,
+        is_demo=True,
+        demo_file=demo_file,
+    )
+
+
+def environment() -> dict[str, str]:
+    """The process environment as a plain dict (a seam for tests)."""
+    return dict(os.environ)

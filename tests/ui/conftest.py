@@ -1,0 +1,96 @@
+"""Fixtures for the page tests: a demo database of the test's own, and the page under AppTest.
+
+The demo database is seeded once per test session (seeding plans and records the demo
+batches through the store layer) and copied for every test, so tests do not see each other's
+writes.  Tests drive the page with ``streamlit.testing.v1.AppTest``: they set widget values,
+rerun, and assert on what the page shows.
+"""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+
+import pytest
+
+REPO_ROOT = Path(__file__).resolve().parents[2]
+APP = REPO_ROOT / "app.py"
+
+#: Seconds one script run of the page may take under AppTest (first runs import numba/plotly).
+RUN_TIMEOUT_S = 120
+
+
+@pytest.fixture(scope="session")
+def seeded_demo_file(tmp_path_factory) -> Path:
+    """A demo database seeded once per session by the page's own seeding path."""
+    from phantomlab.ui.demo import seed_demo_database
+    from phantomlab.ui.workspace import DEMO_SHELF, Workspace
+
+    demo_file = tmp_path_factory.mktemp("demo-seed") / "phantomlab-demo.sqlite"
+    workspace = Workspace(
+        database_url=f"sqlite:///{demo_file}",
+        shelf_path=DEMO_SHELF,
+        is_demo=True,
+        demo_file=demo_file,
+    )
+    seed_demo_database(workspace)
+    return demo_file
+
+
+@pytest.fixture
+def demo_file(seeded_demo_file, tmp_path, monkeypatch) -> Path:
+    """A private copy of the seeded demo database; the page is pointed at it."""
+    target = tmp_path / "phantomlab-demo.sqlite"
+    shutil.copyfile(seeded_demo_file, target)
+    monkeypatch.delenv("PHANTOMLAB_DB", raising=False)
+    monkeypatch.delenv("PHANTOMLAB_SHELF", raising=False)
+    monkeypatch.setenv("PHANTOMLAB_DEMO_DB", str(target))
+    monkeypatch.chdir(tmp_path)
+    return target
+
+
+@pytest.fixture
+def page(demo_file):
+    """The page under AppTest, run once (it opens on the design page)."""
+    from streamlit.testing.v1 import AppTest
+
+    app = AppTest.from_file(str(APP), default_timeout=RUN_TIMEOUT_S)
+    app.run()
+    assert not app.exception, [e.message for e in app.exception]
+    return app
+
+
+def go_to(app, page_name: str):
+    """Select a page in the side bar and rerun."""
+    app.sidebar.radio(key="page").set_value(page_name)
+    app.run()
+    assert not app.exception, [e.message for e in app.exception]
+    return app
+
+
+def shown_text(app) -> str:
+    """Everything the page shows as text (markdown, captions, alerts, headers, tables)."""
+    parts: list[str] = []
+    for kind in ("title", "header", "subheader", "markdown", "caption", "text", "code",
+                 "info", "success", "warning", "error"):
+        for element in getattr(app, kind):
+            parts.append(str(element.value))
+    for frame in app.dataframe:
+        parts.append(frame.value.to_csv(index=False))
+    for table in app.table:
+        parts.append(table.value.to_csv(index=False))
+    for metric in app.metric:
+        parts.append(f"{metric.label} {metric.value}")
+    return "\n".join(parts)
+
+
+@pytest.fixture(name="go_to")
+def go_to_fixture():
+    """The :func:`go_to` helper, as a fixture (test modules are imported by importlib)."""
+    return go_to
+
+
+@pytest.fixture(name="shown_text")
+def shown_text_fixture():
+    """The :func:`shown_text` helper, as a fixture."""
+    return shown_text

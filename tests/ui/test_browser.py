@@ -1,0 +1,163 @@
+"""The page in a real browser: ``streamlit run app.py`` driven by Debian's chromium.
+
+Starts the page on a free localhost port against a demo database in the test's temporary
+folder, designs a phantom, downloads the mixing sheet, and saves screenshots under the
+test's ``tmp_path``.  Fails if the page ever shows Streamlit's exception element.  Skips,
+saying why, only when /usr/bin/chromium is absent (``.ci/run`` installs it).
+
+Launch flags: ../shared/TOOLING.md (the system browser, never a downloaded one).
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import socket
+import subprocess
+import sys
+import time
+import urllib.request
+from pathlib import Path
+
+import pytest
+
+pytestmark = pytest.mark.browser
+
+REPO_ROOT = Path(__file__).resolve().parents[2]
+CHROMIUM = Path("/usr/bin/chromium")
+LAUNCH_ARGS = [
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--no-first-run",
+]
+START_TIMEOUT_S = 90
+STEP_TIMEOUT_MS = 120_000
+EXCEPTION_SELECTOR = '[data-testid="stException"]'
+
+
+def _free_port() -> int:
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as probe:
+        probe.bind(("127.0.0.1", 0))
+        return probe.getsockname()[1]
+
+
+def _wait_healthy(url: str, process: subprocess.Popen, log: Path) -> None:
+    deadline = time.monotonic() + START_TIMEOUT_S
+    while time.monotonic() < deadline:
+        if process.poll() is not None:
+            pytest.fail(f"streamlit exited with {process.returncode}:\n{log.read_text()}")
+        try:
+            with urllib.request.urlopen(f"{url}/_stcore/health", timeout=2) as answer:
+                if answer.status == 200:
+                    return
+        except OSError:
+            time.sleep(0.5)
+    pytest.fail(f"streamlit did not answer within {START_TIMEOUT_S} s:\n{log.read_text()}")
+
+
+@pytest.fixture
+def served_page(tmp_path, seeded_demo_file):
+    """``streamlit run app.py`` on a free port, on a copy of the seeded demo database."""
+    if not CHROMIUM.exists():
+        pytest.skip(f"{CHROMIUM} is absent: install Debian's chromium (apt-get install chromium)")
+    demo = tmp_path / "demo-data" / "phantomlab-demo.sqlite"
+    demo.parent.mkdir()
+    shutil.copyfile(seeded_demo_file, demo)
+    port = _free_port()
+    env = {k: v for k, v in os.environ.items() if k not in ("PHANTOMLAB_DB", "PHANTOMLAB_SHELF")}
+    env["PHANTOMLAB_DEMO_DB"] = str(demo)
+    log = tmp_path / "streamlit.log"
+    command = [
+        sys.executable, "-m", "streamlit", "run", str(REPO_ROOT / "app.py"),
+        "--server.headless", "true",
+        "--server.port", str(port),
+        "--server.address", "127.0.0.1",
+        "--browser.gatherUsageStats", "false",
+        "--server.fileWatcherType", "none",
+    ]
+    with log.open("w") as log_file:
+        process = subprocess.Popen(
+            command, cwd=tmp_path, env=env, stdout=log_file, stderr=subprocess.STDOUT
+        )
+    url = f"http://127.0.0.1:{port}"
+    try:
+        _wait_healthy(url, process, log)
+        yield url
+    finally:
+        process.terminate()
+        try:
+            process.wait(timeout=15)
+        except subprocess.TimeoutExpired:
+            process.kill()
+            process.wait()
+
+
+def _no_exception(page, where: str) -> None:
+    shown = page.locator(EXCEPTION_SELECTOR)
+    if shown.count():
+        pytest.fail(f"the page shows an exception {where}: {shown.first.inner_text()[:2000]}")
+
+
+def _settle(page) -> None:
+    """Wait until Streamlit has finished running the script."""
+    page.wait_for_timeout(300)
+    page.wait_for_function(
+        "() => !document.querySelector('[data-testid=\"stStatusWidget\"]')",
+        timeout=STEP_TIMEOUT_MS,
+    )
+    page.wait_for_timeout(300)
+
+
+def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
+    from playwright.sync_api import sync_playwright
+
+    shots = tmp_path / "screenshots"
+    shots.mkdir()
+    with sync_playwright() as driver:
+        browser = driver.chromium.launch(
+            executable_path=str(CHROMIUM), headless=True, args=LAUNCH_ARGS
+        )
+        try:
+            context = browser.new_context(
+                viewport={"width": 1400, "height": 1000}, accept_downloads=True
+            )
+            page = context.new_page()
+            page.set_default_timeout(STEP_TIMEOUT_MS)
+            page.goto(served_page)
+            page.get_by_text("Demo data.").first.wait_for()
+            page.get_by_role("heading", name="Design a phantom").first.wait_for()
+            _settle(page)
+            _no_exception(page, "on opening")
+            page.screenshot(path=shots / "01-design-opened.png", full_page=True)
+
+            page.get_by_text("Predicted against target").first.wait_for()
+            _settle(page)
+            _no_exception(page, "after solving")
+            page.screenshot(path=shots / "02-design-solved.png", full_page=True)
+
+            with page.expect_download() as download_info:
+                page.get_by_role("button", name="Download the mixing sheet (HTML)").click()
+            download = download_info.value
+            sheet = tmp_path / download.suggested_filename
+            download.save_as(sheet)
+            html = sheet.read_text(encoding="utf-8")
+            assert "<html" in html.lower()
+            assert "certified reference" in html.lower()
+            sheet_page = context.new_page()
+            sheet_page.goto(sheet.as_uri())
+            sheet_page.screenshot(path=shots / "03-sheet.png", full_page=True)
+            sheet_page.close()
+
+            for index, name in enumerate(["Stock shelf", "Batch log", "Fit and correct"], 4):
+                page.get_by_text(name, exact=True).first.click()
+                page.get_by_role("heading", name=name).first.wait_for()
+                _settle(page)
+                _no_exception(page, f"on the page {name!r}")
+                page.screenshot(path=shots / f"0{index}-{name.replace(' ', '-')}.png",
+                                full_page=True)
+        finally:
+            browser.close()
+    print(f"screenshots in {shots}")
