@@ -165,43 +165,35 @@ def _double(r, t, times: int):
     return r, t
 
 
-@dataclass(frozen=True)
-class _Layer:
-    """A possibly asymmetric layer in flux form: from above (top) and from below (bottom)."""
+def _between_faces(r, t, top_in, top_t, bottom_in, bottom_t, entering):
+    """Power leaving the top face (from inside) and the bottom face, for light entering.
 
-    r_top: np.ndarray
-    t_down: np.ndarray
-    r_bottom: np.ndarray
-    t_up: np.ndarray
+    The sample (flux operators R, T, the same from either side) lies between two faces
+    that are diagonal in the streams: seen from inside they reflect ``top_in`` and
+    ``bottom_in`` and transmit ``top_t`` and ``bottom_t``.  With a the downward flux just
+    below the top face and e the upward flux just above the bottom face (after reflection
+    there), the adding equations (van de Hulst 1980) for one incident vector read
 
+        a = entering + D_top (R a + T e),   e = D_bottom (T a + R e),
 
-def _add(upper: _Layer, lower: _Layer) -> _Layer:
-    """Adding equations for two layers, ``upper`` on top of ``lower`` (van de Hulst 1980)."""
-    eye = np.eye(upper.r_top.shape[-1])[None]
-    down = np.linalg.solve(eye - lower.r_top @ upper.r_bottom, lower.r_top)
-    up = np.linalg.solve(eye - upper.r_bottom @ lower.r_top, upper.r_bottom)
-    return _Layer(
-        r_top=upper.r_top + upper.t_up @ down @ upper.t_down,
-        t_down=lower.t_down @ (upper.t_down + up @ lower.r_top @ upper.t_down),
-        r_bottom=lower.r_bottom + lower.t_down @ up @ lower.t_up,
-        t_up=upper.t_up @ (lower.t_up + down @ upper.r_bottom @ lower.t_up),
-    )
-
-
-def _face_layer(r_seen_from_outside, r_seen_from_inside, t, *, sample_below: bool) -> _Layer:
-    """Diagonal flux operators of a face; ``sample_below`` for the top face."""
-    diag = np.eye(t.shape[-1])[None]
-    # A stream totally reflected at both faces of a slab that neither scatters nor absorbs
-    # it (zero thickness, or μa = μs = 0) would bounce for ever and make the adding
-    # equations singular; no light ever enters such a stream from outside, so a reflectance
-    # of 1 − 1e-12 instead of 1 changes no result beyond that order.
-    r_seen_from_inside = np.minimum(r_seen_from_inside, 1.0 - _TRAPPED_LEAK)
-    r_in = diag * r_seen_from_inside[:, None, :]  # light from the sample, turned back
-    r_out = diag * r_seen_from_outside[:, None, :]  # light from outside, turned back
-    tt = diag * t[:, None, :]
-    if sample_below:
-        return _Layer(r_top=r_out, t_down=tt, r_bottom=r_in, t_up=tt)
-    return _Layer(r_top=r_in, t_down=tt, r_bottom=r_out, t_up=tt)
+    one linear system of 2N unknowns per wavelength; only the response to the given light
+    is needed, so no composite operator is formed.
+    """
+    count = r.shape[-1]
+    eye = np.eye(count)[None]
+    # A stream totally reflected at both faces of a sample that neither scatters nor absorbs
+    # it (zero thickness, or μa = μs = 0) would bounce for ever and make the system
+    # singular; no light ever enters such a stream from outside, so a reflectance of
+    # 1 − 1e-12 instead of 1 changes no result beyond that order.
+    d_top = np.minimum(top_in, 1.0 - _TRAPPED_LEAK)[:, :, None]
+    d_bottom = np.minimum(bottom_in, 1.0 - _TRAPPED_LEAK)[:, :, None]
+    system = np.block([[eye - d_top * r, -d_top * t], [-d_bottom * t, eye - d_bottom * r]])
+    rhs = np.concatenate([entering, np.zeros_like(entering)], axis=1)[:, :, None]
+    solution = np.linalg.solve(system, rhs)[:, :, 0]
+    a, e = solution[:, :count], solution[:, count:]
+    upward_at_top = np.einsum("wij,wj->wi", r, a) + np.einsum("wij,wj->wi", t, e)
+    downward_at_bottom = np.einsum("wij,wj->wi", t, a) + np.einsum("wij,wj->wi", r, e)
+    return np.sum(top_t * upward_at_top, axis=1), np.sum(bottom_t * downward_at_bottom, axis=1)
 
 
 # ----------------------------------------------------------------------------- inputs
@@ -346,28 +338,22 @@ def _solve(mua, mus, g, d, n, n_out, top: Face, bottom: Face, incidence: str, co
     delta = tau / 2.0**doublings
     r, t = _thin_layer(mu, w, albedo, delta, h_same, h_opposite)
     r, t = _double(r, t, doublings)
-    sample = _Layer(r_top=r, t_down=t, r_bottom=r, t_up=t)
-
     top_in, top_out, top_t = face_response(top, mu)
-    bottom_in, bottom_out, bottom_t = face_response(bottom, mu)
-    slab = _add(
-        _face_layer(top_out, top_in, top_t, sample_below=True),
-        _add(sample, _face_layer(bottom_out, bottom_in, bottom_t, sample_below=False)),
-    )
-
+    bottom_in, _, bottom_t = face_response(bottom, mu)
     ratio2 = (n / n_out) ** 2
     if incidence == "collimated":
         incoming = np.zeros_like(mu)
         incoming[:, -1] = 1.0  # all power along μ = 1
-        specular = top_out[:, -1]
     else:
         # Lambertian light outside maps, by n² μ dμ = n_out² μ0 dμ0, onto the streams inside
         # that can reach outside; what cannot enter (n < n_out) is turned back at the face.
         reachable = mu >= mu_c[:, None]
         incoming = np.where(reachable, ratio2[:, None] * 2.0 * mu * w, 0.0)
-        specular = np.sum(incoming * top_out, axis=1) + (1.0 - np.sum(incoming, axis=1))
-    reflected = np.einsum("wij,wj->w", slab.r_top, incoming) + (1.0 - np.sum(incoming, axis=1))
-    transmitted = np.einsum("wij,wj->w", slab.t_down, incoming)
+    specular = np.sum(incoming * top_out, axis=1) + (1.0 - np.sum(incoming, axis=1))
+    escaped_top, transmitted = _between_faces(
+        r, t, top_in, top_t, bottom_in, bottom_t, incoming * top_t
+    )
+    reflected = specular + escaped_top
 
     unscattered_t, unscattered_r = _unscattered(mua + mus, d, n, n_out, mu_c, top, bottom, incidence)
     return {
