@@ -28,6 +28,7 @@ from phantomlab.jsonable import to_jsonable
 #: Modules that contribute sub-commands, in the order ``--help`` lists them.
 COMMAND_MODULES: tuple[str, ...] = (
     "phantomlab.commands.stock",
+    "phantomlab.commands.fit",
     "phantomlab.commands.batch",
     "phantomlab.commands.lab",
     "phantomlab.commands.forward",

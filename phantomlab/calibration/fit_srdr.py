@@ -46,6 +46,14 @@ def baseline_anisotropy(baseline) -> float:
     raise InputError("the Monte Carlo baseline does not say which g it was run with")
 
 
+def baseline_absorption_floor(baseline) -> float:
+    """Smallest μa/μs a baseline answers for (its μa_ref/μs_ref), with a hair of margin."""
+    ratio = getattr(baseline, "minimum_absorption_ratio", None)
+    if ratio is None:
+        ratio = float(baseline.mua_per_mm) / float(baseline.mus_per_mm)
+    return float(ratio) * (1.0 + 1e-7)
+
+
 def srdr_forward(*, model: str, rho_mm, n: float, n_outside: float = 1.0, baseline=None):
     """The forward model R(ρ) of the fit as ``forward(mua (N,), musp (N,)) -> (N, R)`` [1/mm²].
 
@@ -62,10 +70,13 @@ def srdr_forward(*, model: str, rho_mm, n: float, n_outside: float = 1.0, baseli
         if baseline is None:
             raise InputError("srdr model 'mc' needs a Monte Carlo baseline (--baseline FILE)")
         g = baseline_anisotropy(baseline)
+        floor = baseline_absorption_floor(baseline)
 
         def forward(mua, musp):
             mus = np.asarray(musp, float) / (1.0 - g)
-            return np.asarray(baseline.srdr(mua_per_mm=np.asarray(mua, float), mus_per_mm=mus, rho_mm=rho), float)
+            # the baseline answers only for mua/mus >= its reference ratio: hold the trial there
+            mua = np.maximum(np.asarray(mua, float), floor * mus)
+            return np.asarray(baseline.srdr(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho), float)
 
         return forward
     if model not in SRDR_FIT_MODELS:
@@ -168,6 +179,13 @@ def fit_srdr(
             min_transport_mfp=max(min_transport_mfp, 1.0))
     else:
         messages += model_range_warnings(forward, result)
+        floor = baseline_absorption_floor(baseline) * result.musp_per_mm / (1.0 - baseline_anisotropy(baseline))
+        pinned = result.mua_per_mm <= floor * 1.01
+        if np.any(pinned):
+            messages.append(
+                f"fitted mua reached the baseline's lowest mua/mus ({baseline_absorption_floor(baseline):.3g}) at "
+                f"{int(pinned.sum())} wavelengths; the true mua may be lower: build a baseline with a "
+                f"smaller reference mua")
     messages += outcome_warnings(
         wavelength_nm=result.wavelength_nm, mua_per_mm=result.mua_per_mm,
         musp_per_mm=result.musp_per_mm, mua_sd_per_mm=result.mua_sd_per_mm,

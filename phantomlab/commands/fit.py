@@ -1,0 +1,70 @@
+"""``phantomlab fit``: fitted μa and μs′ of a measurement file (layer 5, no physics).
+
+    phantomlab fit MEASUREMENT.csv --kind {srdr,sfdi,slab,optics} [--n N] [--n-outside N]
+                   [--thickness-mm D] [--model M] [--g G] [--baseline FILE]
+                   [--musp-power-law] [--json]
+
+JSON keys (DESIGN.md): ``wavelength_nm``, ``mua_per_mm``, ``musp_per_mm``, ``mua_sd_per_mm``,
+``musp_sd_per_mm``, ``model``, ``chi2_red``, ``warnings``; extras: ``kind``,
+``covariance_mua_musp``, ``chi2_red_per_wavelength``, ``residuals``, ``parameters``,
+``source``, ``replicates``, ``scale_factor`` (relative data).  Several files after each
+other are replicates of one phantom, combined with their spread.
+"""
+
+from __future__ import annotations
+
+from phantomlab.cli import CommandResult, add_json_option
+
+__all__ = ["register"]
+
+
+def register(subparsers) -> None:
+    parser = subparsers.add_parser(
+        "fit",
+        help="fit mua and mus' to a measurement file (srdr, sfdi, slab, optics)",
+        description="Inverse fit of a measurement file: mua and mus' per wavelength with SDs. "
+        "Metadata come from NAME.toml beside the file; options win over it.",
+    )
+    parser.add_argument("files", nargs="+", metavar="MEASUREMENT.csv",
+                        help="the measurement file (several: replicates of one phantom)")
+    parser.add_argument("--kind", required=True, choices=("srdr", "sfdi", "slab", "optics"))
+    parser.add_argument("--n", type=float, default=None, metavar="N", help="refractive index of the phantom")
+    parser.add_argument("--n-outside", type=float, default=None, metavar="N",
+                        help="refractive index outside (default 1.0, air)")
+    parser.add_argument("--thickness-mm", type=float, default=None, metavar="D", help="slab thickness in mm")
+    parser.add_argument("--model", default=None, metavar="M",
+                        help="srdr: farrell1992 (default), kienle1997, mc; sfdi: cuccia2009 (default), mc; "
+                        "slab: adding-doubling")
+    parser.add_argument("--g", type=float, default=None, metavar="G", help="anisotropy assumed (slab)")
+    parser.add_argument("--baseline", default=None, metavar="FILE",
+                        help="stored Monte Carlo baseline for --model mc")
+    parser.add_argument("--musp-power-law", action="store_true",
+                        help="fit mus' as a power law a (lambda/500 nm)^-b jointly across the band")
+    add_json_option(parser)
+    parser.set_defaults(handler=_fit)
+
+
+def _table(result) -> str:
+    header = (f"{'wavelength_nm':>13}  {'mua [1/mm]':>11}  {'sd':>9}  {'musp [1/mm]':>11}  {'sd':>9}"
+              f"  {'chi2_red':>8}")
+    lines = [f"fit of {result.name} ({result.kind}, model {result.model})", header, "-" * len(header)]
+    for w, a, sa, s, ss, c in zip(result.wavelength_nm, result.mua_per_mm, result.mua_sd_per_mm,
+                                  result.musp_per_mm, result.musp_sd_per_mm, result.chi2_red_per_wavelength):
+        lines.append(f"{w:13.1f}  {a:11.5g}  {sa:9.3g}  {s:11.5g}  {ss:9.3g}  {c:8.3g}")
+    lines.append(f"reduced chi2 over the file: {result.chi2_red:.3g}")
+    for name, value in result.parameters.items():
+        lines.append(f"{name}: {value}")
+    return "\n".join(lines)
+
+
+def _fit(args) -> CommandResult:
+    from phantomlab.calibration import fit_measurement_file
+    from phantomlab.calibration.spectral import SpectralConstraint
+
+    constraint = SpectralConstraint(musp_power_law=True) if args.musp_power_law else None
+    files = args.files[0] if len(args.files) == 1 else list(args.files)
+    result = fit_measurement_file(
+        files, kind=args.kind, n=args.n, n_outside=args.n_outside, thickness_mm=args.thickness_mm,
+        g=args.g, model=args.model, baseline=args.baseline, constraint=constraint,
+    )
+    return CommandResult(payload=result.to_json(), text=_table(result))
