@@ -211,7 +211,7 @@ def _diffusion(args, model: str) -> CommandResult:
             raise InputError("--kind sfdi needs --fx-per-mm LIST (spatial frequencies in 1/mm)")
         fx = _list(args.fx_per_mm, "--fx-per-mm")
         boundary = args.boundary or "groenhuis1983"
-        values = diffusion.sfdi_reflectance(fx_per_mm=fx, boundary=boundary, **common)
+        values = diffusion.sfdi_reflectance(fx_per_mm=fx, boundary=boundary, model=model, **common)
         payload.update(boundary=boundary, fx_per_mm=fx, reflectance=np.reshape(values, (count, fx.size)))
         text = _grid_table("fx_per_mm", fx, "R [-]", payload["reflectance"], payload)
     else:

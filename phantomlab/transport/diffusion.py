@@ -59,6 +59,7 @@ __all__ = [
     "srdr_diffusion_Farrell1992",
     "srdr_diffusion_Kienle1997",
     "total_diffuse_reflectance",
+    "SFDI_MODELS",
     "sfdi_reflectance",
     "sfdi_diffusion_Cuccia2009",
     "MIN_MUSP_TO_MUA_RATIO",
@@ -400,13 +401,31 @@ def sfdi_diffusion_Cuccia2009(
     return value[()] if value.ndim == 0 else value
 
 
-def sfdi_reflectance(
-    *, mua_per_mm, musp_per_mm, fx_per_mm, n, n_outside=1.0, boundary="groenhuis1983"
-):
-    """Spatial-frequency-domain diffuse reflectance R(fx) (diffusion, Cuccia et al. 2009).
+#: Registry of spatial-frequency-domain reflectance models (name → function).
+SFDI_MODELS: dict[str, Callable] = {"cuccia2009": sfdi_diffusion_Cuccia2009}
 
-    Front function of :func:`sfdi_diffusion_Cuccia2009` (the one published model so far);
-    ``boundary`` selects the method for R_eff.
+
+def sfdi_reflectance(
+    *,
+    mua_per_mm,
+    musp_per_mm,
+    fx_per_mm,
+    n,
+    n_outside=1.0,
+    boundary="groenhuis1983",
+    model="cuccia2009",
+):
+    """Spatial-frequency-domain diffuse reflectance R(fx) by a named model.
+
+    Parameters
+    ----------
+    mua_per_mm, musp_per_mm : float or array (S) [1/mm]
+    fx_per_mm : float or array (G) [1/mm]
+    n, n_outside : float or array (S) [dimensionless]
+    boundary : {'groenhuis1983', 'haskell1994'}
+        Method for the effective reflection coefficient R_eff.
+    model : {'cuccia2009'}
+        See :data:`SFDI_MODELS`; an unknown name is refused with the valid list.
 
     Returns
     -------
@@ -416,7 +435,8 @@ def sfdi_reflectance(
     ----------
     Cuccia et al. 2009, J Biomed Opt 14:024012.
     """
-    return sfdi_diffusion_Cuccia2009(
+    function = choose(SFDI_MODELS, model, "sfdi model")
+    return function(
         mua_per_mm=mua_per_mm,
         musp_per_mm=musp_per_mm,
         fx_per_mm=fx_per_mm,

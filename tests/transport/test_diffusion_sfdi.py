@@ -60,6 +60,7 @@ def test_shapes_and_nan():
         ({"mua_per_mm": -1.0}, r"mua_per_mm must be finite and >= 0"),
         ({"n": 0.5}, r"must be >= 1"),
         ({"boundary": "x"}, "unknown boundary method 'x'; valid: groenhuis1983, haskell1994"),
+        ({"model": "x"}, "unknown sfdi model 'x'; valid: cuccia2009"),
     ],
 )
 def test_bad_input_refused(kwargs, match):
