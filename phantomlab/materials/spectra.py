@@ -165,10 +165,14 @@ def mua_from_molar_extinction(*, epsilon_per_molar_per_cm, concentration_mol_per
     -------
     ndarray [1/mm]
 
+    Notes
+    -----
+    Published molar extinction tables of dyes are base 10 (absorbance A = ε c L); the
+    factor ln(10) turns them into a natural-log absorption coefficient.
+
     References
     ----------
-    1. Beer–Lambert law; Prahl, S. A., tabulated molar extinction spectra use this
-       base-10 convention (e.g. Prahl 1999, Oregon Medical Laser Center tables).
+    1. Beer–Lambert law, base-10 absorbance, μa = ln(10) A / L.
     """
     epsilon = np.asarray(epsilon_per_molar_per_cm, dtype=float)
     return LN10 * epsilon * float(concentration_mol_per_l) / 10.0

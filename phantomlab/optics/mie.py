@@ -150,11 +150,15 @@ def sphere_ensemble_optics(
     x = np.pi * (d * 1000.0)[None, :] * n_matrix[:, None] / wavelength[:, None]  # BH eq. 4.61, λ in the medium
     qext, qsca, gsca = efficiencies(m.ravel(), x.ravel())
     shape = (wavelength.size, d.size)
+    qext = np.asarray(qext, dtype=float).reshape(shape)
+    # a real index absorbs nothing: drop the rounding noise of Qext − Qsca (~1e-16 Qsca)
+    real = (m.imag == 0)
+    qext = np.where(real, np.asarray(qsca, dtype=float).reshape(shape), qext)
     return _average(
         wavelength,
         d,
         w,
-        np.asarray(qext, dtype=float).reshape(shape),
+        qext,
         np.asarray(qsca, dtype=float).reshape(shape),
         np.asarray(gsca, dtype=float).reshape(shape),
         float(volume_fraction),
