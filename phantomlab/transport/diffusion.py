@@ -218,9 +218,11 @@ def srdr_diffusion_Kienle1997(
     :func:`srdr_diffusion_Farrell1992`; C1 = (1 − R_φ)/4, C2 = (1 − R_j)/2 from the Fresnel
     integrals (:func:`~phantomlab.transport.boundary.fluence_flux_coefficients_Kienle1997`).
 
-    Departure from the paper: the source strength is a′ (as in Farrell et al. 1992) so that
-    the two models differ only in how light crosses the surface; the paper's comparison of
-    the two boundary treatments is unaffected by this common factor.
+    Choice written down: the isotropic source has strength a′ (as in Farrell et al. 1992),
+    so that the two models differ only in how light crosses the surface.  If the paper's
+    own normalisation differs, absolute values differ from it by that factor; the
+    total-reflectance identity C1·2A + C2 = 1 at μa = 0 (energy conservation) holds with
+    this choice and the exact Fresnel integrals.
 
     Parameters
     ----------

@@ -44,6 +44,12 @@ def test_fresnel_total_internal_reflection_and_brewster():
     )
 
 
+def test_fresnel_arrays_and_nan():
+    r = fresnel_reflectance(cos_incident=np.array([1.0, 0.5, np.nan, 0.0]), n_from=1.0, n_to=1.5)
+    assert r.shape == (4,)
+    assert r[0] == pytest.approx(0.04) and 0.04 < r[1] < 1 and np.isnan(r[2]) and r[3] == 1.0
+
+
 def test_fresnel_reciprocity():
     # Stokes relations: an interface reflects the same fraction from either side along
     # Snell-conjugate directions.
