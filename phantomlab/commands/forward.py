@@ -288,6 +288,12 @@ def _monte_carlo(args, estimator: str) -> CommandResult:
         raise InputError(f"the Monte Carlo engine is not available here ({exc})") from None
 
     count, lists, mus, g = _slab_scattering(args)
+    if args.incidence != "collimated":
+        raise InputError("--kind mc models a normally incident pencil beam; --incidence diffuse is for --kind slab")
+    if args.n_slide is not None and args.slides != "both":
+        raise InputError("--kind mc puts a slide on every face; --slides top/bottom is for --kind slab")
+    if _number(args.slide_mua_per_mm, "--slide-mua-per-mm") != 0.0:
+        raise InputError("--kind mc takes clear slides only; --slide-mua-per-mm is for --kind slab")
     if args.photons is None:
         raise InputError("--kind mc needs --photons N (photons launched per entry)")
     thickness = None if args.thickness_mm is None else _number(args.thickness_mm, "--thickness-mm")

@@ -119,6 +119,8 @@ def test_readable_table_names_units(capsys):
          "--fx-per-mm: cannot read"),
         (["--kind", "mc", "--mua-per-mm", "0.1", "--mus-per-mm", "1", "--g", "0.5", "--n", "1.4"],
          "--kind mc needs --photons"),
+        (["--kind", "mc", "--mua-per-mm", "0.1", "--mus-per-mm", "1", "--g", "0.5", "--n", "1.4",
+          "--photons", "10", "--n-slide", "1.5", "--slides", "top"], "--slides top/bottom is for --kind slab"),
     ],
 )
 def test_bad_input_one_line(capsys, argv, match):
