@@ -266,3 +266,106 @@ def attach_measurement(
                 recorded_by=recorded_by)
         measurement_id = measurement.id
     return measurement_id, result
+
+
+# ---- recalibration ---------------------------------------------------------------------------------
+
+
+def gather_observations(store, *, recipes_folder=None):
+    """Every characterised batch's newest fits as observations, with the priors of its lots.
+
+    A batch counts when it has the amounts actually dispensed and at least one fitted
+    measurement; each fitted measurement is one observation.  The priors are the stock-file
+    potencies kept in the lot snapshots (not an earlier calibration: every recalibration
+    starts from the priors and uses the whole history once).
+
+    Returns
+    -------
+    (priors, observations, used) where ``used`` lists ``{"batch", "measurement", "fit"}``.
+    """
+    from phantomlab.calibration.observations import (  # layer 3
+        observation_from_fit,
+        priors_from_recipe,
+        volume_fractions_from_amounts,
+    )
+    from phantomlab.store import batch_lots, fits_of, list_batches, measurements_of, plan_of  # layer 4
+
+    found = []
+    with store.reading() as session:
+        for batch in list_batches(session):
+            if not batch.actual_amounts:
+                continue
+            fits = []
+            for measurement in measurements_of(session, batch):
+                rows = sorted(fits_of(session, measurement), key=lambda f: (f.recorded_at, f.id))
+                if rows:
+                    fits.append((measurement.id, rows[-1].id, dict(rows[-1].results)))
+            if not fits:
+                continue
+            lots = batch_lots(session, batch)
+            found.append({
+                "code": batch.code, "amounts": list(batch.actual_amounts),
+                "volume_ml": float(plan_of(session, batch).plan["batch_volume_ml"]),
+                "lots": {k: row.lot for k, row in lots.items()},
+                "priors": {(k, row.lot): (row.potency_prior, row.potency_sd_prior) for k, row in lots.items()
+                           if row.potency_prior is not None and row.potency_sd_prior},
+                "fits": fits,
+            })
+    priors: dict = {}
+    observations, used = [], []
+    for item in found:
+        recipe = batch_recipe(store, item["code"], recipes_folder=recipes_folder)
+        fractions = volume_fractions_from_amounts(recipe, amounts=item["amounts"], batch_volume_ml=item["volume_ml"])
+        for prior in priors_from_recipe(recipe, lots=item["lots"], overrides=item["priors"]):
+            priors.setdefault(prior.ident, prior)
+        for measurement_id, fit_id, fit in item["fits"]:
+            observations.append(observation_from_fit(recipe, batch_id=item["code"], volume_fractions=fractions,
+                                                     fit=fit, lots=item["lots"]))
+            used.append({"batch": item["code"], "measurement": measurement_id, "fit": fit_id})
+    return list(priors.values()), observations, used
+
+
+def recalibrate_from_log(store, *, recipes_folder=None, recorded_by: str | None = None):
+    """Estimate every stock lot's potency from the whole batch log and record the result.
+
+    Returns
+    -------
+    (PotencyUpdate, calibration state id)
+    """
+    from phantomlab.calibration import update_potencies  # layer 3
+    from phantomlab.errors import InputError
+    from phantomlab.store import record_calibration  # layer 4
+
+    priors, observations, used = gather_observations(store, recipes_folder=recipes_folder)
+    if not observations:
+        raise InputError("no batch has both the amounts dispensed and a fitted measurement; nothing to calibrate from")
+    update = update_potencies(priors, observations)
+    potencies = {stock: (float(p), float(sd), lot)
+                 for (stock, lot), p, sd in zip(update.stocks, update.potency, update.potency_sd)}
+    with store.transaction() as session:
+        state = record_calibration(
+            session, potencies=potencies,
+            computed_from={"batches": sorted({u["batch"] for u in used}), "fits": used},
+            method="Bayesian linear least squares (update_potencies)", recorded_by=recorded_by,
+        )
+        state_id = state.id
+    return update, state_id
+
+
+def calibration_history(store) -> list[dict]:
+    """Every calibration state (oldest first) with its potencies: one row per stock lot."""
+    from phantomlab.store import calibration_potencies  # layer 4
+    from phantomlab.store.history import current
+    from phantomlab.store.schema import CalibrationState
+
+    rows = []
+    with store.reading() as session:
+        states = sorted(session.scalars(current(session, CalibrationState)), key=lambda s: (s.recorded_at, s.id))
+        for number, state in enumerate(states, start=1):
+            batches = (state.computed_from or {}).get("batches", [])
+            for potency in calibration_potencies(session, state):
+                rows.append({"calibration": number, "recorded at (UTC)": state.recorded_at,
+                             "stock": potency.stock_key, "lot": potency.lot or "",
+                             "potency": potency.potency, "potency_sd": potency.potency_sd,
+                             "from batches": ", ".join(batches)})
+    return rows

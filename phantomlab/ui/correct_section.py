@@ -1,0 +1,227 @@
+"""The calibration half of "Fit and correct" (layer 5): recalibrate, corrected plan, top-up.
+
+* Recalibrate: the calibration layer's Bayesian update of every stock lot's potency from
+  the whole batch log; each factor before (the stock file's prior) and after, the batches
+  that moved it, and its history across the recorded calibrations.
+* Correct: for a batch of the log, the next batch's plan with the calibrated potencies
+  (against the batch's own plan), its sheet and a button to save it; or, for a liquid batch
+  still on the bench, the add-only top-up that brings it to the target.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import streamlit as st
+
+from phantomlab.ui import services
+from phantomlab.ui.plots import Series, line_figure, show_figure
+from phantomlab.ui.widgets import call_layer, quantity_field, show_warnings
+from phantomlab.ui.workspace import Workspace
+
+__all__ = ["recalibrate_section", "correction_section"]
+
+
+# ---- recalibration --------------------------------------------------------------------------------
+
+
+def _update_table(update) -> pd.DataFrame:
+    rows = []
+    for k, (stock, lot) in enumerate(update.stocks):
+        moved = update.moved_by.get((stock, lot), [])
+        movers = ", ".join(f"{m['batch_id']} ({m['shift']:+.3f})" for m in moved if abs(m.get("shift", 0)) > 0)
+        rows.append({
+            "stock": stock, "lot": lot or "",
+            "potency before": f"{update.prior_potency[k]:.3f} ± {update.prior_sd[k]:.3f}",
+            "potency after": f"{update.potency[k]:.3f} ± {update.potency_sd[k]:.3f}",
+            "change [%]": 100.0 * (update.potency[k] / update.prior_potency[k] - 1.0),
+            "moved by (batch, shift)": movers or "no batch informs it",
+        })
+    return pd.DataFrame(rows)
+
+
+def _history_plot(history: list[dict]) -> None:
+    if not history:
+        st.caption("No calibration recorded yet.")
+        return
+    frame = pd.DataFrame(history)
+    series = [Series(f"{stock} (lot {group['lot'].iloc[0] or '-'})", group["calibration"].to_numpy(float),
+                     group["potency"].to_numpy(float), sd=group["potency_sd"].to_numpy(float),
+                     mode="lines+markers")
+              for stock, group in frame.groupby("stock")]
+    figure = line_figure(series, x_label="calibration number [count]", y_label="potency factor [dimensionless]",
+                         title="Potency of each stock lot across calibrations")
+    show_figure(figure, table=frame, file_stem="potency-history", key="calibrate.history")
+    st.dataframe(frame, hide_index=True, width="stretch")
+
+
+def recalibrate_section(workspace: Workspace, store) -> None:
+    from phantomlab.ui.recording import calibration_history, recalibrate_from_log
+
+    st.subheader("Recalibrate the stocks")
+    st.caption("Every characterised batch (amounts dispensed + a fitted measurement) informs the "
+               "potency of the stock lots it used; the stock file's potency and SD are the prior.")
+    by = st.text_input("Recorded by", key="calibrate.by")
+    if st.button("Recalibrate from the batch log", type="primary", key="calibrate.run"):
+        with st.spinner("Updating the potencies…"):
+            outcome = call_layer("Recalibrating", recalibrate_from_log, store,
+                                 recipes_folder=workspace.recipes_folder, recorded_by=by.strip() or None)
+        if outcome.ok:
+            st.session_state["calibrate.last"] = outcome.value
+    last = st.session_state.get("calibrate.last")
+    if last:
+        update, state_id = last
+        st.success(f"Calibration recorded (state {state_id}) from {len(update.batches)} batch(es); "
+                   f"reduced χ² {update.chi2_red:.3g}. Plans now use these potencies.")
+        st.dataframe(_update_table(update), hide_index=True, width="stretch")
+    st.markdown("**History**")
+    found = call_layer("Reading the calibrations", calibration_history, store)
+    _history_plot(found.value or [])
+
+
+# ---- correction -------------------------------------------------------------------------------------
+
+
+def _next_recipe(workspace: Workspace, store, code: str):
+    """The batch's recipe on today's shelf (the lots now on it), and the calibrated potencies."""
+    from phantomlab.ui.recording import batch_recipe
+
+    recipe = batch_recipe(store, code, recipes_folder=workspace.recipes_folder)
+    shelf, origin = services.load_page_shelf(workspace, store)
+    missing = [k for k in (recipe.matrix_key, *recipe.stock_keys) if k not in shelf]
+    if not missing:
+        recipe = recipe.with_shelf(shelf)
+    potencies = services.calibrated_potencies(store, recipe.shelf)
+    return recipe, potencies, origin, missing
+
+
+def _dose_comparison(previous: dict, plan) -> pd.DataFrame:
+    before = {d["stock"]: d for d in previous.get("doses", [])}
+    rows = []
+    for dose in plan.doses:
+        old = before.get(dose.stock, {})
+        old_volume = old.get("volume_ml")
+        rows.append({
+            "stock": dose.stock, "lot": dose.lot,
+            "previous batch [mL undiluted]": old_volume,
+            "next batch [mL undiluted]": dose.volume_ml,
+            "change [%]": (100.0 * (dose.volume_ml / old_volume - 1.0)) if old_volume else np.nan,
+            "potency used": f"{dose.potency:.3f} ± {dose.potency_sd:.3f} ({dose.potency_source})",
+        })
+    return pd.DataFrame(rows)
+
+
+def _plan_plots(plan) -> None:
+    target = plan.target
+    predicted = plan.curve if plan.curve is not None else plan.predicted
+    columns = st.columns(2)
+    for column, quantity, symbol in ((columns[0], "mua", "μa"), (columns[1], "musp", "μs′")):
+        wanted = getattr(target, f"{quantity}_per_mm")
+        has = np.isfinite(wanted)
+        series = [Series(f"next batch {symbol}", predicted.wavelength_nm, getattr(predicted, f"{quantity}_per_mm"),
+                         sd=getattr(predicted, f"{quantity}_sd_per_mm"))]
+        if np.any(has):
+            series.append(Series(f"target {symbol}", target.wavelength_nm[has], wanted[has], mode="markers"))
+        figure = line_figure(series, x_label="wavelength [nm]", y_label=f"{symbol} [1/mm]",
+                             title=f"Next batch: predicted {symbol}")
+        table = pd.DataFrame({"wavelength_nm": predicted.wavelength_nm,
+                              f"{quantity}_per_mm": getattr(predicted, f"{quantity}_per_mm"),
+                              f"{quantity}_sd_per_mm": getattr(predicted, f"{quantity}_sd_per_mm")})
+        with column:
+            show_figure(figure, table=table, file_stem=f"next-batch-{quantity}", key=f"correct.{quantity}")
+
+
+def _top_up_section(workspace: Workspace, store, batch: dict, recipe, potencies) -> None:
+    from phantomlab.calibration.correction import top_up  # layer 3
+
+    st.markdown("**Add-only top-up of this batch** (liquid batches still on the bench)")
+    fits = [m for m in batch["measurements"] if m["fits"]]
+    if not fits:
+        st.caption("The batch has no fitted measurement yet.")
+        return
+    if recipe.by_mass or recipe.preparation.kind != "liquid":
+        st.caption(f"This is a {recipe.preparation.kind} batch: a cast or set phantom cannot be topped up.")
+        return
+    latest = max(fits, key=lambda m: (m["recorded_at"], m["id"]))
+    fit = max(latest["fits"], key=lambda f: (f["recorded_at"], f["id"]))["results"]
+    c1, c2 = st.columns(2)
+    volume = quantity_field("Volume in the vessel now (with unit: 480 mL)", kind="volume",
+                            default=f"{batch['plan'].get('batch_volume_ml', 500):g} mL",
+                            key=f"correct.topup_volume.{batch['code']}", minimum=0.0, container=c1)
+    room = quantity_field("Room left in the vessel (with unit: 50 mL)", kind="volume", default="100 mL",
+                          key=f"correct.topup_room.{batch['code']}", minimum=0.0, container=c2)
+    if volume is None or room is None:
+        return
+    st.caption(f"From the newest fit of {latest['file_name']} (measurement {latest['id']}).")
+    outcome = call_layer("Planning the top-up", top_up, recipe, current_volume_ml=volume, measured=fit,
+                         potencies=potencies or None, max_added_ml=room, show=False)
+    if not outcome.ok:
+        st.error(outcome.error)
+        return
+    plan = outcome.value
+    show_warnings(list(plan.warnings) + outcome.warnings)
+    rows = [{"add": a["stock"], "volume [mL]": a["volume_ml"], "mass [g]": a.get("mass_g"),
+             "note": "below the smallest dispensable volume" if a.get("below_min_dispense") else ""}
+            for a in plan.additions]
+    rows.append({"add": f"{plan.diluent} (diluent)", "volume [mL]": plan.diluent_volume_ml, "mass [g]": None,
+                 "note": ""})
+    st.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch")
+    errors = plan.relative_error()
+    st.dataframe(pd.DataFrame({
+        "wavelength [nm]": plan.wavelength_nm,
+        "μa now vs target [%]": 100 * errors["mua_before"], "μa after [%]": 100 * errors["mua_after"],
+        "μs′ now vs target [%]": 100 * errors["musp_before"], "μs′ after [%]": 100 * errors["musp_after"],
+    }), hide_index=True, width="stretch")
+    st.caption(f"Final volume {plan.final_volume_ml:.4g} mL. Stir well and measure again before use.")
+
+
+def correction_section(workspace: Workspace, store) -> None:
+    from phantomlab.ui.batches_page import read_log
+    from phantomlab.ui.design_page import _doses_table, _sheet_downloads
+    from phantomlab.ui.recording import record_planned_batch
+
+    st.subheader("Correct the next batch")
+    loaded = call_layer("Reading the batch log", read_log, store)
+    batches = [b for b in (loaded.value or []) if not b["retracted"]]
+    if not batches:
+        st.info("No batch in the log yet.")
+        return
+    codes = [b["code"] for b in batches]
+    code = st.selectbox("From batch", codes, index=len(codes) - 1, key="correct.batch",
+                        format_func=lambda c: f"{c} · {next(b['recipe'] for b in batches if b['code'] == c)}")
+    batch = next(b for b in batches if b["code"] == code)
+    found = call_layer("Rebuilding the recipe", _next_recipe, workspace, store, code)
+    if not found.ok:
+        return
+    recipe, potencies, origin, missing = found.value
+    if missing:
+        st.warning(f"Not on today's shelf: {', '.join(missing)}; planning with the lots the batch used.")
+    if not potencies:
+        st.info("No calibrated potency for the lots on the shelf yet: recalibrate first, or the plan "
+                "uses the stock file's potencies.")
+    next_tab, topup_tab = st.tabs(["Next batch", "Top-up of this batch"])
+    with next_tab:
+        from phantomlab.calibration.correction import corrected_plan  # layer 3
+
+        with st.spinner("Solving the corrected plan…"):
+            solved = call_layer("Solving the corrected plan", corrected_plan, recipe, potencies=potencies)
+        if solved.ok:
+            plan = solved.value
+            for limit in plan.binding_limits:
+                st.error(f"The target cannot be met: {limit.message}")
+            st.dataframe(_dose_comparison(batch["plan"], plan), hide_index=True, width="stretch")
+            _plan_plots(plan)
+            with st.expander("Full amounts of the next batch"):
+                st.dataframe(_doses_table(plan), hide_index=True, width="stretch")
+            _sheet_downloads(plan, batch_id=None, key="correct.sheet")
+            if st.button("Save the corrected plan as a new batch", type="primary", key="correct.save"):
+                saved = call_layer("Saving the batch", record_planned_batch, store, plan, potencies=potencies,
+                                   origin=origin, notes=f"corrected after batch {code}")
+                if saved.ok:
+                    st.session_state["correct.saved"] = saved.value
+            if st.session_state.get("correct.saved"):
+                code_saved = st.session_state["correct.saved"]
+                st.success(f"Saved as batch **{code_saved}** (status: planned).")
+                _sheet_downloads(plan, batch_id=code_saved, key="correct.saved_sheet")
+    with topup_tab:
+        _top_up_section(workspace, store, batch, recipe, potencies)

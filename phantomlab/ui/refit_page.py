@@ -1,0 +1,315 @@
+"""Page "Fit and correct": refit a measurement, recalibrate the stocks, correct the next batch.
+
+Flows:
+
+* choose a batch and one of its measurements (or upload a file), choose the forward model
+  and fit (the calibration layer); see the data with the fitted model and the normalised
+  residuals, and the fitted μa and μs′ with their SD against the batch's target; keep the
+  fit in the batch log.  A Monte Carlo model needs a baseline: building one shows a progress
+  indicator, and the baseline is kept for later fits;
+* recalibrate the stock potencies from the batch log: each factor before and after, the
+  batches that moved it, and its history across calibrations;
+* the corrected plan of the next batch with the calibrated potencies (sheet, save as a new
+  batch), or for a liquid batch still on the bench an add-only top-up;
+* the caution for lasers and bright sources used in characterisation.
+"""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import streamlit as st
+
+from phantomlab.errors import InputError
+from phantomlab.ui import services
+from phantomlab.ui.cautions import show_light_source_caution
+from phantomlab.ui.plots import Series, line_figure, show_figure
+from phantomlab.ui.widgets import call_layer, show_warnings
+from phantomlab.ui.workspace import Workspace
+
+__all__ = ["show"]
+
+TITLE = "Fit and correct"
+UPLOAD = "(upload a file, not stored)"
+AXIS_LABELS = {"srdr": ("source–detector distance ρ [mm]", "reflectance R(ρ) [1/mm²]"),
+               "sfdi": ("spatial frequency fx [1/mm]", "reflectance R(fx) [dimensionless]")}
+
+
+# ---- the measurement to fit -------------------------------------------------------------------
+
+
+def _measurement_choices(store) -> list[dict]:
+    from phantomlab.ui.batches_page import read_log
+
+    out = []
+    for batch in read_log(store):
+        for m in batch["measurements"]:
+            out.append({"label": f"batch {batch['code']} · {m['file_name']} ({m['kind']}, id {m['id']})",
+                        "batch": batch, "measurement": m})
+    return out
+
+
+def _stored_file(store, measurement_id: int) -> tuple[bytes, str | None]:
+    from phantomlab.store import get_measurement  # layer 4
+
+    with store.reading() as session:
+        row = get_measurement(session, measurement_id)
+        return bytes(row.raw_content), row.metadata_toml
+
+
+def _read(text: str, kind: str, sidecar: dict, options: dict):
+    from phantomlab.calibration import read_measurement  # layer 3
+
+    return read_measurement(text, kind=kind, sidecar=sidecar, **options)
+
+
+def _baseline_folder(workspace: Workspace) -> Path:
+    base = Path(workspace.demo_file).parent if workspace.is_demo else Path.cwd()
+    folder = base / "baselines"
+    folder.mkdir(parents=True, exist_ok=True)
+    return folder
+
+
+def _baseline_section(workspace: Workspace, n: float):
+    """Choose or build the Monte Carlo baseline for an 'mc' fit; returns a Baseline or None."""
+    from phantomlab.transport.montecarlo import build_baseline, load_baseline  # layer 2
+
+    folder = _baseline_folder(workspace)
+    files = sorted(p.name for p in folder.glob("*.npz"))
+    st.markdown("**Monte Carlo baseline** — one simulation, re-weighted for every μa and μs′ of the fit.")
+    chosen = st.selectbox("Baseline file", files + ["(build a new one)"], key="refit.baseline")
+    if chosen != "(build a new one)":
+        found = call_layer("Loading the baseline", load_baseline, folder / chosen)
+        return found.value
+    c1, c2, c3, c4 = st.columns(4)
+    photons = c1.number_input("Photons [count]", min_value=10_000, max_value=20_000_000, value=200_000,
+                              step=50_000, key="refit.photons")
+    g = c2.number_input("Anisotropy g [dimensionless]", min_value=0.0, max_value=0.95, value=0.8, step=0.05,
+                        key="refit.baseline_g")
+    mus = c3.number_input("Reference μs [1/mm]", min_value=0.1, value=10.0, step=1.0, key="refit.baseline_mus")
+    mua = c4.number_input("Reference μa [1/mm] (smallest μa/μs it can answer)", min_value=1e-5, value=0.001,
+                          step=0.001, format="%.4g", key="refit.baseline_mua")
+    if not st.button("Build the baseline", key="refit.build"):
+        return None
+    target = folder / f"baseline-g{g:g}-n{n:g}-{int(photons)}ph.npz"
+    with st.status(f"Building a Monte Carlo baseline with {int(photons):,} photons…", expanded=True) as status:
+        status.write("Compiling the engine on first use, then simulating; this takes a while on a laptop.")
+        started = time.monotonic()
+        built = call_layer("Building the baseline", build_baseline, mua_per_mm=float(mua), mus_per_mm=float(mus),
+                           g=float(g), n=float(n), photons=int(photons), seed=1)
+        if not built.ok:
+            status.update(label="Baseline not built", state="error")
+            return None
+        built.value.save(target)
+        status.update(label=f"Baseline built in {time.monotonic() - started:.1f} s and kept as {target.name}",
+                      state="complete")
+    return built.value
+
+
+def _fit(text: str, kind: str, sidecar: dict, model: str, options: dict, baseline, power_law: bool):
+    from phantomlab.calibration import fit_measurement_file  # layer 3
+    from phantomlab.calibration.spectral import SpectralConstraint
+
+    constraint = SpectralConstraint(musp_power_law=True) if power_law else None
+    return fit_measurement_file(text, kind=kind, sidecar=sidecar, model=model, baseline=baseline,
+                                constraint=constraint, **options)
+
+
+# ---- showing a fit ------------------------------------------------------------------------------
+
+
+def _forward(kind: str, model: str, measurement, dense, baseline, n, n_outside):
+    if kind == "srdr":
+        from phantomlab.calibration.fit_srdr import srdr_forward
+
+        return srdr_forward(model=model, rho_mm=dense, n=n, n_outside=n_outside, baseline=baseline)
+    from phantomlab.calibration.fit_sfdi import sfdi_forward
+
+    return sfdi_forward(model=model, fx_per_mm=dense, n=n, n_outside=n_outside, baseline=baseline)
+
+
+def _data_and_model(measurement, result, *, model: str, baseline, shown_wavelengths) -> None:
+    kind = measurement.kind
+    meta = measurement.metadata
+    wavelength = np.asarray(measurement.wavelength_nm, float)
+    index = [int(np.argmin(np.abs(wavelength - w))) for w in shown_wavelengths]
+    if kind in AXIS_LABELS:
+        x_label, y_label = AXIS_LABELS[kind]
+        axis = np.asarray(measurement.axis, float)
+        dense = np.linspace(axis.min(), axis.max(), 80)
+        n = meta.n if meta.n is not None else 1.33
+        forward = _forward(kind, model, measurement, dense, baseline, n, meta.n_outside or 1.0)
+        curves = np.asarray(forward(result.mua_per_mm[index], result.musp_per_mm[index]), float)
+        if result.scale_factor is not None:
+            curves = curves * np.asarray(result.scale_factor, float)[index][:, None]
+        series, rows = [], []
+        for row, i in enumerate(index):
+            data = measurement.values[i]
+            sd = None if measurement.sd is None else measurement.sd[i]
+            series.append(Series(f"data {wavelength[i]:g} nm", axis, data, sd=sd, mode="markers"))
+            series.append(Series(f"model {wavelength[i]:g} nm", dense, curves[row], dash="dot"))
+            for a, d in zip(axis, data):
+                rows.append({"wavelength_nm": wavelength[i], "axis": a, "data": d})
+        figure = line_figure(series, x_label=x_label, y_label=y_label, log_y=kind == "srdr",
+                             title="Data and fitted model", height=380)
+        residual_series = [Series(f"{wavelength[i]:g} nm", axis, result.residuals[i], mode="lines+markers")
+                           for i in index]
+        residual_x = x_label
+    elif kind == "slab":
+        series = [Series("data total reflectance", wavelength, measurement.values[:, 0], mode="markers"),
+                  Series("data total transmittance", wavelength, measurement.values[:, 1], mode="markers")]
+        rows = [{"wavelength_nm": w, "total_reflectance": r, "total_transmittance": t}
+                for w, (r, t) in zip(wavelength, measurement.values)]
+        residuals = np.asarray(result.residuals, float).reshape(wavelength.size, -1)
+        figure = line_figure(series, x_label="wavelength [nm]", y_label="R, T [dimensionless]",
+                             title="Measured slab reflectance and transmittance")
+        residual_series = [Series("reflectance", wavelength, residuals[:, 0], mode="lines+markers"),
+                           Series("transmittance", wavelength, residuals[:, 1], mode="lines+markers")]
+        residual_x = "wavelength [nm]"
+    else:
+        st.caption("Optics measured by another instrument: the fit takes them as they are.")
+        return
+    left, right = st.columns([3, 2])
+    with left:
+        show_figure(figure, table=pd.DataFrame(rows), file_stem="fit-data-and-model", key="refit.data")
+    with right:
+        residual_figure = line_figure(residual_series, x_label=residual_x,
+                                      y_label="(model − data) / SD [dimensionless]",
+                                      title="Normalised residuals", height=380)
+        residual_figure.add_hline(y=0, line_color="#4b4b4b")
+        table = pd.DataFrame({"wavelength_nm": np.repeat(wavelength, np.asarray(result.residuals).size // wavelength.size),
+                              "residual": np.asarray(result.residuals, float).ravel()})
+        show_figure(residual_figure, table=table, file_stem="fit-residuals", key="refit.residuals")
+
+
+def _against_target(result, target: dict | None) -> None:
+    wavelength = np.asarray(result.wavelength_nm, float)
+    columns = st.columns(2)
+    rows = {"wavelength_nm": wavelength}
+    for column, quantity, symbol in ((columns[0], "mua", "μa"), (columns[1], "musp", "μs′")):
+        value = np.asarray(getattr(result, f"{quantity}_per_mm"), float)
+        sd = np.asarray(getattr(result, f"{quantity}_sd_per_mm"), float)
+        rows[f"fitted_{quantity}_per_mm"] = value
+        rows[f"fitted_{quantity}_sd_per_mm"] = sd
+        series = [Series(f"fitted {symbol} ± 1 SD", wavelength, value, sd=np.where(np.isfinite(sd), sd, 0.0),
+                         mode="lines+markers")]
+        if target:
+            wanted = np.asarray([np.nan if v is None else v for v in target.get(f"{quantity}_per_mm", [])], float)
+            if wanted.size and np.any(np.isfinite(wanted)):
+                has = np.isfinite(wanted)
+                series.append(Series(f"target {symbol}", np.asarray(target["wavelength_nm"], float)[has],
+                                     wanted[has], mode="markers"))
+        figure = line_figure(series, x_label="wavelength [nm]", y_label=f"{symbol} [1/mm]",
+                             title=f"Fitted {symbol} against target")
+        with column:
+            show_figure(figure, table=pd.DataFrame(rows), file_stem=f"fitted-{quantity}", key=f"refit.fitted.{quantity}")
+
+
+def _fit_section(workspace: Workspace, store) -> None:
+    from phantomlab.calibration.fit_file import FIT_MODELS  # layer 3
+
+    st.subheader("Fit a measurement")
+    choices = call_layer("Reading the batch log", _measurement_choices, store).value or []
+    labels = [c["label"] for c in choices] + [UPLOAD]
+    picked = st.selectbox("Measurement", labels, index=0, key="refit.measurement")
+    target, batch, sidecar_text, measurement_row = None, None, None, None
+    if picked == UPLOAD:
+        c1, c2 = st.columns([1, 3])
+        kind = c1.selectbox("Kind", list(FIT_MODELS), key="refit.upload_kind")
+        upload = c2.file_uploader("Measurement file (CSV)", type=["csv"], key="refit.upload")
+        if upload is None:
+            st.info("Upload a measurement file to fit it.")
+            return
+        raw = upload.getvalue()
+    else:
+        choice = choices[labels.index(picked)]
+        batch, measurement_row = choice["batch"], choice["measurement"]
+        kind = measurement_row["kind"]
+        raw, sidecar_text = _stored_file(store, measurement_row["id"])
+        target = batch["plan"].get("target")
+    import tomllib
+
+    try:
+        sidecar = tomllib.loads(sidecar_text) if sidecar_text else {}
+    except tomllib.TOMLDecodeError as exc:
+        st.error(f"The stored metadata of this measurement is not valid TOML: {exc}")
+        return
+    c1, c2, c3, c4 = st.columns(4)
+    model = c1.selectbox("Forward model", FIT_MODELS[kind], key=f"refit.model.{kind}",
+                         help="diffusion: fast, poor within ~1 transport mean free path of the source; "
+                              "mc: a Monte Carlo lookup, good at all distances")
+    n = c2.number_input("Phantom refractive index n [dimensionless]", min_value=1.0, max_value=3.0,
+                        value=float(sidecar.get("n", 1.33)), step=0.01, key="refit.n")
+    power_law = c3.checkbox("μs′ as a power law across the band", key="refit.power_law",
+                            disabled=kind in ("slab", "optics"))
+    options: dict = {"n": float(n)}
+    if kind == "slab":
+        options["thickness_mm"] = c4.number_input("Slab thickness [mm]", min_value=0.01,
+                                                  value=float(sidecar.get("thickness_mm", 2.0)), step=0.1,
+                                                  key="refit.thickness")
+        options["g"] = c4.number_input("Anisotropy g assumed [dimensionless]", min_value=0.0, max_value=0.99,
+                                       value=float(sidecar.get("g", 0.8)), step=0.05, key="refit.g")
+    if kind == "optics":
+        options.pop("n")
+    baseline = None
+    if model == "mc":
+        baseline = _baseline_section(workspace, float(n))
+        if baseline is None:
+            st.info("Choose or build a baseline to fit with the Monte Carlo model.")
+            return
+    text = raw.decode("utf-8", "replace")
+    with st.spinner("Fitting…"):
+        fitted = call_layer("Fitting the measurement", _fit, text, kind, sidecar, model, options, baseline,
+                            bool(power_law), show=False)
+        read = call_layer("Reading the measurement", _read, text, kind, sidecar, options, show=False)
+    if not fitted.ok:
+        st.error(fitted.error)
+        return
+    result = fitted.value
+    show_warnings(result.warnings)
+    st.markdown(f"Model **{result.model}** · reduced χ² **{result.chi2_red:.3g}** · "
+                f"{result.wavelength_nm.size} wavelength(s)")
+    if read.ok:
+        measurement = read.value
+        wavelengths = list(np.asarray(measurement.wavelength_nm, float))
+        default = [wavelengths[i] for i in sorted({0, len(wavelengths) // 2, len(wavelengths) - 1})]
+        shown = st.multiselect("Wavelengths to show [nm]", wavelengths, default=default,
+                               key=f"refit.shown.{picked}", format_func=lambda w: f"{w:g} nm")
+        if shown:
+            _data_and_model(measurement, result, model=model, baseline=baseline, shown_wavelengths=shown)
+    _against_target(result, target)
+    if measurement_row is not None:
+        if st.button("Keep this fit in the batch log", key="refit.keep"):
+            kept = call_layer("Keeping the fit", _keep_fit, store, measurement_row["id"], result)
+            if kept.ok:
+                st.success(f"Fit kept with measurement {measurement_row['id']} of batch {batch['code']}.")
+
+
+def _keep_fit(store, measurement_id: int, result) -> int:
+    from phantomlab.store import add_fit, get_measurement  # layer 4
+
+    payload = result.to_json()
+    with store.transaction() as session:
+        row = add_fit(session, get_measurement(session, measurement_id), results=payload, model=result.model,
+                      covariance=payload.get("covariance_mua_musp"), warnings=list(result.warnings),
+                      chi2_red=None if not np.isfinite(result.chi2_red) else float(result.chi2_red))
+        return row.id
+
+
+def show(workspace: Workspace) -> None:
+    st.header(TITLE)
+    show_light_source_caution()
+    store = services.store_for(workspace)
+    fit_tab, calibrate_tab, correct_tab = st.tabs(
+        ["Fit a measurement", "Recalibrate the stocks", "Correct the next batch"])
+    with fit_tab:
+        _fit_section(workspace, store)
+    from phantomlab.ui import correct_section
+
+    with calibrate_tab:
+        correct_section.recalibrate_section(workspace, store)
+    with correct_tab:
+        correct_section.correction_section(workspace, store)
