@@ -200,3 +200,31 @@ def test_bad_input_refused(kwargs, match):
     arguments.update(kwargs)
     with pytest.raises(InputError, match=match):
         slab_reflectance_transmittance(**arguments)
+
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+
+@settings(max_examples=25, deadline=None)
+@given(
+    mua=st.floats(0.0, 5.0),
+    mus=st.floats(0.0, 50.0),
+    g=st.floats(-0.5, 0.95),
+    d=st.floats(0.0, 3.0),
+    n=st.floats(1.0, 1.6),
+    slide=st.sampled_from([None, 1.52, (1.52, None)]),
+    incidence=st.sampled_from(["collimated", "diffuse"]),
+)
+def test_fractions_are_physical_and_absorption_only_removes_light(mua, mus, g, d, n, slide, incidence):
+    # Exact properties: every fraction in [0, 1], R + T + A = 1, and adding absorption can
+    # only lower both R and T (each photon path's weight falls as e^(−μa L)).
+    options = dict(mus_per_mm=mus, g=g, thickness_mm=d, n=n, n_slide=slide, incidence=incidence)
+    base = slab_reflectance_transmittance(mua_per_mm=np.array([mua, mua + 0.5]), **options)
+    for name in ("total_reflectance", "total_transmittance", "specular_reflectance",
+                 "unscattered_transmittance", "absorbed_fraction"):
+        values = getattr(base, name)
+        assert np.all(values >= -1e-9) and np.all(values <= 1 + 1e-9), name
+    assert base.total_reflectance[1] <= base.total_reflectance[0] + 1e-9
+    assert base.total_transmittance[1] <= base.total_transmittance[0] + 1e-9
+    assert base.unscattered_transmittance[0] <= base.total_transmittance[0] + 1e-9
