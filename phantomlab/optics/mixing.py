@@ -16,13 +16,16 @@ from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.optics.intrinsic import IntrinsicOptics
 from phantomlab.optics.properties import OpticalProperties
 
-__all__ = ["mix_optics", "particle_volume_fraction", "INDEPENDENT_SCATTERING_LIMIT"]
+__all__ = ["mix_optics", "particle_volume_fraction", "INDEPENDENT_SCATTERING_LIMIT", "EMULSION_LINEAR_LIMIT"]
 
 #: Particle volume fraction above which scattering no longer adds linearly (dependent
 #: scattering).  FIELD notes quote Aernouts et al. 2014 (Opt. Express 22:6086) for lipid
 #: emulsions at ≈10 % v/v; applying the same limit to every scatterer is common practice,
 #: no source.
 INDEPENDENT_SCATTERING_LIMIT = 0.10
+#: Volume fraction of a lipid-emulsion stock in the mix above which its scattering grows
+#: less than linearly: ≈10 % v/v (FIELD notes, after Aernouts et al. 2014).
+EMULSION_LINEAR_LIMIT = 0.10
 
 
 def particle_volume_fraction(components: Sequence[tuple[IntrinsicOptics, float]]) -> float:
@@ -50,7 +53,8 @@ def mix_optics(*, matrix_optics: IntrinsicOptics, components: Sequence[tuple[Int
     Notes
     -----
     μa = (1 − Σf) μa,m + Σ f_i μa,i;  μs = Σ f_i μs,i;  g = Σ f_i μs,i g_i / μs (0 where
-    μs = 0).  Above :data:`INDEPENDENT_SCATTERING_LIMIT` of particle volume fraction a
+    μs = 0).  Above :data:`INDEPENDENT_SCATTERING_LIMIT` of particle volume fraction, and
+    for an emulsion stock above :data:`EMULSION_LINEAR_LIMIT` v/v of the stock, a
     :class:`PhantomlabWarning` names the value: scattering then grows less than linearly and
     no packing correction is applied.
 
@@ -89,6 +93,14 @@ def mix_optics(*, matrix_optics: IntrinsicOptics, components: Sequence[tuple[Int
         raise InputError(f"mix_optics: the stock volume fractions add up to {total:.4g} > 1")
     mua += (1.0 - total) * matrix_optics.mua_per_mm
     g = np.divide(gmus, mus, out=np.zeros_like(mus), where=mus > 0)
+    for optics, fraction in checked:
+        if getattr(optics.stock, "kind", None) == "emulsion" and fraction > EMULSION_LINEAR_LIMIT:
+            warnings.warn(
+                f"emulsion {optics.stock_key} at {fraction:.3g} v/v, above the ≈{EMULSION_LINEAR_LIMIT:g} v/v where "
+                "its scattering grows less than linearly (Aernouts et al. 2014); predicted μs is too high",
+                PhantomlabWarning,
+                stacklevel=2,
+            )
     particles = particle_volume_fraction(checked)
     if particles > INDEPENDENT_SCATTERING_LIMIT:
         warnings.warn(
