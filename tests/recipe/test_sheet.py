@@ -1,0 +1,151 @@
+"""Mixing sheets: every dose, pre-dilution, caution and the closing line are on the sheet;
+the HTML parses (html.parser, standard library) and its SVG is well-formed XML."""
+
+import csv
+import datetime as dt
+import io
+import re
+import xml.etree.ElementTree as ET
+from html.parser import HTMLParser
+from pathlib import Path
+
+import pytest
+
+from phantomlab.materials import HAZARD_KEYS
+from phantomlab.recipe import load_recipe, solve
+from phantomlab.recipe.cautions import CLOSING_LINE, cautions_for
+from phantomlab.recipe.procedure import amount_lines, format_amount
+from phantomlab.recipe.sheet import DRAFT_MARK, G_NOTE, render_sheet_csv, render_sheet_html, sheet_json
+
+from recipe_synthetic import forward_target, synthetic_recipe, synthetic_table
+
+RECIPES = Path(__file__).resolve().parents[2] / "recipes"
+VOID = {"meta", "br", "img", "hr", "input", "link", "col", "area", "base", "embed", "source", "track", "wbr"}
+
+
+class _Checker(HTMLParser):
+    """Collects text and checks that every non-void element is closed in order."""
+
+    def __init__(self):
+        super().__init__()
+        self.stack, self.text, self.errors = [], [], []
+        self.svg = 0
+
+    def handle_starttag(self, tag, attrs):
+        if tag not in VOID:
+            self.stack.append(tag)
+        if tag == "svg":
+            self.svg += 1
+
+    def handle_startendtag(self, tag, attrs):
+        pass
+
+    def handle_endtag(self, tag):
+        if not self.stack or self.stack[-1] != tag:
+            self.errors.append(f"unexpected </{tag}> with open {self.stack[-3:]}")
+        else:
+            self.stack.pop()
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+
+def _parse(html):
+    checker = _Checker()
+    checker.feed(html)
+    checker.close()
+    assert checker.errors == [] and checker.stack == []
+    return " ".join(" ".join(checker.text).split())
+
+
+@pytest.fixture(scope="module", params=["demo-nir-liquid", "demo-silicone", "demo-gel-g"])
+def demo_plan(request):
+    return solve(load_recipe(RECIPES / f"{request.param}.toml"))
+
+
+def test_sheet_holds_every_dose_predilution_caution(demo_plan):
+    html = render_sheet_html(demo_plan)
+    text = _parse(html)
+    assert DRAFT_MARK in text and CLOSING_LINE in text and G_NOTE in text
+    assert demo_plan.recipe.name in text and demo_plan.recipe.content_hash[:12] in text
+    for line in amount_lines(demo_plan):
+        assert f"{line.text}" in text and line.tolerance_text in text
+    used = [d for d in demo_plan.doses if d.used]
+    assert used and all(d.stock in text for d in used)
+    for dose in used:
+        if dose.dilution:
+            for step in dose.dilution.steps:
+                assert step.label in text
+                assert format_amount(step.source_amount, dose.dilution.unit) in text
+                assert format_amount(step.diluent_amount, dose.dilution.unit) in text
+    stocks = [demo_plan.recipe.matrix] + [demo_plan.recipe.stock(d.stock) for d in used]
+    for stock in stocks:
+        assert stock.lot in text
+        for key in stock.hazards:
+            assert HAZARD_KEYS[key] in text
+    for caution in cautions_for(stocks=stocks, preparation_kind=demo_plan.recipe.preparation.kind):
+        assert caution.text in text
+    # one empty "actual" cell per amount line
+    assert html.count("<td class='actual'></td>") >= len(amount_lines(demo_plan))
+
+
+def test_svg_is_well_formed_and_has_both_spectra(demo_plan):
+    html = render_sheet_html(demo_plan)
+    svg = re.search(r"<svg.*?</svg>", html, re.S).group(0)
+    root = ET.fromstring(svg)
+    ns = "{http://www.w3.org/2000/svg}"
+    assert root.tag == f"{ns}svg"
+    assert len(root.findall(f".//{ns}polyline[@class='predicted']")) == 2
+    targets = root.findall(f".//{ns}circle[@class='target']")
+    t = demo_plan.target
+    assert len(targets) == int((t.mua_per_mm == t.mua_per_mm).sum() + (t.musp_per_mm == t.musp_per_mm).sum())
+
+
+def test_preparation_steps_on_sheets():
+    gel = solve(load_recipe(RECIPES / "demo-gel-g.toml"))
+    text = _parse(render_sheet_html(gel))
+    assert "Heat to 50 °C" in text and "Cool to 38 °C" in text and "set at 4 °C for 12 h" in text
+    silicone = solve(load_recipe(RECIPES / "demo-silicone.toml"))
+    text = _parse(render_sheet_html(silicone))
+    assert "10:1 base to curing agent by mass" in text
+    assert "Degas for 15 min at 5 kPa" in text and "cure 4 h at 60 °C" in text
+    base, agent = silicone.matrix.parts
+    assert format_amount(base[1], "g") in text and format_amount(agent[1], "g") in text
+
+
+def test_batch_sheet_has_id_not_draft_mark():
+    plan = solve(load_recipe(RECIPES / "demo-nir-liquid.toml"))
+    text = _parse(render_sheet_html(plan, batch_id="KB-2026-0007", draft=False))
+    assert "Batch KB-2026-0007" in text and DRAFT_MARK not in text
+
+
+def test_expired_lot_is_a_visible_warning():
+    table = synthetic_table()
+    recipe = synthetic_recipe(forward_target(table, [0.02, 0.01, 0.001, 0.0005]), expired=True)
+    plan = solve(recipe, table=table, curve=False)
+    assert any("abs1: lot synthetic-abs1 expired on 2001-01-01" == w for w in plan.warnings)
+    html = render_sheet_html(plan, date=dt.date(2026, 12, 1))
+    assert "EXPIRED LOT: abs1 lot synthetic-abs1 expired on 2001-01-01" in _parse(html)
+    assert "class=\"alert expired\"" in html
+    rows = list(csv.reader(io.StringIO(render_sheet_csv(plan))))
+    assert ["stock", "abs1", "synthetic-abs1", "", "", "", "expiry 2001-01-01 EXPIRED"] in rows
+
+
+def test_csv_sheet_rows(demo_plan):
+    rows = list(csv.DictReader(io.StringIO(render_sheet_csv(demo_plan))))
+    sections = {r["section"] for r in rows}
+    assert {"batch", "stock", "amount", "step", "predicted", "caution", "closing"} <= sections
+    amounts = [r for r in rows if r["section"] == "amount"]
+    assert len(amounts) == len(amount_lines(demo_plan)) and all(r["actual"] == "" for r in amounts)
+    predicted = [r for r in rows if r["section"] == "predicted" and r["item"].startswith("mua at")]
+    assert len(predicted) == demo_plan.predicted.wavelength_nm.size
+    assert rows[-1]["value"] == CLOSING_LINE
+
+
+def test_sheet_json_is_plan_json_plus_sheet_fields(demo_plan):
+    payload = sheet_json(demo_plan)
+    for key, value in demo_plan.to_json().items():
+        assert key in payload
+    assert payload["draft"] is True and payload["batch_id"] is None
+    assert payload["closing_line"] == CLOSING_LINE and payload["procedure"]
+    assert all(a["actual"] is None for a in payload["amounts"])
