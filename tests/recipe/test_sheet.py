@@ -20,6 +20,7 @@ from phantomlab.recipe.sheet import DRAFT_MARK, G_NOTE, render_sheet_csv, render
 from recipe_synthetic import forward_target, synthetic_recipe, synthetic_table
 
 RECIPES = Path(__file__).resolve().parents[2] / "recipes"
+pytestmark = pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")
 VOID = {"meta", "br", "img", "hr", "input", "link", "col", "area", "base", "embed", "source", "track", "wbr"}
 
 
