@@ -37,7 +37,7 @@ import difflib
 import math
 import tomllib
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Iterator, Mapping
 
@@ -748,8 +748,6 @@ def _parse_absorber(table, key, base, resolved):
     resolved[source] = csv_table.to_definition()
     if wavelength.size < 2:
         raise _fail(key, source, "needs at least two wavelengths")
-    for array in (wavelength, coefficient, sd):
-        array = np.asarray(array)
     spec = AbsorberSpec(
         method=method,
         wavelength_nm=np.array(wavelength, dtype=float),

@@ -20,7 +20,11 @@ from phantomlab.materials.water import water_absorption_per_mm
 from phantomlab.optics.emulsion import EMULSION_SCATTERING
 from phantomlab.optics.mie import sphere_ensemble_optics
 
-__all__ = ["IntrinsicOptics", "intrinsic_optics", "wavelength_grid"]
+__all__ = ["IntrinsicOptics", "intrinsic_optics", "wavelength_grid", "LOW_CONTRAST"]
+
+#: |m − 1| below which Mie scattering is very sensitive to the matrix index (e.g. silica in
+#: silicone, FIELD notes).  Common practice, no source.
+LOW_CONTRAST = 0.05
 
 
 def wavelength_grid(wavelength_nm) -> np.ndarray:
@@ -144,6 +148,15 @@ def _spheres(stock: Stock, grid, matrix: Stock, temperature_c, *, solids: float,
     spec = stock.spec
     n_matrix = refractive_index(matrix.spec.material, wavelength_nm=grid, temperature_c=temperature_c)
     n_particle = refractive_index(spec.material, wavelength_nm=grid, temperature_c=temperature_c)
+    contrast = np.abs(np.real(n_particle) / n_matrix - 1.0)
+    if np.min(contrast) < LOW_CONTRAST:
+        warnings.warn(
+            f"stock {stock.key}: relative index {spec.material}/{matrix.spec.material} within "
+            f"{np.min(contrast):.3f} of 1; μs then depends strongly on the matrix index "
+            f"({matrix.spec.material}: {np.mean(n_matrix):.4f}), measure it if you can",
+            PhantomlabWarning,
+            stacklevel=3,
+        )
     ensemble = sphere_ensemble_optics(
         wavelength_nm=grid,
         particle_index=n_particle,

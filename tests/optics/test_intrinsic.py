@@ -252,3 +252,16 @@ def test_intrinsic_optics_by_hand():
     assert optics.stock_key == "mine" and optics.solids_volume_fraction == 0.0
     with pytest.raises(InputError, match="g must lie in"):
         IntrinsicOptics("mine", [600.0], [0.1], [10.0], [1.0])
+
+
+def test_low_contrast_warns(tmp_path):
+    # FIELD notes: silica against silicone has low contrast (1.457 / 1.41 = 1.033)
+    path = tmp_path / "s.toml"
+    path.write_text(
+        '[stocks.pdms]\nkind = "matrix"\nmaterial = "silicone"\ndensity_g_per_ml = 1.03\n'
+        '[stocks.silica]\nkind = "powder"\nmaterial = "silica"\ndiameter_um = 1.0\nparticle_density_g_per_ml = 2.2\n'
+    )
+    s = load_shelf(path)
+    with pytest.warns(PhantomlabWarning) as record:
+        intrinsic_optics(s["silica"], wavelength_nm=[633.0], matrix=s["pdms"])
+    assert any("relative index silica/silicone within 0.033 of 1" in str(r.message) for r in record)
