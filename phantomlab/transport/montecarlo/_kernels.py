@@ -47,7 +47,7 @@ __all__ = ["TALLY_NAMES", "run_3d", "run_rod", "boundary_reflectance", "fresnel_
 
 #: Names of the per-batch tally columns, in order.
 TALLY_NAMES = (
-    "diffuse_reflectance",
+    "scattered_reflectance",
     "unscattered_reflectance",
     "diffuse_transmittance",
     "unscattered_transmittance",

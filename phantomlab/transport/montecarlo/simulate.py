@@ -64,12 +64,14 @@ class MonteCarloResult:
         Reflection of the incident beam at the entry face (outside → slide → medium),
         exact (no sampling), so ``specular_reflectance_sd`` is 0.
     diffuse_reflectance : float
-        Light leaving the top face after at least one scattering.
+        All light leaving the top face except the specular reflection:
+        ``total_reflectance − specular_reflectance`` (as in the adding-doubling
+        :class:`~phantomlab.transport.adding_doubling.SlabResult`).
     unscattered_reflectance : float
-        Light leaving the top face without scattering (bounced back by the bottom face of a
-        mismatched slab); 0 for a semi-infinite medium.
+        The part of the diffuse reflectance that was never scattered (the beam bounced back
+        by the bottom face of a mismatched slab); 0 for a semi-infinite medium.
     total_reflectance : float
-        specular + unscattered + diffuse reflectance (what an integrating sphere sees).
+        specular + diffuse reflectance (what an integrating sphere sees).
     diffuse_transmittance, unscattered_transmittance, total_transmittance : float
         Light leaving the bottom face with / without scattering, and their sum (0 for a
         semi-infinite medium).
@@ -100,7 +102,7 @@ class MonteCarloResult:
     g: float
     n: float
     n_outside: float
-    n_slide: float | None
+    n_slide: tuple | None
     thickness_mm: float | None
     backscatter_probability: float | None
     specular_reflectance: float
@@ -262,7 +264,13 @@ def _check_common(*, mua_per_mm, mus_per_mm, g, n, n_outside, n_slide, thickness
     g = check_anisotropy(g)
     n = check_index("n", n)
     n_outside = check_index("n_outside", n_outside)
-    slide = None if n_slide is None else check_index("n_slide", n_slide)
+    if isinstance(n_slide, (tuple, list)):
+        if len(n_slide) != 2:
+            raise InputError("n_slide must be one index, None, or a pair (top, bottom)")
+        slide = tuple(None if v is None else check_index("n_slide", v) for v in n_slide)
+    else:
+        value = None if n_slide is None else check_index("n_slide", n_slide)
+        slide = (value, value)
     if thickness_mm is None:
         thickness = None
         if mua == 0.0:
@@ -339,10 +347,13 @@ def simulate(
         incidence, and a forward scattering also counts as a scattering.
     backscatter_probability : float or None
         Rod geometry only: p_b in [0, 1]; None gives (1 − g)/2 (the same mean cosine).
-    n_slide : float or None
-        Index of a non-absorbing glass slide on the entry face and, for a slab, the exit face.
-        Slides change where light exits by a lateral shift that is not modelled, so R(ρ)
-        with a slide is the distribution at the medium surface.
+    n_slide : float, None or tuple (top, bottom)
+        Index of a non-absorbing glass slide on each face (one number), or per face as a
+        tuple such as ``(1.52, None)`` (as in
+        :func:`~phantomlab.transport.adding_doubling.slab_reflectance_transmittance`); the
+        bottom slide is ignored for a semi-infinite medium.  Slides change where light
+        exits by a lateral shift that is not modelled, so R(ρ) with a slide is the
+        distribution at the medium surface.
     batches : int, default 32
         Independent batches (each its own random stream) for the standard errors.
 
@@ -394,10 +405,11 @@ def simulate(
     edges = rho_bin_edges_mm(rho_mm) if rho_mm is not None else None
     batches = min(batches, photons)
 
-    specular = specular_reflectance(n=n, n_outside=n_outside, n_slide=slide)
+    specular = specular_reflectance(n=n, n_outside=n_outside, n_slide=slide[0])
     launch_weight = 1.0 - specular
     analog = estimator == "analog"
-    slide_index = 0.0 if slide is None else slide
+    slide_top = 0.0 if slide[0] is None else slide[0]
+    slide_bottom = 0.0 if slide[1] is None else slide[1]
     depth = math.inf if thickness is None else thickness
     counts = _split(photons, batches)
     states = batch_states(seed, batches)
@@ -413,15 +425,15 @@ def simulate(
         start = time.perf_counter()
         if geometry == "3d":
             _kernels.run_3d(
-                counts, states, mua, mus, g, n, n_outside, slide_index, n_outside, slide_index,
+                counts, states, mua, mus, g, n, n_outside, slide_top, n_outside, slide_bottom,
                 depth, analog, launch_weight, roulette_threshold * launch_weight, roulette_survival,
                 kernel_edges, tallies, rho_weights, False,
                 *_empty_records(batches),
             )
         else:
             _kernels.run_rod(
-                counts, states, mua, mus, backscatter, n, n_outside, slide_index, n_outside,
-                slide_index, depth, analog, launch_weight, roulette_threshold * launch_weight,
+                counts, states, mua, mus, backscatter, n, n_outside, slide_top, n_outside,
+                slide_bottom, depth, analog, launch_weight, roulette_threshold * launch_weight,
                 roulette_survival, tallies,
             )
         seconds = time.perf_counter() - start
@@ -431,11 +443,12 @@ def simulate(
     names = _kernels.TALLY_NAMES
     columns = {name: tallies[:, i] for i, name in enumerate(names)}
     derived = {
-        "total_reflectance": columns["diffuse_reflectance"] + columns["unscattered_reflectance"],
+        "diffuse_reflectance": columns["scattered_reflectance"] + columns["unscattered_reflectance"],
+        "total_reflectance": columns["scattered_reflectance"] + columns["unscattered_reflectance"],
         "total_transmittance": columns["diffuse_transmittance"] + columns["unscattered_transmittance"],
     }
     estimates: dict[str, float] = {}
-    for name in names[:-1]:
+    for name in names[1:-1]:
         mean, se = _mean_and_se(columns[name], counts)
         estimates[name], estimates[name + "_sd"] = float(mean), float(se)
     for name, values in derived.items():
@@ -461,7 +474,7 @@ def simulate(
         g=g,
         n=n,
         n_outside=n_outside,
-        n_slide=slide,
+        n_slide=None if slide == (None, None) else slide,
         thickness_mm=thickness,
         backscatter_probability=backscatter,
         specular_reflectance=specular,

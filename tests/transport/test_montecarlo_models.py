@@ -1,0 +1,115 @@
+"""Monte Carlo against the project's other forward models (written independently).
+
+* adding-doubling (phantomlab.transport.adding_doubling): mismatched slabs with and without
+  glass slides; tolerance 3 Monte Carlo standard errors (SE) — the adding-doubling values
+  are far more precise than that (they are checked against van de Hulst's table to 0.1 %
+  in their own tests);
+* diffusion (phantomlab.transport.diffusion): R(rho) beyond two transport mean free paths,
+  against a Monte Carlo fixture of 10^6 photons made by fixtures/make_mc_srdr_fixture.py
+  (which says how to regenerate it); a small live run ties the fixture to the engine.
+"""
+
+from __future__ import annotations
+
+import json
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from phantomlab.errors import PhantomlabWarning
+from phantomlab.transport.adding_doubling import slab_reflectance_transmittance
+from phantomlab.transport.diffusion import srdr_reflectance
+from phantomlab.transport.montecarlo import simulate
+
+FIXTURE = Path(__file__).parent / "fixtures" / "mc_srdr_semi_infinite.json"
+
+SLABS = [
+    # mismatched, forward scattering, bare faces
+    dict(mua_per_mm=0.1, mus_per_mm=10.0, g=0.9, n=1.4, thickness_mm=1.0),
+    # the same slab between two glass slides (n = 1.52, clear)
+    dict(mua_per_mm=0.1, mus_per_mm=10.0, g=0.9, n=1.4, thickness_mm=1.0, n_slide=1.52),
+    # a thinner, more absorbing slab with a slide on the illuminated face only
+    dict(mua_per_mm=0.5, mus_per_mm=5.0, g=0.5, n=1.5, thickness_mm=0.5, n_slide=(1.52, None)),
+]
+
+
+@pytest.mark.parametrize("case", SLABS, ids=["bare", "two-slides", "top-slide"])
+def test_mismatched_slabs_agree_with_adding_doubling(case):
+    reference = slab_reflectance_transmittance(**case)
+    result = simulate(**case, photons=40_000, seed=17)
+    assert result.specular_reflectance == pytest.approx(float(reference.specular_reflectance), abs=1e-12)
+    for key in ("total_reflectance", "total_transmittance", "unscattered_transmittance"):
+        value, se = getattr(result, key), getattr(result, key + "_sd")
+        expected = float(getattr(reference, key))
+        assert se > 0, key
+        assert abs(value - expected) <= 3 * se, (key, value, expected, se)
+    # a check that bites: R and T known to better than 1 % here
+    assert result.total_reflectance_sd < 0.01 * result.total_reflectance
+
+
+# ------------------------------------------------------------------------------ diffusion
+def _annulus_average(model, boundary, edges, mua, musp, n):
+    """Diffusion R(rho) averaged over each annulus (as the Monte Carlo tallies it)."""
+    values = []
+    for low, high in zip(edges[:-1], edges[1:]):
+        rho = np.linspace(low, high, 201)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", PhantomlabWarning)  # the near-source warning
+            r = srdr_reflectance(mua_per_mm=mua, musp_per_mm=musp, rho_mm=rho, n=n,
+                                 model=model, boundary=boundary)
+        values.append(np.trapezoid(r * 2 * np.pi * rho, rho) / (np.pi * (high**2 - low**2)))
+    return np.array(values)
+
+
+@pytest.fixture(scope="module")
+def fixture_cases():
+    return json.loads(FIXTURE.read_text())
+
+
+def test_fixture_still_matches_the_engine(fixture_cases):
+    case = fixture_cases["cases"]["n1.4_in_air"]
+    rho = np.array(fixture_cases["rho_mm"])
+    live = simulate(**case["inputs"], rho_mm=rho, photons=20_000, seed=5)
+    stored = np.array(case["reflectance_per_mm2"])
+    stored_sd = np.array(case["reflectance_per_mm2_sd"])
+    near = slice(0, 8)  # 1-8 mm, where 2e4 photons give a few per cent
+    combined = np.hypot(live.reflectance_per_mm2_sd, stored_sd)[near]
+    assert np.all(np.abs(live.reflectance_per_mm2[near] - stored[near]) <= 3 * combined)
+    assert live.diffuse_reflectance == pytest.approx(case["diffuse_reflectance"],
+                                                     abs=3 * live.diffuse_reflectance_sd)
+
+
+def test_diffusion_fluence_plus_flux_beyond_two_transport_lengths(fixture_cases):
+    # Case (the one Kienle & Patterson 1997, JOSA A 14:246, discuss): semi-infinite,
+    # mua = 0.01 /mm, musp = 1 /mm (mus = 5 /mm, g = 0.8 in the Monte Carlo), n = 1.4 in
+    # air; fluence-plus-flux model with the Haskell 1994 boundary coefficient; rho from 2 to
+    # 15 mm (2-15 transport mean free paths).  The diffusion source is the light that
+    # enters the medium, so the Monte Carlo R(rho) (per incident power) is divided by
+    # 1 - R_specular before comparing.  Within 5 % (the issue's criterion).
+    case = fixture_cases["cases"]["n1.4_in_air"]
+    edges = np.array(case["rho_edges_mm"])
+    rho = np.array(fixture_cases["rho_mm"])
+    entering = 1.0 - case["specular_reflectance"]
+    mc = np.array(case["reflectance_per_mm2"]) / entering
+    diffusion = _annulus_average("kienle1997", "haskell1994", edges, 0.01, 1.0, 1.4)
+    beyond = rho >= 2.0
+    deviation = diffusion[beyond] / mc[beyond] - 1.0
+    assert np.all(np.abs(deviation) < 0.05), np.round(deviation, 3)
+
+
+def test_diffusion_dipole_matched_boundary_far_from_the_source(fixture_cases):
+    # Case: the same medium with a matched boundary (n = 1), Farrell et al. 1992 dipole.
+    # Beyond 4 transport mean free paths it is within 5 %; at 2-3 of them it is 6-10 % high
+    # (measured here; diffusion is known to be poor within a few transport lengths of the
+    # source, CHECKS.md), so this check starts at 4 mm.
+    case = fixture_cases["cases"]["matched"]
+    edges = np.array(case["rho_edges_mm"])
+    rho = np.array(fixture_cases["rho_mm"])
+    mc = np.array(case["reflectance_per_mm2"])
+    assert case["specular_reflectance"] == 0.0
+    diffusion = _annulus_average("farrell1992", "haskell1994", edges, 0.01, 1.0, 1.0)
+    beyond = rho >= 4.0
+    deviation = diffusion[beyond] / mc[beyond] - 1.0
+    assert np.all(np.abs(deviation) < 0.05), np.round(deviation, 3)
