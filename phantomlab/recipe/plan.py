@@ -328,7 +328,8 @@ def _diluent_name(recipe: Recipe) -> str:
     return f"{recipe.matrix_key} (matrix)"
 
 
-def _dispense_tolerance(amount: float, by: str, limits) -> float:
+def dispense_tolerance(amount: float, by: str, limits) -> float:
+    """± tolerance of a dispensed amount: k = 2 pipette error, or at least the balance resolution."""
     if by == "pipette":
         return 2.0 * limits.pipette_rel_error * amount
     return max(2.0 * limits.balance_resolution_g / math.sqrt(6.0), limits.balance_resolution_g)
@@ -372,7 +373,7 @@ def _doses(recipe, table, fractions, potencies, potency_sds, sources, volume_ml,
             stock=key, kind=stock.kind, lot=stock.lot, expiry=stock.expiry, volume_fraction=f,
             volume_ml=v, mass_g=m, by=by, dilution=dilution if dilution.steps else None,
             dispense_amount=dilution.dispense_amount,
-            tolerance=_dispense_tolerance(dilution.dispense_amount, by, limits),
+            tolerance=dispense_tolerance(dilution.dispense_amount, by, limits),
             relative_sd=rel_sd, potency=float(potencies[i]), potency_sd=float(potency_sds[i]),
             potency_source=sources[i],
         ))

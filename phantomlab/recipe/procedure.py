@@ -55,7 +55,8 @@ def amount_lines(plan) -> list[AmountLine]:
     number = 1
     for label, amount, unit, tolerance in plan.matrix.parts:
         how = "weigh" if unit == "g" else "measure"
-        lines.append(AmountLine(number, label, plan.recipe.matrix_key, amount, unit, tolerance, None, how))
+        source = f"{plan.recipe.matrix_key} lot {plan.recipe.matrix.lot or '(none)'}"
+        lines.append(AmountLine(number, label, source, amount, unit, tolerance, None, how))
         number += 1
     order = sorted((d for d in plan.doses if d.used), key=lambda d: (d.kind != "absorber", d.stock))
     for dose in order:

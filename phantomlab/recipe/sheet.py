@@ -21,6 +21,7 @@ from typing import Any
 import numpy as np
 
 from phantomlab.recipe.cautions import CLOSING_LINE, cautions_for
+from phantomlab.recipe.plan import dispense_tolerance
 from phantomlab.recipe.procedure import amount_lines, format_amount, procedure_steps
 from phantomlab.recipe.svgplot import spectra_svg
 
@@ -178,10 +179,15 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
                    "<th>of</th><th>add diluent</th><th>total</th><th>actual taken</th><th>actual diluent</th></tr>")
         for dose in diluted:
             unit = dose.dilution.unit
+
+            def with_tol(amount, unit=unit, by=dose.by):
+                tol = dispense_tolerance(amount, by, recipe.limits)
+                return f"{format_amount(amount, unit)} ± {format_amount(tol, unit)}"
+
             for step in dose.dilution.steps:
                 out.append(
-                    f"<tr><td>{e(step.label)}</td><td class='num'>{e(format_amount(step.source_amount, unit))}</td>"
-                    f"<td>{e(step.source)}</td><td class='num'>{e(format_amount(step.diluent_amount, unit))} "
+                    f"<tr><td>{e(step.label)}</td><td class='num'>{e(with_tol(step.source_amount))}</td>"
+                    f"<td>{e(step.source)}</td><td class='num'>{e(with_tol(step.diluent_amount))} "
                     f"{e(dose.dilution.diluent)}</td><td class='num'>{e(format_amount(step.total_amount, unit))} "
                     f"(1:{1 / step.factor:.4g})</td><td class='actual'></td><td class='actual'></td></tr>")
         out.append("</table>")
