@@ -29,6 +29,8 @@ from phantomlab.jsonable import to_jsonable
 COMMAND_MODULES: tuple[str, ...] = (
     "phantomlab.commands.stock",
     "phantomlab.commands.fit",
+    "phantomlab.commands.calibrate",
+    "phantomlab.commands.correct",
     "phantomlab.commands.batch",
     "phantomlab.commands.lab",
     "phantomlab.commands.forward",

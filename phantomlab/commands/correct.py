@@ -1,0 +1,130 @@
+"""``phantomlab correct``: the next batch corrected, or a top-up for the batch on the bench (layer 5).
+
+    phantomlab correct BATCH_ID [--db URL] [--recipe RECIPE.toml] [--sheet FILE.html] [--json]
+    phantomlab correct BATCH_ID --top-up [--volume-ml V] [--max-added-ml V] [--db URL] [--json]
+
+Without ``--top-up``: the batch's recipe planned again with the newest calibrated potencies
+of the lots on the shelf (``phantomlab recalibrate`` makes them); JSON: the ``plan`` keys of
+DESIGN.md plus ``after_batch`` and ``potencies_used``.
+
+With ``--top-up`` (liquid batches): from the batch's newest fitted measurement, what to add —
+which stock, how much, how much diluent — to bring it to the target; nothing can be taken
+out.  JSON: ``batch_id``, ``additions`` [{stock, volume_ml, mass_g, below_min_dispense}],
+``diluent``, ``diluent_volume_ml``, ``final_volume_ml``, ``wavelength_nm``, ``before``,
+``predicted``, ``target``, ``warnings``.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from phantomlab.cli import CommandResult, add_json_option
+from phantomlab.errors import InputError
+
+__all__ = ["register"]
+
+
+def register(subparsers) -> None:
+    parser = subparsers.add_parser(
+        "correct",
+        help="plan the next batch with calibrated potencies, or a top-up for a liquid batch",
+        description="Corrected plan for the batch after BATCH_ID (calibrated potencies), or with "
+        "--top-up the additions that bring a liquid batch still on the bench to its target.",
+    )
+    parser.add_argument("batch_id", metavar="BATCH_ID")
+    parser.add_argument("--db", metavar="URL", default=None,
+                        help="SQLAlchemy URL of the batch log (default: $PHANTOMLAB_DB, else phantomlab.sqlite)")
+    parser.add_argument("--recipe", metavar="RECIPE.toml", default=None,
+                        help="recipe file to use if the batch's recorded recipe file is not there any more")
+    parser.add_argument("--top-up", action="store_true", help="additions for the batch on the bench (liquid)")
+    parser.add_argument("--volume-ml", type=float, default=None, metavar="V",
+                        help="volume of the batch now, in mL (default: the planned batch volume)")
+    parser.add_argument("--max-added-ml", type=float, default=None, metavar="V",
+                        help="room left in the vessel, in mL")
+    parser.add_argument("--sheet", metavar="FILE.html", default=None, help="write the corrected plan's sheet (draft)")
+    add_json_option(parser)
+    parser.set_defaults(handler=_correct)
+
+
+def _newest_fit(session, batch):
+    from phantomlab.store import fits_of, measurements_of
+
+    best = None
+    for measurement in measurements_of(session, batch):
+        for fit in fits_of(session, measurement):
+            if best is None or (fit.recorded_at, fit.id) > (best.recorded_at, best.id):
+                best = fit
+    return best
+
+
+def _plan_text(plan_json: dict, batch_id: str) -> str:
+    lines = [f"corrected plan after batch {batch_id} ({plan_json.get('recipe')}), calibrated potencies:"]
+    for key, value in plan_json.get("potencies_used", {}).items():
+        lines.append(f"  {key:<14} potency {value[0]:.3f} ± {value[1]:.3f}")
+    lines.append("doses (undiluted stock in the final mix):")
+    for dose in plan_json["doses"]:
+        lines.append(f"  {dose['stock']:<14} {dose['volume_ml']:.5g} mL  ({dose['mass_g']:.5g} g, "
+                     f"volume fraction {dose['volume_fraction']:.4g})")
+    predicted = plan_json["predicted"]
+    for i, w in enumerate(predicted["wavelength_nm"]):
+        lines.append(f"  {w:g} nm  mua {predicted['mua_per_mm'][i]:.4g} /mm   mus' {predicted['musp_per_mm'][i]:.4g} /mm")
+    return "\n".join(lines)
+
+
+def _top_up_text(payload: dict) -> str:
+    lines = [f"top-up of batch {payload['batch_id']} ({payload['current_volume_ml']:g} mL now):"]
+    for item in payload["additions"]:
+        if item["volume_ml"] > 0:
+            flag = "  (below the smallest dispensable amount: pre-dilute)" if item["below_min_dispense"] else ""
+            lines.append(f"  add {item['volume_ml']:.4g} mL of {item['stock']} ({item['mass_g']:.4g} g){flag}")
+    lines.append(f"  add {payload['diluent_volume_ml']:.4g} mL of {payload['diluent']} (diluent)")
+    lines.append(f"  final volume {payload['final_volume_ml']:.5g} mL")
+    for i, w in enumerate(payload["wavelength_nm"]):
+        lines.append(f"  {w:g} nm  mua {100 * payload['before']['mua_rel_error'][i]:+.1f} % -> "
+                     f"{100 * payload['predicted']['mua_rel_error'][i]:+.1f} %   mus' "
+                     f"{100 * payload['before']['musp_rel_error'][i]:+.1f} % -> "
+                     f"{100 * payload['predicted']['musp_rel_error'][i]:+.1f} %")
+    return "\n".join(lines)
+
+
+def _correct(args) -> CommandResult:
+    from phantomlab.calibration.correction import corrected_plan, top_up
+    from phantomlab.commands.calibrate import load_batch_recipe
+    from phantomlab.store import get_batch, latest_potencies, open_store, plan_of, recipe_of
+
+    store = open_store(args.db)
+    try:
+        with store.reading() as session:
+            batch = get_batch(session, args.batch_id, include_retracted=False)
+            recipe = load_batch_recipe(recipe_of(session, batch), args.recipe)
+            potencies = latest_potencies(session, shelf=recipe.shelf)
+            plan_row = plan_of(session, batch)
+            fit = _newest_fit(session, batch) if args.top_up else None
+            fit_results = dict(fit.results) if fit is not None else None
+            fit_id = fit.id if fit is not None else None
+            code = batch.code
+            planned_volume = plan_row.plan.get("batch_volume_ml")
+    finally:
+        store.close()
+    usable = {k: (p, sd, lot) for k, (p, sd, lot) in potencies.items() if k in recipe.stock_keys}
+    if not args.top_up:
+        plan = corrected_plan(recipe, potencies=usable)
+        payload = dict(plan.to_json())
+        payload["after_batch"] = code
+        payload["potencies_used"] = {k: [v[0], v[1]] for k, v in usable.items()}
+        if args.sheet:
+            from phantomlab.recipe.sheet import render_sheet_html
+
+            Path(args.sheet).write_text(render_sheet_html(plan, draft=True), encoding="utf-8")
+            payload["sheet"] = args.sheet
+        return CommandResult(payload=payload, text=_plan_text(payload, code))
+    if fit_results is None:
+        raise InputError(f"batch {code} has no fitted measurement; measure it with `phantomlab batch measure` first")
+    volume = args.volume_ml if args.volume_ml is not None else planned_volume
+    if volume is None:
+        raise InputError("give the batch's present volume with --volume-ml V")
+    result = top_up(recipe, current_volume_ml=float(volume), measured=fit_results, potencies=usable,
+                    max_added_ml=args.max_added_ml)
+    payload = result.to_json()
+    payload.update({"batch_id": code, "fit_id": fit_id, "potencies_used": {k: [v[0], v[1]] for k, v in usable.items()}})
+    return CommandResult(payload=payload, text=_top_up_text(payload))
