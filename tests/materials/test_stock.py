@@ -75,8 +75,8 @@ def test_definition_holds_resolved_csv_for_snapshots():
     resolved = shelf["dye_blue"].definition["resolved"]["spectrum_csv"]
     assert resolved["source"] == "source: demo data, invented"
     assert len(resolved["columns"]["wavelength_nm"]) == len(resolved["columns"]["mua_per_mm"]) > 10
-    assert shelf["gelatin10"].definition["expiry"] == "2027-06-30"  # dates as ISO text
-    assert shelf["gelatin10"].expiry == dt.date(2027, 6, 30)
+    assert shelf["gelatin10"].definition["expiry"] == "2031-06-30"  # dates as ISO text
+    assert shelf["gelatin10"].expiry == dt.date(2031, 6, 30)
 
 
 # ---- conversions ---------------------------------------------------------------------------
