@@ -134,20 +134,26 @@ def _summary(plan, written, db) -> str:
             chain = "; ".join(f"{s.label} = {_amount(s.source_amount, unit)} {s.source} + "
                               f"{_amount(s.diluent_amount, unit)} {dose.dilution.diluent}"
                               for s in dose.dilution.steps)
-            line += f"\n  {'':<12} pre-dilute: {chain}; then {dose.by} {_amount(dose.dispense_amount, unit)} of {dose.dilution.dispense_from}"
+            line += f"\n  {'':<12} pre-dilute: {chain}; then {'weigh' if dose.by == 'balance' else 'pipette'} {_amount(dose.dispense_amount, unit)} of {dose.dilution.dispense_from}"
         lines.append(line)
     lines.append("matrix: " + "; ".join(f"{label} {_amount(a, u)}" for label, a, u, _ in plan.matrix.parts))
     lines += ["", "predicted at the target wavelengths (g from the scattering model, not measured):",
-              f"  {'nm':>6} {'mua target':>11} {'mua ± SD':>20} {'musp target':>12} {'musp ± SD':>18} {'g':>6}"]
+              f"  {'nm':>6} {'mua target':>11} {'mua ± SD':>20} {'Δ%':>6} {'musp target':>12} {'musp ± SD':>18}"
+              f" {'Δ%':>6} {'g':>6}"]
     t, p = plan.target, plan.predicted
 
     def show(v, d=4):
         return "—" if not math.isfinite(v) else f"{v:.{d}g}"
 
+    def pct(v):
+        return "—" if not math.isfinite(v) else f"{100 * v:+.1f}"
+
+    r = plan.residuals
     for i, lam in enumerate(t.wavelength_nm):
         lines.append(f"  {lam:6g} {show(t.mua_per_mm[i]):>11} {show(p.mua_per_mm[i]) + ' ± ' + show(p.mua_sd_per_mm[i], 2):>20}"
+                     f" {pct(r['mua_relative'][i]):>6}"
                      f" {show(t.musp_per_mm[i]):>12} {show(p.musp_per_mm[i]) + ' ± ' + show(p.musp_sd_per_mm[i], 2):>18}"
-                     f" {show(p.g[i], 3):>6}")
+                     f" {pct(r['musp_relative'][i]):>6} {show(p.g[i], 3):>6}")
     met = [name for name in ("mua", "musp", "g") if not plan.residuals[f"{name}_met"]]
     lines.append("all targets met within tolerance" if not met else f"not met: {', '.join(met)} (see warnings)")
     for path in written:

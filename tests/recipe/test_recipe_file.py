@@ -80,6 +80,9 @@ def test_hash_changes_with_content(tmp_path):
     (GOOD_TARGET + "\n[preparation]\nkind = \"soup\"\n", r"preparation: unknown kind 'soup'"),
     (GOOD_TARGET + "\n[preparation]\nkind = \"silicone\"\n", r"base_to_curing_agent is required"),
     (GOOD_TARGET + "\ncolour = 3\n", r"unknown field 'colour'"),
+    (GOOD_TARGET.replace("[0.01, 0.02]", "[nan, 0.02]"), r"mua_per_mm holds a value that is not a finite number"),
+    (GOOD_TARGET.replace("[700, 800]", "[700, inf]"), r"wavelength_nm holds a value that is not a finite number"),
+    (GOOD_TARGET + "\n[limits]\ndead_volume_ml = nan\n", r"dead_volume_ml = nan; give a volume"),
 ])
 def test_bad_recipes_refused_with_one_line(tmp_path, body, match):
     with pytest.raises(InputError, match=match) as info:
