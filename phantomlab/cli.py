@@ -16,6 +16,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import json
+import os
 import sys
 import warnings
 from dataclasses import dataclass, field
@@ -114,4 +115,12 @@ def main(argv: list[str] | None = None) -> int:
 
 
 def entry_point() -> None:  # console script
-    sys.exit(main())
+    try:
+        status = main()
+        sys.stdout.flush()
+    except BrokenPipeError:
+        # The reader (e.g. `| head`) closed the pipe: stop quietly, as other tools do.
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        status = 0
+    sys.exit(status)
