@@ -105,14 +105,16 @@ def procedure_steps(plan) -> list[str]:
         powder, water = m
         steps.append(f"Weigh {powder.text} of {powder.label} (line {powder.number}).")
         if prep.kind == "gelatin":
-            steps.append(f"Sprinkle it onto the water of line {water.number} ({water.text}) and let "
-                         f"it swell for {prep['swell_minutes']:g} min.")
+            steps.append(f"Sprinkle it onto about 80 % of the water ({0.8 * water.amount:.4g} mL, cold) "
+                         f"and let it swell for {prep['swell_minutes']:g} min.")
             steps.append(f"Heat to {prep['dissolve_temperature_c']:g} °C, stirring, until clear; "
                          "do not boil.")
         else:
-            steps.append(f"Disperse it in the water of line {water.number} ({water.text}).")
+            steps.append(f"Disperse it in about 80 % of the water ({0.8 * water.amount:.4g} mL).")
             steps.append(f"Heat to {prep['dissolve_temperature_c']:g} °C, stirring, until fully "
-                         "dissolved (keep the volume: top up evaporated water).")
+                         "dissolved.")
+        steps.append(f"Make the gel up to {water.text} with warm water in a graduated vessel (line "
+                     f"{water.number}; write the volume in 'actual').")
         steps.append(f"Cool to {prep['add_temperature_c']:g} °C (thermometer in the gel); write "
                      "the temperature on the sheet.")
         steps += [a[:-1] + f" at {prep['add_temperature_c']:g} °C, stirring gently without "
