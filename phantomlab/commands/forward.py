@@ -83,9 +83,9 @@ def register(subparsers) -> None:
     parser.add_argument(
         "--thickness-mm", metavar="D", help="slab thickness [mm] (slab: required; mc: absent = semi-infinite)"
     )
-    parser.add_argument("--n-slide", metavar="N", help="index of glass slides on the slab (slab; mc: both faces)")
+    parser.add_argument("--n-slide", metavar="N", help="index of glass slides on the sample (slab, mc)")
     parser.add_argument(
-        "--slides", choices=("both", "top", "bottom"), default="both", help="which faces carry a slide (slab)"
+        "--slides", choices=("both", "top", "bottom"), default="both", help="which faces carry a slide (slab, mc)"
     )
     parser.add_argument("--slide-thickness-mm", metavar="D", default="0", help="slide thickness [mm] (slab)")
     parser.add_argument(
@@ -233,6 +233,14 @@ def _slab_scattering(args):
     return count, lists, mus, g_values
 
 
+def _slide_pair(args):
+    """None, one index for both faces, or a tuple (top, bottom) from --n-slide and --slides."""
+    if args.n_slide is None:
+        return None
+    index = _number(args.n_slide, "--n-slide")
+    return {"both": index, "top": (index, None), "bottom": (None, index)}[args.slides]
+
+
 def _slab(args) -> CommandResult:
     from phantomlab.transport.adding_doubling import slab_reflectance_transmittance
 
@@ -241,10 +249,7 @@ def _slab(args) -> CommandResult:
         raise InputError("--kind slab needs --thickness-mm D (sample thickness in mm)")
     thickness = _number(args.thickness_mm, "--thickness-mm")
     n_outside = _number(args.n_outside, "--n-outside")
-    n_slide = None
-    if args.n_slide is not None:
-        index = _number(args.n_slide, "--n-slide")
-        n_slide = {"both": index, "top": (index, None), "bottom": (None, index)}[args.slides]
+    n_slide = _slide_pair(args)
     result = slab_reflectance_transmittance(
         mua_per_mm=lists["mua"],
         mus_per_mm=mus,
@@ -290,8 +295,6 @@ def _monte_carlo(args, estimator: str) -> CommandResult:
     count, lists, mus, g = _slab_scattering(args)
     if args.incidence != "collimated":
         raise InputError("--kind mc models a normally incident pencil beam; --incidence diffuse is for --kind slab")
-    if args.n_slide is not None and args.slides != "both":
-        raise InputError("--kind mc puts a slide on every face; --slides top/bottom is for --kind slab")
     if _number(args.slide_mua_per_mm, "--slide-mua-per-mm") != 0.0:
         raise InputError("--kind mc takes clear slides only; --slide-mua-per-mm is for --kind slab")
     if args.photons is None:
@@ -299,7 +302,7 @@ def _monte_carlo(args, estimator: str) -> CommandResult:
     thickness = None if args.thickness_mm is None else _number(args.thickness_mm, "--thickness-mm")
     rho = _list(args.rho_mm, "--rho-mm")
     n_outside = _number(args.n_outside, "--n-outside")
-    n_slide = None if args.n_slide is None else _number(args.n_slide, "--n-slide")
+    n_slide = _slide_pair(args)
     runs = [
         simulate(
             mua_per_mm=float(lists["mua"][k]),
@@ -328,7 +331,8 @@ def _monte_carlo(args, estimator: str) -> CommandResult:
         "n": lists["n"],
         "n_outside": n_outside,
         "thickness_mm": thickness,
-        "n_slide": n_slide,
+        "n_slide": None if args.n_slide is None else _number(args.n_slide, "--n-slide"),
+        "slides": None if args.n_slide is None else args.slides,
         "photons": int(args.photons),
         "seed": int(args.seed),
         "threads": runs[0].threads,

@@ -91,6 +91,18 @@ def test_mc_keys(capsys):
     assert total == pytest.approx(1.0, abs=0.02)
 
 
+def test_mc_slide_on_top_only_is_passed_through(capsys):
+    # Interface: the Monte Carlo specular part must be the top slide's (Stokes series for two
+    # interfaces, Born & Wolf 1999 §1.5), as in adding-doubling with the same slides.
+    out = _json(capsys, "--kind", "mc", "--mua-per-mm", "0.5", "--mus-per-mm", "5", "--g", "0.8",
+                "--n", "1.4", "--thickness-mm", "0.5", "--photons", "500", "--threads", "1",
+                "--n-slide", "1.52", "--slides", "top")
+    slab = slab_reflectance_transmittance(mua_per_mm=0.5, mus_per_mm=5.0, g=0.8, thickness_mm=0.5,
+                                          n=1.4, n_slide=(1.52, None))
+    assert out["specular_reflectance"][0] == pytest.approx(float(slab.specular_reflectance), rel=1e-9)
+    assert out["slides"] == "top"
+
+
 def test_readable_table_names_units(capsys):
     assert main(["forward", "--kind", "srdr", "--mua-per-mm", "0.01", "--musp-per-mm", "1",
                  "--n", "1.4", "--rho-mm", "2,4", "--wavelength-nm", "660"]) == 0
@@ -120,7 +132,7 @@ def test_readable_table_names_units(capsys):
         (["--kind", "mc", "--mua-per-mm", "0.1", "--mus-per-mm", "1", "--g", "0.5", "--n", "1.4"],
          "--kind mc needs --photons"),
         (["--kind", "mc", "--mua-per-mm", "0.1", "--mus-per-mm", "1", "--g", "0.5", "--n", "1.4",
-          "--photons", "10", "--n-slide", "1.5", "--slides", "top"], "--slides top/bottom is for --kind slab"),
+          "--photons", "10", "--incidence", "diffuse"], "--incidence diffuse is for --kind slab"),
     ],
 )
 def test_bad_input_one_line(capsys, argv, match):
