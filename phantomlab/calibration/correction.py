@@ -218,7 +218,7 @@ def top_up(
     worst = float(np.max(np.abs(rel))) if rel.size else 0.0
     tolerance = min(getattr(target, "mua_tolerance", 0.05) or 0.05, getattr(target, "musp_tolerance", 0.05) or 0.05)
     if worst > tolerance:
-        message = (f"the top-up leaves the batch {100 * worst:.1g} % from the target at worst (an add-only "
+        message = (f"the top-up leaves the batch {100 * worst:.0f} % from the target at worst (an add-only "
                    f"correction cannot take out what is too strong); consider a new batch")
         messages.append(message)
         warnings.warn(message, PhantomlabWarning, stacklevel=2)

@@ -1,0 +1,115 @@
+"""Command line of the calibration layer: ``fit``, ``recalibrate``, ``correct`` (interfaces, not physics).
+
+Checked by what they print: the exact JSON keys of DESIGN.md, one-line errors with exit
+status 2, and the two-command loop of issue 5 ("from a measurement file to corrected stock
+factors and a corrected next recipe takes two commands") run against a batch log in a
+temporary SQLite file, in the simulated lab of conftest.py (demo data, invented).
+"""
+
+import json
+
+import numpy as np
+import pytest
+
+from phantomlab.cli import main
+
+FIT_KEYS = ["wavelength_nm", "mua_per_mm", "musp_per_mm", "mua_sd_per_mm", "musp_sd_per_mm", "model",
+            "chi2_red", "warnings"]
+
+
+def _run(capsys, argv):
+    code = main(argv)
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def test_fit_json_has_exactly_the_design_keys_first(lab, tmp_path, capsys):
+    recipe, truth = lab["recipe"], lab["truth"]
+    path = tmp_path / "m1.csv"
+    path.write_text(lab["measure"](recipe, {"lipid20": 0.04, "ink_black": 3e-5, "dye_nir": 2e-5}, truth, seed=2))
+    (tmp_path / "m1.toml").write_text('n = 1.33\ninstrument = "demo probe"\n')
+    code, out, err = _run(capsys, ["fit", str(path), "--kind", "srdr", "--json"])
+    assert code == 0, err
+    payload = json.loads(out)
+    assert list(payload)[: len(FIT_KEYS) - 1] == FIT_KEYS[:-1]
+    assert set(FIT_KEYS) <= set(payload)
+    assert payload["model"] == "diffusion-farrell1992"
+    assert len(payload["mua_per_mm"]) == len(payload["wavelength_nm"]) == 22
+    assert out.count("\n") == 1  # one JSON object, nothing else
+
+
+def test_fit_readable_output_and_power_law(lab, tmp_path, capsys):
+    recipe, truth = lab["recipe"], lab["truth"]
+    path = tmp_path / "m2.csv"
+    path.write_text(lab["measure"](recipe, {"lipid20": 0.04, "ink_black": 3e-5, "dye_nir": 2e-5}, truth, seed=3))
+    code, out, err = _run(capsys, ["fit", str(path), "--kind", "srdr", "--n", "1.33", "--musp-power-law"])
+    assert code == 0, err
+    assert "musp_power_law" in out and "reduced chi2" in out
+
+
+@pytest.mark.parametrize("content, words", [
+    ("wavelength_nm,rho_mm,reflectance_per_mm2\n650,1,x\n", "row 1 (file line 2), column reflectance_per_mm2"),
+    ("wavelength_nm,rho_cm,reflectance_per_mm2\n650,1,0.1\n", "column rho_cm: unit not accepted"),
+])
+def test_fit_bad_file_one_line_exit_2(tmp_path, capsys, content, words):
+    path = tmp_path / "bad.csv"
+    path.write_text(content)
+    code, out, err = _run(capsys, ["fit", str(path), "--kind", "srdr", "--n", "1.4", "--json"])
+    assert code == 2 and out == ""
+    assert err.count("\n") == 1 and words in err
+
+
+def test_two_commands_from_measurement_to_corrected_plan(lab, tmp_path, capsys):
+    recipe, truth = lab["recipe"], lab["truth"]
+    db = f"sqlite:///{tmp_path / 'lab.sqlite'}"
+    code, out, err = _run(capsys, ["batch", "add", str(lab["folder"] / "lab.toml"), "--db", db, "--json"])
+    assert code == 0, err
+    added = json.loads(out)
+    batch_id = added["batch_id"]
+    fractions = {d["stock"]: d["volume_fraction"] for d in added["doses"]}
+    amounts = tmp_path / "amounts.csv"
+    amounts.write_text("stock,volume_ml\n" + "".join(f"{d['stock']},{d['volume_ml']:.9g}\n" for d in added["doses"]))
+    code, out, err = _run(capsys, ["batch", "actual", batch_id, str(amounts), "--db", db, "--json"])
+    assert code == 0, err
+    measurement = tmp_path / "b1.csv"
+    measurement.write_text(lab["measure"](recipe, fractions, truth, seed=11))
+    (tmp_path / "b1.toml").write_text("n = 1.33\n")
+    code, out, err = _run(capsys, ["batch", "measure", batch_id, str(measurement), "--kind", "srdr", "--db", db,
+                                   "--json"])
+    assert code == 0, err
+    # command 1: recalibrate
+    code, out, err = _run(capsys, ["recalibrate", "--db", db, "--json"])
+    assert code == 0, err
+    calibration = json.loads(out)
+    assert set(calibration["stocks"]) == set(truth)
+    for key, entry in calibration["stocks"].items():
+        assert set(entry) >= {"potency", "potency_sd", "lot"}
+        assert abs(entry["potency"] - truth[key][0]) < 3 * entry["potency_sd"] + 0.01, key
+        assert calibration["before"][key]["potency"] == 1.0
+        assert calibration["moved_by"][key][0]["batch_id"] == batch_id
+    assert calibration["calibration_state_id"] is not None
+    # command 2: the corrected plan lands within 3 % with the true potencies
+    code, out, err = _run(capsys, ["correct", batch_id, "--db", db, "--json"])
+    assert code == 0, err
+    plan = json.loads(out)
+    assert set(plan) >= {"recipe", "batch_volume_ml", "doses", "predicted", "target", "warnings"}
+    second = {d["stock"]: d["volume_fraction"] for d in plan["doses"]}
+    made = lab["true_optics"](recipe, second, truth)
+    assert np.max(np.abs(made.mua_per_mm / recipe.target.mua_per_mm - 1)) < 0.03
+    assert np.max(np.abs(made.musp_per_mm / recipe.target.musp_per_mm - 1)) < 0.03
+    # and the top-up for the batch still on the bench
+    code, out, err = _run(capsys, ["correct", batch_id, "--top-up", "--volume-ml", "480", "--db", db, "--json"])
+    assert code == 0, err
+    topup = json.loads(out)
+    assert {a["stock"] for a in topup["additions"]} == set(truth)
+    assert topup["diluent"] == "water" and topup["final_volume_ml"] >= 480
+
+
+def test_recalibrate_empty_log_refused(tmp_path, capsys):
+    code, out, err = _run(capsys, ["recalibrate", "--db", f"sqlite:///{tmp_path / 'empty.sqlite'}", "--json"])
+    assert code == 2 and "no mixed batch with a fitted measurement" in err and err.count("\n") == 1
+
+
+def test_correct_unknown_batch_refused(tmp_path, capsys):
+    code, out, err = _run(capsys, ["correct", "2026-999", "--db", f"sqlite:///{tmp_path / 'e.sqlite'}"])
+    assert code == 2 and "unknown batch 2026-999" in err
