@@ -19,13 +19,14 @@ from __future__ import annotations
 
 import csv
 import math
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from phantomlab.errors import InputError
+from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.units import parse_quantity
 
 __all__ = ["Target", "parse_target", "read_target_csv"]
@@ -35,6 +36,12 @@ __all__ = ["Target", "parse_target", "read_target_csv"]
 DEFAULT_MUA_TOLERANCE = 0.05
 DEFAULT_MUSP_TOLERANCE = 0.05
 DEFAULT_G_TOLERANCE = 0.01  # absolute; common practice, no source
+
+#: Above these a target is far outside tissue-like values and more likely a unit slip (1/cm
+#: typed as 1/mm).  FIELD.md: NIR μa typically 0.001–0.05 /mm; Jacques 2013 (Phys Med Biol
+#: 58:R37, Table 2) μs′ at 500 nm from 1.9 /mm (soft tissue) to 4.6 /mm (skin).
+PLAUSIBLE_MUA_PER_MM = 1.0
+PLAUSIBLE_MUSP_PER_MM = 10.0
 
 _KNOWN_KEYS = {
     "wavelength_nm",
@@ -275,6 +282,13 @@ def parse_target(table: Any, *, base_dir: Path) -> Target:
     _check_values("musp_per_mm", musp)
     if not np.any(np.isfinite(mua)) and not np.any(np.isfinite(musp)):
         raise InputError("target: empty; no mua_per_mm or musp_per_mm value is given")
+    for name, values, limit in (("mua_per_mm", mua, PLAUSIBLE_MUA_PER_MM),
+                                ("musp_per_mm", musp, PLAUSIBLE_MUSP_PER_MM)):
+        finite = values[np.isfinite(values)]
+        if finite.size and finite.max() > limit:
+            warnings.warn(
+                f"target: {name} up to {finite.max():g} /mm is above {limit:g} /mm, far from "
+                "tissue-like values; check the unit is 1/mm, not 1/cm", PhantomlabWarning, stacklevel=3)
 
     if "g" in table or "g_wavelength_nm" in table:
         if "g" not in table or "g_wavelength_nm" not in table:

@@ -150,3 +150,12 @@ def test_limits_and_preparation_defaults():
     assert prep["dissolve_temperature_c"] == 50 and prep.temperature_c == 20
     with pytest.raises(InputError, match=r"gel_percent_w_v = 50"):
         parse_preparation({"kind": "agar", "gel_percent_w_v": 50})
+
+
+def test_implausible_target_warns_of_a_unit_slip():
+    from phantomlab.errors import PhantomlabWarning
+
+    with pytest.warns(PhantomlabWarning, match=r"mua_per_mm up to 3 /mm is above 1 /mm.*not 1/cm"):
+        parse_target({"wavelength_nm": [700], "mua_per_mm": [3.0]}, base_dir=".")
+    with pytest.warns(PhantomlabWarning, match=r"musp_per_mm up to 12 /mm is above 10 /mm"):
+        parse_target({"wavelength_nm": [700], "musp_per_mm": [12.0]}, base_dir=".")

@@ -10,6 +10,7 @@ import re
 import numpy as np
 import pytest
 
+from phantomlab.errors import PhantomlabWarning
 from phantomlab.recipe import solve
 from phantomlab.recipe.mixmodel import IntrinsicTable, mix_coefficients
 from phantomlab.recipe.solver import solve_fractions, target_rows
@@ -133,7 +134,9 @@ def test_matrix_absorption_floor_is_named():
 def test_batch_volume_limit_when_stocks_too_weak():
     table = synthetic_table([650.0])
     target = {"wavelength_nm": [650.0], "mua_per_mm": [30.0]}  # abs1 alone gives 5.2 /mm
-    outcome = solve_fractions(table, parse_target(target, base_dir="."), potencies=np.ones(4))
+    with pytest.warns(PhantomlabWarning, match="check the unit"):
+        parsed = parse_target(target, base_dir=".")
+    outcome = solve_fractions(table, parsed, potencies=np.ones(4))
     assert any(b.limit == "batch_volume" for b in outcome.binding_limits)
     assert outcome.volume_fractions.sum() <= 1 + 1e-9
 
