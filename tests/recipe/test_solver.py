@@ -162,3 +162,24 @@ def test_by_mass_batch_converts_with_densities():
     base, agent = plan.matrix.parts
     assert base[1] + plan.matrix.carried_diluent_mass_g == pytest.approx(10 * agent[1], rel=1e-9)
     assert all(d.by == "balance" for d in plan.doses if d.used)
+
+
+def test_predilution_keeps_the_batch_volume_and_exact_dose():
+    table = synthetic_table()
+    fractions = np.array([0.02, 0.01, 0.001, 2e-6])  # abs2: 1 uL in 500 mL, below 10 uL
+    plan = solve(synthetic_recipe(forward_target(table, fractions)), table=table, curve=False)
+    dose = plan.dose("abs2")
+    assert dose.dilution is not None and dose.dilution.delivered_amount == pytest.approx(dose.volume_ml, rel=1e-12)
+    dispensed = sum(d.dispense_amount for d in plan.doses if d.used)
+    water = plan.matrix.parts[0][1]
+    assert water + dispensed == pytest.approx(500.0, rel=1e-12)
+
+
+def test_too_many_dilution_steps_is_a_binding_limit():
+    table = synthetic_table()
+    fractions = np.array([0.02, 0.01, 0.001, 2e-9])  # abs2: 1 nL in 500 mL
+    recipe = synthetic_recipe(forward_target(table, fractions), limits={"max_dilution_steps": 1})
+    plan = solve(recipe, table=table, curve=False)
+    (binding,) = [b for b in plan.binding_limits if b.limit == "max_dilution_steps"]
+    assert re.fullmatch(r"abs2: a dose of [0-9.]+ µL needs 2 pre-dilution steps; limit 1", binding.message)
+    assert any("cannot be dispensed as it stands" in w for w in plan.warnings)
