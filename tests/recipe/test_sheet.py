@@ -150,3 +150,19 @@ def test_sheet_json_is_plan_json_plus_sheet_fields(demo_plan):
     assert payload["draft"] is True and payload["batch_id"] is None
     assert payload["closing_line"] == CLOSING_LINE and payload["procedure"]
     assert all(a["actual"] is None for a in payload["amounts"])
+
+
+def test_series_sheet_one_page_per_level():
+    from phantomlab.recipe.calibration_series import plan_series
+    from phantomlab.recipe.sheet import render_series_html
+
+    series = plan_series(load_recipe(RECIPES / "demo-silicone.toml"), "tio2", levels=3)
+    html = render_series_html(series)
+    text = _parse(html)
+    assert html.count('<div class="page">') == 4 and html.count("break-before: page") == 3
+    for level in series.levels:
+        assert f"level {level.level} (" in text
+    assert text.count(CLOSING_LINE) == 4
+    top = series.levels[-1].plan.dose("tio2")
+    assert top.mass_g == pytest.approx(2.0 * series.recipe_plan.dose("tio2").volume_fraction
+                                       * series.levels[-1].plan.batch_volume_ml * 4.2, rel=1e-9)
