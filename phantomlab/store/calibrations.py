@@ -32,7 +32,7 @@ __all__ = [
 def record_calibration(
     session: Session,
     *,
-    potencies: Mapping[str, tuple[float, float, str | None]],
+    potencies: Mapping[Any, tuple],
     computed_from: Mapping[str, Any],
     method: str,
     notes: str | None = None,
@@ -44,7 +44,9 @@ def record_calibration(
     ----------
     potencies : mapping
         ``{stock_key: (potency, potency_sd, lot)}`` — potency and SD dimensionless (> 0 and
-        >= 0); ``lot`` as on the shelf (None for a stock without a lot).
+        >= 0); ``lot`` as on the shelf (None for a stock without a lot).  For several lots
+        of one stock in one state, key by ``(stock_key, lot)``: ``{(key, lot): (potency,
+        potency_sd)}``.
     computed_from : mapping
         What the potencies came from, e.g. ``{"fit_ids": [...], "batches": [...]}``.
     method : str
@@ -55,11 +57,16 @@ def record_calibration(
     checked: list[tuple[str, float, float, str | None]] = []
     for key, value in potencies.items():
         try:
-            potency, sd, lot = value
+            if isinstance(key, tuple):
+                key, lot = key
+                potency, sd = value
+            else:
+                potency, sd, lot = value
             potency, sd = float(potency), float(sd)
         except (TypeError, ValueError):
             raise InputError(
-                f"potency of {key!r} must be (potency, potency_sd, lot); got {value!r}"
+                f"potency of {key!r} must be (potency, potency_sd, lot), or (potency, potency_sd) "
+                f"under a (stock, lot) key; got {value!r}"
             ) from None
         if not (math.isfinite(potency) and potency > 0):
             raise InputError(f"potency of {key!r} is {potency!r}; accepted: a finite number > 0")
@@ -97,7 +104,7 @@ def record_calibration(
 
 
 def calibration_potencies(session: Session, state: CalibrationState) -> list[CalibrationPotency]:
-    """The potency rows of one calibration state (by stock key).
+    """The potency rows of one calibration state (by stock key, then lot).
 
     A corrected or retracted state keeps the potencies of the version that first held them.
     """
@@ -108,7 +115,10 @@ def calibration_potencies(session: Session, state: CalibrationState) -> list[Cal
         .order_by(CalibrationPotency.state_id.desc(), CalibrationPotency.stock_key)
     ).all()
     newest_state = rows[0].state_id if rows else None
-    return [row for row in rows if row.state_id == newest_state]
+    return sorted(
+        (row for row in rows if row.state_id == newest_state),
+        key=lambda row: (row.stock_key, row.lot or ""),
+    )
 
 
 def latest_calibration_state(session: Session) -> CalibrationState | None:

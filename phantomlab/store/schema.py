@@ -224,7 +224,10 @@ class CalibrationPotency(Base):
 
     __tablename__ = "calibration_potencies"
     __table_args__ = (
-        UniqueConstraint("state_id", "stock_key", name="uq_calibration_potencies_state_stock"),
+        # migration 0003: one row per stock LOT (was: per stock)
+        UniqueConstraint(
+            "state_id", "stock_key", "lot", name="uq_calibration_potencies_state_stock_lot"
+        ),
     )
 
     id: Mapped[int] = mapped_column(Integer, primary_key=True)

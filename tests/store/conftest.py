@@ -96,7 +96,8 @@ def _start_server() -> tuple[PostgresServer | None, str]:
     if done.returncode != 0:
         shutil.rmtree(folder, ignore_errors=True)
         return None, f"initdb failed: {(done.stderr or done.stdout).strip().splitlines()[-1:]}"
-    options = f"-p {port} -k {folder} -c listen_addresses=127.0.0.1 -c fsync=off"
+    options = (f"-p {port} -k {folder} -c listen_addresses=127.0.0.1 -c fsync=off "
+               "-c synchronous_commit=off -c full_page_writes=off")
     start = _as_server_user(
         [str(bin_dir / "pg_ctl"), "-D", str(data), "-o", options, "-l", str(folder / "log"),
          "-w", "-t", "60", "start"]

@@ -51,7 +51,7 @@ def test_round_trip_loses_nothing(store, db_url, planned_batch, tmp_path, counts
     code = _fill(store, planned_batch)
     first = tmp_path / "lab.zip"
     manifest = export_lab(store, first)
-    assert manifest["tables"]["batches"] == 5 and manifest["schema_revision"] == "0002"
+    assert manifest["tables"]["batches"] == 5 and manifest["schema_revision"] == "0003"
 
     target = open_store(f"sqlite:///{tmp_path / 'copy.sqlite'}")
     assert import_lab(target, first)["measurements"] == 1

@@ -50,7 +50,7 @@ WORKER = textwrap.dedent(
             with store.transaction() as session:
                 plan_batch(session)
                 print("holding", flush=True)
-                time.sleep(arg)
+                sys.stdin.readline()  # hold the write lock until the test says so
             print("released", flush=True)
         elif mode == "big":
             with store.transaction() as session:
@@ -76,7 +76,7 @@ def worker(tmp_path):
     def start(url, mode, arg, timeout=20.0):
         return subprocess.Popen(
             [sys.executable, str(script), url, mode, str(arg), str(timeout)],
-            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+            stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
         )
 
     return start
@@ -121,28 +121,28 @@ def test_kill_9_in_the_middle_of_a_large_write_leaves_the_database_as_before(
 
 
 def test_two_concurrent_writers_both_succeed(store, db_url, worker):
-    first = worker(db_url, "many", 12)
-    second = worker(db_url, "many", 12)
+    first = worker(db_url, "many", 8)
+    second = worker(db_url, "many", 8)
     outputs = [p.communicate(timeout=120) for p in (first, second)]
     assert [p.returncode for p in (first, second)] == [0, 0], outputs
     with store.reading() as session:
         codes = [b.code for b in list_batches(session)]
     year = codes[0].split("-")[0]
-    assert codes == [f"{year}-{n:03d}" for n in range(1, 25)]
+    assert codes == [f"{year}-{n:03d}" for n in range(1, 17)]
     _sqlite_integrity(store)
 
 
 def test_second_writer_gets_database_busy_when_the_first_holds_too_long(
     store, db_url, worker, counts
 ):
-    holder = worker(db_url, "hold", 6.0)
+    holder = worker(db_url, "hold", 0)
     assert holder.stdout.readline().strip() == "holding", holder.stderr.read()
     before = counts(store)  # readers are not blocked by the writer
     impatient = worker(db_url, "many", 1, timeout=0.5)
     out, err = impatient.communicate(timeout=60)
     assert impatient.returncode == 3, (out, err)
     assert out.startswith("busy: database busy, try again")
-    holder.communicate(timeout=60)
+    holder.communicate("release\n", timeout=60)
     assert holder.returncode == 0
     after = counts(store)
     assert after["batches"] == before["batches"] + 1  # only the holder's batch

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as _dt
+from dataclasses import dataclass, field
 
 import pytest
 from sqlalchemy import select
@@ -37,16 +38,30 @@ from phantomlab.store import (
 )
 from phantomlab.store.schema import Batch, CalibrationState, Fit, Measurement, Recipe, StockLot
 
-FakeStock = None  # filled from conftest at import time below
 
 
-@pytest.fixture(autouse=True)
-def _fakes(request):
-    global FakeStock, FakeRecipe
-    module = request.config.pluginmanager.get_plugin(
-        str(request.path.parent / "conftest.py")
-    ) or request.node.session.config.pluginmanager.getplugin(str(request.path.parent / "conftest.py"))
-    FakeStock, FakeRecipe = module.FakeStock, module.FakeRecipe
+@dataclass(frozen=True)
+class FakeStock:
+    """Stand-in for phantomlab.materials.Stock: the store only reads these attributes."""
+
+    key: str
+    kind: str = "absorber"
+    lot: str | None = "demo-lot-1"
+    expiry: object = None
+    potency: float = 1.0
+    potency_sd: float = 0.1
+    definition: dict = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class FakeRecipe:
+    """Stand-in for phantomlab.recipe.Recipe (the attributes the store snapshots)."""
+
+    name: str
+    content_hash: str
+    version: str = "1"
+    path: str | None = None
+    definition: dict = field(default_factory=dict)
 
 
 # --- stock lots --------------------------------------------------------------------------
@@ -357,3 +372,14 @@ def test_retracted_batch_leaves_the_list_but_stays_readable(store, planned_batch
         assert [b.code for b in list_batches(session, include_retracted=True)] == [code]
         assert len(batch_history(session, code)) == 2
         assert session.scalar(select(Batch).where(Batch.code == code, Batch.version == 1)).status == "planned"
+
+
+def test_one_calibration_state_can_hold_two_lots_of_a_stock(store):
+    with store.transaction() as session:
+        state = record_calibration(
+            session, potencies={("ink1", "L1"): (1.2, 0.05), ("ink1", "L2"): (0.7, 0.04)},
+            computed_from={"batches": ["2026-001", "2026-002"]}, method="m")
+        rows = calibration_potencies(session, state)
+        assert [(r.lot, r.potency) for r in rows] == [("L1", 1.2), ("L2", 0.7)]
+    assert latest_potencies(store, shelf=_Shelf({"ink1": "L2"})) == {"ink1": (0.7, 0.04, "L2")}
+    assert latest_potencies(store, shelf=_Shelf({"ink1": "L1"})) == {"ink1": (1.2, 0.05, "L1")}

@@ -1,0 +1,105 @@
+"""The pure helpers of the batch log: amounts files, tolerance alarms, series statistics."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from phantomlab.commands.batch import parse_amounts_csv, tolerance_alarms
+from phantomlab.errors import InputError
+from phantomlab.store.record import series_statistics
+
+
+def test_amounts_in_ml_g_and_from_a_pre_dilution():
+    rows = parse_amounts_csv(
+        "# weighed on the demo balance\nstock,volume_ml,mass_g,dilution_factor\n"
+        "lipid20,25.0,,\nink,,0.5,\ndye,2.0,,100\n"
+    )
+    assert rows == [
+        {"stock": "lipid20", "volume_ml": 25.0, "dilution_factor": 1.0},
+        {"stock": "ink", "mass_g": 0.5, "dilution_factor": 1.0},
+        {"stock": "dye", "volume_ml": 2.0, "dilution_factor": 100.0},
+    ]
+
+
+@pytest.mark.parametrize(
+    "text, match",
+    [
+        ("", "is empty"),
+        ("stock,volume_ul\nink,5\n", "columns stock,volume_ul not accepted"),
+        ("stock,volume\nink,5\n", "accepted: stock,volume_ml or stock,mass_g"),
+        ("stock,volume_ml\n", "has a header but no amounts"),
+        ("stock,volume_ml\nink,five\n", "'five' is not a number"),
+        ("stock,volume_ml\nink,nan\n", "must be a finite number >= 0"),
+        ("stock,volume_ml\nink,-1\n", "must be a finite number >= 0"),
+        ("stock,volume_ml\nink,1\nink,2\n", "given twice"),
+        ("stock,volume_ml,mass_g\nink,1,1\n", "exactly one of volume_ml or mass_g"),
+        ("stock,volume_ml\n,1\n", "no stock name"),
+        ("stock,volume_ml,dilution_factor\nink,1,0.5\n", "must be >= 1"),
+    ],
+)
+def test_bad_amounts_refused_with_one_line(text, match):
+    with pytest.raises(InputError, match=match):
+        parse_amounts_csv(text, source="a.csv")
+
+
+TARGET = {"wavelength_nm": [650.0, 750.0], "mua_per_mm": [0.010, None], "musp_per_mm": [1.0, 1.0]}
+
+
+def test_no_alarm_inside_the_tolerance_and_untargeted_values_ignored():
+    predicted = {"mua_per_mm": [0.0104, 5.0], "musp_per_mm": [0.97, 1.03]}
+    assert tolerance_alarms(target=TARGET, predicted=predicted, mua_tolerance=0.05, musp_tolerance=0.03) == []
+
+
+def test_alarm_names_quantity_wavelength_deviation_and_tolerance():
+    predicted = {"mua_per_mm": [0.0110, 0.0], "musp_per_mm": [1.0, 0.9]}
+    planned = {"mua_per_mm": [0.0100, 0.0], "musp_per_mm": [1.0, 0.95]}
+    alarms = tolerance_alarms(target=TARGET, predicted=predicted, planned=planned,
+                              mua_tolerance=0.05, musp_tolerance=0.03)
+    assert alarms == [
+        "ALARM: predicted mua at 650 nm is +10.0% from target (tolerance ±5%)",
+        "ALARM: predicted musp at 750 nm is -10.0% from target (tolerance ±3%); the plan itself was -5.0%",
+    ]
+
+
+def test_nan_prediction_raises_no_alarm():
+    predicted = {"mua_per_mm": [math.nan, math.nan], "musp_per_mm": [None, None]}
+    assert tolerance_alarms(target=TARGET, predicted=predicted, mua_tolerance=0.05, musp_tolerance=0.03) == []
+
+
+def _point(batch, age, mua, musp, newest=True):
+    return {"batch_id": batch, "fit_id": 0, "phantom_age_days": age, "newest": newest,
+            "mua_per_mm": [mua], "musp_per_mm": [musp]}
+
+
+def test_series_cv_against_numpy_and_drift_against_polyfit():
+    rng = np.random.default_rng(3)
+    ages = np.array([0.0, 3.0, 7.0, 14.0, 30.0])
+    mua = 0.01 * (1 + 0.02 * rng.standard_normal(5))
+    musp = 1.0 - 0.002 * ages + 0.01 * rng.standard_normal(5)
+    points = [_point(f"b{i}", a, x, y) for i, (a, x, y) in enumerate(zip(ages, mua, musp))]
+    stats = series_statistics(points, grid=np.array([650.0]))
+    # independent check: numpy's sample SD and numpy.polyfit's slope and covariance
+    assert stats["mua_cv_percent"][0] == pytest.approx(100 * np.std(mua, ddof=1) / np.mean(mua), rel=1e-12)
+    coef, cov = np.polyfit(ages, musp, 1, cov=True)
+    assert stats["musp_drift_percent_per_30_days"][0] == pytest.approx(coef[0] * 30 * 100 / musp.mean(), rel=1e-9)
+    assert stats["musp_drift_se_percent_per_30_days"][0] == pytest.approx(
+        math.sqrt(cov[0, 0]) * 30 * 100 / musp.mean(), rel=1e-9)
+    assert stats["batches"] == 5 and stats["fits"] == 5
+
+
+def test_series_needs_two_batches_for_cv_and_three_aged_points_for_drift():
+    one = series_statistics([_point("a", 1.0, 0.01, 1.0)], grid=np.array([650.0]))
+    assert one["mua_cv_percent"] == [None] and one["mua_drift_percent_per_30_days"] == [None]
+    same_age = series_statistics([_point(b, 2.0, 0.01, 1.0) for b in "abc"], grid=np.array([650.0]))
+    assert same_age["musp_drift_percent_per_30_days"] == [None]
+    assert same_age["mua_cv_percent"] == [0.0]
+
+
+def test_series_skips_nan_values_and_unknown_ages():
+    points = [_point("a", None, 0.010, 1.0), _point("b", 1.0, math.nan, 1.0), _point("c", 2.0, 0.012, 1.1)]
+    stats = series_statistics(points, grid=np.array([650.0]))
+    assert stats["mua_cv_percent"][0] == pytest.approx(100 * np.std([0.010, 0.012], ddof=1) / 0.011)
+    assert stats["mua_drift_percent_per_30_days"] == [None]  # only one aged finite point
