@@ -166,3 +166,23 @@ def test_series_sheet_one_page_per_level():
     top = series.levels[-1].plan.dose("tio2")
     assert top.mass_g == pytest.approx(2.0 * series.recipe_plan.dose("tio2").volume_fraction
                                        * series.levels[-1].plan.batch_volume_ml * 4.2, rel=1e-9)
+
+
+@pytest.mark.parametrize("preparation, batch, expected", [
+    ({"kind": "agar", "gel_percent_w_v": 1.5}, ("batch_volume_ml", 200.0),
+     ["Heat to 90 °C", "Cool to 50 °C", "boiling agar and microwave superheating"]),
+    ({"kind": "resin", "hardener_parts_per_100_resin": 30, "post_cure_temperature_c": 60,
+      "post_cure_time_h": 2, "max_pour_mass_g": 150}, ("batch_mass_g", 100.0),
+     ["30 parts hardener per 100 resin by mass", "post-cure 2 h at 60 °C", "pour at most 150 g",
+      "amine hardeners are skin sensitisers"]),
+])
+def test_agar_and_resin_sheets(preparation, batch, expected):
+    table = synthetic_table()
+    recipe = synthetic_recipe(forward_target(table, [0.02, 0.01, 0.001, 0.0005]), preparation=preparation,
+                              batch=batch)
+    plan = solve(recipe, table=table, curve=False)
+    text = _parse(render_sheet_html(plan))
+    for phrase in expected:
+        assert phrase in text
+    for line in amount_lines(plan):
+        assert line.text in text
