@@ -218,8 +218,11 @@ def top_up(
     worst = float(np.max(np.abs(rel))) if rel.size else 0.0
     tolerance = min(getattr(target, "mua_tolerance", 0.05) or 0.05, getattr(target, "musp_tolerance", 0.05) or 0.05)
     if worst > tolerance:
-        message = (f"the top-up leaves the batch {100 * worst:.0f} % from the target at worst (an add-only "
-                   f"correction cannot take out what is too strong); consider a new batch")
+        limited = max_added_ml is not None and volumes.sum() >= 0.999 * max_added_ml
+        why = (f"the {max_added_ml:g} mL left in the vessel limit it" if limited
+               else "an add-only correction cannot take out what is too strong")
+        message = (f"the top-up leaves the batch {100 * worst:.0f} % from the target at worst ({why}); "
+                   f"consider a new batch")
         messages.append(message)
         warnings.warn(message, PhantomlabWarning, stacklevel=2)
     return TopUp(
