@@ -8,7 +8,8 @@ Every command runs in ONE transaction (:meth:`Store.transaction`): it commits wh
 at all.  SQLite runs in WAL mode with foreign keys ON; a write transaction starts with
 ``BEGIN IMMEDIATE``, so a second writer waits up to the busy timeout for the first and
 then gets :class:`StoreBusyError` ("database busy, try again").  On PostgreSQL the same
-error comes from a lock wait longer than the timeout.
+error comes from a lock wait longer than the timeout: every write transaction there first
+takes one advisory lock, so writers take turns exactly as on SQLite (readers never wait).
 """
 
 from __future__ import annotations
@@ -18,7 +19,7 @@ import os
 from dataclasses import dataclass
 from typing import Iterator
 
-from sqlalchemy import create_engine, event
+from sqlalchemy import create_engine, event, text
 from sqlalchemy.engine import Engine, make_url
 from sqlalchemy.exc import ArgumentError, DBAPIError, IntegrityError, OperationalError
 from sqlalchemy.orm import Session
@@ -42,6 +43,9 @@ ENV_VARIABLE = "PHANTOMLAB_DB"
 DEFAULT_URL = "sqlite:///phantomlab.sqlite"
 #: How long a writer waits for another one before giving up [s].
 DEFAULT_BUSY_TIMEOUT_S = 10.0
+
+#: Key of the PostgreSQL advisory lock every write transaction holds (a constant of our own).
+_PG_WRITE_LOCK = 7_262_032
 
 # PostgreSQL SQLSTATEs that mean "someone else holds what we need": lock_not_available,
 # serialization_failure, deadlock_detected (PostgreSQL documentation, Appendix A).
@@ -153,6 +157,10 @@ class Store:
         session = Session(bind=bind, expire_on_commit=False, autoflush=True)
         try:
             with session.begin():
+                if write and self.dialect == "postgresql":
+                    # one writer at a time, as SQLite's BEGIN IMMEDIATE gives: a command
+                    # reads what it is about to change only once no other command writes
+                    session.execute(text(f"SELECT pg_advisory_xact_lock({_PG_WRITE_LOCK})"))
                 yield session
                 if not write:
                     session.rollback()
@@ -164,12 +172,15 @@ class Store:
                 ) from None
             raise InputError(f"database error: {' '.join(str(exc.orig).split())}") from None
         except IntegrityError as exc:
-            text = " ".join(str(exc.orig).split())
-            if "version" in text or "supersedes" in text or "code" in text:
+            message = " ".join(str(exc.orig).split())
+            lowered = message.lower()
+            if ("unique" in lowered or "duplicate" in lowered) and (
+                "version" in lowered or "supersedes" in lowered
+            ):
                 raise StoreConflictError(
                     "another command changed the same record meanwhile; try again"
                 ) from None
-            raise InputError(f"database refused the change: {text}") from None
+            raise InputError(f"database refused the change: {message}") from None
         except DBAPIError as exc:
             if _is_busy(exc):
                 raise StoreBusyError(

@@ -182,3 +182,18 @@ def test_unknown_batch_in_a_command_writes_nothing(store, counts):
             add_measurement(session, get_batch(session, "2026-404"), kind="srdr",
                             file_name="m.csv", raw_content=b"x")
     assert counts(store) == before
+
+
+def test_a_version_number_taken_twice_is_a_conflict_and_writes_nothing(store, planned_batch, counts):
+    from phantomlab.store import StoreConflictError
+    from phantomlab.store.schema import Batch
+
+    with store.transaction() as session:
+        code = planned_batch(session).code
+    before = counts(store)
+    with pytest.raises(StoreConflictError, match="changed the same record meanwhile; try again"):
+        with store.transaction() as session:
+            head = get_batch(session, code)
+            session.add(Batch(uid=head.uid, version=head.version, code=code, plan_id=head.plan_id,
+                              status="mixed", planned_on=head.planned_on, retracted=False))
+    assert counts(store) == before
