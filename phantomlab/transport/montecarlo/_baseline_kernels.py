@@ -14,7 +14,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-__all__ = ["exact_sums", "table_sums", "total_sums"]
+__all__ = ["exact_sums", "table_sums", "table_sums_serial", "total_sums"]
 
 
 @njit(cache=True, parallel=True)
@@ -58,61 +58,71 @@ def total_sums(path, absorption, sums, squares):
 
 
 @njit(cache=True)
-def _cumulative_at(x, c, edges, cumulative, first_photon, radius_sorted, path_sorted):
-    """Weight of the photons with radius < x: whole fine bins from the table, and the
-    photons of the partly covered fine bin summed exactly."""
+def _cumulative_at(x, edges, cumulative, weights):
+    """Weight of the photons with radius < x: whole fine bins, plus the share of the fine bin
+    that x cuts, taken as uniform per unit area inside it (continuous in x, so a fit's
+    finite-difference derivatives see no steps)."""
     last = edges.shape[0] - 1
     if x <= edges[0]:
         return 0.0
     if x >= edges[last]:
         return cumulative[last]
     i = np.searchsorted(edges, x, side="right") - 1
-    total = cumulative[i]
-    p = first_photon[i]
-    stop = first_photon[i + 1]
-    while p < stop and radius_sorted[p] < x:
-        total += math.exp(-c * path_sorted[p])
-        p += 1
-    return total
+    lo = edges[i]
+    hi = edges[i + 1]
+    return cumulative[i] + weights[i] * (x * x - lo * lo) / (hi * hi - lo * lo)
+
+
+@njit(cache=True)
+def _table_one(c, s, lower, upper, fine_edges, cell_bin, cell_count, cell_mean, cell_var,
+               cell_low, out):
+    n_fine = fine_edges.shape[0] - 1
+    reach = upper.max() / s
+    weights = np.zeros(n_fine)
+    for j in range(cell_bin.shape[0]):
+        b = cell_bin[j]
+        if fine_edges[b] > reach:
+            break
+        m = cell_mean[j]
+        correction = 0.5 * c * c * cell_var[j]
+        bound = c * (m - cell_low[j])
+        if correction > bound:
+            correction = bound
+        weights[b] += cell_count[j] * math.exp(-c * m + correction)
+    cumulative = np.empty(n_fine + 1)
+    cumulative[0] = 0.0
+    for i in range(n_fine):
+        cumulative[i + 1] = cumulative[i] + weights[i]
+    for r in range(lower.shape[0]):
+        high_value = _cumulative_at(upper[r] / s, fine_edges, cumulative, weights)
+        low_value = _cumulative_at(lower[r] / s, fine_edges, cumulative, weights)
+        out[r] = high_value - low_value
 
 
 @njit(cache=True, parallel=True)
 def table_sums(
-    absorption, scale, lower, upper, fine_edges, first_photon, radius_sorted, path_sorted,
-    cell_bin, cell_count, cell_mean, cell_var, cell_low, sums,
+    absorption, scale, lower, upper, fine_edges, cell_bin, cell_count, cell_mean, cell_var,
+    cell_low, sums,
 ):
     """:func:`exact_sums` (without the squares) from a (radius, path) cell table.
 
-    Whole fine radial bins come from the cells: each holds the count, mean and variance of
-    its photons' path lengths and the lower path edge of its bin, and its Σ exp(−c L) is
-    taken as n exp(−c m + min(c² v/2, c (m − L_lo))) (second cumulant, bounded below by
-    Jensen's inequality and above by exp(−c L_lo)).  The fine bin cut by an annulus edge
-    is summed photon by photon (``first_photon[i]`` is the first sorted photon of fine
-    bin i), so the radial edges are exact.
+    Each cell holds the count, mean and variance of its photons' path lengths and the lower
+    path edge of its bin; its Σ exp(−c L) is taken as n exp(−c m + min(c² v/2, c (m − L_lo)))
+    (second cumulant, bounded below by Jensen's inequality and above by exp(−c L_lo)).
+    Cells are sorted by fine radial bin, so the loop stops past the farthest annulus.
+    Parallel over the (μa, μs) pairs.
     """
-    n_fine = fine_edges.shape[0] - 1
     for k in prange(absorption.shape[0]):
-        c = absorption[k]
-        s = scale[k]
-        reach = upper.max() / s
-        weights = np.zeros(n_fine)
-        for j in range(cell_bin.shape[0]):
-            b = cell_bin[j]
-            if fine_edges[b] > reach:
-                break
-            m = cell_mean[j]
-            correction = 0.5 * c * c * cell_var[j]
-            bound = c * (m - cell_low[j])
-            if correction > bound:
-                correction = bound
-            weights[b] += cell_count[j] * math.exp(-c * m + correction)
-        cumulative = np.empty(n_fine + 1)
-        cumulative[0] = 0.0
-        for i in range(n_fine):
-            cumulative[i + 1] = cumulative[i] + weights[i]
-        for r in range(lower.shape[0]):
-            high_value = _cumulative_at(upper[r] / s, c, fine_edges, cumulative, first_photon,
-                                        radius_sorted, path_sorted)
-            low_value = _cumulative_at(lower[r] / s, c, fine_edges, cumulative, first_photon,
-                                       radius_sorted, path_sorted)
-            sums[k, r] = high_value - low_value
+        _table_one(absorption[k], scale[k], lower, upper, fine_edges, cell_bin, cell_count,
+                   cell_mean, cell_var, cell_low, sums[k])
+
+
+@njit(cache=True)
+def table_sums_serial(
+    absorption, scale, lower, upper, fine_edges, cell_bin, cell_count, cell_mean, cell_var,
+    cell_low, sums,
+):
+    """:func:`table_sums` on one thread (few pairs: no thread start-up and join)."""
+    for k in range(absorption.shape[0]):
+        _table_one(absorption[k], scale[k], lower, upper, fine_edges, cell_bin, cell_count,
+                   cell_mean, cell_var, cell_low, sums[k])
