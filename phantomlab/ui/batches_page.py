@@ -29,6 +29,8 @@ __all__ = ["show"]
 TITLE = "Batch log"
 STATUSES = ("planned", "mixed", "characterised", "retired")
 KINDS = ("srdr", "sfdi", "slab", "optics")
+LOG_COLUMNS = ("batch", "recipe", "status", "planned on", "mixed on", "operator", "measurements",
+               "alarms", "notes")
 KIND_HELP = {
     "srdr": "wavelength_nm,rho_mm,reflectance_per_mm2[,sd] (or reflectance_relative)",
     "sfdi": "wavelength_nm,fx_per_mm,reflectance[,sd]",
@@ -98,7 +100,7 @@ def _log_table(batches: list[dict]) -> pd.DataFrame:
             "operator": batch["operator"] or "", "measurements": len(batch["measurements"]),
             "alarms": len(batch["actual_alarms"] or []), "notes": batch["notes"] or "",
         })
-    return pd.DataFrame(rows)
+    return pd.DataFrame(rows, columns=LOG_COLUMNS)
 
 
 # ---- one batch ------------------------------------------------------------------------------------

@@ -29,6 +29,14 @@ from phantomlab.ui.workspace import Workspace
 __all__ = ["show"]
 
 TITLE = "Design a phantom"
+#: Widget keys whose values outlive a visit to another page (see phantomlab.ui.main).
+KEEP = (
+    "design.start", "design.name", "design.matrix", "design.stocks", "design.size_by", "design.size",
+    "design.shape", "design.table_unit", "design.mua_tol", "design.musp_tol", "design.pl_wavelengths",
+    "design.pl_a", "design.pl_b", "design.pl_ref", "design.pl_mua", "design.lim_min_ul",
+    "design.lim_pipette_pct", "design.lim_balance_mg", "design.lim_solids_pct", "design.lim_steps",
+    "design.lim_dead_ml", "design.use_calibrated", "design.operator", "design.notes",
+)
 NEW_RECIPE = "(a new recipe)"
 SHAPES = ("Points", "Power law for μs′", "Spectrum file")
 TABLE_UNITS = {"1/mm": 1.0, "1/cm": 0.1}
@@ -138,6 +146,11 @@ def _stock_label(shelf, key: str) -> str:
 
 def _points_target(unit_factor: float) -> dict | None:
     version = st.session_state.get("design.editor_version", 0)
+    if f"design.points_editor.{version}" not in st.session_state and "design.points_current" in st.session_state:
+        # back from another page: the editor's edits are gone, its last table is not
+        st.session_state["design.points_data"] = st.session_state.pop("design.points_current")
+        version += 1
+        st.session_state["design.editor_version"] = version
     edited = st.data_editor(
         st.session_state["design.points_data"],
         num_rows="dynamic",
@@ -151,6 +164,7 @@ def _points_target(unit_factor: float) -> dict | None:
                 f"μs′ [{st.session_state['design.table_unit']}]", min_value=0.0, format="%g"),
         },
     )
+    st.session_state["design.points_current"] = edited
     table = edited.dropna(subset=[POINT_COLUMNS[0]])
     if table.empty:
         st.error("Target: give at least one row with a wavelength [nm].")
@@ -505,7 +519,8 @@ def show(workspace: Workspace) -> None:
         show_cautions([shelf[k] for k in chosen])
         return
 
-    use_calibrated = st.checkbox("Use the calibrated potencies from the batch log", value=True,
+    st.session_state.setdefault("design.use_calibrated", True)
+    use_calibrated = st.checkbox("Use the calibrated potencies from the batch log",
                                  key="design.use_calibrated")
     potencies = {}
     if use_calibrated:

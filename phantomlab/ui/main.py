@@ -66,12 +66,26 @@ def _demo_notice(workspace: Workspace) -> None:
     )
 
 
+def _keep_widget_state() -> None:
+    """Keep the values of the pages' fields while another page is shown.
+
+    Streamlit forgets the state of a widget that a run does not draw; writing the value back
+    at the top of the run keeps it (the documented way for pages drawn one at a time).
+    """
+    for module_name in PAGES.values():
+        module = importlib.import_module(module_name)
+        for key in getattr(module, "KEEP", ()):
+            if key in st.session_state:
+                st.session_state[key] = st.session_state[key]
+
+
 def main(argv: Sequence[str]) -> None:
     """Draw the page the side bar selects."""
     st.set_page_config(page_title="phantomlab", layout="wide")
     workspace = _workspace(argv)
     if workspace is None:
         return
+    _keep_widget_state()
     page = _side_bar(workspace)
     if workspace.is_demo:
         from phantomlab.ui.demo import ensure_demo_database

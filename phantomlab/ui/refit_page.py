@@ -79,6 +79,12 @@ def _baseline_section(workspace: Workspace, n: float):
 
     folder = _baseline_folder(workspace)
     files = sorted(p.name for p in folder.glob("*.npz"))
+    pending = st.session_state.pop("refit.baseline_pending", None)
+    if pending in files:
+        st.session_state["refit.baseline"] = pending
+    notice = st.session_state.pop("refit.baseline_notice", None)
+    if notice:
+        st.success(notice)
     st.markdown("**Monte Carlo baseline** — one simulation, re-weighted for every μa and μs′ of the fit.")
     chosen = st.selectbox("Baseline file", files + ["(build a new one)"], key="refit.baseline")
     if chosen != "(build a new one)":
@@ -104,9 +110,12 @@ def _baseline_section(workspace: Workspace, n: float):
             status.update(label="Baseline not built", state="error")
             return None
         built.value.save(target)
-        status.update(label=f"Baseline built in {time.monotonic() - started:.1f} s and kept as {target.name}",
-                      state="complete")
-    return built.value
+        status.update(label="Baseline built", state="complete")
+    st.session_state["refit.baseline_pending"] = target.name
+    st.session_state["refit.baseline_notice"] = (
+        f"Baseline built in {time.monotonic() - started:.1f} s ({int(photons):,} photons) and kept as "
+        f"{target.name}; later fits can use it.")
+    st.rerun()
 
 
 def _fit(text: str, kind: str, sidecar: dict, model: str, options: dict, baseline, power_law: bool):

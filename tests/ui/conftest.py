@@ -50,7 +50,7 @@ def demo_file(seeded_demo_file, tmp_path, monkeypatch) -> Path:
 
 
 @pytest.fixture
-def page(demo_file):
+def page(demo_file, downloads):
     """The page under AppTest, run once (it opens on the design page)."""
     from streamlit.testing.v1 import AppTest
 
@@ -94,3 +94,40 @@ def go_to_fixture():
 def shown_text_fixture():
     """The :func:`shown_text` helper, as a fixture."""
     return shown_text
+
+
+class _Downloads:
+    """Keeps the in-memory media of every AppTest run so a test can read a download's bytes."""
+
+    def __init__(self) -> None:
+        self.storages: list = []
+
+    def content(self, app, label: str) -> tuple[str, bytes]:
+        """(file name, bytes) of the download button whose label starts with ``label``."""
+        buttons = [b for b in app.get("download_button") if b.proto.label.startswith(label)]
+        assert buttons, f"no download button {label!r}; shown: {[b.proto.label for b in app.get('download_button')]}"
+        name = buttons[0].proto.url.rsplit("/", 1)[-1]
+        for storage in reversed(self.storages):
+            try:
+                found = storage.get_file(name)
+            except Exception:  # noqa: BLE001 - another run's storage
+                continue
+            return found.filename or name, bytes(found.content)
+        raise AssertionError(f"download {label!r} ({name}) not in any run's media")
+
+
+@pytest.fixture
+def downloads(monkeypatch):
+    """Read what a download button would hand the browser (AppTest keeps media per run)."""
+    import streamlit.testing.v1.app_test as app_test_module
+    from streamlit.runtime.memory_media_file_storage import MemoryMediaFileStorage
+
+    kept = _Downloads()
+
+    class KeptStorage(MemoryMediaFileStorage):
+        def __init__(self, media_endpoint: str) -> None:
+            super().__init__(media_endpoint)
+            kept.storages.append(self)
+
+    monkeypatch.setattr(app_test_module, "MemoryMediaFileStorage", KeptStorage)
+    return kept

@@ -1,0 +1,203 @@
+"""The batch log through the page (AppTest): list, record a batch's amounts, attach, status, spread.
+
+Interface tests: what the page writes is read back from the store, and what it shows is
+compared with the layers it calls (``phantomlab.recipe.predict``) and with plain statistics
+(the sample SD with n − 1, as numpy's ``std(ddof=1)`` defines it).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from phantomlab.recipe import load_recipe, predict, solve
+from phantomlab.ui.workspace import REPO_ROOT
+
+DEMO_RECIPE = REPO_ROOT / "recipes" / "demo-nir-liquid.toml"
+YEAR = _dt.date.today().year
+
+
+def _store(demo_file):
+    from phantomlab.store import open_store
+
+    return open_store(f"sqlite:///{demo_file}")
+
+
+@pytest.fixture
+def planned(demo_file):
+    """A third, planned batch of the demo recipe, recorded the way the design page does."""
+    from phantomlab.ui.recording import record_planned_batch
+
+    plan = solve(load_recipe(DEMO_RECIPE))
+    store = _store(demo_file)
+    try:
+        code = record_planned_batch(store, plan, operator="tester")
+    finally:
+        store.close()
+    return code, plan
+
+
+def _log(app) -> pd.DataFrame:
+    frames = [f.value for f in app.dataframe if "measurements" in f.value.columns and "batch" in f.value.columns]
+    assert frames, "the batch list is not shown"
+    return frames[0]
+
+
+def test_lists_the_demo_batches(page, go_to):
+    app = go_to(page, "Batch log")
+    table = _log(app)
+    assert list(table["batch"]) == [f"{YEAR}-001", f"{YEAR}-002"]
+    assert set(table["status"]) == {"characterised"}
+    assert list(table["measurements"]) == [2, 1]
+
+
+def test_filters_by_status(page, go_to):
+    app = go_to(page, "Batch log")
+    app.multiselect(key="batches.filter_status").set_value(["planned"]).run()
+    assert not app.exception
+    assert _log(app).empty
+    assert any("No batch matches" in c.value for c in app.caption)
+
+
+def _edit_amounts(app, code: str, values: list[float]) -> None:
+    app.session_state[f"batches.amounts_editor.{code}"] = {
+        "edited_rows": {i: {"dispensed (undiluted stock)": v} for i, v in enumerate(values)},
+        "added_rows": [], "deleted_rows": [],
+    }
+    [b for b in app.get("button") if b.proto.label == "Record the amounts"][0].click()
+    app.run()
+    assert not app.exception
+
+
+def test_recording_the_amounts_predicts_what_was_made(page, go_to, planned, demo_file):
+    code, plan = planned
+    app = go_to(page, "Batch log")
+    assert app.selectbox(key="batches.open").value == code
+    used = [d for d in plan.doses if d.used]
+    amounts = [d.volume_ml * 1.01 for d in used]
+    _edit_amounts(app, code, amounts)
+    assert any(f"Amounts of batch {code} recorded" in s.value for s in app.success)
+    from phantomlab.store import get_batch
+
+    store = _store(demo_file)
+    try:
+        with store.reading() as session:
+            batch = get_batch(session, code)
+            status, prediction = batch.status, batch.actual_prediction
+    finally:
+        store.close()
+    assert status == "mixed"
+    fractions = {d.stock: a / plan.batch_volume_ml for d, a in zip(used, amounts)}
+    expected = predict(load_recipe(DEMO_RECIPE), volume_fractions=fractions)
+    assert prediction["mua_per_mm"] == pytest.approx(list(expected.mua_per_mm), rel=1e-9)
+    assert prediction["musp_per_mm"] == pytest.approx(list(expected.musp_per_mm), rel=1e-9)
+    titles = [json.loads(c.proto.spec)["layout"]["title"]["text"] for c in app.get("plotly_chart")]
+    assert "μa of what was dispensed" in titles
+
+
+def test_amounts_far_from_the_sheet_raise_an_alarm(page, go_to, planned):
+    code, plan = planned
+    app = go_to(page, "Batch log")
+    used = [d for d in plan.doses if d.used]
+    _edit_amounts(app, code, [d.volume_ml * (2.0 if d.stock == "ink_black" else 1.0) for d in used])
+    assert any("leaves the tolerance" in e.value for e in app.error)
+
+
+def test_an_unfilled_amount_is_refused(page, go_to, planned):
+    code, _plan = planned
+    app = go_to(page, "Batch log")
+    [b for b in app.get("button") if b.proto.label == "Record the amounts"][0].click()
+    app.run()
+    assert any("fill every row" in e.value for e in app.error)
+
+
+OPTICS_FILE = ("# source: test data, invented\n"
+               "wavelength_nm,mua_per_mm,musp_per_mm,mua_sd_per_mm,musp_sd_per_mm\n"
+               "660,0.0101,1.02,0.0005,0.03\n700,0.0099,0.97,0.0005,0.03\n750,0.0121,0.93,0.0005,0.03\n"
+               "800,0.0118,0.88,0.0005,0.03\n850,0.0122,0.84,0.0005,0.03\n")
+
+
+def _attach(app, name: str, content: bytes):
+    app.selectbox(key="batches.kind").set_value("optics").run()
+    app.file_uploader(key="batches.file").set_value((name, content, "text/csv"))
+    [b for b in app.get("button") if b.proto.label == "Fit and attach"][0].click()
+    app.run()
+    assert not app.exception
+
+
+def test_attaching_a_measurement_keeps_the_file_and_its_fit(page, go_to, planned, demo_file):
+    code, _plan = planned
+    app = go_to(page, "Batch log")
+    _attach(app, "probe.csv", OPTICS_FILE.encode())
+    assert any("probe.csv attached" in s.value for s in app.success)
+    from phantomlab.store import fits_of, get_batch, measurements_of
+
+    store = _store(demo_file)
+    try:
+        with store.reading() as session:
+            (measurement,) = measurements_of(session, get_batch(session, code))
+            (fit,) = fits_of(session, measurement)
+            assert measurement.raw_content == OPTICS_FILE.encode()
+            assert fit.results["musp_per_mm"] == pytest.approx([1.02, 0.97, 0.93, 0.88, 0.84])
+    finally:
+        store.close()
+
+
+def test_a_bad_measurement_file_is_refused_and_nothing_is_stored(page, go_to, planned, demo_file):
+    code, _plan = planned
+    app = go_to(page, "Batch log")
+    bad = OPTICS_FILE.replace("0.0099", "-0.0099").encode()
+    _attach(app, "bad.csv", bad)
+    errors = [e.value for e in app.error]
+    assert errors and all("\n" not in e for e in errors)
+    from phantomlab.store import get_batch, measurements_of
+
+    store = _store(demo_file)
+    try:
+        with store.reading() as session:
+            assert measurements_of(session, get_batch(session, code)) == []
+    finally:
+        store.close()
+
+
+def test_status_moves_forward_and_the_history_keeps_every_version(page, go_to, planned):
+    code, _plan = planned
+    app = go_to(page, "Batch log")
+    app.selectbox(key=f"batches.status.{code}").set_value("retired")
+    app.text_input(key=f"batches.status_note.{code}").set_value("test: dropped")
+    app.button(key=f"batches.status_button.{code}").click().run()
+    assert not app.exception
+    assert any("is now retired" in s.value for s in app.success)
+    app.multiselect(key="batches.filter_status").set_value(["retired"]).run()
+    history = [f.value for f in app.dataframe if "change" in f.value.columns][0]
+    assert list(history["status"]) == ["planned", "retired"]
+    assert history["change"].iloc[-1] == "test: dropped"
+
+
+def test_spread_across_batches_and_drift_with_age(page, go_to, downloads, demo_file):
+    app = go_to(page, "Batch log")
+    titles = [json.loads(c.proto.spec)["layout"]["title"]["text"] for c in app.get("plotly_chart")]
+    for title in ("Spread of μa across batches", "Spread of μs′ across batches",
+                  "Drift of μa with phantom age", "Drift of μs′ with phantom age"):
+        assert title in titles
+    spread = [f.value for f in app.dataframe if "μs′ CV [%]" in f.value.columns][0]
+    # independent: per batch the mean of its fits, then the sample SD (n - 1) over the batches
+    from phantomlab.store import fits_of, list_batches, measurements_of
+
+    store = _store(demo_file)
+    per_batch = {}
+    try:
+        with store.reading() as session:
+            for batch in list_batches(session):
+                fits = [fits_of(session, m)[-1].results for m in measurements_of(session, batch)]
+                per_batch[batch.code] = np.mean([f["musp_per_mm"] for f in fits], axis=0)
+    finally:
+        store.close()
+    values = np.array(list(per_batch.values()))
+    expected = 100 * values.std(axis=0, ddof=1) / values.mean(axis=0)
+    assert spread["μs′ CV [%]"].to_numpy() == pytest.approx(expected, rel=1e-9)
+    assert set(spread["batches"]) == {2}

@@ -1,0 +1,145 @@
+"""Fit and correct through the page (AppTest): refit, recalibrate, corrected plan, top-up.
+
+Interface tests: the fit shown is the calibration layer's fit of the stored file; the
+recalibration is read back from the store.  One end-to-end check uses the demo's own
+construction: its measurements were made (by the transport layer's diffusion model) from
+invented "true" potencies (``phantomlab.ui.demo.DEMO_TRUE_POTENCIES``), so recalibrating
+from them must move each informed potency from the stock file's 1.0 towards that truth.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+
+import pytest
+
+from phantomlab.ui.demo import DEMO_SIDECAR, DEMO_TRUE_POTENCIES
+
+YEAR = _dt.date.today().year
+
+
+@pytest.fixture
+def refit(page, go_to):
+    return go_to(page, "Fit and correct")
+
+
+def _titles(app):
+    return [json.loads(c.proto.spec)["layout"]["title"]["text"] for c in app.get("plotly_chart")]
+
+
+def test_carries_the_caution_for_lasers_and_bright_sources(refit, shown_text):
+    text = shown_text(refit)
+    assert "Lasers and bright sources" in text
+    assert "laser" in text and "eyewear" in text
+    assert "not a certified reference standard" in text
+
+
+def test_fit_of_a_stored_measurement_shows_data_model_residuals_and_target(refit, demo_file):
+    import tomllib
+
+    from phantomlab.calibration import fit_measurement_file
+    from phantomlab.store import get_measurement, open_store
+
+    assert refit.selectbox(key="refit.measurement").value.startswith(f"batch {YEAR}-001")
+    titles = _titles(refit)
+    for title in ("Data and fitted model", "Normalised residuals", "Fitted μa against target",
+                  "Fitted μs′ against target"):
+        assert title in titles
+    shown = [m.value for m in refit.markdown if m.value.startswith("Model **")][0]
+    label = refit.selectbox(key="refit.measurement").value
+    measurement_id = int(label.rsplit("id ", 1)[1].rstrip(")"))
+    store = open_store(f"sqlite:///{demo_file}")
+    try:
+        with store.reading() as session:
+            raw = get_measurement(session, measurement_id).raw_content.decode()
+    finally:
+        store.close()
+    expected = fit_measurement_file(raw, kind="srdr", sidecar=tomllib.loads(DEMO_SIDECAR), n=1.33)
+    assert f"Model **{expected.model}**" in shown
+    assert f"reduced χ² **{expected.chi2_red:.3g}**" in shown
+
+
+def test_another_model_can_be_chosen(refit):
+    refit.selectbox(key="refit.model.srdr").set_value("kienle1997").run()
+    assert not refit.exception
+    assert any("diffusion-kienle1997" in m.value for m in refit.markdown)
+
+
+def test_a_monte_carlo_baseline_is_built_with_a_progress_indicator_and_used(refit, demo_file):
+    refit.selectbox(key="refit.model.srdr").set_value("mc").run()
+    assert any("Choose or build a baseline" in i.value for i in refit.info)
+    refit.number_input(key="refit.photons").set_value(20_000)
+    refit.button(key="refit.build").click().run()
+    assert not refit.exception
+    assert any("Baseline built" in s.value for s in refit.success)
+    assert any("mc-lookup" in m.value for m in refit.markdown)
+    assert list((demo_file.parent / "baselines").glob("*.npz"))
+
+
+def test_keeping_a_fit_adds_it_to_the_measurement(refit, demo_file):
+    from phantomlab.store import fits_of, get_measurement, open_store
+
+    label = refit.selectbox(key="refit.measurement").value
+    measurement_id = int(label.rsplit("id ", 1)[1].rstrip(")"))
+    refit.button(key="refit.keep").click().run()
+    assert any("Fit kept" in s.value for s in refit.success)
+    store = open_store(f"sqlite:///{demo_file}")
+    try:
+        with store.reading() as session:
+            assert len(fits_of(session, get_measurement(session, measurement_id))) == 2
+    finally:
+        store.close()
+
+
+def _recalibrate(app):
+    app.button(key="calibrate.run").click().run()
+    assert not app.exception
+    return [f.value for f in app.dataframe if "potency after" in f.value.columns][0].set_index("stock")
+
+
+def test_recalibration_shows_before_and_after_and_moves_towards_the_demo_truth(refit, demo_file):
+    table = _recalibrate(refit)
+    assert any("Calibration recorded" in s.value for s in refit.success)
+    assert table.loc["lipid20", "potency before"] == "1.000 ± 0.030"  # the demo shelf's prior
+    assert table.loc["ink_black", "potency before"] == "1.000 ± 0.150"
+    for stock, truth in DEMO_TRUE_POTENCIES.items():
+        after = float(table.loc[stock, "potency after"].split(" ± ")[0])
+        assert abs(after - truth) < abs(1.0 - truth), (stock, after, truth)
+    assert "Potency of each stock lot across calibrations" in _titles(refit)
+    from phantomlab.store import latest_potencies, open_store
+
+    store = open_store(f"sqlite:///{demo_file}")
+    try:
+        stored = latest_potencies(store)
+    finally:
+        store.close()
+    assert set(stored) == set(DEMO_TRUE_POTENCIES)
+
+
+def test_after_recalibration_the_design_page_plans_with_the_calibrated_potencies(refit, go_to):
+    _recalibrate(refit)
+    design = go_to(refit, "Design a phantom")
+    doses = [f.value for f in design.dataframe if "potency" in f.value.columns][0]
+    assert doses["potency"].str.contains("calibrated").all()
+
+
+def test_corrected_plan_compares_with_the_batch_and_can_be_saved(refit, demo_file):
+    _recalibrate(refit)
+    comparison = [f.value for f in refit.dataframe if "next batch [mL undiluted]" in f.value.columns][0]
+    ink = comparison.set_index("stock").loc["ink_black"]
+    # the ink came out weaker than its file said (demo truth 0.85): the next batch takes more of it
+    assert ink["change [%]"] > 0
+    refit.button(key="correct.save").click().run()
+    assert not refit.exception
+    assert any(f"{YEAR}-003" in s.value for s in refit.success)
+
+
+def test_top_up_of_a_liquid_batch_lists_what_to_add(refit):
+    tables = [f.value for f in refit.dataframe if "add" in f.value.columns]
+    assert tables, "no top-up table"
+    additions = tables[0]
+    assert additions["add"].iloc[-1] == "water (diluent)"
+    assert (additions["volume [mL]"] >= 0).all()
+    errors = [f.value for f in refit.dataframe if "μa after [%]" in f.value.columns][0]
+    assert errors["μa after [%]"].abs().max() <= errors["μa now vs target [%]"].abs().max()
