@@ -642,10 +642,12 @@ def _geometry(measurement, options) -> dict[str, Any] | None:
         geometry.update({k: v for k, v in to_jsonable(metadata).items() if v is not None}
                         if not isinstance(metadata, dict) else metadata)
     geometry.update({k: v for k, v in options.items() if v is not None and k != "baseline"})
-    for key in ("rho_mm", "fx_per_mm"):
-        values = getattr(measurement, key, None)
-        if values is not None:
-            geometry[key] = sorted({float(v) for v in np.ravel(values)})
+    axis_name = getattr(measurement, "axis_name", None)
+    axis = getattr(measurement, "axis", None)
+    if axis_name and axis is not None and np.size(axis):
+        geometry[axis_name] = sorted({float(v) for v in np.ravel(axis)})
+    if not geometry.get("reference"):
+        geometry.pop("reference", None)
     return to_jsonable(geometry) or None
 
 

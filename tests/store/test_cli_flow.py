@@ -224,3 +224,40 @@ def test_default_database_is_created_in_the_working_folder(tmp_path, monkeypatch
     monkeypatch.setenv("PHANTOMLAB_DB", f"sqlite:///{tmp_path / 'env.sqlite'}")
     status, listed, _ = run(capsys, "batch", "list", "--json")
     assert listed["batches"] == [] and (tmp_path / "env.sqlite").is_file()
+
+
+def test_measure_stores_the_raw_file_and_sidecar_and_fits_srdr(db_url, tmp_path, capsys):
+    """The fit is the calibration layer's; here: it runs, and file and result are kept."""
+    import numpy as np
+
+    from phantomlab.store import get_batch, measurements_of, open_store
+    from phantomlab.transport.diffusion import srdr_reflectance
+
+    _, added, _ = run(capsys, "batch", "add", RECIPE, "--db", db_url, "--json")
+    wavelength, rho = np.array([660.0, 750.0]), np.array([1.5, 2.0, 3.0, 4.0, 5.0, 6.0])
+    mua, musp = np.array([0.010, 0.012]), np.array([1.10, 1.00])
+    reflectance = srdr_reflectance(mua_per_mm=mua, musp_per_mm=musp, rho_mm=rho, n=1.33, model="farrell1992")
+    lines = ["# source: demo data, invented (diffusion forward model)", "wavelength_nm,rho_mm,reflectance_per_mm2,sd"]
+    lines += [f"{w:g},{r:g},{float(v)!r},{float(v) * 0.01!r}"
+              for w, row in zip(wavelength, reflectance) for r, v in zip(rho, row)]
+    measured = tmp_path / "probe.csv"
+    measured.write_text("\n".join(lines) + "\n")
+    (tmp_path / "probe.toml").write_text('# demo data, invented\nn = 1.33\ninstrument = "demo probe"\n')
+    status, result, err = run(capsys, "batch", "measure", added["batch_id"], measured, "--kind", "srdr",
+                              "--db", db_url, "--json")
+    assert status == 0, err
+    assert result["fit_ran"] is True
+    assert result["fit"]["mua_per_mm"] == pytest.approx(mua, rel=1e-4)
+    assert result["fit"]["musp_per_mm"] == pytest.approx(musp, rel=1e-4)
+    store = open_store(db_url)
+    with store.reading() as session:
+        (row,) = measurements_of(session, get_batch(session, added["batch_id"]))
+        assert row.raw_content == measured.read_bytes()
+        assert row.metadata_toml == (tmp_path / "probe.toml").read_text()
+        assert row.instrument == "demo probe" and row.geometry["rho_mm"] == rho.tolist()
+    store.close()
+
+    status, stored_only, _ = run(capsys, "batch", "measure", added["batch_id"], measured, "--kind", "srdr",
+                                 "--no-fit", "--db", db_url, "--json")
+    assert status == 0 and stored_only["fit"] is None and stored_only["fit_ran"] is False
+    assert any("no fit ran" in w for w in stored_only["warnings"])
