@@ -315,7 +315,7 @@ def render_batch_record_html(record: dict[str, Any]) -> str:
         "<h2>Planned and actual amounts (undiluted stock)</h2>",
         _table(["stock", "planned [mL]", "planned [g]", "actual [mL]", "actual [g]", "difference [%]"],
                [[a["stock"], a["planned_volume_ml"], a["planned_mass_g"], a["actual_volume_ml"],
-                 a["actual_mass_g"], a["difference_percent"]] for a in r["amounts"]]),
+                 a["actual_mass_g"], _percent(a["difference_percent"])] for a in r["amounts"]]),
     ]
     for alarm in r["alarms"]:
         parts.append(f"<p class='caution'>{html.escape(alarm)}</p>")
@@ -332,7 +332,7 @@ def render_batch_record_html(record: dict[str, Any]) -> str:
         ["quantity", "λ [nm]", "target [1/mm]", "measured [1/mm]", "SD [1/mm]", "deviation [%]",
          "tolerance [±%]", "result"],
         [[c["quantity"].replace("musp", "μs′").replace("mua", "μa"), c["wavelength_nm"], c["target_per_mm"],
-          c["measured_per_mm"], c["measured_sd_per_mm"], c["deviation_percent"], c["tolerance_percent"],
+          c["measured_per_mm"], c["measured_sd_per_mm"], _percent(c["deviation_percent"]), c["tolerance_percent"],
           {True: "pass", False: "FAIL", None: "–"}[c["pass"]]] for c in r["checks"]],
         classes=[{True: "pass", False: "fail", None: ""}[c["pass"]] for c in r["checks"]],
     ))
@@ -340,7 +340,7 @@ def render_batch_record_html(record: dict[str, Any]) -> str:
     parts.append(f"<h2>All batches of this recipe ({s['batches']} batches with fits, {s['fits']} fits)</h2>")
     rows = []
     for i, w in enumerate(s["wavelength_nm"]):
-        rows.append([w, s["mua_cv_percent"][i], s["musp_cv_percent"][i],
+        rows.append([w, _cv(s["mua_cv_percent"][i]), _cv(s["musp_cv_percent"][i]),
                      _drift(s, "mua", i), _drift(s, "musp", i)])
     parts.append(_table(["λ [nm]", "μa CV [%]", "μs′ CV [%]", "μa drift [%/30 d] ± SE",
                          "μs′ drift [%/30 d] ± SE"], rows))
@@ -357,6 +357,14 @@ def render_batch_record_html(record: dict[str, Any]) -> str:
         "</body></html>",
     ]
     return "\n".join(parts)
+
+
+def _cv(value: float | None) -> str | None:
+    return None if value is None else f"{value:.2f}"
+
+
+def _percent(value: float | None) -> str | None:
+    return None if value is None or not math.isfinite(value) else f"{value:+.1f}"
 
 
 def _drift(series: dict[str, Any], name: str, i: int) -> str | None:

@@ -261,3 +261,29 @@ def test_measure_stores_the_raw_file_and_sidecar_and_fits_srdr(db_url, tmp_path,
                                  "--no-fit", "--db", db_url, "--json")
     assert status == 0 and stored_only["fit"] is None and stored_only["fit_ran"] is False
     assert any("no fit ran" in w for w in stored_only["warnings"])
+
+
+def test_batch_add_uses_calibrated_potency_of_the_lot_on_the_shelf_only(db_url, tmp_path, capsys):
+    from phantomlab.store import open_store, record_calibration
+
+    _, uncalibrated, _ = run(capsys, "batch", "add", RECIPE, "--db", db_url, "--json")
+    store = open_store(db_url)
+    with store.transaction() as session:
+        record_calibration(session, potencies={("lipid20", "demo-LE20-0555"): (1.10, 0.02),
+                                               ("ink_black", "another-bottle"): (2.0, 0.1)},
+                           computed_from={"batches": [uncalibrated["batch_id"]]}, method="demo")
+    store.close()
+    _, calibrated, _ = run(capsys, "batch", "add", RECIPE, "--db", db_url, "--json")
+    used = calibrated["potencies_used"]
+    assert used["lipid20"]["source"] == "calibrated" and used["lipid20"]["potency"] == 1.10
+    assert used["lipid20"]["calibration_state_id"] is not None
+    assert used["ink_black"]["source"] == "shelf"  # a calibration of another bottle is not applied
+    before = {d["stock"]: d["volume_fraction"] for d in uncalibrated["doses"]}
+    after = {d["stock"]: d["volume_fraction"] for d in calibrated["doses"]}
+    # a stronger emulsion lot needs less of it for the same target (potency scales all its optics)
+    assert after["lipid20"] == pytest.approx(before["lipid20"] / 1.10, rel=1e-3)
+    status, reviewed, _ = run(capsys, "batch", "record", calibrated["batch_id"], "--html", tmp_path / "r.html",
+                              "--db", db_url, "--json")
+    assert status == 0
+    text = (tmp_path / "r.html").read_text()
+    assert "Calibration state" in text and "method demo" in text
