@@ -313,3 +313,15 @@ def test_bad_inputs_are_refused_with_one_line(change, message):
 def test_mua_zero_is_accepted_in_a_slab():
     result = simulate(**{**GOOD, "mua_per_mm": 0.0, "thickness_mm": 1.0})
     assert result.absorbed_fraction == 0.0
+
+
+def test_concurrent_calls_from_python_threads_give_the_sequential_numbers():
+    # a page serving two sessions calls the engine from two threads at once
+    from concurrent.futures import ThreadPoolExecutor
+
+    cases = [dict(mua_per_mm=0.1, mus_per_mm=2.0, g=0.5, n=1.4, photons=3_000, seed=s)
+             for s in (1, 2, 3, 4)]
+    sequential = [simulate(**case).diffuse_reflectance for case in cases]
+    with ThreadPoolExecutor(max_workers=4) as pool:
+        concurrent = list(pool.map(lambda case: simulate(**case).diffuse_reflectance, cases))
+    assert concurrent == sequential

@@ -60,6 +60,7 @@ from phantomlab.transport.montecarlo._validate import (
 )
 from phantomlab.transport.montecarlo.simulate import (
     DEFAULT_BATCHES,
+    KERNEL_LOCK,
     _split,
     rho_bin_edges_mm,
     specular_reflectance,
@@ -298,7 +299,8 @@ class Baseline:
         absorption, _, _, scalar = self._targets(mua_per_mm, mus_per_mm)
         sums = np.zeros(absorption.size)
         squares = np.zeros(absorption.size)
-        _baseline_kernels.total_sums(self.path_length_mm, absorption, sums, squares)
+        with KERNEL_LOCK:
+            _baseline_kernels.total_sums(self.path_length_mm, absorption, sums, squares)
         value, sd = self._mean_sd(sums, squares, 1.0)
         return (float(value[0]), float(sd[0])) if scalar else (value, sd)
 
@@ -321,12 +323,16 @@ class Baseline:
         squares = np.zeros_like(sums)
         if method == "photons":
             radius, path = self._sorted()
-            _baseline_kernels.exact_sums(radius, path, absorption, scale, lower, upper, sums, squares)
+            with KERNEL_LOCK:
+                _baseline_kernels.exact_sums(radius, path, absorption, scale, lower, upper, sums,
+                                             squares)
         else:
             table = self._table()
-            kernel = (_baseline_kernels.table_sums if absorption.size >= PARALLEL_PAIRS
-                      else _baseline_kernels.table_sums_serial)
-            kernel(absorption, scale, lower, upper, *table, sums)
+            if absorption.size >= PARALLEL_PAIRS:
+                with KERNEL_LOCK:
+                    _baseline_kernels.table_sums(absorption, scale, lower, upper, *table, sums)
+            else:
+                _baseline_kernels.table_sums_serial(absorption, scale, lower, upper, *table, sums)
         values, sd = self._mean_sd(sums, squares, area[None, :])
         if scalar:
             values, sd = values[0], sd[0]
@@ -476,19 +482,20 @@ def build_baseline(
     tallies = np.zeros((batches, len(_kernels.TALLY_NAMES)))
     launch_weight = 1.0 - specular_reflectance(n=inputs["n"], n_outside=inputs["n_outside"])
     warm_up()
-    previous = numba.get_num_threads()
-    numba.set_num_threads(threads)
-    try:
-        start = time.perf_counter()
-        _kernels.run_3d(
-            counts, states, inputs["mua_per_mm"], inputs["mus_per_mm"], inputs["g"], inputs["n"],
-            inputs["n_outside"], 0.0, inputs["n_outside"], 0.0, math.inf, True, launch_weight,
-            0.0, 1.0, np.zeros(0), tallies, np.zeros((batches, 1)), True, rec_rho, rec_path,
-            rec_nscat, rec_count,
-        )
-        seconds = time.perf_counter() - start
-    finally:
-        numba.set_num_threads(previous)
+    with KERNEL_LOCK:
+        previous = numba.get_num_threads()
+        numba.set_num_threads(threads)
+        try:
+            start = time.perf_counter()
+            _kernels.run_3d(
+                counts, states, inputs["mua_per_mm"], inputs["mus_per_mm"], inputs["g"],
+                inputs["n"], inputs["n_outside"], 0.0, inputs["n_outside"], 0.0, math.inf, True,
+                launch_weight, 0.0, 1.0, np.zeros(0), tallies, np.zeros((batches, 1)), True,
+                rec_rho, rec_path, rec_nscat, rec_count,
+            )
+            seconds = time.perf_counter() - start
+        finally:
+            numba.set_num_threads(previous)
     pieces = [slice(0, int(c)) for c in rec_count]
     return Baseline(
         exit_radius_mm=np.concatenate([rec_rho[b, s] for b, s in enumerate(pieces)]),

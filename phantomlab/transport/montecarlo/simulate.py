@@ -17,6 +17,7 @@ average (within its standard error) for the weighted one.
 from __future__ import annotations
 
 import math
+import threading
 import time
 from dataclasses import asdict, dataclass
 
@@ -224,6 +225,10 @@ def _mean_and_se(values: np.ndarray, counts: np.ndarray) -> tuple[np.ndarray, np
 
 _WARMED: set[str] = set()
 
+#: Held around every parallel kernel launch: numba's fallback thread pool ("workqueue") must
+#: not be entered from two Python threads at once (a page serving two sessions would do that).
+KERNEL_LOCK = threading.RLock()
+
 
 def _empty_records(batches: int):
     return (
@@ -243,6 +248,13 @@ def warm_up() -> float:
     start = time.perf_counter()
     if "kernels" in _WARMED:
         return 0.0
+    with KERNEL_LOCK:
+        _warm_kernels()
+        _WARMED.add("kernels")
+    return time.perf_counter() - start
+
+
+def _warm_kernels() -> None:
     states = batch_states(0, 1)
     counts = np.ones(1, dtype=np.int64)
     tallies = np.zeros((1, len(_kernels.TALLY_NAMES)))
@@ -254,8 +266,6 @@ def warm_up() -> float:
                         analog, 1.0, 1e-4, 0.1, edges, tallies, rho, False, *rec)
         _kernels.run_rod(counts, states.copy(), 0.1, 1.0, 0.2, 1.4, 1.0, 0.0, 1.0, 0.0, 1.0,
                          analog, 1.0, 1e-4, 0.1, tallies)
-    _WARMED.add("kernels")
-    return time.perf_counter() - start
 
 
 def _check_common(*, mua_per_mm, mus_per_mm, g, n, n_outside, n_slide, thickness_mm):
@@ -283,6 +293,26 @@ def _check_common(*, mua_per_mm, mus_per_mm, g, n, n_outside, n_slide, thickness
         if thickness <= 0.0:
             raise InputError(f"thickness_mm must be > 0 [mm] (or None: semi-infinite), got {thickness:g}")
     return mua, mus, g, n, n_outside, slide, thickness
+
+
+def _launch(geometry, counts, states, mua, mus, g, backscatter, n, n_outside, slide_top,
+            slide_bottom, depth, analog, launch_weight, roulette_threshold, roulette_survival,
+            kernel_edges, tallies, rho_weights, batches) -> float:
+    """Run the kernel of one geometry; return its wall time [s]."""
+    start = time.perf_counter()
+    if geometry == "3d":
+        _kernels.run_3d(
+            counts, states, mua, mus, g, n, n_outside, slide_top, n_outside, slide_bottom,
+            depth, analog, launch_weight, roulette_threshold * launch_weight, roulette_survival,
+            kernel_edges, tallies, rho_weights, False, *_empty_records(batches),
+        )
+    else:
+        _kernels.run_rod(
+            counts, states, mua, mus, backscatter, n, n_outside, slide_top, n_outside,
+            slide_bottom, depth, analog, launch_weight, roulette_threshold * launch_weight,
+            roulette_survival, tallies,
+        )
+    return time.perf_counter() - start
 
 
 def simulate(
@@ -419,26 +449,16 @@ def simulate(
     kernel_edges = np.zeros(0) if edges is None else edges
 
     warm_up()
-    previous_threads = numba.get_num_threads()
-    numba.set_num_threads(threads)
-    try:
-        start = time.perf_counter()
-        if geometry == "3d":
-            _kernels.run_3d(
-                counts, states, mua, mus, g, n, n_outside, slide_top, n_outside, slide_bottom,
-                depth, analog, launch_weight, roulette_threshold * launch_weight, roulette_survival,
-                kernel_edges, tallies, rho_weights, False,
-                *_empty_records(batches),
-            )
-        else:
-            _kernels.run_rod(
-                counts, states, mua, mus, backscatter, n, n_outside, slide_top, n_outside,
-                slide_bottom, depth, analog, launch_weight, roulette_threshold * launch_weight,
-                roulette_survival, tallies,
-            )
-        seconds = time.perf_counter() - start
-    finally:
-        numba.set_num_threads(previous_threads)
+    with KERNEL_LOCK:
+        previous_threads = numba.get_num_threads()
+        numba.set_num_threads(threads)
+        try:
+            seconds = _launch(geometry, counts, states, mua, mus, g, backscatter, n, n_outside,
+                              slide_top, slide_bottom, depth, analog, launch_weight,
+                              roulette_threshold, roulette_survival, kernel_edges, tallies,
+                              rho_weights, batches)
+        finally:
+            numba.set_num_threads(previous_threads)
 
     names = _kernels.TALLY_NAMES
     columns = {name: tallies[:, i] for i, name in enumerate(names)}
