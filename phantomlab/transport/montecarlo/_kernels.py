@@ -138,6 +138,7 @@ def _photons_3d(
     g2 = g * g
     recorded = 0
     interactions = 0
+    absorbed_total = 0.0
     for _ in range(n_photons):
         x = 0.0
         y = 0.0
@@ -221,7 +222,7 @@ def _photons_3d(
                     break
             else:
                 absorbed = weight * (1.0 - albedo)
-                tallies[_ABS] += absorbed
+                absorbed_total += absorbed
                 weight -= absorbed
                 if weight < threshold:  # roulette before the scattering is drawn
                     weight = _roulette(state, weight, survival, tallies)
@@ -241,7 +242,9 @@ def _photons_3d(
             sin_theta = math.sqrt(1.0 - cos_theta * cos_theta)
             phi = _TWO_PI * uniform(state)
             cos_phi = math.cos(phi)
-            sin_phi = math.sin(phi)
+            sin_phi = math.sqrt(max(0.0, 1.0 - cos_phi * cos_phi))
+            if phi > math.pi:
+                sin_phi = -sin_phi
             if abs(uz) > 0.99999:
                 ux = sin_theta * cos_phi
                 uy = sin_theta * sin_phi
@@ -256,6 +259,7 @@ def _photons_3d(
                 uy = new_uy
             nscat += 1
     tallies[_INTER] += interactions
+    tallies[_ABS] += absorbed_total
     return recorded
 
 
