@@ -81,6 +81,8 @@ class MonteCarloResult:
     roulette_balance : float
         Weight created minus weight destroyed by Russian roulette (weighted estimator);
         zero on average, exactly 0 for the analog estimator.
+    n_slide : tuple or None
+        Slide indices (top, bottom) as used (None entries: bare face), or None.
     rho_mm, rho_edges_mm : ndarray or None [mm]
         Radial bin centres as given and the bin edges used (midpoints between centres).
     reflectance_per_mm2, reflectance_per_mm2_sd : ndarray or None [1/mm²]
@@ -386,6 +388,11 @@ def simulate(
         distribution at the medium surface.
     batches : int, default 32
         Independent batches (each its own random stream) for the standard errors.
+    roulette_threshold : float, default 0.1
+        Weighted estimator: Russian roulette is played below this fraction of the launch
+        weight, in [0, 1) (any value is unbiased; it trades variance for time).
+    roulette_survival : float, default 0.1
+        Weighted estimator: the survival probability of a roulette game, in (0, 1].
 
     Returns
     -------
