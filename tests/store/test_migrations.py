@@ -10,7 +10,7 @@ from alembic.runtime.migration import MigrationContext
 from sqlalchemy import create_engine, inspect, text
 
 from phantomlab.errors import InputError
-from phantomlab.store import get_batch, measurements_of, open_store
+from phantomlab.store import get_batch, latest_potencies, measurements_of, open_store, record_calibration
 from phantomlab.store.migrate import current_revision, head_revision, upgrade
 from phantomlab.store.schema import Base
 
@@ -40,19 +40,26 @@ def test_upgrade_from_the_first_schema_keeps_data(db_url):
     now = _dt.datetime(2026, 3, 1, 12, 0)
     with engine.begin() as connection:
         connection.execute(text(
-            "INSERT INTO recipes (id, uid, version, retracted, recorded_at, name, content_hash, definition) "
-            "VALUES (1, 'r1', 1, false, :now, 'old recipe', 'h1', '{}')"), {"now": now})
+            "INSERT INTO recipes (uid, version, retracted, recorded_at, name, content_hash, definition) "
+            "VALUES ('r1', 1, false, :now, 'old recipe', 'h1', '{}')"), {"now": now})
         connection.execute(text(
-            "INSERT INTO batch_plans (id, recipe_id, plan, potencies_used, software_version, created_at) "
-            "VALUES (1, 1, '{\"doses\": []}', '{}', '0.0.9', :now)"), {"now": now})
+            "INSERT INTO batch_plans (recipe_id, plan, potencies_used, software_version, created_at) "
+            "SELECT id, '{\"doses\": []}', '{}', '0.0.9', :now FROM recipes WHERE uid = 'r1'"), {"now": now})
         connection.execute(text(
-            "INSERT INTO batches (id, uid, version, retracted, recorded_at, code, plan_id, status, planned_on) "
-            "VALUES (1, 'b1', 1, false, :now, '2026-001', 1, 'planned', :day)"),
+            "INSERT INTO batches (uid, version, retracted, recorded_at, code, plan_id, status, planned_on) "
+            "SELECT 'b1', 1, false, :now, '2026-001', MAX(id), 'planned', :day FROM batch_plans"),
             {"now": now, "day": now.date()})
         connection.execute(text(
-            "INSERT INTO measurements (id, uid, version, retracted, recorded_at, batch_id, kind, file_name, "
-            "raw_content, content_sha256) VALUES (1, 'm1', 1, false, :now, 1, 'optics', 'm.csv', :raw, 'x')"),
+            "INSERT INTO measurements (uid, version, retracted, recorded_at, batch_id, kind, file_name, "
+            "raw_content, content_sha256) SELECT 'm1', 1, false, :now, id, 'optics', 'm.csv', :raw, 'x' "
+            "FROM batches WHERE uid = 'b1'"),
             {"now": now, "raw": b"wavelength_nm,mua_per_mm,musp_per_mm\n650,0.01,1.0\n"})
+        connection.execute(text(
+            "INSERT INTO calibration_states (uid, version, retracted, recorded_at, method, computed_from, "
+            "software_version) VALUES ('c1', 1, false, :now, 'old method', '{}', '0.0.9')"), {"now": now})
+        connection.execute(text(
+            "INSERT INTO calibration_potencies (state_id, stock_key, lot, potency, potency_sd) "
+            "SELECT id, 'dyeA', 'L1', 1.25, 0.05 FROM calibration_states WHERE uid = 'c1'"))
     engine.dispose()
 
     store = open_store(db_url)  # upgrades in place
@@ -64,6 +71,10 @@ def test_upgrade_from_the_first_schema_keeps_data(db_url):
         (measurement,) = measurements_of(session, batch)
         assert measurement.raw_content == b"wavelength_nm,mua_per_mm,musp_per_mm\n650,0.01,1.0\n"
         assert measurement.temperature_c is None
+    assert latest_potencies(store) == {"dyeA": (1.25, 0.05, "L1")}
+    with store.transaction() as session:  # 0003: a second lot of the same stock in one state
+        record_calibration(session, potencies={("dyeA", "L1"): (1.2, 0.05), ("dyeA", "L2"): (0.9, 0.05)},
+                           computed_from={}, method="new method")
     store.close()
 
 
