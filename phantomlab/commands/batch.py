@@ -8,6 +8,7 @@
     phantomlab batch show BATCH_ID
     phantomlab batch record BATCH_ID --html FILE.html
     phantomlab batch retract BATCH_ID --reason TEXT
+    phantomlab batch correct BATCH_ID --reason TEXT [--set-operator NAME] [--set-notes TEXT] ...
     phantomlab batch export FILE.zip
 
 Every sub-command takes ``--db URL`` (default ``$PHANTOMLAB_DB``, else ``phantomlab.sqlite``
@@ -116,12 +117,20 @@ def register(subparsers) -> None:
     retract.add_argument("--reason", required=True, metavar="TEXT")
     retract.add_argument("--operator", metavar="NAME")
 
+    fix = actions.add_parser("correct", help="correct a batch's operator, notes or mixing date (a new version)")
+    fix.add_argument("batch_id", metavar="BATCH_ID")
+    fix.add_argument("--reason", required=True, metavar="TEXT", help="why (kept in the history)")
+    fix.add_argument("--set-operator", metavar="NAME")
+    fix.add_argument("--set-notes", metavar="TEXT", help="replaces the notes")
+    fix.add_argument("--set-mixed-on", metavar="DATE", help="YYYY-MM-DD")
+    fix.add_argument("--operator", metavar="NAME", help="who makes the correction")
+
     export = actions.add_parser("export", help="the whole lab as one archive (zip of JSON and CSV)")
     export.add_argument("archive", metavar="FILE.zip")
 
     handlers = {
         add: _add, actual: _actual, status: _status, measure: _measure, listing: _list,
-        show: _show, record: _record, retract: _retract, export: _export,
+        show: _show, record: _record, retract: _retract, fix: _correct, export: _export,
     }
     for parser, handler in handlers.items():
         add_db_option(parser)
@@ -131,7 +140,9 @@ def register(subparsers) -> None:
 
 
 def _no_action(args) -> CommandResult:
-    raise InputError("batch: give an action: add, actual, status, measure, list, show, record, retract, export")
+    raise InputError(
+        "batch: give an action: add, actual, status, measure, list, show, record, retract, correct, export"
+    )
 
 
 # ---- small helpers ---------------------------------------------------------------------------
@@ -509,6 +520,33 @@ def _retract(args) -> CommandResult:
     payload = {"batch_id": updated.code, "retracted": True, "version": updated.version,
                "reason": updated.change_note}
     return CommandResult(payload=payload, text=f"batch {updated.code} retracted (its records stay): {updated.change_note}")
+
+
+def _correct(args) -> CommandResult:
+    from phantomlab.store import correct, get_batch
+
+    changes: dict[str, Any] = {}
+    if args.set_operator is not None:
+        changes["operator"] = args.set_operator
+    if args.set_notes is not None:
+        changes["notes"] = args.set_notes
+    if args.set_mixed_on is not None:
+        changes["mixed_on"] = _date(args.set_mixed_on, option="--set-mixed-on")
+    if not changes:
+        raise InputError("batch correct: nothing to correct; give --set-operator, --set-notes or --set-mixed-on")
+    store = _open(args)
+    try:
+        with store.transaction() as session:
+            batch = get_batch(session, args.batch_id)
+            before = {key: getattr(batch, key) for key in changes}
+            updated = correct(session, batch, note=args.reason, recorded_by=args.operator, **changes)
+    finally:
+        store.close()
+    payload = {"batch_id": updated.code, "version": updated.version, "changed": changes, "before": before,
+               "reason": updated.change_note}
+    lines = [f"batch {updated.code} corrected (version {updated.version}): {updated.change_note}"]
+    lines += [f"  {key}: {_fmt(before[key])} -> {_fmt(value)}" for key, value in changes.items()]
+    return CommandResult(payload=payload, text="\n".join(lines))
 
 
 # ---- batch measure ---------------------------------------------------------------------------

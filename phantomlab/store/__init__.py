@@ -32,6 +32,7 @@ from phantomlab.store.engine import (
     open_store,
     resolve_url,
 )
+from phantomlab.store.evidence import BatchEvidence, FitEvidence, calibration_evidence
 from phantomlab.store.history import correct, history_of, retract, unretract
 from phantomlab.store.measurements import (
     add_fit,
@@ -43,6 +44,8 @@ from phantomlab.store.measurements import (
 from phantomlab.store.snapshots import record_recipe, record_stock_lot
 
 __all__ = [
+    "BatchEvidence",
+    "FitEvidence",
     "Store",
     "StoreBusyError",
     "StoreConflictError",
@@ -51,6 +54,7 @@ __all__ = [
     "add_measurement",
     "batch_history",
     "batch_lots",
+    "calibration_evidence",
     "calibration_potencies",
     "correct",
     "fits_of",

@@ -287,3 +287,24 @@ def test_batch_add_uses_calibrated_potency_of_the_lot_on_the_shelf_only(db_url, 
     assert status == 0
     text = (tmp_path / "r.html").read_text()
     assert "Calibration state" in text and "method demo" in text
+
+
+def test_correct_and_retract_make_versions_that_show_in_the_history(db_url, capsys):
+    _, added, _ = run(capsys, "batch", "add", RECIPE, "--db", db_url, "--operator", "A. Demo", "--json")
+    code = added["batch_id"]
+    status, fixed, err = run(capsys, "batch", "correct", code, "--set-operator", "B. Demo",
+                             "--reason", "wrong name typed", "--operator", "reviewer", "--db", db_url, "--json")
+    assert status == 0, err
+    assert fixed["before"] == {"operator": "A. Demo"} and fixed["version"] == 2
+    status, _, err = run(capsys, "batch", "correct", code, "--reason", "nothing", "--db", db_url)
+    assert status == 2 and "nothing to correct" in err
+    status, gone, err = run(capsys, "batch", "retract", code, "--reason", "spilled", "--db", db_url, "--json")
+    assert status == 0 and gone["retracted"] is True, err
+    _, listed, _ = run(capsys, "batch", "list", "--db", db_url, "--json")
+    assert listed["batches"] == []
+    _, everything, _ = run(capsys, "batch", "list", "--all", "--db", db_url, "--json")
+    assert [b["batch_id"] for b in everything["batches"]] == [code]
+    _, shown, _ = run(capsys, "batch", "show", code, "--db", db_url, "--json")
+    assert [(v["version"], v["retracted"], v["change_note"]) for v in shown["history"]] == [
+        (1, False, None), (2, False, "wrong name typed"), (3, True, "spilled")]
+    assert shown["history"][1]["recorded_by"] == "reviewer" and shown["operator"] == "B. Demo"

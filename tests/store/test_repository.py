@@ -383,3 +383,25 @@ def test_one_calibration_state_can_hold_two_lots_of_a_stock(store):
         assert [(r.lot, r.potency) for r in rows] == [("L1", 1.2), ("L2", 0.7)]
     assert latest_potencies(store, shelf=_Shelf({"ink1": "L2"})) == {"ink1": (0.7, 0.04, "L2")}
     assert latest_potencies(store, shelf=_Shelf({"ink1": "L1"})) == {"ink1": (1.2, 0.05, "L1")}
+
+
+def test_calibration_evidence_lists_batches_with_amounts_and_fits(store, planned_batch):
+    from phantomlab.store import calibration_evidence
+
+    with store.transaction() as session:
+        planned = planned_batch(session)  # no amounts: left out
+        mixed = planned_batch(session)
+        mixed = record_actual(session, mixed, amounts=[{"stock": "dyeA", "volume_ml": 1.0, "volume_fraction": 0.01}],
+                              prediction=None, alarms=[])
+        unfitted = planned_batch(session)  # amounts but no fit: left out
+        record_actual(session, unfitted, amounts=[{"stock": "dyeA", "volume_ml": 1.0}], prediction=None, alarms=[])
+        m = add_measurement(session, mixed, kind="optics", file_name="m.csv", raw_content=b"x", phantom_age_days=3.0)
+        add_fit(session, m, results={"model": "direct", "mua_per_mm": [0.01]})
+        newer = add_fit(session, m, results={"model": "direct", "mua_per_mm": [0.011]})
+        add_measurement(session, planned, kind="optics", file_name="p.csv", raw_content=b"x")
+    with store.reading() as session:
+        (evidence,) = calibration_evidence(session)
+    assert evidence.batch_id == mixed.code
+    assert evidence.amounts[0]["volume_fraction"] == 0.01 and evidence.batch_volume_ml == 100.0
+    assert evidence.lots == {"dyeA": "demo-lot-1"} and evidence.priors == {("dyeA", "demo-lot-1"): (1.0, 0.1)}
+    assert [(f.fit_id, f.phantom_age_days, f.results["mua_per_mm"]) for f in evidence.fits] == [(newer.id, 3.0, [0.011])]
