@@ -122,6 +122,18 @@ def _planned_rows(batch: dict) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
+def _recorded_amounts(batch: dict) -> pd.DataFrame:
+    planned = {d["stock"]: d for d in batch["plan"].get("doses", [])}
+    rows = []
+    for item in batch["actual_amounts"] or []:
+        plan = planned.get(item["stock"], {})
+        rows.append({"stock": item["stock"],
+                     "planned [mL undiluted]": plan.get("volume_ml"),
+                     "dispensed [mL undiluted]": item.get("volume_ml"),
+                     "dispensed [g undiluted]": item.get("mass_g")})
+    return pd.DataFrame(rows)
+
+
 def _amounts_section(workspace: Workspace, store, batch: dict) -> None:
     from phantomlab.ui.recording import record_dispensed
 
@@ -130,7 +142,7 @@ def _amounts_section(workspace: Workspace, store, batch: dict) -> None:
     if batch["status"] not in ("planned", "mixed") or batch["retracted"]:
         st.caption(f"The batch is {batch['status']}: amounts are recorded while it is planned or mixed.")
         if batch["actual_amounts"]:
-            st.dataframe(pd.DataFrame(batch["actual_amounts"]), hide_index=True, width="stretch")
+            st.dataframe(_recorded_amounts(batch), hide_index=True, width="stretch")
         return
     table = _planned_rows(batch)
     if table.empty:

@@ -103,6 +103,7 @@ def _defaults_from(definition: dict, shelf) -> dict:
         k: definition[k] for k in ("preparation", "notes", "series") if k in definition
     }
     values["design.extra_matrix"] = definition.get("matrix")
+    values["design.source_version"] = str(definition.get("version", "1"))
     values["design.editor_version"] = st.session_state.get("design.editor_version", 0) + 1
     return values
 
@@ -135,13 +136,19 @@ def _apply_start(workspace: Workspace, shelf, choice: str) -> None:
 
 
 def _stock_label(shelf, key: str) -> str:
-    stock = shelf[key]
-    parts = [stock.kind]
-    if stock.lot:
-        parts.append(f"lot {stock.lot}")
-    if stock.expiry is not None:
-        parts.append(f"expires {stock.expiry.isoformat()}")
-    return f"{key} ({', '.join(parts)})"
+    """Short label for the pickers: key and kind (lots and expiry are listed under them)."""
+    return f"{key} ({shelf[key].kind})"
+
+
+def _lots_caption(shelf, keys) -> str:
+    parts = []
+    for key in keys:
+        stock = shelf[key]
+        text = f"{key}: lot {stock.lot or '(none)'}"
+        if stock.expiry is not None:
+            text += f", expires {stock.expiry.isoformat()}"
+        parts.append(text)
+    return " · ".join(parts)
 
 
 def _points_target(unit_factor: float) -> dict | None:
@@ -292,6 +299,7 @@ def _definition(workspace: Workspace, shelf) -> tuple[dict | None, Path]:
     if not stocks:
         right.error("Stocks: choose at least one scatterer or absorber.")
         ok = False
+    st.caption(_lots_caption(shelf, [matrix, *stocks] if matrix else stocks))
     size_by = left.radio("Batch size by", ["volume", "mass"], horizontal=True, key="design.size_by",
                          help="Silicone and resin batches are weighed: give a mass.")
     size = quantity_field(
@@ -328,7 +336,7 @@ def _definition(workspace: Workspace, shelf) -> tuple[dict | None, Path]:
     target["musp_tolerance_percent"] = float(musp_tol)
     definition = {
         "name": name.strip(),
-        "version": "page",
+        "version": st.session_state.get("design.source_version", "1"),
         "stocks_file": str(workspace.shelf_path),
         "matrix": matrix,
         "stocks": list(stocks),
@@ -346,12 +354,39 @@ def _definition(workspace: Workspace, shelf) -> tuple[dict | None, Path]:
 # ---- solving and showing -----------------------------------------------------------------------
 
 
+def _same_as_file(definition: dict, path: Path) -> bool:
+    """Whether the fields describe the recipe file unchanged (then the file itself is used)."""
+    from phantomlab.recipe.limits import parse_limits  # layer 3
+    from phantomlab.recipe.targets import parse_target
+
+    try:
+        original = _read_recipe_definition(path)
+        for key in ("name", "matrix", "stocks", "batch_volume_ml", "batch_mass_g"):
+            if definition.get(key) != original.get(key):
+                return False
+        if parse_limits(definition.get("limits")) != parse_limits(original.get("limits")):
+            return False
+        mine = parse_target(definition["target"], base_dir=path.parent).to_json()
+        theirs = parse_target(original.get("target"), base_dir=path.parent).to_json()
+        return json.dumps(mine, sort_keys=True) == json.dumps(theirs, sort_keys=True)
+    except (InputError, KeyError, TypeError):
+        return False
+
+
 @st.cache_resource(show_spinner=False, max_entries=16)
-def _solved(definition_json: str, base_dir: str, _shelf, shelf_token: str, potencies_json: str):
+def _solved(definition_json: str, base_dir: str, source: str, _shelf, shelf_token: str, potencies_json: str):
+    """Solve the recipe the fields describe; a recipe file left unchanged is used as the file
+    (same content hash and version as ``phantomlab plan`` gives it), on the page's shelf."""
     from phantomlab.recipe import parse_recipe, solve  # layer 3
 
-    definition = json.loads(definition_json)
-    recipe = parse_recipe(definition, base_dir=Path(base_dir), shelf=_shelf)
+    if source:
+        path = Path(source)
+        raw = path.read_bytes()
+        recipe = parse_recipe(tomllib.loads(raw.decode("utf-8")), base_dir=path.parent, path=path, raw=raw,
+                              shelf=_shelf)
+    else:
+        definition = json.loads(definition_json)
+        recipe = parse_recipe(definition, base_dir=Path(base_dir), shelf=_shelf)
     potencies = {k: tuple(v) for k, v in json.loads(potencies_json).items()} or None
     return solve(recipe, potencies=potencies)
 
@@ -370,14 +405,14 @@ def _doses_table(plan) -> pd.DataFrame:
             steps, source = "", f"{dose.stock} stock"
         rows.append({
             "stock": dose.stock,
-            "lot": dose.lot,
-            "expiry": dose.expiry.isoformat() if dose.expiry else "",
-            "volume fraction [% v/v]": 100.0 * dose.volume_fraction,
-            "stock volume [mL]": dose.volume_ml,
-            "stock mass [g]": dose.mass_g,
             "dispense": (f"{dose.dispense_amount:.4g} {dose.unit} ± {dose.tolerance:.2g} of {source}"
                          if dose.used else "not used"),
             "pre-dilution": steps,
+            "volume fraction [% v/v]": 100.0 * dose.volume_fraction,
+            "stock volume [mL]": dose.volume_ml,
+            "stock mass [g]": dose.mass_g,
+            "lot": dose.lot,
+            "expiry": dose.expiry.isoformat() if dose.expiry else "",
             "potency": f"{dose.potency:.3g} ± {dose.potency_sd:.2g} ({dose.potency_source})",
         })
     return pd.DataFrame(rows)
@@ -514,6 +549,7 @@ def show(workspace: Workspace) -> None:
                  help="A recipe file fills in the fields below; change any of them.")
     definition, base_dir = _definition(workspace, shelf)
     if definition is None:
+        st.info("Correct the field(s) marked in red above to see the amounts and the sheet.")
         chosen = [k for k in [st.session_state.get("design.matrix"), *st.session_state.get("design.stocks", [])]
                   if k in shelf]
         show_cautions([shelf[k] for k in chosen])
@@ -526,10 +562,16 @@ def show(workspace: Workspace) -> None:
     if use_calibrated:
         found = call_layer("Reading the calibration", services.calibrated_potencies, store, shelf)
         potencies = found.value or {}
+    started = st.session_state.get("design.start", NEW_RECIPE)
+    source = ""
+    if started != NEW_RECIPE and _same_as_file(definition, workspace.recipes_folder / started):
+        source = str(workspace.recipes_folder / started)
+    elif started != NEW_RECIPE:
+        definition["version"] = f"{definition['version']}, edited on the page"
     token = json.dumps(services.plain(definition), sort_keys=True)
     with st.spinner("Solving the doses…"):
         solved = call_layer(
-            "Solving the recipe", _solved, token, str(base_dir), shelf,
+            "Solving the recipe", _solved, token, str(base_dir), source, shelf,
             str(id(shelf)), json.dumps(potencies, sort_keys=True), show=False,
         )
     if not solved.ok:

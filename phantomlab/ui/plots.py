@@ -29,6 +29,7 @@ class Series:
     sd: np.ndarray | None = None
     mode: str = "lines"  # "lines", "markers", "lines+markers"
     dash: str | None = None
+    colour: str | None = None  # default: the next colour of the palette
 
 
 def line_figure(
@@ -43,51 +44,64 @@ def line_figure(
     """A figure of spectra (or any x–y series) with shaded ±1 SD bands where given."""
     figure = go.Figure()
     for index, item in enumerate(series):
-        colour = COLOURS[index % len(COLOURS)]
+        colour = item.colour or COLOURS[index % len(COLOURS)]
         x = np.asarray(item.x, dtype=float)
         y = np.asarray(item.y, dtype=float)
-        if item.sd is not None:
-            sd = np.asarray(item.sd, dtype=float)
+        sd = None if item.sd is None else np.asarray(item.sd, dtype=float)
+        if sd is not None and not np.any(np.isfinite(sd) & (sd > 0)):
+            sd = None
+        band = sd is not None and item.mode == "lines"
+        if band:  # a line: its ±1 SD as a shaded band
             figure.add_trace(
                 go.Scatter(
                     x=np.concatenate([x, x[::-1]]),
                     y=np.concatenate([y + sd, (y - sd)[::-1]]),
+                    mode="lines",
                     fill="toself",
                     fillcolor=_with_alpha(colour, 0.18),
                     line={"width": 0},
                     hoverinfo="skip",
-                    name=f"{item.name} ± 1 SD",
-                    showlegend=True,
+                    name="± 1 SD",
+                    legendgroup=item.name,
+                    showlegend=False,
                 )
             )
         hover = f"{item.name}<br>{x_label}: %{{x:.4g}}<br>{y_label}: %{{y:.4g}}"
-        if item.sd is not None:
-            hover += " ± %{customdata:.2g}"
+        if sd is not None:
+            hover += " ± %{customdata:.2g} (1 SD)"
         figure.add_trace(
             go.Scatter(
                 x=x,
                 y=y,
                 mode=item.mode,
-                name=item.name,
+                name=item.name + (" (band: ± 1 SD)" if band else " (bars: ± 1 SD)" if sd is not None else ""),
+                legendgroup=item.name,
                 line={"color": colour, "dash": item.dash} if "lines" in item.mode else None,
                 marker={"color": colour, "size": 8} if "markers" in item.mode else None,
-                customdata=None if item.sd is None else np.asarray(item.sd, dtype=float),
+                error_y=({"type": "data", "array": sd, "visible": True, "color": colour, "thickness": 1.2}
+                         if sd is not None and not band else None),
+                customdata=sd,
                 hovertemplate=hover + "<extra></extra>",
             )
         )
+    _layout(figure, title=title, x_label=x_label, y_label=y_label, height=height)
+    if log_y:
+        figure.update_yaxes(type="log", dtick=1, exponentformat="power")
+    return figure
+
+
+def _layout(figure: go.Figure, *, title, x_label: str, y_label: str, height: int) -> None:
+    """Title on top, legend under the plot (never over the title or the data)."""
     figure.update_layout(
-        title=title,
+        title={"text": title, "x": 0, "xanchor": "left"} if title else None,
         xaxis_title=x_label,
         yaxis_title=y_label,
-        height=height,
-        margin={"l": 60, "r": 20, "t": 40 if title else 20, "b": 50},
-        legend={"orientation": "h", "yanchor": "bottom", "y": 1.02, "x": 0},
+        height=height + 70,
+        margin={"l": 60, "r": 20, "t": 40 if title else 20, "b": 120},
+        legend={"orientation": "h", "yanchor": "top", "y": -0.28, "x": 0, "xanchor": "left"},
         hovermode="closest",
         template="plotly_white",
     )
-    if log_y:
-        figure.update_yaxes(type="log")
-    return figure
 
 
 def _with_alpha(hex_colour: str, alpha: float) -> str:
@@ -139,20 +153,10 @@ def bar_figure(
             )
         )
         if bands and name in bands:
-            for sign in (1.0, -1.0):
-                figure.add_hline(
-                    y=sign * bands[name], line_dash="dot", line_color=colour,
-                    annotation_text=f"{name} tolerance ±{bands[name]:g}" if sign > 0 else None,
-                    annotation_position="top left",
-                )
-    figure.update_layout(
-        title=title,
-        xaxis_title=x_label,
-        yaxis_title=y_label,
-        height=height,
-        barmode="group",
-        margin={"l": 60, "r": 20, "t": 40 if title else 20, "b": 50},
-        legend={"orientation": "h", "yanchor": "bottom", "y": 1.02, "x": 0},
-        template="plotly_white",
-    )
+            figure.add_hline(y=bands[name], line_dash="dot", line_color=colour,
+                             annotation_text=f"{name} tolerance ±{bands[name]:g}",
+                             annotation_position="top left")
+            figure.add_hline(y=-bands[name], line_dash="dot", line_color=colour)
+    _layout(figure, title=title, x_label=x_label, y_label=y_label, height=height)
+    figure.update_layout(barmode="group")
     return figure

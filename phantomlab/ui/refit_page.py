@@ -26,7 +26,7 @@ import streamlit as st
 from phantomlab.errors import InputError
 from phantomlab.ui import services
 from phantomlab.ui.cautions import show_light_source_caution
-from phantomlab.ui.plots import Series, line_figure, show_figure
+from phantomlab.ui.plots import COLOURS, Series, line_figure, show_figure
 from phantomlab.ui.widgets import call_layer, show_warnings
 from phantomlab.ui.workspace import Workspace
 
@@ -158,14 +158,15 @@ def _data_and_model(measurement, result, *, model: str, baseline, shown_waveleng
         for row, i in enumerate(index):
             data = measurement.values[i]
             sd = None if measurement.sd is None else measurement.sd[i]
-            series.append(Series(f"data {wavelength[i]:g} nm", axis, data, sd=sd, mode="markers"))
-            series.append(Series(f"model {wavelength[i]:g} nm", dense, curves[row], dash="dot"))
+            colour = COLOURS[row % len(COLOURS)]
+            series.append(Series(f"data {wavelength[i]:g} nm", axis, data, sd=sd, mode="markers", colour=colour))
+            series.append(Series(f"model {wavelength[i]:g} nm", dense, curves[row], dash="dot", colour=colour))
             for a, d in zip(axis, data):
                 rows.append({"wavelength_nm": wavelength[i], "axis": a, "data": d})
         figure = line_figure(series, x_label=x_label, y_label=y_label, log_y=kind == "srdr",
                              title="Data and fitted model", height=380)
-        residual_series = [Series(f"{wavelength[i]:g} nm", axis, result.residuals[i], mode="lines+markers")
-                           for i in index]
+        residual_series = [Series(f"{wavelength[i]:g} nm", axis, result.residuals[i], mode="lines+markers",
+                                  colour=COLOURS[row % len(COLOURS)]) for row, i in enumerate(index)]
         residual_x = x_label
     elif kind == "slab":
         series = [Series("data total reflectance", wavelength, measurement.values[:, 0], mode="markers"),
@@ -203,7 +204,7 @@ def _against_target(result, target: dict | None) -> None:
         sd = np.asarray(getattr(result, f"{quantity}_sd_per_mm"), float)
         rows[f"fitted_{quantity}_per_mm"] = value
         rows[f"fitted_{quantity}_sd_per_mm"] = sd
-        series = [Series(f"fitted {symbol} ± 1 SD", wavelength, value, sd=np.where(np.isfinite(sd), sd, 0.0),
+        series = [Series(f"fitted {symbol}", wavelength, value, sd=np.where(np.isfinite(sd), sd, 0.0),
                          mode="lines+markers")]
         if target:
             wanted = np.asarray([np.nan if v is None else v for v in target.get(f"{quantity}_per_mm", [])], float)
@@ -252,7 +253,8 @@ def _fit_section(workspace: Workspace, store) -> None:
                               "mc: a Monte Carlo lookup, good at all distances")
     n = c2.number_input("Phantom refractive index n [dimensionless]", min_value=1.0, max_value=3.0,
                         value=float(sidecar.get("n", 1.33)), step=0.01, key="refit.n")
-    power_law = c3.checkbox("μs′ as a power law across the band", key="refit.power_law",
+    power_law = c3.checkbox("Fit μs′ as a power law", key="refit.power_law",
+                            help="μs′ = a (λ/500 nm)^−b fitted jointly across the band",
                             disabled=kind in ("slab", "optics"))
     options: dict = {"n": float(n)}
     if kind == "slab":

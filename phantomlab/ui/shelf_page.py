@@ -82,11 +82,12 @@ def _optics_section(shelf) -> None:
     keys = list(shelf.keys())
     matrices = list(shelf.of_kind("matrix"))
     c1, c2, c3 = st.columns(3)
-    key = c1.selectbox("Stock", keys, key="shelf.optics_stock")
+    first = next((i for i, k in enumerate(keys) if shelf[k].kind != "matrix"), 0)
+    key = c1.selectbox("Stock", keys, index=first, key="shelf.optics_stock")
     matrix_key = c2.selectbox("In the matrix", matrices, key="shelf.optics_matrix",
                               help="Its refractive index sets the Mie relative index.")
     wavelength = number_list_field("Wavelengths [nm] (400:1000:10 or 650,750,850)",
-                                   default="450:950:10", key="shelf.optics_wavelengths",
+                                   default="600:1000:10", key="shelf.optics_wavelengths",
                                    name="wavelengths", positive=True, container=c3)
     if wavelength is None or key is None or matrix_key is None:
         return
@@ -363,7 +364,8 @@ def show(workspace: Workspace) -> None:
     st.caption(f"Stock file `{workspace.shelf_path}` ({shelf.name or 'no name'}), with the stocks "
                "added or edited on this page.")
     calibrated = call_layer("Reading the calibration", services.calibrated_potencies, store, shelf)
-    st.dataframe(_shelf_table(shelf, origin, calibrated.value or {}), hide_index=True, width="stretch")
+    table = _shelf_table(shelf, origin, calibrated.value or {})
+    st.dataframe(table, hide_index=True, width="stretch", height=36 * (len(table) + 1) + 4)
     lists, new, edit = st.tabs(["Intrinsic optics", "New stock from cuvette readings", "Edit a stock"])
     with lists:
         _optics_section(shelf)

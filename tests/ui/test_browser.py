@@ -77,6 +77,7 @@ def served_page(tmp_path, seeded_demo_file):
         "--server.address", "127.0.0.1",
         "--browser.gatherUsageStats", "false",
         "--server.fileWatcherType", "none",
+        "--client.toolbarMode", "minimal",
     ]
     with log.open("w") as log_file:
         process = subprocess.Popen(
@@ -111,6 +112,18 @@ def _settle(page) -> None:
     page.wait_for_timeout(300)
 
 
+def _shoot(page, path: Path) -> None:
+    """A screenshot of the whole page: Streamlit scrolls inside its main block, not the window."""
+    height = page.evaluate(
+        "() => Math.max(...[...document.querySelectorAll('[data-testid=\"stMain\"], "
+        "[data-testid=\"stAppViewContainer\"], section.main')].map(e => e.scrollHeight), 1000)"
+    )
+    page.set_viewport_size({"width": 1400, "height": min(int(height) + 40, 12000)})
+    page.wait_for_timeout(800)
+    page.screenshot(path=path, full_page=True)
+    page.set_viewport_size({"width": 1400, "height": 1000})
+
+
 def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
     from playwright.sync_api import sync_playwright
 
@@ -131,12 +144,22 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
             page.get_by_role("heading", name="Design a phantom").first.wait_for()
             _settle(page)
             _no_exception(page, "on opening")
-            page.screenshot(path=shots / "01-design-opened.png", full_page=True)
+            _shoot(page, shots / "01-design-opened.png")
 
             page.get_by_text("Predicted against target").first.wait_for()
+            volume = page.get_by_label("Batch volume (with unit: 500 mL, 0.25 L)")
+            volume.fill("250")  # no unit: refused next to the field
+            volume.press("Enter")
+            page.get_by_text("no unit given").first.wait_for()
+            _settle(page)
+            _no_exception(page, "after a refused batch volume")
+            _shoot(page, shots / "02-design-refused-volume.png")
+            volume.fill("250 mL")
+            volume.press("Enter")
+            page.get_by_text("batch 250 mL").first.wait_for()
             _settle(page)
             _no_exception(page, "after solving")
-            page.screenshot(path=shots / "02-design-solved.png", full_page=True)
+            _shoot(page, shots / "02-design-solved.png")
 
             with page.expect_download() as download_info:
                 page.get_by_role("button", name="Download the mixing sheet (HTML)").click()
@@ -156,8 +179,7 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
                 page.get_by_role("heading", name=name).first.wait_for()
                 _settle(page)
                 _no_exception(page, f"on the page {name!r}")
-                page.screenshot(path=shots / f"0{index}-{name.replace(' ', '-')}.png",
-                                full_page=True)
+                _shoot(page, shots / f"0{index}-{name.replace(' ', '-')}.png")
         finally:
             browser.close()
     print(f"screenshots in {shots}")

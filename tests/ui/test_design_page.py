@@ -169,3 +169,37 @@ def test_fields_keep_their_values_across_a_visit_to_another_page(page, go_to):
     assert back.text_input(key="design.name").value == "kept name"
     assert back.text_input(key="design.size").value == "250 mL"
     assert list(_doses(back)["stock volume [mL]"]) == pytest.approx(list(before), rel=1e-12)
+
+
+def _save(app):
+    [b for b in app.get("button") if b.proto.label == "Save as a new batch"][0].click()
+    app.run()
+    assert not app.exception
+
+
+def _recipe_row_of(demo_file, code):
+    from phantomlab.store import get_batch, open_store, recipe_of
+
+    store = open_store(f"sqlite:///{demo_file}")
+    try:
+        with store.reading() as session:
+            row = recipe_of(session, get_batch(session, code))
+            return row.content_hash, row.recipe_version, row.source_path
+    finally:
+        store.close()
+
+
+def test_an_unchanged_recipe_file_is_recorded_as_that_file(page, demo_file):
+    _save(page)
+    content_hash, version, source = _recipe_row_of(demo_file, f"{_dt.date.today().year}-003")
+    expected = load_recipe(DEMO_RECIPE)
+    assert content_hash == expected.content_hash  # the same recipe as `phantomlab plan` reads
+    assert version == expected.version and source == str(DEMO_RECIPE)
+
+
+def test_an_edited_recipe_is_recorded_as_an_edited_version(page, demo_file):
+    page.text_input(key="design.size").set_value("250 mL").run()
+    _save(page)
+    content_hash, version, source = _recipe_row_of(demo_file, f"{_dt.date.today().year}-003")
+    assert content_hash != load_recipe(DEMO_RECIPE).content_hash
+    assert version.endswith("edited on the page") and source is None
