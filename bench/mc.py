@@ -149,7 +149,8 @@ def main() -> int:
     baseline.srdr(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho)
     per_pair = (time.perf_counter() - start) / mua.size
     in_memory = baseline.nbytes + sum(
-        a.nbytes for part in baseline._cache.values() for a in part if isinstance(a, np.ndarray))
+        a.nbytes for part in baseline._cache.values() if isinstance(part, tuple)
+        for a in part if isinstance(a, np.ndarray))
     enough = baseline.detected >= 1_000_000
     print(f"  detected >= 1e6: {verdict(enough, 'baseline size')}")
     print(f"  photon arrays in memory {baseline.nbytes / 1e6:.1f} MB; with lookup table "
