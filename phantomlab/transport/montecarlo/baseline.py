@@ -90,7 +90,7 @@ PARALLEL_PAIRS = 8
 TABLE_RADIUS_RANGE = 1.0e-6
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # holds arrays: identity equality
 class Baseline:
     """Exits of one analog Monte Carlo run in a semi-infinite medium, for what-if R(ρ).
 

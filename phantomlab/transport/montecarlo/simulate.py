@@ -53,7 +53,7 @@ GEOMETRIES = ("3d", "rod")
 DEFAULT_BATCHES = 32
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # holds arrays: identity equality
 class MonteCarloResult:
     """Tallies of one Monte Carlo run; every reflectance/transmittance is a fraction of the
     incident power, each with its standard error (``*_sd``) from the spread of independent
