@@ -241,3 +241,11 @@ def test_baseline_constructor_checks_its_arrays():
         Baseline(exit_radius_mm=np.zeros(1, np.float32), path_length_mm=np.ones(1, np.float32),
                  scatterings=np.ones(1, np.uint16), photons=2, **REFERENCE,
                  n_outside=1.0).minimum_absorption_ratio, 0.01)
+
+
+@pytest.mark.skipif(__import__("numba").config.NUMBA_NUM_THREADS < 2, reason="needs 2 numba threads")
+def test_baseline_does_not_depend_on_the_thread_count():
+    one = build_baseline(**REFERENCE, photons=3_000, seed=4, threads=1)
+    two = build_baseline(**REFERENCE, photons=3_000, seed=4, threads=2)
+    for name in ("exit_radius_mm", "path_length_mm", "scatterings"):
+        np.testing.assert_array_equal(getattr(one, name), getattr(two, name))
