@@ -20,8 +20,8 @@ import pandas as pd
 import streamlit as st
 
 from phantomlab.ui import services
-from phantomlab.ui.plots import Series, line_figure, show_figure
-from phantomlab.ui.widgets import call_layer, show_warnings
+from phantomlab.ui.plots import Series, line_figure, show_figure, target_series
+from phantomlab.ui.widgets import call_layer
 from phantomlab.ui.workspace import Workspace
 
 __all__ = ["show"]
@@ -191,8 +191,7 @@ def _prediction_plot(batch: dict) -> None:
         wanted = np.asarray([np.nan if v is None else v for v in target.get(key, [])], dtype=float)
         if wanted.size and np.any(np.isfinite(wanted)):
             has = np.isfinite(wanted)
-            series.append(Series(f"target {symbol}", np.asarray(target["wavelength_nm"])[has], wanted[has],
-                                 mode="markers"))
+            series.append(target_series(f"target {symbol}", np.asarray(target["wavelength_nm"])[has], wanted[has]))
         figure = line_figure(series, x_label="wavelength [nm]", y_label=f"{symbol} [1/mm]",
                              title=f"{symbol} of what was dispensed")
         table = pd.DataFrame({"wavelength_nm": made["wavelength_nm"], key: made[key],
@@ -374,8 +373,7 @@ def _spread_section(batches: list[dict]) -> None:
         wanted = np.asarray([np.nan if v is None else v for v in target.get(f"{quantity}_per_mm", [])], dtype=float)
         if wanted.size and np.any(np.isfinite(wanted)):
             has = np.isfinite(wanted)
-            series.append(Series(f"target {symbol}", np.asarray(target["wavelength_nm"])[has], wanted[has],
-                                 mode="markers"))
+            series.append(target_series(f"target {symbol}", np.asarray(target["wavelength_nm"])[has], wanted[has]))
         figure = line_figure(series, x_label="wavelength [nm]", y_label=f"fitted {symbol} [1/mm]",
                              title=f"Spread of {symbol} across batches")
         with column:

@@ -27,7 +27,8 @@ def show_cautions(stocks: Iterable, *, preparation_kind: str = "liquid") -> None
     from phantomlab.recipe.cautions import CLOSING_LINE, cautions_for  # layer 3
 
     found = cautions_for(stocks=list(stocks), preparation_kind=preparation_kind)
-    lines = [f"- **{caution.source}**: {caution.text}" for caution in found]
+    lines = [f"- {caution.text}" if caution.text.startswith(caution.source)
+             else f"- **{caution.source}** — {caution.text}" for caution in found]
     with st.container(border=True):
         st.markdown("**⚠ Cautions**")
         st.markdown("\n".join(lines + [f"- {CLOSING_LINE}"]))

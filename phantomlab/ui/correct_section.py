@@ -15,7 +15,7 @@ import pandas as pd
 import streamlit as st
 
 from phantomlab.ui import services
-from phantomlab.ui.plots import Series, line_figure, show_figure
+from phantomlab.ui.plots import Series, line_figure, show_figure, target_series
 from phantomlab.ui.widgets import call_layer, quantity_field, show_warnings
 from phantomlab.ui.workspace import Workspace
 
@@ -121,7 +121,7 @@ def _plan_plots(plan) -> None:
         series = [Series(f"next batch {symbol}", predicted.wavelength_nm, getattr(predicted, f"{quantity}_per_mm"),
                          sd=getattr(predicted, f"{quantity}_sd_per_mm"))]
         if np.any(has):
-            series.append(Series(f"target {symbol}", target.wavelength_nm[has], wanted[has], mode="markers"))
+            series.append(target_series(f"target {symbol}", target.wavelength_nm[has], wanted[has]))
         figure = line_figure(series, x_label="wavelength [nm]", y_label=f"{symbol} [1/mm]",
                              title=f"Next batch: predicted {symbol}")
         table = pd.DataFrame({"wavelength_nm": predicted.wavelength_nm,

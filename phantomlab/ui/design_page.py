@@ -22,7 +22,7 @@ import streamlit as st
 from phantomlab.errors import InputError
 from phantomlab.ui import services
 from phantomlab.ui.cautions import show_cautions
-from phantomlab.ui.plots import Series, bar_figure, line_figure, show_figure
+from phantomlab.ui.plots import Series, bar_figure, line_figure, show_figure, target_series
 from phantomlab.ui.widgets import call_layer, number_list_field, quantity_field, show_warnings
 from phantomlab.ui.workspace import Workspace
 
@@ -291,17 +291,11 @@ def _definition(workspace: Workspace, shelf) -> tuple[dict | None, Path]:
         st.session_state["design.matrix"] = matrices[0] if matrices else None
     others = [k for k in shelf.keys() if shelf[k].kind != "matrix"]
     st.session_state["design.stocks"] = [k for k in st.session_state.get("design.stocks", []) if k in others]
-    left, right = st.columns(2)
+    left, middle, right = st.columns([2, 1, 2])
     matrix = left.selectbox("Matrix", matrices, key="design.matrix",
                             format_func=lambda k: _stock_label(shelf, k))
-    stocks = right.multiselect("Stocks the solver may use", others, key="design.stocks",
-                               format_func=lambda k: _stock_label(shelf, k))
-    if not stocks:
-        right.error("Stocks: choose at least one scatterer or absorber.")
-        ok = False
-    st.caption(_lots_caption(shelf, [matrix, *stocks] if matrix else stocks))
-    size_by = left.radio("Batch size by", ["volume", "mass"], horizontal=True, key="design.size_by",
-                         help="Silicone and resin batches are weighed: give a mass.")
+    size_by = middle.radio("Batch size by", ["volume", "mass"], horizontal=True, key="design.size_by",
+                           help="Silicone and resin batches are weighed: give a mass.")
     size = quantity_field(
         "Batch volume (with unit: 500 mL, 0.25 L)" if size_by == "volume"
         else "Batch mass (with unit: 200 g, 0.5 kg)",
@@ -310,6 +304,12 @@ def _definition(workspace: Workspace, shelf) -> tuple[dict | None, Path]:
         container=right,
     )
     ok = ok and size is not None
+    stocks = st.multiselect("Stocks the solver may use", others, key="design.stocks",
+                            format_func=lambda k: _stock_label(shelf, k))
+    if not stocks:
+        st.error("Stocks: choose at least one scatterer or absorber.")
+        ok = False
+    st.caption(_lots_caption(shelf, [matrix, *stocks] if matrix else stocks))
 
     st.subheader("Target")
     c1, c2, c3, c4 = st.columns([2, 1, 1, 1])
@@ -435,13 +435,12 @@ def _spectrum_plots(plan) -> None:
         series = [
             Series(f"predicted {symbol}", dense.wavelength_nm, getattr(dense, f"{quantity}_per_mm"),
                    sd=getattr(dense, f"{quantity}_sd_per_mm")),
-            Series(f"predicted at target wavelengths", at_points.wavelength_nm,
+            Series("predicted at target wavelengths", at_points.wavelength_nm,
                    getattr(at_points, f"{quantity}_per_mm"), mode="markers"),
         ]
         has = np.isfinite(wanted)
         if np.any(has):
-            series.append(Series(f"target {symbol}", target.wavelength_nm[has], wanted[has],
-                                 mode="markers"))
+            series.append(target_series(f"target {symbol}", target.wavelength_nm[has], wanted[has]))
         figure = line_figure(series, x_label="wavelength [nm]", y_label=f"{symbol} [1/mm]",
                              title=f"{symbol}: predicted against target")
         table = pd.DataFrame({

@@ -13,10 +13,11 @@ import pandas as pd
 import plotly.graph_objects as go
 import streamlit as st
 
-__all__ = ["Series", "line_figure", "show_figure"]
+__all__ = ["Series", "bar_figure", "line_figure", "show_figure", "target_series"]
 
 # A plain palette of our own: predicted / fitted lines dark, targets and data as markers.
-COLOURS = ("#1f4e79", "#b5462f", "#3b7d3b", "#7a5195", "#c08a00", "#4b4b4b", "#00838f")
+COLOURS = ("#1f4e79", "#c08a00", "#b5462f", "#7a5195", "#3b7d3b", "#4b4b4b", "#00838f")
+TARGET_COLOUR = "#000000"
 
 
 @dataclass(frozen=True)
@@ -30,6 +31,7 @@ class Series:
     mode: str = "lines"  # "lines", "markers", "lines+markers"
     dash: str | None = None
     colour: str | None = None  # default: the next colour of the palette
+    symbol: str | None = None  # marker symbol (plotly name), e.g. "circle-open" for targets
 
 
 def line_figure(
@@ -77,7 +79,8 @@ def line_figure(
                 name=item.name + (" (band: ± 1 SD)" if band else " (bars: ± 1 SD)" if sd is not None else ""),
                 legendgroup=item.name,
                 line={"color": colour, "dash": item.dash} if "lines" in item.mode else None,
-                marker={"color": colour, "size": 8} if "markers" in item.mode else None,
+                marker=({"color": colour, "size": 9 if item.symbol else 8, "symbol": item.symbol or "circle",
+                         "line": {"width": 2, "color": colour}} if "markers" in item.mode else None),
                 error_y=({"type": "data", "array": sd, "visible": True, "color": colour, "thickness": 1.2}
                          if sd is not None and not band else None),
                 customdata=sd,
@@ -159,4 +162,11 @@ def bar_figure(
             figure.add_hline(y=-bands[name], line_dash="dot", line_color=colour)
     _layout(figure, title=title, x_label=x_label, y_label=y_label, height=height)
     figure.update_layout(barmode="group")
+    figure.update_xaxes(tickvals=np.asarray(x, dtype=float), ticktext=[f"{v:g}" for v in np.asarray(x, float)])
     return figure
+
+
+def target_series(name: str, x, y) -> Series:
+    """A target: black open circles (never confused with a coloured prediction)."""
+    return Series(name, np.asarray(x, dtype=float), np.asarray(y, dtype=float), mode="markers",
+                  colour=TARGET_COLOUR, symbol="circle-open")

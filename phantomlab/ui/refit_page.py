@@ -23,10 +23,9 @@ import numpy as np
 import pandas as pd
 import streamlit as st
 
-from phantomlab.errors import InputError
 from phantomlab.ui import services
 from phantomlab.ui.cautions import show_light_source_caution
-from phantomlab.ui.plots import COLOURS, Series, line_figure, show_figure
+from phantomlab.ui.plots import COLOURS, Series, line_figure, show_figure, target_series
 from phantomlab.ui.widgets import call_layer, show_warnings
 from phantomlab.ui.workspace import Workspace
 
@@ -210,8 +209,8 @@ def _against_target(result, target: dict | None) -> None:
             wanted = np.asarray([np.nan if v is None else v for v in target.get(f"{quantity}_per_mm", [])], float)
             if wanted.size and np.any(np.isfinite(wanted)):
                 has = np.isfinite(wanted)
-                series.append(Series(f"target {symbol}", np.asarray(target["wavelength_nm"], float)[has],
-                                     wanted[has], mode="markers"))
+                series.append(target_series(f"target {symbol}", np.asarray(target["wavelength_nm"], float)[has],
+                                     wanted[has]))
         figure = line_figure(series, x_label="wavelength [nm]", y_label=f"{symbol} [1/mm]",
                              title=f"Fitted {symbol} against target")
         with column:

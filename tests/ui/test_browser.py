@@ -119,7 +119,11 @@ def _shoot(page, path: Path) -> None:
         "[data-testid=\"stAppViewContainer\"], section.main')].map(e => e.scrollHeight), 1000)"
     )
     page.set_viewport_size({"width": 1400, "height": min(int(height) + 40, 12000)})
-    page.wait_for_timeout(800)
+    page.wait_for_timeout(1500)
+    charts = page.locator('[data-testid="stPlotlyChart"]')
+    for index in range(charts.count()):  # every chart drawn, not a placeholder
+        charts.nth(index).locator(".main-svg").first.wait_for(state="attached", timeout=STEP_TIMEOUT_MS)
+    page.wait_for_timeout(500)
     page.screenshot(path=path, full_page=True)
     page.set_viewport_size({"width": 1400, "height": 1000})
 
