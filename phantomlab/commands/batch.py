@@ -174,6 +174,13 @@ def _writable(path: str | None, *, option: str, suffix: str) -> Path | None:
     return target
 
 
+def _write(path: Path, text: str, *, option: str) -> None:
+    try:
+        path.write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise InputError(f"{option}: cannot write {str(path)!r} ({exc.strerror or exc})") from None
+
+
 def _fmt(value: Any, digits: int = 4) -> str:
     if value is None:
         return "-"
@@ -336,7 +343,7 @@ def _add(args) -> CommandResult:
                                 "preparation": plan_json.get("preparation")},
             )
             if sheet_path is not None:
-                sheet_path.write_text(sheet_html, encoding="utf-8")
+                _write(sheet_path, sheet_html, option="--sheet")
     finally:
         store.close()
     expired = [w for w in plan.warnings if "expired" in w]
@@ -552,14 +559,6 @@ def _correct(args) -> CommandResult:
 # ---- batch measure ---------------------------------------------------------------------------
 
 
-def _fit_function():
-    try:
-        from phantomlab.calibration import fit_measurement_file
-    except ImportError:
-        return None
-    return fit_measurement_file
-
-
 def _measure(args) -> CommandResult:
     from phantomlab.store import add_fit, add_measurement, get_batch
 
@@ -572,19 +571,19 @@ def _measure(args) -> CommandResult:
     measured_on = _date(args.measured_on, option="--measured-on")
     options = {"model": args.model, "n": args.n, "thickness_mm": args.thickness_mm, "g": args.g,
                "baseline": args.baseline}
+    from phantomlab.calibration import fit_measurement_file, read_measurement  # layer 3
+
     fit_json = None
     fit_result = None
     fit_note = None
-    fit_function = None if args.no_fit else _fit_function()
-    # Read (and fit) before opening a transaction: a file that does not parse writes nothing.
-    measurement_info = _read_measurement(path, args.kind)
-    if fit_function is not None:
-        fit_result = fit_function(path, kind=args.kind, **{k: v for k, v in options.items() if v is not None})
-        fit_json = to_jsonable(fit_result.to_json())
-    elif args.no_fit:
+    # Read (and fit) before opening a transaction: a file that does not parse writes nothing,
+    # and a long fit holds no lock.
+    measurement_info = read_measurement(path, kind=args.kind)
+    if args.no_fit:
         fit_note = "no fit ran (--no-fit): the file is stored"
     else:
-        fit_note = "no fit ran: the inverse fit is not available in this installation; the file is stored"
+        fit_result = fit_measurement_file(path, kind=args.kind, **{k: v for k, v in options.items() if v is not None})
+        fit_json = to_jsonable(fit_result.to_json())
     if measured_on is None:
         measured_on = _metadata_date(measurement_info) or _dt.date.today()
     store = _open(args)
@@ -641,18 +640,6 @@ def _finite(value):
     except (TypeError, ValueError):
         return None
     return number if math.isfinite(number) else None
-
-
-def _read_measurement(path: Path, kind: str):
-    try:
-        from phantomlab.calibration import read_measurement
-    except ImportError:
-        text = path.read_text(encoding="utf-8-sig", errors="strict")
-        header = next((l for l in text.splitlines() if l.strip() and not l.startswith("#")), "")
-        if not header.startswith("wavelength_nm,"):
-            raise InputError(f"{path.name}: first row must be a header starting with wavelength_nm")
-        return None
-    return read_measurement(path, kind=kind)
 
 
 def _metadata_value(measurement, name: str):
@@ -801,7 +788,7 @@ def _record(args) -> CommandResult:
             record = batch_record(session, args.batch_id)
     finally:
         store.close()
-    target.write_text(render_batch_record_html(record), encoding="utf-8")
+    _write(target, render_batch_record_html(record), option="--html")
     payload = {"batch_id": record["batch_id"], "html": str(target), "pass": record["pass"],
                "checks": record["checks"], "series": record["series"]}
     verdict = {True: "PASS", False: "FAIL", None: "not measured yet"}[record["pass"]]

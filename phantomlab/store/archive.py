@@ -105,8 +105,19 @@ def export_lab(store: Store, path: str | Path) -> dict[str, Any]:
         "exported_at": _dt.datetime.now(_dt.timezone.utc).replace(tzinfo=None).isoformat(),
         "tables": {name: len(rows) for name, rows in tables.items()},
     }
-    path.parent.mkdir(parents=True, exist_ok=True)
+    if not path.parent.is_dir():
+        raise InputError(f"archive folder {str(path.parent)!r} does not exist")
     partial = path.with_name(path.name + ".partial")
+    try:
+        _write_archive(partial, manifest, tables, batches_csv, potencies_csv)
+        partial.replace(path)
+    except OSError as exc:
+        partial.unlink(missing_ok=True)
+        raise InputError(f"cannot write archive {str(path)!r} ({exc.strerror or exc})") from None
+    return manifest
+
+
+def _write_archive(partial: Path, manifest, tables, batches_csv: str, potencies_csv: str) -> None:
     with zipfile.ZipFile(partial, "w", compression=zipfile.ZIP_DEFLATED) as archive:
         archive.writestr("manifest.json", json.dumps(manifest, indent=2, sort_keys=True))
         for name, rows in tables.items():
@@ -121,8 +132,6 @@ def export_lab(store: Store, path: str | Path) -> dict[str, Any]:
             archive.writestr(
                 f"measurements/{row['id']}/{safe}", base64.b64decode(row["raw_content"]["base64"])
             )
-    partial.replace(path)
-    return manifest
 
 
 def _csv(header: list[str], rows: list[list[Any]]) -> str:

@@ -177,6 +177,10 @@ def test_bad_input_is_one_line_and_writes_nothing(db_url, tmp_path, capsys):
         (("batch", "show", "yesterday"), "accepted: YEAR-SEQUENCE"),
         (("batch", "add", tmp_path / "none.toml"), ""),
         (("lab", "import", broken), "not a zip archive"),
+        (("batch", "add", RECIPE, "--sheet", tmp_path / "no" / "sheet.html"), "does not exist"),
+        (("batch", "add", RECIPE, "--sheet", tmp_path / "sheet.pdf"), "must end in .html"),
+        (("batch", "export", tmp_path / "no" / "lab.zip"), "does not exist"),
+        (("batch", "record", code, "--html", tmp_path / "no" / "r.html"), "does not exist"),
     ]
     before = _table_counts(db_url)
     for argv, match in cases:
