@@ -17,7 +17,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.special import j0
 
-from phantomlab.calibration.fit_srdr import _finish, baseline_absorption_floor, baseline_anisotropy, model_range_warnings
+from phantomlab.calibration.fit_srdr import _finish, baseline_absorption_floor, model_range_warnings, smooth_lookup
 from phantomlab.calibration.fitting import FitResult
 from phantomlab.calibration.identifiability import (
     outcome_warnings,
@@ -63,19 +63,18 @@ def sfdi_forward(*, model: str, fx_per_mm, n: float, n_outside: float = 1.0, bas
     if model == "mc":
         if baseline is None:
             raise InputError("sfdi model 'mc' needs a Monte Carlo baseline (--baseline FILE)")
-        g = baseline_anisotropy(baseline)
+        lookup = smooth_lookup(baseline)
+        g = lookup.g
         floor = baseline_absorption_floor(baseline)
 
         def forward(mua, musp):
             musp = np.asarray(musp, float)
-            out = np.empty((musp.size, fx.size))
             mus = musp / (1.0 - g)
             mua = np.maximum(np.asarray(mua, float), floor * mus)
-            for i in range(mua.size):  # each pair on its own grid in transport mean free paths
-                rho = _RHO_GRID_TMFP / (mua[i] + musp[i])
-                R = np.asarray(baseline.srdr(mua_per_mm=mua[i:i + 1], mus_per_mm=mus[i:i + 1], rho_mm=rho), float)
-                out[i] = hankel_sfdi_from_srdr(srdr_per_mm2=R.reshape(-1), rho_mm=rho, fx_per_mm=fx)
-            return out
+            # each pair on its own radial grid in transport mean free paths
+            rho = _RHO_GRID_TMFP[None, :] / (mua + musp)[:, None]
+            R = lookup.point(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho)
+            return hankel_sfdi_from_srdr(srdr_per_mm2=R, rho_mm=rho, fx_per_mm=fx)
 
         return forward
     if model not in SFDI_FIT_MODELS:

@@ -26,7 +26,7 @@ from phantomlab.calibration.identifiability import (
     srdr_design_warnings,
 )
 from phantomlab.calibration.measurements import Measurement
-from phantomlab.calibration.spectral import SpectralConstraint, fit_spectrum
+from phantomlab.calibration.spectral import SpectralConstraint, fit_spectrum, merge_rows
 from phantomlab.errors import InputError, PhantomlabWarning
 
 __all__ = ["SRDR_FIT_MODELS", "fit_srdr", "srdr_forward"]
@@ -44,6 +44,27 @@ def baseline_anisotropy(baseline) -> float:
     if "g" in inputs:
         return float(inputs["g"])
     raise InputError("the Monte Carlo baseline does not say which g it was run with")
+
+
+_LOOKUPS: dict[int, tuple] = {}
+
+
+def smooth_lookup(baseline):
+    """The :class:`~phantomlab.calibration.mc_lookup.SmoothLookup` of a baseline (built once)."""
+    import weakref
+
+    from phantomlab.calibration.mc_lookup import SmoothLookup
+
+    entry = _LOOKUPS.get(id(baseline))
+    if entry is not None and entry[0]() is baseline:
+        return entry[1]
+    lookup = SmoothLookup(baseline)
+    try:
+        reference = weakref.ref(baseline)
+    except TypeError:  # objects without weak references: keep a strong one
+        reference = (lambda obj: (lambda: obj))(baseline)
+    _LOOKUPS[id(baseline)] = (reference, lookup)
+    return lookup
 
 
 def baseline_absorption_floor(baseline) -> float:
@@ -69,15 +90,27 @@ def srdr_forward(*, model: str, rho_mm, n: float, n_outside: float = 1.0, baseli
     if model == "mc":
         if baseline is None:
             raise InputError("srdr model 'mc' needs a Monte Carlo baseline (--baseline FILE)")
-        g = baseline_anisotropy(baseline)
+        from phantomlab.transport.montecarlo import rho_bin_edges_mm
+
+        lookup = smooth_lookup(baseline)
+        g = lookup.g
         floor = baseline_absorption_floor(baseline)
+        edges = rho_bin_edges_mm(rho)
 
         def forward(mua, musp):
             mus = np.asarray(musp, float) / (1.0 - g)
             # the baseline answers only for mua/mus >= its reference ratio: hold the trial there
             mua = np.maximum(np.asarray(mua, float), floor * mus)
-            return np.asarray(baseline.srdr(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho), float)
+            return lookup.annuli(mua_per_mm=mua, mus_per_mm=mus, edges_mm=edges)
 
+        def model_sd(mua, musp):
+            mus = np.asarray(musp, float) / (1.0 - g)
+            mua = np.maximum(np.asarray(mua, float), floor * mus)
+            return forward(mua, musp) * lookup.annuli_relative_sd(mua_per_mm=mua, mus_per_mm=mus, edges_mm=edges)
+
+        forward.lookup = lookup
+        forward.rho_max_mm = float(edges[-1])
+        forward.model_sd = model_sd
         return forward
     if model not in SRDR_FIT_MODELS:
         raise InputError(f"unknown srdr fit model {model!r}; accepted: {', '.join(SRDR_FIT_MODELS)}")
@@ -150,6 +183,14 @@ def fit_srdr(
     design = [m for m in design if m.startswith("too few")]
     result, correlation = fit_spectrum(forward, **kwargs)
     messages = list(design)
+    if model == "mc" and measurement.sd is not None:
+        # the lookup's own photon noise is an uncertainty of the model: add it to the data's
+        # SDs (at the first solution) and fit again from there
+        model_sd = forward.model_sd(result.mua_per_mm, result.musp_per_mm)
+        if relative and result.scale_factor is not None:
+            model_sd = model_sd * result.scale_factor[:, None]
+        kwargs["sd"] = np.sqrt(measurement.sd**2 + model_sd**2)
+        result, correlation = fit_spectrum(forward, start=(result.mua_per_mm, result.musp_per_mm), **kwargs)
     kept_near = np.zeros(measurement.wavelength_nm.shape, bool)
     if model != "mc" and min_transport_mfp > 0:
         finite = np.isfinite(measurement.values)
@@ -160,8 +201,17 @@ def fit_srdr(
         mask = np.where(enough[:, None], finite & ~near, finite)
         dropped = int((finite & ~mask).sum())
         if dropped:
-            result, correlation = fit_spectrum(
-                forward, start=(result.mua_per_mm, result.musp_per_mm), mask=mask, **kwargs)
+            if constraint is not None and constraint.active:
+                result, correlation = fit_spectrum(
+                    forward, start=(result.mua_per_mm, result.musp_per_mm), mask=mask, **kwargs)
+            else:  # refit only the wavelengths that lost points
+                rows = np.where(np.any(finite & ~mask, axis=1))[0]
+                sub = dict(kwargs, wavelength_nm=measurement.wavelength_nm[rows], data=measurement.values[rows],
+                           sd=None if measurement.sd is None else measurement.sd[rows])
+                part, part_corr = fit_spectrum(
+                    forward, start=(result.mua_per_mm[rows], result.musp_per_mm[rows]), mask=mask[rows], **sub)
+                result, correlation = merge_rows(result, correlation, part, part_corr, rows,
+                                                 parameters_per_wavelength=3 if relative else 2)
             messages.append(
                 f"diffusion fit: left out {dropped} points within {min_transport_mfp:g} transport "
                 f"mean free path of the source"
@@ -198,7 +248,14 @@ def model_range_warnings(forward, result) -> list[str]:
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", PhantomlabWarning)
         forward(result.mua_per_mm, result.musp_per_mm)
-    return [" ".join(str(w.message).split()) for w in caught if issubclass(w.category, PhantomlabWarning)]
+    messages = [" ".join(str(w.message).split()) for w in caught if issubclass(w.category, PhantomlabWarning)]
+    lookup = getattr(forward, "lookup", None)
+    if lookup is not None:
+        message = lookup.reach_warning(mus_per_mm=result.musp_per_mm / (1.0 - lookup.g),
+                                       rho_max_mm=getattr(forward, "rho_max_mm", 0.0))
+        if message:
+            messages.append(message)
+    return messages
 
 
 def _finish(result: FitResult, measurement: Measurement, messages) -> FitResult:

@@ -34,7 +34,7 @@ from phantomlab.errors import InputError, PhantomlabWarning
 __all__ = ["BlockOutcome", "JointOutcome", "FitResult", "fit_blocks", "fit_joint", "finite_jacobian"]
 
 #: Relative step of the forward-difference Jacobian in log-parameters.
-_STEP = 1e-6
+_STEP = 1e-3
 
 
 @dataclass(frozen=True)
@@ -155,6 +155,7 @@ def fit_blocks(
     upper: np.ndarray | float = np.inf,
     scale_by_chi2: bool = False,
     max_nfev: int | None = None,
+    row_aware: bool = False,
 ) -> BlockOutcome:
     """Solve W independent least-squares problems at once.
 
@@ -171,6 +172,10 @@ def fit_blocks(
     scale_by_chi2 : bool
         Multiply each block's covariance by its reduced χ² (data without SDs of their own).
     max_nfev : int, optional
+        Most Levenberg–Marquardt iterations.
+    row_aware : bool
+        ``residual_fn(x_rows, rows)`` evaluates only the given rows (blocks): then only the
+        wavelengths still converging cost forward-model calls.
 
     Returns
     -------
@@ -194,8 +199,19 @@ def fit_blocks(
     lo = np.broadcast_to(np.asarray(lower, dtype=float), (W, P))
     hi = np.broadcast_to(np.asarray(upper, dtype=float), (W, P))
     block_fn = _masked(residual_fn, mask)
-    x, nfev, success = _batched_levenberg_marquardt(block_fn, _inside(x0, lo, hi), lo, hi,
-                                                    max_iterations=max_nfev or 60)
+    if row_aware:
+        def row_fn(x_rows, rows):
+            return np.where(mask[rows], np.asarray(residual_fn(x_rows, rows), dtype=float), 0.0)
+
+        def block_fn(x_all):  # noqa: F811 (the full evaluation for the covariance)
+            return row_fn(x_all, np.arange(W))
+    else:
+        def row_fn(x_rows, rows):
+            full = np.array(x_start, copy=True)
+            full[rows] = x_rows
+            return block_fn(full)[rows]
+    x_start = _inside(x0, lo, hi)
+    x, nfev, success = _batched_levenberg_marquardt(row_fn, x_start, lo, hi, max_iterations=max_nfev or 60)
     jac = finite_jacobian(block_fn, x)
     covariance = _invert_normal(jac)
     residuals = np.where(mask, block_fn(x), np.nan)
@@ -212,50 +228,62 @@ def fit_blocks(
     )
 
 
-def _batched_levenberg_marquardt(block_fn, x, lo, hi, *, max_iterations=60, tolerance=1e-10):
+def _batched_levenberg_marquardt(row_fn, x, lo, hi, *, max_iterations=60, tolerance=1e-9, step_tolerance=1e-7):
     """Levenberg–Marquardt on W independent problems at once, each with its own damping.
 
     Steps solve (JᵀJ + λ diag(JᵀJ)) δ = −Jᵀr per block (Marquardt 1963), are projected onto
     the bounds, accepted where the cost falls (λ /= 3) and refused elsewhere (λ *= 4);
-    a block stops when its relative cost change and step fall below ``tolerance``.
+    a block stops when its relative cost change falls below ``tolerance`` and its step below
+    ``step_tolerance``.  ``row_fn(x_rows, rows)`` evaluates only the blocks still running.
     """
     W, P = x.shape
-    r = block_fn(x)
+    x = x.copy()
+    everything = np.arange(W)
+    r = row_fn(x, everything)
     cost = np.sum(r**2, axis=1)
     lam = np.full(W, 1e-3)
     active = np.ones(W, bool)
     nfev = 1
     for _ in range(max_iterations):
-        jac = finite_jacobian(block_fn, x)
+        rows = np.flatnonzero(active)
+        if rows.size == 0:
+            break
+        xa, ra = x[rows], r[rows]
+        jac = finite_jacobian(lambda xx: row_fn(xx, rows), xa)
         nfev += P
-        grad = np.einsum("wmp,wm->wp", jac, r)
+        grad = np.einsum("wmp,wm->wp", jac, ra)
         normal = np.einsum("wmp,wmq->wpq", jac, jac)
         diag = np.maximum(np.diagonal(normal, axis1=1, axis2=2), 1e-12)
+        pending = np.ones(rows.size, bool)  # rows still looking for an accepted step
         for _inner in range(8):
-            damped = normal + (lam[:, None] * diag)[:, :, None] * np.eye(P)[None]
+            sub = rows[pending]
+            damped = normal[pending] + (lam[sub][:, None] * diag[pending])[:, :, None] * np.eye(P)[None]
             try:
-                step = -np.linalg.solve(damped, grad[..., None])[..., 0]
+                step = -np.linalg.solve(damped, grad[pending][..., None])[..., 0]
             except np.linalg.LinAlgError:
-                step = -np.einsum("wpq,wq->wp", np.linalg.pinv(damped), grad)
-            step = np.where(active[:, None], np.nan_to_num(step), 0.0)
-            trial = np.clip(x + step, lo, hi)
-            r_trial = block_fn(trial)
+                step = -np.einsum("wpq,wq->wp", np.linalg.pinv(damped), grad[pending])
+            trial = np.clip(x[sub] + np.nan_to_num(step), lo[sub], hi[sub])
+            r_trial = row_fn(trial, sub)
             nfev += 1
             cost_trial = np.sum(r_trial**2, axis=1)
-            better = active & np.isfinite(cost_trial) & (cost_trial <= cost)
-            change = np.abs(cost - cost_trial) / np.maximum(cost, 1e-300)
-            moved = np.max(np.abs(trial - x), axis=1)
-            x = np.where(better[:, None], trial, x)
-            r = np.where(better[:, None], r_trial, r)
-            done = better & (change < tolerance) & (moved < 1e-8)
-            cost = np.where(better, cost_trial, cost)
-            lam = np.where(better, np.maximum(lam / 3.0, 1e-12), np.where(active, lam * 4.0, lam))
-            stalled = active & (lam > 1e10)
-            active = active & ~done & ~stalled
-            if np.all(better | ~active):
+            better = np.isfinite(cost_trial) & (cost_trial <= cost[sub])
+            change = np.abs(cost[sub] - cost_trial) / np.maximum(cost[sub], 1e-300)
+            moved = np.max(np.abs(trial - x[sub]), axis=1)
+            done = better & (change < tolerance) & (moved < step_tolerance)
+            accepted = sub[better]
+            x[accepted] = trial[better]
+            r[accepted] = r_trial[better]
+            cost[accepted] = cost_trial[better]
+            lam[accepted] = np.maximum(lam[accepted] / 3.0, 1e-12)
+            refused = sub[~better]
+            lam[refused] *= 4.0
+            active[sub[done]] = False
+            active[refused[lam[refused] > 1e10]] = False
+            still = pending.copy()
+            still[pending] = ~better & (lam[sub] <= 1e10)
+            pending = still
+            if not np.any(pending):
                 break
-        if not np.any(active):
-            break
     return x, nfev, not np.any(active)
 
 

@@ -78,16 +78,20 @@ def grid_start(forward: Forward, data: np.ndarray, *, relative: bool, W: int,
     A, S = np.meshgrid(mua_grid, musp_grid, indexing="ij")
     pairs_a, pairs_s = A.ravel(), S.ravel()
     G = pairs_a.size
-    with warnings.catch_warnings():
+    with warnings.catch_warnings(), np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         warnings.simplefilter("ignore")
-        model = np.asarray(forward(pairs_a, pairs_s), float).reshape(1, G, -1)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            ld = np.log(np.where(data > 0, data, np.nan))[:, None, :]
-            lm = np.log(np.where(model > 0, model, np.nan))
-            diff = lm - ld
-            if relative:
-                diff = diff - np.nanmean(diff, axis=2, keepdims=True)
-            cost = np.nanmean(diff**2, axis=2)
+        model = np.asarray(forward(pairs_a, pairs_s), float).reshape(G, -1)
+        lm = np.log(np.where(model > 0, model, 1e-300))  # (G, M)
+        lm = np.where(np.isfinite(lm), lm, np.log(1e-300))
+        m = np.isfinite(data) & (data > 0)  # (W, M)
+        ld = np.where(m, np.log(np.where(m, data, 1.0)), 0.0)
+        w = m.astype(float)
+        count = np.maximum(w.sum(axis=1, keepdims=True), 1.0)
+        # mean over the used points of (lm - ld)^2, as matrix products (W, G)
+        cost = (w @ (lm**2).T - 2.0 * (ld @ lm.T) + np.sum(ld**2, axis=1, keepdims=True)) / count
+        if relative:
+            shift = (w @ lm.T - np.sum(ld, axis=1, keepdims=True)) / count
+            cost = cost - shift**2
     cost = np.where(np.isfinite(cost), cost, np.inf)
     if candidates == 1:
         best = np.argmin(cost, axis=1)
@@ -96,69 +100,104 @@ def grid_start(forward: Forward, data: np.ndarray, *, relative: bool, W: int,
     return pairs_a[order], pairs_s[order]
 
 
+def _optimal_scale(model, data, sd, mask):
+    """The scale k minimising Σ ((k m − d)/σ)² over the used points: Σ m d/σ² / Σ m²/σ²."""
+    w = np.where(mask, 1.0 / sd**2, 0.0)
+    num = np.sum(w * model * np.where(mask, data, 0.0), axis=1)
+    den = np.sum(w * model**2, axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        k = num / den
+    return np.where(np.isfinite(k) & (k > 0), k, 1e-300)
+
+
 def _block_fit(forward, data, sd, mask, relative, start, scale_by_chi2):
+    """Per-wavelength fit of (log μa, log μs′); relative data by variable projection.
+
+    For relative data the scale factor enters linearly, so it is solved in closed form at
+    every trial (μa, μs′) and the search runs over two parameters only (variable projection,
+    Golub & Pereyra 1973, SIAM J Numer Anal 10:413); the covariance of all three comes from
+    the full Jacobian at the solution.
+    """
     W = data.shape[0]
-    P = 3 if relative else 2
     mua0, musp0 = start
-    x0 = np.stack([np.log(mua0), np.log(musp0)] + ([np.zeros(W)] if relative else []), axis=1)
-    if relative:
-        with warnings.catch_warnings(), np.errstate(all="ignore"):
-            warnings.simplefilter("ignore")
-            m0 = forward(mua0, musp0)
-            x0[:, 2] = np.nanmean(np.log(np.where(mask, data, np.nan)) - np.log(np.where(mask, m0, np.nan)), axis=1)
-    lower = [np.log(MUA_BOUNDS_PER_MM[0]), np.log(MUSP_BOUNDS_PER_MM[0])] + ([-np.inf] if relative else [])
-    upper = [np.log(MUA_BOUNDS_PER_MM[1]), np.log(MUSP_BOUNDS_PER_MM[1])] + ([np.inf] if relative else [])
+    x0 = np.stack([np.log(mua0), np.log(musp0)], axis=1)
+    lower = np.array([np.log(MUA_BOUNDS_PER_MM[0]), np.log(MUSP_BOUNDS_PER_MM[0])])
+    upper = np.array([np.log(MUA_BOUNDS_PER_MM[1]), np.log(MUSP_BOUNDS_PER_MM[1])])
     safe = np.where(mask, data, 0.0)
 
-    def residuals(x):
+    def residuals(x, rows):
         model = forward(np.exp(x[:, 0]), np.exp(x[:, 1]))
         if relative:
-            model = model * np.exp(x[:, 2:3])
-        return (model - safe) / sd
+            model = model * _optimal_scale(model, safe[rows], sd[rows], mask[rows])[:, None]
+        return (model - safe[rows]) / sd[rows]
 
-    outcome = fit_blocks(residuals, x0, mask=mask, lower=np.array(lower), upper=np.array(upper),
-                         scale_by_chi2=scale_by_chi2)
-    values, cov = log_to_linear(outcome.x, outcome.covariance)
-    mua, musp = values[:, 0], values[:, 1]
-    cov2 = cov[:, :2, :2]
+    outcome = fit_blocks(residuals, x0, mask=mask, lower=lower, upper=upper,
+                         scale_by_chi2=scale_by_chi2, row_aware=True)
+    x, covariance, chi2, dof, chi2_red = outcome.x, outcome.covariance, outcome.chi2, outcome.dof, outcome.chi2_red
     scale = scale_sd = None
+    if relative:
+        model = forward(np.exp(x[:, 0]), np.exp(x[:, 1]))
+        log_k = np.log(_optimal_scale(model, safe, sd, mask))
+        x3 = np.column_stack([x, log_k])
+
+        def full(x_all):
+            m = forward(np.exp(x_all[:, 0]), np.exp(x_all[:, 1])) * np.exp(x_all[:, 2:3])
+            return np.where(mask, (m - safe) / sd, 0.0)
+
+        from phantomlab.calibration.fitting import _invert_normal, finite_jacobian
+
+        covariance = _invert_normal(finite_jacobian(full, x3))
+        dof = mask.sum(axis=1) - 3
+        with np.errstate(invalid="ignore", divide="ignore"):
+            chi2_red = np.where(dof > 0, chi2 / np.maximum(dof, 1), np.nan)
+        if scale_by_chi2:
+            covariance = covariance * np.where(np.isfinite(chi2_red), chi2_red, np.inf)[:, None, None]
+        x = x3
+    values, cov = log_to_linear(x, covariance)
+    mua, musp = values[:, 0], values[:, 1]
     if relative:
         scale = values[:, 2]
         scale_sd = np.sqrt(cov[:, 2, 2])
-    corr = outcome.covariance[:, 0, 1] / np.sqrt(outcome.covariance[:, 0, 0] * outcome.covariance[:, 1, 1])
-    return dict(mua=mua, musp=musp, cov=cov2, chi2=outcome.chi2, dof=outcome.dof,
-                chi2_red_w=outcome.chi2_red, residuals=outcome.residuals, scale=scale,
+    with np.errstate(invalid="ignore"):
+        corr = covariance[:, 0, 1] / np.sqrt(covariance[:, 0, 0] * covariance[:, 1, 1])
+    return dict(mua=mua, musp=musp, cov=cov[:, :2, :2], chi2=chi2, dof=dof,
+                chi2_red_w=chi2_red, residuals=outcome.residuals, scale=scale,
                 scale_sd=scale_sd, parameters={}, correlation=corr)
 
 
-#: A wavelength whose reduced χ² exceeds this many times the median (and 2) is refitted from
-#: other starting points: a sign of a local minimum.
+#: A wavelength is refitted from other starting points (a sign of a local minimum) when its χ²
+#: lies more than this many standard deviations of the χ² distribution above its mean, or, for
+#: data without SDs, above this many times the median.
+_RESTART_SIGMAS = 5.0
 _RESTART_FACTOR = 3.0
 
 
 def _restart_poor_blocks(forward, data, sd, mask, relative, scale_by_chi2, parts, candidates=6):
-    chi2_red = parts["chi2_red_w"]
-    if not np.any(np.isfinite(chi2_red)):
+    chi2, dof = parts["chi2"], parts["dof"]
+    if not np.any(dof > 0):
         return parts
-    limit = max(2.0, _RESTART_FACTOR * float(np.nanmedian(chi2_red)))
-    poor = np.where(np.nan_to_num(chi2_red, nan=0.0) > limit)[0]
+    if scale_by_chi2:
+        chi2_red = parts["chi2_red_w"]
+        limit = _RESTART_FACTOR * float(np.nanmedian(chi2_red)) * np.maximum(dof, 1)
+    else:
+        limit = dof + _RESTART_SIGMAS * np.sqrt(2.0 * np.maximum(dof, 1))
+    poor = np.where((dof > 0) & (chi2 > limit))[0]
     if poor.size == 0:
         return parts
     starts_a, starts_s = grid_start(forward, np.where(mask, data, np.nan)[poor], relative=relative,
                                     W=poor.size, candidates=candidates)
+    # every candidate start of every poor wavelength in one batched fit
+    rows = np.tile(poor, candidates)
+    trial = _block_fit(forward, data[rows], sd[rows], mask[rows], relative,
+                       (starts_a.ravel(), starts_s.ravel()), scale_by_chi2)
+    trial_chi2 = trial["chi2"].reshape(candidates, poor.size)
+    pick = np.argmin(trial_chi2, axis=0)
+    chosen = pick * poor.size + np.arange(poor.size)
+    better = trial_chi2[pick, np.arange(poor.size)] < chi2[poor]
     best = {key: (value.copy() if isinstance(value, np.ndarray) else value) for key, value in parts.items()}
-    best_chi2 = parts["chi2"][poor].copy()
-    for c in range(candidates):
-        trial = _block_fit(forward, data[poor], sd[poor], mask[poor], relative,
-                           (starts_a[c], starts_s[c]), scale_by_chi2)
-        better = trial["chi2"] < best_chi2
-        if np.any(better):
-            rows = poor[better]
-            best_chi2[better] = trial["chi2"][better]
-            for key in ("mua", "musp", "cov", "chi2", "dof", "chi2_red_w", "residuals", "correlation",
-                        "scale", "scale_sd"):
-                if best[key] is not None:
-                    best[key][rows] = trial[key][better]
+    for key in ("mua", "musp", "cov", "chi2", "dof", "chi2_red_w", "residuals", "correlation", "scale", "scale_sd"):
+        if best[key] is not None:
+            best[key][poor[better]] = trial[key][chosen[better]]
     return best
 
 
@@ -397,3 +436,35 @@ def fit_spectrum(
         scale_factor=parts["scale"], scale_factor_sd=parts["scale_sd"], parameters=parts["parameters"],
     )
     return result, parts["correlation"]
+
+
+def merge_rows(full: FitResult, full_correlation: np.ndarray, part: FitResult, part_correlation: np.ndarray,
+               rows: np.ndarray, *, parameters_per_wavelength: int) -> tuple[FitResult, np.ndarray]:
+    """Put the per-wavelength fit ``part`` of wavelengths ``rows`` into ``full`` (block fits only).
+
+    The overall reduced χ² is recomputed from the merged residuals (NaN stays NaN when the
+    data carry no SDs).
+    """
+    from dataclasses import replace
+
+    def put(a, b):
+        if a is None:
+            return None
+        out = np.array(a, copy=True)
+        out[rows] = b
+        return out
+
+    residuals = put(full.residuals, part.residuals)
+    chi2_red = full.chi2_red
+    if np.isfinite(full.chi2_red):
+        dof = np.sum(np.isfinite(residuals)) - parameters_per_wavelength * residuals.shape[0]
+        chi2_red = float(np.nansum(residuals**2) / dof) if dof > 0 else float("nan")
+    merged = replace(
+        full, mua_per_mm=put(full.mua_per_mm, part.mua_per_mm), musp_per_mm=put(full.musp_per_mm, part.musp_per_mm),
+        mua_sd_per_mm=put(full.mua_sd_per_mm, part.mua_sd_per_mm),
+        musp_sd_per_mm=put(full.musp_sd_per_mm, part.musp_sd_per_mm), covariance=put(full.covariance, part.covariance),
+        chi2_red=chi2_red, chi2_red_per_wavelength=put(full.chi2_red_per_wavelength, part.chi2_red_per_wavelength),
+        residuals=residuals, scale_factor=put(full.scale_factor, part.scale_factor),
+        scale_factor_sd=put(full.scale_factor_sd, part.scale_factor_sd),
+    )
+    return merged, put(full_correlation, part_correlation)

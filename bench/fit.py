@@ -1,0 +1,103 @@
+"""Benchmark of the inverse fits (issue 5): prints its figures, checks nothing by itself.
+
+    .venv/bin/python bench/fit.py
+
+* a 601-wavelength srdr spectrum at 20 distances fitted with diffusion (target < 1 s), and
+  the same spectrum fitted the plain way (one scipy least_squares call per wavelength) in the
+  same process, as the ratio's baseline;
+* a Monte Carlo lookup fit per wavelength once the baseline exists (target < 50 ms), beside
+  the time to build the baseline;
+* the peak memory of the process (target < 500 MB).
+
+Synthetic data (demo, invented): diffusion forward model (srdr) and baseline lookup (mc)
+with 1 % noise.
+"""
+
+from __future__ import annotations
+
+import resource
+import time
+import warnings
+
+import numpy as np
+from scipy.optimize import least_squares
+
+from phantomlab.calibration.fit_srdr import fit_srdr, srdr_forward
+from phantomlab.calibration.measurements import Measurement, MeasurementMetadata
+from phantomlab.errors import PhantomlabWarning
+from phantomlab.transport.diffusion import srdr_reflectance
+from phantomlab.transport.montecarlo import build_baseline
+
+warnings.simplefilter("ignore", PhantomlabWarning)
+
+
+def _measurement(wl, rho, values, sd):
+    return Measurement(kind="srdr", scale="absolute", wavelength_nm=wl, axis=rho, values=values, sd=sd,
+                       source="bench (demo data, invented)", metadata=MeasurementMetadata(n=1.4))
+
+
+def diffusion_band() -> None:
+    rng = np.random.default_rng(1)
+    wl = np.linspace(400.0, 1000.0, 601)
+    rho = np.linspace(1.5, 12.0, 20)
+    mua = 0.005 + 0.03 * np.exp(-((wl - 560) / 50) ** 2) + 0.01 * (wl > 900)
+    musp = 1.5 * (wl / 500) ** -1.2
+    R = srdr_reflectance(mua_per_mm=mua, musp_per_mm=musp, rho_mm=rho, n=1.4)
+    sd = 0.01 * R
+    data = R + sd * rng.standard_normal(R.shape)
+    m = _measurement(wl, rho, data, sd)
+    fit_srdr(m)  # warm caches and imports
+    start = time.perf_counter()
+    fit = fit_srdr(m)
+    ours = time.perf_counter() - start
+    forward = srdr_forward(model="farrell1992", rho_mm=rho, n=1.4)
+    start = time.perf_counter()
+    plain = np.empty((wl.size, 2))
+    for i in range(wl.size):
+        result = least_squares(lambda x: (forward(np.exp(x[:1]), np.exp(x[1:]))[0] - data[i]) / sd[i],
+                               np.log([fit.mua_per_mm[i] * 1.3, fit.musp_per_mm[i] * 0.8]))
+        plain[i] = np.exp(result.x)
+    loop = time.perf_counter() - start
+    z = max(np.max(np.abs((fit.mua_per_mm - mua) / fit.mua_sd_per_mm)),
+            np.max(np.abs((fit.musp_per_mm - musp) / fit.musp_sd_per_mm)))
+    print(f"diffusion fit, 601 wavelengths x 20 distances: {ours:.3f} s (target < 1 s); "
+          f"one least_squares per wavelength (started near the answer): {loop:.3f} s; ratio {loop / ours:.1f}x; "
+          f"largest |error|/SD over 1202 values {z:.2f} at 1 % noise")
+
+
+def mc_lookup() -> None:
+    start = time.perf_counter()
+    baseline = build_baseline(mua_per_mm=0.0009, mus_per_mm=5.0, g=0.8, n=1.4, photons=500_000, seed=3)
+    built = time.perf_counter() - start
+    print(f"baseline: {baseline.detected} photons stored ({baseline.nbytes / 1e6:.1f} MB), built in {built:.1f} s "
+          f"(JIT compile included)")
+    rng = np.random.default_rng(2)
+    W = 40
+    wl = np.linspace(600.0, 990.0, W)
+    rho = np.linspace(0.4, 8.0, 20)
+    mua = np.geomspace(0.002, 0.08, W)
+    musp = np.linspace(1.5, 0.8, W)
+    forward = srdr_forward(model="mc", rho_mm=rho, n=1.4, baseline=baseline)
+    forward(mua[:2], musp[:2])  # builds the lookup table once
+    R = forward(mua, musp)
+    sd = 0.01 * R
+    m = _measurement(wl, rho, R + sd * rng.standard_normal(R.shape), sd)
+    start = time.perf_counter()
+    fit = fit_srdr(m, model="mc", baseline=baseline)
+    seconds = time.perf_counter() - start
+    worst = max(np.max(np.abs(fit.mua_per_mm / mua - 1)), np.max(np.abs(fit.musp_per_mm / musp - 1)))
+    start = time.perf_counter()
+    for _ in range(20):
+        forward(mua, musp)
+    one_call = (time.perf_counter() - start) / 20
+    print(f"Monte Carlo lookup fit: {1000 * seconds / W:.1f} ms per wavelength (target < 50 ms; {W} wavelengths "
+          f"in {seconds:.2f} s; one lookup of all {W} = {1000 * one_call:.2f} ms, fit/lookup ratio "
+          f"{seconds / one_call:.0f}); worst relative error {worst:.3f}; baseline build / fit per wavelength "
+          f"= {built / (seconds / W):.0f}x")
+
+
+if __name__ == "__main__":
+    diffusion_band()
+    mc_lookup()
+    peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    print(f"peak memory: {peak_mb:.0f} MB (target < 500 MB)")
