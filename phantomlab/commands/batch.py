@@ -65,7 +65,6 @@ def register(subparsers) -> None:
     add.add_argument("--sheet", metavar="FILE.html", help="write the mixing sheet (with the batch ID) here")
     add.add_argument("--operator", metavar="NAME", help="who makes the batch")
     add.add_argument("--notes", metavar="TEXT", help="free notes kept with the batch")
-    add.add_argument("--year", type=int, default=None, help=argparse.SUPPRESS)
 
     actual = actions.add_parser("actual", help="record the amounts really dispensed and predict what was made")
     actual.add_argument("batch_id", metavar="BATCH_ID")
@@ -323,7 +322,7 @@ def _add(args) -> CommandResult:
                 for key in (recipe.matrix_key, *recipe.stock_keys)
             }
             recipe_row = record_recipe(session, recipe, recorded_by=args.operator)
-            code = next_batch_code(session, year=args.year)
+            code = next_batch_code(session)
             sheet_html = _render_sheet(plan, code)
             potencies_used = {
                 dose.stock: {
@@ -346,9 +345,13 @@ def _add(args) -> CommandResult:
                 _write(sheet_path, sheet_html, option="--sheet")
     finally:
         store.close()
-    expired = [w for w in plan.warnings if "expired" in w]
-    for message in expired:
-        warnings.warn(message, PhantomlabWarning, stacklevel=2)
+    today = _dt.date.today()
+    expired = [{"stock": key, "lot": lot.lot, "expiry": lot.expiry} for key, lot in lots.items()
+               if lot.expiry is not None and lot.expiry < today]
+    for item in expired:
+        if not any(item["stock"] in w and item["expiry"].isoformat() in w for w in plan.warnings):
+            warnings.warn(f"{item['stock']}: lot {item['lot'] or '(none)'} expired on "
+                          f"{item['expiry'].isoformat()}", PhantomlabWarning, stacklevel=2)
     payload = {
         "batch_id": code,
         "status": batch.status,

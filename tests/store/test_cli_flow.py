@@ -203,7 +203,7 @@ def test_expired_lot_warns_in_json_and_on_the_sheet(db_url, tmp_path, capsys):
                              "--sheet", sheet, "--json")
     assert status == 0, err
     assert any("expired" in w and "dye_nir" in w for w in added["warnings"])
-    assert added["expired_lots"]
+    assert [(e["stock"], e["expiry"]) for e in added["expired_lots"]] == [("dye_nir", "2020-01-15")]
     assert "2020-01-15" in sheet.read_text()
 
 
