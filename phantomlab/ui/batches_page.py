@@ -131,7 +131,7 @@ def _recorded_amounts(batch: dict) -> pd.DataFrame:
                      "planned [mL undiluted]": plan.get("volume_ml"),
                      "dispensed [mL undiluted]": item.get("volume_ml"),
                      "dispensed [g undiluted]": item.get("mass_g")})
-    return pd.DataFrame(rows)
+    return pd.DataFrame(rows).dropna(axis="columns", how="all")
 
 
 def _amounts_section(workspace: Workspace, store, batch: dict) -> None:
