@@ -34,7 +34,7 @@ from phantomlab.errors import InputError, PhantomlabWarning
 __all__ = ["BlockOutcome", "JointOutcome", "FitResult", "fit_blocks", "fit_joint", "finite_jacobian"]
 
 #: Relative step of the forward-difference Jacobian in log-parameters.
-_STEP = 1e-3
+_STEP = 1e-5
 
 
 @dataclass(frozen=True)
