@@ -25,8 +25,8 @@ def within_se(value, reference, se, k=3.0):
 
 # ---------------------------------------------------------------- published slab (CHECKS.md)
 # van de Hulst 1980, Multiple Light Scattering vol. 2 tables, as quoted in the Monte Carlo
-# validation literature (e.g. Wang, Jacques & Zheng 1995, Comput Methods Programs Biomed 47:131,
-# Table 2): mua = 1 /mm, mus = 9 /mm, g = 0.75, d = 0.2 mm, n = 1, normal collimated beam.
+# validation literature of the 1990s (CHECKS.md): mua = 1 /mm, mus = 9 /mm, g = 0.75,
+# d = 0.2 mm, n = 1, normal collimated beam.  Five printed digits: far below 3 SE here.
 VAN_DE_HULST_DIFFUSE_REFLECTANCE = 0.09739
 VAN_DE_HULST_TOTAL_TRANSMITTANCE = 0.66096
 UNSCATTERED_TRANSMITTANCE = math.exp(-2.0)  # Beer-Lambert, exp(-(mua + mus) d), exact
@@ -130,7 +130,7 @@ def test_non_scattering_slab_matches_multiple_reflection_formula(mua, n_slide):
 
 
 def test_specular_reflectance_normal_fresnel():
-    # Born & Wolf eq. 1.5.23: ((1.4 - 1)/(1.4 + 1))^2
+    # Fresnel at normal incidence (Born & Wolf sec. 1.5.2): ((1.4 - 1)/(1.4 + 1))^2
     assert specular_reflectance(n=1.4) == pytest.approx((0.4 / 2.4) ** 2, rel=1e-12)
     assert specular_reflectance(n=1.33, n_outside=1.33) == 0.0
     # a slide of the medium's own index is one interface

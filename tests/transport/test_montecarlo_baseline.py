@@ -35,7 +35,7 @@ def assert_within_combined_se(value, value_sd, other, other_sd, k=3.0):
 @pytest.mark.parametrize(
     "mua, mus",
     [
-        (0.08, 2.0),  # absorption only: Beer-Lambert re-weighting (Sassaroli et al. 1998)
+        (0.08, 2.0),  # absorption only: Beer-Lambert re-weighting (Kienle & Patterson 1996)
         (0.2, 4.0),  # scattering x2 (Graaff et al. 1993 scaling) and absorption x10
         (0.03, 1.0),  # scattering halved: radii and paths doubled
     ],

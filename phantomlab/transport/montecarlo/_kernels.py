@@ -10,7 +10,7 @@ drawn, spent in hops that stop at boundaries, and the rest carried across a boun
 reflection.  Scattering directions come from the Henyey–Greenstein phase function
 (Henyey & Greenstein 1941, Astrophys J 93:70) by its inverse cumulative distribution.
 Boundaries reflect with the unpolarised Fresnel reflectance (Born & Wolf, *Principles of
-Optics*, eqs. 1.5.20–21); a parallel, non-absorbing slide adds its two interfaces with
+Optics*, §1.5.2, the Fresnel formulae); a parallel, non-absorbing slide adds its two interfaces with
 incoherent multiple reflections, R = r₁ + (1 − r₁)² r₂ / (1 − r₁ r₂).
 
 Estimators
@@ -85,7 +85,8 @@ def fresnel_reflectance(n1, n2, cos_incidence):
     if sin_refracted >= 1.0:
         return 1.0
     cos_refracted = math.sqrt(1.0 - sin_refracted * sin_refracted)
-    # Born & Wolf eqs. 1.5.20-21 (amplitude ratios), averaged in intensity over polarisations
+    # Fresnel amplitude ratios (Born & Wolf, Principles of Optics, sec. 1.5.2), intensity averaged
+    # over the two polarisations
     rs = (n1 * cos_incidence - n2 * cos_refracted) / (n1 * cos_incidence + n2 * cos_refracted)
     rp = (n1 * cos_refracted - n2 * cos_incidence) / (n1 * cos_refracted + n2 * cos_incidence)
     return 0.5 * (rs * rs + rp * rp)
@@ -232,7 +233,7 @@ def _photons_3d(
             if isotropic:
                 cos_theta = 2.0 * xi - 1.0
             else:
-                # inverse CDF of Henyey-Greenstein (Henyey & Greenstein 1941; Wang et al. 1995 eq. 3.28)
+                # inverse CDF of Henyey-Greenstein (Henyey & Greenstein 1941; as used by Wang et al. 1995)
                 tmp = (1.0 - g2) / (1.0 - g + 2.0 * g * xi)
                 cos_theta = (1.0 + g2 - tmp * tmp) / (2.0 * g)
                 if cos_theta > 1.0:
@@ -250,7 +251,7 @@ def _photons_3d(
                 uy = sin_theta * sin_phi
                 uz = cos_theta if uz > 0.0 else -cos_theta
             else:
-                # direction update (Wang et al. 1995 eq. 3.24)
+                # direction update by rotation of the old direction (Wang et al. 1995)
                 root = math.sqrt(1.0 - uz * uz)
                 new_ux = sin_theta * (ux * uz * cos_phi - uy * sin_phi) / root + ux * cos_theta
                 new_uy = sin_theta * (uy * uz * cos_phi + ux * sin_phi) / root + uy * cos_theta

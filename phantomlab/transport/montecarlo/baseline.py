@@ -8,8 +8,8 @@ other optical properties with the same g, n and n_outside:
 
 * **absorption** — Beer–Lambert re-weighting on the path length.  Every stored photon
   survived analog absorption at μa_ref with probability exp(−μa_ref Lᵢ), so at μa it
-  carries the weight exp(−(μa − μa_ref) Lᵢ) (Sassaroli et al. 1998, Appl Opt 37:7392,
-  "white Monte Carlo" with a non-zero reference absorption);
+  carries the weight exp(−(μa − μa_ref) Lᵢ) (the single-simulation re-weighting of Kienle &
+  Patterson 1996, Phys Med Biol 41:2221, here with a non-zero reference absorption);
 * **scattering** — the scaling relation of a homogeneous semi-infinite medium: with g and
   the indices fixed, a trajectory at μs is the reference trajectory with every length
   multiplied by s = μs_ref/μs (Graaff et al. 1993, Appl Opt 32:426; Kienle & Patterson 1996,
@@ -269,8 +269,7 @@ class Baseline:
         References
         ----------
         Graaff R et al. (1993), Appl Opt 32:426–434; Kienle A, Patterson MS (1996), Phys Med
-        Biol 41:2221–2227 (scaling with μs); Sassaroli A et al. (1998), Appl Opt 37:7392–7400
-        (re-weighting on path length).
+        Biol 41:2221–2227 (scaling with μs and re-weighting on path length).
         """
         values, _ = self._evaluate(mua_per_mm, mus_per_mm, rho_mm, relative_halfwidth, method, False)
         return values

@@ -194,7 +194,7 @@ def specular_reflectance(*, n, n_outside=1.0, n_slide=None) -> float:
     -------
     float
         ((n_out − n)/(n_out + n))² without a slide (Fresnel at normal incidence, Born & Wolf
-        eq. 1.5.23); with a slide, r₁ + (1 − r₁)² r₂ / (1 − r₁ r₂) for the two interfaces.
+        §1.5.2); with a slide, r₁ + (1 − r₁)² r₂ / (1 − r₁ r₂) for the two interfaces.
     """
     n = check_index("n", n)
     n_outside = check_index("n_outside", n_outside)
