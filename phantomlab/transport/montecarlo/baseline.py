@@ -19,9 +19,11 @@ other optical properties with the same g, n and n_outside:
 
 **Finite paths.** The reference run has μa_ref > 0, so every photon path is finite and no
 photon is cut.  The price: the baseline covers only targets with μa s ≥ μa_ref, i.e.
-μa/μs ≥ μa_ref/μs_ref (lower absorption would need weights above one, which the stored
-photons cannot give without bias from the photons absorbed in the reference run); lower
-ratios are refused.  Choose μa_ref/μs_ref at or below the smallest ratio you will ask for.
+μa/μs ≥ μa_ref/μs_ref.  Lower absorption would need weights above one: still unbiased,
+but the long paths that then matter were mostly absorbed in the reference run, and the
+variance grows without bound as μa s falls towards μa_ref/2 (E[exp(−(2μa s − μa_ref) L)]
+diverges there), so lower ratios are refused.  Choose μa_ref/μs_ref at or below the smallest
+ratio you will ask for.
 
 Two evaluation methods: ``method='photons'`` sums over the stored photons exactly (with
 standard errors); ``method='table'`` (default, for fitting) sums over a table of
