@@ -64,7 +64,9 @@ def fit_measurement(
         One of :data:`FIT_MODELS` for the kind (default the first).
     baseline : Baseline or path, optional
         Monte Carlo baseline for ``model='mc'``.
-    constraint : SpectralConstraint, optional
+    constraint : SpectralConstraint or callable, optional
+        A callable is called with the measurement's wavelengths and returns the constraint
+        (e.g. :func:`phantomlab.calibration.observations.stock_constraint`).
     n, n_outside, g : float, optional
         Override the metadata.
 
@@ -73,6 +75,8 @@ def fit_measurement(
     FitResult
     """
     kind = measurement.kind
+    if callable(constraint):  # built on the measurement's own wavelengths
+        constraint = constraint(measurement.wavelength_nm)
     model = DEFAULT_MODELS[kind] if model is None else model
     if model not in FIT_MODELS[kind]:
         raise InputError(f"unknown {kind} fit model {model!r}; accepted: {', '.join(FIT_MODELS[kind])}")

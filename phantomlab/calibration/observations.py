@@ -17,7 +17,8 @@ import numpy as np
 from phantomlab.calibration.potency import BatchObservation, PotencyPrior
 from phantomlab.errors import InputError
 
-__all__ = ["observation_from_fit", "volume_fractions_from_amounts", "priors_from_recipe", "fit_arrays"]
+__all__ = ["observation_from_fit", "volume_fractions_from_amounts", "priors_from_recipe", "fit_arrays",
+           "stock_constraint"]
 
 
 def fit_arrays(fit) -> dict[str, np.ndarray]:
@@ -157,3 +158,23 @@ def observation_from_fit(
         mua_per_mm=arrays["mua_per_mm"], musp_per_mm=arrays["musp_per_mm"],
         covariance=arrays["covariance"], dispensing_rel_sd=dispensing_rel_sd,
     )
+
+
+def stock_constraint(recipe, *, musp_power_law: bool = False, reference_nm: float = 500.0):
+    """A spectral constraint "μa = matrix + Σ c_k ε_k" from a recipe's stocks, for any grid.
+
+    Returns a function ``wavelength_nm -> SpectralConstraint`` (the fit calls it with the
+    measurement's wavelengths): the basis ε_k is each added stock's intrinsic absorption at
+    potency 1, the offset the matrix's own; the fitted amounts c_k are then volume fraction ×
+    potency of each stock.
+    """
+    from phantomlab.calibration.spectral import SpectralConstraint
+    from phantomlab.recipe.plan import intrinsic_table
+
+    def build(wavelength_nm) -> SpectralConstraint:
+        table = intrinsic_table(recipe, wavelength_nm)
+        return SpectralConstraint(musp_power_law=musp_power_law, reference_nm=reference_nm,
+                                  mua_basis_per_mm=table.mua_per_mm - table.matrix_mua_per_mm[None, :],
+                                  mua_basis_names=table.stock_keys, mua_offset_per_mm=table.matrix_mua_per_mm)
+
+    return build

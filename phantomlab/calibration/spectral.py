@@ -47,7 +47,8 @@ class SpectralConstraint:
     reference_nm : float [nm]
         λ₀ of the power law.
     mua_basis_per_mm : ndarray (K, W) or None [1/mm]
-        Intrinsic absorption spectra ε_k of the stocks, on the measurement's grid.
+        Intrinsic absorption spectra ε_k of the stocks, on the measurement's grid (may be
+        negative where a stock absorbs less than the matrix it displaces).
     mua_basis_names : tuple of str
         Names of the K spectra (stock keys), used in ``FitResult.parameters``.
     mua_offset_per_mm : ndarray (W,) or None [1/mm]
@@ -213,8 +214,8 @@ class _JointMap:
             basis = np.atleast_2d(np.asarray(constraint.mua_basis_per_mm, float))
             if basis.shape[1] != self.W:
                 raise InputError(f"mua basis has {basis.shape[1]} wavelengths, the measurement {self.W}")
-            if np.any(basis < 0) or not np.all(np.isfinite(basis)):
-                raise InputError("mua basis spectra must be finite and >= 0 [1/mm]")
+            if not np.all(np.isfinite(basis)):
+                raise InputError("mua basis spectra must be finite [1/mm]")
             self.basis = basis
             self.offset = (np.zeros(self.W) if constraint.mua_offset_per_mm is None
                            else np.broadcast_to(np.asarray(constraint.mua_offset_per_mm, float), (self.W,)))

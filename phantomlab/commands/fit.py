@@ -2,7 +2,7 @@
 
     phantomlab fit MEASUREMENT.csv --kind {srdr,sfdi,slab,optics} [--n N] [--n-outside N]
                    [--thickness-mm D] [--model M] [--g G] [--baseline FILE]
-                   [--musp-power-law] [--json]
+                   [--musp-power-law] [--mua-from-stocks RECIPE.toml] [--json]
 
 JSON keys (DESIGN.md): ``wavelength_nm``, ``mua_per_mm``, ``musp_per_mm``, ``mua_sd_per_mm``,
 ``musp_sd_per_mm``, ``model``, ``chi2_red``, ``warnings``; extras: ``kind``,
@@ -40,6 +40,9 @@ def register(subparsers) -> None:
                         help="stored Monte Carlo baseline for --model mc")
     parser.add_argument("--musp-power-law", action="store_true",
                         help="fit mus' as a power law a (lambda/500 nm)^-b jointly across the band")
+    parser.add_argument("--mua-from-stocks", metavar="RECIPE.toml", default=None,
+                        help="fit mua as the matrix plus a non-negative amount of each stock of this recipe "
+                        "(the amounts are volume fraction x potency)")
     add_json_option(parser)
     parser.set_defaults(handler=_fit)
 
@@ -62,6 +65,11 @@ def _fit(args) -> CommandResult:
     from phantomlab.calibration.spectral import SpectralConstraint
 
     constraint = SpectralConstraint(musp_power_law=True) if args.musp_power_law else None
+    if args.mua_from_stocks:
+        from phantomlab.calibration.observations import stock_constraint
+        from phantomlab.recipe import load_recipe
+
+        constraint = stock_constraint(load_recipe(args.mua_from_stocks), musp_power_law=args.musp_power_law)
     files = args.files[0] if len(args.files) == 1 else list(args.files)
     result = fit_measurement_file(
         files, kind=args.kind, n=args.n, n_outside=args.n_outside, thickness_mm=args.thickness_mm,

@@ -113,3 +113,19 @@ def test_recalibrate_empty_log_refused(tmp_path, capsys):
 def test_correct_unknown_batch_refused(tmp_path, capsys):
     code, out, err = _run(capsys, ["correct", "2026-999", "--db", f"sqlite:///{tmp_path / 'e.sqlite'}"])
     assert code == 2 and "unknown batch 2026-999" in err
+
+
+def test_fit_with_mua_from_the_recipe_stocks_reports_amounts(lab, tmp_path, capsys):
+    recipe, truth = lab["recipe"], lab["truth"]
+    dose = {"lipid20": 0.04, "ink_black": 3e-5, "dye_nir": 2e-5}
+    path = tmp_path / "m3.csv"
+    path.write_text(lab["measure"](recipe, dose, truth, seed=4))
+    code, out, err = _run(capsys, ["fit", str(path), "--kind", "srdr", "--n", "1.33", "--json",
+                                   "--mua-from-stocks", str(lab["folder"] / "lab.toml")])
+    assert code == 0, err
+    amounts = json.loads(out)["parameters"]
+    # the fitted amount of each absorber is its volume fraction x true potency
+    for key in ("ink_black", "dye_nir"):
+        entry = amounts[f"amount_{key}"]
+        expected = dose[key] * truth[key][0]
+        assert abs(entry["value"] - expected) < 3 * entry["sd"] + 0.05 * expected, key
