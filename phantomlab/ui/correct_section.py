@@ -64,15 +64,15 @@ def recalibrate_section(workspace: Workspace, store) -> None:
     by = st.text_input("Recorded by", key="calibrate.by")
     if st.button("Recalibrate from the batch log", type="primary", key="calibrate.run"):
         with st.spinner("Updating the potencies…"):
-            outcome = call_layer("Recalibrating", recalibrate_from_log, store,
-                                 recipes_folder=workspace.recipes_folder, recorded_by=by.strip() or None)
+            outcome = call_layer("Recalibrating", recalibrate_from_log, store, recorded_by=by.strip() or None)
         if outcome.ok:
             st.session_state["calibrate.last"] = outcome.value
     last = st.session_state.get("calibrate.last")
     if last:
-        update, state_id = last
+        update, state_id, skipped = last
         st.success(f"Calibration recorded (state {state_id}) from {len(update.batches)} batch(es); "
                    f"reduced χ² {update.chi2_red:.3g}. Plans now use these potencies.")
+        show_warnings(skipped)
         st.dataframe(_update_table(update), hide_index=True, width="stretch")
     st.markdown("**History**")
     found = call_layer("Reading the calibrations", calibration_history, store)

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import json
 import tempfile
+from dataclasses import replace
 import tomllib
 from pathlib import Path
 
@@ -497,8 +498,25 @@ def _sheet_downloads(plan, *, batch_id: str | None, key: str) -> None:
         )
 
 
-def _save_batch(workspace: Workspace, store, plan, potencies: dict, origin: dict) -> None:
-    from phantomlab.ui.recording import record_planned_batch
+def _recipe_download(definition: dict, source: str) -> None:
+    """The recipe as a TOML file (the file itself when it is unchanged)."""
+    import tomli_w
+
+    from phantomlab.ui.recording import json_plain
+
+    if source:
+        data, name = Path(source).read_bytes(), Path(source).name
+    else:
+        data = tomli_w.dumps(json_plain(definition)).encode("utf-8")
+        name = "".join(c if c.isalnum() else "-" for c in definition["name"].lower()).strip("-") + ".toml"
+    st.download_button("Download the recipe (TOML)", data=data, file_name=name or "recipe.toml",
+                       mime="application/toml", key="design.recipe_toml", on_click="ignore",
+                       help="For `phantomlab plan RECIPE.toml` on the command line.")
+
+
+def _save_batch(workspace: Workspace, store, plan, potencies: dict, origin: dict, *, definition: dict,
+                base_dir: Path, source: str) -> None:
+    from phantomlab.ui.recording import record_planned_batch, write_page_recipe
 
     with st.form("design.save_form", border=True):
         st.markdown("**Save this plan as a new batch** (the batch log gives it an ID; the sheet "
@@ -507,6 +525,12 @@ def _save_batch(workspace: Workspace, store, plan, potencies: dict, origin: dict
         notes = st.text_area("Notes for the batch record (optional)", key="design.notes")
         pressed = st.form_submit_button("Save as a new batch", type="primary")
     if pressed:
+        if not source:  # edited on the page: the recipe becomes a file, so the command line finds it
+            written = call_layer("Writing the recipe file", write_page_recipe, workspace.page_recipes_folder(),
+                                 definition, base_dir=base_dir, shelf=plan.recipe.shelf)
+            if not written.ok:
+                return
+            plan = replace(plan, recipe=written.value)
         outcome = call_layer(
             "Saving the batch", record_planned_batch, store, plan,
             potencies=potencies, origin=origin, operator=operator.strip() or None,
@@ -603,4 +627,6 @@ def show(workspace: Workspace) -> None:
 
     st.subheader("Mixing sheet")
     _sheet_downloads(plan, batch_id=None, key="design.sheet")
-    _save_batch(workspace, store, plan, potencies, origin)
+    _recipe_download(definition, source)
+    _save_batch(workspace, store, plan, potencies, origin, definition=definition, base_dir=base_dir,
+                source=source)

@@ -76,6 +76,60 @@ def _sheet_html(plan, code: str) -> str:
     return render_sheet_html(plan, batch_id=code, draft=False)
 
 
+def write_page_recipe(folder, definition: Mapping[str, Any], *, base_dir=None, shelf=None):
+    """Write a recipe designed on the page as a TOML file and read it back as that file.
+
+    The file makes a batch planned on the page usable from the command line too (``batch
+    actual``, ``recalibrate`` and ``correct`` read a batch's recipe from its file).  A target
+    spectrum file is copied beside it.  Identical definitions share one file (its name holds
+    a hash of the content).
+
+    Returns
+    -------
+    phantomlab.recipe.Recipe
+        Parsed from the file (its path and content hash are the file's).
+    """
+    import datetime as _dt
+    import hashlib
+    import shutil
+    import tomllib
+    from pathlib import Path
+
+    import tomli_w
+
+    from phantomlab.recipe import parse_recipe  # layer 3
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    definition = json_plain(dict(definition))
+    target = dict(definition.get("target") or {})
+    if "spectrum_csv" in target and base_dir is not None:
+        source = Path(base_dir) / str(target["spectrum_csv"])
+        digest = hashlib.sha256(source.read_bytes()).hexdigest()[:12]
+        copied = folder / f"target-{digest}.csv"
+        if not copied.exists():
+            shutil.copyfile(source, copied)
+        target["spectrum_csv"] = copied.name
+        definition["target"] = target
+    body = tomli_w.dumps(definition)
+    digest = hashlib.sha256(body.encode("utf-8")).hexdigest()[:12]
+    slug = "".join(c if c.isalnum() else "-" for c in str(definition.get("name", "recipe")).lower()).strip("-")
+    path = folder / f"{slug[:40] or 'recipe'}-{digest}.toml"
+    if not path.exists():
+        header = (f"# recipe designed on the phantomlab page, {_dt.date.today().isoformat()}\n"
+                  f"# (written when a batch was saved; the batch log keeps its content hash)\n")
+        path.write_text(header + body, encoding="utf-8")
+    raw = path.read_bytes()
+    return parse_recipe(tomllib.loads(raw.decode("utf-8")), base_dir=folder, path=path, raw=raw, shelf=shelf)
+
+
+def json_plain(value):
+    """Numbers, strings, lists and tables only (numpy values made plain), for TOML."""
+    from phantomlab.jsonable import to_jsonable
+
+    return to_jsonable(value)
+
+
 def record_page_stock(store, stock, *, recorded_by: str | None = None):
     """Record a stock added or edited on the page as a (new version of a) stock lot."""
     from phantomlab.store import record_stock_lot  # layer 4
@@ -158,6 +212,7 @@ def record_dispensed(store, code: str, amounts: Mapping[str, tuple[float, str]],
     with store.reading() as session:
         plan_json = dict(plan_of(session, get_batch(session, code)).plan)
     volume_ml = float(plan_json["batch_volume_ml"])
+    planned = {d["stock"]: d for d in plan_json.get("doses", [])}
     fractions: dict[str, float] = {}
     rows = []
     for key, (amount, unit) in amounts.items():
@@ -167,14 +222,18 @@ def record_dispensed(store, code: str, amounts: Mapping[str, tuple[float, str]],
             raise InputError(f"{key}: amount {amount!r} must be a number >= 0")
         stock = recipe.stock(key)
         if unit == "mL":
-            volume = float(amount)
-            rows.append({"stock": key, "volume_ml": volume})
+            volume, mass = float(amount), float(amount) * stock.density_g_per_ml
         elif unit == "g":
-            volume = float(amount) / stock.density_g_per_ml
-            rows.append({"stock": key, "mass_g": float(amount)})
+            mass, volume = float(amount), float(amount) / stock.density_g_per_ml
         else:
             raise InputError(f"{key}: unit {unit!r} not accepted; accepted: mL, g")
         fractions[key] = volume / volume_ml
+        # the row layout of `phantomlab batch actual` (undiluted stock; no matrix row: the
+        # planned batch volume is the total)
+        rows.append({"stock": key, "volume_ml": volume, "mass_g": mass,
+                     "given": {"volume_ml" if unit == "mL" else "mass_g": float(amount)},
+                     "dilution_factor": 1.0, "planned_volume_ml": planned.get(key, {}).get("volume_ml"),
+                     "planned_mass_g": planned.get(key, {}).get("mass_g"), "volume_fraction": fractions[key]})
     prediction = predict(recipe, volume_fractions=fractions, potencies=plan_potencies(store, code) or None)
     alarms = tolerance_alarms(recipe.target, prediction)
     with store.transaction() as session:
@@ -271,85 +330,40 @@ def attach_measurement(
 # ---- recalibration ---------------------------------------------------------------------------------
 
 
-def gather_observations(store, *, recipes_folder=None):
-    """Every characterised batch's newest fits as observations, with the priors of its lots.
-
-    A batch counts when it has the amounts actually dispensed and at least one fitted
-    measurement; each fitted measurement is one observation.  The priors are the stock-file
-    potencies kept in the lot snapshots (not an earlier calibration: every recalibration
-    starts from the priors and uses the whole history once).
-
-    Returns
-    -------
-    (priors, observations, used) where ``used`` lists ``{"batch", "measurement", "fit"}``.
-    """
-    from phantomlab.calibration.observations import (  # layer 3
-        observation_from_fit,
-        priors_from_recipe,
-        volume_fractions_from_amounts,
-    )
-    from phantomlab.store import batch_lots, fits_of, list_batches, measurements_of, plan_of  # layer 4
-
-    found = []
-    with store.reading() as session:
-        for batch in list_batches(session):
-            if not batch.actual_amounts:
-                continue
-            fits = []
-            for measurement in measurements_of(session, batch):
-                rows = sorted(fits_of(session, measurement), key=lambda f: (f.recorded_at, f.id))
-                if rows:
-                    fits.append((measurement.id, rows[-1].id, dict(rows[-1].results)))
-            if not fits:
-                continue
-            lots = batch_lots(session, batch)
-            found.append({
-                "code": batch.code, "amounts": list(batch.actual_amounts),
-                "volume_ml": float(plan_of(session, batch).plan["batch_volume_ml"]),
-                "lots": {k: row.lot for k, row in lots.items()},
-                "priors": {(k, row.lot): (row.potency_prior, row.potency_sd_prior) for k, row in lots.items()
-                           if row.potency_prior is not None and row.potency_sd_prior},
-                "fits": fits,
-            })
-    priors: dict = {}
-    observations, used = [], []
-    for item in found:
-        recipe = batch_recipe(store, item["code"], recipes_folder=recipes_folder)
-        fractions = volume_fractions_from_amounts(recipe, amounts=item["amounts"], batch_volume_ml=item["volume_ml"])
-        for prior in priors_from_recipe(recipe, lots=item["lots"], overrides=item["priors"]):
-            priors.setdefault(prior.ident, prior)
-        for measurement_id, fit_id, fit in item["fits"]:
-            observations.append(observation_from_fit(recipe, batch_id=item["code"], volume_fractions=fractions,
-                                                     fit=fit, lots=item["lots"]))
-            used.append({"batch": item["code"], "measurement": measurement_id, "fit": fit_id})
-    return list(priors.values()), observations, used
-
-
-def recalibrate_from_log(store, *, recipes_folder=None, recorded_by: str | None = None):
+def recalibrate_from_log(store, *, recorded_by: str | None = None):
     """Estimate every stock lot's potency from the whole batch log and record the result.
 
+    The batch history is gathered by the very function ``phantomlab recalibrate`` uses
+    (:func:`phantomlab.commands.calibrate.gather_history`), the update is the calibration
+    layer's, and, as the command does, one potency per stock key is stored: that of the lot
+    of the newest batch.
+
     Returns
     -------
-    (PotencyUpdate, calibration state id)
+    (PotencyUpdate, calibration state id, list of skipped batches)
     """
     from phantomlab.calibration import update_potencies  # layer 3
+    from phantomlab.commands.calibrate import METHOD, gather_history  # the command line's reader
     from phantomlab.errors import InputError
     from phantomlab.store import record_calibration  # layer 4
 
-    priors, observations, used = gather_observations(store, recipes_folder=recipes_folder)
-    if not observations:
-        raise InputError("no batch has both the amounts dispensed and a fitted measurement; nothing to calibrate from")
-    update = update_potencies(priors, observations)
-    potencies = {stock: (float(p), float(sd), lot)
-                 for (stock, lot), p, sd in zip(update.stocks, update.potency, update.potency_sd)}
     with store.transaction() as session:
+        history = gather_history(session)
+        if not history["observations"]:
+            raise InputError("no mixed batch with a fitted measurement in the batch log; record the amounts "
+                             "dispensed and attach a measurement first"
+                             + (f" ({'; '.join(history['skipped'])})" if history["skipped"] else ""))
+        update = update_potencies(history["priors"], history["observations"])
+        payload = update.to_json()
+        stored = {key: (float(update.potency[k]), float(update.potency_sd[k]), lot)
+                  for k, (key, lot) in enumerate(update.stocks) if history["latest_lot"].get(key) == lot}
         state = record_calibration(
-            session, potencies=potencies,
-            computed_from={"batches": sorted({u["batch"] for u in used}), "fits": used},
-            method="Bayesian linear least squares (update_potencies)", recorded_by=recorded_by,
+            session, potencies=stored, method=METHOD, recorded_by=recorded_by,
+            computed_from={"batches": history["batches"], "fit_ids": history["fit_ids"],
+                           "moved_by": payload["moved_by"], "lots": payload["lots"]},
         )
         state_id = state.id
-    return update, state_id
+    return update, state_id, list(history["skipped"])
 
 
 def calibration_history(store) -> list[dict]:
@@ -362,7 +376,7 @@ def calibration_history(store) -> list[dict]:
     with store.reading() as session:
         states = sorted(session.scalars(current(session, CalibrationState)), key=lambda s: (s.recorded_at, s.id))
         for number, state in enumerate(states, start=1):
-            batches = (state.computed_from or {}).get("batches", [])
+            batches = sorted((state.computed_from or {}).get("batches", []))
             for potency in calibration_potencies(session, state):
                 rows.append({"calibration": number, "recorded at (UTC)": state.recorded_at,
                              "stock": potency.stock_key, "lot": potency.lot or "",

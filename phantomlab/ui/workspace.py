@@ -46,6 +46,18 @@ class Workspace:
         """Where recipe files are looked for (the shelf's folder)."""
         return self.shelf_path.parent
 
+    def page_recipes_folder(self, environ: Mapping[str, str] | None = None) -> Path:
+        """Where recipes designed or edited on the page are written when a batch is saved.
+
+        Demo: ``demo-data/recipes`` beside the demo database.  A lab: ``PHANTOMLAB_RECIPES_DIR``,
+        else ``phantomlab-recipes`` in the working folder.
+        """
+        if self.is_demo and self.demo_file is not None:
+            return Path(self.demo_file).parent / "recipes"
+        environ = os.environ if environ is None else environ
+        text = environ.get("PHANTOMLAB_RECIPES_DIR")
+        return Path(text).expanduser().resolve() if text else Path.cwd() / "phantomlab-recipes"
+
 
 def _parse_arguments(argv: Sequence[str]) -> argparse.Namespace:
     parser = argparse.ArgumentParser(prog="streamlit run app.py --", add_help=False)

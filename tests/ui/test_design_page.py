@@ -11,6 +11,7 @@ from __future__ import annotations
 import datetime as _dt
 import io
 import json
+from pathlib import Path
 
 import pandas as pd
 import pytest
@@ -197,9 +198,22 @@ def test_an_unchanged_recipe_file_is_recorded_as_that_file(page, demo_file):
     assert version == expected.version and source == str(DEMO_RECIPE)
 
 
-def test_an_edited_recipe_is_recorded_as_an_edited_version(page, demo_file):
+def test_an_edited_recipe_is_recorded_as_an_edited_version_in_a_file_of_its_own(page, demo_file):
     page.text_input(key="design.size").set_value("250 mL").run()
     _save(page)
     content_hash, version, source = _recipe_row_of(demo_file, f"{_dt.date.today().year}-003")
     assert content_hash != load_recipe(DEMO_RECIPE).content_hash
-    assert version.endswith("edited on the page") and source is None
+    assert version.endswith("edited on the page")
+    written = load_recipe(source)  # the command line can read it
+    assert Path(source).parent == demo_file.parent / "recipes"
+    assert written.content_hash == content_hash and written.batch_volume_ml == 250.0
+
+
+def test_the_recipe_downloads_as_toml(page, downloads):
+    import tomllib
+
+    page.text_input(key="design.size").set_value("250 mL").run()
+    _name, data = downloads.content(page, "Download the recipe (TOML)")
+    recipe = tomllib.loads(data.decode("utf-8"))
+    assert recipe["batch_volume_ml"] == 250.0 and recipe["matrix"] == "water"
+    assert recipe["stocks"] == ["lipid20", "ink_black", "dye_nir"]
