@@ -406,32 +406,42 @@ def _actual(args) -> CommandResult:
         raise InputError(f"amounts file {args.amounts!r} not found")
     rows = parse_amounts_csv(path.read_text(encoding="utf-8-sig"), source=path.name)
     mixed_on = _date(args.mixed_on, option="--mixed-on")
+    from phantomlab.store import StoreConflictError
+
     store = _open(args)
     try:
-        with store.transaction() as session:
+        # Read and predict without holding the write lock; then write, checking that no
+        # other command changed the batch meanwhile.
+        with store.reading() as session:
             batch = get_batch(session, args.batch_id)
             plan_row = plan_of(session, batch)
-            recipe, notes = _recipe_for(recipe_of(session, batch), args.recipe)
+            recipe_row = recipe_of(session, batch)
             lots = batch_lots(session, batch)
-            for key, lot in lots.items():
-                if key in recipe.shelf.keys() and content_sha256(recipe.stock(key).definition) != lot.definition_sha256:
-                    notes.append(f"stock {key}: the stock file changed since planning; predicting with it as it is now")
-            amounts, fractions = _fractions(rows, recipe, plan_row.plan)
-            potencies = {
-                key: (v["potency"], v["potency_sd"]) for key, v in plan_row.potencies_used.items()
-                if key in recipe.stock_keys
-            }
-            prediction = predict(recipe, volume_fractions=fractions, potencies=potencies).to_json()
-            prediction = to_jsonable(prediction)
-            target = plan_row.plan.get("target") or to_jsonable(recipe.target.to_json())
-            alarms = tolerance_alarms(
-                target=target, predicted=prediction, planned=plan_row.plan.get("predicted"),
-                mua_tolerance=float(target.get("mua_tolerance_percent", 100 * recipe.target.mua_tolerance)) / 100,
-                musp_tolerance=float(target.get("musp_tolerance_percent", 100 * recipe.target.musp_tolerance)) / 100,
-            )
-            cure = {k: v for k, v in {"schedule": args.cure,
-                                      "mixing_temperature_c": args.mixing_temperature_c}.items() if v is not None}
-            updated = record_actual(session, batch, amounts=amounts, prediction=prediction, alarms=alarms,
+        recipe, notes = _recipe_for(recipe_row, args.recipe)
+        for key, lot in lots.items():
+            if key in recipe.shelf.keys() and content_sha256(recipe.stock(key).definition) != lot.definition_sha256:
+                notes.append(f"stock {key}: the stock file changed since planning; predicting with it as it is now")
+        amounts, fractions = _fractions(rows, recipe, plan_row.plan)
+        potencies = {
+            key: (v["potency"], v["potency_sd"]) for key, v in plan_row.potencies_used.items()
+            if key in recipe.stock_keys
+        }
+        prediction = to_jsonable(predict(recipe, volume_fractions=fractions, potencies=potencies).to_json())
+        target = plan_row.plan.get("target") or to_jsonable(recipe.target.to_json())
+        alarms = tolerance_alarms(
+            target=target, predicted=prediction, planned=plan_row.plan.get("predicted"),
+            mua_tolerance=float(target.get("mua_tolerance_percent", 100 * recipe.target.mua_tolerance)) / 100,
+            musp_tolerance=float(target.get("musp_tolerance_percent", 100 * recipe.target.musp_tolerance)) / 100,
+        )
+        cure = {k: v for k, v in {"schedule": args.cure,
+                                  "mixing_temperature_c": args.mixing_temperature_c}.items() if v is not None}
+        with store.transaction() as session:
+            head = get_batch(session, args.batch_id)
+            if head.id != batch.id:
+                raise StoreConflictError(
+                    f"batch {head.code} changed while its amounts were being predicted; try again"
+                )
+            updated = record_actual(session, head, amounts=amounts, prediction=prediction, alarms=alarms,
                                     recorded_by=args.operator, mixed_on=mixed_on, cure_details=cure,
                                     notes=args.notes)
     finally:

@@ -147,7 +147,7 @@ class Store:
 
     @contextlib.contextmanager
     def reading(self) -> Iterator[Session]:
-        """A read-only transaction (rolled back at the end)."""
+        """A read-only transaction, rolled back at the end; the rows read stay usable."""
         with self._session(write=False) as session:
             yield session
 
@@ -163,6 +163,8 @@ class Store:
                     session.execute(text(f"SELECT pg_advisory_xact_lock({_PG_WRITE_LOCK})"))
                 yield session
                 if not write:
+                    # detach what was read (still loaded, usable after the block), then undo
+                    session.expunge_all()
                     session.rollback()
         except OperationalError as exc:
             if _is_busy(exc):
