@@ -38,12 +38,6 @@ from phantomlab.jsonable import to_jsonable
 
 __all__ = ["register", "parse_amounts_csv", "tolerance_alarms"]
 
-NOT_A_STANDARD = (
-    "A phantom made with phantomlab is not a certified reference standard; follow the "
-    "safety data sheets and your local rules."
-)
-
-
 # ---- parser ----------------------------------------------------------------------------------
 
 

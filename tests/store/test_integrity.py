@@ -17,7 +17,7 @@ import pytest
 from sqlalchemy import text
 
 from phantomlab.errors import InputError
-from phantomlab.store import StoreBusyError, add_measurement, get_batch, list_batches, open_store
+from phantomlab.store import add_measurement, get_batch, list_batches, open_store
 from phantomlab.store.schema import Measurement
 
 WORKER = textwrap.dedent(

@@ -7,7 +7,7 @@ import datetime as _dt
 import pytest
 from alembic.autogenerate import compare_metadata
 from alembic.runtime.migration import MigrationContext
-from sqlalchemy import create_engine, inspect, text
+from sqlalchemy import inspect, text
 
 from phantomlab.errors import InputError
 from phantomlab.store import get_batch, latest_potencies, measurements_of, open_store, record_calibration
