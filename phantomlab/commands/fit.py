@@ -13,6 +13,8 @@ other are replicates of one phantom, combined with their spread.
 
 from __future__ import annotations
 
+import numpy as np
+
 from phantomlab.cli import CommandResult, add_json_option
 
 __all__ = ["register"]
@@ -51,10 +53,15 @@ def _table(result) -> str:
     header = (f"{'wavelength_nm':>13}  {'mua [1/mm]':>11}  {'sd':>9}  {'musp [1/mm]':>11}  {'sd':>9}"
               f"  {'chi2_red':>8}")
     lines = [f"fit of {result.name} ({result.kind}, model {result.model})", header, "-" * len(header)]
+    def number(value, width, spec):
+        return f"{value:{width}{spec}}" if np.isfinite(value) else f"{'-':>{width}}"
+
     for w, a, sa, s, ss, c in zip(result.wavelength_nm, result.mua_per_mm, result.mua_sd_per_mm,
                                   result.musp_per_mm, result.musp_sd_per_mm, result.chi2_red_per_wavelength):
-        lines.append(f"{w:13.1f}  {a:11.5g}  {sa:9.3g}  {s:11.5g}  {ss:9.3g}  {c:8.3g}")
-    lines.append(f"reduced chi2 over the file: {result.chi2_red:.3g}")
+        lines.append(f"{w:13.1f}  {number(a, 11, '.5g')}  {number(sa, 9, '.3g')}  {number(s, 11, '.5g')}  "
+                     f"{number(ss, 9, '.3g')}  {number(c, 8, '.3g')}")
+    lines.append("reduced chi2 over the file: " + (f"{result.chi2_red:.3g}" if np.isfinite(result.chi2_red)
+                                                    else "- (no degrees of freedom, or no sd column)"))
     for name, value in result.parameters.items():
         lines.append(f"{name}: {value}")
     return "\n".join(lines)
