@@ -42,6 +42,8 @@ NEW_RECIPE = "(a new recipe)"
 SHAPES = ("Points", "Power law for μs′", "Spectrum file")
 TABLE_UNITS = {"1/mm": 1.0, "1/cm": 0.1}
 POINT_COLUMNS = ("wavelength [nm]", "μa", "μs′")
+#: Target fields the page has no field for; kept from the starting recipe as they are.
+EXTRA_TARGET_KEYS = ("g_wavelength_nm", "g", "g_tolerance", "mua_weight", "musp_weight", "g_weight")
 #: Limits the page has fields for; any other limit of the starting recipe is kept as it is.
 SHOWN_LIMITS = ("min_dispense_ul", "pipette_rel_error", "balance_resolution_mg",
                 "max_solids_volume_fraction", "max_dilution_steps", "dead_volume_ml")
@@ -89,6 +91,7 @@ def _defaults_from(definition: dict, shelf) -> dict:
     values.setdefault("design.pl_b", 1.2)
     values.setdefault("design.pl_ref", "500 nm")
     values.setdefault("design.pl_mua", "0.01")
+    values["design.extra_target"] = {k: target[k] for k in EXTRA_TARGET_KEYS if k in target}
     values["design.mua_tol"] = float(target.get("mua_tolerance_percent", 5.0))
     values["design.musp_tol"] = float(target.get("musp_tolerance_percent", 5.0))
     limits = definition.get("limits", {}) or {}
@@ -330,6 +333,14 @@ def _definition(workspace: Workspace, shelf) -> tuple[dict | None, Path]:
         target, folder = _spectrum_target()
         if folder is not None:
             base_dir = folder
+    extra_target = dict(st.session_state.get("design.extra_target", {}))
+    if target is not None and shape != SHAPES[2] and extra_target:
+        target.update(extra_target)
+        if "g" in extra_target:
+            pairs = ", ".join(f"{g:g} at {w:g} nm" for w, g in zip(extra_target.get("g_wavelength_nm", []),
+                                                                    extra_target["g"]))
+            st.caption(f"Anisotropy target from the recipe file: g = {pairs} (tolerance ±"
+                       f"{extra_target.get('g_tolerance', 0.01):g}); the solver blends sphere stocks to meet it.")
     limits = _limits()
     if target is None or not ok:
         return None, base_dir
@@ -452,6 +463,21 @@ def _spectrum_plots(plan) -> None:
         })
         with column:
             show_figure(figure, table=table, file_stem=f"predicted-{quantity}", key=f"design.{quantity}")
+
+
+def _g_plot(plan) -> None:
+    """g of the mix (scattering model) against the g target, where the recipe has one."""
+    target = plan.target
+    dense = plan.curve if plan.curve is not None else plan.predicted
+    has = np.isfinite(target.g)
+    figure = line_figure(
+        [Series("g of the mix (scattering model, not a measurement)", dense.wavelength_nm, dense.g),
+         target_series("target g", target.wavelength_nm[has], target.g[has])],
+        x_label="wavelength [nm]", y_label="g [dimensionless]", title="Anisotropy g: predicted against target",
+    )
+    table = pd.DataFrame({"wavelength_nm": plan.predicted.wavelength_nm, "target_g": target.g,
+                          "predicted_g": plan.predicted.g})
+    show_figure(figure, table=table, file_stem="predicted-g", key="design.g")
 
 
 def _residual_plot(plan) -> None:
@@ -615,6 +641,8 @@ def show(workspace: Workspace) -> None:
         summary.append(f"{label} {'within' if met.get(key) else 'outside'} tolerance")
     st.markdown(" · ".join(summary) + f" · batch {plan.batch_volume_ml:.4g} mL, {plan.batch_mass_g:.4g} g")
     _spectrum_plots(plan)
+    if plan.target.has_g:
+        _g_plot(plan)
     _residual_plot(plan)
 
     st.subheader("Amounts")

@@ -217,3 +217,18 @@ def test_the_recipe_downloads_as_toml(page, downloads):
     recipe = tomllib.loads(data.decode("utf-8"))
     assert recipe["batch_volume_ml"] == 250.0 and recipe["matrix"] == "water"
     assert recipe["stocks"] == ["lipid20", "ink_black", "dye_nir"]
+
+
+@pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")  # the direct solve below
+@pytest.mark.parametrize("recipe_file", sorted(p.name for p in (REPO_ROOT / "recipes").glob("demo-*.toml")
+                                               if p.name != "demo-stocks.toml"))
+def test_every_demo_recipe_opens_and_is_solved_as_its_file(page, recipe_file):
+    page.selectbox(key="design.start").set_value(recipe_file).run()
+    assert not page.exception
+    assert "Predicted against target" in [s.value for s in page.subheader]
+    expected = solve(load_recipe(REPO_ROOT / "recipes" / recipe_file))
+    shown = _doses(page)
+    for dose in expected.doses:
+        assert shown.loc[dose.stock, "stock volume [mL]"] == pytest.approx(dose.volume_ml, rel=1e-9)
+    titles = [json.loads(c.proto.spec)["layout"]["title"]["text"] for c in page.get("plotly_chart")]
+    assert ("Anisotropy g: predicted against target" in titles) == expected.target.has_g
