@@ -8,7 +8,7 @@
     phantomlab batch show BATCH_ID
     phantomlab batch record BATCH_ID --html FILE.html
     phantomlab batch retract BATCH_ID --reason TEXT
-    phantomlab batch correct BATCH_ID --reason TEXT [--set-operator NAME] [--set-notes TEXT] ...
+    phantomlab batch amend BATCH_ID --reason TEXT [--set-operator NAME] [--set-notes TEXT] ...
     phantomlab batch export FILE.zip
 
 Every sub-command takes ``--db URL`` (default ``$PHANTOMLAB_DB``, else ``phantomlab.sqlite``
@@ -110,7 +110,7 @@ def register(subparsers) -> None:
     retract.add_argument("--reason", required=True, metavar="TEXT")
     retract.add_argument("--operator", metavar="NAME")
 
-    fix = actions.add_parser("correct", help="correct a batch's operator, notes or mixing date (a new version)")
+    fix = actions.add_parser("amend", help="amend a batch's operator, notes or mixing date (a new version)")
     fix.add_argument("batch_id", metavar="BATCH_ID")
     fix.add_argument("--reason", required=True, metavar="TEXT", help="why (kept in the history)")
     fix.add_argument("--set-operator", metavar="NAME")
@@ -134,7 +134,7 @@ def register(subparsers) -> None:
 
 def _no_action(args) -> CommandResult:
     raise InputError(
-        "batch: give an action: add, actual, status, measure, list, show, record, retract, correct, export"
+        "batch: give an action: add, actual, status, measure, list, show, record, retract, amend, export"
     )
 
 
@@ -547,7 +547,7 @@ def _correct(args) -> CommandResult:
     if args.set_mixed_on is not None:
         changes["mixed_on"] = _date(args.set_mixed_on, option="--set-mixed-on")
     if not changes:
-        raise InputError("batch correct: nothing to correct; give --set-operator, --set-notes or --set-mixed-on")
+        raise InputError("batch amend: nothing to amend; give --set-operator, --set-notes or --set-mixed-on")
     store = _open(args)
     try:
         with store.transaction() as session:

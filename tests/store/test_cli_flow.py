@@ -293,15 +293,15 @@ def test_batch_add_uses_calibrated_potency_of_the_lot_on_the_shelf_only(db_url, 
     assert "Calibration state" in text and "method demo" in text
 
 
-def test_correct_and_retract_make_versions_that_show_in_the_history(db_url, capsys):
+def test_amend_and_retract_make_versions_that_show_in_the_history(db_url, capsys):
     _, added, _ = run(capsys, "batch", "add", RECIPE, "--db", db_url, "--operator", "A. Demo", "--json")
     code = added["batch_id"]
-    status, fixed, err = run(capsys, "batch", "correct", code, "--set-operator", "B. Demo",
+    status, fixed, err = run(capsys, "batch", "amend", code, "--set-operator", "B. Demo",
                              "--reason", "wrong name typed", "--operator", "reviewer", "--db", db_url, "--json")
     assert status == 0, err
     assert fixed["before"] == {"operator": "A. Demo"} and fixed["version"] == 2
-    status, _, err = run(capsys, "batch", "correct", code, "--reason", "nothing", "--db", db_url)
-    assert status == 2 and "nothing to correct" in err
+    status, _, err = run(capsys, "batch", "amend", code, "--reason", "nothing", "--db", db_url)
+    assert status == 2 and "nothing to amend" in err
     status, gone, err = run(capsys, "batch", "retract", code, "--reason", "spilled", "--db", db_url, "--json")
     assert status == 0 and gone["retracted"] is True, err
     _, listed, _ = run(capsys, "batch", "list", "--db", db_url, "--json")
