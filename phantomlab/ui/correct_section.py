@@ -40,17 +40,26 @@ def _update_table(update) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def _history_plot(history: list[dict]) -> None:
+def _history_plot(history: list[dict], shelf) -> None:
+    """Each stock lot's potency from its stock-file prior (0) through every calibration (1, 2, …)."""
     if not history:
         st.caption("No calibration recorded yet.")
         return
     frame = pd.DataFrame(history)
-    series = [Series(f"{stock} (lot {group['lot'].iloc[0] or '-'})", group["calibration"].to_numpy(float),
-                     group["potency"].to_numpy(float), sd=group["potency_sd"].to_numpy(float),
-                     mode="lines+markers")
-              for stock, group in frame.groupby("stock")]
-    figure = line_figure(series, x_label="calibration number [count]", y_label="potency factor [dimensionless]",
+    series = []
+    for (stock, lot), group in frame.groupby(["stock", "lot"]):
+        x = group["calibration"].to_numpy(float)
+        y = group["potency"].to_numpy(float)
+        sd = group["potency_sd"].to_numpy(float)
+        if shelf is not None and stock in shelf and (shelf[stock].lot or "") == lot:
+            prior = shelf[stock]
+            x, y, sd = np.r_[0.0, x], np.r_[prior.potency, y], np.r_[prior.potency_sd, sd]
+        series.append(Series(f"{stock} (lot {lot or '-'})", x, y, sd=sd, mode="lines+markers"))
+    figure = line_figure(series, x_label="calibration [0 = stock file, then each recalibration]",
+                         y_label="potency factor [dimensionless]",
                          title="Potency of each stock lot across calibrations")
+    count = int(frame["calibration"].max())
+    figure.update_xaxes(tickvals=list(range(count + 1)), ticktext=["stock file"] + [f"#{n}" for n in range(1, count + 1)])
     show_figure(figure, table=frame, file_stem="potency-history", key="calibrate.history")
     st.dataframe(frame, hide_index=True, width="stretch")
 
@@ -70,13 +79,14 @@ def recalibrate_section(workspace: Workspace, store) -> None:
     last = st.session_state.get("calibrate.last")
     if last:
         update, state_id, skipped = last
-        st.success(f"Calibration recorded (state {state_id}) from {len(update.batches)} batch(es); "
+        st.success(f"Calibration recorded (state {state_id}) from {len(set(update.batches))} batch(es); "
                    f"reduced χ² {update.chi2_red:.3g}. Plans now use these potencies.")
         show_warnings(skipped)
         st.dataframe(_update_table(update), hide_index=True, width="stretch")
     st.markdown("**History**")
     found = call_layer("Reading the calibrations", calibration_history, store)
-    _history_plot(found.value or [])
+    shelf = call_layer("Reading the shelf", services.load_page_shelf, workspace, store).value
+    _history_plot(found.value or [], shelf[0] if shelf else None)
 
 
 # ---- correction -------------------------------------------------------------------------------------
@@ -163,8 +173,8 @@ def _top_up_section(workspace: Workspace, store, batch: dict, recipe, potencies)
     rows = [{"add": a["stock"], "volume [mL]": a["volume_ml"], "mass [g]": a.get("mass_g"),
              "note": "below the smallest dispensable volume" if a.get("below_min_dispense") else ""}
             for a in plan.additions]
-    rows.append({"add": f"{plan.diluent} (diluent)", "volume [mL]": plan.diluent_volume_ml, "mass [g]": None,
-                 "note": ""})
+    rows.append({"add": f"{plan.diluent} (diluent)", "volume [mL]": plan.diluent_volume_ml,
+                 "mass [g]": plan.diluent_volume_ml * recipe.matrix.density_g_per_ml, "note": ""})
     st.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch")
     errors = plan.relative_error()
     st.dataframe(pd.DataFrame({

@@ -637,7 +637,7 @@ def show(workspace: Workspace) -> None:
     show_warnings(others)
     met = plan.residuals
     summary = []
-    for label, key in (("μa", "mua_met"), ("μs′", "musp_met")):
+    for label, key in (("μa", "mua_met"), ("μs′", "musp_met")) + ((("g", "g_met"),) if plan.target.has_g else ()):
         summary.append(f"{label} {'within' if met.get(key) else 'outside'} tolerance")
     st.markdown(" · ".join(summary) + f" · batch {plan.batch_volume_ml:.4g} mL, {plan.batch_mass_g:.4g} g")
     _spectrum_plots(plan)

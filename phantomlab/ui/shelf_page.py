@@ -233,9 +233,10 @@ def _cuvette_section(workspace: Workspace, store, shelf) -> None:
         )
         from phantomlab.materials.spectra import NONLINEARITY_THRESHOLD
 
-        for sign in (1, -1):
-            figure.add_hline(y=sign * 100 * NONLINEARITY_THRESHOLD, line_dash="dot",
-                             line_color="#b5462f")
+        figure.add_hline(y=100 * NONLINEARITY_THRESHOLD, line_dash="dot", line_color="#b5462f",
+                         annotation_text=f"flagged beyond ±{100 * NONLINEARITY_THRESHOLD:g} % (when significant)",
+                         annotation_position="top left")
+        figure.add_hline(y=-100 * NONLINEARITY_THRESHOLD, line_dash="dot", line_color="#b5462f")
         show_figure(figure, table=table, file_stem="cuvette-linearity", key="shelf.cuvette_linearity")
     if fit.any_nonlinear:
         st.warning(f"Beer–Lambert bends at {int(np.sum(fit.nonlinear))} of {fit.wavelength_nm.size} "
