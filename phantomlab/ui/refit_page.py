@@ -66,8 +66,11 @@ def _read(text: str, kind: str, sidecar: dict, options: dict):
 
 
 def _baseline_folder(workspace: Workspace) -> Path:
-    base = Path(workspace.demo_file).parent if workspace.is_demo else Path.cwd()
-    folder = base / "baselines"
+    """Demo: ``demo-data/baselines``; a lab: ``phantomlab-baselines`` in the working folder."""
+    if workspace.is_demo:
+        folder = Path(workspace.demo_file).parent / "baselines"
+    else:
+        folder = Path.cwd() / "phantomlab-baselines"
     folder.mkdir(parents=True, exist_ok=True)
     return folder
 

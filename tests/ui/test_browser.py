@@ -184,6 +184,24 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
                 _settle(page)
                 _no_exception(page, f"on the page {name!r}")
                 _shoot(page, shots / f"0{index}-{name.replace(' ', '-')}.png")
+
+            # after the measurements, to a corrected next recipe, without the command line
+            page.get_by_role("tab", name="Recalibrate the stocks").click()
+            page.get_by_role("button", name="Recalibrate from the batch log").click()
+            page.get_by_text("Calibration recorded").first.wait_for()
+            _settle(page)
+            _no_exception(page, "after recalibrating")
+            _shoot(page, shots / "07-recalibrated.png")
+            page.get_by_role("tab", name="Correct the next batch").click()
+            page.get_by_role("button", name="Save the corrected plan as a new batch").wait_for()
+            _settle(page)
+            _no_exception(page, "on the corrected plan")
+            _shoot(page, shots / "08-corrected-plan.png")
+            with page.expect_download() as download_info:
+                page.get_by_role("button", name="Download the mixing sheet (HTML)").first.click()
+            corrected = tmp_path / "corrected-sheet.html"
+            download_info.value.save_as(corrected)
+            assert "calibrated" in corrected.read_text(encoding="utf-8")
         finally:
             browser.close()
     print(f"screenshots in {shots}")
