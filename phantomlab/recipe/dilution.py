@@ -9,12 +9,17 @@ ends in the batch is ``v · Π a_k / (a_k + b_k) = D``.
 
 Every pipetted or weighed amount (``a_k``, ``b_k``, ``v``) is at least the smallest
 dispensable amount; each dilution made holds what is drawn from it plus the dead volume lost
-in vessels and tubing; no step dilutes more than the lab's largest factor per step, and no
-dilution is larger than the largest vessel.  Step factors are taken from 1-2-5 steps (1:2,
-1:5, 1:10, …) plus the largest factor allowed, so a technician pipettes round amounts; the
-final amount into the batch carries the exact figure.  The fewest steps are used: ``n`` is
-the smallest count for which such a plan exists (with ample vessels this is
-``ceil(log(min / D) / log(F_max))``).
+in vessels and tubing, and at least the smallest working dilution the lab makes (a dilution
+of a few hundred µL is hard to mix and loses a noticeable share to the vessel walls); no step
+dilutes more than the lab's largest factor per step, and no dilution is larger than the
+largest vessel.  Step factors are taken from 1-2-5 steps (1 in 2, 1 in 5, 1 in 10, …) plus
+the largest factor allowed, so a technician pipettes round amounts; the final amount into the
+batch carries the exact figure.  The fewest steps are used: ``n`` is the smallest count for
+which such a plan exists (with ample vessels this is ``ceil(log(min / D) / log(F_max))``).
+Among plans with that many steps the one whose smallest amount is largest (up to
+:data:`COMFORTABLE_MULTIPLE` times the smallest dispensable amount) wins, then the gentlest
+overall dilution, then the least made: amounts near the lower end of a pipette's or a
+balance's range carry its largest relative error.
 """
 
 from __future__ import annotations
@@ -27,12 +32,15 @@ import numpy as np
 
 from phantomlab.errors import InputError
 
-__all__ = ["DilutionInfeasible", "DilutionPlan", "DilutionStep", "plan_dilution"]
+__all__ = ["COMFORTABLE_MULTIPLE", "DilutionInfeasible", "DilutionPlan", "DilutionStep", "plan_dilution"]
 
 #: Preferred amounts for prepared dilutions (mantissas of a decade).
 _NICE = (1.0, 1.5, 2.0, 2.5, 3.0, 4.0, 5.0, 6.0, 8.0, 10.0)
 _FACTORS = (2.0, 5.0, 10.0, 20.0, 50.0, 100.0, 200.0, 500.0, 1000.0)
 _SEARCH_LIMIT_STEPS = 3  # extra counts tried past the limit, to say how many would do
+#: An amount this many times the smallest dispensable one is comfortably inside the range of
+#: the pipette or balance; plans are ranked by how close their smallest amount comes to it.
+COMFORTABLE_MULTIPLE = 5.0  # common practice, no source
 
 
 @dataclass(frozen=True)
@@ -106,14 +114,15 @@ def _round_up_nice(value: float) -> float:
     return 10.0 * decade
 
 
-def _build(stock, dose, factors, *, min_amount, dead_amount, max_vessel_amount, diluent, unit):
+def _build(stock, dose, factors, *, min_amount, dead_amount, max_vessel_amount, diluent, unit,
+           min_total_amount=0.0):
     dispense = dose * float(np.prod(factors))
     if dispense < min_amount * (1 - 1e-12):
         return None
     draws = dispense
     prepared = []
     for factor in reversed(factors):
-        need = max(draws + dead_amount, min_amount * factor)
+        need = max(draws + dead_amount, min_amount * factor, min_total_amount)
         amount = _round_up_nice(need)
         if amount > max_vessel_amount:
             amount = need
@@ -149,6 +158,7 @@ def plan_dilution(
     max_step_factor: float = 100.0,
     max_vessel_amount: float = 50.0,
     diluent: str = "diluent",
+    min_total_amount: float = 0.0,
 ) -> DilutionPlan:
     """Plan the fewest serial pre-dilutions that let a dose be dispensed.
 
@@ -172,6 +182,9 @@ def plan_dilution(
         Largest dilution that can be made in one vessel.
     diluent : str
         What dilutes (named on the sheet).
+    min_total_amount : float [unit]
+        Smallest working dilution worth making (each dilution holds at least this much);
+        at most ``max_vessel_amount``.
 
     Returns
     -------
@@ -181,7 +194,8 @@ def plan_dilution(
     Raises
     ------
     InputError
-        For non-positive or non-finite amounts.
+        For non-positive or non-finite amounts, or a smallest working dilution larger than
+        the largest vessel.
     DilutionInfeasible
         When no plan of at most ``max_steps`` steps fits the limits.
     """
@@ -194,12 +208,15 @@ def plan_dilution(
         raise InputError(f"dilution: max_step_factor must be >= 2, got {max_step_factor!r}")
     if dead_amount < 0 or not max_vessel_amount > 0 or int(max_steps) != max_steps or max_steps < 0:
         raise InputError("dilution: dead amount >= 0, vessel > 0 and whole max_steps >= 0 are needed")
+    if not (math.isfinite(min_total_amount) and 0 <= min_total_amount <= max_vessel_amount * (1 + 1e-12)):
+        raise InputError(f"dilution: the smallest working dilution ({min_total_amount!r} {unit}) must be "
+                         f">= 0 and fit the largest vessel ({max_vessel_amount!r} {unit})")
     if dose_amount >= min_amount * (1 - 1e-12):
         return DilutionPlan(stock=stock, unit=unit, dose_amount=float(dose_amount), steps=(),
                             dispense_amount=float(dose_amount), diluent=diluent)
     factors = sorted({f for f in _FACTORS if f <= max_step_factor} | {float(max_step_factor)})
-    kwargs = dict(min_amount=min_amount, dead_amount=dead_amount,
-                  max_vessel_amount=max_vessel_amount, diluent=diluent, unit=unit)
+    kwargs = dict(min_amount=min_amount, dead_amount=dead_amount, max_vessel_amount=max_vessel_amount,
+                  diluent=diluent, unit=unit, min_total_amount=float(min_total_amount))
     fewest = max(1, math.ceil(math.log(min_amount / dose_amount) / math.log(factors[-1]) - 1e-12))
     for count in range(fewest, max(int(max_steps), fewest) + _SEARCH_LIMIT_STEPS):
         best = None
@@ -208,7 +225,7 @@ def plan_dilution(
                 continue
             for ordered in {tuple(sorted(combo, reverse=True)), tuple(sorted(combo))}:
                 plan = _build(stock, float(dose_amount), list(ordered), **kwargs)
-                if plan is not None and (best is None or _rank(plan) < _rank(best)):
+                if plan is not None and (best is None or _rank(plan, min_amount) < _rank(best, min_amount)):
                     best = plan
         if best is not None:
             if count > max_steps:
@@ -221,9 +238,13 @@ def plan_dilution(
         f"{_show(max_vessel_amount, unit)} vessel and 1:{max_step_factor:g} per step", None)
 
 
-def _rank(plan: DilutionPlan) -> tuple:
-    # gentlest overall dilution first (least diluent carried into the batch), then least made.
-    return (round(plan.dispense_amount / plan.dose_amount, 9), sum(s.total_amount for s in plan.steps))
+def _rank(plan: DilutionPlan, min_amount: float) -> tuple:
+    # the largest smallest amount first (up to a comfortable multiple of the minimum), then the
+    # gentlest overall dilution (least diluent carried into the batch), then the least made.
+    amounts = [a for s in plan.steps for a in (s.source_amount, s.diluent_amount)] + [plan.dispense_amount]
+    weakest = min(min(amounts) / min_amount, COMFORTABLE_MULTIPLE)
+    return (-round(weakest, 6), round(plan.dispense_amount / plan.dose_amount, 9),
+            sum(s.total_amount for s in plan.steps))
 
 
 def _show(amount: float, unit: str) -> str:

@@ -11,6 +11,8 @@
 ``dead_volume_ml``                lost in each dilution's vessel and tubing [mL] (0.1)
 ``max_dilution_factor_per_step`` * largest (a + b)/a of one pre-dilution step (100)
 ``max_dilution_vessel_ml`` *      largest pre-dilution made in one vessel [mL] (50)
+``min_dilution_ml`` *             smallest pipetted working dilution the lab makes [mL] (1)
+``min_dilution_g`` *              smallest weighed working dilution (masterbatch) [g] (1)
 ``matrix_rel_error`` *            relative error of the matrix amount, one SD [fraction] (0.005)
 
 Defaults are # common practice, no source: a lab states its own.
@@ -43,6 +45,11 @@ class Limits:
     max_dilution_factor_per_step : float
     max_dilution_vessel_ml : float [mL]
     matrix_rel_error : float [fraction, one SD]
+    min_dilution_ml : float [mL]
+        Smallest working dilution made by pipette: below about 1 mL a dilution is hard to mix
+        and loses a noticeable share to the vessel.
+    min_dilution_g : float [g]
+        Smallest working dilution made by weighing (a masterbatch in silicone or resin base).
     """
 
     min_dispense_ml: float = 0.010
@@ -55,6 +62,8 @@ class Limits:
     max_dilution_factor_per_step: float = 100.0
     max_dilution_vessel_ml: float = 50.0
     matrix_rel_error: float = 0.005
+    min_dilution_ml: float = 1.0  # common practice, no source
+    min_dilution_g: float = 1.0  # common practice, no source
 
     def to_json(self) -> dict[str, Any]:
         return {
@@ -68,6 +77,8 @@ class Limits:
             "max_dilution_factor_per_step": self.max_dilution_factor_per_step,
             "max_dilution_vessel_ml": self.max_dilution_vessel_ml,
             "matrix_rel_error": self.matrix_rel_error,
+            "min_dilution_ml": self.min_dilution_ml,
+            "min_dilution_g": self.min_dilution_g,
         }
 
 
@@ -84,8 +95,11 @@ _FIELDS = {
     "max_dilution_factor_per_step": ("max_dilution_factor_per_step", 1.0, 2.0, 1e6, "a number >= 2"),
     "max_dilution_vessel_ml": ("max_dilution_vessel_ml", 1.0, 0.0, math.inf, "a volume > 0 in mL"),
     "matrix_rel_error": ("matrix_rel_error", 1.0, 0.0, 0.5, "a fraction in [0, 0.5]"),
+    "min_dilution_ml": ("min_dilution_ml", 1.0, 0.0, math.inf, "a volume >= 0 in mL"),
+    "min_dilution_g": ("min_dilution_g", 1.0, 0.0, math.inf, "a mass >= 0 in g"),
 }
-_ZERO_ALLOWED = {"pipette_rel_error", "dead_volume_ml", "max_dilution_steps", "matrix_rel_error"}
+_ZERO_ALLOWED = {"pipette_rel_error", "dead_volume_ml", "max_dilution_steps", "matrix_rel_error",
+                 "min_dilution_ml", "min_dilution_g"}
 
 
 def parse_limits(table: Any) -> Limits:
@@ -118,4 +132,9 @@ def parse_limits(table: Any) -> Limits:
             values[attribute] = float(value) * factor
     if "min_weigh_g" not in values and "balance_resolution_g" in values:
         values["min_weigh_g"] = 20.0 * values["balance_resolution_g"]  # common practice, no source
-    return Limits(**values)
+    limits = Limits(**values)
+    if limits.min_dilution_ml > limits.max_dilution_vessel_ml:
+        raise InputError(f"limits: min_dilution_ml = {limits.min_dilution_ml:g} is larger than "
+                         f"max_dilution_vessel_ml = {limits.max_dilution_vessel_ml:g}; give a smallest "
+                         "working dilution that fits the largest vessel")
+    return limits

@@ -328,6 +328,11 @@ def _diluent_name(recipe: Recipe) -> str:
     return f"{recipe.matrix_key} (matrix)"
 
 
+def _is_dry_powder(stock) -> bool:
+    """A powder stock, or any stock that carries a powder hazard key: it is weighed, not pipetted."""
+    return stock.kind == "powder" or bool({"powder", "nano_powder"} & set(stock.hazards))
+
+
 def dispense_tolerance(amount: float, by: str, limits) -> float:
     """± tolerance of a dispensed amount: k = 2 pipette error, or at least the balance resolution."""
     if by == "pipette":
@@ -349,7 +354,7 @@ def _doses(recipe, table, fractions, potencies, potency_sds, sources, volume_ml,
             doses.append(Dose(key, stock.kind, stock.lot, stock.expiry, 0.0, 0.0, 0.0, "", None,
                               0.0, 0.0, 0.0, float(potencies[i]), float(potency_sds[i]), sources[i]))
             continue
-        by = "balance" if (recipe.by_mass or stock.kind == "powder") else "pipette"
+        by = "balance" if (recipe.by_mass or _is_dry_powder(stock)) else "pipette"
         amount, unit = (m, "g") if by == "balance" else (v, "mL")
         minimum = limits.min_weigh_g if by == "balance" else limits.min_dispense_ml
         scale = matrix_density if unit == "g" else 1.0
@@ -359,6 +364,8 @@ def _doses(recipe, table, fractions, potencies, potency_sds, sources, volume_ml,
                 max_steps=limits.max_dilution_steps, dead_amount=limits.dead_volume_ml * scale,
                 max_step_factor=limits.max_dilution_factor_per_step,
                 max_vessel_amount=limits.max_dilution_vessel_ml * scale, diluent=_diluent_name(recipe),
+                min_total_amount=min(limits.min_dilution_g if unit == "g" else limits.min_dilution_ml,
+                                     limits.max_dilution_vessel_ml * scale),
             )
         except DilutionInfeasible as exc:
             binding.append(BindingLimit("max_dilution_steps", float(exc.needed_steps or math.inf),

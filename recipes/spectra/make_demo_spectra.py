@@ -47,6 +47,11 @@ def main() -> None:
         wobble = 1.0 + 0.004 * np.sin(w / 37.0 + fraction * 1.0e4)
         rows += [(wl, fraction, a) for wl, a in zip(w, absorbance * wobble)]
     write("ink_black-cuvette.csv", "wavelength_nm,stock_volume_fraction,absorbance", rows)
+    # Carbon-black powder for silicone: collimated attenuation per volume fraction of the dry
+    # powder (its particle volume in the final mix), a smooth power law
+    # 1.2e4 (lambda/600 nm)^-1.0 [1/mm]; the stock file splits it with its albedo.
+    carbon = 1.2e4 * (w / 600.0) ** -1.0
+    write("carbon_black.csv", "wavelength_nm,mut_per_mm", zip(w, carbon))
 
 
 if __name__ == "__main__":

@@ -15,7 +15,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from phantomlab.errors import InputError
-from phantomlab.recipe.dilution import DilutionInfeasible, plan_dilution
+from phantomlab.recipe.dilution import COMFORTABLE_MULTIPLE, DilutionInfeasible, plan_dilution
 
 doses = st.floats(min_value=1e-7, max_value=1.0, allow_nan=False)
 minimums = st.floats(min_value=1e-3, max_value=0.1)
@@ -69,15 +69,65 @@ def test_small_vessels_still_respected(dose, min_amount, factor, dead, vessel):
 
 
 def test_worked_case_one_step_round_amounts():
-    # 2 uL of dye, 10 uL smallest pipetting, 0.1 mL dead volume: 1:10 gives 20 uL to dispense
+    # 2 uL of dye, 10 uL smallest pipetting, 0.1 mL dead volume, no smallest working dilution.
+    # Candidates (worked by hand): 1 in 5 -> 30 + 120 uL, dispense 10 uL (smallest amount 1x min);
+    # 1 in 10 -> 15 + 135 uL (10 uL drawn + 0.1 mL dead, rounded up to 0.15 mL), dispense 20 uL
+    # (smallest 1.5x); 1 in 20 and more need 10 uL of stock (1x).  The largest smallest amount wins.
     plan = plan_dilution(stock="dye", dose_amount=0.002, unit="mL", min_amount=0.010, max_steps=3,
                          dead_amount=0.1, max_step_factor=100, max_vessel_amount=50)
     (step,) = plan.steps
-    assert 1 / step.factor == pytest.approx(5.0)  # gentlest 1-2-5 factor that reaches 10 uL
-    assert plan.dispense_amount == pytest.approx(0.010)
-    assert step.total_amount == pytest.approx(0.15)  # 10 uL drawn + 0.1 mL dead, rounded up to 0.15
-    assert step.source_amount == pytest.approx(0.03) and step.diluent_amount == pytest.approx(0.12)
+    assert 1 / step.factor == pytest.approx(10.0)
+    assert plan.dispense_amount == pytest.approx(0.020)
+    assert step.total_amount == pytest.approx(0.15)
+    assert step.source_amount == pytest.approx(0.015) and step.diluent_amount == pytest.approx(0.135)
     assert plan.dispense_from == "dye-D1"
+
+
+def test_worked_case_with_a_working_dilution_of_1_ml():
+    # The same dose with a 1 mL smallest working dilution (common practice, no source): every
+    # candidate makes 1 mL.  1 in 10 -> 100 + 900 uL, dispense 20 uL (smallest 2x min);
+    # 1 in 20 -> 50 + 950 uL, dispense 40 uL (4x); 1 in 50 -> 20 + 980 uL (2x); 1 in 5 ->
+    # dispense 10 uL (1x).  1 in 20 has the largest smallest amount.
+    plan = plan_dilution(stock="dye", dose_amount=0.002, unit="mL", min_amount=0.010, max_steps=3,
+                         dead_amount=0.1, max_step_factor=100, max_vessel_amount=50, min_total_amount=1.0)
+    (step,) = plan.steps
+    assert 1 / step.factor == pytest.approx(20.0)
+    assert step.source_amount == pytest.approx(0.050) and step.diluent_amount == pytest.approx(0.950)
+    assert plan.dispense_amount == pytest.approx(0.040)
+    assert plan.delivered_amount == pytest.approx(0.002, rel=1e-12)
+
+
+def test_comfortable_amounts_are_preferred_to_the_gentlest_dilution():
+    # 17.8 uL of ink, 20 uL smallest pipetting, 1 mL working dilution: 1 in 2 would pipette
+    # 35.7 uL (under 5x min = 100 uL, COMFORTABLE_MULTIPLE); 1 in 10 gives 100 + 900 uL and
+    # 178 uL into the batch, every amount at least 5x min; gentler than 1 in 20 (50 uL of stock).
+    plan = plan_dilution(stock="ink", dose_amount=0.01783, unit="mL", min_amount=0.020, max_steps=3,
+                         dead_amount=0.1, max_step_factor=100, max_vessel_amount=50, min_total_amount=1.0)
+    (step,) = plan.steps
+    assert COMFORTABLE_MULTIPLE == 5.0
+    assert 1 / step.factor == pytest.approx(10.0)
+    assert step.source_amount == pytest.approx(0.1) and step.diluent_amount == pytest.approx(0.9)
+    assert plan.dispense_amount == pytest.approx(0.1783)
+
+
+def test_working_dilution_larger_than_the_vessel_is_refused():
+    with pytest.raises(InputError, match=r"smallest working dilution \(60.0 mL\) must be >= 0 and fit the largest vessel"):
+        plan_dilution(stock="x", dose_amount=0.001, unit="mL", min_amount=0.01, max_steps=2,
+                      max_vessel_amount=50.0, min_total_amount=60.0)
+
+
+@settings(max_examples=60, deadline=None)
+@given(dose=doses, min_amount=minimums, factor=factors, dead=deads,
+       working=st.floats(min_value=0.0, max_value=20.0))
+def test_working_dilution_is_respected(dose, min_amount, factor, dead, working):
+    try:
+        plan = plan_dilution(stock="x", dose_amount=dose, unit="mL", min_amount=min_amount, max_steps=4,
+                             dead_amount=dead, max_step_factor=factor, max_vessel_amount=50.0,
+                             min_total_amount=working)
+    except DilutionInfeasible:
+        return
+    _check(plan, dose=dose, min_amount=min_amount, max_steps=4, dead=dead, factor=factor, vessel=50.0)
+    assert all(s.total_amount >= working * (1 - 1e-9) for s in plan.steps)
 
 
 def test_no_dilution_when_dispensable():

@@ -44,6 +44,9 @@ def test_demo_silicone_is_by_mass_and_gel_has_g():
     silicone = load_recipe(RECIPES / "demo-silicone.toml")
     assert silicone.by_mass and silicone.batch_mass_g == 300 and silicone.batch_volume_ml is None
     assert silicone.preparation.kind == "silicone" and silicone.preparation["base_to_curing_agent"] == 10
+    # a silicone phantom takes a black absorber made for it, not a water-based ink
+    assert "ink_black" not in silicone.stock_keys and silicone.stock("carbon_black").kind == "absorber"
+    assert silicone.limits.min_dilution_g == 10
     gel = load_recipe(RECIPES / "demo-gel-g.toml")
     assert gel.target.has_g and gel.preparation["gel_percent_w_v"] == 10
 
@@ -83,6 +86,9 @@ def test_hash_changes_with_content(tmp_path):
     (GOOD_TARGET.replace("[0.01, 0.02]", "[nan, 0.02]"), r"mua_per_mm holds a value that is not a finite number"),
     (GOOD_TARGET.replace("[700, 800]", "[700, inf]"), r"wavelength_nm holds a value that is not a finite number"),
     (GOOD_TARGET + "\n[limits]\ndead_volume_ml = nan\n", r"dead_volume_ml = nan; give a volume"),
+    (GOOD_TARGET + "\n[limits]\nmin_dilution_ml = -1\n", r"min_dilution_ml = -1; give a volume >= 0 in mL"),
+    (GOOD_TARGET + "\n[limits]\nmin_dilution_ml = 20\nmax_dilution_vessel_ml = 10\n",
+     r"min_dilution_ml = 20 is larger than max_dilution_vessel_ml = 10"),
 ])
 def test_bad_recipes_refused_with_one_line(tmp_path, body, match):
     with pytest.raises(InputError, match=match) as info:
@@ -146,6 +152,8 @@ def test_g_target_needs_musp_and_valid_range():
 def test_limits_and_preparation_defaults():
     limits = parse_limits({"min_dispense_ul": 5, "balance_resolution_mg": 0.1})
     assert limits.min_dispense_ml == pytest.approx(0.005) and limits.min_weigh_g == pytest.approx(0.002)
+    assert limits.min_dilution_ml == 1.0 and limits.min_dilution_g == 1.0  # common practice, no source
+    assert parse_limits({"min_dilution_g": 10}).min_dilution_g == 10.0
     prep = parse_preparation({"kind": "gelatin", "gel_percent_w_v": 8})
     assert prep["dissolve_temperature_c"] == 50 and prep.temperature_c == 20
     with pytest.raises(InputError, match=r"gel_percent_w_v = 50"):
