@@ -95,3 +95,13 @@ def test_seeding_refuses_a_lab_database(tmp_path):
     with pytest.raises(RuntimeError, match="demo data go into the demo database only"):
         seed_demo_database(lab)
     assert not (tmp_path / "lab.sqlite").exists()
+
+
+@pytest.mark.parametrize("page_name", ["Design a phantom", "Stock shelf", "Batch log", "Fit and correct"])
+def test_every_page_opens_on_an_empty_lab_database(clean_env, tmp_path, page_name):
+    clean_env.setenv("PHANTOMLAB_DB", f"sqlite:///{tmp_path / 'lab.sqlite'}")
+    app = AppTest.from_file(APP, default_timeout=120).run()
+    app.sidebar.radio(key="page").set_value(page_name).run()
+    assert not app.exception, [e.message for e in app.exception]
+    assert page_name in [h.value for h in app.header]
+    assert not [e.value for e in app.error]

@@ -143,3 +143,25 @@ def test_top_up_of_a_liquid_batch_lists_what_to_add(refit):
     assert (additions["volume [mL]"] >= 0).all()
     errors = [f.value for f in refit.dataframe if "μa after [%]" in f.value.columns][0]
     assert errors["μa after [%]"].abs().max() <= errors["μa now vs target [%]"].abs().max()
+
+
+def test_an_uploaded_file_is_fitted_without_being_stored(refit, demo_file):
+    from sqlalchemy import func, select
+
+    from phantomlab.store import open_store
+    from phantomlab.store.schema import Measurement
+
+    refit.selectbox(key="refit.measurement").set_value("(upload a file, not stored)").run()
+    refit.selectbox(key="refit.upload_kind").set_value("optics").run()
+    optics = ("wavelength_nm,mua_per_mm,musp_per_mm,mua_sd_per_mm,musp_sd_per_mm\n"
+              "660,0.0101,1.02,0.0005,0.03\n750,0.0121,0.93,0.0005,0.03\n850,0.0122,0.84,0.0005,0.03\n")
+    refit.file_uploader(key="refit.upload").set_value(("other.csv", optics.encode(), "text/csv")).run()
+    assert not refit.exception
+    assert "Fitted μs′ against target" in _titles(refit)
+    assert not [b for b in refit.get("button") if b.proto.label == "Keep this fit in the batch log"]
+    store = open_store(f"sqlite:///{demo_file}")
+    try:
+        with store.reading() as session:
+            assert session.scalar(select(func.count()).select_from(Measurement)) == 3
+    finally:
+        store.close()
