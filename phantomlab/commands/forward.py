@@ -16,6 +16,11 @@ are lists over the entries; spatially resolved results are lists (entries) of li
 (distances or frequencies).  The diffusion kinds take ``--musp-per-mm`` or
 ``--mus-per-mm`` with ``--g``; the slab and Monte Carlo kinds take ``--mus-per-mm`` with
 ``--g`` or ``--musp-per-mm`` with ``--g``.
+
+Every reflectance is per unit power *incident* on the surface (DEVELOPERS.md, "Reflectance
+conventions"): ``reflectance_per_mm2`` of ``--kind srdr`` (diffusion, which includes the
+beam's entry loss 1 − R_specular) and of ``--kind mc --rho-mm`` (Monte Carlo) mean the same
+thing and can be compared as they come; the JSON says so in ``reflectance_convention``.
 """
 
 from __future__ import annotations
@@ -28,7 +33,10 @@ from phantomlab.cli import CommandResult, add_json_option
 from phantomlab.errors import InputError
 from phantomlab.units import parse_number_list
 
-__all__ = ["register", "KINDS", "MODELS"]
+__all__ = ["register", "KINDS", "MODELS", "REFLECTANCE_CONVENTION"]
+
+#: What every reflectance of this command is normalised to (the ``reflectance_convention`` key).
+REFLECTANCE_CONVENTION = "per unit incident power; specular reflection excluded"
 
 KINDS = ("srdr", "sfdi", "total", "slab", "mc")
 
@@ -195,6 +203,7 @@ def _diffusion(args, model: str) -> CommandResult:
         "musp_per_mm": musp,
         "n": lists["n"],
         "n_outside": n_outside,
+        "reflectance_convention": REFLECTANCE_CONVENTION,
     }
     if lists["wavelength"] is not None:
         payload["wavelength_nm"] = lists["wavelength"]
@@ -206,6 +215,7 @@ def _diffusion(args, model: str) -> CommandResult:
         values = diffusion.srdr_reflectance(rho_mm=rho, model=model, boundary=boundary, **common)
         payload.update(boundary=boundary, rho_mm=rho, reflectance_per_mm2=np.reshape(values, (count, rho.size)))
         text = _grid_table("rho_mm", rho, "R [1/mm^2]", payload["reflectance_per_mm2"], payload)
+        text += f"\n(R {REFLECTANCE_CONVENTION})"
     elif args.kind == "sfdi":
         if args.fx_per_mm is None:
             raise InputError("--kind sfdi needs --fx-per-mm LIST (spatial frequencies in 1/mm)")
@@ -214,6 +224,7 @@ def _diffusion(args, model: str) -> CommandResult:
         values = diffusion.sfdi_reflectance(fx_per_mm=fx, boundary=boundary, model=model, **common)
         payload.update(boundary=boundary, fx_per_mm=fx, reflectance=np.reshape(values, (count, fx.size)))
         text = _grid_table("fx_per_mm", fx, "R [-]", payload["reflectance"], payload)
+        text += f"\n(R {REFLECTANCE_CONVENTION})"
     else:
         boundary = args.boundary or diffusion.DEFAULT_BOUNDARY[model]
         values = diffusion.total_diffuse_reflectance(model=model, boundary=boundary, **common)
@@ -354,7 +365,9 @@ def _monte_carlo(args, estimator: str) -> CommandResult:
         payload["rho_mm"] = rho
         payload["reflectance_per_mm2"] = np.array([run.reflectance_per_mm2 for run in runs])
         payload["reflectance_per_mm2_sd"] = np.array([run.reflectance_per_mm2_sd for run in runs])
+        payload["reflectance_convention"] = REFLECTANCE_CONVENTION
         text += "\n" + _grid_table("rho_mm", rho, "R [1/mm^2]", payload["reflectance_per_mm2"], payload)
+        text += f"\n(R {REFLECTANCE_CONVENTION}; annulus averages)"
     text += (
         f"\n{args.photons} photons per entry, seed {args.seed}, {payload['seconds']:.3g} s simulated"
         " (compilation excluded)"

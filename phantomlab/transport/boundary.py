@@ -25,6 +25,10 @@ Haskell RC, Svaasand LO, Tsay TT, Feng TC, McAdams MS, Tromberg BJ 1994, J Opt S
 11:2727–2741, doi:10.1364/JOSAA.11.002727 (eqs. for R_φ, R_j and R_eff).
 Kienle A, Patterson MS 1997, J Opt Soc Am A 14:246–254, doi:10.1364/JOSAA.14.000246
 (R = C1 Φ + C2 j at the surface).
+
+:func:`beam_entry_transmission` is the part of a normally incident beam that gets into the
+medium, 1 − R_F(normal): the diffusion models multiply by it so that their reflectance is per
+unit *incident* power, the project's convention (DEVELOPERS.md, "Reflectance conventions").
 """
 
 from __future__ import annotations
@@ -47,6 +51,7 @@ __all__ = [
     "effective_reflection_Haskell1994",
     "fresnel_angular_moments",
     "fluence_flux_coefficients_Kienle1997",
+    "beam_entry_transmission",
 ]
 
 _NODES = 96
@@ -226,3 +231,34 @@ def fluence_flux_coefficients_Kienle1997(*, n, n_outside=1.0):
     c1 = 0.25 * (1.0 - r_phi)
     c2 = 0.5 * (1.0 - r_j)
     return c1, c2
+
+
+def beam_entry_transmission(*, n, n_outside=1.0):
+    """Fraction of a normally incident collimated beam that enters the medium.
+
+    T = 1 − R_F(normal) = 1 − ((n − n_outside)/(n + n_outside))² (unpolarised, no slide).
+    The diffusion models count their source from the light that entered; multiplied by T
+    their reflectance is per unit power *incident* on the surface, like the Monte Carlo
+    tallies and like a calibrated measurement (DEVELOPERS.md, "Reflectance conventions").
+
+    Parameters
+    ----------
+    n : float or array [dimensionless]
+        Refractive index of the medium (>= 1).
+    n_outside : float or array [dimensionless]
+        Refractive index of what the beam comes from (>= 1; 1.0 for air).
+
+    Returns
+    -------
+    ndarray [dimensionless]
+        T, broadcast over the inputs; 1 for a matched boundary, 0.97222 for n = 1.4 in air.
+
+    References
+    ----------
+    Born & Wolf 1999, *Principles of Optics*, §1.5.2 (Fresnel formulae at normal incidence).
+    """
+    n_in = np.asarray(as_index(n, "n"), dtype=float)
+    n_out = np.asarray(as_index(n_outside, "n_outside"), dtype=float)
+    value = 1.0 - fresnel_reflectance(cos_incident=1.0, n_from=n_out, n_to=n_in)
+    value = np.asarray(value, dtype=float)
+    return value[()] if value.ndim == 0 else value

@@ -1,6 +1,10 @@
 """Spatial-frequency-domain diffusion reflectance (Cuccia et al. 2009, J Biomed Opt 14:024012).
 
 Exact limits (CHECKS.md): μa = 0 and fx = 0 → R = 1 in Cuccia's model; fx → ∞ → 0.
+Cuccia's R counts from the light that entered; the project reports per unit incident power
+(DEVELOPERS.md, "Reflectance conventions"), so the μa = 0, fx = 0 limit is the beam's Fresnel
+transmission 1 − ((n − 1)/(n + 1))² (Born & Wolf 1999, §1.5.2, normal incidence): all the light
+that entered comes back.
 """
 
 import math
@@ -16,10 +20,12 @@ from phantomlab.transport.diffusion import sfdi_reflectance
 @pytest.mark.parametrize("boundary", ["groenhuis1983", "haskell1994"])
 @pytest.mark.parametrize("n", [1.0, 1.33, 1.4])
 def test_planar_non_absorbing_limit_is_one(boundary, n):
-    # CHECKS.md / Cuccia et al. 2009: μa = 0, fx = 0 → R = 1.
+    # CHECKS.md / Cuccia et al. 2009: μa = 0, fx = 0 → R = 1 per light that entered; per
+    # incident power that is the normal-incidence Fresnel transmission (Born & Wolf §1.5.2).
+    entered = 1.0 - ((n - 1.0) / (n + 1.0)) ** 2
     assert sfdi_reflectance(
         mua_per_mm=0.0, musp_per_mm=1.0, fx_per_mm=0.0, n=n, boundary=boundary
-    ) == pytest.approx(1.0, abs=1e-12)
+    ) / entered == pytest.approx(1.0, abs=1e-12)
 
 
 def test_high_frequency_limit_is_zero_and_monotone():
@@ -39,7 +45,8 @@ def test_worked_value_step_by_step():
     assert a_cuccia == pytest.approx(0.153813, abs=1e-6)
     mutr, albedo = 1.01, 1 / 1.01
     ratio = math.sqrt(3 * 0.01 * 1.01 + (2 * math.pi * 0.1) ** 2) / mutr
-    expected = 3 * a_cuccia * albedo / ((ratio + 1) * (ratio + 3 * a_cuccia))
+    entered = 1 - (0.4 / 2.4) ** 2  # normal-incidence Fresnel transmission (Born & Wolf §1.5.2)
+    expected = entered * 3 * a_cuccia * albedo / ((ratio + 1) * (ratio + 3 * a_cuccia))
     got = sfdi_reflectance(mua_per_mm=0.01, musp_per_mm=1.0, fx_per_mm=0.1, n=1.4)
     assert got == pytest.approx(expected, rel=1e-12)
 

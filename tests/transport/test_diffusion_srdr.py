@@ -4,8 +4,14 @@ Check values and their sources:
 * CHECKS.md total reflectance formula Rd = (a′/2) e^(−√(3(1 − a′))) [1 + e^(−(4/3) A √(3(1 − a′)))]
   (Farrell, Patterson & Wilson 1992) typed in here;
 * the total equals 2π ∫ R(ρ) ρ dρ of the same model, integrated with scipy.integrate.quad;
-* exact limits: a non-absorbing half-space returns all light (Rd = 1); far from the source
-  d ln(ρ² R)/dρ → −μeff (Farrell et al. 1992, the asymptote they fit μeff from).
+* exact limits: a non-absorbing half-space returns all light that entered (Rd = 1 − R_sp per
+  unit incident power); far from the source d ln(ρ² R)/dρ → −μeff (Farrell et al. 1992, the
+  asymptote they fit μeff from);
+* the flux of the Farrell dipole is the outward D ∂Φ/∂z of the dipole fluence at the surface (checked by
+  a numerical derivative of the fluence written out here, not the module's);
+* the project's convention (DEVELOPERS.md, "Reflectance conventions"): per unit *incident*
+  power, i.e. the papers' per-entered values times the normal-incidence Fresnel transmission
+  T = 1 − ((n − n_out)/(n + n_out))² (Born & Wolf 1999, §1.5.2).
 """
 
 import math
@@ -52,18 +58,73 @@ def test_total_matches_checks_formula(boundary):
     albedo = musp / (mua + musp)
     big_a = boundary_coefficient(n=n, method=boundary)
     root = np.sqrt(3 * (1 - albedo))
-    expected = albedo / 2 * np.exp(-root) * (1 + np.exp(-4 / 3 * big_a * root))
+    entered = 1 - (0.4 / 2.4) ** 2  # per unit incident power: × Fresnel transmission at n = 1.4
+    expected = entered * albedo / 2 * np.exp(-root) * (1 + np.exp(-4 / 3 * big_a * root))
     got = total_diffuse_reflectance(mua_per_mm=mua, musp_per_mm=musp, n=n, boundary=boundary)
     assert got == pytest.approx(expected, rel=1e-12)
 
 
 def test_non_absorbing_half_space_returns_everything():
-    # Exact limit (energy conservation): μa = 0 → all light comes back.  For kienle1997
-    # with the exact Fresnel integrals C1·2A + C2 = 1 identically.
-    assert total_diffuse_reflectance(mua_per_mm=0.0, musp_per_mm=1.0, n=1.4) == pytest.approx(1.0)
+    # Exact limit (energy conservation): μa = 0 → all light that entered comes back, i.e.
+    # 1 − R_sp of the incident power (R_sp = ((n − 1)/(n + 1))², Born & Wolf §1.5.2).  For
+    # kienle1997 with the exact Fresnel integrals C1·2A + C2 = 1 identically.
+    entered = 1 - (0.4 / 2.4) ** 2
+    assert total_diffuse_reflectance(mua_per_mm=0.0, musp_per_mm=1.0, n=1.4) == pytest.approx(entered)
     assert total_diffuse_reflectance(
         mua_per_mm=0.0, musp_per_mm=1.0, n=1.4, model="kienle1997", boundary="haskell1994"
-    ) == pytest.approx(1.0, abs=1e-12)
+    ) == pytest.approx(entered, abs=1e-12)
+    # in water (n_outside = 1.33) under glass-like index 1.5: the same identity
+    entered = 1 - ((1.5 - 1.33) / (1.5 + 1.33)) ** 2
+    assert total_diffuse_reflectance(
+        mua_per_mm=0.0, musp_per_mm=1.0, n=1.5, n_outside=1.33, model="kienle1997", boundary="haskell1994"
+    ) == pytest.approx(entered, abs=1e-12)
+
+
+def _dipole_fluence(rho, z, *, mua, musp, big_a):
+    """Fluence of the extrapolated-boundary dipole at depth z (Farrell et al. 1992), per entered power."""
+    mutp = mua + musp
+    d = 1 / (3 * mutp)
+    mueff = math.sqrt(3 * mua * mutp)
+    z0, zb = 1 / mutp, 2 * big_a * d
+    r1 = np.sqrt((z - z0) ** 2 + rho**2)
+    r2 = np.sqrt((z + z0 + 2 * zb) ** 2 + rho**2)
+    return musp / mutp / (4 * math.pi * d) * (np.exp(-mueff * r1) / r1 - np.exp(-mueff * r2) / r2), d
+
+
+@pytest.mark.parametrize("n", [1.0, 1.4])
+def test_farrell_flux_is_the_derivative_of_the_dipole_fluence(n):
+    # R(ρ) of farrell1992 = T · D ∂Φ/∂z at z = 0 (the outward flux, Farrell et al. 1992), and
+    # kienle1997 = T · (C1 Φ(ρ, 0) + C2 · that flux) (Kienle & Patterson 1997); central
+    # differences of the fluence written out above.
+    from phantomlab.transport.boundary import fluence_flux_coefficients_Kienle1997
+
+    mua, musp, rho = 0.01, 1.0, np.array([2.0, 4.0, 8.0])
+    big_a = boundary_coefficient(n=n, method="haskell1994")
+    h = 1e-5
+    up, d = _dipole_fluence(rho, h, mua=mua, musp=musp, big_a=big_a)
+    down, _ = _dipole_fluence(rho, -h, mua=mua, musp=musp, big_a=big_a)
+    flux = d * (up - down) / (2 * h)
+    surface, _ = _dipole_fluence(rho, 0.0, mua=mua, musp=musp, big_a=big_a)
+    entered = 1 - ((n - 1) / (n + 1)) ** 2
+    farrell = srdr_reflectance(mua_per_mm=mua, musp_per_mm=musp, rho_mm=rho, n=n, boundary="haskell1994")
+    np.testing.assert_allclose(farrell, entered * flux, rtol=1e-7)
+    c1, c2 = fluence_flux_coefficients_Kienle1997(n=n)
+    kienle = srdr_reflectance(mua_per_mm=mua, musp_per_mm=musp, rho_mm=rho, n=n, model="kienle1997")
+    np.testing.assert_allclose(kienle, entered * (c1 * surface + c2 * flux), rtol=1e-7)
+
+
+def test_per_incident_convention_scales_by_the_entry_transmission():
+    # Project convention: the same R(ρ) per unit incident power at every index; a matched
+    # boundary loses nothing at entry, n = 1.4 in air loses R_sp = (0.4/2.4)² = 2.78 %.
+    from phantomlab.transport.boundary import beam_entry_transmission
+
+    assert beam_entry_transmission(n=1.0) == 1.0
+    assert beam_entry_transmission(n=1.4) == pytest.approx(1 - (0.4 / 2.4) ** 2, rel=1e-14)
+    assert beam_entry_transmission(n=[1.33, 1.5], n_outside=1.33) == pytest.approx(
+        [1.0, 1 - (0.17 / 2.83) ** 2], rel=1e-14)
+    assert np.isnan(beam_entry_transmission(n=np.nan))
+    with pytest.raises(InputError, match=r"n \(refractive index\) must be >= 1"):
+        beam_entry_transmission(n=0.9)
 
 
 @pytest.mark.parametrize("model", MODELS)

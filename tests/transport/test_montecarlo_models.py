@@ -7,6 +7,22 @@
 * diffusion (phantomlab.transport.diffusion): R(rho) beyond two transport mean free paths,
   against a Monte Carlo fixture of 10^6 photons made by fixtures/make_mc_srdr_fixture.py
   (which says how to regenerate it); a small live run ties the fixture to the engine.
+  Both sides are per unit *incident* power (DEVELOPERS.md, "Reflectance conventions"), so
+  they are compared as they come, with no factor 1 - R_specular in between.  The gaps
+  measured here (mua = 0.01 /mm, musp = 1 /mm, g = 0.8, 1 mm annuli; in per cent, diffusion
+  over Monte Carlo minus one; the fixture's SE is 0.2-1.2 %):
+
+  ====================  =========================================================
+  n = 1.4 in air        kienle1997: +1.3 ... +4.5 at 1-15 mm;
+                        farrell1992 (groenhuis1983): -8.5 ... -20.5 at 3-8 mm
+                        (haskell1994 A: -7.7 ... -16.4)
+  matched, n = 1.0      farrell1992: +6.1 ... +10.9 at 1-3 mm, within 4.4 beyond;
+                        kienle1997: +7.6 ... +13.4 at 2-4 mm, within 5.4 beyond
+  ====================  =========================================================
+
+  Before the diffusion models took the entry loss in (they counted from the light that
+  entered), kienle1997 at n = 1.4 read +4.2 ... +7.4 at 2-15 mm and farrell1992 -5.9 ... -18.2
+  at 3-8 mm.
 """
 
 from __future__ import annotations
@@ -82,28 +98,71 @@ def test_fixture_still_matches_the_engine(fixture_cases):
 
 
 def test_diffusion_fluence_plus_flux_beyond_two_transport_lengths(fixture_cases):
-    # Case (the one Kienle & Patterson 1997, JOSA A 14:246, discuss): semi-infinite,
+    # Case (the kind Kienle & Patterson 1997, JOSA A 14:246, discuss): semi-infinite,
     # mua = 0.01 /mm, musp = 1 /mm (mus = 5 /mm, g = 0.8 in the Monte Carlo), n = 1.4 in
     # air; fluence-plus-flux model with the Haskell 1994 boundary coefficient; rho from 2 to
-    # 15 mm (2-15 transport mean free paths).  The diffusion source is the light that
-    # enters the medium, so the Monte Carlo R(rho) (per incident power) is divided by
-    # 1 - R_specular before comparing.  Within 5 % (the issue's criterion).
+    # 15 mm (2-15 transport mean free paths).  Both per unit incident power.  Expected:
+    # within a few per cent beyond about two transport lengths at high albedo (# from memory);
+    # measured +1.3 ... +4.4 %, held to 0 ... +5 % (diffusion sits above Monte Carlo here by
+    # 7-9 SE: a real, small model error, not noise).
     case = fixture_cases["cases"]["n1.4_in_air"]
     edges = np.array(case["rho_edges_mm"])
     rho = np.array(fixture_cases["rho_mm"])
-    entering = 1.0 - case["specular_reflectance"]
-    mc = np.array(case["reflectance_per_mm2"]) / entering
+    mc = np.array(case["reflectance_per_mm2"])
     diffusion = _annulus_average("kienle1997", "haskell1994", edges, 0.01, 1.0, 1.4)
     beyond = rho >= 2.0
     deviation = diffusion[beyond] / mc[beyond] - 1.0
-    assert np.all(np.abs(deviation) < 0.05), np.round(deviation, 3)
+    assert np.all((deviation > 0.0) & (deviation < 0.05)), np.round(deviation, 3)
+
+
+def test_diffusion_models_carry_the_entry_loss_like_the_monte_carlo(fixture_cases):
+    # The same convention on both sides: dividing the diffusion model by the Fresnel
+    # transmission 1 - R_sp (what it used to report) moves it 2.9 % further from the Monte
+    # Carlo at every distance from 2 to 15 mm; the Monte Carlo's total diffuse reflectance
+    # lies within 7 % of the model's closed-form total (the near-source part, where
+    # diffusion is poor, is inside the total).
+    from phantomlab.transport.diffusion import total_diffuse_reflectance
+
+    case = fixture_cases["cases"]["n1.4_in_air"]
+    edges = np.array(case["rho_edges_mm"])
+    rho = np.array(fixture_cases["rho_mm"])
+    mc = np.array(case["reflectance_per_mm2"])
+    entering = 1.0 - case["specular_reflectance"]
+    assert entering == pytest.approx(1 - (0.4 / 2.4) ** 2, rel=1e-12)  # Born & Wolf §1.5.2
+    diffusion = _annulus_average("kienle1997", "haskell1994", edges, 0.01, 1.0, 1.4)
+    beyond = rho >= 2.0
+    now = np.abs(diffusion[beyond] / mc[beyond] - 1.0)
+    before = np.abs(diffusion[beyond] / entering / mc[beyond] - 1.0)
+    assert np.all(before > now)
+    assert np.mean(now) < 0.035 < np.mean(before)
+    total = total_diffuse_reflectance(mua_per_mm=0.01, musp_per_mm=1.0, n=1.4, model="kienle1997")
+    assert total == pytest.approx(case["diffuse_reflectance"], rel=0.07)
+
+
+def test_flux_only_dipole_is_low_at_a_mismatched_boundary(fixture_cases):
+    # The measured gap of farrell1992 (flux only, Groenhuis A as published) at n = 1.4 in
+    # air: 8-21 % below Monte Carlo at 3-8 transport lengths.  Its equation is checked
+    # against a numerical derivative of the dipole fluence in test_diffusion_srdr.py, so
+    # this is the model, not a slip: the light leaving a mismatched surface is not the net
+    # flux alone (Kienle & Patterson 1997, JOSA A 14:246; the size of the gap is ours).
+    # Held to -25 ... -5 % so that a change of model or of convention shows here.
+    case = fixture_cases["cases"]["n1.4_in_air"]
+    edges = np.array(case["rho_edges_mm"])
+    rho = np.array(fixture_cases["rho_mm"])
+    mc = np.array(case["reflectance_per_mm2"])
+    diffusion = _annulus_average("farrell1992", "groenhuis1983", edges, 0.01, 1.0, 1.4)
+    middle = (rho >= 3.0) & (rho <= 8.0)
+    deviation = diffusion[middle] / mc[middle] - 1.0
+    assert np.all((deviation > -0.25) & (deviation < -0.05)), np.round(deviation, 3)
+    fluence_flux = _annulus_average("kienle1997", "haskell1994", edges, 0.01, 1.0, 1.4)
+    assert np.all(np.abs(fluence_flux[middle] / mc[middle] - 1.0) < np.abs(deviation))
 
 
 def test_diffusion_dipole_matched_boundary_far_from_the_source(fixture_cases):
     # Case: the same medium with a matched boundary (n = 1), Farrell et al. 1992 dipole.
-    # Beyond 4 transport mean free paths it is within 5 %; at 2-3 of them it is 6-10 % high
-    # (measured here; diffusion is known to be poor within a few transport lengths of the
-    # source, CHECKS.md), so this check starts at 4 mm.
+    # Beyond 4 transport mean free paths it is within 5 % (measured: within 4.4 %); at 1-3 of
+    # them it is 6-11 % high (measured here; diffusion is known to be poor within a few
+    # transport lengths of the source, CHECKS.md), so this check starts at 4 mm.
     case = fixture_cases["cases"]["matched"]
     edges = np.array(case["rho_edges_mm"])
     rho = np.array(fixture_cases["rho_mm"])
@@ -113,3 +172,18 @@ def test_diffusion_dipole_matched_boundary_far_from_the_source(fixture_cases):
     beyond = rho >= 4.0
     deviation = diffusion[beyond] / mc[beyond] - 1.0
     assert np.all(np.abs(deviation) < 0.05), np.round(deviation, 3)
+
+
+def test_diffusion_fluence_plus_flux_matched_boundary(fixture_cases):
+    # The fluence-plus-flux model at a matched boundary (C1 = 1/4, C2 = 1/2, A = 1): measured
+    # +7.6 ... +13.4 % at 2-4 transport lengths, within 5.4 % from 5 mm on; held to 6 %
+    # from 5 mm.  At n = 1 it is no better than the flux alone near the source (the P1
+    # radiance at the surface is the weak point there).
+    case = fixture_cases["cases"]["matched"]
+    edges = np.array(case["rho_edges_mm"])
+    rho = np.array(fixture_cases["rho_mm"])
+    mc = np.array(case["reflectance_per_mm2"])
+    diffusion = _annulus_average("kienle1997", "haskell1994", edges, 0.01, 1.0, 1.0)
+    beyond = rho >= 5.0
+    deviation = diffusion[beyond] / mc[beyond] - 1.0
+    assert np.all(np.abs(deviation) < 0.06), np.round(deviation, 3)

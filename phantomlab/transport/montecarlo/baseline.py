@@ -260,7 +260,9 @@ class Baseline:
         -------
         ndarray [1/mm²]
             Shape (R,) for scalar coefficients, (K, R) for arrays: reflected power per unit
-            area in each annulus per unit incident power (specular reflection excluded).
+            area in each annulus per unit incident power (specular reflection excluded; the
+            project's ``reflectance_per_mm2`` convention, DEVELOPERS.md "Reflectance
+            conventions").
 
         Raises
         ------

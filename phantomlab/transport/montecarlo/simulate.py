@@ -87,7 +87,10 @@ class MonteCarloResult:
         Radial bin centres as given and the bin edges used (midpoints between centres).
     reflectance_per_mm2, reflectance_per_mm2_sd : ndarray or None [1/mm²]
         Spatially resolved reflectance: power leaving the top face in each annulus, per unit
-        area and per unit incident power (average over the annulus).
+        area and per unit incident power (average over the annulus; the entry loss
+        1 − R_specular is inside, the specular reflection is not counted).  This is the
+        project's convention for ``reflectance_per_mm2`` (DEVELOPERS.md, "Reflectance
+        conventions"); the diffusion models of :mod:`phantomlab.transport.diffusion` follow it.
     photons, batches, seed, threads : int
         Launched photons, independent batches, master seed, threads used.
     interactions : int
