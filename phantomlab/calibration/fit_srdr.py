@@ -3,14 +3,26 @@
 Two forward models (from :mod:`phantomlab.transport`):
 
 * diffusion (``farrell1992``, ``kienle1997``): fitted only to distances beyond
-  ``min_transport_mfp`` transport mean free paths 1/μt′ (default 1; the fit runs once on
-  all distances, then again without those too close to the source);
+  ``min_transport_mfp`` transport mean free paths 1/μt′ (default 2; the fit runs once on
+  all distances, then again without those too close to the source, until the set of
+  distances kept no longer changes with the fitted μt′);
 * ``mc``: a Monte Carlo lookup built on a stored baseline (``Baseline.srdr``, re-weighting
   and scaling of one run), valid at every distance, near the source included.  The baseline
   was run at one anisotropy g; the fit reports μs′ = μs (1 − g).
 
 Absolute data give μa and μs′ directly; relative data (``reflectance_relative``) fit an
-unknown scale factor per wavelength too.
+unknown scale factor per wavelength too.  Absolute ``reflectance_per_mm2`` is per unit power
+*incident* on the surface, specular reflection excluded (DEVELOPERS.md, "Reflectance
+conventions"); both forward models follow that convention.
+
+What the diffusion models can do on Monte Carlo data (n = 1.4 in air, μs′ = 1 /mm, g = 0.8,
+ρ from 2 to 8 mm, 1 % noise; ``tests/calibration/test_fit_srdr.py``): ``kienle1997`` is
+0.8–5.7 % above Monte Carlo there, which gives μs′ within 2 % but μa +2 to +5 % at
+μs′/μa = 30, ≈ +9 % at 100, ≈ +25 % at 300 and ≈ +75 % at 1000 (at high albedo μa rests on
+the absolute level, which a few per cent of model error moves a lot).  ``farrell1992``
+(flux only) is 8–21 % *below* Monte Carlo at 3–8 transport lengths at n = 1.4 and biases
+μs′ by +40 to +90 % and μa by −35 to −100 %: the fit warns when it is used at a mismatched
+boundary.
 """
 
 from __future__ import annotations
@@ -21,6 +33,7 @@ import numpy as np
 
 from phantomlab.calibration.fitting import FitResult
 from phantomlab.calibration.identifiability import (
+    _bands,
     diffusion_range_warnings,
     outcome_warnings,
     srdr_design_warnings,
@@ -29,10 +42,31 @@ from phantomlab.calibration.measurements import Measurement
 from phantomlab.calibration.spectral import SpectralConstraint, fit_spectrum, merge_rows
 from phantomlab.errors import InputError, PhantomlabWarning
 
-__all__ = ["SRDR_FIT_MODELS", "fit_srdr", "srdr_forward"]
+__all__ = ["SRDR_FIT_MODELS", "DIFFUSION_MIN_TRANSPORT_MFP", "fit_srdr", "srdr_forward",
+           "flux_only_mismatch_warnings"]
 
 #: Forward models of the srdr fit.
 SRDR_FIT_MODELS = ("farrell1992", "kienle1997", "mc")
+
+#: Diffusion fits leave out distances closer than this many transport mean free paths 1/μt′.
+#: Measured (tests/transport/test_montecarlo_models.py, tests/calibration/test_fit_srdr.py):
+#: at 1–2 transport lengths the diffusion models are 4–13 % off Monte Carlo, beyond 2 the
+#: fluence-plus-flux model at n = 1.4 is within 1–5 %.
+DIFFUSION_MIN_TRANSPORT_MFP = 2.0
+
+#: farrell1992 is flagged when the relative index n/n_outside is this far from 1: at 1.1 it
+#: already reads 8 % below the fluence-plus-flux model at 3 transport lengths (and at 1.33 and
+#: 1.4, 13–21 % below Monte Carlo: measured, see DEVELOPERS.md "Reflectance conventions").
+FLUX_ONLY_MAX_INDEX_MISMATCH = 0.1
+
+#: Above this fitted μs′/μa a diffusion fit of absolute data says that its μa is biased: the
+#: model's few-per-cent error moves μa by +24 % at 300 and +74 % at 1000 (Monte Carlo data,
+#: n = 1.4, ρ to 8 transport lengths; tests/calibration/test_fit_srdr.py), far beyond its SD.
+DIFFUSION_MUA_BIAS_RATIO = 200.0
+
+#: Passes of the "leave out the near distances and refit" step at most (the kept set follows
+#: the fitted μt′; it settles in one or two).
+_NEAR_SOURCE_PASSES = 3
 
 
 def baseline_anisotropy(baseline) -> float:
@@ -77,6 +111,9 @@ def baseline_absorption_floor(baseline) -> float:
 
 def srdr_forward(*, model: str, rho_mm, n: float, n_outside: float = 1.0, baseline=None):
     """The forward model R(ρ) of the fit as ``forward(mua (N,), musp (N,)) -> (N, R)`` [1/mm²].
+
+    R(ρ) per unit incident power, specular reflection excluded (the project's convention for
+    absolute ``reflectance_per_mm2``), for every model.
 
     Parameters
     ----------
@@ -131,7 +168,7 @@ def fit_srdr(
     n_outside: float | None = None,
     baseline=None,
     constraint: SpectralConstraint | None = None,
-    min_transport_mfp: float = 1.0,
+    min_transport_mfp: float = DIFFUSION_MIN_TRANSPORT_MFP,
 ) -> FitResult:
     """Fit μa and μs′ to a spatially resolved reflectance measurement.
 
@@ -139,7 +176,8 @@ def fit_srdr(
     ----------
     measurement : Measurement
         ``kind='srdr'``, scale ``absolute`` or ``relative`` (raw readings are calibrated
-        first, see :func:`phantomlab.calibration.reference.calibrate_reading`).
+        first, see :func:`phantomlab.calibration.reference.calibrate_reading`).  Absolute
+        values [1/mm²] are per unit incident power, specular reflection excluded.
     model : {'farrell1992', 'kienle1997', 'mc'}
     n, n_outside : float, optional
         Phantom and outside refractive index (default: the measurement's metadata).
@@ -148,7 +186,10 @@ def fit_srdr(
     constraint : SpectralConstraint, optional
         Joint fit across the band (power-law μs′, μa from stock spectra).
     min_transport_mfp : float
-        Diffusion fits ignore distances closer than this many 1/μt′ to the source.
+        Diffusion fits ignore distances closer than this many 1/μt′ to the source (default
+        :data:`DIFFUSION_MIN_TRANSPORT_MFP` = 2; 0 keeps every distance).  The distances are
+        chosen with the fitted μt′ and re-chosen after each refit until they settle; where
+        fewer than 3 (relative data: 4) distances would be left, all stay and the fit warns.
 
     Returns
     -------
@@ -194,28 +235,39 @@ def fit_srdr(
     kept_near = np.zeros(measurement.wavelength_nm.shape, bool)
     if model != "mc" and min_transport_mfp > 0:
         finite = np.isfinite(measurement.values)
-        mutr = result.mua_per_mm + result.musp_per_mm
-        near = (rho[None, :] * mutr[:, None] < min_transport_mfp) & finite
-        enough = (finite & ~near).sum(axis=1) >= (4 if relative else 3)
-        kept_near = near.any(axis=1) & ~enough
-        mask = np.where(enough[:, None], finite & ~near, finite)
-        dropped = int((finite & ~mask).sum())
-        if dropped:
+        used = finite  # the distances of the fit just made
+        for _ in range(_NEAR_SOURCE_PASSES):
+            mutr = result.mua_per_mm + result.musp_per_mm
+            near = (rho[None, :] * mutr[:, None] < min_transport_mfp) & finite
+            enough = (finite & ~near).sum(axis=1) >= (4 if relative else 3)
+            kept_near = near.any(axis=1) & ~enough
+            mask = np.where(enough[:, None], finite & ~near, finite)
+            changed = np.any(mask != used, axis=1)
+            if not changed.any():
+                break
             if constraint is not None and constraint.active:
                 result, correlation = fit_spectrum(
                     forward, start=(result.mua_per_mm, result.musp_per_mm), mask=mask, **kwargs)
-            else:  # refit only the wavelengths that lost points
-                rows = np.where(np.any(finite & ~mask, axis=1))[0]
+            else:  # refit only the wavelengths whose distances changed
+                rows = np.where(changed)[0]
                 sub = dict(kwargs, wavelength_nm=measurement.wavelength_nm[rows], data=measurement.values[rows],
                            sd=None if measurement.sd is None else measurement.sd[rows])
                 part, part_corr = fit_spectrum(
                     forward, start=(result.mua_per_mm[rows], result.musp_per_mm[rows]), mask=mask[rows], **sub)
                 result, correlation = merge_rows(result, correlation, part, part_corr, rows,
                                                  parameters_per_wavelength=3 if relative else 2)
+            used = mask
+        dropped = int((finite & ~used).sum())
+        if dropped:
             messages.append(
                 f"diffusion fit: left out {dropped} points within {min_transport_mfp:g} transport "
-                f"mean free path of the source"
+                f"mean free paths of the source (diffusion is poor there)"
             )
+    if model == "farrell1992":
+        messages += flux_only_mismatch_warnings(n=n, n_outside=n_outside)
+    if model != "mc" and not relative:
+        messages += high_albedo_bias_warnings(wavelength_nm=measurement.wavelength_nm,
+                                              mua_per_mm=result.mua_per_mm, musp_per_mm=result.musp_per_mm)
     messages += srdr_design_warnings(rho_mm=rho, wavelength_nm=measurement.wavelength_nm,
                                      mua_per_mm=result.mua_per_mm, musp_per_mm=result.musp_per_mm,
                                      relative=relative)
@@ -241,6 +293,49 @@ def fit_srdr(
         musp_per_mm=result.musp_per_mm, mua_sd_per_mm=result.mua_sd_per_mm,
         musp_sd_per_mm=result.musp_sd_per_mm, correlation=correlation)
     return _finish(result, measurement, messages)
+
+
+def flux_only_mismatch_warnings(*, n: float, n_outside: float) -> list[str]:
+    """The warning for ``farrell1992`` (flux only) at an index-mismatched surface.
+
+    Measured against the project's Monte Carlo (μs′/μa = 100, g = 0.8): 8–21 % below at 3–8
+    transport lengths for n = 1.4 in air, 13–15 % at 3–5 for n = 1.33; the fluence-plus-flux
+    model (Kienle & Patterson 1997, J Opt Soc Am A 14:246) is within 1–5 % there.
+    """
+    relative_index = float(n) / float(n_outside)
+    if abs(relative_index - 1.0) <= FLUX_ONLY_MAX_INDEX_MISMATCH:
+        return []
+    return [
+        f"srdr model farrell1992 (flux only) at n/n_outside = {relative_index:.3g}: at a mismatched "
+        f"surface it reads 8-21 % below Monte Carlo at 3-8 transport mean free paths (n = 1.4 in air), "
+        f"which biases musp and mua by tens of per cent; fit with kienle1997 (within 1-5 %) or the "
+        f"Monte Carlo lookup (model mc)"
+    ]
+
+
+def high_albedo_bias_warnings(*, wavelength_nm, mua_per_mm, musp_per_mm) -> list[str]:
+    """The warning that a diffusion fit's μa is biased at high albedo (absolute data).
+
+    At μs′/μa of a few hundred and more, μa moves R(ρ) over a probe's reach mostly through
+    the absolute level, and the diffusion models' level is off Monte Carlo by a few per cent
+    (kienle1997 +1 to +6 % at n = 1.4): measured, the fitted μa is +24 % at 300 and +74 % at
+    1000 high while its SD says 2–5 % (tests/calibration/test_fit_srdr.py).
+    """
+    mua = np.asarray(mua_per_mm, float)
+    musp = np.asarray(musp_per_mm, float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = np.where(mua > 0, musp / mua, np.inf)
+    high = np.isfinite(musp) & (ratio >= DIFFUSION_MUA_BIAS_RATIO)
+    if not np.any(high):
+        return []
+    finite = ratio[high & np.isfinite(ratio)]
+    largest = float(finite.max()) if finite.size else np.inf
+    return [
+        f"diffusion fit at musp/mua up to {largest:.3g} "
+        f"(>= {DIFFUSION_MUA_BIAS_RATIO:g}) at {_bands(np.asarray(wavelength_nm), high)}: there its few-percent "
+        f"model error biases mua high by tens of per cent (measured on Monte Carlo data: +24 % at 300, +74 % "
+        f"at 1000), beyond its SD; musp stays within a few per cent; use the Monte Carlo lookup (model mc) for mua"
+    ]
 
 
 def model_range_warnings(forward, result) -> list[str]:

@@ -5,9 +5,15 @@ once by ``fixtures/make_mc_fixtures.py``, seeds independent of the baseline's), 
 Gaussian noise added here with fixed seeds.  The tolerances are those of issue 5: absolute
 data μa within 5 %, μs′ within 3 % over μs′/μa = 10…1000; relative data 10 % and 5 %.
 Diffusion is checked where it is valid (Farrell et al. 1992, Med Phys 19:879: beyond about
-one transport mean free path and μs′ ≫ μa) on data made by the diffusion model itself.
+one transport mean free path and μs′ ≫ μa) on data made by the diffusion model itself, and
+against the same Monte Carlo data beyond two transport lengths with the tolerances the
+physics gives (measured; see ``test_diffusion_fit_of_mc_data_beyond_two_transport_lengths``).
+Absolute ``reflectance_per_mm2`` is per unit incident power on both sides (DEVELOPERS.md,
+"Reflectance conventions").
 """
 
+import re
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -114,19 +120,113 @@ def test_mc_lookup_sd_covers_the_truth_about_as_often_as_it_should(mc_cases, bas
     assert 0.5 < inside < 0.85, inside
 
 
-@pytest.mark.parametrize("case", [1, 2, 3])  # musp/mua = 30, 100, 300
+# Case: the Monte Carlo fixtures (n = 1.4 in air, musp = 1 /mm, g = 0.8, rho 0.4-8 mm, i.e. up
+# to 8 transport lengths), 1 % noise, eight copies; fluence-plus-flux diffusion (Kienle &
+# Patterson 1997, JOSA A 14:246) with the fit's default, distances beyond 2 transport mean
+# free paths only.  Expected from the literature: that model within a few per cent of Monte
+# Carlo beyond about two transport lengths at high albedo (# from memory); measured on these
+# fixtures +0.8 ... +5.7 % (test_diffusion_model_level_on_the_fit_fixtures).  What that gives
+# (measured, the band of the eight copies), and the tolerance held:
+#   musp/mua   mua error          musp error        held: mua, musp
+#   30         +2.7 ... +3.6 %    -2.8 ... -1.1 %   0 ... +6 %, 4 %
+#   100        +8.1 ... +11.3 %   -1.9 ...  0.0 %   0 ... +15 %, 4 %
+#   300        +21 ... +28 %      -2.6 ...  0.0 %   +10 ... +40 %, 4 %
+#   1000       +65 ... +87 %      -3.5 ... +0.1 %   +40 ... +120 %, 4 %
+# musp is good to a few per cent throughout; mua is biased high, the more the higher the
+# albedo: over 8 transport lengths mua acts mostly through the absolute level, which a
+# few-percent model error moves a lot.  Its SD (1-5 %) does not cover that, and the fit warns
+# from musp/mua = 200.  Before the entry loss (1 - R_sp = 0.972) went into the diffusion
+# models the same fits read mua +24 % at 100 and +162 % at 1000, musp -6 %.
+DIFFUSION_FIT_BANDS = {  # case: (mua low, mua high, |musp| max), relative errors
+    1: (0.0, 0.06, 0.04),
+    2: (0.0, 0.15, 0.04),
+    3: (0.10, 0.40, 0.04),
+    4: (0.40, 1.20, 0.04),
+}
+
+
+@pytest.mark.parametrize("case", sorted(DIFFUSION_FIT_BANDS))  # musp/mua = 30, 100, 300, 1000
 def test_diffusion_fit_of_mc_data_beyond_two_transport_lengths(mc_cases, case):
-    # Fluence-plus-flux diffusion (Kienle & Patterson 1997) against Monte Carlo beyond 2 mm:
-    # musp within 10 % (common practice, no source); mua only loosely (the few-percent shape
-    # error of diffusion maps onto the weakly determined mua at high albedo), so it is the
-    # Monte Carlo lookup that the issue's tolerances are held to above.
     rho = mc_cases["rho_mm"]
     values, sd = _noisy(mc_cases["reflectance_per_mm2"][case], mc_cases["sd"][case],
-                        np.random.default_rng(400 + case), copies=4)
-    keep = rho >= 2.0
-    fit = fit_srdr(_measurement(rho[keep], values[:, keep], sd[:, keep]), model="kienle1997")
-    np.testing.assert_array_less(np.abs(fit.musp_per_mm - 1.0), 0.10)
-    np.testing.assert_array_less(np.abs(fit.mua_per_mm / mc_cases["mua_per_mm"][case] - 1), 0.75)
+                        np.random.default_rng(400 + case), copies=8)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", PhantomlabWarning)
+        fit = fit_srdr(_measurement(rho, values, sd), model="kienle1997")
+    low, high, musp_tolerance = DIFFUSION_FIT_BANDS[case]
+    mua_error = fit.mua_per_mm / mc_cases["mua_per_mm"][case] - 1
+    assert np.all((mua_error > low) & (mua_error < high)), np.round(mua_error, 3)
+    np.testing.assert_array_less(np.abs(fit.musp_per_mm - 1.0), musp_tolerance)
+    # the points inside 2 transport mean free paths (0.4-1.6 mm, and 2.0 mm where the fitted
+    # mutr came out below 1 /mm) were left out, and said so
+    said = [re.search(r"left out (\d+) points within 2 transport mean free paths", m) for m in fit.warnings]
+    counts = [int(found.group(1)) for found in said if found]
+    assert len(counts) == 1 and 8 * 4 <= counts[0] <= 8 * 5, fit.warnings
+    messages = [str(w.message) for w in caught]
+    biased = any("biases mua high" in m for m in messages)
+    assert biased == (mc_cases["ratio"][case] >= 200), messages
+
+
+def test_diffusion_model_level_on_the_fit_fixtures(mc_cases):
+    # The model error behind the bands above: kienle1997 over Monte Carlo (both per unit
+    # incident power, annulus averages) beyond 2 transport lengths, musp/mua = 30-1000:
+    # measured +0.8 ... +5.7 %; held to 0 ... +7 %.
+    from phantomlab.transport.diffusion import srdr_reflectance
+    from phantomlab.transport.montecarlo import rho_bin_edges_mm
+
+    rho = mc_cases["rho_mm"]
+    edges = rho_bin_edges_mm(rho)
+    beyond = rho >= 2.0
+    for case in range(1, 5):
+        averages = []
+        for low, high in zip(edges[:-1], edges[1:]):
+            r = np.linspace(low, high, 101)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", PhantomlabWarning)
+                value = srdr_reflectance(mua_per_mm=mc_cases["mua_per_mm"][case], musp_per_mm=1.0, rho_mm=r,
+                                         n=1.4, model="kienle1997")
+            averages.append(np.trapezoid(value * 2 * np.pi * r, r) / (np.pi * (high**2 - low**2)))
+        deviation = np.array(averages)[beyond] / mc_cases["reflectance_per_mm2"][case][beyond] - 1
+        assert np.all((deviation > 0.0) & (deviation < 0.07)), (case, np.round(deviation, 3))
+
+
+def test_flux_only_model_warns_at_a_mismatched_boundary(mc_cases):
+    # farrell1992 at n = 1.4 in air is 8-21 % below Monte Carlo at 3-8 transport lengths
+    # (tests/transport/test_montecarlo_models.py); fitted to the musp/mua = 100 fixture it
+    # misses musp by +75 ... +83 % and mua by -80 ... -84 % (measured).  The fit must say so.
+    values, sd = _noisy(mc_cases["reflectance_per_mm2"][2], mc_cases["sd"][2], np.random.default_rng(3), 2)
+    with pytest.warns(PhantomlabWarning, match=r"farrell1992 \(flux only\) at n/n_outside = 1\.4"):
+        fit = fit_srdr(_measurement(mc_cases["rho_mm"], values, sd), model="farrell1992")
+    assert np.all(fit.musp_per_mm > 1.3)  # the bias the warning is about
+    # matched boundary: no such warning
+    m = parse_measurement_text(_text(mc_cases["rho_mm"], values, sd), kind="srdr",
+                               metadata=MeasurementMetadata(n=1.0, n_outside=1.0))
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", PhantomlabWarning)
+        fit_srdr(m, model="farrell1992")
+    assert not any("flux only" in str(w.message) for w in caught)
+
+
+def test_near_source_points_follow_the_fitted_transport_length():
+    # Data from the fluence-plus-flux model itself (exact for the fit) at musp = 0.5 /mm, the
+    # two nearest distances doubled (a near-source excess the model cannot follow).  The first
+    # pass on all points lands at musp = 0.72 /mm and would leave out only rho < 2.8 mm (3
+    # points); re-chosen with the refitted mutr, the distances inside 2/mutr = 3.96 mm go
+    # (5 points) and the fit is exact.
+    from phantomlab.transport.diffusion import srdr_reflectance
+
+    rho = np.array([0.5, 1.0, 2.0, 3.0, 3.9, 4.1, 5.0, 6.0, 8.0, 10.0, 12.0])
+    R = srdr_reflectance(mua_per_mm=0.005, musp_per_mm=0.5, rho_mm=rho, n=1.4, model="kienle1997")
+    data = R.copy()
+    data[:2] *= 2.0
+    text = _text(rho, data, 0.01 * R)
+    m = parse_measurement_text(text, kind="srdr", metadata=MeasurementMetadata(n=1.4, n_outside=1.0))
+    with pytest.warns(PhantomlabWarning, match="left out 5 points within 2 transport mean free paths"):
+        fit = fit_srdr(m, model="kienle1997")
+    assert fit.mua_per_mm[0] == pytest.approx(0.005, rel=1e-4)
+    assert fit.musp_per_mm[0] == pytest.approx(0.5, rel=1e-4)
+    with pytest.warns(PhantomlabWarning, match="left out 2 points within 1 transport mean free paths"):
+        fit_srdr(m, model="kienle1997", min_transport_mfp=1.0)
 
 
 def test_diffusion_round_trip_over_a_band():
@@ -150,9 +250,11 @@ def test_diffusion_round_trip_over_a_band():
 
 
 def test_diffusion_warns_at_low_albedo(mc_cases):
+    # musp/mua = 10 Monte Carlo data: the fluence-plus-flux fit lands just below 10 (measured
+    # 9.4) and must say that diffusion is poor there.
     values, sd = _noisy(mc_cases["reflectance_per_mm2"][0], mc_cases["sd"][0], np.random.default_rng(1), 1)
-    with pytest.warns(PhantomlabWarning, match=r"musp/mua = .* \(below 10\)|use the Monte Carlo lookup"):
-        fit_srdr(_measurement(mc_cases["rho_mm"], values, sd))
+    with pytest.warns(PhantomlabWarning, match=r"musp/mua = .* \(below 10\)"):
+        fit_srdr(_measurement(mc_cases["rho_mm"], values, sd), model="kienle1997")
 
 
 def test_srdr_fit_needs_an_index():

@@ -1,7 +1,9 @@
 """Identifiability warnings fire where the data cannot tell μa from μs′, and not elsewhere.
 
-Data come from the diffusion forward model (Farrell et al. 1992, Med Phys 19:879) with 1 %
-noise; the thresholds are the module's rules of thumb (common practice, no source).
+Data come from the fluence-plus-flux diffusion model (Kienle & Patterson 1997, J Opt Soc Am A
+14:246; the model the fits are told to use at n = 1.4, where the flux-only dipole is flagged)
+with 1 % noise, fitted with the same model; the thresholds are the module's rules of thumb
+(common practice, no source).
 """
 
 import warnings
@@ -20,7 +22,8 @@ from phantomlab.calibration.identifiability import (
 def _srdr_text(rho, mua=0.01, musp=1.0, seed=0, relative=False):
     from phantomlab.transport.diffusion import srdr_reflectance
 
-    R = srdr_reflectance(mua_per_mm=np.array([mua]), musp_per_mm=np.array([musp]), rho_mm=np.asarray(rho), n=1.4)[0]
+    R = srdr_reflectance(mua_per_mm=np.array([mua]), musp_per_mm=np.array([musp]), rho_mm=np.asarray(rho), n=1.4,
+                         model="kienle1997")[0]
     rng = np.random.default_rng(seed)
     noisy = R * (1 + 0.01 * rng.standard_normal(R.size))
     column = "reflectance_relative" if relative else "reflectance_per_mm2"
@@ -32,7 +35,7 @@ def _srdr_text(rho, mua=0.01, musp=1.0, seed=0, relative=False):
 def _fit_warnings(text, **options):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        return fit_measurement_file(text, kind="srdr", n=1.4, **options).warnings
+        return fit_measurement_file(text, kind="srdr", n=1.4, model="kienle1997", **options).warnings
 
 
 def test_good_design_gives_no_warning():
@@ -74,9 +77,9 @@ def test_outcome_rules_directly():
 
 
 def test_diffusion_near_the_source_warns_only_when_those_points_must_stay():
-    # three distances, all within 1/mutr: nothing can be left out, so the fit warns
+    # three distances, all within 2/mutr: nothing can be left out, so the fit warns
     messages = _fit_warnings(_srdr_text([0.3, 0.5, 0.7], musp=1.0))
-    assert any("within 1 transport mean free path" in m for m in messages), messages
+    assert any("within 2 transport mean free path" in m for m in messages), messages
     # with distances beyond, the near ones are left out (and said so), no range warning
     messages = _fit_warnings(_srdr_text(np.concatenate([[0.3, 0.6], np.linspace(2, 12, 12)])))
     assert any("left out 2 points" in m for m in messages), messages
