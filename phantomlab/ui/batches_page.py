@@ -217,6 +217,17 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
                              "optics: μa and μs′ from another instrument")
     model = c2.selectbox("Fit model", FIT_MODELS[kind], key=f"batches.model.{kind}")
     c3.caption(f"Columns: `{KIND_HELP[kind]}`")
+    if workspace.is_demo and batch["actual_amounts"]:
+        from phantomlab.ui.demo import demo_measurement_csv
+
+        made = call_layer("Inventing a demo measurement", demo_measurement_csv, store, batch["code"])
+        if made.ok:
+            st.download_button(
+                "Demo only: download an invented probe measurement of this batch (srdr CSV, n = 1.33)",
+                data=made.value.encode("utf-8"), file_name=f"demo-measurement-{batch['code']}.csv",
+                mime="text/csv", key="batches.demo_measurement", on_click="ignore",
+                help="Synthetic R(ρ) of what was dispensed (invented true potencies, 2 % noise): attach it "
+                     "below to try the loop.")
     with st.form(f"batches.measure.{batch['code']}"):
         upload = st.file_uploader("Measurement file (CSV)", type=["csv"], key="batches.file")
         sidecar = st.file_uploader("Its metadata file (TOML, optional: n, thickness, instrument, reference)",

@@ -150,3 +150,30 @@ def ensure_demo_database(workspace: Workspace) -> Outcome:
                         "database (demo data, invented)…"):
             outcome = call_layer("Seeding the demo database", _seed_into_place, workspace, show=False)
     return outcome if not outcome.ok else Outcome(value=True)
+
+
+def demo_measurement_csv(store, code: str, *, seed: int = 7) -> str:
+    """An invented srdr file of a demo batch as mixed (demo only): for trying the loop on the page.
+
+    The optics are the recipe layer's prediction of the amounts recorded for the batch with
+    the invented "true" potencies, turned into R(ρ) by the diffusion model with 2 % noise,
+    exactly as the seeded demo measurements were made.
+    """
+    from phantomlab.errors import InputError
+    from phantomlab.recipe import predict  # layer 3
+    from phantomlab.store import get_batch, plan_of  # layer 4
+    from phantomlab.ui.recording import batch_recipe
+
+    recipe = batch_recipe(store, code)
+    with store.reading() as session:
+        batch = get_batch(session, code)
+        amounts = list(batch.actual_amounts or [])
+        volume_ml = float(plan_of(session, batch).plan["batch_volume_ml"])
+    if not amounts:
+        raise InputError(f"batch {code}: record the amounts dispensed first")
+    fractions = {row["stock"]: float(row["volume_ml"]) / volume_ml for row in amounts
+                 if row["stock"] in recipe.stock_keys}
+    truth = {k: (v, 0.0) for k, v in DEMO_TRUE_POTENCIES.items() if k in recipe.stock_keys}
+    made = predict(recipe, volume_fractions=fractions, potencies=truth or None)
+    return synthetic_srdr_csv(wavelength_nm=made.wavelength_nm, mua_per_mm=made.mua_per_mm,
+                              musp_per_mm=made.musp_per_mm, seed=seed, label=f"batch {code}, invented on the page")

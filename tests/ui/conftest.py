@@ -33,7 +33,13 @@ def seeded_demo_file(tmp_path_factory) -> Path:
         is_demo=True,
         demo_file=demo_file,
     )
-    seed_demo_database(workspace)
+    import warnings
+
+    from phantomlab.errors import PhantomlabWarning
+
+    with warnings.catch_warnings():  # the fits' own range warnings are stored with them
+        warnings.simplefilter("ignore", PhantomlabWarning)
+        seed_demo_database(workspace)
     return demo_file
 
 

@@ -201,3 +201,17 @@ def test_spread_across_batches_and_drift_with_age(page, go_to, downloads, demo_f
     expected = 100 * values.std(axis=0, ddof=1) / values.mean(axis=0)
     assert spread["μs′ CV [%]"].to_numpy() == pytest.approx(expected, rel=1e-9)
     assert set(spread["batches"]) == {2}
+
+
+def test_the_demo_offers_an_invented_measurement_that_attaches_and_fits(page, go_to, planned, downloads):
+    code, plan = planned
+    app = go_to(page, "Batch log")
+    _edit_amounts(app, code, [d.volume_ml for d in plan.doses if d.used])
+    name, content = downloads.content(app, "Demo only: download an invented probe measurement")
+    assert content.decode().startswith("# source: demo data, invented")
+    app.selectbox(key="batches.kind").set_value("srdr").run()
+    app.file_uploader(key="batches.file").set_value((name, content, "text/csv"))
+    [b for b in app.get("button") if b.proto.label == "Fit and attach"][0].click()
+    app.run()
+    assert not app.exception
+    assert any("attached" in s.value and "diffusion-farrell1992" in s.value for s in app.success)

@@ -35,6 +35,7 @@ def test_carries_the_caution_for_lasers_and_bright_sources(refit, shown_text):
     assert "not a certified reference standard" in text
 
 
+@pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")  # the direct fit below
 def test_fit_of_a_stored_measurement_shows_data_model_residuals_and_target(refit, demo_file):
     import tomllib
 
