@@ -30,8 +30,8 @@ from phantomlab.recipe.solver import BindingLimit, solve_fractions
 from phantomlab.recipe.targets import Target
 from phantomlab.recipe.uncertainty import dose_relative_sd, propagate_sd
 
-__all__ = ["Dose", "MatrixAmounts", "Plan", "Prediction", "intrinsic_table", "plan_for_fractions",
-           "predict", "solve", "resolve_potencies"]
+__all__ = ["Dose", "MatrixAmounts", "Plan", "Prediction", "intrinsic_table", "is_dry_powder",
+           "plan_for_fractions", "predict", "solve", "resolve_potencies"]
 
 #: Doses below this volume fraction count as "not used".
 _UNUSED = 1e-12
@@ -328,7 +328,7 @@ def _diluent_name(recipe: Recipe) -> str:
     return f"{recipe.matrix_key} (matrix)"
 
 
-def _is_dry_powder(stock) -> bool:
+def is_dry_powder(stock) -> bool:
     """A powder stock, or any stock that carries a powder hazard key: it is weighed, not pipetted."""
     return stock.kind == "powder" or bool({"powder", "nano_powder"} & set(stock.hazards))
 
@@ -354,7 +354,7 @@ def _doses(recipe, table, fractions, potencies, potency_sds, sources, volume_ml,
             doses.append(Dose(key, stock.kind, stock.lot, stock.expiry, 0.0, 0.0, 0.0, "", None,
                               0.0, 0.0, 0.0, float(potencies[i]), float(potency_sds[i]), sources[i]))
             continue
-        by = "balance" if (recipe.by_mass or _is_dry_powder(stock)) else "pipette"
+        by = "balance" if (recipe.by_mass or is_dry_powder(stock)) else "pipette"
         amount, unit = (m, "g") if by == "balance" else (v, "mL")
         minimum = limits.min_weigh_g if by == "balance" else limits.min_dispense_ml
         scale = matrix_density if unit == "g" else 1.0
@@ -480,6 +480,25 @@ def _miss_notes(target: Target, residuals: dict) -> list[str]:
     return notes
 
 
+def _spread_notes(target: Target, predicted: Prediction) -> list[str]:
+    """Say so when the predicted SD alone is wider than the target's tolerance."""
+    notes = []
+    for name, want, sd, tol in (("mua", target.mua_per_mm, predicted.mua_sd_per_mm, target.mua_tolerance),
+                                ("musp", target.musp_per_mm, predicted.musp_sd_per_mm, target.musp_tolerance)):
+        has = np.isfinite(want) & (want > 0)
+        if not np.any(has):
+            continue
+        relative = np.where(has, sd / np.where(has, want, 1.0), -1.0)
+        worst = int(np.argmax(relative))
+        if relative[worst] > tol * (1 + 1e-9):
+            notes.append(
+                f"{name}: predicted SD up to {100 * relative[worst]:.2g} % (at {target.wavelength_nm[worst]:g} nm) "
+                f"is wider than the ±{100 * tol:g} % tolerance: the stock potencies are not known well "
+                "enough to land within it first time; calibrate them (plan --series) or titrate and re-measure"
+            )
+    return notes
+
+
 def _curve_grid(target: Target) -> np.ndarray | None:
     lo, hi = float(target.wavelength_nm.min()), float(target.wavelength_nm.max())
     if hi - lo < 1.0:
@@ -571,7 +590,7 @@ def _assemble(recipe, *, potencies, table, curve, fractions, check_target=True) 
     messages = [b.message for b in binding]
     if binding:
         messages.append("closest feasible recipe given")
-    messages += (_miss_notes(target, residuals) if check_target else []) + notes
+    messages += (_miss_notes(target, residuals) + _spread_notes(target, predicted) if check_target else []) + notes
     today = _dt.date.today()
     for key in (recipe.matrix_key, *recipe.stock_keys):
         stock = recipe.stock(key)

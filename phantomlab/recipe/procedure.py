@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import math
 
+from phantomlab.recipe.plan import is_dry_powder
+
 __all__ = ["AmountLine", "amount_lines", "procedure_steps", "format_amount"]
 
 
@@ -87,9 +89,18 @@ def procedure_steps(plan) -> list[str]:
         "Mix each stock bottle before drawing from it (invert gently; re-suspend spheres and "
         "powders as their supplier says).",
     ]
-    if any(d.dilution for d in plan.doses):
-        steps.append("Make the pre-dilutions in the order of the pre-dilution table, in clean "
-                     "labelled vessels; mix each fully before drawing from it.")
+    diluted = [d for d in plan.doses if d.dilution]
+    if diluted:
+        steps.append("Make the pre-dilutions on the day of use, in the order of the pre-dilution "
+                     "table, in clean vessels labelled with name, stock lot, dilution and date; mix "
+                     "each fully before drawing from it.")
+        powders = [d.stock for d in diluted if is_dry_powder(recipe.stock(d.stock))]
+        if powders:
+            # common practice, no source: a thin smear shows undispersed grains the eye misses in bulk
+            steps.append(f"Weigh {', '.join(powders)} in a ventilated enclosure straight onto the "
+                         f"diluent ({plan.dose(powders[0]).dilution.diluent}); stir it in with a "
+                         "spatula, then mix until a thin smear between two glass slides shows no "
+                         "specks or streaks.")
     adds = []
     if absorbers:
         adds.append(f"Add the absorbers: {absorbers}.")
@@ -113,8 +124,11 @@ def procedure_steps(plan) -> list[str]:
             steps.append(f"Disperse it in about 80 % of the water ({0.8 * water.amount:.4g} mL).")
             steps.append(f"Heat to {prep['dissolve_temperature_c']:g} °C, stirring, until fully "
                          "dissolved.")
+        final = 100.0 * powder.amount / plan.batch_volume_ml
         steps.append(f"Make the gel up to {water.text} with warm water in a graduated vessel (line "
-                     f"{water.number}; write the volume in 'actual').")
+                     f"{water.number}; write the volume in 'actual'). The stocks bring it to "
+                     f"{format_amount(plan.batch_volume_ml, 'mL')}: {prep.kind} {final:.3g} % w/v in the "
+                     "phantom.")
         steps.append(f"Cool to {prep['add_temperature_c']:g} °C (thermometer in the gel); write "
                      "the temperature on the sheet.")
         steps += [a[:-1] + f" at {prep['add_temperature_c']:g} °C, stirring gently without "
@@ -136,10 +150,12 @@ def procedure_steps(plan) -> list[str]:
             ratio = f"{prep['hardener_parts_per_100_resin']:g} parts hardener per 100 resin by mass"
         steps.append(f"Add {part_b.text} of {part_b.label} (line {part_b.number}; {ratio}); mix "
                      f"{prep['mix_minutes']:g} min without whipping in air.")
-        pressure = (f" at {prep['degas_pressure_kpa']:g} kPa" if prep.given("degas_pressure_kpa")
+        pressure = (f" at {prep['degas_pressure_kpa']:g} kPa absolute" if prep.given("degas_pressure_kpa")
                     else " under vacuum")
         steps.append(f"Degas for {prep['degas_minutes']:g} min{pressure} until bubbles stop rising.")
-        cure = f"Pour into the mould; cure {prep['cure_time_h']:g} h at {prep['cure_temperature_c']:g} °C"
+        material = "silicone" if prep.kind == "silicone" else "resin"
+        cure = (f"Pour into the mould within the working time on the {material}'s data sheet; cure "
+                f"{prep['cure_time_h']:g} h at {prep['cure_temperature_c']:g} °C")
         if prep.kind == "resin" and prep.given("post_cure_time_h"):
             cure += (f", then post-cure {prep['post_cure_time_h']:g} h at "
                      f"{prep['post_cure_temperature_c']:g} °C")
@@ -148,6 +164,8 @@ def procedure_steps(plan) -> list[str]:
         steps.append(cure + ".")
     steps.append("Label the phantom with the batch ID and date; write what you actually measured "
                  "in the 'actual' fields.")
+    steps.append(f"Characterise it at {prep.temperature_c:g} °C, the temperature the optics are "
+                 "predicted for; let it reach that temperature first.")
     return steps
 
 

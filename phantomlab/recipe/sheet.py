@@ -25,13 +25,22 @@ from phantomlab.recipe.plan import dispense_tolerance
 from phantomlab.recipe.procedure import amount_lines, format_amount, procedure_steps
 from phantomlab.recipe.svgplot import spectra_svg
 
-__all__ = ["render_sheet_html", "render_sheet_csv", "render_series_html", "sheet_json", "DRAFT_MARK", "G_NOTE"]
+__all__ = ["render_sheet_html", "render_sheet_csv", "render_series_html", "sheet_json", "dilution_text", "DRAFT_MARK",
+           "DILUTION_NOTE", "G_NOTE"]
 
 DRAFT_MARK = "DRAFT — not a logged batch"
 G_NOTE = "g comes from the scattering model (Mie / emulsion model), not from a measurement."
 TOLERANCE_NOTE = ("Tolerances are twice the lab's dispensing error (pipette relative error; "
                   "balance: at least its resolution).")
+DILUTION_NOTE = ("\"1 in 10\" = 1 part of the source in 10 parts of the finished dilution. ± values: "
+                 "as for the amounts below. Use each pre-dilution the day it is made.")
 _MAX_TABLE_WAVELENGTHS = 8
+SVG_HEIGHT_PX = 124
+
+
+def dilution_text(factor: float) -> str:
+    """A step's dilution as a technician reads it: ``"1 in 10"`` for a source fraction of 0.1."""
+    return f"1 in {1.0 / factor:.4g}"
 
 
 def _when(date) -> str:
@@ -100,7 +109,8 @@ h2 { font-size: 9pt; margin: 1.8mm 0 0.8mm 0; border-bottom: 0.5pt solid #888; }
 table { border-collapse: collapse; width: 100%; }
 th, td { border: 0.4pt solid #999; padding: 0.35mm 1.2mm; text-align: left; vertical-align: top; }
 th { background: #eee; }
-td.num { text-align: right; white-space: nowrap; }
+td.num, td.key { text-align: right; white-space: nowrap; }
+td.key { text-align: left; }
 td.actual { width: 28mm; }
 ol, ul { margin: 0; padding-left: 5mm; }
 li { margin: 0.15mm 0; }
@@ -158,9 +168,11 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
                    'this sheet gives the closest feasible recipe.</div>')
 
     # stocks
-    out.append("<h2>Stocks</h2><table><tr><th>stock</th><th>kind</th><th>lot</th><th>expiry</th>"
-               "<th>potency (± SD)</th><th>hazards</th></tr>")
+    described = any(stock.name for stock in _used_stocks(plan))
+    out.append("<h2>Stocks</h2><table><tr><th>stock</th>" + ("<th>what it is</th>" if described else "")
+               + "<th>kind</th><th>lot</th><th>expiry</th><th>potency (± SD)</th><th>hazards</th></tr>")
     for stock in _used_stocks(plan):
+        name = f"<td class='small'>{e(stock.name or '—')}</td>" if described else ""
         dose = next((d for d in plan.doses if d.stock == stock.key), None)
         potency = (f"{dose.potency:.3g} ± {dose.potency_sd:.2g} ({dose.potency_source})" if dose else "—")
         expiry = stock.expiry.isoformat() if stock.expiry else "none given"
@@ -168,7 +180,7 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
             expiry = f"<strong>EXPIRED {e(expiry)}</strong>"
         else:
             expiry = e(expiry)
-        out.append(f"<tr><td>{e(stock.key)}</td><td>{e(stock.kind)}</td><td>{e(stock.lot or '—')}</td>"
+        out.append(f"<tr><td class='key'>{e(stock.key)}</td>{name}<td>{e(stock.kind)}</td><td>{e(stock.lot or '—')}</td>"
                    f"<td>{expiry}</td><td>{e(potency)}</td><td>{e(', '.join(stock.hazards) or '—')}</td></tr>")
     out.append("</table>")
 
@@ -186,11 +198,11 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
 
             for step in dose.dilution.steps:
                 out.append(
-                    f"<tr><td>{e(step.label)}</td><td class='num'>{e(with_tol(step.source_amount))}</td>"
-                    f"<td>{e(step.source)}</td><td class='num'>{e(with_tol(step.diluent_amount))} "
+                    f"<tr><td class='key'>{e(step.label)}</td><td class='num'>{e(with_tol(step.source_amount))}</td>"
+                    f"<td class='key'>{e(step.source)}</td><td class='num'>{e(with_tol(step.diluent_amount))} "
                     f"{e(dose.dilution.diluent)}</td><td class='num'>{e(format_amount(step.total_amount, unit))} "
-                    f"(1:{1 / step.factor:.4g})</td><td class='actual'></td><td class='actual'></td></tr>")
-        out.append("</table>")
+                    f"({e(dilution_text(step.factor))})</td><td class='actual'></td><td class='actual'></td></tr>")
+        out.append(f"</table><div class='small'>{e(DILUTION_NOTE)}</div>")
 
     # amounts
     out.append("<h2>Amounts into the batch</h2><table><tr><th>line</th><th>what</th><th>from</th>"
@@ -211,9 +223,11 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
     # predicted
     rows = _table_rows(plan)
     target, pred = plan.target, plan.predicted
+    g_tol = (f" ±{target.g_tolerance:g}" if np.any(np.isfinite(target.g)) else "")
     out.append("<h2>Predicted optics at the target wavelengths</h2><table><tr><th>λ [nm]</th>"
-               "<th>target μa [1/mm]</th><th>predicted μa ± SD</th><th>target μs′ [1/mm]</th>"
-               "<th>predicted μs′ ± SD</th><th>target g</th><th>model g</th></tr>")
+               f"<th>target μa [1/mm] ±{100 * target.mua_tolerance:g} %</th><th>predicted μa ± SD [1/mm]</th>"
+               f"<th>target μs′ [1/mm] ±{100 * target.musp_tolerance:g} %</th><th>predicted μs′ ± SD [1/mm]</th>"
+               f"<th>target g{e(g_tol)}</th><th>model g</th></tr>")
     for i in rows:
         out.append(
             f"<tr><td class='num'>{target.wavelength_nm[i]:g}</td><td class='num'>{_fmt(target.mua_per_mm[i])}</td>"
@@ -227,7 +241,7 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
     out.append(f"<div class='small'>{e(G_NOTE)} SDs propagate the stocks' potency SDs and the "
                f"dispensing errors.{e(shown)} Plot: line = predicted, grey band = ±1 SD, "
                "circles (or dashed line) = target.</div>")
-    out.append(spectra_svg(plan, height=150))
+    out.append(spectra_svg(plan, height=SVG_HEIGHT_PX))
 
     # warnings and cautions
     others = [w for w in plan.warnings if w not in {b.message for b in plan.binding_limits}]
@@ -274,10 +288,11 @@ def render_sheet_csv(plan, *, batch_id: str | None = None, draft: bool = True, d
             continue
         unit = dose.dilution.unit
         for step in dose.dilution.steps:
-            writer.writerow(["predilution", f"{step.label}: take", f"{step.source_amount:.6g}", unit, "", "",
-                             f"of {step.source}"])
-            writer.writerow(["predilution", f"{step.label}: add diluent", f"{step.diluent_amount:.6g}", unit,
-                             "", "", dose.dilution.diluent])
+            for item, amount, note in ((f"{step.label}: take", step.source_amount,
+                                        f"of {step.source}; {dilution_text(step.factor)}"),
+                                       (f"{step.label}: add diluent", step.diluent_amount, dose.dilution.diluent)):
+                tolerance = dispense_tolerance(amount, dose.by, recipe.limits)
+                writer.writerow(["predilution", item, f"{amount:.6g}", unit, f"{tolerance:.3g}", "", note])
     for line in amount_lines(plan):
         writer.writerow(["amount", f"{line.number} {line.label}", f"{line.amount:.6g}", line.unit,
                          f"{line.tolerance:.3g}", "", f"{line.how} from {line.source}"])

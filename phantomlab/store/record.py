@@ -67,7 +67,10 @@ def _newest_fit(session: Session, batch: Batch):
     return best
 
 
-def _checks(target: dict[str, Any], fit: dict[str, Any] | None) -> list[dict[str, Any]]:
+def _checks(target: dict[str, Any], fit: dict[str, Any] | None,
+            predicted: dict[str, Any] | None = None) -> list[dict[str, Any]]:
+    """One row per targeted value: target, measured ± SD, deviation, pass; with ``predicted``
+    (the optics predicted from the amounts really dispensed, on the target grid) also that."""
     grid = _values(target.get("wavelength_nm"))
     rows = []
     tolerances = {"mua": target.get("mua_tolerance_percent"), "musp": target.get("musp_tolerance_percent")}
@@ -77,18 +80,23 @@ def _checks(target: dict[str, Any], fit: dict[str, Any] | None) -> list[dict[str
             continue
         have = _on_grid(fit, f"{name}_per_mm", grid) if fit else np.full(grid.shape, np.nan)
         sd = _on_grid(fit, f"{name}_sd_per_mm", grid) if fit else np.full(grid.shape, np.nan)
+        expected = _on_grid(predicted, f"{name}_per_mm", grid) if predicted else np.full(grid.shape, np.nan)
+        expected_sd = (_on_grid(predicted, f"{name}_sd_per_mm", grid) if predicted
+                       else np.full(grid.shape, np.nan))
         tol = tolerances[name]
-        for w, a, b, s in zip(grid, want, have, sd):
+        for w, a, b, s, p, q in zip(grid, want, have, sd, expected, expected_sd):
             if not np.isfinite(a):
                 continue
             deviation = b / a - 1.0 if np.isfinite(b) and a > 0 else None
-            passed = None if deviation is None or tol is None else abs(deviation) <= tol / 100.0 * (1 + 1e-9)
+            passed = None if deviation is None or tol is None else bool(abs(deviation) <= tol / 100.0 * (1 + 1e-9))
             rows.append({
                 "quantity": name, "wavelength_nm": float(w), "target_per_mm": float(a),
                 "measured_per_mm": float(b) if np.isfinite(b) else None,
                 "measured_sd_per_mm": float(s) if np.isfinite(s) else None,
                 "deviation_percent": None if deviation is None else 100.0 * deviation,
                 "tolerance_percent": tol, "pass": passed,
+                "predicted_from_actual_per_mm": float(p) if np.isfinite(p) else None,
+                "predicted_from_actual_sd_per_mm": float(q) if np.isfinite(q) else None,
             })
     return rows
 
@@ -201,7 +209,7 @@ def batch_record(session: Session, code: str) -> dict[str, Any]:
                                    if actual_ml is not None and planned_ml else None),
         })
     measurement, fit = _newest_fit(session, batch)
-    checks = _checks(target, fit.results if fit else None)
+    checks = _checks(target, fit.results if fit else None, batch.actual_prediction)
     verdicts = [c["pass"] for c in checks if c["pass"] is not None]
     grid = _values(target.get("wavelength_nm"))
     return {
@@ -252,33 +260,53 @@ def _cell(value: Any, digits: int = 4) -> str:
     return html.escape(str(value))
 
 
-def _table(header: list[str], rows: list[list[Any]], *, classes: list[str] | None = None) -> str:
+def _table(header: list[str], rows: list[list[Any]], *, classes: list[str] | None = None,
+           css: str | None = None) -> str:
     head = "".join(f"<th>{html.escape(h)}</th>" for h in header)
     body = []
     for i, row in enumerate(rows):
-        css = f' class="{classes[i]}"' if classes and classes[i] else ""
-        body.append(f"<tr{css}>" + "".join(f"<td>{_cell(v)}</td>" for v in row) + "</tr>")
-    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+        row_class = f' class="{classes[i]}"' if classes and classes[i] else ""
+        body.append(f"<tr{row_class}>" + "".join(f"<td>{_cell(v)}</td>" for v in row) + "</tr>")
+    table = f"<table class='{css}'>" if css else "<table>"
+    return f"{table}<thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
 
 
 _STYLE = """
-body { font-family: sans-serif; margin: 2em; color: #222; }
-h1 { font-size: 1.5em; } h2 { font-size: 1.15em; margin-top: 1.6em; border-bottom: 1px solid #999; }
-table { border-collapse: collapse; margin: 0.5em 0; } td, th { border: 1px solid #bbb; padding: 0.2em 0.6em; }
-th { background: #eee; } tr.fail td { background: #f6d5d5; } tr.pass td { background: #dcefdc; }
-.verdict { font-size: 1.2em; font-weight: bold; } .caution { border: 2px solid #a33; padding: 0.6em; }
-@media print { body { margin: 1cm; } }
+@page { size: A4; margin: 12mm 12mm; }
+body { font-family: sans-serif; font-size: 9pt; margin: 0; color: #222; }
+h1 { font-size: 14pt; margin: 0 0 2mm 0; }
+h2 { font-size: 10.5pt; margin: 4mm 0 1mm 0; border-bottom: 1px solid #999; break-after: avoid; }
+table { border-collapse: collapse; margin: 1mm 0; width: 100%; }
+td, th { border: 1px solid #bbb; padding: 0.4mm 1.5mm; text-align: left; vertical-align: top; }
+th { background: #eee; } tr { break-inside: avoid; }
+table.wide td, table.wide th { font-size: 7.5pt; padding: 0.3mm 0.8mm; }
+tr.fail td { background: #f6d5d5; } tr.pass td { background: #dcefdc; }
+.verdict { font-size: 11pt; font-weight: bold; } .caution { border: 2px solid #a33; padding: 1.5mm; }
+.small { font-size: 7.5pt; }
+table.sign td { height: 8mm; width: 30%; } table.sign th { width: 20%; }
+table.nowrap td { white-space: nowrap; }
+@media screen { body { margin: 2em; max-width: 190mm; } }
 """
+
+#: At most this many wavelengths in a table; failing rows are always shown (the JSON holds all).
+MAX_TABLE_WAVELENGTHS = 8
+
+
+def _shown(count: int) -> set[int]:
+    """Indices of at most :data:`MAX_TABLE_WAVELENGTHS` evenly spread wavelengths."""
+    if count <= MAX_TABLE_WAVELENGTHS:
+        return set(range(count))
+    return set(np.unique(np.round(np.linspace(0, count - 1, MAX_TABLE_WAVELENGTHS)).astype(int)).tolist())
 
 
 def render_batch_record_html(record: dict[str, Any]) -> str:
-    """The batch record as one self-contained, printable HTML page."""
+    """The batch record as one self-contained, printable HTML page (A4)."""
     r = record
     verdict = {True: "PASS: every targeted value within tolerance",
                False: "FAIL: at least one targeted value outside tolerance",
                None: "not decided: no fitted measurement yet"}[r["pass"]]
     parts = [
-        "<!DOCTYPE html><html><head><meta charset='utf-8'>",
+        "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
         f"<title>Batch record {html.escape(r['batch_id'])}</title><style>{_STYLE}</style></head><body>",
         f"<h1>Batch record {html.escape(r['batch_id'])}"
         f"{' — RETRACTED' if r['retracted'] else ''}</h1>",
@@ -316,9 +344,16 @@ def render_batch_record_html(record: dict[str, Any]) -> str:
         _table(["stock", "planned [mL]", "planned [g]", "actual [mL]", "actual [g]", "difference [%]"],
                [[a["stock"], a["planned_volume_ml"], a["planned_mass_g"], a["actual_volume_ml"],
                  a["actual_mass_g"], _percent(a["difference_percent"])] for a in r["amounts"]]),
+        "<p class='small'>Undiluted stock that ended in the batch (a pre-diluted dose counts its "
+        "stock only); the difference is of the actual from the planned volume; a dash in the "
+        "actual columns: not recorded with <code>batch actual</code>.</p>",
     ]
     for alarm in r["alarms"]:
         parts.append(f"<p class='caution'>{html.escape(alarm)}</p>")
+    if r["plan_warnings"]:
+        parts.append("<h2>Notes from the planner (when the batch was planned)</h2><ul class='small'>")
+        parts += [f"<li>{html.escape(str(w))}</li>" for w in r["plan_warnings"]]
+        parts.append("</ul>")
     parts.append("<h2>Measured against target optics</h2>")
     m = r["measurement"]
     if m:
@@ -327,36 +362,60 @@ def render_batch_record_html(record: dict[str, Any]) -> str:
                      f"{_cell(m['phantom_age_days'])} days; fit {m['fit_id']} with {_cell(m['model'])}, "
                      f"reduced χ² {_cell(m['chi2_red'], 3)}.</p>")
         for warning in m["fit_warnings"] or []:
-            parts.append(f"<p>fit warning: {html.escape(str(warning))}</p>")
+            parts.append(f"<p class='small'>fit warning: {html.escape(str(warning))}</p>")
+    checks = r["checks"]
+    grid = sorted({c["wavelength_nm"] for c in checks})
+    keep = {grid[i] for i in _shown(len(grid))}
+    rows = [c for c in checks if c["wavelength_nm"] in keep or c["pass"] is False]
     parts.append(_table(
-        ["quantity", "λ [nm]", "target [1/mm]", "measured [1/mm]", "SD [1/mm]", "deviation [%]",
-         "tolerance [±%]", "result"],
+        ["quantity", "λ [nm]", "target [1/mm]", "predicted from actual amounts ± SD [1/mm]",
+         "measured [1/mm]", "SD [1/mm]", "deviation [%]", "tolerance [±%]", "result"],
         [[c["quantity"].replace("musp", "μs′").replace("mua", "μa"), c["wavelength_nm"], c["target_per_mm"],
-          c["measured_per_mm"], c["measured_sd_per_mm"], _percent(c["deviation_percent"]), c["tolerance_percent"],
-          {True: "pass", False: "FAIL", None: "–"}[c["pass"]]] for c in r["checks"]],
-        classes=[{True: "pass", False: "fail", None: ""}[c["pass"]] for c in r["checks"]],
+          _with_sd(c.get("predicted_from_actual_per_mm"), c.get("predicted_from_actual_sd_per_mm")),
+          c["measured_per_mm"], c["measured_sd_per_mm"], _percent(c["deviation_percent"]),
+          c["tolerance_percent"], {True: "pass", False: "FAIL", None: "–"}[c["pass"]]] for c in rows],
+        classes=[{True: "pass", False: "fail", None: ""}[c["pass"]] for c in rows], css="nowrap",
     ))
+    parts.append("<p class='small'>Deviation: measured against target. The verdict compares the fitted "
+                 "values with the recipe's tolerance and does not widen it by their SD."
+                 + (f" {len(keep)} of {len(grid)} wavelengths shown (every failing one included); the "
+                    "JSON of <code>batch record --json</code> holds all." if len(keep) < len(grid) else "")
+                 + "</p>")
     s = r["series"]
-    parts.append(f"<h2>All batches of this recipe ({s['batches']} batches with fits, {s['fits']} fits)</h2>")
-    rows = []
-    for i, w in enumerate(s["wavelength_nm"]):
-        rows.append([w, _cv(s["mua_cv_percent"][i]), _cv(s["musp_cv_percent"][i]),
-                     _drift(s, "mua", i), _drift(s, "musp", i)])
+    batches = f"{s['batches']} batch{'es' if s['batches'] != 1 else ''} with fits"
+    fits = f"{s['fits']} fit{'s' if s['fits'] != 1 else ''}"
+    parts.append(f"<h2>All batches of this recipe ({batches}, {fits})</h2>")
+    shown = sorted(_shown(len(s["wavelength_nm"])))
+    rows = [[s["wavelength_nm"][i], _cv(s["mua_cv_percent"][i]), _cv(s["musp_cv_percent"][i]),
+             _drift(s, "mua", i), _drift(s, "musp", i)] for i in shown]
     parts.append(_table(["λ [nm]", "μa CV [%]", "μs′ CV [%]", "μa drift [%/30 d] ± SE",
                          "μs′ drift [%/30 d] ± SE"], rows))
-    parts.append(_table(["batch", "fit", "age [days]", "newest"] + [f"μa {w:g} nm" for w in s["wavelength_nm"]]
-                        + [f"μs′ {w:g} nm" for w in s["wavelength_nm"]],
-                        [[p["batch_id"], p["fit_id"], p["phantom_age_days"], p["newest"], *p["mua_per_mm"],
-                          *p["musp_per_mm"]] for p in s["points"]]))
+    parts.append("<p class='small'>CV: sample SD / mean of each batch's newest fit (needs 2 batches); "
+                 "drift: least-squares slope against phantom age over every fit (needs 3 aged fits).</p>")
+    waves = [s["wavelength_nm"][i] for i in shown]
+    parts.append(_table(["batch", "fit", "age [days]", "newest"] + [f"μa {w:g} nm" for w in waves]
+                        + [f"μs′ {w:g} nm" for w in waves],
+                        [[p["batch_id"], p["fit_id"], p["phantom_age_days"], p["newest"],
+                          *[p["mua_per_mm"][i] for i in shown], *[p["musp_per_mm"][i] for i in shown]]
+                         for p in s["points"]], css="wide nowrap"))
     parts += [
         "<h2>History of this record</h2>",
         _table(["version", "recorded", "by", "status", "retracted", "change"],
                [[h["version"], h["recorded_at"], h["recorded_by"], h["status"], h["retracted"],
                  h["change_note"] or "recorded"] for h in r["history"]]),
+        "<h2>Review</h2>",
+        "<table class='sign'><tr><th>reviewed by</th><td></td><th>date</th><td></td></tr>"
+        "<tr><th>decision (release / remake / retire)</th><td></td><th>signature</th><td></td></tr></table>",
         f"<p class='caution'>{html.escape(r['not_a_standard'])}</p>",
         "</body></html>",
     ]
     return "\n".join(parts)
+
+
+def _with_sd(value: float | None, sd: float | None) -> str | None:
+    if value is None:
+        return None
+    return f"{value:.4g}" + (f" ± {sd:.2g}" if sd is not None else "")
 
 
 def _cv(value: float | None) -> str | None:
@@ -364,7 +423,9 @@ def _cv(value: float | None) -> str | None:
 
 
 def _percent(value: float | None) -> str | None:
-    return None if value is None or not math.isfinite(value) else f"{value:+.1f}"
+    if value is None or not math.isfinite(value):
+        return None
+    return "0.0" if round(value, 1) == 0 else f"{value:+.1f}"
 
 
 def _drift(series: dict[str, Any], name: str, i: int) -> str | None:

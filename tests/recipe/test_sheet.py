@@ -15,7 +15,8 @@ from phantomlab.materials import HAZARD_KEYS
 from phantomlab.recipe import load_recipe, solve
 from phantomlab.recipe.cautions import CLOSING_LINE, cautions_for
 from phantomlab.recipe.procedure import amount_lines, format_amount
-from phantomlab.recipe.sheet import DRAFT_MARK, G_NOTE, render_sheet_csv, render_sheet_html, sheet_json
+from phantomlab.recipe.sheet import (DILUTION_NOTE, DRAFT_MARK, G_NOTE, dilution_text, render_sheet_csv,
+                                     render_sheet_html, sheet_json)
 
 from recipe_synthetic import forward_target, synthetic_recipe, synthetic_table
 
@@ -112,6 +113,31 @@ def test_preparation_steps_on_sheets():
     assert "Degas for 15 min at 5 kPa" in text and "cure 4 h at 60 °C" in text
     base, agent = silicone.matrix.parts
     assert format_amount(base[1], "g") in text and format_amount(agent[1], "g") in text
+
+
+def test_sheet_answers_the_technicians_questions():
+    liquid = solve(load_recipe(RECIPES / "demo-nir-liquid.toml"))
+    text = _parse(render_sheet_html(liquid))
+    assert "1 mL (1 in 10)" in text and DILUTION_NOTE in text  # no bare "1:10"
+    assert "target μa [1/mm] ±5 %" in text and "target μs′ [1/mm] ±3 %" in text
+    assert "predicted μa ± SD [1/mm]" in text
+    assert "Characterise it at 22 °C" in text and "on the day of use" in text
+    # the ink's potency SD (0.15) alone is wider than the 5 % tolerance: the sheet says so
+    assert any(w.startswith("mua: predicted SD up to 14 % (at 660 nm) is wider than the ±5 % tolerance")
+               for w in liquid.warnings)
+    silicone = solve(load_recipe(RECIPES / "demo-silicone.toml"))
+    text = _parse(render_sheet_html(silicone))
+    assert "5 kPa absolute" in text and "working time on the silicone's data sheet" in text
+    assert "Weigh carbon_black in a ventilated enclosure straight onto the diluent (silicone base (part A))" in text
+    assert "10 g (1 in 100)" in text and "carbon-black pigment powder (demo)" in text
+    gel = solve(load_recipe(RECIPES / "demo-gel-g.toml"))
+    powder = gel.matrix.parts[0][1]
+    # 17.13 g of gelatin in the 200 mL batch: the stocks dilute the 10 % gel
+    assert f"gelatin {100 * powder / 200:.3g} % w/v in the phantom" in _parse(render_sheet_html(gel))
+
+
+def test_dilution_text():
+    assert dilution_text(0.1) == "1 in 10" and dilution_text(0.5) == "1 in 2" and dilution_text(0.2) == "1 in 5"
 
 
 def test_batch_sheet_has_id_not_draft_mark():

@@ -1,4 +1,5 @@
-"""The pure helpers of the batch log: amounts files, tolerance alarms, series statistics."""
+"""The pure helpers of the batch log: amounts files, tolerance alarms, series statistics, the
+printable batch record."""
 
 from __future__ import annotations
 
@@ -9,7 +10,7 @@ import pytest
 
 from phantomlab.commands.batch import parse_amounts_csv, tolerance_alarms
 from phantomlab.errors import InputError
-from phantomlab.store.record import series_statistics
+from phantomlab.store.record import MAX_TABLE_WAVELENGTHS, _checks, render_batch_record_html, series_statistics
 
 
 def test_amounts_in_ml_g_and_from_a_pre_dilution():
@@ -103,3 +104,62 @@ def test_series_skips_nan_values_and_unknown_ages():
     stats = series_statistics(points, grid=np.array([650.0]))
     assert stats["mua_cv_percent"][0] == pytest.approx(100 * np.std([0.010, 0.012], ddof=1) / 0.011)
     assert stats["mua_drift_percent_per_30_days"] == [None]  # only one aged finite point
+
+
+# ---- the printable record ------------------------------------------------------------------
+
+GRID = [600.0 + 20.0 * i for i in range(12)]
+TWELVE = {"wavelength_nm": GRID, "mua_per_mm": [0.01] * 12, "musp_per_mm": [1.0] * 12,
+          "mua_tolerance_percent": 5, "musp_tolerance_percent": 3}
+
+
+def _fit(mua):
+    return {"wavelength_nm": GRID, "mua_per_mm": mua, "musp_per_mm": [1.0] * 12,
+            "mua_sd_per_mm": [1e-4] * 12, "musp_sd_per_mm": [0.01] * 12}
+
+
+def test_checks_carry_the_prediction_from_the_actual_amounts():
+    predicted = {"wavelength_nm": GRID, "mua_per_mm": [0.0102] * 12, "mua_sd_per_mm": [0.001] * 12,
+                 "musp_per_mm": [0.99] * 12, "musp_sd_per_mm": [0.03] * 12}
+    rows = _checks(TWELVE, _fit([0.0104] * 12), predicted)
+    assert len(rows) == 24
+    first = rows[0]
+    assert first["quantity"] == "mua" and first["deviation_percent"] == pytest.approx(4.0)  # 0.0104 / 0.01 - 1
+    assert first["pass"] is True  # within the 5 % tolerance
+    assert first["predicted_from_actual_per_mm"] == 0.0102 and first["predicted_from_actual_sd_per_mm"] == 0.001
+    assert _checks(TWELVE, _fit([0.0104] * 12))[0]["predicted_from_actual_per_mm"] is None
+
+
+def _record(checks, *, batches=1, fits=1):
+    series = series_statistics([], grid=np.array(GRID))
+    series.update(batches=batches, fits=fits, points=[])
+    return {
+        "batch_id": "2026-042", "retracted": False, "pass": all(c["pass"] for c in checks),
+        "recipe": {"name": "demo: record test", "version": "1", "content_hash": "ab" * 32},
+        "status": "characterised", "operator": None, "planned_on": None, "mixed_on": None,
+        "cure_details": None, "notes": None, "software_version_at_planning": "0", "software_version_now": "0",
+        "printed_on": None, "lots": [], "potencies_used": {}, "calibration": None,
+        "amounts": [{"stock": "ink", "planned_volume_ml": 0.1, "planned_mass_g": 0.1, "actual_volume_ml": 0.1,
+                     "actual_mass_g": 0.1, "difference_percent": -0.0001}],
+        "alarms": [], "plan_warnings": ["demo planner note"], "measurement": None, "checks": checks,
+        "series": series, "history": [], "not_a_standard": "not a certified reference standard",
+    }
+
+
+def test_record_prints_on_a4_caps_the_wavelengths_but_keeps_every_failure():
+    mua = [0.0104] * 12
+    mua[4] = 0.0110  # +10 % at 680 nm: outside the 5 % tolerance, and not among the evenly spread rows
+    checks = _checks(TWELVE, _fit(mua))
+    html = render_batch_record_html(_record(checks))
+    assert "@page { size: A4" in html
+    assert html.count("<td>μa</td>") == MAX_TABLE_WAVELENGTHS + 1  # 8 spread rows plus the failing one
+    assert "<td>680</td>" in html and "FAIL" in html
+    assert "8 of 12 wavelengths shown (every failing one included)" in html
+    assert "demo planner note" in html and "reviewed by" in html and "signature" in html
+    assert "(1 batch with fits, 1 fit)" in html
+    assert "<td>0.0</td>" in html and "-0.0" not in html  # a zero difference has no sign
+
+
+def test_record_plural_counts():
+    html = render_batch_record_html(_record(_checks(TWELVE, _fit([0.01] * 12)), batches=3, fits=4))
+    assert "(3 batches with fits, 4 fits)" in html
