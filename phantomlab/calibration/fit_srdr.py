@@ -17,12 +17,12 @@ conventions"); both forward models follow that convention.
 
 What the diffusion models can do on Monte Carlo data (n = 1.4 in air, μs′ = 1 /mm, g = 0.8,
 ρ from 2 to 8 mm, 1 % noise; ``tests/calibration/test_fit_srdr.py``): ``kienle1997`` is
-0.8–5.7 % above Monte Carlo there, which gives μs′ within 2 % but μa +2 to +5 % at
-μs′/μa = 30, ≈ +9 % at 100, ≈ +25 % at 300 and ≈ +75 % at 1000 (at high albedo μa rests on
-the absolute level, which a few per cent of model error moves a lot).  ``farrell1992``
-(flux only) is 8–21 % *below* Monte Carlo at 3–8 transport lengths at n = 1.4 and biases
-μs′ by +40 to +90 % and μa by −35 to −100 %: the fit warns when it is used at a mismatched
-boundary.
+0.8–5.7 % above Monte Carlo there, which gives μs′ within 4 % but μa +3 % at μs′/μa = 30,
++8 to +11 % at 100, +21 to +28 % at 300 and +65 to +87 % at 1000 (at high albedo μa rests
+on the absolute level, which a few per cent of model error moves a lot; the fit warns from
+μs′/μa = 200).  ``farrell1992`` (flux only) is 8–21 % *below* Monte Carlo at 3–8 transport
+lengths at n = 1.4 and biases μs′ by +20 to +80 % and μa by −30 to −100 %: the fit warns
+when it is used at a mismatched boundary.
 """
 
 from __future__ import annotations

@@ -118,9 +118,9 @@ def test_diffusion_fluence_plus_flux_beyond_two_transport_lengths(fixture_cases)
 def test_diffusion_models_carry_the_entry_loss_like_the_monte_carlo(fixture_cases):
     # The same convention on both sides: dividing the diffusion model by the Fresnel
     # transmission 1 - R_sp (what it used to report) moves it 2.9 % further from the Monte
-    # Carlo at every distance from 2 to 15 mm; the Monte Carlo's total diffuse reflectance
-    # lies within 7 % of the model's closed-form total (the near-source part, where
-    # diffusion is poor, is inside the total).
+    # Carlo at every distance from 2 to 15 mm.  The model's closed-form total diffuse
+    # reflectance (per incident power) is 1.5 % below the Monte Carlo's (measured; the
+    # near-source part, where diffusion is poor, is inside the total): held to 3 %.
     from phantomlab.transport.diffusion import total_diffuse_reflectance
 
     case = fixture_cases["cases"]["n1.4_in_air"]
@@ -136,7 +136,7 @@ def test_diffusion_models_carry_the_entry_loss_like_the_monte_carlo(fixture_case
     assert np.all(before > now)
     assert np.mean(now) < 0.035 < np.mean(before)
     total = total_diffuse_reflectance(mua_per_mm=0.01, musp_per_mm=1.0, n=1.4, model="kienle1997")
-    assert total == pytest.approx(case["diffuse_reflectance"], rel=0.07)
+    assert total == pytest.approx(case["diffuse_reflectance"], rel=0.03)
 
 
 def test_flux_only_dipole_is_low_at_a_mismatched_boundary(fixture_cases):
