@@ -40,6 +40,8 @@ KEEP = (
 )
 NEW_RECIPE = "(a new recipe)"
 SHAPES = ("Points", "Power law for μs′", "Spectrum file")
+#: Above this many target wavelengths, targets are drawn as a dashed line instead of circles.
+MARKED_POINTS = 40
 TABLE_UNITS = {"1/mm": 1.0, "1/cm": 0.1}
 POINT_COLUMNS = ("wavelength [nm]", "μa", "μs′")
 #: Target fields the page has no field for; kept from the starting recipe as they are.
@@ -131,6 +133,7 @@ def _apply_start(workspace: Workspace, shelf, choice: str) -> None:
         }
     else:
         definition = _read_recipe_definition(workspace.recipes_folder / choice)
+    st.session_state.pop("design.points_current", None)  # the old recipe's table must not come back
     for key, value in _defaults_from(definition, shelf).items():
         st.session_state[key] = value
     st.session_state["design.started_from"] = choice
@@ -447,11 +450,15 @@ def _spectrum_plots(plan) -> None:
         series = [
             Series(f"predicted {symbol}", dense.wavelength_nm, getattr(dense, f"{quantity}_per_mm"),
                    sd=getattr(dense, f"{quantity}_sd_per_mm")),
-            Series("predicted at target wavelengths", at_points.wavelength_nm,
-                   getattr(at_points, f"{quantity}_per_mm"), mode="markers"),
         ]
+        if at_points.wavelength_nm.size <= MARKED_POINTS:
+            series.append(Series("predicted at target wavelengths", at_points.wavelength_nm,
+                                 getattr(at_points, f"{quantity}_per_mm"), mode="markers"))
         has = np.isfinite(wanted)
-        if np.any(has):
+        if np.any(has) and np.count_nonzero(has) > MARKED_POINTS:
+            series.append(Series(f"target {symbol}", target.wavelength_nm[has], wanted[has], dash="dash",
+                                 colour="#000000"))
+        elif np.any(has):
             series.append(target_series(f"target {symbol}", target.wavelength_nm[has], wanted[has]))
         figure = line_figure(series, x_label="wavelength [nm]", y_label=f"{symbol} [1/mm]",
                              title=f"{symbol}: predicted against target")

@@ -162,7 +162,8 @@ def bar_figure(
             figure.add_hline(y=-bands[name], line_dash="dot", line_color=colour)
     _layout(figure, title=title, x_label=x_label, y_label=y_label, height=height)
     figure.update_layout(barmode="group")
-    figure.update_xaxes(tickvals=np.asarray(x, dtype=float), ticktext=[f"{v:g}" for v in np.asarray(x, float)])
+    if np.asarray(x).size <= 20:  # a tick under every bar; a long spectrum keeps plotly's own ticks
+        figure.update_xaxes(tickvals=np.asarray(x, dtype=float), ticktext=[f"{v:g}" for v in np.asarray(x, float)])
     return figure
 
 

@@ -13,6 +13,7 @@ import io
 import json
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 import pytest
 
@@ -232,3 +233,28 @@ def test_every_demo_recipe_opens_and_is_solved_as_its_file(page, recipe_file):
         assert shown.loc[dose.stock, "stock volume [mL]"] == pytest.approx(dose.volume_ml, rel=1e-9)
     titles = [json.loads(c.proto.spec)["layout"]["title"]["text"] for c in page.get("plotly_chart")]
     assert ("Anisotropy g: predicted against target" in titles) == expected.target.has_g
+
+
+def test_a_long_target_spectrum_is_solved_and_drawn_as_a_line(page, downloads):
+    wavelength = np.arange(600.0, 900.0 + 1.0, 2.0)  # 151 wavelengths
+    lines = ["wavelength_nm,mua_per_mm,musp_per_mm"]
+    lines += [f"{w:g},0.011,{1.0 * (w / 750.0) ** -1.2:.6g}" for w in wavelength]
+    page.radio(key="design.shape").set_value("Spectrum file").run()
+    page.file_uploader(key="design.spectrum_file").set_value(
+        ("long.csv", ("\n".join(lines) + "\n").encode(), "text/csv")).run()
+    assert not page.exception
+    _name, csv = downloads.content(page, "Download the plotted numbers (CSV)")
+    assert len(pd.read_csv(io.BytesIO(csv))) == wavelength.size
+
+
+@pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")  # the direct solve below
+def test_switching_recipes_does_not_bring_back_the_old_table(page):
+    page.selectbox(key="design.start").set_value("demo-gel-g.toml").run()
+    page.radio(key="design.shape").set_value("Points").run()
+    page.selectbox(key="design.start").set_value("demo-silicone.toml").run()
+    page.run()
+    assert not page.exception
+    expected = solve(load_recipe(REPO_ROOT / "recipes" / "demo-silicone.toml"))
+    shown = _doses(page)
+    for dose in expected.doses:
+        assert shown.loc[dose.stock, "stock volume [mL]"] == pytest.approx(dose.volume_ml, rel=1e-9)
