@@ -95,12 +95,14 @@ def line_figure(
 
 def _layout(figure: go.Figure, *, title, x_label: str, y_label: str, height: int) -> None:
     """Title on top, legend under the plot (never over the title or the data)."""
+    entries = sum(1 for trace in figure.data if trace.showlegend is not False)
     figure.update_layout(
         title={"text": title, "x": 0, "xanchor": "left"} if title else None,
         xaxis_title=x_label,
         yaxis_title=y_label,
-        height=height + 70,
-        margin={"l": 60, "r": 20, "t": 40 if title else 20, "b": 120},
+        height=height + (70 if entries > 1 else 0),
+        showlegend=entries > 1,
+        margin={"l": 60, "r": 20, "t": 40 if title else 20, "b": 120 if entries > 1 else 50},
         legend={"orientation": "h", "yanchor": "top", "y": -0.28, "x": 0, "xanchor": "left"},
         hovermode="closest",
         template="plotly_white",
