@@ -54,11 +54,6 @@ SRDR_FIT_MODELS = ("farrell1992", "kienle1997", "mc")
 #: fluence-plus-flux model at n = 1.4 is within 1–5 %.
 DIFFUSION_MIN_TRANSPORT_MFP = 2.0
 
-#: farrell1992 is flagged when the relative index n/n_outside is this far from 1: at 1.1 it
-#: already reads 8 % below the fluence-plus-flux model at 3 transport lengths (and at 1.33 and
-#: 1.4, 13–21 % below Monte Carlo: measured, see DEVELOPERS.md "Reflectance conventions").
-FLUX_ONLY_MAX_INDEX_MISMATCH = 0.1
-
 #: Above this fitted μs′/μa a diffusion fit of absolute data says that its μa is biased: the
 #: model's few-per-cent error moves μa by +24 % at 300 and +74 % at 1000 (Monte Carlo data,
 #: n = 1.4, ρ to 8 transport lengths; tests/calibration/test_fit_srdr.py), far beyond its SD.
@@ -302,6 +297,8 @@ def flux_only_mismatch_warnings(*, n: float, n_outside: float) -> list[str]:
     transport lengths for n = 1.4 in air, 13–15 % at 3–5 for n = 1.33; the fluence-plus-flux
     model (Kienle & Patterson 1997, J Opt Soc Am A 14:246) is within 1–5 % there.
     """
+    from phantomlab.transport.diffusion import FLUX_ONLY_MAX_INDEX_MISMATCH
+
     relative_index = float(n) / float(n_outside)
     if abs(relative_index - 1.0) <= FLUX_ONLY_MAX_INDEX_MISMATCH:
         return []

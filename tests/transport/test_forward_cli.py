@@ -50,6 +50,17 @@ def test_srdr_boundary_option_and_warning(capsys):
     assert any("transport mean free path" in w for w in out["warnings"])
 
 
+def test_flux_only_srdr_warns_at_a_mismatched_surface(capsys):
+    # farrell1992 at n = 1.4 in air is 8-21 % below Monte Carlo at 3-8 transport lengths
+    # (measured, test_montecarlo_models.py): the command says so; matched, it does not.
+    out = _json(capsys, "--kind", "srdr", "--mua-per-mm", "0.01", "--musp-per-mm", "1", "--n", "1.4",
+                "--rho-mm", "3,5")
+    assert any("farrell1992 (flux only) at n/n_outside = 1.4" in w for w in out["warnings"]), out["warnings"]
+    out = _json(capsys, "--kind", "srdr", "--mua-per-mm", "0.01", "--musp-per-mm", "1", "--n", "1.33",
+                "--n-outside", "1.33", "--rho-mm", "3,5")
+    assert out["warnings"] == []
+
+
 def test_sfdi_keys_and_values(capsys):
     out = _json(capsys, "--kind", "sfdi", "--mua-per-mm", "0.01", "--musp-per-mm", "1.2",
                 "--n", "1.33", "--fx-per-mm", "0,0.05,0.1")
