@@ -234,36 +234,22 @@ def record_dispensed(store, code: str, amounts: Mapping[str, tuple[float, str]],
                      "given": {"volume_ml" if unit == "mL" else "mass_g": float(amount)},
                      "dilution_factor": 1.0, "planned_volume_ml": planned.get(key, {}).get("volume_ml"),
                      "planned_mass_g": planned.get(key, {}).get("mass_g"), "volume_fraction": fractions[key]})
+    from phantomlab.commands.batch import tolerance_alarms  # the same alarm lines as `batch actual`
+    from phantomlab.jsonable import to_jsonable
+
     prediction = predict(recipe, volume_fractions=fractions, potencies=plan_potencies(store, code) or None)
-    alarms = tolerance_alarms(recipe.target, prediction)
+    target = plan_json.get("target") or to_jsonable(recipe.target.to_json())
+    alarms = tolerance_alarms(
+        target=target, predicted=to_jsonable(prediction.to_json()), planned=plan_json.get("predicted"),
+        mua_tolerance=float(target.get("mua_tolerance_percent", 100 * recipe.target.mua_tolerance)) / 100,
+        musp_tolerance=float(target.get("musp_tolerance_percent", 100 * recipe.target.musp_tolerance)) / 100,
+    )
     with store.transaction() as session:
         batch = record_actual(session, get_batch(session, code), amounts=rows,
                               prediction=prediction.to_json(), alarms=alarms, recorded_by=recorded_by,
                               mixed_on=mixed_on)
         version = batch.version
     return version, prediction, alarms
-
-
-def tolerance_alarms(target, prediction) -> list[str]:
-    """One line per quantity whose prediction leaves the target's tolerance (worst wavelength)."""
-    import numpy as np
-
-    alarms = []
-    for symbol, name, tolerance in (("mua", "mua_per_mm", target.mua_tolerance),
-                                    ("musp", "musp_per_mm", target.musp_tolerance)):
-        wanted = np.asarray(getattr(target, name), dtype=float)
-        got = np.interp(target.wavelength_nm, prediction.wavelength_nm, getattr(prediction, name))
-        has = np.isfinite(wanted)
-        if not np.any(has):
-            continue
-        relative = got[has] / wanted[has] - 1.0
-        worst = int(np.argmax(np.abs(relative)))
-        if abs(relative[worst]) > tolerance:
-            alarms.append(
-                f"{symbol} of what was dispensed leaves the tolerance: {100 * relative[worst]:+.1f} % at "
-                f"{target.wavelength_nm[has][worst]:g} nm (tolerance ±{100 * tolerance:g} %)"
-            )
-    return alarms
 
 
 def attach_measurement(
