@@ -481,8 +481,8 @@ def _miss_notes(target: Target, residuals: dict) -> list[str]:
 
 
 def _spread_notes(target: Target, predicted: Prediction) -> list[str]:
-    """Say so when the predicted SD alone is wider than the target's tolerance."""
-    notes = []
+    """One note when the predicted SD alone is wider than the target's tolerance."""
+    parts = []
     for name, want, sd, tol in (("mua", target.mua_per_mm, predicted.mua_sd_per_mm, target.mua_tolerance),
                                 ("musp", target.musp_per_mm, predicted.musp_sd_per_mm, target.musp_tolerance)):
         has = np.isfinite(want) & (want > 0)
@@ -491,12 +491,13 @@ def _spread_notes(target: Target, predicted: Prediction) -> list[str]:
         relative = np.where(has, sd / np.where(has, want, 1.0), -1.0)
         worst = int(np.argmax(relative))
         if relative[worst] > tol * (1 + 1e-9):
-            notes.append(
-                f"{name}: predicted SD up to {100 * relative[worst]:.2g} % (at {target.wavelength_nm[worst]:g} nm) "
-                f"is wider than the ±{100 * tol:g} % tolerance: the stock potencies are not known well "
-                "enough to land within it first time; calibrate them (plan --series) or titrate and re-measure"
-            )
-    return notes
+            parts.append(f"{name} up to {100 * relative[worst]:.2g} % (at {target.wavelength_nm[worst]:g} nm; "
+                         f"tolerance ±{100 * tol:g} %)")
+    if not parts:
+        return []
+    return [f"predicted SD wider than the tolerance: {' and '.join(parts)}; the stock potencies are not "
+            "known well enough to land within it first time: calibrate them (plan --series) or titrate "
+            "and re-measure"]
 
 
 def _curve_grid(target: Target) -> np.ndarray | None:

@@ -91,16 +91,14 @@ def procedure_steps(plan) -> list[str]:
     ]
     diluted = [d for d in plan.doses if d.dilution]
     if diluted:
-        steps.append("Make the pre-dilutions on the day of use, in the order of the pre-dilution "
-                     "table, in clean vessels labelled with name, stock lot, dilution and date; mix "
-                     "each fully before drawing from it.")
+        steps.append("Make the pre-dilutions on the day of use, in table order, in clean vessels "
+                     "labelled with name, lot, dilution and date; mix each fully before drawing from it.")
         powders = [d.stock for d in diluted if is_dry_powder(recipe.stock(d.stock))]
         if powders:
             # common practice, no source: a thin smear shows undispersed grains the eye misses in bulk
-            steps.append(f"Weigh {', '.join(powders)} in a ventilated enclosure straight onto the "
-                         f"diluent ({plan.dose(powders[0]).dilution.diluent}); stir it in with a "
-                         "spatula, then mix until a thin smear between two glass slides shows no "
-                         "specks or streaks.")
+            steps.append(f"Weigh {', '.join(powders)} in a ventilated enclosure onto its diluent "
+                         f"({plan.dose(powders[0]).dilution.diluent}); stir in with a spatula, then mix "
+                         "until a thin smear between glass slides shows no specks.")
     adds = []
     if absorbers:
         adds.append(f"Add the absorbers: {absorbers}.")

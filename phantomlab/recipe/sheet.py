@@ -30,12 +30,12 @@ __all__ = ["render_sheet_html", "render_sheet_csv", "render_series_html", "sheet
 
 DRAFT_MARK = "DRAFT — not a logged batch"
 G_NOTE = "g comes from the scattering model (Mie / emulsion model), not from a measurement."
-TOLERANCE_NOTE = ("Tolerances are twice the lab's dispensing error (pipette relative error; "
-                  "balance: at least its resolution).")
-DILUTION_NOTE = ("\"1 in 10\" = 1 part of the source in 10 parts of the finished dilution. ± values: "
-                 "as for the amounts below. Use each pre-dilution the day it is made.")
+TOLERANCE_NOTE = ("± = twice the dispensing error (pipette relative error; balance: at least its "
+                  "resolution).")
+DILUTION_NOTE = ("\"1 in 10\" = 1 part of the source in 10 parts of the finished dilution. "
+                 "Use each pre-dilution the day it is made.")
 _MAX_TABLE_WAVELENGTHS = 8
-SVG_HEIGHT_PX = 124
+SVG_HEIGHT_PX = 112
 
 
 def dilution_text(factor: float) -> str:
@@ -202,7 +202,7 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
                     f"<td class='key'>{e(step.source)}</td><td class='num'>{e(with_tol(step.diluent_amount))} "
                     f"{e(dose.dilution.diluent)}</td><td class='num'>{e(format_amount(step.total_amount, unit))} "
                     f"({e(dilution_text(step.factor))})</td><td class='actual'></td><td class='actual'></td></tr>")
-        out.append(f"</table><div class='small'>{e(DILUTION_NOTE)}</div>")
+        out.append(f"</table><div class='small'>{e(DILUTION_NOTE)} {e(TOLERANCE_NOTE)}</div>")
 
     # amounts
     out.append("<h2>Amounts into the batch</h2><table><tr><th>line</th><th>what</th><th>from</th>"
@@ -211,9 +211,8 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
         out.append(f"<tr><td>{line.number}</td><td>{e(line.label)}</td><td>{e(line.source)}</td>"
                    f"<td>{e(line.how)}</td><td class='num'>{e(line.text)}</td>"
                    f"<td class='num'>{e(line.tolerance_text)}</td><td class='actual'></td></tr>")
-    out.append(f"</table><div class='small'>{e(TOLERANCE_NOTE)} Each dose is the undiluted stock "
-               "that must end in the batch; a pre-diluted dose is given as the amount of its last "
-               "dilution.</div>")
+    out.append("</table><div class='small'>" + ("" if diluted else f"{e(TOLERANCE_NOTE)} ")
+               + "A pre-diluted dose is given as the amount of its last dilution.</div>")
 
     # procedure
     out.append("<h2>Steps</h2><ol>")
@@ -238,9 +237,8 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
     out.append("</table>")
     shown = "" if rows.size == target.wavelength_nm.size else (
         f" Table shows {rows.size} of {target.wavelength_nm.size} target wavelengths; the CSV and JSON hold all.")
-    out.append(f"<div class='small'>{e(G_NOTE)} SDs propagate the stocks' potency SDs and the "
-               f"dispensing errors.{e(shown)} Plot: line = predicted, grey band = ±1 SD, "
-               "circles (or dashed line) = target.</div>")
+    out.append(f"<div class='small'>{e(G_NOTE)} SD: potency SDs and dispensing errors.{e(shown)} "
+               "Plot: grey = ±1 SD, circles or dashed line = target.</div>")
     out.append(spectra_svg(plan, height=SVG_HEIGHT_PX))
 
     # warnings and cautions
@@ -251,7 +249,9 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
         out.append("</ul>")
     out.append("<h2>Cautions</h2><ul>")
     for caution in cautions_for(stocks=_used_stocks(plan), preparation_kind=recipe.preparation.kind):
-        out.append(f"<li class='caution'>{e(caution.text)} <span class='small'>({e(caution.source)})</span></li>")
+        said = caution.text.split(":", 1)[0] == caution.source.split(" ", 1)[0]  # "silicone: ..." (silicone preparation)
+        source = "" if said else f" <span class='small'>({e(caution.source)})</span>"
+        out.append(f"<li class='caution'>{e(caution.text)}{source}</li>")
     out.append("</ul>")
     out.append("<table class='sign'><tr><th>mixed by</th><td></td><th>date / time</th><td></td>"
                "<th>room temperature</th><td></td></tr></table>")

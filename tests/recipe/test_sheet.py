@@ -123,12 +123,14 @@ def test_sheet_answers_the_technicians_questions():
     assert "predicted μa ± SD [1/mm]" in text
     assert "Characterise it at 22 °C" in text and "on the day of use" in text
     # the ink's potency SD (0.15) alone is wider than the 5 % tolerance: the sheet says so
-    assert any(w.startswith("mua: predicted SD up to 14 % (at 660 nm) is wider than the ±5 % tolerance")
-               for w in liquid.warnings)
+    assert any(w.startswith("predicted SD wider than the tolerance: mua up to 14 % (at 660 nm; tolerance ±5 %) "
+                            "and musp up to 3.2 % (at 800 nm; tolerance ±3 %)") for w in liquid.warnings)
+    gel = solve(load_recipe(RECIPES / "demo-gel-g.toml"), curve=False)
+    assert not any(w.startswith("predicted SD wider") for w in gel.warnings)  # SD up to 9.9 % of mua (±10 %), 3.9 % of musp (±5 %)
     silicone = solve(load_recipe(RECIPES / "demo-silicone.toml"))
     text = _parse(render_sheet_html(silicone))
     assert "5 kPa absolute" in text and "working time on the silicone's data sheet" in text
-    assert "Weigh carbon_black in a ventilated enclosure straight onto the diluent (silicone base (part A))" in text
+    assert "Weigh carbon_black in a ventilated enclosure onto its diluent (silicone base (part A))" in text
     assert "10 g (1 in 100)" in text and "carbon-black pigment powder (demo)" in text
     gel = solve(load_recipe(RECIPES / "demo-gel-g.toml"))
     powder = gel.matrix.parts[0][1]
