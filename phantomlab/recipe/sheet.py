@@ -279,6 +279,11 @@ def render_sheet_csv(plan, *, batch_id: str | None = None, draft: bool = True, d
     if recipe.by_mass:
         writer.writerow(["batch", "batch_mass", f"{recipe.batch_mass_g:g}", "g", "", "", ""])
     writer.writerow(["batch", "batch_volume", f"{plan.batch_volume_ml:.6g}", "mL", "", "", ""])
+    target = plan.target
+    writer.writerow(["batch", "mua_tolerance", f"{100 * target.mua_tolerance:g}", "%", "", "", "relative, of the target"])
+    writer.writerow(["batch", "musp_tolerance", f"{100 * target.musp_tolerance:g}", "%", "", "", "relative, of the target"])
+    if np.any(np.isfinite(target.g)):
+        writer.writerow(["batch", "g_tolerance", f"{target.g_tolerance:g}", "", "", "", "absolute"])
     for stock in _used_stocks(plan):
         note = "EXPIRED" if _expired(stock, date) else ""
         writer.writerow(["stock", stock.key, stock.lot, "", "", "",

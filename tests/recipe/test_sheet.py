@@ -169,6 +169,10 @@ def test_csv_sheet_rows(demo_plan):
     predicted = [r for r in rows if r["section"] == "predicted" and r["item"].startswith("mua at")]
     assert len(predicted) == demo_plan.predicted.wavelength_nm.size
     assert rows[-1]["value"] == CLOSING_LINE
+    tolerances = {r["item"]: r["value"] for r in rows if r["item"].endswith("_tolerance")}
+    assert float(tolerances["mua_tolerance"]) == pytest.approx(100 * demo_plan.target.mua_tolerance)
+    assert float(tolerances["musp_tolerance"]) == pytest.approx(100 * demo_plan.target.musp_tolerance)
+    assert ("g_tolerance" in tolerances) == bool(demo_plan.target.has_g)
 
 
 def test_sheet_json_is_plan_json_plus_sheet_fields(demo_plan):
