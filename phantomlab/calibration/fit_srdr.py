@@ -294,7 +294,7 @@ def flux_only_mismatch_warnings(*, n: float, n_outside: float) -> list[str]:
     """The warning for ``farrell1992`` (flux only) at an index-mismatched surface.
 
     Measured against the project's Monte Carlo (μs′/μa = 100, g = 0.8): 8–21 % below at 3–8
-    transport lengths for n = 1.4 in air, 13–15 % at 3–5 for n = 1.33; the fluence-plus-flux
+    transport lengths for n = 1.4 in air, 13–16 % at 3–5 for n = 1.33; the fluence-plus-flux
     model (Kienle & Patterson 1997, J Opt Soc Am A 14:246) is within 1–5 % there.
     """
     from phantomlab.transport.diffusion import FLUX_ONLY_MAX_INDEX_MISMATCH

@@ -16,6 +16,8 @@
   n = 1.4 in air        kienle1997: +1.3 ... +4.5 at 1-15 mm;
                         farrell1992 (groenhuis1983): -8.5 ... -20.5 at 3-8 mm
                         (haskell1994 A: -7.7 ... -16.4)
+  n = 1.33 in air       kienle1997: +1.0 ... +5.0 at 1-15 mm;
+                        farrell1992 (groenhuis1983): -13.4 ... -16.2 at 3-5 mm
   matched, n = 1.0      farrell1992: +6.1 ... +10.9 at 1-3 mm, within 4.4 beyond;
                         kienle1997: +7.6 ... +13.4 at 2-4 mm, within 5.4 beyond
   ====================  =========================================================
@@ -139,23 +141,40 @@ def test_diffusion_models_carry_the_entry_loss_like_the_monte_carlo(fixture_case
     assert total == pytest.approx(case["diffuse_reflectance"], rel=0.03)
 
 
-def test_flux_only_dipole_is_low_at_a_mismatched_boundary(fixture_cases):
-    # The measured gap of farrell1992 (flux only, Groenhuis A as published) at n = 1.4 in
-    # air: 8-21 % below Monte Carlo at 3-8 transport lengths.  Its equation is checked
-    # against a numerical derivative of the dipole fluence in test_diffusion_srdr.py, so
-    # this is the model, not a slip: the light leaving a mismatched surface is not the net
-    # flux alone (Kienle & Patterson 1997, JOSA A 14:246; the size of the gap is ours).
-    # Held to -25 ... -5 % so that a change of model or of convention shows here.
-    case = fixture_cases["cases"]["n1.4_in_air"]
+@pytest.mark.parametrize("name, n, band", [("n1.4_in_air", 1.4, (-0.25, -0.05)),
+                                           ("n1.33_in_air", 1.33, (-0.20, -0.03))])
+def test_flux_only_dipole_is_low_at_a_mismatched_boundary(fixture_cases, name, n, band):
+    # The measured gap of farrell1992 (flux only, Groenhuis A as published) in air: at
+    # n = 1.4, 8.5-20.5 % below Monte Carlo at 3-8 transport lengths; at n = 1.33, 5.3-16.2 %.
+    # Its equation is checked against a numerical derivative of the dipole fluence in
+    # test_diffusion_srdr.py, so this is the model, not a slip: the light leaving a
+    # mismatched surface is not the net flux alone (Kienle & Patterson 1997, JOSA A 14:246;
+    # the size of the gap is ours).  Held to a band so that a change of model or of
+    # convention shows here; the fluence-plus-flux model is closer at every one of them.
+    case = fixture_cases["cases"][name]
+    assert case["inputs"]["n"] == n
     edges = np.array(case["rho_edges_mm"])
     rho = np.array(fixture_cases["rho_mm"])
     mc = np.array(case["reflectance_per_mm2"])
-    diffusion = _annulus_average("farrell1992", "groenhuis1983", edges, 0.01, 1.0, 1.4)
+    diffusion = _annulus_average("farrell1992", "groenhuis1983", edges, 0.01, 1.0, n)
     middle = (rho >= 3.0) & (rho <= 8.0)
     deviation = diffusion[middle] / mc[middle] - 1.0
-    assert np.all((deviation > -0.25) & (deviation < -0.05)), np.round(deviation, 3)
-    fluence_flux = _annulus_average("kienle1997", "haskell1994", edges, 0.01, 1.0, 1.4)
+    assert np.all((deviation > band[0]) & (deviation < band[1])), np.round(deviation, 3)
+    fluence_flux = _annulus_average("kienle1997", "haskell1994", edges, 0.01, 1.0, n)
     assert np.all(np.abs(fluence_flux[middle] / mc[middle] - 1.0) < np.abs(deviation))
+
+
+def test_diffusion_fluence_plus_flux_water_phantom_in_air(fixture_cases):
+    # n = 1.33 in air, the same medium: kienle1997 measured +1.0 ... +4.5 % at 2-15 mm
+    # (5 SE and more of the fixture: a small real model error), held to 0 ... +6 %.
+    case = fixture_cases["cases"]["n1.33_in_air"]
+    edges = np.array(case["rho_edges_mm"])
+    rho = np.array(fixture_cases["rho_mm"])
+    mc = np.array(case["reflectance_per_mm2"])
+    diffusion = _annulus_average("kienle1997", "haskell1994", edges, 0.01, 1.0, 1.33)
+    beyond = rho >= 2.0
+    deviation = diffusion[beyond] / mc[beyond] - 1.0
+    assert np.all((deviation > 0.0) & (deviation < 0.06)), np.round(deviation, 3)
 
 
 def test_diffusion_dipole_matched_boundary_far_from_the_source(fixture_cases):
