@@ -43,7 +43,7 @@ from phantomlab.calibration.spectral import SpectralConstraint, fit_spectrum, me
 from phantomlab.errors import InputError, PhantomlabWarning
 
 __all__ = ["SRDR_FIT_MODELS", "DIFFUSION_MIN_TRANSPORT_MFP", "fit_srdr", "srdr_forward",
-           "flux_only_mismatch_warnings"]
+           "flux_only_mismatch_warnings", "high_albedo_bias_warnings"]
 
 #: Forward models of the srdr fit.
 SRDR_FIT_MODELS = ("farrell1992", "kienle1997", "mc")

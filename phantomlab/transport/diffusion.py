@@ -213,9 +213,9 @@ def srdr_diffusion_Farrell1992(
     g = 0.8, 1 mm annuli, both per incident power): matched boundary, within 4.4 % beyond
     4 transport lengths and 6–11 % high at 1–3; n = 1.4 in air, 8.5–20.5 % *low* at 3–8
     transport lengths with the published Groenhuis A = 3.25 (7.7–16.4 % with the exact
-    A = 2.95); n = 1.33 in air (a water phantom), 13.4–16.2 % low at 3–5.  That is the model, not the code (the equation is checked above): at a
-    mismatched surface the light leaving is not the net flux alone (Kienle & Patterson
-    1997); use ``kienle1997`` there.
+    A = 2.95); n = 1.33 in air (a water phantom), 13.4–16.2 % low at 3–5.  That is the
+    model, not the code (the equation is checked above): at a mismatched surface the light
+    leaving is not the net flux alone (Kienle & Patterson 1997); use ``kienle1997`` there.
 
     Parameters
     ----------
@@ -278,8 +278,8 @@ def srdr_diffusion_Kienle1997(
     Measured against Monte Carlo (``tests/transport/test_montecarlo_models.py``; μs′/μa = 100,
     g = 0.8, 1 mm annuli, both per incident power): n = 1.4 in air, 1.3–4.5 % high from 1 to
     15 transport lengths (4.2–7.4 % at 2–15 before the entry loss was applied); n = 1.33 in
-    air, 1.0–5.0 % high; matched
-    boundary, 7.6–13.4 % high at 2–4 transport lengths, within 5.4 % from 5 on.  On the fit
+    air, 1.0–5.0 % high; matched boundary, 7.6–13.4 % high at 2–4 transport lengths, within
+    5.4 % from 5 on.  On the fit
     fixtures (n = 1.4, ρ ≤ 8 mm) it is 0.8–5.7 % high beyond 2 transport lengths for
     μs′/μa = 30–1000.  Expected from the literature: within a few per cent beyond about two
     transport lengths at high albedo (# from memory).
