@@ -187,8 +187,8 @@ def _top_up_section(workspace: Workspace, store, batch: dict, recipe, potencies)
 
 def correction_section(workspace: Workspace, store) -> None:
     from phantomlab.ui.batches_page import read_log
-    from phantomlab.ui.design_page import _doses_table, _sheet_downloads
-    from phantomlab.ui.recording import record_planned_batch
+    from phantomlab.ui.design_page import _doses_table, _sheet_downloads, saved_sheet_downloads
+    from phantomlab.ui.recording import record_planned_batch, saved_batch_sheets
 
     st.subheader("Correct the next batch")
     loaded = call_layer("Reading the batch log", read_log, store)
@@ -228,10 +228,11 @@ def correction_section(workspace: Workspace, store) -> None:
                 saved = call_layer("Saving the batch", record_planned_batch, store, plan, potencies=potencies,
                                    origin=origin, notes=f"corrected after batch {code}")
                 if saved.ok:
-                    st.session_state["correct.saved"] = saved.value
-            if st.session_state.get("correct.saved"):
-                code_saved = st.session_state["correct.saved"]
-                st.success(f"Saved as batch **{code_saved}** (status: planned).")
-                _sheet_downloads(plan, batch_id=code_saved, key="correct.saved_sheet")
+                    sheets = call_layer("Reading the stored sheet", saved_batch_sheets, store, plan, saved.value)
+                    st.session_state["correct.saved"] = {**(sheets.value or {"code": saved.value}), "after": code}
+            done = st.session_state.get("correct.saved")
+            if done and done.get("after") == code:
+                st.success(f"Saved as batch **{done['code']}** (status: planned).")
+                saved_sheet_downloads(done, key="correct.saved_sheet")
     with topup_tab:
         _top_up_section(workspace, store, batch, recipe, potencies)

@@ -547,9 +547,19 @@ def _recipe_download(definition: dict, source: str) -> None:
                        help="For `phantomlab plan RECIPE.toml` on the command line.")
 
 
+def _sheet_preview(plan) -> None:
+    from phantomlab.recipe.sheet import render_sheet_html  # layer 3
+
+    with st.expander("Preview the sheet (as it prints, marked DRAFT until saved)"):
+        # our own rendering of the plan (the renderer escapes every typed text), never stored HTML
+        html = call_layer("Rendering the sheet", render_sheet_html, plan, draft=True)
+        if html.ok:
+            st.iframe(html.value, height=1100)
+
+
 def _save_batch(workspace: Workspace, store, plan, potencies: dict, origin: dict, *, definition: dict,
-                base_dir: Path, source: str) -> None:
-    from phantomlab.ui.recording import record_planned_batch, write_page_recipe
+                base_dir: Path, source: str, token: str) -> None:
+    from phantomlab.ui.recording import record_planned_batch, saved_batch_sheets, write_page_recipe
 
     with st.form("design.save_form", border=True):
         st.markdown("**Save this plan as a new batch** (the batch log gives it an ID; the sheet "
@@ -570,12 +580,28 @@ def _save_batch(workspace: Workspace, store, plan, potencies: dict, origin: dict
             notes=notes.strip() or None,
         )
         if outcome.ok:
-            st.session_state["design.saved_batch"] = outcome.value
+            sheets = call_layer("Reading the stored sheet", saved_batch_sheets, store, plan, outcome.value)
+            st.session_state["design.saved_batch"] = {**(sheets.value or {"code": outcome.value}),
+                                                      "token": token}
     saved = st.session_state.get("design.saved_batch")
-    if saved:
-        st.success(f"Saved as batch **{saved}** (status: planned). Record what you dispense on "
+    if saved and saved.get("token") == token:  # only while the fields still describe that batch
+        st.success(f"Saved as batch **{saved['code']}** (status: planned). Record what you dispense on "
                    "the page *Batch log*.")
-        _sheet_downloads(plan, batch_id=saved, key="design.saved_sheet")
+        saved_sheet_downloads(saved, key="design.saved_sheet")
+
+
+def saved_sheet_downloads(saved: dict, *, key: str) -> None:
+    """Downloads of a saved batch's sheet: the HTML as stored in the batch log, and its CSV."""
+    code = saved["code"]
+    left, right = st.columns(2)
+    if saved.get("html"):
+        left.download_button(f"Download the sheet of batch {code} (HTML)", data=saved["html"].encode("utf-8"),
+                             file_name=f"sheet-{code}.html", mime="text/html", key=f"{key}.html",
+                             on_click="ignore")
+    if saved.get("csv"):
+        right.download_button(f"Download the sheet of batch {code} (CSV)", data=saved["csv"].encode("utf-8"),
+                              file_name=f"sheet-{code}.csv", mime="text/csv", key=f"{key}.csv",
+                              on_click="ignore")
 
 
 def show(workspace: Workspace) -> None:
@@ -662,6 +688,7 @@ def show(workspace: Workspace) -> None:
 
     st.subheader("Mixing sheet")
     _sheet_downloads(plan, batch_id=None, key="design.sheet")
+    _sheet_preview(plan)
     _recipe_download(definition, source)
     _save_batch(workspace, store, plan, potencies, origin, definition=definition, base_dir=base_dir,
-                source=source)
+                source=source, token=token + json.dumps(potencies, sort_keys=True))

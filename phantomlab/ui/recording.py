@@ -70,6 +70,16 @@ def record_planned_batch(
     return code
 
 
+def saved_batch_sheets(store, plan, code: str) -> dict:
+    """The sheet of a just-saved batch as stored (HTML) and as CSV, to hand over for download."""
+    from phantomlab.recipe.sheet import render_sheet_csv  # layer 3
+    from phantomlab.store import get_batch, plan_of  # layer 4
+
+    with store.reading() as session:
+        html = plan_of(session, get_batch(session, code)).sheet_html
+    return {"code": code, "html": html, "csv": render_sheet_csv(plan, batch_id=code, draft=False)}
+
+
 def _sheet_html(plan, code: str) -> str:
     from phantomlab.recipe.sheet import render_sheet_html  # layer 3
 

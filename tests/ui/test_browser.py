@@ -165,6 +165,11 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
             _no_exception(page, "after solving")
             _shoot(page, shots / "02-design-solved.png")
 
+            page.get_by_text("Preview the sheet").first.click()
+            page.frame_locator("iframe").first.get_by_text("DRAFT").first.wait_for()
+            _settle(page)
+            page.get_by_text("Preview the sheet").first.scroll_into_view_if_needed()
+            page.screenshot(path=shots / "02-design-sheet-preview.png")
             with page.expect_download() as download_info:
                 page.get_by_role("button", name="Download the mixing sheet (HTML)").click()
             download = download_info.value

@@ -258,3 +258,13 @@ def test_switching_recipes_does_not_bring_back_the_old_table(page):
     shown = _doses(page)
     for dose in expected.doses:
         assert shown.loc[dose.stock, "stock volume [mL]"] == pytest.approx(dose.volume_ml, rel=1e-9)
+
+
+def test_after_saving_a_changed_field_drops_the_saved_batch_downloads(page):
+    _save(page)
+    code = f"{_dt.date.today().year}-003"
+    labels = [b.proto.label for b in page.get("download_button")]
+    assert f"Download the sheet of batch {code} (HTML)" in labels
+    page.text_input(key="design.size").set_value("300 mL").run()
+    labels = [b.proto.label for b in page.get("download_button")]
+    assert not any(code in label for label in labels)  # the sheet of 2026-003 is not the plan shown now
