@@ -383,6 +383,10 @@ def _unscattered(mut, d, n, n_out, mu_c, top: Face, bottom: Face, incidence: str
     bottom_in, _, bottom_t = face_response(bottom, mu)
     attenuation = np.exp(-(mut * d)[:, None] / mu)
     loop = 1.0 - top_in * bottom_in * attenuation**2
-    through = top_t * attenuation * bottom_t / loop
-    back = top_t * attenuation**2 * bottom_in * top_t / loop
+    # A clear layer between two totally reflecting faces (loop = 0) is entered by nothing:
+    # its face transmission is 0 too, so the 0/0 is 0.
+    trapped = loop <= 1e-300
+    safe_loop = np.where(trapped, 1.0, loop)
+    through = np.where(trapped, 0.0, top_t * attenuation * bottom_t / safe_loop)
+    back = np.where(trapped, 0.0, top_t * attenuation**2 * bottom_in * top_t / safe_loop)
     return np.sum(weight * through, axis=1), np.sum(weight * back, axis=1)
