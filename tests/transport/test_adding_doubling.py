@@ -230,4 +230,6 @@ def test_fractions_are_physical_and_absorption_only_removes_light(mua, mus, g, d
         assert np.all(values >= -1e-9) and np.all(values <= 1 + 1e-9), name
     assert base.total_reflectance[1] <= base.total_reflectance[0] + 1e-9
     assert base.total_transmittance[1] <= base.total_transmittance[0] + 1e-9
-    assert base.unscattered_transmittance[0] <= base.total_transmittance[0] + 1e-9
+    # the unscattered part comes from its own angular quadrature (diffuse incidence): the two
+    # agree to ~1e-9 where a clear layer makes them equal, so compare at 1e-7
+    assert base.unscattered_transmittance[0] <= base.total_transmittance[0] + 1e-7
