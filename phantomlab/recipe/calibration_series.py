@@ -6,8 +6,12 @@ recipe's solved dose (the base, of known optics, measured as its own level 0) an
 stock under test at evenly spaced multiples of its solved dose, from ``low`` to ``high``
 (defaults 0.25 and 2).  Even spacing makes the straight-line fit well conditioned; the base
 level anchors the intercept, so cross-talk (an ink's scattering, a scatterer's absorption)
-shows as a slope in the other coefficient.  Each level is a small batch with its own doses,
-pre-dilutions and predicted optics (at the stock file's prior potency, or the calibrated one).
+shows as a slope in the other coefficient.  Each level is a small batch with its own doses and
+predicted optics (at the stock file's prior potency, or the calibrated one).  A stock that
+needs pre-diluting is delivered to every level from ONE working dilution, planned for its
+smallest dose and large enough for all levels (a technician makes it once; the levels differ
+only in the amount dispensed, so a dilution error scales every level alike and shows as a
+potency, not as scatter about the line).
 """
 
 from __future__ import annotations
@@ -18,7 +22,8 @@ from typing import Any
 import numpy as np
 
 from phantomlab.errors import InputError
-from phantomlab.recipe.plan import Plan, intrinsic_table, plan_for_fractions, solve
+from phantomlab.recipe.dilution import DilutionInfeasible, DilutionPlan, plan_dilution
+from phantomlab.recipe.plan import Plan, dilution_limits, intrinsic_table, plan_for_fractions, solve
 from phantomlab.recipe.recipe_file import Recipe
 
 __all__ = ["CalibrationSeries", "SeriesLevel", "plan_series"]
@@ -45,6 +50,12 @@ class CalibrationSeries:
     recipe_plan: Plan
     levels: tuple
     readout_index: int = 0
+    shared_dilutions: tuple = ()
+
+    @property
+    def shared_dilution(self) -> DilutionPlan | None:
+        """The shared working dilution of the stock under test, if it needs one."""
+        return next((d for d in self.shared_dilutions if d.stock == self.stock), None)
 
     @property
     def readout_wavelength_nm(self) -> float:
@@ -132,9 +143,18 @@ def plan_series(recipe: Recipe, stock: str, *, levels: int | None = None, low: f
     base = {d.stock: d.volume_fraction for d in plan.doses if d.stock != stock}
     out = []
     multiples = np.concatenate([[0.0], np.linspace(low, high, levels)])
-    for number, multiple in enumerate(multiples):
-        fractions = {**base, stock: float(multiple * dose)}
-        level_plan = plan_for_fractions(small, fractions, potencies=potencies, table=table, check_target=False)
+    first = [plan_for_fractions(small, {**base, stock: float(multiple * dose)}, potencies=potencies,
+                                table=table, check_target=False) for multiple in multiples]
+    shared = {}
+    for key in recipe.stock_keys:
+        used = [p.dose(key) for p in first if p.dose(key).used]
+        plan_shared = _shared_dilution(small, key, used) if used else None
+        if plan_shared is not None:
+            shared[key] = plan_shared
+    for number, (multiple, level_plan) in enumerate(zip(multiples, first)):
+        if shared:
+            level_plan = plan_for_fractions(small, {**base, stock: float(multiple * dose)}, potencies=potencies,
+                                            table=table, check_target=False, shared_dilutions=shared)
         out.append(SeriesLevel(level=number, multiple=float(multiple), plan=level_plan))
     solids = recipe.limits.max_solids_volume_fraction
     if solids is not None:
@@ -147,4 +167,22 @@ def plan_series(recipe: Recipe, stock: str, *, levels: int | None = None, low: f
     row = table.index_of(stock)
     signal = table.mua_per_mm[row] if recipe.stock(stock).kind == "absorber" else table.musp_per_mm[row]
     return CalibrationSeries(recipe=recipe, stock=stock, recipe_plan=plan, levels=tuple(out),
-                             readout_index=int(np.argmax(signal)))
+                             readout_index=int(np.argmax(signal)), shared_dilutions=tuple(shared.values()))
+
+
+def _shared_dilution(recipe: Recipe, stock: str, doses) -> DilutionPlan | None:
+    """One working dilution that delivers every level's dose of ``stock`` (None if none is needed).
+
+    Planned for the smallest dose, with the last dilution holding what all levels draw from it;
+    if no such plan fits the limits, each level keeps its own (None).
+    """
+    if not any(d.dilution for d in doses):
+        return None
+    unit = doses[0].unit
+    amounts = [d.mass_g if unit == "g" else d.volume_ml for d in doses]
+    smallest = min(amounts)
+    try:
+        return plan_dilution(stock=stock, dose_amount=smallest, draw_multiple=sum(amounts) / smallest,
+                             **dilution_limits(recipe, unit))
+    except DilutionInfeasible:
+        return None

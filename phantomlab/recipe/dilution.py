@@ -115,11 +115,11 @@ def _round_up_nice(value: float) -> float:
 
 
 def _build(stock, dose, factors, *, min_amount, dead_amount, max_vessel_amount, diluent, unit,
-           min_total_amount=0.0):
+           min_total_amount=0.0, draw_multiple=1.0):
     dispense = dose * float(np.prod(factors))
     if dispense < min_amount * (1 - 1e-12):
         return None
-    draws = dispense
+    draws = dispense * draw_multiple
     prepared = []
     for factor in reversed(factors):
         need = max(draws + dead_amount, min_amount * factor, min_total_amount)
@@ -159,6 +159,7 @@ def plan_dilution(
     max_vessel_amount: float = 50.0,
     diluent: str = "diluent",
     min_total_amount: float = 0.0,
+    draw_multiple: float = 1.0,
 ) -> DilutionPlan:
     """Plan the fewest serial pre-dilutions that let a dose be dispensed.
 
@@ -185,6 +186,10 @@ def plan_dilution(
     min_total_amount : float [unit]
         Smallest working dilution worth making (each dilution holds at least this much);
         at most ``max_vessel_amount``.
+    draw_multiple : float
+        The last dilution supplies this many times the dispensed amount (>= 1): several
+        batches drawn from one working dilution, e.g. the levels of a calibration series,
+        whose smallest dose is ``dose_amount``.
 
     Returns
     -------
@@ -215,8 +220,11 @@ def plan_dilution(
         return DilutionPlan(stock=stock, unit=unit, dose_amount=float(dose_amount), steps=(),
                             dispense_amount=float(dose_amount), diluent=diluent)
     factors = sorted({f for f in _FACTORS if f <= max_step_factor} | {float(max_step_factor)})
+    if not (math.isfinite(draw_multiple) and draw_multiple >= 1):
+        raise InputError(f"dilution: draw_multiple must be a number >= 1, got {draw_multiple!r}")
     kwargs = dict(min_amount=min_amount, dead_amount=dead_amount, max_vessel_amount=max_vessel_amount,
-                  diluent=diluent, unit=unit, min_total_amount=float(min_total_amount))
+                  diluent=diluent, unit=unit, min_total_amount=float(min_total_amount),
+                  draw_multiple=float(draw_multiple))
     fewest = max(1, math.ceil(math.log(min_amount / dose_amount) / math.log(factors[-1]) - 1e-12))
     for count in range(fewest, max(int(max_steps), fewest) + _SEARCH_LIMIT_STEPS):
         best = None

@@ -30,7 +30,7 @@ from phantomlab.recipe.solver import BindingLimit, solve_fractions
 from phantomlab.recipe.targets import Target
 from phantomlab.recipe.uncertainty import dose_relative_sd, propagate_sd
 
-__all__ = ["Dose", "MatrixAmounts", "Plan", "Prediction", "intrinsic_table", "is_dry_powder",
+__all__ = ["Dose", "MatrixAmounts", "Plan", "Prediction", "dilution_limits", "intrinsic_table", "is_dry_powder",
            "plan_for_fractions", "predict", "solve", "resolve_potencies"]
 
 #: Doses below this volume fraction count as "not used".
@@ -340,7 +340,27 @@ def dispense_tolerance(amount: float, by: str, limits) -> float:
     return max(2.0 * limits.balance_resolution_g / math.sqrt(6.0), limits.balance_resolution_g)
 
 
-def _doses(recipe, table, fractions, potencies, potency_sds, sources, volume_ml, notes, binding):
+def dilution_limits(recipe: Recipe, unit: str, *, matrix_density_g_per_ml: float | None = None) -> dict[str, Any]:
+    """The recipe's limits as keyword arguments of :func:`plan_dilution` for amounts in ``unit``.
+
+    Volumes of the limits become masses with the matrix density [g/mL] (default the recipe's
+    matrix stock) when the amounts are weighed.
+    """
+    limits = recipe.limits
+    density = recipe.matrix.density_g_per_ml if matrix_density_g_per_ml is None else matrix_density_g_per_ml
+    scale = density if unit == "g" else 1.0
+    return dict(
+        unit=unit, min_amount=limits.min_weigh_g if unit == "g" else limits.min_dispense_ml,
+        max_steps=limits.max_dilution_steps, dead_amount=limits.dead_volume_ml * scale,
+        max_step_factor=limits.max_dilution_factor_per_step,
+        max_vessel_amount=limits.max_dilution_vessel_ml * scale, diluent=_diluent_name(recipe),
+        min_total_amount=min(limits.min_dilution_g if unit == "g" else limits.min_dilution_ml,
+                             limits.max_dilution_vessel_ml * scale),
+    )
+
+
+def _doses(recipe, table, fractions, potencies, potency_sds, sources, volume_ml, notes, binding,
+           shared=None):
     limits = recipe.limits
     matrix_density = table.matrix_density_g_per_ml
     doses = []
@@ -356,17 +376,12 @@ def _doses(recipe, table, fractions, potencies, potency_sds, sources, volume_ml,
             continue
         by = "balance" if (recipe.by_mass or is_dry_powder(stock)) else "pipette"
         amount, unit = (m, "g") if by == "balance" else (v, "mL")
-        minimum = limits.min_weigh_g if by == "balance" else limits.min_dispense_ml
-        scale = matrix_density if unit == "g" else 1.0
         try:
-            dilution = plan_dilution(
-                stock=key, dose_amount=amount, unit=unit, min_amount=minimum,
-                max_steps=limits.max_dilution_steps, dead_amount=limits.dead_volume_ml * scale,
-                max_step_factor=limits.max_dilution_factor_per_step,
-                max_vessel_amount=limits.max_dilution_vessel_ml * scale, diluent=_diluent_name(recipe),
-                min_total_amount=min(limits.min_dilution_g if unit == "g" else limits.min_dilution_ml,
-                                     limits.max_dilution_vessel_ml * scale),
-            )
+            if shared and key in shared:
+                dilution = _reuse(shared[key], key, amount, unit)
+            else:
+                dilution = plan_dilution(stock=key, dose_amount=amount, **dilution_limits(
+                    recipe, unit, matrix_density_g_per_ml=matrix_density))
         except DilutionInfeasible as exc:
             binding.append(BindingLimit("max_dilution_steps", float(exc.needed_steps or math.inf),
                                         float(limits.max_dilution_steps), str(exc)))
@@ -385,6 +400,17 @@ def _doses(recipe, table, fractions, potencies, potency_sds, sources, volume_ml,
             potency_source=sources[i],
         ))
     return tuple(doses)
+
+
+def _reuse(shared: DilutionPlan, key: str, amount: float, unit: str) -> DilutionPlan:
+    """The dose ``amount`` delivered from the steps of a dilution made for several batches."""
+    if shared.unit != unit:
+        raise InputError(f"plan: the shared dilution of {key!r} is in {shared.unit}, the dose in {unit}")
+    if not shared.steps:
+        return DilutionPlan(stock=key, unit=unit, dose_amount=amount, steps=(), dispense_amount=amount,
+                            diluent=shared.diluent)
+    return DilutionPlan(stock=key, unit=unit, dose_amount=amount, steps=shared.steps,
+                        dispense_amount=amount / shared.overall_factor, diluent=shared.diluent)
 
 
 def _matrix_amounts(recipe, table, fractions, volume_ml, doses) -> MatrixAmounts:
@@ -565,7 +591,7 @@ def _solve(recipe, *, potencies, table, curve) -> Plan:
     return _assemble(recipe, potencies=potencies, table=table, curve=curve, fractions=None)
 
 
-def _assemble(recipe, *, potencies, table, curve, fractions, check_target=True) -> Plan:
+def _assemble(recipe, *, potencies, table, curve, fractions, check_target=True, shared=None) -> Plan:
     target = recipe.target
     values, sds, sources, notes = resolve_potencies(recipe, potencies)
     if table is None:
@@ -578,7 +604,7 @@ def _assemble(recipe, *, potencies, table, curve, fractions, check_target=True) 
     else:
         binding = []
     volume_ml = _batch_volume(recipe, table, fractions)
-    doses = _doses(recipe, table, fractions, values, sds, sources, volume_ml, notes, binding)
+    doses = _doses(recipe, table, fractions, values, sds, sources, volume_ml, notes, binding, shared)
     matrix = _matrix_amounts(recipe, table, fractions, volume_ml, doses)
     dose_sds = np.array([d.relative_sd for d in doses])
     predicted = _prediction(table, fractions, values, sds, dose_sds, recipe.limits.matrix_rel_error)
@@ -608,7 +634,8 @@ def _assemble(recipe, *, potencies, table, curve, fractions, check_target=True) 
 
 def plan_for_fractions(recipe: Recipe, volume_fractions: Mapping[str, float], *, potencies=None,
                        table: IntrinsicTable | None = None, curve: bool = False,
-                       check_target: bool = True) -> Plan:
+                       check_target: bool = True,
+                       shared_dilutions: Mapping[str, DilutionPlan] | None = None) -> Plan:
     """A plan for given doses (no solving): amounts, pre-dilutions, prediction with SDs.
 
     Used for the levels of a calibration series and for re-planning fixed doses.
@@ -625,6 +652,10 @@ def plan_for_fractions(recipe: Recipe, volume_fractions: Mapping[str, float], *,
         Also predict a dense spectrum for the sheet's plot.
     check_target : bool
         Warn where the doses miss the recipe's target (off for calibration-series levels).
+    shared_dilutions : mapping of stock key to DilutionPlan, optional
+        Deliver these stocks through the steps of an existing dilution (one working dilution
+        for several batches, e.g. a calibration series) instead of planning their own; the
+        amount dispensed is the dose divided by that dilution's overall factor.
     """
     unknown = sorted(set(volume_fractions) - set(recipe.stock_keys))
     if unknown:
@@ -634,7 +665,7 @@ def plan_for_fractions(recipe: Recipe, volume_fractions: Mapping[str, float], *,
     if np.any(~np.isfinite(fractions)) or np.any(fractions < 0) or fractions.sum() > 1:
         raise InputError("plan: volume fractions must be finite, >= 0 and sum to at most 1")
     return _assemble(recipe, potencies=potencies, table=table, curve=curve, fractions=fractions,
-                     check_target=check_target)
+                     check_target=check_target, shared=shared_dilutions)
 
 
 def predict(recipe: Recipe, *, volume_fractions: Mapping[str, float], potencies=None,

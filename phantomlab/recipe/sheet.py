@@ -124,7 +124,7 @@ svg.spectra { display: block; margin: 0.5mm auto 0 auto; }
 
 
 def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, date=None,
-                      title: str = "Mixing sheet") -> str:
+                      title: str = "Mixing sheet", note: str | None = None) -> str:
     """The printable one-page A4 mixing sheet as a self-contained HTML document.
 
     Parameters
@@ -136,6 +136,10 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
         Mark the sheet "DRAFT — not a logged batch" (always so without ``batch_id``).
     date : datetime.date, optional
         The sheet's date (default today); also the date expiry is checked against.
+    title : str
+        The heading's first words.
+    note : str, optional
+        A boxed line under the heading (e.g. a working dilution shared by a series).
 
     Returns
     -------
@@ -159,6 +163,8 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
         + (f'<div class="small">{e(recipe.notes)}</div>' if recipe.notes else "")
         + f'</div><div class="batch">{mark}<div>Date {e(_when(date))}</div></div></header>'
     )
+    if note:
+        out.append(f'<div class="alert note">{e(note)}</div>')
     for stock in _used_stocks(plan):
         if _expired(stock, date):
             out.append(f'<div class="alert expired">EXPIRED LOT: {e(stock.key)} lot {e(stock.lot or "(none)")} '
@@ -323,9 +329,16 @@ def render_series_html(series, *, date=None) -> str:
     """The sheets of a calibration series in one HTML document, one A4 page per level."""
     pages = []
     head = None
+    shared = [d for d in getattr(series, "shared_dilutions", ()) if d.steps]
+    note = None
+    if shared:
+        labels = ", ".join(step.label for d in shared for step in d.steps)
+        note = (f"One set of pre-dilutions for the whole series: make {labels} once, as in the "
+                "pre-dilution table (they hold enough for every level), and dispense every level from them.")
     for level in series.levels:
         title = f"Calibration series {series.stock}, level {level.level} ({level.multiple:.3g} × recipe dose)"
-        html = render_sheet_html(level.plan, draft=True, date=date, title=title)
+        has = note is not None and any(d.dilution for d in level.plan.doses)
+        html = render_sheet_html(level.plan, draft=True, date=date, title=title, note=note if has else None)
         start = html.index('<div class="page">')
         end = html.rindex("</body>")
         if head is None:

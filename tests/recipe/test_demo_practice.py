@@ -73,3 +73,32 @@ def test_a_dry_powder_absorber_is_weighed_even_in_a_liquid_recipe():
     dose = plan.dose("carbon_black")
     assert dose.by == "balance" and dose.unit == "g"
     assert plan.dose("lipid20").by == "pipette"
+
+
+@pytest.mark.parametrize("recipe_name, stock", [("demo-nir-liquid", "ink_black"), ("demo-silicone", "carbon_black")])
+def test_series_levels_draw_from_one_working_dilution(recipe_name, stock):
+    from phantomlab.recipe.calibration_series import plan_series
+    from phantomlab.recipe.sheet import render_series_html
+
+    series = plan_series(load_recipe(RECIPES / f"{recipe_name}.toml"), stock, levels=4)
+    shared = series.shared_dilution
+    assert shared is not None and shared.steps
+    doses = [lv.plan.dose(stock) for lv in series.levels[1:]]
+    limits = series.recipe.limits
+    minimum = limits.min_weigh_g if shared.unit == "g" else limits.min_dispense_ml
+    dead = limits.dead_volume_ml * (series.recipe.matrix.density_g_per_ml if shared.unit == "g" else 1.0)
+    for dose in doses:
+        assert dose.dilution.steps == shared.steps  # the same vessels for every level
+        assert dose.dilution.delivered_amount == pytest.approx(dose.mass_g if shared.unit == "g" else dose.volume_ml,
+                                                               rel=1e-12)
+        assert dose.dispense_amount >= minimum * (1 - 1e-9)
+    # the last dilution holds what every level draws from it plus its dead volume
+    assert shared.steps[-1].total_amount >= sum(d.dispense_amount for d in doses) + dead - 1e-9
+    html = render_series_html(series)
+    with_dilutions = sum(1 for lv in series.levels if any(d.dilution for d in lv.plan.doses))
+    assert html.count("One set of pre-dilutions for the whole series") == with_dilutions >= len(series.levels) - 1
+    # a stock held at the recipe dose is pre-diluted once for all levels too
+    for shared_plan in series.shared_dilutions:
+        users = [lv.plan.dose(shared_plan.stock) for lv in series.levels if lv.plan.dose(shared_plan.stock).used]
+        assert all(d.dilution.steps == shared_plan.steps for d in users)
+        assert shared_plan.steps[-1].total_amount >= sum(d.dispense_amount for d in users) + dead - 1e-9

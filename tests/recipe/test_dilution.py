@@ -152,3 +152,23 @@ def test_bad_input(kwargs, match):
     args.update(kwargs)
     with pytest.raises(InputError, match=match):
         plan_dilution(**args)
+
+
+@settings(max_examples=60, deadline=None)
+@given(dose=doses, min_amount=minimums, factor=factors, dead=deads,
+       multiple=st.floats(min_value=1.0, max_value=30.0))
+def test_last_dilution_holds_every_draw_of_a_shared_dilution(dose, min_amount, factor, dead, multiple):
+    try:
+        plan = plan_dilution(stock="x", dose_amount=dose, unit="mL", min_amount=min_amount, max_steps=4,
+                             dead_amount=dead, max_step_factor=factor, max_vessel_amount=1e6,
+                             draw_multiple=multiple)
+    except DilutionInfeasible:
+        return
+    _check(plan, dose=dose, min_amount=min_amount, max_steps=4, dead=dead, factor=factor, vessel=1e6)
+    if plan.steps:
+        assert plan.steps[-1].total_amount >= multiple * plan.dispense_amount + dead - 1e-9
+
+
+def test_draw_multiple_below_one_refused():
+    with pytest.raises(InputError, match="draw_multiple must be a number >= 1"):
+        plan_dilution(stock="x", dose_amount=0.001, unit="mL", min_amount=0.01, max_steps=2, draw_multiple=0.5)
