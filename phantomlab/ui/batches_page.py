@@ -19,6 +19,7 @@ import numpy as np
 import pandas as pd
 import streamlit as st
 
+from phantomlab.errors import InputError
 from phantomlab.ui import services
 from phantomlab.ui.plots import Series, line_figure, show_figure, target_series
 from phantomlab.ui.widgets import call_layer
@@ -106,20 +107,29 @@ def _log_table(batches: list[dict]) -> pd.DataFrame:
 # ---- one batch ------------------------------------------------------------------------------------
 
 
-def _planned_rows(batch: dict) -> pd.DataFrame:
-    rows = []
-    actual = {a["stock"]: a for a in (batch["actual_amounts"] or [])}
+def _dispensed_doses(batch: dict) -> list[dict]:
+    """Per used dose: what the sheet says to dispense (stock or its last pre-dilution)."""
+    out = []
     for dose in batch["plan"].get("doses", []):
         if not dose.get("volume_fraction"):
             continue
-        unit = "g" if dose.get("dispense_by") == "balance" else "mL"
-        planned = dose["mass_g"] if unit == "g" else dose["volume_ml"]
-        recorded = actual.get(dose["stock"], {})
-        value = recorded.get("mass_g" if unit == "g" else "volume_ml", np.nan)
-        rows.append({"stock": dose["stock"], "lot": dose.get("lot") or "",
-                     "planned (undiluted stock)": float(planned), "unit": unit,
-                     "dispensed (undiluted stock)": float(value) if value is not None else np.nan})
-    return pd.DataFrame(rows)
+        fraction = 1.0
+        for step in dose.get("dilution") or []:
+            fraction *= float(step["factor"])  # the share of the source in each dilution (1 in 10 → 0.1)
+        unit = dose.get("dispense_unit") or ("g" if dose.get("dispense_by") == "balance" else "mL")
+        out.append({"stock": dose["stock"], "from": dose.get("dispense_from") or f"{dose['stock']} stock",
+                    "amount": float(dose["dispense_amount"]), "tolerance": float(dose.get("tolerance") or 0.0),
+                    "unit": unit, "stock_fraction": fraction})
+    return out
+
+
+def _shown(amount_canonical: float, unit: str) -> str:
+    """A planned amount as the sheet prints it (µL below 1 mL, mg below 1 g)."""
+    if unit == "mL" and amount_canonical < 1.0:
+        return f"{1000 * amount_canonical:.4g} µL"
+    if unit == "g" and amount_canonical < 1.0:
+        return f"{1000 * amount_canonical:.4g} mg"
+    return f"{amount_canonical:.4g} {unit}"
 
 
 def _recorded_amounts(batch: dict) -> pd.DataFrame:
@@ -135,41 +145,57 @@ def _recorded_amounts(batch: dict) -> pd.DataFrame:
 
 
 def _amounts_section(workspace: Workspace, store, batch: dict) -> None:
+    from phantomlab.units import parse_quantity
     from phantomlab.ui.recording import record_dispensed
 
-    st.markdown("**Amounts actually dispensed** — against the sheet; amounts of the undiluted "
-                "stock (a pre-dilution's amount divided by its factor).")
+    st.markdown("**Amounts actually dispensed** — type what went into the batch, as on the sheet: "
+                "of the stock or of its pre-dilution, with its unit.")
     if batch["status"] not in ("planned", "mixed") or batch["retracted"]:
         st.caption(f"The batch is {batch['status']}: amounts are recorded while it is planned or mixed.")
         if batch["actual_amounts"]:
             st.dataframe(_recorded_amounts(batch), hide_index=True, width="stretch")
         return
-    table = _planned_rows(batch)
-    if table.empty:
+    doses = _dispensed_doses(batch)
+    if not doses:
         st.info("The plan of this batch doses no stock.")
         return
-    with st.form(f"batches.amounts.{batch['code']}"):
-        edited = st.data_editor(
-            table, hide_index=True, width="stretch", disabled=["stock", "lot", "planned (undiluted stock)", "unit"],
-            key=f"batches.amounts_editor.{batch['code']}",
-            column_config={"dispensed (undiluted stock)": st.column_config.NumberColumn(min_value=0.0, format="%.5g")},
-        )
-        operator = st.text_input("Recorded by", key=f"batches.amounts_by.{batch['code']}")
+    code = batch["code"]
+    with st.form(f"batches.amounts.{code}"):
+        columns = st.columns(min(len(doses), 3))
+        for index, dose in enumerate(doses):
+            planned = _shown(dose["amount"], dose["unit"])
+            columns[index % len(columns)].text_input(
+                f"{dose['stock']}: from {dose['from']} (with unit, e.g. {planned})",
+                key=f"batches.amount.{code}.{dose['stock']}",
+                help=f"Sheet: {planned} ± {_shown(dose['tolerance'], dose['unit'])} of {dose['from']}",
+            )
+        operator = st.text_input("Recorded by", key=f"batches.amounts_by.{code}")
         pressed = st.form_submit_button("Record the amounts", type="primary")
     if not pressed:
         return
-    values = edited["dispensed (undiluted stock)"]
-    if values.isna().any():
-        st.error("Dispensed: fill every row (give 0 for a stock left out).")
+    amounts, refused = {}, []
+    for dose in doses:
+        text = st.session_state.get(f"batches.amount.{code}.{dose['stock']}", "")
+        try:
+            value = parse_quantity(text, "mass" if dose["unit"] == "g" else "volume")
+        except InputError as exc:
+            refused.append(f"{dose['stock']}: {exc}")
+            continue
+        if value < 0:
+            refused.append(f"{dose['stock']}: {text!r} must be >= 0")
+            continue
+        amounts[dose["stock"]] = (value, dose["unit"], dose["stock_fraction"])
+    if refused:
+        for line in refused:
+            st.error(line)
+        st.caption("Give every amount with its unit (0 mL for a stock left out).")
         return
-    amounts = {row["stock"]: (float(row["dispensed (undiluted stock)"]), row["unit"])
-               for _, row in edited.iterrows()}
-    outcome = call_layer("Recording the amounts", record_dispensed, store, batch["code"], amounts,
+    outcome = call_layer("Recording the amounts", record_dispensed, store, code, amounts,
                          recorded_by=operator.strip() or None, recipes_folder=workspace.recipes_folder)
     if outcome.ok:
         version, prediction, alarms = outcome.value
         st.session_state["batches.notice"] = (
-            f"Amounts of batch {batch['code']} recorded (version {version}); "
+            f"Amounts of batch {code} recorded (version {version}); "
             + ("within the recipe tolerance." if not alarms else f"{len(alarms)} alarm(s).")
         )
         st.rerun()
@@ -228,7 +254,7 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
                 mime="text/csv", key="batches.demo_measurement", on_click="ignore",
                 help="Synthetic R(ρ) of what was dispensed (invented true potencies, 2 % noise): attach it "
                      "below to try the loop.")
-    with st.form(f"batches.measure.{batch['code']}"):
+    with st.form(f"batches.measure.{batch['code']}", clear_on_submit=True):
         upload = st.file_uploader("Measurement file (CSV)", type=["csv"], key="batches.file")
         sidecar = st.file_uploader("Its metadata file (TOML, optional: n, thickness, instrument, reference)",
                                    type=["toml"], key="batches.sidecar")

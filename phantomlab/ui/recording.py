@@ -205,8 +205,10 @@ def record_dispensed(store, code: str, amounts: Mapping[str, tuple[float, str]],
 
     Parameters
     ----------
-    amounts : mapping of stock key to (amount, unit)
-        Of the *undiluted* stock in the batch: unit ``"mL"`` (volume) or ``"g"`` (mass).
+    amounts : mapping of stock key to (amount, unit) or (amount, unit, stock_fraction)
+        What went into the batch: unit ``"mL"`` (volume) or ``"g"`` (mass); with
+        ``stock_fraction`` < 1 the amount is of a pre-dilution holding that fraction of the
+        stock (1 in 10 → 0.1), and the undiluted stock is amount × fraction.
 
     Returns
     -------
@@ -225,16 +227,21 @@ def record_dispensed(store, code: str, amounts: Mapping[str, tuple[float, str]],
     planned = {d["stock"]: d for d in plan_json.get("doses", [])}
     fractions: dict[str, float] = {}
     rows = []
-    for key, (amount, unit) in amounts.items():
+    for key, given in amounts.items():
+        amount, unit = given[0], given[1]
+        stock_fraction = float(given[2]) if len(given) > 2 else 1.0
+        if not 0 < stock_fraction <= 1:
+            raise InputError(f"{key}: stock fraction of the pre-dilution {stock_fraction!r} must lie in (0, 1]")
         if key not in recipe.stock_keys:
             raise InputError(f"{key!r} is not a stock of this batch; its stocks: {', '.join(recipe.stock_keys)}")
         if not (np.isfinite(amount) and amount >= 0):
             raise InputError(f"{key}: amount {amount!r} must be a number >= 0")
         stock = recipe.stock(key)
+        undiluted = float(amount) * stock_fraction
         if unit == "mL":
-            volume, mass = float(amount), float(amount) * stock.density_g_per_ml
+            volume, mass = undiluted, undiluted * stock.density_g_per_ml
         elif unit == "g":
-            mass, volume = float(amount), float(amount) / stock.density_g_per_ml
+            mass, volume = undiluted, undiluted / stock.density_g_per_ml
         else:
             raise InputError(f"{key}: unit {unit!r} not accepted; accepted: mL, g")
         fractions[key] = volume / volume_ml
@@ -242,7 +249,8 @@ def record_dispensed(store, code: str, amounts: Mapping[str, tuple[float, str]],
         # planned batch volume is the total)
         rows.append({"stock": key, "volume_ml": volume, "mass_g": mass,
                      "given": {"volume_ml" if unit == "mL" else "mass_g": float(amount)},
-                     "dilution_factor": 1.0, "planned_volume_ml": planned.get(key, {}).get("volume_ml"),
+                     "dilution_factor": 1.0 / stock_fraction,
+                     "planned_volume_ml": planned.get(key, {}).get("volume_ml"),
                      "planned_mass_g": planned.get(key, {}).get("mass_g"), "volume_fraction": fractions[key]})
     from phantomlab.commands.batch import tolerance_alarms  # the same alarm lines as `batch actual`
     from phantomlab.jsonable import to_jsonable

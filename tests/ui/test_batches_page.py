@@ -63,11 +63,18 @@ def test_filters_by_status(page, go_to):
     assert any("No batch matches" in c.value for c in app.caption)
 
 
-def _edit_amounts(app, code: str, values: list[float]) -> None:
-    app.session_state[f"batches.amounts_editor.{code}"] = {
-        "edited_rows": {i: {"dispensed (undiluted stock)": v} for i, v in enumerate(values)},
-        "added_rows": [], "deleted_rows": [],
-    }
+def _dispensed_text(dose, undiluted_ml: float) -> str:
+    """What the technician types: the amount of the stock or of its pre-dilution, in µL."""
+    fraction = 1.0
+    for step in (dose.dilution.steps if dose.dilution else ()):
+        fraction *= step.factor
+    return f"{1000.0 * undiluted_ml / fraction!r} uL"
+
+
+def _edit_amounts(app, code: str, plan, undiluted_ml: list[float]) -> None:
+    used = [d for d in plan.doses if d.used]
+    for dose, volume in zip(used, undiluted_ml):
+        app.text_input(key=f"batches.amount.{code}.{dose.stock}").set_value(_dispensed_text(dose, volume))
     [b for b in app.get("button") if b.proto.label == "Record the amounts"][0].click()
     app.run()
     assert not app.exception
@@ -79,7 +86,7 @@ def test_recording_the_amounts_predicts_what_was_made(page, go_to, planned, demo
     assert app.selectbox(key="batches.open").value == code
     used = [d for d in plan.doses if d.used]
     amounts = [d.volume_ml * 1.01 for d in used]
-    _edit_amounts(app, code, amounts)
+    _edit_amounts(app, code, plan, amounts)
     assert any(f"Amounts of batch {code} recorded" in s.value for s in app.success)
     from phantomlab.store import get_batch
 
@@ -103,7 +110,7 @@ def test_amounts_far_from_the_sheet_raise_an_alarm(page, go_to, planned):
     code, plan = planned
     app = go_to(page, "Batch log")
     used = [d for d in plan.doses if d.used]
-    _edit_amounts(app, code, [d.volume_ml * (2.0 if d.stock == "ink_black" else 1.0) for d in used])
+    _edit_amounts(app, code, plan, [d.volume_ml * (2.0 if d.stock == "ink_black" else 1.0) for d in used])
     alarms = [e.value for e in app.error if e.value.startswith("ALARM")]
     assert alarms and all("from target (tolerance ±" in a for a in alarms)  # the `batch actual` lines
 
@@ -113,7 +120,39 @@ def test_an_unfilled_amount_is_refused(page, go_to, planned):
     app = go_to(page, "Batch log")
     [b for b in app.get("button") if b.proto.label == "Record the amounts"][0].click()
     app.run()
-    assert any("fill every row" in e.value for e in app.error)
+    assert not app.exception
+    assert any("empty quantity" in e.value for e in app.error)
+
+
+def test_an_amount_without_its_unit_is_refused(page, go_to, planned):
+    code, plan = planned
+    app = go_to(page, "Batch log")
+    used = [d for d in plan.doses if d.used]
+    for dose in used:
+        app.text_input(key=f"batches.amount.{code}.{dose.stock}").set_value("12")
+    [b for b in app.get("button") if b.proto.label == "Record the amounts"][0].click()
+    app.run()
+    assert sum("no unit given" in e.value for e in app.error) == len(used)
+
+
+def test_a_pre_diluted_amount_is_taken_back_to_the_stock(page, go_to, planned, demo_file):
+    """44.6 uL of a 1-in-10 pre-dilution is 4.46 uL of stock (the sheet's own arithmetic)."""
+    code, plan = planned
+    diluted = [d for d in plan.doses if d.used and d.dilution is not None and d.dilution.steps]
+    assert diluted, "the demo recipe pre-dilutes its absorbers"
+    app = go_to(page, "Batch log")
+    _edit_amounts(app, code, plan, [d.volume_ml for d in plan.doses if d.used])
+    from phantomlab.store import get_batch
+
+    store = _store(demo_file)
+    try:
+        with store.reading() as session:
+            rows = {r["stock"]: r for r in get_batch(session, code).actual_amounts}
+    finally:
+        store.close()
+    for dose in diluted:
+        assert rows[dose.stock]["volume_ml"] == pytest.approx(dose.volume_ml, rel=1e-12)
+        assert rows[dose.stock]["given"]["volume_ml"] == pytest.approx(dose.dispense_amount, rel=1e-12)
 
 
 OPTICS_FILE = ("# source: test data, invented\n"
@@ -207,7 +246,7 @@ def test_spread_across_batches_and_drift_with_age(page, go_to, downloads, demo_f
 def test_the_demo_offers_an_invented_measurement_that_attaches_and_fits(page, go_to, planned, downloads):
     code, plan = planned
     app = go_to(page, "Batch log")
-    _edit_amounts(app, code, [d.volume_ml for d in plan.doses if d.used])
+    _edit_amounts(app, code, plan, [d.volume_ml for d in plan.doses if d.used])
     name, content = downloads.content(app, "Demo only: download an invented probe measurement")
     assert content.decode().startswith("# source: demo data, invented")
     app.selectbox(key="batches.kind").set_value("srdr").run()

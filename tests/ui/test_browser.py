@@ -11,6 +11,7 @@ Launch flags: ../shared/TOOLING.md (the system browser, never a downloaded one).
 from __future__ import annotations
 
 import os
+import re
 import shutil
 import socket
 import subprocess
@@ -183,12 +184,52 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
             sheet_page.screenshot(path=shots / "03-sheet.png", full_page=True)
             sheet_page.close()
 
-            for index, name in enumerate(["Stock shelf", "Batch log", "Fit and correct"], 4):
+            # save the plan as a batch: it gets an ID
+            page.get_by_label("Operator (your name or initials)").fill("browser test")
+            page.get_by_role("button", name="Save as a new batch").click()
+            page.get_by_text("Saved as batch").first.wait_for()
+            _settle(page)
+            _no_exception(page, "after saving the batch")
+
+            for index, name in enumerate(["Stock shelf", "Batch log"], 4):
                 page.get_by_text(name, exact=True).first.click()
                 page.get_by_role("heading", name=name).first.wait_for()
                 _settle(page)
                 _no_exception(page, f"on the page {name!r}")
                 _shoot(page, shots / f"0{index}-{name.replace(' ', '-')}.png")
+
+            # at the bench: type what was dispensed, as the sheet gives it (stock or pre-dilution)
+            fields = page.get_by_role("textbox", name=re.compile(r": from .* \(with unit, e\.g\. "))
+            assert fields.count() == 3, "one field per dosed stock of the demo recipe"
+            for index in range(fields.count()):
+                field = fields.nth(index)
+                label = field.get_attribute("aria-label") or ""
+                planned = re.search(r"e\.g\. ([0-9.]+ (?:µL|mL|mg|g))\)", label)
+                assert planned, label
+                field.fill(planned.group(1).replace("µ", "u"))
+                field.press("Tab")
+            page.get_by_role("button", name="Record the amounts").click()
+            page.get_by_text("recorded (version").first.wait_for()
+            _settle(page)
+            _no_exception(page, "after recording the amounts")
+            page.get_by_role("tab", name="Measurements").click()
+            with page.expect_download() as download_info:
+                page.get_by_role("button", name=re.compile("Demo only: download an invented")).click()
+            measurement = tmp_path / "demo-measurement.csv"
+            download_info.value.save_as(measurement)
+            page.locator('[data-testid="stFileUploaderDropzoneInput"]').first.set_input_files(str(measurement))
+            _settle(page)
+            page.get_by_role("button", name="Fit and attach").click()
+            page.get_by_text("attached to batch").first.wait_for()
+            _settle(page)
+            _no_exception(page, "after attaching a measurement")
+            _shoot(page, shots / "06-batch-measured.png")
+
+            page.get_by_text("Fit and correct", exact=True).first.click()
+            page.get_by_role("heading", name="Fit and correct").first.wait_for()
+            _settle(page)
+            _no_exception(page, "on the page 'Fit and correct'")
+            _shoot(page, shots / "06-Fit-and-correct.png")
 
             # after the measurements, to a corrected next recipe, without the command line
             page.get_by_role("tab", name="Recalibrate the stocks").click()
