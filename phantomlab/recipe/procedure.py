@@ -12,7 +12,7 @@ import math
 
 from phantomlab.recipe.plan import is_dry_powder
 
-__all__ = ["AmountLine", "amount_lines", "procedure_steps", "format_amount"]
+__all__ = ["AmountLine", "amount_lines", "procedure_steps", "format_amount", "format_tolerance"]
 
 
 def format_amount(amount: float, unit: str) -> str:
@@ -26,6 +26,14 @@ def format_amount(amount: float, unit: str) -> str:
             return f"{amount * 1000:.3g} mg" if amount * 1000 < 100 else f"{amount * 1000:.0f} mg"
         return f"{amount:.4g} g"
     return f"{amount:.4g} {unit}"
+
+
+def format_tolerance(amount: float, unit: str) -> str:
+    """A tolerance to two significant figures (a ± has no more meaning than that), µL/mg below 1 mL/1 g."""
+    small = {"mL": ("µL", 1000.0), "g": ("mg", 1000.0)}
+    shown, scale = (small[unit] if unit in small and amount < 1.0 else (unit, 1.0))
+    value = float(f"{amount * scale:.2g}")
+    return f"{value:g} {shown}"
 
 
 class AmountLine:
@@ -48,7 +56,7 @@ class AmountLine:
 
     @property
     def tolerance_text(self) -> str:
-        return "± " + format_amount(self.tolerance, self.unit)
+        return "± " + format_tolerance(self.tolerance, self.unit)
 
 
 def amount_lines(plan) -> list[AmountLine]:
@@ -96,8 +104,8 @@ def procedure_steps(plan) -> list[str]:
         powders = [d.stock for d in diluted if is_dry_powder(recipe.stock(d.stock))]
         if powders:
             # common practice, no source: a thin smear shows undispersed grains the eye misses in bulk
-            steps.append(f"Weigh {', '.join(powders)} in a ventilated enclosure onto its diluent "
-                         f"({plan.dose(powders[0]).dilution.diluent}); stir in with a spatula, then mix "
+            steps.append(f"Weigh {', '.join(powders)} in a ventilated enclosure onto its diluent, "
+                         f"{plan.dose(powders[0]).dilution.diluent}; stir in with a spatula, then mix "
                          "until a thin smear between glass slides shows no specks.")
     adds = []
     if absorbers:

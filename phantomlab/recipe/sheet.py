@@ -22,7 +22,7 @@ import numpy as np
 
 from phantomlab.recipe.cautions import CLOSING_LINE, cautions_for
 from phantomlab.recipe.plan import dispense_tolerance
-from phantomlab.recipe.procedure import amount_lines, format_amount, procedure_steps
+from phantomlab.recipe.procedure import amount_lines, format_amount, format_tolerance, procedure_steps
 from phantomlab.recipe.svgplot import spectra_svg
 
 __all__ = ["render_sheet_html", "render_sheet_csv", "render_series_html", "sheet_json", "dilution_text", "DRAFT_MARK",
@@ -41,6 +41,17 @@ SVG_HEIGHT_PX = 112
 def dilution_text(factor: float) -> str:
     """A step's dilution as a technician reads it: ``"1 in 10"`` for a source fraction of 0.1."""
     return f"1 in {1.0 / factor:.4g}"
+
+
+def _source_text(plan, line) -> str:
+    """Where an amount comes from; a pre-dilution with its overall dilution (what ``batch actual``
+    takes as ``dilution_factor`` when the dispensed amount of the dilution is logged)."""
+    if line.stock is None:
+        return line.source
+    dilution = plan.dose(line.stock).dilution
+    if dilution is None:
+        return line.source
+    return f"{line.source} ({dilution_text(dilution.overall_factor)} overall)"
 
 
 def _when(date) -> str:
@@ -200,7 +211,7 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
 
             def with_tol(amount, unit=unit, by=dose.by):
                 tol = dispense_tolerance(amount, by, recipe.limits)
-                return f"{format_amount(amount, unit)} ± {format_amount(tol, unit)}"
+                return f"{format_amount(amount, unit)} ± {format_tolerance(tol, unit)}"
 
             for step in dose.dilution.steps:
                 out.append(
@@ -214,7 +225,7 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
     out.append("<h2>Amounts into the batch</h2><table><tr><th>line</th><th>what</th><th>from</th>"
                "<th>how</th><th>amount</th><th>tolerance</th><th>actual</th></tr>")
     for line in amount_lines(plan):
-        out.append(f"<tr><td>{line.number}</td><td>{e(line.label)}</td><td>{e(line.source)}</td>"
+        out.append(f"<tr><td>{line.number}</td><td>{e(line.label)}</td><td>{e(_source_text(plan, line))}</td>"
                    f"<td>{e(line.how)}</td><td class='num'>{e(line.text)}</td>"
                    f"<td class='num'>{e(line.tolerance_text)}</td><td class='actual'></td></tr>")
     out.append("</table><div class='small'>" + ("" if diluted else f"{e(TOLERANCE_NOTE)} ")
@@ -243,8 +254,8 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
     out.append("</table>")
     shown = "" if rows.size == target.wavelength_nm.size else (
         f" Table shows {rows.size} of {target.wavelength_nm.size} target wavelengths; the CSV and JSON hold all.")
-    out.append(f"<div class='small'>{e(G_NOTE)} SD: potency SDs and dispensing errors.{e(shown)} "
-               "Plot: grey = ±1 SD, circles or dashed line = target.</div>")
+    out.append(f"<div class='small'>{e(G_NOTE)} SD: potencies and dispensing.{e(shown)} "
+               "Plot: grey ±1 SD; circles or dashes: target.</div>")
     out.append(spectra_svg(plan, height=SVG_HEIGHT_PX))
 
     # warnings and cautions
@@ -306,7 +317,7 @@ def render_sheet_csv(plan, *, batch_id: str | None = None, draft: bool = True, d
                 writer.writerow(["predilution", item, f"{amount:.6g}", unit, f"{tolerance:.3g}", "", note])
     for line in amount_lines(plan):
         writer.writerow(["amount", f"{line.number} {line.label}", f"{line.amount:.6g}", line.unit,
-                         f"{line.tolerance:.3g}", "", f"{line.how} from {line.source}"])
+                         f"{line.tolerance:.3g}", "", f"{line.how} from {_source_text(plan, line)}"])
     for number, step in enumerate(procedure_steps(plan), start=1):
         writer.writerow(["step", number, step, "", "", "", ""])
     pred = plan.predicted

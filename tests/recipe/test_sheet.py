@@ -130,12 +130,21 @@ def test_sheet_answers_the_technicians_questions():
     silicone = solve(load_recipe(RECIPES / "demo-silicone.toml"))
     text = _parse(render_sheet_html(silicone))
     assert "5 kPa absolute" in text and "working time on the silicone's data sheet" in text
-    assert "Weigh carbon_black in a ventilated enclosure onto its diluent (silicone base (part A))" in text
+    assert "Weigh carbon_black in a ventilated enclosure onto its diluent, silicone base (part A);" in text
     assert "10 g (1 in 100)" in text and "carbon-black pigment powder (demo)" in text
+    assert "carbon_black-D1 (1 in 100 overall)" in text  # the dilution_factor batch actual takes
     gel = solve(load_recipe(RECIPES / "demo-gel-g.toml"))
     powder = gel.matrix.parts[0][1]
     # 17.13 g of gelatin in the 200 mL batch: the stocks dilute the 10 % gel
     assert f"gelatin {100 * powder / 200:.3g} % w/v in the phantom" in _parse(render_sheet_html(gel))
+
+
+def test_tolerances_print_to_two_significant_figures():
+    from phantomlab.recipe.procedure import format_tolerance
+
+    assert format_tolerance(4.758, "mL") == "4.8 mL" and format_tolerance(0.478, "mL") == "480 µL"
+    assert format_tolerance(0.001, "g") == "1 mg" and format_tolerance(0.00357, "mL") == "3.6 µL"
+    assert format_tolerance(0.0196, "mL") == "20 µL" and format_tolerance(12.34, "g") == "12 g"
 
 
 def test_dilution_text():
