@@ -16,11 +16,12 @@ $(STAMP): pyproject.toml
 	$(BIN)/python -m pip install --quiet -e ".[test]"
 	touch $(STAMP)
 
-# make run             - the page on the demo database demo-data/phantomlab-demo.sqlite
-# make run DB=URL       - the page on your lab's own database (never receives demo data)
+# make run                         - the page on the demo database demo-data/phantomlab-demo.sqlite
+# make run DB=URL SHELF=STOCKS.toml - the page on your lab's own database (never receives demo data)
 run: $(STAMP)
 	$(BIN)/python -m streamlit run app.py --server.headless true \
-	  --browser.gatherUsageStats false $(if $(DB),-- --db "$(DB)")
+	  --browser.gatherUsageStats false --client.toolbarMode minimal \
+	  $(if $(DB)$(SHELF),--) $(if $(DB),--db "$(DB)") $(if $(SHELF),--shelf "$(SHELF)")
 
 # One BLAS thread: the suite's small matrices run slower with threads fighting over 2 cores.
 test: $(STAMP)

@@ -8,7 +8,8 @@ The page runs either on a lab's own database or on a demo database of its own:
   beside ``app.py`` (or the file ``PHANTOMLAB_DEMO_DB`` names) and seeds it on first use with
   the invented demo shelf and two demo batches (:mod:`phantomlab.ui.demo`).
 
-The stock file (the shelf) comes from ``--shelf FILE`` or ``PHANTOMLAB_SHELF``; the demo uses
+The stock file (the shelf) comes from ``--shelf FILE`` or ``PHANTOMLAB_SHELF``; a lab database
+needs one (the demo shelf would otherwise reach it through a saved batch); the demo uses
 ``recipes/demo-stocks.toml``.
 """
 
@@ -84,6 +85,11 @@ def resolve_workspace(argv: Sequence[str], environ: Mapping[str, str]) -> Worksp
     if shelf_text and not shelf_path.is_file():
         raise InputError(f"stock file {shelf_text!r} not found; give a stocks TOML file")
     if url:
+        if not shelf_text:  # the demo shelf must not reach a lab's database through a saved batch
+            raise InputError(
+                "a lab database needs the lab's stock file: give --shelf FILE or PHANTOMLAB_SHELF "
+                "(the demo shelf is only used with the demo database)"
+            )
         return Workspace(database_url=url, shelf_path=shelf_path, is_demo=False)
     demo_text = environ.get("PHANTOMLAB_DEMO_DB")
     demo_file = Path(demo_text).expanduser().resolve() if demo_text else DEMO_DATABASE

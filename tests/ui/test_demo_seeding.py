@@ -73,10 +73,21 @@ def test_a_second_run_does_not_seed_again(clean_env, tmp_path):
     assert _counts(f"sqlite:///{demo}") == before
 
 
+def _lab_shelf(tmp_path):
+    """The lab's own stock file (for the test: a copy of the demo shelf's content and spectra)."""
+    import shutil
+
+    folder = tmp_path / "lab-stocks"
+    shutil.copytree(DEMO_SHELF.parent, folder, ignore=shutil.ignore_patterns("demo-*.toml"))
+    shutil.copyfile(DEMO_SHELF, folder / "stocks.toml")
+    return folder / "stocks.toml"
+
+
 def test_a_labs_database_never_receives_demo_data(clean_env, tmp_path):
     lab = tmp_path / "lab.sqlite"
     demo = tmp_path / "demo.sqlite"
     clean_env.setenv("PHANTOMLAB_DB", f"sqlite:///{lab}")
+    clean_env.setenv("PHANTOMLAB_SHELF", str(_lab_shelf(tmp_path)))
     clean_env.setenv("PHANTOMLAB_DEMO_DB", str(demo))
     app = AppTest.from_file(APP, default_timeout=120).run()
     assert not app.exception
@@ -100,8 +111,22 @@ def test_seeding_refuses_a_lab_database(tmp_path):
 @pytest.mark.parametrize("page_name", ["Design a phantom", "Stock shelf", "Batch log", "Fit and correct"])
 def test_every_page_opens_on_an_empty_lab_database(clean_env, tmp_path, page_name):
     clean_env.setenv("PHANTOMLAB_DB", f"sqlite:///{tmp_path / 'lab.sqlite'}")
+    clean_env.setenv("PHANTOMLAB_SHELF", str(_lab_shelf(tmp_path)))
     app = AppTest.from_file(APP, default_timeout=120).run()
     app.sidebar.radio(key="page").set_value(page_name).run()
     assert not app.exception, [e.message for e in app.exception]
     assert page_name in [h.value for h in app.header]
-    assert not [e.value for e in app.error]
+    errors = [e.value for e in app.error]
+    if page_name == "Design a phantom":  # no recipe file beside the lab's stock file: a blank recipe
+        assert errors == ["Stocks: choose at least one scatterer or absorber.",
+                          "Target: give μa or μs′ (or both) at the wavelengths."]
+    else:
+        assert not errors
+
+
+def test_a_lab_database_without_a_stock_file_says_so_instead_of_using_the_demo_shelf(clean_env, tmp_path):
+    clean_env.setenv("PHANTOMLAB_DB", f"sqlite:///{tmp_path / 'lab.sqlite'}")
+    app = AppTest.from_file(APP, default_timeout=120).run()
+    assert not app.exception
+    assert any("needs the lab's stock file" in e.value for e in app.error)
+    assert not (tmp_path / "lab.sqlite").exists()

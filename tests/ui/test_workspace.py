@@ -21,22 +21,37 @@ def test_no_database_given_means_the_demo_file():
     assert workspace.shelf_path == DEMO_SHELF
 
 
-def test_db_option_is_the_labs_database_not_the_demo():
-    workspace = resolve_workspace(["--db", "sqlite:////tmp/lab.sqlite"], {})
+@pytest.fixture
+def lab_shelf(tmp_path):
+    shelf = tmp_path / "stocks.toml"
+    shelf.write_text(DEMO_SHELF.read_text(encoding="utf-8"), encoding="utf-8")
+    return str(shelf)
+
+
+def test_db_option_is_the_labs_database_not_the_demo(lab_shelf):
+    workspace = resolve_workspace(["--db", "sqlite:////tmp/lab.sqlite", "--shelf", lab_shelf], {})
     assert not workspace.is_demo
     assert workspace.database_url == "sqlite:////tmp/lab.sqlite"
     assert workspace.demo_file is None
+    assert str(workspace.shelf_path) == lab_shelf
 
 
-def test_environment_variable_is_the_labs_database():
-    workspace = resolve_workspace([], {"PHANTOMLAB_DB": "postgresql://u@h/lab"})
+def test_environment_variable_is_the_labs_database(lab_shelf):
+    workspace = resolve_workspace([], {"PHANTOMLAB_DB": "postgresql://u@h/lab", "PHANTOMLAB_SHELF": lab_shelf})
     assert not workspace.is_demo
     assert workspace.database_url == "postgresql://u@h/lab"
 
 
-def test_option_wins_over_environment():
-    workspace = resolve_workspace(["--db", "sqlite:///a.sqlite"], {"PHANTOMLAB_DB": "sqlite:///b"})
+def test_option_wins_over_environment(lab_shelf):
+    workspace = resolve_workspace(["--db", "sqlite:///a.sqlite"],
+                                  {"PHANTOMLAB_DB": "sqlite:///b", "PHANTOMLAB_SHELF": lab_shelf})
     assert workspace.database_url == "sqlite:///a.sqlite"
+
+
+def test_a_lab_database_without_its_stock_file_is_refused():
+    """Else the demo shelf would reach the lab's database through the first saved batch."""
+    with pytest.raises(InputError, match=r"a lab database needs the lab's stock file: give --shelf FILE"):
+        resolve_workspace(["--db", "sqlite:///lab.sqlite"], {})
 
 
 def test_demo_file_can_be_moved_for_tests(tmp_path):
@@ -45,9 +60,9 @@ def test_demo_file_can_be_moved_for_tests(tmp_path):
     assert workspace.is_demo and workspace.demo_file == target.resolve()
 
 
-def test_demo_file_setting_is_ignored_when_a_lab_database_is_given(tmp_path):
+def test_demo_file_setting_is_ignored_when_a_lab_database_is_given(tmp_path, lab_shelf):
     workspace = resolve_workspace(
-        ["--db", "sqlite:///lab.sqlite"], {"PHANTOMLAB_DEMO_DB": str(tmp_path / "d.sqlite")}
+        ["--db", "sqlite:///lab.sqlite", "--shelf", lab_shelf], {"PHANTOMLAB_DEMO_DB": str(tmp_path / "d.sqlite")}
     )
     assert not workspace.is_demo and workspace.database_url == "sqlite:///lab.sqlite"
 
