@@ -354,9 +354,14 @@ def _one_batch(workspace: Workspace, store, batch: dict) -> None:
             st.caption("No measurement attached yet.")
         _measure_section(workspace, store, batch)
     with history:
+        st.markdown("**Versions of the batch record**")
         st.dataframe(read_history(store, batch["code"]), hide_index=True, width="stretch")
-        if batch["measurements"]:
-            st.caption("Measurements and fits are records of their own; each keeps its versions too.")
+        fits = [{"measurement": m["id"], "file": m["file_name"], "fit": f["id"], "model": f["model"],
+                 "reduced χ²": f["chi2_red"], "recorded at (UTC)": f["recorded_at"]}
+                for m in batch["measurements"] for f in sorted(m["fits"], key=lambda f: (f["recorded_at"], f["id"]))]
+        if fits:
+            st.markdown("**Measurements and their fits** (the newest fit of each measurement counts)")
+            st.dataframe(pd.DataFrame(fits), hide_index=True, width="stretch")
 
 
 # ---- across batches --------------------------------------------------------------------------------

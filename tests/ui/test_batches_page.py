@@ -174,6 +174,8 @@ def test_attaching_a_measurement_keeps_the_file_and_its_fit(page, go_to, planned
     app = go_to(page, "Batch log")
     _attach(app, "probe.csv", OPTICS_FILE.encode())
     assert any("probe.csv attached" in s.value for s in app.success)
+    history = [f.value for f in app.dataframe if {"fit", "model", "file"} <= set(f.value.columns)]
+    assert history and list(history[0]["file"]) == ["probe.csv"]
     from phantomlab.store import fits_of, get_batch, measurements_of
 
     store = _store(demo_file)
