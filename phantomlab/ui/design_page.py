@@ -627,7 +627,14 @@ def show(workspace: Workspace) -> None:
     def restart() -> None:
         call_layer("Reading the recipe", _apply_start, workspace, shelf, st.session_state["design.start"])
 
+    names = {}
+    for choice in files:
+        try:
+            names[choice] = str(_read_recipe_definition(workspace.recipes_folder / choice).get("name", ""))
+        except InputError:
+            names[choice] = ""
     st.selectbox("Start from", choices, key="design.start", on_change=restart,
+                 format_func=lambda c: f"{names[c]} — {c}" if names.get(c) else c,
                  help="A recipe file fills in the fields below; change any of them.")
     definition, base_dir = _definition(workspace, shelf)
     if definition is None:
