@@ -25,7 +25,6 @@ __all__ = [
     "quantity_field",
     "number_list_field",
     "show_warnings",
-    "download_csv",
 ]
 
 #: Errors a lower layer raises for input it cannot accept; shown as a one-line message.
@@ -155,15 +154,3 @@ def number_list_field(
         place.error(f"{name}: every value must be > 0; got {text!r}")
         return None
     return values
-
-
-def download_csv(label: str, frame, *, file_name: str, key: str, container=None) -> None:
-    """A download button for a table (pandas DataFrame) as CSV."""
-    place = container if container is not None else st
-    place.download_button(
-        label,
-        data=frame.to_csv(index=False).encode("utf-8"),
-        file_name=file_name,
-        mime="text/csv",
-        key=key,
-    )
