@@ -226,7 +226,9 @@ def _fit_section(workspace: Workspace, store) -> None:
     st.subheader("Fit a measurement")
     choices = call_layer("Reading the batch log", _measurement_choices, store).value or []
     labels = [c["label"] for c in choices] + [UPLOAD]
-    picked = st.selectbox("Measurement", labels, index=0, key="refit.measurement")
+    newest = max(range(len(choices)), key=lambda i: choices[i]["measurement"]["id"], default=0)
+    picked = st.selectbox("Measurement", labels, index=newest, key="refit.measurement",
+                          help="The newest measurement first; any stored one, or a file of your own")
     target, batch, sidecar_text, measurement_row = None, None, None, None
     if picked == UPLOAD:
         c1, c2 = st.columns([1, 3])

@@ -42,7 +42,7 @@ def test_fit_of_a_stored_measurement_shows_data_model_residuals_and_target(refit
     from phantomlab.calibration import fit_measurement_file
     from phantomlab.store import get_measurement, open_store
 
-    assert refit.selectbox(key="refit.measurement").value.startswith(f"batch {YEAR}-001")
+    assert refit.selectbox(key="refit.measurement").value.startswith(f"batch {YEAR}-002")  # the newest
     titles = _titles(refit)
     for title in ("Data and fitted model", "Normalised residuals", "Fitted μa against target",
                   "Fitted μs′ against target"):
