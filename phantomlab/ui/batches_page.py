@@ -165,7 +165,7 @@ def _amounts_section(workspace: Workspace, store, batch: dict) -> None:
         for index, dose in enumerate(doses):
             planned = _shown(dose["amount"], dose["unit"])
             columns[index % len(columns)].text_input(
-                f"{dose['stock']}: from {dose['from']} (with unit, e.g. {planned})",
+                f"{dose['stock']}: from {dose['from']}, sheet {planned} (type the amount with its unit)",
                 key=f"batches.amount.{code}.{dose['stock']}",
                 help=f"Sheet: {planned} ± {_shown(dose['tolerance'], dose['unit'])} of {dose['from']}",
             )

@@ -199,12 +199,12 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
                 _shoot(page, shots / f"0{index}-{name.replace(' ', '-')}.png")
 
             # at the bench: type what was dispensed, as the sheet gives it (stock or pre-dilution)
-            fields = page.get_by_role("textbox", name=re.compile(r": from .* \(with unit, e\.g\. "))
+            fields = page.get_by_role("textbox", name=re.compile(r": from .*, sheet .* \(type the amount"))
             assert fields.count() == 3, "one field per dosed stock of the demo recipe"
             for index in range(fields.count()):
                 field = fields.nth(index)
                 label = field.get_attribute("aria-label") or ""
-                planned = re.search(r"e\.g\. ([0-9.]+ (?:µL|mL|mg|g))\)", label)
+                planned = re.search(r", sheet ([0-9.]+ (?:µL|mL|mg|g)) \(", label)
                 assert planned, label
                 field.fill(planned.group(1).replace("µ", "u"))
                 field.press("Tab")
