@@ -85,7 +85,7 @@ def recalibrate_section(workspace: Workspace, store) -> None:
         st.dataframe(_update_table(update), hide_index=True, width="stretch")
     st.markdown("**History**")
     found = call_layer("Reading the calibrations", calibration_history, store)
-    shelf = call_layer("Reading the shelf", services.load_page_shelf, workspace, store).value
+    shelf = call_layer("Reading the shelf", services.load_page_shelf, workspace, store, show=False).value
     _history_plot(found.value or [], shelf[0] if shelf else None)
 
 
@@ -96,8 +96,13 @@ def _next_recipe(workspace: Workspace, store, code: str):
     """The batch's recipe on today's shelf (the lots now on it), and the calibrated potencies."""
     from phantomlab.ui.recording import batch_recipe
 
+    from phantomlab.errors import InputError
+
     recipe = batch_recipe(store, code, recipes_folder=workspace.recipes_folder)
-    shelf, origin = services.load_page_shelf(workspace, store)
+    try:
+        shelf, origin = services.load_page_shelf(workspace, store)
+    except InputError:  # no stock file given: plan with the lots the batch used
+        shelf, origin = {}, {}
     missing = [k for k in (recipe.matrix_key, *recipe.stock_keys) if k not in shelf]
     if not missing:
         recipe = recipe.with_shelf(shelf)
@@ -204,7 +209,9 @@ def correction_section(workspace: Workspace, store) -> None:
     if not found.ok:
         return
     recipe, potencies, origin, missing = found.value
-    if missing:
+    if missing and workspace.shelf_path is None:
+        st.info("No stock file given: planning with the lots the batch used.")
+    elif missing:
         st.warning(f"Not on today's shelf: {', '.join(missing)}; planning with the lots the batch used.")
     if not potencies:
         st.info("No calibrated potency for the lots on the shelf yet: recalibrate first, or the plan "

@@ -42,7 +42,10 @@ def _side_bar(workspace: Workspace) -> str:
         else:
             st.markdown("**Database:** your lab's")
             st.caption(f"`{_hide_password(workspace.database_url)}`")
-        st.caption(f"Stock file: `{workspace.shelf_path.name}`")
+        if workspace.shelf_path is not None:
+            st.caption(f"Stock file: `{workspace.shelf_path.name}`")
+        else:
+            st.caption("Stock file: none given (`--shelf STOCKS.toml`)")
         st.caption(f"phantomlab {__version__}")
     return page
 

@@ -18,7 +18,7 @@ from typing import Any
 import streamlit as st
 
 from phantomlab.errors import InputError
-from phantomlab.ui.workspace import Workspace
+from phantomlab.ui.workspace import Workspace, require_shelf
 
 __all__ = [
     "PAGE_STOCK_SOURCE",
@@ -106,7 +106,7 @@ def page_document(workspace: Workspace, store) -> tuple[dict, dict[str, str]]:
     Returns the document and, per stock key, where its definition came from
     (``"stock file"`` or ``"page, version N"``).
     """
-    document = shelf_document(workspace.shelf_path)
+    document = shelf_document(require_shelf(workspace))
     stocks = dict(document.get("stocks", {}))
     origin = {key: "stock file" for key in stocks}
     folder = _cache_folder()
@@ -137,6 +137,8 @@ def load_page_shelf(workspace: Workspace, store):
 def recipe_files(workspace: Workspace) -> list[Path]:
     """Recipe files beside the shelf (TOML files with a ``[target]`` table), by name."""
     found = []
+    if workspace.shelf_path is None:
+        return found
     for path in sorted(workspace.recipes_folder.glob("*.toml")):
         try:
             document = tomllib.loads(path.read_text(encoding="utf-8"))

@@ -8,8 +8,9 @@ The page runs either on a lab's own database or on a demo database of its own:
   beside ``app.py`` (or the file ``PHANTOMLAB_DEMO_DB`` names) and seeds it on first use with
   the invented demo shelf and two demo batches (:mod:`phantomlab.ui.demo`).
 
-The stock file (the shelf) comes from ``--shelf FILE`` or ``PHANTOMLAB_SHELF``; a lab database
-needs one (the demo shelf would otherwise reach it through a saved batch); the demo uses
+The stock file (the shelf) comes from ``--shelf FILE`` or ``PHANTOMLAB_SHELF``.  A lab database
+opened without one can be read, fitted and recalibrated, but the design and shelf pages ask
+for the stock file (the demo shelf never reaches a lab's database); the demo uses
 ``recipes/demo-stocks.toml``.
 """
 
@@ -23,7 +24,19 @@ from typing import Mapping, Sequence
 
 from phantomlab.errors import InputError
 
-__all__ = ["Workspace", "resolve_workspace", "REPO_ROOT", "DEMO_SHELF", "DEMO_DATABASE"]
+__all__ = ["Workspace", "resolve_workspace", "require_shelf", "REPO_ROOT", "DEMO_SHELF", "DEMO_DATABASE",
+           "NO_SHELF"]
+
+#: What the page says where a lab database was opened without its stock file.
+NO_SHELF = ("no stock file given: start the page with --shelf STOCKS.toml or PHANTOMLAB_SHELF "
+            "(make run DB=URL SHELF=STOCKS.toml); the demo shelf is only used with the demo database")
+
+
+def require_shelf(workspace: "Workspace") -> Path:
+    """The stock file, or a one-line refusal for a lab database opened without one."""
+    if workspace.shelf_path is None:
+        raise InputError(NO_SHELF)
+    return workspace.shelf_path
 
 #: The folder holding app.py, recipes/ and demo-data/.
 REPO_ROOT = Path(__file__).resolve().parents[2]
@@ -38,14 +51,14 @@ class Workspace:
     """The database URL, the stock file, and whether this is the demo."""
 
     database_url: str
-    shelf_path: Path
+    shelf_path: Path | None  # None: a lab database opened without its stock file
     is_demo: bool
     demo_file: Path | None = None  # the demo database file, when is_demo
 
     @property
     def recipes_folder(self) -> Path:
-        """Where recipe files are looked for (the shelf's folder)."""
-        return self.shelf_path.parent
+        """Where recipe files are looked for (the shelf's folder; else the working folder)."""
+        return self.shelf_path.parent if self.shelf_path is not None else Path.cwd()
 
     def page_recipes_folder(self, environ: Mapping[str, str] | None = None) -> Path:
         """Where recipes designed or edited on the page are written when a batch is saved.
@@ -85,12 +98,9 @@ def resolve_workspace(argv: Sequence[str], environ: Mapping[str, str]) -> Worksp
     if shelf_text and not shelf_path.is_file():
         raise InputError(f"stock file {shelf_text!r} not found; give a stocks TOML file")
     if url:
-        if not shelf_text:  # the demo shelf must not reach a lab's database through a saved batch
-            raise InputError(
-                "a lab database needs the lab's stock file: give --shelf FILE or PHANTOMLAB_SHELF "
-                "(the demo shelf is only used with the demo database)"
-            )
-        return Workspace(database_url=url, shelf_path=shelf_path, is_demo=False)
+        # without the lab's stock file the log can be read, fitted and recalibrated, but nothing
+        # is designed: the demo shelf must never reach a lab's database through a saved batch
+        return Workspace(database_url=url, shelf_path=shelf_path if shelf_text else None, is_demo=False)
     demo_text = environ.get("PHANTOMLAB_DEMO_DB")
     demo_file = Path(demo_text).expanduser().resolve() if demo_text else DEMO_DATABASE
     return Workspace(

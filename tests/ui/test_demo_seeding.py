@@ -124,9 +124,15 @@ def test_every_page_opens_on_an_empty_lab_database(clean_env, tmp_path, page_nam
         assert not errors
 
 
-def test_a_lab_database_without_a_stock_file_says_so_instead_of_using_the_demo_shelf(clean_env, tmp_path):
-    clean_env.setenv("PHANTOMLAB_DB", f"sqlite:///{tmp_path / 'lab.sqlite'}")
+@pytest.mark.parametrize("page_name, needs_shelf", [("Design a phantom", True), ("Stock shelf", True),
+                                                     ("Batch log", False), ("Fit and correct", False)])
+def test_a_lab_database_without_a_stock_file_never_falls_back_to_the_demo_shelf(clean_env, tmp_path,
+                                                                                 page_name, needs_shelf):
+    lab = tmp_path / "lab.sqlite"
+    clean_env.setenv("PHANTOMLAB_DB", f"sqlite:///{lab}")
     app = AppTest.from_file(APP, default_timeout=120).run()
+    app.sidebar.radio(key="page").set_value(page_name).run()
     assert not app.exception
-    assert any("needs the lab's stock file" in e.value for e in app.error)
-    assert not (tmp_path / "lab.sqlite").exists()
+    refused = [e.value for e in app.error if "no stock file given" in e.value]
+    assert bool(refused) == needs_shelf
+    assert _counts(f"sqlite:///{lab}") == {"stock_lots": 0, "batches": 0, "measurements": 0}

@@ -48,10 +48,15 @@ def test_option_wins_over_environment(lab_shelf):
     assert workspace.database_url == "sqlite:///a.sqlite"
 
 
-def test_a_lab_database_without_its_stock_file_is_refused():
+def test_a_lab_database_without_its_stock_file_gets_no_shelf_not_the_demo_one():
     """Else the demo shelf would reach the lab's database through the first saved batch."""
-    with pytest.raises(InputError, match=r"a lab database needs the lab's stock file: give --shelf FILE"):
-        resolve_workspace(["--db", "sqlite:///lab.sqlite"], {})
+    from phantomlab.ui.workspace import NO_SHELF, require_shelf
+
+    workspace = resolve_workspace(["--db", "sqlite:///lab.sqlite"], {})
+    assert workspace.shelf_path is None and not workspace.is_demo
+    with pytest.raises(InputError, match=r"no stock file given: start the page with --shelf"):
+        require_shelf(workspace)
+    assert "SHELF=STOCKS.toml" in NO_SHELF
 
 
 def test_demo_file_can_be_moved_for_tests(tmp_path):
