@@ -2,6 +2,7 @@
 
 ``app.py`` calls :func:`phantomlab.ui.main.main`; each page is one module
 (``design_page``, ``shelf_page``, ``batches_page``, ``refit_page``) with a ``show(workspace)``
-function; shared pieces live in ``widgets``, ``plots``, ``cautions``, ``workspace`` and
-``demo``.  Only this layer imports streamlit.
+function (the design page's fields in ``design_fields``, the calibration half of the fit page
+in ``correct_section``); shared pieces live in ``widgets``, ``plots``, ``plan_view``,
+``cautions``, ``services``, ``recording``, ``workspace`` and ``demo``.  Only this layer imports streamlit.
 """

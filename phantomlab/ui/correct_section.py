@@ -192,7 +192,7 @@ def _top_up_section(workspace: Workspace, store, batch: dict, recipe, potencies)
 
 def correction_section(workspace: Workspace, store) -> None:
     from phantomlab.ui.batches_page import read_log
-    from phantomlab.ui.design_page import _doses_table, _sheet_downloads, saved_sheet_downloads
+    from phantomlab.ui.plan_view import doses_table, saved_sheet_downloads, sheet_downloads
     from phantomlab.ui.recording import record_planned_batch, saved_batch_sheets
 
     st.subheader("Correct the next batch")
@@ -229,8 +229,8 @@ def correction_section(workspace: Workspace, store) -> None:
             st.dataframe(_dose_comparison(batch["plan"], plan), hide_index=True, width="stretch")
             _plan_plots(plan)
             with st.expander("Full amounts of the next batch"):
-                st.dataframe(_doses_table(plan), hide_index=True, width="stretch")
-            _sheet_downloads(plan, batch_id=None, key="correct.sheet")
+                st.dataframe(doses_table(plan), hide_index=True, width="stretch")
+            sheet_downloads(plan, batch_id=None, key="correct.sheet")
             if st.button("Save the corrected plan as a new batch", type="primary", key="correct.save"):
                 saved = call_layer("Saving the batch", record_planned_batch, store, plan, potencies=potencies,
                                    origin=origin, notes=f"corrected after batch {code}")
