@@ -4,5 +4,6 @@
 (``design_page``, ``shelf_page``, ``batches_page``, ``refit_page``) with a ``show(workspace)``
 function (the design page's fields in ``design_fields``, the calibration half of the fit page
 in ``correct_section``); shared pieces live in ``widgets``, ``plots``, ``plan_view``,
-``cautions``, ``services``, ``recording``, ``workspace`` and ``demo``.  Only this layer imports streamlit.
+``cautions``, ``services``, ``recording``, ``workspace`` and ``demo``.  Only this layer
+imports streamlit.
 """

@@ -8,7 +8,7 @@ Flows:
   measurement files attached (fitted by the calibration layer on the way in), the status
   moved forward, and the full history of every version;
 * across the batches of one recipe: the spread of the fitted μa and μs′ (CV per
-  wavelength) and their drift with phantom age, as plots.
+  wavelength) and their drift with phantom age, as plots (:mod:`phantomlab.ui.batch_trends`).
 """
 
 from __future__ import annotations
@@ -21,6 +21,7 @@ import streamlit as st
 
 from phantomlab.errors import InputError
 from phantomlab.ui import services
+from phantomlab.ui.batch_trends import latest_fit, spread_section
 from phantomlab.ui.plots import Series, line_figure, show_figure, target_series
 from phantomlab.ui.widgets import call_layer
 from phantomlab.ui.workspace import Workspace
@@ -84,11 +85,6 @@ def read_history(store, code: str) -> pd.DataFrame:
             "retracted": "yes" if row.retracted else "",
         } for row in batch_history(session, code)]
     return pd.DataFrame(rows)
-
-
-def _latest_fit(measurement: dict) -> dict | None:
-    fits = sorted(measurement["fits"], key=lambda f: (f["recorded_at"], f["id"]))
-    return fits[-1]["results"] if fits else None
 
 
 def _log_table(batches: list[dict]) -> pd.DataFrame:
@@ -321,7 +317,7 @@ def _status_section(store, batch: dict) -> None:
 def _measurements_table(batch: dict) -> pd.DataFrame:
     rows = []
     for m in batch["measurements"]:
-        fit = _latest_fit(m) or {}
+        fit = latest_fit(m) or {}
         rows.append({
             "id": m["id"], "file": m["file_name"], "kind": m["kind"], "measured on": m["measured_on"] or "",
             "phantom age [days]": m["phantom_age_days"], "instrument": m["instrument"] or "",
@@ -364,86 +360,6 @@ def _one_batch(workspace: Workspace, store, batch: dict) -> None:
             st.dataframe(pd.DataFrame(fits), hide_index=True, width="stretch")
 
 
-# ---- across batches --------------------------------------------------------------------------------
-
-
-def _fit_points(batches: list[dict]) -> pd.DataFrame:
-    """One row per (batch, measurement, wavelength) with the newest fit's μa and μs′."""
-    rows = []
-    for batch in batches:
-        for m in batch["measurements"]:
-            fit = _latest_fit(m)
-            if not fit:
-                continue
-            for i, w in enumerate(fit.get("wavelength_nm", [])):
-                rows.append({
-                    "batch": batch["code"], "measurement": m["id"], "phantom_age_days": m["phantom_age_days"],
-                    "wavelength_nm": float(w), "mua_per_mm": fit["mua_per_mm"][i],
-                    "mua_sd_per_mm": fit["mua_sd_per_mm"][i], "musp_per_mm": fit["musp_per_mm"][i],
-                    "musp_sd_per_mm": fit["musp_sd_per_mm"][i],
-                })
-    return pd.DataFrame(rows)
-
-
-def _spread_section(batches: list[dict]) -> None:
-    st.subheader("Across the batches of one recipe")
-    recipes = sorted({b["recipe"] for b in batches})
-    if not recipes:
-        return
-    recipe = st.selectbox("Recipe", recipes, key="batches.spread_recipe")
-    chosen = [b for b in batches if b["recipe"] == recipe and not b["retracted"]]
-    points = _fit_points(chosen)
-    if points.empty:
-        st.info("No fitted measurement of this recipe's batches yet.")
-        return
-    # per batch: the mean of its measurements at each wavelength; then spread across batches
-    per_batch = points.groupby(["batch", "wavelength_nm"], as_index=False)[["mua_per_mm", "musp_per_mm"]].mean()
-    spread = per_batch.groupby("wavelength_nm").agg(
-        batches=("batch", "nunique"), mua_mean=("mua_per_mm", "mean"), mua_sd=("mua_per_mm", "std"),
-        musp_mean=("musp_per_mm", "mean"), musp_sd=("musp_per_mm", "std")).reset_index()
-    spread["mua_cv_percent"] = 100 * spread["mua_sd"] / spread["mua_mean"]
-    spread["musp_cv_percent"] = 100 * spread["musp_sd"] / spread["musp_mean"]
-    count = per_batch["batch"].nunique()
-    st.caption(f"{count} measured batch(es) of this recipe; CV = SD across batches / mean "
-               "(each batch: the mean of its measurements).")
-    target = chosen[0]["plan"].get("target", {}) if chosen else {}
-    left, right = st.columns(2)
-    for column, quantity, symbol in ((left, "mua", "μa"), (right, "musp", "μs′")):
-        series = [Series(f"batch {code}", group["wavelength_nm"].to_numpy(), group[f"{quantity}_per_mm"].to_numpy(),
-                         mode="lines+markers")
-                  for code, group in per_batch.groupby("batch")]
-        wanted = np.asarray([np.nan if v is None else v for v in target.get(f"{quantity}_per_mm", [])], dtype=float)
-        if wanted.size and np.any(np.isfinite(wanted)):
-            has = np.isfinite(wanted)
-            series.append(target_series(f"target {symbol}", np.asarray(target["wavelength_nm"])[has], wanted[has]))
-        figure = line_figure(series, x_label="wavelength [nm]", y_label=f"fitted {symbol} [1/mm]",
-                             title=f"Spread of {symbol} across batches")
-        with column:
-            show_figure(figure, table=per_batch, file_stem=f"spread-{quantity}", key=f"batches.spread.{quantity}")
-    shown = spread[["wavelength_nm", "batches", "mua_mean", "mua_cv_percent", "musp_mean", "musp_cv_percent"]]
-    st.dataframe(shown.rename(columns={
-        "wavelength_nm": "wavelength [nm]", "mua_mean": "mean μa [1/mm]", "mua_cv_percent": "μa CV [%]",
-        "musp_mean": "mean μs′ [1/mm]", "musp_cv_percent": "μs′ CV [%]"}), hide_index=True, width="stretch")
-
-    aged = points.dropna(subset=["phantom_age_days"])
-    if aged.empty:
-        st.caption("No measurement has a phantom age (the batch's mixing date) yet.")
-        return
-    wavelengths = sorted(aged["wavelength_nm"].unique())
-    at = st.selectbox("Drift with phantom age at wavelength [nm]", wavelengths, key="batches.drift_wavelength",
-                      format_func=lambda w: f"{w:g} nm")
-    picked = aged[aged["wavelength_nm"] == at].sort_values("phantom_age_days")
-    left, right = st.columns(2)
-    for column, quantity, symbol in ((left, "mua", "μa"), (right, "musp", "μs′")):
-        series = [Series(f"batch {code}", group["phantom_age_days"].to_numpy(), group[f"{quantity}_per_mm"].to_numpy(),
-                         sd=group[f"{quantity}_sd_per_mm"].to_numpy(), mode="lines+markers")
-                  for code, group in picked.groupby("batch")]
-        figure = line_figure(series, x_label="phantom age [days]", y_label=f"fitted {symbol} at {at:g} nm [1/mm]",
-                             title=f"Drift of {symbol} with phantom age")
-        with column:
-            show_figure(figure, table=picked, file_stem=f"drift-{quantity}-{at:g}nm", key=f"batches.drift.{quantity}")
-
-
 def show(workspace: Workspace) -> None:
     st.header(TITLE)
     store = services.store_for(workspace)
@@ -472,4 +388,4 @@ def show(workspace: Workspace) -> None:
         codes = [b["code"] for b in shown]
         code = st.selectbox("Open batch", codes, index=len(codes) - 1, key="batches.open")
         _one_batch(workspace, store, next(b for b in shown if b["code"] == code))
-    _spread_section(batches)
+    spread_section(batches)
