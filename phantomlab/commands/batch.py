@@ -12,29 +12,23 @@
     phantomlab batch export FILE.zip
 
 Every sub-command takes ``--db URL`` (default ``$PHANTOMLAB_DB``, else ``phantomlab.sqlite``
-in the working folder) and ``--json``, and runs in ONE database transaction.  Planning and
-prediction are the recipe layer's (``solve``, ``predict``, ``render_sheet_html``); fits are
-the calibration layer's (``fit_measurement_file``); this module only moves data between
-them, the files and the store.
+in the working folder) and ``--json``, and runs in ONE database transaction.  ``add``,
+``actual`` and ``measure`` are the workflows of :mod:`phantomlab.workflows` (the page calls
+the same functions); this module reads the options and files and prints what comes back.
 """
 
 from __future__ import annotations
 
 import argparse
-import csv
 import datetime as _dt
-import io
 import math
 import warnings
 from pathlib import Path
 from typing import Any
 
-import numpy as np
-
-from phantomlab import __version__
 from phantomlab.cli import CommandResult, add_json_option
 from phantomlab.errors import InputError, PhantomlabWarning
-from phantomlab.jsonable import to_jsonable
+from phantomlab.workflows import parse_amounts_csv, tolerance_alarms  # one implementation with the page
 
 __all__ = ["register", "parse_amounts_csv", "tolerance_alarms"]
 
@@ -182,177 +176,32 @@ def _fmt(value: Any, digits: int = 4) -> str:
     return str(value)
 
 
-# ---- amounts and tolerance (pure; tested on their own) ----------------------------------------
-
-
-def parse_amounts_csv(text: str, *, source: str = "amounts file") -> list[dict[str, Any]]:
-    """Rows ``{stock, volume_ml | mass_g, dilution_factor}`` of an amounts CSV.
-
-    Header: ``stock`` and ``volume_ml`` and/or ``mass_g`` (one of them filled per row), and an
-    optional ``dilution_factor`` (amount given of a pre-dilution 1:factor; the undiluted
-    equivalent is amount / factor).  Lines starting with ``#`` are comments.
-    """
-    lines = [line for line in text.splitlines() if line.strip() and not line.lstrip().startswith("#")]
-    if not lines:
-        raise InputError(f"{source} is empty; accepted header: stock,volume_ml or stock,mass_g")
-    reader = csv.DictReader(io.StringIO("\n".join(lines)))
-    header = [h.strip() for h in (reader.fieldnames or [])]
-    accepted = {"stock", "volume_ml", "mass_g", "dilution_factor"}
-    wrong = [h for h in header if h not in accepted]
-    if wrong or "stock" not in header or not ({"volume_ml", "mass_g"} & set(header)):
-        raise InputError(
-            f"{source}: columns {','.join(header)} not accepted (amounts in mL or g only); "
-            "accepted: stock,volume_ml or stock,mass_g [,dilution_factor]"
-        )
-    rows: list[dict[str, Any]] = []
-    seen: set[str] = set()
-    for number, raw in enumerate(reader, start=2):
-        row = {k.strip(): (v or "").strip() for k, v in raw.items() if k is not None}
-        stock = row.get("stock", "")
-        if not stock:
-            raise InputError(f"{source} line {number}: no stock name")
-        if stock in seen:
-            raise InputError(f"{source} line {number}: stock {stock!r} given twice")
-        seen.add(stock)
-        given = {k: row.get(k, "") for k in ("volume_ml", "mass_g") if row.get(k, "")}
-        if len(given) != 1:
-            raise InputError(f"{source} line {number}: give exactly one of volume_ml or mass_g for {stock!r}")
-        (unit, text_value), = given.items()
-        value = _non_negative(text_value, where=f"{source} line {number}, {unit}")
-        factor = 1.0
-        if row.get("dilution_factor"):
-            factor = _non_negative(row["dilution_factor"], where=f"{source} line {number}, dilution_factor")
-            if factor < 1:
-                raise InputError(f"{source} line {number}: dilution_factor {factor:g} must be >= 1")
-        rows.append({"stock": stock, unit: value, "dilution_factor": factor})
-    if not rows:
-        raise InputError(f"{source} has a header but no amounts")
-    return rows
-
-
-def _non_negative(text: str, *, where: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise InputError(f"{where}: {text!r} is not a number (give the bare number in the column's unit)") from None
-    if not (math.isfinite(value) and value >= 0):
-        raise InputError(f"{where}: {text!r} must be a finite number >= 0")
-    return value
-
-
-def _array(values, shape) -> np.ndarray:
-    array = np.asarray([np.nan if v is None else v for v in (values or [])], dtype=float)
-    return array if array.shape == shape else np.full(shape, np.nan)
-
-
-def tolerance_alarms(*, target: dict[str, Any], predicted: dict[str, Any],
-                     mua_tolerance: float, musp_tolerance: float,
-                     planned: dict[str, Any] | None = None, what: str = "predicted") -> list[str]:
-    """One line per wavelength where ``predicted`` leaves the target's relative tolerance.
-
-    Parameters
-    ----------
-    target, predicted : dict
-        ``wavelength_nm`` and ``mua_per_mm`` / ``musp_per_mm`` lists on one grid (None or
-        NaN where a value is not targeted).
-    mua_tolerance, musp_tolerance : float [fraction]
-        Relative tolerances of the recipe.
-    planned : dict, optional
-        The plan's own prediction: when it already missed the target there, the line says so.
-    """
-    alarms = []
-    wavelength = np.asarray(target["wavelength_nm"], dtype=float)
-    for name, key, tol in (("mua", "mua_per_mm", mua_tolerance), ("musp", "musp_per_mm", musp_tolerance)):
-        want = _array(target.get(key), wavelength.shape)
-        have = _array(predicted.get(key), wavelength.shape)
-        plan = _array((planned or {}).get(key), wavelength.shape)
-        for w, a, b, p in zip(wavelength, want, have, plan):
-            if np.isfinite(a) and a > 0 and np.isfinite(b):
-                deviation = b / a - 1.0
-                if abs(deviation) > tol * (1 + 1e-9):
-                    line = (f"ALARM: {what} {name} at {w:g} nm is {100 * deviation:+.1f}% from target "
-                            f"(tolerance ±{100 * tol:g}%)")
-                    if np.isfinite(p) and abs(p / a - 1.0) > tol * (1 + 1e-9):
-                        line += f"; the plan itself was {100 * (p / a - 1.0):+.1f}%"
-                    alarms.append(line)
-    return alarms
-
-
 # ---- batch add -------------------------------------------------------------------------------
 
 
-def _render_sheet(plan, code: str) -> str:
-    try:
-        from phantomlab.recipe.sheet import render_sheet_html
-    except ImportError:
-        raise InputError("the mixing-sheet renderer (phantomlab.recipe.sheet) is missing from this installation") from None
-    return render_sheet_html(plan, batch_id=code, draft=False)
-
-
 def _add(args) -> CommandResult:
-    from phantomlab.recipe import load_recipe, solve
-    from phantomlab.store import (
-        add_batch,
-        latest_potencies,
-        latest_potency_states,
-        next_batch_code,
-        record_recipe,
-        record_stock_lot,
-    )
+    from phantomlab.recipe import load_recipe
+    from phantomlab.workflows import plan_batch, record_planned_batch
 
     sheet_path = _writable(args.sheet, option="--sheet", suffix=".html")
     recipe = load_recipe(args.recipe)
     store = _open(args)
     try:
-        with store.reading() as session:
-            calibrated = latest_potencies(session, shelf=recipe.shelf)
-            states = latest_potency_states(session, shelf=recipe.shelf)
-        plan = solve(recipe, potencies=calibrated)
-        plan_json = to_jsonable(plan.to_json())
-        shelf_path = str(getattr(recipe.shelf, "path", "") or "") or None
-        with store.transaction() as session:
-            lots = {
-                key: record_stock_lot(session, recipe.stock(key), shelf_path=shelf_path, recorded_by=args.operator)
-                for key in (recipe.matrix_key, *recipe.stock_keys)
-            }
-            recipe_row = record_recipe(session, recipe, recorded_by=args.operator)
-            code = next_batch_code(session)
-            sheet_html = _render_sheet(plan, code)
-            potencies_used = {
-                dose.stock: {
-                    "potency": dose.potency, "potency_sd": dose.potency_sd, "lot": dose.lot,
-                    "source": dose.potency_source, "calibration_state_id": states.get(dose.stock)
-                    if dose.potency_source == "calibrated" else None,
-                }
-                for dose in plan.doses
-            }
-            used_states = sorted({v["calibration_state_id"] for v in potencies_used.values()} - {None})
-            batch = add_batch(
-                session, code=code, recipe=recipe_row, plan=plan_json, sheet_html=sheet_html,
-                potencies_used=potencies_used, lots=lots, software_version=__version__,
-                calibration_state_id=used_states[-1] if used_states else None,
-                operator=args.operator, notes=args.notes,
-                matrix_details={"matrix": recipe.matrix_key, "lot": recipe.matrix.lot,
-                                "preparation": plan_json.get("preparation")},
-            )
-            if sheet_path is not None:
-                _write(sheet_path, sheet_html, option="--sheet")
+        plan = plan_batch(store, recipe)
+        recorded = record_planned_batch(store, plan, operator=args.operator, notes=args.notes,
+                                        sheet_path=sheet_path)
     finally:
         store.close()
-    today = _dt.date.today()
-    expired = [{"stock": key, "lot": lot.lot, "expiry": lot.expiry} for key, lot in lots.items()
-               if lot.expiry is not None and lot.expiry < today]
-    for item in expired:
-        if not any(item["stock"] in w and item["expiry"].isoformat() in w for w in plan.warnings):
-            warnings.warn(f"{item['stock']}: lot {item['lot'] or '(none)'} expired on "
-                          f"{item['expiry'].isoformat()}", PhantomlabWarning, stacklevel=2)
+    for message in recorded.notes:
+        warnings.warn(message, PhantomlabWarning, stacklevel=2)
+    code, plan_json = recorded.code, recorded.plan_json
     payload = {
         "batch_id": code,
-        "status": batch.status,
+        "status": recorded.status,
         **plan_json,
-        "potencies_used": potencies_used,
-        "lots": {key: lot.lot for key, lot in lots.items()},
-        "expired_lots": expired,
+        "potencies_used": recorded.potencies_used,
+        "lots": recorded.lots,
+        "expired_lots": recorded.expired_lots,
         "sheet": str(sheet_path) if sheet_path else None,
         "warnings": list(plan.warnings),
     }
@@ -372,84 +221,32 @@ def _add(args) -> CommandResult:
 # ---- batch actual ----------------------------------------------------------------------------
 
 
-def _recipe_for(recipe_row, override: str | None):
-    from phantomlab.recipe import load_recipe
-
-    source = override or recipe_row.source_path
-    if not source or not Path(source).is_file():
-        raise InputError(
-            f"recipe file {source!r} of this batch is not there any more; give it with --recipe RECIPE.toml"
-        )
-    recipe = load_recipe(source)
-    notes = []
-    if recipe.content_hash != recipe_row.content_hash:
-        notes.append(
-            f"recipe file {source} changed since the batch was planned (hash {recipe.content_hash[:10]} "
-            f"vs {recipe_row.content_hash[:10]}); predicting with the file as it is now"
-        )
-    return recipe, notes
-
-
 def _actual(args) -> CommandResult:
-    from phantomlab.recipe import predict
-    from phantomlab.store import batch_lots, get_batch, plan_of, recipe_of, record_actual
-    from phantomlab.store.snapshots import content_sha256
+    from phantomlab.workflows import record_dispensed
 
     path = Path(args.amounts)
     if not path.is_file():
         raise InputError(f"amounts file {args.amounts!r} not found")
     rows = parse_amounts_csv(path.read_text(encoding="utf-8-sig"), source=path.name)
     mixed_on = _date(args.mixed_on, option="--mixed-on")
-    from phantomlab.store import StoreConflictError
-
     store = _open(args)
     try:
-        # Read and predict without holding the write lock; then write, checking that no
-        # other command changed the batch meanwhile.
-        with store.reading() as session:
-            batch = get_batch(session, args.batch_id)
-            plan_row = plan_of(session, batch)
-            recipe_row = recipe_of(session, batch)
-            lots = batch_lots(session, batch)
-        recipe, notes = _recipe_for(recipe_row, args.recipe)
-        for key, lot in lots.items():
-            if key in recipe.shelf.keys() and content_sha256(recipe.stock(key).definition) != lot.definition_sha256:
-                notes.append(f"stock {key}: the stock file changed since planning; predicting with it as it is now")
-        amounts, fractions = _fractions(rows, recipe, plan_row.plan)
-        potencies = {
-            key: (v["potency"], v["potency_sd"]) for key, v in plan_row.potencies_used.items()
-            if key in recipe.stock_keys
-        }
-        prediction = to_jsonable(predict(recipe, volume_fractions=fractions, potencies=potencies).to_json())
-        target = plan_row.plan.get("target") or to_jsonable(recipe.target.to_json())
-        alarms = tolerance_alarms(
-            target=target, predicted=prediction, planned=plan_row.plan.get("predicted"),
-            mua_tolerance=float(target.get("mua_tolerance_percent", 100 * recipe.target.mua_tolerance)) / 100,
-            musp_tolerance=float(target.get("musp_tolerance_percent", 100 * recipe.target.musp_tolerance)) / 100,
-        )
-        cure = {k: v for k, v in {"schedule": args.cure,
-                                  "mixing_temperature_c": args.mixing_temperature_c}.items() if v is not None}
-        with store.transaction() as session:
-            head = get_batch(session, args.batch_id)
-            if head.id != batch.id:
-                raise StoreConflictError(
-                    f"batch {head.code} changed while its amounts were being predicted; try again"
-                )
-            updated = record_actual(session, head, amounts=amounts, prediction=prediction, alarms=alarms,
-                                    recorded_by=args.operator, mixed_on=mixed_on, cure_details=cure,
-                                    notes=args.notes)
+        done = record_dispensed(store, args.batch_id, rows, recipe_file=args.recipe, mixed_on=mixed_on,
+                                cure=args.cure, mixing_temperature_c=args.mixing_temperature_c,
+                                notes=args.notes, recorded_by=args.operator)
     finally:
         store.close()
-    for message in notes + alarms:
+    alarms, prediction = done.alarms, done.prediction_json
+    for message in done.notes + alarms:
         warnings.warn(message, PhantomlabWarning, stacklevel=2)
     payload = {
-        "batch_id": updated.code, "status": updated.status, "version": updated.version,
-        "amounts": amounts, "volume_fractions": fractions, "predicted": prediction, "target": target,
-        "alarm": bool(alarms), "alarms": alarms, "within_tolerance": not alarms,
-        "planned_predicted": plan_row.plan.get("predicted"),
+        "batch_id": done.code, "status": done.status, "version": done.version,
+        "amounts": done.amounts, "volume_fractions": done.volume_fractions, "predicted": prediction,
+        "target": done.target, "alarm": bool(alarms), "alarms": alarms, "within_tolerance": not alarms,
+        "planned_predicted": done.planned_predicted,
     }
-    lines = [f"batch {updated.code}: amounts recorded (version {updated.version}, status {updated.status})"]
-    for item in amounts:
+    lines = [f"batch {done.code}: amounts recorded (version {done.version}, status {done.status})"]
+    for item in done.amounts:
         lines.append(f"  {item['stock']:<12} {_fmt(item['volume_ml'])} mL  volume fraction {_fmt(item['volume_fraction'])}"
                      f"  (planned {_fmt(item.get('planned_volume_ml'))} mL)")
     lines.append("predicted optics of what was made:")
@@ -458,47 +255,6 @@ def _actual(args) -> CommandResult:
                      f"   mus' {_fmt(prediction['musp_per_mm'][i])} ± {_fmt(prediction['musp_sd_per_mm'][i], 2)} /mm")
     lines.append("within the recipe tolerance" if not alarms else f"{len(alarms)} ALARM(S): outside the recipe tolerance")
     return CommandResult(payload=payload, text="\n".join(lines))
-
-
-def _fractions(rows, recipe, plan: dict) -> tuple[list[dict[str, Any]], dict[str, float]]:
-    """Volumes of undiluted stock and their volume fractions in what was made.
-
-    With the matrix among the rows, the batch volume is the sum of all volumes (volumes
-    taken as additive); without it, the planned batch volume.
-    """
-    known = (recipe.matrix_key, *recipe.stock_keys)
-    planned = {d["stock"]: d for d in plan.get("doses", [])}
-    amounts = []
-    for row in rows:
-        key = row["stock"]
-        if key not in known:
-            raise InputError(f"amounts: {key!r} is not a stock of this batch; its stocks: {', '.join(known)}")
-        stock = recipe.matrix if key == recipe.matrix_key else recipe.stock(key)
-        factor = row["dilution_factor"]
-        if "volume_ml" in row:
-            volume = row["volume_ml"] / factor
-            mass = volume * stock.density_g_per_ml
-        else:
-            mass = row["mass_g"] / factor
-            volume = mass / stock.density_g_per_ml
-        amounts.append({"stock": key, "volume_ml": volume, "mass_g": mass,
-                        "given": {k: row[k] for k in ("volume_ml", "mass_g") if k in row},
-                        "dilution_factor": factor,
-                        "planned_volume_ml": planned.get(key, {}).get("volume_ml"),
-                        "planned_mass_g": planned.get(key, {}).get("mass_g")})
-    has_matrix = any(a["stock"] == recipe.matrix_key for a in amounts)
-    total = sum(a["volume_ml"] for a in amounts) if has_matrix else float(plan.get("batch_volume_ml") or 0)
-    if not total > 0:
-        raise InputError("amounts: the batch volume comes out as 0 mL; give the matrix amount too")
-    for a in amounts:
-        a["volume_fraction"] = a["volume_ml"] / total
-    fractions = {a["stock"]: a["volume_fraction"] for a in amounts if a["stock"] != recipe.matrix_key}
-    missing = [k for k in recipe.stock_keys if k not in fractions and planned.get(k, {}).get("volume_fraction", 0) > 0]
-    if missing:
-        raise InputError(f"amounts: no amount for {', '.join(missing)}; give 0 for a stock left out")
-    if sum(fractions.values()) >= 1:
-        raise InputError("amounts: the stocks add up to the whole batch volume or more; give the matrix amount")
-    return amounts, fractions
 
 
 # ---- status, retract --------------------------------------------------------------------------
@@ -567,67 +323,33 @@ def _correct(args) -> CommandResult:
 
 
 def _measure(args) -> CommandResult:
-    from phantomlab.store import add_fit, add_measurement, get_batch
+    from phantomlab.workflows import attach_measurement
 
     path = Path(args.file)
     if not path.is_file():
         raise InputError(f"measurement file {args.file!r} not found")
-    raw = path.read_bytes()
     sidecar = path.with_suffix(".toml")
-    metadata_toml = sidecar.read_text(encoding="utf-8") if sidecar.is_file() else None
-    measured_on = _date(args.measured_on, option="--measured-on")
-    options = {"model": args.model, "n": args.n, "thickness_mm": args.thickness_mm, "g": args.g,
-               "baseline": args.baseline}
-    from phantomlab.calibration import fit_measurement_file, read_measurement  # layer 3
-
-    fit_json = None
-    fit_result = None
-    fit_note = None
-    # Read (and fit) before opening a transaction: a file that does not parse writes nothing,
-    # and a long fit holds no lock.
-    measurement_info = read_measurement(path, kind=args.kind)
-    if args.no_fit:
-        fit_note = "no fit ran (--no-fit): the file is stored"
-    else:
-        fit_result = fit_measurement_file(path, kind=args.kind, **{k: v for k, v in options.items() if v is not None})
-        fit_json = to_jsonable(fit_result.to_json())
-    if measured_on is None:
-        measured_on = _metadata_date(measurement_info) or _dt.date.today()
+    options = {"n": args.n, "thickness_mm": args.thickness_mm, "g": args.g}
     store = _open(args)
     try:
-        with store.transaction() as session:
-            batch = get_batch(session, args.batch_id)
-            age = args.age_days
-            if age is None and batch.mixed_on is not None:
-                age = float((measured_on - batch.mixed_on).days)
-                if age < 0:
-                    raise InputError(
-                        f"measured on {measured_on} but batch {batch.code} was mixed on {batch.mixed_on}; "
-                        "give --measured-on or --age-days"
-                    )
-            measurement = add_measurement(
-                session, batch, kind=args.kind, file_name=path.name, raw_content=raw,
-                metadata_toml=metadata_toml, instrument=args.instrument or _metadata_value(measurement_info, "instrument"),
-                geometry=_geometry(measurement_info, options), measured_on=measured_on,
-                phantom_age_days=age, temperature_c=args.temperature_c, recorded_by=args.operator,
-            )
-            fit_id = None
-            if fit_result is not None:
-                fit_row = add_fit(session, measurement, results=fit_json, model=fit_result.model,
-                                  covariance=to_jsonable(fit_result.covariance),
-                                  warnings=list(fit_result.warnings), chi2_red=_finite(fit_result.chi2_red),
-                                  recorded_by=args.operator)
-                fit_id = fit_row.id
-            code, measurement_id, status = batch.code, measurement.id, batch.status
+        done = attach_measurement(
+            store, args.batch_id, kind=args.kind, file_name=path.name, raw_content=path.read_bytes(),
+            sidecar_toml=sidecar.read_text(encoding="utf-8") if sidecar.is_file() else None, path=path,
+            fit=not args.no_fit, model=args.model, baseline=args.baseline, options=options,
+            instrument=args.instrument, measured_on=_date(args.measured_on, option="--measured-on"),
+            phantom_age_days=args.age_days, temperature_c=args.temperature_c, recorded_by=args.operator,
+        )
     finally:
         store.close()
+    fit_note = None if done.fit_json is not None else "no fit ran (--no-fit): the file is stored"
     if fit_note:
         warnings.warn(fit_note, PhantomlabWarning, stacklevel=2)
-    payload = {"batch_id": code, "measurement_id": measurement_id, "fit": fit_json,
+    code, age, fit_json, fit_id = done.code, done.phantom_age_days, done.fit_json, done.fit_id
+    payload = {"batch_id": code, "measurement_id": done.measurement_id, "fit": fit_json,
                "fit_id": fit_id, "fit_ran": fit_json is not None, "kind": args.kind,
-               "file": path.name, "measured_on": measured_on, "phantom_age_days": age,
-               "batch_status": status}
-    lines = [f"batch {code}: measurement {measurement_id} ({args.kind}, {path.name}) stored"
+               "file": path.name, "measured_on": done.measured_on, "phantom_age_days": age,
+               "batch_status": done.batch_status}
+    lines = [f"batch {code}: measurement {done.measurement_id} ({args.kind}, {path.name}) stored"
              + (f", phantom age {age:g} days" if age is not None else "")]
     if fit_json is not None:
         lines.append(f"fit {fit_id} ({fit_json.get('model')}, reduced chi2 {_fmt(fit_json.get('chi2_red'), 3)}):")
@@ -636,51 +358,10 @@ def _measure(args) -> CommandResult:
                          f"   mus' {_fmt(fit_json['musp_per_mm'][i])} ± {_fmt(fit_json['musp_sd_per_mm'][i], 2)} /mm")
     else:
         lines.append(fit_note)
-    if status == "mixed":
+    if done.batch_status == "mixed":
         lines.append(f"when characterisation is complete: phantomlab batch status {code} characterised")
     return CommandResult(payload=payload, text="\n".join(lines))
 
-
-def _finite(value):
-    try:
-        number = float(value)
-    except (TypeError, ValueError):
-        return None
-    return number if math.isfinite(number) else None
-
-
-def _metadata_value(measurement, name: str):
-    metadata = getattr(measurement, "metadata", None)
-    value = getattr(metadata, name, None) if metadata is not None else None
-    return None if value in (None, "") else value
-
-
-def _metadata_date(measurement) -> _dt.date | None:
-    value = _metadata_value(measurement, "date")
-    if isinstance(value, _dt.date):
-        return value
-    if isinstance(value, str):
-        try:
-            return _dt.date.fromisoformat(value[:10])
-        except ValueError:
-            return None
-    return None
-
-
-def _geometry(measurement, options) -> dict[str, Any] | None:
-    metadata = getattr(measurement, "metadata", None)
-    geometry = {}
-    if metadata is not None:
-        geometry.update({k: v for k, v in to_jsonable(metadata).items() if v is not None}
-                        if not isinstance(metadata, dict) else metadata)
-    geometry.update({k: v for k, v in options.items() if v is not None and k != "baseline"})
-    axis_name = getattr(measurement, "axis_name", None)
-    axis = getattr(measurement, "axis", None)
-    if axis_name and axis is not None and np.size(axis):
-        geometry[axis_name] = sorted({float(v) for v in np.ravel(axis)})
-    if not geometry.get("reference"):
-        geometry.pop("reference", None)
-    return to_jsonable(geometry) or None
 
 
 # ---- list, show ------------------------------------------------------------------------------

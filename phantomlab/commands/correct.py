@@ -89,14 +89,14 @@ def _top_up_text(payload: dict) -> str:
 
 def _correct(args) -> CommandResult:
     from phantomlab.calibration.correction import corrected_plan, top_up
-    from phantomlab.commands.calibrate import load_batch_recipe
+    from phantomlab.workflows import batch_recipe_file
     from phantomlab.store import get_batch, latest_potencies, open_store, plan_of, recipe_of
 
     store = open_store(args.db)
     try:
         with store.reading() as session:
             batch = get_batch(session, args.batch_id, include_retracted=False)
-            recipe = load_batch_recipe(recipe_of(session, batch), args.recipe)
+            recipe, _notes = batch_recipe_file(recipe_of(session, batch), args.recipe)
             potencies = latest_potencies(session, shelf=recipe.shelf)
             plan_row = plan_of(session, batch)
             fit = _newest_fit(session, batch) if args.top_up else None

@@ -267,19 +267,13 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
     if upload is None:
         st.error("Measurement file: choose a CSV file first.")
         return
-    age = None
-    if batch["mixed_on"]:
-        age = float((measured_on - batch["mixed_on"]).days)
-        if age < 0:
-            st.error(f"Measured on {measured_on} is before the batch was mixed ({batch['mixed_on']}).")
-            return
     options = {"n": n, "thickness_mm": thickness if thickness > 0 else None}
     with st.spinner("Fitting the measurement…"):
         outcome = call_layer(
             "Attaching the measurement", attach_measurement, store, batch["code"], kind=kind,
             file_name=upload.name, raw_content=upload.getvalue(),
             sidecar_toml=sidecar.getvalue().decode("utf-8", "replace") if sidecar is not None else None,
-            model=model, measured_on=measured_on, phantom_age_days=age,
+            model=model, measured_on=measured_on,  # the phantom age: days since mixing
             instrument=instrument.strip() or None, options=options,
         )
     if outcome.ok:

@@ -1,7 +1,8 @@
 """Writing to the batch log from the page (layer 5): each action is one store transaction.
 
-Only calls: the store layer's repository functions do the writing, the recipe layer renders
-the sheet.  A refusal (unknown batch, wrong unit, busy database) arrives as an
+Only calls: the workflows the command line runs too (:mod:`phantomlab.workflows`: a batch
+recorded with its sheet, the amounts dispensed, a measurement with its fit, recalibration)
+do the work; this module turns the page's fields into their arguments.  A refusal (unknown batch, wrong unit, busy database) arrives as an
 :class:`~phantomlab.errors.InputError` and the page shows its one line.
 """
 
@@ -9,7 +10,6 @@ from __future__ import annotations
 
 from typing import Any, Mapping
 
-from phantomlab import __version__
 from phantomlab.ui.services import PAGE_STOCK_SOURCE
 
 __all__ = ["record_planned_batch", "record_page_stock"]
@@ -27,47 +27,19 @@ def record_planned_batch(
 ) -> str:
     """Record a solved plan as a new batch (status ``planned``) and return its batch ID.
 
-    The sheet stored with the batch is rendered with that ID (not a draft).  ``origin`` says,
-    per stock key, whether the definition came from the stock file or the page.
+    :func:`phantomlab.workflows.record_planned_batch`, as ``phantomlab batch add`` records
+    it: the sheet is rendered with the ID (not a draft), the potencies used name the
+    calibration state they came from.  ``origin`` says, per stock key, whether the definition
+    came from the stock file or the page (a page stock's lot is recorded as added on the
+    page).  ``potencies`` is the page's record of what the plan was solved with; the plan's
+    doses carry them.
     """
-    from phantomlab.store import (  # layer 4
-        add_batch,
-        latest_calibration_state,
-        next_batch_code,
-        record_recipe,
-        record_stock_lot,
-    )
+    from phantomlab.workflows import record_planned_batch as record
 
-    recipe = plan.recipe
-    origin = dict(origin or {})
-    shelf_path = str(recipe.shelf.path) if recipe.shelf.path is not None else None
-    with store.transaction() as session:
-        recipe_row = record_recipe(session, recipe, recorded_by=operator)
-        lots = {}
-        for key in (recipe.matrix_key, *recipe.stock_keys):
-            source = PAGE_STOCK_SOURCE if origin.get(key, "").startswith("page") else shelf_path
-            lots[key] = record_stock_lot(session, recipe.stock(key), shelf_path=source,
-                                         recorded_by=operator)
-        code = next_batch_code(session)
-        state = latest_calibration_state(session) if potencies else None
-        used = {dose.stock: {"potency": dose.potency, "potency_sd": dose.potency_sd,
-                             "source": dose.potency_source, "lot": dose.lot}
-                for dose in plan.doses}
-        add_batch(
-            session,
-            code=code,
-            recipe=recipe_row,
-            plan=plan.to_json(),
-            sheet_html=_sheet_html(plan, code),
-            potencies_used=used,
-            lots=lots,
-            software_version=__version__,
-            calibration_state_id=state.id if state is not None else None,
-            operator=operator,
-            notes=notes,
-            planned_on=planned_on,
-        )
-    return code
+    del potencies  # the doses of the plan carry the potencies they were solved with
+    sources = {key: PAGE_STOCK_SOURCE for key, where in dict(origin or {}).items()
+               if str(where).startswith("page")}
+    return record(store, plan, lot_sources=sources, operator=operator, notes=notes, planned_on=planned_on).code
 
 
 def saved_batch_sheets(store, plan, code: str) -> dict:
@@ -78,12 +50,6 @@ def saved_batch_sheets(store, plan, code: str) -> dict:
     with store.reading() as session:
         html = plan_of(session, get_batch(session, code)).sheet_html
     return {"code": code, "html": html, "csv": render_sheet_csv(plan, batch_id=code, draft=False)}
-
-
-def _sheet_html(plan, code: str) -> str:
-    from phantomlab.recipe.sheet import render_sheet_html  # layer 3
-
-    return render_sheet_html(plan, batch_id=code, draft=False)
 
 
 def write_page_recipe(folder, definition: Mapping[str, Any], *, base_dir=None, shelf=None):
@@ -186,22 +152,12 @@ def _far_past():
     return _dt.date(1970, 1, 1)  # an old batch's lots are not re-checked for expiry here
 
 
-def plan_potencies(store, code: str) -> dict[str, tuple[float, float]]:
-    """The potencies a batch was planned with: ``{stock: (potency, sd)}``."""
-    from phantomlab.store import get_batch, plan_of  # layer 4
-
-    with store.reading() as session:
-        used = dict(plan_of(session, get_batch(session, code)).potencies_used or {})
-    out = {}
-    for key, value in used.items():
-        if isinstance(value, dict) and "potency" in value:
-            out[key] = (float(value["potency"]), float(value.get("potency_sd", 0.0)))
-    return out
-
-
 def record_dispensed(store, code: str, amounts: Mapping[str, tuple[float, str]], *,
                      recorded_by: str | None = None, recipes_folder=None, mixed_on=None):
     """Record the amounts really dispensed and predict the optics of what was really made.
+
+    :func:`phantomlab.workflows.record_dispensed`, as ``phantomlab batch actual`` records
+    them, with the recipe rebuilt from the batch's snapshots (:func:`batch_recipe`).
 
     Parameters
     ----------
@@ -214,60 +170,22 @@ def record_dispensed(store, code: str, amounts: Mapping[str, tuple[float, str]],
     -------
     (batch version, Prediction, list of alarm lines)
     """
-    import numpy as np
-
     from phantomlab.errors import InputError
-    from phantomlab.recipe import predict  # layer 3
-    from phantomlab.store import get_batch, plan_of, record_actual  # layer 4
+    from phantomlab.workflows import record_dispensed as record
 
-    recipe = batch_recipe(store, code, recipes_folder=recipes_folder)
-    with store.reading() as session:
-        plan_json = dict(plan_of(session, get_batch(session, code)).plan)
-    volume_ml = float(plan_json["batch_volume_ml"])
-    planned = {d["stock"]: d for d in plan_json.get("doses", [])}
-    fractions: dict[str, float] = {}
     rows = []
     for key, given in amounts.items():
         amount, unit = given[0], given[1]
         stock_fraction = float(given[2]) if len(given) > 2 else 1.0
         if not 0 < stock_fraction <= 1:
             raise InputError(f"{key}: stock fraction of the pre-dilution {stock_fraction!r} must lie in (0, 1]")
-        if key not in recipe.stock_keys:
-            raise InputError(f"{key!r} is not a stock of this batch; its stocks: {', '.join(recipe.stock_keys)}")
-        if not (np.isfinite(amount) and amount >= 0):
-            raise InputError(f"{key}: amount {amount!r} must be a number >= 0")
-        stock = recipe.stock(key)
-        undiluted = float(amount) * stock_fraction
-        if unit == "mL":
-            volume, mass = undiluted, undiluted * stock.density_g_per_ml
-        elif unit == "g":
-            mass, volume = undiluted, undiluted / stock.density_g_per_ml
-        else:
+        if unit not in ("mL", "g"):
             raise InputError(f"{key}: unit {unit!r} not accepted; accepted: mL, g")
-        fractions[key] = volume / volume_ml
-        # the row layout of `phantomlab batch actual` (undiluted stock; no matrix row: the
-        # planned batch volume is the total)
-        rows.append({"stock": key, "volume_ml": volume, "mass_g": mass,
-                     "given": {"volume_ml" if unit == "mL" else "mass_g": float(amount)},
-                     "dilution_factor": 1.0 / stock_fraction,
-                     "planned_volume_ml": planned.get(key, {}).get("volume_ml"),
-                     "planned_mass_g": planned.get(key, {}).get("mass_g"), "volume_fraction": fractions[key]})
-    from phantomlab.commands.batch import tolerance_alarms  # the same alarm lines as `batch actual`
-    from phantomlab.jsonable import to_jsonable
-
-    prediction = predict(recipe, volume_fractions=fractions, potencies=plan_potencies(store, code) or None)
-    target = plan_json.get("target") or to_jsonable(recipe.target.to_json())
-    alarms = tolerance_alarms(
-        target=target, predicted=to_jsonable(prediction.to_json()), planned=plan_json.get("predicted"),
-        mua_tolerance=float(target.get("mua_tolerance_percent", 100 * recipe.target.mua_tolerance)) / 100,
-        musp_tolerance=float(target.get("musp_tolerance_percent", 100 * recipe.target.musp_tolerance)) / 100,
-    )
-    with store.transaction() as session:
-        batch = record_actual(session, get_batch(session, code), amounts=rows,
-                              prediction=prediction.to_json(), alarms=alarms, recorded_by=recorded_by,
-                              mixed_on=mixed_on)
-        version = batch.version
-    return version, prediction, alarms
+        rows.append({"stock": key, "volume_ml" if unit == "mL" else "mass_g": amount,
+                     "dilution_factor": 1.0 / stock_fraction})
+    recipe = batch_recipe(store, code, recipes_folder=recipes_folder)
+    done = record(store, code, rows, recipe=recipe, recorded_by=recorded_by, mixed_on=mixed_on)
+    return done.version, done.prediction, done.alarms
 
 
 def attach_measurement(
@@ -288,47 +206,28 @@ def attach_measurement(
 ):
     """Fit a measurement file and store the file (byte for byte) with its fit.
 
-    The file is fitted first: a file that does not parse is refused and nothing is written.
+    :func:`phantomlab.workflows.attach_measurement`, as ``phantomlab batch measure`` does
+    it: fitted first (a file that does not parse writes nothing); the phantom age defaults
+    to the days since mixing.
 
     Returns
     -------
     (measurement id, FitResult)
     """
-    import tomllib
+    from phantomlab.workflows import attach_measurement as attach
 
-    from phantomlab.calibration import fit_measurement_file  # layer 3
-    from phantomlab.errors import InputError
-    from phantomlab.store import add_fit, add_measurement, get_batch  # layer 4
+    done = attach(store, code, kind=kind, file_name=file_name, raw_content=raw_content,
+                  sidecar_toml=sidecar_toml, model=model, baseline=baseline, options=options,
+                  instrument=instrument, measured_on=measured_on, phantom_age_days=phantom_age_days,
+                  recorded_by=recorded_by)
+    return done.measurement_id, done.fit
 
-    try:
-        text = raw_content.decode("utf-8")
-    except UnicodeDecodeError:
-        raise InputError(f"measurement file {file_name!r} is not UTF-8 text; a CSV file is expected") from None
-    if "\n" not in text:
-        text += "\n"
-    sidecar = {}
-    if sidecar_toml:
-        try:
-            sidecar = tomllib.loads(sidecar_toml)
-        except tomllib.TOMLDecodeError as exc:
-            raise InputError(f"measurement metadata (TOML) not readable: {exc}") from None
-    fit_options = {k: v for k, v in dict(options or {}).items() if v is not None}
-    result = fit_measurement_file(text, kind=kind, sidecar=sidecar, model=model, baseline=baseline,
-                                  **fit_options)
-    with store.transaction() as session:
-        batch = get_batch(session, code)
-        measurement = add_measurement(
-            session, batch, kind=kind, file_name=file_name, raw_content=raw_content,
-            metadata_toml=sidecar_toml or None, instrument=instrument or sidecar.get("instrument"),
-            measured_on=measured_on, phantom_age_days=phantom_age_days, recorded_by=recorded_by,
-        )
-        payload = result.to_json()
-        add_fit(session, measurement, results=payload, model=result.model,
-                covariance=payload.get("covariance_mua_musp"), warnings=list(result.warnings),
-                chi2_red=None if result.chi2_red != result.chi2_red else float(result.chi2_red),
-                recorded_by=recorded_by)
-        measurement_id = measurement.id
-    return measurement_id, result
+
+def keep_fit(store, measurement_id: int, result, *, recorded_by: str | None = None) -> int:
+    """Keep a refit with its stored measurement (:func:`phantomlab.workflows.keep_fit`)."""
+    from phantomlab.workflows import keep_fit as keep
+
+    return keep(store, measurement_id, result, recorded_by=recorded_by)
 
 
 # ---- recalibration ---------------------------------------------------------------------------------
@@ -337,37 +236,17 @@ def attach_measurement(
 def recalibrate_from_log(store, *, recorded_by: str | None = None):
     """Estimate every stock lot's potency from the whole batch log and record the result.
 
-    The batch history is gathered by the very function ``phantomlab recalibrate`` uses
-    (:func:`phantomlab.commands.calibrate.gather_history`), the update is the calibration
-    layer's, and, as the command does, one potency per stock key is stored: that of the lot
-    of the newest batch.
+    :func:`phantomlab.workflows.recalibrate`, the very function ``phantomlab recalibrate``
+    runs: one calibration state, one potency per stock key (the lot of the newest batch).
 
     Returns
     -------
     (PotencyUpdate, calibration state id, list of skipped batches)
     """
-    from phantomlab.calibration import update_potencies  # layer 3
-    from phantomlab.commands.calibrate import METHOD, gather_history  # the command line's reader
-    from phantomlab.errors import InputError
-    from phantomlab.store import record_calibration  # layer 4
+    from phantomlab.workflows import recalibrate
 
-    with store.transaction() as session:
-        history = gather_history(session)
-        if not history["observations"]:
-            raise InputError("no mixed batch with a fitted measurement in the batch log; record the amounts "
-                             "dispensed and attach a measurement first"
-                             + (f" ({'; '.join(history['skipped'])})" if history["skipped"] else ""))
-        update = update_potencies(history["priors"], history["observations"])
-        payload = update.to_json()
-        stored = {key: (float(update.potency[k]), float(update.potency_sd[k]), lot)
-                  for k, (key, lot) in enumerate(update.stocks) if history["latest_lot"].get(key) == lot}
-        state = record_calibration(
-            session, potencies=stored, method=METHOD, recorded_by=recorded_by,
-            computed_from={"batches": history["batches"], "fit_ids": history["fit_ids"],
-                           "moved_by": payload["moved_by"], "lots": payload["lots"]},
-        )
-        state_id = state.id
-    return update, state_id, list(history["skipped"])
+    done = recalibrate(store, recorded_by=recorded_by)
+    return done.update, done.state_id, done.skipped
 
 
 def calibration_history(store) -> list[dict]:

@@ -298,20 +298,11 @@ def _fit_section(workspace: Workspace, store) -> None:
     _against_target(result, target)
     if measurement_row is not None:
         if st.button("Keep this fit in the batch log", key="refit.keep"):
-            kept = call_layer("Keeping the fit", _keep_fit, store, measurement_row["id"], result)
+            from phantomlab.ui.recording import keep_fit
+
+            kept = call_layer("Keeping the fit", keep_fit, store, measurement_row["id"], result)
             if kept.ok:
                 st.success(f"Fit kept with measurement {measurement_row['id']} of batch {batch['code']}.")
-
-
-def _keep_fit(store, measurement_id: int, result) -> int:
-    from phantomlab.store import add_fit, get_measurement  # layer 4
-
-    payload = result.to_json()
-    with store.transaction() as session:
-        row = add_fit(session, get_measurement(session, measurement_id), results=payload, model=result.model,
-                      covariance=payload.get("covariance_mua_musp"), warnings=list(result.warnings),
-                      chi2_red=None if not np.isfinite(result.chi2_red) else float(result.chi2_red))
-        return row.id
 
 
 def show(workspace: Workspace) -> None:

@@ -1,0 +1,773 @@
+"""The batch-log workflows, one implementation for the command line and the page (layer 5).
+
+Each function here is one thing a lab does with the batch log, written once so that
+``phantomlab batch ...`` / ``phantomlab recalibrate`` and the Streamlit page cannot drift
+apart:
+
+* :func:`plan_batch` + :func:`record_planned_batch` — solve a recipe with the calibrated
+  potencies of the lots on its shelf, record it as a batch (stock-lot snapshots, recipe,
+  plan, sheet rendered with the batch ID) in ONE transaction;
+* :func:`record_dispensed` — the amounts really dispensed (the ``batch actual`` row layout),
+  the recipe layer's prediction of what was made at the plan's potencies, and the alarm
+  lines of :func:`tolerance_alarms`; read and predicted first, then one write transaction
+  that refuses if the batch changed meanwhile;
+* :func:`attach_measurement` — read and fit a measurement file BEFORE any write (a file that
+  does not parse writes nothing; a long fit holds no lock), then store the file byte for
+  byte with its fit in one transaction; :func:`keep_fit` stores a later refit the same way;
+* :func:`recalibrate` — every mixed batch with fits (:func:`gather_history`), the Bayesian
+  potency update, and ONE calibration state holding one potency per stock key: that of the
+  lot of the newest batch.
+
+Layer 5 because each workflow ties the recipe and calibration layers (3) to the store (4)
+and reads the files a person hands over; the store layer holds the schema and queries only
+and never imports layer 3's solvers for its own writes.  Nothing here imports argparse,
+``phantomlab.cli`` or streamlit: the commands and the page only turn their input into these
+calls and show what comes back.  No physics lives here either: prediction, fits and the
+potency update are the layers' own functions.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as _dt
+import io
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+
+from phantomlab.errors import InputError
+from phantomlab.jsonable import to_jsonable
+
+__all__ = [
+    "METHOD",
+    "parse_amounts_csv",
+    "tolerance_alarms",
+    "batch_recipe_file",
+    "plan_batch",
+    "record_planned_batch",
+    "RecordedBatch",
+    "record_dispensed",
+    "DispensedBatch",
+    "attach_measurement",
+    "AttachedMeasurement",
+    "keep_fit",
+    "gather_history",
+    "batch_volume_fractions",
+    "recalibrate",
+    "Recalibration",
+]
+
+METHOD = "bayesian-linear-least-squares (phantomlab.calibration.potency, v1)"
+
+
+# ---- amounts and tolerance (pure) -------------------------------------------------------------
+
+
+def parse_amounts_csv(text: str, *, source: str = "amounts file") -> list[dict[str, Any]]:
+    """Rows ``{stock, volume_ml | mass_g, dilution_factor}`` of an amounts CSV.
+
+    Header: ``stock`` and ``volume_ml`` and/or ``mass_g`` (one of them filled per row), and an
+    optional ``dilution_factor`` (amount given of a pre-dilution 1 in factor; the undiluted
+    equivalent is amount / factor).  Lines starting with ``#`` are comments.
+    """
+    lines = [line for line in text.splitlines() if line.strip() and not line.lstrip().startswith("#")]
+    if not lines:
+        raise InputError(f"{source} is empty; accepted header: stock,volume_ml or stock,mass_g")
+    reader = csv.DictReader(io.StringIO("\n".join(lines)))
+    header = [h.strip() for h in (reader.fieldnames or [])]
+    accepted = {"stock", "volume_ml", "mass_g", "dilution_factor"}
+    wrong = [h for h in header if h not in accepted]
+    if wrong or "stock" not in header or not ({"volume_ml", "mass_g"} & set(header)):
+        raise InputError(
+            f"{source}: columns {','.join(header)} not accepted (amounts in mL or g only); "
+            "accepted: stock,volume_ml or stock,mass_g [,dilution_factor]"
+        )
+    rows: list[dict[str, Any]] = []
+    seen: set[str] = set()
+    for number, raw in enumerate(reader, start=2):
+        row = {k.strip(): (v or "").strip() for k, v in raw.items() if k is not None}
+        stock = row.get("stock", "")
+        if not stock:
+            raise InputError(f"{source} line {number}: no stock name")
+        if stock in seen:
+            raise InputError(f"{source} line {number}: stock {stock!r} given twice")
+        seen.add(stock)
+        given = {k: row.get(k, "") for k in ("volume_ml", "mass_g") if row.get(k, "")}
+        if len(given) != 1:
+            raise InputError(f"{source} line {number}: give exactly one of volume_ml or mass_g for {stock!r}")
+        (unit, text_value), = given.items()
+        value = _non_negative(text_value, where=f"{source} line {number}, {unit}")
+        factor = 1.0
+        if row.get("dilution_factor"):
+            factor = _non_negative(row["dilution_factor"], where=f"{source} line {number}, dilution_factor")
+            if factor < 1:
+                raise InputError(f"{source} line {number}: dilution_factor {factor:g} must be >= 1")
+        rows.append({"stock": stock, unit: value, "dilution_factor": factor})
+    if not rows:
+        raise InputError(f"{source} has a header but no amounts")
+    return rows
+
+
+def _non_negative(text: str, *, where: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise InputError(f"{where}: {text!r} is not a number (give the bare number in the column's unit)") from None
+    if not (math.isfinite(value) and value >= 0):
+        raise InputError(f"{where}: {text!r} must be a finite number >= 0")
+    return value
+
+
+def _array(values, shape) -> np.ndarray:
+    array = np.asarray([np.nan if v is None else v for v in (values or [])], dtype=float)
+    return array if array.shape == shape else np.full(shape, np.nan)
+
+
+def tolerance_alarms(*, target: dict[str, Any], predicted: dict[str, Any],
+                     mua_tolerance: float, musp_tolerance: float,
+                     planned: dict[str, Any] | None = None, what: str = "predicted") -> list[str]:
+    """One line per wavelength where ``predicted`` leaves the target's relative tolerance.
+
+    Parameters
+    ----------
+    target, predicted : dict
+        ``wavelength_nm`` and ``mua_per_mm`` / ``musp_per_mm`` lists on one grid (None or
+        NaN where a value is not targeted).
+    mua_tolerance, musp_tolerance : float [fraction]
+        Relative tolerances of the recipe.
+    planned : dict, optional
+        The plan's own prediction: when it already missed the target there, the line says so.
+    """
+    alarms = []
+    wavelength = np.asarray(target["wavelength_nm"], dtype=float)
+    for name, key, tol in (("mua", "mua_per_mm", mua_tolerance), ("musp", "musp_per_mm", musp_tolerance)):
+        want = _array(target.get(key), wavelength.shape)
+        have = _array(predicted.get(key), wavelength.shape)
+        plan = _array((planned or {}).get(key), wavelength.shape)
+        for w, a, b, p in zip(wavelength, want, have, plan):
+            if np.isfinite(a) and a > 0 and np.isfinite(b):
+                deviation = b / a - 1.0
+                if abs(deviation) > tol * (1 + 1e-9):
+                    line = (f"ALARM: {what} {name} at {w:g} nm is {100 * deviation:+.1f}% from target "
+                            f"(tolerance ±{100 * tol:g}%)")
+                    if np.isfinite(p) and abs(p / a - 1.0) > tol * (1 + 1e-9):
+                        line += f"; the plan itself was {100 * (p / a - 1.0):+.1f}%"
+                    alarms.append(line)
+    return alarms
+
+
+# ---- a batch's recipe file ------------------------------------------------------------------------
+
+
+def batch_recipe_file(recipe_row, override: str | Path | None = None):
+    """The recipe a batch was planned from, read from its recorded file (or ``override``).
+
+    Returns
+    -------
+    (Recipe, list of str)
+        The recipe and notes (the file changed since the batch was planned).
+    """
+    from phantomlab.recipe import load_recipe  # layer 3
+
+    source = str(override or recipe_row.source_path or "") or None
+    if not source or not Path(source).is_file():
+        raise InputError(
+            f"recipe file {source!r} of this batch is not there any more; give it with --recipe RECIPE.toml"
+        )
+    recipe = load_recipe(source)
+    notes = []
+    if recipe.content_hash != recipe_row.content_hash:
+        notes.append(
+            f"recipe file {source} changed since the batch was planned (hash {recipe.content_hash[:10]} "
+            f"vs {recipe_row.content_hash[:10]}); predicting with the file as it is now"
+        )
+    return recipe, notes
+
+
+# ---- plan and record a batch ----------------------------------------------------------------------
+
+
+def plan_batch(store, recipe):
+    """Solve ``recipe`` with the newest calibrated potency of each lot now on its shelf.
+
+    A stock whose lot was never calibrated keeps the stock file's prior
+    (:func:`phantomlab.store.latest_potencies` with the shelf).
+
+    Returns
+    -------
+    phantomlab.recipe.Plan
+    """
+    from phantomlab.recipe import solve  # layer 3
+    from phantomlab.store import latest_potencies  # layer 4
+
+    with store.reading() as session:
+        calibrated = latest_potencies(session, shelf=recipe.shelf)
+    return solve(recipe, potencies=calibrated)
+
+
+@dataclass(frozen=True)
+class RecordedBatch:
+    """A batch just recorded: its ID and what was stored with it."""
+
+    code: str
+    status: str
+    plan_json: dict
+    potencies_used: dict
+    lots: dict  # stock key -> lot name (or None)
+    expired_lots: list  # [{stock, lot, expiry}] of lots past their expiry date today
+    sheet_html: str
+    sheet_path: Path | None = None
+    notes: list = field(default_factory=list)  # expired lots the plan's warnings do not name yet
+
+
+def record_planned_batch(
+    store,
+    plan,
+    *,
+    lot_sources: Mapping[str, str | None] | None = None,
+    operator: str | None = None,
+    notes: str | None = None,
+    planned_on: _dt.date | None = None,
+    sheet_path: str | Path | None = None,
+) -> RecordedBatch:
+    """Record a solved plan as a new batch (status ``planned``) in ONE transaction.
+
+    Parameters
+    ----------
+    plan : phantomlab.recipe.Plan
+        From :func:`plan_batch` (or a corrected plan).
+    lot_sources : mapping, optional
+        Per stock key, the ``shelf_path`` to record with its lot snapshot (where the
+        definition came from); default: the recipe's stock file.
+    sheet_path : path, optional
+        Also write the sheet (HTML, with the batch ID) there, inside the transaction: a sheet
+        that cannot be written records nothing.
+
+    Returns
+    -------
+    RecordedBatch
+    """
+    from phantomlab import __version__
+    from phantomlab.recipe.sheet import render_sheet_html  # layer 3
+    from phantomlab.store import (  # layer 4
+        add_batch,
+        latest_potency_states,
+        next_batch_code,
+        record_recipe,
+        record_stock_lot,
+    )
+
+    recipe = plan.recipe
+    plan_json = to_jsonable(plan.to_json())
+    shelf_path = str(getattr(recipe.shelf, "path", "") or "") or None
+    sources = dict(lot_sources or {})
+    target = Path(sheet_path) if sheet_path is not None else None
+    with store.transaction() as session:
+        states = latest_potency_states(session, shelf=recipe.shelf)
+        lots = {
+            key: record_stock_lot(session, recipe.stock(key), shelf_path=sources.get(key, shelf_path),
+                                  recorded_by=operator)
+            for key in (recipe.matrix_key, *recipe.stock_keys)
+        }
+        recipe_row = record_recipe(session, recipe, recorded_by=operator)
+        code = next_batch_code(session)
+        sheet_html = render_sheet_html(plan, batch_id=code, draft=False)
+        potencies_used = {
+            dose.stock: {
+                "potency": dose.potency, "potency_sd": dose.potency_sd, "lot": dose.lot,
+                "source": dose.potency_source,
+                "calibration_state_id": states.get(dose.stock) if dose.potency_source == "calibrated" else None,
+            }
+            for dose in plan.doses
+        }
+        used_states = sorted({v["calibration_state_id"] for v in potencies_used.values()} - {None})
+        batch = add_batch(
+            session, code=code, recipe=recipe_row, plan=plan_json, sheet_html=sheet_html,
+            potencies_used=potencies_used, lots=lots, software_version=__version__,
+            calibration_state_id=used_states[-1] if used_states else None,
+            operator=operator, notes=notes, planned_on=planned_on,
+            matrix_details={"matrix": recipe.matrix_key, "lot": recipe.matrix.lot,
+                            "preparation": plan_json.get("preparation")},
+        )
+        if target is not None:
+            try:
+                target.write_text(sheet_html, encoding="utf-8")
+            except OSError as exc:
+                raise InputError(f"sheet: cannot write {str(target)!r} ({exc.strerror or exc})") from None
+        status = batch.status
+        lot_names = {key: lot.lot for key, lot in lots.items()}
+        today = _dt.date.today()
+        expired = [{"stock": key, "lot": lot.lot, "expiry": lot.expiry} for key, lot in lots.items()
+                   if lot.expiry is not None and lot.expiry < today]
+    unsaid = [f"{item['stock']}: lot {item['lot'] or '(none)'} expired on {item['expiry'].isoformat()}"
+              for item in expired
+              if not any(item["stock"] in w and item["expiry"].isoformat() in w for w in plan.warnings)]
+    return RecordedBatch(code=code, status=status, plan_json=plan_json, potencies_used=potencies_used,
+                         lots=lot_names, expired_lots=expired, sheet_html=sheet_html, sheet_path=target,
+                         notes=unsaid)
+
+
+# ---- what was dispensed -------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class DispensedBatch:
+    """The amounts of a batch recorded, with the prediction of what was made."""
+
+    code: str
+    status: str
+    version: int
+    amounts: list  # rows as stored (undiluted stock: volume_ml, mass_g, volume_fraction, ...)
+    volume_fractions: dict
+    prediction: Any  # phantomlab.recipe.Prediction
+    prediction_json: dict
+    target: dict
+    planned_predicted: dict | None
+    alarms: list
+    notes: list  # what the caller should say besides the alarms (recipe or stock file changed)
+
+
+def record_dispensed(
+    store,
+    code: str,
+    rows: Sequence[Mapping[str, Any]],
+    *,
+    recipe=None,
+    recipe_file: str | Path | None = None,
+    mixed_on: _dt.date | None = None,
+    cure: str | None = None,
+    mixing_temperature_c: float | None = None,
+    notes: str | None = None,
+    recorded_by: str | None = None,
+) -> DispensedBatch:
+    """Record the amounts really dispensed and predict the optics of what was really made.
+
+    Parameters
+    ----------
+    rows : list of dict
+        ``{stock, volume_ml | mass_g, dilution_factor}`` as :func:`parse_amounts_csv` gives:
+        an amount [mL or g] of the stock or of its pre-dilution 1 in ``dilution_factor``
+        (the undiluted stock is amount / factor).  With the matrix among the rows, the batch
+        volume is the sum of all volumes (volumes additive); without it, the planned one.
+    recipe : Recipe, optional
+        The batch's recipe; default: read from the file it was planned from (or
+        ``recipe_file``), saying so in ``notes`` when that file changed.
+
+    Returns
+    -------
+    DispensedBatch
+        The prediction is at the potencies the plan used; the alarms are
+        :func:`tolerance_alarms` against the plan's target and tolerances.
+    """
+    from phantomlab.recipe import predict  # layer 3
+    from phantomlab.store import StoreConflictError, batch_lots, get_batch, plan_of, recipe_of, record_actual
+    from phantomlab.store.snapshots import content_sha256
+
+    checked = [_checked_row(row) for row in rows]
+    # Read and predict without holding the write lock; then write, checking that no other
+    # writer changed the batch meanwhile.
+    with store.reading() as session:
+        batch = get_batch(session, code)
+        batch_id = batch.id
+        plan = dict(plan_of(session, batch).plan)
+        potencies_used = dict(plan_of(session, batch).potencies_used or {})
+        recipe_row = recipe_of(session, batch)
+        lot_sha = {key: lot.definition_sha256 for key, lot in batch_lots(session, batch).items()}
+        said = []
+        if recipe is None:
+            recipe, said = batch_recipe_file(recipe_row, recipe_file)
+    said = list(said)
+    for key, sha in lot_sha.items():
+        if key in recipe.shelf.keys() and content_sha256(recipe.stock(key).definition) != sha:
+            said.append(f"stock {key}: the stock file changed since planning; predicting with it as it is now")
+    amounts, fractions = _fractions(checked, recipe, plan)
+    potencies = {key: (float(v["potency"]), float(v.get("potency_sd", 0.0)))
+                 for key, v in potencies_used.items()
+                 if key in recipe.stock_keys and isinstance(v, Mapping) and "potency" in v}
+    prediction = predict(recipe, volume_fractions=fractions, potencies=potencies or None)
+    prediction_json = to_jsonable(prediction.to_json())
+    target = plan.get("target") or to_jsonable(recipe.target.to_json())
+    alarms = tolerance_alarms(
+        target=target, predicted=prediction_json, planned=plan.get("predicted"),
+        mua_tolerance=float(target.get("mua_tolerance_percent", 100 * recipe.target.mua_tolerance)) / 100,
+        musp_tolerance=float(target.get("musp_tolerance_percent", 100 * recipe.target.musp_tolerance)) / 100,
+    )
+    cure_details = {k: v for k, v in {"schedule": cure, "mixing_temperature_c": mixing_temperature_c}.items()
+                    if v is not None}
+    with store.transaction() as session:
+        head = get_batch(session, code)
+        if head.id != batch_id:
+            raise StoreConflictError(f"batch {head.code} changed while its amounts were being predicted; try again")
+        updated = record_actual(session, head, amounts=amounts, prediction=prediction_json, alarms=alarms,
+                                recorded_by=recorded_by, mixed_on=mixed_on, cure_details=cure_details,
+                                notes=notes)
+        result = DispensedBatch(
+            code=updated.code, status=updated.status, version=updated.version, amounts=amounts,
+            volume_fractions=fractions, prediction=prediction, prediction_json=prediction_json, target=target,
+            planned_predicted=plan.get("predicted"), alarms=alarms, notes=said,
+        )
+    return result
+
+
+def _checked_row(row: Mapping[str, Any]) -> dict[str, Any]:
+    stock = str(row.get("stock") or "").strip()
+    if not stock:
+        raise InputError("amounts: a row without a stock name")
+    given = {k: row[k] for k in ("volume_ml", "mass_g") if row.get(k) is not None}
+    if len(given) != 1:
+        raise InputError(f"amounts: give exactly one of volume_ml or mass_g for {stock!r}")
+    (unit, value), = given.items()
+    try:
+        value = float(value)
+        factor = float(row.get("dilution_factor", 1.0) or 1.0)
+    except (TypeError, ValueError):
+        raise InputError(f"amounts: {stock}: {unit} and dilution_factor must be numbers") from None
+    if not (math.isfinite(value) and value >= 0):
+        raise InputError(f"{stock}: amount {value!r} must be a number >= 0")
+    if not (math.isfinite(factor) and factor >= 1):
+        raise InputError(f"{stock}: dilution_factor {factor:g} must be >= 1")
+    return {"stock": stock, unit: value, "dilution_factor": factor}
+
+
+def _fractions(rows, recipe, plan: dict) -> tuple[list[dict[str, Any]], dict[str, float]]:
+    """Volumes of undiluted stock and their volume fractions in what was made."""
+    known = (recipe.matrix_key, *recipe.stock_keys)
+    planned = {d["stock"]: d for d in plan.get("doses", [])}
+    amounts = []
+    for row in rows:
+        key = row["stock"]
+        if key not in known:
+            raise InputError(f"amounts: {key!r} is not a stock of this batch; its stocks: {', '.join(known)}")
+        stock = recipe.matrix if key == recipe.matrix_key else recipe.stock(key)
+        factor = row["dilution_factor"]
+        if "volume_ml" in row:
+            volume = row["volume_ml"] / factor
+            mass = volume * stock.density_g_per_ml
+        else:
+            mass = row["mass_g"] / factor
+            volume = mass / stock.density_g_per_ml
+        amounts.append({"stock": key, "volume_ml": volume, "mass_g": mass,
+                        "given": {k: row[k] for k in ("volume_ml", "mass_g") if k in row},
+                        "dilution_factor": factor,
+                        "planned_volume_ml": planned.get(key, {}).get("volume_ml"),
+                        "planned_mass_g": planned.get(key, {}).get("mass_g")})
+    has_matrix = any(a["stock"] == recipe.matrix_key for a in amounts)
+    total = sum(a["volume_ml"] for a in amounts) if has_matrix else float(plan.get("batch_volume_ml") or 0)
+    if not total > 0:
+        raise InputError("amounts: the batch volume comes out as 0 mL; give the matrix amount too")
+    for a in amounts:
+        a["volume_fraction"] = a["volume_ml"] / total
+    fractions = {a["stock"]: a["volume_fraction"] for a in amounts if a["stock"] != recipe.matrix_key}
+    missing = [k for k in recipe.stock_keys if k not in fractions and planned.get(k, {}).get("volume_fraction", 0) > 0]
+    if missing:
+        raise InputError(f"amounts: no amount for {', '.join(missing)}; give 0 for a stock left out")
+    if sum(fractions.values()) >= 1:
+        raise InputError("amounts: the stocks add up to the whole batch volume or more; give the matrix amount")
+    return amounts, fractions
+
+
+# ---- measurements and fits ----------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class AttachedMeasurement:
+    """A measurement stored with a batch, and its fit (None when no fit ran)."""
+
+    code: str
+    measurement_id: int
+    fit_id: int | None
+    fit: Any  # phantomlab.calibration.FitResult or None
+    fit_json: dict | None
+    measured_on: _dt.date
+    phantom_age_days: float | None
+    batch_status: str
+
+
+def attach_measurement(
+    store,
+    code: str,
+    *,
+    kind: str,
+    file_name: str,
+    raw_content: bytes,
+    sidecar_toml: str | None = None,
+    path: str | Path | None = None,
+    fit: bool = True,
+    model: str | None = None,
+    baseline=None,
+    options: Mapping[str, Any] | None = None,
+    instrument: str | None = None,
+    measured_on: _dt.date | None = None,
+    phantom_age_days: float | None = None,
+    temperature_c: float | None = None,
+    recorded_by: str | None = None,
+) -> AttachedMeasurement:
+    """Read and fit a measurement file, then store the file (byte for byte) with its fit.
+
+    The file is read and fitted before the write transaction opens: a file that does not
+    parse is refused and nothing is written, and a long fit holds no lock.
+
+    Parameters
+    ----------
+    raw_content : bytes
+        The file as handed over (stored unchanged); ``sidecar_toml`` its metadata TOML.
+    path : path, optional
+        Where the file lies, when it is on disk (the command line): it is then read from
+        there, so files its sidecar names (a reference reading) are found beside it.
+    fit : bool
+        False stores the file only.
+    model, baseline, options
+        The fit's model, Monte Carlo baseline, and metadata options (``n``, ``thickness_mm``
+        [mm], ``g``, ...; they win over the sidecar; None values are ignored).
+    measured_on : date, optional
+        Default: the file's metadata date, else today.
+    phantom_age_days : float [days], optional
+        Default: days since the batch was mixed (refused when negative).
+    """
+    from phantomlab.calibration import fit_measurement_file, read_measurement  # layer 3
+    from phantomlab.store import add_measurement, get_batch  # layer 4
+
+    fit_options = {k: v for k, v in dict(options or {}).items() if v is not None}
+    if path is not None:
+        source: Any = Path(path)
+        read_extra: dict[str, Any] = {}
+    else:
+        try:
+            text = raw_content.decode("utf-8")
+        except UnicodeDecodeError:
+            raise InputError(f"measurement file {file_name!r} is not UTF-8 text; a CSV file is expected") from None
+        if "\n" not in text:
+            text += "\n"
+        sidecar: dict[str, Any] = {}
+        if sidecar_toml:
+            try:
+                sidecar = tomllib.loads(sidecar_toml)
+            except tomllib.TOMLDecodeError as exc:
+                raise InputError(f"measurement metadata (TOML) not readable: {exc}") from None
+        source, read_extra = text, {"sidecar": sidecar}
+    info = read_measurement(source, kind=kind, **read_extra)
+    result = None
+    fit_json = None
+    if fit:
+        result = fit_measurement_file(source, kind=kind, model=model, baseline=baseline, **read_extra,
+                                      **fit_options)
+        fit_json = to_jsonable(result.to_json())
+    if measured_on is None:
+        measured_on = _metadata_date(info) or _dt.date.today()
+    geometry = _geometry(info, {"model": model, **fit_options})
+    with store.transaction() as session:
+        batch = get_batch(session, code)
+        age = phantom_age_days
+        if age is None and batch.mixed_on is not None:
+            age = float((measured_on - batch.mixed_on).days)
+            if age < 0:
+                raise InputError(
+                    f"measured on {measured_on} but batch {batch.code} was mixed on {batch.mixed_on}; "
+                    "give the measurement date or the phantom age"
+                )
+        measurement = add_measurement(
+            session, batch, kind=kind, file_name=file_name, raw_content=raw_content,
+            metadata_toml=sidecar_toml or None, instrument=instrument or _metadata_value(info, "instrument"),
+            geometry=geometry, measured_on=measured_on, phantom_age_days=age, temperature_c=temperature_c,
+            recorded_by=recorded_by,
+        )
+        fit_id = _add_fit(session, measurement, result, recorded_by=recorded_by) if result is not None else None
+        attached = AttachedMeasurement(
+            code=batch.code, measurement_id=measurement.id, fit_id=fit_id, fit=result, fit_json=fit_json,
+            measured_on=measured_on, phantom_age_days=age, batch_status=batch.status,
+        )
+    return attached
+
+
+def keep_fit(store, measurement_id: int, result, *, recorded_by: str | None = None) -> int:
+    """Store a (re)fit of a stored measurement, as :func:`attach_measurement` stores its fit."""
+    from phantomlab.store import get_measurement  # layer 4
+
+    with store.transaction() as session:
+        return _add_fit(session, get_measurement(session, measurement_id), result, recorded_by=recorded_by)
+
+
+def _add_fit(session, measurement, result, *, recorded_by: str | None) -> int:
+    from phantomlab.store import add_fit  # layer 4
+
+    row = add_fit(session, measurement, results=to_jsonable(result.to_json()), model=result.model,
+                  covariance=to_jsonable(result.covariance), warnings=list(result.warnings),
+                  chi2_red=_finite(result.chi2_red), recorded_by=recorded_by)
+    return row.id
+
+
+def _finite(value):
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        return None
+    return number if math.isfinite(number) else None
+
+
+def _metadata_value(measurement, name: str):
+    metadata = getattr(measurement, "metadata", None)
+    value = getattr(metadata, name, None) if metadata is not None else None
+    return None if value in (None, "") else value
+
+
+def _metadata_date(measurement) -> _dt.date | None:
+    value = _metadata_value(measurement, "date")
+    if isinstance(value, _dt.date):
+        return value
+    if isinstance(value, str):
+        try:
+            return _dt.date.fromisoformat(value[:10])
+        except ValueError:
+            return None
+    return None
+
+
+def _geometry(measurement, options: Mapping[str, Any]) -> dict[str, Any] | None:
+    metadata = getattr(measurement, "metadata", None)
+    geometry: dict[str, Any] = {}
+    if metadata is not None:
+        geometry.update({k: v for k, v in to_jsonable(metadata).items() if v is not None}
+                        if not isinstance(metadata, dict) else metadata)
+    geometry.update({k: v for k, v in options.items() if v is not None and k != "baseline"})
+    axis_name = getattr(measurement, "axis_name", None)
+    axis = getattr(measurement, "axis", None)
+    if axis_name and axis is not None and np.size(axis):
+        geometry[axis_name] = sorted({float(v) for v in np.ravel(axis)})
+    if not geometry.get("reference"):
+        geometry.pop("reference", None)
+    return to_jsonable(geometry) or None
+
+
+# ---- recalibration --------------------------------------------------------------------------------
+
+
+def batch_volume_fractions(batch, plan: dict, recipe) -> tuple[dict[str, float], str]:
+    """Volume fractions actually dispensed (recorded amounts), else the planned ones."""
+    if batch.actual_amounts:
+        fractions = {row["stock"]: float(row["volume_fraction"]) for row in batch.actual_amounts
+                     if row.get("stock") in recipe.stock_keys and row.get("volume_fraction") is not None}
+        if fractions:
+            return fractions, "actual"
+    fractions = {d["stock"]: float(d["volume_fraction"]) for d in plan.get("doses", [])
+                 if d.get("stock") in recipe.stock_keys}
+    return fractions, "planned"
+
+
+def gather_history(session, *, recipe_override: str | Path | None = None) -> dict[str, Any]:
+    """Priors and observations of every mixed batch with fits in the log.
+
+    Returns
+    -------
+    dict
+        ``priors`` (list of PotencyPrior), ``observations`` (list of BatchObservation),
+        ``fit_ids``, ``batches`` ({code: "actual"|"planned"}), ``skipped`` (list of str),
+        ``latest_lot`` ({stock: lot of the newest batch}).
+    """
+    from phantomlab.calibration.observations import observation_from_fit  # layer 3
+    from phantomlab.calibration.potency import PotencyPrior
+    from phantomlab.store import batch_lots, fits_of, list_batches, measurements_of, plan_of, recipe_of
+
+    priors: dict[tuple, PotencyPrior] = {}
+    observations, fit_ids, skipped = [], [], []
+    used: dict[str, str] = {}
+    latest_lot: dict[str, str | None] = {}
+    for batch in list_batches(session):
+        if batch.status not in ("mixed", "characterised", "retired"):
+            continue
+        fits = []
+        for measurement in measurements_of(session, batch):
+            rows = fits_of(session, measurement)
+            if rows:
+                fits.append(max(rows, key=lambda r: (r.recorded_at, r.id)))
+        if not fits:
+            continue
+        try:
+            recipe, _notes = batch_recipe_file(recipe_of(session, batch), recipe_override)
+        except InputError as exc:
+            skipped.append(f"batch {batch.code}: {exc}")
+            continue
+        plan = plan_of(session, batch).plan
+        fractions, source = batch_volume_fractions(batch, plan, recipe)
+        lot_rows = batch_lots(session, batch)
+        lots = {}
+        for key in recipe.stock_keys:
+            row = lot_rows.get(key)
+            stock = recipe.stock(key)
+            lot = row.lot if row is not None else stock.lot
+            lot = None if lot in (None, "") else str(lot)
+            lots[key] = lot
+            latest_lot[key] = lot
+            if (key, lot) not in priors:
+                potency = row.potency_prior if row is not None and row.potency_prior is not None else stock.potency
+                sd = row.potency_sd_prior if row is not None and row.potency_sd_prior else stock.potency_sd
+                priors[(key, lot)] = PotencyPrior(stock=key, lot=lot, potency=float(potency), potency_sd=float(sd))
+        for fit in fits:
+            try:
+                observations.append(observation_from_fit(
+                    recipe, batch_id=batch.code, volume_fractions=fractions, fit=fit.results, lots=lots))
+            except InputError as exc:
+                skipped.append(f"batch {batch.code} fit {fit.id}: {exc}")
+                continue
+            fit_ids.append(fit.id)
+            used[batch.code] = source
+    return {"priors": list(priors.values()), "observations": observations, "fit_ids": fit_ids,
+            "batches": used, "skipped": skipped, "latest_lot": latest_lot}
+
+
+@dataclass(frozen=True)
+class Recalibration:
+    """The potency update from the whole log and what was stored of it."""
+
+    update: Any  # phantomlab.calibration.PotencyUpdate
+    payload: dict  # update.to_json() with ``stocks`` = the stored potencies, plus the extras below
+    state_id: int | None  # None on a dry run
+    skipped: list
+
+
+def recalibrate(store, *, recipe_override: str | Path | None = None, dry_run: bool = False,
+                recorded_by: str | None = None) -> Recalibration:
+    """Estimate every stock lot's potency from the whole batch log; store one calibration state.
+
+    One potency per stock key is stored: that of the lot of the newest batch (an older lot's
+    estimate is shown, not stored).  Gathering, update and write are ONE transaction.
+
+    Returns
+    -------
+    Recalibration
+        ``payload`` holds ``stocks`` {KEY: {potency, potency_sd, lot}} and ``before``,
+        ``after``, ``moved_by``, ``lots``, ``fit_ids``, ``batches``, ``skipped``,
+        ``calibration_state_id``, ``dry_run``, ``chi2_red``.
+    """
+    from phantomlab.calibration import update_potencies  # layer 3
+    from phantomlab.store import record_calibration  # layer 4
+
+    with store.transaction() as session:
+        history = gather_history(session, recipe_override=recipe_override)
+        if not history["observations"]:
+            raise InputError(
+                "no mixed batch with a fitted measurement in the batch log; record the amounts dispensed "
+                "and attach a measurement first"
+                + (f" ({'; '.join(history['skipped'])})" if history["skipped"] else "")
+            )
+        update = update_potencies(history["priors"], history["observations"])
+        payload = update.to_json()
+        stored = {}
+        for k, (key, lot) in enumerate(update.stocks):
+            if history["latest_lot"].get(key) == lot:
+                stored[key] = (float(update.potency[k]), float(update.potency_sd[k]), lot)
+                payload["stocks"][key] = {"potency": stored[key][0], "potency_sd": stored[key][1], "lot": lot}
+        state_id = None
+        if not dry_run:
+            state = record_calibration(
+                session, potencies=stored, method=METHOD, recorded_by=recorded_by,
+                computed_from={"batches": history["batches"], "fit_ids": history["fit_ids"],
+                               "moved_by": payload["moved_by"], "lots": payload["lots"]},
+            )
+            state_id = state.id
+    payload.update({"fit_ids": history["fit_ids"], "batches": sorted(history["batches"]),
+                    "skipped": history["skipped"], "calibration_state_id": state_id, "dry_run": bool(dry_run)})
+    return Recalibration(update=update, payload=payload, state_id=state_id, skipped=list(history["skipped"]))
