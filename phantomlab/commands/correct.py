@@ -7,6 +7,8 @@ Without ``--top-up``: the batch's recipe planned again with the newest calibrate
 of the lots on the shelf (``phantomlab recalibrate`` makes them); JSON: the ``plan`` keys of
 DESIGN.md plus ``after_batch`` and ``potencies_used``.
 
+The work is :mod:`phantomlab.workflows` (``next_batch_plan``, ``top_up_batch``), as on the page.
+
 With ``--top-up`` (liquid batches): from the batch's newest fitted measurement, what to add —
 which stock, how much, how much diluent — to bring it to the target; nothing can be taken
 out.  JSON: ``batch_id``, ``additions`` [{stock, volume_ml, mass_g, below_min_dispense}],
@@ -19,7 +21,6 @@ from __future__ import annotations
 from pathlib import Path
 
 from phantomlab.cli import CommandResult, add_json_option
-from phantomlab.errors import InputError
 
 __all__ = ["register"]
 
@@ -44,17 +45,6 @@ def register(subparsers) -> None:
     parser.add_argument("--sheet", metavar="FILE.html", default=None, help="write the corrected plan's sheet (draft)")
     add_json_option(parser)
     parser.set_defaults(handler=_correct)
-
-
-def _newest_fit(session, batch):
-    from phantomlab.store import fits_of, measurements_of
-
-    best = None
-    for measurement in measurements_of(session, batch):
-        for fit in fits_of(session, measurement):
-            if best is None or (fit.recorded_at, fit.id) > (best.recorded_at, best.id):
-                best = fit
-    return best
 
 
 def _plan_text(plan_json: dict, batch_id: str) -> str:
@@ -88,27 +78,23 @@ def _top_up_text(payload: dict) -> str:
 
 
 def _correct(args) -> CommandResult:
-    from phantomlab.calibration.correction import corrected_plan, top_up
-    from phantomlab.workflows import batch_recipe_file
-    from phantomlab.store import get_batch, latest_potencies, open_store, plan_of, recipe_of
+    from phantomlab.store import get_batch, open_store, recipe_of
+    from phantomlab.workflows import batch_recipe_file, next_batch_plan, top_up_batch
 
     store = open_store(args.db)
     try:
         with store.reading() as session:
             batch = get_batch(session, args.batch_id, include_retracted=False)
             recipe, _notes = batch_recipe_file(recipe_of(session, batch), args.recipe)
-            potencies = latest_potencies(session, shelf=recipe.shelf)
-            plan_row = plan_of(session, batch)
-            fit = _newest_fit(session, batch) if args.top_up else None
-            fit_results = dict(fit.results) if fit is not None else None
-            fit_id = fit.id if fit is not None else None
             code = batch.code
-            planned_volume = plan_row.plan.get("batch_volume_ml")
+        if args.top_up:
+            done = top_up_batch(store, code, recipe, current_volume_ml=args.volume_ml,
+                                max_added_ml=args.max_added_ml)
+        else:
+            plan, usable = next_batch_plan(store, recipe)
     finally:
         store.close()
-    usable = {k: (p, sd, lot) for k, (p, sd, lot) in potencies.items() if k in recipe.stock_keys}
     if not args.top_up:
-        plan = corrected_plan(recipe, potencies=usable)
         payload = dict(plan.to_json())
         payload["after_batch"] = code
         payload["potencies_used"] = {k: [v[0], v[1]] for k, v in usable.items()}
@@ -118,13 +104,7 @@ def _correct(args) -> CommandResult:
             Path(args.sheet).write_text(render_sheet_html(plan, draft=True), encoding="utf-8")
             payload["sheet"] = args.sheet
         return CommandResult(payload=payload, text=_plan_text(payload, code))
-    if fit_results is None:
-        raise InputError(f"batch {code} has no fitted measurement; measure it with `phantomlab batch measure` first")
-    volume = args.volume_ml if args.volume_ml is not None else planned_volume
-    if volume is None:
-        raise InputError("give the batch's present volume with --volume-ml V")
-    result = top_up(recipe, current_volume_ml=float(volume), measured=fit_results, potencies=usable,
-                    max_added_ml=args.max_added_ml)
-    payload = result.to_json()
-    payload.update({"batch_id": code, "fit_id": fit_id, "potencies_used": {k: [v[0], v[1]] for k, v in usable.items()}})
+    payload = done.result.to_json()
+    payload.update({"batch_id": code, "fit_id": done.fit_id,
+                    "potencies_used": {k: [v[0], v[1]] for k, v in done.potencies.items()}})
     return CommandResult(payload=payload, text=_top_up_text(payload))

@@ -94,9 +94,9 @@ def recalibrate_section(workspace: Workspace, store) -> None:
 
 def _next_recipe(workspace: Workspace, store, code: str):
     """The batch's recipe on today's shelf (the lots now on it), and the calibrated potencies."""
-    from phantomlab.ui.recording import batch_recipe
-
     from phantomlab.errors import InputError
+    from phantomlab.ui.recording import batch_recipe
+    from phantomlab.workflows import shelf_potencies
 
     recipe = batch_recipe(store, code, recipes_folder=workspace.recipes_folder)
     try:
@@ -106,8 +106,7 @@ def _next_recipe(workspace: Workspace, store, code: str):
     missing = [k for k in (recipe.matrix_key, *recipe.stock_keys) if k not in shelf]
     if not missing:
         recipe = recipe.with_shelf(shelf)
-    potencies = services.calibrated_potencies(store, recipe.shelf)
-    return recipe, potencies, origin, missing
+    return recipe, shelf_potencies(store, recipe), origin, missing
 
 
 def _dose_comparison(previous: dict, plan) -> pd.DataFrame:
@@ -146,19 +145,16 @@ def _plan_plots(plan) -> None:
             show_figure(figure, table=table, file_stem=f"next-batch-{quantity}", key=f"correct.{quantity}")
 
 
-def _top_up_section(workspace: Workspace, store, batch: dict, recipe, potencies) -> None:
-    from phantomlab.calibration.correction import top_up  # layer 3
+def _top_up_section(workspace: Workspace, store, batch: dict, recipe) -> None:
+    from phantomlab.workflows import top_up_batch
 
     st.markdown("**Add-only top-up of this batch** (liquid batches still on the bench)")
-    fits = [m for m in batch["measurements"] if m["fits"]]
-    if not fits:
+    if not any(m["fits"] for m in batch["measurements"]):
         st.caption("The batch has no fitted measurement yet.")
         return
     if recipe.by_mass or recipe.preparation.kind != "liquid":
         st.caption(f"This is a {recipe.preparation.kind} batch: a cast or set phantom cannot be topped up.")
         return
-    latest = max(fits, key=lambda m: (m["recorded_at"], m["id"]))
-    fit = max(latest["fits"], key=lambda f: (f["recorded_at"], f["id"]))["results"]
     c1, c2 = st.columns(2)
     volume = quantity_field("Volume in the vessel now (with unit: 480 mL)", kind="volume",
                             default=f"{batch['plan'].get('batch_volume_ml', 500):g} mL",
@@ -167,13 +163,13 @@ def _top_up_section(workspace: Workspace, store, batch: dict, recipe, potencies)
                           key=f"correct.topup_room.{batch['code']}", minimum=0.0, container=c2)
     if volume is None or room is None:
         return
-    st.caption(f"From the newest fit of {latest['file_name']} (measurement {latest['id']}).")
-    outcome = call_layer("Planning the top-up", top_up, recipe, current_volume_ml=volume, measured=fit,
-                         potencies=potencies or None, max_added_ml=room, show=False)
+    outcome = call_layer("Planning the top-up", top_up_batch, store, batch["code"], recipe,
+                         current_volume_ml=volume, max_added_ml=room, show=False)
     if not outcome.ok:
         st.error(outcome.error)
         return
-    plan = outcome.value
+    st.caption(f"From the newest fit of {outcome.value.file_name} (measurement {outcome.value.measurement_id}).")
+    plan = outcome.value.result
     show_warnings(list(plan.warnings) + outcome.warnings)
     rows = [{"add": a["stock"], "volume [mL]": a["volume_ml"], "mass [g]": a.get("mass_g"),
              "note": "below the smallest dispensable volume" if a.get("below_min_dispense") else ""}
@@ -218,12 +214,12 @@ def correction_section(workspace: Workspace, store) -> None:
                 "uses the stock file's potencies.")
     next_tab, topup_tab = st.tabs(["Next batch", "Top-up of this batch"])
     with next_tab:
-        from phantomlab.calibration.correction import corrected_plan  # layer 3
+        from phantomlab.workflows import next_batch_plan
 
         with st.spinner("Solving the corrected plan…"):
-            solved = call_layer("Solving the corrected plan", corrected_plan, recipe, potencies=potencies)
+            solved = call_layer("Solving the corrected plan", next_batch_plan, store, recipe)
         if solved.ok:
-            plan = solved.value
+            plan, potencies = solved.value
             for limit in plan.binding_limits:
                 st.error(f"The target cannot be met: {limit.message}")
             st.dataframe(_dose_comparison(batch["plan"], plan), hide_index=True, width="stretch")
@@ -232,8 +228,8 @@ def correction_section(workspace: Workspace, store) -> None:
                 st.dataframe(doses_table(plan), hide_index=True, width="stretch")
             sheet_downloads(plan, batch_id=None, key="correct.sheet")
             if st.button("Save the corrected plan as a new batch", type="primary", key="correct.save"):
-                saved = call_layer("Saving the batch", record_planned_batch, store, plan, potencies=potencies,
-                                   origin=origin, notes=f"corrected after batch {code}")
+                saved = call_layer("Saving the batch", record_planned_batch, store, plan, origin=origin,
+                                   notes=f"corrected after batch {code}")
                 if saved.ok:
                     sheets = call_layer("Reading the stored sheet", saved_batch_sheets, store, plan, saved.value)
                     st.session_state["correct.saved"] = {**(sheets.value or {"code": saved.value}), "after": code}
@@ -242,4 +238,4 @@ def correction_section(workspace: Workspace, store) -> None:
                 st.success(f"Saved as batch **{done['code']}** (status: planned).")
                 saved_sheet_downloads(done, key="correct.saved_sheet")
     with topup_tab:
-        _top_up_section(workspace, store, batch, recipe, potencies)
+        _top_up_section(workspace, store, batch, recipe)

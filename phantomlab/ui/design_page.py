@@ -179,7 +179,7 @@ def _sheet_preview(plan) -> None:
             st.iframe(html.value, height=1100)
 
 
-def _save_batch(workspace: Workspace, store, plan, potencies: dict, origin: dict, *, definition: dict,
+def _save_batch(workspace: Workspace, store, plan, origin: dict, *, definition: dict,
                 base_dir: Path, source: str, token: str) -> None:
     from phantomlab.ui.recording import record_planned_batch, saved_batch_sheets, write_page_recipe
 
@@ -198,7 +198,7 @@ def _save_batch(workspace: Workspace, store, plan, potencies: dict, origin: dict
             plan = replace(plan, recipe=written.value)
         outcome = call_layer(
             "Saving the batch", record_planned_batch, store, plan,
-            potencies=potencies, origin=origin, operator=operator.strip() or None,
+            origin=origin, operator=operator.strip() or None,
             notes=notes.strip() or None,
         )
         if outcome.ok:
@@ -305,5 +305,5 @@ def show(workspace: Workspace) -> None:
     sheet_downloads(plan, batch_id=None, key="design.sheet")
     _sheet_preview(plan)
     _recipe_download(definition, source)
-    _save_batch(workspace, store, plan, potencies, origin, definition=definition, base_dir=base_dir,
+    _save_batch(workspace, store, plan, origin, definition=definition, base_dir=base_dir,
                 source=source, token=token + json.dumps(potencies, sort_keys=True))

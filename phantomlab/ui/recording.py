@@ -19,7 +19,6 @@ def record_planned_batch(
     store,
     plan,
     *,
-    potencies: Mapping[str, Any] | None = None,
     origin: Mapping[str, str] | None = None,
     operator: str | None = None,
     notes: str | None = None,
@@ -31,12 +30,10 @@ def record_planned_batch(
     it: the sheet is rendered with the ID (not a draft), the potencies used name the
     calibration state they came from.  ``origin`` says, per stock key, whether the definition
     came from the stock file or the page (a page stock's lot is recorded as added on the
-    page).  ``potencies`` is the page's record of what the plan was solved with; the plan's
-    doses carry them.
+    page).  The plan's doses carry the potencies it was solved with.
     """
     from phantomlab.workflows import record_planned_batch as record
 
-    del potencies  # the doses of the plan carry the potencies they were solved with
     sources = {key: PAGE_STOCK_SOURCE for key, where in dict(origin or {}).items()
                if str(where).startswith("page")}
     return record(store, plan, lot_sources=sources, operator=operator, notes=notes, planned_on=planned_on).code
