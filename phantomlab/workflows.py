@@ -381,8 +381,8 @@ def record_dispensed(
     with store.reading() as session:
         batch = get_batch(session, code)
         batch_id = batch.id
-        plan = dict(plan_of(session, batch).plan)
-        potencies_used = dict(plan_of(session, batch).potencies_used or {})
+        plan_row = plan_of(session, batch)
+        plan, potencies_used = dict(plan_row.plan), dict(plan_row.potencies_used or {})
         recipe_row = recipe_of(session, batch)
         lot_sha = {key: lot.definition_sha256 for key, lot in batch_lots(session, batch).items()}
         said = []
