@@ -62,6 +62,7 @@ __all__ = [
     "batch_volume_fractions",
     "recalibrate",
     "Recalibration",
+    "change_status",
     "shelf_potencies",
     "next_batch_plan",
     "newest_fit",
@@ -476,6 +477,23 @@ def _fractions(rows, recipe, plan: dict) -> tuple[list[dict[str, Any]], dict[str
     if sum(fractions.values()) >= 1:
         raise InputError("amounts: the stocks add up to the whole batch volume or more; give the matrix amount")
     return amounts, fractions
+
+
+def change_status(store, code: str, status: str, *, note: str | None = None,
+                  recorded_by: str | None = None) -> tuple[str, Any]:
+    """Move a batch to ``status`` (forward only; a new version) in one transaction.
+
+    Returns
+    -------
+    (previous status, the new batch version row)
+    """
+    from phantomlab.store import get_batch, set_status  # layer 4
+
+    with store.transaction() as session:
+        batch = get_batch(session, code)
+        before = batch.status
+        updated = set_status(session, batch, str(status).strip().lower(), note=note, recorded_by=recorded_by)
+    return before, updated
 
 
 # ---- measurements and fits ----------------------------------------------------------------------

@@ -261,15 +261,12 @@ def _actual(args) -> CommandResult:
 
 
 def _status(args) -> CommandResult:
-    from phantomlab.store import get_batch, set_status
+    from phantomlab.workflows import change_status
 
     store = _open(args)
     try:
-        with store.transaction() as session:
-            batch = get_batch(session, args.batch_id)
-            before = batch.status
-            updated = set_status(session, batch, args.status.strip().lower(), note=args.note,
-                                 recorded_by=args.operator)
+        before, updated = change_status(store, args.batch_id, args.status, note=args.note,
+                                        recorded_by=args.operator)
     finally:
         store.close()
     payload = {"batch_id": updated.code, "status": updated.status, "previous_status": before,

@@ -286,7 +286,7 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
 
 
 def _status_section(store, batch: dict) -> None:
-    from phantomlab.store import get_batch, set_status  # layer 4
+    from phantomlab.workflows import change_status  # as `phantomlab batch status`
 
     present = STATUSES.index(batch["status"])
     later = list(STATUSES[present + 1:])
@@ -297,14 +297,11 @@ def _status_section(store, batch: dict) -> None:
     wanted = c1.selectbox("New status", later, key=f"batches.status.{batch['code']}")
     note = c2.text_input("Why (kept in the history)", key=f"batches.status_note.{batch['code']}")
     if c3.button("Change the status", key=f"batches.status_button.{batch['code']}"):
-        def change():
-            with store.transaction() as session:
-                return set_status(session, get_batch(session, batch["code"]), wanted,
-                                  note=note.strip() or None).version
-
-        outcome = call_layer("Changing the status", change)
+        outcome = call_layer("Changing the status", change_status, store, batch["code"], wanted,
+                             note=note.strip() or None)
         if outcome.ok:
-            st.session_state["batches.notice"] = f"Batch {batch['code']} is now {wanted} (version {outcome.value})."
+            st.session_state["batches.notice"] = (f"Batch {batch['code']} is now {wanted} "
+                                                  f"(version {outcome.value[1].version}).")
             st.rerun()
 
 
