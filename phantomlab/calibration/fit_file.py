@@ -23,7 +23,7 @@ __all__ = ["fit_measurement_file", "fit_measurement", "DEFAULT_MODELS", "FIT_MOD
 
 #: Forward models accepted by ``model=`` per kind, the first being the default.
 FIT_MODELS: dict[str, tuple[str, ...]] = {
-    "srdr": ("farrell1992", "kienle1997", "mc"),
+    "srdr": ("kienle1997", "farrell1992", "mc"),
     "sfdi": ("cuccia2009", "mc"),
     "slab": ("adding-doubling",),
     "optics": ("direct",),

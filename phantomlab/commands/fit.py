@@ -35,7 +35,7 @@ def register(subparsers) -> None:
                         help="refractive index outside (default 1.0, air)")
     parser.add_argument("--thickness-mm", type=float, default=None, metavar="D", help="slab thickness in mm")
     parser.add_argument("--model", default=None, metavar="M",
-                        help="srdr: farrell1992 (default), kienle1997, mc; sfdi: cuccia2009 (default), mc; "
+                        help="srdr: kienle1997 (default), farrell1992, mc; sfdi: cuccia2009 (default), mc; "
                         "slab: adding-doubling")
     parser.add_argument("--g", type=float, default=None, metavar="G", help="anisotropy assumed (slab)")
     parser.add_argument("--baseline", default=None, metavar="FILE",

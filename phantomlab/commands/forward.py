@@ -43,8 +43,8 @@ KINDS = ("srdr", "sfdi", "total", "slab", "mc")
 
 #: The models each kind accepts (the first is the default).
 MODELS = {
-    "srdr": ("farrell1992", "kienle1997"),
-    "total": ("farrell1992", "kienle1997"),
+    "srdr": ("kienle1997", "farrell1992"),
+    "total": ("kienle1997", "farrell1992"),
     "sfdi": ("cuccia2009",),
     "slab": ("adding-doubling",),
     "mc": ("weighted", "analog"),
@@ -72,7 +72,7 @@ def register(subparsers) -> None:
     parser.add_argument(
         "--model",
         default=None,
-        help="srdr/total: farrell1992 (default) or kienle1997; sfdi: cuccia2009; "
+        help="srdr/total: kienle1997 (default) or farrell1992; sfdi: cuccia2009; "
         "slab: adding-doubling; mc: the estimator, weighted (default) or analog",
     )
     parser.add_argument(

@@ -316,7 +316,7 @@ SRDR_MODELS: dict[str, Callable] = {
 
 
 def srdr_reflectance(
-    *, mua_per_mm, musp_per_mm, rho_mm, n, n_outside=1.0, model="farrell1992", boundary=None
+    *, mua_per_mm, musp_per_mm, rho_mm, n, n_outside=1.0, model="kienle1997", boundary=None
 ):
     """Spatially resolved diffuse reflectance R(ρ) by a named diffusion model.
 
@@ -326,7 +326,7 @@ def srdr_reflectance(
     musp_per_mm : float or array (S) [1/mm]
     rho_mm : float or array (G) [mm]
     n, n_outside : float or array (S) [dimensionless]
-    model : {'farrell1992', 'kienle1997'}
+    model : {'kienle1997', 'farrell1992'}, default 'kienle1997'
         See :data:`SRDR_MODELS`; an unknown name is refused with the valid list.
     boundary : {'groenhuis1983', 'haskell1994'} or None
         Method for the boundary coefficient A; None takes the model's published choice
@@ -357,7 +357,7 @@ def srdr_reflectance(
 
 
 def total_diffuse_reflectance(
-    *, mua_per_mm, musp_per_mm, n, n_outside=1.0, boundary=None, model="farrell1992"
+    *, mua_per_mm, musp_per_mm, n, n_outside=1.0, boundary=None, model="kienle1997"
 ):
     """Diffuse reflectance of the half-space, R(ρ) integrated over the surface.
 

@@ -7,7 +7,7 @@ On first use the page seeds a database file of its own (never a lab's database, 
 * two batches of the demo recipe ``recipes/demo-nir-liquid.toml``, planned, "mixed" with
   invented small deviations from the sheet, and "measured" with a fibre probe: the
   reflectance files are synthetic, made here by the transport layer's diffusion model
-  (Farrell et al. 1992) from the optics the recipe layer predicts for what was dispensed
+  (Kienle & Patterson 1997, the default srdr model) from the optics the recipe layer predicts for what was dispensed
   with invented "true" stock potencies, plus a fixed invented noise; the first batch is
   measured twice (day 1 and day 15) so the page can show drift with phantom age.
 
@@ -54,13 +54,13 @@ _lock = threading.Lock()
 def synthetic_srdr_csv(*, wavelength_nm, mua_per_mm, musp_per_mm, seed: int, label: str) -> str:
     """An srdr measurement file (DESIGN.md format) made by the diffusion model, with noise.
 
-    Demo data, invented: R(ρ) from Farrell et al. 1992 (the transport layer), multiplied by
+    Demo data, invented: R(ρ) from Kienle & Patterson 1997 (the transport layer's default), multiplied by
     (1 + 0.02 ε) with ε drawn from a seeded normal generator; the ``sd`` column is 2 %.
     """
     from phantomlab.transport.diffusion import srdr_reflectance  # layer 2
 
     generator = np.random.default_rng(seed)
-    lines = [f"# source: demo data, invented ({label}; synthetic, diffusion model Farrell 1992 + 2 % noise)",
+    lines = [f"# source: demo data, invented ({label}; synthetic, diffusion model Kienle & Patterson 1997 + 2 % noise)",
              "wavelength_nm,rho_mm,reflectance_per_mm2,sd"]
     for wavelength, mua, musp in zip(wavelength_nm, mua_per_mm, musp_per_mm):
         clean = np.asarray(srdr_reflectance(mua_per_mm=float(mua), musp_per_mm=float(musp),

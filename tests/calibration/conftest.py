@@ -86,12 +86,13 @@ def true_optics(recipe, fractions, truth, wavelength_nm=None):
     return predict(recipe, volume_fractions=fractions, potencies=truth, wavelength_nm=wavelength_nm)
 
 
-def synthetic_srdr_csv(recipe, fractions, truth, *, seed: int) -> str:
+def synthetic_srdr_csv(recipe, fractions, truth, *, seed: int, model: str = "kienle1997") -> str:
     """A fibre-probe measurement of the batch: diffusion R(ρ) of its true optics, 1 % noise."""
     from phantomlab.transport.diffusion import srdr_reflectance
 
     optics = true_optics(recipe, fractions, truth, MEASURE_NM)
-    R = srdr_reflectance(mua_per_mm=optics.mua_per_mm, musp_per_mm=optics.musp_per_mm, rho_mm=RHO_MM, n=1.33)
+    R = srdr_reflectance(mua_per_mm=optics.mua_per_mm, musp_per_mm=optics.musp_per_mm, rho_mm=RHO_MM, n=1.33,
+                         model=model)
     rng = np.random.default_rng(seed)
     noisy = R * (1 + 0.01 * rng.standard_normal(R.shape))
     lines = ["# source: demo data, invented (simulated lab: diffusion forward model, 1 % noise)",

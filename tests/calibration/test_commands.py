@@ -33,7 +33,7 @@ def test_fit_json_has_exactly_the_design_keys_first(lab, tmp_path, capsys):
     payload = json.loads(out)
     assert list(payload)[: len(FIT_KEYS) - 1] == FIT_KEYS[:-1]
     assert set(FIT_KEYS) <= set(payload)
-    assert payload["model"] == "diffusion-farrell1992"
+    assert payload["model"] == "diffusion-kienle1997"  # the default srdr model
     assert len(payload["mua_per_mm"]) == len(payload["wavelength_nm"]) == 22
     assert out.count("\n") == 1  # one JSON object, nothing else
 

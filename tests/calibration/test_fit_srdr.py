@@ -267,7 +267,7 @@ def test_srdr_fit_needs_an_index():
 def test_unknown_model_and_missing_baseline_refused():
     m = parse_measurement_text("wavelength_nm,rho_mm,reflectance_per_mm2\n650,1,0.1\n650,2,0.01\n650,3,0.001\n",
                                kind="srdr", metadata=MeasurementMetadata(n=1.4))
-    with pytest.raises(InputError, match="unknown srdr fit model 'dipole'; accepted: farrell1992, kienle1997, mc"):
+    with pytest.raises(InputError, match="unknown srdr fit model 'dipole'; accepted: kienle1997, farrell1992, mc"):
         fit_srdr(m, model="dipole")
     with pytest.raises(InputError, match="needs a Monte Carlo baseline"):
         fit_srdr(m, model="mc")

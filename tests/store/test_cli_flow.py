@@ -250,7 +250,7 @@ def test_measure_stores_the_raw_file_and_sidecar_and_fits_srdr(db_url, tmp_path,
     measured.write_text("\n".join(lines) + "\n")
     (tmp_path / "probe.toml").write_text('# demo data, invented\nn = 1.33\ninstrument = "demo probe"\n')
     status, result, err = run(capsys, "batch", "measure", added["batch_id"], measured, "--kind", "srdr",
-                              "--db", db_url, "--json")
+                              "--model", "farrell1992", "--db", db_url, "--json")
     assert status == 0, err
     assert result["fit_ran"] is True
     assert result["fit"]["mua_per_mm"] == pytest.approx(mua, rel=1e-4)

@@ -53,11 +53,11 @@ def test_srdr_boundary_option_and_warning(capsys):
 def test_flux_only_srdr_warns_at_a_mismatched_surface(capsys):
     # farrell1992 at n = 1.4 in air is 8-21 % below Monte Carlo at 3-8 transport lengths
     # (measured, test_montecarlo_models.py): the command says so; matched, it does not.
-    out = _json(capsys, "--kind", "srdr", "--mua-per-mm", "0.01", "--musp-per-mm", "1", "--n", "1.4",
-                "--rho-mm", "3,5")
+    out = _json(capsys, "--kind", "srdr", "--model", "farrell1992", "--mua-per-mm", "0.01", "--musp-per-mm", "1",
+                "--n", "1.4", "--rho-mm", "3,5")
     assert any("farrell1992 (flux only) at n/n_outside = 1.4" in w for w in out["warnings"]), out["warnings"]
-    out = _json(capsys, "--kind", "srdr", "--mua-per-mm", "0.01", "--musp-per-mm", "1", "--n", "1.33",
-                "--n-outside", "1.33", "--rho-mm", "3,5")
+    out = _json(capsys, "--kind", "srdr", "--model", "farrell1992", "--mua-per-mm", "0.01", "--musp-per-mm", "1",
+                "--n", "1.33", "--n-outside", "1.33", "--rho-mm", "3,5")
     assert out["warnings"] == []
 
 
@@ -147,7 +147,7 @@ def test_readable_table_names_units(capsys):
         (["--kind", "srdr", "--mua-per-mm", "0.1", "--musp-per-mm", "1", "--n", "1.4"],
          "--kind srdr needs --rho-mm"),
         (["--kind", "srdr", "--mua-per-mm", "0.1", "--musp-per-mm", "1", "--n", "1.4", "--rho-mm", "1",
-          "--model", "dipole"], "not a srdr model; valid: farrell1992, kienle1997"),
+          "--model", "dipole"], "not a srdr model; valid: kienle1997, farrell1992"),
         (["--kind", "total", "--mua-per-mm", "0.1,0.2,0.3", "--musp-per-mm", "1,2", "--n", "1.4"],
          "per-entry lists must have one value or the same length"),
         (["--kind", "slab", "--mua-per-mm", "0.1", "--mus-per-mm", "1", "--g", "1.5", "--n", "1.4",

@@ -62,9 +62,9 @@ def test_fit_of_a_stored_measurement_shows_data_model_residuals_and_target(refit
 
 
 def test_another_model_can_be_chosen(refit):
-    refit.selectbox(key="refit.model.srdr").set_value("kienle1997").run()
+    refit.selectbox(key="refit.model.srdr").set_value("farrell1992").run()
     assert not refit.exception
-    assert any("diffusion-kienle1997" in m.value for m in refit.markdown)
+    assert any("diffusion-farrell1992" in m.value for m in refit.markdown)
 
 
 def test_a_monte_carlo_baseline_is_built_with_a_progress_indicator_and_used(refit, demo_file):
