@@ -95,4 +95,5 @@ def test_nonlinear_exponential_recovers_truth_with_right_coverage():
                          np.zeros((W, 2)), mask=np.ones_like(y, bool))
     z = (outcome.x[:, 1] - np.log(k)) / np.sqrt(outcome.covariance[:, 1, 1])
     assert abs(np.std(z) - 1.0) < 3 * np.sqrt(1 / (2 * W))
+    # standard normal: P(|z| < 1) = erf(1/sqrt 2) = 0.6827 (exact)
     assert np.mean(np.abs(z) < 1) == pytest.approx(0.6827, abs=3 * np.sqrt(0.68 * 0.32 / W))
