@@ -9,8 +9,18 @@ jumps become local minima.
 
 This module therefore asks the baseline only for re-weighted values at its own reference
 scattering μs_ref (no scaling inside), on a fixed log-spaced radial grid u with annuli of a
-fixed relative width, over a grid of absorption ratios r = μa/μs, and interpolates
-log R with a bicubic spline in (log r, log u).  The scaling relation of the semi-infinite
+fixed relative width, over a grid of absorption ratios r = μa/μs, smooths each row over
+log u, and interpolates log R with a bicubic spline in (log r, log u).
+
+The smoothing matters because the annuli are independent photon samples: an interpolating
+spline through them keeps their noise as wiggles a node apart, and a fit of relative data,
+whose valley runs along μs′ and so slides the distances across the table, finds a local
+minimum in every wiggle (then its linearised SD is far too small).  Each row is divided by a
+smooth control — the fluence-plus-flux diffusion R(ρ) of the same medium (Kienle &
+Patterson 1997, J Opt Soc Am A 14:246) — and the ratio, which varies slowly, is smoothed
+by a penalised cubic spline weighted by the photon statistics, its penalty chosen by
+generalised cross-validation (Craven & Wahba 1979, Numer Math 31:377;
+``scipy.interpolate.make_smoothing_spline``); the control is multiplied back.  The scaling relation of the semi-infinite
 homogeneous medium (g and the indices fixed) is then applied analytically:
 
     R(ρ; μa, μs) = (μs/μs_ref)² · R_ref(ρ μs/μs_ref; μa_ref' = r μs_ref),   r = μa/μs
@@ -32,14 +42,75 @@ from phantomlab.errors import InputError, PhantomlabWarning
 
 __all__ = ["SmoothLookup"]
 
-#: Radial grid of the table, in reference scattering lengths u·μs_ref (log spaced).
-_U_RANGE_MFP = (0.02, 120.0)
-_U_NODES = 90
+#: Radial grid of the table, in reference scattering lengths u·μs_ref (log spaced, annuli
+#: about 10 % wide): out to 250 scattering lengths, i.e. 50 transport lengths at g = 0.8 — a
+#: probe reaching 40 mm at μs′ = 1 /mm (what μs′/μa = 1000 needs to pin μa).
+_U_RANGE_MFP = (0.02, 250.0)
+_U_NODES = 97
 #: Absorption-ratio grid μa/μs of the table (log spaced), from the baseline's lowest ratio.
 _RATIO_MAX = 1.0
 _RATIO_NODES = 45
 #: Gauss–Legendre nodes per measurement annulus.
 _QUADRATURE = 6
+
+
+#: Fewest photon-bearing nodes a row needs to be smoothed (fewer: kept as counted).
+_MIN_SMOOTHED_NODES = 8
+#: Relative SD the smoothing brings each table node down to (where its photons do not).
+_TARGET_RELATIVE_SD = 0.003
+
+
+def _control_log_reflectance(baseline, mua_per_mm, rho_mm) -> np.ndarray:
+    """log R of the fluence-plus-flux diffusion model for the baseline's medium, (ratios, u)."""
+    from phantomlab.transport.diffusion import srdr_reflectance
+
+    musp = float(baseline.mus_per_mm) * (1.0 - float(baseline.g))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PhantomlabWarning)  # near the source, low albedo: only a control
+        control = srdr_reflectance(mua_per_mm=np.asarray(mua_per_mm, float),
+                                   musp_per_mm=np.full(np.size(mua_per_mm), musp), rho_mm=rho_mm,
+                                   n=float(baseline.n), n_outside=float(baseline.n_outside), model="kienle1997")
+    control = np.asarray(control, float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(np.isfinite(control) & (control > 0), np.log(control), np.nan)
+
+
+def _smooth_rows(log_table, positive, relative_sd, log_u, log_control, *, log_u_start) -> np.ndarray:
+    """Each row of ``log_table`` smoothed over ``log_u`` as a ratio to ``log_control``.
+
+    A local-linear kernel regression (Cleveland 1979, J Am Stat Assoc 74:829) of
+    y = log R − log R_control with weights 1/SD² and a Gaussian kernel whose width at each
+    node grows with that node's noise: about as many neighbours as bring its relative SD
+    down to :data:`_TARGET_RELATIVE_SD`, and none where the photons already give that (near
+    the source).  Only nodes from ``log_u_start`` out are smoothed (within about one
+    transport length of the source the ratio to diffusion changes too fast to smooth, and
+    the photons there are plentiful); half a transport length further in takes part in the
+    regression.  Only nodes holding photons with a relative SD below 0.5 take part; the
+    others, and rows with too few such nodes, keep their counted values.
+    """
+    out = log_table.copy()
+    step = float(log_u[1] - log_u[0])
+    for row in range(log_table.shape[0]):
+        use = (positive[row] & np.isfinite(log_control[row]) & (relative_sd[row] < 0.5)
+               & (log_u >= log_u_start - np.log(2.0)))
+        if use.sum() < _MIN_SMOOTHED_NODES:
+            continue
+        x = log_u[use]
+        y = log_table[row, use] - log_control[row, use]
+        sd = np.clip(relative_sd[row, use], 1e-4, None)
+        # neighbours needed n = (sd/target)²; a Gaussian of width σ spans 2√π σ/step nodes
+        wanted = np.maximum((sd / _TARGET_RELATIVE_SD) ** 2, 1.0)
+        width = np.maximum(step * wanted / (2.0 * np.sqrt(np.pi)), 1e-3 * step)
+        smoothed = y.copy()
+        for j in np.where((wanted > 1.0) & (x >= log_u_start))[0]:
+            d = x - x[j]
+            w = np.exp(-0.5 * (d / width[j]) ** 2) / sd**2
+            s0, s1, s2 = w.sum(), (w * d).sum(), (w * d * d).sum()
+            t0, t1 = (w * y).sum(), (w * d * y).sum()
+            det = s0 * s2 - s1 * s1
+            smoothed[j] = (s2 * t0 - s1 * t1) / det if det > 1e-12 * s0 * s2 else t0 / s0
+        out[row, use] = log_control[row, use] + smoothed
+    return out
 
 
 class SmoothLookup:
@@ -75,13 +146,17 @@ class SmoothLookup:
         self.u_max = min(u[-1], largest)
         positive = table > 0
         floor = np.min(table[positive]) if np.any(positive) else 1e-300
+        with np.errstate(divide="ignore", invalid="ignore"):
+            relative_sd = np.where(positive, np.asarray(table_sd, float) / np.where(positive, table, 1.0), 1.0)
         with np.errstate(divide="ignore"):
             log_table = np.log(np.where(positive, table, floor * 1e-3))
         self.log_u = np.log(u)
         self.log_ratio = np.log(ratio)
+        transport_length = 1.0 / (self.mus_ref * (1.0 - self.g))
+        log_table = _smooth_rows(log_table, positive, relative_sd, self.log_u,
+                                 _control_log_reflectance(baseline, ratio * self.mus_ref, u),
+                                 log_u_start=float(np.log(transport_length)))
         self._spline = RectBivariateSpline(self.log_ratio, self.log_u, log_table, kx=3, ky=3)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            relative_sd = np.where(positive, np.asarray(table_sd, float) / np.where(positive, table, 1.0), 1.0)
         self._sd_spline = RectBivariateSpline(self.log_ratio, self.log_u, np.log(np.clip(relative_sd, 1e-6, 1.0)),
                                               kx=1, ky=1)
 
