@@ -153,6 +153,8 @@ def _block_fit(forward, data, sd, mask, relative, start, scale_by_chi2):
             chi2_red = np.where(dof > 0, chi2 / np.maximum(dof, 1), np.nan)
         if scale_by_chi2:
             covariance = covariance * np.where(np.isfinite(chi2_red), chi2_red, np.inf)[:, None, None]
+        threshold = np.where(np.isfinite(chi2_red), chi2_red, np.inf) if scale_by_chi2 else np.ones(W)
+        covariance = _profile_widths(residuals, x, chi2, covariance, mask, lower, upper, threshold)
         x = x3
     values, cov = log_to_linear(x, covariance)
     mua, musp = values[:, 0], values[:, 1]
@@ -164,6 +166,88 @@ def _block_fit(forward, data, sd, mask, relative, start, scale_by_chi2):
     return dict(mua=mua, musp=musp, cov=cov[:, :2, :2], chi2=chi2, dof=dof,
                 chi2_red_w=chi2_red, residuals=outcome.residuals, scale=scale,
                 scale_sd=scale_sd, parameters={}, correlation=corr)
+
+
+#: Steps (in linearised SDs) at which :func:`_profile_widths` evaluates the profile χ².
+_PROFILE_STEPS = (1.0, 2.0, 4.0)
+#: Bounds of the ratio of profile to linearised SD (numerical safety).
+_PROFILE_RATIO_BOUNDS = (0.5, 10.0)
+
+
+def _profile_widths(residuals, x, chi2_min, covariance, mask, lower, upper, threshold):
+    """The covariance with the SDs of log μa and log μs′ taken from their profile χ².
+
+    Relative data fit a scale factor too, and their χ² valley along (μa, μs′, scale) is
+    curved and flat-bottomed, so the linearised covariance (JᵀJ)⁻¹ can claim half the width
+    the data give.  For each of the two coefficients the other one is refitted (the scale in
+    closed form) at steps of 1, 2 and 4 linearised SDs on either side until χ² has risen by
+    ``threshold`` (1 for data with SDs): the profile-likelihood interval (Venzon & Moolgavkar
+    1988, Appl Stat 37:87).  Half its width replaces the SD; the correlations are kept.
+
+    Parameters
+    ----------
+    residuals : callable
+        ``residuals(x_rows (N, 2), rows)`` of the variable-projection fit.
+    x : ndarray (W, 2)
+        Solution in (log μa, log μs′).
+    chi2_min : ndarray (W,)
+    covariance : ndarray (W, P, P)
+        Covariance in log parameters (P = 3 with the log scale last).
+    mask : ndarray (W, M)
+    lower, upper : ndarray (2,)
+        Bounds of the log parameters.
+    threshold : ndarray (W,)
+        Rise of χ² that marks one SD.
+    """
+    W = x.shape[0]
+    cov = np.array(covariance, dtype=float, copy=True)
+    with np.errstate(invalid="ignore"):
+        sigma = np.sqrt(np.diagonal(cov, axis1=1, axis2=2)[:, :2])
+    usable = np.all(np.isfinite(sigma), axis=1) & (sigma > 0).all(axis=1) & np.isfinite(threshold)
+    if not usable.any():
+        return cov
+    factors = np.ones((W, 2))
+    for p in range(2):
+        q = 1 - p
+        half_widths = []
+        for side in (-1.0, 1.0):
+            width = np.full(W, np.nan)
+            last_step, last_root = np.zeros(W), np.zeros(W)
+            pending = usable.copy()
+            for step in _PROFILE_STEPS:
+                rows = np.where(pending)[0]
+                if rows.size == 0:
+                    break
+                fixed = x[rows, p] + side * step * sigma[rows, p]
+                # start the other coefficient at its conditional mean given the fixed one
+                start = x[rows, q] + cov[rows, q, p] / cov[rows, p, p] * (fixed - x[rows, p])
+
+                def conditional(xq, sub, fixed=fixed, rows=rows, p=p, q=q):
+                    full_x = np.empty((sub.size, 2))
+                    full_x[:, p] = fixed[sub]
+                    full_x[:, q] = xq[:, 0]
+                    return residuals(full_x, rows[sub])
+
+                outcome = fit_blocks(conditional, np.clip(start, lower[q], upper[q])[:, None], mask=mask[rows],
+                                     lower=lower[q], upper=upper[q], row_aware=True)
+                rise = np.maximum(outcome.chi2 - chi2_min[rows], 0.0) / threshold[rows]
+                root = np.sqrt(rise)
+                crossed = root >= 1.0
+                # √Δχ² is linear in the step for a quadratic valley: interpolate the crossing
+                between = last_step[rows] + (step - last_step[rows]) * (1.0 - last_root[rows]) / np.maximum(
+                    root - last_root[rows], 1e-12)
+                width[rows[crossed]] = between[crossed] * sigma[rows[crossed], p]
+                last_step[rows], last_root[rows] = step, root
+                pending[rows[crossed]] = False
+            far = pending & usable  # not crossed at the last step: extrapolate as a quadratic
+            width[far] = last_step[far] * sigma[far, p] / np.maximum(last_root[far], 1.0 / _PROFILE_RATIO_BOUNDS[1])
+            half_widths.append(width)
+        profile = 0.5 * (half_widths[0] + half_widths[1])
+        ratio = np.clip(profile / sigma[:, p], *_PROFILE_RATIO_BOUNDS)
+        factors[:, p] = np.where(usable & np.isfinite(ratio), ratio, 1.0)
+    scale = np.ones((W, cov.shape[1]))
+    scale[:, :2] = factors
+    return cov * scale[:, :, None] * scale[:, None, :]
 
 
 #: A wavelength is refitted from other starting points (a sign of a local minimum) when its χ²

@@ -1,9 +1,17 @@
 """srdr fits: recovery of μa and μs′ from Monte Carlo data, SD coverage, relative data.
 
-The reference data are the project's own Monte Carlo (``fixtures/mc_srdr_cases.npz``, made
-once by ``fixtures/make_mc_fixtures.py``, seeds independent of the baseline's), with 1 %
-Gaussian noise added here with fixed seeds.  The tolerances are those of issue 5: absolute
-data μa within 5 %, μs′ within 3 % over μs′/μa = 10…1000; relative data 10 % and 5 %.
+The reference data are the project's own Monte Carlo (made once by
+``fixtures/make_mc_fixtures.py``, seeds independent of the baseline's), with 1 % Gaussian
+noise added here with fixed seeds, in two probe designs:
+
+* ``mc_srdr_reach_cases.npz`` — distances out to 8…40 mm, further as absorption falls.  On
+  it every noisy copy is held to the tolerances of issue 5: absolute data μa within 5 %, μs′
+  within 3 % over μs′/μa = 10…1000; relative data 10 % and 5 %; and the SDs cover the truth
+  about as often as they should.
+* ``mc_srdr_cases.npz`` — a short probe, 0.4–8 mm for every medium.  At μs′/μa ≥ 300 such a
+  probe cannot pin μa in a single copy (its Fisher information gives SDs of 2–5 %
+  absolute, 10–23 % relative): there the tests hold the SDs to what the copies do and the
+  warnings to the cases that cannot tell.
 Diffusion is checked where it is valid (Farrell et al. 1992, Med Phys 19:879: beyond about
 one transport mean free path and μs′ ≫ μa) on data made by the diffusion model itself, and
 against the same Monte Carlo data beyond two transport lengths with the tolerances the
@@ -29,6 +37,13 @@ FIXTURES = Path(__file__).parent / "fixtures"
 @pytest.fixture(scope="module")
 def mc_cases():
     data = np.load(FIXTURES / "mc_srdr_cases.npz")
+    return {key: data[key] for key in data.files}
+
+
+@pytest.fixture(scope="module")
+def reach_cases():
+    """The same five media measured by a probe whose reach grows as absorption falls."""
+    data = np.load(FIXTURES / "mc_srdr_reach_cases.npz")
     return {key: data[key] for key in data.files}
 
 
@@ -118,6 +133,94 @@ def test_mc_lookup_sd_covers_the_truth_about_as_often_as_it_should(mc_cases, bas
     z = np.concatenate(z_all)
     inside = np.mean(np.abs(z) < 1)
     assert 0.5 < inside < 0.85, inside
+
+
+@pytest.mark.parametrize("ratio", [30.0, 300.0])
+def test_relative_data_sd_covers_the_truth_where_the_valley_is_curved(ratio):
+    # Relative data from the fluence-plus-flux model itself (the fit's model: no model error),
+    # a short probe (2-8 mm), 1 % noise, 200 copies.  The valley along (mua, musp, scale) is
+    # curved and flat-bottomed there (SDs of mua 15 % and 31 %); the SDs come from the profile
+    # chi2, so |z| < 1, < 2 and > 3 should hold about 68.3 %, 95.4 % and 0.27 % of the fits
+    # (normal distribution).  Measured: 0.58-0.64, 0.89-0.94, at most 3 of 200 beyond 3.
+    # (At musp/mua = 1000 this probe cannot tell: a tenth of the copies put mua at zero, and
+    # the fit says so, test_relative_data_at_the_highest_albedo_warn_that_mua_is_undetermined.)
+    from phantomlab.transport.diffusion import srdr_reflectance
+
+    rho = np.linspace(2.0, 8.0, 13)
+    R = srdr_reflectance(mua_per_mm=1.0 / ratio, musp_per_mm=1.0, rho_mm=rho, n=1.4)
+    values = R[None, :] * (1 + 0.01 * np.random.default_rng(5).standard_normal((200, rho.size)))
+    fit = fit_srdr(_measurement(rho, values, np.broadcast_to(0.01 * R, values.shape), relative=True),
+                   model="kienle1997", min_transport_mfp=0)
+    for z in ((fit.mua_per_mm - 1.0 / ratio) / fit.mua_sd_per_mm, (fit.musp_per_mm - 1.0) / fit.musp_sd_per_mm):
+        z = np.abs(z)
+        assert 0.55 < np.mean(z < 1) < 0.92, np.mean(z < 1)
+        assert np.mean(z < 2) > 0.85, np.mean(z < 2)
+        assert np.sum(z > 3) <= 4, np.sum(z > 3)
+
+
+# The long-reach design (fixtures/mc_srdr_reach_cases.npz): the same media, 20 distances from
+# 0.4 mm to 8, 12, 16, 30 and 40 mm for musp/mua = 10, 30, 100, 300 and 1000 (mu_eff * rho_max
+# about 2-5).  This is the design the issue's per-copy tolerances are held on: every noisy
+# copy, not their mean.
+
+
+@pytest.mark.parametrize("case", range(5))
+def test_mc_lookup_recovers_every_copy_of_absolute_long_reach_data(reach_cases, baseline, case):
+    # issue 5: absolute data, mua within 5 % and musp within 3 % for musp/mua = 10...1000.
+    # Measured on these copies: mua -0.2...+0.9 % (10), +0.4...+1.3 % (30), -0.1...+1.5 % (100),
+    # +0.3...+3.0 % (300), -1.6...+3.1 % (1000); musp within -0.8...+0.5 % throughout
+    # (40 copies per case: mua at most 4.8 % off, at 1000).
+    rho = reach_cases["rho_mm"][case]
+    mua_true = reach_cases["mua_per_mm"][case]
+    values, sd = _noisy(reach_cases["reflectance_per_mm2"][case], reach_cases["sd"][case],
+                        np.random.default_rng(500 + case), copies=8)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", PhantomlabWarning)  # a design that can tell: no warning
+        fit = fit_srdr(_measurement(rho, values, sd), model="mc", baseline=baseline)
+    np.testing.assert_array_less(np.abs(fit.mua_per_mm / mua_true - 1), 0.05)
+    np.testing.assert_array_less(np.abs(fit.musp_per_mm / 1.0 - 1), 0.03)
+
+
+@pytest.mark.parametrize("case", range(5))
+def test_mc_lookup_recovers_every_copy_of_relative_long_reach_data(reach_cases, baseline, case):
+    # issue 5: relative data (an unknown instrument scale fitted too), mua within 10 % and
+    # musp within 5 % for musp/mua = 10...1000.  Measured on these copies: mua -4.5...+7.0 %,
+    # musp -4.3...+2.9 % (the widest at musp/mua = 10, where the SD of mua is 2.8 %)
+    # (40 copies per case: mua at most 8.3 % off, musp 4.5 %).
+    rho = reach_cases["rho_mm"][case]
+    mua_true = reach_cases["mua_per_mm"][case]
+    values, sd = _noisy(reach_cases["reflectance_per_mm2"][case], reach_cases["sd"][case],
+                        np.random.default_rng(600 + case), copies=8)
+    scale = 37.5  # an arbitrary instrument scale the fit must absorb
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", PhantomlabWarning)
+        fit = fit_srdr(_measurement(rho, scale * values, scale * sd, relative=True), model="mc", baseline=baseline)
+    np.testing.assert_array_less(np.abs(fit.mua_per_mm / mua_true - 1), 0.10)
+    np.testing.assert_array_less(np.abs(fit.musp_per_mm / 1.0 - 1), 0.05)
+    np.testing.assert_array_less(np.abs(fit.scale_factor / scale - 1), 0.10)
+
+
+@pytest.mark.parametrize("relative", [False, True], ids=["absolute", "relative"])
+def test_mc_lookup_sd_covers_the_truth_on_long_reach_data(reach_cases, baseline, relative):
+    # 40 noisy copies of each case: |z| < 1 for about 68 % and |z| < 2 for about 95 % of the
+    # fits (normal distribution).  The fixture's own MC noise is common to a case's copies,
+    # so the bands are generous; an SD that under-covers (a curved valley read linearly)
+    # fails the |z| < 3 count.  Measured: absolute 0.62 / 0.93 / 0.998, relative 0.65 /
+    # 0.94 / 0.995.  (With the lookup table as counted and linearised SDs, 9 of 40 relative
+    # copies at musp/mua = 10 on a 0.4-8 mm probe lay beyond 3 SD.)
+    z_all = []
+    for case in range(5):
+        values, sd = _noisy(reach_cases["reflectance_per_mm2"][case], reach_cases["sd"][case],
+                            np.random.default_rng(700 + case + 10 * relative), copies=40)
+        factor = 37.5 if relative else 1.0
+        fit = fit_srdr(_measurement(reach_cases["rho_mm"][case], factor * values, factor * sd, relative=relative),
+                       model="mc", baseline=baseline)
+        z_all.append((fit.mua_per_mm - reach_cases["mua_per_mm"][case]) / fit.mua_sd_per_mm)
+        z_all.append((fit.musp_per_mm - 1.0) / fit.musp_sd_per_mm)
+    z = np.abs(np.concatenate(z_all))
+    assert 0.55 < np.mean(z < 1) < 0.85, np.mean(z < 1)
+    assert np.mean(z < 2) > 0.88, np.mean(z < 2)
+    assert np.mean(z < 3) > 0.97, np.mean(z < 3)
 
 
 # Case: the Monte Carlo fixtures (n = 1.4 in air, musp = 1 /mm, g = 0.8, rho 0.4-8 mm, i.e. up
