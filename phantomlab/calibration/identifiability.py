@@ -31,6 +31,13 @@ __all__ = [
 #: Smallest span of source–detector distances, in transport mean free paths 1/μt′, over which
 #: μa and μs′ separate (common practice, no source).
 MIN_SPAN_TRANSPORT_MFP = 2.0
+#: Smallest reach μ_eff·ρ_max of the farthest distance, μ_eff = √(3 μa (μa + μs′)) (diffusion
+#: theory; Farrell et al. 1992, Med Phys 19:879): μa shapes R(ρ) mainly through the far tail,
+#: so a probe that ends short of one attenuation length leaves μa loose.  Measured with 1 %
+#: noise (Fisher information of the Monte Carlo lookup, tests/calibration/test_fit_srdr.py):
+#: a probe to 8 mm at μs′ = 1 /mm gives μa to 0.9 % at μs′/μa = 100 (reach 1.4), 2 % at 300
+#: (0.8) and 5 % at 1000 (0.44), relative data 5 %, 10 % and 23 %.
+MIN_REACH_ATTENUATION_LENGTHS = 1.0
 #: Fewest distinct spatial frequencies for an sfdi fit, and the smallest frequency span [1/mm]
 #: (common practice, no source: a planar and one patterned frequency near 0.1 /mm).
 MIN_FREQUENCIES = 2
@@ -89,6 +96,20 @@ def srdr_design_warnings(*, rho_mm, wavelength_nm, mua_per_mm, musp_per_mm, rela
             f"too short a distance range: rho {rho.min():g}-{rho.max():g} mm spans "
             f"{np.min(span):.2g} transport mean free paths at {_bands(wavelength_nm, short)}; "
             f"mua and musp separate poorly below {MIN_SPAN_TRANSPORT_MFP:g}"
+        )
+    mua = np.asarray(mua_per_mm, float)
+    musp = np.asarray(musp_per_mm, float)
+    with np.errstate(invalid="ignore"):
+        mu_eff = np.sqrt(3.0 * mua * (mua + musp))
+    reach = rho.max() * mu_eff
+    near = np.isfinite(reach) & (mua > 0) & (reach < MIN_REACH_ATTENUATION_LENGTHS)
+    if np.any(near):
+        wanted = float(np.max(2.0 / mu_eff[near]))
+        messages.append(
+            f"the farthest distance ({rho.max():g} mm) reaches only {np.min(reach[near]):.2g} attenuation "
+            f"lengths 1/mu_eff at {_bands(wavelength_nm, near)}: mua acts mainly through the far tail, so it "
+            f"is loosely determined below {MIN_REACH_ATTENUATION_LENGTHS:g}; distances out to about "
+            f"{wanted:.3g} mm would pin it"
         )
     return messages
 

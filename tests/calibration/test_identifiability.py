@@ -58,7 +58,16 @@ def test_design_rules_directly():
                                 musp_per_mm=[1.0], relative=True) == []
     short = srdr_design_warnings(rho_mm=[1, 1.2, 1.4, 1.6], wavelength_nm=[700], mua_per_mm=[0.01],
                                  musp_per_mm=[1.0], relative=False)
-    assert len(short) == 1 and "spans 0.61 transport mean free paths at 700 nm" in short[0]
+    # 1.6 mm is also far short of one attenuation length (mu_eff = 0.174 /mm): both rules speak
+    assert len(short) == 2 and "spans 0.61 transport mean free paths at 700 nm" in short[0]
+    assert "reaches only 0.28 attenuation lengths" in short[1] and "about 11.5 mm" in short[1]
+    # reach: mu_eff = sqrt(3 mua (mua + musp)); at mua 0.001, musp 1 /mm it is 0.0548 /mm, so
+    # 8 mm reaches 0.44 attenuation lengths (warn, and name 2/mu_eff = 36.5 mm), 40 mm 2.2 (quiet)
+    far = srdr_design_warnings(rho_mm=np.linspace(0.4, 8, 20), wavelength_nm=[700], mua_per_mm=[0.001],
+                               musp_per_mm=[1.0], relative=False)
+    assert len(far) == 1 and "reaches only 0.44 attenuation lengths" in far[0] and "about 36.5 mm" in far[0], far
+    assert srdr_design_warnings(rho_mm=np.geomspace(0.4, 40, 20), wavelength_nm=[700], mua_per_mm=[0.001],
+                                musp_per_mm=[1.0], relative=False) == []
     assert sfdi_design_warnings(fx_per_mm=[0.0, 0.1, 0.2]) == []
     assert "too close" in sfdi_design_warnings(fx_per_mm=[0.10, 0.11])[0]
     assert "too few spatial frequencies (1)" in sfdi_design_warnings(fx_per_mm=[0.1, 0.1])[0]
