@@ -211,8 +211,10 @@ def fit_srdr(
     rho = measurement.axis
     forward = srdr_forward(model=model, rho_mm=rho, n=n, n_outside=n_outside, baseline=baseline)
     label = "mc-lookup" if model == "mc" else f"diffusion-{model}"
+    # relative data take their SDs from the profile chi2, once, on the final fit (below)
     kwargs = dict(kind="srdr", model=label, wavelength_nm=measurement.wavelength_nm,
-                  data=measurement.values, sd=measurement.sd, relative=relative, constraint=constraint)
+                  data=measurement.values, sd=measurement.sd, relative=relative, constraint=constraint,
+                  profile_sd=False)
     design = srdr_design_warnings(rho_mm=rho, wavelength_nm=measurement.wavelength_nm,
                                   mua_per_mm=np.zeros(1), musp_per_mm=np.full(1, np.inf),
                                   relative=relative)
@@ -228,6 +230,7 @@ def fit_srdr(
         kwargs["sd"] = np.sqrt(measurement.sd**2 + model_sd**2)
         result, correlation = fit_spectrum(forward, start=(result.mua_per_mm, result.musp_per_mm), **kwargs)
     kept_near = np.zeros(measurement.wavelength_nm.shape, bool)
+    final_mask = None
     if model != "mc" and min_transport_mfp > 0:
         finite = np.isfinite(measurement.values)
         used = finite  # the distances of the fit just made
@@ -252,12 +255,16 @@ def fit_srdr(
                 result, correlation = merge_rows(result, correlation, part, part_corr, rows,
                                                  parameters_per_wavelength=3 if relative else 2)
             used = mask
+        final_mask = used
         dropped = int((finite & ~used).sum())
         if dropped:
             messages.append(
                 f"diffusion fit: left out {dropped} points within {min_transport_mfp:g} transport "
                 f"mean free paths of the source (diffusion is poor there)"
             )
+    if relative and not (constraint is not None and constraint.active):
+        result, correlation = fit_spectrum(forward, start=(result.mua_per_mm, result.musp_per_mm),
+                                           mask=final_mask, **dict(kwargs, profile_sd=True))
     if model == "farrell1992":
         messages += flux_only_mismatch_warnings(n=n, n_outside=n_outside)
     if model != "mc" and not relative:

@@ -111,7 +111,7 @@ def _optimal_scale(model, data, sd, mask):
     return np.where(np.isfinite(k) & (k > 0), k, 1e-300)
 
 
-def _block_fit(forward, data, sd, mask, relative, start, scale_by_chi2):
+def _block_fit(forward, data, sd, mask, relative, start, scale_by_chi2, profile_sd=True):
     """Per-wavelength fit of (log μa, log μs′); relative data by variable projection.
 
     For relative data the scale factor enters linearly, so it is solved in closed form at
@@ -154,7 +154,8 @@ def _block_fit(forward, data, sd, mask, relative, start, scale_by_chi2):
         if scale_by_chi2:
             covariance = covariance * np.where(np.isfinite(chi2_red), chi2_red, np.inf)[:, None, None]
         threshold = np.where(np.isfinite(chi2_red), chi2_red, np.inf) if scale_by_chi2 else np.ones(W)
-        covariance = _profile_widths(residuals, x, chi2, covariance, mask, lower, upper, threshold)
+        if profile_sd:
+            covariance = _profile_widths(residuals, x, chi2, covariance, mask, lower, upper, threshold)
         x = x3
     values, cov = log_to_linear(x, covariance)
     mua, musp = values[:, 0], values[:, 1]
@@ -257,7 +258,7 @@ _RESTART_SIGMAS = 5.0
 _RESTART_FACTOR = 3.0
 
 
-def _restart_poor_blocks(forward, data, sd, mask, relative, scale_by_chi2, parts, candidates=6):
+def _restart_poor_blocks(forward, data, sd, mask, relative, scale_by_chi2, parts, candidates=6, profile_sd=True):
     chi2, dof = parts["chi2"], parts["dof"]
     if not np.any(dof > 0):
         return parts
@@ -274,7 +275,7 @@ def _restart_poor_blocks(forward, data, sd, mask, relative, scale_by_chi2, parts
     # every candidate start of every poor wavelength in one batched fit
     rows = np.tile(poor, candidates)
     trial = _block_fit(forward, data[rows], sd[rows], mask[rows], relative,
-                       (starts_a.ravel(), starts_s.ravel()), scale_by_chi2)
+                       (starts_a.ravel(), starts_s.ravel()), scale_by_chi2, profile_sd)
     trial_chi2 = trial["chi2"].reshape(candidates, poor.size)
     pick = np.argmin(trial_chi2, axis=0)
     chosen = pick * poor.size + np.arange(poor.size)
@@ -448,6 +449,7 @@ def fit_spectrum(
     constraint: SpectralConstraint | None = None,
     start: tuple[np.ndarray, np.ndarray] | None = None,
     mask: np.ndarray | None = None,
+    profile_sd: bool = True,
 ) -> tuple[FitResult, np.ndarray]:
     """Fit μa and μs′ over a band with a forward model.
 
@@ -473,6 +475,10 @@ def fit_spectrum(
         Starting values (else a grid search).
     mask : ndarray of bool (W, M), optional
         Points to use (default: finite data).
+    profile_sd : bool, default True
+        Relative data, per-wavelength fits: SDs of μa and μs′ from the profile χ²
+        (:func:`_profile_widths`); False keeps the linearised ones (cheaper, for
+        intermediate passes of a fit that is refined afterwards).
 
     Returns
     -------
@@ -496,8 +502,9 @@ def fit_spectrum(
         if constraint is not None and constraint.active:
             parts = _joint_fit(forward, data, sigma, use, relative, start, scale_by_chi2, constraint, wavelength_nm)
         else:
-            parts = _block_fit(forward, data, sigma, use, relative, start, scale_by_chi2)
-            parts = _restart_poor_blocks(forward, data, sigma, use, relative, scale_by_chi2, parts)
+            parts = _block_fit(forward, data, sigma, use, relative, start, scale_by_chi2, profile_sd)
+            parts = _restart_poor_blocks(forward, data, sigma, use, relative, scale_by_chi2, parts,
+                                         profile_sd=profile_sd)
     total_dof = parts["dof"].sum()
     chi2_red = float(parts["chi2"].sum() / total_dof) if total_dof > 0 else float("nan")
     notes = []
