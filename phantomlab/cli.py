@@ -36,6 +36,7 @@ COMMAND_MODULES: tuple[str, ...] = (
     "phantomlab.commands.lab",
     "phantomlab.commands.forward",
     "phantomlab.commands.plan",
+    "phantomlab.commands.baseline",
 )
 
 

@@ -41,6 +41,8 @@ from __future__ import annotations
 
 import json
 import math
+import os
+import tempfile
 import time
 import warnings
 from dataclasses import dataclass, field
@@ -398,12 +400,20 @@ class Baseline:
         """
         destination = Path(path)
         header = {"format": BASELINE_FORMAT, "version": BASELINE_VERSION, **self.inputs()}
-        with destination.open("wb") as handle:
-            np.savez_compressed(
-                handle,
-                inputs_json=np.array(json.dumps(header)),
-                **{name: getattr(self, name) for name in _ARRAYS},
-            )
+        # write beside the destination, then rename: an interrupted save leaves no half file
+        handle, temporary = tempfile.mkstemp(prefix=f".{destination.name}.", suffix=".part",
+                                             dir=destination.parent if str(destination.parent) else ".")
+        try:
+            with os.fdopen(handle, "wb") as stream:
+                np.savez_compressed(
+                    stream,
+                    inputs_json=np.array(json.dumps(header)),
+                    **{name: getattr(self, name) for name in _ARRAYS},
+                )
+            os.replace(temporary, destination)
+        except BaseException:
+            Path(temporary).unlink(missing_ok=True)
+            raise
         return destination
 
 
