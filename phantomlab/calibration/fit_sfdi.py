@@ -17,7 +17,13 @@ from __future__ import annotations
 import numpy as np
 from scipy.special import j0
 
-from phantomlab.calibration.fit_srdr import _finish, baseline_absorption_floor, model_range_warnings, smooth_lookup
+from phantomlab.calibration.fit_srdr import (
+    _finish,
+    baseline_absorption_floor,
+    check_baseline_indices,
+    model_range_warnings,
+    smooth_lookup,
+)
 from phantomlab.calibration.fitting import FitResult
 from phantomlab.calibration.identifiability import (
     outcome_warnings,
@@ -63,6 +69,7 @@ def sfdi_forward(*, model: str, fx_per_mm, n: float, n_outside: float = 1.0, bas
     if model == "mc":
         if baseline is None:
             raise InputError("sfdi model 'mc' needs a Monte Carlo baseline (--baseline FILE)")
+        check_baseline_indices(baseline, n=n, n_outside=n_outside)
         lookup = smooth_lookup(baseline)
         g = lookup.g
         floor = baseline_absorption_floor(baseline)

@@ -96,6 +96,23 @@ def smooth_lookup(baseline):
     return lookup
 
 
+#: Largest difference of refractive index between a measurement and the baseline it is
+#: fitted with (the boundary reflection, and so R, depends on both indices; 0.005 moves the
+#: Fresnel entry loss and the internal reflection of a 1.4/air surface by well under 1 %).
+BASELINE_INDEX_TOLERANCE = 0.005
+
+
+def check_baseline_indices(baseline, *, n: float, n_outside: float) -> None:
+    """Refuse a baseline made for other refractive indices than the measurement's."""
+    made_n = float(getattr(baseline, "n", n))
+    made_outside = float(getattr(baseline, "n_outside", n_outside))
+    if abs(made_n - float(n)) > BASELINE_INDEX_TOLERANCE or abs(made_outside - float(n_outside)) > BASELINE_INDEX_TOLERANCE:
+        raise InputError(
+            f"the Monte Carlo baseline was made for n = {made_n:g} under n_outside = {made_outside:g}, the "
+            f"measurement has n = {float(n):g} under n_outside = {float(n_outside):g}; build one for it "
+            f"(phantomlab baseline build OUT.npz --g G --n {float(n):g} --n-outside {float(n_outside):g})")
+
+
 def baseline_absorption_floor(baseline) -> float:
     """Smallest μa/μs a baseline answers for (its μa_ref/μs_ref), with a hair of margin."""
     ratio = getattr(baseline, "minimum_absorption_ratio", None)
@@ -122,6 +139,7 @@ def srdr_forward(*, model: str, rho_mm, n: float, n_outside: float = 1.0, baseli
     if model == "mc":
         if baseline is None:
             raise InputError("srdr model 'mc' needs a Monte Carlo baseline (--baseline FILE)")
+        check_baseline_indices(baseline, n=n, n_outside=n_outside)
         from phantomlab.transport.montecarlo import rho_bin_edges_mm
 
         lookup = smooth_lookup(baseline)

@@ -378,3 +378,18 @@ def test_unknown_model_and_missing_baseline_refused():
         fit_srdr(m, model="dipole")
     with pytest.raises(InputError, match="needs a Monte Carlo baseline"):
         fit_srdr(m, model="mc")
+
+
+def test_a_baseline_for_other_indices_is_refused(mc_cases, baseline):
+    # the baseline (n = 1.4 in air) cannot stand for a water phantom (n = 1.33): R depends on
+    # the boundary, so the fit refuses rather than answer for the wrong surface
+    values, sd = _noisy(mc_cases["reflectance_per_mm2"][2], mc_cases["sd"][2], np.random.default_rng(8), 1)
+    water = parse_measurement_text(_text(mc_cases["rho_mm"], values, sd), kind="srdr",
+                                   metadata=MeasurementMetadata(n=1.33, n_outside=1.0))
+    with pytest.raises(InputError, match=r"baseline was made for n = 1\.4 under n_outside = 1, the measurement "
+                                         r"has n = 1\.33 under n_outside = 1; build one for it"):
+        fit_srdr(water, model="mc", baseline=baseline)
+    from phantomlab.calibration.fit_sfdi import sfdi_forward
+
+    with pytest.raises(InputError, match=r"n_outside = 1\.52"):
+        sfdi_forward(model="mc", fx_per_mm=np.array([0.0, 0.1]), n=1.4, n_outside=1.52, baseline=baseline)
