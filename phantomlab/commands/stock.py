@@ -2,10 +2,15 @@
 
     phantomlab stock optics STOCKS.toml KEY --wavelength-nm LIST [--matrix KEY]
                             [--temperature-c T] [--potency P] [--json]
+    phantomlab stock export STOCKS.toml OUT.toml [--db URL] [--force] [--json]
 
 JSON keys (DESIGN.md): ``stock``, ``wavelength_nm``, ``mua_per_mm``, ``mus_per_mm``, ``g``,
 ``musp_per_mm``; extras: ``kind``, ``matrix``, ``temperature_c``, ``potency``, ``lot``,
 ``solids_volume_fraction``, ``mua_sd_per_mm``; ``warnings`` is added by the command line.
+
+``export`` writes the stock file with the stocks added on the page (kept in the batch log)
+laid over it, as one stand-alone stock file (``phantomlab.shelf_export``): ``file``,
+``stocks``, ``from_page`` (``{stock, version}``), ``files``.
 """
 
 from __future__ import annotations
@@ -13,6 +18,7 @@ from __future__ import annotations
 import argparse
 
 from phantomlab.cli import CommandResult, add_json_option
+from phantomlab.commands.batch import add_db_option
 from phantomlab.errors import InputError
 from phantomlab.units import parse_number_list
 
@@ -42,12 +48,26 @@ def register(subparsers) -> None:
     optics.add_argument("--potency", type=float, default=None, metavar="P", help="override the stock's potency")
     add_json_option(optics)
     optics.set_defaults(handler=_optics)
+
+    export = actions.add_parser(
+        "export",
+        help="the stock file plus the stocks added on the page, as one stock file the command line reads",
+        description="Write the stock file with the newest page version of every stock added or edited on "
+        "the page laid over it; CSV files go to OUT-files/ beside it. The stock file and the batch log "
+        "are not changed.",
+    )
+    export.add_argument("stocks_file", metavar="STOCKS.toml", help="the lab's stock file")
+    export.add_argument("out", metavar="OUT.toml", help="the stock file to write")
+    add_db_option(export)
+    export.add_argument("--force", action="store_true", help="replace OUT.toml if it exists")
+    add_json_option(export)
+    export.set_defaults(handler=_export)
     stock.set_defaults(handler=_no_action(stock))
 
 
 def _no_action(parser: argparse.ArgumentParser):
     def handler(args):
-        raise InputError("stock: give an action: optics")
+        raise InputError("stock: give an action: optics or export")
 
     return handler
 
@@ -102,3 +122,19 @@ def _optics(args) -> CommandResult:
         "intrinsic optics: per unit volume fraction of the undiluted stock in the final mix"
     )
     return CommandResult(payload=payload, text=title + "\n" + _table(optics))
+
+
+def _export(args) -> CommandResult:
+    from phantomlab.shelf_export import export_shelf
+    from phantomlab.store import open_store
+
+    store = open_store(args.db)
+    try:
+        done = export_shelf(store, args.stocks_file, args.out, force=args.force)
+    finally:
+        store.close()
+    page = ", ".join(f"{key} (page version {version})" for key, version in done.from_page) or "none"
+    text = (f"wrote {done.path}: {len(done.stocks)} stocks, {len(done.files)} CSV files beside it\n"
+            f"  from the page: {page}\n"
+            f"  use it as any stock file, e.g. stocks_file = \"{done.path.name}\" in a recipe")
+    return CommandResult(payload=done.to_json(), text=text)

@@ -8,7 +8,6 @@ potencies.  Everything computed comes from the layers under the page.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import tempfile
 import tomllib
@@ -17,7 +16,7 @@ from typing import Any
 
 import streamlit as st
 
-from phantomlab.errors import InputError
+from phantomlab.shelf_export import PAGE_STOCK_SOURCE, materialise_resolved, page_stock_rows, shelf_document
 from phantomlab.ui.workspace import Workspace, require_shelf
 
 __all__ = [
@@ -28,9 +27,6 @@ __all__ = [
     "recipe_files",
     "calibrated_potencies",
 ]
-
-#: ``shelf_path`` of the stock-lot records added or edited on the page (not from a file).
-PAGE_STOCK_SOURCE = "added on the page"
 
 
 @st.cache_resource(show_spinner=False)
@@ -45,59 +41,15 @@ def store_for(workspace: Workspace):
     return _open_store(workspace.database_url)
 
 
-def shelf_document(path: Path) -> dict:
-    """The stock file as a TOML document (for the page to lay edits over it)."""
-    try:
-        return tomllib.loads(Path(path).read_text(encoding="utf-8"))
-    except (OSError, tomllib.TOMLDecodeError) as exc:
-        raise InputError(f"cannot read the stock file {str(path)!r}: {exc}") from None
-
-
 def _materialise_resolved(key: str, table: dict, folder: Path) -> dict:
-    """Write the CSV contents a stock snapshot carries back to files the stock parser reads.
-
-    A stock added on the page keeps its spectra inside the batch log (``definition["resolved"]``
-    holds every CSV file the definition names, as columns).  The stock parser reads files, so
-    each is written once to a cache folder, named by the hash of its content.
-    """
-    table = dict(table)
-    resolved = table.pop("resolved", None) or {}
-    for field_name, content in resolved.items():
-        if field_name not in table or not isinstance(content, dict) or "columns" not in content:
-            continue
-        columns = content["columns"]
-        names = list(columns)
-        source = content.get("source") or "source: stored in the batch log"
-        lines = [f"# {source}", ",".join(names)]
-        rows = zip(*(columns[name] for name in names))
-        lines += [",".join(repr(float(v)) for v in row) for row in rows]
-        text = "\n".join(lines) + "\n"
-        digest = hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
-        target = folder / f"{key}-{field_name}-{digest}.csv"
-        if not target.exists():
-            target.write_text(text, encoding="utf-8")
-        table[field_name] = str(target)
-    return table
+    """A page stock's CSV contents written back to files (see :func:`phantomlab.shelf_export.materialise_resolved`)."""
+    return materialise_resolved(key, table, folder)
 
 
 def _cache_folder() -> Path:
     folder = Path(tempfile.gettempdir()) / "phantomlab-page-spectra"
     folder.mkdir(parents=True, exist_ok=True)
     return folder
-
-
-def page_stock_rows(store) -> list:
-    """The newest version of each stock lot added or edited on the page (not retracted)."""
-    from phantomlab.store.history import current  # layer 4
-    from phantomlab.store.schema import StockLot
-
-    with store.reading() as session:
-        rows = list(
-            session.scalars(current(session, StockLot).where(StockLot.shelf_path == PAGE_STOCK_SOURCE))
-        )
-        for row in rows:
-            session.expunge(row)
-    return sorted(rows, key=lambda row: (row.recorded_at, row.id))
 
 
 def page_document(workspace: Workspace, store) -> tuple[dict, dict[str, str]]:

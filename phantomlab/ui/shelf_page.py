@@ -352,6 +352,26 @@ def _edit_stock(workspace: Workspace, store, key: str, **changes) -> int:
     return record_page_stock(store, shelf[key])
 
 
+def _export_section(workspace: Workspace, store, origin: dict) -> None:
+    """Write the stock file with this page's stocks as one stock file the command line reads."""
+    from phantomlab.shelf_export import export_shelf  # layer 5 workflow, shared with `stock export`
+
+    added = sorted(key for key, where in origin.items() if where != "stock file")
+    if not added:
+        return
+    folder = workspace.page_recipes_folder()
+    target = folder / f"{workspace.shelf_path.stem}-with-page-stocks.toml"
+    st.caption(f"Stocks from this page ({', '.join(added)}) live in the batch log only; the command line "
+               f"reads them from an exported stock file.")
+    if st.button(f"Write them with the stock file to {target.name}", key="shelf.export"):
+        folder.mkdir(parents=True, exist_ok=True)
+        done = call_layer("Exporting the shelf", export_shelf, store, workspace.shelf_path, target, force=True)
+        if done.ok:
+            st.success(f"Wrote {done.value.path} ({len(done.value.stocks)} stocks, CSV files in "
+                       f"{target.stem}-files/). Use it as any stock file: phantomlab plan RECIPE.toml with "
+                       f"stocks_file = \"{target.name}\".")
+
+
 def show(workspace: Workspace) -> None:
     st.header(TITLE)
     store = services.store_for(workspace)
@@ -367,6 +387,7 @@ def show(workspace: Workspace) -> None:
     calibrated = call_layer("Reading the calibration", services.calibrated_potencies, store, shelf)
     table = _shelf_table(shelf, origin, calibrated.value or {})
     st.dataframe(table, hide_index=True, width="stretch", height=36 * (len(table) + 1) + 4)
+    _export_section(workspace, store, origin)
     lists, new, edit = st.tabs(["Intrinsic optics", "New stock from cuvette readings", "Edit a stock"])
     with lists:
         _optics_section(shelf)

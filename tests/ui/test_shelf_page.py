@@ -110,6 +110,19 @@ def test_a_stock_added_from_cuvette_files_is_on_the_shelf_as_a_new_record(shelf_
     table = _shelf_table(shelf_page).set_index("stock")
     assert table.loc["dye_test", "lot"] == "test-lot-1"
     assert table.loc["dye_test", "definition from"] == "page, version 1"
+    # written out with the stock file, the command line reads it like any bottle
+    [b for b in shelf_page.get("button") if b.proto.label.startswith("Write them with the stock file")][0].click()
+    shelf_page.run()
+    assert not shelf_page.exception
+    written = [s.value for s in shelf_page.success if s.value.startswith("Wrote ")]
+    assert written, [s.value for s in shelf_page.success]
+    from pathlib import Path
+
+    from phantomlab.materials import load_shelf
+
+    exported = Path(written[0].split()[1])
+    assert exported.name == "demo-stocks-with-page-stocks.toml"
+    assert load_shelf(exported)["dye_test"].lot == "test-lot-1"
     # the new stock is offered on the design page
     design = go_to(shelf_page, "Design a phantom")
     assert any(option.startswith("dye_test ") for option in design.multiselect(key="design.stocks").options)
