@@ -48,7 +48,34 @@ DEMO_MIXED_DAYS_AGO = (20, 12)
 DEMO_INDEX = 1.33
 DEMO_SIDECAR = f'n = {DEMO_INDEX}\ninstrument = "demo fibre probe (invented)"\n'
 
+#: Version of the demo data.  Raise it whenever the demo batches, stocks or the models that
+#: make their measurements change: a demo database seeded by another version is re-seeded
+#: (it holds demo data only), so the page never fits old demo files with a newer model.
+DEMO_SEED_VERSION = 2
+
 _lock = threading.Lock()
+
+
+def _seeded_version(demo_file) -> int | None:
+    """The demo version a demo database was seeded with (SQLite's ``user_version``; None if unreadable)."""
+    import sqlite3
+
+    try:
+        with sqlite3.connect(f"file:{Path(demo_file)}?mode=ro", uri=True) as connection:
+            return int(connection.execute("PRAGMA user_version").fetchone()[0])
+    except sqlite3.Error:
+        return None
+
+
+def _mark_seeded(demo_file) -> None:
+    import sqlite3
+
+    connection = sqlite3.connect(str(demo_file))
+    try:
+        connection.execute(f"PRAGMA user_version = {int(DEMO_SEED_VERSION)}")
+        connection.commit()
+    finally:
+        connection.close()
 
 
 def synthetic_srdr_csv(*, wavelength_nm, mua_per_mm, musp_per_mm, seed: int, label: str) -> str:
@@ -119,6 +146,8 @@ def seed_demo_database(workspace: Workspace) -> None:
                            note="demo: measured", recorded_by=DEMO_OPERATOR)
     finally:
         store.close()
+    if workspace.demo_file is not None:
+        _mark_seeded(workspace.demo_file)
 
 
 def _seed_into_place(workspace: Workspace) -> None:
@@ -131,12 +160,12 @@ def _seed_into_place(workspace: Workspace) -> None:
                         is_demo=True, demo_file=partial)
     seed_demo_database(seeding)
     os.replace(partial, final)
-    for leftover in (Path(f"{partial}-wal"), Path(f"{partial}-shm")):
+    for leftover in (Path(f"{partial}-wal"), Path(f"{partial}-shm"), Path(f"{final}-wal"), Path(f"{final}-shm")):
         leftover.unlink(missing_ok=True)
 
 
 def ensure_demo_database(workspace: Workspace) -> Outcome:
-    """Seed the demo database on first use; later runs find it and leave it as it is."""
+    """Seed the demo database on first use, and again when another version seeded it (demo data only)."""
     import streamlit as st
 
     from phantomlab.ui.widgets import call_layer
@@ -144,10 +173,13 @@ def ensure_demo_database(workspace: Workspace) -> Outcome:
     if not workspace.is_demo or workspace.demo_file is None:
         return Outcome(error="the demo seeding was asked for a lab database; refused")
     with _lock:
-        if Path(workspace.demo_file).is_file():
+        exists = Path(workspace.demo_file).is_file()
+        if exists and _seeded_version(workspace.demo_file) == DEMO_SEED_VERSION:
             return Outcome(value=False)
-        with st.spinner("First run: writing the demo shelf and two demo batches into the demo "
-                        "database (demo data, invented)…"):
+        first = ("First run: writing" if not exists else
+                 "The demo database was made by another phantomlab version: rewriting")
+        with st.spinner(f"{first} the demo shelf and two demo batches into the demo database "
+                        "(demo data, invented)…"):
             outcome = call_layer("Seeding the demo database", _seed_into_place, workspace, show=False)
     return outcome if not outcome.ok else Outcome(value=True)
 
