@@ -93,8 +93,10 @@ def _baseline_section(workspace: Workspace, n: float):
         found = call_layer("Loading the baseline", load_baseline, folder / chosen)
         return found.value
     c1, c2, c3, c4 = st.columns(4)
-    photons = c1.number_input("Photons [count]", min_value=10_000, max_value=20_000_000, value=200_000,
-                              step=50_000, key="refit.photons")
+    photons = c1.number_input("Photons [count]", min_value=10_000, max_value=20_000_000, value=1_000_000,
+                              step=100_000, key="refit.photons",
+                              help="about 25 s per million on two cores; more photons, less noise far from "
+                              "the source (the fit adds the baseline's own noise to the data's SDs)")
     g = c2.number_input("Anisotropy g [dimensionless]", min_value=0.0, max_value=0.95, value=0.8, step=0.05,
                         key="refit.baseline_g")
     mus = c3.number_input("Reference μs [1/mm]", min_value=0.1, value=10.0, step=1.0, key="refit.baseline_mus")
