@@ -50,16 +50,20 @@ def register(subparsers) -> None:
 
 
 def _table(result) -> str:
+    scaled = result.scale_factor is not None  # relative data: the fitted instrument scale too
     header = (f"{'wavelength_nm':>13}  {'mua [1/mm]':>11}  {'sd':>9}  {'musp [1/mm]':>11}  {'sd':>9}"
-              f"  {'chi2_red':>8}")
+              f"  {'chi2_red':>8}" + (f"  {'scale':>10}" if scaled else ""))
     lines = [f"fit of {result.name} ({result.kind}, model {result.model})", header, "-" * len(header)]
+
     def number(value, width, spec):
         return f"{value:{width}{spec}}" if np.isfinite(value) else f"{'-':>{width}}"
 
-    for w, a, sa, s, ss, c in zip(result.wavelength_nm, result.mua_per_mm, result.mua_sd_per_mm,
-                                  result.musp_per_mm, result.musp_sd_per_mm, result.chi2_red_per_wavelength):
+    scales = result.scale_factor if scaled else np.full(result.wavelength_nm.shape, np.nan)
+    for w, a, sa, s, ss, c, k in zip(result.wavelength_nm, result.mua_per_mm, result.mua_sd_per_mm,
+                                     result.musp_per_mm, result.musp_sd_per_mm, result.chi2_red_per_wavelength,
+                                     scales):
         lines.append(f"{w:13.1f}  {number(a, 11, '.5g')}  {number(sa, 9, '.3g')}  {number(s, 11, '.5g')}  "
-                     f"{number(ss, 9, '.3g')}  {number(c, 8, '.3g')}")
+                     f"{number(ss, 9, '.3g')}  {number(c, 8, '.3g')}" + (f"  {number(k, 10, '.4g')}" if scaled else ""))
     lines.append("reduced chi2 over the file: " + (f"{result.chi2_red:.3g}" if np.isfinite(result.chi2_red)
                                                     else "- (no degrees of freedom, or no sd column)"))
     for name, value in result.parameters.items():
