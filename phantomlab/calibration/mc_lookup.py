@@ -17,11 +17,13 @@ spline through them keeps their noise as wiggles a node apart, and a fit of rela
 whose valley runs along μs′ and so slides the distances across the table, finds a local
 minimum in every wiggle (then its linearised SD is far too small).  Each row is divided by a
 smooth control — the fluence-plus-flux diffusion R(ρ) of the same medium (Kienle &
-Patterson 1997, J Opt Soc Am A 14:246) — and the ratio, which varies slowly, is smoothed
-by a penalised cubic spline weighted by the photon statistics, its penalty chosen by
-generalised cross-validation (Craven & Wahba 1979, Numer Math 31:377;
-``scipy.interpolate.make_smoothing_spline``); the control is multiplied back.  The scaling relation of the semi-infinite
-homogeneous medium (g and the indices fixed) is then applied analytically:
+Patterson 1997, J Opt Soc Am A 14:246) — and the ratio, which varies slowly beyond about one
+transport length, is smoothed there by a local-linear kernel regression weighted by the
+photon statistics, its kernel as wide as each node's noise needs (:func:`_smooth_rows`);
+the control is multiplied back.  (A global penalised spline with its penalty chosen by
+cross-validation was tried and rejected: one penalty for the whole row flattened the
+near-source shoulder by 2 % and biased μa at μs′/μa = 10.)  The scaling relation of the
+semi-infinite homogeneous medium (g and the indices fixed) is then applied analytically:
 
     R(ρ; μa, μs) = (μs/μs_ref)² · R_ref(ρ μs/μs_ref; μa_ref' = r μs_ref),   r = μa/μs
 
