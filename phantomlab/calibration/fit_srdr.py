@@ -356,7 +356,8 @@ def high_albedo_bias_warnings(*, wavelength_nm, mua_per_mm, musp_per_mm) -> list
         f"diffusion fit at musp/mua up to {largest:.3g} "
         f"(>= {DIFFUSION_MUA_BIAS_RATIO:g}) at {_bands(np.asarray(wavelength_nm), high)}: there a few per cent "
         f"of model error biases mua high by tens of per cent, beyond its SD (kienle1997 on Monte Carlo data, "
-        f"n = 1.4: mua +24 % at 300, +74 % at 1000, musp within 4 %); use the Monte Carlo lookup (model mc) for mua"
+        f"n = 1.4: mua +24 % at 300, +74 % at 1000, musp within 4 %); use the Monte Carlo lookup for mua "
+        f"(model mc; a baseline comes from phantomlab baseline build)"
     ]
 
 
