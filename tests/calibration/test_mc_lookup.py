@@ -45,7 +45,8 @@ def _forward(baseline, rho):
 def test_lookup_agrees_with_direct_monte_carlo_runs(baseline, name, case):
     # chi2 of lookup minus direct run over the 20 distances, with both photon SDs: below
     # 45.3 (the 99.9th percentile of chi2 with 20 degrees of freedom), and no overall offset
-    # beyond 0.5 % (measured: chi2 10.5-27.7, offsets -0.01 ... +0.24 %).
+    # beyond 0.5 % (measured: chi2 8-25, offsets -0.05 ... +0.06 %; before the table's
+    # annulus averages were corrected to point values, offsets up to +0.24 %).
     cases = _cases(name)
     rho = cases["rho_per_case"][case]
     forward = _forward(baseline, rho)
