@@ -127,7 +127,8 @@ def batch_recipe(store, code: str, *, recipes_folder=None):
     from phantomlab.materials import parse_shelf  # layer 1
     from phantomlab.recipe import parse_recipe  # layer 3
     from phantomlab.store import batch_lots, get_batch, recipe_of  # layer 4
-    from phantomlab.ui.services import _cache_folder, _materialise_resolved
+    from phantomlab.shelf_export import materialise_resolved
+    from phantomlab.ui.services import _cache_folder
 
     with store.reading() as session:
         batch = get_batch(session, code)
@@ -137,7 +138,7 @@ def batch_recipe(store, code: str, *, recipes_folder=None):
         source_path = recipe_row.source_path
         stocks = {key: dict(lot.definition) for key, lot in lots.items()}
     folder = _cache_folder()
-    document = {"stocks": {key: _materialise_resolved(key, table, folder) for key, table in stocks.items()}}
+    document = {"stocks": {key: materialise_resolved(key, table, folder) for key, table in stocks.items()}}
     base = Path(source_path).parent if source_path else Path(recipes_folder or ".")
     shelf = parse_shelf(document, base=base, path=None, today=_far_past())
     return parse_recipe(definition, base_dir=base, shelf=shelf)

@@ -41,11 +41,6 @@ def store_for(workspace: Workspace):
     return _open_store(workspace.database_url)
 
 
-def _materialise_resolved(key: str, table: dict, folder: Path) -> dict:
-    """A page stock's CSV contents written back to files (see :func:`phantomlab.shelf_export.materialise_resolved`)."""
-    return materialise_resolved(key, table, folder)
-
-
 def _cache_folder() -> Path:
     folder = Path(tempfile.gettempdir()) / "phantomlab-page-spectra"
     folder.mkdir(parents=True, exist_ok=True)
@@ -64,7 +59,7 @@ def page_document(workspace: Workspace, store) -> tuple[dict, dict[str, str]]:
     folder = _cache_folder()
     for row in page_stock_rows(store):
         definition = dict(row.definition)
-        stocks[row.stock_key] = _materialise_resolved(row.stock_key, definition, folder)
+        stocks[row.stock_key] = materialise_resolved(row.stock_key, definition, folder)
         origin[row.stock_key] = f"page, version {row.version}"
     document = dict(document)
     document["stocks"] = stocks
