@@ -373,6 +373,9 @@ class FitResult:
     chi2_red : float
         Reduced χ² over the whole measurement (NaN when there are no degrees of freedom).
     chi2_red_per_wavelength : ndarray (W,)
+    dof : float
+        Degrees of freedom of ``chi2_red`` over the whole measurement (data points minus
+        fitted parameters; NaN when the fit has no test of fit).
     residuals : ndarray
         Normalised residuals (model − data)/SD, shape of the data.
     warnings : tuple of str
@@ -404,6 +407,7 @@ class FitResult:
     source: str | None = None
     name: str | None = None
     replicates: int = 1
+    dof: float = float("nan")
 
     def to_json(self) -> dict[str, Any]:
         """The ``fit`` object of DESIGN.md (exact keys first, extras after), JSON-ready."""
@@ -421,6 +425,7 @@ class FitResult:
             "kind": self.kind,
             "covariance_mua_musp": self.covariance,
             "chi2_red_per_wavelength": self.chi2_red_per_wavelength,
+            "dof": self.dof,
             "residuals": self.residuals,
             "parameters": dict(self.parameters),
             "source": self.source,

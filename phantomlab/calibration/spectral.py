@@ -526,6 +526,7 @@ def fit_spectrum(
         musp_sd_per_mm=musp_sd, covariance=cov, chi2_red=chi2_red,
         chi2_red_per_wavelength=chi2_red_w, residuals=parts["residuals"], warnings=tuple(notes),
         scale_factor=parts["scale"], scale_factor_sd=parts["scale_sd"], parameters=parts["parameters"],
+        dof=float(total_dof) if np.isfinite(chi2_red) else float("nan"),
     )
     return result, parts["correlation"]
 
@@ -547,15 +548,17 @@ def merge_rows(full: FitResult, full_correlation: np.ndarray, part: FitResult, p
         return out
 
     residuals = put(full.residuals, part.residuals)
-    chi2_red = full.chi2_red
+    chi2_red, total_dof = full.chi2_red, full.dof
     if np.isfinite(full.chi2_red):
         dof = np.sum(np.isfinite(residuals)) - parameters_per_wavelength * residuals.shape[0]
         chi2_red = float(np.nansum(residuals**2) / dof) if dof > 0 else float("nan")
+        total_dof = float(dof) if dof > 0 else float("nan")
     merged = replace(
         full, mua_per_mm=put(full.mua_per_mm, part.mua_per_mm), musp_per_mm=put(full.musp_per_mm, part.musp_per_mm),
         mua_sd_per_mm=put(full.mua_sd_per_mm, part.mua_sd_per_mm),
         musp_sd_per_mm=put(full.musp_sd_per_mm, part.musp_sd_per_mm), covariance=put(full.covariance, part.covariance),
-        chi2_red=chi2_red, chi2_red_per_wavelength=put(full.chi2_red_per_wavelength, part.chi2_red_per_wavelength),
+        chi2_red=chi2_red, dof=total_dof,
+        chi2_red_per_wavelength=put(full.chi2_red_per_wavelength, part.chi2_red_per_wavelength),
         residuals=residuals, scale_factor=put(full.scale_factor, part.scale_factor),
         scale_factor_sd=put(full.scale_factor_sd, part.scale_factor_sd),
     )
