@@ -18,8 +18,15 @@ $(STAMP): pyproject.toml
 
 # make run                         - the page on the demo database demo-data/phantomlab-demo.sqlite
 # make run DB=URL SHELF=STOCKS.toml - the page on your lab's own database (never receives demo data)
+# make run PORT=8600                - another port (default 8501)
+# make run ADDRESS=0.0.0.0          - listen on every network interface: anyone who can reach the
+#                                     machine can then read and write the batch log (no login);
+#                                     see README "Serving the page to a lab network"
+ADDRESS ?= 127.0.0.1
+PORT ?= 8501
 run: $(STAMP)
 	$(BIN)/python -m streamlit run app.py --server.headless true \
+	  --server.address "$(ADDRESS)" --server.port "$(PORT)" \
 	  --browser.gatherUsageStats false --client.toolbarMode minimal \
 	  $(if $(DB)$(SHELF),--) $(if $(DB),--db "$(DB)") $(if $(SHELF),--shelf "$(SHELF)")
 
