@@ -1,6 +1,6 @@
 """phantomlab: design, mix, log and correct tissue-simulating optical phantoms.
 
-The top-level namespace is kept small; the layers live in sub-packages (DESIGN.md):
+The top-level namespace is kept small; the layers live in sub-packages (docs/design.md):
 ``units`` (0), ``materials`` (1), ``optics`` and ``transport`` (2), ``recipe`` and
 ``calibration`` (3), ``store`` (4), ``cli``/``ui`` (5).
 """

@@ -2,7 +2,7 @@
 
 Each sub-command lives in a module of :mod:`phantomlab.commands` that defines
 ``register(subparsers)``; the module adds its parser and sets ``handler`` to a function
-``handler(args) -> CommandResult``.  This module owns the automation contract of DESIGN.md:
+``handler(args) -> CommandResult``.  This module owns the automation contract of docs/contract.md:
 
 * ``--json`` prints exactly one JSON object on stdout and nothing else;
 * every :class:`~phantomlab.errors.PhantomlabWarning` raised while the command ran is

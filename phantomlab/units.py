@@ -1,7 +1,7 @@
 """Canonical units and the parsing of quantities a person types (layer 0).
 
 Inside the code every quantity is a plain float or numpy array in one canonical unit per kind
-(DESIGN.md, "Canonical units"): wavelength nm, length mm, attenuation coefficients (μa, μs,
+(docs/design.md, "Canonical units"): wavelength nm, length mm, attenuation coefficients (μa, μs,
 μs′) 1/mm, volume mL, mass g, volume and mass fractions dimensionless.  Anything a person
 types or a file holds passes through :func:`parse_quantity` at the edge.  A bare number, an
 unknown unit or a unit of the wrong kind is refused with one line naming what was given and

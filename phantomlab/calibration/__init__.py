@@ -1,7 +1,7 @@
-"""Calibration layer of phantomlab (layer 3, DESIGN.md): inverse fits and the potency loop.
+"""Calibration layer of phantomlab (layer 3, docs/design.md): inverse fits and the potency loop.
 
 * :func:`fit_measurement_file` — a measurement file (CSV + TOML sidecar) to fitted μa, μs′
-  with SDs (:class:`FitResult`, whose ``to_json()`` is the ``fit`` object of DESIGN.md);
+  with SDs (:class:`FitResult`, whose ``to_json()`` is the ``fit`` object of docs/contract.md);
 * :func:`update_potencies` — Bayesian linear least-squares update of stock-lot potencies
   from the batch history;
 * :mod:`~phantomlab.calibration.correction` — a corrected plan and an add-only top-up.

@@ -3,7 +3,7 @@
 :func:`fit_measurement_file` reads the file (and its TOML sidecar), calibrates raw readings
 with the reference phantom, picks the fit for the kind, and returns a
 :class:`~phantomlab.calibration.fitting.FitResult` whose ``to_json()`` is the ``fit``
-object of DESIGN.md.
+object of docs/contract.md.
 """
 
 from __future__ import annotations

@@ -16,7 +16,7 @@ Two entry points:
   constraints).
 
 :class:`FitResult` is what every fit returns; its :meth:`FitResult.to_json` gives the
-``fit`` object of DESIGN.md.
+``fit`` object of docs/contract.md.
 """
 
 from __future__ import annotations
@@ -410,7 +410,7 @@ class FitResult:
     dof: float = float("nan")
 
     def to_json(self) -> dict[str, Any]:
-        """The ``fit`` object of DESIGN.md (exact keys first, extras after), JSON-ready."""
+        """The ``fit`` object of docs/contract.md (exact keys first, extras after), JSON-ready."""
         from phantomlab.jsonable import to_jsonable
 
         payload = {

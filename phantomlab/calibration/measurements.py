@@ -1,6 +1,6 @@
 """Measurement files: reading, validating and combining what an instrument recorded (layer 3).
 
-The CSV layouts are those of DESIGN.md ("Measurement CSV files"); one header row, one row
+The CSV layouts are those of docs/formats.md ("Measurement CSV"); one header row, one row
 per point, an optional first line ``# source: ...``:
 
 * ``srdr``  ``wavelength_nm,rho_mm,reflectance_per_mm2[,sd]`` (absolute) or

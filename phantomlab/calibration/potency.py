@@ -1,6 +1,6 @@
 """Stock potency factors from the batch history by Bayesian linear least squares (layer 3).
 
-A stock's potency ``p`` multiplies all of its intrinsic optics (DESIGN.md).  With the volume
+A stock's potency ``p`` multiplies all of its intrinsic optics (docs/design.md).  With the volume
 fractions ``f_i`` actually dispensed in batch b and each stock's intrinsic optics at potency
 1 (``a_i(λ)`` absorption, ``s′_i(λ)`` reduced scattering), the mixing rule of the optics layer
 is linear in the potencies:

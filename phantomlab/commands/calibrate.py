@@ -11,7 +11,7 @@ lot (the snapshot the batch log kept).  The result is stored as a new calibratio
 (unless ``--dry-run``), which ``phantomlab plan --db`` then uses.  The work is
 :func:`phantomlab.workflows.recalibrate`, the same function the page calls.
 
-JSON: ``stocks`` {KEY: {potency, potency_sd, lot}} (DESIGN.md); extras ``before``, ``after``,
+JSON: ``stocks`` {KEY: {potency, potency_sd, lot}} (docs/contract.md); extras ``before``, ``after``,
 ``moved_by`` (per stock: the batches that moved it, each with its shift and information
 share), ``lots``, ``batches``, ``fit_ids``, ``skipped``, ``calibration_state_id``, ``chi2_red``.
 """

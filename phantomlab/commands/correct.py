@@ -5,7 +5,7 @@
 
 Without ``--top-up``: the batch's recipe planned again with the newest calibrated potencies
 of the lots on the shelf (``phantomlab recalibrate`` makes them); JSON: the ``plan`` keys of
-DESIGN.md plus ``after_batch`` and ``potencies_used``.
+docs/contract.md plus ``after_batch`` and ``potencies_used``.
 
 The work is :mod:`phantomlab.workflows` (``next_batch_plan``, ``top_up_batch``), as on the page.
 

@@ -4,7 +4,7 @@
                    [--thickness-mm D] [--model M] [--g G] [--baseline FILE]
                    [--musp-power-law] [--mua-from-stocks RECIPE.toml] [--json]
 
-JSON keys (DESIGN.md): ``wavelength_nm``, ``mua_per_mm``, ``musp_per_mm``, ``mua_sd_per_mm``,
+JSON keys (docs/contract.md): ``wavelength_nm``, ``mua_per_mm``, ``musp_per_mm``, ``mua_sd_per_mm``,
 ``musp_sd_per_mm``, ``model``, ``chi2_red``, ``warnings``; extras: ``kind``,
 ``covariance_mua_musp``, ``chi2_red_per_wavelength``, ``residuals``, ``parameters``,
 ``source``, ``replicates``, ``scale_factor`` (relative data).  Several files after each

@@ -4,8 +4,8 @@
     phantomlab plan RECIPE.toml --series STOCK_KEY [--levels N] [--low X] [--high Y]
                                 [--series-volume-ml V | --series-mass-g M] [...]
 
-The JSON object has DESIGN.md's keys (``recipe``, ``batch_volume_ml``, ``doses``,
-``predicted``, ``target``, ``warnings``) plus extras.  ``--db`` takes the calibrated
+The JSON object has the stable keys of docs/contract.md (``recipe``, ``batch_volume_ml``,
+``doses``, ``predicted``, ``target``, ``warnings``) plus extras.  ``--db`` takes the calibrated
 potencies of the lots on the shelf from the batch log.  A sheet written here is a draft
 ("DRAFT — not a logged batch"); ``phantomlab batch add`` prints the logged one.
 With ``--series``, a calibration series of one stock is planned instead (level 0 is the base).

@@ -4,7 +4,7 @@
                             [--temperature-c T] [--potency P] [--json]
     phantomlab stock export STOCKS.toml OUT.toml [--db URL] [--force] [--json]
 
-JSON keys (DESIGN.md): ``stock``, ``wavelength_nm``, ``mua_per_mm``, ``mus_per_mm``, ``g``,
+JSON keys (docs/contract.md): ``stock``, ``wavelength_nm``, ``mua_per_mm``, ``mus_per_mm``, ``g``,
 ``musp_per_mm``; extras: ``kind``, ``matrix``, ``temperature_c``, ``potency``, ``lot``,
 ``solids_volume_fraction``, ``mua_sd_per_mm``; ``warnings`` is added by the command line.
 

@@ -1,6 +1,6 @@
 """The stock model and the stock file (layer 1): what is on the shelf.
 
-A stock file is TOML with one table per bottle under ``[stocks.KEY]`` (DESIGN.md).  Kinds:
+A stock file is TOML with one table per bottle under ``[stocks.KEY]`` (docs/formats.md).  Kinds:
 
 ``matrix``
     the base the phantom is made of: ``material`` (a refractive-index model name),

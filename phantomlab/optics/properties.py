@@ -1,6 +1,6 @@
 """The optical-properties spectrum of a mixed phantom (layer 2).
 
-All arrays share the wavelength grid; units are canonical (DESIGN.md): wavelength nm,
+All arrays share the wavelength grid; units are canonical (docs/design.md): wavelength nm,
 coefficients 1/mm.  ``musp_per_mm`` is derived, μs′ = μs (1 − g), so it can never disagree
 with ``mus_per_mm`` and ``g``.
 """

@@ -1,6 +1,7 @@
 """The lab's limits of a recipe file: what it can dispense, weigh and tolerate (layer 3).
 
-``[limits]`` fields (DESIGN.md plus the ones marked *), units in the names:
+``[limits]`` fields (docs/formats.md; those marked * came after the first design), units in
+the names:
 
 ``min_dispense_ul``               smallest volume the lab pipettes [µL] (default 10)
 ``pipette_rel_error``             relative error of a pipetted amount, one SD [fraction] (0.01)

@@ -4,7 +4,7 @@ A batch is the matrix plus stocks at volume fractions ``f_i`` of the *undiluted*
 final mix; the matrix fills the rest, ``1 − Σ f_i`` (the additions displace matrix, the final
 volume is fixed).  With each stock's intrinsic optics per unit volume fraction at potency 1
 (``a_i`` absorption, ``s_i`` scattering, ``g_i`` anisotropy) and its potency ``p_i``
-(DESIGN.md: potency scales all of a stock's μa and μs together), the mixing rule of the
+(docs/design.md: potency scales all of a stock's μa and μs together), the mixing rule of the
 optics layer (``phantomlab.optics.mix_optics``, independent scattering) reads
 
     μa   = (1 − Σ f_i) μa_m + Σ f_i p_i a_i  =  μa_m + Σ f_i (p_i a_i − μa_m)

@@ -211,7 +211,7 @@ class Plan:
         return {d.stock: d.volume_fraction for d in self.doses}
 
     def to_json(self) -> dict[str, Any]:
-        """The ``phantomlab plan`` JSON object (DESIGN.md keys first, then extras)."""
+        """The ``phantomlab plan`` JSON object (docs/contract.md: stable keys first, then extras)."""
         recipe = self.recipe
         return {
             "recipe": recipe.name,

@@ -1,6 +1,6 @@
 """Recipe files (TOML): what to make, from which stocks, within which limits (layer 3).
 
-Top-level fields (DESIGN.md, plus those marked *):
+Top-level fields (docs/formats.md; those marked * came after the first design):
 
 ``name``            what the phantom is (required)
 ``version`` *       the recipe's own version string ("1" when not given)

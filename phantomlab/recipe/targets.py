@@ -1,6 +1,6 @@
 """Target optics of a recipe: points, a power law for μs′, a spectrum file, an optional g.
 
-The ``[target]`` table of a recipe file (DESIGN.md) takes one of three shapes:
+The ``[target]`` table of a recipe file (docs/formats.md) takes one of three shapes:
 
 * points: ``wavelength_nm``, ``mua_per_mm`` and/or ``musp_per_mm`` lists of equal length;
 * a power law for μs′ with μa points: ``musp_power_law = {a_per_mm, b, reference_nm}``,

@@ -2,7 +2,7 @@
 
 A calibration state lists potencies keyed by stock AND lot, with what they were computed
 from.  A potency applies to a shelf only when the shelf's bottle has the same lot: a new
-lot starts again from the stock file's prior (DESIGN.md).
+lot starts again from the stock file's prior (docs/design.md).
 """
 
 from __future__ import annotations

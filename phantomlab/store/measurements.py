@@ -28,7 +28,7 @@ __all__ = [
     "measurements_of",
 ]
 
-#: Measurement kinds of the file formats in DESIGN.md.
+#: Measurement kinds of the file formats in docs/formats.md.
 MEASUREMENT_KINDS: tuple[str, ...] = ("srdr", "sfdi", "slab", "optics")
 
 

@@ -1,1 +1,1 @@
-"""transport layer of phantomlab (see DESIGN.md)."""
+"""transport layer of phantomlab (see docs/design.md)."""

@@ -79,7 +79,7 @@ def _mark_seeded(demo_file) -> None:
 
 
 def synthetic_srdr_csv(*, wavelength_nm, mua_per_mm, musp_per_mm, seed: int, label: str) -> str:
-    """An srdr measurement file (DESIGN.md format) made by the diffusion model, with noise.
+    """An srdr measurement file (docs/formats.md) made by the diffusion model, with noise.
 
     Demo data, invented: R(ρ) from Kienle & Patterson 1997 (the transport layer's default), multiplied by
     (1 + 0.02 ε) with ε drawn from a seeded normal generator; the ``sd`` column is 2 %.

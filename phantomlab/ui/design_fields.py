@@ -2,7 +2,7 @@
 
 :func:`read_fields` draws the matrix, stocks, batch size, target (points, power law for μs′
 or an uploaded spectrum), tolerances and lab limits, refuses bad input next to its field,
-and returns the recipe definition (the TOML table of DESIGN.md) or None.
+and returns the recipe definition (the TOML table of docs/formats.md) or None.
 :func:`apply_start` fills the fields from a recipe file.  No physics here: the recipe layer
 parses and solves the definition.
 """

@@ -1,6 +1,6 @@
 """Command line of the calibration layer: ``fit``, ``recalibrate``, ``correct`` (interfaces, not physics).
 
-Checked by what they print: the exact JSON keys of DESIGN.md, one-line errors with exit
+Checked by what they print: the exact JSON keys of docs/contract.md, one-line errors with exit
 status 2, and the two-command loop of issue 5 ("from a measurement file to corrected stock
 factors and a corrected next recipe takes two commands") run against a batch log in a
 temporary SQLite file, in the simulated lab of conftest.py (demo data, invented).

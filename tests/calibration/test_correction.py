@@ -1,7 +1,7 @@
 """Corrected plans and top-ups: what they call and what they refuse.
 
 The physics (the mixing rule) is the optics layer's; here: a potency twice as strong halves
-the dose (the mixing rule is linear in f·p, DESIGN.md), a top-up's volumes mix back to its
+the dose (the mixing rule is linear in f·p, docs/design.md), a top-up's volumes mix back to its
 own prediction (mass balance of undiluted stock), and bad requests are refused in one line.
 """
 

@@ -1,7 +1,7 @@
-"""Measurement files: layouts of DESIGN.md, sidecar metadata, refusals, replicates.
+"""Measurement files: layouts of docs/formats.md, sidecar metadata, refusals, replicates.
 
-The layouts and the refusal rules are the project's own contract (DESIGN.md, "Measurement CSV
-files"; issue 5, item 1); the replicate arithmetic is the textbook standard error of a mean
+The layouts and the refusal rules are the project's own contract (docs/formats.md,
+"Measurement CSV"; issue 5, item 1); the replicate arithmetic is the textbook standard error of a mean
 (Taylor 1997, *An Introduction to Error Analysis*, 2nd ed., eq. 4.14).
 """
 

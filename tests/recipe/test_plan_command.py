@@ -1,4 +1,4 @@
-"""``phantomlab plan`` through phantomlab.cli.main: the DESIGN.md JSON contract, sheets, errors."""
+"""``phantomlab plan`` through phantomlab.cli.main: the JSON contract of docs/contract.md, sheets, errors."""
 
 import json
 from pathlib import Path

@@ -1,7 +1,7 @@
 """The batch log from the command line, through ``phantomlab.cli.main``, on both engines:
 plan -> batch add -> actual -> status -> measure -> show -> record -> list -> export/import.
 
-These tests check what the commands call and show (DESIGN.md contract), not the physics:
+These tests check what the commands call and show (docs/contract.md), not the physics:
 the optics come from the recipe and calibration layers.
 """
 

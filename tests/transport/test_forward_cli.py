@@ -1,8 +1,8 @@
-"""``phantomlab forward``: options and JSON keys of DESIGN.md, wired to the transport layer.
+"""``phantomlab forward``: options and JSON keys of docs/contract.md, wired to the transport layer.
 
 Interface tests: the numbers must equal the library functions' for the same inputs (the
-physics itself is checked in the other test files), the keys must be DESIGN.md's, and bad
-input must end with one line on stderr and exit status 2.
+physics itself is checked in the other test files), the keys must be those of
+docs/contract.md, and bad input must end with one line on stderr and exit status 2.
 """
 
 import json

@@ -1,4 +1,4 @@
-"""Units: parsing typed quantities into canonical units (DESIGN.md, "Canonical units").
+"""Units: parsing typed quantities into canonical units (docs/design.md, "Canonical units").
 
 Conversion factors are exact SI definitions (BIPM SI Brochure, 9th ed., 2019).
 """

@@ -147,7 +147,7 @@ class MonteCarloResult:
         return self.interactions / self.seconds if self.seconds > 0 else math.inf
 
     def to_json(self) -> dict:
-        """The result as a plain dict with the DESIGN.md ``forward --kind mc`` keys (and more).
+        """The result as a plain dict with the docs/contract.md ``forward --kind mc`` keys (and more).
 
         ``rho_mm`` and ``reflectance_per_mm2`` (with ``reflectance_per_mm2_sd`` and
         ``rho_edges_mm``) appear only when a radial grid was given.
