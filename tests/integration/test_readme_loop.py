@@ -1,12 +1,19 @@
 """The loop README.md shows, run through the command line on a temporary SQLite batch log.
 
-The demo probe file `recipes/measurements/demo-nir-liquid-srdr.csv` was made (by the script
+``test_readme_walk_through_runs_as_written`` runs the README's shell block itself, in a
+temporary folder, so the walk-through cannot drift from the commands; the other test checks
+what the loop computes.  The demo probe file `recipes/measurements/demo-nir-liquid-srdr.csv` was made (by the script
 beside it) from the demo recipe with invented "true" potencies lipid20 1.12, ink_black 0.80,
 dye_nir 1.10 and 1 % noise: recalibration must move the potencies towards those values, and
 the corrected plan must differ from the first in the direction that compensates.
 """
 
 import json
+import os
+import re
+import shutil
+import subprocess
+import sys
 from pathlib import Path
 
 import pytest
@@ -55,3 +62,24 @@ def test_plan_log_dispense_measure_recalibrate_correct(tmp_path, capsys):
     assert doses["ink_black"] > planned["ink_black"]  # weaker ink
     shown = run(capsys, "batch", "show", code, "--db", db)
     assert shown["batch_id"] == code
+
+
+def test_readme_walk_through_runs_as_written(tmp_path):
+    """Every command of README's "The loop from the command line" block, as written, in bash."""
+    bash = shutil.which("bash")
+    if bash is None:
+        pytest.skip("bash is not installed")
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    section = readme[readme.index("## The loop from the command line"):]
+    block = re.search(r"```bash\n(.*?)```", section, flags=re.S).group(1)
+    # the block starts by activating .venv; here the test's own interpreter stands in for it
+    script = "\n".join(line for line in block.splitlines() if not line.startswith("source .venv"))
+    (tmp_path / "recipes").symlink_to(ROOT / "recipes")
+    environment = {**os.environ, "PATH": f"{Path(sys.executable).parent}{os.pathsep}{os.environ.get('PATH', '')}"}
+    environment.pop("PHANTOMLAB_DB", None)
+    done = subprocess.run([bash, "-e", "-o", "pipefail", "-c", script], cwd=tmp_path, env=environment,
+                          capture_output=True, text=True, timeout=600)
+    assert done.returncode == 0, done.stderr[-2000:]
+    assert re.search(r"logged batch 20\d\d-001 ", done.stdout), done.stdout[-2000:]
+    assert (tmp_path / "sheet.html").is_file() and (tmp_path / "record.html").is_file()
+    assert (tmp_path / "phantomlab.sqlite").is_file()
