@@ -3,7 +3,7 @@
 The names other layers use:
 
 * :func:`refractive_index` (registry :data:`INDEX_MODELS`) and the formula functions;
-* :func:`water_absorption_per_mm` (Hale & Querry 1973) and :func:`water_density_Kell1975`;
+* :func:`water_absorption_per_mm` (Pope & Fry 1997 / Segelstein 1981 / Hale & Querry 1973) and :func:`water_density_Kell1975`;
 * :func:`load_shelf` → :class:`Shelf` of :class:`Stock`.
 """
 
@@ -44,7 +44,11 @@ from phantomlab.materials.stock import (
     parse_shelf,
 )
 from phantomlab.materials.water import (
+    DEFAULT_WATER_SOURCE,
+    WATER_ABSORPTION_SOURCES,
     water_absorption_HaleQuerry1973,
+    water_absorption_PopeFry1997,
+    water_absorption_Segelstein1981,
     water_absorption_per_mm,
     water_density_Kell1975,
 )
@@ -65,7 +69,11 @@ __all__ = [
     "gelatin_index_water_offset",
     "agar_index_water_offset",
     "water_absorption_HaleQuerry1973",
+    "water_absorption_PopeFry1997",
+    "water_absorption_Segelstein1981",
     "water_absorption_per_mm",
+    "WATER_ABSORPTION_SOURCES",
+    "DEFAULT_WATER_SOURCE",
     "water_density_Kell1975",
     "SizeDistribution",
     "normal_sizes",

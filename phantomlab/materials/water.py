@@ -1,34 +1,106 @@
-"""Liquid water: density from temperature and the Hale & Querry 1973 absorption (layer 1).
+"""Liquid water: density from temperature and absorption from published tables (layer 1).
 
 The refractive index of water (IAPWS R9-97) lives with the other index formulas in
 :mod:`phantomlab.materials.refractive_index`; it takes its density from
 :func:`water_density_Kell1975` here.
+
+Water absorption sources (:data:`WATER_ABSORPTION_SOURCES`; a stock may name one in its
+``water_source`` field):
+
+``popefry1997_segelstein1981`` (default)
+    Pope & Fry 1997 (integrating cavity, 380–700 nm, every 2.5 nm) where it exists, and
+    Segelstein 1981 (a compilation at 5–10 nm spacing in the NIR) below 380 nm and above
+    700 nm, to 1100 nm.  Pope & Fry is the reference of the visible minimum; in the NIR
+    Segelstein resolves the 740 nm and 970 nm bands that the 25 nm rows of Hale & Querry
+    1973 cut through.
+``segelstein1981``
+    Segelstein 1981 alone, 200–1100 nm.
+``halequerry1973``
+    Hale & Querry 1973 alone, 200–1000 nm, every row of its table (25 nm spacing).
+
+Every table is shipped at its full resolution in the band used, each file with its
+provenance line (:mod:`phantomlab.materials.absorption_tables`), and interpolated by PCHIP
+in log μa.
 """
 
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass
 from functools import lru_cache
-from importlib import resources
 
 import numpy as np
 
 from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.materials.absorption_tables import LogPchip, absorption_table
 
 __all__ = [
     "water_density_Kell1975",
     "water_absorption_HaleQuerry1973",
+    "water_absorption_Segelstein1981",
+    "water_absorption_PopeFry1997",
     "water_absorption_per_mm",
+    "water_absorption_rows",
+    "WaterSource",
+    "WATER_ABSORPTION_SOURCES",
+    "DEFAULT_WATER_SOURCE",
     "WATER_ABSORPTION_TABLE_BAND_NM",
 ]
 
 #: Temperature range of Kell's 1975 density formula [°C].
 KELL1975_BAND_C = (0.0, 150.0)
 
-#: Wavelength band of the shipped Hale & Querry 1973 table [nm].
-WATER_ABSORPTION_TABLE_BAND_NM = (600.0, 1000.0)
+POPE_FRY_1997_FILE = "water_absorption_pope_fry_1997.csv"
+SEGELSTEIN_1981_FILE = "water_absorption_segelstein_1981.csv"
+HALE_QUERRY_1973_FILE = "water_absorption_hale_querry_1973.csv"
 
-_TABLE_FILE = "water_absorption_hale_querry_1973.csv"
+#: Where the default composite switches from Segelstein 1981 to Pope & Fry 1997 and back [nm].
+POPE_FRY_1997_BAND_NM = (380.0, 700.0)
+
+
+@dataclass(frozen=True)
+class WaterSource:
+    """A named water-absorption source.
+
+    Attributes
+    ----------
+    name : str
+        Key of :data:`WATER_ABSORPTION_SOURCES` (as in stock files).
+    band_nm : (float, float)
+        Wavelengths it answers [nm]; outside, refused.
+    citation : str
+        Author, year and journal of each table it uses, with the band of each.
+    files : tuple of str
+        The shipped tables it reads.
+    """
+
+    name: str
+    band_nm: tuple[float, float]
+    citation: str
+    files: tuple[str, ...]
+
+
+#: Water-absorption sources by name; the first is the default.
+WATER_ABSORPTION_SOURCES: dict[str, WaterSource] = {
+    "popefry1997_segelstein1981": WaterSource(
+        "popefry1997_segelstein1981", (200.0, 1100.0),
+        "Pope & Fry 1997, Appl. Opt. 36:8710 (380–700 nm); Segelstein 1981, MSc thesis, "
+        "Univ. Missouri-Kansas City (200–380 nm and 700–1100 nm)",
+        (POPE_FRY_1997_FILE, SEGELSTEIN_1981_FILE),
+    ),
+    "segelstein1981": WaterSource(
+        "segelstein1981", (200.0, 1100.0),
+        "Segelstein 1981, MSc thesis, Univ. Missouri-Kansas City (200–1100 nm)", (SEGELSTEIN_1981_FILE,),
+    ),
+    "halequerry1973": WaterSource(
+        "halequerry1973", (200.0, 1000.0),
+        "Hale & Querry 1973, Appl. Opt. 12:555 (200–1000 nm)", (HALE_QUERRY_1973_FILE,),
+    ),
+}
+DEFAULT_WATER_SOURCE = "popefry1997_segelstein1981"
+
+#: Wavelength band of the default water source [nm].
+WATER_ABSORPTION_TABLE_BAND_NM = WATER_ABSORPTION_SOURCES[DEFAULT_WATER_SOURCE].band_nm
 
 
 def _as_float_array(value, name: str) -> np.ndarray:
@@ -88,24 +160,116 @@ def water_density_Kell1975(*, temperature_c=20.0) -> np.ndarray:
     return density_kg_m3 / 1000.0
 
 
-@lru_cache(maxsize=1)
-def _table() -> tuple[np.ndarray, np.ndarray, str]:
-    text = resources.files("phantomlab").joinpath("data", _TABLE_FILE).read_text(encoding="utf-8")
-    lines = [line.strip() for line in text.splitlines() if line.strip()]
-    source = lines[0]
-    rows = [line.split(",") for line in lines[2:]]
-    wavelength = np.array([float(r[0]) for r in rows])
-    mua_per_cm = np.array([float(r[1]) for r in rows])
-    return wavelength, mua_per_cm / 10.0, source
+def water_absorption_rows(source: str = DEFAULT_WATER_SOURCE) -> tuple[np.ndarray, np.ndarray]:
+    """The published rows a water source interpolates between.
+
+    Parameters
+    ----------
+    source : str
+        Key of :data:`WATER_ABSORPTION_SOURCES`.
+
+    Returns
+    -------
+    wavelength_nm : ndarray [nm]
+    mua_per_mm : ndarray [1/mm]
+        Each row exactly as its table gives it (μa = 4πk/λ for index tables).
+    """
+    spec = water_source(source)
+    if spec.name == "popefry1997_segelstein1981":
+        pope = absorption_table(POPE_FRY_1997_FILE)
+        seg = absorption_table(SEGELSTEIN_1981_FILE)
+        lo, hi = POPE_FRY_1997_BAND_NM
+        below = seg.wavelength_nm < lo
+        above = seg.wavelength_nm > hi
+        wavelength = np.concatenate([seg.wavelength_nm[below], pope.wavelength_nm, seg.wavelength_nm[above]])
+        mua = np.concatenate([seg.mua_per_mm[below], pope.mua_per_mm, seg.mua_per_mm[above]])
+        return wavelength, mua
+    table = absorption_table(spec.files[0])
+    return table.wavelength_nm, table.mua_per_mm
+
+
+def water_source(name) -> WaterSource:
+    """The :class:`WaterSource` called ``name``; refuses unknown names with the list."""
+    if name not in WATER_ABSORPTION_SOURCES:
+        raise InputError(
+            f"unknown water absorption source {name!r}; known: {', '.join(WATER_ABSORPTION_SOURCES)}"
+        )
+    return WATER_ABSORPTION_SOURCES[name]
+
+
+@lru_cache(maxsize=None)
+def _interpolant(source: str) -> LogPchip:
+    return LogPchip(*water_absorption_rows(source))
+
+
+def _checked_wavelengths(wavelength_nm, band, what: str) -> np.ndarray:
+    wavelength = _as_float_array(wavelength_nm, "wavelength_nm")
+    lo, hi = band
+    finite = wavelength[np.isfinite(wavelength)]
+    if finite.size and finite.min() <= 0:
+        raise InputError(f"water absorption: wavelength must be > 0 nm, got {finite.min():g}")
+    if finite.size and (finite.max() > hi or finite.min() < lo):
+        bad = finite.max() if finite.max() > hi else finite.min()
+        raise InputError(
+            f"water absorption: wavelength {bad:g} nm outside the {lo:g}–{hi:g} nm of {what}; "
+            f"give wavelengths in {lo:g}–{hi:g} nm"
+        )
+    return wavelength
+
+
+def water_absorption_per_mm(wavelength_nm, *, source: str = DEFAULT_WATER_SOURCE) -> np.ndarray:
+    """μa of pure liquid water [1/mm] from a published table.
+
+    Parameters
+    ----------
+    wavelength_nm : float or array [nm]
+        Inside the source's band (200–1100 nm for the default); outside, refused.
+    source : str
+        Key of :data:`WATER_ABSORPTION_SOURCES` (default :data:`DEFAULT_WATER_SOURCE`).
+
+    Returns
+    -------
+    ndarray [1/mm]
+        Same shape as ``wavelength_nm``; NaN stays NaN.
+
+    Notes
+    -----
+    The tabulated rows are reproduced exactly; between rows, PCHIP through log μa.  With the
+    default source, wavelengths below 380 nm come from Segelstein 1981, whose UV values lie
+    well above the modern ones (≈5× Pope & Fry at 380 nm): a :class:`PhantomlabWarning` says
+    so; water absorbs less than 1e-4 /mm there in either case.
+
+    Temperature: the tables are at 20–25 °C; the temperature dependence of the NIR bands
+    (a few % per 10 °C near 740 and 970 nm) is not applied, because no published coefficient
+    table was read for this release.
+
+    References
+    ----------
+    1. Pope, R. M. & Fry, E. S. (1997). Absorption spectrum (380–700 nm) of pure water. II.
+       Integrating cavity measurements. Appl. Opt. 36(33), 8710–8723. doi:10.1364/AO.36.008710
+    2. Segelstein, D. J. (1981). The complex refractive index of water. MSc thesis,
+       University of Missouri-Kansas City.
+    3. Hale, G. M. & Querry, M. R. (1973). Optical constants of water in the 200-nm to
+       200-µm wavelength region. Appl. Opt. 12(3), 555–563. doi:10.1364/AO.12.000555
+    """
+    spec = water_source(source)
+    wavelength = _checked_wavelengths(wavelength_nm, spec.band_nm, f"water source {spec.name} ({spec.citation})")
+    finite = wavelength[np.isfinite(wavelength)]
+    if spec.name == "popefry1997_segelstein1981" and finite.size and finite.min() < POPE_FRY_1997_BAND_NM[0]:
+        warnings.warn(
+            f"water absorption: {finite.min():g} nm is below the {POPE_FRY_1997_BAND_NM[0]:g} nm start of Pope & Fry "
+            "1997; Segelstein 1981 is used there, about 5x the modern values at 380 nm (an upper estimate)",
+            PhantomlabWarning,
+            stacklevel=2,
+        )
+    return _interpolant(spec.name)(wavelength)
 
 
 def water_absorption_HaleQuerry1973(*, wavelength_nm) -> np.ndarray:
-    """Absorption coefficient of pure liquid water from the Hale & Querry 1973 table.
+    """μa of pure water [1/mm] from every row of Hale & Querry 1973, Table 1, 200–1000 nm.
 
-    The table (shipped in ``phantomlab/data/water_absorption_hale_querry_1973.csv``, μa =
-    4πk/λ, 600–1000 nm) is interpolated by a shape-preserving cubic (PCHIP) through
-    log(μa), so the interpolant never overshoots between the tabulated points and stays
-    positive.
+    μa = 4πk/λ from the tabulated k (25 nm spacing), PCHIP in log μa between rows; refused
+    outside 200–1000 nm.
 
     Parameters
     ----------
@@ -114,53 +278,17 @@ def water_absorption_HaleQuerry1973(*, wavelength_nm) -> np.ndarray:
     Returns
     -------
     ndarray [1/mm]
-
-    Notes
-    -----
-    Departures and limits, stated plainly:
-
-    * **Below 600 nm** the shipped table stops.  The 600 nm value (0.00228 /cm) is held
-      constant down to any shorter wavelength and a :class:`PhantomlabWarning` says so.
-      Water absorbs less in the blue–green than at 600 nm, so the held value is an upper
-      estimate there; it is 2.3e-4 /mm, below the μa of almost any phantom.
-    * **Above 1000 nm** the absorption of water climbs steeply (1150 and 1450 nm bands);
-      holding a value would understate it, so the function refuses (InputError).
-    * Temperature dependence of the NIR bands (a few % per 10 °C near 970 nm) is ignored.
 
     References
     ----------
     1. Hale, G. M. & Querry, M. R. (1973). Optical constants of water in the 200-nm to
        200-µm wavelength region. Appl. Opt. 12(3), 555–563. doi:10.1364/AO.12.000555
     """
-    from scipy.interpolate import PchipInterpolator
-
-    wavelength = _as_float_array(wavelength_nm, "wavelength_nm")
-    table_nm, table_mua, _ = _table()
-    lo, hi = WATER_ABSORPTION_TABLE_BAND_NM
-    finite = wavelength[np.isfinite(wavelength)]
-    if finite.size and finite.max() > hi:
-        raise InputError(
-            f"water absorption: wavelength {finite.max():g} nm above the {hi:g} nm end of the "
-            f"Hale & Querry 1973 table shipped ({lo:g}–{hi:g} nm); give wavelengths <= {hi:g} nm"
-        )
-    if finite.size and finite.min() <= 0:
-        raise InputError(f"water absorption: wavelength must be > 0 nm, got {finite.min():g}")
-    if finite.size and finite.min() < lo:
-        warnings.warn(
-            f"water absorption: wavelength {finite.min():g} nm below the {lo:g}–{hi:g} nm of the "
-            f"Hale & Querry 1973 table shipped; the {lo:g} nm value is held (an upper estimate)",
-            PhantomlabWarning,
-            stacklevel=2,
-        )
-    interpolant = PchipInterpolator(table_nm, np.log(table_mua), extrapolate=False)
-    held = np.clip(wavelength, lo, hi)
-    with np.errstate(invalid="ignore"):
-        result = np.exp(interpolant(held))
-    return np.where(np.isfinite(wavelength), result, np.nan)
+    return water_absorption_per_mm(wavelength_nm, source="halequerry1973")
 
 
-def water_absorption_per_mm(wavelength_nm) -> np.ndarray:
-    """μa of pure water [1/mm] on any grid: :func:`water_absorption_HaleQuerry1973`.
+def water_absorption_Segelstein1981(*, wavelength_nm) -> np.ndarray:
+    """μa of pure water [1/mm] from Segelstein 1981, 200–1100 nm (μa = 4πk/λ, PCHIP in log μa).
 
     Parameters
     ----------
@@ -169,5 +297,37 @@ def water_absorption_per_mm(wavelength_nm) -> np.ndarray:
     Returns
     -------
     ndarray [1/mm]
+
+    References
+    ----------
+    1. Segelstein, D. J. (1981). The complex refractive index of water. MSc thesis,
+       University of Missouri-Kansas City.
     """
-    return water_absorption_HaleQuerry1973(wavelength_nm=wavelength_nm)
+    return water_absorption_per_mm(wavelength_nm, source="segelstein1981")
+
+
+def water_absorption_PopeFry1997(*, wavelength_nm) -> np.ndarray:
+    """μa of pure water [1/mm] from Pope & Fry 1997, Table 3, 380–700 nm (PCHIP in log μa).
+
+    Parameters
+    ----------
+    wavelength_nm : float or array [nm]
+        Refused outside 380–700 nm.
+
+    Returns
+    -------
+    ndarray [1/mm]
+
+    References
+    ----------
+    1. Pope, R. M. & Fry, E. S. (1997). Absorption spectrum (380–700 nm) of pure water. II.
+       Integrating cavity measurements. Appl. Opt. 36(33), 8710–8723. doi:10.1364/AO.36.008710
+    """
+    wavelength = _checked_wavelengths(wavelength_nm, POPE_FRY_1997_BAND_NM, "Pope & Fry 1997")
+    return _pope_fry_interpolant()(wavelength)
+
+
+@lru_cache(maxsize=1)
+def _pope_fry_interpolant() -> LogPchip:
+    table = absorption_table(POPE_FRY_1997_FILE)
+    return LogPchip(table.wavelength_nm, table.mua_per_mm)

@@ -31,9 +31,9 @@ def test_json_keys_and_lengths(capsys):
 
 
 def test_warnings_collected_into_json(capsys):
-    status, out, _ = run(capsys, "stock", "optics", DEMO, "water", "--wavelength-nm", "450,650", "--json")
+    status, out, _ = run(capsys, "stock", "optics", DEMO, "water", "--wavelength-nm", "350,650", "--json")
     payload = json.loads(out)
-    assert status == 0 and any("below the 600–1000 nm" in w for w in payload["warnings"])
+    assert status == 0 and any("below the 380 nm start of Pope & Fry" in w for w in payload["warnings"])
 
 
 def test_readable_table_has_units(capsys):
