@@ -5,26 +5,32 @@ A stock file is TOML with one table per bottle under ``[stocks.KEY]`` (docs/form
 ``matrix``
     the base the phantom is made of: ``material`` (a refractive-index model name),
     ``density_g_per_ml``; background absorption from ``water_volume_fraction`` (default 1
-    for water-based materials, else 0) × water (Hale & Querry 1973) + a constant
-    ``background_mua_per_mm``, or a measured ``spectrum_csv`` (wavelength_nm,mua_per_mm).
+    for water-based materials, else 0) × water (``water_source``, default Pope & Fry 1997 /
+    Segelstein 1981) + a constant ``background_mua_per_mm``, or a measured ``spectrum_csv``
+    (wavelength_nm,mua_per_mm).
 ``spheres``
     a suspension of spheres: ``material``, ``diameter_um``, ``size_distribution`` (normal |
     lognormal | histogram), ``size_cv``, or ``size_histogram_csv`` (diameter_um and
     number_weight or volume_weight); strength ``solids_percent_w_v`` or
-    ``solids_percent_w_w``; ``particle_density_g_per_ml``; ``carrier`` (default water).
+    ``solids_percent_w_w``; ``particle_density_g_per_ml``; ``carrier`` (default water, whose
+    absorption comes from ``water_source``).
 ``powder``
     a dry powder (the stock *is* the particles): as spheres without strength or carrier.
     Mie for separate spheres is only a first guess: grains aggregate.
 ``emulsion``
     a lipid emulsion described by a published empirical model: ``model = "michels2008"``
-    (20 % soybean-oil emulsion), ``lipid_percent_w_v``.
+    (20 % soybean-oil emulsion), ``lipid_percent_w_v``, ``water_source`` for its water phase.
 ``absorber``
     exactly one of ``spectrum_csv`` (wavelength_nm,mua_per_mm or wavelength_nm,mut_per_mm),
     ``extinction_csv`` (+ ``concentration_mol_per_l`` or ``concentration_mg_per_ml``, +
     ``molar_mass_g_per_mol`` when needed) or ``cuvette_csv`` (+ ``cuvette_path_mm``); an
-    optional ``albedo`` and ``g`` for absorbers that also scatter (inks).
+    optional ``albedo`` and ``g`` for absorbers that also scatter (inks); ``solvent``: the
+    liquid the spectrum was blanked against, whose absorption the stock brings into the batch
+    (``none``, the default: the spectrum is the stock's whole absorption; ``water``;
+    ``ethanol``; or ``solvent_spectrum_csv`` wavelength_nm,mua_per_mm).
 
-Every stock carries ``potency`` (a factor on its whole strength), ``potency_sd``, ``lot``,
+Every stock carries ``potency`` (a factor on the strength of its scattering or absorbing
+ingredient; the carrier water or solvent is not scaled), ``potency_sd``, ``lot``,
 an optional ``expiry`` date and ``hazards`` (keys of :data:`HAZARD_KEYS`).  A bad file is
 refused with one line naming the stock, the field and what is expected.
 """
@@ -45,6 +51,7 @@ import numpy as np
 
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.materials.refractive_index import INDEX_MODELS, index_model
+from phantomlab.materials.water import DEFAULT_WATER_SOURCE, WATER_ABSORPTION_SOURCES
 from phantomlab.materials.sizes import (
     SizeDistribution,
     histogram_sizes,
@@ -64,6 +71,7 @@ __all__ = [
     "KINDS",
     "HAZARD_KEYS",
     "EMULSION_MODELS",
+    "SOLVENTS",
     "MatrixSpec",
     "SpheresSpec",
     "PowderSpec",
@@ -96,6 +104,13 @@ EMULSION_MODELS: dict[str, tuple[float, str]] = {
     "michels2008": (20.0, "Michels, Foschum & Kienle 2008, Opt. Express 16:5907"),
 }
 
+#: Solvents an absorber stock may name (besides a ``solvent_spectrum_csv``): name → what.
+SOLVENTS: dict[str, str] = {
+    "none": "the spectrum is the stock's whole absorption (measured against air or an empty cell)",
+    "water": "water (spectrum measured against a water blank)",
+    "ethanol": "ethanol (spectrum measured against an ethanol blank; Kedenburg et al. 2012)",
+}
+
 #: Density of soybean oil [g/mL] used to turn lipid % w/v into an oil volume fraction.
 #: From memory (soybean oil 0.917–0.921 g/mL at 20–25 °C); a stock may give
 #: ``solids_volume_fraction`` instead.
@@ -116,6 +131,9 @@ _COMMON = {
     "potency_sd": "a number >= 0",
     "hazards": f"a list of hazard keys ({', '.join(HAZARD_KEYS)})",
 }
+_WATER_SOURCE_FIELD = {
+    "water_source": f"a water absorption source ({', '.join(WATER_ABSORPTION_SOURCES)})",
+}
 _SIZE_FIELDS = {
     "material": "a refractive-index model name",
     "diameter_um": "the mean diameter, a number > 0 in µm",
@@ -132,6 +150,7 @@ _FIELDS: dict[str, dict[str, str]] = {
         "water_volume_fraction": "a number in [0, 1]",
         "background_mua_per_mm": "a number >= 0 in 1/mm",
         "spectrum_csv": "a CSV file wavelength_nm,mua_per_mm",
+        **_WATER_SOURCE_FIELD,
     },
     "spheres": {
         **_COMMON,
@@ -141,6 +160,7 @@ _FIELDS: dict[str, dict[str, str]] = {
         "carrier": "the liquid the spheres come in, a refractive-index model name",
         "carrier_density_g_per_ml": "a number > 0 in g/mL",
         "density_g_per_ml": "a number > 0 in g/mL",
+        **_WATER_SOURCE_FIELD,
     },
     "powder": {**_COMMON, **_SIZE_FIELDS, "density_g_per_ml": "a number > 0 in g/mL"},
     "emulsion": {
@@ -149,6 +169,7 @@ _FIELDS: dict[str, dict[str, str]] = {
         "lipid_percent_w_v": "the lipid content in % w/v",
         "solids_volume_fraction": "the oil-droplet volume fraction, a number in (0, 1)",
         "density_g_per_ml": "a number > 0 in g/mL",
+        **_WATER_SOURCE_FIELD,
     },
     "absorber": {
         **_COMMON,
@@ -163,6 +184,9 @@ _FIELDS: dict[str, dict[str, str]] = {
         "albedo": "the single-scattering albedo, a number in [0, 1)",
         "g": "the scattering anisotropy, a number in (-1, 1)",
         "density_g_per_ml": "a number > 0 in g/mL",
+        "solvent": f"the blank the spectrum was measured against ({', '.join(SOLVENTS)})",
+        "solvent_spectrum_csv": "a CSV file wavelength_nm,mua_per_mm: the solvent's own absorption",
+        **_WATER_SOURCE_FIELD,
     },
 }
 
@@ -182,12 +206,15 @@ class MatrixSpec:
         Added to the water part.
     background_spectrum : CsvTable or None
         A measured background (wavelength_nm, mua_per_mm) that replaces water + constant.
+    water_source : str
+        Key of :data:`~phantomlab.materials.water.WATER_ABSORPTION_SOURCES`.
     """
 
     material: str
     water_volume_fraction: float
     background_mua_per_mm: float = 0.0
     background_spectrum: CsvTable | None = None
+    water_source: str = DEFAULT_WATER_SOURCE
 
 
 @dataclass(frozen=True)
@@ -203,6 +230,8 @@ class SpheresSpec:
         Index model name of the carrier liquid.
     carrier_water_volume_fraction : float
         Water content of the carrier (1 for water, 0 otherwise): its absorption.
+    water_source : str
+        Key of :data:`~phantomlab.materials.water.WATER_ABSORPTION_SOURCES`.
     """
 
     material: str
@@ -210,6 +239,7 @@ class SpheresSpec:
     particle_density_g_per_ml: float
     carrier: str = "water"
     carrier_water_volume_fraction: float = 1.0
+    water_source: str = DEFAULT_WATER_SOURCE
 
 
 @dataclass(frozen=True)
@@ -237,10 +267,13 @@ class EmulsionSpec:
     model : str
         Key of :data:`EMULSION_MODELS`.
     lipid_percent_w_v : float [% w/v]
+    water_source : str
+        Key of :data:`~phantomlab.materials.water.WATER_ABSORPTION_SOURCES` (the water phase).
     """
 
     model: str
     lipid_percent_w_v: float
+    water_source: str = DEFAULT_WATER_SOURCE
 
 
 @dataclass(frozen=True)
@@ -267,6 +300,12 @@ class AbsorberSpec:
         The cuvette fit, with its curvature and non-linearity flags.
     source : str or None
         The provenance line of the CSV file.
+    solvent : str
+        Key of :data:`SOLVENTS`, or ``"spectrum"`` for a ``solvent_spectrum_csv``.
+    solvent_spectrum : CsvTable or None
+        The solvent's own absorption (wavelength_nm, mua_per_mm) when given as a file.
+    water_source : str
+        Water absorption source when the solvent is water.
     """
 
     method: str
@@ -278,6 +317,9 @@ class AbsorberSpec:
     g: float = 0.0
     dilution_fit: DilutionFit | None = None
     source: str | None = None
+    solvent: str = "none"
+    solvent_spectrum: CsvTable | None = None
+    water_source: str = DEFAULT_WATER_SOURCE
 
 
 # ---- the stock and the shelf ----------------------------------------------------------------
@@ -297,7 +339,8 @@ class Stock:
         Lot or bottle identifier ("" when not given).
     expiry : datetime.date or None
     potency : float
-        Factor on the stock's whole strength (all of its μa and μs scale together).
+        Factor on the strength of the stock's scattering or absorbing ingredient (its μs and
+        the ingredient's μa scale together; carrier water and solvent do not).
     potency_sd : float
     hazards : tuple of str
         Keys of :data:`HAZARD_KEYS`.
@@ -586,7 +629,10 @@ def _parse_matrix(table, key, base, resolved):
         spectrum = _get_csv(table, key, "spectrum_csv", base, required=("wavelength_nm", "mua_per_mm"))
         _check_spectrum(spectrum, key, "spectrum_csv", "mua_per_mm")
         resolved["spectrum_csv"] = spectrum.to_definition()
-    spec = MatrixSpec(material, water, background, spectrum)
+    water_source = _get_water_source(table, key)
+    if spectrum is not None and "water_source" in table:
+        raise _fail(key, "water_source", "not used with a measured spectrum_csv; give one or the other")
+    spec = MatrixSpec(material, water, background, spectrum, water_source)
     return spec, density, 0.0
 
 
@@ -618,7 +664,8 @@ def _parse_spheres(table, key, base, resolved):
         )
     density_default = fraction * particle_density + (1.0 - fraction) * carrier_density
     density = _get_number(table, key, "density_g_per_ml", lambda v: v > 0, default=density_default)
-    spec = SpheresSpec(material, sizes, particle_density, carrier, carrier_water)
+    water_source = _get_water_source(table, key)
+    spec = SpheresSpec(material, sizes, particle_density, carrier, carrier_water, water_source)
     return spec, density, fraction
 
 
@@ -648,7 +695,7 @@ def _parse_emulsion(table, key, base, resolved):
     fraction_default = lipid / 100.0 / SOYBEAN_OIL_DENSITY_G_PER_ML
     fraction = _get_number(table, key, "solids_volume_fraction", lambda v: 0 < v < 1, default=fraction_default)
     density = _get_number(table, key, "density_g_per_ml", lambda v: v > 0, default=1.0)
-    return EmulsionSpec(model, lipid), density, fraction
+    return EmulsionSpec(model, lipid, _get_water_source(table, key)), density, fraction
 
 
 def _check_spectrum(csv_table: CsvTable, key, name, column):
@@ -748,6 +795,7 @@ def _parse_absorber(table, key, base, resolved):
     resolved[source] = csv_table.to_definition()
     if wavelength.size < 2:
         raise _fail(key, source, "needs at least two wavelengths")
+    solvent, solvent_spectrum = _solvent(table, key, base, resolved)
     spec = AbsorberSpec(
         method=method,
         wavelength_nm=np.array(wavelength, dtype=float),
@@ -758,8 +806,31 @@ def _parse_absorber(table, key, base, resolved):
         g=g,
         dilution_fit=fit,
         source=csv_table.source,
+        solvent=solvent,
+        solvent_spectrum=solvent_spectrum,
+        water_source=_get_water_source(table, key),
     )
     return spec, density, 0.0
+
+
+def _get_water_source(table, key) -> str:
+    return _get_string(table, key, "water_source", default=DEFAULT_WATER_SOURCE,
+                       choices=tuple(WATER_ABSORPTION_SOURCES))
+
+
+def _solvent(table, key, base, resolved):
+    """The absorber's solvent: a key of SOLVENTS, or "spectrum" with its CSV table."""
+    if "solvent_spectrum_csv" in table:
+        if "solvent" in table:
+            raise _fail(key, "solvent", "give the solvent once: solvent or solvent_spectrum_csv")
+        spectrum = _get_csv(table, key, "solvent_spectrum_csv", base, required=("wavelength_nm", "mua_per_mm"))
+        _check_spectrum(spectrum, key, "solvent_spectrum_csv", "mua_per_mm")
+        resolved["solvent_spectrum_csv"] = spectrum.to_definition()
+        return "spectrum", spectrum
+    solvent = _get_string(table, key, "solvent", default="none", choices=tuple(SOLVENTS))
+    if "water_source" in table and solvent != "water":
+        raise _fail(key, "water_source", "only used with solvent = \"water\"; remove it")
+    return solvent, None
 
 
 _PARSERS = {

@@ -13,10 +13,13 @@ import numpy as np
 
 from phantomlab.errors import InputError, PhantomlabWarning
 
-__all__ = ["emulsion_scattering_Michels2008", "MICHELS2008_BAND_NM", "EMULSION_SCATTERING"]
+__all__ = ["emulsion_scattering_Michels2008", "MICHELS2008_BAND_NM", "MICHELS2008_CITATION", "EMULSION_SCATTERING"]
 
-#: Band of the Michels 2008 measurements [nm] (from memory: 350–1000 nm).
-MICHELS2008_BAND_NM = (350.0, 1000.0)
+#: Band of the Michels 2008 measurements [nm]: "measured for wavelengths between 350 nm and
+#: 900 nm" (Michels, Foschum & Kienle 2008, abstract).
+MICHELS2008_BAND_NM = (350.0, 900.0)
+#: The citation the band warning names.
+MICHELS2008_CITATION = "Michels, Foschum & Kienle 2008, Opt. Express 16:5907"
 
 
 def emulsion_scattering_Michels2008(*, wavelength_nm) -> tuple[np.ndarray, np.ndarray]:
@@ -28,7 +31,8 @@ def emulsion_scattering_Michels2008(*, wavelength_nm) -> tuple[np.ndarray, np.nd
     Parameters
     ----------
     wavelength_nm : float or array [nm]
-        Warning outside 350–1000 nm.
+        Outside 350–900 nm, the band the paper measured, a :class:`PhantomlabWarning`
+        names the wavelengths, the band and the paper (the power law is then extrapolated).
 
     Returns
     -------
@@ -54,16 +58,22 @@ def emulsion_scattering_Michels2008(*, wavelength_nm) -> tuple[np.ndarray, np.nd
     if finite.size and finite.min() <= 0:
         raise InputError(f"emulsion model: wavelength must be > 0 nm, got {finite.min():g}")
     lo, hi = MICHELS2008_BAND_NM
-    if finite.size and (finite.min() < lo or finite.max() > hi):
+    outside = finite[(finite < lo) | (finite > hi)]
+    if outside.size:
         warnings.warn(
-            f"emulsion (Michels 2008): wavelength {finite.min():g}–{finite.max():g} nm outside "
-            f"the {lo:g}–{hi:g} nm it was fitted on",
+            f"emulsion model michels2008: wavelength {_span(outside)} outside "
+            f"the {lo:g}–{hi:g} nm measured by {MICHELS2008_CITATION}; its scattering is extrapolated there",
             PhantomlabWarning,
             stacklevel=2,
         )
     mus = 3.873e8 * wavelength**-2.397  # Michels 2008, power law for μs of the 20 % emulsion
     g = 1.090 - 6.812e-4 * wavelength  # Michels 2008, linear fit of g
     return mus, g
+
+
+def _span(values) -> str:
+    low, high = float(values.min()), float(values.max())
+    return f"{low:g} nm" if low == high else f"{low:g}–{high:g} nm"
 
 
 #: Emulsion model name (as in stock files) → function.

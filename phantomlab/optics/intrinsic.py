@@ -16,6 +16,11 @@ import numpy as np
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.materials.refractive_index import refractive_index
 from phantomlab.materials.stock import Stock
+from phantomlab.materials.solvents import (
+    LIPID_VANVEEN2004_BAND_NM,
+    ethanol_absorption_Kedenburg2012,
+    lipid_absorption_vanVeen2004,
+)
 from phantomlab.materials.water import water_absorption_per_mm
 from phantomlab.optics.emulsion import EMULSION_SCATTERING
 from phantomlab.optics.mie import sphere_ensemble_optics
@@ -61,6 +66,9 @@ class IntrinsicOptics:
     mua_sd_per_mm : ndarray [1/mm]
         SD of μa from the stock's own data (a cuvette fit; 0 otherwise).  The potency SD is
         not included: it is the stock's ``potency_sd``.
+    mua_carrier_per_mm : ndarray [1/mm]
+        The part of ``mua_per_mm`` that the potency does not scale: the carrier water of a
+        suspension or emulsion, the solvent of an absorber stock (0 for matrices and powders).
     """
 
     stock: Any
@@ -70,6 +78,7 @@ class IntrinsicOptics:
     g: np.ndarray
     solids_volume_fraction: float | None = None
     mua_sd_per_mm: np.ndarray | None = field(default=None)
+    mua_carrier_per_mm: np.ndarray | None = field(default=None)
 
     def __post_init__(self) -> None:
         grid = wavelength_grid(self.wavelength_nm)
@@ -79,10 +88,11 @@ class IntrinsicOptics:
             values = np.broadcast_to(np.asarray(getattr(self, name), dtype=float), grid.shape).copy()
             values.setflags(write=False)
             object.__setattr__(self, name, values)
-        sd = self.mua_sd_per_mm if self.mua_sd_per_mm is not None else 0.0
-        sd = np.broadcast_to(np.asarray(sd, dtype=float), grid.shape).copy()
-        sd.setflags(write=False)
-        object.__setattr__(self, "mua_sd_per_mm", sd)
+        for name in ("mua_sd_per_mm", "mua_carrier_per_mm"):
+            given = getattr(self, name)
+            values = np.broadcast_to(np.asarray(0.0 if given is None else given, dtype=float), grid.shape).copy()
+            values.setflags(write=False)
+            object.__setattr__(self, name, values)
         if self.solids_volume_fraction is None:
             solids = getattr(self.stock, "solids_volume_fraction", 0.0)
             object.__setattr__(self, "solids_volume_fraction", float(solids))
@@ -122,10 +132,10 @@ def _interpolate_spectrum(key: str, field_name: str, table_nm, values, grid) -> 
     return np.interp(grid, table_nm, values)
 
 
-def _water(grid, fraction) -> np.ndarray:
+def _water(grid, fraction, source) -> np.ndarray:
     if fraction == 0:
         return np.zeros_like(grid)
-    return fraction * water_absorption_per_mm(grid)
+    return fraction * water_absorption_per_mm(grid, source=source)
 
 
 def _matrix_background(stock: Stock, grid) -> np.ndarray:
@@ -133,7 +143,38 @@ def _matrix_background(stock: Stock, grid) -> np.ndarray:
     if spec.background_spectrum is not None:
         cols = spec.background_spectrum.columns
         return _interpolate_spectrum(stock.key, "spectrum_csv", cols["wavelength_nm"], cols["mua_per_mm"], grid)
-    return _water(grid, spec.water_volume_fraction) + spec.background_mua_per_mm
+    return _water(grid, spec.water_volume_fraction, spec.water_source) + spec.background_mua_per_mm
+
+
+def _oil(stock: Stock, grid) -> np.ndarray:
+    """Absorption of the undiluted oil of an emulsion (van Veen et al. 2004 lipid spectrum)."""
+    lo, hi = LIPID_VANVEEN2004_BAND_NM
+    inside = (grid >= lo) & (grid <= hi)
+    if not np.all(inside):
+        outside = grid[~inside]
+        warnings.warn(
+            f"stock {stock.key}: the oil's own absorption is left out at "
+            f"{outside.min():g}{'' if outside.min() == outside.max() else f'–{outside.max():g}'} nm, "
+            f"outside the {lo:g}–{hi:g} nm of the lipid spectrum (van Veen et al. 2004)",
+            PhantomlabWarning,
+            stacklevel=3,
+        )
+    mua = np.zeros_like(grid)
+    mua[inside] = lipid_absorption_vanVeen2004(wavelength_nm=grid[inside])
+    return mua
+
+
+def _solvent(stock: Stock, grid) -> np.ndarray:
+    """Absorption of an absorber stock's solvent (what its spectrum was blanked against)."""
+    spec = stock.spec
+    if spec.solvent == "water":
+        return water_absorption_per_mm(grid, source=spec.water_source)
+    if spec.solvent == "ethanol":
+        return ethanol_absorption_Kedenburg2012(wavelength_nm=grid)
+    if spec.solvent == "spectrum":
+        cols = spec.solvent_spectrum.columns
+        return _interpolate_spectrum(stock.key, "solvent_spectrum_csv", cols["wavelength_nm"], cols["mua_per_mm"], grid)
+    return np.zeros_like(grid)
 
 
 def _require_matrix(matrix, stock: Stock) -> Stock:
@@ -144,7 +185,7 @@ def _require_matrix(matrix, stock: Stock) -> Stock:
     return matrix
 
 
-def _spheres(stock: Stock, grid, matrix: Stock, temperature_c, *, solids: float, carrier_water: float):
+def _spheres(stock: Stock, grid, matrix: Stock, temperature_c, *, solids: float, carrier_water: float, water_source):
     spec = stock.spec
     n_matrix = refractive_index(matrix.spec.material, wavelength_nm=grid, temperature_c=temperature_c)
     n_particle = refractive_index(spec.material, wavelength_nm=grid, temperature_c=temperature_c)
@@ -165,15 +206,17 @@ def _spheres(stock: Stock, grid, matrix: Stock, temperature_c, *, solids: float,
         number_weights=spec.sizes.number_weights,
         volume_fraction=solids,
     )
-    mua = ensemble.mua_per_mm + (1.0 - solids) * _water(grid, carrier_water)
-    return mua, ensemble.mus_per_mm, ensemble.g
+    carrier = (1.0 - solids) * _water(grid, carrier_water, water_source)
+    return ensemble.mua_per_mm, ensemble.mus_per_mm, ensemble.g, carrier
 
 
 def intrinsic_optics(stock: Stock, *, wavelength_nm, matrix: Stock | None, potency=None, temperature_c=20.0) -> IntrinsicOptics:
     """Intrinsic μa, μs and g of a stock on any wavelength grid.
 
-    Per unit volume fraction of the undiluted stock in the final mix.  Every coefficient
-    (μa and μs) is multiplied by ``potency``; g is not.
+    Per unit volume fraction of the undiluted stock in the final mix.  The potency multiplies
+    the coefficients of the stock's scattering or absorbing ingredient (its μs and that
+    ingredient's μa); the carrier water of a suspension or emulsion and the solvent of an
+    absorber stock keep their own absorption (``mua_carrier_per_mm``), and g is not scaled.
 
     Parameters
     ----------
@@ -197,30 +240,36 @@ def intrinsic_optics(stock: Stock, *, wavelength_nm, matrix: Stock | None, poten
     -----
     By kind:
 
-    * **matrix** — its own background absorption (water fraction × water μa of Hale & Querry
-      1973 + a constant, or its measured spectrum); μs = 0.  For the matrix itself, "per
+    * **matrix** — its own background absorption (water fraction × water μa of the stock's
+      ``water_source``, default Pope & Fry 1997 / Segelstein 1981, + a constant, or its
+      measured spectrum); μs = 0.  For the matrix itself, "per
       volume fraction" is simply its μa.
     * **spheres** — Mie for the size distribution (:func:`~phantomlab.optics.mie.sphere_ensemble_optics`),
       relative index particle/matrix at each wavelength, at the stock's particle volume
       fraction f.  Its μa is the carrier's absorption (water, for an aqueous suspension)
-      times (1 − f) plus the particles' own absorption (zero for the real indices of the
-      registry).
+      times (1 − f), not scaled by the potency, plus the particles' own absorption (zero for
+      the real indices of the registry).
     * **powder** — as spheres with f = 1 and no carrier.  A first guess: grains aggregate, so
       a :class:`PhantomlabWarning` says the result needs calibration.
     * **emulsion** — the published empirical model (Michels et al. 2008) for μs and g; μa is
-      the water of the continuous phase, (1 − oil fraction) × water; the absorption of the
-      oil itself is neglected.
+      the water of the continuous phase, (1 − φ) × water (not scaled by the potency), plus
+      the oil's own absorption φ × lipid (van Veen et al. 2004, scaled with the potency like
+      the scattering), φ the oil volume fraction.
     * **absorber** — the stock's intrinsic spectrum, linearly interpolated (refused outside
       the spectrum's range).  With an albedo a: an attenuation spectrum μt (cuvette, or a
       ``mut_per_mm`` column) splits into μa = (1 − a) μt and μs = a μt; an absorption
-      spectrum μa gets μs = μa a/(1 − a).  The solvent of the absorber stock is not given
-      an absorption of its own.
+      spectrum μa gets μs = μa a/(1 − a).  The potency scales these; the stock's
+      ``solvent`` (what its spectrum was blanked against: water, ethanol or a given
+      spectrum) adds its own absorption, unscaled, because in the batch the stock's volume
+      displaces matrix and brings its solvent with it.
 
     References
     ----------
     1. Bohren & Huffman (1983), ch. 4 (Mie theory).
     2. Michels, Foschum & Kienle (2008), Opt. Express 16:5907 (emulsion).
-    3. Hale & Querry (1973), Appl. Opt. 12:555 (water absorption).
+    3. Pope & Fry (1997), Appl. Opt. 36:8710; Segelstein (1981) (water absorption).
+    4. van Veen et al. (2004), OSA Biomedical Topical Meeting (lipid absorption).
+    5. Kedenburg et al. (2012), Opt. Mater. Express 2:1588 (ethanol absorption).
     """
     if not isinstance(stock, Stock):
         raise InputError(f"intrinsic_optics needs a Stock from load_shelf, got {stock!r}")
@@ -231,18 +280,21 @@ def intrinsic_optics(stock: Stock, *, wavelength_nm, matrix: Stock | None, poten
         raise InputError(f"stock {stock.key}: potency must be a number > 0, got {potency!r}")
     sd = 0.0
     g = np.zeros_like(grid)
+    carrier = np.zeros_like(grid)
     if stock.kind == "matrix":
         mua = _matrix_background(stock, grid)
         mus = np.zeros_like(grid)
     elif stock.kind == "spheres":
         matrix = _require_matrix(matrix, stock)
-        mua, mus, g = _spheres(
+        mua, mus, g, carrier = _spheres(
             stock, grid, matrix, temperature_c,
             solids=stock.solids_volume_fraction, carrier_water=stock.spec.carrier_water_volume_fraction,
+            water_source=stock.spec.water_source,
         )
     elif stock.kind == "powder":
         matrix = _require_matrix(matrix, stock)
-        mua, mus, g = _spheres(stock, grid, matrix, temperature_c, solids=1.0, carrier_water=0.0)
+        mua, mus, g, _ = _spheres(stock, grid, matrix, temperature_c, solids=1.0, carrier_water=0.0,
+                                  water_source=None)
         warnings.warn(
             f"stock {stock.key}: powder optics from Mie for separate {stock.spec.material} spheres are a "
             "first guess (grains aggregate); calibrate the potency on a pilot batch",
@@ -251,7 +303,9 @@ def intrinsic_optics(stock: Stock, *, wavelength_nm, matrix: Stock | None, poten
         )
     elif stock.kind == "emulsion":
         mus, g = EMULSION_SCATTERING[stock.spec.model](wavelength_nm=grid)
-        mua = _water(grid, 1.0 - stock.solids_volume_fraction)
+        oil = stock.solids_volume_fraction
+        mua = oil * _oil(stock, grid)
+        carrier = _water(grid, 1.0 - oil, stock.spec.water_source)
     elif stock.kind == "absorber":
         spec = stock.spec
         field_name = {"spectrum": "spectrum_csv", "extinction": "extinction_csv", "cuvette": "cuvette_csv"}[spec.method]
@@ -263,6 +317,7 @@ def intrinsic_optics(stock: Stock, *, wavelength_nm, matrix: Stock | None, poten
         else:
             mua, mus, sd = value, value * a / (1.0 - a), value_sd
         g = np.full_like(grid, spec.g) if a > 0 else np.zeros_like(grid)
+        carrier = _solvent(stock, grid)
     else:  # pragma: no cover - the loader admits only KINDS
         raise InputError(f"stock {stock.key}: unknown kind {stock.kind!r}")
     mus = np.asarray(mus, dtype=float)
@@ -270,8 +325,9 @@ def intrinsic_optics(stock: Stock, *, wavelength_nm, matrix: Stock | None, poten
     return IntrinsicOptics(
         stock=stock,
         wavelength_nm=grid,
-        mua_per_mm=potency * np.asarray(mua, dtype=float),
+        mua_per_mm=potency * np.asarray(mua, dtype=float) + carrier,
         mus_per_mm=potency * mus,
         g=g,
         mua_sd_per_mm=potency * np.asarray(sd, dtype=float),
+        mua_carrier_per_mm=carrier,
     )

@@ -3,16 +3,21 @@
 A batch is the matrix plus stocks at volume fractions ``f_i`` of the *undiluted* stock in the
 final mix; the matrix fills the rest, ``1 − Σ f_i`` (the additions displace matrix, the final
 volume is fixed).  With each stock's intrinsic optics per unit volume fraction at potency 1
-(``a_i`` absorption, ``s_i`` scattering, ``g_i`` anisotropy) and its potency ``p_i``
-(docs/design.md: potency scales all of a stock's μa and μs together), the mixing rule of the
-optics layer (``phantomlab.optics.mix_optics``, independent scattering) reads
+(``a_i`` absorption of the ingredient, ``c_i`` absorption of its carrier water or solvent,
+``s_i`` scattering, ``g_i`` anisotropy) and its potency ``p_i`` (docs/design.md: the potency
+scales the ingredient, not the carrier), the mixing rule of the optics layer
+(``phantomlab.optics.mix_optics``, independent scattering) reads
 
-    μa   = (1 − Σ f_i) μa_m + Σ f_i p_i a_i  =  μa_m + Σ f_i (p_i a_i − μa_m)
-    μs   = Σ f_i p_i s_i
-    μs′  = Σ f_i p_i s_i (1 − g_i)
-    μs·g = Σ f_i p_i s_i g_i
+    μa   = (1 − Σ f_i) μa_m + Σ f_i (p_i a_i + c_i)  =  μa_m + Σ f_i (p_i a_i + c_i − μa_m)
+    μs   = W Σ f_i p_i s_i
+    μs′  = W Σ f_i p_i s_i (1 − g_i)
+    μs·g = W Σ f_i p_i s_i g_i
 
-Every line is linear in the doses ``f``: the solver is a linear least-squares problem.
+with W = 1 (independent scattering, the default).  Every line is then linear in the doses
+``f``: the solver is a linear least-squares problem.  With a dependent-scattering model
+(``packing = "percus_yevick"``) W = W(φ) is the packing factor of the particle volume
+fraction φ = Σ f_i φ_i of the batch (:mod:`phantomlab.optics.dependent`); the solver then
+iterates on W.
 
 References
 ----------
@@ -27,6 +32,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from phantomlab.errors import InputError
+from phantomlab.optics.dependent import PACKING_MODELS
 
 __all__ = ["IntrinsicTable", "design_matrices", "mix_coefficients"]
 
@@ -41,7 +47,8 @@ class IntrinsicTable:
     stock_keys : tuple of str (S,)
         The added stocks, in the order of the rows below (the matrix is not among them).
     mua_per_mm, mus_per_mm : ndarray (S, W) [1/mm]
-        Per unit volume fraction of the undiluted stock in the final mix, potency 1.
+        Per unit volume fraction of the undiluted stock in the final mix, potency 1
+        (``mua_per_mm`` includes the carrier part below).
     g : ndarray (S, W) [dimensionless]
     matrix_mua_per_mm : ndarray (W,) [1/mm]
         The matrix's own absorption.
@@ -49,6 +56,12 @@ class IntrinsicTable:
         Particle volume fraction inside each undiluted stock (0 for absorbers).
     density_g_per_ml : ndarray (S,) [g/mL]
     matrix_density_g_per_ml : float [g/mL]
+    mua_carrier_per_mm : ndarray (S, W) [1/mm] or None
+        The part of ``mua_per_mm`` that the potency does not scale (carrier water, solvent);
+        None means 0.
+    packing : str
+        Dependent-scattering model: ``"none"`` (independent scattering) or a key of
+        :data:`phantomlab.optics.dependent.PACKING_MODELS`.
     """
 
     wavelength_nm: np.ndarray
@@ -60,6 +73,8 @@ class IntrinsicTable:
     solids_volume_fraction: np.ndarray
     density_g_per_ml: np.ndarray
     matrix_density_g_per_ml: float = 1.0
+    mua_carrier_per_mm: np.ndarray | None = None
+    packing: str = "none"
 
     def __post_init__(self) -> None:
         wavelength = np.atleast_1d(np.asarray(self.wavelength_nm, dtype=float))
@@ -70,6 +85,12 @@ class IntrinsicTable:
         for name in ("mua_per_mm", "mus_per_mm", "g"):
             values = np.asarray(getattr(self, name), dtype=float).reshape(shape)
             object.__setattr__(self, name, values)
+        carrier = 0.0 if self.mua_carrier_per_mm is None else self.mua_carrier_per_mm
+        object.__setattr__(self, "mua_carrier_per_mm",
+                           np.broadcast_to(np.asarray(carrier, dtype=float), shape).copy())
+        if self.packing not in PACKING_MODELS:
+            raise InputError(f"unknown dependent-scattering model {self.packing!r}; "
+                             f"known: {', '.join(PACKING_MODELS)}")
         object.__setattr__(
             self,
             "matrix_mua_per_mm",
@@ -91,6 +112,28 @@ class IntrinsicTable:
         """Intrinsic reduced scattering s_i (1 − g_i) at potency 1 [1/mm], shape (S, W)."""
         return self.mus_per_mm * (1.0 - self.g)
 
+    @property
+    def mua_ingredient_per_mm(self) -> np.ndarray:
+        """The potency-scaled part of the intrinsic μa at potency 1 [1/mm], shape (S, W)."""
+        return self.mua_per_mm - self.mua_carrier_per_mm
+
+    def mua_at(self, potencies) -> np.ndarray:
+        """Intrinsic μa of each stock at the given potencies, p a_i + c_i [1/mm], shape (S, W)."""
+        p = np.asarray(potencies, dtype=float)[:, None]
+        return p * self.mua_ingredient_per_mm + self.mua_carrier_per_mm
+
+    def packing_factor(self, volume_fractions) -> np.ndarray:
+        """Factor W on the batch's scattering for doses ``volume_fractions`` (..., S).
+
+        1 for independent scattering; else the packing model's W(φ), φ = Σ f_i φ_i.
+        """
+        f = np.asarray(volume_fractions, dtype=float)
+        phi = f @ self.solids_volume_fraction
+        model = PACKING_MODELS[self.packing]
+        if model is None:
+            return np.ones_like(phi)
+        return model(volume_fraction=np.clip(phi, 0.0, 0.63))
+
     def index_of(self, key: str) -> int:
         try:
             return self.stock_keys.index(key)
@@ -100,13 +143,16 @@ class IntrinsicTable:
             ) from None
 
 
-def design_matrices(table: IntrinsicTable, *, potencies) -> dict[str, np.ndarray]:
+def design_matrices(table: IntrinsicTable, *, potencies, packing_factor: float = 1.0) -> dict[str, np.ndarray]:
     """Columns of the linear model, one per stock, for given potencies.
 
     Parameters
     ----------
     table : IntrinsicTable
     potencies : array (S,) [dimensionless]
+    packing_factor : float [dimensionless]
+        W on the scattering columns (1: independent scattering); the solver passes the
+        packing factor of its current doses when the table has a packing model.
 
     Returns
     -------
@@ -114,9 +160,9 @@ def design_matrices(table: IntrinsicTable, *, potencies) -> dict[str, np.ndarray
         ``mua`` (μa − μa_m per unit f, displacement included), ``mus``, ``musp`` and ``gmus``
         (μs·g per unit f) [1/mm].
     """
-    p = np.asarray(potencies, dtype=float)[:, None]
+    p = np.asarray(potencies, dtype=float)[:, None] * packing_factor
     return {
-        "mua": (p * table.mua_per_mm - table.matrix_mua_per_mm[None, :]).T,
+        "mua": (table.mua_at(potencies) - table.matrix_mua_per_mm[None, :]).T,
         "mus": (p * table.mus_per_mm).T,
         "musp": (p * table.musp_per_mm).T,
         "gmus": (p * table.mus_per_mm * table.g).T,
@@ -142,9 +188,10 @@ def mix_coefficients(table: IntrinsicTable, *, volume_fractions, potencies) -> d
     p = np.asarray(potencies, dtype=float)
     fp = f * p
     matrix_fraction = 1.0 - f.sum(axis=-1, keepdims=True)
-    mua = matrix_fraction * table.matrix_mua_per_mm + fp @ table.mua_per_mm
-    mus = fp @ table.mus_per_mm
-    musp = fp @ table.musp_per_mm
-    gmus = fp @ (table.mus_per_mm * table.g)
+    mua = matrix_fraction * table.matrix_mua_per_mm + fp @ table.mua_ingredient_per_mm + f @ table.mua_carrier_per_mm
+    packing = np.asarray(table.packing_factor(f))[..., None]
+    mus = packing * (fp @ table.mus_per_mm)
+    musp = packing * (fp @ table.musp_per_mm)
+    gmus = packing * (fp @ (table.mus_per_mm * table.g))
     g = np.divide(gmus, mus, out=np.zeros_like(mus), where=mus > 0)
     return {"mua_per_mm": mua, "mus_per_mm": mus, "musp_per_mm": musp, "g": g}

@@ -271,6 +271,8 @@ def intrinsic_table(recipe: Recipe, wavelength_nm) -> IntrinsicTable:
         solids_volume_fraction=np.array([s.solids_volume_fraction for s in stocks]),
         density_g_per_ml=np.array([s.density_g_per_ml for s in stocks]),
         matrix_density_g_per_ml=matrix.density_g_per_ml,
+        mua_carrier_per_mm=np.array([r.mua_carrier_per_mm for r in rows]),
+        packing=recipe.dependent_scattering,
     )
 
 
@@ -526,6 +528,42 @@ def _spread_notes(target: Target, predicted: Prediction) -> list[str]:
             "and re-measure"]
 
 
+def dependent_scattering_notes(recipe: Recipe, table: IntrinsicTable, fractions: np.ndarray) -> list[str]:
+    """Plain-language warnings where a batch's scatterers are too dense to add linearly.
+
+    An emulsion stock above :data:`~phantomlab.optics.mixing.EMULSION_LINEAR_LIMIT` of the
+    batch volume, or a particle volume fraction above
+    :data:`~phantomlab.optics.mixing.INDEPENDENT_SCATTERING_LIMIT` (Aernouts et al. 2014,
+    Opt. Express 22:6086).  Each says whether the prediction is corrected.
+    """
+    from phantomlab.optics.mixing import EMULSION_LINEAR_LIMIT, INDEPENDENT_SCATTERING_LIMIT  # layer 2
+
+    corrected = table.packing != "none"
+    if corrected:
+        tail = (f"the prediction includes the Percus–Yevick packing correction (factor "
+                f"{float(table.packing_factor(fractions)):.3f} on the scattering; an upper estimate of "
+                "the reduction for particles comparable to the wavelength)")
+    else:
+        tail = ("the predicted scattering is too high; the recipe can switch on the "
+                "dependent-scattering correction (Percus–Yevick packing factor)")
+    notes = []
+    for key, fraction in zip(table.stock_keys, fractions):
+        if recipe.stock(key).kind == "emulsion" and fraction > EMULSION_LINEAR_LIMIT:
+            notes.append(
+                f"{key} makes up {100 * fraction:.1f} % of the batch volume, above the about "
+                f"{100 * EMULSION_LINEAR_LIMIT:g} % where an emulsion's scattering stops growing in proportion "
+                f"(dependent scattering, Aernouts et al. 2014); {tail}"
+            )
+    particles = float(fractions @ table.solids_volume_fraction)
+    if particles > INDEPENDENT_SCATTERING_LIMIT:
+        notes.append(
+            f"the particles fill {100 * particles:.1f} % of the batch volume, above the "
+            f"{100 * INDEPENDENT_SCATTERING_LIMIT:g} % where scattering stops adding up linearly "
+            f"(dependent scattering); {tail}"
+        )
+    return notes
+
+
 def _curve_grid(target: Target) -> np.ndarray | None:
     lo, hi = float(target.wavelength_nm.min()), float(target.wavelength_nm.max())
     if hi - lo < 1.0:
@@ -617,6 +655,7 @@ def _assemble(recipe, *, potencies, table, curve, fractions, check_target=True, 
     messages = [b.message for b in binding]
     if binding:
         messages.append("closest feasible recipe given")
+    messages += dependent_scattering_notes(recipe, table, fractions)
     messages += (_miss_notes(target, residuals) + _spread_notes(target, predicted) if check_target else []) + notes
     today = _dt.date.today()
     for key in (recipe.matrix_key, *recipe.stock_keys):

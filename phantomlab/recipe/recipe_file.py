@@ -10,6 +10,10 @@ Top-level fields (docs/formats.md; those marked * came after the first design):
 ``batch_volume_ml`` final volume of the batch [mL] — or —
 ``batch_mass_g`` *  final mass [g] (silicone and resin are weighed)
 ``notes`` *         free text printed on the sheet
+``dependent_scattering`` * ``"none"`` (default: independent scattering, doses add linearly)
+                    or ``"percus_yevick"``: the solver and the prediction multiply the
+                    batch's scattering by the Percus–Yevick packing factor of its particle
+                    volume fraction (:mod:`phantomlab.optics.dependent`)
 ``[target]``        see :mod:`phantomlab.recipe.targets`
 ``[limits]``        see :mod:`phantomlab.recipe.limits`
 ``[preparation]`` * see :mod:`phantomlab.recipe.preparation`
@@ -35,7 +39,7 @@ __all__ = ["Recipe", "load_recipe", "parse_recipe"]
 
 _TOP_LEVEL = {
     "name", "version", "stocks_file", "matrix", "stocks", "batch_volume_ml", "batch_mass_g",
-    "notes", "target", "limits", "preparation", "series",
+    "notes", "target", "limits", "preparation", "series", "dependent_scattering",
 }
 
 
@@ -64,6 +68,8 @@ class Recipe:
     notes : str
     definition : dict
         The parsed TOML as given.
+    dependent_scattering : str
+        ``"none"`` or a key of :data:`phantomlab.optics.dependent.PACKING_MODELS`.
     """
 
     name: str
@@ -81,6 +87,7 @@ class Recipe:
     series: dict
     notes: str
     definition: dict
+    dependent_scattering: str = "none"
 
     @property
     def by_mass(self) -> bool:
@@ -201,6 +208,12 @@ def parse_recipe(definition: dict, *, base_dir: Path, path: Path | None = None,
     if not isinstance(series, dict):
         raise InputError("recipe: series must be a table (levels, low, high, batch_volume_ml)")
 
+    from phantomlab.optics.dependent import PACKING_MODELS  # layer 2
+
+    dependent = definition.get("dependent_scattering", "none")
+    if dependent not in PACKING_MODELS:
+        raise InputError(f"recipe: dependent_scattering = {dependent!r}; accepted: "
+                         f"{', '.join(repr(k) for k in PACKING_MODELS)}")
     digest = hashlib.sha256(raw if raw is not None else repr(sorted(definition.items())).encode())
     if isinstance(target_table, dict) and "spectrum_csv" in target_table:
         digest.update((base_dir / str(target_table["spectrum_csv"])).read_bytes())
@@ -220,4 +233,5 @@ def parse_recipe(definition: dict, *, base_dir: Path, path: Path | None = None,
         series=dict(series),
         notes=str(definition.get("notes", "")),
         definition=definition,
+        dependent_scattering=dependent,
     )

@@ -109,13 +109,14 @@ def propagate_sd(
     mix = mix_coefficients(table, volume_fractions=f, potencies=p)
     f_matrix = 1.0 - f.sum()
     out = {}
-    for name, intrinsic, matrix_value in (
-        ("mua", table.mua_per_mm, table.matrix_mua_per_mm),
-        ("musp", table.musp_per_mm, np.zeros_like(table.matrix_mua_per_mm)),
+    packing = float(table.packing_factor(f))  # W(φ) on scattering; its own change with f is left out
+    for name, scaled, fixed, matrix_value in (
+        ("mua", table.mua_ingredient_per_mm, table.mua_carrier_per_mm, table.matrix_mua_per_mm),
+        ("musp", packing * table.musp_per_mm, 0.0, np.zeros_like(table.matrix_mua_per_mm)),
     ):
         c_mix = mix[f"{name}_per_mm"]
-        by_potency = (f * sp)[:, None] * intrinsic  # (S, W)
-        by_dose = (f * sd)[:, None] * (p[:, None] * intrinsic - c_mix[None, :])
+        by_potency = (f * sp)[:, None] * scaled  # (S, W): the potency scales the ingredient only
+        by_dose = (f * sd)[:, None] * (p[:, None] * scaled + fixed - c_mix[None, :])
         by_matrix = f_matrix * matrix_rel_sd * (matrix_value - c_mix)
         variance = (by_potency**2).sum(axis=0) + (by_dose**2).sum(axis=0) + by_matrix**2
         out[f"{name}_sd_per_mm"] = np.sqrt(variance)

@@ -217,6 +217,12 @@ BAD_CASES = [
     (('spectrum_csv = "dye.csv"', 'spectrum_csv = "badcols.csv"'), "stock dye, field spectrum_csv: '.*badcols.csv' has unknown column\\(s\\) absorbance; expected columns wavelength_nm\\[,mua_per_mm\\]"),
     (('spectrum_csv = "dye.csv"', 'spectrum_csv = "decreasing.csv"'), "stock dye, field spectrum_csv: '.*decreasing.csv': wavelength_nm must increase strictly"),
     (('spectrum_csv = "dye.csv"', 'spectrum_csv = "dye.csv"\ncuvette_csv = "dye.csv"'), "stock dye, field cuvette_csv: give one of spectrum_csv, extinction_csv, cuvette_csv"),
+    # water sources and solvents
+    (('density_g_per_ml = 1.0', 'density_g_per_ml = 1.0\nwater_source = "hale1973"'), "stock water, field water_source: 'hale1973' is not one of popefry1997_segelstein1981, segelstein1981, halequerry1973 \\(did you mean 'halequerry1973'\\?\\)"),
+    (('hazards = ["dye"]', 'hazards = ["dye"]\nsolvent = "acetone"'), "stock dye, field solvent: 'acetone' is not one of none, water, ethanol"),
+    (('hazards = ["dye"]', 'hazards = ["dye"]\nsolvent = "water"\nsolvent_spectrum_csv = "dye.csv"'), "stock dye, field solvent: give the solvent once: solvent or solvent_spectrum_csv"),
+    (('hazards = ["dye"]', 'hazards = ["dye"]\nwater_source = "segelstein1981"'), "stock dye, field water_source: only used with solvent = \"water\"; remove it"),
+    (('hazards = ["dye"]', 'hazards = ["dye"]\nsolvent_spectrum_csv = "badcols.csv"'), "stock dye, field solvent_spectrum_csv: '.*badcols.csv' has missing column\\(s\\) mua_per_mm"),
 ]
 
 BAD_CSV = {
@@ -233,6 +239,20 @@ def test_bad_stock_file_refused_with_one_line(tmp_path, edit, message):
     with pytest.raises(InputError, match=message) as info:
         load_shelf(path)
     assert "\n" not in str(info.value)
+
+
+def test_water_source_and_solvent_fields(tmp_path):
+    text = GOOD.replace('density_g_per_ml = 1.0', 'density_g_per_ml = 1.0\nwater_source = "halequerry1973"', 1)
+    text = text.replace('hazards = ["dye"]', 'hazards = ["dye"]\nsolvent = "water"\nwater_source = "segelstein1981"')
+    shelf = load_shelf(write_shelf(tmp_path, text))
+    assert shelf["water"].spec.water_source == "halequerry1973"
+    assert shelf["dye"].spec.solvent == "water" and shelf["dye"].spec.water_source == "segelstein1981"
+    assert shelf["ps1000"].spec.water_source == "popefry1997_segelstein1981"  # the default
+    own = "# source: invented solvent for a test\nwavelength_nm,mua_per_mm\n400,0.01\n1000,0.03\n"
+    text = GOOD.replace('hazards = ["dye"]', 'hazards = ["dye"]\nsolvent_spectrum_csv = "solvent.csv"')
+    shelf = load_shelf(write_shelf(tmp_path, text, {"solvent.csv": own}))
+    assert shelf["dye"].spec.solvent == "spectrum"
+    assert "solvent_spectrum_csv" in shelf["dye"].definition["resolved"]
 
 
 def test_emulsion_10_percent_refused(tmp_path):

@@ -109,15 +109,19 @@ def test_emulsion_formula_values():
     mus, g = emulsion_scattering_Michels2008(wavelength_nm=600.0)
     assert mus == pytest.approx(3.873e8 * 600.0**-2.397, rel=1e-12)
     assert g == pytest.approx(1.090 - 6.812e-4 * 600.0, rel=1e-12)
-    with pytest.warns(PhantomlabWarning, match="350–1000 nm"):
-        emulsion_scattering_Michels2008(wavelength_nm=1100.0)
+    # Michels et al. 2008, abstract: measured "for wavelengths between 350 nm and 900 nm"
+    with pytest.warns(PhantomlabWarning, match="wavelength 950 nm outside the 350–900 nm measured by Michels"):
+        emulsion_scattering_Michels2008(wavelength_nm=950.0)
 
 
-def test_potency_scales_mua_and_mus_not_g(shelf):
+def test_potency_scales_the_ingredient_not_the_carrier_water(shelf):
     one = intrinsic_optics(shelf["ps500"], wavelength_nm=[700.0, 800.0], matrix=shelf["water"])
     two = intrinsic_optics(shelf["ps500"], wavelength_nm=[700.0, 800.0], matrix=shelf["water"], potency=2.0)
     assert two.mus_per_mm == pytest.approx(2 * one.mus_per_mm)
-    assert two.mua_per_mm == pytest.approx(2 * one.mua_per_mm)
+    # polystyrene's index is real: all of the suspension's mua is its carrier water, unscaled
+    carrier = (1 - shelf["ps500"].solids_volume_fraction) * water_absorption_per_mm([700.0, 800.0])
+    assert two.mua_per_mm == pytest.approx(carrier, rel=1e-12)
+    assert two.mua_carrier_per_mm == pytest.approx(carrier, rel=1e-12)
     assert two.g == pytest.approx(one.g)
     with pytest.raises(InputError, match="potency must be a number > 0"):
         intrinsic_optics(shelf["ps500"], wavelength_nm=700.0, matrix=shelf["water"], potency=-1.0)
@@ -142,7 +146,9 @@ def test_extinction_absorber(shelf):
     optics = intrinsic_optics(shelf["dye_ext660"], wavelength_nm=[660.0], matrix=None)
     table = np.loadtxt(REPO / "recipes" / "spectra" / "dye_ext660-extinction.csv", delimiter=",", skiprows=2)
     epsilon = np.interp(660.0, table[:, 0], table[:, 1])
-    assert optics.mua_per_mm[0] == pytest.approx(np.log(10) * epsilon * 1e-3 / 10, rel=1e-12)
+    water = water_absorption_per_mm(660.0)  # the demo stock is an aqueous solution: solvent = "water"
+    assert optics.mua_per_mm[0] == pytest.approx(np.log(10) * epsilon * 1e-3 / 10 + water, rel=1e-12)
+    assert optics.mua_carrier_per_mm[0] == pytest.approx(water, rel=1e-12)
     assert optics.mus_per_mm[0] == 0
 
 
@@ -150,8 +156,10 @@ def test_ink_albedo_splits_attenuation(shelf):
     ink = shelf["ink_black"]
     optics = intrinsic_optics(ink, wavelength_nm=[600.0, 800.0], matrix=shelf["water"])
     attenuation = np.interp([600.0, 800.0], ink.spec.wavelength_nm, ink.spec.coefficient_per_mm)
-    assert optics.mua_per_mm + optics.mus_per_mm == pytest.approx(attenuation, rel=1e-12)
-    assert optics.mus_per_mm / (optics.mua_per_mm + optics.mus_per_mm) == pytest.approx(0.1)
+    ink_mua = optics.mua_per_mm - optics.mua_carrier_per_mm  # the diluent water is added back apart
+    assert optics.mua_carrier_per_mm == pytest.approx(water_absorption_per_mm([600.0, 800.0]), rel=1e-12)
+    assert ink_mua + optics.mus_per_mm == pytest.approx(attenuation, rel=1e-12)
+    assert optics.mus_per_mm / (ink_mua + optics.mus_per_mm) == pytest.approx(0.1)
     assert optics.g == pytest.approx(0.5)
     assert np.all(optics.mua_sd_per_mm > 0)
 
@@ -265,3 +273,34 @@ def test_low_contrast_warns(tmp_path):
     with pytest.warns(PhantomlabWarning) as record:
         intrinsic_optics(s["silica"], wavelength_nm=[633.0], matrix=s["pdms"])
     assert any("relative index silica/silicone within 0.033 of 1" in str(r.message) for r in record)
+
+
+def test_absorber_solvents(shelf, tmp_path):
+    from phantomlab.materials.stock import parse_shelf
+
+    # Kedenburg et al. 2012 ethanol at 0.908 um: k = 9.46558e-7, mua = 4 pi k / lambda [1/mm]
+    ethanol_908 = 4 * np.pi * 9.46558e-7 / 0.908e-3
+    nir = intrinsic_optics(shelf["dye_nir"], wavelength_nm=[908.0], matrix=None)
+    assert nir.mua_carrier_per_mm[0] == pytest.approx(ethanol_908, rel=1e-9)
+    (tmp_path / "dye.csv").write_text("# source: invented for a test\nwavelength_nm,mua_per_mm\n600,1.0\n900,2.0\n")
+    (tmp_path / "solvent.csv").write_text("# source: invented for a test\nwavelength_nm,mua_per_mm\n600,0.01\n900,0.04\n")
+    document = {"stocks": {"dye": {"kind": "absorber", "spectrum_csv": "dye.csv", "solvent_spectrum_csv": "solvent.csv"}}}
+    dye = parse_shelf(document, base=tmp_path)["dye"]
+    optics = intrinsic_optics(dye, wavelength_nm=[750.0], matrix=None, potency=3.0)
+    assert optics.mua_per_mm[0] == pytest.approx(3.0 * 1.5 + 0.025, rel=1e-12)  # linear interpolation by hand
+    none = parse_shelf({"stocks": {"dye": {"kind": "absorber", "spectrum_csv": "dye.csv"}}}, base=tmp_path)["dye"]
+    assert intrinsic_optics(none, wavelength_nm=[750.0], matrix=None).mua_carrier_per_mm[0] == 0.0
+
+
+def test_emulsion_water_and_oil(shelf):
+    # 20 % w/v soybean oil over 0.92 g/mL: oil fraction 0.2174; van Veen et al. 2004 lard at
+    # 930 nm: 13.10 /m; the water phase (1 - oil) is not scaled by the potency
+    stock = shelf["lipid20"]
+    oil = 0.20 / 0.92
+    with pytest.warns(PhantomlabWarning, match="outside the 350–900 nm"):
+        optics = intrinsic_optics(stock, wavelength_nm=[930.0], matrix=None, potency=2.0)
+    water = float(water_absorption_per_mm(930.0))
+    assert optics.mua_carrier_per_mm[0] == pytest.approx((1 - oil) * water, rel=1e-12)
+    assert optics.mua_per_mm[0] == pytest.approx((1 - oil) * water + 2.0 * oil * 0.01310, rel=1e-9)
+    with pytest.warns(PhantomlabWarning, match="oil's own absorption is left out at 400 nm"):
+        intrinsic_optics(stock, wavelength_nm=[400.0, 500.0], matrix=None)
