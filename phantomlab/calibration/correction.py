@@ -171,7 +171,7 @@ def top_up(
     musp0 = np.interp(grid, wl[order], arrays["musp_per_mm"][order])
     table = intrinsic_table(recipe, grid)
     values, _sds, _sources, notes = resolve_potencies(recipe, potencies)
-    a = values[:, None] * table.mua_per_mm  # (S, W)
+    a = table.mua_at(values)  # (S, W): the potency scales the ingredient, not its carrier water or solvent
     s = values[:, None] * table.musp_per_mm
     am = table.matrix_mua_per_mm
     t_mua = np.asarray(target.mua_per_mm, float)

@@ -17,6 +17,7 @@ from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.materials.refractive_index import refractive_index
 from phantomlab.materials.stock import Stock
 from phantomlab.materials.solvents import (
+    ETHANOL_KEDENBURG2012_BAND_NM,
     LIPID_VANVEEN2004_BAND_NM,
     ethanol_absorption_Kedenburg2012,
     lipid_absorption_vanVeen2004,
@@ -146,22 +147,27 @@ def _matrix_background(stock: Stock, grid) -> np.ndarray:
     return _water(grid, spec.water_volume_fraction, spec.water_source) + spec.background_mua_per_mm
 
 
-def _oil(stock: Stock, grid) -> np.ndarray:
-    """Absorption of the undiluted oil of an emulsion (van Veen et al. 2004 lipid spectrum)."""
-    lo, hi = LIPID_VANVEEN2004_BAND_NM
+def _within_table(stock: Stock, grid, band, function, what: str, table: str) -> np.ndarray:
+    """A liquid's tabulated absorption on the grid; left out (0, with a warning) outside its table."""
+    lo, hi = band
     inside = (grid >= lo) & (grid <= hi)
     if not np.all(inside):
         outside = grid[~inside]
+        span = f"{outside.min():g}" if outside.min() == outside.max() else f"{outside.min():g}–{outside.max():g}"
         warnings.warn(
-            f"stock {stock.key}: the oil's own absorption is left out at "
-            f"{outside.min():g}{'' if outside.min() == outside.max() else f'–{outside.max():g}'} nm, "
-            f"outside the {lo:g}–{hi:g} nm of the lipid spectrum (van Veen et al. 2004)",
+            f"stock {stock.key}: {what} is left out at {span} nm, outside the {lo:g}–{hi:g} nm of {table}",
             PhantomlabWarning,
-            stacklevel=3,
+            stacklevel=4,
         )
     mua = np.zeros_like(grid)
-    mua[inside] = lipid_absorption_vanVeen2004(wavelength_nm=grid[inside])
+    mua[inside] = function(wavelength_nm=grid[inside])
     return mua
+
+
+def _oil(stock: Stock, grid) -> np.ndarray:
+    """Absorption of the undiluted oil of an emulsion (van Veen et al. 2004 lipid spectrum)."""
+    return _within_table(stock, grid, LIPID_VANVEEN2004_BAND_NM, lipid_absorption_vanVeen2004,
+                         "the oil's own absorption", "the lipid spectrum (van Veen et al. 2004)")
 
 
 def _solvent(stock: Stock, grid) -> np.ndarray:
@@ -170,7 +176,8 @@ def _solvent(stock: Stock, grid) -> np.ndarray:
     if spec.solvent == "water":
         return water_absorption_per_mm(grid, source=spec.water_source)
     if spec.solvent == "ethanol":
-        return ethanol_absorption_Kedenburg2012(wavelength_nm=grid)
+        return _within_table(stock, grid, ETHANOL_KEDENBURG2012_BAND_NM, ethanol_absorption_Kedenburg2012,
+                             "the ethanol solvent's absorption", "the ethanol table (Kedenburg et al. 2012)")
     if spec.solvent == "spectrum":
         cols = spec.solvent_spectrum.columns
         return _interpolate_spectrum(stock.key, "solvent_spectrum_csv", cols["wavelength_nm"], cols["mua_per_mm"], grid)
@@ -260,7 +267,8 @@ def intrinsic_optics(stock: Stock, *, wavelength_nm, matrix: Stock | None, poten
       ``mut_per_mm`` column) splits into μa = (1 − a) μt and μs = a μt; an absorption
       spectrum μa gets μs = μa a/(1 − a).  The potency scales these; the stock's
       ``solvent`` (what its spectrum was blanked against: water, ethanol or a given
-      spectrum) adds its own absorption, unscaled, because in the batch the stock's volume
+      spectrum; a tabulated solvent is left out, with a warning, outside its table) adds its
+      own absorption, unscaled, because in the batch the stock's volume
       displaces matrix and brings its solvent with it.
 
     References

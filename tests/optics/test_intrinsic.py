@@ -302,5 +302,5 @@ def test_emulsion_water_and_oil(shelf):
     water = float(water_absorption_per_mm(930.0))
     assert optics.mua_carrier_per_mm[0] == pytest.approx((1 - oil) * water, rel=1e-12)
     assert optics.mua_per_mm[0] == pytest.approx((1 - oil) * water + 2.0 * oil * 0.01310, rel=1e-9)
-    with pytest.warns(PhantomlabWarning, match="oil's own absorption is left out at 400 nm"):
+    with pytest.warns(PhantomlabWarning, match="the oil.s own absorption is left out at 400 nm, outside the 429–1098 nm"):
         intrinsic_optics(stock, wavelength_nm=[400.0, 500.0], matrix=None)

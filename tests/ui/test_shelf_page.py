@@ -63,10 +63,14 @@ def test_intrinsic_optics_of_a_stock_are_plotted_with_units(shelf_page, download
     _name, csv = downloads.content(shelf_page, "Download the plotted numbers (CSV)")
     table = pd.read_csv(io.BytesIO(csv))
     assert {"wavelength_nm", "mua_per_mm", "musp_per_mm"} <= set(table.columns)
-    # dye_blue is given by a measured intrinsic spectrum (recipes/spectra/dye_blue.csv):
-    # the plotted values are that file's, on the chosen grid (linear interpolation in between)
+    # dye_blue is given by a measured intrinsic spectrum (recipes/spectra/dye_blue.csv) taken
+    # against a water blank (solvent = "water"): the plotted values are that file's, on the
+    # chosen grid (linear interpolation in between), plus the stock's own water
+    from phantomlab.materials import water_absorption_per_mm
+
     source = pd.read_csv(DEMO_SHELF.parent / "spectra" / "dye_blue.csv", comment="#")
     expected = np.interp(table["wavelength_nm"], source["wavelength_nm"], source["mua_per_mm"])
+    expected = expected + water_absorption_per_mm(table["wavelength_nm"].to_numpy())
     assert table["mua_per_mm"].to_numpy() == pytest.approx(expected, rel=1e-9)
     assert np.all(table["musp_per_mm"] == 0.0)
 
