@@ -53,10 +53,12 @@ def _wavelength_um(wavelength_nm) -> np.ndarray:
 def _check_band(name: str, wavelength_um: np.ndarray, band_nm: tuple[float, float]) -> None:
     finite = wavelength_um[np.isfinite(wavelength_um)] * 1000.0
     lo, hi = band_nm
-    if finite.size and (finite.min() < lo - 1e-9 or finite.max() > hi + 1e-9):
+    outside = finite[(finite < lo - 1e-9) | (finite > hi + 1e-9)]
+    if outside.size:
+        span = f"{outside.min():g}" if outside.min() == outside.max() else f"{outside.min():g}–{outside.max():g}"
         warnings.warn(
-            f"{name}: wavelength {finite.min():g}–{finite.max():g} nm outside the "
-            f"{lo:g}–{hi:g} nm the formula was fitted on",
+            f"{name}: wavelength {span} nm outside the {lo:g}–{hi:g} nm the formula was fitted on "
+            "(extrapolated there)",
             PhantomlabWarning,
             stacklevel=3,
         )
@@ -207,6 +209,8 @@ def silica_index_Malitson1965(*, wavelength_nm, temperature_c=20.0) -> np.ndarra
     )
 
 
+#: DeVore 1951 ordinary-ray formula range as the refractiveindex.info database states it
+#: (database/data-nk/main/TiO2/Devore-o.yml: 0.43–1.53 µm).
 RUTILE_DEVORE1951_BAND_NM = (430.0, 1530.0)
 
 
@@ -218,7 +222,7 @@ def rutile_index_DeVore1951(*, wavelength_nm, temperature_c=20.0) -> np.ndarray:
     Parameters
     ----------
     wavelength_nm : float or array [nm]
-        The measurements span about 430–1530 nm (band from memory; warning outside).
+        The formula's range is 430–1530 nm (:data:`RUTILE_DEVORE1951_BAND_NM`); warning outside.
     temperature_c : float or array [°C]
         Not used.
 
@@ -242,7 +246,9 @@ def rutile_index_DeVore1951(*, wavelength_nm, temperature_c=20.0) -> np.ndarray:
     return np.sqrt(5.913 + 0.2441 / (wavelength_um**2 - 0.0803))  # DeVore 1951, ordinary ray
 
 
-ALUMINA_MALITSONDODGE1972_BAND_NM = (200.0, 5500.0)
+#: Malitson & Dodge 1972 ordinary-ray formula range as the refractiveindex.info database
+#: states it (database/data-nk/main/Al2O3/Malitson-o.yml: 0.20–5.0 µm).
+ALUMINA_MALITSONDODGE1972_BAND_NM = (200.0, 5000.0)
 
 
 def alumina_index_MalitsonDodge1972(*, wavelength_nm, temperature_c=20.0) -> np.ndarray:
@@ -251,7 +257,7 @@ def alumina_index_MalitsonDodge1972(*, wavelength_nm, temperature_c=20.0) -> np.
     Parameters
     ----------
     wavelength_nm : float or array [nm]
-        Fitted about 200–5500 nm (band from memory; warning outside).
+        The formula's range is 200–5000 nm (:data:`ALUMINA_MALITSONDODGE1972_BAND_NM`); warning outside.
     temperature_c : float or array [°C]
         Not used.
 
@@ -271,7 +277,9 @@ def alumina_index_MalitsonDodge1972(*, wavelength_nm, temperature_c=20.0) -> np.
     )
 
 
-PMMA_SULTANOVA2009_BAND_NM = (437.0, 1052.0)
+#: Sultanova et al. 2009 measured range as the refractiveindex.info database states it
+#: (Sultanova.yml under poly(methyl methacrylate): 0.4368–1.052 µm).
+PMMA_SULTANOVA2009_BAND_NM = (436.8, 1052.0)
 
 
 def pmma_index_Sultanova2009(*, wavelength_nm, temperature_c=20.0) -> np.ndarray:
@@ -282,7 +290,7 @@ def pmma_index_Sultanova2009(*, wavelength_nm, temperature_c=20.0) -> np.ndarray
     Parameters
     ----------
     wavelength_nm : float or array [nm]
-        Measured about 437–1052 nm (band from memory; warning outside).
+        Measured 436.8–1052 nm (:data:`PMMA_SULTANOVA2009_BAND_NM`); warning outside.
     temperature_c : float or array [°C]
         Not used.
 

@@ -103,7 +103,8 @@ def test_polystyrene_cauchy_terms_at_one_micron():
         ("polystyrene", 300.0, "370–1610"),
         ("silica", 5000.0, "210–3710"),
         ("rutile", 400.0, "430–1530"),
-        ("pmma", 1300.0, "437–1052"),
+        ("pmma", 1300.0, "436.8–1052"),  # Sultanova 2009 range (refractiveindex.info Sultanova.yml)
+        ("alumina", 5200.0, "200–5000"),  # Malitson & Dodge 1972 (refractiveindex.info Malitson-o.yml)
         ("water", 1200.0, "200–1100"),
     ],
 )
