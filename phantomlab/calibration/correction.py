@@ -116,6 +116,10 @@ class TopUp:
         })
 
 
+#: Weight of the small-addition preference of :func:`top_up`, per batch volume added.
+SMALL_ADDITION_WEIGHT = 1e-3
+
+
 def top_up(
     recipe,
     *,
@@ -187,6 +191,13 @@ def top_up(
         if use_s[w]:
             rows.append(np.concatenate([s[:, w] - t_musp[w], [-t_musp[w]]]) / (V0 * t_musp[w]))
             rhs.append((t_musp[w] - musp0[w]) / t_musp[w])
+    # A weak preference for small additions: without it, a stock plus diluent in the ratio of
+    # a whole new batch can fit the target as well as the few mL that correct this one
+    # (the rows are relative errors; 1e-3 per batch volume added is far below the noise of a
+    # measured fit for additions of a few % of the batch).
+    count = a.shape[0] + 1
+    rows.extend(np.eye(count) * SMALL_ADDITION_WEIGHT / V0)
+    rhs.extend([0.0] * count)
     A = np.array(rows)
     b = np.array(rhs)
     upper = np.inf if max_added_ml is None else float(max_added_ml)
