@@ -8,7 +8,10 @@ Each sub-command lives in a module of :mod:`phantomlab.commands` that defines
 * every :class:`~phantomlab.errors.PhantomlabWarning` raised while the command ran is
   collected into the ``warnings`` list of that object (and printed after the readable text);
 * an :class:`~phantomlab.errors.InputError` (or any ``ValueError`` raised on bad input) ends
-  the command with its one-line reason on stderr and exit status 2.
+  the command with its one-line reason on stderr and exit status 2; so does an option the
+  parser refuses (one line, no usage block);
+* Ctrl-C ends it with one line and exit status 130; commands write their files only once
+  their work is done (a temporary file renamed into place), so nothing is left half-written.
 """
 
 from __future__ import annotations
@@ -59,8 +62,19 @@ def add_json_option(parser: argparse.ArgumentParser) -> None:
     )
 
 
+class _OneLineParserError(Exception):
+    pass
+
+
+class _Parser(argparse.ArgumentParser):
+    """An argument parser whose refusals are one line (raised, printed by :func:`main`)."""
+
+    def error(self, message: str):  # noqa: D401 - argparse's hook
+        raise _OneLineParserError(f"{self.prog}: {message} (see {self.prog} --help)")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="phantomlab",
         description="Design, mix, log and correct tissue-simulating optical phantoms.",
     )
@@ -71,10 +85,6 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-class _OneLineParserError(Exception):
-    pass
-
-
 def _emit_error(message: str) -> int:
     print(f"phantomlab: error: {' '.join(str(message).split())}", file=sys.stderr)
     return 2
@@ -83,7 +93,10 @@ def _emit_error(message: str) -> int:
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the process exit status."""
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except _OneLineParserError as exc:
+        return _emit_error(str(exc))
     handler: Handler | None = getattr(args, "handler", None)
     if handler is None:
         parser.print_help(sys.stderr)
@@ -96,6 +109,9 @@ def main(argv: list[str] | None = None) -> int:
             return _emit_error(str(exc))
         except (ValueError, KeyError, FileNotFoundError, IsADirectoryError) as exc:
             return _emit_error(str(exc) or type(exc).__name__)
+        except KeyboardInterrupt:
+            print("phantomlab: interrupted; nothing was written", file=sys.stderr)
+            return 130
     collected = list(result.warnings)
     for item in caught:
         if issubclass(item.category, PhantomlabWarning):

@@ -24,6 +24,7 @@ from functools import lru_cache
 import numpy as np
 
 from phantomlab.errors import InputError
+from phantomlab.limits import check_limit
 
 __all__ = [
     "CANONICAL_UNITS",
@@ -60,6 +61,19 @@ CANONICAL_UNITS: dict[str, _Kind] = {
     "spatial_frequency": _Kind("1/mm", "1/mm, /mm, mm^-1, 1/cm"),
 }
 
+#: Longest quantity text read [characters]; a quantity is a number and a unit.
+MAX_QUANTITY_CHARS = 100
+
+# What a typed quantity may look like before pint sees it: one number, then a unit made of
+# unit words joined by spaces, '*', '·' or '/', each with at most a one-digit power
+# ('mm^-1', 'cm**2').  Nothing else reaches pint, so no arithmetic is evaluated
+# ('9**9**9 nm' is refused at once instead of being computed).
+_NUMBER = r"[-+]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d{1,3})?"
+_UNIT_FACTOR = r"°?[^\W\d]+(?:\s*(?:\^|\*\*)\s*[-+]?\d)?"
+_QUANTITY = re.compile(
+    rf"^\s*{_NUMBER}\s*(?:1\s*/\s*|/\s*)?{_UNIT_FACTOR}(?:\s*(?:[*/·]\s*|\s)\s*{_UNIT_FACTOR})*\s*$"
+)
+
 _LAB_FRACTION = re.compile(r"^\s*(?P<num>[-+0-9.eE]+)\s*(?P<pct>%)?\s*(?P<tag>w/v|v/v|w/w)\s*$")
 
 
@@ -93,7 +107,12 @@ def _parse_lab_fraction(text: str, kind: str) -> float:
     wanted = {"mass_concentration": "w/v", "volume_fraction": "v/v", "mass_fraction": "w/w"}
     if wanted.get(kind) != tag:
         raise _refuse(text, kind, f"'{tag}' is not a unit of this kind")
-    value = float(match.group("num"))
+    try:
+        value = float(match.group("num"))
+    except ValueError:
+        raise _refuse(text, kind, "cannot read the number") from None
+    if not math.isfinite(value):
+        raise _refuse(text, kind, "not a finite number")
     if match.group("pct"):
         value /= 100.0
     # w/v percent is grams per 100 mL: 2.5 % w/v = 0.025 g/mL.
@@ -128,6 +147,11 @@ def parse_quantity(text: str, kind: str) -> float:
     stripped = text.strip()
     if not stripped:
         raise _refuse(text, kind, "empty quantity")
+    if len(stripped) > MAX_QUANTITY_CHARS:
+        raise InputError(
+            f"a quantity of {len(stripped)} characters ({kind}); at most {MAX_QUANTITY_CHARS}: "
+            f"a number and a unit, e.g. 10 mL"
+        )
     if re.search(r"\b(w/v|v/v|w/w)\s*$", stripped):
         return _parse_lab_fraction(stripped, kind)
     if "%" in stripped:
@@ -140,8 +164,10 @@ def parse_quantity(text: str, kind: str) -> float:
         raise _refuse(text, kind, "no unit given")
     if kind in ("volume_fraction", "mass_fraction"):
         raise _refuse(text, kind, "not a fraction")
+    if not _QUANTITY.match(stripped):
+        raise _refuse(text, kind, "give a number and a unit (no arithmetic)")
     registry = _registry()
-    normalised = stripped.replace("^", "**").replace("°C", "degC").replace("µ", "u")
+    normalised = stripped.replace("^", "**").replace("°C", "degC").replace("µ", "u").replace("μ", "u")
     normalised = re.sub(r"^([-+0-9.eE]+)\s*/", r"\1 1/", normalised)
     try:
         quantity = registry.Quantity(normalised)
@@ -184,32 +210,44 @@ def parse_number_list(text: str, *, name: str = "list") -> np.ndarray:
     Returns
     -------
     numpy.ndarray of float
+
+    Raises
+    ------
+    InputError
+        Unreadable text, non-finite values, or more values than the ``list_values`` limit
+        (:mod:`phantomlab.limits`; counted before anything is built).
     """
     stripped = str(text).strip()
     if not stripped:
         raise InputError(f"{name}: empty list; give values as 650,750,850 or START:STOP:STEP")
+    shown = stripped if len(stripped) <= 40 else stripped[:37] + "..."
     try:
         if ":" in stripped:
             parts = [float(p) for p in stripped.split(":")]
             if len(parts) != 3:
                 raise ValueError
             start, stop, step = parts
+            if not all(math.isfinite(p) for p in parts):
+                raise InputError(f"{name}: {shown!r} holds a value that is not a finite number")
             if step <= 0 or stop < start:
                 raise InputError(
-                    f"{name}: {stripped!r} needs START <= STOP and STEP > 0 (START:STOP:STEP)"
+                    f"{name}: {shown!r} needs START <= STOP and STEP > 0 (START:STOP:STEP)"
                 )
-            count = int(math.floor((stop - start) / step + 1e-9)) + 1
-            values = start + step * np.arange(count)
+            count = math.floor((stop - start) / step + 1e-9) + 1 if math.isfinite((stop - start) / step) else math.inf
+            check_limit("list_values", count, given=f"{name} {shown}")
+            values = start + step * np.arange(int(count))
         else:
+            check_limit("list_values", stripped.count(",") + 1, given=f"{name} {shown}")
             values = np.array([float(p) for p in stripped.split(",") if p.strip() != ""])
     except InputError:
         raise
     except ValueError:
         raise InputError(
-            f"{name}: cannot read {stripped!r}; give values as 650,750,850 or START:STOP:STEP"
+            f"{name}: cannot read {shown!r}; give values as 650,750,850 or START:STOP:STEP"
         ) from None
     if values.size == 0 or not np.all(np.isfinite(values)):
-        raise InputError(f"{name}: {stripped!r} holds no finite numbers")
+        raise InputError(f"{name}: {shown!r} holds no finite numbers" if values.size == 0
+                         else f"{name}: {shown!r} holds a value that is not a finite number")
     return values
 
 

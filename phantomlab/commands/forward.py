@@ -17,6 +17,12 @@ are lists over the entries; spatially resolved results are lists (entries) of li
 ``--mus-per-mm`` with ``--g``; the slab and Monte Carlo kinds take ``--mus-per-mm`` with
 ``--g`` or ``--musp-per-mm`` with ``--g``.
 
+Sizes are bounded (:mod:`phantomlab.limits`): each list by ``list_values``, entries ×
+distances (or frequencies) by ``forward_points``, and the photons of a Monte Carlo run (all
+entries together) by ``mc_photons``.  A Monte Carlo run that lasts longer than two seconds
+shows its progress on stderr; Ctrl-C stops it between chunks of photons and prints nothing
+on stdout.
+
 Every reflectance is per unit power *incident* on the surface (DEVELOPERS.md, "Reflectance
 conventions"): ``reflectance_per_mm2`` of ``--kind srdr`` (diffusion, which includes the
 beam's entry loss 1 − R_specular) and of ``--kind mc --rho-mm`` (Monte Carlo) mean the same
@@ -26,12 +32,15 @@ thing and can be compared as they come; the JSON says so in ``reflectance_conven
 from __future__ import annotations
 
 import argparse
+import sys
+import time
 import warnings
 
 import numpy as np
 
 from phantomlab.cli import CommandResult, add_json_option
 from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.limits import check_limit
 from phantomlab.units import parse_number_list
 
 __all__ = ["register", "KINDS", "MODELS", "REFLECTANCE_CONVENTION"]
@@ -212,6 +221,7 @@ def _diffusion(args, model: str) -> CommandResult:
         if args.rho_mm is None:
             raise InputError("--kind srdr needs --rho-mm LIST (source-detector distances in mm)")
         rho = _list(args.rho_mm, "--rho-mm")
+        check_limit("forward_points", count * rho.size, given=f"{count} entries x {rho.size} distances")
         boundary = args.boundary or diffusion.DEFAULT_BOUNDARY[model]
         values = diffusion.srdr_reflectance(rho_mm=rho, model=model, boundary=boundary, **common)
         if model == "farrell1992":
@@ -223,6 +233,7 @@ def _diffusion(args, model: str) -> CommandResult:
         if args.fx_per_mm is None:
             raise InputError("--kind sfdi needs --fx-per-mm LIST (spatial frequencies in 1/mm)")
         fx = _list(args.fx_per_mm, "--fx-per-mm")
+        check_limit("forward_points", count * fx.size, given=f"{count} entries x {fx.size} frequencies")
         boundary = args.boundary or "groenhuis1983"
         values = diffusion.sfdi_reflectance(fx_per_mm=fx, boundary=boundary, model=model, **common)
         payload.update(boundary=boundary, fx_per_mm=fx, reflectance=np.reshape(values, (count, fx.size)))
@@ -328,10 +339,16 @@ def _monte_carlo(args, estimator: str) -> CommandResult:
         raise InputError("--kind mc takes clear slides only; --slide-mua-per-mm is for --kind slab")
     if args.photons is None:
         raise InputError("--kind mc needs --photons N (photons launched per entry)")
+    if args.photons < 1:
+        raise InputError(f"--photons must be a whole number >= 1, got {args.photons}")
+    check_limit("mc_photons", args.photons * count, given=f"--photons {args.photons} x {count} entries")
     thickness = None if args.thickness_mm is None else _number(args.thickness_mm, "--thickness-mm")
     rho = _list(args.rho_mm, "--rho-mm")
+    if rho is not None:
+        check_limit("forward_points", count * rho.size, given=f"{count} entries x {rho.size} distances")
     n_outside = _number(args.n_outside, "--n-outside")
     n_slide = _slide_pair(args)
+    shown = _Progress(total=args.photons * count)
     runs = [
         simulate(
             mua_per_mm=float(lists["mua"][k]),
@@ -346,9 +363,11 @@ def _monte_carlo(args, estimator: str) -> CommandResult:
             threads=args.threads,
             estimator=estimator,
             n_slide=n_slide,
+            progress=shown.entry(k, args.photons),
         )
         for k in range(count)
     ]
+    shown.close()
     payload = {
         "kind": "mc",
         "model": estimator,
@@ -391,6 +410,53 @@ def _monte_carlo(args, estimator: str) -> CommandResult:
         " (compilation excluded)"
     )
     return CommandResult(payload=payload, text=text)
+
+
+class _Progress:
+    """Progress of a Monte Carlo command on stderr, once it has run for two seconds.
+
+    On a terminal one line is rewritten in place (at most once a second); otherwise a line is
+    printed every ten per cent, or every minute.  stdout stays untouched (the ``--json`` contract).
+    """
+
+    def __init__(self, *, total: int, stream=None, after_s: float = 2.0) -> None:
+        self.total = max(int(total), 1)
+        self.stream = stream if stream is not None else sys.stderr
+        self.after_s = after_s
+        self.started = time.monotonic()
+        self.last_fraction = 0.0
+        self.shown_at = self.started
+        self.printed = False
+        self.tty = bool(getattr(self.stream, "isatty", lambda: False)())
+
+    def entry(self, index: int, photons: int):
+        def report(done: int, _total: int) -> None:
+            self.show(index * photons + done)
+
+        return report
+
+    def show(self, done: int) -> None:
+        now = time.monotonic()
+        elapsed = now - self.started
+        if elapsed < self.after_s:
+            return
+        fraction = done / self.total
+        if self.printed and fraction < 1.0:
+            if self.tty and now - self.shown_at < 1.0:
+                return
+            if not self.tty and fraction - self.last_fraction < 0.1 - 1e-9 and now - self.shown_at < 60.0:
+                return
+        left = elapsed * (1.0 - fraction) / fraction if fraction > 0 else float("nan")
+        line = (f"Monte Carlo: {100 * fraction:3.0f} % of {self.total:,} photons, {elapsed:.0f} s,"
+                f" about {left:.0f} s left (Ctrl-C stops)")
+        self.stream.write(("\r" + line) if self.tty else line + "\n")
+        self.stream.flush()
+        self.printed, self.last_fraction, self.shown_at = True, fraction, now
+
+    def close(self) -> None:
+        if self.printed and self.tty:
+            self.stream.write("\n")
+            self.stream.flush()
 
 
 # ---- readable output ------------------------------------------------------------------------

@@ -51,6 +51,12 @@ ESTIMATORS = ("weighted", "analog")
 GEOMETRIES = ("3d", "rod")
 #: Default number of independent batches (the standard errors come from their spread).
 DEFAULT_BATCHES = 32
+#: Photons of each batch run by one kernel call.  Between calls :func:`simulate` reports
+#: progress and Python acts on Ctrl-C (a numba kernel cannot be interrupted).  Every batch
+#: continues its own random stream across calls, and the chunking depends on the photon
+#: count only, never on threads, so results stay reproducible (up to 2^10 photons per batch
+#: a run is one call; beyond, the batch's absorbed tally is summed in 2^10-photon parts).
+CHUNK_PHOTONS_PER_BATCH = 1 << 10
 
 
 @dataclass(frozen=True, eq=False)  # holds arrays: identity equality
@@ -339,6 +345,7 @@ def simulate(
     batches=DEFAULT_BATCHES,
     roulette_threshold=_kernels.ROULETTE_THRESHOLD,
     roulette_survival=_kernels.ROULETTE_SURVIVAL,
+    progress=None,
 ) -> MonteCarloResult:
     """Monte Carlo reflectance, transmittance and absorption of a pencil beam.
 
@@ -396,6 +403,10 @@ def simulate(
         weight, in [0, 1) (any value is unbiased; it trades variance for time).
     roulette_survival : float, default 0.1
         Weighted estimator: the survival probability of a roulette game, in (0, 1].
+    progress : callable or None
+        Called as ``progress(done, photons)`` after every chunk of at most
+        :data:`CHUNK_PHOTONS_PER_BATCH` photons per batch (photons done so far, launched in
+        all); Ctrl-C (KeyboardInterrupt) stops the run between chunks and nothing is returned.
 
     Returns
     -------
@@ -463,10 +474,17 @@ def simulate(
         previous_threads = numba.get_num_threads()
         numba.set_num_threads(threads)
         try:
-            seconds = _launch(geometry, counts, states, mua, mus, g, backscatter, n, n_outside,
-                              slide_top, slide_bottom, depth, analog, launch_weight,
-                              roulette_threshold, roulette_survival, kernel_edges, tallies,
-                              rho_weights, batches)
+            seconds = 0.0
+            remaining = counts.copy()
+            while remaining.any():
+                chunk = np.minimum(remaining, CHUNK_PHOTONS_PER_BATCH)
+                seconds += _launch(geometry, chunk, states, mua, mus, g, backscatter, n, n_outside,
+                                   slide_top, slide_bottom, depth, analog, launch_weight,
+                                   roulette_threshold, roulette_survival, kernel_edges, tallies,
+                                   rho_weights, batches)
+                remaining -= chunk
+                if progress is not None:
+                    progress(int(photons - remaining.sum()), photons)
         finally:
             numba.set_num_threads(previous_threads)
 
