@@ -22,7 +22,6 @@ from __future__ import annotations
 import csv
 import io
 import math
-import tomllib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Mapping, Sequence
@@ -30,6 +29,8 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 
 from phantomlab.errors import InputError
+from phantomlab.inputs import contained_path, parse_date, parse_toml, read_text_file
+from phantomlab.limits import check_limit
 from phantomlab.units import parse_quantity
 
 __all__ = [
@@ -213,27 +214,28 @@ def _number(cell: str, *, where: str, column: str) -> float:
         value = float(text)
     except ValueError:
         raise InputError(
-            f"{where}, column {column}: {text!r} is not a number "
+            f"{where}, column {column}: not a number "
             f"(cells hold bare numbers in the unit the header names)"
         ) from None
     if not math.isfinite(value):
-        raise InputError(f"{where}, column {column}: {text!r} is not a finite number")
+        raise InputError(f"{where}, column {column}: not a finite number")
     return value
 
 
 def _check_header(header: list[str], kind: str, name: str) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    # A header cell that is not one of ours is named by its position, never quoted back.
     seen = set()
-    for column in header:
+    for position, column in enumerate(header, start=1):
         if column in seen:
-            raise InputError(f"{name}: header, column {column}: appears twice")
+            raise InputError(f"{name}: header, column {position}: repeats an earlier column name")
         seen.add(column)
-    for column in header:
+    for position, column in enumerate(header, start=1):
         for stem, canonical in _UNIT_STEMS.items():
             if column != canonical and column.startswith(stem + "_") and column not in (
                 "reflectance_relative",
             ) and not column.startswith("mua_sd") and not column.startswith("musp_sd"):
                 raise InputError(
-                    f"{name}: header, column {column}: unit not accepted; "
+                    f"{name}: header, column {position} ({stem}_...): unit not accepted; "
                     f"this column must be {canonical}"
                 )
     axis = KINDS[kind]
@@ -262,10 +264,10 @@ def _check_header(header: list[str], kind: str, name: str) -> tuple[tuple[str, .
             f"{','.join(_SD_COLUMNS[kind][: len(values)])}; give all SD columns or none"
         )
     known = set(required) | set(values) | set(_SD_COLUMNS[kind])
-    for column in header:
+    for position, column in enumerate(header, start=1):
         if column not in known:
             raise InputError(
-                f"{name}: header, column {column}: not a column of a {kind} file ({_layout(kind)})"
+                f"{name}: header, column {position}: not a column of a {kind} file ({_layout(kind)})"
             )
     return values, sds
 
@@ -304,6 +306,9 @@ def parse_measurement_text(
     """
     _check_kind(kind)
     metadata = metadata or MeasurementMetadata()
+    check_limit("file_mb", len(text) / 1e6, given=f"measurement {name!r}")
+    if text.startswith("\ufeff"):  # a byte-order mark (spreadsheet export)
+        text = text[1:]
     lines = text.splitlines()
     source = None
     body_start = 0
@@ -464,9 +469,10 @@ def metadata_from_mapping(
         if not isinstance(table["specular_included"], bool):
             raise InputError(f"{where}: specular_included = {table['specular_included']!r}; accepted: true or false")
         kwargs["specular_included"] = table["specular_included"]
-    for key in ("instrument", "date"):
-        if key in table and table[key] is not None:
-            kwargs[key] = str(table[key])
+    if "instrument" in table and table["instrument"] is not None:
+        kwargs["instrument"] = str(table["instrument"])
+    if "date" in table and table["date"] is not None:  # a date, never silently today
+        kwargs["date"] = parse_date(table["date"], name=f"{where}: date", not_after_today=True).isoformat()
     if table.get("reference") is not None:
         kwargs["reference"] = _reference_from_table(table["reference"], where=where, base_dir=base_dir, kind=kind)
     for key in ("probe", "operator", "notes", "phantom_age_days", "temperature_c"):
@@ -508,15 +514,14 @@ def _reference_from_table(table, *, where: str, base_dir: Path | None, kind: str
             sds[key] = np.zeros(size)
     reading = None
     if "reading_csv" in table:
-        path = Path(str(table["reading_csv"]))
-        if base_dir is not None and not path.is_absolute():
-            path = base_dir / path
+        if base_dir is None:  # text handed over (an upload): no folder to read a file from
+            raise InputError(f"{where_ref}: reading_csv is read only beside a measurement file on disk; "
+                             "here the measurement came as text (an upload)")
         if kind is None:
             raise InputError(f"{where_ref}: reading_csv needs the measurement kind")
-        if not path.is_file():
-            raise InputError(f"{where_ref}: reading_csv file {str(path)!r} not found")
+        path = contained_path(table["reading_csv"], base_dir=base_dir, what=f"{where_ref}: reading_csv")
         reading = parse_measurement_text(
-            path.read_text(encoding="utf-8"), kind=kind, name=path.name,
+            read_text_file(path, what=f"{where_ref}: reading_csv file"), kind=kind, name=path.name,
             metadata=MeasurementMetadata(reference=_PLACEHOLDER_REFERENCE),
         )
         if reading.scale != "raw":
@@ -541,10 +546,7 @@ def read_sidecar(csv_path: Path, *, kind: str | None = None) -> dict[str, Any]:
     sidecar = Path(csv_path).with_suffix(".toml")
     if not sidecar.is_file():
         return {}
-    try:
-        return tomllib.loads(sidecar.read_text(encoding="utf-8"))
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"{sidecar.name}: not valid TOML ({exc})") from None
+    return parse_toml(read_text_file(sidecar, what="measurement metadata file"), what=sidecar.name)
 
 
 def read_measurement(path_or_text, *, kind: str, **options) -> Measurement:
@@ -571,9 +573,7 @@ def read_measurement(path_or_text, *, kind: str, **options) -> Measurement:
     sidecar_given = options.pop("sidecar", None)
     if isinstance(path_or_text, Path) or ("\n" not in str(path_or_text)):
         path = Path(path_or_text)
-        if not path.is_file():
-            raise InputError(f"measurement file {str(path)!r} not found")
-        text = path.read_text(encoding="utf-8")
+        text = read_text_file(path, what="measurement file")
         name = path.name
         base_dir = path.parent
         table = dict(sidecar_given) if sidecar_given is not None else read_sidecar(path, kind=kind)

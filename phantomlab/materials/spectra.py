@@ -26,6 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.inputs import read_text_file
 from phantomlab.units import LN10
 
 __all__ = [
@@ -88,16 +89,12 @@ def read_csv_table(path, *, required: tuple[str, ...], optional: tuple[str, ...]
     Raises
     ------
     InputError
-        Missing file, missing or unknown columns, non-numeric or non-finite cells, fewer
-        than two rows.
+        Missing file, a file past the ``file_mb`` limit or not UTF-8 text, missing or
+        unknown columns, non-numeric or non-finite cells, fewer than two rows.  The message
+        names rows and expected columns, never what the file holds.
     """
     file = Path(path)
-    if not file.is_file():
-        raise InputError(f"{context}: file {str(file)!r} not found")
-    try:
-        text = file.read_text(encoding="utf-8-sig")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"{context}: cannot read {str(file)!r} ({exc})") from None
+    text = read_text_file(file, what=f"{context}: file")
     lines = [line for line in text.splitlines() if line.strip()]
     source = None
     body = []
@@ -119,8 +116,9 @@ def read_csv_table(path, *, required: tuple[str, ...], optional: tuple[str, ...]
         what = []
         if missing:
             what.append(f"missing column(s) {', '.join(missing)}")
-        if unknown:
-            what.append(f"unknown column(s) {', '.join(unknown)}")
+        if unknown:  # by position: a header that is not ours is not quoted back
+            positions = ", ".join(str(header.index(c) + 1) for c in unknown[:5])
+            what.append(f"unknown column(s) (number {positions})")
         raise InputError(f"{context}: {str(file)!r} has {'; '.join(what)}; expected columns {expected}")
     if len(set(header)) != len(header):
         raise InputError(f"{context}: {str(file)!r} repeats a column name; expected columns {expected}")
@@ -138,7 +136,7 @@ def read_csv_table(path, *, required: tuple[str, ...], optional: tuple[str, ...]
                 value = float(cell)
             except ValueError:
                 raise InputError(
-                    f"{context}: {str(file)!r} data row {number - 1}, column {name}: {cell.strip()!r} is not a number"
+                    f"{context}: {str(file)!r} data row {number - 1}, column {name}: not a number"
                 ) from None
             if not math.isfinite(value):
                 raise InputError(

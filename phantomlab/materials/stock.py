@@ -41,7 +41,6 @@ import dataclasses
 import datetime as _dt
 import difflib
 import math
-import tomllib
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -518,10 +517,12 @@ def _get_material(table, key, name="material", *, default=None, required=True):
 
 
 def _get_csv(table, key, name, base: Path, *, required, optional=()):
+    from phantomlab.inputs import contained_path  # layer 0
+
     path_text = _get_string(table, key, name, required=True)
-    path = Path(path_text)
-    if not path.is_absolute():
-        path = base / path
+    # only inside the stock file's folder tree (or PHANTOMLAB_DATA_DIRS): a stock file
+    # cannot make phantomlab read any file on the machine
+    path = contained_path(path_text, base_dir=base, what=f"stock {key}, field {name}")
     return read_csv_table(path, required=required, optional=optional, context=f"stock {key}, field {name}")
 
 
@@ -950,13 +951,8 @@ def load_shelf(path) -> Shelf:
         fields (with the nearest valid name), impossible values, missing CSV files, CSV
         files with bad columns, TOML syntax errors.
     """
+    from phantomlab.inputs import parse_toml, read_text_file  # layer 0: size limit, BOM
+
     file = Path(path)
-    if not file.is_file():
-        raise InputError(f"stock file {str(file)!r} not found")
-    try:
-        document = tomllib.loads(file.read_text(encoding="utf-8"))
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"stock file {str(file)!r} is not valid TOML: {exc}") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read stock file {str(file)!r}: {exc}") from None
+    document = parse_toml(read_text_file(file, what="stock file"), what=f"stock file {str(file)!r}")
     return parse_shelf(document, base=file.resolve().parent, path=file)

@@ -25,12 +25,12 @@ from __future__ import annotations
 
 import hashlib
 import math
-import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 from phantomlab.errors import InputError
+from phantomlab.inputs import contained_path, decode_text, parse_toml, read_bytes_file
 from phantomlab.recipe.limits import Limits, parse_limits
 from phantomlab.recipe.preparation import Preparation, parse_preparation
 from phantomlab.recipe.targets import Target, parse_target
@@ -127,13 +127,8 @@ def load_recipe(path) -> Recipe:
         (with the shelf's keys), bad target, limits or preparation.
     """
     path = Path(path)
-    if not path.is_file():
-        raise InputError(f"recipe file {str(path)!r} not found")
-    raw = path.read_bytes()
-    try:
-        definition = tomllib.loads(raw.decode("utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise InputError(f"recipe {path.name}: not valid TOML ({exc})") from None
+    raw = read_bytes_file(path, what="recipe file")
+    definition = parse_toml(decode_text(raw, what="recipe file", name=path.name), what=f"recipe {path.name}")
     return parse_recipe(definition, base_dir=path.parent, path=path, raw=raw)
 
 
@@ -216,7 +211,8 @@ def parse_recipe(definition: dict, *, base_dir: Path, path: Path | None = None,
                          f"{', '.join(repr(k) for k in PACKING_MODELS)}")
     digest = hashlib.sha256(raw if raw is not None else repr(sorted(definition.items())).encode())
     if isinstance(target_table, dict) and "spectrum_csv" in target_table:
-        digest.update((base_dir / str(target_table["spectrum_csv"])).read_bytes())
+        digest.update(read_bytes_file(contained_path(target_table["spectrum_csv"], base_dir=base_dir,
+                                                     what="target: spectrum_csv"), what="target: spectrum file"))
     return Recipe(
         name=name,
         version=version,

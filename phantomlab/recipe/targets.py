@@ -18,6 +18,7 @@ name says; a list entry may instead be a typed quantity such as ``"0.1 /cm"``.
 from __future__ import annotations
 
 import csv
+import io
 import math
 import warnings
 from dataclasses import dataclass
@@ -27,6 +28,8 @@ from typing import Any
 import numpy as np
 
 from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.inputs import contained_path, read_text_file
+from phantomlab.limits import check_limit
 from phantomlab.units import parse_quantity
 
 __all__ = ["Target", "parse_target", "read_target_csv"]
@@ -128,6 +131,7 @@ def _number_list(values: Any, *, field: str, kind: str) -> np.ndarray:
         values = [values]
     if not isinstance(values, list):
         raise InputError(f"target: {field} must be a list of numbers, got {values!r}")
+    check_limit("list_values", len(values), given=f"target: {field}")
     out = []
     for item in values:
         if isinstance(item, bool):
@@ -148,8 +152,8 @@ def _positive_scalar(table: dict, key: str, default: float, *, percent: bool = F
     if key not in table:
         return default
     value = table[key]
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not value > 0:
-        raise InputError(f"target: {key} must be a number > 0, got {value!r}")
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value < math.inf:
+        raise InputError(f"target: {key} must be a finite number > 0, got {value!r}")
     return float(value) / 100.0 if percent else float(value)
 
 
@@ -157,28 +161,30 @@ def read_target_csv(path: Path) -> dict[str, np.ndarray]:
     """Read a target spectrum file: ``wavelength_nm,mua_per_mm,musp_per_mm[,g]``.
 
     Lines starting with ``#`` are comments (``# source: ...``); an empty cell is NaN (not
-    targeted at that wavelength).
+    targeted at that wavelength).  The file is read within the ``file_mb`` limit, with or
+    without a byte-order mark; a refusal names rows and expected columns, never the file's
+    content.
     """
     path = Path(path)
-    if not path.is_file():
-        raise InputError(f"target: spectrum file {str(path)!r} not found")
-    with path.open(newline="", encoding="utf-8") as handle:
-        rows = [row for row in csv.reader(handle) if row and not row[0].lstrip().startswith("#")]
+    text = read_text_file(path, what="target: spectrum file")
+    rows = [row for row in csv.reader(io.StringIO(text, newline=""))
+            if row and not row[0].lstrip().startswith("#")]
     if not rows:
         raise InputError(f"target: spectrum file {path.name!r} is empty")
     header = [h.strip() for h in rows[0]]
     if "wavelength_nm" not in header or not ({"mua_per_mm", "musp_per_mm"} & set(header)):
         raise InputError(
-            f"target: {path.name!r} header {','.join(header)!r} needs wavelength_nm and "
+            f"target: {path.name!r} header needs wavelength_nm and "
             "mua_per_mm and/or musp_per_mm (optional g)"
         )
     allowed = {"wavelength_nm", "mua_per_mm", "musp_per_mm", "g"}
     extra = [h for h in header if h not in allowed]
-    if extra:
+    if extra or len(set(header)) != len(header):
         raise InputError(
-            f"target: {path.name!r} has unknown column {extra[0]!r}; accepted: "
-            "wavelength_nm, mua_per_mm, musp_per_mm, g"
+            f"target: {path.name!r} header column {header.index(extra[0]) + 1 if extra else len(header)} "
+            "is unknown or repeated; accepted: wavelength_nm, mua_per_mm, musp_per_mm, g"
         )
+    check_limit("list_values", len(rows) - 1, given=f"target: {path.name!r} rows")
     columns: dict[str, list[float]] = {h: [] for h in header}
     for number, row in enumerate(rows[1:], start=2):
         if len(row) != len(header):
@@ -188,7 +194,7 @@ def read_target_csv(path: Path) -> dict[str, np.ndarray]:
             try:
                 columns[name].append(float(cell) if cell else math.nan)
             except ValueError:
-                raise InputError(f"target: {path.name!r} row {number}: {cell!r} is not a number") from None
+                raise InputError(f"target: {path.name!r} row {number}, column {name}: not a number") from None
     return {name: np.asarray(values, dtype=float) for name, values in columns.items()}
 
 
@@ -238,7 +244,8 @@ def parse_target(table: Any, *, base_dir: Path) -> Target:
         clash = {"wavelength_nm", "mua_per_mm", "musp_per_mm", "musp_power_law"} & set(table)
         if clash:
             raise InputError(f"target: give spectrum_csv or {sorted(clash)[0]}, not both")
-        columns = read_target_csv(Path(base_dir) / str(table["spectrum_csv"]))
+        columns = read_target_csv(contained_path(table["spectrum_csv"], base_dir=base_dir,
+                                                 what="target: spectrum_csv"))
         wavelength = columns["wavelength_nm"]
         nan = np.full(wavelength.shape, np.nan)
         mua = columns.get("mua_per_mm", nan)
@@ -357,9 +364,14 @@ def _power_law(spec: Any, wavelength: np.ndarray) -> np.ndarray:
         raise InputError(f"target: musp_power_law needs {missing.args[0]}") from None
     except (TypeError, ValueError):
         raise InputError("target: musp_power_law values must be numbers") from None
-    if not a > 0 or not reference > 0 or not math.isfinite(b):
-        raise InputError("target: musp_power_law needs a_per_mm > 0, reference_nm > 0 and a finite b")
-    return a * (wavelength / reference) ** (-b)  # Jacques 2013, eq. 1
+    if not 0 < a < math.inf or not 0 < reference < math.inf or not math.isfinite(b):
+        raise InputError("target: musp_power_law needs finite a_per_mm > 0, reference_nm > 0 and b")
+    with np.errstate(over="ignore"):
+        musp = a * (wavelength / reference) ** (-b)  # Jacques 2013, eq. 1
+    if not np.all(np.isfinite(musp)):
+        raise InputError(f"target: musp_power_law with b = {b:g} overflows at these wavelengths; "
+                         "give a smaller |b|")
+    return musp
 
 
 def _merge_g(wavelength, mua, musp, g_values, g_wavelength, g_points):

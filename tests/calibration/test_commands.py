@@ -49,7 +49,7 @@ def test_fit_readable_output_and_power_law(lab, tmp_path, capsys):
 
 @pytest.mark.parametrize("content, words", [
     ("wavelength_nm,rho_mm,reflectance_per_mm2\n650,1,x\n", "row 1 (file line 2), column reflectance_per_mm2"),
-    ("wavelength_nm,rho_cm,reflectance_per_mm2\n650,1,0.1\n", "column rho_cm: unit not accepted"),
+    ("wavelength_nm,rho_cm,reflectance_per_mm2\n650,1,0.1\n", "column 2 (rho_...): unit not accepted; this column must be rho_mm"),
 ])
 def test_fit_bad_file_one_line_exit_2(tmp_path, capsys, content, words):
     path = tmp_path / "bad.csv"

@@ -104,9 +104,9 @@ def test_csv_reader(tmp_path):
 @pytest.mark.parametrize(
     "text, message",
     [
-        ("wavelength_nm,mu\n600,1\n700,2\n", "missing column.*mua_per_mm.*unknown column.*mu;"),
+        ("wavelength_nm,mu\n600,1\n700,2\n", r"missing column.*mua_per_mm.*unknown column\(s\) \(number 2\);"),
         ("wavelength_nm\n600\n700\n", r"missing column\(s\) mua_per_mm"),
-        ("wavelength_nm,mua_per_mm\n600,one\n700,2\n", "data row 1, column mua_per_mm: 'one' is not a number"),
+        ("wavelength_nm,mua_per_mm\n600,one\n700,2\n", "data row 1, column mua_per_mm: not a number"),
         ("wavelength_nm,mua_per_mm\n600,1\n", "at least two data rows"),
         ("wavelength_nm,mua_per_mm\n600,1\n700\n", "data row 2 has 1 cells"),
         ("# source: x\n", "is empty"),

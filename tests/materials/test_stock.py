@@ -214,7 +214,7 @@ BAD_CASES = [
     (("solids_percent_w_v = 2.5", "solids_percent_w_v = 2.5\nsolids_percent_w_w = 2.5"), "stock ps1000, field solids_percent_w_w: give the strength once"),
     # missing CSV, CSV with bad columns
     (('spectrum_csv = "dye.csv"', 'spectrum_csv = "nope.csv"'), "stock dye, field spectrum_csv: file '.*nope.csv' not found"),
-    (('spectrum_csv = "dye.csv"', 'spectrum_csv = "badcols.csv"'), "stock dye, field spectrum_csv: '.*badcols.csv' has unknown column\\(s\\) absorbance; expected columns wavelength_nm\\[,mua_per_mm\\]"),
+    (('spectrum_csv = "dye.csv"', 'spectrum_csv = "badcols.csv"'), "stock dye, field spectrum_csv: '.*badcols.csv' has unknown column\\(s\\) \\(number 2\\); expected columns wavelength_nm\\[,mua_per_mm\\]"),
     (('spectrum_csv = "dye.csv"', 'spectrum_csv = "decreasing.csv"'), "stock dye, field spectrum_csv: '.*decreasing.csv': wavelength_nm must increase strictly"),
     (('spectrum_csv = "dye.csv"', 'spectrum_csv = "dye.csv"\ncuvette_csv = "dye.csv"'), "stock dye, field cuvette_csv: give one of spectrum_csv, extinction_csv, cuvette_csv"),
     # water sources and solvents
@@ -289,7 +289,7 @@ def test_cuvette_absorber_needs_path(tmp_path):
 @pytest.mark.parametrize(
     "text, message",
     [
-        ("[stocks.a\nkind=1", "is not valid TOML"),
+        ("[stocks.a\nkind=1", "not valid TOML"),
         ("[shelf]\nname = 'x'\n", "no stocks; expected one table \\[stocks.KEY\\]"),
         ("[stock.water]\nkind = 'matrix'\n", "unknown top-level entry 'stock' \\(did you mean 'stocks'\\?\\)"),
         ("[stocks]\nwater = 3\n", "stock water: expected a table \\[stocks.water\\]"),
