@@ -29,11 +29,13 @@ __all__ = [
     "ABSOLUTE_ZERO_C",
     "MAX_TEMPERATURE_C",
     "DATA_DIRS_VARIABLE",
+    "regular_file",
     "read_text_file",
     "read_bytes_file",
     "decode_text",
     "parse_toml",
     "contained_path",
+    "trust_folder",
     "check_temperature_c",
     "check_finite",
     "parse_date",
@@ -51,7 +53,8 @@ DATA_DIRS_VARIABLE = "PHANTOMLAB_DATA_DIRS"
 _BOM = "\ufeff"
 
 
-def _regular_file(path, what: str) -> Path:
+def regular_file(path, *, what: str) -> Path:
+    """A path that names an existing regular file (no folder, device or pipe), else one line."""
     file = Path(path)
     try:
         info = file.stat()
@@ -80,7 +83,7 @@ def read_bytes_file(path, *, what: str, limit_name: str = "file_mb") -> bytes:
     limit_name : str
         A size limit of :mod:`phantomlab.limits` in MB.
     """
-    file = _regular_file(path, what)
+    file = regular_file(path, what=what)
     allowed = limit(limit_name) * 1_000_000
     check_limit(limit_name, file.stat().st_size / 1e6, given=f"{what} {file.name!r}")
     try:
@@ -128,9 +131,26 @@ def parse_toml(text: str, *, what: str) -> dict:
         raise InputError(f"{what}: not valid TOML (nested too deeply)") from None
 
 
+#: Folders phantomlab itself fills with data files (see :func:`trust_folder`).
+_TRUSTED_FOLDERS: set[Path] = set()
+
+
+def trust_folder(folder) -> None:
+    """Let stock files name data files in ``folder``, one phantomlab writes itself.
+
+    The page and the batch log write the CSV contents a stock snapshot carries back to files
+    in a folder of their own (:func:`phantomlab.shelf_export.materialise_resolved`); those
+    files are numbers phantomlab wrote, not files a person named, so they may be read from
+    there whatever folder the stock file lies in.  Symbolic links are still followed and
+    refused when they lead elsewhere.
+    """
+    _TRUSTED_FOLDERS.add(Path(folder).resolve())
+
+
 def _allowed_folders() -> list[Path]:
     text = os.environ.get(DATA_DIRS_VARIABLE, "")
-    return [Path(part).expanduser().resolve() for part in text.split(os.pathsep) if part.strip()]
+    named = [Path(part).expanduser().resolve() for part in text.split(os.pathsep) if part.strip()]
+    return named + sorted(_TRUSTED_FOLDERS)
 
 
 def contained_path(path_text, *, base_dir, what: str) -> Path:

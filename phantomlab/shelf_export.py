@@ -17,17 +17,18 @@ from __future__ import annotations
 import datetime as _dt
 import hashlib
 import os
+import re
 import shutil
 import tempfile
-import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
 from phantomlab.errors import InputError
+from phantomlab.inputs import contained_path, parse_toml, read_text_file, trust_folder
 from phantomlab.jsonable import to_jsonable
 
 __all__ = ["PAGE_STOCK_SOURCE", "CSV_FIELDS", "page_stock_rows", "materialise_resolved", "shelf_document",
-           "export_shelf", "ShelfExport"]
+           "export_shelf", "file_stem", "ShelfExport"]
 
 #: ``shelf_path`` of the stock-lot records added or edited on the page (not from a file).
 PAGE_STOCK_SOURCE = "added on the page"
@@ -38,10 +39,21 @@ CSV_FIELDS = ("spectrum_csv", "extinction_csv", "cuvette_csv", "size_histogram_c
 
 def shelf_document(path) -> dict:
     """The stock file as a TOML document (one line naming the file when it cannot be read)."""
-    try:
-        return tomllib.loads(Path(path).read_text(encoding="utf-8"))
-    except (OSError, tomllib.TOMLDecodeError) as exc:
-        raise InputError(f"cannot read the stock file {str(path)!r}: {exc}") from None
+    return parse_toml(read_text_file(path, what="stock file"), what=f"the stock file {str(path)!r}")
+
+
+def file_stem(key: str) -> str:
+    """A file-name part made from a stock key: letters, digits, ``-`` and ``_`` only.
+
+    A key is text from a stock file or the page; as a file name it could hold ``/`` or
+    ``..`` and write outside its folder.  A key that had to be changed keeps a short hash of
+    itself, so two keys never share a file name.
+    """
+    text = str(key)
+    safe = re.sub(r"[^A-Za-z0-9_-]", "_", text)[:48].strip("_-") or "stock"
+    if safe != text:
+        safe += "-" + hashlib.sha256(text.encode("utf-8")).hexdigest()[:8]
+    return safe
 
 
 def page_stock_rows(store) -> list:
@@ -58,12 +70,14 @@ def page_stock_rows(store) -> list:
     return sorted(rows, key=lambda row: (row.recorded_at, row.id))
 
 
-def materialise_resolved(key: str, table: dict, folder: Path, *, relative_to: Path | None = None) -> dict:
+def materialise_resolved(key: str, table: dict, folder: Path, *, relative_to: Path | None = None,
+                         trust: bool = True) -> dict:
     """Write the CSV contents a stock snapshot carries back to files the stock parser reads.
 
     A snapshot's ``resolved`` table holds, per CSV field, the columns of the file it named.
     Each is written once into ``folder``, named by the hash of its content; the field then
-    names that file (relative to ``relative_to`` when given, else absolute).
+    names that file (relative to ``relative_to`` when given, else absolute).  With ``trust``
+    the folder is one stock files anywhere may take data from (:func:`phantomlab.inputs.trust_folder`).
     """
     table = dict(table)
     resolved = table.pop("resolved", None) or {}
@@ -78,7 +92,9 @@ def materialise_resolved(key: str, table: dict, folder: Path, *, relative_to: Pa
         text = "\n".join(lines) + "\n"
         digest = hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
         folder.mkdir(parents=True, exist_ok=True)
-        target = folder / f"{key}-{field_name}-{digest}.csv"
+        if trust:
+            trust_folder(folder)  # files phantomlab writes from the snapshot, readable from any stock file
+        target = folder / f"{file_stem(key)}-{field_name}-{digest}.csv"
         if not target.exists():
             target.write_text(text, encoding="utf-8")
         table[field_name] = str(target.relative_to(relative_to)) if relative_to is not None else str(target)
@@ -160,18 +176,19 @@ def export_shelf(store, shelf_path, out_path, *, force: bool = False) -> ShelfEx
         for key, table in stocks.items():  # the stock file's own CSV files, copied beside the export
             for name in CSV_FIELDS:
                 if name in table:
-                    source = (shelf_path.parent / str(table[name])).resolve()
+                    source = contained_path(table[name], base_dir=shelf_path.resolve().parent,
+                                            what=f"stock {key}, field {name}")
                     if not source.is_file():
                         raise InputError(f"stock {key}, field {name}: file {str(table[name])!r} not found "
                                          f"beside {shelf_path}")
                     staged_files.mkdir(parents=True, exist_ok=True)
-                    copy = staged_files / f"{key}-{source.name}"
+                    copy = staged_files / f"{file_stem(key)}-{file_stem(source.stem)}{source.suffix[:8]}"
                     shutil.copyfile(source, copy)
                     table[name] = f"{files_folder.name}/{copy.name}"
         from_page = []
         for row in page_stock_rows(store):
             stocks[row.stock_key] = materialise_resolved(row.stock_key, dict(row.definition), staged_files,
-                                                         relative_to=staging)
+                                                         relative_to=staging, trust=False)
             from_page.append((row.stock_key, int(row.version)))
         document = dict(document)
         document["stocks"] = stocks

@@ -35,7 +35,6 @@ import csv
 import datetime as _dt
 import io
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping, Sequence
@@ -43,7 +42,9 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 
 from phantomlab.errors import InputError
+from phantomlab.inputs import check_finite, check_temperature_c, decode_text, parse_date, parse_toml
 from phantomlab.jsonable import to_jsonable
+from phantomlab.outputs import check_writable_folder, write_text_atomically
 
 __all__ = [
     "METHOD",
@@ -91,8 +92,9 @@ def parse_amounts_csv(text: str, *, source: str = "amounts file") -> list[dict[s
     accepted = {"stock", "volume_ml", "mass_g", "dilution_factor"}
     wrong = [h for h in header if h not in accepted]
     if wrong or "stock" not in header or not ({"volume_ml", "mass_g"} & set(header)):
-        raise InputError(
-            f"{source}: columns {','.join(header)} not accepted (amounts in mL or g only); "
+        where = f" (column {header.index(wrong[0]) + 1})" if wrong else ""
+        raise InputError(  # the header is not quoted back: it may not be an amounts file at all
+            f"{source}: header not accepted{where} (amounts in mL or g only); "
             "accepted: stock,volume_ml or stock,mass_g [,dilution_factor]"
         )
     rows: list[dict[str, Any]] = []
@@ -125,9 +127,9 @@ def _non_negative(text: str, *, where: str) -> float:
     try:
         value = float(text)
     except ValueError:
-        raise InputError(f"{where}: {text!r} is not a number (give the bare number in the column's unit)") from None
+        raise InputError(f"{where}: not a number (give the bare number in the column's unit)") from None
     if not (math.isfinite(value) and value >= 0):
-        raise InputError(f"{where}: {text!r} must be a finite number >= 0")
+        raise InputError(f"{where}: must be a finite number >= 0")
     return value
 
 
@@ -253,8 +255,10 @@ def record_planned_batch(
         Per stock key, the ``shelf_path`` to record with its lot snapshot (where the
         definition came from); default: the recipe's stock file.
     sheet_path : path, optional
-        Also write the sheet (HTML, with the batch ID) there, inside the transaction: a sheet
-        that cannot be written records nothing.
+        Also write the sheet (HTML, with the batch ID) there.  Its folder is checked before
+        anything is recorded; the file is written only after the commit, through a temporary
+        file renamed into place, so a run killed at any moment never leaves a sheet naming a
+        batch ID that was not recorded (the ID would go to the next batch).
 
     Returns
     -------
@@ -275,6 +279,8 @@ def record_planned_batch(
     shelf_path = str(getattr(recipe.shelf, "path", "") or "") or None
     sources = dict(lot_sources or {})
     target = Path(sheet_path) if sheet_path is not None else None
+    if target is not None:
+        check_writable_folder(target, what="sheet")
     with store.transaction() as session:
         states = latest_potency_states(session, shelf=recipe.shelf)
         lots = {
@@ -302,16 +308,17 @@ def record_planned_batch(
             matrix_details={"matrix": recipe.matrix_key, "lot": recipe.matrix.lot,
                             "preparation": plan_json.get("preparation")},
         )
-        if target is not None:
-            try:
-                target.write_text(sheet_html, encoding="utf-8")
-            except OSError as exc:
-                raise InputError(f"sheet: cannot write {str(target)!r} ({exc.strerror or exc})") from None
         status = batch.status
         lot_names = {key: lot.lot for key, lot in lots.items()}
         today = _dt.date.today()
         expired = [{"stock": key, "lot": lot.lot, "expiry": lot.expiry} for key, lot in lots.items()
                    if lot.expiry is not None and lot.expiry < today]
+    if target is not None:  # after the commit: the batch ID on the sheet is recorded
+        try:
+            write_text_atomically(target, sheet_html, what="sheet")
+        except InputError as exc:
+            raise InputError(f"batch {code} is recorded, but its sheet was not written ({exc}); the sheet "
+                             "is stored with the batch (the page's batch log offers it)") from None
     unsaid = [f"{item['stock']}: lot {item['lot'] or '(none)'} expired on {item['expiry'].isoformat()}"
               for item in expired
               if not any(item["stock"] in w and item["expiry"].isoformat() in w for w in plan.warnings)]
@@ -377,6 +384,10 @@ def record_dispensed(
     from phantomlab.store.snapshots import content_sha256
 
     checked = [_checked_row(row) for row in rows]
+    if mixing_temperature_c is not None:
+        mixing_temperature_c = check_temperature_c(mixing_temperature_c, name="mixing temperature")
+    if mixed_on is not None:
+        mixed_on = parse_date(mixed_on, name="mixed on", not_after_today=True)
     # Read and predict without holding the write lock; then write, checking that no other
     # writer changed the batch meanwhile.
     with store.reading() as session:
@@ -466,6 +477,8 @@ def _fractions(rows, recipe, plan: dict) -> tuple[list[dict[str, Any]], dict[str
                         "planned_mass_g": planned.get(key, {}).get("mass_g")})
     has_matrix = any(a["stock"] == recipe.matrix_key for a in amounts)
     total = sum(a["volume_ml"] for a in amounts) if has_matrix else float(plan.get("batch_volume_ml") or 0)
+    if not math.isfinite(total):
+        raise InputError("amounts: the amounts add up to more than a number can hold; check the units (mL, g)")
     if not total > 0:
         raise InputError("amounts: the batch volume comes out as 0 mL; give the matrix amount too")
     for a in amounts:
@@ -558,22 +571,24 @@ def attach_measurement(
     from phantomlab.store import add_measurement, get_batch  # layer 4
 
     fit_options = {k: v for k, v in dict(options or {}).items() if v is not None}
+    if temperature_c is not None:
+        temperature_c = check_temperature_c(temperature_c, name="phantom temperature")
+    if phantom_age_days is not None:
+        phantom_age_days = check_finite(phantom_age_days, name="phantom age [days]")
+        if phantom_age_days < 0:
+            raise InputError(f"phantom age {phantom_age_days:g} days is negative; accepted: >= 0")
+    if measured_on is not None:
+        measured_on = parse_date(measured_on, name="measured on", not_after_today=True)
+    text = decode_text(raw_content, what="measurement file", name=file_name)  # size limit, BOM
     if path is not None:
         source: Any = Path(path)
         read_extra: dict[str, Any] = {}
     else:
-        try:
-            text = raw_content.decode("utf-8")
-        except UnicodeDecodeError:
-            raise InputError(f"measurement file {file_name!r} is not UTF-8 text; a CSV file is expected") from None
-        if "\n" not in text:
+        if "\n" not in text:  # text, never a path: an upload cannot name a server file
             text += "\n"
         sidecar: dict[str, Any] = {}
         if sidecar_toml:
-            try:
-                sidecar = tomllib.loads(sidecar_toml)
-            except tomllib.TOMLDecodeError as exc:
-                raise InputError(f"measurement metadata (TOML) not readable: {exc}") from None
+            sidecar = parse_toml(sidecar_toml, what="measurement metadata (TOML)")
         source, read_extra = text, {"sidecar": sidecar}
     info = read_measurement(source, kind=kind, **read_extra)
     result = None

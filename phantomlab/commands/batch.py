@@ -135,19 +135,17 @@ def _no_action(args) -> CommandResult:
 # ---- small helpers ---------------------------------------------------------------------------
 
 
-def _open(args):
+def _open(args, *, create: bool = False):
+    """The batch log of ``--db``; only ``batch add`` and ``batch list`` create a new one."""
     from phantomlab.store import open_store
 
-    return open_store(args.db)
+    return open_store(args.db, create=create)
 
 
 def _date(text: str | None, *, option: str) -> _dt.date | None:
-    if text is None:
-        return None
-    try:
-        return _dt.date.fromisoformat(str(text).strip())
-    except ValueError:
-        raise InputError(f"{option} {text!r} is not a date; accepted: YYYY-MM-DD") from None
+    from phantomlab.inputs import parse_date
+
+    return None if text is None else parse_date(text, name=option, not_after_today=True)
 
 
 def _writable(path: str | None, *, option: str, suffix: str) -> Path | None:
@@ -162,10 +160,9 @@ def _writable(path: str | None, *, option: str, suffix: str) -> Path | None:
 
 
 def _write(path: Path, text: str, *, option: str) -> None:
-    try:
-        path.write_text(text, encoding="utf-8")
-    except OSError as exc:
-        raise InputError(f"{option}: cannot write {str(path)!r} ({exc.strerror or exc})") from None
+    from phantomlab.outputs import write_text_atomically  # whole or not at all
+
+    write_text_atomically(path, text, what=option)
 
 
 def _fmt(value: Any, digits: int = 4) -> str:
@@ -185,7 +182,7 @@ def _add(args) -> CommandResult:
 
     sheet_path = _writable(args.sheet, option="--sheet", suffix=".html")
     recipe = load_recipe(args.recipe)
-    store = _open(args)
+    store = _open(args, create=True)
     try:
         plan = plan_batch(store, recipe)
         recorded = record_planned_batch(store, plan, operator=args.operator, notes=args.notes,
@@ -224,10 +221,10 @@ def _add(args) -> CommandResult:
 def _actual(args) -> CommandResult:
     from phantomlab.workflows import record_dispensed
 
+    from phantomlab.inputs import read_text_file
+
     path = Path(args.amounts)
-    if not path.is_file():
-        raise InputError(f"amounts file {args.amounts!r} not found")
-    rows = parse_amounts_csv(path.read_text(encoding="utf-8-sig"), source=path.name)
+    rows = parse_amounts_csv(read_text_file(path, what="amounts file"), source=path.name)
     mixed_on = _date(args.mixed_on, option="--mixed-on")
     store = _open(args)
     try:
@@ -322,16 +319,18 @@ def _correct(args) -> CommandResult:
 def _measure(args) -> CommandResult:
     from phantomlab.workflows import attach_measurement
 
+    from phantomlab.inputs import read_bytes_file, read_text_file
+
     path = Path(args.file)
-    if not path.is_file():
-        raise InputError(f"measurement file {args.file!r} not found")
+    raw_content = read_bytes_file(path, what="measurement file")
     sidecar = path.with_suffix(".toml")
     options = {"n": args.n, "thickness_mm": args.thickness_mm, "g": args.g}
     store = _open(args)
     try:
         done = attach_measurement(
-            store, args.batch_id, kind=args.kind, file_name=path.name, raw_content=path.read_bytes(),
-            sidecar_toml=sidecar.read_text(encoding="utf-8") if sidecar.is_file() else None, path=path,
+            store, args.batch_id, kind=args.kind, file_name=path.name, raw_content=raw_content,
+            sidecar_toml=read_text_file(sidecar, what="measurement metadata file") if sidecar.is_file() else None,
+            path=path,
             fit=not args.no_fit, model=args.model, baseline=args.baseline, options=options,
             instrument=args.instrument, measured_on=_date(args.measured_on, option="--measured-on"),
             phantom_age_days=args.age_days, temperature_c=args.temperature_c, recorded_by=args.operator,
@@ -380,7 +379,12 @@ def _batch_summary(session, batch) -> dict[str, Any]:
 def _list(args) -> CommandResult:
     from phantomlab.store import list_batches
 
-    store = _open(args)
+    if args.status is not None:
+        from phantomlab.store.schema import BATCH_STATUSES
+
+        if args.status not in BATCH_STATUSES:
+            raise InputError(f"--status {args.status!r} not accepted; accepted: {', '.join(BATCH_STATUSES)}")
+    store = _open(args, create=True)
     try:
         with store.reading() as session:
             rows = [_batch_summary(session, b) for b in

@@ -81,7 +81,11 @@ def _correct(args) -> CommandResult:
     from phantomlab.store import get_batch, open_store, recipe_of
     from phantomlab.workflows import batch_recipe_file, next_batch_plan, top_up_batch
 
-    store = open_store(args.db)
+    from phantomlab.outputs import check_writable_folder, write_text_atomically
+
+    if args.sheet and not args.top_up:
+        check_writable_folder(Path(args.sheet), what="--sheet")
+    store = open_store(args.db, create=False)
     try:
         with store.reading() as session:
             batch = get_batch(session, args.batch_id, include_retracted=False)
@@ -101,7 +105,7 @@ def _correct(args) -> CommandResult:
         if args.sheet:
             from phantomlab.recipe.sheet import render_sheet_html
 
-            Path(args.sheet).write_text(render_sheet_html(plan, draft=True), encoding="utf-8")
+            write_text_atomically(Path(args.sheet), render_sheet_html(plan, draft=True), what="--sheet")
             payload["sheet"] = args.sheet
         return CommandResult(payload=payload, text=_plan_text(payload, code))
     payload = done.result.to_json()

@@ -32,13 +32,23 @@ def _no_action(args) -> CommandResult:
 
 def _import(args) -> CommandResult:
     from phantomlab.store import open_store
-    from phantomlab.store.archive import import_lab
+    from phantomlab.store.archive import import_lab, load_archive
+    from phantomlab.store.engine import resolve_url, sqlite_file
 
+    archive = load_archive(args.archive)  # read and checked whole before any database is touched
+    new_file = sqlite_file(resolve_url(args.db))
+    if new_file is not None and new_file.exists():
+        new_file = None  # not ours to remove
     store = open_store(args.db)
     try:
-        counts = import_lab(store, args.archive)
-    finally:
+        counts = import_lab(store, archive)
+    except BaseException:
         store.close()
+        if new_file is not None:  # a refused import leaves no database behind
+            for suffix in ("", "-wal", "-shm", "-journal"):
+                new_file.with_name(new_file.name + suffix).unlink(missing_ok=True)
+        raise
+    store.close()
     summary = ", ".join(f"{n} {name}" for name, n in counts.items() if n)
     return CommandResult(payload={"archive": args.archive, "tables": counts},
                          text=f"imported {args.archive}: {summary or 'an empty log'}")

@@ -48,7 +48,11 @@ def _calibrated(recipe, url):
     if url is None:
         return None, None
     from phantomlab.store import latest_potencies, open_store  # layer 4
+    from phantomlab.store.engine import resolve_url, sqlite_file
 
+    missing = sqlite_file(resolve_url(url))
+    if missing is not None and not missing.exists():
+        return {}, None  # no log yet: nothing calibrated, and no database file is created
     store = open_store(url)
     try:
         potencies = latest_potencies(store, shelf=recipe.shelf)
@@ -58,11 +62,9 @@ def _calibrated(recipe, url):
 
 
 def _write(path: str, text: str) -> str:
-    target = Path(path)
-    if target.parent and not target.parent.exists():
-        raise InputError(f"cannot write {path!r}: folder {str(target.parent)!r} does not exist")
-    target.write_text(text, encoding="utf-8")
-    return str(target)
+    from phantomlab.outputs import write_text_atomically  # whole or not at all
+
+    return str(write_text_atomically(Path(path), text, what=f"cannot write {path!r}"))
 
 
 def handle(args) -> CommandResult:

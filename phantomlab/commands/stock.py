@@ -84,7 +84,10 @@ def _optics(args) -> CommandResult:
     from phantomlab.materials import load_shelf
     from phantomlab.optics import intrinsic_optics
 
+    from phantomlab.inputs import check_temperature_c
+
     wavelength = parse_number_list(args.wavelength_nm, name="--wavelength-nm")
+    check_temperature_c(args.temperature_c, name="--temperature-c")
     shelf = load_shelf(args.stocks_file)
     stock = shelf[args.key]
     if stock.kind == "matrix" and args.matrix is None:
@@ -128,7 +131,7 @@ def _export(args) -> CommandResult:
     from phantomlab.shelf_export import export_shelf
     from phantomlab.store import open_store
 
-    store = open_store(args.db)
+    store = open_store(args.db, create=False)
     try:
         done = export_shelf(store, args.stocks_file, args.out, force=args.force)
     finally:

@@ -9,8 +9,10 @@ The archive is a zip file:
 * ``batches.csv``, ``calibration_potencies.csv`` — the same facts flat, for a spreadsheet;
 * ``measurements/ID/FILE`` — each measurement file exactly as uploaded.
 
-:func:`import_lab` loads an archive into an EMPTY database in one transaction, keeping
-every id, so export → import → export gives the same tables byte for byte.
+:func:`load_archive` reads and checks an archive whole without writing anything (bounded in
+size, every row against its table); :func:`import_lab` then loads it into an EMPTY database
+in one transaction, keeping every id, so export → import → export gives the same tables
+byte for byte.
 """
 
 from __future__ import annotations
@@ -22,18 +24,21 @@ import hashlib
 import io
 import json
 import zipfile
+from dataclasses import dataclass
 from pathlib import Path, PurePosixPath
 from typing import Any
 
-from sqlalchemy import Date, DateTime, LargeBinary, func, insert, select, text
+from sqlalchemy import Boolean, Date, DateTime, Float, Integer, LargeBinary, String, func, insert, select, text
 
 from phantomlab import __version__
 from phantomlab.errors import InputError
 from phantomlab.store.engine import Store
-from phantomlab.store.migrate import current_revision
+from phantomlab.inputs import regular_file
+from phantomlab.limits import check_limit, limit
+from phantomlab.store.migrate import current_revision, head_revision
 from phantomlab.store.schema import Base, Batch, BatchPlan, CalibrationPotency, Recipe
 
-__all__ = ["ARCHIVE_FORMAT", "export_lab", "import_lab", "read_archive_tables"]
+__all__ = ["ARCHIVE_FORMAT", "LabArchive", "export_lab", "import_lab", "load_archive", "read_archive_tables"]
 
 #: Name and version written into (and required from) every archive's manifest.
 ARCHIVE_FORMAT = {"format": "phantomlab lab archive", "format_version": 1}
@@ -44,25 +49,6 @@ def _encode(value: Any) -> Any:
         return {"base64": base64.b64encode(bytes(value)).decode("ascii")}
     if isinstance(value, (_dt.datetime, _dt.date)):
         return value.isoformat()
-    return value
-
-
-def _decode(column, value: Any) -> Any:
-    if value is None:
-        return None
-    kind = column.type
-    try:
-        if isinstance(kind, LargeBinary):
-            return base64.b64decode(value["base64"], validate=True)
-        if isinstance(kind, DateTime):
-            return _dt.datetime.fromisoformat(value)
-        if isinstance(kind, Date):
-            return _dt.date.fromisoformat(value)
-    except (TypeError, KeyError, ValueError):
-        raise InputError(
-            f"archive table {column.table.name}: column {column.name} holds {str(value)[:40]!r}, "
-            "not a value of its type"
-        ) from None
     return value
 
 
@@ -143,60 +129,214 @@ def _csv(header: list[str], rows: list[list[Any]]) -> str:
     return buffer.getvalue()
 
 
+# ---- reading an archive: bounded, validated, before anything is written --------------------------
+
+#: Members read from an archive, besides the tables: the manifest (at most this size [bytes]).
+_MANIFEST_MAX_BYTES = 1_000_000
+
+
 def read_archive_tables(path: str | Path) -> tuple[dict[str, Any], dict[str, list[dict[str, Any]]]]:
-    """The manifest and the table rows of an archive (checked, not yet decoded)."""
+    """The manifest and the table rows of an archive (checked in structure, not yet decoded).
+
+    The archive file and the members read (``manifest.json``, ``tables/*.json``) are held to
+    the ``archive_mb`` limit (:mod:`phantomlab.limits`) by the sizes the zip declares, and no
+    member is read past its declared size, so a zip bomb is refused without being unpacked.
+    Only those members are read; no member is ever extracted to disk.
+    """
     path = Path(path)
-    if not path.is_file():
-        raise InputError(f"archive {str(path)!r} not found")
+    _check_archive_file(path)
+    allowed = limit("archive_mb") * 1_000_000
     try:
         with zipfile.ZipFile(path) as archive:
-            names = set(archive.namelist())
-            if "manifest.json" not in names:
+            members = {info.filename: info for info in archive.infolist()}
+            if "manifest.json" not in members:
                 raise InputError(f"{path.name} is not a phantomlab lab archive (no manifest.json)")
-            manifest = json.loads(archive.read("manifest.json"))
-            if {k: manifest.get(k) for k in ARCHIVE_FORMAT} != ARCHIVE_FORMAT:
-                raise InputError(
-                    f"{path.name}: archive format {manifest.get('format')!r} version "
-                    f"{manifest.get('format_version')!r} not accepted; accepted: "
-                    f"{ARCHIVE_FORMAT['format']!r} version {ARCHIVE_FORMAT['format_version']}"
-                )
+            if members["manifest.json"].file_size > _MANIFEST_MAX_BYTES:
+                raise InputError(f"{path.name}: manifest.json is {members['manifest.json'].file_size:,} bytes; "
+                                 "a lab archive's manifest is a few kB (archive damaged or not ours)")
+            manifest = _json_member(archive, members["manifest.json"], path)
+            _check_manifest(manifest, path)
+            wanted = [members.get(f"tables/{name}.json") for name in manifest["tables"]]
+            for name, info in zip(manifest["tables"], wanted):
+                if info is None:
+                    raise InputError(f"{path.name}: tables/{name}.json is missing from the archive")
+            check_limit("archive_mb", sum(info.file_size for info in wanted) / 1e6,
+                        given=f"{path.name}: tables unpacked")
             tables = {}
-            for name in manifest.get("tables", {}):
-                member = f"tables/{name}.json"
-                if member not in names:
-                    raise InputError(f"{path.name}: {member} is missing from the archive")
-                tables[name] = json.loads(archive.read(member))
+            for name, info in zip(manifest["tables"], wanted):
+                rows = _json_member(archive, info, path, allowed=allowed)
+                if not isinstance(rows, list) or not all(isinstance(row, dict) for row in rows):
+                    raise InputError(f"{path.name}: tables/{name}.json is not a list of rows (archive damaged)")
+                tables[name] = rows
     except zipfile.BadZipFile:
         raise InputError(f"{path.name} is not a zip archive; a file made by `phantomlab batch export` is expected") from None
-    except json.JSONDecodeError as exc:
-        raise InputError(f"{path.name}: a JSON file in the archive does not parse ({exc.msg})") from None
+    except (zipfile.LargeZipFile, NotImplementedError, RuntimeError, EOFError, OSError) as exc:
+        # encrypted members, unknown compression, truncated files
+        raise InputError(f"{path.name}: the zip archive cannot be read ({type(exc).__name__}); "
+                         "a file made by `phantomlab batch export` is expected") from None
     return manifest, tables
 
 
-def import_lab(store: Store, path: str | Path) -> dict[str, int]:
-    """Load an archive into an empty batch log (one transaction); return rows per table."""
-    manifest, tables = read_archive_tables(path)
-    known = {table.name: table for table in Base.metadata.sorted_tables}
-    unknown = sorted(set(tables) - set(known))
+def _check_archive_file(path: Path) -> None:
+    """A regular file within the ``archive_mb`` limit (refused before it is opened as a zip)."""
+    file = regular_file(path, what="archive")
+    check_limit("archive_mb", file.stat().st_size / 1e6, given=f"archive {file.name!r}")
+
+
+def _json_member(archive: zipfile.ZipFile, info: zipfile.ZipInfo, path: Path, *, allowed: int | None = None):
+    with archive.open(info) as stream:  # reads stop at the declared size (zipfile)
+        data = stream.read(info.file_size + 1 if allowed is None else min(info.file_size, allowed) + 1)
+    try:
+        return json.loads(data)
+    except (json.JSONDecodeError, UnicodeDecodeError, RecursionError):
+        raise InputError(f"{path.name}: {info.filename} does not parse as JSON (archive damaged)") from None
+
+
+def _check_manifest(manifest: Any, path: Path) -> None:
+    if not isinstance(manifest, dict):
+        raise InputError(f"{path.name}: manifest.json is not a JSON object (archive damaged)")
+    if {k: manifest.get(k) for k in ARCHIVE_FORMAT} != ARCHIVE_FORMAT:
+        shown = str(manifest.get("format"))[:60]
+        raise InputError(
+            f"{path.name}: archive format {shown!r} version "
+            f"{str(manifest.get('format_version'))[:10]} not accepted; accepted: "
+            f"{ARCHIVE_FORMAT['format']!r} version {ARCHIVE_FORMAT['format_version']}"
+        )
+    counts = manifest.get("tables")
+    if not isinstance(counts, dict) or not all(
+        isinstance(k, str) and isinstance(v, int) and not isinstance(v, bool) and v >= 0 for k, v in counts.items()
+    ):
+        raise InputError(f"{path.name}: the manifest's tables must map table names to row counts (archive damaged)")
+    known = {table.name for table in Base.metadata.sorted_tables}
+    unknown = sorted(set(counts) - known)
     if unknown:
         raise InputError(
-            f"archive holds tables this phantomlab does not know ({', '.join(unknown)}); "
+            f"archive holds tables this phantomlab does not know ({', '.join(u[:40] for u in unknown[:5])}); "
             "it was made by a newer version"
         )
+    revision, head = manifest.get("schema_revision"), head_revision()
+    if revision != head:
+        raise InputError(
+            f"{path.name}: archive made at schema revision {str(revision)[:20]!r} by phantomlab "
+            f"{str(manifest.get('software_version'))[:20]}; this phantomlab writes revision {head!r}. Import it with "
+            "the version that exported it; opening that database with this version then upgrades it"
+        )
+
+
+def _decode(column, value: Any, *, where: str) -> Any:
+    """A JSON value of the archive as the value of ``column``; refused (never quoted) if it is not one."""
+    if value is None:
+        if not column.nullable and not column.primary_key:
+            raise InputError(f"{where}: column {column.name} is empty; it may not be (archive damaged)")
+        return None
+    kind = column.type
+    try:
+        if isinstance(kind, LargeBinary):
+            if not isinstance(value, dict) or set(value) != {"base64"} or not isinstance(value["base64"], str):
+                raise ValueError
+            return base64.b64decode(value["base64"], validate=True)
+        if isinstance(kind, DateTime):
+            return _dt.datetime.fromisoformat(value)
+        if isinstance(kind, Date):
+            return _dt.date.fromisoformat(value)
+        if isinstance(kind, Boolean):
+            if not isinstance(value, bool):
+                raise ValueError
+            return value
+        if isinstance(kind, Integer):
+            if isinstance(value, bool) or not isinstance(value, int) or abs(value) >= 2**63:
+                raise ValueError
+            return value
+        if isinstance(kind, Float):
+            if isinstance(value, bool) or not isinstance(value, (int, float)):
+                raise ValueError
+            return float(value)
+        if isinstance(kind, String):
+            if not isinstance(value, str) or (kind.length is not None and len(value) > kind.length):
+                raise ValueError
+            return value
+    except (TypeError, KeyError, ValueError, OverflowError):
+        raise InputError(f"{where}: column {column.name} holds a value that is not of its type "
+                         f"{type(kind).__name__} (archive damaged)") from None
+    return value  # JSON columns hold any JSON value
+
+
+def _decoded_tables(manifest, tables, path: Path) -> dict[str, list[dict[str, Any]]]:
+    known = {table.name: table for table in Base.metadata.sorted_tables}
     decoded: dict[str, list[dict[str, Any]]] = {}
     for name, rows in tables.items():
         table = known[name]
         if len(rows) != manifest["tables"][name]:
             raise InputError(f"archive table {name} has {len(rows)} rows, the manifest says {manifest['tables'][name]}")
+        required = [c.name for c in table.columns
+                    if not c.nullable and c.default is None and c.server_default is None]
+        keys = [c.name for c in table.primary_key.columns]
+        seen: set = set()
         decoded[name] = []
-        for row in rows:
+        for number, row in enumerate(rows, start=1):
+            where = f"archive table {name}, row {number}"
             extra = set(row) - set(table.c.keys())
             if extra:
-                raise InputError(f"archive table {name} has columns this phantomlab does not know: {', '.join(sorted(extra))}")
-            decoded[name].append({key: _decode(table.c[key], value) for key, value in row.items()})
+                raise InputError(f"archive table {name} has {len(extra)} column(s) this phantomlab does not know; "
+                                 "it was made by another version")
+            missing = [c for c in required if c not in row]
+            if missing:
+                raise InputError(f"{where}: lacks column(s) {', '.join(missing)} (archive damaged)")
+            values = {key: _decode(table.c[key], value, where=where) for key, value in row.items()}
+            identity = tuple(values.get(k) for k in keys)
+            if None in identity or identity in seen:
+                raise InputError(f"{where}: its key ({', '.join(keys)}) is empty or repeats (archive damaged)")
+            seen.add(identity)
+            decoded[name].append(values)
+    for name, rows in decoded.items():  # every reference points at a row of the archive
+        for foreign in known[name].foreign_keys:
+            target = foreign.column
+            present = {r.get(target.name) for r in decoded.get(target.table.name, [])}
+            for number, row in enumerate(rows, start=1):
+                value = row.get(foreign.parent.name)
+                if value is not None and value not in present:
+                    raise InputError(f"archive table {name}, row {number}: column {foreign.parent.name} refers to "
+                                     f"a {target.table.name} row the archive lacks (archive damaged)")
     for row in decoded.get("measurements", []):
         if hashlib.sha256(row["raw_content"]).hexdigest() != row["content_sha256"]:
             raise InputError(f"archive measurement {row['id']}: file content does not match its SHA-256; archive damaged")
+    return decoded
+
+
+@dataclass(frozen=True)
+class LabArchive:
+    """An archive read and checked whole, ready to import: manifest and decoded rows per table."""
+
+    path: Path
+    manifest: dict
+    tables: dict
+
+    @property
+    def counts(self) -> dict[str, int]:
+        return {name: len(rows) for name, rows in self.tables.items()}
+
+
+def load_archive(path: str | Path) -> LabArchive:
+    """Read and check an archive completely, writing nothing: call it before opening a database.
+
+    Raises
+    ------
+    InputError
+        Not a zip, past the size limit, not a phantomlab archive, another schema revision,
+        a row that does not fit its table (unknown or missing column, wrong type, repeated
+        key, reference to a missing row), a measurement whose bytes do not match their hash.
+        The message names tables, rows and columns, never a value.
+    """
+    path = Path(path)
+    manifest, tables = read_archive_tables(path)
+    return LabArchive(path=path, manifest=manifest, tables=_decoded_tables(manifest, tables, path))
+
+
+def import_lab(store: Store, archive: "str | Path | LabArchive") -> dict[str, int]:
+    """Load an archive into an empty batch log (one transaction); return rows per table."""
+    loaded = archive if isinstance(archive, LabArchive) else load_archive(archive)
+    decoded = loaded.tables
+    known = {table.name: table for table in Base.metadata.sorted_tables}
     with store.transaction() as session:
         for table in known.values():
             present = session.scalar(select(func.count()).select_from(table))
@@ -216,4 +356,4 @@ def import_lab(store: Store, path: str | Path) -> dict[str, int]:
                         f"SELECT setval(pg_get_serial_sequence('{table.name}', 'id'), "
                         f"(SELECT MAX(id) FROM {table.name}))"
                     ))
-    return {name: len(rows) for name, rows in decoded.items()}
+    return loaded.counts

@@ -17,11 +17,12 @@ from __future__ import annotations
 import contextlib
 import os
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Iterator
 
 from sqlalchemy import create_engine, event, text
 from sqlalchemy.engine import Engine, make_url
-from sqlalchemy.exc import ArgumentError, DBAPIError, IntegrityError, OperationalError
+from sqlalchemy.exc import ArgumentError, DataError, DBAPIError, IntegrityError, OperationalError
 from sqlalchemy.orm import Session
 
 from phantomlab.errors import InputError
@@ -35,6 +36,7 @@ __all__ = [
     "StoreConflictError",
     "open_store",
     "resolve_url",
+    "sqlite_file",
 ]
 
 #: Environment variable naming the database when no URL is given.
@@ -183,6 +185,8 @@ class Store:
                     "another command changed the same record meanwhile; try again"
                 ) from None
             raise InputError(f"database refused the change: {message}") from None
+        except DataError as exc:  # e.g. PostgreSQL: a text longer than its column allows
+            raise InputError(f"database refused a value: {str(exc.orig).splitlines()[0][:200]}") from None
         except DBAPIError as exc:
             if _is_busy(exc):
                 raise StoreBusyError(
@@ -198,11 +202,22 @@ class Store:
         self.engine.dispose()
 
 
+def sqlite_file(url: str) -> Path | None:
+    """The database file of an SQLite URL (None for PostgreSQL or an in-memory database)."""
+    parsed = make_url(url)
+    if parsed.get_backend_name() != "sqlite" or parsed.database in (None, "", ":memory:"):
+        return None
+    if parsed.database.startswith("file:"):
+        return None  # a URI filename: leave it to SQLite
+    return Path(parsed.database)
+
+
 def open_store(
     url: str | None = None,
     *,
     busy_timeout_s: float = DEFAULT_BUSY_TIMEOUT_S,
     upgrade: bool = True,
+    create: bool = True,
 ) -> Store:
     """Open (and create or upgrade) the batch log.
 
@@ -217,6 +232,10 @@ def open_store(
     upgrade : bool
         Migrate the schema to the newest revision (default).  Tests open older
         databases with ``upgrade=False``.
+    create : bool
+        Create an SQLite file that does not exist yet (default).  With False a missing
+        file is refused in one line and nothing is created: the commands that only read or
+        change records already in the log open it so.
 
     Returns
     -------
@@ -225,6 +244,13 @@ def open_store(
     if not busy_timeout_s >= 0:
         raise InputError(f"busy_timeout_s {busy_timeout_s!r} must be >= 0 seconds")
     resolved = resolve_url(url)
+    if not create:
+        missing = sqlite_file(resolved)
+        if missing is not None and not missing.exists():
+            raise InputError(
+                f"no batch log at {str(missing)!r}: `phantomlab batch add RECIPE.toml` starts one "
+                "(or give --db URL of the lab's log)"
+            )
     if make_url(resolved).get_backend_name() == "sqlite":
         engine = _sqlite_engine(resolved, busy_timeout_s)
     else:

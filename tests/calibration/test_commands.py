@@ -112,7 +112,7 @@ def test_recalibrate_empty_log_refused(tmp_path, capsys):
 
 def test_correct_unknown_batch_refused(tmp_path, capsys):
     code, out, err = _run(capsys, ["correct", "2026-999", "--db", f"sqlite:///{tmp_path / 'e.sqlite'}"])
-    assert code == 2 and "unknown batch 2026-999" in err
+    assert code == 2 and "no batch log at" in err and not (tmp_path / "e.sqlite").exists()
 
 
 def test_fit_with_mua_from_the_recipe_stocks_reports_amounts(lab, tmp_path, capsys):

@@ -167,9 +167,9 @@ def test_bad_input_is_one_line_and_writes_nothing(db_url, tmp_path, capsys):
     broken.write_text("this is not,a measurement\n1,2\n")
     cases = [
         (("batch", "actual", "2026-999", good), "unknown batch 2026-999"),
-        (("batch", "actual", code, wrong_unit), "columns stock,volume_ul not accepted"),
+        (("batch", "actual", code, wrong_unit), "header not accepted (column 2)"),
         (("batch", "actual", code, unknown_stock), "'milk' is not a stock of this batch"),
-        (("batch", "actual", code, not_a_number), "'5 mL' is not a number"),
+        (("batch", "actual", code, not_a_number), "volume_ml: not a number"),
         (("batch", "status", code, "finished"), "status 'finished' not accepted"),
         (("batch", "status", code, "planned"), "status moves forward only"),
         (("batch", "measure", code, broken, "--kind", "optics"), "broken.csv"),
