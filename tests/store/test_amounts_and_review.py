@@ -29,7 +29,7 @@ def test_amounts_in_ml_g_and_from_a_pre_dilution():
     "text, match",
     [
         ("", "is empty"),
-        ("stock,volume_ul\nink,5\n", "header not accepted (column 2)"),
+        ("stock,volume_ul\nink,5\n", r"header not accepted \(column 2\)"),
         ("stock,volume\nink,5\n", "accepted: stock,volume_ml or stock,mass_g"),
         ("stock,volume_ml\n", "has a header but no amounts"),
         ("stock,volume_ml\nink,five\n", "volume_ml: not a number"),
