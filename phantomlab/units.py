@@ -165,6 +165,8 @@ def parse_quantity(text: str, kind: str) -> float:
     if kind in ("volume_fraction", "mass_fraction"):
         raise _refuse(text, kind, "not a fraction")
     if not _QUANTITY.match(stripped):
+        if not re.match(rf"^\s*{_NUMBER}", stripped):
+            raise _refuse(text, kind, "no number before the unit")
         raise _refuse(text, kind, "give a number and a unit (no arithmetic)")
     registry = _registry()
     normalised = stripped.replace("^", "**").replace("°C", "degC").replace("µ", "u").replace("μ", "u")

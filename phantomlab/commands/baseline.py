@@ -108,6 +108,7 @@ def _text(summary: dict, headline: str) -> str:
 
 
 def _build(args: argparse.Namespace) -> CommandResult:
+    from phantomlab.limits import check_limit
     from phantomlab.transport.montecarlo import build_baseline
 
     out = Path(args.out)
@@ -119,6 +120,7 @@ def _build(args: argparse.Namespace) -> CommandResult:
         raise InputError(f"folder {out.parent} does not exist")
     if args.photons < 1000:
         raise InputError(f"--photons must be at least 1000 for a usable baseline, got {args.photons}")
+    check_limit("baseline_photons", args.photons, given=f"--photons {args.photons}")
     baseline = build_baseline(mua_per_mm=args.mua_ref_per_mm, mus_per_mm=args.mus_ref_per_mm, g=args.g, n=args.n,
                               n_outside=args.n_outside, photons=args.photons, seed=args.seed, threads=args.threads)
     baseline.save(out)

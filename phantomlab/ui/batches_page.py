@@ -22,6 +22,7 @@ import streamlit as st
 from phantomlab.errors import InputError
 from phantomlab.ui import services
 from phantomlab.ui.batch_trends import latest_fit, spread_section
+from phantomlab.ui.plain_text import plain
 from phantomlab.ui.plots import Series, line_figure, show_figure, target_series
 from phantomlab.ui.widgets import call_layer
 from phantomlab.ui.workspace import Workspace
@@ -183,7 +184,7 @@ def _amounts_section(workspace: Workspace, store, batch: dict) -> None:
         amounts[dose["stock"]] = (value, dose["unit"], dose["stock_fraction"])
     if refused:
         for line in refused:
-            st.error(line)
+            st.error(plain(line))
         st.caption("Give every amount with its unit (0 mL for a stock left out).")
         return
     outcome = call_layer("Recording the amounts", record_dispensed, store, code, amounts,
@@ -222,7 +223,7 @@ def _prediction_plot(batch: dict) -> None:
             show_figure(figure, table=table, file_stem=f"{batch['code']}-dispensed-{quantity}",
                         key=f"batches.made.{quantity}")
     for alarm in batch.get("actual_alarms") or []:
-        st.error(alarm)
+        st.error(plain(alarm))
 
 
 def _measure_section(workspace: Workspace, store, batch: dict) -> None:
@@ -321,9 +322,9 @@ def _measurements_table(batch: dict) -> pd.DataFrame:
 def _one_batch(workspace: Workspace, store, batch: dict) -> None:
     st.subheader(f"Batch {batch['code']}")
     st.markdown(
-        f"Recipe **{batch['recipe']}** (version {batch['recipe_version']}) · planned {batch['planned_on']}"
-        + (f" · mixed {batch['mixed_on']}" if batch["mixed_on"] else "")
-        + (f" · operator {batch['operator']}" if batch["operator"] else "")
+        f"Recipe **{plain(batch['recipe'])}** (version {plain(batch['recipe_version'])}) · planned "
+        f"{batch['planned_on']}" + (f" · mixed {batch['mixed_on']}" if batch["mixed_on"] else "")
+        + (f" · operator {plain(batch['operator'])}" if batch["operator"] else "")
     )
     if batch["sheet_html"]:
         st.download_button(f"Download the sheet of batch {batch['code']} as printed (HTML)",

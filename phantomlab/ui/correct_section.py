@@ -15,6 +15,7 @@ import pandas as pd
 import streamlit as st
 
 from phantomlab.ui import services
+from phantomlab.ui.plain_text import plain
 from phantomlab.ui.plots import Series, line_figure, show_figure, target_series
 from phantomlab.ui.widgets import call_layer, quantity_field, show_warnings
 from phantomlab.ui.workspace import Workspace
@@ -166,9 +167,10 @@ def _top_up_section(workspace: Workspace, store, batch: dict, recipe) -> None:
     outcome = call_layer("Planning the top-up", top_up_batch, store, batch["code"], recipe,
                          current_volume_ml=volume, max_added_ml=room, show=False)
     if not outcome.ok:
-        st.error(outcome.error)
+        st.error(plain(outcome.error))
         return
-    st.caption(f"From the newest fit of {outcome.value.file_name} (measurement {outcome.value.measurement_id}).")
+    st.caption(f"From the newest fit of {plain(outcome.value.file_name)} "
+               f"(measurement {outcome.value.measurement_id}).")
     plan = outcome.value.result
     show_warnings(list(plan.warnings) + outcome.warnings)
     rows = [{"add": a["stock"], "volume [mL]": a["volume_ml"], "mass [g]": a.get("mass_g"),
@@ -208,7 +210,7 @@ def correction_section(workspace: Workspace, store) -> None:
     if missing and workspace.shelf_path is None:
         st.info("No stock file given: planning with the lots the batch used.")
     elif missing:
-        st.warning(f"Not on today's shelf: {', '.join(missing)}; planning with the lots the batch used.")
+        st.warning(f"Not on today's shelf: {plain(', '.join(missing))}; planning with the lots the batch used.")
     if not potencies:
         st.info("No calibrated potency for the lots on the shelf yet: recalibrate first, or the plan "
                 "uses the stock file's potencies.")
@@ -221,7 +223,7 @@ def correction_section(workspace: Workspace, store) -> None:
         if solved.ok:
             plan, potencies = solved.value
             for limit in plan.binding_limits:
-                st.error(f"The target cannot be met: {limit.message}")
+                st.error(f"The target cannot be met: {plain(limit.message)}")
             st.dataframe(_dose_comparison(batch["plan"], plan), hide_index=True, width="stretch")
             _plan_plots(plan)
             with st.expander("Full amounts of the next batch"):

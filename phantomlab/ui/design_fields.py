@@ -18,6 +18,7 @@ import pandas as pd
 import streamlit as st
 
 from phantomlab.errors import InputError
+from phantomlab.ui.plain_text import plain
 from phantomlab.ui.widgets import number_list_field, quantity_field
 from phantomlab.ui.workspace import Workspace
 
@@ -293,7 +294,7 @@ def read_fields(workspace: Workspace, shelf) -> tuple[dict | None, Path]:
     if not stocks:
         st.error("Stocks: choose at least one scatterer or absorber.")
         ok = False
-    st.caption(_lots_caption(shelf, [matrix, *stocks] if matrix else stocks))
+    st.caption(plain(_lots_caption(shelf, [matrix, *stocks] if matrix else stocks)))
 
     st.subheader("Target")
     c1, c2, c3, c4 = st.columns([2, 1, 1, 1])

@@ -24,6 +24,7 @@ from phantomlab.ui import services
 from phantomlab.ui.cautions import show_cautions
 from phantomlab.ui.design_fields import NEW_RECIPE, apply_start, read_fields, read_recipe_definition
 from phantomlab.ui.plan_view import doses_table, matrix_table, saved_sheet_downloads, sheet_downloads
+from phantomlab.ui.plain_text import plain
 from phantomlab.ui.plots import Series, bar_figure, line_figure, show_figure, target_series
 from phantomlab.ui.widgets import call_layer, show_warnings
 from phantomlab.ui.workspace import Workspace
@@ -272,13 +273,13 @@ def show(workspace: Workspace) -> None:
             str(id(shelf)), json.dumps(potencies, sort_keys=True), show=False,
         )
     if not solved.ok:
-        st.error(solved.error)
+        st.error(plain(solved.error))
         return
     plan = solved.value
 
     st.subheader("Predicted against target")
     if plan.binding_limits:
-        lines = "\n".join(f"- {b.message}" for b in plan.binding_limits)
+        lines = "\n".join(f"- {plain(b.message)}" for b in plan.binding_limits)
         st.error(f"**The target cannot be met.** The plan below is the closest feasible recipe.\n\n{lines}")
     others = [w for w in plan.warnings if w not in {b.message for b in plan.binding_limits}
               and w != "closest feasible recipe given"]

@@ -9,6 +9,7 @@ import streamlit as st
 
 from phantomlab import __version__
 from phantomlab.errors import InputError
+from phantomlab.ui.plain_text import code_span, plain
 from phantomlab.ui.workspace import Workspace, environment, resolve_workspace
 
 __all__ = ["PAGES", "main"]
@@ -26,7 +27,7 @@ def _workspace(argv: Sequence[str]) -> Workspace | None:
     try:
         return resolve_workspace(argv, environment())
     except InputError as exc:
-        st.error(f"Cannot start: {exc}")
+        st.error(f"Cannot start: {plain(exc)}")
         return None
 
 
@@ -43,7 +44,7 @@ def _side_bar(workspace: Workspace) -> str:
             st.markdown("**Database:** your lab's")
             st.caption(f"`{_hide_password(workspace.database_url)}`")
         if workspace.shelf_path is not None:
-            st.caption(f"Stock file: `{workspace.shelf_path.name}`")
+            st.caption(f"Stock file: {code_span(workspace.shelf_path.name)}")
         else:
             st.caption("Stock file: none given (`--shelf STOCKS.toml`)")
         st.caption(f"phantomlab {__version__}")

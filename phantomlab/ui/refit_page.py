@@ -25,6 +25,7 @@ import streamlit as st
 
 from phantomlab.ui import services
 from phantomlab.ui.cautions import show_light_source_caution
+from phantomlab.ui.plain_text import plain
 from phantomlab.ui.plots import COLOURS, Series, line_figure, show_figure, target_series
 from phantomlab.ui.widgets import call_layer, show_warnings
 from phantomlab.ui.workspace import Workspace
@@ -251,7 +252,7 @@ def _fit_section(workspace: Workspace, store) -> None:
     try:
         sidecar = tomllib.loads(sidecar_text) if sidecar_text else {}
     except tomllib.TOMLDecodeError as exc:
-        st.error(f"The stored metadata of this measurement is not valid TOML: {exc}")
+        st.error(plain(f"The stored metadata of this measurement is not valid TOML: {exc}"))
         return
     c1, c2, c3, c4 = st.columns(4)
     model = c1.selectbox("Forward model", FIT_MODELS[kind], key=f"refit.model.{kind}",
@@ -278,12 +279,14 @@ def _fit_section(workspace: Workspace, store) -> None:
             st.info("Choose or build a baseline to fit with the Monte Carlo model.")
             return
     text = raw.decode("utf-8", "replace")
+    if "\n" not in text:  # the layer reads a one-line string as a path: an upload is text, never a server path
+        text += "\n"
     with st.spinner("Fitting…"):
         fitted = call_layer("Fitting the measurement", _fit, text, kind, sidecar, model, options, baseline,
                             bool(power_law), show=False)
         read = call_layer("Reading the measurement", _read, text, kind, sidecar, options, show=False)
     if not fitted.ok:
-        st.error(fitted.error)
+        st.error(plain(fitted.error))
         return
     result = fitted.value
     show_warnings(result.warnings)

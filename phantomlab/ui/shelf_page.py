@@ -26,6 +26,7 @@ import streamlit as st
 
 from phantomlab.errors import InputError
 from phantomlab.ui import services
+from phantomlab.ui.plain_text import code_span, plain
 from phantomlab.ui.plots import Series, line_figure, show_figure
 from phantomlab.ui.widgets import call_layer, number_list_field, quantity_field
 from phantomlab.ui.workspace import Workspace
@@ -123,7 +124,7 @@ def _optics_section(shelf) -> None:
             g = np.asarray(optics.g, dtype=float)
             st.caption(f"g (scattering model, not a measurement): {g.min():.3f} – {g.max():.3f}")
         else:
-            st.info(f"{key} does not scatter (μs′ = 0).")
+            st.info(f"{plain(key)} does not scatter (μs′ = 0).")
 
 
 # ---- cuvette dilution series --------------------------------------------------------------------
@@ -361,7 +362,7 @@ def _export_section(workspace: Workspace, store, origin: dict) -> None:
         return
     folder = workspace.page_recipes_folder()
     target = folder / f"{workspace.shelf_path.stem}-with-page-stocks.toml"
-    st.caption(f"Stocks from this page ({', '.join(added)}) live in the batch log only; the command line "
+    st.caption(f"Stocks from this page ({plain(', '.join(added))}) live in the batch log only; the command line "
                f"reads them from an exported stock file.")
     if st.button(f"Write them with the stock file to {target.name}", key="shelf.export"):
         folder.mkdir(parents=True, exist_ok=True)
@@ -382,7 +383,7 @@ def show(workspace: Workspace) -> None:
     notice = st.session_state.pop("shelf.notice", None)
     if notice:
         st.success(notice)
-    st.caption(f"Stock file `{workspace.shelf_path}` ({shelf.name or 'no name'}), with the stocks "
+    st.caption(f"Stock file {code_span(workspace.shelf_path)} ({plain(shelf.name or 'no name')}), with the stocks "
                "added or edited on this page.")
     calibrated = call_layer("Reading the calibration", services.calibrated_potencies, store, shelf)
     table = _shelf_table(shelf, origin, calibrated.value or {})

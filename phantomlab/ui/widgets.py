@@ -17,6 +17,7 @@ import numpy as np
 import streamlit as st
 
 from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.ui.plain_text import plain
 from phantomlab.units import parse_number_list, parse_quantity
 
 __all__ = [
@@ -85,7 +86,7 @@ def call_layer(
                 outcome.warnings.append(message)
     if show:
         if outcome.error:
-            st.error(outcome.error)
+            st.error(plain(outcome.error))  # a refusal may quote what was typed
         show_warnings(outcome.warnings)
     return outcome
 
@@ -97,7 +98,7 @@ def show_warnings(messages) -> None:
         text = _one_line(message)
         if text and text not in seen:
             seen.add(text)
-            st.warning(text)
+            st.warning(plain(text))
 
 
 def quantity_field(
@@ -122,10 +123,10 @@ def quantity_field(
     try:
         value = parse_quantity(text, kind)
     except InputError as exc:
-        place.error(str(exc))
+        place.error(plain(exc))
         return None
     if minimum is not None and not value > minimum:
-        place.error(f"{label}: must be more than {minimum:g}; got {text!r}")
+        place.error(plain(f"{label}: must be more than {minimum:g}; got {text!r}"))
         return None
     return value
 
@@ -148,9 +149,9 @@ def number_list_field(
     try:
         values = parse_number_list(text, name=name)
     except InputError as exc:
-        place.error(str(exc))
+        place.error(plain(exc))
         return None
     if positive and np.any(values <= 0):
-        place.error(f"{name}: every value must be > 0; got {text!r}")
+        place.error(plain(f"{name}: every value must be > 0; got {text!r}"))
         return None
     return values

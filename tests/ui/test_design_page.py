@@ -113,7 +113,8 @@ def test_batch_volume_in_litres_gives_the_same_doses(page):
 
 @pytest.mark.parametrize(
     "typed, reason",
-    [("500", "no unit given"), ("500 nm", "unit of another kind"), ("lots mL", "unknown unit")],
+    [("500", "no unit given"), ("500 nm", "unit of another kind"), ("lots mL", "no number before the unit"), ("5 blorps", "unknown unit"),
+     ("9**9**9 mL", "no arithmetic")],
 )
 def test_bad_batch_volume_is_refused_next_to_the_field(page, typed, reason, shown_text):
     page.text_input(key="design.size").set_value(typed).run()

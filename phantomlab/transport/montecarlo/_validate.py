@@ -4,11 +4,13 @@ from __future__ import annotations
 
 import math
 import numbers
+import zipfile
 
 import numba
 import numpy as np
 
 from phantomlab.errors import InputError
+from phantomlab.limits import check_limit
 
 __all__ = [
     "check_coefficient",
@@ -18,6 +20,7 @@ __all__ = [
     "check_threads",
     "check_choice",
     "check_rho_grid",
+    "check_baseline_file",
 ]
 
 
@@ -101,3 +104,20 @@ def check_rho_grid(rho_mm) -> np.ndarray:
     if np.any(np.diff(grid) <= 0):
         raise InputError("rho_mm must be strictly increasing")
     return grid
+
+
+def check_baseline_file(path) -> None:
+    """A baseline file within the ``baseline_file_mb`` limit, on disk and unpacked.
+
+    An ``.npz`` is a zip: the sizes its members declare bound what loading it would unpack,
+    so a file that would unpack past the limit (a zip bomb) is refused before it is read.
+    """
+    size = path.stat().st_size
+    check_limit("baseline_file_mb", size / 1e6, given=f"baseline file {path.name!r}")
+    if zipfile.is_zipfile(path):
+        try:
+            with zipfile.ZipFile(path) as archive:
+                unpacked = sum(info.file_size for info in archive.infolist())
+        except (zipfile.BadZipFile, OSError, ValueError):
+            raise InputError(f"{str(path)!r} is not a readable .npz baseline (damaged zip)") from None
+        check_limit("baseline_file_mb", unpacked / 1e6, given=f"baseline file {path.name!r} unpacked")

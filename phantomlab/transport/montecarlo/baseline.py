@@ -536,13 +536,18 @@ def load_baseline(path) -> Baseline:
         Missing or unreadable file, not a baseline, another format version, missing
         arrays or inputs, wrong dtypes or lengths, non-finite or impossible values.
     """
+    import zipfile
+
+    from phantomlab.transport.montecarlo._validate import check_baseline_file
+
     source = Path(path)
     if not source.is_file():
         raise InputError(f"baseline file {str(source)!r} does not exist")
+    check_baseline_file(source)  # size limit, before anything is unpacked
     try:
         with np.load(source, allow_pickle=False) as data:
             contents = {key: data[key] for key in data.files}
-    except (OSError, ValueError, EOFError) as exc:
+    except (OSError, ValueError, EOFError, TypeError, zipfile.BadZipFile) as exc:  # TypeError: a bare .npy
         raise InputError(f"{str(source)!r} is not a readable .npz baseline ({type(exc).__name__})") from None
     missing = [key for key in ("inputs_json", *_ARRAYS) if key not in contents]
     if missing:

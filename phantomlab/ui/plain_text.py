@@ -1,0 +1,36 @@
+"""Text a person typed, shown on the page as typed and never as markdown (layer 5).
+
+Streamlit renders the text of ``st.markdown``, ``st.caption``, ``st.error``, ``st.warning``,
+``st.success``, ``st.info`` and headers as markdown: a recipe name, an operator, a shelf
+name, a lot, notes or a refusal quoting what was typed could otherwise carry a link, a
+formatting directive or an image whose address the browser would fetch.  :func:`plain`
+escapes every character markdown gives a meaning to, so the words show as they were typed.
+"""
+
+from __future__ import annotations
+
+import re
+
+__all__ = ["plain", "code_span"]
+
+# The characters that start markdown in a line of text: links and images ([ ] !), autolinks
+# and HTML (< >), emphasis (* and _ at a word edge: snake_case keys stay as they are), code
+# (`), headings (#), strike-through (~), tables (|), Streamlit's LaTeX ($) and the backslash
+# itself.  With [ and ] escaped no link, image or :colour[...] directive can form.
+_MARKDOWN = re.compile(r"([\\`*\[\]<>#~$|])|(?<![A-Za-z0-9])_|_(?![A-Za-z0-9])")
+
+
+def plain(text: object) -> str:
+    """``text`` escaped for Streamlit markdown: shown literally, no link, image or format.
+
+    Examples
+    --------
+    >>> plain("![x](http://example.org/a.png) **b** ink_black _i_")
+    '!\\\\[x\\\\](http://example.org/a.png) \\\\*\\\\*b\\\\*\\\\* ink_black \\\\_i\\\\_'
+    """
+    return _MARKDOWN.sub(lambda match: "\\" + match.group(0), str(text))
+
+
+def code_span(text: object) -> str:
+    """``text`` as a markdown code span (shown literally; a backtick inside cannot end it)."""
+    return "`" + str(text).replace("`", "'").replace("\n", " ") + "`"
