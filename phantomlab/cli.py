@@ -99,8 +99,7 @@ def main(argv: list[str] | None = None) -> int:
         return _emit_error(str(exc))
     handler: Handler | None = getattr(args, "handler", None)
     if handler is None:
-        parser.print_help(sys.stderr)
-        return 2
+        return _emit_error("give a command, e.g. phantomlab plan RECIPE.toml (phantomlab --help lists them)")
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", PhantomlabWarning)
         try:

@@ -101,7 +101,12 @@ def check_limit(name: str, value: float, *, given: str) -> None:
     item = LIMITS[name]
     allowed = limit(name)
     if value > allowed:
-        shown = f"{value:,.0f}" if value < 1e15 else f"{value:.3g}"
+        if value >= 1e15:
+            shown = f"{value:.3g}"
+        elif float(value).is_integer():
+            shown = f"{value:,.0f}"
+        else:
+            shown = f"{value:,.1f}"
         raise InputError(
             f"{given}: {shown} {item.unit}, more than the limit of {allowed:,} {item.unit} "
             f"({item.what}); raise it with {item.variable}=N if you mean it"

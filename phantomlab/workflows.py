@@ -590,7 +590,9 @@ def attach_measurement(
         if sidecar_toml:
             sidecar = parse_toml(sidecar_toml, what="measurement metadata (TOML)")
         source, read_extra = text, {"sidecar": sidecar}
-    info = read_measurement(source, kind=kind, **read_extra)
+    # the geometry options are checked with the file even when no fit runs (--no-fit)
+    checked = {k: v for k, v in fit_options.items() if k in ("n", "n_outside", "thickness_mm", "g")}
+    info = read_measurement(source, kind=kind, **read_extra, **checked)
     result = None
     fit_json = None
     if fit:

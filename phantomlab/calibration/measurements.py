@@ -420,6 +420,8 @@ def _float_value(value, key: str, kind_of_quantity: str | None, where: str) -> f
     if isinstance(value, bool):
         raise InputError(f"{where}: {key} = {value!r}; accepted: a number")
     if isinstance(value, (int, float)):
+        if not math.isfinite(value):
+            raise InputError(f"{where}: {key} = {value!r}; accepted: a finite number")
         return float(value)
     if isinstance(value, str) and kind_of_quantity:
         return parse_quantity(value, kind_of_quantity)

@@ -16,6 +16,7 @@ potency, not as scatter about the line).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, replace
 from typing import Any
 
@@ -125,8 +126,11 @@ def plan_series(recipe: Recipe, stock: str, *, levels: int | None = None, low: f
     high = float(high if high is not None else defaults.get("high", DEFAULT_HIGH))
     if not 3 <= levels <= 5:
         raise InputError(f"series: {levels} levels; give 3 to 5 concentrations")
-    if not (0 < low < high):
-        raise InputError(f"series: range {low:g}-{high:g} × the recipe dose; need 0 < low < high")
+    if not (0 < low < high < math.inf):
+        raise InputError(f"series: range {low:g}-{high:g} × the recipe dose; need 0 < low < high, finite")
+    if batch_mass_g is not None and not recipe.by_mass or batch_volume_ml is not None and recipe.by_mass:
+        sized = "mass: give the batch mass" if recipe.by_mass else "volume: give the batch volume"
+        raise InputError(f"series: this recipe is sized by {sized} of each small batch")
     plan = solve(recipe, potencies=potencies, curve=False)
     dose = plan.dose(stock).volume_fraction
     if dose <= 0:
@@ -137,8 +141,8 @@ def plan_series(recipe: Recipe, stock: str, *, levels: int | None = None, low: f
     else:
         size = float(batch_volume_ml or defaults.get("batch_volume_ml", DEFAULT_SERIES_VOLUME_ML))
         small = replace(recipe, batch_volume_ml=size, batch_mass_g=None)
-    if not size > 0:
-        raise InputError("series: the batch size must be > 0")
+    if not 0 < size < math.inf:
+        raise InputError("series: the batch size must be a finite number > 0")
     table = intrinsic_table(recipe, recipe.target.wavelength_nm)
     base = {d.stock: d.volume_fraction for d in plan.doses if d.stock != stock}
     out = []

@@ -23,6 +23,7 @@ import datetime as _dt
 import hashlib
 import io
 import json
+import re
 import zipfile
 from dataclasses import dataclass
 from pathlib import Path, PurePosixPath
@@ -196,10 +197,9 @@ def _check_manifest(manifest: Any, path: Path) -> None:
     if not isinstance(manifest, dict):
         raise InputError(f"{path.name}: manifest.json is not a JSON object (archive damaged)")
     if {k: manifest.get(k) for k in ARCHIVE_FORMAT} != ARCHIVE_FORMAT:
-        shown = str(manifest.get("format"))[:60]
+        # what the manifest says is not quoted: the file may not be an archive of ours at all
         raise InputError(
-            f"{path.name}: archive format {shown!r} version "
-            f"{str(manifest.get('format_version'))[:10]} not accepted; accepted: "
+            f"{path.name}: archive format or format version not accepted; accepted: "
             f"{ARCHIVE_FORMAT['format']!r} version {ARCHIVE_FORMAT['format_version']}"
         )
     counts = manifest.get("tables")
@@ -211,16 +211,23 @@ def _check_manifest(manifest: Any, path: Path) -> None:
     unknown = sorted(set(counts) - known)
     if unknown:
         raise InputError(
-            f"archive holds tables this phantomlab does not know ({', '.join(u[:40] for u in unknown[:5])}); "
+            f"{path.name}: the archive holds {len(unknown)} table(s) this phantomlab does not know; "
             "it was made by a newer version"
         )
     revision, head = manifest.get("schema_revision"), head_revision()
     if revision != head:
+        made = _shown(revision, r"\d{4}", "(unreadable)")
+        version = _shown(manifest.get("software_version"), r"\d[0-9A-Za-z.+-]{0,30}", "(unreadable)")
         raise InputError(
-            f"{path.name}: archive made at schema revision {str(revision)[:20]!r} by phantomlab "
-            f"{str(manifest.get('software_version'))[:20]}; this phantomlab writes revision {head!r}. Import it with "
-            "the version that exported it; opening that database with this version then upgrades it"
+            f"{path.name}: archive made at schema revision {made} by phantomlab {version}; this phantomlab "
+            f"writes revision {head}. Import it with the version that exported it; opening that database with "
+            "this version then upgrades it"
         )
+
+
+def _shown(value, pattern: str, otherwise: str) -> str:
+    """``value`` if it looks like what it should be (a revision, a version), else a description."""
+    return str(value) if isinstance(value, str) and re.fullmatch(pattern, value) else otherwise
 
 
 def _decode(column, value: Any, *, where: str) -> Any:

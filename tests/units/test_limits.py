@@ -68,3 +68,37 @@ def test_every_limit_is_stated():
         with pytest.raises(InputError, match=item.variable):
             check_limit(item.name, item.default + 1, given="x")
         check_limit(item.name, item.default, given="x")  # the limit itself is allowed
+
+
+# ---- property tests: any text is read or refused in one line, never anything else ----------------
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+_TYPED = st.one_of(
+    st.text(max_size=60),
+    st.text(alphabet="0123456789.eE+-*^/ :,%()nmLlugcKCdayhsµ°wv", max_size=40),
+)
+
+
+@settings(max_examples=300, deadline=None)
+@given(text=_TYPED, kind=st.sampled_from(["volume", "wavelength", "attenuation", "temperature",
+                                          "mass_concentration", "volume_fraction"]))
+def test_any_typed_quantity_is_read_or_refused_in_one_line(text, kind):
+    try:
+        value = parse_quantity(text, kind)
+    except InputError as exc:
+        assert "\n" not in str(exc)
+    else:
+        assert isinstance(value, float) and value == value and abs(value) != float("inf")
+
+
+@settings(max_examples=300, deadline=None)
+@given(text=st.one_of(st.text(max_size=60), st.text(alphabet="0123456789.eE+-:,naif ", max_size=40)))
+def test_any_typed_list_is_read_or_refused_in_one_line(text):
+    try:
+        values = parse_number_list(text, name="--x")
+    except InputError as exc:
+        assert "\n" not in str(exc)
+    else:
+        assert 1 <= values.size <= limit("list_values")
