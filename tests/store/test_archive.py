@@ -122,7 +122,7 @@ def test_import_into_a_database_with_data_is_refused(store, planned_batch, tmp_p
     [
         ("not a zip", "is not a zip archive"),
         ("no manifest", "no manifest.json"),
-        ("wrong format", "archive format 'something else' version 1 not accepted"),
+        ("wrong format", "archive format or format version not accepted"),
         ("bad bytes", "does not match its SHA-256"),
         ("missing table", "tables/fits.json is missing"),
     ],
