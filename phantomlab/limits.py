@@ -45,18 +45,21 @@ LIMITS: dict[str, Limit] = {
         # 8 bytes each, a few arrays of this size at once: about 100 MB.
         Limit("forward_points", 2_000_000, "points",
               "entries x distances (or frequencies) computed by one forward command"),
-        # About 25 min on two cores at mus/mua = 1000 (2 000 photons/ms at lower albedo).
+        # Measured on two shared cores: 18 500 photons/s at mua 0.01, mus 10 /mm, g 0.9 (about
+        # 90 min for the limit); 110 000 photons/s at mua 0.1 /mm, g 0.8 (about 15 min).
         Limit("mc_photons", 100_000_000, "photons",
               "photons launched by one Monte Carlo command, all entries together"),
         # Each stored exit takes 10 bytes: 50 million photons are a 500 MB baseline.
         Limit("baseline_photons", 50_000_000, "photons",
               "photons launched to build one Monte Carlo baseline"),
-        # A 601-wavelength x 100-distance srdr file is about 3 MB; reading takes ~27x the size.
-        Limit("file_mb", 20, "MB",
+        # A 601-wavelength x 300-distance srdr file is 5.7 MB; reading it peaked at 195 MB
+        # (34 times its size, measured with tracemalloc), so the limit allows about 350 MB.
+        Limit("file_mb", 10, "MB",
               "size of one CSV or TOML file read (recipe, stock file, spectrum, measurement, "
               "sidecar, amounts)"),
         Limit("baseline_file_mb", 600, "MB", "size of one Monte Carlo baseline file read"),
-        Limit("archive_mb", 512, "MB",
+        # An import holds the unpacked tables in memory as Python objects, several times their size.
+        Limit("archive_mb", 256, "MB",
               "size of a lab archive, and of its tables once unpacked"),
     )
 }
