@@ -18,6 +18,11 @@ __all__ = ["plain", "code_span"]
 # (`), headings (#), strike-through (~), tables (|), Streamlit's LaTeX ($) and the backslash
 # itself.  With [ and ] escaped no link, image or :colour[...] directive can form.
 _MARKDOWN = re.compile(r"([\\`*\[\]<>#~$|])|(?<![A-Za-z0-9])_|_(?![A-Za-z0-9])")
+# A bare address is made a link by GitHub-flavoured markdown after parsing (an escape does not
+# stop it): an invisible word joiner (U+2060) inside "://" and "www." does.
+_SCHEME = re.compile(r"(?<=[A-Za-z0-9]):(?=//)")
+_WWW = re.compile(r"(?<![A-Za-z0-9])(www)\.", re.IGNORECASE)
+_JOINER = "\u2060"
 
 
 def plain(text: object) -> str:
@@ -26,9 +31,10 @@ def plain(text: object) -> str:
     Examples
     --------
     >>> plain("![x](http://example.org/a.png) **b** ink_black _i_")
-    '!\\\\[x\\\\](http://example.org/a.png) \\\\*\\\\*b\\\\*\\\\* ink_black \\\\_i\\\\_'
+    '!\\\\[x\\\\](http:\\u2060//example.org/a.png) \\\\*\\\\*b\\\\*\\\\* ink_black \\\\_i\\\\_'
     """
-    return _MARKDOWN.sub(lambda match: "\\" + match.group(0), str(text))
+    escaped = _MARKDOWN.sub(lambda match: "\\" + match.group(0), str(text))
+    return _WWW.sub(r"\1" + _JOINER + ".", _SCHEME.sub(":" + _JOINER, escaped))
 
 
 def code_span(text: object) -> str:

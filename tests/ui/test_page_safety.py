@@ -30,6 +30,10 @@ def test_plain_leaves_no_markdown_construct(text):
         if construct in text:
             assert construct not in shown.replace("\\" + construct[0], ""), (construct, shown)
     assert plain("ink_black and snake_case_keys") == "ink_black and snake_case_keys"
+    # bare addresses are made links after parsing: an invisible joiner keeps them text
+    shown = plain("see http://198.51.100.7/x and www.example.org")
+    assert "://" not in shown and "www." not in shown
+    assert shown.replace("\u2060", "") == "see http://198.51.100.7/x and www.example.org"
     assert code_span("a`b") == "`a'b`"
 
 
