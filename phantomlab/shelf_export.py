@@ -33,8 +33,15 @@ __all__ = ["PAGE_STOCK_SOURCE", "CSV_FIELDS", "page_stock_rows", "materialise_re
 #: ``shelf_path`` of the stock-lot records added or edited on the page (not from a file).
 PAGE_STOCK_SOURCE = "added on the page"
 
-#: Stock fields that name a CSV file (relative to the stock file's folder).
-CSV_FIELDS = ("spectrum_csv", "extinction_csv", "cuvette_csv", "size_histogram_csv")
+def _csv_fields() -> tuple[str, ...]:
+    from phantomlab.materials.stock import _FIELDS
+
+    return tuple(sorted({name for fields in _FIELDS.values() for name in fields if name.endswith("_csv")}))
+
+
+#: Stock fields that name a CSV file (relative to the stock file's folder): every ``*_csv``
+#: field any stock kind accepts, so a new kind's files are copied without a change here.
+CSV_FIELDS = _csv_fields()
 
 
 def shelf_document(path) -> dict:

@@ -93,3 +93,33 @@ def test_refusals_leave_nothing_behind(store_with_page_stock, tmp_path):
     with pytest.raises(InputError, match="stock dye_x, field spectrum_csv: file 'missing.csv' not found"):
         export_shelf(store_with_page_stock, bad_shelf, broken)
     assert sorted(p.name for p in tmp_path.iterdir()) == sorted(before + ["bad-stocks.toml"])
+
+
+def test_every_csv_a_stock_names_is_copied_with_the_export(tmp_path):
+    """A page stock with its own solvent spectrum: both CSV files travel with the export."""
+    wl = np.arange(600, 901, 50)
+    (tmp_path / "dye.csv").write_text("# source: demo data, invented\nwavelength_nm,mua_per_mm\n"
+                                      + "".join(f"{w},0.5\n" for w in wl))
+    (tmp_path / "solvent.csv").write_text("# source: demo data, invented\nwavelength_nm,mua_per_mm\n"
+                                          + "".join(f"{w},0.002\n" for w in wl))
+    document = {"stocks": {"dye_solvent": {"kind": "absorber", "lot": "P-2", "potency": 1.0, "potency_sd": 0.1,
+                                           "spectrum_csv": "dye.csv", "solvent_spectrum_csv": "solvent.csv"}}}
+    stock = parse_shelf(document, base=tmp_path)["dye_solvent"]
+    store = open_store(f"sqlite:///{tmp_path / 'lab.sqlite'}")
+    try:
+        with store.transaction() as session:
+            record_stock_lot(session, stock, shelf_path=PAGE_STOCK_SOURCE)
+        for name in ("dye.csv", "solvent.csv"):
+            (tmp_path / name).unlink()
+        out = tmp_path / "export" / "shelf.toml"
+        out.parent.mkdir()
+        done = export_shelf(store, SHELF, out)
+    finally:
+        store.close()
+    exported = load_shelf(out).stocks["dye_solvent"]
+    copied = {path.name.split("-")[1] for path in done.files if path.name.startswith("dye_solvent")}
+    assert copied == {"spectrum_csv", "solvent_spectrum_csv"}
+    from phantomlab.optics import intrinsic_optics
+
+    np.testing.assert_allclose(intrinsic_optics(exported, wavelength_nm=np.array([700.0]), matrix=None).mua_per_mm,
+                               intrinsic_optics(stock, wavelength_nm=np.array([700.0]), matrix=None).mua_per_mm)
