@@ -287,9 +287,10 @@ def slab_reflectance_transmittance(
         Absorption of the slide glass (0: clear glass).
     incidence : {'collimated', 'diffuse'}
         A normally incident collimated beam, or diffuse (Lambertian) light.
-    quadrature_points : int or None
-        Streams per hemisphere (even, >= 4, at most :data:`MAX_QUADRATURE_POINTS`); None
-        (default) chooses them per wavelength from g (:func:`streams_for_anisotropy`).
+    quadrature_points : int, array of int (W,) or None
+        Streams per hemisphere (even, >= 4, at most :data:`MAX_QUADRATURE_POINTS`), one for
+        all or one per wavelength; None (default) chooses them per wavelength from g
+        (:func:`streams_for_anisotropy`).
     method : {'eigen', 'doubling'}
         Layer solver (module docstring); both solve the same discretisation.
 
@@ -310,12 +311,14 @@ def slab_reflectance_transmittance(
     count = None
     if quadrature_points is not None:
         try:
-            count = int(quadrature_points)
+            count = np.asarray(quadrature_points, dtype=float)
         except (TypeError, ValueError):
-            raise InputError(f"quadrature_points must be an even integer >= 4, got {quadrature_points!r}") from None
-        if count != quadrature_points or count < 4 or count % 2 or count > MAX_QUADRATURE_POINTS:
-            raise InputError(f"quadrature_points must be an even integer from 4 to {MAX_QUADRATURE_POINTS}, "
-                             f"got {quadrature_points!r}")
+            count = np.array(np.nan)
+        if (count.ndim > 1 or not np.all(np.isfinite(count)) or np.any(count != np.round(count))
+                or np.any(count < 4) or np.any(count % 2) or np.any(count > MAX_QUADRATURE_POINTS)):
+            raise InputError(f"quadrature_points must be an even integer from 4 to {MAX_QUADRATURE_POINTS} "
+                             f"(or one per wavelength), got {quadrature_points!r}")
+        count = count.astype(int)
     mua = as_coefficient(mua_per_mm, "mua_per_mm")
     mus = as_coefficient(mus_per_mm, "mus_per_mm")
     g_arr = as_anisotropy(g)
@@ -343,7 +346,9 @@ def slab_reflectance_transmittance(
         top = Face(n_arr, n_out, top.n_slide, top.slide_mua_per_mm, top.slide_thickness_mm)
         bottom = Face(n_arr, n_out, bottom.n_slide, bottom.slide_mua_per_mm, bottom.slide_thickness_mm)
 
-    counts = streams_for_anisotropy(g_arr) if count is None else np.full(shape, count)
+    if count is not None and count.ndim == 1 and count.shape != shape:
+        raise InputError(f"quadrature_points: {count.size} counts for {shape[0]} wavelengths")
+    counts = streams_for_anisotropy(g_arr) if count is None else np.broadcast_to(count, shape)
     values = None
     for streams in np.unique(counts):  # wavelengths needing the same streams are solved together
         rows = np.flatnonzero(counts == streams)

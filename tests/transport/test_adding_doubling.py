@@ -191,7 +191,7 @@ def test_nan_gives_nan_only_where_given():
         ({"n_slide": 0.5}, r"n_slide \(refractive index\) must be >= 1"),
         ({"thickness_mm": -1.0}, r"thickness_mm must be finite and >= 0 \[mm\]"),
         ({"incidence": "oblique"}, r"unknown incidence 'oblique'; valid: collimated, diffuse"),
-        ({"quadrature_points": 7}, r"quadrature_points must be an even integer from 4 to 256, got 7"),
+        ({"quadrature_points": 7}, r"quadrature_points must be an even integer from 4 to 256 \(or one per wavelength\), got 7"),
         ({"mua_per_mm": [0.1, 0.2], "mus_per_mm": [1, 2, 3]}, "must share one shape"),
     ],
 )
