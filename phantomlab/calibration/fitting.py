@@ -387,6 +387,9 @@ class FitResult:
     source, name : str or None
         The file's ``# source:`` line and name.
     replicates : int
+    extras : dict
+        Further per-wavelength outputs of a kind, written as top-level JSON keys after the
+        standard ones (slab and sphere: ``g``, ``g_sd``, ``total_reflectance``, ...).
     """
 
     kind: str
@@ -408,6 +411,7 @@ class FitResult:
     name: str | None = None
     replicates: int = 1
     dof: float = float("nan")
+    extras: Mapping[str, Any] = field(default_factory=dict)
 
     def to_json(self) -> dict[str, Any]:
         """The ``fit`` object of docs/contract.md (exact keys first, extras after), JSON-ready."""
@@ -434,6 +438,8 @@ class FitResult:
         if self.scale_factor is not None:
             payload["scale_factor"] = self.scale_factor
             payload["scale_factor_sd"] = self.scale_factor_sd
+        for key, value in self.extras.items():
+            payload.setdefault(key, value)
         return to_jsonable(payload)
 
     def with_warnings(self, messages) -> "FitResult":

@@ -8,7 +8,11 @@ per point, an optional first line ``# source: ...``:
   ``wavelength_nm,rho_mm,reading[,sd]`` (raw instrument reading, calibrated with a reference
   phantom named in the sidecar, see :mod:`phantomlab.calibration.reference`);
 * ``sfdi``  ``wavelength_nm,fx_per_mm,reflectance[,sd]`` or ``...,reading[,sd]`` (raw);
-* ``slab``  ``wavelength_nm,total_reflectance,total_transmittance[,sd_r,sd_t]``;
+* ``slab``  ``wavelength_nm,total_reflectance,total_transmittance[,collimated_transmittance]``
+  ``[,sd_r,sd_t[,sd_tc]]`` (already corrected for the sphere);
+* ``sphere`` ``wavelength_nm,r_sample,r_standard,r_dark,t_sample,t_open,t_dark``
+  ``[,tc_sample,tc_open,tc_dark]``: raw detector readings of integrating spheres, the sphere
+  geometry in the sidecar's ``[sphere]`` table (:mod:`phantomlab.calibration.sphere_readings`);
 * ``optics`` ``wavelength_nm,mua_per_mm,musp_per_mm[,mua_sd_per_mm,musp_sd_per_mm]``.
 
 Metadata sit in a TOML file of the same name beside the CSV (``m1.csv`` → ``m1.toml``) or
@@ -45,7 +49,12 @@ __all__ = [
 ]
 
 #: Measurement kinds and the abscissa column each one has (None: one point per wavelength).
-KINDS: dict[str, str | None] = {"srdr": "rho_mm", "sfdi": "fx_per_mm", "slab": None, "optics": None}
+KINDS: dict[str, str | None] = {"srdr": "rho_mm", "sfdi": "fx_per_mm", "slab": None, "sphere": None,
+                                "optics": None}
+
+#: Raw sphere readings (kind ``sphere``): reflection, transmission, optional collimated beam.
+SPHERE_READING_COLUMNS = ("r_sample", "r_standard", "r_dark", "t_sample", "t_open", "t_dark")
+SPHERE_COLLIMATED_COLUMNS = ("tc_sample", "tc_open", "tc_dark")
 
 #: Plausible wavelength range of an optical phantom measurement [nm]; outside it, the number is
 #: most likely in another unit (um) and is refused.
@@ -55,13 +64,16 @@ _VALUE_COLUMNS: dict[str, tuple[tuple[str, ...], ...]] = {
     # each alternative: the value column(s); sd columns follow in _SD_COLUMNS
     "srdr": (("reflectance_per_mm2",), ("reflectance_relative",), ("reading",)),
     "sfdi": (("reflectance",), ("reading",)),
-    "slab": (("total_reflectance", "total_transmittance"),),
+    "slab": (("total_reflectance", "total_transmittance", "collimated_transmittance"),
+             ("total_reflectance", "total_transmittance")),
+    "sphere": (SPHERE_READING_COLUMNS + SPHERE_COLLIMATED_COLUMNS, SPHERE_READING_COLUMNS),
     "optics": (("mua_per_mm", "musp_per_mm"),),
 }
 _SD_COLUMNS: dict[str, tuple[str, ...]] = {
     "srdr": ("sd",),
     "sfdi": ("sd",),
-    "slab": ("sd_r", "sd_t"),
+    "slab": ("sd_r", "sd_t", "sd_tc"),
+    "sphere": (),
     "optics": ("mua_sd_per_mm", "musp_sd_per_mm"),
 }
 # Unit-bearing stems: a column with this stem but another unit suffix is a unit slip.
@@ -78,7 +90,15 @@ _METADATA_KEYS = {
     "n", "n_outside", "thickness_mm", "g", "n_slide", "slide_thickness_mm", "slides",
     "specular_included", "instrument", "date", "port_diameter_mm", "beam_diameter_mm",
     "probe", "operator", "notes", "reference", "phantom_age_days", "temperature_c",
+    "unscattered_included", "sample_diameter_mm", "lost_light", "lost_light_photons", "lost_light_wavelengths",
+    "sphere",
 }
+
+#: Light-loss corrections a sidecar may ask for (``lost_light``).
+LOST_LIGHT_METHODS = ("none", "monte-carlo")
+#: Limits of the lost-light Monte Carlo settings a user can type.
+LOST_LIGHT_PHOTONS_RANGE = (1_000, 10_000_000)
+LOST_LIGHT_WAVELENGTHS_RANGE = (1, 50)
 
 
 @dataclass(frozen=True)
@@ -130,8 +150,19 @@ class MeasurementMetadata:
     specular_included : bool
         Whether the total reflectance includes the specular part (sphere with the specular
         port closed).
+    unscattered_included : bool
+        Whether the total transmittance includes the unscattered beam (no exit port in line
+        with the beam).
     port_diameter_mm, beam_diameter_mm : float or None [mm]
-        Integrating-sphere sample port and beam diameters (edge-loss check).
+        Integrating-sphere sample port and beam diameters (edge-loss check, lost light).
+    sample_diameter_mm : float or None [mm]
+        Diameter of the sample (light reaching its edge is lost).
+    lost_light : str
+        ``none`` or ``monte-carlo`` (correct the fit for light lost at ports and edges).
+    lost_light_photons, lost_light_wavelengths : int
+        Photons per Monte Carlo run and most wavelengths run (the rest interpolated).
+    sphere : SphereSpec or None
+        Sphere geometry and standard of a ``sphere`` measurement.
     instrument, date : str or None
     reference : ReferenceSpec or None
     extra : dict
@@ -146,8 +177,14 @@ class MeasurementMetadata:
     slide_thickness_mm: float = 0.0
     slides: str = "none"
     specular_included: bool = True
+    unscattered_included: bool = True
     port_diameter_mm: float | None = None
     beam_diameter_mm: float | None = None
+    sample_diameter_mm: float | None = None
+    lost_light: str = "none"
+    lost_light_photons: int = 100_000
+    lost_light_wavelengths: int = 8
+    sphere: Any = None
     instrument: str | None = None
     date: str | None = None
     reference: ReferenceSpec | None = None
@@ -249,6 +286,8 @@ def _check_header(header: list[str], kind: str, name: str) -> tuple[tuple[str, .
     values = None
     for alternative in _VALUE_COLUMNS[kind]:
         if all(c in header for c in alternative):
+            if values is not None and set(alternative) <= set(values):
+                continue  # an optional column's shorter layout
             if values is not None:
                 raise InputError(
                     f"{name}: header has both {','.join(values)} and {','.join(alternative)}; "
@@ -264,6 +303,12 @@ def _check_header(header: list[str], kind: str, name: str) -> tuple[tuple[str, .
             f"{','.join(_SD_COLUMNS[kind][: len(values)])}; give all SD columns or none"
         )
     known = set(required) | set(values) | set(_SD_COLUMNS[kind])
+    partial = [c for a in _VALUE_COLUMNS[kind] for c in a if c in header and c not in values]
+    if partial:
+        group = next(a for a in _VALUE_COLUMNS[kind] if partial[0] in a)
+        missing = [c for c in group if c not in header]
+        raise InputError(f"{name}: header has {partial[0]} but lacks {','.join(missing)}; a {kind} file needs "
+                         f"{_layout(kind)}")
     for position, column in enumerate(header, start=1):
         if column not in known:
             raise InputError(
@@ -277,6 +322,10 @@ def _layout(kind: str) -> str:
     lead = "wavelength_nm" + (f",{axis}" if axis else "")
     alternatives = " or ".join(",".join(a) for a in _VALUE_COLUMNS[kind])
     sds = ",".join(_SD_COLUMNS[kind])
+    if kind == "slab":
+        return f"{lead},total_reflectance,total_transmittance[,collimated_transmittance][,sd_r,sd_t[,sd_tc]]"
+    if kind == "sphere":
+        return f"{lead},{','.join(SPHERE_READING_COLUMNS)}[,{','.join(SPHERE_COLLIMATED_COLUMNS)}]"
     return f"{lead},{alternatives}[,{sds}]"
 
 
@@ -371,8 +420,12 @@ def parse_measurement_text(
         axis = np.zeros(0)
         values = np.array([[r[c] for c in value_columns] for _, r in records])
         sd = np.array([[r[c] for c in sd_columns] for _, r in records]) if sd_columns else None
-    scale = {"reflectance_relative": "relative", "reading": "raw"}.get(value_columns[0], "absolute")
-    if scale == "raw" and metadata.reference is None:
+    scale = {"reflectance_relative": "relative", "reading": "raw", "r_sample": "raw"}.get(value_columns[0], "absolute")
+    if kind == "sphere":
+        from phantomlab.calibration.sphere_readings import check_readings
+
+        values, sd = check_readings(values, value_columns, wavelengths, records, metadata, name)
+    if scale == "raw" and kind != "sphere" and metadata.reference is None:
         raise InputError(
             f"{name}: column {value_columns[0]} holds raw readings but no reference phantom is "
             f"given; add a [reference] table to the sidecar TOML (mua_per_mm, musp_per_mm, reading_csv)"
@@ -400,8 +453,13 @@ def _check_ranges(record, kind, where, value_columns, sd_columns) -> None:
         raise InputError(f"{where}, column rho_mm: 0 mm; source-detector distances must be > 0")
     for column in value_columns:
         value = record[column]
+        if kind == "sphere":
+            continue  # raw readings: their net signals are checked after the dark is taken off
         if value < 0:
             raise InputError(f"{where}, column {column}: {value:g} is negative; accepted: >= 0")
+        if kind == "slab" and column == "collimated_transmittance" and value == 0:
+            raise InputError(f"{where}, column collimated_transmittance: 0; accepted: > 0 (leave the column "
+                             f"out where the collimated beam was not measurable)")
         if kind == "slab" and value > 1:
             raise InputError(f"{where}, column {column}: {value:g} above 1; accepted: 0 to 1 (a fraction, not %)")
         if kind == "optics" and column == "musp_per_mm" and value == 0:
@@ -458,7 +516,9 @@ def metadata_from_mapping(
             raise InputError(f"{where}: {key} = {kwargs[key]:g}; accepted: 1.0 to 3.0")
     if "g" in kwargs and not -1.0 < kwargs["g"] < 1.0:
         raise InputError(f"{where}: g = {kwargs['g']:g}; accepted: -1 < g < 1")
-    for key in ("thickness_mm", "port_diameter_mm", "beam_diameter_mm"):
+    if "sample_diameter_mm" in table and table["sample_diameter_mm"] is not None:
+        kwargs["sample_diameter_mm"] = _float_value(table["sample_diameter_mm"], "sample_diameter_mm", "length", where)
+    for key in ("thickness_mm", "port_diameter_mm", "beam_diameter_mm", "sample_diameter_mm"):
         if key in kwargs and kwargs[key] <= 0:
             raise InputError(f"{where}: {key} = {kwargs[key]:g}; accepted: > 0")
     if "slide_thickness_mm" in kwargs and kwargs["slide_thickness_mm"] < 0:
@@ -467,10 +527,27 @@ def metadata_from_mapping(
         if table["slides"] not in ("none", "top", "bottom", "both"):
             raise InputError(f"{where}: slides = {table['slides']!r}; accepted: none, top, bottom, both")
         kwargs["slides"] = table["slides"]
-    if "specular_included" in table and table["specular_included"] is not None:
-        if not isinstance(table["specular_included"], bool):
-            raise InputError(f"{where}: specular_included = {table['specular_included']!r}; accepted: true or false")
-        kwargs["specular_included"] = table["specular_included"]
+    for key in ("specular_included", "unscattered_included"):
+        if key in table and table[key] is not None:
+            if not isinstance(table[key], bool):
+                raise InputError(f"{where}: {key} = {table[key]!r}; accepted: true or false")
+            kwargs[key] = table[key]
+    if "lost_light" in table and table["lost_light"] is not None:
+        if table["lost_light"] not in LOST_LIGHT_METHODS:
+            raise InputError(f"{where}: lost_light = {table['lost_light']!r}; accepted: "
+                             f"{', '.join(LOST_LIGHT_METHODS)}")
+        kwargs["lost_light"] = table["lost_light"]
+    for key, (low, high) in (("lost_light_photons", LOST_LIGHT_PHOTONS_RANGE),
+                             ("lost_light_wavelengths", LOST_LIGHT_WAVELENGTHS_RANGE)):
+        if key in table and table[key] is not None:
+            value = table[key]
+            if isinstance(value, bool) or not isinstance(value, int) or not low <= value <= high:
+                raise InputError(f"{where}: {key} = {value!r}; accepted: a whole number from {low} to {high}")
+            kwargs[key] = value
+    if table.get("sphere") is not None:
+        from phantomlab.calibration.sphere_readings import sphere_spec_from_table
+
+        kwargs["sphere"] = sphere_spec_from_table(table["sphere"], where=where, base_dir=base_dir)
     if "instrument" in table and table["instrument"] is not None:
         kwargs["instrument"] = str(table["instrument"])
     if "date" in table and table["date"] is not None:  # a date, never silently today

@@ -93,7 +93,7 @@ def test_bad_files_are_refused_with_one_line(kind, text, words):
 
 
 def test_unknown_kind_refused():
-    with pytest.raises(InputError, match="unknown measurement kind 'tof'; accepted: srdr, sfdi, slab, optics"):
+    with pytest.raises(InputError, match="unknown measurement kind 'tof'; accepted: srdr, sfdi, slab, sphere, optics"):
         parse_measurement_text(SRDR, kind="tof")
 
 
