@@ -26,12 +26,15 @@ FIT_MODELS: dict[str, tuple[str, ...]] = {
     "srdr": ("kienle1997", "farrell1992", "mc"),
     "sfdi": ("cuccia2009", "mc"),
     "slab": ("adding-doubling",),
+    "sphere": ("adding-doubling",),
     "optics": ("direct",),
 }
 DEFAULT_MODELS = {kind: models[0] for kind, models in FIT_MODELS.items()}
 
 _METADATA_OPTIONS = ("n", "n_outside", "thickness_mm", "g", "n_slide", "slide_thickness_mm", "slides",
-                     "specular_included", "port_diameter_mm", "beam_diameter_mm", "reference", "sidecar")
+                     "specular_included", "unscattered_included", "port_diameter_mm", "beam_diameter_mm",
+                     "sample_diameter_mm", "lost_light", "lost_light_photons", "lost_light_wavelengths",
+                     "reference", "sidecar")
 
 
 def _load_baseline(baseline):
@@ -81,6 +84,10 @@ def fit_measurement(
     if model not in FIT_MODELS[kind]:
         raise InputError(f"unknown {kind} fit model {model!r}; accepted: {', '.join(FIT_MODELS[kind])}")
     baseline = _load_baseline(baseline)
+    if kind == "sphere":
+        from phantomlab.calibration.fit_sphere import fit_sphere
+
+        return fit_sphere(measurement, n=n, n_outside=n_outside, g=g)
     if measurement.scale == "raw":
         from phantomlab.calibration.reference import calibrate_reading
 
@@ -111,7 +118,7 @@ def fit_measurement_file(path_or_text, *, kind: str, **metadata: Any) -> FitResu
         A CSV file (its TOML sidecar ``NAME.toml`` is read when present), or the CSV text
         itself (a string with a line break).  A list or tuple gives replicate measurements
         of one phantom, combined with their spread before the fit.
-    kind : {'srdr', 'sfdi', 'slab', 'optics'}
+    kind : {'srdr', 'sfdi', 'slab', 'sphere', 'optics'}
     **metadata
         Options that win over the sidecar: ``n``, ``n_outside``, ``thickness_mm`` [mm],
         ``g``, ``n_slide``, ``slide_thickness_mm`` [mm], ``slides``, ``specular_included``,

@@ -250,7 +250,10 @@ def slab_messages(measurement, result: FitResult, solution: SlabSolution, thickn
     if not np.all(solution.converged):
         messages.append(f"the fit did not converge at {_bands(result.wavelength_nm, ~solution.converged)}")
     if lost is None:
-        messages += slab_edge_warnings(thickness_mm=thickness_mm, port_diameter_mm=meta.port_diameter_mm,
+        port = meta.port_diameter_mm
+        if meta.sphere is not None:
+            port = min(meta.sphere.reflection.sample_port_mm, meta.sphere.transmission.sample_port_mm)
+        messages += slab_edge_warnings(thickness_mm=thickness_mm, port_diameter_mm=port,
                                        wavelength_nm=result.wavelength_nm, mua_per_mm=result.mua_per_mm,
                                        musp_per_mm=result.musp_per_mm)
     else:

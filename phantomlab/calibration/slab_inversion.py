@@ -221,7 +221,8 @@ def invert_slab(model: SlabModel, *, data, sd, g=None, start=None) -> SlabSoluti
     g : float, array (W,) or None
         The anisotropy when given; None fits it (needs Tc at every wavelength).
     start : ndarray (W, 3), optional
-        Start in (log μa, log μs′, g) (a previous solution, e.g. in the lost-light loop).
+        Start in (log μa, log μs′, g): a previous solution (the sphere and lost-light loops);
+        the coarse first stage is then skipped.
 
     Returns
     -------
@@ -249,8 +250,9 @@ def invert_slab(model: SlabModel, *, data, sd, g=None, start=None) -> SlabSoluti
     # Stage 1: a cheap quadrature brings every wavelength close (its error is a few per cent at
     # most); stage 2: the streams the reached g needs, from there (two or three Newton steps).
     W_all = np.arange(W)
-    coarse = np.full(W, _GRID_STREAMS)
-    x, _, _, _ = _newton(residuals, x, coarse, P, lower, upper, W_all, tolerance=_COARSE_TOLERANCE)
+    if start is None:  # a given start is already close (a previous solution): no coarse stage
+        coarse = np.full(W, _GRID_STREAMS)
+        x, _, _, _ = _newton(residuals, x, coarse, P, lower, upper, W_all, tolerance=_COARSE_TOLERANCE)
     streams = streams_for_anisotropy(x[:, 2])
     rows = W_all
     r = np.zeros((W, data.shape[1]))

@@ -1,14 +1,17 @@
 """``phantomlab fit``: fitted μa and μs′ of a measurement file (layer 5, no physics).
 
-    phantomlab fit MEASUREMENT.csv --kind {srdr,sfdi,slab,optics} [--n N] [--n-outside N]
+    phantomlab fit MEASUREMENT.csv --kind {srdr,sfdi,slab,sphere,optics} [--n N] [--n-outside N]
                    [--thickness-mm D] [--model M] [--g G] [--baseline FILE]
                    [--musp-power-law] [--mua-from-stocks RECIPE.toml] [--json]
 
 JSON keys (docs/contract.md): ``wavelength_nm``, ``mua_per_mm``, ``musp_per_mm``, ``mua_sd_per_mm``,
 ``musp_sd_per_mm``, ``model``, ``chi2_red``, ``warnings``; extras: ``kind``,
 ``covariance_mua_musp``, ``chi2_red_per_wavelength``, ``residuals``, ``parameters``,
-``source``, ``replicates``, ``scale_factor`` (relative data).  Several files after each
-other are replicates of one phantom, combined with their spread.
+``source``, ``replicates``, ``scale_factor`` (relative data); slab and sphere: ``g``, ``g_sd``
+(null when g was given), ``g_fitted``, ``total_reflectance``, ``total_transmittance`` (and
+``collimated_transmittance``) with ``*_sd`` — for ``sphere`` derived from the readings — the
+model's values, and the lost-light keys when corrected.  Several files after each other are
+replicates of one phantom, combined with their spread.
 """
 
 from __future__ import annotations
@@ -23,21 +26,24 @@ __all__ = ["register"]
 def register(subparsers) -> None:
     parser = subparsers.add_parser(
         "fit",
-        help="fit mua and mus' to a measurement file (srdr, sfdi, slab, optics)",
+        help="fit mua and mus' to a measurement file (srdr, sfdi, slab, sphere, optics)",
         description="Inverse fit of a measurement file: mua and mus' per wavelength with SDs. "
         "Metadata come from NAME.toml beside the file; options win over it.",
     )
     parser.add_argument("files", nargs="+", metavar="MEASUREMENT.csv",
                         help="the measurement file (several: replicates of one phantom)")
-    parser.add_argument("--kind", required=True, choices=("srdr", "sfdi", "slab", "optics"))
+    parser.add_argument("--kind", required=True, choices=("srdr", "sfdi", "slab", "sphere", "optics"),
+                        help="sphere: raw integrating-sphere readings, the spheres described in the sidecar")
     parser.add_argument("--n", type=float, default=None, metavar="N", help="refractive index of the phantom")
     parser.add_argument("--n-outside", type=float, default=None, metavar="N",
                         help="refractive index outside (default 1.0, air)")
     parser.add_argument("--thickness-mm", type=float, default=None, metavar="D", help="slab thickness in mm")
     parser.add_argument("--model", default=None, metavar="M",
                         help="srdr: kienle1997 (default), farrell1992, mc; sfdi: cuccia2009 (default), mc; "
-                        "slab: adding-doubling")
-    parser.add_argument("--g", type=float, default=None, metavar="G", help="anisotropy assumed (slab)")
+                        "slab, sphere: adding-doubling")
+    parser.add_argument("--g", type=float, default=None, metavar="G",
+                        help="anisotropy assumed (slab, sphere); without it g is fitted from the collimated "
+                        "transmittance when the file has it")
     parser.add_argument("--baseline", default=None, metavar="FILE",
                         help="stored Monte Carlo baseline for --model mc")
     parser.add_argument("--musp-power-law", action="store_true",
@@ -51,23 +57,40 @@ def register(subparsers) -> None:
 
 def _table(result) -> str:
     scaled = result.scale_factor is not None  # relative data: the fitted instrument scale too
+    fitted_g = bool(result.extras.get("g_fitted"))
     header = (f"{'wavelength_nm':>13}  {'mua [1/mm]':>11}  {'sd':>9}  {'musp [1/mm]':>11}  {'sd':>9}"
-              f"  {'chi2_red':>8}" + (f"  {'scale':>10}" if scaled else ""))
+              + (f"  {'g':>7}  {'sd':>7}" if fitted_g else "")
+              + f"  {'chi2_red':>8}" + (f"  {'scale':>10}" if scaled else ""))
     lines = [f"fit of {result.name} ({result.kind}, model {result.model})", header, "-" * len(header)]
 
     def number(value, width, spec):
         return f"{value:{width}{spec}}" if np.isfinite(value) else f"{'-':>{width}}"
 
     scales = result.scale_factor if scaled else np.full(result.wavelength_nm.shape, np.nan)
-    for w, a, sa, s, ss, c, k in zip(result.wavelength_nm, result.mua_per_mm, result.mua_sd_per_mm,
-                                     result.musp_per_mm, result.musp_sd_per_mm, result.chi2_red_per_wavelength,
-                                     scales):
+    nothing = np.full(result.wavelength_nm.shape, np.nan)
+    g_values = np.asarray(result.extras.get("g", nothing), float)
+    g_sds = np.asarray(result.extras.get("g_sd") if result.extras.get("g_sd") is not None else nothing, float)
+    for w, a, sa, s, ss, gv, gs, c, k in zip(result.wavelength_nm, result.mua_per_mm, result.mua_sd_per_mm,
+                                             result.musp_per_mm, result.musp_sd_per_mm, g_values, g_sds,
+                                             result.chi2_red_per_wavelength, scales):
         lines.append(f"{w:13.1f}  {number(a, 11, '.5g')}  {number(sa, 9, '.3g')}  {number(s, 11, '.5g')}  "
-                     f"{number(ss, 9, '.3g')}  {number(c, 8, '.3g')}" + (f"  {number(k, 10, '.4g')}" if scaled else ""))
+                     f"{number(ss, 9, '.3g')}" + (f"  {number(gv, 7, '.4f')}  {number(gs, 7, '.2g')}" if fitted_g else "")
+                     + f"  {number(c, 8, '.3g')}" + (f"  {number(k, 10, '.4g')}" if scaled else ""))
     lines.append("reduced chi2 over the file: " + (f"{result.chi2_red:.3g}" if np.isfinite(result.chi2_red)
                                                     else "- (no degrees of freedom, or no sd column)"))
+    if "g_fitted" in result.extras:
+        if fitted_g:
+            lines.append("g: fitted from the collimated transmittance (with mua and musp)")
+        else:
+            lines.append(f"g: {result.parameters['g']['value']:g} given (assumed, not fitted; a collimated "
+                         f"transmittance would let the fit return it)")
+    if result.kind == "sphere":
+        correction = np.asarray(result.extras.get("sphere_correction_reflectance"), float)
+        lines.append(f"sphere readings converted in {result.extras.get('sphere_rounds')} rounds; derived R / "
+                     f"(plain ratio to the standard) = {np.nanmin(correction):.4g} to {np.nanmax(correction):.4g}")
     for name, value in result.parameters.items():
-        lines.append(f"{name}: {value}")
+        if name != "g":
+            lines.append(f"{name}: {value}")
     return "\n".join(lines)
 
 
