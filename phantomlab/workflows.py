@@ -593,6 +593,8 @@ def attach_measurement(
     # the geometry options are checked with the file even when no fit runs (--no-fit)
     checked = {k: v for k, v in fit_options.items() if k in ("n", "n_outside", "thickness_mm", "g")}
     info = read_measurement(source, kind=kind, **read_extra, **checked)
+    if kind == "sphere":
+        sidecar_toml = _sphere_sidecar_for_the_record(sidecar_toml, info)
     result = None
     fit_json = None
     if fit:
@@ -624,6 +626,30 @@ def attach_measurement(
             measured_on=measured_on, phantom_age_days=age, batch_status=batch.status,
         )
     return attached
+
+
+def _sphere_sidecar_for_the_record(sidecar_toml: str | None, measurement) -> str | None:
+    """The sidecar as stored with a sphere measurement: the standard's spectrum written inline.
+
+    A sidecar naming ``standard_csv`` would be useless in the database without that file;
+    the stored TOML carries the spectrum the fit used instead (the CSV stays byte for byte).
+    """
+    spec = getattr(measurement.metadata, "sphere", None)
+    if not sidecar_toml or spec is None:
+        return sidecar_toml
+    table = tomllib.loads(sidecar_toml)
+    sphere = dict(table.get("sphere", {}))
+    if "standard_csv" not in sphere:
+        return sidecar_toml
+    import tomli_w
+
+    source = sphere.pop("standard_csv")
+    sphere["standard_wavelength_nm"] = [float(v) for v in spec.standard_wavelength_nm]
+    sphere["standard_reflectance"] = [float(v) for v in spec.standard_reflectance]
+    sphere["standard_reflectance_sd"] = [float(v) for v in spec.standard_reflectance_sd]
+    table["sphere"] = sphere
+    return (f"# stored by phantomlab: the standard's spectrum from {source} written inline\n"
+            + tomli_w.dumps(table))
 
 
 def keep_fit(store, measurement_id: int, result, *, recorded_by: str | None = None) -> int:

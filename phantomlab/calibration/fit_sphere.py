@@ -1,26 +1,29 @@
-"""Raw integrating-sphere readings to μa, μs′ (and g): convert, fit, correct, repeat (layer 3).
+"""Raw integrating-sphere readings to μa, μs′ (and g) (layer 3).
 
-The readings of a ``sphere`` measurement (:mod:`phantomlab.calibration.sphere_readings`)
-become the slab's total reflectance and transmittance through the sphere equations
-(:mod:`phantomlab.calibration.sphere`), which need what the sample does with the diffuse
-light inside the spheres (its reflectance and transmittance for diffuse light) and its
-unscattered transmittance — properties of the optics being fitted.  So the fit iterates
-(the approach of Pickering et al. 1993): convert with the current estimate, fit the slab
-(:mod:`phantomlab.calibration.slab_inversion`), compute those properties by adding-doubling
-at the fitted optics, convert again; the derived R and T settle within a few rounds (the
-sphere's dependence on the sample is weak: it enters through a_sample · r_dif).  The
-lost-light correction, when asked for, wraps this loop
+The readings of a ``sphere`` measurement (:mod:`phantomlab.calibration.sphere_readings`),
+normalised to the standard and the open beam (M_R, M_T and M_Tc), are fitted directly: the
+forward model (:class:`SphereReadingsModel`) runs adding-doubling for the collimated beam
+and for diffuse light at the optics being tried and puts the results through the sphere
+equations (:mod:`phantomlab.calibration.sphere`), so the sphere's dependence on the sample
+(the substitution error, and the exchange between two spheres) is exact at every step —
+the forward half of the method of Pickering et al. (1993), without an outer loop of
+convert → fit → convert (tried first: the double sphere made it oscillate and need ten
+rounds).  The same per-wavelength solver as the slab kind
+(:mod:`phantomlab.calibration.slab_inversion`) fits μa, μs′ and, with the collimated
+readings, g; the lost-light correction, when asked for, wraps it
 (:mod:`phantomlab.calibration.lost_light`).
 
-The SDs of the derived R and T come from the readings' SDs (sidecar noise model or
-replicate files), the standard's calibration SD and the wall reflectance SD, by first-order
-propagation through the conversion; the correlation the double-sphere conversion puts
-between R and T is reported, not used by the fit.
+The slab's R and T derived from the readings (the contract's ``total_reflectance`` and
+``total_transmittance``) are computed once at the fitted optics (:func:`convert_readings`),
+with SDs from the readings' SDs (sidecar noise model or replicate files), the standard's
+calibration SD and the wall reflectance SD by first-order propagation; the correlation the
+double-sphere conversion puts between R and T is reported.  In the fit itself the
+standard's and the wall's SDs enter as an effective SD of M_R and M_T.
 
 References
 ----------
-Pickering JW et al. 1993, Appl Opt 32:399 (double-integrating-sphere system; conversion of
-sphere signals with the inverse adding-doubling loop).
+Pickering JW et al. 1993, Appl Opt 32:399 (double-integrating-sphere system; sphere signals
+predicted from the slab's optics inside the inverse adding-doubling search).
 """
 
 from __future__ import annotations
@@ -30,20 +33,23 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from phantomlab.calibration.fit_slab import _finish, result_from_solution, slab_messages, slab_model, slab_options
+from phantomlab.calibration.slab_inversion import _pick
 from phantomlab.calibration.fitting import FitResult
 from phantomlab.calibration.measurements import Measurement
-from phantomlab.calibration.slab_inversion import SlabModel, SlabSolution, invert_slab
-from phantomlab.calibration.sphere import diffuse_parts_from_readings
+from phantomlab.calibration.slab_inversion import SlabModel, invert_slab
+from phantomlab.calibration.sphere import (
+    SphereSetup,
+    diffuse_parts_from_readings,
+    open_beam_signal,
+    sample_signals,
+    standard_signal,
+)
 from phantomlab.calibration.sphere_readings import normalised_readings
 from phantomlab.errors import InputError
 from phantomlab.transport.adding_doubling import slab_reflectance_transmittance
 
-__all__ = ["fit_sphere", "SphereConversion", "convert_readings", "MAX_SPHERE_ROUNDS"]
-
-#: Most rounds of convert → fit → convert (they settle in 2–4).
-MAX_SPHERE_ROUNDS = 10
-#: The conversion has settled when R and T move less than this fraction of their SD in a round.
-_SETTLED = 1e-3
+__all__ = ["fit_sphere", "SphereConversion", "SphereReadingsModel", "convert_readings", "readings_model",
+           "readings_data"]
 
 
 @dataclass(frozen=True)
@@ -134,15 +140,6 @@ def convert_readings(measurement: Measurement, *, specular_reflectance, unscatte
         naive_reflectance=ratios[:, 0] * r_std, naive_transmittance=ratios[:, 1])
 
 
-def _diffuse_light_properties(model: SlabModel, solution: SlabSolution):
-    """r_dif, t_dif (diffuse light on the sample) and T_u, R_sp at the fitted optics."""
-    mua, musp, g = solution.mua_per_mm, solution.musp_per_mm, solution.g
-    diffuse = slab_reflectance_transmittance(
-        mua_per_mm=mua, mus_per_mm=musp / (1.0 - g), g=g, thickness_mm=model.thickness_mm, n=model.n,
-        n_outside=model.n_outside, quadrature_points=solution.streams, incidence="diffuse", **model.slides)
-    return np.asarray(diffuse.total_reflectance), np.asarray(diffuse.total_transmittance)
-
-
 def specular_of(model: SlabModel, shape) -> np.ndarray:
     """The specular reflectance of the slab's entry face (independent of the optics)."""
     clear = slab_reflectance_transmittance(mua_per_mm=np.zeros(shape), mus_per_mm=np.zeros(shape), g=0.0,
@@ -151,48 +148,117 @@ def specular_of(model: SlabModel, shape) -> np.ndarray:
     return np.asarray(clear.specular_reflectance)
 
 
-def sphere_rounds(measurement: Measurement, model: SlabModel, *, g, start=None, state=None):
-    """Convert → fit → convert until the derived R and T settle.
+@dataclass(frozen=True)
+class SphereReadingsModel:
+    """The normalised readings M_R, M_T and M_Tc as functions of the slab's optics.
 
-    Returns
-    -------
-    (solution, conversion, rounds, state)
-        ``state`` (r_dif, t_dif, T_u) to start a later call from (the lost-light loop).
+    Every evaluation runs adding-doubling for the collimated beam (R_d, R_sp, T_d, T_u) and
+    for diffuse light (r_dif, t_dif, what the sample does to the light inside the spheres),
+    then the sphere equations; so the substitution error is corrected at the optics being
+    tried, with no outer loop.  Same interface as
+    :class:`~phantomlab.calibration.slab_inversion.SlabModel` (the solver takes either).
     """
-    W = measurement.wavelength_nm.size
-    specular = specular_of(model, (W,))
-    has_tc = measurement.values.shape[1] == 9
-    if state is None:
-        # first guess: the plain ratios (the sample as seen without sphere corrections)
-        ratios, _ = normalised_readings(measurement.values, None)
-        r_std, _ = measurement.metadata.sphere.standard_at(measurement.wavelength_nm)
-        r_dif = np.clip(ratios[:, 0] * r_std, 0.0, 1.0)
-        t_dif = np.clip(ratios[:, 1], 0.0, 1.0 - r_dif)
-        unscattered = ratios[:, 2] if has_tc else np.zeros(W)
-    else:
-        r_dif, t_dif, unscattered = state
-    previous = None
-    solution = None
-    rounds = 0
-    for rounds in range(1, MAX_SPHERE_ROUNDS + 1):
-        conversion = convert_readings(measurement, specular_reflectance=specular,
-                                      unscattered_transmittance=unscattered, r_diffuse=r_dif, t_diffuse=t_dif)
-        data, sd = conversion.data()
-        current = data[:, :2]
-        if previous is not None and np.all(np.abs(current - previous) <= _SETTLED * sd[:, :2]):
-            break
-        if np.any(data[:, :2] <= 0) or np.any(data[:, 0] + data[:, 1] > 1.0 + 3 * np.hypot(sd[:, 0], sd[:, 1])):
-            bad = np.flatnonzero((data[:, :2] <= 0).any(axis=1) | (data[:, 0] + data[:, 1] > 1.0))[0]
-            raise InputError(f"{measurement.name}: at {measurement.wavelength_nm[bad]:g} nm the sphere equations give "
-                             f"R = {data[bad, 0]:.4g}, T = {data[bad, 1]:.4g}, not a possible sample; check the "
-                             f"sphere geometry, the wall reflectance and the standard")
-        solution = invert_slab(model, data=data, sd=sd, g=g, start=start)
-        start = np.column_stack([np.log(solution.mua_per_mm), np.log(solution.musp_per_mm), solution.g])
-        r_dif, t_dif = _diffuse_light_properties(model, solution)
-        if not has_tc:
-            unscattered = solution.model[:, 2]
-        previous = current
-    return solution, conversion, rounds, (r_dif, t_dif, unscattered)
+
+    slab: SlabModel
+    setup: SphereSetup
+    reference_reflection: np.ndarray  # detector signal of the standard, per wavelength (W,)
+    reference_transmission: np.ndarray  # detector signal of the open beam (W,)
+
+    @property
+    def thickness_mm(self) -> float:
+        return self.slab.thickness_mm
+
+    def parts(self, mua, musp, g, *, streams=None, rows=None):
+        """Collimated and diffuse-light properties of the slab: dict of (N,) arrays."""
+        mua, musp, g = np.broadcast_arrays(*(np.atleast_1d(np.asarray(v, float)) for v in (mua, musp, g)))
+        slab = self.slab
+        common = dict(mua_per_mm=mua, mus_per_mm=musp / (1.0 - g), g=g, thickness_mm=slab.thickness_mm, n=slab.n,
+                      n_outside=slab.n_outside, quadrature_points=streams, **slab.slides)
+        beam = slab_reflectance_transmittance(**common)
+        diffuse = slab_reflectance_transmittance(**common, incidence="diffuse")
+        capture_r = 1.0 if slab.capture_reflectance is None else _pick(slab.capture_reflectance, rows)
+        capture_t = 1.0 if slab.capture_transmittance is None else _pick(slab.capture_transmittance, rows)
+        return dict(diffuse_reflectance=capture_r * np.asarray(beam.diffuse_reflectance),
+                    specular_reflectance=np.asarray(beam.specular_reflectance),
+                    diffuse_transmittance=capture_t * np.asarray(beam.diffuse_transmittance),
+                    unscattered_transmittance=np.asarray(beam.unscattered_transmittance),
+                    r_diffuse=np.asarray(diffuse.total_reflectance), t_diffuse=np.asarray(diffuse.total_transmittance))
+
+    def observables(self, mua, musp, g, *, streams=None, rows=None, incidence="collimated"):
+        parts = self.parts(mua, musp, g, streams=streams, rows=rows)
+        s_r, s_t = sample_signals(self.setup, **parts)
+        size = s_r.size
+        if rows is None and size != self.reference_reflection.size:  # a start table: any wavelength's
+            ref_r, ref_t = np.mean(self.reference_reflection), np.mean(self.reference_transmission)
+        else:
+            ref_r, ref_t = _pick(self.reference_reflection, rows), _pick(self.reference_transmission, rows)
+        return np.stack([s_r / ref_r, s_t / ref_t, parts["unscattered_transmittance"]], axis=-1)
+
+
+def readings_model(measurement: Measurement, slab: SlabModel) -> SphereReadingsModel:
+    meta = measurement.metadata
+    setup = meta.sphere.setup(specular_included=meta.specular_included,
+                              unscattered_included=meta.unscattered_included)
+    r_std, _ = meta.sphere.standard_at(measurement.wavelength_nm)
+    return SphereReadingsModel(slab=slab, setup=setup,
+                               reference_reflection=standard_signal(setup, standard_reflectance=r_std),
+                               reference_transmission=open_beam_signal(setup, shape=r_std.shape))
+
+
+def readings_data(measurement: Measurement, model: SphereReadingsModel):
+    """Normalised readings and their SDs: the readings' own, plus the standard's and the wall's.
+
+    The standard's calibration SD and the wall reflectance SD act on the model of every
+    reading alike; they enter as an effective SD of M_R and M_T (first order, at the
+    sample seen through a first conversion).
+    """
+    spec = measurement.metadata.sphere
+    ratios, ratio_sd = normalised_readings(measurement.values, measurement.sd)
+    W = ratios.shape[0]
+    data = np.full((W, 3), np.nan)
+    sd = np.full((W, 3), np.nan)
+    data[:, :ratios.shape[1]] = ratios
+    sd[:, :ratios.shape[1]] = ratio_sd
+    r_std, r_std_sd = spec.standard_at(measurement.wavelength_nm)
+    specular = specular_of(model.slab, (W,))
+    first = convert_readings(measurement, specular_reflectance=specular, unscattered_transmittance=np.zeros(W),
+                             r_diffuse=np.clip(ratios[:, 0] * r_std, 0, 0.999),
+                             t_diffuse=np.clip(ratios[:, 1], 0, 0.5))
+    sample = dict(diffuse_reflectance=first.total_reflectance - (specular if model.setup.specular_included else 0),
+                  specular_reflectance=specular, diffuse_transmittance=first.total_transmittance,
+                  unscattered_transmittance=np.zeros(W), r_diffuse=np.clip(first.total_reflectance, 0, 0.999),
+                  t_diffuse=np.clip(first.total_transmittance, 0, 0.999 - np.clip(first.total_reflectance, 0, 0.999)))
+
+    def normalised(setup, standard):
+        s_r, s_t = sample_signals(setup, **sample)
+        return np.stack([s_r / standard_signal(setup, standard_reflectance=standard),
+                         s_t / open_beam_signal(setup, shape=(W,))], axis=1)
+
+    setup = model.setup
+    base = normalised(setup, r_std)
+    extra = np.zeros((W, 2))
+    for changed, size in (
+            (lambda h: normalised(setup, r_std + h), r_std_sd),
+            (lambda h: normalised(_setup_with_walls(setup, float(setup.reflection.wall_reflectance) + h,
+                                                    float(setup.transmission.wall_reflectance)), r_std),
+             np.full(W, spec.wall_reflectance_sd)),
+            (lambda h: normalised(_setup_with_walls(setup, float(setup.reflection.wall_reflectance),
+                                                    float(setup.transmission.wall_reflectance) + h), r_std),
+             np.full(W, spec.transmission_wall_reflectance_sd))):
+        step = 1e-6
+        extra += ((changed(step) - base) / step * size[:, None]) ** 2
+    sd[:, :2] = np.sqrt(sd[:, :2] ** 2 + extra)
+    return data, sd
+
+
+def _impossible_warning(measurement, data, sd) -> list[str]:
+    impossible = (data[:, :2] <= 0).any(axis=1) | (data[:, 0] + data[:, 1] > 1.0 + 3 * np.hypot(sd[:, 0], sd[:, 1]))
+    if not np.any(impossible):
+        return []
+    bad = np.flatnonzero(impossible)[0]
+    return [f"at {measurement.wavelength_nm[bad]:g} nm the sphere equations give R = {data[bad, 0]:.4g}, "
+            f"T = {data[bad, 1]:.4g}, not a possible sample; check the sphere geometry, the wall reflectance "
+            f"and the standard"]
 
 
 def fit_sphere(measurement: Measurement, *, n=None, n_outside=None, g=None, thickness_mm=None) -> FitResult:
@@ -210,8 +276,9 @@ def fit_sphere(measurement: Measurement, *, n=None, n_outside=None, g=None, thic
     FitResult
         As the slab fit's, with ``total_reflectance``, ``total_transmittance`` (and
         ``collimated_transmittance``) derived from the readings and their SDs,
-        ``sphere_rounds``, ``sphere_correction_reflectance`` (derived R over the plain
-        ratio r_std · M_R) and ``correlation_reflectance_transmittance``.
+        ``normalised_readings`` (M_R, M_T[, M_Tc]) and SDs, ``sphere_correction_reflectance``
+        (derived R over the plain ratio r_std · M_R) and
+        ``correlation_reflectance_transmittance``.
     """
     if measurement.kind != "sphere":
         raise InputError(f"fit_sphere needs a sphere measurement, got {measurement.kind}")
@@ -224,27 +291,35 @@ def fit_sphere(measurement: Measurement, *, n=None, n_outside=None, g=None, thic
         raise InputError("the sphere fit needs the anisotropy g (R and T cannot tell it): give --g G or g = ... in "
                          "the sidecar, or measure the collimated beam (columns tc_sample,tc_open,tc_dark)")
     meta = measurement.metadata
+    slab = slab_model(measurement, n=n, n_outside=n_outside, thickness_mm=thickness)
+    model = readings_model(measurement, slab)
+    data, sd = readings_data(measurement, model)
     if meta.lost_light == "monte-carlo":
         from phantomlab.calibration.lost_light import fit_with_lost_light
 
-        solution, model, lost, conversion, rounds = fit_with_lost_light(
-            measurement, data=None, sd=None, n=n, n_outside=n_outside, g=g, thickness_mm=thickness)
+        solution, model, lost = fit_with_lost_light(measurement, data=data, sd=sd, n=n, n_outside=n_outside, g=g,
+                                                    thickness_mm=thickness, model=model)
     else:
-        model = slab_model(measurement, n=n, n_outside=n_outside, thickness_mm=thickness)
-        solution, conversion, rounds, _ = sphere_rounds(measurement, model, g=g)
-        lost = None
-    data, sd = conversion.data()
-    result = result_from_solution(measurement, solution, data=data, sd=sd, g_given=g, thickness_mm=thickness,
-                                  kind="sphere", lost_light=lost)
+        solution, lost = invert_slab(model, data=data, sd=sd, g=g), None
+    parts = model.parts(solution.mua_per_mm, solution.musp_per_mm, solution.g, streams=solution.streams)
+    conversion = convert_readings(measurement, specular_reflectance=parts["specular_reflectance"],
+                                  unscattered_transmittance=(data[:, 2] if has_tc else parts["unscattered_transmittance"]),
+                                  r_diffuse=parts["r_diffuse"], t_diffuse=parts["t_diffuse"])
+    derived, derived_sd = conversion.data()
+    result = result_from_solution(measurement, solution, data=derived, sd=derived_sd, g_given=g,
+                                  thickness_mm=thickness, kind="sphere", lost_light=lost)
+    slab_values = slab.observables(solution.mua_per_mm, solution.musp_per_mm, solution.g, streams=solution.streams)
     with np.errstate(invalid="ignore", divide="ignore"):
         correction = conversion.total_reflectance / conversion.naive_reflectance
     extras = dict(result.extras)
-    extras.update(sphere_rounds=rounds, sphere_correction_reflectance=correction,
+    extras.update(model_total_reflectance=slab_values[:, 0], model_total_transmittance=slab_values[:, 1],
+                  normalised_readings=data[:, :(3 if has_tc else 2)],
+                  normalised_readings_sd=sd[:, :(3 if has_tc else 2)],
+                  sphere_correction_reflectance=correction,
                   sphere_correction_transmittance=conversion.total_transmittance / conversion.naive_transmittance,
                   correlation_reflectance_transmittance=conversion.correlation_rt,
                   sphere_arrangement=meta.sphere.arrangement, standard_source=meta.sphere.standard_source)
     result = replace(result, extras=extras)
     messages = slab_messages(measurement, result, solution, thickness, lost)
-    if rounds >= MAX_SPHERE_ROUNDS:
-        messages.append(f"the sphere conversion had not settled after {MAX_SPHERE_ROUNDS} rounds")
+    messages += _impossible_warning(measurement, derived, derived_sd)
     return _finish(result, measurement, messages)

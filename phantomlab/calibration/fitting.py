@@ -361,7 +361,7 @@ class FitResult:
     Attributes
     ----------
     kind : str
-        Measurement kind (srdr, sfdi, slab, optics).
+        Measurement kind (srdr, sfdi, slab, sphere, optics).
     model : str
         Forward model used (``diffusion-farrell1992``, ``mc-lookup``, ``adding-doubling``, ...).
     wavelength_nm : ndarray (W,) [nm]

@@ -3,7 +3,7 @@
     phantomlab batch add RECIPE.toml [--sheet FILE.html] [--operator NAME] [--notes TEXT]
     phantomlab batch actual BATCH_ID AMOUNTS.csv [--mixed-on DATE] [--cure TEXT] ...
     phantomlab batch status BATCH_ID STATUS [--note TEXT]
-    phantomlab batch measure BATCH_ID FILE.csv --kind {srdr,sfdi,slab,optics} [...]
+    phantomlab batch measure BATCH_ID FILE.csv --kind {srdr,sfdi,slab,sphere,optics} [...]
     phantomlab batch list [--status S] [--all]
     phantomlab batch show BATCH_ID
     phantomlab batch record BATCH_ID --html FILE.html
@@ -74,7 +74,7 @@ def register(subparsers) -> None:
     measure = actions.add_parser("measure", help="attach a measurement file to a batch and fit it")
     measure.add_argument("batch_id", metavar="BATCH_ID")
     measure.add_argument("file", metavar="FILE.csv")
-    measure.add_argument("--kind", required=True, choices=("srdr", "sfdi", "slab", "optics"))
+    measure.add_argument("--kind", required=True, choices=("srdr", "sfdi", "slab", "sphere", "optics"))
     measure.add_argument("--instrument", metavar="NAME")
     measure.add_argument("--measured-on", metavar="DATE", help="YYYY-MM-DD (default: the file's metadata, else today)")
     measure.add_argument("--age-days", type=float, metavar="D",

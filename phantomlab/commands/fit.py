@@ -86,8 +86,8 @@ def _table(result) -> str:
                          f"transmittance would let the fit return it)")
     if result.kind == "sphere":
         correction = np.asarray(result.extras.get("sphere_correction_reflectance"), float)
-        lines.append(f"sphere readings converted in {result.extras.get('sphere_rounds')} rounds; derived R / "
-                     f"(plain ratio to the standard) = {np.nanmin(correction):.4g} to {np.nanmax(correction):.4g}")
+        lines.append(f"sphere correction: derived R / (plain ratio to the standard) = {np.nanmin(correction):.4g} "
+                     f"to {np.nanmax(correction):.4g}")
     for name, value in result.parameters.items():
         if name != "g":
             lines.append(f"{name}: {value}")
