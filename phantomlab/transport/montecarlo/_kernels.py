@@ -43,7 +43,7 @@ from numba import njit, prange
 
 from phantomlab.transport.montecarlo._random import uniform
 
-__all__ = ["TALLY_NAMES", "run_3d", "run_rod", "boundary_reflectance", "fresnel_reflectance"]
+__all__ = ["TALLY_NAMES", "run_3d", "run_3d_finite", "run_rod", "boundary_reflectance", "fresnel_reflectance"]
 
 #: Names of the per-batch tally columns, in order.
 TALLY_NAMES = (
@@ -127,8 +127,12 @@ def _roulette(state, weight, survival, tallies):
 def _photons_3d(
     n_photons, state, mua, mus, g, n_medium, n_top, n_slide_top, n_bottom, n_slide_bottom,
     thickness, analog, launch_weight, threshold, survival, rho_edges, tallies, rho_weights,
-    record, rec_rho, rec_path, rec_nscat,
+    record, rec_rho, rec_path, rec_nscat, rho_t_weights, beam_radius, edge_radius, extra,
 ):
+    # rho_t_weights: radial tally of the light leaving the bottom face (same bins as the top);
+    # beam_radius > 0: photons enter uniformly over a disc of that radius (0: a pencil beam,
+    # no random numbers drawn for it, so pencil-beam runs are unchanged); edge_radius: the
+    # sample ends there (math.inf: no edge), light reaching it is lost and tallied in extra[0].
     mut = mua + mus
     albedo = mus / mut if mut > 0.0 else 0.0
     n_edges = rho_edges.shape[0]
@@ -137,12 +141,19 @@ def _photons_3d(
     rho_hi = rho_edges[n_edges - 1] if has_rho else 0.0
     isotropic = g == 0.0
     g2 = g * g
+    has_edge = edge_radius < math.inf
+    edge2 = edge_radius * edge_radius if has_edge else 0.0
     recorded = 0
     interactions = 0
     absorbed_total = 0.0
     for _ in range(n_photons):
         x = 0.0
         y = 0.0
+        if beam_radius > 0.0:  # uniform over the beam's disc
+            radial = beam_radius * math.sqrt(uniform(state))
+            angle = _TWO_PI * uniform(state)
+            x = radial * math.cos(angle)
+            y = radial * math.sin(angle)
         z = 0.0
         ux = 0.0
         uy = 0.0
@@ -166,11 +177,20 @@ def _photons_3d(
                     y += step * uy
                     z += step * uz
                     path += step
+                    if has_edge and x * x + y * y > edge2:  # left through the sample's edge
+                        extra[0] += weight
+                        weight = 0.0
+                        alive = False
                     break
                 x += to_boundary * ux
                 y += to_boundary * uy
                 path += to_boundary
                 depth -= to_boundary * mut
+                if has_edge and x * x + y * y > edge2:  # the face ends before this point
+                    extra[0] += weight
+                    weight = 0.0
+                    alive = False
+                    break
                 at_top = uz < 0.0
                 if at_top:
                     z = 0.0
@@ -208,6 +228,11 @@ def _photons_3d(
                             tallies[_UT] += escaped
                         else:
                             tallies[_DT] += escaped
+                        if has_rho:
+                            radius = math.sqrt(x * x + y * y)
+                            if radius >= rho_lo and radius < rho_hi:
+                                index = np.searchsorted(rho_edges, radius, side="right") - 1
+                                rho_t_weights[index] += escaped
                 if weight > 0.0 and weight < threshold:
                     weight = _roulette(state, weight, survival, tallies)
                 if weight == 0.0:
@@ -341,11 +366,32 @@ def run_3d(
 ):
     """Run every batch (row) of photons in three dimensions; fill the per-batch arrays."""
     for batch in prange(photons_per_batch.shape[0]):
+        unused_t = np.zeros(rho_weights.shape[1])
+        unused_extra = np.zeros(1)
         rec_count[batch] = _photons_3d(
             photons_per_batch[batch], states[batch], mua, mus, g, n_medium, n_top,
             n_slide_top, n_bottom, n_slide_bottom, thickness, analog, launch_weight, threshold,
             survival, rho_edges, tallies[batch], rho_weights[batch], record, rec_rho[batch],
-            rec_path[batch], rec_nscat[batch],
+            rec_path[batch], rec_nscat[batch], unused_t, 0.0, math.inf, unused_extra,
+        )
+
+
+@njit(cache=True, parallel=True)
+def run_3d_finite(
+    photons_per_batch, states, mua, mus, g, n_medium, n_top, n_slide_top, n_bottom,
+    n_slide_bottom, thickness, analog, launch_weight, threshold, survival, rho_edges, tallies, rho_weights,
+    rho_t_weights, beam_radius, edge_radius, extra,
+):
+    """As :func:`run_3d` (no exit records) for a beam of finite radius on a sample of finite
+    radius: radial tallies of both faces, light lost at the edge in ``extra[:, 0]``."""
+    empty_f = np.zeros(0, dtype=np.float32)
+    empty_u = np.zeros(0, dtype=np.uint16)
+    for batch in prange(photons_per_batch.shape[0]):
+        _photons_3d(
+            photons_per_batch[batch], states[batch], mua, mus, g, n_medium, n_top,
+            n_slide_top, n_bottom, n_slide_bottom, thickness, analog, launch_weight, threshold,
+            survival, rho_edges, tallies[batch], rho_weights[batch], False, empty_f, empty_f, empty_u,
+            rho_t_weights[batch], beam_radius, edge_radius, extra[batch],
         )
 
 
