@@ -168,6 +168,13 @@ class SphereReadingsModel:
     def thickness_mm(self) -> float:
         return self.slab.thickness_mm
 
+    def start_key(self):
+        slab = self.slab.start_key()
+        if slab is None:
+            return None
+        return ("sphere", slab, self.setup, float(np.mean(self.reference_reflection)),
+                float(np.mean(self.reference_transmission)))
+
     def parts(self, mua, musp, g, *, streams=None, rows=None):
         """Collimated and diffuse-light properties of the slab: dict of (N,) arrays."""
         mua, musp, g = np.broadcast_arrays(*(np.atleast_1d(np.asarray(v, float)) for v in (mua, musp, g)))

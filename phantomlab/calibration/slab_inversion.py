@@ -73,6 +73,15 @@ class SlabModel:
     capture_reflectance: np.ndarray | None = None
     capture_transmittance: np.ndarray | None = None
 
+    def start_key(self):
+        """What the observables depend on besides (albedo, optical thickness, g); None if more."""
+        if self.capture_reflectance is not None or self.capture_transmittance is not None:
+            return None
+        slides = tuple(sorted((k, v if not isinstance(v, np.ndarray) else tuple(v.tolist()))
+                              for k, v in self.slides.items()))
+        return ("slab", float(self.n), float(self.n_outside), slides, self.specular_included,
+                self.unscattered_included)
+
     def observables(self, mua, musp, g, *, streams=None, rows=None, incidence="collimated"):
         """(N, 3): model R, T and Tc as measured, at the given optics.
 
@@ -168,11 +177,18 @@ def _start_from_collimated(model: SlabModel, data, use):
     tau = np.exp(np.where(np.isfinite(log_tau), log_tau, 0.0))
     albedo_nodes = 1.0 - np.geomspace(1e-3, 0.7, 13)
     g_nodes = np.array([0.0, 0.3, 0.5, 0.65, 0.75, 0.82, 0.88, 0.92, 0.95, 0.97])
-    A, T, G = np.meshgrid(albedo_nodes, tau_nodes, g_nodes, indexing="ij")
-    mut = T / d
-    table = model.observables((mut * (1 - A)).ravel(), (mut * A * (1 - G)).ravel(), G.ravel(),
-                              streams=np.full(A.size, _GRID_STREAMS))
-    table = table.reshape(A.shape + (3,))[..., :2]  # (albedo, τ, g, [R, T])
+    key = _table_key(model)
+    table = _START_TABLES.get(key) if key is not None else None
+    if table is None:
+        A, T, G = np.meshgrid(albedo_nodes, tau_nodes, g_nodes, indexing="ij")
+        mut = T / d
+        table = model.observables((mut * (1 - A)).ravel(), (mut * A * (1 - G)).ravel(), G.ravel(),
+                                  streams=np.full(A.size, _GRID_STREAMS))
+        table = table.reshape(A.shape + (3,))[..., :2]  # (albedo, τ, g, [R, T])
+        if key is not None:
+            if len(_START_TABLES) >= _MAX_TABLES:
+                _START_TABLES.pop(next(iter(_START_TABLES)))
+            _START_TABLES[key] = table
     position = np.clip(np.interp(np.log(tau), np.log(tau_nodes), np.arange(tau_nodes.size)), 0, tau_nodes.size - 1)
     low = np.minimum(np.floor(position).astype(int), tau_nodes.size - 2)
     frac = (position - low)[:, None, None, None]
@@ -190,6 +206,25 @@ def _start_from_collimated(model: SlabModel, data, use):
     start[:, 1] = np.log(np.clip(mut_w * a * (1 - g), MUSP_BOUNDS_PER_MM[0], MUSP_BOUNDS_PER_MM[1]))
     start[:, 2] = g
     return start
+
+
+#: Start tables by model (faces, what is measured): computed once per process (a few hundred
+#: ms each), they depend on the optical thickness, not on the sample's thickness.
+_START_TABLES: dict = {}
+_MAX_TABLES = 8
+
+
+def _table_key(model):
+    """A hashable description of what the model's observables depend on besides the optics."""
+    try:
+        key = model.start_key()
+    except AttributeError:
+        return None
+    try:
+        hash(key)
+    except TypeError:
+        return None
+    return key
 
 
 def _choose(forward, data, use, a_nodes, s_nodes, g_nodes, best, start, rows):
@@ -250,23 +285,34 @@ def invert_slab(model: SlabModel, *, data, sd, g=None, start=None) -> SlabSoluti
     # Stage 1: a cheap quadrature brings every wavelength close (its error is a few per cent at
     # most); stage 2: the streams the reached g needs, from there (two or three Newton steps).
     W_all = np.arange(W)
+    coarse_jac = None
     if start is None:  # a given start is already close (a previous solution): no coarse stage
         coarse = np.full(W, _GRID_STREAMS)
-        x, _, _, _ = _newton(residuals, x, coarse, P, lower, upper, W_all, tolerance=_COARSE_TOLERANCE)
+        x, _, _, coarse_jac = _newton(residuals, x, coarse, P, lower, upper, W_all, tolerance=_COARSE_TOLERANCE,
+                                      broyden=True)
     streams = streams_for_anisotropy(x[:, 2])
     rows = W_all
     r = np.zeros((W, data.shape[1]))
-    jac = np.zeros((W, data.shape[1], P))
     converged = np.zeros(W, bool)
     for _round in range(3):  # again only where g moved into a row of the table that needs more
-        x_new, done, r_rows, jac_rows = _newton(residuals, x, streams, P, lower, upper, rows)
-        x[rows], converged[rows], r[rows], jac[rows] = x_new[rows], done[rows], r_rows, jac_rows
+        if coarse_jac is not None and _round == 0:
+            # the coarse stage's Jacobian, carried on by Broyden updates: no new finite differences
+            x_new, done, r_rows, _ = _newton(residuals, x, streams, P, lower, upper, rows, broyden=True,
+                                             initial_jac=coarse_jac)
+        else:
+            x_new, done, r_rows, _ = _newton(residuals, x, streams, P, lower, upper, rows)
+        x[rows] = x_new[rows]
+        converged[rows], r[rows] = done[rows], r_rows
         needed = streams_for_anisotropy(x[:, 2])
         rows = np.flatnonzero(needed > streams)
         if rows.size == 0:
             break
         streams = np.maximum(streams, needed)
-    forward = model.observables(np.exp(x[:, 0]), np.exp(x[:, 1]), x[:, 2], streams=streams, rows=W_all)
+    # the covariance from a Jacobian at the solution, at the final streams
+    jac = _jacobian(residuals, x, W_all, streams, r, P)
+    forward = None
+    if not np.all(use):
+        forward = model.observables(np.exp(x[:, 0]), np.exp(x[:, 1]), x[:, 2], streams=streams, rows=W_all)
     normal = np.einsum("wmp,wmq->wpq", jac, jac)
     cov_x = _inverse(normal)
     values = np.exp(x[:, :2])
@@ -276,6 +322,8 @@ def invert_slab(model: SlabModel, *, data, sd, g=None, start=None) -> SlabSoluti
     residual = np.where(use, r, np.nan)
     chi2 = np.nansum(residual**2, axis=1)
     dof = use.sum(axis=1) - P
+    if forward is None:
+        forward = safe_data + r * safe_sd
     return SlabSolution(mua_per_mm=values[:, 0], musp_per_mm=values[:, 1], g=x[:, 2].copy(),
                         covariance=covariance, residuals=residual, chi2=chi2, dof=dof, model=forward,
                         streams=np.asarray(streams, int), converged=converged)
@@ -303,11 +351,13 @@ def _inverse(normal):
     return out
 
 
-def _newton(residuals, x, streams, P, lower, upper, rows, tolerance=None):
+def _newton(residuals, x, streams, P, lower, upper, rows, tolerance=None, broyden=False, initial_jac=None):
     """Damped Gauss–Newton on ``rows``; returns (x, converged, residuals, Jacobian) of those rows.
 
-    The Jacobian returned is the last one computed for each row, at the point from which the
-    final (sub-tolerance) step was taken: the covariance uses it.
+    The Jacobian returned is the last one used for each row.  With ``broyden`` the
+    finite-difference Jacobian is computed once and then carried along by Broyden's rank-one
+    update after each accepted step (Broyden 1965, Math Comp 19:577), and recomputed only
+    where a step was refused; ``initial_jac`` (of ``rows``) starts it without finite differences.
     """
     W = x.shape[0]
     x = x.copy()
@@ -320,12 +370,19 @@ def _newton(residuals, x, streams, P, lower, upper, rows, tolerance=None):
     last_jac = np.zeros(r.shape + (P,))
     cost = np.sum(r**2, axis=1)
     damping = np.zeros(W)
+    stale = np.ones(W, bool)  # rows whose Jacobian must come from finite differences
+    if initial_jac is not None:
+        last_jac[rows] = initial_jac
+        stale[rows] = False
     for _ in range(_MAX_ITERATIONS):
         live = np.flatnonzero(active)
         if live.size == 0:
             break
-        jac = _jacobian(residuals, x[live], live, streams, r[live], P)
-        last_jac[live] = jac
+        fresh = live[stale[live]] if broyden else live
+        if fresh.size:
+            last_jac[fresh] = _jacobian(residuals, x[fresh], fresh, streams, r[fresh], P)
+            stale[fresh] = False
+        jac = last_jac[live]
         normal = np.einsum("wmp,wmq->wpq", jac, jac)
         gradient = np.einsum("wmp,wm->wp", jac, r[live])
         diag = np.maximum(np.diagonal(normal, axis1=1, axis2=2), 1e-300)
@@ -348,6 +405,12 @@ def _newton(residuals, x, streams, P, lower, upper, rows, tolerance=None):
             better = np.isfinite(cost_trial) & (cost_trial <= cost[who] * (1 + 1e-12) + 1e-300)
             good = who[better]
             moved = np.max(np.abs(trial[better] - x[good]), axis=1)
+            if broyden and good.size:  # J += (Δr − J Δx) Δxᵀ / |Δx|²
+                dx = trial[better][:, :P] - x[good][:, :P]
+                dr = r_trial[better] - r[good]
+                predicted = np.einsum("wmp,wp->wm", last_jac[good], dx)
+                norm = np.maximum(np.sum(dx**2, axis=1), 1e-300)
+                last_jac[good] += (dr - predicted)[:, :, None] * dx[:, None, :] / norm[:, None, None]
             x[good] = trial[better]
             r[good] = r_trial[better]
             cost[good] = cost_trial[better]
@@ -360,6 +423,7 @@ def _newton(residuals, x, streams, P, lower, upper, rows, tolerance=None):
                 break
             factor *= 0.5
         stuck = live[~accepted]
+        stale[stuck] = True
         # no descent along the (halved) Newton step: at the minimum within rounding, or damp more
         at_minimum = stuck[np.max(np.abs(step[~accepted]), axis=1) < 1e-5]
         converged[at_minimum] = True
