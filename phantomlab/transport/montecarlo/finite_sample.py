@@ -64,6 +64,9 @@ class FiniteSampleResult:
     total_transmittance, unscattered_transmittance (+ ``_sd``) : float
     edge_loss, edge_loss_sd : float
         Light that reached the sample's edge.
+    absorbed_fraction, roulette_balance : float
+        Light absorbed in the sample; weight created minus destroyed by roulette (so
+        diffuse R + specular + T + absorbed + edge = 1 + roulette_balance).
     specular_reflectance : float
     photons, seed : int
     seconds : float [s]
@@ -82,6 +85,8 @@ class FiniteSampleResult:
     unscattered_transmittance_sd: float
     edge_loss: float
     edge_loss_sd: float
+    absorbed_fraction: float
+    roulette_balance: float
     specular_reflectance: float
     photons: int
     seed: int
@@ -200,5 +205,7 @@ def simulate_finite_sample(*, mua_per_mm, mus_per_mm, g, n, thickness_mm, beam_d
         diffuse_reflectance=float(reflected), diffuse_reflectance_sd=float(reflected_sd),
         total_transmittance=float(transmitted), total_transmittance_sd=float(transmitted_sd),
         unscattered_transmittance=float(unscattered), unscattered_transmittance_sd=float(unscattered_sd),
-        edge_loss=float(lost), edge_loss_sd=float(lost_sd), specular_reflectance=specular, photons=photons,
+        edge_loss=float(lost), edge_loss_sd=float(lost_sd),
+        absorbed_fraction=float(column["absorbed_fraction"].sum() / counts.sum()),
+        roulette_balance=float(column["roulette"].sum() / counts.sum()), specular_reflectance=specular, photons=photons,
         seed=seed, seconds=seconds)
