@@ -173,11 +173,13 @@ def _check_keys(table, allowed, where):
 
 def _inside(path: Path, base_dir: Path | None, where: str, key: str) -> Path:
     """A data path named in a sidecar: relative, and inside the sidecar's folder tree."""
-    if path.is_absolute() or base_dir is None and ".." in path.parts:
+    if path.is_absolute():
         raise InputError(f"{where}: {key} = {str(path)!r}; accepted: a path relative to the measurement's "
                          f"folder, inside it")
     if base_dir is None:
-        return path
+        raise InputError(f"{where}: {key} needs the measurement's folder (the file read from disk); for an "
+                         f"uploaded or stored file give the standard inline (standard_reflectance, "
+                         f"standard_wavelength_nm)")
     full = (base_dir / path).resolve()
     if not full.is_relative_to(base_dir.resolve()):
         raise InputError(f"{where}: {key} = {str(path)!r} lies outside the measurement's folder; accepted: a "

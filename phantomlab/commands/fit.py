@@ -88,9 +88,19 @@ def _table(result) -> str:
         correction = np.asarray(result.extras.get("sphere_correction_reflectance"), float)
         lines.append(f"sphere correction: derived R / (plain ratio to the standard) = {np.nanmin(correction):.4g} "
                      f"to {np.nanmax(correction):.4g}")
+    if result.extras.get("lost_light") == "monte-carlo":
+        lost_r = np.asarray(result.extras["lost_reflectance_fraction"], float)
+        lost_t = np.asarray(result.extras["lost_transmittance_fraction"], float)
+        lines.append(f"lost light corrected by Monte Carlo ({result.extras['lost_light_rounds']} rounds): "
+                     f"{100 * lost_r.min():.1f}-{100 * lost_r.max():.1f} % of the diffuse reflectance, "
+                     f"{100 * lost_t.min():.1f}-{100 * lost_t.max():.1f} % of the diffuse transmittance")
     for name, value in result.parameters.items():
         if name != "g":
             lines.append(f"{name}: {value}")
+    if result.kind == "sphere":
+        from phantomlab.recipe.cautions import CHARACTERISATION_CAUTION, CLOSING_LINE, SPHERE_COATING_CAUTION
+
+        lines += [f"caution: {text}" for text in (SPHERE_COATING_CAUTION, CHARACTERISATION_CAUTION, CLOSING_LINE)]
     return "\n".join(lines)
 
 

@@ -44,6 +44,14 @@ CHARACTERISATION_CAUTION = (
     "wavelength and follow the laser rules of the room"
 )
 
+#: Integrating spheres and reflectance standards (shown with sphere measurements).
+SPHERE_COATING_CAUTION = (
+    "integrating spheres and standards: pressed PTFE and barium sulfate coatings shed fine dust; "
+    "do not touch or blow into the coating, avoid breathing the dust (wear a dust mask when "
+    "cleaning or recoating), and follow the coating's safety data sheet and the rules of the room; "
+    "the lamp or laser that feeds the sphere needs the eyewear and shielding of its class"
+)
+
 
 @dataclass(frozen=True)
 class Caution:

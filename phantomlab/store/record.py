@@ -101,6 +101,21 @@ def _checks(target: dict[str, Any], fit: dict[str, Any] | None,
     return rows
 
 
+def _anisotropy(results: dict[str, Any] | None) -> str | None:
+    """One line on g for slab and sphere fits: fitted (mean ± SD over the band) or assumed."""
+    if not results or "g_fitted" not in results:
+        return None
+    g = _values(results.get("g"))
+    if not g.size or not np.any(np.isfinite(g)):
+        return None
+    if not results["g_fitted"]:
+        return f"g {np.nanmean(g):.3g} assumed (given, not fitted)"
+    sd = _values(results.get("g_sd"))
+    spread = f", SD {np.nanmin(sd):.2g}–{np.nanmax(sd):.2g}" if sd.size and np.any(np.isfinite(sd)) else ""
+    return (f"g fitted from the collimated transmittance: {np.nanmin(g):.3g}–{np.nanmax(g):.3g} over the band"
+            f"{spread}")
+
+
 def series_statistics(points: list[dict[str, Any]], *, grid: np.ndarray) -> dict[str, Any]:
     """CV across batches and drift with phantom age of measured μa and μs′ on ``grid``.
 
@@ -228,7 +243,7 @@ def batch_record(session: Session, code: str) -> dict[str, Any]:
             "measurement_id": measurement.id, "kind": measurement.kind, "file": measurement.file_name,
             "measured_on": measurement.measured_on, "phantom_age_days": measurement.phantom_age_days,
             "instrument": measurement.instrument, "fit_id": fit.id, "model": fit.model,
-            "chi2_red": fit.chi2_red, "fit_warnings": fit.warnings},
+            "chi2_red": fit.chi2_red, "fit_warnings": fit.warnings, "anisotropy": _anisotropy(fit.results)},
         "checks": checks, "pass": (all(verdicts) if verdicts else None),
         "series": _series(session, recipe, grid),
         "history": [{"version": v.version, "status": v.status, "retracted": v.retracted,
@@ -361,6 +376,8 @@ def render_batch_record_html(record: dict[str, Any]) -> str:
                      f"{_cell(m['instrument'])}), measured {_cell(m['measured_on'])} at phantom age "
                      f"{_cell(m['phantom_age_days'])} days; fit {m['fit_id']} with {_cell(m['model'])}, "
                      f"reduced χ² {_cell(m['chi2_red'], 3)}.</p>")
+        if m.get("anisotropy"):
+            parts.append(f"<p>{html.escape(m['anisotropy'])}.</p>")
         for warning in m["fit_warnings"] or []:
             parts.append(f"<p class='small'>fit warning: {html.escape(str(warning))}</p>")
     checks = r["checks"]

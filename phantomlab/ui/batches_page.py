@@ -31,7 +31,7 @@ __all__ = ["show"]
 
 TITLE = "Batch log"
 STATUSES = ("planned", "mixed", "characterised", "retired")
-KINDS = ("srdr", "sfdi", "slab", "optics")
+KINDS = ("srdr", "sfdi", "slab", "sphere", "optics")
 LOG_COLUMNS = ("batch", "recipe", "status", "planned on", "mixed on", "operator", "measurements",
                "alarms", "notes")
 KIND_HELP = {
@@ -253,12 +253,13 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
                      "below to try the loop.")
     with st.form(f"batches.measure.{batch['code']}", clear_on_submit=True):
         upload = st.file_uploader("Measurement file (CSV)", type=["csv"], key="batches.file")
-        sidecar = st.file_uploader("Its metadata file (TOML, optional: n, thickness, instrument, reference)",
+        sidecar = st.file_uploader("Its metadata file (TOML, optional: n, thickness, instrument, reference; "
+                                   "sphere: the [sphere] table with the standard inline)",
                                    type=["toml"], key="batches.sidecar")
         d1, d2, d3, d4 = st.columns(4)
         n = d1.number_input("Phantom refractive index n [dimensionless]", min_value=1.0, max_value=3.0,
                             value=1.33, step=0.01, key="batches.n")
-        thickness = d2.number_input("Slab thickness [mm] (slab only)", min_value=0.0, value=0.0, step=0.1,
+        thickness = d2.number_input("Slab thickness [mm] (slab, sphere)", min_value=0.0, value=0.0, step=0.1,
                                     key="batches.thickness")
         measured_on = d3.date_input("Measured on", value=_dt.date.today(), key="batches.measured_on")
         instrument = d4.text_input("Instrument", key="batches.instrument")

@@ -3,7 +3,8 @@
 The design page shows :func:`phantomlab.recipe.cautions.cautions_for` (stock hazards, the
 matrix preparation, characterisation) and its closing line, so the page and the sheet can
 never disagree.  The fit page shows the characterisation caution with one more line for
-bright broadband sources (FIELD.md, "Cautions the tool must show").
+bright broadband sources (FIELD.md, "Cautions the tool must show") and one for the dust of
+sphere coatings.
 """
 
 from __future__ import annotations
@@ -36,10 +37,11 @@ def show_cautions(stocks: Iterable, *, preparation_kind: str = "liquid") -> None
 
 def show_light_source_caution() -> None:
     """The caution for lasers and bright sources used to characterise a phantom."""
-    from phantomlab.recipe.cautions import CHARACTERISATION_CAUTION, CLOSING_LINE  # layer 3
+    from phantomlab.recipe.cautions import CHARACTERISATION_CAUTION, CLOSING_LINE, SPHERE_COATING_CAUTION  # layer 3
 
     with st.container(border=True):
-        st.markdown("**⚠ Lasers and bright sources**")
+        st.markdown("**⚠ Lasers, bright sources and sphere coatings**")
         st.markdown(
-            "\n".join(f"- {text}" for text in (CHARACTERISATION_CAUTION, BRIGHT_SOURCES, CLOSING_LINE))
+            "\n".join(f"- {text}" for text in (CHARACTERISATION_CAUTION, BRIGHT_SOURCES, SPHERE_COATING_CAUTION,
+                                                CLOSING_LINE))
         )

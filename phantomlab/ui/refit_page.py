@@ -4,8 +4,10 @@ Flows:
 
 * choose a batch and one of its measurements (or upload a file), choose the forward model
   and fit (the calibration layer); see the data with the fitted model and the normalised
-  residuals, and the fitted μa and μs′ with their SD against the batch's target; keep the
-  fit in the batch log.  A Monte Carlo model needs a baseline: building one shows a progress
+  residuals (slabs and sphere readings: R, T and the collimated transmittance measured
+  against the model per wavelength), and the fitted μa and μs′ (and g, when the collimated
+  transmittance gives it) with their SD against the batch's target; keep the fit in the
+  batch log.  A Monte Carlo model needs a baseline: building one shows a progress
   indicator, and the baseline is kept for later fits;
 * recalibrate the stock potencies from the batch log: each factor before and after, the
   batches that moved it, and its history across calibrations;
@@ -173,16 +175,8 @@ def _data_and_model(measurement, result, *, model: str, baseline, shown_waveleng
         residual_series = [Series(f"{wavelength[i]:g} nm", axis, result.residuals[i], mode="lines+markers",
                                   colour=COLOURS[row % len(COLOURS)]) for row, i in enumerate(index)]
         residual_x = x_label
-    elif kind == "slab":
-        series = [Series("data total reflectance", wavelength, measurement.values[:, 0], mode="markers"),
-                  Series("data total transmittance", wavelength, measurement.values[:, 1], mode="markers")]
-        rows = [{"wavelength_nm": w, "total_reflectance": r, "total_transmittance": t}
-                for w, (r, t) in zip(wavelength, measurement.values)]
-        residuals = np.asarray(result.residuals, float).reshape(wavelength.size, -1)
-        figure = line_figure(series, x_label="wavelength [nm]", y_label="R, T [dimensionless]",
-                             title="Measured slab reflectance and transmittance")
-        residual_series = [Series("reflectance", wavelength, residuals[:, 0], mode="lines+markers"),
-                           Series("transmittance", wavelength, residuals[:, 1], mode="lines+markers")]
+    elif kind in ("slab", "sphere"):
+        figure, rows, residual_series = _slab_figures(result, wavelength)
         residual_x = "wavelength [nm]"
     else:
         st.caption("Optics measured by another instrument: the fit takes them as they are.")
@@ -198,6 +192,52 @@ def _data_and_model(measurement, result, *, model: str, baseline, shown_waveleng
         table = pd.DataFrame({"wavelength_nm": np.repeat(wavelength, np.asarray(result.residuals).size // wavelength.size),
                               "residual": np.asarray(result.residuals, float).ravel()})
         show_figure(residual_figure, table=table, file_stem="fit-residuals", key="refit.residuals")
+
+
+def _slab_figures(result, wavelength):
+    """R, T (and Tc) measured (sphere: derived from the readings) against the fitted model."""
+    extras = result.extras
+    names = [("total_reflectance", "R"), ("total_transmittance", "T")]
+    if "collimated_transmittance" in extras:
+        names.append(("collimated_transmittance", "Tc"))
+    series, rows = [], {"wavelength_nm": wavelength}
+    for k, (key, short) in enumerate(names):
+        colour = COLOURS[k % len(COLOURS)]
+        measured = np.asarray(extras[key], float)
+        sd = np.asarray(extras.get(f"{key}_sd", np.zeros_like(measured)), float)
+        model = np.asarray(extras[f"model_{key}"], float)
+        series.append(Series(f"{short} measured", wavelength, measured, sd=np.nan_to_num(sd), mode="markers",
+                             colour=colour))
+        series.append(Series(f"{short} model", wavelength, model, dash="dot", colour=colour))
+        rows.update({f"{key}_measured": measured, f"{key}_sd": sd, f"{key}_model": model})
+    figure = line_figure(series, x_label="wavelength [nm]", y_label="R, T, Tc [dimensionless]",
+                         log_y="collimated_transmittance" in extras,
+                         title="Measured and fitted reflectance and transmittance", height=380)
+    residuals = np.asarray(result.residuals, float).reshape(wavelength.size, -1)
+    labels = ["M_R", "M_T", "M_Tc"] if result.kind == "sphere" else ["R", "T", "Tc"]
+    residual_series = [Series(labels[j], wavelength, residuals[:, j], mode="lines+markers")
+                       for j in range(residuals.shape[1])]
+    return figure, pd.DataFrame(rows).to_dict("records"), residual_series
+
+
+def _anisotropy(result) -> None:
+    """g fitted from the collimated transmittance with its SD, or the g assumed."""
+    extras = result.extras
+    if "g_fitted" not in extras:
+        return
+    wavelength = np.asarray(result.wavelength_nm, float)
+    g = np.asarray(extras["g"], float)
+    if not extras["g_fitted"]:
+        st.caption(f"g = {result.parameters['g']['value']:g} was given (assumed, not fitted); a collimated "
+                   f"transmittance would let the fit return it.")
+        return
+    sd = np.asarray(extras["g_sd"], float)
+    figure = line_figure([Series("fitted g", wavelength, g, sd=np.where(np.isfinite(sd), sd, 0.0),
+                                 mode="lines+markers")],
+                         x_label="wavelength [nm]", y_label="g [dimensionless]",
+                         title="Anisotropy g from the collimated transmittance")
+    show_figure(figure, table=pd.DataFrame({"wavelength_nm": wavelength, "g": g, "g_sd": sd}),
+                file_stem="fitted-g", key="refit.fitted.g")
 
 
 def _against_target(result, target: dict | None) -> None:
@@ -262,14 +302,18 @@ def _fit_section(workspace: Workspace, store) -> None:
                         value=float(sidecar.get("n", 1.33)), step=0.01, key="refit.n")
     power_law = c3.checkbox("Fit μs′ as a power law", key="refit.power_law",
                             help="μs′ = a (λ/500 nm)^−b fitted jointly across the band",
-                            disabled=kind in ("slab", "optics"))
+                            disabled=kind in ("slab", "sphere", "optics"))
     options: dict = {"n": float(n)}
-    if kind == "slab":
+    if kind in ("slab", "sphere"):
         options["thickness_mm"] = c4.number_input("Slab thickness [mm]", min_value=0.01,
                                                   value=float(sidecar.get("thickness_mm", 2.0)), step=0.1,
                                                   key="refit.thickness")
-        options["g"] = c4.number_input("Anisotropy g assumed [dimensionless]", min_value=0.0, max_value=0.99,
-                                       value=float(sidecar.get("g", 0.8)), step=0.05, key="refit.g")
+        fit_g = c3.checkbox("Fit g from the collimated transmittance", value="g" not in sidecar,
+                            key="refit.fit_g", help="needs the collimated_transmittance column (slab) or the "
+                            "tc_* readings (sphere); otherwise g is assumed")
+        if not fit_g:
+            options["g"] = c4.number_input("Anisotropy g assumed [dimensionless]", min_value=0.0, max_value=0.99,
+                                           value=float(sidecar.get("g", 0.8)), step=0.05, key="refit.g")
     if kind == "optics":
         options.pop("n")
     baseline = None
@@ -301,6 +345,7 @@ def _fit_section(workspace: Workspace, store) -> None:
         if shown:
             _data_and_model(measurement, result, model=model, baseline=baseline, shown_wavelengths=shown)
     _against_target(result, target)
+    _anisotropy(result)
     if measurement_row is not None:
         if st.button("Keep this fit in the batch log", key="refit.keep"):
             from phantomlab.ui.recording import keep_fit
