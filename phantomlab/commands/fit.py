@@ -92,8 +92,8 @@ def _table(result) -> str:
         lost_r = np.asarray(result.extras["lost_reflectance_fraction"], float)
         lost_t = np.asarray(result.extras["lost_transmittance_fraction"], float)
         lines.append(f"lost light corrected by Monte Carlo ({result.extras['lost_light_rounds']} rounds): "
-                     f"{100 * lost_r.min():.1f}-{100 * lost_r.max():.1f} % of the diffuse reflectance, "
-                     f"{100 * lost_t.min():.1f}-{100 * lost_t.max():.1f} % of the diffuse transmittance")
+                     f"{100 * lost_r.min():.1f} to {100 * lost_r.max():.1f} % of the diffuse reflectance, "
+                     f"{100 * lost_t.min():.1f} to {100 * lost_t.max():.1f} % of the diffuse transmittance")
     for name, value in result.parameters.items():
         if name != "g":
             lines.append(f"{name}: {value}")
