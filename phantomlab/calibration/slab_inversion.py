@@ -146,8 +146,8 @@ def _grid_start(model: SlabModel, data, use, g_fixed):
     W = data.shape[0]
     best = np.full(W, np.inf)
     start = np.zeros((W, 3))
-    if g_fixed is None:
-        return _start_from_collimated(model, data, use)
+    if g_fixed is None or np.all(use[:, 2]):
+        return _start_from_collimated(model, data, use, g_fixed)
     a_nodes, s_nodes = (v.ravel() for v in np.meshgrid(mua_grid, musp_grid, indexing="ij"))
     # a start needs g only roughly: one batched call per given g rounded to 0.05
     g_per_w = np.round(np.broadcast_to(np.asarray(g_fixed, float), (W,)) * 20.0) / 20.0
@@ -159,7 +159,7 @@ def _grid_start(model: SlabModel, data, use, g_fixed):
     return start
 
 
-def _start_from_collimated(model: SlabModel, data, use):
+def _start_from_collimated(model: SlabModel, data, use, g_fixed=None):
     """Start of the three-parameter fit: μt from Tc, then the best (albedo, g) node.
 
     Tc depends on the optical thickness τ = μt d alone (and the faces), so τ is read off a
@@ -196,7 +196,12 @@ def _start_from_collimated(model: SlabModel, data, use):
     with np.errstate(divide="ignore", invalid="ignore"):
         log_model = np.log(np.maximum(at_tau, 1e-300))  # (W, albedo, g, 2)
         log_data = np.log(np.where(use[:, :2] & (data[:, :2] > 0), data[:, :2], np.nan))
-    cost = np.nansum((log_model - log_data[:, None, None, :]) ** 2, axis=-1).reshape(W, -1)
+    cost = np.nansum((log_model - log_data[:, None, None, :]) ** 2, axis=-1)  # (W, albedo, g)
+    if g_fixed is not None:  # only the g node nearest the given g
+        nearest = np.argmin(np.abs(g_nodes[None, :] - np.broadcast_to(np.asarray(g_fixed, float), (W,))[:, None]),
+                            axis=1)
+        cost = np.where(np.arange(g_nodes.size)[None, None, :] == nearest[:, None, None], cost, np.inf)
+    cost = cost.reshape(W, -1)
     pick = np.argmin(cost, axis=1)
     ia, ig = np.unravel_index(pick, (albedo_nodes.size, g_nodes.size))
     a, g = albedo_nodes[ia], g_nodes[ig]
@@ -204,7 +209,7 @@ def _start_from_collimated(model: SlabModel, data, use):
     start = np.empty((W, 3))
     start[:, 0] = np.log(np.clip(mut_w * (1 - a), MUA_BOUNDS_PER_MM[0], MUA_BOUNDS_PER_MM[1]))
     start[:, 1] = np.log(np.clip(mut_w * a * (1 - g), MUSP_BOUNDS_PER_MM[0], MUSP_BOUNDS_PER_MM[1]))
-    start[:, 2] = g
+    start[:, 2] = g if g_fixed is None else np.broadcast_to(np.asarray(g_fixed, float), (W,))
     return start
 
 

@@ -308,7 +308,8 @@ def _fit_section(workspace: Workspace, store) -> None:
         options["thickness_mm"] = c4.number_input("Slab thickness [mm]", min_value=0.01,
                                                   value=float(sidecar.get("thickness_mm", 2.0)), step=0.1,
                                                   key="refit.thickness")
-        fit_g = c3.checkbox("Fit g from the collimated transmittance", value="g" not in sidecar,
+        collimated = any(name in raw.decode("utf-8", "replace") for name in ("collimated_transmittance", "tc_sample"))
+        fit_g = c3.checkbox("Fit g from the collimated transmittance", value=collimated and "g" not in sidecar,
                             key="refit.fit_g", help="needs the collimated_transmittance column (slab) or the "
                             "tc_* readings (sphere); otherwise g is assumed")
         if not fit_g:

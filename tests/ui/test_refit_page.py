@@ -30,9 +30,49 @@ def _titles(app):
 
 def test_carries_the_caution_for_lasers_and_bright_sources(refit, shown_text):
     text = shown_text(refit)
-    assert "Lasers and bright sources" in text
+    assert "Lasers, bright sources and sphere coatings" in text
     assert "laser" in text and "eyewear" in text
+    assert "barium sulfate" in text and "dust" in text and "safety data sheet" in text
     assert "not a certified reference standard" in text
+
+
+@pytest.fixture
+def sphere_refit(demo_file, downloads, go_to):
+    """The page with the demo sphere readings attached to the newest demo batch."""
+    import warnings
+    from pathlib import Path
+
+    from streamlit.testing.v1 import AppTest
+
+    from phantomlab.errors import PhantomlabWarning
+    from phantomlab.store import open_store
+    from phantomlab.workflows import attach_measurement
+
+    root = Path(__file__).resolve().parents[2]
+    csv = root / "recipes" / "measurements" / "demo-silicone-sphere.csv"
+    store = open_store(f"sqlite:///{demo_file}")
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", PhantomlabWarning)
+            attach_measurement(store, f"{YEAR}-002", kind="sphere", file_name=csv.name, raw_content=csv.read_bytes(),
+                               sidecar_toml=csv.with_suffix(".toml").read_text(), path=csv)
+    finally:
+        store.close()
+    app = AppTest.from_file(str(root / "app.py"), default_timeout=120)
+    app.run()
+    return go_to(app, "Fit and correct")
+
+
+def test_sphere_readings_show_r_t_tc_against_the_model_and_the_fitted_g(sphere_refit):
+    assert "demo-silicone-sphere.csv" in sphere_refit.selectbox(key="refit.measurement").value
+    assert sphere_refit.checkbox(key="refit.fit_g").value is True  # the file has collimated readings
+    titles = _titles(sphere_refit)
+    assert "Measured and fitted reflectance and transmittance" in titles
+    assert "Anisotropy g from the collimated transmittance" in titles
+    sphere_refit.checkbox(key="refit.fit_g").uncheck().run()
+    assert not sphere_refit.exception
+    assert "Anisotropy g from the collimated transmittance" not in _titles(sphere_refit)
+    assert any("assumed, not fitted" in c.value for c in sphere_refit.caption)
 
 
 @pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")  # the direct fit below
