@@ -335,8 +335,8 @@ def _fit_section(workspace: Workspace, store) -> None:
         return
     result = fitted.value
     show_warnings(result.warnings)
-    st.markdown(f"Model **{result.model}** · reduced χ² **{result.chi2_red:.3g}** · "
-                f"{result.wavelength_nm.size} wavelength(s)")
+    chi2 = f"{result.chi2_red:.3g}" if np.isfinite(result.chi2_red) else "– (no degrees of freedom)"
+    st.markdown(f"Model **{result.model}** · reduced χ² **{chi2}** · {result.wavelength_nm.size} wavelength(s)")
     if read.ok:
         measurement = read.value
         wavelengths = list(np.asarray(measurement.wavelength_nm, float))
