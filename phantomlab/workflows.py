@@ -637,7 +637,7 @@ def _sphere_sidecar_for_the_record(sidecar_toml: str | None, measurement) -> str
     spec = getattr(measurement.metadata, "sphere", None)
     if not sidecar_toml or spec is None:
         return sidecar_toml
-    table = tomllib.loads(sidecar_toml)
+    table = parse_toml(sidecar_toml, what="measurement metadata (TOML)")
     sphere = dict(table.get("sphere", {}))
     if "standard_csv" not in sphere:
         return sidecar_toml

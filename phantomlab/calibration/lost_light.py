@@ -43,6 +43,7 @@ import numpy as np
 from phantomlab.calibration.identifiability import _bands
 from phantomlab.calibration.slab_inversion import SlabModel, invert_slab
 from phantomlab.errors import InputError
+from phantomlab.limits import check_limit
 
 __all__ = ["LostLight", "fit_with_lost_light", "LOST_LIGHT_WARNING_FRACTION", "MAX_LOST_LIGHT_ROUNDS"]
 
@@ -211,6 +212,10 @@ def fit_with_lost_light(measurement, *, data, sd, n, n_outside, g, thickness_mm,
 
     _geometry(measurement)  # refuse a bad geometry before any work
     meta = measurement.metadata
+    count = min(measurement.wavelength_nm.size, meta.lost_light_wavelengths)
+    check_limit("mc_photons", meta.lost_light_photons * count * MAX_LOST_LIGHT_ROUNDS,
+                given=f"lost_light_photons {meta.lost_light_photons} x {count} wavelengths x up to "
+                      f"{MAX_LOST_LIGHT_ROUNDS} rounds")
     if model is None:
         model = slab_model(measurement, n=n, n_outside=n_outside, thickness_mm=thickness_mm)
     slab = _slab_of(model)

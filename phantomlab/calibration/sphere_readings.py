@@ -54,6 +54,7 @@ import numpy as np
 
 from phantomlab.calibration.sphere import ARRANGEMENTS, Sphere, SphereSetup
 from phantomlab.errors import InputError
+from phantomlab.inputs import contained_path, read_text_file
 
 __all__ = ["SphereSpec", "sphere_spec_from_table", "check_readings", "normalised_readings", "SPHERE_KEYS",
            "TRANSMISSION_KEYS"]
@@ -171,33 +172,26 @@ def _check_keys(table, allowed, where):
             raise InputError(f"{where}: unknown key {key!r}; accepted: {', '.join(allowed)}")
 
 
-def _inside(path: Path, base_dir: Path | None, where: str, key: str) -> Path:
-    """A data path named in a sidecar: relative, and inside the sidecar's folder tree."""
-    if path.is_absolute():
-        raise InputError(f"{where}: {key} = {str(path)!r}; accepted: a path relative to the measurement's "
-                         f"folder, inside it")
+def _inside(path_text, base_dir: Path | None, where: str, key: str) -> Path:
+    """A data path named in a sidecar, inside the sidecar's folder tree (``inputs.contained_path``)."""
     if base_dir is None:
         raise InputError(f"{where}: {key} needs the measurement's folder (the file read from disk); for an "
                          f"uploaded or stored file give the standard inline (standard_reflectance, "
                          f"standard_wavelength_nm)")
-    full = (base_dir / path).resolve()
-    if not full.is_relative_to(base_dir.resolve()):
-        raise InputError(f"{where}: {key} = {str(path)!r} lies outside the measurement's folder; accepted: a "
-                         f"file inside that folder (or below it)")
-    return full
+    return contained_path(path_text, base_dir=base_dir, what=f"{where}: {key}")
 
 
 def _standard_from_csv(path: Path, where: str):
     if not path.is_file():
         raise InputError(f"{where}: standard_csv file {path.name!r} not found")
-    text = path.read_text(encoding="utf-8")
+    text = read_text_file(path, what=f"{where}: standard_csv file")
     lines = [line for line in text.splitlines() if line.strip() and not line.lstrip().startswith("#")]
     rows = list(csv.reader(io.StringIO("\n".join(lines))))
     if not rows:
         raise InputError(f"{path.name}: empty; a standard file needs wavelength_nm,reflectance[,sd]")
     header = [h.strip() for h in rows[0]]
     if header[:2] != ["wavelength_nm", "reflectance"] or len(header) > 3 or (len(header) == 3 and header[2] != "sd"):
-        raise InputError(f"{path.name}: header {','.join(header)}; a standard file needs wavelength_nm,reflectance[,sd]")
+        raise InputError(f"{path.name}: header not accepted; a standard file needs wavelength_nm,reflectance[,sd]")
     if len(rows) - 1 > MAX_STANDARD_ROWS:
         raise InputError(f"{path.name}: {len(rows) - 1} rows; accepted: at most {MAX_STANDARD_ROWS}")
     numbers = []
@@ -274,7 +268,7 @@ def sphere_spec_from_table(table: Mapping[str, Any], *, where: str, base_dir: Pa
     if "standard_csv" in table and "standard_reflectance" in table:
         raise InputError(f"{where}: give standard_csv or standard_reflectance, not both")
     if "standard_csv" in table:
-        path = _inside(Path(str(table["standard_csv"])), base_dir, where, "standard_csv")
+        path = _inside(str(table["standard_csv"]), base_dir, where, "standard_csv")
         wavelength, reflectance, sd, source = _standard_from_csv(path, where)
     elif "standard_reflectance" in table:
         wavelength, reflectance, sd, source = _standard_inline(table, where)

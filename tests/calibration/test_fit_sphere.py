@@ -155,9 +155,9 @@ def _make(tmp_path):
     (lambda p: (p.parent / "standard.csv").write_text("wavelength_nm,reflectance\n650,0.97\n900,0.98\n"),
      "calibrated from 650 to 900 nm; the measurement needs 600 to 700 nm"),
     (lambda p: p.with_suffix(".toml").write_text(p.with_suffix(".toml").read_text().replace(
-        'standard_csv = "standard.csv"', 'standard_csv = "../outside/standard.csv"')), "outside the measurement's folder"),
+        'standard_csv = "standard.csv"', 'standard_csv = "../outside/standard.csv"')), "lies outside the folder"),
     (lambda p: p.with_suffix(".toml").write_text(p.with_suffix(".toml").read_text().replace(
-        'standard_csv = "standard.csv"', 'standard_csv = "/etc/standard.csv"')), "a path relative to the measurement"),
+        'standard_csv = "standard.csv"', 'standard_csv = "/etc/standard.csv"')), "lies outside the folder"),
     (lambda p: p.with_suffix(".toml").write_text(p.with_suffix(".toml").read_text().replace(
         "wall_reflectance = 0.97", "wall_reflectance = 1.2")), "wall_reflectance = 1.2"),
     (lambda p: p.with_suffix(".toml").write_text(p.with_suffix(".toml").read_text().replace(
