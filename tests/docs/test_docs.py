@@ -188,8 +188,11 @@ def _format_fields():
     yield "Measurement CSV", {c for alternatives in measurements._VALUE_COLUMNS.values() for cols in alternatives
                               for c in cols} | {c for cols in measurements._SD_COLUMNS.values() for c in cols} \
         | {a for a in measurements.KINDS.values() if a} | set(measurements.KINDS)
+    from phantomlab.calibration import sphere_readings
+
     yield "Measurement sidecar (TOML)", set(measurements._METADATA_KEYS) | {
-        "wavelength_nm", "mua_per_mm", "musp_per_mm", "mua_sd_per_mm", "musp_sd_per_mm", "reading_csv"}
+        "wavelength_nm", "mua_per_mm", "musp_per_mm", "mua_sd_per_mm", "musp_sd_per_mm", "reading_csv"} \
+        | set(sphere_readings.SPHERE_KEYS) | set(sphere_readings.TRANSMISSION_KEYS)
     yield "Amounts CSV", {"stock", "volume_ml", "mass_g", "dilution_factor"}
     yield "Monte Carlo baseline (.npz)", set(baseline._ARRAYS) | set(baseline._INPUT_KEYS) | {"inputs_json"}
     yield "Lab archive (zip)", set(Base.metadata.tables)
