@@ -40,6 +40,8 @@ COMMAND_MODULES: tuple[str, ...] = (
     "phantomlab.commands.forward",
     "phantomlab.commands.plan",
     "phantomlab.commands.baseline",
+    "phantomlab.commands.chromophore",
+    "phantomlab.commands.unmix",
 )
 
 

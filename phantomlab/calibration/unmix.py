@@ -1,0 +1,385 @@
+"""Spectral unmixing: fitted μa(λ) → haemoglobin, sO₂, water and lipid (layer 3).
+
+The absorption of a blood phantom is a sum of known spectra with non-negative amounts
+(Beer–Lambert with independent absorbers)::
+
+    μa(λ) = c_HbO2 · k_HbO2(λ) + c_Hb · k_Hb(λ) + f_water · μa_water(λ) + f_lipid · μa_lipid(λ)
+
+with k = ln(10) · ε · 1e-6 / 10 [1/mm per µM of tetramer] from a published haemoglobin table
+(:mod:`phantomlab.materials.haemoglobin`) and the volume fractions of water and lipid
+multiplying the pure liquids' μa.  The amounts are found by weighted non-negative least
+squares (Lawson & Hanson 1974, ch. 23, ``scipy.optimize.nnls``) on columns scaled to unit
+norm; then
+
+    sO₂ = c_HbO2 / (c_HbO2 + c_Hb),   total haemoglobin = c_HbO2 + c_Hb   [µM tetramer].
+
+Uncertainties: the covariance of the amounts is (AᵀWA)⁻¹ with W = diag(1/σ²) from the
+stated SDs of μa; without SDs the residuals are relative (σ ∝ μa) and the covariance is
+scaled by the residual variance (``chi2_red`` is then null).  The covariance is that of the
+unconstrained linear problem (a component held at zero keeps its unconstrained SD).  SDs of
+sO₂ and total haemoglobin follow by the delta method with the full covariance.
+
+Whether the wavelengths can separate the chromophores at all is the condition number of
+the weighted, column-normalised design matrix (ratio of its largest to smallest singular
+value): the factor by which a relative error of the data can grow in the amounts.  Above
+:data:`CONDITION_WARN` the result is flagged.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import warnings
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from scipy.optimize import nnls
+
+from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.materials.haemoglobin import (
+    DEFAULT_HAEMOGLOBIN_SOURCE,
+    EXTINCTION_BASIS,
+    haemoglobin_mua_per_mm_per_um,
+    haemoglobin_source,
+)
+from phantomlab.materials.water import water_absorption_per_mm
+
+__all__ = [
+    "UNMIX_CHROMOPHORES",
+    "CONDITION_WARN",
+    "SO2_SD_WARN",
+    "MAX_WAVELENGTHS",
+    "UnmixResult",
+    "parse_chromophore_list",
+    "chromophore_columns",
+    "unmix_spectrum",
+    "spectrum_from_fit_json",
+]
+
+#: Chromophores the unmixing knows, with the unit of their amount.
+UNMIX_CHROMOPHORES: dict[str, str] = {
+    "hbo2": "uM",
+    "hb": "uM",
+    "water": "volume fraction",
+    "lipid": "volume fraction",
+}
+
+#: Condition number above which the wavelengths are said not to separate the chromophores.
+#: With 1 % noise on μa, a condition number of 30 lets the amounts move by up to 30 %;
+#: well-spread sets stay near 2–15 (650–1000 nm every 10 nm with water: 3.2–3.9; 500–600 nm
+#: every 4 nm: 4–6), the isosbestic rows near 500, 544, 570, 584 and 796 nm alone give 85
+#: (tests/calibration/test_unmix.py).
+CONDITION_WARN = 30.0
+
+#: An SD of sO₂ above this is flagged as too uncertain to test an oximeter with.
+SO2_SD_WARN = 0.05
+
+#: Most wavelengths one unmixing accepts (a 1 nm grid over 250–1000 nm is 751).
+MAX_WAVELENGTHS = 2000
+
+
+def parse_chromophore_list(text) -> tuple[str, ...]:
+    """Read ``--chromophores hbo2,hb,water[,lipid]``: both haemoglobins, each name once."""
+    names = tuple(part.strip().lower() for part in str(text).split(",") if part.strip())
+    unknown = [n for n in names if n not in UNMIX_CHROMOPHORES]
+    if unknown:
+        raise InputError(
+            f"chromophores: unknown {', '.join(unknown)}; known: {', '.join(UNMIX_CHROMOPHORES)}"
+        )
+    if len(set(names)) != len(names):
+        raise InputError(f"chromophores: each name once, got {','.join(names)}")
+    if "hbo2" not in names or "hb" not in names:
+        raise InputError("chromophores: give both hbo2 and hb (sO2 needs both), e.g. hbo2,hb,water")
+    return names
+
+
+def _lipid_absorption(wavelength_nm):
+    try:
+        from phantomlab.materials.solvents import lipid_absorption_vanVeen2004
+    except ImportError:
+        raise InputError(
+            "chromophores: lipid absorption is not available in this version; unmix with hbo2,hb,water"
+        ) from None
+    return lipid_absorption_vanVeen2004(wavelength_nm=wavelength_nm)
+
+
+def chromophore_columns(chromophores, *, wavelength_nm, source: str = DEFAULT_HAEMOGLOBIN_SOURCE) -> np.ndarray:
+    """The design matrix: μa per unit amount of each chromophore, shape (wavelengths, chromophores).
+
+    Units: [1/mm per µM tetramer] for ``hbo2`` and ``hb``; [1/mm per volume fraction] (the
+    pure liquid's μa) for ``water`` and ``lipid``.
+    """
+    wavelength = np.asarray(wavelength_nm, dtype=float)
+    columns = []
+    for name in chromophores:
+        if name in ("hbo2", "hb"):
+            columns.append(haemoglobin_mua_per_mm_per_um(name, wavelength_nm=wavelength, source=source))
+        elif name == "water":
+            columns.append(water_absorption_per_mm(wavelength))
+        elif name == "lipid":
+            columns.append(_lipid_absorption(wavelength))
+        else:  # parse_chromophore_list refuses these first
+            raise InputError(f"chromophores: unknown {name!r}; known: {', '.join(UNMIX_CHROMOPHORES)}")
+    return np.column_stack(columns)
+
+
+@dataclass(frozen=True)
+class UnmixResult:
+    """Amounts of each chromophore, sO₂ and total haemoglobin, with SDs.
+
+    Attributes
+    ----------
+    chromophores : tuple of str
+    amounts, amount_sds : dict of str to float
+        µM tetramer for ``hbo2``/``hb``, volume fraction for ``water``/``lipid``.
+    so2, so2_sd : float or None
+        Fraction 0–1 (None when the total haemoglobin is zero).
+    thb_um, thb_sd_um : float
+        Total haemoglobin [µM tetramer].
+    chi2_red : float or None
+        Reduced χ² (None without SDs or degrees of freedom).
+    dof : int
+    condition_number : float
+    covariance : ndarray
+    wavelength_nm, mua_per_mm, model_mua_per_mm, residuals : ndarray
+    source : str
+        Haemoglobin table used.
+    warnings : tuple of str
+    """
+
+    chromophores: tuple
+    amounts: dict
+    amount_sds: dict
+    so2: float | None
+    so2_sd: float | None
+    thb_um: float
+    thb_sd_um: float
+    chi2_red: float | None
+    dof: int
+    condition_number: float
+    covariance: np.ndarray
+    wavelength_nm: np.ndarray
+    mua_per_mm: np.ndarray
+    model_mua_per_mm: np.ndarray
+    residuals: np.ndarray
+    source: str
+    warnings: tuple = field(default=())
+
+    def to_json(self) -> dict[str, Any]:
+        """The ``unmix`` object of docs/contract.md (stable keys first, extras after)."""
+        from phantomlab.jsonable import to_jsonable
+
+        payload: dict[str, Any] = {
+            "so2": self.so2,
+            "so2_sd": self.so2_sd,
+            "thb_um": self.thb_um,
+            "thb_sd_um": self.thb_sd_um,
+            "water_fraction": self.amounts.get("water"),
+        }
+        if "lipid" in self.chromophores:
+            payload["lipid_fraction"] = self.amounts["lipid"]
+        payload.update(
+            {
+                "chi2_red": self.chi2_red,
+                "condition_number": self.condition_number,
+                "warnings": list(self.warnings),
+                "water_fraction_sd": self.amount_sds.get("water"),
+            }
+        )
+        if "lipid" in self.chromophores:
+            payload["lipid_fraction_sd"] = self.amount_sds["lipid"]
+        payload.update(
+            {
+                "hbo2_um": self.amounts["hbo2"],
+                "hbo2_sd_um": self.amount_sds["hbo2"],
+                "hb_um": self.amounts["hb"],
+                "hb_sd_um": self.amount_sds["hb"],
+                "chromophores": list(self.chromophores),
+                "source": self.source,
+                "basis": EXTINCTION_BASIS,
+                "dof": self.dof,
+                "wavelength_nm": self.wavelength_nm,
+                "mua_per_mm": self.mua_per_mm,
+                "model_mua_per_mm": self.model_mua_per_mm,
+                "residuals": self.residuals,
+                "covariance": self.covariance,
+            }
+        )
+        return to_jsonable(payload)
+
+
+def _checked_spectrum(wavelength_nm, mua_per_mm, mua_sd_per_mm):
+    try:
+        wavelength = np.asarray(wavelength_nm, dtype=float).ravel()
+        mua = np.asarray(mua_per_mm, dtype=float).ravel()
+        sd = None if mua_sd_per_mm is None else np.asarray(mua_sd_per_mm, dtype=float).ravel()
+    except (TypeError, ValueError):
+        raise InputError("unmix: wavelength_nm, mua_per_mm and mua_sd_per_mm must be numbers") from None
+    if wavelength.shape != mua.shape or (sd is not None and sd.shape != mua.shape):
+        raise InputError("unmix: wavelength_nm, mua_per_mm (and mua_sd_per_mm) must have one value per wavelength")
+    if wavelength.size > MAX_WAVELENGTHS:
+        raise InputError(f"unmix: {wavelength.size} wavelengths; at most {MAX_WAVELENGTHS}")
+    if not np.all(np.isfinite(wavelength)) or not np.all(np.isfinite(mua)):
+        raise InputError("unmix: wavelengths and mua must be finite numbers")
+    if len(np.unique(wavelength)) != wavelength.size:
+        raise InputError("unmix: each wavelength once")
+    if sd is not None and (not np.all(np.isfinite(sd)) or np.any(sd <= 0)):
+        raise InputError("unmix: every mua SD must be a finite number > 0 (or give none)")
+    order = np.argsort(wavelength)
+    return wavelength[order], mua[order], None if sd is None else sd[order]
+
+
+def unmix_spectrum(
+    *,
+    wavelength_nm,
+    mua_per_mm,
+    mua_sd_per_mm=None,
+    chromophores=("hbo2", "hb", "water"),
+    source: str = DEFAULT_HAEMOGLOBIN_SOURCE,
+) -> UnmixResult:
+    """Unmix a μa spectrum into haemoglobin (oxy, deoxy), water and lipid.
+
+    Parameters
+    ----------
+    wavelength_nm : array [nm]
+    mua_per_mm : array [1/mm]
+        Fitted or measured absorption coefficient.
+    mua_sd_per_mm : array [1/mm] or None
+        Its SD per wavelength; None: relative residuals, covariance scaled by them.
+    chromophores : sequence of str
+        Names from :data:`UNMIX_CHROMOPHORES`; ``hbo2`` and ``hb`` are required.
+    source : str
+        Haemoglobin extinction table (:data:`phantomlab.materials.haemoglobin.HAEMOGLOBIN_SOURCES`).
+
+    Returns
+    -------
+    UnmixResult
+
+    Notes
+    -----
+    Weighted non-negative least squares (Lawson & Hanson 1974, *Solving Least Squares
+    Problems*, ch. 23) on the column-normalised design; covariance (AᵀWA)⁻¹ of the linear
+    model; delta method for sO₂ = c₁/(c₁ + c₂): ∂sO₂/∂c₁ = c₂/T², ∂sO₂/∂c₂ = −c₁/T².
+    """
+    names = parse_chromophore_list(",".join(chromophores))
+    haemoglobin_source(source)
+    wavelength, mua, sd = _checked_spectrum(wavelength_nm, mua_per_mm, mua_sd_per_mm)
+    k = len(names)
+    if wavelength.size < k:
+        raise InputError(
+            f"unmix: {wavelength.size} wavelengths for {k} chromophores; give at least as many wavelengths"
+        )
+    messages: list[str] = []
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", PhantomlabWarning)
+        design = chromophore_columns(names, wavelength_nm=wavelength, source=source)
+    for item in caught:
+        text = " ".join(str(item.message).split())
+        if text not in messages:
+            messages.append(text)
+    relative = sd is None
+    sigma = sd if sd is not None else np.maximum(np.abs(mua), 1e-3 * max(np.max(np.abs(mua)), 1e-12))
+    weighted = design / sigma[:, None]
+    target = mua / sigma
+    norms = np.linalg.norm(weighted, axis=0)
+    if np.any(norms == 0):
+        zero = [n for n, v in zip(names, norms) if v == 0]
+        raise InputError(f"unmix: {', '.join(zero)} absorbs nothing at these wavelengths; leave it out")
+    scaled = weighted / norms
+    singular = np.linalg.svd(scaled, compute_uv=False)
+    condition = float(singular[0] / singular[-1]) if singular[-1] > 0 else math.inf
+    solution_scaled, _ = nnls(scaled, target, maxiter=50 * k)
+    amounts_vector = solution_scaled / norms
+    model = design @ amounts_vector
+    residual = (mua - model) / sigma
+    dof = int(wavelength.size - k)
+    rss = float(residual @ residual)
+    covariance_scaled = np.linalg.pinv(scaled.T @ scaled)
+    covariance = covariance_scaled / np.outer(norms, norms)
+    chi2_red = None
+    if relative:
+        if dof > 0:
+            covariance = covariance * (rss / dof)
+        else:
+            covariance = np.full_like(covariance, np.nan)
+            messages.append("unmix: as many wavelengths as chromophores and no SDs: the SDs are not known")
+    elif dof > 0:
+        chi2_red = rss / dof
+    amount_sds_vector = np.sqrt(np.clip(np.diag(covariance), 0.0, None))
+    amounts = {n: float(v) for n, v in zip(names, amounts_vector)}
+    amount_sds = {n: float(v) for n, v in zip(names, amount_sds_vector)}
+    i, j = names.index("hbo2"), names.index("hb")
+    c1, c2 = amounts_vector[i], amounts_vector[j]
+    total = float(c1 + c2)
+    thb_var = covariance[i, i] + covariance[j, j] + 2 * covariance[i, j]
+    thb_sd = float(math.sqrt(max(thb_var, 0.0))) if np.isfinite(thb_var) else math.nan
+    if total > 0:
+        so2 = float(c1 / total)
+        gradient = np.array([c2, -c1]) / total**2
+        sub = covariance[np.ix_([i, j], [i, j])]
+        so2_var = float(gradient @ sub @ gradient)
+        so2_sd = float(math.sqrt(max(so2_var, 0.0))) if np.isfinite(so2_var) else math.nan
+    else:
+        so2 = so2_sd = None
+        messages.append("unmix: no haemoglobin found (total 0 µM): sO2 is undefined")
+    if condition > CONDITION_WARN:
+        messages.append(
+            f"unmix: the wavelengths cannot separate {', '.join(names)} well (condition number "
+            f"{condition:.3g} > {CONDITION_WARN:g}); add wavelengths where HbO2 and Hb differ "
+            "(e.g. 660-760 nm and 850-900 nm) before trusting sO2"
+        )
+    if so2_sd is not None and np.isfinite(so2_sd) and so2_sd > SO2_SD_WARN:
+        messages.append(f"unmix: sO2 SD {so2_sd:.3f} is above {SO2_SD_WARN:g}; too uncertain to test an oximeter against")
+    return UnmixResult(
+        chromophores=names,
+        amounts=amounts,
+        amount_sds=amount_sds,
+        so2=so2,
+        so2_sd=so2_sd,
+        thb_um=total,
+        thb_sd_um=thb_sd,
+        chi2_red=chi2_red,
+        dof=dof,
+        condition_number=condition,
+        covariance=covariance,
+        wavelength_nm=wavelength,
+        mua_per_mm=mua,
+        model_mua_per_mm=model,
+        residuals=residual,
+        source=source,
+        warnings=tuple(messages),
+    )
+
+
+#: Largest fit JSON file read by ``--from-fit`` [bytes].
+MAX_FIT_JSON_BYTES = 20_000_000
+
+
+def spectrum_from_fit_json(text: str, *, name: str = "fit JSON"):
+    """μa and its SD from a fit's JSON output (the ``fit`` object of docs/contract.md).
+
+    Returns
+    -------
+    (wavelength_nm, mua_per_mm, mua_sd_per_mm or None)
+        The SD is None when any wavelength has none (``null``): the unmixing then uses
+        relative residuals for all.
+    """
+    if len(text) > MAX_FIT_JSON_BYTES:
+        raise InputError(f"{name}: larger than {MAX_FIT_JSON_BYTES // 1_000_000} MB")
+    try:
+        payload = json.loads(text)
+    except ValueError:
+        raise InputError(f"{name}: not JSON; give the output of phantomlab fit ... --json") from None
+    if not isinstance(payload, dict) or "wavelength_nm" not in payload or "mua_per_mm" not in payload:
+        raise InputError(f"{name}: no wavelength_nm and mua_per_mm keys; give the output of phantomlab fit ... --json")
+    try:
+        wavelength = np.asarray(payload["wavelength_nm"], dtype=float)
+        mua = np.asarray(payload["mua_per_mm"], dtype=float)
+    except (TypeError, ValueError):
+        raise InputError(f"{name}: wavelength_nm and mua_per_mm must be lists of numbers") from None
+    raw_sd = payload.get("mua_sd_per_mm")
+    sd = None
+    if isinstance(raw_sd, list) and raw_sd and all(isinstance(v, (int, float)) for v in raw_sd):
+        sd = np.asarray(raw_sd, dtype=float)
+    return wavelength, mua, sd

@@ -1,0 +1,88 @@
+"""``phantomlab unmix``: μa(λ) → sO₂, total haemoglobin, water and lipid (layer 5, no physics).
+
+    phantomlab unmix [OPTICS.csv] --chromophores hbo2,hb,water[,lipid] [--from-fit FILE.json]
+                     [--source S] [--json]
+
+JSON keys (docs/contract.md): ``so2``, ``so2_sd``, ``thb_um``, ``thb_sd_um``, ``water_fraction``,
+``lipid_fraction`` (when asked), ``chi2_red``, ``condition_number``, ``warnings``; extras:
+``water_fraction_sd``, ``lipid_fraction_sd``, ``hbo2_um``, ``hbo2_sd_um``, ``hb_um``,
+``hb_sd_um``, ``chromophores``, ``source``, ``basis``, ``dof``, ``wavelength_nm``,
+``mua_per_mm``, ``model_mua_per_mm``, ``residuals``, ``covariance``, ``input``.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from phantomlab.cli import CommandResult, add_json_option
+from phantomlab.errors import InputError
+
+__all__ = ["register"]
+
+
+def register(subparsers) -> None:
+    from phantomlab.materials.haemoglobin import DEFAULT_HAEMOGLOBIN_SOURCE, HAEMOGLOBIN_SOURCES
+
+    parser = subparsers.add_parser(
+        "unmix",
+        help="sO2, total haemoglobin, water and lipid from a mua spectrum (non-negative least squares)",
+        description="Unmix a mua spectrum (an optics file, or a fit's JSON output) into oxy- and "
+        "deoxyhaemoglobin, water and lipid with SDs; warns when the wavelengths cannot separate them.",
+    )
+    parser.add_argument("optics_file", nargs="?", default=None, metavar="OPTICS.csv",
+                        help="mua spectrum in the optics layout (wavelength_nm,mua_per_mm,musp_per_mm[,...sd])")
+    parser.add_argument("--chromophores", required=True, metavar="LIST",
+                        help="hbo2,hb and any of water, lipid, comma-separated")
+    parser.add_argument("--from-fit", default=None, metavar="FILE.json",
+                        help="read mua from the JSON output of phantomlab fit ... --json instead of OPTICS.csv")
+    parser.add_argument(
+        "--source", default=DEFAULT_HAEMOGLOBIN_SOURCE, metavar="S",
+        help=f"haemoglobin table: {', '.join(HAEMOGLOBIN_SOURCES)} (default {DEFAULT_HAEMOGLOBIN_SOURCE})",
+    )
+    add_json_option(parser)
+    parser.set_defaults(handler=_unmix)
+
+
+def _spectrum(args):
+    from phantomlab.calibration.measurements import read_measurement
+    from phantomlab.calibration.unmix import spectrum_from_fit_json
+
+    if (args.optics_file is None) == (args.from_fit is None):
+        raise InputError("unmix: give either OPTICS.csv or --from-fit FILE.json (one of them)")
+    if args.from_fit is not None:
+        path = Path(args.from_fit)
+        if not path.is_file():
+            raise InputError(f"--from-fit: file {str(path)!r} not found")
+        return (*spectrum_from_fit_json(path.read_text(encoding="utf-8"), name=path.name), path.name)
+    measurement = read_measurement(args.optics_file, kind="optics")
+    sd = None if measurement.sd is None else measurement.sd[:, 0]
+    return measurement.wavelength_nm, measurement.values[:, 0], sd, measurement.name
+
+
+def _unmix(args) -> CommandResult:
+    from phantomlab.calibration.unmix import parse_chromophore_list, unmix_spectrum
+
+    chromophores = parse_chromophore_list(args.chromophores)
+    wavelength, mua, sd, name = _spectrum(args)
+    result = unmix_spectrum(wavelength_nm=wavelength, mua_per_mm=mua, mua_sd_per_mm=sd,
+                            chromophores=chromophores, source=args.source)
+    payload = result.to_json()
+    payload["input"] = name
+
+    def number(value, sd_value, spec):
+        if value is None:
+            return "-"
+        return f"{value:{spec}} ± {sd_value:{spec}}" if sd_value is not None else f"{value:{spec}}"
+
+    lines = [
+        f"unmixing of {name}: {len(result.wavelength_nm)} wavelengths, chromophores {','.join(result.chromophores)}, "
+        f"haemoglobin table {result.source}",
+        f"  sO2                 {number(result.so2, result.so2_sd, '.3f')}",
+        f"  total haemoglobin   {number(result.thb_um, result.thb_sd_um, '.4g')} uM (tetramer)",
+    ]
+    for key, label in (("water", "water fraction"), ("lipid", "lipid fraction")):
+        if key in result.chromophores:
+            lines.append(f"  {label:<19} {number(result.amounts[key], result.amount_sds[key], '.4g')}")
+    chi2 = "-" if result.chi2_red is None else f"{result.chi2_red:.3g}"
+    lines.append(f"  chi2_red {chi2}, condition number {result.condition_number:.3g}")
+    return CommandResult(payload=payload, text="\n".join(lines))
