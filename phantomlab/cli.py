@@ -42,6 +42,7 @@ COMMAND_MODULES: tuple[str, ...] = (
     "phantomlab.commands.baseline",
     "phantomlab.commands.chromophore",
     "phantomlab.commands.unmix",
+    "phantomlab.commands.oxygenation",
 )
 
 

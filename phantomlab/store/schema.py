@@ -46,6 +46,7 @@ __all__ = [
     "CalibrationState",
     "Fit",
     "Measurement",
+    "OxygenationSeries",
     "Recipe",
     "StockLot",
     "VersionedMixin",
@@ -239,5 +240,30 @@ class CalibrationPotency(Base):
     potency_sd: Mapped[float] = mapped_column(Float)
 
 
+class OxygenationSeries(VersionedMixin, Base):
+    """An oxygenation series of one batch: μa spectra over time and reference sO₂ readings.
+
+    Both files are kept byte for byte; ``points`` holds the unmixing of every time point and
+    ``readings`` the reference readings, as the command printed them.  Added by migration 0004.
+    """
+
+    __tablename__ = "oxygenation_series"
+    __table_args__ = (UniqueConstraint("uid", "version", name="uq_oxygenation_series_uid_version"),)
+
+    batch_id: Mapped[int] = mapped_column(ForeignKey("batches.id"), index=True)
+    name: Mapped[str] = mapped_column(String(200))
+    series_file_name: Mapped[str] = mapped_column(String(500))
+    series_content: Mapped[bytes] = mapped_column(LargeBinary)
+    series_sha256: Mapped[str] = mapped_column(String(64))
+    readings_file_name: Mapped[str | None] = mapped_column(String(500), nullable=True)
+    readings_content: Mapped[bytes | None] = mapped_column(LargeBinary, nullable=True)
+    readings_sha256: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    chromophores: Mapped[str] = mapped_column(String(100))
+    extinction_source: Mapped[str] = mapped_column(String(50))
+    points: Mapped[list[Any]] = mapped_column(JSON)
+    readings: Mapped[list[Any]] = mapped_column(JSON)
+    software_version: Mapped[str] = mapped_column(String(50))
+
+
 #: Models whose records are corrected by new versions and retracted by a mark.
-VERSIONED_MODELS = (StockLot, Recipe, Batch, Measurement, Fit, CalibrationState)
+VERSIONED_MODELS = (StockLot, Recipe, Batch, Measurement, Fit, CalibrationState, OxygenationSeries)

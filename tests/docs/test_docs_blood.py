@@ -48,3 +48,30 @@ def test_unmix_keys(tmp_path, capsys):
     payload = _run(capsys, "unmix", optics, "--chromophores", "hbo2,hb,water")
     missing = sorted(set(payload) - _named("phantomlab unmix"))
     assert not missing, f"docs/contract.md, 'phantomlab unmix': keys not described: {missing}"
+
+
+def _all_keys(value) -> set[str]:
+    found: set[str] = set()
+    if isinstance(value, dict):
+        for key, item in value.items():
+            found.add(key)
+            found |= _all_keys(item)
+    elif isinstance(value, list):
+        for item in value:
+            found |= _all_keys(item)
+    return found
+
+
+def test_oxygenation_keys(tmp_path, capsys):
+    db = f"sqlite:///{tmp_path / 'lab.sqlite'}"
+    code = _run(capsys, "batch", "add", ROOT / "recipes" / "demo-nir-liquid.toml", "--db", db)["batch_id"]
+    measurements = ROOT / "recipes" / "measurements"
+    added = _run(capsys, "oxygenation", "add", code, measurements / "demo-oximeter-series.csv", "--references",
+                 measurements / "demo-oximeter-references.csv", "--chromophores", "hbo2,hb,water", "--db", db)
+    shown = _run(capsys, "oxygenation", "show", code, "--db", db)
+    add_names = _named("phantomlab oxygenation add")
+    for title, payload, named in (("phantomlab oxygenation add", added, add_names),
+                                  # show refers to the point, reading and comparison keys of add
+                                  ("phantomlab oxygenation show", shown, _named("phantomlab oxygenation show") | add_names)):
+        missing = sorted(_all_keys(payload) - named)
+        assert not missing, f"docs/contract.md, '{title}': keys not described: {missing}"

@@ -15,8 +15,8 @@ from phantomlab.store.migrate import current_revision, head_revision, upgrade
 from phantomlab.store.schema import Base
 
 
-def test_head_is_the_third_revision():
-    assert head_revision() == "0003"
+def test_head_is_the_fourth_revision():
+    assert head_revision() == "0004"
 
 
 def test_migrated_database_matches_the_declared_schema(store):
@@ -63,7 +63,7 @@ def test_upgrade_from_the_first_schema_keeps_data(db_url):
     engine.dispose()
 
     store = open_store(db_url)  # upgrades in place
-    assert current_revision(store.engine) == "0003"
+    assert current_revision(store.engine) == head_revision()
     columns = {c["name"] for c in inspect(store.engine).get_columns("measurements")}
     assert "temperature_c" in columns
     with store.reading() as session:
