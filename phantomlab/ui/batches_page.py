@@ -22,6 +22,7 @@ import streamlit as st
 from phantomlab.errors import InputError
 from phantomlab.ui import services
 from phantomlab.ui.batch_trends import latest_fit, spread_section
+from phantomlab.ui.oxygenation_section import oxygenation_section
 from phantomlab.ui.plain_text import plain
 from phantomlab.ui.plots import Series, line_figure, show_figure, target_series
 from phantomlab.ui.widgets import call_layer
@@ -332,7 +333,8 @@ def _one_batch(workspace: Workspace, store, batch: dict) -> None:
                            data=batch["sheet_html"].encode("utf-8"), file_name=f"sheet-{batch['code']}.html",
                            mime="text/html", key="batches.sheet", on_click="ignore")
     _status_section(store, batch)
-    amounts, measure, history = st.tabs(["Amounts dispensed", "Measurements", "History"])
+    amounts, measure, oxygenation, history = st.tabs(
+        ["Amounts dispensed", "Measurements", "Oxygenation series", "History"])
     with amounts:
         _amounts_section(workspace, store, batch)
         _prediction_plot(batch)
@@ -342,6 +344,8 @@ def _one_batch(workspace: Workspace, store, batch: dict) -> None:
         else:
             st.caption("No measurement attached yet.")
         _measure_section(workspace, store, batch)
+    with oxygenation:
+        oxygenation_section(workspace, store, batch)
     with history:
         st.markdown("**Versions of the batch record**")
         st.dataframe(read_history(store, batch["code"]), hide_index=True, width="stretch")

@@ -251,3 +251,43 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
         finally:
             browser.close()
     print(f"screenshots in {shots}")
+
+
+def test_record_an_oxygenation_series_and_see_it(served_page, tmp_path):
+    """A demo batch gets the invented oximeter-test series through the page's form; the plot
+    of fitted vs reference sO₂ over time and the reference-vs-fitted table appear."""
+    from playwright.sync_api import sync_playwright
+
+    shots = tmp_path / "screenshots"
+    shots.mkdir()
+    measurements = REPO_ROOT / "recipes" / "measurements"
+    with sync_playwright() as driver:
+        browser = driver.chromium.launch(executable_path=str(CHROMIUM), headless=True, args=LAUNCH_ARGS)
+        try:
+            page = browser.new_context(viewport={"width": 1400, "height": 1000}).new_page()
+            page.set_default_timeout(STEP_TIMEOUT_MS)
+            page.goto(served_page)
+            page.get_by_text("Demo data.").first.wait_for()
+            _settle(page)
+            page.get_by_text("Batch log", exact=True).first.click()
+            page.get_by_role("heading", name="Batch log").first.wait_for()
+            _settle(page)
+            page.get_by_role("tab", name="Oxygenation series").click()
+            page.get_by_text("No oxygenation series recorded for this batch yet").first.wait_for()
+            for label, name in (("Series file", "demo-oximeter-series.csv"),
+                                ("Reference sO₂ readings", "demo-oximeter-references.csv")):
+                uploader = page.locator('[data-testid="stFileUploader"]').filter(has_text=label).first
+                uploader.locator('[data-testid="stFileUploaderDropzoneInput"]').set_input_files(str(measurements / name))
+                _settle(page)
+            page.get_by_role("button", name="Unmix and record").click()
+            page.get_by_text("Oxygenation series 'demo-oximeter-series' recorded").first.wait_for()
+            _settle(page)
+            page.get_by_role("tab", name="Oxygenation series").click()
+            page.get_by_text("Fitted vs reference sO₂ over time").first.wait_for()
+            page.get_by_text("Reference vs fitted sO₂").first.wait_for()
+            _settle(page)
+            _no_exception(page, "after recording an oxygenation series")
+            _shoot(page, shots / "09-oxygenation-series.png")
+        finally:
+            browser.close()
+    print(f"screenshots in {shots}")
