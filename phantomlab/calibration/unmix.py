@@ -7,7 +7,8 @@ The absorption of a blood phantom is a sum of known spectra with non-negative am
 
 with k = ln(10) · ε · 1e-6 / 10 [1/mm per µM of tetramer] from a published haemoglobin table
 (:mod:`phantomlab.materials.haemoglobin`) and the volume fractions of water and lipid
-multiplying the pure liquids' μa.  The amounts are found by weighted non-negative least
+multiplying the pure liquids' μa (water: :func:`phantomlab.materials.water.water_absorption_per_mm`,
+its default source; lipid: van Veen et al. 2004, :mod:`phantomlab.materials.solvents`).  The amounts are found by weighted non-negative least
 squares (Lawson & Hanson 1974, ch. 23, ``scipy.optimize.nnls``) on columns scaled to unit
 norm; then
 
@@ -43,6 +44,7 @@ from phantomlab.materials.haemoglobin import (
     haemoglobin_mua_per_mm_per_um,
     haemoglobin_source,
 )
+from phantomlab.materials.solvents import lipid_absorption_vanVeen2004
 from phantomlab.materials.water import water_absorption_per_mm
 
 __all__ = [
@@ -94,16 +96,6 @@ def parse_chromophore_list(text) -> tuple[str, ...]:
     return names
 
 
-def _lipid_absorption(wavelength_nm):
-    try:
-        from phantomlab.materials.solvents import lipid_absorption_vanVeen2004
-    except ImportError:
-        raise InputError(
-            "chromophores: lipid absorption is not available in this version; unmix with hbo2,hb,water"
-        ) from None
-    return lipid_absorption_vanVeen2004(wavelength_nm=wavelength_nm)
-
-
 def chromophore_columns(chromophores, *, wavelength_nm, source: str = DEFAULT_HAEMOGLOBIN_SOURCE) -> np.ndarray:
     """The design matrix: μa per unit amount of each chromophore, shape (wavelengths, chromophores).
 
@@ -118,7 +110,7 @@ def chromophore_columns(chromophores, *, wavelength_nm, source: str = DEFAULT_HA
         elif name == "water":
             columns.append(water_absorption_per_mm(wavelength))
         elif name == "lipid":
-            columns.append(_lipid_absorption(wavelength))
+            columns.append(lipid_absorption_vanVeen2004(wavelength_nm=wavelength))
         else:  # parse_chromophore_list refuses these first
             raise InputError(f"chromophores: unknown {name!r}; known: {', '.join(UNMIX_CHROMOPHORES)}")
     return np.column_stack(columns)

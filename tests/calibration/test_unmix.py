@@ -219,3 +219,15 @@ def test_bad_spectra_refused():
         unmix_spectrum(wavelength_nm=[700, 800, 900], mua_per_mm=[0.01, 0.02, 0.03], mua_sd_per_mm=[0.001, 0, 0.001])
     with pytest.raises(InputError, match="each wavelength once"):
         unmix_spectrum(wavelength_nm=[700, 700, 900], mua_per_mm=[0.01, 0.02, 0.03])
+
+
+def test_lipid_column_recovered_without_noise():
+    from phantomlab.materials.solvents import lipid_absorption_vanVeen2004
+
+    wavelength, truth = synthetic_mua(NIR_ROWS, so2=0.4, thb_um=THB_UM, water_fraction=0.9)
+    truth = truth + 0.05 * lipid_absorption_vanVeen2004(wavelength_nm=wavelength)  # 5 % v/v oil, invented
+    result = unmix_spectrum(wavelength_nm=wavelength, mua_per_mm=truth, mua_sd_per_mm=0.01 * truth,
+                            chromophores=("hbo2", "hb", "water", "lipid"))
+    assert result.so2 == pytest.approx(0.4, abs=1e-9) and result.amounts["lipid"] == pytest.approx(0.05, rel=1e-6)
+    payload = result.to_json()
+    assert payload["lipid_fraction"] == pytest.approx(0.05, rel=1e-6) and payload["lipid_fraction_sd"] > 0
