@@ -1,12 +1,12 @@
 """``phantomlab stock optics``: the intrinsic optics of one stock (layer 5, no physics).
 
     phantomlab stock optics STOCKS.toml KEY --wavelength-nm LIST [--matrix KEY]
-                            [--temperature-c T] [--potency P] [--json]
+                            [--temperature-c T] [--potency P] [--so2 S] [--json]
     phantomlab stock export STOCKS.toml OUT.toml [--db URL] [--force] [--json]
 
 JSON keys (docs/contract.md): ``stock``, ``wavelength_nm``, ``mua_per_mm``, ``mus_per_mm``, ``g``,
 ``musp_per_mm``; extras: ``kind``, ``matrix``, ``temperature_c``, ``potency``, ``lot``,
-``solids_volume_fraction``, ``mua_sd_per_mm``; ``warnings`` is added by the command line.
+``solids_volume_fraction``, ``mua_sd_per_mm``, ``so2`` (blood); ``warnings`` is added by the command line.
 
 ``export`` writes the stock file with the stocks added on the page (kept in the batch log)
 laid over it, as one stand-alone stock file (``phantomlab.shelf_export``): ``file``,
@@ -46,6 +46,8 @@ def register(subparsers) -> None:
     )
     optics.add_argument("--temperature-c", type=float, default=20.0, metavar="T", help="temperature in °C (default 20)")
     optics.add_argument("--potency", type=float, default=None, metavar="P", help="override the stock's potency")
+    optics.add_argument("--so2", type=float, default=None, metavar="S",
+                        help="oxygen saturation 0-1 of a blood stock's haemoglobin (required for blood)")
     add_json_option(optics)
     optics.set_defaults(handler=_optics)
 
@@ -92,7 +94,7 @@ def _optics(args) -> CommandResult:
     stock = shelf[args.key]
     if stock.kind == "matrix" and args.matrix is None:
         matrix = stock
-    elif stock.kind in ("absorber", "emulsion") and args.matrix is None:
+    elif stock.kind in ("absorber", "emulsion", "blood") and args.matrix is None:
         matrix = None  # their optics do not depend on the matrix index
     elif args.matrix is None and len(shelf.of_kind("matrix")) > 1:
         raise InputError(
@@ -102,8 +104,15 @@ def _optics(args) -> CommandResult:
         matrix = shelf.matrix(args.matrix)
     if args.potency is not None and not args.potency > 0:
         raise InputError(f"--potency must be > 0, got {args.potency:g}")
+    if stock.kind == "blood":
+        from phantomlab.materials.blood import check_so2
+
+        if args.so2 is None:
+            raise InputError(f"stock {stock.key} is blood: give --so2 (the oxygen saturation 0-1 at that moment)")
+        check_so2(args.so2, name="--so2")
     optics = intrinsic_optics(
-        stock, wavelength_nm=wavelength, matrix=matrix, potency=args.potency, temperature_c=args.temperature_c
+        stock, wavelength_nm=wavelength, matrix=matrix, potency=args.potency, temperature_c=args.temperature_c,
+        so2=args.so2,
     )
     potency = stock.potency if args.potency is None else args.potency
     payload = optics.to_json()
@@ -118,10 +127,13 @@ def _optics(args) -> CommandResult:
             "mua_sd_per_mm": optics.mua_sd_per_mm,
         }
     )
+    if stock.kind == "blood":
+        payload["so2"] = args.so2
     title = (
         f"stock {stock.key} ({stock.kind}{', lot ' + stock.lot if stock.lot else ''})"
         f"{'' if matrix is None else ' in matrix ' + matrix.key}, "
-        f"{args.temperature_c:g} °C, potency {potency:g}\n"
+        f"{args.temperature_c:g} °C, potency {potency:g}"
+        + (f", sO2 {args.so2:g}" if stock.kind == "blood" else "") + "\n"
         "intrinsic optics: per unit volume fraction of the undiluted stock in the final mix"
     )
     return CommandResult(payload=payload, text=title + "\n" + _table(optics))

@@ -74,9 +74,9 @@ def check_so2(so2, *, name: str = "sO2") -> np.ndarray:
     except (TypeError, ValueError):
         raise InputError(f"{name}: {so2!r} is not a number; give a fraction 0-1 (0.97) or say percent") from None
     if values.size == 0 or not np.all(np.isfinite(values)) or np.any(values < 0) or np.any(values > 1):
-        shown = values[np.isfinite(values)] if values.size else values
-        bad = next((v for v in np.atleast_1d(shown) if v < 0 or v > 1), None)
-        raise InputError(f"{name}: {bad if bad is not None else so2!r} is outside 0-1; sO2 is a fraction "
+        bad = next((float(v) for v in np.atleast_1d(values) if not 0 <= v <= 1), None)
+        shown = "nan" if bad is None or not np.isfinite(bad) else f"{bad:g}"
+        raise InputError(f"{name}: {shown} is outside 0-1; sO2 is a fraction "
                          "(0.97), or give it in percent where a percent field is offered")
     return values
 

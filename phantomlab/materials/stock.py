@@ -20,6 +20,14 @@ A stock file is TOML with one table per bottle under ``[stocks.KEY]`` (docs/form
 ``emulsion``
     a lipid emulsion described by a published empirical model: ``model = "michels2008"``
     (20 % soybean-oil emulsion), ``lipid_percent_w_v``, ``water_source`` for its water phase.
+``blood``
+    whole blood, a red-cell suspension or a haemoglobin solution: ``haemoglobin`` typed with
+    its unit (``"14.5 g/dL"``; g/dL, g/L, mg/mL or mmol/L per heme), ``haematocrit`` (red-cell
+    volume fraction; 0 for a solution), ``extinction_source`` (haemoglobin table, default
+    Gratzer & Kollias), ``scattering`` (``meinke2007`` red-cell model, or ``none``) or a
+    measured ``scattering_csv`` (wavelength_nm,mus_per_mm,g per unit volume fraction of the
+    stock), ``species``, ``water_volume_fraction`` (its water, default 0.8).  sO₂ is not a
+    field: it belongs to a batch at a moment (a recipe's ``[oxygenation]``).
 ``absorber``
     exactly one of ``spectrum_csv`` (wavelength_nm,mua_per_mm or wavelength_nm,mut_per_mm),
     ``extinction_csv`` (+ ``concentration_mol_per_l`` or ``concentration_mg_per_ml``, +
@@ -76,13 +84,15 @@ __all__ = [
     "PowderSpec",
     "EmulsionSpec",
     "AbsorberSpec",
+    "BloodSpec",
+    "BLOOD_HAZARDS",
     "Stock",
     "Shelf",
     "load_shelf",
     "parse_shelf",
 ]
 
-KINDS = ("matrix", "spheres", "powder", "emulsion", "absorber")
+KINDS = ("matrix", "spheres", "powder", "emulsion", "absorber", "blood")
 
 #: Hazard keys a stock may carry, each with the caution a mixing sheet shows for it.
 HAZARD_KEYS: dict[str, str] = {
@@ -95,8 +105,34 @@ HAZARD_KEYS: dict[str, str] = {
     "resin": "resin / hardener: sensitiser; gloves and ventilation; large pours can overheat",
     "isocyanate": "isocyanate: respiratory sensitiser; fume hood and suitable respirator",
     "hot_gel": "hot gel: scald risk; boiling agar and microwave superheating, use heat-proof gloves",
-    "biohazard": "blood product / biological: follow your institution's biohazard rules",
+    "biohazard": "blood product: treat as potentially infectious (gloves, eye protection, coat, no mouth "
+    "pipetting); human blood only under your institution's approvals and biosafety rules, animal blood under "
+    "local animal by-product rules; disinfect spills; dispose of blood phantoms and tips as clinical waste",
+    "yeast": "yeast (deoxygenation): live culture; keep vessels vented (it makes CO2); inactivate before "
+    "disposal by local rules",
+    "oxygen_exchange": "open surface: air oxygen diffuses in from the top, so a deoxygenated phantom reads "
+    "higher sO2 near the surface; cover or seal it, stir gently, sample where the probe measures",
 }
+
+#: Hazard keys a blood stock carries even when its file does not list them.
+BLOOD_HAZARDS = ("biohazard", "oxygen_exchange")
+
+#: Species a blood stock may name (the shipped haemoglobin tables are of human haemoglobin).
+BLOOD_SPECIES = ("human", "porcine", "bovine", "ovine", "equine", "other")
+
+#: Red-cell scattering models of a blood stock: name → citation.
+RED_CELL_SCATTERING = {
+    "meinke2007": "Meinke, Mueller, Helfmann & Friebel 2007, Appl. Opt. 46:1742 (standard blood, linear Hct terms)",
+    "none": "no scattering (a haemoglobin solution: lysed cells)",
+}
+
+#: Water content of whole blood by volume, its default water_volume_fraction.
+#: From memory (plasma about 92 % water, red cells about 65-70 %): about 0.8.
+BLOOD_WATER_VOLUME_FRACTION = 0.8
+
+#: Density of whole blood [g/mL], the default density_g_per_ml of a blood stock.
+#: From memory (1.05-1.06 g/mL).
+BLOOD_DENSITY_G_PER_ML = 1.05
 
 #: Emulsion models: name → (lipid percent w/v it describes, citation).
 EMULSION_MODELS: dict[str, tuple[float, str]] = {
@@ -142,6 +178,20 @@ _SIZE_FIELDS = {
     "particle_density_g_per_ml": "the particle density, a number > 0 in g/mL",
 }
 _FIELDS: dict[str, dict[str, str]] = {
+    "blood": {
+        **_COMMON,
+        "haemoglobin": "the total haemoglobin with its unit, e.g. \"14.5 g/dL\" (g/dL, g/L, mg/mL, "
+        "mmol/L per heme)",
+        "haematocrit": "the red-cell volume fraction, a number in [0, 0.7] (0 for a haemoglobin solution)",
+        "extinction_source": "a haemoglobin extinction table (gratzer-kollias, moaveni, takatani-graham)",
+        "scattering": "the red-cell scattering model (meinke2007, none)",
+        "scattering_csv": "a CSV file wavelength_nm,mus_per_mm,g: measured scattering per unit volume fraction",
+        "species": "the blood's species (human, porcine, bovine, ovine, equine, other)",
+        "anticoagulant": "free text, e.g. heparin",
+        "water_volume_fraction": "the blood's water by volume, a number in [0, 1]",
+        "density_g_per_ml": "a number > 0 in g/mL",
+        **_WATER_SOURCE_FIELD,
+    },
     "matrix": {
         **_COMMON,
         "material": "a refractive-index model name",
@@ -321,6 +371,38 @@ class AbsorberSpec:
     water_source: str = DEFAULT_WATER_SOURCE
 
 
+@dataclass(frozen=True)
+class BloodSpec:
+    """Blood (or red cells, or haemoglobin solution): what it holds; its sO₂ is not here.
+
+    Attributes
+    ----------
+    haemoglobin_g_per_l : float [g/L]
+        Total haemoglobin of the stock.
+    haematocrit : float [fraction]
+        Red-cell volume fraction (0 for a haemoglobin solution).
+    extinction_source : str
+        Key of :data:`phantomlab.materials.haemoglobin.HAEMOGLOBIN_SOURCES`.
+    scattering : str
+        Key of :data:`RED_CELL_SCATTERING`, or ``"measured"`` with ``scattering_table``.
+    scattering_table : CsvTable or None
+        Measured scattering (wavelength_nm, mus_per_mm, g) per unit volume fraction.
+    species : str
+    water_volume_fraction : float
+        The stock's water by volume (its unscaled carrier absorption).
+    water_source : str
+    """
+
+    haemoglobin_g_per_l: float
+    haematocrit: float
+    extinction_source: str
+    scattering: str
+    scattering_table: CsvTable | None
+    species: str
+    water_volume_fraction: float
+    water_source: str = DEFAULT_WATER_SOURCE
+
+
 # ---- the stock and the shelf ----------------------------------------------------------------
 
 
@@ -351,7 +433,7 @@ class Stock:
     definition : dict
         The TOML table as given (dates as ISO strings) plus ``"resolved"``: the contents of
         every CSV file it names, for database snapshots.
-    spec : MatrixSpec | SpheresSpec | PowderSpec | EmulsionSpec | AbsorberSpec
+    spec : MatrixSpec | SpheresSpec | PowderSpec | EmulsionSpec | AbsorberSpec | BloodSpec
     name : str
         Free description.
     """
@@ -834,12 +916,50 @@ def _solvent(table, key, base, resolved):
     return solvent, None
 
 
+def _parse_blood(table, key, base, resolved):
+    from phantomlab.materials.haemoglobin import HAEMOGLOBIN_SOURCES, parse_haemoglobin_concentration
+
+    if "haemoglobin" not in table:
+        raise _fail(key, "haemoglobin", f"missing; expected {_FIELDS['blood']['haemoglobin']}")
+    try:
+        g_per_l = parse_haemoglobin_concentration(table["haemoglobin"], name="haemoglobin")
+    except InputError as exc:
+        raise _fail(key, "haemoglobin", str(exc).removeprefix("haemoglobin: ")) from None
+    haematocrit = _get_number(table, key, "haematocrit", lambda v: 0 <= v <= 0.7, required=True)
+    source = _get_string(table, key, "extinction_source", default="gratzer-kollias",
+                         choices=tuple(HAEMOGLOBIN_SOURCES))
+    species = _get_string(table, key, "species", default="other", choices=BLOOD_SPECIES)
+    _get_string(table, key, "anticoagulant", default=None)
+    scattering_table = None
+    if "scattering_csv" in table:
+        if "scattering" in table:
+            raise _fail(key, "scattering", "give the scattering once: scattering or scattering_csv")
+        scattering_table = _get_csv(table, key, "scattering_csv", base, required=("wavelength_nm", "mus_per_mm", "g"))
+        _check_spectrum(scattering_table, key, "scattering_csv", "mus_per_mm")
+        if np.any(np.abs(scattering_table.columns["g"]) >= 1):
+            raise _fail(key, "scattering_csv", "g must lie in (-1, 1)")
+        resolved["scattering_csv"] = scattering_table.to_definition()
+        scattering = "measured"
+    else:
+        default = "meinke2007" if haematocrit > 0 else "none"
+        scattering = _get_string(table, key, "scattering", default=default, choices=tuple(RED_CELL_SCATTERING))
+        if scattering == "meinke2007" and haematocrit == 0:
+            raise _fail(key, "scattering", "meinke2007 is a red-cell model; a haematocrit of 0 has no cells (use none)")
+    water = _get_number(table, key, "water_volume_fraction", lambda v: 0 <= v <= 1,
+                        default=BLOOD_WATER_VOLUME_FRACTION)
+    density = _get_number(table, key, "density_g_per_ml", lambda v: v > 0, default=BLOOD_DENSITY_G_PER_ML)
+    spec = BloodSpec(g_per_l, haematocrit, source, scattering, scattering_table, species, water,
+                     _get_water_source(table, key))
+    return spec, density, haematocrit
+
+
 _PARSERS = {
     "matrix": _parse_matrix,
     "spheres": _parse_spheres,
     "powder": _parse_powder,
     "emulsion": _parse_emulsion,
     "absorber": _parse_absorber,
+    "blood": _parse_blood,
 }
 
 
@@ -870,6 +990,8 @@ def _parse_stock(key: str, table, base: Path) -> Stock:
         raise _fail(key, "name", f"expected {_COMMON['name']} as text, got {name!r}")
     expiry = _parse_expiry(table.get("expiry"), key)
     hazards = _parse_hazards(table.get("hazards"), key)
+    if kind == "blood":
+        hazards = tuple(dict.fromkeys((*BLOOD_HAZARDS, *hazards)))
     definition = _plain(dict(table))
     if resolved:
         definition["resolved"] = resolved

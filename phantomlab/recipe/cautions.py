@@ -61,7 +61,7 @@ class Caution:
     text: str
 
 
-def cautions_for(*, stocks, preparation_kind: str) -> tuple[Caution, ...]:
+def cautions_for(*, stocks, preparation_kind: str, extra_hazards=()) -> tuple[Caution, ...]:
     """Cautions that apply to the stocks and the matrix preparation of a batch.
 
     Parameters
@@ -70,6 +70,9 @@ def cautions_for(*, stocks, preparation_kind: str) -> tuple[Caution, ...]:
         The matrix and the stocks actually dispensed.
     preparation_kind : str
         Key of :data:`PREPARATION_CAUTIONS`.
+    extra_hazards : sequence of (str, str)
+        (hazard key, what brings it) beyond the stocks' own, e.g. ``("yeast", "deoxygenation")``
+        from a recipe's ``[oxygenation]`` (:func:`phantomlab.recipe.oxygenation.process_hazards`).
 
     Returns
     -------
@@ -91,6 +94,11 @@ def cautions_for(*, stocks, preparation_kind: str) -> tuple[Caution, ...]:
                 for i, caution in enumerate(out):
                     if caution.text == text and stock.key not in caution.source.split(", "):
                         out[i] = Caution(f"{caution.source}, {stock.key}", text)
+    for key, source in extra_hazards:
+        text = HAZARD_KEYS.get(key, f"{key}: see the safety data sheet")
+        if text not in seen:
+            seen.add(text)
+            out.append(Caution(source, text))
     hazard_keys = {key for stock in stocks for key in stock.hazards}
     for text in PREPARATION_CAUTIONS.get(preparation_kind, ()):
         if text.startswith("hot gel:") and "hot_gel" in hazard_keys:

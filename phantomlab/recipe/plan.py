@@ -235,14 +235,26 @@ class Plan:
             ],
             "g_source": "scattering model (Mie / emulsion model), not a measurement",
             "created": self.created,
+            **self._so2_json(),
         }
+
+    def _so2_json(self) -> dict[str, Any]:
+        """``so2_series``: μa at every planned sO₂ level (recipes with ``[oxygenation]``)."""
+        if getattr(self.recipe, "oxygenation", None) is None:
+            return {}
+        from phantomlab.recipe.oxygenation import so2_series
+
+        return {"so2_series": so2_series(self, wavelength_nm=self.target.wavelength_nm).to_json()}
 
 
 # ---- building blocks ------------------------------------------------------------------------
 
 
-def intrinsic_table(recipe: Recipe, wavelength_nm) -> IntrinsicTable:
+def intrinsic_table(recipe: Recipe, wavelength_nm, *, so2: float | None = None) -> IntrinsicTable:
     """Intrinsic optics (potency 1) of the recipe's stocks and matrix on a wavelength grid.
+
+    ``so2`` [fraction] is the oxygen saturation of a blood stock's haemoglobin; by default
+    the sO₂ at which the recipe's target holds (``[oxygenation] so2``).
 
     Raises
     ------
@@ -255,9 +267,11 @@ def intrinsic_table(recipe: Recipe, wavelength_nm) -> IntrinsicTable:
     matrix = recipe.matrix
     temperature = recipe.preparation.temperature_c
     matrix_optics = intrinsic_optics(matrix, wavelength_nm=grid, matrix=matrix, temperature_c=temperature)
+    if so2 is None and getattr(recipe, "oxygenation", None) is not None:
+        so2 = recipe.oxygenation.so2
     rows = [
         intrinsic_optics(recipe.stock(key), wavelength_nm=grid, matrix=matrix, potency=1.0,
-                         temperature_c=temperature)
+                         temperature_c=temperature, so2=so2)
         for key in recipe.stock_keys
     ]
     stocks = [recipe.stock(key) for key in recipe.stock_keys]
@@ -564,6 +578,18 @@ def dependent_scattering_notes(recipe: Recipe, table: IntrinsicTable, fractions:
     return notes
 
 
+def _fixed_blood(recipe: Recipe, potencies) -> dict[int, float] | None:
+    """The blood dose that ``[oxygenation] thb_um`` fixes (index in the recipe's stocks → f)."""
+    oxygenation = getattr(recipe, "oxygenation", None)
+    if oxygenation is None or oxygenation.thb_um is None:
+        return None
+    from phantomlab.recipe.oxygenation import blood_fraction
+
+    index = recipe.stock_keys.index(oxygenation.blood_stock)
+    return {index: blood_fraction(oxygenation, stock=recipe.stock(oxygenation.blood_stock),
+                                  potency=float(potencies[index]))}
+
+
 def _curve_grid(target: Target) -> np.ndarray | None:
     lo, hi = float(target.wavelength_nm.min()), float(target.wavelength_nm.max())
     if hi - lo < 1.0:
@@ -636,7 +662,8 @@ def _assemble(recipe, *, potencies, table, curve, fractions, check_target=True, 
         table = intrinsic_table(recipe, target.wavelength_nm)
     if fractions is None:
         outcome = solve_fractions(table, target, potencies=values,
-                                  max_solids_volume_fraction=recipe.limits.max_solids_volume_fraction)
+                                  max_solids_volume_fraction=recipe.limits.max_solids_volume_fraction,
+                                  fixed_volume_fractions=_fixed_blood(recipe, values))
         fractions = outcome.volume_fractions
         binding = list(outcome.binding_limits)
     else:

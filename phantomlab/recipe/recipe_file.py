@@ -39,7 +39,7 @@ __all__ = ["Recipe", "load_recipe", "parse_recipe"]
 
 _TOP_LEVEL = {
     "name", "version", "stocks_file", "matrix", "stocks", "batch_volume_ml", "batch_mass_g",
-    "notes", "target", "limits", "preparation", "series", "dependent_scattering",
+    "notes", "target", "limits", "preparation", "series", "dependent_scattering", "oxygenation",
 }
 
 
@@ -70,6 +70,9 @@ class Recipe:
         The parsed TOML as given.
     dependent_scattering : str
         ``"none"`` or a key of :data:`phantomlab.optics.dependent.PACKING_MODELS`.
+    oxygenation : phantomlab.recipe.oxygenation.Oxygenation or None
+        The ``[oxygenation]`` table of a recipe with a blood stock (sO₂ levels, total
+        haemoglobin), else None.
     """
 
     name: str
@@ -88,6 +91,7 @@ class Recipe:
     notes: str
     definition: dict
     dependent_scattering: str = "none"
+    oxygenation: Any = None
 
     @property
     def by_mass(self) -> bool:
@@ -209,6 +213,9 @@ def parse_recipe(definition: dict, *, base_dir: Path, path: Path | None = None,
     if dependent not in PACKING_MODELS:
         raise InputError(f"recipe: dependent_scattering = {dependent!r}; accepted: "
                          f"{', '.join(repr(k) for k in PACKING_MODELS)}")
+    from phantomlab.recipe.oxygenation import parse_oxygenation
+
+    oxygenation = parse_oxygenation(definition.get("oxygenation"), shelf=shelf, stock_keys=stocks)
     digest = hashlib.sha256(raw if raw is not None else repr(sorted(definition.items())).encode())
     if isinstance(target_table, dict) and "spectrum_csv" in target_table:
         digest.update(read_bytes_file(contained_path(target_table["spectrum_csv"], base_dir=base_dir,
@@ -230,4 +237,5 @@ def parse_recipe(definition: dict, *, base_dir: Path, path: Path | None = None,
         notes=str(definition.get("notes", "")),
         definition=definition,
         dependent_scattering=dependent,
+        oxygenation=oxygenation,
     )

@@ -23,6 +23,8 @@ import numpy as np
 from phantomlab.recipe.cautions import CLOSING_LINE, cautions_for
 from phantomlab.recipe.plan import dispense_tolerance
 from phantomlab.recipe.procedure import amount_lines, format_amount, format_tolerance, procedure_steps
+from phantomlab.recipe.oxygenation import process_hazards
+from phantomlab.recipe.so2_sheet import so2_series_csv_rows, so2_series_html, so2_series_svg
 from phantomlab.recipe.svgplot import spectra_svg
 
 __all__ = ["render_sheet_html", "render_sheet_csv", "render_series_html", "sheet_json", "dilution_text", "DRAFT_MARK",
@@ -84,7 +86,8 @@ def _fmt(value: float, digits: int = 3) -> str:
 def sheet_json(plan, *, batch_id: str | None = None, draft: bool = True, date=None) -> dict[str, Any]:
     """``Plan.to_json()`` plus the sheet's own fields (batch, steps, amounts, cautions)."""
     payload = plan.to_json()
-    cautions = cautions_for(stocks=_used_stocks(plan), preparation_kind=plan.recipe.preparation.kind)
+    cautions = cautions_for(stocks=_used_stocks(plan), preparation_kind=plan.recipe.preparation.kind,
+                            extra_hazards=process_hazards(plan.recipe))
     payload.update({
         "batch_id": batch_id,
         "draft": bool(draft or batch_id is None),
@@ -239,16 +242,21 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
     # predicted
     rows = _table_rows(plan)
     target, pred = plan.target, plan.predicted
+    series = _so2_series(plan)
+    others = series[0].levels[1:] if series is not None else ()
+    design = (f" at sO₂ {100 * series[0].levels[0].so2:.0f} %" if series is not None else "")
     g_tol = (f" ±{target.g_tolerance:g}" if np.any(np.isfinite(target.g)) else "")
     out.append("<h2>Predicted optics at the target wavelengths</h2><table><tr><th>λ [nm]</th>"
-               f"<th>target μa [1/mm] ±{100 * target.mua_tolerance:g} %</th><th>predicted μa ± SD [1/mm]</th>"
-               f"<th>target μs′ [1/mm] ±{100 * target.musp_tolerance:g} %</th><th>predicted μs′ ± SD [1/mm]</th>"
+               f"<th>target μa [1/mm] ±{100 * target.mua_tolerance:g} %</th><th>predicted μa{e(design)} ± SD [1/mm]</th>"
+               + "".join(f"<th>μa at {100 * level.so2:.0f} %</th>" for level in others)
+               + f"<th>target μs′ [1/mm] ±{100 * target.musp_tolerance:g} %</th><th>predicted μs′ ± SD [1/mm]</th>"
                f"<th>target g{e(g_tol)}</th><th>model g</th></tr>")
     for i in rows:
         out.append(
             f"<tr><td class='num'>{target.wavelength_nm[i]:g}</td><td class='num'>{_fmt(target.mua_per_mm[i])}</td>"
             f"<td class='num'>{_fmt(pred.mua_per_mm[i])} ± {_fmt(pred.mua_sd_per_mm[i], 2)}</td>"
-            f"<td class='num'>{_fmt(target.musp_per_mm[i])}</td>"
+            + "".join(f"<td class='num'>{_fmt(level.mua_per_mm[i])}</td>" for level in others)
+            + f"<td class='num'>{_fmt(target.musp_per_mm[i])}</td>"
             f"<td class='num'>{_fmt(pred.musp_per_mm[i])} ± {_fmt(pred.musp_sd_per_mm[i], 2)}</td>"
             f"<td class='num'>{_fmt(target.g[i])}</td><td class='num'>{_fmt(pred.g[i])}</td></tr>")
     out.append("</table>")
@@ -256,7 +264,13 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
         f" Table shows {rows.size} of {target.wavelength_nm.size} target wavelengths; the CSV and JSON hold all.")
     out.append(f"<div class='small'>{e(G_NOTE)} SD: potencies and dispensing.{e(shown)} "
                "Plot: grey ±1 SD; circles or dashes: target.</div>")
-    out.append(spectra_svg(plan, height=SVG_HEIGHT_PX))
+    if series is None:
+        out.append(spectra_svg(plan, height=SVG_HEIGHT_PX))
+    else:
+        out.append(so2_series_html(series[1], table_series=series[0]))
+        out.append("<div style='display:flex;justify-content:center;gap:2mm'>"
+                   + so2_series_svg(series[1], width=400, height=SVG_HEIGHT_PX)
+                   + spectra_svg(plan, width=280, height=SVG_HEIGHT_PX, quantities=("musp",)) + "</div>")
 
     # warnings and cautions
     others = [w for w in plan.warnings if w not in {b.message for b in plan.binding_limits}]
@@ -265,7 +279,8 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
         out += [f"<li>{e(w)}</li>" for w in others]
         out.append("</ul>")
     out.append("<h2>Cautions</h2><ul>")
-    for caution in cautions_for(stocks=_used_stocks(plan), preparation_kind=recipe.preparation.kind):
+    for caution in cautions_for(stocks=_used_stocks(plan), preparation_kind=recipe.preparation.kind,
+                                extra_hazards=process_hazards(recipe)):
         said = caution.text.split(":", 1)[0] == caution.source.split(" ", 1)[0]  # "silicone: ..." (silicone preparation)
         source = "" if said else f" <span class='small'>({e(caution.source)})</span>"
         out.append(f"<li class='caution'>{e(caution.text)}{source}</li>")
@@ -276,13 +291,24 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
     return "\n".join(out)
 
 
+def _so2_series(plan):
+    """The planned sO₂ series on the target grid and on the plot's grid, or None."""
+    if getattr(plan.recipe, "oxygenation", None) is None:
+        return None
+    from phantomlab.recipe.oxygenation import so2_series
+
+    at_targets = so2_series(plan, wavelength_nm=plan.target.wavelength_nm)
+    dense = so2_series(plan) if plan.curve is not None else at_targets
+    return at_targets, dense
+
+
 def render_sheet_csv(plan, *, batch_id: str | None = None, draft: bool = True, date=None) -> str:
     """The mixing sheet as CSV: ``section,item,value,unit,tolerance,actual,note`` rows.
 
     Sections: ``batch`` (ID or draft mark, date, recipe), ``stock``, ``predilution``,
     ``amount`` (the empty ``actual`` column is for the technician), ``step``, ``predicted``
-    (every target wavelength; ``tolerance`` holds the SD), ``warning``, ``caution``,
-    ``closing``.
+    (every target wavelength; ``tolerance`` holds the SD), ``so2_series`` (a recipe with
+    ``[oxygenation]``: μa at every planned sO₂ level), ``warning``, ``caution``, ``closing``.
     """
     recipe = plan.recipe
     draft = draft or batch_id is None
@@ -328,9 +354,13 @@ def render_sheet_csv(plan, *, batch_id: str | None = None, draft: bool = True, d
                          f"{pred.musp_sd_per_mm[i]:.3g}", "", f"SD; target {_fmt(plan.target.musp_per_mm[i], 4)}"])
         writer.writerow(["predicted", f"g at {lam:g} nm", f"{pred.g[i]:.4g}", "", "", "",
                          f"scattering model, not a measurement; target {_fmt(plan.target.g[i], 3)}"])
+    series = _so2_series(plan)
+    if series is not None:
+        writer.writerows(so2_series_csv_rows(series[0]))
     for warning in plan.warnings:
         writer.writerow(["warning", "", warning, "", "", "", ""])
-    for caution in cautions_for(stocks=_used_stocks(plan), preparation_kind=recipe.preparation.kind):
+    for caution in cautions_for(stocks=_used_stocks(plan), preparation_kind=recipe.preparation.kind,
+                                extra_hazards=process_hazards(recipe)):
         writer.writerow(["caution", caution.source, caution.text, "", "", "", ""])
     writer.writerow(["closing", "", CLOSING_LINE, "", "", "", ""])
     return buffer.getvalue()

@@ -115,6 +115,7 @@ def solve_fractions(
     potencies,
     max_solids_volume_fraction: float | None = None,
     max_total_volume_fraction: float = 1.0,
+    fixed_volume_fractions: dict | None = None,
 ) -> SolverOutcome:
     """Volume fractions of the stocks that come closest to the target.
 
@@ -128,6 +129,10 @@ def solve_fractions(
         Largest particle volume fraction allowed in the mix (``None``: no limit).
     max_total_volume_fraction : float [fraction]
         Largest sum of stock volume fractions (1: the matrix may be fully displaced).
+    fixed_volume_fractions : dict of int to float, optional
+        Doses that are given, not solved (stock index → volume fraction; e.g. the blood dose a
+        total-haemoglobin target fixes).  Their contribution is taken off the right-hand side
+        and off the sum limits; the other doses are solved for what is left.
 
     Returns
     -------
@@ -142,11 +147,14 @@ def solve_fractions(
     (solve with W, recompute W from the new doses) until it changes by less than 1e-9, at
     most :data:`PACKING_ITERATIONS` times.
     """
+    fixed = dict(fixed_volume_fractions or {})
     if table.packing == "none":
-        return _solve_once(table, target, potencies, max_solids_volume_fraction, max_total_volume_fraction, 1.0)
+        return _solve_once(table, target, potencies, max_solids_volume_fraction, max_total_volume_fraction, 1.0,
+                           fixed)
     packing = 1.0
     for _ in range(PACKING_ITERATIONS):
-        outcome = _solve_once(table, target, potencies, max_solids_volume_fraction, max_total_volume_fraction, packing)
+        outcome = _solve_once(table, target, potencies, max_solids_volume_fraction, max_total_volume_fraction, packing,
+                              fixed)
         updated = float(table.packing_factor(outcome.volume_fractions))
         if abs(updated - packing) < 1e-9:
             break
@@ -160,26 +168,46 @@ PACKING_ITERATIONS = 50
 
 
 def _solve_once(table, target, potencies, max_solids_volume_fraction, max_total_volume_fraction,
-                packing) -> SolverOutcome:
-    A, b = target_rows(table, target, potencies=potencies, packing_factor=packing)
+                packing, fixed=None) -> SolverOutcome:
+    A_all, b_all = target_rows(table, target, potencies=potencies, packing_factor=packing)
+    total = A_all.shape[1]
+    given = np.zeros(total)
+    is_fixed = np.zeros(total, dtype=bool)
+    for index, value in (fixed or {}).items():
+        given[index], is_fixed[index] = float(value), True
+    A, b = A_all[:, ~is_fixed], b_all - A_all[:, is_fixed] @ given[is_fixed]
     count = A.shape[1]
-    free = lsq_linear(A, b, bounds=(np.zeros(count), np.full(count, np.inf)), method="bvls", tol=1e-12)
-    unconstrained = np.clip(free.x, 0.0, None)
+
+    def full(free_part):
+        out = given.copy()
+        out[~is_fixed] = free_part
+        return out
+
+    if count:
+        free = lsq_linear(A, b, bounds=(np.zeros(count), np.full(count, np.inf)), method="bvls", tol=1e-12)
+        unconstrained_free = np.clip(free.x, 0.0, None)
+    else:
+        unconstrained_free = np.zeros(0)
     solids = table.solids_volume_fraction
-    constraints = []  # (name, coefficient vector, allowed)
+    constraints = []  # (name, coefficient vector over the free doses, allowed for them)
     if max_solids_volume_fraction is not None and np.any(solids > 0):
-        constraints.append(("max_solids_volume_fraction", solids, float(max_solids_volume_fraction)))
-    constraints.append(("batch_volume", np.ones(count), float(max_total_volume_fraction)))
-    broken = [(n, c, a) for n, c, a in constraints if c @ unconstrained > a * (1 + 1e-12)]
-    fractions = unconstrained
-    if broken:
-        fractions = _solve_with_sum_limits(A, b, unconstrained, constraints)
+        constraints.append(("max_solids_volume_fraction", solids[~is_fixed],
+                            float(max_solids_volume_fraction) - float(solids @ given)))
+    constraints.append(("batch_volume", np.ones(count), float(max_total_volume_fraction) - float(given.sum())))
+    broken = [(n, c, a) for n, c, a in constraints if c @ unconstrained_free > a * (1 + 1e-12)]
+    fractions_free = unconstrained_free
+    if broken and count:
+        fractions_free = _solve_with_sum_limits(A, b, unconstrained_free, constraints)
+    fractions, unconstrained = full(fractions_free), full(unconstrained_free)
     binding = []
-    for name, coefficients, allowed in broken:
+    for name, _, _ in broken:
+        coefficients = solids if name == "max_solids_volume_fraction" else np.ones(total)
+        allowed = (float(max_solids_volume_fraction) if name == "max_solids_volume_fraction"
+                   else float(max_total_volume_fraction))
         binding.append(_describe_sum_limit(name, table, target, coefficients, allowed,
                                            fractions, unconstrained, potencies))
     binding.extend(_matrix_floor(table, target, fractions, potencies))
-    residual = A @ fractions - b
+    residual = A_all @ fractions - b_all
     return SolverOutcome(
         volume_fractions=fractions,
         unconstrained_volume_fractions=unconstrained,

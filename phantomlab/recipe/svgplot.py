@@ -81,19 +81,24 @@ def _panel(x0, y0, width, height, title, unit, wl, pred, sd, twl, tval) -> list[
     return parts
 
 
-def spectra_svg(plan, *, width: int = 680, height: int = 170) -> str:
-    """SVG markup of predicted (line, ±1 SD band) against target (circles) μa and μs′."""
+def spectra_svg(plan, *, width: int = 680, height: int = 170, quantities=("mua", "musp")) -> str:
+    """SVG markup of predicted (line, ±1 SD band) against target (circles) μa and μs′.
+
+    ``quantities`` chooses the panels (``"mua"``, ``"musp"``), side by side in that order.
+    """
     curve = plan.curve if plan.curve is not None else plan.predicted
     target = plan.target
-    panel_w = (width - 110) / 2
+    panels = {
+        "mua": ("mua", curve.mua_per_mm, curve.mua_sd_per_mm, target.mua_per_mm),
+        "musp": ("musp", curve.musp_per_mm, curve.musp_sd_per_mm, target.musp_per_mm),
+    }
+    count = len(quantities)
+    panel_w = (width - 55 * count) / count
     panel_h = height - 44
     parts = [f'<svg xmlns="http://www.w3.org/2000/svg" class="spectra" width="{width}" height="{height}" '
              f'viewBox="0 0 {width} {height}" font-family="sans-serif" role="img" '
              'aria-label="predicted and target absorption and reduced scattering spectra">']
-    for index, (title, pred, sd, tval) in enumerate((
-        ("mua", curve.mua_per_mm, curve.mua_sd_per_mm, target.mua_per_mm),
-        ("musp", curve.musp_per_mm, curve.musp_sd_per_mm, target.musp_per_mm),
-    )):
+    for index, (title, pred, sd, tval) in enumerate(panels[q] for q in quantities):
         x0 = 45 + index * (panel_w + 55)
         parts += _panel(x0, 16, panel_w, panel_h, title, "1/mm", curve.wavelength_nm, pred, sd,
                         target.wavelength_nm, tval)

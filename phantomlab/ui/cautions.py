@@ -23,11 +23,16 @@ BRIGHT_SOURCES = (
 )
 
 
-def show_cautions(stocks: Iterable, *, preparation_kind: str = "liquid") -> None:
-    """The cautions block of the design page (the sheet's cautions, same text)."""
-    from phantomlab.recipe.cautions import CLOSING_LINE, cautions_for  # layer 3
+def show_cautions(stocks: Iterable, *, preparation_kind: str = "liquid", recipe=None) -> None:
+    """The cautions block of the design page (the sheet's cautions, same text).
 
-    found = cautions_for(stocks=list(stocks), preparation_kind=preparation_kind)
+    ``recipe`` adds what its process brings beyond the stocks (yeast for a deoxygenation).
+    """
+    from phantomlab.recipe.cautions import CLOSING_LINE, cautions_for  # layer 3
+    from phantomlab.recipe.oxygenation import process_hazards
+
+    extra = process_hazards(recipe) if recipe is not None else ()
+    found = cautions_for(stocks=list(stocks), preparation_kind=preparation_kind, extra_hazards=extra)
     lines = [f"- {caution.text}" if caution.text.startswith(caution.source)
              else f"- **{caution.source}** — {caution.text}" for caution in found]
     with st.container(border=True):

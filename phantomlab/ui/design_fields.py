@@ -19,6 +19,7 @@ import streamlit as st
 
 from phantomlab.errors import InputError
 from phantomlab.ui.plain_text import plain
+from phantomlab.ui.so2_design import oxygenation_defaults, oxygenation_fields
 from phantomlab.ui.widgets import number_list_field, quantity_field
 from phantomlab.ui.workspace import Workspace
 
@@ -89,6 +90,7 @@ def _defaults_from(definition: dict, shelf) -> dict:
     values["design.extra"] = {
         k: definition[k] for k in ("preparation", "notes", "series") if k in definition
     }
+    values.update(oxygenation_defaults(definition))
     values["design.extra_matrix"] = definition.get("matrix")
     values["design.source_version"] = str(definition.get("version", "1"))
     values["design.editor_version"] = st.session_state.get("design.editor_version", 0) + 1
@@ -322,8 +324,9 @@ def read_fields(workspace: Workspace, shelf) -> tuple[dict | None, Path]:
                                                                     extra_target["g"]))
             st.caption(f"Anisotropy target from the recipe file: g = {pairs} (tolerance ±"
                        f"{extra_target.get('g_tolerance', 0.01):g}); the solver blends sphere stocks to meet it.")
+    oxygenation = oxygenation_fields(shelf, stocks)
     limits = _limits()
-    if target is None or not ok:
+    if target is None or not ok or oxygenation is None:
         return None, base_dir
     target["mua_tolerance_percent"] = float(mua_tol)
     target["musp_tolerance_percent"] = float(musp_tol)
@@ -341,4 +344,6 @@ def read_fields(workspace: Workspace, shelf) -> tuple[dict | None, Path]:
     if st.session_state.get("design.extra_matrix") != matrix:
         extra.pop("preparation", None)  # the starting recipe's preparation was for its matrix
     definition.update(extra)
+    if oxygenation:
+        definition["oxygenation"] = oxygenation
     return definition, base_dir

@@ -22,6 +22,8 @@ import streamlit as st
 from phantomlab.errors import InputError
 from phantomlab.ui import services
 from phantomlab.ui.cautions import show_cautions
+from phantomlab.ui.so2_design import KEEP as SO2_KEEP
+from phantomlab.ui.so2_design import so2_series_plot
 from phantomlab.ui.design_fields import NEW_RECIPE, apply_start, read_fields, read_recipe_definition
 from phantomlab.ui.plan_view import doses_table, matrix_table, saved_sheet_downloads, sheet_downloads
 from phantomlab.ui.plain_text import plain
@@ -40,7 +42,7 @@ KEEP = (
     "design.shape", "design.table_unit", "design.mua_tol", "design.musp_tol", "design.pl_wavelengths",
     "design.pl_a", "design.pl_b", "design.pl_ref", "design.pl_mua", "design.lim_min_ul",
     "design.lim_pipette_pct", "design.lim_balance_mg", "design.lim_solids_pct", "design.lim_steps",
-    "design.lim_dead_ml", "design.use_calibrated", "design.operator", "design.notes",
+    "design.lim_dead_ml", "design.use_calibrated", "design.operator", "design.notes", *SO2_KEEP,
 )
 # ---- starting values -------------------------------------------------------------------------
 
@@ -290,6 +292,7 @@ def show(workspace: Workspace) -> None:
         summary.append(f"{label} {'within' if met.get(key) else 'outside'} tolerance")
     st.markdown(" · ".join(summary) + f" · batch {plan.batch_volume_ml:.4g} mL, {plan.batch_mass_g:.4g} g")
     _spectrum_plots(plan)
+    so2_series_plot(plan)
     if plan.target.has_g:
         _g_plot(plan)
     _residual_plot(plan)
@@ -300,7 +303,7 @@ def show(workspace: Workspace) -> None:
     st.dataframe(matrix_table(plan), hide_index=True, width="stretch")
 
     used = [plan.recipe.matrix] + [plan.recipe.stock(d.stock) for d in plan.doses if d.used]
-    show_cautions(used, preparation_kind=plan.recipe.preparation.kind)
+    show_cautions(used, preparation_kind=plan.recipe.preparation.kind, recipe=plan.recipe)
 
     st.subheader("Mixing sheet")
     sheet_downloads(plan, batch_id=None, key="design.sheet")

@@ -70,10 +70,10 @@ def _shelf_table(shelf, origin: dict, calibrated: dict) -> pd.DataFrame:
 
 
 @st.cache_resource(show_spinner=False, max_entries=32)
-def _intrinsic(_stock, _matrix, token: str, wavelength: tuple):
+def _intrinsic(_stock, _matrix, token: str, wavelength: tuple, so2: float | None = None):
     from phantomlab.optics import intrinsic_optics  # layer 2
 
-    return intrinsic_optics(_stock, wavelength_nm=np.asarray(wavelength), matrix=_matrix)
+    return intrinsic_optics(_stock, wavelength_nm=np.asarray(wavelength), matrix=_matrix, so2=so2)
 
 
 def _optics_section(shelf) -> None:
@@ -93,9 +93,13 @@ def _optics_section(shelf) -> None:
     if wavelength is None or key is None or matrix_key is None:
         return
     stock, matrix = shelf[key], shelf[matrix_key]
+    so2 = None
+    if stock.kind == "blood":  # its absorption depends on the sO2 of the moment, not on the stock
+        so2 = st.number_input("sO₂ of the blood at that moment [%]", min_value=0.0, max_value=100.0, value=100.0,
+                              step=5.0, key="shelf.optics_so2") / 100.0
     token = f"{key}|{stock.lot}|{hash(repr(stock.definition))}|{matrix_key}"
     with st.spinner(f"Computing the optics of {key}…"):
-        found = call_layer(f"Optics of {key}", _intrinsic, stock, matrix, token, tuple(wavelength))
+        found = call_layer(f"Optics of {key}", _intrinsic, stock, matrix, token, tuple(wavelength), so2)
     if not found.ok:
         return
     optics = found.value

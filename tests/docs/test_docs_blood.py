@@ -75,3 +75,19 @@ def test_oxygenation_keys(tmp_path, capsys):
                                   ("phantomlab oxygenation show", shown, _named("phantomlab oxygenation show") | add_names)):
         missing = sorted(_all_keys(payload) - named)
         assert not missing, f"docs/contract.md, '{title}': keys not described: {missing}"
+
+
+def test_plan_keys_of_a_blood_recipe(capsys):
+    payload = _run(capsys, "plan", ROOT / "recipes" / "demo-oximeter-blood.toml")
+    named = _named("phantomlab plan") | {
+        word for span in re.findall(r"`[^`\n]+`", CONTRACT[CONTRACT.index("## Shared objects"):CONTRACT.index("## phantomlab\n")])
+        for word in re.findall(r"[A-Za-z_][A-Za-z0-9_]*", span)}
+    missing = sorted(_all_keys({k: v for k, v in payload.items() if k != "preparation"}) - named)
+    assert not missing, f"docs/contract.md, the plan object: keys not described: {missing}"
+
+
+def test_stock_optics_of_blood_keys(capsys):
+    payload = _run(capsys, "stock", "optics", ROOT / "recipes" / "demo-stocks.toml", "blood_kb1",
+                   "--wavelength-nm", "660,800", "--so2", "0.5")
+    missing = sorted(set(payload) - _named("phantomlab stock optics"))
+    assert not missing, f"docs/contract.md, 'phantomlab stock optics': keys not described: {missing}"

@@ -196,7 +196,7 @@ BAD_CASES = [
     (('spectrum_csv = "dye.csv"\n', ""), "stock dye, field spectrum_csv: missing; an absorber needs one of spectrum_csv, extinction_csv, cuvette_csv"),
     # misspelt fields and names
     (("diameter_um = 1.0", "diamter_um = 1.0"), "stock ps1000: unknown field 'diamter_um' \\(did you mean 'diameter_um'\\?\\); fields of a spheres stock:"),
-    (('kind = "spheres"', 'kind = "sphere"'), "stock ps1000, field kind: 'sphere' is not one of matrix, spheres, powder, emulsion, absorber \\(did you mean 'spheres'\\?\\)"),
+    (('kind = "spheres"', 'kind = "sphere"'), "stock ps1000, field kind: 'sphere' is not one of matrix, spheres, powder, emulsion, absorber, blood \\(did you mean 'spheres'\\?\\)"),
     (('material = "polystyrene"', 'material = "polystyren"'), "stock ps1000, field material: unknown material 'polystyren' \\(did you mean 'polystyrene'\\?\\)"),
     (('hazards = ["dye"]', 'hazards = ["dyes"]'), "stock dye, field hazards: unknown hazard key 'dyes' \\(did you mean 'dye'\\?\\)"),
     # impossible values

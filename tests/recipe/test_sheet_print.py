@@ -75,7 +75,7 @@ def folder(tmp_path_factory) -> Path:
     return tmp_path_factory.mktemp("print")
 
 
-@pytest.mark.parametrize("name", ["demo-nir-liquid", "demo-silicone", "demo-gel-g"])
+@pytest.mark.parametrize("name", ["demo-nir-liquid", "demo-silicone", "demo-gel-g", "demo-oximeter-blood"])
 def test_demo_draft_sheet_is_one_a4_page(folder, name):
     plan = solve(load_recipe(RECIPES / f"{name}.toml"))
     _assert_a4_pages(_print(render_sheet_html(plan), folder, name), 1)
