@@ -158,9 +158,26 @@ def _summary(plan, written, db) -> str:
                      f" {pct(r['musp_relative'][i]):>6} {show(p.g[i], 3):>6}")
     met = [name for name in ("mua", "musp", "g") if not plan.residuals[f"{name}_met"]]
     lines.append("all targets met within tolerance" if not met else f"not met: {', '.join(met)} (see warnings)")
+    lines += _so2_lines(plan)
     for path in written:
         lines.append(f"sheet written: {path}")
     return "\n".join(lines)
+
+
+def _so2_lines(plan) -> list[str]:
+    """The planned sO₂ series of a recipe with ``[oxygenation]``: μa at every level."""
+    if getattr(plan.recipe, "oxygenation", None) is None:
+        return []
+    from phantomlab.recipe.oxygenation import so2_series
+
+    series = so2_series(plan, wavelength_nm=plan.target.wavelength_nm)
+    points = ", ".join(f"{p:.0f}" for p in series.isosbestic_nm) or "none in the band"
+    lines = ["", f"planned sO2 series: {series.blood_stock} {100 * series.blood_volume_fraction:.3g} % v/v = "
+             f"total haemoglobin {series.thb_um:.4g} uM (tetramer, table {series.source}); isosbestic: {points} nm",
+             f"  {'nm':>6} " + " ".join(f"{'mua @ ' + format(100 * lv.so2, '.0f') + ' %':>13}" for lv in series.levels)]
+    for i, lam in enumerate(series.wavelength_nm):
+        lines.append(f"  {lam:6g} " + " ".join(f"{lv.mua_per_mm[i]:13.4g}" for lv in series.levels))
+    return lines
 
 
 def _series_summary(series, written) -> str:
