@@ -21,7 +21,6 @@ from phantomlab.calibration.so2_series import (
     unmix_series,
 )
 from phantomlab.calibration.unmix import parse_chromophore_list
-from phantomlab.errors import InputError
 from phantomlab.materials.haemoglobin import DEFAULT_HAEMOGLOBIN_SOURCE, haemoglobin_source
 
 __all__ = ["SeriesComputation", "compute_series", "record_oxygenation_series", "oxygenation_of"]
@@ -49,12 +48,12 @@ class SeriesComputation:
 
 
 def _text(content, name: str) -> str:
+    """Text of a file handed over (bytes: size limit, UTF-8, byte-order mark dropped, no NUL)."""
+    from phantomlab.inputs import decode_text  # layer 0
+
     if isinstance(content, str):
         return content
-    try:
-        return bytes(content).decode("utf-8-sig")
-    except UnicodeDecodeError:
-        raise InputError(f"{name}: not UTF-8 text; save it as a CSV file") from None
+    return decode_text(bytes(content), what="file", name=name)
 
 
 def _point_json(moment: _dt.datetime, start: _dt.datetime, result) -> dict[str, Any]:

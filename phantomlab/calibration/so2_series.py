@@ -83,12 +83,16 @@ def parse_time(text, *, where: str) -> _dt.datetime:
     value = str(text).strip() if text is not None else ""
     if not value:
         raise InputError(f"{where}: no time (measured_at); every row needs the time it was taken, e.g. 2026-03-02T10:15")
+    if len(value) > 40:
+        raise InputError(f"{where}, column measured_at: not a date and time; write it as 2026-03-02T10:15")
     try:
         moment = _dt.datetime.fromisoformat(value)
     except ValueError:
-        raise InputError(f"{where}: {value!r} is not a date and time; write it as 2026-03-02T10:15") from None
+        raise InputError(f"{where}, column measured_at: not a date and time; write it as 2026-03-02T10:15") from None
     if moment.tzinfo is not None:
-        raise InputError(f"{where}: {value!r} carries a time zone; give the lab's clock time without one")
+        raise InputError(f"{where}, column measured_at: carries a time zone; give the lab's clock time without one")
+    if moment.year < 1900:
+        raise InputError(f"{where}, column measured_at: before 1900; give the date and time it was taken")
     return moment
 
 
@@ -110,9 +114,10 @@ def _number(cell: str, where: str, column: str) -> float:
     try:
         value = float(cell)
     except ValueError:
-        raise InputError(f"{where}, column {column}: {cell!r} is not a number") from None
+        raise InputError(f"{where}, column {column}: not a number (cells hold bare numbers in the unit the "
+                         "header names)") from None
     if not math.isfinite(value):
-        raise InputError(f"{where}, column {column}: {cell!r} is not a finite number")
+        raise InputError(f"{where}, column {column}: not a finite number")
     return value
 
 

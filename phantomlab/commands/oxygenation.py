@@ -65,10 +65,9 @@ def register(subparsers) -> None:
 
 
 def _read(path_text: str, what: str) -> tuple[str, bytes]:
-    path = Path(path_text)
-    if not path.is_file():
-        raise InputError(f"{what} {str(path)!r} not found")
-    return path.name, path.read_bytes()
+    from phantomlab.inputs import read_bytes_file  # regular file, within the file_mb limit
+
+    return Path(path_text).name, read_bytes_file(path_text, what=what)
 
 
 def _comparison_lines(comparison) -> list[str]:
@@ -103,7 +102,7 @@ def _add(args) -> CommandResult:
     readings_name = readings_bytes = None
     if args.references is not None:
         readings_name, readings_bytes = _read(args.references, "reference readings")
-    store = open_store(args.db)
+    store = open_store(args.db, create=False)
     try:
         recorded = record_oxygenation_series(
             store, args.batch_id, name=args.name or Path(series_name).stem, series_file_name=series_name,
@@ -123,7 +122,7 @@ def _show(args) -> CommandResult:
     from phantomlab.oxygenation_workflow import oxygenation_of
     from phantomlab.store import open_store
 
-    store = open_store(args.db)
+    store = open_store(args.db, create=False)
     try:
         series = oxygenation_of(store, args.batch_id)
     finally:

@@ -50,10 +50,11 @@ def _spectrum(args):
     if (args.optics_file is None) == (args.from_fit is None):
         raise InputError("unmix: give either OPTICS.csv or --from-fit FILE.json (one of them)")
     if args.from_fit is not None:
+        from phantomlab.inputs import read_text_file  # regular file, within the file_mb limit
+
         path = Path(args.from_fit)
-        if not path.is_file():
-            raise InputError(f"--from-fit: file {str(path)!r} not found")
-        return (*spectrum_from_fit_json(path.read_text(encoding="utf-8"), name=path.name), path.name)
+        text = read_text_file(path, what="--from-fit file")
+        return (*spectrum_from_fit_json(text, name=path.name), path.name)
     measurement = read_measurement(args.optics_file, kind="optics")
     sd = None if measurement.sd is None else measurement.sd[:, 0]
     return measurement.wavelength_nm, measurement.values[:, 0], sd, measurement.name

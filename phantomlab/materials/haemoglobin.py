@@ -352,6 +352,8 @@ def parse_haemoglobin_concentration(text, *, name: str = "haemoglobin") -> float
     float [g/L]
     """
     accepted = "g/dL, g/L, mg/mL, mmol/L (clinical: per heme)"
+    if isinstance(text, str) and len(text) > 100:
+        raise InputError(f"{name}: longer than 100 characters; give a number and a unit: {accepted}")
     match = _CONCENTRATION.match(str(text)) if isinstance(text, str) else None
     if match is None:
         raise InputError(f"{name}: cannot read {text!r}; give a number and a unit: {accepted}")

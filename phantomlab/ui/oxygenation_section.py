@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 import streamlit as st
 
+from phantomlab.ui.plain_text import plain
 from phantomlab.ui.plots import Series, line_figure, show_figure
 from phantomlab.ui.widgets import call_layer
 
@@ -88,10 +89,10 @@ def _stored(store, code: str) -> None:
     names = [f"{s['name']} (recorded {s['recorded_at'][:16].replace('T', ' ')} UTC)" for s in loaded.value]
     chosen = st.selectbox("Series", names, index=len(names) - 1, key=f"oxygenation.series.{code}")
     series = loaded.value[names.index(chosen)]
+    files = series["series_file_name"] + (f", {series['readings_file_name']}" if series["readings_file_name"] else "")
     st.caption(f"{len(series['points'])} time points unmixed into {', '.join(series['chromophores'])} with the "
                f"{series['source']} haemoglobin table; {len(series['readings'])} reference readings "
-               f"(files {series['series_file_name']}"
-               + (f", {series['readings_file_name']}" if series["readings_file_name"] else "") + ").")
+               f"(files {plain(files)}).")
     _figures(series, key=f"oxygenation.{code}.{series['series_id']}")
     st.markdown("**Reference vs fitted sO₂** (fitted value interpolated in time to each reading)")
     if series["comparison"]:
@@ -100,7 +101,7 @@ def _stored(store, code: str) -> None:
         st.caption("No reference readings with this series.")
     for point in series["points"]:
         for message in point["warnings"]:
-            st.warning(f"{point['measured_at'].replace('T', ' ')}: {message}")
+            st.warning(plain(f"{point['measured_at'].replace('T', ' ')}: {message}"))
 
 
 def _record_form(workspace, store, batch: dict) -> None:
@@ -149,7 +150,7 @@ def _record_form(workspace, store, batch: dict) -> None:
     )
     if outcome.ok:
         recorded = outcome.value
-        st.session_state["batches.notice"] = (
+        st.session_state["batches.notice"] = plain(
             f"Oxygenation series {recorded.name!r} recorded with batch {code}: "
             f"{len(recorded.computation.points)} time points, {len(recorded.computation.readings)} reference readings."
         )

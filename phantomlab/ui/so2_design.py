@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 import streamlit as st
 
+from phantomlab.ui.plain_text import plain
 from phantomlab.ui.plots import Series, line_figure, show_figure
 from phantomlab.ui.widgets import number_list_field
 
@@ -56,7 +57,7 @@ def oxygenation_fields(shelf, stocks) -> dict | None:
         if not 0 < thb <= 5000:
             raise ValueError
     except ValueError:
-        c1.error(f"Total haemoglobin: {text!r} is not a number in (0, 5000] µM (tetramer, 64 500 g/mol)")
+        c1.error("Total haemoglobin: not a number in (0, 5000] µM (tetramer, 64 500 g/mol)")
         ok = False
     levels = number_list_field("sO₂ levels of the series [%] (first: where μa is planned)", default="100,75,50,25,0",
                                key="design.ox_levels", name="sO2 levels", container=c2)
@@ -87,7 +88,7 @@ def so2_series_plot(plan) -> None:
                          annotation_text=f"isosbestic {point:.0f} nm", annotation_position="top")
     table = pd.DataFrame({"wavelength_nm": series.wavelength_nm,
                           **{f"mua_per_mm_at_so2_{100 * level.so2:g}": level.mua_per_mm for level in series.levels}})
-    st.caption(f"{series.blood_stock}: {100 * series.blood_volume_fraction:.3g} % v/v = total haemoglobin "
+    st.caption(f"{plain(series.blood_stock)}: {100 * series.blood_volume_fraction:.3g} % v/v = total haemoglobin "
                f"{series.thb_um:.3g} µM (tetramer; table {series.source}); isosbestic points in the band: "
                + (", ".join(f"{p:.0f}" for p in series.isosbestic_nm) or "none") + " nm.")
     show_figure(figure, table=table, file_stem="planned-so2-series", key="design.so2_series")

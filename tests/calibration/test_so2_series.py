@@ -44,7 +44,7 @@ def test_series_grouped_by_time_and_unmixed():
     "text, message",
     [
         ("measured_at,wavelength_nm,mua_per_mm\n,700,0.01\n", r"line 2: no time \(measured_at\)"),
-        ("measured_at,wavelength_nm,mua_per_mm\nyesterday,700,0.01\n", "'yesterday' is not a date and time"),
+        ("measured_at,wavelength_nm,mua_per_mm\nyesterday,700,0.01\n", "line 2, column measured_at: not a date and time"),
         ("measured_at,wavelength_nm,mua_per_mm\n2026-03-02T10:00+01:00,700,0.01\n", "carries a time zone"),
         ("measured_at,wavelength_nm\n2026-03-02T10:00,700\n", "header lacks mua_per_mm"),
         ("measured_at,wavelength_nm,mua_per_mm,musp_per_mm\n", "column 'musp_per_mm': not a series column"),

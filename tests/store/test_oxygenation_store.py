@@ -56,7 +56,7 @@ def test_series_stored_with_its_batch(store, planned_batch):
     [
         ({"readings_content": b"measured_at,reference_so2\n2026-03-02T10:05,1.5\n"}, "1.5 is outside 0-1"),
         ({"readings_content": b"measured_at,reference_so2_percent\n,95\n"}, "no time"),
-        ({"series_content": b"measured_at,wavelength_nm,mua_per_mm\n2026-03-02T10:00,700,x\n"}, "'x' is not a number"),
+        ({"series_content": b"measured_at,wavelength_nm,mua_per_mm\n2026-03-02T10:00,700,x\n"}, "column mua_per_mm: not a number"),
         ({"chromophores": "hbo2,water"}, "give both hbo2 and hb"),
         ({"name": ""}, "series name must be"),
     ],
