@@ -115,6 +115,7 @@ def observation_from_fit(
     fit,
     lots: Mapping[str, str | None] | None = None,
     dispensing_rel_sd: float | None = None,
+    measurement_id: int | None = None,
 ) -> BatchObservation:
     """One batch's fitted optics as a linear observation of its stocks' potencies.
 
@@ -129,7 +130,10 @@ def observation_from_fit(
     lots : mapping of stock key to lot, optional
         Default: the lots on the recipe's shelf.
     dispensing_rel_sd : float, optional
-        Relative SD of the mixing model (default: the recipe's pipette_rel_error, else 0.01).
+        Relative SD of each dose (default: the recipe's pipette_rel_error, else 0.01); one
+        error per stock and batch, common to every wavelength and measurement of the batch.
+    measurement_id : int, optional
+        The stored measurement the fit belongs to.
 
     Returns
     -------
@@ -144,6 +148,7 @@ def observation_from_fit(
         raise InputError(f"batch {batch_id}: {unknown[0]!r} is not a stock of recipe {recipe.name!r}")
     table = intrinsic_table(recipe, arrays["wavelength_nm"])
     fractions = np.array([float(volume_fractions.get(k, 0.0)) for k in table.stock_keys])
+    packing = float(table.packing_factor(fractions))  # dependent scattering: W of this batch
     lots = dict(lots or {})
     stocks = []
     for key in table.stock_keys:
@@ -153,10 +158,11 @@ def observation_from_fit(
         dispensing_rel_sd = float(getattr(recipe.limits, "pipette_rel_error", 0.01) or 0.01)
     return BatchObservation(
         batch_id=str(batch_id), stocks=tuple(stocks), volume_fractions=fractions,
-        wavelength_nm=table.wavelength_nm, intrinsic_mua_per_mm=table.mua_per_mm,
-        intrinsic_musp_per_mm=table.musp_per_mm, matrix_mua_per_mm=table.matrix_mua_per_mm,
+        wavelength_nm=table.wavelength_nm, intrinsic_mua_per_mm=table.mua_ingredient_per_mm,
+        intrinsic_musp_per_mm=packing * table.musp_per_mm, matrix_mua_per_mm=table.matrix_mua_per_mm,
+        carrier_mua_per_mm=table.mua_carrier_per_mm,
         mua_per_mm=arrays["mua_per_mm"], musp_per_mm=arrays["musp_per_mm"],
-        covariance=arrays["covariance"], dispensing_rel_sd=dispensing_rel_sd,
+        covariance=arrays["covariance"], dispensing_rel_sd=dispensing_rel_sd, measurement_id=measurement_id,
     )
 
 

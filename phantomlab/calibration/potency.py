@@ -1,11 +1,13 @@
 """Stock potency factors from the batch history by Bayesian linear least squares (layer 3).
 
-A stock's potency ``p`` multiplies all of its intrinsic optics (docs/design.md).  With the volume
-fractions ``f_i`` actually dispensed in batch b and each stock's intrinsic optics at potency
-1 (``a_i(λ)`` absorption, ``s′_i(λ)`` reduced scattering), the mixing rule of the optics layer
-is linear in the potencies:
+A stock's potency ``p`` multiplies the intrinsic optics of its ingredient, not the absorption
+``c_i`` of its carrier water or solvent (docs/design.md).  With the volume fractions ``f_i``
+actually dispensed in batch b and each stock's intrinsic optics at potency 1 (``a_i(λ)``
+absorption of the ingredient, ``s′_i(λ)`` reduced scattering, times the packing factor W of
+the batch under a dependent-scattering model), the mixing rule of the optics layer is linear in
+the potencies:
 
-    μa(λ)  − (1 − Σ f_i) μa_m(λ) = Σ_i f_i a_i(λ)  p_i
+    μa(λ)  − (1 − Σ f_i) μa_m(λ) − Σ_i f_i c_i(λ) = Σ_i f_i a_i(λ)  p_i
     μs′(λ)                       = Σ_i f_i s′_i(λ) p_i
 
 so every fitted (μa, μs′) pair, with its 2×2 covariance, is a linear observation y = A p + e
@@ -22,10 +24,20 @@ The shift p_post − p₀ = Σ_post Σ_b A_bᵀ C_b⁻¹ (y_b − A_b p₀) spli
 batch: that is how "which batches moved each factor" is reported.
 
 Each potency belongs to a stock *lot*: a new lot starts again from the stock file's prior.
+
+Beyond this scalar model, :func:`update_potencies` may give a lot a spectral correction when
+the data support it (:mod:`phantomlab.calibration.potency_checks` states the rule; the model
+and its Gauss–Newton posterior are in :mod:`phantomlab.calibration.potency_model`), flags
+batches and measurements the others contradict, and widens every SD by the Birge ratio
+√χ²ᵣ when χ²ᵣ > 1 (Birge 1932, Phys. Rev. 40:207; Taylor et al. 1969 the same for
+fundamental constants): the fits then scatter more than their SDs say, and a potency SD
+from those SDs alone would claim more than the data support.
 """
 
 from __future__ import annotations
 
+import math
+import warnings
 from dataclasses import dataclass, field
 from typing import Any, Mapping, Sequence
 
@@ -33,7 +45,7 @@ import numpy as np
 
 from phantomlab.errors import InputError, PhantomlabWarning
 
-__all__ = ["PotencyPrior", "BatchObservation", "PotencyUpdate", "update_potencies"]
+__all__ = ["PotencyPrior", "BatchObservation", "PotencyUpdate", "update_potencies", "birge_ratio"]
 
 
 @dataclass(frozen=True)
@@ -87,6 +99,12 @@ class BatchObservation:
     dispensing_rel_sd : float
         Relative SD of the mixing model itself (dispensing errors, model error), added to the
         observation covariance in quadrature relative to the predicted values.
+    measurement_id : int, optional
+        The stored measurement the fit belongs to (for outlier reports and exclusions).
+    carrier_mua_per_mm : ndarray (S, W) [1/mm], optional
+        The part of each stock's absorption the potency does not scale (its carrier water or
+        solvent; docs/design.md); ``intrinsic_mua_per_mm`` is then the ingredient's alone.
+        Default 0.
     """
 
     batch_id: str
@@ -100,6 +118,8 @@ class BatchObservation:
     musp_per_mm: np.ndarray
     covariance: np.ndarray
     dispensing_rel_sd: float = 0.01
+    measurement_id: int | None = None
+    carrier_mua_per_mm: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         stocks = tuple((str(s), None if l is None else str(l)) for s, l in self.stocks)
@@ -113,7 +133,9 @@ class BatchObservation:
         if np.any(~np.isfinite(f)) or np.any(f < 0) or f.sum() > 1:
             raise InputError(f"batch {self.batch_id}: volume fractions must be >= 0 and sum to <= 1")
         object.__setattr__(self, "volume_fractions", f)
-        for name in ("intrinsic_mua_per_mm", "intrinsic_musp_per_mm"):
+        if self.carrier_mua_per_mm is None:
+            object.__setattr__(self, "carrier_mua_per_mm", np.zeros((S, W)))
+        for name in ("intrinsic_mua_per_mm", "intrinsic_musp_per_mm", "carrier_mua_per_mm"):
             a = np.asarray(getattr(self, name), float)
             if a.shape != (S, W):
                 raise InputError(f"batch {self.batch_id}: {name} has shape {a.shape}, expected {(S, W)}")
@@ -129,20 +151,42 @@ class BatchObservation:
 
 @dataclass(frozen=True)
 class PotencyUpdate:
-    """Posterior potencies, with what they were before and which batches moved them.
+    """Posterior potencies, with what they were before, what moved them and what to doubt.
 
     Attributes
     ----------
     stocks : tuple of (str, str or None)
         (stock key, lot) of each factor.
-    prior_potency, prior_sd, potency, potency_sd : ndarray (K,)
+    prior_potency, prior_sd : ndarray (K,)
+    potency : ndarray (K,)
+        Posterior mode of each lot's level.
+    potency_sd : ndarray (K,)
+        Posterior SD, widened by :attr:`birge_ratio` (what is reported and stored).
+    potency_sd_unwidened : ndarray (K,)
+        The posterior SD from the fits' own SDs.
     covariance : ndarray (K, K)
-        Posterior covariance of the potencies.
+        Posterior covariance of the levels, widened likewise.
     moved_by : dict
-        ``{(stock, lot): [{"batch_id", "shift", "information_share"}, ...]}``: each batch's
-        exact share of the shift p_post − p₀ and its share of the posterior information.
+        ``{(stock, lot): [{"batch_id", "measurement_ids", "shift", "information_share",
+        "leave_out_z"}, ...]}``: each batch's exact share of the shift p_post − p₀
+        (final linearisation), its share of the posterior information, and how far leaving
+        its batch out moves the lot (in SD; None when the lot is not tested).
     chi2_red : float
         Reduced χ² of the observations at the posterior (NaN without degrees of freedom).
+    birge_ratio : float
+        √χ²ᵣ when χ²ᵣ > 1, else 1: the factor every SD is widened by.
+    spectral : dict
+        ``{(stock, lot): SpectralCorrection}`` of the lots whose correction the data support.
+    selection : list of dict
+        Every spectral candidate the rule considered, used or not, and why.
+    outliers : list of dict
+        ``{batch_id, measurement_id, reason, z, stock, lot}``.
+    residuals : list of dict
+        Per observation: ``batch_id``, ``measurement_id``, ``rms_z`` and ``max_abs_z`` of its
+        standardised residuals (data − model over each value's SD).
+    scale_sd : dict
+        ``{"mua": τ, "musp": τ}``: the relative SD of a measurement's scale error the data
+        show beyond the fits' SDs (Paule–Mandel; :mod:`~phantomlab.calibration.potency_model`).
     batches : tuple of str
     """
 
@@ -155,53 +199,67 @@ class PotencyUpdate:
     moved_by: Mapping[tuple, list] = field(default_factory=dict)
     chi2_red: float = float("nan")
     batches: tuple = ()
+    potency_sd_unwidened: np.ndarray | None = None
+    birge_ratio: float = 1.0
+    spectral: Mapping[tuple, Any] = field(default_factory=dict)
+    selection: tuple = ()
+    outliers: tuple = ()
+    residuals: tuple = ()
+    dof: float = float("nan")
+    scale_sd: Mapping[str, float] = field(default_factory=dict)
+    scale_report: Mapping[str, Any] = field(default_factory=dict)
 
-    def as_potencies(self) -> dict[str, tuple[float, float]]:
-        """``{stock_key: (potency, potency_sd)}`` for the recipe solver (last lot of a key wins)."""
-        return {s: (float(p), float(sd)) for (s, _), p, sd in zip(self.stocks, self.potency, self.potency_sd)}
+    def as_potencies(self) -> dict[str, tuple]:
+        """``{stock_key: (potency, potency_sd, lot, spectral or None)}`` for the recipe solver."""
+        return {s: (float(p), float(sd), lot, self.spectral.get((s, lot)))
+                for (s, lot), p, sd in zip(self.stocks, self.potency, self.potency_sd)}
 
     def to_json(self) -> dict[str, Any]:
-        """``stocks`` {KEY: {potency, potency_sd, lot}} plus ``before``, ``after``, ``moved_by``."""
+        """``stocks`` {KEY: {potency, potency_sd, lot, spectral}} plus the report's extras."""
         stocks, before, after, moved = {}, {}, {}, {}
         for k, (stock, lot) in enumerate(self.stocks):
-            stocks[stock] = {"potency": float(self.potency[k]), "potency_sd": float(self.potency_sd[k]), "lot": lot}
+            correction = self.spectral.get((stock, lot))
+            stocks[stock] = {"potency": float(self.potency[k]), "potency_sd": float(self.potency_sd[k]), "lot": lot,
+                             "spectral": correction.to_json() if correction is not None else None}
             before[stock] = {"potency": float(self.prior_potency[k]), "potency_sd": float(self.prior_sd[k]), "lot": lot}
             after[stock] = dict(stocks[stock])
             moved[stock] = list(self.moved_by.get((stock, lot), []))
+        unwidened = self.potency_sd if self.potency_sd_unwidened is None else self.potency_sd_unwidened
         lots = [
             {"stock": s, "lot": l, "potency_before": float(p0), "potency_sd_before": float(s0),
-             "potency": float(p), "potency_sd": float(sd)}
-            for (s, l), p0, s0, p, sd in zip(self.stocks, self.prior_potency, self.prior_sd, self.potency, self.potency_sd)
+             "potency": float(p), "potency_sd": float(sd), "potency_sd_unwidened": float(u),
+             "spectral": (self.spectral[(s, l)].to_json() if (s, l) in self.spectral else None)}
+            for (s, l), p0, s0, p, sd, u in zip(self.stocks, self.prior_potency, self.prior_sd, self.potency,
+                                                self.potency_sd, unwidened)
         ]
+        finite = np.isfinite(self.chi2_red)
         return {
             "stocks": stocks, "before": before, "after": after, "moved_by": moved, "lots": lots,
             "batches": list(self.batches),
-            "chi2_red": float(self.chi2_red) if np.isfinite(self.chi2_red) else None,
+            "chi2_red": float(self.chi2_red) if finite else None,
+            "dof": float(self.dof) if np.isfinite(self.dof) else None,
+            "birge_ratio": float(self.birge_ratio),
+            "sd_widened": bool(self.birge_ratio > 1.0),
+            "spectral_selection": [dict(item) for item in self.selection],
+            "outliers": [dict(item) for item in self.outliers],
+            "residuals": [dict(item) for item in self.residuals],
+            "scale_sd": dict(self.scale_sd),
         }
 
 
-def _weight_matrix(cov: np.ndarray) -> np.ndarray:
-    """Inverse of a 2×2 covariance; components with infinite or NaN variance get zero weight."""
-    W = np.zeros_like(cov)
-    for w in range(cov.shape[0]):
-        c = cov[w]
-        good = np.isfinite(np.diag(c)) & (np.diag(c) > 0)
-        if good.all() and np.all(np.isfinite(c)):
-            try:
-                W[w] = np.linalg.inv(c)
-                continue
-            except np.linalg.LinAlgError:
-                pass
-        for i in range(2):
-            if good[i]:
-                W[w, i, i] = 1.0 / c[i, i]
-    return W
+def birge_ratio(chi2_red: float) -> float:
+    """√χ²ᵣ when χ²ᵣ > 1, else 1 (Birge 1932, Phys. Rev. 40:207): the factor SDs are widened by."""
+    return math.sqrt(chi2_red) if math.isfinite(chi2_red) and chi2_red > 1.0 else 1.0
 
 
 def update_potencies(
-    priors: Sequence[PotencyPrior], observations: Sequence[BatchObservation]
+    priors: Sequence[PotencyPrior],
+    observations: Sequence[BatchObservation],
+    *,
+    spectral: str = "auto",
+    check_outliers: bool = True,
 ) -> PotencyUpdate:
-    """Bayesian linear least-squares update of stock-lot potencies.
+    """Bayesian update of stock-lot potencies, with the corrections the data support.
 
     Parameters
     ----------
@@ -209,22 +267,36 @@ def update_potencies(
         One per stock lot to estimate (the stock file's values, or a previous calibration).
         A lot used by a batch but not listed here is refused.
     observations : sequence of BatchObservation
-        The characterised batches.
+        The characterised batches (one per fitted measurement).
+    spectral : {"auto", "off"}
+        ``"auto"``: spectral corrections where the rule of
+        :mod:`~phantomlab.calibration.potency_checks` says the data support them;
+        ``"off"``: one scalar potency per lot (the model of the module docstring).
+    check_outliers : bool
+        Run the leave-one-batch-out test.
 
     Returns
     -------
     PotencyUpdate
+        SDs widened by the Birge ratio when χ²ᵣ > 1.
 
     Raises
     ------
     InputError
-        For duplicate priors or a batch using a lot without a prior.
+        For duplicate priors, a batch using a lot without a prior, or an unknown ``spectral``.
 
     References
     ----------
     Gelman A et al. 2013, *Bayesian Data Analysis*, 3rd ed., CRC Press, sec. 14.2.
-    Tarantola A 2005, *Inverse Problem Theory*, SIAM, eq. 3.37.
+    Tarantola A 2005, *Inverse Problem Theory*, SIAM, eq. 3.37 and 3.51.
+    Birge R T 1932, Phys. Rev. 40:207.
     """
+    from phantomlab.calibration.potency_checks import Calibration, find_outliers, select_extensions
+    from phantomlab.calibration.potency_model import extension_slices
+    from phantomlab.recipe.spectral_potency import SpectralCorrection
+
+    if spectral not in ("auto", "off"):
+        raise InputError(f"spectral {spectral!r}; accepted: auto, off")
     priors = list(priors)
     idents = [p.ident for p in priors]
     if len(set(idents)) != len(idents):
@@ -233,74 +305,59 @@ def update_potencies(
     K = len(priors)
     p0 = np.array([p.potency for p in priors], float)
     sd0 = np.array([p.potency_sd for p in priors], float)
-    prior_information = np.diag(1.0 / sd0**2)
-    information = prior_information.copy()
-    rhs = prior_information @ p0
-    per_batch = []
-    dof = 0
-    for obs in observations:
-        columns = []
-        for ident in obs.stocks:
-            if ident not in index:
-                raise InputError(
-                    f"batch {obs.batch_id} used stock {ident[0]} lot {ident[1]} which has no prior; "
-                    f"known: {', '.join(f'{s}/{l}' for s, l in idents)}"
-                )
-            columns.append(index[ident])
-        W = obs.wavelength_nm.size
-        f = obs.volume_fractions
-        # design rows (2W, K): first all mua rows, then all musp rows, per wavelength pairs
-        A = np.zeros((W, 2, K))
-        for s, k in enumerate(columns):
-            A[:, 0, k] += f[s] * obs.intrinsic_mua_per_mm[s]
-            A[:, 1, k] += f[s] * obs.intrinsic_musp_per_mm[s]
-        offset = np.stack([(1.0 - f.sum()) * obs.matrix_mua_per_mm, np.zeros(W)], axis=1)
-        y = np.stack([obs.mua_per_mm, obs.musp_per_mm], axis=1) - offset
-        predicted = np.einsum("wik,k->wi", A, p0) + offset
-        cov = obs.covariance.copy()
-        rel = obs.dispensing_rel_sd
-        cov[:, 0, 0] += (rel * predicted[:, 0]) ** 2
-        cov[:, 1, 1] += (rel * predicted[:, 1]) ** 2
-        finite = np.isfinite(y)
-        cov[~finite[:, 0], 0, 0] = np.inf
-        cov[~finite[:, 1], 1, 1] = np.inf
-        y = np.where(finite, y, 0.0)
-        weights = _weight_matrix(cov)
-        info_b = np.einsum("wik,wij,wjl->kl", A, weights, A)
-        rhs_b = np.einsum("wik,wij,wj->k", A, weights, y)
-        information += info_b
-        rhs += rhs_b
-        dof += int(np.sum(np.diagonal(weights, axis1=1, axis2=2) > 0))
-        per_batch.append((obs, A, weights, y, info_b))
-    covariance = np.linalg.inv(information)
-    potency = covariance @ rhs
+    calibration = Calibration(priors, observations)
+    if spectral == "auto" and calibration.observations:
+        extensions, selection, _scale = select_extensions(calibration)
+    else:
+        extensions, selection = [], []
+    fit, scale, scale_report = calibration.fit_with_scale(extensions, scale_from=calibration.fullest)
+    ratio = birge_ratio(fit.chi2_red)
+    covariance_all = fit.covariance * ratio**2
+    potency = fit.theta[:K]
+    outliers, loo = (find_outliers(calibration, extensions) if check_outliers and calibration.observations
+                     else ([], {}))
     moved_by: dict[tuple, list] = {ident: [] for ident in idents}
-    chi2 = 0.0
-    for obs, A, weights, y, info_b in per_batch:
-        innovation = y - np.einsum("wik,k->wi", A, p0)
-        shift = covariance @ np.einsum("wik,wij,wj->k", A, weights, innovation)
-        residual = y - np.einsum("wik,k->wi", A, potency)
-        chi2 += float(np.einsum("wi,wij,wj->", residual, weights, residual))
-        for ident in set(obs.stocks):
-            k = index[ident]
-            moved_by[ident].append({
-                "batch_id": obs.batch_id,
+    posterior_information = np.linalg.inv(fit.covariance)
+    residuals = []
+    for block, shift, info, residual in zip(fit.blocks, fit.shifts, fit.information, fit.residuals):
+        lots = sorted({k for part in block.parts for k in part.columns})
+        for k in lots:
+            total = posterior_information[k, k]
+            moved_by[idents[k]].append({
+                "batch_id": block.batch_id,
+                "measurement_ids": [part.obs.measurement_id for part in block.parts],
                 "shift": float(shift[k]),
-                "information_share": float(info_b[k, k] / information[k, k]),
+                "information_share": float(info[k, k] / total) if total > 0 else 0.0,
+                "leave_out_z": loo.get(block.batch_id, {}).get(k),
             })
-    potency_sd = np.sqrt(np.diag(covariance))
+        z_all = residual / block.sigma()
+        for part in block.parts:
+            z = z_all[part.where]
+            z = z[np.isfinite(z) & part.weighted.reshape(-1)]
+            residuals.append({"batch_id": block.batch_id, "measurement_id": part.obs.measurement_id,
+                              "rms_z": float(np.sqrt(np.mean(z**2))) if z.size else None,
+                              "max_abs_z": float(np.max(np.abs(z))) if z.size else None})
+    corrections = {}
+    for ident, (ext, where) in extension_slices(fit, index).items():
+        k = index[ident]
+        positions = [k, *range(where.start, where.stop)]
+        corrections[ident] = SpectralCorrection(
+            kind=ext.kind, reference_nm=ext.reference_nm, half_width_nm=ext.half_width_nm,
+            coefficients=tuple(fit.theta[where]), potency=float(fit.theta[k]),
+            covariance=tuple(map(tuple, covariance_all[np.ix_(positions, positions)])))
     for k, ident in enumerate(idents):
         if potency[k] <= 0:
-            import warnings
-
             warnings.warn(
                 f"calibrated potency of {ident[0]} (lot {ident[1]}) is {potency[k]:.3g}, not > 0: "
                 f"the batch data contradict the mixing model (check units of doses and fits)",
                 PhantomlabWarning, stacklevel=2,
             )
-    chi2_red = chi2 / dof if dof > 0 else float("nan")
+    unwidened = np.sqrt(np.diag(fit.covariance)[:K])
     return PotencyUpdate(
-        stocks=tuple(idents), prior_potency=p0, prior_sd=sd0, potency=potency,
-        potency_sd=potency_sd, covariance=covariance, moved_by=moved_by, chi2_red=chi2_red,
-        batches=tuple(o.batch_id for o in observations),
+        stocks=tuple(idents), prior_potency=p0, prior_sd=sd0, potency=potency.copy(),
+        potency_sd=unwidened * ratio, covariance=covariance_all[:K, :K], moved_by=moved_by,
+        chi2_red=fit.chi2_red, batches=tuple(o.batch_id for o in observations),
+        potency_sd_unwidened=unwidened, birge_ratio=ratio, spectral=corrections,
+        selection=tuple(selection), outliers=tuple(outliers), residuals=tuple(residuals), dof=fit.dof,
+        scale_sd={"mua": scale[0], "musp": scale[1]}, scale_report=scale_report,
     )

@@ -31,7 +31,7 @@ from phantomlab.recipe.targets import Target
 from phantomlab.recipe.uncertainty import dose_relative_sd, propagate_sd
 
 __all__ = ["Dose", "MatrixAmounts", "Plan", "Prediction", "dilution_limits", "intrinsic_table", "is_dry_powder",
-           "plan_for_fractions", "predict", "solve", "resolve_potencies"]
+           "plan_for_fractions", "predict", "solve", "resolve_potencies", "resolve_spectral"]
 
 #: Doses below this volume fraction count as "not used".
 _UNUSED = 1e-12
@@ -309,9 +309,10 @@ def resolve_potencies(recipe: Recipe, potencies: Mapping[str, tuple] | None):
         value, sd, source = stock.potency, stock.potency_sd, "shelf"
         if key in potencies:
             entry = tuple(potencies[key])
-            if len(entry) not in (2, 3):
-                raise InputError(f"potencies[{key!r}] must be (potency, sd) or (potency, sd, lot)")
-            if len(entry) == 3 and entry[2] not in (None, "", stock.lot):
+            if len(entry) not in (2, 3, 4):
+                raise InputError(f"potencies[{key!r}] must be (potency, sd), (potency, sd, lot) or "
+                                 "(potency, sd, lot, spectral correction)")
+            if len(entry) >= 3 and entry[2] not in (None, "", stock.lot):
                 notes.append(f"{key}: calibrated potency is for lot {entry[2]!r}, the shelf holds "
                              f"lot {stock.lot!r}; using the stock file's prior")
             else:
@@ -324,6 +325,35 @@ def resolve_potencies(recipe: Recipe, potencies: Mapping[str, tuple] | None):
     return np.array(values), np.array(sds), sources, notes + (
         [f"potencies given for stocks not in the recipe ignored: {', '.join(unknown)}"] if unknown else []
     )
+
+
+def resolve_spectral(recipe: Recipe, potencies: Mapping[str, tuple] | None) -> dict:
+    """The spectral corrections of the calibrated potencies that :func:`resolve_potencies` uses.
+
+    Returns
+    -------
+    dict of stock key to :class:`~phantomlab.recipe.spectral_potency.SpectralCorrection`
+        Each at the potency it is used with (a correction of another lot is dropped with it).
+    """
+    from phantomlab.recipe.spectral_potency import spectral_of
+
+    found = {}
+    for key in recipe.stock_keys:
+        entry = (potencies or {}).get(key)
+        if entry is None:
+            continue
+        correction = spectral_of(entry)
+        lot = tuple(entry)[2] if len(tuple(entry)) >= 3 else None
+        if correction is None or lot not in (None, "", recipe.stock(key).lot):
+            continue
+        found[key] = correction.with_potency(float(tuple(entry)[0]), float(tuple(entry)[1]))
+    return found
+
+
+def _spectral_table(table: IntrinsicTable, corrections: dict) -> IntrinsicTable:
+    from phantomlab.recipe.spectral_potency import corrected_table
+
+    return corrected_table(table, corrections)
 
 
 def _batch_volume(recipe: Recipe, table: IntrinsicTable, fractions: np.ndarray) -> float:
@@ -599,10 +629,14 @@ def _curve_grid(target: Target) -> np.ndarray | None:
     return np.union1d(np.linspace(lo, hi, 41), target.wavelength_nm)
 
 
-def _prediction(table, fractions, potencies, potency_sds, dose_sds, matrix_rel_sd) -> Prediction:
+def _prediction(table, fractions, potencies, potency_sds, dose_sds, matrix_rel_sd, spectral=None) -> Prediction:
+    from phantomlab.recipe.spectral_potency import potency_sd_by_wavelength
+
     mix = mix_coefficients(table, volume_fractions=fractions, potencies=potencies)
     sd = propagate_sd(table, volume_fractions=fractions, potencies=potencies, potency_sd=potency_sds,
-                      dose_rel_sd=dose_sds, matrix_rel_sd=matrix_rel_sd)
+                      dose_rel_sd=dose_sds, matrix_rel_sd=matrix_rel_sd,
+                      potency_sd_by_wavelength=potency_sd_by_wavelength(
+                          table, potencies=potencies, potency_sd=potency_sds, corrections=spectral or {}))
     return Prediction(table.wavelength_nm, mix["mua_per_mm"], mix["mus_per_mm"], mix["musp_per_mm"],
                       mix["g"], sd["mua_sd_per_mm"], sd["musp_sd_per_mm"])
 
@@ -658,8 +692,10 @@ def _solve(recipe, *, potencies, table, curve) -> Plan:
 def _assemble(recipe, *, potencies, table, curve, fractions, check_target=True, shared=None) -> Plan:
     target = recipe.target
     values, sds, sources, notes = resolve_potencies(recipe, potencies)
+    spectral = resolve_spectral(recipe, potencies)
     if table is None:
         table = intrinsic_table(recipe, target.wavelength_nm)
+    table = _spectral_table(table, spectral)
     if fractions is None:
         outcome = solve_fractions(table, target, potencies=values,
                                   max_solids_volume_fraction=recipe.limits.max_solids_volume_fraction,
@@ -672,12 +708,14 @@ def _assemble(recipe, *, potencies, table, curve, fractions, check_target=True, 
     doses = _doses(recipe, table, fractions, values, sds, sources, volume_ml, notes, binding, shared)
     matrix = _matrix_amounts(recipe, table, fractions, volume_ml, doses)
     dose_sds = np.array([d.relative_sd for d in doses])
-    predicted = _prediction(table, fractions, values, sds, dose_sds, recipe.limits.matrix_rel_error)
+    predicted = _prediction(table, fractions, values, sds, dose_sds, recipe.limits.matrix_rel_error, spectral)
     dense = None
     grid = _curve_grid(target) if curve else None
     if grid is not None:
-        dense_table = table if grid is target.wavelength_nm else intrinsic_table(recipe, grid)
-        dense = _prediction(dense_table, fractions, values, sds, dose_sds, recipe.limits.matrix_rel_error)
+        dense_table = table if grid is target.wavelength_nm else _spectral_table(intrinsic_table(recipe, grid),
+                                                                                   spectral)
+        dense = _prediction(dense_table, fractions, values, sds, dose_sds, recipe.limits.matrix_rel_error,
+                            spectral)
     residuals = _residuals(target, predicted)
     messages = [b.message for b in binding]
     if binding:
@@ -770,6 +808,8 @@ def predict(recipe: Recipe, *, volume_fractions: Mapping[str, float], potencies=
     if table is None:
         table = intrinsic_table(recipe, grid)
     values, sds, _, _ = resolve_potencies(recipe, potencies)
+    spectral = resolve_spectral(recipe, potencies)
+    table = _spectral_table(table, spectral)
     rel = dict(dose_relative_sd or {})
     dose_sds = np.array([float(rel.get(k, 0.0)) for k in recipe.stock_keys])
-    return _prediction(table, fractions, values, sds, dose_sds, 0.0)
+    return _prediction(table, fractions, values, sds, dose_sds, 0.0, spectral)

@@ -84,6 +84,7 @@ def propagate_sd(
     potency_sd,
     dose_rel_sd,
     matrix_rel_sd: float = 0.0,
+    potency_sd_by_wavelength=None,
 ) -> dict[str, np.ndarray]:
     """SD of the predicted μa and μs′ at every wavelength of ``table``.
 
@@ -96,6 +97,11 @@ def propagate_sd(
         Relative SD of each delivered dose (:func:`dose_relative_sd`).
     matrix_rel_sd : float [fraction]
         Relative SD of the matrix amount.
+    potency_sd_by_wavelength : dict, optional
+        ``{"mua": (S, W), "musp": (S, W)}``: the SD of each stock's effective potency at
+        every wavelength, for a lot with a spectral correction
+        (:func:`phantomlab.recipe.spectral_potency.potency_sd_by_wavelength`); replaces
+        ``potency_sd`` for that quantity.
 
     Returns
     -------
@@ -115,7 +121,8 @@ def propagate_sd(
         ("musp", packing * table.musp_per_mm, 0.0, np.zeros_like(table.matrix_mua_per_mm)),
     ):
         c_mix = mix[f"{name}_per_mm"]
-        by_potency = (f * sp)[:, None] * scaled  # (S, W): the potency scales the ingredient only
+        spread = sp[:, None] if potency_sd_by_wavelength is None else potency_sd_by_wavelength[name]
+        by_potency = f[:, None] * spread * scaled  # (S, W): the potency scales the ingredient only
         by_dose = (f * sd)[:, None] * (p[:, None] * scaled + fixed - c_mix[None, :])
         by_matrix = f_matrix * matrix_rel_sd * (matrix_value - c_mix)
         variance = (by_potency**2).sum(axis=0) + (by_dose**2).sum(axis=0) + by_matrix**2

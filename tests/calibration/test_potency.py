@@ -4,13 +4,17 @@ References: the one-parameter conjugate normal update, posterior precision = pri
 + data precision, mean = precision-weighted average (Gelman et al. 2013, *Bayesian Data
 Analysis*, 3rd ed., eqs. 2.11–2.12); the general linear case equals ordinary least squares
 on the data rows stacked with the prior rows, each whitened (Tarantola 2005, *Inverse Problem
-Theory*, eq. 3.37), solved here by ``numpy.linalg.lstsq`` as the independent check.
+Theory*, eq. 3.37), solved here by ``numpy.linalg.lstsq`` as the independent check, with the
+covariance of each batch's values written out in full (the fits' 2 × 2 blocks, their
+correlation across wavelengths and the measurement scale SD that the update reports) and
+whitened by its Cholesky factor.
 """
 
 import numpy as np
 import pytest
 
 from phantomlab.calibration.potency import BatchObservation, PotencyPrior, update_potencies
+from phantomlab.calibration.potency_model import WAVELENGTH_CORRELATION
 from phantomlab.errors import InputError
 
 
@@ -53,8 +57,9 @@ def test_general_case_equals_whitened_stacked_least_squares():
     s = np.vstack([np.linspace(30, 20, W), np.full(W, 2.0), np.zeros(W)])  # the ink scatters
     am = np.linspace(0.002, 0.004, W)
     true = np.array([1.3, 0.7, 1.5])
-    observations, rows, rhs = [], [], []
-    for b, f in enumerate([np.array([0.04, 0.001, 0.0002]), np.array([0.03, 0.0015, 0.0003])]):
+    observations, batches = [], []
+    for b, f in enumerate([np.array([0.04, 0.001, 0.0002]), np.array([0.03, 0.0015, 0.0003]),
+                           np.array([0.035, 0.0008, 0.00025])]):
         mua = (1 - f.sum()) * am + (f * true) @ a
         musp = (f * true) @ s
         cov = np.zeros((W, 2, 2))
@@ -64,12 +69,27 @@ def test_general_case_equals_whitened_stacked_least_squares():
         noise = np.array([rng.multivariate_normal([0, 0], c) for c in cov])
         observations.append(_observation(f"B{b}", f, a, s, am, mua + noise[:, 0], musp + noise[:, 1], cov,
                                          stocks=stocks))
+        design = np.zeros((W, 2, 3))
+        design[:, 0, :], design[:, 1, :] = (f[:, None] * a).T, (f[:, None] * s).T
+        data = np.stack([mua + noise[:, 0] - (1 - f.sum()) * am, musp + noise[:, 1]], axis=1)
+        batches.append((design.reshape(2 * W, 3), data.reshape(-1), cov, mua, musp))
+    update = update_potencies(priors, observations)
+    rho = WAVELENGTH_CORRELATION
+    rows, rhs = [], []
+    for design, data, cov, mua, musp in batches:
+        full = np.zeros((2 * W, 2 * W))
         for w in range(W):
-            L = np.linalg.cholesky(np.linalg.inv(cov[w]))  # whitening: L^T C L = I
-            design = np.vstack([f * a[:, w], f * s[:, w]])
-            data = np.array([mua[w] + noise[w, 0] - (1 - f.sum()) * am[w], musp[w] + noise[w, 1]])
-            rows.append(L.T @ design)
-            rhs.append(L.T @ data)
+            full[2 * w:2 * w + 2, 2 * w:2 * w + 2] = (1 - rho) * cov[w]
+        for q, values in ((0, mua), (1, musp)):
+            sd = np.zeros(2 * W)
+            sd[q::2] = np.sqrt(cov[:, q, q])
+            full += rho * np.outer(sd, sd)
+            scale = np.zeros(2 * W)
+            scale[q::2] = update.scale_sd[("mua", "musp")[q]] * values  # at the level it was taken
+            full += np.outer(scale, scale)
+        L = np.linalg.cholesky(np.linalg.inv(full))
+        rows.append(L.T @ design)
+        rhs.append(L.T @ data)
     for k, prior in enumerate(priors):
         row = np.zeros(3)
         row[k] = 1 / prior.potency_sd
@@ -77,10 +97,9 @@ def test_general_case_equals_whitened_stacked_least_squares():
         rhs.append(np.array([prior.potency / prior.potency_sd]))
     X, y = np.vstack(rows), np.concatenate(rhs)
     reference, *_ = np.linalg.lstsq(X, y, rcond=None)
-    reference_cov = np.linalg.inv(X.T @ X)
-    update = update_potencies(priors, observations)
-    np.testing.assert_allclose(update.potency, reference, rtol=1e-9)
-    np.testing.assert_allclose(update.covariance, reference_cov, rtol=1e-9)
+    reference_cov = np.linalg.inv(X.T @ X) * update.birge_ratio**2
+    np.testing.assert_allclose(update.potency, reference, rtol=1e-7)
+    np.testing.assert_allclose(update.covariance, reference_cov, rtol=1e-7)
     # the per-batch shifts add up to the whole shift, for every factor
     for k, ident in enumerate(update.stocks):
         total = sum(item["shift"] for item in update.moved_by[ident])
@@ -92,7 +111,7 @@ def test_no_batches_leaves_the_prior():
     assert update.potency[0] == pytest.approx(1.1, rel=1e-12)
     assert update.potency_sd[0] == pytest.approx(0.2, rel=1e-12)
     assert update.to_json()["stocks"] == {"ink": {"potency": pytest.approx(1.1), "potency_sd": pytest.approx(0.2),
-                                                  "lot": "L1"}}
+                                                  "lot": "L1", "spectral": None}}
 
 
 def test_undetermined_musp_rows_carry_no_weight():
