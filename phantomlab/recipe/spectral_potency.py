@@ -13,7 +13,7 @@ its meaning as the level:
   μs′ = a (λ/λ0)^(−b) used for tissue and phantom scatterers (Jacques 2013, Phys. Med. Biol.
   58:R37, eq. 2).  A larger particle flattens the spectrum (Δb < 0), a smaller one steepens
   it (Mie theory; the ratio of two lognormal TiO₂ spectra 0.25 and 0.32 µm follows the power
-  law within 0.5 % over 650–860 nm, ``tests/calibration/test_potency_spectral.py``);
+  law within 0.5 % over 650–860 nm in silicone, ``tests/calibration/test_potency_spectral.py``);
 * ``mua_legendre`` — the lot's μa times ``1 + r₁ P₁(u) + r₂ P₂(u)``, Legendre polynomials of
   ``u = (λ − λc)/w`` over the band [λc − w, λc + w] the calibration saw, held constant
   beyond it (``u`` clipped to [−1, 1]): a tilt and a bow, nothing that could invent a peak.
@@ -60,10 +60,11 @@ def musp_power_law_shape(wavelength_nm, *, reference_nm: float, delta_b: float) 
     wavelength_nm : array [nm]
     reference_nm : float [nm]
         λ0, where the correction is 1.
-    delta_b : float [dimensionless]
-        Change of the exponent b of μs′ = a (λ/λ0)^(−b) (Jacques 2013, eq. 2).
+    delta_b : float or array [dimensionless]
+        Change of the exponent b of μs′ = a (λ/λ0)^(−b) (Jacques 2013, eq. 2); broadcasts
+        with ``wavelength_nm``.
     """
-    return np.power(np.asarray(wavelength_nm, float) / float(reference_nm), -float(delta_b))
+    return np.power(np.asarray(wavelength_nm, float) / float(reference_nm), -np.asarray(delta_b, float))
 
 
 def _legendre_u(wavelength_nm, centre_nm: float, half_width_nm: float) -> np.ndarray:

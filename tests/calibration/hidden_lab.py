@@ -145,6 +145,7 @@ class HiddenLab:
     data_baseline: object
     fit_baseline: object
     truth: dict = field(default_factory=dict)
+    measure_nm: np.ndarray = field(default_factory=lambda: MEASURE_NM)
 
     def true_optics(self, fractions, wavelength_nm=None):
         """What a batch of these doses really is (true stocks, true levels)."""
@@ -155,7 +156,7 @@ class HiddenLab:
 
     def reading(self, fractions, *, share, seed: int) -> str:
         """A probe reading of the batch (CSV text): Monte Carlo R(ρ) + 1 % noise, with its SD."""
-        optics = self.true_optics(fractions, MEASURE_NM)
+        optics = self.true_optics(fractions, self.measure_nm)
         mus = optics.musp_per_mm / (1.0 - share.g)
         reflectance, sd = share.srdr_with_sd(mua_per_mm=optics.mua_per_mm, mus_per_mm=mus, rho_mm=RHO_MM)
         rng = np.random.default_rng(seed)
@@ -163,7 +164,7 @@ class HiddenLab:
         total_sd = np.sqrt(sd**2 + (READING_NOISE * reflectance) ** 2)
         lines = ["# source: demo data, invented (hidden simulated lab: independent Monte Carlo run, 1 % noise)",
                  "wavelength_nm,rho_mm,reflectance_per_mm2,sd"]
-        for i, w in enumerate(MEASURE_NM):
+        for i, w in enumerate(self.measure_nm):
             for j, r in enumerate(RHO_MM):
                 lines.append(f"{w:g},{r:g},{noisy[i, j]:.9g},{total_sd[i, j]:.6g}")
         return "\n".join(lines) + "\n"
