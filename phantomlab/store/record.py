@@ -43,18 +43,11 @@ def _values(sequence) -> np.ndarray:
     return np.asarray([np.nan if v is None else v for v in (sequence or [])], dtype=float)
 
 
-def _on_grid(fit: dict[str, Any], key: str, grid: np.ndarray) -> np.ndarray:
+def _on_grid(fit: dict[str, Any] | None, key: str, grid: np.ndarray) -> np.ndarray:
     """A fitted spectrum on the target grid (linear interpolation inside the fitted band)."""
-    wavelength = _values(fit.get("wavelength_nm"))
-    values = _values(fit.get(key))
-    out = np.full(grid.shape, np.nan)
-    if wavelength.size == 0 or values.shape != wavelength.shape:
-        return out
-    order = np.argsort(wavelength)
-    wavelength, values = wavelength[order], values[order]
-    inside = (grid >= wavelength[0] - 1e-9) & (grid <= wavelength[-1] + 1e-9)
-    out[inside] = np.interp(grid[inside], wavelength, values)
-    return out
+    from phantomlab.calibration.verdict import on_grid  # layer 3: the one verdict implementation
+
+    return on_grid(fit, key, grid)
 
 
 def _newest_fit(session: Session, batch: Batch):
@@ -69,35 +62,27 @@ def _newest_fit(session: Session, batch: Batch):
 
 def _checks(target: dict[str, Any], fit: dict[str, Any] | None,
             predicted: dict[str, Any] | None = None) -> list[dict[str, Any]]:
-    """One row per targeted value: target, measured ± SD, deviation, pass; with ``predicted``
-    (the optics predicted from the amounts really dispensed, on the target grid) also that."""
-    grid = _values(target.get("wavelength_nm"))
+    """One row per targeted value: target, measured ± SD, deviation, verdict (``outcome`` PASS,
+    FAIL or UNDECIDED by :func:`phantomlab.calibration.verdict.judge`, the rule every command
+    uses; ``pass`` True, False or None); with ``predicted`` (the optics predicted from the
+    amounts really dispensed) also that."""
+    from phantomlab.calibration.verdict import judge
+
+    verdict = judge(target=target, values=fit)
     rows = []
-    tolerances = {"mua": target.get("mua_tolerance_percent"), "musp": target.get("musp_tolerance_percent")}
-    for name in ("mua", "musp"):
-        want = _values(target.get(f"{name}_per_mm"))
-        if want.shape != grid.shape:
-            continue
-        have = _on_grid(fit, f"{name}_per_mm", grid) if fit else np.full(grid.shape, np.nan)
-        sd = _on_grid(fit, f"{name}_sd_per_mm", grid) if fit else np.full(grid.shape, np.nan)
-        expected = _on_grid(predicted, f"{name}_per_mm", grid) if predicted else np.full(grid.shape, np.nan)
-        expected_sd = (_on_grid(predicted, f"{name}_sd_per_mm", grid) if predicted
-                       else np.full(grid.shape, np.nan))
-        tol = tolerances[name]
-        for w, a, b, s, p, q in zip(grid, want, have, sd, expected, expected_sd):
-            if not np.isfinite(a):
-                continue
-            deviation = b / a - 1.0 if np.isfinite(b) and a > 0 else None
-            passed = None if deviation is None or tol is None else bool(abs(deviation) <= tol / 100.0 * (1 + 1e-9))
-            rows.append({
-                "quantity": name, "wavelength_nm": float(w), "target_per_mm": float(a),
-                "measured_per_mm": float(b) if np.isfinite(b) else None,
-                "measured_sd_per_mm": float(s) if np.isfinite(s) else None,
-                "deviation_percent": None if deviation is None else 100.0 * deviation,
-                "tolerance_percent": tol, "pass": passed,
-                "predicted_from_actual_per_mm": float(p) if np.isfinite(p) else None,
-                "predicted_from_actual_sd_per_mm": float(q) if np.isfinite(q) else None,
-            })
+    for row in verdict.rows:
+        name, w = row["quantity"], row["wavelength_nm"]
+        at = np.array([w])
+        expected = _on_grid(predicted, f"{name}_per_mm", at)[0] if predicted else np.nan
+        expected_sd = _on_grid(predicted, f"{name}_sd_per_mm", at)[0] if predicted else np.nan
+        rows.append({
+            "quantity": name, "wavelength_nm": w, "target_per_mm": row["target_per_mm"],
+            "measured_per_mm": row["value_per_mm"], "measured_sd_per_mm": row["sd_per_mm"],
+            "deviation_percent": row["deviation_percent"], "sd_percent": row["sd_percent"],
+            "tolerance_percent": row["tolerance_percent"], "outcome": row["outcome"], "pass": row["pass"],
+            "predicted_from_actual_per_mm": float(expected) if np.isfinite(expected) else None,
+            "predicted_from_actual_sd_per_mm": float(expected_sd) if np.isfinite(expected_sd) else None,
+        })
     return rows
 
 
@@ -224,8 +209,10 @@ def batch_record(session: Session, code: str) -> dict[str, Any]:
                                    if actual_ml is not None and planned_ml else None),
         })
     measurement, fit = _newest_fit(session, batch)
+    from phantomlab.calibration.verdict import judge  # layer 3: the one verdict implementation
+
     checks = _checks(target, fit.results if fit else None, batch.actual_prediction)
-    verdicts = [c["pass"] for c in checks if c["pass"] is not None]
+    outcome = judge(target=target, values=fit.results if fit else None).outcome
     grid = _values(target.get("wavelength_nm"))
     return {
         "batch_id": batch.code, "status": batch.status, "retracted": batch.retracted,
@@ -244,7 +231,7 @@ def batch_record(session: Session, code: str) -> dict[str, Any]:
             "measured_on": measurement.measured_on, "phantom_age_days": measurement.phantom_age_days,
             "instrument": measurement.instrument, "fit_id": fit.id, "model": fit.model,
             "chi2_red": fit.chi2_red, "fit_warnings": fit.warnings, "anisotropy": _anisotropy(fit.results)},
-        "checks": checks, "pass": (all(verdicts) if verdicts else None),
+        "checks": checks, "outcome": outcome, "pass": None if outcome is None else outcome == "PASS",
         "series": _series(session, recipe, grid),
         "history": [{"version": v.version, "status": v.status, "retracted": v.retracted,
                      "recorded_at": v.recorded_at, "recorded_by": v.recorded_by, "change_note": v.change_note}
@@ -317,9 +304,11 @@ def _shown(count: int) -> set[int]:
 def render_batch_record_html(record: dict[str, Any]) -> str:
     """The batch record as one self-contained, printable HTML page (A4)."""
     r = record
-    verdict = {True: "PASS: every targeted value within tolerance",
-               False: "FAIL: at least one targeted value outside tolerance",
-               None: "not decided: no fitted measurement yet"}[r["pass"]]
+    verdict = {"PASS": "PASS: every targeted value within tolerance (at 2 SD)",
+               "FAIL": "FAIL: at least one targeted value outside tolerance (at 2 SD)",
+               "UNDECIDED": "UNDECIDED: none outside tolerance, but the SD is too wide to show every value inside",
+               None: "not decided: no fitted measurement yet"}[
+        r.get("outcome") or {True: "PASS", False: "FAIL", None: None}[r["pass"]]]
     parts = [
         "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
         f"<title>Batch record {html.escape(r['batch_id'])}</title><style>{_STYLE}</style></head><body>",
@@ -383,18 +372,21 @@ def render_batch_record_html(record: dict[str, Any]) -> str:
     checks = r["checks"]
     grid = sorted({c["wavelength_nm"] for c in checks})
     keep = {grid[i] for i in _shown(len(grid))}
-    rows = [c for c in checks if c["wavelength_nm"] in keep or c["pass"] is False]
+    rows = [c for c in checks if c["wavelength_nm"] in keep or c.get("outcome") == "FAIL" or c["pass"] is False]
     parts.append(_table(
         ["quantity", "λ [nm]", "target [1/mm]", "predicted from actual amounts ± SD [1/mm]",
          "measured [1/mm]", "SD [1/mm]", "deviation [%]", "tolerance [±%]", "result"],
         [[c["quantity"].replace("musp", "μs′").replace("mua", "μa"), c["wavelength_nm"], c["target_per_mm"],
           _with_sd(c.get("predicted_from_actual_per_mm"), c.get("predicted_from_actual_sd_per_mm")),
           c["measured_per_mm"], c["measured_sd_per_mm"], _percent(c["deviation_percent"]),
-          c["tolerance_percent"], {True: "pass", False: "FAIL", None: "–"}[c["pass"]]] for c in rows],
-        classes=[{True: "pass", False: "fail", None: ""}[c["pass"]] for c in rows], css="nowrap",
+          c["tolerance_percent"], c.get("outcome") or {True: "PASS", False: "FAIL", None: "–"}[c["pass"]]]
+         for c in rows],
+        classes=[{"PASS": "pass", "FAIL": "fail"}.get(c.get("outcome") or {True: "PASS", False: "FAIL"}.get(c["pass"]), "")
+                 for c in rows], css="nowrap",
     ))
-    parts.append("<p class='small'>Deviation: measured against target. The verdict compares the fitted "
-                 "values with the recipe's tolerance and does not widen it by their SD."
+    parts.append("<p class='small'>Deviation: measured against target. Result: PASS when the deviation "
+                 "plus 2 SD of the fit stays within the recipe's tolerance, FAIL when the deviation minus "
+                 "2 SD leaves it, else UNDECIDED (guarded acceptance, ISO 14253-1, JCGM 106:2012)."
                  + (f" {len(keep)} of {len(grid)} wavelengths shown (every failing one included); the "
                     "JSON of <code>batch record --json</code> holds all." if len(keep) < len(grid) else "")
                  + "</p>")

@@ -125,7 +125,10 @@ def test_checks_carry_the_prediction_from_the_actual_amounts():
     assert len(rows) == 24
     first = rows[0]
     assert first["quantity"] == "mua" and first["deviation_percent"] == pytest.approx(4.0)  # 0.0104 / 0.01 - 1
-    assert first["pass"] is True  # within the 5 % tolerance
+    # +4 % ± 1 % against ±5 %: inside, but not by 2 SD (guarded acceptance, JCGM 106:2012 sec. 8.3)
+    assert first["outcome"] == "UNDECIDED" and first["pass"] is None
+    close = _checks(TWELVE, {**_fit([0.0104] * 12), "mua_sd_per_mm": [2e-5] * 12})[0]
+    assert close["outcome"] == "PASS" and close["pass"] is True  # 4 % + 2 x 0.2 % <= 5 %
     assert first["predicted_from_actual_per_mm"] == 0.0102 and first["predicted_from_actual_sd_per_mm"] == 0.001
     assert _checks(TWELVE, _fit([0.0104] * 12))[0]["predicted_from_actual_per_mm"] is None
 
