@@ -18,7 +18,10 @@ from phantomlab.store.batches import (
     set_status,
 )
 from phantomlab.store.calibrations import (
+    CalibratedPotency,
     calibration_potencies,
+    calibration_states,
+    restore_calibration_state,
     latest_calibration_state,
     latest_potencies,
     latest_potency_states,
@@ -31,6 +34,12 @@ from phantomlab.store.engine import (
     StoreConflictError,
     open_store,
     resolve_url,
+)
+from phantomlab.store.exclusions import (
+    calibration_exclusions,
+    exclude_from_calibration,
+    exclusion_history,
+    include_in_calibration,
 )
 from phantomlab.store.evidence import BatchEvidence, FitEvidence, calibration_evidence
 from phantomlab.store.history import correct, history_of, retract, unretract
@@ -45,6 +54,13 @@ from phantomlab.store.snapshots import record_recipe, record_stock_lot
 
 __all__ = [
     "BatchEvidence",
+    "CalibratedPotency",
+    "calibration_exclusions",
+    "calibration_states",
+    "exclude_from_calibration",
+    "exclusion_history",
+    "include_in_calibration",
+    "restore_calibration_state",
     "FitEvidence",
     "Store",
     "StoreBusyError",

@@ -41,6 +41,7 @@ __all__ = [
     "Base",
     "Batch",
     "BatchPlan",
+    "CalibrationExclusion",
     "BatchPlanLot",
     "CalibrationPotency",
     "CalibrationState",
@@ -218,6 +219,10 @@ class CalibrationState(VersionedMixin, Base):
     computed_from: Mapped[dict[str, Any]] = mapped_column(JSON)
     notes: Mapped[str | None] = mapped_column(Text, nullable=True)
     software_version: Mapped[str] = mapped_column(String(50))
+    # migration 0005: a rollback is a new state that makes an earlier one current again
+    restores_state_id: Mapped[int | None] = mapped_column(
+        ForeignKey("calibration_states.id", name="fk_calibration_states_restores_state_id"), nullable=True
+    )
 
 
 class CalibrationPotency(Base):
@@ -238,6 +243,25 @@ class CalibrationPotency(Base):
     stock_lot_id: Mapped[int | None] = mapped_column(ForeignKey("stock_lots.id"), nullable=True)
     potency: Mapped[float] = mapped_column(Float)
     potency_sd: Mapped[float] = mapped_column(Float)
+    # migration 0005: the lot's spectral correction (SpectralCorrection.to_json()), or None
+    spectral: Mapped[dict[str, Any] | None] = mapped_column(JSON, nullable=True)
+
+
+class CalibrationExclusion(VersionedMixin, Base):
+    """A batch (or one of its measurements) left out of the potency calibration, and why.
+
+    Version 1 excludes (``change_note`` holds the reason); a retracted version includes it
+    again (its note says why); an unretracted one excludes it once more.  Added by migration
+    0005.
+    """
+
+    __tablename__ = "calibration_exclusions"
+    __table_args__ = (
+        UniqueConstraint("uid", "version", name="uq_calibration_exclusions_uid_version"),
+    )
+
+    batch_code: Mapped[str] = mapped_column(String(20), index=True)
+    measurement_id: Mapped[int | None] = mapped_column(ForeignKey("measurements.id"), nullable=True)
 
 
 class OxygenationSeries(VersionedMixin, Base):
@@ -266,4 +290,5 @@ class OxygenationSeries(VersionedMixin, Base):
 
 
 #: Models whose records are corrected by new versions and retracted by a mark.
-VERSIONED_MODELS = (StockLot, Recipe, Batch, Measurement, Fit, CalibrationState, OxygenationSeries)
+VERSIONED_MODELS = (StockLot, Recipe, Batch, Measurement, Fit, CalibrationState, OxygenationSeries,
+                    CalibrationExclusion)

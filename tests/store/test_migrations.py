@@ -15,8 +15,8 @@ from phantomlab.store.migrate import current_revision, head_revision, upgrade
 from phantomlab.store.schema import Base
 
 
-def test_head_is_the_fourth_revision():
-    assert head_revision() == "0004"
+def test_head_is_the_fifth_revision():
+    assert head_revision() == "0005"
 
 
 def test_migrated_database_matches_the_declared_schema(store):
