@@ -23,7 +23,6 @@ Top-level fields (docs/formats.md; those marked * came after the first design):
 
 from __future__ import annotations
 
-import hashlib
 import math
 from dataclasses import dataclass
 from pathlib import Path
@@ -51,8 +50,11 @@ class Recipe:
     ----------
     name, version : str
     content_hash : str
-        SHA-256 (hex) of the recipe file's bytes followed by those of its target spectrum
-        file, if any: two batches made from the same hash were made from the same recipe.
+        The canonical recipe hash (:func:`phantomlab.recipe.recipe_hash.canonical_recipe_hash`):
+        SHA-256 of the parsed definition written canonically, then of its target spectrum
+        file, if any.  The same recipe has the same hash from a file (whatever its comments
+        and spacing) and from the page; two batches with the same hash were made from the
+        same recipe.
     path : Path or None
     shelf : phantomlab.materials.Shelf
     matrix_key : str
@@ -133,7 +135,7 @@ def load_recipe(path) -> Recipe:
     path = Path(path)
     raw = read_bytes_file(path, what="recipe file")
     definition = parse_toml(decode_text(raw, what="recipe file", name=path.name), what=f"recipe {path.name}")
-    return parse_recipe(definition, base_dir=path.parent, path=path, raw=raw)
+    return parse_recipe(definition, base_dir=path.parent, path=path)
 
 
 def _number(definition: dict, key: str) -> float | None:
@@ -145,8 +147,7 @@ def _number(definition: dict, key: str) -> float | None:
     return float(value)
 
 
-def parse_recipe(definition: dict, *, base_dir: Path, path: Path | None = None,
-                 raw: bytes | None = None, shelf=None) -> Recipe:
+def parse_recipe(definition: dict, *, base_dir: Path, path: Path | None = None, shelf=None) -> Recipe:
     """Validate a parsed recipe table (see :func:`load_recipe`).
 
     ``shelf`` may be given to skip reading ``stocks_file`` (tests, the page).
@@ -208,6 +209,7 @@ def parse_recipe(definition: dict, *, base_dir: Path, path: Path | None = None,
         raise InputError("recipe: series must be a table (levels, low, high, batch_volume_ml)")
 
     from phantomlab.optics.dependent import PACKING_MODELS  # layer 2
+    from phantomlab.recipe.recipe_hash import canonical_recipe_hash
 
     dependent = definition.get("dependent_scattering", "none")
     if dependent not in PACKING_MODELS:
@@ -216,14 +218,14 @@ def parse_recipe(definition: dict, *, base_dir: Path, path: Path | None = None,
     from phantomlab.recipe.oxygenation import parse_oxygenation
 
     oxygenation = parse_oxygenation(definition.get("oxygenation"), shelf=shelf, stock_keys=stocks)
-    digest = hashlib.sha256(raw if raw is not None else repr(sorted(definition.items())).encode())
+    files = []
     if isinstance(target_table, dict) and "spectrum_csv" in target_table:
-        digest.update(read_bytes_file(contained_path(target_table["spectrum_csv"], base_dir=base_dir,
-                                                     what="target: spectrum_csv"), what="target: spectrum file"))
+        files.append(read_bytes_file(contained_path(target_table["spectrum_csv"], base_dir=base_dir,
+                                                    what="target: spectrum_csv"), what="target: spectrum file"))
     return Recipe(
         name=name,
         version=version,
-        content_hash=digest.hexdigest(),
+        content_hash=canonical_recipe_hash(definition, files=files),
         path=path,
         shelf=shelf,
         matrix_key=matrix_key,

@@ -51,7 +51,7 @@ DEMO_SIDECAR = f'n = {DEMO_INDEX}\ninstrument = "demo fibre probe (invented)"\n'
 #: Version of the demo data.  Raise it whenever the demo batches, stocks or the models that
 #: make their measurements change: a demo database seeded by another version is re-seeded
 #: (it holds demo data only), so the page never fits old demo files with a newer model.
-DEMO_SEED_VERSION = 2
+DEMO_SEED_VERSION = 3
 
 _lock = threading.Lock()
 

@@ -81,7 +81,7 @@ def _solved(definition_json: str, base_dir: str, source: str, _shelf, shelf_toke
     if source:
         path = Path(source)
         raw = path.read_bytes()
-        recipe = parse_recipe(tomllib.loads(raw.decode("utf-8")), base_dir=path.parent, path=path, raw=raw,
+        recipe = parse_recipe(tomllib.loads(raw.decode("utf-8")), base_dir=path.parent, path=path,
                               shelf=_shelf)
     else:
         definition = json.loads(definition_json)

@@ -93,7 +93,7 @@ def write_page_recipe(folder, definition: Mapping[str, Any], *, base_dir=None, s
                   f"# (written when a batch was saved; the batch log keeps its content hash)\n")
         path.write_text(header + body, encoding="utf-8")
     raw = path.read_bytes()
-    return parse_recipe(tomllib.loads(raw.decode("utf-8")), base_dir=folder, path=path, raw=raw, shelf=shelf)
+    return parse_recipe(tomllib.loads(raw.decode("utf-8")), base_dir=folder, path=path, shelf=shelf)
 
 
 def json_plain(value):
