@@ -34,6 +34,7 @@ COMMAND_MODULES: tuple[str, ...] = (
     "phantomlab.commands.stock",
     "phantomlab.commands.fit",
     "phantomlab.commands.calibrate",
+    "phantomlab.commands.calibration",
     "phantomlab.commands.correct",
     "phantomlab.commands.batch",
     "phantomlab.commands.lab",

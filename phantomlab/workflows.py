@@ -14,9 +14,9 @@ apart:
 * :func:`attach_measurement` — read and fit a measurement file BEFORE any write (a file that
   does not parse writes nothing; a long fit holds no lock), then store the file byte for
   byte with its fit in one transaction; :func:`keep_fit` stores a later refit the same way;
-* :func:`recalibrate` — every mixed batch with fits (:func:`gather_history`), the Bayesian
-  potency update, and ONE calibration state holding one potency per stock key: that of the
-  lot of the newest batch;
+* :func:`recalibrate` (in :mod:`phantomlab.recalibration`, re-exported here) — every mixed
+  batch with fits, the potency update, previewed, and recorded as ONE calibration state only
+  when applied; exclusions and rollback live there too;
 * :func:`next_batch_plan` and :func:`top_up_batch` — the next batch planned with the
   calibrated potencies of the lots on the shelf (:func:`shelf_potencies`), or the add-only
   top-up of a liquid batch from its newest fitted measurement (:func:`newest_fit`).
@@ -48,6 +48,7 @@ from phantomlab.outputs import check_writable_folder, write_text_atomically
 
 __all__ = [
     "METHOD",
+    "plan_potencies",
     "parse_amounts_csv",
     "tolerance_alarms",
     "batch_recipe_file",
@@ -59,6 +60,7 @@ __all__ = [
     "attach_measurement",
     "AttachedMeasurement",
     "keep_fit",
+    "fit_verdict",
     "gather_history",
     "batch_volume_fractions",
     "recalibrate",
@@ -70,8 +72,6 @@ __all__ = [
     "top_up_batch",
     "TopUpOfBatch",
 ]
-
-METHOD = "bayesian-linear-least-squares (phantomlab.calibration.potency, v1)"
 
 
 # ---- amounts and tolerance (pure) -------------------------------------------------------------
@@ -202,21 +202,38 @@ def batch_recipe_file(recipe_row, override: str | Path | None = None):
 # ---- plan and record a batch ----------------------------------------------------------------------
 
 
+def plan_potencies(store, recipe) -> tuple[dict, Any]:
+    """The calibrated potencies of the lots on the recipe's shelf, and where they come from.
+
+    Returns
+    -------
+    (dict, str or dict)
+        ``{stock: CalibratedPotency}`` (:func:`phantomlab.store.latest_potencies` with the
+        shelf; a stock whose lot was never calibrated is left out and keeps the stock file's
+        prior), and ``potencies_from``: ``"stock file"`` or ``{"state_id", "recorded_at",
+        "restores_state_id"}`` (:func:`phantomlab.recalibration.potencies_from`).
+    """
+    from phantomlab.recalibration import potencies_from
+    from phantomlab.store import latest_potencies  # layer 4
+
+    with store.reading() as session:
+        calibrated = latest_potencies(session, shelf=recipe.shelf)
+        source = potencies_from(session, recipe, calibrated)
+    return calibrated, source
+
+
 def plan_batch(store, recipe):
     """Solve ``recipe`` with the newest calibrated potency of each lot now on its shelf.
 
-    A stock whose lot was never calibrated keeps the stock file's prior
-    (:func:`phantomlab.store.latest_potencies` with the shelf).
+    A stock whose lot was never calibrated keeps the stock file's prior (:func:`plan_potencies`).
 
     Returns
     -------
     phantomlab.recipe.Plan
     """
     from phantomlab.recipe import solve  # layer 3
-    from phantomlab.store import latest_potencies  # layer 4
 
-    with store.reading() as session:
-        calibrated = latest_potencies(session, shelf=recipe.shelf)
+    calibrated, _source = plan_potencies(store, recipe)
     return solve(recipe, potencies=calibrated)
 
 
@@ -233,6 +250,8 @@ class RecordedBatch:
     sheet_html: str
     sheet_path: Path | None = None
     notes: list = field(default_factory=list)  # expired lots the plan's warnings do not name yet
+    potencies_from: Any = "stock file"  # "stock file" or {"state_id", "recorded_at", ...}
+    corrects_batch: str | None = None
 
 
 def record_planned_batch(
@@ -244,6 +263,7 @@ def record_planned_batch(
     notes: str | None = None,
     planned_on: _dt.date | None = None,
     sheet_path: str | Path | None = None,
+    corrects: str | None = None,
 ) -> RecordedBatch:
     """Record a solved plan as a new batch (status ``planned``) in ONE transaction.
 
@@ -259,15 +279,20 @@ def record_planned_batch(
         anything is recorded; the file is written only after the commit, through a temporary
         file renamed into place, so a run killed at any moment never leaves a sheet naming a
         batch ID that was not recorded (the ID would go to the next batch).
+    corrects : str, optional
+        The batch this one corrects (a corrected plan): kept in the plan as ``corrects_batch``
+        and named on the sheet with the calibration state used.
 
     Returns
     -------
     RecordedBatch
     """
     from phantomlab import __version__
+    from phantomlab.recalibration import describe_potencies_from, potencies_from
     from phantomlab.recipe.sheet import render_sheet_html  # layer 3
     from phantomlab.store import (  # layer 4
         add_batch,
+        get_batch,
         latest_potency_states,
         next_batch_code,
         record_recipe,
@@ -290,7 +315,18 @@ def record_planned_batch(
         }
         recipe_row = record_recipe(session, recipe, recorded_by=operator)
         code = next_batch_code(session)
-        sheet_html = render_sheet_html(plan, batch_id=code, draft=False)
+        calibrated = {d.stock: d.potency for d in plan.doses if d.potency_source == "calibrated"}
+        source = potencies_from(session, recipe, calibrated)
+        corrected = None
+        if corrects is not None:
+            corrected = get_batch(session, corrects).code
+        plan_json["potencies_from"] = source
+        if corrected is not None:
+            plan_json["corrects_batch"] = corrected
+        note = describe_potencies_from(source).capitalize()
+        if corrected is not None:
+            note = f"Corrects batch {corrected}; {describe_potencies_from(source)}"
+        sheet_html = render_sheet_html(plan, batch_id=code, draft=False, note=note)
         potencies_used = {
             dose.stock: {
                 "potency": dose.potency, "potency_sd": dose.potency_sd, "lot": dose.lot,
@@ -324,7 +360,7 @@ def record_planned_batch(
               if not any(item["stock"] in w and item["expiry"].isoformat() in w for w in plan.warnings)]
     return RecordedBatch(code=code, status=status, plan_json=plan_json, potencies_used=potencies_used,
                          lots=lot_names, expired_lots=expired, sheet_html=sheet_html, sheet_path=target,
-                         notes=unsaid)
+                         notes=unsaid, potencies_from=source, corrects_batch=corrected)
 
 
 # ---- what was dispensed -------------------------------------------------------------------------
@@ -660,6 +696,26 @@ def keep_fit(store, measurement_id: int, result, *, recorded_by: str | None = No
         return _add_fit(session, get_measurement(session, measurement_id), result, recorded_by=recorded_by)
 
 
+def fit_verdict(store_or_session, code: str, fit_json: Mapping[str, Any] | None):
+    """PASS, FAIL or UNDECIDED of a batch's fitted optics against its recipe's tolerances.
+
+    The one rule of :func:`phantomlab.calibration.verdict.judge` (the batch record uses it too),
+    against the target and tolerances of the batch's stored plan.
+
+    Returns
+    -------
+    phantomlab.calibration.verdict.Verdict
+    """
+    from phantomlab.calibration.verdict import judge  # layer 3
+    from phantomlab.store import get_batch, plan_of  # layer 4
+
+    if hasattr(store_or_session, "reading"):
+        with store_or_session.reading() as session:
+            return fit_verdict(session, code, fit_json)
+    plan = plan_of(store_or_session, get_batch(store_or_session, code)).plan
+    return judge(target=plan.get("target") or {}, values=fit_json)
+
+
 def _add_fit(session, measurement, result, *, recorded_by: str | None) -> int:
     from phantomlab.store import add_fit  # layer 4
 
@@ -709,137 +765,6 @@ def _geometry(measurement, options: Mapping[str, Any]) -> dict[str, Any] | None:
     if not geometry.get("reference"):
         geometry.pop("reference", None)
     return to_jsonable(geometry) or None
-
-
-# ---- recalibration --------------------------------------------------------------------------------
-
-
-def batch_volume_fractions(batch, plan: dict, recipe) -> tuple[dict[str, float], str]:
-    """Volume fractions actually dispensed (recorded amounts), else the planned ones."""
-    if batch.actual_amounts:
-        fractions = {row["stock"]: float(row["volume_fraction"]) for row in batch.actual_amounts
-                     if row.get("stock") in recipe.stock_keys and row.get("volume_fraction") is not None}
-        if fractions:
-            return fractions, "actual"
-    fractions = {d["stock"]: float(d["volume_fraction"]) for d in plan.get("doses", [])
-                 if d.get("stock") in recipe.stock_keys}
-    return fractions, "planned"
-
-
-def gather_history(session, *, recipe_override: str | Path | None = None) -> dict[str, Any]:
-    """Priors and observations of every mixed batch with fits in the log.
-
-    Returns
-    -------
-    dict
-        ``priors`` (list of PotencyPrior), ``observations`` (list of BatchObservation),
-        ``fit_ids``, ``batches`` ({code: "actual"|"planned"}), ``skipped`` (list of str),
-        ``latest_lot`` ({stock: lot of the newest batch}).
-    """
-    from phantomlab.calibration.observations import observation_from_fit  # layer 3
-    from phantomlab.calibration.potency import PotencyPrior
-    from phantomlab.store import batch_lots, fits_of, list_batches, measurements_of, plan_of, recipe_of
-
-    priors: dict[tuple, PotencyPrior] = {}
-    observations, fit_ids, skipped = [], [], []
-    used: dict[str, str] = {}
-    latest_lot: dict[str, str | None] = {}
-    for batch in list_batches(session):
-        if batch.status not in ("mixed", "characterised", "retired"):
-            continue
-        fits = []
-        for measurement in measurements_of(session, batch):
-            rows = fits_of(session, measurement)
-            if rows:
-                fits.append(max(rows, key=lambda r: (r.recorded_at, r.id)))
-        if not fits:
-            continue
-        try:
-            recipe, _notes = batch_recipe_file(recipe_of(session, batch), recipe_override)
-        except InputError as exc:
-            skipped.append(f"batch {batch.code}: {exc}")
-            continue
-        plan = plan_of(session, batch).plan
-        fractions, source = batch_volume_fractions(batch, plan, recipe)
-        lot_rows = batch_lots(session, batch)
-        lots = {}
-        for key in recipe.stock_keys:
-            row = lot_rows.get(key)
-            stock = recipe.stock(key)
-            lot = row.lot if row is not None else stock.lot
-            lot = None if lot in (None, "") else str(lot)
-            lots[key] = lot
-            latest_lot[key] = lot
-            if (key, lot) not in priors:
-                potency = row.potency_prior if row is not None and row.potency_prior is not None else stock.potency
-                sd = row.potency_sd_prior if row is not None and row.potency_sd_prior else stock.potency_sd
-                priors[(key, lot)] = PotencyPrior(stock=key, lot=lot, potency=float(potency), potency_sd=float(sd))
-        for fit in fits:
-            try:
-                observations.append(observation_from_fit(
-                    recipe, batch_id=batch.code, volume_fractions=fractions, fit=fit.results, lots=lots))
-            except InputError as exc:
-                skipped.append(f"batch {batch.code} fit {fit.id}: {exc}")
-                continue
-            fit_ids.append(fit.id)
-            used[batch.code] = source
-    return {"priors": list(priors.values()), "observations": observations, "fit_ids": fit_ids,
-            "batches": used, "skipped": skipped, "latest_lot": latest_lot}
-
-
-@dataclass(frozen=True)
-class Recalibration:
-    """The potency update from the whole log and what was stored of it."""
-
-    update: Any  # phantomlab.calibration.PotencyUpdate
-    payload: dict  # update.to_json() with ``stocks`` = the stored potencies, plus the extras below
-    state_id: int | None  # None on a dry run
-    skipped: list
-
-
-def recalibrate(store, *, recipe_override: str | Path | None = None, dry_run: bool = False,
-                recorded_by: str | None = None) -> Recalibration:
-    """Estimate every stock lot's potency from the whole batch log; store one calibration state.
-
-    One potency per stock key is stored: that of the lot of the newest batch (an older lot's
-    estimate is shown, not stored).  Gathering, update and write are ONE transaction.
-
-    Returns
-    -------
-    Recalibration
-        ``payload`` holds ``stocks`` {KEY: {potency, potency_sd, lot}} and ``before``,
-        ``after``, ``moved_by``, ``lots``, ``fit_ids``, ``batches``, ``skipped``,
-        ``calibration_state_id``, ``dry_run``, ``chi2_red``.
-    """
-    from phantomlab.calibration import update_potencies  # layer 3
-    from phantomlab.store import record_calibration  # layer 4
-
-    with store.transaction() as session:
-        history = gather_history(session, recipe_override=recipe_override)
-        if not history["observations"]:
-            raise InputError(
-                "no mixed batch with a fitted measurement in the batch log; record the amounts dispensed "
-                "and attach a measurement first"
-                + (f" ({'; '.join(history['skipped'])})" if history["skipped"] else "")
-            )
-        update = update_potencies(history["priors"], history["observations"])
-        payload = update.to_json()
-        stored = {}
-        for k, (key, lot) in enumerate(update.stocks):
-            if history["latest_lot"].get(key) == lot:
-                stored[key] = (float(update.potency[k]), float(update.potency_sd[k]), lot)
-                payload["stocks"][key] = {"potency": stored[key][0], "potency_sd": stored[key][1], "lot": lot}
-        state_id = None
-        if not dry_run:
-            state = record_calibration(
-                session, potencies=stored, method=METHOD, recorded_by=recorded_by,
-                computed_from={"batches": history["batches"], "fit_ids": history["fit_ids"],
-                               "moved_by": payload["moved_by"], "lots": payload["lots"]},
-            )
-            state_id = state.id
-    payload.update({"fit_ids": history["fit_ids"], "batches": sorted(history["batches"]),
-                    "skipped": history["skipped"], "calibration_state_id": state_id, "dry_run": bool(dry_run)})
-    return Recalibration(update=update, payload=payload, state_id=state_id, skipped=list(history["skipped"]))
 
 
 # ---- correction -------------------------------------------------------------------------------------
@@ -931,3 +856,14 @@ def top_up_batch(store, code: str, recipe, *, current_volume_ml: float | None = 
                     max_added_ml=max_added_ml)
     return TopUpOfBatch(code=code, result=result, fit_id=fit_id, measurement_id=measurement_id,
                         file_name=file_name, current_volume_ml=float(volume), potencies=potencies)
+
+
+# ---- the calibration workflows live in their own module (re-exported for the callers) ---------
+
+from phantomlab.recalibration import (  # noqa: E402  (after the definitions it imports lazily)
+    METHOD,
+    Recalibration,
+    batch_volume_fractions,
+    gather_history,
+    recalibrate,
+)

@@ -35,7 +35,9 @@ RULE = (f"PASS when |deviation| + {GUARD_K:g} SD <= tolerance, FAIL when |deviat
 
 
 def _values(sequence) -> np.ndarray:
-    return np.asarray([np.nan if v is None else v for v in (sequence or [])], dtype=float)
+    if sequence is None:
+        return np.array([], dtype=float)
+    return np.asarray([np.nan if v is None else v for v in sequence], dtype=float)
 
 
 def on_grid(values: Mapping[str, Any] | None, key: str, grid: np.ndarray) -> np.ndarray:

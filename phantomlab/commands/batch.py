@@ -1,6 +1,6 @@
 """``phantomlab batch ...``: the batch log at the bench (layer 5: input and output, no physics).
 
-    phantomlab batch add RECIPE.toml [--sheet FILE.html] [--operator NAME] [--notes TEXT]
+    phantomlab batch add RECIPE.toml [--sheet FILE.html] [--operator NAME] [--notes TEXT] [--corrects BATCH_ID]
     phantomlab batch actual BATCH_ID AMOUNTS.csv [--mixed-on DATE] [--cure TEXT] ...
     phantomlab batch status BATCH_ID STATUS [--note TEXT]
     phantomlab batch measure BATCH_ID FILE.csv --kind {srdr,sfdi,slab,sphere,optics} [...]
@@ -10,11 +10,14 @@
     phantomlab batch retract BATCH_ID --reason TEXT
     phantomlab batch amend BATCH_ID --reason TEXT [--set-operator NAME] [--set-notes TEXT] ...
     phantomlab batch export FILE.zip
+    phantomlab batch exclude BATCH_ID [--measurement ID] --reason TEXT
+    phantomlab batch include BATCH_ID [--measurement ID] [--reason TEXT]
 
 Every sub-command takes ``--db URL`` (default ``$PHANTOMLAB_DB``, else ``phantomlab.sqlite``
 in the working folder) and ``--json``, and runs in ONE database transaction.  ``add``,
-``actual`` and ``measure`` are the workflows of :mod:`phantomlab.workflows` (the page calls
-the same functions); this module reads the options and files and prints what comes back.
+``actual`` and ``measure`` are the workflows of :mod:`phantomlab.workflows`, ``exclude`` and
+``include`` those of :mod:`phantomlab.recalibration` (the page calls the same functions); this
+module reads the options and files and prints what comes back.
 """
 
 from __future__ import annotations
@@ -53,6 +56,8 @@ def register(subparsers) -> None:
     add.add_argument("--sheet", metavar="FILE.html", help="write the mixing sheet (with the batch ID) here")
     add.add_argument("--operator", metavar="NAME", help="who makes the batch")
     add.add_argument("--notes", metavar="TEXT", help="free notes kept with the batch")
+    add.add_argument("--corrects", metavar="BATCH_ID",
+                     help="the batch this one corrects (named on the sheet and in the batch record)")
 
     actual = actions.add_parser("actual", help="record the amounts really dispensed and predict what was made")
     actual.add_argument("batch_id", metavar="BATCH_ID")
@@ -115,9 +120,22 @@ def register(subparsers) -> None:
     export = actions.add_parser("export", help="the whole lab as one archive (zip of JSON and CSV)")
     export.add_argument("archive", metavar="FILE.zip")
 
+    exclude = actions.add_parser("exclude", help="leave a batch (or one measurement) out of the calibration")
+    exclude.add_argument("batch_id", metavar="BATCH_ID")
+    exclude.add_argument("--measurement", type=int, metavar="ID", help="only this measurement of the batch")
+    exclude.add_argument("--reason", required=True, metavar="TEXT", help="why (kept in the history)")
+    exclude.add_argument("--operator", metavar="NAME")
+
+    include = actions.add_parser("include", help="take an excluded batch (or measurement) into the calibration again")
+    include.add_argument("batch_id", metavar="BATCH_ID")
+    include.add_argument("--measurement", type=int, metavar="ID", help="only this measurement of the batch")
+    include.add_argument("--reason", metavar="TEXT", help="why (kept in the history)")
+    include.add_argument("--operator", metavar="NAME")
+
     handlers = {
         add: _add, actual: _actual, status: _status, measure: _measure, listing: _list,
         show: _show, record: _record, retract: _retract, fix: _correct, export: _export,
+        exclude: _exclude, include: _include,
     }
     for parser, handler in handlers.items():
         add_db_option(parser)
@@ -128,7 +146,8 @@ def register(subparsers) -> None:
 
 def _no_action(args) -> CommandResult:
     raise InputError(
-        "batch: give an action: add, actual, status, measure, list, show, record, retract, amend, export"
+        "batch: give an action: add, actual, status, measure, list, show, record, retract, amend, export, "
+        "exclude, include"
     )
 
 
@@ -186,7 +205,7 @@ def _add(args) -> CommandResult:
     try:
         plan = plan_batch(store, recipe)
         recorded = record_planned_batch(store, plan, operator=args.operator, notes=args.notes,
-                                        sheet_path=sheet_path)
+                                        sheet_path=sheet_path, corrects=args.corrects)
     finally:
         store.close()
     for message in recorded.notes:
@@ -201,8 +220,15 @@ def _add(args) -> CommandResult:
         "expired_lots": recorded.expired_lots,
         "sheet": str(sheet_path) if sheet_path else None,
         "warnings": list(plan.warnings),
+        "potencies_from": recorded.potencies_from,
+        "corrects_batch": recorded.corrects_batch,
     }
-    lines = [f"batch {code} planned from {recipe.name} (version {recipe.version}), status planned"]
+    from phantomlab.recalibration import describe_potencies_from
+
+    lines = [f"batch {code} planned from {recipe.name} (version {recipe.version}, hash "
+             f"{recipe.content_hash[:12]}), status planned; {describe_potencies_from(recorded.potencies_from)}"]
+    if recorded.corrects_batch:
+        lines.append(f"corrects batch {recorded.corrects_batch}")
     for dose in plan_json["doses"]:
         lines.append(
             f"  {dose['stock']:<12} lot {dose.get('lot') or '-':<18} {_fmt(dose['volume_ml'])} mL"
@@ -341,10 +367,12 @@ def _measure(args) -> CommandResult:
     if fit_note:
         warnings.warn(fit_note, PhantomlabWarning, stacklevel=2)
     code, age, fit_json, fit_id = done.code, done.phantom_age_days, done.fit_json, done.fit_id
+    verdict = _verdict(args, code, fit_json)
     payload = {"batch_id": code, "measurement_id": done.measurement_id, "fit": fit_json,
                "fit_id": fit_id, "fit_ran": fit_json is not None, "kind": args.kind,
                "file": path.name, "measured_on": done.measured_on, "phantom_age_days": age,
-               "batch_status": done.batch_status}
+               "batch_status": done.batch_status,
+               "verdict": verdict.to_json() if verdict is not None else None}
     lines = [f"batch {code}: measurement {done.measurement_id} ({args.kind}, {path.name}) stored"
              + (f", phantom age {age:g} days" if age is not None else "")]
     if fit_json is not None:
@@ -354,10 +382,56 @@ def _measure(args) -> CommandResult:
                          f"   mus' {_fmt(fit_json['musp_per_mm'][i])} ± {_fmt(fit_json['musp_sd_per_mm'][i], 2)} /mm")
     else:
         lines.append(fit_note)
+    if verdict is not None:
+        lines.append("against the recipe's tolerances (PASS/FAIL at 2 SD of the fit):")
+        lines += verdict.lines(what="measured")
     if done.batch_status == "mixed":
         lines.append(f"when characterisation is complete: phantomlab batch status {code} characterised")
     return CommandResult(payload=payload, text="\n".join(lines))
 
+
+
+def _verdict(args, code: str, fit_json):
+    """The batch's verdict from this fit (:func:`phantomlab.workflows.fit_verdict`), or None."""
+    if fit_json is None:
+        return None
+    from phantomlab.workflows import fit_verdict
+
+    store = _open(args)
+    try:
+        return fit_verdict(store, code, fit_json)
+    finally:
+        store.close()
+
+
+# ---- exclude, include ------------------------------------------------------------------------
+
+
+def _exclude(args) -> CommandResult:
+    from phantomlab.recalibration import exclude_batch
+
+    store = _open(args)
+    try:
+        done = exclude_batch(store, args.batch_id, measurement_id=args.measurement, reason=args.reason,
+                             recorded_by=args.operator)
+    finally:
+        store.close()
+    what = f"measurement {done['measurement_id']} of batch" if done["measurement_id"] else "batch"
+    return CommandResult(payload=done, text=f"{what} {done['batch_id']} left out of the calibration: {done['reason']}"
+                         "\n(phantomlab recalibrate previews the result; --apply records it)")
+
+
+def _include(args) -> CommandResult:
+    from phantomlab.recalibration import include_batch
+
+    store = _open(args)
+    try:
+        done = include_batch(store, args.batch_id, measurement_id=args.measurement, reason=args.reason,
+                             recorded_by=args.operator)
+    finally:
+        store.close()
+    what = f"measurement {done['measurement_id']} of batch" if done["measurement_id"] else "batch"
+    return CommandResult(payload=done, text=f"{what} {done['batch_id']} is in the calibration again: {done['reason']}")
 
 
 # ---- list, show ------------------------------------------------------------------------------
@@ -412,7 +486,7 @@ def _version_json(row) -> dict[str, Any]:
 
 
 def _show(args) -> CommandResult:
-    from phantomlab.store import batch_history, batch_lots, fits_of, get_batch, measurements_of, plan_of
+    from phantomlab.store import batch_history, batch_lots, exclusion_history, fits_of, get_batch, measurements_of, plan_of
     from phantomlab.store.history import history_of
     from phantomlab.store.schema import Measurement
 
@@ -423,6 +497,7 @@ def _show(args) -> CommandResult:
             plan_row = plan_of(session, batch)
             summary = _batch_summary(session, batch)
             history = [_version_json(v) for v in batch_history(session, batch.code)]
+            exclusions = exclusion_history(session, batch.code)
             lots = {key: {"lot": lot.lot, "kind": lot.kind, "expiry": lot.expiry,
                           "snapshot_version": lot.version, "definition_sha256": lot.definition_sha256}
                     for key, lot in batch_lots(session, batch).items()}
@@ -444,6 +519,10 @@ def _show(args) -> CommandResult:
                 "alarms": batch.actual_alarms or [], "matrix_details": batch.matrix_details,
                 "cure_details": batch.cure_details, "notes": batch.notes,
                 "measurements": measurements, "history": history,
+                "calibration_exclusions": exclusions,
+                "excluded_from_calibration": bool(exclusions) and exclusions[-1]["event"].startswith("excluded"),
+                "corrects_batch": plan_row.plan.get("corrects_batch"),
+                "potencies_from": plan_row.plan.get("potencies_from"),
             }
     finally:
         store.close()
@@ -457,10 +536,14 @@ def _show(args) -> CommandResult:
     for alarm in payload["alarms"]:
         lines.append(f"  {alarm}")
     lines.append("history:")
-    for v in history:
-        lines.append(f"  v{v['version']}  {v['recorded_at']:%Y-%m-%d %H:%M}  {v['status']:<13}"
-                     f"{' retracted' if v['retracted'] else ''}  {v['change_note'] or 'recorded'}"
-                     f"{' by ' + v['recorded_by'] if v['recorded_by'] else ''}")
+    events = [(v["recorded_at"], f"  v{v['version']}  {v['recorded_at']:%Y-%m-%d %H:%M}  {v['status']:<13}"
+                                 f"{' retracted' if v['retracted'] else ''}  {v['change_note'] or 'recorded'}"
+                                 f"{' by ' + v['recorded_by'] if v['recorded_by'] else ''}") for v in history]
+    for step in exclusions:
+        what = f"measurement {step['measurement_id']} " if step["measurement_id"] else ""
+        events.append((step["recorded_at"], f"      {step['recorded_at']:%Y-%m-%d %H:%M}  {what}{step['event']}: "
+                                            f"{step['reason']}{' by ' + step['recorded_by'] if step['recorded_by'] else ''}"))
+    lines += [text for _when, text in sorted(events, key=lambda item: item[0])]
     return CommandResult(payload=payload, text="\n".join(lines))
 
 
@@ -479,8 +562,9 @@ def _record(args) -> CommandResult:
         store.close()
     _write(target, render_batch_record_html(record), option="--html")
     payload = {"batch_id": record["batch_id"], "html": str(target), "pass": record["pass"],
-               "checks": record["checks"], "series": record["series"]}
-    verdict = {True: "PASS", False: "FAIL", None: "not measured yet"}[record["pass"]]
+               "outcome": record["outcome"], "checks": record["checks"], "series": record["series"],
+               "corrects_batch": record.get("corrects_batch"), "calibration": record.get("calibration")}
+    verdict = record["outcome"] or "not measured yet"
     return CommandResult(payload=payload, text=f"batch record of {record['batch_id']} written to {target}: {verdict}")
 
 

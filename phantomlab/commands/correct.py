@@ -4,8 +4,13 @@
     phantomlab correct BATCH_ID --top-up [--volume-ml V] [--max-added-ml V] [--db URL] [--json]
 
 Without ``--top-up``: the batch's recipe planned again with the newest calibrated potencies
-of the lots on the shelf (``phantomlab recalibrate`` makes them); JSON: the ``plan`` keys of
-docs/contract.md plus ``after_batch`` and ``potencies_used``.
+of the lots on the shelf (``phantomlab recalibrate --apply`` records them): the doses, the
+predicted μa and μs′ of the next batch ± SD at every target wavelength, and its ``verdict``
+against the recipe's tolerances (PASS/FAIL/UNDECIDED at 2 SD of the prediction, the rule of
+:mod:`phantomlab.calibration.verdict`).  JSON: the ``plan`` keys of docs/contract.md plus
+``after_batch``, ``potencies_used``, ``potencies_from`` and ``verdict``.  The sheet (a draft)
+names the batch it corrects and the calibration state; ``batch add RECIPE --corrects
+BATCH_ID`` logs it.
 
 The work is :mod:`phantomlab.workflows` (``next_batch_plan``, ``top_up_batch``), as on the page.
 
@@ -47,8 +52,11 @@ def register(subparsers) -> None:
     parser.set_defaults(handler=_correct)
 
 
-def _plan_text(plan_json: dict, batch_id: str) -> str:
-    lines = [f"corrected plan after batch {batch_id} ({plan_json.get('recipe')}), calibrated potencies:"]
+def _plan_text(plan_json: dict, batch_id: str, verdict) -> str:
+    from phantomlab.recalibration import describe_potencies_from
+
+    lines = [f"corrected plan after batch {batch_id} ({plan_json.get('recipe')}); "
+             f"{describe_potencies_from(plan_json.get('potencies_from'))}:"]
     for key, value in plan_json.get("potencies_used", {}).items():
         lines.append(f"  {key:<14} potency {value[0]:.3f} ± {value[1]:.3f}")
     lines.append("doses (undiluted stock in the final mix):")
@@ -56,8 +64,12 @@ def _plan_text(plan_json: dict, batch_id: str) -> str:
         lines.append(f"  {dose['stock']:<14} {dose['volume_ml']:.5g} mL  ({dose['mass_g']:.5g} g, "
                      f"volume fraction {dose['volume_fraction']:.4g})")
     predicted = plan_json["predicted"]
+    lines.append("predicted next batch (± SD from the potencies and the dispensing):")
     for i, w in enumerate(predicted["wavelength_nm"]):
-        lines.append(f"  {w:g} nm  mua {predicted['mua_per_mm'][i]:.4g} /mm   mus' {predicted['musp_per_mm'][i]:.4g} /mm")
+        lines.append(f"  {w:g} nm  mua {predicted['mua_per_mm'][i]:.4g} ± {predicted['mua_sd_per_mm'][i]:.2g} /mm   "
+                     f"mus' {predicted['musp_per_mm'][i]:.4g} ± {predicted['musp_sd_per_mm'][i]:.2g} /mm")
+    lines.append("against the recipe's tolerances (PASS/FAIL at 2 SD of the prediction):")
+    lines += verdict.lines(what="predicted")
     return "\n".join(lines)
 
 
@@ -78,6 +90,7 @@ def _top_up_text(payload: dict) -> str:
 
 
 def _correct(args) -> CommandResult:
+    from phantomlab.recalibration import potencies_from
     from phantomlab.store import get_batch, open_store, recipe_of
     from phantomlab.workflows import batch_recipe_file, next_batch_plan, top_up_batch
 
@@ -96,18 +109,27 @@ def _correct(args) -> CommandResult:
                                 max_added_ml=args.max_added_ml)
         else:
             plan, usable = next_batch_plan(store, recipe)
+            with store.reading() as session:
+                source = potencies_from(session, recipe, usable)
     finally:
         store.close()
     if not args.top_up:
+        from phantomlab.calibration.verdict import judge
+        from phantomlab.recalibration import describe_potencies_from
+
         payload = dict(plan.to_json())
         payload["after_batch"] = code
         payload["potencies_used"] = {k: [v[0], v[1]] for k, v in usable.items()}
+        payload["potencies_from"] = source
+        verdict = judge(target=payload["target"], values=payload["predicted"])
+        payload["verdict"] = verdict.to_json()
         if args.sheet:
             from phantomlab.recipe.sheet import render_sheet_html
 
-            write_text_atomically(Path(args.sheet), render_sheet_html(plan, draft=True), what="--sheet")
+            note = f"Corrects batch {code}; {describe_potencies_from(source)}"
+            write_text_atomically(Path(args.sheet), render_sheet_html(plan, draft=True, note=note), what="--sheet")
             payload["sheet"] = args.sheet
-        return CommandResult(payload=payload, text=_plan_text(payload, code))
+        return CommandResult(payload=payload, text=_plan_text(payload, code, verdict))
     payload = done.result.to_json()
     payload.update({"batch_id": code, "fit_id": done.fit_id,
                     "potencies_used": {k: [v[0], v[1]] for k, v in done.potencies.items()}})

@@ -5,9 +5,15 @@
                                 [--series-volume-ml V | --series-mass-g M] [...]
 
 The JSON object has the stable keys of docs/contract.md (``recipe``, ``batch_volume_ml``,
-``doses``, ``predicted``, ``target``, ``warnings``) plus extras.  ``--db`` takes the calibrated
-potencies of the lots on the shelf from the batch log.  A sheet written here is a draft
-("DRAFT — not a logged batch"); ``phantomlab batch add`` prints the logged one.
+``doses``, ``predicted``, ``target``, ``warnings``) plus extras, among them ``recipe_hash`` (the one
+canonical hash ``batch add`` records) and ``potencies_from``: ``"stock file"`` or
+``{"state_id", "recorded_at", "restores_state_id"}``.  When a batch log is in reach —
+``--db URL``, else ``$PHANTOMLAB_DB``, else ``phantomlab.sqlite`` in the working folder when
+that file exists — the plan takes the calibrated potencies of the lots on the shelf from it,
+exactly as ``batch add`` does (same doses, same hash); ``plan`` never creates a database
+file, so without one a draft from the recipe and stock file alone stays possible.  A sheet
+written here is a draft ("DRAFT — not a logged batch"); ``phantomlab batch add`` prints the
+logged one.
 With ``--series``, a calibration series of one stock is planned instead (level 0 is the base).
 """
 
@@ -44,21 +50,38 @@ def register(subparsers) -> None:
     parser.set_defaults(handler=handle)
 
 
-def _calibrated(recipe, url):
-    if url is None:
-        return None, None
-    from phantomlab.store import latest_potencies, open_store  # layer 4
-    from phantomlab.store.engine import resolve_url, sqlite_file
+def _batch_log_url(url: str | None) -> tuple[str | None, str | None]:
+    """The batch log in reach, and a note when an implicit one is missing (never creates one)."""
+    import os
 
-    missing = sqlite_file(resolve_url(url))
-    if missing is not None and not missing.exists():
-        return {}, None  # no log yet: nothing calibrated, and no database file is created
-    store = open_store(url)
+    from phantomlab.store.engine import DEFAULT_URL, ENV_VARIABLE, resolve_url, sqlite_file  # layer 4
+
+    explicit = url is not None
+    chosen = resolve_url(url)
+    database = sqlite_file(chosen)
+    if database is None or database.exists():
+        return chosen, None
+    if explicit or (os.environ.get(ENV_VARIABLE) and chosen != resolve_url(DEFAULT_URL)):
+        where = "--db" if explicit else f"${ENV_VARIABLE}"
+        return None, (f"no batch log at {str(database)!r} ({where}) yet: potencies from the stock file "
+                      "(plan reads a batch log, it never creates one)")
+    return None, None
+
+
+def _calibrated(recipe, url):
+    """``(potencies, potencies_from, note)`` — from the batch log in reach, else the stock file."""
+    found, note = _batch_log_url(url)
+    if found is None:
+        return None, "stock file", note
+    from phantomlab.store import open_store  # layer 4
+    from phantomlab.workflows import plan_potencies
+
+    store = open_store(found, create=False)
     try:
-        potencies = latest_potencies(store, shelf=recipe.shelf)
+        potencies, source = plan_potencies(store, recipe)
     finally:
         store.close()
-    return potencies, store
+    return potencies, source, note
 
 
 def _write(path: str, text: str) -> str:
@@ -72,21 +95,31 @@ def handle(args) -> CommandResult:
     from phantomlab.recipe.sheet import render_sheet_csv, render_sheet_html
 
     recipe = load_recipe(args.recipe)
-    potencies, _ = _calibrated(recipe, args.db)
+    potencies, source, note = _calibrated(recipe, args.db)
+    if note:
+        import warnings
+
+        from phantomlab.errors import PhantomlabWarning
+
+        warnings.warn(note, PhantomlabWarning, stacklevel=2)
     if args.series is None:
         for name in ("levels", "low", "high", "series_volume_ml", "series_mass_g"):
             if getattr(args, name) is not None:
                 raise InputError(f"--{name.replace('_', '-')} needs --series STOCK_KEY")
         plan = solve(recipe, potencies=potencies)
         payload = plan.to_json()
-        payload["potencies_from"] = "batch log" if args.db else "stock file"
+        payload["potencies_from"] = source
+        payload["recipe_hash"] = recipe.content_hash
         written = []
         if args.sheet:
-            written.append(_write(args.sheet, render_sheet_html(plan, draft=True)))
+            from phantomlab.recalibration import describe_potencies_from
+
+            note = describe_potencies_from(source).capitalize() if source != "stock file" else None
+            written.append(_write(args.sheet, render_sheet_html(plan, draft=True, note=note)))
         if args.csv:
             written.append(_write(args.csv, render_sheet_csv(plan, draft=True)))
         payload["sheet_files"] = written
-        return CommandResult(payload=payload, text=_summary(plan, written, args.db))
+        return CommandResult(payload=payload, text=_summary(plan, written, source))
 
     from phantomlab.recipe.calibration_series import plan_series
     from phantomlab.recipe.sheet import render_series_html
@@ -95,6 +128,8 @@ def handle(args) -> CommandResult:
                          batch_volume_ml=args.series_volume_ml, batch_mass_g=args.series_mass_g,
                          potencies=potencies)
     payload = series.to_json()
+    payload["potencies_from"] = source
+    payload["recipe_hash"] = recipe.content_hash
     written = []
     if args.sheet:
         written.append(_write(args.sheet, render_series_html(series)))
@@ -113,15 +148,17 @@ def _amount(value: float, unit: str) -> str:
     return format_amount(value, unit)
 
 
-def _summary(plan, written, db) -> str:
+def _summary(plan, written, source) -> str:
+    from phantomlab.recalibration import describe_potencies_from
+
     recipe = plan.recipe
     size = (f"{recipe.batch_mass_g:g} g (≈ {plan.batch_volume_ml:.4g} mL)" if recipe.by_mass
             else f"{recipe.batch_volume_ml:g} mL")
     lines = [
         f"plan: {recipe.name} (version {recipe.version}, hash {recipe.content_hash[:12]})",
         "DRAFT — not a logged batch (use 'phantomlab batch add' to log it)",
-        f"batch {size}; matrix {recipe.matrix_key} ({recipe.preparation.kind}); potencies from "
-        f"{'the batch log' if db else 'the stock file'}",
+        f"batch {size}; matrix {recipe.matrix_key} ({recipe.preparation.kind}); "
+        f"{describe_potencies_from(source)}",
         "",
         "doses (undiluted stock that ends in the batch):",
     ]

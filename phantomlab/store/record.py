@@ -223,6 +223,7 @@ def batch_record(session: Session, code: str) -> dict[str, Any]:
                    "record_version": recipe.version, "source_path": recipe.source_path},
         "software_version_at_planning": plan_row.software_version, "software_version_now": __version__,
         "lots": lots, "potencies_used": plan_row.potencies_used, "calibration": calibration,
+        "corrects_batch": plan.get("corrects_batch"), "potencies_from": plan.get("potencies_from"),
         "amounts": amounts, "planned_prediction": plan.get("predicted"),
         "actual_prediction": batch.actual_prediction, "alarms": batch.actual_alarms or [],
         "target": target, "plan_warnings": plan.get("warnings", []),
@@ -238,6 +239,12 @@ def batch_record(session: Session, code: str) -> dict[str, Any]:
                     for v in batch_history(session, batch.code)],
         "printed_on": today, "not_a_standard": NOT_A_STANDARD,
     }
+
+
+def _state_line(calibration: dict[str, Any] | None) -> str:
+    if not calibration:
+        return "none: the stock file's potencies"
+    return f"state {calibration['state_id']} of {_cell(calibration['recorded_at'])}"
 
 
 def _retracted_later(session: Session, state: CalibrationState) -> bool:
@@ -318,6 +325,8 @@ def render_batch_record_html(record: dict[str, Any]) -> str:
         _table(["field", "value"], [
             ["recipe", r["recipe"]["name"]], ["recipe version", r["recipe"]["version"]],
             ["recipe content hash", r["recipe"]["content_hash"]], ["status", r["status"]],
+            ["corrects batch", r.get("corrects_batch") or "–"],
+            ["calibration state used", _state_line(r.get("calibration"))],
             ["operator", r["operator"]], ["planned on", r["planned_on"]], ["mixed on", r["mixed_on"]],
             ["cure / setting", (r["cure_details"] or {}).get("schedule")],
             ["mixing temperature [°C]", (r["cure_details"] or {}).get("mixing_temperature_c")],

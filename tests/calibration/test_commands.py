@@ -77,8 +77,8 @@ def test_two_commands_from_measurement_to_corrected_plan(lab, tmp_path, capsys):
     code, out, err = _run(capsys, ["batch", "measure", batch_id, str(measurement), "--kind", "srdr", "--db", db,
                                    "--json"])
     assert code == 0, err
-    # command 1: recalibrate
-    code, out, err = _run(capsys, ["recalibrate", "--db", db, "--json"])
+    # command 1: recalibrate (recorded with --apply; the preview alone records nothing)
+    code, out, err = _run(capsys, ["recalibrate", "--apply", "--db", db, "--json"])
     assert code == 0, err
     calibration = json.loads(out)
     assert set(calibration["stocks"]) == set(truth)
@@ -106,6 +106,12 @@ def test_two_commands_from_measurement_to_corrected_plan(lab, tmp_path, capsys):
 
 
 def test_recalibrate_empty_log_refused(tmp_path, capsys):
+    code, out, err = _run(capsys, ["recalibrate", "--db", f"sqlite:///{tmp_path / 'empty.sqlite'}", "--json"])
+    assert code == 2 and "no batch log at" in err and err.count("\n") == 1  # and none is created
+    assert not (tmp_path / "empty.sqlite").exists()
+    from phantomlab.store import open_store
+
+    open_store(f"sqlite:///{tmp_path / 'empty.sqlite'}").close()
     code, out, err = _run(capsys, ["recalibrate", "--db", f"sqlite:///{tmp_path / 'empty.sqlite'}", "--json"])
     assert code == 2 and "no mixed batch with a fitted measurement" in err and err.count("\n") == 1
 

@@ -5,7 +5,9 @@ temporary folder, so the walk-through cannot drift from the commands; the other 
 what the loop computes.  The demo probe file `recipes/measurements/demo-nir-liquid-srdr.csv` was made (by the script
 beside it) from the demo recipe with invented "true" potencies lipid20 1.12, ink_black 0.80,
 dye_nir 1.10 and 1 % noise: recalibration must move the potencies towards those values, and
-the corrected plan must differ from the first in the direction that compensates.
+the corrected plan must differ from the first in the direction that compensates.  The preview
+records nothing; ``--apply`` does, and from then on ``plan`` and ``batch add`` give the same
+doses and the same recipe hash, and say which calibration state they used.
 """
 
 import json
@@ -50,13 +52,26 @@ def test_plan_log_dispense_measure_recalibrate_correct(tmp_path, capsys):
     assert measured["fit"]["model"] == "diffusion-kienle1997"
     assert len(measured["fit"]["wavelength_nm"]) == 5
 
-    calibrated = run(capsys, "recalibrate", "--db", db)["stocks"]
+    assert measured["verdict"]["outcome"] in ("PASS", "FAIL", "UNDECIDED")
+    assert len(measured["verdict"]["per_wavelength"]) == 10  # mua and musp at the 5 target wavelengths
+
+    preview = run(capsys, "recalibrate", "--db", db)
+    assert preview["applied"] is False and preview["state_id"] is None
+    assert run(capsys, "plan", RECIPE, "--db", db)["potencies_from"] == "stock file"  # nothing recorded
+    applied = run(capsys, "recalibrate", "--apply", "--db", db)
+    assert applied["applied"] is True and applied["stocks"] == preview["stocks"]
+    calibrated = applied["stocks"]
     # invented truth of the demo file (see the module docstring); the prior is 1.0 for each
     assert calibrated["lipid20"]["potency"] == pytest.approx(1.12, abs=0.04)
     assert calibrated["ink_black"]["potency"] == pytest.approx(0.80, abs=0.05)
     assert abs(calibrated["dye_nir"]["potency"] - 1.10) < abs(1.0 - 1.10)
 
     second = run(capsys, "plan", RECIPE, "--db", db)
+    assert second["potencies_from"]["state_id"] == applied["state_id"]
+    logged = run(capsys, "batch", "add", RECIPE, "--db", db, "--corrects", code)
+    assert [d["volume_ml"] for d in logged["doses"]] == [d["volume_ml"] for d in second["doses"]]
+    assert logged["recipe_hash"] == second["recipe_hash"] == first["recipe_hash"]
+    assert logged["potencies_from"] == second["potencies_from"] and logged["corrects_batch"] == code
     doses = {d["stock"]: d["volume_ml"] for d in second["doses"]}
     assert doses["lipid20"] < planned["lipid20"]  # stronger emulsion than the stock file said
     assert doses["ink_black"] > planned["ink_black"]  # weaker ink

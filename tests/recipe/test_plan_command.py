@@ -66,8 +66,10 @@ def test_plan_with_db_uses_calibrated_potency(capsys, tmp_path):
     code, out, _ = _run(capsys, "plan", NIR, "--db", url, "--json")
     assert code == 0
     payload = json.loads(out)
-    assert payload["potencies_from"] == "batch log"
-    assert all(d["potency_source"] == "shelf" for d in payload["doses"])  # empty log: the priors
+    assert payload["potencies_from"] == "stock file"  # no log there yet ...
+    assert not (tmp_path / "lab.sqlite").exists()  # ... and plan does not create one
+    assert any("no batch log at" in w for w in payload["warnings"])
+    assert all(d["potency_source"] == "shelf" for d in payload["doses"])  # the priors
     shelf = load_shelf(RECIPES / "demo-stocks.toml")
     assert [d["potency"] for d in payload["doses"]] == [shelf[d["stock"]].potency for d in payload["doses"]]
     before = {d["stock"]: d["volume_fraction"] for d in payload["doses"]}
@@ -78,9 +80,32 @@ def test_plan_with_db_uses_calibrated_potency(capsys, tmp_path):
                            computed_from={"test": "plan --db"}, method="test")
     store.close()
     code, out, _ = _run(capsys, "plan", NIR, "--db", url, "--json")
-    after = {d["stock"]: d for d in json.loads(out)["doses"]}
+    payload = json.loads(out)
+    after = {d["stock"]: d for d in payload["doses"]}
     assert after["ink_black"]["potency_source"] == "calibrated" and after["ink_black"]["potency"] == 0.5
     assert after["ink_black"]["volume_fraction"] > 1.5 * before["ink_black"]
+    assert payload["potencies_from"]["state_id"] == 1 and payload["potencies_from"]["recorded_at"]
+
+
+def test_plan_uses_the_default_batch_log_when_it_exists_and_never_creates_it(capsys, tmp_path, monkeypatch):
+    from phantomlab.materials import load_shelf
+    from phantomlab.store import open_store, record_calibration
+
+    monkeypatch.chdir(tmp_path)
+    monkeypatch.delenv("PHANTOMLAB_DB", raising=False)
+    code, out, _ = _run(capsys, "plan", NIR, "--json")
+    assert code == 0 and json.loads(out)["potencies_from"] == "stock file"
+    assert not (tmp_path / "phantomlab.sqlite").exists()
+    shelf = load_shelf(RECIPES / "demo-stocks.toml")
+    store = open_store(None)  # the default file, as batch add would make it
+    with store.transaction() as session:
+        record_calibration(session, potencies={"ink_black": (0.5, 0.02, shelf["ink_black"].lot)},
+                           computed_from={}, method="test")
+    store.close()
+    code, out, _ = _run(capsys, "plan", NIR, "--json")
+    payload = json.loads(out)
+    assert payload["potencies_from"]["state_id"] == 1
+    assert {d["stock"]: d["potency"] for d in payload["doses"]}["ink_black"] == 0.5
 
 
 def test_plan_series_json(capsys):

@@ -154,7 +154,7 @@ def test_a_batch_saved_on_the_page_names_the_calibration_state_as_batch_add_does
     _cli(capsys, "batch", "measure", first["batch_id"], measurement, "--kind", "optics", "--db", db)
     store = open_store(db)
     try:
-        calibration = recalibrate(store)
+        calibration = recalibrate(store, apply=True)
         by_page = record_planned_batch(store, plan_batch(store, load_recipe(RECIPE)))
     finally:
         store.close()
@@ -229,7 +229,7 @@ t = plan.target
 text = "wavelength_nm,mua_per_mm,musp_per_mm\\n" + "".join(
     f"{{x}},{{a}},{{s}}\\n" for x, a, s in zip(t.wavelength_nm, t.mua_per_mm, t.musp_per_mm) if a == a and s == s)
 w.attach_measurement(store, code, kind="optics", file_name="m.csv", raw_content=text.encode())
-w.recalibrate(store)
+w.recalibrate(store, apply=True)
 w.next_batch_plan(store, recipe)
 store.close()
 bad = sorted(m for m in sys.modules if m == "streamlit" or m.startswith(("phantomlab.ui", "phantomlab.cli",
