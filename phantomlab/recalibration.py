@@ -34,6 +34,7 @@ __all__ = [
     "calibration_list",
     "describe_potencies_from",
     "exclude_batch",
+    "exclusions_in_force",
     "gather_history",
     "include_batch",
     "potencies_from",
@@ -310,6 +311,12 @@ def include_batch(store, code: str, *, measurement_id: int | None = None, reason
                                      recorded_by=recorded_by)
         return {"batch_id": batch.code, "measurement_id": row.measurement_id, "excluded": False,
                 "reason": row.change_note, "version": row.version, "recorded_at": row.recorded_at}
+
+
+def exclusions_in_force(store) -> list[dict[str, Any]]:
+    """The batches and measurements left out of the calibration now, with their reasons."""
+    with store.reading() as session:
+        return to_jsonable(_excluded(session)[2])
 
 
 # ---- states and rollback -------------------------------------------------------------------------

@@ -6,7 +6,8 @@
   used it (on average over their wavelengths, at the prior potencies), and
 * ``mua_legendre`` when it gives at least :data:`MIN_SHARE` of their μa above the matrix,
 
-and only when at least :data:`MIN_BATCHES` batches used it and their fits cover at least
+and only when at least :data:`MIN_BATCHES` batches used it (a shape seen in one or two
+measurements may be theirs, not the lot's) and their fits cover at least
 :data:`MIN_WAVELENGTHS` wavelengths.  Candidates are added one at a time (forward selection),
 each time the one that lowers the quasi-likelihood Bayesian information criterion the most,
 
@@ -15,7 +16,7 @@ each time the one that lowers the quasi-likelihood Bayesian information criterio
 (Schwarz 1978, Ann. Stat. 6:461; the overdispersion ĉ = max(1, χ²ᵣ) of the model holding every
 candidate divides χ², as in the quasi-likelihood criteria of Burnham & Anderson 2002, *Model
 Selection and Multimodel Inference*, 2nd ed., sec. 6.2; k counts shape coefficients, n data
-values), while it lowers QBIC by more than :data:`MIN_QBIC_DROP` ("positive evidence", Kass &
+values), while it lowers QBIC by more than :data:`MIN_QBIC_DROP` ("strong evidence", Kass &
 Raftery 1995, J. Am. Stat. Assoc. 90:773, sec. 3.2) AND the data are informative about the
 new coefficients: their posterior SD at most :data:`MAX_SD_RATIO` of the prior SD and their
 correlation with the lot's level below :data:`MAX_CORRELATION` in magnitude (identifiability).
@@ -52,9 +53,9 @@ __all__ = ["MIN_SHARE", "MIN_BATCHES", "MIN_WAVELENGTHS", "MIN_QBIC_DROP", "MAX_
            "MAX_CORRELATION", "OUTLIER_Z", "Calibration", "candidates", "select_extensions", "find_outliers"]
 
 MIN_SHARE = 0.2
-MIN_BATCHES = 2
+MIN_BATCHES = 3
 MIN_WAVELENGTHS = 5
-MIN_QBIC_DROP = 2.0
+MIN_QBIC_DROP = 6.0
 MAX_SD_RATIO = 0.5
 MAX_CORRELATION = 0.95
 OUTLIER_Z = 3.0

@@ -89,6 +89,17 @@ def read_history(store, code: str) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
+def read_exclusions(store, code: str) -> list[dict]:
+    """Every step of the batch's exclusion from the calibration (``batch show`` lists the same)."""
+    from phantomlab.store import exclusion_history  # layer 4
+
+    with store.reading() as session:
+        return [{"recorded at (UTC)": step["recorded_at"], "by": step["recorded_by"] or "",
+                 "what": f"measurement {step['measurement_id']}" if step["measurement_id"] else "whole batch",
+                 "event": step["event"], "reason": step["reason"] or ""}
+                for step in exclusion_history(session, code)]
+
+
 def _log_table(batches: list[dict]) -> pd.DataFrame:
     rows = []
     for batch in batches:
@@ -285,7 +296,33 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
             f"Measurement {upload.name} attached to batch {batch['code']} (id {measurement_id}) and fitted "
             f"with {result.model}, reduced χ² {result.chi2_red:.3g}."
         )
+        verdict = call_layer("Judging the batch", fit_verdict_json, store, batch["code"], result, show=False)
+        if verdict.ok:
+            st.session_state["batches.verdict"] = verdict.value
         st.rerun()
+
+
+def fit_verdict_json(store, code: str, result) -> dict:
+    """The verdict of a fit against the batch's tolerances (:func:`phantomlab.workflows.fit_verdict`,
+    as ``batch measure`` prints it), with its lines for the page."""
+    from phantomlab.jsonable import to_jsonable
+    from phantomlab.workflows import fit_verdict
+
+    verdict = fit_verdict(store, code, to_jsonable(result.to_json()))
+    return {"code": code, **verdict.to_json(), "lines": verdict.lines(what="measured")}
+
+
+def _show_verdict(verdict: dict) -> None:
+    """PASS / FAIL / UNDECIDED per targeted value, right after "Fit and attach"."""
+    heading = {"PASS": st.success, "FAIL": st.error, "UNDECIDED": st.warning}.get(verdict["outcome"], st.info)
+    heading(f"Batch {verdict['code']} against its recipe's tolerances: {verdict['lines'][-1]}")
+    rows = [{"quantity": r["quantity"].replace("musp", "μs′").replace("mua", "μa"), "λ [nm]": r["wavelength_nm"],
+             "measured vs target [%]": r["deviation_percent"], "± SD [%]": r["sd_percent"],
+             "tolerance [±%]": r["tolerance_percent"], "verdict": r["outcome"] or "–"}
+            for r in verdict["per_wavelength"]]
+    st.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch")
+    st.caption("PASS when the deviation plus 2 SD of the fit stays within tolerance, FAIL when the deviation "
+               "minus 2 SD leaves it, else UNDECIDED (the same rule as the batch record).")
 
 
 def _status_section(store, batch: dict) -> None:
@@ -349,6 +386,11 @@ def _one_batch(workspace: Workspace, store, batch: dict) -> None:
     with history:
         st.markdown("**Versions of the batch record**")
         st.dataframe(read_history(store, batch["code"]), hide_index=True, width="stretch")
+        exclusions = call_layer("Reading the calibration exclusions", read_exclusions, store, batch["code"],
+                                show=False).value
+        if exclusions:
+            st.markdown("**Calibration: left out and taken back** (Fit and correct → Recalibrate)")
+            st.dataframe(pd.DataFrame(exclusions), hide_index=True, width="stretch")
         fits = [{"measurement": m["id"], "file": m["file_name"], "fit": f["id"], "model": f["model"],
                  "reduced χ²": f["chi2_red"], "recorded at (UTC)": f["recorded_at"]}
                 for m in batch["measurements"] for f in sorted(m["fits"], key=lambda f: (f["recorded_at"], f["id"]))]
@@ -363,6 +405,9 @@ def show(workspace: Workspace) -> None:
     notice = st.session_state.pop("batches.notice", None)
     if notice:
         st.success(notice)
+    verdict = st.session_state.pop("batches.verdict", None)
+    if verdict:
+        _show_verdict(verdict)
     loaded = call_layer("Reading the batch log", read_log, store)
     if not loaded.ok:
         return

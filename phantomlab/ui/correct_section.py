@@ -1,11 +1,12 @@
-"""The calibration half of "Fit and correct" (layer 5): recalibrate, corrected plan, top-up.
+"""The correction half of "Fit and correct" (layer 5): corrected plan, top-up.
 
-* Recalibrate: the calibration layer's Bayesian update of every stock lot's potency from
-  the whole batch log; each factor before (the stock file's prior) and after, the batches
-  that moved it, and its history across the recorded calibrations.
+* Recalibrate: :mod:`phantomlab.ui.calibration_section` (preview, confirm, exclusions,
+  rollback), re-exported here as :func:`recalibrate_section`.
 * Correct: for a batch of the log, the next batch's plan with the calibrated potencies
-  (against the batch's own plan), its sheet and a button to save it; or, for a liquid batch
-  still on the bench, the add-only top-up that brings it to the target.
+  (against the batch's own plan), its predicted optics ± SD and verdict against the recipe's
+  tolerances, which potencies it used, its sheet (naming the batch it corrects) and a button
+  to save it; or, for a liquid batch still on the bench, the add-only top-up that brings it
+  to the target.
 """
 
 from __future__ import annotations
@@ -15,79 +16,13 @@ import pandas as pd
 import streamlit as st
 
 from phantomlab.ui import services
+from phantomlab.ui.calibration_section import recalibrate_section
 from phantomlab.ui.plain_text import plain
 from phantomlab.ui.plots import Series, line_figure, show_figure, target_series
 from phantomlab.ui.widgets import call_layer, quantity_field, show_warnings
 from phantomlab.ui.workspace import Workspace
 
 __all__ = ["recalibrate_section", "correction_section"]
-
-
-# ---- recalibration --------------------------------------------------------------------------------
-
-
-def _update_table(update) -> pd.DataFrame:
-    rows = []
-    for k, (stock, lot) in enumerate(update.stocks):
-        moved = update.moved_by.get((stock, lot), [])
-        movers = ", ".join(f"{m['batch_id']} ({m['shift']:+.3f})" for m in moved if abs(m.get("shift", 0)) > 0)
-        rows.append({
-            "stock": stock, "lot": lot or "",
-            "potency before": f"{update.prior_potency[k]:.3f} ± {update.prior_sd[k]:.3f}",
-            "potency after": f"{update.potency[k]:.3f} ± {update.potency_sd[k]:.3f}",
-            "change [%]": 100.0 * (update.potency[k] / update.prior_potency[k] - 1.0),
-            "moved by (batch, shift)": movers or "no batch informs it",
-        })
-    return pd.DataFrame(rows)
-
-
-def _history_plot(history: list[dict], shelf) -> None:
-    """Each stock lot's potency from its stock-file prior (0) through every calibration (1, 2, …)."""
-    if not history:
-        st.caption("No calibration recorded yet.")
-        return
-    frame = pd.DataFrame(history)
-    series = []
-    for (stock, lot), group in frame.groupby(["stock", "lot"]):
-        x = group["calibration"].to_numpy(float)
-        y = group["potency"].to_numpy(float)
-        sd = group["potency_sd"].to_numpy(float)
-        if shelf is not None and stock in shelf and (shelf[stock].lot or "") == lot:
-            prior = shelf[stock]
-            x, y, sd = np.r_[0.0, x], np.r_[prior.potency, y], np.r_[prior.potency_sd, sd]
-        series.append(Series(f"{stock} (lot {lot or '-'})", x, y, sd=sd, mode="lines+markers"))
-    figure = line_figure(series, x_label="calibration [0 = stock file, then each recalibration]",
-                         y_label="potency factor [dimensionless]",
-                         title="Potency of each stock lot across calibrations")
-    count = int(frame["calibration"].max())
-    figure.update_xaxes(tickvals=list(range(count + 1)), ticktext=["stock file"] + [f"#{n}" for n in range(1, count + 1)])
-    show_figure(figure, table=frame, file_stem="potency-history", key="calibrate.history")
-    st.dataframe(frame, hide_index=True, width="stretch")
-
-
-def recalibrate_section(workspace: Workspace, store) -> None:
-    from phantomlab.ui.recording import calibration_history, recalibrate_from_log
-
-    st.subheader("Recalibrate the stocks")
-    st.caption("Every characterised batch (amounts dispensed + a fitted measurement) informs the "
-               "potency of the stock lots it used; the stock file's potency and SD are the prior.")
-    by = st.text_input("Recorded by", key="calibrate.by")
-    if st.button("Recalibrate from the batch log", type="primary", key="calibrate.run"):
-        with st.spinner("Updating the potencies…"):
-            outcome = call_layer("Recalibrating", recalibrate_from_log, store, recorded_by=by.strip() or None)
-        if outcome.ok:
-            st.session_state["calibrate.last"] = outcome.value
-    last = st.session_state.get("calibrate.last")
-    if last:
-        update, state_id, skipped = last
-        st.success(f"Calibration recorded (state {state_id}) from {len(set(update.batches))} batch(es); "
-                   f"reduced χ² {update.chi2_red:.3g}. Plans now use these potencies.")
-        show_warnings(skipped)
-        st.dataframe(_update_table(update), hide_index=True, width="stretch")
-    st.markdown("**History**")
-    found = call_layer("Reading the calibrations", calibration_history, store)
-    shelf = call_layer("Reading the shelf", services.load_page_shelf, workspace, store, show=False).value
-    _history_plot(found.value or [], shelf[0] if shelf else None)
 
 
 # ---- correction -------------------------------------------------------------------------------------
@@ -124,6 +59,34 @@ def _dose_comparison(previous: dict, plan) -> pd.DataFrame:
             "potency used": f"{dose.potency:.3f} ± {dose.potency_sd:.3f} ({dose.potency_source})",
         })
     return pd.DataFrame(rows)
+
+
+def _potencies_from(store, recipe, potencies):
+    from phantomlab.recalibration import potencies_from
+
+    with store.reading() as session:
+        return potencies_from(session, recipe, potencies)
+
+
+def _describe(source) -> str:
+    from phantomlab.recalibration import describe_potencies_from
+
+    return describe_potencies_from(source)
+
+
+def _verdict(plan) -> None:
+    """The predicted next batch against the recipe's tolerances, by the one verdict rule."""
+    from phantomlab.calibration.verdict import judge
+    from phantomlab.jsonable import to_jsonable
+
+    plan_json = to_jsonable(plan.to_json())
+    verdict = judge(target=plan_json["target"], values=plan_json["predicted"])
+    heading = {"PASS": st.success, "FAIL": st.error, "UNDECIDED": st.warning}.get(verdict.outcome, st.info)
+    heading("Predicted next batch: " + verdict.lines(what="predicted")[-1])
+    rows = [{"quantity": r["quantity"].replace("musp", "μs′").replace("mua", "μa"), "λ [nm]": r["wavelength_nm"],
+             "predicted vs target [%]": r["deviation_percent"], "± SD [%]": r["sd_percent"],
+             "tolerance [±%]": r["tolerance_percent"], "verdict": r["outcome"] or "–"} for r in verdict.rows]
+    st.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch")
 
 
 def _plan_plots(plan) -> None:
@@ -224,14 +187,18 @@ def correction_section(workspace: Workspace, store) -> None:
             plan, potencies = solved.value
             for limit in plan.binding_limits:
                 st.error(f"The target cannot be met: {plain(limit.message)}")
+            source = call_layer("Reading the calibration state", _potencies_from, store, recipe, potencies,
+                                show=False).value
+            st.caption(plain(f"Corrects batch {code}; {_describe(source)}."))
             st.dataframe(_dose_comparison(batch["plan"], plan), hide_index=True, width="stretch")
+            _verdict(plan)
             _plan_plots(plan)
             with st.expander("Full amounts of the next batch"):
                 st.dataframe(doses_table(plan), hide_index=True, width="stretch")
             sheet_downloads(plan, batch_id=None, key="correct.sheet")
             if st.button("Save the corrected plan as a new batch", type="primary", key="correct.save"):
                 saved = call_layer("Saving the batch", record_planned_batch, store, plan, origin=origin,
-                                   notes=f"corrected after batch {code}")
+                                   notes=f"corrected after batch {code}", corrects=code)
                 if saved.ok:
                     sheets = call_layer("Reading the stored sheet", saved_batch_sheets, store, plan, saved.value)
                     st.session_state["correct.saved"] = {**(sheets.value or {"code": saved.value}), "after": code}

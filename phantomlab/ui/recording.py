@@ -1,8 +1,10 @@
 """Writing to the batch log from the page (layer 5): each action is one store transaction.
 
 Only calls: the workflows the command line runs too (:mod:`phantomlab.workflows`: a batch
-recorded with its sheet, the amounts dispensed, a measurement with its fit, recalibration)
-do the work; this module turns the page's fields into their arguments.  A refusal (unknown batch, wrong unit, busy database) arrives as an
+recorded with its sheet, the amounts dispensed, a measurement with its fit) do the work; this
+module turns the page's fields into their arguments.  The calibration's writes (record a
+calibration, exclusions, rollback) are calls of :mod:`phantomlab.recalibration` from
+:mod:`phantomlab.ui.calibration_section`.  A refusal (unknown batch, wrong unit, busy database) arrives as an
 :class:`~phantomlab.errors.InputError` and the page shows its one line.
 """
 
@@ -23,6 +25,7 @@ def record_planned_batch(
     operator: str | None = None,
     notes: str | None = None,
     planned_on=None,
+    corrects: str | None = None,
 ) -> str:
     """Record a solved plan as a new batch (status ``planned``) and return its batch ID.
 
@@ -36,7 +39,8 @@ def record_planned_batch(
 
     sources = {key: PAGE_STOCK_SOURCE for key, where in dict(origin or {}).items()
                if str(where).startswith("page")}
-    return record(store, plan, lot_sources=sources, operator=operator, notes=notes, planned_on=planned_on).code
+    return record(store, plan, lot_sources=sources, operator=operator, notes=notes, planned_on=planned_on,
+                  corrects=corrects).code
 
 
 def saved_batch_sheets(store, plan, code: str) -> dict:
@@ -226,41 +230,3 @@ def keep_fit(store, measurement_id: int, result, *, recorded_by: str | None = No
     from phantomlab.workflows import keep_fit as keep
 
     return keep(store, measurement_id, result, recorded_by=recorded_by)
-
-
-# ---- recalibration ---------------------------------------------------------------------------------
-
-
-def recalibrate_from_log(store, *, recorded_by: str | None = None):
-    """Estimate every stock lot's potency from the whole batch log and record the result.
-
-    :func:`phantomlab.workflows.recalibrate`, the very function ``phantomlab recalibrate``
-    runs: one calibration state, one potency per stock key (the lot of the newest batch).
-
-    Returns
-    -------
-    (PotencyUpdate, calibration state id, list of skipped batches)
-    """
-    from phantomlab.workflows import recalibrate
-
-    done = recalibrate(store, recorded_by=recorded_by)
-    return done.update, done.state_id, done.skipped
-
-
-def calibration_history(store) -> list[dict]:
-    """Every calibration state (oldest first) with its potencies: one row per stock lot."""
-    from phantomlab.store import calibration_potencies  # layer 4
-    from phantomlab.store.history import current
-    from phantomlab.store.schema import CalibrationState
-
-    rows = []
-    with store.reading() as session:
-        states = sorted(session.scalars(current(session, CalibrationState)), key=lambda s: (s.recorded_at, s.id))
-        for number, state in enumerate(states, start=1):
-            batches = sorted((state.computed_from or {}).get("batches", []))
-            for potency in calibration_potencies(session, state):
-                rows.append({"calibration": number, "recorded at (UTC)": state.recorded_at,
-                             "stock": potency.stock_key, "lot": potency.lot or "",
-                             "potency": potency.potency, "potency_sd": potency.potency_sd,
-                             "from batches": ", ".join(batches)})
-    return rows

@@ -134,7 +134,7 @@ def test_no_shape_error_means_no_correction():
     assert entry["used"] is False and "QBIC drops by" in entry["reason"]
 
 
-@pytest.mark.parametrize("batches, wavelengths, words", [(1, 8, "used in 1 batch(es); the rule needs at least 2"),
+@pytest.mark.parametrize("batches, wavelengths, words", [(2, 8, "used in 2 batch(es); the rule needs at least 3"),
                                                          (4, 4, "4 wavelength(s) measured; the rule needs at least 5")])
 def test_too_little_data_is_not_eligible(batches, wavelengths, words):
     update = update_potencies([PotencyPrior("dye", "D1", 1.0, 0.3)],

@@ -133,17 +133,86 @@ def test_keeping_a_fit_adds_it_to_the_measurement(refit, demo_file):
         store.close()
 
 
-def _recalibrate(app):
+def _preview(app):
     app.button(key="calibrate.run").click().run()
     assert not app.exception
     return [f.value for f in app.dataframe if "potency after" in f.value.columns][0].set_index("stock")
 
 
+def _recalibrate(app):
+    table = _preview(app)
+    app.button(key="calibrate.apply").click().run()
+    assert not app.exception
+    return table
+
+
+def _stored(demo_file):
+    from phantomlab.store import latest_potencies, open_store
+
+    store = open_store(f"sqlite:///{demo_file}")
+    try:
+        return latest_potencies(store)
+    finally:
+        store.close()
+
+
+def test_the_preview_records_nothing_until_confirmed(refit, demo_file):
+    table = _preview(refit)
+    assert any("nothing is recorded until you confirm" in i.value for i in refit.info)
+    assert _stored(demo_file) == {}
+    assert set(table.columns) >= {"potency now", "potency after", "change [%]", "spectral correction"}
+    refit.button(key="calibrate.apply").click().run()
+    assert any("Calibration recorded" in s.value for s in refit.success)
+    assert set(_stored(demo_file)) == set(DEMO_TRUE_POTENCIES)
+
+
+def test_exclude_with_a_reason_then_take_back_shows_in_the_batch_history(refit, demo_file, go_to):
+    from phantomlab.store import exclusion_history, open_store
+
+    refit.selectbox(key="calibrate.exclude_batch").set_value(f"{YEAR}-001")
+    refit.text_input(key="calibrate.exclude_reason").input("demo: weighed on the wrong balance")
+    refit.button(key="calibrate.exclude").click().run()
+    assert not refit.exception
+    assert any("left out of the calibration" in s.value for s in refit.success)
+    assert any("whole batch" in str(f.value.values) for f in refit.dataframe if "reason" in f.value.columns)
+    table = _preview(refit)
+    assert "1 left out" in " ".join(i.value for i in refit.info)
+    refit.button(key="calibrate.include").click().run()
+    assert not refit.exception
+    store = open_store(f"sqlite:///{demo_file}")
+    try:
+        with store.reading() as session:
+            steps = exclusion_history(session, f"{YEAR}-001")
+    finally:
+        store.close()
+    assert [s["event"] for s in steps] == ["excluded from calibration", "included in calibration again"]
+    assert steps[0]["reason"] == "demo: weighed on the wrong balance"
+    batches = go_to(refit, "Batch log")
+    batches.selectbox(key="batches.open").set_value(f"{YEAR}-001").run()
+    assert any("excluded from calibration" in str(f.value.values) for f in batches.dataframe
+               if "event" in f.value.columns)
+    assert table is not None
+
+
+def test_rollback_makes_the_earlier_state_current_again(refit, demo_file):
+    _recalibrate(refit)
+    first = _stored(demo_file)
+    refit.selectbox(key="calibrate.exclude_batch").set_value(f"{YEAR}-001")
+    refit.text_input(key="calibrate.exclude_reason").input("demo: try without it")
+    refit.button(key="calibrate.exclude").click().run()
+    _recalibrate(refit)
+    assert _stored(demo_file) != first
+    refit.button(key="calibrate.use").click().run()  # the earlier state is offered first
+    assert not refit.exception
+    assert any("is current again" in s.value for s in refit.success)
+    assert _stored(demo_file) == first
+
+
 def test_recalibration_shows_before_and_after_and_moves_towards_the_demo_truth(refit, demo_file):
     table = _recalibrate(refit)
     assert any("Calibration recorded" in s.value for s in refit.success)
-    assert table.loc["lipid20", "potency before"] == "1.000 ± 0.030"  # the demo shelf's prior
-    assert table.loc["ink_black", "potency before"] == "1.000 ± 0.150"
+    assert table.loc["lipid20", "potency now"] == "1.000 ± 0.030"  # the demo shelf's prior
+    assert table.loc["ink_black", "potency now"] == "1.000 ± 0.150"
     for stock, truth in DEMO_TRUE_POTENCIES.items():
         after = float(table.loc[stock, "potency after"].split(" ± ")[0])
         assert abs(after - truth) < abs(1.0 - truth), (stock, after, truth)
