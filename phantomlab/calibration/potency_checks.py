@@ -16,7 +16,7 @@ each time the one that lowers the quasi-likelihood Bayesian information criterio
 (Schwarz 1978, Ann. Stat. 6:461; the overdispersion ĉ = max(1, χ²ᵣ) of the model holding every
 candidate divides χ², as in the quasi-likelihood criteria of Burnham & Anderson 2002, *Model
 Selection and Multimodel Inference*, 2nd ed., sec. 6.2; k counts shape coefficients, n data
-values), while it lowers QBIC by more than :data:`MIN_QBIC_DROP` ("strong evidence", Kass &
+values), while it lowers QBIC by more than :data:`MIN_QBIC_DROP` ("positive evidence", Kass &
 Raftery 1995, J. Am. Stat. Assoc. 90:773, sec. 3.2) AND the data are informative about the
 new coefficients: their posterior SD at most :data:`MAX_SD_RATIO` of the prior SD and their
 correlation with the lot's level below :data:`MAX_CORRELATION` in magnitude (identifiability).
@@ -55,7 +55,7 @@ __all__ = ["MIN_SHARE", "MIN_BATCHES", "MIN_WAVELENGTHS", "MIN_QBIC_DROP", "MAX_
 MIN_SHARE = 0.2
 MIN_BATCHES = 3
 MIN_WAVELENGTHS = 5
-MIN_QBIC_DROP = 6.0
+MIN_QBIC_DROP = 2.0
 MAX_SD_RATIO = 0.5
 MAX_CORRELATION = 0.95
 OUTLIER_Z = 3.0

@@ -22,13 +22,15 @@ values at once, added as rank-one terms and inverted with the Woodbury identity 
 
 * the dispensing error of each stock: relative SD ``dispensing_rel_sd`` of the dose, the same
   at every wavelength and in every measurement of the batch (one bottle, one weighing);
-* the fits' own errors are correlated across the wavelengths of one measurement (one probe
-  placement, one reference calibration, and in a Monte Carlo fit the same photons): each
-  value keeps the variance its fit gives, a share :data:`WAVELENGTH_CORRELATION` of it common
-  to every wavelength of that measurement (equicorrelation, one rank-one term per quantity);
-  without it fourteen wavelengths would count as fourteen independent measurements of the
-  level (the hidden simulated lab's readings show a correlation of about 0.4,
-  ``tests/calibration/test_potency_coverage.py``);
+* the fits' own errors are often correlated across the wavelengths of one measurement (one
+  probe placement, one reference calibration, and in a Monte Carlo fit the same photons),
+  which no single fit can tell.  Each value keeps the variance σ² its fit gives, and a
+  further ρ·σ_i·σ_j with ρ = :data:`WAVELENGTH_CORRELATION` is common to every wavelength of
+  that measurement (one rank-one term per quantity): fourteen wavelengths then do not count as
+  fourteen independent measurements of the level (the hidden simulated lab's readings show a
+  correlation of about 0.4, ``tests/calibration/test_potency_coverage.py``), while the shape
+  across wavelengths is still judged against the full σ (a spectral correction is never
+  made more significant than the fits say);
 * a further scale error of each measurement, relative SD τ for μa and for μs′, the same at
   every wavelength of that measurement (probe calibration, contact, temperature).  τ is estimated
   from the data: the scale each measurement would need, δ̂_m = uᵀC₀⁻¹r / uᵀC₀⁻¹u along its own
@@ -111,7 +113,7 @@ class _Part:
     weights: np.ndarray  # (W, 2, 2) inverse of the fit's covariance (0 where missing)
     variance: np.ndarray  # (W, 2) the fit's variance (inf where missing)
     start: int  # first index in the block's stacked vector
-    shared: float = 0.0  # share of each variance common to all wavelengths of the measurement
+    shared: float = 0.0  # ρ: a further ρ·σ_i·σ_j common to all wavelengths of the measurement
 
     @property
     def size(self) -> int:
@@ -216,10 +218,9 @@ def build_blocks(observations: Sequence, index: dict, levels: np.ndarray, *,
             weighted = np.diagonal(_weight_matrix(cov), axis1=1, axis2=2) > 0
             variance = np.where(weighted, np.diagonal(cov, axis1=1, axis2=2), np.inf)
             shared = WAVELENGTH_CORRELATION if W > 1 else 0.0
-            weights = _weight_matrix(cov * (1.0 - shared))
+            weights = _weight_matrix(cov)
             parts.append(_Part(obs=obs, columns=tuple(columns), y=np.where(finite, y, 0.0), offset=offset,
-                               weights=weights, variance=variance * (1.0 - shared), start=start,
-                               shared=shared))
+                               weights=weights, variance=variance, start=start, shared=shared))
             start += 2 * W
         n = start
         factors, names = [], []
@@ -239,7 +240,7 @@ def build_blocks(observations: Sequence, index: dict, levels: np.ndarray, *,
                 names.append(("dispensing", k))
         for j, p in enumerate(parts):
             if p.shared > 0:
-                sd = np.sqrt(np.where(p.weighted, p.variance / (1.0 - p.shared), 0.0))
+                sd = np.sqrt(np.where(p.weighted, p.variance, 0.0))
                 for q in range(2):
                     column = np.zeros(n)
                     values = np.zeros_like(sd)

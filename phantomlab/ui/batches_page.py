@@ -320,7 +320,9 @@ def _show_verdict(verdict: dict) -> None:
              "measured vs target [%]": r["deviation_percent"], "± SD [%]": r["sd_percent"],
              "tolerance [±%]": r["tolerance_percent"], "verdict": r["outcome"] or "–"}
             for r in verdict["per_wavelength"]]
-    st.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch")
+    st.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch",
+                 column_config={"measured vs target [%]": st.column_config.NumberColumn(format="%+.1f"),
+                                "± SD [%]": st.column_config.NumberColumn(format="%.1f")})
     st.caption("PASS when the deviation plus 2 SD of the fit stays within tolerance, FAIL when the deviation "
                "minus 2 SD leaves it, else UNDECIDED (the same rule as the batch record).")
 

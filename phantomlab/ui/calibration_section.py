@@ -28,6 +28,29 @@ __all__ = ["recalibrate_section", "preview_table"]
 
 PREVIEW = "calibrate.preview"
 NOTICE = "calibrate.notice"
+ERROR = "calibrate.error"
+
+
+def _act(what: str, function, *args, forget_preview: bool = True, message=None, keep=None, **kwargs) -> None:
+    """A button's callback: run the workflow before the page is drawn again (the tab stays open).
+
+    The one-line refusal or the notice is kept for the section to show; ``keep`` stores the
+    result under that session key; a write forgets the preview, which no longer holds.
+    """
+    outcome = call_layer(what, function, *args, show=False, **kwargs)
+    if not outcome.ok:
+        st.session_state[ERROR] = outcome.error
+        return
+    if forget_preview:
+        st.session_state.pop(PREVIEW, None)
+    if keep:
+        st.session_state[keep] = outcome.value
+    if message is not None:
+        st.session_state[NOTICE] = message(outcome.value)
+
+
+def _by() -> str | None:
+    return (st.session_state.get("calibrate.by") or "").strip() or None
 
 
 def preview_table(payload: dict) -> pd.DataFrame:
@@ -58,17 +81,27 @@ def _log_choices(store) -> list[dict]:
     return [b for b in read_log(store) if not b["retracted"]]
 
 
+def _payload(recalibration) -> dict:
+    return recalibration.payload
+
+
 def _preview(store) -> None:
     from phantomlab.recalibration import recalibrate
 
-    outcome = call_layer("Previewing the recalibration", recalibrate, store)
-    if outcome.ok:
-        st.session_state[PREVIEW] = outcome.value.payload
+    _act("Previewing the recalibration", lambda: _payload(recalibrate(store)), forget_preview=False, keep=PREVIEW)
 
 
-def _show_preview(store, by: str) -> None:
+def _apply(store) -> None:
     from phantomlab.recalibration import recalibrate
 
+    payload = st.session_state.get(PREVIEW) or {}
+    _act("Recording the calibration", recalibrate, store, apply=True, expect_fingerprint=payload.get("fingerprint"),
+         recorded_by=_by(),
+         message=lambda done: (f"Calibration recorded (state {done.state_id}) from {len(done.payload['batches'])} "
+                               f"batch(es); reduced χ² {done.payload['chi2_red']:.3g}. Plans now use these potencies."))
+
+
+def _show_preview(store) -> None:
     payload = st.session_state.get(PREVIEW)
     if not payload:
         return
@@ -82,20 +115,35 @@ def _show_preview(store, by: str) -> None:
     for outlier in payload["outliers"]:
         st.warning(f"Outlier: {outlier['reason']}. Leave it out below if you know why.")
     show_warnings([n for n in payload["notes"] if not n.startswith("OUTLIER")])
-    st.dataframe(preview_table(payload), hide_index=True, width="stretch")
-    if st.button("Record this calibration", type="primary", key="calibrate.apply"):
-        done = call_layer("Recording the calibration", recalibrate, store, apply=True,
-                          expect_fingerprint=payload["fingerprint"], recorded_by=by.strip() or None)
-        if done.ok:
-            st.session_state.pop(PREVIEW, None)
-            st.session_state[NOTICE] = (f"Calibration recorded (state {done.value.state_id}) from "
-                                        f"{len(done.value.payload['batches'])} batch(es); reduced χ² "
-                                        f"{done.value.payload['chi2_red']:.3g}. Plans now use these potencies.")
-            st.rerun()
+    st.dataframe(preview_table(payload), hide_index=True, width="stretch",
+                 column_config={"change [%]": st.column_config.NumberColumn(format="%+.1f")})
+    st.button("Record this calibration", type="primary", key="calibrate.apply", on_click=_apply, args=(store,))
 
 
-def _exclusions(store, by: str) -> None:
-    from phantomlab.recalibration import exclude_batch, exclusions_in_force, include_batch
+def _exclude(store, codes_measurements) -> None:
+    from phantomlab.recalibration import exclude_batch
+
+    code = st.session_state.get("calibrate.exclude_batch")
+    which = st.session_state.get("calibrate.exclude_what") or "the whole batch"
+    measurement_id = None if which == "the whole batch" else int(which.split()[1])
+    _act("Leaving it out", exclude_batch, store, code, measurement_id=measurement_id,
+         reason=st.session_state.get("calibrate.exclude_reason") or "", recorded_by=_by(),
+         message=lambda done: (f"{which.capitalize()} of batch {done['batch_id']} left out of the calibration. "
+                               "Preview again to see the effect."))
+
+
+def _include(store, in_force, labels) -> None:
+    from phantomlab.recalibration import include_batch
+
+    chosen = st.session_state.get("calibrate.include_which")
+    item = in_force[labels.index(chosen)]
+    _act("Taking it back", include_batch, store, item["batch_id"], measurement_id=item["measurement_id"],
+         reason=(st.session_state.get("calibrate.include_reason") or "").strip() or None, recorded_by=_by(),
+         message=lambda done: f"{chosen} is in the calibration again. Preview again to see the effect.")
+
+
+def _exclusions(store) -> None:
+    from phantomlab.recalibration import exclusions_in_force
 
     st.markdown("**Leave a batch or a measurement out of the calibration** (the reason is kept)")
     found = call_layer("Reading the batch log", _log_choices, store, show=False)
@@ -109,38 +157,23 @@ def _exclusions(store, by: str) -> None:
     code = c1.selectbox("Batch", codes, index=default, key="calibrate.exclude_batch")
     batch = next(b for b in batches if b["code"] == code)
     options = ["the whole batch"] + [f"measurement {m['id']} ({m['file_name']})" for m in batch["measurements"]]
-    which = c2.selectbox("What", options, key="calibrate.exclude_what")
-    reason = c3.text_input("Why (kept in the history)", key="calibrate.exclude_reason")
-    measurement_id = None if which == options[0] else int(which.split()[1])
-    if st.button("Leave it out of the calibration", key="calibrate.exclude"):
-        done = call_layer("Leaving it out", exclude_batch, store, code, measurement_id=measurement_id,
-                          reason=reason, recorded_by=by.strip() or None)
-        if done.ok:
-            st.session_state.pop(PREVIEW, None)
-            st.session_state[NOTICE] = (f"{which.capitalize()} of batch {code} left out of the calibration. "
-                                        "Preview again to see the effect.")
-            st.rerun()
+    c2.selectbox("What", options, key="calibrate.exclude_what")
+    c3.text_input("Why (kept in the history)", key="calibrate.exclude_reason")
+    st.button("Leave it out of the calibration", key="calibrate.exclude", on_click=_exclude, args=(store, None))
     in_force = call_layer("Reading the exclusions", exclusions_in_force, store, show=False).value or []
     if in_force:
         st.markdown("**Left out now**")
         st.dataframe(pd.DataFrame([{"batch": e["batch_id"], "measurement": e["measurement_id"] or "whole batch",
                                     "reason": e["reason"], "by": e["recorded_by"] or "",
-                                    "since (UTC)": e["recorded_at"]} for e in in_force]),
+                                    "since (UTC)": str(e["recorded_at"])[:16].replace("T", " ")} for e in in_force]),
                      hide_index=True, width="stretch")
         labels = [f"{e['batch_id']}" + (f" measurement {e['measurement_id']}" if e["measurement_id"] else "")
                   for e in in_force]
         d1, d2 = st.columns([1, 2])
-        chosen = d1.selectbox("Take back", labels, key="calibrate.include_which")
-        why = d2.text_input("Why (kept in the history)", key="calibrate.include_reason")
-        if st.button("Take it back into the calibration", key="calibrate.include"):
-            item = in_force[labels.index(chosen)]
-            done = call_layer("Taking it back", include_batch, store, item["batch_id"],
-                              measurement_id=item["measurement_id"], reason=why.strip() or None,
-                              recorded_by=by.strip() or None)
-            if done.ok:
-                st.session_state.pop(PREVIEW, None)
-                st.session_state[NOTICE] = f"{chosen} is in the calibration again. Preview again to see the effect."
-                st.rerun()
+        d1.selectbox("Take back", labels, key="calibrate.include_which")
+        d2.text_input("Why (kept in the history)", key="calibrate.include_reason")
+        st.button("Take it back into the calibration", key="calibrate.include", on_click=_include,
+                  args=(store, in_force, labels))
 
 
 def _history_plot(states: list[dict], shelf) -> None:
@@ -170,8 +203,18 @@ def _history_plot(states: list[dict], shelf) -> None:
     show_figure(figure, table=frame, file_stem="potency-history", key="calibrate.history")
 
 
-def _history(workspace: Workspace, store, by: str) -> None:
-    from phantomlab.recalibration import calibration_list, use_calibration
+def _use(store) -> None:
+    from phantomlab.recalibration import use_calibration
+
+    chosen = st.session_state.get("calibrate.use_state")
+    _act("Rolling back", use_calibration, store, chosen,
+         note=(st.session_state.get("calibrate.use_note") or "").strip() or None, recorded_by=_by(),
+         message=lambda done: (f"Calibration state {chosen} is current again (recorded as state {done['state_id']}); "
+                               "plans now use its potencies."))
+
+
+def _history(workspace: Workspace, store) -> None:
+    from phantomlab.recalibration import calibration_list
 
     st.markdown("**Recorded calibrations**")
     found = call_layer("Reading the calibrations", calibration_list, store)
@@ -181,7 +224,8 @@ def _history(workspace: Workspace, store, by: str) -> None:
     if not states:
         return
     st.dataframe(pd.DataFrame([{
-        "state": s["state_id"], "recorded at (UTC)": s["recorded_at"], "by": s["recorded_by"] or "",
+        "state": s["state_id"], "recorded at (UTC)": str(s["recorded_at"])[:16].replace("T", " "),
+        "by": s["recorded_by"] or "",
         "from": (f"rollback to state {s['restores_state_id']}" if s["restores_state_id"]
                  else f"{len(s['batches'])} batch(es)" + (f", {len(s['excluded'])} left out" if s["excluded"] else "")),
         "current": "yes" if s["current"] else "",
@@ -190,17 +234,9 @@ def _history(workspace: Workspace, store, by: str) -> None:
     earlier = [s["state_id"] for s in states if not s["current"]]
     if earlier:
         c1, c2 = st.columns([1, 2])
-        chosen = c1.selectbox("Make an earlier state current again", earlier, index=len(earlier) - 1,
-                              key="calibrate.use_state")
-        note = c2.text_input("Why (kept with the new state)", key="calibrate.use_note")
-        if st.button("Roll back to this state", key="calibrate.use"):
-            done = call_layer("Rolling back", use_calibration, store, chosen, note=note.strip() or None,
-                              recorded_by=by.strip() or None)
-            if done.ok:
-                st.session_state.pop(PREVIEW, None)
-                st.session_state[NOTICE] = (f"Calibration state {chosen} is current again (recorded as state "
-                                            f"{done.value['state_id']}); plans now use its potencies.")
-                st.rerun()
+        c1.selectbox("Make an earlier state current again", earlier, index=len(earlier) - 1, key="calibrate.use_state")
+        c2.text_input("Why (kept with the new state)", key="calibrate.use_note")
+        st.button("Roll back to this state", key="calibrate.use", on_click=_use, args=(store,))
 
 
 def recalibrate_section(workspace: Workspace, store) -> None:
@@ -208,13 +244,14 @@ def recalibrate_section(workspace: Workspace, store) -> None:
     st.caption("Every characterised batch (amounts dispensed + a fitted measurement) informs the potency of "
                "the stock lots it used; the stock file's potency and SD are the prior. Preview first: "
                "nothing is recorded until you confirm.")
+    st.text_input("Recorded by", key="calibrate.by")
+    st.button("Preview the recalibration", type="primary", key="calibrate.run", on_click=_preview, args=(store,))
+    error = st.session_state.pop(ERROR, None)
+    if error:
+        st.error(error)
     notice = st.session_state.pop(NOTICE, None)
     if notice:
         st.success(notice)
-    by = st.text_input("Recorded by", key="calibrate.by")
-    if st.button("Preview the recalibration", type="primary", key="calibrate.run"):
-        with st.spinner("Updating the potencies…"):
-            _preview(store)
-    _show_preview(store, by)
-    _exclusions(store, by)
-    _history(workspace, store, by)
+    _show_preview(store)
+    _exclusions(store)
+    _history(workspace, store)

@@ -86,7 +86,9 @@ def _verdict(plan) -> None:
     rows = [{"quantity": r["quantity"].replace("musp", "μs′").replace("mua", "μa"), "λ [nm]": r["wavelength_nm"],
              "predicted vs target [%]": r["deviation_percent"], "± SD [%]": r["sd_percent"],
              "tolerance [±%]": r["tolerance_percent"], "verdict": r["outcome"] or "–"} for r in verdict.rows]
-    st.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch")
+    st.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch",
+                 column_config={"predicted vs target [%]": st.column_config.NumberColumn(format="%+.1f"),
+                                "± SD [%]": st.column_config.NumberColumn(format="%.1f")})
 
 
 def _plan_plots(plan) -> None:
@@ -195,7 +197,7 @@ def correction_section(workspace: Workspace, store) -> None:
             _plan_plots(plan)
             with st.expander("Full amounts of the next batch"):
                 st.dataframe(doses_table(plan), hide_index=True, width="stretch")
-            sheet_downloads(plan, batch_id=None, key="correct.sheet")
+            sheet_downloads(plan, batch_id=None, key="correct.sheet", note=f"Corrects batch {code}; {_describe(source)}")
             if st.button("Save the corrected plan as a new batch", type="primary", key="correct.save"):
                 saved = call_layer("Saving the batch", record_planned_batch, store, plan, origin=origin,
                                    notes=f"corrected after batch {code}", corrects=code)

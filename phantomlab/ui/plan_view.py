@@ -47,12 +47,14 @@ def matrix_table(plan) -> pd.DataFrame:
     )
 
 
-def sheet_downloads(plan, *, batch_id: str | None, key: str) -> None:
+def sheet_downloads(plan, *, batch_id: str | None, key: str, note: str | None = None) -> None:
+    """HTML and CSV downloads of the plan's sheet; ``note`` is boxed under its heading (e.g. the
+    batch a corrected plan corrects and the calibration state it uses)."""
     from phantomlab.recipe.sheet import render_sheet_csv, render_sheet_html  # layer 3
 
     stem = f"sheet-{batch_id}" if batch_id else "sheet-draft"
     html = call_layer("Rendering the sheet", render_sheet_html, plan, batch_id=batch_id,
-                      draft=batch_id is None)
+                      draft=batch_id is None, note=note)
     csv = call_layer("Rendering the sheet CSV", render_sheet_csv, plan, batch_id=batch_id,
                      draft=batch_id is None)
     left, right = st.columns(2)

@@ -79,7 +79,7 @@ def test_general_case_equals_whitened_stacked_least_squares():
     for design, data, cov, mua, musp in batches:
         full = np.zeros((2 * W, 2 * W))
         for w in range(W):
-            full[2 * w:2 * w + 2, 2 * w:2 * w + 2] = (1 - rho) * cov[w]
+            full[2 * w:2 * w + 2, 2 * w:2 * w + 2] = cov[w]
         for q, values in ((0, mua), (1, musp)):
             sd = np.zeros(2 * W)
             sd[q::2] = np.sqrt(cov[:, q, q])

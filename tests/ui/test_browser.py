@@ -233,7 +233,12 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
 
             # after the measurements, to a corrected next recipe, without the command line
             page.get_by_role("tab", name="Recalibrate the stocks").click()
-            page.get_by_role("button", name="Recalibrate from the batch log").click()
+            page.get_by_role("button", name="Preview the recalibration").click()
+            page.get_by_text("nothing is recorded until you confirm").first.wait_for()
+            _settle(page)
+            _no_exception(page, "on the recalibration preview")
+            _shoot(page, shots / "07-recalibration-preview.png")
+            page.get_by_role("button", name="Record this calibration").click()
             page.get_by_text("Calibration recorded").first.wait_for()
             _settle(page)
             _no_exception(page, "after recalibrating")
@@ -248,6 +253,7 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
             corrected = tmp_path / "corrected-sheet.html"
             download_info.value.save_as(corrected)
             assert "calibrated" in corrected.read_text(encoding="utf-8")
+            assert "potencies from calibration state" in corrected.read_text(encoding="utf-8")
         finally:
             browser.close()
     print(f"screenshots in {shots}")
