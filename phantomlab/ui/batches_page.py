@@ -315,7 +315,7 @@ def fit_verdict_json(store, code: str, result) -> dict:
 def _show_verdict(verdict: dict) -> None:
     """PASS / FAIL / UNDECIDED per targeted value, right after "Fit and attach"."""
     heading = {"PASS": st.success, "FAIL": st.error, "UNDECIDED": st.warning}.get(verdict["outcome"], st.info)
-    heading(f"Batch {verdict['code']} against its recipe's tolerances: {verdict['lines'][-1]}")
+    heading(plain(f"Batch {verdict['code']} against its recipe's tolerances: {verdict['lines'][-1]}"))
     rows = [{"quantity": r["quantity"].replace("musp", "μs′").replace("mua", "μa"), "λ [nm]": r["wavelength_nm"],
              "measured vs target [%]": r["deviation_percent"], "± SD [%]": r["sd_percent"],
              "tolerance [±%]": r["tolerance_percent"], "verdict": r["outcome"] or "–"}

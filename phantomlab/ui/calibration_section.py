@@ -20,6 +20,7 @@ import pandas as pd
 import streamlit as st
 
 from phantomlab.ui import services
+from phantomlab.ui.plain_text import plain
 from phantomlab.ui.plots import Series, line_figure, show_figure
 from phantomlab.ui.widgets import call_layer, show_warnings
 from phantomlab.ui.workspace import Workspace
@@ -113,7 +114,7 @@ def _show_preview(store) -> None:
     c2.metric("SDs widened by (Birge ratio)", f"× {payload['birge_ratio']:.2f}")
     c3.metric("outliers", str(len(payload["outliers"])))
     for outlier in payload["outliers"]:
-        st.warning(f"Outlier: {outlier['reason']}. Leave it out below if you know why.")
+        st.warning(plain(f"Outlier: {outlier['reason']}. Leave it out below if you know why."))
     show_warnings([n for n in payload["notes"] if not n.startswith("OUTLIER")])
     st.dataframe(preview_table(payload), hide_index=True, width="stretch",
                  column_config={"change [%]": st.column_config.NumberColumn(format="%+.1f")})
@@ -248,10 +249,10 @@ def recalibrate_section(workspace: Workspace, store) -> None:
     st.button("Preview the recalibration", type="primary", key="calibrate.run", on_click=_preview, args=(store,))
     error = st.session_state.pop(ERROR, None)
     if error:
-        st.error(error)
+        st.error(plain(error))
     notice = st.session_state.pop(NOTICE, None)
     if notice:
-        st.success(notice)
+        st.success(plain(notice))
     _show_preview(store)
     _exclusions(store)
     _history(workspace, store)
