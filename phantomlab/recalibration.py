@@ -272,6 +272,10 @@ def _notes(update, history) -> list[str]:
         notes.append("the measurements scatter in scale beyond their SDs by " + ", ".join(
             f"{100 * v:.1f} % in {k.replace('musp', 'mus′')}" for k, v in scale.items())
             + " (Paule-Mandel); that is in the potency SDs")
+    tested = any(m.get("leave_out_z") is not None for moves in update.moved_by.values() for m in moves)
+    if not tested:
+        notes.append("outlier test not run: it needs a stock lot used by at least three batches (the one left out "
+                     "and two others)")
     for outlier in update.outliers:
         what = (f"--measurement {outlier['measurement_id']} " if outlier["measurement_id"] is not None else "")
         notes.append(f"OUTLIER: {outlier['reason']}; to leave it out: phantomlab batch exclude "

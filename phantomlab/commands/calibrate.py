@@ -79,7 +79,8 @@ def _table(payload: dict) -> str:
     chi2 = payload.get("chi2_red")
     lines.append(f"reduced chi2 {chi2:.3g}" if chi2 is not None else "reduced chi2: no degrees of freedom")
     lines += [f"  {note}" for note in payload["notes"]]
-    if not payload["outliers"]:
+    tested = any(m.get("leave_out_z") is not None for moves in payload["moved_by"].values() for m in moves)
+    if tested and not payload["outliers"]:
         lines.append("no outlier: every batch agrees with the others within 3 SD (leave-one-batch-out test)")
     if payload["applied"]:
         lines.append(f"recorded as calibration state {payload['state_id']}; plan, batch add and correct use it "
