@@ -40,14 +40,8 @@ from typing import Sequence
 
 import numpy as np
 
-from phantomlab.calibration.potency_model import (
-    Extension,
-    ModelFit,
-    build_blocks,
-    estimate_scale_sd,
-    extension_slices,
-    fit_model,
-)
+from phantomlab.calibration.potency_blocks import build_blocks, estimate_scale_sd
+from phantomlab.calibration.potency_model import Extension, ModelFit, extension_slices, fit_model
 
 __all__ = ["MIN_SHARE", "MIN_BATCHES", "MIN_WAVELENGTHS", "MIN_QBIC_DROP", "MAX_SD_RATIO",
            "MAX_CORRELATION", "OUTLIER_Z", "Calibration", "candidates", "select_extensions", "find_outliers"]

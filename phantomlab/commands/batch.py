@@ -30,6 +30,7 @@ from pathlib import Path
 from typing import Any
 
 from phantomlab.cli import CommandResult, add_json_option
+from phantomlab.commands.batch_exclusion import add_exclusion_actions, exclude_handler, include_handler
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.workflows import parse_amounts_csv, tolerance_alarms  # one implementation with the page
 
@@ -120,22 +121,12 @@ def register(subparsers) -> None:
     export = actions.add_parser("export", help="the whole lab as one archive (zip of JSON and CSV)")
     export.add_argument("archive", metavar="FILE.zip")
 
-    exclude = actions.add_parser("exclude", help="leave a batch (or one measurement) out of the calibration")
-    exclude.add_argument("batch_id", metavar="BATCH_ID")
-    exclude.add_argument("--measurement", type=int, metavar="ID", help="only this measurement of the batch")
-    exclude.add_argument("--reason", required=True, metavar="TEXT", help="why (kept in the history)")
-    exclude.add_argument("--operator", metavar="NAME")
-
-    include = actions.add_parser("include", help="take an excluded batch (or measurement) into the calibration again")
-    include.add_argument("batch_id", metavar="BATCH_ID")
-    include.add_argument("--measurement", type=int, metavar="ID", help="only this measurement of the batch")
-    include.add_argument("--reason", metavar="TEXT", help="why (kept in the history)")
-    include.add_argument("--operator", metavar="NAME")
+    exclude, include = add_exclusion_actions(actions)  # commands/batch_exclusion.py
 
     handlers = {
         add: _add, actual: _actual, status: _status, measure: _measure, listing: _list,
         show: _show, record: _record, retract: _retract, fix: _correct, export: _export,
-        exclude: _exclude, include: _include,
+        exclude: exclude_handler, include: include_handler,
     }
     for parser, handler in handlers.items():
         add_db_option(parser)
@@ -402,36 +393,6 @@ def _verdict(args, code: str, fit_json):
         return fit_verdict(store, code, fit_json)
     finally:
         store.close()
-
-
-# ---- exclude, include ------------------------------------------------------------------------
-
-
-def _exclude(args) -> CommandResult:
-    from phantomlab.recalibration import exclude_batch
-
-    store = _open(args)
-    try:
-        done = exclude_batch(store, args.batch_id, measurement_id=args.measurement, reason=args.reason,
-                             recorded_by=args.operator)
-    finally:
-        store.close()
-    what = f"measurement {done['measurement_id']} of batch" if done["measurement_id"] else "batch"
-    return CommandResult(payload=done, text=f"{what} {done['batch_id']} left out of the calibration: {done['reason']}"
-                         "\n(phantomlab recalibrate previews the result; --apply records it)")
-
-
-def _include(args) -> CommandResult:
-    from phantomlab.recalibration import include_batch
-
-    store = _open(args)
-    try:
-        done = include_batch(store, args.batch_id, measurement_id=args.measurement, reason=args.reason,
-                             recorded_by=args.operator)
-    finally:
-        store.close()
-    what = f"measurement {done['measurement_id']} of batch" if done["measurement_id"] else "batch"
-    return CommandResult(payload=done, text=f"{what} {done['batch_id']} is in the calibration again: {done['reason']}")
 
 
 # ---- list, show ------------------------------------------------------------------------------

@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 from phantomlab.calibration.potency import BatchObservation, PotencyPrior, update_potencies
-from phantomlab.calibration.potency_model import WAVELENGTH_CORRELATION
+from phantomlab.calibration.potency_blocks import WAVELENGTH_CORRELATION
 from phantomlab.errors import InputError
 
 

@@ -108,3 +108,27 @@ def test_measurement_scale_sd_is_recovered():
     assert update.scale_sd["mua"] == pytest.approx(tau, abs=3 * tau / np.sqrt(2 * 59))
     assert abs(update.potency[0] - 1.1) < 2 * update.potency_sd[0]
     assert update.potency_sd[0] == pytest.approx(1.1 * tau / np.sqrt(60), rel=0.35)
+
+
+def test_hidden_lab_readings_are_correlated_across_wavelengths(runs):
+    """What WAVELENGTH_CORRELATION stands for: 24 readings of one batch (4 partitions x 6 disjoint
+    photon shares) fitted with the lookup; the errors of μa at two wavelengths of one reading are
+    correlated (one photon share for all): 0.50 on average when this was written."""
+    import warnings
+
+    from hidden_lab import REACHABLE_DOSE
+
+    data, fitting, folder = runs
+    lab = make_lab(folder / "correlation", data_baseline=data, fit_baseline=fitting)
+    truth = lab.true_optics(REACHABLE_DOSE, lab.measure_nm)
+    errors = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for partition in range(4):
+            for j, share in enumerate(photon_shares(data, 6, seed=50 + partition)):
+                fit = lab.fit(lab.reading(REACHABLE_DOSE, share=share, seed=700 + 10 * partition + j))
+                errors.append(fit.mua_per_mm / truth.mua_per_mm - 1)
+    correlation = np.corrcoef(np.array(errors).T)
+    mean_off_diagonal = float(correlation[~np.eye(correlation.shape[0], dtype=bool)].mean())
+    print(f"mean correlation of the fitted mua errors across wavelengths: {mean_off_diagonal:.2f}")
+    assert 0.15 < mean_off_diagonal < 0.8
