@@ -153,7 +153,8 @@ def top_up(
         For a recipe by mass (a cured or set phantom cannot be topped up), a non-positive
         volume, or measured optics that do not cover the target wavelengths.
     """
-    from phantomlab.recipe.plan import intrinsic_table, resolve_potencies
+    from phantomlab.recipe.plan import intrinsic_table, resolve_potencies, resolve_spectral
+    from phantomlab.recipe.spectral_potency import corrected_table
 
     if recipe.by_mass:
         raise InputError(f"recipe {recipe.name!r} is by mass (a cast phantom); a top-up is only for liquid batches")
@@ -173,8 +174,9 @@ def top_up(
     order = np.argsort(wl)
     mua0 = np.interp(grid, wl[order], arrays["mua_per_mm"][order])
     musp0 = np.interp(grid, wl[order], arrays["musp_per_mm"][order])
-    table = intrinsic_table(recipe, grid)
     values, _sds, _sources, notes = resolve_potencies(recipe, potencies)
+    # a lot's spectral correction (a calibrated shape) bends its intrinsic spectrum here too
+    table = corrected_table(intrinsic_table(recipe, grid), resolve_spectral(recipe, potencies))
     a = table.mua_at(values)  # (S, W): the potency scales the ingredient, not its carrier water or solvent
     s = values[:, None] * table.musp_per_mm
     am = table.matrix_mua_per_mm

@@ -164,3 +164,28 @@ def test_tio2_size_error_follows_the_power_law(tmp_path):
     slope, intercept = np.polyfit(x, log_ratio, 1)
     assert np.max(np.abs(log_ratio - (slope * x + intercept))) < 0.005
     assert slope == pytest.approx(0.57, abs=0.03)  # Δb ≈ −0.57 in silicone: larger grains, flatter μs′
+
+
+def test_the_top_up_mixes_with_the_corrected_spectrum(demo_recipe):
+    """Mixing is linear in volume: the top-up's predicted optics must be those of the final doses
+    predicted with the same corrected potency (mass balance of undiluted stock)."""
+    from phantomlab.calibration.correction import top_up
+    from phantomlab.recipe import predict
+
+    recipe = demo_recipe
+    lot = recipe.stock("lipid20").lot
+    correction = SpectralCorrection(kind="musp_power_law", reference_nm=750.0, half_width_nm=0.0,
+                                    coefficients=(0.4,), potency=1.1, covariance=((1e-4, 0.0), (0.0, 1e-4)))
+    potencies = {"lipid20": (1.1, 0.01, lot, correction)}
+    weak = {"lipid20": 0.03, "ink_black": 3e-5, "dye_nir": 2e-5}
+    measured = predict(recipe, volume_fractions=weak, potencies=potencies).to_json()
+    measured.update(mua_sd_per_mm=[1e-4] * len(measured["wavelength_nm"]),
+                    musp_sd_per_mm=[1e-3] * len(measured["wavelength_nm"]))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        plan = top_up(recipe, current_volume_ml=400.0, measured=measured, potencies=potencies)
+    added = {a["stock"]: a["volume_ml"] for a in plan.additions}
+    final = {k: (400.0 * weak[k] + added[k]) / plan.final_volume_ml for k in weak}
+    expected = predict(recipe, volume_fractions=final, potencies=potencies)
+    np.testing.assert_allclose(plan.predicted_musp_per_mm, expected.musp_per_mm, rtol=1e-6)
+    np.testing.assert_allclose(plan.predicted_mua_per_mm, expected.mua_per_mm, rtol=1e-6)
