@@ -1,0 +1,443 @@
+"""Time-resolved diffusion reflectance and transmittance of a half-space and a slab (layer 2).
+
+A short pulse (a delta in time) enters the top face z = 0 of a homogeneous medium (μa, μs′,
+index ``n``) normally; the first reduced interaction at depth z0 = 1/μs′ is an isotropic
+point source, and the photon density diffuses with D = 1/(3μs′) at the speed of light in the
+medium v = c/n.  The fluence rate of a unit impulse source in an infinite medium is
+
+    Φ∞(r, t) = v (4π D v t)^(−3/2) exp(−r²/(4 D v t) − μa v t)        (Patterson et al. 1989, eq. 3)
+
+and the boundaries are met by images.  Three models sit in :data:`TD_MODELS`:
+
+* ``patterson1989`` — zero fluence on the real surface (one negative image at −z0; for a
+  slab, the images of both faces), D = 1/(3(μa + μs′)), the light leaving is the flux
+  D ∂Φ/∂z (Patterson, Chance & Wilson 1989);
+* ``contini1997`` — the extrapolated boundary: zero fluence at z = −z_e and z = s + z_e,
+  z_e = 2AD with A from :mod:`phantomlab.transport.boundary`, the infinite series of image
+  pairs for a slab of thickness s, the flux by Fick's law (Contini, Martelli & Zaccanti
+  1997, eqs. 36 and 37); the half-space is the m = 0 pair;
+* ``kienle1997`` (default) — the same sources, with the light leaving taken as
+  C1 Φ + C2 J (the fluence-plus-flux combination of Kienle & Patterson 1997, whose
+  steady-state form is the project's default R(ρ) model ``srdr``), C1, C2 from the Fresnel
+  integrals (:func:`~phantomlab.transport.boundary.fluence_flux_coefficients_Kienle1997`).
+
+Image positions (Contini et al. 1997, eq. 35, written with s + 2z_e as the period): positive
+sources at z⁺ₘ = 2m(s + 2z_e) + z0 and negative ones at z⁻ₘ = 2m(s + 2z_e) − 2z_e − z0,
+m = 0, ±1, ±2, ...  At the top face (z = 0, outward −z) and the bottom face (z = s, outward
++z):
+
+    J_R(ρ, t) = (4πDv)^(−3/2) t^(−5/2) e^(−μa v t − ρ²/(4Dvt)) · ½ Σₘ [z⁺ₘ e^(−z⁺ₘ²/(4Dvt)) − z⁻ₘ e^(−z⁻ₘ²/(4Dvt))]
+    J_T(ρ, t) = (4πDv)^(−3/2) t^(−5/2) e^(−μa v t − ρ²/(4Dvt)) · ½ Σₘ [(s − z⁺ₘ) e^(−(s − z⁺ₘ)²/(4Dvt)) − (s − z⁻ₘ) e^(−(s − z⁻ₘ)²/(4Dvt))]
+
+which are Contini's eqs. 37 and 36 (his z₃,ₘ = −z⁺ₘ, z₄,ₘ = −z⁻ₘ, z₁,ₘ = s − z⁺ₘ,
+z₂,ₘ = s − z⁻ₘ).  The series is summed until the next term is below e^(−36) of the first.
+
+**Conventions.**  Every value is per unit energy *incident* on the surface, the specular
+reflection not counted: the papers' values (per unit energy that entered) are multiplied by
+the Fresnel transmission of the normally incident beam, T = 1 − ((n − n_outside)/(n +
+n_outside))² (DEVELOPERS.md, "Reflectance conventions").  Time t = 0 is the moment the pulse
+enters; for t ≤ 0 the value is 0.  ``contini1997`` and ``kienle1997`` use D = 1/(3μs′) (so
+μa enters only through e^(−μa v t), exactly as in transport theory for a homogeneous medium);
+``patterson1989`` keeps the paper's D = 1/(3(μa + μs′)).  The time integral of the flux of
+``contini1997`` is the steady-state flux of Farrell et al. 1992 with the same D and a unit
+source (checked in the tests); the steady-state ``srdr`` models use D = 1/(3μt′) and the
+source strength a′, so they differ from these integrals by O(μa/μs′).
+
+Diffusion is poor at early times (photons that have scattered a few times only), within
+about one transport mean free path of the source, and when μs′ is not ≫ μa; the last two
+raise a :class:`PhantomlabWarning`, the first is the fit's business (its window).
+
+References
+----------
+Patterson MS, Chance B, Wilson BC 1989, Appl Opt 28:2331–2336, doi:10.1364/AO.28.002331.
+Contini D, Martelli F, Zaccanti G 1997, Appl Opt 36:4587–4599, doi:10.1364/AO.36.004587.
+Kienle A, Patterson MS 1997, J Opt Soc Am A 14:246–254, doi:10.1364/JOSAA.14.000246.
+Farrell TJ, Patterson MS, Wilson B 1992, Med Phys 19:879–888, doi:10.1118/1.596777.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.transport.arguments import as_coefficient, as_index, as_length_grid, as_spectral, choose
+from phantomlab.transport.boundary import (
+    beam_entry_transmission,
+    boundary_coefficient,
+    fluence_flux_coefficients_Kienle1997,
+)
+
+__all__ = [
+    "SPEED_OF_LIGHT_MM_PER_PS",
+    "GEOMETRIES",
+    "TD_MODELS",
+    "TD_DEFAULT_BOUNDARY",
+    "time_resolved",
+    "td_diffusion_Patterson1989",
+    "td_diffusion_Contini1997",
+    "td_diffusion_Kienle1997",
+    "image_sources",
+    "light_speed_mm_per_ps",
+]
+
+#: Speed of light in vacuum [mm/ps] (exact: 299 792 458 m/s, SI definition of the metre).
+SPEED_OF_LIGHT_MM_PER_PS = 0.299792458
+
+#: Measurement geometries: light leaving the top face (the entry face) or the bottom face.
+GEOMETRIES = ("reflectance", "transmittance")
+
+#: The boundary method each model was published with (used when ``boundary=None``);
+#: ``patterson1989`` has no boundary coefficient (zero fluence on the surface).
+TD_DEFAULT_BOUNDARY = {"patterson1989": None, "contini1997": "haskell1994", "kienle1997": "haskell1994"}
+
+#: Image pairs are summed until exp(−(distance)²/(4Dvt)) of the next one falls below e^(−36).
+_SERIES_EXPONENT = 36.0
+#: Most image pairs on each side (a slab thinner than a transport length at long times).
+_MAX_IMAGES = 2000
+
+
+def light_speed_mm_per_ps(n) -> np.ndarray:
+    """Speed of light in a medium of index ``n`` [mm/ps]: c/n."""
+    return SPEED_OF_LIGHT_MM_PER_PS / np.asarray(as_index(n, "n"), dtype=float)
+
+
+@dataclass(frozen=True)
+class _Medium:
+    mua: np.ndarray  # [1/mm], shape S
+    musp: np.ndarray  # [1/mm]
+    d: np.ndarray  # diffusion coefficient [mm]
+    z0: np.ndarray  # source depth [mm]
+    zb: np.ndarray  # extrapolation distance [mm] (0: zero boundary)
+    v: np.ndarray  # speed in the medium [mm/ps]
+    n: np.ndarray
+    n_outside: np.ndarray
+    entry: np.ndarray  # Fresnel transmission of the normal beam
+
+
+def _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary, *, d_with_mua: bool) -> _Medium:
+    mua = as_coefficient(mua_per_mm, "mua_per_mm")
+    musp = as_coefficient(musp_per_mm, "musp_per_mm", strictly_positive=True)
+    n_arr = as_index(n, "n")
+    n_out = as_index(n_outside, "n_outside")
+    mua, musp, n_arr, n_out = as_spectral(mua_per_mm=mua, musp_per_mm=musp, n=n_arr, n_outside=n_out)
+    _warn_scattering_dominance(mua, musp)
+    d = 1.0 / (3.0 * (mua + musp)) if d_with_mua else 1.0 / (3.0 * musp)
+    if boundary is None:
+        zb = np.zeros_like(d)
+    else:
+        zb = 2.0 * np.asarray(boundary_coefficient(n=n_arr, n_outside=n_out, method=boundary)) * d
+    return _Medium(
+        mua=mua, musp=musp, d=d, z0=1.0 / musp, zb=zb, v=SPEED_OF_LIGHT_MM_PER_PS / n_arr,
+        n=n_arr, n_outside=n_out, entry=np.asarray(beam_entry_transmission(n=n_arr, n_outside=n_out)),
+    )
+
+
+def _warn_scattering_dominance(mua: np.ndarray, musp: np.ndarray) -> None:
+    from phantomlab.transport.diffusion import MIN_MUSP_TO_MUA_RATIO
+
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = np.where(mua > 0, musp / mua, np.inf)
+    finite = ratio[np.isfinite(ratio)]
+    if finite.size and finite.min() < MIN_MUSP_TO_MUA_RATIO:
+        warnings.warn(
+            f"diffusion is poor unless musp >> mua: musp/mua = {finite.min():.3g} here,"
+            f" wanted >= {MIN_MUSP_TO_MUA_RATIO:g}",
+            PhantomlabWarning,
+            stacklevel=4,
+        )
+
+
+def _warn_close_to_source(rho: np.ndarray, medium: _Medium, geometry: str) -> None:
+    if geometry != "reflectance":
+        return
+    mfp = medium.z0[np.isfinite(medium.z0)]
+    near = rho[np.isfinite(rho)]
+    if mfp.size and near.size and near.min() < mfp.max():
+        warnings.warn(
+            f"diffusion R(rho, t) is poor within one transport mean free path of the source:"
+            f" rho_mm = {near.min():.3g} < 1/musp = {mfp.max():.3g} mm",
+            PhantomlabWarning,
+            stacklevel=4,
+        )
+
+
+def _thickness(thickness_mm, geometry: str) -> float | None:
+    if geometry not in GEOMETRIES:
+        raise InputError(f"unknown geometry {geometry!r}; valid: {', '.join(GEOMETRIES)}")
+    if thickness_mm is None:
+        if geometry == "transmittance":
+            raise InputError("transmittance needs a slab: give thickness_mm > 0 [mm]")
+        return None
+    try:
+        value = float(thickness_mm)
+    except (TypeError, ValueError):
+        raise InputError(f"thickness_mm: expected a number in mm, got {thickness_mm!r}") from None
+    if not math.isfinite(value) or value <= 0:
+        raise InputError(f"thickness_mm must be finite and > 0 [mm] (None: half-space), got {thickness_mm!r}")
+    return value
+
+
+def image_sources(*, z0_mm, zb_mm, thickness_mm, pairs: int):
+    """Depths of the positive and negative image sources [mm] (Contini et al. 1997, eq. 35).
+
+    Parameters
+    ----------
+    z0_mm, zb_mm : float or array (S) [mm]
+        Source depth and extrapolation distance.
+    thickness_mm : float or None [mm]
+        Slab thickness; None for a half-space (only the m = 0 pair).
+    pairs : int
+        Image pairs on each side of m = 0 (ignored for a half-space).
+
+    Returns
+    -------
+    (ndarray, ndarray)
+        z⁺ₘ and z⁻ₘ of shape S + (M,), m = −pairs..pairs (M = 2 pairs + 1; 1 for a half-space).
+    """
+    z0 = np.asarray(z0_mm, dtype=float)[..., None]
+    zb = np.asarray(zb_mm, dtype=float)[..., None]
+    if thickness_mm is None:
+        m = np.zeros(1)
+        period = np.zeros_like(z0)
+    else:
+        m = np.arange(-pairs, pairs + 1, dtype=float)
+        period = 2.0 * (float(thickness_mm) + 2.0 * zb)
+    positive = m * period + z0
+    negative = m * period - 2.0 * zb - z0
+    return positive, negative
+
+
+def _pairs_needed(medium: _Medium, time: np.ndarray, thickness: float | None) -> int:
+    if thickness is None:
+        return 0
+    t = time[np.isfinite(time) & (time > 0)]
+    if t.size == 0:
+        return 0
+    spread = np.sqrt(4.0 * medium.d * medium.v * t.max() * _SERIES_EXPONENT)
+    period = 2.0 * (thickness + 2.0 * medium.zb)
+    ok = np.isfinite(spread) & np.isfinite(period)
+    if not np.any(ok):
+        return 0
+    pairs = int(np.ceil(np.max(spread[ok] / period[ok]))) + 1
+    return min(pairs, _MAX_IMAGES)
+
+
+def _surface_terms(medium: _Medium, rho: np.ndarray, time: np.ndarray, thickness: float | None, geometry: str):
+    """Fluence rate Φ and outward flux J on the chosen face, each of shape S + G [1/(mm² ps)].
+
+    Per unit energy that *entered* (a unit source at z0 and its images).
+    """
+    grid_rho, grid_t = np.broadcast_arrays(rho, time)
+    s_ndim = medium.mua.ndim
+    g_ndim = grid_t.ndim
+    extra = (None,) * g_ndim
+
+    def spread(values):
+        return values[(Ellipsis,) + extra]
+
+    t = grid_t[(None,) * s_ndim + (Ellipsis,)]
+    r = grid_rho[(None,) * s_ndim + (Ellipsis,)]
+    d, v, mua = spread(medium.d), spread(medium.v), spread(medium.mua)
+    pairs = _pairs_needed(medium, np.asarray(time, float), thickness)
+    positive, negative = image_sources(z0_mm=medium.z0, zb_mm=medium.zb, thickness_mm=thickness, pairs=pairs)
+    if geometry == "transmittance":
+        positive, negative = thickness - positive, thickness - negative
+    positive = positive[(Ellipsis,) + extra + (slice(None),)]  # S + (1,)*G + (M,)
+    negative = negative[(Ellipsis,) + extra + (slice(None),)]
+    live = t > 0
+    safe_t = np.where(live, t, 1.0)
+    four_dvt = 4.0 * d * v * safe_t
+    # log of (4π D v t)^(−3/2) e^(−μa v t − ρ²/(4Dvt)): kept in logs so that t → 0 gives 0, not inf·0
+    log_base = -1.5 * np.log(np.pi * four_dvt) - mua * v * safe_t - r * r / four_dvt
+    with np.errstate(over="ignore", invalid="ignore"):
+        e_pos = np.exp(log_base[..., None] - positive**2 / four_dvt[..., None])
+        e_neg = np.exp(log_base[..., None] - negative**2 / four_dvt[..., None])
+        fluence = v * np.sum(e_pos - e_neg, axis=-1)
+        # outward flux D ∂Φ/∂z at the top (−z outward); at the bottom the signs of the
+        # distances s − z carry the same form (Contini et al. 1997, eqs. 36-37)
+        flux = np.sum(positive * e_pos - negative * e_neg, axis=-1) / (2.0 * safe_t)
+    fluence = np.where(live, fluence, 0.0)
+    flux = np.where(live, flux, 0.0)
+    return fluence, flux
+
+
+def _evaluate(medium, rho_mm, time_ps, thickness_mm, geometry, combine):
+    thickness = _thickness(thickness_mm, geometry)
+    rho = as_length_grid(rho_mm, "rho_mm")
+    time = _time_grid(time_ps)
+    try:
+        np.broadcast_shapes(rho.shape, time.shape)
+    except ValueError:
+        raise InputError(
+            f"rho_mm {rho.shape} and time_ps {time.shape} must broadcast to one grid"
+        ) from None
+    _warn_close_to_source(rho, medium, geometry)
+    fluence, flux = _surface_terms(medium, rho, time, thickness, geometry)
+    grid_ndim = fluence.ndim - medium.mua.ndim
+    entry = medium.entry[(Ellipsis,) + (None,) * grid_ndim]
+    value = entry * combine(fluence, flux, grid_ndim)
+    return value[()] if value.ndim == 0 else value
+
+
+def _time_grid(time_ps) -> np.ndarray:
+    try:
+        values = np.asarray(time_ps, dtype=float)
+    except (TypeError, ValueError):
+        raise InputError(f"time_ps: expected numbers in ps, got {time_ps!r}") from None
+    if np.any(np.isinf(values)):
+        raise InputError("time_ps must be finite [ps]")
+    return values
+
+
+def td_diffusion_Patterson1989(
+    *, mua_per_mm, musp_per_mm, rho_mm, time_ps, n, n_outside=1.0, thickness_mm=None,
+    geometry="reflectance", boundary=None,
+):
+    """Time-resolved flux with zero fluence on the surface (Patterson, Chance & Wilson 1989).
+
+    Half-space reflectance (their eq. for R(ρ, t)):
+    R(ρ, t) = T (4πDv)^(−3/2) z0 t^(−5/2) exp(−μa v t) exp(−(ρ² + z0²)/(4Dvt)),
+    D = 1/(3(μa + μs′)), z0 = 1/μs′; a slab adds the images of both faces (the zero-boundary
+    case z_e = 0 of :func:`td_diffusion_Contini1997`'s series).  T is the beam's Fresnel
+    transmission (project convention, per unit incident energy).  ``boundary`` must be None:
+    the model has no boundary coefficient.
+
+    Parameters
+    ----------
+    mua_per_mm, musp_per_mm : float or array (S) [1/mm]
+    rho_mm : float or array [mm]
+        Distance from the beam axis (reflectance: source–detector distance; transmittance:
+        lateral offset from the axis).  Broadcast with ``time_ps`` to the grid G.
+    time_ps : float or array [ps]
+        Time after the pulse entered; values <= 0 give 0.
+    n, n_outside : float or array (S)
+    thickness_mm : float or None [mm]
+        Slab thickness; None for a half-space (reflectance only).
+    geometry : {'reflectance', 'transmittance'}
+
+    Returns
+    -------
+    ndarray (S + G) [1/(mm² ps)]
+        Power leaving per unit area and time per unit energy incident (entry loss inside).
+
+    References
+    ----------
+    Patterson, Chance & Wilson 1989, Appl Opt 28:2331 (zero-boundary dipole, R(ρ, t)).
+    """
+    if boundary is not None:
+        raise InputError("patterson1989 uses zero fluence on the surface: boundary must be None")
+    medium = _medium(mua_per_mm, musp_per_mm, n, n_outside, None, d_with_mua=True)
+    return _evaluate(medium, rho_mm, time_ps, thickness_mm, geometry, lambda phi, j, _g: j)
+
+
+def td_diffusion_Contini1997(
+    *, mua_per_mm, musp_per_mm, rho_mm, time_ps, n, n_outside=1.0, thickness_mm=None,
+    geometry="reflectance", boundary="haskell1994",
+):
+    """Time-resolved flux with the extrapolated boundary (Contini, Martelli & Zaccanti 1997).
+
+    R(ρ, t) = T J_R and T(ρ, t) = T J_T of the module docstring (Contini et al. eqs. 37, 36):
+    D = 1/(3μs′), z0 = 1/μs′, z_e = 2AD, the image series of a slab (the m = 0 pair for the
+    half-space).  Contini et al. take A from the Fresnel integrals (``haskell1994`` here).
+
+    Parameters
+    ----------
+    mua_per_mm, musp_per_mm, rho_mm, time_ps, n, n_outside, thickness_mm, geometry
+        As :func:`td_diffusion_Patterson1989`.
+    boundary : {'haskell1994', 'groenhuis1983'}
+        Method for A (:data:`phantomlab.transport.boundary.BOUNDARY_METHODS`).
+
+    Returns
+    -------
+    ndarray (S + G) [1/(mm² ps)]
+
+    References
+    ----------
+    Contini, Martelli & Zaccanti 1997, Appl Opt 36:4587 (eqs. 35–37).
+    """
+    medium = _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary, d_with_mua=False)
+    return _evaluate(medium, rho_mm, time_ps, thickness_mm, geometry, lambda phi, j, _g: j)
+
+
+def td_diffusion_Kienle1997(
+    *, mua_per_mm, musp_per_mm, rho_mm, time_ps, n, n_outside=1.0, thickness_mm=None,
+    geometry="reflectance", boundary="haskell1994",
+):
+    """Time-resolved light leaving a face as C1 Φ + C2 J (Kienle & Patterson 1997).
+
+    Φ and J are the fluence rate and outward flux of the extrapolated-boundary sources of
+    :func:`td_diffusion_Contini1997` on the face (D = 1/(3μs′)); C1 = (1 − R_φ)/4 and
+    C2 = (1 − R_j)/2 (0.118 and 0.306 at n = 1.4 in air).  Kienle & Patterson wrote it for the
+    half-space; on a slab the same combination is applied at either face (a departure: the
+    slab form is ours, the image series Contini's).
+
+    Parameters
+    ----------
+    As :func:`td_diffusion_Contini1997`.
+
+    Returns
+    -------
+    ndarray (S + G) [1/(mm² ps)]
+
+    References
+    ----------
+    Kienle & Patterson 1997, J Opt Soc Am A 14:246 (time-resolved R = C1 Φ + C2 J).
+    """
+    medium = _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary, d_with_mua=False)
+    c1, c2 = fluence_flux_coefficients_Kienle1997(n=medium.n, n_outside=medium.n_outside)
+
+    def combine(phi, j, grid_ndim):
+        extra = (Ellipsis,) + (None,) * grid_ndim
+        return np.asarray(c1)[extra] * phi + np.asarray(c2)[extra] * j
+
+    return _evaluate(medium, rho_mm, time_ps, thickness_mm, geometry, combine)
+
+
+#: Registry of time-resolved diffusion models (name → function).
+TD_MODELS: dict[str, Callable] = {
+    "kienle1997": td_diffusion_Kienle1997,
+    "contini1997": td_diffusion_Contini1997,
+    "patterson1989": td_diffusion_Patterson1989,
+}
+
+
+def time_resolved(
+    *, mua_per_mm, musp_per_mm, rho_mm, time_ps, n, n_outside=1.0, thickness_mm=None,
+    geometry="reflectance", model="kienle1997", boundary=None,
+):
+    """Time-resolved diffuse reflectance or transmittance by a named diffusion model.
+
+    Parameters
+    ----------
+    mua_per_mm, musp_per_mm : float or array (S) [1/mm]
+    rho_mm : float or array [mm]
+        Distance from the beam axis; broadcast with ``time_ps`` into the grid G.
+    time_ps : float or array [ps]
+        Time after the pulse entered the medium.
+    n, n_outside : float or array (S)
+    thickness_mm : float or None [mm]
+        Slab thickness (None: half-space; transmittance needs it).
+    geometry : {'reflectance', 'transmittance'}
+    model : {'kienle1997', 'contini1997', 'patterson1989'}
+        See :data:`TD_MODELS`; unknown names are refused with the valid list.
+    boundary : {'haskell1994', 'groenhuis1983'} or None
+        Method for A; None takes the model's published choice (:data:`TD_DEFAULT_BOUNDARY`).
+
+    Returns
+    -------
+    ndarray (S + G) [1/(mm² ps)]
+        ``reflectance_per_mm2_per_ps`` or ``transmittance_per_mm2_per_ps``: power leaving per
+        unit area and time per unit energy incident on the surface (specular reflection not
+        counted).
+    """
+    function = choose(TD_MODELS, model, "time-resolved model")
+    method = TD_DEFAULT_BOUNDARY[model] if boundary is None else boundary
+    return function(
+        mua_per_mm=mua_per_mm, musp_per_mm=musp_per_mm, rho_mm=rho_mm, time_ps=time_ps, n=n,
+        n_outside=n_outside, thickness_mm=thickness_mm, geometry=geometry, boundary=method,
+    )
