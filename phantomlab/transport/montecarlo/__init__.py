@@ -10,6 +10,7 @@ from phantomlab.transport.montecarlo.simulate import (
     rho_bin_edges_mm,
     simulate,
     specular_reflectance,
+    time_bin_edges_ps,
     warm_up,
 )
 
@@ -21,5 +22,6 @@ __all__ = [
     "rho_bin_edges_mm",
     "simulate",
     "specular_reflectance",
+    "time_bin_edges_ps",
     "warm_up",
 ]

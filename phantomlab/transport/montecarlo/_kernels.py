@@ -43,7 +43,7 @@ from numba import njit, prange
 
 from phantomlab.transport.montecarlo._random import uniform
 
-__all__ = ["TALLY_NAMES", "run_3d", "run_3d_finite", "run_rod", "boundary_reflectance", "fresnel_reflectance"]
+__all__ = ["TALLY_NAMES", "run_3d", "run_3d_finite", "run_3d_timed", "run_rod", "boundary_reflectance", "fresnel_reflectance"]
 
 #: Names of the per-batch tally columns, in order.
 TALLY_NAMES = (
@@ -128,17 +128,24 @@ def _photons_3d(
     n_photons, state, mua, mus, g, n_medium, n_top, n_slide_top, n_bottom, n_slide_bottom,
     thickness, analog, launch_weight, threshold, survival, rho_edges, tallies, rho_weights,
     record, rec_rho, rec_path, rec_nscat, rho_t_weights, beam_radius, edge_radius, extra,
+    path_edges, path_weights, path_gate,
 ):
     # rho_t_weights: radial tally of the light leaving the bottom face (same bins as the top);
     # beam_radius > 0: photons enter uniformly over a disc of that radius (0: a pencil beam,
     # no random numbers drawn for it, so pencil-beam runs are unchanged); edge_radius: the
     # sample ends there (math.inf: no edge), light reaching it is lost and tallied in extra[0].
+    # path_edges (>= 2 edges) with rho_edges: the time-resolved tally path_weights[face, ρ, path]
+    # of both faces; path_gate (math.inf: none) drops a photon once its path passes it.
     mut = mua + mus
     albedo = mus / mut if mut > 0.0 else 0.0
     n_edges = rho_edges.shape[0]
     has_rho = n_edges >= 2
     rho_lo = rho_edges[0] if has_rho else 0.0
     rho_hi = rho_edges[n_edges - 1] if has_rho else 0.0
+    n_path_edges = path_edges.shape[0]
+    has_path = has_rho and n_path_edges >= 2
+    path_lo = path_edges[0] if has_path else 0.0
+    path_hi = path_edges[n_path_edges - 1] if has_path else 0.0
     isotropic = g == 0.0
     g2 = g * g
     has_edge = edge_radius < math.inf
@@ -181,10 +188,15 @@ def _photons_3d(
                         extra[0] += weight
                         weight = 0.0
                         alive = False
+                    elif path > path_gate:  # time gate: the photon is dropped, its weight untallied
+                        alive = False
                     break
                 x += to_boundary * ux
                 y += to_boundary * uy
                 path += to_boundary
+                if path > path_gate:
+                    alive = False
+                    break
                 depth -= to_boundary * mut
                 if has_edge and x * x + y * y > edge2:  # the face ends before this point
                     extra[0] += weight
@@ -209,6 +221,13 @@ def _photons_3d(
                     weight = weight * reflect
                     uz = -uz
                 if escaped > 0.0:
+                    if has_path and path >= path_lo and path < path_hi:
+                        # time-resolved tally: face (0 top, 1 bottom) x radius x path length
+                        lateral = math.sqrt(x * x + y * y)
+                        if lateral >= rho_lo and lateral < rho_hi:
+                            r_bin = np.searchsorted(rho_edges, lateral, side="right") - 1
+                            p_bin = np.searchsorted(path_edges, path, side="right") - 1
+                            path_weights[0 if at_top else 1, r_bin, p_bin] += escaped
                     if at_top:
                         if nscat == 0:
                             tallies[_UR] += escaped
@@ -373,6 +392,7 @@ def run_3d(
             n_slide_top, n_bottom, n_slide_bottom, thickness, analog, launch_weight, threshold,
             survival, rho_edges, tallies[batch], rho_weights[batch], record, rec_rho[batch],
             rec_path[batch], rec_nscat[batch], unused_t, 0.0, math.inf, unused_extra,
+            np.zeros(0), np.zeros((2, 1, 1)), math.inf,
         )
 
 
@@ -392,6 +412,34 @@ def run_3d_finite(
             n_slide_top, n_bottom, n_slide_bottom, thickness, analog, launch_weight, threshold,
             survival, rho_edges, tallies[batch], rho_weights[batch], False, empty_f, empty_f, empty_u,
             rho_t_weights[batch], beam_radius, edge_radius, extra[batch],
+            np.zeros(0), np.zeros((2, 1, 1)), math.inf,
+        )
+
+
+@njit(cache=True, parallel=True)
+def run_3d_timed(
+    photons_per_batch, states, mua, mus, g, n_medium, n_top, n_slide_top, n_bottom,
+    n_slide_bottom, thickness, analog, launch_weight, threshold, survival, rho_edges, tallies, rho_weights,
+    path_edges, path_weights, path_gate,
+):
+    """:func:`run_3d` with a time-resolved tally and no exit recording.
+
+    ``path_weights`` (B, 2, R, P): weight leaving the top (0) and bottom (1) face per batch,
+    radial bin (``rho_edges``, the lateral distance from the beam axis on either face) and
+    bin of total path length inside the medium (``path_edges`` [mm]; time = path / (c/n)).
+    ``path_gate`` [mm] (inf: none) drops a photon as soon as its path exceeds it: its weight
+    is then in no tally (a time gate, which bounds the cost of weakly absorbing media).
+    """
+    empty_f = np.zeros(0, dtype=np.float32)
+    empty_u = np.zeros(0, dtype=np.uint16)
+    for batch in prange(photons_per_batch.shape[0]):
+        unused_t = np.zeros(rho_weights.shape[1])
+        unused_extra = np.zeros(1)
+        _photons_3d(
+            photons_per_batch[batch], states[batch], mua, mus, g, n_medium, n_top,
+            n_slide_top, n_bottom, n_slide_bottom, thickness, analog, launch_weight, threshold,
+            survival, rho_edges, tallies[batch], rho_weights[batch], False, empty_f, empty_f, empty_u,
+            unused_t, 0.0, math.inf, unused_extra, path_edges, path_weights[batch], path_gate,
         )
 
 

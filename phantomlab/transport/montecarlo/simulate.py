@@ -36,11 +36,13 @@ from phantomlab.transport.montecarlo._validate import (
     check_rho_grid,
     check_threads,
 )
+from phantomlab.transport.time_domain import SPEED_OF_LIGHT_MM_PER_PS
 
 __all__ = [
     "MonteCarloResult",
     "simulate",
     "rho_bin_edges_mm",
+    "time_bin_edges_ps",
     "specular_reflectance",
     "warm_up",
     "ESTIMATORS",
@@ -105,6 +107,20 @@ class MonteCarloResult:
         Simulation wall time, JIT compilation excluded.
     figure_of_merit : float [1/s]
         1 / (σ² t) with σ the standard error of the diffuse reflectance and t ``seconds``.
+    time_ps, time_edges_ps : ndarray or None [ps]
+        Time bin centres as given and their edges (midpoints), when a time grid was given;
+        time 0 is the moment the photon enters the medium, time = path length inside the
+        medium / (c/n).
+    reflectance_per_mm2_per_ps, reflectance_per_mm2_per_ps_sd : ndarray (R, T) or None [1/(mm² ps)]
+        Time-resolved reflectance: power leaving the top face per unit area (annulus average
+        over the ``rho_mm`` bins) and per unit time (average over the time bin), per unit
+        incident energy (entry loss inside, specular reflection not counted).
+    transmittance_per_mm2_per_ps, transmittance_per_mm2_per_ps_sd : ndarray (R, T) or None
+        The same for the bottom face of a slab, ``rho_mm`` then being the lateral distance from
+        the beam axis (None for a semi-infinite medium).
+    gated_fraction, gated_fraction_sd : float or None
+        With ``time_gate=True``: the light dropped when its path passed the last time edge
+        (in no other tally, so R + T + A + gated = 1 + roulette_balance); None otherwise.
     """
 
     geometry: str
@@ -146,6 +162,14 @@ class MonteCarloResult:
     interactions: int
     seconds: float
     figure_of_merit: float
+    time_ps: np.ndarray | None = None
+    time_edges_ps: np.ndarray | None = None
+    reflectance_per_mm2_per_ps: np.ndarray | None = None
+    reflectance_per_mm2_per_ps_sd: np.ndarray | None = None
+    transmittance_per_mm2_per_ps: np.ndarray | None = None
+    transmittance_per_mm2_per_ps_sd: np.ndarray | None = None
+    gated_fraction: float | None = None
+    gated_fraction_sd: float | None = None
 
     @property
     def interactions_per_second(self) -> float:
@@ -161,6 +185,11 @@ class MonteCarloResult:
         payload = asdict(self)
         if self.rho_mm is None:
             for key in ("rho_mm", "rho_edges_mm", "reflectance_per_mm2", "reflectance_per_mm2_sd"):
+                payload.pop(key)
+        for key in ("time_ps", "time_edges_ps", "reflectance_per_mm2_per_ps", "reflectance_per_mm2_per_ps_sd",
+                    "transmittance_per_mm2_per_ps", "transmittance_per_mm2_per_ps_sd", "gated_fraction",
+                    "gated_fraction_sd"):
+            if payload.get(key) is None:
                 payload.pop(key)
         payload["interactions_per_second"] = self.interactions_per_second
         return payload
@@ -182,6 +211,33 @@ def rho_bin_edges_mm(rho_mm) -> np.ndarray:
     ndarray [mm], shape (R + 1,)
     """
     centres = check_rho_grid(rho_mm)
+    edges = np.empty(centres.size + 1)
+    edges[1:-1] = 0.5 * (centres[1:] + centres[:-1])
+    edges[0] = max(0.0, centres[0] - 0.5 * (centres[1] - centres[0]))
+    edges[-1] = centres[-1] + 0.5 * (centres[-1] - centres[-2])
+    return edges
+
+
+def time_bin_edges_ps(time_ps) -> np.ndarray:
+    """Bin edges [ps] for time bin centres: midpoints, first and last half a step outside.
+
+    Parameters
+    ----------
+    time_ps : array_like [ps]
+        At least two strictly increasing times >= 0 (bin centres).
+
+    Returns
+    -------
+    ndarray [ps], shape (T + 1,)
+    """
+    try:
+        centres = np.asarray(time_ps, dtype=float)
+    except (TypeError, ValueError):
+        raise InputError(f"time_ps must be a list of times [ps], got {time_ps!r}") from None
+    if centres.ndim != 1 or centres.size < 2 or not np.all(np.isfinite(centres)):
+        raise InputError("time_ps must hold at least two finite times [ps]")
+    if np.any(centres < 0) or np.any(np.diff(centres) <= 0):
+        raise InputError("time_ps must be >= 0 and strictly increasing [ps]")
     edges = np.empty(centres.size + 1)
     edges[1:-1] = 0.5 * (centres[1:] + centres[:-1])
     edges[0] = max(0.0, centres[0] - 0.5 * (centres[1] - centres[0]))
@@ -279,7 +335,23 @@ def _warm_kernels() -> None:
                          analog, 1.0, 1e-4, 0.1, tallies)
 
 
-def _check_common(*, mua_per_mm, mus_per_mm, g, n, n_outside, n_slide, thickness_mm):
+def _warm_timed_kernel() -> None:
+    """Compile (or load) the time-resolved kernel on its first use in a process."""
+    if "timed" in _WARMED:
+        return
+    with KERNEL_LOCK:
+        states = batch_states(0, 1)
+        counts = np.ones(1, dtype=np.int64)
+        tallies = np.zeros((1, len(_kernels.TALLY_NAMES)))
+        edges = np.array([0.0, 1.0])
+        for analog in (False, True):
+            _kernels.run_3d_timed(counts, states.copy(), 0.1, 1.0, 0.5, 1.4, 1.0, 0.0, 1.0, 0.0, math.inf,
+                                  analog, 1.0, 1e-4, 0.1, edges, tallies, np.zeros((1, 1)), edges,
+                                  np.zeros((1, 2, 1, 1)), math.inf)
+        _WARMED.add("timed")
+
+
+def _check_common(*, mua_per_mm, mus_per_mm, g, n, n_outside, n_slide, thickness_mm, gated=False):
     mua = check_coefficient("mua_per_mm", mua_per_mm)
     mus = check_coefficient("mus_per_mm", mus_per_mm)
     g = check_anisotropy(g)
@@ -294,10 +366,10 @@ def _check_common(*, mua_per_mm, mus_per_mm, g, n, n_outside, n_slide, thickness
         slide = (value, value)
     if thickness_mm is None:
         thickness = None
-        if mua == 0.0:
+        if mua == 0.0 and not gated:
             raise InputError(
                 "mua_per_mm = 0 in a semi-infinite medium gives unbounded photon paths; "
-                "give mua_per_mm > 0 or a thickness_mm"
+                "give mua_per_mm > 0, a thickness_mm, or a time grid with time_gate=True"
             )
     else:
         thickness = check_coefficient("thickness_mm", thickness_mm)
@@ -308,10 +380,17 @@ def _check_common(*, mua_per_mm, mus_per_mm, g, n, n_outside, n_slide, thickness
 
 def _launch(geometry, counts, states, mua, mus, g, backscatter, n, n_outside, slide_top,
             slide_bottom, depth, analog, launch_weight, roulette_threshold, roulette_survival,
-            kernel_edges, tallies, rho_weights, batches) -> float:
+            kernel_edges, tallies, rho_weights, batches, path_edges=None, path_weights=None,
+            path_gate=math.inf) -> float:
     """Run the kernel of one geometry; return its wall time [s]."""
     start = time.perf_counter()
-    if geometry == "3d":
+    if path_edges is not None:
+        _kernels.run_3d_timed(
+            counts, states, mua, mus, g, n, n_outside, slide_top, n_outside, slide_bottom,
+            depth, analog, launch_weight, roulette_threshold * launch_weight, roulette_survival,
+            kernel_edges, tallies, rho_weights, path_edges, path_weights, path_gate,
+        )
+    elif geometry == "3d":
         _kernels.run_3d(
             counts, states, mua, mus, g, n, n_outside, slide_top, n_outside, slide_bottom,
             depth, analog, launch_weight, roulette_threshold * launch_weight, roulette_survival,
@@ -335,6 +414,8 @@ def simulate(
     n_outside=1.0,
     thickness_mm=None,
     rho_mm=None,
+    time_ps=None,
+    time_gate=False,
     photons,
     seed=0,
     threads=None,
@@ -372,6 +453,15 @@ def simulate(
     rho_mm : array_like or None [mm]
         Radial bin centres for R(ρ) (>= 2, increasing); bin edges are the midpoints between
         neighbours (see :func:`rho_bin_edges_mm`).  Not allowed in rod geometry.
+    time_ps : array_like or None [ps]
+        Time bin centres (>= 2, increasing, >= 0) for the time-resolved tally of both faces;
+        edges at the midpoints, as for ``rho_mm`` (which it needs).  Time is the path length
+        inside the medium over the speed c/n (slides add no time).
+    time_gate : bool, default False
+        With ``time_ps``: drop every photon whose path passes the last time edge (a time
+        gate: the tallies then count only light that left in time, ``gated_fraction`` the
+        rest).  Bounds the cost of weakly absorbing media and allows μa = 0 in a
+        semi-infinite medium; the time-resolved values inside the window are unchanged.
     photons : int
         Photons launched, >= 1.
     seed : int, default 0
@@ -428,7 +518,7 @@ def simulate(
     """
     mua, mus, g, n, n_outside, slide, thickness = _check_common(
         mua_per_mm=mua_per_mm, mus_per_mm=mus_per_mm, g=g, n=n, n_outside=n_outside,
-        n_slide=n_slide, thickness_mm=thickness_mm,
+        n_slide=n_slide, thickness_mm=thickness_mm, gated=bool(time_gate) and time_ps is not None,
     )
     photons = check_count("photons", photons)
     seed = check_count("seed", seed, minimum=0)
@@ -454,6 +544,13 @@ def simulate(
             raise InputError("backscatter_probability is for geometry='rod' only")
         backscatter = None
     edges = rho_bin_edges_mm(rho_mm) if rho_mm is not None else None
+    time_edges = None
+    if time_ps is not None:
+        if edges is None:
+            raise InputError("time_ps needs rho_mm (the time-resolved tally is per radial bin)")
+        if geometry != "3d":
+            raise InputError("time_ps is not available in rod geometry")
+        time_edges = time_bin_edges_ps(time_ps)
     batches = min(batches, photons)
 
     specular = specular_reflectance(n=n, n_outside=n_outside, n_slide=slide[0])
@@ -468,6 +565,14 @@ def simulate(
     n_bins = 0 if edges is None else edges.size - 1
     rho_weights = np.zeros((batches, max(n_bins, 1)))
     kernel_edges = np.zeros(0) if edges is None else edges
+    path_edges = path_weights = None
+    path_gate = math.inf
+    if time_edges is not None:
+        path_edges = time_edges * (SPEED_OF_LIGHT_MM_PER_PS / n)
+        if time_gate:
+            path_gate = float(path_edges[-1])
+        path_weights = np.zeros((batches, 2, n_bins, time_edges.size - 1))
+        _warm_timed_kernel()
 
     warm_up()
     with KERNEL_LOCK:
@@ -481,7 +586,7 @@ def simulate(
                 seconds += _launch(geometry, chunk, states, mua, mus, g, backscatter, n, n_outside,
                                    slide_top, slide_bottom, depth, analog, launch_weight,
                                    roulette_threshold, roulette_survival, kernel_edges, tallies,
-                                   rho_weights, batches)
+                                   rho_weights, batches, path_edges, path_weights, path_gate)
                 remaining -= chunk
                 if progress is not None:
                     progress(int(photons - remaining.sum()), photons)
@@ -511,6 +616,28 @@ def simulate(
         areas = math.pi * (edges[1:] ** 2 - edges[:-1] ** 2)
         mean, se = _mean_and_se(rho_weights, counts)
         rho_values, rho_sd = mean / areas, se / areas
+    timed: dict = {}
+    if time_edges is not None:
+        areas = math.pi * (edges[1:] ** 2 - edges[:-1] ** 2)
+        widths = np.diff(time_edges)
+        cell = areas[:, None] * widths[None, :]
+        mean, se = _mean_and_se(path_weights, counts)  # (2, R, T)
+        timed = {
+            "time_ps": np.asarray(time_ps, dtype=float),
+            "time_edges_ps": time_edges,
+            "reflectance_per_mm2_per_ps": mean[0] / cell,
+            "reflectance_per_mm2_per_ps_sd": se[0] / cell,
+        }
+        if thickness is not None:
+            timed["transmittance_per_mm2_per_ps"] = mean[1] / cell
+            timed["transmittance_per_mm2_per_ps_sd"] = se[1] / cell
+        if math.isfinite(path_gate):
+            accounted = tallies[:, [names.index(k) for k in (
+                "scattered_reflectance", "unscattered_reflectance", "diffuse_transmittance",
+                "unscattered_transmittance", "absorbed_fraction")]].sum(axis=1)
+            dropped = counts * launch_weight + tallies[:, names.index("roulette")] - accounted
+            gated, gated_se = _mean_and_se(dropped, counts)
+            timed["gated_fraction"], timed["gated_fraction_sd"] = float(gated), float(gated_se)
     sigma = estimates["diffuse_reflectance_sd"]
     figure_of_merit = 1.0 / (sigma**2 * seconds) if sigma > 0 and seconds > 0 else math.inf
 
@@ -539,4 +666,5 @@ def simulate(
         seconds=seconds,
         figure_of_merit=figure_of_merit,
         **estimates,
+        **timed,
     )
