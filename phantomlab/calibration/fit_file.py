@@ -28,13 +28,16 @@ FIT_MODELS: dict[str, tuple[str, ...]] = {
     "slab": ("adding-doubling",),
     "sphere": ("adding-doubling",),
     "optics": ("direct",),
+    # time domain: diffusion until the cached default baseline makes the Monte Carlo lookup practical
+    "td": ("kienle1997", "contini1997", "patterson1989", "mc"),
+    "fd": ("kienle1997", "contini1997", "mc", "fantini1994"),
 }
 DEFAULT_MODELS = {kind: models[0] for kind, models in FIT_MODELS.items()}
 
 _METADATA_OPTIONS = ("n", "n_outside", "thickness_mm", "g", "n_slide", "slide_thickness_mm", "slides",
                      "specular_included", "unscattered_included", "port_diameter_mm", "beam_diameter_mm",
                      "sample_diameter_mm", "lost_light", "lost_light_photons", "lost_light_wavelengths",
-                     "reference", "sidecar")
+                     "reference", "sidecar", "irf", "geometry")
 
 
 def _load_baseline(baseline):
@@ -88,6 +91,9 @@ def fit_measurement(
         from phantomlab.calibration.fit_sphere import fit_sphere
 
         return fit_sphere(measurement, n=n, n_outside=n_outside, g=g)
+    if kind in ("td", "fd") and constraint is not None:
+        raise InputError(f"{kind} fits take no spectral constraint (--musp-power-law, --mua-from-stocks); "
+                         "each wavelength is fitted on its own")
     if measurement.scale == "raw":
         from phantomlab.calibration.reference import calibrate_reading
 
@@ -100,6 +106,14 @@ def fit_measurement(
         from phantomlab.calibration.fit_sfdi import fit_sfdi
 
         return fit_sfdi(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline, constraint=constraint)
+    if kind == "td":
+        from phantomlab.calibration.fit_td import fit_td
+
+        return fit_td(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline)
+    if kind == "fd":
+        from phantomlab.calibration.fit_fd import fit_fd
+
+        return fit_fd(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline)
     if kind == "slab":
         from phantomlab.calibration.fit_slab import fit_slab
 
@@ -118,13 +132,14 @@ def fit_measurement_file(path_or_text, *, kind: str, **metadata: Any) -> FitResu
         A CSV file (its TOML sidecar ``NAME.toml`` is read when present), or the CSV text
         itself (a string with a line break).  A list or tuple gives replicate measurements
         of one phantom, combined with their spread before the fit.
-    kind : {'srdr', 'sfdi', 'slab', 'sphere', 'optics'}
+    kind : {'srdr', 'sfdi', 'slab', 'sphere', 'optics', 'td', 'fd'}
     **metadata
         Options that win over the sidecar: ``n``, ``n_outside``, ``thickness_mm`` [mm],
         ``g``, ``n_slide``, ``slide_thickness_mm`` [mm], ``slides``, ``specular_included``,
         ``port_diameter_mm``, ``beam_diameter_mm``, ``reference`` (a mapping like the
         sidecar's ``[reference]`` table), ``sidecar`` (a mapping used instead of the TOML
-        file, e.g. the metadata stored with a measurement); and the fit's own ``model``,
+        file, e.g. the metadata stored with a measurement), ``irf`` (td: the IRF CSV) and
+        ``geometry`` (td: reflectance or transmittance); and the fit's own ``model``,
         ``baseline`` (a Baseline or a path to one) and ``constraint`` (SpectralConstraint).
         None values are ignored.
 

@@ -13,7 +13,10 @@ per point, an optional first line ``# source: ...``:
 * ``sphere`` ``wavelength_nm,r_sample,r_standard,r_dark,t_sample,t_open,t_dark``
   ``[,tc_sample,tc_open,tc_dark]``: raw detector readings of integrating spheres, the sphere
   geometry in the sidecar's ``[sphere]`` table (:mod:`phantomlab.calibration.sphere_readings`);
-* ``optics`` ``wavelength_nm,mua_per_mm,musp_per_mm[,mua_sd_per_mm,musp_sd_per_mm]``.
+* ``optics`` ``wavelength_nm,mua_per_mm,musp_per_mm[,mua_sd_per_mm,musp_sd_per_mm]``;
+* ``td`` and ``fd`` (photon-arrival histograms with their IRF; AC amplitude and phase) have
+  their own readers, :mod:`phantomlab.calibration.td_measurements` and
+  :mod:`phantomlab.calibration.fd_measurements`; :func:`read_measurement` hands them over.
 
 Metadata sit in a TOML file of the same name beside the CSV (``m1.csv`` → ``m1.toml``) or
 come as keyword arguments (which win over the sidecar).  Everything that cannot be accepted
@@ -50,7 +53,9 @@ __all__ = [
 
 #: Measurement kinds and the abscissa column each one has (None: one point per wavelength).
 KINDS: dict[str, str | None] = {"srdr": "rho_mm", "sfdi": "fx_per_mm", "slab": None, "sphere": None,
-                                "optics": None}
+                                "optics": None, "td": "rho_mm", "fd": "rho_mm"}
+#: Kinds read by their own modules (td_measurements, fd_measurements).
+OWN_READER_KINDS = ("td", "fd")
 
 #: Raw sphere readings (kind ``sphere``): reflection, transmission, optional collimated beam.
 SPHERE_READING_COLUMNS = ("r_sample", "r_standard", "r_dark", "t_sample", "t_open", "t_dark")
@@ -354,6 +359,8 @@ def parse_measurement_text(
         One line naming the row (and file line) and the column of the first problem.
     """
     _check_kind(kind)
+    if kind in OWN_READER_KINDS:
+        return _own_reader(kind)(text if "\n" in text else text + "\n")
     metadata = metadata or MeasurementMetadata()
     check_limit("file_mb", len(text) / 1e6, given=f"measurement {name!r}")
     if text.startswith("\ufeff"):  # a byte-order mark (spreadsheet export)
@@ -648,6 +655,8 @@ def read_measurement(path_or_text, *, kind: str, **options) -> Measurement:
     Measurement
     """
     _check_kind(kind)
+    if kind in OWN_READER_KINDS:
+        return _own_reader(kind)(path_or_text, **options)
     options = {k: v for k, v in options.items() if v is not None}
     sidecar_given = options.pop("sidecar", None)
     if isinstance(path_or_text, Path) or ("\n" not in str(path_or_text)):
@@ -666,6 +675,16 @@ def read_measurement(path_or_text, *, kind: str, **options) -> Measurement:
     table.update(options)
     metadata = metadata_from_mapping(table, where=where, base_dir=base_dir, kind=kind)
     return parse_measurement_text(text, kind=kind, name=name, metadata=metadata)
+
+
+def _own_reader(kind: str):
+    if kind == "td":
+        from phantomlab.calibration.td_measurements import read_td
+
+        return read_td
+    from phantomlab.calibration.fd_measurements import read_fd
+
+    return read_fd
 
 
 def combine_replicates(measurements: Sequence[Measurement]) -> Measurement:
@@ -689,6 +708,14 @@ def combine_replicates(measurements: Sequence[Measurement]) -> Measurement:
     if not items:
         raise InputError("combine_replicates: no measurements given")
     first = items[0]
+    if getattr(first, "kind", None) == "td":
+        from phantomlab.calibration.td_measurements import combine_td_replicates
+
+        return combine_td_replicates(items)
+    if getattr(first, "kind", None) == "fd":
+        from phantomlab.calibration.fd_measurements import combine_fd_replicates
+
+        return combine_fd_replicates(items)
     for other in items[1:]:
         if other.kind != first.kind or other.scale != first.scale:
             raise InputError(

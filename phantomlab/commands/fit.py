@@ -1,7 +1,8 @@
 """``phantomlab fit``: fitted μa and μs′ of a measurement file (layer 5, no physics).
 
-    phantomlab fit MEASUREMENT.csv --kind {srdr,sfdi,slab,sphere,optics} [--n N] [--n-outside N]
-                   [--thickness-mm D] [--model M] [--g G] [--baseline FILE]
+    phantomlab fit MEASUREMENT.csv --kind {srdr,sfdi,slab,sphere,optics,td,fd} [--n N] [--n-outside N]
+                   [--thickness-mm D] [--model M] [--g G] [--baseline FILE] [--irf IRF.csv]
+                   [--geometry {reflectance,transmittance}]
                    [--musp-power-law] [--mua-from-stocks RECIPE.toml] [--json]
 
 JSON keys (docs/contract.md): ``wavelength_nm``, ``mua_per_mm``, ``musp_per_mm``, ``mua_sd_per_mm``,
@@ -11,7 +12,11 @@ JSON keys (docs/contract.md): ``wavelength_nm``, ``mua_per_mm``, ``musp_per_mm``
 (null when g was given), ``g_fitted``, ``total_reflectance``, ``total_transmittance`` (and
 ``collimated_transmittance``) with ``*_sd`` — for ``sphere`` derived from the readings — the
 model's values, and the lost-light keys when corrected.  Several files after each other are
-replicates of one phantom, combined with their spread.
+replicates of one phantom, combined with their spread (td: histograms summed).
+td adds ``time_shift_ps``, ``time_shift_sd_ps``, ``rho_mm``, ``amplitude``,
+``background_counts`` (per wavelength and distance); fd adds ``phase_offset_deg``,
+``phase_offset_sd_deg``, ``frequency_mhz`` when the phase offset was fitted, and
+``amplitude_scale_factor`` for a relative amplitude.
 """
 
 from __future__ import annotations
@@ -26,26 +31,32 @@ __all__ = ["register"]
 def register(subparsers) -> None:
     parser = subparsers.add_parser(
         "fit",
-        help="fit mua and mus' to a measurement file (srdr, sfdi, slab, sphere, optics)",
+        help="fit mua and mus' to a measurement file (srdr, sfdi, slab, sphere, optics, td, fd)",
         description="Inverse fit of a measurement file: mua and mus' per wavelength with SDs. "
         "Metadata come from NAME.toml beside the file; options win over it.",
     )
     parser.add_argument("files", nargs="+", metavar="MEASUREMENT.csv",
                         help="the measurement file (several: replicates of one phantom)")
-    parser.add_argument("--kind", required=True, choices=("srdr", "sfdi", "slab", "sphere", "optics"),
-                        help="sphere: raw integrating-sphere readings, the spheres described in the sidecar")
+    parser.add_argument("--kind", required=True, choices=("srdr", "sfdi", "slab", "sphere", "optics", "td", "fd"),
+                        help="sphere: raw integrating-sphere readings, the spheres described in the sidecar; "
+                        "td: time-resolved histograms with their IRF; fd: AC amplitude and phase")
     parser.add_argument("--n", type=float, default=None, metavar="N", help="refractive index of the phantom")
     parser.add_argument("--n-outside", type=float, default=None, metavar="N",
                         help="refractive index outside (default 1.0, air)")
     parser.add_argument("--thickness-mm", type=float, default=None, metavar="D", help="slab thickness in mm")
     parser.add_argument("--model", default=None, metavar="M",
                         help="srdr: kienle1997 (default), farrell1992, mc; sfdi: cuccia2009 (default), mc; "
-                        "slab, sphere: adding-doubling")
+                        "slab, sphere: adding-doubling; td: kienle1997 (default), contini1997, patterson1989, mc; "
+                        "fd: kienle1997 (default), contini1997, mc, fantini1994 (slope method)")
     parser.add_argument("--g", type=float, default=None, metavar="G",
                         help="anisotropy assumed (slab, sphere); without it g is fitted from the collimated "
                         "transmittance when the file has it")
     parser.add_argument("--baseline", default=None, metavar="FILE",
                         help="stored Monte Carlo baseline for --model mc")
+    parser.add_argument("--irf", default=None, metavar="IRF.csv",
+                        help="td: the instrument response (time_ps,counts), instead of irf = ... in the sidecar")
+    parser.add_argument("--geometry", default=None, choices=("reflectance", "transmittance"),
+                        help="td: reflectance (default) or transmittance through a slab (needs --thickness-mm)")
     parser.add_argument("--musp-power-law", action="store_true",
                         help="fit mus' as a power law a (lambda/500 nm)^-b jointly across the band")
     parser.add_argument("--mua-from-stocks", metavar="RECIPE.toml", default=None,
@@ -101,6 +112,17 @@ def _table(result) -> str:
         from phantomlab.recipe.cautions import CHARACTERISATION_CAUTION, CLOSING_LINE, SPHERE_COATING_CAUTION
 
         lines += [f"caution: {text}" for text in (SPHERE_COATING_CAUTION, CHARACTERISATION_CAUTION, CLOSING_LINE)]
+    shifts = getattr(result, "time_shift_ps", None)
+    if shifts is not None and np.size(shifts):
+        rho = result.curves.get("rho_mm", [])
+        for w, row, row_sd in zip(result.wavelength_nm, shifts, result.time_shift_sd_ps):
+            parts = [f"{r:g} mm: {t:.1f} ± {sd:.2g} ps" for r, t, sd in zip(rho, row, row_sd)]
+            lines.append(f"time shift at {w:g} nm: " + ", ".join(parts))
+    offsets = getattr(result, "phase_offset_deg", None)
+    if offsets is not None:
+        freq = result.curves.get("frequency_mhz", [])
+        for w, row in zip(result.wavelength_nm, offsets):
+            lines.append(f"phase offset at {w:g} nm: " + ", ".join(f"{f:g} MHz {o:.2f} deg" for f, o in zip(freq, row)))
     return "\n".join(lines)
 
 
@@ -117,6 +139,7 @@ def _fit(args) -> CommandResult:
     files = args.files[0] if len(args.files) == 1 else list(args.files)
     result = fit_measurement_file(
         files, kind=args.kind, n=args.n, n_outside=args.n_outside, thickness_mm=args.thickness_mm,
-        g=args.g, model=args.model, baseline=args.baseline, constraint=constraint,
+        g=args.g, model=args.model, baseline=args.baseline, constraint=constraint, irf=args.irf,
+        geometry=args.geometry,
     )
     return CommandResult(payload=result.to_json(), text=_table(result))

@@ -34,10 +34,13 @@ from scipy.signal import fftconvolve
 
 from phantomlab.errors import InputError
 
-__all__ = ["uniform_step_ps", "prepare_irf", "InstrumentResponse", "irf_convolved_counts", "TRIANGLE_NODES"]
+__all__ = ["uniform_step_ps", "prepare_irf", "irf_fwhm_ps", "InstrumentResponse", "irf_convolved_counts", "TRIANGLE_NODES"]
 
 #: Gauss–Legendre nodes on each half of the triangle Λ (the lattice points next to t0).
 TRIANGLE_NODES = 4
+#: Largest convolution matrix (IRF rows × lattice × bins) kept for the matrix product; beyond
+#: it each call convolves by FFT (same numbers, less memory).
+MAX_MATRIX_ELEMENTS = 4_000_000
 #: Relative tolerance of "the same time step" (bin centres from instruments print rounded).
 STEP_TOLERANCE = 1e-3
 
@@ -62,7 +65,7 @@ def uniform_step_ps(time_ps, *, what: str = "time_ps") -> float:
 _TRIANGLE_TAPS = np.array([1.0 / 12.0, 10.0 / 12.0, 1.0 / 12.0])
 
 
-def _lattice_values(model, lattice, step, shift):
+def _lattice_values(model, lattice, step, shift, smooth_start=False):
     """S(d) = Δ′ ∫ Λ(u − d) R(u − t0) du at every lattice point d, for each row's t0, (N, M).
 
     R is evaluated once per lattice point and the triangle integrated with the three-point
@@ -82,7 +85,7 @@ def _lattice_values(model, lattice, step, shift):
     first = np.floor((shift - lattice[0]) / step).astype(int)  # the lattice point just before t0
     picks = np.stack([first, first + 1], axis=1)  # (N, 2)
     valid = (picks >= 0) & (picks < lattice.size)
-    if np.any(valid):
+    if np.any(valid) and not smooth_start:
         row_index = np.repeat(np.arange(rows), 2)[valid.ravel()]
         points = picks.ravel()[valid.ravel()]
         d = lattice[points]
@@ -142,8 +145,10 @@ class InstrumentResponse:
     fine_irf: np.ndarray
     lattice_ps: np.ndarray
     irf_fwhm_ps: np.ndarray
+    matrices: np.ndarray | None = None
 
-    def counts(self, model: Callable[[np.ndarray], np.ndarray], shift_ps) -> np.ndarray:
+    def counts(self, model: Callable[[np.ndarray], np.ndarray], shift_ps, irf_rows=None,
+               smooth_start: bool = False) -> np.ndarray:
         """Expected counts per data bin for unit amplitude, shape (N, K).
 
         Parameters
@@ -152,13 +157,28 @@ class InstrumentResponse:
             ``model(times)`` with times (N, L) [ps] gives R (N, L) [per ps]; 0 for t <= 0.
         shift_ps : float or ndarray (N,) [ps]
             Delay t0 of the response relative to the IRF.
+        irf_rows : array of int (N,), optional
+            Which IRF row each output row uses (default: row by row, or the only one).
+        smooth_start : bool
+            The response rises from 0 smoothly at t = 0 (diffusion, Monte Carlo): skip the
+            exact integration of the triangles that hold t0 (a speed-up; a jump, as in an
+            exponential decay, needs False).
         """
         shift = np.atleast_1d(np.asarray(shift_ps, dtype=float))
-        rows = max(shift.size, self.fine_irf.shape[0])
+        irf = self.fine_irf if irf_rows is None else self.fine_irf[np.asarray(irf_rows, dtype=int)]
+        rows = max(shift.size, irf.shape[0])
         shift = np.broadcast_to(shift, (rows,))
-        h = np.broadcast_to(self.fine_irf, (rows, self.fine_irf.shape[1]))
+        h = np.broadcast_to(irf, (rows, irf.shape[1]))
         fine_step = self.step_ps / self.subdivisions
-        values = _lattice_values(model, self.lattice_ps, fine_step, shift)  # (N, M)
+        values = _lattice_values(model, self.lattice_ps, fine_step, shift, smooth_start)  # (N, M)
+        if self.matrices is not None:  # one matrix product per IRF row (small problems: faster than FFTs)
+            which = np.zeros(rows, dtype=int) if irf_rows is None and self.fine_irf.shape[0] == 1 else (
+                np.arange(rows) if irf_rows is None else np.asarray(irf_rows, dtype=int))
+            out = np.empty((rows, self.time_ps.size))
+            for g in np.unique(which):
+                chosen = which == g
+                out[chosen] = values[chosen] @ self.matrices[g]
+            return out
         full = fftconvolve(values, h, axes=-1)
         J = h.shape[1]
         K = self.time_ps.size
@@ -166,7 +186,7 @@ class InstrumentResponse:
         return fine.reshape(rows, K, self.subdivisions).sum(axis=-1)
 
 
-def _fwhm(time_ps: np.ndarray, values: np.ndarray) -> np.ndarray:
+def irf_fwhm_ps(time_ps: np.ndarray, values: np.ndarray) -> np.ndarray:
     """Full width at half maximum [ps] of each row of a histogram (linear interpolation)."""
     out = np.empty(values.shape[0])
     for row, v in enumerate(values):
@@ -190,7 +210,7 @@ def _fwhm(time_ps: np.ndarray, values: np.ndarray) -> np.ndarray:
     return out
 
 
-def prepare_irf(*, time_ps, irf_time_ps, irf, subdivisions: int = 3) -> InstrumentResponse:
+def prepare_irf(*, time_ps, irf_time_ps, irf, subdivisions: int = 3, matrix: bool = True) -> InstrumentResponse:
     """Check and normalise a measured IRF for the data grid ``time_ps``.
 
     Parameters
@@ -203,6 +223,9 @@ def prepare_irf(*, time_ps, irf_time_ps, irf, subdivisions: int = 3) -> Instrume
         IRF histogram, background removed, >= 0 (rows: one per curve).
     subdivisions : int
         Sub-bins per bin (1 takes each IRF bin as a rectangle).
+    matrix : bool
+        Keep the convolution as a matrix (fast for repeated calls; up to
+        :data:`MAX_MATRIX_ELEMENTS`), else convolve by FFT at each call.
 
     Returns
     -------
@@ -242,10 +265,23 @@ def prepare_irf(*, time_ps, irf_time_ps, irf, subdivisions: int = 3) -> Instrume
     fine_t0 = t[0] - 0.5 * step + 0.5 * fine_step
     fine_tau_last = tau[-1] + 0.5 * step - 0.5 * fine_step
     lattice = (fine_t0 - fine_tau_last) + fine_step * np.arange(t.size * s + tau.size * s - 1)
+    matrices = None
+    if matrix and fine.shape[0] * lattice.size * t.size <= MAX_MATRIX_ELEMENTS:
+        # counts_k = Σ_m S_m Σ_i h[k s + i + J' − 1 − m]: the convolution and the sum over sub-bins
+        J = fine.shape[1]
+        m = np.arange(lattice.size)[:, None]
+        k = np.arange(t.size)[None, :]
+        matrices = np.zeros((fine.shape[0], lattice.size, t.size))
+        padded = np.concatenate([fine, np.zeros((fine.shape[0], 1))], axis=1)
+        for i in range(s):
+            offset = k * s + i + J - 1 - m
+            index = np.where((offset >= 0) & (offset < J), offset, J)
+            matrices += padded[:, index]
+        matrices.setflags(write=False)
     for array in (fine, lattice):
         array.setflags(write=False)
     return InstrumentResponse(time_ps=t, step_ps=step, subdivisions=s, fine_irf=fine, lattice_ps=lattice,
-                              irf_fwhm_ps=_fwhm(tau, h))
+                              irf_fwhm_ps=irf_fwhm_ps(tau, h), matrices=matrices)
 
 
 def irf_convolved_counts(*, model: Callable[[np.ndarray], np.ndarray], time_ps, irf_time_ps, irf,

@@ -81,6 +81,8 @@ __all__ = [
     "td_diffusion_Patterson1989",
     "td_diffusion_Contini1997",
     "td_diffusion_Kienle1997",
+    "time_resolved_rows",
+    "time_resolved_evaluator",
     "image_sources",
     "light_speed_mm_per_ps",
 ]
@@ -233,22 +235,23 @@ def _surface_terms(medium: _Medium, rho: np.ndarray, time: np.ndarray, thickness
     Per unit energy that *entered* (a unit source at z0 and its images).
     """
     grid_rho, grid_t = np.broadcast_arrays(rho, time)
-    s_ndim = medium.mua.ndim
-    g_ndim = grid_t.ndim
-    extra = (None,) * g_ndim
+    extra = (None,) * grid_t.ndim
+    lead = (None,) * medium.mua.ndim
 
     def spread(values):
         return values[(Ellipsis,) + extra]
 
-    t = grid_t[(None,) * s_ndim + (Ellipsis,)]
-    r = grid_rho[(None,) * s_ndim + (Ellipsis,)]
-    d, v, mua = spread(medium.d), spread(medium.v), spread(medium.mua)
-    pairs = _pairs_needed(medium, np.asarray(time, float), thickness)
-    positive, negative = image_sources(z0_mm=medium.z0, zb_mm=medium.zb, thickness_mm=thickness, pairs=pairs)
+    return _terms(d=spread(medium.d), v=spread(medium.v), mua=spread(medium.mua), z0=spread(medium.z0),
+                  zb=spread(medium.zb), r=grid_rho[lead + (Ellipsis,)], t=grid_t[lead + (Ellipsis,)],
+                  thickness=thickness, geometry=geometry,
+                  pairs=_pairs_needed(medium, np.asarray(time, float), thickness))
+
+
+def _terms(*, d, v, mua, z0, zb, r, t, thickness, geometry, pairs):
+    """Φ and J with every argument broadcast element by element (no outer product)."""
+    positive, negative = image_sources(z0_mm=z0, zb_mm=zb, thickness_mm=thickness, pairs=pairs)
     if geometry == "transmittance":
         positive, negative = thickness - positive, thickness - negative
-    positive = positive[(Ellipsis,) + extra + (slice(None),)]  # S + (1,)*G + (M,)
-    negative = negative[(Ellipsis,) + extra + (slice(None),)]
     live = t > 0
     safe_t = np.where(live, t, 1.0)
     four_dvt = 4.0 * d * v * safe_t
@@ -441,3 +444,81 @@ def time_resolved(
         mua_per_mm=mua_per_mm, musp_per_mm=musp_per_mm, rho_mm=rho_mm, time_ps=time_ps, n=n,
         n_outside=n_outside, thickness_mm=thickness_mm, geometry=geometry, boundary=method,
     )
+
+
+def time_resolved_rows(
+    *, mua_per_mm, musp_per_mm, rho_mm, time_ps, n, n_outside=1.0, thickness_mm=None,
+    geometry="reflectance", model="kienle1997", boundary=None,
+):
+    """:func:`time_resolved` with every argument broadcast element by element.
+
+    Where :func:`time_resolved` forms the outer product of per-wavelength inputs (S) and the
+    grid (G), here ``mua_per_mm`` of shape (N, 1) and ``time_ps`` of shape (N, L) give (N, L):
+    each row its own optical properties and its own times (a fit evaluating many trial
+    parameter sets, each shifted by its own t0).  Same models, units and conventions.
+
+    Returns
+    -------
+    ndarray [1/(mm² ps)], the broadcast shape of all arguments.
+    """
+    evaluate = time_resolved_evaluator(n=n, n_outside=n_outside, thickness_mm=thickness_mm, geometry=geometry,
+                                       model=model, boundary=boundary)
+    return evaluate(mua_per_mm=mua_per_mm, musp_per_mm=musp_per_mm, rho_mm=rho_mm, time_ps=time_ps)
+
+
+def time_resolved_evaluator(*, n: float, n_outside: float = 1.0, thickness_mm=None, geometry="reflectance",
+                            model="kienle1997", boundary=None):
+    """A fast element-wise evaluator of one model for a fixed medium index and geometry.
+
+    The boundary constants (A, C1, C2, the entry transmission) depend on the indices only and
+    are computed here once; the returned function
+    ``evaluate(*, mua_per_mm, musp_per_mm, rho_mm, time_ps)`` broadcasts its arguments element
+    by element as :func:`time_resolved_rows` does (which calls it).  For fits, which call the
+    model many times with the same indices.
+
+    Parameters
+    ----------
+    n, n_outside : float
+        Indices of the medium and of the outside (scalars).
+    thickness_mm, geometry, model, boundary
+        As :func:`time_resolved`.
+    """
+    function = choose(TD_MODELS, model, "time-resolved model")
+    if model == "patterson1989" and boundary is not None:
+        raise InputError("patterson1989 uses zero fluence on the surface: boundary must be None")
+    method = TD_DEFAULT_BOUNDARY[model] if boundary is None else boundary
+    thickness = _thickness(thickness_mm, geometry)
+    n_value = float(as_index(n, "n"))
+    n_out = float(as_index(n_outside, "n_outside"))
+    a_coef = 0.0 if method is None else float(boundary_coefficient(n=n_value, n_outside=n_out, method=method))
+    entry = float(beam_entry_transmission(n=n_value, n_outside=n_out))
+    c1, c2 = (float(c) for c in fluence_flux_coefficients_Kienle1997(n=n_value, n_outside=n_out))
+    with_fluence = function is td_diffusion_Kienle1997
+    d_with_mua = function is td_diffusion_Patterson1989
+    v = SPEED_OF_LIGHT_MM_PER_PS / n_value
+
+    def evaluate(*, mua_per_mm, musp_per_mm, rho_mm, time_ps):
+        mua = as_coefficient(mua_per_mm, "mua_per_mm")
+        musp = as_coefficient(musp_per_mm, "musp_per_mm", strictly_positive=True)
+        rho = as_length_grid(rho_mm, "rho_mm")
+        time = _time_grid(time_ps)
+        try:
+            shape = np.broadcast_shapes(mua.shape, musp.shape, rho.shape, time.shape)
+        except ValueError:
+            raise InputError("time_resolved_rows: the arguments must broadcast element by element") from None
+        d = 1.0 / (3.0 * (mua + musp)) if d_with_mua else 1.0 / (3.0 * musp)
+        zb = 2.0 * a_coef * d
+        pairs = 0
+        if thickness is not None:
+            t_live = time[np.isfinite(time) & (time > 0)]
+            finite_d = d[np.isfinite(d)] if np.ndim(d) else np.array([d])
+            if t_live.size and finite_d.size:
+                spread = np.sqrt(4.0 * finite_d.max() * v * t_live.max() * _SERIES_EXPONENT)
+                pairs = min(int(np.ceil(spread / (2.0 * thickness))) + 1, _MAX_IMAGES)
+        fluence, flux = _terms(d=d, v=v, mua=mua, z0=1.0 / musp, zb=zb, r=rho, t=time, thickness=thickness,
+                               geometry=geometry, pairs=pairs)
+        value = c1 * fluence + c2 * flux if with_fluence else flux
+        # a thin slab's image series cancels to rounding late in time: no negative light
+        return np.broadcast_to(entry * np.maximum(value, 0.0), shape)
+
+    return evaluate

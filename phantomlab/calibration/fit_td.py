@@ -1,0 +1,503 @@
+"""Inverse fit of time-domain (time-resolved) measurements (layer 3).
+
+Each histogram N_k (wavelength λ, distance ρ) is fitted with
+
+    μ_k = A · c_k(μa, μs′, t0) + B,       c_k = Σ_j h_j S(t_k − τ_j)   (transport/convolution.py)
+
+the forward model R(ρ, t) seen through the measured IRF h (background removed, normalised)
+and delayed by t0, times an amplitude A, plus the background B per bin.  μa and μs′ are
+shared by the distances of one wavelength; t0 and A belong to each curve (each detector
+channel has its own delay and coupling); with a calibrated system (``scale_counts_mm2``) A is
+that number and not fitted.  A is solved in closed form at every step (variable projection,
+Golub & Pereyra 1973), so the search runs over log μa, log μs′ and the t0s.
+
+**Variance model: Poisson.**  The counts are Poisson with mean μ_k.  The fit minimises Pearson's
+χ² = Σ (N_k − μ_k)²/μ_k with the weights held fixed in each pass and taken from the previous
+pass's model (the first pass uses max(N_k, 1)): the fixed point is the maximum-likelihood
+estimate for Poisson counts (iteratively reweighted least squares; McCullagh & Nelder 1989,
+*Generalized Linear Models*, 2nd ed., §2.5).  χ²_red is Pearson's χ² over the degrees of
+freedom (window bins − fitted parameters, amplitudes included); its SDs are the (JᵀJ)⁻¹ of the
+last pass.  The Monte Carlo lookup's own photon noise is added to the variance, (μ·σ_rel)².
+
+**Background** B: the mean count of the bins before the pulse (earlier than two IRF widths
+before the curve first reaches 5 % of its peak; at least 10 bins), or the sidecar's
+``background_counts``; without either it is 0 and the fit says so.  **Window**: the bins from
+where the curve (background removed, 5-bin running mean) first rises to ``window_rise_fraction``
+of its peak to where it falls to ``window_tail_fraction``; defaults
+:data:`DEFAULT_WINDOW` (# common practice, no source: diffusion models leave out the early
+photons where diffusion is poor, from half the peak on the rising edge; the Monte Carlo
+lookup, valid early too, starts at 10 %; both end at 1 % of the peak on the tail).
+
+Models (:data:`TD_FIT_MODELS`): the diffusion models of
+:mod:`phantomlab.transport.time_domain` (half-space, or slab when a thickness is given;
+transmittance needs one) and ``mc``, the time-resolved Monte Carlo lookup of a stored
+half-space baseline (:mod:`phantomlab.calibration.mc_lookup_time`; reflectance from a thick
+phantom only: the baselines are half-space runs, so transmittance is fitted with diffusion,
+valid through slabs many transport lengths thick).
+
+References
+----------
+Patterson MS, Chance B, Wilson BC 1989, Appl Opt 28:2331 (fitting the convolved diffusion
+model to time-resolved reflectance for μa and μs′).
+Golub GH, Pereyra V 1973, SIAM J Numer Anal 10:413–432 (variable projection).
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from phantomlab.calibration.fitting import FitResult, fit_blocks, log_to_linear
+from phantomlab.calibration.identifiability import _bands, outcome_warnings
+from phantomlab.calibration.td_measurements import TimeDomainMeasurement
+from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.jsonable import to_jsonable
+from phantomlab.transport.convolution import irf_fwhm_ps, prepare_irf
+
+__all__ = ["TD_FIT_MODELS", "DEFAULT_WINDOW", "TimeDomainFit", "fit_td", "td_curve_model"]
+
+TD_FIT_MODELS = ("kienle1997", "contini1997", "patterson1989", "mc")
+#: Fit window (rise, tail) as fractions of the peak.  # common practice, no source
+DEFAULT_WINDOW = {"diffusion": (0.5, 0.01), "mc": (0.1, 0.01)}
+#: Passes of the Poisson reweighting (the weights settle in two).
+IRLS_PASSES = 2
+#: Below this many counts at the peak the fit warns.  # common practice, no source
+MIN_PEAK_COUNTS = 1000.0
+#: Fewest bins the window should hold.  # common practice, no source
+MIN_WINDOW_BINS = 20
+#: Diffusion needs the distance (or thickness) to be this many transport lengths.
+#: # common practice, no source
+DIFFUSION_MIN_TRANSPORT_LENGTHS = 5.0
+#: Fewest pre-pulse bins to estimate the background from.
+MIN_BACKGROUND_BINS = 10
+#: The time shifts are fitted in ns (their steps then compare with those of the log coefficients).
+_SHIFT_UNIT_PS = 1000.0
+_GRID_MUA = np.geomspace(2e-4, 0.3, 8)
+_GRID_MUSP = np.geomspace(0.2, 5.0, 8)
+
+
+@dataclass(frozen=True)
+class TimeDomainFit(FitResult):
+    """A :class:`FitResult` of a td measurement, with what the curves need for a plot.
+
+    Attributes (besides FitResult's)
+    --------------------------------
+    time_shift_ps, time_shift_sd_ps : ndarray (W, R) [ps]
+        Fitted delay t0 of each curve relative to its IRF.
+    amplitude : ndarray (W, R)
+        A of each curve (counts per unit R·Δt [mm²]); the given scale when calibrated.
+    background_counts : ndarray (W, R)
+        B per bin as used.
+    curves : dict
+        ``time_ps`` (K,), ``rho_mm`` (R,), ``counts``, ``model`` (W, R, K), ``window`` (W, R, K)
+        bool, ``irf_time_ps`` (J,), ``irf`` (W or 1, J): for the plots (not in the JSON).
+    """
+
+    time_shift_ps: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    time_shift_sd_ps: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    amplitude: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    background_counts: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    curves: dict = field(default_factory=dict, compare=False)
+
+    def to_json(self) -> dict[str, Any]:
+        """FitResult's keys plus ``time_shift_ps``, ``time_shift_sd_ps`` (per wavelength and distance)."""
+        payload = super().to_json()
+        payload.update(to_jsonable({
+            "time_shift_ps": self.time_shift_ps, "time_shift_sd_ps": self.time_shift_sd_ps,
+            "rho_mm": self.curves.get("rho_mm"), "amplitude": self.amplitude,
+            "background_counts": self.background_counts,
+        }))
+        return payload
+
+
+def td_curve_model(*, model: str, geometry: str, thickness_mm, n: float, n_outside: float, baseline=None):
+    """The response R(ρ, t) of one trial per row: ``shape(mua (N,), musp (N,), rho (N,), times (N, L))``."""
+    if model == "mc":
+        from phantomlab.calibration.fit_srdr import check_baseline_indices
+        from phantomlab.calibration.mc_lookup_time import time_resolved_lookup
+
+        if baseline is None:
+            raise InputError("td model 'mc' needs a Monte Carlo baseline (--baseline FILE)")
+        if geometry != "reflectance" or thickness_mm is not None:
+            raise InputError("td model 'mc' is for reflectance from a thick phantom (the baselines are half-space "
+                             "runs); fit transmittance or a thin slab with kienle1997, contini1997 or patterson1989")
+        check_baseline_indices(baseline, n=n, n_outside=n_outside)
+        lookup = time_resolved_lookup(baseline)
+
+        def shape(mua, musp, rho, times):
+            mus = np.asarray(musp, float) / (1.0 - lookup.g)
+            return lookup.point(mua_per_mm=mua, mus_per_mm=mus, rho_mm=np.broadcast_to(np.asarray(rho)[:, None],
+                                                                                        times.shape), time_ps=times)
+
+        def relative_sd(musp, rho, times):
+            mus = np.asarray(musp, float) / (1.0 - lookup.g)
+            return lookup.relative_sd(mus_per_mm=mus, rho_mm=np.broadcast_to(np.asarray(rho)[:, None], times.shape),
+                                      time_ps=times)
+
+        shape.lookup = lookup
+        shape.relative_sd = relative_sd
+        return shape
+    if model not in TD_FIT_MODELS:
+        raise InputError(f"unknown td fit model {model!r}; accepted: {', '.join(TD_FIT_MODELS)}")
+    from phantomlab.transport.time_domain import time_resolved_evaluator
+
+    evaluate = time_resolved_evaluator(n=n, n_outside=n_outside, thickness_mm=thickness_mm, geometry=geometry,
+                                       model=model)
+
+    def shape(mua, musp, rho, times):
+        return evaluate(mua_per_mm=np.asarray(mua, float)[:, None], musp_per_mm=np.asarray(musp, float)[:, None],
+                        rho_mm=np.asarray(rho, float)[:, None], time_ps=times)
+
+    return shape
+
+
+def _smooth(values: np.ndarray, width: int = 5) -> np.ndarray:
+    kernel = np.ones(width) / width
+    return np.apply_along_axis(lambda v: np.convolve(v, kernel, mode="same"), -1, values)
+
+
+def _peak_region(signal: np.ndarray):
+    smooth = _smooth(signal)
+    peak = int(np.argmax(smooth))
+    return smooth, peak, float(smooth[peak])
+
+
+def _background(counts, time_ps, irf_fwhm_ps) -> float | None:
+    smooth, peak, top = _peak_region(counts)
+    rising = np.flatnonzero(smooth[:peak + 1] >= 0.05 * top)
+    start = rising[0] if rising.size else peak
+    before = time_ps < time_ps[start] - 2.0 * irf_fwhm_ps
+    if before.sum() < MIN_BACKGROUND_BINS:
+        return None
+    return float(np.mean(counts[before]))
+
+
+def _window(signal, rise: float, tail: float) -> np.ndarray:
+    smooth, peak, top = _peak_region(signal)
+    mask = np.zeros(signal.size, bool)
+    if top <= 0:
+        return mask
+    lo = peak
+    while lo > 0 and smooth[lo - 1] >= rise * top:
+        lo -= 1
+    hi = peak
+    while hi < signal.size - 1 and smooth[hi + 1] >= tail * top:
+        hi += 1
+    mask[lo:hi + 1] = True
+    return mask
+
+
+def _clean_irf(irf: np.ndarray, time_ps: np.ndarray) -> np.ndarray:
+    """IRF rows with their own background removed and the noise far from the pulse set to 0."""
+    out = np.empty_like(irf, dtype=float)
+    for i, row in enumerate(np.asarray(irf, float)):
+        smooth, peak, top = _peak_region(row)
+        tail = smooth < 1e-4 * top  # common practice, no source: below 1e-4 of the peak is noise
+        background = float(np.median(row[tail])) if tail.sum() >= MIN_BACKGROUND_BINS else 0.0
+        cleaned = np.clip(row - background, 0.0, None)
+        keep = np.zeros(row.size, bool)
+        lo = hi = peak
+        while lo > 0 and smooth[lo - 1] - background >= 1e-4 * top:
+            lo -= 1
+        while hi < row.size - 1 and smooth[hi + 1] - background >= 1e-4 * top:
+            hi += 1
+        keep[lo:hi + 1] = True
+        out[i] = np.where(keep, cleaned, 0.0)
+    return out
+
+
+def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: float | None = None,
+           n_outside: float | None = None, thickness_mm: float | None = None, baseline=None,
+           window_rise_fraction: float | None = None, window_tail_fraction: float | None = None) -> TimeDomainFit:
+    """Fit μa and μs′ (with a time shift and an amplitude per curve) to time-resolved histograms.
+
+    Parameters
+    ----------
+    measurement : TimeDomainMeasurement
+    model : {'kienle1997', 'contini1997', 'patterson1989', 'mc'}
+    n, n_outside : float, optional
+        Phantom and outside index (default: the sidecar's; n is required).
+    thickness_mm : float, optional [mm]
+        Slab thickness (default: the sidecar's; transmittance needs it).
+    baseline : Baseline, optional
+        For ``model='mc'``.
+    window_rise_fraction, window_tail_fraction : float, optional
+        Fit window edges as fractions of the peak (default: the sidecar's, else
+        :data:`DEFAULT_WINDOW`).
+
+    Returns
+    -------
+    TimeDomainFit
+    """
+    if not isinstance(measurement, TimeDomainMeasurement):
+        raise InputError("fit_td needs a td measurement")
+    meta = measurement.metadata
+    n = meta.n if n is None else n
+    if n is None:
+        raise InputError("the td fit needs the phantom's refractive index: give --n N or n = ... in the sidecar")
+    n_outside = meta.n_outside if n_outside is None else n_outside
+    thickness = measurement.thickness_mm if thickness_mm is None else thickness_mm
+    geometry = measurement.geometry
+    if geometry == "transmittance" and thickness is None:
+        raise InputError("a transmittance fit needs the slab's thickness: give --thickness-mm D")
+    if model not in TD_FIT_MODELS:
+        raise InputError(f"unknown td fit model {model!r}; accepted: {', '.join(TD_FIT_MODELS)}")
+    family = "mc" if model == "mc" else "diffusion"
+    rise = window_rise_fraction or measurement.window_rise_fraction or DEFAULT_WINDOW[family][0]
+    tail = window_tail_fraction or measurement.window_tail_fraction or DEFAULT_WINDOW[family][1]
+    shape = td_curve_model(model=model, geometry=geometry, thickness_mm=thickness, n=n, n_outside=n_outside,
+                           baseline=baseline)
+    W, R, K = measurement.counts.shape
+    present = np.isfinite(measurement.counts[..., 0])
+    if not np.all(present):
+        i, j = np.argwhere(~present)[0]
+        raise InputError(f"{measurement.name}: no curve at {measurement.wavelength_nm[i]:g} nm and "
+                         f"{measurement.rho_mm[j]:g} mm; every wavelength needs every distance")
+    counts = measurement.counts.reshape(W * R, K)
+    irf = _clean_irf(measurement.irf, measurement.irf_time_ps)
+    irf_of_curve = np.repeat(np.arange(W), R) if irf.shape[0] == W and W > 1 else np.zeros(W * R, int)
+    fwhm = irf_fwhm_ps(measurement.irf_time_ps, irf)[irf_of_curve]
+    messages: list[str] = []
+    background = np.empty(W * R)
+    windows = np.zeros((W * R, K), bool)
+    guessed_zero = []
+    for c in range(W * R):
+        if measurement.background_counts is not None:
+            background[c] = measurement.background_counts
+        else:
+            estimate = _background(counts[c], measurement.time_ps, fwhm[c])
+            if estimate is None:
+                guessed_zero.append(c)
+            background[c] = 0.0 if estimate is None else estimate
+        windows[c] = _window(counts[c] - background[c], rise, tail)
+        signal = (counts[c] - background[c])[windows[c]]
+        if windows[c].sum() < 3 or not np.any(signal > 0):
+            w, r = divmod(c, R)
+            raise InputError(f"{measurement.name}: row {measurement.first_row[w, r]}, column counts: no counts above "
+                             f"the background in the fit window at {measurement.wavelength_nm[w]:g} nm, "
+                             f"{measurement.rho_mm[r]:g} mm")
+    if guessed_zero:
+        messages.append(f"no bins before the pulse to estimate the background from ({len(guessed_zero)} curves); "
+                        "taken as 0 (give background_counts in the sidecar)")
+    rho_curve = np.tile(measurement.rho_mm, W)
+    absolute = measurement.scale_counts_mm2
+    # the fit needs only the bins of the windows and the IRF's non-zero span: crop both once
+    used = np.flatnonzero(windows.any(axis=0))
+    crop = slice(int(used[0]), int(used[-1]) + 1)
+    pulse = np.flatnonzero(irf.any(axis=0))
+    irf_span = slice(int(pulse[0]), int(pulse[-1]) + 1) if pulse.size >= 2 else slice(None)
+    time = measurement.time_ps[crop]
+    full_counts, full_windows = counts, windows
+    counts, windows = counts[:, crop], windows[:, crop]
+    K = time.size
+    response = prepare_irf(time_ps=time, irf_time_ps=measurement.irf_time_ps[irf_span], irf=irf[:, irf_span])
+
+    def expected(mua_c, musp_c, shift_c, curves, sd=None):
+        """Shape c (unit amplitude), amplitude A and μ for the given curves."""
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", PhantomlabWarning)
+            c = response.counts(lambda times: shape(mua_c, musp_c, rho_curve[curves], times), shift_c,
+                                irf_rows=irf_of_curve[curves], smooth_start=True)
+        data = counts[curves] - background[curves][:, None]
+        if absolute is not None:
+            amplitude = np.full(curves.size, float(absolute))
+        else:
+            weight = windows[curves] / (sd**2 if sd is not None else np.maximum(counts[curves], 1.0))
+            amplitude = np.sum(weight * c * data, axis=1) / np.maximum(np.sum(weight * c * c, axis=1), 1e-300)
+            amplitude = np.maximum(amplitude, 1e-300)
+        return c, amplitude, amplitude[:, None] * c + background[curves][:, None]
+
+    start = _start(expected, counts, background, windows, time, W, R)
+    P = 2 + R
+    lower = np.concatenate([[np.log(1e-6), np.log(1e-3)], np.full(R, (time[0] - time[-1]) / _SHIFT_UNIT_PS)])
+    upper = np.concatenate([[np.log(5.0), np.log(50.0)], np.full(R, (time[-1] - time[0]) / _SHIFT_UNIT_PS)])
+    sd = np.sqrt(np.maximum(counts, 1.0))
+    mask = windows.reshape(W, R * K)
+    outcome = None
+    x = start
+    for _ in range(IRLS_PASSES):
+        def residual_fn(x_rows, rows, sd=sd):
+            curves = (rows[:, None] * R + np.arange(R)[None, :]).ravel()
+            mua_c = np.repeat(np.exp(x_rows[:, 0]), R)
+            musp_c = np.repeat(np.exp(x_rows[:, 1]), R)
+            _, _, mu = expected(mua_c, musp_c, x_rows[:, 2:].ravel() * _SHIFT_UNIT_PS, curves, sd[curves])
+            return ((mu - counts[curves]) / sd[curves]).reshape(rows.size, R * K)
+
+        outcome = fit_blocks(residual_fn, x, mask=mask, lower=lower, upper=upper, row_aware=True)
+        x = outcome.x
+        curves = np.arange(W * R)
+        c, amplitude, mu = expected(np.repeat(np.exp(x[:, 0]), R), np.repeat(np.exp(x[:, 1]), R), x[:, 2:].ravel() * _SHIFT_UNIT_PS,
+                                    curves, sd)
+        variance = np.maximum(mu, 1e-12)
+        model_sd = getattr(shape, "relative_sd", None)
+        if model_sd is not None:
+            rel = model_sd(np.repeat(np.exp(x[:, 1]), R), rho_curve,
+                           np.broadcast_to(time, (W * R, K)) - _SHIFT_UNIT_PS * x[:, 2:].ravel()[:, None]
+                           - _irf_centre(irf, measurement.irf_time_ps, irf_of_curve))
+            variance = variance + (amplitude[:, None] * c * rel) ** 2
+        sd = np.sqrt(variance)
+    cov_log = outcome.covariance
+    values, cov = log_to_linear(x[:, :2], cov_log[:, :2, :2])
+    mua_fit, musp_fit = values[:, 0], values[:, 1]
+    mua_sd = np.sqrt(np.diagonal(cov, axis1=1, axis2=2))[:, 0]
+    musp_sd = np.sqrt(np.diagonal(cov, axis1=1, axis2=2))[:, 1]
+    shift_sd = _SHIFT_UNIT_PS * np.sqrt(np.clip(np.diagonal(cov_log, axis1=1, axis2=2)[:, 2:], 0, None))
+    amplitudes_fitted = 0 if absolute is not None else R
+    dof = mask.sum(axis=1) - P - amplitudes_fitted
+    K_full = measurement.time_ps.size
+    residuals = np.full((W, R, K_full), np.nan)
+    residuals[:, :, crop] = outcome.residuals.reshape(W, R, K)
+    # the model on the whole histogram, for the plots
+    whole = prepare_irf(time_ps=measurement.time_ps, irf_time_ps=measurement.irf_time_ps[irf_span],
+                        irf=irf[:, irf_span], matrix=False)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PhantomlabWarning)
+        c_full = whole.counts(lambda times: shape(np.repeat(mua_fit, R), np.repeat(musp_fit, R), rho_curve, times),
+                              _SHIFT_UNIT_PS * x[:, 2:].ravel(), irf_rows=irf_of_curve, smooth_start=True)
+    mu_full = amplitude[:, None] * c_full + background[:, None]
+    chi2 = np.nansum(residuals**2, axis=(1, 2))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        chi2_w = np.where(dof > 0, chi2 / np.maximum(dof, 1), np.nan)
+        total_dof = float(dof[dof > 0].sum())
+        chi2_all = float(chi2[dof > 0].sum() / total_dof) if total_dof > 0 else float("nan")
+        correlation = cov[:, 0, 1] / (mua_sd * musp_sd)
+    messages += _design_warnings(measurement, full_counts.reshape(W, R, K_full) - background.reshape(W, R, 1),
+                                 full_windows.reshape(W, R, K_full), fwhm.reshape(W, R), family, geometry, thickness,
+                                 mua_fit, musp_fit, rise)
+    messages += outcome_warnings(wavelength_nm=measurement.wavelength_nm, mua_per_mm=mua_fit, musp_per_mm=musp_fit,
+                                 mua_sd_per_mm=mua_sd, musp_sd_per_mm=musp_sd, correlation=correlation)
+    lookup = getattr(shape, "lookup", None)
+    if lookup is not None:
+        message = lookup.reach_warning(mus_per_mm=musp_fit / (1 - lookup.g), rho_max_mm=float(measurement.rho_mm.max()))
+        if message:
+            messages.append(message)
+    messages = list(dict.fromkeys(messages))
+    for message in messages:
+        warnings.warn(message, PhantomlabWarning, stacklevel=2)
+    label = "mc-lookup" if model == "mc" else f"diffusion-{model}"
+    return TimeDomainFit(
+        kind="td", model=label, wavelength_nm=measurement.wavelength_nm, mua_per_mm=mua_fit, musp_per_mm=musp_fit,
+        mua_sd_per_mm=mua_sd, musp_sd_per_mm=musp_sd, covariance=cov, chi2_red=chi2_all, chi2_red_per_wavelength=chi2_w,
+        residuals=residuals, warnings=tuple(messages), source=measurement.source, name=measurement.name,
+        replicates=measurement.replicates, dof=total_dof if total_dof > 0 else float("nan"),
+        parameters={"window_rise_fraction": rise, "window_tail_fraction": tail},
+        time_shift_ps=_SHIFT_UNIT_PS * x[:, 2:], time_shift_sd_ps=shift_sd, amplitude=amplitude.reshape(W, R),
+        background_counts=background.reshape(W, R),
+        curves={"time_ps": measurement.time_ps, "rho_mm": measurement.rho_mm, "counts": measurement.counts,
+                "model": mu_full.reshape(W, R, K_full), "window": full_windows.reshape(W, R, K_full),
+                "irf_time_ps": measurement.irf_time_ps, "irf": irf, "geometry": geometry},
+    )
+
+
+def _irf_centre(irf, irf_time_ps, irf_rows) -> np.ndarray:
+    """Centroid [ps] of each curve's IRF, shape (N, 1): the lookup's SD is read at t − t0 − centroid."""
+    centre = (irf * irf_time_ps[None, :]).sum(axis=1) / np.maximum(irf.sum(axis=1), 1e-300)
+    return centre[np.asarray(irf_rows, int)][:, None]
+
+
+def _start(expected, counts, background, windows, time, W, R) -> np.ndarray:
+    """Starting point per wavelength from a grid of (μa, μs′), each with its own t0 guess.
+
+    For every grid pair the model (t0 = 0) is moved so that its half-peak on the rising edge
+    meets the data's, the amplitude projected, and the pair of smallest χ² kept.
+    """
+    G = _GRID_MUA.size * _GRID_MUSP.size
+    mua_g = np.repeat(_GRID_MUA, _GRID_MUSP.size)
+    musp_g = np.tile(_GRID_MUSP, _GRID_MUA.size)
+    x0 = np.zeros((W, 2 + R))
+    for w in range(W):
+        curves = w * R + np.arange(R)
+        rows = np.repeat(curves, G)
+        c, _, _ = expected(np.tile(mua_g, R), np.tile(musp_g, R), np.zeros(rows.size), rows)
+        data = counts[rows] - background[rows][:, None]
+        shifts = _half_rise(time, data) - _half_rise(time, c)
+        shifted = np.array([np.interp(time - s, time, row, left=0.0, right=0.0) for s, row in zip(shifts, c)])
+        weight = windows[rows] / np.maximum(counts[rows], 1.0)
+        amp = np.maximum(np.sum(weight * shifted * data, 1) / np.maximum(np.sum(weight * shifted**2, 1), 1e-300), 0)
+        chi2 = np.sum(weight * (amp[:, None] * shifted - data) ** 2, axis=1).reshape(R, G).sum(axis=0)
+        best = int(np.nanargmin(np.where(np.isfinite(chi2), chi2, np.inf)))
+        x0[w, 0], x0[w, 1] = np.log(mua_g[best]), np.log(musp_g[best])
+        x0[w, 2:] = shifts.reshape(R, G)[:, best] / _SHIFT_UNIT_PS
+    return x0
+
+
+def _half_rise(time, curves) -> np.ndarray:
+    """Time where each curve first reaches half its peak (linear between bins) [ps]."""
+    out = np.empty(curves.shape[0])
+    for i, row in enumerate(curves):
+        top = row.max()
+        if not top > 0:
+            out[i] = np.nan
+            continue
+        k = int(np.argmax(row >= 0.5 * top))
+        if k == 0:
+            out[i] = time[0]
+            continue
+        a, b = row[k - 1], row[k]
+        out[i] = time[k - 1] + (0.5 * top - a) * (time[k] - time[k - 1]) / (b - a if b != a else 1.0)
+    return np.nan_to_num(out, nan=0.0)
+
+
+def _design_warnings(measurement, signal, windows, fwhm, family, geometry, thickness, mua, musp, rise) -> list[str]:
+    """Identifiability and model-range checks of a td fit (each message names values and limits)."""
+    messages = []
+    wl = measurement.wavelength_nm
+    step = measurement.step_ps
+    short, wide, low, cut = (np.zeros(wl.size, bool) for _ in range(4))
+    for w in range(wl.size):
+        for r in range(measurement.rho_mm.size):
+            s, win = signal[w, r], windows[w, r]
+            smooth, peak, top = _peak_region(s)
+            n_bins = int(win.sum())
+            if n_bins < MIN_WINDOW_BINS or n_bins * step < 3 * fwhm[w, r]:
+                short[w] = True
+            above = np.flatnonzero(smooth[:peak + 1] >= 0.1 * top)
+            rise_time = (peak - above[0]) * step if above.size else 0.0
+            if fwhm[w, r] > rise_time:
+                wide[w] = True
+            if top < MIN_PEAK_COUNTS:
+                low[w] = True
+            if win[-1]:
+                cut[w] = True
+    if short.any():
+        messages.append(f"fit window short at {_bands(wl, short)}: fewer than {MIN_WINDOW_BINS} bins or less than "
+                        "3 IRF widths; lower window_tail_fraction or measure longer")
+    if wide.any():
+        messages.append(f"the IRF is wider than the curve's rise (10 % to peak) at {_bands(wl, wide)}: musp rests on "
+                        "the IRF's exact shape there")
+    if low.any():
+        messages.append(f"fewer than {MIN_PEAK_COUNTS:g} counts at the peak at {_bands(wl, low)}: the SDs assume "
+                        "Poisson counts; measure longer")
+    if cut.any():
+        messages.append(f"the fit window reaches the end of the histogram at {_bands(wl, cut)}: the tail is cut "
+                        "before it falls to window_tail_fraction of the peak")
+    if family == "diffusion":
+        if geometry == "reflectance":
+            lengths = np.min(measurement.rho_mm) * musp
+            near = lengths < DIFFUSION_MIN_TRANSPORT_LENGTHS
+            if near.any():
+                messages.append(f"distance short for diffusion at {_bands(wl, near)}: rho*musp = {lengths[near].min():.3g} "
+                                f"transport lengths, wanted >= {DIFFUSION_MIN_TRANSPORT_LENGTHS:g}; use the Monte Carlo "
+                                "lookup (model mc)")
+        else:
+            lengths = thickness * musp
+            thin = lengths < DIFFUSION_MIN_TRANSPORT_LENGTHS
+            if thin.any():
+                messages.append(f"slab thin for diffusion at {_bands(wl, thin)}: thickness*musp = "
+                                f"{lengths[thin].min():.3g} transport lengths, wanted >= "
+                                f"{DIFFUSION_MIN_TRANSPORT_LENGTHS:g}")
+        if rise < 0.3:
+            messages.append(f"the window starts at {rise:g} of the peak on the rising edge: early photons, where "
+                            "diffusion is poor, are in the fit")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = musp / mua
+    from phantomlab.transport.diffusion import MIN_MUSP_TO_MUA_RATIO
+
+    if family == "diffusion" and np.any(ratio < MIN_MUSP_TO_MUA_RATIO):
+        messages.append(f"diffusion is poor unless musp >> mua: musp/mua = {np.nanmin(ratio):.3g} at "
+                        f"{_bands(wl, ratio < MIN_MUSP_TO_MUA_RATIO)}, wanted >= {MIN_MUSP_TO_MUA_RATIO:g}")
+    return messages
+
