@@ -7,7 +7,11 @@
     phantomlab forward --kind slab  --mua-per-mm L --mus-per-mm L --g L --n L --thickness-mm D
                                     [--n-slide N --slides both|top|bottom] [--incidence collimated|diffuse]
     phantomlab forward --kind mc    --mua-per-mm L --mus-per-mm L --g L --n L [--thickness-mm D]
-                                    [--rho-mm L] --photons N [--seed S] [--threads T]
+                                    [--rho-mm L [--time-ps L]] --photons N [--seed S] [--threads T]
+    phantomlab forward --kind td    --mua-per-mm L --musp-per-mm L --n L --rho-mm L --time-ps L [...]
+    phantomlab forward --kind fd    --mua-per-mm L --musp-per-mm L --n L --rho-mm L --frequency-mhz L [...]
+
+(td and fd: :mod:`phantomlab.commands.forward_time`.)
 
 Every list (``L``) is comma-separated or ``START:STOP:STEP``; the coefficient lists (and
 ``--g``, ``--n``) hold one entry per set of optical properties ("entry", usually one per
@@ -48,7 +52,7 @@ __all__ = ["register", "KINDS", "MODELS", "REFLECTANCE_CONVENTION"]
 #: What every reflectance of this command is normalised to (the ``reflectance_convention`` key).
 REFLECTANCE_CONVENTION = "per unit incident power; specular reflection excluded"
 
-KINDS = ("srdr", "sfdi", "total", "slab", "mc")
+KINDS = ("srdr", "sfdi", "total", "slab", "mc", "td", "fd")
 
 #: The models each kind accepts (the first is the default).
 MODELS = {
@@ -57,6 +61,8 @@ MODELS = {
     "sfdi": ("cuccia2009",),
     "slab": ("adding-doubling",),
     "mc": ("weighted", "analog"),
+    "td": ("kienle1997", "contini1997", "patterson1989", "mc"),
+    "fd": ("kienle1997", "contini1997", "mc"),
 }
 
 _SLAB_KEYS = (
@@ -82,7 +88,9 @@ def register(subparsers) -> None:
         "--model",
         default=None,
         help="srdr/total: kienle1997 (default) or farrell1992; sfdi: cuccia2009; "
-        "slab: adding-doubling; mc: the estimator, weighted (default) or analog",
+        "slab: adding-doubling; mc: the estimator, weighted (default) or analog; "
+        "td: kienle1997 (default), contini1997, patterson1989, mc (needs --baseline); "
+        "fd: kienle1997 (default), contini1997, mc (needs --baseline)",
     )
     parser.add_argument(
         "--boundary",
@@ -98,6 +106,11 @@ def register(subparsers) -> None:
     parser.add_argument("--n-outside", metavar="N", default="1.0", help="refractive index outside (default 1.0)")
     parser.add_argument("--rho-mm", metavar="LIST", help="source-detector distances [mm] (srdr; mc)")
     parser.add_argument("--fx-per-mm", metavar="LIST", help="spatial frequencies [1/mm] (sfdi)")
+    parser.add_argument("--time-ps", metavar="LIST", help="times after the pulse entered [ps] (td; mc: bin centres)")
+    parser.add_argument("--frequency-mhz", metavar="LIST", help="modulation frequencies [MHz] (fd)")
+    parser.add_argument("--geometry", choices=("reflectance", "transmittance"), default=None,
+                        help="td: light leaving the entry face (default) or the far face of a slab")
+    parser.add_argument("--baseline", metavar="FILE", help="Monte Carlo baseline for td/fd --model mc")
     parser.add_argument(
         "--thickness-mm", metavar="D", help="slab thickness [mm] (slab: required; mc: absent = semi-infinite)"
     )
@@ -182,6 +195,11 @@ def handle(args: argparse.Namespace) -> CommandResult:
         return _diffusion(args, model)
     if args.kind == "slab":
         return _slab(args)
+    if args.kind in ("td", "fd"):
+        from phantomlab.commands.forward_time import handle_time_kinds
+
+        return handle_time_kinds(args, model, common_inputs=_common_inputs, scattering=_scattering,
+                                 entries_list=_list, number=_number, labels=_labels)
     return _monte_carlo(args, model)
 
 
@@ -346,6 +364,10 @@ def _monte_carlo(args, estimator: str) -> CommandResult:
     rho = _list(args.rho_mm, "--rho-mm")
     if rho is not None:
         check_limit("forward_points", count * rho.size, given=f"{count} entries x {rho.size} distances")
+    time = _list(args.time_ps, "--time-ps")
+    if time is not None and rho is not None:
+        check_limit("forward_points", count * rho.size * time.size,
+                    given=f"{count} entries x {rho.size} distances x {time.size} times")
     n_outside = _number(args.n_outside, "--n-outside")
     n_slide = _slide_pair(args)
     shown = _Progress(total=args.photons * count)
@@ -358,6 +380,7 @@ def _monte_carlo(args, estimator: str) -> CommandResult:
             n_outside=n_outside,
             thickness_mm=thickness,
             rho_mm=rho,
+            time_ps=time,
             photons=args.photons,
             seed=args.seed,
             threads=args.threads,
@@ -405,6 +428,13 @@ def _monte_carlo(args, estimator: str) -> CommandResult:
         payload["reflectance_convention"] = REFLECTANCE_CONVENTION
         text += "\n" + _grid_table("rho_mm", rho, "R [1/mm^2]", payload["reflectance_per_mm2"], payload)
         text += f"\n(R {REFLECTANCE_CONVENTION}; annulus averages)"
+    if time is not None:
+        payload["time_ps"] = time
+        for key in ("reflectance_per_mm2_per_ps", "transmittance_per_mm2_per_ps"):
+            if getattr(runs[0], key) is not None:
+                payload[key] = np.array([getattr(run, key) for run in runs])
+                payload[key + "_sd"] = np.array([getattr(run, key + "_sd") for run in runs])
+        text += f"\ntime-resolved tallies on {time.size} time bins: in the JSON (reflectance_per_mm2_per_ps)"
     text += (
         f"\n{args.photons} photons per entry, seed {args.seed}, {payload['seconds']:.3g} s simulated"
         " (compilation excluded)"
