@@ -628,7 +628,14 @@ def attach_measurement(
         source, read_extra = text, {"sidecar": sidecar}
     # the geometry options are checked with the file even when no fit runs (--no-fit)
     checked = {k: v for k, v in fit_options.items() if k in ("n", "n_outside", "thickness_mm", "g")}
-    info = read_measurement(source, kind=kind, **read_extra, **checked)
+    if kind == "td":  # the IRF is stored inline with the metadata: a refit from the log needs no other file
+        from phantomlab.calibration.td_measurements import sidecar_with_inline_irf  # layer 3
+
+        info = read_measurement(source, kind=kind, irf=fit_options.pop("irf", None), **read_extra, **checked)
+        sidecar_toml = sidecar_with_inline_irf(sidecar_toml, info)
+        read_extra = {"sidecar": parse_toml(sidecar_toml, what="measurement metadata (TOML)")}
+    else:
+        info = read_measurement(source, kind=kind, **read_extra, **checked)
     if kind == "sphere":
         sidecar_toml = _sphere_sidecar_for_the_record(sidecar_toml, info)
     result = None

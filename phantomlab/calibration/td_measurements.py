@@ -44,7 +44,7 @@ from phantomlab.calibration.measurements import MeasurementMetadata, metadata_fr
 from phantomlab.errors import InputError
 
 __all__ = ["TD_COLUMNS", "IRF_COLUMNS", "TD_KEYS", "TimeDomainMeasurement", "read_td", "parse_irf_text",
-           "irf_table", "combine_td_replicates"]
+           "irf_table", "sidecar_with_inline_irf", "combine_td_replicates"]
 
 TD_COLUMNS = ("wavelength_nm", "rho_mm", "time_ps", "counts")
 IRF_COLUMNS = ("time_ps", "counts")
@@ -301,6 +301,29 @@ def read_td(path_or_text, *, irf=None, **options) -> TimeDomainMeasurement:
         window_tail_fraction=fraction_value(table, "window_tail_fraction", where),
         source=source, name=name, irf_name=irf_name,
     )
+
+
+def sidecar_with_inline_irf(sidecar_toml: str | None, measurement: "TimeDomainMeasurement") -> str:
+    """The sidecar TOML text with the measurement's IRF written in as an ``[irf]`` table.
+
+    What the batch log stores beside a td file: a refit from the log then needs no other file.
+    Every other key of the sidecar is kept as it was.
+    """
+    import tomllib
+
+    import tomli_w
+
+    table: dict[str, Any] = {}
+    if sidecar_toml:
+        try:
+            table = tomllib.loads(sidecar_toml)
+        except tomllib.TOMLDecodeError as exc:
+            raise InputError(f"measurement metadata (TOML) not readable: {exc}") from None
+    per_wavelength = measurement.irf.shape[0] > 1
+    table["irf"] = irf_table(measurement.irf_time_ps, measurement.irf,
+                             measurement.wavelength_nm if per_wavelength else None)
+    table.setdefault("geometry", measurement.geometry)
+    return tomli_w.dumps(table)
 
 
 def combine_td_replicates(items) -> TimeDomainMeasurement:

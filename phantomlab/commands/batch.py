@@ -3,7 +3,7 @@
     phantomlab batch add RECIPE.toml [--sheet FILE.html] [--operator NAME] [--notes TEXT] [--corrects BATCH_ID]
     phantomlab batch actual BATCH_ID AMOUNTS.csv [--mixed-on DATE] [--cure TEXT] ...
     phantomlab batch status BATCH_ID STATUS [--note TEXT]
-    phantomlab batch measure BATCH_ID FILE.csv --kind {srdr,sfdi,slab,sphere,optics} [...]
+    phantomlab batch measure BATCH_ID FILE.csv --kind {srdr,sfdi,slab,sphere,optics,td,fd} [--irf IRF.csv] [...]
     phantomlab batch list [--status S] [--all]
     phantomlab batch show BATCH_ID
     phantomlab batch record BATCH_ID --html FILE.html
@@ -80,7 +80,8 @@ def register(subparsers) -> None:
     measure = actions.add_parser("measure", help="attach a measurement file to a batch and fit it")
     measure.add_argument("batch_id", metavar="BATCH_ID")
     measure.add_argument("file", metavar="FILE.csv")
-    measure.add_argument("--kind", required=True, choices=("srdr", "sfdi", "slab", "sphere", "optics"))
+    measure.add_argument("--kind", required=True, choices=("srdr", "sfdi", "slab", "sphere", "optics", "td", "fd"))
+    measure.add_argument("--irf", metavar="IRF.csv", help="td: the instrument response (stored inline)")
     measure.add_argument("--instrument", metavar="NAME")
     measure.add_argument("--measured-on", metavar="DATE", help="YYYY-MM-DD (default: the file's metadata, else today)")
     measure.add_argument("--age-days", type=float, metavar="D",
@@ -341,7 +342,7 @@ def _measure(args) -> CommandResult:
     path = Path(args.file)
     raw_content = read_bytes_file(path, what="measurement file")
     sidecar = path.with_suffix(".toml")
-    options = {"n": args.n, "thickness_mm": args.thickness_mm, "g": args.g}
+    options = {"n": args.n, "thickness_mm": args.thickness_mm, "g": args.g, "irf": args.irf}
     store = _open(args)
     try:
         done = attach_measurement(

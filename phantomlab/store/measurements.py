@@ -29,7 +29,7 @@ __all__ = [
 ]
 
 #: Measurement kinds of the file formats in docs/formats.md.
-MEASUREMENT_KINDS: tuple[str, ...] = ("srdr", "sfdi", "slab", "sphere", "optics")
+MEASUREMENT_KINDS: tuple[str, ...] = ("srdr", "sfdi", "slab", "sphere", "optics", "td", "fd")
 
 
 def add_measurement(

@@ -32,7 +32,7 @@ __all__ = ["show"]
 
 TITLE = "Batch log"
 STATUSES = ("planned", "mixed", "characterised", "retired")
-KINDS = ("srdr", "sfdi", "slab", "sphere", "optics")
+KINDS = ("srdr", "sfdi", "slab", "sphere", "optics", "td", "fd")
 LOG_COLUMNS = ("batch", "recipe", "status", "planned on", "mixed on", "operator", "measurements",
                "alarms", "notes")
 KIND_HELP = {
@@ -40,6 +40,8 @@ KIND_HELP = {
     "sfdi": "wavelength_nm,fx_per_mm,reflectance[,sd]",
     "slab": "wavelength_nm,total_reflectance,total_transmittance[,sd_r,sd_t]",
     "optics": "wavelength_nm,mua_per_mm,musp_per_mm[,mua_sd_per_mm,musp_sd_per_mm]",
+    "td": "wavelength_nm,rho_mm,time_ps,counts (+ the IRF file time_ps,counts)",
+    "fd": "wavelength_nm,rho_mm,frequency_mhz,amplitude,phase_deg[,amplitude_sd,phase_sd_deg]",
 }
 
 
@@ -249,7 +251,8 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
     c1, c2, c3 = st.columns(3)
     kind = c1.selectbox("Kind of measurement", KINDS, key="batches.kind",
                         help="srdr: fibre probe R(ρ); sfdi: camera R(fx); slab: integrating sphere R, T; "
-                             "optics: μa and μs′ from another instrument")
+                             "optics: μa and μs′ from another instrument; td: time-resolved histograms "
+                             "with their IRF; fd: AC amplitude and phase")
     model = c2.selectbox("Fit model", FIT_MODELS[kind], key=f"batches.model.{kind}")
     c3.caption(f"Columns: `{KIND_HELP[kind]}`")
     if workspace.is_demo and batch["actual_amounts"]:
@@ -268,6 +271,8 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
         sidecar = st.file_uploader("Its metadata file (TOML, optional: n, thickness, instrument, reference; "
                                    "sphere: the [sphere] table with the standard inline)",
                                    type=["toml"], key="batches.sidecar")
+        irf_file = st.file_uploader("td only: its instrument response (IRF CSV: time_ps,counts)", type=["csv"],
+                                    key="batches.irf")
         d1, d2, d3, d4 = st.columns(4)
         n = d1.number_input("Phantom refractive index n [dimensionless]", min_value=1.0, max_value=3.0,
                             value=1.33, step=0.01, key="batches.n")
@@ -282,11 +287,23 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
         st.error("Measurement file: choose a CSV file first.")
         return
     options = {"n": n, "thickness_mm": thickness if thickness > 0 else None}
+    sidecar_text = sidecar.getvalue().decode("utf-8", "replace") if sidecar is not None else None
+    if kind == "td":
+        if irf_file is None and "irf" not in (sidecar_text or ""):
+            st.error("A td measurement needs its instrument response: add the IRF file.")
+            return
+        if irf_file is not None:
+            from phantomlab.ui.refit_page import _irf_inline
+
+            inline = call_layer("Reading the IRF file", _irf_inline, irf_file.getvalue(), irf_file.name)
+            if not inline.ok:
+                return
+            sidecar_text = _with_irf(sidecar_text, inline.value)
     with st.spinner("Fitting the measurement…"):
         outcome = call_layer(
             "Attaching the measurement", attach_measurement, store, batch["code"], kind=kind,
             file_name=upload.name, raw_content=upload.getvalue(),
-            sidecar_toml=sidecar.getvalue().decode("utf-8", "replace") if sidecar is not None else None,
+            sidecar_toml=sidecar_text,
             model=model, measured_on=measured_on,  # the phantom age: days since mixing
             instrument=instrument.strip() or None, options=options,
         )
@@ -325,6 +342,20 @@ def _show_verdict(verdict: dict) -> None:
                                 "± SD [%]": st.column_config.NumberColumn(format="%.1f")})
     st.caption("PASS when the deviation plus 2 SD of the fit stays within tolerance, FAIL when the deviation "
                "minus 2 SD leaves it, else UNDECIDED (the same rule as the batch record).")
+
+
+def _with_irf(sidecar_text: str | None, irf: dict) -> str:
+    """The uploaded sidecar TOML with the IRF written in as its ``[irf]`` table."""
+    import tomllib
+
+    import tomli_w
+
+    try:
+        table = tomllib.loads(sidecar_text) if sidecar_text else {}
+    except tomllib.TOMLDecodeError:
+        return sidecar_text or ""  # the workflow refuses the unreadable file in one line
+    table["irf"] = irf
+    return tomli_w.dumps(table)
 
 
 def _status_section(store, batch: dict) -> None:

@@ -41,6 +41,7 @@ def line_figure(
     y_label: str,
     title: str | None = None,
     log_y: bool = False,
+    log_x: bool = False,
     height: int = 340,
 ) -> go.Figure:
     """A figure of spectra (or any x–y series) with shaded ±1 SD bands where given."""
@@ -90,6 +91,8 @@ def line_figure(
     _layout(figure, title=title, x_label=x_label, y_label=y_label, height=height)
     if log_y:
         figure.update_yaxes(type="log", dtick=1, exponentformat="power")
+    if log_x:
+        figure.update_xaxes(type="log")
     return figure
 
 

@@ -13,7 +13,11 @@ Flows:
   batches that moved it, and its history across calibrations;
 * the corrected plan of the next batch with the calibrated potencies (sheet, save as a new
   batch), or for a liquid batch still on the bench an add-only top-up;
-* the caution for lasers and bright sources used in characterisation.
+* the caution for lasers and bright sources used in characterisation (and for the pulsed and
+  modulated sources of time- and frequency-domain systems when such a measurement is fitted);
+* td and fd measurements (an uploaded td file needs its IRF file too) are shown by
+  :mod:`phantomlab.ui.time_view`: histograms with model and IRF on a log time axis, amplitude
+  and phase against distance.
 """
 
 from __future__ import annotations
@@ -29,6 +33,7 @@ from phantomlab.ui import services
 from phantomlab.ui.cautions import show_light_source_caution
 from phantomlab.ui.plain_text import plain
 from phantomlab.ui.plots import COLOURS, Series, line_figure, show_figure, target_series
+from phantomlab.ui.time_view import PULSED_SOURCES
 from phantomlab.ui.widgets import call_layer, show_warnings
 from phantomlab.ui.workspace import Workspace
 
@@ -66,6 +71,14 @@ def _read(text: str, kind: str, sidecar: dict, options: dict):
     from phantomlab.calibration import read_measurement  # layer 3
 
     return read_measurement(text, kind=kind, sidecar=sidecar, **options)
+
+
+def _irf_inline(raw: bytes, name: str) -> dict:
+    """An uploaded IRF file as the sidecar's inline ``[irf]`` table (the td reader checks it)."""
+    from phantomlab.calibration.td_measurements import irf_table, parse_irf_text  # layer 3
+
+    times, counts, wavelengths = parse_irf_text(raw.decode("utf-8", "replace"), name=name)
+    return irf_table(times, counts, wavelengths)
 
 
 def _baseline_folder(workspace: Workspace) -> Path:
@@ -277,8 +290,12 @@ def _fit_section(workspace: Workspace, store) -> None:
         c1, c2 = st.columns([1, 3])
         kind = c1.selectbox("Kind", list(FIT_MODELS), key="refit.upload_kind")
         upload = c2.file_uploader("Measurement file (CSV)", type=["csv"], key="refit.upload")
-        if upload is None:
-            st.info("Upload a measurement file to fit it.")
+        irf_upload = None
+        if kind == "td":
+            irf_upload = c2.file_uploader("Its instrument response (IRF CSV: time_ps,counts)", type=["csv"],
+                                          key="refit.upload_irf")
+        if upload is None or (kind == "td" and irf_upload is None):
+            st.info("Upload a measurement file to fit it" + (" and its IRF file." if kind == "td" else "."))
             return
         raw = upload.getvalue()
     else:
@@ -294,6 +311,11 @@ def _fit_section(workspace: Workspace, store) -> None:
     except tomllib.TOMLDecodeError as exc:
         st.error(plain(f"The stored metadata of this measurement is not valid TOML: {exc}"))
         return
+    if picked == UPLOAD and kind == "td":
+        inline = call_layer("Reading the IRF file", _irf_inline, irf_upload.getvalue(), irf_upload.name)
+        if not inline.ok:
+            return
+        sidecar["irf"] = inline.value
     c1, c2, c3, c4 = st.columns(4)
     model = c1.selectbox("Forward model", FIT_MODELS[kind], key=f"refit.model.{kind}",
                          help="diffusion: fast, poor within ~1 transport mean free path of the source; "
@@ -302,8 +324,19 @@ def _fit_section(workspace: Workspace, store) -> None:
                         value=float(sidecar.get("n", 1.33)), step=0.01, key="refit.n")
     power_law = c3.checkbox("Fit μs′ as a power law", key="refit.power_law",
                             help="μs′ = a (λ/500 nm)^−b fitted jointly across the band",
-                            disabled=kind in ("slab", "sphere", "optics"))
+                            disabled=kind in ("slab", "sphere", "optics", "td", "fd"))
+    if kind in ("td", "fd"):
+        power_law = False
+        st.caption(PULSED_SOURCES)
     options: dict = {"n": float(n)}
+    if kind == "td":
+        geometry = c4.selectbox("Geometry", ("reflectance", "transmittance"),
+                                index=1 if sidecar.get("geometry") == "transmittance" else 0, key="refit.geometry")
+        options["geometry"] = geometry
+        if geometry == "transmittance":
+            options["thickness_mm"] = c4.number_input("Slab thickness [mm]", min_value=0.01,
+                                                      value=float(sidecar.get("thickness_mm", 20.0)), step=0.5,
+                                                      key="refit.td_thickness")
     if kind in ("slab", "sphere"):
         options["thickness_mm"] = c4.number_input("Slab thickness [mm]", min_value=0.01,
                                                   value=float(sidecar.get("thickness_mm", 2.0)), step=0.1,
@@ -337,7 +370,14 @@ def _fit_section(workspace: Workspace, store) -> None:
     show_warnings(result.warnings)
     chi2 = f"{result.chi2_red:.3g}" if np.isfinite(result.chi2_red) else "– (no degrees of freedom)"
     st.markdown(f"Model **{result.model}** · reduced χ² **{chi2}** · {result.wavelength_nm.size} wavelength(s)")
-    if read.ok:
+    if read.ok and kind in ("td", "fd"):
+        from phantomlab.ui.time_view import show_fd_fit, show_td_fit
+
+        wavelengths = list(np.asarray(result.wavelength_nm, float))
+        shown = st.multiselect("Wavelengths to show [nm]", wavelengths, default=wavelengths[:1],
+                               key=f"refit.shown.{picked}", format_func=lambda w: f"{w:g} nm")
+        (show_td_fit if kind == "td" else show_fd_fit)(result, shown)
+    elif read.ok:
         measurement = read.value
         wavelengths = list(np.asarray(measurement.wavelength_nm, float))
         default = [wavelengths[i] for i in sorted({0, len(wavelengths) // 2, len(wavelengths) - 1})]
