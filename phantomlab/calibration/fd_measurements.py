@@ -142,18 +142,26 @@ def read_fd(path_or_text, **options) -> FrequencyDomainMeasurement:
     )
 
 
-#: Largest μa a phantom is taken to have when telling degrees from radians [1/mm]
-#: (common practice, no source: absorbing phantoms stay below about 1 /mm).
-_MAX_PLAUSIBLE_MUA_PER_MM = 1.0
+def _implied_ratio(k_r: float, k_i: float, omega_over_v: float) -> float:
+    """μs′/μa implied by the slopes (Fantini et al. 1994, D = 1/(3(μa + μs′))); NaN if unphysical."""
+    if k_i <= 0 or k_r <= 0:
+        return math.nan
+    mua = 0.5 * omega_over_v * (k_r / k_i - k_i / k_r)
+    if mua <= 0:
+        return math.nan
+    musp = (k_r**2 - k_i**2) / (3 * mua) - mua
+    return musp / mua
 
 
 def _check_phase_unit(phase, amplitude, rho, freq, rows_at, *, name: str, n: float) -> None:
     """Refuse phases that are radians in a phase_deg column.
 
-    In the diffusion picture the phase lag grows with distance at a rate k_i and ln(ρ² AC)
-    falls at a rate k_r with k_i/k_r = tan(θ/2), tan θ = ω/(v μa) (Fishkin & Gratton 1993).
-    A phase slope too small for any μa up to :data:`_MAX_PLAUSIBLE_MUA_PER_MM`, while every
-    phase lies within ±2π, is read as radians.
+    In the diffusion picture the slopes of ln(ρ² AC) (−k_r) and of the phase lag (k_i)
+    against ρ give μa and μs′ (Fantini et al. 1994, J Opt Soc Am B 11:2128).  Read as degrees,
+    radians make k_i 57 times too small, and the implied medium absorbs more than it scatters
+    (μs′/μa < 1: no diffuse light would reach the detectors); when that happens while the
+    same numbers read as radians imply μs′/μa >= 1, and every phase lies within ±2π, the
+    column is taken to hold radians.
     """
     from phantomlab.transport.time_domain import SPEED_OF_LIGHT_MM_PER_PS
 
@@ -166,13 +174,12 @@ def _check_phase_unit(phase, amplitude, rho, freq, rows_at, *, name: str, n: flo
             if ok.sum() < 2 or np.max(np.abs(phase[i, ok, f])) > 2 * math.pi:
                 continue
             x = rho[ok]
-            k_i = np.polyfit(x, np.radians(phase[i, ok, f]), 1)[0]
-            k_r = -np.polyfit(x, np.log(x**2 * amplitude[i, ok, f]), 1)[0]
-            if k_r <= 0:
-                continue
-            omega = 2 * math.pi * freq[f] * 1e-6
-            least = math.tan(0.5 * math.atan(omega / (v * _MAX_PLAUSIBLE_MUA_PER_MM)))
-            if abs(k_i) / k_r < least:
+            k_i = float(np.polyfit(x, np.radians(phase[i, ok, f]), 1)[0])
+            k_r = -float(np.polyfit(x, np.log(x**2 * amplitude[i, ok, f]), 1)[0])
+            omega_over_v = 2 * math.pi * freq[f] * 1e-6 / v
+            as_degrees = _implied_ratio(k_r, k_i, omega_over_v)
+            as_radians = _implied_ratio(k_r, math.degrees(k_i), omega_over_v)
+            if not (as_degrees >= 1.0) and as_radians >= 1.0:
                 row = int(rows_at[i, np.flatnonzero(ok)[0], f])
                 raise InputError(
                     f"{name}: row {row}, column phase_deg: the phases at {freq[f]:g} MHz grow by "

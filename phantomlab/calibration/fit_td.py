@@ -274,7 +274,10 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
             background[c] = 0.0 if estimate is None else estimate
         windows[c] = _window(counts[c] - background[c], rise, tail)
         signal = (counts[c] - background[c])[windows[c]]
-        if windows[c].sum() < 3 or not np.any(signal > 0):
+        # a pulse must stand out of the curve's own typical level (its median) by its noise, 5 SD
+        level = float(np.median(counts[c]))
+        standout = float(_smooth(counts[c]).max()) - level > 5.0 * np.sqrt(max(level, 1.0))
+        if windows[c].sum() < 3 or not np.any(signal > 0) or not standout:
             w, r = divmod(c, R)
             raise InputError(f"{measurement.name}: row {measurement.first_row[w, r]}, column counts: no counts above "
                              f"the background in the fit window at {measurement.wavelength_nm[w]:g} nm, "
