@@ -248,7 +248,13 @@ def fit_fd(measurement: FrequencyDomainMeasurement, *, model: str = "kienle1997"
         rl = np.where(finite[rows], (model_lag - np.nan_to_num(lag[rows])) / sd_lag[rows], 0.0)
         return np.concatenate([ra.reshape(rows.size, -1), rl.reshape(rows.size, -1)], axis=1)
 
-    x0 = _grid_start(residual_fn, W)
+    if model == "mc":  # start from the diffusion fit's grid (cheap); the lookup refines from there
+        diffusion = fd_forward(model="kienle1997", rho_mm=rho, frequency_mhz=freq, n=n, n_outside=n_outside)
+        lookup_forward, forward = forward, diffusion
+        x0 = _grid_start(residual_fn, W)
+        forward = lookup_forward
+    else:
+        x0 = _grid_start(residual_fn, W)
     mask = np.concatenate([finite.reshape(W, -1), finite.reshape(W, -1)], axis=1)
     outcome = fit_blocks(residual_fn, x0, mask=mask, lower=[np.log(1e-6), np.log(1e-3)],
                          upper=[np.log(5.0), np.log(50.0)], row_aware=True)

@@ -75,8 +75,15 @@ DIFFUSION_MIN_TRANSPORT_LENGTHS = 5.0
 MIN_BACKGROUND_BINS = 10
 #: The time shifts are fitted in ns (their steps then compare with those of the log coefficients).
 _SHIFT_UNIT_PS = 1000.0
-_GRID_MUA = np.geomspace(2e-4, 0.3, 8)
-_GRID_MUSP = np.geomspace(0.2, 5.0, 8)
+_GRID_MUA = np.geomspace(2e-4, 0.3, 9)
+_GRID_MUSP = np.geomspace(0.2, 5.0, 9)
+#: The fit stops when a step changes χ² by less than this (relative): Δχ² of 0.002 over 200
+#: bins, so the solution lies within √0.002 ≈ 0.05 SD of the minimum along any direction, far
+#: inside its uncertainty; the parameter steps then need no limit of their own (the lookup's
+#: table makes the last digits of a finite-difference Jacobian noisy, and chasing them costs
+#: calls without moving the answer).
+_COST_TOLERANCE = 1e-5
+_STEP_TOLERANCE = 1e-2
 
 
 @dataclass(frozen=True)
@@ -321,7 +328,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     mask = windows.reshape(W, R * K)
     outcome = None
     x = start
-    for _ in range(IRLS_PASSES):
+    for attempt in range(IRLS_PASSES):
         def residual_fn(x_rows, rows, sd=sd):
             curves = (rows[:, None] * R + np.arange(R)[None, :]).ravel()
             mua_c = np.repeat(np.exp(x_rows[:, 0]), R)
@@ -329,7 +336,10 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
             _, _, mu = expected(mua_c, musp_c, x_rows[:, 2:].ravel() * _SHIFT_UNIT_PS, curves, sd[curves])
             return ((mu - counts[curves]) / sd[curves]).reshape(rows.size, R * K)
 
-        outcome = fit_blocks(residual_fn, x, mask=mask, lower=lower, upper=upper, row_aware=True)
+        # later passes start at the previous solution and only follow the new weights: a few steps
+        outcome = fit_blocks(residual_fn, x, mask=mask, lower=lower, upper=upper, row_aware=True,
+                             max_nfev=None if attempt == 0 else 4, tolerance=_COST_TOLERANCE,
+                             step_tolerance=_STEP_TOLERANCE)
         x = outcome.x
         curves = np.arange(W * R)
         c, amplitude, mu = expected(np.repeat(np.exp(x[:, 0]), R), np.repeat(np.exp(x[:, 1]), R), x[:, 2:].ravel() * _SHIFT_UNIT_PS,
@@ -401,29 +411,47 @@ def _irf_centre(irf, irf_time_ps, irf_rows) -> np.ndarray:
     return centre[np.asarray(irf_rows, int)][:, None]
 
 
+def _shifted(time, curves, shifts):
+    """Each curve (N, K) moved later by each shift (N, S) [ps], linear between bins: (N, S, K)."""
+    step = time[1] - time[0]
+    position = (np.arange(time.size)[None, None, :] - shifts[:, :, None] / step)
+    low = np.floor(position).astype(np.int64)
+    frac = position - low
+    padded = np.concatenate([np.zeros((curves.shape[0], 1)), curves, np.zeros((curves.shape[0], 1))], axis=1)
+    lo = np.clip(low + 1, 0, time.size + 1)
+    hi = np.clip(low + 2, 0, time.size + 1)
+    rows = np.arange(curves.shape[0])[:, None, None]
+    return padded[rows, lo] * (1 - frac) + padded[rows, hi] * frac
+
+
 def _start(expected, counts, background, windows, time, W, R) -> np.ndarray:
-    """Starting point per wavelength from a grid of (μa, μs′), each with its own t0 guess.
+    """Starting point per wavelength from a grid of (μa, μs′), each with its best t0.
 
     For every grid pair the model (t0 = 0) is moved so that its half-peak on the rising edge
-    meets the data's, the amplitude projected, and the pair of smallest χ² kept.
+    meets the data's, then by ±150 ps around that in 25-ps steps; the amplitude is projected
+    and the (pair, shift) of smallest χ² kept.
     """
     G = _GRID_MUA.size * _GRID_MUSP.size
     mua_g = np.repeat(_GRID_MUA, _GRID_MUSP.size)
     musp_g = np.tile(_GRID_MUSP, _GRID_MUA.size)
+    offsets = np.arange(-150.0, 151.0, 25.0)
     x0 = np.zeros((W, 2 + R))
     for w in range(W):
         curves = w * R + np.arange(R)
         rows = np.repeat(curves, G)
         c, _, _ = expected(np.tile(mua_g, R), np.tile(musp_g, R), np.zeros(rows.size), rows)
-        data = counts[rows] - background[rows][:, None]
-        shifts = _half_rise(time, data) - _half_rise(time, c)
-        shifted = np.array([np.interp(time - s, time, row, left=0.0, right=0.0) for s, row in zip(shifts, c)])
-        weight = windows[rows] / np.maximum(counts[rows], 1.0)
-        amp = np.maximum(np.sum(weight * shifted * data, 1) / np.maximum(np.sum(weight * shifted**2, 1), 1e-300), 0)
-        chi2 = np.sum(weight * (amp[:, None] * shifted - data) ** 2, axis=1).reshape(R, G).sum(axis=0)
-        best = int(np.nanargmin(np.where(np.isfinite(chi2), chi2, np.inf)))
+        data = (counts[rows] - background[rows][:, None])[:, None, :]
+        shifts = (_half_rise(time, data[:, 0]) - _half_rise(time, c))[:, None] + offsets[None, :]
+        moved = _shifted(time, c, shifts)  # (rows, S, K)
+        weight = (windows[rows] / np.maximum(counts[rows], 1.0))[:, None, :]
+        amp = np.maximum(np.sum(weight * moved * data, 2) / np.maximum(np.sum(weight * moved**2, 2), 1e-300), 0)
+        chi2 = np.sum(weight * (amp[:, :, None] * moved - data) ** 2, axis=2)  # (rows, S)
+        chi2 = np.where(np.isfinite(chi2), chi2, np.inf).reshape(R, G, offsets.size)
+        best_shift = np.argmin(chi2, axis=2)  # per curve and grid pair
+        total = np.min(chi2, axis=2).sum(axis=0)
+        best = int(np.argmin(total))
         x0[w, 0], x0[w, 1] = np.log(mua_g[best]), np.log(musp_g[best])
-        x0[w, 2:] = shifts.reshape(R, G)[:, best] / _SHIFT_UNIT_PS
+        x0[w, 2:] = shifts.reshape(R, G, -1)[np.arange(R), best, best_shift[:, best]] / _SHIFT_UNIT_PS
     return x0
 
 

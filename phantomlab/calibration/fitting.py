@@ -156,6 +156,8 @@ def fit_blocks(
     scale_by_chi2: bool = False,
     max_nfev: int | None = None,
     row_aware: bool = False,
+    tolerance: float = 1e-9,
+    step_tolerance: float = 1e-7,
 ) -> BlockOutcome:
     """Solve W independent least-squares problems at once.
 
@@ -176,6 +178,9 @@ def fit_blocks(
     row_aware : bool
         ``residual_fn(x_rows, rows)`` evaluates only the given rows (blocks): then only the
         wavelengths still converging cost forward-model calls.
+    tolerance, step_tolerance : float
+        A block stops when a step lowers its cost by less than ``tolerance`` (relative) and
+        moves no parameter by more than ``step_tolerance``.
 
     Returns
     -------
@@ -211,7 +216,8 @@ def fit_blocks(
             full[rows] = x_rows
             return block_fn(full)[rows]
     x_start = _inside(x0, lo, hi)
-    x, nfev, success = _batched_levenberg_marquardt(row_fn, x_start, lo, hi, max_iterations=max_nfev or 60)
+    x, nfev, success = _batched_levenberg_marquardt(row_fn, x_start, lo, hi, max_iterations=max_nfev or 60,
+                                                    tolerance=tolerance, step_tolerance=step_tolerance)
     jac = finite_jacobian(block_fn, x)
     covariance = _invert_normal(jac)
     residuals = np.where(mask, block_fn(x), np.nan)
@@ -234,7 +240,7 @@ def _batched_levenberg_marquardt(row_fn, x, lo, hi, *, max_iterations=60, tolera
     Steps solve (JᵀJ + λ diag(JᵀJ)) δ = −Jᵀr per block (Marquardt 1963), are projected onto
     the bounds, accepted where the cost falls (λ /= 3) and refused elsewhere (λ *= 4);
     a block stops when its relative cost change falls below ``tolerance`` and its step below
-    ``step_tolerance``.  ``row_fn(x_rows, rows)`` evaluates only the blocks still running.
+    ``step_tolerance``, or when a refused step would change its cost by less than ``tolerance``.  ``row_fn(x_rows, rows)`` evaluates only the blocks still running.
     """
     W, P = x.shape
     x = x.copy()
@@ -269,7 +275,9 @@ def _batched_levenberg_marquardt(row_fn, x, lo, hi, *, max_iterations=60, tolera
             better = np.isfinite(cost_trial) & (cost_trial <= cost[sub])
             change = np.abs(cost[sub] - cost_trial) / np.maximum(cost[sub], 1e-300)
             moved = np.max(np.abs(trial - x[sub]), axis=1)
-            done = better & (change < tolerance) & (moved < step_tolerance)
+            # converged: an accepted step that changes little, or a refused one whose cost differs
+            # from the current by less than the tolerance (no decrease left to find)
+            done = (change < tolerance) & ((better & (moved < step_tolerance)) | ~better)
             accepted = sub[better]
             x[accepted] = trial[better]
             r[accepted] = r_trial[better]

@@ -1,0 +1,138 @@
+"""Benchmark of the time-domain and frequency-domain fits (issue 14): prints its figures.
+
+    .venv/bin/python bench/td.py
+
+* one td curve (400 bins of 10 ps, IRF of 150 ps FWHM, 1e5 counts at the peak) fitted with the
+  Monte Carlo lookup once the baseline and its lookup table exist (target <= 50 ms), and with
+  diffusion; beside them, in the same process, the same curve fitted the plain way (scipy's
+  least_squares over μa, μs′, t0 and the amplitude, a numerical convolution by np.convolve at
+  every call) as the ratio's baseline;
+* 20 wavelengths in one file (target <= 1 s);
+* an fd file (5 distances, 3 frequencies, 20 wavelengths).
+
+Times are the process's CPU time (one BLAS thread: run with OPENBLAS_NUM_THREADS=1), with the
+wall time beside it: on a machine shared with other jobs the wall time is inflated by them.
+
+The baseline is the test fixture's (tests/calibration/fixtures/mc_baseline.npz) when present,
+else one of 500 000 photons is built first.  Synthetic data (demo, invented): the lookup's own
+curves with Poisson noise — a timing bench, not an accuracy check.
+"""
+
+from __future__ import annotations
+
+import time
+import warnings
+from pathlib import Path
+
+import numpy as np
+from scipy.optimize import least_squares
+
+from phantomlab.calibration.fd_measurements import read_fd
+from phantomlab.calibration.fit_fd import fit_fd
+from phantomlab.calibration.fit_td import fit_td
+from phantomlab.calibration.mc_lookup_time import time_resolved_lookup
+from phantomlab.calibration.td_measurements import irf_table, read_td
+from phantomlab.errors import PhantomlabWarning
+from phantomlab.transport.convolution import irf_convolved_counts
+from phantomlab.transport.frequency_domain import amplitude_and_phase
+from phantomlab.transport.montecarlo import build_baseline, load_baseline
+from phantomlab.transport.time_domain import time_resolved_rows
+
+warnings.simplefilter("ignore", PhantomlabWarning)
+FIXTURE = Path(__file__).resolve().parents[1] / "tests" / "calibration" / "fixtures" / "mc_baseline.npz"
+STEP = 10.0
+TIME = np.arange(0.0, 4000.0, STEP) + STEP / 2
+IRF_TIME = np.arange(0.0, 1000.0, STEP) + STEP / 2
+IRF = np.exp(-0.5 * ((IRF_TIME - 300.0) / (150.0 / 2.3548)) ** 2)
+
+
+def _baseline():
+    if FIXTURE.is_file():
+        return load_baseline(FIXTURE), "fixture"
+    start = time.perf_counter()
+    made = build_baseline(mua_per_mm=0.0003, mus_per_mm=5.0, g=0.8, n=1.4, photons=500_000, seed=3)
+    return made, f"built in {time.perf_counter() - start:.1f} s"
+
+
+def _td_text(lookup, wavelengths, rng):
+    rows = ["wavelength_nm,rho_mm,time_ps,counts"]
+    for i, wl in enumerate(wavelengths):
+        mua, musp = 0.005 + 0.0005 * i, 1.0 + 0.01 * i
+        counts = irf_convolved_counts(
+            model=lambda t: lookup.point(mua_per_mm=np.full(t.shape[0], mua), mus_per_mm=np.full(t.shape[0], musp / 0.2),
+                                         rho_mm=np.full(t.shape, 15.0), time_ps=t),
+            time_ps=TIME, irf_time_ps=IRF_TIME, irf=IRF, shift_ps=80.0)[0]
+        noisy = rng.poisson(counts / counts.max() * 1e5 + 3.0)
+        rows += [f"{wl:g},15,{t:g},{c}" for t, c in zip(TIME, noisy)]
+    return "\n".join(rows) + "\n"
+
+
+def td_fits(baseline) -> None:
+    lookup = time_resolved_lookup(baseline)
+    rng = np.random.default_rng(1)
+    sidecar = {"n": 1.4, "irf": irf_table(IRF_TIME, np.round(IRF * 1e7))}
+    one = read_td(_td_text(lookup, [800.0], rng), sidecar=sidecar)
+    twenty = read_td(_td_text(lookup, np.linspace(650, 900, 20), rng), sidecar=sidecar)
+    fit_td(one, model="mc", baseline=baseline)  # warm-up
+    for model in ("mc", "kienle1997"):
+        repeats = 5
+        wall, cpu = time.perf_counter(), time.process_time()
+        for _ in range(repeats):
+            fit = fit_td(one, model=model, baseline=baseline)
+        single, single_cpu = ((time.perf_counter() - wall) / repeats, (time.process_time() - cpu) / repeats)
+        wall, cpu = time.perf_counter(), time.process_time()
+        fit_td(twenty, model=model, baseline=baseline)
+        many, many_cpu = time.perf_counter() - wall, time.process_time() - cpu
+        print(f"td fit, model {model}: one curve {1000 * single_cpu:.0f} ms CPU ({1000 * single:.0f} ms wall) "
+              f"(target <= 50 ms); 20 wavelengths {many_cpu:.2f} s CPU ({many:.2f} s wall) (target <= 1 s); "
+              f"chi2_red {fit.chi2_red:.2f}")
+    # the plain way: least_squares over (log mua, log musp, t0, log A), np.convolve of the
+    # model on the data grid at every call (no variable projection, no precomputation)
+    data = one.counts[0, 0]
+    irf = IRF / IRF.sum()
+
+    def residual(x):
+        model = time_resolved_rows(mua_per_mm=np.exp(x[0]), musp_per_mm=np.exp(x[1]), rho_mm=15.0,
+                                   time_ps=TIME - IRF_TIME[0] - x[2], n=1.4)
+        expected = np.exp(x[3]) * np.convolve(model, irf)[:TIME.size] * STEP + 3.0
+        return (expected - data) / np.sqrt(np.maximum(data, 1.0))
+
+    cpu = time.process_time()
+    plain = least_squares(residual, [np.log(0.004), np.log(0.8), 0.0, np.log(1e5 / 5e-5)], x_scale="jac")
+    loop = time.process_time() - cpu
+    print(f"plain least_squares of the same curve (diffusion, np.convolve, {plain.nfev} calls, started near the "
+          f"answer): {1000 * loop:.0f} ms CPU; ratio plain/ours (diffusion) {loop / single_cpu:.1f}x")
+
+
+def fd_fits(baseline) -> None:
+    rng = np.random.default_rng(2)
+    rho = np.array([10.0, 15.0, 20.0, 25.0, 30.0])
+    freq = np.array([100.0, 200.0, 300.0])
+    rows = ["wavelength_nm,rho_mm,frequency_mhz,amplitude,phase_deg,amplitude_sd,phase_sd_deg"]
+    for i, wl in enumerate(np.linspace(650, 900, 20)):
+        amp, phase = amplitude_and_phase(mua_per_mm=0.005 + 0.0005 * i, musp_per_mm=1.0, rho_mm=rho[:, None],
+                                         frequency_mhz=freq[None, :], n=1.4)
+        amp = amp * (1 + 0.005 * rng.standard_normal(amp.shape))
+        phase = phase + 10 + 0.2 * rng.standard_normal(phase.shape)
+        rows += [f"{wl:g},{r:g},{f:g},{a:.6g},{p:.4f},{0.005 * a:.3g},0.2"
+                 for r, ar, pr in zip(rho, amp, phase) for f, a, p in zip(freq, ar, pr)]
+    m = read_fd("\n".join(rows) + "\n", sidecar={"n": 1.4})
+    for model in ("kienle1997", "mc"):
+        cpu = time.process_time()
+        fit_fd(m, model=model, baseline=baseline)
+        print(f"fd fit, model {model}, 20 wavelengths x 5 distances x 3 frequencies: "
+              f"{time.process_time() - cpu:.2f} s CPU")
+
+
+def main() -> None:
+    baseline, how = _baseline()
+    start = time.perf_counter()
+    time_resolved_lookup(baseline)
+    print(f"baseline ({how}): {baseline.detected} photons; time-resolved lookup table built in "
+          f"{time.perf_counter() - start:.1f} s (once per baseline)")
+    td_fits(baseline)
+    fd_fits(baseline)
+
+
+if __name__ == "__main__":
+    main()
