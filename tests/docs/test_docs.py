@@ -131,6 +131,16 @@ CHEAP_RUNS = {
     "forward slab": ("phantomlab forward",
                      ["forward", "--kind", "slab", "--mua-per-mm", "0.1", "--mus-per-mm", "9", "--g", "0.75",
                       "--n", "1.4", "--thickness-mm", "1", "--n-slide", "1.52"]),
+    "forward td": ("phantomlab forward",
+                   ["forward", "--kind", "td", "--mua-per-mm", "0.01", "--musp-per-mm", "1", "--n", "1.4",
+                    "--rho-mm", "15", "--time-ps", "100:2000:100"]),
+    "forward td transmittance": ("phantomlab forward",
+                                 ["forward", "--kind", "td", "--mua-per-mm", "0.01", "--musp-per-mm", "1", "--n", "1.4",
+                                  "--rho-mm", "0", "--time-ps", "100:2000:100", "--geometry", "transmittance",
+                                  "--thickness-mm", "20"]),
+    "forward fd": ("phantomlab forward",
+                   ["forward", "--kind", "fd", "--mua-per-mm", "0.01", "--musp-per-mm", "1", "--n", "1.4",
+                    "--rho-mm", "10,20", "--frequency-mhz", "100,200"]),
     "fit srdr": ("phantomlab fit", ["fit", MEASUREMENT, "--kind", "srdr", "--model", "kienle1997"]),
     "fit srdr power law": ("phantomlab fit", ["fit", MEASUREMENT, "--kind", "srdr", "--musp-power-law"]),
 }
@@ -190,6 +200,11 @@ def _format_fields():
         | {a for a in measurements.KINDS.values() if a} | set(measurements.KINDS)
     from phantomlab.calibration import sphere_readings
 
+    from phantomlab.calibration import fd_measurements, td_measurements
+
+    yield "Measurement CSV", set(td_measurements.TD_COLUMNS) | set(td_measurements.IRF_COLUMNS) \
+        | set(fd_measurements.FD_COLUMNS) | set(fd_measurements.FD_SD_COLUMNS)
+    yield "Measurement sidecar (TOML)", set(td_measurements.TD_KEYS) | set(fd_measurements.FD_KEYS)
     yield "Measurement sidecar (TOML)", set(measurements._METADATA_KEYS) | {
         "wavelength_nm", "mua_per_mm", "musp_per_mm", "mua_sd_per_mm", "musp_sd_per_mm", "reading_csv"} \
         | set(sphere_readings.SPHERE_KEYS) | set(sphere_readings.TRANSMISSION_KEYS)
@@ -198,7 +213,7 @@ def _format_fields():
     yield "Lab archive (zip)", set(Base.metadata.tables)
 
 
-@pytest.mark.parametrize("section, fields", list(_format_fields()), ids=lambda v: v if isinstance(v, str) else "")
+@pytest.mark.parametrize("section, fields", list(_format_fields()), ids=lambda v: v if isinstance(v, str) else "x")
 def test_every_accepted_field_is_in_the_formats(section, fields):
     named = _code_words(FORMAT_SECTIONS[section] + "".join(
         body for name, body in _sections(FORMAT_SECTIONS[section], "### ").items()))
@@ -229,6 +244,17 @@ def test_the_format_examples_are_accepted():
             assert examples, f"docs/formats.md: no example for the {kind} measurement CSV"
             for example in examples:
                 parse_measurement_text(example, kind=kind, name=f"docs {kind} example")
+        if kind == "fd":
+            from phantomlab.calibration.fd_measurements import read_fd
+
+            for example in _blocks(body, "csv"):
+                read_fd(example, sidecar={"n": 1.4})
+        if kind == "td":
+            from phantomlab.calibration.td_measurements import irf_table, parse_irf_text, read_td
+
+            data, irf = _blocks(body, "csv")
+            times, counts, _ = parse_irf_text(irf, name="docs IRF example")
+            read_td(data, sidecar={"n": 1.4, "irf": irf_table(times, counts)})
     sidecar = _blocks(FORMAT_SECTIONS["Measurement sidecar (TOML)"], "toml")[0]
     metadata_from_mapping(tomllib.loads(sidecar), where="docs sidecar example")
     assert parse_amounts_csv(_blocks(FORMAT_SECTIONS["Amounts CSV"], "csv")[0])[0]["stock"] == "lipid20"
