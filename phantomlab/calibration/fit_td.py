@@ -51,7 +51,8 @@ from typing import Any
 import numpy as np
 
 from phantomlab.calibration.fitting import FitResult, fit_blocks, log_to_linear
-from phantomlab.calibration.identifiability import _bands, outcome_warnings
+from phantomlab.calibration.identifiability import outcome_warnings
+from phantomlab.calibration.td_checks import td_design_warnings
 from phantomlab.calibration.td_measurements import TimeDomainMeasurement
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.jsonable import to_jsonable
@@ -64,13 +65,6 @@ TD_FIT_MODELS = ("kienle1997", "contini1997", "patterson1989", "mc")
 DEFAULT_WINDOW = {"diffusion": (0.5, 0.01), "mc": (0.1, 0.01)}
 #: Passes of the Poisson reweighting (the weights settle in two).
 IRLS_PASSES = 2
-#: Below this many counts at the peak the fit warns.  # common practice, no source
-MIN_PEAK_COUNTS = 1000.0
-#: Fewest bins the window should hold.  # common practice, no source
-MIN_WINDOW_BINS = 20
-#: Diffusion needs the distance (or thickness) to be this many transport lengths.
-#: # common practice, no source
-DIFFUSION_MIN_TRANSPORT_LENGTHS = 5.0
 #: Fewest pre-pulse bins to estimate the background from.
 MIN_BACKGROUND_BINS = 10
 #: The time shifts are fitted in ns (their steps then compare with those of the log coefficients).
@@ -289,6 +283,11 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
             raise InputError(f"{measurement.name}: row {measurement.first_row[w, r]}, column counts: no counts above "
                              f"the background in the fit window at {measurement.wavelength_nm[w]:g} nm, "
                              f"{measurement.rho_mm[r]:g} mm")
+    irf_peak = float(np.max(measurement.irf))
+    data_peak = float(np.nanmax(counts))
+    if irf_peak < data_peak:
+        messages.append(f"the IRF holds fewer counts at its peak ({irf_peak:.3g}) than the data ({data_peak:.3g}): its own "
+                        "noise enters the model and the SDs do not count it; measure the IRF with more counts")
     if guessed_zero:
         messages.append(f"no bins before the pulse to estimate the background from ({len(guessed_zero)} curves); "
                         "taken as 0 (give background_counts in the sidecar)")
@@ -377,7 +376,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         total_dof = float(dof[dof > 0].sum())
         chi2_all = float(chi2[dof > 0].sum() / total_dof) if total_dof > 0 else float("nan")
         correlation = cov[:, 0, 1] / (mua_sd * musp_sd)
-    messages += _design_warnings(measurement, full_counts.reshape(W, R, K_full) - background.reshape(W, R, 1),
+    messages += td_design_warnings(measurement, full_counts.reshape(W, R, K_full) - background.reshape(W, R, 1),
                                  full_windows.reshape(W, R, K_full), fwhm.reshape(W, R), family, geometry, thickness,
                                  mua_fit, musp_fit, rise)
     messages += outcome_warnings(wavelength_nm=measurement.wavelength_nm, mua_per_mm=mua_fit, musp_per_mm=musp_fit,
@@ -470,65 +469,3 @@ def _half_rise(time, curves) -> np.ndarray:
         a, b = row[k - 1], row[k]
         out[i] = time[k - 1] + (0.5 * top - a) * (time[k] - time[k - 1]) / (b - a if b != a else 1.0)
     return np.nan_to_num(out, nan=0.0)
-
-
-def _design_warnings(measurement, signal, windows, fwhm, family, geometry, thickness, mua, musp, rise) -> list[str]:
-    """Identifiability and model-range checks of a td fit (each message names values and limits)."""
-    messages = []
-    wl = measurement.wavelength_nm
-    step = measurement.step_ps
-    short, wide, low, cut = (np.zeros(wl.size, bool) for _ in range(4))
-    for w in range(wl.size):
-        for r in range(measurement.rho_mm.size):
-            s, win = signal[w, r], windows[w, r]
-            smooth, peak, top = _peak_region(s)
-            n_bins = int(win.sum())
-            if n_bins < MIN_WINDOW_BINS or n_bins * step < 3 * fwhm[w, r]:
-                short[w] = True
-            above = np.flatnonzero(smooth[:peak + 1] >= 0.1 * top)
-            rise_time = (peak - above[0]) * step if above.size else 0.0
-            if fwhm[w, r] > rise_time:
-                wide[w] = True
-            if top < MIN_PEAK_COUNTS:
-                low[w] = True
-            if win[-1]:
-                cut[w] = True
-    if short.any():
-        messages.append(f"fit window short at {_bands(wl, short)}: fewer than {MIN_WINDOW_BINS} bins or less than "
-                        "3 IRF widths; lower window_tail_fraction or measure longer")
-    if wide.any():
-        messages.append(f"the IRF is wider than the curve's rise (10 % to peak) at {_bands(wl, wide)}: musp rests on "
-                        "the IRF's exact shape there")
-    if low.any():
-        messages.append(f"fewer than {MIN_PEAK_COUNTS:g} counts at the peak at {_bands(wl, low)}: the SDs assume "
-                        "Poisson counts; measure longer")
-    if cut.any():
-        messages.append(f"the fit window reaches the end of the histogram at {_bands(wl, cut)}: the tail is cut "
-                        "before it falls to window_tail_fraction of the peak")
-    if family == "diffusion":
-        if geometry == "reflectance":
-            lengths = np.min(measurement.rho_mm) * musp
-            near = lengths < DIFFUSION_MIN_TRANSPORT_LENGTHS
-            if near.any():
-                messages.append(f"distance short for diffusion at {_bands(wl, near)}: rho*musp = {lengths[near].min():.3g} "
-                                f"transport lengths, wanted >= {DIFFUSION_MIN_TRANSPORT_LENGTHS:g}; use the Monte Carlo "
-                                "lookup (model mc)")
-        else:
-            lengths = thickness * musp
-            thin = lengths < DIFFUSION_MIN_TRANSPORT_LENGTHS
-            if thin.any():
-                messages.append(f"slab thin for diffusion at {_bands(wl, thin)}: thickness*musp = "
-                                f"{lengths[thin].min():.3g} transport lengths, wanted >= "
-                                f"{DIFFUSION_MIN_TRANSPORT_LENGTHS:g}")
-        if rise < 0.3:
-            messages.append(f"the window starts at {rise:g} of the peak on the rising edge: early photons, where "
-                            "diffusion is poor, are in the fit")
-    with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = musp / mua
-    from phantomlab.transport.diffusion import MIN_MUSP_TO_MUA_RATIO
-
-    if family == "diffusion" and np.any(ratio < MIN_MUSP_TO_MUA_RATIO):
-        messages.append(f"diffusion is poor unless musp >> mua: musp/mua = {np.nanmin(ratio):.3g} at "
-                        f"{_bands(wl, ratio < MIN_MUSP_TO_MUA_RATIO)}, wanted >= {MIN_MUSP_TO_MUA_RATIO:g}")
-    return messages
-

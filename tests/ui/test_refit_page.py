@@ -275,3 +275,39 @@ def test_an_uploaded_file_is_fitted_without_being_stored(refit, demo_file):
             assert session.scalar(select(func.count()).select_from(Measurement)) == 3
     finally:
         store.close()
+
+
+DEMO_MEASUREMENTS = __import__("pathlib").Path(__file__).resolve().parents[2] / "recipes" / "measurements"
+
+
+@pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")
+def test_an_uploaded_td_file_with_its_irf_shows_histogram_model_irf_and_residuals(refit):
+    refit.selectbox(key="refit.measurement").set_value("(upload a file, not stored)").run()
+    refit.selectbox(key="refit.upload_kind").set_value("td").run()
+    data = (DEMO_MEASUREMENTS / "demo-reference-td.csv").read_bytes()
+    refit.file_uploader(key="refit.upload").set_value(("td.csv", data, "text/csv")).run()
+    assert any("and its IRF file" in i.value for i in refit.info)  # the IRF is asked for
+    irf = (DEMO_MEASUREMENTS / "demo-reference-irf.csv").read_bytes()
+    refit.file_uploader(key="refit.upload_irf").set_value(("irf.csv", irf, "text/csv")).run()
+    refit.number_input(key="refit.n").set_value(1.4).run()
+    assert not refit.exception
+    titles = _titles(refit)
+    assert any(t.startswith("690 nm, ρ 15 mm: time shift") for t in titles), titles
+    assert "Normalised residuals in the window" in titles
+    names = {trace["name"] for c in refit.get("plotly_chart") for trace in json.loads(c.proto.spec)["data"]}
+    assert {"data (counts)", "model ⊗ IRF", "IRF (scaled to the peak)"} <= names
+    layout = [json.loads(c.proto.spec)["layout"] for c in refit.get("plotly_chart")]
+    assert any(lay.get("xaxis", {}).get("type") == "log" for lay in layout)  # time on a log axis
+    assert any("picosecond pulsed" in c.value for c in refit.caption)  # the pulsed-source caution
+
+
+@pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")
+def test_an_uploaded_fd_file_shows_amplitude_and_phase_against_distance(refit):
+    refit.selectbox(key="refit.measurement").set_value("(upload a file, not stored)").run()
+    refit.selectbox(key="refit.upload_kind").set_value("fd").run()
+    data = (DEMO_MEASUREMENTS / "demo-reference-fd.csv").read_bytes()
+    refit.file_uploader(key="refit.upload").set_value(("fd.csv", data, "text/csv")).run()
+    refit.number_input(key="refit.n").set_value(1.4).run()
+    assert not refit.exception
+    titles = _titles(refit)
+    assert "690 nm: amplitude" in titles and "690 nm: phase" in titles
