@@ -1,0 +1,75 @@
+"""fd fits on independent Monte Carlo data: the Fourier transform of the direct run's curves.
+
+Data: amplitude and phase at 6 distances (10–20 mm) and 100, 200, 300 MHz from the direct
+Monte Carlo run of ``fixtures/mc_td_half_space.npz`` (μs′ = 1.2 /mm, g = 0.8, n = 1.4), made
+relative (× 3.7) with 0.5 % noise and shifted by an unknown system phase with 0.2° noise, the
+SD columns saying so; twelve copies per case as twelve "wavelengths".  The lookup fitting them
+is built from the other Monte Carlo fixture (the baseline), so this is a test on independent
+data; the Monte Carlo run's own noise is far below 0.5 % in the transform (it sums the whole
+curve).
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+import pytest
+
+import td_fixture_data as fixture
+from phantomlab.calibration.fd_measurements import read_fd
+from phantomlab.calibration.fit_fd import fit_fd
+from phantomlab.errors import PhantomlabWarning
+from phantomlab.transport.montecarlo import load_baseline
+
+pytestmark = pytest.mark.skipif(not (fixture.FIXTURES / "mc_td_half_space.npz").is_file(),
+                                reason="fixtures/mc_td_half_space.npz missing: run fixtures/make_td_fixtures.py")
+MUSP = 1.2
+RHO = (10.0, 12.0, 14.0, 16.0, 18.0, 20.0)
+FREQ = (100.0, 200.0, 300.0)
+
+
+def _file(run, mua, rng, copies=12):
+    rows = ["wavelength_nm,rho_mm,frequency_mhz,amplitude,phase_deg,amplitude_sd,phase_sd_deg"]
+    values, sd = fixture.absorbed(run, mua)
+    step = float(run["time_ps"][1] - run["time_ps"][0])
+    exact = {}
+    for rho in RHO:
+        curve, _ = fixture.point_value(run, values, sd, rho)
+        for f in FREQ:
+            exact[rho, f] = np.sum(curve * np.exp(-2j * math.pi * f * 1e-6 * run["time_ps"])) * step
+    for copy in range(copies):
+        for rho in RHO:
+            for f in FREQ:
+                amp = 3.7 * abs(exact[rho, f]) * (1 + 0.005 * rng.standard_normal())
+                phase = -math.degrees(np.angle(exact[rho, f])) + 17.0 + 0.2 * rng.standard_normal()
+                rows.append(f"{700 + copy},{rho:g},{f:g},{amp:.8e},{phase:.5f},{0.005 * amp:.4e},0.2")
+    return read_fd("\n".join(rows) + "\n", sidecar={"n": 1.4, "amplitude": "relative"})
+
+
+@pytest.fixture(scope="module")
+def run():
+    return fixture.half_space()
+
+
+@pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")
+@pytest.mark.parametrize("model", ["kienle1997", "mc"])
+@pytest.mark.parametrize("ratio", [30.0, 100.0, 300.0])
+def test_fd_recovery_on_the_transform_of_direct_runs(run, model, ratio):
+    baseline = load_baseline(fixture.FIXTURES / "mc_baseline.npz") if model == "mc" else None
+    rng = np.random.default_rng(int(ratio))
+    mua = MUSP / ratio
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PhantomlabWarning)
+        fit = fit_fd(_file(run, mua, rng), model=model, baseline=baseline)
+    mua_err = fit.mua_per_mm / mua - 1
+    musp_err = fit.musp_per_mm / MUSP - 1
+    print(f"{model} ratio {ratio:g}: mua {100 * np.median(mua_err):+.2f} % (SD {100 * np.median(fit.mua_sd_per_mm) / mua:.2f} %), "
+          f"musp {100 * np.median(musp_err):+.2f} % (SD {100 * np.median(fit.musp_sd_per_mm) / MUSP:.2f} %), "
+          f"chi2 {fit.chi2_red:.2f}")
+    assert np.all(np.abs(mua_err) <= 0.03) and np.all(np.abs(musp_err) <= 0.02)
+    if model == "mc":  # the SDs cover the truth (the lookup's own noise being small here)
+        z = np.concatenate([(fit.mua_per_mm - mua) / fit.mua_sd_per_mm, (fit.musp_per_mm - MUSP) / fit.musp_sd_per_mm])
+        assert np.mean(np.abs(z) <= 2) >= 0.9
+    assert np.all(np.abs(np.median(fit.phase_offset_deg, axis=0) - 17.0) < 1.0)

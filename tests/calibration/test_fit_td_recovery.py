@@ -1,0 +1,110 @@
+"""Recovery of μa and μs′ from independent Monte Carlo time-resolved data (issue 14 acceptance).
+
+Data: the direct Monte Carlo run of ``fixtures/mc_td_half_space.npz`` (μs′ = 1.2 /mm, g = 0.8,
+n = 1.4, not the baseline the lookup is built from) seen through an IRF of 100–300 ps FWHM,
+delayed by an unknown t0, at 10⁵–10⁶ counts at the peak, with Poisson noise
+(``td_fixture_data.py``).  Twenty noisy copies of each case go into one file as twenty
+"wavelengths" (one fit call).
+
+Two sources of error are told apart: the expected counts λ carry the Monte Carlo run's own
+photon noise, which every copy of a case shares.  Its effect on the fitted values (SD_ref) is
+measured by fitting λ perturbed by that noise; a copy's error is then compared with
+√(SD_fit² + SD_ref²).  The acceptance: μa within 3 %, μs′ within 2 % for every copy; at least
+90 % of the copies within 2 of those SDs.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pytest
+
+import td_fixture_data as fixture
+from phantomlab.calibration.fit_td import fit_td
+from phantomlab.calibration.td_measurements import irf_table, read_td
+from phantomlab.errors import PhantomlabWarning
+from phantomlab.transport.montecarlo import load_baseline
+
+pytestmark = pytest.mark.skipif(not (fixture.FIXTURES / "mc_td_half_space.npz").is_file(),
+                                reason="fixtures/mc_td_half_space.npz missing: run fixtures/make_td_fixtures.py")
+
+MUSP = 1.2  # the run's μs′ [1/mm]
+#: (μs′/μa, ρ [mm], IRF FWHM [ps], t0 [ps], counts at the peak)
+CASES = [
+    (10.0, 10.0, 100.0, 135.0, 1e5),
+    (30.0, 10.0, 200.0, 60.0, 1e6),
+    (100.0, 15.0, 300.0, 210.0, 1e5),
+    (300.0, 15.0, 150.0, 35.0, 1e6),
+    (1000.0, 20.0, 250.0, 165.0, 1e5),
+]
+COPIES = 20
+PERTURBED = 12
+
+
+@pytest.fixture(scope="module")
+def run():
+    return fixture.half_space()
+
+
+@pytest.fixture(scope="module")
+def baseline():
+    return load_baseline(fixture.FIXTURES / "mc_baseline.npz")
+
+
+def _measurement(curve, rows):
+    curves = {(700.0 + i, curve_rho): counts for i, (curve_rho, counts) in enumerate(rows)}
+    irf_counts = np.round(curve.irf / curve.irf.max() * 1e8)  # the IRF measured with far more counts
+    return read_td(fixture.td_csv(curves, curve.time_ps),
+                   sidecar={"n": 1.4, "irf": irf_table(curve.irf_time_ps, irf_counts)})
+
+
+def _fit(measurement, model, baseline):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PhantomlabWarning)
+        return fit_td(measurement, model=model, baseline=baseline if model == "mc" else None)
+
+
+def _case(run, baseline, model, case, seed):
+    ratio, rho, fwhm, shift, peak = case
+    mua = MUSP / ratio
+    curve = fixture.instrument_curve(run, mua_per_mm=mua, rho_mm=rho, fwhm_ps=fwhm, shift_ps=shift,
+                                     peak_counts=peak, window_ps=(0.0, 5000.0))
+    rng = np.random.default_rng(seed)
+    copies = _fit(_measurement(curve, [(rho, rng.poisson(curve.lam)) for _ in range(COPIES)]), model, baseline)
+    perturbed = _fit(_measurement(curve, [(rho, curve.lam + curve.lam_sd * rng.standard_normal(curve.lam.size))
+                                          for _ in range(PERTURBED)]), model, baseline)
+    return mua, copies, perturbed
+
+
+def _check(run, baseline, model):
+    report = []
+    inside = total = 0
+    for k, case in enumerate(CASES):
+        mua, copies, perturbed = _case(run, baseline, model, case, seed=4000 + k)
+        for name, truth, tolerance in (("mua", mua, 0.03), ("musp", MUSP, 0.02)):
+            values = getattr(copies, f"{name}_per_mm")
+            sd = getattr(copies, f"{name}_sd_per_mm")
+            sd_ref = float(np.std(getattr(perturbed, f"{name}_per_mm"), ddof=1))
+            error = values / truth - 1
+            z = (values - truth) / np.sqrt(sd**2 + sd_ref**2)
+            inside += int(np.sum(np.abs(z) <= 2))
+            total += values.size
+            report.append(f"ratio {case[0]:g} {name}: error {100 * np.median(error):+.2f} % "
+                          f"(worst {100 * error[np.argmax(np.abs(error))]:+.2f} %), SD {100 * np.median(sd) / truth:.2f} %, "
+                          f"SD_ref {100 * sd_ref / truth:.2f} %, |z|<=2 {np.mean(np.abs(z) <= 2):.0%}")
+            assert np.all(np.abs(error) <= tolerance), report[-1]
+    print("\n".join(report))
+    assert inside / total >= 0.90, (inside / total, report)
+
+
+@pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")
+def test_recovery_with_the_monte_carlo_lookup(run, baseline):
+    _check(run, baseline, "mc")
+
+
+@pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")
+def test_recovery_with_the_default_model(run, baseline):
+    from phantomlab.calibration.fit_file import DEFAULT_MODELS
+
+    _check(run, baseline, DEFAULT_MODELS["td"])

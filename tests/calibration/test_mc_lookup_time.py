@@ -1,0 +1,137 @@
+"""The time- and frequency-domain Monte Carlo lookup against direct Monte Carlo runs.
+
+The lookup is built from the stored baseline (``fixtures/mc_baseline.npz``: μa_ref = 0.0003,
+μs_ref = 5 /mm, g = 0.8, n = 1.4, seed 7) by scaling and re-weighting; the reference is a
+direct run of the engine with its time tally (``fixtures/mc_td_half_space.npz``: μs = 6 /mm,
+μa = 0 with a time gate, seed 3001; made by ``fixtures/make_td_fixtures.py``), another seed,
+another μs (so the scaling relation is exercised), no table, no smoothing.  The tolerance is
+stated in standard errors of the two (the direct run's per bin and the lookup's own photon
+noise, ``relative_sd``).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from phantomlab.calibration.mc_lookup_time import time_resolved_lookup
+from phantomlab.transport.montecarlo import load_baseline
+from phantomlab.transport.time_domain import SPEED_OF_LIGHT_MM_PER_PS, time_resolved
+import td_fixture_data as fixture
+
+BASELINE = fixture.FIXTURES / "mc_baseline.npz"
+pytestmark = pytest.mark.skipif(not (fixture.FIXTURES / "mc_td_half_space.npz").is_file(),
+                                reason="fixtures/mc_td_half_space.npz missing: run fixtures/make_td_fixtures.py")
+
+
+@pytest.fixture(scope="module")
+def lookup():
+    return time_resolved_lookup(load_baseline(BASELINE))
+
+
+@pytest.fixture(scope="module")
+def run():
+    return fixture.half_space()
+
+
+REBIN = 5  # 5-ps bins of the run → 25 ps
+
+
+def _ring_and_bin_average(lookup, run, mua, j):
+    """The lookup averaged as the run tallies: over ring j (weight 2πρ) and over each 25-ps bin."""
+    edges = run["rho_edges_mm"]
+    x, w = np.polynomial.legendre.leggauss(6)
+    rho = 0.5 * (edges[j + 1] - edges[j]) * x + 0.5 * (edges[j + 1] + edges[j])
+    weight = w * rho / np.sum(w * rho)
+    step = float(run["time_ps"][1] - run["time_ps"][0]) * REBIN
+    centres = run["time_ps"].reshape(-1, REBIN).mean(axis=1)
+    t = centres[:, None] + step * 0.5 * np.polynomial.legendre.leggauss(6)[0][None, :]
+    tw = np.polynomial.legendre.leggauss(6)[1] / 2
+    mus = float(run["mus_per_mm"])
+    values = np.zeros(centres.size)
+    sd = np.zeros(centres.size)
+    for r, a in zip(rho, weight):
+        point = lookup.point(mua_per_mm=[mua], mus_per_mm=[mus], rho_mm=np.full(t.size, r), time_ps=t.ravel())[0]
+        values += a * (point.reshape(t.shape) @ tw)
+        rel = lookup.relative_sd(mus_per_mm=[mus], rho_mm=np.full(centres.size, r), time_ps=centres)[0]
+        sd += a * rel
+    return centres, values, values * sd
+
+
+def _direct(run, mua, j):
+    values, sd = fixture.absorbed(run, mua)
+    direct = values[j].reshape(-1, REBIN).mean(axis=1)
+    direct_sd = np.sqrt((sd[j] ** 2).reshape(-1, REBIN).sum(axis=1)) / REBIN
+    return direct, direct_sd
+
+
+@pytest.mark.parametrize("rho_mm", [10.0, 15.0, 20.0])
+@pytest.mark.parametrize("ratio", [100.0, 1000.0])
+def test_time_resolved_lookup_within_3_se_of_direct_runs(lookup, run, rho_mm, ratio):
+    mua = 1.2 / ratio  # μs′ = 1.2 /mm in the run
+    j = int(np.argmin(np.abs(run["rho_mm"] - rho_mm)))
+    t, looked, looked_sd = _ring_and_bin_average(lookup, run, mua, j)
+    direct, direct_sd = _direct(run, mua, j)
+    used = direct > 0.01 * direct.max()  # from the rise to 1 % of the peak on the tail
+    z = (looked - direct)[used] / np.hypot(direct_sd, looked_sd)[used]
+    assert used.sum() > 40
+    assert np.max(np.abs(z)) < 3.0, (t[used][np.argmax(np.abs(z))], np.max(np.abs(z)))
+    assert np.mean(z**2) < 1.5  # and no drift hidden under the 3-SE bound
+
+
+@pytest.mark.parametrize("f_mhz", [100.0, 300.0])
+@pytest.mark.parametrize("rho_mm", [10.0, 20.0])
+def test_frequency_domain_lookup_within_3_se_of_the_transform_of_direct_runs(lookup, run, rho_mm, f_mhz):
+    mua = 0.012  # the gate (5 ns) then leaves out < 1e-5 of the curve
+    j = int(np.argmin(np.abs(run["rho_mm"] - rho_mm)))
+    values, sd = fixture.absorbed(run, mua)
+    step = float(run["time_ps"][1] - run["time_ps"][0])
+    omega = 2 * math.pi * f_mhz * 1e-6
+    kernel = np.exp(-1j * omega * run["time_ps"])  # bin centres: (ωΔ)²/24 < 1e-7 here
+    direct = np.sum(values[j] * kernel) * step
+    direct_sd_re = math.sqrt(np.sum((sd[j] * kernel.real) ** 2)) * step
+    direct_sd_im = math.sqrt(np.sum((sd[j] * kernel.imag) ** 2)) * step
+    # the lookup's ring average (weight 2πρ) of its transform
+    edges = run["rho_edges_mm"]
+    x, w = np.polynomial.legendre.leggauss(6)
+    rho = 0.5 * (edges[j + 1] - edges[j]) * x + 0.5 * (edges[j + 1] + edges[j])
+    weight = w * rho / np.sum(w * rho)
+    looked = np.sum(weight * lookup.frequency_domain(mua_per_mm=[mua], mus_per_mm=[6.0], rho_mm=rho,
+                                                     frequency_mhz=np.full(rho.size, f_mhz))[0])
+    # the lookup's own noise: its relative SD at the curve's peak times, a bound for the transform
+    rel = float(np.max(lookup.relative_sd(mus_per_mm=[6.0], rho_mm=np.full(50, rho_mm),
+                                          time_ps=np.linspace(200, 2000, 50))))
+    assert abs(looked.real - direct.real) <= 3 * math.hypot(direct_sd_re, rel * abs(looked))
+    assert abs(looked.imag - direct.imag) <= 3 * math.hypot(direct_sd_im, rel * abs(looked))
+
+
+def test_absorption_enters_as_beer_lambert_exactly(lookup):
+    t = np.linspace(100, 4000, 50)
+    v = SPEED_OF_LIGHT_MM_PER_PS / 1.4
+    none = lookup.point(mua_per_mm=[0.0], mus_per_mm=[5.0], rho_mm=np.full(t.size, 15.0), time_ps=t)[0]
+    some = lookup.point(mua_per_mm=[0.02], mus_per_mm=[5.0], rho_mm=np.full(t.size, 15.0), time_ps=t)[0]
+    assert some == pytest.approx(none * np.exp(-0.02 * v * t), rel=1e-12)
+
+
+def test_scaling_in_mus(lookup):
+    # R(ρ, t; μs) = k³ R(kρ, kt; k⁻¹ μs) for lengths scaled by k (Graaff et al. 1993): exact by construction
+    t = np.linspace(200, 3000, 20)
+    a = lookup.point(mua_per_mm=[0.0], mus_per_mm=[6.0], rho_mm=np.full(t.size, 12.0), time_ps=t)[0]
+    b = lookup.point(mua_per_mm=[0.0], mus_per_mm=[3.0], rho_mm=np.full(t.size, 24.0), time_ps=2 * t)[0]
+    assert a == pytest.approx(8 * b, rel=1e-9)
+
+
+def test_late_time_shape_agrees_with_diffusion_far_from_the_source(run):
+    # Far from the source (18 transport lengths) and late, diffusion is good to a few per cent
+    # (Contini et al. 1997, their comparison with Monte Carlo; # from memory): the direct run's
+    # point values against kienle1997 normalised over the late part of the curve.
+    values, sd = fixture.absorbed(run, 0.012)
+    point, point_sd = fixture.point_value(run, values, sd, 15.0)
+    t = run["time_ps"]
+    late = (t > 1500) & (t < 4000)
+    model = time_resolved(mua_per_mm=0.012, musp_per_mm=1.2, rho_mm=15.0, time_ps=t[late], n=1.4)
+    coarse = point[late].reshape(-1, 50).sum(axis=1) / model.reshape(-1, 50).sum(axis=1)
+    assert np.all(np.abs(coarse / coarse.mean() - 1) < 0.05)
+    assert 0.8 < coarse.mean() < 1.2  # the absolute level too (per incident energy on both sides)
