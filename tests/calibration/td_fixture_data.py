@@ -94,9 +94,17 @@ def instrument_curve(run, *, mua_per_mm, rho_mm, fwhm_ps, shift_ps, peak_counts,
     The response R(ρ, t) (point value) is delayed by ``shift_ps`` relative to the IRF, whose
     Gaussian part is centred at ``irf_centre_ps`` of the histogram's time axis.
     """
-    fine_step = float(run["time_ps"][1] - run["time_ps"][0])
     values, sd = absorbed(run, mua_per_mm)
     point, point_sd = point_value(run, values, sd, rho_mm)
+    return instrument_from_response(run["time_ps"], point, point_sd, fwhm_ps=fwhm_ps, shift_ps=shift_ps,
+                                    peak_counts=peak_counts, background=background, irf_centre_ps=irf_centre_ps,
+                                    window_ps=window_ps)
+
+
+def instrument_from_response(time_ps, point, point_sd, *, fwhm_ps, shift_ps, peak_counts, background=5.0,
+                             irf_centre_ps=400.0, window_ps=(0.0, 6000.0)) -> Curve:
+    """:func:`instrument_curve` from a response R(t) [per ps] and its SE on the run's bins."""
+    fine_step = float(time_ps[1] - time_ps[0])
     fine_t = np.arange(window_ps[0], window_ps[1], fine_step) + fine_step / 2
     irf_fine = irf_shape(fine_t, fwhm_ps, irf_centre_ps) * fine_step  # probability per fine bin
     k = int(round(shift_ps / fine_step))
