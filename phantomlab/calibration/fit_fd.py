@@ -266,6 +266,9 @@ def fit_fd(measurement: FrequencyDomainMeasurement, *, model: str = "kienle1997"
     covariance = outcome.covariance
     if not with_sd:  # SDs from the scatter about the model
         covariance = covariance * np.where(np.isfinite(chi2_w), chi2_w, np.inf)[:, None, None]
+    if model == "mc" and with_sd:
+        covariance = covariance + _lookup_covariance(forward, residual_fn, outcome.x, mask, rho, freq, sd_log,
+                                                     sd_lag, baseline, n)
     values, cov = log_to_linear(outcome.x, covariance)
     mua, musp = values[:, 0], values[:, 1]
     sds = np.sqrt(np.diagonal(cov, axis1=1, axis2=2))
@@ -303,6 +306,52 @@ def fit_fd(measurement: FrequencyDomainMeasurement, *, model: str = "kienle1997"
                 "model_amplitude": np.exp(model_amp) / (np.exp(shift)[:, None, :] if relative else 1.0),
                 "model_phase_deg": np.degrees(model_lag) - (np.degrees(offset)[:, None, :] if not offset_known else 0.0)},
     )
+
+
+def _lookup_covariance(forward, residual_fn, x, mask, rho, freq, sd_log, sd_lag, baseline, n) -> np.ndarray:
+    """Covariance of (log μa, log μs′) from the Monte Carlo lookup's own noise, (W, 2, 2).
+
+    Each distance's transform integrates the lookup over the whole curve: its relative error
+    is the curve-weighted mean of the lookup's ``relative_sd``, taken as the error of
+    ln amplitude and (in radians) of the phase, fully correlated across the frequencies of one
+    distance and correlated across distances as the lookup's radial smoothing kernels overlap,
+    exp(−(ln ρ_i − ln ρ_j)²/(4 h²)).  Propagated as δx = −(JᵀJ)⁻¹Jᵀ δr (scales and phase
+    offsets re-projected inside J).
+    """
+    from phantomlab.calibration.fitting import finite_jacobian
+    from phantomlab.calibration.mc_lookup_time import _BANDWIDTH_LOG_U, time_resolved_lookup
+
+    lookup = time_resolved_lookup(baseline)
+    W = x.shape[0]
+    R, F = rho.size, freq.size
+    v = SPEED_OF_LIGHT_MM_PER_PS / float(n)
+    jac = finite_jacobian(lambda xx: np.where(mask, residual_fn(xx, np.arange(W)), 0.0), x)
+    out = np.zeros((W, 2, 2))
+    log_rho = np.log(rho)
+    corr_rho = np.exp(-((log_rho[:, None] - log_rho[None, :]) ** 2) / (4 * _BANDWIDTH_LOG_U**2))
+    for w in range(W):
+        mua, mus = math.exp(x[w, 0]), math.exp(x[w, 1]) / (1.0 - lookup.g)
+        times = np.geomspace(10.0, lookup.tau_max / (v * mus), 200)
+        rel = np.empty(R)
+        for r in range(R):
+            point = lookup.point(mua_per_mm=[mua], mus_per_mm=[mus], rho_mm=np.full(times.size, rho[r]), time_ps=times)[0]
+            weight = point * np.gradient(times)
+            sd = lookup.relative_sd(mus_per_mm=[mus], rho_mm=np.full(times.size, rho[r]), time_ps=times)[0]
+            rel[r] = float(np.sum(weight * sd) / max(np.sum(weight), 1e-300))
+        error_amp = (rel[:, None] / sd_log[w]).ravel()  # (R·F,) in the residuals' units
+        error_lag = (rel[:, None] / sd_lag[w]).ravel()
+        block = np.kron(corr_rho, np.ones((F, F)))
+        e = np.concatenate([error_amp, error_lag])
+        corr = np.block([[block, np.zeros_like(block)], [np.zeros_like(block), block]])
+        m = mask[w]
+        j = jac[w][m]
+        ee = e[m]
+        try:
+            gain = np.linalg.solve(j.T @ j, j.T)
+        except np.linalg.LinAlgError:
+            gain = np.linalg.pinv(j.T @ j) @ j.T
+        out[w] = gain @ (ee[:, None] * corr[np.ix_(m, m)] * ee[None, :]) @ gain.T
+    return out
 
 
 def _grid_start(residual_fn, W: int) -> np.ndarray:

@@ -304,11 +304,17 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     K = time.size
     response = prepare_irf(time_ps=time, irf_time_ps=measurement.irf_time_ps[irf_span], irf=irf[:, irf_span])
 
-    def expected(mua_c, musp_c, shift_c, curves, sd=None):
+    # the lookup's objective is rough on the scale of its photon noise: it starts from the
+    # smooth diffusion model's grid and fit (same geometry), which lands in the right basin
+    smooth_shape = shape if model != "mc" else td_curve_model(
+        model="kienle1997", geometry=geometry, thickness_mm=thickness, n=n, n_outside=n_outside)
+
+    def expected(mua_c, musp_c, shift_c, curves, sd=None, using=None):
         """Shape c (unit amplitude), amplitude A and μ for the given curves."""
+        use = shape if using is None else using
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", PhantomlabWarning)
-            c = response.counts(lambda times: shape(mua_c, musp_c, rho_curve[curves], times), shift_c,
+            c = response.counts(lambda times: use(mua_c, musp_c, rho_curve[curves], times), shift_c,
                                 irf_rows=irf_of_curve[curves], smooth_start=True)
         data = counts[curves] - background[curves][:, None]
         if absolute is not None:
@@ -319,12 +325,21 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
             amplitude = np.maximum(amplitude, 1e-300)
         return c, amplitude, amplitude[:, None] * c + background[curves][:, None]
 
-    start = _start(expected, counts, background, windows, time, W, R)
+    start = _start(lambda *a, **k: expected(*a, using=smooth_shape, **k), counts, background, windows, time, W, R)
     P = 2 + R
     lower = np.concatenate([[np.log(1e-6), np.log(1e-3)], np.full(R, (time[0] - time[-1]) / _SHIFT_UNIT_PS)])
     upper = np.concatenate([[np.log(5.0), np.log(50.0)], np.full(R, (time[-1] - time[0]) / _SHIFT_UNIT_PS)])
     sd = np.sqrt(np.maximum(counts, 1.0))
     mask = windows.reshape(W, R * K)
+    if smooth_shape is not shape:
+        def smooth_residual(x_rows, rows):
+            curves = (rows[:, None] * R + np.arange(R)[None, :]).ravel()
+            _, _, mu = expected(np.repeat(np.exp(x_rows[:, 0]), R), np.repeat(np.exp(x_rows[:, 1]), R),
+                                x_rows[:, 2:].ravel() * _SHIFT_UNIT_PS, curves, sd[curves], using=smooth_shape)
+            return ((mu - counts[curves]) / sd[curves]).reshape(rows.size, R * K)
+
+        start = fit_blocks(smooth_residual, start, mask=mask, lower=lower, upper=upper, row_aware=True,
+                           tolerance=_COST_TOLERANCE, step_tolerance=_STEP_TOLERANCE).x
     outcome = None
     x = start
     for attempt in range(IRLS_PASSES):
@@ -343,15 +358,32 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         curves = np.arange(W * R)
         c, amplitude, mu = expected(np.repeat(np.exp(x[:, 0]), R), np.repeat(np.exp(x[:, 1]), R), x[:, 2:].ravel() * _SHIFT_UNIT_PS,
                                     curves, sd)
-        variance = np.maximum(mu, 1e-12)
-        model_sd = getattr(shape, "relative_sd", None)
-        if model_sd is not None:
-            rel = model_sd(np.repeat(np.exp(x[:, 1]), R), rho_curve,
-                           np.broadcast_to(time, (W * R, K)) - _SHIFT_UNIT_PS * x[:, 2:].ravel()[:, None]
-                           - _irf_centre(irf, measurement.irf_time_ps, irf_of_curve))
-            variance = variance + (amplitude[:, None] * c * rel) ** 2
-        sd = np.sqrt(variance)
+        sd = np.sqrt(np.maximum(mu, 1e-12))
     cov_log = outcome.covariance
+    model_sd = getattr(shape, "relative_sd", None)
+    if model_sd is not None:
+        # the lookup's own photon noise, correlated along the curve as its smoothing kernel is;
+        # each bin holds the response over the IRF's width: its relative error and its time are
+        # the response-weighted means over what it holds (one convolution each)
+        mua_c, musp_c = np.repeat(np.exp(x[:, 0]), R), np.repeat(np.exp(x[:, 1]), R)
+        shifts = _SHIFT_UNIT_PS * x[:, 2:].ravel()
+
+        def weighted(extra):
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", PhantomlabWarning)
+                return response.counts(
+                    lambda times: shape(mua_c, musp_c, rho_curve, times) * extra(times), shifts,
+                    irf_rows=irf_of_curve, smooth_start=True)
+
+        with np.errstate(divide="ignore", invalid="ignore"):
+            held = np.maximum(c, 1e-300)
+            rel = weighted(lambda times: model_sd(musp_c, rho_curve, np.maximum(times, 1e-3))) / held
+            log_time = weighted(lambda times: np.log(np.maximum(times, 1e-3))) / held
+        rel = np.where(np.isfinite(rel), rel, 0.0)
+        log_time = np.where(np.isfinite(log_time), log_time, 0.0)
+        cov_log = cov_log + _lookup_covariance(
+            lambda x_rows, rows: residual_fn(x_rows, rows), x, mask, (amplitude[:, None] * c * rel) / sd,
+            log_time, shape.lookup.tau_bandwidth, W, R, K)
     values, cov = log_to_linear(x[:, :2], cov_log[:, :2, :2])
     mua_fit, musp_fit = values[:, 0], values[:, 1]
     mua_sd = np.sqrt(np.diagonal(cov, axis1=1, axis2=2))[:, 0]
@@ -404,10 +436,34 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     )
 
 
-def _irf_centre(irf, irf_time_ps, irf_rows) -> np.ndarray:
-    """Centroid [ps] of each curve's IRF, shape (N, 1): the lookup's SD is read at t − t0 − centroid."""
-    centre = (irf * irf_time_ps[None, :]).sum(axis=1) / np.maximum(irf.sum(axis=1), 1e-300)
-    return centre[np.asarray(irf_rows, int)][:, None]
+def _lookup_covariance(residual_fn, x, mask, relative_error, log_delay, bandwidth, W, R, K) -> np.ndarray:
+    """Covariance of the fitted parameters from the Monte Carlo lookup's own noise, (W, P, P).
+
+    A model error δμ moves the normalised residuals by δμ/σ and the solution by
+    δx = −(JᵀJ)⁻¹Jᵀ(δμ/σ) (linearised at the fit, the amplitudes re-projected inside J).
+    The lookup's error of each bin, e_k = σ_rel,k μ_k / σ_k (``relative_error``), is
+    correlated between bins as the lookup's Gaussian smoothing kernels overlap in log τ:
+    ρ_kl = exp(−(ln τ_k − ln τ_l)²/(4 h²)), h the kernel width (a shift of u moves every bin
+    of a curve together, so bins of one curve share the radial smoothing fully).
+    """
+    from phantomlab.calibration.fitting import finite_jacobian
+
+    jac = finite_jacobian(lambda xx: np.where(mask, residual_fn(xx, np.arange(W)), 0.0), x)  # (W, M, P)
+    out = np.zeros((W, x.shape[1], x.shape[1]))
+    for w in range(W):
+        m = mask[w]
+        j = jac[w][m]
+        e = np.asarray(relative_error).reshape(W, R * K)[w][m]
+        lt = np.asarray(log_delay).reshape(W, R * K)[w][m]
+        curve = np.repeat(np.arange(R), K)[m]
+        same = curve[:, None] == curve[None, :]
+        corr = np.where(same, np.exp(-((lt[:, None] - lt[None, :]) ** 2) / (4 * bandwidth**2)), 0.0)
+        try:
+            gain = np.linalg.solve(j.T @ j, j.T)
+        except np.linalg.LinAlgError:
+            gain = np.linalg.pinv(j.T @ j) @ j.T
+        out[w] = gain @ (e[:, None] * corr * e[None, :]) @ gain.T
+    return out
 
 
 def _shifted(time, curves, shifts):

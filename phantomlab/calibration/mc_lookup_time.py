@@ -235,13 +235,19 @@ class TimeResolvedLookup:
         self._fine_log_tau = np.linspace(self.log_tau[0], self.log_tau[-1], 4 * (self.log_tau.size - 1) + 1)
         self._fine_log_u = np.linspace(self.log_u[0], self.log_u[-1], 4 * (self.log_u.size - 1) + 1)
         grid_u, grid_t = np.meshgrid(self._fine_log_u, self._fine_log_tau, indexing="ij")
-        fine = self._spline.ev(grid_u, grid_t)
+        fine = np.clip(self._spline.ev(grid_u, grid_t), -700.0, 700.0)
         fine_inside = self._inside_spline.ev(grid_u, grid_t) > 0.5
-        self._fine_log_f = np.where(fine_inside, np.clip(fine, -700.0, 700.0), -700.0)
+        self._fine_log_f = np.where(fine_inside, fine, -700.0)
+        # the table read by cubic convolution (smooth: no kinks for the fit's Jacobian to find),
+        # the spline's own smooth continuation beyond the photons' reach, cut by the mask
+        self._fine_smooth = fine
+        self._fine_inside = fine_inside.astype(float)
         self._fine_step = (float(self._fine_log_tau[1] - self._fine_log_tau[0]),
                            float(self._fine_log_u[1] - self._fine_log_u[0]))
         self._log_sd = np.log(np.clip(np.where(inside, relative_sd, 1.0), 1e-6, 1.0))
         self.counts = counts
+        #: width of the smoothing kernel in log τ (the fit's correlation length of the lookup error)
+        self.tau_bandwidth = _BANDWIDTH_LOG_TAU
         self.tau_max = float(tau_edges[-1])
         self.u_max = float(u.max()) if u.size else 0.0
 
@@ -293,13 +299,43 @@ class TimeResolvedLookup:
         bottom = flat[base + table.shape[1]] * (1 - fy) + flat[base + table.shape[1] + 1] * fy
         return top * (1 - fx) + bottom * fx
 
+    @staticmethod
+    def _cubic_weights(frac):
+        """Keys's cubic-convolution weights (a = −1/2) of the four nodes around ``frac`` ∈ [0, 1)."""
+        f = frac[..., None] + np.array([1.0, 0.0, -1.0, -2.0])  # distances to nodes i−1, i, i+1, i+2
+        d = np.abs(f)
+        near = (1.5 * d - 2.5) * d * d + 1.0
+        far = ((-0.5 * d + 2.5) * d - 4.0) * d + 2.0
+        return np.where(d <= 1.0, near, np.where(d < 2.0, far, 0.0))
+
+    def _bicubic(self, table, lu, lt, lu0, lt0, du, dt):
+        """Cubic convolution (Keys 1981, IEEE Trans ASSP 29:1153) of ``table`` on its uniform grid."""
+        rows, cols = table.shape
+        x = np.clip((lu - lu0) / du, 1.0, rows - 2.000001)
+        y = np.clip((lt - lt0) / dt, 1.0, cols - 2.000001)
+        i = x.astype(np.int64)
+        j = y.astype(np.int64)
+        wx = self._cubic_weights(x - i)
+        wy = self._cubic_weights(y - j)
+        flat = table.ravel()
+        out = np.zeros(np.shape(x))
+        for a in range(4):
+            base = (i - 1 + a) * cols + (j - 1)
+            row = (flat[base] * wy[..., 0] + flat[base + 1] * wy[..., 1] + flat[base + 2] * wy[..., 2]
+                   + flat[base + 3] * wy[..., 3])
+            out += wx[..., a] * row
+        return out
+
     def _f(self, u, tau):
         live = (tau > 0) & (u > 0)
         with np.errstate(divide="ignore", invalid="ignore"):
             lu = np.log(np.where(live, u, 1.0))
             lt = np.log(np.where(live, tau, 1.0))
         dt, du = self._fine_step
-        values = np.exp(self._bilinear(self._fine_log_f, lu, lt, self._fine_log_u[0], self._fine_log_tau[0], du, dt))
+        origin = (self._fine_log_u[0], self._fine_log_tau[0])
+        values = np.exp(np.clip(self._bicubic(self._fine_smooth, lu, lt, origin[0], origin[1], du, dt), -700, 700))
+        inside = self._bilinear(self._fine_inside, lu, lt, origin[0], origin[1], du, dt) > 0.5
+        values = np.where(inside, values, 0.0)
         within = live & (u >= self.u_nodes[0]) & (u <= self.u_nodes[-1]) & (tau <= self.tau_max) & (
             tau >= self.tau_nodes[0])
         return np.where(within, values, 0.0)
@@ -332,12 +368,18 @@ class TimeResolvedLookup:
         if tau.size:
             weights[[0, -1]] *= 0.5
         u = rho[None, :] * mus[:, None]  # (N, G)
-        # each (N, G) needs a whole row of the table at its u: linear in log u between two rows
-        x = np.clip((np.log(u) - self._fine_log_u[0]) / self._fine_step[1], 0.0, self._fine_log_u.size - 1.000001)
+        # each (N, G) needs a whole row of the table at its u: cubic convolution in log u over
+        # four rows (smooth in μs), the photons' reach cut by the mask
+        rows = self._fine_log_u.size
+        x = np.clip((np.log(u) - self._fine_log_u[0]) / self._fine_step[1], 1.0, rows - 2.000001)
         i = x.astype(np.int64)
+        wx = self._cubic_weights(x - i)  # (N, G, 4)
+        smooth = self._fine_smooth[:, columns]
+        mask = self._fine_inside[:, columns]
+        log_values = sum(wx[..., a, None] * smooth[i - 1 + a] for a in range(4))
         fx = (x - i)[..., None]
-        table = self._fine_log_f[:, columns]
-        values = np.exp((1.0 - fx) * table[i] + fx * table[i + 1])  # (N, G, T)
+        reached = ((1.0 - fx) * mask[i] + fx * mask[i + 1]) > 0.5
+        values = np.where(reached, np.exp(np.clip(log_values, -700.0, 700.0)), 0.0)  # (N, G, T)
         inside = (u >= self.u_nodes[0]) & (u <= self.u_nodes[-1])
         values = np.where(inside[..., None], values, 0.0)
         rate = (mua[:, None] + 1j * omega[None, :] / self.v) / mus[:, None]  # per unit τ

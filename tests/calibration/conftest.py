@@ -9,10 +9,15 @@ not the reach of the stocks.
 
 import re
 import shutil
+import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
+
+# the td/fd tests' Monte Carlo data builder (td_fixture_data.py) is imported by name
+# (the suite runs in importlib mode)
+sys.path.insert(0, str(Path(__file__).parent))
 
 REPO = Path(__file__).resolve().parents[2]
 DEMO = REPO / "recipes"

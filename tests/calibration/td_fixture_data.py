@@ -12,7 +12,7 @@ its own (none of the fit's convolution or lookup):
   derivatives from central differences of the neighbouring rings;
 * **the instrument**: an IRF shaped as an exponentially modified Gaussian (a Gaussian of the
   chosen FWHM with a 40 ps exponential tail, common practice, no source), convolved with the
-  curve by a plain sum on the 5-ps grid, delayed by t0, summed into 25-ps bins, scaled to the
+  curve by a plain sum on the 5-ps grid, delayed by t0, summed into 10-ps bins, scaled to the
   chosen counts at the peak, plus a flat background, and Poisson noise (numpy's generator).
 
 The expected counts λ carry the Monte Carlo run's own standard error (``lam_sd``); tests use
@@ -30,7 +30,7 @@ from scipy.special import erfc
 
 FIXTURES = Path(__file__).parent / "fixtures"
 C_MM_PER_PS = 0.299792458  # SI definition of the metre
-DATA_STEP_PS = 25.0
+DATA_STEP_PS = 10.0
 IRF_TAIL_PS = 40.0  # common practice, no source: a detector's diffusion tail of some tens of ps
 
 
@@ -89,7 +89,7 @@ def irf_shape(time_ps: np.ndarray, fwhm_ps: float, centre_ps: float) -> np.ndarr
 
 def instrument_curve(run, *, mua_per_mm, rho_mm, fwhm_ps, shift_ps, peak_counts, background=5.0,
                      irf_centre_ps=400.0, window_ps=(0.0, 6000.0)) -> Curve:
-    """Expected counts per 25-ps bin of a TCSPC recording of the fixture's medium at μa.
+    """Expected counts per 10-ps bin of a TCSPC recording of the fixture's medium at μa.
 
     The response R(ρ, t) (point value) is delayed by ``shift_ps`` relative to the IRF, whose
     Gaussian part is centred at ``irf_centre_ps`` of the histogram's time axis.
