@@ -339,7 +339,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
             return ((mu - counts[curves]) / sd[curves]).reshape(rows.size, R * K)
 
         start = fit_blocks(smooth_residual, start, mask=mask, lower=lower, upper=upper, row_aware=True,
-                           tolerance=_COST_TOLERANCE, step_tolerance=_STEP_TOLERANCE).x
+                           max_nfev=6, tolerance=1e-3, step_tolerance=_STEP_TOLERANCE).x  # a start only
     outcome = None
     x = start
     for attempt in range(IRLS_PASSES):

@@ -142,6 +142,8 @@ CHEAP_RUNS = {
                    ["forward", "--kind", "fd", "--mua-per-mm", "0.01", "--musp-per-mm", "1", "--n", "1.4",
                     "--rho-mm", "10,20", "--frequency-mhz", "100,200"]),
     "fit srdr": ("phantomlab fit", ["fit", MEASUREMENT, "--kind", "srdr", "--model", "kienle1997"]),
+    "fit td": ("phantomlab fit", ["fit", RECIPES / "measurements" / "demo-reference-td.csv", "--kind", "td"]),
+    "fit fd": ("phantomlab fit", ["fit", RECIPES / "measurements" / "demo-reference-fd.csv", "--kind", "fd"]),
     "fit srdr power law": ("phantomlab fit", ["fit", MEASUREMENT, "--kind", "srdr", "--musp-power-law"]),
 }
 
