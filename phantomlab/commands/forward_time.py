@@ -22,12 +22,9 @@ import numpy as np
 
 from phantomlab.cli import CommandResult
 from phantomlab.errors import InputError
+from phantomlab.limits import check_limit
 
 __all__ = ["handle_time_kinds"]
-
-#: Most time or frequency points per call (each entry × distance × point is computed).
-MAX_POINTS = 100_000
-
 
 def handle_time_kinds(args, model: str, *, common_inputs, scattering, entries_list, number, labels) -> CommandResult:
     """The td and fd kinds of ``phantomlab forward`` (called by :mod:`phantomlab.commands.forward`)."""
@@ -69,9 +66,8 @@ def _td(args, model, count, lists, musp, n_outside, rho, payload, entries_list, 
     if args.time_ps is None:
         raise InputError("--kind td needs --time-ps LIST (times after the pulse entered, in ps)")
     time = entries_list(args.time_ps, "--time-ps")
-    if time.size * rho.size * count > MAX_POINTS:
-        raise InputError(f"--kind td: {count} entries x {rho.size} distances x {time.size} times exceed "
-                         f"{MAX_POINTS} values; ask for fewer")
+    check_limit("forward_points", count * rho.size * time.size,
+                given=f"{count} entries x {rho.size} distances x {time.size} times")
     geometry = args.geometry or "reflectance"
     thickness = None if args.thickness_mm is None else number(args.thickness_mm, "--thickness-mm")
     key = f"{geometry}_per_mm2_per_ps"
@@ -109,9 +105,8 @@ def _fd(args, model, count, lists, musp, n_outside, rho, payload, entries_list, 
     if args.frequency_mhz is None:
         raise InputError("--kind fd needs --frequency-mhz LIST (modulation frequencies in MHz)")
     freq = entries_list(args.frequency_mhz, "--frequency-mhz")
-    if freq.size * rho.size * count > MAX_POINTS:
-        raise InputError(f"--kind fd: {count} entries x {rho.size} distances x {freq.size} frequencies exceed "
-                         f"{MAX_POINTS} values; ask for fewer")
+    check_limit("forward_points", count * rho.size * freq.size,
+                given=f"{count} entries x {rho.size} distances x {freq.size} frequencies")
     if model == "mc":
         from phantomlab.calibration.fit_fd import fd_forward
 
