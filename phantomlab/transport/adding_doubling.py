@@ -69,7 +69,7 @@ from phantomlab.transport.arguments import (
 from phantomlab.transport.discrete_ordinates import faces_and_layer_response
 from phantomlab.transport.fresnel import critical_cosine
 from phantomlab.transport.phase_function import hg_redistribution
-from phantomlab.transport.quadrature import gauss_rule, slab_quadrature
+from phantomlab.transport.quadrature import gauss_rule, slab_quadrature, uses_split_rule
 from phantomlab.transport.slab_boundary import Face, face_response
 
 __all__ = [
@@ -404,7 +404,7 @@ def _solve(mua, mus, g, d, n, n_out, top: Face, bottom: Face, incidence: str, co
     # Delta-M moments: 2N on the Radau rule of a face without total internal reflection
     # (exact to degree 2N − 2), N on the split rule, where 2N moments converge unevenly
     # (found by comparison with 96 streams; tests/transport/test_adding_doubling_accuracy.py).
-    moments = np.where(mu_c > 0.0, count, 2 * count)
+    moments = np.where(uses_split_rule(mu_c), count, 2 * count)
     h_same, h_opposite, f = hg_redistribution(mu, w, g, moments)
 
     # Delta-M scaled optical thickness and albedo (Wiscombe 1977).

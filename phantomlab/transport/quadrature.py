@@ -25,7 +25,19 @@ from numpy.polynomial import legendre
 
 from phantomlab.errors import InputError
 
-__all__ = ["gauss_rule", "radau_rule", "slab_quadrature"]
+__all__ = ["gauss_rule", "radau_rule", "slab_quadrature", "SPLIT_MIN_CRITICAL_COSINE", "uses_split_rule"]
+
+#: Below this critical cosine the split rule is not used: the face is treated as matched for
+#: the quadrature.  At μc = 1e-3 (n/n_outside ≈ 1 + 5e-7) the totally reflected cone holds
+#: μc² ≈ 1e-6 of a diffuse flux and the Fresnel reflection is below 1e-13, far under the
+#: 0.1 % accuracy of the solver, while Gauss nodes packed into [0, μc] of a face that is
+#: matched up to rounding (n = 1 + 2e-16 gives μc = 2e-8) make the layer equations singular.
+SPLIT_MIN_CRITICAL_COSINE = 0.05
+
+
+def uses_split_rule(mu_critical) -> np.ndarray:
+    """Where :func:`slab_quadrature` splits at the critical cosine (bool, shape of the input)."""
+    return np.asarray(mu_critical, dtype=float) > SPLIT_MIN_CRITICAL_COSINE
 
 
 @lru_cache(maxsize=32)
@@ -65,8 +77,8 @@ def radau_rule(count: int) -> tuple[np.ndarray, np.ndarray]:
 def slab_quadrature(mu_critical: np.ndarray, count: int) -> tuple[np.ndarray, np.ndarray]:
     """Direction cosines and weights for each wavelength, shape (W, count).
 
-    Where ``mu_critical`` is 0 (no total internal reflection), a Radau rule of ``count``
-    nodes on [0, 1]; elsewhere Gauss on [0, μc] with ``count // 2`` nodes and Radau on
+    Where ``mu_critical`` is 0 (no total internal reflection) or below
+    :data:`SPLIT_MIN_CRITICAL_COSINE`, a Radau rule of ``count`` nodes on [0, 1]; elsewhere Gauss on [0, μc] with ``count // 2`` nodes and Radau on
     [μc, 1] with the rest, in the variable s of μ = μc + (1 − μc) s² (which removes the
     square-root kink of the Fresnel transmission at μc).  The last node is always μ = 1.
     """
@@ -76,7 +88,7 @@ def slab_quadrature(mu_critical: np.ndarray, count: int) -> tuple[np.ndarray, np
     full_x, full_w = radau_rule(count)
     low_x, low_w = gauss_rule(count // 2)
     high_x, high_w = radau_rule(count - count // 2)
-    split = mu_c[:, None] > 0.0
+    split = uses_split_rule(mu_c)[:, None]
     c = mu_c[:, None]
     # Above μc the Fresnel transmission grows like √(μ − μc): the Radau rule is applied in
     # s with μ = μc + (1 − μc) s², which makes that kink smooth (and keeps the node μ = 1).
