@@ -1,4 +1,4 @@
-"""The stock model and the stock file (layer 1): what is on the shelf.
+"""The stock file (layer 1): what is on the shelf, read into a :class:`Shelf`.
 
 A stock file is TOML with one table per bottle under ``[stocks.KEY]`` (docs/formats.md).  Kinds:
 
@@ -39,16 +39,20 @@ A stock file is TOML with one table per bottle under ``[stocks.KEY]`` (docs/form
 
 Every stock carries ``potency`` (a factor on the strength of its scattering or absorbing
 ingredient; the carrier water or solvent is not scaled), ``potency_sd``, ``lot``,
-an optional ``expiry`` date and ``hazards`` (keys of :data:`HAZARD_KEYS`).  A bad file is
+an optional ``expiry`` date and ``hazards`` (keys of
+:data:`~phantomlab.materials.stock.hazards.HAZARD_KEYS`).  A bad file is
 refused with one line naming the stock, the field and what is expected.
+
+Every field a kind accepts is listed, with what it expects, in ``_FIELDS`` of
+:mod:`phantomlab.materials.stock.fields`; each kind's spec and parser are below,
+registered by kind in :data:`_PARSERS`.
 """
+
 
 from __future__ import annotations
 
 import dataclasses
 import datetime as _dt
-import difflib
-import math
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -57,8 +61,7 @@ from typing import Any, Iterator, Mapping
 import numpy as np
 
 from phantomlab.errors import InputError, PhantomlabWarning
-from phantomlab.materials.refractive_index import INDEX_MODELS, index_model
-from phantomlab.materials.water import DEFAULT_WATER_SOURCE, WATER_ABSORPTION_SOURCES
+from phantomlab.materials.refractive_index import index_model
 from phantomlab.materials.sizes import (
     SizeDistribution,
     histogram_sizes,
@@ -71,60 +74,45 @@ from phantomlab.materials.spectra import (
     fit_dilution_series,
     mua_from_molar_extinction,
     mua_from_specific_extinction,
-    read_csv_table,
 )
+from phantomlab.materials.stock.fields import (
+    _COMMON,
+    _FIELDS,
+    BLOOD_SPECIES,
+    EMULSION_MODELS,
+    KINDS,
+    RED_CELL_SCATTERING,
+    SOLVENTS,
+    _check_fields,
+    _fail,
+    _suggest,
+)
+from phantomlab.materials.stock.hazards import BLOOD_HAZARDS, HAZARD_KEYS
+from phantomlab.materials.stock.readers import (
+    _check_spectrum,
+    _get_csv,
+    _get_material,
+    _get_number,
+    _get_string,
+    _get_water_source,
+    _number,
+    _parse_expiry,
+    _parse_hazards,
+)
+from phantomlab.materials.water import DEFAULT_WATER_SOURCE
 
 __all__ = [
-    "KINDS",
-    "HAZARD_KEYS",
-    "EMULSION_MODELS",
-    "SOLVENTS",
     "MatrixSpec",
     "SpheresSpec",
     "PowderSpec",
     "EmulsionSpec",
     "AbsorberSpec",
     "BloodSpec",
-    "BLOOD_HAZARDS",
     "Stock",
     "Shelf",
     "load_shelf",
     "parse_shelf",
 ]
-
-KINDS = ("matrix", "spheres", "powder", "emulsion", "absorber", "blood")
-
-#: Hazard keys a stock may carry, each with the caution a mixing sheet shows for it.
-HAZARD_KEYS: dict[str, str] = {
-    "nano_powder": "fine/nano powder: weigh in a ventilated enclosure, add powder to liquid, "
-    "clean up wet, wear a respirator rated for nano particles",
-    "powder": "fine powder: weigh in a ventilated enclosure, add powder to liquid, clean up wet",
-    "dye": "dye: gloves and eye protection; stains skin and benches",
-    "ink": "ink: gloves; carbon inks stain; treat every bottle as its own lot",
-    "solvent": "solvent: flammable; keep away from hot plates and sonicators, work in a fume hood",
-    "resin": "resin / hardener: sensitiser; gloves and ventilation; large pours can overheat",
-    "isocyanate": "isocyanate: respiratory sensitiser; fume hood and suitable respirator",
-    "hot_gel": "hot gel: scald risk; boiling agar and microwave superheating, use heat-proof gloves",
-    "biohazard": "blood product: treat as potentially infectious (gloves, eye protection, coat, no mouth "
-    "pipetting); human blood only under your institution's approvals and biosafety rules, animal blood under "
-    "local animal by-product rules; disinfect spills; dispose of blood phantoms and tips as clinical waste",
-    "yeast": "yeast (deoxygenation): live culture; keep vessels vented (it makes CO2); inactivate before "
-    "disposal by local rules",
-    "oxygen_exchange": "open surface: air oxygen diffuses in from the top, so a deoxygenated phantom reads "
-    "higher sO2 near the surface; cover or seal it, stir gently, sample where the probe measures",
-}
-
-#: Hazard keys a blood stock carries even when its file does not list them.
-BLOOD_HAZARDS = ("biohazard", "oxygen_exchange")
-
-#: Species a blood stock may name (the shipped haemoglobin tables are of human haemoglobin).
-BLOOD_SPECIES = ("human", "porcine", "bovine", "ovine", "equine", "other")
-
-#: Red-cell scattering models of a blood stock: name → citation.
-RED_CELL_SCATTERING = {
-    "meinke2007": "Meinke, Mueller, Helfmann & Friebel 2007, Appl. Opt. 46:1742 (standard blood, linear Hct terms)",
-    "none": "no scattering (a haemoglobin solution: lysed cells)",
-}
 
 #: Water content of whole blood by volume, its default water_volume_fraction.
 #: From memory (plasma about 92 % water, red cells about 65-70 %): about 0.8.
@@ -133,18 +121,6 @@ BLOOD_WATER_VOLUME_FRACTION = 0.8
 #: Density of whole blood [g/mL], the default density_g_per_ml of a blood stock.
 #: From memory (1.05-1.06 g/mL).
 BLOOD_DENSITY_G_PER_ML = 1.05
-
-#: Emulsion models: name → (lipid percent w/v it describes, citation).
-EMULSION_MODELS: dict[str, tuple[float, str]] = {
-    "michels2008": (20.0, "Michels, Foschum & Kienle 2008, Opt. Express 16:5907"),
-}
-
-#: Solvents an absorber stock may name (besides a ``solvent_spectrum_csv``): name → what.
-SOLVENTS: dict[str, str] = {
-    "none": "the spectrum is the stock's whole absorption (measured against air or an empty cell)",
-    "water": "water (spectrum measured against a water blank)",
-    "ethanol": "ethanol (spectrum measured against an ethanol blank; Kedenburg et al. 2012)",
-}
 
 #: Density of soybean oil [g/mL] used to turn lipid % w/v into an oil volume fraction.
 #: From memory (soybean oil 0.917–0.921 g/mL at 20–25 °C); a stock may give
@@ -155,92 +131,8 @@ SOYBEAN_OIL_DENSITY_G_PER_ML = 0.92
 #: Scott & Kilgour 1969, J. Phys. D 2:863 (0.637) # from memory
 RANDOM_CLOSE_PACKING = 0.64
 
-_COMMON = {
-    "kind": "the stock kind",
-    "name": "a description",
-    "supplier": "who sold it",
-    "notes": "free text",
-    "lot": "the lot or bottle identifier",
-    "expiry": "a date YYYY-MM-DD",
-    "potency": "a number > 0",
-    "potency_sd": "a number >= 0",
-    "hazards": f"a list of hazard keys ({', '.join(HAZARD_KEYS)})",
-}
-_WATER_SOURCE_FIELD = {
-    "water_source": f"a water absorption source ({', '.join(WATER_ABSORPTION_SOURCES)})",
-}
-_SIZE_FIELDS = {
-    "material": "a refractive-index model name",
-    "diameter_um": "the mean diameter, a number > 0 in µm",
-    "size_distribution": "normal, lognormal or histogram",
-    "size_cv": "the relative SD of the diameter, a number in [0, 1)",
-    "size_histogram_csv": "a CSV file diameter_um,number_weight (or volume_weight)",
-    "particle_density_g_per_ml": "the particle density, a number > 0 in g/mL",
-}
-_FIELDS: dict[str, dict[str, str]] = {
-    "blood": {
-        **_COMMON,
-        "haemoglobin": "the total haemoglobin with its unit, e.g. \"14.5 g/dL\" (g/dL, g/L, mg/mL, "
-        "mmol/L per heme)",
-        "haematocrit": "the red-cell volume fraction, a number in [0, 0.7] (0 for a haemoglobin solution)",
-        "extinction_source": "a haemoglobin extinction table (gratzer-kollias, moaveni, takatani-graham)",
-        "scattering": "the red-cell scattering model (meinke2007, none)",
-        "scattering_csv": "a CSV file wavelength_nm,mus_per_mm,g: measured scattering per unit volume fraction",
-        "species": "the blood's species (human, porcine, bovine, ovine, equine, other)",
-        "anticoagulant": "free text, e.g. heparin",
-        "water_volume_fraction": "the blood's water by volume, a number in [0, 1]",
-        "density_g_per_ml": "a number > 0 in g/mL",
-        **_WATER_SOURCE_FIELD,
-    },
-    "matrix": {
-        **_COMMON,
-        "material": "a refractive-index model name",
-        "density_g_per_ml": "a number > 0 in g/mL",
-        "water_volume_fraction": "a number in [0, 1]",
-        "background_mua_per_mm": "a number >= 0 in 1/mm",
-        "spectrum_csv": "a CSV file wavelength_nm,mua_per_mm",
-        **_WATER_SOURCE_FIELD,
-    },
-    "spheres": {
-        **_COMMON,
-        **_SIZE_FIELDS,
-        "solids_percent_w_v": "g of particles per 100 mL of stock, a number in (0, 100)",
-        "solids_percent_w_w": "g of particles per 100 g of stock, a number in (0, 100)",
-        "carrier": "the liquid the spheres come in, a refractive-index model name",
-        "carrier_density_g_per_ml": "a number > 0 in g/mL",
-        "density_g_per_ml": "a number > 0 in g/mL",
-        **_WATER_SOURCE_FIELD,
-    },
-    "powder": {**_COMMON, **_SIZE_FIELDS, "density_g_per_ml": "a number > 0 in g/mL"},
-    "emulsion": {
-        **_COMMON,
-        "model": f"an emulsion model ({', '.join(EMULSION_MODELS)})",
-        "lipid_percent_w_v": "the lipid content in % w/v",
-        "solids_volume_fraction": "the oil-droplet volume fraction, a number in (0, 1)",
-        "density_g_per_ml": "a number > 0 in g/mL",
-        **_WATER_SOURCE_FIELD,
-    },
-    "absorber": {
-        **_COMMON,
-        "spectrum_csv": "a CSV file wavelength_nm,mua_per_mm (or mut_per_mm)",
-        "extinction_csv": "a CSV file wavelength_nm,epsilon_per_molar_per_cm "
-        "(or epsilon_per_mg_per_ml_per_cm)",
-        "concentration_mol_per_l": "a number > 0 in mol/L",
-        "concentration_mg_per_ml": "a number > 0 in mg/mL",
-        "molar_mass_g_per_mol": "a number > 0 in g/mol",
-        "cuvette_csv": "a CSV file wavelength_nm,stock_volume_fraction,absorbance",
-        "cuvette_path_mm": "the cuvette path length, a number > 0 in mm",
-        "albedo": "the single-scattering albedo, a number in [0, 1)",
-        "g": "the scattering anisotropy, a number in (-1, 1)",
-        "density_g_per_ml": "a number > 0 in g/mL",
-        "solvent": f"the blank the spectrum was measured against ({', '.join(SOLVENTS)})",
-        "solvent_spectrum_csv": "a CSV file wavelength_nm,mua_per_mm: the solvent's own absorption",
-        **_WATER_SOURCE_FIELD,
-    },
-}
 
-
-# ---- kind-specific specs --------------------------------------------------------------------
+# ---- kind-specific specs ----
 
 
 @dataclass(frozen=True)
@@ -403,7 +295,7 @@ class BloodSpec:
     water_source: str = DEFAULT_WATER_SOURCE
 
 
-# ---- the stock and the shelf ----------------------------------------------------------------
+# ---- the stock and the shelf ----
 
 
 @dataclass(frozen=True)
@@ -539,119 +431,33 @@ class Shelf:
         return dataclasses.replace(self, stocks=stocks)
 
 
-# ---- parsing --------------------------------------------------------------------------------
+# ---- parsing ----
 
 
-def _suggest(word: object, candidates) -> str:
-    if not isinstance(word, str):
-        return ""
-    close = difflib.get_close_matches(word, list(candidates), n=1, cutoff=0.6)
-    return f" (did you mean {close[0]!r}?)" if close else ""
-
-
-def _fail(key: str, field_name: str, message: str) -> InputError:
-    return InputError(f"stock {key}, field {field_name}: {message}")
-
-
-def _number(value, key: str, field_name: str, expected: str, ok=lambda v: True) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise _fail(key, field_name, f"expected {expected}, got {value!r}")
-    number = float(value)
-    if not math.isfinite(number) or not ok(number):
-        raise _fail(key, field_name, f"expected {expected}, got {value!r}")
-    return number
-
-
-def _get_number(table, key, name, ok, *, default=None, required=False):
-    expected = _FIELDS[table["kind"]][name]
-    if name not in table:
-        if required:
-            raise _fail(key, name, f"missing; expected {expected}")
-        return default
-    return _number(table[name], key, name, expected, ok)
-
-
-def _get_string(table, key, name, *, default=None, required=False, choices=None):
-    expected = _FIELDS[table["kind"]][name]
-    if name not in table:
-        if required:
-            raise _fail(key, name, f"missing; expected {expected}")
-        return default
-    value = table[name]
-    if not isinstance(value, str) or not value.strip():
-        raise _fail(key, name, f"expected {expected}, got {value!r}")
-    if choices is not None and value not in choices:
-        raise _fail(key, name, f"{value!r} is not one of {', '.join(choices)}{_suggest(value, choices)}")
-    return value
-
-
-def _get_material(table, key, name="material", *, default=None, required=True):
-    value = _get_string(table, key, name, default=default, required=required)
-    if value is None:
-        return None
-    if value not in INDEX_MODELS:
-        raise _fail(
-            key,
-            name,
-            f"unknown material {value!r}{_suggest(value, INDEX_MODELS)}; known: {', '.join(sorted(INDEX_MODELS))}",
-        )
-    return value
-
-
-def _get_csv(table, key, name, base: Path, *, required, optional=()):
-    from phantomlab.inputs import contained_path  # layer 0
-
-    path_text = _get_string(table, key, name, required=True)
-    # only inside the stock file's folder tree (or PHANTOMLAB_DATA_DIRS): a stock file
-    # cannot make phantomlab read any file on the machine
-    path = contained_path(path_text, base_dir=base, what=f"stock {key}, field {name}")
-    return read_csv_table(path, required=required, optional=optional, context=f"stock {key}, field {name}")
-
-
-def _parse_expiry(value, key):
-    if value is None:
-        return None
-    if isinstance(value, _dt.datetime):
-        return value.date()
-    if isinstance(value, _dt.date):
-        return value
-    if isinstance(value, str):
-        try:
-            return _dt.date.fromisoformat(value.strip())
-        except ValueError:
-            pass
-    raise _fail(key, "expiry", f"expected a date YYYY-MM-DD, got {value!r}")
-
-
-def _parse_hazards(value, key):
-    if value is None:
-        return ()
-    if isinstance(value, str) or not isinstance(value, list):
-        raise _fail(key, "hazards", f"expected a list of hazard keys ({', '.join(HAZARD_KEYS)}), got {value!r}")
-    out = []
-    for item in value:
-        if item not in HAZARD_KEYS:
-            raise _fail(
-                key,
-                "hazards",
-                f"unknown hazard key {item!r}{_suggest(item, HAZARD_KEYS)}; known: {', '.join(HAZARD_KEYS)}",
-            )
-        if item not in out:
-            out.append(item)
-    return tuple(out)
-
-
-def _plain(value):
-    if isinstance(value, dict):
-        return {k: _plain(v) for k, v in value.items()}
-    if isinstance(value, list):
-        return [_plain(v) for v in value]
-    if isinstance(value, (_dt.date, _dt.datetime, _dt.time)):
-        return value.isoformat()
-    return value
+def _parse_matrix(table, key, base, resolved):
+    """A matrix table → (MatrixSpec, density [g/mL], solids volume fraction 0)."""
+    material = _get_material(table, key)
+    density = _get_number(table, key, "density_g_per_ml", lambda v: v > 0, required=True)
+    water_default = 1.0 if index_model(material).water_based else 0.0
+    water = _get_number(table, key, "water_volume_fraction", lambda v: 0 <= v <= 1, default=water_default)
+    background = _get_number(table, key, "background_mua_per_mm", lambda v: v >= 0, default=0.0)
+    spectrum = None
+    if "spectrum_csv" in table:
+        for clash in ("water_volume_fraction", "background_mua_per_mm"):
+            if clash in table:
+                raise _fail(key, clash, "not used with a measured spectrum_csv; give one or the other")
+        spectrum = _get_csv(table, key, "spectrum_csv", base, required=("wavelength_nm", "mua_per_mm"))
+        _check_spectrum(spectrum, key, "spectrum_csv", "mua_per_mm")
+        resolved["spectrum_csv"] = spectrum.to_definition()
+    water_source = _get_water_source(table, key)
+    if spectrum is not None and "water_source" in table:
+        raise _fail(key, "water_source", "not used with a measured spectrum_csv; give one or the other")
+    spec = MatrixSpec(material, water, background, spectrum, water_source)
+    return spec, density, 0.0
 
 
 def _sizes(table, key, base, resolved) -> SizeDistribution:
+    """The size distribution of a spheres or powder table (histogram contents go into ``resolved``)."""
     shape = _get_string(
         table, key, "size_distribution", default=None, choices=("normal", "lognormal", "histogram")
     )
@@ -698,28 +504,8 @@ def _sizes(table, key, base, resolved) -> SizeDistribution:
         raise _fail(key, "size_cv", str(exc)) from None
 
 
-def _parse_matrix(table, key, base, resolved):
-    material = _get_material(table, key)
-    density = _get_number(table, key, "density_g_per_ml", lambda v: v > 0, required=True)
-    water_default = 1.0 if index_model(material).water_based else 0.0
-    water = _get_number(table, key, "water_volume_fraction", lambda v: 0 <= v <= 1, default=water_default)
-    background = _get_number(table, key, "background_mua_per_mm", lambda v: v >= 0, default=0.0)
-    spectrum = None
-    if "spectrum_csv" in table:
-        for clash in ("water_volume_fraction", "background_mua_per_mm"):
-            if clash in table:
-                raise _fail(key, clash, "not used with a measured spectrum_csv; give one or the other")
-        spectrum = _get_csv(table, key, "spectrum_csv", base, required=("wavelength_nm", "mua_per_mm"))
-        _check_spectrum(spectrum, key, "spectrum_csv", "mua_per_mm")
-        resolved["spectrum_csv"] = spectrum.to_definition()
-    water_source = _get_water_source(table, key)
-    if spectrum is not None and "water_source" in table:
-        raise _fail(key, "water_source", "not used with a measured spectrum_csv; give one or the other")
-    spec = MatrixSpec(material, water, background, spectrum, water_source)
-    return spec, density, 0.0
-
-
 def _parse_spheres(table, key, base, resolved):
+    """A spheres table → (SpheresSpec, density [g/mL], particle volume fraction)."""
     material = _get_material(table, key)
     sizes = _sizes(table, key, base, resolved)
     particle_density = _get_number(table, key, "particle_density_g_per_ml", lambda v: v > 0, required=True)
@@ -753,6 +539,7 @@ def _parse_spheres(table, key, base, resolved):
 
 
 def _parse_powder(table, key, base, resolved):
+    """A powder table → (PowderSpec, particle density [g/mL], solids volume fraction 1)."""
     material = _get_material(table, key)
     sizes = _sizes(table, key, base, resolved)
     particle_density = _get_number(table, key, "particle_density_g_per_ml", lambda v: v > 0, required=True)
@@ -764,6 +551,7 @@ def _parse_powder(table, key, base, resolved):
 
 
 def _parse_emulsion(table, key, base, resolved):
+    """An emulsion table → (EmulsionSpec, density [g/mL], oil volume fraction)."""
     model = _get_string(table, key, "model", required=True, choices=tuple(EMULSION_MODELS))
     described, citation = EMULSION_MODELS[model]
     lipid = _get_number(table, key, "lipid_percent_w_v", lambda v: 0 < v < 100, default=described)
@@ -781,17 +569,8 @@ def _parse_emulsion(table, key, base, resolved):
     return EmulsionSpec(model, lipid, _get_water_source(table, key)), density, fraction
 
 
-def _check_spectrum(csv_table: CsvTable, key, name, column):
-    wavelength = csv_table.columns["wavelength_nm"]
-    if np.any(np.diff(wavelength) <= 0):
-        raise _fail(key, name, f"{csv_table.path!r}: wavelength_nm must increase strictly from row to row")
-    if np.any(wavelength <= 0):
-        raise _fail(key, name, f"{csv_table.path!r}: wavelength_nm must be > 0")
-    if np.any(csv_table.columns[column] < 0):
-        raise _fail(key, name, f"{csv_table.path!r}: {column} must be >= 0")
-
-
 def _parse_absorber(table, key, base, resolved):
+    """An absorber table → (AbsorberSpec, density [g/mL], solids volume fraction 0)."""
     sources = [f for f in ("spectrum_csv", "extinction_csv", "cuvette_csv") if f in table]
     if not sources:
         raise _fail(key, "spectrum_csv", "missing; an absorber needs one of spectrum_csv, extinction_csv, cuvette_csv")
@@ -896,11 +675,6 @@ def _parse_absorber(table, key, base, resolved):
     return spec, density, 0.0
 
 
-def _get_water_source(table, key) -> str:
-    return _get_string(table, key, "water_source", default=DEFAULT_WATER_SOURCE,
-                       choices=tuple(WATER_ABSORPTION_SOURCES))
-
-
 def _solvent(table, key, base, resolved):
     """The absorber's solvent: a key of SOLVENTS, or "spectrum" with its CSV table."""
     if "solvent_spectrum_csv" in table:
@@ -917,6 +691,7 @@ def _solvent(table, key, base, resolved):
 
 
 def _parse_blood(table, key, base, resolved):
+    """A blood table → (BloodSpec, density [g/mL], haematocrit as the solids volume fraction)."""
     from phantomlab.materials.haemoglobin import HAEMOGLOBIN_SOURCES, parse_haemoglobin_concentration
 
     if "haemoglobin" not in table:
@@ -953,6 +728,7 @@ def _parse_blood(table, key, base, resolved):
     return spec, density, haematocrit
 
 
+#: The parser of each kind: ``(table, key, base, resolved) -> (spec, density_g_per_ml, solids_volume_fraction)``.
 _PARSERS = {
     "matrix": _parse_matrix,
     "spheres": _parse_spheres,
@@ -963,21 +739,20 @@ _PARSERS = {
 }
 
 
+def _plain(value):
+    """The TOML table with dates as ISO strings (for the database snapshot)."""
+    if isinstance(value, dict):
+        return {k: _plain(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_plain(v) for v in value]
+    if isinstance(value, (_dt.date, _dt.datetime, _dt.time)):
+        return value.isoformat()
+    return value
+
+
 def _parse_stock(key: str, table, base: Path) -> Stock:
-    if not isinstance(table, dict):
-        raise InputError(f"stock {key}: expected a table [stocks.{key}], got {table!r}")
-    if "kind" not in table:
-        raise _fail(key, "kind", f"missing; expected one of {', '.join(KINDS)}")
-    kind = table["kind"]
-    if kind not in KINDS:
-        raise _fail(key, "kind", f"{kind!r} is not one of {', '.join(KINDS)}{_suggest(kind, KINDS)}")
-    allowed = _FIELDS[kind]
-    for name in table:
-        if name not in allowed:
-            raise InputError(
-                f"stock {key}: unknown field {name!r}{_suggest(name, allowed)}; fields of a {kind} stock: "
-                f"{', '.join(allowed)}"
-            )
+    """One ``[stocks.KEY]`` table → :class:`Stock` (kind and field names checked first)."""
+    kind = _check_fields(table, key)
     resolved: dict = {}
     spec, density, solids = _PARSERS[kind](table, key, base, resolved)
     potency = _get_number(table, key, "potency", lambda v: v > 0, default=1.0)

@@ -1,0 +1,60 @@
+"""The stocks on the shelf (layer 1): the stock model, the stock file and its fields.
+
+One module per job:
+
+* :mod:`~phantomlab.materials.stock.stock_file`: the stock file format (its docstring),
+  :class:`Stock`, :class:`Shelf`, each kind's spec and parser, :func:`load_shelf` /
+  :func:`parse_shelf`;
+* :mod:`~phantomlab.materials.stock.fields`: the field table ``_FIELDS`` (every field each
+  kind accepts, with what it expects), the names a field may choose from and the
+  unknown-field check;
+* :mod:`~phantomlab.materials.stock.readers`: the field readers every refusal goes through;
+* :mod:`~phantomlab.materials.stock.hazards`: hazard keys and their caution texts.
+
+Every name is importable from here as before; ``_FIELDS`` too (the docs tests and
+:mod:`phantomlab.shelf_export` read it).
+"""
+
+from phantomlab.materials.stock.fields import (
+    _FIELDS,
+    BLOOD_SPECIES,
+    EMULSION_MODELS,
+    KINDS,
+    RED_CELL_SCATTERING,
+    SOLVENTS,
+)
+from phantomlab.materials.stock.hazards import BLOOD_HAZARDS, HAZARD_KEYS
+from phantomlab.materials.stock.stock_file import (
+    BLOOD_DENSITY_G_PER_ML,
+    BLOOD_WATER_VOLUME_FRACTION,
+    RANDOM_CLOSE_PACKING,
+    SOYBEAN_OIL_DENSITY_G_PER_ML,
+    AbsorberSpec,
+    BloodSpec,
+    EmulsionSpec,
+    MatrixSpec,
+    PowderSpec,
+    Shelf,
+    SpheresSpec,
+    Stock,
+    load_shelf,
+    parse_shelf,
+)
+
+__all__ = [
+    "KINDS",
+    "HAZARD_KEYS",
+    "EMULSION_MODELS",
+    "SOLVENTS",
+    "MatrixSpec",
+    "SpheresSpec",
+    "PowderSpec",
+    "EmulsionSpec",
+    "AbsorberSpec",
+    "BloodSpec",
+    "BLOOD_HAZARDS",
+    "Stock",
+    "Shelf",
+    "load_shelf",
+    "parse_shelf",
+]
