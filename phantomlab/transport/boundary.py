@@ -69,6 +69,20 @@ def _relative_index(n, n_outside) -> np.ndarray:
     return np.asarray(n / n_outside, dtype=float)
 
 
+@lru_cache(maxsize=256)
+def _moments_of_pair(n_in: float, n_out: float) -> tuple[float, float]:
+    """R_φ and R_j of one (n, n_outside) pair (cached: they depend on nothing else)."""
+    mu_c = float(critical_cosine(n_from=n_in, n_to=n_out))
+    s, w = _unit_nodes()
+    span = 1.0 - mu_c
+    mu = mu_c + span * s * s
+    jac = span * 2.0 * s * w
+    r = fresnel_reflectance(cos_incident=mu, n_from=n_in, n_to=n_out)
+    r_phi = mu_c**2 + float(np.sum(2.0 * mu * r * jac))
+    r_j = mu_c**3 + float(np.sum(3.0 * mu * mu * r * jac))
+    return r_phi, r_j
+
+
 def fresnel_angular_moments(*, n, n_outside=1.0):
     """The Fresnel moments R_φ = ∫₀¹ 2μ R_F dμ and R_j = ∫₀¹ 3μ² R_F dμ.
 
@@ -76,6 +90,10 @@ def fresnel_angular_moments(*, n, n_outside=1.0):
     of the surface towards ``n_outside``.  Below the critical cosine μc, R_F = 1 and that
     part is integrated exactly (μc², μc³); above it, Gauss–Legendre in s with
     μ = μc + (1 − μc) s², which removes the square-root kink of R_F at μc.
+
+    The moments depend on (n, n_outside) only: each distinct pair is integrated once and
+    kept (a per-wavelength fit passes the same pair for every wavelength, thousands of
+    times per fit).
 
     Parameters
     ----------
@@ -93,20 +111,24 @@ def fresnel_angular_moments(*, n, n_outside=1.0):
     ----------
     Haskell et al. 1994, J Opt Soc Am A 11:2727 (definitions of R_φ and R_j).
     """
-    rel = _relative_index(n, n_outside)
+    _relative_index(n, n_outside)  # the checks of both indices
     n_in = np.asarray(as_index(n, "n"), dtype=float)
     n_out = np.asarray(as_index(n_outside, "n_outside"), dtype=float)
     n_in, n_out = np.broadcast_arrays(n_in, n_out)
-    mu_c = np.asarray(critical_cosine(n_from=n_in, n_to=n_out), dtype=float)
-    s, w = _unit_nodes()
-    span = (1.0 - mu_c)[..., None]
-    mu = mu_c[..., None] + span * s * s
-    jac = span * 2.0 * s * w
-    r = fresnel_reflectance(cos_incident=mu, n_from=n_in[..., None], n_to=n_out[..., None])
-    r_phi = mu_c**2 + np.sum(2.0 * mu * r * jac, axis=-1)
-    r_j = mu_c**3 + np.sum(3.0 * mu * mu * r * jac, axis=-1)
-    r_phi = np.where(np.isnan(rel), np.nan, r_phi)
-    r_j = np.where(np.isnan(rel), np.nan, r_j)
+    r_phi = np.full(n_in.shape, np.nan)
+    r_j = np.full(n_in.shape, np.nan)
+    finite = np.isfinite(n_in) & np.isfinite(n_out)
+    if finite.any():
+        first_in, first_out = n_in[finite].flat[0], n_out[finite].flat[0]
+        if np.all(n_in[finite] == first_in) and np.all(n_out[finite] == first_out):
+            pairs, inverse = [(float(first_in), float(first_out))], np.zeros(int(finite.sum()), int)
+        else:
+            unique, inverse = np.unique(np.stack([n_in[finite], n_out[finite]], axis=1), axis=0,
+                                        return_inverse=True)
+            pairs, inverse = [tuple(map(float, row)) for row in unique], inverse.ravel()
+        values = np.array([_moments_of_pair(*pair) for pair in pairs])
+        r_phi[finite] = values[inverse, 0]
+        r_j[finite] = values[inverse, 1]
     return (r_phi[()] if r_phi.ndim == 0 else r_phi), (r_j[()] if r_j.ndim == 0 else r_j)
 
 

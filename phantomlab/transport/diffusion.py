@@ -46,6 +46,7 @@ from __future__ import annotations
 
 import warnings
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import Callable
 
 import numpy as np
@@ -108,6 +109,55 @@ class _Medium:
     n: np.ndarray  # index of the medium
     n_outside: np.ndarray  # index outside
     entry: np.ndarray  # Fresnel transmission of the normally incident beam, 1 − R_sp
+    c1: np.ndarray  # Kienle & Patterson's C1 = (1 − R_φ)/4
+    c2: np.ndarray  # Kienle & Patterson's C2 = (1 − R_j)/2
+
+
+@lru_cache(maxsize=256)
+def _surface_of_pair(n: float, n_outside: float, boundary: str) -> tuple[float, float, float, float]:
+    """A, C1, C2 and the entry transmission T of one (n, n_outside) surface (computed once)."""
+    a_coef = float(boundary_coefficient(n=n, n_outside=n_outside, method=boundary))
+    c1, c2 = fluence_flux_coefficients_Kienle1997(n=n, n_outside=n_outside)
+    entry = float(beam_entry_transmission(n=n, n_outside=n_outside))
+    return a_coef, float(c1), float(c2), entry
+
+
+def _surface(n: np.ndarray, n_outside: np.ndarray, boundary: str) -> tuple[np.ndarray, ...]:
+    """A, C1, C2, T over arrays of indices of one shape.
+
+    They depend only on the pair of indices (and the boundary method): a per-wavelength fit
+    passes one pair thousands of times, so one pair is computed once and broadcast.
+    Several pairs, NaN entries or a medium less dense than its surroundings (where the
+    polynomial boundary method warns) take the direct route.
+    """
+    first_n, first_out = n.flat[0] if n.size else np.nan, n_outside.flat[0] if n_outside.size else np.nan
+    single = (n.size > 0 and np.isfinite(first_n) and np.isfinite(first_out) and first_n >= first_out
+              and bool(np.all(n == first_n)) and bool(np.all(n_outside == first_out)))
+    if single:
+        return tuple(np.full(n.shape, value) for value in _surface_of_pair(float(first_n), float(first_out), boundary))
+    a_coef = np.asarray(boundary_coefficient(n=n, n_outside=n_outside, method=boundary))
+    c1, c2 = fluence_flux_coefficients_Kienle1997(n=n, n_outside=n_outside)
+    entry = np.asarray(beam_entry_transmission(n=n, n_outside=n_outside))
+    return a_coef, np.asarray(c1), np.asarray(c2), entry
+
+
+@lru_cache(maxsize=256)
+def _sfdi_surface_of_pair(n: float, n_outside: float, boundary: str) -> tuple[float, float]:
+    """R_eff and the entry transmission T of one (n, n_outside) surface (computed once)."""
+    r_eff = float(effective_reflection_coefficient(n=n, n_outside=n_outside, method=boundary))
+    return r_eff, float(beam_entry_transmission(n=n, n_outside=n_outside))
+
+
+def _sfdi_surface(n: np.ndarray, n_outside: np.ndarray, boundary: str) -> tuple[np.ndarray, np.ndarray]:
+    """R_eff and T over arrays of indices of one shape (one pair computed once, as :func:`_surface`)."""
+    first_n, first_out = n.flat[0] if n.size else np.nan, n_outside.flat[0] if n_outside.size else np.nan
+    single = (n.size > 0 and np.isfinite(first_n) and np.isfinite(first_out) and first_n >= first_out
+              and bool(np.all(n == first_n)) and bool(np.all(n_outside == first_out)))
+    if single:
+        return tuple(np.full(n.shape, value)
+                     for value in _sfdi_surface_of_pair(float(first_n), float(first_out), boundary))
+    r_eff = np.asarray(effective_reflection_coefficient(n=n, n_outside=n_outside, method=boundary))
+    return r_eff, np.asarray(beam_entry_transmission(n=n, n_outside=n_outside))
 
 
 def _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary: str) -> _Medium:
@@ -118,7 +168,7 @@ def _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary: str) -> _Medium:
     mua, musp, n, n_outside = as_spectral(
         mua_per_mm=mua, musp_per_mm=musp, n=n, n_outside=n_outside
     )
-    a_coef = np.asarray(boundary_coefficient(n=n, n_outside=n_outside, method=boundary))
+    a_coef, c1, c2, entry = _surface(n, n_outside, boundary)
     _warn_scattering_dominance(mua, musp)
     mutp = mua + musp
     d = 1.0 / (3.0 * mutp)
@@ -133,7 +183,9 @@ def _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary: str) -> _Medium:
         zb=2.0 * a_coef * d,
         n=n,
         n_outside=n_outside,
-        entry=np.asarray(beam_entry_transmission(n=n, n_outside=n_outside)),
+        entry=entry,
+        c1=c1,
+        c2=c2,
     )
 
 
@@ -302,9 +354,8 @@ def srdr_diffusion_Kienle1997(
     rho = as_length_grid(rho_mm, "rho_mm")
     _warn_close_to_source(rho, medium)
     fluence, flux = _dipole_terms(medium, rho)
-    c1, c2 = fluence_flux_coefficients_Kienle1997(n=medium.n, n_outside=medium.n_outside)
     spread, _ = _expand(medium, rho)
-    value = spread(medium.entry) * (spread(np.asarray(c1)) * fluence + spread(np.asarray(c2)) * flux)
+    value = spread(medium.entry) * (spread(medium.c1) * fluence + spread(medium.c2) * flux)
     return value[()] if value.ndim == 0 else value
 
 
@@ -404,8 +455,7 @@ def total_diffuse_reflectance(
                 gap,
             )
         fluence_total = medium.albedo / (2.0 * medium.d) * ratio
-        c1, c2 = fluence_flux_coefficients_Kienle1997(n=medium.n, n_outside=medium.n_outside)
-        value = c1 * fluence_total + c2 * flux_total
+        value = medium.c1 * fluence_total + medium.c2 * flux_total
     value = np.asarray(medium.entry * value)
     return value[()] if value.ndim == 0 else value
 
@@ -451,7 +501,7 @@ def sfdi_diffusion_Cuccia2009(
     )
     fx = as_length_grid(fx_per_mm, "fx_per_mm", "1/mm")
     _warn_scattering_dominance(mua, musp)
-    r_eff = np.asarray(effective_reflection_coefficient(n=n_arr, n_outside=n_out, method=boundary))
+    r_eff, entry = _sfdi_surface(n_arr, n_out, boundary)
     a_cuccia = (1.0 - r_eff) / (2.0 * (1.0 + r_eff))  # Cuccia et al. 2009, their A
     mutr = mua + musp
     high = fx[np.isfinite(fx)]
@@ -470,7 +520,7 @@ def sfdi_diffusion_Cuccia2009(
     albedo = (musp / mutr)[(Ellipsis,) + extra]
     mueff2 = (3.0 * mua * mutr)[(Ellipsis,) + extra]
     ratio = np.sqrt(mueff2 + k * k) / mutr_g
-    entry = np.asarray(beam_entry_transmission(n=n_arr, n_outside=n_out))[(Ellipsis,) + extra]
+    entry = entry[(Ellipsis,) + extra]
     value = entry * 3.0 * a_g * albedo / ((ratio + 1.0) * (ratio + 3.0 * a_g))
     return value[()] if value.ndim == 0 else value
 

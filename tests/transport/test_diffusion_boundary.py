@@ -135,3 +135,21 @@ def test_bad_input_refused(kwargs, match):
 
 def test_registry_lists_both_methods():
     assert sorted(BOUNDARY_METHODS) == ["groenhuis1983", "haskell1994"]
+
+
+def test_fresnel_moments_of_mixed_pairs_match_each_pair_alone_and_are_computed_once():
+    # the moments depend on (n, n_outside) only: an array of mixed pairs gives each pair's own
+    # value, NaN stays NaN, and a 601-wavelength call integrates its one pair once
+    from phantomlab.transport.boundary import _moments_of_pair
+
+    n = np.array([1.33, 1.4, np.nan, 1.4, 1.5, 1.33])
+    n_outside = np.array([1.0, 1.0, 1.0, 1.33, 1.0, 1.0])
+    got_phi, got_j = fresnel_angular_moments(n=n, n_outside=n_outside)
+    for k in (0, 1, 3, 4, 5):
+        alone_phi, alone_j = fresnel_angular_moments(n=float(n[k]), n_outside=float(n_outside[k]))
+        assert got_phi[k] == alone_phi and got_j[k] == alone_j
+    assert np.isnan(got_phi[2]) and np.isnan(got_j[2])
+    fresnel_angular_moments(n=1.417, n_outside=1.0)
+    before = _moments_of_pair.cache_info().misses
+    fresnel_angular_moments(n=np.full(601, 1.417), n_outside=1.0)
+    assert _moments_of_pair.cache_info().misses == before
