@@ -398,6 +398,20 @@ class FitResult:
     extras : dict
         Further per-wavelength outputs of a kind, written as top-level JSON keys after the
         standard ones (slab and sphere: ``g``, ``g_sd``, ``total_reflectance``, ...).
+    converged : bool
+        The minimiser met its stopping rule at every wavelength (False: it ran out of
+        iterations somewhere).
+    model_covariance : ndarray (W, 2, 2) or None [1/mm^2]
+        Covariance of (mua, musp) from the forward model's own known error (the diffusion
+        models' measured error against Monte Carlo), kept apart so that
+        :func:`phantomlab.calibration.fit_quality.assess_fit` adds it after scaling the
+        statistical part by the misfit.
+    sd_includes : tuple of str
+        What the SDs account for (:data:`phantomlab.calibration.fit_quality.SD_PARTS`).
+    fit_quality : {'good', 'poor', 'failed'} or None
+        The verdict of :func:`~phantomlab.calibration.fit_quality.assess_fit` (None before).
+    fit_quality_reason : str or None
+        One line saying why.
     """
 
     kind: str
@@ -420,6 +434,11 @@ class FitResult:
     replicates: int = 1
     dof: float = float("nan")
     extras: Mapping[str, Any] = field(default_factory=dict)
+    converged: bool = True
+    model_covariance: np.ndarray | None = None
+    sd_includes: tuple[str, ...] = ()
+    fit_quality: str | None = None
+    fit_quality_reason: str | None = None
 
     def to_json(self) -> dict[str, Any]:
         """The ``fit`` object of docs/contract.md (exact keys first, extras after), JSON-ready."""
@@ -434,6 +453,9 @@ class FitResult:
             "model": self.model,
             "chi2_red": self.chi2_red,
             "warnings": list(self.warnings),
+            "fit_quality": self.fit_quality,
+            "fit_quality_reason": self.fit_quality_reason,
+            "sd_includes": list(self.sd_includes),
             "kind": self.kind,
             "covariance_mua_musp": self.covariance,
             "chi2_red_per_wavelength": self.chi2_red_per_wavelength,

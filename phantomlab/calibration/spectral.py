@@ -166,7 +166,7 @@ def _block_fit(forward, data, sd, mask, relative, start, scale_by_chi2, profile_
         corr = covariance[:, 0, 1] / np.sqrt(covariance[:, 0, 0] * covariance[:, 1, 1])
     return dict(mua=mua, musp=musp, cov=cov[:, :2, :2], chi2=chi2, dof=dof,
                 chi2_red_w=chi2_red, residuals=outcome.residuals, scale=scale,
-                scale_sd=scale_sd, parameters={}, correlation=corr)
+                scale_sd=scale_sd, parameters={}, correlation=corr, converged=bool(outcome.success))
 
 
 #: Steps (in linearised SDs) at which :func:`_profile_widths` evaluates the profile χ².
@@ -256,9 +256,27 @@ def _profile_widths(residuals, x, chi2_min, covariance, mask, lower, upper, thre
 #: data without SDs, above this many times the median.
 _RESTART_SIGMAS = 5.0
 _RESTART_FACTOR = 3.0
+#: Wavelengths restarted first, as a probe, when more are poor: if none of them finds a
+#: clearly lower χ² (by :data:`_RESTART_GAIN` of it), the misfit is the model's, not a local
+#: minimum, and the others are not restarted.
+_RESTART_PROBES = 6
+_RESTART_GAIN = 0.1
 
 
-def _restart_poor_blocks(forward, data, sd, mask, relative, scale_by_chi2, parts, candidates=6, profile_sd=True):
+def _restart_poor_blocks(forward, data, sd, mask, relative, scale_by_chi2, parts, candidates=6, profile_sd=True,
+                         probe=True):
+    """Refit the wavelengths whose χ² is far too high from the best few grid points.
+
+    A χ² far above its distribution can mean a local minimum (restarts help) or a model that
+    does not describe the data (restarts cannot help, and on a 601-wavelength file cost
+    seconds).  A local minimum shows as a wavelength far worse than the band's typical
+    misfit (χ²ᵣ above :data:`_RESTART_FACTOR` × the median): those are all restarted.  A
+    model error is spread over the band: of the other poor wavelengths, up to
+    :data:`_RESTART_PROBES`, spread over the band, are restarted first, and only if one of
+    them lowers its χ² by more than :data:`_RESTART_GAIN` are the rest restarted too.
+    ``probe=False`` (a refinement from a solution already found, whose band-wide misfit the
+    first fit probed) restarts the outliers only.
+    """
     chi2, dof = parts["chi2"], parts["dof"]
     if not np.any(dof > 0):
         return parts
@@ -267,9 +285,36 @@ def _restart_poor_blocks(forward, data, sd, mask, relative, scale_by_chi2, parts
         limit = _RESTART_FACTOR * float(np.nanmedian(chi2_red)) * np.maximum(dof, 1)
     else:
         limit = dof + _RESTART_SIGMAS * np.sqrt(2.0 * np.maximum(dof, 1))
-    poor = np.where((dof > 0) & (chi2 > limit))[0]
-    if poor.size == 0:
+    poor = (dof > 0) & (chi2 > limit)
+    if not poor.any():
         return parts
+    # far above the band's typical misfit: a local minimum is likely, restart every one
+    with np.errstate(invalid="ignore", divide="ignore"):
+        chi2_red_w = chi2 / np.maximum(dof, 1)
+    typical = float(np.nanmedian(chi2_red_w[dof > 0]))
+    outliers = np.where(poor & (chi2_red_w > _RESTART_FACTOR * typical))[0]
+    best = parts
+    if outliers.size:
+        best, _ = _restart_rows(forward, data, sd, mask, relative, scale_by_chi2, best, outliers, candidates,
+                                profile_sd)
+    # the rest are as poor as the band: a model error, unless a probe finds a lower minimum
+    rest = np.setdiff1d(np.where(poor)[0], outliers) if probe else np.zeros(0, int)
+    if rest.size > _RESTART_PROBES:
+        probes = rest[np.unique(np.linspace(0, rest.size - 1, _RESTART_PROBES).round().astype(int))]
+        best, gained = _restart_rows(forward, data, sd, mask, relative, scale_by_chi2, best, probes,
+                                     candidates, profile_sd)
+        if not gained:
+            return best  # a model error: other starting points do not lower the misfit
+        rest = np.setdiff1d(rest, probes)
+    if rest.size:
+        best, _ = _restart_rows(forward, data, sd, mask, relative, scale_by_chi2, best, rest, candidates,
+                                profile_sd)
+    return best
+
+
+def _restart_rows(forward, data, sd, mask, relative, scale_by_chi2, parts, poor, candidates, profile_sd):
+    """Restart the wavelengths ``poor``; returns the merged parts and whether any clearly gained."""
+    chi2 = parts["chi2"]
     starts_a, starts_s = grid_start(forward, np.where(mask, data, np.nan)[poor], relative=relative,
                                     W=poor.size, candidates=candidates)
     # every candidate start of every poor wavelength in one batched fit
@@ -279,12 +324,14 @@ def _restart_poor_blocks(forward, data, sd, mask, relative, scale_by_chi2, parts
     trial_chi2 = trial["chi2"].reshape(candidates, poor.size)
     pick = np.argmin(trial_chi2, axis=0)
     chosen = pick * poor.size + np.arange(poor.size)
-    better = trial_chi2[pick, np.arange(poor.size)] < chi2[poor]
+    lowest = trial_chi2[pick, np.arange(poor.size)]
+    better = lowest < chi2[poor]
+    gained = bool(np.any(lowest < (1.0 - _RESTART_GAIN) * chi2[poor]))
     best = {key: (value.copy() if isinstance(value, np.ndarray) else value) for key, value in parts.items()}
     for key in ("mua", "musp", "cov", "chi2", "dof", "chi2_red_w", "residuals", "correlation", "scale", "scale_sd"):
         if best[key] is not None:
             best[key][poor[better]] = trial[key][chosen[better]]
-    return best
+    return best, gained
 
 
 class _JointMap:
@@ -434,7 +481,7 @@ def _joint_fit(forward, data, sd, mask, relative, start, scale_by_chi2, constrai
         chi2_red_w = np.where(dof_w > 0, chi2_w / np.maximum(dof_w, 1e-12), np.nan)
     return dict(mua=mua, musp=musp, cov=cov, chi2=np.array([outcome.chi2]), dof=np.array([outcome.dof]),
                 chi2_red_w=chi2_red_w, residuals=residual_grid, scale=scale, scale_sd=scale_sd,
-                parameters=parameters, correlation=corr)
+                parameters=parameters, correlation=corr, converged=bool(outcome.success))
 
 
 def fit_spectrum(
@@ -472,7 +519,9 @@ def fit_spectrum(
     constraint : SpectralConstraint, optional
         Joint fit across the band.
     start : (mua (W,), musp (W,)), optional
-        Starting values (else a grid search).
+        Starting values (else a grid search).  A fit from given starting values is a
+        refinement: only wavelengths far worse than the band are restarted (no probing of a
+        band-wide misfit, see :func:`_restart_poor_blocks`).
     mask : ndarray of bool (W, M), optional
         Points to use (default: finite data).
     profile_sd : bool, default True
@@ -495,6 +544,7 @@ def fit_spectrum(
         sigma = np.where(sigma > 0, sigma, 1.0)
     else:
         sigma = np.where(use, np.asarray(sd, float), 1.0)
+    refinement = start is not None
     if start is None:
         start = grid_start(forward, np.where(use, data, np.nan), relative=relative, W=W)
     with warnings.catch_warnings():
@@ -504,7 +554,7 @@ def fit_spectrum(
         else:
             parts = _block_fit(forward, data, sigma, use, relative, start, scale_by_chi2, profile_sd)
             parts = _restart_poor_blocks(forward, data, sigma, use, relative, scale_by_chi2, parts,
-                                         profile_sd=profile_sd)
+                                         profile_sd=profile_sd, probe=not refinement)
     total_dof = parts["dof"].sum()
     chi2_red = float(parts["chi2"].sum() / total_dof) if total_dof > 0 else float("nan")
     notes = []
@@ -527,6 +577,7 @@ def fit_spectrum(
         chi2_red_per_wavelength=chi2_red_w, residuals=parts["residuals"], warnings=tuple(notes),
         scale_factor=parts["scale"], scale_factor_sd=parts["scale_sd"], parameters=parts["parameters"],
         dof=float(total_dof) if np.isfinite(chi2_red) else float("nan"),
+        converged=bool(parts.get("converged", True)),
     )
     return result, parts["correlation"]
 
@@ -561,5 +612,6 @@ def merge_rows(full: FitResult, full_correlation: np.ndarray, part: FitResult, p
         chi2_red_per_wavelength=put(full.chi2_red_per_wavelength, part.chi2_red_per_wavelength),
         residuals=residuals, scale_factor=put(full.scale_factor, part.scale_factor),
         scale_factor_sd=put(full.scale_factor_sd, part.scale_factor_sd),
+        converged=bool(full.converged and part.converged),
     )
     return merged, put(full_correlation, part_correlation)
