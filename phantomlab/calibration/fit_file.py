@@ -15,6 +15,7 @@ from typing import Any
 
 import numpy as np
 
+from phantomlab.calibration.fit_quality import assess_fit
 from phantomlab.calibration.fitting import FitResult
 from phantomlab.calibration.measurements import KINDS, Measurement, combine_replicates, read_measurement
 from phantomlab.errors import InputError, PhantomlabWarning
@@ -79,6 +80,9 @@ def fit_measurement(
     Returns
     -------
     FitResult
+        Assessed by :func:`phantomlab.calibration.fit_quality.assess_fit`: SDs scaled by the
+        misfit and holding the model's known error, ``fit_quality``, ``fit_quality_reason``,
+        ``sd_includes``.
     """
     kind = measurement.kind
     if callable(constraint):  # built on the measurement's own wavelengths
@@ -90,10 +94,13 @@ def fit_measurement(
     if kind == "sphere":
         from phantomlab.calibration.fit_sphere import fit_sphere
 
-        return fit_sphere(measurement, n=n, n_outside=n_outside, g=g)
+        return assess_fit(fit_sphere(measurement, n=n, n_outside=n_outside, g=g),
+                          sd_parts=("measurement_sd", "sphere_standards") if measurement.sd is not None
+                          else ("residual_scatter", "sphere_standards"))
     if kind in ("td", "fd") and constraint is not None:
         raise InputError(f"{kind} fits take no spectral constraint (--musp-power-law, --mua-from-stocks); "
                          "each wavelength is fitted on its own")
+    sd_parts = _sd_parts(measurement, model)
     if measurement.scale == "raw":
         from phantomlab.calibration.reference import calibrate_reading
 
@@ -101,26 +108,52 @@ def fit_measurement(
     if kind == "srdr":
         from phantomlab.calibration.fit_srdr import fit_srdr
 
-        return fit_srdr(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline, constraint=constraint)
-    if kind == "sfdi":
+        result = fit_srdr(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline,
+                          constraint=constraint)
+    elif kind == "sfdi":
         from phantomlab.calibration.fit_sfdi import fit_sfdi
 
-        return fit_sfdi(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline, constraint=constraint)
-    if kind == "td":
+        result = fit_sfdi(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline,
+                          constraint=constraint)
+    elif kind == "td":
         from phantomlab.calibration.fit_td import fit_td
 
-        return fit_td(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline)
-    if kind == "fd":
+        result = fit_td(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline)
+    elif kind == "fd":
         from phantomlab.calibration.fit_fd import fit_fd
 
-        return fit_fd(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline)
-    if kind == "slab":
+        result = fit_fd(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline)
+    elif kind == "slab":
         from phantomlab.calibration.fit_slab import fit_slab
 
-        return fit_slab(measurement, n=n, n_outside=n_outside, g=g, constraint=constraint)
-    from phantomlab.calibration.fit_optics import fit_optics
+        result = fit_slab(measurement, n=n, n_outside=n_outside, g=g, constraint=constraint)
+    else:
+        from phantomlab.calibration.fit_optics import fit_optics
 
-    return fit_optics(measurement)
+        result = fit_optics(measurement)
+    return assess_fit(result, sd_parts=sd_parts)
+
+
+def _sd_parts(measurement: Measurement, model: str) -> tuple[str, ...]:
+    """What the SDs that go into the fit account for (keys of ``fit_quality.SD_PARTS``)."""
+    if measurement.kind == "optics":
+        return ("as_measured",) if measurement.sd is not None else ()
+    if measurement.kind == "td":
+        parts = ["poisson_counts"] + (["replicate_spread"] if measurement.replicates > 1 else [])
+        return tuple(parts + (["lookup_photon_noise"] if model == "mc" else []))
+    if measurement.kind == "fd":
+        base = ("measurement_sd",) if measurement.amplitude_sd is not None else ("residual_scatter",)
+        return base + (("lookup_photon_noise",) if model == "mc" else ())
+    if measurement.sd is None:
+        return ("residual_scatter",)
+    parts = ["measurement_sd"]
+    if measurement.replicates > 1:
+        parts.append("replicate_spread")
+    if measurement.scale == "raw":
+        parts.append("reference_phantom")
+    if model == "mc" and measurement.kind == "srdr":
+        parts.append("lookup_photon_noise")
+    return tuple(parts)
 
 
 def fit_measurement_file(path_or_text, *, kind: str, **metadata: Any) -> FitResult:
