@@ -7,16 +7,17 @@
 
 JSON keys (docs/contract.md): ``wavelength_nm``, ``mua_per_mm``, ``musp_per_mm``, ``mua_sd_per_mm``,
 ``musp_sd_per_mm``, ``model``, ``chi2_red``, ``warnings``; extras: ``kind``,
-``covariance_mua_musp``, ``chi2_red_per_wavelength``, ``residuals``, ``parameters``,
-``source``, ``replicates``, ``scale_factor`` (relative data); slab and sphere: ``g``, ``g_sd``
-(null when g was given), ``g_fitted``, ``total_reflectance``, ``total_transmittance`` (and
-``collimated_transmittance``) with ``*_sd`` — for ``sphere`` derived from the readings — the
-model's values, and the lost-light keys when corrected.  Several files after each other are
-replicates of one phantom, combined with their spread (td: histograms summed).
-td adds ``time_shift_ps``, ``time_shift_sd_ps``, ``rho_mm``, ``amplitude``,
-``background_counts`` (per wavelength and distance); fd adds ``phase_offset_deg``,
-``phase_offset_sd_deg``, ``frequency_mhz`` when the phase offset was fitted, and
-``amplitude_scale_factor`` for a relative amplitude.
+``covariance_mua_musp``, ``chi2_red_per_wavelength``, ``dof``, ``residuals``, ``parameters``,
+``source``, ``replicates``, ``scale_factor`` (relative data), ``fit_quality`` (good, poor,
+failed), ``fit_quality_reason``, ``sd_includes`` (see :mod:`phantomlab.calibration.fit_quality`);
+slab and sphere: ``g``, ``g_sd`` (null when g was given), ``g_fitted``, ``total_reflectance``,
+``total_transmittance`` (and ``collimated_transmittance``) with ``*_sd`` — for ``sphere``
+derived from the readings — the model's values, and the lost-light keys when corrected.
+Several files after each other are replicates of one phantom, combined with their spread
+(td: histograms summed).  td adds ``time_shift_ps``, ``time_shift_sd_ps``, ``rho_mm``,
+``amplitude``, ``background_counts`` (per wavelength and distance); fd adds
+``phase_offset_deg``, ``phase_offset_sd_deg``, ``frequency_mhz`` when the phase offset was
+fitted, and ``amplitude_scale_factor`` for a relative amplitude.
 """
 
 from __future__ import annotations
@@ -66,13 +67,27 @@ def register(subparsers) -> None:
     parser.set_defaults(handler=_fit)
 
 
+def quality_lines(result) -> list[str]:
+    """The verdict and what the SDs include, as the lines above the table."""
+    if result.fit_quality is None:
+        return []
+    head = {"good": "fit quality: good", "poor": "fit quality: POOR - the model does not describe these data",
+            "failed": "fit quality: FAILED"}[result.fit_quality]
+    lines = [head, f"  {result.fit_quality_reason}"]
+    if result.sd_includes:
+        lines.append("SDs include: " + ", ".join(part.replace("_", " ") for part in result.sd_includes))
+    return lines
+
+
 def _table(result) -> str:
     scaled = result.scale_factor is not None  # relative data: the fitted instrument scale too
     fitted_g = bool(result.extras.get("g_fitted"))
     header = (f"{'wavelength_nm':>13}  {'mua [1/mm]':>11}  {'sd':>9}  {'musp [1/mm]':>11}  {'sd':>9}"
               + (f"  {'g':>7}  {'sd':>7}" if fitted_g else "")
               + f"  {'chi2_red':>8}" + (f"  {'scale':>10}" if scaled else ""))
-    lines = [f"fit of {result.name} ({result.kind}, model {result.model})", header, "-" * len(header)]
+    lines = [f"fit of {result.name} ({result.kind}, model {result.model})"]
+    lines += quality_lines(result)
+    lines += [header, "-" * len(header)]
 
     def number(value, width, spec):
         return f"{value:{width}{spec}}" if np.isfinite(value) else f"{'-':>{width}}"

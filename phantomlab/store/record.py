@@ -231,7 +231,10 @@ def batch_record(session: Session, code: str) -> dict[str, Any]:
             "measurement_id": measurement.id, "kind": measurement.kind, "file": measurement.file_name,
             "measured_on": measurement.measured_on, "phantom_age_days": measurement.phantom_age_days,
             "instrument": measurement.instrument, "fit_id": fit.id, "model": fit.model,
-            "chi2_red": fit.chi2_red, "fit_warnings": fit.warnings, "anisotropy": _anisotropy(fit.results)},
+            "chi2_red": fit.chi2_red, "fit_warnings": fit.warnings, "anisotropy": _anisotropy(fit.results),
+            "fit_quality": (fit.results or {}).get("fit_quality"),
+            "fit_quality_reason": (fit.results or {}).get("fit_quality_reason"),
+            "sd_includes": (fit.results or {}).get("sd_includes") or []},
         "checks": checks, "outcome": outcome, "pass": None if outcome is None else outcome == "PASS",
         "series": _series(session, recipe, grid),
         "history": [{"version": v.version, "status": v.status, "retracted": v.retracted,
@@ -316,6 +319,10 @@ def render_batch_record_html(record: dict[str, Any]) -> str:
                "UNDECIDED": "UNDECIDED: none outside tolerance, but the SD is too wide to show every value inside",
                None: "not decided: no fitted measurement yet"}[
         r.get("outcome") or {True: "PASS", False: "FAIL", None: None}[r["pass"]]]
+    quality = (r["measurement"] or {}).get("fit_quality")
+    if r["pass"] is not None and quality in ("poor", "failed"):
+        verdict += (" — but the fit is poor: the model does not describe the measurement, so the measured "
+                    "values are not reliable" if quality == "poor" else " — but the fit failed")
     parts = [
         "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
         f"<title>Batch record {html.escape(r['batch_id'])}</title><style>{_STYLE}</style></head><body>",
@@ -374,6 +381,7 @@ def render_batch_record_html(record: dict[str, Any]) -> str:
                      f"{_cell(m['instrument'])}), measured {_cell(m['measured_on'])} at phantom age "
                      f"{_cell(m['phantom_age_days'])} days; fit {m['fit_id']} with {_cell(m['model'])}, "
                      f"reduced χ² {_cell(m['chi2_red'], 3)}.</p>")
+        parts.append(_fit_quality_html(m))
         if m.get("anisotropy"):
             parts.append(f"<p>{html.escape(m['anisotropy'])}.</p>")
         for warning in m["fit_warnings"] or []:
@@ -428,6 +436,21 @@ def render_batch_record_html(record: dict[str, Any]) -> str:
         "</body></html>",
     ]
     return "\n".join(parts)
+
+
+def _fit_quality_html(measurement: dict[str, Any]) -> str:
+    """The fit's verdict as one paragraph: a caution for poor or failed, small print for good."""
+    quality = measurement.get("fit_quality")
+    if quality is None:
+        return "<p class='small'>fit quality: not assessed (fit stored by an earlier version)</p>"
+    reason = html.escape(str(measurement.get("fit_quality_reason") or ""))
+    includes = ", ".join(str(part).replace("_", " ") for part in measurement.get("sd_includes") or [])
+    sds = f" SDs include: {html.escape(includes)}." if includes else ""
+    if quality == "good":
+        return f"<p class='small'>Fit quality good: {reason}.{sds}</p>"
+    head = ("Fit quality POOR — the model does not describe these data" if quality == "poor"
+            else "Fit quality FAILED")
+    return f"<p class='caution'><strong>{head}</strong>: {reason}.{sds}</p>"
 
 
 def _with_sd(value: float | None, sd: float | None) -> str | None:

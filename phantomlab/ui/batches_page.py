@@ -311,7 +311,9 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
         measurement_id, result = outcome.value
         st.session_state["batches.notice"] = (
             f"Measurement {upload.name} attached to batch {batch['code']} (id {measurement_id}) and fitted "
-            f"with {result.model}, reduced χ² {result.chi2_red:.3g}."
+            f"with {result.model}, reduced χ² {result.chi2_red:.3g}; fit quality {result.fit_quality}"
+            + (" — the model does not describe these data (see Fit and correct)." if result.fit_quality == "poor"
+               else ".")
         )
         verdict = call_layer("Judging the batch", fit_verdict_json, store, batch["code"], result, show=False)
         if verdict.ok:
@@ -386,6 +388,7 @@ def _measurements_table(batch: dict) -> pd.DataFrame:
             "id": m["id"], "file": m["file_name"], "kind": m["kind"], "measured on": m["measured_on"] or "",
             "phantom age [days]": m["phantom_age_days"], "instrument": m["instrument"] or "",
             "fit model": fit.get("model", ""), "reduced χ²": fit.get("chi2_red"),
+            "fit quality": fit.get("fit_quality") or "not assessed",
             "fit warnings": len(fit.get("warnings", [])),
         })
     return pd.DataFrame(rows)

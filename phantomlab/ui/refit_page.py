@@ -367,9 +367,10 @@ def _fit_section(workspace: Workspace, store) -> None:
         st.error(plain(fitted.error))
         return
     result = fitted.value
-    show_warnings(result.warnings)
     chi2 = f"{result.chi2_red:.3g}" if np.isfinite(result.chi2_red) else "– (no degrees of freedom)"
     st.markdown(f"Model **{result.model}** · reduced χ² **{chi2}** · {result.wavelength_nm.size} wavelength(s)")
+    show_fit_quality(result)
+    show_warnings(result.warnings)
     if read.ok and kind in ("td", "fd"):
         from phantomlab.ui.time_view import show_fd_fit, show_td_fit
 
@@ -394,6 +395,22 @@ def _fit_section(workspace: Workspace, store) -> None:
             kept = call_layer("Keeping the fit", keep_fit, store, measurement_row["id"], result)
             if kept.ok:
                 st.success(f"Fit kept with measurement {measurement_row['id']} of batch {batch['code']}.")
+
+
+def show_fit_quality(result) -> None:
+    """The fit's verdict beside its numbers: red for poor or failed, a caption when good."""
+    quality = getattr(result, "fit_quality", None)
+    if quality is None:
+        return
+    reason = result.fit_quality_reason or ""
+    if quality == "poor":
+        st.error(f"**Fit quality: POOR — the model does not describe these data.** {reason}")
+    elif quality == "failed":
+        st.error(f"**Fit quality: FAILED.** {reason}")
+    else:
+        st.caption(f"Fit quality: good — {reason}")
+    if result.sd_includes:
+        st.caption("SDs include: " + ", ".join(part.replace("_", " ") for part in result.sd_includes))
 
 
 def show(workspace: Workspace) -> None:
