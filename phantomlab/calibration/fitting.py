@@ -35,6 +35,9 @@ __all__ = ["BlockOutcome", "JointOutcome", "FitResult", "fit_blocks", "fit_joint
 
 #: Relative step of the forward-difference Jacobian in log-parameters.
 _STEP = 1e-5
+#: A block still running after the last iteration counts as converged if its last accepted
+#: step lowered χ² by less than this (the parameters then move by < 0.1 SD).
+_SETTLED_CHI2 = 1e-2
 
 
 @dataclass(frozen=True)
@@ -55,7 +58,11 @@ class BlockOutcome:
     chi2_red : ndarray, shape (W,)
         χ²/dof (NaN where dof ≤ 0).
     success : bool
+        Every block converged (see ``settled``).
     nfev : int
+    settled : ndarray of bool (W,) or None
+        Per block: met its stopping rule, or its last step changed χ² by less than a
+        hundredth (the parameters then move by under a tenth of their SD).
     """
 
     x: np.ndarray
@@ -66,6 +73,7 @@ class BlockOutcome:
     chi2_red: np.ndarray
     success: bool
     nfev: int
+    settled: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -123,26 +131,33 @@ def finite_jacobian(residual_fn: Callable[[np.ndarray], np.ndarray], x: np.ndarr
 
 
 def _invert_normal(jac: np.ndarray) -> np.ndarray:
-    """Batched (JᵀJ)⁻¹ with inf where the normal matrix is singular."""
+    """Batched (JᵀJ)⁻¹ with inf where the normal matrix is singular.
+
+    Well-conditioned blocks (condition number ≤ 1e14, from the eigenvalues of the symmetric
+    normal matrix) are inverted together; the others one by one with the pseudo-inverse.
+    """
     normal = np.einsum("wmp,wmq->wpq", jac, jac)
     out = np.empty_like(normal)
-    for w in range(normal.shape[0]):
+    finite = np.all(np.isfinite(normal), axis=(1, 2))
+    eig = np.full(normal.shape[:2], np.nan)
+    if finite.any():
+        eig[finite] = np.linalg.eigvalsh(normal[finite])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        cond = np.abs(eig).max(axis=1) / np.abs(eig).min(axis=1)
+    good = finite & np.isfinite(cond) & (cond <= 1e14)
+    if good.any():
+        out[good] = np.linalg.inv(normal[good])
+    for w in np.where(~good)[0]:
         matrix = normal[w]
-        try:
-            cond = np.linalg.cond(matrix)
-        except np.linalg.LinAlgError:
-            cond = np.inf
-        if not np.isfinite(cond) or cond > 1e14:
-            inverse = np.linalg.pinv(matrix)
-            diag = np.diag(matrix)
-            # a parameter with (near) no information gets an infinite variance
-            weak = np.abs(np.linalg.eigh(matrix)[0]).min() <= 1e-14 * max(np.abs(diag).max(), 1e-300)
-            if weak:
-                inverse = inverse.copy()
-                np.fill_diagonal(inverse, np.inf)
-            out[w] = inverse
-        else:
-            out[w] = np.linalg.inv(matrix)
+        inverse = np.linalg.pinv(np.nan_to_num(matrix))
+        diag = np.diag(matrix)
+        # a parameter with (near) no information gets an infinite variance
+        values = eig[w] if np.all(np.isfinite(eig[w])) else np.linalg.eigvalsh(np.nan_to_num(matrix))
+        if np.abs(values).min() <= 1e-14 * max(np.nanmax(np.abs(diag)) if np.any(np.isfinite(diag)) else 0.0,
+                                                1e-300) or not np.all(np.isfinite(matrix)):
+            inverse = inverse.copy()
+            np.fill_diagonal(inverse, np.inf)
+        out[w] = inverse
     return out
 
 
@@ -216,7 +231,7 @@ def fit_blocks(
             full[rows] = x_rows
             return block_fn(full)[rows]
     x_start = _inside(x0, lo, hi)
-    x, nfev, success = _batched_levenberg_marquardt(row_fn, x_start, lo, hi, max_iterations=max_nfev or 60,
+    x, nfev, settled = _batched_levenberg_marquardt(row_fn, x_start, lo, hi, max_iterations=max_nfev or 60,
                                                     tolerance=tolerance, step_tolerance=step_tolerance)
     jac = finite_jacobian(block_fn, x)
     covariance = _invert_normal(jac)
@@ -230,7 +245,7 @@ def fit_blocks(
         covariance = covariance * factor[:, None, None]
     return BlockOutcome(
         x=x, covariance=covariance, residuals=residuals, chi2=chi2, dof=dof,
-        chi2_red=chi2_red, success=success, nfev=nfev,
+        chi2_red=chi2_red, success=bool(np.all(settled)), nfev=nfev, settled=settled,
     )
 
 
@@ -240,7 +255,14 @@ def _batched_levenberg_marquardt(row_fn, x, lo, hi, *, max_iterations=60, tolera
     Steps solve (JᵀJ + λ diag(JᵀJ)) δ = −Jᵀr per block (Marquardt 1963), are projected onto
     the bounds, accepted where the cost falls (λ /= 3) and refused elsewhere (λ *= 4);
     a block stops when its relative cost change falls below ``tolerance`` and its step below
-    ``step_tolerance``, or when a refused step would change its cost by less than ``tolerance``.  ``row_fn(x_rows, rows)`` evaluates only the blocks still running.
+    ``step_tolerance``, or when a refused step would change its cost by less than ``tolerance``.
+    ``row_fn(x_rows, rows)`` evaluates only the blocks still running.
+
+    Returns (x, nfev, settled): settled (W,) is False where a block ran out of iterations while
+    its last accepted step still lowered its χ² by more than :data:`_SETTLED_CHI2` (times
+    its mean square residual, for data without SDs); a smaller change moves the parameters
+    by well under a tenth of their SD (in a quadratic valley Δχ² = (δ/σ)²), so such a block
+    has settled for every purpose of the fit even if not to ``tolerance``.
     """
     W, P = x.shape
     x = x.copy()
@@ -249,6 +271,7 @@ def _batched_levenberg_marquardt(row_fn, x, lo, hi, *, max_iterations=60, tolera
     cost = np.sum(r**2, axis=1)
     lam = np.full(W, 1e-3)
     active = np.ones(W, bool)
+    last_drop = np.full(W, np.inf)
     nfev = 1
     for _ in range(max_iterations):
         rows = np.flatnonzero(active)
@@ -279,6 +302,7 @@ def _batched_levenberg_marquardt(row_fn, x, lo, hi, *, max_iterations=60, tolera
             # from the current by less than the tolerance (no decrease left to find)
             done = (change < tolerance) & ((better & (moved < step_tolerance)) | ~better)
             accepted = sub[better]
+            last_drop[accepted] = (cost[sub] - cost_trial)[better]
             x[accepted] = trial[better]
             r[accepted] = r_trial[better]
             cost[accepted] = cost_trial[better]
@@ -292,7 +316,8 @@ def _batched_levenberg_marquardt(row_fn, x, lo, hi, *, max_iterations=60, tolera
             pending = still
             if not np.any(pending):
                 break
-    return x, nfev, not np.any(active)
+    unit = np.maximum(1.0, cost / max(r.shape[1], 1))
+    return x, nfev, ~(active & (last_drop > _SETTLED_CHI2 * unit))
 
 
 def fit_joint(

@@ -166,7 +166,9 @@ def _block_fit(forward, data, sd, mask, relative, start, scale_by_chi2, profile_
         corr = covariance[:, 0, 1] / np.sqrt(covariance[:, 0, 0] * covariance[:, 1, 1])
     return dict(mua=mua, musp=musp, cov=cov[:, :2, :2], chi2=chi2, dof=dof,
                 chi2_red_w=chi2_red, residuals=outcome.residuals, scale=scale,
-                scale_sd=scale_sd, parameters={}, correlation=corr, converged=bool(outcome.success))
+                scale_sd=scale_sd, parameters={}, correlation=corr,
+                converged=(np.asarray(outcome.settled, bool) if outcome.settled is not None
+                           else np.full(W, bool(outcome.success))))
 
 
 #: Steps (in linearised SDs) at which :func:`_profile_widths` evaluates the profile χ².
@@ -328,8 +330,9 @@ def _restart_rows(forward, data, sd, mask, relative, scale_by_chi2, parts, poor,
     better = lowest < chi2[poor]
     gained = bool(np.any(lowest < (1.0 - _RESTART_GAIN) * chi2[poor]))
     best = {key: (value.copy() if isinstance(value, np.ndarray) else value) for key, value in parts.items()}
-    for key in ("mua", "musp", "cov", "chi2", "dof", "chi2_red_w", "residuals", "correlation", "scale", "scale_sd"):
-        if best[key] is not None:
+    for key in ("mua", "musp", "cov", "chi2", "dof", "chi2_red_w", "residuals", "correlation", "scale", "scale_sd",
+                "converged"):
+        if best.get(key) is not None:
             best[key][poor[better]] = trial[key][chosen[better]]
     return best, gained
 
@@ -481,7 +484,7 @@ def _joint_fit(forward, data, sd, mask, relative, start, scale_by_chi2, constrai
         chi2_red_w = np.where(dof_w > 0, chi2_w / np.maximum(dof_w, 1e-12), np.nan)
     return dict(mua=mua, musp=musp, cov=cov, chi2=np.array([outcome.chi2]), dof=np.array([outcome.dof]),
                 chi2_red_w=chi2_red_w, residuals=residual_grid, scale=scale, scale_sd=scale_sd,
-                parameters=parameters, correlation=corr, converged=bool(outcome.success))
+                parameters=parameters, correlation=corr, converged=np.full(W, bool(outcome.success)))
 
 
 def fit_spectrum(
@@ -577,7 +580,7 @@ def fit_spectrum(
         chi2_red_per_wavelength=chi2_red_w, residuals=parts["residuals"], warnings=tuple(notes),
         scale_factor=parts["scale"], scale_factor_sd=parts["scale_sd"], parameters=parts["parameters"],
         dof=float(total_dof) if np.isfinite(chi2_red) else float("nan"),
-        converged=bool(parts.get("converged", True)),
+        converged=bool(np.all(parts.get("converged", True))),
     )
     return result, parts["correlation"]
 
