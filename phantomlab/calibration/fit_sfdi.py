@@ -14,6 +14,8 @@ Forward models:
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 from scipy.special import j0
 
@@ -25,11 +27,8 @@ from phantomlab.calibration.fit_srdr import (
     smooth_lookup,
 )
 from phantomlab.calibration.fitting import FitResult
-from phantomlab.calibration.identifiability import (
-    outcome_warnings,
-    sfdi_design_warnings,
-    sfdi_diffusion_range_warnings,
-)
+from phantomlab.calibration.identifiability import outcome_warnings, sfdi_design_warnings
+from phantomlab.calibration.model_error import diffusion_error_warnings, diffusion_fit_error
 from phantomlab.calibration.measurements import Measurement
 from phantomlab.calibration.spectral import SpectralConstraint, fit_spectrum
 from phantomlab.errors import InputError
@@ -140,11 +139,15 @@ def fit_sfdi(
     result, correlation = fit_spectrum(
         forward, kind="sfdi", model=label, wavelength_nm=measurement.wavelength_nm,
         data=measurement.values, sd=measurement.sd, relative=False, constraint=constraint)
-    messages += model_range_warnings(forward, result)
-    if model != "mc":
-        messages += sfdi_diffusion_range_warnings(
-            fx_per_mm=fx, wavelength_nm=result.wavelength_nm, mua_per_mm=result.mua_per_mm,
-            musp_per_mm=result.musp_per_mm)
+    if model == "mc":
+        messages += model_range_warnings(forward, result)
+    else:
+        # the measured diffusion-vs-Monte-Carlo error at the fitted optics (in place of the
+        # forward model's own rule-of-thumb range warnings)
+        error = diffusion_fit_error(kind="sfdi", model=model, forward=forward, axis=fx, n=n, n_outside=n_outside,
+                                    result=result, data=measurement.values, sd=measurement.sd, relative=False)
+        messages += diffusion_error_warnings(error, kind="sfdi", wavelength_nm=measurement.wavelength_nm)
+        result = replace(result, model_covariance=error.covariance)
     messages += outcome_warnings(
         wavelength_nm=result.wavelength_nm, mua_per_mm=result.mua_per_mm,
         musp_per_mm=result.musp_per_mm, mua_sd_per_mm=result.mua_sd_per_mm,

@@ -28,22 +28,19 @@ when it is used at a mismatched boundary.
 from __future__ import annotations
 
 import warnings
+from dataclasses import replace
 
 import numpy as np
 
 from phantomlab.calibration.fitting import FitResult
-from phantomlab.calibration.identifiability import (
-    _bands,
-    diffusion_range_warnings,
-    outcome_warnings,
-    srdr_design_warnings,
-)
+from phantomlab.calibration.identifiability import outcome_warnings, srdr_design_warnings
+from phantomlab.calibration.model_error import diffusion_error_warnings, diffusion_fit_error
 from phantomlab.calibration.measurements import Measurement
 from phantomlab.calibration.spectral import SpectralConstraint, fit_spectrum, merge_rows
 from phantomlab.errors import InputError, PhantomlabWarning
 
 __all__ = ["SRDR_FIT_MODELS", "DIFFUSION_MIN_TRANSPORT_MFP", "fit_srdr", "srdr_forward",
-           "flux_only_mismatch_warnings", "high_albedo_bias_warnings"]
+           "flux_only_mismatch_warnings"]
 
 #: Forward models of the srdr fit.
 SRDR_FIT_MODELS = ("kienle1997", "farrell1992", "mc")
@@ -53,11 +50,6 @@ SRDR_FIT_MODELS = ("kienle1997", "farrell1992", "mc")
 #: at 1–2 transport lengths the diffusion models are 4–13 % off Monte Carlo, beyond 2 the
 #: fluence-plus-flux model at n = 1.4 is within 1–5 %.
 DIFFUSION_MIN_TRANSPORT_MFP = 2.0
-
-#: Above this fitted μs′/μa a diffusion fit of absolute data says that its μa is biased: the
-#: model's few-per-cent error moves μa by +24 % at 300 and +74 % at 1000 (Monte Carlo data,
-#: n = 1.4, ρ to 8 transport lengths; tests/calibration/test_fit_srdr.py), far beyond its SD.
-DIFFUSION_MUA_BIAS_RATIO = 200.0
 
 #: Passes of the "leave out the near distances and refit" step at most (the kept set follows
 #: the fitted μt′; it settles in one or two).
@@ -247,7 +239,6 @@ def fit_srdr(
             model_sd = model_sd * result.scale_factor[:, None]
         kwargs["sd"] = np.sqrt(measurement.sd**2 + model_sd**2)
         result, correlation = fit_spectrum(forward, start=(result.mua_per_mm, result.musp_per_mm), **kwargs)
-    kept_near = np.zeros(measurement.wavelength_nm.shape, bool)
     final_mask = None
     if model != "mc" and min_transport_mfp > 0:
         finite = np.isfinite(measurement.values)
@@ -256,7 +247,6 @@ def fit_srdr(
             mutr = result.mua_per_mm + result.musp_per_mm
             near = (rho[None, :] * mutr[:, None] < min_transport_mfp) & finite
             enough = (finite & ~near).sum(axis=1) >= (4 if relative else 3)
-            kept_near = near.any(axis=1) & ~enough
             mask = np.where(enough[:, None], finite & ~near, finite)
             changed = np.any(mask != used, axis=1)
             if not changed.any():
@@ -285,20 +275,16 @@ def fit_srdr(
                                            mask=final_mask, **dict(kwargs, profile_sd=True))
     if model == "farrell1992":
         messages += flux_only_mismatch_warnings(n=n, n_outside=n_outside)
-    if model != "mc" and not relative:
-        messages += high_albedo_bias_warnings(wavelength_nm=measurement.wavelength_nm,
-                                              mua_per_mm=result.mua_per_mm, musp_per_mm=result.musp_per_mm)
     messages += srdr_design_warnings(rho_mm=rho, wavelength_nm=measurement.wavelength_nm,
                                      mua_per_mm=result.mua_per_mm, musp_per_mm=result.musp_per_mm,
                                      relative=relative)
     messages = list(dict.fromkeys(messages))
     if model != "mc":
-        # near-source points are reported where they had to stay in the fit (too few others)
-        rho_check = np.where(kept_near | (min_transport_mfp <= 0), rho.min(), np.inf)
-        messages += diffusion_range_warnings(
-            rho_mm=rho_check, wavelength_nm=measurement.wavelength_nm,
-            mua_per_mm=result.mua_per_mm, musp_per_mm=result.musp_per_mm,
-            min_transport_mfp=max(min_transport_mfp, 1.0))
+        # the measured diffusion-vs-Monte-Carlo error at the fitted optics, over the points used
+        error = diffusion_fit_error(kind="srdr", model=model, forward=forward, axis=rho, n=n, n_outside=n_outside,
+                                    result=result, data=measurement.values, sd=measurement.sd, relative=relative)
+        messages += diffusion_error_warnings(error, kind="srdr", wavelength_nm=measurement.wavelength_nm)
+        result = replace(result, model_covariance=error.covariance)
     else:
         messages += model_range_warnings(forward, result)
         floor = baseline_absorption_floor(baseline) * result.musp_per_mm / (1.0 - baseline_anisotropy(baseline))
@@ -332,32 +318,6 @@ def flux_only_mismatch_warnings(*, n: float, n_outside: float) -> list[str]:
         f"surface it reads 8-21 % below Monte Carlo at 3-8 transport mean free paths (n = 1.4 in air), "
         f"which biases musp and mua by tens of per cent; fit with kienle1997 (within 1-5 %) or the "
         f"Monte Carlo lookup (model mc)"
-    ]
-
-
-def high_albedo_bias_warnings(*, wavelength_nm, mua_per_mm, musp_per_mm) -> list[str]:
-    """The warning that a diffusion fit's μa is biased at high albedo (absolute data).
-
-    At μs′/μa of a few hundred and more, μa moves R(ρ) over a probe's reach mostly through
-    the absolute level, and the diffusion models' level is off Monte Carlo by a few per cent
-    (kienle1997 +1 to +6 % at n = 1.4): measured, the fitted μa is +24 % at 300 and +74 % at
-    1000 high while its SD says 2–5 % (tests/calibration/test_fit_srdr.py).
-    """
-    mua = np.asarray(mua_per_mm, float)
-    musp = np.asarray(musp_per_mm, float)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = np.where(mua > 0, musp / mua, np.inf)
-    high = np.isfinite(musp) & (ratio >= DIFFUSION_MUA_BIAS_RATIO)
-    if not np.any(high):
-        return []
-    finite = ratio[high & np.isfinite(ratio)]
-    largest = float(finite.max()) if finite.size else np.inf
-    return [
-        f"diffusion fit at musp/mua up to {largest:.3g} "
-        f"(>= {DIFFUSION_MUA_BIAS_RATIO:g}) at {_bands(np.asarray(wavelength_nm), high)}: there a few per cent "
-        f"of model error biases mua high by tens of per cent, beyond its SD (kienle1997 on Monte Carlo data, "
-        f"n = 1.4: mua +24 % at 300, +74 % at 1000, musp within 4 %); use the Monte Carlo lookup for mua "
-        f"(model mc; a baseline comes from phantomlab baseline build)"
     ]
 
 

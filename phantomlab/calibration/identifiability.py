@@ -6,8 +6,11 @@ Two kinds of check, each returning one-line messages (the fit modules raise them
 * design checks, before looking at the numbers: too few or too close source–detector
   distances, too few or too close spatial frequencies;
 * outcome checks, from the fitted covariance: a strong correlation between the fitted log μa
-  and log μs′ together with a large relative SD, and forward models used outside their range
-  (diffusion near the source or at low albedo, diffusion at high spatial frequency).
+  and log μs′ together with a large relative SD.
+
+Where a diffusion model is poor (near the source, low albedo, high spatial frequency) is no
+longer a rule of thumb here: the fits warn from the measured diffusion-vs-Monte-Carlo error
+maps (:mod:`phantomlab.calibration.model_error`).
 
 The thresholds are rules of thumb of the trade, marked as such.
 """
@@ -23,8 +26,6 @@ __all__ = [
     "srdr_design_warnings",
     "sfdi_design_warnings",
     "outcome_warnings",
-    "diffusion_range_warnings",
-    "sfdi_diffusion_range_warnings",
     "slab_edge_warnings",
 ]
 
@@ -46,9 +47,6 @@ MIN_FREQUENCY_SPAN_PER_MM = 0.05
 MAX_CORRELATION = 0.95
 #: Relative SD above which a fitted coefficient is reported as undetermined.
 MAX_RELATIVE_SD = 0.25
-#: Diffusion in the spatial-frequency domain is flagged above fx/μt′ = 1/(2π): a pattern
-#: finer than one transport mean free path (the transport layer's own criterion).
-MAX_FX_OVER_MUTR = 1.0 / (2.0 * np.pi)
 #: Light beyond about 3 lateral spread lengths of the port edge is negligible
 #: (common practice, no source).
 EDGE_SPREAD_FACTOR = 3.0
@@ -158,61 +156,6 @@ def outcome_warnings(*, wavelength_nm, mua_per_mm, musp_per_mm, mua_sd_per_mm, m
         messages.append(
             f"fitted mua or musp has a relative SD above {100 * MAX_RELATIVE_SD:.0f} % at "
             f"{_bands(wavelength_nm, loose)}"
-        )
-    return messages
-
-
-def diffusion_range_warnings(*, rho_mm, wavelength_nm, mua_per_mm, musp_per_mm,
-                             min_transport_mfp: float = 1.0) -> list[str]:
-    """Where diffusion is poor for srdr: close to the source, or at low albedo.
-
-    ``rho_mm`` is either the distances used (R,) or the smallest used per wavelength (W,).
-
-    References
-    ----------
-    Farrell et al. 1992, Med Phys 19:879 (diffusion fails within about one transport mean
-    free path of the source and when μs′ is not much larger than μa).
-    """
-    messages = []
-    mua = np.asarray(mua_per_mm)
-    musp = np.asarray(musp_per_mm)
-    mutr = mua + musp
-    rho = np.asarray(rho_mm, float)
-    rho_min = rho if rho.shape == mutr.shape else np.full(mutr.shape, rho.min())
-    near = rho_min * mutr < min_transport_mfp
-    if np.any(near):
-        messages.append(
-            f"diffusion used within {min_transport_mfp:g} transport mean free path of the source "
-            f"(rho {np.min(rho_min[near]):g} mm, 1/mutr up to {np.max(1 / mutr[near]):.3g} mm at "
-            f"{_bands(wavelength_nm, near)}); diffusion is poor there: use the Monte Carlo lookup"
-        )
-    low = musp / np.maximum(mua, 1e-300) < 10.0
-    if np.any(low):
-        messages.append(
-            f"diffusion used at musp/mua = {np.min(musp / mua):.3g} (below 10) at "
-            f"{_bands(wavelength_nm, low)}; diffusion is poor there: use the Monte Carlo lookup"
-        )
-    return messages
-
-
-def sfdi_diffusion_range_warnings(*, fx_per_mm, wavelength_nm, mua_per_mm, musp_per_mm) -> list[str]:
-    """Where diffusion is poor for sfdi: high spatial frequency, low albedo."""
-    messages = []
-    mua = np.asarray(mua_per_mm)
-    musp = np.asarray(musp_per_mm)
-    ratio = np.max(fx_per_mm) / (mua + musp)
-    high = ratio > MAX_FX_OVER_MUTR
-    if np.any(high):
-        messages.append(
-            f"diffusion used at fx/mutr = {np.max(ratio):.2g} (above 1/(2 pi)) at "
-            f"{_bands(wavelength_nm, high)}; diffusion is poor at high spatial frequency: "
-            f"use the Monte Carlo lookup"
-        )
-    low = musp / np.maximum(mua, 1e-300) < 10.0
-    if np.any(low):
-        messages.append(
-            f"diffusion used at musp/mua = {np.min(musp / mua):.3g} (below 10) at "
-            f"{_bands(wavelength_nm, low)}; use the Monte Carlo lookup"
         )
     return messages
 

@@ -38,8 +38,14 @@ def _fit_warnings(text, **options):
         return fit_measurement_file(text, kind="srdr", n=1.4, model="kienle1997", **options).warnings
 
 
+#: The diffusion model's own measured error (phantomlab.calibration.model_error) is real for
+#: real samples whatever the design, so the design tests set it aside.
+MODEL_ERROR = "diffusion model kienle1997 against Monte Carlo"
+
+
 def test_good_design_gives_no_warning():
-    assert _fit_warnings(_srdr_text(np.linspace(2, 12, 15))) == ()
+    messages = _fit_warnings(_srdr_text(np.linspace(2, 12, 15)))
+    assert [m for m in messages if not m.startswith(MODEL_ERROR)] == []
 
 
 def test_short_distance_range_warns_for_relative_data():
@@ -85,17 +91,33 @@ def test_outcome_rules_directly():
     assert "undetermined (infinite SD)" in undetermined[0]
 
 
-def test_diffusion_near_the_source_warns_only_when_those_points_must_stay():
-    # three distances, all within 2/mutr: nothing can be left out, so the fit warns
-    messages = _fit_warnings(_srdr_text([0.3, 0.5, 0.7], musp=1.0))
-    assert any("within 2 transport mean free path" in m for m in messages), messages
-    # with distances beyond, the near ones are left out (and said so), no range warning
+def _expected_error(messages, name):
+    """The expected error [%] of ``name`` stated by the diffusion error-map warning (0 if none)."""
+    import re
+
+    for message in messages:
+        found = re.search(rf"{name} up to ([0-9.]+) % \(bias", message)
+        if message.startswith(MODEL_ERROR) and found:
+            return float(found.group(1))
+    return 0.0
+
+
+def test_diffusion_near_the_source_states_a_larger_expected_error_when_those_points_must_stay():
+    # three distances, all within 2/mutr: nothing can be left out, and the measured error map
+    # (kienle1997 is 8-14 % above Monte Carlo at 0.3-0.7 transport lengths, n = 1.4) says
+    # what that does to musp
+    near = _fit_warnings(_srdr_text([0.3, 0.5, 0.7], musp=1.0))
+    assert _expected_error(near, "musp") > 5.0, near
+    # with distances beyond, the near ones are left out (and said so), and musp is expected
+    # within a few per cent
     messages = _fit_warnings(_srdr_text(np.concatenate([[0.3, 0.6], np.linspace(2, 12, 12)])))
     assert any("left out 2 points" in m for m in messages), messages
-    assert not any("diffusion used within" in m for m in messages), messages
+    assert _expected_error(messages, "musp") < 5.0, messages
 
 
 @pytest.mark.parametrize("ratio, expected", [(5.0, True), (200.0, False)])
 def test_low_albedo_warning(ratio, expected):
+    # at musp/mua = 5 the diffusion model's error moves musp by more than 5 % (measured map);
+    # at 200 it does not (it moves mua instead)
     messages = _fit_warnings(_srdr_text(np.linspace(2, 12, 15), mua=1.0 / ratio))
-    assert any("below 10" in m for m in messages) == expected, messages
+    assert (_expected_error(messages, "musp") > 5.0) == expected, messages
