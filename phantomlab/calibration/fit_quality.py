@@ -24,7 +24,7 @@ every kind (srdr, sfdi, slab, optics, and any fit that fills ``FitResult.chi2_re
 
 The rule for ``poor`` (:func:`misfit_flags`).  A χ² test alone cries wolf on large files:
 with 601 wavelengths × 20 distances (12 000 degrees of freedom) a χ²ᵣ of 1.1, i.e. SDs that
-are 5 % too small, has a p-value near 10⁻²⁷.  So two conditions must hold together:
+are 5 % too small, has a p-value of 3·10⁻¹⁴.  So two conditions must hold together:
 
 * significance: the upper-tail probability of χ² for its degrees of freedom is below
   :data:`POOR_P_VALUE` (0.001; per wavelength, Bonferroni-corrected for the number of

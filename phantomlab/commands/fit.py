@@ -71,8 +71,7 @@ def quality_lines(result) -> list[str]:
     """The verdict and what the SDs include, as the lines above the table."""
     if result.fit_quality is None:
         return []
-    head = {"good": "fit quality: good", "poor": "fit quality: POOR - the model does not describe these data",
-            "failed": "fit quality: FAILED"}[result.fit_quality]
+    head = {"good": "fit quality: good", "poor": "fit quality: POOR", "failed": "fit quality: FAILED"}[result.fit_quality]
     lines = [head, f"  {result.fit_quality_reason}"]
     if result.sd_includes:
         lines.append("SDs include: " + ", ".join(part.replace("_", " ") for part in result.sd_includes))

@@ -448,8 +448,7 @@ def _fit_quality_html(measurement: dict[str, Any]) -> str:
     sds = f" SDs include: {html.escape(includes)}." if includes else ""
     if quality == "good":
         return f"<p class='small'>Fit quality good: {reason}.{sds}</p>"
-    head = ("Fit quality POOR — the model does not describe these data" if quality == "poor"
-            else "Fit quality FAILED")
+    head = "Fit quality POOR" if quality == "poor" else "Fit quality FAILED"
     return f"<p class='caution'><strong>{head}</strong>: {reason}.{sds}</p>"
 
 

@@ -403,12 +403,13 @@ def show_fit_quality(result) -> None:
     if quality is None:
         return
     reason = result.fit_quality_reason or ""
+    reason = reason[:1].upper() + reason[1:]
     if quality == "poor":
-        st.error(f"**Fit quality: POOR — the model does not describe these data.** {reason}")
+        st.error(f"**Fit quality: POOR.** {reason}.")
     elif quality == "failed":
-        st.error(f"**Fit quality: FAILED.** {reason}")
+        st.error(f"**Fit quality: FAILED.** {reason}.")
     else:
-        st.caption(f"Fit quality: good — {reason}")
+        st.caption(f"Fit quality: good. {reason}.")
     if result.sd_includes:
         st.caption("SDs include: " + ", ".join(part.replace("_", " ") for part in result.sd_includes))
 

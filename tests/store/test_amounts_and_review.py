@@ -166,3 +166,18 @@ def test_record_prints_on_a4_caps_the_wavelengths_but_keeps_every_failure():
 def test_record_plural_counts():
     html = render_batch_record_html(_record(_checks(TWELVE, _fit([0.01] * 12)), batches=3, fits=4))
     assert "(3 batches with fits, 4 fits)" in html
+
+
+def test_record_shows_a_poor_fit_beside_the_verdict_and_the_measurement():
+    record = _record(_checks(TWELVE, _fit([0.0104] * 12)))
+    record["measurement"] = {
+        "measurement_id": 7, "kind": "srdr", "file": "kb.csv", "measured_on": None, "phantom_age_days": 3.0,
+        "instrument": None, "fit_id": 9, "model": "diffusion-kienle1997", "chi2_red": 23.9, "fit_warnings": [],
+        "fit_quality": "poor", "fit_quality_reason": "the model does not describe these data: chi2_red 23.9",
+        "sd_includes": ["measurement_sd", "misfit_scale"]}
+    html = render_batch_record_html(record)
+    assert "PASS: every targeted value within tolerance — but the fit is poor" in html
+    assert ("<p class='caution'><strong>Fit quality POOR</strong>: the model does not describe these data: "
+            "chi2_red 23.9. SDs include: measurement sd, misfit scale.</p>") in html
+    record["measurement"].update(fit_quality=None, fit_quality_reason=None, sd_includes=[])
+    assert "fit quality: not assessed (fit stored by an earlier version)" in render_batch_record_html(record)
