@@ -23,7 +23,7 @@ def register(subparsers) -> None:
     from phantomlab.materials.haemoglobin import CHROMOPHORES, DEFAULT_HAEMOGLOBIN_SOURCE, HAEMOGLOBIN_SOURCES
 
     chromophore = subparsers.add_parser(
-        "chromophore", help="published molar extinction spectra of haemoglobin (oxy, deoxy)"
+        "chromophore", help="published molar extinction spectra of haemoglobin (oxy, deoxy, met, carboxy)"
     )
     actions = chromophore.add_subparsers(dest="chromophore_command", metavar="ACTION")
     show = actions.add_parser(
@@ -38,8 +38,9 @@ def register(subparsers) -> None:
         help="wavelengths in nm: 660,800,940 or START:STOP:STEP (STOP included)",
     )
     show.add_argument(
-        "--source", default=DEFAULT_HAEMOGLOBIN_SOURCE, metavar="S",
-        help=f"published table: {', '.join(HAEMOGLOBIN_SOURCES)} (default {DEFAULT_HAEMOGLOBIN_SOURCE})",
+        "--source", default=None, metavar="S",
+        help=f"published table: {', '.join(HAEMOGLOBIN_SOURCES)} (default {DEFAULT_HAEMOGLOBIN_SOURCE}; "
+        "for methb and cohb the table that prints them)",
     )
     add_json_option(show)
     show.set_defaults(handler=_show)
@@ -53,21 +54,22 @@ def register(subparsers) -> None:
 def _show(args) -> CommandResult:
     from phantomlab.materials.haemoglobin import (
         EXTINCTION_BASIS,
-        HAEMOGLOBIN_SOURCES,
         HAEMOGLOBIN_TETRAMER_MOLAR_MASS_G_PER_MOL,
         chromophore_title,
         extinction_table,
         haemoglobin_extinction,
         haemoglobin_source,
+        source_for,
+        sources_holding,
     )
 
     wavelength = parse_number_list(args.wavelength_nm, name="--wavelength-nm")
     if wavelength.size > MAX_WAVELENGTHS:
         raise InputError(f"--wavelength-nm: {wavelength.size} wavelengths; at most {MAX_WAVELENGTHS}")
-    spec = haemoglobin_source(args.source)
-    epsilon = haemoglobin_extinction(args.name, wavelength_nm=wavelength, source=spec.key)
-    table = extinction_table(spec.key)
     name = str(args.name).strip().lower()
+    spec = haemoglobin_source(source_for([name], args.source))
+    epsilon = haemoglobin_extinction(name, wavelength_nm=wavelength, source=spec.key)
+    table = extinction_table(spec.key)
     payload = {
         "wavelength_nm": wavelength,
         "epsilon_per_molar_per_cm": epsilon,
@@ -77,7 +79,7 @@ def _show(args) -> CommandResult:
         "source_key": spec.key,
         "band_nm": list(table.band_nm),
         "molar_mass_g_per_mol": HAEMOGLOBIN_TETRAMER_MOLAR_MASS_G_PER_MOL,
-        "sources": list(HAEMOGLOBIN_SOURCES),
+        "sources": list(sources_holding(name)),
     }
     lines = [
         f"{chromophore_title(name)} ({name}), table {spec.key}: {spec.citation}",

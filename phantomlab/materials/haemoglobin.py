@@ -1,4 +1,4 @@
-"""Haemoglobin: molar extinction spectra of oxy- and deoxyhaemoglobin, and its concentration (layer 1).
+"""Haemoglobin: molar extinction spectra of its forms, and its concentration (layer 1).
 
 Every table shipped here (``phantomlab/data/haemoglobin_extinction_*.csv``) is a published
 tabulation typed row for row, with two provenance lines:
@@ -18,7 +18,10 @@ turns base-10 absorbance into the natural-log μa (as for every extinction stock
 :mod:`phantomlab.materials.spectra`).
 
 Sources differ by several per cent (more near 600–700 nm and at the NIR isosbestic point),
-so the source is chosen by name: :data:`HAEMOGLOBIN_SOURCES`.
+so the source is chosen by name: :data:`HAEMOGLOBIN_SOURCES`.  Every table holds oxy- and
+deoxyhaemoglobin; methaemoglobin (haemiglobin) and carboxyhaemoglobin come from the tables
+that print them (Zijlstra, Buursma & van Assendelft 2000): :func:`sources_holding`,
+:func:`source_for`.
 """
 
 from __future__ import annotations
@@ -44,6 +47,8 @@ __all__ = [
     "HAEMOGLOBIN_SOURCES",
     "DEFAULT_HAEMOGLOBIN_SOURCE",
     "haemoglobin_source",
+    "sources_holding",
+    "source_for",
     "read_extinction_table",
     "extinction_table",
     "haemoglobin_extinction",
@@ -66,13 +71,24 @@ EXTINCTION_BASIS = (
     "base 10, 1/(M cm), per mole of haemoglobin tetramer (4 hemes, 64500 g/mol)"
 )
 
-#: The chromophores each table holds, with their column in the CSV files.
+#: The haemoglobin forms, with their column in the CSV files.  Every table holds the first
+#: two; ``methb`` and ``cohb`` only the tables that print them.
 CHROMOPHORES: dict[str, str] = {
     "hbo2": "epsilon_hbo2_per_molar_per_cm",
     "hb": "epsilon_hb_per_molar_per_cm",
+    "methb": "epsilon_methb_per_molar_per_cm",
+    "cohb": "epsilon_cohb_per_molar_per_cm",
 }
 
-_CHROMOPHORE_NAMES = {"hbo2": "oxyhaemoglobin", "hb": "deoxyhaemoglobin"}
+#: Columns every table must hold.
+REQUIRED_CHROMOPHORES = ("hbo2", "hb")
+
+_CHROMOPHORE_NAMES = {
+    "hbo2": "oxyhaemoglobin",
+    "hb": "deoxyhaemoglobin",
+    "methb": "methaemoglobin (haemiglobin)",
+    "cohb": "carboxyhaemoglobin",
+}
 
 
 @dataclass(frozen=True)
@@ -111,6 +127,12 @@ HAEMOGLOBIN_SOURCES: dict[str, ExtinctionSource] = {
         "haemoglobin_extinction_takatani_graham.csv",
         "Takatani & Graham, IEEE Trans Biomed Eng BME-26, compiled by Prahl (450–995 nm)",
     ),
+    "zijlstra-2000": ExtinctionSource(
+        "zijlstra-2000",
+        "haemoglobin_extinction_zijlstra_2000.csv",
+        "Zijlstra, Buursma & van Assendelft 2000, adult human HbO2, Hb, MetHb, COHb "
+        "(450–800 nm every 2 nm, then 9 rows to 1000 nm; printed per heme)",
+    ),
 }
 
 DEFAULT_HAEMOGLOBIN_SOURCE = "gratzer-kollias"
@@ -125,7 +147,8 @@ class ExtinctionTable:
     wavelength_nm : ndarray [nm]
         Rows, strictly increasing.
     epsilon_per_molar_per_cm : dict of str to ndarray [1/(M·cm)]
-        Per chromophore (``hbo2``, ``hb``), base 10, per mole of tetramer.
+        Per chromophore the table holds (``hbo2``, ``hb``, and ``methb``, ``cohb`` where
+        printed), base 10, per mole of tetramer.
     source : str
         The ``# source:`` line without its prefix.
     declared_basis : str
@@ -140,6 +163,11 @@ class ExtinctionTable:
     @property
     def band_nm(self) -> tuple[float, float]:
         return float(self.wavelength_nm[0]), float(self.wavelength_nm[-1])
+
+    @property
+    def chromophores(self) -> tuple[str, ...]:
+        """The forms the table holds, in column order."""
+        return tuple(self.epsilon_per_molar_per_cm)
 
 
 def haemoglobin_source(name) -> ExtinctionSource:
@@ -162,7 +190,9 @@ def read_extinction_table(path_or_text, *, name: str = "extinction table") -> Ex
     path_or_text : str or Path
         A file, or the CSV text itself (a string holding a newline).  Layout: a
         ``# source: ...`` line, a ``# basis: tetramer|heme; ...`` line, the header
-        ``wavelength_nm,epsilon_hbo2_per_molar_per_cm,epsilon_hb_per_molar_per_cm`` and rows.
+        ``wavelength_nm,epsilon_hbo2_per_molar_per_cm,epsilon_hb_per_molar_per_cm`` followed
+        by any of ``epsilon_methb_per_molar_per_cm``, ``epsilon_cohb_per_molar_per_cm`` (each
+        once), and rows.
     name : str
         What to call the table in error messages.
 
@@ -205,9 +235,15 @@ def read_extinction_table(path_or_text, *, name: str = "extinction table") -> Ex
         raise InputError(
             f"{name}: '# basis:' must start with 'tetramer' or 'heme' (per mole of what), got {basis!r}"
         )
-    wanted = ["wavelength_nm", *CHROMOPHORES.values()]
-    if header != wanted:
-        raise InputError(f"{name}: header must be {','.join(wanted)}")
+    required = ["wavelength_nm", *(CHROMOPHORES[k] for k in REQUIRED_CHROMOPHORES)]
+    optional = {column: key for key, column in CHROMOPHORES.items() if key not in REQUIRED_CHROMOPHORES}
+    extra = [] if header is None else header[len(required):]
+    if header is None or header[: len(required)] != required or any(c not in optional for c in extra) \
+            or len(set(extra)) != len(extra):
+        raise InputError(
+            f"{name}: header must be {','.join(required)}, then any of {', '.join(optional)} (each once)"
+        )
+    wanted = header
     values = []
     for number, *cells in rows:
         if len(cells) != len(wanted):
@@ -225,7 +261,8 @@ def read_extinction_table(path_or_text, *, name: str = "extinction table") -> Ex
     if np.any(np.diff(array[:, 0]) <= 0):
         raise InputError(f"{name}: wavelengths must increase")
     factor = _BASIS_FACTORS[basis]
-    epsilon = {key: array[:, i + 1] * factor for i, key in enumerate(CHROMOPHORES)}
+    keys = [*REQUIRED_CHROMOPHORES, *(optional[c] for c in extra)]
+    epsilon = {key: array[:, i + 1] * factor for i, key in enumerate(keys)}
     return ExtinctionTable(array[:, 0], epsilon, source, basis)
 
 
@@ -252,13 +289,46 @@ def _chromophore(name) -> str:
     return key
 
 
+def sources_holding(chromophore) -> tuple[str, ...]:
+    """Keys of the shipped tables that print ``chromophore`` (all of them for hbo2 and hb)."""
+    key = _chromophore(chromophore)
+    return tuple(s for s in HAEMOGLOBIN_SOURCES if key in extinction_table(s).epsilon_per_molar_per_cm)
+
+
+def source_for(chromophores, source: str | None = None) -> str:
+    """The table to read ``chromophores`` from: ``source`` if it holds them all, else refused.
+
+    With ``source=None``: :data:`DEFAULT_HAEMOGLOBIN_SOURCE` when it holds them all, else the
+    first shipped table that does (``zijlstra-2000`` for ``methb`` and ``cohb``), so one table
+    gives every column of an unmixing (sources differ by several per cent; mixing them would
+    bias the amounts).
+    """
+    keys = [_chromophore(c) for c in chromophores]
+    if source is not None:
+        spec = haemoglobin_source(source)
+        held = extinction_table(spec.key).epsilon_per_molar_per_cm
+        missing = [k for k in keys if k not in held]
+        if missing:
+            having = [s for s in HAEMOGLOBIN_SOURCES if all(k in extinction_table(s).epsilon_per_molar_per_cm for k in keys)]
+            raise InputError(
+                f"haemoglobin table {spec.key} holds {', '.join(held)}, not {', '.join(missing)}; "
+                f"tables holding {', '.join(keys)}: {', '.join(having) or 'none'}"
+            )
+        return spec.key
+    for key in (DEFAULT_HAEMOGLOBIN_SOURCE, *HAEMOGLOBIN_SOURCES):
+        if all(k in extinction_table(key).epsilon_per_molar_per_cm for k in keys):
+            return key
+    raise InputError(f"no shipped haemoglobin table holds all of {', '.join(keys)}")  # pragma: no cover
+
+
 def haemoglobin_extinction(chromophore, *, wavelength_nm, source: str = DEFAULT_HAEMOGLOBIN_SOURCE) -> np.ndarray:
-    """Molar extinction coefficient of oxy- or deoxyhaemoglobin from a published table.
+    """Molar extinction coefficient of a haemoglobin form from a published table.
 
     Parameters
     ----------
-    chromophore : {"hbo2", "hb"}
-        Oxyhaemoglobin or deoxyhaemoglobin.
+    chromophore : {"hbo2", "hb", "methb", "cohb"}
+        Oxy-, deoxy-, methaemoglobin (haemiglobin) or carboxyhaemoglobin; the last two from a
+        table that prints them (:func:`sources_holding`), else refused.
     wavelength_nm : float or array [nm]
         Inside the table's band (refused outside it); NaN passes through.
     source : str
@@ -279,7 +349,7 @@ def haemoglobin_extinction(chromophore, *, wavelength_nm, source: str = DEFAULT_
     same concentration.  Nothing here corrects for it; above 600 nm the effect is small.
     """
     key = _chromophore(chromophore)
-    spec = haemoglobin_source(source)
+    spec = haemoglobin_source(source_for([key], source))
     try:
         wavelength = np.asarray(wavelength_nm, dtype=float)
     except (TypeError, ValueError):
@@ -305,7 +375,7 @@ def haemoglobin_mua_per_mm_per_um(chromophore, *, wavelength_nm, source: str = D
 
     Parameters
     ----------
-    chromophore : {"hbo2", "hb"}
+    chromophore : {"hbo2", "hb", "methb", "cohb"}
     wavelength_nm : float or array [nm]
     source : str
 

@@ -138,17 +138,19 @@ def test_array_nan_and_band():
 
 
 def test_unknown_names_refused_with_the_list():
-    with pytest.raises(InputError, match="known: hbo2, hb"):
-        haemoglobin_extinction("cohb", wavelength_nm=600)
-    with pytest.raises(InputError, match="known: gratzer-kollias, moaveni, takatani-graham"):
+    with pytest.raises(InputError, match="known: hbo2, hb, methb, cohb"):
+        haemoglobin_extinction("bilirubin", wavelength_nm=600)
+    with pytest.raises(InputError, match="known: gratzer-kollias, moaveni, takatani-graham, zijlstra-2000"):
         haemoglobin_extinction("hb", wavelength_nm=600, source="zijlstra")
 
 
 def test_every_shipped_table_names_its_source_and_basis():
     for key in HAEMOGLOBIN_SOURCES:
         table = extinction_table(key)
-        assert "Prahl" in table.source and "digital copy" in table.source
-        assert table.declared_basis == "tetramer"
+        assert "digital copy" in table.source
+        # Prahl's compilations are per tetramer; Zijlstra et al. print per heme (read times 4).
+        assert table.declared_basis == ("heme" if key == "zijlstra-2000" else "tetramer")
+        assert ("Prahl" in table.source) == (key != "zijlstra-2000")
     assert "tetramer" in EXTINCTION_BASIS and "base 10" in EXTINCTION_BASIS
 
 
@@ -186,15 +188,19 @@ def test_tetramer_basis_against_measured_red_cell_absorption():
     in saline, Hct 8.6 %, SO2 > 98 %): μa = 0.0246 /mm at 700 nm, 0.0641 /mm at 800 nm
     (their table as transcribed in public MATLAB code).  Haemoglobin in those cells:
     Hct × MCHC with MCHC = 330 g/L (# common practice, no source).  A per-heme table read
-    as per tetramer would be 4× too low, the reverse 4× too high; the sources agree with
-    the measurement within 30 % (red-cell packaging and the MCHC assumed explain the rest).
+    as per tetramer would be 4× too low, the reverse 4× too high; the Prahl compilations
+    agree with the measurement within 30 % (red-cell packaging and the MCHC assumed explain
+    the rest).  Zijlstra et al. 2000 print HbO2 at 700 nm 45 % above Gratzer & Kollias (420
+    against 290 per tetramer: the trough of HbO2, where a trace of Hb weighs most), so its
+    band there is 0.75–1.8: still far from a factor of 4.
     """
     hb_g_per_l = 0.086 * 330.0
     thb_um = tetramer_um_from_g_per_l(hb_g_per_l)
     for source in HAEMOGLOBIN_SOURCES:
         for wavelength, measured in ((700.0, 0.0246), (800.0, 0.0641)):
             computed = haemoglobin_mua_per_mm_per_um("hbo2", wavelength_nm=wavelength, source=source) * thb_um
-            assert 0.75 < computed / measured < 1.4, (source, wavelength, computed)
+            upper = 1.8 if (source, wavelength) == ("zijlstra-2000", 700.0) else 1.4
+            assert 0.75 < computed / measured < upper, (source, wavelength, computed)
 
 
 def test_mua_per_um_is_ln10_epsilon():
