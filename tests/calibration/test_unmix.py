@@ -203,7 +203,7 @@ def test_spectrum_from_fit_json():
     "text, message",
     [
         ("hbo2,water", "give both hbo2 and hb"),
-        ("hbo2,hb,blood", "unknown blood; known: hbo2, hb, water, lipid"),
+        ("hbo2,hb,blood", "unknown blood; known: hbo2, hb, methb, cohb, water, lipid \\(a recipe.s absorber stock: phantomlab unmix --recipe\\)"),
         ("hbo2,hb,hb", "each name once"),
     ],
 )

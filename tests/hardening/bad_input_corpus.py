@@ -205,6 +205,22 @@ def cli_argument_cases() -> list[Case]:
     cases.append(Case("cli", "baseline build into a missing folder",
                       ("baseline", "build", f"{WORK}/no/b.npz", "--g", "0.8", "--n", "1.4")))
     cases.append(Case("cli", "baseline build not npz", ("baseline", "build", f"{WORK}/b.txt", "--g", "0.8", "--n", "1.4")))
+    optics = "wavelength_nm,mua_per_mm,musp_per_mm\n" + "".join(
+        f"{w},{0.01 + 1e-5 * (w - 700)},1.0\n" for w in range(650, 960, 10))
+    oximeter = str(RECIPES / "demo-oximeter-blood.toml")
+    many = ",".join(["hbo2", "hb", "water", "lipid", "methb", "cohb"] + [f"s{i}" for i in range(8)])
+    for name, chromophores, extra in [
+        ("a recipe stock that is not an absorber", "hbo2,hb,water,lipid20", ("--recipe", oximeter)),
+        ("the blood stock as a chromophore", "hbo2,hb,water,blood_kb1", ("--recipe", oximeter)),
+        ("an unknown chromophore", "hbo2,hb,bilirubin", ()),
+        ("a stock key without a recipe", "hbo2,hb,ink_black", ()),
+        ("methb from a table without it", "hbo2,hb,methb", ("--source", "moaveni")),
+        ("too many chromophores", many, ()),
+        ("a missing recipe", "hbo2,hb,water", ("--recipe", f"{WORK}/none.toml")),
+        ("a device as recipe", "hbo2,hb,water", ("--recipe", "/dev/zero")),
+    ]:
+        cases.append(Case("cli", f"unmix {name}", ("unmix", f"{WORK}/optics.csv", "--chromophores", chromophores, *extra),
+                          files={"optics.csv": optics}))
     return cases
 
 
