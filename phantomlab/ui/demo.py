@@ -1,9 +1,15 @@
-"""The demo database: an invented lab's shelf and two demo batches (layer 5; demo data, invented).
+"""The demo database: an invented lab's shelf and three demo batches (layer 5; demo data, invented).
 
 On first use the page seeds a database file of its own (never a lab's database, see
 :mod:`phantomlab.ui.workspace`) through the store layer's public API:
 
 * every stock of the demo shelf ``recipes/demo-stocks.toml`` as a stock lot;
+* one oximeter-test batch of ``recipes/demo-oximeter-blood.toml`` (blood in lipid emulsion),
+  planned, "mixed" on the day of the demo deoxygenation series with invented small
+  deviations, and its oxygenation series ``recipes/measurements/demo-oximeter-series.csv``
+  with the blood-gas readings ``demo-oximeter-references.csv`` (synthetic, made by
+  ``make_demo_oxygenation.py``), unmixed and stored as ``phantomlab oxygenation add`` does;
+  seeded first, so it is the oldest batch (its series is dated 2 March 2026);
 * two batches of the demo recipe ``recipes/demo-nir-liquid.toml``, planned, "mixed" with
   invented small deviations from the sheet, and "measured" with a fibre probe: the
   reflectance files are synthetic, made here by the transport layer's diffusion model
@@ -28,13 +34,24 @@ import numpy as np
 from phantomlab.ui.widgets import Outcome
 from phantomlab.ui.workspace import Workspace
 
-__all__ = ["DEMO_RECIPE", "ensure_demo_database", "seed_demo_database", "synthetic_srdr_csv"]
+__all__ = ["DEMO_RECIPE", "DEMO_OXIMETER_RECIPE", "ensure_demo_database", "seed_demo_database",
+           "synthetic_srdr_csv"]
 
 #: The demo recipe both demo batches are planned from.
 DEMO_RECIPE = "demo-nir-liquid.toml"
+#: The demo oximeter-test batch: its recipe, its series and reference readings (beside the
+#: recipes, in ``measurements/``), the day it was mixed and measured (the series' own dates),
+#: the chromophores unmixed (the series was made from haemoglobin and water) and invented
+#: dispensing deviations.
+DEMO_OXIMETER_RECIPE = "demo-oximeter-blood.toml"
+DEMO_OXIMETER_SERIES = "demo-oximeter-series.csv"
+DEMO_OXIMETER_READINGS = "demo-oximeter-references.csv"
+DEMO_OXIMETER_DAY = _dt.date(2026, 3, 2)
+DEMO_OXIMETER_CHROMOPHORES = "hbo2,hb,water"
+DEMO_OXIMETER_DEVIATIONS = {"lipid20": 0.006, "blood_kb1": -0.004}
 #: Invented "true" potencies of the demo lots (what the calibration loop should find).
 DEMO_TRUE_POTENCIES = {"lipid20": 1.06, "ink_black": 0.85, "dye_nir": 1.08}
-#: Invented dispensing deviations (fraction of the planned amount) of the two demo batches.
+#: Invented dispensing deviations (fraction of the planned amount) of the two NIR demo batches.
 DEMO_DEVIATIONS = ({"lipid20": 0.008, "ink_black": -0.015, "dye_nir": 0.005},
                    {"lipid20": -0.004, "ink_black": 0.010, "dye_nir": -0.012})
 #: Invented slow loss of μs′ with phantom age (creaming of the emulsion), per day.
@@ -98,8 +115,36 @@ def synthetic_srdr_csv(*, wavelength_nm, mua_per_mm, musp_per_mm, seed: int, lab
     return "\n".join(lines) + "\n"
 
 
+def _seed_oximeter_batch(store, workspace: Workspace) -> str:
+    """The demo oximeter-test batch with its deoxygenation series (demo data, invented)."""
+    from phantomlab.oxygenation_workflow import record_oxygenation_series  # layer 5
+    from phantomlab.recipe import load_recipe, solve  # layer 3
+    from phantomlab.store import get_batch, set_status  # layer 4
+    from phantomlab.ui.recording import record_dispensed, record_planned_batch
+
+    recipe = load_recipe(workspace.recipes_folder / DEMO_OXIMETER_RECIPE)
+    plan = solve(recipe)
+    code = record_planned_batch(store, plan, operator=DEMO_OPERATOR, notes="demo data, invented: oximeter test",
+                                planned_on=DEMO_OXIMETER_DAY - _dt.timedelta(days=1))
+    amounts = {d.stock: (d.volume_ml * (1.0 + DEMO_OXIMETER_DEVIATIONS.get(d.stock, 0.0)), "mL")
+               for d in plan.doses if d.used}
+    record_dispensed(store, code, amounts, recorded_by=DEMO_OPERATOR, mixed_on=DEMO_OXIMETER_DAY)
+    measurements = workspace.recipes_folder / "measurements"
+    record_oxygenation_series(
+        store, code, name="demo: yeast deoxygenation, 60 min", series_file_name=DEMO_OXIMETER_SERIES,
+        series_content=(measurements / DEMO_OXIMETER_SERIES).read_bytes(),
+        readings_file_name=DEMO_OXIMETER_READINGS,
+        readings_content=(measurements / DEMO_OXIMETER_READINGS).read_bytes(),
+        chromophores=DEMO_OXIMETER_CHROMOPHORES, recorded_by=DEMO_OPERATOR,
+    )
+    with store.transaction() as session:
+        set_status(session, get_batch(session, code), "characterised",
+                   note="demo: oxygenation series measured", recorded_by=DEMO_OPERATOR)
+    return code
+
+
 def seed_demo_database(workspace: Workspace) -> None:
-    """Write the demo shelf and the two demo batches into the workspace's demo database."""
+    """Write the demo shelf and the three demo batches into the workspace's demo database."""
     from phantomlab.materials import load_shelf  # layer 1
     from phantomlab.recipe import load_recipe, predict, solve  # layer 3
     from phantomlab.store import open_store, record_stock_lot, set_status, get_batch  # layer 4
@@ -114,6 +159,7 @@ def seed_demo_database(workspace: Workspace) -> None:
             for stock in shelf.values():
                 record_stock_lot(session, stock, shelf_path=str(workspace.shelf_path),
                                  recorded_by=DEMO_OPERATOR)
+        _seed_oximeter_batch(store, workspace)
         recipe = load_recipe(workspace.recipes_folder / DEMO_RECIPE)
         plan = solve(recipe)
         today = _dt.date.today()
@@ -178,7 +224,7 @@ def ensure_demo_database(workspace: Workspace) -> Outcome:
             return Outcome(value=False)
         first = ("First run: writing" if not exists else
                  "The demo database was made by another phantomlab version: rewriting")
-        with st.spinner(f"{first} the demo shelf and two demo batches into the demo database "
+        with st.spinner(f"{first} the demo shelf and three demo batches into the demo database "
                         "(demo data, invented)…"):
             outcome = call_layer("Seeding the demo database", _seed_into_place, workspace, show=False)
     return outcome if not outcome.ok else Outcome(value=True)

@@ -6,7 +6,7 @@ The page runs either on a lab's own database or on a demo database of its own:
   lab's database (an SQLAlchemy URL).  It never receives demo data.
 * With neither, the page opens the demo database file ``demo-data/phantomlab-demo.sqlite``
   beside ``app.py`` (or the file ``PHANTOMLAB_DEMO_DB`` names) and seeds it on first use with
-  the invented demo shelf and two demo batches (:mod:`phantomlab.ui.demo`).
+  the invented demo shelf and three demo batches (:mod:`phantomlab.ui.demo`).
 
 The stock file (the shelf) comes from ``--shelf FILE`` or ``PHANTOMLAB_SHELF``.  A lab database
 opened without one can be read, fitted and recalibrated, but the design and shelf pages ask

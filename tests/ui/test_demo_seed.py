@@ -44,3 +44,37 @@ def test_a_demo_database_of_another_version_is_seeded_again(seeded_demo_file, tm
     assert _seeded_version(copy) == DEMO_SEED_VERSION
     assert _batches(copy) == _batches(seeded_demo_file)
     assert not list(tmp_path.glob("*.seeding-*"))
+
+
+def test_the_seeded_database_holds_the_oximeter_batch_and_its_series(seeded_demo_file):
+    """Batch -001 is the invented oximeter test (recipes/demo-oximeter-blood.toml) with its demo
+    deoxygenation series and blood-gas readings, unmixed as ``oxygenation add`` does."""
+    import datetime as _dt
+
+    from phantomlab.oxygenation_workflow import oxygenation_of
+    from phantomlab.store import get_batch, list_batches, open_store, recipe_of
+    from phantomlab.ui.demo import DEMO_OXIMETER_DAY
+
+    store = open_store(f"sqlite:///{seeded_demo_file}", create=False)
+    try:
+        with store.reading() as session:
+            batches = list_batches(session)
+            first = get_batch(session, batches[0].code)
+            recipe_name = recipe_of(session, first).name
+            status, mixed_on = first.status, first.mixed_on
+        (series,) = oxygenation_of(store, batches[0].code)
+    finally:
+        store.close()
+    assert len(batches) == 3 and batches[0].code == f"{_dt.date.today().year}-001"
+    assert recipe_name.startswith("demo: oximeter test") and status == "characterised"
+    assert mixed_on == DEMO_OXIMETER_DAY
+    assert series["series_file_name"] == "demo-oximeter-series.csv"
+    assert series["readings_file_name"] == "demo-oximeter-references.csv"
+    assert series["chromophores"] == ["hbo2", "hb", "water"] and series["source"] == "gratzer-kollias"
+    assert len(series["points"]) == 13 and len(series["readings"]) == 7  # every 5 min for an hour; 7 samples
+    # The synthetic series: sO2 from 0.98 down to 0.02 (logistic, 30 min, 7 min), 35 µM, 1 % noise
+    # (make_demo_oxygenation.py); the readings are the truth + 0.01 normal error.
+    so2 = [p["so2"] for p in series["points"]]
+    assert so2[0] > 0.9 and so2[-1] < 0.1 and all(a >= b - 0.03 for a, b in zip(so2, so2[1:]))
+    assert all(abs(p["thb_um"] / 35.0 - 1) < 0.03 for p in series["points"])
+    assert all(c["how"] == "interpolated" and abs(c["difference"]) < 0.03 for c in series["comparison"])

@@ -1,6 +1,6 @@
 """The demo database: seeded once on first run, in a file of its own; a lab's database never.
 
-The rule is issue 7, item 6: `make run` seeds the demo shelf and two demo batches into a
+The rule is issue 7, item 6: `make run` seeds the demo shelf and the demo batches into a
 demo database file of its own; a lab's own database (``--db``, ``PHANTOMLAB_DB``) never
 receives demo data.
 """
@@ -50,7 +50,7 @@ def test_first_run_seeds_the_demo_file_and_the_page_says_it_is_demo_data(clean_e
     assert any("Demo data." in i.value for i in app.info)
     counts = _counts(f"sqlite:///{demo}")
     stocks = tomllib.loads(DEMO_SHELF.read_text(encoding="utf-8"))["stocks"]
-    assert counts["batches"] >= 2  # two batches, each with several versions
+    assert counts["batches"] >= 3  # three batches, each with several versions
     assert counts["measurements"] == 3  # batch 1 measured on day 1 and day 15, batch 2 on day 2
     assert counts["stock_lots"] == len(stocks)
     from phantomlab.store import list_batches, open_store
@@ -58,7 +58,7 @@ def test_first_run_seeds_the_demo_file_and_the_page_says_it_is_demo_data(clean_e
     store = open_store(f"sqlite:///{demo}")
     try:
         with store.reading() as session:
-            assert len(list_batches(session)) == 2
+            assert len(list_batches(session)) == 3
     finally:
         store.close()
 

@@ -89,7 +89,7 @@ def test_saving_gives_a_batch_id_and_the_stored_sheet_carries_it(page, demo_file
     submit[0].click()
     page.run()
     assert not page.exception
-    code = f"{_dt.date.today().year}-003"  # the demo database holds batches -001 and -002
+    code = f"{_dt.date.today().year}-004"  # the demo database holds batches -001 to -003
     assert any(code in s.value for s in page.success), shown_text(page)
     store = open_store(f"sqlite:///{demo_file}")
     try:
@@ -194,7 +194,7 @@ def _recipe_row_of(demo_file, code):
 
 def test_an_unchanged_recipe_file_is_recorded_as_that_file(page, demo_file):
     _save(page)
-    content_hash, version, source = _recipe_row_of(demo_file, f"{_dt.date.today().year}-003")
+    content_hash, version, source = _recipe_row_of(demo_file, f"{_dt.date.today().year}-004")
     expected = load_recipe(DEMO_RECIPE)
     assert content_hash == expected.content_hash  # the same recipe as `phantomlab plan` reads
     assert version == expected.version and source == str(DEMO_RECIPE)
@@ -203,7 +203,7 @@ def test_an_unchanged_recipe_file_is_recorded_as_that_file(page, demo_file):
 def test_an_edited_recipe_is_recorded_as_an_edited_version_in_a_file_of_its_own(page, demo_file):
     page.text_input(key="design.size").set_value("250 mL").run()
     _save(page)
-    content_hash, version, source = _recipe_row_of(demo_file, f"{_dt.date.today().year}-003")
+    content_hash, version, source = _recipe_row_of(demo_file, f"{_dt.date.today().year}-004")
     assert content_hash != load_recipe(DEMO_RECIPE).content_hash
     assert version.endswith("edited on the page")
     written = load_recipe(source)  # the command line can read it
@@ -263,9 +263,9 @@ def test_switching_recipes_does_not_bring_back_the_old_table(page):
 
 def test_after_saving_a_changed_field_drops_the_saved_batch_downloads(page):
     _save(page)
-    code = f"{_dt.date.today().year}-003"
+    code = f"{_dt.date.today().year}-004"
     labels = [b.proto.label for b in page.get("download_button")]
     assert f"Download the sheet of batch {code} (HTML)" in labels
     page.text_input(key="design.size").set_value("300 mL").run()
     labels = [b.proto.label for b in page.get("download_button")]
-    assert not any(code in label for label in labels)  # the sheet of 2026-003 is not the plan shown now
+    assert not any(code in label for label in labels)  # the sheet of 2026-004 is not the plan shown now

@@ -18,7 +18,7 @@ YEAR = _dt.date.today().year
 
 @pytest.fixture
 def recorded(demo_file):
-    """The demo oxygenation series recorded with the first demo batch, as the page's form does."""
+    """The demo oxygenation series recorded with the first NIR demo batch, as the page's form does."""
     import warnings
 
     from phantomlab.errors import PhantomlabWarning
@@ -26,7 +26,7 @@ def recorded(demo_file):
     from phantomlab.store import open_store
 
     store = open_store(f"sqlite:///{demo_file}")
-    code = f"{YEAR}-001"
+    code = f"{YEAR}-002"
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", PhantomlabWarning)
@@ -75,3 +75,15 @@ def test_no_series_yet(page, go_to):
     assert not app.exception
     assert any("No oxygenation series recorded for this batch yet" in c.value for c in app.caption)
     assert any(b.proto.label == "Unmix and record" for b in app.get("button"))
+
+
+def test_the_demo_oximeter_batch_shows_its_series_on_a_fresh_start(page, go_to):
+    """Batch -001 of a freshly seeded demo database is the oximeter test with its series."""
+    app = go_to(page, "Batch log")
+    app.selectbox(key="batches.open").set_value(f"{YEAR}-001").run()
+    assert not app.exception, [e.message for e in app.exception]
+    titles = [json.loads(c.proto.spec)["layout"]["title"]["text"] for c in app.get("plotly_chart")]
+    assert "Fitted vs reference sO₂ over time" in titles and "Total haemoglobin over time" in titles
+    tables = [f.value for f in app.dataframe if "reference sO₂ [%]" in f.value.columns]
+    assert tables and len(tables[0]) == 7  # the seven demo blood-gas readings
+    assert not any("No oxygenation series recorded for this batch yet" in c.value for c in app.caption)

@@ -82,7 +82,7 @@ def test_fit_of_a_stored_measurement_shows_data_model_residuals_and_target(refit
     from phantomlab.calibration import fit_measurement_file
     from phantomlab.store import get_measurement, open_store
 
-    assert refit.selectbox(key="refit.measurement").value.startswith(f"batch {YEAR}-002")  # the newest
+    assert refit.selectbox(key="refit.measurement").value.startswith(f"batch {YEAR}-003")  # the newest
     titles = _titles(refit)
     for title in ("Data and fitted model", "Normalised residuals", "Fitted μa against target",
                   "Fitted μs′ against target"):
@@ -242,7 +242,7 @@ def test_corrected_plan_compares_with_the_batch_and_can_be_saved(refit, demo_fil
     assert ink["change [%]"] > 0
     refit.button(key="correct.save").click().run()
     assert not refit.exception
-    assert any(f"{YEAR}-003" in s.value for s in refit.success)
+    assert any(f"{YEAR}-004" in s.value for s in refit.success)
 
 
 def test_top_up_of_a_liquid_batch_lists_what_to_add(refit):
