@@ -169,7 +169,7 @@ def test_the_preview_records_nothing_until_confirmed(refit, demo_file):
 def test_exclude_with_a_reason_then_take_back_shows_in_the_batch_history(refit, demo_file, go_to):
     from phantomlab.store import exclusion_history, open_store
 
-    refit.selectbox(key="calibrate.exclude_batch").set_value(f"{YEAR}-001")
+    refit.selectbox(key="calibrate.exclude_batch").set_value(f"{YEAR}-002")  # the first NIR batch
     refit.text_input(key="calibrate.exclude_reason").input("demo: weighed on the wrong balance")
     refit.button(key="calibrate.exclude").click().run()
     assert not refit.exception
@@ -197,7 +197,7 @@ def test_exclude_with_a_reason_then_take_back_shows_in_the_batch_history(refit, 
 def test_rollback_makes_the_earlier_state_current_again(refit, demo_file):
     _recalibrate(refit)
     first = _stored(demo_file)
-    refit.selectbox(key="calibrate.exclude_batch").set_value(f"{YEAR}-001")
+    refit.selectbox(key="calibrate.exclude_batch").set_value(f"{YEAR}-002")  # the first NIR batch
     refit.text_input(key="calibrate.exclude_reason").input("demo: try without it")
     refit.button(key="calibrate.exclude").click().run()
     _recalibrate(refit)
