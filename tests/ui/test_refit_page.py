@@ -182,13 +182,13 @@ def test_exclude_with_a_reason_then_take_back_shows_in_the_batch_history(refit, 
     store = open_store(f"sqlite:///{demo_file}")
     try:
         with store.reading() as session:
-            steps = exclusion_history(session, f"{YEAR}-001")
+            steps = exclusion_history(session, f"{YEAR}-002")
     finally:
         store.close()
     assert [s["event"] for s in steps] == ["excluded from calibration", "included in calibration again"]
     assert steps[0]["reason"] == "demo: weighed on the wrong balance"
     batches = go_to(refit, "Batch log")
-    batches.selectbox(key="batches.open").set_value(f"{YEAR}-001").run()
+    batches.selectbox(key="batches.open").set_value(f"{YEAR}-002").run()
     assert any("excluded from calibration" in str(f.value.values) for f in batches.dataframe
                if "event" in f.value.columns)
     assert table is not None
