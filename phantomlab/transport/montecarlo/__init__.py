@@ -4,7 +4,12 @@ See :mod:`phantomlab.transport.montecarlo.simulate` (the engine's front end) and
 :mod:`phantomlab.transport.montecarlo.baseline` (one run, then R(ρ) for other μa and μs).
 """
 
-from phantomlab.transport.montecarlo.baseline import Baseline, build_baseline, load_baseline
+from phantomlab.transport.montecarlo.baseline import (
+    Baseline,
+    build_baseline,
+    load_baseline,
+    load_baseline_inputs,
+)
 from phantomlab.transport.montecarlo.simulate import (
     MonteCarloResult,
     rho_bin_edges_mm,
@@ -19,6 +24,7 @@ __all__ = [
     "MonteCarloResult",
     "build_baseline",
     "load_baseline",
+    "load_baseline_inputs",
     "rho_bin_edges_mm",
     "simulate",
     "specular_reflectance",

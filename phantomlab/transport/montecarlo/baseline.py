@@ -44,6 +44,7 @@ import math
 import os
 import tempfile
 import time
+import zipfile
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -71,7 +72,7 @@ from phantomlab.transport.montecarlo.simulate import (
     warm_up,
 )
 
-__all__ = ["Baseline", "build_baseline", "load_baseline", "BASELINE_FORMAT"]
+__all__ = ["Baseline", "build_baseline", "load_baseline", "load_baseline_inputs", "BASELINE_FORMAT"]
 
 #: Tag and version written into every saved baseline (checked on load).
 BASELINE_FORMAT = "phantomlab-mc-baseline"
@@ -447,6 +448,7 @@ def build_baseline(
     seed=0,
     threads=None,
     batches=DEFAULT_BATCHES,
+    progress=None,
 ) -> Baseline:
     """Run the analog Monte Carlo once in a semi-infinite medium and keep every exit.
 
@@ -470,6 +472,12 @@ def build_baseline(
         Threads (None: every core).
     batches : int
         Independent random streams.
+    progress : callable, optional
+        Called as ``progress(done, total)`` [photons] after every group of ``threads``
+        batches (the batches run in groups so that the caller hears of progress and can stop
+        the run: an exception raised by ``progress``, or a KeyboardInterrupt, ends the build
+        between two groups and nothing is returned).  Running in groups does not change the
+        numbers: a batch depends on (seed, batch index) only.
 
     Returns
     -------
@@ -495,20 +503,29 @@ def build_baseline(
     tallies = np.zeros((batches, len(_kernels.TALLY_NAMES)))
     launch_weight = 1.0 - specular_reflectance(n=inputs["n"], n_outside=inputs["n_outside"])
     warm_up()
-    with KERNEL_LOCK:
-        previous = numba.get_num_threads()
-        numba.set_num_threads(threads)
-        try:
-            start = time.perf_counter()
-            _kernels.run_3d(
-                counts, states, inputs["mua_per_mm"], inputs["mus_per_mm"], inputs["g"],
-                inputs["n"], inputs["n_outside"], 0.0, inputs["n_outside"], 0.0, math.inf, True,
-                launch_weight, 0.0, 1.0, np.zeros(0), tallies, np.zeros((batches, 1)), True,
-                rec_rho, rec_path, rec_nscat, rec_count,
-            )
-            seconds = time.perf_counter() - start
-        finally:
-            numba.set_num_threads(previous)
+    rho_weights = np.zeros((batches, 1))
+    total = int(counts.sum())
+    if progress is not None:
+        progress(0, total)
+    seconds = 0.0
+    for first in range(0, batches, threads):
+        group = slice(first, min(first + threads, batches))
+        with KERNEL_LOCK:
+            previous = numba.get_num_threads()
+            numba.set_num_threads(threads)
+            try:
+                start = time.perf_counter()
+                _kernels.run_3d(
+                    counts[group], states[group], inputs["mua_per_mm"], inputs["mus_per_mm"], inputs["g"],
+                    inputs["n"], inputs["n_outside"], 0.0, inputs["n_outside"], 0.0, math.inf, True,
+                    launch_weight, 0.0, 1.0, np.zeros(0), tallies[group], rho_weights[group], True,
+                    rec_rho[group], rec_path[group], rec_nscat[group], rec_count[group],
+                )
+                seconds += time.perf_counter() - start
+            finally:
+                numba.set_num_threads(previous)
+        if progress is not None:
+            progress(int(counts[: group.stop].sum()), total)
     pieces = [slice(0, int(c)) for c in rec_count]
     return Baseline(
         exit_radius_mm=np.concatenate([rec_rho[b, s] for b, s in enumerate(pieces)]),
@@ -517,6 +534,46 @@ def build_baseline(
         seconds=seconds,
         **inputs,
     )
+
+
+def _inputs_from_record(source: Path, record) -> dict:
+    """The checked inputs of a baseline file's ``inputs_json`` record (format tag and version first)."""
+    try:
+        header = json.loads(str(record))
+    except (TypeError, ValueError):
+        raise InputError(f"{str(source)!r}: the inputs record is not valid JSON") from None
+    if not isinstance(header, dict) or header.get("format") != BASELINE_FORMAT:
+        raise InputError(f"{str(source)!r} is not a phantomlab baseline (format tag missing)")
+    if header.get("version") != BASELINE_VERSION:
+        raise InputError(
+            f"{str(source)!r}: baseline format version {header.get('version')!r}, "
+            f"this phantomlab reads version {BASELINE_VERSION}"
+        )
+    absent = [key for key in _INPUT_KEYS if key not in header]
+    if absent:
+        raise InputError(f"{str(source)!r}: the inputs record lacks {', '.join(absent)}")
+    return _check_inputs({key: header[key] for key in _INPUT_KEYS})
+
+
+def load_baseline_inputs(path) -> dict:
+    """The inputs record of a baseline file (g, n, n_outside, photons, ...), without its photons.
+
+    Raises
+    ------
+    InputError
+        As :func:`load_baseline` for a missing, unreadable or foreign file, or another version.
+    """
+    source = Path(path)
+    if not source.is_file():
+        raise InputError(f"baseline file {str(source)!r} does not exist")
+    try:
+        with np.load(source, allow_pickle=False) as data:
+            if "inputs_json" not in data.files:
+                raise InputError(f"{str(source)!r} is not a phantomlab baseline: missing inputs_json")
+            record = data["inputs_json"]
+    except (OSError, ValueError, EOFError, TypeError, zipfile.BadZipFile) as exc:  # TypeError: a bare .npy
+        raise InputError(f"{str(source)!r} is not a readable .npz baseline ({type(exc).__name__})") from None
+    return _inputs_from_record(source, record)
 
 
 def load_baseline(path) -> Baseline:
@@ -552,21 +609,7 @@ def load_baseline(path) -> Baseline:
     missing = [key for key in ("inputs_json", *_ARRAYS) if key not in contents]
     if missing:
         raise InputError(f"{str(source)!r} is not a phantomlab baseline: missing {', '.join(missing)}")
-    try:
-        header = json.loads(str(contents["inputs_json"]))
-    except (TypeError, ValueError):
-        raise InputError(f"{str(source)!r}: the inputs record is not valid JSON") from None
-    if not isinstance(header, dict) or header.get("format") != BASELINE_FORMAT:
-        raise InputError(f"{str(source)!r} is not a phantomlab baseline (format tag missing)")
-    if header.get("version") != BASELINE_VERSION:
-        raise InputError(
-            f"{str(source)!r}: baseline format version {header.get('version')!r}, "
-            f"this phantomlab reads version {BASELINE_VERSION}"
-        )
-    absent = [key for key in _INPUT_KEYS if key not in header]
-    if absent:
-        raise InputError(f"{str(source)!r}: the inputs record lacks {', '.join(absent)}")
-    inputs = _check_inputs({key: header[key] for key in _INPUT_KEYS})
+    inputs = _inputs_from_record(source, contents["inputs_json"])
     arrays = {}
     for name, dtype in _ARRAYS.items():
         values = contents[name]
