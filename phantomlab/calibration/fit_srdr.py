@@ -76,6 +76,9 @@ def smooth_lookup(baseline):
 
     from phantomlab.calibration.mc_lookup import SmoothLookup
 
+    tabulated = getattr(baseline, "lookup", None)
+    if isinstance(tabulated, SmoothLookup):  # a TabulatedBaseline carries its own
+        return tabulated
     entry = _LOOKUPS.get(id(baseline))
     if entry is not None and entry[0]() is baseline:
         return entry[1]
@@ -151,6 +154,7 @@ def srdr_forward(*, model: str, rho_mm, n: float, n_outside: float = 1.0, baseli
             return forward(mua, musp) * lookup.annuli_relative_sd(mua_per_mm=mua, mus_per_mm=mus, edges_mm=edges)
 
         forward.lookup = lookup
+        forward.edges_mm = edges
         forward.rho_max_mm = float(edges[-1])
         forward.model_sd = model_sd
         return forward
@@ -231,15 +235,12 @@ def fit_srdr(
     design = [m for m in design if m.startswith("too few")]
     result, correlation = fit_spectrum(forward, **kwargs)
     messages = list(design)
-    if model == "mc" and measurement.sd is not None:
-        # the lookup's own photon noise is an uncertainty of the model: add it to the data's
-        # SDs (at the first solution) and fit again from there
-        model_sd = forward.model_sd(result.mua_per_mm, result.musp_per_mm)
-        if relative and result.scale_factor is not None:
-            model_sd = model_sd * result.scale_factor[:, None]
-        kwargs["sd"] = np.sqrt(measurement.sd**2 + model_sd**2)
-        result, correlation = fit_spectrum(forward, start=(result.mua_per_mm, result.musp_per_mm), **kwargs)
     final_mask = None
+    if model == "mc":
+        result, correlation, final_mask, reach_messages = _fit_within_lookup_reach(
+            forward, result, correlation, measurement, kwargs)
+        messages += reach_messages
+    kept_near = np.zeros(measurement.wavelength_nm.shape, bool)
     if model != "mc" and min_transport_mfp > 0:
         finite = np.isfinite(measurement.values)
         used = finite  # the distances of the fit just made
@@ -299,6 +300,76 @@ def fit_srdr(
         musp_per_mm=result.musp_per_mm, mua_sd_per_mm=result.mua_sd_per_mm,
         musp_sd_per_mm=result.musp_sd_per_mm, correlation=correlation)
     return _finish(result, measurement, messages)
+
+
+#: Passes of the Monte Carlo fit's "keep the distances the lookup serves, add its noise to
+#: the SDs and refit" step at most (the served set follows the fitted optics).
+_REACH_PASSES = 3
+
+
+def _fit_within_lookup_reach(forward, result, correlation, measurement: Measurement, kwargs: dict):
+    """Refit a Monte Carlo lookup fit on the distances its baseline serves, its noise in the SDs.
+
+    The first fit (all distances) gives the optics; at those, the distances the lookup
+    cannot serve (beyond the baseline's photons and its far-field continuation,
+    :meth:`~phantomlab.calibration.mc_lookup.SmoothLookup.served`) are left out — never
+    fitted by extrapolation — and named in one line; the lookup's own photon noise is added
+    to the data's SDs; the fit runs again from there, until the served set settles.
+
+    Returns
+    -------
+    (FitResult, correlation, mask or None, messages)
+        ``mask`` (W, R) marks the distances used (None: all).
+
+    Raises
+    ------
+    InputError
+        A wavelength keeps fewer than 3 (relative data: 4) distances.
+    """
+    relative = measurement.scale == "relative"
+    rho = measurement.axis
+    finite = np.isfinite(measurement.values)
+    lookup = forward.lookup
+    used = None
+    mask = None
+    edges = forward.edges_mm
+    for _ in range(_REACH_PASSES):
+        mus = result.musp_per_mm / (1.0 - lookup.g)
+        mua = np.maximum(result.mua_per_mm, baseline_absorption_floor(lookup.baseline) * mus)
+        served = lookup.served(mua_per_mm=mua, mus_per_mm=mus, rho_mm=np.broadcast_to(edges[1:], (mua.size, rho.size)))
+        wanted = finite & served
+        if used is not None and np.array_equal(wanted, used):
+            break
+        used, mask = wanted, (None if np.array_equal(wanted, finite) else wanted)
+        if mask is None and measurement.sd is None:
+            break  # nothing to leave out, no SDs to add the lookup's noise to
+        fewest = 4 if relative else 3
+        short = used.sum(axis=1) < fewest
+        if np.any(short):
+            raise InputError(
+                f"the Monte Carlo baseline serves fewer than {fewest} of the distances at "
+                f"{_bands(measurement.wavelength_nm, short)} (the lookup's photons reach "
+                f"{float(np.min(lookup.served_limit_mm(mua_per_mm=mua[short], mus_per_mm=mus[short]))):.3g} mm at "
+                f"the fitted optics); measure nearer the source or build a baseline with more photons")
+        if measurement.sd is not None:
+            # the lookup's own photon noise is an uncertainty of the model: add it to the data's SDs
+            model_sd = forward.model_sd(result.mua_per_mm, result.musp_per_mm)
+            if relative and result.scale_factor is not None:
+                model_sd = model_sd * result.scale_factor[:, None]
+            kwargs["sd"] = np.sqrt(measurement.sd**2 + model_sd**2)
+        result, correlation = fit_spectrum(forward, start=(result.mua_per_mm, result.musp_per_mm), mask=mask,
+                                           **kwargs)
+    messages = []
+    refused = finite & ~used
+    if np.any(refused):
+        distances = ", ".join(f"{r:.3g}" for r in rho[refused.any(axis=0)])
+        messages.append(
+            f"Monte Carlo lookup: left out rho = {distances} mm at {_bands(measurement.wavelength_nm, refused.any(axis=1))} "
+            f"(beyond what the baseline's photons serve at the fitted optics, "
+            f"{float(np.min(lookup.served_limit_mm(mua_per_mm=mua, mus_per_mm=mus))):.3g} mm at the nearest); "
+            f"they are not fitted by extrapolation")
+    forward.rho_max_mm = float(np.max(np.where(used, edges[None, 1:], 0.0)))
+    return result, correlation, mask, messages
 
 
 def flux_only_mismatch_warnings(*, n: float, n_outside: float) -> list[str]:

@@ -38,20 +38,36 @@ Gauss–Legendre quadrature of the smooth point values.
 
 from __future__ import annotations
 
+import json
+import os
+import tempfile
 import warnings
+import zipfile
+from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 from scipy.interpolate import RectBivariateSpline
 
 from phantomlab.errors import InputError, PhantomlabWarning
 
-__all__ = ["SmoothLookup"]
+__all__ = ["SmoothLookup", "TabulatedBaseline", "LOOKUP_VERSION"]
+
+#: Tag and version of a saved lookup table (a table of another version is made again from
+#: its baseline; raise the version whenever the table's construction changes).
+LOOKUP_FORMAT = "phantomlab-mc-lookup"
+LOOKUP_VERSION = 1
+_SOURCE_KEYS = ("g", "n", "n_outside", "mua_per_mm", "mus_per_mm", "photons", "detected", "seed")
 
 #: Radial grid of the table, in reference scattering lengths u·μs_ref (log spaced, annuli
-#: about 10 % wide): out to 250 scattering lengths, i.e. 50 transport lengths at g = 0.8 — a
-#: probe reaching 40 mm at μs′ = 1 /mm (what μs′/μa = 1000 needs to pin μa).
-_U_RANGE_MFP = (0.02, 250.0)
-_U_NODES = 97
+#: about 10 % wide, ``_U_STEP`` apart in log u): from 0.02 scattering lengths out to
+#: ``TABLE_TRANSPORT_LENGTHS`` transport lengths (but at least 250 scattering lengths), or
+#: the farthest stored photon if nearer.  200 transport lengths cover a probe reaching
+#: 20 mm at μs′ = 10 /mm, and the sfdi transform (fit_sfdi) integrates that far.
+_U_START_MFP = 0.02
+_U_STEP = float(np.log(250.0 / 0.02) / 96)
+TABLE_TRANSPORT_LENGTHS = 200.0
+_U_MIN_TOP_MFP = 250.0
 #: Absorption-ratio grid μa/μs of the table (log spaced), from the baseline's lowest ratio.
 _RATIO_MAX = 1.0
 _RATIO_NODES = 45
@@ -63,6 +79,17 @@ _QUADRATURE = 6
 _MIN_SMOOTHED_NODES = 8
 #: Relative SD the smoothing brings each table node down to (where its photons do not).
 _TARGET_RELATIVE_SD = 0.003
+#: Widest smoothing kernel (Gaussian SD in log u): a factor 1.5 in distance.  Beyond the
+#: photons, the kernel of a node reaches back to the nearest well-counted nodes; wider
+#: kernels would mix in the region near the source, where the far-field form does not hold.
+_MAX_KERNEL_WIDTH = float(np.log(1.5))
+#: A distance is served by the lookup where the smoothed table's relative SD there is at
+#: most this (the lookup's own noise, added to the data's SDs in the fit) ...
+SERVED_MAX_RELATIVE_SD = 0.02
+#: ... and it lies at most this factor beyond the farthest node counted to better than
+#: ``_COUNTED_RELATIVE_SD`` (the far-field continuation is not carried further than that).
+SERVED_MAX_EXTENSION = 2.0
+_COUNTED_RELATIVE_SD = 0.2
 
 
 def _control_log_reflectance(baseline, mua_per_mm, rho_mm) -> np.ndarray:
@@ -80,20 +107,32 @@ def _control_log_reflectance(baseline, mua_per_mm, rho_mm) -> np.ndarray:
         return np.where(np.isfinite(control) & (control > 0), np.log(control), np.nan)
 
 
-def _smooth_rows(log_table, positive, relative_sd, log_u, log_control, *, log_u_start) -> np.ndarray:
+def _smooth_rows(log_table, positive, relative_sd, log_u, log_control, *, log_u_start):
     """Each row of ``log_table`` smoothed over ``log_u`` as a ratio to ``log_control``.
 
     A local-linear kernel regression (Cleveland 1979, J Am Stat Assoc 74:829) of
-    y = log R − log R_control with weights 1/SD² and a Gaussian kernel whose width at each
-    node grows with that node's noise: about as many neighbours as bring its relative SD
-    down to :data:`_TARGET_RELATIVE_SD`, and none where the photons already give that (near
-    the source).  Only nodes from ``log_u_start`` out are smoothed (within about one
-    transport length of the source the ratio to diffusion changes too fast to smooth, and
-    the photons there are plentiful); half a transport length further in takes part in the
-    regression.  Only nodes holding photons with a relative SD below 0.5 take part; the
-    others, and rows with too few such nodes, keep their counted values.
+    y = log R − log R_control with weights 1/SD² and a Gaussian kernel (in log u) whose width
+    at each node grows with that node's noise: about as many neighbours as bring its relative
+    SD down to :data:`_TARGET_RELATIVE_SD`, none where the photons already give that (near the
+    source), and at most :data:`_MAX_KERNEL_WIDTH`.  The local line is in u, not log u: far
+    from the source the Monte Carlo R(ρ) and the diffusion control both fall as
+    exp(−κρ)/ρ² with slightly different decay constants κ (the transport equation's
+    asymptotic one against √(3 μa μt′)), so their log ratio tends to a straight line in ρ;
+    where the photons thin out, the kernel reaches back to the well-counted nodes and the
+    line continues that far-field form instead of the noise (the far-field join).  Only nodes
+    from ``log_u_start`` out are smoothed (within about one transport length of the source
+    the ratio changes too fast, and the photons there are plentiful); half a transport length
+    further in takes part in the regression.  Nodes holding photons with a relative SD below
+    0.5 take part; every node from ``log_u_start`` out gets an estimate.
+
+    Returns
+    -------
+    (ndarray, ndarray)
+        The smoothed log table, and the relative SD of each value (the linear smoother's
+        variance Σ lᵢ² σᵢ²; the counted SD where a node was kept as counted).
     """
     out = log_table.copy()
+    out_sd = relative_sd.copy()
     step = float(log_u[1] - log_u[0])
     for row in range(log_table.shape[0]):
         use = (positive[row] & np.isfinite(log_control[row]) & (relative_sd[row] < 0.5)
@@ -103,19 +142,23 @@ def _smooth_rows(log_table, positive, relative_sd, log_u, log_control, *, log_u_
         x = log_u[use]
         y = log_table[row, use] - log_control[row, use]
         sd = np.clip(relative_sd[row, use], 1e-4, None)
+        node_sd = np.clip(relative_sd[row], 1e-4, None)
         # neighbours needed n = (sd/target)²; a Gaussian of width σ spans 2√π σ/step nodes
-        wanted = np.maximum((sd / _TARGET_RELATIVE_SD) ** 2, 1.0)
-        width = np.maximum(step * wanted / (2.0 * np.sqrt(np.pi)), 1e-3 * step)
-        smoothed = y.copy()
-        for j in np.where((wanted > 1.0) & (x >= log_u_start))[0]:
-            d = x - x[j]
-            w = np.exp(-0.5 * (d / width[j]) ** 2) / sd**2
+        wanted = np.maximum((node_sd / _TARGET_RELATIVE_SD) ** 2, 1.0)
+        width = np.clip(step * wanted / (2.0 * np.sqrt(np.pi)), 1e-3 * step, _MAX_KERNEL_WIDTH)
+        targets = np.where((log_u >= log_u_start) & np.isfinite(log_control[row])
+                           & ((wanted > 1.0) | ~positive[row]))[0]
+        for j in targets:
+            d = np.expm1(x - log_u[j])  # (u − u_j)/u_j: the local line is in u
+            w = np.exp(-0.5 * ((x - log_u[j]) / width[j]) ** 2) / sd**2
             s0, s1, s2 = w.sum(), (w * d).sum(), (w * d * d).sum()
-            t0, t1 = (w * y).sum(), (w * d * y).sum()
+            if s0 <= 0.0 or not np.isfinite(s0):
+                continue
             det = s0 * s2 - s1 * s1
-            smoothed[j] = (s2 * t0 - s1 * t1) / det if det > 1e-12 * s0 * s2 else t0 / s0
-        out[row, use] = log_control[row, use] + smoothed
-    return out
+            weights = w * (s2 - s1 * d) / det if det > 1e-12 * s0 * s2 else w / s0
+            out[row, j] = log_control[row, j] + float(weights @ y)
+            out_sd[row, j] = float(np.sqrt(np.sum(weights**2 * sd**2)))
+    return out, out_sd
 
 
 class SmoothLookup:
@@ -129,6 +172,8 @@ class SmoothLookup:
     ----------
     g : float
         The baseline's anisotropy.
+    u_top : float [mm]
+        The table's farthest node in reference units (``ρ μs/μs_ref``).
     """
 
     def __init__(self, baseline):
@@ -136,19 +181,25 @@ class SmoothLookup:
         self.g = float(baseline.g)
         self.mus_ref = float(baseline.mus_per_mm)
         self.ratio_min = float(baseline.mua_per_mm) / self.mus_ref
-        u = np.geomspace(_U_RANGE_MFP[0], _U_RANGE_MFP[1], _U_NODES) / self.mus_ref
-        step = np.log(u[1] / u[0])
+        transport_length = 1.0 / (self.mus_ref * (1.0 - self.g))
+        largest = float(np.max(baseline.exit_radius_mm)) if baseline.detected else 0.0
+        bottom = _U_START_MFP / self.mus_ref
+        top = max(_U_MIN_TOP_MFP / self.mus_ref, TABLE_TRANSPORT_LENGTHS * transport_length)
+        top = max(min(top, largest), bottom * np.exp(10 * _U_STEP))
+        nodes = int(np.ceil(np.log(top / bottom) / _U_STEP)) + 1
+        u = bottom * np.exp(_U_STEP * np.arange(nodes))
+        step = _U_STEP
         ratio = np.geomspace(self.ratio_min * (1 + 1e-6), _RATIO_MAX, _RATIO_NODES)
+        half = float(np.tanh(step / 2))
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", PhantomlabWarning)
             table = np.asarray(baseline.srdr(mua_per_mm=ratio * self.mus_ref, mus_per_mm=np.full(ratio.size, self.mus_ref),
-                                             rho_mm=u, relative_halfwidth=float(np.tanh(step / 2))), float)
+                                             rho_mm=u, relative_halfwidth=half), float)
             _, table_sd = baseline.srdr_with_sd(mua_per_mm=ratio * self.mus_ref,
                                                 mus_per_mm=np.full(ratio.size, self.mus_ref), rho_mm=u,
-                                                relative_halfwidth=float(np.tanh(step / 2)))
-        self.table_relative_width = 2.0 * float(np.tanh(step / 2))
-        largest = float(np.max(baseline.exit_radius_mm)) if baseline.detected else 0.0
-        self.u_max = min(u[-1], largest)
+                                                relative_halfwidth=half)
+        self.table_relative_width = 2.0 * half
+        self.u_top = float(u[-1])
         positive = table > 0
         floor = np.min(table[positive]) if np.any(positive) else 1e-300
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -157,25 +208,106 @@ class SmoothLookup:
             log_table = np.log(np.where(positive, table, floor * 1e-3))
         self.log_u = np.log(u)
         self.log_ratio = np.log(ratio)
-        transport_length = 1.0 / (self.mus_ref * (1.0 - self.g))
         control = _control_log_reflectance(baseline, ratio * self.mus_ref, u)
-        half = float(np.tanh(step / 2))
-        nodes, weights = np.polynomial.legendre.leggauss(8)
-        rho = u[:, None] * (1.0 + half * nodes[None, :])  # (U, Q) inside each table annulus
-        area_weights = weights[None, :] * rho / (2.0 * u[:, None])  # ∫ f ρ dρ / ∫ ρ dρ over the annulus
+        nodes_q, weights_q = np.polynomial.legendre.leggauss(8)
+        rho = u[:, None] * (1.0 + half * nodes_q[None, :])  # (U, Q) inside each table annulus
+        area_weights = weights_q[None, :] * rho / (2.0 * u[:, None])  # ∫ f ρ dρ / ∫ ρ dρ over the annulus
         inside = _control_log_reflectance(baseline, ratio * self.mus_ref, rho.ravel()).reshape(ratio.size, *rho.shape)
-        averaged = np.log(np.einsum("ruq,uq->ru", np.exp(inside), area_weights))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            averaged = np.log(np.einsum("ruq,uq->ru", np.exp(inside), area_weights))
         beyond = self.log_u >= np.log(transport_length)
         bias = np.where(beyond[None, :] & np.isfinite(averaged - control), averaged - control, 0.0)
         log_table = log_table - np.where(positive, bias, 0.0)
-        log_table = _smooth_rows(log_table, positive, relative_sd, self.log_u, control,
-                                 log_u_start=float(np.log(transport_length)))
-        self._spline = RectBivariateSpline(self.log_ratio, self.log_u, log_table, kx=3, ky=3)
-        self._sd_spline = RectBivariateSpline(self.log_ratio, self.log_u, np.log(np.clip(relative_sd, 1e-6, 1.0)),
-                                              kx=1, ky=1)
+        log_table, smooth_sd = _smooth_rows(log_table, positive, relative_sd, self.log_u, control,
+                                            log_u_start=float(np.log(transport_length)))
+        self.log_u_limit = self._served_limits(positive, relative_sd, smooth_sd, transport_length)
+        self.table_log = log_table
+        self.table_counted_sd = relative_sd
+        self.table_smoothed_sd = smooth_sd
+        self.log_transport_length = float(np.log(transport_length))
+        self._splines()
 
-    def point(self, *, mua_per_mm, mus_per_mm, rho_mm) -> np.ndarray:
-        """Point values R(ρ) [1/mm²], shape (N, G) for coefficients (N,) and distances (N, G) or (G,)."""
+    def _splines(self) -> None:
+        self._spline = RectBivariateSpline(self.log_ratio, self.log_u, self.table_log, kx=3, ky=3)
+        self._sd_spline = RectBivariateSpline(self.log_ratio, self.log_u,
+                                              np.log(np.clip(self.table_counted_sd, 1e-6, 1.0)), kx=1, ky=1)
+        self._smooth_sd_spline = RectBivariateSpline(self.log_ratio, self.log_u,
+                                                     np.log(np.clip(self.table_smoothed_sd, 1e-6, 1.0)), kx=1, ky=1)
+
+    # ---------------------------------------------------------------- persistence
+    _ARRAYS = ("log_ratio", "log_u", "table_log", "table_counted_sd", "table_smoothed_sd", "log_u_limit")
+    _SCALARS = ("g", "mus_ref", "ratio_min", "table_relative_width", "u_top", "log_transport_length")
+
+    def save(self, path) -> Path:
+        """Write the table (with the baseline's inputs) as ``.npz``, through a temporary file renamed into place."""
+        source = self.baseline
+        header = {"format": LOOKUP_FORMAT, "version": LOOKUP_VERSION,
+                  **{key: getattr(self, key) for key in self._SCALARS},
+                  "baseline": {key: (int(getattr(source, key)) if key in ("photons", "detected", "seed")
+                                     else float(getattr(source, key))) for key in _SOURCE_KEYS}}
+        destination = Path(path)
+        handle, temporary = tempfile.mkstemp(prefix=f".{destination.name}.", suffix=".part", dir=destination.parent)
+        try:
+            with os.fdopen(handle, "wb") as stream:
+                np.savez_compressed(stream, header_json=np.array(json.dumps(header)),
+                                    **{key: getattr(self, key) for key in self._ARRAYS})
+            os.replace(temporary, destination)
+        except BaseException:
+            Path(temporary).unlink(missing_ok=True)
+            raise
+        return destination
+
+    @classmethod
+    def load(cls, path) -> "TabulatedBaseline":
+        """Read a table written by :meth:`save`; returns the baseline's inputs with the lookup.
+
+        Raises
+        ------
+        InputError
+            Unreadable file, not a lookup table, another table version, bad arrays.
+        """
+        source = Path(path)
+        try:
+            with np.load(source, allow_pickle=False) as data:
+                contents = {key: data[key] for key in data.files}
+            header = json.loads(str(contents["header_json"]))
+        except (OSError, ValueError, EOFError, KeyError, zipfile.BadZipFile) as exc:
+            raise InputError(f"{str(source)!r} is not a readable lookup table ({type(exc).__name__})") from None
+        if not isinstance(header, dict) or header.get("format") != LOOKUP_FORMAT:
+            raise InputError(f"{str(source)!r} is not a phantomlab lookup table")
+        if header.get("version") != LOOKUP_VERSION:
+            raise InputError(f"{str(source)!r}: lookup table version {header.get('version')!r}, this phantomlab "
+                             f"makes version {LOOKUP_VERSION}")
+        lookup = cls.__new__(cls)
+        try:
+            for key in cls._SCALARS:
+                setattr(lookup, key, float(header[key]))
+            for key in cls._ARRAYS:
+                setattr(lookup, key, np.asarray(contents[key], float))
+            made = header["baseline"]
+            tabulated = TabulatedBaseline(lookup=lookup, **{key: made[key] for key in _SOURCE_KEYS})
+            lookup.baseline = tabulated
+            lookup._splines()
+        except (KeyError, TypeError, ValueError):
+            raise InputError(f"{str(source)!r}: the lookup table is incomplete or damaged") from None
+        return tabulated
+
+    def _served_limits(self, positive, counted_sd, smoothed_sd, transport_length) -> np.ndarray:
+        """Per absorption row, the farthest log u the lookup serves (see :meth:`served`)."""
+        limits = np.empty(self.log_ratio.size)
+        log_u = self.log_u
+        for row in range(limits.size):
+            counted = positive[row] & (counted_sd[row] <= _COUNTED_RELATIVE_SD)
+            if not np.any(counted):
+                limits[row] = log_u[0]
+                continue
+            reach = log_u[np.where(counted)[0].max()] + np.log(SERVED_MAX_EXTENSION)
+            bad = (smoothed_sd[row] > SERVED_MAX_RELATIVE_SD) & (log_u >= np.log(transport_length))
+            first_bad = log_u[np.where(bad)[0].min()] if np.any(bad) else np.inf
+            limits[row] = min(reach, first_bad - _U_STEP, log_u[-1])
+        return limits
+
+    def _coordinates(self, mua_per_mm, mus_per_mm, rho_mm):
         mua = np.atleast_1d(np.asarray(mua_per_mm, float))
         mus = np.atleast_1d(np.asarray(mus_per_mm, float))
         if np.any(mus <= 0) or np.any(mua < 0):
@@ -185,11 +317,26 @@ class SmoothLookup:
         rho = np.asarray(rho_mm, float)
         rho = np.broadcast_to(rho, (mua.size,) + rho.shape[-1:]) if rho.ndim == 1 else rho
         u = rho * scale[:, None]
+        return scale, ratio, u
+
+    def point(self, *, mua_per_mm, mus_per_mm, rho_mm) -> np.ndarray:
+        """Point values R(ρ) [1/mm²], shape (N, G) for coefficients (N,) and distances (N, G) or (G,).
+
+        Beyond the table's last node the last value's ratio to the diffusion control is
+        carried on (for integrals such as the sfdi transform, whose tail there is small;
+        :meth:`served` says which distances a fit may use).
+        """
+        scale, ratio, u = self._coordinates(mua_per_mm, mus_per_mm, rho_mm)
         log_u = np.log(np.clip(u, np.exp(self.log_u[0]), np.exp(self.log_u[-1])))
         log_r = np.broadcast_to(np.log(ratio)[:, None], log_u.shape)
         values = np.exp(self._spline.ev(log_r, log_u))
-        # beyond the farthest stored photon there is no light to report (and no table)
-        values = np.where(u <= self.u_max, values, 0.0)
+        outside = u > self.u_top
+        for row in np.where(outside.any(axis=1))[0]:
+            mua_ref = np.array([ratio[row] * self.mus_ref])
+            far = np.append(u[row, outside[row]], self.u_top)
+            log_control = _control_log_reflectance(self.baseline, mua_ref, far)[0]
+            log_edge = float(self._spline.ev(np.log(ratio[row]), self.log_u[-1]))
+            values[row, outside[row]] = np.nan_to_num(np.exp(log_control[:-1] - log_control[-1] + log_edge))
         return scale[:, None] ** 2 * values
 
     def annuli(self, *, mua_per_mm, mus_per_mm, edges_mm) -> np.ndarray:
@@ -206,27 +353,87 @@ class SmoothLookup:
     def annuli_relative_sd(self, *, mua_per_mm, mus_per_mm, edges_mm) -> np.ndarray:
         """Relative standard error of :meth:`annuli` from the baseline's photon statistics, (N, R).
 
-        The table's relative error at the annulus centre, scaled by √(table width / annulus
-        width) in log-radius (wider annuli hold more photons; counting statistics).
+        Within one transport length of the source (not smoothed): the table's counted
+        relative error at the annulus centre, scaled by √(table width / annulus width) in
+        log-radius (wider annuli hold more photons; counting statistics).  Beyond: the
+        smoothed table's own SD there (its values are correlated over the kernel, so a wider
+        annulus does not average it down).
         """
         edges = np.asarray(edges_mm, float)
         lo, hi = np.maximum(edges[:-1], 1e-9), edges[1:]
         centre = 0.5 * (lo + hi)
-        mua = np.atleast_1d(np.asarray(mua_per_mm, float))
-        mus = np.atleast_1d(np.asarray(mus_per_mm, float))
-        scale = mus / self.mus_ref
-        ratio = np.clip(mua / mus, np.exp(self.log_ratio[0]), np.exp(self.log_ratio[-1]))
-        u = centre[None, :] * scale[:, None]
+        scale, ratio, u = self._coordinates(mua_per_mm, mus_per_mm, centre)
         log_u = np.log(np.clip(u, np.exp(self.log_u[0]), np.exp(self.log_u[-1])))
         log_r = np.broadcast_to(np.log(ratio)[:, None], log_u.shape)
-        relative = np.exp(self._sd_spline.ev(log_r, log_u))
+        counted = np.exp(self._sd_spline.ev(log_r, log_u))
         width = np.log(hi / lo)
-        return relative * np.sqrt(np.clip(self.table_relative_width / width, 0.0, 1.0))[None, :]
+        counted = counted * np.sqrt(np.clip(self.table_relative_width / width, 0.0, 1.0))[None, :]
+        smoothed = np.exp(self._smooth_sd_spline.ev(log_r, log_u))
+        return np.where(log_u >= self.log_transport_length, smoothed, counted)
+
+    def served(self, *, mua_per_mm, mus_per_mm, rho_mm) -> np.ndarray:
+        """Which distances the lookup serves at these optics, shape (N, G) of bool.
+
+        A distance is served where it lies within the table, the smoothed table's relative SD
+        there is at most :data:`SERVED_MAX_RELATIVE_SD`, and it is at most
+        :data:`SERVED_MAX_EXTENSION` times beyond the farthest node counted to better than
+        20 % (nearer in, along the row).  The limit is interpolated between the table's
+        absorption rows, taking the nearer of the two.
+        """
+        scale, ratio, u = self._coordinates(mua_per_mm, mus_per_mm, rho_mm)
+        position = np.interp(np.log(ratio), self.log_ratio, np.arange(self.log_ratio.size))
+        below = np.floor(position).astype(int)
+        above = np.minimum(below + 1, self.log_ratio.size - 1)
+        limit = np.minimum(self.log_u_limit[below], self.log_u_limit[above])
+        with np.errstate(divide="ignore"):
+            return (np.log(u) <= limit[:, None]) & (u >= np.exp(self.log_u[0]))
+
+    def served_limit_mm(self, *, mua_per_mm, mus_per_mm) -> np.ndarray:
+        """The farthest distance [mm] :meth:`served` accepts at these optics, shape (N,)."""
+        scale, ratio, _ = self._coordinates(mua_per_mm, mus_per_mm, np.ones(1))
+        position = np.interp(np.log(ratio), self.log_ratio, np.arange(self.log_ratio.size))
+        below = np.floor(position).astype(int)
+        above = np.minimum(below + 1, self.log_ratio.size - 1)
+        limit = np.minimum(self.log_u_limit[below], self.log_u_limit[above])
+        return np.exp(limit) / scale
 
     def reach_warning(self, *, mus_per_mm, rho_max_mm) -> str | None:
-        """A message when the largest distance lies beyond the photons the baseline holds."""
+        """A message when the largest distance lies beyond the table (fits refuse such points first)."""
         reach = float(np.max(np.asarray(rho_max_mm) * np.asarray(mus_per_mm) / self.mus_ref))
-        if reach > self.u_max:
-            return (f"rho up to {reach:.3g} mm (in reference units) lies beyond this baseline's reach "
-                    f"{self.u_max:.3g} mm; the Monte Carlo lookup extrapolates there")
+        if reach > self.u_top:
+            return (f"rho up to {reach:.3g} mm (in reference units) lies beyond this baseline's table "
+                    f"({self.u_top:.3g} mm); the Monte Carlo lookup does not serve it")
         return None
+
+
+@dataclass(frozen=True, eq=False)
+class TabulatedBaseline:
+    """What a fit needs of a baseline: the inputs that made it and its :class:`SmoothLookup`.
+
+    Read from a saved table (:meth:`SmoothLookup.load`) without the photons, so a fit with a
+    baseline already tabulated starts in milliseconds.  The fits accept it wherever they
+    accept a :class:`~phantomlab.transport.montecarlo.Baseline`.
+    """
+
+    g: float
+    n: float
+    n_outside: float
+    mua_per_mm: float
+    mus_per_mm: float
+    photons: int
+    detected: int
+    seed: int
+    lookup: SmoothLookup = field(repr=False)
+
+    @property
+    def minimum_absorption_ratio(self) -> float:
+        """Smallest μa/μs the baseline answers: μa_ref/μs_ref."""
+        return self.mua_per_mm / self.mus_per_mm
+
+    @classmethod
+    def from_baseline(cls, baseline) -> "TabulatedBaseline":
+        """Tabulate a baseline with photons (builds its :class:`SmoothLookup`, a few seconds)."""
+        lookup = SmoothLookup(baseline)
+        made = cls(lookup=lookup, **{key: getattr(baseline, key) for key in _SOURCE_KEYS})
+        lookup.baseline = made  # the photons are not needed any more
+        return made
