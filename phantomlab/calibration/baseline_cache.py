@@ -1,0 +1,376 @@
+"""Monte Carlo baselines kept for the user: one per (g, n, n_outside), built on first need (layer 3).
+
+The default srdr and sfdi fit is the Monte Carlo lookup, which needs a stored baseline
+(:func:`phantomlab.transport.montecarlo.build_baseline`) made for the phantom's anisotropy g
+and the indices n, n_outside.  This module finds it in a per-user cache folder, or builds it
+once with the settings below and keeps it there:
+
+* folder: the ``folder`` argument (``--baseline-dir``), else the environment variable
+  ``PHANTOMLAB_BASELINE_DIR``, else ``baselines`` in the user's cache folder of the platform
+  (platformdirs: ``~/.cache/phantomlab/baselines`` on Linux);
+* one file per (g rounded to 0.01, n and n_outside rounded to 0.001):
+  ``baseline-g0.80-n1.400-out1.000.npz``;
+* settings (:data:`CACHE_PHOTONS` photons, reference μs :data:`CACHE_MUS_REF_PER_MM`, reference
+  μa chosen so that μs′/μa up to :data:`CACHE_MAX_MUSP_OVER_MUA` is answered, seed
+  :data:`CACHE_SEED`), the same for every g.  Its reach in distance is set by the photons
+  and by the lookup's table (200 transport lengths, :mod:`phantomlab.calibration.mc_lookup`);
+  the fit refuses the distances it cannot serve.
+
+A cached file that is unreadable, of another format version, or made for other inputs than
+its name says is refused (:class:`CachedBaselineError`, one line) and replaced only when the
+caller asks (``rebuild=True``: ``--rebuild`` on the command line, the user's agreement on
+the page).  A folder that cannot be written is refused with one line naming it and the
+override.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from phantomlab.errors import InputError
+
+__all__ = [
+    "BASELINE_DIR_ENV", "CACHE_PHOTONS", "DEFAULT_G", "CachedBaseline", "CachedBaselineError",
+    "baseline_folder", "cache_file_name", "find_cached_baseline", "obtain_baseline", "build_cached_baseline", "list_cached",
+    "clear_cached", "cache_settings", "table_path",
+]
+
+#: Environment variable naming the cache folder (the ``--baseline-dir`` option wins over it).
+BASELINE_DIR_ENV = "PHANTOMLAB_BASELINE_DIR"
+#: Photons launched for a cached baseline: the lookup's own noise stays at or below about 1 %
+#: out to 20–50 transport lengths at μs′/μa ≥ 30 (tests/calibration/test_mc_lookup.py), and
+#: a build takes about half a minute on two cores (bench/fit.py).
+CACHE_PHOTONS = 1_000_000
+#: Reference scattering of a cached baseline [1/mm] (the lookup scales it to every μs).
+CACHE_MUS_REF_PER_MM = 10.0
+#: Highest μs′/μa a cached baseline answers: the reference μa is μs_ref (1 − g)/1500.
+#: 1.5 × the highest ratio of the acceptance cases (1000), so that a fitted μa near the truth
+#: never reaches the floor; a lower floor makes every photon path, and the build, longer.
+CACHE_MAX_MUSP_OVER_MUA = 1500.0
+#: Master seed of every cached baseline.
+CACHE_SEED = 20_251
+#: g assumed by a standalone fit without ``--g`` (common practice, no source: lipid
+#: emulsions and polymer or oxide microspheres of 0.5–1 µm lie near 0.7–0.9 in the red and
+#: near infrared).
+DEFAULT_G = 0.8
+#: Range of g a cached baseline is built for (beyond 0.95 the scatterings per transport
+#: length, and so the build time, grow without bound).
+G_RANGE = (0.0, 0.95)
+#: Range of n and n_outside for a cached baseline.
+INDEX_RANGE = (1.0, 2.0)
+#: Largest photon count of a baseline the cache builds (about 100 MB of exits, 10 min).
+MAX_PHOTONS = 10_000_000
+
+_NAME = re.compile(r"^baseline-g(\d\.\d\d)-n(\d\.\d\d\d)-out(\d\.\d\d\d)\.npz$")
+_TOLERANCE = 5e-4
+
+
+class CachedBaselineError(InputError):
+    """A cached baseline file that cannot be used; ``path`` names it, ``reason`` says why."""
+
+    def __init__(self, path: Path, reason: str):
+        self.path = Path(path)
+        self.reason = reason
+        super().__init__(f"cached baseline {self.path} cannot be used: {reason}; give --rebuild to build it again "
+                         f"(about half a minute)")
+
+
+@dataclass(frozen=True, eq=False)
+class CachedBaseline:
+    """A baseline found or built in the cache.
+
+    Attributes
+    ----------
+    baseline : phantomlab.transport.montecarlo.Baseline
+    path : Path
+        The cache file.
+    built : bool
+        True when it was built by this call (else read from the cache).
+    seconds : float [s]
+        Build time (0 when read).
+    """
+
+    baseline: object
+    path: Path
+    built: bool
+    seconds: float = 0.0
+
+
+def baseline_folder(folder=None) -> Path:
+    """The cache folder: ``folder``, else ``$PHANTOMLAB_BASELINE_DIR``, else the platform's user cache.
+
+    Returns
+    -------
+    Path
+        Not created here (a read needs no folder; a build creates it).
+    """
+    if folder not in (None, ""):
+        return Path(folder).expanduser()
+    env = os.environ.get(BASELINE_DIR_ENV, "").strip()
+    if env:
+        return Path(env).expanduser()
+    import platformdirs
+
+    return Path(platformdirs.user_cache_dir("phantomlab", appauthor=False)) / "baselines"
+
+
+def _check_range(name: str, value, low: float, high: float) -> float:
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        raise InputError(f"{name} = {value!r}; accepted: a number from {low:g} to {high:g}") from None
+    if not np.isfinite(number) or not low <= number <= high:
+        raise InputError(f"{name} = {value!r}; accepted: a number from {low:g} to {high:g} for a cached baseline")
+    return number
+
+
+def cache_settings(*, g, n, n_outside=1.0) -> dict:
+    """The rounded (g, n, n_outside) and the build inputs of the cached baseline for them."""
+    g = round(_check_range("g", g, *G_RANGE), 2)
+    n = round(_check_range("n", n, *INDEX_RANGE), 3)
+    n_outside = round(_check_range("n_outside", n_outside, *INDEX_RANGE), 3)
+    return {"g": g, "n": n, "n_outside": n_outside,
+            "mua_per_mm": CACHE_MUS_REF_PER_MM * (1.0 - g) / CACHE_MAX_MUSP_OVER_MUA,
+            "mus_per_mm": CACHE_MUS_REF_PER_MM, "photons": CACHE_PHOTONS, "seed": CACHE_SEED}
+
+
+def cache_file_name(*, g, n, n_outside=1.0) -> str:
+    """``baseline-g0.80-n1.400-out1.000.npz`` for the rounded (g, n, n_outside)."""
+    settings = cache_settings(g=g, n=n, n_outside=n_outside)
+    return f"baseline-g{settings['g']:.2f}-n{settings['n']:.3f}-out{settings['n_outside']:.3f}.npz"
+
+
+def _writable_folder(folder: Path) -> Path:
+    hint = f"choose another with --baseline-dir FOLDER or the environment variable {BASELINE_DIR_ENV}"
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError:
+        raise InputError(f"baseline cache folder {folder} cannot be created; {hint}") from None
+    if not folder.is_dir() or not os.access(folder, os.W_OK | os.X_OK):
+        raise InputError(f"baseline cache folder {folder} is not writable; {hint}")
+    return folder
+
+
+def table_path(path: Path) -> Path:
+    """The lookup table kept beside a cached baseline: ``NAME.lookup.npz``."""
+    return path.with_name(path.name[: -len(".npz")] + ".lookup.npz")
+
+
+def _check_made_for(path: Path, made: dict, settings: dict) -> None:
+    other = [f"{key} = {float(made[key]):g}" for key in ("g", "n", "n_outside")
+             if abs(float(made[key]) - settings[key]) > _TOLERANCE]
+    if other:
+        raise CachedBaselineError(path, f"it was made for {', '.join(other)}, its name says "
+                                        f"g = {settings['g']:g}, n = {settings['n']:g}, "
+                                        f"n_outside = {settings['n_outside']:g}")
+
+
+def _reason(exc: InputError, path: Path) -> str:
+    return str(exc).replace(repr(str(path)), "").strip(" :") or "unreadable"
+
+
+def _read_photons(path: Path, settings: dict):
+    from phantomlab.transport.montecarlo import load_baseline
+
+    try:
+        baseline = load_baseline(path)
+    except InputError as exc:
+        raise CachedBaselineError(path, _reason(exc, path)) from None
+    _check_made_for(path, {"g": baseline.g, "n": baseline.n, "n_outside": baseline.n_outside}, settings)
+    return baseline
+
+
+def _read_table(path: Path, settings: dict):
+    """The tabulated baseline beside ``path``, or None when there is none usable (made again then)."""
+    from phantomlab.calibration.mc_lookup import SmoothLookup
+
+    table = table_path(path)
+    if not table.is_file():
+        return None
+    try:
+        tabulated = SmoothLookup.load(table)
+    except InputError:
+        return None  # derived from the photons: made again from them
+    if path.is_file():
+        from phantomlab.transport.montecarlo import load_baseline_inputs
+
+        try:
+            inputs = load_baseline_inputs(path)
+        except InputError as exc:
+            raise CachedBaselineError(path, _reason(exc, path)) from None
+        if any(abs(float(inputs[key]) - float(getattr(tabulated, key))) > 1e-12
+               for key in ("g", "n", "n_outside", "mua_per_mm", "mus_per_mm", "photons", "seed")):
+            return None  # the photons were replaced: tabulate them again
+    _check_made_for(path, {"g": tabulated.g, "n": tabulated.n, "n_outside": tabulated.n_outside}, settings)
+    return tabulated
+
+
+def _tabulate(baseline, path: Path):
+    """The baseline's lookup table, saved beside it when the folder allows (a cache of a cache)."""
+    from phantomlab.calibration.mc_lookup import TabulatedBaseline
+
+    tabulated = TabulatedBaseline.from_baseline(baseline)
+    try:
+        tabulated.lookup.save(table_path(path))
+    except OSError:
+        pass  # a read-only cache still serves; the table is made again next time
+    return tabulated
+
+
+def build_cached_baseline(*, g, n, n_outside=1.0, folder=None, progress=None, photons=None) -> CachedBaseline:
+    """Build the cache's baseline for (g, n, n_outside), write it and its lookup table (replacing any).
+
+    Parameters
+    ----------
+    g, n, n_outside : float
+        Rounded to 0.01 and 0.001 (:func:`cache_settings`).
+    folder : path, optional
+        Cache folder (:func:`baseline_folder`).
+    progress : callable, optional
+        ``progress(done, total)`` [photons], see :func:`~phantomlab.transport.montecarlo.build_baseline`;
+        an exception from it (or Ctrl-C) stops the build and writes nothing.
+    photons : int, optional
+        Photons (default :data:`CACHE_PHOTONS`, at most :data:`MAX_PHOTONS`).
+
+    Returns
+    -------
+    CachedBaseline
+        ``baseline`` is the :class:`~phantomlab.calibration.mc_lookup.TabulatedBaseline`.
+    """
+    from phantomlab.transport.montecarlo import build_baseline
+
+    settings = cache_settings(g=g, n=n, n_outside=n_outside)
+    if photons is not None:
+        settings["photons"] = int(_check_range("photons", photons, 1000, MAX_PHOTONS))
+    target = _writable_folder(baseline_folder(folder)) / cache_file_name(g=g, n=n, n_outside=n_outside)
+    start = time.perf_counter()
+    baseline = build_baseline(mua_per_mm=settings["mua_per_mm"], mus_per_mm=settings["mus_per_mm"],
+                              g=settings["g"], n=settings["n"], n_outside=settings["n_outside"],
+                              photons=settings["photons"], seed=settings["seed"], progress=progress)
+    try:
+        baseline.save(target)  # a temporary file renamed into place: never half written
+    except OSError as exc:
+        raise InputError(f"baseline cache file {target} could not be written ({exc.strerror or exc}); choose "
+                         f"another folder with --baseline-dir FOLDER or {BASELINE_DIR_ENV}") from None
+    table_path(target).unlink(missing_ok=True)
+    tabulated = _tabulate(baseline, target)
+    return CachedBaseline(baseline=tabulated, path=target, built=True, seconds=time.perf_counter() - start)
+
+
+def find_cached_baseline(*, g, n, n_outside=1.0, folder=None) -> CachedBaseline | None:
+    """The cached baseline for (g, n, n_outside) if there is one, else None (never builds).
+
+    Raises
+    ------
+    CachedBaselineError
+        A file is there but cannot be used.
+    """
+    settings = cache_settings(g=g, n=n, n_outside=n_outside)
+    path = baseline_folder(folder) / cache_file_name(g=g, n=n, n_outside=n_outside)
+    tabulated = _read_table(path, settings)
+    if tabulated is not None:
+        return CachedBaseline(baseline=tabulated, path=path, built=False)
+    if path.is_file():
+        return CachedBaseline(baseline=_tabulate(_read_photons(path, settings), path), path=path, built=False)
+    return None
+
+
+def obtain_baseline(*, g, n, n_outside=1.0, folder=None, rebuild=False, build=True, progress=None) -> CachedBaseline:
+    """The cached baseline for (g, n, n_outside): read it, or build it once when missing.
+
+    Its lookup table (``NAME.lookup.npz``, about 0.1 MB) is read when there is one (a fit
+    then never loads the photons), else made from the photons and kept.
+
+    Parameters
+    ----------
+    g, n, n_outside : float
+    folder : path, optional
+        Cache folder (:func:`baseline_folder`).
+    rebuild : bool
+        Build again and replace the file even when one is there (also one that is refused).
+    build : bool
+        False: never build (a missing file is refused with one line).
+    progress : callable, optional
+        Passed to the build.
+
+    Returns
+    -------
+    CachedBaseline
+        ``baseline`` is a :class:`~phantomlab.calibration.mc_lookup.TabulatedBaseline`.
+
+    Raises
+    ------
+    CachedBaselineError
+        The file is there but unreadable, of another version, or for other inputs (and
+        ``rebuild`` is False).
+    InputError
+        g, n or n_outside out of range; the folder cannot be written when a build is needed;
+        no file and ``build`` is False.
+    """
+    settings = cache_settings(g=g, n=n, n_outside=n_outside)
+    path = baseline_folder(folder) / cache_file_name(g=g, n=n, n_outside=n_outside)
+    if not rebuild:
+        found = find_cached_baseline(g=g, n=n, n_outside=n_outside, folder=folder)
+        if found is not None:
+            return found
+    if not build:
+        raise InputError(f"no cached baseline for g = {settings['g']:g}, n = {settings['n']:g}, n_outside = "
+                         f"{settings['n_outside']:g} in {path.parent}")
+    _writable_folder(path.parent)  # before the half minute of work, not after
+    return build_cached_baseline(g=g, n=n, n_outside=n_outside, folder=folder, progress=progress)
+
+
+def list_cached(folder=None) -> list[dict]:
+    """The baselines in the cache folder, each ``{file, g, n, n_outside, photons, megabytes, modified, usable,
+    lookup_table}``.
+
+    Only the small inputs record of each file is read.  ``usable`` is True, or the reason the
+    file would be refused; ``lookup_table`` says whether its table is kept beside it.
+    """
+    root = baseline_folder(folder)
+    if not root.is_dir():
+        return []
+    from phantomlab.transport.montecarlo import load_baseline_inputs
+
+    rows = []
+    for path in sorted(p for p in root.glob("baseline-*.npz") if not p.name.endswith(".lookup.npz")):
+        match = _NAME.match(path.name)
+        row = {"file": str(path), "g": None, "n": None, "n_outside": None, "photons": None,
+               "megabytes": round(path.stat().st_size / 1e6, 3),
+               "modified": time.strftime("%Y-%m-%d %H:%M", time.localtime(path.stat().st_mtime)), "usable": True,
+               "lookup_table": table_path(path).is_file()}
+        try:
+            inputs = load_baseline_inputs(path)
+            row.update({key: inputs[key] for key in ("g", "n", "n_outside", "photons")})
+            if match:
+                named = tuple(float(v) for v in match.groups())
+                if any(abs(a - b) > _TOLERANCE for a, b in zip(named, (inputs["g"], inputs["n"], inputs["n_outside"]))):
+                    row["usable"] = "made for other inputs than its name says"
+            else:
+                row["usable"] = "not a cache file name (never chosen by a fit)"
+        except InputError as exc:
+            row["usable"] = str(exc).replace(repr(str(path)), "").strip(" :") or "unreadable"
+        rows.append(row)
+    return rows
+
+
+def clear_cached(folder=None) -> list[dict]:
+    """Delete the cache's baselines, their lookup tables and left-over partial writes; returns what was removed."""
+    root = baseline_folder(folder)
+    if not root.is_dir():
+        return []
+    removed = []
+    for path in sorted(list(root.glob("baseline-*.npz")) + list(root.glob(".baseline-*.part"))):  # tables too
+        size = path.stat().st_size
+        try:
+            path.unlink()
+        except OSError as exc:
+            raise InputError(f"cannot delete {path} ({exc.strerror or exc}); check the folder's permissions") from None
+        removed.append({"file": str(path), "megabytes": round(size / 1e6, 3)})
+    return removed
