@@ -304,7 +304,7 @@ def fit_srdr(
 
 #: Passes of the Monte Carlo fit's "keep the distances the lookup serves, add its noise to
 #: the SDs and refit" step at most (the served set follows the fitted optics).
-_REACH_PASSES = 3
+_REACH_PASSES = 4
 
 
 def _fit_within_lookup_reach(forward, result, correlation, measurement: Measurement, kwargs: dict):
@@ -332,13 +332,14 @@ def _fit_within_lookup_reach(forward, result, correlation, measurement: Measurem
     lookup = forward.lookup
     used = None
     mask = None
+    previous = result
     edges = forward.edges_mm
     for _ in range(_REACH_PASSES):
         mus = result.musp_per_mm / (1.0 - lookup.g)
         mua = np.maximum(result.mua_per_mm, baseline_absorption_floor(lookup.baseline) * mus)
         served = lookup.served(mua_per_mm=mua, mus_per_mm=mus, rho_mm=np.broadcast_to(edges[1:], (mua.size, rho.size)))
         wanted = finite & served
-        if used is not None and np.array_equal(wanted, used):
+        if used is not None and np.array_equal(wanted, used) and _settled(result, previous):
             break
         used, mask = wanted, (None if np.array_equal(wanted, finite) else wanted)
         if mask is None and measurement.sd is None:
@@ -357,6 +358,7 @@ def _fit_within_lookup_reach(forward, result, correlation, measurement: Measurem
             if relative and result.scale_factor is not None:
                 model_sd = model_sd * result.scale_factor[:, None]
             kwargs["sd"] = np.sqrt(measurement.sd**2 + model_sd**2)
+        previous = result
         result, correlation = fit_spectrum(forward, start=(result.mua_per_mm, result.musp_per_mm), mask=mask,
                                            **kwargs)
     messages = []
@@ -370,6 +372,15 @@ def _fit_within_lookup_reach(forward, result, correlation, measurement: Measurem
             f"they are not fitted by extrapolation")
     forward.rho_max_mm = float(np.max(np.where(used, edges[None, 1:], 0.0)))
     return result, correlation, mask, messages
+
+
+def _settled(result, previous) -> bool:
+    """True when a refit moved μa and μs′ by less than a tenth of their SDs (the lookup's noise,
+    added to the SDs at the previous solution, then no longer depends on where the fit started)."""
+    moved = [np.abs(getattr(result, name) - getattr(previous, name)) <= 0.1 * getattr(result, sd) + 1e-12
+             for name, sd in (("mua_per_mm", "mua_sd_per_mm"), ("musp_per_mm", "musp_sd_per_mm"))]
+    finite = np.isfinite(result.mua_sd_per_mm) & np.isfinite(result.musp_sd_per_mm)
+    return bool(np.all((moved[0] & moved[1]) | ~finite))
 
 
 def flux_only_mismatch_warnings(*, n: float, n_outside: float) -> list[str]:

@@ -218,6 +218,7 @@ class SmoothLookup:
         beyond = self.log_u >= np.log(transport_length)
         bias = np.where(beyond[None, :] & np.isfinite(averaged - control), averaged - control, 0.0)
         log_table = log_table - np.where(positive, bias, 0.0)
+        self.table_counted_log = np.where(positive, log_table, -np.inf)
         log_table, smooth_sd = _smooth_rows(log_table, positive, relative_sd, self.log_u, control,
                                             log_u_start=float(np.log(transport_length)))
         self.log_u_limit = self._served_limits(positive, relative_sd, smooth_sd, transport_length)
@@ -235,7 +236,8 @@ class SmoothLookup:
                                                      np.log(np.clip(self.table_smoothed_sd, 1e-6, 1.0)), kx=1, ky=1)
 
     # ---------------------------------------------------------------- persistence
-    _ARRAYS = ("log_ratio", "log_u", "table_log", "table_counted_sd", "table_smoothed_sd", "log_u_limit")
+    _ARRAYS = ("log_ratio", "log_u", "table_log", "table_counted_log", "table_counted_sd", "table_smoothed_sd",
+               "log_u_limit")
     _SCALARS = ("g", "mus_ref", "ratio_min", "table_relative_width", "u_top", "log_transport_length")
 
     def save(self, path) -> Path:

@@ -78,3 +78,74 @@ def test_lookup_is_smooth_in_musp_beyond_the_source(baseline, mua, rho_max):
     for j in np.where(rho >= 2.0)[0]:
         cubic = np.polyval(np.polyfit(x, log_r[:, j], 3), x)
         assert np.max(np.abs(cubic - log_r[:, j])) < 2.5e-4, (rho[j], np.max(np.abs(cubic - log_r[:, j])))
+
+
+@pytest.mark.parametrize("musp_over_mua", [10.0, 100.0, 1000.0])
+def test_far_field_join_is_continuous_and_within_the_tables_noise(baseline, musp_over_mua):
+    # Beyond one transport length the table is smoothed as a ratio to diffusion, its local
+    # line in rho (the far-field form exp(-kappa rho)/rho^2 of both); as the photons thin
+    # out the kernel widens and the line carries the far field.  Over the nodes it serves,
+    # the smoothed table must agree with the counted annuli within their noise (chi2 per
+    # node < 1.5; measured 0.2-0.5), and log(R/R_diffusion) must stay smooth in log u right
+    # across the region where the kernels widen: second differences below 0.01 per node
+    # there (measured 0.001-0.006: a line in rho bends in log u), below 0.02 nearer in (the
+    # photons' own wiggles, 0.012).
+    from phantomlab.calibration.fit_srdr import smooth_lookup
+
+    lookup = smooth_lookup(baseline)
+    row = int(np.argmin(np.abs(lookup.log_ratio - np.log((1 - lookup.g) / musp_over_mua))))
+    log_u = lookup.log_u
+    span = (log_u >= lookup.log_transport_length) & (log_u <= lookup.log_u_limit[row])
+    counted = np.isfinite(lookup.table_counted_log[row]) & (lookup.table_counted_sd[row] < 0.5) & span
+    z = (lookup.table_log[row, counted] - lookup.table_counted_log[row, counted]) / lookup.table_counted_sd[row, counted]
+    assert counted.sum() >= 20 and np.mean(z**2) < 1.5, np.mean(z**2)
+    from phantomlab.calibration.mc_lookup import _control_log_reflectance
+
+    control = _control_log_reflectance(lookup.baseline, np.exp(lookup.log_ratio[row:row + 1]) * lookup.mus_ref,
+                                       np.exp(log_u))[0]
+    # out to the last node counted to 20 %: past the served limit, where the far-field line takes over
+    last = np.where(np.isfinite(lookup.table_counted_log[row]) & (lookup.table_counted_sd[row] <= 0.2))[0].max()
+    join = (log_u >= lookup.log_transport_length) & (np.arange(log_u.size) <= last)
+    ratio = (lookup.table_log[row] - control)[join]  # log(R / R_diffusion): smooth, no step at the join
+    bends = np.abs(np.diff(ratio, 2))
+    assert np.max(bends) < 0.02, np.max(bends)  # near the source: the photons' own 0.3-0.5 % wiggles
+    wide = (lookup.table_counted_sd[row][join] > 0.02)[1:-1]  # where the kernels widen: the far-field line
+    assert wide.sum() >= 5 and np.max(bends[wide]) < 0.01, np.max(bends[wide])
+    # and the served limit lies where the table's own noise reaches 2 %, before its photons end
+    assert np.exp(lookup.log_u_limit[row]) <= lookup.u_top
+
+
+def test_distances_the_baseline_cannot_serve_are_left_out_and_named(baseline):
+    # The long-reach case at mus'/mua = 10 (to 12 mm) with distances added beyond what the
+    # baseline serves there (20.6 mm at the fitted optics): they are refused in one line and
+    # never fitted, so the fit equals the one where those values are missing (same distances,
+    # so the same annuli: edges at the midpoints).  The first added distance keeps the 12 mm
+    # annulus as the direct run had it; its value, and the far ones, come from the lookup.
+    from phantomlab.calibration.fit_srdr import fit_srdr
+    from phantomlab.calibration.measurements import Measurement, MeasurementMetadata
+
+    cases = _cases("mc_srdr_reach_cases.npz")
+    rho, R, se = cases["rho_per_case"][0], cases["reflectance_per_mm2"][0], cases["sd"][0]
+    axis = np.concatenate([rho, [2 * rho[-1] - rho[-2], 25.0, 30.0]])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PhantomlabWarning)
+        added = _forward(baseline, axis)(np.array([0.1]), np.array([1.0]))[0, -3:]
+    values = np.concatenate([R, added])
+    sd = np.concatenate([np.sqrt((0.01 * R) ** 2 + se**2), 0.01 * added])
+
+    def fit(values):
+        m = Measurement(kind="srdr", scale="absolute", wavelength_nm=np.array([700.0]), axis=axis,
+                        values=values[None, :], sd=sd[None, :], source="fixture", metadata=MeasurementMetadata(n=1.4))
+        return fit_srdr(m, model="mc", baseline=baseline)
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", PhantomlabWarning)
+        longer = fit(values)
+        missing = fit(np.where(axis > 20.0, np.nan, values))
+    refusals = [m for m in longer.warnings if "left out rho" in m]
+    assert len(refusals) == 1 and "rho = 25, 30 mm" in refusals[0] and "\n" not in refusals[0]
+    assert not any("left out rho" in m for m in missing.warnings)
+    assert longer.mua_per_mm[0] == pytest.approx(missing.mua_per_mm[0], rel=1e-3)
+    assert longer.musp_per_mm[0] == pytest.approx(missing.musp_per_mm[0], rel=1e-3)
+    assert abs(longer.mua_per_mm[0] / 0.1 - 1) < 0.02 and abs(longer.musp_per_mm[0] - 1) < 0.02
+    assert any("left out rho" in str(w.message) for w in caught)  # raised as a warning too
