@@ -575,6 +575,9 @@ def attach_measurement(
     model: str | None = None,
     baseline=None,
     options: Mapping[str, Any] | None = None,
+    baseline_dir=None,
+    rebuild: bool = False,
+    progress=None,
     instrument: str | None = None,
     measured_on: _dt.date | None = None,
     phantom_age_days: float | None = None,
@@ -597,7 +600,12 @@ def attach_measurement(
         False stores the file only.
     model, baseline, options
         The fit's model, Monte Carlo baseline, and metadata options (``n``, ``thickness_mm``
-        [mm], ``g``, ...; they win over the sidecar; None values are ignored).
+        [mm], ``g``, ...; they win over the sidecar; None values are ignored).  Without a
+        ``g`` (option or sidecar), the default Monte Carlo lookup takes g from the batch's
+        scattering model (:func:`batch_anisotropy`).
+    baseline_dir, rebuild, progress
+        The baseline cache folder, whether to build its baseline again, and a build progress
+        callback (``phantomlab.calibration.baseline_cache.obtain_baseline``).
     measured_on : date, optional
         Default: the file's metadata date, else today.
     phantom_age_days : float [days], optional
@@ -641,8 +649,12 @@ def attach_measurement(
     result = None
     fit_json = None
     if fit:
+        g_fallback = None
+        if kind in ("srdr", "sfdi") and baseline is None:
+            g_fallback = batch_anisotropy(store, code, wavelength_nm=info.wavelength_nm)
         result = fit_measurement_file(source, kind=kind, model=model, baseline=baseline, **read_extra,
-                                      **fit_options)
+                                      baseline_dir=baseline_dir, rebuild=rebuild, progress=progress,
+                                      g_fallback=g_fallback, **fit_options)
         fit_json = to_jsonable(result.to_json())
     if measured_on is None:
         measured_on = _metadata_date(info) or _dt.date.today()
@@ -693,6 +705,38 @@ def _sphere_sidecar_for_the_record(sidecar_toml: str | None, measurement) -> str
     table["sphere"] = sphere
     return (f"# stored by phantomlab: the standard's spectrum from {source} written inline\n"
             + tomli_w.dumps(table))
+
+
+def batch_anisotropy(store, code: str, *, wavelength_nm) -> tuple[float, str] | None:
+    """The anisotropy g of a batch from its scattering model, for the Monte Carlo lookup's baseline.
+
+    The plan's predicted g (Mie or emulsion model of its scatterers, stored with the plan)
+    interpolated to the measurement's wavelengths and averaged: one baseline serves one g,
+    and beyond a few transport lengths R(ρ) depends on μs′ alone, so the band's spread of g
+    (a few hundredths for one scatterer) matters only next to the source.
+
+    Returns
+    -------
+    (float, str) or None
+        g and its origin ``"batch"``; None when the plan predicts no g.
+    """
+    from phantomlab.store import get_batch, plan_of  # layer 4
+
+    with store.reading() as session:
+        plan = plan_of(session, get_batch(session, code)).plan or {}
+    predicted = plan.get("predicted") or {}
+    try:
+        grid = np.asarray(predicted.get("wavelength_nm") or [], float)
+        values = np.asarray([np.nan if v is None else v for v in predicted.get("g") or []], float)
+    except (TypeError, ValueError):
+        return None
+    good = np.isfinite(grid) & np.isfinite(values) if grid.shape == values.shape else np.zeros(0, bool)
+    if not np.any(good):
+        return None
+    order = np.argsort(grid[good])
+    wanted = np.asarray(wavelength_nm, float)
+    g = float(np.mean(np.interp(wanted, grid[good][order], values[good][order])))
+    return (g, "batch") if 0.0 <= g < 1.0 else None
 
 
 def keep_fit(store, measurement_id: int, result, *, recorded_by: str | None = None) -> int:

@@ -64,8 +64,6 @@ DEFAULT_G = 0.8
 G_RANGE = (0.0, 0.95)
 #: Range of n and n_outside for a cached baseline.
 INDEX_RANGE = (1.0, 2.0)
-#: Largest photon count of a baseline the cache builds (about 100 MB of exits, 10 min).
-MAX_PHOTONS = 10_000_000
 
 _NAME = re.compile(r"^baseline-g(\d\.\d\d)-n(\d\.\d\d\d)-out(\d\.\d\d\d)\.npz$")
 _TOLERANCE = 5e-4
@@ -236,7 +234,8 @@ def build_cached_baseline(*, g, n, n_outside=1.0, folder=None, progress=None, ph
         ``progress(done, total)`` [photons], see :func:`~phantomlab.transport.montecarlo.build_baseline`;
         an exception from it (or Ctrl-C) stops the build and writes nothing.
     photons : int, optional
-        Photons (default :data:`CACHE_PHOTONS`, at most :data:`MAX_PHOTONS`).
+        Photons (default :data:`CACHE_PHOTONS`; at least 1000, at most the ``baseline_photons``
+        limit of :mod:`phantomlab.limits`).
 
     Returns
     -------
@@ -247,7 +246,10 @@ def build_cached_baseline(*, g, n, n_outside=1.0, folder=None, progress=None, ph
 
     settings = cache_settings(g=g, n=n, n_outside=n_outside)
     if photons is not None:
-        settings["photons"] = int(_check_range("photons", photons, 1000, MAX_PHOTONS))
+        from phantomlab.limits import check_limit
+
+        settings["photons"] = int(_check_range("photons", photons, 1000, 1e12))
+        check_limit("baseline_photons", settings["photons"], given=f"photons {settings['photons']}")
     target = _writable_folder(baseline_folder(folder)) / cache_file_name(g=g, n=n, n_outside=n_outside)
     start = time.perf_counter()
     baseline = build_baseline(mua_per_mm=settings["mua_per_mm"], mus_per_mm=settings["mus_per_mm"],

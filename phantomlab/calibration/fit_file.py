@@ -22,10 +22,13 @@ from phantomlab.errors import InputError, PhantomlabWarning
 
 __all__ = ["fit_measurement_file", "fit_measurement", "DEFAULT_MODELS", "FIT_MODELS"]
 
-#: Forward models accepted by ``model=`` per kind, the first being the default.
+#: Forward models accepted by ``model=`` per kind, the first being the default.  srdr and
+#: sfdi default to the Monte Carlo lookup (``mc``): valid at every distance and albedo, where
+#: the diffusion models are off by several per cent near the source and bias μa at high
+#: albedo; its baseline comes from the per-user cache (baseline_cache.py), built once.
 FIT_MODELS: dict[str, tuple[str, ...]] = {
-    "srdr": ("kienle1997", "farrell1992", "mc"),
-    "sfdi": ("cuccia2009", "mc"),
+    "srdr": ("mc", "kienle1997", "farrell1992"),
+    "sfdi": ("mc", "cuccia2009"),
     "slab": ("adding-doubling",),
     "sphere": ("adding-doubling",),
     "optics": ("direct",),
@@ -34,6 +37,11 @@ FIT_MODELS: dict[str, tuple[str, ...]] = {
     "fd": ("kienle1997", "contini1997", "mc", "fantini1994"),
 }
 DEFAULT_MODELS = {kind: models[0] for kind, models in FIT_MODELS.items()}
+
+#: Options of the fit itself (not metadata): the model, an explicit baseline, a spectral
+#: constraint, and for the default Monte Carlo lookup the cache folder, ``rebuild``, a build
+#: progress callback and the g of the batch's scattering model as ``(g, origin)``.
+_FIT_OPTIONS = ("model", "baseline", "constraint", "baseline_dir", "rebuild", "progress", "g_fallback")
 
 _METADATA_OPTIONS = ("n", "n_outside", "thickness_mm", "g", "n_slide", "slide_thickness_mm", "slides",
                      "specular_included", "unscattered_included", "port_diameter_mm", "beam_diameter_mm",
@@ -70,7 +78,8 @@ def fit_measurement(
     model : str, optional
         One of :data:`FIT_MODELS` for the kind (default the first).
     baseline : Baseline or path, optional
-        Monte Carlo baseline for ``model='mc'``.
+        Monte Carlo baseline for ``model='mc'`` (default: the cached one for g, n, n_outside,
+        built once when missing; baseline_cache.py).
     constraint : SpectralConstraint or callable, optional
         A callable is called with the measurement's wavelengths and returns the constraint
         (e.g. :func:`phantomlab.calibration.observations.stock_constraint`).
@@ -100,6 +109,14 @@ def fit_measurement(
     if kind in ("td", "fd") and constraint is not None:
         raise InputError(f"{kind} fits take no spectral constraint (--musp-power-law, --mua-from-stocks); "
                          "each wavelength is fitted on its own")
+    if model == "mc" and baseline is None and kind in ("srdr", "sfdi"):
+        from phantomlab.calibration.fit_inputs import resolve_model_inputs
+
+        if n is not None or n_outside is not None:
+            measurement = replace(measurement, metadata=replace(
+                measurement.metadata, **{k: v for k, v in (("n", n), ("n_outside", n_outside)) if v is not None}))
+        baseline = resolve_model_inputs(measurement, model=model, given={"g": g, "n": n, "n_outside": n_outside},
+                                        sidecar={}).baseline
     sd_parts = _sd_parts(measurement, model)
     if measurement.scale == "raw":
         from phantomlab.calibration.reference import calibrate_reading
@@ -190,22 +207,63 @@ def fit_measurement_file(path_or_text, *, kind: str, **metadata: Any) -> FitResu
     """
     if kind not in KINDS:
         raise InputError(f"unknown measurement kind {kind!r}; accepted: {', '.join(KINDS)}")
-    fit_options = {key: metadata.pop(key, None) for key in ("model", "baseline", "constraint")}
+    fit_options = {key: metadata.pop(key, None) for key in _FIT_OPTIONS}
     unknown = sorted(set(metadata) - set(_METADATA_OPTIONS))
     if unknown:
         raise InputError(
             f"fit_measurement_file: unknown option {unknown[0]!r}; accepted: "
-            f"{', '.join(_METADATA_OPTIONS + ('model', 'baseline', 'constraint'))}"
+            f"{', '.join(_METADATA_OPTIONS + _FIT_OPTIONS)}"
         )
     sources = list(path_or_text) if isinstance(path_or_text, (list, tuple)) else [path_or_text]
     measurements = [read_measurement(item, kind=kind, **metadata) for item in sources]
     measurement = combine_replicates(measurements)
+    model = DEFAULT_MODELS[kind] if fit_options["model"] is None else fit_options["model"]
+    if model not in FIT_MODELS[kind]:
+        raise InputError(f"unknown {kind} fit model {model!r}; accepted: {', '.join(FIT_MODELS[kind])}")
+    inputs = _model_inputs(measurement, sources[0], model=model, metadata=metadata, fit_options=fit_options)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", PhantomlabWarning)
-        result = fit_measurement(measurement, model=fit_options["model"], baseline=fit_options["baseline"],
+        result = fit_measurement(measurement, model=model, baseline=inputs.baseline if inputs.baseline is not None
+                                 else fit_options["baseline"],
                                  constraint=fit_options["constraint"])
     extra = [" ".join(str(w.message).split()) for w in caught if issubclass(w.category, PhantomlabWarning)]
-    result = result.with_warnings(extra)
+    result = _with_inputs(result, inputs, measurement).with_warnings(extra)
     for message in result.warnings:
         warnings.warn(message, PhantomlabWarning, stacklevel=2)
+    return result
+
+
+def _sidecar_table(source, kind: str, metadata: dict) -> dict:
+    """The sidecar mapping as given or read (to tell a sidecar value from a default)."""
+    if metadata.get("sidecar") is not None:
+        return dict(metadata["sidecar"])
+    if isinstance(source, Path) or "\n" not in str(source):
+        from phantomlab.calibration.measurements import read_sidecar
+
+        path = Path(source)
+        return read_sidecar(path, kind=kind) if path.is_file() else {}
+    return {}
+
+
+def _model_inputs(measurement: Measurement, source, *, model: str, metadata: dict, fit_options: dict):
+    from phantomlab.calibration.fit_inputs import resolve_model_inputs
+
+    given = {key: metadata.get(key) for key in ("n", "n_outside", "g")}
+    return resolve_model_inputs(
+        measurement, model=model, given=given, sidecar=_sidecar_table(source, measurement.kind, metadata),
+        g_fallback=fit_options["g_fallback"], baseline=fit_options["baseline"],
+        baseline_dir=fit_options["baseline_dir"], rebuild=bool(fit_options["rebuild"]),
+        progress=fit_options["progress"])
+
+
+def _with_inputs(result: FitResult, inputs, measurement: Measurement) -> FitResult:
+    """The fit with its inputs and their origins (JSON keys), and the note on g for the lookup."""
+    from phantomlab.calibration.fit_inputs import g_sensitivity_note
+
+    result = replace(result, extras={**dict(result.extras), **inputs.to_json()})
+    if inputs.g is not None and measurement.kind == "srdr" and inputs.g_origin != "baseline file":
+        note = g_sensitivity_note(g=inputs.g, g_origin=inputs.g_origin, rho_mm=measurement.axis,
+                                  musp_per_mm=result.musp_per_mm)
+        if note:
+            result = replace(result, extras={**dict(result.extras), "g_note": note})
     return result

@@ -4,6 +4,8 @@
                               [--mus-ref-per-mm S] [--photons P] [--seed S] [--threads T]
                               [--force] [--json]
     phantomlab baseline show FILE.npz [--json]
+    phantomlab baseline list [--baseline-dir FOLDER] [--json]
+    phantomlab baseline clear [--baseline-dir FOLDER] [--json]
 
 A baseline is one analog Monte Carlo run in a half-space at a reference (μa, μs) with every
 exit kept (``phantomlab.transport.montecarlo.build_baseline``); ``phantomlab fit --model mc
@@ -13,6 +15,13 @@ family.  JSON keys: ``file``, ``g``, ``n``, ``n_outside``, ``mua_ref_per_mm``,
 ``mus_ref_per_mm``, ``photons``, ``detected``, ``seed``, ``largest_exit_radius_mm``,
 ``max_musp_over_mua`` (the highest μs′/μa it can answer, (1 − g)·μs_ref/μa_ref),
 ``megabytes``, and for ``build`` ``seconds`` (simulation, compilation excluded where cached).
+
+``list`` and ``clear`` manage the per-user cache the default fits use
+(``phantomlab.calibration.baseline_cache``; folder: ``--baseline-dir``, else
+``$PHANTOMLAB_BASELINE_DIR``, else the user cache folder).  JSON: ``folder``, ``baselines``
+(each ``file``, ``g``, ``n``, ``n_outside``, ``photons``, ``megabytes``, ``modified``,
+``usable`` (true or the reason it would be refused), ``lookup_table``), ``megabytes`` (total);
+``clear``: ``folder``, ``removed`` (each ``file``, ``megabytes``), ``megabytes`` (freed).
 """
 
 from __future__ import annotations
@@ -21,6 +30,7 @@ import argparse
 from pathlib import Path
 
 from phantomlab.cli import CommandResult, add_json_option
+from phantomlab.commands._baseline_options import ProgressBar
 from phantomlab.errors import InputError
 
 __all__ = ["register"]
@@ -67,11 +77,58 @@ def register(subparsers) -> None:
     show.add_argument("file", metavar="FILE.npz", help="a file written by 'phantomlab baseline build'")
     add_json_option(show)
     show.set_defaults(handler=_show)
+    listing = actions.add_parser("list", help="the cached baselines the default fits use",
+                                 description="The Monte Carlo baselines in the per-user cache, with what they "
+                                 "were made for and whether a fit can use them.")
+    add_baseline_options_folder(listing)
+    add_json_option(listing)
+    listing.set_defaults(handler=_list)
+    clear = actions.add_parser("clear", help="delete the cached baselines (the next fit builds what it needs)",
+                               description="Delete every cached Monte Carlo baseline and its lookup table.")
+    add_baseline_options_folder(clear)
+    add_json_option(clear)
+    clear.set_defaults(handler=_clear)
     baseline.set_defaults(handler=_no_action)
 
 
+def add_baseline_options_folder(parser) -> None:
+    from phantomlab.calibration.baseline_cache import BASELINE_DIR_ENV
+
+    parser.add_argument("--baseline-dir", default=None, metavar="FOLDER",
+                        help=f"the cache folder (default: ${BASELINE_DIR_ENV}, else the user cache folder)")
+
+
 def _no_action(args: argparse.Namespace):
-    raise InputError("baseline: give an action: build or show")
+    raise InputError("baseline: give an action: build, show, list or clear")
+
+
+def _list(args: argparse.Namespace) -> CommandResult:
+    from phantomlab.calibration.baseline_cache import baseline_folder, list_cached
+
+    folder = baseline_folder(args.baseline_dir)
+    rows = list_cached(folder)
+    total = round(sum(r["megabytes"] for r in rows), 3)
+    lines = [f"cached Monte Carlo baselines in {folder}: {len(rows)} ({total:.1f} MB)"]
+    for r in rows:
+        made = (f"g {r['g']:g}, n {r['n']:g} / {r['n_outside']:g}, {r['photons']:,} photons"
+                if r["g"] is not None else "inputs unreadable")
+        state = "usable" if r["usable"] is True else f"refused: {r['usable']}"
+        lines.append(f"  {Path(r['file']).name}  {made}, {r['megabytes']:.1f} MB, {r['modified']}  ({state})")
+    if not rows:
+        lines.append("  none yet: the first default srdr/sfdi fit builds the one it needs")
+    return CommandResult(payload={"folder": str(folder), "baselines": rows, "megabytes": total},
+                         text="\n".join(lines))
+
+
+def _clear(args: argparse.Namespace) -> CommandResult:
+    from phantomlab.calibration.baseline_cache import baseline_folder, clear_cached
+
+    folder = baseline_folder(args.baseline_dir)
+    removed = clear_cached(folder)
+    freed = round(sum(r["megabytes"] for r in removed), 3)
+    text = (f"removed {len(removed)} files ({freed:.1f} MB) from {folder}" if removed
+            else f"nothing to remove in {folder}")
+    return CommandResult(payload={"folder": str(folder), "removed": removed, "megabytes": freed}, text=text)
 
 
 def _summary(baseline, path: Path) -> dict:
@@ -103,7 +160,7 @@ def _text(summary: dict, headline: str) -> str:
         f"({summary['megabytes']:.1f} MB)",
         f"  answers       musp/mua up to {summary['max_musp_over_mua']:.4g}; exits seen out to {reach_mm:.3g} mm "
         f"at the reference mus (further at lower mus, nearer at higher)",
-        "  use it with   phantomlab fit FILE.csv --kind srdr --model mc --baseline " + summary["file"],
+        "  use it with   phantomlab fit FILE.csv --kind srdr --baseline " + summary["file"],
     ])
 
 
@@ -122,7 +179,8 @@ def _build(args: argparse.Namespace) -> CommandResult:
         raise InputError(f"--photons must be at least 1000 for a usable baseline, got {args.photons}")
     check_limit("baseline_photons", args.photons, given=f"--photons {args.photons}")
     baseline = build_baseline(mua_per_mm=args.mua_ref_per_mm, mus_per_mm=args.mus_ref_per_mm, g=args.g, n=args.n,
-                              n_outside=args.n_outside, photons=args.photons, seed=args.seed, threads=args.threads)
+                              n_outside=args.n_outside, photons=args.photons, seed=args.seed, threads=args.threads,
+                              progress=ProgressBar(title=f"building {out} (Ctrl-C stops it, nothing is written)"))
     baseline.save(out)
     summary = _summary(baseline, out)
     summary["seconds"] = round(float(baseline.seconds), 3)

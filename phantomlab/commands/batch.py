@@ -30,6 +30,8 @@ from pathlib import Path
 from typing import Any
 
 from phantomlab.cli import CommandResult, add_json_option
+from phantomlab.commands._baseline_options import ProgressBar, add_baseline_options
+from phantomlab.commands.fit import input_lines
 from phantomlab.commands.batch_exclusion import add_exclusion_actions, exclude_handler, include_handler
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.workflows import parse_amounts_csv, tolerance_alarms  # one implementation with the page
@@ -91,7 +93,10 @@ def register(subparsers) -> None:
     measure.add_argument("--n", type=float, metavar="N", help="refractive index of the phantom")
     measure.add_argument("--thickness-mm", type=float, metavar="D")
     measure.add_argument("--g", type=float, metavar="G")
-    measure.add_argument("--baseline", metavar="FILE", help="Monte Carlo baseline for --model mc")
+    measure.add_argument("--baseline", metavar="FILE",
+                         help="a stored Monte Carlo baseline file instead of the cached one (default model mc: "
+                         "g from the batch's scattering model, the baseline from the cache, built once)")
+    add_baseline_options(measure)
     measure.add_argument("--no-fit", action="store_true", help="store the file only")
     measure.add_argument("--operator", metavar="NAME")
 
@@ -350,6 +355,7 @@ def _measure(args) -> CommandResult:
             sidecar_toml=read_text_file(sidecar, what="measurement metadata file") if sidecar.is_file() else None,
             path=path,
             fit=not args.no_fit, model=args.model, baseline=args.baseline, options=options,
+            baseline_dir=args.baseline_dir, rebuild=args.rebuild, progress=ProgressBar(),
             instrument=args.instrument, measured_on=_date(args.measured_on, option="--measured-on"),
             phantom_age_days=args.age_days, temperature_c=args.temperature_c, recorded_by=args.operator,
         )
@@ -369,6 +375,7 @@ def _measure(args) -> CommandResult:
              + (f", phantom age {age:g} days" if age is not None else "")]
     if fit_json is not None:
         lines.append(f"fit {fit_id} ({fit_json.get('model')}, reduced chi2 {_fmt(fit_json.get('chi2_red'), 3)}):")
+        lines += [f"  {line}" for line in input_lines(fit_json)]
         for i, w in enumerate(fit_json.get("wavelength_nm", [])):
             lines.append(f"  {w:g} nm  mua {_fmt(fit_json['mua_per_mm'][i])} ± {_fmt(fit_json['mua_sd_per_mm'][i], 2)} /mm"
                          f"   mus' {_fmt(fit_json['musp_per_mm'][i])} ± {_fmt(fit_json['musp_sd_per_mm'][i], 2)} /mm")

@@ -1,9 +1,13 @@
 """``phantomlab fit``: fitted μa and μs′ of a measurement file (layer 5, no physics).
 
     phantomlab fit MEASUREMENT.csv --kind {srdr,sfdi,slab,sphere,optics,td,fd} [--n N] [--n-outside N]
-                   [--thickness-mm D] [--model M] [--g G] [--baseline FILE] [--irf IRF.csv]
-                   [--geometry {reflectance,transmittance}]
+                   [--thickness-mm D] [--model M] [--g G] [--baseline FILE] [--rebuild]
+                   [--baseline-dir FOLDER] [--irf IRF.csv] [--geometry {reflectance,transmittance}]
                    [--musp-power-law] [--mua-from-stocks RECIPE.toml] [--json]
+
+srdr and sfdi fit with the Monte Carlo lookup unless ``--model`` names a diffusion model; its
+baseline (one per g, n, n_outside) comes from the per-user cache and is built there on first
+use, with a progress bar on stderr (``phantomlab baseline list|clear``).
 
 JSON keys (docs/contract.md): ``wavelength_nm``, ``mua_per_mm``, ``musp_per_mm``, ``mua_sd_per_mm``,
 ``musp_sd_per_mm``, ``model``, ``chi2_red``, ``warnings``; extras: ``kind``,
@@ -18,6 +22,10 @@ Several files after each other are replicates of one phantom, combined with thei
 ``amplitude``, ``background_counts`` (per wavelength and distance); fd adds
 ``phase_offset_deg``, ``phase_offset_sd_deg``, ``frequency_mhz`` when the phase offset was
 fitted, and ``amplitude_scale_factor`` for a relative amplitude.
+What the srdr/sfdi model ran with: ``n_used``, ``n_origin``, ``n_outside_used``,
+``n_outside_origin`` (option, sidecar, default), ``g_used``, ``g_origin`` (option, sidecar,
+batch, default, baseline file), ``baseline`` (the file), ``baseline_origin`` (cache, cache
+(built now), file), ``g_note``.
 """
 
 from __future__ import annotations
@@ -25,6 +33,7 @@ from __future__ import annotations
 import numpy as np
 
 from phantomlab.cli import CommandResult, add_json_option
+from phantomlab.commands._baseline_options import ProgressBar, add_baseline_options
 
 __all__ = ["register"]
 
@@ -46,14 +55,17 @@ def register(subparsers) -> None:
                         help="refractive index outside (default 1.0, air)")
     parser.add_argument("--thickness-mm", type=float, default=None, metavar="D", help="slab thickness in mm")
     parser.add_argument("--model", default=None, metavar="M",
-                        help="srdr: kienle1997 (default), farrell1992, mc; sfdi: cuccia2009 (default), mc; "
-                        "slab, sphere: adding-doubling; td: kienle1997 (default), contini1997, patterson1989, mc; "
-                        "fd: kienle1997 (default), contini1997, mc, fantini1994 (slope method)")
+                        help="srdr: mc (default, Monte Carlo lookup), kienle1997, farrell1992; sfdi: mc "
+                        "(default), cuccia2009; slab, sphere: adding-doubling; td: kienle1997 (default), "
+                        "contini1997, patterson1989, mc; fd: kienle1997 (default), contini1997, mc, "
+                        "fantini1994 (slope method)")
     parser.add_argument("--g", type=float, default=None, metavar="G",
-                        help="anisotropy assumed (slab, sphere); without it g is fitted from the collimated "
-                        "transmittance when the file has it")
+                        help="anisotropy: the Monte Carlo lookup's baseline (srdr, sfdi; default 0.8, said "
+                        "in the output; 0-0.95); slab, sphere: assumed (without it g is fitted from the "
+                        "collimated transmittance when the file has it)")
     parser.add_argument("--baseline", default=None, metavar="FILE",
-                        help="stored Monte Carlo baseline for --model mc")
+                        help="a stored Monte Carlo baseline file to use instead of the cached one")
+    add_baseline_options(parser)
     parser.add_argument("--irf", default=None, metavar="IRF.csv",
                         help="td: the instrument response (time_ps,counts), instead of irf = ... in the sidecar")
     parser.add_argument("--geometry", default=None, choices=("reflectance", "transmittance"),
@@ -137,7 +149,23 @@ def _table(result) -> str:
         freq = result.curves.get("frequency_mhz", [])
         for w, row in zip(result.wavelength_nm, offsets):
             lines.append(f"phase offset at {w:g} nm: " + ", ".join(f"{f:g} MHz {o:.2f} deg" for f, o in zip(freq, row)))
+    lines += input_lines(result.extras)
     return "\n".join(lines)
+
+
+def input_lines(inputs) -> list[str]:
+    """What the model ran with, from a fit's ``extras`` or JSON (the keys ``n_used`` ... ``g_note``)."""
+    lines = []
+    if inputs.get("n_used") is not None:
+        lines.append(f"n = {inputs['n_used']:g} ({inputs.get('n_origin')}), n_outside = "
+                     f"{inputs.get('n_outside_used', 1.0):g} ({inputs.get('n_outside_origin')})")
+    if inputs.get("g_used") is not None:
+        lines.append(f"g = {inputs['g_used']:g} ({inputs.get('g_origin')})")
+    if inputs.get("baseline"):
+        lines.append(f"baseline: {inputs['baseline']} ({inputs.get('baseline_origin')})")
+    if inputs.get("g_note"):
+        lines.append(f"note: {inputs['g_note']}")
+    return lines
 
 
 def _fit(args) -> CommandResult:
@@ -154,6 +182,6 @@ def _fit(args) -> CommandResult:
     result = fit_measurement_file(
         files, kind=args.kind, n=args.n, n_outside=args.n_outside, thickness_mm=args.thickness_mm,
         g=args.g, model=args.model, baseline=args.baseline, constraint=constraint, irf=args.irf,
-        geometry=args.geometry,
+        geometry=args.geometry, baseline_dir=args.baseline_dir, rebuild=args.rebuild, progress=ProgressBar(),
     )
     return CommandResult(payload=result.to_json(), text=_table(result))

@@ -299,6 +299,8 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
             if not inline.ok:
                 return
             sidecar_text = _with_irf(sidecar_text, inline.value)
+    if model == "mc" and kind in ("srdr", "sfdi") and not _baseline_ready(store, batch, kind, upload, sidecar, n):
+        return
     with st.spinner("Fitting the measurement…"):
         outcome = call_layer(
             "Attaching the measurement", attach_measurement, store, batch["code"], kind=kind,
@@ -358,6 +360,33 @@ def _with_irf(sidecar_text: str | None, irf: dict) -> str:
         return sidecar_text or ""  # the workflow refuses the unreadable file in one line
     table["irf"] = irf
     return tomli_w.dumps(table)
+
+
+def _baseline_ready(store, batch: dict, kind: str, upload, sidecar, n: float) -> bool:
+    """Make sure the cached Monte Carlo baseline the default fit will use exists (built with progress)."""
+    import tomllib
+
+    from phantomlab.calibration import read_measurement  # layer 3
+    from phantomlab.calibration.baseline_cache import DEFAULT_G
+    from phantomlab.ui.baseline_build import page_baseline
+    from phantomlab.workflows import batch_anisotropy
+
+    try:
+        table = tomllib.loads(sidecar.getvalue().decode("utf-8", "replace")) if sidecar is not None else {}
+    except tomllib.TOMLDecodeError:
+        return True  # the attach refuses the metadata itself, in one line
+    read = call_layer("Reading the measurement", read_measurement, upload.getvalue().decode("utf-8", "replace"),
+                      kind=kind, sidecar=table, show=False)
+    if not read.ok:
+        return True  # the attach names what is wrong with the file
+    g = table.get("g")
+    if g is None:
+        found = call_layer("Reading the batch's scattering model", batch_anisotropy, store, batch["code"],
+                           wavelength_nm=read.value.wavelength_nm, show=False)
+        g = found.value[0] if found.ok and found.value is not None else DEFAULT_G
+    cached = page_baseline(g=float(g), n=float(n), n_outside=float(table.get("n_outside", 1.0)),
+                           key="batches.baseline", offer_rebuild=False)
+    return cached is not None
 
 
 def _status_section(store, batch: dict) -> None:

@@ -181,8 +181,8 @@ def seed_demo_database(workspace: Workspace) -> None:
                     wavelength_nm=made.wavelength_nm, mua_per_mm=made.mua_per_mm, musp_per_mm=musp,
                     seed=100 * number + index, label=f"batch {code}, day {age:g}",
                 )
-                attach_measurement(
-                    store, code, kind="srdr", file_name=f"demo-{code}-day{age:g}.csv",
+                attach_measurement(  # fitted with the model that made the file (the demo's own loop)
+                    store, code, kind="srdr", file_name=f"demo-{code}-day{age:g}.csv", model="kienle1997",
                     raw_content=text.encode("utf-8"), sidecar_toml=DEMO_SIDECAR,
                     measured_on=mixed_on + _dt.timedelta(days=int(age)), phantom_age_days=age,
                     instrument="demo fibre probe (invented)", recorded_by=DEMO_OPERATOR,

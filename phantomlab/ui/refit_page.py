@@ -7,8 +7,10 @@ Flows:
   residuals (slabs and sphere readings: R, T and the collimated transmittance measured
   against the model per wavelength), and the fitted μa and μs′ (and g, when the collimated
   transmittance gives it) with their SD against the batch's target; keep the fit in the
-  batch log.  A Monte Carlo model needs a baseline: building one shows a progress
-  indicator, and the baseline is kept for later fits;
+  batch log.  The default srdr/sfdi model, the Monte Carlo lookup, takes its baseline from
+  the per-user cache for g (the batch's scattering model, else the field) and n; a missing
+  one is built once with a progress bar and a stop button (``baseline_build.py``); the page
+  says which n, g and baseline the fit used and where they came from;
 * recalibrate the stock potencies from the batch log: each factor before and after, the
   batches that moved it, and its history across calibrations;
 * the corrected plan of the next batch with the calibrated potencies (sheet, save as a new
@@ -81,6 +83,22 @@ def _irf_inline(raw: bytes, name: str) -> dict:
     return irf_table(times, counts, wavelengths)
 
 
+def _suggested_g(store, batch, measurement, sidecar: dict) -> tuple[float, str]:
+    """g for the Monte Carlo baseline: the sidecar's, else the batch's scattering model, else the default."""
+    from phantomlab.calibration.baseline_cache import DEFAULT_G  # layer 3
+
+    if sidecar.get("g") is not None:
+        return float(sidecar["g"]), "sidecar"
+    if batch is not None and measurement is not None:
+        from phantomlab.workflows import batch_anisotropy
+
+        found = call_layer("Reading the batch's scattering model", batch_anisotropy, store, batch["code"],
+                           wavelength_nm=measurement.wavelength_nm, show=False)
+        if found.ok and found.value is not None:
+            return round(float(found.value[0]), 2), "batch"
+    return DEFAULT_G, "default"
+
+
 def _baseline_folder(workspace: Workspace) -> Path:
     """Demo: ``demo-data/baselines``; a lab: ``phantomlab-baselines`` in the working folder."""
     if workspace.is_demo:
@@ -138,13 +156,14 @@ def _baseline_section(workspace: Workspace, n: float):
     st.rerun()
 
 
-def _fit(text: str, kind: str, sidecar: dict, model: str, options: dict, baseline, power_law: bool):
+def _fit(text: str, kind: str, sidecar: dict, model: str, options: dict, g_fallback, power_law: bool,
+         baseline=None):
     from phantomlab.calibration import fit_measurement_file  # layer 3
     from phantomlab.calibration.spectral import SpectralConstraint
 
     constraint = SpectralConstraint(musp_power_law=True) if power_law else None
-    return fit_measurement_file(text, kind=kind, sidecar=sidecar, model=model, baseline=baseline,
-                                constraint=constraint, **options)
+    return fit_measurement_file(text, kind=kind, sidecar=sidecar, model=model, constraint=constraint,
+                                g_fallback=g_fallback, baseline=baseline, **options)
 
 
 # ---- showing a fit ------------------------------------------------------------------------------
@@ -318,8 +337,9 @@ def _fit_section(workspace: Workspace, store) -> None:
         sidecar["irf"] = inline.value
     c1, c2, c3, c4 = st.columns(4)
     model = c1.selectbox("Forward model", FIT_MODELS[kind], key=f"refit.model.{kind}",
-                         help="diffusion: fast, poor within ~1 transport mean free path of the source; "
-                              "mc: a Monte Carlo lookup, good at all distances")
+                         help="mc (default): the Monte Carlo lookup, good at every distance and albedo; "
+                              "diffusion: fast, poor within ~1 transport mean free path of the source and "
+                              "biased in μa at high albedo")
     n = c2.number_input("Phantom refractive index n [dimensionless]", min_value=1.0, max_value=3.0,
                         value=float(sidecar.get("n", 1.33)), step=0.01, key="refit.n")
     power_law = c3.checkbox("Fit μs′ as a power law", key="refit.power_law",
@@ -328,7 +348,8 @@ def _fit_section(workspace: Workspace, store) -> None:
     if kind in ("td", "fd"):
         power_law = False
         st.caption(PULSED_SOURCES)
-    options: dict = {"n": float(n)}
+    # the field starts at the sidecar's n: passed as an option only when changed (the fit says where n came from)
+    options: dict = {} if sidecar.get("n") is not None and abs(float(n) - float(sidecar["n"])) < 1e-12 else {"n": float(n)}
     if kind == "td":
         geometry = c4.selectbox("Geometry", ("reflectance", "transmittance"),
                                 index=1 if sidecar.get("geometry") == "transmittance" else 0, key="refit.geometry")
@@ -349,20 +370,37 @@ def _fit_section(workspace: Workspace, store) -> None:
             options["g"] = c4.number_input("Anisotropy g assumed [dimensionless]", min_value=0.0, max_value=0.99,
                                            value=float(sidecar.get("g", 0.8)), step=0.05, key="refit.g")
     if kind == "optics":
-        options.pop("n")
-    baseline = None
-    if model == "mc":
-        baseline = _baseline_section(workspace, float(n))
-        if baseline is None:
-            st.info("Choose or build a baseline to fit with the Monte Carlo model.")
-            return
+        options.pop("n", None)
     text = raw.decode("utf-8", "replace")
     if "\n" not in text:  # the layer reads a one-line string as a path: an upload is text, never a server path
         text += "\n"
+    read = call_layer("Reading the measurement", _read, text, kind, sidecar, options, show=False)
+    baseline, g_fallback, given_baseline = None, None, None
+    if model == "mc" and kind not in ("srdr", "sfdi"):  # td, fd: a baseline file with its time tally
+        given_baseline = baseline = _baseline_section(workspace, float(n))
+        if baseline is None:
+            st.info("Choose or build a baseline to fit with the Monte Carlo model.")
+            return
+    elif model == "mc":
+        from phantomlab.ui.baseline_build import page_baseline
+
+        suggested, origin = _suggested_g(store, batch, read.value if read.ok else None, sidecar)
+        g = c4.number_input("Anisotropy g of the scatterers [dimensionless]", min_value=0.0, max_value=0.95,
+                            value=float(suggested), step=0.01, format="%.2f", key=f"refit.mc_g.{picked}",
+                            help=f"for the Monte Carlo baseline; suggested from the {origin}"
+                                 + ("" if origin != "default" else " (no batch model or sidecar value)"))
+        if abs(g - suggested) > 1e-9:
+            options["g"] = float(g)
+        else:
+            g_fallback = (float(suggested), origin)
+        cached = page_baseline(g=float(g), n=float(n), n_outside=float(sidecar.get("n_outside", 1.0)),
+                               key="refit.baseline")
+        if cached is None:
+            return
+        baseline = cached.baseline
     with st.spinner("Fitting…"):
-        fitted = call_layer("Fitting the measurement", _fit, text, kind, sidecar, model, options, baseline,
-                            bool(power_law), show=False)
-        read = call_layer("Reading the measurement", _read, text, kind, sidecar, options, show=False)
+        fitted = call_layer("Fitting the measurement", _fit, text, kind, sidecar, model, options, g_fallback,
+                            bool(power_law), given_baseline, show=False)
     if not fitted.ok:
         st.error(plain(fitted.error))
         return
@@ -371,6 +409,13 @@ def _fit_section(workspace: Workspace, store) -> None:
     st.markdown(f"Model **{result.model}** · reduced χ² **{chi2}** · {result.wavelength_nm.size} wavelength(s)")
     show_fit_quality(result)
     show_warnings(result.warnings)
+    from phantomlab.ui.baseline_build import describe_inputs
+
+    used = describe_inputs(dict(result.extras))
+    if used:
+        st.caption(plain(f"Used: {used}"))
+    if result.extras.get("g_note"):
+        st.caption(plain(result.extras["g_note"]))
     if read.ok and kind in ("td", "fd"):
         from phantomlab.ui.time_view import show_fd_fit, show_td_fit
 

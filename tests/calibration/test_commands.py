@@ -33,7 +33,9 @@ def test_fit_json_has_exactly_the_design_keys_first(lab, tmp_path, capsys):
     payload = json.loads(out)
     assert list(payload)[: len(FIT_KEYS) - 1] == FIT_KEYS[:-1]
     assert set(FIT_KEYS) <= set(payload)
-    assert payload["model"] == "diffusion-kienle1997"  # the default srdr model
+    assert payload["model"] == "mc-lookup"  # the default srdr model: the Monte Carlo lookup
+    assert (payload["n_used"], payload["n_origin"], payload["g_used"], payload["g_origin"]) == (1.33, "sidecar", 0.8,
+                                                                                              "default")
     assert len(payload["mua_per_mm"]) == len(payload["wavelength_nm"]) == 22
     assert out.count("\n") == 1  # one JSON object, nothing else
 
@@ -126,7 +128,8 @@ def test_fit_with_mua_from_the_recipe_stocks_reports_amounts(lab, tmp_path, caps
     dose = {"lipid20": 0.04, "ink_black": 3e-5, "dye_nir": 2e-5}
     path = tmp_path / "m3.csv"
     path.write_text(lab["measure"](recipe, dose, truth, seed=4))
-    code, out, err = _run(capsys, ["fit", str(path), "--kind", "srdr", "--n", "1.33", "--json",
+    # the file is made by the diffusion model: fitted with it, the constraint's arithmetic is under test
+    code, out, err = _run(capsys, ["fit", str(path), "--kind", "srdr", "--n", "1.33", "--json", "--model", "kienle1997",
                                    "--mua-from-stocks", str(lab["folder"] / "lab.toml")])
     assert code == 0, err
     amounts = json.loads(out)["parameters"]

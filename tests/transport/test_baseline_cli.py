@@ -51,7 +51,7 @@ def test_build_writes_what_build_baseline_makes(built, capsys):
 def test_show_as_text_says_how_to_use_it(built, capsys):
     status, out, _ = _run(capsys, "baseline", "show", str(built))
     assert status == 0
-    assert "musp/mua up to 500" in out and f"--model mc --baseline {built}" in out
+    assert "musp/mua up to 500" in out and f"--kind srdr --baseline {built}" in out
 
 
 def test_fit_uses_the_built_baseline(built, capsys, tmp_path):
@@ -101,11 +101,11 @@ def test_an_interrupted_save_leaves_the_old_file(built, monkeypatch, tmp_path):
     (["baseline", "build", "OUT.txt", "--g", "0.8", "--n", "1.4"], "baseline file must end in .npz, got 'OUT.txt'"),
     (["baseline", "build", "no/such/folder/b.npz", "--g", "0.8", "--n", "1.4"], "folder no/such/folder does not exist"),
     (["baseline", "build", "b.npz", "--g", "0.8", "--n", "1.4", "--photons", "10"],
-     "--photons must be at least 1000 for a usable baseline, got 10"),
+     "--photons must lie between 1000 and 10,000,000 (about 100 MB and 10 minutes), got 10"),
     (["baseline", "build", "b.npz", "--g", "1.2", "--n", "1.4", "--photons", "5000"],
      "g must lie strictly inside (-1, 1), got 1.2"),
     (["baseline", "show", "missing.npz"], "no baseline file missing.npz"),
-    (["baseline"], "baseline: give an action: build or show"),
+    (["baseline"], "baseline: give an action: build, show, list or clear"),
 ])
 def test_bad_input_is_one_line(capsys, tmp_path, monkeypatch, argv, message):
     monkeypatch.chdir(tmp_path)

@@ -107,15 +107,44 @@ def test_another_model_can_be_chosen(refit):
     assert any("diffusion-farrell1992" in m.value for m in refit.markdown)
 
 
-def test_a_monte_carlo_baseline_is_built_with_a_progress_indicator_and_used(refit, demo_file):
-    refit.selectbox(key="refit.model.srdr").set_value("mc").run()
-    assert any("Choose or build a baseline" in i.value for i in refit.info)
-    refit.number_input(key="refit.photons").set_value(20_000)
-    refit.button(key="refit.build").click().run()
+def test_the_default_model_is_the_monte_carlo_lookup_and_the_page_says_what_it_used(refit):
+    # the demo batch's scattering model gives g (0.58 over 660-850 nm); its baseline is in the test cache
+    assert refit.selectbox(key="refit.model.srdr").value == "mc"
+    assert any("mc-lookup" in m.value for m in refit.markdown)
+    used = [c.value for c in refit.caption if c.value.startswith("Used: ")][0]
+    assert "n = 1.33 (sidecar)" in used and "g = 0.58 (batch)" in used
+    assert "baseline-g0.58-n1.330-out1.000.npz (cache)" in used
+
+
+@pytest.mark.builds_baseline
+def test_a_missing_baseline_is_built_with_a_progress_indicator_and_used(refit, tmp_path, monkeypatch):
+    from phantomlab.calibration import baseline_cache
+
+    monkeypatch.setenv("PHANTOMLAB_BASELINE_DIR", str(tmp_path))
+    monkeypatch.setattr(baseline_cache, "CACHE_PHOTONS", 20_000)  # a small one for the test
+    refit.run()
     assert not refit.exception
     assert any("Baseline built" in s.value for s in refit.success)
     assert any("mc-lookup" in m.value for m in refit.markdown)
-    assert list((demo_file.parent / "baselines").glob("*.npz"))
+    assert (tmp_path / "baseline-g0.58-n1.330-out1.000.npz").is_file()
+    assert any("(cache)" in c.value for c in refit.caption if c.value.startswith("Used: "))
+
+
+@pytest.mark.builds_baseline
+def test_a_refused_cached_baseline_is_rebuilt_only_when_the_user_agrees(refit, tmp_path, monkeypatch):
+    from phantomlab.calibration import baseline_cache
+
+    monkeypatch.setenv("PHANTOMLAB_BASELINE_DIR", str(tmp_path))
+    monkeypatch.setattr(baseline_cache, "CACHE_PHOTONS", 20_000)
+    damaged = tmp_path / "baseline-g0.58-n1.330-out1.000.npz"
+    damaged.write_bytes(b"not a baseline")
+    refit.run()
+    assert any("cannot be used" in e.value for e in refit.error)
+    assert damaged.read_bytes() == b"not a baseline"  # nothing replaced without the user's agreement
+    refit.button(key="refit.baseline.rebuild").click().run()
+    assert not refit.exception
+    assert any("Baseline built" in s.value for s in refit.success)
+    assert damaged.read_bytes() != b"not a baseline"
 
 
 def test_keeping_a_fit_adds_it_to_the_measurement(refit, demo_file):

@@ -1,0 +1,196 @@
+"""What a fit's model is run with, and where each input came from (layer 3).
+
+A fit states the refractive indices, the anisotropy g and the Monte Carlo baseline it used,
+each with its origin, so that a reader of its JSON or table can tell an assumption from a
+measurement:
+
+* ``n_used`` / ``n_outside_used``: from an option (``--n``, the page's field), else the
+  measurement's sidecar, else (n_outside only) the default 1.0 (air);
+* ``g_used`` (Monte Carlo lookup only): from an option (``--g``), else the sidecar, else the
+  batch's scattering model (the prediction of the batch's plan, when the measurement
+  belongs to a batch), else :data:`~phantomlab.calibration.baseline_cache.DEFAULT_G`, or the
+  g of a baseline file given explicitly;
+* ``baseline``: the cache file used (built now, or read), or the file given.
+
+The origins are ``option``, ``sidecar``, ``batch``, ``default``, ``baseline file``; for the
+baseline ``cache``, ``cache (built now)``, ``file``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Mapping
+
+import numpy as np
+
+from phantomlab.errors import InputError
+
+__all__ = ["ModelInputs", "resolve_model_inputs", "g_sensitivity_note"]
+
+#: How much R(ρ) at fixed μs′ and μa moves when g changes by 0.1, by distance in transport
+#: lengths ρ·μs′ (fractions).  Measured from the independent Monte Carlo fixtures
+#: (tests/calibration/fixtures/mc_default_srdr.npz: the same media at g = 0.7 and 0.9, half
+#: the log ratio, the largest over μs′/μa = 10-1000 and n = 1.33, 1.43;
+#: tests/calibration/test_default_fit.py holds the table to them).
+G_SENSITIVITY_TRANSPORT_LENGTHS = (0.5, 1.0, 2.0, 4.0)
+G_SENSITIVITY_PER_0_1 = (0.054, 0.024, 0.010, 0.005)
+
+
+@dataclass(frozen=True)
+class ModelInputs:
+    """Inputs of one fit with their origins (see the module docstring)."""
+
+    n: float | None
+    n_origin: str | None
+    n_outside: float
+    n_outside_origin: str
+    g: float | None = None
+    g_origin: str | None = None
+    baseline: Any = None
+    baseline_path: str | None = None
+    baseline_origin: str | None = None
+
+    def to_json(self) -> dict[str, Any]:
+        """The JSON keys: ``n_used``, ``n_origin``, ``n_outside_used``, ``n_outside_origin``,
+        ``g_used``, ``g_origin``, ``baseline``, ``baseline_origin``."""
+        return {"n_used": self.n, "n_origin": self.n_origin, "n_outside_used": self.n_outside,
+                "n_outside_origin": self.n_outside_origin, "g_used": self.g, "g_origin": self.g_origin,
+                "baseline": self.baseline_path, "baseline_origin": self.baseline_origin}
+
+    def lines(self) -> list[str]:
+        """One readable line per input, for the command's table and the page."""
+        out = [f"n = {self.n:g} ({self.n_origin}), n_outside = {self.n_outside:g} ({self.n_outside_origin})"
+               if self.n is not None else f"n_outside = {self.n_outside:g} ({self.n_outside_origin})"]
+        if self.g is not None:
+            out.append(f"g = {self.g:g} ({self.g_origin})")
+        if self.baseline_path is not None:
+            out.append(f"baseline {self.baseline_path} ({self.baseline_origin})")
+        return out
+
+
+def _origin(key: str, given: Mapping[str, Any], sidecar: Mapping[str, Any]) -> str | None:
+    if given.get(key) is not None:
+        return "option"
+    if sidecar.get(key) is not None:
+        return "sidecar"
+    return None
+
+
+def resolve_model_inputs(
+    measurement,
+    *,
+    model: str,
+    given: Mapping[str, Any],
+    sidecar: Mapping[str, Any],
+    g_fallback: tuple[float, str] | None = None,
+    baseline=None,
+    baseline_dir=None,
+    rebuild: bool = False,
+    progress=None,
+) -> ModelInputs:
+    """The indices, g and baseline a fit of ``measurement`` uses, with their origins.
+
+    Parameters
+    ----------
+    measurement : Measurement
+        Read with the options already applied (its metadata hold the values used).
+    model : str
+        The fit model; ``mc`` resolves g and the baseline, building the cached one if needed.
+    given : mapping
+        The options the caller gave (``n``, ``n_outside``, ``g``; None = not given).
+    sidecar : mapping
+        The sidecar table as read (to tell a sidecar value from a default).
+    g_fallback : (float, str), optional
+        g and its origin when neither option nor sidecar gives one (the batch's scattering
+        model).
+    baseline : Baseline, TabulatedBaseline or path, optional
+        An explicit baseline (``--baseline FILE``): used as given, g taken from it.
+    baseline_dir, rebuild, progress
+        For the cache (:func:`phantomlab.calibration.baseline_cache.obtain_baseline`).
+
+    Returns
+    -------
+    ModelInputs
+    """
+    meta = measurement.metadata
+    n = None if meta.n is None else float(meta.n)
+    n_origin = _origin("n", given, sidecar) if n is not None else None
+    n_outside = float(meta.n_outside)
+    n_outside_origin = _origin("n_outside", given, sidecar) or "default"
+    inputs = ModelInputs(n=n, n_origin=n_origin, n_outside=n_outside, n_outside_origin=n_outside_origin)
+    if model != "mc" or measurement.kind not in ("srdr", "sfdi"):
+        return inputs
+    if n is None:
+        raise InputError(f"the {measurement.kind} fit needs the phantom's refractive index: give --n N or "
+                         f"n = ... in the sidecar")
+    g_origin = _origin("g", given, sidecar)
+    g = {"option": given.get("g"), "sidecar": meta.g if meta.g is not None else sidecar.get("g")}.get(g_origin)
+    g = None if g is None else float(g)
+    if baseline is not None:
+        path = None
+        if isinstance(baseline, (str, Path)):
+            path = Path(baseline)
+            if not path.is_file():
+                raise InputError(f"baseline file {str(path)!r} not found")
+            from phantomlab.transport.montecarlo import load_baseline
+
+            baseline = load_baseline(path)
+        made_g = float(baseline.g)
+        if g is not None and abs(g - made_g) > 0.005:
+            raise InputError(f"g = {g:g} ({g_origin}) but the baseline {path or 'given'} was made for g = "
+                             f"{made_g:g}; drop one of them")
+        return ModelInputs(n=n, n_origin=n_origin, n_outside=n_outside, n_outside_origin=n_outside_origin,
+                           g=made_g, g_origin="baseline file", baseline=baseline,
+                           baseline_path=None if path is None else str(path), baseline_origin="file")
+    if g is None and g_fallback is not None:
+        g, g_origin = float(g_fallback[0]), str(g_fallback[1])
+    if g is None:
+        from phantomlab.calibration.baseline_cache import DEFAULT_G
+
+        g, g_origin = DEFAULT_G, "default"
+    from phantomlab.calibration.baseline_cache import cache_settings, obtain_baseline
+
+    rounded = cache_settings(g=g, n=n, n_outside=n_outside)
+    cached = obtain_baseline(g=g, n=n, n_outside=n_outside, folder=baseline_dir, rebuild=rebuild, progress=progress)
+    return ModelInputs(n=n, n_origin=n_origin, n_outside=n_outside, n_outside_origin=n_outside_origin,
+                       g=rounded["g"], g_origin=g_origin, baseline=cached.baseline, baseline_path=str(cached.path),
+                       baseline_origin="cache (built now)" if cached.built else "cache")
+
+
+def g_sensitivity_note(*, g: float, g_origin: str, rho_mm, musp_per_mm) -> str | None:
+    """How much an error of 0.1 in the assumed g moves R at the data's shortest distance.
+
+    Parameters
+    ----------
+    g : float
+        The g used.
+    g_origin : str
+        Where it came from (the note is given when it was not measured: ``default``,
+        ``batch``; an option or sidecar value is the user's own statement, noted too).
+    rho_mm : array [mm]
+        The distances of the fit.
+    musp_per_mm : array [1/mm]
+        Fitted μs′ per wavelength.
+
+    Returns
+    -------
+    str or None
+    """
+    rho = np.asarray(rho_mm, float)
+    musp = np.asarray(musp_per_mm, float)
+    musp = musp[np.isfinite(musp) & (musp > 0)]
+    if rho.size == 0 or musp.size == 0:
+        return None
+    shortest = float(np.min(rho[rho > 0])) * float(np.min(musp))
+    nodes = np.log(G_SENSITIVITY_TRANSPORT_LENGTHS)
+    values = np.log(G_SENSITIVITY_PER_0_1)
+    if shortest < G_SENSITIVITY_TRANSPORT_LENGTHS[0]:
+        size = f"more than {100 * G_SENSITIVITY_PER_0_1[0]:.0f} %"
+    else:
+        size = f"about {100 * float(np.exp(np.interp(np.log(shortest), nodes, values))):.1g} %"
+    how = {"default": "assumed (default; give --g G, or fit the batch's measurement through the batch log)",
+           "batch": "from the batch's scattering model"}.get(g_origin, f"from the {g_origin}")
+    return (f"Monte Carlo lookup with g = {g:g} {how}: at the shortest distance ({shortest:.2g} transport "
+            f"lengths) a change of g by 0.1 moves R by {size}; beyond a few transport lengths R depends "
+            f"on mus' alone")

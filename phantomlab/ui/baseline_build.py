@@ -1,0 +1,92 @@
+"""The cached Monte Carlo baseline a page fit needs: found, or built with progress and a stop button.
+
+The default srdr/sfdi fit (the Monte Carlo lookup) needs a baseline for (g, n, n_outside)
+from the per-user cache (``phantomlab.calibration.baseline_cache``).  When there is none, the
+page builds it once (about half a minute) with a progress bar and a "Stop the build" button:
+pressing it makes Streamlit rerun the page, which ends the build at its next progress step,
+and nothing is written.  A cached file that is refused (damaged, another version, other
+indices) is named, and built again only when the user presses the button that says so.
+"""
+
+from __future__ import annotations
+
+import time
+
+import streamlit as st
+
+from phantomlab.ui.widgets import call_layer
+
+__all__ = ["page_baseline", "describe_inputs"]
+
+
+def _stop(key: str) -> None:
+    st.session_state[f"{key}.stopped"] = True
+
+
+def page_baseline(*, g: float, n: float, n_outside: float, key: str, offer_rebuild: bool = True):
+    """The cached baseline for (g, n, n_outside), building it when missing; None while there is none.
+
+    ``offer_rebuild=False`` (inside a form's submitted run, where a second button cannot
+    carry on the flow): a refused file is named with where to build it again.
+
+    Returns
+    -------
+    CachedBaseline or None
+        None when the user has to act first (a refused file, a stopped build) or the build failed;
+        the page says which.
+    """
+    from phantomlab.calibration.baseline_cache import CachedBaselineError, find_cached_baseline, obtain_baseline
+
+    rebuild = False
+    try:
+        found = find_cached_baseline(g=g, n=n, n_outside=n_outside)
+    except CachedBaselineError as exc:
+        st.error(f"The cached Monte Carlo baseline {exc.path.name} cannot be used: {exc.reason}.")
+        if not offer_rebuild:
+            st.info("Build it again on the page “Fit and correct” (it asks first), or fit with a diffusion model.")
+            return None
+        if not st.button("Build it again (about half a minute)", key=f"{key}.rebuild"):
+            return None
+        found, rebuild = None, True
+    except Exception as exc:  # an InputError: g or an index out of the cache's range
+        st.error(" ".join(str(exc).split()))
+        return None
+    if found is not None:
+        return found
+    if st.session_state.get(f"{key}.stopped"):
+        st.info("The baseline build was stopped; nothing was written.")
+        if not st.button("Build the baseline", key=f"{key}.restart"):
+            return None
+        st.session_state[f"{key}.stopped"] = False
+    st.button("Stop the build", key=f"{key}.stop", on_click=_stop, args=(key,),
+              help="Ends the build at its next step; nothing is written.")
+    bar = st.progress(0.0, text=f"Building the Monte Carlo baseline for g = {g:.2f}, n = {n:g} (once, about half "
+                                "a minute on two cores)…")
+    started = time.monotonic()
+
+    def progress(done: int, total: int) -> None:
+        # every update is a Streamlit call: a press of "Stop the build" ends the run here
+        bar.progress(min(done / total, 1.0) if total else 1.0,
+                     text=f"Building the Monte Carlo baseline: {done:,} of {total:,} photons, "
+                          f"{time.monotonic() - started:.0f} s")
+
+    built = call_layer("Building the baseline", obtain_baseline, g=g, n=n, n_outside=n_outside, rebuild=rebuild,
+                       progress=progress)
+    bar.empty()
+    if not built.ok:
+        return None
+    st.success(f"Baseline built in {built.value.seconds:.0f} s and kept as {built.value.path}; later fits reuse it.")
+    return built.value
+
+
+def describe_inputs(inputs: dict) -> str:
+    """One line: the n, g and baseline a fit used and where each came from (from its JSON keys)."""
+    parts = []
+    if inputs.get("n_used") is not None:
+        parts.append(f"n = {inputs['n_used']:g} ({inputs.get('n_origin')}), n_outside = "
+                     f"{inputs.get('n_outside_used', 1.0):g} ({inputs.get('n_outside_origin')})")
+    if inputs.get("g_used") is not None:
+        parts.append(f"g = {inputs['g_used']:g} ({inputs.get('g_origin')})")
+    if inputs.get("baseline"):
+        parts.append(f"baseline {inputs['baseline']} ({inputs.get('baseline_origin')})")
+    return " · ".join(parts)
