@@ -82,6 +82,20 @@ def sfdi_forward(*, model: str, fx_per_mm, n: float, n_outside: float = 1.0, bas
             R = lookup.point(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho)
             return hankel_sfdi_from_srdr(srdr_per_mm2=R, rho_mm=rho, fx_per_mm=fx)
 
+        def unserved_share(mua, musp):
+            """Share of each R(fx) that comes from distances the lookup does not serve, (N, F)."""
+            musp = np.asarray(musp, float)
+            mus = musp / (1.0 - g)
+            mua = np.maximum(np.asarray(mua, float), floor * mus)
+            rho = _RHO_GRID_TMFP[None, :] / (mua + musp)[:, None]
+            R = lookup.point(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho)
+            outside = ~lookup.served(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho)
+            whole = hankel_sfdi_from_srdr(srdr_per_mm2=R, rho_mm=rho, fx_per_mm=fx)
+            tail = hankel_sfdi_from_srdr(srdr_per_mm2=np.abs(R) * outside, rho_mm=rho, fx_per_mm=np.zeros(1))
+            return np.abs(tail) / np.maximum(np.abs(whole), 1e-300)
+
+        forward.lookup = lookup
+        forward.unserved_share = unserved_share
         return forward
     if model not in SFDI_FIT_MODELS:
         raise InputError(f"unknown sfdi fit model {model!r}; accepted: {', '.join(SFDI_FIT_MODELS)}")
@@ -140,6 +154,8 @@ def fit_sfdi(
         forward, kind="sfdi", model=label, wavelength_nm=measurement.wavelength_nm,
         data=measurement.values, sd=measurement.sd, relative=False, constraint=constraint)
     if model == "mc":
+        result, correlation, reach = _sfdi_within_lookup_reach(forward, result, correlation, measurement, constraint)
+        messages += reach
         messages += model_range_warnings(forward, result)
     else:
         # the measured diffusion-vs-Monte-Carlo error at the fitted optics (in place of the
@@ -153,3 +169,44 @@ def fit_sfdi(
         musp_per_mm=result.musp_per_mm, mua_sd_per_mm=result.mua_sd_per_mm,
         musp_sd_per_mm=result.musp_sd_per_mm, correlation=correlation)
     return _finish(result, measurement, messages)
+
+
+#: Largest share of an R(fx) that may come from distances the lookup does not serve (there it
+#: carries the far-field continuation, whose error is not counted): a frequency beyond it is
+#: left out of the fit and named.
+SFDI_MAX_UNSERVED_SHARE = 0.005
+
+
+def _sfdi_within_lookup_reach(forward, result, correlation, measurement: Measurement, constraint):
+    """Refit a Monte Carlo lookup sfdi fit without the frequencies the lookup cannot serve.
+
+    R(fx) integrates R(ρ) over every distance; a frequency whose value rests by more than
+    :data:`SFDI_MAX_UNSERVED_SHARE` on distances beyond what the baseline serves (low fx at
+    high albedo, with a small baseline) is left out and named in one line, never fitted by
+    extrapolation; a wavelength left with fewer than 2 frequencies is refused.
+    """
+    fx = measurement.axis
+    finite = np.isfinite(measurement.values)
+    share = forward.unserved_share(result.mua_per_mm, result.musp_per_mm)
+    used = finite & (share <= SFDI_MAX_UNSERVED_SHARE)
+    if np.array_equal(used, finite):
+        return result, correlation, []
+    short = used.sum(axis=1) < 2
+    if np.any(short):
+        from phantomlab.calibration.identifiability import _bands
+
+        raise InputError(f"the Monte Carlo baseline serves fewer than 2 of the frequencies at "
+                         f"{_bands(measurement.wavelength_nm, short)}: the lower frequencies rest on distances "
+                         f"beyond its photons; build a baseline with more photons")
+    result, correlation = fit_spectrum(
+        forward, kind="sfdi", model="mc-lookup", wavelength_nm=measurement.wavelength_nm,
+        data=measurement.values, sd=measurement.sd, relative=False, constraint=constraint,
+        start=(result.mua_per_mm, result.musp_per_mm), mask=used)
+    from phantomlab.calibration.identifiability import _bands
+
+    left = finite & ~used
+    return result, correlation, [
+        f"Monte Carlo lookup: left out fx = {', '.join(f'{f:.3g}' for f in fx[left.any(axis=0)])} /mm at "
+        f"{_bands(measurement.wavelength_nm, left.any(axis=1))} (more than {100 * SFDI_MAX_UNSERVED_SHARE:g} % of "
+        f"R(fx) would come from distances beyond what the baseline's photons serve); they are not fitted by "
+        f"extrapolation"]

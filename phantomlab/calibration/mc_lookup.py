@@ -60,11 +60,12 @@ LOOKUP_VERSION = 1
 _SOURCE_KEYS = ("g", "n", "n_outside", "mua_per_mm", "mus_per_mm", "photons", "detected", "seed")
 
 #: Radial grid of the table, in reference scattering lengths u·μs_ref (log spaced, annuli
-#: about 10 % wide, ``_U_STEP`` apart in log u): from 0.02 scattering lengths out to
+#: about 10 % wide, ``_U_STEP`` apart in log u): from 0.002 scattering lengths (the sfdi transform
+#: integrates from 0.001 transport lengths) out to
 #: ``TABLE_TRANSPORT_LENGTHS`` transport lengths (but at least 250 scattering lengths), or
 #: the farthest stored photon if nearer.  200 transport lengths cover a probe reaching
 #: 20 mm at μs′ = 10 /mm, and the sfdi transform (fit_sfdi) integrates that far.
-_U_START_MFP = 0.02
+_U_START_MFP = 0.002
 _U_STEP = float(np.log(250.0 / 0.02) / 96)
 TABLE_TRANSPORT_LENGTHS = 200.0
 _U_MIN_TOP_MFP = 250.0
