@@ -80,7 +80,7 @@ def test_lookup_is_smooth_in_musp_beyond_the_source(baseline, mua, rho_max):
         assert np.max(np.abs(cubic - log_r[:, j])) < 2.5e-4, (rho[j], np.max(np.abs(cubic - log_r[:, j])))
 
 
-@pytest.mark.parametrize("musp_over_mua", [10.0, 100.0, 1000.0])
+@pytest.mark.parametrize("musp_over_mua", [10.0, 100.0, 300.0, 1000.0])
 def test_far_field_join_is_continuous_and_within_the_tables_noise(baseline, musp_over_mua):
     # Beyond one transport length the table is smoothed as a ratio to diffusion, its local
     # line in rho (the far-field form exp(-kappa rho)/rho^2 of both); as the photons thin
