@@ -49,14 +49,14 @@ def test_raw_reading_calibrated_with_a_reference_phantom(tmp_path):
     (tmp_path / "s.toml").write_text(
         f'n = 1.4\n[reference]\nmua_per_mm = {mua_r}\nmusp_per_mm = {musp_r}\n'
         f'mua_sd_per_mm = 0.0001\nmusp_sd_per_mm = 0.008\nreading_csv = "ref.csv"\n')
-    fit = fit_measurement_file(tmp_path / "s.csv", kind="srdr")
+    fit = fit_measurement_file(tmp_path / "s.csv", kind="srdr", model="kienle1997")
     np.testing.assert_allclose(fit.mua_per_mm, mua_s, rtol=2e-3)
     np.testing.assert_allclose(fit.musp_per_mm, musp_s, rtol=2e-3)
     # a reference known ten times less well gives larger SDs of the sample's optics
     (tmp_path / "s.toml").write_text(
         f'n = 1.4\n[reference]\nmua_per_mm = {mua_r}\nmusp_per_mm = {musp_r}\n'
         f'mua_sd_per_mm = 0.001\nmusp_sd_per_mm = 0.08\nreading_csv = "ref.csv"\n')
-    loose = fit_measurement_file(tmp_path / "s.csv", kind="srdr")
+    loose = fit_measurement_file(tmp_path / "s.csv", kind="srdr", model="kienle1997")
 
     def measurement_part(result):  # the SD without the diffusion model's own error (the same in both)
         return np.sqrt(result.musp_sd_per_mm**2 - result.model_covariance[:, 1, 1])
@@ -86,7 +86,7 @@ def test_reference_reading_on_another_grid_refused(tmp_path):
     (tmp_path / "s.csv").write_text(_grid_csv("reading", np.ones((1, 4)), wl=WL[:1], rho=RHO[:4]))
     (tmp_path / "s.toml").write_text('n = 1.4\n[reference]\nmua_per_mm = 0.01\nmusp_per_mm = 1.0\nreading_csv = "ref.csv"\n')
     with pytest.raises(InputError, match="must match point by point"):
-        fit_measurement_file(tmp_path / "s.csv", kind="srdr")
+        fit_measurement_file(tmp_path / "s.csv", kind="srdr", model="kienle1997")
 
 
 def test_musp_power_law_recovered_jointly():
@@ -146,8 +146,8 @@ def test_replicate_files_are_combined_before_the_fit(tmp_path):
         paths.append(path)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        fit = fit_measurement_file(paths, kind="srdr", n=1.4)
-        single = fit_measurement_file(paths[0], kind="srdr", n=1.4)
+        fit = fit_measurement_file(paths, kind="srdr", n=1.4, model="kienle1997")
+        single = fit_measurement_file(paths[0], kind="srdr", n=1.4, model="kienle1997")
     assert fit.replicates == 3
     assert fit.mua_sd_per_mm[0] < single.mua_sd_per_mm[0]
     np.testing.assert_allclose(fit.mua_per_mm, [0.01], rtol=0.03)
@@ -158,3 +158,24 @@ def test_fit_measurement_file_refuses_unknown_options():
         fit_measurement_file("wavelength_nm,mua_per_mm,musp_per_mm\n650,0.01,1.0\n", kind="optics", colour="red")
     with pytest.raises(InputError, match="unknown measurement kind 'tof'"):
         fit_measurement_file("x\n", kind="tof")
+
+
+def test_raw_reading_with_the_default_model_uses_the_lookup_for_the_reference_too(tmp_path):
+    # the default (Monte Carlo lookup) calibrates the reading with the same model: data made
+    # by the lookup itself (cached table g 0.8, n 1.4) come back exactly, and the fit says so
+    from phantomlab.calibration.baseline_cache import obtain_baseline
+    from phantomlab.calibration.fit_srdr import srdr_forward
+
+    forward = srdr_forward(model="mc", rho_mm=RHO, n=1.4, baseline=obtain_baseline(g=0.8, n=1.4).baseline)
+    response = 4.0e5 * np.exp(-0.05 * RHO)[None, :] * np.linspace(0.8, 1.2, WL.size)[:, None]
+    mua_s, musp_s = np.array([0.01, 0.02, 0.015, 0.03]), np.array([1.2, 1.1, 1.0, 0.9])
+    sample = response * forward(mua_s, musp_s)
+    reference = response * forward(np.full(4, 0.005), np.full(4, 0.8))
+    (tmp_path / "ref.csv").write_text(_grid_csv("reading", reference, 0.002 * reference))
+    (tmp_path / "s.csv").write_text(_grid_csv("reading", sample, 0.002 * sample))
+    (tmp_path / "s.toml").write_text('n = 1.4\n[reference]\nmua_per_mm = 0.005\nmusp_per_mm = 0.8\n'
+                                     'mua_sd_per_mm = 0.0001\nmusp_sd_per_mm = 0.008\nreading_csv = "ref.csv"\n')
+    fit = fit_measurement_file(tmp_path / "s.csv", kind="srdr")
+    assert fit.model == "mc-lookup" and fit.inputs["baseline_origin"] == "cache"
+    np.testing.assert_allclose(fit.mua_per_mm, mua_s, rtol=1e-2)
+    np.testing.assert_allclose(fit.musp_per_mm, musp_s, rtol=1e-2)

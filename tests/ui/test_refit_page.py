@@ -96,7 +96,8 @@ def test_fit_of_a_stored_measurement_shows_data_model_residuals_and_target(refit
             raw = get_measurement(session, measurement_id).raw_content.decode()
     finally:
         store.close()
-    expected = fit_measurement_file(raw, kind="srdr", sidecar=tomllib.loads(DEMO_SIDECAR), n=1.33)
+    # the page's default: the lookup with g from the demo batch's scattering model (0.58)
+    expected = fit_measurement_file(raw, kind="srdr", sidecar=tomllib.loads(DEMO_SIDECAR), g_fallback=(0.58, "batch"))
     assert f"Model **{expected.model}**" in shown
     assert f"reduced χ² **{expected.chi2_red:.3g}**" in shown
 
