@@ -56,7 +56,7 @@ __all__ = ["SmoothLookup", "TabulatedBaseline", "LOOKUP_VERSION"]
 #: Tag and version of a saved lookup table (a table of another version is made again from
 #: its baseline; raise the version whenever the table's construction changes).
 LOOKUP_FORMAT = "phantomlab-mc-lookup"
-LOOKUP_VERSION = 2
+LOOKUP_VERSION = 3
 _SOURCE_KEYS = ("g", "n", "n_outside", "mua_per_mm", "mus_per_mm", "photons", "detected", "seed")
 
 #: Radial grid of the table, in reference scattering lengths u·μs_ref (log spaced, annuli
@@ -188,7 +188,8 @@ class SmoothLookup:
         largest = float(np.max(baseline.exit_radius_mm)) if baseline.detected else 0.0
         bottom = _U_START_MFP / self.mus_ref
         top = max(_U_MIN_TOP_MFP / self.mus_ref, TABLE_TRANSPORT_LENGTHS * transport_length)
-        top = max(min(top, largest), bottom * np.exp(10 * _U_STEP))
+        # the last annulus must lie inside the farthest exit (a half-empty annulus reads low)
+        top = max(min(top, largest / (1.0 + np.tanh(_U_STEP / 2))), bottom * np.exp(10 * _U_STEP))
         nodes = int(np.ceil(np.log(top / bottom) / _U_STEP)) + 1
         u = bottom * np.exp(_U_STEP * np.arange(nodes))
         step = _U_STEP
@@ -198,18 +199,18 @@ class SmoothLookup:
             warnings.simplefilter("ignore", PhantomlabWarning)
             table = np.asarray(baseline.srdr(mua_per_mm=ratio * self.mus_ref, mus_per_mm=np.full(ratio.size, self.mus_ref),
                                              rho_mm=u, relative_halfwidth=half), float)
-            _, table_sd = baseline.srdr_with_sd(mua_per_mm=ratio * self.mus_ref,
-                                                mus_per_mm=np.full(ratio.size, self.mus_ref), rho_mm=u,
-                                                relative_halfwidth=half)
+            exact, table_sd = baseline.srdr_with_sd(mua_per_mm=ratio * self.mus_ref,
+                                                    mus_per_mm=np.full(ratio.size, self.mus_ref), rho_mm=u,
+                                                    relative_halfwidth=half)
         self.table_relative_width = 2.0 * half
         self.u_top = float(u[-1])
         positive = table > 0
         floor = np.min(table[positive]) if np.any(positive) else 1e-300
-        table_sd = np.asarray(table_sd, float)
-        # a node whose exact photon sum is empty (the table's area sharing put a sliver of a
-        # photon there) has no standard error to speak of: it is marked as uncounted (SD 1),
-        # never as exact
-        counted = positive & (table_sd > 0)
+        table_sd, exact = np.asarray(table_sd, float), np.asarray(exact, float)
+        # a node whose exact photon sum is empty, or far from the table's value (the table's
+        # area sharing put slivers of photons there), has no standard error to speak of: it is
+        # marked as uncounted (SD 1), never as exact
+        counted = positive & (table_sd > 0) & (np.abs(table - exact) <= 3.0 * table_sd + 0.05 * table)
         with np.errstate(divide="ignore", invalid="ignore"):
             relative_sd = np.where(counted, table_sd / np.where(positive, table, 1.0), 1.0)
         with np.errstate(divide="ignore"):
