@@ -179,5 +179,5 @@ def test_ctrl_c_stops_the_build_cleanly(tmp_path):
         if child.poll() is None:
             child.kill()
     assert child.returncode == 130, err
-    assert err.strip().splitlines()[-1] == "phantomlab: stopped (Ctrl-C); nothing was written"
+    assert err.strip().splitlines()[-1] == "phantomlab: interrupted; nothing was written"
     assert not [p for p in cache.iterdir() if p.is_file()] if cache.exists() else True
