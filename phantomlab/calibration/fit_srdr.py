@@ -339,7 +339,9 @@ def _fit_within_lookup_reach(forward, result, correlation, measurement: Measurem
         mua = np.maximum(result.mua_per_mm, baseline_absorption_floor(lookup.baseline) * mus)
         served = lookup.served(mua_per_mm=mua, mus_per_mm=mus, rho_mm=np.broadcast_to(edges[1:], (mua.size, rho.size)))
         wanted = finite & served
-        if used is not None and np.array_equal(wanted, used) and _settled(result, previous):
+        # nothing left out: one refit with the lookup's noise is enough; distances left out
+        # (the first solution saw them): refit until the solution no longer moves
+        if used is not None and np.array_equal(wanted, used) and (mask is None or _settled(result, previous)):
             break
         used, mask = wanted, (None if np.array_equal(wanted, finite) else wanted)
         if mask is None and measurement.sd is None:
@@ -375,9 +377,9 @@ def _fit_within_lookup_reach(forward, result, correlation, measurement: Measurem
 
 
 def _settled(result, previous) -> bool:
-    """True when a refit moved μa and μs′ by less than a tenth of their SDs (the lookup's noise,
+    """True when a refit moved μa and μs′ by less than 0.3 of their SDs (the lookup's noise,
     added to the SDs at the previous solution, then no longer depends on where the fit started)."""
-    moved = [np.abs(getattr(result, name) - getattr(previous, name)) <= 0.1 * getattr(result, sd) + 1e-12
+    moved = [np.abs(getattr(result, name) - getattr(previous, name)) <= 0.3 * getattr(result, sd) + 1e-12
              for name, sd in (("mua_per_mm", "mua_sd_per_mm"), ("musp_per_mm", "musp_sd_per_mm"))]
     finite = np.isfinite(result.mua_sd_per_mm) & np.isfinite(result.musp_sd_per_mm)
     return bool(np.all((moved[0] & moved[1]) | ~finite))
