@@ -158,7 +158,17 @@ def cli_argument_cases() -> list[Case]:
     for option, value in [("--n", "nan"), ("--n", "0.5"), ("--n", "inf"), ("--n-outside", "nan"),
                           ("--model", "bogus"), ("--baseline", f"{WORK}/none.npz"), ("--kind", "tof")]:
         cases.append(Case("cli", f"fit {option} {value}", ("fit", good, "--kind", "srdr", option, value)))
-    cases.append(Case("cli", "fit mc without a baseline", ("fit", good, "--kind", "srdr", "--model", "mc")))
+    # the default (Monte Carlo lookup) takes its baseline from the cache: out-of-range g, a cache
+    # folder that cannot be written (checked before a build), a damaged cached file
+    for name, argv, files in [
+        ("fit --g beyond the cache's range", ("fit", good, "--kind", "srdr", "--g", "0.97"), {}),
+        ("fit --g nan", ("fit", good, "--kind", "srdr", "--g", "nan"), {}),
+        ("fit baseline folder is a file", ("fit", good, "--kind", "srdr", "--g", "0.81", "--baseline-dir",
+                                           f"{WORK}/afile"), {"afile": "not a folder"}),
+        ("fit damaged cached baseline", ("fit", good, "--kind", "srdr", "--baseline-dir", f"{WORK}/cache"),
+         {"cache/baseline-g0.80-n1.330-out1.000.npz": b"PK\x03\x04 damaged"}),
+    ]:
+        cases.append(Case("cli", name, argv, files=files))
     for name, argv in [
         ("status bogus", ("batch", "status", BATCH, "finished", "--db", DB)),
         ("status backwards", ("batch", "status", BATCH, "planned", "--db", DB)),
