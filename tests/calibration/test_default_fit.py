@@ -119,8 +119,8 @@ def test_default_srdr_fit_recovers_independent_monte_carlo(srdr_cases, case, rel
     mua, musp = float(srdr_cases["mua_per_mm"][case]), float(srdr_cases["musp_per_mm"][case])
     fit = _fit_srdr(srdr_cases, case, noise=0.01, seed=100 + case, relative=relative)
     assert fit.model == "mc-lookup"  # the default, with no model named
-    assert fit.inputs["g_used"] == pytest.approx(float(srdr_cases["g"][case]))
-    assert fit.inputs["g_origin"] == "option" and fit.inputs["baseline_origin"] == "cache"
+    assert fit.extras["g_used"] == pytest.approx(float(srdr_cases["g"][case]))
+    assert fit.extras["g_origin"] == "option" and fit.extras["baseline_origin"] == "cache"
     e_mua, e_musp = _errors(fit, mua, musp)
     record_property("worst_mua_musp", (float(np.max(np.abs(e_mua))), float(np.max(np.abs(e_musp)))))
     _hold_copies(e_mua, e_musp, fit, mua, musp, *_tolerances(relative))

@@ -176,6 +176,6 @@ def test_raw_reading_with_the_default_model_uses_the_lookup_for_the_reference_to
     (tmp_path / "s.toml").write_text('n = 1.4\n[reference]\nmua_per_mm = 0.005\nmusp_per_mm = 0.8\n'
                                      'mua_sd_per_mm = 0.0001\nmusp_sd_per_mm = 0.008\nreading_csv = "ref.csv"\n')
     fit = fit_measurement_file(tmp_path / "s.csv", kind="srdr")
-    assert fit.model == "mc-lookup" and fit.inputs["baseline_origin"] == "cache"
+    assert fit.model == "mc-lookup" and fit.extras["baseline_origin"] == "cache"
     np.testing.assert_allclose(fit.mua_per_mm, mua_s, rtol=1e-2)
     np.testing.assert_allclose(fit.musp_per_mm, musp_s, rtol=1e-2)

@@ -63,7 +63,7 @@ def test_second_batch_lands_within_2_percent_with_monte_carlo_light(lab, record_
     # g of the batch's scattering model, as batch measure takes it (workflows.batch_anisotropy)
     g = float(np.mean(np.interp(light["wavelength_nm"], first.predicted.wavelength_nm, first.predicted.g)))
     fit = fit_measurement_file(text, kind="srdr", n=1.33, g_fallback=(g, "batch"))  # the default model
-    assert fit.model == "mc-lookup" and fit.inputs["g_origin"] == "batch"
+    assert fit.model == "mc-lookup" and fit.extras["g_origin"] == "batch"
     observation = observation_from_fit(recipe, batch_id="SIM-1", volume_fractions=first.volume_fractions, fit=fit)
     update = update_potencies(priors_from_recipe(recipe), [observation])
     for k, (key, _lot) in enumerate(update.stocks):
