@@ -33,7 +33,7 @@ from dataclasses import replace
 import numpy as np
 
 from phantomlab.calibration.fitting import FitResult
-from phantomlab.calibration.identifiability import outcome_warnings, srdr_design_warnings
+from phantomlab.calibration.identifiability import _bands, outcome_warnings, srdr_design_warnings
 from phantomlab.calibration.model_error import diffusion_error_warnings, diffusion_fit_error
 from phantomlab.calibration.measurements import Measurement
 from phantomlab.calibration.spectral import SpectralConstraint, fit_spectrum, merge_rows
