@@ -24,9 +24,12 @@ $(STAMP): pyproject.toml
 #                                     see README "Serving the page to a lab network"
 ADDRESS ?= 127.0.0.1
 PORT ?= 8501
+# The page takes uploads up to the file-size limit the layers enforce (phantomlab/limits.py,
+# file_mb: 10 MB, raised with PHANTOMLAB_MAX_FILE_MB), not Streamlit's own 200 MB.
+UPLOAD_MB ?= $(or $(PHANTOMLAB_MAX_FILE_MB),10)
 run: $(STAMP)
 	$(BIN)/python -m streamlit run app.py --server.headless true \
-	  --server.address "$(ADDRESS)" --server.port "$(PORT)" \
+	  --server.address "$(ADDRESS)" --server.port "$(PORT)" --server.maxUploadSize "$(UPLOAD_MB)" \
 	  --browser.gatherUsageStats false --client.toolbarMode minimal \
 	  $(if $(DB)$(SHELF),--) $(if $(DB),--db "$(DB)") $(if $(SHELF),--shelf "$(SHELF)")
 

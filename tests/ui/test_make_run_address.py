@@ -80,3 +80,30 @@ def test_make_run_listens_on_loopback_only(tmp_path):
         except subprocess.TimeoutExpired:
             os.killpg(process.pid, signal.SIGKILL)
         log.close()
+
+
+@pytest.mark.parametrize("variable", [None, "25"])
+def test_make_run_caps_uploads_at_the_file_size_limit(variable):
+    """Streamlit's own upload cap (200 MB) is replaced by the layers' file-size limit.
+
+    ``make -n run`` prints the command it would run; its ``--server.maxUploadSize`` must be
+    :func:`phantomlab.limits.limit` ``("file_mb")`` read under the same environment.
+    """
+    from phantomlab.limits import limit
+
+    env = {key: value for key, value in os.environ.items() if key != "PHANTOMLAB_MAX_FILE_MB"}
+    if variable is not None:
+        env["PHANTOMLAB_MAX_FILE_MB"] = variable
+    printed = subprocess.run(["make", "-n", "-o", ".venv/.installed-stamp", "run"], cwd=REPO_ROOT, env=env,
+                             capture_output=True, text=True, check=True).stdout
+    saved = os.environ.pop("PHANTOMLAB_MAX_FILE_MB", None)
+    try:
+        if variable is not None:
+            os.environ["PHANTOMLAB_MAX_FILE_MB"] = variable
+        expected = limit("file_mb")
+    finally:
+        os.environ.pop("PHANTOMLAB_MAX_FILE_MB", None)
+        if saved is not None:
+            os.environ["PHANTOMLAB_MAX_FILE_MB"] = saved
+    assert f'--server.maxUploadSize "{expected}"' in printed
+    assert expected == (10 if variable is None else 25)
