@@ -38,6 +38,8 @@ __all__ = [
     "trust_folder",
     "check_temperature_c",
     "check_finite",
+    "parse_time_of_day",
+    "parse_date_and_time",
     "parse_date",
 ]
 
@@ -256,3 +258,48 @@ def parse_date(value, *, name: str, not_after_today: bool = False) -> _dt.date:
     if not_after_today and day > _dt.date.today() + _dt.timedelta(days=1):
         raise InputError(f"{name} {day.isoformat()} is in the future; give the day it happened (YYYY-MM-DD)")
     return day
+
+
+def parse_time_of_day(value, *, name: str) -> str:
+    """A time of day as ``HH:MM`` (24 h) from ``HH:MM`` text or a ``datetime.time``.
+
+    Parameters
+    ----------
+    value : str or datetime.time
+        ``14:30`` (seconds, ``14:30:15``, are accepted and dropped).
+    name : str
+        For messages (``"mixing time"``).
+    """
+    if isinstance(value, _dt.time):
+        moment = value
+    else:
+        text = str(value).strip()
+        try:
+            moment = _dt.time.fromisoformat(text) if 4 <= len(text) <= 8 else None
+        except ValueError:
+            moment = None
+        if moment is None:
+            raise InputError(f"{name} {text[:20]!r} is not a time of day; accepted: HH:MM (24 h)")
+    return f"{moment.hour:02d}:{moment.minute:02d}"
+
+
+def parse_date_and_time(value, *, name: str, not_after_today: bool = False) -> tuple[_dt.date, str | None]:
+    """A date and, when given, its time of day: ``YYYY-MM-DD`` or ``YYYY-MM-DDTHH:MM``.
+
+    A space may stand for the ``T``.  Returns the date (checked as :func:`parse_date` does)
+    and the time as ``HH:MM`` or None.
+    """
+    if isinstance(value, _dt.datetime):
+        return parse_date(value, name=name, not_after_today=not_after_today), parse_time_of_day(value.time(), name=name)
+    if isinstance(value, _dt.date):
+        return parse_date(value, name=name, not_after_today=not_after_today), None
+    text = str(value).strip()
+    day_text, _, time_text = text.replace("T", " ", 1).partition(" ")
+    if time_text.strip():
+        try:
+            moment = parse_time_of_day(time_text.strip(), name=name)
+        except InputError:
+            raise InputError(f"{name} {text[:40]!r} is not a date; accepted: YYYY-MM-DD or YYYY-MM-DDTHH:MM") from None
+    else:
+        moment = None
+    return parse_date(day_text, name=name, not_after_today=not_after_today), moment

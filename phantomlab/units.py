@@ -32,6 +32,7 @@ __all__ = [
     "absorbance_to_mua_per_mm",
     "mua_per_mm_to_absorbance",
     "parse_quantity",
+    "parse_amount",
     "parse_number_list",
     "convert",
 ]
@@ -185,6 +186,39 @@ def parse_quantity(text: str, kind: str) -> float:
     if not math.isfinite(value):
         raise _refuse(text, kind, "not a finite number")
     return value
+
+
+def parse_amount(text: str) -> tuple[float, str]:
+    """Read an amount as dispensed: a volume or a mass, in whichever unit it was typed.
+
+    Parameters
+    ----------
+    text : str
+        ``"67.6 uL"``, ``"12.1 g"``, ``"0.5 mL"``.
+
+    Returns
+    -------
+    (value, unit) : (float, str)
+        The value in mL with ``"mL"``, or in g with ``"g"``.
+
+    Raises
+    ------
+    InputError
+        For a bare number, an unknown unit or a unit that is neither a volume nor a mass.
+    """
+    try:
+        return parse_quantity(text, "volume"), "mL"
+    except InputError as volume_error:
+        if "unit of another kind" not in str(volume_error):
+            said = str(volume_error).replace(" (volume); ", " (an amount); ")
+            raise InputError(said.replace(CANONICAL_UNITS["volume"].accepted, _AMOUNT_UNITS)) from None
+    try:
+        return parse_quantity(text, "mass"), "g"
+    except InputError:
+        raise InputError(f"unit of another kind in {text!r} (an amount); accepted units: {_AMOUNT_UNITS}") from None
+
+
+_AMOUNT_UNITS = "mL, uL, µL, L (volume) or g, mg, ug, kg (mass)"
 
 
 def convert(value, unit: str, kind: str):

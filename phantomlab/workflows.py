@@ -31,9 +31,7 @@ potency update are the layers' own functions.
 
 from __future__ import annotations
 
-import csv
 import datetime as _dt
-import io
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -42,9 +40,11 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 
 from phantomlab.errors import InputError
-from phantomlab.inputs import check_finite, check_temperature_c, decode_text, parse_date, parse_toml
+from phantomlab.inputs import (check_finite, check_temperature_c, decode_text, parse_date, parse_date_and_time,
+                               parse_time_of_day, parse_toml)
 from phantomlab.jsonable import to_jsonable
 from phantomlab.outputs import check_writable_folder, write_text_atomically
+from phantomlab.recipe.dispensed import parse_amounts_csv, undiluted_amounts  # layer 3, pure
 
 __all__ = [
     "METHOD",
@@ -75,62 +75,6 @@ __all__ = [
 
 
 # ---- amounts and tolerance (pure) -------------------------------------------------------------
-
-
-def parse_amounts_csv(text: str, *, source: str = "amounts file") -> list[dict[str, Any]]:
-    """Rows ``{stock, volume_ml | mass_g, dilution_factor}`` of an amounts CSV.
-
-    Header: ``stock`` and ``volume_ml`` and/or ``mass_g`` (one of them filled per row), and an
-    optional ``dilution_factor`` (amount given of a pre-dilution 1 in factor; the undiluted
-    equivalent is amount / factor).  Lines starting with ``#`` are comments.
-    """
-    lines = [line for line in text.splitlines() if line.strip() and not line.lstrip().startswith("#")]
-    if not lines:
-        raise InputError(f"{source} is empty; accepted header: stock,volume_ml or stock,mass_g")
-    reader = csv.DictReader(io.StringIO("\n".join(lines)))
-    header = [h.strip() for h in (reader.fieldnames or [])]
-    accepted = {"stock", "volume_ml", "mass_g", "dilution_factor"}
-    wrong = [h for h in header if h not in accepted]
-    if wrong or "stock" not in header or not ({"volume_ml", "mass_g"} & set(header)):
-        where = f" (column {header.index(wrong[0]) + 1})" if wrong else ""
-        raise InputError(  # the header is not quoted back: it may not be an amounts file at all
-            f"{source}: header not accepted{where} (amounts in mL or g only); "
-            "accepted: stock,volume_ml or stock,mass_g [,dilution_factor]"
-        )
-    rows: list[dict[str, Any]] = []
-    seen: set[str] = set()
-    for number, raw in enumerate(reader, start=2):
-        row = {k.strip(): (v or "").strip() for k, v in raw.items() if k is not None}
-        stock = row.get("stock", "")
-        if not stock:
-            raise InputError(f"{source} line {number}: no stock name")
-        if stock in seen:
-            raise InputError(f"{source} line {number}: stock {stock!r} given twice")
-        seen.add(stock)
-        given = {k: row.get(k, "") for k in ("volume_ml", "mass_g") if row.get(k, "")}
-        if len(given) != 1:
-            raise InputError(f"{source} line {number}: give exactly one of volume_ml or mass_g for {stock!r}")
-        (unit, text_value), = given.items()
-        value = _non_negative(text_value, where=f"{source} line {number}, {unit}")
-        factor = 1.0
-        if row.get("dilution_factor"):
-            factor = _non_negative(row["dilution_factor"], where=f"{source} line {number}, dilution_factor")
-            if factor < 1:
-                raise InputError(f"{source} line {number}: dilution_factor {factor:g} must be >= 1")
-        rows.append({"stock": stock, unit: value, "dilution_factor": factor})
-    if not rows:
-        raise InputError(f"{source} has a header but no amounts")
-    return rows
-
-
-def _non_negative(text: str, *, where: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise InputError(f"{where}: not a number (give the bare number in the column's unit)") from None
-    if not (math.isfinite(value) and value >= 0):
-        raise InputError(f"{where}: must be a finite number >= 0")
-    return value
 
 
 def _array(values, shape) -> np.ndarray:
@@ -390,7 +334,8 @@ def record_dispensed(
     *,
     recipe=None,
     recipe_file: str | Path | None = None,
-    mixed_on: _dt.date | None = None,
+    mixed_on: _dt.date | str | None = None,
+    mixing_time: _dt.time | str | None = None,
     cure: str | None = None,
     mixing_temperature_c: float | None = None,
     notes: str | None = None,
@@ -401,13 +346,24 @@ def record_dispensed(
     Parameters
     ----------
     rows : list of dict
-        ``{stock, volume_ml | mass_g, dilution_factor}`` as :func:`parse_amounts_csv` gives:
-        an amount [mL or g] of the stock or of its pre-dilution 1 in ``dilution_factor``
-        (the undiluted stock is amount / factor).  With the matrix among the rows, the batch
-        volume is the sum of all volumes (volumes additive); without it, the planned one.
+        The sheet's lines as :func:`parse_amounts_csv` gives them
+        (:mod:`phantomlab.recipe.dispensed`): ``{stock, volume_ml | mass_g,
+        dilution_factor}`` an amount [mL or g] of the stock or of its pre-dilution 1 in
+        ``dilution_factor``; a pre-dilution step (``KEY-D1``) with its actual taken and
+        ``diluent_ml | diluent_g``; the matrix, whole or by its lines (``KEY:part_a``...).
+        With the matrix given, the batch volume is the matrix as measured + the diluent the
+        pre-dilutions carried + the undiluted stocks (volumes additive); without it, the
+        planned one.
     recipe : Recipe, optional
         The batch's recipe; default: read from the file it was planned from (or
         ``recipe_file``), saying so in ``notes`` when that file changed.
+    mixed_on : date or str, optional
+        The day it was mixed (``YYYY-MM-DD``; a time after it, ``YYYY-MM-DDTHH:MM``, is kept
+        as ``mixing_time`` unless that is given); default: today, or the day already recorded.
+    mixing_time : time or str, optional
+        Time of day of mixing (``HH:MM``), kept in ``cure_details["mixing_time"]``.
+    cure, mixing_temperature_c : str, float [°C], optional
+        The cure or setting schedule as done, and the mixing temperature.
 
     Returns
     -------
@@ -419,11 +375,13 @@ def record_dispensed(
     from phantomlab.store import StoreConflictError, batch_lots, get_batch, plan_of, recipe_of, record_actual
     from phantomlab.store.snapshots import content_sha256
 
-    checked = [_checked_row(row) for row in rows]
     if mixing_temperature_c is not None:
         mixing_temperature_c = check_temperature_c(mixing_temperature_c, name="mixing temperature")
     if mixed_on is not None:
-        mixed_on = parse_date(mixed_on, name="mixed on", not_after_today=True)
+        mixed_on, said_time = parse_date_and_time(mixed_on, name="mixed on", not_after_today=True)
+        mixing_time = mixing_time if mixing_time is not None else said_time
+    if mixing_time is not None:
+        mixing_time = parse_time_of_day(mixing_time, name="mixing time")
     # Read and predict without holding the write lock; then write, checking that no other
     # writer changed the batch meanwhile.
     with store.reading() as session:
@@ -440,7 +398,7 @@ def record_dispensed(
     for key, sha in lot_sha.items():
         if key in recipe.shelf.keys() and content_sha256(recipe.stock(key).definition) != sha:
             said.append(f"stock {key}: the stock file changed since planning; predicting with it as it is now")
-    amounts, fractions = _fractions(checked, recipe, plan)
+    amounts, fractions = undiluted_amounts(rows, recipe, plan)
     potencies = {key: (float(v["potency"]), float(v.get("potency_sd", 0.0)))
                  for key, v in potencies_used.items()
                  if key in recipe.stock_keys and isinstance(v, Mapping) and "potency" in v}
@@ -452,8 +410,9 @@ def record_dispensed(
         mua_tolerance=float(target.get("mua_tolerance_percent", 100 * recipe.target.mua_tolerance)) / 100,
         musp_tolerance=float(target.get("musp_tolerance_percent", 100 * recipe.target.musp_tolerance)) / 100,
     )
-    cure_details = {k: v for k, v in {"schedule": cure, "mixing_temperature_c": mixing_temperature_c}.items()
-                    if v is not None}
+    cure = " ".join(str(cure).split()) if cure is not None else None
+    cure_details = {k: v for k, v in {"schedule": cure or None, "mixing_temperature_c": mixing_temperature_c,
+                                      "mixing_time": mixing_time}.items() if v is not None}
     with store.transaction() as session:
         head = get_batch(session, code)
         if head.id != batch_id:
@@ -467,65 +426,6 @@ def record_dispensed(
             planned_predicted=plan.get("predicted"), alarms=alarms, notes=said,
         )
     return result
-
-
-def _checked_row(row: Mapping[str, Any]) -> dict[str, Any]:
-    stock = str(row.get("stock") or "").strip()
-    if not stock:
-        raise InputError("amounts: a row without a stock name")
-    given = {k: row[k] for k in ("volume_ml", "mass_g") if row.get(k) is not None}
-    if len(given) != 1:
-        raise InputError(f"amounts: give exactly one of volume_ml or mass_g for {stock!r}")
-    (unit, value), = given.items()
-    try:
-        value = float(value)
-        factor = float(row.get("dilution_factor", 1.0) or 1.0)
-    except (TypeError, ValueError):
-        raise InputError(f"amounts: {stock}: {unit} and dilution_factor must be numbers") from None
-    if not (math.isfinite(value) and value >= 0):
-        raise InputError(f"{stock}: amount {value!r} must be a number >= 0")
-    if not (math.isfinite(factor) and factor >= 1):
-        raise InputError(f"{stock}: dilution_factor {factor:g} must be >= 1")
-    return {"stock": stock, unit: value, "dilution_factor": factor}
-
-
-def _fractions(rows, recipe, plan: dict) -> tuple[list[dict[str, Any]], dict[str, float]]:
-    """Volumes of undiluted stock and their volume fractions in what was made."""
-    known = (recipe.matrix_key, *recipe.stock_keys)
-    planned = {d["stock"]: d for d in plan.get("doses", [])}
-    amounts = []
-    for row in rows:
-        key = row["stock"]
-        if key not in known:
-            raise InputError(f"amounts: {key!r} is not a stock of this batch; its stocks: {', '.join(known)}")
-        stock = recipe.matrix if key == recipe.matrix_key else recipe.stock(key)
-        factor = row["dilution_factor"]
-        if "volume_ml" in row:
-            volume = row["volume_ml"] / factor
-            mass = volume * stock.density_g_per_ml
-        else:
-            mass = row["mass_g"] / factor
-            volume = mass / stock.density_g_per_ml
-        amounts.append({"stock": key, "volume_ml": volume, "mass_g": mass,
-                        "given": {k: row[k] for k in ("volume_ml", "mass_g") if k in row},
-                        "dilution_factor": factor,
-                        "planned_volume_ml": planned.get(key, {}).get("volume_ml"),
-                        "planned_mass_g": planned.get(key, {}).get("mass_g")})
-    has_matrix = any(a["stock"] == recipe.matrix_key for a in amounts)
-    total = sum(a["volume_ml"] for a in amounts) if has_matrix else float(plan.get("batch_volume_ml") or 0)
-    if not math.isfinite(total):
-        raise InputError("amounts: the amounts add up to more than a number can hold; check the units (mL, g)")
-    if not total > 0:
-        raise InputError("amounts: the batch volume comes out as 0 mL; give the matrix amount too")
-    for a in amounts:
-        a["volume_fraction"] = a["volume_ml"] / total
-    fractions = {a["stock"]: a["volume_fraction"] for a in amounts if a["stock"] != recipe.matrix_key}
-    missing = [k for k in recipe.stock_keys if k not in fractions and planned.get(k, {}).get("volume_fraction", 0) > 0]
-    if missing:
-        raise InputError(f"amounts: no amount for {', '.join(missing)}; give 0 for a stock left out")
-    if sum(fractions.values()) >= 1:
-        raise InputError("amounts: the stocks add up to the whole batch volume or more; give the matrix amount")
-    return amounts, fractions
 
 
 def change_status(store, code: str, status: str, *, note: str | None = None,

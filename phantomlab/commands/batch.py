@@ -67,7 +67,9 @@ def register(subparsers) -> None:
     actual.add_argument("amounts", metavar="AMOUNTS.csv",
                         help="stock,volume_ml or stock,mass_g (undiluted stock; optional dilution_factor column)")
     actual.add_argument("--recipe", metavar="RECIPE.toml", help="the recipe file, if it moved since planning")
-    actual.add_argument("--mixed-on", metavar="DATE", help="day the batch was mixed (YYYY-MM-DD; default today)")
+    actual.add_argument("--mixed-on", metavar="DATE",
+                        help="day the batch was mixed, with the time if known (YYYY-MM-DD or YYYY-MM-DDTHH:MM; "
+                             "default today)")
     actual.add_argument("--mixing-temperature-c", type=float, metavar="T", help="mixing temperature [°C]")
     actual.add_argument("--cure", metavar="TEXT", help="cure or setting schedule as done, e.g. '24 h at 21 °C'")
     actual.add_argument("--notes", metavar="TEXT")
@@ -244,15 +246,16 @@ def _add(args) -> CommandResult:
 def _actual(args) -> CommandResult:
     from phantomlab.workflows import record_dispensed
 
-    from phantomlab.inputs import read_text_file
+    from phantomlab.inputs import parse_date_and_time, read_text_file
 
     path = Path(args.amounts)
     rows = parse_amounts_csv(read_text_file(path, what="amounts file"), source=path.name)
-    mixed_on = _date(args.mixed_on, option="--mixed-on")
+    mixed_on, mixing_time = (None, None) if args.mixed_on is None else parse_date_and_time(
+        args.mixed_on, name="--mixed-on", not_after_today=True)
     store = _open(args)
     try:
         done = record_dispensed(store, args.batch_id, rows, recipe_file=args.recipe, mixed_on=mixed_on,
-                                cure=args.cure, mixing_temperature_c=args.mixing_temperature_c,
+                                mixing_time=mixing_time, cure=args.cure, mixing_temperature_c=args.mixing_temperature_c,
                                 notes=args.notes, recorded_by=args.operator)
     finally:
         store.close()

@@ -12,7 +12,7 @@ import math
 
 from phantomlab.recipe.plan import is_dry_powder
 
-__all__ = ["AmountLine", "amount_lines", "procedure_steps", "format_amount", "format_tolerance"]
+__all__ = ["AmountLine", "amount_lines", "dose_order_key", "procedure_steps", "format_amount", "format_tolerance"]
 
 
 def format_amount(amount: float, unit: str) -> str:
@@ -59,6 +59,15 @@ class AmountLine:
         return "± " + format_tolerance(self.tolerance, self.unit)
 
 
+def dose_order_key(kind: str, stock: str) -> tuple[bool, str]:
+    """The order doses go into the batch: absorbers first, then the rest, each by stock key.
+
+    One rule for the sheet's amounts table and every form that follows it (the page's
+    record of what was dispensed).
+    """
+    return (kind != "absorber", stock)
+
+
 def amount_lines(plan) -> list[AmountLine]:
     """Every amount to measure into the batch, in the order the procedure adds them."""
     lines: list[AmountLine] = []
@@ -68,7 +77,7 @@ def amount_lines(plan) -> list[AmountLine]:
         source = f"{plan.recipe.matrix_key} lot {plan.recipe.matrix.lot or '(none)'}"
         lines.append(AmountLine(number, label, source, amount, unit, tolerance, None, how))
         number += 1
-    order = sorted((d for d in plan.doses if d.used), key=lambda d: (d.kind != "absorber", d.stock))
+    order = sorted((d for d in plan.doses if d.used), key=lambda d: dose_order_key(d.kind, d.stock))
     for dose in order:
         how = "weigh" if dose.by == "balance" else "pipette"
         source = dose.dilution.dispense_from if dose.dilution else f"{dose.stock} stock"

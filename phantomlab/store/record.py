@@ -199,14 +199,21 @@ def batch_record(session: Session, code: str) -> dict[str, Any]:
         }
     actual = {a["stock"]: a for a in (batch.actual_amounts or [])}
     amounts = []
-    for dose in plan.get("doses", []):
-        got = actual.get(dose["stock"], {})
-        planned_ml, actual_ml = dose.get("volume_ml"), got.get("volume_ml")
+    matrix = plan.get("matrix") or {}
+    planned_lines = [(matrix["stock"], matrix.get("volume_ml"), matrix.get("mass_g"))] if matrix.get("stock") else []
+    planned_lines += [(d["stock"], d.get("volume_ml"), d.get("mass_g")) for d in plan.get("doses", [])]
+    for stock, planned_ml, planned_g in planned_lines:
+        got = actual.get(stock, {})
+        if stock == matrix.get("stock") and not got:
+            continue  # the matrix as planned: not measured with the amounts
+        actual_ml = got.get("volume_ml")
         amounts.append({
-            "stock": dose["stock"], "planned_volume_ml": planned_ml, "planned_mass_g": dose.get("mass_g"),
+            "stock": stock, "planned_volume_ml": planned_ml, "planned_mass_g": planned_g,
             "actual_volume_ml": actual_ml, "actual_mass_g": got.get("mass_g"),
             "difference_percent": (100.0 * (actual_ml / planned_ml - 1.0)
                                    if actual_ml is not None and planned_ml else None),
+            "given": got.get("given"), "dilution_factor": got.get("dilution_factor"),
+            "predilution": got.get("predilution"),
         })
     measurement, fit = _newest_fit(session, batch)
     from phantomlab.calibration.verdict import judge  # layer 3: the one verdict implementation
@@ -226,7 +233,7 @@ def batch_record(session: Session, code: str) -> dict[str, Any]:
         "corrects_batch": plan.get("corrects_batch"), "potencies_from": plan.get("potencies_from"),
         "amounts": amounts, "planned_prediction": plan.get("predicted"),
         "actual_prediction": batch.actual_prediction, "alarms": batch.actual_alarms or [],
-        "target": target, "plan_warnings": plan.get("warnings", []),
+        "target": target, "plan_warnings": plan.get("sheet_notes", plan.get("warnings", [])),
         "measurement": None if measurement is None else {
             "measurement_id": measurement.id, "kind": measurement.kind, "file": measurement.file_name,
             "measured_on": measurement.measured_on, "phantom_age_days": measurement.phantom_age_days,
@@ -334,7 +341,9 @@ def render_batch_record_html(record: dict[str, Any]) -> str:
             ["recipe content hash", r["recipe"]["content_hash"]], ["status", r["status"]],
             ["corrects batch", r.get("corrects_batch") or "–"],
             ["calibration state used", _state_line(r.get("calibration"))],
-            ["operator", r["operator"]], ["planned on", r["planned_on"]], ["mixed on", r["mixed_on"]],
+            ["operator", r["operator"]], ["planned on", r["planned_on"]],
+            ["mixed on", " ".join(str(x) for x in (r["mixed_on"], (r["cure_details"] or {}).get("mixing_time"))
+                                  if x) or None],
             ["cure / setting", (r["cure_details"] or {}).get("schedule")],
             ["mixing temperature [°C]", (r["cure_details"] or {}).get("mixing_temperature_c")],
             ["notes", r["notes"]],
@@ -365,9 +374,19 @@ def render_batch_record_html(record: dict[str, Any]) -> str:
                [[a["stock"], a["planned_volume_ml"], a["planned_mass_g"], a["actual_volume_ml"],
                  a["actual_mass_g"], _percent(a["difference_percent"])] for a in r["amounts"]]),
         "<p class='small'>Undiluted stock that ended in the batch (a pre-diluted dose counts its "
-        "stock only); the difference is of the actual from the planned volume; a dash in the "
-        "actual columns: not recorded with <code>batch actual</code>.</p>",
+        "stock only; the matrix counts the diluent the pre-dilutions carried in); the difference is "
+        "of the actual from the planned volume; a dash in the actual columns: not recorded with "
+        "<code>batch actual</code> or the page.</p>",
     ]
+    made = [(a["stock"], step) for a in r["amounts"] for step in a.get("predilution") or []]
+    if made:
+        parts += [
+            "<h2>Pre-dilutions as made</h2>",
+            _table(["pre-dilution", "of", "actual taken", "actual diluent", "dilution planned", "dilution made"],
+                   [[step["step"], step["source"], f"{step['taken']:.4g} {step['unit']}",
+                     f"{step['diluent']:.4g} {step['unit']}", f"1 in {1.0 / step['planned_share']:.4g}",
+                     f"1 in {1.0 / step['share']:.4g}"] for _stock, step in made]),
+        ]
     for alarm in r["alarms"]:
         parts.append(f"<p class='caution'>{html.escape(alarm)}</p>")
     if r["plan_warnings"]:

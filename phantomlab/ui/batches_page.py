@@ -14,6 +14,7 @@ Flows:
 from __future__ import annotations
 
 import datetime as _dt
+import json
 
 import numpy as np
 import pandas as pd
@@ -25,6 +26,7 @@ from phantomlab.ui.batch_trends import latest_fit, spread_section
 from phantomlab.ui.oxygenation_section import oxygenation_section
 from phantomlab.ui.plain_text import plain
 from phantomlab.ui.plots import Series, line_figure, show_figure, target_series
+from phantomlab.ui.tables import day_text, moment_text, number_text
 from phantomlab.ui.widgets import call_layer
 from phantomlab.ui.workspace import Workspace
 
@@ -71,6 +73,7 @@ def read_log(store) -> list[dict]:
                 "code": batch.code, "uid": batch.uid, "version": batch.version, "status": batch.status,
                 "retracted": batch.retracted, "operator": batch.operator, "planned_on": batch.planned_on,
                 "mixed_on": batch.mixed_on, "notes": batch.notes, "recipe": recipe.name,
+                "cure_details": batch.cure_details,
                 "recipe_version": recipe.recipe_version, "plan": dict(plan.plan),
                 "sheet_html": plan.sheet_html, "actual_amounts": batch.actual_amounts,
                 "actual_prediction": batch.actual_prediction, "actual_alarms": batch.actual_alarms,
@@ -79,12 +82,18 @@ def read_log(store) -> list[dict]:
     return out
 
 
+def log_fingerprint(batches: list[dict]) -> str:
+    """The state of the log a batch record depends on: every batch's version, measurements, fits."""
+    return json.dumps([[b["code"], b["version"], [[m["id"], [f["id"] for f in m["fits"]]] for m in b["measurements"]]]
+                       for b in batches])
+
+
 def read_history(store, code: str) -> pd.DataFrame:
     from phantomlab.store import batch_history  # layer 4
 
     with store.reading() as session:
         rows = [{
-            "version": row.version, "recorded at (UTC)": row.recorded_at, "by": row.recorded_by or "",
+            "version": row.version, "recorded at (UTC)": moment_text(row.recorded_at), "by": row.recorded_by or "",
             "status": row.status, "change": row.change_note or "first record",
             "retracted": "yes" if row.retracted else "",
         } for row in batch_history(session, code)]
@@ -108,7 +117,7 @@ def _log_table(batches: list[dict]) -> pd.DataFrame:
         rows.append({
             "batch": batch["code"], "recipe": batch["recipe"], "status": batch["status"]
             + (" (retracted)" if batch["retracted"] else ""),
-            "planned on": batch["planned_on"], "mixed on": batch["mixed_on"] or "",
+            "planned on": day_text(batch["planned_on"]), "mixed on": day_text(batch["mixed_on"]),
             "operator": batch["operator"] or "", "measurements": len(batch["measurements"]),
             "alarms": len(batch["actual_alarms"] or []), "notes": batch["notes"] or "",
         })
@@ -118,98 +127,14 @@ def _log_table(batches: list[dict]) -> pd.DataFrame:
 # ---- one batch ------------------------------------------------------------------------------------
 
 
-def _dispensed_doses(batch: dict) -> list[dict]:
-    """Per used dose: what the sheet says to dispense (stock or its last pre-dilution)."""
-    out = []
-    for dose in batch["plan"].get("doses", []):
-        if not dose.get("volume_fraction"):
-            continue
-        fraction = 1.0
-        for step in dose.get("dilution") or []:
-            fraction *= float(step["factor"])  # the share of the source in each dilution (1 in 10 → 0.1)
-        unit = dose.get("dispense_unit") or ("g" if dose.get("dispense_by") == "balance" else "mL")
-        out.append({"stock": dose["stock"], "from": dose.get("dispense_from") or f"{dose['stock']} stock",
-                    "amount": float(dose["dispense_amount"]), "tolerance": float(dose.get("tolerance") or 0.0),
-                    "unit": unit, "stock_fraction": fraction})
-    return out
-
-
-def _shown(amount_canonical: float, unit: str) -> str:
-    """A planned amount as the sheet prints it (µL below 1 mL, mg below 1 g)."""
-    if unit == "mL" and amount_canonical < 1.0:
-        return f"{1000 * amount_canonical:.4g} µL"
-    if unit == "g" and amount_canonical < 1.0:
-        return f"{1000 * amount_canonical:.4g} mg"
-    return f"{amount_canonical:.4g} {unit}"
-
-
-def _recorded_amounts(batch: dict) -> pd.DataFrame:
-    planned = {d["stock"]: d for d in batch["plan"].get("doses", [])}
-    rows = []
-    for item in batch["actual_amounts"] or []:
-        plan = planned.get(item["stock"], {})
-        rows.append({"stock": item["stock"],
-                     "planned [mL undiluted]": plan.get("volume_ml"),
-                     "dispensed [mL undiluted]": item.get("volume_ml"),
-                     "dispensed [g undiluted]": item.get("mass_g")})
-    return pd.DataFrame(rows).dropna(axis="columns", how="all")
-
-
 def _amounts_section(workspace: Workspace, store, batch: dict) -> None:
-    from phantomlab.units import parse_quantity
-    from phantomlab.ui.recording import record_dispensed
+    from phantomlab.ui.bench_record import amounts_form, mixing_summary, recorded_amounts_table
 
-    st.markdown("**Amounts actually dispensed** — type what went into the batch, as on the sheet: "
-                "of the stock or of its pre-dilution, with its unit.")
-    if batch["status"] not in ("planned", "mixed") or batch["retracted"]:
-        st.caption(f"The batch is {batch['status']}: amounts are recorded while it is planned or mixed.")
-        if batch["actual_amounts"]:
-            st.dataframe(_recorded_amounts(batch), hide_index=True, width="stretch")
-        return
-    doses = _dispensed_doses(batch)
-    if not doses:
-        st.info("The plan of this batch doses no stock.")
-        return
-    code = batch["code"]
-    with st.form(f"batches.amounts.{code}"):
-        columns = st.columns(min(len(doses), 3))
-        for index, dose in enumerate(doses):
-            planned = _shown(dose["amount"], dose["unit"])
-            columns[index % len(columns)].text_input(
-                f"{dose['stock']}: from {dose['from']}, sheet {planned} (type the amount with its unit)",
-                key=f"batches.amount.{code}.{dose['stock']}",
-                help=f"Sheet: {planned} ± {_shown(dose['tolerance'], dose['unit'])} of {dose['from']}",
-            )
-        operator = st.text_input("Recorded by", key=f"batches.amounts_by.{code}")
-        pressed = st.form_submit_button("Record the amounts", type="primary")
-    if not pressed:
-        return
-    amounts, refused = {}, []
-    for dose in doses:
-        text = st.session_state.get(f"batches.amount.{code}.{dose['stock']}", "")
-        try:
-            value = parse_quantity(text, "mass" if dose["unit"] == "g" else "volume")
-        except InputError as exc:
-            refused.append(f"{dose['stock']}: {exc}")
-            continue
-        if value < 0:
-            refused.append(f"{dose['stock']}: {text!r} must be >= 0")
-            continue
-        amounts[dose["stock"]] = (value, dose["unit"], dose["stock_fraction"])
-    if refused:
-        for line in refused:
-            st.error(plain(line))
-        st.caption("Give every amount with its unit (0 mL for a stock left out).")
-        return
-    outcome = call_layer("Recording the amounts", record_dispensed, store, code, amounts,
-                         recorded_by=operator.strip() or None, recipes_folder=workspace.recipes_folder)
-    if outcome.ok:
-        version, prediction, alarms = outcome.value
-        st.session_state["batches.notice"] = (
-            f"Amounts of batch {code} recorded (version {version}); "
-            + ("within the recipe tolerance." if not alarms else f"{len(alarms)} alarm(s).")
-        )
-        st.rerun()
+    if batch["actual_amounts"]:
+        said = mixing_summary(batch)
+        st.markdown("**Recorded**" + (f" — {plain(said)}" if said else ""))
+        st.dataframe(recorded_amounts_table(batch), hide_index=True, width="stretch")
+    amounts_form(workspace, store, batch)
 
 
 def _prediction_plot(batch: dict) -> None:
@@ -266,7 +191,10 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
                 mime="text/csv", key="batches.demo_measurement", on_click="ignore",
                 help="Synthetic R(ρ) of what was dispensed (invented true potencies, 2 % noise): attach it "
                      "below to try the loop.")
-    with st.form(f"batches.measure.{batch['code']}", clear_on_submit=True):
+    from phantomlab.ui.bench_record import by_field, remember_by, set_notice, shown_notice
+
+    # the number of measurements in the key: once attached, a second click reaches no form
+    with st.form(f"batches.measure.{batch['code']}.{len(batch['measurements'])}", clear_on_submit=True):
         upload = st.file_uploader("Measurement file (CSV)", type=["csv"], key="batches.file")
         sidecar = st.file_uploader("Its metadata file (TOML, optional: n, thickness, instrument, reference; "
                                    "sphere: the [sphere] table with the standard inline)",
@@ -280,7 +208,13 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
                                     key="batches.thickness")
         measured_on = d3.date_input("Measured on", value=_dt.date.today(), key="batches.measured_on")
         instrument = d4.text_input("Instrument", key="batches.instrument")
-        pressed = st.form_submit_button("Fit and attach", type="primary")
+        e1, e2 = st.columns([1, 3], vertical_alignment="bottom")
+        by = by_field("batches.measure_by", container=e1)
+        pressed = e2.form_submit_button("Fit and attach", type="primary")
+    shown_notice(f"measure.{batch['code']}")
+    verdict = st.session_state.get("batches.verdict")
+    if verdict and verdict.get("code") == batch["code"]:  # next to the button, once
+        _show_verdict(st.session_state.pop("batches.verdict"))
     if not pressed:
         return
     if upload is None:
@@ -307,16 +241,16 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
             file_name=upload.name, raw_content=upload.getvalue(),
             sidecar_toml=sidecar_text,
             model=model, measured_on=measured_on,  # the phantom age: days since mixing
-            instrument=instrument.strip() or None, options=options,
+            instrument=instrument.strip() or None, options=options, recorded_by=by or None,
         )
     if outcome.ok:
         measurement_id, result = outcome.value
-        st.session_state["batches.notice"] = (
-            f"Measurement {upload.name} attached to batch {batch['code']} (id {measurement_id}) and fitted "
-            f"with {result.model}, reduced χ² {result.chi2_red:.3g}; fit quality {result.fit_quality}"
-            + (" — the model does not describe these data (see Fit and correct)." if result.fit_quality == "poor"
-               else ".")
-        )
+        remember_by(by)
+        set_notice(f"measure.{batch['code']}",
+                   f"Measurement {upload.name} attached to batch {batch['code']} (id {measurement_id}) and fitted "
+                   f"with {result.model}, reduced χ² {result.chi2_red:.3g}; fit quality {result.fit_quality}"
+                   + (" — the model does not describe these data (see Fit and correct)."
+                      if result.fit_quality == "poor" else "."))
         verdict = call_layer("Judging the batch", fit_verdict_json, store, batch["code"], result, show=False)
         if verdict.ok:
             st.session_state["batches.verdict"] = verdict.value
@@ -390,22 +324,31 @@ def _baseline_ready(store, batch: dict, kind: str, upload, sidecar, n: float) ->
 
 
 def _status_section(store, batch: dict) -> None:
+    from phantomlab.ui.bench_record import by_field, remember_by, set_notice, shown_notice
     from phantomlab.workflows import change_status  # as `phantomlab batch status`
 
+    code = batch["code"]
     present = STATUSES.index(batch["status"])
     later = list(STATUSES[present + 1:])
     st.markdown(f"**Status:** {batch['status']} (moves forward only: {' → '.join(STATUSES)})")
     if not later or batch["retracted"]:
+        shown_notice(f"status.{code}")
         return
-    c1, c2, c3 = st.columns([1, 2, 1])
-    wanted = c1.selectbox("New status", later, key=f"batches.status.{batch['code']}")
-    note = c2.text_input("Why (kept in the history)", key=f"batches.status_note.{batch['code']}")
-    if c3.button("Change the status", key=f"batches.status_button.{batch['code']}"):
-        outcome = call_layer("Changing the status", change_status, store, batch["code"], wanted,
-                             note=note.strip() or None)
+    prefix = f"batches.status.{code}.v{batch['version']}"  # a new version after each change: a new form
+    with st.form(prefix, border=False):
+        c1, c2, c3, c4 = st.columns([1, 2, 1, 1], vertical_alignment="bottom")
+        wanted = c1.selectbox("New status", later, key=f"{prefix}.status")
+        note = c2.text_input("Why (kept in the history)", key=f"{prefix}.note", max_chars=500)
+        by = by_field(f"{prefix}.by", container=c3)
+        pressed = c4.form_submit_button("Change the status")
+    shown_notice(f"status.{code}")
+    if pressed:
+        outcome = call_layer("Changing the status", change_status, store, code, wanted,
+                             note=note.strip() or None, recorded_by=by or None)
         if outcome.ok:
-            st.session_state["batches.notice"] = (f"Batch {batch['code']} is now {wanted} "
-                                                  f"(version {outcome.value[1].version}).")
+            remember_by(by)
+            set_notice(f"status.{code}", f"Batch {code} is now {wanted} (version {outcome.value[1].version}"
+                       + (f", by {by}" if by else "") + ").")
             st.rerun()
 
 
@@ -414,16 +357,18 @@ def _measurements_table(batch: dict) -> pd.DataFrame:
     for m in batch["measurements"]:
         fit = latest_fit(m) or {}
         rows.append({
-            "id": m["id"], "file": m["file_name"], "kind": m["kind"], "measured on": m["measured_on"] or "",
-            "phantom age [days]": m["phantom_age_days"], "instrument": m["instrument"] or "",
-            "fit model": fit.get("model", ""), "reduced χ²": fit.get("chi2_red"),
+            "id": m["id"], "file": m["file_name"], "kind": m["kind"], "measured on": day_text(m["measured_on"]),
+            "phantom age [days]": number_text(m["phantom_age_days"], 3), "instrument": m["instrument"] or "",
+            "fit model": fit.get("model", ""), "reduced χ²": number_text(fit.get("chi2_red"), 3),
             "fit quality": fit.get("fit_quality") or "not assessed",
             "fit warnings": len(fit.get("warnings", [])),
         })
     return pd.DataFrame(rows)
 
 
-def _one_batch(workspace: Workspace, store, batch: dict) -> None:
+def _one_batch(workspace: Workspace, store, batch: dict, *, fingerprint: str) -> None:
+    from phantomlab.ui.bench_record import batch_record_download
+
     st.subheader(f"Batch {batch['code']}")
     st.markdown(
         f"Recipe **{plain(batch['recipe'])}** (version {plain(batch['recipe_version'])}) · planned "
@@ -434,6 +379,7 @@ def _one_batch(workspace: Workspace, store, batch: dict) -> None:
         st.download_button(f"Download the sheet of batch {batch['code']} as printed (HTML)",
                            data=batch["sheet_html"].encode("utf-8"), file_name=f"sheet-{batch['code']}.html",
                            mime="text/html", key="batches.sheet", on_click="ignore")
+    batch_record_download(workspace, batch, fingerprint=fingerprint)
     _status_section(store, batch)
     amounts, measure, oxygenation, history = st.tabs(
         ["Amounts dispensed", "Measurements", "Oxygenation series", "History"])
@@ -457,7 +403,7 @@ def _one_batch(workspace: Workspace, store, batch: dict) -> None:
             st.markdown("**Calibration: left out and taken back** (Fit and correct → Recalibrate)")
             st.dataframe(pd.DataFrame(exclusions), hide_index=True, width="stretch")
         fits = [{"measurement": m["id"], "file": m["file_name"], "fit": f["id"], "model": f["model"],
-                 "reduced χ²": f["chi2_red"], "recorded at (UTC)": f["recorded_at"]}
+                 "reduced χ²": number_text(f["chi2_red"], 3), "recorded at (UTC)": moment_text(f["recorded_at"])}
                 for m in batch["measurements"] for f in sorted(m["fits"], key=lambda f: (f["recorded_at"], f["id"]))]
         if fits:
             st.markdown("**Measurements and their fits** (the newest fit of each measurement counts)")
@@ -467,12 +413,6 @@ def _one_batch(workspace: Workspace, store, batch: dict) -> None:
 def show(workspace: Workspace) -> None:
     st.header(TITLE)
     store = services.store_for(workspace)
-    notice = st.session_state.pop("batches.notice", None)
-    if notice:
-        st.success(notice)
-    verdict = st.session_state.pop("batches.verdict", None)
-    if verdict:
-        _show_verdict(verdict)
     loaded = call_layer("Reading the batch log", read_log, store)
     if not loaded.ok:
         return
@@ -488,11 +428,18 @@ def show(workspace: Workspace) -> None:
     shown = [b for b in batches
              if b["status"] in statuses and (recipe == "(all recipes)" or b["recipe"] == recipe)
              and (not text or text in " ".join(str(b[k] or "") for k in ("code", "operator", "notes")).lower())]
+    from phantomlab.ui.bench_record import shown_notice
+
+    for code in sorted({b["code"] for b in batches} - {b["code"] for b in shown}):
+        shown_notice(f"status.{code}")  # a batch the filter now hides (e.g. just retired)
+    verdict = st.session_state.get("batches.verdict")
+    if verdict and verdict.get("code") not in {b["code"] for b in shown}:
+        _show_verdict(st.session_state.pop("batches.verdict"))
     st.dataframe(_log_table(shown), hide_index=True, width="stretch")
     if not shown:
         st.caption("No batch matches the filter.")
     else:
         codes = [b["code"] for b in shown]
         code = st.selectbox("Open batch", codes, index=len(codes) - 1, key="batches.open")
-        _one_batch(workspace, store, next(b for b in shown if b["code"] == code))
+        _one_batch(workspace, store, next(b for b in shown if b["code"] == code), fingerprint=log_fingerprint(batches))
     spread_section(batches)

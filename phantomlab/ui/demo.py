@@ -170,10 +170,10 @@ def seed_demo_database(workspace: Workspace) -> None:
             code = record_planned_batch(store, plan, operator=DEMO_OPERATOR,
                                         notes="demo data, invented",
                                         planned_on=mixed_on - _dt.timedelta(days=1))
-            amounts = {d.stock: (d.volume_ml * (1.0 + deviations.get(d.stock, 0.0)), "mL")
-                       for d in plan.doses if d.used}
-            record_dispensed(store, code, amounts, recorded_by=DEMO_OPERATOR, mixed_on=mixed_on)
-            fractions = {k: v / plan.batch_volume_ml for k, (v, _unit) in amounts.items()}
+            amounts = {d.stock: d.volume_ml * (1.0 + deviations.get(d.stock, 0.0)) for d in plan.doses if d.used}
+            rows = [{"stock": key, "volume_ml": volume} for key, volume in amounts.items()]  # undiluted stock
+            record_dispensed(store, code, rows, recorded_by=DEMO_OPERATOR, mixed_on=mixed_on)
+            fractions = {k: v / plan.batch_volume_ml for k, v in amounts.items()}
             made = predict(recipe, volume_fractions=fractions, potencies=truth or None)
             for index, age in enumerate(measured_days[number]):
                 musp = made.musp_per_mm * (1.0 - DEMO_MUSP_LOSS_PER_DAY * age)

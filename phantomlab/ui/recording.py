@@ -154,40 +154,30 @@ def _far_past():
     return _dt.date(1970, 1, 1)  # an old batch's lots are not re-checked for expiry here
 
 
-def record_dispensed(store, code: str, amounts: Mapping[str, tuple[float, str]], *,
-                     recorded_by: str | None = None, recipes_folder=None, mixed_on=None):
-    """Record the amounts really dispensed and predict the optics of what was really made.
+def record_dispensed(store, code: str, rows, *, recorded_by: str | None = None, recipes_folder=None,
+                     mixed_on=None, mixing_time=None, cure: str | None = None,
+                     mixing_temperature_c: float | None = None, notes: str | None = None):
+    """Record the sheet's lines as dispensed and predict the optics of what was really made.
 
     :func:`phantomlab.workflows.record_dispensed`, as ``phantomlab batch actual`` records
     them, with the recipe rebuilt from the batch's snapshots (:func:`batch_recipe`).
 
     Parameters
     ----------
-    amounts : mapping of stock key to (amount, unit) or (amount, unit, stock_fraction)
-        What went into the batch: unit ``"mL"`` (volume) or ``"g"`` (mass); with
-        ``stock_fraction`` < 1 the amount is of a pre-dilution holding that fraction of the
-        stock (1 in 10 → 0.1), and the undiluted stock is amount × fraction.
+    rows : list of dict
+        The rows ``batch actual`` reads from its amounts CSV
+        (:func:`phantomlab.recipe.dispensed.parse_amounts_csv`): matrix lines, pre-dilution
+        steps (actual taken and diluent) and doses, each in mL or g.
 
     Returns
     -------
-    (batch version, Prediction, list of alarm lines)
+    phantomlab.workflows.DispensedBatch
     """
-    from phantomlab.errors import InputError
     from phantomlab.workflows import record_dispensed as record
 
-    rows = []
-    for key, given in amounts.items():
-        amount, unit = given[0], given[1]
-        stock_fraction = float(given[2]) if len(given) > 2 else 1.0
-        if not 0 < stock_fraction <= 1:
-            raise InputError(f"{key}: stock fraction of the pre-dilution {stock_fraction!r} must lie in (0, 1]")
-        if unit not in ("mL", "g"):
-            raise InputError(f"{key}: unit {unit!r} not accepted; accepted: mL, g")
-        rows.append({"stock": key, "volume_ml" if unit == "mL" else "mass_g": amount,
-                     "dilution_factor": 1.0 / stock_fraction})
     recipe = batch_recipe(store, code, recipes_folder=recipes_folder)
-    done = record(store, code, rows, recipe=recipe, recorded_by=recorded_by, mixed_on=mixed_on)
-    return done.version, done.prediction, done.alarms
+    return record(store, code, list(rows), recipe=recipe, recorded_by=recorded_by, mixed_on=mixed_on,
+                  mixing_time=mixing_time, cure=cure, mixing_temperature_c=mixing_temperature_c, notes=notes)
 
 
 def attach_measurement(

@@ -73,11 +73,22 @@ def _dispensed_text(dose, undiluted_ml: float) -> str:
     return f"{1000.0 * undiluted_ml / fraction!r} uL"
 
 
+def _field(app, code: str, name: str):
+    """The bench-record field ``name`` of batch ``code`` (its key holds the batch version)."""
+    found = [t for t in app.text_input if t.key.startswith(f"bench.{code}.v") and t.key.endswith(f".{name}")]
+    assert len(found) == 1, [t.key for t in app.text_input]
+    return found[0]
+
+
+def _record_button(app):
+    return [b for b in app.get("button") if b.proto.label.startswith("Record ") and "amounts" in b.proto.label][0]
+
+
 def _edit_amounts(app, code: str, plan, undiluted_ml: list[float]) -> None:
     used = [d for d in plan.doses if d.used]
     for dose, volume in zip(used, undiluted_ml):
-        app.text_input(key=f"batches.amount.{code}.{dose.stock}").set_value(_dispensed_text(dose, volume))
-    [b for b in app.get("button") if b.proto.label == "Record the amounts"][0].click()
+        _field(app, code, dose.stock).set_value(_dispensed_text(dose, volume))
+    _record_button(app).click()
     app.run()
     assert not app.exception
 
@@ -120,7 +131,7 @@ def test_amounts_far_from_the_sheet_raise_an_alarm(page, go_to, planned):
 def test_an_unfilled_amount_is_refused(page, go_to, planned):
     code, _plan = planned
     app = go_to(page, "Batch log")
-    [b for b in app.get("button") if b.proto.label == "Record the amounts"][0].click()
+    _record_button(app).click()
     app.run()
     assert not app.exception
     assert any("empty quantity" in e.value for e in app.error)
@@ -131,8 +142,8 @@ def test_an_amount_without_its_unit_is_refused(page, go_to, planned):
     app = go_to(page, "Batch log")
     used = [d for d in plan.doses if d.used]
     for dose in used:
-        app.text_input(key=f"batches.amount.{code}.{dose.stock}").set_value("12")
-    [b for b in app.get("button") if b.proto.label == "Record the amounts"][0].click()
+        _field(app, code, dose.stock).set_value("12")
+    _record_button(app).click()
     app.run()
     assert sum("no unit given" in e.value for e in app.error) == len(used)
 
@@ -211,15 +222,19 @@ def test_a_bad_measurement_file_is_refused_and_nothing_is_stored(page, go_to, pl
 def test_status_moves_forward_and_the_history_keeps_every_version(page, go_to, planned):
     code, _plan = planned
     app = go_to(page, "Batch log")
-    app.selectbox(key=f"batches.status.{code}").set_value("retired")
-    app.text_input(key=f"batches.status_note.{code}").set_value("test: dropped")
-    app.button(key=f"batches.status_button.{code}").click().run()
+    prefix = f"batches.status.{code}.v1"
+    app.selectbox(key=f"{prefix}.status").set_value("retired")
+    app.text_input(key=f"{prefix}.note").set_value("test: dropped")
+    app.text_input(key=f"{prefix}.by").set_value("T. Ester")
+    [b for b in app.get("button") if b.proto.label == "Change the status"][0].click()
+    app.run()
     assert not app.exception
-    assert any("is now retired" in s.value for s in app.success)
+    assert any("is now retired" in s.value and "by T. Ester" in s.value for s in app.success)
     app.multiselect(key="batches.filter_status").set_value(["retired"]).run()
     history = [f.value for f in app.dataframe if "change" in f.value.columns][0]
     assert list(history["status"]) == ["planned", "retired"]
     assert history["change"].iloc[-1] == "test: dropped"
+    assert history["by"].iloc[-1] == "T. Ester"  # who changed it, as `batch status --operator`
 
 
 def test_spread_across_batches_and_drift_with_age(page, go_to, downloads, demo_file):

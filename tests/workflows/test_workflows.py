@@ -96,15 +96,15 @@ def test_page_and_command_line_record_the_same_amounts_alarms_and_measurement(db
     over, diluted = doses[0]["stock"], doses[1]["stock"]
     amounts = tmp_path / "amounts.csv"
     lines = ["stock,volume_ml,dilution_factor"]
-    page_amounts = {}
+    page_amounts = []  # the rows the page's form gives (phantomlab.ui.bench_record.form_rows)
     for dose in doses:
         volume = dose["volume_ml"] * (1.3 if dose["stock"] == over else 1.0)
         if dose["stock"] == diluted:
             lines.append(f"{dose['stock']},{10 * volume!r},10")
-            page_amounts[dose["stock"]] = (10 * volume, "mL", 0.1)
+            page_amounts.append({"stock": dose["stock"], "volume_ml": 10 * volume, "dilution_factor": 10.0})
         else:
             lines.append(f"{dose['stock']},{volume!r},1")
-            page_amounts[dose["stock"]] = (volume, "mL")
+            page_amounts.append({"stock": dose["stock"], "volume_ml": volume, "dilution_factor": 1.0})
     amounts.write_text("\n".join(lines) + "\n")
     _cli(capsys, "batch", "actual", first["batch_id"], amounts, "--mixed-on", "2026-03-01", "--db", db)
     store = open_store(db)
