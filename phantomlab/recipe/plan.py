@@ -199,6 +199,10 @@ class Plan:
     binding_limits: tuple
     warnings: tuple
     created: _dt.date = field(default_factory=_dt.date.today)
+    #: The notes for the person at the bench (the sheet, the page): the plan's warnings without
+    #: those only the command line needs (ignored potencies of stocks not in the recipe, the
+    #: binding limits the sheet boxes on its own) and without command names.
+    sheet_notes: tuple = ()
 
     def dose(self, stock: str) -> Dose:
         for dose in self.doses:
@@ -220,6 +224,7 @@ class Plan:
             "predicted": self.predicted.to_json(),
             "target": self.target.to_json(),
             "warnings": list(self.warnings),
+            "sheet_notes": list(self.sheet_notes),
             "recipe_version": recipe.version,
             "recipe_hash": recipe.content_hash,
             "recipe_path": str(recipe.path) if recipe.path else None,
@@ -323,7 +328,7 @@ def resolve_potencies(recipe: Recipe, potencies: Mapping[str, tuple] | None):
         sds.append(sd)
         sources.append(source)
     return np.array(values), np.array(sds), sources, notes + (
-        [f"potencies given for stocks not in the recipe ignored: {', '.join(unknown)}"] if unknown else []
+        [f"{IGNORED_POTENCIES_NOTE}: {', '.join(unknown)}"] if unknown else []
     )
 
 
@@ -354,6 +359,11 @@ def _spectral_table(table: IntrinsicTable, corrections: dict) -> IntrinsicTable:
     from phantomlab.recipe.spectral_potency import corrected_table
 
     return corrected_table(table, corrections)
+
+
+#: The start of the note that potencies were given for stocks the recipe does not use: for the
+#: command line (a potencies file may hold the whole shelf), never for the bench.
+IGNORED_POTENCIES_NOTE = "potencies given for stocks not in the recipe ignored"
 
 
 def _batch_volume(recipe: Recipe, table: IntrinsicTable, fractions: np.ndarray) -> float:
@@ -552,8 +562,10 @@ def _miss_notes(target: Target, residuals: dict) -> list[str]:
     return notes
 
 
-def _spread_notes(target: Target, predicted: Prediction) -> list[str]:
-    """One note when the predicted SD alone is wider than the target's tolerance."""
+def _spread_notes(target: Target, predicted: Prediction, *, for_bench: bool = False) -> list[str]:
+    """One note when the predicted SD alone is wider than the target's tolerance.
+
+    ``for_bench``: the wording for the sheet and the page (no command names)."""
     parts = []
     for name, want, sd, tol in (("mua", target.mua_per_mm, predicted.mua_sd_per_mm, target.mua_tolerance),
                                 ("musp", target.musp_per_mm, predicted.musp_sd_per_mm, target.musp_tolerance)):
@@ -567,9 +579,10 @@ def _spread_notes(target: Target, predicted: Prediction) -> list[str]:
                          f"tolerance ±{100 * tol:g} %)")
     if not parts:
         return []
+    remedy = ("calibrate them with a calibration series" if for_bench
+              else "calibrate them (plan --series)")
     return [f"predicted SD wider than the tolerance: {' and '.join(parts)}; the stock potencies are not "
-            "known well enough to land within it first time: calibrate them (plan --series) or titrate "
-            "and re-measure"]
+            f"known well enough to land within it first time: {remedy} or titrate and re-measure"]
 
 
 def dependent_scattering_notes(recipe: Recipe, table: IntrinsicTable, fractions: np.ndarray) -> list[str]:
@@ -681,7 +694,8 @@ def solve(recipe: Recipe, *, potencies: Mapping[str, tuple] | None = None,
     if physics:
         from dataclasses import replace
 
-        plan = replace(plan, warnings=plan.warnings + tuple(m for m in physics if m not in plan.warnings))
+        plan = replace(plan, warnings=plan.warnings + tuple(m for m in physics if m not in plan.warnings),
+                       sheet_notes=plan.sheet_notes + tuple(m for m in physics if m not in plan.sheet_notes))
     return plan
 
 
@@ -720,19 +734,29 @@ def _assemble(recipe, *, potencies, table, curve, fractions, check_target=True, 
     messages = [b.message for b in binding]
     if binding:
         messages.append("closest feasible recipe given")
-    messages += dependent_scattering_notes(recipe, table, fractions)
-    messages += (_miss_notes(target, residuals) + _spread_notes(target, predicted) if check_target else []) + notes
+    bench = dependent_scattering_notes(recipe, table, fractions)
+    if check_target:
+        bench += _miss_notes(target, residuals)
+        messages += bench + _spread_notes(target, predicted)
+        bench += _spread_notes(target, predicted, for_bench=True)
+    else:
+        messages += bench
+    messages += notes
+    bench += [n for n in notes if not n.startswith(IGNORED_POTENCIES_NOTE)]
     today = _dt.date.today()
     for key in (recipe.matrix_key, *recipe.stock_keys):
         stock = recipe.stock(key)
         if stock.expiry is not None and stock.expiry < today:
-            messages.append(f"{key}: lot {stock.lot or '(none)'} expired on {stock.expiry.isoformat()}")
+            expired = f"{key}: lot {stock.lot or '(none)'} expired on {stock.expiry.isoformat()}"
+            messages.append(expired)
+            bench.append(expired)
     mass = volume_ml * (fractions @ table.density_g_per_ml
                         + (1 - fractions.sum()) * table.matrix_density_g_per_ml)
     return Plan(
         recipe=recipe, batch_volume_ml=volume_ml, batch_mass_g=float(mass), doses=doses, matrix=matrix,
         predicted=predicted, curve=dense, target=target, residuals=residuals,
         binding_limits=tuple(binding), warnings=tuple(dict.fromkeys(messages)),
+        sheet_notes=tuple(dict.fromkeys(bench)),
     )
 
 

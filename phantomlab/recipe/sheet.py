@@ -273,7 +273,7 @@ def render_sheet_html(plan, *, batch_id: str | None = None, draft: bool = True, 
                    + spectra_svg(plan, width=280, height=SVG_HEIGHT_PX, quantities=("musp",)) + "</div>")
 
     # warnings and cautions
-    others = [w for w in plan.warnings if w not in {b.message for b in plan.binding_limits}]
+    others = list(plan.sheet_notes)  # for the bench: no command names, no command-line-only notes
     if others:
         out.append("<h2>Notes from the planner</h2><ul class='small'>")
         out += [f"<li>{e(w)}</li>" for w in others]
@@ -357,7 +357,7 @@ def render_sheet_csv(plan, *, batch_id: str | None = None, draft: bool = True, d
     series = _so2_series(plan)
     if series is not None:
         writer.writerows(so2_series_csv_rows(series[0]))
-    for warning in plan.warnings:
+    for warning in plan.sheet_notes:
         writer.writerow(["warning", "", warning, "", "", "", ""])
     for caution in cautions_for(stocks=_used_stocks(plan), preparation_kind=recipe.preparation.kind,
                                 extra_hazards=process_hazards(recipe)):

@@ -35,8 +35,8 @@ __all__ = ["show"]
 TITLE = "Batch log"
 STATUSES = ("planned", "mixed", "characterised", "retired")
 KINDS = ("srdr", "sfdi", "slab", "sphere", "optics", "td", "fd")
-LOG_COLUMNS = ("batch", "recipe", "status", "planned on", "mixed on", "operator", "measurements",
-               "alarms", "notes")
+#: The list of batches: narrow enough for a laptop screen (the notes are with the batch below).
+LOG_COLUMNS = ("batch", "recipe", "status", "mixed on", "operator", "measurements", "alarms")
 KIND_HELP = {
     "srdr": "wavelength_nm,rho_mm,reflectance_per_mm2[,sd] (or reflectance_relative)",
     "sfdi": "wavelength_nm,fx_per_mm,reflectance[,sd]",
@@ -117,9 +117,9 @@ def _log_table(batches: list[dict]) -> pd.DataFrame:
         rows.append({
             "batch": batch["code"], "recipe": batch["recipe"], "status": batch["status"]
             + (" (retracted)" if batch["retracted"] else ""),
-            "planned on": day_text(batch["planned_on"]), "mixed on": day_text(batch["mixed_on"]),
+            "mixed on": day_text(batch["mixed_on"]),
             "operator": batch["operator"] or "", "measurements": len(batch["measurements"]),
-            "alarms": len(batch["actual_alarms"] or []), "notes": batch["notes"] or "",
+            "alarms": len(batch["actual_alarms"] or []),
         })
     return pd.DataFrame(rows, columns=LOG_COLUMNS)
 
@@ -375,6 +375,8 @@ def _one_batch(workspace: Workspace, store, batch: dict, *, fingerprint: str) ->
         f"{batch['planned_on']}" + (f" · mixed {batch['mixed_on']}" if batch["mixed_on"] else "")
         + (f" · operator {plain(batch['operator'])}" if batch["operator"] else "")
     )
+    if batch["notes"]:
+        st.caption(f"Notes: {plain(batch['notes'])}")
     if batch["sheet_html"]:
         st.download_button(f"Download the sheet of batch {batch['code']} as printed (HTML)",
                            data=batch["sheet_html"].encode("utf-8"), file_name=f"sheet-{batch['code']}.html",

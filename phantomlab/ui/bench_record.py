@@ -40,7 +40,7 @@ MAX_NAME_CHARS = 80
 # ---- who ---------------------------------------------------------------------------------------
 
 
-def by_field(key: str, *, container=None, label: str = "By (your name or initials)") -> str:
+def by_field(key: str, *, container=None, label: str = "By (name or initials)") -> str:
     """A "By" field pre-filled with the name last used on the page; returns the name typed."""
     place = container if container is not None else st
     if key not in st.session_state and st.session_state.get(BY_KEY):
@@ -339,7 +339,7 @@ def batch_record_download(workspace: Workspace, batch: dict, *, fingerprint: str
     if not outcome.ok:
         return
     html, verdict = outcome.value
-    left, right = st.columns([1, 2])
+    left, right = st.columns(2, vertical_alignment="center")
     left.download_button(f"Download the batch record of {code} (HTML)", data=html.encode("utf-8"),
                          file_name=f"batch-record-{code}.html", mime="text/html", key=f"bench.record.{code}",
                          on_click="ignore",

@@ -25,7 +25,8 @@ from phantomlab.ui.cautions import show_cautions
 from phantomlab.ui.so2_design import KEEP as SO2_KEEP
 from phantomlab.ui.so2_design import so2_series_plot
 from phantomlab.ui.design_fields import NEW_RECIPE, apply_start, read_fields, read_recipe_definition
-from phantomlab.ui.plan_view import doses_table, matrix_table, saved_sheet_downloads, sheet_downloads
+from phantomlab.ui.plan_view import (doses_table, matrix_table, predilutions_table, saved_sheet_downloads,
+                                     sheet_downloads)
 from phantomlab.ui.plain_text import plain
 from phantomlab.ui.plots import Series, bar_figure, line_figure, show_figure, target_series
 from phantomlab.ui.widgets import call_layer, show_warnings
@@ -283,9 +284,7 @@ def show(workspace: Workspace) -> None:
     if plan.binding_limits:
         lines = "\n".join(f"- {plain(b.message)}" for b in plan.binding_limits)
         st.error(f"**The target cannot be met.** The plan below is the closest feasible recipe.\n\n{lines}")
-    others = [w for w in plan.warnings if w not in {b.message for b in plan.binding_limits}
-              and w != "closest feasible recipe given"]
-    show_warnings(others)
+    show_warnings(plan.sheet_notes)  # the bench's notes: no command names, no command-line-only notes
     met = plan.residuals
     summary = []
     for label, key in (("μa", "mua_met"), ("μs′", "musp_met")) + ((("g", "g_met"),) if plan.target.has_g else ()):
@@ -299,6 +298,10 @@ def show(workspace: Workspace) -> None:
 
     st.subheader("Amounts")
     st.dataframe(doses_table(plan), hide_index=True, width="stretch")
+    diluted = predilutions_table(plan)
+    if not diluted.empty:
+        st.markdown("**Pre-dilutions** (make in this order, the day of use)")
+        st.dataframe(diluted, hide_index=True, width="stretch")
     st.markdown("**Matrix**")
     st.dataframe(matrix_table(plan), hide_index=True, width="stretch")
 

@@ -11,40 +11,75 @@ import streamlit as st
 
 from phantomlab.ui.widgets import call_layer
 
-__all__ = ["doses_table", "matrix_table", "saved_sheet_downloads", "sheet_downloads"]
+__all__ = ["doses_table", "draft_sheet_stem", "predilutions_table", "matrix_table", "name_slug", "saved_sheet_downloads", "sheet_downloads"]
 
 def doses_table(plan) -> pd.DataFrame:
+    """Per stock: what the sheet dispenses (its rounding), its share, undiluted volume and mass.
+
+    Narrow enough for a laptop screen: the pre-dilutions have a table of their own
+    (:func:`predilutions_table`), lots and expiry dates are on the sheet and under the stocks.
+    """
+    from phantomlab.recipe.procedure import format_amount, format_tolerance  # layer 3
+
     rows = []
     for dose in plan.doses:
-        if dose.dilution is not None and dose.dilution.steps:
-            steps = "; ".join(
-                f"{s.label}: {s.source_amount:.4g} {dose.dilution.unit} {s.source} + "
-                f"{s.diluent_amount:.4g} {dose.dilution.unit} {dose.dilution.diluent}"
-                for s in dose.dilution.steps
-            )
-            source = dose.dilution.dispense_from
-        else:
-            steps, source = "", f"{dose.stock} stock"
+        source = dose.dilution.dispense_from if dose.dilution is not None and dose.dilution.steps else "stock"
         rows.append({
             "stock": dose.stock,
-            "dispense": (f"{dose.dispense_amount:.4g} {dose.unit} ± {dose.tolerance:.2g} of {source}"
-                         if dose.used else "not used"),
-            "pre-dilution": steps,
-            "volume fraction [% v/v]": 100.0 * dose.volume_fraction,
-            "stock volume [mL]": dose.volume_ml,
-            "stock mass [g]": dose.mass_g,
-            "lot": dose.lot,
-            "expiry": dose.expiry.isoformat() if dose.expiry else "",
+            "dispense (as on the sheet)": (f"{format_amount(dose.dispense_amount, dose.unit)} ± "
+                                           f"{format_tolerance(dose.tolerance, dose.unit)} of {source}"
+                                           if dose.used else "not used"),
+            "share [% v/v]": _figures(100.0 * dose.volume_fraction, 3),
+            "undiluted volume [mL]": _figures(dose.volume_ml, 4),
+            "undiluted mass [g]": _figures(dose.mass_g, 4),
             "potency": f"{dose.potency:.3g} ± {dose.potency_sd:.2g} ({dose.potency_source})",
         })
     return pd.DataFrame(rows)
 
 
+def _figures(value: float, digits: int) -> float:
+    """A number rounded to ``digits`` significant figures (shown short, still a number)."""
+    return float(f"{value:.{digits}g}")
+
+
+def predilutions_table(plan) -> pd.DataFrame:
+    """The pre-dilutions to make, in order, as the sheet's pre-dilution table gives them."""
+    from phantomlab.recipe.procedure import format_amount  # layer 3
+    from phantomlab.recipe.sheet import dilution_text
+
+    rows = []
+    for dose in plan.doses:
+        if dose.dilution is None or not dose.dilution.steps:
+            continue
+        unit = dose.dilution.unit
+        for step in dose.dilution.steps:
+            rows.append({"make": step.label, "take": format_amount(step.source_amount, unit), "of": step.source,
+                         "add diluent": f"{format_amount(step.diluent_amount, unit)} {dose.dilution.diluent}",
+                         "total": f"{format_amount(step.total_amount, unit)} ({dilution_text(step.factor)})"})
+    return pd.DataFrame(rows)
+
+
 def matrix_table(plan) -> pd.DataFrame:
+    from phantomlab.recipe.procedure import format_amount, format_tolerance  # layer 3
+
     return pd.DataFrame(
-        [{"what to measure": label, "amount": f"{amount:.4g} {unit}",
-          "tolerance": f"± {tolerance:.2g} {unit}"} for label, amount, unit, tolerance in plan.matrix.parts]
+        [{"what to measure": label, "amount": format_amount(amount, unit),
+          "tolerance": f"± {format_tolerance(tolerance, unit)}"} for label, amount, unit, tolerance in plan.matrix.parts]
     )
+
+
+def name_slug(name: str, *, limit: int = 40) -> str:
+    """A name as part of a file name: lower case, ``-`` for anything but letters and digits."""
+    slug = "".join(c if c.isalnum() else "-" for c in str(name).lower())
+    slug = "-".join(part for part in slug.split("-") if part)
+    return slug[:limit].strip("-") or "recipe"
+
+
+def draft_sheet_stem(plan, *, day=None) -> str:
+    """``sheet-RECIPE-DATE`` for a sheet not yet logged (docs/formats.md, "Page downloads")."""
+    import datetime as _dt
+
+    return f"sheet-{name_slug(plan.recipe.name)}-{(day or _dt.date.today()).isoformat()}"
 
 
 def sheet_downloads(plan, *, batch_id: str | None, key: str, note: str | None = None) -> None:
@@ -52,7 +87,7 @@ def sheet_downloads(plan, *, batch_id: str | None, key: str, note: str | None = 
     batch a corrected plan corrects and the calibration state it uses)."""
     from phantomlab.recipe.sheet import render_sheet_csv, render_sheet_html  # layer 3
 
-    stem = f"sheet-{batch_id}" if batch_id else "sheet-draft"
+    stem = f"sheet-{batch_id}" if batch_id else draft_sheet_stem(plan)
     html = call_layer("Rendering the sheet", render_sheet_html, plan, batch_id=batch_id,
                       draft=batch_id is None, note=note)
     csv = call_layer("Rendering the sheet CSV", render_sheet_csv, plan, batch_id=batch_id,

@@ -147,24 +147,34 @@ def bar_figure(
     bands: dict[str, float] | None = None,
     height: int = 300,
 ) -> go.Figure:
-    """Grouped bars per x (e.g. residual per wavelength), with ± tolerance lines per series."""
+    """Grouped bars per x (e.g. residual per wavelength), with ± tolerance lines per series.
+
+    The tolerance lines are named in the legend, not written on the plot: labels on the plot
+    overprint each other (two equal tolerances) and the bars."""
     figure = go.Figure()
+    xs = np.asarray(x, dtype=float)
+    step = float(np.min(np.diff(np.unique(xs)))) if np.unique(xs).size > 1 else 1.0
+    span = [float(xs.min()) - step / 2, float(xs.max()) + step / 2] if xs.size else [0.0, 1.0]
     for index, (name, values) in enumerate(bars.items()):
         colour = COLOURS[index % len(COLOURS)]
         figure.add_trace(
             go.Bar(
-                x=np.asarray(x, dtype=float),
+                x=xs,
                 y=np.asarray(values, dtype=float),
                 name=name,
                 marker_color=colour,
                 hovertemplate=f"{name}<br>{x_label}: %{{x:.4g}}<br>{y_label}: %{{y:.3g}}<extra></extra>",
             )
         )
+    for index, (name, _values) in enumerate(bars.items()):
         if bands and name in bands:
-            figure.add_hline(y=bands[name], line_dash="dot", line_color=colour,
-                             annotation_text=f"{name} tolerance ±{bands[name]:g}",
-                             annotation_position="top left")
-            figure.add_hline(y=-bands[name], line_dash="dot", line_color=colour)
+            colour = COLOURS[index % len(COLOURS)]
+            band = bands[name]
+            figure.add_trace(go.Scatter(
+                x=[span[0], span[1], None, span[0], span[1]], y=[band, band, None, -band, -band],
+                mode="lines", line={"color": colour, "dash": "dot", "width": 1.5},
+                name=f"{name} tolerance ±{band:g} %", hoverinfo="skip",
+            ))
     _layout(figure, title=title, x_label=x_label, y_label=y_label, height=height)
     figure.update_layout(barmode="group")
     if np.asarray(x).size <= 20:  # a tick under every bar; a long spectrum keeps plotly's own ticks

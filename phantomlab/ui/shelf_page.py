@@ -46,22 +46,20 @@ def _shelf_table(shelf, origin: dict, calibrated: dict) -> pd.DataFrame:
     rows = []
     for key, stock in shelf.items():
         if stock.expiry is None:
-            expiry, state = "", "no expiry given"
+            expiry = "none given"
         else:
             days = (stock.expiry - today).days
-            expiry = stock.expiry.isoformat()
-            state = "EXPIRED" if days < 0 else (f"{days} days left" if days <= 60 else "in date")
+            expiry = stock.expiry.isoformat() + (" EXPIRED" if days < 0 else f" ({days} d left)" if days <= 60 else "")
         found = calibrated.get(key)
-        rows.append({
+        rows.append({  # narrow enough for a laptop screen: short headers, one column per fact
             "stock": key,
             "kind": stock.kind,
-            "lot": stock.lot,
+            "lot": stock.lot or "",
             "expiry": expiry,
-            "expiry state": state,
-            "potency (stock file)": f"{stock.potency:.3g} ± {stock.potency_sd:.2g}",
-            "potency (calibrated)": f"{found[0]:.3g} ± {found[1]:.2g}" if found else "not calibrated",
+            "potency (file)": f"{stock.potency:.3g} ± {stock.potency_sd:.2g}",
+            "calibrated": f"{found[0]:.3g} ± {found[1]:.2g}" if found else "—",
             "hazards": ", ".join(stock.hazards),
-            "definition from": origin.get(key, "stock file"),
+            "defined in": origin.get(key, "stock file"),
         })
     return pd.DataFrame(rows)
 
