@@ -7,13 +7,16 @@ each fit against the phantom's age at the time of measurement.
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 import streamlit as st
 
-from phantomlab.ui.plots import Series, line_figure, show_figure, target_series
+from phantomlab.ui.plots import Chart, Series, line_figure, show_chart, target_series
+from phantomlab.ui.tables import plural
 
-__all__ = ["latest_fit", "spread_section"]
+__all__ = ["latest_fit", "log_fingerprint", "spread_section"]
 
 
 def latest_fit(measurement: dict) -> dict | None:
@@ -39,17 +42,16 @@ def _fit_points(batches: list[dict]) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def spread_section(batches: list[dict]) -> None:
-    st.subheader("Across the batches of one recipe")
-    recipes = sorted({b["recipe"] for b in batches})
-    if not recipes:
-        return
-    recipe = st.selectbox("Recipe", recipes, key="batches.spread_recipe")
-    chosen = [b for b in batches if b["recipe"] == recipe and not b["retracted"]]
+def log_fingerprint(batches: list[dict]) -> str:
+    """The state of the batches the charts and records depend on: versions, measurements, fits."""
+    return json.dumps([[b["uid"], b["version"], [[m["id"], m["phantom_age_days"], [f["id"] for f in m["fits"]]]
+                                                 for m in b["measurements"]]] for b in batches])
+
+
+def _spread(chosen: list[dict]):
     points = _fit_points(chosen)
     if points.empty:
-        st.info("No fitted measurement of this recipe's batches yet.")
-        return
+        return points, None, None
     # per batch: the mean of its measurements at each wavelength; then spread across batches
     per_batch = points.groupby(["batch", "wavelength_nm"], as_index=False)[["mua_per_mm", "musp_per_mm"]].mean()
     spread = per_batch.groupby("wavelength_nm").agg(
@@ -57,12 +59,18 @@ def spread_section(batches: list[dict]) -> None:
         musp_mean=("musp_per_mm", "mean"), musp_sd=("musp_per_mm", "std")).reset_index()
     spread["mua_cv_percent"] = 100 * spread["mua_sd"] / spread["mua_mean"]
     spread["musp_cv_percent"] = 100 * spread["musp_sd"] / spread["musp_mean"]
-    count = per_batch["batch"].nunique()
-    st.caption(f"{count} measured batch(es) of this recipe; CV = SD across batches / mean "
-               "(each batch: the mean of its measurements).")
-    target = chosen[0]["plan"].get("target", {}) if chosen else {}
-    left, right = st.columns(2)
-    for column, quantity, symbol in ((left, "mua", "μa"), (right, "musp", "μs′")):
+    return points, per_batch, spread
+
+
+@st.cache_resource(show_spinner=False, max_entries=16)
+def _spread_charts(key: str, _chosen: list[dict]):
+    """The spread charts and tables of one recipe's batches, built once per state of the log (``key``)."""
+    points, per_batch, spread = _spread(_chosen)
+    if per_batch is None:
+        return points, None, None, []
+    target = _chosen[0]["plan"].get("target", {}) if _chosen else {}
+    charts = []
+    for quantity, symbol in (("mua", "μa"), ("musp", "μs′")):
         series = [Series(f"batch {code}", group["wavelength_nm"].to_numpy(), group[f"{quantity}_per_mm"].to_numpy(),
                          mode="lines+markers")
                   for code, group in per_batch.groupby("batch")]
@@ -72,8 +80,42 @@ def spread_section(batches: list[dict]) -> None:
             series.append(target_series(f"target {symbol}", np.asarray(target["wavelength_nm"])[has], wanted[has]))
         figure = line_figure(series, x_label="wavelength [nm]", y_label=f"fitted {symbol} [1/mm]",
                              title=f"Spread of {symbol} across batches")
+        charts.append(Chart(figure, per_batch, f"spread-{quantity}", f"batches.spread.{quantity}"))
+    return points, per_batch, spread, charts
+
+
+@st.cache_resource(show_spinner=False, max_entries=32)
+def _drift_charts(key: str, at: float, _picked: pd.DataFrame) -> list[Chart]:
+    """The drift charts at one wavelength, built once per state of the log (``key``)."""
+    charts = []
+    for quantity, symbol in (("mua", "μa"), ("musp", "μs′")):
+        series = [Series(f"batch {code}", group["phantom_age_days"].to_numpy(), group[f"{quantity}_per_mm"].to_numpy(),
+                         sd=group[f"{quantity}_sd_per_mm"].to_numpy(), mode="lines+markers")
+                  for code, group in _picked.groupby("batch")]
+        figure = line_figure(series, x_label="phantom age [days]", y_label=f"fitted {symbol} at {at:g} nm [1/mm]",
+                             title=f"Drift of {symbol} with phantom age")
+        charts.append(Chart(figure, _picked, f"drift-{quantity}-{at:g}nm", f"batches.drift.{quantity}"))
+    return charts
+
+
+def spread_section(batches: list[dict]) -> None:
+    st.subheader("Across the batches of one recipe")
+    recipes = sorted({b["recipe"] for b in batches})
+    if not recipes:
+        return
+    recipe = st.selectbox("Recipe", recipes, key="batches.spread_recipe")
+    chosen = [b for b in batches if b["recipe"] == recipe and not b["retracted"]]
+    key = json.dumps([recipe, log_fingerprint(chosen)])
+    points, per_batch, spread, charts = _spread_charts(key, chosen)
+    if per_batch is None:
+        st.info("No fitted measurement of this recipe's batches yet.")
+        return
+    count = per_batch["batch"].nunique()
+    st.caption(f"{plural(count, 'measured batch', 'measured batches')} of this recipe; CV = SD across batches / "
+               "mean (each batch: the mean of its measurements).")
+    for column, chart in zip(st.columns(2), charts):
         with column:
-            show_figure(figure, table=per_batch, file_stem=f"spread-{quantity}", key=f"batches.spread.{quantity}")
+            show_chart(chart)
     shown = spread[["wavelength_nm", "batches", "mua_mean", "mua_cv_percent", "musp_mean", "musp_cv_percent"]]
     st.dataframe(shown.rename(columns={
         "wavelength_nm": "wavelength [nm]", "mua_mean": "mean μa [1/mm]", "mua_cv_percent": "μa CV [%]",
@@ -87,12 +129,6 @@ def spread_section(batches: list[dict]) -> None:
     at = st.selectbox("Drift with phantom age at wavelength [nm]", wavelengths, key="batches.drift_wavelength",
                       format_func=lambda w: f"{w:g} nm")
     picked = aged[aged["wavelength_nm"] == at].sort_values("phantom_age_days")
-    left, right = st.columns(2)
-    for column, quantity, symbol in ((left, "mua", "μa"), (right, "musp", "μs′")):
-        series = [Series(f"batch {code}", group["phantom_age_days"].to_numpy(), group[f"{quantity}_per_mm"].to_numpy(),
-                         sd=group[f"{quantity}_sd_per_mm"].to_numpy(), mode="lines+markers")
-                  for code, group in picked.groupby("batch")]
-        figure = line_figure(series, x_label="phantom age [days]", y_label=f"fitted {symbol} at {at:g} nm [1/mm]",
-                             title=f"Drift of {symbol} with phantom age")
+    for column, chart in zip(st.columns(2), _drift_charts(key, float(at), picked)):
         with column:
-            show_figure(figure, table=picked, file_stem=f"drift-{quantity}-{at:g}nm", key=f"batches.drift.{quantity}")
+            show_chart(chart)

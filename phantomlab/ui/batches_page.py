@@ -14,18 +14,16 @@ Flows:
 from __future__ import annotations
 
 import datetime as _dt
-import json
 
 import numpy as np
 import pandas as pd
 import streamlit as st
 
-from phantomlab.errors import InputError
 from phantomlab.ui import services
-from phantomlab.ui.batch_trends import latest_fit, spread_section
+from phantomlab.ui.batch_trends import latest_fit, log_fingerprint, spread_section
 from phantomlab.ui.oxygenation_section import oxygenation_section
 from phantomlab.ui.plain_text import plain
-from phantomlab.ui.plots import Series, line_figure, show_figure, target_series
+from phantomlab.ui.plots import Chart, Series, line_figure, show_chart, target_series
 from phantomlab.ui.tables import day_text, moment_text, number_text
 from phantomlab.ui.widgets import call_layer
 from phantomlab.ui.workspace import Workspace
@@ -82,12 +80,6 @@ def read_log(store) -> list[dict]:
     return out
 
 
-def log_fingerprint(batches: list[dict]) -> str:
-    """The state of the log a batch record depends on: every batch's version, measurements, fits."""
-    return json.dumps([[b["code"], b["version"], [[m["id"], [f["id"] for f in m["fits"]]] for m in b["measurements"]]]
-                       for b in batches])
-
-
 def read_history(store, code: str) -> pd.DataFrame:
     from phantomlab.store import batch_history  # layer 4
 
@@ -137,30 +129,38 @@ def _amounts_section(workspace: Workspace, store, batch: dict) -> None:
     amounts_form(workspace, store, batch)
 
 
-def _prediction_plot(batch: dict) -> None:
-    made = batch.get("actual_prediction")
-    if not made:
-        return
-    target = batch["plan"].get("target", {})
-    planned = batch["plan"].get("predicted", {})
-    columns = st.columns(2)
-    for column, quantity, symbol in ((columns[0], "mua", "μa"), (columns[1], "musp", "μs′")):
-        key = f"{quantity}_per_mm"
-        series = [Series(f"what was dispensed, predicted {symbol}", made["wavelength_nm"], made[key],
+@st.cache_resource(show_spinner=False, max_entries=32)
+def _prediction_charts(key: str, _batch: dict) -> list[Chart]:
+    """μa and μs′ of what was dispensed, built once per batch version (``key``)."""
+    made = _batch["actual_prediction"]
+    target = _batch["plan"].get("target", {})
+    planned = _batch["plan"].get("predicted", {})
+    charts = []
+    for quantity, symbol in (("mua", "μa"), ("musp", "μs′")):
+        name = f"{quantity}_per_mm"
+        series = [Series(f"what was dispensed, predicted {symbol}", made["wavelength_nm"], made[name],
                          sd=made.get(f"{quantity}_sd_per_mm"), mode="lines+markers")]
-        if planned.get(key):
-            series.append(Series(f"planned {symbol}", planned["wavelength_nm"], planned[key], mode="markers"))
-        wanted = np.asarray([np.nan if v is None else v for v in target.get(key, [])], dtype=float)
+        if planned.get(name):
+            series.append(Series(f"planned {symbol}", planned["wavelength_nm"], planned[name], mode="markers"))
+        wanted = np.asarray([np.nan if v is None else v for v in target.get(name, [])], dtype=float)
         if wanted.size and np.any(np.isfinite(wanted)):
             has = np.isfinite(wanted)
             series.append(target_series(f"target {symbol}", np.asarray(target["wavelength_nm"])[has], wanted[has]))
         figure = line_figure(series, x_label="wavelength [nm]", y_label=f"{symbol} [1/mm]",
                              title=f"{symbol} of what was dispensed")
-        table = pd.DataFrame({"wavelength_nm": made["wavelength_nm"], key: made[key],
+        table = pd.DataFrame({"wavelength_nm": made["wavelength_nm"], name: made[name],
                               f"{quantity}_sd_per_mm": made.get(f"{quantity}_sd_per_mm")})
+        charts.append(Chart(figure, table, f"{_batch['code']}-dispensed-{quantity}", f"batches.made.{quantity}"))
+    return charts
+
+
+def _prediction_plot(batch: dict) -> None:
+    if not batch.get("actual_prediction"):
+        return
+    charts = _prediction_charts(f"{batch['uid']}.{batch['version']}", batch)
+    for column, chart in zip(st.columns(2), charts):
         with column:
-            show_figure(figure, table=table, file_stem=f"{batch['code']}-dispensed-{quantity}",
-                        key=f"batches.made.{quantity}")
+            show_chart(chart)
     for alarm in batch.get("actual_alarms") or []:
         st.error(plain(alarm))
 

@@ -9,6 +9,7 @@ parses and solves the definition.
 
 from __future__ import annotations
 
+import hashlib
 import tempfile
 import tomllib
 from pathlib import Path
@@ -235,8 +236,16 @@ def _spectrum_target() -> tuple[dict | None, Path | None]:
     if upload is None:
         st.info("Upload a target spectrum file to continue.")
         return None, None
-    folder = Path(tempfile.mkdtemp(prefix="phantomlab-target-"))
-    (folder / "target.csv").write_bytes(upload.getvalue())
+    # one folder per content, written once: the same upload gives the same folder on every run
+    # (so the solve and its figures are reused), a new content a new folder
+    content = upload.getvalue()
+    folder = Path(tempfile.gettempdir()) / f"phantomlab-target-{hashlib.sha256(content).hexdigest()[:20]}"
+    written = folder / "target.csv"
+    if not (written.is_file() and written.read_bytes() == content):
+        folder.mkdir(mode=0o700, exist_ok=True)
+        from phantomlab.outputs import write_bytes_atomically
+
+        write_bytes_atomically(folder / "target.csv", content, what="target spectrum")
     return {"spectrum_csv": "target.csv"}, folder
 
 

@@ -15,8 +15,6 @@ import tomllib
 from dataclasses import replace
 from pathlib import Path
 
-import numpy as np
-import pandas as pd
 import streamlit as st
 
 from phantomlab.errors import InputError
@@ -28,15 +26,14 @@ from phantomlab.ui.design_fields import NEW_RECIPE, apply_start, read_fields, re
 from phantomlab.ui.plan_view import (doses_table, matrix_table, predilutions_table, saved_sheet_downloads,
                                      sheet_downloads)
 from phantomlab.ui.plain_text import plain
-from phantomlab.ui.plots import Series, bar_figure, line_figure, show_figure, target_series
+from phantomlab.ui.plan_figures import plan_charts
+from phantomlab.ui.plots import show_chart
 from phantomlab.ui.widgets import call_layer, show_warnings
 from phantomlab.ui.workspace import Workspace
 
 __all__ = ["show"]
 
 TITLE = "Design a phantom"
-#: Above this many target wavelengths, targets are drawn as a dashed line instead of circles.
-MARKED_POINTS = 40
 #: Widget keys whose values outlive a visit to another page (see phantomlab.ui.main).
 KEEP = (
     "design.start", "design.name", "design.matrix", "design.stocks", "design.size_by", "design.size",
@@ -56,9 +53,21 @@ KEEP = (
 
 def _same_as_file(definition: dict, path: Path) -> bool:
     """Whether the fields describe the recipe file unchanged (then the file itself is used)."""
+    try:
+        stat = path.stat()
+    except OSError:
+        return False
+    return _same_as_file_cached(json.dumps(services.plain(definition), sort_keys=True), str(path),
+                                stat.st_mtime_ns, stat.st_size)
+
+
+@st.cache_data(show_spinner=False, max_entries=32)
+def _same_as_file_cached(definition_json: str, path_text: str, mtime_ns: int, size: int) -> bool:
+    """:func:`_same_as_file`, once per fields and state of the file (its time and size in the key)."""
     from phantomlab.recipe.limits import parse_limits  # layer 3
     from phantomlab.recipe.targets import parse_target
 
+    definition, path = json.loads(definition_json), Path(path_text)
     try:
         original = read_recipe_definition(path)
         for key in ("name", "matrix", "stocks", "batch_volume_ml", "batch_mass_g"):
@@ -89,72 +98,6 @@ def _solved(definition_json: str, base_dir: str, source: str, _shelf, shelf_toke
         recipe = parse_recipe(definition, base_dir=Path(base_dir), shelf=_shelf)
     potencies = {k: tuple(v) for k, v in json.loads(potencies_json).items()} or None
     return solve(recipe, potencies=potencies)
-
-
-def _spectrum_plots(plan) -> None:
-    target = plan.target
-    dense = plan.curve if plan.curve is not None else plan.predicted
-    at_points = plan.predicted
-    columns = st.columns(2)
-    for column, quantity, symbol in ((columns[0], "mua", "μa"), (columns[1], "musp", "μs′")):
-        wanted = getattr(target, f"{quantity}_per_mm")
-        series = [
-            Series(f"predicted {symbol}", dense.wavelength_nm, getattr(dense, f"{quantity}_per_mm"),
-                   sd=getattr(dense, f"{quantity}_sd_per_mm")),
-        ]
-        if at_points.wavelength_nm.size <= MARKED_POINTS:
-            series.append(Series("predicted at target wavelengths", at_points.wavelength_nm,
-                                 getattr(at_points, f"{quantity}_per_mm"), mode="markers"))
-        has = np.isfinite(wanted)
-        if np.any(has) and np.count_nonzero(has) > MARKED_POINTS:
-            series.append(Series(f"target {symbol}", target.wavelength_nm[has], wanted[has], dash="dash",
-                                 colour="#000000"))
-        elif np.any(has):
-            series.append(target_series(f"target {symbol}", target.wavelength_nm[has], wanted[has]))
-        figure = line_figure(series, x_label="wavelength [nm]", y_label=f"{symbol} [1/mm]",
-                             title=f"{symbol}: predicted against target")
-        table = pd.DataFrame({
-            "wavelength_nm": at_points.wavelength_nm,
-            f"target_{quantity}_per_mm": wanted,
-            f"predicted_{quantity}_per_mm": getattr(at_points, f"{quantity}_per_mm"),
-            f"predicted_{quantity}_sd_per_mm": getattr(at_points, f"{quantity}_sd_per_mm"),
-        })
-        with column:
-            show_figure(figure, table=table, file_stem=f"predicted-{quantity}", key=f"design.{quantity}")
-
-
-def _g_plot(plan) -> None:
-    """g of the mix (scattering model) against the g target, where the recipe has one."""
-    target = plan.target
-    dense = plan.curve if plan.curve is not None else plan.predicted
-    has = np.isfinite(target.g)
-    figure = line_figure(
-        [Series("g of the mix (scattering model, not a measurement)", dense.wavelength_nm, dense.g),
-         target_series("target g", target.wavelength_nm[has], target.g[has])],
-        x_label="wavelength [nm]", y_label="g [dimensionless]", title="Anisotropy g: predicted against target",
-    )
-    table = pd.DataFrame({"wavelength_nm": plan.predicted.wavelength_nm, "target_g": target.g,
-                          "predicted_g": plan.predicted.g})
-    show_figure(figure, table=table, file_stem="predicted-g", key="design.g")
-
-
-def _residual_plot(plan) -> None:
-    residuals = plan.residuals
-    wavelength = np.asarray(residuals["wavelength_nm"], dtype=float)
-    mua = 100.0 * np.asarray(residuals["mua_relative"], dtype=float)
-    musp = 100.0 * np.asarray(residuals["musp_relative"], dtype=float)
-    bars = {}
-    if np.any(np.isfinite(mua)):
-        bars["μa"] = mua
-    if np.any(np.isfinite(musp)):
-        bars["μs′"] = musp
-    tolerances = {"μa": 100.0 * plan.target.mua_tolerance, "μs′": 100.0 * plan.target.musp_tolerance}
-    figure = bar_figure(wavelength, bars, x_label="wavelength [nm]",
-                        y_label="predicted / target − 1 [%]",
-                        title="Residual per wavelength", bands={k: tolerances[k] for k in bars})
-    table = pd.DataFrame({"wavelength_nm": wavelength, "mua_residual_percent": mua,
-                          "musp_residual_percent": musp})
-    show_figure(figure, table=table, file_stem="residual-per-wavelength", key="design.residual")
 
 
 def _recipe_download(definition: dict, source: str) -> None:
@@ -225,7 +168,8 @@ def show(workspace: Workspace) -> None:
         return
     shelf, origin = loaded.value
 
-    files = [p.name for p in services.recipe_files(workspace)]
+    names = services.recipe_catalogue(workspace)  # file name -> recipe name, read once per folder state
+    files = list(names)
     choices = files + [NEW_RECIPE]
     if "design.started_from" not in st.session_state:
         from phantomlab.ui.demo import DEMO_RECIPE
@@ -239,12 +183,6 @@ def show(workspace: Workspace) -> None:
     def restart() -> None:
         call_layer("Reading the recipe", apply_start, workspace, shelf, st.session_state["design.start"])
 
-    names = {}
-    for choice in files:
-        try:
-            names[choice] = str(read_recipe_definition(workspace.recipes_folder / choice).get("name", ""))
-        except InputError:
-            names[choice] = ""
     st.selectbox("Start from", choices, key="design.start", on_change=restart,
                  format_func=lambda c: f"{names[c]} — {c}" if names.get(c) else c,
                  help="A recipe file fills in the fields below; change any of them.")
@@ -290,11 +228,14 @@ def show(workspace: Workspace) -> None:
     for label, key in (("μa", "mua_met"), ("μs′", "musp_met")) + ((("g", "g_met"),) if plan.target.has_g else ()):
         summary.append(f"{label} {'within' if met.get(key) else 'outside'} tolerance")
     st.markdown(" · ".join(summary) + f" · batch {plan.batch_volume_ml:.4g} mL, {plan.batch_mass_g:.4g} g")
-    _spectrum_plots(plan)
+    solve_key = json.dumps([token, str(base_dir), source, potencies], sort_keys=True, default=str)
+    charts = plan_charts(solve_key, plan)  # built once per solve
+    for column, chart in zip(st.columns(2), charts["spectra"]):
+        with column:
+            show_chart(chart)
     so2_series_plot(plan)
-    if plan.target.has_g:
-        _g_plot(plan)
-    _residual_plot(plan)
+    for chart in charts["g"] + charts["residual"]:
+        show_chart(chart)
 
     st.subheader("Amounts")
     st.dataframe(doses_table(plan), hide_index=True, width="stretch")
@@ -313,4 +254,4 @@ def show(workspace: Workspace) -> None:
     _sheet_preview(plan)
     _recipe_download(definition, source)
     _save_batch(workspace, store, plan, origin, definition=definition, base_dir=base_dir,
-                source=source, token=token + json.dumps(potencies, sort_keys=True))
+                source=source, token=solve_key)

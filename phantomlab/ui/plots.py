@@ -13,11 +13,22 @@ import pandas as pd
 import plotly.graph_objects as go
 import streamlit as st
 
-__all__ = ["Series", "bar_figure", "line_figure", "show_figure", "target_series"]
+__all__ = ["Chart", "Series", "bar_figure", "line_figure", "show_chart", "show_figure", "target_series"]
 
 # A plain palette of our own: predicted / fitted lines dark, targets and data as markers.
 COLOURS = ("#1f4e79", "#c08a00", "#b5462f", "#7a5195", "#3b7d3b", "#4b4b4b", "#00838f")
 TARGET_COLOUR = "#000000"
+GRID_COLOUR = "#e6e6e6"
+
+
+@dataclass(frozen=True)
+class Chart:
+    """A figure ready to show: with the table of its numbers, the download's name and a widget key."""
+
+    figure: go.Figure
+    table: pd.DataFrame
+    file_stem: str
+    key: str
 
 
 @dataclass(frozen=True)
@@ -45,7 +56,7 @@ def line_figure(
     height: int = 340,
 ) -> go.Figure:
     """A figure of spectra (or any x–y series) with shaded ±1 SD bands where given."""
-    figure = go.Figure()
+    figure = go.Figure(layout={"template": "none"})  # see _layout
     for index, item in enumerate(series):
         colour = item.colour or COLOURS[index % len(COLOURS)]
         x = np.asarray(item.x, dtype=float)
@@ -108,7 +119,12 @@ def _layout(figure: go.Figure, *, title, x_label: str, y_label: str, height: int
         margin={"l": 60, "r": 20, "t": 40 if title else 20, "b": 120 if entries > 1 else 50},
         legend={"orientation": "h", "yanchor": "top", "y": -0.28, "x": 0, "xanchor": "left"},
         hovermode="closest",
-        template="plotly_white",
+        # no plotly template: the page draws with Streamlit's chart theme, and a named template
+        # is copied and checked into every figure (about half the cost of building one)
+        template="none",
+        plot_bgcolor="white",
+        xaxis={"showgrid": True, "gridcolor": GRID_COLOUR, "zeroline": False},
+        yaxis={"showgrid": True, "gridcolor": GRID_COLOUR, "zeroline": False},
     )
 
 
@@ -137,6 +153,11 @@ def show_figure(figure: go.Figure, *, table: pd.DataFrame, file_stem: str, key: 
     )
 
 
+def show_chart(chart: Chart) -> None:
+    """:func:`show_figure` of a :class:`Chart`."""
+    show_figure(chart.figure, table=chart.table, file_stem=chart.file_stem, key=chart.key)
+
+
 def bar_figure(
     x: np.ndarray,
     bars: dict[str, np.ndarray],
@@ -151,7 +172,7 @@ def bar_figure(
 
     The tolerance lines are named in the legend, not written on the plot: labels on the plot
     overprint each other (two equal tolerances) and the bars."""
-    figure = go.Figure()
+    figure = go.Figure(layout={"template": "none"})  # see _layout
     xs = np.asarray(x, dtype=float)
     step = float(np.min(np.diff(np.unique(xs)))) if np.unique(xs).size > 1 else 1.0
     span = [float(xs.min()) - step / 2, float(xs.max()) + step / 2] if xs.size else [0.0, 1.0]

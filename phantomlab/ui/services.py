@@ -25,6 +25,7 @@ __all__ = [
     "shelf_document",
     "load_page_shelf",
     "recipe_files",
+    "recipe_catalogue",
     "calibrated_potencies",
 ]
 
@@ -81,19 +82,46 @@ def load_page_shelf(workspace: Workspace, store):
     return shelf, origin
 
 
-def recipe_files(workspace: Workspace) -> list[Path]:
-    """Recipe files beside the shelf (TOML files with a ``[target]`` table), by name."""
+def _listing(folder: Path) -> tuple:
+    """(name, modification time, size) of every ``*.toml`` in ``folder``: cheap to take each run."""
     found = []
-    if workspace.shelf_path is None:
-        return found
-    for path in sorted(workspace.recipes_folder.glob("*.toml")):
+    for path in sorted(folder.glob("*.toml")):
         try:
-            document = tomllib.loads(path.read_text(encoding="utf-8"))
-        except (OSError, tomllib.TOMLDecodeError):
+            stat = path.stat()
+        except OSError:
+            continue
+        found.append((path.name, stat.st_mtime_ns, stat.st_size))
+    return tuple(found)
+
+
+@st.cache_data(show_spinner=False, max_entries=8)
+def _recipe_catalogue(folder: str, listing: tuple) -> dict[str, str]:
+    """File name -> recipe name of the recipe files (TOML with ``[target]`` and ``name``) in ``folder``.
+
+    Read once per state of the folder (``listing``), not on every run of the page.
+    """
+    catalogue = {}
+    for name, _mtime, _size in listing:
+        try:
+            document = tomllib.loads((Path(folder) / name).read_text(encoding="utf-8"))
+        except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
             continue
         if "target" in document and "name" in document:
-            found.append(path)
-    return found
+            catalogue[name] = str(document["name"])
+    return catalogue
+
+
+def recipe_catalogue(workspace: Workspace) -> dict[str, str]:
+    """File name -> recipe name of the recipe files beside the shelf, by file name."""
+    if workspace.shelf_path is None:
+        return {}
+    folder = workspace.recipes_folder
+    return dict(_recipe_catalogue(str(folder), _listing(folder)))
+
+
+def recipe_files(workspace: Workspace) -> list[Path]:
+    """Recipe files beside the shelf (TOML files with a ``[target]`` table), by name."""
+    return [workspace.recipes_folder / name for name in recipe_catalogue(workspace)]
 
 
 def calibrated_potencies(store, shelf) -> dict[str, tuple[float, float]]:
