@@ -165,6 +165,15 @@ def _prediction_plot(batch: dict) -> None:
         st.error(plain(alarm))
 
 
+@st.cache_data(show_spinner=False, max_entries=16)
+def _demo_measurement(database_url: str, code: str, version: int) -> str:
+    """The demo's invented measurement of a batch, made once per batch version."""
+    from phantomlab.ui.demo import demo_measurement_csv
+    from phantomlab.ui.services import _open_store
+
+    return demo_measurement_csv(_open_store(database_url), code)
+
+
 def _measure_section(workspace: Workspace, store, batch: dict) -> None:
     from phantomlab.calibration.fit_file import FIT_MODELS  # layer 3
     from phantomlab.ui.recording import attach_measurement
@@ -181,9 +190,8 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
     model = c2.selectbox("Fit model", FIT_MODELS[kind], key=f"batches.model.{kind}")
     c3.caption(f"Columns: `{KIND_HELP[kind]}`")
     if workspace.is_demo and batch["actual_amounts"]:
-        from phantomlab.ui.demo import demo_measurement_csv
-
-        made = call_layer("Inventing a demo measurement", demo_measurement_csv, store, batch["code"])
+        made = call_layer("Inventing a demo measurement", _demo_measurement, workspace.database_url,
+                          batch["code"], batch["version"])
         if made.ok:
             st.download_button(
                 "Demo only: download an invented probe measurement of this batch (srdr CSV, n = 1.33)",

@@ -73,6 +73,19 @@ DEMO_SEED_VERSION = 3
 _lock = threading.Lock()
 
 
+#: Demo database files (path, device, inode, change time) found seeded by this process: a
+#: file put in its place or written to since is looked at again.
+_checked: set[tuple] = set()
+
+
+def _identity(demo_file) -> tuple | None:
+    try:
+        stat = Path(demo_file).stat()
+    except OSError:
+        return None
+    return (str(demo_file), stat.st_dev, stat.st_ino, stat.st_ctime_ns)  # ctime: a rewrite looks again
+
+
 def _seeded_version(demo_file) -> int | None:
     """The demo version a demo database was seeded with (SQLite's ``user_version``; None if unreadable)."""
     import sqlite3
@@ -220,7 +233,11 @@ def ensure_demo_database(workspace: Workspace) -> Outcome:
         return Outcome(error="the demo seeding was asked for a lab database; refused")
     with _lock:
         exists = Path(workspace.demo_file).is_file()
+        identity = _identity(workspace.demo_file) if exists else None
+        if identity is not None and identity in _checked:
+            return Outcome(value=False)  # this very file was found seeded before (no query per run)
         if exists and _seeded_version(workspace.demo_file) == DEMO_SEED_VERSION:
+            _checked.add(identity)
             return Outcome(value=False)
         first = ("First run: writing" if not exists else
                  "The demo database was made by another phantomlab version: rewriting")
@@ -249,8 +266,9 @@ def demo_measurement_csv(store, code: str, *, seed: int = 7) -> str:
         volume_ml = float(plan_of(session, batch).plan["batch_volume_ml"])
     if not amounts:
         raise InputError(f"batch {code}: record the amounts dispensed first")
-    fractions = {row["stock"]: float(row["volume_ml"]) / volume_ml for row in amounts
-                 if row["stock"] in recipe.stock_keys}
+    fractions = {row["stock"]: float(row["volume_fraction"]) if row.get("volume_fraction") is not None
+                 else float(row["volume_ml"]) / volume_ml  # as recorded (the matrix counted when given)
+                 for row in amounts if row["stock"] in recipe.stock_keys}
     truth = {k: (v, 0.0) for k, v in DEMO_TRUE_POTENCIES.items() if k in recipe.stock_keys}
     made = predict(recipe, volume_fractions=fractions, potencies=truth or None)
     return synthetic_srdr_csv(wavelength_nm=made.wavelength_nm, mua_per_mm=made.mua_per_mm,

@@ -27,7 +27,7 @@ import streamlit as st
 from phantomlab.errors import InputError
 from phantomlab.ui import services
 from phantomlab.ui.plain_text import code_span, plain
-from phantomlab.ui.plots import Series, line_figure, show_figure
+from phantomlab.ui.plots import Chart, Series, line_figure, show_chart, show_figure
 from phantomlab.ui.widgets import call_layer, number_list_field, quantity_field
 from phantomlab.ui.workspace import Workspace
 
@@ -100,33 +100,42 @@ def _optics_section(shelf) -> None:
         found = call_layer(f"Optics of {key}", _intrinsic, stock, matrix, token, tuple(wavelength), so2)
     if not found.ok:
         return
-    optics = found.value
-    musp = np.asarray(optics.musp_per_mm, dtype=float)
-    mua = np.asarray(optics.mua_per_mm, dtype=float)
-    mua_sd = getattr(optics, "mua_sd_per_mm", None)
+    charts, g = _optics_charts(token, tuple(wavelength), found.value, key)  # built once per stock and grid
     left, right = st.columns(2)
-    table = pd.DataFrame({"wavelength_nm": optics.wavelength_nm, "mua_per_mm": mua,
-                          "mus_per_mm": optics.mus_per_mm, "g": optics.g, "musp_per_mm": musp})
     with left:
-        figure = line_figure(
-            [Series(f"{key} μa", optics.wavelength_nm, mua,
-                    sd=None if mua_sd is None or not np.any(mua_sd) else mua_sd)],
-            x_label="wavelength [nm]", y_label="intrinsic μa [1/mm per volume fraction]",
-            title=f"{key}: absorption", log_y=bool(np.all(mua > 0) and mua.max() / mua.min() > 100),
-        )
-        show_figure(figure, table=table, file_stem=f"{key}-intrinsic-optics", key="shelf.optics_mua")
+        show_chart(charts[0])
     with right:
-        if np.any(musp > 0):
-            figure = line_figure(
-                [Series(f"{key} μs′", optics.wavelength_nm, musp)],
-                x_label="wavelength [nm]", y_label="intrinsic μs′ [1/mm per volume fraction]",
-                title=f"{key}: reduced scattering",
-            )
-            show_figure(figure, table=table, file_stem=f"{key}-intrinsic-musp", key="shelf.optics_musp")
-            g = np.asarray(optics.g, dtype=float)
+        if len(charts) > 1:
+            show_chart(charts[1])
             st.caption(f"g (scattering model, not a measurement): {g.min():.3f} – {g.max():.3f}")
         else:
             st.info(f"{plain(key)} does not scatter (μs′ = 0).")
+
+
+@st.cache_resource(show_spinner=False, max_entries=32)
+def _optics_charts(token: str, wavelength: tuple, _optics, key: str):
+    """The intrinsic-optics charts of one stock on one grid (``token``, ``wavelength``), built once."""
+    optics = _optics
+    musp = np.asarray(optics.musp_per_mm, dtype=float)
+    mua = np.asarray(optics.mua_per_mm, dtype=float)
+    mua_sd = getattr(optics, "mua_sd_per_mm", None)
+    table = pd.DataFrame({"wavelength_nm": optics.wavelength_nm, "mua_per_mm": mua,
+                          "mus_per_mm": optics.mus_per_mm, "g": optics.g, "musp_per_mm": musp})
+    figure = line_figure(
+        [Series(f"{key} μa", optics.wavelength_nm, mua,
+                sd=None if mua_sd is None or not np.any(mua_sd) else mua_sd)],
+        x_label="wavelength [nm]", y_label="intrinsic μa [1/mm per volume fraction]",
+        title=f"{key}: absorption", log_y=bool(np.all(mua > 0) and mua.max() / mua.min() > 100),
+    )
+    charts = [Chart(figure, table, f"{key}-intrinsic-optics", "shelf.optics_mua")]
+    if np.any(musp > 0):
+        figure = line_figure(
+            [Series(f"{key} μs′", optics.wavelength_nm, musp)],
+            x_label="wavelength [nm]", y_label="intrinsic μs′ [1/mm per volume fraction]",
+            title=f"{key}: reduced scattering",
+        )
+        charts.append(Chart(figure, table, f"{key}-intrinsic-musp", "shelf.optics_musp"))
+    return charts, np.asarray(optics.g, dtype=float)
 
 
 # ---- cuvette dilution series --------------------------------------------------------------------
