@@ -268,8 +268,8 @@ def fit_srdr(
         dropped = int((finite & ~used).sum())
         if dropped:
             messages.append(
-                f"diffusion fit: left out {dropped} points within {min_transport_mfp:g} transport "
-                f"mean free paths of the source (diffusion is poor there)"
+                f"diffusion fit: left out {dropped} point{'s' if dropped != 1 else ''} within "
+                f"{min_transport_mfp:g} transport mean free paths of the source (diffusion is poor there)"
             )
     if relative and not (constraint is not None and constraint.active):
         result, correlation = fit_spectrum(forward, start=(result.mua_per_mm, result.musp_per_mm),

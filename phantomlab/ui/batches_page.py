@@ -120,12 +120,16 @@ def _log_table(batches: list[dict]) -> pd.DataFrame:
 
 
 def _amounts_section(workspace: Workspace, store, batch: dict) -> None:
-    from phantomlab.ui.bench_record import amounts_form, mixing_summary, recorded_amounts_table
+    from phantomlab.ui.bench_record import (amounts_form, mixing_summary, recorded_amounts_table,
+                                            recorded_predilutions_table)
 
     if batch["actual_amounts"]:
         said = mixing_summary(batch)
         st.markdown("**Recorded**" + (f" — {plain(said)}" if said else ""))
         st.dataframe(recorded_amounts_table(batch), hide_index=True, width="stretch")
+        made = recorded_predilutions_table(batch)
+        if not made.empty:
+            st.dataframe(made, hide_index=True, width="stretch")
     amounts_form(workspace, store, batch)
 
 

@@ -29,6 +29,7 @@ from phantomlab.ui.widgets import call_layer
 from phantomlab.ui.workspace import Workspace
 
 __all__ = ["amounts_form", "batch_record_download", "by_field", "form_rows", "recorded_amounts_table",
+           "recorded_predilutions_table", "mixing_summary",
            "remember_by", "shown_notice", "set_notice"]
 
 #: Where the name last typed in a "By" field is kept, to pre-fill the next one.
@@ -156,9 +157,9 @@ def _predilution_fields(prefix: str, steps) -> None:
     for step in steps:
         left, right = st.columns(2)
         left.text_input(f"{step.name} actual taken (sheet {step.amount_text} of {step.source})",
-                        key=f"{prefix}.{step.name}.taken", placeholder=step.amount_text)
+                        key=f"{prefix}.{step.name}.taken")
         right.text_input(f"{step.name} actual diluent (sheet {step.diluent_text} {step.diluent})",
-                         key=f"{prefix}.{step.name}.diluent", placeholder=step.diluent_text)
+                         key=f"{prefix}.{step.name}.diluent")
 
 
 def _amount_fields(prefix: str, amounts) -> None:
@@ -168,7 +169,7 @@ def _amount_fields(prefix: str, amounts) -> None:
         where = "" if line.kind == "matrix" else f" from {line.source}"
         column.text_input(
             f"{line.number} · {line.label}{where}: sheet {line.amount_text} {line.tolerance_text}".strip(),
-            key=f"{prefix}.{line.name}", placeholder=line.amount_text,
+            key=f"{prefix}.{line.name}",
             help=("Empty: the matrix as planned." if line.kind == "matrix" else
                   "A mass (g, mg) of the stock is turned into volume with the stock's density; "
                   "0 mL for a stock left out."),
@@ -181,12 +182,12 @@ def _mixing_fields(prefix: str) -> None:
     today = _dt.date.today()
     c1.date_input("Mixed on", value=today, min_value=_dt.date(1900, 1, 1), max_value=today,
                   key=f"{prefix}.mixed_on")
-    c2.text_input("Mixing time (HH:MM, 24 h; optional)", key=f"{prefix}.mixing_time", placeholder="14:30")
+    c2.text_input("Mixing time (HH:MM, 24 h; optional)", key=f"{prefix}.mixing_time", placeholder="HH:MM")
     c3.text_input("Mixing temperature (with unit: 21 °C; optional)", key=f"{prefix}.temperature",
-                  placeholder="21 °C")
+                  placeholder="e.g. 21 °C")
     c4, c5 = st.columns([2, 1])
     c4.text_input("Cure or setting schedule as done (optional)", key=f"{prefix}.cure",
-                  placeholder="24 h at 21 °C", max_chars=200)
+                  placeholder="e.g. 24 h at 21 °C", max_chars=200)
     by_field(f"{prefix}.by", container=c5)
     st.text_input("Notes (optional; added to the batch's notes)", key=f"{prefix}.notes", max_chars=500)
 
@@ -263,7 +264,7 @@ def _amount_text(value, unit: str) -> str:
 
 
 def recorded_amounts_table(batch: dict) -> pd.DataFrame:
-    """The amounts as recorded: as given, as undiluted stock, and the pre-dilutions as made."""
+    """The amounts as recorded: as given, what of, as undiluted stock, planned."""
     rows = []
     for item in batch.get("actual_amounts") or []:
         given = item.get("given") or {}
@@ -274,25 +275,32 @@ def recorded_amounts_table(batch: dict) -> pd.DataFrame:
                 for name, amount in given["lines"].items())
         else:
             as_given = ", ".join(_amount_text(v, "mL" if k == "volume_ml" else "g") for k, v in given.items())
-        made = "; ".join(
-            f"{s['step']}: {_amount_text(s['taken'], s['unit'])} + {_amount_text(s['diluent'], s['unit'])} "
-            f"(1 in {1.0 / s['share']:.4g})" for s in item.get("predilution") or [])
         factor = float(item.get("dilution_factor") or 1.0)
+        made = item.get("predilution") or []
         rows.append({
             "line": item["stock"],
             "as given": as_given,
-            "of": (f"pre-dilution, 1 in {factor:.4g}" if factor > 1 else
-                   "matrix, with the diluent the pre-dilutions carried" if "carried_diluent_volume_ml" in item
-                   else "stock"),
-            "pre-dilution as made": made,
+            "of": (f"{made[-1]['step']} (1 in {factor:.4g} as made)" if made else
+                   f"pre-dilution 1 in {factor:.4g}" if factor > 1 else
+                   "matrix + carried diluent" if "carried_diluent_volume_ml" in item else "stock"),
             "undiluted [mL]": _amount_text(item.get("volume_ml"), "mL"),
             "undiluted [g]": _amount_text(item.get("mass_g"), "g"),
             "planned [mL]": _amount_text(item.get("planned_volume_ml"), "mL"),
         })
-    frame = pd.DataFrame(rows)
-    if not frame.empty and not frame["pre-dilution as made"].str.len().any():
-        frame = frame.drop(columns=["pre-dilution as made"])
-    return frame
+    return pd.DataFrame(rows)
+
+
+def recorded_predilutions_table(batch: dict) -> pd.DataFrame:
+    """The pre-dilutions as made (actual taken, actual diluent), against the plan."""
+    rows = []
+    for item in batch.get("actual_amounts") or []:
+        for step in item.get("predilution") or []:
+            rows.append({"pre-dilution": step["step"], "of": step["source"],
+                         "actual taken": _amount_text(step["taken"], step["unit"]),
+                         "actual diluent": _amount_text(step["diluent"], step["unit"]),
+                         "planned": f"1 in {1.0 / step['planned_share']:.4g}",
+                         "made": f"1 in {1.0 / step['share']:.4g}"})
+    return pd.DataFrame(rows)
 
 
 def mixing_summary(batch: dict) -> str:

@@ -194,6 +194,7 @@ def cli_argument_cases() -> list[Case]:
     for option, value in [("--mixed-on", "yesterday"), ("--mixed-on", "2026-13-01"), ("--mixed-on", "2026-02-30"),
                           ("--mixed-on", "1899-12-31"), ("--mixed-on", "9999-01-01"), ("--mixed-on", ""),
                           ("--mixed-on", "2026-03-01x"), ("--mixed-on", "2026-03-01T25:00"),
+                          ("--mixed-on", "2026-03-01T14:99"), ("--mixed-on", "2026-03-01 noon"),
                           ("--mixing-temperature-c", "nan"), ("--mixing-temperature-c", "-300"),
                           ("--mixing-temperature-c", "inf"), ("--mixing-temperature-c", "1e6")]:
         cases.append(Case("cli", f"batch actual {option} {value!r}",
@@ -514,6 +515,21 @@ AMOUNTS = {
     "dilution below 1": f"# {SECRET}\nstock,volume_ml,dilution_factor\nwater,480,0.5\n",
     "dilution nan": f"# {SECRET}\nstock,volume_ml,dilution_factor\nwater,480,nan\n",
     "missing stock": f"# {SECRET}\nstock,volume_ml\nwater,480\n",
+    "diluent on a stock row": f"# {SECRET}\nstock,volume_ml,diluent_ml\nwater,480,\nlipid20,20,1\nink_black,0.05,\n"
+                              "dye_nir,0.05,\n",
+    "pre-dilution without its diluent": f"# {SECRET}\nstock,volume_ml,diluent_ml\nwater,480,\nink_black-D1,0.1,\n"
+                                        "lipid20,20,\nink_black,0.05,\ndye_nir,0.05,\n",
+    "pre-dilution taken 0": f"# {SECRET}\nstock,volume_ml,diluent_ml\nwater,480,\nink_black-D1,0,0.9\n"
+                            "lipid20,20,\nink_black,0.05,\ndye_nir,0.05,\n",
+    "pre-dilution diluent nan": f"# {SECRET}\nstock,volume_ml,diluent_ml\nink_black-D1,0.1,nan\n",
+    "pre-dilution by mass, made by volume": f"# {SECRET}\nstock,mass_g,diluent_g\nink_black-D1,0.1,0.9\n",
+    "pre-dilution without its dose": f"# {SECRET}\nstock,volume_ml,diluent_ml\nink_black-D1,0.1,0.9\n"
+                                     "lipid20,20,\ndye_nir,0.05,\n",
+    "pre-diluted dose weighed": f"# {SECRET}\nstock,volume_ml,mass_g,diluent_ml\nink_black-D1,0.1,,0.9\n"
+                                "ink_black,,0.05,\nlipid20,20,,\ndye_nir,0.05,,\n",
+    "both diluent columns": f"# {SECRET}\nstock,volume_ml,diluent_ml,diluent_g\nink_black-D1,0.1,0.9,0.9\n",
+    "matrix line of a one-line matrix": f"# {SECRET}\nstock,volume_ml\nwater:part_a,480\nlipid20,20\n"
+                                        "ink_black,0.05\ndye_nir,0.05\n",
     "empty": "",
     "binary": b"\x00" + SECRET.encode() + bytes(range(256)),
     "bom and garbage": "\ufeff" + GARBAGE,

@@ -1,8 +1,13 @@
 """The page in a real browser: ``streamlit run app.py`` driven by Debian's chromium.
 
 Starts the page on a free localhost port against a demo database in the test's temporary
-folder, designs a phantom, downloads the mixing sheet, and saves screenshots under the
-test's ``tmp_path``.  Fails if the page ever shows Streamlit's exception element.  Skips,
+folder, designs a phantom, downloads the mixing sheet (named after the recipe and the day),
+saves it as a batch, fills in the whole bench record as the sheet asks (pre-dilutions as
+made, the water, a dose weighed, mixing time, temperature, cure, who) and checks that
+``batch actual`` of the same sheet stores the same (``batch show``), attaches a measurement,
+downloads the batch record with its verdict, recalibrates and corrects; then photographs
+every page at 1280 and 1920 px and checks that no table is wider than its place.
+Screenshots are saved under the test's ``tmp_path``.  Fails if the page ever shows Streamlit's exception element.  Skips,
 saying why, only when /usr/bin/chromium is absent (``.ci/run`` installs it).
 
 Launch flags: ../shared/TOOLING.md (the system browser, never a downloaded one).
@@ -113,20 +118,137 @@ def _settle(page) -> None:
     page.wait_for_timeout(300)
 
 
-def _shoot(page, path: Path) -> None:
+def _shoot(page, path: Path, *, width: int = 1400) -> None:
     """A screenshot of the whole page: Streamlit scrolls inside its main block, not the window."""
     height = page.evaluate(
         "() => Math.max(...[...document.querySelectorAll('[data-testid=\"stMain\"], "
         "[data-testid=\"stAppViewContainer\"], section.main')].map(e => e.scrollHeight), 1000)"
     )
-    page.set_viewport_size({"width": 1400, "height": min(int(height) + 40, 12000)})
+    page.set_viewport_size({"width": width, "height": min(int(height) + 40, 12000)})
     page.wait_for_timeout(1500)
     charts = page.locator('[data-testid="stPlotlyChart"]')
     for index in range(charts.count()):  # every chart drawn, not a placeholder
         charts.nth(index).locator(".main-svg").first.wait_for(state="attached", timeout=STEP_TIMEOUT_MS)
     page.wait_for_timeout(500)
     page.screenshot(path=path, full_page=True)
-    page.set_viewport_size({"width": 1400, "height": 1000})
+    page.set_viewport_size({"width": width, "height": 1000})
+
+
+#: The sheet of the demo recipe as written down at the bench (demo data, invented); the same
+#: lines as an amounts CSV for `batch actual`.
+BENCH = {"ink_black-D1 actual taken": "101 uL", "ink_black-D1 actual diluent": "0.905 mL",
+         "dye_nir-D1 actual taken": "98 uL", "dye_nir-D1 actual diluent": "902 uL",
+         "1 · water": "476.0 mL", "2 · dye_nir": "160 uL", "3 · ink_black": "0.180 mL", "4 · lipid20": "23.9 g"}
+BENCH_CSV = ("stock,volume_ml,mass_g,diluent_ml\nwater,476.0,,\nink_black-D1,0.101,,0.905\n"
+             "dye_nir-D1,0.098,,0.902\ndye_nir,0.160,,\nink_black,0.180,,\nlipid20,,23.9,\n")
+BY, CURE = "browser test", "stirred 10 min; liquid, no cure"
+
+
+def _bench_record(page, tmp_path) -> str:
+    """Fill the bench record of the batch just saved (the one open) and record it once."""
+    form = page.locator('[data-testid="stForm"]').filter(has_text="Pre-dilutions as made")
+    form.wait_for()
+    for start, text in BENCH.items():
+        field = form.get_by_role("textbox", name=re.compile("^" + re.escape(start)))
+        assert field.count() == 1, start
+        field.fill(text)
+    form.get_by_role("textbox", name="Mixing time (HH:MM, 24 h; optional)").fill("14:30")
+    form.get_by_role("textbox", name="Mixing temperature (with unit: 21 °C; optional)").fill("21 °C")
+    form.get_by_role("textbox", name="Cure or setting schedule as done (optional)").fill(CURE)
+    form.get_by_role("textbox", name="By (name or initials)").fill(BY)
+    button = form.get_by_role("button", name="Record the amounts")
+    button.click()
+    notice = page.get_by_text(re.compile(r"Amounts of batch \d{4}-\d{3} recorded \(version 2, by browser test\)"))
+    notice.first.wait_for()
+    _settle(page)
+    _no_exception(page, "after recording the bench record")
+    # the success line sits right under the form's button
+    form_box = page.locator('[data-testid="stForm"]').filter(has_text="Record corrected amounts").bounding_box()
+    notice_box = notice.first.bounding_box()
+    assert form_box and notice_box and 0 <= notice_box["y"] - (form_box["y"] + form_box["height"]) < 120
+    return re.search(r"batch (\d{4}-\d{3})", notice.first.inner_text())[1]
+
+
+def _check_the_command_line_stores_the_same(url, code, tmp_path) -> None:
+    """`batch actual` of the same sheet into a twin batch stores what the page stored (`batch show`)."""
+    import datetime as _dt
+    import io
+    import json
+    from contextlib import redirect_stdout
+
+    from phantomlab.cli import main
+
+    database = f"sqlite:///{tmp_path / 'demo-data' / 'phantomlab-demo.sqlite'}"
+
+    def cli(*argv):
+        out = io.StringIO()
+        with redirect_stdout(out):
+            assert main([str(a) for a in argv] + ["--json"]) == 0
+        return json.loads(out.getvalue())
+
+    twin = cli("batch", "add", REPO_ROOT / "recipes" / "demo-nir-liquid.toml", "--db", database)["batch_id"]
+    amounts = tmp_path / "bench.csv"
+    amounts.write_text(BENCH_CSV, encoding="utf-8")
+    cli("batch", "actual", twin, amounts, "--mixed-on", f"{_dt.date.today().isoformat()}T14:30",
+        "--mixing-temperature-c", "21", "--cure", CURE, "--operator", BY, "--db", database)
+    by_page, by_cli = cli("batch", "show", code, "--db", database), cli("batch", "show", twin, "--db", database)
+    for key in ("cure_details", "mixed_on", "status", "alarms"):
+        assert by_page[key] == by_cli[key], key
+    assert by_page["history"][-1]["recorded_by"] == by_cli["history"][-1]["recorded_by"] == BY
+    assert by_page["cure_details"] == {"schedule": CURE, "mixing_temperature_c": 21.0, "mixing_time": "14:30"}
+    page_rows = {r["stock"]: r for r in by_page["actual_amounts"]}
+    for row in by_cli["actual_amounts"]:
+        mine = page_rows[row["stock"]]
+        for key in ("volume_ml", "mass_g", "volume_fraction", "dilution_factor"):
+            assert mine[key] == pytest.approx(row[key], rel=1e-12), (row["stock"], key)
+        assert [s["step"] for s in mine.get("predilution", [])] == [s["step"] for s in row.get("predilution", [])]
+    assert page_rows["lipid20"]["given"] == {"mass_g": 23.9}
+    for a, b in zip(by_page["actual_prediction"]["musp_per_mm"], by_cli["actual_prediction"]["musp_per_mm"]):
+        assert a == pytest.approx(b, rel=1e-12)
+
+
+def _batch_record(page, code, tmp_path) -> None:
+    """The batch record downloads from the batch's page and says PASS or FAIL as the page does."""
+    page.get_by_role("tab", name="Amounts dispensed").click()
+    with page.expect_download() as download_info:
+        page.get_by_role("button", name=f"Download the batch record of {code} (HTML)").click()
+    download = download_info.value
+    assert download.suggested_filename == f"batch-record-{code}.html"
+    record = tmp_path / download.suggested_filename
+    download.save_as(record)
+    html = record.read_text(encoding="utf-8")
+    verdict = re.search(r"(PASS|FAIL): ", html)
+    assert verdict, "the record gives no verdict"
+    assert page.get_by_text(re.compile(f"^Batch record: {verdict[1]}")).count() == 1
+    assert "ink_black-D1" in html and "14:30" in html and CURE in html
+
+
+#: Every dataframe's scroller: a table whose columns do not fit shows a horizontal scroll bar.
+_TABLE_WIDTHS = """() => [...document.querySelectorAll('[data-testid="stDataFrame"]')]
+  .map(frame => frame.querySelector('.dvn-scroller'))
+  .filter(scroller => scroller && scroller.clientWidth > 0)
+  .map(scroller => [scroller.scrollWidth, scroller.clientWidth])"""
+
+
+def _every_page_at(browser, url, width, shots) -> dict[str, list]:
+    """Screenshots of every page at ``width`` px; the widths of its tables."""
+    context = browser.new_context(viewport={"width": width, "height": 1000})
+    page = context.new_page()
+    page.set_default_timeout(STEP_TIMEOUT_MS)
+    found = {}
+    try:
+        page.goto(url)
+        page.get_by_role("heading", name="Design a phantom").first.wait_for()
+        for name in ("Design a phantom", "Stock shelf", "Batch log", "Fit and correct"):
+            page.get_by_text(name, exact=True).first.click()
+            page.get_by_role("heading", name=name).first.wait_for()
+            _settle(page)
+            _no_exception(page, f"on the page {name!r} at {width} px")
+            _shoot(page, shots / f"{width}-{name.replace(' ', '-')}.png", width=width)
+            found[name] = page.evaluate(_TABLE_WIDTHS)
+    finally:
+        context.close()
+    return found
 
 
 def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
@@ -174,6 +296,8 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
             with page.expect_download() as download_info:
                 page.get_by_role("button", name="Download the mixing sheet (HTML)").click()
             download = download_info.value
+            assert re.fullmatch(r"sheet-demo-nir-liquid-mua-0-01-mm-musp-1-mm-\d{4}-\d{2}-\d{2}\.html",
+                                download.suggested_filename), download.suggested_filename
             sheet = tmp_path / download.suggested_filename
             download.save_as(sheet)
             html = sheet.read_text(encoding="utf-8")
@@ -198,20 +322,10 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
                 _no_exception(page, f"on the page {name!r}")
                 _shoot(page, shots / f"0{index}-{name.replace(' ', '-')}.png")
 
-            # at the bench: type what was dispensed, as the sheet gives it (stock or pre-dilution)
-            fields = page.get_by_role("textbox", name=re.compile(r": from .*, sheet .* \(type the amount"))
-            assert fields.count() == 3, "one field per dosed stock of the demo recipe"
-            for index in range(fields.count()):
-                field = fields.nth(index)
-                label = field.get_attribute("aria-label") or ""
-                planned = re.search(r", sheet ([0-9.]+ (?:µL|mL|mg|g)) \(", label)
-                assert planned, label
-                field.fill(planned.group(1).replace("µ", "u"))
-                field.press("Tab")
-            page.get_by_role("button", name="Record the amounts").click()
-            page.get_by_text("recorded (version").first.wait_for()
-            _settle(page)
-            _no_exception(page, "after recording the amounts")
+            # at the bench: the whole sheet as written down, recorded on the page
+            code = _bench_record(page, tmp_path)
+            _shoot(page, shots / "05-bench-recorded.png")
+            _check_the_command_line_stores_the_same(served_page, code, tmp_path)
             page.get_by_role("tab", name="Measurements").click()
             with page.expect_download() as download_info:
                 page.get_by_role("button", name=re.compile("Demo only: download an invented")).click()
@@ -224,6 +338,7 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
             _settle(page)
             _no_exception(page, "after attaching a measurement")
             _shoot(page, shots / "06-batch-measured.png")
+            _batch_record(page, code, tmp_path)
 
             page.get_by_text("Fit and correct", exact=True).first.click()
             page.get_by_role("heading", name="Fit and correct").first.wait_for()
@@ -254,6 +369,14 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
             download_info.value.save_as(corrected)
             assert "calibrated" in corrected.read_text(encoding="utf-8")
             assert "potencies from calibration state" in corrected.read_text(encoding="utf-8")
+
+            # every page at a laptop's and a desktop's width: no table hides a column
+            for width in (1280, 1920):
+                tables = _every_page_at(browser, served_page, width, shots)
+                assert tables["Design a phantom"] and tables["Stock shelf"] and tables["Batch log"], tables
+                cut = {name: widths for name, widths in tables.items()
+                       if any(scroll > client + 1 for scroll, client in widths)}
+                assert not cut, f"at {width} px a table is wider than its place (scroll, client): {cut}"
         finally:
             browser.close()
     print(f"screenshots in {shots}")
