@@ -85,11 +85,24 @@ for i in range(COUNTS["button"]):
     st.button(f"button {{i}}", key=f"button{{i}}")
 for i in range(COUNTS["download_button"]):
     st.download_button(f"download {{i}}", data=b"x", file_name="x.txt", key=f"download{{i}}", on_click="ignore")
+for i in range(COUNTS["number_input"]):
+    st.number_input(f"number {{i}}", value=1.0, key=f"number{{i}}")
+for i in range(COUNTS["multiselect"]):
+    st.multiselect(f"several {{i}}", ["a", "b", "c"], default=["a"], key=f"multi{{i}}")
+for i in range(COUNTS["radio"]):
+    st.radio(f"one of {{i}}", ["a", "b"], key=f"radio{{i}}")
+for i in range(COUNTS["checkbox"]):
+    st.checkbox(f"tick {{i}}", key=f"tick{{i}}")
+for i in range(COUNTS["date_input"]):
+    st.date_input(f"day {{i}}", key=f"day{{i}}")
+for i in range(COUNTS["text_area"]):
+    st.text_area(f"notes {{i}}", key=f"area{{i}}")
 for i in range(COUNTS["markdown"]):
     st.markdown(f"some **text** {{i}}")
 '''
 
-KINDS = ("plotly_chart", "dataframe", "text_input", "selectbox", "button", "download_button", "markdown")
+KINDS = ("plotly_chart", "dataframe", "text_input", "selectbox", "button", "download_button", "number_input",
+         "multiselect", "radio", "checkbox", "date_input", "text_area", "markdown")
 
 
 def _clear_caches() -> None:

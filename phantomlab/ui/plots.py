@@ -45,6 +45,10 @@ class Series:
     symbol: str | None = None  # marker symbol (plotly name), e.g. "circle-open" for targets
 
 
+def _drop_none(mapping: dict) -> dict:
+    return {key: value for key, value in mapping.items() if value is not None}
+
+
 def line_figure(
     series: list[Series],
     *,
@@ -55,8 +59,12 @@ def line_figure(
     log_x: bool = False,
     height: int = 340,
 ) -> go.Figure:
-    """A figure of spectra (or any x–y series) with shaded ±1 SD bands where given."""
-    figure = go.Figure(layout={"template": "none"})  # see _layout
+    """A figure of spectra (or any x–y series) with shaded ±1 SD bands where given.
+
+    The traces and the layout are put together as plain dicts and handed to plotly once: a
+    figure grown trace by trace is checked again at every step (about ten times slower).
+    """
+    traces: list[dict] = []
     for index, item in enumerate(series):
         colour = item.colour or COLOURS[index % len(COLOURS)]
         x = np.asarray(item.x, dtype=float)
@@ -66,66 +74,51 @@ def line_figure(
             sd = None
         band = sd is not None and item.mode == "lines"
         if band:  # a line: its ±1 SD as a shaded band
-            figure.add_trace(
-                go.Scatter(
-                    x=np.concatenate([x, x[::-1]]),
-                    y=np.concatenate([y + sd, (y - sd)[::-1]]),
-                    mode="lines",
-                    fill="toself",
-                    fillcolor=_with_alpha(colour, 0.18),
-                    line={"width": 0},
-                    hoverinfo="skip",
-                    name="± 1 SD",
-                    legendgroup=item.name,
-                    showlegend=False,
-                )
-            )
+            traces.append({
+                "type": "scatter", "x": np.concatenate([x, x[::-1]]), "y": np.concatenate([y + sd, (y - sd)[::-1]]),
+                "mode": "lines", "fill": "toself", "fillcolor": _with_alpha(colour, 0.18), "line": {"width": 0},
+                "hoverinfo": "skip", "name": "± 1 SD", "legendgroup": item.name, "showlegend": False,
+            })
         hover = f"{item.name}<br>{x_label}: %{{x:.4g}}<br>{y_label}: %{{y:.4g}}"
         if sd is not None:
             hover += " ± %{customdata:.2g} (1 SD)"
-        figure.add_trace(
-            go.Scatter(
-                x=x,
-                y=y,
-                mode=item.mode,
-                name=item.name + (" (band: ± 1 SD)" if band else " (bars: ± 1 SD)" if sd is not None else ""),
-                legendgroup=item.name,
-                line={"color": colour, "dash": item.dash} if "lines" in item.mode else None,
-                marker=({"color": colour, "size": 9 if item.symbol else 8, "symbol": item.symbol or "circle",
-                         "line": {"width": 2, "color": colour}} if "markers" in item.mode else None),
-                error_y=({"type": "data", "array": sd, "visible": True, "color": colour, "thickness": 1.2}
-                         if sd is not None and not band else None),
-                customdata=sd,
-                hovertemplate=hover + "<extra></extra>",
-            )
-        )
-    _layout(figure, title=title, x_label=x_label, y_label=y_label, height=height)
+        traces.append(_drop_none({
+            "type": "scatter", "x": x, "y": y, "mode": item.mode,
+            "name": item.name + (" (band: ± 1 SD)" if band else " (bars: ± 1 SD)" if sd is not None else ""),
+            "legendgroup": item.name,
+            "line": _drop_none({"color": colour, "dash": item.dash}) if "lines" in item.mode else None,
+            "marker": ({"color": colour, "size": 9 if item.symbol else 8, "symbol": item.symbol or "circle",
+                        "line": {"width": 2, "color": colour}} if "markers" in item.mode else None),
+            "error_y": ({"type": "data", "array": sd, "visible": True, "color": colour, "thickness": 1.2}
+                        if sd is not None and not band else None),
+            "customdata": sd,
+            "hovertemplate": hover + "<extra></extra>",
+        }))
+    layout = _layout(traces, title=title, x_label=x_label, y_label=y_label, height=height)
     if log_y:
-        figure.update_yaxes(type="log", dtick=1, exponentformat="power")
+        layout["yaxis"].update({"type": "log", "dtick": 1, "exponentformat": "power"})
     if log_x:
-        figure.update_xaxes(type="log")
-    return figure
+        layout["xaxis"].update({"type": "log"})
+    return go.Figure(data=traces, layout=layout)
 
 
-def _layout(figure: go.Figure, *, title, x_label: str, y_label: str, height: int) -> None:
+def _layout(traces: list[dict], *, title, x_label: str, y_label: str, height: int) -> dict:
     """Title on top, legend under the plot (never over the title or the data)."""
-    entries = sum(1 for trace in figure.data if trace.showlegend is not False)
-    figure.update_layout(
-        title={"text": title, "x": 0, "xanchor": "left"} if title else None,
-        xaxis_title=x_label,
-        yaxis_title=y_label,
-        height=height + (70 if entries > 1 else 0),
-        showlegend=entries > 1,
-        margin={"l": 60, "r": 20, "t": 40 if title else 20, "b": 120 if entries > 1 else 50},
-        legend={"orientation": "h", "yanchor": "top", "y": -0.28, "x": 0, "xanchor": "left"},
-        hovermode="closest",
+    entries = sum(1 for trace in traces if trace.get("showlegend") is not False)
+    return _drop_none({
+        "title": {"text": title, "x": 0, "xanchor": "left"} if title else None,
+        "height": height + (70 if entries > 1 else 0),
+        "showlegend": entries > 1,
+        "margin": {"l": 60, "r": 20, "t": 40 if title else 20, "b": 120 if entries > 1 else 50},
+        "legend": {"orientation": "h", "yanchor": "top", "y": -0.28, "x": 0, "xanchor": "left"},
+        "hovermode": "closest",
         # no plotly template: the page draws with Streamlit's chart theme, and a named template
         # is copied and checked into every figure (about half the cost of building one)
-        template="none",
-        plot_bgcolor="white",
-        xaxis={"showgrid": True, "gridcolor": GRID_COLOUR, "zeroline": False},
-        yaxis={"showgrid": True, "gridcolor": GRID_COLOUR, "zeroline": False},
-    )
+        "template": "none",
+        "plot_bgcolor": "white",
+        "xaxis": {"title": {"text": x_label}, "showgrid": True, "gridcolor": GRID_COLOUR, "zeroline": False},
+        "yaxis": {"title": {"text": y_label}, "showgrid": True, "gridcolor": GRID_COLOUR, "zeroline": False},
+    })
 
 
 def _with_alpha(hex_colour: str, alpha: float) -> str:
@@ -172,35 +165,30 @@ def bar_figure(
 
     The tolerance lines are named in the legend, not written on the plot: labels on the plot
     overprint each other (two equal tolerances) and the bars."""
-    figure = go.Figure(layout={"template": "none"})  # see _layout
     xs = np.asarray(x, dtype=float)
     step = float(np.min(np.diff(np.unique(xs)))) if np.unique(xs).size > 1 else 1.0
     span = [float(xs.min()) - step / 2, float(xs.max()) + step / 2] if xs.size else [0.0, 1.0]
+    traces: list[dict] = []
     for index, (name, values) in enumerate(bars.items()):
-        colour = COLOURS[index % len(COLOURS)]
-        figure.add_trace(
-            go.Bar(
-                x=xs,
-                y=np.asarray(values, dtype=float),
-                name=name,
-                marker_color=colour,
-                hovertemplate=f"{name}<br>{x_label}: %{{x:.4g}}<br>{y_label}: %{{y:.3g}}<extra></extra>",
-            )
-        )
-    for index, (name, _values) in enumerate(bars.items()):
+        traces.append({
+            "type": "bar", "x": xs, "y": np.asarray(values, dtype=float), "name": name,
+            "marker": {"color": COLOURS[index % len(COLOURS)]},
+            "hovertemplate": f"{name}<br>{x_label}: %{{x:.4g}}<br>{y_label}: %{{y:.3g}}<extra></extra>",
+        })
+    for index, name in enumerate(bars):
         if bands and name in bands:
-            colour = COLOURS[index % len(COLOURS)]
             band = bands[name]
-            figure.add_trace(go.Scatter(
-                x=[span[0], span[1], None, span[0], span[1]], y=[band, band, None, -band, -band],
-                mode="lines", line={"color": colour, "dash": "dot", "width": 1.5},
-                name=f"{name} tolerance ±{band:g} %", hoverinfo="skip",
-            ))
-    _layout(figure, title=title, x_label=x_label, y_label=y_label, height=height)
-    figure.update_layout(barmode="group")
-    if np.asarray(x).size <= 20:  # a tick under every bar; a long spectrum keeps plotly's own ticks
-        figure.update_xaxes(tickvals=np.asarray(x, dtype=float), ticktext=[f"{v:g}" for v in np.asarray(x, float)])
-    return figure
+            traces.append({
+                "type": "scatter", "x": [span[0], span[1], None, span[0], span[1]],
+                "y": [band, band, None, -band, -band], "mode": "lines",
+                "line": {"color": COLOURS[index % len(COLOURS)], "dash": "dot", "width": 1.5},
+                "name": f"{name} tolerance ±{band:g} %", "hoverinfo": "skip",
+            })
+    layout = _layout(traces, title=title, x_label=x_label, y_label=y_label, height=height)
+    layout["barmode"] = "group"
+    if xs.size <= 20:  # a tick under every bar; a long spectrum keeps plotly's own ticks
+        layout["xaxis"].update({"tickvals": xs, "ticktext": [f"{v:g}" for v in xs]})
+    return go.Figure(data=traces, layout=layout)
 
 
 def target_series(name: str, x, y) -> Series:
