@@ -130,7 +130,8 @@ def _save_batch(workspace: Workspace, store, plan, origin: dict, *, definition: 
                 base_dir: Path, source: str, token: str) -> None:
     from phantomlab.ui.recording import record_planned_batch, saved_batch_sheets, write_page_recipe
 
-    with st.form("design.save_form", border=True):
+    saves = st.session_state.get("design.saves", 0)  # in the key: a second click on a form saved reaches none
+    with st.form(f"design.save_form.{saves}", border=True):
         st.markdown("**Save this plan as a new batch** (the batch log gives it an ID; the sheet "
                     "then carries that ID instead of DRAFT).")
         operator = st.text_input("Operator (your name or initials)", key="design.operator")
@@ -149,9 +150,11 @@ def _save_batch(workspace: Workspace, store, plan, origin: dict, *, definition: 
             notes=notes.strip() or None,
         )
         if outcome.ok:
+            st.session_state["design.saves"] = saves + 1
             sheets = call_layer("Reading the stored sheet", saved_batch_sheets, store, plan, outcome.value)
             st.session_state["design.saved_batch"] = {**(sheets.value or {"code": outcome.value}),
                                                       "token": token}
+            st.rerun()  # draw the next form (a new key) at once
     saved = st.session_state.get("design.saved_batch")
     if saved and saved.get("token") == token:  # only while the fields still describe that batch
         st.success(f"Saved as batch **{saved['code']}** (status: planned). Record what you dispense on "

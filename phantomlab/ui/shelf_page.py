@@ -27,6 +27,7 @@ import streamlit as st
 from phantomlab.errors import InputError
 from phantomlab.ui import services
 from phantomlab.ui.plain_text import code_span, plain
+from phantomlab.ui.bench_record import by_field, remember_by
 from phantomlab.ui.plots import Chart, Series, line_figure, show_chart, show_figure
 from phantomlab.ui.widgets import call_layer, number_list_field, quantity_field
 from phantomlab.ui.workspace import Workspace
@@ -267,6 +268,7 @@ def _cuvette_section(workspace: Workspace, store, shelf) -> None:
         albedo = c2.number_input("Single-scattering albedo [0–1) (inks scatter, dyes: 0)",
                                  min_value=0.0, max_value=0.99, value=0.0, step=0.05, key="shelf.new_albedo")
         hazards = c3.multiselect("Hazards", list(HAZARD_KEYS), key="shelf.new_hazards")
+        by = by_field("shelf.new_by", container=c1)
         pressed = st.form_submit_button("Add to the shelf", type="primary")
     if pressed:
         names = [name for name, _ in tables]
@@ -284,14 +286,15 @@ def _cuvette_section(workspace: Workspace, store, shelf) -> None:
             definition["expiry"] = expiry
         text = _series_csv(wavelength, fraction, absorbance, names)
         added = call_layer("Adding the stock", _add_stock, store, key.strip(), definition,
-                           {"cuvette_csv": text})
+                           {"cuvette_csv": text}, recorded_by=by or None)
         if added.ok:
+            remember_by(by)
             st.session_state["shelf.notice"] = (
                 f"Stock **{key.strip()}** added to the shelf (record version {added.value}).")
             st.rerun()
 
 
-def _add_stock(store, key: str, definition: dict, files: dict[str, str]) -> int:
+def _add_stock(store, key: str, definition: dict, files: dict[str, str], *, recorded_by: str | None = None) -> int:
     """Check a stock definition with the stock parser and record it as a page stock."""
     import re
 
@@ -308,7 +311,7 @@ def _add_stock(store, key: str, definition: dict, files: dict[str, str]) -> int:
         path.write_text(text, encoding="utf-8")
         table[field_name] = str(path)
     shelf = parse_shelf({"stocks": {key: table}}, base=folder)
-    return record_page_stock(store, shelf[key])
+    return record_page_stock(store, shelf[key], recorded_by=recorded_by)
 
 
 # ---- edit a stock -----------------------------------------------------------------------------------
@@ -336,17 +339,19 @@ def _edit_section(workspace: Workspace, store, shelf) -> None:
                                      value=float(stock.potency_sd), step=0.01, format="%.3f")
         hazards = c2.multiselect("Hazards", list(HAZARD_KEYS), default=list(stock.hazards))
         name = c3.text_input("Description", value=stock.name)
+        by = by_field(f"shelf.edit_by.{key}", container=c1)
         pressed = st.form_submit_button("Record the new version", type="primary")
     if pressed:
         edited = call_layer("Recording the new version", _edit_stock, workspace, store, key,
                             lot=lot.strip(), expiry=expiry, potency=potency, potency_sd=potency_sd,
-                            hazards=hazards, name=name.strip())
+                            hazards=hazards, name=name.strip(), recorded_by=by or None)
         if edited.ok:
+            remember_by(by)
             st.session_state["shelf.notice"] = f"Stock **{key}** recorded as version {edited.value}."
             st.rerun()
 
 
-def _edit_stock(workspace: Workspace, store, key: str, **changes) -> int:
+def _edit_stock(workspace: Workspace, store, key: str, *, recorded_by: str | None = None, **changes) -> int:
     from phantomlab.materials import parse_shelf  # layer 1
     from phantomlab.ui.recording import record_page_stock
 
@@ -361,7 +366,7 @@ def _edit_stock(workspace: Workspace, store, key: str, **changes) -> int:
     else:
         table["expiry"] = changes["expiry"]
     shelf = parse_shelf({"stocks": {key: table}}, base=workspace.shelf_path.parent)
-    return record_page_stock(store, shelf[key])
+    return record_page_stock(store, shelf[key], recorded_by=recorded_by)
 
 
 def _export_section(workspace: Workspace, store, origin: dict) -> None:

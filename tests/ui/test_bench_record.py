@@ -282,3 +282,26 @@ def test_a_line_that_cannot_be_read_records_nothing(page, go_to, two_batches, ca
     errors = [e.value for e in app.error]
     assert any(said in e for e in errors), errors
     assert _shown(db, code, capsys)["versions"] == 1  # nothing written
+
+
+def test_a_second_click_on_save_makes_no_second_batch(page, demo_file):
+    from phantomlab.store import list_batches, open_store
+
+    def batches():
+        store = open_store(f"sqlite:///{demo_file}")
+        try:
+            with store.reading() as session:
+                return len(list_batches(session))
+        finally:
+            store.close()
+
+    before = batches()
+    button = [b for b in page.get("button") if b.proto.label == "Save as a new batch"][0]
+    button.click()
+    page.run()
+    assert any("Saved as batch" in s.value for s in page.success)
+    assert batches() == before + 1
+    button.click()  # the same button again
+    page.run()
+    assert not page.exception
+    assert batches() == before + 1
