@@ -320,23 +320,25 @@ def mixing_summary(batch: dict) -> str:
 
 
 @st.cache_data(show_spinner=False, max_entries=32)
-def _batch_record(database_url: str, code: str, fingerprint: str) -> tuple[str, bool | None]:
+def _batch_record(database_url: str, code: str, fingerprint: str) -> tuple[str, str | None]:
     """The batch record as printed (HTML) and its verdict, per state of the log (``fingerprint``)."""
     from phantomlab.store.record import batch_record, render_batch_record_html  # layer 4
     from phantomlab.ui.services import _open_store
 
     with _open_store(database_url).reading() as session:
         record = batch_record(session, code)
-    return render_batch_record_html(record), record["pass"]
+    outcome = record.get("outcome") or {True: "PASS", False: "FAIL", None: None}[record["pass"]]
+    return render_batch_record_html(record), outcome
 
 
-VERDICTS = {True: "PASS: every targeted value within tolerance",
-            False: "FAIL: at least one targeted value outside tolerance",
+VERDICTS = {"PASS": "PASS: every targeted value within tolerance (at 2 SD)",
+            "FAIL": "FAIL: at least one targeted value outside tolerance (at 2 SD)",
+            "UNDECIDED": "UNDECIDED: none outside tolerance, but the SD is too wide to show every value inside",
             None: "not decided yet: no fitted measurement"}
 
 
 def batch_record_download(workspace: Workspace, batch: dict, *, fingerprint: str) -> None:
-    """The batch record (HTML: PASS/FAIL per wavelength, history, the review sign-off) to download.
+    """The batch record (HTML: PASS/FAIL/UNDECIDED per wavelength, history, the review sign-off) to download.
 
     ``fingerprint`` names the state of the log the record depends on (this batch's version,
     measurements and fits, and the other batches of its recipe); the record is built once per
@@ -353,5 +355,5 @@ def batch_record_download(workspace: Workspace, batch: dict, *, fingerprint: str
                          on_click="ignore",
                          help="The printable review record, as `phantomlab batch record` writes it: planned and "
                               "actual amounts, measured against target with PASS/FAIL, history, sign-off.")
-    shown = right.error if verdict is False else right.success if verdict else right.info
+    shown = {"PASS": right.success, "FAIL": right.error, "UNDECIDED": right.warning}.get(verdict, right.info)
     shown(f"Batch record: {VERDICTS[verdict]}")

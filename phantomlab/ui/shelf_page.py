@@ -101,7 +101,7 @@ def _optics_section(shelf) -> None:
         found = call_layer(f"Optics of {key}", _intrinsic, stock, matrix, token, tuple(wavelength), so2)
     if not found.ok:
         return
-    charts, g = _optics_charts(token, tuple(wavelength), found.value, key)  # built once per stock and grid
+    charts, g = _optics_charts(token, tuple(wavelength), so2, found.value, key)  # once per stock, grid, sO₂
     left, right = st.columns(2)
     with left:
         show_chart(charts[0])
@@ -114,8 +114,9 @@ def _optics_section(shelf) -> None:
 
 
 @st.cache_resource(show_spinner=False, max_entries=32)
-def _optics_charts(token: str, wavelength: tuple, _optics, key: str):
-    """The intrinsic-optics charts of one stock on one grid (``token``, ``wavelength``), built once."""
+def _optics_charts(token: str, wavelength: tuple, so2: float | None, _optics, key: str):
+    """The intrinsic-optics charts of one stock on one grid at one sO₂ (the arguments of
+    :func:`_intrinsic`), built once."""
     optics = _optics
     musp = np.asarray(optics.musp_per_mm, dtype=float)
     mua = np.asarray(optics.mua_per_mm, dtype=float)

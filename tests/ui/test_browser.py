@@ -217,7 +217,7 @@ def _batch_record(page, code, tmp_path) -> None:
     record = tmp_path / download.suggested_filename
     download.save_as(record)
     html = record.read_text(encoding="utf-8")
-    verdict = re.search(r"(PASS|FAIL): ", html)
+    verdict = re.search(r"(PASS|FAIL|UNDECIDED): ", html)
     assert verdict, "the record gives no verdict"
     assert page.get_by_text(re.compile(f"^Batch record: {verdict[1]}")).count() == 1
     assert "ink_black-D1" in html and "14:30" in html and CURE in html
