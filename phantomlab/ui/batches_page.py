@@ -427,6 +427,9 @@ def _one_batch(workspace: Workspace, store, batch: dict, *, fingerprint: str) ->
 def show(workspace: Workspace) -> None:
     st.header(TITLE)
     store = services.store_for(workspace)
+    notice = st.session_state.pop("batches.notice", None)  # sections that keep their notice for the top
+    if notice:
+        st.success(notice)
     loaded = call_layer("Reading the batch log", read_log, store)
     if not loaded.ok:
         return

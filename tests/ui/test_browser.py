@@ -118,14 +118,14 @@ def _settle(page) -> None:
     page.wait_for_timeout(300)
 
 
-def _shoot(page, path: Path, *, width: int = 1400) -> None:
+def _shoot(page, path: Path, *, width: int = 1400, settle_ms: int = 1500) -> None:
     """A screenshot of the whole page: Streamlit scrolls inside its main block, not the window."""
     height = page.evaluate(
         "() => Math.max(...[...document.querySelectorAll('[data-testid=\"stMain\"], "
         "[data-testid=\"stAppViewContainer\"], section.main')].map(e => e.scrollHeight), 1000)"
     )
     page.set_viewport_size({"width": width, "height": min(int(height) + 40, 12000)})
-    page.wait_for_timeout(1500)
+    page.wait_for_timeout(settle_ms)
     charts = page.locator('[data-testid="stPlotlyChart"]')
     for index in range(charts.count()):  # every chart drawn, not a placeholder
         charts.nth(index).locator(".main-svg").first.wait_for(state="attached", timeout=STEP_TIMEOUT_MS)
@@ -230,12 +230,15 @@ _TABLE_WIDTHS = """() => [...document.querySelectorAll('[data-testid="stDataFram
   .map(scroller => [scroller.scrollWidth, scroller.clientWidth])"""
 
 
-def _every_page_at(browser, url, width, shots) -> dict[str, list]:
-    """Screenshots of every page at ``width`` px; the widths of its tables."""
-    context = browser.new_context(viewport={"width": width, "height": 1000})
+def _every_page_at(browser, url, widths, shots) -> dict[int, dict[str, list]]:
+    """Screenshots of every page at each of ``widths`` px; the widths of its tables.
+
+    Each page is opened once and the window resized (Streamlit lays the page out again
+    without running it)."""
+    context = browser.new_context(viewport={"width": widths[0], "height": 1000})
     page = context.new_page()
     page.set_default_timeout(STEP_TIMEOUT_MS)
-    found = {}
+    found: dict[int, dict[str, list]] = {width: {} for width in widths}
     try:
         page.goto(url)
         page.get_by_role("heading", name="Design a phantom").first.wait_for()
@@ -243,9 +246,10 @@ def _every_page_at(browser, url, width, shots) -> dict[str, list]:
             page.get_by_text(name, exact=True).first.click()
             page.get_by_role("heading", name=name).first.wait_for()
             _settle(page)
-            _no_exception(page, f"on the page {name!r} at {width} px")
-            _shoot(page, shots / f"{width}-{name.replace(' ', '-')}.png", width=width)
-            found[name] = page.evaluate(_TABLE_WIDTHS)
+            _no_exception(page, f"on the page {name!r}")
+            for width in widths:
+                _shoot(page, shots / f"{width}-{name.replace(' ', '-')}.png", width=width, settle_ms=600)
+                found[width][name] = page.evaluate(_TABLE_WIDTHS)
     finally:
         context.close()
     return found
@@ -323,9 +327,11 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
                 _shoot(page, shots / f"0{index}-{name.replace(' ', '-')}.png")
 
             # at the bench: the whole sheet as written down, recorded on the page
+            started = time.monotonic()
             code = _bench_record(page, tmp_path)
             _shoot(page, shots / "05-bench-recorded.png")
             _check_the_command_line_stores_the_same(served_page, code, tmp_path)
+            bench_seconds = time.monotonic() - started
             page.get_by_role("tab", name="Measurements").click()
             with page.expect_download() as download_info:
                 page.get_by_role("button", name=re.compile("Demo only: download an invented")).click()
@@ -338,7 +344,9 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
             _settle(page)
             _no_exception(page, "after attaching a measurement")
             _shoot(page, shots / "06-batch-measured.png")
+            started = time.monotonic()
             _batch_record(page, code, tmp_path)
+            bench_seconds += time.monotonic() - started
 
             page.get_by_text("Fit and correct", exact=True).first.click()
             page.get_by_role("heading", name="Fit and correct").first.wait_for()
@@ -371,12 +379,14 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
             assert "potencies from calibration state" in corrected.read_text(encoding="utf-8")
 
             # every page at a laptop's and a desktop's width: no table hides a column
-            for width in (1280, 1920):
-                tables = _every_page_at(browser, served_page, width, shots)
+            started = time.monotonic()
+            for width, tables in _every_page_at(browser, served_page, (1280, 1920), shots).items():
                 assert tables["Design a phantom"] and tables["Stock shelf"] and tables["Batch log"], tables
                 cut = {name: widths for name, widths in tables.items()
                        if any(scroll > client + 1 for scroll, client in widths)}
                 assert not cut, f"at {width} px a table is wider than its place (scroll, client): {cut}"
+            print(f"bench record, its twin by the command line and the batch record: {bench_seconds:.0f} s; "
+                  f"every page at 1280 and 1920 px: {time.monotonic() - started:.0f} s")
         finally:
             browser.close()
     print(f"screenshots in {shots}")
