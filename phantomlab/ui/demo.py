@@ -139,9 +139,9 @@ def _seed_oximeter_batch(store, workspace: Workspace) -> str:
     plan = solve(recipe)
     code = record_planned_batch(store, plan, operator=DEMO_OPERATOR, notes="demo data, invented: oximeter test",
                                 planned_on=DEMO_OXIMETER_DAY - _dt.timedelta(days=1))
-    amounts = {d.stock: (d.volume_ml * (1.0 + DEMO_OXIMETER_DEVIATIONS.get(d.stock, 0.0)), "mL")
-               for d in plan.doses if d.used}
-    record_dispensed(store, code, amounts, recorded_by=DEMO_OPERATOR, mixed_on=DEMO_OXIMETER_DAY)
+    rows = [{"stock": d.stock, "volume_ml": d.volume_ml * (1.0 + DEMO_OXIMETER_DEVIATIONS.get(d.stock, 0.0))}
+            for d in plan.doses if d.used]  # undiluted stock, as `batch actual` rows
+    record_dispensed(store, code, rows, recorded_by=DEMO_OPERATOR, mixed_on=DEMO_OXIMETER_DAY)
     measurements = workspace.recipes_folder / "measurements"
     record_oxygenation_series(
         store, code, name="demo: yeast deoxygenation, 60 min", series_file_name=DEMO_OXIMETER_SERIES,
