@@ -35,6 +35,10 @@ STATUSES = ("planned", "mixed", "characterised", "retired")
 KINDS = ("srdr", "sfdi", "slab", "sphere", "optics", "td", "fd")
 #: The list of batches: narrow enough for a laptop screen (the notes are with the batch below).
 LOG_COLUMNS = ("batch", "recipe", "status", "mixed on", "operator", "measurements", "alarms")
+#: Widths [px] of the columns whose text a person chooses (a long recipe name or operator is
+#: cut with "…" in its cell, whole on hover, and never pushes a column out of sight).
+LOG_WIDTHS = {"recipe": st.column_config.TextColumn("recipe", width=280),
+              "operator": st.column_config.TextColumn("operator", width=110)}
 KIND_HELP = {
     "srdr": "wavelength_nm,rho_mm,reflectance_per_mm2[,sd] (or reflectance_relative)",
     "sfdi": "wavelength_nm,fx_per_mm,reflectance[,sd]",
@@ -452,7 +456,7 @@ def show(workspace: Workspace) -> None:
     verdict = st.session_state.get("batches.verdict")
     if verdict and verdict.get("code") not in {b["code"] for b in shown}:
         _show_verdict(st.session_state.pop("batches.verdict"))
-    st.dataframe(_log_table(shown), hide_index=True, width="stretch")
+    st.dataframe(_log_table(shown), hide_index=True, width="stretch", column_config=LOG_WIDTHS)
     if not shown:
         st.caption("No batch matches the filter.")
     else:
