@@ -133,7 +133,8 @@ def batch_recipe_file(recipe_row, override: str | Path | None = None):
         raise InputError(
             f"recipe file {source!r} of this batch is not there any more; give it with --recipe RECIPE.toml"
         )
-    recipe = load_recipe(source)
+    # a path the batch log recorded may name its stock file anywhere; one typed with --recipe not
+    recipe = load_recipe(source, recorded=override is None)
     notes = []
     if recipe.content_hash != recipe_row.content_hash:
         notes.append(

@@ -4,7 +4,9 @@ Top-level fields (docs/formats.md; those marked * came after the first design):
 
 ``name``            what the phantom is (required)
 ``version`` *       the recipe's own version string ("1" when not given)
-``stocks_file``     the shelf, relative to the recipe file (required)
+``stocks_file``     the shelf, relative to the recipe file (required); it must lie in the
+                    recipe's folder tree or a folder listed in ``PHANTOMLAB_DATA_DIRS``
+                    (a recipe whose path the batch log recorded may name it anywhere)
 ``matrix``          key of the matrix stock on the shelf (required)
 ``stocks``          keys of the stocks the solver may use (required, at least one)
 ``batch_volume_ml`` final volume of the batch [mL] — or —
@@ -114,13 +116,19 @@ class Recipe:
         return replace(self, shelf=shelf)
 
 
-def load_recipe(path) -> Recipe:
+def load_recipe(path, *, recorded: bool = False) -> Recipe:
     """Read and validate a recipe file.
 
     Parameters
     ----------
     path : str or Path
         The recipe TOML file.
+    recorded : bool
+        The path comes from the batch log (a batch's recipe file, recorded by phantomlab when
+        the batch was planned, e.g. one the page wrote naming the lab's stock file): its
+        ``stocks_file`` may lie outside the recipe's folder.  A recipe a person hands over
+        (``recorded=False``) may name a stock file only inside its own folder tree or a
+        folder listed in ``PHANTOMLAB_DATA_DIRS`` (:func:`phantomlab.inputs.contained_path`).
 
     Returns
     -------
@@ -135,7 +143,7 @@ def load_recipe(path) -> Recipe:
     path = Path(path)
     raw = read_bytes_file(path, what="recipe file")
     definition = parse_toml(decode_text(raw, what="recipe file", name=path.name), what=f"recipe {path.name}")
-    return parse_recipe(definition, base_dir=path.parent, path=path)
+    return parse_recipe(definition, base_dir=path.parent, path=path, contain_stocks_file=not recorded)
 
 
 def _number(definition: dict, key: str) -> float | None:
@@ -147,10 +155,14 @@ def _number(definition: dict, key: str) -> float | None:
     return float(value)
 
 
-def parse_recipe(definition: dict, *, base_dir: Path, path: Path | None = None, shelf=None) -> Recipe:
+def parse_recipe(definition: dict, *, base_dir: Path, path: Path | None = None, shelf=None,
+                 contain_stocks_file: bool = True) -> Recipe:
     """Validate a parsed recipe table (see :func:`load_recipe`).
 
-    ``shelf`` may be given to skip reading ``stocks_file`` (tests, the page).
+    ``shelf`` may be given to skip reading ``stocks_file`` (tests, the page).  With
+    ``contain_stocks_file`` (the default) ``stocks_file`` must resolve inside ``base_dir`` or a
+    folder of ``PHANTOMLAB_DATA_DIRS``; the page passes False for its own recipes, which name
+    the lab's stock file wherever the lab keeps it.
     """
     unknown = sorted(set(definition) - _TOP_LEVEL)
     if unknown:
@@ -178,7 +190,12 @@ def parse_recipe(definition: dict, *, base_dir: Path, path: Path | None = None, 
     if shelf is None:
         from phantomlab.materials import load_shelf  # layer 1
 
-        shelf_path = base_dir / str(definition["stocks_file"])
+        if not isinstance(definition["stocks_file"], str):
+            raise InputError("recipe: stocks_file must be the stock file's path as text")
+        if contain_stocks_file:
+            shelf_path = contained_path(definition["stocks_file"], base_dir=base_dir, what="recipe: stocks_file")
+        else:
+            shelf_path = base_dir / definition["stocks_file"]
         if not shelf_path.is_file():
             raise InputError(f"recipe: stocks_file {str(shelf_path)!r} not found")
         shelf = load_shelf(shelf_path)

@@ -287,6 +287,8 @@ RECIPE_MUTATIONS = {
     "stocks file a system file": ('stocks_file = "demo-stocks.toml"', 'stocks_file = "/etc/passwd"'),
     "stocks file a device": ('stocks_file = "demo-stocks.toml"', 'stocks_file = "/dev/zero"'),
     "stocks file garbage": ('stocks_file = "demo-stocks.toml"', 'stocks_file = "garbage.txt"'),
+    "stocks file above the folder": ('stocks_file = "demo-stocks.toml"', 'stocks_file = "../outside-stocks.toml"'),
+    "stocks file not text": ('stocks_file = "demo-stocks.toml"', 'stocks_file = 12'),
     "spectrum outside the folder": (_TARGET_LINES, 'spectrum_csv = "/etc/passwd"'),
     "spectrum above the folder": (_TARGET_LINES, 'spectrum_csv = "../outside.csv"'),
     "spectrum a proc file": (_TARGET_LINES, 'spectrum_csv = "/proc/self/environ"'),
@@ -313,7 +315,8 @@ def recipe_cases() -> list[Case]:
     support = {"recipes/garbage.txt": GARBAGE,
                "recipes/secret-column.csv": f"wavelength_nm,mua_per_mm,{SECRET}\n660,0.01,1\n700,0.01,1\n",
                "recipes/secret-cell.csv": f"wavelength_nm,mua_per_mm\n660,{SECRET}\n700,0.01\n",
-               "outside.csv": f"# {SECRET}\nwavelength_nm,mua_per_mm\n660,0.01\n700,0.01\n"}
+               "outside.csv": f"# {SECRET}\nwavelength_nm,mua_per_mm\n660,0.01\n700,0.01\n",
+               "outside-stocks.toml": f"# {SECRET}\n[water]\nkind = \"matrix\"\n"}
     for name, (old, new) in RECIPE_MUTATIONS.items():
         files = dict(support, **{"recipes/case.toml": _recipe_variant(old, new)})
         cases.append(Case("recipe", f"plan: {name}", ("plan", f"{WORK}/recipes/case.toml"), files=files,

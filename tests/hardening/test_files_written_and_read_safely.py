@@ -189,3 +189,22 @@ def test_a_killed_batch_add_never_leaves_a_sheet_of_an_unrecorded_batch(tmp_path
             text = sheet.read_text(encoding="utf-8")
             assert text.rstrip().endswith("</html>")  # whole, never half-written
             assert any(code in text for code in recorded)
+
+
+def test_a_recipe_names_its_stock_file_inside_its_folder(shelf, tmp_path, monkeypatch):
+    """A recipe handed over may not reach a stock file outside its folder tree (issue 16, item 3);
+    one the batch log recorded (the page writes them naming the lab's stock file) may."""
+    from phantomlab.recipe import load_recipe
+
+    elsewhere = tmp_path / "recipes-elsewhere"
+    elsewhere.mkdir()
+    text = (shelf / "demo-nir-liquid.toml").read_text(encoding="utf-8")
+    assert 'stocks_file = "demo-stocks.toml"' in text
+    (elsewhere / "r.toml").write_text(text.replace('stocks_file = "demo-stocks.toml"',
+                                                   f'stocks_file = "{shelf / "demo-stocks.toml"}"'), encoding="utf-8")
+    status, out, err = _run("plan", elsewhere / "r.toml")
+    assert status == 2 and "stocks_file" in err and "lies outside the folder" in err and not out
+    assert load_recipe(elsewhere / "r.toml", recorded=True).name
+    monkeypatch.setenv("PHANTOMLAB_DATA_DIRS", str(shelf))
+    status, _, err = _run("plan", elsewhere / "r.toml")
+    assert status == 0, err

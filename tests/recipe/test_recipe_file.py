@@ -16,6 +16,13 @@ RECIPES = Path(__file__).resolve().parents[2] / "recipes"
 SHELF = RECIPES / "demo-stocks.toml"
 
 
+@pytest.fixture(autouse=True)
+def _repo_shelf_allowed(monkeypatch):
+    """The recipes written here name the repo's demo shelf from a temporary folder, which a
+    recipe may do only from a folder the lab allows (tests/hardening checks the refusal)."""
+    monkeypatch.setenv("PHANTOMLAB_DATA_DIRS", str(RECIPES))
+
+
 def _write(tmp_path, body: str) -> Path:
     path = tmp_path / "r.toml"
     head = f'name = "test"\nstocks_file = "{SHELF}"\nmatrix = "water"\nbatch_volume_ml = 100\n'

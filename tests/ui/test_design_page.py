@@ -206,7 +206,8 @@ def test_an_edited_recipe_is_recorded_as_an_edited_version_in_a_file_of_its_own(
     content_hash, version, source = _recipe_row_of(demo_file, f"{_dt.date.today().year}-004")
     assert content_hash != load_recipe(DEMO_RECIPE).content_hash
     assert version.endswith("edited on the page")
-    written = load_recipe(source)  # the command line can read it
+    # the command line reads it as a batch's recorded recipe (batch actual, recalibrate, correct)
+    written = load_recipe(source, recorded=True)
     assert Path(source).parent == demo_file.parent / "recipes"
     assert written.content_hash == content_hash and written.batch_volume_ml == 250.0
 
