@@ -551,7 +551,7 @@ def attach_measurement(
     fit_json = None
     if fit:
         g_fallback = None
-        if kind in ("srdr", "sfdi") and baseline is None:
+        if kind in ("srdr", "sfdi", "td", "fd") and baseline is None:
             g_fallback = batch_anisotropy(store, code, wavelength_nm=info.wavelength_nm)
         result = fit_measurement_file(source, kind=kind, model=model, baseline=baseline, **read_extra,
                                       baseline_dir=baseline_dir, rebuild=rebuild, progress=progress,

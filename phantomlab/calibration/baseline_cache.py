@@ -34,10 +34,12 @@ from pathlib import Path
 import numpy as np
 
 from phantomlab.errors import InputError
+from phantomlab.transport.montecarlo import build_baseline
 
 __all__ = [
     "BASELINE_DIR_ENV", "CACHE_PHOTONS", "DEFAULT_G", "CachedBaseline", "CachedBaselineError",
-    "baseline_folder", "cache_file_name", "find_cached_baseline", "obtain_baseline", "build_cached_baseline", "list_cached",
+    "baseline_folder", "cache_file_name", "find_cached_baseline", "obtain_baseline", "obtain_photon_baseline",
+    "time_cache_file_name", "time_cache_settings", "TIME_CACHE_PHOTONS", "build_cached_baseline", "list_cached",
     "clear_cached", "cache_settings", "table_path",
 ]
 
@@ -55,6 +57,16 @@ CACHE_MUS_REF_PER_MM = 10.0
 CACHE_MAX_MUSP_OVER_MUA = 1500.0
 #: Master seed of every cached baseline.
 CACHE_SEED = 20_251
+#: Photons of the cached td/fd baseline (``NAME-time.npz``): the time-resolved lookup bins
+#: every photon by distance *and* time, so it needs more than the srdr table; 3 million keep
+#: μa within 3 % and μs′ within 2 % at μs′/μa 30–1000 on independent Monte Carlo data
+#: (tests/calibration/test_fit_td_default.py), a build of a few minutes on two cores.
+TIME_CACHE_PHOTONS = 3_000_000
+#: Highest μs′/μa the td/fd baseline answers (its reference μa is μs_ref (1 − g)/3000): the
+#: late photons of a weakly absorbing phantom are what a td fit window reaches.
+TIME_CACHE_MAX_MUSP_OVER_MUA = 3000.0
+#: Master seed of the td/fd baselines.
+TIME_CACHE_SEED = 20_252
 #: g assumed by a standalone fit without ``--g`` (common practice, no source: lipid
 #: emulsions and polymer or oxide microspheres of 0.5–1 µm lie near 0.7–0.9 in the red and
 #: near infrared).
@@ -65,7 +77,7 @@ G_RANGE = (0.0, 0.95)
 #: Range of n and n_outside for a cached baseline.
 INDEX_RANGE = (1.0, 2.0)
 
-_NAME = re.compile(r"^baseline-g(\d\.\d\d)-n(\d\.\d\d\d)-out(\d\.\d\d\d)\.npz$")
+_NAME = re.compile(r"^baseline-g(\d\.\d\d)-n(\d\.\d\d\d)-out(\d\.\d\d\d)(?:-time)?\.npz$")
 _TOLERANCE = 5e-4
 
 
@@ -326,6 +338,55 @@ def obtain_baseline(*, g, n, n_outside=1.0, folder=None, rebuild=False, build=Tr
                          f"{settings['n_outside']:g} in {path.parent}")
     _writable_folder(path.parent)  # before the half minute of work, not after
     return build_cached_baseline(g=g, n=n, n_outside=n_outside, folder=folder, progress=progress)
+
+
+def time_cache_settings(*, g, n, n_outside=1.0) -> dict:
+    """The rounded (g, n, n_outside) and build inputs of the cached baseline of the td and fd lookups."""
+    settings = cache_settings(g=g, n=n, n_outside=n_outside)
+    settings.update(mua_per_mm=CACHE_MUS_REF_PER_MM * (1.0 - settings["g"]) / TIME_CACHE_MAX_MUSP_OVER_MUA,
+                    photons=TIME_CACHE_PHOTONS, seed=TIME_CACHE_SEED)
+    return settings
+
+
+def time_cache_file_name(*, g, n, n_outside=1.0) -> str:
+    """``baseline-g0.80-n1.400-out1.000-time.npz``: the td/fd baseline for the rounded (g, n, n_outside)."""
+    return cache_file_name(g=g, n=n, n_outside=n_outside)[: -len(".npz")] + "-time.npz"
+
+
+def obtain_photon_baseline(*, g, n, n_outside=1.0, folder=None, rebuild=False, progress=None) -> CachedBaseline:
+    """The cached td/fd baseline for (g, n, n_outside) with its photons: read, or built once when missing.
+
+    The time- and frequency-domain lookups (:mod:`phantomlab.calibration.mc_lookup_time`) use
+    every stored photon's exit radius and path length and need more photons than the srdr
+    table (:data:`TIME_CACHE_PHOTONS`; measured on independent Monte Carlo data: with the
+    srdr cache's million photons the td fit's own lookup noise moved μa by up to 5 % at
+    μs′/μa = 1000).  Kept in the same folder as ``NAME-time.npz`` (:func:`time_cache_file_name`).
+
+    Returns
+    -------
+    CachedBaseline
+        ``baseline`` is the :class:`~phantomlab.transport.montecarlo.Baseline` itself.
+
+    Raises
+    ------
+    CachedBaselineError, InputError
+        As :func:`obtain_baseline`.
+    """
+    settings = time_cache_settings(g=g, n=n, n_outside=n_outside)
+    path = baseline_folder(folder) / time_cache_file_name(g=g, n=n, n_outside=n_outside)
+    if path.is_file() and not rebuild:
+        return CachedBaseline(baseline=_read_photons(path, settings), path=path, built=False)
+    _writable_folder(path.parent)  # before the minutes of work, not after
+    start = time.perf_counter()
+    baseline = build_baseline(mua_per_mm=settings["mua_per_mm"], mus_per_mm=settings["mus_per_mm"],
+                              g=settings["g"], n=settings["n"], n_outside=settings["n_outside"],
+                              photons=settings["photons"], seed=settings["seed"], progress=progress)
+    try:
+        baseline.save(path)  # a temporary file renamed into place: never half written
+    except OSError as exc:
+        raise InputError(f"baseline cache file {path} could not be written ({exc.strerror or exc}); choose "
+                         f"another folder with --baseline-dir FOLDER or {BASELINE_DIR_ENV}") from None
+    return CachedBaseline(baseline=baseline, path=path, built=True, seconds=time.perf_counter() - start)
 
 
 def list_cached(folder=None) -> list[dict]:

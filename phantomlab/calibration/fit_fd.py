@@ -271,6 +271,8 @@ def fit_fd(measurement: FrequencyDomainMeasurement, *, model: str = "kienle1997"
                                                      sd_lag, baseline, n)
     values, cov = log_to_linear(outcome.x, covariance)
     mua, musp = values[:, 0], values[:, 1]
+    if model == "mc":
+        _check_lookup_reach(baseline, mua, musp, rho, measurement.wavelength_nm)
     sds = np.sqrt(np.diagonal(cov, axis1=1, axis2=2))
     every = np.arange(W)
     model_amp, model_lag, shift, offset = solved(outcome.x, every)
@@ -331,13 +333,7 @@ def _lookup_covariance(forward, residual_fn, x, mask, rho, freq, sd_log, sd_lag,
     corr_rho = np.exp(-((log_rho[:, None] - log_rho[None, :]) ** 2) / (4 * _BANDWIDTH_LOG_U**2))
     for w in range(W):
         mua, mus = math.exp(x[w, 0]), math.exp(x[w, 1]) / (1.0 - lookup.g)
-        times = np.geomspace(10.0, lookup.tau_max / (v * mus), 200)
-        rel = np.empty(R)
-        for r in range(R):
-            point = lookup.point(mua_per_mm=[mua], mus_per_mm=[mus], rho_mm=np.full(times.size, rho[r]), time_ps=times)[0]
-            weight = point * np.gradient(times)
-            sd = lookup.relative_sd(mus_per_mm=[mus], rho_mm=np.full(times.size, rho[r]), time_ps=times)[0]
-            rel[r] = float(np.sum(weight * sd) / max(np.sum(weight), 1e-300))
+        rel = lookup.curve_relative_sd(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho)
         error_amp = (rel[:, None] / sd_log[w]).ravel()  # (R·F,) in the residuals' units
         error_lag = (rel[:, None] / sd_lag[w]).ravel()
         block = np.kron(corr_rho, np.ones((F, F)))
@@ -352,6 +348,28 @@ def _lookup_covariance(forward, residual_fn, x, mask, rho, freq, sd_log, sd_lag,
             gain = np.linalg.pinv(j.T @ j) @ j.T
         out[w] = gain @ (ee[:, None] * corr[np.ix_(m, m)] * ee[None, :]) @ gain.T
     return out
+
+
+#: Largest response-weighted relative SD of the lookup over a curve for the fd lookup to
+#: serve that distance (the transform integrates the whole curve; at 5 % the lookup alone
+#: would move ln amplitude by 0.05).  Chosen, common practice, no source.
+FD_SERVED_MAX_RELATIVE_SD = 0.05
+
+
+def _check_lookup_reach(baseline, mua, musp, rho, wavelength_nm) -> None:
+    """Refuse (LookupReachError) a fit whose distances the lookup's photons do not serve at the fitted optics."""
+    from phantomlab.calibration.mc_lookup_time import LookupReachError, time_resolved_lookup
+
+    lookup = time_resolved_lookup(baseline)
+    for w in range(mua.size):
+        mus = float(musp[w]) / (1.0 - lookup.g)
+        rel = lookup.curve_relative_sd(mua_per_mm=float(mua[w]), mus_per_mm=mus, rho_mm=rho)
+        far = (rho * mus > lookup.u_max) | ~(rel <= FD_SERVED_MAX_RELATIVE_SD)
+        if np.any(far):
+            r = int(np.flatnonzero(far)[0])
+            raise LookupReachError(
+                f"at {float(wavelength_nm[w]):g} nm and {float(rho[r]):g} mm its photons give the curve a "
+                f"relative error of {float(rel[r]):.2g} (at most {FD_SERVED_MAX_RELATIVE_SD:g} served)")
 
 
 def _grid_start(residual_fn, W: int) -> np.ndarray:

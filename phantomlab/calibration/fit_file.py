@@ -20,7 +20,7 @@ from phantomlab.calibration.fitting import FitResult
 from phantomlab.calibration.measurements import KINDS, Measurement, combine_replicates, read_measurement
 from phantomlab.errors import InputError, PhantomlabWarning
 
-__all__ = ["fit_measurement_file", "fit_measurement", "DEFAULT_MODELS", "FIT_MODELS"]
+__all__ = ["fit_measurement_file", "fit_measurement", "DEFAULT_MODELS", "FIT_MODELS", "FALLBACK_MODELS"]
 
 #: Forward models accepted by ``model=`` per kind, the first being the default.  srdr and
 #: sfdi default to the Monte Carlo lookup (``mc``): valid at every distance and albedo, where
@@ -32,11 +32,15 @@ FIT_MODELS: dict[str, tuple[str, ...]] = {
     "slab": ("adding-doubling",),
     "sphere": ("adding-doubling",),
     "optics": ("direct",),
-    # time domain: diffusion until the cached default baseline makes the Monte Carlo lookup practical
-    "td": ("kienle1997", "contini1997", "patterson1989", "mc"),
-    "fd": ("kienle1997", "contini1997", "mc", "fantini1994"),
+    # td and fd: the lookup where it applies (reflectance from a thick phantom, the data within
+    # its photons' reach); elsewhere the default fit says so and uses FALLBACK_MODELS
+    "td": ("mc", "kienle1997", "contini1997", "patterson1989"),
+    "fd": ("mc", "kienle1997", "contini1997", "fantini1994"),
 }
 DEFAULT_MODELS = {kind: models[0] for kind, models in FIT_MODELS.items()}
+#: The model the default td/fd fit uses where the Monte Carlo lookup does not apply (named in
+#: the fit's ``model_note``).
+FALLBACK_MODELS = {"td": "kienle1997", "fd": "kienle1997"}
 
 #: Options of the fit itself (not metadata): the model, an explicit baseline, a spectral
 #: constraint, and for the default Monte Carlo lookup the cache folder, ``rebuild``, a build
@@ -46,7 +50,7 @@ _FIT_OPTIONS = ("model", "baseline", "constraint", "baseline_dir", "rebuild", "p
 _METADATA_OPTIONS = ("n", "n_outside", "thickness_mm", "g", "n_slide", "slide_thickness_mm", "slides",
                      "specular_included", "unscattered_included", "port_diameter_mm", "beam_diameter_mm",
                      "sample_diameter_mm", "lost_light", "lost_light_photons", "lost_light_wavelengths",
-                     "reference", "sidecar", "irf", "geometry")
+                     "reference", "sidecar", "irf", "geometry", "detector", "fibre_core_mm")
 
 
 def _load_baseline(baseline):
@@ -109,7 +113,7 @@ def fit_measurement(
     if kind in ("td", "fd") and constraint is not None:
         raise InputError(f"{kind} fits take no spectral constraint (--musp-power-law, --mua-from-stocks); "
                          "each wavelength is fitted on its own")
-    if model == "mc" and baseline is None and kind in ("srdr", "sfdi"):
+    if model == "mc" and baseline is None and kind in ("srdr", "sfdi", "td", "fd"):
         from phantomlab.calibration.fit_inputs import resolve_model_inputs
 
         if n is not None or n_outside is not None:
@@ -217,20 +221,68 @@ def fit_measurement_file(path_or_text, *, kind: str, **metadata: Any) -> FitResu
     sources = list(path_or_text) if isinstance(path_or_text, (list, tuple)) else [path_or_text]
     measurements = [read_measurement(item, kind=kind, **metadata) for item in sources]
     measurement = combine_replicates(measurements)
-    model = DEFAULT_MODELS[kind] if fit_options["model"] is None else fit_options["model"]
+    requested = fit_options["model"]
+    model = DEFAULT_MODELS[kind] if requested is None else requested
     if model not in FIT_MODELS[kind]:
         raise InputError(f"unknown {kind} fit model {model!r}; accepted: {', '.join(FIT_MODELS[kind])}")
+    note = None
+    if requested is None and kind in FALLBACK_MODELS:
+        reason = lookup_not_applicable(measurement)
+        if reason is not None:
+            model, note = FALLBACK_MODELS[kind], _fallback_note(kind, reason)
     inputs = _model_inputs(measurement, sources[0], model=model, metadata=metadata, fit_options=fit_options)
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", PhantomlabWarning)
-        result = fit_measurement(measurement, model=model, baseline=inputs.baseline if inputs.baseline is not None
-                                 else fit_options["baseline"],
-                                 constraint=fit_options["constraint"])
-    extra = [" ".join(str(w.message).split()) for w in caught if issubclass(w.category, PhantomlabWarning)]
+
+    def run(model, inputs):
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", PhantomlabWarning)
+            result = fit_measurement(measurement, model=model, baseline=inputs.baseline if inputs.baseline is not None
+                                     else fit_options["baseline"], constraint=fit_options["constraint"])
+        return result, [" ".join(str(w.message).split()) for w in caught if issubclass(w.category, PhantomlabWarning)]
+
+    from phantomlab.calibration.mc_lookup_time import LookupReachError
+
+    try:
+        result, extra = run(model, inputs)
+    except LookupReachError as exc:
+        if requested is not None or kind not in FALLBACK_MODELS:
+            raise
+        model, note = FALLBACK_MODELS[kind], _fallback_note(kind, exc.reason)
+        inputs = _model_inputs(measurement, sources[0], model=model, metadata=metadata, fit_options=fit_options)
+        result, extra = run(model, inputs)
+    if requested is None and kind in FALLBACK_MODELS and note is None:
+        note = (f"{kind} model: the Monte Carlo lookup (the default; reflectance from a thick phantom, every "
+                "distance and the whole fit window within its baseline's reach)")
     result = _with_inputs(result, inputs, measurement).with_warnings(extra)
+    if note is not None:
+        result = replace(result, extras={**dict(result.extras), "model_note": note})
     for message in result.warnings:
         warnings.warn(message, PhantomlabWarning, stacklevel=2)
     return result
+
+
+def lookup_not_applicable(measurement: Measurement) -> str | None:
+    """Why the Monte Carlo lookup cannot fit this td/fd measurement at all, or None.
+
+    The cached baselines are runs in a semi-infinite medium (half-space): they give
+    reflectance from a phantom many transport lengths thick, not transmittance through a slab
+    nor reflectance from a thin one.  (Whether the data lie within the lookup's reach is
+    known only at the fitted optics: :class:`~phantomlab.calibration.mc_lookup_time.LookupReachError`.)
+    """
+    geometry = getattr(measurement, "geometry", "reflectance")
+    thickness = getattr(measurement, "thickness_mm", None)
+    if geometry == "transmittance":
+        return (f"the Monte Carlo baselines are half-space runs and these data are transmittance through a "
+                f"{thickness:g} mm slab" if thickness is not None else
+                "the Monte Carlo baselines are half-space runs and these data are transmittance")
+    if thickness is not None:
+        return (f"the Monte Carlo baselines are half-space runs and this phantom is a {thickness:g} mm slab "
+                "(the diffusion model takes its thickness)")
+    return None
+
+
+def _fallback_note(kind: str, reason: str) -> str:
+    return (f"{kind} model: diffusion {FALLBACK_MODELS[kind]} instead of the default Monte Carlo lookup, "
+            f"because {reason}")
 
 
 def _sidecar_table(source, kind: str, metadata: dict) -> dict:

@@ -121,7 +121,7 @@ def resolve_model_inputs(
     n_outside = float(meta.n_outside)
     n_outside_origin = _origin("n_outside", given, sidecar) or "default"
     inputs = ModelInputs(n=n, n_origin=n_origin, n_outside=n_outside, n_outside_origin=n_outside_origin)
-    if model != "mc" or measurement.kind not in ("srdr", "sfdi"):
+    if model != "mc" or measurement.kind not in ("srdr", "sfdi", "td", "fd"):
         return inputs
     if n is None:
         raise InputError(f"the {measurement.kind} fit needs the phantom's refractive index: give --n N or "
@@ -151,10 +151,12 @@ def resolve_model_inputs(
         from phantomlab.calibration.baseline_cache import DEFAULT_G
 
         g, g_origin = DEFAULT_G, "default"
-    from phantomlab.calibration.baseline_cache import cache_settings, obtain_baseline
+    from phantomlab.calibration.baseline_cache import cache_settings, obtain_baseline, obtain_photon_baseline
 
     rounded = cache_settings(g=g, n=n, n_outside=n_outside)
-    cached = obtain_baseline(g=g, n=n, n_outside=n_outside, folder=baseline_dir, rebuild=rebuild, progress=progress)
+    # td and fd read the photons' path lengths, which only the baseline file itself keeps
+    obtain = obtain_photon_baseline if measurement.kind in ("td", "fd") else obtain_baseline
+    cached = obtain(g=g, n=n, n_outside=n_outside, folder=baseline_dir, rebuild=rebuild, progress=progress)
     return ModelInputs(n=n, n_origin=n_origin, n_outside=n_outside, n_outside_origin=n_outside_origin,
                        g=rounded["g"], g_origin=g_origin, baseline=cached.baseline, baseline_path=str(cached.path),
                        baseline_origin="cache (built now)" if cached.built else "cache")

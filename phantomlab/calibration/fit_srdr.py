@@ -116,7 +116,8 @@ def baseline_absorption_floor(baseline) -> float:
     return float(ratio) * (1.0 + 1e-7)
 
 
-def srdr_forward(*, model: str, rho_mm, n: float, n_outside: float = 1.0, baseline=None):
+def srdr_forward(*, model: str, rho_mm, n: float, n_outside: float = 1.0, baseline=None, detector: str = "point",
+                 fibre_core_mm: float | None = None):
     """The forward model R(ρ) of the fit as ``forward(mua (N,), musp (N,)) -> (N, R)`` [1/mm²].
 
     R(ρ) per unit incident power, specular reflection excluded (the project's convention for
@@ -129,6 +130,12 @@ def srdr_forward(*, model: str, rho_mm, n: float, n_outside: float = 1.0, baseli
     n, n_outside : float
     baseline : Baseline, optional
         Needed for ``mc``.
+    detector : {'point', 'ring', 'fibre'}
+        How each distance is sampled (the sidecar's ``detector``, see
+        :data:`phantomlab.calibration.measurements.DETECTORS`): the lookup's point value at ρ
+        (default), its average over the annulus between the midpoints of neighbouring
+        distances (``rho_bin_edges_mm``), or its average over a fibre face of diameter
+        ``fibre_core_mm`` [mm] centred at ρ.  The diffusion models are always point values.
     """
     rho = np.asarray(rho_mm, float)
     if model == "mc":
@@ -140,23 +147,52 @@ def srdr_forward(*, model: str, rho_mm, n: float, n_outside: float = 1.0, baseli
         lookup = smooth_lookup(baseline)
         g = lookup.g
         floor = baseline_absorption_floor(baseline)
-        edges = rho_bin_edges_mm(rho)
+        if detector == "ring":
+            edges = rho_bin_edges_mm(rho)
+            outer = edges[1:]
+
+            def values(mua, mus):
+                return lookup.annuli(mua_per_mm=mua, mus_per_mm=mus, edges_mm=edges)
+
+            def relative(mua, mus):
+                return lookup.annuli_relative_sd(mua_per_mm=mua, mus_per_mm=mus, edges_mm=edges)
+        elif detector == "fibre":
+            if fibre_core_mm is None or not fibre_core_mm > 0:
+                raise InputError("detector 'fibre' needs fibre_core_mm (the core diameter in mm), > 0")
+            outer = rho + 0.5 * float(fibre_core_mm)
+
+            def values(mua, mus):
+                return lookup.fibre(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho, core_mm=float(fibre_core_mm))
+
+            def relative(mua, mus):
+                return lookup.point_relative_sd(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho)
+        elif detector == "point":
+            outer = rho
+
+            def values(mua, mus):
+                return lookup.point(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho)
+
+            def relative(mua, mus):
+                return lookup.point_relative_sd(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho)
+        else:
+            raise InputError(f"detector = {detector!r}; accepted: point, ring, fibre")
 
         def forward(mua, musp):
             mus = np.asarray(musp, float) / (1.0 - g)
             # the baseline answers only for mua/mus >= its reference ratio: hold the trial there
             mua = np.maximum(np.asarray(mua, float), floor * mus)
-            return lookup.annuli(mua_per_mm=mua, mus_per_mm=mus, edges_mm=edges)
+            return values(mua, mus)
 
         def model_sd(mua, musp):
             mus = np.asarray(musp, float) / (1.0 - g)
             mua = np.maximum(np.asarray(mua, float), floor * mus)
-            return forward(mua, musp) * lookup.annuli_relative_sd(mua_per_mm=mua, mus_per_mm=mus, edges_mm=edges)
+            return forward(mua, musp) * relative(mua, mus)
 
         forward.lookup = lookup
-        forward.edges_mm = edges
-        forward.rho_max_mm = float(edges[-1])
+        forward.outer_mm = outer
+        forward.rho_max_mm = float(outer[-1])
         forward.model_sd = model_sd
+        forward.detector = detector
         return forward
     if model not in SRDR_FIT_MODELS:
         raise InputError(f"unknown srdr fit model {model!r}; accepted: {', '.join(SRDR_FIT_MODELS)}")
@@ -223,7 +259,8 @@ def fit_srdr(
     n_outside = meta.n_outside if n_outside is None else n_outside
     relative = measurement.scale == "relative"
     rho = measurement.axis
-    forward = srdr_forward(model=model, rho_mm=rho, n=n, n_outside=n_outside, baseline=baseline)
+    forward = srdr_forward(model=model, rho_mm=rho, n=n, n_outside=n_outside, baseline=baseline,
+                           detector=meta.detector, fibre_core_mm=meta.fibre_core_mm)
     label = "mc-lookup" if model == "mc" else f"diffusion-{model}"
     # relative data take their SDs from the profile chi2, once, on the final fit (below)
     kwargs = dict(kind="srdr", model=label, wavelength_nm=measurement.wavelength_nm,
@@ -333,11 +370,11 @@ def _fit_within_lookup_reach(forward, result, correlation, measurement: Measurem
     used = None
     mask = None
     previous = result
-    edges = forward.edges_mm
+    outer = forward.outer_mm
     for _ in range(_REACH_PASSES):
         mus = result.musp_per_mm / (1.0 - lookup.g)
         mua = np.maximum(result.mua_per_mm, baseline_absorption_floor(lookup.baseline) * mus)
-        served = lookup.served(mua_per_mm=mua, mus_per_mm=mus, rho_mm=np.broadcast_to(edges[1:], (mua.size, rho.size)))
+        served = lookup.served(mua_per_mm=mua, mus_per_mm=mus, rho_mm=np.broadcast_to(outer, (mua.size, rho.size)))
         wanted = finite & served
         # nothing left out: one refit with the lookup's noise is enough; distances left out
         # (the first solution saw them): refit until the solution no longer moves
@@ -372,7 +409,7 @@ def _fit_within_lookup_reach(forward, result, correlation, measurement: Measurem
             f"(beyond what the baseline's photons serve at the fitted optics, "
             f"{float(np.min(lookup.served_limit_mm(mua_per_mm=mua, mus_per_mm=mus))):.3g} mm at the nearest); "
             f"they are not fitted by extrapolation")
-    forward.rho_max_mm = float(np.max(np.where(used, edges[None, 1:], 0.0)))
+    forward.rho_max_mm = float(np.max(np.where(used, outer[None, :], 0.0)))
     return result, correlation, mask, messages
 
 

@@ -415,9 +415,8 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
                                  mua_sd_per_mm=mua_sd, musp_sd_per_mm=musp_sd, correlation=correlation)
     lookup = getattr(shape, "lookup", None)
     if lookup is not None:
-        message = lookup.reach_warning(mus_per_mm=musp_fit / (1 - lookup.g), rho_max_mm=float(measurement.rho_mm.max()))
-        if message:
-            messages.append(message)
+        _check_lookup_reach(lookup, measurement, musp_fit, x[:, 2:] * _SHIFT_UNIT_PS, full_windows, irf,
+                            irf_of_curve, R)
     messages = list(dict.fromkeys(messages))
     for message in messages:
         warnings.warn(message, PhantomlabWarning, stacklevel=2)
@@ -434,6 +433,31 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
                 "model": mu_full.reshape(W, R, K_full), "window": full_windows.reshape(W, R, K_full),
                 "irf_time_ps": measurement.irf_time_ps, "irf": irf, "geometry": geometry},
     )
+
+
+def _check_lookup_reach(lookup, measurement, musp_fit, shifts_ps, windows, irf, irf_of_curve, R) -> None:
+    """Refuse (LookupReachError) a lookup fit whose windows reach beyond the lookup's photons.
+
+    The latest response time a curve's window needs is its last bin less the IRF's peak time
+    and the fitted shift t0; :meth:`TimeResolvedLookup.serves` says whether the lookup holds
+    enough photons there at the fitted μs.
+    """
+    from phantomlab.calibration.mc_lookup_time import SERVED_MAX_RELATIVE_SD, LookupReachError
+
+    time = measurement.time_ps
+    last = np.array([time[np.flatnonzero(row)[-1]] for row in windows])
+    irf_peak = measurement.irf_time_ps[np.argmax(irf, axis=1)][irf_of_curve]
+    latest = last - irf_peak - shifts_ps.ravel()
+    mus = np.repeat(musp_fit, R) / (1.0 - lookup.g)
+    rho = np.tile(measurement.rho_mm, musp_fit.size)
+    served = lookup.serves(mus_per_mm=mus, rho_mm=rho, latest_time_ps=latest)
+    if not np.all(served):
+        c = int(np.flatnonzero(~served)[0])
+        w, r = divmod(c, R)
+        raise LookupReachError(
+            f"at {measurement.wavelength_nm[w]:g} nm and {measurement.rho_mm[r]:g} mm the fit window reaches "
+            f"{latest[c]:.0f} ps after the pulse, beyond what its photons cover (relative error at most "
+            f"{SERVED_MAX_RELATIVE_SD:g}, {lookup.u_max / mus[c]:.3g} mm at most)")
 
 
 def _lookup_covariance(residual_fn, x, mask, relative_error, log_delay, bandwidth, W, R, K) -> np.ndarray:

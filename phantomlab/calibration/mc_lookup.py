@@ -364,6 +364,38 @@ class SmoothLookup:
         values = self.point(mua_per_mm=mua_per_mm, mus_per_mm=mus_per_mm, rho_mm=rho.ravel())
         return np.einsum("nrq,rq->nr", values.reshape(values.shape[0], *rho.shape), w)
 
+    def fibre(self, *, mua_per_mm, mus_per_mm, rho_mm, core_mm: float) -> np.ndarray:
+        """Average of R [1/mm²] over a fibre face of diameter ``core_mm`` [mm] centred at each ρ, (N, R).
+
+        Gauss–Legendre quadrature over the disc in polar coordinates about the fibre's centre
+        (4 radial nodes weighted by r, 8 angular nodes over the half turn, R being symmetric
+        about the line to the source): a point at (r, φ) lies at √(ρ² + r² + 2ρr cos φ).
+        """
+        rho = np.asarray(rho_mm, float)
+        a = 0.5 * float(core_mm)
+        xr, wr = np.polynomial.legendre.leggauss(4)
+        xp, wp = np.polynomial.legendre.leggauss(8)
+        r = 0.5 * a * (xr + 1.0)
+        phi = 0.5 * np.pi * (xp + 1.0)
+        weight = (0.5 * a * wr * r)[:, None] * (0.5 * np.pi * wp)[None, :] / (0.5 * np.pi * a * a)  # sums to 1
+        distance = np.sqrt(rho[:, None, None] ** 2 + r[None, :, None] ** 2
+                           + 2.0 * rho[:, None, None] * r[None, :, None] * np.cos(phi)[None, None, :])
+        values = self.point(mua_per_mm=mua_per_mm, mus_per_mm=mus_per_mm, rho_mm=np.maximum(distance, 1e-9).ravel())
+        return np.einsum("nrab,ab->nr", values.reshape(values.shape[0], rho.size, r.size, phi.size), weight)
+
+    def point_relative_sd(self, *, mua_per_mm, mus_per_mm, rho_mm) -> np.ndarray:
+        """Relative standard error of :meth:`point` from the baseline's photon statistics, (N, R).
+
+        Within one transport length of the source: the counted error of the table node at ρ
+        (a node is an annulus of the table's relative width); beyond, the smoothed table's SD.
+        """
+        scale, ratio, u = self._coordinates(mua_per_mm, mus_per_mm, rho_mm)
+        log_u = np.log(np.clip(u, np.exp(self.log_u[0]), np.exp(self.log_u[-1])))
+        log_r = np.broadcast_to(np.log(ratio)[:, None], log_u.shape)
+        counted = np.exp(self._sd_spline.ev(log_r, log_u))
+        smoothed = np.exp(self._smooth_sd_spline.ev(log_r, log_u))
+        return np.where(log_u >= self.log_transport_length, smoothed, counted)
+
     def annuli_relative_sd(self, *, mua_per_mm, mus_per_mm, edges_mm) -> np.ndarray:
         """Relative standard error of :meth:`annuli` from the baseline's photon statistics, (N, R).
 

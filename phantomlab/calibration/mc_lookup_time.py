@@ -49,7 +49,7 @@ from scipy.ndimage import gaussian_filter1d
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.transport.time_domain import SPEED_OF_LIGHT_MM_PER_PS
 
-__all__ = ["TimeResolvedLookup", "time_resolved_lookup"]
+__all__ = ["TimeResolvedLookup", "time_resolved_lookup", "LookupReachError", "SERVED_MAX_RELATIVE_SD"]
 
 #: Radial cells of the table, in scattering lengths u = ρμs (log spaced).
 _U_RANGE = (0.5, 400.0)
@@ -64,6 +64,21 @@ _BANDWIDTH_LOG_U = 0.12
 _BANDWIDTH_LOG_TAU = 0.06
 #: Cells with fewer photons than this do not take part in the smoothing as data.
 _MIN_PHOTONS = 1.0
+#: The lookup serves a curve when its photons reach the latest time the fit needs at that
+#: distance and its relative standard error there is at most this; beyond, the fit would
+#: read a table made of a handful of photons (or none) and the default fit uses diffusion.
+#: Chosen: at 10 % the lookup's error (added to the SDs) still leaves the late tail a
+#: small weight next to the peak's; common practice, no source.
+SERVED_MAX_RELATIVE_SD = 0.10
+
+
+class LookupReachError(InputError):
+    """The data reach beyond the Monte Carlo lookup's photons (in distance or time); ``reason`` says where."""
+
+    def __init__(self, reason: str):
+        self.reason = reason
+        super().__init__(f"the Monte Carlo lookup does not serve these data: {reason}; fit them with a diffusion "
+                         "model (--model kienle1997) or give a baseline with more photons")
 
 
 def _control(baseline, u: np.ndarray, tau: np.ndarray) -> np.ndarray:
@@ -347,6 +362,45 @@ class TimeResolvedLookup:
         lt = np.log(np.where(tau > 0, tau, 1.0))
         return np.exp(self._bilinear(self._log_sd, lu, lt, self.log_u[0], self.log_tau[0],
                                      float(self.log_u[1] - self.log_u[0]), float(self.log_tau[1] - self.log_tau[0])))
+
+    def serves(self, *, mus_per_mm, rho_mm, latest_time_ps) -> np.ndarray:
+        """Whether the lookup serves a curve out to ``latest_time_ps``, per (μs, ρ) pair, shape (N,).
+
+        Served: the distance lies within the photons' reach (u = ρμs at most the farthest
+        stored exit), and at the latest time the table holds light with a relative standard
+        error of at most :data:`SERVED_MAX_RELATIVE_SD`.
+
+        Parameters
+        ----------
+        mus_per_mm, rho_mm, latest_time_ps : arrays (N,) [1/mm], [mm], [ps]
+        """
+        mus = np.atleast_1d(np.asarray(mus_per_mm, float))
+        rho = np.broadcast_to(np.asarray(rho_mm, float), mus.shape)[:, None]
+        late = np.broadcast_to(np.asarray(latest_time_ps, float), mus.shape)[:, None]
+        u = rho[:, 0] * mus
+        tau = self.v * late[:, 0] * mus
+        relative = self.relative_sd(mus_per_mm=mus, rho_mm=rho, time_ps=np.maximum(late, 1e-3))[:, 0]
+        lit = self.point(mua_per_mm=np.zeros(mus.size), mus_per_mm=mus, rho_mm=rho,
+                         time_ps=np.maximum(late, 1e-3))[:, 0] > 0
+        return (u <= self.u_max) & (u >= self.u_nodes[0]) & (tau <= self.tau_max) & lit & (
+            relative <= SERVED_MAX_RELATIVE_SD)
+
+    def curve_relative_sd(self, *, mua_per_mm: float, mus_per_mm: float, rho_mm) -> np.ndarray:
+        """Response-weighted mean relative SD of the lookup over each whole curve R(ρ, t), shape (R,).
+
+        The error of a quantity that integrates the curve over time (the frequency-domain
+        transform): Σ R σ_rel Δt / Σ R Δt on 200 log-spaced times out to the table's reach.
+        """
+        rho = np.atleast_1d(np.asarray(rho_mm, float))
+        times = np.geomspace(10.0, self.tau_max / (self.v * mus_per_mm), 200)
+        out = np.empty(rho.size)
+        for r in range(rho.size):
+            grid = np.full(times.size, rho[r])
+            point = self.point(mua_per_mm=[mua_per_mm], mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=times)[0]
+            weight = point * np.gradient(times)
+            sd = self.relative_sd(mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=times)[0]
+            out[r] = float(np.sum(weight * sd) / np.sum(weight)) if np.sum(weight) > 0 else np.inf
+        return out
 
     def frequency_domain(self, *, mua_per_mm, mus_per_mm, rho_mm, frequency_mhz) -> np.ndarray:
         """Complex R̃(ρ, ω) [1/mm²] by eq. (2) of the module docstring, shape (N, G).

@@ -96,8 +96,17 @@ _METADATA_KEYS = {
     "specular_included", "instrument", "date", "port_diameter_mm", "beam_diameter_mm",
     "probe", "operator", "notes", "reference", "phantom_age_days", "temperature_c",
     "unscattered_included", "sample_diameter_mm", "lost_light", "lost_light_photons", "lost_light_wavelengths",
-    "sphere",
+    "sphere", "detector", "fibre_core_mm",
 }
+
+#: How a srdr reading samples R(ρ) at each distance (sidecar ``detector``): ``point`` (the
+#: default: a detector small next to ρ and to R's curvature), ``ring`` (an annulus between
+#: the midpoints of neighbouring distances, as a camera's radial average or a binned
+#: simulation), ``fibre`` (a fibre face of core diameter ``fibre_core_mm`` centred at ρ).
+DETECTORS = ("point", "ring", "fibre")
+#: Largest fibre core diameter a sidecar may give [mm] (detection fibres are 0.05-1 mm;
+#: common practice, no source).
+FIBRE_CORE_MAX_MM = 5.0
 
 #: Light-loss corrections a sidecar may ask for (``lost_light``).
 LOST_LIGHT_METHODS = ("none", "monte-carlo")
@@ -168,6 +177,10 @@ class MeasurementMetadata:
         Photons per Monte Carlo run and most wavelengths run (the rest interpolated).
     sphere : SphereSpec or None
         Sphere geometry and standard of a ``sphere`` measurement.
+    detector : str
+        srdr: how each distance is sampled, one of :data:`DETECTORS` (default ``point``).
+    fibre_core_mm : float or None [mm]
+        srdr with ``detector = "fibre"``: the detection fibre's core diameter.
     instrument, date : str or None
     reference : ReferenceSpec or None
     extra : dict
@@ -190,6 +203,8 @@ class MeasurementMetadata:
     lost_light_photons: int = 100_000
     lost_light_wavelengths: int = 8
     sphere: Any = None
+    detector: str = "point"
+    fibre_core_mm: float | None = None
     instrument: str | None = None
     date: str | None = None
     reference: ReferenceSpec | None = None
@@ -551,6 +566,7 @@ def metadata_from_mapping(
             if isinstance(value, bool) or not isinstance(value, int) or not low <= value <= high:
                 raise InputError(f"{where}: {key} = {value!r}; accepted: a whole number from {low} to {high}")
             kwargs[key] = value
+    kwargs.update(_detector_from_table(table, where))
     if table.get("sphere") is not None:
         from phantomlab.calibration.sphere_readings import sphere_spec_from_table
 
@@ -565,6 +581,26 @@ def metadata_from_mapping(
         if key in table:
             extra[key] = table[key]
     return MeasurementMetadata(extra=extra, **kwargs)
+
+
+def _detector_from_table(table: Mapping[str, Any], where: str) -> dict:
+    """``detector`` and ``fibre_core_mm`` of a sidecar, checked (see :data:`DETECTORS`)."""
+    out: dict[str, Any] = {}
+    detector = table.get("detector")
+    if detector is not None:
+        if detector not in DETECTORS:
+            raise InputError(f"{where}: detector = {detector!r}; accepted: {', '.join(DETECTORS)}")
+        out["detector"] = detector
+    if table.get("fibre_core_mm") is not None:
+        core = _float_value(table["fibre_core_mm"], "fibre_core_mm", "length", where)
+        if not 0 < core <= FIBRE_CORE_MAX_MM:
+            raise InputError(f"{where}: fibre_core_mm = {core:g}; accepted: > 0 and at most {FIBRE_CORE_MAX_MM:g} mm")
+        out["fibre_core_mm"] = core
+    if out.get("detector") == "fibre" and "fibre_core_mm" not in out:
+        raise InputError(f"{where}: detector = 'fibre' needs fibre_core_mm (the core diameter in mm)")
+    if "fibre_core_mm" in out and out.get("detector") != "fibre":
+        raise InputError(f"{where}: fibre_core_mm is given but detector is not 'fibre'; add detector = 'fibre'")
+    return out
 
 
 def _reference_from_table(table, *, where: str, base_dir: Path | None, kind: str | None) -> ReferenceSpec:

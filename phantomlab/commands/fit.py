@@ -5,7 +5,8 @@
                    [--baseline-dir FOLDER] [--irf IRF.csv] [--geometry {reflectance,transmittance}]
                    [--musp-power-law] [--mua-from-stocks RECIPE.toml] [--json]
 
-srdr and sfdi fit with the Monte Carlo lookup unless ``--model`` names a diffusion model; its
+srdr, sfdi, td and fd fit with the Monte Carlo lookup unless ``--model`` names a diffusion model
+(td and fd: where the lookup applies; elsewhere diffusion, said in a note); its
 baseline (one per g, n, n_outside) comes from the per-user cache and is built there on first
 use, with a progress bar on stderr (``phantomlab baseline list|clear``).
 
@@ -25,7 +26,8 @@ fitted, and ``amplitude_scale_factor`` for a relative amplitude.
 What the srdr/sfdi model ran with: ``n_used``, ``n_origin``, ``n_outside_used``,
 ``n_outside_origin`` (option, sidecar, default), ``g_used``, ``g_origin`` (option, sidecar,
 batch, default, baseline file), ``baseline`` (the file), ``baseline_origin`` (cache, cache
-(built now), file), ``g_note``.
+(built now), file), ``g_note``; td and fd with the default model: ``model_note`` (which model
+was used and why: the Monte Carlo lookup, or diffusion where the lookup does not apply).
 """
 
 from __future__ import annotations
@@ -56,8 +58,9 @@ def register(subparsers) -> None:
     parser.add_argument("--thickness-mm", type=float, default=None, metavar="D", help="slab thickness in mm")
     parser.add_argument("--model", default=None, metavar="M",
                         help="srdr: mc (default, Monte Carlo lookup), kienle1997, farrell1992; sfdi: mc "
-                        "(default), cuccia2009; slab, sphere: adding-doubling; td: kienle1997 (default), "
-                        "contini1997, patterson1989, mc; fd: kienle1997 (default), contini1997, mc, "
+                        "(default), cuccia2009; slab, sphere: adding-doubling; td: mc (default where it applies, "
+                        "else kienle1997, said in a note), kienle1997, contini1997, patterson1989; fd: mc "
+                        "(default where it applies, else kienle1997), kienle1997, contini1997, "
                         "fantini1994 (slope method)")
     parser.add_argument("--g", type=float, default=None, metavar="G",
                         help="anisotropy: the Monte Carlo lookup's baseline (srdr, sfdi; default 0.8, said "
@@ -155,7 +158,7 @@ def _table(result) -> str:
 
 def input_lines(inputs) -> list[str]:
     """What the model ran with, from a fit's ``extras`` or JSON (the keys ``n_used`` ... ``g_note``)."""
-    lines = []
+    lines = [f"note: {inputs['model_note']}"] if inputs.get("model_note") else []
     if inputs.get("n_used") is not None:
         lines.append(f"n = {inputs['n_used']:g} ({inputs.get('n_origin')}), n_outside = "
                      f"{inputs.get('n_outside_used', 1.0):g} ({inputs.get('n_outside_origin')})")

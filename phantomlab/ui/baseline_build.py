@@ -23,11 +23,14 @@ def _stop(key: str) -> None:
     st.session_state[f"{key}.stopped"] = True
 
 
-def page_baseline(*, g: float, n: float, n_outside: float, key: str, offer_rebuild: bool = True):
+def page_baseline(*, g: float, n: float, n_outside: float, key: str, offer_rebuild: bool = True,
+                  time_resolved: bool = False):
     """The cached baseline for (g, n, n_outside), building it when missing; None while there is none.
 
     ``offer_rebuild=False`` (inside a form's submitted run, where a second button cannot
     carry on the flow): a refused file is named with where to build it again.
+    ``time_resolved=True``: the td/fd baseline with its photons (``NAME-time.npz``, a few
+    minutes to build).
 
     Returns
     -------
@@ -35,8 +38,17 @@ def page_baseline(*, g: float, n: float, n_outside: float, key: str, offer_rebui
         None when the user has to act first (a refused file, a stopped build) or the build failed;
         the page says which.
     """
-    from phantomlab.calibration.baseline_cache import CachedBaselineError, find_cached_baseline, obtain_baseline
+    from phantomlab.calibration.baseline_cache import (CachedBaselineError, find_cached_baseline, obtain_baseline,
+                                                       obtain_photon_baseline)
 
+    if time_resolved:
+        from phantomlab.calibration.baseline_cache import baseline_folder, time_cache_file_name
+
+        def find_cached_baseline(**inputs):
+            path = baseline_folder() / time_cache_file_name(**inputs)
+            return obtain_photon_baseline(**inputs) if path.is_file() else None
+
+        obtain_baseline = obtain_photon_baseline  # noqa: F811 (the td/fd file)
     rebuild = False
     try:
         found = find_cached_baseline(g=g, n=n, n_outside=n_outside)
@@ -61,7 +73,7 @@ def page_baseline(*, g: float, n: float, n_outside: float, key: str, offer_rebui
     st.button("Stop the build", key=f"{key}.stop", on_click=_stop, args=(key,),
               help="Ends the build at its next step; nothing is written.")
     bar = st.progress(0.0, text=f"Building the Monte Carlo baseline for g = {g:.2f}, n = {n:g} (once, about half "
-                                "a minute on two cores)…")
+                                "a minute on two cores; td/fd: a few minutes)…")
     started = time.monotonic()
 
     def progress(done: int, total: int) -> None:

@@ -249,8 +249,11 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
             if not inline.ok:
                 return
             sidecar_text = _with_irf(sidecar_text, inline.value)
-    if model == "mc" and kind in ("srdr", "sfdi") and not _baseline_ready(store, batch, kind, upload, sidecar, n):
+    if model == "mc" and kind in ("srdr", "sfdi", "td", "fd") and not _baseline_ready(store, batch, kind, upload,
+                                                                                    sidecar, n):
         return
+    if model == "mc" and kind in ("td", "fd"):
+        model = None  # the default fit: the lookup where it applies, else diffusion with a note saying why
     with st.spinner("Fitting the measurement…"):
         outcome = call_layer(
             "Attaching the measurement", attach_measurement, store, batch["code"], kind=kind,
@@ -334,8 +337,10 @@ def _baseline_ready(store, batch: dict, kind: str, upload, sidecar, n: float) ->
         found = call_layer("Reading the batch's scattering model", batch_anisotropy, store, batch["code"],
                            wavelength_nm=read.value.wavelength_nm, show=False)
         g = found.value[0] if found.ok and found.value is not None else DEFAULT_G
+    if kind == "td" and (table.get("geometry") == "transmittance" or table.get("thickness_mm") is not None):
+        return True  # the lookup does not apply: the default fit uses diffusion and says so
     cached = page_baseline(g=float(g), n=float(n), n_outside=float(table.get("n_outside", 1.0)),
-                           key="batches.baseline", offer_rebuild=False)
+                           key="batches.baseline", offer_rebuild=False, time_resolved=kind in ("td", "fd"))
     return cached is not None
 
 

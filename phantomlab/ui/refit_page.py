@@ -376,11 +376,16 @@ def _fit_section(workspace: Workspace, store) -> None:
         text += "\n"
     read = call_layer("Reading the measurement", _read, text, kind, sidecar, options, show=False)
     baseline, g_fallback, given_baseline = None, None, None
-    if model == "mc" and kind not in ("srdr", "sfdi"):  # td, fd: a baseline file with its time tally
+    lookup_applies = not (kind == "td" and (options.get("geometry") == "transmittance"
+                                             or options.get("thickness_mm") is not None))
+    if model == "mc" and kind in ("td", "fd") and st.checkbox(
+            "Use a baseline file of this workspace instead of the cached one", key="refit.td_baseline_file"):
         given_baseline = baseline = _baseline_section(workspace, float(n))
         if baseline is None:
             st.info("Choose or build a baseline to fit with the Monte Carlo model.")
             return
+    elif model == "mc" and kind in ("td", "fd") and not lookup_applies:
+        model = None  # the default fit: diffusion, and its note says why
     elif model == "mc":
         from phantomlab.ui.baseline_build import page_baseline
 
@@ -394,10 +399,13 @@ def _fit_section(workspace: Workspace, store) -> None:
         else:
             g_fallback = (float(suggested), origin)
         cached = page_baseline(g=float(g), n=float(n), n_outside=float(sidecar.get("n_outside", 1.0)),
-                               key="refit.baseline")
+                               key="refit.baseline", time_resolved=kind in ("td", "fd"))
         if cached is None:
             return
-        baseline = cached.baseline
+        if kind in ("td", "fd"):
+            model, options["g"] = None, float(g)  # the default fit reads the cached file (it may fall back, said)
+        else:
+            baseline = cached.baseline
     with st.spinner("Fitting…"):
         fitted = call_layer("Fitting the measurement", _fit, text, kind, sidecar, model, options, g_fallback,
                             bool(power_law), given_baseline, show=False)
@@ -414,6 +422,8 @@ def _fit_section(workspace: Workspace, store) -> None:
     used = describe_inputs(dict(result.extras))
     if used:
         st.caption(plain(f"Used: {used}"))
+    if result.extras.get("model_note"):
+        st.caption(plain(result.extras["model_note"]))
     if result.extras.get("g_note"):
         st.caption(plain(result.extras["g_note"]))
     if read.ok and kind in ("td", "fd"):

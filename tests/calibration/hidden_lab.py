@@ -176,7 +176,8 @@ class HiddenLab:
 
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", PhantomlabWarning)
-            return fit_measurement_file(text, kind="srdr", n=PROBE_N, model="mc", baseline=self.fit_baseline)
+            return fit_measurement_file(text, kind="srdr", n=PROBE_N, model="mc", baseline=self.fit_baseline,
+                                        detector="ring")
 
 
 def make_lab(folder: Path, *, data_baseline=None, fit_baseline=None,

@@ -58,7 +58,9 @@ def _srdr_csv(cases, case, *, noise, seed, relative):
 
 def _fit_srdr(cases, case, **kw):
     text = _srdr_csv(cases, case, **kw)
-    return fit_measurement_file(text, kind="srdr", n=float(cases["n"][case]), g=float(cases["g"][case]))
+    # the fixture's values are ring averages between the distances' midpoints (make_default_fit_fixtures.py)
+    return fit_measurement_file(text, kind="srdr", n=float(cases["n"][case]), g=float(cases["g"][case]),
+                                detector="ring")
 
 
 def _errors(fit, mua, musp):

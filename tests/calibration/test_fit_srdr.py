@@ -72,7 +72,7 @@ def _noisy(case_values, case_sd, rng, copies):
 
 def _measurement(rho, values, sd, relative=False):
     return parse_measurement_text(_text(rho, values, sd, relative), kind="srdr",
-                                  metadata=MeasurementMetadata(n=1.4, n_outside=1.0))
+                                  metadata=MeasurementMetadata(n=1.4, n_outside=1.0, detector="ring"))
 
 
 @pytest.mark.parametrize("case", range(5))
@@ -336,7 +336,7 @@ def test_near_source_points_follow_the_fitted_transport_length():
     data = R.copy()
     data[:2] *= 2.0
     text = _text(rho, data, 0.01 * R)
-    m = parse_measurement_text(text, kind="srdr", metadata=MeasurementMetadata(n=1.4, n_outside=1.0))
+    m = parse_measurement_text(text, kind="srdr", metadata=MeasurementMetadata(n=1.4, n_outside=1.0, detector="ring"))
     with pytest.warns(PhantomlabWarning, match="left out 5 points within 2 transport mean free paths"):
         fit = fit_srdr(m, model="kienle1997")
     assert fit.mua_per_mm[0] == pytest.approx(0.005, rel=1e-4)

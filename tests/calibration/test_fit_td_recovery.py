@@ -125,3 +125,61 @@ def test_diffusion_bias_on_monte_carlo_data_stays_as_measured(run, baseline):
         mua_error = np.median(copies.mua_per_mm) / mua - 1
         musp_error = np.median(copies.musp_per_mm) / MUSP - 1
         assert -0.06 < mua_error < 0.0 and -0.07 < musp_error < 0.0, (case, mua_error, musp_error)
+
+
+def _default_fit(curve, rows, **sidecar):
+    """The default command's fit (no model named), through the session's test cache."""
+    from phantomlab.calibration.fit_file import fit_measurement_file
+
+    curves = {(700.0 + i, curve_rho): counts for i, (curve_rho, counts) in enumerate(rows)}
+    irf_counts = np.round(curve.irf / curve.irf.max() * 1e8)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PhantomlabWarning)
+        return fit_measurement_file(fixture.td_csv(curves, curve.time_ps), kind="td",
+                                    sidecar={"n": 1.4, "g": 0.8, "irf": irf_table(curve.irf_time_ps, irf_counts),
+                                             **sidecar})
+
+
+def test_the_default_td_fit_is_the_lookup_on_the_cached_baseline_and_says_so(run):
+    """Independent data (fixtures/mc_td_half_space.npz, seed 3001) at μs′/μa = 300, ρ 15 mm, IRF 150 ps.
+
+    The session cache holds the stored 2.5-million-photon test baseline as the td/fd cache file
+    (tests/conftest.py), so the default fit must use the lookup, name it, and recover the truth
+    within the acceptance's 3 % (μa) / 2 % (μs′).
+    """
+    ratio, rho, fwhm, shift, peak = CASES[1]
+    curve = fixture.instrument_curve(run, mua_per_mm=MUSP / ratio, rho_mm=rho, fwhm_ps=fwhm, shift_ps=shift,
+                                     peak_counts=peak, window_ps=(0.0, 5000.0))
+    rng = np.random.default_rng(4100)
+    fit = _default_fit(curve, [(rho, rng.poisson(curve.lam)) for _ in range(4)])
+    assert fit.model == "mc-lookup"
+    assert fit.extras["model_note"].startswith("td model: the Monte Carlo lookup")
+    assert fit.extras["baseline"].endswith("baseline-g0.80-n1.400-out1.000-time.npz")
+    assert np.all(np.abs(fit.mua_per_mm / (MUSP / ratio) - 1) <= 0.03)
+    assert np.all(np.abs(fit.musp_per_mm / MUSP - 1) <= 0.02)
+
+
+def test_the_default_td_fit_falls_back_to_diffusion_with_a_note_where_the_lookup_does_not_apply(run):
+    """A slab (thickness given): the half-space lookup does not apply; the fit says diffusion and why."""
+    ratio, rho, fwhm, shift, peak = CASES[1]
+    curve = fixture.instrument_curve(run, mua_per_mm=MUSP / ratio, rho_mm=rho, fwhm_ps=fwhm, shift_ps=shift,
+                                     peak_counts=peak, window_ps=(0.0, 5000.0))
+    rng = np.random.default_rng(4101)
+    fit = _default_fit(curve, [(rho, rng.poisson(curve.lam))], thickness_mm=60.0)
+    assert fit.model == "diffusion-kienle1997"
+    assert "instead of the default Monte Carlo lookup, because" in fit.extras["model_note"]
+    assert "60 mm slab" in fit.extras["model_note"]
+
+
+def test_an_explicit_lookup_beyond_its_photons_is_refused_in_one_line(run):
+    """At 20 mm with the window to 1 % of the peak but a tiny baseline, the lookup cannot serve: refused, not fitted."""
+    from phantomlab.calibration.mc_lookup_time import LookupReachError
+    from phantomlab.transport.montecarlo import build_baseline
+
+    small = build_baseline(mua_per_mm=0.002, mus_per_mm=10.0, g=0.8, n=1.4, photons=3000, seed=11)
+    ratio, rho, fwhm, shift, peak = CASES[2]
+    curve = fixture.instrument_curve(run, mua_per_mm=MUSP / ratio, rho_mm=rho, fwhm_ps=fwhm, shift_ps=shift,
+                                     peak_counts=peak, window_ps=(0.0, 5000.0))
+    measurement = _measurement(curve, [(rho, np.random.default_rng(5).poisson(curve.lam))])
+    with pytest.raises(LookupReachError, match="does not serve these data"):
+        _fit(measurement, "mc", small)

@@ -37,7 +37,7 @@ def _cases(name):
 def _forward(baseline, rho):
     from phantomlab.calibration.fit_srdr import srdr_forward
 
-    return srdr_forward(model="mc", rho_mm=rho, n=1.4, n_outside=1.0, baseline=baseline)
+    return srdr_forward(model="mc", rho_mm=rho, n=1.4, n_outside=1.0, baseline=baseline, detector="ring")
 
 
 @pytest.mark.parametrize("name", ["mc_srdr_cases.npz", "mc_srdr_reach_cases.npz"])
@@ -137,7 +137,7 @@ def test_distances_the_baseline_cannot_serve_are_left_out_and_named(baseline):
 
     def fit(values):
         m = Measurement(kind="srdr", scale="absolute", wavelength_nm=np.array([700.0]), axis=axis,
-                        values=values[None, :], sd=sd[None, :], source="fixture", metadata=MeasurementMetadata(n=1.4))
+                        values=values[None, :], sd=sd[None, :], source="fixture", metadata=MeasurementMetadata(n=1.4, detector="ring"))
         return fit_srdr(m, model="mc", baseline=baseline)
 
     with warnings.catch_warnings(record=True) as caught:

@@ -62,7 +62,8 @@ def test_second_batch_lands_within_2_percent_with_monte_carlo_light(lab, record_
     assert np.allclose(light["mua_per_mm"], optics.mua_per_mm, rtol=1e-6)  # the fixture is this batch
     # g of the batch's scattering model, as batch measure takes it (workflows.batch_anisotropy)
     g = float(np.mean(np.interp(light["wavelength_nm"], first.predicted.wavelength_nm, first.predicted.g)))
-    fit = fit_measurement_file(text, kind="srdr", n=1.33, g_fallback=(g, "batch"))  # the default model
+    # the default model; the stored light is ring-binned between the distances' midpoints
+    fit = fit_measurement_file(text, kind="srdr", n=1.33, g_fallback=(g, "batch"), detector="ring")
     assert fit.model == "mc-lookup" and fit.extras["g_origin"] == "batch"
     observation = observation_from_fit(recipe, batch_id="SIM-1", volume_fractions=first.volume_fractions, fit=fit)
     update = update_potencies(priors_from_recipe(recipe), [observation])
