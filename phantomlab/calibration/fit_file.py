@@ -251,7 +251,8 @@ def fit_measurement_file(path_or_text, *, kind: str, **metadata: Any) -> FitResu
         result, extra = run(model, inputs)
     if requested is None and kind in FALLBACK_MODELS and note is None:
         note = (f"{kind} model: the Monte Carlo lookup (the default; reflectance from a thick phantom, every "
-                "distance and the whole fit window within its baseline's reach)")
+                + ("distance and the whole fit window" if kind == "td" else "distance's whole curve")
+                + " within its baseline's reach)")
     result = _with_inputs(result, inputs, measurement).with_warnings(extra)
     if note is not None:
         result = replace(result, extras={**dict(result.extras), "model_note": note})
