@@ -71,7 +71,7 @@ def logged(tmp_path_factory):
                     made["carbon_black"] *= 1.4
                 reading = lab.reading(made, share=shares[j], seed=100 + j)
                 attach_measurement(store, code, kind="srdr", file_name=f"probe-{code}.csv",
-                                   raw_content=reading.encode(), sidecar_toml="n = 1.4\n", model="mc",
+                                   raw_content=reading.encode(), sidecar_toml='n = 1.4\ndetector = "ring"\n', model="mc",
                                    baseline=lab.fit_baseline, options={"n": 1.4})
                 codes.append(code)
     finally:

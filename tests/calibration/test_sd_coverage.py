@@ -92,7 +92,8 @@ def _copies(cases, case, seed, relative, points=False):
     return Measurement(kind="srdr", scale="relative" if relative else "absolute",
                        wavelength_nm=650.0 + 10.0 * np.arange(COPIES), axis=rho, values=factor * values,
                        sd=factor * sd, source="test data (Monte Carlo + 1 % noise)",
-                       metadata=MeasurementMetadata(n=1.4, n_outside=1.0))
+                       # the fixture's values are rings between midpoints; point values when converted
+                       metadata=MeasurementMetadata(n=1.4, n_outside=1.0, detector="point" if points else "ring"))
 
 
 def _coverage(cases, *, model, relative, baseline=None, seed=0, cases_used=range(5)):
