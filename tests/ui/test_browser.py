@@ -84,6 +84,7 @@ def served_page(tmp_path, seeded_demo_file):
         "--browser.gatherUsageStats", "false",
         "--server.fileWatcherType", "none",
         "--client.toolbarMode", "minimal",
+        "--server.maxUploadSize", "10",  # as `make run` passes it: the layers' file_mb limit
     ]
     with log.open("w") as log_file:
         process = subprocess.Popen(
@@ -416,6 +417,8 @@ def test_record_an_oxygenation_series_and_see_it(served_page, tmp_path):
             _settle(page)
             page.get_by_role("tab", name="Oxygenation series").click()
             page.get_by_text("No oxygenation series recorded for this batch yet").first.wait_for()
+            # the uploader states the layers' 10 MB file limit, not Streamlit's own 200 MB
+            assert "10MB per file" in page.locator('[data-testid="stFileUploader"]').first.inner_text()
             for label, name in (("Series file", "demo-oximeter-series.csv"),
                                 ("Reference sO₂ readings", "demo-oximeter-references.csv")):
                 uploader = page.locator('[data-testid="stFileUploader"]').filter(has_text=label).first
