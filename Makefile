@@ -27,8 +27,9 @@ PORT ?= 8501
 # The page takes uploads up to the file-size limit the layers enforce (phantomlab/limits.py,
 # file_mb: 10 MB, raised with PHANTOMLAB_MAX_FILE_MB), not Streamlit's own 200 MB.
 UPLOAD_MB ?= $(or $(PHANTOMLAB_MAX_FILE_MB),10)
+# One BLAS thread, as the command line sets it (phantomlab/cli.py): small matrices run faster.
 run: $(STAMP)
-	$(BIN)/python -m streamlit run app.py --server.headless true \
+	OPENBLAS_NUM_THREADS=$${OPENBLAS_NUM_THREADS:-1} $(BIN)/python -m streamlit run app.py --server.headless true \
 	  --server.address "$(ADDRESS)" --server.port "$(PORT)" --server.maxUploadSize "$(UPLOAD_MB)" \
 	  --browser.gatherUsageStats false --client.toolbarMode minimal \
 	  $(if $(DB)$(SHELF),--) $(if $(DB),--db "$(DB)") $(if $(SHELF),--shelf "$(SHELF)")
