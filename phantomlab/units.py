@@ -20,6 +20,7 @@ import math
 import re
 from dataclasses import dataclass
 from functools import lru_cache
+from pathlib import Path
 
 import numpy as np
 
@@ -82,17 +83,44 @@ _LAB_FRACTION = re.compile(r"^\s*(?P<num>[-+0-9.eE]+)\s*(?P<pct>%)?\s*(?P<tag>w/
 def _registry():
     """pint's unit registry, built once per process on the first typed quantity.
 
-    Reading pint's definition files takes about 0.5 s; pint keeps what it read in its own
-    disk cache (``cache_folder=":auto:"``: the user's cache folder, ``~/.cache/pint`` on
-    Linux), which brings a later process's build to about 0.06 s.  Without a usable cache
-    folder the registry is built from the files, as before.
+    Reading pint's definition files takes about 0.5 s; pint keeps what it read in a disk
+    cache, which brings a later process's build to about 0.06 s.  The cache folder is one per
+    pint installation (:func:`_pint_cache_folder`): pint's shared default folder
+    (``~/.cache/pint``) records the absolute paths of the definition files, and an entry left
+    by another installation that has since been removed makes every later build fail
+    (flexcache raises FileNotFoundError instead of reading the files again).  Without a
+    usable cache folder the registry is built from the files, as before.
     """
     import pint
 
+    folder = _pint_cache_folder()
+    if folder is not None:
+        try:
+            return pint.UnitRegistry(autoconvert_offset_to_baseunit=True, cache_folder=folder)
+        except Exception:  # noqa: BLE001 - a damaged cache: read the files
+            pass
+    return pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+
+
+def _pint_cache_folder() -> Path | None:
+    """The disk-cache folder of this pint installation (None when it cannot be made).
+
+    ``<user cache>/phantomlab/pint-<version>-<hash of pint's folder>``: two installations
+    (two virtual environments) never share entries, so removing one never breaks another.
+    """
+    import hashlib
+
+    import pint
+    import platformdirs
+
+    installed = str(Path(pint.__file__).resolve().parent)
+    tag = hashlib.sha256(installed.encode("utf-8")).hexdigest()[:12]
     try:
-        return pint.UnitRegistry(autoconvert_offset_to_baseunit=True, cache_folder=":auto:")
-    except Exception:  # noqa: BLE001 - no writable cache folder (or a damaged cache): read the files
-        return pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+        folder = platformdirs.user_cache_path("phantomlab") / f"pint-{pint.__version__}-{tag}"
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError:
+        return None
+    return folder
 
 
 def _kind(kind: str) -> _Kind:

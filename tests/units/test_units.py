@@ -93,3 +93,26 @@ def test_absorbance_is_base_10_mua_is_natural_log():
     assert mua_per_mm_to_absorbance(mua, 10.0) == pytest.approx(1.0)
     with pytest.raises(InputError, match="path length"):
         absorbance_to_mua_per_mm(1.0, 0.0)
+
+
+def test_registry_disk_cache_is_one_folder_per_installation(tmp_path, monkeypatch):
+    """pint's shared default cache records absolute paths of the definition files; an entry
+    left by another, since removed, installation made every build raise inside flexcache (the
+    page then read the files on every first run).  The folder is ours, one per installation,
+    and the next build reads what the first one wrote."""
+    import platformdirs
+
+    from phantomlab import units
+
+    monkeypatch.setattr(platformdirs, "user_cache_path", lambda name: tmp_path / name)
+    folder = units._pint_cache_folder()
+    assert folder is not None and folder.parent == tmp_path / "phantomlab"
+    assert folder.name.startswith("pint-") and not any(folder.iterdir())
+    units._registry.cache_clear()
+    try:
+        assert parse_quantity("25 uL", "volume") == pytest.approx(0.025)
+        assert any(folder.iterdir()), "the registry's definitions were not cached in the installation's folder"
+        units._registry.cache_clear()
+        assert parse_quantity("2 cm", "length") == pytest.approx(20.0)  # built again from that cache
+    finally:
+        units._registry.cache_clear()
