@@ -51,6 +51,7 @@ from phantomlab.store.measurements import (
     measurements_of,
 )
 from phantomlab.store.snapshots import record_recipe, record_stock_lot
+from phantomlab.store.stamp import log_stamp
 
 __all__ = [
     "BatchEvidence",
@@ -78,6 +79,7 @@ __all__ = [
     "get_measurement",
     "history_of",
     "latest_calibration_state",
+    "log_stamp",
     "latest_potencies",
     "latest_potency_states",
     "list_batches",
