@@ -53,11 +53,23 @@ KIND_HELP = {
 
 
 def read_log(store) -> list[dict]:
-    """Every batch (newest version) with its recipe, measurements and fits, as plain values."""
+    """Every batch (newest version) with its recipe, measurements and fits, as plain values.
+
+    Read once per state of the log (:func:`phantomlab.ui.page_cache.log_state`) and shared by
+    every section and session: treat it as read-only.
+    """
+    from phantomlab.ui.page_cache import log_state
+
+    return _read_log(log_state(store), store)
+
+
+@st.cache_resource(show_spinner=False, max_entries=4)
+def _read_log(log: tuple, _store) -> list[dict]:
+    """:func:`read_log` once per (database URL, state of the log)."""
     from phantomlab.store import fits_of, list_batches, measurements_of, plan_of, recipe_of  # layer 4
 
     out = []
-    with store.reading() as session:
+    with _store.reading() as session:
         for batch in list_batches(session, include_retracted=True):
             recipe = recipe_of(session, batch)
             plan = plan_of(session, batch)
@@ -76,7 +88,8 @@ def read_log(store) -> list[dict]:
                 "retracted": batch.retracted, "operator": batch.operator, "planned_on": batch.planned_on,
                 "mixed_on": batch.mixed_on, "notes": batch.notes, "recipe": recipe.name,
                 "cure_details": batch.cure_details,
-                "recipe_version": recipe.recipe_version, "plan": dict(plan.plan),
+                "recipe_version": recipe.recipe_version, "recipe_source": recipe.source_path,
+                "plan": dict(plan.plan),
                 "sheet_html": plan.sheet_html, "actual_amounts": batch.actual_amounts,
                 "actual_prediction": batch.actual_prediction, "actual_alarms": batch.actual_alarms,
                 "measurements": measurements,

@@ -28,13 +28,13 @@ import time
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 import streamlit as st
 
-from phantomlab.ui import services
+from phantomlab.ui import refit_cache, services
 from phantomlab.ui.cautions import show_light_source_caution
 from phantomlab.ui.plain_text import plain
-from phantomlab.ui.plots import COLOURS, Series, line_figure, show_figure, target_series
+from phantomlab.ui.plots import show_chart
+from phantomlab.ui.refit_figures import data_charts, result_charts
 from phantomlab.ui.time_view import PULSED_SOURCES
 from phantomlab.ui.widgets import call_layer, show_warnings
 from phantomlab.ui.workspace import Workspace
@@ -43,8 +43,6 @@ __all__ = ["show"]
 
 TITLE = "Fit and correct"
 UPLOAD = "(upload a file, not stored)"
-AXIS_LABELS = {"srdr": ("source–detector distance ρ [mm]", "reflectance R(ρ) [1/mm²]"),
-               "sfdi": ("spatial frequency fx [1/mm]", "reflectance R(fx) [dimensionless]")}
 
 
 # ---- the measurement to fit -------------------------------------------------------------------
@@ -62,17 +60,11 @@ def _measurement_choices(store) -> list[dict]:
 
 
 def _stored_file(store, measurement_id: int) -> tuple[bytes, str | None]:
-    from phantomlab.store import get_measurement  # layer 4
-
-    with store.reading() as session:
-        row = get_measurement(session, measurement_id)
-        return bytes(row.raw_content), row.metadata_toml
+    return refit_cache.stored_file(store, measurement_id)
 
 
 def _read(text: str, kind: str, sidecar: dict, options: dict):
-    from phantomlab.calibration import read_measurement  # layer 3
-
-    return read_measurement(text, kind=kind, sidecar=sidecar, **options)
+    return refit_cache.measurement_read(text, kind, sidecar, options)
 
 
 def _irf_inline(raw: bytes, name: str) -> dict:
@@ -90,10 +82,8 @@ def _suggested_g(store, batch, measurement, sidecar: dict) -> tuple[float, str]:
     if sidecar.get("g") is not None:
         return float(sidecar["g"]), "sidecar"
     if batch is not None and measurement is not None:
-        from phantomlab.workflows import batch_anisotropy
-
-        found = call_layer("Reading the batch's scattering model", batch_anisotropy, store, batch["code"],
-                           wavelength_nm=measurement.wavelength_nm, show=False)
+        found = call_layer("Reading the batch's scattering model", refit_cache.batch_g, store, batch["code"],
+                           measurement.wavelength_nm, show=False)
         if found.ok and found.value is not None:
             return round(float(found.value[0]), 2), "batch"
     return DEFAULT_G, "default"
@@ -156,143 +146,42 @@ def _baseline_section(workspace: Workspace, n: float):
     st.rerun()
 
 
-def _fit(text: str, kind: str, sidecar: dict, model: str, options: dict, g_fallback, power_law: bool,
+def _fit(key: str, text: str, kind: str, sidecar: dict, model: str, options: dict, g_fallback, power_law: bool,
          baseline=None):
+    """The fit, once per ``key`` (:func:`phantomlab.ui.refit_cache.fit_key` of these inputs)."""
     from phantomlab.calibration import fit_measurement_file  # layer 3
     from phantomlab.calibration.spectral import SpectralConstraint
 
     constraint = SpectralConstraint(musp_power_law=True) if power_law else None
-    return fit_measurement_file(text, kind=kind, sidecar=sidecar, model=model, constraint=constraint,
-                                g_fallback=g_fallback, baseline=baseline, **options)
+    return refit_cache.fitted(key, fit_measurement_file, text, kind=kind, sidecar=sidecar, model=model,
+                              constraint=constraint, g_fallback=g_fallback, baseline=baseline, **options)
 
 
 # ---- showing a fit ------------------------------------------------------------------------------
 
 
-def _forward(kind: str, model: str, measurement, dense, baseline, n, n_outside):
-    if kind == "srdr":
-        from phantomlab.calibration.fit_srdr import srdr_forward
-
-        return srdr_forward(model=model, rho_mm=dense, n=n, n_outside=n_outside, baseline=baseline)
-    from phantomlab.calibration.fit_sfdi import sfdi_forward
-
-    return sfdi_forward(model=model, fx_per_mm=dense, n=n, n_outside=n_outside, baseline=baseline)
-
-
-def _data_and_model(measurement, result, *, model: str, baseline, shown_wavelengths) -> None:
-    kind = measurement.kind
-    meta = measurement.metadata
-    wavelength = np.asarray(measurement.wavelength_nm, float)
-    index = [int(np.argmin(np.abs(wavelength - w))) for w in shown_wavelengths]
-    if kind in AXIS_LABELS:
-        x_label, y_label = AXIS_LABELS[kind]
-        axis = np.asarray(measurement.axis, float)
-        dense = np.linspace(axis.min(), axis.max(), 80)
-        n = meta.n if meta.n is not None else 1.33
-        forward = _forward(kind, model, measurement, dense, baseline, n, meta.n_outside or 1.0)
-        curves = np.asarray(forward(result.mua_per_mm[index], result.musp_per_mm[index]), float)
-        if result.scale_factor is not None:
-            curves = curves * np.asarray(result.scale_factor, float)[index][:, None]
-        series, rows = [], []
-        for row, i in enumerate(index):
-            data = measurement.values[i]
-            sd = None if measurement.sd is None else measurement.sd[i]
-            colour = COLOURS[row % len(COLOURS)]
-            series.append(Series(f"data {wavelength[i]:g} nm", axis, data, sd=sd, mode="markers", colour=colour))
-            series.append(Series(f"model {wavelength[i]:g} nm", dense, curves[row], dash="dot", colour=colour))
-            for a, d in zip(axis, data):
-                rows.append({"wavelength_nm": wavelength[i], "axis": a, "data": d})
-        figure = line_figure(series, x_label=x_label, y_label=y_label, log_y=kind == "srdr",
-                             title="Data and fitted model", height=380)
-        residual_series = [Series(f"{wavelength[i]:g} nm", axis, result.residuals[i], mode="lines+markers",
-                                  colour=COLOURS[row % len(COLOURS)]) for row, i in enumerate(index)]
-        residual_x = x_label
-    elif kind in ("slab", "sphere"):
-        figure, rows, residual_series = _slab_figures(result, wavelength)
-        residual_x = "wavelength [nm]"
-    else:
+def _show_data_and_model(charts) -> None:
+    """Data + model beside the normalised residuals (built once per fit: ``refit_figures``)."""
+    if charts is None:
         st.caption("Optics measured by another instrument: the fit takes them as they are.")
         return
+    data, residuals = charts
     left, right = st.columns([3, 2])
     with left:
-        show_figure(figure, table=pd.DataFrame(rows), file_stem="fit-data-and-model", key="refit.data")
+        show_chart(data)
     with right:
-        residual_figure = line_figure(residual_series, x_label=residual_x,
-                                      y_label="(model − data) / SD [dimensionless]",
-                                      title="Normalised residuals", height=380)
-        residual_figure.add_hline(y=0, line_color="#4b4b4b")
-        table = pd.DataFrame({"wavelength_nm": np.repeat(wavelength, np.asarray(result.residuals).size // wavelength.size),
-                              "residual": np.asarray(result.residuals, float).ravel()})
-        show_figure(residual_figure, table=table, file_stem="fit-residuals", key="refit.residuals")
+        show_chart(residuals)
 
 
-def _slab_figures(result, wavelength):
-    """R, T (and Tc) measured (sphere: derived from the readings) against the fitted model."""
-    extras = result.extras
-    names = [("total_reflectance", "R"), ("total_transmittance", "T")]
-    if "collimated_transmittance" in extras:
-        names.append(("collimated_transmittance", "Tc"))
-    series, rows = [], {"wavelength_nm": wavelength}
-    for k, (key, short) in enumerate(names):
-        colour = COLOURS[k % len(COLOURS)]
-        measured = np.asarray(extras[key], float)
-        sd = np.asarray(extras.get(f"{key}_sd", np.zeros_like(measured)), float)
-        model = np.asarray(extras[f"model_{key}"], float)
-        series.append(Series(f"{short} measured", wavelength, measured, sd=np.nan_to_num(sd), mode="markers",
-                             colour=colour))
-        series.append(Series(f"{short} model", wavelength, model, dash="dot", colour=colour))
-        rows.update({f"{key}_measured": measured, f"{key}_sd": sd, f"{key}_model": model})
-    figure = line_figure(series, x_label="wavelength [nm]", y_label="R, T, Tc [dimensionless]",
-                         log_y="collimated_transmittance" in extras,
-                         title="Measured and fitted reflectance and transmittance", height=380)
-    residuals = np.asarray(result.residuals, float).reshape(wavelength.size, -1)
-    labels = ["M_R", "M_T", "M_Tc"] if result.kind == "sphere" else ["R", "T", "Tc"]
-    residual_series = [Series(labels[j], wavelength, residuals[:, j], mode="lines+markers")
-                       for j in range(residuals.shape[1])]
-    return figure, pd.DataFrame(rows).to_dict("records"), residual_series
-
-
-def _anisotropy(result) -> None:
-    """g fitted from the collimated transmittance with its SD, or the g assumed."""
-    extras = result.extras
-    if "g_fitted" not in extras:
-        return
-    wavelength = np.asarray(result.wavelength_nm, float)
-    g = np.asarray(extras["g"], float)
-    if not extras["g_fitted"]:
-        st.caption(f"g = {result.parameters['g']['value']:g} was given (assumed, not fitted); a collimated "
-                   f"transmittance would let the fit return it.")
-        return
-    sd = np.asarray(extras["g_sd"], float)
-    figure = line_figure([Series("fitted g", wavelength, g, sd=np.where(np.isfinite(sd), sd, 0.0),
-                                 mode="lines+markers")],
-                         x_label="wavelength [nm]", y_label="g [dimensionless]",
-                         title="Anisotropy g from the collimated transmittance")
-    show_figure(figure, table=pd.DataFrame({"wavelength_nm": wavelength, "g": g, "g_sd": sd}),
-                file_stem="fitted-g", key="refit.fitted.g")
-
-
-def _against_target(result, target: dict | None) -> None:
-    wavelength = np.asarray(result.wavelength_nm, float)
-    columns = st.columns(2)
-    rows = {"wavelength_nm": wavelength}
-    for column, quantity, symbol in ((columns[0], "mua", "μa"), (columns[1], "musp", "μs′")):
-        value = np.asarray(getattr(result, f"{quantity}_per_mm"), float)
-        sd = np.asarray(getattr(result, f"{quantity}_sd_per_mm"), float)
-        rows[f"fitted_{quantity}_per_mm"] = value
-        rows[f"fitted_{quantity}_sd_per_mm"] = sd
-        series = [Series(f"fitted {symbol}", wavelength, value, sd=np.where(np.isfinite(sd), sd, 0.0),
-                         mode="lines+markers")]
-        if target:
-            wanted = np.asarray([np.nan if v is None else v for v in target.get(f"{quantity}_per_mm", [])], float)
-            if wanted.size and np.any(np.isfinite(wanted)):
-                has = np.isfinite(wanted)
-                series.append(target_series(f"target {symbol}", np.asarray(target["wavelength_nm"], float)[has],
-                                     wanted[has]))
-        figure = line_figure(series, x_label="wavelength [nm]", y_label=f"{symbol} [1/mm]",
-                             title=f"Fitted {symbol} against target")
+def _show_result(charts: dict) -> None:
+    """Fitted μa and μs′ against the target, and g when the fit returned it."""
+    for column, chart in zip(st.columns(2), charts["fitted"]):
         with column:
-            show_figure(figure, table=pd.DataFrame(rows), file_stem=f"fitted-{quantity}", key=f"refit.fitted.{quantity}")
+            show_chart(chart)
+    if charts["g_note"]:
+        st.caption(charts["g_note"])
+    if charts["g"] is not None:
+        show_chart(charts["g"])
 
 
 def _fit_section(workspace: Workspace, store) -> None:
@@ -406,8 +295,14 @@ def _fit_section(workspace: Workspace, store) -> None:
             model, options["g"] = None, float(g)  # the default fit reads the cached file (it may fall back, said)
         else:
             baseline = cached.baseline
+    # the baseline files' state (the per-user cache and the page's folder), and the file chosen
+    # for a td/fd fit with a baseline of its own (a folder may hold several)
+    baselines = (refit_cache.baseline_files(None, _baseline_folder(workspace)),
+                 st.session_state.get("refit.baseline") if given_baseline is not None else None)
+    key = refit_cache.fit_key(text, kind=kind, sidecar=sidecar, model=model, options=options, g_fallback=g_fallback,
+                              power_law=power_law, baselines=baselines)
     with st.spinner("Fitting…"):
-        fitted = call_layer("Fitting the measurement", _fit, text, kind, sidecar, model, options, g_fallback,
+        fitted = call_layer("Fitting the measurement", _fit, key, text, kind, sidecar, model, options, g_fallback,
                             bool(power_law), given_baseline, show=False)
     if not fitted.ok:
         st.error(plain(fitted.error))
@@ -440,9 +335,9 @@ def _fit_section(workspace: Workspace, store) -> None:
         shown = st.multiselect("Wavelengths to show [nm]", wavelengths, default=default,
                                key=f"refit.shown.{picked}", format_func=lambda w: f"{w:g} nm")
         if shown:
-            _data_and_model(measurement, result, model=model, baseline=baseline, shown_wavelengths=shown)
-    _against_target(result, target)
-    _anisotropy(result)
+            _show_data_and_model(data_charts(key, shown, measurement=measurement, result=result, model=model,
+                                             baseline=baseline))
+    _show_result(result_charts(key, target, result=result))
     if measurement_row is not None:
         if st.button("Keep this fit in the batch log", key="refit.keep"):
             from phantomlab.ui.recording import keep_fit

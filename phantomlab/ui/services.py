@@ -8,6 +8,7 @@ potencies.  Everything computed comes from the layers under the page.
 
 from __future__ import annotations
 
+import datetime as _dt
 import json
 import tempfile
 import tomllib
@@ -67,19 +68,33 @@ def page_document(workspace: Workspace, store) -> tuple[dict, dict[str, str]]:
     return document, origin
 
 
-@st.cache_resource(show_spinner=False, max_entries=8)
-def _parse_shelf_cached(document_json: str, base: str, path: str):
-    from phantomlab.materials import parse_shelf  # layer 1
-
-    return parse_shelf(json.loads(document_json), base=Path(base), path=Path(path))
-
-
 def load_page_shelf(workspace: Workspace, store):
-    """The shelf the page designs with (stock file + page additions), and each stock's origin."""
-    document, origin = page_document(workspace, store)
-    text = json.dumps(document, default=str)
-    shelf = _parse_shelf_cached(text, str(workspace.shelf_path.parent), str(workspace.shelf_path))
-    return shelf, origin
+    """The shelf the page designs with (stock file + page additions), and each stock's origin.
+
+    Read once per state of the log (page stocks are stock-lot records) and of the stock
+    file's folder tree (the stock file and the spectrum files it names): an edit of either is
+    read on the next run.
+    """
+    from phantomlab.ui.page_cache import folder_state, log_state, replay
+
+    shelf_path = require_shelf(workspace)
+    return replay(_load_page_shelf(log_state(store), str(shelf_path), folder_state(shelf_path.parent),
+                                   _dt.date.today().isoformat(), workspace, store))
+
+
+@st.cache_resource(show_spinner=False, max_entries=8)
+def _load_page_shelf(log: tuple, shelf_path: str, files: tuple, today: str, _workspace: Workspace, _store):
+    """:func:`load_page_shelf` once per (database and its state, stock file, state of its folder,
+    day: lots expire), with the warnings of reading it (shown again on every run)."""
+    from phantomlab.materials import parse_shelf  # layer 1
+    from phantomlab.ui.page_cache import with_warnings
+
+    def read():
+        document, origin = page_document(_workspace, _store)
+        path = Path(shelf_path)
+        return parse_shelf(json.loads(json.dumps(document, default=str)), base=path.parent, path=path), origin
+
+    return with_warnings(read)
 
 
 def _listing(folder: Path) -> tuple:
