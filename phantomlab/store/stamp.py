@@ -9,6 +9,8 @@ stamp (read in one query per run), so a cached view is rebuilt exactly when the 
 
 from __future__ import annotations
 
+from functools import cache
+
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
@@ -17,17 +19,26 @@ from phantomlab.store.schema import Base
 __all__ = ["log_stamp"]
 
 
-def _stamp_query():
+@cache
+def _stamp_query(tables: tuple[str, ...] | None):
+    """The one SELECT of the stamp (built once per set of tables)."""
     columns = []
     for table in Base.metadata.sorted_tables:
+        if tables is not None and table.name not in tables:
+            continue
         columns.append(select(func.count()).select_from(table).scalar_subquery())
         if "id" in table.c:
             columns.append(select(func.max(table.c.id)).scalar_subquery())
     return select(*columns)
 
 
-def log_stamp(session: Session) -> tuple[int, ...]:
+def log_stamp(session: Session, *, tables: tuple[str, ...] | None = None) -> tuple[int, ...]:
     """Row count and largest id of every table of the batch log, in one query.
+
+    Parameters
+    ----------
+    tables : tuple of str, optional
+        Only these tables (e.g. ``("stock_lots",)`` for what the page's shelf depends on).
 
     Returns
     -------
@@ -35,5 +46,10 @@ def log_stamp(session: Session) -> tuple[int, ...]:
         Equal for two reads exactly when no record was added in between (an empty table
         gives 0 for its largest id).
     """
-    row = session.execute(_stamp_query()).one()
+    if tables is not None:
+        unknown = sorted(set(tables) - set(Base.metadata.tables))
+        if unknown:
+            raise ValueError(f"no table {', '.join(unknown)} in the batch log")
+        tables = tuple(sorted(tables))
+    row = session.execute(_stamp_query(tables)).one()
     return tuple(int(value or 0) for value in row)

@@ -16,7 +16,32 @@ import streamlit as st
 
 from phantomlab.ui.widgets import call_layer
 
-__all__ = ["page_baseline", "describe_inputs"]
+__all__ = ["baseline_files", "page_baseline", "describe_inputs"]
+
+#: Files of a Monte Carlo baseline and its lookup table.
+BASELINE_SUFFIXES = (".npz",)
+
+
+def baseline_files(*folders) -> tuple:
+    """The state of the Monte Carlo baseline files in ``folders`` (None: the per-user cache)."""
+    from phantomlab.calibration.baseline_cache import baseline_folder  # layer 3
+    from phantomlab.ui.page_cache import folder_state
+
+    return tuple(folder_state(baseline_folder(folder) if folder is None else folder, BASELINE_SUFFIXES)
+                 for folder in folders)
+
+
+@st.cache_resource(show_spinner=False, max_entries=8)
+def _found(g: float, n: float, n_outside: float, time_resolved: bool, files: tuple):
+    """The cached baseline if there is one (None: none yet), read once per state of the cache
+    folder (``files``); ``time_resolved``: the td/fd file with its photons."""
+    from phantomlab.calibration.baseline_cache import (baseline_folder, find_cached_baseline, obtain_photon_baseline,
+                                                       time_cache_file_name)
+
+    if time_resolved:
+        path = baseline_folder() / time_cache_file_name(g=g, n=n, n_outside=n_outside)
+        return obtain_photon_baseline(g=g, n=n, n_outside=n_outside) if path.is_file() else None
+    return find_cached_baseline(g=g, n=n, n_outside=n_outside)
 
 
 def _stop(key: str) -> None:
@@ -38,20 +63,13 @@ def page_baseline(*, g: float, n: float, n_outside: float, key: str, offer_rebui
         None when the user has to act first (a refused file, a stopped build) or the build failed;
         the page says which.
     """
-    from phantomlab.calibration.baseline_cache import (CachedBaselineError, find_cached_baseline, obtain_baseline,
-                                                       obtain_photon_baseline)
+    from phantomlab.calibration.baseline_cache import CachedBaselineError, obtain_baseline, obtain_photon_baseline
 
     if time_resolved:
-        from phantomlab.calibration.baseline_cache import baseline_folder, time_cache_file_name
-
-        def find_cached_baseline(**inputs):
-            path = baseline_folder() / time_cache_file_name(**inputs)
-            return obtain_photon_baseline(**inputs) if path.is_file() else None
-
         obtain_baseline = obtain_photon_baseline  # noqa: F811 (the td/fd file)
     rebuild = False
     try:
-        found = find_cached_baseline(g=g, n=n, n_outside=n_outside)
+        found = _found(float(g), float(n), float(n_outside), bool(time_resolved), baseline_files(None))
     except CachedBaselineError as exc:
         st.error(f"The cached Monte Carlo baseline {exc.path.name} cannot be used: {exc.reason}.")
         if not offer_rebuild:

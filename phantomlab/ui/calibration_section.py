@@ -15,13 +15,16 @@ runs (``recalibrate`` / ``--apply``, ``batch exclude|include``, ``calibration li
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 import streamlit as st
 
 from phantomlab.ui import services
 from phantomlab.ui.plain_text import plain
-from phantomlab.ui.plots import Series, line_figure, show_figure
+from phantomlab.ui.page_cache import cached_on, log_state
+from phantomlab.ui.plots import Chart, Series, line_figure, show_chart
 from phantomlab.ui.widgets import call_layer, show_warnings
 from phantomlab.ui.workspace import Workspace
 
@@ -74,6 +77,11 @@ def preview_table(payload: dict) -> pd.DataFrame:
             "moved by (batch: shift, z left out)": "; ".join(moved) or "no batch informs it",
         })
     return pd.DataFrame(rows)
+
+
+def _log_key(store) -> str:
+    """The state of the log as a cache key (:func:`phantomlab.ui.page_cache.log_state`)."""
+    return json.dumps(log_state(store), default=str)
 
 
 def _log_choices(store) -> list[dict]:
@@ -161,7 +169,8 @@ def _exclusions(store) -> None:
     c2.selectbox("What", options, key="calibrate.exclude_what")
     c3.text_input("Why (kept in the history)", key="calibrate.exclude_reason")
     st.button("Leave it out of the calibration", key="calibrate.exclude", on_click=_exclude, args=(store, None))
-    in_force = call_layer("Reading the exclusions", exclusions_in_force, store, show=False).value or []
+    in_force = call_layer("Reading the exclusions", cached_on, _log_key(store), "exclusions", exclusions_in_force,
+                          store, show=False).value or []
     if in_force:
         st.markdown("**Left out now**")
         st.dataframe(pd.DataFrame([{"batch": e["batch_id"], "measurement": e["measurement_id"] or "whole batch",
@@ -177,14 +186,13 @@ def _exclusions(store) -> None:
                   args=(store, in_force, labels))
 
 
-def _history_plot(states: list[dict], shelf) -> None:
+def _history_chart(states: list[dict], shelf) -> Chart | None:
     """Each stock lot's potency from its stock-file prior (0) through every calibration state."""
     rows = [{"calibration": n, "state": s["state_id"], "recorded at (UTC)": s["recorded_at"],
              "stock": p["stock"], "lot": p["lot"] or "", "potency": p["potency"], "potency_sd": p["potency_sd"]}
             for n, s in enumerate(states, start=1) for p in s["potencies"]]
     if not rows:
-        st.caption("No calibration recorded yet.")
-        return
+        return None
     frame = pd.DataFrame(rows)
     series = []
     for (stock, lot), group in frame.groupby(["stock", "lot"]):
@@ -201,7 +209,7 @@ def _history_plot(states: list[dict], shelf) -> None:
     count = len(states)
     figure.update_xaxes(tickvals=list(range(count + 1)),
                         ticktext=["stock file"] + [f"state {s['state_id']}" for s in states])
-    show_figure(figure, table=frame, file_stem="potency-history", key="calibrate.history")
+    return Chart(figure, frame, "potency-history", "calibrate.history")
 
 
 def _use(store) -> None:
@@ -218,10 +226,16 @@ def _history(workspace: Workspace, store) -> None:
     from phantomlab.recalibration import calibration_list
 
     st.markdown("**Recorded calibrations**")
-    found = call_layer("Reading the calibrations", calibration_list, store)
+    key = _log_key(store)
+    found = call_layer("Reading the calibrations", cached_on, key, "calibrations", calibration_list, store)
     states = found.value or []
     shelf = call_layer("Reading the shelf", services.load_page_shelf, workspace, store, show=False).value
-    _history_plot(states, shelf[0] if shelf else None)
+    chart = cached_on(json.dumps([key, services.shelf_state(workspace, store) if shelf else None], default=str),
+                      "history chart", _history_chart, states, shelf[0] if shelf else None)
+    if chart is None:
+        st.caption("No calibration recorded yet.")
+    else:
+        show_chart(chart)
     if not states:
         return
     st.dataframe(pd.DataFrame([{

@@ -17,8 +17,9 @@ import streamlit as st
 
 from phantomlab.ui import services
 from phantomlab.ui.calibration_section import recalibrate_section
+from phantomlab.ui.page_cache import cached_on
 from phantomlab.ui.plain_text import plain
-from phantomlab.ui.plots import Series, line_figure, show_figure, target_series
+from phantomlab.ui.plots import Chart, Series, line_figure, show_chart, target_series
 from phantomlab.ui.widgets import call_layer, quantity_field, show_warnings
 from phantomlab.ui.workspace import Workspace
 
@@ -26,6 +27,28 @@ __all__ = ["recalibrate_section", "correction_section"]
 
 
 # ---- correction -------------------------------------------------------------------------------------
+
+
+def correction_key(workspace: Workspace, store, batch: dict) -> str:
+    """Everything the corrected plan of ``batch`` depends on, as one string.
+
+    The state of the log (the batch's snapshots, the calibration, page stocks), the stock
+    file's folder (the shelf of today), the folder of the batch's recipe (a target spectrum
+    it names) and the day (lots expire): the plan, its figures and sheet are computed once
+    per key (``st.cache_resource``) and again after any change.
+    """
+    import datetime as _dt
+    import json
+    from pathlib import Path
+
+    from phantomlab.ui.page_cache import folder_state, log_state
+
+    shelf = workspace.shelf_path
+    source = batch.get("recipe_source")
+    recipe_folder = Path(source).parent if source else workspace.recipes_folder
+    return json.dumps([log_state(store), batch["code"], str(shelf) if shelf else None,
+                       folder_state(shelf.parent) if shelf else (), folder_state(recipe_folder),
+                       _dt.date.today().isoformat()], default=str)
 
 
 def _next_recipe(workspace: Workspace, store, code: str):
@@ -74,28 +97,35 @@ def _describe(source) -> str:
     return describe_potencies_from(source)
 
 
-def _verdict(plan) -> None:
-    """The predicted next batch against the recipe's tolerances, by the one verdict rule."""
+def _judged(plan) -> tuple[str, str, pd.DataFrame]:
+    """(outcome, its line, the table per quantity and wavelength) of the predicted next batch."""
     from phantomlab.calibration.verdict import judge
     from phantomlab.jsonable import to_jsonable
 
     plan_json = to_jsonable(plan.to_json())
     verdict = judge(target=plan_json["target"], values=plan_json["predicted"])
-    heading = {"PASS": st.success, "FAIL": st.error, "UNDECIDED": st.warning}.get(verdict.outcome, st.info)
-    heading("Predicted next batch: " + verdict.lines(what="predicted")[-1])
     rows = [{"quantity": r["quantity"].replace("musp", "μs′").replace("mua", "μa"), "λ [nm]": r["wavelength_nm"],
              "predicted vs target [%]": r["deviation_percent"], "± SD [%]": r["sd_percent"],
              "tolerance [±%]": r["tolerance_percent"], "verdict": r["outcome"] or "–"} for r in verdict.rows]
-    st.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch",
+    return verdict.outcome, verdict.lines(what="predicted")[-1], pd.DataFrame(rows)
+
+
+def _verdict(judged: tuple[str, str, pd.DataFrame]) -> None:
+    """The predicted next batch against the recipe's tolerances, by the one verdict rule."""
+    outcome, line, table = judged
+    heading = {"PASS": st.success, "FAIL": st.error, "UNDECIDED": st.warning}.get(outcome, st.info)
+    heading("Predicted next batch: " + line)
+    st.dataframe(table, hide_index=True, width="stretch",
                  column_config={"predicted vs target [%]": st.column_config.NumberColumn(format="%+.1f"),
                                 "± SD [%]": st.column_config.NumberColumn(format="%.1f")})
 
 
-def _plan_plots(plan) -> None:
+def _plan_charts(plan) -> list:
+    """The next batch's predicted μa and μs′ against the target, as charts."""
     target = plan.target
     predicted = plan.curve if plan.curve is not None else plan.predicted
-    columns = st.columns(2)
-    for column, quantity, symbol in ((columns[0], "mua", "μa"), (columns[1], "musp", "μs′")):
+    charts = []
+    for quantity, symbol in (("mua", "μa"), ("musp", "μs′")):
         wanted = getattr(target, f"{quantity}_per_mm")
         has = np.isfinite(wanted)
         series = [Series(f"next batch {symbol}", predicted.wavelength_nm, getattr(predicted, f"{quantity}_per_mm"),
@@ -107,11 +137,11 @@ def _plan_plots(plan) -> None:
         table = pd.DataFrame({"wavelength_nm": predicted.wavelength_nm,
                               f"{quantity}_per_mm": getattr(predicted, f"{quantity}_per_mm"),
                               f"{quantity}_sd_per_mm": getattr(predicted, f"{quantity}_sd_per_mm")})
-        with column:
-            show_figure(figure, table=table, file_stem=f"next-batch-{quantity}", key=f"correct.{quantity}")
+        charts.append(Chart(figure, table, f"next-batch-{quantity}", f"correct.{quantity}"))
+    return charts
 
 
-def _top_up_section(workspace: Workspace, store, batch: dict, recipe) -> None:
+def _top_up_section(workspace: Workspace, store, batch: dict, recipe, key: str) -> None:
     from phantomlab.workflows import top_up_batch
 
     st.markdown("**Add-only top-up of this batch** (liquid batches still on the bench)")
@@ -129,8 +159,8 @@ def _top_up_section(workspace: Workspace, store, batch: dict, recipe) -> None:
                           key=f"correct.topup_room.{batch['code']}", minimum=0.0, container=c2)
     if volume is None or room is None:
         return
-    outcome = call_layer("Planning the top-up", top_up_batch, store, batch["code"], recipe,
-                         current_volume_ml=volume, max_added_ml=room, show=False)
+    outcome = call_layer("Planning the top-up", cached_on, key, f"top-up {volume!r} {room!r}", top_up_batch, store,
+                         batch["code"], recipe, current_volume_ml=volume, max_added_ml=room, show=False)
     if not outcome.ok:
         st.error(plain(outcome.error))
         return
@@ -168,7 +198,8 @@ def correction_section(workspace: Workspace, store) -> None:
     code = st.selectbox("From batch", codes, index=len(codes) - 1, key="correct.batch",
                         format_func=lambda c: f"{c} · {next(b['recipe'] for b in batches if b['code'] == c)}")
     batch = next(b for b in batches if b["code"] == code)
-    found = call_layer("Rebuilding the recipe", _next_recipe, workspace, store, code)
+    key = correction_key(workspace, store, batch)
+    found = call_layer("Rebuilding the recipe", cached_on, key, "recipe", _next_recipe, workspace, store, code)
     if not found.ok:
         return
     recipe, potencies, origin, missing = found.value
@@ -184,20 +215,27 @@ def correction_section(workspace: Workspace, store) -> None:
         from phantomlab.workflows import next_batch_plan
 
         with st.spinner("Solving the corrected plan…"):
-            solved = call_layer("Solving the corrected plan", next_batch_plan, store, recipe)
+            solved = call_layer("Solving the corrected plan", cached_on, key, "plan", next_batch_plan, store, recipe)
         if solved.ok:
             plan, potencies = solved.value
             for limit in plan.binding_limits:
                 st.error(f"The target cannot be met: {plain(limit.message)}")
-            source = call_layer("Reading the calibration state", _potencies_from, store, recipe, potencies,
-                                show=False).value
-            st.caption(plain(f"Corrects batch {code}; {_describe(source)}."))
-            st.dataframe(_dose_comparison(batch["plan"], plan), hide_index=True, width="stretch")
-            _verdict(plan)
-            _plan_plots(plan)
+            source = call_layer("Reading the calibration state", cached_on, key, "source", _potencies_from, store,
+                                recipe, potencies, show=False).value
+            described = _describe(source)
+            st.caption(plain(f"Corrects batch {code}; {described}."))
+            shown = cached_on(key, "shown", lambda: {
+                "doses": _dose_comparison(batch["plan"], plan), "verdict": _judged(plan),
+                "charts": _plan_charts(plan), "amounts": doses_table(plan)})
+            st.dataframe(shown["doses"], hide_index=True, width="stretch")
+            _verdict(shown["verdict"])
+            for column, chart in zip(st.columns(2), shown["charts"]):
+                with column:
+                    show_chart(chart)
             with st.expander("Full amounts of the next batch"):
-                st.dataframe(doses_table(plan), hide_index=True, width="stretch")
-            sheet_downloads(plan, batch_id=None, key="correct.sheet", note=f"Corrects batch {code}; {_describe(source)}")
+                st.dataframe(shown["amounts"], hide_index=True, width="stretch")
+            sheet_downloads(plan, batch_id=None, key="correct.sheet", note=f"Corrects batch {code}; {described}",
+                            cache_key=key)
             if st.button("Save the corrected plan as a new batch", type="primary", key="correct.save"):
                 saved = call_layer("Saving the batch", record_planned_batch, store, plan, origin=origin,
                                    notes=f"corrected after batch {code}", corrects=code)
@@ -209,4 +247,4 @@ def correction_section(workspace: Workspace, store) -> None:
                 st.success(f"Saved as batch **{done['code']}** (status: planned).")
                 saved_sheet_downloads(done, key="correct.saved_sheet")
     with topup_tab:
-        _top_up_section(workspace, store, batch, recipe)
+        _top_up_section(workspace, store, batch, recipe, key)

@@ -211,10 +211,15 @@ def show(workspace: Workspace) -> None:
     elif started != NEW_RECIPE:
         definition["version"] = f"{definition['version']}, edited on the page"
     token = json.dumps(services.plain(definition), sort_keys=True)
+    # the shelf as read (page stocks, stock file, its spectra, the day) and the recipe's folder
+    # (a target spectrum file): a change to either solves again
+    from phantomlab.ui.page_cache import folder_state
+
+    inputs = json.dumps([services.shelf_state(workspace, store), folder_state(base_dir)], default=str)
     with st.spinner("Solving the doses…"):
         solved = call_layer(
             "Solving the recipe", _solved, token, str(base_dir), source, shelf,
-            str(id(shelf)), json.dumps(potencies, sort_keys=True), show=False,
+            inputs, json.dumps(potencies, sort_keys=True), show=False,
         )
     if not solved.ok:
         st.error(plain(solved.error))
@@ -231,7 +236,7 @@ def show(workspace: Workspace) -> None:
     for label, key in (("μa", "mua_met"), ("μs′", "musp_met")) + ((("g", "g_met"),) if plan.target.has_g else ()):
         summary.append(f"{label} {'within' if met.get(key) else 'outside'} tolerance")
     st.markdown(" · ".join(summary) + f" · batch {plan.batch_volume_ml:.4g} mL, {plan.batch_mass_g:.4g} g")
-    solve_key = json.dumps([token, str(base_dir), source, potencies], sort_keys=True, default=str)
+    solve_key = json.dumps([token, str(base_dir), source, potencies, inputs], sort_keys=True, default=str)
     charts = plan_charts(solve_key, plan)  # built once per solve
     for column, chart in zip(st.columns(2), charts["spectra"]):
         with column:
@@ -253,7 +258,7 @@ def show(workspace: Workspace) -> None:
     show_cautions(used, preparation_kind=plan.recipe.preparation.kind, recipe=plan.recipe)
 
     st.subheader("Mixing sheet")
-    sheet_downloads(plan, batch_id=None, key="design.sheet")
+    sheet_downloads(plan, batch_id=None, key="design.sheet", cache_key=solve_key)
     _sheet_preview(plan)
     _recipe_download(definition, source)
     _save_batch(workspace, store, plan, origin, definition=definition, base_dir=base_dir,

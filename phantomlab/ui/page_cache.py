@@ -25,9 +25,11 @@ import warnings
 from pathlib import Path
 from typing import Any, Callable
 
+import streamlit as st
+
 from phantomlab.errors import PhantomlabWarning
 
-__all__ = ["MAX_FOLDER_FILES", "content_key", "folder_state", "log_state", "replay", "with_warnings"]
+__all__ = ["MAX_FOLDER_FILES", "cached_on", "content_key", "folder_state", "log_state", "replay", "with_warnings"]
 
 #: The most data files :func:`folder_state` lists [count]; a bigger tree is never cached.
 MAX_FOLDER_FILES = 2000
@@ -36,12 +38,13 @@ MAX_FOLDER_DEPTH = 4
 DATA_SUFFIXES = (".toml", ".csv")
 
 
-def log_state(store) -> tuple:
-    """``(database URL, stamp of the log)``: equal on two runs exactly when nothing was recorded."""
+def log_state(store, tables: tuple[str, ...] | None = None) -> tuple:
+    """``(database URL, stamp of the log)``: equal on two runs exactly when nothing was recorded
+    (in ``tables`` only, when given)."""
     from phantomlab.store import log_stamp  # layer 4
 
     with store.reading() as session:
-        return store.url, log_stamp(session)
+        return store.url, log_stamp(session, tables=tables)
 
 
 def folder_state(folder: Path | str | None, suffixes: tuple[str, ...] = DATA_SUFFIXES) -> tuple:
@@ -104,3 +107,17 @@ def replay(kept: tuple[Any, tuple]) -> Any:
     for message, category in caught:
         warnings.warn(message, category, stacklevel=2)
     return value
+
+
+def cached_on(key: str, step: str, function: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:
+    """``function(*args, **kwargs)`` once per ``(key, step)``, its warnings raised again on every run.
+
+    ``key`` must name everything the call depends on (built from the stamps above); ``step``
+    names the call.  A call that raises is not kept (a refusal is tried again next run).
+    """
+    return replay(_cached_step(key, step, function, args, kwargs))
+
+
+@st.cache_resource(show_spinner=False, max_entries=64)
+def _cached_step(key: str, step: str, _function, _args: tuple, _kwargs: dict):
+    return with_warnings(_function, *_args, **_kwargs)

@@ -82,16 +82,28 @@ def draft_sheet_stem(plan, *, day=None) -> str:
     return f"sheet-{name_slug(plan.recipe.name)}-{(day or _dt.date.today()).isoformat()}"
 
 
-def sheet_downloads(plan, *, batch_id: str | None, key: str, note: str | None = None) -> None:
+def sheet_downloads(plan, *, batch_id: str | None, key: str, note: str | None = None,
+                    cache_key: str | None = None) -> None:
     """HTML and CSV downloads of the plan's sheet; ``note`` is boxed under its heading (e.g. the
-    batch a corrected plan corrects and the calibration state it uses)."""
+    batch a corrected plan corrects and the calibration state it uses).
+
+    ``cache_key``: a key that names the plan (its solve's inputs); the sheet is then rendered
+    once per (key, batch ID, note), not on every run.
+    """
     from phantomlab.recipe.sheet import render_sheet_csv, render_sheet_html  # layer 3
 
     stem = f"sheet-{batch_id}" if batch_id else draft_sheet_stem(plan)
-    html = call_layer("Rendering the sheet", render_sheet_html, plan, batch_id=batch_id,
-                      draft=batch_id is None, note=note)
-    csv = call_layer("Rendering the sheet CSV", render_sheet_csv, plan, batch_id=batch_id,
-                     draft=batch_id is None)
+    if cache_key is None:
+        html = call_layer("Rendering the sheet", render_sheet_html, plan, batch_id=batch_id,
+                          draft=batch_id is None, note=note)
+        csv = call_layer("Rendering the sheet CSV", render_sheet_csv, plan, batch_id=batch_id,
+                         draft=batch_id is None)
+    else:
+        import datetime as _dt
+
+        today = _dt.date.today().isoformat()  # the sheet is dated and checks expiry against the day
+        html = call_layer("Rendering the sheet", _rendered, cache_key, "html", batch_id, note, today, plan)
+        csv = call_layer("Rendering the sheet CSV", _rendered, cache_key, "csv", batch_id, None, today, plan)
     left, right = st.columns(2)
     if html.ok:
         left.download_button(
@@ -107,6 +119,16 @@ def sheet_downloads(plan, *, batch_id: str | None, key: str, note: str | None = 
             data=csv.value.encode("utf-8"), file_name=f"{stem}.csv", mime="text/csv",
             key=f"{key}.csv", on_click="ignore",
         )
+
+
+@st.cache_data(show_spinner=False, max_entries=16)
+def _rendered(cache_key: str, kind: str, batch_id: str | None, note: str | None, today: str, _plan) -> str:
+    """The sheet of the plan named by ``cache_key`` (``kind``: html or csv), rendered once a day."""
+    from phantomlab.recipe.sheet import render_sheet_csv, render_sheet_html  # layer 3
+
+    if kind == "html":
+        return render_sheet_html(_plan, batch_id=batch_id, draft=batch_id is None, note=note)
+    return render_sheet_csv(_plan, batch_id=batch_id, draft=batch_id is None)
 
 
 def saved_sheet_downloads(saved: dict, *, key: str) -> None:

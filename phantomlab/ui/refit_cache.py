@@ -19,13 +19,10 @@ import json
 import numpy as np
 import streamlit as st
 
-from phantomlab.ui.page_cache import content_key, folder_state, log_state, replay, with_warnings
+from phantomlab.ui.baseline_build import baseline_files
+from phantomlab.ui.page_cache import content_key, log_state, replay, with_warnings
 
 __all__ = ["baseline_files", "fit_key", "fitted", "measurement_read", "stored_file", "batch_g"]
-
-#: Files of a Monte Carlo baseline and its lookup table.
-BASELINE_SUFFIXES = (".npz",)
-
 
 def stored_file(store, measurement_id: int) -> tuple[bytes, str | None]:
     """The stored measurement file and its sidecar text, read once per state of the log."""
@@ -56,14 +53,6 @@ def _measurement_read(key: str, _text: str, _sidecar: dict, _options: dict, kind
     from phantomlab.calibration import read_measurement  # layer 3
 
     return with_warnings(read_measurement, _text, kind=kind, sidecar=_sidecar, **_options)
-
-
-def baseline_files(*folders) -> tuple:
-    """The state of the Monte Carlo baseline files in ``folders`` (None: the per-user cache)."""
-    from phantomlab.calibration.baseline_cache import baseline_folder  # layer 3
-
-    return tuple(folder_state(baseline_folder(folder) if folder is None else folder, BASELINE_SUFFIXES)
-                 for folder in folders)
 
 
 def fit_key(text: str, *, kind: str, sidecar: dict, model: str, options: dict, g_fallback, power_law: bool,

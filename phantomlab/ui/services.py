@@ -25,6 +25,7 @@ __all__ = [
     "store_for",
     "shelf_document",
     "load_page_shelf",
+    "shelf_state",
     "recipe_files",
     "recipe_catalogue",
     "calibrated_potencies",
@@ -75,11 +76,23 @@ def load_page_shelf(workspace: Workspace, store):
     file's folder tree (the stock file and the spectrum files it names): an edit of either is
     read on the next run.
     """
-    from phantomlab.ui.page_cache import folder_state, log_state, replay
+    from phantomlab.ui.page_cache import replay
+
+    return replay(_load_page_shelf(*shelf_state(workspace, store), workspace, store))
+
+
+def shelf_state(workspace: Workspace, store) -> tuple:
+    """What the page's shelf depends on: the stock-lot records of the database (page stocks),
+    the stock file, the state of its folder tree (its spectrum files) and the day (lots expire).
+
+    Equal on two runs exactly when :func:`load_page_shelf` would read the same shelf; what is
+    computed from the shelf is keyed on it.
+    """
+    from phantomlab.ui.page_cache import folder_state, log_state
 
     shelf_path = require_shelf(workspace)
-    return replay(_load_page_shelf(log_state(store), str(shelf_path), folder_state(shelf_path.parent),
-                                   _dt.date.today().isoformat(), workspace, store))
+    return (log_state(store, ("stock_lots",)), str(shelf_path), folder_state(shelf_path.parent),
+            _dt.date.today().isoformat())
 
 
 @st.cache_resource(show_spinner=False, max_entries=8)
