@@ -31,6 +31,10 @@ from phantomlab.ui.workspace import Workspace
 __all__ = ["show"]
 
 TITLE = "Batch log"
+#: The tabs of one batch; only the open one runs. Its label is kept under TAB_KEY, across pages too.
+TABS = ("Amounts dispensed", "Measurements", "Oxygenation series", "History")
+TAB_KEY = "batches.tab"
+KEEP = (TAB_KEY,)
 STATUSES = ("planned", "mixed", "characterised", "retired")
 KINDS = ("srdr", "sfdi", "slab", "sphere", "optics", "td", "fd")
 #: The list of batches: narrow enough for a laptop screen (the notes are with the batch below).
@@ -417,33 +421,42 @@ def _one_batch(workspace: Workspace, store, batch: dict, *, fingerprint: str) ->
                            mime="text/html", key="batches.sheet", on_click="ignore")
     batch_record_download(workspace, batch, fingerprint=fingerprint)
     _status_section(store, batch)
-    amounts, measure, oxygenation, history = st.tabs(
-        ["Amounts dispensed", "Measurements", "Oxygenation series", "History"])
-    with amounts:
-        _amounts_section(workspace, store, batch)
-        _prediction_plot(batch)
-    with measure:
-        if batch["measurements"]:
-            st.dataframe(_measurements_table(batch), hide_index=True, width="stretch")
-        else:
-            st.caption("No measurement attached yet.")
-        _measure_section(workspace, store, batch)
-    with oxygenation:
-        oxygenation_section(workspace, store, batch)
-    with history:
-        st.markdown("**Versions of the batch record**")
-        st.dataframe(read_history(store, batch["code"]), hide_index=True, width="stretch")
-        exclusions = call_layer("Reading the calibration exclusions", read_exclusions, store, batch["code"],
-                                show=False).value
-        if exclusions:
-            st.markdown("**Calibration: left out and taken back** (Fit and correct → Recalibrate)")
-            st.dataframe(pd.DataFrame(exclusions), hide_index=True, width="stretch")
-        fits = [{"measurement": m["id"], "file": m["file_name"], "fit": f["id"], "model": f["model"],
-                 "reduced χ²": number_text(f["chi2_red"], 3), "recorded at (UTC)": moment_text(f["recorded_at"])}
-                for m in batch["measurements"] for f in sorted(m["fits"], key=lambda f: (f["recorded_at"], f["id"]))]
-        if fits:
-            st.markdown("**Measurements and their fits** (the newest fit of each measurement counts)")
-            st.dataframe(pd.DataFrame(fits), hide_index=True, width="stretch")
+    amounts, measure, oxygenation, history = st.tabs(list(TABS), key=TAB_KEY, on_change="rerun")
+    # Lazy tabs: only the open tab's content runs; a tab's fields are drawn anew when it opens.
+    if amounts.open:
+        with amounts:
+            _amounts_section(workspace, store, batch)
+            _prediction_plot(batch)
+    elif measure.open:
+        with measure:
+            if batch["measurements"]:
+                st.dataframe(_measurements_table(batch), hide_index=True, width="stretch")
+            else:
+                st.caption("No measurement attached yet.")
+            _measure_section(workspace, store, batch)
+    elif oxygenation.open:
+        with oxygenation:
+            oxygenation_section(workspace, store, batch)
+    elif history.open:
+        with history:
+            _history_section(store, batch)
+
+
+def _history_section(store, batch: dict) -> None:
+    """The versions of the batch record, its calibration exclusions and its measurements' fits."""
+    st.markdown("**Versions of the batch record**")
+    st.dataframe(read_history(store, batch["code"]), hide_index=True, width="stretch")
+    exclusions = call_layer("Reading the calibration exclusions", read_exclusions, store, batch["code"],
+                            show=False).value
+    if exclusions:
+        st.markdown("**Calibration: left out and taken back** (Fit and correct → Recalibrate)")
+        st.dataframe(pd.DataFrame(exclusions), hide_index=True, width="stretch")
+    fits = [{"measurement": m["id"], "file": m["file_name"], "fit": f["id"], "model": f["model"],
+             "reduced χ²": number_text(f["chi2_red"], 3), "recorded at (UTC)": moment_text(f["recorded_at"])}
+            for m in batch["measurements"] for f in sorted(m["fits"], key=lambda f: (f["recorded_at"], f["id"]))]
+    if fits:
+        st.markdown("**Measurements and their fits** (the newest fit of each measurement counts)")
+        st.dataframe(pd.DataFrame(fits), hide_index=True, width="stretch")
 
 
 def show(workspace: Workspace) -> None:

@@ -43,6 +43,10 @@ __all__ = ["show"]
 
 TITLE = "Fit and correct"
 UPLOAD = "(upload a file, not stored)"
+#: The page's tabs; only the open one runs. Its label is kept under TAB_KEY, across pages too.
+TABS = ("Fit a measurement", "Recalibrate the stocks", "Correct the next batch")
+TAB_KEY = "refit.tab"
+KEEP = (TAB_KEY,)
 
 
 # ---- the measurement to fit -------------------------------------------------------------------
@@ -368,13 +372,18 @@ def show(workspace: Workspace) -> None:
     st.header(TITLE)
     show_light_source_caution()
     store = services.store_for(workspace)
-    fit_tab, calibrate_tab, correct_tab = st.tabs(
-        ["Fit a measurement", "Recalibrate the stocks", "Correct the next batch"])
-    with fit_tab:
-        _fit_section(workspace, store)
-    from phantomlab.ui import correct_section
+    fit_tab, calibrate_tab, correct_tab = st.tabs(list(TABS), key=TAB_KEY, on_change="rerun")
+    # Lazy tabs: only the open tab's content runs; a tab's fields are drawn anew when it opens.
+    if fit_tab.open:
+        with fit_tab:
+            _fit_section(workspace, store)
+    elif calibrate_tab.open:
+        from phantomlab.ui import correct_section
 
-    with calibrate_tab:
-        correct_section.recalibrate_section(workspace, store)
-    with correct_tab:
-        correct_section.correction_section(workspace, store)
+        with calibrate_tab:
+            correct_section.recalibrate_section(workspace, store)
+    elif correct_tab.open:
+        from phantomlab.ui import correct_section
+
+        with correct_tab:
+            correct_section.correction_section(workspace, store)
