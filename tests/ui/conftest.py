@@ -74,6 +74,21 @@ def go_to(app, page_name: str):
     return app
 
 
+def open_tab(app, key: str, label: str):
+    """Open the tab ``label`` of the lazy tabs kept under ``key`` and rerun, as a click on it does.
+
+    Only the open tab's content runs, so a test opens a tab before it uses the tab's fields.
+    AppTest has no click for a tab: the tabs' state is set under their key, as the browser sends it.
+    """
+    shown = [tab.label for tab in app.tabs]
+    assert label in shown, f"no tab {label!r}; shown: {shown}"
+    app.session_state[key] = label
+    app.run()
+    assert not app.exception, [e.message for e in app.exception]
+    assert any(tab.label == label and len(tab.children) > 0 for tab in app.tabs), f"tab {label!r} shows nothing"
+    return app
+
+
 def shown_text(app) -> str:
     """Everything the page shows as text (markdown, captions, alerts, headers, tables)."""
     parts: list[str] = []
@@ -94,6 +109,12 @@ def shown_text(app) -> str:
 def go_to_fixture():
     """The :func:`go_to` helper, as a fixture (test modules are imported by importlib)."""
     return go_to
+
+
+@pytest.fixture(name="open_tab")
+def open_tab_fixture():
+    """The :func:`open_tab` helper, as a fixture."""
+    return open_tab
 
 
 @pytest.fixture(name="shown_text")

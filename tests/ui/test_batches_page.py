@@ -174,7 +174,8 @@ OPTICS_FILE = ("# source: test data, invented\n"
                "800,0.0118,0.88,0.0005,0.03\n850,0.0122,0.84,0.0005,0.03\n")
 
 
-def _attach(app, name: str, content: bytes):
+def _attach(app, open_tab, name: str, content: bytes):
+    open_tab(app, "batches.tab", "Measurements")
     app.selectbox(key="batches.kind").set_value("optics").run()
     app.file_uploader(key="batches.file").set_value((name, content, "text/csv"))
     [b for b in app.get("button") if b.proto.label == "Fit and attach"][0].click()
@@ -182,11 +183,12 @@ def _attach(app, name: str, content: bytes):
     assert not app.exception
 
 
-def test_attaching_a_measurement_keeps_the_file_and_its_fit(page, go_to, planned, demo_file):
+def test_attaching_a_measurement_keeps_the_file_and_its_fit(page, go_to, open_tab, planned, demo_file):
     code, _plan = planned
     app = go_to(page, "Batch log")
-    _attach(app, "probe.csv", OPTICS_FILE.encode())
+    _attach(app, open_tab, "probe.csv", OPTICS_FILE.encode())
     assert any("probe.csv attached" in s.value for s in app.success)
+    open_tab(app, "batches.tab", "History")
     history = [f.value for f in app.dataframe if {"fit", "model", "file"} <= set(f.value.columns)]
     assert history and list(history[0]["file"]) == ["probe.csv"]
     from phantomlab.store import fits_of, get_batch, measurements_of
@@ -202,11 +204,11 @@ def test_attaching_a_measurement_keeps_the_file_and_its_fit(page, go_to, planned
         store.close()
 
 
-def test_a_bad_measurement_file_is_refused_and_nothing_is_stored(page, go_to, planned, demo_file):
+def test_a_bad_measurement_file_is_refused_and_nothing_is_stored(page, go_to, open_tab, planned, demo_file):
     code, _plan = planned
     app = go_to(page, "Batch log")
     bad = OPTICS_FILE.replace("0.0099", "-0.0099").encode()
-    _attach(app, "bad.csv", bad)
+    _attach(app, open_tab, "bad.csv", bad)
     errors = [e.value for e in app.error]
     assert errors and all("\n" not in e for e in errors)
     from phantomlab.store import get_batch, measurements_of
@@ -219,7 +221,7 @@ def test_a_bad_measurement_file_is_refused_and_nothing_is_stored(page, go_to, pl
         store.close()
 
 
-def test_status_moves_forward_and_the_history_keeps_every_version(page, go_to, planned):
+def test_status_moves_forward_and_the_history_keeps_every_version(page, go_to, open_tab, planned):
     code, _plan = planned
     app = go_to(page, "Batch log")
     prefix = f"batches.status.{code}.v1"
@@ -231,6 +233,7 @@ def test_status_moves_forward_and_the_history_keeps_every_version(page, go_to, p
     assert not app.exception
     assert any("is now retired" in s.value and "by T. Ester" in s.value for s in app.success)
     app.multiselect(key="batches.filter_status").set_value(["retired"]).run()
+    open_tab(app, "batches.tab", "History")
     history = [f.value for f in app.dataframe if "change" in f.value.columns][0]
     assert list(history["status"]) == ["planned", "retired"]
     assert history["change"].iloc[-1] == "test: dropped"
@@ -263,10 +266,11 @@ def test_spread_across_batches_and_drift_with_age(page, go_to, downloads, demo_f
     assert set(spread["batches"]) == {2}
 
 
-def test_the_demo_offers_an_invented_measurement_that_attaches_and_fits(page, go_to, planned, downloads):
+def test_the_demo_offers_an_invented_measurement_that_attaches_and_fits(page, go_to, open_tab, planned, downloads):
     code, plan = planned
     app = go_to(page, "Batch log")
     _edit_amounts(app, code, plan, [d.volume_ml for d in plan.doses if d.used])
+    open_tab(app, "batches.tab", "Measurements")
     name, content = downloads.content(app, "Demo only: download an invented probe measurement")
     assert content.decode().startswith("# source: demo data, invented")
     app.selectbox(key="batches.kind").set_value("srdr").run()

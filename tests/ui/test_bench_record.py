@@ -170,7 +170,7 @@ def test_the_form_follows_the_sheet_line_by_line(page, go_to, two_batches):
     assert taken == steps
 
 
-def test_the_page_records_the_whole_sheet_as_batch_actual_does(page, go_to, two_batches, tmp_path, capsys,
+def test_the_page_records_the_whole_sheet_as_batch_actual_does(page, go_to, open_tab, two_batches, tmp_path, capsys,
                                                                 recipe_file, downloads):
     db, by_page, by_cli = two_batches
     app = _open(page, go_to, by_page)
@@ -225,6 +225,7 @@ def test_the_page_records_the_whole_sheet_as_batch_actual_does(page, go_to, two_
         return "\n".join(lines) + "\n"
 
     assert target is not None
+    open_tab(app, "batches.tab", "Measurements")
     app.selectbox(key="batches.kind").set_value("optics").run()
     app.file_uploader(key="batches.file").set_value(("on-target.csv", optics(1.0).encode(), "text/csv"))
     [b for b in app.get("button") if b.proto.label == "Fit and attach"][0].click()

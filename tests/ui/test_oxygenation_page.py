@@ -49,11 +49,12 @@ def _values(data):
     return list(data)
 
 
-def test_series_plot_and_table_on_the_page(page, go_to, recorded):
+def test_series_plot_and_table_on_the_page(page, go_to, open_tab, recorded):
     code, series = recorded
     app = go_to(page, "Batch log")
     app.selectbox(key="batches.open").set_value(code).run()
     assert not app.exception, [e.message for e in app.exception]
+    open_tab(app, "batches.tab", "Oxygenation series")
     charts = {json.loads(c.proto.spec)["layout"]["title"]["text"]: json.loads(c.proto.spec)
               for c in app.get("plotly_chart")}
     assert "Fitted vs reference sO₂ over time" in charts and "Total haemoglobin over time" in charts
@@ -70,18 +71,20 @@ def test_series_plot_and_table_on_the_page(page, go_to, recorded):
     assert np.max(np.abs(table["fitted − reference [%]"])) < 3.0
 
 
-def test_no_series_yet(page, go_to):
+def test_no_series_yet(page, go_to, open_tab):
     app = go_to(page, "Batch log")
     assert not app.exception
+    open_tab(app, "batches.tab", "Oxygenation series")
     assert any("No oxygenation series recorded for this batch yet" in c.value for c in app.caption)
     assert any(b.proto.label == "Unmix and record" for b in app.get("button"))
 
 
-def test_the_demo_oximeter_batch_shows_its_series_on_a_fresh_start(page, go_to):
+def test_the_demo_oximeter_batch_shows_its_series_on_a_fresh_start(page, go_to, open_tab):
     """Batch -001 of a freshly seeded demo database is the oximeter test with its series."""
     app = go_to(page, "Batch log")
     app.selectbox(key="batches.open").set_value(f"{YEAR}-001").run()
     assert not app.exception, [e.message for e in app.exception]
+    open_tab(app, "batches.tab", "Oxygenation series")
     titles = [json.loads(c.proto.spec)["layout"]["title"]["text"] for c in app.get("plotly_chart")]
     assert "Fitted vs reference sO₂ over time" in titles and "Total haemoglobin over time" in titles
     tables = [f.value for f in app.dataframe if "reference sO₂ [%]" in f.value.columns]

@@ -186,7 +186,8 @@ def _stored(demo_file):
         store.close()
 
 
-def test_the_preview_records_nothing_until_confirmed(refit, demo_file):
+def test_the_preview_records_nothing_until_confirmed(refit, open_tab, demo_file):
+    open_tab(refit, "refit.tab", "Recalibrate the stocks")
     table = _preview(refit)
     assert any("nothing is recorded until you confirm" in i.value for i in refit.info)
     assert _stored(demo_file) == {}
@@ -196,9 +197,10 @@ def test_the_preview_records_nothing_until_confirmed(refit, demo_file):
     assert set(_stored(demo_file)) == set(DEMO_TRUE_POTENCIES)
 
 
-def test_exclude_with_a_reason_then_take_back_shows_in_the_batch_history(refit, demo_file, go_to):
+def test_exclude_with_a_reason_then_take_back_shows_in_the_batch_history(refit, demo_file, go_to, open_tab):
     from phantomlab.store import exclusion_history, open_store
 
+    open_tab(refit, "refit.tab", "Recalibrate the stocks")
     refit.selectbox(key="calibrate.exclude_batch").set_value(f"{YEAR}-002")  # the first NIR batch
     refit.text_input(key="calibrate.exclude_reason").input("demo: weighed on the wrong balance")
     refit.button(key="calibrate.exclude").click().run()
@@ -219,12 +221,14 @@ def test_exclude_with_a_reason_then_take_back_shows_in_the_batch_history(refit, 
     assert steps[0]["reason"] == "demo: weighed on the wrong balance"
     batches = go_to(refit, "Batch log")
     batches.selectbox(key="batches.open").set_value(f"{YEAR}-002").run()
+    open_tab(batches, "batches.tab", "History")
     assert any("excluded from calibration" in str(f.value.values) for f in batches.dataframe
                if "event" in f.value.columns)
     assert table is not None
 
 
-def test_rollback_makes_the_earlier_state_current_again(refit, demo_file):
+def test_rollback_makes_the_earlier_state_current_again(refit, open_tab, demo_file):
+    open_tab(refit, "refit.tab", "Recalibrate the stocks")
     _recalibrate(refit)
     first = _stored(demo_file)
     refit.selectbox(key="calibrate.exclude_batch").set_value(f"{YEAR}-002")  # the first NIR batch
@@ -238,7 +242,8 @@ def test_rollback_makes_the_earlier_state_current_again(refit, demo_file):
     assert _stored(demo_file) == first
 
 
-def test_recalibration_shows_before_and_after_and_moves_towards_the_demo_truth(refit, demo_file):
+def test_recalibration_shows_before_and_after_and_moves_towards_the_demo_truth(refit, open_tab, demo_file):
+    open_tab(refit, "refit.tab", "Recalibrate the stocks")
     table = _recalibrate(refit)
     assert any("Calibration recorded" in s.value for s in refit.success)
     assert table.loc["lipid20", "potency now"] == "1.000 ± 0.030"  # the demo shelf's prior
@@ -257,15 +262,18 @@ def test_recalibration_shows_before_and_after_and_moves_towards_the_demo_truth(r
     assert set(stored) == set(DEMO_TRUE_POTENCIES)
 
 
-def test_after_recalibration_the_design_page_plans_with_the_calibrated_potencies(refit, go_to):
+def test_after_recalibration_the_design_page_plans_with_the_calibrated_potencies(refit, go_to, open_tab):
+    open_tab(refit, "refit.tab", "Recalibrate the stocks")
     _recalibrate(refit)
     design = go_to(refit, "Design a phantom")
     doses = [f.value for f in design.dataframe if "potency" in f.value.columns][0]
     assert doses["potency"].str.contains("calibrated").all()
 
 
-def test_corrected_plan_compares_with_the_batch_and_can_be_saved(refit, demo_file):
+def test_corrected_plan_compares_with_the_batch_and_can_be_saved(refit, open_tab, demo_file):
+    open_tab(refit, "refit.tab", "Recalibrate the stocks")
     _recalibrate(refit)
+    open_tab(refit, "refit.tab", "Correct the next batch")
     comparison = [f.value for f in refit.dataframe if "next batch [mL undiluted]" in f.value.columns][0]
     ink = comparison.set_index("stock").loc["ink_black"]
     # the ink came out weaker than its file said (demo truth 0.85): the next batch takes more of it
@@ -275,7 +283,8 @@ def test_corrected_plan_compares_with_the_batch_and_can_be_saved(refit, demo_fil
     assert any(f"{YEAR}-004" in s.value for s in refit.success)
 
 
-def test_top_up_of_a_liquid_batch_lists_what_to_add(refit):
+def test_top_up_of_a_liquid_batch_lists_what_to_add(refit, open_tab):
+    open_tab(refit, "refit.tab", "Correct the next batch")
     tables = [f.value for f in refit.dataframe if "add" in f.value.columns]
     assert tables, "no top-up table"
     additions = tables[0]
@@ -341,3 +350,26 @@ def test_an_uploaded_fd_file_shows_amplitude_and_phase_against_distance(refit):
     assert not refit.exception
     titles = _titles(refit)
     assert "690 nm: amplitude" in titles and "690 nm: phase" in titles
+
+
+def _keys(app, kind):
+    return {w.key for w in app.get(kind)}
+
+
+def test_only_the_open_tab_runs_and_the_chosen_tab_is_kept_across_pages(refit, go_to, open_tab):
+    """Lazy tabs: a first visit runs the fit only; the tab the user chose is open again on return."""
+    assert "refit.measurement" in _keys(refit, "selectbox")
+    assert not {"calibrate.run", "correct.save"} & _keys(refit, "button")  # the hidden tabs did not run
+    open_tab(refit, "refit.tab", "Recalibrate the stocks")
+    assert "calibrate.run" in _keys(refit, "button") and "refit.measurement" not in _keys(refit, "selectbox")
+    log = go_to(refit, "Batch log")
+    open_tab(log, "batches.tab", "History")
+    assert any("change" in f.value.columns for f in log.dataframe)
+    assert not any(b.proto.label == "Fit and attach" for b in log.get("button"))  # Measurements did not run
+    back = go_to(log, "Fit and correct")
+    assert back.session_state["refit.tab"] == "Recalibrate the stocks"
+    assert "calibrate.run" in _keys(back, "button") and "refit.measurement" not in _keys(back, "selectbox")
+    again = go_to(back, "Batch log")
+    again.selectbox(key="batches.open").set_value(f"{YEAR}-001").run()  # another batch: the same tab
+    assert again.session_state["batches.tab"] == "History"
+    assert any("change" in f.value.columns for f in again.dataframe)
