@@ -119,6 +119,16 @@ def _settle(page) -> None:
     page.wait_for_timeout(300)
 
 
+def _open_tab(page, name: str, shows) -> None:
+    """Click the tab ``name`` and wait until ``shows`` (a locator in it) is there.
+
+    Only the open tab's content runs: a tab's content appears after the rerun the click starts.
+    """
+    page.get_by_role("tab", name=name).click()
+    shows.first.wait_for()
+    _settle(page)
+
+
 def _shoot(page, path: Path, *, width: int = 1400, settle_ms: int = 1500) -> None:
     """A screenshot of the whole page: Streamlit scrolls inside its main block, not the window."""
     height = page.evaluate(
@@ -210,7 +220,7 @@ def _check_the_command_line_stores_the_same(url, code, tmp_path) -> None:
 
 def _batch_record(page, code, tmp_path) -> None:
     """The batch record downloads from the batch's page and says PASS or FAIL as the page does."""
-    page.get_by_role("tab", name="Amounts dispensed").click()
+    _open_tab(page, "Amounts dispensed", page.get_by_text("What was dispensed"))
     with page.expect_download() as download_info:
         page.get_by_role("button", name=f"Download the batch record of {code} (HTML)").click()
     download = download_info.value
@@ -333,7 +343,8 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
             _shoot(page, shots / "05-bench-recorded.png")
             _check_the_command_line_stores_the_same(served_page, code, tmp_path)
             bench_seconds = time.monotonic() - started
-            page.get_by_role("tab", name="Measurements").click()
+            _open_tab(page, "Measurements",
+                      page.get_by_role("button", name=re.compile("Demo only: download an invented")))
             with page.expect_download() as download_info:
                 page.get_by_role("button", name=re.compile("Demo only: download an invented")).click()
             measurement = tmp_path / "demo-measurement.csv"
@@ -356,7 +367,7 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
             _shoot(page, shots / "06-Fit-and-correct.png")
 
             # after the measurements, to a corrected next recipe, without the command line
-            page.get_by_role("tab", name="Recalibrate the stocks").click()
+            _open_tab(page, "Recalibrate the stocks", page.get_by_role("button", name="Preview the recalibration"))
             page.get_by_role("button", name="Preview the recalibration").click()
             page.get_by_text("nothing is recorded until you confirm").first.wait_for()
             _settle(page)
@@ -367,9 +378,8 @@ def test_design_a_phantom_and_download_the_sheet(served_page, tmp_path):
             _settle(page)
             _no_exception(page, "after recalibrating")
             _shoot(page, shots / "07-recalibrated.png")
-            page.get_by_role("tab", name="Correct the next batch").click()
-            page.get_by_role("button", name="Save the corrected plan as a new batch").wait_for()
-            _settle(page)
+            _open_tab(page, "Correct the next batch",
+                      page.get_by_role("button", name="Save the corrected plan as a new batch"))
             _no_exception(page, "on the corrected plan")
             _shoot(page, shots / "08-corrected-plan.png")
             with page.expect_download() as download_info:
@@ -415,8 +425,7 @@ def test_record_an_oxygenation_series_and_see_it(served_page, tmp_path):
             page.get_by_text("Batch log", exact=True).first.click()
             page.get_by_role("heading", name="Batch log").first.wait_for()
             _settle(page)
-            page.get_by_role("tab", name="Oxygenation series").click()
-            page.get_by_text("No oxygenation series recorded for this batch yet").first.wait_for()
+            _open_tab(page, "Oxygenation series", page.get_by_text("No oxygenation series recorded for this batch yet"))
             # the uploader states the layers' 10 MB file limit, not Streamlit's own 200 MB
             assert "10MB per file" in page.locator('[data-testid="stFileUploader"]').first.inner_text()
             for label, name in (("Series file", "demo-oximeter-series.csv"),
