@@ -422,19 +422,20 @@ def _one_batch(workspace: Workspace, store, batch: dict, *, fingerprint: str) ->
     batch_record_download(workspace, batch, fingerprint=fingerprint)
     _status_section(store, batch)
     amounts, measure, oxygenation, history = st.tabs(list(TABS), key=TAB_KEY, on_change="rerun")
-    # Lazy tabs: only the open tab's content runs; a tab's fields are drawn anew when it opens.
-    if amounts.open:
-        with amounts:
-            _amounts_section(workspace, store, batch)
+    # Lazy tabs: only the open tab's content runs, except the two forms (the bench record and the
+    # measurement to attach): what is typed or uploaded in a form lives in the browser until it is
+    # sent, so they are drawn whichever tab is open and a look at another tab loses nothing.
+    with amounts:
+        _amounts_section(workspace, store, batch)
+        if amounts.open:
             _prediction_plot(batch)
-    elif measure.open:
-        with measure:
-            if batch["measurements"]:
-                st.dataframe(_measurements_table(batch), hide_index=True, width="stretch")
-            else:
-                st.caption("No measurement attached yet.")
-            _measure_section(workspace, store, batch)
-    elif oxygenation.open:
+    with measure:
+        if batch["measurements"]:
+            st.dataframe(_measurements_table(batch), hide_index=True, width="stretch")
+        else:
+            st.caption("No measurement attached yet.")
+        _measure_section(workspace, store, batch)
+    if oxygenation.open:
         with oxygenation:
             oxygenation_section(workspace, store, batch)
     elif history.open:

@@ -81,6 +81,10 @@ def _keep_widget_state() -> None:
         for key in getattr(module, "KEEP", ()):
             if key in st.session_state:
                 st.session_state[key] = st.session_state[key]
+        prefixes = tuple(getattr(module, "KEEP_PREFIXES", ()))
+        if prefixes:  # fields whose key carries a kind or a measurement ID
+            for key in [k for k in st.session_state if isinstance(k, str) and k.startswith(prefixes)]:
+                st.session_state[key] = st.session_state[key]
 
 
 def main(argv: Sequence[str]) -> None:

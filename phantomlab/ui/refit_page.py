@@ -46,7 +46,11 @@ UPLOAD = "(upload a file, not stored)"
 #: The page's tabs; only the open one runs. Its label is kept under TAB_KEY, across pages too.
 TABS = ("Fit a measurement", "Recalibrate the stocks", "Correct the next batch")
 TAB_KEY = "refit.tab"
-KEEP = (TAB_KEY,)
+#: Fields kept while their tab is closed or another page is shown (never buttons or uploads).
+KEEP = (TAB_KEY, "refit.measurement", "refit.upload_kind", "refit.n", "refit.power_law", "refit.geometry",
+        "refit.td_thickness", "refit.thickness", "refit.fit_g", "refit.g", "refit.td_baseline_file",
+        "refit.baseline", "refit.photons", "refit.baseline_g", "refit.baseline_mus", "refit.baseline_mua")
+KEEP_PREFIXES = ("refit.model.", "refit.mc_g.", "refit.shown.")
 
 
 # ---- the measurement to fit -------------------------------------------------------------------

@@ -306,3 +306,16 @@ def test_a_second_click_on_save_makes_no_second_batch(page, demo_file):
     page.run()
     assert not page.exception
     assert batches() == before + 1
+
+
+def test_the_two_forms_stay_drawn_while_another_tab_is_open(page, go_to, open_tab, two_batches):
+    """The bench record and the measurement to attach are forms whose typed lines and uploads live
+    in the browser until sent: they are drawn whichever tab is open (the other tabs are lazy), so a
+    look at another tab loses nothing."""
+    _, code, _ = two_batches
+    app = _open(page, go_to, code)
+    for label in ("Measurements", "History", "Oxygenation series"):
+        open_tab(app, "batches.tab", label)
+        assert _field(app, code, "cure")  # the bench record, drawn under its hidden tab
+        assert [t for t in app.text_input if t.key == "batches.instrument"]  # the measurement form
+    assert not [d for d in app.dataframe if "event" in d.value.columns]  # History is lazy: closed, not drawn

@@ -365,7 +365,8 @@ def test_only_the_open_tab_runs_and_the_chosen_tab_is_kept_across_pages(refit, g
     log = go_to(refit, "Batch log")
     open_tab(log, "batches.tab", "History")
     assert any("change" in f.value.columns for f in log.dataframe)
-    assert not any(b.proto.label == "Fit and attach" for b in log.get("button"))  # Measurements did not run
+    assert not any(b.proto.label == "Unmix and record" for b in log.get("button"))  # Oxygenation: lazy, closed
+    assert any(b.proto.label == "Fit and attach" for b in log.get("button"))  # the forms are always drawn
     back = go_to(log, "Fit and correct")
     assert back.session_state["refit.tab"] == "Recalibrate the stocks"
     assert "calibrate.run" in _keys(back, "button") and "refit.measurement" not in _keys(back, "selectbox")
@@ -373,3 +374,15 @@ def test_only_the_open_tab_runs_and_the_chosen_tab_is_kept_across_pages(refit, g
     again.selectbox(key="batches.open").set_value(f"{YEAR}-001").run()  # another batch: the same tab
     assert again.session_state["batches.tab"] == "History"
     assert any("change" in f.value.columns for f in again.dataframe)
+
+
+def test_the_fit_fields_keep_their_values_while_another_tab_is_open(refit, open_tab):
+    """Lazy tabs draw only the open tab; the fit tab's fields are kept (KEEP) meanwhile."""
+    refit.selectbox(key="refit.model.srdr").set_value("kienle1997").run()  # a KEEP_PREFIXES key
+    refit.number_input(key="refit.n").set_value(1.41).run()  # a KEEP key
+    assert not refit.exception, [e.message for e in refit.exception]
+    open_tab(refit, "refit.tab", "Recalibrate the stocks")
+    assert not [n for n in refit.number_input if n.key == "refit.n"]  # the fit tab is not drawn
+    open_tab(refit, "refit.tab", "Fit a measurement")
+    assert refit.number_input(key="refit.n").value == 1.41
+    assert refit.selectbox(key="refit.model.srdr").value == "kienle1997"
