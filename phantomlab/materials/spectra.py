@@ -294,34 +294,40 @@ def fit_dilution_series(*, wavelength_nm, stock_volume_fraction, absorbance, pat
             stacklevel=2,
         )
     mu = LN10 * reading / float(path_length_mm)
-    out = {k: np.empty(grid.size) for k in ("c1", "s1", "c2", "s2", "rel")}
-    for i, wl in enumerate(grid):
-        pick = wavelength == wl
-        f = fraction[pick]
-        y = mu[pick]
-        if np.unique(f).size < 3:
-            raise InputError(
-                f"{context}: at {wl:g} nm the series has {np.unique(f).size} distinct dilution(s); "
-                "at least 3 are needed"
-            )
-        # straight line through the origin
-        sff = float(np.sum(f * f))
-        slope = float(np.sum(f * y) / sff)
-        residual = y - slope * f
-        dof = f.size - 1
-        s2 = float(np.sum(residual**2) / dof) if dof > 0 else 0.0
-        out["c1"][i] = slope
-        out["s1"][i] = math.sqrt(s2 / sff)
-        # with the curvature term
-        design = np.column_stack([f, f * f])
-        coef, *_ = np.linalg.lstsq(design, y, rcond=None)
-        residual_q = y - design @ coef
-        dof_q = f.size - 2
-        s2q = float(np.sum(residual_q**2) / dof_q) if dof_q > 0 else 0.0
-        covariance = s2q * np.linalg.inv(design.T @ design)
-        out["c2"][i] = coef[1]
-        out["s2"][i] = math.sqrt(max(covariance[1, 1], 0.0))
-        out["rel"][i] = coef[1] * f.max() / coef[0] if coef[0] != 0 else np.inf
+    # per wavelength, all at once: sums over each wavelength's readings by bincount
+    index = np.searchsorted(grid, wavelength)
+    distinct_per_wavelength = np.bincount(np.unique(np.column_stack([index, fraction]), axis=0)[:, 0].astype(int),
+                                          minlength=grid.size)
+    if np.any(distinct_per_wavelength < 3):
+        i = int(np.argmax(distinct_per_wavelength < 3))
+        raise InputError(
+            f"{context}: at {grid[i]:g} nm the series has {distinct_per_wavelength[i]} distinct dilution(s); "
+            "at least 3 are needed"
+        )
+
+    def total(values):
+        return np.bincount(index, weights=values, minlength=grid.size)
+
+    f, y = fraction, mu
+    count = np.bincount(index, minlength=grid.size).astype(float)
+    s_ff, s_fff, s_ffff = total(f * f), total(f**3), total(f**4)
+    s_fy, s_ffy = total(f * y), total(f * f * y)
+    # straight line through the origin
+    slope = s_fy / s_ff
+    dof = count - 1
+    s2 = total((y - slope[index] * f) ** 2) / dof
+    # with the curvature term: normal equations of y = c0 f + c1 f^2 (2 x 2, solved in closed form)
+    determinant = s_ff * s_ffff - s_fff**2
+    c0 = (s_ffff * s_fy - s_fff * s_ffy) / determinant
+    c1 = (s_ff * s_ffy - s_fff * s_fy) / determinant
+    dof_q = count - 2
+    s2q = total((y - c0[index] * f - c1[index] * f * f) ** 2) / dof_q
+    variance_c1 = s2q * s_ff / determinant  # (A^-1)[1, 1] times the residual variance
+    with np.errstate(divide="ignore", invalid="ignore"):
+        f_max = np.maximum.reduceat(f[np.argsort(index, kind="stable")], np.searchsorted(np.sort(index), np.arange(grid.size)))
+        relative = np.where(c0 != 0, c1 * f_max / c0, np.inf)
+    out = {"c1": slope, "s1": np.sqrt(s2 / s_ff), "c2": c1, "s2": np.sqrt(np.maximum(variance_c1, 0.0)),
+           "rel": relative}
     significant = np.abs(out["c2"]) > 2.0 * out["s2"]
     nonlinear = significant & (np.abs(out["rel"]) > NONLINEARITY_THRESHOLD)
     if np.any(out["c1"] <= 0):

@@ -199,6 +199,24 @@ def _demo_measurement(database_url: str, code: str, version: int) -> str:
     return demo_measurement_csv(_open_store(database_url), code)
 
 
+def _demo_download(workspace: Workspace, batch: dict) -> None:
+    """Demo only: an invented probe file of what was dispensed, to attach with the form above.
+
+    Drawn after the form and only while the Measurements tab is open (inventing it costs a
+    forward model run; the form itself is drawn whichever tab is open)."""
+    if not (workspace.is_demo and batch["actual_amounts"]):
+        return
+    made = call_layer("Inventing a demo measurement", _demo_measurement, workspace.database_url,
+                      batch["code"], batch["version"])
+    if made.ok:
+        st.download_button(
+            "Demo only: download an invented probe measurement of this batch (srdr CSV, n = 1.33)",
+            data=made.value.encode("utf-8"), file_name=f"demo-measurement-{batch['code']}.csv",
+            mime="text/csv", key="batches.demo_measurement", on_click="ignore",
+            help="Synthetic R(ρ) of what was dispensed (invented true potencies, 2 % noise): attach it "
+                 "with the form above to try the loop.")
+
+
 def _measure_section(workspace: Workspace, store, batch: dict) -> None:
     from phantomlab.calibration.fit_file import FIT_MODELS  # layer 3
     from phantomlab.ui.recording import attach_measurement
@@ -214,16 +232,6 @@ def _measure_section(workspace: Workspace, store, batch: dict) -> None:
                              "with their IRF; fd: AC amplitude and phase")
     model = c2.selectbox("Fit model", FIT_MODELS[kind], key=f"batches.model.{kind}")
     c3.caption(f"Columns: `{KIND_HELP[kind]}`")
-    if workspace.is_demo and batch["actual_amounts"]:
-        made = call_layer("Inventing a demo measurement", _demo_measurement, workspace.database_url,
-                          batch["code"], batch["version"])
-        if made.ok:
-            st.download_button(
-                "Demo only: download an invented probe measurement of this batch (srdr CSV, n = 1.33)",
-                data=made.value.encode("utf-8"), file_name=f"demo-measurement-{batch['code']}.csv",
-                mime="text/csv", key="batches.demo_measurement", on_click="ignore",
-                help="Synthetic R(ρ) of what was dispensed (invented true potencies, 2 % noise): attach it "
-                     "below to try the loop.")
     from phantomlab.ui.bench_record import by_field, remember_by, set_notice, shown_notice
 
     # the number of measurements in the key: once attached, a second click reaches no form
@@ -435,6 +443,8 @@ def _one_batch(workspace: Workspace, store, batch: dict, *, fingerprint: str) ->
         else:
             st.caption("No measurement attached yet.")
         _measure_section(workspace, store, batch)
+        if measure.open:
+            _demo_download(workspace, batch)
     if oxygenation.open:
         with oxygenation:
             oxygenation_section(workspace, store, batch)
