@@ -28,12 +28,13 @@ from __future__ import annotations
 import os
 import re
 import time
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-from phantomlab.errors import InputError
+from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.transport.montecarlo import build_baseline
 
 __all__ = [
@@ -58,10 +59,15 @@ CACHE_MAX_MUSP_OVER_MUA = 1500.0
 #: Master seed of every cached baseline.
 CACHE_SEED = 20_251
 #: Photons of the cached td/fd baseline (``NAME-time.npz``): the time-resolved lookup bins
-#: every photon by distance *and* time, so it needs more than the srdr table; 3 million keep
-#: μa within 3 % and μs′ within 2 % at μs′/μa 30–1000 on independent Monte Carlo data
-#: (tests/calibration/test_fit_td_default.py), a build of a few minutes on two cores.
-TIME_CACHE_PHOTONS = 3_000_000
+#: every photon by distance *and* time, so it needs more than the srdr table.  Its photon
+#: noise, not its settings, decides the td fit's accuracy (the engine is exactly scale
+#: invariant; quarters of one baseline moved μs′ at μs′/μa = 30 by ±7 % and μa at 1000 by
+#: ±4 % from each other, at 0.7 million photons each): 3 million left μs′ at μs′/μa = 30
+#: −4 to −7 % and μa at 1000 −4 % off on independent Monte Carlo data
+#: (tests/calibration/fixtures/mc_td_half_space.npz), 10 million −0.3 % and −2.1 % (the
+#: quarters' spread scaled to 10 million: about 1.3 % and 1.1 %).  A build of 5–13 minutes
+#: on two shared cores, 90 MB.
+TIME_CACHE_PHOTONS = 10_000_000
 #: Highest μs′/μa the td/fd baseline answers (its reference μa is μs_ref (1 − g)/3000): the
 #: late photons of a weakly absorbing phantom are what a td fit window reaches.
 TIME_CACHE_MAX_MUSP_OVER_MUA = 3000.0
@@ -360,7 +366,8 @@ def obtain_photon_baseline(*, g, n, n_outside=1.0, folder=None, rebuild=False, p
     every stored photon's exit radius and path length and need more photons than the srdr
     table (:data:`TIME_CACHE_PHOTONS`; measured on independent Monte Carlo data: with the
     srdr cache's million photons the td fit's own lookup noise moved μa by up to 5 % at
-    μs′/μa = 1000).  Kept in the same folder as ``NAME-time.npz`` (:func:`time_cache_file_name`).
+    μs′/μa = 1000).  A cached file with fewer photons (made before the count was raised) is
+    used, with a warning that names ``--rebuild``.  Kept in the same folder as ``NAME-time.npz`` (:func:`time_cache_file_name`).
 
     Returns
     -------
@@ -375,7 +382,13 @@ def obtain_photon_baseline(*, g, n, n_outside=1.0, folder=None, rebuild=False, p
     settings = time_cache_settings(g=g, n=n, n_outside=n_outside)
     path = baseline_folder(folder) / time_cache_file_name(g=g, n=n, n_outside=n_outside)
     if path.is_file() and not rebuild:
-        return CachedBaseline(baseline=_read_photons(path, settings), path=path, built=False)
+        baseline = _read_photons(path, settings)
+        if int(baseline.photons) < settings["photons"]:
+            warnings.warn(f"the cached td/fd baseline {path.name} holds {int(baseline.photons):,} photons, fewer than "
+                          f"the {settings['photons']:,} a new one gets: the Monte Carlo lookup's own noise (in the "
+                          f"SDs) is larger; give --rebuild to replace it (several minutes)", PhantomlabWarning,
+                          stacklevel=2)
+        return CachedBaseline(baseline=baseline, path=path, built=False)
     _writable_folder(path.parent)  # before the minutes of work, not after
     start = time.perf_counter()
     baseline = build_baseline(mua_per_mm=settings["mua_per_mm"], mus_per_mm=settings["mus_per_mm"],

@@ -317,11 +317,12 @@ def _lookup_covariance(forward, residual_fn, x, mask, rho, freq, sd_log, sd_lag,
     is the curve-weighted mean of the lookup's ``relative_sd``, taken as the error of
     ln amplitude and (in radians) of the phase, fully correlated across the frequencies of one
     distance and correlated across distances as the lookup's radial smoothing kernels overlap,
-    exp(−(ln ρ_i − ln ρ_j)²/(4 h²)).  Propagated as δx = −(JᵀJ)⁻¹Jᵀ δr (scales and phase
-    offsets re-projected inside J).
+    √(2 h_i h_j/(h_i² + h_j²)) exp(−(ln ρ_i − ln ρ_j)²/(2 (h_i² + h_j²))), h_i the curve-weighted
+    kernel width at distance i (wider after the peak, far from the source).  Propagated as
+    δx = −(JᵀJ)⁻¹Jᵀ δr (scales and phase offsets re-projected inside J).
     """
     from phantomlab.calibration.fitting import finite_jacobian
-    from phantomlab.calibration.mc_lookup_time import _BANDWIDTH_LOG_U, time_resolved_lookup
+    from phantomlab.calibration.mc_lookup_time import time_resolved_lookup
 
     lookup = time_resolved_lookup(baseline)
     W = x.shape[0]
@@ -330,10 +331,12 @@ def _lookup_covariance(forward, residual_fn, x, mask, rho, freq, sd_log, sd_lag,
     jac = finite_jacobian(lambda xx: np.where(mask, residual_fn(xx, np.arange(W)), 0.0), x)
     out = np.zeros((W, 2, 2))
     log_rho = np.log(rho)
-    corr_rho = np.exp(-((log_rho[:, None] - log_rho[None, :]) ** 2) / (4 * _BANDWIDTH_LOG_U**2))
     for w in range(W):
         mua, mus = math.exp(x[w, 0]), math.exp(x[w, 1]) / (1.0 - lookup.g)
-        rel = lookup.curve_relative_sd(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho)
+        rel, h = lookup.curve_relative_sd(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho, with_width=True)
+        pair = h[:, None] ** 2 + h[None, :] ** 2
+        corr_rho = np.sqrt(2 * h[:, None] * h[None, :] / pair) * np.exp(
+            -((log_rho[:, None] - log_rho[None, :]) ** 2) / (2 * pair))
         error_amp = (rel[:, None] / sd_log[w]).ravel()  # (R·F,) in the residuals' units
         error_lag = (rel[:, None] / sd_lag[w]).ravel()
         block = np.kron(corr_rho, np.ones((F, F)))

@@ -379,11 +379,15 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
             held = np.maximum(c, 1e-300)
             rel = weighted(lambda times: model_sd(musp_c, rho_curve, np.maximum(times, 1e-3))) / held
             log_time = weighted(lambda times: np.log(np.maximum(times, 1e-3))) / held
+            width = weighted(lambda times: shape.lookup.tau_bandwidth_at(
+                mus_per_mm=musp_c / (1.0 - shape.lookup.g), rho_mm=np.broadcast_to(rho_curve[:, None], times.shape),
+                time_ps=np.maximum(times, 1e-3))) / held
         rel = np.where(np.isfinite(rel), rel, 0.0)
         log_time = np.where(np.isfinite(log_time), log_time, 0.0)
+        width = np.where(np.isfinite(width) & (width > 0), width, shape.lookup.tau_bandwidth)
         cov_log = cov_log + _lookup_covariance(
             lambda x_rows, rows: residual_fn(x_rows, rows), x, mask, (amplitude[:, None] * c * rel) / sd,
-            log_time, shape.lookup.tau_bandwidth, W, R, K)
+            log_time, width, W, R, K)
     values, cov = log_to_linear(x[:, :2], cov_log[:, :2, :2])
     mua_fit, musp_fit = values[:, 0], values[:, 1]
     mua_sd = np.sqrt(np.diagonal(cov, axis1=1, axis2=2))[:, 0]
@@ -467,8 +471,9 @@ def _lookup_covariance(residual_fn, x, mask, relative_error, log_delay, bandwidt
     δx = −(JᵀJ)⁻¹Jᵀ(δμ/σ) (linearised at the fit, the amplitudes re-projected inside J).
     The lookup's error of each bin, e_k = σ_rel,k μ_k / σ_k (``relative_error``), is
     correlated between bins as the lookup's Gaussian smoothing kernels overlap in log τ:
-    ρ_kl = exp(−(ln τ_k − ln τ_l)²/(4 h²)), h the kernel width (a shift of u moves every bin
-    of a curve together, so bins of one curve share the radial smoothing fully).
+    ρ_kl = √(2 h_k h_l/(h_k² + h_l²)) exp(−(ln τ_k − ln τ_l)²/(2 (h_k² + h_l²))), h_k the kernel
+    width at bin k (``bandwidth``, (W·R, K); the overlap of two Gaussians; a shift of u moves
+    every bin of a curve together, so bins of one curve share the radial smoothing fully).
     """
     from phantomlab.calibration.fitting import finite_jacobian
 
@@ -481,7 +486,10 @@ def _lookup_covariance(residual_fn, x, mask, relative_error, log_delay, bandwidt
         lt = np.asarray(log_delay).reshape(W, R * K)[w][m]
         curve = np.repeat(np.arange(R), K)[m]
         same = curve[:, None] == curve[None, :]
-        corr = np.where(same, np.exp(-((lt[:, None] - lt[None, :]) ** 2) / (4 * bandwidth**2)), 0.0)
+        h = np.asarray(bandwidth).reshape(W, R * K)[w][m]
+        pair = h[:, None] ** 2 + h[None, :] ** 2
+        corr = np.where(same, np.sqrt(2 * h[:, None] * h[None, :] / pair)
+                        * np.exp(-((lt[:, None] - lt[None, :]) ** 2) / (2 * pair)), 0.0)
         try:
             gain = np.linalg.solve(j.T @ j, j.T)
         except np.linalg.LinAlgError:

@@ -17,20 +17,20 @@ spline through them keeps their noise as wiggles a node apart, and a fit of rela
 whose valley runs along μs′ and so slides the distances across the table, finds a local
 minimum in every wiggle (then its linearised SD is far too small).  Each row is divided by a
 smooth control — the fluence-plus-flux diffusion R(ρ) of the same medium (Kienle &
-Patterson 1997, J Opt Soc Am A 14:246) — and the ratio, which varies slowly far from the
-source, is smoothed beyond three transport lengths by a local-linear kernel regression
-weighted by the photon statistics, its kernel as wide as each node's noise needs
-(:func:`_smooth_rows`);
-the control is multiplied back.  From a fifth of a transport length to three transport
-lengths the ratio still bends, and there each node is instead a local-quadratic regression
-with a fixed kernel of ±15 % in distance (:func:`_smooth_near`): a million photons leave
-1–1.4 % of noise on the unsmoothed nodes there at μs′/μa = 10, and a local line as wide as
-that noise asks for flattened the bend at one transport length; relative data at low albedo,
-whose μa rests on this part of the curve, moved by 7 % (measured on independent Monte Carlo
-curves, tests/calibration/test_default_fit.py).  The table's nodes are averages over annuli about 10 % wide,
-read as point values; beyond one transport length each is corrected by the ratio of the
-control's point value to its own annulus average (the annulus bias, +0.2 % at μs′/μa = 10,
-is a property of the curve's shape, which the control shares).  (A global penalised spline with its penalty chosen by
+Patterson 1997, J Opt Soc Am A 14:246) — and the ratio is smoothed, weighted by the photon
+statistics (:mod:`phantomlab.calibration.lookup_smoothing`): beyond five transport lengths,
+where it varies slowly, by a local-linear kernel regression with a kernel as wide as each
+node's noise needs; from a fifth of a transport length to five, where it still bends, by a
+local-quadratic one with a fixed kernel of ±15 % in distance.  (Before the second, a million
+photons left 1–1.4 % of noise on the unsmoothed nodes within one transport length at
+μs′/μa = 10, and the local line beyond, as wide as that noise asked for, flattened the bend
+at one transport length: relative data at low albedo, whose μa rests on that part of the
+curve, moved by 7 %; measured on independent Monte Carlo curves,
+tests/calibration/test_default_fit.py.)  The control is multiplied back.  The table's
+nodes are averages over annuli about 10 % wide, read as point values; beyond one transport
+length each is corrected by the ratio of the control's point value to its own annulus
+average (the annulus bias, +0.2 % at μs′/μa = 10, is a property of the curve's shape, which
+the control shares).  (A global penalised spline with its penalty chosen by
 cross-validation was tried and rejected: one penalty for the whole row flattened the
 near-source shoulder by 2 % and biased μa at μs′/μa = 10.)  The scaling relation of the
 semi-infinite homogeneous medium (g and the indices fixed) is then applied analytically:
@@ -56,6 +56,7 @@ from pathlib import Path
 import numpy as np
 from scipy.interpolate import RectBivariateSpline
 
+from phantomlab.calibration.lookup_smoothing import smooth_rows
 from phantomlab.errors import InputError, PhantomlabWarning
 
 __all__ = ["SmoothLookup", "TabulatedBaseline", "LOOKUP_VERSION"]
@@ -85,24 +86,16 @@ _QUADRATURE = 6
 _NARROW_ANNULUS = 0.35
 
 
-#: Fewest photon-bearing nodes a row needs to be smoothed (fewer: kept as counted).
-_MIN_SMOOTHED_NODES = 8
-#: Relative SD the smoothing brings each table node down to (where its photons do not).
-_TARGET_RELATIVE_SD = 0.003
-#: Widest smoothing kernel (Gaussian SD in log u): a factor 1.5 in distance.  Beyond the
-#: photons, the kernel of a node reaches back to the nearest well-counted nodes; wider
-#: kernels would mix in the region near the source, where the far-field form does not hold.
-_MAX_KERNEL_WIDTH = float(np.log(1.5))
 #: A distance is served by the lookup where the smoothed table's relative SD there is at
 #: most this (the lookup's own noise, added to the data's SDs in the fit) ...
 SERVED_MAX_RELATIVE_SD = 0.02
 #: ... and it lies at most this factor beyond the farthest node counted to better than
 #: ``_COUNTED_RELATIVE_SD`` (the far-field continuation is not carried further than that).
 SERVED_MAX_EXTENSION = 2.0
-#: Within a transport length of the source, nodes from this fraction of it outwards are
-#: smoothed too (:func:`_smooth_near`), with a Gaussian kernel of this width in log u.
+#: Near the source, nodes from the first to the second of these distances [transport
+#: lengths] are smoothed by a local quadratic (``lookup_smoothing.smooth_near``), beyond
+#: by the noise-adaptive local line (``lookup_smoothing.smooth_rows``).
 _NEAR_SMOOTHED_FROM = 0.2
-_NEAR_KERNEL_WIDTH = 0.15
 _NEAR_SMOOTHED_TO = 5.0
 _COUNTED_RELATIVE_SD = 0.2
 
@@ -120,93 +113,6 @@ def _control_log_reflectance(baseline, mua_per_mm, rho_mm) -> np.ndarray:
     control = np.asarray(control, float)
     with np.errstate(divide="ignore", invalid="ignore"):
         return np.where(np.isfinite(control) & (control > 0), np.log(control), np.nan)
-
-
-def _smooth_rows(log_table, positive, relative_sd, log_u, log_control, *, log_u_start, log_u_near=None):
-    """Each row of ``log_table`` smoothed over ``log_u`` as a ratio to ``log_control``.
-
-    A local-linear kernel regression (Cleveland 1979, J Am Stat Assoc 74:829) of
-    y = log R − log R_control with weights 1/SD² and a Gaussian kernel (in log u) whose width
-    at each node grows with that node's noise: about as many neighbours as bring its relative
-    SD down to :data:`_TARGET_RELATIVE_SD`, none where the photons already give that (near the
-    source), and at most :data:`_MAX_KERNEL_WIDTH`.  The local line is in u, not log u: far
-    from the source the Monte Carlo R(ρ) and the diffusion control both fall as
-    exp(−κρ)/ρ² with slightly different decay constants κ (the transport equation's
-    asymptotic one against √(3 μa μt′)), so their log ratio tends to a straight line in ρ;
-    where the photons thin out, the kernel reaches back to the well-counted nodes and the
-    line continues that far-field form instead of the noise (the far-field join).  Only nodes
-    from ``log_u_start`` out are smoothed so (nearer the source the ratio bends: nodes from
-    ``log_u_near`` to ``log_u_start``, when given, go to :func:`_smooth_near`); nodes from
-    half the distance ``log_u_start`` take part in the regression.  Nodes holding photons
-    with a relative SD below 0.5 take part; every node from ``log_u_start`` out gets an
-    estimate.
-
-    Returns
-    -------
-    (ndarray, ndarray)
-        The smoothed log table, and the relative SD of each value (the linear smoother's
-        variance Σ lᵢ² σᵢ²; the counted SD where a node was kept as counted).
-    """
-    out = log_table.copy()
-    out_sd = relative_sd.copy()
-    step = float(log_u[1] - log_u[0])
-    for row in range(log_table.shape[0]):
-        use = (positive[row] & np.isfinite(log_control[row]) & (relative_sd[row] < 0.5)
-               & (log_u >= log_u_start - np.log(2.0)))
-        if use.sum() < _MIN_SMOOTHED_NODES:
-            continue
-        x = log_u[use]
-        y = log_table[row, use] - log_control[row, use]
-        sd = np.clip(relative_sd[row, use], 1e-4, None)
-        node_sd = np.clip(relative_sd[row], 1e-4, None)
-        # neighbours needed n = (sd/target)²; a Gaussian of width σ spans 2√π σ/step nodes
-        wanted = np.maximum((node_sd / _TARGET_RELATIVE_SD) ** 2, 1.0)
-        width = np.clip(step * wanted / (2.0 * np.sqrt(np.pi)), 1e-3 * step, _MAX_KERNEL_WIDTH)
-        targets = np.where((log_u >= log_u_start) & np.isfinite(log_control[row])
-                           & ((wanted > 1.0) | ~positive[row]))[0]
-        for j in targets:
-            d = np.expm1(x - log_u[j])  # (u − u_j)/u_j: the local line is in u
-            w = np.exp(-0.5 * ((x - log_u[j]) / width[j]) ** 2) / sd**2
-            s0, s1, s2 = w.sum(), (w * d).sum(), (w * d * d).sum()
-            if s0 <= 0.0 or not np.isfinite(s0):
-                continue
-            det = s0 * s2 - s1 * s1
-            weights = w * (s2 - s1 * d) / det if det > 1e-12 * s0 * s2 else w / s0
-            out[row, j] = log_control[row, j] + float(weights @ y)
-            out_sd[row, j] = float(np.sqrt(np.sum(weights**2 * sd**2)))
-        if log_u_near is not None:
-            _smooth_near(out, out_sd, row, log_table[row] - log_control[row], positive[row], relative_sd[row],
-                         log_u, log_control[row], log_u_near, log_u_start)
-    return out, out_sd
-
-
-def _smooth_near(out, out_sd, row, y_row, positive_row, sd_row, log_u, log_control_row, log_u_near, log_u_start):
-    """Nodes from ``log_u_near`` to ``log_u_start`` (within a transport length of the source) smoothed in place.
-
-    A local-quadratic kernel regression in log u (Cleveland & Devlin 1988, J Am Stat Assoc
-    83:596) of y = log R − log R_control, weights 1/SD², a fixed Gaussian kernel of
-    :data:`_NEAR_KERNEL_WIDTH`: the ratio to diffusion bends there (a local line would
-    flatten it), but over ±15 % in distance a parabola follows it; its value's SD is the
-    smoother's Σ lᵢ² σᵢ².
-    """
-    use = positive_row & np.isfinite(y_row) & (sd_row < 0.5)
-    x = log_u[use]
-    y = y_row[use]
-    sd = np.clip(sd_row[use], 1e-4, None)
-    targets = np.where((log_u >= log_u_near) & (log_u < log_u_start) & np.isfinite(log_control_row))[0]
-    for j in targets:
-        d = x - log_u[j]
-        w = np.exp(-0.5 * (d / _NEAR_KERNEL_WIDTH) ** 2) / sd**2
-        if np.count_nonzero(w > 1e-3 * w.max()) < 5:
-            continue  # too few nodes around: kept as counted
-        design = np.stack([np.ones_like(d), d, d * d], axis=1)
-        normal = design.T @ (w[:, None] * design)
-        try:
-            weights = np.linalg.solve(normal, design.T * w)[0]
-        except np.linalg.LinAlgError:
-            continue
-        out[row, j] = log_control_row[j] + float(weights @ y)
-        out_sd[row, j] = float(np.sqrt(np.sum(weights**2 * sd**2)))
 
 
 class SmoothLookup:
@@ -274,7 +180,7 @@ class SmoothLookup:
         log_table = log_table - np.where(positive, bias, 0.0)
         self.table_counted_log = np.where(positive, log_table, -np.inf)
         self.log_smooth_start = float(np.log(_NEAR_SMOOTHED_FROM * transport_length))
-        log_table, smooth_sd = _smooth_rows(log_table, positive, relative_sd, self.log_u, control,
+        log_table, smooth_sd = smooth_rows(log_table, positive, relative_sd, self.log_u, control,
                                             log_u_start=float(np.log(_NEAR_SMOOTHED_TO * transport_length)),
                                             log_u_near=self.log_smooth_start)
         self.log_u_limit = self._served_limits(positive, relative_sd, smooth_sd, transport_length)

@@ -14,14 +14,25 @@ for time-resolved data both are exact, with no restriction on μa beyond the bas
 time).  Each stored photon enters F at (ρᵢμs_ref, Lᵢμs_ref) with weight e^(μa_ref Lᵢ) (it
 survived the reference absorption with probability e^(−μa_ref Lᵢ)).
 
-F is tabulated on cells of about 10 % in u and 4 % in τ and smoothed as a ratio to the
-time-resolved diffusion model of the same medium (``kienle1997`` of
+F is tabulated on cells of about 10 % in u and 4 % in τ, in the coordinates (log u,
+s = log(τ/u²)): s is the similarity variable of diffusion, in which the peak of a curve far
+from the source stays at one s (τ_peak ≈ 0.3 (1 − g) u²), so a kernel wide in log u at fixed s
+follows the curves' shape instead of cutting across their rising edges.  F is smoothed as a
+ratio to the time-resolved diffusion model of the same medium (``kienle1997`` of
 :mod:`phantomlab.transport.time_domain` at μa = 0, integrated over each cell, a smooth control
 as in :mod:`phantomlab.calibration.mc_lookup`): log(F_MC/F_diffusion) varies slowly except at
-the earliest times, and is smoothed by a local-linear kernel regression in (log u, log τ)
+the earliest times, and is smoothed by a local-linear kernel regression in (log u, s)
 (Cleveland 1979) with weights from the photon counts; log F is then a bicubic spline.  The
-relative standard error of each smoothed node (counting statistics through the kernel
-weights) is kept for the fit, which adds it to the data's variance.
+kernel is 0.12 wide in log u and 0.06 in s, and wider where the ratio is smooth: 0.3 in log u
+beyond 10 transport lengths once the curve has peaked (0.12 nearer than 3, blended between),
+and 0.2 in s from six times the peak time on (0.06 before twice it).  Measured on quarters of
+a 3-million-photon baseline fitted to independent Monte Carlo data
+(tests/calibration/fixtures/mc_td_half_space.npz), the wider kernels brought the spread of
+μa at μs′/μa = 1000 (20 mm) from 5.6 to 3.9 %; a wide kernel in log u on the rising edge
+biased μs′ at μs′/μa = 10 by −18 %, hence none there.  The relative standard error of each
+smoothed node (counting statistics through the kernel weights) is kept for the fit, which
+adds it to the data's variance, correlated over the kernel's width
+(:meth:`TimeResolvedLookup.tau_bandwidth_at`).
 
 The frequency-domain lookup is the Fourier transform of (1) term by term:
 
@@ -46,6 +57,7 @@ import numpy as np
 from scipy.interpolate import RectBivariateSpline
 from scipy.ndimage import gaussian_filter1d
 
+from phantomlab.calibration.lookup_smoothing import fill_rows, local_linear_2d
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.transport.time_domain import SPEED_OF_LIGHT_MM_PER_PS
 
@@ -57,11 +69,21 @@ _U_STEP = math.log(1.10)
 #: Path cells of the table, in scattering lengths τ = Lμs (log spaced).
 _TAU_MIN = 0.5
 _TAU_STEP = math.log(1.04)
-#: Kernel widths (Gaussian SDs) of the smoothing, in log u and log τ.
+#: Kernel widths (Gaussian SDs) of the smoothing, in log u and in s (= log τ at fixed u).
 #: common practice, no source: about two cells each way, chosen by comparison with direct
 #: Monte Carlo runs (tests/calibration/test_mc_lookup_time.py).
 _BANDWIDTH_LOG_U = 0.12
 _BANDWIDTH_LOG_TAU = 0.06
+#: Wider kernels where the ratio to diffusion is smooth (see the module docstring), chosen
+#: on independent Monte Carlo data: in s from the first to the second multiple of the
+#: diffusion peak time on (linear in s) ...
+_BANDWIDTH_LOG_TAU_LATE = 0.2
+_LATE_FROM_PEAK = (2.0, 6.0)
+#: ... and in log u between these distances [transport lengths] (linear in log u), only from
+#: this fraction of the peak time on (linear in s up to the peak).
+_BANDWIDTH_LOG_U_FAR = 0.3
+_WIDE_FROM_TRANSPORT_LENGTHS = (3.0, 10.0)
+_WIDE_U_FROM_PEAK = 0.5
 #: Cells with fewer photons than this do not take part in the smoothing as data.
 _MIN_PHOTONS = 1.0
 #: The lookup serves a curve when its photons reach the latest time the fit needs at that
@@ -96,71 +118,6 @@ def _control(baseline, u: np.ndarray, tau: np.ndarray) -> np.ndarray:
     return np.asarray(values, float) / v
 
 
-def _local_linear(y, weights, x_step, y_step):
-    """Local-linear regression of ``y`` on a 2-D grid with a separable Gaussian kernel.
-
-    ``weights`` are inverse variances (0 where no data); kernel SDs in grid units
-    (``x_step``, ``y_step``).  Returns the fitted values and the effective inverse variance
-    of each fit (Σw)²/Σw² scaled by the kernel, for its standard error.
-    """
-    rows, cols = y.shape
-    gx = np.arange(rows, dtype=float)[:, None] * np.ones((1, cols))
-    gy = np.ones((rows, 1)) * np.arange(cols, dtype=float)[None, :]
-    yz = np.where(weights > 0, y, 0.0)
-
-    def smooth(a):
-        a = gaussian_filter1d(a, x_step, axis=0, mode="constant", truncate=3.0)
-        return gaussian_filter1d(a, y_step, axis=1, mode="constant", truncate=3.0)
-
-    w = weights
-    s = {name: smooth(arr) for name, arr in {
-        "1": w, "x": w * gx, "y": w * gy, "xx": w * gx * gx, "xy": w * gx * gy, "yy": w * gy * gy,
-        "z": w * yz, "xz": w * gx * yz, "yz": w * gy * yz}.items()}
-    # moments about each node: Σ K w (x_i − x_j)^a (y_i − y_j)^b
-    m1 = s["1"]
-    mx = s["x"] - gx * m1
-    my = s["y"] - gy * m1
-    mxx = s["xx"] - 2 * gx * s["x"] + gx * gx * m1
-    mxy = s["xy"] - gx * s["y"] - gy * s["x"] + gx * gy * m1
-    myy = s["yy"] - 2 * gy * s["y"] + gy * gy * m1
-    mz = s["z"]
-    mxz = s["xz"] - gx * mz
-    myz = s["yz"] - gy * mz
-    matrix = np.stack([np.stack([m1, mx, my], -1), np.stack([mx, mxx, mxy], -1),
-                       np.stack([my, mxy, myy], -1)], -2)
-    rhs = np.stack([mz, mxz, myz], -1)
-    fitted = np.full(y.shape, np.nan)
-    ok = m1 > 0
-    with np.errstate(invalid="ignore", divide="ignore"):
-        det = np.linalg.det(matrix[ok])
-        scale = np.abs(matrix[ok][:, 0, 0] * matrix[ok][:, 1, 1] * matrix[ok][:, 2, 2])
-        good = np.abs(det) > 1e-10 * np.maximum(scale, 1e-300)
-        solved = np.full(ok.sum(), np.nan)
-        if np.any(good):
-            solved[good] = np.linalg.solve(matrix[ok][good], rhs[ok][good][..., None])[:, 0, 0]
-        constant = mz[ok] / m1[ok]  # local-constant where the linear fit is singular (edges)
-        solved = np.where(good, solved, constant)
-    fitted[ok] = solved
-    return fitted, m1
-
-
-def _fill_rows(values: np.ndarray) -> np.ndarray:
-    """NaN entries of each row replaced by the nearest finite value of that row (0 if none)."""
-    out = values.copy()
-    columns = np.arange(values.shape[1])
-    for row in range(values.shape[0]):
-        finite = np.isfinite(values[row])
-        if not finite.any():
-            out[row] = 0.0
-            continue
-        index = columns[finite]
-        nearest = np.clip(np.searchsorted(index, columns), 0, index.size - 1)
-        before = np.clip(nearest - 1, 0, index.size - 1)
-        pick = np.where(np.abs(index[before] - columns) < np.abs(index[nearest] - columns), before, nearest)
-        out[row] = np.where(finite, values[row], values[row, index[pick]])
-    return out
-
-
 class TimeResolvedLookup:
     """Smooth time-resolved reflectance F(u, τ) of one baseline (fixed g, n, n_outside).
 
@@ -186,85 +143,130 @@ class TimeResolvedLookup:
         u = baseline.exit_radius_mm.astype(np.float64) * mus_ref
         tau = path * mus_ref
         weight = np.exp(mua_ref * path)  # back to the non-absorbing medium
-        u_edges = np.exp(np.arange(math.log(_U_RANGE[0]), math.log(_U_RANGE[1]) + _U_STEP, _U_STEP))
+        live = (u > 0) & (tau > 0)
+        u, tau, weight = u[live], tau[live], weight[live]
+        log_u_photon = np.log(u)
+        s_photon = np.log(tau) - 2.0 * log_u_photon  # the diffusion similarity variable log(τ/u²)
+        lu_edges = np.arange(math.log(_U_RANGE[0]), math.log(_U_RANGE[1]) + _U_STEP, _U_STEP)
         tau_max = max(float(tau.max()) if tau.size else 1.0, _TAU_MIN * 2)
-        tau_edges = np.exp(np.arange(math.log(_TAU_MIN), math.log(tau_max) + _TAU_STEP, _TAU_STEP))
-        counts, _, _ = np.histogram2d(u, tau, bins=(u_edges, tau_edges))
-        sums, _, _ = np.histogram2d(u, tau, bins=(u_edges, tau_edges), weights=weight)
-        squares, _, _ = np.histogram2d(u, tau, bins=(u_edges, tau_edges), weights=weight * weight)
+        s_low = math.log(_TAU_MIN) - 2.0 * lu_edges[-1]
+        s_high = math.log(tau_max) - 2.0 * lu_edges[0]
+        s_edges = s_low + _TAU_STEP * np.arange(int(math.ceil((s_high - s_low) / _TAU_STEP)) + 1)
+        counts, _, _ = np.histogram2d(log_u_photon, s_photon, bins=(lu_edges, s_edges))
+        sums, _, _ = np.histogram2d(log_u_photon, s_photon, bins=(lu_edges, s_edges), weights=weight)
+        squares, _, _ = np.histogram2d(log_u_photon, s_photon, bins=(lu_edges, s_edges), weights=weight * weight)
         launched = float(baseline.photons)
         launch = float(baseline.launch_weight)
-        # expected weight of each cell under the control: ∫∫ 2π u F_c du dτ (Gauss–Legendre 3×3 in logs)
+        # expected weight of each cell under the control: ∫∫ 2π u F_c du dτ, du dτ = u τ dx ds
+        # (x = log u, s = log τ − 2x), Gauss–Legendre 3×3 in (x, s)
         x, w = np.polynomial.legendre.leggauss(3)
-        lu = np.log(u_edges)
-        lt = np.log(tau_edges)
-        uq = np.exp(0.5 * (lu[:-1, None] + lu[1:, None]) + 0.5 * (lu[1:, None] - lu[:-1, None]) * x[None, :])
-        tq = np.exp(0.5 * (lt[:-1, None] + lt[1:, None]) + 0.5 * (lt[1:, None] - lt[:-1, None]) * x[None, :])
-        wu = 0.5 * np.diff(lu)[:, None] * w[None, :] * uq  # du = u d(log u)
-        wt = 0.5 * np.diff(lt)[:, None] * w[None, :] * tq
-        control_nodes = _control(baseline, uq.ravel()[:, None], tq.ravel()[None, :])
-        control_nodes = control_nodes.reshape(uq.shape[0], 3, tq.shape[0], 3)
-        expected = np.einsum("aibj,ai,bj->ab", control_nodes, 2 * math.pi * uq * wu, wt)
+        xq = 0.5 * (lu_edges[:-1, None] + lu_edges[1:, None]) + 0.5 * _U_STEP * x[None, :]  # (U, 3)
+        sq = 0.5 * (s_edges[:-1, None] + s_edges[1:, None]) + 0.5 * _TAU_STEP * x[None, :]  # (S, 3)
+        wx = 0.5 * _U_STEP * w  # (3,)
+        wy = 0.5 * _TAU_STEP * w
+        uq = np.exp(xq).reshape(-1, 1)  # (3U, 1)
+        tq = np.exp(sq.reshape(1, -1) + 2.0 * xq.reshape(-1, 1))  # (3U, 3S)
+        control_nodes = _control(baseline, uq, tq).reshape(xq.shape[0], 3, sq.shape[0], 3)
+        jacobian = (2 * math.pi * uq * uq * tq).reshape(control_nodes.shape)
+        expected = np.einsum("aibj,aibj,i,j->ab", control_nodes, jacobian, wx, wy)
         measured = launch * sums / launched  # per incident photon
         use = (counts >= _MIN_PHOTONS) & (expected > 0) & (measured > 0)
         with np.errstate(divide="ignore", invalid="ignore"):
             log_ratio = np.where(use, np.log(measured / expected), 0.0)
             # relative variance of a cell's weight sum: Σw²/(Σw)² (counting statistics)
             inverse_var = np.where(use, sums**2 / squares, 0.0)
-        smoothed, effective = _local_linear(log_ratio, inverse_var, _BANDWIDTH_LOG_U / _U_STEP,
-                                            _BANDWIDTH_LOG_TAU / _TAU_STEP)
-        # standard error of a node (local-constant approximation of the kernel fit):
-        # Var = Σ K² w / (Σ K w)², K the Gaussian kernel with peak 1; K² is the Gaussian of
-        # half the variance, so with the unit-area filters above Σ K w = Z·f(w) and
-        # Σ K² w = (Z/2)·f_half(w), Z = 2π σ_u σ_τ in cells
-        sx, sy = _BANDWIDTH_LOG_U / _U_STEP, _BANDWIDTH_LOG_TAU / _TAU_STEP
-        half = gaussian_filter1d(gaussian_filter1d(inverse_var, sx / math.sqrt(2), axis=0, mode="constant"),
-                                 sy / math.sqrt(2), axis=1, mode="constant")
-        area = 2 * math.pi * sx * sy
-        with np.errstate(divide="ignore", invalid="ignore"):
-            relative_sd = np.where(effective > 0, np.sqrt(half / (2 * area * effective**2)), np.inf)
-        self.u_nodes = np.sqrt(u_edges[:-1] * u_edges[1:])
-        self.tau_nodes = np.sqrt(tau_edges[:-1] * tau_edges[1:])
-        control_centre = _control(baseline, self.u_nodes[:, None], self.tau_nodes[None, :])
+        self.u_nodes = np.exp(0.5 * (lu_edges[:-1] + lu_edges[1:]))
+        self.s_nodes = 0.5 * (s_edges[:-1] + s_edges[1:])
+        far, late = self._wide_shares(np.log(self.u_nodes)[:, None], self.s_nodes[None, :])
+        smoothed = np.zeros(use.shape)
+        spread = np.zeros(use.shape)
+        # four local-linear fits (narrow or wide in log u × narrow or wide in s), blended
+        for u_width, s_width, share in ((_BANDWIDTH_LOG_U, _BANDWIDTH_LOG_TAU, (1 - far) * (1 - late)),
+                                        (_BANDWIDTH_LOG_U_FAR, _BANDWIDTH_LOG_TAU, far * (1 - late)),
+                                        (_BANDWIDTH_LOG_U, _BANDWIDTH_LOG_TAU_LATE, (1 - far) * late),
+                                        (_BANDWIDTH_LOG_U_FAR, _BANDWIDTH_LOG_TAU_LATE, far * late)):
+            share = np.broadcast_to(share, use.shape)
+            if not np.any(share > 0):
+                continue
+            sx, sy = u_width / _U_STEP, s_width / _TAU_STEP
+            fitted, mass = local_linear_2d(log_ratio, inverse_var, sx, sy)
+            # standard error of a node (local-constant approximation of the kernel fit):
+            # Var = Σ K² w / (Σ K w)², K the Gaussian kernel with peak 1; K² is the Gaussian of
+            # half the variance, so with the unit-area filters above Σ K w = Z·f(w) and
+            # Σ K² w = (Z/2)·f_half(w), Z = 2π σ_u σ_s in cells
+            half = gaussian_filter1d(gaussian_filter1d(inverse_var, sx / math.sqrt(2), axis=0, mode="constant"),
+                                     sy / math.sqrt(2), axis=1, mode="constant")
+            with np.errstate(divide="ignore", invalid="ignore"):
+                node_sd = np.sqrt(np.where(mass > 0, half / (4 * math.pi * sx * sy * mass**2), np.inf))
+            smoothed = smoothed + np.where(share > 0, share * fitted, 0.0)
+            # the fits share their photons: the SD of the blend is at most the blend of the SDs
+            spread = spread + np.where(share > 0, share * np.where(share > 0, node_sd, 0.0), 0.0)
+        variance = spread**2
+        relative_sd = np.sqrt(variance)
+        control_centre = _control(baseline, self.u_nodes[:, None],
+                                  np.exp(self.s_nodes[None, :] + 2.0 * np.log(self.u_nodes)[:, None]))
         # before the first photon of a row (earlier than light arrives) and after its last one,
         # there is no light to report; the spline is given the row's edge values there (so it
         # does not ring) and :meth:`_f` returns 0 outside
-        reached = np.isfinite(smoothed) & (effective > 0)
+        reached = np.isfinite(smoothed) & np.isfinite(variance)
         first = np.where(use.any(axis=1), np.argmax(use, axis=1), use.shape[1])
         last = np.where(use.any(axis=1), use.shape[1] - 1 - np.argmax(use[:, ::-1], axis=1), -1)
         column = np.arange(use.shape[1])[None, :]
         inside = reached & (column >= first[:, None]) & (column <= last[:, None])
         ratio = np.where(inside, smoothed, np.nan)
-        ratio = _fill_rows(ratio)
+        ratio = fill_rows(ratio)
         with np.errstate(divide="ignore"):
             log_f = np.log(np.clip(control_centre, 1e-300, None)) + ratio
         log_f = np.clip(log_f, -700.0, None)
         self._inside = inside
         self.log_u = np.log(self.u_nodes)
-        self.log_tau = np.log(self.tau_nodes)
-        self._spline = RectBivariateSpline(self.log_u, self.log_tau, log_f, kx=3, ky=3)
-        self._inside_spline = RectBivariateSpline(self.log_u, self.log_tau, inside.astype(float), kx=1, ky=1)
-        # the evaluation table: log F on a grid 4× finer in log u and log τ (from the bicubic spline,
-        # once), read by bilinear interpolation (within 1e-4 of the spline); outside the photons'
-        # reach log F = −700 (no light)
-        self._fine_log_tau = np.linspace(self.log_tau[0], self.log_tau[-1], 4 * (self.log_tau.size - 1) + 1)
+        self._spline = RectBivariateSpline(self.log_u, self.s_nodes, log_f, kx=3, ky=3)
+        self._inside_spline = RectBivariateSpline(self.log_u, self.s_nodes, inside.astype(float), kx=1, ky=1)
+        # the evaluation table: log F on a grid 4× finer in log u and s (from the bicubic spline,
+        # once), read by cubic convolution (smooth: no kinks for the fit's Jacobian to find), the
+        # spline's own smooth continuation beyond the photons' reach cut by the mask
+        self._fine_s = np.linspace(self.s_nodes[0], self.s_nodes[-1], 4 * (self.s_nodes.size - 1) + 1)
         self._fine_log_u = np.linspace(self.log_u[0], self.log_u[-1], 4 * (self.log_u.size - 1) + 1)
-        grid_u, grid_t = np.meshgrid(self._fine_log_u, self._fine_log_tau, indexing="ij")
-        fine = np.clip(self._spline.ev(grid_u, grid_t), -700.0, 700.0)
-        fine_inside = self._inside_spline.ev(grid_u, grid_t) > 0.5
+        grid_u, grid_s = np.meshgrid(self._fine_log_u, self._fine_s, indexing="ij")
+        fine = np.clip(self._spline.ev(grid_u, grid_s), -700.0, 700.0)
+        fine_inside = self._inside_spline.ev(grid_u, grid_s) > 0.5
         self._fine_log_f = np.where(fine_inside, fine, -700.0)
-        # the table read by cubic convolution (smooth: no kinks for the fit's Jacobian to find),
-        # the spline's own smooth continuation beyond the photons' reach, cut by the mask
         self._fine_smooth = fine
         self._fine_inside = fine_inside.astype(float)
-        self._fine_step = (float(self._fine_log_tau[1] - self._fine_log_tau[0]),
+        self._fine_step = (float(self._fine_s[1] - self._fine_s[0]),
                            float(self._fine_log_u[1] - self._fine_log_u[0]))
         self._log_sd = np.log(np.clip(np.where(inside, relative_sd, 1.0), 1e-6, 1.0))
         self.counts = counts
         #: width of the smoothing kernel in log τ (the fit's correlation length of the lookup error)
         self.tau_bandwidth = _BANDWIDTH_LOG_TAU
-        self.tau_max = float(tau_edges[-1])
+        self.tau_max = tau_max
         self.u_max = float(u.max()) if u.size else 0.0
+
+    def _wide_shares(self, log_u, s):
+        """Shares (0–1) of the wide kernels in log u and in s at table coordinates (log u, s).
+
+        In log u: 0 within the first, 1 beyond the second distance of
+        :data:`_WIDE_FROM_TRANSPORT_LENGTHS`, linear in log u between.  In s: 0 up to twice
+        the time of the diffusion peak at that distance, 1 from six times it (linear in s),
+        the peak taken as τ_p = 0.3 (1 − g) u² + u (half-space diffusion at μa = 0,
+        t_p = ρ²/(10 D v) with D = 1/(3μs′) (Patterson et al. 1989, eq. 5 at μa = 0), plus
+        the straight path).
+        """
+        a, b = (math.log(t) for t in _WIDE_FROM_TRANSPORT_LENGTHS)
+        peak = np.log(0.3 * (1.0 - self.g) + np.exp(-log_u))  # log(τ_p/u²)
+        # before the peak the ratio to diffusion changes fast with u at fixed s: narrow there
+        after_peak = np.clip((s - peak + math.log(_WIDE_U_FROM_PEAK)) / -math.log(_WIDE_U_FROM_PEAK), 0.0, 1.0)
+        far = np.clip((log_u + math.log(1.0 - self.g) - a) / (b - a), 0.0, 1.0) * after_peak
+        late = np.clip((s - peak - math.log(_LATE_FROM_PEAK[0])) / math.log(_LATE_FROM_PEAK[1] / _LATE_FROM_PEAK[0]),
+                       0.0, 1.0)
+        return far, late
+
+    def tau_bandwidth_at(self, *, mus_per_mm, rho_mm, time_ps) -> np.ndarray:
+        """Width (Gaussian SD in log τ) of the smoothing kernel at each point, as :meth:`relative_sd`."""
+        _, _, u, tau, _ = self._scaled(np.zeros(np.size(mus_per_mm)), mus_per_mm, rho_mm, time_ps)
+        _, lu, ls = self._coordinates(u, tau)
+        _, late = self._wide_shares(lu, ls)
+        return _BANDWIDTH_LOG_TAU + late * (_BANDWIDTH_LOG_TAU_LATE - _BANDWIDTH_LOG_TAU)
 
     # ------------------------------------------------------------------ evaluation
     def _scaled(self, mua_per_mm, mus_per_mm, rho_mm, time_ps):
@@ -341,27 +343,31 @@ class TimeResolvedLookup:
             out += wx[..., a] * row
         return out
 
-    def _f(self, u, tau):
+    def _coordinates(self, u, tau):
+        """(log u, s = log τ − 2 log u) of the table, and where both are positive."""
         live = (tau > 0) & (u > 0)
         with np.errstate(divide="ignore", invalid="ignore"):
             lu = np.log(np.where(live, u, 1.0))
-            lt = np.log(np.where(live, tau, 1.0))
-        dt, du = self._fine_step
-        origin = (self._fine_log_u[0], self._fine_log_tau[0])
-        values = np.exp(np.clip(self._bicubic(self._fine_smooth, lu, lt, origin[0], origin[1], du, dt), -700, 700))
-        inside = self._bilinear(self._fine_inside, lu, lt, origin[0], origin[1], du, dt) > 0.5
+            ls = np.log(np.where(live, tau, 1.0)) - 2.0 * lu
+        return live, lu, ls
+
+    def _f(self, u, tau):
+        live, lu, ls = self._coordinates(u, tau)
+        ds, du = self._fine_step
+        origin = (self._fine_log_u[0], self._fine_s[0])
+        values = np.exp(np.clip(self._bicubic(self._fine_smooth, lu, ls, origin[0], origin[1], du, ds), -700, 700))
+        inside = self._bilinear(self._fine_inside, lu, ls, origin[0], origin[1], du, ds) > 0.5
         values = np.where(inside, values, 0.0)
         within = live & (u >= self.u_nodes[0]) & (u <= self.u_nodes[-1]) & (tau <= self.tau_max) & (
-            tau >= self.tau_nodes[0])
+            ls >= self.s_nodes[0]) & (ls <= self.s_nodes[-1])
         return np.where(within, values, 0.0)
 
     def relative_sd(self, *, mus_per_mm, rho_mm, time_ps) -> np.ndarray:
         """Relative standard error of :meth:`point` from the baseline's photon statistics."""
         _, _, u, tau, _ = self._scaled(np.zeros(np.size(mus_per_mm)), mus_per_mm, rho_mm, time_ps)
-        lu = np.log(np.where(u > 0, u, 1.0))
-        lt = np.log(np.where(tau > 0, tau, 1.0))
-        return np.exp(self._bilinear(self._log_sd, lu, lt, self.log_u[0], self.log_tau[0],
-                                     float(self.log_u[1] - self.log_u[0]), float(self.log_tau[1] - self.log_tau[0])))
+        _, lu, ls = self._coordinates(u, tau)
+        return np.exp(self._bilinear(self._log_sd, lu, ls, self.log_u[0], self.s_nodes[0],
+                                     float(self.log_u[1] - self.log_u[0]), float(self.s_nodes[1] - self.s_nodes[0])))
 
     def serves(self, *, mus_per_mm, rho_mm, latest_time_ps) -> np.ndarray:
         """Whether the lookup serves a curve out to ``latest_time_ps``, per (μs, ρ) pair, shape (N,).
@@ -385,22 +391,31 @@ class TimeResolvedLookup:
         return (u <= self.u_max) & (u >= self.u_nodes[0]) & (tau <= self.tau_max) & lit & (
             relative <= SERVED_MAX_RELATIVE_SD)
 
-    def curve_relative_sd(self, *, mua_per_mm: float, mus_per_mm: float, rho_mm) -> np.ndarray:
+    def curve_relative_sd(self, *, mua_per_mm: float, mus_per_mm: float, rho_mm, with_width: bool = False):
         """Response-weighted mean relative SD of the lookup over each whole curve R(ρ, t), shape (R,).
 
         The error of a quantity that integrates the curve over time (the frequency-domain
         transform): Σ R σ_rel Δt / Σ R Δt on 200 log-spaced times out to the table's reach.
+        ``with_width``: also the same mean of the smoothing kernel's width in log u (the
+        correlation length of that error across distances), as a second array.
         """
         rho = np.atleast_1d(np.asarray(rho_mm, float))
         times = np.geomspace(10.0, self.tau_max / (self.v * mus_per_mm), 200)
         out = np.empty(rho.size)
+        width = np.empty(rho.size)
         for r in range(rho.size):
             grid = np.full(times.size, rho[r])
             point = self.point(mua_per_mm=[mua_per_mm], mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=times)[0]
             weight = point * np.gradient(times)
             sd = self.relative_sd(mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=times)[0]
-            out[r] = float(np.sum(weight * sd) / np.sum(weight)) if np.sum(weight) > 0 else np.inf
-        return out
+            total = np.sum(weight)
+            out[r] = float(np.sum(weight * sd) / total) if total > 0 else np.inf
+            _, _, u, tau, _ = self._scaled(np.zeros(1), [mus_per_mm], grid, times)
+            _, lu, ls = self._coordinates(u, tau)
+            far, _ = self._wide_shares(lu, ls)
+            h = _BANDWIDTH_LOG_U + far[0] * (_BANDWIDTH_LOG_U_FAR - _BANDWIDTH_LOG_U)
+            width[r] = float(np.sum(weight * h) / total) if total > 0 else _BANDWIDTH_LOG_U
+        return (out, width) if with_width else out
 
     def frequency_domain(self, *, mua_per_mm, mus_per_mm, rho_mm, frequency_mhz) -> np.ndarray:
         """Complex R̃(ρ, ω) [1/mm²] by eq. (2) of the module docstring, shape (N, G).
@@ -415,11 +430,11 @@ class TimeResolvedLookup:
         rho, freq = np.broadcast_arrays(np.atleast_1d(np.asarray(rho_mm, float)),
                                         np.atleast_1d(np.asarray(frequency_mhz, float)))
         omega = 2.0 * math.pi * freq * 1e-6  # rad/ps
-        live = np.flatnonzero(np.any(self._fine_log_f > -700.0, axis=0))  # τ columns holding light
+        live = np.flatnonzero(np.any(self._fine_log_f > -700.0, axis=0))  # s columns holding light
         columns = slice(int(live[0]), int(live[-1]) + 1) if live.size else slice(0, 0)
-        tau = np.exp(self._fine_log_tau[columns])
-        weights = np.full(tau.size, self._fine_step[0]) * tau  # trapezoid in log τ: dτ = τ d(log τ)
-        if tau.size:
+        s_nodes = self._fine_s[columns]
+        weights = np.full(s_nodes.size, self._fine_step[0])  # trapezoid in log τ = s + 2 log u: dτ = τ ds
+        if s_nodes.size:
             weights[[0, -1]] *= 0.5
         u = rho[None, :] * mus[:, None]  # (N, G)
         # each (N, G) needs a whole row of the table at its u: cubic convolution in log u over
@@ -433,12 +448,14 @@ class TimeResolvedLookup:
         log_values = sum(wx[..., a, None] * smooth[i - 1 + a] for a in range(4))
         fx = (x - i)[..., None]
         reached = ((1.0 - fx) * mask[i] + fx * mask[i + 1]) > 0.5
+        tau = np.exp(s_nodes[None, None, :] + 2.0 * np.log(u)[..., None])  # (N, G, T)
+        reached &= tau <= self.tau_max
         values = np.where(reached, np.exp(np.clip(log_values, -700.0, 700.0)), 0.0)  # (N, G, T)
         inside = (u >= self.u_nodes[0]) & (u <= self.u_nodes[-1])
         values = np.where(inside[..., None], values, 0.0)
         rate = (mua[:, None] + 1j * omega[None, :] / self.v) / mus[:, None]  # per unit τ
-        kernel = np.exp(-rate[:, :, None] * tau[None, None, :])
-        return mus[:, None] ** 2 * np.einsum("ngt,ngt,t->ng", values, kernel, weights)
+        kernel = np.exp(-rate[:, :, None] * tau)
+        return mus[:, None] ** 2 * np.einsum("ngt,ngt,ngt,t->ng", values, kernel, tau, weights)
 
     def reach_warning(self, *, mus_per_mm, rho_max_mm) -> str | None:
         """A message when the farthest distance lies beyond the photons the baseline holds."""

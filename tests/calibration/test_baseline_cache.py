@@ -181,3 +181,17 @@ def test_ctrl_c_stops_the_build_cleanly(tmp_path):
     assert child.returncode == 130, err
     assert err.strip().splitlines()[-1] == "phantomlab: interrupted; nothing was written"
     assert not [p for p in cache.iterdir() if p.is_file()] if cache.exists() else True
+
+
+def test_a_cached_time_baseline_with_fewer_photons_than_today_is_used_with_a_warning(baseline_cache_dir):
+    """The session cache's td/fd file is the stored 2.5-million-photon test baseline (tests/conftest.py).
+
+    A user's file made before the count was raised (3 million) is read, not rebuilt behind
+    their back, and the warning names its photons and ``--rebuild``.
+    """
+    from phantomlab.errors import PhantomlabWarning
+
+    assert baseline_cache.TIME_CACHE_PHOTONS > 2_500_000
+    with pytest.warns(PhantomlabWarning, match=r"holds 2,500,000 photons, fewer than .* --rebuild"):
+        found = baseline_cache.obtain_photon_baseline(g=0.8, n=1.4, folder=baseline_cache_dir)
+    assert not found.built and found.baseline.photons == 2_500_000

@@ -91,11 +91,11 @@ def test_default_srdr_fit_of_the_noiseless_curve_is_within_the_tolerance(srdr_ca
 
     Relative data at μs′/μa = 10 (μs′ = 0.5 /mm, 0.5-8 transport lengths) rest on the shape
     within a few transport lengths of the source.  Until the lookup smoothed its table there
-    (``mc_lookup._smooth_near``, 0.2-3 transport lengths), this fit landed μa +7 % for two of
-    the four media (cases 0 and 15): the million-photon table's 1-1.4 % node noise near the
-    source, and the wide local-line kernel at one transport length that this noise called
-    for, bent the curve there (a 4-million-photon baseline gave +1.8 %).  Measured now:
-    +3.4 % and +4.3 % (SDs 1.8 and 1.7 %).
+    (``lookup_smoothing.smooth_near``, 0.2-5 transport lengths), this fit landed μa +7 % for
+    two of the four media (cases 0 and 15): the million-photon table's 1-1.4 % node noise
+    near the source, and the wide local-line kernel at one transport length that this noise
+    called for, bent the curve there (a 4-million-photon baseline gave +1.8 %).  Measured
+    now: μa +2.7, −3.6, −3.3, +3.3 % for cases 0, 5, 10, 15 (SDs 1.4-2.0 %), μs′ within 2.3 %.
     """
     mua, musp = float(srdr_cases["mua_per_mm"][case]), float(srdr_cases["musp_per_mm"][case])
     fit = _fit_srdr(srdr_cases, case, noise=0.0, seed=1, relative=relative)
