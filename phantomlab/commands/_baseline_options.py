@@ -4,11 +4,17 @@ The default srdr/sfdi fit builds the cached Monte Carlo baseline it needs on fir
 (``phantomlab.calibration.baseline_cache``): about half a minute, shown as a progress bar on
 stderr (stdout keeps the table or the one JSON object).  Ctrl-C stops the build between two
 groups of photons; nothing is written (``phantomlab.cli`` prints one line and exits 130).
+
+While the bar runs, Ctrl-C is also remembered: the KeyboardInterrupt Python raises where the
+signal lands can be lost inside compiled code (seen once under heavy load: the build ran to
+the end), so the bar raises it again at its next step.
 """
 
 from __future__ import annotations
 
+import signal
 import sys
+import threading
 import time
 
 __all__ = ["add_baseline_options", "ProgressBar"]
@@ -40,12 +46,36 @@ class ProgressBar:
         self.title = title
         self.started = None
         self.tenths = -1
+        self.interrupted = False
+        self.previous_handler = None
+
+    def _remember_ctrl_c(self) -> None:
+        """Install a SIGINT handler that notes the press and raises KeyboardInterrupt as Python does."""
+        if threading.current_thread() is not threading.main_thread():
+            return
+
+        def pressed(signum, frame):
+            self.interrupted = True
+            raise KeyboardInterrupt
+
+        self.previous_handler = signal.signal(signal.SIGINT, pressed)
+
+    def _restore(self) -> None:
+        if self.previous_handler is not None:
+            signal.signal(signal.SIGINT, self.previous_handler)
+            self.previous_handler = None
 
     def __call__(self, done: int, total: int) -> None:
         now = time.monotonic()
+        if self.interrupted:  # a press whose KeyboardInterrupt was lost on the way
+            self._restore()
+            raise KeyboardInterrupt
         if self.started is None:
             self.started = now
+            self._remember_ctrl_c()
             self.stream.write(self.title + "\n")
+        if done >= total:
+            self._restore()
         share = done / total if total else 1.0
         filled = int(round(self.WIDTH * share))
         line = (f"[{'#' * filled}{'.' * (self.WIDTH - filled)}] {100 * share:3.0f} %  {done:,} of {total:,} "

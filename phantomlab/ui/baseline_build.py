@@ -55,7 +55,7 @@ def page_baseline(*, g: float, n: float, n_outside: float, key: str, offer_rebui
     ``offer_rebuild=False`` (inside a form's submitted run, where a second button cannot
     carry on the flow): a refused file is named with where to build it again.
     ``time_resolved=True``: the td/fd baseline with its photons (``NAME-time.npz``, a few
-    minutes to build).
+    minutes to build: 5–15 on two cores).
 
     Returns
     -------
@@ -75,7 +75,8 @@ def page_baseline(*, g: float, n: float, n_outside: float, key: str, offer_rebui
         if not offer_rebuild:
             st.info("Build it again on the page “Fit and correct” (it asks first), or fit with a diffusion model.")
             return None
-        if not st.button("Build it again (about half a minute)", key=f"{key}.rebuild"):
+        took = "5–15 minutes" if time_resolved else "about half a minute"
+        if not st.button(f"Build it again ({took})", key=f"{key}.rebuild"):
             return None
         found, rebuild = None, True
     except Exception as exc:  # an InputError: g or an index out of the cache's range
@@ -91,7 +92,7 @@ def page_baseline(*, g: float, n: float, n_outside: float, key: str, offer_rebui
     st.button("Stop the build", key=f"{key}.stop", on_click=_stop, args=(key,),
               help="Ends the build at its next step; nothing is written.")
     bar = st.progress(0.0, text=f"Building the Monte Carlo baseline for g = {g:.2f}, n = {n:g} (once, about half "
-                                "a minute on two cores; td/fd: a few minutes)…")
+                                "a minute on two cores; td/fd: 5–15 minutes, ten million photons)…")
     started = time.monotonic()
 
     def progress(done: int, total: int) -> None:
