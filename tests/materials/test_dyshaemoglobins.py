@@ -1,7 +1,7 @@
 """Methaemoglobin and carboxyhaemoglobin: the Zijlstra, Buursma & van Assendelft 2000 table.
 
 The shipped file holds the table per heme as printed (L/(mmol cm) times 1000, declared
-``heme``); the check rows below are typed from the second transcription in the same public
+``heme``); the check rows below are typed from the second copy in the same public
 copy (its ``molar_extinction`` files: per tetramer, the printed values times 4000), so the
 factor of 4 is checked against a conversion made by someone else.  Every check row sits on a
 printed row: the value must come back exactly.

@@ -1,6 +1,6 @@
 """Haemoglobin extinction tables against the published tabulations, and the heme/tetramer basis.
 
-Check values are typed here from a second transcription of each table (not the copy the
+Check values are typed here from a second copy of each table (not the copy the
 shipped file was made from), with the source named beside each; the tolerance is the
 printed digits (every check sits on a printed row, so the value must come back exactly).
 """
