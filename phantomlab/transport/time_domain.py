@@ -140,18 +140,10 @@ def _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary, *, d_with_mua: bool
 
 
 def _warn_scattering_dominance(mua: np.ndarray, musp: np.ndarray) -> None:
-    from phantomlab.transport.diffusion import MIN_MUSP_TO_MUA_RATIO
+    """The steady-state models' warning (diffusion is poor unless μs′ ≫ μa), shared."""
+    from phantomlab.transport.diffusion import _warn_scattering_dominance as warn
 
-    with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = np.where(mua > 0, musp / mua, np.inf)
-    finite = ratio[np.isfinite(ratio)]
-    if finite.size and finite.min() < MIN_MUSP_TO_MUA_RATIO:
-        warnings.warn(
-            f"diffusion is poor unless musp >> mua: musp/mua = {finite.min():.3g} here,"
-            f" wanted >= {MIN_MUSP_TO_MUA_RATIO:g}",
-            PhantomlabWarning,
-            stacklevel=4,
-        )
+    warn(mua, musp)
 
 
 def _warn_close_to_source(rho: np.ndarray, medium: _Medium, geometry: str) -> None:
