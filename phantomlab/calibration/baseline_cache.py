@@ -260,8 +260,6 @@ def build_cached_baseline(*, g, n, n_outside=1.0, folder=None, progress=None, ph
     CachedBaseline
         ``baseline`` is the :class:`~phantomlab.calibration.mc_lookup.TabulatedBaseline`.
     """
-    from phantomlab.transport.montecarlo import build_baseline
-
     settings = cache_settings(g=g, n=n, n_outside=n_outside)
     if photons is not None:
         from phantomlab.limits import check_limit
@@ -270,14 +268,7 @@ def build_cached_baseline(*, g, n, n_outside=1.0, folder=None, progress=None, ph
         check_limit("baseline_photons", settings["photons"], given=f"photons {settings['photons']}")
     target = _writable_folder(baseline_folder(folder)) / cache_file_name(g=g, n=n, n_outside=n_outside)
     start = time.perf_counter()
-    baseline = build_baseline(mua_per_mm=settings["mua_per_mm"], mus_per_mm=settings["mus_per_mm"],
-                              g=settings["g"], n=settings["n"], n_outside=settings["n_outside"],
-                              photons=settings["photons"], seed=settings["seed"], progress=progress)
-    try:
-        baseline.save(target)  # a temporary file renamed into place: never half written
-    except OSError as exc:
-        raise InputError(f"baseline cache file {target} could not be written ({exc.strerror or exc}); choose "
-                         f"another folder with --baseline-dir FOLDER or {BASELINE_DIR_ENV}") from None
+    baseline = _build_and_save(settings, target, progress)
     table_path(target).unlink(missing_ok=True)
     tabulated = _tabulate(baseline, target)
     return CachedBaseline(baseline=tabulated, path=target, built=True, seconds=time.perf_counter() - start)
@@ -391,15 +382,21 @@ def obtain_photon_baseline(*, g, n, n_outside=1.0, folder=None, rebuild=False, p
         return CachedBaseline(baseline=baseline, path=path, built=False)
     _writable_folder(path.parent)  # before the minutes of work, not after
     start = time.perf_counter()
+    baseline = _build_and_save(settings, path, progress)
+    return CachedBaseline(baseline=baseline, path=path, built=True, seconds=time.perf_counter() - start)
+
+
+def _build_and_save(settings: dict, target: Path, progress):
+    """Run the Monte Carlo baseline of ``settings`` and write it to ``target`` (whole or not at all)."""
     baseline = build_baseline(mua_per_mm=settings["mua_per_mm"], mus_per_mm=settings["mus_per_mm"],
                               g=settings["g"], n=settings["n"], n_outside=settings["n_outside"],
                               photons=settings["photons"], seed=settings["seed"], progress=progress)
     try:
-        baseline.save(path)  # a temporary file renamed into place: never half written
+        baseline.save(target)  # a temporary file renamed into place: never half written
     except OSError as exc:
-        raise InputError(f"baseline cache file {path} could not be written ({exc.strerror or exc}); choose "
+        raise InputError(f"baseline cache file {target} could not be written ({exc.strerror or exc}); choose "
                          f"another folder with --baseline-dir FOLDER or {BASELINE_DIR_ENV}") from None
-    return CachedBaseline(baseline=baseline, path=path, built=True, seconds=time.perf_counter() - start)
+    return baseline
 
 
 def list_cached(folder=None) -> list[dict]:
