@@ -10,8 +10,9 @@ lengths; μa = 0.012 /mm by Beer–Lambert weights), averaged over the disc with
 diffusion fit window (half the peak on the rise to 5 % on the tail; earlier still, at 5–20 % of
 the peak, Monte Carlo is 40–55 % below diffusion): the shape of Monte Carlo over diffusion drifts by some per cent along the
 curve, more for kienle1997 than for contini1997 — enough to bias a fit by several per cent
-(so the acceptance's 3 %/2 % recovery is not claimed for transmittance).  The test holds the
-measured envelopes so that a change shows.
+(so the acceptance's 3 %/2 % recovery is not claimed for transmittance; the fit's SDs hold
+that error: test_td_model_error.py).  The test holds the measured envelopes so that a change
+shows.
 """
 
 from __future__ import annotations
