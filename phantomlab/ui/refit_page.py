@@ -49,8 +49,12 @@ TAB_KEY = "refit.tab"
 #: Fields kept while their tab is closed or another page is shown (never buttons or uploads).
 KEEP = (TAB_KEY, "refit.measurement", "refit.upload_kind", "refit.n", "refit.power_law", "refit.geometry",
         "refit.td_thickness", "refit.thickness", "refit.fit_g", "refit.g", "refit.td_baseline_file",
-        "refit.baseline", "refit.photons", "refit.baseline_g", "refit.baseline_mus", "refit.baseline_mua")
-KEEP_PREFIXES = ("refit.model.", "refit.mc_g.", "refit.shown.")
+        "refit.baseline", "refit.photons", "refit.baseline_g", "refit.baseline_mus", "refit.baseline_mua",
+        # the recalibrate and correct tabs: typed text and the batch chosen (not the choices
+        # whose options change with what was just recorded)
+        "calibrate.by", "calibrate.exclude_batch", "calibrate.exclude_reason", "calibrate.include_reason",
+        "calibrate.use_note", "correct.batch")
+KEEP_PREFIXES = ("refit.model.", "refit.mc_g.", "refit.shown.", "correct.topup_")
 
 
 # ---- the measurement to fit -------------------------------------------------------------------

@@ -386,3 +386,24 @@ def test_the_fit_fields_keep_their_values_while_another_tab_is_open(refit, open_
     open_tab(refit, "refit.tab", "Fit a measurement")
     assert refit.number_input(key="refit.n").value == 1.41
     assert refit.selectbox(key="refit.model.srdr").value == "kienle1997"
+
+
+def test_the_recalibrate_and_correct_fields_keep_their_values_while_another_tab_is_open(refit, open_tab):
+    """Typed text and the chosen batch survive a look at another tab (KEEP)."""
+    open_tab(refit, "refit.tab", "Recalibrate the stocks")
+    refit.text_input(key="calibrate.by").input("demo: A. Tern").run()
+    refit.text_input(key="calibrate.exclude_reason").input("demo: cuvette scratched").run()
+    codes = refit.selectbox(key="calibrate.exclude_batch").options
+    refit.selectbox(key="calibrate.exclude_batch").set_value(codes[0]).run()
+    assert not refit.exception, [e.message for e in refit.exception]
+    open_tab(refit, "refit.tab", "Fit a measurement")
+    open_tab(refit, "refit.tab", "Recalibrate the stocks")
+    assert refit.text_input(key="calibrate.by").value == "demo: A. Tern"
+    assert refit.text_input(key="calibrate.exclude_reason").value == "demo: cuvette scratched"
+    assert refit.selectbox(key="calibrate.exclude_batch").value == codes[0]
+    open_tab(refit, "refit.tab", "Correct the next batch")
+    first = refit.selectbox(key="correct.batch").options[0].split(" · ")[0]  # shown as "code · name"
+    refit.selectbox(key="correct.batch").set_value(first).run()
+    open_tab(refit, "refit.tab", "Fit a measurement")
+    open_tab(refit, "refit.tab", "Correct the next batch")
+    assert refit.selectbox(key="correct.batch").value == first
