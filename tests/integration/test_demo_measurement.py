@@ -1,0 +1,77 @@
+"""The demo probe file fits well with the default model and gives back the optics that made it.
+
+`recipes/measurements/demo-nir-liquid-srdr.csv` (demo data, invented) is Monte Carlo light:
+our engine run directly (weighted estimator, its own seeds, the g of the emulsion model at
+each wavelength, 0.64 to 0.51) by `make_demo_measurement.py` beside it, at the optics the
+recipe layer predicts for the demo batch mixed as planned with the invented true potencies
+lipid20 1.12, ink_black 0.80, dye_nir 1.10.  The default fit is the Monte Carlo lookup, a
+different model (one stored analog run at the batch's mean g 0.58, re-weighted and scaled),
+so the check values, the generating optics, are independent of the model that fits.
+"""
+
+import importlib.util
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from phantomlab.cli import main
+
+ROOT = Path(__file__).resolve().parents[2]
+MEASUREMENTS = ROOT / "recipes" / "measurements"
+MEASUREMENT = MEASUREMENTS / "demo-nir-liquid-srdr.csv"
+
+
+def _generator():
+    spec = importlib.util.spec_from_file_location("make_demo_measurement", MEASUREMENTS / "make_demo_measurement.py")
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
+
+
+def _fit(capsys, *options):
+    status = main(["fit", str(MEASUREMENT), "--kind", "srdr", *options, "--json"])
+    captured = capsys.readouterr()
+    assert status == 0, captured.err
+    return json.loads(captured.out)
+
+
+@pytest.fixture(scope="module")
+def generating_optics():
+    """μa, μs′ and g the demo file was made with (the generator's own recipe and truth)."""
+    from phantomlab.recipe import load_recipe, predict, solve
+
+    generator = _generator()
+    recipe = load_recipe(ROOT / "recipes" / "demo-nir-liquid.toml")
+    plan = solve(recipe)
+    return predict(recipe, volume_fractions=plan.volume_fractions, potencies=generator.TRUE_POTENCIES), plan
+
+
+def test_the_file_says_how_it_was_made_and_its_sidecar_gives_the_batch_g(generating_optics):
+    made, plan = generating_optics
+    first = MEASUREMENT.read_text(encoding="utf-8").splitlines()[0]
+    assert first.startswith("# source: demo data, invented") and "Monte Carlo run directly" in first
+    import tomllib
+
+    sidecar = tomllib.loads(MEASUREMENT.with_suffix(".toml").read_text(encoding="utf-8"))
+    # the batch log's g for this batch: the plan's g averaged over the file's wavelengths
+    assert sidecar["g"] == pytest.approx(float(np.mean(plan.predicted.g)), abs=0.005)
+    assert sidecar["n"] == 1.33 and sidecar["detector"] == "point"
+
+
+def test_the_default_fit_is_good_and_the_generating_optics_lie_within_its_sds(capsys, generating_optics):
+    made, _ = generating_optics
+    fit = _fit(capsys)
+    assert fit["model"] == "mc-lookup" and fit["g_used"] == pytest.approx(0.58) and fit["g_origin"] == "sidecar"
+    assert fit["fit_quality"] == "good" and fit["chi2_red"] < 1.5
+    assert fit["wavelength_nm"] == pytest.approx(made.wavelength_nm)
+    for key in ("mua", "musp"):
+        value = np.asarray(fit[f"{key}_per_mm"])
+        sd = np.asarray(fit[f"{key}_sd_per_mm"])
+        truth = np.asarray(getattr(made, f"{key}_per_mm"))
+        z = (value - truth) / sd
+        # 10 values: coverage at 2.5 SD (the band's spread of g, 0.51-0.64 around the fit's
+        # 0.58, moves μs′ at the band's ends by about 1-2 SD; see the module docstring)
+        assert np.all(np.abs(z) < 2.5), (key, z)
+        assert np.all(np.abs(value / truth - 1.0) < 0.05), (key, value / truth - 1.0)
