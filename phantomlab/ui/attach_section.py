@@ -54,7 +54,8 @@ def demo_download(workspace: Workspace, batch: dict) -> None:
             "Demo only: download an invented probe measurement of this batch (srdr CSV, n = 1.33)",
             data=made.value.encode("utf-8"), file_name=f"demo-measurement-{batch['code']}.csv",
             mime="text/csv", key="batches.demo_measurement", on_click="ignore",
-            help="Synthetic R(ρ) of what was dispensed (invented true potencies, 2 % noise): attach it "
+            help="Synthetic R(ρ) of what was dispensed (invented true potencies; Monte Carlo light of the demo "
+                 "emulsion, g 0.58, from a shipped table; 2 % noise): attach it "
                  "with the form above to try the loop.")
 
 

@@ -13,9 +13,19 @@ On first use the page seeds a database file of its own (never a lab's database, 
 * two batches of the demo recipe ``recipes/demo-nir-liquid.toml``, planned, "mixed" with
   invented small deviations from the sheet, and "measured" with a fibre probe: the
   reflectance files are synthetic, made here by the transport layer's diffusion model
-  (Kienle & Patterson 1997, the default srdr model) from the optics the recipe layer predicts for what was dispensed
-  with invented "true" stock potencies, plus a fixed invented noise; the first batch is
-  measured twice (day 1 and day 15) so the page can show drift with phantom age.
+  (Kienle & Patterson 1997) from the optics the recipe layer predicts for what was dispensed
+  with invented "true" stock potencies, plus a fixed invented noise, and their stored fits
+  are diffusion fits (``kienle1997``, the model that made them), not the default Monte
+  Carlo lookup: a lookup fit needs the Monte Carlo baseline for the batch's g, whose first
+  build (half a minute) the first start must not wait for.  Each file's ``# source:`` line
+  and each fit's model say so; refitting one on the page with the default model is
+  possible (it builds the baseline once).  The first batch is measured twice (day 1 and
+  day 15) so the page can show drift with phantom age.
+
+The invented probe file the page offers for trying the loop (:func:`demo_measurement_csv`)
+is made differently: from a shipped table of direct Monte Carlo runs of the demo emulsion
+(:mod:`phantomlab.ui.demo_light`), so that the default fit describes it (fit quality GOOD)
+without being the model that made it, in milliseconds.
 
 Nothing here is a real measurement; every file says so in its ``# source:`` line.  The
 seeding writes to a temporary file that replaces the demo file only when complete, so a
@@ -35,7 +45,7 @@ from phantomlab.ui.widgets import Outcome
 from phantomlab.ui.workspace import Workspace
 
 __all__ = ["DEMO_RECIPE", "DEMO_OXIMETER_RECIPE", "ensure_demo_database", "seed_demo_database",
-           "synthetic_srdr_csv"]
+           "demo_batch_optics", "demo_measurement_csv", "monte_carlo_srdr_csv", "synthetic_srdr_csv"]
 
 #: The demo recipe both demo batches are planned from.
 DEMO_RECIPE = "demo-nir-liquid.toml"
@@ -68,7 +78,7 @@ DEMO_SIDECAR = f'n = {DEMO_INDEX}\ninstrument = "demo fibre probe (invented)"\n'
 #: Version of the demo data.  Raise it whenever the demo batches, stocks or the models that
 #: make their measurements change: a demo database seeded by another version is re-seeded
 #: (it holds demo data only), so the page never fits old demo files with a newer model.
-DEMO_SEED_VERSION = 3
+DEMO_SEED_VERSION = 4
 
 _lock = threading.Lock()
 
@@ -111,13 +121,15 @@ def _mark_seeded(demo_file) -> None:
 def synthetic_srdr_csv(*, wavelength_nm, mua_per_mm, musp_per_mm, seed: int, label: str) -> str:
     """An srdr measurement file (docs/formats.md) made by the diffusion model, with noise.
 
-    Demo data, invented: R(ρ) from Kienle & Patterson 1997 (the transport layer's default), multiplied by
-    (1 + 0.02 ε) with ε drawn from a seeded normal generator; the ``sd`` column is 2 %.
+    Demo data, invented: R(ρ) from Kienle & Patterson 1997 (fluence plus flux), multiplied by
+    (1 + 0.02 ε) with ε drawn from a seeded normal generator; the ``sd`` column is 2 %.  The
+    seeded demo batches' files (fitted with ``kienle1997``, the model that made them).
     """
     from phantomlab.transport.diffusion import srdr_reflectance  # layer 2
 
     generator = np.random.default_rng(seed)
-    lines = [f"# source: demo data, invented ({label}; synthetic, diffusion model Kienle & Patterson 1997 + 2 % noise)",
+    lines = [f"# source: demo data, invented ({label}; synthetic, diffusion model Kienle & Patterson 1997 + 2 % "
+             f"noise; fitted with that model, kienle1997, not the default Monte Carlo lookup)",
              "wavelength_nm,rho_mm,reflectance_per_mm2,sd"]
     for wavelength, mua, musp in zip(wavelength_nm, mua_per_mm, musp_per_mm):
         clean = np.asarray(srdr_reflectance(mua_per_mm=float(mua), musp_per_mm=float(musp),
@@ -125,6 +137,41 @@ def synthetic_srdr_csv(*, wavelength_nm, mua_per_mm, musp_per_mm, seed: int, lab
         noisy = clean * (1.0 + DEMO_RELATIVE_SD * generator.standard_normal(clean.size))
         for rho, value, exact in zip(DEMO_RHO_MM, noisy, clean):
             lines.append(f"{wavelength:g},{rho:g},{value:.6e},{DEMO_RELATIVE_SD * exact:.3e}")
+    return "\n".join(lines) + "\n"
+
+
+def monte_carlo_srdr_csv(*, wavelength_nm, mua_per_mm, musp_per_mm, seed: int, label: str) -> str:
+    """An srdr measurement file (docs/formats.md) of the demo emulsion's Monte Carlo light, with noise.
+
+    Demo data, invented: R(ρ) at :data:`DEMO_RHO_MM` from the shipped table of direct Monte
+    Carlo runs (:func:`phantomlab.ui.demo_light.demo_light_reflectance`: g 0.58, n 1.33),
+    multiplied by (1 + 0.02 ε) with ε drawn from a seeded normal generator; the ``sd``
+    column is the 2 % and the table's photon noise combined.  Distances the table does not
+    serve (its photon noise above 1.5 %, far out at high absorption) are left out.
+
+    Raises
+    ------
+    InputError
+        μs′/μa outside the table (20–1000) at some wavelength, or no distance served.
+    """
+    from phantomlab.errors import InputError
+    from phantomlab.ui.demo_light import demo_light_info, demo_light_reflectance
+
+    info = demo_light_info()
+    generator = np.random.default_rng(seed)
+    lines = [f"# source: demo data, invented ({label}; synthetic, phantomlab Monte Carlo run directly for the demo "
+             f"emulsion, g {info['g']:g}, n {info['n']:g}, shipped table demo_light_mc.npz + 2 % noise)",
+             "wavelength_nm,rho_mm,reflectance_per_mm2,sd"]
+    for wavelength, mua, musp in zip(wavelength_nm, mua_per_mm, musp_per_mm):
+        clean, photon_sd = demo_light_reflectance(mua_per_mm=float(mua), musp_per_mm=float(musp), rho_mm=DEMO_RHO_MM)
+        noisy = clean * (1.0 + DEMO_RELATIVE_SD * generator.standard_normal(clean.size))
+        sd = np.hypot(DEMO_RELATIVE_SD * clean, photon_sd)
+        for rho, value, error in zip(DEMO_RHO_MM, noisy, sd):
+            if np.isfinite(value):
+                lines.append(f"{wavelength:g},{rho:g},{value:.6e},{error:.3e}")
+    if len(lines) == 2:
+        raise InputError("demo measurement: the demo Monte Carlo table serves none of the probe's distances "
+                         "for this batch's optics")
     return "\n".join(lines) + "\n"
 
 
@@ -194,7 +241,7 @@ def seed_demo_database(workspace: Workspace) -> None:
                     wavelength_nm=made.wavelength_nm, mua_per_mm=made.mua_per_mm, musp_per_mm=musp,
                     seed=100 * number + index, label=f"batch {code}, day {age:g}",
                 )
-                attach_measurement(  # fitted with the model that made the file (the demo's own loop)
+                attach_measurement(  # fitted with the model that made the file (no baseline build at first start)
                     store, code, kind="srdr", file_name=f"demo-{code}-day{age:g}.csv", model="kienle1997",
                     raw_content=text.encode("utf-8"), sidecar_toml=DEMO_SIDECAR,
                     measured_on=mixed_on + _dt.timedelta(days=int(age)), phantom_age_days=age,
@@ -247,12 +294,13 @@ def ensure_demo_database(workspace: Workspace) -> Outcome:
     return outcome if not outcome.ok else Outcome(value=True)
 
 
-def demo_measurement_csv(store, code: str, *, seed: int = 7) -> str:
-    """An invented srdr file of a demo batch as mixed (demo only): for trying the loop on the page.
+def demo_batch_optics(store, code: str):
+    """The optics of a demo batch as mixed: the recipe layer's prediction of the amounts recorded,
+    with the invented "true" potencies :data:`DEMO_TRUE_POTENCIES` (demo only).
 
-    The optics are the recipe layer's prediction of the amounts recorded for the batch with
-    the invented "true" potencies, turned into R(ρ) by the diffusion model with 2 % noise,
-    exactly as the seeded demo measurements were made.
+    Returns
+    -------
+    phantomlab.recipe.plan_result.Prediction
     """
     from phantomlab.errors import InputError
     from phantomlab.recipe import predict  # layer 3
@@ -270,6 +318,16 @@ def demo_measurement_csv(store, code: str, *, seed: int = 7) -> str:
                  else float(row["volume_ml"]) / volume_ml  # as recorded (the matrix counted when given)
                  for row in amounts if row["stock"] in recipe.stock_keys}
     truth = {k: (v, 0.0) for k, v in DEMO_TRUE_POTENCIES.items() if k in recipe.stock_keys}
-    made = predict(recipe, volume_fractions=fractions, potencies=truth or None)
-    return synthetic_srdr_csv(wavelength_nm=made.wavelength_nm, mua_per_mm=made.mua_per_mm,
-                              musp_per_mm=made.musp_per_mm, seed=seed, label=f"batch {code}, invented on the page")
+    return predict(recipe, volume_fractions=fractions, potencies=truth or None)
+
+
+def demo_measurement_csv(store, code: str, *, seed: int = 7) -> str:
+    """An invented srdr file of a demo batch as mixed (demo only): for trying the loop on the page.
+
+    The optics are :func:`demo_batch_optics`, turned into R(ρ) by :func:`monte_carlo_srdr_csv`
+    (the demo emulsion's Monte Carlo light, 2 % noise): the page's default fit, the Monte
+    Carlo lookup at the batch's g, describes it (a batch of the demo recipe: g 0.58).
+    """
+    made = demo_batch_optics(store, code)
+    return monte_carlo_srdr_csv(wavelength_nm=made.wavelength_nm, mua_per_mm=made.mua_per_mm,
+                                musp_per_mm=made.musp_per_mm, seed=seed, label=f"batch {code}, invented on the page")
