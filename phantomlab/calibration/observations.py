@@ -148,7 +148,7 @@ def observation_from_fit(
         raise InputError(f"batch {batch_id}: {unknown[0]!r} is not a stock of recipe {recipe.name!r}")
     table = intrinsic_table(recipe, arrays["wavelength_nm"])
     fractions = np.array([float(volume_fractions.get(k, 0.0)) for k in table.stock_keys])
-    packing = float(table.packing_factor(fractions))  # dependent scattering: W of this batch
+    _, musp_factor = table.scattering_factors(fractions)  # dependent scattering of this batch
     lots = dict(lots or {})
     stocks = []
     for key in table.stock_keys:
@@ -159,7 +159,7 @@ def observation_from_fit(
     return BatchObservation(
         batch_id=str(batch_id), stocks=tuple(stocks), volume_fractions=fractions,
         wavelength_nm=table.wavelength_nm, intrinsic_mua_per_mm=table.mua_ingredient_per_mm,
-        intrinsic_musp_per_mm=packing * table.musp_per_mm, matrix_mua_per_mm=table.matrix_mua_per_mm,
+        intrinsic_musp_per_mm=musp_factor * table.musp_per_mm, matrix_mua_per_mm=table.matrix_mua_per_mm,
         carrier_mua_per_mm=table.mua_carrier_per_mm,
         mua_per_mm=arrays["mua_per_mm"], musp_per_mm=arrays["musp_per_mm"],
         covariance=arrays["covariance"], dispensing_rel_sd=dispensing_rel_sd, measurement_id=measurement_id,

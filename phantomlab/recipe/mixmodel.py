@@ -17,7 +17,13 @@ with W = 1 (independent scattering, the default).  Every line is then linear in 
 ``f``: the solver is a linear least-squares problem.  With a dependent-scattering model
 (``packing = "percus_yevick"``) W = W(φ) is the packing factor of the particle volume
 fraction φ = Σ f_i φ_i of the batch (:mod:`phantomlab.optics.dependent`); the solver then
-iterates on W.
+iterates on W.  The angular model (``packing = "percus_yevick_angular"``) gives each stock
+with a Mie size distribution its own factors at each wavelength, F_i(φ, λ) on μs and
+F′_i(φ, λ) on μs′ (:class:`~phantomlab.optics.dependent.AngularScattering`); the lines read
+
+    μs   = Σ f_i p_i s_i F_i,    μs′ = Σ f_i p_i s_i (1 − g_i) F′_i,    μs·g = μs − μs′
+
+and the other stocks take F = F′ = W(φ).
 
 References
 ----------
@@ -32,7 +38,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from phantomlab.errors import InputError
-from phantomlab.optics.dependent import PACKING_MODELS
+from phantomlab.optics.dependent import ANGULAR_MODELS, PACKING_MODELS
 
 __all__ = ["IntrinsicTable", "design_matrices", "mix_coefficients"]
 
@@ -62,6 +68,10 @@ class IntrinsicTable:
     packing : str
         Dependent-scattering model: ``"none"`` (independent scattering) or a key of
         :data:`phantomlab.optics.dependent.PACKING_MODELS`.
+    angular : tuple or None
+        For the angular models: per stock its
+        :class:`~phantomlab.optics.dependent.AngularScattering`, or None for a stock without
+        a Mie size distribution.
     """
 
     wavelength_nm: np.ndarray
@@ -75,6 +85,7 @@ class IntrinsicTable:
     matrix_density_g_per_ml: float = 1.0
     mua_carrier_per_mm: np.ndarray | None = None
     packing: str = "none"
+    angular: tuple | None = None
 
     def __post_init__(self) -> None:
         wavelength = np.atleast_1d(np.asarray(self.wavelength_nm, dtype=float))
@@ -91,6 +102,10 @@ class IntrinsicTable:
         if self.packing not in PACKING_MODELS:
             raise InputError(f"unknown dependent-scattering model {self.packing!r}; "
                              f"known: {', '.join(PACKING_MODELS)}")
+        if self.angular is not None:
+            if len(self.angular) != count:
+                raise InputError("intrinsic optics: angular scattering must be given for every stock (or None)")
+            object.__setattr__(self, "angular", tuple(self.angular))
         object.__setattr__(
             self,
             "matrix_mua_per_mm",
@@ -123,7 +138,7 @@ class IntrinsicTable:
         return p * self.mua_ingredient_per_mm + self.mua_carrier_per_mm
 
     def packing_factor(self, volume_fractions) -> np.ndarray:
-        """Factor W on the batch's scattering for doses ``volume_fractions`` (..., S).
+        """Small-q packing factor W for doses ``volume_fractions`` (..., S).
 
         1 for independent scattering; else the packing model's W(φ), φ = Σ f_i φ_i.
         """
@@ -134,6 +149,34 @@ class IntrinsicTable:
             return np.ones_like(phi)
         return model(volume_fraction=np.clip(phi, 0.0, 0.63))
 
+    def scattering_factors(self, volume_fractions) -> tuple[np.ndarray, np.ndarray]:
+        """Factors F on each stock's μs and F′ on its μs′ for doses ``volume_fractions``.
+
+        Parameters
+        ----------
+        volume_fractions : array (..., S) [fraction]
+
+        Returns
+        -------
+        mus_factor, musp_factor : ndarray (..., S, W) [dimensionless]
+            1 for independent scattering; W(φ) for every stock with the small-q model; with
+            an angular model, a stock's own S(q)-weighted factors where it has angular data.
+        """
+        f = np.asarray(volume_fractions, dtype=float)
+        phi = np.clip(f @ self.solids_volume_fraction, 0.0, 0.63)
+        shape = phi.shape + self.mus_per_mm.shape
+        small_q = np.asarray(self.packing_factor(f), dtype=float)
+        mus_factor = np.broadcast_to(small_q[..., None, None], shape).copy()
+        musp_factor = mus_factor.copy()
+        if self.packing in ANGULAR_MODELS and self.angular is not None:
+            for index, angular in enumerate(self.angular):
+                if angular is None:
+                    continue
+                for sample in np.ndindex(phi.shape):
+                    mus_factor[sample + (index,)], musp_factor[sample + (index,)] = angular.factors(
+                        volume_fraction=float(phi[sample]))
+        return mus_factor, musp_factor
+
     def index_of(self, key: str) -> int:
         try:
             return self.stock_keys.index(key)
@@ -143,16 +186,17 @@ class IntrinsicTable:
             ) from None
 
 
-def design_matrices(table: IntrinsicTable, *, potencies, packing_factor: float = 1.0) -> dict[str, np.ndarray]:
+def design_matrices(table: IntrinsicTable, *, potencies, factors=None) -> dict[str, np.ndarray]:
     """Columns of the linear model, one per stock, for given potencies.
 
     Parameters
     ----------
     table : IntrinsicTable
     potencies : array (S,) [dimensionless]
-    packing_factor : float [dimensionless]
-        W on the scattering columns (1: independent scattering); the solver passes the
-        packing factor of its current doses when the table has a packing model.
+    factors : (mus_factor, musp_factor) or None
+        Dependent-scattering factors on each stock's μs and μs′ (scalars or (S, W) arrays,
+        :meth:`IntrinsicTable.scattering_factors`); None is independent scattering.  The
+        solver passes the factors of its current doses when the table has a packing model.
 
     Returns
     -------
@@ -160,12 +204,15 @@ def design_matrices(table: IntrinsicTable, *, potencies, packing_factor: float =
         ``mua`` (μa − μa_m per unit f, displacement included), ``mus``, ``musp`` and ``gmus``
         (μs·g per unit f) [1/mm].
     """
-    p = np.asarray(potencies, dtype=float)[:, None] * packing_factor
+    p = np.asarray(potencies, dtype=float)[:, None]
+    mus_factor, musp_factor = (1.0, 1.0) if factors is None else factors
+    mus = p * mus_factor * table.mus_per_mm
+    musp = p * musp_factor * table.musp_per_mm
     return {
         "mua": (table.mua_at(potencies) - table.matrix_mua_per_mm[None, :]).T,
-        "mus": (p * table.mus_per_mm).T,
-        "musp": (p * table.musp_per_mm).T,
-        "gmus": (p * table.mus_per_mm * table.g).T,
+        "mus": mus.T,
+        "musp": musp.T,
+        "gmus": (mus - musp).T,
     }
 
 
@@ -189,9 +236,9 @@ def mix_coefficients(table: IntrinsicTable, *, volume_fractions, potencies) -> d
     fp = f * p
     matrix_fraction = 1.0 - f.sum(axis=-1, keepdims=True)
     mua = matrix_fraction * table.matrix_mua_per_mm + fp @ table.mua_ingredient_per_mm + f @ table.mua_carrier_per_mm
-    packing = np.asarray(table.packing_factor(f))[..., None]
-    mus = packing * (fp @ table.mus_per_mm)
-    musp = packing * (fp @ table.musp_per_mm)
-    gmus = packing * (fp @ (table.mus_per_mm * table.g))
+    mus_factor, musp_factor = table.scattering_factors(f)
+    mus = np.einsum("...s,...sw->...w", fp, mus_factor * table.mus_per_mm)
+    musp = np.einsum("...s,...sw->...w", fp, musp_factor * table.musp_per_mm)
+    gmus = mus - musp
     g = np.divide(gmus, mus, out=np.zeros_like(mus), where=mus > 0)
     return {"mua_per_mm": mua, "mus_per_mm": mus, "musp_per_mm": musp, "g": g}

@@ -52,6 +52,8 @@ def intrinsic_table(recipe: Recipe, wavelength_nm, *, so2: float | None = None) 
         From the optics layer, e.g. a wavelength outside a stock's measured spectrum.
     """
     from phantomlab.optics import intrinsic_optics  # layer 2
+    from phantomlab.optics.dependent import ANGULAR_MODELS
+    from phantomlab.optics.intrinsic import stock_angular_scattering
 
     grid = np.atleast_1d(np.asarray(wavelength_nm, dtype=float))
     matrix = recipe.matrix
@@ -65,6 +67,10 @@ def intrinsic_table(recipe: Recipe, wavelength_nm, *, so2: float | None = None) 
         for key in recipe.stock_keys
     ]
     stocks = [recipe.stock(key) for key in recipe.stock_keys]
+    angular = None
+    if recipe.dependent_scattering in ANGULAR_MODELS:
+        angular = tuple(stock_angular_scattering(stock, wavelength_nm=grid, matrix=matrix, temperature_c=temperature)
+                        for stock in stocks)
     return IntrinsicTable(
         wavelength_nm=grid,
         stock_keys=recipe.stock_keys,
@@ -77,6 +83,7 @@ def intrinsic_table(recipe: Recipe, wavelength_nm, *, so2: float | None = None) 
         matrix_density_g_per_ml=matrix.density_g_per_ml,
         mua_carrier_per_mm=np.array([r.mua_carrier_per_mm for r in rows]),
         packing=recipe.dependent_scattering,
+        angular=angular,
     )
 
 
@@ -380,8 +387,19 @@ def dependent_scattering_notes(recipe: Recipe, table: IntrinsicTable, fractions:
     """
     from phantomlab.optics.mixing import EMULSION_LINEAR_LIMIT, INDEPENDENT_SCATTERING_LIMIT  # layer 2
 
+    from phantomlab.optics.dependent import ANGULAR_MODELS
+
     corrected = table.packing != "none"
-    if corrected:
+    angular = [i for i, a in enumerate(table.angular or ()) if a is not None]
+    if corrected and table.packing in ANGULAR_MODELS and angular:
+        _, musp_factor = table.scattering_factors(fractions)
+        low, high = float(np.min(musp_factor[angular])), float(np.max(musp_factor[angular]))
+        others = [table.stock_keys[i] for i in range(len(table.stock_keys)) if i not in angular]
+        tail = (f"the prediction includes the angular Percus–Yevick correction (factor {low:.3f}–{high:.3f} on the "
+                f"μs′ of {', '.join(table.stock_keys[i] for i in angular)} across the wavelengths"
+                + (f"; the small-particle factor {float(table.packing_factor(fractions)):.3f} on "
+                   f"{', '.join(others)}, an upper estimate of the reduction)" if others else ")"))
+    elif corrected:
         tail = (f"the prediction includes the Percus–Yevick packing correction (factor "
                 f"{float(table.packing_factor(fractions)):.3f} on the scattering; an upper estimate of "
                 "the reduction for particles comparable to the wavelength)")

@@ -15,7 +15,10 @@ Top-level fields (docs/formats.md; those marked * came after the first design):
 ``dependent_scattering`` * ``"none"`` (default: independent scattering, doses add linearly)
                     or ``"percus_yevick"``: the solver and the prediction multiply the
                     batch's scattering by the Percus–Yevick packing factor of its particle
-                    volume fraction (:mod:`phantomlab.optics.dependent`)
+                    volume fraction (:mod:`phantomlab.optics.dependent`); or
+                    ``"percus_yevick_angular"``: sphere and powder stocks get the structure
+                    factor S(q) weighed over their Mie scattering angles, the other stocks
+                    the packing factor
 ``[target]``        see :mod:`phantomlab.recipe.targets`
 ``[limits]``        see :mod:`phantomlab.recipe.limits`
 ``[preparation]`` * see :mod:`phantomlab.recipe.preparation`

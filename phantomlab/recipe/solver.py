@@ -68,7 +68,7 @@ class SolverOutcome:
 
 
 def target_rows(table: IntrinsicTable, target: Target, *, potencies,
-                packing_factor: float = 1.0) -> tuple[np.ndarray, np.ndarray]:
+                factors=None) -> tuple[np.ndarray, np.ndarray]:
     """Scaled linear rows ``A f ≈ b`` of the relative-error least-squares problem.
 
     Parameters
@@ -77,15 +77,17 @@ def target_rows(table: IntrinsicTable, target: Target, *, potencies,
         On the target's wavelength grid.
     target : Target
     potencies : array (S,)
-    packing_factor : float
-        W on the scattering columns (dependent scattering; 1 for independent scattering).
+    factors : (mus_factor, musp_factor) or None
+        Dependent-scattering factors on the scattering columns
+        (:meth:`~phantomlab.recipe.mixmodel.IntrinsicTable.scattering_factors`); None for
+        independent scattering.
 
     Returns
     -------
     A : ndarray (R, S), b : ndarray (R,)
         One row per targeted (quantity, wavelength), scaled as in the module docstring.
     """
-    columns = design_matrices(table, potencies=potencies, packing_factor=packing_factor)
+    columns = design_matrices(table, potencies=potencies, factors=factors)
     rows, rhs = [], []
     has = np.isfinite(target.mua_per_mm)
     if np.any(has):
@@ -143,22 +145,24 @@ def solve_fractions(
     Notes
     -----
     With a dependent-scattering model on the table (``table.packing``), the scattering
-    columns carry the packing factor W(φ) of the doses; W is iterated to a fixed point
-    (solve with W, recompute W from the new doses) until it changes by less than 1e-9, at
-    most :data:`PACKING_ITERATIONS` times.
+    columns carry the factors of the doses (the packing factor W(φ), or each stock's
+    angular factors); they are iterated to a fixed point (solve with them, recompute them
+    from the new doses) until none changes by more than 1e-9, at most
+    :data:`PACKING_ITERATIONS` times.
     """
     fixed = dict(fixed_volume_fractions or {})
     if table.packing == "none":
-        return _solve_once(table, target, potencies, max_solids_volume_fraction, max_total_volume_fraction, 1.0,
+        return _solve_once(table, target, potencies, max_solids_volume_fraction, max_total_volume_fraction, None,
                            fixed)
-    packing = 1.0
+    factors = (np.ones(table.mus_per_mm.shape), np.ones(table.mus_per_mm.shape))
     for _ in range(PACKING_ITERATIONS):
-        outcome = _solve_once(table, target, potencies, max_solids_volume_fraction, max_total_volume_fraction, packing,
+        outcome = _solve_once(table, target, potencies, max_solids_volume_fraction, max_total_volume_fraction, factors,
                               fixed)
-        updated = float(table.packing_factor(outcome.volume_fractions))
-        if abs(updated - packing) < 1e-9:
+        updated = table.scattering_factors(outcome.volume_fractions)
+        change = max(float(np.max(np.abs(new - old))) for new, old in zip(updated, factors))
+        factors = updated
+        if change < 1e-9:
             break
-        packing = updated
     return outcome
 
 
@@ -168,8 +172,8 @@ PACKING_ITERATIONS = 50
 
 
 def _solve_once(table, target, potencies, max_solids_volume_fraction, max_total_volume_fraction,
-                packing, fixed=None) -> SolverOutcome:
-    A_all, b_all = target_rows(table, target, potencies=potencies, packing_factor=packing)
+                factors, fixed=None) -> SolverOutcome:
+    A_all, b_all = target_rows(table, target, potencies=potencies, factors=factors)
     total = A_all.shape[1]
     given = np.zeros(total)
     is_fixed = np.zeros(total, dtype=bool)

@@ -115,10 +115,10 @@ def propagate_sd(
     mix = mix_coefficients(table, volume_fractions=f, potencies=p)
     f_matrix = 1.0 - f.sum()
     out = {}
-    packing = float(table.packing_factor(f))  # W(φ) on scattering; its own change with f is left out
+    _, musp_factor = table.scattering_factors(f)  # dependent scattering; its own change with f is left out
     for name, scaled, fixed, matrix_value in (
         ("mua", table.mua_ingredient_per_mm, table.mua_carrier_per_mm, table.matrix_mua_per_mm),
-        ("musp", packing * table.musp_per_mm, 0.0, np.zeros_like(table.matrix_mua_per_mm)),
+        ("musp", musp_factor * table.musp_per_mm, 0.0, np.zeros_like(table.matrix_mua_per_mm)),
     ):
         c_mix = mix[f"{name}_per_mm"]
         spread = sp[:, None] if potency_sd_by_wavelength is None else potency_sd_by_wavelength[name]

@@ -41,3 +41,89 @@ def test_limits_and_refusals():
     assert np.all(np.diff(values) < 0)
     with pytest.raises(InputError, match="volume fraction must lie in \\[0, 0.64\\)"):
         packing_factor_PercusYevick(volume_fraction=0.7)
+
+
+# ---- the structure factor S(q) and the angular model ------------------------------------------
+
+from scipy.integrate import quad  # noqa: E402
+
+from phantomlab.optics.dependent import angular_scattering, structure_factor_PercusYevick  # noqa: E402
+
+
+def structure_factor_by_quadrature(q, f):
+    # S = 1 / (1 - rho c(q)), rho c(q) = 4 pi rho int c(r) r^2 sin(qr)/(qr) dr with Wertheim's
+    # (1963, eq. 7) direct correlation function c(r) = -(alpha + beta s + gamma s^3), s = r/d < 1;
+    # integrated numerically here, not from the closed form under test
+    alpha = (1 + 2 * f) ** 2 / (1 - f) ** 4
+    beta = -6 * f * (1 + f / 2) ** 2 / (1 - f) ** 4
+    gamma = f * alpha / 2
+    integral = quad(lambda s: -(alpha + beta * s + gamma * s**3) * s**2 * np.sinc(q * s / np.pi), 0, 1,
+                    epsabs=1e-13, epsrel=1e-12)[0]
+    return 1 / (1 - 24 * f * integral)
+
+
+@pytest.mark.parametrize("f", [0.01, 0.1, 0.3, 0.5])
+@pytest.mark.parametrize("q", [0.0, 0.4, 0.999, 1.0, 1.001, 3.0, 4.5, 7.2, 15.0, 60.0])
+def test_structure_factor_against_the_transform_of_the_direct_correlation_function(q, f):
+    assert structure_factor_PercusYevick(q_diameter=q, volume_fraction=f) == pytest.approx(
+        structure_factor_by_quadrature(q, f), rel=1e-10)
+
+
+def test_structure_factor_limits():
+    q = np.linspace(0.0, 40.0, 401)
+    for f in (0.05, 0.2, 0.4):
+        s = structure_factor_PercusYevick(q_diameter=q, volume_fraction=f)
+        assert s[0] == pytest.approx(packing_factor_PercusYevick(volume_fraction=f), rel=1e-12)  # S(0) = W(f)
+        assert np.all(s >= s[0])  # hard spheres: q -> 0 is where S is lowest
+        assert abs(s[-1] - 1) < 0.05  # S -> 1 at large q
+    assert structure_factor_PercusYevick(q_diameter=q, volume_fraction=1e-9) == pytest.approx(1.0, abs=1e-7)
+    with pytest.raises(InputError, match="q·d must be finite and >= 0"):
+        structure_factor_PercusYevick(q_diameter=-1.0, volume_fraction=0.1)
+
+
+LAMBDA = np.array([450.0, 633.0, 900.0])
+
+
+def test_angular_factors_tend_to_one_and_to_the_packing_factor():
+    tiny = angular_scattering(wavelength_nm=LAMBDA, particle_index=1.59, matrix_index=1.33,
+                              diameters_um=[0.002], number_weights=[1.0])
+    for f in (0.05, 0.2, 0.4):
+        mus, musp = tiny.factors(volume_fraction=f)
+        w = packing_factor_PercusYevick(volume_fraction=f)  # q d -> 0 for particles << wavelength
+        assert mus == pytest.approx(np.full(3, w), rel=1e-3)
+        assert musp == pytest.approx(np.full(3, w), rel=1e-3)
+    sized = angular_scattering(wavelength_nm=LAMBDA, particle_index=1.59, matrix_index=1.33,
+                               diameters_um=[0.5], number_weights=[1.0])
+    mus, musp = sized.factors(volume_fraction=0.0)
+    assert mus == pytest.approx(np.ones(3), abs=1e-12) and musp == pytest.approx(np.ones(3), abs=1e-12)
+    mus, musp = sized.factors(volume_fraction=0.2)
+    w = packing_factor_PercusYevick(volume_fraction=0.2)
+    # wavelength-sized spheres: less reduction than the small-particle factor, least for mus'
+    assert np.all(mus > w) and np.all(musp > mus) and np.all(musp < 1)
+
+
+def test_angular_factors_against_adaptive_quadrature_with_miepython():
+    # independent route: miepython's S1, S2 (norm="wiscombe") integrated over theta by scipy quad,
+    # weighted by the structure factor (itself checked above against its defining transform)
+    import miepython
+
+    d_um, f, n_medium = 0.5, 0.2, 1.33
+    for lam in LAMBDA:
+        k = 2 * np.pi * n_medium / (lam / 1000)
+        x, m = k * d_um / 2, 1.59 / n_medium
+
+        def s11(mu):
+            s1, s2 = miepython.S1_S2(m, x, np.array([mu]), norm="wiscombe")
+            return 0.5 * (abs(s1[0]) ** 2 + abs(s2[0]) ** 2)
+
+        def structure(mu):
+            return float(structure_factor_PercusYevick(q_diameter=k * d_um * np.sqrt(2 * (1 - mu)), volume_fraction=f))
+
+        plain = quad(s11, -1, 1, limit=400, epsrel=1e-11)[0]
+        plain_t = quad(lambda u: s11(u) * (1 - u), -1, 1, limit=400, epsrel=1e-11)[0]
+        mus = quad(lambda u: s11(u) * structure(u), -1, 1, limit=400, epsrel=1e-11)[0] / plain
+        musp = quad(lambda u: s11(u) * structure(u) * (1 - u), -1, 1, limit=400, epsrel=1e-11)[0] / plain_t
+        ours = angular_scattering(wavelength_nm=[lam], particle_index=1.59, matrix_index=n_medium,
+                                  diameters_um=[d_um], number_weights=[1.0]).factors(volume_fraction=f)
+        assert float(ours[0][0]) == pytest.approx(mus, rel=1e-8)
+        assert float(ours[1][0]) == pytest.approx(musp, rel=1e-8)

@@ -117,5 +117,47 @@ def test_solver_with_the_correction_reaches_a_target_made_with_it(shelf):
 def test_unknown_dependent_scattering_model_refused(shelf):
     from phantomlab.errors import InputError
 
-    with pytest.raises(InputError, match="dependent_scattering = 'twersky'; accepted: 'none', 'percus_yevick'"):
+    with pytest.raises(InputError, match="dependent_scattering = 'twersky'; accepted: 'none', 'percus_yevick', 'percus_yevick_angular'"):
         recipe(shelf, ["lipid20"], {"wavelength_nm": [700.0], "musp_per_mm": [1.0]}, dependent_scattering="twersky")
+
+
+def test_angular_model_gives_sphere_stocks_their_own_factors(shelf):
+    # ps1000 (Mie spheres) gets the S(q)-weighted factors of its own size distribution, checked
+    # against their defining integrals in tests/optics/test_dependent.py; lipid20 (an empirical
+    # emulsion model, no size distribution) keeps the small-q factor W(phi)
+    from phantomlab.optics.intrinsic import stock_angular_scattering
+    from phantomlab.recipe.plan import intrinsic_table
+
+    lam = [650.0, 750.0, 850.0]
+    target = {"wavelength_nm": lam, "musp_per_mm": [3.0, 3.0, 3.0]}
+    doses = {"ps1000": 0.6, "lipid20": 0.2}
+    plain_recipe = recipe(shelf, ["ps1000", "lipid20"], target)
+    angular_recipe = recipe(shelf, ["ps1000", "lipid20"], target, dependent_scattering="percus_yevick_angular")
+    plain = plan_for_fractions(plain_recipe, doses, check_target=False)
+    corrected = plan_for_fractions(angular_recipe, doses, check_target=False)
+    table = intrinsic_table(plain_recipe, lam)
+    phi = 0.6 * shelf["ps1000"].solids_volume_fraction + 0.2 * 0.20 / 0.92
+    spheres = stock_angular_scattering(shelf["ps1000"], wavelength_nm=lam, matrix=shelf["water"])
+    _, musp_spheres = spheres.factors(volume_fraction=phi)
+    by_hand = (0.6 * table.musp_per_mm[0] * musp_spheres
+               + 0.2 * table.musp_per_mm[1] * packing(phi))
+    assert corrected.predicted.musp_per_mm == pytest.approx(by_hand, rel=1e-9)
+    assert np.all(corrected.predicted.musp_per_mm < plain.predicted.musp_per_mm)
+    assert np.all(musp_spheres > packing(phi))  # 1 um spheres: weaker reduction than the q -> 0 factor
+    assert any("angular Percus–Yevick correction" in w and "ps1000" in w for w in corrected.warnings)
+
+
+def test_solver_with_the_angular_model_reaches_a_target_made_with_it(shelf):
+    from phantomlab.optics.intrinsic import stock_angular_scattering
+    from phantomlab.recipe.plan import intrinsic_table
+
+    lam = np.array([650.0, 750.0, 850.0])
+    dose = 0.9  # of the 2.5 % w/v stock: particles about 2 % of the batch
+    r0 = recipe(shelf, ["ps500"], {"wavelength_nm": lam.tolist(), "musp_per_mm": [1.0, 1.0, 1.0]})
+    phi = dose * shelf["ps500"].solids_volume_fraction
+    _, factor = stock_angular_scattering(shelf["ps500"], wavelength_nm=lam, matrix=shelf["water"]).factors(
+        volume_fraction=phi)
+    want = dose * intrinsic_table(r0, lam).musp_per_mm[0] * factor
+    target = {"wavelength_nm": lam.tolist(), "musp_per_mm": want.tolist()}
+    plan = solve(recipe(shelf, ["ps500"], target, dependent_scattering="percus_yevick_angular"), curve=False)
+    assert plan.dose("ps500").volume_fraction == pytest.approx(dose, rel=1e-6)
