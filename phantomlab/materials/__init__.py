@@ -47,10 +47,12 @@ from phantomlab.materials.water import (
     DEFAULT_WATER_SOURCE,
     WATER_ABSORPTION_SOURCES,
     water_absorption_HaleQuerry1973,
+    water_absorption_Kou1993,
     water_absorption_PopeFry1997,
     water_absorption_Segelstein1981,
     water_absorption_per_mm,
     water_density_Kell1975,
+    water_temperature_coefficient_per_mm_per_c,
 )
 
 __all__ = [
@@ -72,6 +74,8 @@ __all__ = [
     "water_absorption_PopeFry1997",
     "water_absorption_Segelstein1981",
     "water_absorption_per_mm",
+    "water_absorption_Kou1993",
+    "water_temperature_coefficient_per_mm_per_c",
     "WATER_ABSORPTION_SOURCES",
     "DEFAULT_WATER_SOURCE",
     "water_density_Kell1975",

@@ -23,7 +23,7 @@ import numpy as np
 
 from phantomlab.errors import InputError
 
-__all__ = ["AbsorptionTable", "absorption_table", "LogPchip"]
+__all__ = ["AbsorptionTable", "absorption_table", "CoefficientTable", "coefficient_table", "LogPchip"]
 
 _TO_PER_MM = {"mua_per_m": 1e-3, "mua_per_cm": 0.1, "mua_per_mm": 1.0}
 
@@ -88,6 +88,41 @@ def absorption_table(file: str) -> AbsorptionTable:
     wavelength_nm.setflags(write=False)
     mua.setflags(write=False)
     return AbsorptionTable(file, source, wavelength_nm, mua)
+
+
+@dataclass(frozen=True)
+class CoefficientTable:
+    """A shipped table of numbers by column (e.g. temperature coefficients, any sign).
+
+    Attributes
+    ----------
+    file : str
+    source : str
+        Its provenance line.
+    columns : dict of str to ndarray
+        Each column by its header name, as published.
+    """
+
+    file: str
+    source: str
+    columns: dict
+
+
+@lru_cache(maxsize=None)
+def coefficient_table(file: str) -> CoefficientTable:
+    """Read a shipped table of coefficients (cached); the first column must increase."""
+    text = resources.files("phantomlab").joinpath("data", file).read_text(encoding="utf-8")
+    lines = [line.strip() for line in text.splitlines() if line.strip()]
+    if not lines[0].startswith("# source:"):
+        raise InputError(f"shipped table {file} lacks its provenance line")
+    names = lines[1].split(",")
+    rows = np.array([[float(v) for v in line.split(",")] for line in lines[2:]])
+    if rows.shape[1] != len(names) or np.any(np.diff(rows[:, 0]) <= 0):
+        raise InputError(f"shipped table {file}: each row needs {len(names)} numbers, the first increasing")
+    columns = {name: rows[:, i].copy() for i, name in enumerate(names)}
+    for values in columns.values():
+        values.setflags(write=False)
+    return CoefficientTable(file, lines[0][len("# source:"):].strip(), columns)
 
 
 class LogPchip:

@@ -7,12 +7,15 @@ The refractive index of water (IAPWS R9-97) lives with the other index formulas 
 Water absorption sources (:data:`WATER_ABSORPTION_SOURCES`; a stock may name one in its
 ``water_source`` field):
 
-``popefry1997_segelstein1981`` (default)
-    Pope & Fry 1997 (integrating cavity, 380–700 nm, every 2.5 nm) where it exists, and
-    Segelstein 1981 (a compilation at 5–10 nm spacing in the NIR) below 380 nm and above
-    700 nm, to 1100 nm.  Pope & Fry is the reference of the visible minimum; in the NIR
-    Segelstein resolves the 740 nm and 970 nm bands that the 25 nm rows of Hale & Querry
-    1973 cut through.
+``popefry1997_kou1993`` (default)
+    Pope & Fry 1997 (integrating cavity, 380–727.5 nm, every 2.5 nm, all 140 rows), Kou,
+    Labrie & Chylek 1993 from 730 to 1230 nm (every 5 nm as the IOCCG 2018 protocols tabulate
+    it, with its uncertainty), and Segelstein 1981 below 380 nm, where neither reaches.  Both
+    main tables are direct measurements on pure water at 22 °C; Kou resolves the 740, 840 and
+    970 nm bands at 5 nm and agrees with Pope & Fry where they meet.
+``popefry1997_segelstein1981``
+    Pope & Fry 1997 over 380–727.5 nm and Segelstein 1981 (a compilation at 5–10 nm spacing
+    in the NIR) below 380 nm and above 727.5 nm, to 1100 nm.
 ``segelstein1981``
     Segelstein 1981 alone, 200–1100 nm.
 ``halequerry1973``
@@ -21,6 +24,11 @@ Water absorption sources (:data:`WATER_ABSORPTION_SOURCES`; a stock may name one
 Every table is shipped at its full resolution in the band used, each file with its
 provenance line (:mod:`phantomlab.materials.absorption_tables`), and interpolated by PCHIP
 in log μa.
+
+Temperature: each table holds water at its own temperature (Pope & Fry and Kou 22 °C,
+Segelstein and Hale & Querry 25 °C).  ``water_absorption_per_mm(..., temperature_c=T)`` adds
+the published linear coefficient ∂μa/∂T of the IOCCG 2018 protocols times (T − table
+temperature), 300–1230 nm (:func:`water_temperature_coefficient_per_mm_per_c`).
 """
 
 from __future__ import annotations
@@ -32,14 +40,16 @@ from functools import lru_cache
 import numpy as np
 
 from phantomlab.errors import InputError, PhantomlabWarning
-from phantomlab.materials.absorption_tables import LogPchip, absorption_table
+from phantomlab.materials.absorption_tables import LogPchip, absorption_table, coefficient_table
 
 __all__ = [
     "water_density_Kell1975",
     "water_absorption_HaleQuerry1973",
     "water_absorption_Segelstein1981",
     "water_absorption_PopeFry1997",
+    "water_absorption_Kou1993",
     "water_absorption_per_mm",
+    "water_temperature_coefficient_per_mm_per_c",
     "water_absorption_rows",
     "WaterSource",
     "WATER_ABSORPTION_SOURCES",
@@ -51,11 +61,24 @@ __all__ = [
 KELL1975_BAND_C = (0.0, 150.0)
 
 POPE_FRY_1997_FILE = "water_absorption_pope_fry_1997.csv"
+KOU_1993_FILE = "water_absorption_kou_1993.csv"
 SEGELSTEIN_1981_FILE = "water_absorption_segelstein_1981.csv"
 HALE_QUERRY_1973_FILE = "water_absorption_hale_querry_1973.csv"
+TEMPERATURE_COEFFICIENT_FILE = "water_temperature_coefficient_ioccg_2018.csv"
 
-#: Where the default composite switches from Segelstein 1981 to Pope & Fry 1997 and back [nm].
-POPE_FRY_1997_BAND_NM = (380.0, 700.0)
+#: Rows of Pope & Fry 1997, Table 3 [nm]: where the composites use it.
+POPE_FRY_1997_BAND_NM = (380.0, 727.5)
+#: Rows of Kou et al. 1993 as tabulated by IOCCG 2018 [nm].
+KOU_1993_BAND_NM = (730.0, 1230.0)
+
+#: Temperature of the water each table measured [°C]: Pope & Fry 1997 22 °C (from memory);
+#: Kou, Labrie & Chylek 1993 22 °C (their abstract); Segelstein 1981 and Hale & Querry 1973
+#: 25 °C (the provenance lines of their files).
+TABLE_TEMPERATURE_C = {POPE_FRY_1997_FILE: 22.0, KOU_1993_FILE: 22.0, SEGELSTEIN_1981_FILE: 25.0,
+                       HALE_QUERRY_1973_FILE: 25.0}
+#: Farthest from a table's temperature that the linear coefficient is applied without a
+#: warning [°C]; the IOCCG 2018 table states no range, so this bound is our choice, no source.
+TEMPERATURE_SPAN_C = 15.0
 
 
 @dataclass(frozen=True)
@@ -82,10 +105,17 @@ class WaterSource:
 
 #: Water-absorption sources by name; the first is the default.
 WATER_ABSORPTION_SOURCES: dict[str, WaterSource] = {
+    "popefry1997_kou1993": WaterSource(
+        "popefry1997_kou1993", (200.0, 1230.0),
+        "Pope & Fry 1997, Appl. Opt. 36:8710 (380–727.5 nm); Kou, Labrie & Chylek 1993, Appl. Opt. 32:3531, "
+        "as tabulated by the IOCCG 2018 protocols (730–1230 nm); Segelstein 1981, MSc thesis, "
+        "Univ. Missouri-Kansas City (200–380 nm)",
+        (POPE_FRY_1997_FILE, KOU_1993_FILE, SEGELSTEIN_1981_FILE),
+    ),
     "popefry1997_segelstein1981": WaterSource(
         "popefry1997_segelstein1981", (200.0, 1100.0),
-        "Pope & Fry 1997, Appl. Opt. 36:8710 (380–700 nm); Segelstein 1981, MSc thesis, "
-        "Univ. Missouri-Kansas City (200–380 nm and 700–1100 nm)",
+        "Pope & Fry 1997, Appl. Opt. 36:8710 (380–727.5 nm); Segelstein 1981, MSc thesis, "
+        "Univ. Missouri-Kansas City (200–380 nm and 727.5–1100 nm)",
         (POPE_FRY_1997_FILE, SEGELSTEIN_1981_FILE),
     ),
     "segelstein1981": WaterSource(
@@ -97,7 +127,7 @@ WATER_ABSORPTION_SOURCES: dict[str, WaterSource] = {
         "Hale & Querry 1973, Appl. Opt. 12:555 (200–1000 nm)", (HALE_QUERRY_1973_FILE,),
     ),
 }
-DEFAULT_WATER_SOURCE = "popefry1997_segelstein1981"
+DEFAULT_WATER_SOURCE = "popefry1997_kou1993"
 
 #: Wavelength band of the default water source [nm].
 WATER_ABSORPTION_TABLE_BAND_NM = WATER_ABSORPTION_SOURCES[DEFAULT_WATER_SOURCE].band_nm
@@ -174,18 +204,28 @@ def water_absorption_rows(source: str = DEFAULT_WATER_SOURCE) -> tuple[np.ndarra
     mua_per_mm : ndarray [1/mm]
         Each row exactly as its table gives it (μa = 4πk/λ for index tables).
     """
+    wavelength, mua, _ = _rows_with_files(source)
+    return wavelength, mua
+
+
+@lru_cache(maxsize=None)
+def _rows_with_files(source: str) -> tuple[np.ndarray, np.ndarray, tuple[str, ...]]:
+    """The rows of a source, and the file each row comes from."""
     spec = water_source(source)
-    if spec.name == "popefry1997_segelstein1981":
+    if spec.name in ("popefry1997_segelstein1981", "popefry1997_kou1993"):
         pope = absorption_table(POPE_FRY_1997_FILE)
         seg = absorption_table(SEGELSTEIN_1981_FILE)
-        lo, hi = POPE_FRY_1997_BAND_NM
-        below = seg.wavelength_nm < lo
-        above = seg.wavelength_nm > hi
-        wavelength = np.concatenate([seg.wavelength_nm[below], pope.wavelength_nm, seg.wavelength_nm[above]])
-        mua = np.concatenate([seg.mua_per_mm[below], pope.mua_per_mm, seg.mua_per_mm[above]])
-        return wavelength, mua
-    table = absorption_table(spec.files[0])
-    return table.wavelength_nm, table.mua_per_mm
+        upper = absorption_table(KOU_1993_FILE) if spec.name == "popefry1997_kou1993" else seg
+        below = seg.wavelength_nm < POPE_FRY_1997_BAND_NM[0]
+        above = upper.wavelength_nm > POPE_FRY_1997_BAND_NM[1]
+        parts = [(seg, below), (pope, np.ones(pope.wavelength_nm.shape, bool)), (upper, above)]
+    else:
+        table = absorption_table(spec.files[0])
+        parts = [(table, np.ones(table.wavelength_nm.shape, bool))]
+    wavelength = np.concatenate([t.wavelength_nm[keep] for t, keep in parts])
+    mua = np.concatenate([t.mua_per_mm[keep] for t, keep in parts])
+    files = tuple(t.file for t, keep in parts for _ in range(int(keep.sum())))
+    return wavelength, mua, files
 
 
 def water_source(name) -> WaterSource:
@@ -217,15 +257,19 @@ def _checked_wavelengths(wavelength_nm, band, what: str) -> np.ndarray:
     return wavelength
 
 
-def water_absorption_per_mm(wavelength_nm, *, source: str = DEFAULT_WATER_SOURCE) -> np.ndarray:
+def water_absorption_per_mm(wavelength_nm, *, source: str = DEFAULT_WATER_SOURCE, temperature_c=None) -> np.ndarray:
     """μa of pure liquid water [1/mm] from a published table.
 
     Parameters
     ----------
     wavelength_nm : float or array [nm]
-        Inside the source's band (200–1100 nm for the default); outside, refused.
+        Inside the source's band (200–1230 nm for the default); outside, refused.
     source : str
         Key of :data:`WATER_ABSORPTION_SOURCES` (default :data:`DEFAULT_WATER_SOURCE`).
+    temperature_c : float, optional [°C]
+        None (default): each table at its own temperature, as published.  A temperature adds
+        ∂μa/∂T × (T − table temperature) (:func:`water_temperature_coefficient_per_mm_per_c`,
+        300–1230 nm; refused outside); more than 15 °C from the table's temperature warns.
 
     Returns
     -------
@@ -235,34 +279,97 @@ def water_absorption_per_mm(wavelength_nm, *, source: str = DEFAULT_WATER_SOURCE
     Notes
     -----
     The tabulated rows are reproduced exactly; between rows, PCHIP through log μa.  With the
-    default source, wavelengths below 380 nm come from Segelstein 1981, whose UV values lie
-    well above the modern ones (≈5× Pope & Fry at 380 nm): a :class:`PhantomlabWarning` says
-    so; water absorbs less than 1e-4 /mm there in either case.
+    Pope & Fry composites, wavelengths below 380 nm come from Segelstein 1981, whose UV values
+    lie well above the modern ones (≈5× Pope & Fry at 380 nm): a :class:`PhantomlabWarning`
+    says so; water absorbs less than 1e-4 /mm there in either case.
 
-    Temperature: the tables are at 20–25 °C; the temperature dependence of the NIR bands
-    (a few % per 10 °C near 740 and 970 nm) is not applied, because no published coefficient
-    table was read for this release.
+    The temperature correction is linear (the IOCCG 2018 coefficients): near 740 nm about
+    +0.6 % per °C, near 970 nm +0.5 % per °C, a few 0.1 % per °C in the visible.
 
     References
     ----------
     1. Pope, R. M. & Fry, E. S. (1997). Absorption spectrum (380–700 nm) of pure water. II.
        Integrating cavity measurements. Appl. Opt. 36(33), 8710–8723. doi:10.1364/AO.36.008710
-    2. Segelstein, D. J. (1981). The complex refractive index of water. MSc thesis,
+    2. Kou, L., Labrie, D. & Chylek, P. (1993). Refractive indices of water and ice in the
+       0.65- to 2.5-µm spectral range. Appl. Opt. 32(19), 3531–3540. doi:10.1364/AO.32.003531
+    3. IOCCG Protocol Series (2018). Inherent Optical Property Measurements and Protocols:
+       Absorption Coefficient. Neeley, A. R. & Mannino, A. (eds.), vol. 1.0, IOCCG, Dartmouth,
+       NS, Canada (pure-water table: Kou et al. at 5 nm and ∂a_w/∂T).
+    4. Segelstein, D. J. (1981). The complex refractive index of water. MSc thesis,
        University of Missouri-Kansas City.
-    3. Hale, G. M. & Querry, M. R. (1973). Optical constants of water in the 200-nm to
+    5. Hale, G. M. & Querry, M. R. (1973). Optical constants of water in the 200-nm to
        200-µm wavelength region. Appl. Opt. 12(3), 555–563. doi:10.1364/AO.12.000555
     """
     spec = water_source(source)
     wavelength = _checked_wavelengths(wavelength_nm, spec.band_nm, f"water source {spec.name} ({spec.citation})")
     finite = wavelength[np.isfinite(wavelength)]
-    if spec.name == "popefry1997_segelstein1981" and finite.size and finite.min() < POPE_FRY_1997_BAND_NM[0]:
+    if (spec.name in ("popefry1997_segelstein1981", "popefry1997_kou1993") and finite.size
+            and finite.min() < POPE_FRY_1997_BAND_NM[0]):
         warnings.warn(
             f"water absorption: {finite.min():g} nm is below the {POPE_FRY_1997_BAND_NM[0]:g} nm start of Pope & Fry "
             "1997; Segelstein 1981 is used there, about 5x the modern values at 380 nm (an upper estimate)",
             PhantomlabWarning,
             stacklevel=2,
         )
-    return _interpolant(spec.name)(wavelength)
+    mua = _interpolant(spec.name)(wavelength)
+    if temperature_c is None:
+        return mua
+    temperature = float(_as_float_array(temperature_c, "temperature_c"))
+    if not np.isfinite(temperature) or temperature <= -273.15:
+        raise InputError(f"water absorption: temperature_c must be a finite temperature in °C, got {temperature_c!r}")
+    coefficient, _ = water_temperature_coefficient_per_mm_per_c(wavelength)
+    table_temperature = _table_temperature(spec.name, wavelength)
+    shift = temperature - table_temperature
+    if np.any(np.abs(shift[np.isfinite(shift)]) > TEMPERATURE_SPAN_C):
+        warnings.warn(
+            f"water absorption: {temperature:g} °C is more than {TEMPERATURE_SPAN_C:g} °C from the table temperature "
+            "(22–25 °C); the linear temperature coefficient of IOCCG 2018 is extrapolated there",
+            PhantomlabWarning,
+            stacklevel=2,
+        )
+    return mua + coefficient * shift
+
+
+def _table_temperature(source: str, wavelength: np.ndarray) -> np.ndarray:
+    """Temperature of the table row each wavelength is interpolated from [°C]."""
+    rows_nm, _, files = _rows_with_files(source)
+    temperatures = np.array([TABLE_TEMPERATURE_C[f] for f in files])
+    index = np.clip(np.searchsorted(rows_nm, np.nan_to_num(wavelength, nan=rows_nm[0])), 0, len(rows_nm) - 1)
+    return np.where(np.isfinite(wavelength), temperatures[index], np.nan)
+
+
+@lru_cache(maxsize=1)
+def _temperature_coefficient_rows() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    table = coefficient_table(TEMPERATURE_COEFFICIENT_FILE)
+    per_mm = 1e-4 * 1e-3  # the table's unit is 1e-4 /m per °C
+    return (table.columns["wavelength_nm"], table.columns["dmua_dt_1e4_per_m_per_c"] * per_mm,
+            table.columns["dmua_dt_sd_1e4_per_m_per_c"] * per_mm)
+
+
+def water_temperature_coefficient_per_mm_per_c(wavelength_nm) -> tuple[np.ndarray, np.ndarray]:
+    """Published linear temperature coefficient ∂μa/∂T of pure water, with its SD.
+
+    Parameters
+    ----------
+    wavelength_nm : float or array [nm]
+        300–1230 nm (the table's rows, every 5 nm); outside, refused.
+
+    Returns
+    -------
+    coefficient, sd : ndarray [1/mm per °C]
+        Linear interpolation between the rows of the IOCCG 2018 table (given there in units
+        of 1e-4 /m per °C).
+
+    References
+    ----------
+    1. IOCCG Protocol Series (2018). Inherent Optical Property Measurements and Protocols:
+       Absorption Coefficient. Neeley, A. R. & Mannino, A. (eds.), vol. 1.0, IOCCG,
+       Dartmouth, NS, Canada (pure-water table, columns ∂a_w/∂T and its σ).
+    """
+    rows_nm, coefficient, sd = _temperature_coefficient_rows()
+    wavelength = _checked_wavelengths(wavelength_nm, (float(rows_nm[0]), float(rows_nm[-1])),
+                                      "the temperature coefficients of IOCCG 2018")
+    return np.interp(wavelength, rows_nm, coefficient), np.interp(wavelength, rows_nm, sd)
 
 
 def water_absorption_HaleQuerry1973(*, wavelength_nm) -> np.ndarray:
@@ -307,12 +414,12 @@ def water_absorption_Segelstein1981(*, wavelength_nm) -> np.ndarray:
 
 
 def water_absorption_PopeFry1997(*, wavelength_nm) -> np.ndarray:
-    """μa of pure water [1/mm] from Pope & Fry 1997, Table 3, 380–700 nm (PCHIP in log μa).
+    """μa of pure water [1/mm] from Pope & Fry 1997, Table 3, 380–727.5 nm (PCHIP in log μa).
 
     Parameters
     ----------
     wavelength_nm : float or array [nm]
-        Refused outside 380–700 nm.
+        Refused outside 380–727.5 nm.
 
     Returns
     -------
@@ -330,4 +437,34 @@ def water_absorption_PopeFry1997(*, wavelength_nm) -> np.ndarray:
 @lru_cache(maxsize=1)
 def _pope_fry_interpolant() -> LogPchip:
     table = absorption_table(POPE_FRY_1997_FILE)
+    return LogPchip(table.wavelength_nm, table.mua_per_mm)
+
+
+def water_absorption_Kou1993(*, wavelength_nm) -> np.ndarray:
+    """μa of pure water at 22 °C [1/mm] from Kou, Labrie & Chylek 1993, 730–1230 nm.
+
+    The rows as the IOCCG 2018 protocols tabulate them every 5 nm (PCHIP in log μa between).
+
+    Parameters
+    ----------
+    wavelength_nm : float or array [nm]
+        Refused outside 730–1230 nm.
+
+    Returns
+    -------
+    ndarray [1/mm]
+
+    References
+    ----------
+    1. Kou, L., Labrie, D. & Chylek, P. (1993). Refractive indices of water and ice in the
+       0.65- to 2.5-µm spectral range. Appl. Opt. 32(19), 3531–3540. doi:10.1364/AO.32.003531
+    2. IOCCG Protocol Series (2018), vol. 1.0 (the 5 nm tabulation with its uncertainty).
+    """
+    wavelength = _checked_wavelengths(wavelength_nm, KOU_1993_BAND_NM, "Kou et al. 1993")
+    return _kou_interpolant()(wavelength)
+
+
+@lru_cache(maxsize=1)
+def _kou_interpolant() -> LogPchip:
+    table = absorption_table(KOU_1993_FILE)
     return LogPchip(table.wavelength_nm, table.mua_per_mm)

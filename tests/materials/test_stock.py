@@ -218,7 +218,7 @@ BAD_CASES = [
     (('spectrum_csv = "dye.csv"', 'spectrum_csv = "decreasing.csv"'), "stock dye, field spectrum_csv: '.*decreasing.csv': wavelength_nm must increase strictly"),
     (('spectrum_csv = "dye.csv"', 'spectrum_csv = "dye.csv"\ncuvette_csv = "dye.csv"'), "stock dye, field cuvette_csv: give one of spectrum_csv, extinction_csv, cuvette_csv"),
     # water sources and solvents
-    (('density_g_per_ml = 1.0', 'density_g_per_ml = 1.0\nwater_source = "hale1973"'), "stock water, field water_source: 'hale1973' is not one of popefry1997_segelstein1981, segelstein1981, halequerry1973 \\(did you mean 'halequerry1973'\\?\\)"),
+    (('density_g_per_ml = 1.0', 'density_g_per_ml = 1.0\nwater_source = "hale1973"'), "stock water, field water_source: 'hale1973' is not one of popefry1997_kou1993, popefry1997_segelstein1981, segelstein1981, halequerry1973 \\(did you mean 'halequerry1973'\\?\\)"),
     (('hazards = ["dye"]', 'hazards = ["dye"]\nsolvent = "acetone"'), "stock dye, field solvent: 'acetone' is not one of none, water, ethanol"),
     (('hazards = ["dye"]', 'hazards = ["dye"]\nsolvent = "water"\nsolvent_spectrum_csv = "dye.csv"'), "stock dye, field solvent: give the solvent once: solvent or solvent_spectrum_csv"),
     (('hazards = ["dye"]', 'hazards = ["dye"]\nwater_source = "segelstein1981"'), "stock dye, field water_source: only used with solvent = \"water\"; remove it"),
@@ -247,7 +247,7 @@ def test_water_source_and_solvent_fields(tmp_path):
     shelf = load_shelf(write_shelf(tmp_path, text))
     assert shelf["water"].spec.water_source == "halequerry1973"
     assert shelf["dye"].spec.solvent == "water" and shelf["dye"].spec.water_source == "segelstein1981"
-    assert shelf["ps1000"].spec.water_source == "popefry1997_segelstein1981"  # the default
+    assert shelf["ps1000"].spec.water_source == "popefry1997_kou1993"  # the default
     own = "# source: invented solvent for a test\nwavelength_nm,mua_per_mm\n400,0.01\n1000,0.03\n"
     text = GOOD.replace('hazards = ["dye"]', 'hazards = ["dye"]\nsolvent_spectrum_csv = "solvent.csv"')
     shelf = load_shelf(write_shelf(tmp_path, text, {"solvent.csv": own}))

@@ -1,7 +1,8 @@
 """Carrier and solvent bookkeeping, emulsion validity band and dependent scattering in the plan.
 
-Check values are computed by hand from published tables typed here (Segelstein 1981 k) and
-from closed forms (the Percus–Yevick packing factor), not from the code under test.
+Check values are computed by hand from published tables typed here (Kou et al. 1993 as the
+IOCCG 2018 protocols tabulate it) and from closed forms (the Percus–Yevick packing factor),
+not from the code under test.
 """
 
 from pathlib import Path
@@ -17,8 +18,9 @@ from phantomlab.recipe.sheet import render_sheet_html
 REPO = Path(__file__).resolve().parents[2]
 DEMO = REPO / "recipes" / "demo-stocks.toml"
 
-# Segelstein 1981 rows (wavelength in um, k), mua = 4 pi k / lambda
-SEGELSTEIN_ROWS = {0.79983427: 1.2496550e-07, 0.89949760: 4.8617222e-07}
+# Kou, Labrie & Chylek 1993 as tabulated in the IOCCG 2018 protocols (vol. 1.0, pure-water
+# table): a_w [1/m] at 800 and 900 nm, the default water source's rows there
+KOU_ROWS_PER_M = {800.0: 2.25, 900.0: 6.4}
 # Michels, Foschum & Kienle 2008, Table 4: 20 % emulsion mus = 3.873e8 lambda^-2.397 [1/mm],
 # Table 3: g = 1.090 - 6.812e-4 lambda
 def michels_musp(lam):
@@ -37,9 +39,8 @@ def recipe(shelf, stocks, target, **extra):
 
 
 def test_five_percent_water_blanked_dye_brings_its_water(shelf):
-    lam_um = np.array(sorted(SEGELSTEIN_ROWS))
-    lam = lam_um * 1000
-    water = 4 * np.pi * np.array([SEGELSTEIN_ROWS[w] for w in lam_um]) / (lam_um * 1e-3)  # [1/mm]
+    lam = np.array(sorted(KOU_ROWS_PER_M))
+    water = np.array([KOU_ROWS_PER_M[w] for w in lam]) / 1000.0  # [1/mm]
     dye_table = np.loadtxt(REPO / "recipes" / "spectra" / "dye_blue.csv", delimiter=",", skiprows=2)
     dye = np.interp(lam, dye_table[:, 0], dye_table[:, 1])  # the stock's spectrum, water-blanked
     r = recipe(shelf, ["dye_blue"], {"wavelength_nm": lam.tolist(), "mua_per_mm": [0.1, 0.1]})
