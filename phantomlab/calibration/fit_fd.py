@@ -329,7 +329,7 @@ def _diffusion_covariance(residual_fn, x, mask, rho, lag, sd_log, sd_lag) -> np.
     and across distances as a Gaussian in ln ρ of width h; propagated as δx = −(JᵀJ)⁻¹Jᵀ δr
     (scales and phase offsets re-projected inside J), as the lookup's noise is.
     """
-    from phantomlab.calibration.fitting import finite_jacobian
+    from phantomlab.calibration.fitting import finite_jacobian, propagated_error_covariance
 
     amp_error, phase_error, width = DIFFUSION_FD_ERROR
     W = x.shape[0]
@@ -345,11 +345,7 @@ def _diffusion_covariance(residual_fn, x, mask, rho, lag, sd_log, sd_lag) -> np.
         m = mask[w]
         j = jac[w][m]
         ee = np.nan_to_num(e[m])
-        try:
-            gain = np.linalg.solve(j.T @ j, j.T)
-        except np.linalg.LinAlgError:
-            gain = np.linalg.pinv(j.T @ j) @ j.T
-        out[w] = gain @ (ee[:, None] * corr[np.ix_(m, m)] * ee[None, :]) @ gain.T
+        out[w] = propagated_error_covariance(j, ee, corr[np.ix_(m, m)])
     return out
 
 
@@ -364,7 +360,7 @@ def _lookup_covariance(forward, residual_fn, x, mask, rho, freq, sd_log, sd_lag,
     kernel width at distance i (wider after the peak, far from the source).  Propagated as
     δx = −(JᵀJ)⁻¹Jᵀ δr (scales and phase offsets re-projected inside J).
     """
-    from phantomlab.calibration.fitting import finite_jacobian
+    from phantomlab.calibration.fitting import finite_jacobian, propagated_error_covariance
     from phantomlab.calibration.mc_lookup_time import time_resolved_lookup
 
     lookup = time_resolved_lookup(baseline)
@@ -388,11 +384,7 @@ def _lookup_covariance(forward, residual_fn, x, mask, rho, freq, sd_log, sd_lag,
         m = mask[w]
         j = jac[w][m]
         ee = e[m]
-        try:
-            gain = np.linalg.solve(j.T @ j, j.T)
-        except np.linalg.LinAlgError:
-            gain = np.linalg.pinv(j.T @ j) @ j.T
-        out[w] = gain @ (ee[:, None] * corr[np.ix_(m, m)] * ee[None, :]) @ gain.T
+        out[w] = propagated_error_covariance(j, ee, corr[np.ix_(m, m)])
     return out
 
 

@@ -500,7 +500,7 @@ def _lookup_covariance(residual_fn, x, mask, relative_error, log_delay, bandwidt
     width at bin k (``bandwidth``, (W·R, K); the overlap of two Gaussians; a shift of u moves
     every bin of a curve together, so bins of one curve share the radial smoothing fully).
     """
-    from phantomlab.calibration.fitting import finite_jacobian
+    from phantomlab.calibration.fitting import finite_jacobian, propagated_error_covariance
 
     jac = finite_jacobian(lambda xx: np.where(mask, residual_fn(xx, np.arange(W)), 0.0), x)  # (W, M, P)
     out = np.zeros((W, x.shape[1], x.shape[1]))
@@ -515,11 +515,7 @@ def _lookup_covariance(residual_fn, x, mask, relative_error, log_delay, bandwidt
         pair = h[:, None] ** 2 + h[None, :] ** 2
         corr = np.where(same, np.sqrt(2 * h[:, None] * h[None, :] / pair)
                         * np.exp(-((lt[:, None] - lt[None, :]) ** 2) / (2 * pair)), 0.0)
-        try:
-            gain = np.linalg.solve(j.T @ j, j.T)
-        except np.linalg.LinAlgError:
-            gain = np.linalg.pinv(j.T @ j) @ j.T
-        out[w] = gain @ (e[:, None] * corr * e[None, :]) @ gain.T
+        out[w] = propagated_error_covariance(j, e, corr)
     return out
 
 

@@ -31,7 +31,8 @@ from scipy.optimize import least_squares
 
 from phantomlab.errors import InputError, PhantomlabWarning
 
-__all__ = ["BlockOutcome", "JointOutcome", "FitResult", "fit_blocks", "fit_joint", "finite_jacobian"]
+__all__ = ["BlockOutcome", "JointOutcome", "FitResult", "fit_blocks", "fit_joint", "finite_jacobian",
+           "propagated_error_covariance"]
 
 #: Relative step of the forward-difference Jacobian in log-parameters.
 _STEP = 1e-5
@@ -105,6 +106,31 @@ def _inside(x, lo, hi):
         low = np.where(np.isfinite(lo), lo + 1e-9 * span, -np.inf)
         high = np.where(np.isfinite(hi), hi - 1e-9 * span, np.inf)
     return np.clip(x, low, high)
+
+
+def propagated_error_covariance(jacobian: np.ndarray, error: np.ndarray, correlation: np.ndarray) -> np.ndarray:
+    """Covariance of the fitted parameters from a model error, (P, P).
+
+    A model error δμ moves the normalised residuals by e = δμ/σ and the least-squares solution
+    by δx = −(JᵀJ)⁻¹Jᵀe (linearised at the fit); with e of SDs ``error`` and correlation
+    ``correlation``, Cov(δx) = G (e eᵀ ∘ C) Gᵀ, G = (JᵀJ)⁻¹Jᵀ.
+
+    Parameters
+    ----------
+    jacobian : ndarray (M, P)
+        Jacobian of the normalised residuals at the fit (rows used only).
+    error : ndarray (M,)
+        SD of the model error of each residual, in the residuals' units.
+    correlation : ndarray (M, M)
+        Correlation of those errors.
+    """
+    j = np.asarray(jacobian, float)
+    try:
+        gain = np.linalg.solve(j.T @ j, j.T)
+    except np.linalg.LinAlgError:
+        gain = np.linalg.pinv(j.T @ j) @ j.T
+    e = np.asarray(error, float)
+    return gain @ (e[:, None] * correlation * e[None, :]) @ gain.T
 
 
 def finite_jacobian(residual_fn: Callable[[np.ndarray], np.ndarray], x: np.ndarray) -> np.ndarray:
