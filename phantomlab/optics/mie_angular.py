@@ -21,16 +21,13 @@ from __future__ import annotations
 import numpy as np
 
 from phantomlab.errors import InputError
+from phantomlab.optics.mie_series import coefficient_orders, series_length
 
 __all__ = ["mie_coefficients", "angular_functions", "scattered_intensity", "ensemble_differential_cross_section",
            "angle_grid"]
 
 #: Spheres per block of the angular sums (bounds the (spheres × angles) work arrays).
 BLOCK = 2048
-
-
-def _series_length(x: np.ndarray) -> np.ndarray:
-    return np.floor(x + 4.0 * np.cbrt(x) + 2.0).astype(int)  # Wiscombe 1980, eq. 1
 
 
 def mie_coefficients(m, x) -> tuple[np.ndarray, np.ndarray]:
@@ -62,33 +59,11 @@ def mie_coefficients(m, x) -> tuple[np.ndarray, np.ndarray]:
     if m.shape != x.shape or x.size == 0 or np.any(~np.isfinite(x)) or np.any(x <= 0):
         raise InputError("Mie coefficients: m and x must be equally long, x finite and > 0")
     m_bh = np.conj(m)  # BH write m = n + i k
-    nstop = _series_length(x)
-    nmax = int(nstop.max())
-    mx = m_bh * x
-    start = int(1.2 * float(np.max(np.maximum(nstop, np.abs(mx))))) + 20
-    d_mx = np.zeros((nmax + 1, x.size), dtype=complex)
-    d = np.zeros(x.size, dtype=complex)
-    for n in range(start, 0, -1):  # downward recurrence of the logarithmic derivative, BH p. 478
-        if n <= nmax:
-            d_mx[n] = d
-        d = n / mx - 1.0 / (d + n / mx)
-    psi0, psi1 = np.cos(x), np.sin(x)
-    chi0, chi1 = -np.sin(x), np.cos(x)
-    xi1 = psi1 - 1j * chi1
+    nmax = int(series_length(x).max())
     a = np.zeros((x.size, nmax), dtype=complex)
     b = np.zeros((x.size, nmax), dtype=complex)
-    for n in range(1, nmax + 1):
-        active = n <= nstop
-        psi = (2 * n - 1) / x * psi1 - psi0
-        chi = (2 * n - 1) / x * chi1 - chi0
-        xi = psi - 1j * chi
-        ta = d_mx[n] / m_bh + n / x
-        tb = m_bh * d_mx[n] + n / x
-        a[:, n - 1] = np.where(active, (ta * psi - psi1) / (ta * xi - xi1), 0.0)  # BH eq. 4.88
-        b[:, n - 1] = np.where(active, (tb * psi - psi1) / (tb * xi - xi1), 0.0)
-        psi0, psi1 = np.where(active, psi1, psi0), np.where(active, psi, psi1)
-        chi0, chi1 = np.where(active, chi1, chi0), np.where(active, chi, chi1)
-        xi1 = psi1 - 1j * chi1
+    for n, a_n, b_n in coefficient_orders(m_bh, x):  # the efficiencies' own recurrence
+        a[:, n - 1], b[:, n - 1] = a_n, b_n
     return a, b
 
 
@@ -155,7 +130,7 @@ def angle_grid(largest_size_parameter: float, *, minimum: int = 256) -> tuple[np
     -------
     mu, weights : ndarray (A,)
     """
-    nmax = int(_series_length(np.array([float(largest_size_parameter)]))[0])
+    nmax = int(series_length(np.array([float(largest_size_parameter)]))[0])
     count = max(int(minimum), 2 * nmax + 64)
     return np.polynomial.legendre.leggauss(count)
 

@@ -34,8 +34,18 @@ __all__ = ["mie_efficiencies"]
 BLOCK = 4096
 
 
-def _block(m_bh: np.ndarray, x: np.ndarray):
-    nstop = np.floor(x + 4.0 * np.cbrt(x) + 2.0).astype(int)  # Wiscombe 1980, eq. 1
+def series_length(x: np.ndarray) -> np.ndarray:
+    """Terms n_max of the series for size parameters x: x + 4 x^(1/3) + 2 (Wiscombe 1980, eq. 1)."""
+    return np.floor(x + 4.0 * np.cbrt(x) + 2.0).astype(int)
+
+
+def coefficient_orders(m_bh: np.ndarray, x: np.ndarray):
+    """Yield (n, a_n, b_n) for n = 1 … n_max of spheres (BH convention m = n + i k), arrays (N,).
+
+    a_n, b_n are 0 past each sphere's own series length.  One recurrence (BH p. 478, eq. 4.88)
+    for the efficiencies here and the angular intensities of :mod:`phantomlab.optics.mie_angular`.
+    """
+    nstop = series_length(x)
     nmax = int(nstop.max())
     mx = m_bh * x
     start = int(1.2 * float(np.max(np.maximum(nstop, np.abs(mx))))) + 20
@@ -52,11 +62,6 @@ def _block(m_bh: np.ndarray, x: np.ndarray):
     psi0, psi1 = np.cos(x), np.sin(x)
     chi0, chi1 = -np.sin(x), np.cos(x)
     xi1 = psi1 - 1j * chi1
-    qext = np.zeros(size)
-    qsca = np.zeros(size)
-    gq = np.zeros(size)
-    a_prev = np.zeros(size, dtype=complex)
-    b_prev = np.zeros(size, dtype=complex)
     for n in range(1, nmax + 1):
         active = n <= nstop
         psi = (2 * n - 1) / x * psi1 - psi0
@@ -66,6 +71,20 @@ def _block(m_bh: np.ndarray, x: np.ndarray):
         tb = m_use * d_mx[n] + n / x
         a = np.where(active, (ta * psi - psi1) / (ta * xi - xi1), 0.0)  # BH eq. 4.88
         b = np.where(active, (tb * psi - psi1) / (tb * xi - xi1), 0.0)
+        yield n, a, b
+        psi0, psi1 = np.where(active, psi1, psi0), np.where(active, psi, psi1)
+        chi0, chi1 = np.where(active, chi1, chi0), np.where(active, chi, chi1)
+        xi1 = psi1 - 1j * chi1
+
+
+def _block(m_bh: np.ndarray, x: np.ndarray):
+    size = x.size
+    qext = np.zeros(size)
+    qsca = np.zeros(size)
+    gq = np.zeros(size)
+    a_prev = np.zeros(size, dtype=complex)
+    b_prev = np.zeros(size, dtype=complex)
+    for n, a, b in coefficient_orders(m_bh, x):
         qext += (2 * n + 1) * (a.real + b.real)  # BH eq. 4.62
         qsca += (2 * n + 1) * (a.real**2 + a.imag**2 + b.real**2 + b.imag**2)  # BH eq. 4.61
         gq += (2 * n + 1) / (n * (n + 1)) * (a.real * b.real + a.imag * b.imag)  # BH eq. 4.79
@@ -74,9 +93,6 @@ def _block(m_bh: np.ndarray, x: np.ndarray):
                 a_prev.real * a.real + a_prev.imag * a.imag + b_prev.real * b.real + b_prev.imag * b.imag
             )
         a_prev, b_prev = a, b
-        psi0, psi1 = np.where(active, psi1, psi0), np.where(active, psi, psi1)
-        chi0, chi1 = np.where(active, chi1, chi0), np.where(active, chi, chi1)
-        xi1 = psi1 - 1j * chi1
     scale = 2.0 / x**2
     qext *= scale
     qsca *= scale
