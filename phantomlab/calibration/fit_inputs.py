@@ -26,7 +26,7 @@ import numpy as np
 
 from phantomlab.errors import InputError
 
-__all__ = ["ModelInputs", "resolve_model_inputs", "g_sensitivity_note"]
+__all__ = ["ModelInputs", "resolve_model_inputs", "g_sensitivity_note", "input_parts"]
 
 #: How much R(ρ) at fixed μs′ and μa moves when g changes by 0.1, by distance in transport
 #: lengths ρ·μs′ (fractions).  Measured from the independent Monte Carlo fixtures
@@ -202,3 +202,21 @@ def g_sensitivity_note(*, g: float, g_origin: str, rho_mm, musp_per_mm) -> str |
             f"{'more than' if below else 'about'} {100 * at_shortest:.1f} % at the shortest distance "
             f"({shortest:.2g} transport lengths) and by up to {100 * largest:.1f} % over the distances fitted "
             f"(measured on independent Monte Carlo runs at g 0.7 and 0.9)")
+
+
+def input_parts(inputs) -> list[str]:
+    """The n, g and baseline a fit used, each with where it came from (from its JSON keys).
+
+    ``inputs``: a fit's ``extras`` or JSON (``n_used``, ``n_origin``, ``n_outside_used``,
+    ``n_outside_origin``, ``g_used``, ``g_origin``, ``baseline``, ``baseline_origin``); the
+    command line prints one part per line, the page joins them on one.
+    """
+    parts = []
+    if inputs.get("n_used") is not None:
+        parts.append(f"n = {inputs['n_used']:g} ({inputs.get('n_origin')}), n_outside = "
+                     f"{inputs.get('n_outside_used', 1.0):g} ({inputs.get('n_outside_origin')})")
+    if inputs.get("g_used") is not None:
+        parts.append(f"g = {inputs['g_used']:g} ({inputs.get('g_origin')})")
+    if inputs.get("baseline"):
+        parts.append(f"baseline: {inputs['baseline']} ({inputs.get('baseline_origin')})")
+    return parts

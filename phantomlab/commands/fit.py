@@ -158,14 +158,10 @@ def _table(result) -> str:
 
 def input_lines(inputs) -> list[str]:
     """What the model ran with, from a fit's ``extras`` or JSON (the keys ``n_used`` ... ``g_note``)."""
+    from phantomlab.calibration.fit_inputs import input_parts
+
     lines = [f"note: {inputs['model_note']}"] if inputs.get("model_note") else []
-    if inputs.get("n_used") is not None:
-        lines.append(f"n = {inputs['n_used']:g} ({inputs.get('n_origin')}), n_outside = "
-                     f"{inputs.get('n_outside_used', 1.0):g} ({inputs.get('n_outside_origin')})")
-    if inputs.get("g_used") is not None:
-        lines.append(f"g = {inputs['g_used']:g} ({inputs.get('g_origin')})")
-    if inputs.get("baseline"):
-        lines.append(f"baseline: {inputs['baseline']} ({inputs.get('baseline_origin')})")
+    lines += input_parts(inputs)
     if inputs.get("g_note"):
         lines.append(f"note: {inputs['g_note']}")
     return lines

@@ -112,12 +112,6 @@ def page_baseline(*, g: float, n: float, n_outside: float, key: str, offer_rebui
 
 def describe_inputs(inputs: dict) -> str:
     """One line: the n, g and baseline a fit used and where each came from (from its JSON keys)."""
-    parts = []
-    if inputs.get("n_used") is not None:
-        parts.append(f"n = {inputs['n_used']:g} ({inputs.get('n_origin')}), n_outside = "
-                     f"{inputs.get('n_outside_used', 1.0):g} ({inputs.get('n_outside_origin')})")
-    if inputs.get("g_used") is not None:
-        parts.append(f"g = {inputs['g_used']:g} ({inputs.get('g_origin')})")
-    if inputs.get("baseline"):
-        parts.append(f"baseline {inputs['baseline']} ({inputs.get('baseline_origin')})")
-    return " · ".join(parts)
+    from phantomlab.calibration.fit_inputs import input_parts  # layer 3
+
+    return " · ".join(input_parts(inputs))
