@@ -37,6 +37,14 @@ SHOWN_LIMITS = ("min_dispense_ul", "pipette_rel_error", "balance_resolution_mg",
                 "max_solids_volume_fraction", "max_dilution_steps", "dead_volume_ml")
 
 
+#: The recipe's dependent-scattering choices (recipe key ``dependent_scattering``) as the page names them.
+DEPENDENT_LABELS = {
+    "none": "none: independent scattering (doses add linearly)",
+    "percus_yevick": "Percus–Yevick packing factor of the particle volume fraction",
+    "percus_yevick_angular": "Percus–Yevick structure factor over the Mie angles (sphere stocks)",
+}
+
+
 def _defaults_from(definition: dict, shelf) -> dict:
     """Session-state values of the page's fields from a recipe definition."""
     target = definition.get("target", {}) or {}
@@ -88,6 +96,7 @@ def _defaults_from(definition: dict, shelf) -> dict:
     values["design.lim_steps"] = int(limits.get("max_dilution_steps", 3))
     values["design.lim_dead_ml"] = float(limits.get("dead_volume_ml", 0.1))
     values["design.extra_limits"] = {k: v for k, v in limits.items() if k not in SHOWN_LIMITS}
+    values["design.dependent"] = str(definition.get("dependent_scattering", "none"))
     values["design.extra"] = {
         k: definition[k] for k in ("preparation", "notes", "series") if k in definition
     }
@@ -264,6 +273,13 @@ def _limits() -> dict:
                                 step=1, key="design.lim_steps")
         dead = c3.number_input("Dead volume in vessels and tubing [mL]", min_value=0.0,
                                step=0.05, key="design.lim_dead_ml")
+        if st.session_state.get("design.dependent") not in DEPENDENT_LABELS:
+            st.session_state["design.dependent"] = "none"
+        st.selectbox("Dense scatterers (dependent scattering)", list(DEPENDENT_LABELS), key="design.dependent",
+                     format_func=DEPENDENT_LABELS.get,
+                     help="Above about 10 % v/v of particles or emulsion, scattering no longer adds linearly; "
+                          "the Percus–Yevick corrections lower the predicted scattering accordingly. The plan "
+                          "warns above that range whichever you choose.")
     return {
         **st.session_state.get("design.extra_limits", {}),
         "min_dispense_ul": float(min_ul),
@@ -353,6 +369,8 @@ def read_fields(workspace: Workspace, shelf) -> tuple[dict | None, Path]:
     if st.session_state.get("design.extra_matrix") != matrix:
         extra.pop("preparation", None)  # the starting recipe's preparation was for its matrix
     definition.update(extra)
+    if st.session_state.get("design.dependent", "none") != "none":
+        definition["dependent_scattering"] = st.session_state["design.dependent"]
     if oxygenation:
         definition["oxygenation"] = oxygenation
     return definition, base_dir

@@ -40,7 +40,7 @@ KEEP = (
     "design.shape", "design.table_unit", "design.mua_tol", "design.musp_tol", "design.pl_wavelengths",
     "design.pl_a", "design.pl_b", "design.pl_ref", "design.pl_mua", "design.lim_min_ul",
     "design.lim_pipette_pct", "design.lim_balance_mg", "design.lim_solids_pct", "design.lim_steps",
-    "design.lim_dead_ml", "design.use_calibrated", "design.operator", "design.notes", *SO2_KEEP,
+    "design.lim_dead_ml", "design.dependent", "design.use_calibrated", "design.operator", "design.notes", *SO2_KEEP,
 )
 # ---- starting values -------------------------------------------------------------------------
 
@@ -73,6 +73,8 @@ def _same_as_file_cached(definition_json: str, path_text: str, mtime_ns: int, si
         for key in ("name", "matrix", "stocks", "batch_volume_ml", "batch_mass_g"):
             if definition.get(key) != original.get(key):
                 return False
+        if definition.get("dependent_scattering", "none") != original.get("dependent_scattering", "none"):
+            return False
         if parse_limits(definition.get("limits")) != parse_limits(original.get("limits")):
             return False
         mine = parse_target(definition["target"], base_dir=path.parent).to_json()

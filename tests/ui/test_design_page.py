@@ -270,3 +270,25 @@ def test_after_saving_a_changed_field_drops_the_saved_batch_downloads(page):
     page.text_input(key="design.size").set_value("300 mL").run()
     labels = [b.proto.label for b in page.get("download_button")]
     assert not any(code in label for label in labels)  # the sheet of 2026-004 is not the plan shown now
+
+
+@pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")  # the direct solve below
+def test_the_dependent_scattering_choice_reaches_the_solver_and_the_recipe(page, downloads):
+    """The page offers the recipe's dependent_scattering choices; the doses are the solver's for it."""
+    import tomllib
+
+    from phantomlab.recipe import parse_recipe
+
+    assert page.selectbox(key="design.dependent").value == "none"
+    page.selectbox(key="design.dependent").set_value("percus_yevick").run()
+    assert not page.exception
+    _name, data = downloads.content(page, "Download the recipe (TOML)")
+    definition = tomllib.loads(data.decode("utf-8"))
+    assert definition["dependent_scattering"] == "percus_yevick"
+    expected = solve(parse_recipe(definition, base_dir=DEMO_RECIPE.parent))
+    independent = solve(load_recipe(DEMO_RECIPE))
+    shown = _doses(page)
+    lipid = [d for d in expected.doses if d.stock == "lipid20"][0]
+    assert shown.loc["lipid20", "undiluted volume [mL]"] == pytest.approx(lipid.volume_ml, rel=5e-4)
+    # the correction lowers the predicted scattering, so the solver doses more emulsion
+    assert lipid.volume_ml > [d for d in independent.doses if d.stock == "lipid20"][0].volume_ml
