@@ -44,6 +44,7 @@ from phantomlab.materials.absorption_tables import LogPchip, absorption_table, c
 
 __all__ = [
     "water_density_Kell1975",
+    "water_absorption_at_temperature",
     "water_absorption_HaleQuerry1973",
     "water_absorption_Segelstein1981",
     "water_absorption_PopeFry1997",
@@ -370,6 +371,33 @@ def water_temperature_coefficient_per_mm_per_c(wavelength_nm) -> tuple[np.ndarra
     wavelength = _checked_wavelengths(wavelength_nm, (float(rows_nm[0]), float(rows_nm[-1])),
                                       "the temperature coefficients of IOCCG 2018")
     return np.interp(wavelength, rows_nm, coefficient), np.interp(wavelength, rows_nm, sd)
+
+
+def water_absorption_at_temperature(wavelength_nm, *, source: str = DEFAULT_WATER_SOURCE, temperature_c) -> np.ndarray:
+    """μa of pure water [1/mm] at a temperature where a published coefficient exists.
+
+    :func:`water_absorption_per_mm` with ``temperature_c`` inside the IOCCG 2018 table's
+    300–1230 nm, and the source's own table temperature outside it (no coefficient is
+    published there; water absorbs little below 300 nm in any phantom's band).  For a batch's
+    predicted optics at the recipe's ``measure_temperature_c``.
+
+    Parameters
+    ----------
+    wavelength_nm : float or array [nm]
+    source : str
+        Key of :data:`WATER_ABSORPTION_SOURCES`.
+    temperature_c : float or None [°C]
+        None: the tables as published.
+    """
+    wavelength = np.atleast_1d(np.asarray(wavelength_nm, dtype=float))
+    mua = np.array(water_absorption_per_mm(wavelength, source=source), dtype=float)
+    if temperature_c is None:
+        return mua
+    rows_nm = _temperature_coefficient_rows()[0]
+    inside = (wavelength >= rows_nm[0]) & (wavelength <= rows_nm[-1])
+    if np.any(inside):
+        mua[inside] = water_absorption_per_mm(wavelength[inside], source=source, temperature_c=temperature_c)
+    return mua
 
 
 def water_absorption_HaleQuerry1973(*, wavelength_nm) -> np.ndarray:

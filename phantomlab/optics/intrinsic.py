@@ -22,7 +22,7 @@ from phantomlab.materials.solvents import (
     ethanol_absorption_Kedenburg2012,
     lipid_absorption_vanVeen2004,
 )
-from phantomlab.materials.water import water_absorption_per_mm
+from phantomlab.materials.water import water_absorption_at_temperature
 from phantomlab.optics.dependent import AngularScattering, angular_scattering
 from phantomlab.optics.emulsion import EMULSION_SCATTERING
 from phantomlab.optics.mie import sphere_ensemble_optics
@@ -134,18 +134,18 @@ def _interpolate_spectrum(key: str, field_name: str, table_nm, values, grid) -> 
     return np.interp(grid, table_nm, values)
 
 
-def _water(grid, fraction, source) -> np.ndarray:
+def _water(grid, fraction, source, temperature_c) -> np.ndarray:
     if fraction == 0:
         return np.zeros_like(grid)
-    return fraction * water_absorption_per_mm(grid, source=source)
+    return fraction * water_absorption_at_temperature(grid, source=source, temperature_c=temperature_c)
 
 
-def _matrix_background(stock: Stock, grid) -> np.ndarray:
+def _matrix_background(stock: Stock, grid, temperature_c) -> np.ndarray:
     spec = stock.spec
     if spec.background_spectrum is not None:
         cols = spec.background_spectrum.columns
         return _interpolate_spectrum(stock.key, "spectrum_csv", cols["wavelength_nm"], cols["mua_per_mm"], grid)
-    return _water(grid, spec.water_volume_fraction, spec.water_source) + spec.background_mua_per_mm
+    return _water(grid, spec.water_volume_fraction, spec.water_source, temperature_c) + spec.background_mua_per_mm
 
 
 def _within_table(stock: Stock, grid, band, function, what: str, table: str) -> np.ndarray:
@@ -171,11 +171,11 @@ def _oil(stock: Stock, grid) -> np.ndarray:
                          "the oil's own absorption", "the lipid spectrum (van Veen et al. 2004)")
 
 
-def _solvent(stock: Stock, grid) -> np.ndarray:
+def _solvent(stock: Stock, grid, temperature_c) -> np.ndarray:
     """Absorption of an absorber stock's solvent (what its spectrum was blanked against)."""
     spec = stock.spec
     if spec.solvent == "water":
-        return water_absorption_per_mm(grid, source=spec.water_source)
+        return water_absorption_at_temperature(grid, source=spec.water_source, temperature_c=temperature_c)
     if spec.solvent == "ethanol":
         return _within_table(stock, grid, ETHANOL_KEDENBURG2012_BAND_NM, ethanol_absorption_Kedenburg2012,
                              "the ethanol solvent's absorption", "the ethanol table (Kedenburg et al. 2012)")
@@ -193,7 +193,8 @@ def _require_matrix(matrix, stock: Stock) -> Stock:
     return matrix
 
 
-def _spheres(stock: Stock, grid, matrix: Stock, temperature_c, *, solids: float, carrier_water: float, water_source):
+def _spheres(stock: Stock, grid, matrix: Stock, temperature_c, *, solids: float, carrier_water: float, water_source,
+             water_temperature_c=None):
     spec = stock.spec
     n_matrix = refractive_index(matrix.spec.material, wavelength_nm=grid, temperature_c=temperature_c)
     n_particle = refractive_index(spec.material, wavelength_nm=grid, temperature_c=temperature_c)
@@ -214,11 +215,11 @@ def _spheres(stock: Stock, grid, matrix: Stock, temperature_c, *, solids: float,
         number_weights=spec.sizes.number_weights,
         volume_fraction=solids,
     )
-    carrier = (1.0 - solids) * _water(grid, carrier_water, water_source)
+    carrier = (1.0 - solids) * _water(grid, carrier_water, water_source, water_temperature_c)
     return ensemble.mua_per_mm, ensemble.mus_per_mm, ensemble.g, carrier
 
 
-def _blood(stock: Stock, grid, so2):
+def _blood(stock: Stock, grid, so2, temperature_c):
     """Haemoglobin absorption at sO₂, red-cell scattering, and the blood's own water."""
     from phantomlab.materials.blood import blood_mua_per_mm, red_cell_scattering_Meinke2007
 
@@ -238,12 +239,12 @@ def _blood(stock: Stock, grid, so2):
         g = np.interp(grid, cols["wavelength_nm"], cols["g"])
     else:
         mus, g = np.zeros_like(grid), np.zeros_like(grid)
-    carrier = _water(grid, spec.water_volume_fraction, spec.water_source)
+    carrier = _water(grid, spec.water_volume_fraction, spec.water_source, temperature_c)
     return mua, mus, g, carrier
 
 
 def intrinsic_optics(stock: Stock, *, wavelength_nm, matrix: Stock | None, potency=None, temperature_c=20.0,
-                     so2=None) -> IntrinsicOptics:
+                     so2=None, water_temperature_c=None) -> IntrinsicOptics:
     """Intrinsic μa, μs and g of a stock on any wavelength grid.
 
     Per unit volume fraction of the undiluted stock in the final mix.  The potency multiplies
@@ -267,6 +268,12 @@ def intrinsic_optics(stock: Stock, *, wavelength_nm, matrix: Stock | None, poten
     so2 : float, optional [fraction]
         Oxygen saturation of the batch at the moment considered: required for a blood stock
         (its absorption depends on it), ignored by the other kinds.
+    water_temperature_c : float, optional [°C]
+        Temperature of the batch for the absorption of its water (matrix, carriers, water
+        solvents): the IOCCG 2018 temperature coefficients over 300–1230 nm
+        (:func:`~phantomlab.materials.water.water_absorption_at_temperature`); None: the
+        tables as published (22–25 °C).  The recipe solver gives the recipe's
+        ``measure_temperature_c``.
 
     Returns
     -------
@@ -329,14 +336,14 @@ def intrinsic_optics(stock: Stock, *, wavelength_nm, matrix: Stock | None, poten
     g = np.zeros_like(grid)
     carrier = np.zeros_like(grid)
     if stock.kind == "matrix":
-        mua = _matrix_background(stock, grid)
+        mua = _matrix_background(stock, grid, water_temperature_c)
         mus = np.zeros_like(grid)
     elif stock.kind == "spheres":
         matrix = _require_matrix(matrix, stock)
         mua, mus, g, carrier = _spheres(
             stock, grid, matrix, temperature_c,
             solids=stock.solids_volume_fraction, carrier_water=stock.spec.carrier_water_volume_fraction,
-            water_source=stock.spec.water_source,
+            water_source=stock.spec.water_source, water_temperature_c=water_temperature_c,
         )
     elif stock.kind == "powder":
         matrix = _require_matrix(matrix, stock)
@@ -352,7 +359,7 @@ def intrinsic_optics(stock: Stock, *, wavelength_nm, matrix: Stock | None, poten
         mus, g = EMULSION_SCATTERING[stock.spec.model](wavelength_nm=grid)
         oil = stock.solids_volume_fraction
         mua = oil * _oil(stock, grid)
-        carrier = _water(grid, 1.0 - oil, stock.spec.water_source)
+        carrier = _water(grid, 1.0 - oil, stock.spec.water_source, water_temperature_c)
     elif stock.kind == "absorber":
         spec = stock.spec
         field_name = {"spectrum": "spectrum_csv", "extinction": "extinction_csv", "cuvette": "cuvette_csv"}[spec.method]
@@ -364,9 +371,9 @@ def intrinsic_optics(stock: Stock, *, wavelength_nm, matrix: Stock | None, poten
         else:
             mua, mus, sd = value, value * a / (1.0 - a), value_sd
         g = np.full_like(grid, spec.g) if a > 0 else np.zeros_like(grid)
-        carrier = _solvent(stock, grid)
+        carrier = _solvent(stock, grid, water_temperature_c)
     elif stock.kind == "blood":
-        mua, mus, g, carrier = _blood(stock, grid, so2)
+        mua, mus, g, carrier = _blood(stock, grid, so2, water_temperature_c)
     else:  # pragma: no cover - the loader admits only KINDS
         raise InputError(f"stock {stock.key}: unknown kind {stock.kind!r}")
     mus = np.asarray(mus, dtype=float)

@@ -58,12 +58,13 @@ def intrinsic_table(recipe: Recipe, wavelength_nm, *, so2: float | None = None) 
     grid = np.atleast_1d(np.asarray(wavelength_nm, dtype=float))
     matrix = recipe.matrix
     temperature = recipe.preparation.temperature_c
-    matrix_optics = intrinsic_optics(matrix, wavelength_nm=grid, matrix=matrix, temperature_c=temperature)
+    matrix_optics = intrinsic_optics(matrix, wavelength_nm=grid, matrix=matrix, temperature_c=temperature,
+                                     water_temperature_c=temperature)
     if so2 is None and getattr(recipe, "oxygenation", None) is not None:
         so2 = recipe.oxygenation.so2
     rows = [
         intrinsic_optics(recipe.stock(key), wavelength_nm=grid, matrix=matrix, potency=1.0,
-                         temperature_c=temperature, so2=so2)
+                         temperature_c=temperature, so2=so2, water_temperature_c=temperature)
         for key in recipe.stock_keys
     ]
     stocks = [recipe.stock(key) for key in recipe.stock_keys]

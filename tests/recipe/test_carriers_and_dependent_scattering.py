@@ -32,6 +32,11 @@ def shelf():
     return load_shelf(DEMO)
 
 
+#: Measured at 22 °C, the temperature of the Kou et al. water table (IOCCG 2018): the batch's
+#: water is then the table's rows as published.
+AT_TABLE_TEMPERATURE = {"kind": "liquid", "measure_temperature_c": 22.0}
+
+
 def recipe(shelf, stocks, target, **extra):
     definition = {"name": "bookkeeping test", "matrix": "water", "stocks": stocks,
                   "batch_volume_ml": 100.0, "target": target, **extra}
@@ -43,12 +48,33 @@ def test_five_percent_water_blanked_dye_brings_its_water(shelf):
     water = np.array([KOU_ROWS_PER_M[w] for w in lam]) / 1000.0  # [1/mm]
     dye_table = np.loadtxt(REPO / "recipes" / "spectra" / "dye_blue.csv", delimiter=",", skiprows=2)
     dye = np.interp(lam, dye_table[:, 0], dye_table[:, 1])  # the stock's spectrum, water-blanked
-    r = recipe(shelf, ["dye_blue"], {"wavelength_nm": lam.tolist(), "mua_per_mm": [0.1, 0.1]})
+    r = recipe(shelf, ["dye_blue"], {"wavelength_nm": lam.tolist(), "mua_per_mm": [0.1, 0.1]},
+               preparation=AT_TABLE_TEMPERATURE)
     predicted = predict(r, volume_fractions={"dye_blue": 0.05})
     by_hand = 0.95 * water + 0.05 * (dye + water)  # matrix water + the stock's dye and its own water
     assert predicted.mua_per_mm == pytest.approx(by_hand, rel=1e-6)
     # without the solvent the batch would miss the displaced water's share, 5 % of water's mua
     assert np.all(predicted.mua_per_mm - (0.95 * water + 0.05 * dye) == pytest.approx(0.05 * water, rel=1e-6))
+
+
+def test_water_absorbs_at_the_batch_temperature(shelf):
+    """At 37 °C every share of water (matrix and the dye stock's own) takes the IOCCG 2018 ∂a/∂T."""
+    from phantomlab.materials.water import water_temperature_coefficient_per_mm_per_c
+
+    lam = np.array(sorted(KOU_ROWS_PER_M))
+    coefficient, _ = water_temperature_coefficient_per_mm_per_c(lam)
+    water = np.array([KOU_ROWS_PER_M[w] for w in lam]) / 1000.0 + coefficient * (37.0 - 22.0)  # [1/mm]
+    dye_table = np.loadtxt(REPO / "recipes" / "spectra" / "dye_blue.csv", delimiter=",", skiprows=2)
+    dye = np.interp(lam, dye_table[:, 0], dye_table[:, 1])
+    r = recipe(shelf, ["dye_blue"], {"wavelength_nm": lam.tolist(), "mua_per_mm": [0.1, 0.1]},
+               preparation={"kind": "liquid", "measure_temperature_c": 37.0})
+    predicted = predict(r, volume_fractions={"dye_blue": 0.05})
+    assert predicted.mua_per_mm == pytest.approx(0.95 * water + 0.05 * (dye + water), rel=1e-6)
+    # and differs from the table-temperature batch by the coefficients' share (IOCCG 2018: -6e-4 and
+    # -7e-4 /m per °C at 800 and 900 nm)
+    at_22 = predict(recipe(shelf, ["dye_blue"], {"wavelength_nm": lam.tolist(), "mua_per_mm": [0.1, 0.1]},
+                           preparation=AT_TABLE_TEMPERATURE), volume_fractions={"dye_blue": 0.05})
+    assert predicted.mua_per_mm - at_22.mua_per_mm == pytest.approx(coefficient * 15.0, rel=1e-6)
 
 
 def test_potency_does_not_scale_the_solvent(shelf):
@@ -73,7 +99,7 @@ def test_emulsion_oil_absorption_enters_the_batch(shelf):
     # van Veen et al. 2004 lard spectrum at 930 nm: 13.10 /m; oil fraction of the 20 % stock
     # 0.20 / 0.92 (lipid % w/v over soybean-oil density)
     lam = [930.0]
-    r = recipe(shelf, ["lipid20"], {"wavelength_nm": lam, "musp_per_mm": [1.0]})
+    r = recipe(shelf, ["lipid20"], {"wavelength_nm": lam, "musp_per_mm": [1.0]}, preparation=AT_TABLE_TEMPERATURE)
     with pytest.warns(Warning):  # 930 nm is outside the Michels band
         f_oil = 0.20 / 0.92
         with_oil = predict(r, volume_fractions={"lipid20": 0.1})

@@ -51,7 +51,7 @@ def test_planned_series_equals_a_hand_computation_from_the_tables():
     for level in series.levels:
         s = level.so2
         for i, (lam, oxy, deoxy) in enumerate(ROWS):
-            water = float(water_absorption_per_mm(lam))
+            water = float(water_absorption_per_mm(lam, temperature_c=20.0))  # the default measuring temperature
             haemoglobin = math.log(10) / 10 * (c_g_per_l / 64500.0) * (s * oxy + (1 - s) * deoxy)
             by_hand = (1 - f) * water + f * (haemoglobin + 0.8 * water)  # blood brings 80 % water (its field)
             assert level.mua_per_mm[i] == pytest.approx(by_hand, rel=1e-9), (s, lam)

@@ -48,9 +48,12 @@ def test_linear_model_matches_mix_optics():
     fractions = {"ps500": 0.05, "ps1000": 0.04, "dye_blue": 1e-3}
     ours = predict(recipe, volume_fractions=fractions, table=table)
     matrix = recipe.matrix
-    components = [(intrinsic_optics(recipe.stock(k), wavelength_nm=grid, matrix=matrix), f)
+    warm = recipe.preparation.temperature_c  # the batch's water absorbs at its measuring temperature
+    components = [(intrinsic_optics(recipe.stock(k), wavelength_nm=grid, matrix=matrix, temperature_c=warm,
+                                    water_temperature_c=warm), f)
                   for k, f in fractions.items()]
-    theirs = mix_optics(matrix_optics=intrinsic_optics(matrix, wavelength_nm=grid, matrix=matrix),
+    theirs = mix_optics(matrix_optics=intrinsic_optics(matrix, wavelength_nm=grid, matrix=matrix, temperature_c=warm,
+                                                       water_temperature_c=warm),
                         components=components, n=1.35)
     np.testing.assert_allclose(ours.mua_per_mm, theirs.mua_per_mm, rtol=1e-10)
     np.testing.assert_allclose(ours.musp_per_mm, theirs.musp_per_mm, rtol=1e-10)
