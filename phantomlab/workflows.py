@@ -552,7 +552,8 @@ def attach_measurement(
     if fit:
         g_fallback = None
         if kind in ("srdr", "sfdi", "td", "fd") and baseline is None:
-            g_fallback = batch_anisotropy(store, code, wavelength_nm=info.wavelength_nm)
+            g_fallback = batch_anisotropy(store, code, wavelength_nm=info.wavelength_nm,
+                                          per_wavelength=kind in ("srdr", "sfdi"))
         result = fit_measurement_file(source, kind=kind, model=model, baseline=baseline, **read_extra,
                                       baseline_dir=baseline_dir, rebuild=rebuild, progress=progress,
                                       g_fallback=g_fallback, **fit_options)
@@ -608,18 +609,21 @@ def _sphere_sidecar_for_the_record(sidecar_toml: str | None, measurement) -> str
             + tomli_w.dumps(table))
 
 
-def batch_anisotropy(store, code: str, *, wavelength_nm) -> tuple[float, str] | None:
+def batch_anisotropy(store, code: str, *, wavelength_nm, per_wavelength: bool = False):
     """The anisotropy g of a batch from its scattering model, for the Monte Carlo lookup's baseline.
 
     The plan's predicted g (Mie or emulsion model of its scatterers, stored with the plan)
-    interpolated to the measurement's wavelengths and averaged: one baseline serves one g,
-    and beyond a few transport lengths R(ρ) depends on μs′ alone, so the band's spread of g
-    (a few hundredths for one scatterer) matters only next to the source.
+    interpolated to the measurement's wavelengths; averaged over them unless
+    ``per_wavelength`` (the default srdr/sfdi fit then takes each wavelength with a baseline
+    near its own g, :mod:`phantomlab.calibration.band_g`: next to the source R(ρ) moves by
+    1–3 % per 0.1 of g, and an emulsion's g changes by more than 0.1 over the red and near
+    infrared).
 
     Returns
     -------
-    (float, str) or None
-        g and its origin ``"batch"``; None when the plan predicts no g.
+    (float, str), (ndarray (W,), str) or None
+        g (one, or one per wavelength) and its origin ``"batch"``; None when the plan
+        predicts no g.
     """
     from phantomlab.store import get_batch, plan_of  # layer 4
 
@@ -636,8 +640,10 @@ def batch_anisotropy(store, code: str, *, wavelength_nm) -> tuple[float, str] | 
         return None
     order = np.argsort(grid[good])
     wanted = np.asarray(wavelength_nm, float)
-    g = float(np.mean(np.interp(wanted, grid[good][order], values[good][order])))
-    return (g, "batch") if 0.0 <= g < 1.0 else None
+    spectrum = np.interp(wanted, grid[good][order], values[good][order])
+    if not np.all((spectrum >= 0.0) & (spectrum < 1.0)):
+        return None
+    return (spectrum, "batch") if per_wavelength else (float(np.mean(spectrum)), "batch")
 
 
 def keep_fit(store, measurement_id: int, result, *, recorded_by: str | None = None) -> int:

@@ -26,7 +26,7 @@ import numpy as np
 
 from phantomlab.errors import InputError
 
-__all__ = ["ModelInputs", "resolve_model_inputs", "g_sensitivity_note", "input_parts"]
+__all__ = ["ModelInputs", "resolve_model_inputs", "g_sensitivity_note", "band_g_note", "input_parts"]
 
 #: How much R(ρ) at fixed μs′ and μa moves when g changes by 0.1, by distance in transport
 #: lengths ρ·μs′ (fractions).  Measured from the independent Monte Carlo fixtures
@@ -181,6 +181,24 @@ def g_sensitivity_note(*, g: float, g_origin: str, rho_mm, musp_per_mm) -> str |
     str or None
         From :data:`G_SENSITIVITY_PER_0_1` (measured, see there); None without distances.
     """
+    found = _sensitivity(rho_mm, musp_per_mm)
+    if found is None:
+        return None
+    at_shortest, largest, below = found
+    rho = np.asarray(rho_mm, float)
+    musp = np.asarray(musp_per_mm, float)
+    shortest = float(np.min(rho[np.isfinite(rho) & (rho > 0)]) * np.min(musp[np.isfinite(musp) & (musp > 0)]))
+    how = {"default": "assumed (the default; give --g G, or fit the measurement through its batch)",
+           "batch": "from the batch's scattering model"}.get(g_origin, f"from the {g_origin}")
+    return (f"Monte Carlo lookup with g = {g:g} {how}: a change of g by 0.1 moves R by "
+            f"{'more than' if below else 'about'} {100 * at_shortest:.1f} % at the shortest distance "
+            f"({shortest:.2g} transport lengths) and by up to {100 * largest:.1f} % over the distances fitted "
+            f"(measured on independent Monte Carlo runs at g 0.7 and 0.9)")
+
+
+def _sensitivity(rho_mm, musp_per_mm) -> tuple[float, float, bool] | None:
+    """R's change per 0.1 of g at the shortest distance, the largest over the distances, and
+    whether the shortest lies below the table (:data:`G_SENSITIVITY_PER_0_1`)."""
     rho = np.asarray(rho_mm, float)
     rho = rho[np.isfinite(rho) & (rho > 0)]
     musp = np.asarray(musp_per_mm, float)
@@ -195,13 +213,46 @@ def g_sensitivity_note(*, g: float, g_origin: str, rho_mm, musp_per_mm) -> str |
     at_shortest = float(np.interp(np.log(shortest), np.log(nodes), values))
     largest = max([at_shortest, float(np.interp(np.log(farthest), np.log(nodes), values))]
                   + list(values[inside]))
-    below = shortest < nodes[0]
-    how = {"default": "assumed (the default; give --g G, or fit the measurement through its batch)",
-           "batch": "from the batch's scattering model"}.get(g_origin, f"from the {g_origin}")
-    return (f"Monte Carlo lookup with g = {g:g} {how}: a change of g by 0.1 moves R by "
-            f"{'more than' if below else 'about'} {100 * at_shortest:.1f} % at the shortest distance "
-            f"({shortest:.2g} transport lengths) and by up to {100 * largest:.1f} % over the distances fitted "
-            f"(measured on independent Monte Carlo runs at g 0.7 and 0.9)")
+    return at_shortest, largest, shortest < nodes[0]
+
+
+def band_g_note(*, g_per_wavelength, g_origin: str, step: float, rho_mm, musp_per_mm) -> str | None:
+    """The note on g of a band fitted with one baseline per g step (phantomlab.calibration.band_g).
+
+    Parameters
+    ----------
+    g_per_wavelength : array (W,)
+        The g each wavelength was fitted with (rounded to ``step``).
+    g_origin : str
+        Where the g per wavelength came from (``batch``: the batch's scattering model).
+    step : float
+        The rounding step of g; the g used is at most half of it away from the model's.
+    rho_mm : array [mm]
+    musp_per_mm : array [1/mm]
+
+    Returns
+    -------
+    str or None
+        None without distances.
+    """
+    found = _sensitivity(rho_mm, musp_per_mm)
+    if found is None:
+        return None
+    _, largest, below = found
+    g = np.asarray(g_per_wavelength, float)
+    how = "the batch's scattering model" if g_origin == "batch" else f"the {g_origin}"
+    return (f"Monte Carlo lookup with g per wavelength from {how}, {g.max():g} to {g.min():g}, rounded to "
+            f"{step:g} (one baseline per step): the rounding (at most {step / 2:g}) moves R by "
+            f"{'more than' if below else 'at most'} {100 * largest * (step / 2) / 0.1:.2g} % over the distances "
+            f"fitted (a change of g by 0.1 moves it by up to {100 * largest:.1f} %, measured on independent "
+            "Monte Carlo runs at g 0.7 and 0.9)")
+
+
+def _g_text(g) -> str:
+    if isinstance(g, (list, tuple, np.ndarray)):
+        values = np.asarray(g, float)
+        return f"{values.max():g} to {values.min():g} per wavelength"
+    return f"{g:g}"
 
 
 def input_parts(inputs) -> list[str]:
@@ -216,7 +267,9 @@ def input_parts(inputs) -> list[str]:
         parts.append(f"n = {inputs['n_used']:g} ({inputs.get('n_origin')}), n_outside = "
                      f"{inputs.get('n_outside_used', 1.0):g} ({inputs.get('n_outside_origin')})")
     if inputs.get("g_used") is not None:
-        parts.append(f"g = {inputs['g_used']:g} ({inputs.get('g_origin')})")
+        parts.append(f"g = {_g_text(inputs['g_used'])} ({inputs.get('g_origin')})")
     if inputs.get("baseline"):
-        parts.append(f"baseline: {inputs['baseline']} ({inputs.get('baseline_origin')})")
+        files = inputs["baseline"]
+        files = ", ".join(map(str, files)) if isinstance(files, (list, tuple)) else files
+        parts.append(f"baseline: {files} ({inputs.get('baseline_origin')})")
     return parts

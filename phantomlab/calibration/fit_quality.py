@@ -50,7 +50,7 @@ from scipy.stats import chi2 as chi2_distribution
 
 from phantomlab.calibration.fitting import FitResult
 
-__all__ = ["FIT_QUALITIES", "SD_PARTS", "POOR_P_VALUE", "POOR_MIN_CHI2_RED", "assess_fit",
+__all__ = ["FIT_QUALITIES", "SD_PARTS", "POOR_P_VALUE", "POOR_MIN_CHI2_RED", "assess_fit", "judge_fit",
            "misfit_flags", "wavelength_dof"]
 
 FIT_QUALITIES = ("good", "poor", "failed")
@@ -194,6 +194,15 @@ def _scaled_parameters(parameters, factor: float) -> dict:
         else:
             out[name] = entry
     return out
+
+
+def judge_fit(result: FitResult) -> tuple[str, str]:
+    """The verdict and its reason for a result whose SDs are final (fit_quality, fit_quality_reason).
+
+    :func:`assess_fit` ends with it; a result merged from fits already assessed (one band
+    fitted in parts, :mod:`phantomlab.calibration.band_g`) is judged again with it.
+    """
+    return _verdict(result)
 
 
 def _verdict(result: FitResult) -> tuple[str, str]:

@@ -96,8 +96,11 @@ _METADATA_KEYS = {
     "specular_included", "instrument", "date", "port_diameter_mm", "beam_diameter_mm",
     "probe", "operator", "notes", "reference", "phantom_age_days", "temperature_c",
     "unscattered_included", "sample_diameter_mm", "lost_light", "lost_light_photons", "lost_light_wavelengths",
-    "sphere", "detector", "fibre_core_mm",
+    "sphere", "detector", "fibre_core_mm", "g_spectrum",
 }
+
+#: Most entries of a sidecar's ``[g_spectrum]`` table (g of the scatterers per wavelength).
+G_SPECTRUM_MAX_ROWS = 5001
 
 #: How a srdr reading samples R(ρ) at each distance (sidecar ``detector``): ``point`` (the
 #: default: a detector small next to ρ and to R's curvature), ``ring`` (an annulus between
@@ -181,6 +184,10 @@ class MeasurementMetadata:
         srdr: how each distance is sampled, one of :data:`DETECTORS` (default ``point``).
     fibre_core_mm : float or None [mm]
         srdr with ``detector = "fibre"``: the detection fibre's core diameter.
+    g_spectrum : (ndarray, ndarray) or None
+        The scatterers' g per wavelength (sidecar ``[g_spectrum]``: ``wavelength_nm`` [nm],
+        increasing, and ``g``), for the Monte Carlo lookup in place of one ``g``; None when a
+        ``g`` is given (option or sidecar: it wins).
     instrument, date : str or None
     reference : ReferenceSpec or None
     extra : dict
@@ -205,6 +212,7 @@ class MeasurementMetadata:
     sphere: Any = None
     detector: str = "point"
     fibre_core_mm: float | None = None
+    g_spectrum: tuple | None = None
     instrument: str | None = None
     date: str | None = None
     reference: ReferenceSpec | None = None
@@ -567,6 +575,10 @@ def metadata_from_mapping(
                 raise InputError(f"{where}: {key} = {value!r}; accepted: a whole number from {low} to {high}")
             kwargs[key] = value
     kwargs.update(_detector_from_table(table, where))
+    if table.get("g_spectrum") is not None:  # checked even when a g (option or sidecar) wins over it
+        spectrum = _g_spectrum_from_table(table["g_spectrum"], where)
+        if "g" not in kwargs:
+            kwargs["g_spectrum"] = spectrum
     if table.get("sphere") is not None:
         from phantomlab.calibration.sphere_readings import sphere_spec_from_table
 
@@ -581,6 +593,20 @@ def metadata_from_mapping(
         if key in table:
             extra[key] = table[key]
     return MeasurementMetadata(extra=extra, **kwargs)
+
+
+def _g_spectrum_from_table(table, where: str) -> tuple[np.ndarray, np.ndarray]:
+    """``[g_spectrum]`` of a sidecar: ``wavelength_nm`` (increasing, > 0) and ``g`` (0 <= g < 1), same length."""
+    accepted = (f"accepted: [g_spectrum] with wavelength_nm = [...] increasing and g = [...] (0 <= g < 1), "
+                f"the same length, 1 to {G_SPECTRUM_MAX_ROWS} entries")
+    if not isinstance(table, Mapping) or set(table) != {"wavelength_nm", "g"}:
+        raise InputError(f"{where}: g_spectrum is not a table of wavelength_nm and g; {accepted}")
+    wavelength = _array_value(table["wavelength_nm"], "g_spectrum.wavelength_nm", where)
+    g = _array_value(table["g"], "g_spectrum.g", where)
+    if (wavelength.size != g.size or not 1 <= g.size <= G_SPECTRUM_MAX_ROWS or np.any(wavelength <= 0)
+            or np.any(np.diff(wavelength) <= 0) or np.any(g < 0) or np.any(g >= 1)):
+        raise InputError(f"{where}: g_spectrum has {wavelength.size} wavelengths and {g.size} values of g; {accepted}")
+    return wavelength, g
 
 
 def _detector_from_table(table: Mapping[str, Any], where: str) -> dict:

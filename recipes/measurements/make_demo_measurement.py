@@ -20,10 +20,11 @@ batches of photons: 0.3 % at 2 mm to about 2 % at 15 mm, growing with distance a
 probe's does) multiplied by (1 + 0.01 e), e from a seeded normal generator (the probe's
 1 % reading noise); the ``sd`` column combines both, sqrt((0.01 R)² + sd_mc²).
 
-The sidecar `demo-nir-liquid-srdr.toml` gives n, the point detector and g: the batch's
-scattering model averaged over the five wavelengths and rounded to 0.01 (what the batch log
-uses for this batch), so that a standalone ``phantomlab fit`` uses the same Monte Carlo
-baseline as ``phantomlab batch measure``.
+The sidecar `demo-nir-liquid-srdr.toml` gives n, the point detector and g per wavelength
+(``[g_spectrum]``: the batch's scattering model at the five wavelengths, what the batch log
+would use for this batch), so that a standalone ``phantomlab fit`` uses the same Monte Carlo
+baselines as ``phantomlab batch measure`` (one per g step, phantomlab.calibration.band_g).
+Only the sidecar changes when that is rewritten; the CSV is the same run.
 
 Regenerate (from the repository root; about 5 minutes on two cores):
 
@@ -60,7 +61,7 @@ def main() -> None:
     recipe = load_recipe(HERE.parent / "demo-nir-liquid.toml")
     plan = solve(recipe)
     made = predict(recipe, volume_fractions=plan.volume_fractions, potencies=TRUE_POTENCIES)
-    g_batch = round(float(np.mean(np.interp(made.wavelength_nm, plan.predicted.wavelength_nm, plan.predicted.g))), 2)
+    g_batch = np.interp(made.wavelength_nm, plan.predicted.wavelength_nm, plan.predicted.g)
     generator = np.random.default_rng(NOISE_SEED)
     centres, at_rho = point_rings(RHO_MM)
     lines = [
@@ -86,10 +87,14 @@ def main() -> None:
     (HERE / "demo-nir-liquid-srdr.toml").write_text(
         "# demo data, invented: metadata of demo-nir-liquid-srdr.csv (made by make_demo_measurement.py)\n"
         f"n = {INDEX}\nn_outside = 1.0\n"
-        "# g of the batch's scattering model (lipid emulsion), averaged over 660-850 nm\n"
-        f"g = {g_batch}\n"
         "detector = \"point\"\n"
         "instrument = \"demo fibre probe (invented)\"\n"
+        "\n"
+        "# g of the batch's scattering model (lipid emulsion) at each wavelength: the Monte Carlo lookup\n"
+        "# fits each wavelength with a baseline near its own g\n"
+        "[g_spectrum]\n"
+        f"wavelength_nm = [{', '.join(f'{w:g}' for w in made.wavelength_nm)}]\n"
+        f"g = [{', '.join(f'{v:.3f}' for v in g_batch)}]\n"
     )
 
 
