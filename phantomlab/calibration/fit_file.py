@@ -20,7 +20,8 @@ from phantomlab.calibration.fitting import FitResult
 from phantomlab.calibration.measurements import KINDS, Measurement, combine_replicates, read_measurement
 from phantomlab.errors import InputError, PhantomlabWarning
 
-__all__ = ["fit_measurement_file", "fit_measurement", "DEFAULT_MODELS", "FIT_MODELS", "FALLBACK_MODELS"]
+__all__ = ["fit_measurement_file", "fit_measurement", "lookup_g_values", "DEFAULT_MODELS", "FIT_MODELS",
+           "FALLBACK_MODELS"]
 
 #: Forward models accepted by ``model=`` per kind, the first being the default.  srdr and
 #: sfdi default to the Monte Carlo lookup (``mc``): valid at every distance and albedo, where
@@ -351,6 +352,39 @@ def _run(measurement: Measurement, model: str, inputs, fit_options: dict):
         result = fit_measurement(measurement, model=model, baseline=inputs.baseline if inputs.baseline is not None
                                  else fit_options["baseline"], constraint=fit_options["constraint"])
     return result, [" ".join(str(w.message).split()) for w in caught if issubclass(w.category, PhantomlabWarning)]
+
+
+def lookup_g_values(measurement: Measurement, *, g_fallback=None, constraint=None) -> list[float]:
+    """The g of each cached baseline the default lookup fit of ``measurement`` reads (to build them first).
+
+    Parameters
+    ----------
+    measurement : Measurement
+        Read with its sidecar and options (a ``g`` given wins; else its ``[g_spectrum]``).
+    g_fallback : (float or array (W,), str), optional
+        The batch's g, one or per wavelength (:func:`phantomlab.workflows.batch_anisotropy`).
+    constraint : optional
+        The spectral constraint the fit will take (it keeps one g for the band).
+
+    Returns
+    -------
+    list of float
+        Highest first; one value unless the band is fitted per g step
+        (:mod:`phantomlab.calibration.band_g`).  Not rounded to the cache's 0.01.
+    """
+    from phantomlab.calibration.baseline_cache import DEFAULT_G
+
+    if measurement.metadata.g is not None:
+        return [float(measurement.metadata.g)]
+    options = {"g_fallback": g_fallback, "constraint": constraint, "baseline": None}
+    if measurement.metadata.g_spectrum is not None:
+        options["g_fallback"] = (_g_of_spectrum(measurement), "sidecar")
+    band = _band_g(measurement, model="mc", metadata={}, sidecar={}, fit_options=options)
+    if band is None:
+        return [float(g_fallback[0])] if g_fallback is not None else [DEFAULT_G]
+    if band.get("steps") is None:
+        return [band["mean"]]
+    return sorted({float(g) for g in band["steps"]}, reverse=True)
 
 
 def _g_of_spectrum(measurement: Measurement) -> np.ndarray:

@@ -188,6 +188,7 @@ def _baseline_ready(store, batch: dict, kind: str, upload, sidecar, n: float) ->
 
     from phantomlab.calibration import read_measurement  # layer 3
     from phantomlab.calibration.baseline_cache import DEFAULT_G
+    from phantomlab.calibration.fit_file import lookup_g_values
     from phantomlab.ui.baseline_build import page_baseline
     from phantomlab.workflows import batch_anisotropy
 
@@ -199,13 +200,19 @@ def _baseline_ready(store, batch: dict, kind: str, upload, sidecar, n: float) ->
                       kind=kind, sidecar=table, show=False)
     if not read.ok:
         return True  # the attach names what is wrong with the file
-    g = table.get("g")
-    if g is None:
-        found = call_layer("Reading the batch's scattering model", batch_anisotropy, store, batch["code"],
-                           wavelength_nm=read.value.wavelength_nm, show=False)
-        g = found.value[0] if found.ok and found.value is not None else DEFAULT_G
+    found = call_layer("Reading the batch's scattering model", batch_anisotropy, store, batch["code"],
+                       wavelength_nm=read.value.wavelength_nm, per_wavelength=kind in ("srdr", "sfdi"), show=False)
+    fallback = found.value if found.ok else None
     if kind == "td" and (table.get("geometry") == "transmittance" or table.get("thickness_mm") is not None):
         return True  # the lookup does not apply: the default fit uses diffusion and says so
-    cached = page_baseline(g=float(g), n=float(n), n_outside=float(table.get("n_outside", 1.0)),
-                           key="batches.baseline", offer_rebuild=False, time_resolved=kind in ("td", "fd"))
-    return cached is not None
+    # one g, or one per g step of the band (the batch's or the sidecar's g per wavelength)
+    values = call_layer("Choosing the Monte Carlo baselines", lookup_g_values, read.value, g_fallback=fallback,
+                        show=False)
+    if not values.ok:
+        return True  # the attach says what is wrong, in one line
+    for k, g in enumerate(values.value or [DEFAULT_G]):
+        cached = page_baseline(g=float(g), n=float(n), n_outside=float(table.get("n_outside", 1.0)),
+                               key="batches.baseline" if k == 0 else f"batches.baseline.{k}", offer_rebuild=False, time_resolved=kind in ("td", "fd"))
+        if cached is None:
+            return False
+    return True

@@ -71,14 +71,24 @@ def _fitted(key: str, _fit, _args: tuple, _kwargs: dict):
     return with_warnings(_fit, *_args, **_kwargs)
 
 
-def batch_g(store, code: str, wavelength_nm) -> tuple[float, str] | None:
-    """:func:`phantomlab.workflows.batch_anisotropy`, once per state of the log, batch and wavelengths."""
+def batch_g(store, code: str, wavelength_nm, *, per_wavelength: bool = False):
+    """:func:`phantomlab.workflows.batch_anisotropy`, once per state of the log, batch and wavelengths.
+
+    ``per_wavelength``: g at each wavelength (a list) instead of the band's mean.
+    """
     wavelengths = tuple(float(w) for w in wavelength_nm)
-    return replay(_batch_g(log_state(store), code, wavelengths, store))
+    return replay(_batch_g(log_state(store), code, wavelengths, bool(per_wavelength), store))
 
 
 @st.cache_resource(show_spinner=False, max_entries=16)
-def _batch_g(log: tuple, code: str, wavelengths: tuple, _store):
+def _batch_g(log: tuple, code: str, wavelengths: tuple, per_wavelength: bool, _store):
     from phantomlab.workflows import batch_anisotropy
 
-    return with_warnings(batch_anisotropy, _store, code, wavelength_nm=np.asarray(wavelengths, float))
+    def found():
+        value = batch_anisotropy(_store, code, wavelength_nm=np.asarray(wavelengths, float),
+                                 per_wavelength=per_wavelength)
+        if value is not None and per_wavelength:
+            return [float(g) for g in value[0]], value[1]
+        return value
+
+    return with_warnings(found)

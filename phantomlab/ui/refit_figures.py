@@ -38,7 +38,11 @@ def _forward(kind: str, model: str, dense, baseline, n, n_outside):
 
 
 def data_charts(fit_key: str, shown_wavelengths, *, measurement, result, model: str, baseline):
-    """(data and model, normalised residuals) charts; None for optics measured elsewhere."""
+    """(data and model, normalised residuals) charts; None for optics measured elsewhere.
+
+    ``baseline``: the Monte Carlo baseline of an ``mc`` fit, or a list of one per wavelength
+    (a band fitted per g step).
+    """
     shown = tuple(float(w) for w in shown_wavelengths)
     return _data_charts(fit_key, shown, model, measurement, result, baseline)
 
@@ -54,8 +58,12 @@ def _data_charts(fit_key: str, shown: tuple, model: str, _measurement, _result, 
         axis = np.asarray(_measurement.axis, float)
         dense = np.linspace(axis.min(), axis.max(), 80)
         n = meta.n if meta.n is not None else 1.33
-        forward = _forward(kind, model, dense, _baseline, n, meta.n_outside or 1.0)
-        curves = np.asarray(forward(_result.mua_per_mm[index], _result.musp_per_mm[index]), float)
+        if isinstance(_baseline, (list, tuple)):  # a band fitted per g step: each wavelength's own baseline
+            curves = np.vstack([np.asarray(_forward(kind, model, dense, _baseline[i], n, meta.n_outside or 1.0)(
+                _result.mua_per_mm[[i]], _result.musp_per_mm[[i]]), float).reshape(1, -1) for i in index])
+        else:
+            forward = _forward(kind, model, dense, _baseline, n, meta.n_outside or 1.0)
+            curves = np.asarray(forward(_result.mua_per_mm[index], _result.musp_per_mm[index]), float)
         if _result.scale_factor is not None:
             curves = curves * np.asarray(_result.scale_factor, float)[index][:, None]
         series, rows = [], []

@@ -88,17 +88,36 @@ def _irf_inline(raw: bytes, name: str) -> dict:
 
 
 def _suggested_g(store, batch, measurement, sidecar: dict) -> tuple[float, str]:
-    """g for the Monte Carlo baseline: the sidecar's, else the batch's scattering model, else the default."""
+    """g for the Monte Carlo baseline: the sidecar's (its band mean for a [g_spectrum]), else the
+    batch's scattering model (its band mean), else the default."""
     from phantomlab.calibration.baseline_cache import DEFAULT_G  # layer 3
 
     if sidecar.get("g") is not None:
         return float(sidecar["g"]), "sidecar"
+    spectrum = _g_per_wavelength(store, batch, measurement, sidecar)
+    if spectrum is not None:
+        return round(float(np.mean(spectrum[0])), 2), spectrum[1]
     if batch is not None and measurement is not None:
         found = call_layer("Reading the batch's scattering model", refit_cache.batch_g, store, batch["code"],
                            measurement.wavelength_nm, show=False)
         if found.ok and found.value is not None:
             return round(float(found.value[0]), 2), "batch"
     return DEFAULT_G, "default"
+
+
+def _g_per_wavelength(store, batch, measurement, sidecar: dict):
+    """g per wavelength of the measurement: the sidecar's [g_spectrum], else the batch's scattering
+    model (a list and its origin), or None."""
+    if measurement is None or sidecar.get("g") is not None:
+        return None
+    if measurement.metadata.g_spectrum is not None:
+        grid, values = measurement.metadata.g_spectrum
+        return [float(v) for v in np.interp(measurement.wavelength_nm, grid, values)], "sidecar"
+    if batch is None:
+        return None
+    found = call_layer("Reading the batch's scattering model", refit_cache.batch_g, store, batch["code"],
+                       measurement.wavelength_nm, per_wavelength=True, show=False)
+    return found.value if found.ok else None
 
 
 def _baseline_folder(workspace: Workspace) -> Path:
@@ -277,6 +296,7 @@ def _fit_section(workspace: Workspace, store) -> None:
         text += "\n"
     read = call_layer("Reading the measurement", _read, text, kind, sidecar, options, show=False)
     baseline, g_fallback, given_baseline = None, None, None
+    band_baselines: dict = {}  # the cached baselines by g (rounded as the cache names them)
     lookup_applies = not (kind == "td" and (options.get("geometry") == "transmittance"
                                              or options.get("thickness_mm") is not None))
     if model == "mc" and kind in ("td", "fd") and st.checkbox(
@@ -290,22 +310,39 @@ def _fit_section(workspace: Workspace, store) -> None:
     elif model == "mc":
         from phantomlab.ui.baseline_build import page_baseline
 
-        suggested, origin = _suggested_g(store, batch, read.value if read.ok else None, sidecar)
+        measurement = read.value if read.ok else None
+        suggested, origin = _suggested_g(store, batch, measurement, sidecar)
+        spectrum = _g_per_wavelength(store, batch, measurement, sidecar) if kind in ("srdr", "sfdi") else None
         g = c4.number_input("Anisotropy g of the scatterers [dimensionless]", min_value=0.0, max_value=0.95,
                             value=float(suggested), step=0.01, format="%.2f", key=f"refit.mc_g.{picked}",
                             help=f"for the Monte Carlo baseline; suggested from the {origin}"
-                                 + ("" if origin != "default" else " (no batch model or sidecar value)"))
+                                 + ("" if origin != "default" else " (no batch model or sidecar value)")
+                                 + ("; left as suggested, each wavelength is fitted with a baseline near its own g "
+                                    "(one per step of 0.02); changed, the whole band with this one g"
+                                    if spectrum is not None else ""))
         if abs(g - suggested) > 1e-9:
             options["g"] = float(g)
+            spectrum = None
         else:
             g_fallback = (float(suggested), origin)
-        cached = page_baseline(g=float(g), n=float(n), n_outside=float(sidecar.get("n_outside", 1.0)),
-                               key="refit.baseline", time_resolved=kind in ("td", "fd"))
-        if cached is None:
-            return
+        values = [float(g)]
+        if spectrum is not None:  # the baselines the band fit reads (one, unless g changes by a step or more)
+            from phantomlab.calibration.fit_file import lookup_g_values  # layer 3
+
+            g_fallback = (list(spectrum[0]), spectrum[1])
+            chosen = call_layer("Choosing the Monte Carlo baselines", lookup_g_values, measurement,
+                                g_fallback=g_fallback, constraint=True if power_law else None, show=False)
+            values = chosen.value if chosen.ok else values
+        for k, value in enumerate(values):
+            cached = page_baseline(g=value, n=float(n), n_outside=float(sidecar.get("n_outside", 1.0)),
+                                   key="refit.baseline" if k == 0 else f"refit.baseline.{k}",
+                                   time_resolved=kind in ("td", "fd"))
+            if cached is None:
+                return
+            band_baselines[round(value, 2)] = cached.baseline
         if kind in ("td", "fd"):
             model, options["g"] = None, float(g)  # the default fit reads the cached file (it may fall back, said)
-        else:
+        elif len(values) == 1 and spectrum is None:
             baseline = cached.baseline
     # the baseline files' state (the per-user cache and the page's folder), and the file chosen
     # for a td/fd fit with a baseline of its own (a folder may hold several)
@@ -346,7 +383,12 @@ def _fit_section(workspace: Workspace, store) -> None:
         default = [wavelengths[i] for i in sorted({0, len(wavelengths) // 2, len(wavelengths) - 1})]
         shown = st.multiselect("Wavelengths to show [nm]", wavelengths, default=default,
                                key=f"refit.shown.{picked}", format_func=lambda w: f"{w:g} nm")
-        if shown:
+        if baseline is None and band_baselines and kind in ("srdr", "sfdi"):  # the cached ones the fit read
+            used = result.extras.get("g_used")
+            used = used if isinstance(used, list) else [used] * len(wavelengths)
+            baseline = [band_baselines.get(round(float(g), 2)) for g in used]
+            baseline = baseline if all(b is not None for b in baseline) else None
+        if shown and (baseline is not None or model != "mc"):
             _show_data_and_model(data_charts(key, shown, measurement=measurement, result=result, model=model,
                                              baseline=baseline))
     _show_result(result_charts(key, target, result=result))

@@ -93,11 +93,18 @@ def test_fit_of_a_stored_measurement_shows_data_model_residuals_and_target(refit
     store = open_store(f"sqlite:///{demo_file}")
     try:
         with store.reading() as session:
-            raw = get_measurement(session, measurement_id).raw_content.decode()
+            row = get_measurement(session, measurement_id)
+            raw, code = row.raw_content.decode(), label.split()[1]
+        from phantomlab.calibration import read_measurement
+        from phantomlab.workflows import batch_anisotropy
+
+        sidecar = tomllib.loads(DEMO_SIDECAR)
+        wavelengths = read_measurement(raw, kind="srdr", sidecar=sidecar).wavelength_nm
+        # the page's default: the lookup with g per wavelength from the demo batch's scattering model
+        g = batch_anisotropy(store, code, wavelength_nm=wavelengths, per_wavelength=True)
     finally:
         store.close()
-    # the page's default: the lookup with g from the demo batch's scattering model (0.58)
-    expected = fit_measurement_file(raw, kind="srdr", sidecar=tomllib.loads(DEMO_SIDECAR), g_fallback=(0.58, "batch"))
+    expected = fit_measurement_file(raw, kind="srdr", sidecar=sidecar, g_fallback=g)
     assert f"Model **{expected.model}**" in shown
     assert f"reduced χ² **{expected.chi2_red:.3g}**" in shown
 
@@ -109,12 +116,15 @@ def test_another_model_can_be_chosen(refit):
 
 
 def test_the_default_model_is_the_monte_carlo_lookup_and_the_page_says_what_it_used(refit):
-    # the demo batch's scattering model gives g (0.58 over 660-850 nm); its baseline is in the test cache
+    # the demo batch's scattering model gives g per wavelength (0.64 to 0.51 over 660-850 nm): one
+    # baseline per step of 0.02, their tables in the test cache
     assert refit.selectbox(key="refit.model.srdr").value == "mc"
     assert any("mc-lookup" in m.value for m in refit.markdown)
     used = [c.value for c in refit.caption if c.value.startswith("Used: ")][0]
-    assert "n = 1.33 (sidecar)" in used and "g = 0.58 (batch)" in used
-    assert "baseline-g0.58-n1.330-out1.000.npz (cache)" in used
+    assert "n = 1.33 (sidecar)" in used and "g = 0.64 to 0.52 per wavelength (batch)" in used
+    assert "baseline-g0.58-n1.330-out1.000.npz" in used and "baseline-g0.64-n1.330-out1.000.npz" in used
+    assert used.endswith("(cache)")
+    assert "Data and fitted model" in _titles(refit)  # drawn with each wavelength's baseline
 
 
 @pytest.mark.builds_baseline
@@ -127,7 +137,8 @@ def test_a_missing_baseline_is_built_with_a_progress_indicator_and_used(refit, t
     assert not refit.exception
     assert any("Baseline built" in s.value for s in refit.success)
     assert any("mc-lookup" in m.value for m in refit.markdown)
-    assert (tmp_path / "baseline-g0.58-n1.330-out1.000.npz").is_file()
+    for g in ("0.64", "0.62", "0.58", "0.54", "0.52"):  # one per g step of the demo batch's band
+        assert (tmp_path / f"baseline-g{g}-n1.330-out1.000.npz").is_file()
     assert any("(cache)" in c.value for c in refit.caption if c.value.startswith("Used: "))
 
 
@@ -137,7 +148,7 @@ def test_a_refused_cached_baseline_is_rebuilt_only_when_the_user_agrees(refit, t
 
     monkeypatch.setenv("PHANTOMLAB_BASELINE_DIR", str(tmp_path))
     monkeypatch.setattr(baseline_cache, "CACHE_PHOTONS", 20_000)
-    damaged = tmp_path / "baseline-g0.58-n1.330-out1.000.npz"
+    damaged = tmp_path / "baseline-g0.64-n1.330-out1.000.npz"  # the band's first baseline
     damaged.write_bytes(b"not a baseline")
     refit.run()
     assert any("cannot be used" in e.value for e in refit.error)
