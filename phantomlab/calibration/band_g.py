@@ -20,8 +20,10 @@ from dataclasses import replace
 import numpy as np
 
 from phantomlab.calibration.fitting import FitResult
+from phantomlab.errors import InputError
 
-__all__ = ["G_STEP", "g_steps", "wavelength_groups", "measurement_part", "merge_fits"]
+__all__ = ["G_STEP", "g_steps", "wavelength_groups", "measurement_part", "merge_fits", "g_of_spectrum", "band_plan",
+           "fit_band", "lookup_g_values"]
 
 #: Step of g between the baselines of one band [dimensionless].  Rounding to it leaves a g
 #: at most 0.01 off, which moves R by at most 0.3 % next to the source (0.032 per 0.1 at
@@ -102,3 +104,173 @@ def merge_fits(parts: list[FitResult], groups: list[tuple[float, np.ndarray]], s
         sd_includes=tuple(dict.fromkeys(s for part in parts for s in part.sd_includes)))
     quality, reason = judge_fit(merged)
     return replace(merged, fit_quality=quality, fit_quality_reason=reason)
+
+
+def g_of_spectrum(measurement) -> np.ndarray:
+    """The sidecar's ``[g_spectrum]`` at the measurement's wavelengths (linear; none outside it)."""
+    grid, values = measurement.metadata.g_spectrum
+    wavelength = np.asarray(measurement.wavelength_nm, float)
+    outside = (wavelength < grid[0] - 1e-9) | (wavelength > grid[-1] + 1e-9)
+    if np.any(outside):
+        raise InputError(f"g_spectrum covers {grid[0]:g}-{grid[-1]:g} nm but the measurement has "
+                         f"{wavelength[outside][0]:g} nm; accepted: a g_spectrum spanning every wavelength measured")
+    return np.interp(wavelength, grid, values)
+
+
+def band_plan(measurement, *, model: str, g_fallback=None, constraint=None, baseline=None) -> dict | None:
+    """How the lookup takes a g known per wavelength, or None when it is not.
+
+    Parameters
+    ----------
+    measurement : Measurement
+        Read with its sidecar and options: a ``g`` given (``metadata.g``) wins; else its
+        ``[g_spectrum]`` wins over ``g_fallback``.
+    model : str
+        The fit model (only ``mc`` is fitted per g step).
+    g_fallback : (float or array (W,), str), optional
+        The batch's g, one or per wavelength, and its origin.
+    constraint, baseline : optional
+        The fit's spectral constraint and explicit baseline.
+
+    Returns
+    -------
+    dict or None
+        None without a g per wavelength.  Else ``mean`` (the band's mean g), ``origin``, and
+        ``steps`` (g per wavelength rounded to :data:`G_STEP`) when the wavelengths are fitted
+        in groups: srdr/sfdi lookup with the cached baselines, no g given nor a baseline file,
+        no spectral constraint (it couples the wavelengths: ``why_one`` says so), calibrated
+        data with SDs, and more than one step over the band.
+    """
+    if measurement.metadata.g_spectrum is not None and measurement.metadata.g is None:
+        g_fallback = (g_of_spectrum(measurement), "sidecar")
+    if g_fallback is None or np.ndim(g_fallback[0]) == 0:
+        return None
+    g = np.asarray(g_fallback[0], float).reshape(-1)
+    if g.size != measurement.wavelength_nm.size or not np.all(np.isfinite(g)):
+        raise InputError(f"g per wavelength: {g.size} values for {measurement.wavelength_nm.size} wavelengths; "
+                         "accepted: one finite g per wavelength of the measurement")
+    band = {"mean": float(np.mean(g)), "origin": str(g_fallback[1])}
+    steps = g_steps(g)
+    if (model != "mc" or measurement.kind not in ("srdr", "sfdi") or measurement.metadata.g is not None
+            or baseline is not None or np.unique(steps).size < 2):
+        return band
+    if constraint is not None:
+        band["why_one"] = (f"one g for the band although the scattering model's g runs from {g.max():.2f} to "
+                           f"{g.min():.2f}: a spectral constraint couples the wavelengths (without it each is "
+                           "fitted with a baseline near its own g)")
+        return band
+    if measurement.scale == "raw" or measurement.sd is None:
+        return band
+    return {**band, "steps": steps}
+
+
+def lookup_g_values(measurement, *, g_fallback=None, constraint=None) -> list[float]:
+    """The g of each cached baseline the default lookup fit of ``measurement`` reads (to build them first).
+
+    Parameters
+    ----------
+    measurement : Measurement
+        Read with its sidecar and options.
+    g_fallback : (float or array (W,), str), optional
+        The batch's g, one or per wavelength (:func:`phantomlab.workflows.batch_anisotropy`).
+    constraint : optional
+        The spectral constraint the fit will take (it keeps one g for the band).
+
+    Returns
+    -------
+    list of float
+        Highest first; one value unless the band is fitted per g step.  Not rounded to the
+        cache's 0.01.
+    """
+    from phantomlab.calibration.baseline_cache import DEFAULT_G
+
+    if measurement.metadata.g is not None:
+        return [float(measurement.metadata.g)]
+    band = band_plan(measurement, model="mc", g_fallback=g_fallback, constraint=constraint)
+    if band is None:
+        return [float(g_fallback[0])] if g_fallback is not None else [DEFAULT_G]
+    if band.get("steps") is None:
+        return [band["mean"]]
+    return sorted({float(g) for g in band["steps"]}, reverse=True)
+
+
+def fit_band(measurement, band: dict, *, fit_group, progress=None, rebuild: bool = False,
+             baseline_dir=None) -> FitResult:
+    """Fit each group of wavelengths of one g step with its cached baseline, merged in wavelength order.
+
+    Parameters
+    ----------
+    measurement : Measurement
+    band : dict
+        From :func:`band_plan`, with ``steps``.
+    fit_group : callable
+        ``fit_group(part, g, progress) -> (FitResult, ModelInputs)``: the fit of the
+        measurement's part at one g step (its baseline resolved, built when missing).
+    progress : callable, optional
+        ``progress(done, total)`` [photons] over all the builds this fit needs (one bar).
+    rebuild, baseline_dir
+        As for the cache (every baseline is built again with ``rebuild``).
+
+    Returns
+    -------
+    FitResult
+        With ``g_used`` per wavelength, ``baseline`` one file per g step, ``g_note`` (srdr).
+    """
+    groups = wavelength_groups(band["steps"])
+    builds = _builds_needed([g for g, _ in groups], measurement, rebuild=rebuild, folder=baseline_dir)
+    parts, used = [], []
+    for g, index in groups:
+        share = _share_of(progress, builds.index(g), len(builds)) if g in builds else None
+        result, inputs = fit_group(measurement_part(measurement, index), g, share)
+        parts.append(result)
+        used.append(inputs)
+    result = merge_fits(parts, groups, measurement.wavelength_nm.size)
+    return _with_band_inputs(result, used, groups, band, measurement)
+
+
+def _builds_needed(values: list, measurement, *, rebuild: bool, folder) -> list:
+    """The g values whose cached baseline the fit will build (all of them with ``rebuild``)."""
+    from phantomlab.calibration.baseline_cache import baseline_folder, cache_file_name, table_path
+
+    if rebuild:
+        return list(values)
+    meta = measurement.metadata
+    where = baseline_folder(folder)
+    needed = []
+    for g in values:
+        path = where / cache_file_name(g=g, n=meta.n, n_outside=meta.n_outside)
+        if not (path.is_file() or table_path(path).is_file()):
+            needed.append(g)
+    return needed
+
+
+def _share_of(progress, k: int, count: int):
+    """A build's ``progress(done, total)`` reported as the k-th of ``count`` builds (one bar for all)."""
+    if progress is None:
+        return None
+
+    def report(done, total):
+        progress(k * total + done, count * total)
+
+    return report
+
+
+def _with_band_inputs(result: FitResult, used: list, groups: list, band: dict, measurement) -> FitResult:
+    """The band fit's inputs: ``g_used`` per wavelength, ``baseline`` one file per g, and the note on g."""
+    from phantomlab.calibration.fit_inputs import band_g_note
+
+    keys = used[0].to_json()
+    g_used = np.empty(measurement.wavelength_nm.size)
+    for inputs, (_, index) in zip(used, groups):
+        g_used[index] = inputs.g
+    built = any(inputs.baseline_origin == "cache (built now)" for inputs in used)
+    keys.update(g_used=[float(v) for v in g_used], baseline=[inputs.baseline_path for inputs in used],
+                baseline_origin="cache (built now)" if built else "cache")
+    result = replace(result, extras={**dict(result.extras), **keys})
+    if measurement.kind == "srdr":
+        note = band_g_note(g_per_wavelength=g_used, g_origin=band["origin"], step=G_STEP, rho_mm=measurement.axis,
+                           musp_per_mm=result.musp_per_mm)
+        if note:
+            result = replace(result, extras={**dict(result.extras), "g_note": note})
+    return result
+

@@ -20,8 +20,7 @@ from phantomlab.calibration.fitting import FitResult
 from phantomlab.calibration.measurements import KINDS, Measurement, combine_replicates, read_measurement
 from phantomlab.errors import InputError, PhantomlabWarning
 
-__all__ = ["fit_measurement_file", "fit_measurement", "lookup_g_values", "DEFAULT_MODELS", "FIT_MODELS",
-           "FALLBACK_MODELS"]
+__all__ = ["fit_measurement_file", "fit_measurement", "DEFAULT_MODELS", "FIT_MODELS", "FALLBACK_MODELS"]
 
 #: Forward models accepted by ``model=`` per kind, the first being the default.  srdr and
 #: sfdi default to the Monte Carlo lookup (``mc``): valid at every distance and albedo, where
@@ -236,12 +235,20 @@ def fit_measurement_file(path_or_text, *, kind: str, **metadata: Any) -> FitResu
         if reason is not None:
             model = _fallback_model(kind, measurement)
             note = _fallback_note(model, kind, reason)
-    sidecar = _sidecar_table(sources[0], kind, metadata)
-    if measurement.metadata.g_spectrum is not None:  # the sidecar's g per wavelength wins over the batch's
-        fit_options = {**fit_options, "g_fallback": (_g_of_spectrum(measurement), "sidecar")}
-    band = _band_g(measurement, model=model, metadata=metadata, sidecar=sidecar, fit_options=fit_options)
-    if band is not None and band.get("steps") is not None:
-        result = _fit_band(measurement, sources[0], band, model=model, metadata=metadata, fit_options=fit_options)
+    from phantomlab.calibration.band_g import band_plan, fit_band
+
+    band = band_plan(measurement, model=model, g_fallback=fit_options["g_fallback"],
+                     constraint=fit_options["constraint"], baseline=fit_options["baseline"])
+    if band is not None and band.get("steps") is not None:  # one cached baseline per g step
+
+        def fit_group(part, g, progress):
+            inputs = _model_inputs(part, sources[0], model=model, metadata=metadata,
+                                   fit_options={**fit_options, "g_fallback": (g, band["origin"]), "progress": progress})
+            result, extra = _run(part, model, inputs, fit_options)
+            return result.with_warnings(extra), inputs
+
+        result = fit_band(measurement, band, fit_group=fit_group, progress=fit_options["progress"],
+                          rebuild=bool(fit_options["rebuild"]), baseline_dir=fit_options["baseline_dir"])
         for message in result.warnings:
             warnings.warn(message, PhantomlabWarning, stacklevel=2)
         return result
@@ -352,122 +359,3 @@ def _run(measurement: Measurement, model: str, inputs, fit_options: dict):
         result = fit_measurement(measurement, model=model, baseline=inputs.baseline if inputs.baseline is not None
                                  else fit_options["baseline"], constraint=fit_options["constraint"])
     return result, [" ".join(str(w.message).split()) for w in caught if issubclass(w.category, PhantomlabWarning)]
-
-
-def lookup_g_values(measurement: Measurement, *, g_fallback=None, constraint=None) -> list[float]:
-    """The g of each cached baseline the default lookup fit of ``measurement`` reads (to build them first).
-
-    Parameters
-    ----------
-    measurement : Measurement
-        Read with its sidecar and options (a ``g`` given wins; else its ``[g_spectrum]``).
-    g_fallback : (float or array (W,), str), optional
-        The batch's g, one or per wavelength (:func:`phantomlab.workflows.batch_anisotropy`).
-    constraint : optional
-        The spectral constraint the fit will take (it keeps one g for the band).
-
-    Returns
-    -------
-    list of float
-        Highest first; one value unless the band is fitted per g step
-        (:mod:`phantomlab.calibration.band_g`).  Not rounded to the cache's 0.01.
-    """
-    from phantomlab.calibration.baseline_cache import DEFAULT_G
-
-    if measurement.metadata.g is not None:
-        return [float(measurement.metadata.g)]
-    options = {"g_fallback": g_fallback, "constraint": constraint, "baseline": None}
-    if measurement.metadata.g_spectrum is not None:
-        options["g_fallback"] = (_g_of_spectrum(measurement), "sidecar")
-    band = _band_g(measurement, model="mc", metadata={}, sidecar={}, fit_options=options)
-    if band is None:
-        return [float(g_fallback[0])] if g_fallback is not None else [DEFAULT_G]
-    if band.get("steps") is None:
-        return [band["mean"]]
-    return sorted({float(g) for g in band["steps"]}, reverse=True)
-
-
-def _g_of_spectrum(measurement: Measurement) -> np.ndarray:
-    """The sidecar's ``[g_spectrum]`` at the measurement's wavelengths (linear; none outside it)."""
-    grid, values = measurement.metadata.g_spectrum
-    wavelength = np.asarray(measurement.wavelength_nm, float)
-    outside = (wavelength < grid[0] - 1e-9) | (wavelength > grid[-1] + 1e-9)
-    if np.any(outside):
-        raise InputError(f"g_spectrum covers {grid[0]:g}-{grid[-1]:g} nm but the measurement has "
-                         f"{wavelength[outside][0]:g} nm; accepted: a g_spectrum spanning every wavelength measured")
-    return np.interp(wavelength, grid, values)
-
-
-def _band_g(measurement: Measurement, *, model: str, metadata: dict, sidecar: dict, fit_options: dict):
-    """How the lookup takes a g given per wavelength (``g_fallback`` of an array), or None.
-
-    None when ``g_fallback`` holds one g (or none).  Else a dict with the band's ``mean`` g
-    and its ``origin``, and ``steps`` (g per wavelength rounded to band_g.G_STEP) when the
-    wavelengths are fitted in groups of one g each: the srdr/sfdi lookup with the cached
-    baselines, g neither given (option, sidecar) nor fixed by a baseline file, no spectral
-    constraint (it couples the wavelengths: ``why_one`` says so), calibrated data with SDs,
-    and more than one g step over the band.
-    """
-    fallback = fit_options.get("g_fallback")
-    if fallback is None or np.ndim(fallback[0]) == 0:
-        return None
-    from phantomlab.calibration.band_g import g_steps
-
-    g = np.asarray(fallback[0], float).reshape(-1)
-    if g.size != measurement.wavelength_nm.size or not np.all(np.isfinite(g)):
-        raise InputError(f"g per wavelength: {g.size} values for {measurement.wavelength_nm.size} wavelengths; "
-                         "accepted: one finite g per wavelength of the measurement")
-    band = {"mean": float(np.mean(g)), "origin": str(fallback[1])}
-    steps = g_steps(g)
-    given = metadata.get("g") is not None or sidecar.get("g") is not None or measurement.metadata.g is not None
-    if (model != "mc" or measurement.kind not in ("srdr", "sfdi") or given or fit_options.get("baseline") is not None
-            or np.unique(steps).size < 2):
-        return band
-    if fit_options.get("constraint") is not None:
-        band["why_one"] = (f"one g for the band although the scattering model's g runs from {g.max():.2f} to "
-                           f"{g.min():.2f}: a spectral constraint couples the wavelengths (without it each is "
-                           "fitted with a baseline near its own g)")
-        return band
-    if measurement.scale == "raw" or measurement.sd is None:
-        return band
-    return {**band, "steps": steps}
-
-
-def _fit_band(measurement: Measurement, source, band: dict, *, model: str, metadata: dict,
-              fit_options: dict) -> FitResult:
-    """Fit each group of wavelengths of one g step with its cached baseline, merged in wavelength order."""
-    from phantomlab.calibration.band_g import measurement_part, merge_fits, wavelength_groups
-
-    groups = wavelength_groups(band["steps"])
-    parts, used = [], []
-    for g, index in groups:
-        part = measurement_part(measurement, index)
-        inputs = _model_inputs(part, source, model=model, metadata=metadata,
-                               fit_options={**fit_options, "g_fallback": (g, band["origin"])})
-        result, extra = _run(part, model, inputs, fit_options)
-        parts.append(result.with_warnings(extra))
-        used.append(inputs)
-    result = merge_fits(parts, groups, measurement.wavelength_nm.size)
-    return _with_band_inputs(result, used, groups, band, measurement)
-
-
-def _with_band_inputs(result: FitResult, used: list, groups: list, band: dict, measurement: Measurement) -> FitResult:
-    """The band fit's inputs: ``g_used`` per wavelength, ``baseline`` one file per g, and the note on g."""
-    from phantomlab.calibration.band_g import G_STEP
-    from phantomlab.calibration.fit_inputs import band_g_note
-
-    keys = used[0].to_json()
-    g_used = np.empty(measurement.wavelength_nm.size)
-    for inputs, (_, index) in zip(used, groups):
-        g_used[index] = inputs.g
-    built = any(inputs.baseline_origin == "cache (built now)" for inputs in used)
-    keys.update(g_used=[float(v) for v in g_used], baseline=[inputs.baseline_path for inputs in used],
-                baseline_origin="cache (built now)" if built else "cache")
-    result = replace(result, extras={**dict(result.extras), **keys})
-    if measurement.kind == "srdr":
-        note = band_g_note(g_per_wavelength=g_used, g_origin=band["origin"], step=G_STEP, rho_mm=measurement.axis,
-                           musp_per_mm=result.musp_per_mm)
-        if note:
-            result = replace(result, extras={**dict(result.extras), "g_note": note})
-    return result
-

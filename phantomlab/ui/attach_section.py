@@ -188,7 +188,7 @@ def _baseline_ready(store, batch: dict, kind: str, upload, sidecar, n: float) ->
 
     from phantomlab.calibration import read_measurement  # layer 3
     from phantomlab.calibration.baseline_cache import DEFAULT_G
-    from phantomlab.calibration.fit_file import lookup_g_values
+    from phantomlab.calibration.band_g import lookup_g_values
     from phantomlab.ui.baseline_build import page_baseline
     from phantomlab.workflows import batch_anisotropy
 

@@ -111,8 +111,10 @@ def _g_per_wavelength(store, batch, measurement, sidecar: dict):
     if measurement is None or sidecar.get("g") is not None:
         return None
     if measurement.metadata.g_spectrum is not None:
-        grid, values = measurement.metadata.g_spectrum
-        return [float(v) for v in np.interp(measurement.wavelength_nm, grid, values)], "sidecar"
+        from phantomlab.calibration.band_g import g_of_spectrum  # layer 3
+
+        found = call_layer("Reading the sidecar's g per wavelength", g_of_spectrum, measurement, show=False)
+        return ([float(v) for v in found.value], "sidecar") if found.ok else None
     if batch is None:
         return None
     found = call_layer("Reading the batch's scattering model", refit_cache.batch_g, store, batch["code"],
@@ -327,7 +329,7 @@ def _fit_section(workspace: Workspace, store) -> None:
             g_fallback = (float(suggested), origin)
         values = [float(g)]
         if spectrum is not None:  # the baselines the band fit reads (one, unless g changes by a step or more)
-            from phantomlab.calibration.fit_file import lookup_g_values  # layer 3
+            from phantomlab.calibration.band_g import lookup_g_values  # layer 3
 
             g_fallback = (list(spectrum[0]), spectrum[1])
             chosen = call_layer("Choosing the Monte Carlo baselines", lookup_g_values, measurement,

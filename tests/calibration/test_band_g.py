@@ -109,3 +109,19 @@ def test_batch_measure_takes_the_batch_g_per_wavelength(tmp_path, capsys):
     fit = run("batch", "measure", code, measurement, "--kind", "srdr", "--db", db)["fit"]
     assert fit["g_origin"] == "batch" and fit["g_used"] == pytest.approx([0.64, 0.62, 0.58, 0.54, 0.52])
     assert fit["fit_quality"] == "good" and "one baseline per step" in fit["g_note"]
+
+
+@pytest.mark.builds_baseline
+def test_the_builds_of_a_band_report_progress_as_one_bar(tmp_path, monkeypatch):
+    from phantomlab.calibration import baseline_cache
+
+    monkeypatch.setattr(baseline_cache, "CACHE_PHOTONS", 20_000)  # small ones for the test
+    # one of the five g steps is cached already: four builds, one bar of 4 x 20,000 photons
+    shutil.copy2(FIXTURES / "baseline-cache" / "baseline-g0.58-n1.330-out1.000.lookup.npz", tmp_path)
+    seen = []
+    fit = fit_measurement_file(DEMO, kind="srdr", baseline_dir=tmp_path, progress=lambda done, total: seen.append(
+        (done, total)))
+    assert {total for _, total in seen} == {80_000}
+    done = [d for d, _ in seen]
+    assert done == sorted(done) and done[-1] == 80_000
+    assert fit.extras["baseline_origin"] == "cache (built now)" and len(fit.extras["baseline"]) == 5
