@@ -229,8 +229,12 @@ def fit_band(measurement, band: dict, *, fit_group, progress=None, rebuild: bool
 
 
 def _builds_needed(values: list, measurement, *, rebuild: bool, folder) -> list:
-    """The g values whose cached baseline the fit will build (all of them with ``rebuild``)."""
-    from phantomlab.calibration.baseline_cache import baseline_folder, cache_file_name, table_path
+    """The g values whose cached baseline the fit will build (all of them with ``rebuild``).
+
+    A cached file that cannot be used is refused here (CachedBaselineError, one line), before
+    any of the band's baselines is built.
+    """
+    from phantomlab.calibration.baseline_cache import baseline_folder, cache_file_name, find_cached_baseline, table_path
 
     if rebuild:
         return list(values)
@@ -241,6 +245,8 @@ def _builds_needed(values: list, measurement, *, rebuild: bool, folder) -> list:
         path = where / cache_file_name(g=g, n=meta.n, n_outside=meta.n_outside)
         if not (path.is_file() or table_path(path).is_file()):
             needed.append(g)
+        else:
+            find_cached_baseline(g=g, n=meta.n, n_outside=meta.n_outside, folder=folder)
     return needed
 
 

@@ -97,7 +97,8 @@ def register(subparsers) -> None:
     measure.add_argument("--g", type=float, metavar="G")
     measure.add_argument("--baseline", metavar="FILE",
                          help="a stored Monte Carlo baseline file instead of the cached one (default model mc: "
-                         "g from the batch's scattering model, the baseline from the cache, built once)")
+                         "g from the batch's scattering model per wavelength, one cached baseline per g step "
+                         "of 0.02, each built once)")
     add_baseline_options(measure)
     measure.add_argument("--no-fit", action="store_true", help="store the file only")
     measure.add_argument("--operator", metavar="NAME")

@@ -26,7 +26,8 @@ fitted, and ``amplitude_scale_factor`` for a relative amplitude.
 What the srdr/sfdi model ran with: ``n_used``, ``n_origin``, ``n_outside_used``,
 ``n_outside_origin`` (option, sidecar, default), ``g_used``, ``g_origin`` (option, sidecar,
 batch, default, baseline file), ``baseline`` (the file), ``baseline_origin`` (cache, cache
-(built now), file), ``g_note``; td and fd with the default model: ``model_note`` (which model
+(built now), file), ``g_note``; with a g per wavelength (the sidecar's ``[g_spectrum]``, the
+batch's model) ``g_used`` is one per wavelength and ``baseline`` one file per g step of 0.02; td and fd with the default model: ``model_note`` (which model
 was used and why: the Monte Carlo lookup, or diffusion where the lookup does not apply).
 """
 
@@ -63,8 +64,8 @@ def register(subparsers) -> None:
                         "(default where it applies, else kienle1997), kienle1997, contini1997, "
                         "fantini1994 (slope method)")
     parser.add_argument("--g", type=float, default=None, metavar="G",
-                        help="anisotropy: the Monte Carlo lookup's baseline (srdr, sfdi; default 0.8, said "
-                        "in the output; 0-0.95); slab, sphere: assumed (without it g is fitted from the "
+                        help="anisotropy: the Monte Carlo lookup's baseline (srdr, sfdi; default: the "
+                        "sidecar's g or [g_spectrum], else 0.8, said in the output; 0-0.95); slab, sphere: assumed (without it g is fitted from the "
                         "collimated transmittance when the file has it)")
     parser.add_argument("--baseline", default=None, metavar="FILE",
                         help="a stored Monte Carlo baseline file to use instead of the cached one")

@@ -166,7 +166,7 @@ def cli_argument_cases() -> list[Case]:
         ("fit baseline folder is a file", ("fit", good, "--kind", "srdr", "--g", "0.81", "--baseline-dir",
                                            f"{WORK}/afile"), {"afile": "not a folder"}),
         ("fit damaged cached baseline", ("fit", good, "--kind", "srdr", "--baseline-dir", f"{WORK}/cache"),
-         {"cache/baseline-g0.58-n1.330-out1.000.npz": b"PK\x03\x04 damaged"}),  # g of the sidecar
+         {"cache/baseline-g0.58-n1.330-out1.000.npz": b"PK\x03\x04 damaged"}),  # one of the sidecar's g steps
     ]:
         cases.append(Case("cli", name, argv, files=files))
     for name, argv in [
