@@ -553,6 +553,13 @@ def fit_spectrum(
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", PhantomlabWarning)
         if constraint is not None and constraint.active:
+            if not refinement:
+                # the joint problem starts from the free fit of each wavelength (with its
+                # restarts): a coarse grid start can leave the coupled search in a far basin
+                free = _block_fit(forward, data, sigma, use, relative, start, scale_by_chi2, profile_sd=False)
+                free = _restart_poor_blocks(forward, data, sigma, use, relative, scale_by_chi2, free,
+                                            profile_sd=False, probe=True)
+                start = (free["mua"], free["musp"])
             parts = _joint_fit(forward, data, sigma, use, relative, start, scale_by_chi2, constraint, wavelength_nm)
         else:
             parts = _block_fit(forward, data, sigma, use, relative, start, scale_by_chi2, profile_sd)
