@@ -459,12 +459,13 @@ def water_absorption_PopeFry1997(*, wavelength_nm) -> np.ndarray:
        Integrating cavity measurements. Appl. Opt. 36(33), 8710–8723. doi:10.1364/AO.36.008710
     """
     wavelength = _checked_wavelengths(wavelength_nm, POPE_FRY_1997_BAND_NM, "Pope & Fry 1997")
-    return _pope_fry_interpolant()(wavelength)
+    return _file_interpolant(POPE_FRY_1997_FILE)(wavelength)
 
 
-@lru_cache(maxsize=1)
-def _pope_fry_interpolant() -> LogPchip:
-    table = absorption_table(POPE_FRY_1997_FILE)
+@lru_cache(maxsize=None)
+def _file_interpolant(file_name: str) -> LogPchip:
+    """PCHIP in log μa through every row of one shipped table (read once)."""
+    table = absorption_table(file_name)
     return LogPchip(table.wavelength_nm, table.mua_per_mm)
 
 
@@ -489,10 +490,4 @@ def water_absorption_Kou1993(*, wavelength_nm) -> np.ndarray:
     2. IOCCG Protocol Series (2018), vol. 1.0 (the 5 nm tabulation with its uncertainty).
     """
     wavelength = _checked_wavelengths(wavelength_nm, KOU_1993_BAND_NM, "Kou et al. 1993")
-    return _kou_interpolant()(wavelength)
-
-
-@lru_cache(maxsize=1)
-def _kou_interpolant() -> LogPchip:
-    table = absorption_table(KOU_1993_FILE)
-    return LogPchip(table.wavelength_nm, table.mua_per_mm)
+    return _file_interpolant(KOU_1993_FILE)(wavelength)

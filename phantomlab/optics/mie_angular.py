@@ -21,7 +21,7 @@ from __future__ import annotations
 import numpy as np
 
 from phantomlab.errors import InputError
-from phantomlab.optics.mie_series import coefficient_orders, series_length
+from phantomlab.optics.mie_series import coefficient_orders, paired_arguments, series_length
 
 __all__ = ["mie_coefficients", "angular_functions", "scattered_intensity", "ensemble_differential_cross_section",
            "angle_grid"]
@@ -52,10 +52,7 @@ def mie_coefficients(m, x) -> tuple[np.ndarray, np.ndarray]:
        Particles. Wiley. Eq. 4.88 and Appendix A.
     2. Wiscombe, W. J. (1980). Improved Mie scattering algorithms. Appl. Opt. 19(9), 1505–1509.
     """
-    x = np.atleast_1d(np.asarray(x, dtype=float)).ravel()
-    m = np.atleast_1d(np.asarray(m, dtype=complex)).ravel()
-    if m.size == 1:
-        m = np.full(x.shape, m[0])
+    m, x = paired_arguments(m, x)
     if m.shape != x.shape or x.size == 0 or np.any(~np.isfinite(x)) or np.any(x <= 0):
         raise InputError("Mie coefficients: m and x must be equally long, x finite and > 0")
     m_bh = np.conj(m)  # BH write m = n + i k

@@ -34,6 +34,15 @@ __all__ = ["mie_efficiencies"]
 BLOCK = 4096
 
 
+def paired_arguments(m, x) -> tuple[np.ndarray, np.ndarray]:
+    """m (complex) and x (float) as flat arrays, one m given for every x repeated."""
+    x = np.atleast_1d(np.asarray(x, dtype=float)).ravel()
+    m = np.atleast_1d(np.asarray(m, dtype=complex)).ravel()
+    if m.size == 1:
+        m = np.full(x.shape, m[0])
+    return m, x
+
+
 def series_length(x: np.ndarray) -> np.ndarray:
     """Terms n_max of the series for size parameters x: x + 4 x^(1/3) + 2 (Wiscombe 1980, eq. 1)."""
     return np.floor(x + 4.0 * np.cbrt(x) + 2.0).astype(int)
@@ -121,10 +130,7 @@ def mie_efficiencies(m, x) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     2. Wiscombe, W. J. (1980). Improved Mie scattering algorithms. Appl. Opt. 19(9),
        1505–1509. doi:10.1364/AO.19.001505
     """
-    x = np.atleast_1d(np.asarray(x, dtype=float)).ravel()
-    m = np.atleast_1d(np.asarray(m, dtype=complex)).ravel()
-    if m.size == 1:
-        m = np.full(x.shape, m[0])
+    m, x = paired_arguments(m, x)
     if m.shape != x.shape:
         raise ValueError("m and x must have one length")
     m_bh = np.conj(m)
