@@ -277,16 +277,16 @@ def fit_fd(measurement: FrequencyDomainMeasurement, *, model: str = "kienle1997"
                                                      sd_lag, baseline, n)
     values, cov = log_to_linear(outcome.x, covariance)
     mua, musp = values[:, 0], values[:, 1]
+    every = np.arange(W)
+    model_amp, model_lag, shift, offset = solved(outcome.x, every)
     model_covariance = None
     if model in ("kienle1997", "contini1997") and with_sd:
-        model_amp, model_lag, _, _ = solved(outcome.x, np.arange(W))
+        # the phase error as a fraction of the fitted phase, system offset included (as set)
         shape_cov = _diffusion_covariance(residual_fn, outcome.x, mask, rho, np.abs(model_lag), sd_log, sd_lag)
         model_covariance = values[:, :, None] * shape_cov * values[:, None, :]
     if model == "mc":
         _check_lookup_reach(baseline, mua, musp, rho, measurement.wavelength_nm)
     sds = np.sqrt(np.diagonal(cov, axis1=1, axis2=2))
-    every = np.arange(W)
-    model_amp, model_lag, shift, offset = solved(outcome.x, every)
     # the offsets' SDs: of a weighted mean of the phase residuals (their own scatter when no SDs)
     wl = finite / sd_lag**2
     offset_sd = np.sqrt(1.0 / np.maximum(np.sum(wl, axis=1), 1e-300)) * (

@@ -70,8 +70,8 @@ def test_water_absorbs_at_the_batch_temperature(shelf):
                preparation={"kind": "liquid", "measure_temperature_c": 37.0})
     predicted = predict(r, volume_fractions={"dye_blue": 0.05})
     assert predicted.mua_per_mm == pytest.approx(0.95 * water + 0.05 * (dye + water), rel=1e-6)
-    # and differs from the table-temperature batch by the coefficients' share (IOCCG 2018: -6e-4 and
-    # -7e-4 /m per °C at 800 and 900 nm)
+    # and differs from the table-temperature batch by the coefficients' share (IOCCG 2018, pure-water table:
+    # -0.0060 and -0.0070 /m per °C at 800 and 900 nm)
     at_22 = predict(recipe(shelf, ["dye_blue"], {"wavelength_nm": lam.tolist(), "mua_per_mm": [0.1, 0.1]},
                            preparation=AT_TABLE_TEMPERATURE), volume_fractions={"dye_blue": 0.05})
     assert predicted.mua_per_mm - at_22.mua_per_mm == pytest.approx(coefficient * 15.0, rel=1e-6)
