@@ -36,11 +36,13 @@ class SeriesComputation:
     readings: list
     comparison: list
     warnings: list = field(default_factory=list)
+    water_temperature_c: float | None = None
 
     def to_json(self) -> dict[str, Any]:
         return {
             "chromophores": list(self.chromophores),
             "source": self.source,
+            "water_temperature_c": self.water_temperature_c,
             "points": self.points,
             "readings": self.readings,
             "comparison": self.comparison,
@@ -66,6 +68,7 @@ def _point_json(moment: _dt.datetime, start: _dt.datetime, result) -> dict[str, 
         "thb_um": payload["thb_um"],
         "thb_sd_um": payload["thb_sd_um"],
         "water_fraction": payload["water_fraction"],
+        "water_temperature_c": payload["water_temperature_c"],
         "lipid_fraction": payload.get("lipid_fraction"),
         "chi2_red": payload["chi2_red"],
         "condition_number": payload["condition_number"],
@@ -93,14 +96,16 @@ def _compare(points: list[dict], readings: list[dict]) -> list[dict]:
 
 def compute_series(series_content, *, chromophores, source: str = DEFAULT_HAEMOGLOBIN_SOURCE,
                    readings_content=None, series_file_name: str = "series file",
-                   readings_file_name: str = "reference readings") -> SeriesComputation:
-    """Read the series (and the reference readings), unmix every time point, compare."""
+                   readings_file_name: str = "reference readings",
+                   water_temperature_c: float | None = None) -> SeriesComputation:
+    """Read the series (and the reference readings), unmix every time point (water at
+    ``water_temperature_c`` [°C], None: as tabulated), compare."""
     names = parse_chromophore_list(chromophores if isinstance(chromophores, str) else ",".join(chromophores))
     haemoglobin_source(source)
     points = parse_series_csv(_text(series_content, series_file_name), name=series_file_name)
     readings = [] if readings_content is None else parse_reference_csv(
         _text(readings_content, readings_file_name), name=readings_file_name)
-    results = unmix_series(points, chromophores=names, source=source)
+    results = unmix_series(points, chromophores=names, source=source, water_temperature_c=water_temperature_c)
     start = points[0].measured_at
     point_rows = [_point_json(p.measured_at, start, r) for p, r in zip(points, results)]
     reading_rows = _readings_json(readings)
@@ -110,7 +115,9 @@ def compute_series(series_content, *, chromophores, source: str = DEFAULT_HAEMOG
             text = f"{row['measured_at']}: {message}"
             if text not in warnings:
                 warnings.append(text)
-    return SeriesComputation(names, source, point_rows, reading_rows, _compare(point_rows, reading_rows), warnings)
+    temperature = results[0].water_temperature_c if results else water_temperature_c
+    return SeriesComputation(names, source, point_rows, reading_rows, _compare(point_rows, reading_rows), warnings,
+                             temperature)
 
 
 @dataclass(frozen=True)
@@ -131,16 +138,27 @@ class RecordedSeries:
 def record_oxygenation_series(store, code: str, *, name: str, series_file_name: str, series_content: bytes,
                               chromophores, source: str = DEFAULT_HAEMOGLOBIN_SOURCE,
                               readings_file_name: str | None = None, readings_content: bytes | None = None,
-                              recorded_by: str | None = None) -> RecordedSeries:
-    """Read, unmix and compare first; then one transaction stores both files and the results."""
+                              recorded_by: str | None = None,
+                              water_temperature_c: float | None = None) -> RecordedSeries:
+    """Read, unmix and compare first; then one transaction stores both files and the results.
+
+    The water column absorbs at ``water_temperature_c`` [°C]; None: at the measuring
+    temperature of the batch's recipe (``[preparation] measure_temperature_c``, default 20 °C).
+    """
+    from phantomlab.recipe.preparation import measure_temperature_of
     from phantomlab.store import get_batch
+    from phantomlab.store.batches import recipe_of
     from phantomlab.store.oxygenation import add_oxygenation_series
 
     if readings_content is not None and readings_file_name is None:
         readings_file_name = "reference readings"
+    if water_temperature_c is None:
+        with store.reading() as session:
+            water_temperature_c = measure_temperature_of(recipe_of(session, get_batch(session, code)).definition)
     computation = compute_series(series_content, chromophores=chromophores, source=source,
                                  readings_content=readings_content, series_file_name=series_file_name,
-                                 readings_file_name=readings_file_name or "reference readings")
+                                 readings_file_name=readings_file_name or "reference readings",
+                                 water_temperature_c=water_temperature_c)
     series_bytes = series_content.encode("utf-8") if isinstance(series_content, str) else bytes(series_content)
     readings_bytes = None if readings_content is None else (
         readings_content.encode("utf-8") if isinstance(readings_content, str) else bytes(readings_content))
@@ -175,6 +193,7 @@ def oxygenation_of(store, code: str) -> list[dict[str, Any]]:
                 "readings_file_name": row.readings_file_name,
                 "chromophores": row.chromophores.split(","),
                 "source": row.extinction_source,
+                "water_temperature_c": next((p.get("water_temperature_c") for p in row.points), None),
                 "points": list(row.points),
                 "readings": list(row.readings),
             }

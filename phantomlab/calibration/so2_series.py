@@ -233,14 +233,15 @@ def parse_reference_csv(text: str, *, name: str = "reference readings") -> list[
     return sorted(readings, key=lambda r: r.measured_at)
 
 
-def unmix_series(points, *, chromophores, source) -> list[UnmixResult]:
-    """Unmix every time point of a series (:func:`unmix_spectrum`), in order."""
+def unmix_series(points, *, chromophores, source, water_temperature_c: float | None = None) -> list[UnmixResult]:
+    """Unmix every time point of a series (:func:`unmix_spectrum`), in order, water at ``water_temperature_c`` [°C]."""
     names = parse_chromophore_list(",".join(chromophores) if not isinstance(chromophores, str) else chromophores)
     results = []
     for point in points:
         try:
             results.append(unmix_spectrum(wavelength_nm=point.wavelength_nm, mua_per_mm=point.mua_per_mm,
-                                          mua_sd_per_mm=point.mua_sd_per_mm, chromophores=names, source=source))
+                                          mua_sd_per_mm=point.mua_sd_per_mm, chromophores=names, source=source,
+                                          water_temperature_c=water_temperature_c))
         except InputError as error:
             raise InputError(f"time {point.measured_at.isoformat()}: {error}") from None
     return results

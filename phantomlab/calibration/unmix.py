@@ -60,7 +60,7 @@ from phantomlab.materials.haemoglobin import (
     source_for,
 )
 from phantomlab.materials.solvents import lipid_absorption_vanVeen2004
-from phantomlab.materials.water import water_absorption_per_mm
+from phantomlab.materials.water import checked_liquid_temperature, water_absorption_at_temperature
 
 __all__ = [
     "UNMIX_CHROMOPHORES",
@@ -142,13 +142,16 @@ def parse_chromophore_list(text, *, stocks=None) -> tuple[str, ...]:
     return names
 
 
-def chromophore_columns(chromophores, *, wavelength_nm, source: str | None = None, stocks=None) -> np.ndarray:
+def chromophore_columns(chromophores, *, wavelength_nm, source: str | None = None, stocks=None,
+                        water_temperature_c: float | None = None) -> np.ndarray:
     """The design matrix: μa per unit amount of each chromophore, shape (wavelengths, chromophores).
 
     Units: [1/mm per µM tetramer] for the haemoglobin forms (one table: ``source``, or the
     first that holds them all); [1/mm per volume fraction] for ``water`` and ``lipid`` (the
-    pure liquid's μa) and for an absorber stock named by its key in ``stocks`` (its intrinsic
-    μa, water solvent left out: :func:`phantomlab.calibration.unmix_stocks.absorber_column`).
+    pure liquid's μa; water at ``water_temperature_c`` [°C] by the IOCCG 2018 coefficients,
+    :func:`phantomlab.materials.water.water_absorption_at_temperature`, or as tabulated when
+    None) and for an absorber stock named by its key in ``stocks`` (its intrinsic μa, water
+    solvent left out: :func:`phantomlab.calibration.unmix_stocks.absorber_column`).
     """
     wavelength = np.asarray(wavelength_nm, dtype=float)
     forms = [n for n in chromophores if n in HAEMOGLOBIN_FORMS]
@@ -159,7 +162,7 @@ def chromophore_columns(chromophores, *, wavelength_nm, source: str | None = Non
         if name in HAEMOGLOBIN_FORMS:
             columns.append(haemoglobin_mua_per_mm_per_um(name, wavelength_nm=wavelength, source=table))
         elif name == "water":
-            columns.append(water_absorption_per_mm(wavelength))
+            columns.append(water_absorption_at_temperature(wavelength, temperature_c=water_temperature_c))
         elif name == "lipid":
             columns.append(lipid_absorption_vanVeen2004(wavelength_nm=wavelength))
         elif name in stocks:
@@ -198,6 +201,8 @@ class UnmixResult:
     independence : dict of str to float
         Per chromophore, the distance of its weighted, normalised spectrum from the span of
         the others (0: an exact mix of them, 1: unlike any mix).
+    water_temperature_c : float or None
+        Temperature the water column was taken at [°C] (None: the tables as published).
     """
 
     chromophores: tuple
@@ -220,6 +225,7 @@ class UnmixResult:
     stock_fractions: dict = field(default_factory=dict)
     stock_fraction_sds: dict = field(default_factory=dict)
     independence: dict = field(default_factory=dict)
+    water_temperature_c: float | None = None
 
     def to_json(self) -> dict[str, Any]:
         """The ``unmix`` object of docs/contract.md (stable keys first, extras after)."""
@@ -255,6 +261,7 @@ class UnmixResult:
             {
                 "chromophores": list(self.chromophores),
                 "source": self.source,
+                "water_temperature_c": self.water_temperature_c,
                 "basis": EXTINCTION_BASIS,
                 "dof": self.dof,
                 "independence": dict(self.independence),
@@ -311,6 +318,7 @@ def unmix_spectrum(
     source: str | None = None,
     stocks=None,
     blood_stock: str | None = None,
+    water_temperature_c: float | None = None,
 ) -> UnmixResult:
     """Unmix a μa spectrum into haemoglobin forms, water, lipid and a recipe's absorber stocks.
 
@@ -333,6 +341,10 @@ def unmix_spectrum(
     blood_stock : str, optional
         Key of a blood stock in ``stocks``: its volume fraction is reported from the total
         haemoglobin (f = T / (p · c)).
+    water_temperature_c : float, optional [°C]
+        Temperature of the measured phantom: the ``water`` column absorbs at it (0–60 °C;
+        None: the water tables as published, 20–25 °C).  Near 740 and 970 nm water's
+        absorption rises about 0.5 % per °C (IOCCG 2018).
 
     Returns
     -------
@@ -352,6 +364,8 @@ def unmix_spectrum(
     if blood_stock is not None and (blood_stock not in stocks or stocks[blood_stock].kind != "blood"):
         raise InputError(f"unmix: blood_stock {blood_stock!r} is not a blood stock of the recipe")
     wavelength, mua, sd = _checked_spectrum(wavelength_nm, mua_per_mm, mua_sd_per_mm)
+    if water_temperature_c is not None:
+        water_temperature_c = checked_liquid_temperature(water_temperature_c, what="unmix: water temperature")
     k = len(names)
     if wavelength.size < k:
         raise InputError(
@@ -360,7 +374,8 @@ def unmix_spectrum(
     messages: list[str] = []
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", PhantomlabWarning)
-        design = chromophore_columns(names, wavelength_nm=wavelength, source=source, stocks=stocks)
+        design = chromophore_columns(names, wavelength_nm=wavelength, source=source, stocks=stocks,
+                                     water_temperature_c=water_temperature_c)
     for item in caught:
         text = " ".join(str(item.message).split())
         if text not in messages:
@@ -456,6 +471,7 @@ def unmix_spectrum(
         stock_fractions=stock_fractions,
         stock_fraction_sds=stock_fraction_sds,
         independence={n: float(v) for n, v in zip(names, independence)},
+        water_temperature_c=water_temperature_c,
     )
 
 

@@ -1,13 +1,14 @@
 """``phantomlab oxygenation``: oxygenation series of a batch (layer 5, no physics).
 
     phantomlab oxygenation add BATCH_ID SERIES.csv --chromophores LIST [--references READINGS.csv]
-                               [--name NAME] [--source S] [--operator NAME] [--db URL] [--json]
+                               [--name NAME] [--source S] [--temperature-c T] [--operator NAME]
+                               [--db URL] [--json]
     phantomlab oxygenation show BATCH_ID [--db URL] [--json]
 
 JSON keys (docs/contract.md): add — ``batch``, ``series_id``, ``name``, ``chromophores``,
-``source``, ``points``, ``readings``, ``comparison``; show — ``batch``, ``series`` (each with
+``source``, ``water_temperature_c``, ``points``, ``readings``, ``comparison``; show — ``batch``, ``series`` (each with
 ``series_id``, ``name``, ``recorded_at``, ``recorded_by``, ``series_file_name``,
-``readings_file_name``, ``chromophores``, ``source``, ``points``, ``readings``,
+``readings_file_name``, ``chromophores``, ``source``, ``water_temperature_c``, ``points``, ``readings``,
 ``comparison``); ``warnings`` is added by the command line.
 """
 
@@ -47,6 +48,9 @@ def register(subparsers) -> None:
         "--source", default=DEFAULT_HAEMOGLOBIN_SOURCE, metavar="S",
         help=f"haemoglobin table: {', '.join(HAEMOGLOBIN_SOURCES)} (default {DEFAULT_HAEMOGLOBIN_SOURCE})",
     )
+    add.add_argument("--temperature-c", type=float, default=None, metavar="T",
+                     help="temperature of the phantom when measured, 0-60 C: the water absorbs at it "
+                     "(default: the batch recipe's measure_temperature_c)")
     add.add_argument("--operator", default=None, metavar="NAME", help="who records it")
     add_db_option(add)
     add_json_option(add)
@@ -85,6 +89,11 @@ def _comparison_lines(comparison) -> list[str]:
     return lines
 
 
+def _water_text(item) -> str:
+    temperature = item.get("water_temperature_c")
+    return "" if temperature is None else f", water at {temperature:g} C"
+
+
 def _points_lines(points) -> list[str]:
     lines = [f"  {'time':<19}  {'min':>6}  {'sO2':>6}  {'sd':>6}  {'tHb uM':>8}  {'sd':>6}"]
     for p in points:
@@ -98,6 +107,10 @@ def _add(args) -> CommandResult:
     from phantomlab.oxygenation_workflow import record_oxygenation_series
     from phantomlab.store import open_store
 
+    from phantomlab.materials.water import checked_liquid_temperature
+
+    if args.temperature_c is not None:
+        checked_liquid_temperature(args.temperature_c, what="--temperature-c")
     series_name, series_bytes = _read(args.series_file, "series file")
     readings_name = readings_bytes = None
     if args.references is not None:
@@ -108,12 +121,14 @@ def _add(args) -> CommandResult:
             store, args.batch_id, name=args.name or Path(series_name).stem, series_file_name=series_name,
             series_content=series_bytes, chromophores=args.chromophores, source=args.source,
             readings_file_name=readings_name, readings_content=readings_bytes, recorded_by=args.operator,
+            water_temperature_c=args.temperature_c,
         )
     finally:
         store.close()
     computation = recorded.computation
     lines = [f"batch {recorded.code}: oxygenation series {recorded.name!r} stored (id {recorded.series_id}), "
-             f"{len(computation.points)} time points, {len(computation.readings)} reference readings"]
+             f"{len(computation.points)} time points, {len(computation.readings)} reference readings, "
+             f"water at {computation.water_temperature_c:g} C"]
     lines += _points_lines(computation.points) + ["fitted vs reference sO2:"] + _comparison_lines(computation.comparison)
     return CommandResult(payload=recorded.to_json(), text="\n".join(lines), warnings=list(computation.warnings))
 
@@ -130,6 +145,6 @@ def _show(args) -> CommandResult:
     lines = [f"batch {args.batch_id}: {len(series)} oxygenation series"]
     for item in series:
         lines.append(f"series {item['name']!r} (id {item['series_id']}, recorded {item['recorded_at'][:16]}, "
-                     f"{','.join(item['chromophores'])}, table {item['source']})")
+                     f"{','.join(item['chromophores'])}, table {item['source']}{_water_text(item)})")
         lines += _points_lines(item["points"]) + ["fitted vs reference sO2:"] + _comparison_lines(item["comparison"])
     return CommandResult(payload={"batch": args.batch_id, "series": series}, text="\n".join(lines))

@@ -1,13 +1,14 @@
 """``phantomlab unmix``: μa(λ) → sO₂, total haemoglobin, water, lipid and a recipe's stocks (layer 5, no physics).
 
     phantomlab unmix [OPTICS.csv] --chromophores hbo2,hb,water[,lipid,methb,cohb,STOCK...]
-                     [--recipe RECIPE.toml] [--from-fit FILE.json] [--source S] [--json]
+                     [--recipe RECIPE.toml] [--from-fit FILE.json] [--source S] [--temperature-c T] [--json]
 
 JSON keys (docs/contract.md): ``so2``, ``so2_sd``, ``thb_um``, ``thb_sd_um``, ``water_fraction``,
 ``lipid_fraction`` (when asked), ``chi2_red``, ``condition_number``, ``warnings``,
 ``stock_fractions`` and ``stock_fraction_sds`` (with ``--recipe``); extras:
 ``water_fraction_sd``, ``lipid_fraction_sd``, ``hbo2_um``, ``hbo2_sd_um``, ``hb_um``,
-``hb_sd_um`` (and ``methb_…``, ``cohb_…`` when asked), ``chromophores``, ``source``, ``basis``,
+``hb_sd_um`` (and ``methb_…``, ``cohb_…`` when asked), ``chromophores``, ``source``,
+``water_temperature_c``, ``basis``,
 ``dof``, ``independence``, ``wavelength_nm``, ``mua_per_mm``, ``model_mua_per_mm``,
 ``residuals``, ``covariance``, ``input``, ``recipe``.
 """
@@ -49,6 +50,10 @@ def register(subparsers) -> None:
         help=f"haemoglobin table: {', '.join(HAEMOGLOBIN_SOURCES)} (default {DEFAULT_HAEMOGLOBIN_SOURCE}, "
         "or the table holding methb and cohb when they are asked)",
     )
+    parser.add_argument("--temperature-c", type=float, default=None, metavar="T",
+                        help="temperature of the phantom when measured, 0-60 C: the water column absorbs at it "
+                        "(default: the recipe's measure_temperature_c with --recipe, else the water tables "
+                        "as published, 20-25 C)")
     add_json_option(parser)
     parser.set_defaults(handler=_unmix)
 
@@ -94,10 +99,17 @@ def _unmix(args) -> CommandResult:
     chromophores = parse_chromophore_list(args.chromophores, stocks=stocks)
     if recipe is not None:
         chromophores = with_recipe_absorbers(chromophores, stocks)
+    from phantomlab.materials.water import checked_liquid_temperature
+
+    temperature = args.temperature_c
+    if temperature is None and recipe is not None:
+        temperature = recipe.preparation.temperature_c
+    if temperature is not None:
+        temperature = checked_liquid_temperature(temperature, what="--temperature-c")
     wavelength, mua, sd, name = _spectrum(args)
     result = unmix_spectrum(wavelength_nm=wavelength, mua_per_mm=mua, mua_sd_per_mm=sd,
                             chromophores=chromophores, source=args.source, stocks=stocks,
-                            blood_stock=blood_stock)
+                            blood_stock=blood_stock, water_temperature_c=temperature)
     payload = result.to_json()
     payload["warnings"] = list(payload["warnings"]) + notes
     if recipe is not None:
@@ -113,7 +125,8 @@ def _unmix(args) -> CommandResult:
 
     lines = [
         f"unmixing of {name}: {len(result.wavelength_nm)} wavelengths, chromophores {','.join(result.chromophores)}, "
-        f"haemoglobin table {result.source}",
+        f"haemoglobin table {result.source}, water "
+        + ("as tabulated (20-25 C)" if result.water_temperature_c is None else f"at {result.water_temperature_c:g} C"),
         f"  sO2                 {number(result.so2, result.so2_sd, '.3f')}",
         f"  total haemoglobin   {number(result.thb_um, result.thb_sd_um, '.4g')} uM (tetramer)",
     ]

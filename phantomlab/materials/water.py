@@ -52,6 +52,8 @@ __all__ = [
     "water_absorption_per_mm",
     "water_temperature_coefficient_per_mm_per_c",
     "water_absorption_rows",
+    "checked_liquid_temperature",
+    "LIQUID_WATER_RANGE_C",
     "WaterSource",
     "WATER_ABSORPTION_SOURCES",
     "DEFAULT_WATER_SOURCE",
@@ -80,6 +82,10 @@ TABLE_TEMPERATURE_C = {POPE_FRY_1997_FILE: 22.0, KOU_1993_FILE: 22.0, SEGELSTEIN
 #: Farthest from a table's temperature that the linear coefficient is applied without a
 #: warning [°C]; the IOCCG 2018 table states no range, so this bound is our choice, no source.
 TEMPERATURE_SPAN_C = 15.0
+#: Temperatures a user may give for a measurement of a phantom holding liquid water [°C]:
+#: liquid at normal pressure, and the bench's range (a phantom warmer than 60 °C softens or
+#: dries); the absorption tables warn beyond :data:`TEMPERATURE_SPAN_C` from their own.
+LIQUID_WATER_RANGE_C = (0.0, 60.0)
 
 
 @dataclass(frozen=True)
@@ -371,6 +377,18 @@ def water_temperature_coefficient_per_mm_per_c(wavelength_nm) -> tuple[np.ndarra
     wavelength = _checked_wavelengths(wavelength_nm, (float(rows_nm[0]), float(rows_nm[-1])),
                                       "the temperature coefficients of IOCCG 2018")
     return np.interp(wavelength, rows_nm, coefficient), np.interp(wavelength, rows_nm, sd)
+
+
+def checked_liquid_temperature(value, *, what: str) -> float:
+    """A measuring temperature [°C] within :data:`LIQUID_WATER_RANGE_C`, or one InputError line naming ``what``."""
+    low, high = LIQUID_WATER_RANGE_C
+    try:
+        temperature = float(value)
+    except (TypeError, ValueError):
+        raise InputError(f"{what}: {value!r} is not a number; give °C, {low:g} to {high:g}") from None
+    if not (np.isfinite(temperature) and low <= temperature <= high):
+        raise InputError(f"{what}: {value!r} °C; accepted {low:g} to {high:g} °C (liquid water at the bench)")
+    return temperature
 
 
 def water_absorption_at_temperature(wavelength_nm, *, source: str = DEFAULT_WATER_SOURCE, temperature_c) -> np.ndarray:

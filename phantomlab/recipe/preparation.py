@@ -20,8 +20,8 @@ Kinds and their fields (temperatures in °C, times in the unit their name says):
               ``post_cure_temperature_c`` and ``post_cure_time_h`` (optional),
               ``max_pour_mass_g`` (optional: larger pours overheat).
 
-Every kind also takes ``measure_temperature_c`` (20): the temperature the optics are
-predicted for.  The defaults are the middle of FIELD.md's ranges (# from memory, as FIELD.md
+Every kind also takes ``measure_temperature_c`` (20, accepted 0–60 °C): the temperature the
+optics are predicted for (the water of the batch absorbs at it).  The defaults are the middle of FIELD.md's ranges (# from memory, as FIELD.md
 marks them); a recipe states its own.
 """
 
@@ -32,8 +32,9 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from phantomlab.errors import InputError
+from phantomlab.materials.water import LIQUID_WATER_RANGE_C
 
-__all__ = ["Preparation", "parse_preparation", "PREPARATION_KINDS"]
+__all__ = ["Preparation", "parse_preparation", "measure_temperature_of", "PREPARATION_KINDS"]
 
 _COMMON = {"measure_temperature_c": 20.0}
 PREPARATION_KINDS: dict[str, dict[str, float | None]] = {
@@ -57,7 +58,10 @@ _RANGES = {  # field -> (low, high) accepted
     "hardener_parts_per_100_resin": (1.0, 200.0),
     "degas_pressure_kpa": (0.0, 101.325),
     "max_pour_mass_g": (0.0, 1e6),
+    "measure_temperature_c": LIQUID_WATER_RANGE_C,  # the water tables' temperature correction holds there
 }
+#: Fields whose range includes zero.
+_ZERO_ALLOWED = ("degas_pressure_kpa", "measure_temperature_c")
 
 
 @dataclass(frozen=True)
@@ -122,7 +126,7 @@ def parse_preparation(table: Any, *, default_kind: str = "liquid") -> Preparatio
         if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
             raise InputError(f"preparation ({kind}): {key} = {value!r}; give a number")
         low, high = _RANGES.get(key, (-50.0, 300.0) if key.endswith("_c") else (0.0, 1e4))
-        if not low <= value <= high or (key in _RANGES and value <= 0 and key != "degas_pressure_kpa"):
+        if not low <= value <= high or (key in _RANGES and value <= 0 and key not in _ZERO_ALLOWED):
             raise InputError(f"preparation ({kind}): {key} = {value!r}; accepted {low:g} to {high:g}")
         values[key] = float(value)
     for key, default in fields.items():
@@ -131,3 +135,10 @@ def parse_preparation(table: Any, *, default_kind: str = "liquid") -> Preparatio
                 raise InputError(f"preparation ({kind}): {key} is required")
             values[key] = default
     return Preparation(kind=kind, values=values)
+
+
+def measure_temperature_of(definition: Any) -> float:
+    """``measure_temperature_c`` of a recipe's parsed TOML (a batch's recorded recipe) [°C]; 20 when not given."""
+    table = definition.get("preparation") if isinstance(definition, dict) else None
+    value = table.get("measure_temperature_c") if isinstance(table, dict) else None
+    return _COMMON["measure_temperature_c"] if value is None else float(value)

@@ -91,8 +91,9 @@ def _stored(store, code: str) -> None:
     series = loaded.value[names.index(chosen)]
     files = series["series_file_name"] + (f", {series['readings_file_name']}" if series["readings_file_name"] else "")
     st.caption(f"{len(series['points'])} time points unmixed into {', '.join(series['chromophores'])} with the "
-               f"{series['source']} haemoglobin table; {len(series['readings'])} reference readings "
-               f"(files {plain(files)}).")
+               f"{series['source']} haemoglobin table"
+               + ("" if series.get("water_temperature_c") is None else f", water at {series['water_temperature_c']:g} °C")
+               + f"; {len(series['readings'])} reference readings (files {plain(files)}).")
     _figures(series, key=f"oxygenation.{code}.{series['series_id']}")
     st.markdown("**Reference vs fitted sO₂** (fitted value interpolated in time to each reading)")
     if series["comparison"]:
@@ -112,7 +113,8 @@ def _record_form(workspace, store, batch: dict) -> None:
     st.markdown("**Record an oxygenation series** — μa spectra over time "
                 "(`measured_at,wavelength_nm,mua_per_mm[,mua_sd_per_mm]`) and, beside them, reference sO₂ "
                 "readings (`measured_at,reference_so2` as a fraction or `reference_so2_percent`, "
-                "`[method][,instrument]`); every reading needs its time.")
+                "`[method][,instrument]`); every reading needs its time. Water absorbs at the measuring "
+                "temperature of the batch's recipe.")
     if batch["retracted"]:
         st.caption("The batch is retracted: a series cannot be recorded.")
         return

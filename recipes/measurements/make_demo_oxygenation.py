@@ -6,9 +6,11 @@ over an hour, measured every 5 minutes at 650–950 nm every 10 nm; `demo-oximet
 for blood-gas analyser readings of samples drawn now and then.  Both are synthetic:
 
 * true sO2(t) = 0.02 + 0.96 / (1 + exp((t − 30 min) / 7 min)), total haemoglobin 35 µM,
-  water fraction 0.97;
+  water fraction 0.97, the phantom at 37 °C (the measuring temperature of
+  demo-oximeter-blood.toml);
 * μa = ln(10)/10 · 1e-6 · c · (sO2 ε_HbO2 + (1 − sO2) ε_Hb) + 0.97 μa_water, with ε from the
-  Gratzer & Kollias table shipped with phantomlab and water from phantomlab.materials.water,
+  Gratzer & Kollias table shipped with phantomlab and water from phantomlab.materials.water
+  at 37 °C (IOCCG 2018 temperature coefficients),
   times (1 + 0.01 e), e from a seeded normal generator; the SD column is 1 %;
 * reference readings: the true sO2 at their times plus a normal error of 0.01, in percent,
   rounded to 0.1 %.
@@ -24,13 +26,14 @@ from pathlib import Path
 import numpy as np
 
 from phantomlab.materials.haemoglobin import haemoglobin_mua_per_mm_per_um
-from phantomlab.materials.water import water_absorption_per_mm
+from phantomlab.materials.water import water_absorption_at_temperature
 
 HERE = Path(__file__).resolve().parent
 START = dt.datetime(2026, 3, 2, 10, 0)
 WAVELENGTH_NM = np.arange(650.0, 951.0, 10.0)
 THB_UM = 35.0
 WATER_FRACTION = 0.97
+TEMPERATURE_C = 37.0
 SERIES_MINUTES = range(0, 61, 5)
 READING_MINUTES = (2, 13, 24, 31, 38, 47, 58)
 
@@ -43,10 +46,10 @@ def main() -> None:
     rng = np.random.default_rng(20260302)
     hbo2 = haemoglobin_mua_per_mm_per_um("hbo2", wavelength_nm=WAVELENGTH_NM)
     hb = haemoglobin_mua_per_mm_per_um("hb", wavelength_nm=WAVELENGTH_NM)
-    water = WATER_FRACTION * water_absorption_per_mm(WAVELENGTH_NM)
+    water = WATER_FRACTION * water_absorption_at_temperature(WAVELENGTH_NM, temperature_c=TEMPERATURE_C)
     lines = [
         "# source: demo data, invented (Kestrel Bay Optics Lab oximeter-test series; synthetic: "
-        "Gratzer & Kollias haemoglobin table, 35 uM, yeast deoxygenation over 60 min, 1 % noise; "
+        "Gratzer & Kollias haemoglobin table, 35 uM, water at 37 C, yeast deoxygenation over 60 min, 1 % noise; "
         "made by make_demo_oxygenation.py)",
         "measured_at,wavelength_nm,mua_per_mm,mua_sd_per_mm",
     ]

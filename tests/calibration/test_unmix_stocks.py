@@ -96,9 +96,11 @@ def nir_per_fraction():
     return np.array([NIR[w][0] for w in WAVELENGTH]) + ethanol
 
 
-def truth_mua(so2, *, f_ext660=F_EXT660, f_nir=F_NIR):
+def truth_mua(so2, *, f_ext660=F_EXT660, f_nir=F_NIR, water_temperature_c=None):
+    """The mix's μa; water as tabulated, or at ``water_temperature_c`` (the command takes a recipe's
+    ``measure_temperature_c``, 20 °C when the recipe gives none)."""
     return (haemoglobin_mua(so2) + f_ext660 * ext660_per_fraction() + f_nir * nir_per_fraction()
-            + WATER * water_absorption_per_mm(WAVELENGTH))
+            + WATER * water_absorption_per_mm(WAVELENGTH, temperature_c=water_temperature_c))
 
 
 @pytest.fixture(scope="module")
@@ -230,10 +232,11 @@ def _run(capsys, *argv):
 
 
 def test_command_adds_every_absorber_stock_of_the_recipe(lab, capsys, tmp_path):
-    optics = _optics_file(tmp_path / "optics.csv", truth_mua(0.4))
+    optics = _optics_file(tmp_path / "optics.csv", truth_mua(0.4, water_temperature_c=20.0))
     status, out, _ = _run(capsys, "unmix", optics, "--chromophores", "hbo2,hb,water", "--recipe",
                           lab / "blood-dyes.toml", "--json")
     payload = json.loads(out)
+    assert payload["water_temperature_c"] == 20.0  # the recipe's default measuring temperature
     assert status == 0 and payload["chromophores"] == ["hbo2", "hb", "water", "dye_ext660", "dye_nir"]
     assert set(payload["stock_fractions"]) == {"dye_ext660", "dye_nir", "blood_kb1"}
     assert payload["stock_fractions"]["dye_ext660"] == pytest.approx(F_EXT660, rel=1e-4)  # file rounds to 8 digits

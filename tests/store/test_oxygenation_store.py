@@ -24,7 +24,8 @@ READINGS = (MEASUREMENTS / "demo-oximeter-references.csv").read_bytes()
 def _record(store, code, **changes):
     options = dict(name="yeast run 1", series_file_name="demo-oximeter-series.csv", series_content=SERIES,
                    chromophores="hbo2,hb,water", readings_file_name="demo-oximeter-references.csv",
-                   readings_content=READINGS, recorded_by="demo operator")
+                   readings_content=READINGS, recorded_by="demo operator",
+                   water_temperature_c=37.0)  # the demo series was measured at 37 °C; the test batch's recipe says 20
     options.update(changes)
     return record_oxygenation_series(store, code, **options)
 

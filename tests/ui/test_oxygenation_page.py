@@ -35,7 +35,7 @@ def recorded(demo_file):
                 series_content=(MEASUREMENTS / "demo-oximeter-series.csv").read_bytes(),
                 readings_file_name="demo-oximeter-references.csv",
                 readings_content=(MEASUREMENTS / "demo-oximeter-references.csv").read_bytes(),
-                chromophores="hbo2,hb,water")
+                chromophores="hbo2,hb,water", water_temperature_c=37.0)  # the series was measured at 37 °C
         (series,) = oxygenation_of(store, code)
     finally:
         store.close()
