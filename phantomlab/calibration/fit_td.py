@@ -60,6 +60,7 @@ import numpy as np
 from phantomlab.calibration.fitting import FitResult, fit_blocks, log_to_linear
 from phantomlab.calibration.identifiability import outcome_warnings
 from phantomlab.calibration.td_checks import td_design_warnings
+from phantomlab.calibration.td_curves import SHIFT_UNIT_PS, background_level, clean_irf, fit_window, running_mean, start_values
 from phantomlab.calibration.td_measurements import TimeDomainMeasurement
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.jsonable import to_jsonable
@@ -79,12 +80,6 @@ DEFAULT_WINDOW = {"diffusion": (0.5, 0.01), "mc": (0.1, 0.01)}
 DIFFUSION_SHAPE_ERROR = (0.02, 0.2)
 #: Passes of the Poisson reweighting (the weights settle in two).
 IRLS_PASSES = 2
-#: Fewest pre-pulse bins to estimate the background from.
-MIN_BACKGROUND_BINS = 10
-#: The time shifts are fitted in ns (their steps then compare with those of the log coefficients).
-_SHIFT_UNIT_PS = 1000.0
-_GRID_MUA = np.geomspace(2e-4, 0.3, 9)
-_GRID_MUSP = np.geomspace(0.2, 5.0, 9)
 #: The fit stops when a step changes χ² by less than this (relative): Δχ² of 0.002 over 200
 #: bins, so the solution lies within √0.002 ≈ 0.05 SD of the minimum along any direction, far
 #: inside its uncertainty; the parameter steps then need no limit of their own (the lookup's
@@ -169,61 +164,6 @@ def td_curve_model(*, model: str, geometry: str, thickness_mm, n: float, n_outsi
     return shape
 
 
-def _smooth(values: np.ndarray, width: int = 5) -> np.ndarray:
-    kernel = np.ones(width) / width
-    return np.apply_along_axis(lambda v: np.convolve(v, kernel, mode="same"), -1, values)
-
-
-def _peak_region(signal: np.ndarray):
-    smooth = _smooth(signal)
-    peak = int(np.argmax(smooth))
-    return smooth, peak, float(smooth[peak])
-
-
-def _background(counts, time_ps, irf_fwhm_ps) -> float | None:
-    smooth, peak, top = _peak_region(counts)
-    rising = np.flatnonzero(smooth[:peak + 1] >= 0.05 * top)
-    start = rising[0] if rising.size else peak
-    before = time_ps < time_ps[start] - 2.0 * irf_fwhm_ps
-    if before.sum() < MIN_BACKGROUND_BINS:
-        return None
-    return float(np.mean(counts[before]))
-
-
-def _window(signal, rise: float, tail: float) -> np.ndarray:
-    smooth, peak, top = _peak_region(signal)
-    mask = np.zeros(signal.size, bool)
-    if top <= 0:
-        return mask
-    lo = peak
-    while lo > 0 and smooth[lo - 1] >= rise * top:
-        lo -= 1
-    hi = peak
-    while hi < signal.size - 1 and smooth[hi + 1] >= tail * top:
-        hi += 1
-    mask[lo:hi + 1] = True
-    return mask
-
-
-def _clean_irf(irf: np.ndarray, time_ps: np.ndarray) -> np.ndarray:
-    """IRF rows with their own background removed and the noise far from the pulse set to 0."""
-    out = np.empty_like(irf, dtype=float)
-    for i, row in enumerate(np.asarray(irf, float)):
-        smooth, peak, top = _peak_region(row)
-        tail = smooth < 1e-4 * top  # common practice, no source: below 1e-4 of the peak is noise
-        background = float(np.median(row[tail])) if tail.sum() >= MIN_BACKGROUND_BINS else 0.0
-        cleaned = np.clip(row - background, 0.0, None)
-        keep = np.zeros(row.size, bool)
-        lo = hi = peak
-        while lo > 0 and smooth[lo - 1] - background >= 1e-4 * top:
-            lo -= 1
-        while hi < row.size - 1 and smooth[hi + 1] - background >= 1e-4 * top:
-            hi += 1
-        keep[lo:hi + 1] = True
-        out[i] = np.where(keep, cleaned, 0.0)
-    return out
-
-
 def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: float | None = None,
            n_outside: float | None = None, thickness_mm: float | None = None, baseline=None,
            window_rise_fraction: float | None = None, window_tail_fraction: float | None = None) -> TimeDomainFit:
@@ -272,7 +212,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         raise InputError(f"{measurement.name}: no curve at {measurement.wavelength_nm[i]:g} nm and "
                          f"{measurement.rho_mm[j]:g} mm; every wavelength needs every distance")
     counts = measurement.counts.reshape(W * R, K)
-    irf = _clean_irf(measurement.irf, measurement.irf_time_ps)
+    irf = clean_irf(measurement.irf, measurement.irf_time_ps)
     irf_of_curve = np.repeat(np.arange(W), R) if irf.shape[0] == W and W > 1 else np.zeros(W * R, int)
     fwhm = irf_fwhm_ps(measurement.irf_time_ps, irf)[irf_of_curve]
     messages: list[str] = []
@@ -283,15 +223,15 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         if measurement.background_counts is not None:
             background[c] = measurement.background_counts
         else:
-            estimate = _background(counts[c], measurement.time_ps, fwhm[c])
+            estimate = background_level(counts[c], measurement.time_ps, fwhm[c])
             if estimate is None:
                 guessed_zero.append(c)
             background[c] = 0.0 if estimate is None else estimate
-        windows[c] = _window(counts[c] - background[c], rise, tail)
+        windows[c] = fit_window(counts[c] - background[c], rise, tail)
         signal = (counts[c] - background[c])[windows[c]]
         # a pulse must stand out of the curve's own typical level (its median) by its noise, 5 SD
         level = float(np.median(counts[c]))
-        standout = float(_smooth(counts[c]).max()) - level > 5.0 * np.sqrt(max(level, 1.0))
+        standout = float(running_mean(counts[c]).max()) - level > 5.0 * np.sqrt(max(level, 1.0))
         if windows[c].sum() < 3 or not np.any(signal > 0) or not standout:
             w, r = divmod(c, R)
             raise InputError(f"{measurement.name}: row {measurement.first_row[w, r]}, column counts: no counts above "
@@ -339,17 +279,17 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
             amplitude = np.maximum(amplitude, 1e-300)
         return c, amplitude, amplitude[:, None] * c + background[curves][:, None]
 
-    start = _start(lambda *a, **k: expected(*a, using=smooth_shape, **k), counts, background, windows, time, W, R)
+    start = start_values(lambda *a, **k: expected(*a, using=smooth_shape, **k), counts, background, windows, time, W, R)
     P = 2 + R
-    lower = np.concatenate([[np.log(1e-6), np.log(1e-3)], np.full(R, (time[0] - time[-1]) / _SHIFT_UNIT_PS)])
-    upper = np.concatenate([[np.log(5.0), np.log(50.0)], np.full(R, (time[-1] - time[0]) / _SHIFT_UNIT_PS)])
+    lower = np.concatenate([[np.log(1e-6), np.log(1e-3)], np.full(R, (time[0] - time[-1]) / SHIFT_UNIT_PS)])
+    upper = np.concatenate([[np.log(5.0), np.log(50.0)], np.full(R, (time[-1] - time[0]) / SHIFT_UNIT_PS)])
     sd = np.sqrt(np.maximum(counts, 1.0))
     mask = windows.reshape(W, R * K)
     if smooth_shape is not shape:
         def smooth_residual(x_rows, rows):
             curves = (rows[:, None] * R + np.arange(R)[None, :]).ravel()
             _, _, mu = expected(np.repeat(np.exp(x_rows[:, 0]), R), np.repeat(np.exp(x_rows[:, 1]), R),
-                                x_rows[:, 2:].ravel() * _SHIFT_UNIT_PS, curves, sd[curves], using=smooth_shape)
+                                x_rows[:, 2:].ravel() * SHIFT_UNIT_PS, curves, sd[curves], using=smooth_shape)
             return ((mu - counts[curves]) / sd[curves]).reshape(rows.size, R * K)
 
         start = fit_blocks(smooth_residual, start, mask=mask, lower=lower, upper=upper, row_aware=True,
@@ -361,7 +301,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
             curves = (rows[:, None] * R + np.arange(R)[None, :]).ravel()
             mua_c = np.repeat(np.exp(x_rows[:, 0]), R)
             musp_c = np.repeat(np.exp(x_rows[:, 1]), R)
-            _, _, mu = expected(mua_c, musp_c, x_rows[:, 2:].ravel() * _SHIFT_UNIT_PS, curves, sd[curves])
+            _, _, mu = expected(mua_c, musp_c, x_rows[:, 2:].ravel() * SHIFT_UNIT_PS, curves, sd[curves])
             return ((mu - counts[curves]) / sd[curves]).reshape(rows.size, R * K)
 
         # later passes start at the previous solution and only follow the new weights: a few steps
@@ -370,7 +310,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
                              step_tolerance=_STEP_TOLERANCE)
         x = outcome.x
         curves = np.arange(W * R)
-        c, amplitude, mu = expected(np.repeat(np.exp(x[:, 0]), R), np.repeat(np.exp(x[:, 1]), R), x[:, 2:].ravel() * _SHIFT_UNIT_PS,
+        c, amplitude, mu = expected(np.repeat(np.exp(x[:, 0]), R), np.repeat(np.exp(x[:, 1]), R), x[:, 2:].ravel() * SHIFT_UNIT_PS,
                                     curves, sd)
         sd = np.sqrt(np.maximum(mu, 1e-12))
     cov_log = outcome.covariance
@@ -378,7 +318,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     # each bin holds the response over the IRF's width: a model error's size and its time are
     # the response-weighted means over what the bin holds (one convolution each)
     mua_c, musp_c = np.repeat(np.exp(x[:, 0]), R), np.repeat(np.exp(x[:, 1]), R)
-    shifts = _SHIFT_UNIT_PS * x[:, 2:].ravel()
+    shifts = SHIFT_UNIT_PS * x[:, 2:].ravel()
 
     def weighted(extra):
         with warnings.catch_warnings():
@@ -416,7 +356,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     mua_fit, musp_fit = values[:, 0], values[:, 1]
     mua_sd = np.sqrt(np.diagonal(cov, axis1=1, axis2=2))[:, 0]
     musp_sd = np.sqrt(np.diagonal(cov, axis1=1, axis2=2))[:, 1]
-    shift_sd = _SHIFT_UNIT_PS * np.sqrt(np.clip(np.diagonal(cov_log, axis1=1, axis2=2)[:, 2:], 0, None))
+    shift_sd = SHIFT_UNIT_PS * np.sqrt(np.clip(np.diagonal(cov_log, axis1=1, axis2=2)[:, 2:], 0, None))
     amplitudes_fitted = 0 if absolute is not None else R
     dof = mask.sum(axis=1) - P - amplitudes_fitted
     K_full = measurement.time_ps.size
@@ -428,7 +368,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", PhantomlabWarning)
         c_full = whole.counts(lambda times: shape(np.repeat(mua_fit, R), np.repeat(musp_fit, R), rho_curve, times),
-                              _SHIFT_UNIT_PS * x[:, 2:].ravel(), irf_rows=irf_of_curve, smooth_start=True)
+                              SHIFT_UNIT_PS * x[:, 2:].ravel(), irf_rows=irf_of_curve, smooth_start=True)
     mu_full = amplitude[:, None] * c_full + background[:, None]
     chi2 = np.nansum(residuals**2, axis=(1, 2))
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -443,7 +383,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
                                  mua_sd_per_mm=mua_sd, musp_sd_per_mm=musp_sd, correlation=correlation)
     lookup = getattr(shape, "lookup", None)
     if lookup is not None:
-        _check_lookup_reach(lookup, measurement, musp_fit, x[:, 2:] * _SHIFT_UNIT_PS, full_windows, irf,
+        _check_lookup_reach(lookup, measurement, musp_fit, x[:, 2:] * SHIFT_UNIT_PS, full_windows, irf,
                             irf_of_curve, R)
     messages = list(dict.fromkeys(messages))
     for message in messages:
@@ -456,7 +396,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         replicates=measurement.replicates, dof=total_dof if total_dof > 0 else float("nan"),
         model_covariance=model_covariance,
         parameters={"window_rise_fraction": rise, "window_tail_fraction": tail},
-        time_shift_ps=_SHIFT_UNIT_PS * x[:, 2:], time_shift_sd_ps=shift_sd, amplitude=amplitude.reshape(W, R),
+        time_shift_ps=SHIFT_UNIT_PS * x[:, 2:], time_shift_sd_ps=shift_sd, amplitude=amplitude.reshape(W, R),
         background_counts=background.reshape(W, R),
         curves={"time_ps": measurement.time_ps, "rho_mm": measurement.rho_mm, "counts": measurement.counts,
                 "model": mu_full.reshape(W, R, K_full), "window": full_windows.reshape(W, R, K_full),
@@ -517,64 +457,3 @@ def _lookup_covariance(residual_fn, x, mask, relative_error, log_delay, bandwidt
                         * np.exp(-((lt[:, None] - lt[None, :]) ** 2) / (2 * pair)), 0.0)
         out[w] = propagated_error_covariance(j, e, corr)
     return out
-
-
-def _shifted(time, curves, shifts):
-    """Each curve (N, K) moved later by each shift (N, S) [ps], linear between bins: (N, S, K)."""
-    step = time[1] - time[0]
-    position = (np.arange(time.size)[None, None, :] - shifts[:, :, None] / step)
-    low = np.floor(position).astype(np.int64)
-    frac = position - low
-    padded = np.concatenate([np.zeros((curves.shape[0], 1)), curves, np.zeros((curves.shape[0], 1))], axis=1)
-    lo = np.clip(low + 1, 0, time.size + 1)
-    hi = np.clip(low + 2, 0, time.size + 1)
-    rows = np.arange(curves.shape[0])[:, None, None]
-    return padded[rows, lo] * (1 - frac) + padded[rows, hi] * frac
-
-
-def _start(expected, counts, background, windows, time, W, R) -> np.ndarray:
-    """Starting point per wavelength from a grid of (μa, μs′), each with its best t0.
-
-    For every grid pair the model (t0 = 0) is moved so that its half-peak on the rising edge
-    meets the data's, then by ±150 ps around that in 25-ps steps; the amplitude is projected
-    and the (pair, shift) of smallest χ² kept.
-    """
-    G = _GRID_MUA.size * _GRID_MUSP.size
-    mua_g = np.repeat(_GRID_MUA, _GRID_MUSP.size)
-    musp_g = np.tile(_GRID_MUSP, _GRID_MUA.size)
-    offsets = np.arange(-150.0, 151.0, 25.0)
-    x0 = np.zeros((W, 2 + R))
-    for w in range(W):
-        curves = w * R + np.arange(R)
-        rows = np.repeat(curves, G)
-        c, _, _ = expected(np.tile(mua_g, R), np.tile(musp_g, R), np.zeros(rows.size), rows)
-        data = (counts[rows] - background[rows][:, None])[:, None, :]
-        shifts = (_half_rise(time, data[:, 0]) - _half_rise(time, c))[:, None] + offsets[None, :]
-        moved = _shifted(time, c, shifts)  # (rows, S, K)
-        weight = (windows[rows] / np.maximum(counts[rows], 1.0))[:, None, :]
-        amp = np.maximum(np.sum(weight * moved * data, 2) / np.maximum(np.sum(weight * moved**2, 2), 1e-300), 0)
-        chi2 = np.sum(weight * (amp[:, :, None] * moved - data) ** 2, axis=2)  # (rows, S)
-        chi2 = np.where(np.isfinite(chi2), chi2, np.inf).reshape(R, G, offsets.size)
-        best_shift = np.argmin(chi2, axis=2)  # per curve and grid pair
-        total = np.min(chi2, axis=2).sum(axis=0)
-        best = int(np.argmin(total))
-        x0[w, 0], x0[w, 1] = np.log(mua_g[best]), np.log(musp_g[best])
-        x0[w, 2:] = shifts.reshape(R, G, -1)[np.arange(R), best, best_shift[:, best]] / _SHIFT_UNIT_PS
-    return x0
-
-
-def _half_rise(time, curves) -> np.ndarray:
-    """Time where each curve first reaches half its peak (linear between bins) [ps]."""
-    out = np.empty(curves.shape[0])
-    for i, row in enumerate(curves):
-        top = row.max()
-        if not top > 0:
-            out[i] = np.nan
-            continue
-        k = int(np.argmax(row >= 0.5 * top))
-        if k == 0:
-            out[i] = time[0]
-            continue
-        a, b = row[k - 1], row[k]
-        out[i] = time[k - 1] + (0.5 * top - a) * (time[k] - time[k - 1]) / (b - a if b != a else 1.0)
-    return np.nan_to_num(out, nan=0.0)

@@ -1,0 +1,149 @@
+"""Measured time-domain curves made ready for the fit: background, fit window, IRF, start values (layer 3).
+
+What :func:`phantomlab.calibration.fit_td.fit_td` does to the histograms before it fits them,
+each rule stated where it is applied:
+
+* **background** (:func:`background_level`): the mean count of the bins before the pulse,
+  earlier than two IRF widths before the curve first reaches 5 % of its peak, from at least
+  :data:`MIN_BACKGROUND_BINS` bins;
+* **window** (:func:`fit_window`): the bins from where the curve (5-bin running mean) first
+  rises to a fraction of its peak to where it falls to another;
+* **IRF** (:func:`clean_irf`): each IRF row with its own background (median of its bins below
+  1e-4 of the peak) removed and the noise far from the pulse set to 0;
+* **start values** (:func:`start_values`): the best of a 9 × 9 grid in (μa, μs′), each grid
+  model moved onto the data's half-rise time and then by ±150 ps in 25-ps steps.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["MIN_BACKGROUND_BINS", "SHIFT_UNIT_PS", "background_level", "fit_window", "clean_irf", "running_mean",
+           "start_values"]
+
+#: Fewest pre-pulse bins to estimate the background from.
+MIN_BACKGROUND_BINS = 10
+#: The time shifts are fitted in ns (their steps then compare with those of the log coefficients).
+SHIFT_UNIT_PS = 1000.0
+#: The starting grid [1/mm].
+_GRID_MUA = np.geomspace(2e-4, 0.3, 9)
+_GRID_MUSP = np.geomspace(0.2, 5.0, 9)
+
+
+def running_mean(values: np.ndarray, width: int = 5) -> np.ndarray:
+    """Running mean over ``width`` bins along the last axis (same length)."""
+    kernel = np.ones(width) / width
+    return np.apply_along_axis(lambda v: np.convolve(v, kernel, mode="same"), -1, values)
+
+
+def _peak_region(signal: np.ndarray):
+    smooth = running_mean(signal)
+    peak = int(np.argmax(smooth))
+    return smooth, peak, float(smooth[peak])
+
+
+def background_level(counts, time_ps, irf_fwhm_ps) -> float | None:
+    """Mean counts per bin before the pulse, or None with fewer than :data:`MIN_BACKGROUND_BINS` bins there."""
+    smooth, peak, top = _peak_region(counts)
+    rising = np.flatnonzero(smooth[:peak + 1] >= 0.05 * top)
+    start = rising[0] if rising.size else peak
+    before = time_ps < time_ps[start] - 2.0 * irf_fwhm_ps
+    if before.sum() < MIN_BACKGROUND_BINS:
+        return None
+    return float(np.mean(counts[before]))
+
+
+def fit_window(signal, rise: float, tail: float) -> np.ndarray:
+    """Mask of the bins from ``rise`` × peak on the rising edge to ``tail`` × peak on the tail."""
+    smooth, peak, top = _peak_region(signal)
+    mask = np.zeros(signal.size, bool)
+    if top <= 0:
+        return mask
+    lo = peak
+    while lo > 0 and smooth[lo - 1] >= rise * top:
+        lo -= 1
+    hi = peak
+    while hi < signal.size - 1 and smooth[hi + 1] >= tail * top:
+        hi += 1
+    mask[lo:hi + 1] = True
+    return mask
+
+
+def clean_irf(irf: np.ndarray, time_ps: np.ndarray) -> np.ndarray:
+    """IRF rows with their own background removed and the noise far from the pulse set to 0."""
+    out = np.empty_like(irf, dtype=float)
+    for i, row in enumerate(np.asarray(irf, float)):
+        smooth, peak, top = _peak_region(row)
+        tail = smooth < 1e-4 * top  # common practice, no source: below 1e-4 of the peak is noise
+        background = float(np.median(row[tail])) if tail.sum() >= MIN_BACKGROUND_BINS else 0.0
+        cleaned = np.clip(row - background, 0.0, None)
+        keep = np.zeros(row.size, bool)
+        lo = hi = peak
+        while lo > 0 and smooth[lo - 1] - background >= 1e-4 * top:
+            lo -= 1
+        while hi < row.size - 1 and smooth[hi + 1] - background >= 1e-4 * top:
+            hi += 1
+        keep[lo:hi + 1] = True
+        out[i] = np.where(keep, cleaned, 0.0)
+    return out
+
+
+def _shifted(time, curves, shifts):
+    """Each curve (N, K) moved later by each shift (N, S) [ps], linear between bins: (N, S, K)."""
+    step = time[1] - time[0]
+    position = (np.arange(time.size)[None, None, :] - shifts[:, :, None] / step)
+    low = np.floor(position).astype(np.int64)
+    frac = position - low
+    padded = np.concatenate([np.zeros((curves.shape[0], 1)), curves, np.zeros((curves.shape[0], 1))], axis=1)
+    lo = np.clip(low + 1, 0, time.size + 1)
+    hi = np.clip(low + 2, 0, time.size + 1)
+    rows = np.arange(curves.shape[0])[:, None, None]
+    return padded[rows, lo] * (1 - frac) + padded[rows, hi] * frac
+
+
+def start_values(expected, counts, background, windows, time, W, R) -> np.ndarray:
+    """Starting point per wavelength from a grid of (μa, μs′), each with its best t0.
+
+    For every grid pair the model (t0 = 0) is moved so that its half-peak on the rising edge
+    meets the data's, then by ±150 ps around that in 25-ps steps; the amplitude is projected
+    and the (pair, shift) of smallest χ² kept.
+    """
+    G = _GRID_MUA.size * _GRID_MUSP.size
+    mua_g = np.repeat(_GRID_MUA, _GRID_MUSP.size)
+    musp_g = np.tile(_GRID_MUSP, _GRID_MUA.size)
+    offsets = np.arange(-150.0, 151.0, 25.0)
+    x0 = np.zeros((W, 2 + R))
+    for w in range(W):
+        curves = w * R + np.arange(R)
+        rows = np.repeat(curves, G)
+        c, _, _ = expected(np.tile(mua_g, R), np.tile(musp_g, R), np.zeros(rows.size), rows)
+        data = (counts[rows] - background[rows][:, None])[:, None, :]
+        shifts = (_half_rise(time, data[:, 0]) - _half_rise(time, c))[:, None] + offsets[None, :]
+        moved = _shifted(time, c, shifts)  # (rows, S, K)
+        weight = (windows[rows] / np.maximum(counts[rows], 1.0))[:, None, :]
+        amp = np.maximum(np.sum(weight * moved * data, 2) / np.maximum(np.sum(weight * moved**2, 2), 1e-300), 0)
+        chi2 = np.sum(weight * (amp[:, :, None] * moved - data) ** 2, axis=2)  # (rows, S)
+        chi2 = np.where(np.isfinite(chi2), chi2, np.inf).reshape(R, G, offsets.size)
+        best_shift = np.argmin(chi2, axis=2)  # per curve and grid pair
+        total = np.min(chi2, axis=2).sum(axis=0)
+        best = int(np.argmin(total))
+        x0[w, 0], x0[w, 1] = np.log(mua_g[best]), np.log(musp_g[best])
+        x0[w, 2:] = shifts.reshape(R, G, -1)[np.arange(R), best, best_shift[:, best]] / SHIFT_UNIT_PS
+    return x0
+
+
+def _half_rise(time, curves) -> np.ndarray:
+    """Time where each curve first reaches half its peak (linear between bins) [ps]."""
+    out = np.empty(curves.shape[0])
+    for i, row in enumerate(curves):
+        top = row.max()
+        if not top > 0:
+            out[i] = np.nan
+            continue
+        k = int(np.argmax(row >= 0.5 * top))
+        if k == 0:
+            out[i] = time[0]
+            continue
+        a, b = row[k - 1], row[k]
+        out[i] = time[k - 1] + (0.5 * top - a) * (time[k] - time[k - 1]) / (b - a if b != a else 1.0)
+    return np.nan_to_num(out, nan=0.0)
