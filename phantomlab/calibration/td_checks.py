@@ -11,6 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from phantomlab.calibration.identifiability import _bands
+from phantomlab.calibration.td_curves import peak_region, rise_time_ps
 
 __all__ = ["td_design_warnings", "MIN_PEAK_COUNTS", "MIN_WINDOW_BINS", "DIFFUSION_MIN_TRANSPORT_LENGTHS"]
 
@@ -23,13 +24,6 @@ MIN_WINDOW_BINS = 20
 DIFFUSION_MIN_TRANSPORT_LENGTHS = 5.0
 
 
-def _peak(signal):
-    kernel = np.ones(5) / 5
-    smooth = np.convolve(signal, kernel, mode="same")
-    peak = int(np.argmax(smooth))
-    return smooth, peak, float(smooth[peak])
-
-
 def td_design_warnings(measurement, signal, windows, fwhm, family, geometry, thickness, mua, musp, rise) -> list[str]:
     """Identifiability and model-range checks of a td fit (each message names values and limits)."""
     messages = []
@@ -39,13 +33,11 @@ def td_design_warnings(measurement, signal, windows, fwhm, family, geometry, thi
     for w in range(wl.size):
         for r in range(measurement.rho_mm.size):
             s, win = signal[w, r], windows[w, r]
-            smooth, peak, top = _peak(s)
+            _, _, top = peak_region(s)
             n_bins = int(win.sum())
             if n_bins < MIN_WINDOW_BINS or n_bins * step < 3 * fwhm[w, r]:
                 short[w] = True
-            above = np.flatnonzero(smooth[:peak + 1] >= 0.1 * top)
-            rise_time = (peak - above[0]) * step if above.size else 0.0
-            if fwhm[w, r] > rise_time:
+            if fwhm[w, r] > rise_time_ps(s, step):
                 wide[w] = True
             if top < MIN_PEAK_COUNTS:
                 low[w] = True

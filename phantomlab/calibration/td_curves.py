@@ -19,7 +19,7 @@ from __future__ import annotations
 import numpy as np
 
 __all__ = ["MIN_BACKGROUND_BINS", "SHIFT_UNIT_PS", "background_level", "fit_window", "clean_irf", "running_mean",
-           "start_values"]
+           "rise_time_ps", "peak_region", "start_values"]
 
 #: Fewest pre-pulse bins to estimate the background from.
 MIN_BACKGROUND_BINS = 10
@@ -36,7 +36,8 @@ def running_mean(values: np.ndarray, width: int = 5) -> np.ndarray:
     return np.apply_along_axis(lambda v: np.convolve(v, kernel, mode="same"), -1, values)
 
 
-def _peak_region(signal: np.ndarray):
+def peak_region(signal: np.ndarray):
+    """The 5-bin running mean of a curve, the index of its peak and the peak value."""
     smooth = running_mean(signal)
     peak = int(np.argmax(smooth))
     return smooth, peak, float(smooth[peak])
@@ -44,7 +45,7 @@ def _peak_region(signal: np.ndarray):
 
 def background_level(counts, time_ps, irf_fwhm_ps) -> float | None:
     """Mean counts per bin before the pulse, or None with fewer than :data:`MIN_BACKGROUND_BINS` bins there."""
-    smooth, peak, top = _peak_region(counts)
+    smooth, peak, top = peak_region(counts)
     rising = np.flatnonzero(smooth[:peak + 1] >= 0.05 * top)
     start = rising[0] if rising.size else peak
     before = time_ps < time_ps[start] - 2.0 * irf_fwhm_ps
@@ -53,9 +54,16 @@ def background_level(counts, time_ps, irf_fwhm_ps) -> float | None:
     return float(np.mean(counts[before]))
 
 
+def rise_time_ps(signal, step_ps: float) -> float:
+    """Time from 10 % of the peak to the peak on the rising edge (5-bin running mean) [ps]."""
+    smooth, peak, top = peak_region(signal)
+    above = np.flatnonzero(smooth[:peak + 1] >= 0.1 * top)
+    return float((peak - above[0]) * step_ps) if above.size and top > 0 else 0.0
+
+
 def fit_window(signal, rise: float, tail: float) -> np.ndarray:
     """Mask of the bins from ``rise`` × peak on the rising edge to ``tail`` × peak on the tail."""
-    smooth, peak, top = _peak_region(signal)
+    smooth, peak, top = peak_region(signal)
     mask = np.zeros(signal.size, bool)
     if top <= 0:
         return mask
@@ -73,7 +81,7 @@ def clean_irf(irf: np.ndarray, time_ps: np.ndarray) -> np.ndarray:
     """IRF rows with their own background removed and the noise far from the pulse set to 0."""
     out = np.empty_like(irf, dtype=float)
     for i, row in enumerate(np.asarray(irf, float)):
-        smooth, peak, top = _peak_region(row)
+        smooth, peak, top = peak_region(row)
         tail = smooth < 1e-4 * top  # common practice, no source: below 1e-4 of the peak is noise
         background = float(np.median(row[tail])) if tail.sum() >= MIN_BACKGROUND_BINS else 0.0
         cleaned = np.clip(row - background, 0.0, None)
