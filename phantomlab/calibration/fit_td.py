@@ -17,7 +17,13 @@ pass's model (the first pass uses max(N_k, 1)): the fixed point is the maximum-l
 estimate for Poisson counts (iteratively reweighted least squares; McCullagh & Nelder 1989,
 *Generalized Linear Models*, 2nd ed., §2.5).  χ²_red is Pearson's χ² over the degrees of
 freedom (window bins − fitted parameters, amplitudes included); its SDs are the (JᵀJ)⁻¹ of the
-last pass.  The Monte Carlo lookup's own photon noise is added to the variance, (μ·σ_rel)².
+last pass.  The Monte Carlo lookup's own error enters as a model error of each bin, propagated
+to the parameters (:func:`_lookup_covariance`): its photon noise, averaged over the bin's spread
+in ln t (variance × h/√(h² + s²), correlation widened to √(h² + s²), h the smoothing kernel's
+width, s the spread of ln t the bin's response holds; kept unaveraged where the IRF is wider
+than the curve's rise, where the fit is far from linear), and its smoothing bias
+(:meth:`~phantomlab.calibration.mc_lookup_time.TimeResolvedLookup.relative_bias`).  On
+independent lookups the SDs cover the errors (tests/calibration/test_td_lookup_sd.py).
 
 **Background** B: the mean count of the bins before the pulse (earlier than two IRF widths
 before the curve first reaches 5 % of its peak; at least 10 bins), or the sidecar's
@@ -60,7 +66,15 @@ import numpy as np
 from phantomlab.calibration.fitting import FitResult, fit_blocks, log_to_linear
 from phantomlab.calibration.identifiability import outcome_warnings
 from phantomlab.calibration.td_checks import td_design_warnings
-from phantomlab.calibration.td_curves import SHIFT_UNIT_PS, background_level, clean_irf, fit_window, running_mean, start_values
+from phantomlab.calibration.td_curves import (
+    SHIFT_UNIT_PS,
+    background_level,
+    clean_irf,
+    fit_window,
+    rise_time_ps,
+    running_mean,
+    start_values,
+)
 from phantomlab.calibration.td_measurements import TimeDomainMeasurement
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.jsonable import to_jsonable
@@ -330,19 +344,39 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     with np.errstate(divide="ignore", invalid="ignore"):
         held = np.maximum(c, 1e-300)
         log_time = weighted(lambda times: np.log(np.maximum(times, 1e-3))) / held
+        log_time_spread = np.sqrt(np.clip(
+            weighted(lambda times: np.log(np.maximum(times, 1e-3)) ** 2) / held - log_time**2, 0.0, None))
     log_time = np.where(np.isfinite(log_time), log_time, 0.0)
+    log_time_spread = np.where(np.isfinite(log_time_spread), log_time_spread, 0.0)
     if model_sd is not None:
-        # the lookup's own photon noise, correlated along the curve as its smoothing kernel is
+        # the lookup's own photon noise, correlated along the curve as its smoothing kernel is,
+        # and the smoothing's bias
         with np.errstate(divide="ignore", invalid="ignore"):
             rel = weighted(lambda times: model_sd(musp_c, rho_curve, np.maximum(times, 1e-3))) / held
             width = weighted(lambda times: shape.lookup.tau_bandwidth_at(
                 mus_per_mm=musp_c / (1.0 - shape.lookup.g), rho_mm=np.broadcast_to(rho_curve[:, None], times.shape),
                 time_ps=np.maximum(times, 1e-3))) / held
+            bias = weighted(lambda times: shape.lookup.relative_bias(
+                mus_per_mm=musp_c / (1.0 - shape.lookup.g), rho_mm=np.broadcast_to(rho_curve[:, None], times.shape),
+                time_ps=np.maximum(times, 1e-3))) / held
         rel = np.where(np.isfinite(rel), rel, 0.0)
+        bias = np.where(np.isfinite(bias), bias, 0.0)
         width = np.where(np.isfinite(width) & (width > 0), width, shape.lookup.tau_bandwidth)
+        # a bin holds the response over a spread of ln t (the IRF and the bin): the lookup's
+        # noise, correlated over ``width`` in ln t, is averaged over that spread, which lowers
+        # its variance by width/√(width² + spread²) and widens its correlation to
+        # √(width² + spread²) (Gaussian kernels).  Not where the IRF is wider than the curve's
+        # rise: the fit is far from linear there (t0 and μs′ trade) and the error unaveraged
+        # is kept
+        resolved = np.array([fwhm[k] <= rise_time_ps(counts[k] - background[k], measurement.step_ps)
+                             for k in range(W * R)])[:, None]
+        widened = np.sqrt(width**2 + log_time_spread**2)
+        rel = np.where(resolved, rel * np.sqrt(width / widened), rel)
+        # with the smoothing's own bias (TimeResolvedLookup.relative_bias), smooth along the curve
         cov_log = cov_log + _lookup_covariance(
-            lambda x_rows, rows: residual_fn(x_rows, rows), x, mask, (amplitude[:, None] * c * rel) / sd,
-            log_time, width, W, R, K)
+            lambda x_rows, rows: residual_fn(x_rows, rows), x, mask,
+            [((amplitude[:, None] * c * rel) / sd, np.where(resolved, widened, width)),
+             ((amplitude[:, None] * c * bias) / sd, widened)], log_time, W, R, K)
     values, cov = log_to_linear(x[:, :2], cov_log[:, :2, :2])
     model_covariance = None
     if family == "diffusion":
@@ -350,8 +384,8 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         # like the lookup's noise; assess_fit adds it to the SDs as diffusion_model_error
         relative, width = DIFFUSION_SHAPE_ERROR
         shape_cov = _lookup_covariance(lambda x_rows, rows: residual_fn(x_rows, rows), x, mask,
-                                       relative * amplitude[:, None] * c / sd, log_time,
-                                       np.full(log_time.shape, width), W, R, K)[:, :2, :2]
+                                       [(relative * amplitude[:, None] * c / sd, np.full(log_time.shape, width))],
+                                       log_time, W, R, K)[:, :2, :2]
         model_covariance = values[:, :, None] * shape_cov * values[:, None, :]
     mua_fit, musp_fit = values[:, 0], values[:, 1]
     mua_sd = np.sqrt(np.diagonal(cov, axis1=1, axis2=2))[:, 0]
@@ -429,16 +463,17 @@ def _check_lookup_reach(lookup, measurement, musp_fit, shifts_ps, windows, irf, 
             f"{SERVED_MAX_RELATIVE_SD:g}, {lookup.u_max / mus[c]:.3g} mm at most)")
 
 
-def _lookup_covariance(residual_fn, x, mask, relative_error, log_delay, bandwidth, W, R, K) -> np.ndarray:
-    """Covariance of the fitted parameters from the Monte Carlo lookup's own noise, (W, P, P).
+def _lookup_covariance(residual_fn, x, mask, errors, log_delay, W, R, K) -> np.ndarray:
+    """Covariance of the fitted parameters from model errors of each bin, (W, P, P).
 
     A model error δμ moves the normalised residuals by δμ/σ and the solution by
-    δx = −(JᵀJ)⁻¹Jᵀ(δμ/σ) (linearised at the fit, the amplitudes re-projected inside J).
-    The lookup's error of each bin, e_k = σ_rel,k μ_k / σ_k (``relative_error``), is
-    correlated between bins as the lookup's Gaussian smoothing kernels overlap in log τ:
-    ρ_kl = √(2 h_k h_l/(h_k² + h_l²)) exp(−(ln τ_k − ln τ_l)²/(2 (h_k² + h_l²))), h_k the kernel
-    width at bin k (``bandwidth``, (W·R, K); the overlap of two Gaussians; a shift of u moves
-    every bin of a curve together, so bins of one curve share the radial smoothing fully).
+    δx = −(JᵀJ)⁻¹Jᵀ(δμ/σ) (linearised at the fit, the amplitudes re-projected inside J; J
+    computed once for every term).  ``errors`` holds independent terms (e, h), each
+    e_k = σ_rel,k μ_k / σ_k of shape (W·R, K), correlated between bins as Gaussian kernels of
+    width h_k in ln t overlap:
+    ρ_kl = √(2 h_k h_l/(h_k² + h_l²)) exp(−(ln τ_k − ln τ_l)²/(2 (h_k² + h_l²)))
+    (a shift of u moves every bin of a curve together, so bins of one curve share the radial
+    smoothing fully; curves are independent).
     """
     from phantomlab.calibration.fitting import finite_jacobian, propagated_error_covariance
 
@@ -447,13 +482,14 @@ def _lookup_covariance(residual_fn, x, mask, relative_error, log_delay, bandwidt
     for w in range(W):
         m = mask[w]
         j = jac[w][m]
-        e = np.asarray(relative_error).reshape(W, R * K)[w][m]
         lt = np.asarray(log_delay).reshape(W, R * K)[w][m]
         curve = np.repeat(np.arange(R), K)[m]
         same = curve[:, None] == curve[None, :]
-        h = np.asarray(bandwidth).reshape(W, R * K)[w][m]
-        pair = h[:, None] ** 2 + h[None, :] ** 2
-        corr = np.where(same, np.sqrt(2 * h[:, None] * h[None, :] / pair)
-                        * np.exp(-((lt[:, None] - lt[None, :]) ** 2) / (2 * pair)), 0.0)
-        out[w] = propagated_error_covariance(j, e, corr)
+        gap = (lt[:, None] - lt[None, :]) ** 2
+        for relative_error, bandwidth in errors:
+            e = np.asarray(relative_error).reshape(W, R * K)[w][m]
+            h = np.asarray(bandwidth).reshape(W, R * K)[w][m]
+            pair = h[:, None] ** 2 + h[None, :] ** 2
+            corr = np.where(same, np.sqrt(2 * h[:, None] * h[None, :] / pair) * np.exp(-gap / (2 * pair)), 0.0)
+            out[w] += propagated_error_covariance(j, e, corr)
     return out
