@@ -350,41 +350,31 @@ def _diffusion_covariance(residual_fn, x, mask, rho, lag, sd_log, sd_lag) -> np.
 
 
 def _lookup_covariance(forward, residual_fn, x, mask, rho, freq, sd_log, sd_lag, baseline, n) -> np.ndarray:
-    """Covariance of (log μa, log μs′) from the Monte Carlo lookup's own noise, (W, 2, 2).
+    """Covariance of (log μa, log μs′) from the Monte Carlo lookup's own error, (W, 2, 2).
 
-    Each distance's transform integrates the lookup over the whole curve: its relative error
-    is the curve-weighted mean of the lookup's ``relative_sd``, taken as the error of
-    ln amplitude and (in radians) of the phase, fully correlated across the frequencies of one
-    distance and correlated across distances as the lookup's radial smoothing kernels overlap,
-    √(2 h_i h_j/(h_i² + h_j²)) exp(−(ln ρ_i − ln ρ_j)²/(2 (h_i² + h_j²))), h_i the curve-weighted
-    kernel width at distance i (wider after the peak, far from the source).  Propagated as
-    δx = −(JᵀJ)⁻¹Jᵀ δr (scales and phase offsets re-projected inside J).
+    Each distance's transform integrates the lookup over the whole curve: the covariance of
+    its error in ln amplitude and phase over every distance and frequency comes from
+    :meth:`~phantomlab.calibration.mc_lookup_time.TimeResolvedLookup.transform_error_covariance`
+    (photon noise and smoothing bias, correlated along the curve and across distances as the
+    smoothing kernels overlap), and is propagated as δx = −(JᵀJ)⁻¹Jᵀ δr (scales and phase
+    offsets re-projected inside J).
     """
     from phantomlab.calibration.fitting import finite_jacobian, propagated_error_covariance
     from phantomlab.calibration.mc_lookup_time import time_resolved_lookup
 
     lookup = time_resolved_lookup(baseline)
     W = x.shape[0]
-    R, F = rho.size, freq.size
-    v = SPEED_OF_LIGHT_MM_PER_PS / float(n)
     jac = finite_jacobian(lambda xx: np.where(mask, residual_fn(xx, np.arange(W)), 0.0), x)
     out = np.zeros((W, 2, 2))
-    log_rho = np.log(rho)
     for w in range(W):
         mua, mus = math.exp(x[w, 0]), math.exp(x[w, 1]) / (1.0 - lookup.g)
-        rel, h = lookup.curve_relative_sd(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho, with_width=True)
-        pair = h[:, None] ** 2 + h[None, :] ** 2
-        corr_rho = np.sqrt(2 * h[:, None] * h[None, :] / pair) * np.exp(
-            -((log_rho[:, None] - log_rho[None, :]) ** 2) / (2 * pair))
-        error_amp = (rel[:, None] / sd_log[w]).ravel()  # (R·F,) in the residuals' units
-        error_lag = (rel[:, None] / sd_lag[w]).ravel()
-        block = np.kron(corr_rho, np.ones((F, F)))
-        e = np.concatenate([error_amp, error_lag])
-        corr = np.block([[block, np.zeros_like(block)], [np.zeros_like(block), block]])
+        covariance = lookup.transform_error_covariance(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho, frequency_mhz=freq)
+        scale = np.concatenate([np.ravel(sd_log[w]), np.ravel(sd_lag[w])])  # the residuals' units
+        size = np.sqrt(np.clip(np.diag(covariance), 0.0, None))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            corr = np.where(np.outer(size, size) > 0, covariance / np.outer(size, size), 0.0)
         m = mask[w]
-        j = jac[w][m]
-        ee = e[m]
-        out[w] = propagated_error_covariance(j, ee, corr[np.ix_(m, m)])
+        out[w] = propagated_error_covariance(jac[w][m], (size / scale)[m], corr[np.ix_(m, m)])
     return out
 
 

@@ -63,7 +63,7 @@ SD_PARTS = {
     "replicate_spread": "replicate files combined: their spread where it exceeds the stated SDs",
     "reference_phantom": "raw readings: the reference phantom's optics uncertainty",
     "sphere_standards": "integrating sphere: the reflectance standard's and the sphere walls' stated uncertainty",
-    "lookup_photon_noise": "the Monte Carlo lookup's own photon noise (and, td, its smoothing bias), added to the data SDs",
+    "lookup_photon_noise": "the Monte Carlo lookup's own photon noise (and, td and fd, its smoothing bias), added to the data SDs",
     "misfit_scale": "multiplied by sqrt(chi2_red) at wavelengths where chi2_red > 1",
     "diffusion_model_error": "the diffusion model's error against Monte Carlo (measured map), propagated to mua and musp",
     "as_measured": "values and SDs taken from the file as they are (no model)",

@@ -372,7 +372,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
                              for k in range(W * R)])[:, None]
         widened = np.sqrt(width**2 + log_time_spread**2)
         rel = np.where(resolved, rel * np.sqrt(width / widened), rel)
-        # with the smoothing's own bias (TimeResolvedLookup.relative_bias), smooth along the curve
+        # with the smoothing's own bias (TimeResolvedLookup.relative_bias), correlated as the noise
         cov_log = cov_log + _lookup_covariance(
             lambda x_rows, rows: residual_fn(x_rows, rows), x, mask,
             [((amplitude[:, None] * c * rel) / sd, np.where(resolved, widened, width)),

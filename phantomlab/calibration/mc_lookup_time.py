@@ -440,6 +440,71 @@ class TimeResolvedLookup:
             width[r] = float(np.sum(weight * h) / total) if total > 0 else _BANDWIDTH_LOG_U
         return (out, width) if with_width else out
 
+    def transform_error_covariance(self, *, mua_per_mm: float, mus_per_mm: float, rho_mm, frequency_mhz,
+                                   times: int = 300) -> np.ndarray:
+        """Covariance of the lookup's error in ln amplitude and phase lag [rad] of its transform, (2RF, 2RF).
+
+        The transform R̃ = ∫ R(t) e^(−iωt) dt moves by δ ln R̃ = ∫ r(t) δ(t) dt, r = R e^(−iωt) dt / R̃,
+        for a relative error δ(t) of the table: ln amplitude by its real part, the phase lag
+        (−arg R̃) by minus its imaginary part.  δ holds the photon noise (:meth:`relative_sd`)
+        and the smoothing bias (:meth:`relative_bias`), each correlated along the curve as the
+        smoothing kernels overlap in ln τ (widths :meth:`tau_bandwidth_at`) and across the
+        distances as they overlap in ln u (the curve-weighted widths of
+        :meth:`curve_relative_sd`).  A per-cent error that is the same at every time moves no
+        phase; an error that changes along the curve averages down over its many kernel widths.
+        Quadrature: ``times`` log-spaced times out to the table's reach.
+
+        Parameters
+        ----------
+        mua_per_mm, mus_per_mm : float [1/mm]
+        rho_mm : array (R,) [mm]
+        frequency_mhz : array (F,) [MHz]
+
+        Returns
+        -------
+        ndarray (2RF, 2RF)
+            Order: ln amplitude at (ρ₀, f₀), (ρ₀, f₁), …, then the phase lags in the same order.
+        """
+        rho = np.atleast_1d(np.asarray(rho_mm, float))
+        freq = np.atleast_1d(np.asarray(frequency_mhz, float))
+        t = np.geomspace(10.0, self.tau_max / (self.v * mus_per_mm), int(times))
+        dt = np.gradient(t)
+        omega = 2.0 * math.pi * freq * 1e-6  # rad/ps
+        R, F = rho.size, freq.size
+        _, width_u = self.curve_relative_sd(mua_per_mm=mua_per_mm, mus_per_mm=mus_per_mm, rho_mm=rho, with_width=True)
+        pair_u = width_u[:, None] ** 2 + width_u[None, :] ** 2
+        corr_u = np.sqrt(2 * width_u[:, None] * width_u[None, :] / pair_u) * np.exp(
+            -((np.log(rho)[:, None] - np.log(rho)[None, :]) ** 2) / (2 * pair_u))
+        log_t = np.log(t)
+        rows_noise = np.zeros((R, 2 * F, t.size))
+        rows_bias = np.zeros((R, 2 * F, t.size))
+        widths = np.zeros((R, t.size))
+        for r in range(R):
+            grid = np.full(t.size, rho[r])
+            value = self.point(mua_per_mm=[mua_per_mm], mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=t)[0]
+            phasor = value[None, :] * np.exp(-1j * omega[:, None] * t[None, :]) * dt[None, :]  # (F, T)
+            total = phasor.sum(axis=1, keepdims=True)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                weight = np.where(np.abs(total) > 0, phasor / total, 0.0)
+            parts = np.concatenate([weight.real, -weight.imag])  # (2F, T): ln amplitude, phase lag
+            rows_noise[r] = parts * self.relative_sd(mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=t)[0]
+            rows_bias[r] = parts * self.relative_bias(mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=t)[0]
+            widths[r] = self.tau_bandwidth_at(mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=t)[0]
+        out = np.zeros((R, 2 * F, R, 2 * F))
+        for a in range(R):
+            for b in range(a, R):
+                pair = widths[a][:, None] ** 2 + widths[b][None, :] ** 2
+                corr_t = np.sqrt(2 * widths[a][:, None] * widths[b][None, :] / pair) * np.exp(
+                    -((log_t[:, None] - log_t[None, :]) ** 2) / (2 * pair))
+                block = corr_u[a, b] * (rows_noise[a] @ corr_t @ rows_noise[b].T + rows_bias[a] @ corr_t @ rows_bias[b].T)
+                out[a, :, b, :] = block
+                out[b, :, a, :] = block.T
+        # reorder (R, [amp F, lag F]) to ([amp (R, F)], [lag (R, F)])
+        order = np.concatenate([np.arange(R)[:, None] * 2 * F + np.arange(F)[None, :],
+                                np.arange(R)[:, None] * 2 * F + F + np.arange(F)[None, :]]).ravel()
+        flat = out.reshape(2 * R * F, 2 * R * F)
+        return flat[np.ix_(order, order)]
+
     def frequency_domain(self, *, mua_per_mm, mus_per_mm, rho_mm, frequency_mhz) -> np.ndarray:
         """Complex R̃(ρ, ω) [1/mm²] by eq. (2) of the module docstring, shape (N, G).
 
