@@ -15,7 +15,8 @@
 
 Every sub-command takes ``--db URL`` (default ``$PHANTOMLAB_DB``, else ``phantomlab.sqlite``
 in the working folder) and ``--json``, and runs in ONE database transaction.  ``add``,
-``actual`` and ``measure`` are the workflows of :mod:`phantomlab.workflows`, ``exclude`` and
+``actual`` and ``measure`` are the workflows of :mod:`phantomlab.workflows` and
+:mod:`phantomlab.measurement_workflow`, ``exclude`` and
 ``include`` those of :mod:`phantomlab.recalibration` (the page calls the same functions); this
 module reads the options and files and prints what comes back.
 """
@@ -344,7 +345,7 @@ def _correct(args) -> CommandResult:
 
 
 def _measure(args) -> CommandResult:
-    from phantomlab.workflows import attach_measurement
+    from phantomlab.measurement_workflow import attach_measurement
 
     from phantomlab.inputs import read_bytes_file, read_text_file
 
@@ -395,10 +396,10 @@ def _measure(args) -> CommandResult:
 
 
 def _verdict(args, code: str, fit_json):
-    """The batch's verdict from this fit (:func:`phantomlab.workflows.fit_verdict`), or None."""
+    """The batch's verdict from this fit (:func:`phantomlab.measurement_workflow.fit_verdict`), or None."""
     if fit_json is None:
         return None
-    from phantomlab.workflows import fit_verdict
+    from phantomlab.measurement_workflow import fit_verdict
 
     store = _open(args)
     try:

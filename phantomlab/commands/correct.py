@@ -12,7 +12,7 @@ against the recipe's tolerances (PASS/FAIL/UNDECIDED at 2 SD of the prediction, 
 names the batch it corrects and the calibration state; ``batch add RECIPE --corrects
 BATCH_ID`` logs it.
 
-The work is :mod:`phantomlab.workflows` (``next_batch_plan``, ``top_up_batch``), as on the page.
+The work is :mod:`phantomlab.correction_workflow` (``next_batch_plan``, ``top_up_batch``), as on the page.
 
 With ``--top-up`` (liquid batches): from the batch's newest fitted measurement, what to add —
 which stock, how much, how much diluent — to bring it to the target; nothing can be taken
@@ -92,7 +92,8 @@ def _top_up_text(payload: dict) -> str:
 def _correct(args) -> CommandResult:
     from phantomlab.recalibration import potencies_from
     from phantomlab.store import get_batch, open_store, recipe_of
-    from phantomlab.workflows import batch_recipe_file, next_batch_plan, top_up_batch
+    from phantomlab.correction_workflow import next_batch_plan, top_up_batch
+    from phantomlab.workflows import batch_recipe_file
 
     from phantomlab.outputs import check_writable_folder, write_text_atomically
 

@@ -144,10 +144,10 @@ def measure_section(workspace: Workspace, store, batch: dict) -> None:
 
 
 def fit_verdict_json(store, code: str, result) -> dict:
-    """The verdict of a fit against the batch's tolerances (:func:`phantomlab.workflows.fit_verdict`,
+    """The verdict of a fit against the batch's tolerances (:func:`phantomlab.measurement_workflow.fit_verdict`,
     as ``batch measure`` prints it), with its lines for the page."""
     from phantomlab.jsonable import to_jsonable
-    from phantomlab.workflows import fit_verdict
+    from phantomlab.measurement_workflow import fit_verdict
 
     verdict = fit_verdict(store, code, to_jsonable(result.to_json()))
     return {"code": code, **verdict.to_json(), "lines": verdict.lines(what="measured")}
@@ -190,7 +190,7 @@ def _baseline_ready(store, batch: dict, kind: str, upload, sidecar, n: float) ->
     from phantomlab.calibration.baseline_cache import DEFAULT_G
     from phantomlab.calibration.band_g import lookup_g_values
     from phantomlab.ui.baseline_build import page_baseline
-    from phantomlab.workflows import batch_anisotropy
+    from phantomlab.measurement_workflow import batch_anisotropy
 
     try:
         table = tomllib.loads(sidecar.getvalue().decode("utf-8", "replace")) if sidecar is not None else {}

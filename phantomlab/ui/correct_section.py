@@ -55,7 +55,7 @@ def _next_recipe(workspace: Workspace, store, code: str):
     """The batch's recipe on today's shelf (the lots now on it), and the calibrated potencies."""
     from phantomlab.errors import InputError
     from phantomlab.ui.recording import batch_recipe
-    from phantomlab.workflows import shelf_potencies
+    from phantomlab.correction_workflow import shelf_potencies
 
     recipe = batch_recipe(store, code, recipes_folder=workspace.recipes_folder)
     try:
@@ -142,7 +142,7 @@ def _plan_charts(plan) -> list:
 
 
 def _top_up_section(workspace: Workspace, store, batch: dict, recipe, key: str) -> None:
-    from phantomlab.workflows import top_up_batch
+    from phantomlab.correction_workflow import top_up_batch
 
     st.markdown("**Add-only top-up of this batch** (liquid batches still on the bench)")
     if not any(m["fits"] for m in batch["measurements"]):
@@ -212,7 +212,7 @@ def correction_section(workspace: Workspace, store) -> None:
                 "uses the stock file's potencies.")
     next_tab, topup_tab = st.tabs(["Next batch", "Top-up of this batch"])
     with next_tab:
-        from phantomlab.workflows import next_batch_plan
+        from phantomlab.correction_workflow import next_batch_plan
 
         with st.spinner("Solving the corrected plan…"):
             solved = call_layer("Solving the corrected plan", cached_on, key, "plan", next_batch_plan, store, recipe)

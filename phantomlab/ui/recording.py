@@ -1,7 +1,8 @@
 """Writing to the batch log from the page (layer 5): each action is one store transaction.
 
 Only calls: the workflows the command line runs too (:mod:`phantomlab.workflows`: a batch
-recorded with its sheet, the amounts dispensed, a measurement with its fit) do the work; this
+recorded with its sheet, the amounts dispensed; :mod:`phantomlab.measurement_workflow`: a
+measurement with its fit) do the work; this
 module turns the page's fields into their arguments.  The calibration's writes (record a
 calibration, exclusions, rollback) are calls of :mod:`phantomlab.recalibration` from
 :mod:`phantomlab.ui.calibration_section`.  A refusal (unknown batch, wrong unit, busy database) arrives as an
@@ -198,7 +199,7 @@ def attach_measurement(
 ):
     """Fit a measurement file and store the file (byte for byte) with its fit.
 
-    :func:`phantomlab.workflows.attach_measurement`, as ``phantomlab batch measure`` does
+    :func:`phantomlab.measurement_workflow.attach_measurement`, as ``phantomlab batch measure`` does
     it: fitted first (a file that does not parse writes nothing); the phantom age defaults
     to the days since mixing.
 
@@ -206,7 +207,7 @@ def attach_measurement(
     -------
     (measurement id, FitResult)
     """
-    from phantomlab.workflows import attach_measurement as attach
+    from phantomlab.measurement_workflow import attach_measurement as attach
 
     done = attach(store, code, kind=kind, file_name=file_name, raw_content=raw_content,
                   sidecar_toml=sidecar_toml, model=model, baseline=baseline, options=options,
@@ -216,7 +217,7 @@ def attach_measurement(
 
 
 def keep_fit(store, measurement_id: int, result, *, recorded_by: str | None = None) -> int:
-    """Keep a refit with its stored measurement (:func:`phantomlab.workflows.keep_fit`)."""
-    from phantomlab.workflows import keep_fit as keep
+    """Keep a refit with its stored measurement (:func:`phantomlab.measurement_workflow.keep_fit`)."""
+    from phantomlab.measurement_workflow import keep_fit as keep
 
     return keep(store, measurement_id, result, recorded_by=recorded_by)

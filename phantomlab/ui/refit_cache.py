@@ -72,7 +72,7 @@ def _fitted(key: str, _fit, _args: tuple, _kwargs: dict):
 
 
 def batch_g(store, code: str, wavelength_nm, *, per_wavelength: bool = False):
-    """:func:`phantomlab.workflows.batch_anisotropy`, once per state of the log, batch and wavelengths.
+    """:func:`phantomlab.measurement_workflow.batch_anisotropy`, once per state of the log, batch and wavelengths.
 
     ``per_wavelength``: g at each wavelength (a list) instead of the band's mean.
     """
@@ -82,7 +82,7 @@ def batch_g(store, code: str, wavelength_nm, *, per_wavelength: bool = False):
 
 @st.cache_resource(show_spinner=False, max_entries=16)
 def _batch_g(log: tuple, code: str, wavelengths: tuple, per_wavelength: bool, _store):
-    from phantomlab.workflows import batch_anisotropy
+    from phantomlab.measurement_workflow import batch_anisotropy
 
     def found():
         value = batch_anisotropy(_store, code, wavelength_nm=np.asarray(wavelengths, float),

@@ -48,7 +48,8 @@ def logged(tmp_path_factory):
 
     from phantomlab.errors import PhantomlabWarning
     from phantomlab.store import open_store
-    from phantomlab.workflows import attach_measurement, plan_batch, record_dispensed, record_planned_batch
+    from phantomlab.measurement_workflow import attach_measurement
+    from phantomlab.workflows import plan_batch, record_dispensed, record_planned_batch
 
     folder = tmp_path_factory.mktemp("hidden-log")
     lab = make_lab(folder)

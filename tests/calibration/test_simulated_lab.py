@@ -31,7 +31,7 @@ def _monte_carlo_light(recipe, fractions, *, seed: int):
     The fixture holds direct weighted Monte Carlo runs at the batch's true optics, each
     wavelength with its own g from the emulsion model (0.50-0.65): independent of the
     lookup the default fit uses, which assumes one g for the batch (the plan's predicted g
-    averaged over the band, as ``workflows.batch_anisotropy`` gives it).
+    averaged over the band, as ``measurement_workflow.batch_anisotropy`` gives it).
     """
     data = np.load(FIXTURES / "mc_lab_srdr.npz")
     header = json.loads(str(data["header_json"]))
@@ -60,7 +60,7 @@ def test_second_batch_lands_within_2_percent_with_monte_carlo_light(lab, record_
     text, light = _monte_carlo_light(recipe, first.volume_fractions, seed=1)
     optics = lab["true_optics"](recipe, first.volume_fractions, truth, light["wavelength_nm"])
     assert np.allclose(light["mua_per_mm"], optics.mua_per_mm, rtol=1e-6)  # the fixture is this batch
-    # g of the batch's scattering model, as batch measure takes it (workflows.batch_anisotropy)
+    # g of the batch's scattering model, as batch measure takes it (measurement_workflow.batch_anisotropy)
     g = float(np.mean(np.interp(light["wavelength_nm"], first.predicted.wavelength_nm, first.predicted.g)))
     # the default model; the stored light is ring-binned between the distances' midpoints
     fit = fit_measurement_file(text, kind="srdr", n=1.33, g_fallback=(g, "batch"), detector="ring")

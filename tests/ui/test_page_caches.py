@@ -54,7 +54,7 @@ def _log_table(app):
 
 def test_a_measurement_attached_by_another_session_is_offered_and_fitted_on_the_next_run(page, go_to, demo_file):
     from phantomlab.calibration import fit_measurement_file
-    from phantomlab.workflows import attach_measurement
+    from phantomlab.measurement_workflow import attach_measurement
 
     refit = go_to(page, "Fit and correct")
     before = refit.selectbox(key="refit.measurement").options

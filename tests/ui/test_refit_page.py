@@ -46,7 +46,7 @@ def sphere_refit(demo_file, downloads, go_to):
 
     from phantomlab.errors import PhantomlabWarning
     from phantomlab.store import open_store
-    from phantomlab.workflows import attach_measurement
+    from phantomlab.measurement_workflow import attach_measurement
 
     root = Path(__file__).resolve().parents[2]
     csv = root / "recipes" / "measurements" / "demo-silicone-sphere.csv"
@@ -96,7 +96,7 @@ def test_fit_of_a_stored_measurement_shows_data_model_residuals_and_target(refit
             row = get_measurement(session, measurement_id)
             raw, code = row.raw_content.decode(), label.split()[1]
         from phantomlab.calibration import read_measurement
-        from phantomlab.workflows import batch_anisotropy
+        from phantomlab.measurement_workflow import batch_anisotropy
 
         sidecar = tomllib.loads(DEMO_SIDECAR)
         wavelengths = read_measurement(raw, kind="srdr", sidecar=sidecar).wavelength_nm

@@ -1,4 +1,6 @@
-"""The batch-log workflows (:mod:`phantomlab.workflows`): one implementation for both front ends.
+"""The batch-log workflows (:mod:`phantomlab.workflows`, :mod:`phantomlab.measurement_workflow`,
+:mod:`phantomlab.correction_workflow`, :mod:`phantomlab.recalibration`): one implementation for both
+front ends.
 
 What these tests hold: the command line and the page write the SAME records for the same
 input (amounts with a pre-dilution and their alarm lines, a measurement with its metadata
@@ -143,7 +145,8 @@ def test_page_and_command_line_record_the_same_amounts_alarms_and_measurement(db
 def test_a_batch_saved_on_the_page_names_the_calibration_state_as_batch_add_does(db, tmp_path, capsys):
     from phantomlab.store import open_store
     from phantomlab.ui.recording import record_planned_batch
-    from phantomlab.workflows import plan_batch, recalibrate
+    from phantomlab.recalibration import recalibrate
+    from phantomlab.workflows import plan_batch
 
     first = _cli(capsys, "batch", "add", RECIPE, "--db", db)
     amounts = tmp_path / "a.csv"
@@ -171,7 +174,8 @@ def test_a_batch_saved_on_the_page_names_the_calibration_state_as_batch_add_does
 def test_the_top_up_uses_the_newest_fitted_measurement(db, tmp_path, capsys):
     from phantomlab.calibration import fit_measurement_file
     from phantomlab.store import open_store
-    from phantomlab.workflows import attach_measurement, keep_fit, top_up_batch
+    from phantomlab.correction_workflow import top_up_batch
+    from phantomlab.measurement_workflow import attach_measurement, keep_fit
 
     added = _cli(capsys, "batch", "add", RECIPE, "--db", db)
     amounts = tmp_path / "a.csv"
@@ -197,7 +201,7 @@ def test_the_top_up_uses_the_newest_fitted_measurement(db, tmp_path, capsys):
 def test_a_file_that_does_not_parse_writes_nothing(db, capsys):
     from phantomlab.errors import InputError
     from phantomlab.store import open_store
-    from phantomlab.workflows import attach_measurement
+    from phantomlab.measurement_workflow import attach_measurement
 
     added = _cli(capsys, "batch", "add", RECIPE, "--db", db)
     store = open_store(db)
@@ -218,7 +222,7 @@ def test_the_workflows_reach_no_page_and_no_command_line(tmp_path):
 import sys
 from phantomlab.recipe import load_recipe
 from phantomlab.store import open_store
-from phantomlab import workflows as w
+from phantomlab import correction_workflow as c, measurement_workflow as m, recalibration as r, workflows as w
 store = open_store("sqlite:///{tmp_path / 'w.sqlite'}")
 recipe = load_recipe({str(RECIPE)!r})
 code = w.record_planned_batch(store, w.plan_batch(store, recipe)).code
@@ -228,9 +232,9 @@ w.record_dispensed(store, code, rows)
 t = plan.target
 text = "wavelength_nm,mua_per_mm,musp_per_mm\\n" + "".join(
     f"{{x}},{{a}},{{s}}\\n" for x, a, s in zip(t.wavelength_nm, t.mua_per_mm, t.musp_per_mm) if a == a and s == s)
-w.attach_measurement(store, code, kind="optics", file_name="m.csv", raw_content=text.encode())
-w.recalibrate(store, apply=True)
-w.next_batch_plan(store, recipe)
+m.attach_measurement(store, code, kind="optics", file_name="m.csv", raw_content=text.encode())
+r.recalibrate(store, apply=True)
+c.next_batch_plan(store, recipe)
 store.close()
 bad = sorted(m for m in sys.modules if m == "streamlit" or m.startswith(("phantomlab.ui", "phantomlab.cli",
                                                                           "phantomlab.commands")))
