@@ -32,7 +32,8 @@ from scipy.optimize import least_squares
 
 from phantomlab.calibration.fit_file import fit_measurement
 from phantomlab.calibration.fit_srdr import fit_srdr, srdr_forward
-from phantomlab.calibration.measurements import Measurement, MeasurementMetadata
+from phantomlab.calibration.measurement_metadata import MeasurementMetadata
+from phantomlab.calibration.measurements import Measurement
 from phantomlab.errors import PhantomlabWarning
 from phantomlab.transport.diffusion import srdr_reflectance
 

@@ -20,7 +20,8 @@ from phantomlab.calibration.fit_quality import (
     misfit_flags,
     wavelength_dof,
 )
-from phantomlab.calibration.measurements import Measurement, MeasurementMetadata
+from phantomlab.calibration.measurement_metadata import MeasurementMetadata
+from phantomlab.calibration.measurements import Measurement
 from phantomlab.transport.diffusion import srdr_reflectance
 
 WL = np.linspace(600.0, 900.0, 101)

@@ -13,7 +13,8 @@ import numpy as np
 import pytest
 
 from phantomlab.calibration.fit_sfdi import fit_sfdi, hankel_sfdi_from_srdr, sfdi_forward
-from phantomlab.calibration.measurements import MeasurementMetadata, parse_measurement_text
+from phantomlab.calibration.measurement_metadata import MeasurementMetadata
+from phantomlab.calibration.measurements import parse_measurement_text
 from phantomlab.errors import InputError, PhantomlabWarning
 
 FIXTURES = Path(__file__).parent / "fixtures"

@@ -12,7 +12,8 @@ import numpy as np
 import pytest
 
 from phantomlab.calibration.fit_slab import fit_slab
-from phantomlab.calibration.measurements import MeasurementMetadata, parse_measurement_text
+from phantomlab.calibration.measurement_metadata import MeasurementMetadata
+from phantomlab.calibration.measurements import parse_measurement_text
 from phantomlab.errors import InputError, PhantomlabWarning
 
 FIXTURES = Path(__file__).parent / "fixtures"

@@ -28,7 +28,8 @@ import numpy as np
 import pytest
 
 from phantomlab.calibration.fit_srdr import fit_srdr
-from phantomlab.calibration.measurements import MeasurementMetadata, parse_measurement_text
+from phantomlab.calibration.measurement_metadata import MeasurementMetadata
+from phantomlab.calibration.measurements import parse_measurement_text
 from phantomlab.errors import InputError, PhantomlabWarning
 
 FIXTURES = Path(__file__).parent / "fixtures"

@@ -15,7 +15,8 @@ import numpy as np
 import pytest
 
 from phantomlab.calibration.fit_slab import fit_slab
-from phantomlab.calibration.measurements import MeasurementMetadata, parse_measurement_text
+from phantomlab.calibration.measurement_metadata import MeasurementMetadata
+from phantomlab.calibration.measurements import parse_measurement_text
 from phantomlab.errors import InputError, PhantomlabWarning
 
 FIXTURE = json.loads((Path(__file__).parent / "fixtures" / "mc_finite_sample_cases.json").read_text())
@@ -86,7 +87,7 @@ def test_bad_lost_light_geometry_refused(change, words):
     ({"lost_light_wavelengths": 0}, "lost_light_wavelengths = 0"),
 ])
 def test_bad_lost_light_settings_refused(table, words):
-    from phantomlab.calibration.measurements import metadata_from_mapping
+    from phantomlab.calibration.measurement_metadata import metadata_from_mapping
 
     with pytest.raises(InputError, match=words):
         metadata_from_mapping(table, where="m.toml")

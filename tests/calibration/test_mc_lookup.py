@@ -124,7 +124,8 @@ def test_distances_the_baseline_cannot_serve_are_left_out_and_named(baseline):
     # so the same annuli: edges at the midpoints).  The first added distance keeps the 12 mm
     # annulus as the direct run had it; its value, and the far ones, come from the lookup.
     from phantomlab.calibration.fit_srdr import fit_srdr
-    from phantomlab.calibration.measurements import Measurement, MeasurementMetadata
+    from phantomlab.calibration.measurement_metadata import MeasurementMetadata
+    from phantomlab.calibration.measurements import Measurement
 
     cases = _cases("mc_srdr_reach_cases.npz")
     rho, R, se = cases["rho_per_case"][0], cases["reflectance_per_mm2"][0], cases["sd"][0]

@@ -14,7 +14,8 @@ import pytest
 
 from phantomlab.calibration import fit_measurement_file
 from phantomlab.calibration.fit_srdr import fit_srdr, srdr_forward
-from phantomlab.calibration.measurements import MeasurementMetadata, parse_measurement_text
+from phantomlab.calibration.measurement_metadata import MeasurementMetadata
+from phantomlab.calibration.measurements import parse_measurement_text
 from phantomlab.calibration.reference import calibrate_reading
 from phantomlab.calibration.spectral import SpectralConstraint
 from phantomlab.errors import InputError

@@ -28,7 +28,8 @@ import numpy as np
 import pytest
 
 from phantomlab.calibration.fit_file import fit_measurement
-from phantomlab.calibration.measurements import Measurement, MeasurementMetadata
+from phantomlab.calibration.measurement_metadata import MeasurementMetadata
+from phantomlab.calibration.measurements import Measurement
 
 FIXTURES = Path(__file__).parent / "fixtures"
 COPIES = 20

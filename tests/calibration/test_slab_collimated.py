@@ -16,7 +16,8 @@ import numpy as np
 import pytest
 
 from phantomlab.calibration import fit_measurement_file
-from phantomlab.calibration.measurements import MeasurementMetadata, parse_measurement_text
+from phantomlab.calibration.measurement_metadata import MeasurementMetadata
+from phantomlab.calibration.measurements import parse_measurement_text
 from phantomlab.calibration.slab_inversion import SlabModel, invert_slab
 from phantomlab.errors import InputError
 

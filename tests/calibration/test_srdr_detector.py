@@ -20,7 +20,8 @@ import pytest
 
 from phantomlab.calibration.baseline_cache import obtain_baseline
 from phantomlab.calibration.fit_srdr import fit_srdr, srdr_forward
-from phantomlab.calibration.measurements import Measurement, MeasurementMetadata
+from phantomlab.calibration.measurement_metadata import MeasurementMetadata
+from phantomlab.calibration.measurements import Measurement
 from phantomlab.errors import PhantomlabWarning
 
 FIXTURE = Path(__file__).parent / "fixtures" / "mc_srdr_point.npz"

@@ -186,7 +186,7 @@ def test_keys_of_relative_data_and_of_a_logged_batch_are_in_the_contract(tmp_pat
 
 
 def _format_fields():
-    from phantomlab.calibration import measurements
+    from phantomlab.calibration import measurement_metadata, measurements
     from phantomlab.materials import stock
     from phantomlab.recipe import limits, preparation, recipe_file, targets
     from phantomlab.store.schema import Base
@@ -207,7 +207,7 @@ def _format_fields():
     yield "Measurement CSV", set(td_measurements.TD_COLUMNS) | set(td_measurements.IRF_COLUMNS) \
         | set(fd_measurements.FD_COLUMNS) | set(fd_measurements.FD_SD_COLUMNS)
     yield "Measurement sidecar (TOML)", set(td_measurements.TD_KEYS) | set(fd_measurements.FD_KEYS)
-    yield "Measurement sidecar (TOML)", set(measurements._METADATA_KEYS) | {
+    yield "Measurement sidecar (TOML)", set(measurement_metadata._METADATA_KEYS) | {
         "wavelength_nm", "mua_per_mm", "musp_per_mm", "mua_sd_per_mm", "musp_sd_per_mm", "reading_csv"} \
         | set(sphere_readings.SPHERE_KEYS) | set(sphere_readings.TRANSMISSION_KEYS)
     yield "Amounts CSV", {"stock", "volume_ml", "mass_g", "dilution_factor"}
@@ -228,7 +228,8 @@ def _blocks(text: str, language: str) -> list[str]:
 
 
 def test_the_format_examples_are_accepted():
-    from phantomlab.calibration.measurements import metadata_from_mapping, parse_measurement_text
+    from phantomlab.calibration.measurement_metadata import metadata_from_mapping
+    from phantomlab.calibration.measurements import parse_measurement_text
     from phantomlab.materials import parse_shelf
     from phantomlab.recipe.recipe_file import parse_recipe
     from phantomlab.workflows import parse_amounts_csv
