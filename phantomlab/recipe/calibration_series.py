@@ -24,7 +24,8 @@ import numpy as np
 
 from phantomlab.errors import InputError
 from phantomlab.recipe.dilution import DilutionInfeasible, DilutionPlan, plan_dilution
-from phantomlab.recipe.plan import Plan, dilution_limits, intrinsic_table, plan_for_fractions, solve
+from phantomlab.recipe.dose_amounts import dilution_limits
+from phantomlab.recipe.plan import Plan, intrinsic_table, plan_for_fractions, solve
 from phantomlab.recipe.recipe_file import Recipe
 
 __all__ = ["CalibrationSeries", "SeriesLevel", "plan_series"]

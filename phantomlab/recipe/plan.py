@@ -3,9 +3,10 @@
 :func:`solve` is the one entry the command line, the batch log and the page use: it builds
 the stocks' intrinsic optics on the target grid (``phantomlab.optics.intrinsic_optics`` at
 potency 1), solves the doses (:mod:`phantomlab.recipe.solver`), turns volume fractions into
-amounts to pipette or weigh, plans pre-dilutions (:mod:`phantomlab.recipe.dilution`) and
-propagates uncertainty (:mod:`phantomlab.recipe.uncertainty`).  :func:`predict` gives the
-optics of any doses (what was really dispensed) with the same model.
+amounts to pipette or weigh with their pre-dilutions (:mod:`phantomlab.recipe.dose_amounts`),
+propagates uncertainty (:mod:`phantomlab.recipe.uncertainty`) and adds the notes on what the
+plan misses (:mod:`phantomlab.recipe.plan_notes`).  :func:`predict` gives the optics of any
+doses (what was really dispensed) with the same model.
 
 A batch given by mass (silicone, resin) is solved in volume fractions too (the optics are
 per volume): with volumes adding, the mix density is ρ = Σ f_j ρ_j over all components
@@ -17,24 +18,23 @@ from __future__ import annotations
 import datetime as _dt
 import math
 import warnings
-from typing import Any, Mapping
+from typing import Mapping
 
 import numpy as np
 
 from phantomlab.errors import InputError, PhantomlabWarning
-from phantomlab.recipe.dilution import DilutionInfeasible, DilutionPlan, plan_dilution
+from phantomlab.recipe.dilution import DilutionPlan
+from phantomlab.recipe.dose_amounts import batch_volume, doses_for, matrix_amounts_for
 from phantomlab.recipe.mixmodel import IntrinsicTable, mix_coefficients
-from phantomlab.recipe.plan_result import UNUSED_FRACTION, Dose, MatrixAmounts, Plan, Prediction
+from phantomlab.recipe.plan_notes import dependent_scattering_notes, miss_notes, spread_notes, target_residuals
+from phantomlab.recipe.plan_result import Dose, MatrixAmounts, Plan, Prediction
 from phantomlab.recipe.recipe_file import Recipe
-from phantomlab.recipe.solver import BindingLimit, solve_fractions
+from phantomlab.recipe.solver import solve_fractions
 from phantomlab.recipe.targets import Target
-from phantomlab.recipe.uncertainty import dose_relative_sd, propagate_sd
+from phantomlab.recipe.uncertainty import propagate_sd
 
-__all__ = ["Dose", "MatrixAmounts", "Plan", "Prediction", "dilution_limits", "intrinsic_table", "is_dry_powder",
-           "plan_for_fractions", "predict", "solve", "resolve_potencies", "resolve_spectral"]
-
-#: Doses below this volume fraction count as "not used".
-_UNUSED = UNUSED_FRACTION
+__all__ = ["Dose", "MatrixAmounts", "Plan", "Prediction", "intrinsic_table", "plan_for_fractions", "predict",
+           "solve", "resolve_potencies", "resolve_spectral"]
 
 
 # ---- building blocks ------------------------------------------------------------------------
@@ -159,272 +159,6 @@ def _spectral_table(table: IntrinsicTable, corrections: dict) -> IntrinsicTable:
 IGNORED_POTENCIES_NOTE = "potencies given for stocks not in the recipe ignored"
 
 
-def _batch_volume(recipe: Recipe, table: IntrinsicTable, fractions: np.ndarray) -> float:
-    if not recipe.by_mass:
-        return float(recipe.batch_volume_ml)
-    density = fractions @ table.density_g_per_ml + (1 - fractions.sum()) * table.matrix_density_g_per_ml
-    return float(recipe.batch_mass_g / density)
-
-
-def _diluent_name(recipe: Recipe) -> str:
-    kind = recipe.preparation.kind
-    if kind == "silicone":
-        return "silicone base (part A)"
-    if kind == "resin":
-        return "resin (part A)"
-    if kind in ("gelatin", "agar"):
-        return "water"
-    return f"{recipe.matrix_key} (matrix)"
-
-
-def is_dry_powder(stock) -> bool:
-    """A powder stock, or any stock that carries a powder hazard key: it is weighed, not pipetted."""
-    return stock.kind == "powder" or bool({"powder", "nano_powder"} & set(stock.hazards))
-
-
-def dispense_tolerance(amount: float, by: str, limits) -> float:
-    """± tolerance of a dispensed amount: k = 2 pipette error, or at least the balance resolution."""
-    if by == "pipette":
-        return 2.0 * limits.pipette_rel_error * amount
-    return max(2.0 * limits.balance_resolution_g / math.sqrt(6.0), limits.balance_resolution_g)
-
-
-def dilution_limits(recipe: Recipe, unit: str, *, matrix_density_g_per_ml: float | None = None) -> dict[str, Any]:
-    """The recipe's limits as keyword arguments of :func:`plan_dilution` for amounts in ``unit``.
-
-    Volumes of the limits become masses with the matrix density [g/mL] (default the recipe's
-    matrix stock) when the amounts are weighed.
-    """
-    limits = recipe.limits
-    density = recipe.matrix.density_g_per_ml if matrix_density_g_per_ml is None else matrix_density_g_per_ml
-    scale = density if unit == "g" else 1.0
-    return dict(
-        unit=unit, min_amount=limits.min_weigh_g if unit == "g" else limits.min_dispense_ml,
-        max_steps=limits.max_dilution_steps, dead_amount=limits.dead_volume_ml * scale,
-        max_step_factor=limits.max_dilution_factor_per_step,
-        max_vessel_amount=limits.max_dilution_vessel_ml * scale, diluent=_diluent_name(recipe),
-        min_total_amount=min(limits.min_dilution_g if unit == "g" else limits.min_dilution_ml,
-                             limits.max_dilution_vessel_ml * scale),
-    )
-
-
-def _doses(recipe, table, fractions, potencies, potency_sds, sources, volume_ml, notes, binding,
-           shared=None):
-    limits = recipe.limits
-    matrix_density = table.matrix_density_g_per_ml
-    doses = []
-    for i, key in enumerate(table.stock_keys):
-        stock = recipe.stock(key)
-        f = float(fractions[i])
-        v = f * volume_ml
-        m = v * table.density_g_per_ml[i]
-        used = f > _UNUSED
-        if not used:
-            doses.append(Dose(key, stock.kind, stock.lot, stock.expiry, 0.0, 0.0, 0.0, "", None,
-                              0.0, 0.0, 0.0, float(potencies[i]), float(potency_sds[i]), sources[i]))
-            continue
-        by = "balance" if (recipe.by_mass or is_dry_powder(stock)) else "pipette"
-        amount, unit = (m, "g") if by == "balance" else (v, "mL")
-        try:
-            if shared and key in shared:
-                dilution = _reuse(shared[key], key, amount, unit)
-            else:
-                dilution = plan_dilution(stock=key, dose_amount=amount, **dilution_limits(
-                    recipe, unit, matrix_density_g_per_ml=matrix_density))
-        except DilutionInfeasible as exc:
-            binding.append(BindingLimit("max_dilution_steps", float(exc.needed_steps or math.inf),
-                                        float(limits.max_dilution_steps), str(exc)))
-            notes.append(f"{exc}; the dose is listed undiluted and cannot be dispensed as it stands")
-            dilution = DilutionPlan(stock=key, unit=unit, dose_amount=amount, steps=(),
-                                    dispense_amount=amount, diluent=_diluent_name(recipe))
-        rel_sd = dose_relative_sd(dispense_amount=dilution.dispense_amount, steps=dilution.steps, by=by,
-                                  pipette_rel_error=limits.pipette_rel_error,
-                                  balance_resolution_g=limits.balance_resolution_g)
-        doses.append(Dose(
-            stock=key, kind=stock.kind, lot=stock.lot, expiry=stock.expiry, volume_fraction=f,
-            volume_ml=v, mass_g=m, by=by, dilution=dilution if dilution.steps else None,
-            dispense_amount=dilution.dispense_amount,
-            tolerance=dispense_tolerance(dilution.dispense_amount, by, limits),
-            relative_sd=rel_sd, potency=float(potencies[i]), potency_sd=float(potency_sds[i]),
-            potency_source=sources[i],
-        ))
-    return tuple(doses)
-
-
-def _reuse(shared: DilutionPlan, key: str, amount: float, unit: str) -> DilutionPlan:
-    """The dose ``amount`` delivered from the steps of a dilution made for several batches."""
-    if shared.unit != unit:
-        raise InputError(f"plan: the shared dilution of {key!r} is in {shared.unit}, the dose in {unit}")
-    if not shared.steps:
-        return DilutionPlan(stock=key, unit=unit, dose_amount=amount, steps=(), dispense_amount=amount,
-                            diluent=shared.diluent)
-    return DilutionPlan(stock=key, unit=unit, dose_amount=amount, steps=shared.steps,
-                        dispense_amount=amount / shared.overall_factor, diluent=shared.diluent)
-
-
-def _matrix_amounts(recipe, table, fractions, volume_ml, doses) -> MatrixAmounts:
-    limits = recipe.limits
-    f_matrix = float(1.0 - fractions.sum())
-    volume = f_matrix * volume_ml
-    density = table.matrix_density_g_per_ml
-    mass = volume * density
-    carried_v = carried_m = 0.0
-    for dose in doses:
-        if dose.dilution is None:
-            continue
-        carried = dose.dilution.carried_diluent_amount
-        if dose.dilution.unit == "g":
-            carried_m += carried
-            carried_v += carried / density
-        else:
-            carried_v += carried
-            carried_m += carried * density
-    prep = recipe.preparation
-    weigh = lambda amount: (amount, "g", max(2 * limits.balance_resolution_g / math.sqrt(6), limits.balance_resolution_g))  # noqa: E731
-    measure = lambda amount: (amount, "mL", 2 * limits.matrix_rel_error * amount)  # noqa: E731
-    if prep.kind == "silicone":
-        ratio = prep["base_to_curing_agent"]
-        parts = (
-            ("silicone base (part A)", *weigh(mass * ratio / (ratio + 1) - carried_m)),
-            ("curing agent (part B)", *weigh(mass / (ratio + 1))),
-        )
-    elif prep.kind == "resin":
-        hardener = prep["hardener_parts_per_100_resin"]
-        parts = (
-            ("resin (part A)", *weigh(mass * 100 / (100 + hardener) - carried_m)),
-            ("hardener (part B)", *weigh(mass * hardener / (100 + hardener))),
-        )
-    elif prep.kind in ("gelatin", "agar"):
-        powder = prep["gel_percent_w_v"] / 100.0 * volume
-        parts = (
-            (f"{prep.kind} powder", *weigh(powder)),
-            ("water: make the gel up to", *measure(volume - carried_v)),
-        )
-    elif recipe.by_mass:
-        parts = ((f"{recipe.matrix_key} (matrix)", *weigh(mass - carried_m)),)
-    else:
-        parts = ((f"{recipe.matrix_key} (matrix)", *measure(volume - carried_v)),)
-    for label, amount, _, _ in parts:
-        if amount <= 0:
-            raise InputError(
-                f"plan: the matrix part {label!r} comes out at {amount:.3g}; the pre-dilutions bring "
-                "in more diluent than the batch holds (lower dead_volume_ml or allow a larger batch)"
-            )
-    return MatrixAmounts(f_matrix, volume, mass, carried_v, carried_m, parts)
-
-
-def _residuals(target: Target, predicted: Prediction) -> dict[str, Any]:
-    def relative(pred, want):
-        out = np.full(want.shape, np.nan)
-        has = np.isfinite(want)
-        out[has] = pred[has] / want[has] - 1.0
-        return out
-
-    mua = relative(predicted.mua_per_mm, target.mua_per_mm)
-    musp = relative(predicted.musp_per_mm, target.musp_per_mm)
-    g = predicted.g - target.g
-    return {
-        "wavelength_nm": target.wavelength_nm,
-        "mua_relative": mua,
-        "musp_relative": musp,
-        "g_absolute": g,
-        "mua_met": bool(np.all(np.abs(mua[np.isfinite(mua)]) <= target.mua_tolerance * (1 + 1e-9))),
-        "musp_met": bool(np.all(np.abs(musp[np.isfinite(musp)]) <= target.musp_tolerance * (1 + 1e-9))),
-        "g_met": bool(np.all(np.abs(g[np.isfinite(g)]) <= target.g_tolerance * (1 + 1e-9))),
-    }
-
-
-def _miss_notes(target: Target, residuals: dict) -> list[str]:
-    notes = []
-    for name, key, tol, scale, unit in (
-        ("mua", "mua_relative", target.mua_tolerance, 100.0, "%"),
-        ("musp", "musp_relative", target.musp_tolerance, 100.0, "%"),
-        ("g", "g_absolute", target.g_tolerance, 1.0, ""),
-    ):
-        values = residuals[key]
-        finite = np.isfinite(values)
-        if not np.any(finite):
-            continue
-        worst = int(np.nanargmax(np.where(finite, np.abs(values), -1.0)))
-        if abs(values[worst]) > tol * (1 + 1e-9):
-            fmt = "+.1f" if unit else "+.3f"
-            notes.append(
-                f"{name} not met within tolerance: at {target.wavelength_nm[worst]:g} nm "
-                f"{scale * values[worst]:{fmt}}{unit} (tolerance ±{scale * tol:g}{unit})"
-            )
-    return notes
-
-
-def _spread_notes(target: Target, predicted: Prediction, *, for_bench: bool = False) -> list[str]:
-    """One note when the predicted SD alone is wider than the target's tolerance.
-
-    ``for_bench``: the wording for the sheet and the page (no command names)."""
-    parts = []
-    for name, want, sd, tol in (("mua", target.mua_per_mm, predicted.mua_sd_per_mm, target.mua_tolerance),
-                                ("musp", target.musp_per_mm, predicted.musp_sd_per_mm, target.musp_tolerance)):
-        has = np.isfinite(want) & (want > 0)
-        if not np.any(has):
-            continue
-        relative = np.where(has, sd / np.where(has, want, 1.0), -1.0)
-        worst = int(np.argmax(relative))
-        if relative[worst] > tol * (1 + 1e-9):
-            parts.append(f"{name} up to {100 * relative[worst]:.2g} % (at {target.wavelength_nm[worst]:g} nm; "
-                         f"tolerance ±{100 * tol:g} %)")
-    if not parts:
-        return []
-    remedy = ("calibrate them with a calibration series" if for_bench
-              else "calibrate them (plan --series)")
-    return [f"predicted SD wider than the tolerance: {' and '.join(parts)}; the stock potencies are not "
-            f"known well enough to land within it first time: {remedy} or titrate and re-measure"]
-
-
-def dependent_scattering_notes(recipe: Recipe, table: IntrinsicTable, fractions: np.ndarray) -> list[str]:
-    """Plain-language warnings where a batch's scatterers are too dense to add linearly.
-
-    An emulsion stock above :data:`~phantomlab.optics.mixing.EMULSION_LINEAR_LIMIT` of the
-    batch volume, or a particle volume fraction above
-    :data:`~phantomlab.optics.mixing.INDEPENDENT_SCATTERING_LIMIT` (Aernouts et al. 2014,
-    Opt. Express 22:6086).  Each says whether the prediction is corrected.
-    """
-    from phantomlab.optics.mixing import EMULSION_LINEAR_LIMIT, INDEPENDENT_SCATTERING_LIMIT  # layer 2
-
-    from phantomlab.optics.dependent import ANGULAR_MODELS
-
-    corrected = table.packing != "none"
-    angular = [i for i, a in enumerate(table.angular or ()) if a is not None]
-    if corrected and table.packing in ANGULAR_MODELS and angular:
-        _, musp_factor = table.scattering_factors(fractions)
-        low, high = float(np.min(musp_factor[angular])), float(np.max(musp_factor[angular]))
-        others = [table.stock_keys[i] for i in range(len(table.stock_keys)) if i not in angular]
-        tail = (f"the prediction includes the angular Percus–Yevick correction (factor {low:.3f}–{high:.3f} on the "
-                f"μs′ of {', '.join(table.stock_keys[i] for i in angular)} across the wavelengths"
-                + (f"; the small-particle factor {float(table.packing_factor(fractions)):.3f} on "
-                   f"{', '.join(others)}, an upper estimate of the reduction)" if others else ")"))
-    elif corrected:
-        tail = (f"the prediction includes the Percus–Yevick packing correction (factor "
-                f"{float(table.packing_factor(fractions)):.3f} on the scattering; an upper estimate of "
-                "the reduction for particles comparable to the wavelength)")
-    else:
-        tail = ("the predicted scattering is too high; the recipe can switch on the "
-                "dependent-scattering correction (Percus–Yevick packing factor)")
-    notes = []
-    for key, fraction in zip(table.stock_keys, fractions):
-        if recipe.stock(key).kind == "emulsion" and fraction > EMULSION_LINEAR_LIMIT:
-            notes.append(
-                f"{key} makes up {100 * fraction:.1f} % of the batch volume, above the about "
-                f"{100 * EMULSION_LINEAR_LIMIT:g} % where an emulsion's scattering stops growing in proportion "
-                f"(dependent scattering, Aernouts et al. 2014); {tail}"
-            )
-    particles = float(fractions @ table.solids_volume_fraction)
-    if particles > INDEPENDENT_SCATTERING_LIMIT:
-        notes.append(
-            f"the particles fill {100 * particles:.1f} % of the batch volume, above the "
-            f"{100 * INDEPENDENT_SCATTERING_LIMIT:g} % where scattering stops adding up linearly "
-            f"(dependent scattering); {tail}"
-        )
-    return notes
-
-
 def _fixed_blood(recipe: Recipe, potencies) -> dict[int, float] | None:
     """The blood dose that ``[oxygenation] thb_um`` fixes (index in the recipe's stocks → f)."""
     oxygenation = getattr(recipe, "oxygenation", None)
@@ -522,9 +256,9 @@ def _assemble(recipe, *, potencies, table, curve, fractions, check_target=True, 
         binding = list(outcome.binding_limits)
     else:
         binding = []
-    volume_ml = _batch_volume(recipe, table, fractions)
-    doses = _doses(recipe, table, fractions, values, sds, sources, volume_ml, notes, binding, shared)
-    matrix = _matrix_amounts(recipe, table, fractions, volume_ml, doses)
+    volume_ml = batch_volume(recipe, table, fractions)
+    doses = doses_for(recipe, table, fractions, values, sds, sources, volume_ml, notes, binding, shared)
+    matrix = matrix_amounts_for(recipe, table, fractions, volume_ml, doses)
     dose_sds = np.array([d.relative_sd for d in doses])
     predicted = _prediction(table, fractions, values, sds, dose_sds, recipe.limits.matrix_rel_error, spectral)
     dense = None
@@ -534,15 +268,15 @@ def _assemble(recipe, *, potencies, table, curve, fractions, check_target=True, 
                                                                                    spectral)
         dense = _prediction(dense_table, fractions, values, sds, dose_sds, recipe.limits.matrix_rel_error,
                             spectral)
-    residuals = _residuals(target, predicted)
+    residuals = target_residuals(target, predicted)
     messages = [b.message for b in binding]
     if binding:
         messages.append("closest feasible recipe given")
     bench = dependent_scattering_notes(recipe, table, fractions)
     if check_target:
-        bench += _miss_notes(target, residuals)
-        messages += bench + _spread_notes(target, predicted)
-        bench += _spread_notes(target, predicted, for_bench=True)
+        bench += miss_notes(target, residuals)
+        messages += bench + spread_notes(target, predicted)
+        bench += spread_notes(target, predicted, for_bench=True)
     else:
         messages += bench
     messages += notes

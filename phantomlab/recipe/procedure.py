@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 
-from phantomlab.recipe.plan import is_dry_powder
+from phantomlab.recipe.dose_amounts import is_dry_powder
 
 __all__ = ["AmountLine", "amount_lines", "dose_order_key", "procedure_steps", "format_amount", "format_tolerance"]
 

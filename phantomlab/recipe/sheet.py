@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 
 from phantomlab.recipe.cautions import CLOSING_LINE, cautions_for
-from phantomlab.recipe.plan import dispense_tolerance
+from phantomlab.recipe.dose_amounts import dispense_tolerance
 from phantomlab.recipe.procedure import amount_lines, format_amount, format_tolerance, procedure_steps
 from phantomlab.recipe.oxygenation import process_hazards
 from phantomlab.recipe.so2_sheet import so2_series_csv_rows, so2_series_html, so2_series_svg
