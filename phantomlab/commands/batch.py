@@ -18,22 +18,25 @@ in the working folder) and ``--json``, and runs in ONE database transaction.  ``
 ``actual`` and ``measure`` are the workflows of :mod:`phantomlab.workflows` and
 :mod:`phantomlab.measurement_workflow`, ``exclude`` and
 ``include`` those of :mod:`phantomlab.recalibration` (the page calls the same functions); this
-module reads the options and files and prints what comes back.
+module registers every action's options, reads the options and files of the actions that
+write, and prints what comes back.  ``list``, ``show``, ``record`` and ``export`` (reading the
+log back) are handled in :mod:`phantomlab.commands.batch_review`, ``exclude`` and ``include``
+in :mod:`phantomlab.commands.batch_exclusion`.
 """
 
 from __future__ import annotations
 
 import argparse
-import datetime as _dt
-import math
 import warnings
 from pathlib import Path
 from typing import Any
 
 from phantomlab.cli import CommandResult, add_json_option
 from phantomlab.commands._baseline_options import ProgressBar, add_baseline_options
+from phantomlab.commands._batch_io import date_option, fmt_value, open_log, output_path
 from phantomlab.commands.fit import input_lines
 from phantomlab.commands.batch_exclusion import add_exclusion_actions, exclude_handler, include_handler
+from phantomlab.commands.batch_review import export_handler, list_handler, record_handler, show_handler
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.workflows import parse_amounts_csv, tolerance_alarms  # one implementation with the page
 
@@ -134,8 +137,8 @@ def register(subparsers) -> None:
     exclude, include = add_exclusion_actions(actions)  # commands/batch_exclusion.py
 
     handlers = {
-        add: _add, actual: _actual, status: _status, measure: _measure, listing: _list,
-        show: _show, record: _record, retract: _retract, fix: _correct, export: _export,
+        add: _add, actual: _actual, status: _status, measure: _measure, listing: list_handler,
+        show: show_handler, record: record_handler, retract: _retract, fix: _correct, export: export_handler,
         exclude: exclude_handler, include: include_handler,
     }
     for parser, handler in handlers.items():
@@ -152,47 +155,6 @@ def _no_action(args) -> CommandResult:
     )
 
 
-# ---- small helpers ---------------------------------------------------------------------------
-
-
-def _open(args, *, create: bool = False):
-    """The batch log of ``--db``; only ``batch add`` and ``batch list`` create a new one."""
-    from phantomlab.store import open_store
-
-    return open_store(args.db, create=create)
-
-
-def _date(text: str | None, *, option: str) -> _dt.date | None:
-    from phantomlab.inputs import parse_date
-
-    return None if text is None else parse_date(text, name=option, not_after_today=True)
-
-
-def _writable(path: str | None, *, option: str, suffix: str) -> Path | None:
-    if path is None:
-        return None
-    target = Path(path)
-    if target.suffix.lower() != suffix:
-        raise InputError(f"{option} {path!r} must end in {suffix}")
-    if not target.parent.exists():
-        raise InputError(f"{option}: folder {str(target.parent)!r} does not exist")
-    return target
-
-
-def _write(path: Path, text: str, *, option: str) -> None:
-    from phantomlab.outputs import write_text_atomically  # whole or not at all
-
-    write_text_atomically(path, text, what=option)
-
-
-def _fmt(value: Any, digits: int = 4) -> str:
-    if value is None:
-        return "-"
-    if isinstance(value, float):
-        return f"{value:.{digits}g}" if math.isfinite(value) else "-"
-    return str(value)
-
-
 # ---- batch add -------------------------------------------------------------------------------
 
 
@@ -200,9 +162,9 @@ def _add(args) -> CommandResult:
     from phantomlab.recipe import load_recipe
     from phantomlab.workflows import plan_batch, record_planned_batch
 
-    sheet_path = _writable(args.sheet, option="--sheet", suffix=".html")
+    sheet_path = output_path(args.sheet, option="--sheet", suffix=".html")
     recipe = load_recipe(args.recipe)
-    store = _open(args, create=True)
+    store = open_log(args, create=True)
     try:
         plan = plan_batch(store, recipe)
         recorded = record_planned_batch(store, plan, operator=args.operator, notes=args.notes,
@@ -232,8 +194,8 @@ def _add(args) -> CommandResult:
         lines.append(f"corrects batch {recorded.corrects_batch}")
     for dose in plan_json["doses"]:
         lines.append(
-            f"  {dose['stock']:<12} lot {dose.get('lot') or '-':<18} {_fmt(dose['volume_ml'])} mL"
-            f"  ({_fmt(dose['mass_g'])} g, volume fraction {_fmt(dose['volume_fraction'])})"
+            f"  {dose['stock']:<12} lot {dose.get('lot') or '-':<18} {fmt_value(dose['volume_ml'])} mL"
+            f"  ({fmt_value(dose['mass_g'])} g, volume fraction {fmt_value(dose['volume_fraction'])})"
         )
     if sheet_path:
         lines.append(f"mixing sheet: {sheet_path}")
@@ -254,7 +216,7 @@ def _actual(args) -> CommandResult:
     rows = parse_amounts_csv(read_text_file(path, what="amounts file"), source=path.name)
     mixed_on, mixing_time = (None, None) if args.mixed_on is None else parse_date_and_time(
         args.mixed_on, name="--mixed-on", not_after_today=True)
-    store = _open(args)
+    store = open_log(args)
     try:
         done = record_dispensed(store, args.batch_id, rows, recipe_file=args.recipe, mixed_on=mixed_on,
                                 mixing_time=mixing_time, cure=args.cure, mixing_temperature_c=args.mixing_temperature_c,
@@ -272,12 +234,12 @@ def _actual(args) -> CommandResult:
     }
     lines = [f"batch {done.code}: amounts recorded (version {done.version}, status {done.status})"]
     for item in done.amounts:
-        lines.append(f"  {item['stock']:<12} {_fmt(item['volume_ml'])} mL  volume fraction {_fmt(item['volume_fraction'])}"
-                     f"  (planned {_fmt(item.get('planned_volume_ml'))} mL)")
+        lines.append(f"  {item['stock']:<12} {fmt_value(item['volume_ml'])} mL  volume fraction {fmt_value(item['volume_fraction'])}"
+                     f"  (planned {fmt_value(item.get('planned_volume_ml'))} mL)")
     lines.append("predicted optics of what was made:")
     for i, w in enumerate(prediction["wavelength_nm"]):
-        lines.append(f"  {w:g} nm  mua {_fmt(prediction['mua_per_mm'][i])} ± {_fmt(prediction['mua_sd_per_mm'][i], 2)} /mm"
-                     f"   mus' {_fmt(prediction['musp_per_mm'][i])} ± {_fmt(prediction['musp_sd_per_mm'][i], 2)} /mm")
+        lines.append(f"  {w:g} nm  mua {fmt_value(prediction['mua_per_mm'][i])} ± {fmt_value(prediction['mua_sd_per_mm'][i], 2)} /mm"
+                     f"   mus' {fmt_value(prediction['musp_per_mm'][i])} ± {fmt_value(prediction['musp_sd_per_mm'][i], 2)} /mm")
     lines.append("within the recipe tolerance" if not alarms else f"{len(alarms)} ALARM(S): outside the recipe tolerance")
     return CommandResult(payload=payload, text="\n".join(lines))
 
@@ -288,7 +250,7 @@ def _actual(args) -> CommandResult:
 def _status(args) -> CommandResult:
     from phantomlab.workflows import change_status
 
-    store = _open(args)
+    store = open_log(args)
     try:
         before, updated = change_status(store, args.batch_id, args.status, note=args.note,
                                         recorded_by=args.operator)
@@ -302,7 +264,7 @@ def _status(args) -> CommandResult:
 def _retract(args) -> CommandResult:
     from phantomlab.store import get_batch, retract
 
-    store = _open(args)
+    store = open_log(args)
     try:
         with store.transaction() as session:
             updated = retract(session, get_batch(session, args.batch_id), note=args.reason,
@@ -323,10 +285,10 @@ def _correct(args) -> CommandResult:
     if args.set_notes is not None:
         changes["notes"] = args.set_notes
     if args.set_mixed_on is not None:
-        changes["mixed_on"] = _date(args.set_mixed_on, option="--set-mixed-on")
+        changes["mixed_on"] = date_option(args.set_mixed_on, option="--set-mixed-on")
     if not changes:
         raise InputError("batch amend: nothing to amend; give --set-operator, --set-notes or --set-mixed-on")
-    store = _open(args)
+    store = open_log(args)
     try:
         with store.transaction() as session:
             batch = get_batch(session, args.batch_id)
@@ -337,7 +299,7 @@ def _correct(args) -> CommandResult:
     payload = {"batch_id": updated.code, "version": updated.version, "changed": changes, "before": before,
                "reason": updated.change_note}
     lines = [f"batch {updated.code} corrected (version {updated.version}): {updated.change_note}"]
-    lines += [f"  {key}: {_fmt(before[key])} -> {_fmt(value)}" for key, value in changes.items()]
+    lines += [f"  {key}: {fmt_value(before[key])} -> {fmt_value(value)}" for key, value in changes.items()]
     return CommandResult(payload=payload, text="\n".join(lines))
 
 
@@ -353,7 +315,7 @@ def _measure(args) -> CommandResult:
     raw_content = read_bytes_file(path, what="measurement file")
     sidecar = path.with_suffix(".toml")
     options = {"n": args.n, "thickness_mm": args.thickness_mm, "g": args.g, "irf": args.irf}
-    store = _open(args)
+    store = open_log(args)
     try:
         done = attach_measurement(
             store, args.batch_id, kind=args.kind, file_name=path.name, raw_content=raw_content,
@@ -361,7 +323,7 @@ def _measure(args) -> CommandResult:
             path=path,
             fit=not args.no_fit, model=args.model, baseline=args.baseline, options=options,
             baseline_dir=args.baseline_dir, rebuild=args.rebuild, progress=ProgressBar(),
-            instrument=args.instrument, measured_on=_date(args.measured_on, option="--measured-on"),
+            instrument=args.instrument, measured_on=date_option(args.measured_on, option="--measured-on"),
             phantom_age_days=args.age_days, temperature_c=args.temperature_c, recorded_by=args.operator,
         )
     finally:
@@ -379,11 +341,11 @@ def _measure(args) -> CommandResult:
     lines = [f"batch {code}: measurement {done.measurement_id} ({args.kind}, {path.name}) stored"
              + (f", phantom age {age:g} days" if age is not None else "")]
     if fit_json is not None:
-        lines.append(f"fit {fit_id} ({fit_json.get('model')}, reduced chi2 {_fmt(fit_json.get('chi2_red'), 3)}):")
+        lines.append(f"fit {fit_id} ({fit_json.get('model')}, reduced chi2 {fmt_value(fit_json.get('chi2_red'), 3)}):")
         lines += [f"  {line}" for line in input_lines(fit_json)]
         for i, w in enumerate(fit_json.get("wavelength_nm", [])):
-            lines.append(f"  {w:g} nm  mua {_fmt(fit_json['mua_per_mm'][i])} ± {_fmt(fit_json['mua_sd_per_mm'][i], 2)} /mm"
-                         f"   mus' {_fmt(fit_json['musp_per_mm'][i])} ± {_fmt(fit_json['musp_sd_per_mm'][i], 2)} /mm")
+            lines.append(f"  {w:g} nm  mua {fmt_value(fit_json['mua_per_mm'][i])} ± {fmt_value(fit_json['mua_sd_per_mm'][i], 2)} /mm"
+                         f"   mus' {fmt_value(fit_json['musp_per_mm'][i])} ± {fmt_value(fit_json['musp_sd_per_mm'][i], 2)} /mm")
     else:
         lines.append(fit_note)
     if verdict is not None:
@@ -401,155 +363,8 @@ def _verdict(args, code: str, fit_json):
         return None
     from phantomlab.measurement_workflow import fit_verdict
 
-    store = _open(args)
+    store = open_log(args)
     try:
         return fit_verdict(store, code, fit_json)
     finally:
         store.close()
-
-
-# ---- list, show ------------------------------------------------------------------------------
-
-
-def _batch_summary(session, batch) -> dict[str, Any]:
-    from phantomlab.store import measurements_of, recipe_of
-
-    recipe = recipe_of(session, batch)
-    return {
-        "batch_id": batch.code, "status": batch.status, "retracted": batch.retracted,
-        "version": batch.version, "recipe": recipe.name, "recipe_version": recipe.recipe_version,
-        "operator": batch.operator, "planned_on": batch.planned_on, "mixed_on": batch.mixed_on,
-        "measurements": len(measurements_of(session, batch)),
-        "alarm": bool(batch.actual_alarms),
-    }
-
-
-def _list(args) -> CommandResult:
-    from phantomlab.store import list_batches
-
-    if args.status is not None:
-        from phantomlab.store.schema import BATCH_STATUSES
-
-        if args.status not in BATCH_STATUSES:
-            raise InputError(f"--status {args.status!r} not accepted; accepted: {', '.join(BATCH_STATUSES)}")
-    store = _open(args, create=True)
-    try:
-        with store.reading() as session:
-            rows = [_batch_summary(session, b) for b in
-                    list_batches(session, status=args.status, include_retracted=args.all)]
-    finally:
-        store.close()
-    lines = [f"{'batch':<10} {'status':<14} {'planned':<11} {'mixed':<11} {'meas':>4}  recipe"]
-    for row in rows:
-        lines.append(
-            f"{row['batch_id']:<10} {row['status'] + (' (retracted)' if row['retracted'] else ''):<14} "
-            f"{_fmt(row['planned_on']):<11} {_fmt(row['mixed_on']):<11} {row['measurements']:>4}  "
-            f"{row['recipe']} v{row['recipe_version']}"
-        )
-    if not rows:
-        lines = ["no batches in the log yet (phantomlab batch add RECIPE.toml)"]
-    return CommandResult(payload={"batches": rows}, text="\n".join(lines))
-
-
-def _version_json(row) -> dict[str, Any]:
-    return {"version": row.version, "status": row.status, "retracted": row.retracted,
-            "recorded_at": row.recorded_at, "recorded_by": row.recorded_by,
-            "change_note": row.change_note, "notes": row.notes, "mixed_on": row.mixed_on,
-            "actual_amounts": row.actual_amounts, "actual_alarms": row.actual_alarms,
-            "cure_details": row.cure_details}
-
-
-def _show(args) -> CommandResult:
-    from phantomlab.store import batch_history, batch_lots, exclusion_history, fits_of, get_batch, measurements_of, plan_of
-    from phantomlab.store.history import history_of
-    from phantomlab.store.schema import Measurement
-
-    store = _open(args)
-    try:
-        with store.reading() as session:
-            batch = get_batch(session, args.batch_id)
-            plan_row = plan_of(session, batch)
-            summary = _batch_summary(session, batch)
-            history = [_version_json(v) for v in batch_history(session, batch.code)]
-            exclusions = exclusion_history(session, batch.code)
-            lots = {key: {"lot": lot.lot, "kind": lot.kind, "expiry": lot.expiry,
-                          "snapshot_version": lot.version, "definition_sha256": lot.definition_sha256}
-                    for key, lot in batch_lots(session, batch).items()}
-            measurements = []
-            for m in measurements_of(session, batch, include_retracted=True):
-                fits = fits_of(session, m, include_retracted=True)
-                measurements.append({
-                    "measurement_id": m.id, "kind": m.kind, "file": m.file_name, "instrument": m.instrument,
-                    "measured_on": m.measured_on, "phantom_age_days": m.phantom_age_days,
-                    "retracted": m.retracted, "versions": len(history_of(session, Measurement, m.uid)),
-                    "fits": [{"fit_id": f.id, "model": f.model, "chi2_red": f.chi2_red,
-                              "retracted": f.retracted, "result": f.results} for f in fits],
-                })
-            payload = {
-                **summary, "plan": plan_row.plan, "potencies_used": plan_row.potencies_used,
-                "calibration_state_id": plan_row.calibration_state_id,
-                "software_version": plan_row.software_version, "lots": lots,
-                "actual_amounts": batch.actual_amounts, "actual_prediction": batch.actual_prediction,
-                "alarms": batch.actual_alarms or [], "matrix_details": batch.matrix_details,
-                "cure_details": batch.cure_details, "notes": batch.notes,
-                "measurements": measurements, "history": history,
-                "calibration_exclusions": exclusions,
-                "excluded_from_calibration": bool(exclusions) and exclusions[-1]["event"].startswith("excluded"),
-                "corrects_batch": plan_row.plan.get("corrects_batch"),
-                "potencies_from": plan_row.plan.get("potencies_from"),
-            }
-    finally:
-        store.close()
-    lines = [f"batch {summary['batch_id']}  {summary['status']}{' (RETRACTED)' if summary['retracted'] else ''}"
-             f"  recipe {summary['recipe']} v{summary['recipe_version']}",
-             f"  planned {summary['planned_on']}  mixed {_fmt(summary['mixed_on'])}  operator {_fmt(summary['operator'])}"]
-    lines.append("  stocks and lots: " + ", ".join(f"{k} ({v['lot'] or 'no lot'})" for k, v in lots.items()))
-    for m in measurements:
-        lines.append(f"  measurement {m['measurement_id']}: {m['kind']} {m['file']} age {_fmt(m['phantom_age_days'])} d,"
-                     f" {len(m['fits'])} fit(s){' RETRACTED' if m['retracted'] else ''}")
-    for alarm in payload["alarms"]:
-        lines.append(f"  {alarm}")
-    lines.append("history:")
-    events = [(v["recorded_at"], f"  v{v['version']}  {v['recorded_at']:%Y-%m-%d %H:%M}  {v['status']:<13}"
-                                 f"{' retracted' if v['retracted'] else ''}  {v['change_note'] or 'recorded'}"
-                                 f"{' by ' + v['recorded_by'] if v['recorded_by'] else ''}") for v in history]
-    for step in exclusions:
-        what = f"measurement {step['measurement_id']} " if step["measurement_id"] else ""
-        events.append((step["recorded_at"], f"      {step['recorded_at']:%Y-%m-%d %H:%M}  {what}{step['event']}: "
-                                            f"{step['reason']}{' by ' + step['recorded_by'] if step['recorded_by'] else ''}"))
-    lines += [text for _when, text in sorted(events, key=lambda item: item[0])]
-    return CommandResult(payload=payload, text="\n".join(lines))
-
-
-# ---- record, export --------------------------------------------------------------------------
-
-
-def _record(args) -> CommandResult:
-    from phantomlab.store.record import batch_record, render_batch_record_html
-
-    target = _writable(args.html, option="--html", suffix=".html")
-    store = _open(args)
-    try:
-        with store.reading() as session:
-            record = batch_record(session, args.batch_id)
-    finally:
-        store.close()
-    _write(target, render_batch_record_html(record), option="--html")
-    payload = {"batch_id": record["batch_id"], "html": str(target), "pass": record["pass"],
-               "outcome": record["outcome"], "checks": record["checks"], "series": record["series"],
-               "corrects_batch": record.get("corrects_batch"), "calibration": record.get("calibration")}
-    verdict = record["outcome"] or "not measured yet"
-    return CommandResult(payload=payload, text=f"batch record of {record['batch_id']} written to {target}: {verdict}")
-
-
-def _export(args) -> CommandResult:
-    from phantomlab.store.archive import export_lab
-
-    store = _open(args)
-    try:
-        manifest = export_lab(store, args.archive)
-    finally:
-        store.close()
-    payload = {"archive": args.archive, **manifest}
-    counts = ", ".join(f"{n} {name}" for name, n in manifest["tables"].items() if n)
-    return CommandResult(payload=payload, text=f"lab exported to {args.archive}: {counts or 'empty log'}")
