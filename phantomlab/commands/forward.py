@@ -11,7 +11,9 @@
     phantomlab forward --kind td    --mua-per-mm L --musp-per-mm L --n L --rho-mm L --time-ps L [...]
     phantomlab forward --kind fd    --mua-per-mm L --musp-per-mm L --n L --rho-mm L --frequency-mhz L [...]
 
-(td and fd: :mod:`phantomlab.commands.forward_time`.)
+(td and fd: :mod:`phantomlab.commands.forward_time`; mc: :mod:`phantomlab.commands.forward_mc`.
+The per-entry lists are read in :mod:`phantomlab.commands.forward_options`, the text tables
+made in :mod:`phantomlab.commands.forward_text`.)
 
 Every list (``L``) is comma-separated or ``START:STOP:STEP``; the coefficient lists (and
 ``--g``, ``--n``) hold one entry per set of optical properties ("entry", usually one per
@@ -36,18 +38,18 @@ thing and can be compared as they come; the JSON says so in ``reflectance_conven
 from __future__ import annotations
 
 import argparse
-import sys
-import time
 import warnings
 
 import numpy as np
 
 from phantomlab.cli import CommandResult, add_json_option
+from phantomlab.commands.forward_options import (check_g, common_inputs, option_list, option_number,
+                                                 scattering_option, slab_inputs_json, slab_scattering, slide_pair)
+from phantomlab.commands.forward_text import entry_labels, entry_table, grid_table
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.limits import check_limit
-from phantomlab.units import parse_number_list
 
-__all__ = ["register", "KINDS", "MODELS", "REFLECTANCE_CONVENTION"]
+__all__ = ["register", "KINDS", "MODELS", "REFLECTANCE_CONVENTION", "SLAB_KEYS"]
 
 #: What every reflectance of this command is normalised to (the ``reflectance_convention`` key).
 REFLECTANCE_CONVENTION = "per unit incident power; specular reflection excluded"
@@ -65,7 +67,8 @@ MODELS = {
     "fd": ("kienle1997", "contini1997", "mc"),
 }
 
-_SLAB_KEYS = (
+#: The slab quantities of ``--kind slab`` and ``--kind mc`` (JSON keys, one value per entry).
+SLAB_KEYS = (
     "total_reflectance",
     "specular_reflectance",
     "diffuse_reflectance",
@@ -133,35 +136,6 @@ def register(subparsers) -> None:
     parser.set_defaults(handler=handle)
 
 
-# ---- reading the options ------------------------------------------------------------------
-
-
-def _list(text, option: str):
-    return None if text is None else parse_number_list(text, name=option)
-
-
-def _number(text, option: str) -> float:
-    values = parse_number_list(text, name=option)
-    if values.size != 1:
-        raise InputError(f"{option} takes one number, got {text!r}")
-    return float(values[0])
-
-
-def _entries(**lists) -> tuple[int, dict[str, np.ndarray]]:
-    sizes = {name: values.size for name, values in lists.items() if values is not None}
-    count = max(sizes.values())
-    for name, size in sizes.items():
-        if size not in (1, count):
-            shown = ", ".join(f"{k} {v}" for k, v in sizes.items())
-            raise InputError(
-                f"per-entry lists must have one value or the same length; got {shown} values"
-            )
-    return count, {
-        name: (np.broadcast_to(values, (count,)).copy() if values is not None else None)
-        for name, values in lists.items()
-    }
-
-
 def _model(args) -> str:
     valid = MODELS[args.kind]
     if args.model is None:
@@ -169,21 +143,6 @@ def _model(args) -> str:
     if args.model not in valid:
         raise InputError(f"--model {args.model!r} is not a {args.kind} model; valid: {', '.join(valid)}")
     return args.model
-
-
-def _scattering(args):
-    """The scattering list given, which one it is ('musp' or 'mus'), and --g if given."""
-    musp = _list(args.musp_per_mm, "--musp-per-mm")
-    mus = _list(args.mus_per_mm, "--mus-per-mm")
-    g = _list(args.g, "--g")
-    if (musp is None) == (mus is None):
-        raise InputError(f"--kind {args.kind} needs exactly one of --musp-per-mm or --mus-per-mm")
-    return (musp, "musp", g) if musp is not None else (mus, "mus", g)
-
-
-def _check_g(g, text) -> None:
-    if np.any(np.abs(g) >= 1):
-        raise InputError(f"--g must lie in (-1, 1), got {text}")
 
 
 # ---- the kinds ----------------------------------------------------------------------------
@@ -198,31 +157,25 @@ def handle(args: argparse.Namespace) -> CommandResult:
     if args.kind in ("td", "fd"):
         from phantomlab.commands.forward_time import handle_time_kinds
 
-        return handle_time_kinds(args, model, common_inputs=_common_inputs, scattering=_scattering,
-                                 entries_list=_list, number=_number, labels=_labels)
-    return _monte_carlo(args, model)
+        return handle_time_kinds(args, model, common_inputs=common_inputs, scattering=scattering_option,
+                                 entries_list=option_list, number=option_number, labels=entry_labels)
+    from phantomlab.commands.forward_mc import monte_carlo
 
-
-def _common_inputs(args, scattering: np.ndarray, g):
-    mua = _list(args.mua_per_mm, "--mua-per-mm")
-    n = _list(args.n, "--n")
-    wavelength = _list(args.wavelength_nm, "--wavelength-nm")
-    count, lists = _entries(mua=mua, scattering=scattering, g=g, n=n, wavelength=wavelength)
-    return count, lists
+    return monte_carlo(args, model)
 
 
 def _diffusion(args, model: str) -> CommandResult:
     from phantomlab.transport import diffusion
 
-    scattering, which, g = _scattering(args)
+    scattering, which, g = scattering_option(args)
     if which == "mus" and g is None:
         raise InputError("--mus-per-mm needs --g to give the reduced scattering musp = mus (1 - g)")
-    count, lists = _common_inputs(args, scattering, g)
+    count, lists = common_inputs(args, scattering, g)
     musp = lists["scattering"]
     if which == "mus":  # μs′ = μs (1 − g)
-        _check_g(lists["g"], args.g)
+        check_g(lists["g"], args.g)
         musp = musp * (1.0 - lists["g"])
-    n_outside = _number(args.n_outside, "--n-outside")
+    n_outside = option_number(args.n_outside, "--n-outside")
     common = dict(mua_per_mm=lists["mua"], musp_per_mm=musp, n=lists["n"], n_outside=n_outside)
     payload = {
         "kind": args.kind,
@@ -238,30 +191,30 @@ def _diffusion(args, model: str) -> CommandResult:
     if args.kind == "srdr":
         if args.rho_mm is None:
             raise InputError("--kind srdr needs --rho-mm LIST (source-detector distances in mm)")
-        rho = _list(args.rho_mm, "--rho-mm")
+        rho = option_list(args.rho_mm, "--rho-mm")
         check_limit("forward_points", count * rho.size, given=f"{count} entries x {rho.size} distances")
         boundary = args.boundary or diffusion.DEFAULT_BOUNDARY[model]
         values = diffusion.srdr_reflectance(rho_mm=rho, model=model, boundary=boundary, **common)
         if model == "farrell1992":
             _warn_flux_only_mismatch(lists["n"], n_outside)
         payload.update(boundary=boundary, rho_mm=rho, reflectance_per_mm2=np.reshape(values, (count, rho.size)))
-        text = _grid_table("rho_mm", rho, "R [1/mm^2]", payload["reflectance_per_mm2"], payload)
+        text = grid_table("rho_mm", rho, "R [1/mm^2]", payload["reflectance_per_mm2"], payload)
         text += f"\n(R {REFLECTANCE_CONVENTION})"
     elif args.kind == "sfdi":
         if args.fx_per_mm is None:
             raise InputError("--kind sfdi needs --fx-per-mm LIST (spatial frequencies in 1/mm)")
-        fx = _list(args.fx_per_mm, "--fx-per-mm")
+        fx = option_list(args.fx_per_mm, "--fx-per-mm")
         check_limit("forward_points", count * fx.size, given=f"{count} entries x {fx.size} frequencies")
         boundary = args.boundary or "groenhuis1983"
         values = diffusion.sfdi_reflectance(fx_per_mm=fx, boundary=boundary, model=model, **common)
         payload.update(boundary=boundary, fx_per_mm=fx, reflectance=np.reshape(values, (count, fx.size)))
-        text = _grid_table("fx_per_mm", fx, "R [-]", payload["reflectance"], payload)
+        text = grid_table("fx_per_mm", fx, "R [-]", payload["reflectance"], payload)
         text += f"\n(R {REFLECTANCE_CONVENTION})"
     else:
         boundary = args.boundary or diffusion.DEFAULT_BOUNDARY[model]
         values = diffusion.total_diffuse_reflectance(model=model, boundary=boundary, **common)
         payload.update(boundary=boundary, diffuse_reflectance=np.reshape(values, (count,)))
-        text = _entry_table(payload, ["diffuse_reflectance"])
+        text = entry_table(payload, ["diffuse_reflectance"])
     return CommandResult(payload=payload, text=text)
 
 
@@ -280,34 +233,15 @@ def _warn_flux_only_mismatch(n, n_outside: float) -> None:
         )
 
 
-def _slab_scattering(args):
-    scattering, which, g = _scattering(args)
-    if g is None:
-        raise InputError(f"--kind {args.kind} needs --g (Henyey-Greenstein anisotropy)")
-    count, lists = _common_inputs(args, scattering, g)
-    g_values = lists["g"]
-    _check_g(g_values, args.g)
-    mus = lists["scattering"] / (1.0 - g_values) if which == "musp" else lists["scattering"]
-    return count, lists, mus, g_values
-
-
-def _slide_pair(args):
-    """None, one index for both faces, or a tuple (top, bottom) from --n-slide and --slides."""
-    if args.n_slide is None:
-        return None
-    index = _number(args.n_slide, "--n-slide")
-    return {"both": index, "top": (index, None), "bottom": (None, index)}[args.slides]
-
-
 def _slab(args) -> CommandResult:
     from phantomlab.transport.adding_doubling import slab_reflectance_transmittance
 
-    count, lists, mus, g = _slab_scattering(args)
+    count, lists, mus, g = slab_scattering(args)
     if args.thickness_mm is None:
         raise InputError("--kind slab needs --thickness-mm D (sample thickness in mm)")
-    thickness = _number(args.thickness_mm, "--thickness-mm")
-    n_outside = _number(args.n_outside, "--n-outside")
-    n_slide = _slide_pair(args)
+    thickness = option_number(args.thickness_mm, "--thickness-mm")
+    n_outside = option_number(args.n_outside, "--n-outside")
+    n_slide = slide_pair(args)
     result = slab_reflectance_transmittance(
         mua_per_mm=lists["mua"],
         mus_per_mm=mus,
@@ -316,225 +250,21 @@ def _slab(args) -> CommandResult:
         n=lists["n"],
         n_outside=n_outside,
         n_slide=n_slide,
-        slide_thickness_mm=_number(args.slide_thickness_mm, "--slide-thickness-mm"),
-        slide_mua_per_mm=_number(args.slide_mua_per_mm, "--slide-mua-per-mm"),
+        slide_thickness_mm=option_number(args.slide_thickness_mm, "--slide-thickness-mm"),
+        slide_mua_per_mm=option_number(args.slide_mua_per_mm, "--slide-mua-per-mm"),
         incidence=args.incidence,
     )
     payload = {
         "kind": "slab",
         "model": "adding-doubling",
         "incidence": args.incidence,
-        "mua_per_mm": lists["mua"],
-        "mus_per_mm": mus,
-        "g": g,
-        "musp_per_mm": mus * (1.0 - g),
-        "n": lists["n"],
-        "n_outside": n_outside,
-        "thickness_mm": thickness,
-        "n_slide": None if args.n_slide is None else _number(args.n_slide, "--n-slide"),
-        "slides": None if args.n_slide is None else args.slides,
+        **slab_inputs_json(args, lists, mus=mus, g=g, n_outside=n_outside, thickness=thickness),
         "quadrature_points": result.quadrature_points,
     }
     if lists["wavelength"] is not None:
         payload["wavelength_nm"] = lists["wavelength"]
-    for key in _SLAB_KEYS:
+    for key in SLAB_KEYS:
         payload[key] = np.reshape(getattr(result, key), (count,))
-    text = _entry_table(payload, ["total_reflectance", "specular_reflectance", "total_transmittance",
+    text = entry_table(payload, ["total_reflectance", "specular_reflectance", "total_transmittance",
                                   "unscattered_transmittance"])
     return CommandResult(payload=payload, text=text)
-
-
-def _monte_carlo(args, estimator: str) -> CommandResult:
-    try:
-        from phantomlab.transport.montecarlo import simulate
-    except ImportError as exc:  # the engine is a separate module of the transport layer
-        raise InputError(f"the Monte Carlo engine is not available here ({exc})") from None
-
-    count, lists, mus, g = _slab_scattering(args)
-    if args.incidence != "collimated":
-        raise InputError("--kind mc models a normally incident pencil beam; --incidence diffuse is for --kind slab")
-    if _number(args.slide_mua_per_mm, "--slide-mua-per-mm") != 0.0:
-        raise InputError("--kind mc takes clear slides only; --slide-mua-per-mm is for --kind slab")
-    if args.photons is None:
-        raise InputError("--kind mc needs --photons N (photons launched per entry)")
-    if args.photons < 1:
-        raise InputError(f"--photons must be a whole number >= 1, got {args.photons}")
-    check_limit("mc_photons", args.photons * count, given=f"--photons {args.photons} x {count} entries")
-    thickness = None if args.thickness_mm is None else _number(args.thickness_mm, "--thickness-mm")
-    rho = _list(args.rho_mm, "--rho-mm")
-    if rho is not None:
-        check_limit("forward_points", count * rho.size, given=f"{count} entries x {rho.size} distances")
-    time = _list(args.time_ps, "--time-ps")
-    if time is not None and rho is not None:
-        check_limit("forward_points", count * rho.size * time.size,
-                    given=f"{count} entries x {rho.size} distances x {time.size} times")
-    n_outside = _number(args.n_outside, "--n-outside")
-    n_slide = _slide_pair(args)
-    shown = _Progress(total=args.photons * count)
-    runs = [
-        simulate(
-            mua_per_mm=float(lists["mua"][k]),
-            mus_per_mm=float(mus[k]),
-            g=float(g[k]),
-            n=float(lists["n"][k]),
-            n_outside=n_outside,
-            thickness_mm=thickness,
-            rho_mm=rho,
-            time_ps=time,
-            photons=args.photons,
-            seed=args.seed,
-            threads=args.threads,
-            estimator=estimator,
-            n_slide=n_slide,
-            progress=shown.entry(k, args.photons),
-        )
-        for k in range(count)
-    ]
-    shown.close()
-    payload = {
-        "kind": "mc",
-        "model": estimator,
-        "estimator": estimator,
-        "mua_per_mm": lists["mua"],
-        "mus_per_mm": mus,
-        "g": g,
-        "musp_per_mm": mus * (1.0 - g),
-        "n": lists["n"],
-        "n_outside": n_outside,
-        "thickness_mm": thickness,
-        "n_slide": None if args.n_slide is None else _number(args.n_slide, "--n-slide"),
-        "slides": None if args.n_slide is None else args.slides,
-        "photons": int(args.photons),
-        "seed": int(args.seed),
-        "threads": runs[0].threads,
-        "seconds": float(sum(run.seconds for run in runs)),
-        "seconds_each": [float(run.seconds) for run in runs],
-        "figure_of_merit": [float(run.figure_of_merit) for run in runs],
-        "interactions": [int(run.interactions) for run in runs],
-    }
-    if lists["wavelength"] is not None:
-        payload["wavelength_nm"] = lists["wavelength"]
-    for key in _SLAB_KEYS:
-        payload[key] = np.array([float(getattr(run, key)) for run in runs])
-        sd = f"{key}_sd"
-        if hasattr(runs[0], sd):
-            payload[sd] = np.array([float(getattr(run, sd)) for run in runs])
-    columns = ["total_reflectance", "specular_reflectance", "total_transmittance"]
-    text = _entry_table(payload, columns, with_sd=True)
-    if rho is not None:
-        payload["rho_mm"] = rho
-        payload["reflectance_per_mm2"] = np.array([run.reflectance_per_mm2 for run in runs])
-        payload["reflectance_per_mm2_sd"] = np.array([run.reflectance_per_mm2_sd for run in runs])
-        payload["reflectance_convention"] = REFLECTANCE_CONVENTION
-        text += "\n" + _grid_table("rho_mm", rho, "R [1/mm^2]", payload["reflectance_per_mm2"], payload)
-        text += f"\n(R {REFLECTANCE_CONVENTION}; annulus averages)"
-    if time is not None:
-        payload["time_ps"] = time
-        for key in ("reflectance_per_mm2_per_ps", "transmittance_per_mm2_per_ps"):
-            if getattr(runs[0], key) is not None:
-                payload[key] = np.array([getattr(run, key) for run in runs])
-                payload[key + "_sd"] = np.array([getattr(run, key + "_sd") for run in runs])
-        text += f"\ntime-resolved tallies on {time.size} time bins: in the JSON (reflectance_per_mm2_per_ps)"
-    text += (
-        f"\n{args.photons} photons per entry, seed {args.seed}, {payload['seconds']:.3g} s simulated"
-        " (compilation excluded)"
-    )
-    return CommandResult(payload=payload, text=text)
-
-
-class _Progress:
-    """Progress of a Monte Carlo command on stderr, once it has run for two seconds.
-
-    On a terminal one line is rewritten in place (at most once a second); otherwise a line is
-    printed every ten per cent, or every minute.  stdout stays untouched (the ``--json`` contract).
-    """
-
-    def __init__(self, *, total: int, stream=None, after_s: float = 2.0) -> None:
-        self.total = max(int(total), 1)
-        self.stream = stream if stream is not None else sys.stderr
-        self.after_s = after_s
-        self.started = time.monotonic()
-        self.last_fraction = 0.0
-        self.shown_at = self.started
-        self.printed = False
-        self.tty = bool(getattr(self.stream, "isatty", lambda: False)())
-
-    def entry(self, index: int, photons: int):
-        def report(done: int, _total: int) -> None:
-            self.show(index * photons + done)
-
-        return report
-
-    def show(self, done: int) -> None:
-        now = time.monotonic()
-        elapsed = now - self.started
-        if elapsed < self.after_s:
-            return
-        fraction = done / self.total
-        if self.printed and fraction < 1.0:
-            if self.tty and now - self.shown_at < 1.0:
-                return
-            if not self.tty and fraction - self.last_fraction < 0.1 - 1e-9 and now - self.shown_at < 60.0:
-                return
-        left = elapsed * (1.0 - fraction) / fraction if fraction > 0 else float("nan")
-        line = (f"Monte Carlo: {100 * fraction:3.0f} % of {self.total:,} photons, {elapsed:.0f} s,"
-                f" about {left:.0f} s left (Ctrl-C stops)")
-        self.stream.write(("\r" + line) if self.tty else line + "\n")
-        self.stream.flush()
-        self.printed, self.last_fraction, self.shown_at = True, fraction, now
-
-    def close(self) -> None:
-        if self.printed and self.tty:
-            self.stream.write("\n")
-            self.stream.flush()
-
-
-# ---- readable output ------------------------------------------------------------------------
-
-
-def _labels(payload) -> list[str]:
-    count = len(payload["mua_per_mm"])
-    if "wavelength_nm" in payload:
-        return [f"{w:g} nm" for w in payload["wavelength_nm"]]
-    return [f"#{k + 1}" for k in range(count)]
-
-
-def _header(payload) -> str:
-    scatter = "musp_per_mm" if payload["kind"] in ("srdr", "sfdi", "total") else "mus_per_mm"
-    unit_name = "mus' [1/mm]" if scatter == "musp_per_mm" else "mus [1/mm]"
-    lines = [f"{payload['kind']} by {payload['model']}"
-             + (f", boundary {payload['boundary']}" if "boundary" in payload else "")
-             + f", n_outside {payload['n_outside']:g}"]
-    for label, mua, sc, n, k in zip(
-        _labels(payload), payload["mua_per_mm"], payload[scatter], payload["n"], range(len(payload["n"]))
-    ):
-        g = f"  g {payload['g'][k]:.4g}" if "g" in payload else ""
-        lines.append(f"  {label}: mua {mua:.4g} [1/mm]  {unit_name} {sc:.4g}{g}  n {n:.4g}")
-    return "\n".join(lines)
-
-
-def _grid_table(grid_name: str, grid, value_name: str, values, payload) -> str:
-    labels = _labels(payload)
-    width = max(14, *(len(label) + 2 for label in labels))
-    lines = [_header(payload), "", f"{grid_name:>10}" + "".join(f"{label:>{width}}" for label in labels)]
-    lines.append(f"{'':>10}" + "".join(f"{value_name:>{width}}" for _ in labels))
-    for j, x in enumerate(grid):
-        lines.append(f"{x:>10.4g}" + "".join(f"{row[j]:>{width}.5g}" for row in values))
-    return "\n".join(lines)
-
-
-def _entry_table(payload, keys: list[str], *, with_sd: bool = False) -> str:
-    labels = _labels(payload)
-    lines = [_header(payload), ""]
-    head = f"{'entry':>10}" + "".join(f"{key:>28}" for key in keys)
-    lines.append(head)
-    for k, label in enumerate(labels):
-        cells = []
-        for key in keys:
-            value = payload[key][k]
-            sd = payload.get(f"{key}_sd")
-            cell = f"{value:.5g}" + (f" ± {sd[k]:.2g}" if with_sd and sd is not None else "")
-            cells.append(f"{cell:>28}")
-        lines.append(f"{label:>10}" + "".join(cells))
-    lines.append("(fractions of the incident power)")
-    return "\n".join(lines)

@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 from phantomlab.cli import main
-from phantomlab.commands.forward import _Progress
+from phantomlab.commands.forward_mc import MonteCarloProgress
 from phantomlab.transport.montecarlo import simulate
 
 SIMULATE = sys.modules["phantomlab.transport.montecarlo.simulate"]
@@ -35,7 +35,7 @@ def test_chunking_changes_no_tally_and_reports_progress(monkeypatch):
 
 def test_progress_lines_go_to_stderr_only():
     stream = io.StringIO()
-    shown = _Progress(total=1000, stream=stream, after_s=0.0)
+    shown = MonteCarloProgress(total=1000, stream=stream, after_s=0.0)
     report = shown.entry(0, 1000)
     for done in range(100, 1001, 50):
         report(done, 1000)
