@@ -172,7 +172,7 @@ def lookup_g_values(measurement, *, g_fallback=None, constraint=None) -> list[fl
     measurement : Measurement
         Read with its sidecar and options.
     g_fallback : (float or array (W,), str), optional
-        The batch's g, one or per wavelength (:func:`phantomlab.workflows.batch_anisotropy`).
+        The batch's g, one or per wavelength (:func:`phantomlab.measurement_workflow.batch_anisotropy`).
     constraint : optional
         The spectral constraint the fit will take (it keeps one g for the band).
 
