@@ -65,6 +65,28 @@ def _fit(baseline, measurement):
         return fit_td(measurement, model="mc", baseline=baseline)
 
 
+def _collect(fit, mua, errors, claimed):
+    """Each fitted value's relative error and claimed relative SD, by parameter."""
+    for name, truth in (("mua", mua), ("musp", MUSP)):
+        errors[name] += list(getattr(fit, f"{name}_per_mm") / truth - 1)
+        claimed[name] += list(getattr(fit, f"{name}_sd_per_mm") / truth)
+
+
+def _judge(label, errors, claimed, report, sd_ref=None) -> tuple[int, int]:
+    """Per parameter: the median SD at most twice the rms error (asserted); the count within 2 SD."""
+    inside = total = 0
+    for name in ("mua", "musp"):
+        error, sd = np.array(errors[name]), np.array(claimed[name])
+        z = np.abs(error) / np.hypot(sd, 0.0 if sd_ref is None else sd_ref[name])
+        inside += int(np.sum(z <= 2))
+        total += z.size
+        rms = float(np.sqrt(np.mean(error**2)))
+        report.append(f"{label} {name}: rms error {100 * rms:.2f} %, median SD {100 * np.median(sd):.2f} %, "
+                      f"within 2 SD {np.mean(z <= 2):.0%}")
+        assert np.median(sd) <= 2.0 * rms, report[-1]
+    return inside, total
+
+
 def test_lookup_sds_cover_independent_lookups_and_are_not_needlessly_wide():
     run = fixture.half_space()
     full = load_baseline(fixture.FIXTURES / "mc_baseline.npz")
@@ -85,19 +107,9 @@ def test_lookup_sds_cover_independent_lookups_and_are_not_needlessly_wide():
         for baseline in parts:
             copies = read_td(fixture.td_csv({(700.0 + i, rho): rng.poisson(curve.lam) for i in range(COPIES)},
                                             curve.time_ps), sidecar=sidecar)
-            fit = _fit(baseline, copies)
-            for name, truth in (("mua", mua), ("musp", MUSP)):
-                errors[name] += list(getattr(fit, f"{name}_per_mm") / truth - 1)
-                claimed[name] += list(getattr(fit, f"{name}_sd_per_mm") / truth)
-        for name in ("mua", "musp"):
-            error, sd = np.array(errors[name]), np.array(claimed[name])
-            z = np.abs(error) / np.hypot(sd, sd_ref[name])
-            inside += int(np.sum(z <= 2))
-            total += z.size
-            rms = float(np.sqrt(np.mean(error**2)))
-            report.append(f"ratio {ratio:g} {name}: rms error {100 * rms:.2f} %, median SD {100 * np.median(sd):.2f} %, "
-                          f"|z|<=2 {np.mean(z <= 2):.0%}")
-            assert np.median(sd) <= 2.0 * rms, report[-1]
+            _collect(_fit(baseline, copies), mua, errors, claimed)
+        counted = _judge(f"td ratio {ratio:g}", errors, claimed, report, sd_ref)
+        inside, total = inside + counted[0], total + counted[1]
     print("\n".join(report))
     assert inside / total >= 0.90, report
 
@@ -120,16 +132,8 @@ def test_fd_lookup_sds_cover_independent_lookups_and_are_not_needlessly_wide():
                 warnings.simplefilter("ignore", PhantomlabWarning)
                 fit = assess_fit(fit_fd(data, model="mc", baseline=baseline),
                                  sd_parts=("measurement_sd", "lookup_photon_noise"))
-            for name, truth in (("mua", mua), ("musp", MUSP)):
-                errors[name] += list(getattr(fit, f"{name}_per_mm") / truth - 1)
-                claimed[name] += list(getattr(fit, f"{name}_sd_per_mm") / truth)
-        for name in ("mua", "musp"):
-            error, sd = np.array(errors[name]), np.array(claimed[name])
-            inside += int(np.sum(np.abs(error) <= 2 * sd))
-            total += error.size
-            rms = float(np.sqrt(np.mean(error**2)))
-            report.append(f"fd ratio {ratio:g} {name}: rms error {100 * rms:.2f} %, median SD {100 * np.median(sd):.2f} %, "
-                          f"within 2 SD {np.mean(np.abs(error) <= 2 * sd):.0%}")
-            assert np.median(sd) <= 2.0 * rms, report[-1]
+            _collect(fit, mua, errors, claimed)
+        counted = _judge(f"fd ratio {ratio:g}", errors, claimed, report)
+        inside, total = inside + counted[0], total + counted[1]
     print("\n".join(report))
     assert inside / total >= 0.90, report
