@@ -3,7 +3,8 @@
 The batch log of ``--db`` (:func:`open_log`), a date option (:func:`date_option`), an output
 file's path checked before any work (:func:`output_path`) and written whole
 (:func:`write_output`), a value as the text output shows it (:func:`fmt_value`).  Used by
-:mod:`phantomlab.commands.batch` and :mod:`phantomlab.commands.batch_review`.
+:mod:`phantomlab.commands.batch`, :mod:`phantomlab.commands.batch_review` and
+:mod:`phantomlab.commands.batch_exclusion`.
 """
 
 from __future__ import annotations

@@ -12,6 +12,7 @@ as on the page.  JSON: ``batch_id``, ``measurement_id`` (None: the whole batch),
 from __future__ import annotations
 
 from phantomlab.cli import CommandResult
+from phantomlab.commands._batch_io import open_log
 
 __all__ = ["add_exclusion_actions", "exclude_handler", "include_handler"]
 
@@ -32,12 +33,6 @@ def add_exclusion_actions(actions):
     return exclude, include
 
 
-def _open(args):
-    from phantomlab.store import open_store
-
-    return open_store(args.db, create=False)  # an existing log only
-
-
 def _what(done: dict) -> str:
     return f"measurement {done['measurement_id']} of batch" if done["measurement_id"] else "batch"
 
@@ -45,7 +40,7 @@ def _what(done: dict) -> str:
 def exclude_handler(args) -> CommandResult:
     from phantomlab.recalibration import exclude_batch
 
-    store = _open(args)
+    store = open_log(args)  # an existing log only
     try:
         done = exclude_batch(store, args.batch_id, measurement_id=args.measurement, reason=args.reason,
                              recorded_by=args.operator)
@@ -58,7 +53,7 @@ def exclude_handler(args) -> CommandResult:
 def include_handler(args) -> CommandResult:
     from phantomlab.recalibration import include_batch
 
-    store = _open(args)
+    store = open_log(args)  # an existing log only
     try:
         done = include_batch(store, args.batch_id, measurement_id=args.measurement, reason=args.reason,
                              recorded_by=args.operator)

@@ -45,7 +45,7 @@ import numpy as np
 from phantomlab.cli import CommandResult, add_json_option
 from phantomlab.commands.forward_options import (check_g, common_inputs, option_list, option_number,
                                                  scattering_option, slab_inputs_json, slab_scattering, slide_pair)
-from phantomlab.commands.forward_text import entry_labels, entry_table, grid_table
+from phantomlab.commands.forward_text import entry_table, grid_table
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.limits import check_limit
 
@@ -157,8 +157,7 @@ def handle(args: argparse.Namespace) -> CommandResult:
     if args.kind in ("td", "fd"):
         from phantomlab.commands.forward_time import handle_time_kinds
 
-        return handle_time_kinds(args, model, common_inputs=common_inputs, scattering=scattering_option,
-                                 entries_list=option_list, number=option_number, labels=entry_labels)
+        return handle_time_kinds(args, model)
     from phantomlab.commands.forward_mc import monte_carlo
 
     return monte_carlo(args, model)

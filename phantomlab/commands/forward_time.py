@@ -21,30 +21,32 @@ from __future__ import annotations
 import numpy as np
 
 from phantomlab.cli import CommandResult
+from phantomlab.commands.forward_options import common_inputs, option_list, option_number, scattering_option
+from phantomlab.commands.forward_text import entry_labels
 from phantomlab.errors import InputError
 from phantomlab.limits import check_limit
 
 __all__ = ["handle_time_kinds"]
 
-def handle_time_kinds(args, model: str, *, common_inputs, scattering, entries_list, number, labels) -> CommandResult:
+def handle_time_kinds(args, model: str) -> CommandResult:
     """The td and fd kinds of ``phantomlab forward`` (called by :mod:`phantomlab.commands.forward`)."""
-    scatter, which, g = scattering(args)
+    scatter, which, g = scattering_option(args)
     if which == "mus" and g is None:
         raise InputError("--mus-per-mm needs --g to give the reduced scattering musp = mus (1 - g)")
     count, lists = common_inputs(args, scatter, g)
     musp = lists["scattering"] * (1.0 - lists["g"]) if which == "mus" else lists["scattering"]
-    n_outside = number(args.n_outside, "--n-outside")
+    n_outside = option_number(args.n_outside, "--n-outside")
     if args.rho_mm is None:
         raise InputError(f"--kind {args.kind} needs --rho-mm LIST (distances from the beam axis in mm)")
-    rho = entries_list(args.rho_mm, "--rho-mm")
+    rho = option_list(args.rho_mm, "--rho-mm")
     payload = {"kind": args.kind, "model": model, "mua_per_mm": lists["mua"], "musp_per_mm": musp, "n": lists["n"],
                "n_outside": n_outside, "rho_mm": rho,
                "reflectance_convention": "per unit incident energy (td) or AC power (fd); specular reflection excluded"}
     if lists["wavelength"] is not None:
         payload["wavelength_nm"] = lists["wavelength"]
     if args.kind == "td":
-        return _td(args, model, count, lists, musp, n_outside, rho, payload, entries_list, number, labels)
-    return _fd(args, model, count, lists, musp, n_outside, rho, payload, entries_list, labels)
+        return _td(args, model, count, lists, musp, n_outside, rho, payload)
+    return _fd(args, model, count, lists, musp, n_outside, rho, payload)
 
 
 def _baseline(args, n_values, n_outside):
@@ -60,16 +62,16 @@ def _baseline(args, n_values, n_outside):
     return time_resolved_lookup(baseline)
 
 
-def _td(args, model, count, lists, musp, n_outside, rho, payload, entries_list, number, labels):
+def _td(args, model, count, lists, musp, n_outside, rho, payload):
     from phantomlab.transport.time_domain import TD_DEFAULT_BOUNDARY, time_resolved
 
     if args.time_ps is None:
         raise InputError("--kind td needs --time-ps LIST (times after the pulse entered, in ps)")
-    time = entries_list(args.time_ps, "--time-ps")
+    time = option_list(args.time_ps, "--time-ps")
     check_limit("forward_points", count * rho.size * time.size,
                 given=f"{count} entries x {rho.size} distances x {time.size} times")
     geometry = args.geometry or "reflectance"
-    thickness = None if args.thickness_mm is None else number(args.thickness_mm, "--thickness-mm")
+    thickness = None if args.thickness_mm is None else option_number(args.thickness_mm, "--thickness-mm")
     key = f"{geometry}_per_mm2_per_ps"
     if model == "mc":
         if geometry != "reflectance" or thickness is not None:
@@ -91,7 +93,7 @@ def _td(args, model, count, lists, musp, n_outside, rho, payload, entries_list, 
                    **{key: np.reshape(values, (count, rho.size, time.size))})
     lines = [f"{args.kind} ({geometry}) by {model}" + (f", boundary {boundary}" if boundary else "")
              + (f", slab {thickness:g} mm" if thickness is not None else ", half-space")]
-    for k, label in enumerate(labels(payload)):
+    for k, label in enumerate(entry_labels(payload)):
         for r, distance in enumerate(rho):
             lines.append(f"{label}, rho {distance:g} mm: " + "  ".join(
                 f"{t:g} ps {v:.4g}" for t, v in zip(time, payload[key][k, r])))
@@ -99,12 +101,12 @@ def _td(args, model, count, lists, musp, n_outside, rho, payload, entries_list, 
     return CommandResult(payload=payload, text="\n".join(lines))
 
 
-def _fd(args, model, count, lists, musp, n_outside, rho, payload, entries_list, labels):
+def _fd(args, model, count, lists, musp, n_outside, rho, payload):
     from phantomlab.transport.frequency_domain import FD_DEFAULT_BOUNDARY, amplitude_and_phase
 
     if args.frequency_mhz is None:
         raise InputError("--kind fd needs --frequency-mhz LIST (modulation frequencies in MHz)")
-    freq = entries_list(args.frequency_mhz, "--frequency-mhz")
+    freq = option_list(args.frequency_mhz, "--frequency-mhz")
     check_limit("forward_points", count * rho.size * freq.size,
                 given=f"{count} entries x {rho.size} distances x {freq.size} frequencies")
     if model == "mc":
@@ -129,7 +131,7 @@ def _fd(args, model, count, lists, musp, n_outside, rho, payload, entries_list, 
                    amplitude_per_mm2=np.reshape(amplitude, (count, rho.size, freq.size)),
                    phase_deg=np.reshape(phase, (count, rho.size, freq.size)))
     lines = [f"fd by {model}" + (f", boundary {boundary}" if boundary else "") + ", half-space"]
-    for k, label in enumerate(labels(payload)):
+    for k, label in enumerate(entry_labels(payload)):
         for r, distance in enumerate(rho):
             lines.append(f"{label}, rho {distance:g} mm: " + "  ".join(
                 f"{f:g} MHz AC {a:.4g} phase {p:.2f} deg"
