@@ -448,9 +448,9 @@ class TimeResolvedLookup:
         for a relative error δ(t) of the table: ln amplitude by its real part, the phase lag
         (−arg R̃) by minus its imaginary part.  δ holds the photon noise (:meth:`relative_sd`)
         and the smoothing bias (:meth:`relative_bias`), each correlated along the curve as the
-        smoothing kernels overlap in ln τ (widths :meth:`tau_bandwidth_at`) and across the
-        distances as they overlap in ln u (the curve-weighted widths of
-        :meth:`curve_relative_sd`).  A per-cent error that is the same at every time moves no
+        smoothing kernels overlap in s = ln(τ/u²) (widths :meth:`tau_bandwidth_at`) and in ln u
+        (the curve-weighted widths of :meth:`curve_relative_sd`): at two distances the times
+        whose s agree share the table's nodes.  A per-cent error that is the same at every time moves no
         phase; an error that changes along the curve averages down over its many kernel widths.
         Quadrature: ``times`` log-spaced times out to the table's reach.
 
@@ -493,9 +493,11 @@ class TimeResolvedLookup:
         out = np.zeros((R, 2 * F, R, 2 * F))
         for a in range(R):
             for b in range(a, R):
+                # the table is smoothed in s = ln(τ/u²): at two distances the same table nodes
+                # hold the times whose s agree, t_b = t_a (ρ_b/ρ_a)²
                 pair = widths[a][:, None] ** 2 + widths[b][None, :] ** 2
-                corr_t = np.sqrt(2 * widths[a][:, None] * widths[b][None, :] / pair) * np.exp(
-                    -((log_t[:, None] - log_t[None, :]) ** 2) / (2 * pair))
+                gap_s = (log_t[:, None] - log_t[None, :]) - 2.0 * (math.log(rho[a]) - math.log(rho[b]))
+                corr_t = np.sqrt(2 * widths[a][:, None] * widths[b][None, :] / pair) * np.exp(-(gap_s**2) / (2 * pair))
                 block = corr_u[a, b] * (rows_noise[a] @ corr_t @ rows_noise[b].T + rows_bias[a] @ corr_t @ rows_bias[b].T)
                 out[a, :, b, :] = block
                 out[b, :, a, :] = block.T
