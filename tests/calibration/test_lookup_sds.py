@@ -18,8 +18,8 @@ The fd fit's lookup error is the same table's, carried through the transform
 (``TimeResolvedLookup.transform_error_covariance``): checked the same way on the transform of
 the independent run (test_fit_fd_recovery.py's files: 0.5 % amplitude and 0.2° phase noise,
 an unknown system phase), with the SDs as the fit's assessment reports them (× √χ²ᵣ where
-above 1).  When measured: 94 % of the errors within 2 SD over the three cases (79 % for μs′ at
-μs′/μa 100, the weakest: its SD is 0.64 of the rms error there), SD / rms error 0.6–1.4 (the fd
+above 1).  When measured: 94 % of the errors within 2 SD over the three cases (75 % for μs′ at
+μs′/μa 100, the weakest: its SD is 0.63 of the rms error there), SD / rms error 0.6–1.4 (the fd
 SDs were 4–10 % before, against errors of 0.2–0.8 %).
 """
 
