@@ -24,8 +24,9 @@ On first use the page seeds a database file of its own (never a lab's database, 
 
 The invented probe file the page offers for trying the loop (:func:`demo_measurement_csv`)
 is made differently: from a shipped table of direct Monte Carlo runs of the demo emulsion
-(:mod:`phantomlab.ui.demo_light`), so that the default fit describes it (fit quality GOOD)
-without being the model that made it, in milliseconds.
+(:mod:`phantomlab.ui.demo_light`) at each wavelength's g of the batch's scattering model, so
+that the default fit describes it (fit quality GOOD) without being the model that made it,
+in milliseconds.
 
 Nothing here is a real measurement; every file says so in its ``# source:`` line.  The
 seeding writes to a temporary file that replaces the demo file only when complete, so a
@@ -140,30 +141,45 @@ def synthetic_srdr_csv(*, wavelength_nm, mua_per_mm, musp_per_mm, seed: int, lab
     return "\n".join(lines) + "\n"
 
 
-def monte_carlo_srdr_csv(*, wavelength_nm, mua_per_mm, musp_per_mm, seed: int, label: str) -> str:
+def monte_carlo_srdr_csv(*, wavelength_nm, mua_per_mm, musp_per_mm, g, seed: int, label: str) -> str:
     """An srdr measurement file (docs/formats.md) of the demo emulsion's Monte Carlo light, with noise.
 
     Demo data, invented: R(ρ) at :data:`DEMO_RHO_MM` from the shipped table of direct Monte
-    Carlo runs (:func:`phantomlab.ui.demo_light.demo_light_reflectance`: g 0.58, n 1.33),
-    multiplied by (1 + 0.02 ε) with ε drawn from a seeded normal generator; the ``sd``
-    column is the 2 % and the table's photon noise combined.  Distances the table does not
-    serve (its photon noise above 1.5 %, far out at high absorption) are left out.
+    Carlo runs (:func:`phantomlab.ui.demo_light.demo_light_reflectance`: n 1.33, g of each
+    wavelength interpolated between the table's g 0.50–0.66), multiplied by (1 + 0.02 ε)
+    with ε drawn from a seeded normal generator; the ``sd`` column is the 2 % and the
+    table's photon noise combined.  Distances the table does not serve (its photon noise
+    above 1.5 %, far out at high absorption) are left out.
+
+    Parameters
+    ----------
+    wavelength_nm, mua_per_mm, musp_per_mm : array (W,) [nm, 1/mm, 1/mm]
+    g : array (W,) [dimensionless]
+        The scatterer's anisotropy at each wavelength (a demo batch: its scattering model's,
+        the g the default fit takes per wavelength).
 
     Raises
     ------
     InputError
-        μs′/μa outside the table (20–1000) at some wavelength, or no distance served.
+        μs′/μa or g outside the table (20–1000, 0.50–0.66) at some wavelength, or no distance served.
     """
     from phantomlab.errors import InputError
     from phantomlab.ui.demo_light import demo_light_info, demo_light_reflectance
 
     info = demo_light_info()
+    g = np.asarray(g, float).reshape(-1)
+    if g.size != np.size(wavelength_nm):
+        raise InputError(f"demo measurement: {g.size} values of g for {np.size(wavelength_nm)} wavelengths; "
+                         "accepted: one g per wavelength")
     generator = np.random.default_rng(seed)
     lines = [f"# source: demo data, invented ({label}; synthetic, phantomlab Monte Carlo run directly for the demo "
-             f"emulsion, g {info['g']:g}, n {info['n']:g}, shipped table demo_light_mc.npz + 2 % noise)",
+             f"emulsion at each wavelength's g of the batch's scattering model ({g[0]:.3f} at {wavelength_nm[0]:g} nm "
+             f"to {g[-1]:.3f} at {wavelength_nm[-1]:g} nm), n {info['n']:g}, shipped table demo_light_mc.npz "
+             f"+ 2 % noise)",
              "wavelength_nm,rho_mm,reflectance_per_mm2,sd"]
-    for wavelength, mua, musp in zip(wavelength_nm, mua_per_mm, musp_per_mm):
-        clean, photon_sd = demo_light_reflectance(mua_per_mm=float(mua), musp_per_mm=float(musp), rho_mm=DEMO_RHO_MM)
+    for wavelength, mua, musp, anisotropy in zip(wavelength_nm, mua_per_mm, musp_per_mm, g):
+        clean, photon_sd = demo_light_reflectance(mua_per_mm=float(mua), musp_per_mm=float(musp),
+                                                  g=float(anisotropy), rho_mm=DEMO_RHO_MM)
         noisy = clean * (1.0 + DEMO_RELATIVE_SD * generator.standard_normal(clean.size))
         sd = np.hypot(DEMO_RELATIVE_SD * clean, photon_sd)
         for rho, value, error in zip(DEMO_RHO_MM, noisy, sd):
@@ -325,9 +341,23 @@ def demo_measurement_csv(store, code: str, *, seed: int = 7) -> str:
     """An invented srdr file of a demo batch as mixed (demo only): for trying the loop on the page.
 
     The optics are :func:`demo_batch_optics`, turned into R(ρ) by :func:`monte_carlo_srdr_csv`
-    (the demo emulsion's Monte Carlo light, 2 % noise): the page's default fit, the Monte
-    Carlo lookup at the batch's g, describes it (a batch of the demo recipe: g 0.58).
+    (the demo emulsion's Monte Carlo light, 2 % noise) at each wavelength's g of the batch's
+    scattering model (:func:`phantomlab.workflows.batch_anisotropy`, the g the page's default
+    fit, the Monte Carlo lookup, takes per wavelength): the default fit describes it.
+
+    Raises
+    ------
+    InputError
+        The batch's plan predicts no g, or its g or optics lie outside the demo's table.
     """
+    from phantomlab.errors import InputError
+    from phantomlab.workflows import batch_anisotropy
+
     made = demo_batch_optics(store, code)
+    found = batch_anisotropy(store, code, wavelength_nm=made.wavelength_nm, per_wavelength=True)
+    if found is None:
+        raise InputError(f"demo measurement: batch {code}'s plan predicts no g of its scatterers; "
+                         "accepted: a batch of a recipe with a scattering model")
     return monte_carlo_srdr_csv(wavelength_nm=made.wavelength_nm, mua_per_mm=made.mua_per_mm,
-                                musp_per_mm=made.musp_per_mm, seed=seed, label=f"batch {code}, invented on the page")
+                                musp_per_mm=made.musp_per_mm, g=found[0], seed=seed,
+                                label=f"batch {code}, invented on the page")
