@@ -48,14 +48,16 @@ def demo_download(workspace: Workspace, batch: dict) -> None:
     if not (workspace.is_demo and batch["actual_amounts"]):
         return
     made = call_layer("Inventing a demo measurement", _demo_measurement, workspace.database_url,
-                      batch["code"], batch["version"])
-    if made.ok:
+                      batch["code"], batch["version"], show=False)
+    if not made.ok:  # a batch of other scatterers (g outside the demo emulsion's table): said, not an error box
+        st.caption(f"Demo only: no invented probe measurement of this batch. {made.error}")
+    else:
         st.download_button(
             "Demo only: download an invented probe measurement of this batch (srdr CSV, n = 1.33)",
             data=made.value.encode("utf-8"), file_name=f"demo-measurement-{batch['code']}.csv",
             mime="text/csv", key="batches.demo_measurement", on_click="ignore",
             help="Synthetic R(ρ) of what was dispensed (invented true potencies; Monte Carlo light of the demo "
-                 "emulsion, g 0.58, from a shipped table; 2 % noise): attach it "
+                 "emulsion at the batch's g per wavelength, from a shipped table; 2 % noise): attach it "
                  "with the form above to try the loop.")
 
 

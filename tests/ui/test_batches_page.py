@@ -279,6 +279,19 @@ def test_the_demo_offers_an_invented_measurement_that_attaches_and_fits(page, go
     app.run()
     assert not app.exception
     # fitted with the default model, the Monte Carlo lookup (its baseline for the batch's g from the test cache);
-    # the invented file is Monte Carlo light of the demo emulsion (phantomlab/ui/demo_light.py), which it describes
+    # the invented file is Monte Carlo light of the demo emulsion at the batch's g per wavelength
+    # (phantomlab/ui/demo_light.py), which it describes
     assert any("attached" in s.value and "mc-lookup" in s.value and "fit quality good" in s.value
                for s in app.success), [s.value for s in app.success]
+
+
+def test_a_batch_of_other_scatterers_gets_no_invented_measurement_and_is_told_why(page, go_to, open_tab):
+    # the demo oximeter batch (blood in lipid emulsion, g about 0.80) lies outside the demo light's g 0.50-0.66
+    app = go_to(page, "Batch log")
+    codes = app.selectbox(key="batches.open").options
+    app.selectbox(key="batches.open").set_value(codes[0]).run()
+    open_tab(app, "batches.tab", "Measurements")
+    assert not app.exception and not app.error
+    assert not [b for b in app.get("download_button") if b.proto.label.startswith("Demo only: download an invented")]
+    said = [c.value for c in app.caption if c.value.startswith("Demo only: no invented probe measurement")]
+    assert said and "g = 0.8" in said[0] and "outside the demo's Monte Carlo table (0.5 to 0.66" in said[0], said
