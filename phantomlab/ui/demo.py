@@ -342,7 +342,7 @@ def demo_measurement_csv(store, code: str, *, seed: int = 7) -> str:
 
     The optics are :func:`demo_batch_optics`, turned into R(ρ) by :func:`monte_carlo_srdr_csv`
     (the demo emulsion's Monte Carlo light, 2 % noise) at each wavelength's g of the batch's
-    scattering model (:func:`phantomlab.workflows.batch_anisotropy`, the g the page's default
+    scattering model (:func:`phantomlab.measurement_workflow.batch_anisotropy`, the g the page's default
     fit, the Monte Carlo lookup, takes per wavelength): the default fit describes it.
 
     Raises
@@ -351,7 +351,7 @@ def demo_measurement_csv(store, code: str, *, seed: int = 7) -> str:
         The batch's plan predicts no g, or its g or optics lie outside the demo's table.
     """
     from phantomlab.errors import InputError
-    from phantomlab.workflows import batch_anisotropy
+    from phantomlab.measurement_workflow import batch_anisotropy
 
     made = demo_batch_optics(store, code)
     found = batch_anisotropy(store, code, wavelength_nm=made.wavelength_nm, per_wavelength=True)

@@ -84,7 +84,7 @@ def test_the_invented_file_of_a_demo_batch_fits_good_with_the_default_model(seed
     from phantomlab.store import list_batches, open_store
     from phantomlab.ui.demo import demo_batch_optics, demo_measurement_csv
     from phantomlab.ui.recording import attach_measurement
-    from phantomlab.workflows import batch_anisotropy
+    from phantomlab.measurement_workflow import batch_anisotropy
 
     copy = tmp_path / "demo.sqlite"
     shutil.copyfile(seeded_demo_file, copy)
