@@ -71,6 +71,19 @@ def _measurement_choices(store) -> list[dict]:
     return out
 
 
+def _stored_model(measurement_row: dict | None, kind: str) -> str | None:
+    """The model of a stored measurement's newest fit, as the model list names it (None: none stored)."""
+    from phantomlab.calibration.fit_file import FIT_MODELS  # layer 3
+
+    fits = (measurement_row or {}).get("fits") or []
+    if not fits:
+        return None
+    newest = max(fits, key=lambda f: (f["recorded_at"], f["id"]))
+    name = str(newest["model"]).removeprefix("diffusion-")
+    name = "mc" if name == "mc-lookup" else name
+    return name if name in FIT_MODELS[kind] else None
+
+
 def _stored_file(store, measurement_id: int) -> tuple[bytes, str | None]:
     return refit_cache.stored_file(store, measurement_id)
 
@@ -258,10 +271,13 @@ def _fit_section(workspace: Workspace, store) -> None:
             return
         sidecar["irf"] = inline.value
     c1, c2, c3, c4 = st.columns(4)
+    stored_model = _stored_model(measurement_row, kind)
     model = c1.selectbox("Forward model", FIT_MODELS[kind], key=f"refit.model.{kind}",
+                         index=FIT_MODELS[kind].index(stored_model) if stored_model else 0,
                          help="mc (default): the Monte Carlo lookup, good at every distance and albedo; "
                               "diffusion: fast, poor within ~1 transport mean free path of the source and "
-                              "biased in μa at high albedo")
+                              "biased in μa at high albedo. A stored measurement opens with the model of "
+                              "its stored fit")
     n = c2.number_input("Phantom refractive index n [dimensionless]", min_value=1.0, max_value=3.0,
                         value=float(sidecar.get("n", 1.33)), step=0.01, key="refit.n")
     power_law = c3.checkbox("Fit μs′ as a power law", key="refit.power_law",

@@ -21,7 +21,14 @@ YEAR = _dt.date.today().year
 
 @pytest.fixture
 def refit(page, go_to):
-    return go_to(page, "Fit and correct")
+    """The fit tab on the newest stored measurement, refitted with the default model for new files (the lookup).
+
+    The seeded demo files were made and fitted with diffusion, so the page opens them with that
+    model (test_a_stored_measurement_opens_with_the_model_of_its_stored_fit); these tests choose
+    the lookup."""
+    app = go_to(page, "Fit and correct")
+    app.selectbox(key="refit.model.srdr").set_value("mc").run()
+    return app
 
 
 def _titles(app):
@@ -100,7 +107,7 @@ def test_fit_of_a_stored_measurement_shows_data_model_residuals_and_target(refit
 
         sidecar = tomllib.loads(DEMO_SIDECAR)
         wavelengths = read_measurement(raw, kind="srdr", sidecar=sidecar).wavelength_nm
-        # the page's default: the lookup with g per wavelength from the demo batch's scattering model
+        # the lookup (the fixture chooses it) with g per wavelength from the demo batch's scattering model
         g = batch_anisotropy(store, code, wavelength_nm=wavelengths, per_wavelength=True)
     finally:
         store.close()
@@ -115,7 +122,7 @@ def test_another_model_can_be_chosen(refit):
     assert any("diffusion-farrell1992" in m.value for m in refit.markdown)
 
 
-def test_the_default_model_is_the_monte_carlo_lookup_and_the_page_says_what_it_used(refit):
+def test_the_lookup_fits_with_g_per_wavelength_and_the_page_says_what_it_used(refit):
     # the demo batch's scattering model gives g per wavelength (0.64 to 0.51 over 660-850 nm): one
     # baseline per step of 0.02, their tables in the test cache
     assert refit.selectbox(key="refit.model.srdr").value == "mc"
@@ -418,3 +425,14 @@ def test_the_recalibrate_and_correct_fields_keep_their_values_while_another_tab_
     open_tab(refit, "refit.tab", "Fit a measurement")
     open_tab(refit, "refit.tab", "Correct the next batch")
     assert refit.selectbox(key="correct.batch").value == first
+
+
+def test_a_stored_measurement_opens_with_the_model_of_its_stored_fit(page, go_to):
+    """The seeded demo files were made and fitted with diffusion (kienle1997): opened on the page,
+    the newest one is refitted with its own model first, not judged by the lookup it was not made for."""
+    app = go_to(page, "Fit and correct")
+    assert not app.exception, [e.message for e in app.exception]
+    picked = app.selectbox(key="refit.measurement").value
+    assert "(srdr," in picked
+    assert app.selectbox(key="refit.model.srdr").value == "kienle1997"
+    assert any("diffusion-kienle1997" in m.value for m in app.markdown)
