@@ -31,7 +31,7 @@ import numpy as np
 from scipy.optimize import least_squares
 
 from phantomlab.calibration.fit_file import fit_measurement
-from phantomlab.calibration.fit_srdr import fit_srdr, srdr_forward
+from phantomlab.calibration.fit_srdr import srdr_forward
 from phantomlab.calibration.measurement_metadata import MeasurementMetadata
 from phantomlab.calibration.measurements import Measurement
 from phantomlab.errors import PhantomlabWarning

@@ -333,7 +333,7 @@ def _diffusion_covariance(residual_fn, x, mask, rho, lag, sd_log, sd_lag) -> np.
 
     amp_error, phase_error, width = DIFFUSION_FD_ERROR
     W = x.shape[0]
-    R, F = rho.size, lag.shape[-1]
+    F = lag.shape[-1]
     jac = finite_jacobian(lambda xx: np.where(mask, residual_fn(xx, np.arange(W)), 0.0), x)
     log_rho = np.log(rho)
     corr_rho = np.exp(-((log_rho[:, None] - log_rho[None, :]) ** 2) / (4 * width**2))

@@ -15,13 +15,16 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Mapping
+from typing import TYPE_CHECKING, Any, Mapping
 
 import numpy as np
 
 from phantomlab.errors import InputError
 from phantomlab.inputs import contained_path, parse_date, parse_toml, read_text_file
 from phantomlab.units import parse_quantity
+
+if TYPE_CHECKING:  # the reading's type lives with the readers, which import this module
+    from phantomlab.calibration.measurements import Measurement
 
 __all__ = [
     "MeasurementMetadata",

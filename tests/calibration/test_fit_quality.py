@@ -8,7 +8,6 @@ import json
 from dataclasses import replace
 
 import numpy as np
-import pytest
 from scipy.stats import chi2
 
 from phantomlab.calibration.fit_file import fit_measurement

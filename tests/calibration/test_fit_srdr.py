@@ -57,7 +57,7 @@ def baseline():
 
 def _text(rho, values, sd, relative=False):
     column = "reflectance_relative" if relative else "reflectance_per_mm2"
-    lines = [f"# source: test data (Monte Carlo + 1 % noise)", f"wavelength_nm,rho_mm,{column},sd"]
+    lines = ["# source: test data (Monte Carlo + 1 % noise)", f"wavelength_nm,rho_mm,{column},sd"]
     for i, row in enumerate(np.atleast_2d(values)):
         for j, r in enumerate(rho):
             lines.append(f"{650 + 10 * i},{r:.6g},{row[j]:.9g},{np.atleast_2d(sd)[i, j]:.6g}")

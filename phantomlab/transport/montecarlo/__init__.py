@@ -1,6 +1,7 @@
 """Monte Carlo photon transport (numba, CPU only): :func:`simulate` and stored baselines.
 
-See :mod:`phantomlab.transport.montecarlo.simulate` (the engine's front end) and
+See :mod:`phantomlab.transport.montecarlo.simulate` (the engine's front end),
+:mod:`phantomlab.transport.montecarlo.result` (what a run returns) and
 :mod:`phantomlab.transport.montecarlo.baseline` (one run, then R(ρ) for other μa and μs).
 """
 
@@ -10,14 +11,13 @@ from phantomlab.transport.montecarlo.baseline import (
     load_baseline,
     load_baseline_inputs,
 )
-from phantomlab.transport.montecarlo.simulate import (
+from phantomlab.transport.montecarlo.result import (
     MonteCarloResult,
     rho_bin_edges_mm,
-    simulate,
     specular_reflectance,
     time_bin_edges_ps,
-    warm_up,
 )
+from phantomlab.transport.montecarlo.simulate import simulate, warm_up
 
 __all__ = [
     "Baseline",

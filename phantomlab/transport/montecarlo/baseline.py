@@ -63,14 +63,8 @@ from phantomlab.transport.montecarlo._validate import (
     check_index,
     check_threads,
 )
-from phantomlab.transport.montecarlo.simulate import (
-    DEFAULT_BATCHES,
-    KERNEL_LOCK,
-    _split,
-    rho_bin_edges_mm,
-    specular_reflectance,
-    warm_up,
-)
+from phantomlab.transport.montecarlo.result import rho_bin_edges_mm, specular_reflectance
+from phantomlab.transport.montecarlo.simulate import DEFAULT_BATCHES, KERNEL_LOCK, _split, warm_up
 
 __all__ = ["Baseline", "build_baseline", "load_baseline", "load_baseline_inputs", "BASELINE_FORMAT"]
 

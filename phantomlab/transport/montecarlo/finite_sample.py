@@ -33,14 +33,8 @@ from phantomlab.errors import InputError
 from phantomlab.transport.montecarlo import _kernels
 from phantomlab.transport.montecarlo._random import batch_states
 from phantomlab.transport.montecarlo._validate import check_count, check_threads
-from phantomlab.transport.montecarlo.simulate import (
-    DEFAULT_BATCHES,
-    KERNEL_LOCK,
-    _check_common,
-    _mean_and_se,
-    _split,
-    specular_reflectance,
-)
+from phantomlab.transport.montecarlo.result import specular_reflectance
+from phantomlab.transport.montecarlo.simulate import DEFAULT_BATCHES, KERNEL_LOCK, _check_common, _mean_and_se, _split
 
 __all__ = ["FiniteSampleResult", "simulate_finite_sample", "MAX_CAPTURE_RADII"]
 
