@@ -5,12 +5,8 @@ See :mod:`phantomlab.transport.montecarlo.simulate` (the engine's front end),
 :mod:`phantomlab.transport.montecarlo.baseline` (one run, then R(ρ) for other μa and μs).
 """
 
-from phantomlab.transport.montecarlo.baseline import (
-    Baseline,
-    build_baseline,
-    load_baseline,
-    load_baseline_inputs,
-)
+from phantomlab.transport.montecarlo.baseline import Baseline, load_baseline, load_baseline_inputs
+from phantomlab.transport.montecarlo.baseline_run import build_baseline
 from phantomlab.transport.montecarlo.result import (
     MonteCarloResult,
     rho_bin_edges_mm,

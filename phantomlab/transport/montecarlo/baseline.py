@@ -1,6 +1,6 @@
 """Stored Monte Carlo baselines: one run, then R(ρ) for many (μa, μs) by re-weighting and scaling.
 
-:func:`build_baseline` runs the analog estimator once in a semi-infinite medium at a
+:func:`~phantomlab.transport.montecarlo.baseline_run.build_baseline` runs the analog estimator once in a semi-infinite medium at a
 reference (μa_ref, μs_ref) and records, for every photon that leaves the top face, its exit
 radius ρᵢ, total path length Lᵢ and number of scatterings (float32, float32, uint16:
 10 bytes a photon).  :meth:`Baseline.srdr` then gives the spatially resolved reflectance for
@@ -43,30 +43,26 @@ import json
 import math
 import os
 import tempfile
-import time
 import zipfile
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import numba
 import numpy as np
 
 from phantomlab.errors import InputError, PhantomlabWarning
-from phantomlab.transport.montecarlo import _baseline_kernels, _kernels
-from phantomlab.transport.montecarlo._random import batch_states
+from phantomlab.transport.montecarlo import _baseline_kernels
 from phantomlab.transport.montecarlo._validate import (
     check_anisotropy,
     check_choice,
     check_coefficient,
     check_count,
     check_index,
-    check_threads,
 )
 from phantomlab.transport.montecarlo.result import rho_bin_edges_mm, specular_reflectance
-from phantomlab.transport.montecarlo.simulate import DEFAULT_BATCHES, KERNEL_LOCK, _split, warm_up
+from phantomlab.transport.montecarlo.simulate import DEFAULT_BATCHES, KERNEL_LOCK
 
-__all__ = ["Baseline", "build_baseline", "load_baseline", "load_baseline_inputs", "BASELINE_FORMAT"]
+__all__ = ["Baseline", "load_baseline", "load_baseline_inputs", "check_baseline_inputs", "BASELINE_FORMAT"]
 
 #: Tag and version written into every saved baseline (checked on load).
 BASELINE_FORMAT = "phantomlab-mc-baseline"
@@ -128,7 +124,7 @@ class Baseline:
     _cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     def __post_init__(self) -> None:
-        _check_inputs(self.inputs())
+        check_baseline_inputs(self.inputs())
         lengths = set()
         for name, dtype in _ARRAYS.items():
             values = getattr(self, name)
@@ -412,8 +408,8 @@ class Baseline:
         return destination
 
 
-def _check_inputs(inputs: dict) -> dict:
-    """Check a baseline's input record (also used on load); returns it normalised."""
+def check_baseline_inputs(inputs: dict) -> dict:
+    """Check a baseline's input record (on a build and on load); returns it normalised."""
     checked = {
         "mua_per_mm": check_coefficient("mua_per_mm", inputs["mua_per_mm"]),
         "mus_per_mm": check_coefficient("mus_per_mm", inputs["mus_per_mm"]),
@@ -429,105 +425,6 @@ def _check_inputs(inputs: dict) -> dict:
     if checked["mus_per_mm"] <= 0.0:
         raise InputError("a baseline needs a reference mus_per_mm > 0")
     return checked
-
-
-def build_baseline(
-    *,
-    mua_per_mm,
-    mus_per_mm,
-    g,
-    n,
-    n_outside=1.0,
-    photons,
-    seed=0,
-    threads=None,
-    batches=DEFAULT_BATCHES,
-    progress=None,
-) -> Baseline:
-    """Run the analog Monte Carlo once in a semi-infinite medium and keep every exit.
-
-    Parameters
-    ----------
-    mua_per_mm : float [1/mm]
-        Reference absorption, > 0.  It keeps every path finite and sets the smallest
-        μa/μs the baseline can answer for: μa_ref/μs_ref.  A smaller value costs more time
-        (paths grow as 1/μa_ref).
-    mus_per_mm : float [1/mm]
-        Reference scattering, > 0.
-    g : float
-        Henyey–Greenstein anisotropy in (−1, 1) (fixed for every re-use).
-    n, n_outside : float
-        Indices of the medium and of the outside, >= 1 (fixed for every re-use).
-    photons : int
-        Photons launched; about R_d × photons are stored (10 bytes each).
-    seed : int
-        Master seed (the run does not depend on ``threads``).
-    threads : int or None
-        Threads (None: every core).
-    batches : int
-        Independent random streams.
-    progress : callable, optional
-        Called as ``progress(done, total)`` [photons] after every group of ``threads``
-        batches (the batches run in groups so that the caller hears of progress and can stop
-        the run: an exception raised by ``progress``, or a KeyboardInterrupt, ends the build
-        between two groups and nothing is returned).  Running in groups does not change the
-        numbers: a batch depends on (seed, batch index) only.
-
-    Returns
-    -------
-    Baseline
-
-    References
-    ----------
-    See :mod:`phantomlab.transport.montecarlo.baseline`.
-    """
-    inputs = _check_inputs({"mua_per_mm": mua_per_mm, "mus_per_mm": mus_per_mm, "g": g, "n": n,
-                            "n_outside": n_outside, "photons": photons, "seed": seed,
-                            "batches": batches})
-    threads = check_threads(threads)
-    batches = min(inputs["batches"], inputs["photons"])
-    inputs["batches"] = batches
-    counts = _split(inputs["photons"], batches)
-    states = batch_states(inputs["seed"], batches)
-    capacity = int(counts.max())
-    rec_rho = np.zeros((batches, capacity), dtype=np.float32)
-    rec_path = np.zeros((batches, capacity), dtype=np.float32)
-    rec_nscat = np.zeros((batches, capacity), dtype=np.uint16)
-    rec_count = np.zeros(batches, dtype=np.int64)
-    tallies = np.zeros((batches, len(_kernels.TALLY_NAMES)))
-    launch_weight = 1.0 - specular_reflectance(n=inputs["n"], n_outside=inputs["n_outside"])
-    warm_up()
-    rho_weights = np.zeros((batches, 1))
-    total = int(counts.sum())
-    if progress is not None:
-        progress(0, total)
-    seconds = 0.0
-    for first in range(0, batches, threads):
-        group = slice(first, min(first + threads, batches))
-        with KERNEL_LOCK:
-            previous = numba.get_num_threads()
-            numba.set_num_threads(threads)
-            try:
-                start = time.perf_counter()
-                _kernels.run_3d(
-                    counts[group], states[group], inputs["mua_per_mm"], inputs["mus_per_mm"], inputs["g"],
-                    inputs["n"], inputs["n_outside"], 0.0, inputs["n_outside"], 0.0, math.inf, True,
-                    launch_weight, 0.0, 1.0, np.zeros(0), tallies[group], rho_weights[group], True,
-                    rec_rho[group], rec_path[group], rec_nscat[group], rec_count[group],
-                )
-                seconds += time.perf_counter() - start
-            finally:
-                numba.set_num_threads(previous)
-        if progress is not None:
-            progress(int(counts[: group.stop].sum()), total)
-    pieces = [slice(0, int(c)) for c in rec_count]
-    return Baseline(
-        exit_radius_mm=np.concatenate([rec_rho[b, s] for b, s in enumerate(pieces)]),
-        path_length_mm=np.concatenate([rec_path[b, s] for b, s in enumerate(pieces)]),
-        scatterings=np.concatenate([rec_nscat[b, s] for b, s in enumerate(pieces)]),
-        seconds=seconds,
-        **inputs,
-    )
 
 
 def _inputs_from_record(source: Path, record) -> dict:
@@ -546,7 +443,7 @@ def _inputs_from_record(source: Path, record) -> dict:
     absent = [key for key in _INPUT_KEYS if key not in header]
     if absent:
         raise InputError(f"{str(source)!r}: the inputs record lacks {', '.join(absent)}")
-    return _check_inputs({key: header[key] for key in _INPUT_KEYS})
+    return check_baseline_inputs({key: header[key] for key in _INPUT_KEYS})
 
 
 def load_baseline_inputs(path) -> dict:
