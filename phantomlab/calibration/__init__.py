@@ -8,7 +8,7 @@
 """
 
 from phantomlab.calibration.fit_file import fit_measurement, fit_measurement_file
-from phantomlab.calibration.fitting import FitResult
+from phantomlab.calibration.fit_result import FitResult
 from phantomlab.calibration.measurements import Measurement, read_measurement
 from phantomlab.calibration.potency import BatchObservation, PotencyPrior, PotencyUpdate, update_potencies
 

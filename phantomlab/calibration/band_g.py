@@ -10,7 +10,7 @@ with g off by ±0.06 or more, and moves their μs′ by one to two SDs.
 When the scatterer's g is known per wavelength (the batch's scattering model), the
 wavelengths are grouped by g rounded to :data:`G_STEP`, each group is fitted with the
 cached baseline of its g, and the groups' results are merged back into one
-:class:`~phantomlab.calibration.fitting.FitResult` in wavelength order.
+:class:`~phantomlab.calibration.fit_result.FitResult` in wavelength order.
 """
 
 from __future__ import annotations
@@ -19,7 +19,7 @@ from dataclasses import replace
 
 import numpy as np
 
-from phantomlab.calibration.fitting import FitResult
+from phantomlab.calibration.fit_result import FitResult
 from phantomlab.errors import InputError
 
 __all__ = ["G_STEP", "g_steps", "wavelength_groups", "measurement_part", "merge_fits", "g_of_spectrum", "band_plan",

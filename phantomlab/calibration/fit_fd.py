@@ -33,7 +33,8 @@ from typing import Any
 import numpy as np
 
 from phantomlab.calibration.fd_measurements import FrequencyDomainMeasurement
-from phantomlab.calibration.fitting import FitResult, fit_blocks, log_to_linear
+from phantomlab.calibration.fit_result import FitResult
+from phantomlab.calibration.fitting import fit_blocks, log_to_linear
 from phantomlab.calibration.identifiability import _bands, outcome_warnings
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.jsonable import to_jsonable

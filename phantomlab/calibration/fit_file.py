@@ -2,7 +2,7 @@
 
 :func:`fit_measurement_file` reads the file (and its TOML sidecar), calibrates raw readings
 with the reference phantom, picks the fit for the kind, and returns a
-:class:`~phantomlab.calibration.fitting.FitResult` whose ``to_json()`` is the ``fit``
+:class:`~phantomlab.calibration.fit_result.FitResult` whose ``to_json()`` is the ``fit``
 object of docs/contract.md.
 """
 
@@ -13,10 +13,8 @@ from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
-import numpy as np
-
 from phantomlab.calibration.fit_quality import assess_fit
-from phantomlab.calibration.fitting import FitResult
+from phantomlab.calibration.fit_result import FitResult
 from phantomlab.calibration.measurements import KINDS, Measurement, combine_replicates, read_measurement
 from phantomlab.errors import InputError, PhantomlabWarning
 

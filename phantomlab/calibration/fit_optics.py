@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from phantomlab.calibration.fit_srdr import _finish
-from phantomlab.calibration.fitting import FitResult
+from phantomlab.calibration.fit_result import FitResult
 from phantomlab.calibration.measurements import Measurement
 from phantomlab.errors import InputError
 

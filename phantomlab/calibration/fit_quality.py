@@ -48,7 +48,7 @@ from dataclasses import replace
 import numpy as np
 from scipy.stats import chi2 as chi2_distribution
 
-from phantomlab.calibration.fitting import FitResult
+from phantomlab.calibration.fit_result import FitResult
 
 __all__ = ["FIT_QUALITIES", "SD_PARTS", "POOR_P_VALUE", "POOR_MIN_CHI2_RED", "assess_fit", "judge_fit",
            "misfit_flags", "wavelength_dof"]

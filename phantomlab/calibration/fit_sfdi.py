@@ -26,7 +26,7 @@ from phantomlab.calibration.fit_srdr import (
     model_range_warnings,
     smooth_lookup,
 )
-from phantomlab.calibration.fitting import FitResult
+from phantomlab.calibration.fit_result import FitResult
 from phantomlab.calibration.identifiability import outcome_warnings, sfdi_design_warnings
 from phantomlab.calibration.model_error import diffusion_error_warnings, diffusion_fit_error
 from phantomlab.calibration.measurements import Measurement

@@ -28,7 +28,7 @@ from dataclasses import replace
 import numpy as np
 
 from phantomlab.calibration.fit_srdr import _finish, model_range_warnings
-from phantomlab.calibration.fitting import FitResult
+from phantomlab.calibration.fit_result import FitResult
 from phantomlab.calibration.identifiability import _bands, outcome_warnings, slab_edge_warnings
 from phantomlab.calibration.measurements import Measurement
 from phantomlab.calibration.slab_inversion import SlabModel, SlabSolution, invert_slab
@@ -204,7 +204,6 @@ def result_from_solution(measurement: Measurement, solution: SlabSolution, *, da
     ``chi2_red_per_wavelength`` and ``dof`` count data points minus fitted parameters (no
     degrees of freedom, hence NaN, for as many numbers as unknowns).
     """
-    W = solution.mua_per_mm.size
     measured = np.any(np.isfinite(data), axis=0)
     columns = np.flatnonzero(measured)
     cov = solution.covariance

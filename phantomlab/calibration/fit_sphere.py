@@ -34,7 +34,7 @@ import numpy as np
 
 from phantomlab.calibration.fit_slab import _finish, result_from_solution, slab_messages, slab_model, slab_options
 from phantomlab.calibration.slab_inversion import _pick
-from phantomlab.calibration.fitting import FitResult
+from phantomlab.calibration.fit_result import FitResult
 from phantomlab.calibration.measurements import Measurement
 from phantomlab.calibration.slab_inversion import SlabModel, invert_slab
 from phantomlab.calibration.sphere import (

@@ -32,7 +32,7 @@ from dataclasses import replace
 
 import numpy as np
 
-from phantomlab.calibration.fitting import FitResult
+from phantomlab.calibration.fit_result import FitResult
 from phantomlab.calibration.identifiability import _bands, outcome_warnings, srdr_design_warnings
 from phantomlab.calibration.model_error import diffusion_error_warnings, diffusion_fit_error
 from phantomlab.calibration.measurements import Measurement
@@ -277,7 +277,6 @@ def fit_srdr(
         result, correlation, final_mask, reach_messages = _fit_within_lookup_reach(
             forward, result, correlation, measurement, kwargs)
         messages += reach_messages
-    kept_near = np.zeros(measurement.wavelength_nm.shape, bool)
     if model != "mc" and min_transport_mfp > 0:
         finite = np.isfinite(measurement.values)
         used = finite  # the distances of the fit just made

@@ -63,7 +63,8 @@ from typing import Any
 
 import numpy as np
 
-from phantomlab.calibration.fitting import FitResult, fit_blocks, log_to_linear
+from phantomlab.calibration.fit_result import FitResult
+from phantomlab.calibration.fitting import fit_blocks, log_to_linear
 from phantomlab.calibration.identifiability import outcome_warnings
 from phantomlab.calibration.td_checks import td_design_warnings
 from phantomlab.calibration.td_curves import (

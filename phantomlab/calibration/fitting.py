@@ -15,23 +15,18 @@ Two entry points:
 * :func:`fit_joint` — one problem whose parameters are shared across the band (spectral
   constraints).
 
-:class:`FitResult` is what every fit returns; its :meth:`FitResult.to_json` gives the
-``fit`` object of docs/contract.md.
+What every fit returns is :class:`~phantomlab.calibration.fit_result.FitResult`.
 """
 
 from __future__ import annotations
 
-import warnings
-from dataclasses import dataclass, field
-from typing import Any, Callable, Mapping
+from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
-from scipy import sparse
 from scipy.optimize import least_squares
 
-from phantomlab.errors import InputError, PhantomlabWarning
-
-__all__ = ["BlockOutcome", "JointOutcome", "FitResult", "fit_blocks", "fit_joint", "finite_jacobian",
+__all__ = ["BlockOutcome", "JointOutcome", "fit_blocks", "fit_joint", "finite_jacobian", "log_to_linear",
            "propagated_error_covariance"]
 
 #: Relative step of the forward-difference Jacobian in log-parameters.
@@ -411,141 +406,3 @@ def log_to_linear(x_log: np.ndarray, cov_log: np.ndarray) -> tuple[np.ndarray, n
     with np.errstate(invalid="ignore"):
         cov = cov_log * values[..., :, None] * values[..., None, :]
     return values, cov
-
-
-@dataclass(frozen=True)
-class FitResult:
-    """Fitted optical properties of one measurement, with their uncertainty.
-
-    Attributes
-    ----------
-    kind : str
-        Measurement kind (srdr, sfdi, slab, sphere, optics).
-    model : str
-        Forward model used (``diffusion-farrell1992``, ``mc-lookup``, ``adding-doubling``, ...).
-    wavelength_nm : ndarray (W,) [nm]
-    mua_per_mm, musp_per_mm : ndarray (W,) [1/mm]
-    mua_sd_per_mm, musp_sd_per_mm : ndarray (W,) [1/mm]
-        Standard uncertainties (inf where the data do not determine the value).
-    covariance : ndarray (W, 2, 2) [1/mm^2]
-        Covariance of (mua, musp) at each wavelength.
-    chi2_red : float
-        Reduced χ² over the whole measurement (NaN when there are no degrees of freedom).
-    chi2_red_per_wavelength : ndarray (W,)
-    dof : float
-        Degrees of freedom of ``chi2_red`` over the whole measurement (data points minus
-        fitted parameters; NaN when the fit has no test of fit).
-    residuals : ndarray
-        Normalised residuals (model − data)/SD, shape of the data.
-    warnings : tuple of str
-        Identifiability and model-range warnings (also raised as PhantomlabWarning).
-    scale_factor, scale_factor_sd : ndarray (W,) or None
-        Fitted scale of relative data (data = scale · model).
-    parameters : dict
-        Extra fitted parameters (spectral constraints), each ``{"value":..., "sd":...}``.
-    source, name : str or None
-        The file's ``# source:`` line and name.
-    replicates : int
-    extras : dict
-        Further per-wavelength outputs of a kind, written as top-level JSON keys after the
-        standard ones (slab and sphere: ``g``, ``g_sd``, ``total_reflectance``, ...).
-    converged : bool
-        The minimiser met its stopping rule at every wavelength (False: it ran out of
-        iterations somewhere).
-    model_covariance : ndarray (W, 2, 2) or None [1/mm^2]
-        Covariance of (mua, musp) from the forward model's own known error (the diffusion
-        models' measured error against Monte Carlo), kept apart so that
-        :func:`phantomlab.calibration.fit_quality.assess_fit` adds it after scaling the
-        statistical part by the misfit.
-    sd_includes : tuple of str
-        What the SDs account for (:data:`phantomlab.calibration.fit_quality.SD_PARTS`).
-    fit_quality : {'good', 'poor', 'failed'} or None
-        The verdict of :func:`~phantomlab.calibration.fit_quality.assess_fit` (None before).
-    fit_quality_reason : str or None
-        One line saying why.
-    """
-
-    kind: str
-    model: str
-    wavelength_nm: np.ndarray
-    mua_per_mm: np.ndarray
-    musp_per_mm: np.ndarray
-    mua_sd_per_mm: np.ndarray
-    musp_sd_per_mm: np.ndarray
-    covariance: np.ndarray
-    chi2_red: float
-    chi2_red_per_wavelength: np.ndarray
-    residuals: np.ndarray
-    warnings: tuple[str, ...] = ()
-    scale_factor: np.ndarray | None = None
-    scale_factor_sd: np.ndarray | None = None
-    parameters: Mapping[str, Any] = field(default_factory=dict)
-    source: str | None = None
-    name: str | None = None
-    replicates: int = 1
-    dof: float = float("nan")
-    extras: Mapping[str, Any] = field(default_factory=dict)
-    converged: bool = True
-    model_covariance: np.ndarray | None = None
-    sd_includes: tuple[str, ...] = ()
-    fit_quality: str | None = None
-    fit_quality_reason: str | None = None
-
-    def to_json(self) -> dict[str, Any]:
-        """The ``fit`` object of docs/contract.md (exact keys first, extras after), JSON-ready."""
-        from phantomlab.jsonable import to_jsonable
-
-        payload = {
-            "wavelength_nm": self.wavelength_nm,
-            "mua_per_mm": self.mua_per_mm,
-            "musp_per_mm": self.musp_per_mm,
-            "mua_sd_per_mm": self.mua_sd_per_mm,
-            "musp_sd_per_mm": self.musp_sd_per_mm,
-            "model": self.model,
-            "chi2_red": self.chi2_red,
-            "warnings": list(self.warnings),
-            "fit_quality": self.fit_quality,
-            "fit_quality_reason": self.fit_quality_reason,
-            "sd_includes": list(self.sd_includes),
-            "kind": self.kind,
-            "covariance_mua_musp": self.covariance,
-            "chi2_red_per_wavelength": self.chi2_red_per_wavelength,
-            "dof": self.dof,
-            "residuals": self.residuals,
-            "parameters": dict(self.parameters),
-            "source": self.source,
-            "replicates": self.replicates,
-        }
-        if self.scale_factor is not None:
-            payload["scale_factor"] = self.scale_factor
-            payload["scale_factor_sd"] = self.scale_factor_sd
-        for key, value in self.extras.items():
-            payload.setdefault(key, value)
-        return to_jsonable(payload)
-
-    def with_warnings(self, messages) -> "FitResult":
-        from dataclasses import replace
-
-        merged = list(self.warnings)
-        for message in messages:
-            if message not in merged:
-                merged.append(message)
-        return replace(self, warnings=tuple(merged))
-
-
-def warn(message: str) -> str:
-    """Raise a PhantomlabWarning with a one-line ``message`` and return it (for FitResult)."""
-    line = " ".join(str(message).split())
-    warnings.warn(line, PhantomlabWarning, stacklevel=3)
-    return line
-
-
-def require_positive(name: str, value) -> float:
-    """One-line refusal of a non-positive or non-finite scalar option."""
-    try:
-        number = float(value)
-    except (TypeError, ValueError):
-        raise InputError(f"{name} = {value!r}; accepted: a positive number") from None
-    if not np.isfinite(number) or number <= 0:
-        raise InputError(f"{name} = {value!r}; accepted: a positive number")
-    return number

@@ -25,7 +25,6 @@ Stat. Soc. B 64:583, eq. 11 for a normal linear model).
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from typing import Sequence
 

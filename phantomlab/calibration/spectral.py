@@ -21,7 +21,8 @@ from typing import Callable
 
 import numpy as np
 
-from phantomlab.calibration.fitting import FitResult, fit_blocks, log_to_linear
+from phantomlab.calibration.fit_result import FitResult
+from phantomlab.calibration.fitting import fit_blocks, log_to_linear
 from phantomlab.calibration.spectral_joint import MUA_BOUNDS_PER_MM, MUSP_BOUNDS_PER_MM, SpectralConstraint, joint_fit
 from phantomlab.errors import PhantomlabWarning
 
