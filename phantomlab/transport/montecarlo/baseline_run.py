@@ -11,7 +11,6 @@ from __future__ import annotations
 import math
 import time
 
-import numba
 import numpy as np
 
 from phantomlab.transport.montecarlo import _kernels
@@ -19,7 +18,7 @@ from phantomlab.transport.montecarlo._random import batch_states
 from phantomlab.transport.montecarlo._validate import check_threads
 from phantomlab.transport.montecarlo.baseline import Baseline, check_baseline_inputs
 from phantomlab.transport.montecarlo.result import specular_reflectance
-from phantomlab.transport.montecarlo.simulate import DEFAULT_BATCHES, KERNEL_LOCK, _split, warm_up
+from phantomlab.transport.montecarlo.simulate import DEFAULT_BATCHES, _split, kernel_threads, warm_up
 
 __all__ = ["build_baseline"]
 
@@ -97,20 +96,15 @@ def build_baseline(
     seconds = 0.0
     for first in range(0, batches, threads):
         group = slice(first, min(first + threads, batches))
-        with KERNEL_LOCK:
-            previous = numba.get_num_threads()
-            numba.set_num_threads(threads)
-            try:
-                start = time.perf_counter()
-                _kernels.run_3d(
-                    counts[group], states[group], inputs["mua_per_mm"], inputs["mus_per_mm"], inputs["g"],
-                    inputs["n"], inputs["n_outside"], 0.0, inputs["n_outside"], 0.0, math.inf, True,
-                    launch_weight, 0.0, 1.0, np.zeros(0), tallies[group], rho_weights[group], True,
-                    rec_rho[group], rec_path[group], rec_nscat[group], rec_count[group],
-                )
-                seconds += time.perf_counter() - start
-            finally:
-                numba.set_num_threads(previous)
+        with kernel_threads(threads):
+            start = time.perf_counter()
+            _kernels.run_3d(
+                counts[group], states[group], inputs["mua_per_mm"], inputs["mus_per_mm"], inputs["g"],
+                inputs["n"], inputs["n_outside"], 0.0, inputs["n_outside"], 0.0, math.inf, True,
+                launch_weight, 0.0, 1.0, np.zeros(0), tallies[group], rho_weights[group], True,
+                rec_rho[group], rec_path[group], rec_nscat[group], rec_count[group],
+            )
+            seconds += time.perf_counter() - start
         if progress is not None:
             progress(int(counts[: group.stop].sum()), total)
     pieces = [slice(0, int(c)) for c in rec_count]

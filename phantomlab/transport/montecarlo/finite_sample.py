@@ -26,7 +26,6 @@ import math
 import time
 from dataclasses import dataclass
 
-import numba
 import numpy as np
 
 from phantomlab.errors import InputError
@@ -34,7 +33,7 @@ from phantomlab.transport.montecarlo import _kernels
 from phantomlab.transport.montecarlo._random import batch_states
 from phantomlab.transport.montecarlo._validate import check_count, check_threads
 from phantomlab.transport.montecarlo.result import specular_reflectance
-from phantomlab.transport.montecarlo.simulate import DEFAULT_BATCHES, KERNEL_LOCK, _check_common, _mean_and_se, _split
+from phantomlab.transport.montecarlo.simulate import DEFAULT_BATCHES, KERNEL_LOCK, _check_common, _mean_and_se, _split, kernel_threads
 
 __all__ = ["FiniteSampleResult", "simulate_finite_sample", "MAX_CAPTURE_RADII"]
 
@@ -171,19 +170,14 @@ def simulate_finite_sample(*, mua_per_mm, mus_per_mm, g, n, thickness_mm, beam_d
     bottom = np.zeros((batches, edges.size - 1))
     extra = np.zeros((batches, 1))
     _warm()
-    with KERNEL_LOCK:
-        previous = numba.get_num_threads()
-        numba.set_num_threads(threads)
-        try:
-            start = time.perf_counter()
-            _kernels.run_3d_finite(
-                counts, states, mua, mus, g, n, n_outside, 0.0 if slide[0] is None else slide[0], n_outside,
-                0.0 if slide[1] is None else slide[1], thickness, estimator == "analog", launch,
-                _kernels.ROULETTE_THRESHOLD * launch, _kernels.ROULETTE_SURVIVAL, edges, tallies, top, bottom,
-                beam / 2, edge, extra)
-            seconds = time.perf_counter() - start
-        finally:
-            numba.set_num_threads(previous)
+    with kernel_threads(threads):
+        start = time.perf_counter()
+        _kernels.run_3d_finite(
+            counts, states, mua, mus, g, n, n_outside, 0.0 if slide[0] is None else slide[0], n_outside,
+            0.0 if slide[1] is None else slide[1], thickness, estimator == "analog", launch,
+            _kernels.ROULETTE_THRESHOLD * launch, _kernels.ROULETTE_SURVIVAL, edges, tallies, top, bottom,
+            beam / 2, edge, extra)
+        seconds = time.perf_counter() - start
     names = _kernels.TALLY_NAMES
     column = {name: tallies[:, i] for i, name in enumerate(names)}
     inside_r, inside_r_sd = _mean_and_se(np.cumsum(top, axis=1)[:, :-1], counts)

@@ -154,6 +154,16 @@ class MonteCarloResult:
         return payload
 
 
+def _midpoint_edges(centres: np.ndarray) -> np.ndarray:
+    """Edges between increasing bin centres: midpoints; the outer edges as far out as the first
+    and last midpoints lie from their centres (the lowest clipped at 0)."""
+    edges = np.empty(centres.size + 1)
+    edges[1:-1] = 0.5 * (centres[1:] + centres[:-1])
+    edges[0] = max(0.0, centres[0] - 0.5 * (centres[1] - centres[0]))
+    edges[-1] = centres[-1] + 0.5 * (centres[-1] - centres[-2])
+    return edges
+
+
 def rho_bin_edges_mm(rho_mm) -> np.ndarray:
     """Bin edges [mm] for radial bin centres ``rho_mm``: midpoints between neighbours.
 
@@ -170,11 +180,7 @@ def rho_bin_edges_mm(rho_mm) -> np.ndarray:
     ndarray [mm], shape (R + 1,)
     """
     centres = check_rho_grid(rho_mm)
-    edges = np.empty(centres.size + 1)
-    edges[1:-1] = 0.5 * (centres[1:] + centres[:-1])
-    edges[0] = max(0.0, centres[0] - 0.5 * (centres[1] - centres[0]))
-    edges[-1] = centres[-1] + 0.5 * (centres[-1] - centres[-2])
-    return edges
+    return _midpoint_edges(centres)
 
 
 def time_bin_edges_ps(time_ps) -> np.ndarray:
@@ -197,11 +203,7 @@ def time_bin_edges_ps(time_ps) -> np.ndarray:
         raise InputError("time_ps must hold at least two finite times [ps]")
     if np.any(centres < 0) or np.any(np.diff(centres) <= 0):
         raise InputError("time_ps must be >= 0 and strictly increasing [ps]")
-    edges = np.empty(centres.size + 1)
-    edges[1:-1] = 0.5 * (centres[1:] + centres[:-1])
-    edges[0] = max(0.0, centres[0] - 0.5 * (centres[1] - centres[0]))
-    edges[-1] = centres[-1] + 0.5 * (centres[-1] - centres[-2])
-    return edges
+    return _midpoint_edges(centres)
 
 
 def specular_reflectance(*, n, n_outside=1.0, n_slide=None) -> float:

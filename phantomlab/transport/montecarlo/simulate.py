@@ -20,6 +20,7 @@ from __future__ import annotations
 import math
 import threading
 import time
+from contextlib import contextmanager
 
 import numba
 import numpy as np
@@ -82,6 +83,18 @@ _WARMED: set[str] = set()
 #: Held around every parallel kernel launch: numba's fallback thread pool ("workqueue") must
 #: not be entered from two Python threads at once (a page serving two sessions would do that).
 KERNEL_LOCK = threading.RLock()
+
+
+@contextmanager
+def kernel_threads(threads: int):
+    """Hold :data:`KERNEL_LOCK` with numba running ``threads`` threads; the previous count is restored after."""
+    with KERNEL_LOCK:
+        previous = numba.get_num_threads()
+        numba.set_num_threads(threads)
+        try:
+            yield
+        finally:
+            numba.set_num_threads(previous)
 
 
 def _empty_records(batches: int):
@@ -362,23 +375,18 @@ def simulate(
         _warm_timed_kernel()
 
     warm_up()
-    with KERNEL_LOCK:
-        previous_threads = numba.get_num_threads()
-        numba.set_num_threads(threads)
-        try:
-            seconds = 0.0
-            remaining = counts.copy()
-            while remaining.any():
-                chunk = np.minimum(remaining, CHUNK_PHOTONS_PER_BATCH)
-                seconds += _launch(geometry, chunk, states, mua, mus, g, backscatter, n, n_outside,
-                                   slide_top, slide_bottom, depth, analog, launch_weight,
-                                   roulette_threshold, roulette_survival, kernel_edges, tallies,
-                                   rho_weights, batches, path_edges, path_weights, path_gate)
-                remaining -= chunk
-                if progress is not None:
-                    progress(int(photons - remaining.sum()), photons)
-        finally:
-            numba.set_num_threads(previous_threads)
+    with kernel_threads(threads):
+        seconds = 0.0
+        remaining = counts.copy()
+        while remaining.any():
+            chunk = np.minimum(remaining, CHUNK_PHOTONS_PER_BATCH)
+            seconds += _launch(geometry, chunk, states, mua, mus, g, backscatter, n, n_outside,
+                               slide_top, slide_bottom, depth, analog, launch_weight,
+                               roulette_threshold, roulette_survival, kernel_edges, tallies,
+                               rho_weights, batches, path_edges, path_weights, path_gate)
+            remaining -= chunk
+            if progress is not None:
+                progress(int(photons - remaining.sum()), photons)
 
     names = _kernels.TALLY_NAMES
     columns = {name: tallies[:, i] for i, name in enumerate(names)}
