@@ -269,6 +269,10 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     irf_span = slice(int(pulse[0]), int(pulse[-1]) + 1) if pulse.size >= 2 else slice(None)
     time = measurement.time_ps[crop]
     full_counts, full_windows = counts, windows
+    # curves whose IRF is wider than their rise (10 % to the peak): warned, and their lookup
+    # error is kept unaveraged (below)
+    irf_wider = np.array([fwhm[k] > rise_time_ps(counts[k] - background[k], measurement.step_ps)
+                          for k in range(W * R)])
     counts, windows = counts[:, crop], windows[:, crop]
     K = time.size
     response = prepare_irf(time_ps=time, irf_time_ps=measurement.irf_time_ps[irf_span], irf=irf[:, irf_span])
@@ -369,8 +373,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         # √(width² + spread²) (Gaussian kernels).  Not where the IRF is wider than the curve's
         # rise: the fit is far from linear there (t0 and μs′ trade) and the error unaveraged
         # is kept
-        resolved = np.array([fwhm[k] <= rise_time_ps(counts[k] - background[k], measurement.step_ps)
-                             for k in range(W * R)])[:, None]
+        resolved = ~irf_wider[:, None]
         widened = np.sqrt(width**2 + log_time_spread**2)
         rel = np.where(resolved, rel * np.sqrt(width / widened), rel)
         # with the smoothing's own bias (TimeResolvedLookup.relative_bias), correlated as the noise
@@ -412,8 +415,8 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         chi2_all = float(chi2[dof > 0].sum() / total_dof) if total_dof > 0 else float("nan")
         correlation = cov[:, 0, 1] / (mua_sd * musp_sd)
     messages += td_design_warnings(measurement, full_counts.reshape(W, R, K_full) - background.reshape(W, R, 1),
-                                 full_windows.reshape(W, R, K_full), fwhm.reshape(W, R), family, geometry, thickness,
-                                 mua_fit, musp_fit, rise)
+                                 full_windows.reshape(W, R, K_full), fwhm.reshape(W, R), irf_wider.reshape(W, R),
+                                 family, geometry, thickness, mua_fit, musp_fit, rise)
     messages += outcome_warnings(wavelength_nm=measurement.wavelength_nm, mua_per_mm=mua_fit, musp_per_mm=musp_fit,
                                  mua_sd_per_mm=mua_sd, musp_sd_per_mm=musp_sd, correlation=correlation)
     lookup = getattr(shape, "lookup", None)

@@ -378,19 +378,20 @@ class TimeResolvedLookup:
             ls >= self.s_nodes[0]) & (ls <= self.s_nodes[-1])
         return np.where(within, values, 0.0)
 
-    def relative_sd(self, *, mus_per_mm, rho_mm, time_ps) -> np.ndarray:
-        """Relative standard error of :meth:`point` from the baseline's photon statistics."""
+    def _node_table(self, log_table, mus_per_mm, rho_mm, time_ps) -> np.ndarray:
+        """A per-node table of logs read bilinearly at the points (μs, ρ, t), exponentiated."""
         _, _, u, tau, _ = self._scaled(np.zeros(np.size(mus_per_mm)), mus_per_mm, rho_mm, time_ps)
         _, lu, ls = self._coordinates(u, tau)
-        return np.exp(self._bilinear(self._log_sd, lu, ls, self.log_u[0], self.s_nodes[0],
+        return np.exp(self._bilinear(log_table, lu, ls, self.log_u[0], self.s_nodes[0],
                                      float(self.log_u[1] - self.log_u[0]), float(self.s_nodes[1] - self.s_nodes[0])))
+
+    def relative_sd(self, *, mus_per_mm, rho_mm, time_ps) -> np.ndarray:
+        """Relative standard error of :meth:`point` from the baseline's photon statistics."""
+        return self._node_table(self._log_sd, mus_per_mm, rho_mm, time_ps)
 
     def relative_bias(self, *, mus_per_mm, rho_mm, time_ps) -> np.ndarray:
         """Size of the smoothing's bias of :meth:`point`, relative (the plug-in ½ h² f'' of each node)."""
-        _, _, u, tau, _ = self._scaled(np.zeros(np.size(mus_per_mm)), mus_per_mm, rho_mm, time_ps)
-        _, lu, ls = self._coordinates(u, tau)
-        return np.exp(self._bilinear(self._log_bias, lu, ls, self.log_u[0], self.s_nodes[0],
-                                     float(self.log_u[1] - self.log_u[0]), float(self.s_nodes[1] - self.s_nodes[0])))
+        return self._node_table(self._log_bias, mus_per_mm, rho_mm, time_ps)
 
     def serves(self, *, mus_per_mm, rho_mm, latest_time_ps) -> np.ndarray:
         """Whether the lookup serves a curve out to ``latest_time_ps``, per (μs, ρ) pair, shape (N,).
@@ -414,18 +415,15 @@ class TimeResolvedLookup:
         return (u <= self.u_max) & (u >= self.u_nodes[0]) & (tau <= self.tau_max) & lit & (
             relative <= SERVED_MAX_RELATIVE_SD)
 
-    def curve_relative_sd(self, *, mua_per_mm: float, mus_per_mm: float, rho_mm, with_width: bool = False):
+    def curve_relative_sd(self, *, mua_per_mm: float, mus_per_mm: float, rho_mm):
         """Response-weighted mean relative SD of the lookup over each whole curve R(ρ, t), shape (R,).
 
-        The error of a quantity that integrates the curve over time (the frequency-domain
-        transform): Σ R σ_rel Δt / Σ R Δt on 200 log-spaced times out to the table's reach.
-        ``with_width``: also the same mean of the smoothing kernel's width in log u (the
-        correlation length of that error across distances), as a second array.
+        How well the table holds a quantity that integrates the curve over time (the fd fit's
+        reach): Σ R σ_rel Δt / Σ R Δt on 200 log-spaced times out to the table's reach.
         """
         rho = np.atleast_1d(np.asarray(rho_mm, float))
         times = np.geomspace(10.0, self.tau_max / (self.v * mus_per_mm), 200)
         out = np.empty(rho.size)
-        width = np.empty(rho.size)
         for r in range(rho.size):
             grid = np.full(times.size, rho[r])
             point = self.point(mua_per_mm=[mua_per_mm], mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=times)[0]
@@ -433,12 +431,14 @@ class TimeResolvedLookup:
             sd = self.relative_sd(mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=times)[0]
             total = np.sum(weight)
             out[r] = float(np.sum(weight * sd) / total) if total > 0 else np.inf
-            _, _, u, tau, _ = self._scaled(np.zeros(1), [mus_per_mm], grid, times)
-            _, lu, ls = self._coordinates(u, tau)
-            far, _ = self._wide_shares(lu, ls)
-            h = _BANDWIDTH_LOG_U + far[0] * (_BANDWIDTH_LOG_U_FAR - _BANDWIDTH_LOG_U)
-            width[r] = float(np.sum(weight * h) / total) if total > 0 else _BANDWIDTH_LOG_U
-        return (out, width) if with_width else out
+        return out
+
+    def _log_u_bandwidth_at(self, *, mus_per_mm, rho_mm, time_ps) -> np.ndarray:
+        """Width (Gaussian SD in log u) of the smoothing kernel at each point (wider far out, after the peak)."""
+        _, _, u, tau, _ = self._scaled(np.zeros(np.size(mus_per_mm)), mus_per_mm, rho_mm, time_ps)
+        _, lu, ls = self._coordinates(u, tau)
+        far, _ = self._wide_shares(lu, ls)
+        return _BANDWIDTH_LOG_U + far * (_BANDWIDTH_LOG_U_FAR - _BANDWIDTH_LOG_U)
 
     def transform_error_covariance(self, *, mua_per_mm: float, mus_per_mm: float, rho_mm, frequency_mhz,
                                    times: int = 300) -> np.ndarray:
@@ -449,7 +449,7 @@ class TimeResolvedLookup:
         (−arg R̃) by minus its imaginary part.  δ holds the photon noise (:meth:`relative_sd`)
         and the smoothing bias (:meth:`relative_bias`), each correlated along the curve as the
         smoothing kernels overlap in s = ln(τ/u²) (widths :meth:`tau_bandwidth_at`) and in ln u
-        (the curve-weighted widths of :meth:`curve_relative_sd`): at two distances the times
+        (their curve-weighted widths): at two distances the times
         whose s agree share the table's nodes.  A per-cent error that is the same at every time moves no
         phase; an error that changes along the curve averages down over its many kernel widths.
         Quadrature: ``times`` log-spaced times out to the table's reach.
@@ -471,17 +471,18 @@ class TimeResolvedLookup:
         dt = np.gradient(t)
         omega = 2.0 * math.pi * freq * 1e-6  # rad/ps
         R, F = rho.size, freq.size
-        _, width_u = self.curve_relative_sd(mua_per_mm=mua_per_mm, mus_per_mm=mus_per_mm, rho_mm=rho, with_width=True)
-        pair_u = width_u[:, None] ** 2 + width_u[None, :] ** 2
-        corr_u = np.sqrt(2 * width_u[:, None] * width_u[None, :] / pair_u) * np.exp(
-            -((np.log(rho)[:, None] - np.log(rho)[None, :]) ** 2) / (2 * pair_u))
         log_t = np.log(t)
         rows_noise = np.zeros((R, 2 * F, t.size))
         rows_bias = np.zeros((R, 2 * F, t.size))
         widths = np.zeros((R, t.size))
+        width_u = np.full(R, _BANDWIDTH_LOG_U)  # curve-weighted, as the transform weighs the curve
         for r in range(R):
             grid = np.full(t.size, rho[r])
             value = self.point(mua_per_mm=[mua_per_mm], mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=t)[0]
+            held = value * dt
+            if held.sum() > 0:
+                h_u = self._log_u_bandwidth_at(mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=t)[0]
+                width_u[r] = float(np.sum(held * h_u) / held.sum())
             phasor = value[None, :] * np.exp(-1j * omega[:, None] * t[None, :]) * dt[None, :]  # (F, T)
             total = phasor.sum(axis=1, keepdims=True)
             with np.errstate(invalid="ignore", divide="ignore"):
@@ -490,6 +491,9 @@ class TimeResolvedLookup:
             rows_noise[r] = parts * self.relative_sd(mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=t)[0]
             rows_bias[r] = parts * self.relative_bias(mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=t)[0]
             widths[r] = self.tau_bandwidth_at(mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=t)[0]
+        pair_u = width_u[:, None] ** 2 + width_u[None, :] ** 2
+        corr_u = np.sqrt(2 * width_u[:, None] * width_u[None, :] / pair_u) * np.exp(
+            -((np.log(rho)[:, None] - np.log(rho)[None, :]) ** 2) / (2 * pair_u))
         out = np.zeros((R, 2 * F, R, 2 * F))
         for a in range(R):
             for b in range(a, R):

@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from phantomlab.calibration.identifiability import _bands
-from phantomlab.calibration.td_curves import peak_region, rise_time_ps
+from phantomlab.calibration.td_curves import peak_region
 
 __all__ = ["td_design_warnings", "MIN_PEAK_COUNTS", "MIN_WINDOW_BINS", "DIFFUSION_MIN_TRANSPORT_LENGTHS"]
 
@@ -24,8 +24,13 @@ MIN_WINDOW_BINS = 20
 DIFFUSION_MIN_TRANSPORT_LENGTHS = 5.0
 
 
-def td_design_warnings(measurement, signal, windows, fwhm, family, geometry, thickness, mua, musp, rise) -> list[str]:
-    """Identifiability and model-range checks of a td fit (each message names values and limits)."""
+def td_design_warnings(measurement, signal, windows, fwhm, irf_wider, family, geometry, thickness, mua, musp,
+                       rise) -> list[str]:
+    """Identifiability and model-range checks of a td fit (each message names values and limits).
+
+    ``irf_wider`` (W, R): the curves whose IRF FWHM exceeds their rise from 10 % to the peak
+    (the fit decides it once: it also keeps their lookup error unaveraged).
+    """
     messages = []
     wl = measurement.wavelength_nm
     step = measurement.step_ps
@@ -37,7 +42,7 @@ def td_design_warnings(measurement, signal, windows, fwhm, family, geometry, thi
             n_bins = int(win.sum())
             if n_bins < MIN_WINDOW_BINS or n_bins * step < 3 * fwhm[w, r]:
                 short[w] = True
-            if fwhm[w, r] > rise_time_ps(s, step):
+            if irf_wider[w, r]:
                 wide[w] = True
             if top < MIN_PEAK_COUNTS:
                 low[w] = True
