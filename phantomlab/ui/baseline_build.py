@@ -65,8 +65,7 @@ def page_baseline(*, g: float, n: float, n_outside: float, key: str, offer_rebui
     """
     from phantomlab.calibration.baseline_cache import CachedBaselineError, obtain_baseline, obtain_photon_baseline
 
-    if time_resolved:
-        obtain_baseline = obtain_photon_baseline  # noqa: F811 (the td/fd file)
+    obtain = obtain_photon_baseline if time_resolved else obtain_baseline  # td/fd: the time file
     rebuild = False
     try:
         found = _found(float(g), float(n), float(n_outside), bool(time_resolved), baseline_files(None))
@@ -101,7 +100,7 @@ def page_baseline(*, g: float, n: float, n_outside: float, key: str, offer_rebui
                      text=f"Building the Monte Carlo baseline: {done:,} of {total:,} photons, "
                           f"{time.monotonic() - started:.0f} s")
 
-    built = call_layer("Building the baseline", obtain_baseline, g=g, n=n, n_outside=n_outside, rebuild=rebuild,
+    built = call_layer("Building the baseline", obtain, g=g, n=n, n_outside=n_outside, rebuild=rebuild,
                        progress=progress)
     bar.empty()
     if not built.ok:
