@@ -10,7 +10,9 @@ with g off by ±0.06 or more, and moves their μs′ by one to two SDs.
 When the scatterer's g is known per wavelength (the batch's scattering model), the
 wavelengths are grouped by g rounded to :data:`G_STEP`, each group is fitted with the
 cached baseline of its g, and the groups' results are merged back into one
-:class:`~phantomlab.calibration.fit_result.FitResult` in wavelength order.
+:class:`~phantomlab.calibration.fit_result.FitResult` in wavelength order.  Under a
+spectral constraint the merged free fits are the start of one joint fit whose rows are
+routed to the same baselines (:mod:`phantomlab.calibration.band_lookup`).
 """
 
 from __future__ import annotations
@@ -117,7 +119,7 @@ def g_of_spectrum(measurement) -> np.ndarray:
     return np.interp(wavelength, grid, values)
 
 
-def band_plan(measurement, *, model: str, g_fallback=None, constraint=None, baseline=None) -> dict | None:
+def band_plan(measurement, *, model: str, g_fallback=None, baseline=None) -> dict | None:
     """How the lookup takes a g known per wavelength, or None when it is not.
 
     Parameters
@@ -129,8 +131,9 @@ def band_plan(measurement, *, model: str, g_fallback=None, constraint=None, base
         The fit model (only ``mc`` is fitted per g step).
     g_fallback : (float or array (W,), str), optional
         The batch's g, one or per wavelength, and its origin.
-    constraint, baseline : optional
-        The fit's spectral constraint and explicit baseline.
+    baseline : optional
+        The fit's explicit baseline (a spectral constraint changes nothing here: a
+        constrained band is fitted jointly on the same baselines).
 
     Returns
     -------
@@ -138,8 +141,9 @@ def band_plan(measurement, *, model: str, g_fallback=None, constraint=None, base
         None without a g per wavelength.  Else ``mean`` (the band's mean g), ``origin``, and
         ``steps`` (g per wavelength rounded to :data:`G_STEP`) when the wavelengths are fitted
         in groups: srdr/sfdi lookup with the cached baselines, no g given nor a baseline file,
-        no spectral constraint (it couples the wavelengths: ``why_one`` says so), calibrated
-        data with SDs, and more than one step over the band.
+        calibrated data with SDs, and more than one step over the band.  A spectral
+        constraint couples the wavelengths: the band is then fitted jointly with each group's
+        rows on its own baseline (:mod:`phantomlab.calibration.band_lookup`).
     """
     if measurement.metadata.g_spectrum is not None and measurement.metadata.g is None:
         g_fallback = (g_of_spectrum(measurement), "sidecar")
@@ -154,17 +158,12 @@ def band_plan(measurement, *, model: str, g_fallback=None, constraint=None, base
     if (model != "mc" or measurement.kind not in ("srdr", "sfdi") or measurement.metadata.g is not None
             or baseline is not None or np.unique(steps).size < 2):
         return band
-    if constraint is not None:
-        band["why_one"] = (f"one g for the band although the scattering model's g runs from {g.max():.2f} to "
-                           f"{g.min():.2f}: a spectral constraint couples the wavelengths (without it each is "
-                           "fitted with a baseline near its own g)")
-        return band
     if measurement.scale == "raw" or measurement.sd is None:
         return band
     return {**band, "steps": steps}
 
 
-def lookup_g_values(measurement, *, g_fallback=None, constraint=None) -> list[float]:
+def lookup_g_values(measurement, *, g_fallback=None) -> list[float]:
     """The g of each cached baseline the default lookup fit of ``measurement`` reads (to build them first).
 
     Parameters
@@ -173,8 +172,6 @@ def lookup_g_values(measurement, *, g_fallback=None, constraint=None) -> list[fl
         Read with its sidecar and options.
     g_fallback : (float or array (W,), str), optional
         The batch's g, one or per wavelength (:func:`phantomlab.measurement_workflow.batch_anisotropy`).
-    constraint : optional
-        The spectral constraint the fit will take (it keeps one g for the band).
 
     Returns
     -------
@@ -186,7 +183,7 @@ def lookup_g_values(measurement, *, g_fallback=None, constraint=None) -> list[fl
 
     if measurement.metadata.g is not None:
         return [float(measurement.metadata.g)]
-    band = band_plan(measurement, model="mc", g_fallback=g_fallback, constraint=constraint)
+    band = band_plan(measurement, model="mc", g_fallback=g_fallback)
     if band is None:
         return [float(g_fallback[0])] if g_fallback is not None else [DEFAULT_G]
     if band.get("steps") is None:
@@ -195,7 +192,7 @@ def lookup_g_values(measurement, *, g_fallback=None, constraint=None) -> list[fl
 
 
 def fit_band(measurement, band: dict, *, fit_group, progress=None, rebuild: bool = False,
-             baseline_dir=None) -> FitResult:
+             baseline_dir=None, joint=None) -> FitResult:
     """Fit each group of wavelengths of one g step with its cached baseline, merged in wavelength order.
 
     Parameters
@@ -210,6 +207,11 @@ def fit_band(measurement, band: dict, *, fit_group, progress=None, rebuild: bool
         ``progress(done, total)`` [photons] over all the builds this fit needs (one bar).
     rebuild, baseline_dir
         As for the cache (every baseline is built again with ``rebuild``).
+    joint : callable, optional
+        ``joint(free, baselines) -> FitResult``: the band's spectrally constrained fit, started
+        from the merged free fits ``free`` with ``baselines`` a
+        :class:`~phantomlab.calibration.band_lookup.BandBaselines` (each group's rows with its
+        own baseline); its result replaces the free one.
 
     Returns
     -------
@@ -225,6 +227,12 @@ def fit_band(measurement, band: dict, *, fit_group, progress=None, rebuild: bool
         parts.append(result)
         used.append(inputs)
     result = merge_fits(parts, groups, measurement.wavelength_nm.size)
+    if joint is not None:
+        from phantomlab.calibration.band_lookup import BandBaselines
+
+        result = joint(result, BandBaselines(baselines=tuple(inputs.baseline for inputs in used),
+                                             rows=tuple(index for _, index in groups),
+                                             size=measurement.wavelength_nm.size))
     return _with_band_inputs(result, used, groups, band, measurement)
 
 

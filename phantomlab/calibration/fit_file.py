@@ -75,6 +75,7 @@ def fit_measurement(
     n: float | None = None,
     n_outside: float | None = None,
     g: float | None = None,
+    start: tuple | None = None,
 ) -> FitResult:
     """Fit an already-read :class:`Measurement` with the fit of its kind.
 
@@ -91,6 +92,9 @@ def fit_measurement(
         (e.g. :func:`phantomlab.calibration.observations.stock_constraint`).
     n, n_outside, g : float, optional
         Override the metadata.
+    start : (mua (W,), musp (W,)) [1/mm], optional
+        srdr and sfdi: starting values of the fit (needed with a
+        :class:`~phantomlab.calibration.band_lookup.BandBaselines`).
 
     Returns
     -------
@@ -112,6 +116,8 @@ def fit_measurement(
         return assess_fit(fit_sphere(measurement, n=n, n_outside=n_outside, g=g),
                           sd_parts=("measurement_sd", "sphere_standards") if measurement.sd is not None
                           else ("residual_scatter", "sphere_standards"))
+    if start is not None and kind not in ("srdr", "sfdi"):
+        raise InputError(f"starting values are taken by srdr and sfdi fits only, not {kind}")
     if kind in ("td", "fd") and constraint is not None:
         raise InputError(f"{kind} fits take no spectral constraint (--musp-power-law, --mua-from-stocks); "
                          "each wavelength is fitted on its own")
@@ -132,12 +138,12 @@ def fit_measurement(
         from phantomlab.calibration.fit_srdr import fit_srdr
 
         result = fit_srdr(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline,
-                          constraint=constraint)
+                          constraint=constraint, start=start)
     elif kind == "sfdi":
         from phantomlab.calibration.fit_sfdi import fit_sfdi
 
         result = fit_sfdi(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline,
-                          constraint=constraint)
+                          constraint=constraint, start=start)
     elif kind == "td":
         from phantomlab.calibration.fit_td import fit_td
 
@@ -235,18 +241,30 @@ def fit_measurement_file(path_or_text, *, kind: str, **metadata: Any) -> FitResu
             note = _fallback_note(model, kind, reason)
     from phantomlab.calibration.band_g import band_plan, fit_band
 
-    band = band_plan(measurement, model=model, g_fallback=fit_options["g_fallback"],
-                     constraint=fit_options["constraint"], baseline=fit_options["baseline"])
+    band = band_plan(measurement, model=model, g_fallback=fit_options["g_fallback"], baseline=fit_options["baseline"])
     if band is not None and band.get("steps") is not None:  # one cached baseline per g step
+        # each group is fitted on its own (free); a spectral constraint then fits the band
+        # jointly from there, each group's rows modelled with its own baseline
+        free_options = {**fit_options, "constraint": None}
 
         def fit_group(part, g, progress):
             inputs = _model_inputs(part, sources[0], model=model, metadata=metadata,
-                                   fit_options={**fit_options, "g_fallback": (g, band["origin"]), "progress": progress})
-            result, extra = _run(part, model, inputs, fit_options)
+                                   fit_options={**free_options, "g_fallback": (g, band["origin"]), "progress": progress})
+            result, extra = _run(part, model, inputs, free_options)
             return result.with_warnings(extra), inputs
 
+        def joint_fit(free, baselines):
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always", PhantomlabWarning)
+                result = fit_measurement(measurement, model=model, baseline=baselines,
+                                         constraint=fit_options["constraint"],
+                                         start=(free.mua_per_mm, free.musp_per_mm))
+            return result.with_warnings([" ".join(str(w.message).split()) for w in caught
+                                         if issubclass(w.category, PhantomlabWarning)])
+
         result = fit_band(measurement, band, fit_group=fit_group, progress=fit_options["progress"],
-                          rebuild=bool(fit_options["rebuild"]), baseline_dir=fit_options["baseline_dir"])
+                          rebuild=bool(fit_options["rebuild"]), baseline_dir=fit_options["baseline_dir"],
+                          joint=joint_fit if fit_options["constraint"] is not None else None)
         for message in result.warnings:
             warnings.warn(message, PhantomlabWarning, stacklevel=2)
         return result
@@ -273,9 +291,6 @@ def fit_measurement_file(path_or_text, *, kind: str, **metadata: Any) -> FitResu
                 + ("distance and the whole fit window" if kind == "td" else "distance's whole curve")
                 + " within its baseline's reach)")
     result = _with_inputs(result, inputs, measurement).with_warnings(extra)
-    if band is not None and band.get("why_one") and result.extras.get("g_note"):
-        result = replace(result, extras={**dict(result.extras),
-                                         "g_note": f"{result.extras['g_note']}; {band['why_one']}"})
     if note is not None:
         result = replace(result, extras={**dict(result.extras), "model_note": note})
     for message in result.warnings:

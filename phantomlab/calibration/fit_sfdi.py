@@ -19,6 +19,7 @@ from dataclasses import replace
 import numpy as np
 from scipy.special import j0
 
+from phantomlab.calibration.band_lookup import BandBaselines, routed_forward
 from phantomlab.calibration.fit_srdr import (
     _finish,
     baseline_absorption_floor,
@@ -65,6 +66,9 @@ def hankel_sfdi_from_srdr(*, srdr_per_mm2: np.ndarray, rho_mm: np.ndarray, fx_pe
 def sfdi_forward(*, model: str, fx_per_mm, n: float, n_outside: float = 1.0, baseline=None):
     """The forward model R(fx) as ``forward(mua (N,), musp (N,)) -> (N, F)``."""
     fx = np.asarray(fx_per_mm, float)
+    if model == "mc" and isinstance(baseline, BandBaselines):  # one baseline per g step, rows routed
+        return routed_forward([sfdi_forward(model=model, fx_per_mm=fx, n=n, n_outside=n_outside, baseline=part)
+                               for part in baseline.baselines], baseline)
     if model == "mc":
         if baseline is None:
             raise InputError("sfdi model 'mc' needs a Monte Carlo baseline (--baseline FILE)")
@@ -116,6 +120,7 @@ def fit_sfdi(
     n_outside: float | None = None,
     baseline=None,
     constraint: SpectralConstraint | None = None,
+    start: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> FitResult:
     """Fit μa and μs′ to spatial-frequency-domain reflectance at two or more frequencies.
 
@@ -125,9 +130,13 @@ def fit_sfdi(
         ``kind='sfdi'``, absolute (calibrated) diffuse reflectance.
     model : {'cuccia2009', 'mc'}
     n, n_outside : float, optional
-    baseline : Baseline, optional
-        For ``model='mc'``.
+    baseline : Baseline or BandBaselines, optional
+        For ``model='mc'``; a :class:`~phantomlab.calibration.band_lookup.BandBaselines`
+        (one baseline per group of wavelengths) needs ``start``.
     constraint : SpectralConstraint, optional
+    start : (mua (W,), musp (W,)) [1/mm], optional
+        Starting values (else a grid search and, with a constraint, the free fit of each
+        wavelength first).
 
     Returns
     -------
@@ -148,11 +157,13 @@ def fit_sfdi(
     n_outside = meta.n_outside if n_outside is None else n_outside
     fx = measurement.axis
     forward = sfdi_forward(model=model, fx_per_mm=fx, n=n, n_outside=n_outside, baseline=baseline)
+    if isinstance(baseline, BandBaselines) and start is None:
+        raise InputError("a fit with one baseline per group of wavelengths needs starting values")
     messages = sfdi_design_warnings(fx_per_mm=fx)
     label = "mc-lookup" if model == "mc" else "diffusion-cuccia2009"
     result, correlation = fit_spectrum(
         forward, kind="sfdi", model=label, wavelength_nm=measurement.wavelength_nm,
-        data=measurement.values, sd=measurement.sd, relative=False, constraint=constraint)
+        data=measurement.values, sd=measurement.sd, relative=False, constraint=constraint, start=start)
     if model == "mc":
         result, correlation, reach = _sfdi_within_lookup_reach(forward, result, correlation, measurement, constraint)
         messages += reach

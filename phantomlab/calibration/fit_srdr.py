@@ -32,6 +32,7 @@ from dataclasses import replace
 
 import numpy as np
 
+from phantomlab.calibration.band_lookup import BandBaselines, routed_forward
 from phantomlab.calibration.fit_result import FitResult
 from phantomlab.calibration.identifiability import _bands, outcome_warnings, srdr_design_warnings
 from phantomlab.calibration.model_error import diffusion_error_warnings, diffusion_fit_error
@@ -108,12 +109,16 @@ def check_baseline_indices(baseline, *, n: float, n_outside: float) -> None:
             f"(phantomlab baseline build OUT.npz --g G --n {float(n):g} --n-outside {float(n_outside):g})")
 
 
-def baseline_absorption_floor(baseline) -> float:
-    """Smallest μa/μs a baseline answers for (its μa_ref/μs_ref), with a hair of margin."""
+def baseline_absorption_floor(baseline):
+    """Smallest μa/μs a baseline answers for (its μa_ref/μs_ref), with a hair of margin.
+
+    A float; per wavelength, (W,), for a :class:`~phantomlab.calibration.band_lookup.BandBaselines`.
+    """
     ratio = getattr(baseline, "minimum_absorption_ratio", None)
     if ratio is None:
         ratio = float(baseline.mua_per_mm) / float(baseline.mus_per_mm)
-    return float(ratio) * (1.0 + 1e-7)
+    ratio = np.asarray(ratio, float) * (1.0 + 1e-7)
+    return float(ratio) if ratio.ndim == 0 else ratio
 
 
 def srdr_forward(*, model: str, rho_mm, n: float, n_outside: float = 1.0, baseline=None, detector: str = "point",
@@ -128,8 +133,10 @@ def srdr_forward(*, model: str, rho_mm, n: float, n_outside: float = 1.0, baseli
     model : {'farrell1992', 'kienle1997', 'mc'}
     rho_mm : array (R,) [mm]
     n, n_outside : float
-    baseline : Baseline, optional
-        Needed for ``mc``.
+    baseline : Baseline or BandBaselines, optional
+        Needed for ``mc``; a :class:`~phantomlab.calibration.band_lookup.BandBaselines`
+        models each group of wavelengths with its own baseline (the model then answers for
+        the whole band at once).
     detector : {'point', 'ring', 'fibre'}
         How each distance is sampled (the sidecar's ``detector``, see
         :data:`phantomlab.calibration.measurements.DETECTORS`): the lookup's point value at ρ
@@ -138,6 +145,10 @@ def srdr_forward(*, model: str, rho_mm, n: float, n_outside: float = 1.0, baseli
         ``fibre_core_mm`` [mm] centred at ρ.  The diffusion models are always point values.
     """
     rho = np.asarray(rho_mm, float)
+    if model == "mc" and isinstance(baseline, BandBaselines):  # one baseline per g step, rows routed
+        return routed_forward([srdr_forward(model=model, rho_mm=rho, n=n, n_outside=n_outside, baseline=part,
+                                            detector=detector, fibre_core_mm=fibre_core_mm)
+                               for part in baseline.baselines], baseline)
     if model == "mc":
         if baseline is None:
             raise InputError("srdr model 'mc' needs a Monte Carlo baseline (--baseline FILE)")
@@ -214,6 +225,7 @@ def fit_srdr(
     baseline=None,
     constraint: SpectralConstraint | None = None,
     min_transport_mfp: float = DIFFUSION_MIN_TRANSPORT_MFP,
+    start: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> FitResult:
     """Fit μa and μs′ to a spatially resolved reflectance measurement.
 
@@ -226,8 +238,10 @@ def fit_srdr(
     model : {'kienle1997', 'farrell1992', 'mc'}, default 'kienle1997' (fluence + flux: within a few % of Monte Carlo at a mismatched surface, where the flux-only farrell1992 is 8-21 % low)
     n, n_outside : float, optional
         Phantom and outside refractive index (default: the measurement's metadata).
-    baseline : Baseline, optional
-        Monte Carlo baseline for ``model='mc'``.
+    baseline : Baseline or BandBaselines, optional
+        Monte Carlo baseline for ``model='mc'``; a
+        :class:`~phantomlab.calibration.band_lookup.BandBaselines` (one baseline per group
+        of wavelengths) needs ``start``.
     constraint : SpectralConstraint, optional
         Joint fit across the band (power-law μs′, μa from stock spectra).
     min_transport_mfp : float
@@ -235,6 +249,9 @@ def fit_srdr(
         :data:`DIFFUSION_MIN_TRANSPORT_MFP` = 2; 0 keeps every distance).  The distances are
         chosen with the fitted μt′ and re-chosen after each refit until they settle; where
         fewer than 3 (relative data: 4) distances would be left, all stay and the fit warns.
+    start : (mua (W,), musp (W,)) [1/mm], optional
+        Starting values (else a grid search and, with a constraint, the free fit of each
+        wavelength first).
 
     Returns
     -------
@@ -270,7 +287,9 @@ def fit_srdr(
                                   mua_per_mm=np.zeros(1), musp_per_mm=np.full(1, np.inf),
                                   relative=relative)
     design = [m for m in design if m.startswith("too few")]
-    result, correlation = fit_spectrum(forward, **kwargs)
+    if isinstance(baseline, BandBaselines) and start is None:
+        raise InputError("a fit with one baseline per group of wavelengths needs starting values")
+    result, correlation = fit_spectrum(forward, start=start, **kwargs)
     messages = list(design)
     final_mask = None
     if model == "mc":
@@ -324,11 +343,12 @@ def fit_srdr(
         result = replace(result, model_covariance=error.covariance)
     else:
         messages += model_range_warnings(forward, result)
-        floor = baseline_absorption_floor(baseline) * result.musp_per_mm / (1.0 - baseline_anisotropy(baseline))
+        lowest = baseline_absorption_floor(baseline)
+        floor = lowest * result.musp_per_mm / (1.0 - forward.lookup.g)
         pinned = result.mua_per_mm <= floor * 1.01
         if np.any(pinned):
             messages.append(
-                f"fitted mua reached the baseline's lowest mua/mus ({baseline_absorption_floor(baseline):.3g}) at "
+                f"fitted mua reached the baseline's lowest mua/mus ({float(np.max(lowest)):.3g}) at "
                 f"{int(pinned.sum())} wavelengths; the true mua may be lower: build a baseline with a "
                 f"smaller reference mua")
     messages += outcome_warnings(
@@ -388,7 +408,7 @@ def _fit_within_lookup_reach(forward, result, correlation, measurement: Measurem
             raise InputError(
                 f"the Monte Carlo baseline serves fewer than {fewest} of the distances at "
                 f"{_bands(measurement.wavelength_nm, short)} (the lookup's photons reach "
-                f"{float(np.min(lookup.served_limit_mm(mua_per_mm=mua[short], mus_per_mm=mus[short]))):.3g} mm at "
+                f"{float(np.min(lookup.served_limit_mm(mua_per_mm=mua, mus_per_mm=mus)[short])):.3g} mm at "
                 f"the fitted optics); measure nearer the source or build a baseline with more photons")
         if measurement.sd is not None:
             # the lookup's own photon noise is an uncertainty of the model: add it to the data's SDs

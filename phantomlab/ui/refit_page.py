@@ -349,7 +349,7 @@ def _fit_section(workspace: Workspace, store) -> None:
 
             g_fallback = (list(spectrum[0]), spectrum[1])
             chosen = call_layer("Choosing the Monte Carlo baselines", lookup_g_values, measurement,
-                                g_fallback=g_fallback, constraint=True if power_law else None, show=False)
+                                g_fallback=g_fallback, show=False)
             values = chosen.value if chosen.ok else values
         for k, value in enumerate(values):
             cached = page_baseline(g=value, n=float(n), n_outside=float(sidecar.get("n_outside", 1.0)),
