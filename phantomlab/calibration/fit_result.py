@@ -13,7 +13,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-__all__ = ["FitResult"]
+__all__ = ["FitResult", "parameter_line"]
 
 
 @dataclass(frozen=True)
@@ -134,3 +134,29 @@ class FitResult:
             if message not in merged:
                 merged.append(message)
         return replace(self, warnings=tuple(merged))
+
+    def parameter_lines(self) -> list[str]:
+        """One readable line per fitted extra parameter (``parameters`` but g, shown with the table)."""
+        return [parameter_line(name, value) for name, value in self.parameters.items() if name != "g"]
+
+
+def parameter_line(name: str, value) -> str:
+    """One readable line for an extra parameter of a fit (the JSON keeps the raw object).
+
+    ``musp_power_law`` (a, b with SDs and λ₀), ``amount_KEY`` (a stock's amount: volume
+    fraction × potency), any ``{value, sd}``, and plain numbers.
+    """
+
+    def plus_minus(v, sd, fmt=".4g"):
+        return f"{v:{fmt}}" + (f" ± {sd:.2g}" if sd is not None and np.isfinite(sd) else "")
+
+    if name == "musp_power_law" and isinstance(value, Mapping):
+        return (f"musp power law: musp = a (lambda / {value['reference_nm']:g} nm)^-b with "
+                f"a = {plus_minus(value['a_per_mm'], value['a_sd_per_mm'])} /mm, b = {plus_minus(value['b'], value['b_sd'])}")
+    if name.startswith("amount_") and isinstance(value, Mapping):
+        return f"amount of {name[len('amount_'):]} (volume fraction x potency): {plus_minus(value['value'], value['sd'])}"
+    if isinstance(value, Mapping) and "value" in value:
+        return f"{name}: {plus_minus(value['value'], value.get('sd'))}"
+    if isinstance(value, float):
+        return f"{name}: {value:.4g}"
+    return f"{name}: {value}"

@@ -135,9 +135,7 @@ def _table(result) -> str:
         lines.append(f"lost light corrected by Monte Carlo ({result.extras['lost_light_rounds']} rounds): "
                      f"{100 * lost_r.min():.1f} to {100 * lost_r.max():.1f} % of the diffuse reflectance, "
                      f"{100 * lost_t.min():.1f} to {100 * lost_t.max():.1f} % of the diffuse transmittance")
-    for name, value in result.parameters.items():
-        if name != "g":
-            lines.append(f"{name}: {value}")
+    lines += result.parameter_lines()
     if result.kind == "sphere":
         from phantomlab.recipe.cautions import CHARACTERISATION_CAUTION, CLOSING_LINE, SPHERE_COATING_CAUTION
 

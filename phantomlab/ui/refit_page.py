@@ -377,6 +377,9 @@ def _fit_section(workspace: Workspace, store) -> None:
     result = fitted.value
     chi2 = f"{result.chi2_red:.3g}" if np.isfinite(result.chi2_red) else "– (no degrees of freedom)"
     st.markdown(f"Model **{result.model}** · reduced χ² **{chi2}** · {result.wavelength_nm.size} wavelength(s)")
+    for line in result.parameter_lines():
+        if line.startswith(("musp power law", "amount of")):
+            st.markdown(plain(line.replace("musp", "μs′").replace("lambda", "λ")))
     show_fit_quality(result)
     show_warnings(result.warnings)
     from phantomlab.ui.baseline_build import describe_inputs

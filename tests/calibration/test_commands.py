@@ -7,6 +7,7 @@ temporary SQLite file, in the simulated lab of conftest.py (demo data, invented)
 """
 
 import json
+import re
 
 import numpy as np
 import pytest
@@ -46,7 +47,10 @@ def test_fit_readable_output_and_power_law(lab, tmp_path, capsys):
     path.write_text(lab["measure"](recipe, {"lipid20": 0.04, "ink_black": 3e-5, "dye_nir": 2e-5}, truth, seed=3))
     code, out, err = _run(capsys, ["fit", str(path), "--kind", "srdr", "--n", "1.33", "--musp-power-law"])
     assert code == 0, err
-    assert "musp_power_law" in out and "reduced chi2" in out
+    assert "reduced chi2" in out
+    law = next(line for line in out.splitlines() if line.startswith("musp power law:"))
+    # one readable line: a and b with their SDs, no Python reprs
+    assert re.search(r"a = [0-9.]+ ± [0-9.e-]+ /mm, b = [0-9.]+ ± [0-9.e-]+$", law) and "np." not in out, law
 
 
 @pytest.mark.parametrize("content, words", [

@@ -134,6 +134,15 @@ def test_the_lookup_fits_with_g_per_wavelength_and_the_page_says_what_it_used(re
     assert "Data and fitted model" in _titles(refit)  # drawn with each wavelength's baseline
 
 
+def test_a_power_law_fit_shows_a_and_b_and_keeps_a_baseline_per_g_step(refit):
+    refit.checkbox(key="refit.power_law").check().run()
+    assert not refit.exception
+    law = [m.value for m in refit.markdown if "power law" in m.value]
+    assert law and "a =" in law[0] and "b =" in law[0] and "±" in law[0], law
+    used = [c.value for c in refit.caption if c.value.startswith("Used: ")][0]
+    assert "g = 0.64 to 0.52 per wavelength (batch)" in used  # the joint fit keeps each wavelength's g
+
+
 @pytest.mark.builds_baseline
 def test_a_missing_baseline_is_built_with_a_progress_indicator_and_used(refit, tmp_path, monkeypatch):
     from phantomlab.calibration import baseline_cache
