@@ -448,7 +448,7 @@ def _range_warnings(measurement, model, mua, musp) -> list[str]:
             messages.append(f"distance short for diffusion at {_bands(wl, near)}: rho*musp = {np.nanmin(lengths):.3g} "
                             f"transport lengths, wanted >= {DIFFUSION_MIN_TRANSPORT_LENGTHS:g}; use the Monte Carlo "
                             "lookup (model mc)")
-        from phantomlab.transport.diffusion import MIN_MUSP_TO_MUA_RATIO
+        from phantomlab.transport.diffusion_validity import MIN_MUSP_TO_MUA_RATIO
 
         with np.errstate(divide="ignore", invalid="ignore"):
             ratio = musp / mua

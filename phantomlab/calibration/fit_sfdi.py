@@ -2,8 +2,8 @@
 
 Forward models:
 
-* ``cuccia2009``: the diffusion model of Cuccia et al. 2009 (``phantomlab.transport.diffusion.
-  sfdi_reflectance``);
+* ``cuccia2009``: the diffusion model of Cuccia et al. 2009
+  (``phantomlab.transport.spatial_frequency_domain.sfdi_reflectance``);
 * ``mc``: a Monte Carlo lookup from a stored baseline: the baseline's R(ρ) (re-weighted and
   scaled to the trial μa, μs) is Hankel-transformed,
   R(fx) = 2π ∫₀^∞ R(ρ) J₀(2π fx ρ) ρ dρ (Cuccia et al. 2009, eq. 8; the planar pattern
@@ -103,7 +103,7 @@ def sfdi_forward(*, model: str, fx_per_mm, n: float, n_outside: float = 1.0, bas
         return forward
     if model not in SFDI_FIT_MODELS:
         raise InputError(f"unknown sfdi fit model {model!r}; accepted: {', '.join(SFDI_FIT_MODELS)}")
-    from phantomlab.transport.diffusion import sfdi_reflectance
+    from phantomlab.transport.spatial_frequency_domain import sfdi_reflectance
 
     def forward(mua, musp):
         return sfdi_reflectance(mua_per_mm=np.asarray(mua, float), musp_per_mm=np.asarray(musp, float),

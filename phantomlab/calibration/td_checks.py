@@ -80,7 +80,7 @@ def td_design_warnings(measurement, signal, windows, fwhm, irf_wider, family, ge
                             "diffusion is poor, are in the fit")
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = musp / mua
-    from phantomlab.transport.diffusion import MIN_MUSP_TO_MUA_RATIO
+    from phantomlab.transport.diffusion_validity import MIN_MUSP_TO_MUA_RATIO
 
     if family == "diffusion" and np.any(ratio < MIN_MUSP_TO_MUA_RATIO):
         messages.append(f"diffusion is poor unless musp >> mua: musp/mua = {np.nanmin(ratio):.3g} at "

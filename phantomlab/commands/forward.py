@@ -164,7 +164,7 @@ def handle(args: argparse.Namespace) -> CommandResult:
 
 
 def _diffusion(args, model: str) -> CommandResult:
-    from phantomlab.transport import diffusion
+    from phantomlab.transport import diffusion, spatial_frequency_domain
 
     scattering, which, g = scattering_option(args)
     if which == "mus" and g is None:
@@ -205,7 +205,7 @@ def _diffusion(args, model: str) -> CommandResult:
         fx = option_list(args.fx_per_mm, "--fx-per-mm")
         check_limit("forward_points", count * fx.size, given=f"{count} entries x {fx.size} frequencies")
         boundary = args.boundary or "groenhuis1983"
-        values = diffusion.sfdi_reflectance(fx_per_mm=fx, boundary=boundary, model=model, **common)
+        values = spatial_frequency_domain.sfdi_reflectance(fx_per_mm=fx, boundary=boundary, model=model, **common)
         payload.update(boundary=boundary, fx_per_mm=fx, reflectance=np.reshape(values, (count, fx.size)))
         text = grid_table("fx_per_mm", fx, "R [-]", payload["reflectance"], payload)
         text += f"\n(R {REFLECTANCE_CONVENTION})"

@@ -1,22 +1,23 @@
-"""Diffusion-approximation reflectance of a semi-infinite turbid medium (layer 2).
+"""Steady-state diffusion reflectance of a semi-infinite turbid medium under a pencil beam (layer 2).
 
-Three measurements, one physical picture: a pencil beam (or a sinusoidal pattern) falls
-normally on a homogeneous half-space of absorption μa and reduced scattering μs′ with
-refractive index ``n`` under a medium of index ``n_outside``; the first reduced
-interaction at depth z0 = 1/μt′ (μt′ = μa + μs′) is an isotropic source of strength
+A pencil beam falls normally on a homogeneous half-space of absorption μa and reduced
+scattering μs′ with refractive index ``n`` under a medium of index ``n_outside``; the first
+reduced interaction at depth z0 = 1/μt′ (μt′ = μa + μs′) is an isotropic source of strength
 a′ = μs′/μt′; the index mismatch enters through the extrapolated boundary z_b = 2 A D
 (D = 1/(3 μt′)), with A from :mod:`phantomlab.transport.boundary`.
 
 * :func:`srdr_reflectance` — spatially resolved reflectance R(ρ) [1/mm²], models in
   :data:`SRDR_MODELS`: ``farrell1992`` (the flux, Farrell, Patterson & Wilson 1992) and
   ``kienle1997`` (fluence plus flux, Kienle & Patterson 1997);
-* :func:`total_diffuse_reflectance` — R(ρ) integrated over the surface, in closed form;
-* :func:`sfdi_reflectance` — diffuse reflectance of a pattern of spatial frequency fx
-  (Cuccia et al. 2009).
+* :func:`total_diffuse_reflectance` — R(ρ) integrated over the surface, in closed form.
+
+The same half-space under a sinusoidal pattern is
+:mod:`phantomlab.transport.spatial_frequency_domain`; the μs′ ≫ μa condition every diffusion
+model shares is :mod:`phantomlab.transport.diffusion_validity`.
 
 All are vectorised: per-wavelength inputs (``mua_per_mm``, ``musp_per_mm``, ``n``,
-``n_outside``) broadcast to one shape S (usually (W,)); a grid ``rho_mm`` or ``fx_per_mm``
-of shape G gives a result of shape S + G, e.g. (W,) × (R,) → (W, R).
+``n_outside``) broadcast to one shape S (usually (W,)); a grid ``rho_mm`` of shape G gives a
+result of shape S + G, e.g. (W,) × (R,) → (W, R).
 
 **Convention (the project's, DEVELOPERS.md "Reflectance conventions").**  Every
 reflectance returned here is per unit power *incident* on the surface, the specular
@@ -38,8 +39,6 @@ References
 ----------
 Farrell TJ, Patterson MS, Wilson B 1992, Med Phys 19:879–888, doi:10.1118/1.596777.
 Kienle A, Patterson MS 1997, J Opt Soc Am A 14:246–254, doi:10.1364/JOSAA.14.000246.
-Cuccia DJ, Bevilacqua F, Durkin AJ, Ayers FR, Tromberg BJ 2009, J Biomed Opt 14:024012,
-doi:10.1117/1.3088140.
 """
 
 from __future__ import annotations
@@ -62,9 +61,9 @@ from phantomlab.transport.arguments import (
 from phantomlab.transport.boundary import (
     beam_entry_transmission,
     boundary_coefficient,
-    effective_reflection_coefficient,
     fluence_flux_coefficients_Kienle1997,
 )
+from phantomlab.transport.diffusion_validity import warn_scattering_dominance
 
 __all__ = [
     "SRDR_MODELS",
@@ -73,16 +72,8 @@ __all__ = [
     "srdr_diffusion_Farrell1992",
     "srdr_diffusion_Kienle1997",
     "total_diffuse_reflectance",
-    "SFDI_MODELS",
-    "sfdi_reflectance",
-    "sfdi_diffusion_Cuccia2009",
-    "MIN_MUSP_TO_MUA_RATIO",
     "FLUX_ONLY_MAX_INDEX_MISMATCH",
 ]
-
-#: Below this μs′/μa the diffusion approximation is flagged as poor.
-#: common practice, no source (diffusion texts ask for μs′ ≫ μa; a factor 10 is the usual line)
-MIN_MUSP_TO_MUA_RATIO = 10.0
 
 #: ``farrell1992`` (flux only) is poor for R(ρ) when the relative index n/n_outside is further
 #: than this from 1: at 1.1 it already reads 8 % below ``kienle1997`` at 3 transport lengths,
@@ -141,25 +132,6 @@ def _surface(n: np.ndarray, n_outside: np.ndarray, boundary: str) -> tuple[np.nd
     return a_coef, np.asarray(c1), np.asarray(c2), entry
 
 
-@lru_cache(maxsize=256)
-def _sfdi_surface_of_pair(n: float, n_outside: float, boundary: str) -> tuple[float, float]:
-    """R_eff and the entry transmission T of one (n, n_outside) surface (computed once)."""
-    r_eff = float(effective_reflection_coefficient(n=n, n_outside=n_outside, method=boundary))
-    return r_eff, float(beam_entry_transmission(n=n, n_outside=n_outside))
-
-
-def _sfdi_surface(n: np.ndarray, n_outside: np.ndarray, boundary: str) -> tuple[np.ndarray, np.ndarray]:
-    """R_eff and T over arrays of indices of one shape (one pair computed once, as :func:`_surface`)."""
-    first_n, first_out = n.flat[0] if n.size else np.nan, n_outside.flat[0] if n_outside.size else np.nan
-    single = (n.size > 0 and np.isfinite(first_n) and np.isfinite(first_out) and first_n >= first_out
-              and bool(np.all(n == first_n)) and bool(np.all(n_outside == first_out)))
-    if single:
-        return tuple(np.full(n.shape, value)
-                     for value in _sfdi_surface_of_pair(float(first_n), float(first_out), boundary))
-    r_eff = np.asarray(effective_reflection_coefficient(n=n, n_outside=n_outside, method=boundary))
-    return r_eff, np.asarray(beam_entry_transmission(n=n, n_outside=n_outside))
-
-
 def _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary: str) -> _Medium:
     mua = as_coefficient(mua_per_mm, "mua_per_mm")
     musp = as_coefficient(musp_per_mm, "musp_per_mm", strictly_positive=True)
@@ -169,7 +141,7 @@ def _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary: str) -> _Medium:
         mua_per_mm=mua, musp_per_mm=musp, n=n, n_outside=n_outside
     )
     a_coef, c1, c2, entry = _surface(n, n_outside, boundary)
-    _warn_scattering_dominance(mua, musp)
+    warn_scattering_dominance(mua, musp)
     mutp = mua + musp
     d = 1.0 / (3.0 * mutp)
     return _Medium(
@@ -187,19 +159,6 @@ def _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary: str) -> _Medium:
         c1=c1,
         c2=c2,
     )
-
-
-def _warn_scattering_dominance(mua: np.ndarray, musp: np.ndarray) -> None:
-    with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = np.where(mua > 0, musp / mua, np.inf)
-    finite = ratio[np.isfinite(ratio)]
-    if finite.size and finite.min() < MIN_MUSP_TO_MUA_RATIO:
-        warnings.warn(
-            f"diffusion is poor unless musp >> mua: musp/mua = {finite.min():.3g} here,"
-            f" wanted >= {MIN_MUSP_TO_MUA_RATIO:g}",
-            PhantomlabWarning,
-            stacklevel=4,
-        )
 
 
 def _warn_close_to_source(rho: np.ndarray, medium: _Medium) -> None:
@@ -458,114 +417,3 @@ def total_diffuse_reflectance(
         value = medium.c1 * fluence_total + medium.c2 * flux_total
     value = np.asarray(medium.entry * value)
     return value[()] if value.ndim == 0 else value
-
-
-def sfdi_diffusion_Cuccia2009(
-    *, mua_per_mm, musp_per_mm, fx_per_mm, n, n_outside=1.0, boundary="groenhuis1983"
-):
-    """Diffuse reflectance of a sinusoidal illumination pattern of spatial frequency fx.
-
-    R(fx) = T · 3A a′ / ((μeff′/μtr + 1)(μeff′/μtr + 3A)), μeff′ = √(μeff² + (2π fx)²),
-    μtr = μa + μs′, a′ = μs′/μtr, with the paper's own boundary convention
-    A = (1 − R_eff) / (2 (1 + R_eff)) (not the A of the extrapolated boundary).  The fraction
-    is the paper's R_d (per unit power that entered); T = 1 − R_sp, the Fresnel
-    transmission of the normally incident light, makes it per unit incident power (the
-    project's convention, as the Monte Carlo lookup of the sfdi fit).
-
-    Parameters
-    ----------
-    mua_per_mm : float or array (S) [1/mm]
-    musp_per_mm : float or array (S) [1/mm]
-    fx_per_mm : float or array (G) [1/mm]
-        Spatial frequencies of the pattern (>= 0).
-    n, n_outside : float or array (S) [dimensionless]
-    boundary : str
-        Method for R_eff; the paper used the Groenhuis-type polynomial.
-
-    Returns
-    -------
-    ndarray (S + G) [dimensionless]
-        Per unit incident power: T = 1 − R_sp for μa = 0 at fx = 0 (1 per light that
-        entered, Cuccia et al.'s limit; 1 when matched); → 0 as fx → ∞.
-
-    References
-    ----------
-    Cuccia et al. 2009, J Biomed Opt 14:024012 (diffuse reflectance R_d(k), k = 2π fx).
-    """
-    mua = as_coefficient(mua_per_mm, "mua_per_mm")
-    musp = as_coefficient(musp_per_mm, "musp_per_mm", strictly_positive=True)
-    n_arr = as_index(n, "n")
-    n_out = as_index(n_outside, "n_outside")
-    mua, musp, n_arr, n_out = as_spectral(
-        mua_per_mm=mua, musp_per_mm=musp, n=n_arr, n_outside=n_out
-    )
-    fx = as_length_grid(fx_per_mm, "fx_per_mm", "1/mm")
-    _warn_scattering_dominance(mua, musp)
-    r_eff, entry = _sfdi_surface(n_arr, n_out, boundary)
-    a_cuccia = (1.0 - r_eff) / (2.0 * (1.0 + r_eff))  # Cuccia et al. 2009, their A
-    mutr = mua + musp
-    high = fx[np.isfinite(fx)]
-    limit = mutr[np.isfinite(mutr)]
-    if high.size and limit.size and 2.0 * np.pi * high.max() > limit.min():
-        warnings.warn(
-            f"diffusion R(fx) is poor when the pattern is finer than a transport mean free path:"
-            f" fx_per_mm = {high.max():.3g} > (mua+musp)/(2 pi) = {limit.min() / (2 * np.pi):.3g} /mm",
-            PhantomlabWarning,
-            stacklevel=3,
-        )
-    extra = (None,) * fx.ndim
-    k = 2.0 * np.pi * fx[(None,) * mua.ndim + (Ellipsis,)]
-    mutr_g = mutr[(Ellipsis,) + extra]
-    a_g = a_cuccia[(Ellipsis,) + extra]
-    albedo = (musp / mutr)[(Ellipsis,) + extra]
-    mueff2 = (3.0 * mua * mutr)[(Ellipsis,) + extra]
-    ratio = np.sqrt(mueff2 + k * k) / mutr_g
-    entry = entry[(Ellipsis,) + extra]
-    value = entry * 3.0 * a_g * albedo / ((ratio + 1.0) * (ratio + 3.0 * a_g))
-    return value[()] if value.ndim == 0 else value
-
-
-#: Registry of spatial-frequency-domain reflectance models (name → function).
-SFDI_MODELS: dict[str, Callable] = {"cuccia2009": sfdi_diffusion_Cuccia2009}
-
-
-def sfdi_reflectance(
-    *,
-    mua_per_mm,
-    musp_per_mm,
-    fx_per_mm,
-    n,
-    n_outside=1.0,
-    boundary="groenhuis1983",
-    model="cuccia2009",
-):
-    """Spatial-frequency-domain diffuse reflectance R(fx) by a named model.
-
-    Parameters
-    ----------
-    mua_per_mm, musp_per_mm : float or array (S) [1/mm]
-    fx_per_mm : float or array (G) [1/mm]
-    n, n_outside : float or array (S) [dimensionless]
-    boundary : {'groenhuis1983', 'haskell1994'}
-        Method for the effective reflection coefficient R_eff.
-    model : {'cuccia2009'}
-        See :data:`SFDI_MODELS`; an unknown name is refused with the valid list.
-
-    Returns
-    -------
-    ndarray (S + G) [dimensionless]
-        Per unit incident power (the project's convention; see the module docstring).
-
-    References
-    ----------
-    Cuccia et al. 2009, J Biomed Opt 14:024012.
-    """
-    function = choose(SFDI_MODELS, model, "sfdi model")
-    return function(
-        mua_per_mm=mua_per_mm,
-        musp_per_mm=musp_per_mm,
-        fx_per_mm=fx_per_mm,
-        n=n,
-        n_outside=n_outside,
-        boundary=boundary,
-    )

@@ -203,7 +203,8 @@ def compute_maps(tallies) -> dict:
     import warnings
 
     from phantomlab.errors import PhantomlabWarning
-    from phantomlab.transport.diffusion import sfdi_reflectance, srdr_reflectance
+    from phantomlab.transport.diffusion import srdr_reflectance
+    from phantomlab.transport.spatial_frequency_domain import sfdi_reflectance
 
     edges = np.asarray(tallies["rho_edges_musp"], float)
     centres = 0.5 * (edges[1:] + edges[:-1])

@@ -49,7 +49,8 @@ from phantomlab.transport.boundary import (
     boundary_coefficient,
     fluence_flux_coefficients_Kienle1997,
 )
-from phantomlab.transport.time_domain import SPEED_OF_LIGHT_MM_PER_PS, _warn_scattering_dominance
+from phantomlab.transport.diffusion_validity import warn_scattering_dominance
+from phantomlab.transport.time_domain import SPEED_OF_LIGHT_MM_PER_PS
 
 __all__ = [
     "FD_MODELS",
@@ -76,7 +77,7 @@ def _terms(mua_per_mm, musp_per_mm, rho_mm, frequency_mhz, n, n_outside, boundar
     n_arr = as_index(n, "n")
     n_out = as_index(n_outside, "n_outside")
     mua, musp, n_arr, n_out = as_spectral(mua_per_mm=mua, musp_per_mm=musp, n=n_arr, n_outside=n_out)
-    _warn_scattering_dominance(mua, musp)
+    warn_scattering_dominance(mua, musp, stacklevel=3)
     rho = as_length_grid(rho_mm, "rho_mm")
     freq = as_length_grid(frequency_mhz, "frequency_mhz", "MHz")
     try:

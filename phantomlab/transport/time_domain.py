@@ -71,6 +71,7 @@ from phantomlab.transport.boundary import (
     boundary_coefficient,
     fluence_flux_coefficients_Kienle1997,
 )
+from phantomlab.transport.diffusion_validity import warn_scattering_dominance
 
 __all__ = [
     "SPEED_OF_LIGHT_MM_PER_PS",
@@ -127,7 +128,7 @@ def _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary, *, d_with_mua: bool
     n_arr = as_index(n, "n")
     n_out = as_index(n_outside, "n_outside")
     mua, musp, n_arr, n_out = as_spectral(mua_per_mm=mua, musp_per_mm=musp, n=n_arr, n_outside=n_out)
-    _warn_scattering_dominance(mua, musp)
+    warn_scattering_dominance(mua, musp, stacklevel=3)
     d = 1.0 / (3.0 * (mua + musp)) if d_with_mua else 1.0 / (3.0 * musp)
     if boundary is None:
         zb = np.zeros_like(d)
@@ -137,13 +138,6 @@ def _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary, *, d_with_mua: bool
         mua=mua, musp=musp, d=d, z0=1.0 / musp, zb=zb, v=SPEED_OF_LIGHT_MM_PER_PS / n_arr,
         n=n_arr, n_outside=n_out, entry=np.asarray(beam_entry_transmission(n=n_arr, n_outside=n_out)),
     )
-
-
-def _warn_scattering_dominance(mua: np.ndarray, musp: np.ndarray) -> None:
-    """The steady-state models' warning (diffusion is poor unless μs′ ≫ μa), shared."""
-    from phantomlab.transport.diffusion import _warn_scattering_dominance as warn
-
-    warn(mua, musp)
 
 
 def _warn_close_to_source(rho: np.ndarray, medium: _Medium, geometry: str) -> None:

@@ -37,7 +37,7 @@ def test_hankel_transform_of_an_exponential():
 
 
 def test_diffusion_fit_recovers_forward_model_data():
-    from phantomlab.transport.diffusion import sfdi_reflectance
+    from phantomlab.transport.spatial_frequency_domain import sfdi_reflectance
 
     rng = np.random.default_rng(4)
     wl = np.linspace(650, 850, 11)
@@ -53,7 +53,7 @@ def test_diffusion_fit_recovers_forward_model_data():
 
 
 def test_one_frequency_warns_and_leaves_them_undetermined():
-    from phantomlab.transport.diffusion import sfdi_reflectance
+    from phantomlab.transport.spatial_frequency_domain import sfdi_reflectance
 
     R = sfdi_reflectance(mua_per_mm=np.array([0.01]), musp_per_mm=np.array([1.0]), fx_per_mm=np.array([0.1]), n=1.4)
     with pytest.warns(PhantomlabWarning, match=r"too few spatial frequencies \(1\)"):

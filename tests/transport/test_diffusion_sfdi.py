@@ -14,7 +14,7 @@ import pytest
 
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.transport.boundary import effective_reflection_coefficient
-from phantomlab.transport.diffusion import sfdi_reflectance
+from phantomlab.transport.spatial_frequency_domain import sfdi_reflectance
 
 
 @pytest.mark.parametrize("boundary", ["groenhuis1983", "haskell1994"])

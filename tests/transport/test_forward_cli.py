@@ -15,10 +15,10 @@ from phantomlab.cli import main
 from phantomlab.errors import PhantomlabWarning
 from phantomlab.transport.adding_doubling import slab_reflectance_transmittance
 from phantomlab.transport.diffusion import (
-    sfdi_reflectance,
     srdr_reflectance,
     total_diffuse_reflectance,
 )
+from phantomlab.transport.spatial_frequency_domain import sfdi_reflectance
 
 
 def _json(capsys, *argv):
