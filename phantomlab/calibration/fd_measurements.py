@@ -163,7 +163,7 @@ def _check_phase_unit(phase, amplitude, rho, freq, rows_at, *, name: str, n: flo
     same numbers read as radians imply μs′/μa >= 1, and every phase lies within ±2π, the
     column is taken to hold radians.
     """
-    from phantomlab.transport.time_domain import SPEED_OF_LIGHT_MM_PER_PS
+    from phantomlab.transport.time_domain_images import SPEED_OF_LIGHT_MM_PER_PS
 
     if rho.size < 2:
         return

@@ -38,7 +38,7 @@ from phantomlab.calibration.fitting import fit_blocks, log_to_linear
 from phantomlab.calibration.identifiability import _bands, outcome_warnings
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.jsonable import to_jsonable
-from phantomlab.transport.time_domain import SPEED_OF_LIGHT_MM_PER_PS
+from phantomlab.transport.time_domain_images import SPEED_OF_LIGHT_MM_PER_PS
 
 __all__ = ["FD_FIT_MODELS", "FrequencyDomainFit", "fit_fd", "fd_forward", "slope_estimate_Fantini1994"]
 

@@ -50,7 +50,7 @@ from phantomlab.transport.boundary import (
     fluence_flux_coefficients_Kienle1997,
 )
 from phantomlab.transport.diffusion_validity import warn_scattering_dominance
-from phantomlab.transport.time_domain import SPEED_OF_LIGHT_MM_PER_PS
+from phantomlab.transport.time_domain_images import SPEED_OF_LIGHT_MM_PER_PS
 
 __all__ = [
     "FD_MODELS",

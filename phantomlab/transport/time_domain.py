@@ -1,13 +1,11 @@
 """Time-resolved diffusion reflectance and transmittance of a half-space and a slab (layer 2).
 
-A short pulse (a delta in time) enters the top face z = 0 of a homogeneous medium (μa, μs′,
-index ``n``) normally; the first reduced interaction at depth z0 = 1/μs′ is an isotropic
-point source, and the photon density diffuses with D = 1/(3μs′) at the speed of light in the
-medium v = c/n.  The fluence rate of a unit impulse source in an infinite medium is
-
-    Φ∞(r, t) = v (4π D v t)^(−3/2) exp(−r²/(4 D v t) − μa v t)        (Patterson et al. 1989, eq. 3)
-
-and the boundaries are met by images.  Three models sit in :data:`TD_MODELS`:
+A short pulse enters the top face z = 0 of a homogeneous medium (μa, μs′, index ``n``)
+normally; the first reduced interaction at depth z0 = 1/μs′ is an isotropic point source
+whose photon density diffuses at v = c/n, the boundaries met by images
+(:mod:`phantomlab.transport.time_domain_images`: the infinite-medium fluence Φ∞ of Patterson
+et al. 1989, eq. 3, the image positions and the sums J_R, J_T of Contini et al. 1997,
+eqs. 35–37).  Three models sit in :data:`TD_MODELS`:
 
 * ``patterson1989`` — zero fluence on the real surface (one negative image at −z0; for a
   slab, the images of both faces), D = 1/(3(μa + μs′)), the light leaving is the flux
@@ -20,17 +18,6 @@ and the boundaries are met by images.  Three models sit in :data:`TD_MODELS`:
   C1 Φ + C2 J (the fluence-plus-flux combination of Kienle & Patterson 1997, whose
   steady-state form is the project's default R(ρ) model ``srdr``), C1, C2 from the Fresnel
   integrals (:func:`~phantomlab.transport.boundary.fluence_flux_coefficients_Kienle1997`).
-
-Image positions (Contini et al. 1997, eq. 35, written with s + 2z_e as the period): positive
-sources at z⁺ₘ = 2m(s + 2z_e) + z0 and negative ones at z⁻ₘ = 2m(s + 2z_e) − 2z_e − z0,
-m = 0, ±1, ±2, ...  At the top face (z = 0, outward −z) and the bottom face (z = s, outward
-+z):
-
-    J_R(ρ, t) = (4πDv)^(−3/2) t^(−5/2) e^(−μa v t − ρ²/(4Dvt)) · ½ Σₘ [z⁺ₘ e^(−z⁺ₘ²/(4Dvt)) − z⁻ₘ e^(−z⁻ₘ²/(4Dvt))]
-    J_T(ρ, t) = (4πDv)^(−3/2) t^(−5/2) e^(−μa v t − ρ²/(4Dvt)) · ½ Σₘ [(s − z⁺ₘ) e^(−(s − z⁺ₘ)²/(4Dvt)) − (s − z⁻ₘ) e^(−(s − z⁻ₘ)²/(4Dvt))]
-
-which are Contini's eqs. 37 and 36 (his z₃,ₘ = −z⁺ₘ, z₄,ₘ = −z⁻ₘ, z₁,ₘ = s − z⁺ₘ,
-z₂,ₘ = s − z⁻ₘ).  The series is summed until the next term is below e^(−36) of the first.
 
 **Conventions.**  Every value is per unit energy *incident* on the surface, the specular
 reflection not counted: the papers' values (per unit energy that entered) are multiplied by
@@ -57,7 +44,6 @@ Farrell TJ, Patterson MS, Wilson B 1992, Med Phys 19:879–888, doi:10.1118/1.59
 
 from __future__ import annotations
 
-import math
 import warnings
 from dataclasses import dataclass
 from typing import Callable
@@ -72,10 +58,16 @@ from phantomlab.transport.boundary import (
     fluence_flux_coefficients_Kienle1997,
 )
 from phantomlab.transport.diffusion_validity import warn_scattering_dominance
+from phantomlab.transport.time_domain_images import (
+    MAX_IMAGE_PAIRS,
+    SERIES_EXPONENT,
+    SPEED_OF_LIGHT_MM_PER_PS,
+    checked_thickness,
+    checked_time_grid,
+    image_series_terms,
+)
 
 __all__ = [
-    "SPEED_OF_LIGHT_MM_PER_PS",
-    "GEOMETRIES",
     "TD_MODELS",
     "TD_DEFAULT_BOUNDARY",
     "time_resolved",
@@ -84,30 +76,11 @@ __all__ = [
     "td_diffusion_Kienle1997",
     "time_resolved_rows",
     "time_resolved_evaluator",
-    "image_sources",
-    "light_speed_mm_per_ps",
 ]
-
-#: Speed of light in vacuum [mm/ps] (exact: 299 792 458 m/s, SI definition of the metre).
-SPEED_OF_LIGHT_MM_PER_PS = 0.299792458
-
-#: Measurement geometries: light leaving the top face (the entry face) or the bottom face.
-GEOMETRIES = ("reflectance", "transmittance")
 
 #: The boundary method each model was published with (used when ``boundary=None``);
 #: ``patterson1989`` has no boundary coefficient (zero fluence on the surface).
 TD_DEFAULT_BOUNDARY = {"patterson1989": None, "contini1997": "haskell1994", "kienle1997": "haskell1994"}
-
-#: Image pairs are summed until exp(−(distance)²/(4Dvt)) of the next one falls below e^(−36).
-_SERIES_EXPONENT = 36.0
-#: Most image pairs on each side (a slab thinner than a transport length at long times).
-_MAX_IMAGES = 2000
-
-
-def light_speed_mm_per_ps(n) -> np.ndarray:
-    """Speed of light in a medium of index ``n`` [mm/ps]: c/n."""
-    return SPEED_OF_LIGHT_MM_PER_PS / np.asarray(as_index(n, "n"), dtype=float)
-
 
 @dataclass(frozen=True)
 class _Medium:
@@ -154,65 +127,19 @@ def _warn_close_to_source(rho: np.ndarray, medium: _Medium, geometry: str) -> No
         )
 
 
-def _thickness(thickness_mm, geometry: str) -> float | None:
-    if geometry not in GEOMETRIES:
-        raise InputError(f"unknown geometry {geometry!r}; valid: {', '.join(GEOMETRIES)}")
-    if thickness_mm is None:
-        if geometry == "transmittance":
-            raise InputError("transmittance needs a slab: give thickness_mm > 0 [mm]")
-        return None
-    try:
-        value = float(thickness_mm)
-    except (TypeError, ValueError):
-        raise InputError(f"thickness_mm: expected a number in mm, got {thickness_mm!r}") from None
-    if not math.isfinite(value) or value <= 0:
-        raise InputError(f"thickness_mm must be finite and > 0 [mm] (None: half-space), got {thickness_mm!r}")
-    return value
-
-
-def image_sources(*, z0_mm, zb_mm, thickness_mm, pairs: int):
-    """Depths of the positive and negative image sources [mm] (Contini et al. 1997, eq. 35).
-
-    Parameters
-    ----------
-    z0_mm, zb_mm : float or array (S) [mm]
-        Source depth and extrapolation distance.
-    thickness_mm : float or None [mm]
-        Slab thickness; None for a half-space (only the m = 0 pair).
-    pairs : int
-        Image pairs on each side of m = 0 (ignored for a half-space).
-
-    Returns
-    -------
-    (ndarray, ndarray)
-        z⁺ₘ and z⁻ₘ of shape S + (M,), m = −pairs..pairs (M = 2 pairs + 1; 1 for a half-space).
-    """
-    z0 = np.asarray(z0_mm, dtype=float)[..., None]
-    zb = np.asarray(zb_mm, dtype=float)[..., None]
-    if thickness_mm is None:
-        m = np.zeros(1)
-        period = np.zeros_like(z0)
-    else:
-        m = np.arange(-pairs, pairs + 1, dtype=float)
-        period = 2.0 * (float(thickness_mm) + 2.0 * zb)
-    positive = m * period + z0
-    negative = m * period - 2.0 * zb - z0
-    return positive, negative
-
-
 def _pairs_needed(medium: _Medium, time: np.ndarray, thickness: float | None) -> int:
     if thickness is None:
         return 0
     t = time[np.isfinite(time) & (time > 0)]
     if t.size == 0:
         return 0
-    spread = np.sqrt(4.0 * medium.d * medium.v * t.max() * _SERIES_EXPONENT)
+    spread = np.sqrt(4.0 * medium.d * medium.v * t.max() * SERIES_EXPONENT)
     period = 2.0 * (thickness + 2.0 * medium.zb)
     ok = np.isfinite(spread) & np.isfinite(period)
     if not np.any(ok):
         return 0
     pairs = int(np.ceil(np.max(spread[ok] / period[ok]))) + 1
-    return min(pairs, _MAX_IMAGES)
+    return min(pairs, MAX_IMAGE_PAIRS)
 
 
 def _surface_terms(medium: _Medium, rho: np.ndarray, time: np.ndarray, thickness: float | None, geometry: str):
@@ -227,38 +154,16 @@ def _surface_terms(medium: _Medium, rho: np.ndarray, time: np.ndarray, thickness
     def spread(values):
         return values[(Ellipsis,) + extra]
 
-    return _terms(d=spread(medium.d), v=spread(medium.v), mua=spread(medium.mua), z0=spread(medium.z0),
+    return image_series_terms(d=spread(medium.d), v=spread(medium.v), mua=spread(medium.mua), z0=spread(medium.z0),
                   zb=spread(medium.zb), r=grid_rho[lead + (Ellipsis,)], t=grid_t[lead + (Ellipsis,)],
                   thickness=thickness, geometry=geometry,
                   pairs=_pairs_needed(medium, np.asarray(time, float), thickness))
 
 
-def _terms(*, d, v, mua, z0, zb, r, t, thickness, geometry, pairs):
-    """Φ and J with every argument broadcast element by element (no outer product)."""
-    positive, negative = image_sources(z0_mm=z0, zb_mm=zb, thickness_mm=thickness, pairs=pairs)
-    if geometry == "transmittance":
-        positive, negative = thickness - positive, thickness - negative
-    live = t > 0
-    safe_t = np.where(live, t, 1.0)
-    four_dvt = 4.0 * d * v * safe_t
-    # log of (4π D v t)^(−3/2) e^(−μa v t − ρ²/(4Dvt)): kept in logs so that t → 0 gives 0, not inf·0
-    log_base = -1.5 * np.log(np.pi * four_dvt) - mua * v * safe_t - r * r / four_dvt
-    with np.errstate(over="ignore", invalid="ignore"):
-        e_pos = np.exp(log_base[..., None] - positive**2 / four_dvt[..., None])
-        e_neg = np.exp(log_base[..., None] - negative**2 / four_dvt[..., None])
-        fluence = v * np.sum(e_pos - e_neg, axis=-1)
-        # outward flux D ∂Φ/∂z at the top (−z outward); at the bottom the signs of the
-        # distances s − z carry the same form (Contini et al. 1997, eqs. 36-37)
-        flux = np.sum(positive * e_pos - negative * e_neg, axis=-1) / (2.0 * safe_t)
-    fluence = np.where(live, fluence, 0.0)
-    flux = np.where(live, flux, 0.0)
-    return fluence, flux
-
-
 def _evaluate(medium, rho_mm, time_ps, thickness_mm, geometry, combine):
-    thickness = _thickness(thickness_mm, geometry)
+    thickness = checked_thickness(thickness_mm, geometry)
     rho = as_length_grid(rho_mm, "rho_mm")
-    time = _time_grid(time_ps)
+    time = checked_time_grid(time_ps)
     try:
         np.broadcast_shapes(rho.shape, time.shape)
     except ValueError:
@@ -271,16 +176,6 @@ def _evaluate(medium, rho_mm, time_ps, thickness_mm, geometry, combine):
     entry = medium.entry[(Ellipsis,) + (None,) * grid_ndim]
     value = entry * combine(fluence, flux, grid_ndim)
     return value[()] if value.ndim == 0 else value
-
-
-def _time_grid(time_ps) -> np.ndarray:
-    try:
-        values = np.asarray(time_ps, dtype=float)
-    except (TypeError, ValueError):
-        raise InputError(f"time_ps: expected numbers in ps, got {time_ps!r}") from None
-    if np.any(np.isinf(values)):
-        raise InputError("time_ps must be finite [ps]")
-    return values
 
 
 def td_diffusion_Patterson1989(
@@ -330,9 +225,9 @@ def td_diffusion_Contini1997(
 ):
     """Time-resolved flux with the extrapolated boundary (Contini, Martelli & Zaccanti 1997).
 
-    R(ρ, t) = T J_R and T(ρ, t) = T J_T of the module docstring (Contini et al. eqs. 37, 36):
-    D = 1/(3μs′), z0 = 1/μs′, z_e = 2AD, the image series of a slab (the m = 0 pair for the
-    half-space).  Contini et al. take A from the Fresnel integrals (``haskell1994`` here).
+    R(ρ, t) = T J_R and T(ρ, t) = T J_T of :mod:`phantomlab.transport.time_domain_images`
+    (Contini et al. eqs. 37, 36): D = 1/(3μs′), z0 = 1/μs′, z_e = 2AD, the image series of a
+    slab (the m = 0 pair for the half-space).  Contini et al. take A from the Fresnel integrals (``haskell1994`` here).
 
     Parameters
     ----------
@@ -473,7 +368,7 @@ def time_resolved_evaluator(*, n: float, n_outside: float = 1.0, thickness_mm=No
     if model == "patterson1989" and boundary is not None:
         raise InputError("patterson1989 uses zero fluence on the surface: boundary must be None")
     method = TD_DEFAULT_BOUNDARY[model] if boundary is None else boundary
-    thickness = _thickness(thickness_mm, geometry)
+    thickness = checked_thickness(thickness_mm, geometry)
     n_value = float(as_index(n, "n"))
     n_out = float(as_index(n_outside, "n_outside"))
     a_coef = 0.0 if method is None else float(boundary_coefficient(n=n_value, n_outside=n_out, method=method))
@@ -487,7 +382,7 @@ def time_resolved_evaluator(*, n: float, n_outside: float = 1.0, thickness_mm=No
         mua = as_coefficient(mua_per_mm, "mua_per_mm")
         musp = as_coefficient(musp_per_mm, "musp_per_mm", strictly_positive=True)
         rho = as_length_grid(rho_mm, "rho_mm")
-        time = _time_grid(time_ps)
+        time = checked_time_grid(time_ps)
         try:
             shape = np.broadcast_shapes(mua.shape, musp.shape, rho.shape, time.shape)
         except ValueError:
@@ -499,9 +394,9 @@ def time_resolved_evaluator(*, n: float, n_outside: float = 1.0, thickness_mm=No
             t_live = time[np.isfinite(time) & (time > 0)]
             finite_d = d[np.isfinite(d)] if np.ndim(d) else np.array([d])
             if t_live.size and finite_d.size:
-                spread = np.sqrt(4.0 * finite_d.max() * v * t_live.max() * _SERIES_EXPONENT)
-                pairs = min(int(np.ceil(spread / (2.0 * thickness))) + 1, _MAX_IMAGES)
-        fluence, flux = _terms(d=d, v=v, mua=mua, z0=1.0 / musp, zb=zb, r=rho, t=time, thickness=thickness,
+                spread = np.sqrt(4.0 * finite_d.max() * v * t_live.max() * SERIES_EXPONENT)
+                pairs = min(int(np.ceil(spread / (2.0 * thickness))) + 1, MAX_IMAGE_PAIRS)
+        fluence, flux = image_series_terms(d=d, v=v, mua=mua, z0=1.0 / musp, zb=zb, r=rho, t=time, thickness=thickness,
                                geometry=geometry, pairs=pairs)
         value = c1 * fluence + c2 * flux if with_fluence else flux
         # a thin slab's image series cancels to rounding late in time: no negative light

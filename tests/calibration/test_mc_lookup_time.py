@@ -18,7 +18,8 @@ import pytest
 
 from phantomlab.calibration.mc_lookup_time import time_resolved_lookup
 from phantomlab.transport.montecarlo import load_baseline
-from phantomlab.transport.time_domain import SPEED_OF_LIGHT_MM_PER_PS, time_resolved
+from phantomlab.transport.time_domain import time_resolved
+from phantomlab.transport.time_domain_images import SPEED_OF_LIGHT_MM_PER_PS
 import td_fixture_data as fixture
 
 BASELINE = fixture.FIXTURES / "mc_baseline.npz"

@@ -14,7 +14,7 @@ import pytest
 
 from phantomlab.errors import InputError
 from phantomlab.transport.montecarlo import build_baseline, simulate, time_bin_edges_ps
-from phantomlab.transport.time_domain import SPEED_OF_LIGHT_MM_PER_PS
+from phantomlab.transport.time_domain_images import SPEED_OF_LIGHT_MM_PER_PS
 
 TIME_PS = np.arange(5.0, 20000.0, 10.0)
 

@@ -25,10 +25,10 @@ from scipy.integrate import quad
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.transport.boundary import boundary_coefficient, fluence_flux_coefficients_Kienle1997
 from phantomlab.transport.time_domain import (
-    SPEED_OF_LIGHT_MM_PER_PS,
     TD_MODELS,
     time_resolved,
 )
+from phantomlab.transport.time_domain_images import SPEED_OF_LIGHT_MM_PER_PS
 
 C = 0.299792458  # mm/ps, the SI definition of the metre
 ENTRY_14 = 1 - (0.4 / 2.4) ** 2  # Fresnel transmission at n = 1.4 in air (Born & Wolf §1.5.2)

@@ -43,7 +43,7 @@ from phantomlab.transport.montecarlo.result import (
     specular_reflectance,
     time_bin_edges_ps,
 )
-from phantomlab.transport.time_domain import SPEED_OF_LIGHT_MM_PER_PS
+from phantomlab.transport.time_domain_images import SPEED_OF_LIGHT_MM_PER_PS
 
 __all__ = ["simulate", "warm_up", "ESTIMATORS", "GEOMETRIES"]
 
