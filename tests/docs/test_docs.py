@@ -211,7 +211,7 @@ def _format_fields():
         "wavelength_nm", "mua_per_mm", "musp_per_mm", "mua_sd_per_mm", "musp_sd_per_mm", "reading_csv"} \
         | set(sphere_readings.SPHERE_KEYS) | set(sphere_readings.TRANSMISSION_KEYS)
     yield "Amounts CSV", {"stock", "volume_ml", "mass_g", "dilution_factor"}
-    yield "Monte Carlo baseline (.npz)", set(baseline._ARRAYS) | set(baseline._INPUT_KEYS) | {"inputs_json"}
+    yield "Monte Carlo baseline (.npz)", set(baseline.PHOTON_ARRAYS) | set(baseline.INPUT_KEYS) | {"inputs_json"}
     yield "Lab archive (zip)", set(Base.metadata.tables)
 
 

@@ -2,10 +2,12 @@
 
 See :mod:`phantomlab.transport.montecarlo.simulate` (the engine's front end),
 :mod:`phantomlab.transport.montecarlo.result` (what a run returns) and
-:mod:`phantomlab.transport.montecarlo.baseline` (one run, then R(ρ) for other μa and μs).
+:mod:`phantomlab.transport.montecarlo.baseline` (one run, then R(ρ) for other μa and μs) and
+:mod:`phantomlab.transport.montecarlo.baseline_file` (a baseline saved and loaded).
 """
 
-from phantomlab.transport.montecarlo.baseline import Baseline, load_baseline, load_baseline_inputs
+from phantomlab.transport.montecarlo.baseline import Baseline
+from phantomlab.transport.montecarlo.baseline_file import load_baseline, load_baseline_inputs
 from phantomlab.transport.montecarlo.baseline_run import build_baseline
 from phantomlab.transport.montecarlo.result import (
     MonteCarloResult,

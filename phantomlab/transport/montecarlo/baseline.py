@@ -39,11 +39,7 @@ distances where :meth:`Baseline.srdr_with_sd` gives a small relative error, and 
 
 from __future__ import annotations
 
-import json
 import math
-import os
-import tempfile
-import zipfile
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -62,18 +58,16 @@ from phantomlab.transport.montecarlo._validate import (
 from phantomlab.transport.montecarlo.result import rho_bin_edges_mm, specular_reflectance
 from phantomlab.transport.montecarlo.simulate import DEFAULT_BATCHES, KERNEL_LOCK
 
-__all__ = ["Baseline", "load_baseline", "load_baseline_inputs", "check_baseline_inputs", "BASELINE_FORMAT"]
+__all__ = ["Baseline", "check_baseline_inputs", "PHOTON_ARRAYS", "INPUT_KEYS"]
 
-#: Tag and version written into every saved baseline (checked on load).
-BASELINE_FORMAT = "phantomlab-mc-baseline"
-BASELINE_VERSION = 1
-
-_ARRAYS = {
+#: The stored photon arrays and their dtypes (also the arrays of a baseline file).
+PHOTON_ARRAYS = {
     "exit_radius_mm": np.float32,
     "path_length_mm": np.float32,
     "scatterings": np.uint16,
 }
-_INPUT_KEYS = ("mua_per_mm", "mus_per_mm", "g", "n", "n_outside", "photons", "seed", "batches")
+#: The inputs that made a baseline (also its file's inputs record).
+INPUT_KEYS = ("mua_per_mm", "mus_per_mm", "g", "n", "n_outside", "photons", "seed", "batches")
 
 #: Fine radial bins of the lookup table: successive edges differ by this ratio.
 TABLE_RADIUS_RATIO = 1.02
@@ -126,7 +120,7 @@ class Baseline:
     def __post_init__(self) -> None:
         check_baseline_inputs(self.inputs())
         lengths = set()
-        for name, dtype in _ARRAYS.items():
+        for name, dtype in PHOTON_ARRAYS.items():
             values = getattr(self, name)
             if not isinstance(values, np.ndarray) or values.dtype != dtype or values.ndim != 1:
                 raise InputError(f"baseline: {name} must be a 1-D {np.dtype(dtype).name} array")
@@ -144,13 +138,13 @@ class Baseline:
         # a photon cannot leave farther from the axis than it travelled (float32 rounding apart)
         if np.any(radius > path * (1.0 + 1e-5)):
             raise InputError("baseline: an exit radius exceeds its path length; the file is corrupt")
-        for name in _ARRAYS:
+        for name in PHOTON_ARRAYS:
             getattr(self, name).setflags(write=False)
 
     # ------------------------------------------------------------------ description
     def inputs(self) -> dict:
         """The inputs that made the baseline (what :meth:`save` writes beside the photons)."""
-        return {key: getattr(self, key) for key in _INPUT_KEYS}
+        return {key: getattr(self, key) for key in INPUT_KEYS}
 
     @property
     def detected(self) -> int:
@@ -160,7 +154,7 @@ class Baseline:
     @property
     def nbytes(self) -> int:
         """Memory held by the stored photon arrays [bytes]."""
-        return int(sum(getattr(self, name).nbytes for name in _ARRAYS))
+        return int(sum(getattr(self, name).nbytes for name in PHOTON_ARRAYS))
 
     @property
     def launch_weight(self) -> float:
@@ -380,6 +374,8 @@ class Baseline:
     def save(self, path) -> Path:
         """Write the baseline as a compressed ``.npz`` file with the inputs that made it.
 
+        See :func:`~phantomlab.transport.montecarlo.baseline_file.save_baseline`.
+
         Parameters
         ----------
         path : str or Path
@@ -389,23 +385,9 @@ class Baseline:
         -------
         Path
         """
-        destination = Path(path)
-        header = {"format": BASELINE_FORMAT, "version": BASELINE_VERSION, **self.inputs()}
-        # write beside the destination, then rename: an interrupted save leaves no half file
-        handle, temporary = tempfile.mkstemp(prefix=f".{destination.name}.", suffix=".part",
-                                             dir=destination.parent if str(destination.parent) else ".")
-        try:
-            with os.fdopen(handle, "wb") as stream:
-                np.savez_compressed(
-                    stream,
-                    inputs_json=np.array(json.dumps(header)),
-                    **{name: getattr(self, name) for name in _ARRAYS},
-                )
-            os.replace(temporary, destination)
-        except BaseException:
-            Path(temporary).unlink(missing_ok=True)
-            raise
-        return destination
+        from phantomlab.transport.montecarlo.baseline_file import save_baseline  # it imports this module
+
+        return save_baseline(self, path)
 
 
 def check_baseline_inputs(inputs: dict) -> dict:
@@ -425,86 +407,3 @@ def check_baseline_inputs(inputs: dict) -> dict:
     if checked["mus_per_mm"] <= 0.0:
         raise InputError("a baseline needs a reference mus_per_mm > 0")
     return checked
-
-
-def _inputs_from_record(source: Path, record) -> dict:
-    """The checked inputs of a baseline file's ``inputs_json`` record (format tag and version first)."""
-    try:
-        header = json.loads(str(record))
-    except (TypeError, ValueError):
-        raise InputError(f"{str(source)!r}: the inputs record is not valid JSON") from None
-    if not isinstance(header, dict) or header.get("format") != BASELINE_FORMAT:
-        raise InputError(f"{str(source)!r} is not a phantomlab baseline (format tag missing)")
-    if header.get("version") != BASELINE_VERSION:
-        raise InputError(
-            f"{str(source)!r}: baseline format version {header.get('version')!r}, "
-            f"this phantomlab reads version {BASELINE_VERSION}"
-        )
-    absent = [key for key in _INPUT_KEYS if key not in header]
-    if absent:
-        raise InputError(f"{str(source)!r}: the inputs record lacks {', '.join(absent)}")
-    return check_baseline_inputs({key: header[key] for key in _INPUT_KEYS})
-
-
-def load_baseline_inputs(path) -> dict:
-    """The inputs record of a baseline file (g, n, n_outside, photons, ...), without its photons.
-
-    Raises
-    ------
-    InputError
-        As :func:`load_baseline` for a missing, unreadable or foreign file, or another version.
-    """
-    source = Path(path)
-    if not source.is_file():
-        raise InputError(f"baseline file {str(source)!r} does not exist")
-    try:
-        with np.load(source, allow_pickle=False) as data:
-            if "inputs_json" not in data.files:
-                raise InputError(f"{str(source)!r} is not a phantomlab baseline: missing inputs_json")
-            record = data["inputs_json"]
-    except (OSError, ValueError, EOFError, TypeError, zipfile.BadZipFile) as exc:  # TypeError: a bare .npy
-        raise InputError(f"{str(source)!r} is not a readable .npz baseline ({type(exc).__name__})") from None
-    return _inputs_from_record(source, record)
-
-
-def load_baseline(path) -> Baseline:
-    """Read a baseline written by :meth:`Baseline.save`, checking it on the way in.
-
-    Parameters
-    ----------
-    path : str or Path
-
-    Returns
-    -------
-    Baseline
-
-    Raises
-    ------
-    InputError
-        Missing or unreadable file, not a baseline, another format version, missing
-        arrays or inputs, wrong dtypes or lengths, non-finite or impossible values.
-    """
-    import zipfile
-
-    from phantomlab.transport.montecarlo._validate import check_baseline_file
-
-    source = Path(path)
-    if not source.is_file():
-        raise InputError(f"baseline file {str(source)!r} does not exist")
-    check_baseline_file(source)  # size limit, before anything is unpacked
-    try:
-        with np.load(source, allow_pickle=False) as data:
-            contents = {key: data[key] for key in data.files}
-    except (OSError, ValueError, EOFError, TypeError, zipfile.BadZipFile) as exc:  # TypeError: a bare .npy
-        raise InputError(f"{str(source)!r} is not a readable .npz baseline ({type(exc).__name__})") from None
-    missing = [key for key in ("inputs_json", *_ARRAYS) if key not in contents]
-    if missing:
-        raise InputError(f"{str(source)!r} is not a phantomlab baseline: missing {', '.join(missing)}")
-    inputs = _inputs_from_record(source, contents["inputs_json"])
-    arrays = {}
-    for name, dtype in _ARRAYS.items():
-        values = contents[name]
-        if values.dtype != dtype:
-            raise InputError(f"{str(source)!r}: {name} has dtype {values.dtype}, expected {np.dtype(dtype).name}")
-        arrays[name] = np.array(values)
-    return Baseline(**arrays, **inputs)
