@@ -7,21 +7,23 @@ The names other layers use:
 * :func:`load_shelf` → :class:`Shelf` of :class:`Stock`.
 """
 
+from phantomlab.materials.dispersion_formulas import (
+    alumina_index_MalitsonDodge1972,
+    pmma_index_Sultanova2009,
+    polystyrene_index_Ma2003,
+    rutile_index_DeVore1951,
+    silica_index_Malitson1965,
+    water_index_IAPWS1997,
+)
 from phantomlab.materials.refractive_index import (
     INDEX_MODELS,
     IndexModel,
     agar_index_water_offset,
-    alumina_index_MalitsonDodge1972,
     epoxy_index_constant,
     gelatin_index_water_offset,
     index_model,
-    pmma_index_Sultanova2009,
-    polystyrene_index_Ma2003,
     refractive_index,
-    rutile_index_DeVore1951,
-    silica_index_Malitson1965,
     silicone_index_constant,
-    water_index_IAPWS1997,
 )
 from phantomlab.materials.sizes import SizeDistribution, histogram_sizes, lognormal_sizes, normal_sizes
 from phantomlab.materials.spectra import (

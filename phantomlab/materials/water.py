@@ -1,7 +1,7 @@
 """Liquid water: density from temperature and absorption from published tables (layer 1).
 
 The refractive index of water (IAPWS R9-97) lives with the other index formulas in
-:mod:`phantomlab.materials.refractive_index`; it takes its density from
+:mod:`phantomlab.materials.dispersion_formulas`; it takes its density from
 :func:`water_density_Kell1975` here.
 
 Water absorption sources (:data:`WATER_ABSORPTION_SOURCES`; a stock may name one in its
