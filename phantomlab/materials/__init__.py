@@ -46,16 +46,15 @@ from phantomlab.materials.stock import (
     parse_shelf,
 )
 from phantomlab.materials.water import (
-    DEFAULT_WATER_SOURCE,
-    WATER_ABSORPTION_SOURCES,
     water_absorption_HaleQuerry1973,
     water_absorption_Kou1993,
     water_absorption_PopeFry1997,
     water_absorption_Segelstein1981,
     water_absorption_per_mm,
-    water_density_Kell1975,
     water_temperature_coefficient_per_mm_per_c,
 )
+from phantomlab.materials.water_density import water_density_Kell1975
+from phantomlab.materials.water_sources import DEFAULT_WATER_SOURCE, WATER_ABSORPTION_SOURCES
 
 __all__ = [
     "INDEX_MODELS",

@@ -18,7 +18,7 @@ import warnings
 import numpy as np
 
 from phantomlab.errors import InputError, PhantomlabWarning
-from phantomlab.materials.water import water_density_Kell1975
+from phantomlab.materials.water_density import water_density_Kell1975
 
 __all__ = [
     "water_index_IAPWS1997",
@@ -104,7 +104,7 @@ def water_index_IAPWS1997(*, wavelength_nm, temperature_c=20.0, density_kg_m3=No
         The release covers −12 to 500 °C; the density default (Kell 1975) covers 0–150 °C.
     density_kg_m3 : float or array [kg/m³], optional
         Density of the water; by default the density of liquid water at 1 atm from
-        :func:`~phantomlab.materials.water.water_density_Kell1975` (Kell 1975).
+        :func:`~phantomlab.materials.water_density.water_density_Kell1975` (Kell 1975).
 
     Returns
     -------

@@ -1,49 +1,44 @@
-"""Liquid water: density from temperature and absorption from published tables (layer 1).
+"""Absorption of pure liquid water from published tables, with its temperature coefficient (layer 1).
 
-The refractive index of water (IAPWS R9-97) lives with the other index formulas in
-:mod:`phantomlab.materials.dispersion_formulas`; it takes its density from
-:func:`water_density_Kell1975` here.
-
-Water absorption sources (:data:`WATER_ABSORPTION_SOURCES`; a stock may name one in its
-``water_source`` field):
-
-``popefry1997_kou1993`` (default)
-    Pope & Fry 1997 (integrating cavity, 380–727.5 nm, every 2.5 nm, all 140 rows), Kou,
-    Labrie & Chylek 1993 from 730 to 1230 nm (every 5 nm as the IOCCG 2018 protocols tabulate
-    it, with its uncertainty), and Segelstein 1981 below 380 nm, where neither reaches.  Both
-    main tables are direct measurements on pure water at 22 °C; Kou resolves the 740, 840 and
-    970 nm bands at 5 nm and agrees with Pope & Fry where they meet.
-``popefry1997_segelstein1981``
-    Pope & Fry 1997 over 380–727.5 nm and Segelstein 1981 (a compilation at 5–10 nm spacing
-    in the NIR) below 380 nm and above 727.5 nm, to 1100 nm.
-``segelstein1981``
-    Segelstein 1981 alone, 200–1100 nm.
-``halequerry1973``
-    Hale & Querry 1973 alone, 200–1000 nm, every row of its table (25 nm spacing).
-
-Every table is shipped at its full resolution in the band used, each file with its
-provenance line (:mod:`phantomlab.materials.absorption_tables`), and interpolated by PCHIP
-in log μa.
+:func:`water_absorption_per_mm` interpolates the rows of a named source by PCHIP in log μa;
+the sources (which published table over which band, and at which temperature each was
+measured; a stock may name one in its ``water_source`` field) are
+:mod:`phantomlab.materials.water_sources`.  One function per table
+(:func:`water_absorption_PopeFry1997`, :func:`water_absorption_Kou1993`,
+:func:`water_absorption_Segelstein1981`, :func:`water_absorption_HaleQuerry1973`) reads it
+alone.
 
 Temperature: each table holds water at its own temperature (Pope & Fry and Kou 22 °C,
 Segelstein and Hale & Querry 25 °C).  ``water_absorption_per_mm(..., temperature_c=T)`` adds
 the published linear coefficient ∂μa/∂T of the IOCCG 2018 protocols times (T − table
 temperature), 300–1230 nm (:func:`water_temperature_coefficient_per_mm_per_c`).
+
+The density of water (Kell 1975) is :mod:`phantomlab.materials.water_density`; its refractive
+index (IAPWS R9-97) is :mod:`phantomlab.materials.dispersion_formulas`.
 """
 
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
 from functools import lru_cache
 
 import numpy as np
 
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.materials.absorption_tables import LogPchip, absorption_table, coefficient_table
+from phantomlab.materials.water_sources import (
+    DEFAULT_WATER_SOURCE,
+    KOU_1993_BAND_NM,
+    KOU_1993_FILE,
+    POPE_FRY_1997_BAND_NM,
+    POPE_FRY_1997_FILE,
+    TABLE_TEMPERATURE_C,
+    water_absorption_rows,
+    water_absorption_rows_and_files,
+    water_source,
+)
 
 __all__ = [
-    "water_density_Kell1975",
     "water_absorption_at_temperature",
     "water_absorption_HaleQuerry1973",
     "water_absorption_Segelstein1981",
@@ -51,34 +46,13 @@ __all__ = [
     "water_absorption_Kou1993",
     "water_absorption_per_mm",
     "water_temperature_coefficient_per_mm_per_c",
-    "water_absorption_rows",
     "checked_liquid_temperature",
     "LIQUID_WATER_RANGE_C",
-    "WaterSource",
-    "WATER_ABSORPTION_SOURCES",
-    "DEFAULT_WATER_SOURCE",
-    "WATER_ABSORPTION_TABLE_BAND_NM",
 ]
 
-#: Temperature range of Kell's 1975 density formula [°C].
-KELL1975_BAND_C = (0.0, 150.0)
-
-POPE_FRY_1997_FILE = "water_absorption_pope_fry_1997.csv"
-KOU_1993_FILE = "water_absorption_kou_1993.csv"
-SEGELSTEIN_1981_FILE = "water_absorption_segelstein_1981.csv"
-HALE_QUERRY_1973_FILE = "water_absorption_hale_querry_1973.csv"
+#: The IOCCG 2018 table of the linear temperature coefficient ∂μa/∂T of pure water.
 TEMPERATURE_COEFFICIENT_FILE = "water_temperature_coefficient_ioccg_2018.csv"
 
-#: Rows of Pope & Fry 1997, Table 3 [nm]: where the composites use it.
-POPE_FRY_1997_BAND_NM = (380.0, 727.5)
-#: Rows of Kou et al. 1993 as tabulated by IOCCG 2018 [nm].
-KOU_1993_BAND_NM = (730.0, 1230.0)
-
-#: Temperature of the water each table measured [°C]: Pope & Fry 1997 22 °C (from memory);
-#: Kou, Labrie & Chylek 1993 22 °C (their abstract); Segelstein 1981 and Hale & Querry 1973
-#: 25 °C (the provenance lines of their files).
-TABLE_TEMPERATURE_C = {POPE_FRY_1997_FILE: 22.0, KOU_1993_FILE: 22.0, SEGELSTEIN_1981_FILE: 25.0,
-                       HALE_QUERRY_1973_FILE: 25.0}
 #: Farthest from a table's temperature that the linear coefficient is applied without a
 #: warning [°C]; the IOCCG 2018 table states no range, so this bound is our choice, no source.
 TEMPERATURE_SPAN_C = 15.0
@@ -88,160 +62,12 @@ TEMPERATURE_SPAN_C = 15.0
 LIQUID_WATER_RANGE_C = (0.0, 60.0)
 
 
-@dataclass(frozen=True)
-class WaterSource:
-    """A named water-absorption source.
-
-    Attributes
-    ----------
-    name : str
-        Key of :data:`WATER_ABSORPTION_SOURCES` (as in stock files).
-    band_nm : (float, float)
-        Wavelengths it answers [nm]; outside, refused.
-    citation : str
-        Author, year and journal of each table it uses, with the band of each.
-    files : tuple of str
-        The shipped tables it reads.
-    """
-
-    name: str
-    band_nm: tuple[float, float]
-    citation: str
-    files: tuple[str, ...]
-
-
-#: Water-absorption sources by name; the first is the default.
-WATER_ABSORPTION_SOURCES: dict[str, WaterSource] = {
-    "popefry1997_kou1993": WaterSource(
-        "popefry1997_kou1993", (200.0, 1230.0),
-        "Pope & Fry 1997, Appl. Opt. 36:8710 (380–727.5 nm); Kou, Labrie & Chylek 1993, Appl. Opt. 32:3531, "
-        "as tabulated by the IOCCG 2018 protocols (730–1230 nm); Segelstein 1981, MSc thesis, "
-        "Univ. Missouri-Kansas City (200–380 nm)",
-        (POPE_FRY_1997_FILE, KOU_1993_FILE, SEGELSTEIN_1981_FILE),
-    ),
-    "popefry1997_segelstein1981": WaterSource(
-        "popefry1997_segelstein1981", (200.0, 1100.0),
-        "Pope & Fry 1997, Appl. Opt. 36:8710 (380–727.5 nm); Segelstein 1981, MSc thesis, "
-        "Univ. Missouri-Kansas City (200–380 nm and 727.5–1100 nm)",
-        (POPE_FRY_1997_FILE, SEGELSTEIN_1981_FILE),
-    ),
-    "segelstein1981": WaterSource(
-        "segelstein1981", (200.0, 1100.0),
-        "Segelstein 1981, MSc thesis, Univ. Missouri-Kansas City (200–1100 nm)", (SEGELSTEIN_1981_FILE,),
-    ),
-    "halequerry1973": WaterSource(
-        "halequerry1973", (200.0, 1000.0),
-        "Hale & Querry 1973, Appl. Opt. 12:555 (200–1000 nm)", (HALE_QUERRY_1973_FILE,),
-    ),
-}
-DEFAULT_WATER_SOURCE = "popefry1997_kou1993"
-
-#: Wavelength band of the default water source [nm].
-WATER_ABSORPTION_TABLE_BAND_NM = WATER_ABSORPTION_SOURCES[DEFAULT_WATER_SOURCE].band_nm
-
-
 def _as_float_array(value, name: str) -> np.ndarray:
     try:
         array = np.asarray(value, dtype=float)
     except (TypeError, ValueError):
         raise InputError(f"{name} must be a number or an array of numbers, got {value!r}") from None
     return array
-
-
-def water_density_Kell1975(*, temperature_c=20.0) -> np.ndarray:
-    """Density of air-free liquid water at 1 atm from its temperature.
-
-    Parameters
-    ----------
-    temperature_c : float or array [°C]
-        Valid 0–150 °C; outside it a :class:`PhantomlabWarning` names the value.
-
-    Returns
-    -------
-    ndarray [g/mL]
-
-    Notes
-    -----
-    Kell's rational function (ref. 1, eq. 16, the IPTS-68 fit)::
-
-        ρ = (999.83952 + 16.945176 t − 7.9870401e−3 t² − 46.170461e−6 t³
-             + 105.56302e−9 t⁴ − 280.54253e−12 t⁵) / (1 + 16.879850e−3 t)   [kg/m³]
-
-    The difference between the IPTS-68 and ITS-90 temperature scales (< 0.01 K here)
-    is ignored; it moves the density by less than 2 ppm.
-
-    References
-    ----------
-    1. Kell, G. S. (1975). Density, thermal expansivity, and compressibility of liquid water
-       from 0° to 150 °C. J. Chem. Eng. Data 20(1), 97–105. doi:10.1021/je60064a005
-    """
-    t = _as_float_array(temperature_c, "temperature_c")
-    lo, hi = KELL1975_BAND_C
-    finite = t[np.isfinite(t)]
-    if finite.size and (finite.min() < lo or finite.max() > hi):
-        warnings.warn(
-            f"water density: temperature {finite.min():g}–{finite.max():g} °C outside the "
-            f"{lo:g}–{hi:g} °C of Kell 1975",
-            PhantomlabWarning,
-            stacklevel=2,
-        )
-    numerator = (
-        999.83952
-        + 16.945176 * t
-        - 7.9870401e-3 * t**2
-        - 46.170461e-6 * t**3
-        + 105.56302e-9 * t**4
-        - 280.54253e-12 * t**5
-    )
-    density_kg_m3 = numerator / (1.0 + 16.879850e-3 * t)  # Kell 1975, eq. 16
-    return density_kg_m3 / 1000.0
-
-
-def water_absorption_rows(source: str = DEFAULT_WATER_SOURCE) -> tuple[np.ndarray, np.ndarray]:
-    """The published rows a water source interpolates between.
-
-    Parameters
-    ----------
-    source : str
-        Key of :data:`WATER_ABSORPTION_SOURCES`.
-
-    Returns
-    -------
-    wavelength_nm : ndarray [nm]
-    mua_per_mm : ndarray [1/mm]
-        Each row exactly as its table gives it (μa = 4πk/λ for index tables).
-    """
-    wavelength, mua, _ = _rows_with_files(source)
-    return wavelength, mua
-
-
-@lru_cache(maxsize=None)
-def _rows_with_files(source: str) -> tuple[np.ndarray, np.ndarray, tuple[str, ...]]:
-    """The rows of a source, and the file each row comes from."""
-    spec = water_source(source)
-    if spec.name in ("popefry1997_segelstein1981", "popefry1997_kou1993"):
-        pope = absorption_table(POPE_FRY_1997_FILE)
-        seg = absorption_table(SEGELSTEIN_1981_FILE)
-        upper = absorption_table(KOU_1993_FILE) if spec.name == "popefry1997_kou1993" else seg
-        below = seg.wavelength_nm < POPE_FRY_1997_BAND_NM[0]
-        above = upper.wavelength_nm > POPE_FRY_1997_BAND_NM[1]
-        parts = [(seg, below), (pope, np.ones(pope.wavelength_nm.shape, bool)), (upper, above)]
-    else:
-        table = absorption_table(spec.files[0])
-        parts = [(table, np.ones(table.wavelength_nm.shape, bool))]
-    wavelength = np.concatenate([t.wavelength_nm[keep] for t, keep in parts])
-    mua = np.concatenate([t.mua_per_mm[keep] for t, keep in parts])
-    files = tuple(t.file for t, keep in parts for _ in range(int(keep.sum())))
-    return wavelength, mua, files
-
-
-def water_source(name) -> WaterSource:
-    """The :class:`WaterSource` called ``name``; refuses unknown names with the list."""
-    if name not in WATER_ABSORPTION_SOURCES:
-        raise InputError(
-            f"unknown water absorption source {name!r}; known: {', '.join(WATER_ABSORPTION_SOURCES)}"
-        )
-    return WATER_ABSORPTION_SOURCES[name]
 
 
 @lru_cache(maxsize=None)
@@ -339,7 +165,7 @@ def water_absorption_per_mm(wavelength_nm, *, source: str = DEFAULT_WATER_SOURCE
 
 def _table_temperature(source: str, wavelength: np.ndarray) -> np.ndarray:
     """Temperature of the table row each wavelength is interpolated from [°C]."""
-    rows_nm, _, files = _rows_with_files(source)
+    rows_nm, _, files = water_absorption_rows_and_files(source)
     temperatures = np.array([TABLE_TEMPERATURE_C[f] for f in files])
     index = np.clip(np.searchsorted(rows_nm, np.nan_to_num(wavelength, nan=rows_nm[0])), 0, len(rows_nm) - 1)
     return np.where(np.isfinite(wavelength), temperatures[index], np.nan)

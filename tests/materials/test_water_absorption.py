@@ -25,7 +25,7 @@ from phantomlab.materials import (
     water_temperature_coefficient_per_mm_per_c,
 )
 from phantomlab.materials.absorption_tables import LogPchip, absorption_table
-from phantomlab.materials.water import water_absorption_rows
+from phantomlab.materials.water_sources import water_absorption_rows
 
 # Hale & Querry 1973, Appl Opt 12:555, Table 1, mua = 4 pi k / lambda, in 1/cm (FIELD.md, typed
 # from the paper's k independently of the shipped file)

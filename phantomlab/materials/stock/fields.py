@@ -15,7 +15,7 @@ import difflib
 
 from phantomlab.errors import InputError
 from phantomlab.materials.stock.hazards import HAZARD_KEYS
-from phantomlab.materials.water import WATER_ABSORPTION_SOURCES
+from phantomlab.materials.water_sources import WATER_ABSORPTION_SOURCES
 
 __all__ = ["KINDS", "EMULSION_MODELS", "SOLVENTS", "BLOOD_SPECIES", "RED_CELL_SCATTERING"]
 

@@ -20,7 +20,7 @@ from phantomlab.materials.refractive_index import INDEX_MODELS
 from phantomlab.materials.spectra import CsvTable, read_csv_table
 from phantomlab.materials.stock.fields import _FIELDS, _fail, _suggest
 from phantomlab.materials.stock.hazards import HAZARD_KEYS
-from phantomlab.materials.water import DEFAULT_WATER_SOURCE, WATER_ABSORPTION_SOURCES
+from phantomlab.materials.water_sources import DEFAULT_WATER_SOURCE, WATER_ABSORPTION_SOURCES
 
 
 def _number(value, key: str, field_name: str, expected: str, ok=lambda v: True) -> float:

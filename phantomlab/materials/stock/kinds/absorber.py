@@ -28,7 +28,7 @@ from phantomlab.materials.stock.readers import (
     _get_string,
     _get_water_source,
 )
-from phantomlab.materials.water import DEFAULT_WATER_SOURCE
+from phantomlab.materials.water_sources import DEFAULT_WATER_SOURCE
 
 __all__ = ["AbsorberSpec"]
 

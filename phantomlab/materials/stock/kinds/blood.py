@@ -22,7 +22,7 @@ from phantomlab.materials.stock.readers import (
     _get_string,
     _get_water_source,
 )
-from phantomlab.materials.water import DEFAULT_WATER_SOURCE
+from phantomlab.materials.water_sources import DEFAULT_WATER_SOURCE
 
 __all__ = ["BloodSpec", "BLOOD_WATER_VOLUME_FRACTION", "BLOOD_DENSITY_G_PER_ML"]
 

@@ -10,7 +10,7 @@ from dataclasses import dataclass
 
 from phantomlab.materials.stock.fields import EMULSION_MODELS, _fail
 from phantomlab.materials.stock.readers import _get_number, _get_string, _get_water_source
-from phantomlab.materials.water import DEFAULT_WATER_SOURCE
+from phantomlab.materials.water_sources import DEFAULT_WATER_SOURCE
 
 __all__ = ["EmulsionSpec", "SOYBEAN_OIL_DENSITY_G_PER_ML"]
 
@@ -30,7 +30,7 @@ class EmulsionSpec:
         Key of :data:`EMULSION_MODELS`.
     lipid_percent_w_v : float [% w/v]
     water_source : str
-        Key of :data:`~phantomlab.materials.water.WATER_ABSORPTION_SOURCES` (the water phase).
+        Key of :data:`~phantomlab.materials.water_sources.WATER_ABSORPTION_SOURCES` (the water phase).
     """
 
     model: str

@@ -18,7 +18,7 @@ from phantomlab.materials.stock.readers import (
     _get_number,
     _get_water_source,
 )
-from phantomlab.materials.water import DEFAULT_WATER_SOURCE
+from phantomlab.materials.water_sources import DEFAULT_WATER_SOURCE
 
 __all__ = ["MatrixSpec"]
 
@@ -36,7 +36,7 @@ class MatrixSpec:
     background_spectrum : CsvTable or None
         A measured background (wavelength_nm, mua_per_mm) that replaces water + constant.
     water_source : str
-        Key of :data:`~phantomlab.materials.water.WATER_ABSORPTION_SOURCES`.
+        Key of :data:`~phantomlab.materials.water_sources.WATER_ABSORPTION_SOURCES`.
     """
 
     material: str

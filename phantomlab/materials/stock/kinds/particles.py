@@ -25,7 +25,7 @@ from phantomlab.materials.stock.readers import (
     _get_string,
     _get_water_source,
 )
-from phantomlab.materials.water import DEFAULT_WATER_SOURCE
+from phantomlab.materials.water_sources import DEFAULT_WATER_SOURCE
 
 __all__ = ["SpheresSpec", "PowderSpec", "RANDOM_CLOSE_PACKING"]
 
@@ -48,7 +48,7 @@ class SpheresSpec:
     carrier_water_volume_fraction : float
         Water content of the carrier (1 for water, 0 otherwise): its absorption.
     water_source : str
-        Key of :data:`~phantomlab.materials.water.WATER_ABSORPTION_SOURCES`.
+        Key of :data:`~phantomlab.materials.water_sources.WATER_ABSORPTION_SOURCES`.
     """
 
     material: str
