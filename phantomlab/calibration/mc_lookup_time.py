@@ -14,29 +14,12 @@ for time-resolved data both are exact, with no restriction on μa beyond the bas
 time).  Each stored photon enters F at (ρᵢμs_ref, Lᵢμs_ref) with weight e^(μa_ref Lᵢ) (it
 survived the reference absorption with probability e^(−μa_ref Lᵢ)).
 
-F is tabulated on cells of about 10 % in u and 4 % in τ, in the coordinates (log u,
-s = log(τ/u²)): s is the similarity variable of diffusion, in which the peak of a curve far
-from the source stays at one s (τ_peak ≈ 0.3 (1 − g) u²), so a kernel wide in log u at fixed s
-follows the curves' shape instead of cutting across their rising edges.  F is smoothed as a
-ratio to the time-resolved diffusion model of the same medium (``kienle1997`` of
-:mod:`phantomlab.transport.time_domain` at μa = 0, integrated over each cell, a smooth control
-as in :mod:`phantomlab.calibration.mc_lookup`): log(F_MC/F_diffusion) varies slowly except at
-the earliest times, and is smoothed by a local-linear kernel regression in (log u, s)
-(Cleveland 1979) with weights from the photon counts; log F is then a bicubic spline.  The
-kernel is 0.12 wide in log u and 0.06 in s, and wider where the ratio is smooth: 0.3 in log u
-beyond 10 transport lengths once the curve has peaked (0.12 nearer than 3, blended between),
-and 0.2 in s from six times the peak time on (0.06 before twice it).  Measured on quarters of
-a 3-million-photon baseline fitted to independent Monte Carlo data
-(tests/calibration/fixtures/mc_td_half_space.npz), the wider kernels brought the spread of
-μa at μs′/μa = 1000 (20 mm) from 5.6 to 3.9 %; a wide kernel in log u on the rising edge
-biased μs′ at μs′/μa = 10 by −18 %, hence none there.  The relative standard error of each
-smoothed node (counting statistics through the kernel weights) is kept for the fit, which
-adds it to the data's variance, correlated over the kernel's width
-(:meth:`TimeResolvedLookup.tau_bandwidth_at`), and so is the size of each node's smoothing
-bias, the plug-in ½ h² f'' of a local-linear Gaussian-kernel fit (Fan & Gijbels 1996,
-*Local Polynomial Modelling and Its Applications*, eq. 3.10) with f'' from second differences
-of the smoothed table (:meth:`TimeResolvedLookup.relative_bias`): a few per cent on the
-earliest rise, 0.1–0.3 % after the peak.
+F is the smoothed table of :mod:`phantomlab.calibration.mc_lookup_time_table` (cells of about
+10 % in u and 4 % in τ in the similarity coordinates (log u, s = log(τ/u²)), smoothed as a
+ratio to time-resolved diffusion), read here as a bicubic spline of log F.  The relative
+standard error of each smoothed node is added to the fit's data variance, correlated over the
+kernel's width (:meth:`TimeResolvedLookup.tau_bandwidth_at`), and so is the size of each
+node's smoothing bias (:meth:`TimeResolvedLookup.relative_bias`).
 
 The frequency-domain lookup is the Fourier transform of (1) term by term:
 
@@ -48,48 +31,29 @@ References
 ----------
 Graaff R et al. 1993, Appl Opt 32:426–434, doi:10.1364/AO.32.000426.
 Kienle A, Patterson MS 1996, Phys Med Biol 41:2221–2227, doi:10.1088/0031-9155/41/10/026.
-Cleveland WS 1979, J Am Stat Assoc 74:829–836, doi:10.1080/01621459.1979.10481038.
 """
 
 from __future__ import annotations
 
 import math
-import warnings
 import weakref
 
 import numpy as np
 from scipy.interpolate import RectBivariateSpline
-from scipy.ndimage import gaussian_filter1d
 
-from phantomlab.calibration.lookup_smoothing import fill_rows, local_linear_2d
-from phantomlab.errors import InputError, PhantomlabWarning
-from phantomlab.transport.time_domain import SPEED_OF_LIGHT_MM_PER_PS
+from phantomlab.calibration.mc_lookup_time_table import (
+    BANDWIDTH_LOG_TAU,
+    BANDWIDTH_LOG_TAU_LATE,
+    BANDWIDTH_LOG_U,
+    BANDWIDTH_LOG_U_FAR,
+    smoothed_time_table,
+    wide_shares,
+)
+from phantomlab.errors import InputError
+from phantomlab.transport.time_domain_images import SPEED_OF_LIGHT_MM_PER_PS
 
 __all__ = ["TimeResolvedLookup", "time_resolved_lookup", "LookupReachError", "SERVED_MAX_RELATIVE_SD"]
 
-#: Radial cells of the table, in scattering lengths u = ρμs (log spaced).
-_U_RANGE = (0.5, 400.0)
-_U_STEP = math.log(1.10)
-#: Path cells of the table, in scattering lengths τ = Lμs (log spaced).
-_TAU_MIN = 0.5
-_TAU_STEP = math.log(1.04)
-#: Kernel widths (Gaussian SDs) of the smoothing, in log u and in s (= log τ at fixed u).
-#: common practice, no source: about two cells each way, chosen by comparison with direct
-#: Monte Carlo runs (tests/calibration/test_mc_lookup_time.py).
-_BANDWIDTH_LOG_U = 0.12
-_BANDWIDTH_LOG_TAU = 0.06
-#: Wider kernels where the ratio to diffusion is smooth (see the module docstring), chosen
-#: on independent Monte Carlo data: in s from the first to the second multiple of the
-#: diffusion peak time on (linear in s) ...
-_BANDWIDTH_LOG_TAU_LATE = 0.2
-_LATE_FROM_PEAK = (2.0, 6.0)
-#: ... and in log u between these distances [transport lengths] (linear in log u), only from
-#: this fraction of the peak time on (linear in s up to the peak).
-_BANDWIDTH_LOG_U_FAR = 0.3
-_WIDE_FROM_TRANSPORT_LENGTHS = (3.0, 10.0)
-_WIDE_U_FROM_PEAK = 0.5
-#: Cells with fewer photons than this do not take part in the smoothing as data.
-_MIN_PHOTONS = 1.0
 #: The lookup serves a curve when its photons reach the latest time the fit needs at that
 #: distance and its relative standard error there is at most this; beyond, the fit would
 #: read a table made of a handful of photons (or none) and the default fit uses diffusion.
@@ -105,21 +69,6 @@ class LookupReachError(InputError):
         self.reason = reason
         super().__init__(f"the Monte Carlo lookup does not serve these data: {reason}; fit them with a diffusion "
                          "model (--model kienle1997) or give a baseline with more photons")
-
-
-def _control(baseline, u: np.ndarray, tau: np.ndarray) -> np.ndarray:
-    """F of the time-resolved diffusion model (kienle1997, μa = 0) at (u, τ), per unit u-area and τ."""
-    from phantomlab.transport.time_domain import time_resolved
-
-    n = float(baseline.n)
-    v = SPEED_OF_LIGHT_MM_PER_PS / n
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", PhantomlabWarning)  # only a control, near the source too
-        values = time_resolved(mua_per_mm=0.0, musp_per_mm=1.0 - float(baseline.g), rho_mm=u, time_ps=tau / v,
-                               n=n, n_outside=float(baseline.n_outside), model="kienle1997")
-    # per unit time → per unit τ (τ = v t for μs = 1 /mm); strip the entry transmission the
-    # baseline carries in its launch weight (both per incident energy: keep it, the ratio is what matters)
-    return np.asarray(values, float) / v
 
 
 class TimeResolvedLookup:
@@ -141,101 +90,12 @@ class TimeResolvedLookup:
         self.n = float(baseline.n)
         self.n_outside = float(baseline.n_outside)
         self.v = SPEED_OF_LIGHT_MM_PER_PS / self.n
-        mus_ref = float(baseline.mus_per_mm)
-        mua_ref = float(baseline.mua_per_mm)
-        path = baseline.path_length_mm.astype(np.float64)
-        u = baseline.exit_radius_mm.astype(np.float64) * mus_ref
-        tau = path * mus_ref
-        weight = np.exp(mua_ref * path)  # back to the non-absorbing medium
-        live = (u > 0) & (tau > 0)
-        u, tau, weight = u[live], tau[live], weight[live]
-        log_u_photon = np.log(u)
-        s_photon = np.log(tau) - 2.0 * log_u_photon  # the diffusion similarity variable log(τ/u²)
-        lu_edges = np.arange(math.log(_U_RANGE[0]), math.log(_U_RANGE[1]) + _U_STEP, _U_STEP)
-        tau_max = max(float(tau.max()) if tau.size else 1.0, _TAU_MIN * 2)
-        s_low = math.log(_TAU_MIN) - 2.0 * lu_edges[-1]
-        s_high = math.log(tau_max) - 2.0 * lu_edges[0]
-        s_edges = s_low + _TAU_STEP * np.arange(int(math.ceil((s_high - s_low) / _TAU_STEP)) + 1)
-        counts, _, _ = np.histogram2d(log_u_photon, s_photon, bins=(lu_edges, s_edges))
-        sums, _, _ = np.histogram2d(log_u_photon, s_photon, bins=(lu_edges, s_edges), weights=weight)
-        squares, _, _ = np.histogram2d(log_u_photon, s_photon, bins=(lu_edges, s_edges), weights=weight * weight)
-        launched = float(baseline.photons)
-        launch = float(baseline.launch_weight)
-        # expected weight of each cell under the control: ∫∫ 2π u F_c du dτ, du dτ = u τ dx ds
-        # (x = log u, s = log τ − 2x), Gauss–Legendre 3×3 in (x, s)
-        x, w = np.polynomial.legendre.leggauss(3)
-        xq = 0.5 * (lu_edges[:-1, None] + lu_edges[1:, None]) + 0.5 * _U_STEP * x[None, :]  # (U, 3)
-        sq = 0.5 * (s_edges[:-1, None] + s_edges[1:, None]) + 0.5 * _TAU_STEP * x[None, :]  # (S, 3)
-        wx = 0.5 * _U_STEP * w  # (3,)
-        wy = 0.5 * _TAU_STEP * w
-        uq = np.exp(xq).reshape(-1, 1)  # (3U, 1)
-        tq = np.exp(sq.reshape(1, -1) + 2.0 * xq.reshape(-1, 1))  # (3U, 3S)
-        control_nodes = _control(baseline, uq, tq).reshape(xq.shape[0], 3, sq.shape[0], 3)
-        jacobian = (2 * math.pi * uq * uq * tq).reshape(control_nodes.shape)
-        expected = np.einsum("aibj,aibj,i,j->ab", control_nodes, jacobian, wx, wy)
-        measured = launch * sums / launched  # per incident photon
-        use = (counts >= _MIN_PHOTONS) & (expected > 0) & (measured > 0)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            log_ratio = np.where(use, np.log(measured / expected), 0.0)
-            # relative variance of a cell's weight sum: Σw²/(Σw)² (counting statistics)
-            inverse_var = np.where(use, sums**2 / squares, 0.0)
-        self.u_nodes = np.exp(0.5 * (lu_edges[:-1] + lu_edges[1:]))
-        self.s_nodes = 0.5 * (s_edges[:-1] + s_edges[1:])
-        far, late = self._wide_shares(np.log(self.u_nodes)[:, None], self.s_nodes[None, :])
-        smoothed = np.zeros(use.shape)
-        spread = np.zeros(use.shape)
-        bias = np.zeros(use.shape)
-        # four local-linear fits (narrow or wide in log u × narrow or wide in s), blended
-        for u_width, s_width, share in ((_BANDWIDTH_LOG_U, _BANDWIDTH_LOG_TAU, (1 - far) * (1 - late)),
-                                        (_BANDWIDTH_LOG_U_FAR, _BANDWIDTH_LOG_TAU, far * (1 - late)),
-                                        (_BANDWIDTH_LOG_U, _BANDWIDTH_LOG_TAU_LATE, (1 - far) * late),
-                                        (_BANDWIDTH_LOG_U_FAR, _BANDWIDTH_LOG_TAU_LATE, far * late)):
-            share = np.broadcast_to(share, use.shape)
-            if not np.any(share > 0):
-                continue
-            sx, sy = u_width / _U_STEP, s_width / _TAU_STEP
-            fitted, mass = local_linear_2d(log_ratio, inverse_var, sx, sy)
-            # standard error of a node (local-constant approximation of the kernel fit):
-            # Var = Σ K² w / (Σ K w)², K the Gaussian kernel with peak 1; K² is the Gaussian of
-            # half the variance, so with the unit-area filters above Σ K w = Z·f(w) and
-            # Σ K² w = (Z/2)·f_half(w), Z = 2π σ_u σ_s in cells
-            half = gaussian_filter1d(gaussian_filter1d(inverse_var, sx / math.sqrt(2), axis=0, mode="constant"),
-                                     sy / math.sqrt(2), axis=1, mode="constant")
-            with np.errstate(divide="ignore", invalid="ignore"):
-                node_sd = np.sqrt(np.where(mass > 0, half / (4 * math.pi * sx * sy * mass**2), np.inf))
-            # the kernel's bias, ½ h² f'' per axis (local-linear regression with a Gaussian
-            # kernel; Fan & Gijbels 1996, Local Polynomial Modelling, eq. 3.10), with f'' from
-            # second differences two cells wide of the fitted values themselves
-            with np.errstate(invalid="ignore"):
-                curv_u = np.full(fitted.shape, np.nan)
-                curv_u[2:-2] = (fitted[4:] - 2 * fitted[2:-2] + fitted[:-4]) / 4.0
-                curv_s = np.full(fitted.shape, np.nan)
-                curv_s[:, 2:-2] = (fitted[:, 4:] - 2 * fitted[:, 2:-2] + fitted[:, :-4]) / 4.0
-                node_bias = 0.5 * np.abs(np.nan_to_num(sx**2 * curv_u) + np.nan_to_num(sy**2 * curv_s))
-            bias = bias + np.where(share > 0, share * node_bias, 0.0)
-            smoothed = smoothed + np.where(share > 0, share * fitted, 0.0)
-            # the fits share their photons: the SD of the blend is at most the blend of the SDs
-            spread = spread + np.where(share > 0, share * np.where(share > 0, node_sd, 0.0), 0.0)
-        variance = spread**2
-        relative_sd = np.sqrt(variance)
-        control_centre = _control(baseline, self.u_nodes[:, None],
-                                  np.exp(self.s_nodes[None, :] + 2.0 * np.log(self.u_nodes)[:, None]))
-        # before the first photon of a row (earlier than light arrives) and after its last one,
-        # there is no light to report; the spline is given the row's edge values there (so it
-        # does not ring) and :meth:`_f` returns 0 outside
-        reached = np.isfinite(smoothed) & np.isfinite(variance)
-        first = np.where(use.any(axis=1), np.argmax(use, axis=1), use.shape[1])
-        last = np.where(use.any(axis=1), use.shape[1] - 1 - np.argmax(use[:, ::-1], axis=1), -1)
-        column = np.arange(use.shape[1])[None, :]
-        inside = reached & (column >= first[:, None]) & (column <= last[:, None])
-        ratio = np.where(inside, smoothed, np.nan)
-        ratio = fill_rows(ratio)
-        with np.errstate(divide="ignore"):
-            log_f = np.log(np.clip(control_centre, 1e-300, None)) + ratio
-        log_f = np.clip(log_f, -700.0, None)
+        table = smoothed_time_table(baseline)
+        self.u_nodes, self.s_nodes = table.u_nodes, table.s_nodes
+        inside = table.inside
         self._inside = inside
         self.log_u = np.log(self.u_nodes)
-        self._spline = RectBivariateSpline(self.log_u, self.s_nodes, log_f, kx=3, ky=3)
+        self._spline = RectBivariateSpline(self.log_u, self.s_nodes, table.log_f, kx=3, ky=3)
         self._inside_spline = RectBivariateSpline(self.log_u, self.s_nodes, inside.astype(float), kx=1, ky=1)
         # the evaluation table: log F on a grid 4× finer in log u and s (from the bicubic spline,
         # once), read by cubic convolution (smooth: no kinks for the fit's Jacobian to find), the
@@ -250,39 +110,20 @@ class TimeResolvedLookup:
         self._fine_inside = fine_inside.astype(float)
         self._fine_step = (float(self._fine_s[1] - self._fine_s[0]),
                            float(self._fine_log_u[1] - self._fine_log_u[0]))
-        self._log_sd = np.log(np.clip(np.where(inside, relative_sd, 1.0), 1e-6, 1.0))
-        self._log_bias = np.log(np.clip(np.where(inside, bias, 1.0), 1e-6, 1.0))
-        self.counts = counts
+        self._log_sd = np.log(np.clip(np.where(inside, table.relative_sd, 1.0), 1e-6, 1.0))
+        self._log_bias = np.log(np.clip(np.where(inside, table.relative_bias, 1.0), 1e-6, 1.0))
+        self.counts = table.counts
         #: width of the smoothing kernel in log τ (the fit's correlation length of the lookup error)
-        self.tau_bandwidth = _BANDWIDTH_LOG_TAU
-        self.tau_max = tau_max
-        self.u_max = float(u.max()) if u.size else 0.0
-
-    def _wide_shares(self, log_u, s):
-        """Shares (0–1) of the wide kernels in log u and in s at table coordinates (log u, s).
-
-        In log u: 0 within the first, 1 beyond the second distance of
-        :data:`_WIDE_FROM_TRANSPORT_LENGTHS`, linear in log u between.  In s: 0 up to twice
-        the time of the diffusion peak at that distance, 1 from six times it (linear in s),
-        the peak taken as τ_p = 0.3 (1 − g) u² + u (half-space diffusion at μa = 0,
-        t_p = ρ²/(10 D v) with D = 1/(3μs′) (Patterson et al. 1989, eq. 5 at μa = 0), plus
-        the straight path).
-        """
-        a, b = (math.log(t) for t in _WIDE_FROM_TRANSPORT_LENGTHS)
-        peak = np.log(0.3 * (1.0 - self.g) + np.exp(-log_u))  # log(τ_p/u²)
-        # before the peak the ratio to diffusion changes fast with u at fixed s: narrow there
-        after_peak = np.clip((s - peak + math.log(_WIDE_U_FROM_PEAK)) / -math.log(_WIDE_U_FROM_PEAK), 0.0, 1.0)
-        far = np.clip((log_u + math.log(1.0 - self.g) - a) / (b - a), 0.0, 1.0) * after_peak
-        late = np.clip((s - peak - math.log(_LATE_FROM_PEAK[0])) / math.log(_LATE_FROM_PEAK[1] / _LATE_FROM_PEAK[0]),
-                       0.0, 1.0)
-        return far, late
+        self.tau_bandwidth = BANDWIDTH_LOG_TAU
+        self.tau_max = table.tau_max
+        self.u_max = table.u_max
 
     def tau_bandwidth_at(self, *, mus_per_mm, rho_mm, time_ps) -> np.ndarray:
         """Width (Gaussian SD in log τ) of the smoothing kernel at each point, as :meth:`relative_sd`."""
         _, _, u, tau, _ = self._scaled(np.zeros(np.size(mus_per_mm)), mus_per_mm, rho_mm, time_ps)
         _, lu, ls = self._coordinates(u, tau)
-        _, late = self._wide_shares(lu, ls)
-        return _BANDWIDTH_LOG_TAU + late * (_BANDWIDTH_LOG_TAU_LATE - _BANDWIDTH_LOG_TAU)
+        _, late = wide_shares(self.g, lu, ls)
+        return BANDWIDTH_LOG_TAU + late * (BANDWIDTH_LOG_TAU_LATE - BANDWIDTH_LOG_TAU)
 
     # ------------------------------------------------------------------ evaluation
     def _scaled(self, mua_per_mm, mus_per_mm, rho_mm, time_ps):
@@ -437,8 +278,8 @@ class TimeResolvedLookup:
         """Width (Gaussian SD in log u) of the smoothing kernel at each point (wider far out, after the peak)."""
         _, _, u, tau, _ = self._scaled(np.zeros(np.size(mus_per_mm)), mus_per_mm, rho_mm, time_ps)
         _, lu, ls = self._coordinates(u, tau)
-        far, _ = self._wide_shares(lu, ls)
-        return _BANDWIDTH_LOG_U + far * (_BANDWIDTH_LOG_U_FAR - _BANDWIDTH_LOG_U)
+        far, _ = wide_shares(self.g, lu, ls)
+        return BANDWIDTH_LOG_U + far * (BANDWIDTH_LOG_U_FAR - BANDWIDTH_LOG_U)
 
     def transform_error_covariance(self, *, mua_per_mm: float, mus_per_mm: float, rho_mm, frequency_mhz,
                                    times: int = 300) -> np.ndarray:
@@ -475,7 +316,7 @@ class TimeResolvedLookup:
         rows_noise = np.zeros((R, 2 * F, t.size))
         rows_bias = np.zeros((R, 2 * F, t.size))
         widths = np.zeros((R, t.size))
-        width_u = np.full(R, _BANDWIDTH_LOG_U)  # curve-weighted, as the transform weighs the curve
+        width_u = np.full(R, BANDWIDTH_LOG_U)  # curve-weighted, as the transform weighs the curve
         for r in range(R):
             grid = np.full(t.size, rho[r])
             value = self.point(mua_per_mm=[mua_per_mm], mus_per_mm=[mus_per_mm], rho_mm=grid, time_ps=t)[0]
