@@ -60,7 +60,7 @@ def register(subparsers) -> None:
 
 def _spectrum(args):
     from phantomlab.calibration.measurements import read_measurement
-    from phantomlab.calibration.unmix import spectrum_from_fit_json
+    from phantomlab.calibration.fit_json_spectrum import spectrum_from_fit_json
 
     if (args.optics_file is None) == (args.from_fit is None):
         raise InputError("unmix: give either OPTICS.csv or --from-fit FILE.json (one of them)")

@@ -14,7 +14,8 @@ import math
 import numpy as np
 import pytest
 
-from phantomlab.calibration.unmix import CONDITION_WARN, parse_chromophore_list, spectrum_from_fit_json, unmix_spectrum
+from phantomlab.calibration.fit_json_spectrum import spectrum_from_fit_json
+from phantomlab.calibration.unmix import CONDITION_WARN, parse_chromophore_list, unmix_spectrum
 from phantomlab.errors import InputError
 from phantomlab.materials.water import water_absorption_per_mm
 
