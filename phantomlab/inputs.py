@@ -26,6 +26,7 @@ from phantomlab.errors import InputError
 from phantomlab.limits import check_limit, limit
 
 __all__ = [
+    "float_array",
     "ABSOLUTE_ZERO_C",
     "MAX_TEMPERATURE_C",
     "DATA_DIRS_VARIABLE",
@@ -209,6 +210,16 @@ def check_finite(value, *, name: str) -> float:
     if not math.isfinite(number):
         raise InputError(f"{name} must be a finite number, got {number!r}")
     return number
+
+
+def float_array(value, *, name: str):
+    """A number or an array of numbers as a float ndarray (refuses text and other objects in one line)."""
+    import numpy as np
+
+    try:
+        return np.asarray(value, dtype=float)
+    except (TypeError, ValueError):
+        raise InputError(f"{name} must be a number or an array of numbers, got {str(value)[:40]!r}") from None
 
 
 def check_temperature_c(value, *, name: str) -> float:

@@ -25,6 +25,7 @@ from functools import lru_cache
 import numpy as np
 
 from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.inputs import float_array
 from phantomlab.materials.absorption_tables import LogPchip, absorption_table, coefficient_table
 from phantomlab.materials.water_sources import (
     DEFAULT_WATER_SOURCE,
@@ -62,21 +63,13 @@ TEMPERATURE_SPAN_C = 15.0
 LIQUID_WATER_RANGE_C = (0.0, 60.0)
 
 
-def _as_float_array(value, name: str) -> np.ndarray:
-    try:
-        array = np.asarray(value, dtype=float)
-    except (TypeError, ValueError):
-        raise InputError(f"{name} must be a number or an array of numbers, got {value!r}") from None
-    return array
-
-
 @lru_cache(maxsize=None)
 def _interpolant(source: str) -> LogPchip:
     return LogPchip(*water_absorption_rows(source))
 
 
 def _checked_wavelengths(wavelength_nm, band, what: str) -> np.ndarray:
-    wavelength = _as_float_array(wavelength_nm, "wavelength_nm")
+    wavelength = float_array(wavelength_nm, name="wavelength_nm")
     lo, hi = band
     finite = wavelength[np.isfinite(wavelength)]
     if finite.size and finite.min() <= 0:
@@ -147,7 +140,7 @@ def water_absorption_per_mm(wavelength_nm, *, source: str = DEFAULT_WATER_SOURCE
     mua = _interpolant(spec.name)(wavelength)
     if temperature_c is None:
         return mua
-    temperature = float(_as_float_array(temperature_c, "temperature_c"))
+    temperature = float(float_array(temperature_c, name="temperature_c"))
     if not np.isfinite(temperature) or temperature <= -273.15:
         raise InputError(f"water absorption: temperature_c must be a finite temperature in °C, got {temperature_c!r}")
     coefficient, _ = water_temperature_coefficient_per_mm_per_c(wavelength)

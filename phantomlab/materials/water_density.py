@@ -9,20 +9,13 @@ import warnings
 
 import numpy as np
 
-from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.errors import PhantomlabWarning
+from phantomlab.inputs import float_array
 
 __all__ = ["water_density_Kell1975", "KELL1975_BAND_C"]
 
 #: Temperature range of Kell's 1975 density formula [°C].
 KELL1975_BAND_C = (0.0, 150.0)
-
-
-def _as_float_array(value, name: str) -> np.ndarray:
-    try:
-        array = np.asarray(value, dtype=float)
-    except (TypeError, ValueError):
-        raise InputError(f"{name} must be a number or an array of numbers, got {value!r}") from None
-    return array
 
 
 def water_density_Kell1975(*, temperature_c=20.0) -> np.ndarray:
@@ -52,7 +45,7 @@ def water_density_Kell1975(*, temperature_c=20.0) -> np.ndarray:
     1. Kell, G. S. (1975). Density, thermal expansivity, and compressibility of liquid water
        from 0° to 150 °C. J. Chem. Eng. Data 20(1), 97–105. doi:10.1021/je60064a005
     """
-    t = _as_float_array(temperature_c, "temperature_c")
+    t = float_array(temperature_c, name="temperature_c")
     lo, hi = KELL1975_BAND_C
     finite = t[np.isfinite(t)]
     if finite.size and (finite.min() < lo or finite.max() > hi):
