@@ -48,6 +48,12 @@ def half_space():
     return {key: data[key] for key in data.files}
 
 
+def half_space_early():
+    """The gated low-noise run for early, strongly absorbing curves (``fixtures/mc_td_half_space_early.npz``)."""
+    data = np.load(FIXTURES / "mc_td_half_space_early.npz")
+    return {key: data[key] for key in data.files}
+
+
 def slab():
     data = np.load(FIXTURES / "mc_td_slab.npz")
     return {key: data[key] for key in data.files}
