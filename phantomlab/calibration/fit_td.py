@@ -72,6 +72,7 @@ from phantomlab.calibration.td_curves import (
     background_level,
     clean_irf,
     fit_window,
+    restart_poor_rows,
     rise_time_ps,
     running_mean,
     start_values,
@@ -327,6 +328,9 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         outcome = fit_blocks(residual_fn, x, mask=mask, lower=lower, upper=upper, row_aware=True,
                              max_nfev=None if attempt == 0 else 4, tolerance=_COST_TOLERANCE,
                              step_tolerance=_STEP_TOLERANCE)
+        if attempt == 0 and smooth_shape is not shape:
+            outcome = restart_poor_rows(outcome, residual_fn, smooth_residual, mask=mask, lower=lower, upper=upper,
+                                            tolerance=_COST_TOLERANCE, step_tolerance=_STEP_TOLERANCE)
         x = outcome.x
         curves = np.arange(W * R)
         c, amplitude, mu = expected(np.repeat(np.exp(x[:, 0]), R), np.repeat(np.exp(x[:, 1]), R), x[:, 2:].ravel() * SHIFT_UNIT_PS,
@@ -497,3 +501,5 @@ def _lookup_covariance(residual_fn, x, mask, errors, log_delay, W, R, K) -> np.n
             corr = np.where(same, np.sqrt(2 * h[:, None] * h[None, :] / pair) * np.exp(-gap / (2 * pair)), 0.0)
             out[w] += propagated_error_covariance(j, e, corr)
     return out
+
+
