@@ -34,7 +34,7 @@ import numpy as np
 
 from phantomlab.calibration.fd_measurements import FrequencyDomainMeasurement
 from phantomlab.calibration.fit_result import FitResult
-from phantomlab.calibration.fitting import fit_blocks, log_to_linear
+from phantomlab.calibration.fitting import far_worse_than_data_allow, fit_blocks, log_to_linear, with_rows
 from phantomlab.calibration.identifiability import _bands, outcome_warnings
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.jsonable import to_jsonable
@@ -263,10 +263,23 @@ def fit_fd(measurement: FrequencyDomainMeasurement, *, model: str = "kienle1997"
     else:
         x0 = _grid_start(residual_fn, W)
     mask = np.concatenate([finite.reshape(W, -1), finite.reshape(W, -1)], axis=1)
-    outcome = fit_blocks(residual_fn, x0, mask=mask, lower=[np.log(1e-6), np.log(1e-3)],
-                         upper=[np.log(5.0), np.log(50.0)], row_aware=True)
+    bounds = dict(lower=[np.log(1e-6), np.log(1e-3)], upper=[np.log(5.0), np.log(50.0)])
+    outcome = fit_blocks(residual_fn, x0, mask=mask, row_aware=True, **bounds)
     nuisance = (F if relative else 0) + (0 if offset_known else F)
     dof = mask.sum(axis=1) - 2 - nuisance
+    poor = np.flatnonzero(far_worse_than_data_allow(np.nansum(outcome.residuals**2, axis=1), dof))
+    if model == "mc" and with_sd and poor.size:
+        # the lookup's objective is rough: a row that stopped far worse than its data allow is
+        # fitted again from the converged diffusion fit, and the better solution kept
+        def on_poor(x_rows, rows):
+            return residual_fn(x_rows, poor[rows])
+
+        forward = diffusion
+        smooth = fit_blocks(on_poor, outcome.x[poor], mask=mask[poor], row_aware=True, **bounds)
+        forward = lookup_forward
+        again = fit_blocks(on_poor, smooth.x, mask=mask[poor], row_aware=True, **bounds)
+        better = np.flatnonzero(again.chi2 < outcome.chi2[poor])
+        outcome = with_rows(outcome, poor[better], again, better)
     chi2 = np.nansum(outcome.residuals**2, axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
         chi2_w = np.where(dof > 0, chi2 / np.maximum(dof, 1), np.nan)

@@ -21,10 +21,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from phantomlab.calibration.fitting import fit_blocks
+from phantomlab.calibration.fitting import far_worse_than_data_allow, fit_blocks, with_rows
 
 __all__ = ["MIN_BACKGROUND_BINS", "SHIFT_UNIT_PS", "background_level", "fit_window", "clean_irf", "running_mean",
-           "rise_time_ps", "peak_region", "start_values", "restart_poor_rows", "RESTART_CHI2_RED"]
+           "rise_time_ps", "peak_region", "start_values", "restart_poor_rows"]
 
 #: Fewest pre-pulse bins to estimate the background from.
 MIN_BACKGROUND_BINS = 10
@@ -162,13 +162,6 @@ def _half_rise(time, curves) -> np.ndarray:
     return np.nan_to_num(out, nan=0.0)
 
 
-#: A lookup fit whose χ²ᵣ after its first pass exceeds this is started again from the
-#: converged diffusion fit (the short diffusion start can leave the lookup's rough objective
-#: in a far basin: on the lookup's own noise-free curve at μs′/μa = 10, ρ 15 mm it stopped at
-#: μs′ +90 % with χ²ᵣ 187); the better of the two solutions is kept.  A fit that describes its
-#: data sits near 1; chosen well above that, so that good fits pay nothing (common practice,
-#: no source).
-RESTART_CHI2_RED = 1.5
 #: The restart's scan of a common time shift about diffusion's [ps]: half-width and step.
 #: Wider than diffusion's shift error (tens of ps at μs′/μa = 10, where its early rise is
 #: furthest from Monte Carlo) and finer than the curve's rise.
@@ -177,13 +170,15 @@ RESTART_SHIFT_STEP_PS = 4.0
 
 
 def restart_poor_rows(outcome, residual_fn, smooth_residual, *, mask, lower, upper, tolerance, step_tolerance):
-    """Rows of a first lookup pass above :data:`RESTART_CHI2_RED`, fitted again from the converged diffusion fit.
+    """Rows of a first lookup pass far worse than their data allow, fitted again from the converged diffusion fit.
 
     Each such row is fitted to convergence with the smooth diffusion model; at diffusion's
     (μa, μs′) the lookup's best common time shift is found by a scan
     (:data:`RESTART_SHIFT_SCAN_PS`), and the lookup fitted from there; where that lands lower
-    in χ², all the rows are fitted once more from the better starts (rows already settled
-    move little), so that the outcome stays one consistent solution.
+    in χ², the row takes that solution.  "Far worse": χ² more than 4 SD of the χ²
+    distribution above its mean (:func:`~phantomlab.calibration.fitting.far_worse_than_data_allow`);
+    the short diffusion start can leave the lookup's rough objective in a far basin (on the
+    lookup's own noise-free curve at μs′/μa = 10, ρ 15 mm it stopped at μs′ +90 %, χ²ᵣ 187).
 
     Parameters
     ----------
@@ -195,8 +190,7 @@ def restart_poor_rows(outcome, residual_fn, smooth_residual, *, mask, lower, upp
     mask, lower, upper, tolerance, step_tolerance
         As for :func:`~phantomlab.calibration.fitting.fit_blocks`.
     """
-    with np.errstate(invalid="ignore"):
-        poor = np.flatnonzero(~(outcome.chi2_red <= RESTART_CHI2_RED) & np.isfinite(outcome.chi2))
+    poor = np.flatnonzero(far_worse_than_data_allow(outcome.chi2, outcome.dof))
     if poor.size == 0:
         return outcome
 
@@ -217,10 +211,5 @@ def restart_poor_rows(outcome, residual_fn, smooth_residual, *, mask, lower, upp
     start = trial.reshape(offsets.size, poor.size, -1)[best, np.arange(poor.size)]
     again = fit_blocks(on_rows(residual_fn), start, mask=mask[poor], lower=lower, upper=upper, row_aware=True,
                        tolerance=tolerance, step_tolerance=step_tolerance)
-    better = again.chi2 < outcome.chi2[poor]
-    if not np.any(better):
-        return outcome
-    x = outcome.x.copy()
-    x[poor[better]] = again.x[better]
-    return fit_blocks(residual_fn, x, mask=mask, lower=lower, upper=upper, row_aware=True,
-                      tolerance=tolerance, step_tolerance=step_tolerance)
+    better = np.flatnonzero(again.chi2 < outcome.chi2[poor])
+    return with_rows(outcome, poor[better], again, better)
