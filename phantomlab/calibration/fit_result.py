@@ -136,8 +136,19 @@ class FitResult:
         return replace(self, warnings=tuple(merged))
 
     def parameter_lines(self) -> list[str]:
-        """One readable line per fitted extra parameter (``parameters`` but g, shown with the table)."""
-        return [parameter_line(name, value) for name, value in self.parameters.items() if name != "g"]
+        """One readable line per fitted extra parameter (``parameters`` but g, shown with the table).
+
+        A td fit's window fractions go on one line together.
+        """
+        parameters = dict(self.parameters)
+        lines = []
+        rise, tail = parameters.pop("window_rise_fraction", None), parameters.pop("window_tail_fraction", None)
+        if rise is not None and tail is not None:
+            lines.append(f"fit window: from {100 * rise:g} % of the peak on the rise to {100 * tail:g} % of it on the tail")
+        elif rise is not None or tail is not None:
+            parameters.update({k: v for k, v in (("window_rise_fraction", rise), ("window_tail_fraction", tail))
+                               if v is not None})
+        return lines + [parameter_line(name, value) for name, value in parameters.items() if name != "g"]
 
 
 def parameter_line(name: str, value) -> str:

@@ -149,8 +149,12 @@ def _table(result) -> str:
     offsets = getattr(result, "phase_offset_deg", None)
     if offsets is not None:
         freq = result.curves.get("frequency_mhz", [])
-        for w, row in zip(result.wavelength_nm, offsets):
-            lines.append(f"phase offset at {w:g} nm: " + ", ".join(f"{f:g} MHz {o:.2f} deg" for f, o in zip(freq, row)))
+        offset_sds = getattr(result, "phase_offset_sd_deg", None)
+        offset_sds = np.full(np.shape(offsets), np.nan) if offset_sds is None else np.asarray(offset_sds, float)
+        for w, row, row_sd in zip(result.wavelength_nm, offsets, offset_sds):
+            lines.append(f"phase offset at {w:g} nm: " + ", ".join(
+                f"{f:g} MHz {o:.2f}" + (f" ± {sd:.2g}" if np.isfinite(sd) else "") + " deg"
+                for f, o, sd in zip(freq, row, row_sd)))
     lines += input_lines(result.extras)
     return "\n".join(lines)
 

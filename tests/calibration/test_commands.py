@@ -8,6 +8,7 @@ temporary SQLite file, in the simulated lab of conftest.py (demo data, invented)
 
 import json
 import re
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -148,3 +149,15 @@ def test_fit_with_mua_from_the_recipe_stocks_reports_amounts(lab, tmp_path, caps
         entry = amounts[f"amount_{key}"]
         expected = dose[key] * truth[key][0]
         assert abs(entry["value"] - expected) < 3 * entry["sd"] + 0.05 * expected, key
+
+
+def test_td_and_fd_readable_output_names_the_window_and_the_offsets_with_sds(capsys):
+    measurements = Path(__file__).resolve().parents[2] / "recipes" / "measurements"
+    code, out, err = _run(capsys, ["fit", str(measurements / "demo-reference-td.csv"), "--kind", "td"])
+    assert code == 0, err
+    assert "fit window: from 10 % of the peak on the rise to 1 % of it on the tail" in out
+    assert "window_rise_fraction" not in out
+    code, out, err = _run(capsys, ["fit", str(measurements / "demo-reference-fd.csv"), "--kind", "fd"])
+    assert code == 0, err
+    offsets = [line for line in out.splitlines() if line.startswith("phase offset at ")]
+    assert offsets and all(re.search(r"MHz -?[0-9.]+ ± [0-9.e-]+ deg", line) for line in offsets), offsets
