@@ -34,7 +34,8 @@ class BandBaselines:
         :class:`~phantomlab.transport.montecarlo.Baseline` or
         :class:`~phantomlab.calibration.mc_lookup.TabulatedBaseline`, one per group.
     rows : tuple of ndarray of int
-        Indices of each group's wavelengths in the band (together each index exactly once).
+        Indices of each group's wavelengths in the band (together each index exactly once;
+        any sequences of integers are taken).
     size : int
         Number of wavelengths W of the band.
     """
@@ -44,9 +45,10 @@ class BandBaselines:
     size: int
 
     def __post_init__(self):
+        object.__setattr__(self, "rows", tuple(np.asarray(r, int).reshape(-1) for r in self.rows))
         if len(self.baselines) != len(self.rows) or not self.baselines:
             raise InputError("a band's baselines: one group of wavelength rows per baseline, at least one")
-        every = np.sort(np.concatenate([np.asarray(r, int) for r in self.rows]))
+        every = np.sort(np.concatenate(self.rows))
         if not np.array_equal(every, np.arange(self.size)):
             raise InputError(f"a band's baselines must cover each of its {self.size} wavelengths exactly once")
 
@@ -54,15 +56,8 @@ class BandBaselines:
         """A value per group spread to its wavelengths, shape (W,)."""
         out = np.empty(self.size)
         for value, rows in zip(values, self.rows):
-            out[np.asarray(rows, int)] = float(value)
+            out[rows] = float(value)
         return out
-
-    @property
-    def g(self) -> np.ndarray:
-        """The anisotropy of each wavelength's baseline, (W,)."""
-        from phantomlab.calibration.fit_srdr import baseline_anisotropy
-
-        return self.per_row([baseline_anisotropy(b) for b in self.baselines])
 
     @property
     def minimum_absorption_ratio(self) -> np.ndarray:
@@ -91,7 +86,7 @@ class RoutedLookup:
     def __init__(self, lookups, band: BandBaselines):
         self.lookups = tuple(lookups)
         self.band = band
-        self.rows = tuple(np.asarray(r, int) for r in band.rows)
+        self.rows = band.rows
         self.g = band.per_row([lookup.g for lookup in self.lookups])
         self.baseline = band
 
@@ -151,7 +146,7 @@ def routed_forward(forwards, band: BandBaselines):
         :class:`RoutedLookup`; it refuses any other number of pairs.
     """
     forwards = tuple(forwards)
-    rows = tuple(np.asarray(r, int) for r in band.rows)
+    rows = band.rows
 
     def route(name):
         def call(mua, musp):

@@ -267,8 +267,9 @@ def fit_fd(measurement: FrequencyDomainMeasurement, *, model: str = "kienle1997"
     outcome = fit_blocks(residual_fn, x0, mask=mask, row_aware=True, **bounds)
     nuisance = (F if relative else 0) + (0 if offset_known else F)
     dof = mask.sum(axis=1) - 2 - nuisance
-    poor = np.flatnonzero(far_worse_than_data_allow(np.nansum(outcome.residuals**2, axis=1), dof))
-    if model == "mc" and with_sd and poor.size:
+    poor = (np.flatnonzero(far_worse_than_data_allow(outcome.chi2, dof)) if model == "mc" and with_sd
+            else np.zeros(0, int))
+    if poor.size:
         # the lookup's objective is rough: a row that stopped far worse than its data allow is
         # fitted again from the converged diffusion fit, and the better solution kept
         def on_poor(x_rows, rows):

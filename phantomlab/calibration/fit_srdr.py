@@ -57,17 +57,6 @@ DIFFUSION_MIN_TRANSPORT_MFP = 2.0
 _NEAR_SOURCE_PASSES = 3
 
 
-def baseline_anisotropy(baseline) -> float:
-    """The anisotropy g a Monte Carlo baseline was run with."""
-    for name in ("g", "anisotropy"):
-        if hasattr(baseline, name):
-            return float(getattr(baseline, name))
-    inputs = getattr(baseline, "inputs", None) or {}
-    if "g" in inputs:
-        return float(inputs["g"])
-    raise InputError("the Monte Carlo baseline does not say which g it was run with")
-
-
 _LOOKUPS: dict[int, tuple] = {}
 
 
