@@ -39,9 +39,10 @@ DEFAULT_MODELS = {kind: models[0] for kind, models in FIT_MODELS.items()}
 #: The model the default td/fd fit uses where the Monte Carlo lookup does not apply (named in
 #: the fit's ``model_note``).
 FALLBACK_MODELS = {"td": "kienle1997", "fd": "kienle1997"}
-#: Transmittance through a slab falls back to contini1997 (Contini et al. 1997 flux): on the
-#: Monte Carlo slab of tests/calibration/test_td_model_error.py its bias is about half
-#: kienle1997's (μs′ −7…−17 % against −12…−25 % at μs′/μa 10–1000).
+#: Transmittance the Monte Carlo slab model does not serve (fit_td_slab.SlabModelOutOfRange)
+#: falls back to contini1997 (Contini et al. 1997 flux): on the Monte Carlo slab of
+#: tests/calibration/test_td_model_error.py its bias is about half kienle1997's (μs′
+#: −7…−17 % against −12…−25 % at μs′/μa 10–1000).
 TRANSMITTANCE_FALLBACK = "contini1997"
 
 #: Options of the fit itself (not metadata): the model, an explicit baseline, a spectral
@@ -146,8 +147,12 @@ def fit_measurement(
                           constraint=constraint, start=start)
     elif kind == "td":
         from phantomlab.calibration.fit_td import fit_td
+        from phantomlab.calibration.fit_td_slab import SlabNodeSource, fit_td_slab
 
-        result = fit_td(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline)
+        if isinstance(baseline, SlabNodeSource):
+            result = fit_td_slab(measurement, source=baseline, n=n, n_outside=n_outside)
+        else:
+            result = fit_td(measurement, model=model, n=n, n_outside=n_outside, baseline=baseline)
     elif kind == "fd":
         from phantomlab.calibration.fit_fd import fit_fd
 
@@ -169,7 +174,10 @@ def _sd_parts(measurement: Measurement, model: str) -> tuple[str, ...]:
         return ("as_measured",) if measurement.sd is not None else ()
     if measurement.kind == "td":
         parts = ["poisson_counts"] + (["replicate_spread"] if measurement.replicates > 1 else [])
-        return tuple(parts + (["lookup_photon_noise"] if model == "mc" else []))
+        if model == "mc":
+            parts.append("slab_photon_noise" if getattr(measurement, "geometry", "") == "transmittance"
+                         else "lookup_photon_noise")
+        return tuple(parts)
     if measurement.kind == "fd":
         base = ("measurement_sd",) if measurement.amplitude_sd is not None else ("residual_scatter",)
         return base + (("lookup_photon_noise",) if model == "mc" else ())
@@ -275,18 +283,23 @@ def fit_measurement_file(path_or_text, *, kind: str, **metadata: Any) -> FitResu
     def run(model, inputs):
         return _run(measurement, model, inputs, fit_options)
 
+    from phantomlab.calibration.fit_td_slab import SlabModelOutOfRange
     from phantomlab.calibration.mc_lookup_time import LookupReachError
 
     try:
         result, extra = run(model, inputs)
-    except LookupReachError as exc:
+    except (LookupReachError, SlabModelOutOfRange) as exc:
         if requested is not None or kind not in FALLBACK_MODELS:
             raise
         model = _fallback_model(kind, measurement)
         note = _fallback_note(model, kind, exc.reason)
         inputs = _model_inputs(measurement, sources[0], model=model, metadata=metadata, fit_options=fit_options)
         result, extra = run(model, inputs)
-    if requested is None and kind in FALLBACK_MODELS and note is None:
+    if requested is None and kind == "td" and getattr(measurement, "geometry", "") == "transmittance" and note is None:
+        note = ("td model: contini1997 slab diffusion corrected by direct Monte Carlo runs of slabs (the default for "
+                "transmittance; runs at " + ", ".join(f"{t:g}" for t in result.extras.get("slab_nodes", []))
+                + " transport lengths)")
+    elif requested is None and kind in FALLBACK_MODELS and note is None:
         note = (f"{kind} model: the Monte Carlo lookup (the default; reflectance from a thick phantom, every "
                 + ("distance and the whole fit window" if kind == "td" else "distance's whole curve")
                 + " within its baseline's reach)")
@@ -309,9 +322,7 @@ def lookup_not_applicable(measurement: Measurement) -> str | None:
     geometry = getattr(measurement, "geometry", "reflectance")
     thickness = getattr(measurement, "thickness_mm", None)
     if geometry == "transmittance":
-        return (f"the Monte Carlo baselines are half-space runs and these data are transmittance through a "
-                f"{thickness:g} mm slab" if thickness is not None else
-                "the Monte Carlo baselines are half-space runs and these data are transmittance")
+        return None  # the slab model (fit_td_slab.py), Monte Carlo too
     if thickness is not None:
         return (f"the Monte Carlo baselines are half-space runs and this phantom is a {thickness:g} mm slab "
                 "(the diffusion model takes its thickness)")
@@ -325,7 +336,7 @@ def _fallback_model(kind: str, measurement: Measurement) -> str:
 
 
 def _fallback_note(model: str, kind: str, reason: str) -> str:
-    return (f"{kind} model: diffusion {model} instead of the default Monte Carlo lookup, "
+    return (f"{kind} model: diffusion {model} instead of the default Monte Carlo model, "
             f"because {reason}")
 
 

@@ -151,9 +151,20 @@ def resolve_model_inputs(
         from phantomlab.calibration.baseline_cache import DEFAULT_G
 
         g, g_origin = DEFAULT_G, "default"
-    from phantomlab.calibration.baseline_cache import cache_settings, obtain_baseline, obtain_photon_baseline
+    from phantomlab.calibration.baseline_cache import (baseline_folder, cache_settings, obtain_baseline,
+                                                        obtain_photon_baseline)
 
     rounded = cache_settings(g=g, n=n, n_outside=n_outside)
+    if measurement.kind == "td" and getattr(measurement, "geometry", "reflectance") == "transmittance":
+        # transmittance: the slab model's Monte Carlo nodes, taken from the cache by the fit
+        # itself once it knows the slab's thickness in transport lengths (fit_td_slab.py)
+        from phantomlab.calibration.fit_td_slab import SlabNodeSource
+
+        source = SlabNodeSource(g=rounded["g"], n=rounded["n"], n_outside=rounded["n_outside"], folder=baseline_dir,
+                                rebuild=rebuild, progress=progress)
+        return ModelInputs(n=n, n_origin=n_origin, n_outside=n_outside, n_outside_origin=n_outside_origin,
+                           g=rounded["g"], g_origin=g_origin, baseline=source,
+                           baseline_path=str(baseline_folder(baseline_dir)), baseline_origin="cache (slab runs)")
     # td and fd read the photons' path lengths, which only the baseline file itself keeps
     obtain = obtain_photon_baseline if measurement.kind in ("td", "fd") else obtain_baseline
     cached = obtain(g=g, n=n, n_outside=n_outside, folder=baseline_dir, rebuild=rebuild, progress=progress)

@@ -64,8 +64,10 @@ SD_PARTS = {
     "reference_phantom": "raw readings: the reference phantom's optics uncertainty",
     "sphere_standards": "integrating sphere: the reflectance standard's and the sphere walls' stated uncertainty",
     "lookup_photon_noise": "the Monte Carlo lookup's own photon noise (and, td and fd, its smoothing bias), added to the data SDs",
+    "slab_photon_noise": "the photon noise of the Monte Carlo slab runs that correct the diffusion model, added to the data SDs",
     "misfit_scale": "multiplied by sqrt(chi2_red) at wavelengths where chi2_red > 1",
     "diffusion_model_error": "the diffusion model's error against Monte Carlo (measured map), propagated to mua and musp",
+    "slab_model_error": "the slab model's error between its Monte Carlo runs (measured by fitting each run from the others), propagated to mua and musp",
     "as_measured": "values and SDs taken from the file as they are (no model)",
 }
 
@@ -174,7 +176,7 @@ def assess_fit(result: FitResult, *, sd_parts=("measurement_sd",)) -> FitResult:
     if result.model_covariance is not None:
         extra = np.asarray(result.model_covariance, float)
         if np.any(extra[np.isfinite(extra)] != 0.0):
-            parts.append("diffusion_model_error")
+            parts.append("slab_model_error" if result.model == "mc-slab" else "diffusion_model_error")
         covariance = covariance + np.nan_to_num(extra, nan=0.0)
     with np.errstate(invalid="ignore"):
         mua_sd = np.sqrt(np.diagonal(covariance, axis1=1, axis2=2)[:, 0])

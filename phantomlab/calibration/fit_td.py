@@ -78,15 +78,17 @@ from phantomlab.calibration.td_curves import (
     start_values,
 )
 from phantomlab.calibration.td_measurements import TimeDomainMeasurement
+from phantomlab.calibration.td_models import TD_FIT_MODELS, face_average, td_curve_model
 from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.jsonable import to_jsonable
 from phantomlab.transport.convolution import irf_fwhm_ps, prepare_irf
 
-__all__ = ["TD_FIT_MODELS", "DEFAULT_WINDOW", "TimeDomainFit", "fit_td", "td_curve_model"]
+__all__ = ["TD_FIT_MODELS", "DEFAULT_WINDOW", "TimeDomainFit", "fit_td"]
 
-TD_FIT_MODELS = ("kienle1997", "contini1997", "patterson1989", "mc")
 #: Fit window (rise, tail) as fractions of the peak.  # common practice, no source
-DEFAULT_WINDOW = {"diffusion": (0.5, 0.01), "mc": (0.1, 0.01)}
+#: (the slab model starts where diffusion does: its correction changes fastest, and from
+#: node to node most, on the early rise)
+DEFAULT_WINDOW = {"diffusion": (0.5, 0.01), "mc": (0.1, 0.01), "mc-slab": (0.5, 0.01)}
 #: Diffusion's shape error against Monte Carlo in a fit window: (relative SD of a bin,
 #: correlation width in ln t).  An empirical error model: set so that diffusion fits of the
 #: independent half-space Monte Carlo run (reflectance, ρ 10–20 mm, μs′/μa 10–1000) lie within
@@ -94,6 +96,10 @@ DEFAULT_WINDOW = {"diffusion": (0.5, 0.01), "mc": (0.1, 0.01)}
 #: used to set it: 98 % with contini1997, 93 % with kienle1997);
 #: tests/calibration/test_td_model_error.py.
 DIFFUSION_SHAPE_ERROR = (0.02, 0.2)
+#: The slab model's own shape error between its Monte Carlo runs (``mc-slab``; the same form):
+#: sized on fits of each run from the others (every second node left out, so interpolated
+#: over twice the step) and checked on the independent slab run; tests/calibration/test_fit_td_slab.py.
+SLAB_SHAPE_ERROR = (0.0025, 0.2)
 #: Passes of the Poisson reweighting (the weights settle in two).
 IRLS_PASSES = 2
 #: The fit stops when a step changes χ² by less than this (relative): Δχ² of 0.002 over 200
@@ -139,56 +145,19 @@ class TimeDomainFit(FitResult):
         return payload
 
 
-def td_curve_model(*, model: str, geometry: str, thickness_mm, n: float, n_outside: float, baseline=None):
-    """The response R(ρ, t) of one trial per row: ``shape(mua (N,), musp (N,), rho (N,), times (N, L))``."""
-    if model == "mc":
-        from phantomlab.calibration.fit_srdr import check_baseline_indices
-        from phantomlab.calibration.mc_lookup_time import time_resolved_lookup
-
-        if baseline is None:
-            raise InputError("td model 'mc' needs a Monte Carlo baseline (--baseline FILE)")
-        if geometry != "reflectance" or thickness_mm is not None:
-            raise InputError("td model 'mc' is for reflectance from a thick phantom (the baselines are half-space "
-                             "runs); fit transmittance or a thin slab with kienle1997, contini1997 or patterson1989")
-        check_baseline_indices(baseline, n=n, n_outside=n_outside)
-        lookup = time_resolved_lookup(baseline)
-
-        def shape(mua, musp, rho, times):
-            mus = np.asarray(musp, float) / (1.0 - lookup.g)
-            return lookup.point(mua_per_mm=mua, mus_per_mm=mus, rho_mm=np.broadcast_to(np.asarray(rho)[:, None],
-                                                                                        times.shape), time_ps=times)
-
-        def relative_sd(musp, rho, times):
-            mus = np.asarray(musp, float) / (1.0 - lookup.g)
-            return lookup.relative_sd(mus_per_mm=mus, rho_mm=np.broadcast_to(np.asarray(rho)[:, None], times.shape),
-                                      time_ps=times)
-
-        shape.lookup = lookup
-        shape.relative_sd = relative_sd
-        return shape
-    if model not in TD_FIT_MODELS:
-        raise InputError(f"unknown td fit model {model!r}; accepted: {', '.join(TD_FIT_MODELS)}")
-    from phantomlab.transport.time_domain import time_resolved_evaluator
-
-    evaluate = time_resolved_evaluator(n=n, n_outside=n_outside, thickness_mm=thickness_mm, geometry=geometry,
-                                       model=model)
-
-    def shape(mua, musp, rho, times):
-        return evaluate(mua_per_mm=np.asarray(mua, float)[:, None], musp_per_mm=np.asarray(musp, float)[:, None],
-                        rho_mm=np.asarray(rho, float)[:, None], time_ps=times)
-
-    return shape
-
-
 def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: float | None = None,
            n_outside: float | None = None, thickness_mm: float | None = None, baseline=None,
-           window_rise_fraction: float | None = None, window_tail_fraction: float | None = None) -> TimeDomainFit:
+           window_rise_fraction: float | None = None, window_tail_fraction: float | None = None,
+           slab_correction=None, musp_range_per_mm: tuple[float, float] | None = None) -> TimeDomainFit:
     """Fit μa and μs′ (with a time shift and an amplitude per curve) to time-resolved histograms.
 
     Parameters
     ----------
     measurement : TimeDomainMeasurement
-    model : {'kienle1997', 'contini1997', 'patterson1989', 'mc'}
+    model : {'kienle1997', 'contini1997', 'patterson1989', 'mc', 'mc-slab'}
+        ``mc-slab``: transmittance through a slab, contini1997 corrected by direct Monte Carlo
+        runs (:mod:`phantomlab.calibration.slab_time_correction`; give ``slab_correction``;
+        :func:`phantomlab.calibration.fit_td_slab.fit_td_slab` chooses and runs them).
     n, n_outside : float, optional
         Phantom and outside index (default: the sidecar's; n is required).
     thickness_mm : float, optional [mm]
@@ -198,6 +167,10 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     window_rise_fraction, window_tail_fraction : float, optional
         Fit window edges as fractions of the peak (default: the sidecar's, else
         :data:`DEFAULT_WINDOW`).
+    slab_correction : SlabCorrection, optional
+        For ``model='mc-slab'``.
+    musp_range_per_mm : (float, float), optional [1/mm]
+        Bounds of μs′ (default 1e-3 to 50); the slab model keeps to its nodes.
 
     Returns
     -------
@@ -216,11 +189,16 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         raise InputError("a transmittance fit needs the slab's thickness: give --thickness-mm D")
     if model not in TD_FIT_MODELS:
         raise InputError(f"unknown td fit model {model!r}; accepted: {', '.join(TD_FIT_MODELS)}")
-    family = "mc" if model == "mc" else "diffusion"
+    family = model if model in ("mc", "mc-slab") else "diffusion"
     rise = window_rise_fraction or measurement.window_rise_fraction or DEFAULT_WINDOW[family][0]
     tail = window_tail_fraction or measurement.window_tail_fraction or DEFAULT_WINDOW[family][1]
     shape = td_curve_model(model=model, geometry=geometry, thickness_mm=thickness, n=n, n_outside=n_outside,
-                           baseline=baseline)
+                           baseline=baseline, slab_correction=slab_correction)
+    if meta.detector == "fibre":
+        shape = face_average(shape, core_mm=float(meta.fibre_core_mm), rho_mm=measurement.rho_mm)
+    elif meta.detector != "point":
+        raise InputError(f"{measurement.name}: detector = {meta.detector!r} is for srdr; a td fit takes 'point' or "
+                         "'fibre' (with fibre_core_mm)")
     W, R, K = measurement.counts.shape
     present = np.isfinite(measurement.counts[..., 0])
     if not np.all(present):
@@ -280,8 +258,11 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
 
     # the lookup's objective is rough on the scale of its photon noise: it starts from the
     # smooth diffusion model's grid and fit (same geometry), which lands in the right basin
-    smooth_shape = shape if model != "mc" else td_curve_model(
-        model="kienle1997", geometry=geometry, thickness_mm=thickness, n=n, n_outside=n_outside)
+    smooth_shape = shape if family == "diffusion" else td_curve_model(
+        model="kienle1997" if model == "mc" else "contini1997", geometry=geometry, thickness_mm=thickness, n=n,
+        n_outside=n_outside)
+    if smooth_shape is not shape and meta.detector == "fibre":
+        smooth_shape = face_average(smooth_shape, core_mm=float(meta.fibre_core_mm), rho_mm=measurement.rho_mm)
 
     def expected(mua_c, musp_c, shift_c, curves, sd=None, using=None):
         """Shape c (unit amplitude), amplitude A and μ for the given curves."""
@@ -301,8 +282,10 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
 
     start = start_values(lambda *a, **k: expected(*a, using=smooth_shape, **k), counts, background, windows, time, W, R)
     P = 2 + R
-    lower = np.concatenate([[np.log(1e-6), np.log(1e-3)], np.full(R, (time[0] - time[-1]) / SHIFT_UNIT_PS)])
-    upper = np.concatenate([[np.log(5.0), np.log(50.0)], np.full(R, (time[-1] - time[0]) / SHIFT_UNIT_PS)])
+    musp_low, musp_high = (1e-3, 50.0) if musp_range_per_mm is None else musp_range_per_mm
+    lower = np.concatenate([[np.log(1e-6), np.log(musp_low)], np.full(R, (time[0] - time[-1]) / SHIFT_UNIT_PS)])
+    upper = np.concatenate([[np.log(5.0), np.log(musp_high)], np.full(R, (time[-1] - time[0]) / SHIFT_UNIT_PS)])
+    start = np.clip(start, lower + 1e-9, upper - 1e-9)
     sd = np.sqrt(np.maximum(counts, 1.0))
     mask = windows.reshape(W, R * K)
     if smooth_shape is not shape:
@@ -362,15 +345,13 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         # and the smoothing's bias
         with np.errstate(divide="ignore", invalid="ignore"):
             rel = weighted(lambda times: model_sd(musp_c, rho_curve, np.maximum(times, 1e-3))) / held
-            width = weighted(lambda times: shape.lookup.tau_bandwidth_at(
-                mus_per_mm=musp_c / (1.0 - shape.lookup.g), rho_mm=np.broadcast_to(rho_curve[:, None], times.shape),
-                time_ps=np.maximum(times, 1e-3))) / held
-            bias = weighted(lambda times: shape.lookup.relative_bias(
-                mus_per_mm=musp_c / (1.0 - shape.lookup.g), rho_mm=np.broadcast_to(rho_curve[:, None], times.shape),
-                time_ps=np.maximum(times, 1e-3))) / held
+            width = weighted(lambda times: shape.bandwidth_at(musp_c, rho_curve, np.maximum(times, 1e-3))) / held
+            with_bias = getattr(shape, "relative_bias", None)
+            bias = (weighted(lambda times: with_bias(musp_c, rho_curve, np.maximum(times, 1e-3))) / held
+                    if with_bias is not None else np.zeros_like(rel))
         rel = np.where(np.isfinite(rel), rel, 0.0)
         bias = np.where(np.isfinite(bias), bias, 0.0)
-        width = np.where(np.isfinite(width) & (width > 0), width, shape.lookup.tau_bandwidth)
+        width = np.where(np.isfinite(width) & (width > 0), width, shape.default_bandwidth)
         # a bin holds the response over a spread of ln t (the IRF and the bin): the lookup's
         # noise, correlated over ``width`` in ln t, is averaged over that spread, which lowers
         # its variance by width/√(width² + spread²) and widens its correlation to
@@ -387,10 +368,11 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
              ((amplitude[:, None] * c * bias) / sd, widened)], log_time, W, R, K)
     values, cov = log_to_linear(x[:, :2], cov_log[:, :2, :2])
     model_covariance = None
-    if family == "diffusion":
-        # diffusion's own shape error against Monte Carlo (DIFFUSION_SHAPE_ERROR), propagated
-        # like the lookup's noise; assess_fit adds it to the SDs as diffusion_model_error
-        relative, width = DIFFUSION_SHAPE_ERROR
+    if family in ("diffusion", "mc-slab"):
+        # diffusion's own shape error against Monte Carlo (DIFFUSION_SHAPE_ERROR), or the slab
+        # model's between its runs, propagated like the lookup's noise; assess_fit adds it to
+        # the SDs (diffusion_model_error, slab_model_error)
+        relative, width = DIFFUSION_SHAPE_ERROR if family == "diffusion" else SLAB_SHAPE_ERROR
         shape_cov = _lookup_covariance(lambda x_rows, rows: residual_fn(x_rows, rows), x, mask,
                                        [(relative * amplitude[:, None] * c / sd, np.full(log_time.shape, width))],
                                        log_time, W, R, K)[:, :2, :2]
@@ -430,7 +412,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     messages = list(dict.fromkeys(messages))
     for message in messages:
         warnings.warn(message, PhantomlabWarning, stacklevel=2)
-    label = "mc-lookup" if model == "mc" else f"diffusion-{model}"
+    label = {"mc": "mc-lookup", "mc-slab": "mc-slab"}.get(model, f"diffusion-{model}")
     return TimeDomainFit(
         kind="td", model=label, wavelength_nm=measurement.wavelength_nm, mua_per_mm=mua_fit, musp_per_mm=musp_fit,
         mua_sd_per_mm=mua_sd, musp_sd_per_mm=musp_sd, covariance=cov, chi2_red=chi2_all, chi2_red_per_wavelength=chi2_w,
@@ -501,5 +483,3 @@ def _lookup_covariance(residual_fn, x, mask, errors, log_delay, W, R, K) -> np.n
             corr = np.where(same, np.sqrt(2 * h[:, None] * h[None, :] / pair) * np.exp(-gap / (2 * pair)), 0.0)
             out[w] += propagated_error_covariance(j, e, corr)
     return out
-
-

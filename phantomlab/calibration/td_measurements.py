@@ -51,6 +51,10 @@ IRF_COLUMNS = ("time_ps", "counts")
 #: Sidecar keys of this kind (the common ones are read by metadata_from_mapping).
 TD_KEYS = ("geometry", "irf", "scale_counts_mm2", "background_counts", "window_rise_fraction",
            "window_tail_fraction")
+#: Largest detection face a td sidecar may give (``detector = "fibre"``, ``fibre_core_mm``) [mm]:
+#: time-resolved transmittance is often collected by a fibre bundle or a detector window some
+#: millimetres wide on the axis.  # common practice, no source
+TD_FIBRE_CORE_MAX_MM = 12.0
 
 
 @dataclass(frozen=True, eq=False)  # holds arrays
@@ -218,8 +222,9 @@ def read_td(path_or_text, *, irf=None, **options) -> TimeDomainMeasurement:
     geometry = table.get("geometry", "reflectance")
     if geometry not in ("reflectance", "transmittance"):
         raise InputError(f"{where}: geometry = {geometry!r}; accepted: reflectance, transmittance")
-    common = {k: v for k, v in table.items() if k not in TD_KEYS}
+    common = {k: v for k, v in table.items() if k not in TD_KEYS + ("detector", "fibre_core_mm")}
     metadata = metadata_from_mapping(common, where=where, base_dir=base_dir)
+    metadata = replace(metadata, **_td_detector(table, where))
     thickness = metadata.thickness_mm
     if geometry == "transmittance" and thickness is None:
         raise InputError(f"{where}: geometry = \"transmittance\" needs thickness_mm (the slab's thickness)")
@@ -341,3 +346,23 @@ def combine_td_replicates(items) -> TimeDomainMeasurement:
     total.setflags(write=False)
     return replace(first, counts=total, replicates=sum(m.replicates for m in items),
                    name="+".join(m.name for m in items))
+
+
+def _td_detector(table, where: str) -> dict:
+    """``detector`` (``point``, the default, or ``fibre``) and ``fibre_core_mm`` of a td sidecar, checked."""
+    detector = table.get("detector", "point")
+    if detector not in ("point", "fibre"):
+        raise InputError(f"{where}: detector = {detector!r}; accepted for td: point, fibre (with fibre_core_mm)")
+    core = table.get("fibre_core_mm")
+    if detector == "point":
+        if core is not None:
+            raise InputError(f"{where}: fibre_core_mm is given but detector is not 'fibre'; add detector = 'fibre'")
+        return {"detector": "point", "fibre_core_mm": None}
+    try:
+        core = float(core)
+    except (TypeError, ValueError):
+        raise InputError(f"{where}: detector = 'fibre' needs fibre_core_mm, the face's diameter in mm (> 0 and at "
+                         f"most {TD_FIBRE_CORE_MAX_MM:g})") from None
+    if not (np.isfinite(core) and 0 < core <= TD_FIBRE_CORE_MAX_MM):
+        raise InputError(f"{where}: fibre_core_mm = {core:g}; accepted: > 0 and at most {TD_FIBRE_CORE_MAX_MM:g} mm")
+    return {"detector": "fibre", "fibre_core_mm": core}

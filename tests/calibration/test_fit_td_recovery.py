@@ -167,7 +167,7 @@ def test_the_default_td_fit_falls_back_to_diffusion_with_a_note_where_the_lookup
     rng = np.random.default_rng(4101)
     fit = _default_fit(curve, [(rho, rng.poisson(curve.lam))], thickness_mm=60.0)
     assert fit.model == "diffusion-kienle1997"
-    assert "instead of the default Monte Carlo lookup, because" in fit.extras["model_note"]
+    assert "instead of the default Monte Carlo model, because" in fit.extras["model_note"]
     assert "60 mm slab" in fit.extras["model_note"]
 
 

@@ -1,0 +1,266 @@
+"""Time-resolved transmittance through a slab: diffusion corrected by direct Monte Carlo runs (layer 3).
+
+The slab diffusion model of Contini, Martelli & Zaccanti (1997, eq. 36 with the extrapolated
+boundary) misses the shape of transport's transmittance curve by some per cent, smoothly along
+it (tests/calibration/test_fit_td_transmittance.py): at 18 transport lengths the curve from
+half its peak to 5 % of it drifts by 8 % against Monte Carlo, which biases a fitted μs′ by
+−7 to −19 % and μa by up to −19 % (μs′/μa 10–1000).  This module keeps that model's form and
+multiplies it by the ratio C = T_MC/T_diffusion measured on direct Monte Carlo runs of
+non-absorbing slabs (:mod:`phantomlab.calibration.slab_time_nodes`):
+
+    T(ρ, t; μa, μs′, d) = T_contini1997(ρ, t; μa, μs′, d) · C(ρ/d, y; τ′),
+    y = v t/(3 μs′ d²) (the diffusion time D v t/d²),  τ′ = μs′ d.
+
+Both factors carry absorption alike (exp(−μa v t), exact for Monte Carlo by the Beer–Lambert
+weight and in the diffusion model with D = 1/(3μs′)), so C does not depend on μa.  On each
+node C is smoothed in (ρ/d, ln y) by a local-linear kernel regression (Cleveland 1979)
+weighted by the tallies' inverse variances: Gaussian kernels 0.08 d wide in ρ/d and, in ln y,
+0.05 up to twice the time of the diffusion peak, widening (linear in ln y) to 0.3 from six
+times it, where C changes slowly (the late decay of transport differs from diffusion's by a
+small rate).  Between nodes ln C is interpolated linearly in ln τ′ (up to half a node step
+beyond the outer nodes).  The smoothing's standard error is kept per node and enters the
+fit's SDs as a model error correlated over the kernel width (``slab_photon_noise``).
+
+References
+----------
+Contini D, Martelli F, Zaccanti G 1997, Appl Opt 36:4587–4599 (slab diffusion, eq. 36).
+Cleveland WS 1979, J Am Stat Assoc 74:829–836 (local regression).
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+
+from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.transport.time_domain_images import SPEED_OF_LIGHT_MM_PER_PS
+
+__all__ = ["SlabCorrection", "BANDWIDTH_RHO", "BANDWIDTH_LOG_Y", "BANDWIDTH_LOG_Y_LATE", "MAX_RHO_OVER_D"]
+
+#: Kernel widths (Gaussian SDs): in ρ/d, and in ln y early and late (see the module docstring).
+#: Chosen on the independent slab run tests/calibration/fixtures/mc_td_slab.npz.
+BANDWIDTH_RHO = 0.08
+BANDWIDTH_LOG_Y = 0.05
+BANDWIDTH_LOG_Y_LATE = 0.6
+_LATE_FROM_PEAK = (2.0, 6.0)
+#: Lateral offsets the nodes serve (their rings reach d/2; the kernel needs room).
+MAX_RHO_OVER_D = 0.4
+#: The grid C is kept on: ln y from ln 0.01 in steps of 0.02 (bilinear between: the kernels are
+#: at least 0.05 wide); ρ/d at the rings' centres.
+_LOG_Y_STEP = 0.02
+_REBIN = 1
+#: A node's C is used where its standard error is below this (relative); beyond, the fit is refused.
+MAX_RELATIVE_SD = 0.05
+#: Beyond the photons C is held and its error taken as this (relative), so that the SDs say it.
+SD_CAP = 0.5
+
+
+def _diffusion_rings(node, time_ps):
+    """Contini 1997 transmittance of the node's slab (μa = 0), averaged over each ring [1/(mm² ps)]."""
+    from phantomlab.transport.time_domain import time_resolved_evaluator
+
+    evaluate = time_resolved_evaluator(n=node.n, n_outside=node.n_outside, thickness_mm=node.thickness_mm,
+                                       geometry="transmittance", model="contini1997")
+    x, w = np.polynomial.legendre.leggauss(8)
+    edges = node.rho_edges_mm
+    out = np.zeros((edges.size - 1, time_ps.size))
+    for j in range(edges.size - 1):
+        a, b = edges[j], edges[j + 1]
+        radius = 0.5 * (b - a) * (x + 1) + a
+        weight = 0.5 * (b - a) * w * 2 * np.pi * radius / (np.pi * (b * b - a * a))
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", PhantomlabWarning)
+            values = evaluate(mua_per_mm=0.0, musp_per_mm=node.musp_per_mm, rho_mm=radius[:, None],
+                              time_ps=time_ps[None, :])
+        out[j] = weight @ values
+    return out
+
+
+class _NodeTable:
+    """ln C and its standard error on (ρ/d, ln y) of one node."""
+
+    def __init__(self, node):
+        v = SPEED_OF_LIGHT_MM_PER_PS / node.n
+        d = node.thickness_mm
+        scale = v / (3.0 * node.tau_prime * d)  # y per ps
+        usable = (node.time_ps.size // _REBIN) * _REBIN
+        t = node.time_ps[:usable].reshape(-1, _REBIN).mean(axis=1)
+        mc = node.values[:, :usable].reshape(node.values.shape[0], -1, _REBIN).mean(axis=2)
+        mc_sd = np.sqrt((node.sd[:, :usable] ** 2).reshape(node.values.shape[0], -1, _REBIN).sum(axis=2)) / _REBIN
+        fine = _diffusion_rings(node, node.time_ps[:usable])
+        diffusion = fine.reshape(fine.shape[0], -1, _REBIN).mean(axis=2)
+        rho = 0.5 * (node.rho_edges_mm[1:] + node.rho_edges_mm[:-1]) / d
+        log_y = np.log(t * scale)
+        # the ratio z = T_MC/T_diffusion, regressed with weights area·T_diffusion: the tallies'
+        # variance is about proportional to their expected value over the ring's area, so this is
+        # the least-squares fit of T_MC itself with noise-free weights (weights from the noisy
+        # tallies, or logarithms of them, would bias C where photons are few)
+        area = np.pi * np.diff(node.rho_edges_mm**2)[:, None] * np.ones_like(mc)
+        valid = (diffusion > 0) & np.isfinite(mc)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio = np.where(valid, mc / diffusion, 0.0)
+            variance = np.where(valid, (mc_sd / diffusion) ** 2, 0.0)
+        weight = np.where(valid, area * diffusion, 0.0)
+        weight = weight / weight.max()
+        # the peak of the diffusion curve on the axis ring, in ln y: where the kernel widens
+        peak = float(log_y[int(np.argmax(diffusion[0]))])
+        self.tau_prime = node.tau_prime
+        self.rho = rho
+        self.log_y = np.arange(math.log(0.01), math.log(float(t[-1] * scale)), _LOG_Y_STEP)
+        self.bandwidth = _bandwidth(self.log_y, peak)
+        value, sd = _smooth(rho, log_y, ratio, weight, variance, self.rho, self.log_y, self.bandwidth)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            self.sd = np.where((value > 0) & np.isfinite(sd), np.minimum(sd / value, SD_CAP), SD_CAP)  # of ln C
+            self.log_c = _hold_last(np.log(np.where(value > 0, value, np.nan)), self.sd)
+        self.peak_log_y = peak
+
+    def at(self, rho_over_d, log_y):
+        """ln C, its SD and the kernel width in ln y at the given points (bilinear on the grid)."""
+        r = np.clip(np.interp(rho_over_d, self.rho, np.arange(self.rho.size)), 0, self.rho.size - 1)
+        c = np.clip((log_y - self.log_y[0]) / _LOG_Y_STEP, 0, self.log_y.size - 1)
+        r0 = np.minimum(np.floor(r).astype(int), self.rho.size - 2)
+        c0 = np.minimum(np.floor(c).astype(int), self.log_y.size - 2)
+        fr, fc = r - r0, c - c0
+
+        def bilinear(table):
+            return ((1 - fr) * (1 - fc) * table[r0, c0] + fr * (1 - fc) * table[r0 + 1, c0]
+                    + (1 - fr) * fc * table[r0, c0 + 1] + fr * fc * table[r0 + 1, c0 + 1])
+
+        return bilinear(self.log_c), bilinear(self.sd), np.interp(log_y, self.log_y, self.bandwidth)
+
+
+_TABLES: dict = {}
+
+
+def _table(node) -> "_NodeTable":
+    """The node's table, made once per process for a node read from a file (keyed by path and time)."""
+    if node.path is None:
+        return _NodeTable(node)
+    stat = node.path.stat()
+    key = (str(node.path), stat.st_mtime_ns, stat.st_size)
+    if key not in _TABLES:
+        if len(_TABLES) >= 64:  # a bound on memory: the oldest goes
+            _TABLES.pop(next(iter(_TABLES)))
+        _TABLES[key] = _NodeTable(node)
+    return _TABLES[key]
+
+
+def _bandwidth(log_y, peak):
+    a, b = (math.log(f) for f in _LATE_FROM_PEAK)
+    share = np.clip((log_y - peak - a) / (b - a), 0.0, 1.0)
+    return BANDWIDTH_LOG_Y + share * (BANDWIDTH_LOG_Y_LATE - BANDWIDTH_LOG_Y)
+
+
+def _smooth(rho, log_y, values, weight, variance, rho_grid, log_y_grid, bandwidth):
+    """Local-linear fit in (ρ/d, ln y) at every grid point; its value and standard error."""
+    xs = np.repeat(rho, log_y.size)
+    ys = np.tile(log_y, rho.size)
+    vs, ws, var = values.ravel(), weight.ravel(), variance.ravel()
+    keep = ws > 0
+    xs, ys, vs, ws, var = xs[keep], ys[keep], vs[keep], ws[keep], var[keep]
+    out = np.full((rho_grid.size, log_y_grid.size), np.nan)
+    sd = np.full_like(out, np.inf)
+    for i, r0 in enumerate(rho_grid):
+        near = np.abs(xs - r0) <= 4.0 * BANDWIDTH_RHO  # the kernel beyond 4 SDs adds nothing
+        dx = xs[near] - r0
+        kx = np.exp(-0.5 * (dx / BANDWIDTH_RHO) ** 2) * ws[near]
+        gap = ys[near][None, :] - log_y_grid[:, None]  # (G, S), the kernel's distance in ln y
+        k = kx[None, :] * np.exp(-0.5 * (gap / bandwidth[:, None]) ** 2)
+        # linear in y itself: late on, transport decays at a slightly other rate than
+        # diffusion, so C ∝ exp(−Δλ t) and ln C is linear in y; a local-linear fit in y is
+        # exact for it whatever the kernel's width (and on the early rise, where the kernel is
+        # narrow, y and ln y differ little over it)
+        dy = (np.exp(ys[near])[None, :] - np.exp(log_y_grid)[:, None]) / np.exp(log_y_grid)[:, None]
+        # weighted least squares of v on (1, dx, dy) at each grid point
+        m = np.stack([k.sum(1), (k * dx).sum(1), (k * dy).sum(1), (k * dx * dx).sum(1), (k * dx * dy).sum(1),
+                      (k * dy * dy).sum(1)], axis=1)
+        a = np.empty((log_y_grid.size, 3, 3))
+        a[:, 0, 0], a[:, 0, 1], a[:, 0, 2] = m[:, 0], m[:, 1], m[:, 2]
+        a[:, 1, 1], a[:, 1, 2], a[:, 2, 2] = m[:, 3], m[:, 4], m[:, 5]
+        a[:, 1, 0], a[:, 2, 0], a[:, 2, 1] = m[:, 1], m[:, 2], m[:, 4]
+        ok = m[:, 0] > 0
+        det = np.linalg.det(a)
+        ok &= np.abs(det) > 1e-12 * np.maximum(m[:, 0], 1e-300) ** 3
+        inv = np.zeros_like(a)
+        inv[ok] = np.linalg.inv(a[ok])
+        # equivalent kernel of the intercept: l_s = k_s (inv[0,0] + inv[0,1] dx + inv[0,2] dy)
+        lk = k * (inv[:, 0, 0][:, None] + inv[:, 0, 1][:, None] * dx[None, :] + inv[:, 0, 2][:, None] * dy)
+        out[i] = np.where(ok, lk @ vs[near], np.nan)
+        sd[i] = np.where(ok, np.sqrt(np.maximum((lk**2) @ var[near], 0.0)), np.inf)
+    return out, sd
+
+
+def _hold_last(log_c, sd):
+    """Where the kernel holds no photons at all, hold the nearest value (its SD is at the cap; the fit warns)."""
+    out = np.array(log_c)
+    grid = np.arange(out.shape[1])
+    for i in range(out.shape[0]):
+        good = np.isfinite(out[i])
+        out[i] = np.interp(grid, grid[good], out[i][good]) if good.any() else 0.0
+    return out
+
+
+class SlabCorrection:
+    """The Monte Carlo correction C of the slab diffusion model from the nodes (module docstring).
+
+    Parameters
+    ----------
+    nodes : sequence of SlabNode
+        Nodes of one (g, n, n_outside), at distinct τ′.
+    """
+
+    def __init__(self, nodes):
+        nodes = sorted(nodes, key=lambda node: node.tau_prime)
+        if not nodes:
+            raise InputError("the slab model needs at least one Monte Carlo node")
+        first = nodes[0]
+        if any(abs(node.g - first.g) > 5e-4 or abs(node.n - first.n) > 5e-4
+               or abs(node.n_outside - first.n_outside) > 5e-4 for node in nodes):
+            raise InputError("the slab model's nodes must share g, n and n_outside")
+        self.g, self.n, self.n_outside = first.g, first.n, first.n_outside
+        self.tables = [_table(node) for node in nodes]
+        self.log_tau = np.log([table.tau_prime for table in self.tables])
+        self.photons = [node.photons for node in nodes]
+        self.default_bandwidth = BANDWIDTH_LOG_Y
+
+    @property
+    def tau_primes(self) -> list[float]:
+        return [table.tau_prime for table in self.tables]
+
+    def covers(self, tau_prime) -> np.ndarray:
+        """True where τ′ lies between the outer nodes (interpolation, not extrapolation)."""
+        t = np.log(np.asarray(tau_prime, float))
+        return (t >= self.log_tau[0] - 1e-9) & (t <= self.log_tau[-1] + 1e-9)
+
+    def _evaluate(self, musp, rho, times, thickness_mm):
+        musp = np.asarray(musp, float)[:, None]
+        rho_over_d = np.broadcast_to(np.asarray(rho, float)[:, None] / thickness_mm, np.shape(times))
+        v = SPEED_OF_LIGHT_MM_PER_PS / self.n
+        log_y = np.log(np.maximum(times, 1e-3) * v / (3.0 * musp * thickness_mm**2))
+        parts = [table.at(rho_over_d, log_y) for table in self.tables]
+        if len(parts) == 1:
+            return parts[0]
+        t = np.log(musp * thickness_mm) * np.ones_like(log_y)
+        k = np.clip(np.searchsorted(self.log_tau, t) - 1, 0, len(parts) - 2)
+        step = self.log_tau[k + 1] - self.log_tau[k]
+        f = np.clip((t - self.log_tau[k]) / step, -0.5, 1.5)
+        stacked = [np.stack([p[i] for p in parts]) for i in range(3)]
+        lo = [np.take_along_axis(s, k[None], 0)[0] for s in stacked]
+        hi = [np.take_along_axis(s, (k + 1)[None], 0)[0] for s in stacked]
+        log_c = (1 - f) * lo[0] + f * hi[0]
+        sd = np.sqrt(((1 - f) * lo[1]) ** 2 + (f * hi[1]) ** 2)
+        return log_c, sd, (1 - f) * lo[2] + f * hi[2]
+
+    def factor(self, *, musp_per_mm, rho_mm, time_ps, thickness_mm) -> np.ndarray:
+        """C at rows (μs′ (N,), ρ (N,)) and times (N, K) [ps] for a slab ``thickness_mm`` thick."""
+        return np.exp(self._evaluate(musp_per_mm, rho_mm, time_ps, thickness_mm)[0])
+
+    def relative_sd(self, *, musp_per_mm, rho_mm, time_ps, thickness_mm) -> np.ndarray:
+        """Standard error of ln C (relative error of the model) at the same points, at most :data:`SD_CAP`."""
+        return self._evaluate(musp_per_mm, rho_mm, time_ps, thickness_mm)[1]
+
+    def bandwidth_at(self, *, musp_per_mm, rho_mm, time_ps, thickness_mm) -> np.ndarray:
+        """The smoothing kernel's width in ln t (= ln y) at the same points."""
+        return self._evaluate(musp_per_mm, rho_mm, time_ps, thickness_mm)[2]

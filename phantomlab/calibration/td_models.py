@@ -1,0 +1,136 @@
+"""The forward models a time-domain fit calls, one trial per row (layer 3).
+
+:func:`td_curve_model` returns ``shape(mua (N,), musp (N,), rho (N,), times (N, L))``, the
+response R(ρ, t) or T(ρ, t) [1/(mm² ps)] of each row at its own times: the diffusion models of
+:mod:`phantomlab.transport.time_domain`, the half-space Monte Carlo lookup
+(:mod:`phantomlab.calibration.mc_lookup_time`), or the slab model corrected by direct Monte
+Carlo runs (:mod:`phantomlab.calibration.slab_time_correction`).  :func:`face_average`
+averages any of them over a detection fibre's face.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from phantomlab.errors import InputError
+
+__all__ = ["TD_FIT_MODELS", "td_curve_model", "face_average"]
+
+TD_FIT_MODELS = ("kienle1997", "contini1997", "patterson1989", "mc", "mc-slab")
+
+
+def td_curve_model(*, model: str, geometry: str, thickness_mm, n: float, n_outside: float, baseline=None,
+                   slab_correction=None):
+    """The response R(ρ, t) of one trial per row: ``shape(mua (N,), musp (N,), rho (N,), times (N, L))``.
+
+    A model with its own error (the lookups) carries ``relative_sd``, ``bandwidth_at`` (the
+    error's correlation width in ln t), optionally ``relative_bias``, each
+    ``(musp (N,), rho (N,), times (N, L))``, and ``default_bandwidth``.
+    """
+    if model == "mc":
+        from phantomlab.calibration.fit_srdr import check_baseline_indices
+        from phantomlab.calibration.mc_lookup_time import time_resolved_lookup
+
+        if baseline is None:
+            raise InputError("td model 'mc' needs a Monte Carlo baseline (--baseline FILE)")
+        if geometry != "reflectance" or thickness_mm is not None:
+            raise InputError("td model 'mc' is for reflectance from a thick phantom (the baselines are half-space "
+                             "runs); fit transmittance or a thin slab with kienle1997, contini1997 or patterson1989")
+        check_baseline_indices(baseline, n=n, n_outside=n_outside)
+        lookup = time_resolved_lookup(baseline)
+
+        def shape(mua, musp, rho, times):
+            mus = np.asarray(musp, float) / (1.0 - lookup.g)
+            return lookup.point(mua_per_mm=mua, mus_per_mm=mus, rho_mm=np.broadcast_to(np.asarray(rho)[:, None],
+                                                                                        times.shape), time_ps=times)
+
+        def at(method):
+            def evaluate(musp, rho, times):
+                mus = np.asarray(musp, float) / (1.0 - lookup.g)
+                return method(mus_per_mm=mus, rho_mm=np.broadcast_to(np.asarray(rho)[:, None], times.shape),
+                              time_ps=times)
+            return evaluate
+
+        shape.lookup = lookup
+        shape.relative_sd = at(lookup.relative_sd)
+        shape.bandwidth_at = at(lookup.tau_bandwidth_at)
+        shape.relative_bias = at(lookup.relative_bias)
+        shape.default_bandwidth = lookup.tau_bandwidth
+        return shape
+    if model == "mc-slab":
+        return _slab_shape(geometry=geometry, thickness_mm=thickness_mm, n=n, n_outside=n_outside,
+                           correction=slab_correction)
+    if model not in TD_FIT_MODELS:
+        raise InputError(f"unknown td fit model {model!r}; accepted: {', '.join(TD_FIT_MODELS)}")
+    from phantomlab.transport.time_domain import time_resolved_evaluator
+
+    evaluate = time_resolved_evaluator(n=n, n_outside=n_outside, thickness_mm=thickness_mm, geometry=geometry,
+                                       model=model)
+
+    def shape(mua, musp, rho, times):
+        return evaluate(mua_per_mm=np.asarray(mua, float)[:, None], musp_per_mm=np.asarray(musp, float)[:, None],
+                        rho_mm=np.asarray(rho, float)[:, None], time_ps=times)
+
+    return shape
+
+
+def _slab_shape(*, geometry, thickness_mm, n, n_outside, correction):
+    """contini1997 transmittance times the Monte Carlo correction C (slab_time_correction.py)."""
+    if correction is None:
+        raise InputError("td model 'mc-slab' needs the slab's Monte Carlo nodes (phantomlab.calibration.fit_td_slab)")
+    if geometry != "transmittance" or thickness_mm is None:
+        raise InputError("td model 'mc-slab' is for transmittance through a slab of given thickness")
+    if abs(correction.n - n) > 5e-4 or abs(correction.n_outside - n_outside) > 5e-4:
+        raise InputError(f"the slab nodes were made for n = {correction.n:g}, n_outside = {correction.n_outside:g}, "
+                         f"not n = {n:g}, n_outside = {n_outside:g}")
+    from phantomlab.transport.time_domain import time_resolved_evaluator
+
+    evaluate = time_resolved_evaluator(n=n, n_outside=n_outside, thickness_mm=thickness_mm, geometry=geometry,
+                                       model="contini1997")
+    d = float(thickness_mm)
+
+    def shape(mua, musp, rho, times):
+        diffusion = evaluate(mua_per_mm=np.asarray(mua, float)[:, None], musp_per_mm=np.asarray(musp, float)[:, None],
+                             rho_mm=np.asarray(rho, float)[:, None], time_ps=times)
+        return diffusion * correction.factor(musp_per_mm=musp, rho_mm=rho, time_ps=times, thickness_mm=d)
+
+    def at(method):
+        return lambda musp, rho, times: method(musp_per_mm=musp, rho_mm=rho, time_ps=times, thickness_mm=d)
+
+    shape.relative_sd = at(correction.relative_sd)
+    shape.bandwidth_at = at(correction.bandwidth_at)
+    shape.default_bandwidth = correction.default_bandwidth
+    shape.correction = correction
+    return shape
+
+
+def face_average(shape, *, core_mm: float, rho_mm):
+    """``shape`` averaged over a detection fibre's face (a disc of diameter ``core_mm`` centred at ρ).
+
+    Gauss–Legendre in the radius (6 nodes, weight r) and, off the axis, in the angle (6 nodes
+    on [0, π], the face being symmetric about the line to the source); on the axis (every ρ
+    = 0, transmittance's usual case) the radius alone.  The model-error hooks are kept at the
+    face's centre.
+    """
+    radius = 0.5 * core_mm
+    x, w = np.polynomial.legendre.leggauss(6)
+    r = 0.5 * radius * (x + 1.0)
+    weight_r = 0.5 * radius * w * 2.0 * r / radius**2  # Σ = 1 over the disc (∫ 2r dr / a²)
+    on_axis = bool(np.all(np.asarray(rho_mm, float) == 0.0))
+    phi = 0.5 * np.pi * (x + 1.0)
+    weight_phi = 0.5 * w  # mean over [0, π]
+    points = [(ri, 0.0, wr) for ri, wr in zip(r, weight_r)] if on_axis else \
+        [(ri, pj, wr * wp) for ri, wr in zip(r, weight_r) for pj, wp in zip(phi, weight_phi)]
+
+    def averaged(mua, musp, rho, times):
+        rho = np.asarray(rho, float)
+        total = 0.0
+        for ri, pj, wq in points:
+            distance = np.sqrt(rho**2 + ri**2 + 2.0 * rho * ri * np.cos(pj))
+            total = total + wq * shape(mua, musp, distance, times)
+        return total
+
+    for hook in ("relative_sd", "bandwidth_at", "relative_bias", "default_bandwidth", "lookup", "correction"):
+        if hasattr(shape, hook):
+            setattr(averaged, hook, getattr(shape, hook))
+    return averaged
