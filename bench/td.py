@@ -8,7 +8,10 @@
   least_squares over μa, μs′, t0 and the amplitude, a numerical convolution by np.convolve at
   every call) as the ratio's baseline;
 * 20 wavelengths in one file (target <= 1 s);
-* an fd file (5 distances, 3 frequencies, 20 wavelengths).
+* an fd file (5 distances, 3 frequencies, 20 wavelengths);
+* transmittance through a 15 mm slab with the Monte Carlo slab model (``mc-slab``) once its
+  slab runs exist (the test cache, tests/calibration/fixtures/slab-cache), point detector and
+  a 6 mm detection face, beside contini1997 (the model it corrects) in the same process.
 
 Times are the process's CPU time (one BLAS thread: run with OPENBLAS_NUM_THREADS=1), with the
 wall time beside it: on a machine shared with other jobs the wall time is inflated by them.
@@ -124,6 +127,51 @@ def fd_fits(baseline) -> None:
               f"{time.process_time() - cpu:.2f} s CPU")
 
 
+def slab_fits() -> None:
+    from phantomlab.calibration.slab_time_correction import SlabCorrection
+    from phantomlab.calibration.slab_time_nodes import load_node, node_file_name
+
+    cache = FIXTURE.parent / "slab-cache"
+    taus = (16.0, 19.03)
+    paths = [cache / node_file_name(g=0.8, n=1.4, n_outside=1.0, tau_prime=t) for t in taus]
+    if not all(p.is_file() for p in paths):
+        print("slab model: the test cache's slab runs are missing (tests/calibration/fixtures/make_slab_nodes.py)")
+        return
+    start = time.process_time()
+    correction = SlabCorrection([load_node(p) for p in paths])
+    print(f"slab model: tables of {len(taus)} slab runs made in {time.process_time() - start:.2f} s CPU (once per "
+          "process and run)")
+    from phantomlab.transport.time_domain import time_resolved
+
+    rng = np.random.default_rng(3)
+    rows = ["wavelength_nm,rho_mm,time_ps,counts"]
+    for i, wl in enumerate(np.linspace(650, 900, 20)):
+        response = time_resolved(mua_per_mm=0.01 + 0.0005 * i, musp_per_mm=1.2, rho_mm=0.0, time_ps=TIME, n=1.4,
+                                 thickness_mm=15.0, geometry="transmittance", model="contini1997")
+        counts = np.convolve(response, IRF)[:TIME.size]
+        rows += [f"{wl:g},0,{t:g},{c}" for t, c in zip(TIME, rng.poisson(counts / counts.max() * 1e5 + 3.0))]
+    text = "\n".join(rows) + "\n"
+    for face in (None, 6.0):
+        sidecar = {"n": 1.4, "irf": irf_table(IRF_TIME, np.round(IRF * 1e7)), "geometry": "transmittance",
+                   "thickness_mm": 15.0, **({"detector": "fibre", "fibre_core_mm": face} if face else {})}
+        twenty = read_td(text, sidecar=sidecar)
+        one = read_td("\n".join(rows[:1 + TIME.size]) + "\n", sidecar=sidecar)
+        times = {}
+        for model in ("contini1997", "mc-slab"):
+            options = {"slab_correction": correction, "musp_range_per_mm": (16.0 / 15, 19.03 / 15)} \
+                if model == "mc-slab" else {}
+            cpu = time.process_time()
+            fit_td(one, model=model, **options)
+            single = time.process_time() - cpu
+            cpu = time.process_time()
+            fit_td(twenty, model=model, **options)
+            times[model] = (single, time.process_time() - cpu)
+        label = "point detector" if face is None else f"{face:g} mm face"
+        print(f"td transmittance, {label}: mc-slab one curve {1000 * times['mc-slab'][0]:.0f} ms CPU, 20 wavelengths "
+              f"{times['mc-slab'][1]:.2f} s CPU; contini1997 {1000 * times['contini1997'][0]:.0f} ms, "
+              f"{times['contini1997'][1]:.2f} s; ratio mc-slab/contini1997 {times['mc-slab'][1] / times['contini1997'][1]:.1f}x")
+
+
 def main() -> None:
     baseline, how = _baseline()
     start = time.perf_counter()
@@ -132,6 +180,7 @@ def main() -> None:
           f"{time.perf_counter() - start:.1f} s (once per baseline)")
     td_fits(baseline)
     fd_fits(baseline)
+    slab_fits()
 
 
 if __name__ == "__main__":

@@ -36,9 +36,14 @@ lookup, valid early too, starts at 10 %; both end at 1 % of the peak on the tail
 
 Models (:data:`TD_FIT_MODELS`): the diffusion models of
 :mod:`phantomlab.transport.time_domain` (half-space, or slab when a thickness is given;
-transmittance needs one) and ``mc``, the time-resolved Monte Carlo lookup of a stored
+transmittance needs one); ``mc``, the time-resolved Monte Carlo lookup of a stored
 half-space baseline (:mod:`phantomlab.calibration.mc_lookup_time`; reflectance from a thick
-phantom only: the baselines are half-space runs, so transmittance is fitted with diffusion).
+phantom only: the baselines are half-space runs); and ``mc-slab``, transmittance through a
+slab by contini1997 corrected by direct Monte Carlo runs of slabs
+(:mod:`phantomlab.calibration.slab_time_correction`; run by
+:func:`phantomlab.calibration.fit_td_slab.fit_td_slab`, the default fit of transmittance).
+A ``detector = "fibre"`` sidecar averages any of them over the detection face
+(:func:`phantomlab.calibration.td_models.face_average`).
 
 **Diffusion's own error** is part of a diffusion fit's SDs (``model_covariance``, reported as
 ``diffusion_model_error``): diffusion misses the Monte Carlo curve's shape by a few per cent,

@@ -27,7 +27,7 @@ from phantomlab.calibration.slab_time_correction import MAX_RELATIVE_SD, MAX_RHO
 from phantomlab.calibration.slab_time_nodes import NODES_PER_OCTAVE, TAU_PRIME_RANGE, node_grid, obtain_nodes
 from phantomlab.errors import InputError, PhantomlabWarning
 
-__all__ = ["SlabNodeSource", "SlabModelOutOfRange", "fit_td_slab", "UPWARD", "MAX_ROUNDS"]
+__all__ = ["SlabNodeSource", "SlabModelOutOfRange", "fit_td_slab", "first_nodes", "UPWARD", "MAX_ROUNDS"]
 
 #: The nodes first taken reach from the diffusion fit's τ′ up to this factor times it (the
 #: diffusion model is low in μs′ through slabs: 7–19 % on the slab run of the tests).
@@ -79,24 +79,9 @@ def fit_td_slab(measurement, *, source: SlabNodeSource, n=None, n_outside=None, 
     TimeDomainFit
         ``model`` ``mc-slab``; ``extras["slab_nodes"]``: the τ′ of the nodes used.
     """
-    thickness = measurement.thickness_mm if thickness_mm is None else thickness_mm
-    if measurement.geometry != "transmittance" or thickness is None:
-        raise InputError("the Monte Carlo slab model fits transmittance through a slab of given thickness")
-    d = float(thickness)
-    widest = float(np.max(np.abs(measurement.rho_mm)))
-    if widest > MAX_RHO_OVER_D * d:
-        raise SlabModelOutOfRange(f"a lateral offset of {widest:g} mm is beyond its {MAX_RHO_OVER_D:g} of the "
-                                  f"thickness ({MAX_RHO_OVER_D * d:.3g} mm here)")
     options = {"n": n, "n_outside": n_outside, "thickness_mm": thickness_mm}
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", PhantomlabWarning)  # the final fit warns for itself
-        first = fit_td(measurement, model="contini1997", **options)
-    tau = first.musp_per_mm * d
-    if np.any(tau < TAU_PRIME_RANGE[0]) or np.any(tau > TAU_PRIME_RANGE[1] / UPWARD):
-        raise SlabModelOutOfRange(f"the slab is {float(np.min(tau)):.3g}–{float(np.max(tau)):.3g} transport lengths "
-                                  f"thick by diffusion, and its runs cover {TAU_PRIME_RANGE[0]:g}–"
-                                  f"{TAU_PRIME_RANGE[1] / UPWARD:.3g}")
-    wanted = node_grid(float(np.min(tau)), float(np.max(tau)) * UPWARD)
+    wanted = first_nodes(measurement, n=n, n_outside=n_outside, thickness_mm=thickness_mm)
+    d = float(measurement.thickness_mm if thickness_mm is None else thickness_mm)
     fit = None
     for _ in range(MAX_ROUNDS):
         correction = SlabCorrection(source.obtain(wanted))
@@ -124,6 +109,34 @@ def fit_td_slab(measurement, *, source: SlabNodeSource, n=None, n_outside=None, 
     extras = {**dict(fit.extras), "slab_nodes": [float(t) for t in correction.tau_primes],
               "slab_node_photons": [int(p) for p in correction.photons]}
     return replace(fit, warnings=tuple(dict.fromkeys(messages)), extras=extras)
+
+
+def first_nodes(measurement, *, n=None, n_outside=None, thickness_mm=None) -> list[float]:
+    """The τ′ of the nodes a fit takes first: those bracketing the contini1997 fit's τ′ up to :data:`UPWARD` times it.
+
+    Raises
+    ------
+    SlabModelOutOfRange
+        A lateral offset beyond :data:`~phantomlab.calibration.slab_time_correction.MAX_RHO_OVER_D`
+        of the thickness, or a slab outside the nodes' range.
+    """
+    thickness = measurement.thickness_mm if thickness_mm is None else thickness_mm
+    if measurement.geometry != "transmittance" or thickness is None:
+        raise InputError("the Monte Carlo slab model fits transmittance through a slab of given thickness")
+    d = float(thickness)
+    widest = float(np.max(np.abs(measurement.rho_mm)))
+    if widest > MAX_RHO_OVER_D * d:
+        raise SlabModelOutOfRange(f"a lateral offset of {widest:g} mm is beyond its {MAX_RHO_OVER_D:g} of the "
+                                  f"thickness ({MAX_RHO_OVER_D * d:.3g} mm here)")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PhantomlabWarning)  # the final fit warns for itself
+        first = fit_td(measurement, model="contini1997", n=n, n_outside=n_outside, thickness_mm=thickness_mm)
+    tau = first.musp_per_mm * d
+    if np.any(tau < TAU_PRIME_RANGE[0]) or np.any(tau > TAU_PRIME_RANGE[1] / UPWARD):
+        raise SlabModelOutOfRange(f"the slab is {float(np.min(tau)):.3g}–{float(np.max(tau)):.3g} transport lengths "
+                                  f"thick by diffusion, and its runs cover {TAU_PRIME_RANGE[0]:g}–"
+                                  f"{TAU_PRIME_RANGE[1] / UPWARD:.3g}")
+    return node_grid(float(np.min(tau)), float(np.max(tau)) * UPWARD)
 
 
 def _reach_messages(fit, correction, measurement, d) -> list[str]:

@@ -59,8 +59,11 @@ def register(subparsers) -> None:
     parser.add_argument("--thickness-mm", type=float, default=None, metavar="D", help="slab thickness in mm")
     parser.add_argument("--model", default=None, metavar="M",
                         help="srdr: mc (default, Monte Carlo lookup), kienle1997, farrell1992; sfdi: mc "
-                        "(default), cuccia2009; slab, sphere: adding-doubling; td: mc (default where it applies, "
-                        "else kienle1997, said in a note), kienle1997, contini1997, patterson1989; fd: mc "
+                        "(default), cuccia2009; slab, sphere: adding-doubling; td: mc (default where it applies: "
+                        "the lookup for reflectance, the Monte Carlo slab model for transmittance, whose first "
+                        "fit runs slabs of ten million photons, minutes each, kept in the cache; else kienle1997, "
+                        "or contini1997 for transmittance, said in a note), kienle1997, contini1997, "
+                        "patterson1989; fd: mc "
                         "(default where it applies, else kienle1997), kienle1997, contini1997, "
                         "fantini1994 (slope method)")
     parser.add_argument("--g", type=float, default=None, metavar="G",

@@ -12,6 +12,7 @@ from __future__ import annotations
 import datetime as _dt
 
 import pandas as pd
+import numpy as np
 import streamlit as st
 
 from phantomlab.ui.plain_text import plain
@@ -205,7 +206,13 @@ def _baseline_ready(store, batch: dict, kind: str, upload, sidecar, n: float) ->
     found = call_layer("Reading the batch's scattering model", batch_anisotropy, store, batch["code"],
                        wavelength_nm=read.value.wavelength_nm, per_wavelength=kind in ("srdr", "sfdi"), show=False)
     fallback = found.value if found.ok else None
-    if kind == "td" and (table.get("geometry") == "transmittance" or table.get("thickness_mm") is not None):
+    if kind == "td" and table.get("geometry") == "transmittance":
+        # the Monte Carlo slab model: its first slab runs, with progress (the fit finds them cached)
+        from phantomlab.ui.baseline_build import page_slab_nodes
+
+        batch_g = fallback[0] if fallback is not None and np.ndim(fallback[0]) == 0 else DEFAULT_G
+        return page_slab_nodes(measurement=read.value, g=float(table.get("g", batch_g)), key="batches.slab")
+    if kind == "td" and table.get("thickness_mm") is not None:
         return True  # the lookup does not apply: the default fit uses diffusion and says so
     # one g, or one per g step of the band (the batch's or the sidecar's g per wavelength)
     values = call_layer("Choosing the Monte Carlo baselines", lookup_g_values, read.value, g_fallback=fallback,

@@ -16,7 +16,7 @@ import streamlit as st
 
 from phantomlab.ui.widgets import call_layer
 
-__all__ = ["baseline_files", "page_baseline", "describe_inputs"]
+__all__ = ["baseline_files", "page_baseline", "page_slab_nodes", "describe_inputs"]
 
 #: Files of a Monte Carlo baseline and its lookup table.
 BASELINE_SUFFIXES = (".npz",)
@@ -114,3 +114,53 @@ def describe_inputs(inputs: dict) -> str:
     from phantomlab.calibration.fit_inputs import input_parts  # layer 3
 
     return " · ".join(input_parts(inputs))
+
+
+def page_slab_nodes(*, measurement, g: float, key: str) -> bool:
+    """Make sure the Monte Carlo slab runs a transmittance fit takes first are cached, running them with progress.
+
+    Returns True when the fit can go ahead (the runs are there, or the slab model does not apply
+    and the fit falls back to diffusion, which it says); False while the user has to act (a
+    stopped run, a refused file, an error: the page says which).
+    """
+    from phantomlab.calibration.baseline_cache import baseline_folder  # layer 3
+    from phantomlab.calibration.fit_td_slab import SlabModelOutOfRange, first_nodes
+    from phantomlab.calibration.slab_time_nodes import NODE_PHOTONS, node_file_name, obtain_nodes
+
+    meta = measurement.metadata
+    try:
+        wanted = first_nodes(measurement)
+    except SlabModelOutOfRange:
+        return True  # the default fit falls back to contini1997 and says why
+    except Exception as exc:  # an InputError: the fit will say it too
+        st.error(" ".join(str(exc).split()))
+        return False
+    n_outside = float(meta.n_outside)
+    missing = [t for t in wanted if not (baseline_folder() / node_file_name(g=g, n=meta.n, n_outside=n_outside,
+                                                                            tau_prime=t)).is_file()]
+    if not missing:
+        return True
+    if st.session_state.get(f"{key}.stopped"):
+        st.info("The slab runs were stopped; nothing was written for the run in progress.")
+        if not st.button("Run them", key=f"{key}.restart"):
+            return False
+        st.session_state[f"{key}.stopped"] = False
+    st.button("Stop the runs", key=f"{key}.stop", on_click=_stop, args=(key,),
+              help="Ends the run in progress at its next step; runs already finished are kept.")
+    bar = st.progress(0.0, text=f"Running the slab model's Monte Carlo slabs at {', '.join(f'{t:g}' for t in missing)} "
+                                f"transport lengths (once for g = {g:.2f}, n = {meta.n:g}; {NODE_PHOTONS:,} photons "
+                                "each, 3–6 minutes each on two cores)…")
+    started = time.monotonic()
+
+    def progress(done: int, total: int) -> None:
+        bar.progress(min(done / total, 1.0) if total else 1.0,
+                     text=f"Monte Carlo slabs: {done:,} of {total:,} photons, {time.monotonic() - started:.0f} s")
+
+    ran = call_layer("Running the slab model's Monte Carlo slabs", obtain_nodes, missing, g=g, n=meta.n,
+                     n_outside=n_outside, progress=progress)
+    bar.empty()
+    if not ran.ok:
+        return False
+    st.success(f"Monte Carlo slabs run in {time.monotonic() - started:.0f} s and kept in {baseline_folder()}; later "
+               "fits reuse them.")
+    return True

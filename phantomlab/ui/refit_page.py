@@ -323,6 +323,15 @@ def _fit_section(workspace: Workspace, store) -> None:
         if baseline is None:
             st.info("Choose or build a baseline to fit with the Monte Carlo model.")
             return
+    elif model == "mc" and kind == "td" and options.get("geometry") == "transmittance" and read.ok:
+        # the default fit of transmittance: the Monte Carlo slab model, its slab runs cached
+        from phantomlab.calibration.baseline_cache import DEFAULT_G  # layer 3
+        from phantomlab.ui.baseline_build import page_slab_nodes
+
+        options["g"] = float(sidecar.get("g", DEFAULT_G))
+        if not page_slab_nodes(measurement=read.value, g=options["g"], key="refit.slab"):
+            return
+        model = None  # the default fit reads the cached runs (or falls back to diffusion, said)
     elif model == "mc" and kind in ("td", "fd") and not lookup_applies:
         model = None  # the default fit: diffusion, and its note says why
     elif model == "mc":

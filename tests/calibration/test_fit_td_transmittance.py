@@ -1,9 +1,11 @@
 """Transmittance through a slab: the slab diffusion models against the direct Monte Carlo run.
 
-The Monte Carlo lookup answers for a half-space only (the baselines are half-space runs; a slab
-fixes the thickness in scattering lengths, so one baseline could not scale with μs), so
-transmittance is fitted with the slab diffusion models (Contini et al. 1997 image series;
-``kienle1997`` fluence + flux by default, ``contini1997`` flux).  How good they are is measured
+The half-space Monte Carlo lookup cannot answer for a slab (a slab fixes the thickness in
+scattering lengths, so one baseline could not scale with μs); transmittance is fitted by default
+with the slab model that corrects contini1997 by direct Monte Carlo runs of slabs
+(test_fit_td_slab.py), and with the slab diffusion models (Contini et al. 1997 image series;
+``kienle1997`` fluence + flux, ``contini1997`` flux) on request or where that model does not
+apply.  How good they are is measured
 here on ``fixtures/mc_td_slab.npz`` (15 mm slab, μs′ = 1.2 /mm, g = 0.8, n = 1.4: 18 transport
 lengths; μa = 0.012 /mm by Beer–Lambert weights), averaged over the disc within 6 mm of the axis
 (the run holds too few photons on the axis alone for a 10⁵-count test), in 50-ps bins over the

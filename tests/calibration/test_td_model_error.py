@@ -10,7 +10,7 @@ directly (not the diffusion model that fits):
 * the half-space run ``fixtures/mc_td_half_space.npz`` (μs′ 1.2 /mm, g 0.8, n 1.4; the term's
   size was set on it, 99 % of copies within 2 SD when measured);
 * the slab run ``fixtures/mc_td_slab.npz`` (transmittance through 15 mm, the same medium),
-  which was not used to set it: the independent check (98 % with contini1997, the default for
+  which was not used to set it: the independent check (98 % with contini1997, the fallback for
   transmittance, 93 % with kienle1997 when measured).
 
 A copy's error is compared with √(SD_fit² + SD_ref²), SD_ref the spread the Monte Carlo run's

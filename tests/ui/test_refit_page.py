@@ -445,3 +445,43 @@ def test_a_stored_measurement_opens_with_the_model_of_its_stored_fit(page, go_to
     assert "(srdr," in picked
     assert app.selectbox(key="refit.model.srdr").value == "kienle1997"
     assert any("diffusion-kienle1997" in m.value for m in app.markdown)
+
+
+@pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")
+def test_an_uploaded_transmittance_file_is_fitted_with_the_monte_carlo_slab_model(refit, monkeypatch):
+    """Transmittance through a 15 mm slab (test data: the independent slab run at μs′/μa 100,
+    point value 1.5 mm off the axis): with the slab runs in the cache (the test cache) the page
+    fits it with the Monte Carlo slab model, names it and the runs it used, and builds no
+    half-space baseline."""
+    import sys
+
+    import numpy as np
+
+    sys.path.insert(0, str(DEMO_MEASUREMENTS.parents[1] / "tests" / "calibration"))
+    import td_fixture_data as fixture
+
+    cache = fixture.FIXTURES / "slab-cache"
+    if not (fixture.FIXTURES / "mc_td_slab.npz").is_file() or not cache.is_dir():
+        pytest.skip("slab fixtures missing")
+    monkeypatch.setenv("PHANTOMLAB_BASELINE_DIR", str(cache))
+    run = fixture.slab()
+    values, sd = fixture.absorbed(run, 0.012)
+    point, point_sd = fixture.point_value(run, values, sd, 1.5)
+    curve = fixture.instrument_from_response(run["time_ps"], point, point_sd, fwhm_ps=150.0, shift_ps=80.0,
+                                             peak_counts=2e5, window_ps=(0.0, 5000.0))
+    counts = np.random.default_rng(4).poisson(curve.lam)
+    refit.selectbox(key="refit.measurement").set_value("(upload a file, not stored)").run()
+    refit.selectbox(key="refit.upload_kind").set_value("td").run()
+    refit.file_uploader(key="refit.upload").set_value(
+        ("slab.csv", fixture.td_csv({(780.0, 1.5): counts}, curve.time_ps).encode(), "text/csv")).run()
+    refit.file_uploader(key="refit.upload_irf").set_value(
+        ("irf.csv", fixture.irf_csv(curve.irf_time_ps, np.round(curve.irf / curve.irf.max() * 1e6)).encode(),
+         "text/csv")).run()
+    refit.number_input(key="refit.n").set_value(1.4).run()
+    refit.selectbox(key="refit.geometry").set_value("transmittance").run()
+    refit.number_input(key="refit.td_thickness").set_value(15.0).run()
+    assert not refit.exception
+    shown = " ".join(m.value for m in refit.markdown) + " ".join(c.value for c in refit.caption)
+    assert "Model **mc-slab**" in shown, shown[:2000]
+    assert "corrected by direct Monte Carlo runs of slabs" in shown
+    assert not list(cache.glob("baseline-*"))  # no half-space baseline was built for it
