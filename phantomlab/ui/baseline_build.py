@@ -48,6 +48,17 @@ def _stop(key: str) -> None:
     st.session_state[f"{key}.stopped"] = True
 
 
+def _may_run(key: str, *, stopped: str, restart: str, stop: str, stop_help: str) -> bool:
+    """False after the user stopped a run (until they press ``restart``); else shows the stop button."""
+    if st.session_state.get(f"{key}.stopped"):
+        st.info(stopped)
+        if not st.button(restart, key=f"{key}.restart"):
+            return False
+        st.session_state[f"{key}.stopped"] = False
+    st.button(stop, key=f"{key}.stop", on_click=_stop, args=(key,), help=stop_help)
+    return True
+
+
 def page_baseline(*, g: float, n: float, n_outside: float, key: str, offer_rebuild: bool = True,
                   time_resolved: bool = False):
     """The cached baseline for (g, n, n_outside), building it when missing; None while there is none.
@@ -83,13 +94,9 @@ def page_baseline(*, g: float, n: float, n_outside: float, key: str, offer_rebui
         return None
     if found is not None:
         return found
-    if st.session_state.get(f"{key}.stopped"):
-        st.info("The baseline build was stopped; nothing was written.")
-        if not st.button("Build the baseline", key=f"{key}.restart"):
-            return None
-        st.session_state[f"{key}.stopped"] = False
-    st.button("Stop the build", key=f"{key}.stop", on_click=_stop, args=(key,),
-              help="Ends the build at its next step; nothing is written.")
+    if not _may_run(key, stopped="The baseline build was stopped; nothing was written.", restart="Build the baseline",
+                    stop="Stop the build", stop_help="Ends the build at its next step; nothing is written."):
+        return None
     bar = st.progress(0.0, text=f"Building the Monte Carlo baseline for g = {g:.2f}, n = {n:g} (once, about half "
                                 "a minute on two cores; td/fd: 5–15 minutes, ten million photons)…")
     started = time.monotonic()
@@ -140,13 +147,10 @@ def page_slab_nodes(*, measurement, g: float, key: str) -> bool:
                                                                             tau_prime=t)).is_file()]
     if not missing:
         return True
-    if st.session_state.get(f"{key}.stopped"):
-        st.info("The slab runs were stopped; nothing was written for the run in progress.")
-        if not st.button("Run them", key=f"{key}.restart"):
-            return False
-        st.session_state[f"{key}.stopped"] = False
-    st.button("Stop the runs", key=f"{key}.stop", on_click=_stop, args=(key,),
-              help="Ends the run in progress at its next step; runs already finished are kept.")
+    if not _may_run(key, stopped="The slab runs were stopped; nothing was written for the run in progress.",
+                    restart="Run them", stop="Stop the runs",
+                    stop_help="Ends the run in progress at its next step; runs already finished are kept."):
+        return False
     bar = st.progress(0.0, text=f"Running the slab model's Monte Carlo slabs at {', '.join(f'{t:g}' for t in missing)} "
                                 f"transport lengths (once for g = {g:.2f}, n = {meta.n:g}; {NODE_PHOTONS:,} photons "
                                 "each, 3–6 minutes each on two cores)…")
