@@ -434,12 +434,13 @@ def list_cached(folder=None) -> list[dict]:
 
 
 def clear_cached(folder=None) -> list[dict]:
-    """Delete the cache's baselines, their lookup tables and left-over partial writes; returns what was removed."""
+    """Delete the cache's baselines, their lookup tables, the td slab runs and left-over partial writes; returns what was removed."""
     root = baseline_folder(folder)
     if not root.is_dir():
         return []
     removed = []
-    for path in sorted(list(root.glob("baseline-*.npz")) + list(root.glob(".baseline-*.part"))):  # tables too
+    for path in sorted(list(root.glob("baseline-*.npz")) + list(root.glob(".baseline-*.part"))  # tables too
+                       + list(root.glob("slab-time-*.npz")) + list(root.glob(".slab-time-*.part"))):
         size = path.stat().st_size
         try:
             path.unlink()

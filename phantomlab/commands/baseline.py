@@ -105,10 +105,14 @@ def _no_action(args: argparse.Namespace):
 def _list(args: argparse.Namespace) -> CommandResult:
     from phantomlab.calibration.baseline_cache import baseline_folder, list_cached
 
+    from phantomlab.calibration.slab_time_nodes import list_nodes
+
     folder = baseline_folder(args.baseline_dir)
     rows = list_cached(folder)
-    total = round(sum(r["megabytes"] for r in rows), 3)
-    lines = [f"cached Monte Carlo baselines in {folder}: {len(rows)} ({total:.1f} MB)"]
+    slabs = list_nodes(folder)
+    total = round(sum(r["megabytes"] for r in rows + slabs), 3)
+    lines = [f"cached Monte Carlo baselines in {folder}: {len(rows)}"
+             + (f", and {len(slabs)} slab runs" if slabs else "") + f" ({total:.1f} MB)"]
     for r in rows:
         made = (f"g {r['g']:g}, n {r['n']:g} / {r['n_outside']:g}, {r['photons']:,} photons"
                 if r["g"] is not None else "inputs unreadable")
@@ -116,7 +120,11 @@ def _list(args: argparse.Namespace) -> CommandResult:
         lines.append(f"  {Path(r['file']).name}  {made}, {r['megabytes']:.1f} MB, {r['modified']}  ({state})")
     if not rows:
         lines.append("  none yet: the first default srdr/sfdi fit builds the one it needs")
-    return CommandResult(payload={"folder": str(folder), "baselines": rows, "megabytes": total},
+    if slabs:
+        lines.append(f"slab runs of the td transmittance model: {len(slabs)}")
+        lines += [f"  {Path(r['file']).name}  g {r['g']:g}, n {r['n']:g} / {r['n_outside']:g}, "
+                  f"{r['tau_prime']:g} transport lengths, {r['megabytes']:.2f} MB, {r['modified']}" for r in slabs]
+    return CommandResult(payload={"folder": str(folder), "baselines": rows, "slab_runs": slabs, "megabytes": total},
                          text="\n".join(lines))
 
 

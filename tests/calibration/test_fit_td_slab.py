@@ -305,3 +305,21 @@ def test_td_detector_bad_input(sidecar, message):
     full = {"n": 1.4, "irf": irf_table(t, np.ones(t.size)), "geometry": "transmittance", "thickness_mm": 10.0, **sidecar}
     with pytest.raises(InputError, match=message.replace("(", r"\(").replace(")", r"\)")):
         read_td(text, sidecar=full)
+
+
+def test_baseline_list_and_clear_include_the_slab_runs(tmp_path, monkeypatch, capsys):
+    import json
+    import shutil
+
+    from phantomlab.cli import main
+
+    for tau in (16.0, 19.03):
+        name = node_file_name(g=0.8, n=1.4, n_outside=1.0, tau_prime=tau)
+        shutil.copy(CACHE / name, tmp_path / name)
+    monkeypatch.setenv("PHANTOMLAB_BASELINE_DIR", str(tmp_path))
+    assert main(["baseline", "list", "--json"]) == 0
+    listed = json.loads(capsys.readouterr().out)
+    assert [r["tau_prime"] for r in listed["slab_runs"]] == [16.0, 19.03] and listed["baselines"] == []
+    assert main(["baseline", "clear", "--json"]) == 0
+    assert len(json.loads(capsys.readouterr().out)["removed"]) == 2
+    assert not list(tmp_path.glob("slab-time-*"))
