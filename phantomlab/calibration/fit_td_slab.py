@@ -98,11 +98,12 @@ def fit_td_slab(measurement, *, source: SlabNodeSource, n=None, n_outside=None, 
             break
         wanted = node_grid(wanted[0] / (_STEP if low.any() else 1.0), wanted[-1] * (_STEP if high.any() else 1.0))
     messages = [" ".join(str(w.message).split()) for w in caught if issubclass(w.category, PhantomlabWarning)]
+    used = correction.tau_primes  # the runs of the last fit (the loop may have asked for more after it)
     ended = fit.musp_per_mm * d
-    on_bound = (ended <= wanted[0] * 1.002) | (ended >= wanted[-1] / 1.002)
+    on_bound = (ended <= used[0] * 1.002) | (ended >= used[-1] / 1.002)
     for i in np.flatnonzero(on_bound):
         messages.append(f"at {measurement.wavelength_nm[i]:g} nm mus' ended on the edge of the slab model's range "
-                        f"({wanted[0]:g}–{wanted[-1]:g} transport lengths): the fit is not trusted there")
+                        f"({used[0]:g}–{used[-1]:g} transport lengths): the fit is not trusted there")
     messages += _reach_messages(fit, correction, measurement, d)
     for message in dict.fromkeys(messages):
         warnings.warn(message, PhantomlabWarning, stacklevel=2)
