@@ -1,7 +1,7 @@
 """Time-resolved transmittance through a slab: diffusion corrected by direct Monte Carlo runs (layer 3).
 
-The slab diffusion model of Contini, Martelli & Zaccanti (1997, eq. 36 with the extrapolated
-boundary) misses the shape of transport's transmittance curve by some per cent, smoothly along
+The slab diffusion model of Contini, Martelli & Zaccanti (1997; transmittance by their image
+series with the extrapolated boundary, :mod:`phantomlab.transport.time_domain`) misses the shape of transport's transmittance curve by some per cent, smoothly along
 it (tests/calibration/test_fit_td_transmittance.py): at 18 transport lengths the curve from
 half its peak to 5 % of it drifts by 8 % against Monte Carlo, which biases a fitted μs′ by
 −7 to −19 % and μa by up to −19 % (μs′/μa 10–1000).  This module keeps that model's form and
@@ -23,7 +23,7 @@ fit's SDs as a model error correlated over the kernel width (``slab_photon_noise
 
 References
 ----------
-Contini D, Martelli F, Zaccanti G 1997, Appl Opt 36:4587–4599 (slab diffusion, eq. 36).
+Contini D, Martelli F, Zaccanti G 1997, Appl Opt 36:4587–4599 (slab diffusion).
 Cleveland WS 1979, J Am Stat Assoc 74:829–836 (local regression).
 """
 
@@ -50,7 +50,6 @@ MAX_RHO_OVER_D = 0.4
 #: The grid C is kept on: ln y from ln 0.01 in steps of 0.02 (bilinear between: the kernels are
 #: at least 0.05 wide); ρ/d at the rings' centres.
 _LOG_Y_STEP = 0.02
-_REBIN = 1
 #: A node's C is used where its standard error is below this (relative); beyond, the fit is refused.
 MAX_RELATIVE_SD = 0.05
 #: Beyond the photons C is held and its error taken as this (relative), so that the SDs say it.
@@ -85,12 +84,8 @@ class _NodeTable:
         v = SPEED_OF_LIGHT_MM_PER_PS / node.n
         d = node.thickness_mm
         scale = v / (3.0 * node.tau_prime * d)  # y per ps
-        usable = (node.time_ps.size // _REBIN) * _REBIN
-        t = node.time_ps[:usable].reshape(-1, _REBIN).mean(axis=1)
-        mc = node.values[:, :usable].reshape(node.values.shape[0], -1, _REBIN).mean(axis=2)
-        mc_sd = np.sqrt((node.sd[:, :usable] ** 2).reshape(node.values.shape[0], -1, _REBIN).sum(axis=2)) / _REBIN
-        fine = _diffusion_rings(node, node.time_ps[:usable])
-        diffusion = fine.reshape(fine.shape[0], -1, _REBIN).mean(axis=2)
+        t, mc, mc_sd = node.time_ps, node.values, node.sd  # every bin: merging them blurred the early rise
+        diffusion = _diffusion_rings(node, t)
         rho = 0.5 * (node.rho_edges_mm[1:] + node.rho_edges_mm[:-1]) / d
         log_y = np.log(t * scale)
         # the ratio z = T_MC/T_diffusion, regressed with weights area·T_diffusion: the tallies'
@@ -113,8 +108,7 @@ class _NodeTable:
         value, sd = _smooth(rho, log_y, ratio, weight, variance, self.rho, self.log_y, self.bandwidth)
         with np.errstate(divide="ignore", invalid="ignore"):
             self.sd = np.where((value > 0) & np.isfinite(sd), np.minimum(sd / value, SD_CAP), SD_CAP)  # of ln C
-            self.log_c = _hold_last(np.log(np.where(value > 0, value, np.nan)), self.sd)
-        self.peak_log_y = peak
+            self.log_c = _hold_last(np.log(np.where(value > 0, value, np.nan)))
 
     def at(self, rho_over_d, log_y):
         """ln C, its SD and the kernel width in ln y at the given points (bilinear on the grid)."""
@@ -192,7 +186,7 @@ def _smooth(rho, log_y, values, weight, variance, rho_grid, log_y_grid, bandwidt
     return out, sd
 
 
-def _hold_last(log_c, sd):
+def _hold_last(log_c):
     """Where the kernel holds no photons at all, hold the nearest value (its SD is at the cap; the fit warns)."""
     out = np.array(log_c)
     grid = np.arange(out.shape[1])
@@ -239,19 +233,20 @@ class SlabCorrection:
         rho_over_d = np.broadcast_to(np.asarray(rho, float)[:, None] / thickness_mm, np.shape(times))
         v = SPEED_OF_LIGHT_MM_PER_PS / self.n
         log_y = np.log(np.maximum(times, 1e-3) * v / (3.0 * musp * thickness_mm**2))
-        parts = [table.at(rho_over_d, log_y) for table in self.tables]
-        if len(parts) == 1:
-            return parts[0]
+        if len(self.tables) == 1:
+            return self.tables[0].at(rho_over_d, log_y)
         t = np.log(musp * thickness_mm) * np.ones_like(log_y)
-        k = np.clip(np.searchsorted(self.log_tau, t) - 1, 0, len(parts) - 2)
-        step = self.log_tau[k + 1] - self.log_tau[k]
-        f = np.clip((t - self.log_tau[k]) / step, -0.5, 1.5)
-        stacked = [np.stack([p[i] for p in parts]) for i in range(3)]
-        lo = [np.take_along_axis(s, k[None], 0)[0] for s in stacked]
-        hi = [np.take_along_axis(s, (k + 1)[None], 0)[0] for s in stacked]
-        log_c = (1 - f) * lo[0] + f * hi[0]
-        sd = np.sqrt(((1 - f) * lo[1]) ** 2 + (f * hi[1]) ** 2)
-        return log_c, sd, (1 - f) * lo[2] + f * hi[2]
+        k = np.clip(np.searchsorted(self.log_tau, t) - 1, 0, len(self.tables) - 2)
+        f = np.clip((t - self.log_tau[k]) / (self.log_tau[k + 1] - self.log_tau[k]), -0.5, 1.5)
+        log_c, variance, width = (np.zeros_like(log_y) for _ in range(3))
+        for j in np.unique(k):  # each point reads its two bracketing nodes only
+            here = k == j
+            for node, share in ((j, 1.0 - f[here]), (j + 1, f[here])):
+                c, sd, h = self.tables[node].at(rho_over_d[here], log_y[here])
+                log_c[here] += share * c
+                variance[here] += (share * sd) ** 2
+                width[here] += share * h
+        return log_c, np.sqrt(variance), width
 
     def factor(self, *, musp_per_mm, rho_mm, time_ps, thickness_mm) -> np.ndarray:
         """C at rows (μs′ (N,), ρ (N,)) and times (N, K) [ps] for a slab ``thickness_mm`` thick."""

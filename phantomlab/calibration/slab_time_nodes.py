@@ -134,15 +134,15 @@ def build_node(*, g, n, n_outside=1.0, tau_prime, photons=NODE_PHOTONS, seed=Non
     y_edges = np.arange(0.0, Y_GATE + Y_STEP / 2, Y_STEP)
     time_ps = 0.5 * (y_edges[1:] + y_edges[:-1]) * 3.0 * tau_prime * d / v
     rho_edges = RHO_EDGES_OVER_D * d
+    seed = _node_seed(tau_prime) if seed is None else int(seed)
     run = simulate(mua_per_mm=0.0, mus_per_mm=tau_prime / (d * (1.0 - g)), g=g, n=n, n_outside=n_outside,
                    thickness_mm=d, rho_mm=0.5 * (rho_edges[1:] + rho_edges[:-1]), time_ps=time_ps, time_gate=True,
-                   photons=int(photons), seed=_node_seed(tau_prime) if seed is None else int(seed), progress=progress)
+                   photons=int(photons), seed=seed, progress=progress)
     if not np.allclose(run.rho_edges_mm, rho_edges):
         raise RuntimeError("the run's rings differ from the node's")  # pragma: no cover - a change in simulate
     return SlabNode(g=g, n=n, n_outside=n_outside, tau_prime=float(tau_prime), thickness_mm=d, time_ps=time_ps,
                     rho_edges_mm=rho_edges, values=np.asarray(run.transmittance_per_mm2_per_ps, float),
-                    sd=np.asarray(run.transmittance_per_mm2_per_ps_sd, float), photons=int(photons),
-                    seed=_node_seed(tau_prime) if seed is None else int(seed))
+                    sd=np.asarray(run.transmittance_per_mm2_per_ps_sd, float), photons=int(photons), seed=seed)
 
 
 def save_node(node: SlabNode, path: Path) -> None:
