@@ -11,7 +11,8 @@
 * an fd file (5 distances, 3 frequencies, 20 wavelengths);
 * transmittance through a 15 mm slab with the Monte Carlo slab model (``mc-slab``) once its
   slab runs exist (the test cache, tests/calibration/fixtures/slab-cache), point detector and
-  a 6 mm detection face, beside contini1997 (the model it corrects) in the same process.
+  a 6 mm detection face, beside contini1997 (the model it corrects) in the same process; the
+  data are mc-slab's own curves with Poisson noise.
 
 Times are the process's CPU time (one BLAS thread: run with OPENBLAS_NUM_THREADS=1), with the
 wall time beside it: on a machine shared with other jobs the wall time is inflated by them.
@@ -141,17 +142,20 @@ def slab_fits() -> None:
     correction = SlabCorrection([load_node(p) for p in paths])
     print(f"slab model: tables of {len(taus)} slab runs made in {time.process_time() - start:.2f} s CPU (once per "
           "process and run)")
-    from phantomlab.transport.time_domain import time_resolved
+    from phantomlab.calibration.td_models import face_average, td_curve_model
 
-    rng = np.random.default_rng(3)
-    rows = ["wavelength_nm,rho_mm,time_ps,counts"]
-    for i, wl in enumerate(np.linspace(650, 900, 20)):
-        response = time_resolved(mua_per_mm=0.01 + 0.0005 * i, musp_per_mm=1.2, rho_mm=0.0, time_ps=TIME, n=1.4,
-                                 thickness_mm=15.0, geometry="transmittance", model="contini1997")
-        counts = np.convolve(response, IRF)[:TIME.size]
-        rows += [f"{wl:g},0,{t:g},{c}" for t, c in zip(TIME, rng.poisson(counts / counts.max() * 1e5 + 3.0))]
-    text = "\n".join(rows) + "\n"
+    slab_model = td_curve_model(model="mc-slab", geometry="transmittance", thickness_mm=15.0, n=1.4, n_outside=1.0,
+                                slab_correction=correction)
     for face in (None, 6.0):
+        # the model's own curves (on the same face) with Poisson noise: a timing bench
+        shape = slab_model if face is None else face_average(slab_model, core_mm=face, rho_mm=np.zeros(1))
+        rng = np.random.default_rng(3)
+        rows = ["wavelength_nm,rho_mm,time_ps,counts"]
+        for i, wl in enumerate(np.linspace(650, 900, 20)):
+            response = shape(np.array([0.01 + 0.0005 * i]), np.array([1.2]), np.zeros(1), TIME[None, :])[0]
+            counts = np.convolve(response, IRF)[:TIME.size]
+            rows += [f"{wl:g},0,{t:g},{c}" for t, c in zip(TIME, rng.poisson(counts / counts.max() * 1e5 + 3.0))]
+        text = "\n".join(rows) + "\n"
         sidecar = {"n": 1.4, "irf": irf_table(IRF_TIME, np.round(IRF * 1e7)), "geometry": "transmittance",
                    "thickness_mm": 15.0, **({"detector": "fibre", "fibre_core_mm": face} if face else {})}
         twenty = read_td(text, sidecar=sidecar)

@@ -300,8 +300,9 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
                                 x_rows[:, 2:].ravel() * SHIFT_UNIT_PS, curves, sd[curves], using=smooth_shape)
             return ((mu - counts[curves]) / sd[curves]).reshape(rows.size, R * K)
 
-        start = fit_blocks(smooth_residual, start, mask=mask, lower=lower, upper=upper, row_aware=True,
-                           max_nfev=6, tolerance=1e-3, step_tolerance=_STEP_TOLERANCE).x  # a start only
+        if model == "mc":  # the lookup's rough objective: a few steps of diffusion first (mc-slab is smooth)
+            start = fit_blocks(smooth_residual, start, mask=mask, lower=lower, upper=upper, row_aware=True,
+                               max_nfev=6, tolerance=1e-3, step_tolerance=_STEP_TOLERANCE).x  # a start only
     outcome = None
     x = start
     for attempt in range(IRLS_PASSES):

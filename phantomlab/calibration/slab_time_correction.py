@@ -110,19 +110,22 @@ class _NodeTable:
             self.sd = np.where((value > 0) & np.isfinite(sd), np.minimum(sd / value, SD_CAP), SD_CAP)  # of ln C
             self.log_c = _hold_last(np.log(np.where(value > 0, value, np.nan)))
 
-    def at(self, rho_over_d, log_y):
-        """ln C, its SD and the kernel width in ln y at the given points (bilinear on the grid)."""
+    def at(self, rho_over_d, log_y, parts=("log_c", "sd", "width")):
+        """ln C, its SD and the kernel width in ln y at the given points (bilinear on the grid); only ``parts``."""
         r = np.clip(np.interp(rho_over_d, self.rho, np.arange(self.rho.size)), 0, self.rho.size - 1)
         c = np.clip((log_y - self.log_y[0]) / _LOG_Y_STEP, 0, self.log_y.size - 1)
         r0 = np.minimum(np.floor(r).astype(int), self.rho.size - 2)
         c0 = np.minimum(np.floor(c).astype(int), self.log_y.size - 2)
         fr, fc = r - r0, c - c0
+        corners = ((1 - fr) * (1 - fc), fr * (1 - fc), (1 - fr) * fc, fr * fc)
 
         def bilinear(table):
-            return ((1 - fr) * (1 - fc) * table[r0, c0] + fr * (1 - fc) * table[r0 + 1, c0]
-                    + (1 - fr) * fc * table[r0, c0 + 1] + fr * fc * table[r0 + 1, c0 + 1])
+            return (corners[0] * table[r0, c0] + corners[1] * table[r0 + 1, c0] + corners[2] * table[r0, c0 + 1]
+                    + corners[3] * table[r0 + 1, c0 + 1])
 
-        return bilinear(self.log_c), bilinear(self.sd), np.interp(log_y, self.log_y, self.bandwidth)
+        found = {"log_c": lambda: bilinear(self.log_c), "sd": lambda: bilinear(self.sd),
+                 "width": lambda: np.interp(log_y, self.log_y, self.bandwidth)}
+        return tuple(found[part]() for part in parts)
 
 
 _TABLES: dict = {}
@@ -228,34 +231,51 @@ class SlabCorrection:
         t = np.log(np.asarray(tau_prime, float))
         return (t >= self.log_tau[0] - 1e-9) & (t <= self.log_tau[-1] + 1e-9)
 
-    def _evaluate(self, musp, rho, times, thickness_mm):
+    def _evaluate(self, musp, rho, times, thickness_mm, parts=("log_c", "sd", "width")):
+        """The ``parts`` (ln C, its SD, the kernel width) at rows (μs′ (N,), ρ (N,)) and times (N, K)."""
         musp = np.asarray(musp, float)[:, None]
         rho_over_d = np.broadcast_to(np.asarray(rho, float)[:, None] / thickness_mm, np.shape(times))
+        return self._evaluate_points(musp, rho_over_d, times, thickness_mm, parts)
+
+    def _evaluate_points(self, musp, rho_over_d, times, thickness_mm, parts):
+        """As :meth:`_evaluate` with μs′, ρ/d and times already broadcast to the points' shape."""
         v = SPEED_OF_LIGHT_MM_PER_PS / self.n
         log_y = np.log(np.maximum(times, 1e-3) * v / (3.0 * musp * thickness_mm**2))
+        shape = np.broadcast_shapes(np.shape(log_y), np.shape(rho_over_d))
+        log_y = np.broadcast_to(log_y, shape)
+        rho_over_d = np.broadcast_to(rho_over_d, shape)
         if len(self.tables) == 1:
-            return self.tables[0].at(rho_over_d, log_y)
-        t = np.log(musp * thickness_mm) * np.ones_like(log_y)
+            return self.tables[0].at(rho_over_d, log_y, parts)
+        t = np.broadcast_to(np.log(musp * thickness_mm), shape)
         k = np.clip(np.searchsorted(self.log_tau, t) - 1, 0, len(self.tables) - 2)
         f = np.clip((t - self.log_tau[k]) / (self.log_tau[k + 1] - self.log_tau[k]), -0.5, 1.5)
-        log_c, variance, width = (np.zeros_like(log_y) for _ in range(3))
+        sums = {part: np.zeros(shape) for part in parts}
         for j in np.unique(k):  # each point reads its two bracketing nodes only
             here = k == j
             for node, share in ((j, 1.0 - f[here]), (j + 1, f[here])):
-                c, sd, h = self.tables[node].at(rho_over_d[here], log_y[here])
-                log_c[here] += share * c
-                variance[here] += (share * sd) ** 2
-                width[here] += share * h
-        return log_c, np.sqrt(variance), width
+                values = self.tables[node].at(rho_over_d[here], log_y[here], parts)
+                for part, value in zip(parts, values):
+                    # ln C and the width interpolate linearly; the SDs add in quadrature
+                    sums[part][here] += (share * value) ** 2 if part == "sd" else share * value
+        if "sd" in sums:
+            sums["sd"] = np.sqrt(sums["sd"])
+        return tuple(sums[part] for part in parts)
 
     def factor(self, *, musp_per_mm, rho_mm, time_ps, thickness_mm) -> np.ndarray:
         """C at rows (μs′ (N,), ρ (N,)) and times (N, K) [ps] for a slab ``thickness_mm`` thick."""
-        return np.exp(self._evaluate(musp_per_mm, rho_mm, time_ps, thickness_mm)[0])
+        return np.exp(self._evaluate(musp_per_mm, rho_mm, time_ps, thickness_mm, ("log_c",))[0])
+
+    def factor_points(self, *, musp_per_mm, rho_mm, time_ps, thickness_mm) -> np.ndarray:
+        """C at rows μs′ (N,), several distances per row ρ (N, Q) and times (N, K): shape (N, K, Q)."""
+        musp = np.asarray(musp_per_mm, float)[:, None, None]
+        rho_over_d = np.asarray(rho_mm, float)[:, None, :] / thickness_mm
+        times = np.asarray(time_ps, float)[:, :, None]
+        return np.exp(self._evaluate_points(musp, rho_over_d, times, thickness_mm, ("log_c",))[0])
 
     def relative_sd(self, *, musp_per_mm, rho_mm, time_ps, thickness_mm) -> np.ndarray:
         """Standard error of ln C (relative error of the model) at the same points, at most :data:`SD_CAP`."""
-        return self._evaluate(musp_per_mm, rho_mm, time_ps, thickness_mm)[1]
+        return self._evaluate(musp_per_mm, rho_mm, time_ps, thickness_mm, ("sd",))[0]
 
     def bandwidth_at(self, *, musp_per_mm, rho_mm, time_ps, thickness_mm) -> np.ndarray:
         """The smoothing kernel's width in ln t (= ln y) at the same points."""
-        return self._evaluate(musp_per_mm, rho_mm, time_ps, thickness_mm)[2]
+        return self._evaluate(musp_per_mm, rho_mm, time_ps, thickness_mm, ("width",))[0]

@@ -20,6 +20,9 @@ and the bottom face (z = s, outward +z):
 
 which are Contini's eqs. 37 and 36 (his z₃,ₘ = −z⁺ₘ, z₄,ₘ = −z⁻ₘ, z₁,ₘ = s − z⁺ₘ,
 z₂,ₘ = s − z⁻ₘ).  The series is summed until the next term is below e^(−36) of the first.
+In a slab at late times the same depth sums come from the eigenfunction (sine) series of the
+slab between its extrapolated boundaries (Carslaw & Jaeger 1959, §14.2), which converges
+fast where the images converge slowly; the two are one function (Poisson's summation).
 Time t = 0 is the moment the pulse enters; for t ≤ 0 the value is 0.
 
 The named models built on these sums (which D, z0 and z_e, and whether the light leaving is
@@ -29,6 +32,8 @@ References
 ----------
 Patterson MS, Chance B, Wilson BC 1989, Appl Opt 28:2331–2336, doi:10.1364/AO.28.002331.
 Contini D, Martelli F, Zaccanti G 1997, Appl Opt 36:4587–4599, doi:10.1364/AO.36.004587.
+Carslaw HS, Jaeger JC 1959, *Conduction of Heat in Solids*, 2nd ed., Oxford (the slab's
+eigenfunction series).
 """
 
 from __future__ import annotations
@@ -62,6 +67,11 @@ GEOMETRIES = ("reflectance", "transmittance")
 SERIES_EXPONENT = 36.0
 #: Most image pairs on each side (a slab thinner than a transport length at long times).
 MAX_IMAGE_PAIRS = 2000
+#: In a slab, from this diffusion time a = π² D v t/L² (L = s + 2z_e) on the depth sums come
+#: from the eigenfunction series (at most 11 terms there) instead of the images (which need
+#: up to three pairs before it and ever more after); the two agree to rounding
+#: (tests/transport/test_time_domain_series.py).
+SINE_SERIES_FROM = 0.35
 
 
 def light_speed_mm_per_ps(n) -> np.ndarray:
@@ -145,7 +155,12 @@ def image_series_terms(*, d, v, mua, z0, zb, r, t, thickness, geometry, pairs):
 
     Every argument is broadcast element by element (no outer product): Φ = v Σₘ (Φ∞ of the
     positive image − Φ∞ of the negative one), J the sums of the module docstring (Contini
-    et al. 1997, eqs. 36–37), per unit energy that *entered* (a unit source at z0).
+    et al. 1997, eqs. 36–37), per unit energy that *entered* (a unit source at z0).  The sums
+    over the images depend on depth and time only; they are formed on the broadcast shape of
+    (d, v, z0, zb, t) and then multiplied by the lateral and absorption factor, so a caller
+    that gives ``r`` an axis of its own (several distances at the same times) pays for the
+    images once.  In a slab, late times take the same sums from the eigenfunction series
+    (:func:`_sine_sums`), which needs fewer terms there.
 
     Parameters
     ----------
@@ -159,28 +174,100 @@ def image_series_terms(*, d, v, mua, z0, zb, r, t, thickness, geometry, pairs):
     geometry : {'reflectance', 'transmittance'}
         The top face (z = 0) or the bottom face (z = s).
     pairs : int
-        Image pairs on each side of m = 0 (see :func:`image_sources`).
+        Image pairs on each side of m = 0 that the latest time needs (see
+        :func:`image_sources`); earlier times use fewer.
 
     Returns
     -------
     (ndarray, ndarray)
         Φ and J, the broadcast shape of the arguments.
     """
-    positive, negative = image_sources(z0_mm=z0, zb_mm=zb, thickness_mm=thickness, pairs=pairs)
-    if geometry == "transmittance":
-        positive, negative = thickness - positive, thickness - negative
+    d, v, mua, z0, zb, r, t = (np.asarray(x, dtype=float) for x in (d, v, mua, z0, zb, r, t))
+    depth_shape = np.broadcast_shapes(d.shape, v.shape, z0.shape, zb.shape, t.shape) or (1,)  # (1,): scalars
     live = t > 0
     safe_t = np.where(live, t, 1.0)
     four_dvt = 4.0 * d * v * safe_t
+    sum_fluence = np.zeros(depth_shape)
+    sum_flux = np.zeros(depth_shape)
+    if thickness is None:
+        image = np.ones(depth_shape, dtype=bool)
+    else:
+        length = float(thickness) + 2.0 * zb
+        diffusion_time = np.broadcast_to(np.pi**2 * d * v * safe_t / length**2, depth_shape)
+        image = diffusion_time < SINE_SERIES_FROM
+    args = [np.broadcast_to(x, depth_shape) for x in (d, v, z0, zb, safe_t)]
+    if np.any(image):
+        picked = [x[image] for x in args]
+        pairs_here = pairs
+        if thickness is not None:  # the early times need fewer pairs than the latest one
+            spread = np.sqrt(4.0 * picked[0] * picked[1] * picked[4] * SERIES_EXPONENT).max()
+            pairs_here = min(pairs, int(np.ceil(spread / (2.0 * float(thickness)))) + 1)
+        sum_fluence[image], sum_flux[image] = _image_sums(*picked, thickness=thickness, geometry=geometry,
+                                                          pairs=pairs_here)
+    if not np.all(image):
+        sum_fluence[~image], sum_flux[~image] = _sine_sums(d, v, z0, zb, safe_t, diffusion_time, ~image,
+                                                           thickness=float(thickness), geometry=geometry)
+    if depth_shape == (1,):
+        sum_fluence, sum_flux = sum_fluence.reshape(np.shape(four_dvt)), sum_flux.reshape(np.shape(four_dvt))
     # log of (4π D v t)^(−3/2) e^(−μa v t − ρ²/(4Dvt)): kept in logs so that t → 0 gives 0, not inf·0
     log_base = -1.5 * np.log(np.pi * four_dvt) - mua * v * safe_t - r * r / four_dvt
     with np.errstate(over="ignore", invalid="ignore"):
-        e_pos = np.exp(log_base[..., None] - positive**2 / four_dvt[..., None])
-        e_neg = np.exp(log_base[..., None] - negative**2 / four_dvt[..., None])
-        fluence = v * np.sum(e_pos - e_neg, axis=-1)
-        # outward flux D ∂Φ/∂z at the top (−z outward); at the bottom the signs of the
-        # distances s − z carry the same form (Contini et al. 1997, eqs. 36-37)
-        flux = np.sum(positive * e_pos - negative * e_neg, axis=-1) / (2.0 * safe_t)
+        base = np.exp(log_base)
+        fluence = v * base * sum_fluence
+        flux = base * sum_flux
     fluence = np.where(live, fluence, 0.0)
     flux = np.where(live, flux, 0.0)
     return fluence, flux
+
+
+def _image_sums(d, v, z0, zb, t, *, thickness, geometry, pairs):
+    """Σₘ (e⁺ − e⁻) and Σₘ (z⁺ e⁺ − z⁻ e⁻)/(2t) of the images, e = exp(−distance²/(4Dvt)) (1-D arrays)."""
+    positive, negative = image_sources(z0_mm=z0, zb_mm=zb, thickness_mm=thickness, pairs=pairs)
+    if geometry == "transmittance":
+        positive, negative = thickness - positive, thickness - negative
+    four_dvt = (4.0 * d * v * t)[:, None]
+    e_pos = np.exp(-positive**2 / four_dvt)
+    e_neg = np.exp(-negative**2 / four_dvt)
+    return np.sum(e_pos - e_neg, axis=-1), np.sum(positive * e_pos - negative * e_neg, axis=-1) / (2.0 * t)
+
+
+def _sine_sums(d, v, z0, zb, t, diffusion_time, late, *, thickness, geometry):
+    """The same sums as :func:`_image_sums` from the eigenfunction series of the slab, at ``late``.
+
+    With zero fluence at z = −z_e and z = s + z_e (length L = s + 2z_e) the depth part of the
+    Green's function is G(z, t) = (2/L) Σₙ sin(kₙ(z0 + z_e)) sin(kₙ(z + z_e)) exp(−kₙ² D v t),
+    kₙ = nπ/L (Carslaw & Jaeger 1959, §14.2; its images are the sum over m by Poisson's
+    summation formula).  The image sums are √(4πDvt)·G on the face and ∓D v √(4πDvt) ∂G/∂z
+    (the outward flux).  Terms are summed while (n² − 1)·a, a = π²Dvt/L², stays within
+    :data:`SERIES_EXPONENT` + 4 of the first at the smallest a asked for.  The sines and
+    cosines depend on the depths only (formed on their own shape, not per time); exp(−n²a)
+    by the recurrence exp(−(n+1)²a) = exp(−n²a)·exp(−(2n+1)a).
+
+    Parameters
+    ----------
+    d, v, z0, zb, t : arrays broadcasting to ``late.shape``
+    diffusion_time : ndarray, the shape of ``late``
+        a = π²Dvt/L².
+    late : ndarray of bool
+        Where the sums are wanted (a >= :data:`SINE_SERIES_FROM`); returns 1-D arrays of those
+        elements.
+    """
+    face = 0.0 if geometry == "reflectance" else thickness
+    sign = 1.0 if geometry == "reflectance" else -1.0
+    length = thickness + 2.0 * zb
+    a = np.where(late, diffusion_time, np.inf)  # the early elements are not summed here: no terms
+    terms = int(math.ceil(math.sqrt(1.0 + (SERIES_EXPONENT + 4.0) / float(a.min()))))
+    step = np.exp(-a)  # exp(−(2n−1)a), advanced by exp(−2a)
+    twice = step * step
+    power = np.ones(a.shape)  # exp(−n²a), n = 0
+    sum_fluence = np.zeros(a.shape)
+    sum_flux = np.zeros(a.shape)
+    for n in range(1, terms + 1):
+        power = power * step
+        step = step * twice
+        k = n * np.pi / length
+        source = np.sin(k * (z0 + zb))
+        sum_fluence += source * np.sin(k * (face + zb)) * power
+        sum_flux += source * k * np.cos(k * (face + zb)) * power
+    root = np.sqrt(4.0 * np.pi * d * v * t) * 2.0 / length
+    return (root * sum_fluence)[late], np.broadcast_to(sign * d * v * root * sum_flux, late.shape)[late]

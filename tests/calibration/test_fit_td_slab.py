@@ -44,7 +44,7 @@ from phantomlab.calibration.fit_td import fit_td
 from phantomlab.calibration.slab_time_correction import SlabCorrection
 from phantomlab.calibration.slab_time_nodes import load_node, node_file_name, node_grid, obtain_nodes
 from phantomlab.calibration.td_measurements import irf_table, read_td
-from phantomlab.calibration.td_models import face_average
+from phantomlab.calibration.td_models import face_average, td_curve_model
 from phantomlab.errors import InputError
 
 CACHE = fixture.FIXTURES / "slab-cache"
@@ -232,6 +232,21 @@ def test_face_average_against_exact_disc_average(rho):
         exact = dblquad(lambda r, phi: r * math.exp(-(rho**2 + r**2 + 2 * rho * r * math.cos(phi)) / s**2),
                         0, 2 * math.pi, 0, a)[0] / (math.pi * a**2)
     assert value == pytest.approx(exact, rel=1e-5)  # 6 × 6 Gauss–Legendre nodes: 3e-6 off the axis
+
+
+@pytest.mark.parametrize("model", ["contini1997", "mc-slab"])
+@pytest.mark.parametrize("rho", [(0.0, 0.0), (0.0, 2.5)])
+def test_face_points_in_one_call_equal_the_face_point_by_point(correction, model, rho):
+    """The models' ``points`` (every face point at once, depth sums shared) against one call per point."""
+    rho = np.array(rho)
+    times = np.tile(np.linspace(20.0, 6000.0, 300), (2, 1))
+    mua, musp = np.array([0.012, 0.0012]), np.array([1.1, 1.25])
+    shape = td_curve_model(model=model, geometry="transmittance", thickness_mm=15.0, n=1.4, n_outside=1.0,
+                           slab_correction=correction)
+    together = face_average(shape, core_mm=8.0, rho_mm=rho)(mua, musp, rho, times)
+    del shape.points
+    one_by_one = face_average(shape, core_mm=8.0, rho_mm=rho)(mua, musp, rho, times)
+    np.testing.assert_allclose(together, one_by_one, rtol=1e-12, atol=1e-14 * one_by_one.max())
 
 
 @pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")
