@@ -20,8 +20,9 @@ freedom (window bins − fitted parameters, amplitudes included); its SDs are th
 last pass.  The Monte Carlo lookup's own error enters as a model error of each bin, propagated
 to the parameters (:func:`_lookup_covariance`): its photon noise, averaged over the bin's spread
 in ln t (variance × h/√(h² + s²), correlation widened to √(h² + s²), h the smoothing kernel's
-width, s the spread of ln t the bin's response holds; kept unaveraged where the IRF is wider
-than the curve's rise, where the fit is far from linear), and its smoothing bias
+width, s the spread of ln t the bin's response holds; for the half-space lookup kept
+unaveraged where the IRF is wider than the curve's rise, where the fit is far from linear), and
+its smoothing bias
 (:meth:`~phantomlab.calibration.mc_lookup_time.TimeResolvedLookup.relative_bias`).  On
 independent lookups the SDs cover the errors (tests/calibration/test_td_lookup_sd.py).
 

@@ -278,6 +278,13 @@ class SlabCorrection:
         times = np.asarray(time_ps, float)[:, :, None]
         return np.exp(self._evaluate_points(musp, rho_over_d, times, thickness_mm, ("log_c",))[0])
 
+    def relative_sd_points(self, *, musp_per_mm, rho_mm, time_ps, thickness_mm) -> np.ndarray:
+        """:meth:`relative_sd` at several distances per row ρ (N, Q): shape (N, K, Q)."""
+        musp = np.asarray(musp_per_mm, float)[:, None, None]
+        rho_over_d = np.asarray(rho_mm, float)[:, None, :] / thickness_mm
+        times = np.asarray(time_ps, float)[:, :, None]
+        return self._evaluate_points(musp, rho_over_d, times, thickness_mm, ("sd",))[0]
+
     def relative_sd(self, *, musp_per_mm, rho_mm, time_ps, thickness_mm) -> np.ndarray:
         """Standard error of ln C (relative error of the model) at the same points, at most :data:`SD_CAP`."""
         return self._evaluate(musp_per_mm, rho_mm, time_ps, thickness_mm, ("sd",))[0]

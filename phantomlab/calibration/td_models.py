@@ -90,6 +90,7 @@ def _slab_shape(*, geometry, thickness_mm, n, n_outside, correction):
     if abs(correction.n - n) > 5e-4 or abs(correction.n_outside - n_outside) > 5e-4:
         raise InputError(f"the slab nodes were made for n = {correction.n:g}, n_outside = {correction.n_outside:g}, "
                          f"not n = {n:g}, n_outside = {n_outside:g}")
+    from phantomlab.calibration.slab_time_correction import BANDWIDTH_RHO
     from phantomlab.transport.time_domain import time_resolved_evaluator
 
     evaluate = time_resolved_evaluator(n=n, n_outside=n_outside, thickness_mm=thickness_mm, geometry=geometry,
@@ -118,6 +119,11 @@ def _slab_shape(*, geometry, thickness_mm, n, n_outside, correction):
     shape.default_bandwidth = correction.default_bandwidth
     shape.correction = correction
     shape.points = points
+    shape.relative_sd_points = lambda musp, rho_points, times: correction.relative_sd_points(
+        musp_per_mm=musp, rho_mm=rho_points, time_ps=times, thickness_mm=d)
+    # the runs' noise in C is smoothed by a Gaussian kernel of BANDWIDTH_RHO·d in ρ: correlated
+    # between two distances as exp(−Δρ²/(4 h²)), h = this
+    shape.rho_correlation_mm = BANDWIDTH_RHO * d
     return shape
 
 
@@ -128,7 +134,12 @@ def face_average(shape, *, core_mm: float, rho_mm):
     on [0, π], the face being symmetric about the line to the source); on the axis (every ρ
     = 0, transmittance's usual case) the radius alone.  A model with ``points`` (the diffusion
     models and mc-slab) is asked for every face point in one call, which shares the depth sums;
-    the lookup point by point.  The model-error hooks are kept at the face's centre.
+    the lookup point by point.  The model-error hooks are kept at the face's centre, except the
+    relative SD of a model that gives it per point with its correlation length in ρ
+    (``relative_sd_points``, ``rho_correlation_mm``: mc-slab): the SD of the face's average
+    then weighs each point's SD by its share of the light and correlates the points as the
+    model's smoothing kernel does, exp(−Δρ²/(4h²)) for a Gaussian kernel of SD h.  At the
+    centre of a 12 mm face through 15 mm it is about four times the face's.
     """
     radius = 0.5 * core_mm
     x, w = np.polynomial.legendre.leggauss(6)
@@ -155,4 +166,19 @@ def face_average(shape, *, core_mm: float, rho_mm):
     for hook in ("relative_sd", "bandwidth_at", "relative_bias", "default_bandwidth", "lookup", "correction"):
         if hasattr(shape, hook):
             setattr(averaged, hook, getattr(shape, hook))
+    if hasattr(shape, "relative_sd_points") and hasattr(shape, "points"):
+        def face_relative_sd(musp, rho, times):
+            ri, pj, wq = (np.array(column) for column in zip(*points))
+            rho = np.asarray(rho, float)
+            distance = np.sqrt(rho[:, None] ** 2 + ri**2 + 2.0 * rho[:, None] * ri * np.cos(pj))  # (N, Q)
+            # each point's share of the face's light (μa cancels: a common factor)
+            light = shape.points(np.zeros(distance.shape[0]), musp, distance, times) * wq
+            with np.errstate(invalid="ignore", divide="ignore"):
+                share = np.nan_to_num(light / light.sum(axis=-1, keepdims=True))
+            spread = share * shape.relative_sd_points(musp, distance, times)  # (N, L, Q)
+            gap = (distance[:, :, None] - distance[:, None, :]) / shape.rho_correlation_mm
+            correlation = np.exp(-0.25 * gap**2)  # (N, Q, Q)
+            return np.sqrt(np.maximum(np.einsum("nlq,nqp,nlp->nl", spread, correlation, spread), 0.0))
+
+        averaged.relative_sd = face_relative_sd
     return averaged

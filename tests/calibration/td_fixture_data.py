@@ -59,6 +59,12 @@ def slab():
     return {key: data[key] for key in data.files}
 
 
+def slab_deep():
+    """The slab run with several times its photons (``fixtures/mc_td_slab_deep.npz``: it and more runs, merged)."""
+    data = np.load(FIXTURES / "mc_td_slab_deep.npz")
+    return {key: data[key] for key in data.files}
+
+
 def absorbed(run, mua_per_mm: float):
     """R and its SE at μa: each 5-ps bin times the bin average of exp(−μa v t)."""
     v = C_MM_PER_PS / float(run["n"])

@@ -48,8 +48,8 @@ from phantomlab.calibration.td_models import face_average, td_curve_model
 from phantomlab.errors import InputError
 
 CACHE = fixture.FIXTURES / "slab-cache"
-pytestmark = pytest.mark.skipif(not (fixture.FIXTURES / "mc_td_slab.npz").is_file() or not CACHE.is_dir(),
-                                reason="slab fixtures missing: run fixtures/make_td_fixtures.py slab and "
+pytestmark = pytest.mark.skipif(not (fixture.FIXTURES / "mc_td_slab_deep.npz").is_file() or not CACHE.is_dir(),
+                                reason="slab fixtures missing: run fixtures/make_td_fixtures.py slab deep and "
                                        "fixtures/make_slab_nodes.py")
 MUSP = 1.2
 DISC_MM = 6.0
@@ -73,7 +73,7 @@ def _disc(run, mua):
 
 def _measurement(ratio, fwhm, peak, seed):
     """Expected counts, reference copies (the run's noise) and Poisson copies of one case."""
-    run = fixture.slab()
+    run = fixture.slab_deep()
     mua = MUSP / ratio
     mean, se = _disc(run, mua)
     curve = fixture.instrument_from_response(run["time_ps"], mean, se, fwhm_ps=fwhm, shift_ps=120.0,
@@ -111,7 +111,8 @@ def correction():
 
 
 @pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")
-@pytest.mark.parametrize("ratio, fwhm, peak", [(10.0, 200.0, 1e6), (30.0, 100.0, 1e5), (100.0, 200.0, 1e6)])
+@pytest.mark.parametrize("ratio, fwhm, peak", [(10.0, 200.0, 1e6), (30.0, 100.0, 1e5), (100.0, 200.0, 1e6),
+                                               (300.0, 300.0, 1e5), (1000.0, 200.0, 1e6)])
 def test_slab_model_recovers_the_independent_run(correction, ratio, fwhm, peak):
     mua, measurement = _measurement(ratio, fwhm, peak, seed=int(ratio + fwhm))
     fit = assess_fit(fit_td(measurement, model="mc-slab", slab_correction=correction,
@@ -119,14 +120,18 @@ def test_slab_model_recovers_the_independent_run(correction, ratio, fwhm, peak):
     diffusion = fit_td(measurement, model="contini1997")
     errors = _errors(fit, mua)
     report = {name: (np.round(100 * e, 2), np.round(z, 2), round(100 * r, 2)) for name, (e, z, r) in errors.items()}
-    # within 3 % in both, on the mean of the Poisson copies (the run's own noise in μs′ is
-    # 0.8–1.6 % here, the copies' Poisson spread up to 2 % at μs′/μa 10)
-    assert abs(np.mean(errors["mua"][0])) < 0.03, report
-    assert abs(np.mean(errors["musp"][0])) < 0.03, report
-    # and far closer than the slab diffusion model it corrects (μs′ −9 to −19 % there)
+    # the acceptance (issue 14), on the mean of the Poisson copies: μa within 3 %, μs′ within
+    # 2 %, or within twice the run's own noise where that is larger (μa at μs′/μa 1000: 3 %)
+    for name, tolerance in (("mua", 0.03), ("musp", 0.02)):
+        error, _, ref = errors[name]
+        assert abs(np.mean(error)) <= max(tolerance, 2.0 * ref), (name, report)
+    # and far closer than the slab diffusion model it corrects (μs′ −7 to −19 % there)
     assert np.median(np.abs(errors["musp"][0])) < 0.4 * np.median(np.abs(diffusion.musp_per_mm[REF_COPIES:] / MUSP - 1))
-    # the SDs, with the run's own noise, hold the errors
+    # the SDs, with the run's own noise, hold the errors, and say something: μs′ SDs of
+    # 50–120 % were claimed at μs′/μa 10 before the runs' noise was averaged over what a bin
+    # holds where the IRF is wider than the curve's rise
     assert np.all(np.abs(errors["mua"][1]) <= 2.5) and np.all(np.abs(errors["musp"][1]) <= 2.5), report
+    assert np.median(fit.musp_sd_per_mm[REF_COPIES:]) < 0.08 * MUSP, fit.musp_sd_per_mm
     assert "slab_model_error" in fit.sd_includes
 
 
