@@ -270,14 +270,15 @@ def fit_blocks(
     mask = np.asarray(mask, dtype=bool)
     lo = np.broadcast_to(np.asarray(lower, dtype=float), (W, P))
     hi = np.broadcast_to(np.asarray(upper, dtype=float), (W, P))
-    block_fn = _masked(residual_fn, mask)
     if row_aware:
         def row_fn(x_rows, rows):
             return np.where(mask[rows], np.asarray(residual_fn(x_rows, rows), dtype=float), 0.0)
 
-        def block_fn(x_all):  # noqa: F811 (the full evaluation for the covariance)
+        def block_fn(x_all):  # the full evaluation for the covariance
             return row_fn(x_all, np.arange(W))
     else:
+        block_fn = _masked(residual_fn, mask)
+
         def row_fn(x_rows, rows):
             full = np.array(x_start, copy=True)
             full[rows] = x_rows
