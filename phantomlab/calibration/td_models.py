@@ -151,26 +151,26 @@ def face_average(shape, *, core_mm: float, rho_mm):
     points = [(ri, 0.0, wr) for ri, wr in zip(r, weight_r)] if on_axis else \
         [(ri, pj, wr * wp) for ri, wr in zip(r, weight_r) for pj, wp in zip(phi, weight_phi)]
 
+    ri, pj, wq = (np.array(column) for column in zip(*points))
+
+    def face_distances(rho):
+        """Distances of the face's points from the beam axis, (N, Q) for rows at ρ (N,)."""
+        rho = np.asarray(rho, float)[:, None]
+        return np.sqrt(rho**2 + ri**2 + 2.0 * rho * ri * np.cos(pj))
+
     def averaged(mua, musp, rho, times):
         rho = np.asarray(rho, float)
         if hasattr(shape, "points"):  # every face point in one call: the depth sums are shared
-            ri, pj, wq = (np.array(column) for column in zip(*points))
-            distance = np.sqrt(rho[:, None] ** 2 + ri**2 + 2.0 * rho[:, None] * ri * np.cos(pj))
-            return shape.points(mua, musp, distance, times) @ wq
-        total = 0.0
-        for ri, pj, wq in points:
-            distance = np.sqrt(rho**2 + ri**2 + 2.0 * rho * ri * np.cos(pj))
-            total = total + wq * shape(mua, musp, distance, times)
-        return total
+            return shape.points(mua, musp, face_distances(rho), times) @ wq
+        distance = face_distances(rho)
+        return sum(wq[q] * shape(mua, musp, distance[:, q], times) for q in range(wq.size))
 
     for hook in ("relative_sd", "bandwidth_at", "relative_bias", "default_bandwidth", "lookup", "correction"):
         if hasattr(shape, hook):
             setattr(averaged, hook, getattr(shape, hook))
     if hasattr(shape, "relative_sd_points") and hasattr(shape, "points"):
         def face_relative_sd(musp, rho, times):
-            ri, pj, wq = (np.array(column) for column in zip(*points))
-            rho = np.asarray(rho, float)
-            distance = np.sqrt(rho[:, None] ** 2 + ri**2 + 2.0 * rho[:, None] * ri * np.cos(pj))  # (N, Q)
+            distance = face_distances(rho)  # (N, Q)
             # each point's share of the face's light (μa cancels: a common factor)
             light = shape.points(np.zeros(distance.shape[0]), musp, distance, times) * wq
             with np.errstate(invalid="ignore", divide="ignore"):

@@ -239,6 +239,41 @@ def test_face_average_against_exact_disc_average(rho):
     assert value == pytest.approx(exact, rel=1e-5)  # 6 × 6 Gauss–Legendre nodes: 3e-6 off the axis
 
 
+@pytest.mark.parametrize("rho", [0.0, 1.5])
+def test_face_sd_at_its_exact_limits(rho):
+    """The face's relative SD: one SD s everywhere gives s when the points are fully correlated
+    (a correlation length far beyond the face) and s·√Σ share² when they are not (far below the
+    spacing of the points); the shares are the points' light (their weights times the response)."""
+    s = 0.02
+
+    def shape(mua, musp, r, times):
+        return np.exp(-np.asarray(r, float)[:, None] / 3.0) * np.ones_like(times)
+
+    shape.points = lambda mua, musp, r, times: np.exp(-np.asarray(r, float)[:, None, :] / 3.0) * np.ones(
+        np.shape(times) + (1,))
+    shape.relative_sd_points = lambda musp, r, times: np.full(np.shape(times) + (np.shape(r)[-1],), s)
+    times = np.ones((1, 4))
+    for length, expected in ((1e6, None), (1e-6, "independent")):
+        shape.rho_correlation_mm = length
+        averaged = face_average(shape, core_mm=4.0, rho_mm=np.array([rho]))
+        got = averaged.relative_sd(np.array([1.0]), np.array([rho]), times)
+        if expected is None:
+            np.testing.assert_allclose(got, s, rtol=1e-12)
+        else:
+            # the face's points and weights, as face_average lays them out (6 × 6 Gauss–Legendre)
+            x, w = np.polynomial.legendre.leggauss(6)
+            r = 1.0 * (x + 1.0)
+            wr = w * r / 2.0
+            if rho == 0.0:
+                d, wq = r, wr
+            else:
+                phi = 0.5 * np.pi * (x + 1.0)
+                d = np.sqrt(rho**2 + r[:, None] ** 2 + 2 * rho * r[:, None] * np.cos(phi[None, :])).ravel()
+                wq = (wr[:, None] * 0.5 * w[None, :]).ravel()
+            light = wq * np.exp(-d / 3.0)
+            np.testing.assert_allclose(got, s * np.sqrt(np.sum((light / light.sum()) ** 2)), rtol=1e-12)
+
+
 @pytest.mark.parametrize("model", ["contini1997", "mc-slab"])
 @pytest.mark.parametrize("rho", [(0.0, 0.0), (0.0, 2.5)])
 def test_face_points_in_one_call_equal_the_face_point_by_point(correction, model, rho):
