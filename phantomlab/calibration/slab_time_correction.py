@@ -60,6 +60,13 @@ _LOG_Y_STEP = 0.02
 MAX_RELATIVE_SD = 0.05
 #: Beyond the photons C is held and its error taken as this (relative), so that the SDs say it.
 SD_CAP = 0.5
+#: The smoothing's standard error takes the tallies as independent; the engine's weighted
+#: estimator scores one photon's exits through the face (partial Fresnel transmission, then
+#: on) in several neighbouring bins, which correlates them.  Measured with two more sets of
+#: runs at τ′ 16 and 19.03 (other seeds): fits of the deep slab run with the three sets spread
+#: 1.39 (μa) and 1.24 (μs′) times the SDs the formula gives, rms over 15 cases (μs′/μa 10–1000,
+#: IRF 100–300 ps); two degrees of freedom, a rough figure, so the larger is taken.
+NODE_NOISE_FACTOR = 1.4
 
 
 def _diffusion_rings(node, time_ps):
@@ -112,8 +119,13 @@ class _NodeTable:
         self.log_y = np.arange(math.log(0.01), math.log(float(t[-1] * scale)), _LOG_Y_STEP)
         self.bandwidth = _bandwidth(self.log_y, peak)
         value, sd = _smooth(rho, log_y, ratio, weight, variance, self.rho, self.log_y, self.bandwidth)
+        # the smoothed noise's correlation across ρ, about the diffusion peak and after it (where
+        # the curve's light is), for the SD of an average over a detection face
+        at = peak + np.array([-0.2, 0.0, 0.3, 0.6, 1.0, 1.4])
+        self.rho_correlation = _rho_correlation(rho, log_y, weight, variance, self.rho, at, _bandwidth(at, peak))
         with np.errstate(divide="ignore", invalid="ignore"):
-            self.sd = np.where((value > 0) & np.isfinite(sd), np.minimum(sd / value, SD_CAP), SD_CAP)  # of ln C
+            self.sd = np.where((value > 0) & np.isfinite(sd), np.minimum(NODE_NOISE_FACTOR * sd / value, SD_CAP),
+                               SD_CAP)  # of ln C
             self.log_c = _hold_last(np.log(np.where(value > 0, value, np.nan)))
 
     def at(self, rho_over_d, log_y, parts=("log_c", "sd", "width")):
@@ -156,43 +168,73 @@ def _bandwidth(log_y, peak):
     return BANDWIDTH_LOG_Y + share * (BANDWIDTH_LOG_Y_LATE - BANDWIDTH_LOG_Y)
 
 
-def _smooth(rho, log_y, values, weight, variance, rho_grid, log_y_grid, bandwidth):
-    """Local-linear fit in (ρ/d, ln y) at every grid point; its value and standard error."""
+def _samples(rho, log_y, *columns):
+    """The tallies as flat samples (ρ/d, ln y, columns...), those with weight (the first column) > 0."""
     xs = np.repeat(rho, log_y.size)
     ys = np.tile(log_y, rho.size)
-    vs, ws, var = values.ravel(), weight.ravel(), variance.ravel()
-    keep = ws > 0
-    xs, ys, vs, ws, var = xs[keep], ys[keep], vs[keep], ws[keep], var[keep]
+    flat = [np.asarray(c).ravel() for c in columns]
+    keep = flat[0] > 0
+    return [xs[keep], ys[keep]] + [c[keep] for c in flat]
+
+
+def _equivalent_kernel(xs, ys, ws, r0, log_y_grid, bandwidth):
+    """The local-linear fit's weights at (r0, each ln y of the grid): (near, lk (G, S), ok (G,)).
+
+    The value at a grid point is lk @ v[near]: a weighted least-squares fit of v on (1, dx,
+    dy) with Gaussian kernel weights (Cleveland 1979), its intercept's equivalent kernel.
+    """
+    near = np.flatnonzero(np.abs(xs - r0) <= 4.0 * BANDWIDTH_RHO)  # the kernel beyond 4 SDs adds nothing
+    dx = xs[near] - r0
+    kx = np.exp(-0.5 * (dx / BANDWIDTH_RHO) ** 2) * ws[near]
+    gap = ys[near][None, :] - log_y_grid[:, None]  # (G, S), the kernel's distance in ln y
+    k = kx[None, :] * np.exp(-0.5 * (gap / bandwidth[:, None]) ** 2)
+    # linear in y itself: late on, transport decays at a slightly other rate than
+    # diffusion, so C ∝ exp(−Δλ t) and ln C is linear in y; a local-linear fit in y is
+    # exact for it whatever the kernel's width (and on the early rise, where the kernel is
+    # narrow, y and ln y differ little over it)
+    dy = (np.exp(ys[near])[None, :] - np.exp(log_y_grid)[:, None]) / np.exp(log_y_grid)[:, None]
+    m = np.stack([k.sum(1), (k * dx).sum(1), (k * dy).sum(1), (k * dx * dx).sum(1), (k * dx * dy).sum(1),
+                  (k * dy * dy).sum(1)], axis=1)
+    a = np.empty((log_y_grid.size, 3, 3))
+    a[:, 0, 0], a[:, 0, 1], a[:, 0, 2] = m[:, 0], m[:, 1], m[:, 2]
+    a[:, 1, 1], a[:, 1, 2], a[:, 2, 2] = m[:, 3], m[:, 4], m[:, 5]
+    a[:, 1, 0], a[:, 2, 0], a[:, 2, 1] = m[:, 1], m[:, 2], m[:, 4]
+    ok = m[:, 0] > 0
+    det = np.linalg.det(a)
+    ok &= np.abs(det) > 1e-12 * np.maximum(m[:, 0], 1e-300) ** 3
+    inv = np.zeros_like(a)
+    inv[ok] = np.linalg.inv(a[ok])
+    # equivalent kernel of the intercept: l_s = k_s (inv[0,0] + inv[0,1] dx + inv[0,2] dy)
+    lk = k * (inv[:, 0, 0][:, None] + inv[:, 0, 1][:, None] * dx[None, :] + inv[:, 0, 2][:, None] * dy)
+    return near, lk, ok
+
+
+def _smooth(rho, log_y, values, weight, variance, rho_grid, log_y_grid, bandwidth):
+    """Local-linear fit in (ρ/d, ln y) at every grid point; its value and standard error."""
+    xs, ys, ws, vs, var = _samples(rho, log_y, weight, values, variance)
     out = np.full((rho_grid.size, log_y_grid.size), np.nan)
     sd = np.full_like(out, np.inf)
     for i, r0 in enumerate(rho_grid):
-        near = np.abs(xs - r0) <= 4.0 * BANDWIDTH_RHO  # the kernel beyond 4 SDs adds nothing
-        dx = xs[near] - r0
-        kx = np.exp(-0.5 * (dx / BANDWIDTH_RHO) ** 2) * ws[near]
-        gap = ys[near][None, :] - log_y_grid[:, None]  # (G, S), the kernel's distance in ln y
-        k = kx[None, :] * np.exp(-0.5 * (gap / bandwidth[:, None]) ** 2)
-        # linear in y itself: late on, transport decays at a slightly other rate than
-        # diffusion, so C ∝ exp(−Δλ t) and ln C is linear in y; a local-linear fit in y is
-        # exact for it whatever the kernel's width (and on the early rise, where the kernel is
-        # narrow, y and ln y differ little over it)
-        dy = (np.exp(ys[near])[None, :] - np.exp(log_y_grid)[:, None]) / np.exp(log_y_grid)[:, None]
-        # weighted least squares of v on (1, dx, dy) at each grid point
-        m = np.stack([k.sum(1), (k * dx).sum(1), (k * dy).sum(1), (k * dx * dx).sum(1), (k * dx * dy).sum(1),
-                      (k * dy * dy).sum(1)], axis=1)
-        a = np.empty((log_y_grid.size, 3, 3))
-        a[:, 0, 0], a[:, 0, 1], a[:, 0, 2] = m[:, 0], m[:, 1], m[:, 2]
-        a[:, 1, 1], a[:, 1, 2], a[:, 2, 2] = m[:, 3], m[:, 4], m[:, 5]
-        a[:, 1, 0], a[:, 2, 0], a[:, 2, 1] = m[:, 1], m[:, 2], m[:, 4]
-        ok = m[:, 0] > 0
-        det = np.linalg.det(a)
-        ok &= np.abs(det) > 1e-12 * np.maximum(m[:, 0], 1e-300) ** 3
-        inv = np.zeros_like(a)
-        inv[ok] = np.linalg.inv(a[ok])
-        # equivalent kernel of the intercept: l_s = k_s (inv[0,0] + inv[0,1] dx + inv[0,2] dy)
-        lk = k * (inv[:, 0, 0][:, None] + inv[:, 0, 1][:, None] * dx[None, :] + inv[:, 0, 2][:, None] * dy)
+        near, lk, ok = _equivalent_kernel(xs, ys, ws, r0, log_y_grid, bandwidth)
         out[i] = np.where(ok, lk @ vs[near], np.nan)
         sd[i] = np.where(ok, np.sqrt(np.maximum((lk**2) @ var[near], 0.0)), np.inf)
     return out, sd
+
+
+def _rho_correlation(rho, log_y, weight, variance, rho_grid, log_y_points, bandwidth):
+    """Correlation of the smoothed C between the ρ grid's points, (R, R), from the tallies' noise.
+
+    The smoothed values are linear in the independent tallies, so cov(Cᵢ, Cⱼ) = Σₛ lᵢₛ lⱼₛ var(s)
+    exactly (l the equivalent kernels); averaged over the ln y of ``log_y_points``.
+    """
+    xs, ys, ws, var = _samples(rho, log_y, weight, variance)
+    full = np.zeros((rho_grid.size, log_y_points.size, xs.size))
+    for i, r0 in enumerate(rho_grid):
+        near, lk, ok = _equivalent_kernel(xs, ys, ws, r0, log_y_points, bandwidth)
+        full[i][:, near] = np.where(ok[:, None], lk, 0.0)
+    cov = np.einsum("igs,jgs,s->gij", full, full, var)
+    scale = np.sqrt(np.clip(np.einsum("gii->gi", cov), 1e-300, None))
+    return np.clip(np.mean(cov / scale[:, :, None] / scale[:, None, :], axis=0), -1.0, 1.0)
 
 
 def _hold_last(log_c):
@@ -277,6 +319,24 @@ class SlabCorrection:
         rho_over_d = np.asarray(rho_mm, float)[:, None, :] / thickness_mm
         times = np.asarray(time_ps, float)[:, :, None]
         return np.exp(self._evaluate_points(musp, rho_over_d, times, thickness_mm, ("log_c",))[0])
+
+    def correlation_points(self, *, rho_mm, thickness_mm) -> np.ndarray:
+        """Correlation of C's noise between several distances per row ρ (N, Q): (N, Q, Q).
+
+        The nodes' smoothed-noise correlation across ρ (``_rho_correlation``, averaged over the
+        nodes: their rings and kernels are the same in ρ/d), read bilinearly between the rings'
+        centres (held beyond them).
+        """
+        table = np.mean([t.rho_correlation for t in self.tables], axis=0)
+        grid = self.tables[0].rho
+        index = np.clip(np.interp(np.asarray(rho_mm, float) / thickness_mm, grid, np.arange(grid.size)),
+                        0, grid.size - 1)
+        low = np.minimum(np.floor(index).astype(int), grid.size - 2)
+        frac = index - low
+        i0, i1 = low[:, :, None], low[:, None, :]
+        f0, f1 = frac[:, :, None], frac[:, None, :]
+        return ((1 - f0) * (1 - f1) * table[i0, i1] + f0 * (1 - f1) * table[i0 + 1, i1]
+                + (1 - f0) * f1 * table[i0, i1 + 1] + f0 * f1 * table[i0 + 1, i1 + 1])
 
     def relative_sd_points(self, *, musp_per_mm, rho_mm, time_ps, thickness_mm) -> np.ndarray:
         """:meth:`relative_sd` at several distances per row ρ (N, Q): shape (N, K, Q)."""

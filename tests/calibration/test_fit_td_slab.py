@@ -242,8 +242,8 @@ def test_face_average_against_exact_disc_average(rho):
 @pytest.mark.parametrize("rho", [0.0, 1.5])
 def test_face_sd_at_its_exact_limits(rho):
     """The face's relative SD: one SD s everywhere gives s when the points are fully correlated
-    (a correlation length far beyond the face) and s·√Σ share² when they are not (far below the
-    spacing of the points); the shares are the points' light (their weights times the response)."""
+    and s·√Σ share² when they are independent; the shares are the points' light (their weights
+    times the response)."""
     s = 0.02
 
     def shape(mua, musp, r, times):
@@ -253,8 +253,9 @@ def test_face_sd_at_its_exact_limits(rho):
         np.shape(times) + (1,))
     shape.relative_sd_points = lambda musp, r, times: np.full(np.shape(times) + (np.shape(r)[-1],), s)
     times = np.ones((1, 4))
-    for length, expected in ((1e6, None), (1e-6, "independent")):
-        shape.rho_correlation_mm = length
+    for expected in (None, "independent"):
+        shape.correlation_points = (lambda r: np.ones(np.shape(r) + (np.shape(r)[-1],))) if expected is None else (
+            lambda r: np.broadcast_to(np.eye(np.shape(r)[-1]), np.shape(r) + (np.shape(r)[-1],)))
         averaged = face_average(shape, core_mm=4.0, rho_mm=np.array([rho]))
         got = averaged.relative_sd(np.array([1.0]), np.array([rho]), times)
         if expected is None:
