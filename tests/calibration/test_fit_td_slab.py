@@ -1,11 +1,12 @@
 """Transmittance through a slab with the Monte Carlo-corrected model (``mc-slab``, the default).
 
-Data: the independent slab run ``fixtures/mc_td_slab.npz`` (our engine, seed 3101, 12.4 million
-photons, μs = 6 /mm at g 0.8 (μs′ 1.2 /mm), n 1.4, 15 mm: τ′ = 18), averaged over the disc
-within 6 mm of the axis and fitted as what a detection face 12 mm wide on the axis records
-(``detector = "fibre"``, ``fibre_core_mm = 12``; the model is averaged over the same face).  The
-model's nodes come from ``fixtures/slab-cache`` (made by ``fixtures/make_slab_nodes.py`` with the
-product's own settings: other seeds, thickness 10 mm, other μs, τ′ = 11.31–22.63, none at 18).
+Data: the independent slab run ``fixtures/mc_td_slab_deep.npz`` (our engine, seeds 3101–3128,
+120 million photons, μs = 6 /mm at g 0.8 (μs′ 1.2 /mm), n 1.4, 15 mm: τ′ = 18), averaged over
+the disc within 6 mm of the axis and fitted as what a detection face 12 mm wide on the axis
+records (``detector = "fibre"``, ``fibre_core_mm = 12``; the model is averaged over the same
+face).  The model's nodes come from ``fixtures/slab-cache`` (made by
+``fixtures/make_slab_nodes.py`` with the product's own settings: other seeds, thickness 10 mm,
+other μs, τ′ = 11.31–22.63, none at 18).
 
 The reference run's own photon noise is part of every comparison: copies of the expected curve
 made from the run's response perturbed by its standard error per 5-ps bin *before* the
@@ -14,21 +15,25 @@ independent from bin to bin, while the IRF spreads it over some twenty bins, and
 understate it four- to fivefold).  Its spread is ``ref``; a fit's error is judged against
 √(SD² + ref²).
 
-Measured (IRF 200 ps, 10⁶ counts at the peak), error of μa / μs′ [%], ref in brackets:
+Measured on the expected counts (IRF 200 ps, 10⁶ counts at the peak), error of μa / μs′ [%]:
 
-============  ===================  ===================  ==================
-μs′/μa        mc-slab              contini1997          ref (run's noise)
-============  ===================  ===================  ==================
-10            −0.7 / −2.9          −2.6 / −18.5         0.4 / 1.4
-30            −1.2 / −1.4          −3.4 / −13.6         0.3 / 0.8
-100           +1.9 / +2.6          −3.7 / −8.8          1.2 / 1.3
-300           +6.2 / +2.8          −7.9 / −7.8          3.0 / 1.2
-1000          +21 / +2.8           −18 / −6.9           7.9 / 1.1
-============  ===================  ===================  ==================
+============  ===================  ===================  ==================  ==================
+μs′/μa        mc-slab              contini1997          ref (run's noise)   mc-slab SD
+============  ===================  ===================  ==================  ==================
+10            −0.6 / −1.2          −2.6 / −17.5         0.3 / 0.6           1.2 / 2.9
+30            +0.4 / +0.9          −2.8 / −12.7         0.2 / 0.5           0.6 / 1.4
+100           +0.5 / +0.2          −4.5 / −9.7          0.2 / 0.2           0.7 / 0.8
+300           +0.2 / −0.3          −8.3 / −8.0          0.8 / 0.3           1.3 / 0.6
+1000          +1.8 / −0.2          −18.9 / −7.1         2.0 / 0.3           4.0 / 0.5
+============  ===================  ===================  ==================  ==================
 
-So the run can show the acceptance's 3 %/2 % only where its own noise allows (μs′/μa ≤ 100);
-beyond, its tail is too noisy (the errors at 300 and 1000 are 2–3 ref, and correlated, all
-coming from the one run).
+With IRF 100 and 300 ps at 10⁵ counts the model's errors stay within 2.2 % (μa) and 1.4 % (μs′)
+over μs′/μa 10–1000.  Poisson copies at 10⁵ counts spread further (μs′ 1.6 % at μs′/μa 30
+with IRF 300 ps; 16 % at μs′/μa 10 with IRF 300 ps, where the IRF is wider than the curve's
+rise and the fit's linear SD, 11 %, understates it: the fit warns there); over 15 cases × 6
+copies, 97.6 % lie within 2 √(SD² + ref²).  With the 12-million-photon run alone μa at 300 and
+1000 looked +6 % and +21 % off: the reference's noise, and the nodes' noise that a kernel too
+narrow after the peak left in the model (since widened, slab_time_correction.py).
 """
 
 from __future__ import annotations
@@ -55,6 +60,8 @@ MUSP = 1.2
 DISC_MM = 6.0
 REF_COPIES = 5
 POISSON_COPIES = 3
+REF_ROWS = slice(1, 1 + REF_COPIES)
+POISSON_ROWS = slice(1 + REF_COPIES, None)
 
 
 def _nodes(*taus):
@@ -72,14 +79,15 @@ def _disc(run, mua):
 
 
 def _measurement(ratio, fwhm, peak, seed):
-    """Expected counts, reference copies (the run's noise) and Poisson copies of one case."""
+    """One case as rows: the expected counts (row 0), reference copies (the run's noise, rows
+    :data:`REF_ROWS`) and Poisson copies (rows :data:`POISSON_ROWS`)."""
     run = fixture.slab_deep()
     mua = MUSP / ratio
     mean, se = _disc(run, mua)
     curve = fixture.instrument_from_response(run["time_ps"], mean, se, fwhm_ps=fwhm, shift_ps=120.0,
                                              peak_counts=peak, window_ps=(0.0, 5000.0))
     rng = np.random.default_rng(seed)
-    rows = {}
+    rows = {(699.0, 0.0): curve.lam}
     for k in range(REF_COPIES):
         perturbed = mean + se * rng.standard_normal(mean.size)
         copy = fixture.instrument_from_response(run["time_ps"], perturbed, 0 * perturbed, fwhm_ps=fwhm, shift_ps=120.0,
@@ -94,14 +102,15 @@ def _measurement(ratio, fwhm, peak, seed):
 
 
 def _errors(fit, mua):
-    ref = slice(0, REF_COPIES)
-    data = slice(REF_COPIES, None)
+    """Per parameter: the model's error on the expected counts, the Poisson copies' errors and z, the run's noise."""
     out = {}
     for name, truth in (("mua", mua), ("musp", MUSP)):
         values = getattr(fit, f"{name}_per_mm")
-        sd = getattr(fit, f"{name}_sd_per_mm")[data]
-        ref_sd = np.std(values[ref], ddof=1)
-        out[name] = (values[data] / truth - 1, (values[data] - truth) / np.sqrt(sd**2 + ref_sd**2), ref_sd / truth)
+        sd = getattr(fit, f"{name}_sd_per_mm")[POISSON_ROWS]
+        ref_sd = np.std(values[REF_ROWS], ddof=1)
+        data = values[POISSON_ROWS]
+        out[name] = (values[0] / truth - 1, data / truth - 1, (data - truth) / np.sqrt(sd**2 + ref_sd**2),
+                     ref_sd / truth)
     return out
 
 
@@ -119,19 +128,21 @@ def test_slab_model_recovers_the_independent_run(correction, ratio, fwhm, peak):
                             musp_range_per_mm=(13.45 / 15, 22.63 / 15)), sd_parts=("poisson_counts",))
     diffusion = fit_td(measurement, model="contini1997")
     errors = _errors(fit, mua)
-    report = {name: (np.round(100 * e, 2), np.round(z, 2), round(100 * r, 2)) for name, (e, z, r) in errors.items()}
-    # the acceptance (issue 14), on the mean of the Poisson copies: μa within 3 %, μs′ within
-    # 2 %, or within twice the run's own noise where that is larger (μa at μs′/μa 1000: 3 %)
+    report = {name: (round(100 * b, 2), np.round(100 * e, 2), np.round(z, 2), round(100 * r, 2))
+              for name, (b, e, z, r) in errors.items()}
+    # the acceptance (issue 14) on the model's error, the fit of the expected counts: μa within
+    # 3 %, μs′ within 2 %, or within twice the run's own noise where that is larger (μa at
+    # μs′/μa 1000: 2 %); the Poisson copies add their own spread, which the SDs must hold
     for name, tolerance in (("mua", 0.03), ("musp", 0.02)):
-        error, _, ref = errors[name]
-        assert abs(np.mean(error)) <= max(tolerance, 2.0 * ref), (name, report)
-    # and far closer than the slab diffusion model it corrects (μs′ −7 to −19 % there)
-    assert np.median(np.abs(errors["musp"][0])) < 0.4 * np.median(np.abs(diffusion.musp_per_mm[REF_COPIES:] / MUSP - 1))
-    # the SDs, with the run's own noise, hold the errors, and say something: μs′ SDs of
+        bias, _, _, ref = errors[name]
+        assert abs(bias) <= max(tolerance, 2.0 * ref), (name, report)
+    # and far closer than the slab diffusion model it corrects (μs′ −7 to −18 % there)
+    assert abs(errors["musp"][0]) < 0.4 * abs(diffusion.musp_per_mm[0] / MUSP - 1)
+    # the SDs, with the run's own noise, hold the copies' errors, and say something: μs′ SDs of
     # 50–120 % were claimed at μs′/μa 10 before the runs' noise was averaged over what a bin
     # holds where the IRF is wider than the curve's rise
-    assert np.all(np.abs(errors["mua"][1]) <= 2.5) and np.all(np.abs(errors["musp"][1]) <= 2.5), report
-    assert np.median(fit.musp_sd_per_mm[REF_COPIES:]) < 0.08 * MUSP, fit.musp_sd_per_mm
+    assert np.all(np.abs(errors["mua"][2]) <= 2.5) and np.all(np.abs(errors["musp"][2]) <= 2.5), report
+    assert np.median(fit.musp_sd_per_mm[POISSON_ROWS]) < 0.08 * MUSP, fit.musp_sd_per_mm
     assert "slab_model_error" in fit.sd_includes
 
 
@@ -295,7 +306,7 @@ def test_default_transmittance_fit_is_the_slab_model(tmp_path):
     from phantomlab.calibration.fit_file import fit_measurement_file
 
     mua, measurement = _measurement(100.0, 150.0, 3e5, seed=5)
-    curve_rows = {(750.0, 0.0): measurement.counts[REF_COPIES, 0]}
+    curve_rows = {(750.0, 0.0): measurement.counts[1 + REF_COPIES, 0]}
     csv = tmp_path / "slab.csv"
     csv.write_text(fixture.td_csv(curve_rows, measurement.time_ps))
     (tmp_path / "irf.csv").write_text(fixture.irf_csv(measurement.irf_time_ps, measurement.irf[0]))
