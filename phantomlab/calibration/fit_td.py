@@ -108,6 +108,8 @@ DIFFUSION_SHAPE_ERROR = (0.02, 0.2)
 SLAB_SHAPE_ERROR = (0.0025, 0.2)
 #: Passes of the Poisson reweighting (the weights settle in two).
 IRLS_PASSES = 2
+#: Levenberg–Marquardt steps of the smooth diffusion model before a lookup fit (0: none).
+DIFFUSION_START_STEPS = 6
 #: The fit stops when a step changes χ² by less than this (relative): Δχ² of 0.002 over 200
 #: bins, so the solution lies within √0.002 ≈ 0.05 SD of the minimum along any direction, far
 #: inside its uncertainty; the parameter steps then need no limit of their own (the lookup's
@@ -261,6 +263,11 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     counts, windows = counts[:, crop], windows[:, crop]
     K = time.size
     response = prepare_irf(time_ps=time, irf_time_ps=measurement.irf_time_ps[irf_span], irf=irf[:, irf_span])
+    # the starting grid only ranks (μa, μs′) pairs: the IRF taken as a rectangle per bin
+    # (an error of about 1e-3 of the peak, far below what separates the grid's pairs) on a
+    # lattice a third the size
+    coarse = prepare_irf(time_ps=time, irf_time_ps=measurement.irf_time_ps[irf_span], irf=irf[:, irf_span],
+                         subdivisions=1)
 
     # the lookup's objective is rough on the scale of its photon noise: it starts from the
     # smooth diffusion model's grid and fit (same geometry), which lands in the right basin
@@ -270,12 +277,12 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     if smooth_shape is not shape and meta.detector == "fibre":
         smooth_shape = face_average(smooth_shape, core_mm=float(meta.fibre_core_mm), rho_mm=measurement.rho_mm)
 
-    def expected(mua_c, musp_c, shift_c, curves, sd=None, using=None):
+    def expected(mua_c, musp_c, shift_c, curves, sd=None, using=None, through=None):
         """Shape c (unit amplitude), amplitude A and μ for the given curves."""
         use = shape if using is None else using
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", PhantomlabWarning)
-            c = response.counts(lambda times: use(mua_c, musp_c, rho_curve[curves], times), shift_c,
+            c = (response if through is None else through).counts(lambda times: use(mua_c, musp_c, rho_curve[curves], times), shift_c,
                                 irf_rows=irf_of_curve[curves], smooth_start=True)
         data = counts[curves] - background[curves][:, None]
         if absolute is not None:
@@ -286,7 +293,8 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
             amplitude = np.maximum(amplitude, 1e-300)
         return c, amplitude, amplitude[:, None] * c + background[curves][:, None]
 
-    start = start_values(lambda *a, **k: expected(*a, using=smooth_shape, **k), counts, background, windows, time, W, R)
+    start = start_values(lambda *a, **k: expected(*a, using=smooth_shape, through=coarse, **k), counts, background,
+                         windows, time, W, R)
     P = 2 + R
     musp_low, musp_high = (1e-3, 50.0) if musp_range_per_mm is None else musp_range_per_mm
     lower = np.concatenate([[np.log(1e-6), np.log(musp_low)], np.full(R, (time[0] - time[-1]) / SHIFT_UNIT_PS)])
@@ -298,12 +306,13 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         def smooth_residual(x_rows, rows):
             curves = (rows[:, None] * R + np.arange(R)[None, :]).ravel()
             _, _, mu = expected(np.repeat(np.exp(x_rows[:, 0]), R), np.repeat(np.exp(x_rows[:, 1]), R),
-                                x_rows[:, 2:].ravel() * SHIFT_UNIT_PS, curves, sd[curves], using=smooth_shape)
+                                x_rows[:, 2:].ravel() * SHIFT_UNIT_PS, curves, sd[curves], using=smooth_shape,
+                                through=coarse)
             return ((mu - counts[curves]) / sd[curves]).reshape(rows.size, R * K)
 
-        if model == "mc":  # the lookup's rough objective: a few steps of diffusion first (mc-slab is smooth)
+        if model == "mc" and DIFFUSION_START_STEPS:  # a few steps of diffusion first (mc-slab is smooth)
             start = fit_blocks(smooth_residual, start, mask=mask, lower=lower, upper=upper, row_aware=True,
-                               max_nfev=6, tolerance=1e-3, step_tolerance=_STEP_TOLERANCE).x  # a start only
+                               max_nfev=DIFFUSION_START_STEPS, tolerance=1e-3, step_tolerance=_STEP_TOLERANCE).x  # a start only
     outcome = None
     x = start
     for attempt in range(IRLS_PASSES):
@@ -329,33 +338,45 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     cov_log = outcome.covariance
     model_sd = getattr(shape, "relative_sd", None)
     # each bin holds the response over the IRF's width: a model error's size and its time are
-    # the response-weighted means over what the bin holds (one convolution each)
+    # the response-weighted means over what the bin holds (one convolution for all of them)
     mua_c, musp_c = np.repeat(np.exp(x[:, 0]), R), np.repeat(np.exp(x[:, 1]), R)
     shifts = SHIFT_UNIT_PS * x[:, 2:].ravel()
 
-    def weighted(extra):
+    def weighted(*extras):
+        """Σ over what each bin holds of the response times each ``extra(times)``, (E, W·R, K): one call."""
+        N, E = mua_c.size, len(extras)
+
+        def stacked(times):  # every block of N rows holds the same times
+            values = shape(mua_c, musp_c, rho_curve, times[:N])
+            return np.concatenate([values * extra(times[:N]) for extra in extras], axis=0)
+
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", PhantomlabWarning)
-            return response.counts(
-                lambda times: shape(mua_c, musp_c, rho_curve, times) * extra(times), shifts,
-                irf_rows=irf_of_curve, smooth_start=True)
+            return response.counts(stacked, np.tile(shifts, E), irf_rows=np.tile(irf_of_curve, E),
+                                   smooth_start=True).reshape(E, N, -1)
 
+    def log_time_of(times):
+        return np.log(np.maximum(times, 1e-3))
+
+    extras = [log_time_of, lambda times: log_time_of(times) ** 2]
+    with_bias = getattr(shape, "relative_bias", None)
+    if model_sd is not None:
+        extras += [lambda times: model_sd(musp_c, rho_curve, np.maximum(times, 1e-3)),
+                   lambda times: shape.bandwidth_at(musp_c, rho_curve, np.maximum(times, 1e-3))]
+        if with_bias is not None:
+            extras.append(lambda times: with_bias(musp_c, rho_curve, np.maximum(times, 1e-3)))
     with np.errstate(divide="ignore", invalid="ignore"):
         held = np.maximum(c, 1e-300)
-        log_time = weighted(lambda times: np.log(np.maximum(times, 1e-3))) / held
-        log_time_spread = np.sqrt(np.clip(
-            weighted(lambda times: np.log(np.maximum(times, 1e-3)) ** 2) / held - log_time**2, 0.0, None))
+        sums = weighted(*extras) / held[None]
+        log_time = sums[0]
+        log_time_spread = np.sqrt(np.clip(sums[1] - log_time**2, 0.0, None))
     log_time = np.where(np.isfinite(log_time), log_time, 0.0)
     log_time_spread = np.where(np.isfinite(log_time_spread), log_time_spread, 0.0)
     if model_sd is not None:
         # the lookup's own photon noise, correlated along the curve as its smoothing kernel is,
         # and the smoothing's bias
-        with np.errstate(divide="ignore", invalid="ignore"):
-            rel = weighted(lambda times: model_sd(musp_c, rho_curve, np.maximum(times, 1e-3))) / held
-            width = weighted(lambda times: shape.bandwidth_at(musp_c, rho_curve, np.maximum(times, 1e-3))) / held
-            with_bias = getattr(shape, "relative_bias", None)
-            bias = (weighted(lambda times: with_bias(musp_c, rho_curve, np.maximum(times, 1e-3))) / held
-                    if with_bias is not None else np.zeros_like(rel))
+        rel, width = sums[2], sums[3]
+        bias = sums[4] if with_bias is not None else np.zeros_like(rel)
         rel = np.where(np.isfinite(rel), rel, 0.0)
         bias = np.where(np.isfinite(bias), bias, 0.0)
         width = np.where(np.isfinite(width) & (width > 0), width, shape.default_bandwidth)
@@ -372,7 +393,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         rel = np.where(resolved, rel * np.sqrt(width / widened), rel)
         # with the smoothing's own bias (TimeResolvedLookup.relative_bias), correlated as the noise
         cov_log = cov_log + _lookup_covariance(
-            lambda x_rows, rows: residual_fn(x_rows, rows), x, mask,
+            outcome.jacobian, mask,
             [((amplitude[:, None] * c * rel) / sd, np.where(resolved, widened, width)),
              ((amplitude[:, None] * c * bias) / sd, widened)], log_time, W, R, K)
     values, cov = log_to_linear(x[:, :2], cov_log[:, :2, :2])
@@ -382,7 +403,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         # model's between its runs, propagated like the lookup's noise; assess_fit adds it to
         # the SDs (diffusion_model_error, slab_model_error)
         relative, width = DIFFUSION_SHAPE_ERROR if family == "diffusion" else SLAB_SHAPE_ERROR
-        shape_cov = _lookup_covariance(lambda x_rows, rows: residual_fn(x_rows, rows), x, mask,
+        shape_cov = _lookup_covariance(outcome.jacobian, mask,
                                        [(relative * amplitude[:, None] * c / sd, np.full(log_time.shape, width))],
                                        log_time, W, R, K)[:, :2, :2]
         model_covariance = values[:, :, None] * shape_cov * values[:, None, :]
@@ -462,7 +483,7 @@ def _check_lookup_reach(lookup, measurement, musp_fit, shifts_ps, windows, irf, 
             f"{SERVED_MAX_RELATIVE_SD:g}, {lookup.u_max / mus[c]:.3g} mm at most)")
 
 
-def _lookup_covariance(residual_fn, x, mask, errors, log_delay, W, R, K) -> np.ndarray:
+def _lookup_covariance(jac, mask, errors, log_delay, W, R, K) -> np.ndarray:
     """Covariance of the fitted parameters from model errors of each bin, (W, P, P).
 
     A model error δμ moves the normalised residuals by δμ/σ and the solution by
@@ -472,12 +493,13 @@ def _lookup_covariance(residual_fn, x, mask, errors, log_delay, W, R, K) -> np.n
     width h_k in ln t overlap:
     ρ_kl = √(2 h_k h_l/(h_k² + h_l²)) exp(−(ln τ_k − ln τ_l)²/(2 (h_k² + h_l²)))
     (a shift of u moves every bin of a curve together, so bins of one curve share the radial
-    smoothing fully; curves are independent).
+    smoothing fully; curves are independent).  ``jac`` (W, M, P) is the fit's own Jacobian at
+    the solution (:attr:`~phantomlab.calibration.fitting.BlockOutcome.jacobian`).
     """
-    from phantomlab.calibration.fitting import finite_jacobian, propagated_error_covariance
+    from phantomlab.calibration.fitting import propagated_error_covariance
 
-    jac = finite_jacobian(lambda xx: np.where(mask, residual_fn(xx, np.arange(W)), 0.0), x)  # (W, M, P)
-    out = np.zeros((W, x.shape[1], x.shape[1]))
+    P = jac.shape[2]
+    out = np.zeros((W, P, P))
     for w in range(W):
         m = mask[w]
         j = jac[w][m]

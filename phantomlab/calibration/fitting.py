@@ -59,6 +59,9 @@ class BlockOutcome:
     settled : ndarray of bool (W,) or None
         Per block: met its stopping rule, or its last step changed χ² by less than a
         hundredth (the parameters then move by under a tenth of their SD).
+    jacobian : ndarray (W, M, P) or None
+        Jacobian of the normalised residuals at the solution (zero where no data), the one
+        ``covariance`` comes from: callers that propagate other errors reuse it.
     """
 
     x: np.ndarray
@@ -70,6 +73,7 @@ class BlockOutcome:
     success: bool
     nfev: int
     settled: np.ndarray | None = None
+    jacobian: np.ndarray | None = None
 
 
 #: A block's χ² this many SDs of the χ² distribution (√(2 dof)) above its mean (dof) marks a
@@ -100,7 +104,8 @@ def with_rows(outcome: BlockOutcome, rows, other: BlockOutcome, other_rows) -> B
     return replace(outcome, x=put(outcome.x, other.x), covariance=put(outcome.covariance, other.covariance),
                    residuals=put(outcome.residuals, other.residuals), chi2=put(outcome.chi2, other.chi2),
                    dof=put(outcome.dof, other.dof), chi2_red=put(outcome.chi2_red, other.chi2_red),
-                   settled=put(outcome.settled, other.settled), nfev=outcome.nfev + other.nfev)
+                   settled=put(outcome.settled, other.settled), jacobian=put(outcome.jacobian, other.jacobian),
+                   nfev=outcome.nfev + other.nfev)
 
 
 @dataclass(frozen=True)
@@ -180,6 +185,35 @@ def finite_jacobian(residual_fn: Callable[[np.ndarray], np.ndarray], x: np.ndarr
         shifted[:, p] += step
         jac[:, :, p] = (residual_fn(shifted) - base) / step[:, None]
     return jac
+
+
+def stacked_jacobian(row_fn: Callable[[np.ndarray, np.ndarray], np.ndarray], x: np.ndarray, rows: np.ndarray,
+                     base: np.ndarray) -> np.ndarray:
+    """:func:`finite_jacobian` of a row-aware residual function in one call.
+
+    The P forward steps of every block go to ``row_fn`` together, as P·W rows (``rows``
+    repeated): a forward model vectorised over rows pays its fixed cost per call once instead
+    of P times.  The steps and the differences are those of :func:`finite_jacobian`.
+
+    Parameters
+    ----------
+    row_fn : callable
+        ``row_fn(x_rows, rows)`` → residuals (len(rows), M); rows may repeat.
+    x : ndarray, shape (W, P)
+    rows : ndarray of int, shape (W,)
+    base : ndarray, shape (W, M)
+        ``row_fn(x, rows)``, already known to the caller.
+
+    Returns
+    -------
+    ndarray, shape (W, M, P)
+    """
+    W, P = x.shape
+    step = _STEP * np.maximum(1.0, np.abs(x))  # (W, P)
+    shifted = np.repeat(x[None, :, :], P, axis=0)  # (P, W, P)
+    shifted[np.arange(P), :, np.arange(P)] += step.T
+    moved = np.asarray(row_fn(shifted.reshape(P * W, P), np.tile(rows, P)), dtype=float).reshape(P, W, -1)
+    return np.moveaxis((moved - base[None]) / step.T[:, :, None], 0, 2)
 
 
 def _invert_normal(jac: np.ndarray) -> np.ndarray:
@@ -284,11 +318,13 @@ def fit_blocks(
             full[rows] = x_rows
             return block_fn(full)[rows]
     x_start = _inside(x0, lo, hi)
-    x, nfev, settled = _batched_levenberg_marquardt(row_fn, x_start, lo, hi, max_iterations=max_nfev or 60,
-                                                    tolerance=tolerance, step_tolerance=step_tolerance)
-    jac = finite_jacobian(block_fn, x)
+    x, at_solution, nfev, settled = _batched_levenberg_marquardt(
+        row_fn, x_start, lo, hi, max_iterations=max_nfev or 60, tolerance=tolerance, step_tolerance=step_tolerance,
+        stacked=row_aware)
+    jac = (stacked_jacobian(row_fn, x, np.arange(W), at_solution) if row_aware
+           else finite_jacobian(block_fn, x))
     covariance = _invert_normal(jac)
-    residuals = np.where(mask, block_fn(x), np.nan)
+    residuals = np.where(mask, at_solution, np.nan)
     chi2 = np.nansum(residuals**2, axis=1)
     dof = mask.sum(axis=1) - P
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -298,20 +334,22 @@ def fit_blocks(
         covariance = covariance * factor[:, None, None]
     return BlockOutcome(
         x=x, covariance=covariance, residuals=residuals, chi2=chi2, dof=dof,
-        chi2_red=chi2_red, success=bool(np.all(settled)), nfev=nfev, settled=settled,
+        chi2_red=chi2_red, success=bool(np.all(settled)), nfev=nfev, settled=settled, jacobian=jac,
     )
 
 
-def _batched_levenberg_marquardt(row_fn, x, lo, hi, *, max_iterations=60, tolerance=1e-9, step_tolerance=1e-7):
+def _batched_levenberg_marquardt(row_fn, x, lo, hi, *, max_iterations=60, tolerance=1e-9, step_tolerance=1e-7,
+                                 stacked=False):
     """Levenberg–Marquardt on W independent problems at once, each with its own damping.
 
     Steps solve (JᵀJ + λ diag(JᵀJ)) δ = −Jᵀr per block (Marquardt 1963), are projected onto
     the bounds, accepted where the cost falls (λ /= 3) and refused elsewhere (λ *= 4);
     a block stops when its relative cost change falls below ``tolerance`` and its step below
     ``step_tolerance``, or when a refused step would change its cost by less than ``tolerance``.
-    ``row_fn(x_rows, rows)`` evaluates only the blocks still running.
+    ``row_fn(x_rows, rows)`` evaluates only the blocks still running; with ``stacked`` (rows may
+    repeat) the Jacobian's P steps go to it in one call (:func:`stacked_jacobian`).
 
-    Returns (x, nfev, settled): settled (W,) is False where a block ran out of iterations while
+    Returns (x, r, nfev, settled): r the residuals at x (W, M); settled (W,) is False where a block ran out of iterations while
     its last accepted step still lowered its χ² by more than :data:`_SETTLED_CHI2` (times
     its mean square residual, for data without SDs); a smaller change moves the parameters
     by well under a tenth of their SD (in a quadratic valley Δχ² = (δ/σ)²), so such a block
@@ -331,7 +369,10 @@ def _batched_levenberg_marquardt(row_fn, x, lo, hi, *, max_iterations=60, tolera
         if rows.size == 0:
             break
         xa, ra = x[rows], r[rows]
-        jac = finite_jacobian(lambda xx: row_fn(xx, rows), xa)
+        if stacked:  # the steps in one call, from the residuals already known
+            jac = stacked_jacobian(row_fn, xa, rows, ra)
+        else:
+            jac = finite_jacobian(lambda xx: row_fn(xx, rows), xa)
         nfev += P
         grad = np.einsum("wmp,wm->wp", jac, ra)
         normal = np.einsum("wmp,wmq->wpq", jac, jac)
@@ -370,7 +411,7 @@ def _batched_levenberg_marquardt(row_fn, x, lo, hi, *, max_iterations=60, tolera
             if not np.any(pending):
                 break
     unit = np.maximum(1.0, cost / max(r.shape[1], 1))
-    return x, nfev, ~(active & (last_drop > _SETTLED_CHI2 * unit))
+    return x, r, nfev, ~(active & (last_drop > _SETTLED_CHI2 * unit))
 
 
 def fit_joint(

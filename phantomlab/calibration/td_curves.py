@@ -110,8 +110,9 @@ def _shifted(time, curves, shifts):
     padded = np.concatenate([np.zeros((curves.shape[0], 1)), curves, np.zeros((curves.shape[0], 1))], axis=1)
     lo = np.clip(low + 1, 0, time.size + 1)
     hi = np.clip(low + 2, 0, time.size + 1)
-    rows = np.arange(curves.shape[0])[:, None, None]
-    return padded[rows, lo] * (1 - frac) + padded[rows, hi] * frac
+    flat = padded.ravel()  # one flat gather each: faster than indexing by (row, column)
+    row_start = (np.arange(curves.shape[0]) * (time.size + 2))[:, None, None]
+    return flat[row_start + lo] * (1 - frac) + flat[row_start + hi] * frac
 
 
 def start_values(expected, counts, background, windows, time, W, R) -> np.ndarray:
@@ -147,18 +148,16 @@ def start_values(expected, counts, background, windows, time, W, R) -> np.ndarra
 
 def _half_rise(time, curves) -> np.ndarray:
     """Time where each curve first reaches half its peak (linear between bins) [ps]."""
-    out = np.empty(curves.shape[0])
-    for i, row in enumerate(curves):
-        top = row.max()
-        if not top > 0:
-            out[i] = np.nan
-            continue
-        k = int(np.argmax(row >= 0.5 * top))
-        if k == 0:
-            out[i] = time[0]
-            continue
-        a, b = row[k - 1], row[k]
-        out[i] = time[k - 1] + (0.5 * top - a) * (time[k] - time[k - 1]) / (b - a if b != a else 1.0)
+    curves = np.asarray(curves, float)
+    top = curves.max(axis=1)
+    k = np.argmax(curves >= 0.5 * top[:, None], axis=1)
+    rows = np.arange(curves.shape[0])
+    before = np.maximum(k - 1, 0)
+    a, b = curves[rows, before], curves[rows, k]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        between = time[before] + (0.5 * top - a) * (time[k] - time[before]) / np.where(b != a, b - a, 1.0)
+    out = np.where(k == 0, time[0], between)
+    out = np.where(top > 0, out, np.nan)
     return np.nan_to_num(out, nan=0.0)
 
 

@@ -268,15 +268,18 @@ def prepare_irf(*, time_ps, irf_time_ps, irf, subdivisions: int = 3, matrix: boo
     matrices = None
     if matrix and fine.shape[0] * lattice.size * t.size <= MAX_MATRIX_ELEMENTS:
         # counts_k = Σ_m S_m Σ_i h[k s + i + J' − 1 − m]: the convolution and the sum over sub-bins
+        # = Σ_m S_m c[k s + J' − 1 − m] with c[b] = Σ_i h[b + i] (h zero outside its J' sub-bins):
+        # the moving sum c once, then one gather
         J = fine.shape[1]
         m = np.arange(lattice.size)[:, None]
         k = np.arange(t.size)[None, :]
-        matrices = np.zeros((fine.shape[0], lattice.size, t.size))
-        padded = np.concatenate([fine, np.zeros((fine.shape[0], 1))], axis=1)
-        for i in range(s):
-            offset = k * s + i + J - 1 - m
-            index = np.where((offset >= 0) & (offset < J), offset, J)
-            matrices += padded[:, index]
+        rows = fine.shape[0]
+        wide = np.concatenate([np.zeros((rows, s - 1)), fine, np.zeros((rows, s - 1))], axis=1)
+        moving = sum(wide[:, i:i + J + s - 1] for i in range(s))  # c[b] at b + s − 1, b = −(s−1) … J − 1
+        moving = np.concatenate([moving, np.zeros((rows, 1))], axis=1)  # the zero slot
+        index = k * s + J - 1 - m + (s - 1)
+        index = np.where((index >= 0) & (index < J + s - 1), index, J + s - 1)
+        matrices = moving[:, index]
         matrices.setflags(write=False)
     for array in (fine, lattice):
         array.setflags(write=False)
