@@ -70,8 +70,8 @@ from typing import Any
 import numpy as np
 
 from phantomlab.calibration.fit_result import FitResult
-from phantomlab.calibration.fitting import fit_blocks, log_to_linear
-from phantomlab.calibration.identifiability import outcome_warnings
+from phantomlab.calibration.fitting import _invert_normal, fit_blocks, log_to_linear, step_aware_jacobian
+from phantomlab.calibration.identifiability import _bands, outcome_warnings
 from phantomlab.calibration.td_checks import td_design_warnings
 from phantomlab.calibration.td_curves import (
     SHIFT_UNIT_PS,
@@ -335,7 +335,22 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         c, amplitude, mu = expected(np.repeat(np.exp(x[:, 0]), R), np.repeat(np.exp(x[:, 1]), R), x[:, 2:].ravel() * SHIFT_UNIT_PS,
                                     curves, sd)
         sd = np.sqrt(np.maximum(mu, 1e-12))
+    # a solution on a step of the model (the lookup read up to its first photons): the SD from
+    # the smooth side's derivative, and said (a difference across the step claimed SDs of 0.01 %)
+    jacobian, stepped = step_aware_jacobian(lambda x_rows, rows: np.where(mask[rows], residual_fn(x_rows, rows), 0.0),
+                                            x, np.where(mask, outcome.residuals, 0.0), outcome.jacobian)
     cov_log = outcome.covariance
+    if stepped.any():
+        on_step = np.flatnonzero(stepped.any(axis=1))
+        cov_log = cov_log.copy()
+        cov_log[on_step] = _invert_normal(jacobian[on_step])
+        names = ["mua", "musp"] + ["t0"] * R
+        changed = ", ".join(dict.fromkeys(names[p] for p in np.flatnonzero(stepped.any(axis=0))))
+        messages.append(f"at {_bands(measurement.wavelength_nm, stepped.any(axis=1))} the fit stops on a step of the "
+                        f"model (in {changed}): "
+                        + ("the Monte Carlo lookup is read at the edge of its photons; " if family == "mc" else "")
+                        + "the SDs come from the smooth side and may understate the spread; a baseline with more "
+                          "photons or a shorter distance avoids it")
     model_sd = getattr(shape, "relative_sd", None)
     # each bin holds the response over the IRF's width: a model error's size and its time are
     # the response-weighted means over what the bin holds (one convolution for all of them)
@@ -393,7 +408,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         rel = np.where(resolved, rel * np.sqrt(width / widened), rel)
         # with the smoothing's own bias (TimeResolvedLookup.relative_bias), correlated as the noise
         cov_log = cov_log + _lookup_covariance(
-            outcome.jacobian, mask,
+            jacobian, mask,
             [((amplitude[:, None] * c * rel) / sd, np.where(resolved, widened, width)),
              ((amplitude[:, None] * c * bias) / sd, widened)], log_time, W, R, K)
     values, cov = log_to_linear(x[:, :2], cov_log[:, :2, :2])
@@ -403,7 +418,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         # model's between its runs, propagated like the lookup's noise; assess_fit adds it to
         # the SDs (diffusion_model_error, slab_model_error)
         relative, width = DIFFUSION_SHAPE_ERROR if family == "diffusion" else SLAB_SHAPE_ERROR
-        shape_cov = _lookup_covariance(outcome.jacobian, mask,
+        shape_cov = _lookup_covariance(jacobian, mask,
                                        [(relative * amplitude[:, None] * c / sd, np.full(log_time.shape, width))],
                                        log_time, W, R, K)[:, :2, :2]
         model_covariance = values[:, :, None] * shape_cov * values[:, None, :]

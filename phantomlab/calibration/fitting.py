@@ -26,7 +26,8 @@ from typing import Callable
 import numpy as np
 from scipy.optimize import least_squares
 
-__all__ = ["BlockOutcome", "JointOutcome", "far_worse_than_data_allow", "with_rows", "fit_blocks", "fit_joint", "finite_jacobian", "log_to_linear",
+__all__ = ["BlockOutcome", "JointOutcome", "far_worse_than_data_allow", "with_rows", "fit_blocks", "fit_joint", "finite_jacobian",
+           "stacked_jacobian", "step_aware_jacobian", "log_to_linear",
            "propagated_error_covariance"]
 
 #: Relative step of the forward-difference Jacobian in log-parameters.
@@ -188,7 +189,7 @@ def finite_jacobian(residual_fn: Callable[[np.ndarray], np.ndarray], x: np.ndarr
 
 
 def stacked_jacobian(row_fn: Callable[[np.ndarray, np.ndarray], np.ndarray], x: np.ndarray, rows: np.ndarray,
-                     base: np.ndarray) -> np.ndarray:
+                     base: np.ndarray, sign: float = 1.0) -> np.ndarray:
     """:func:`finite_jacobian` of a row-aware residual function in one call.
 
     The P forward steps of every block go to ``row_fn`` together, as P·W rows (``rows``
@@ -203,17 +204,61 @@ def stacked_jacobian(row_fn: Callable[[np.ndarray, np.ndarray], np.ndarray], x: 
     rows : ndarray of int, shape (W,)
     base : ndarray, shape (W, M)
         ``row_fn(x, rows)``, already known to the caller.
+    sign : float
+        +1 forward differences, −1 backward.
 
     Returns
     -------
     ndarray, shape (W, M, P)
     """
     W, P = x.shape
-    step = _STEP * np.maximum(1.0, np.abs(x))  # (W, P)
+    step = sign * _STEP * np.maximum(1.0, np.abs(x))  # (W, P)
     shifted = np.repeat(x[None, :, :], P, axis=0)  # (P, W, P)
     shifted[np.arange(P), :, np.arange(P)] += step.T
     moved = np.asarray(row_fn(shifted.reshape(P * W, P), np.tile(rows, P)), dtype=float).reshape(P, W, -1)
     return np.moveaxis((moved - base[None]) / step.T[:, :, None], 0, 2)
+
+
+#: A Jacobian column whose forward and backward differences differ by more than this factor
+#: spans a step of the model, not its curvature: a smooth model's one-sided differences
+#: agree to O(step × curvature), about 1e-4 of the column at the steps used here.
+STEP_DISAGREEMENT = 10.0
+
+
+def step_aware_jacobian(row_fn: Callable[[np.ndarray, np.ndarray], np.ndarray], x: np.ndarray, base: np.ndarray,
+                        forward: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The Jacobian at a solution with each column that spans a step of the model taken from its smooth side.
+
+    A model with a jump (a table read up to the edge of its data, say) can hold a
+    least-squares solution right at the jump: a forward difference across it is the jump over
+    the step, enormous, and (JᵀJ)⁻¹ then claims a tiny variance.  The backward differences
+    are formed too (one call, :func:`stacked_jacobian`); where a column's two sides differ by
+    more than :data:`STEP_DISAGREEMENT` (in norm) the smaller one, the smooth side's
+    derivative, is kept.
+
+    Parameters
+    ----------
+    row_fn : callable
+        ``row_fn(x_rows, rows)`` → residuals, zero where there are no data (rows may repeat).
+    x : ndarray (W, P)
+    base : ndarray (W, M)
+        The residuals at ``x`` (zero where no data).
+    forward : ndarray (W, M, P)
+        The forward-difference Jacobian at ``x``.
+
+    Returns
+    -------
+    (ndarray (W, M, P), ndarray of bool (W, P))
+        The Jacobian, and which columns were taken across a step.
+    """
+    W = x.shape[0]
+    backward = stacked_jacobian(row_fn, x, np.arange(W), base, sign=-1.0)
+    size_forward = np.sqrt(np.sum(forward**2, axis=1))  # (W, P)
+    size_backward = np.sqrt(np.sum(backward**2, axis=1))
+    larger, smaller = np.maximum(size_forward, size_backward), np.minimum(size_forward, size_backward)
+    stepped = np.isfinite(larger) & (larger > STEP_DISAGREEMENT * smaller)
+    keep_backward = stepped & (size_backward < size_forward)
+    return np.where(keep_backward[:, None, :], backward, forward), stepped
 
 
 def _invert_normal(jac: np.ndarray) -> np.ndarray:

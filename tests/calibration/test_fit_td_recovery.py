@@ -205,3 +205,22 @@ def test_a_lookup_fit_that_stops_in_a_far_basin_is_started_again(case, baseline)
     assert np.all(np.abs(error) < 0.15), error
     assert np.all(np.abs(fit.musp_per_mm - MUSP) < 2.5 * fit.musp_sd_per_mm), (fit.musp_per_mm, fit.musp_sd_per_mm)
     assert np.all(fit.chi2_red_per_wavelength < 5.0), fit.chi2_red_per_wavelength
+
+
+def test_a_fit_that_stops_on_the_edge_of_the_lookups_photons_says_so_and_keeps_an_honest_sd(baseline):
+    """μs′/μa = 20 at 12 mm (IRF 150 ps, 10⁶ counts; the gated low-noise run, seed 3301).
+
+    Strongly absorbing curves are read from the lookup's earliest photons, where its table
+    ends with a step (no light before a distance's first photon).  The fit of the expected
+    counts stops on that step: a forward difference across it claimed a μs′ SD of 0.01 %
+    (measured before the step-aware Jacobian), where the lookup's own noise alone is several
+    per cent.  Now the SD comes from the model's smooth side, and the fit says where it stopped.
+    """
+    run = fixture.half_space_early()
+    curve = fixture.instrument_curve(run, mua_per_mm=MUSP / 20.0, rho_mm=12.0, fwhm_ps=150.0, shift_ps=120.0,
+                                     peak_counts=1e6, window_ps=(0.0, 1400.0))
+    fit = _fit(_measurement(curve, [(12.0, curve.lam)]), "mc", baseline)
+    assert any("step of the model" in w and "edge of its photons" in w for w in fit.warnings), fit.warnings
+    assert fit.musp_sd_per_mm[0] / MUSP > 0.01, fit.musp_sd_per_mm  # the lookup's noise here: several per cent
+    assert abs(fit.musp_per_mm[0] - MUSP) < 2 * fit.musp_sd_per_mm[0]
+    assert abs(fit.mua_per_mm[0] - MUSP / 20.0) < 2 * fit.mua_sd_per_mm[0]

@@ -10,7 +10,7 @@ implementation of the same.  The delta method for log parameters: Var(e^x) ≈ e
 import numpy as np
 import pytest
 
-from phantomlab.calibration.fitting import fit_blocks, fit_joint, log_to_linear
+from phantomlab.calibration.fitting import fit_blocks, fit_joint, log_to_linear, step_aware_jacobian
 
 
 def _line_data(W=7, M=12, seed=3):
@@ -36,6 +36,49 @@ def test_block_fit_of_a_line_matches_numpy_polyfit():
         np.testing.assert_allclose(outcome.covariance[w], cov[::-1, ::-1], rtol=1e-4)
     assert np.all(outcome.dof == 10)
     np.testing.assert_allclose(outcome.chi2, np.nansum(outcome.residuals**2, axis=1))
+
+
+def test_row_aware_block_fit_with_its_steps_in_one_call_matches_numpy_polyfit():
+    """The row-aware path hands the Jacobian's steps to the model in one call (rows repeated)."""
+    x, y, sd = _line_data()
+    calls = []
+
+    def residuals(p, rows):
+        calls.append(rows.size)
+        return (p[:, :1] + p[:, 1:2] * x - y[rows]) / sd[rows]
+
+    outcome = fit_blocks(residuals, np.zeros((y.shape[0], 2)), mask=np.ones_like(y, bool), row_aware=True)
+    for w in range(y.shape[0]):
+        coef, cov = np.polyfit(x, y[w], 1, w=1 / sd[w], cov="unscaled")
+        np.testing.assert_allclose(outcome.x[w], coef[::-1], rtol=1e-7, atol=1e-9)
+        np.testing.assert_allclose(outcome.covariance[w], cov[::-1, ::-1], rtol=1e-4)
+    assert max(calls) == 2 * y.shape[0]  # both steps of every block in one call
+    np.testing.assert_allclose(outcome.jacobian[:, :, 0], 1 / sd, rtol=1e-6)  # ∂r/∂intercept, exact
+    np.testing.assert_allclose(outcome.jacobian[:, :, 1], x / sd, rtol=1e-5)
+
+
+def test_a_solution_on_a_step_of_the_model_takes_the_smooth_side_derivative():
+    """A line with a jump of 1 in the intercept at a = 0.3: a forward difference across the jump
+    is 1/step (1e5) per point and would claim an SD of about 1e-6; the smooth side gives the
+    line's own derivative, 1/σ (exact for a line)."""
+    x, y, sd = _line_data(W=3)
+    # on the jump (the backward step crosses it), just below it (the forward step does), clear of it
+    p = np.array([[0.3, 1.0], [0.3 - 5e-6, 1.0], [0.3 + 1e-3, 1.0]])
+
+    def residuals(q, rows):
+        jump = (q[:, :1] >= 0.3).astype(float)
+        return (q[:, :1] + q[:, 1:2] * x + jump - y[rows]) / sd[rows]
+
+    rows = np.arange(3)
+    base = residuals(p, rows)
+    from phantomlab.calibration.fitting import stacked_jacobian
+
+    forward = stacked_jacobian(residuals, p, rows, base)
+    assert np.all(forward[1, :, 0] * sd[1] > 1e4)  # the forward step crosses the jump: 1/step
+    jacobian, stepped = step_aware_jacobian(residuals, p, base, forward)
+    assert stepped[:, 0].tolist() == [True, True, False] and not stepped[:, 1].any()
+    np.testing.assert_allclose(jacobian[:, :, 0], 1 / sd[:3], rtol=1e-6)
+    np.testing.assert_allclose(jacobian[:, :, 1], x / sd[:3], rtol=1e-5)
 
 
 def test_joint_fit_of_a_line_matches_numpy_polyfit():
