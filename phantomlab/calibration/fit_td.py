@@ -407,10 +407,13 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         widened = np.sqrt(width**2 + log_time_spread**2)
         rel = np.where(resolved, rel * np.sqrt(width / widened), rel)
         # with the smoothing's own bias (TimeResolvedLookup.relative_bias), correlated as the noise
+        from_counts = cov_log
         cov_log = cov_log + _lookup_covariance(
             jacobian, mask,
             [((amplitude[:, None] * c * rel) / sd, np.where(resolved, widened, width)),
              ((amplitude[:, None] * c * bias) / sd, widened)], log_time, W, R, K)
+        if family == "mc":
+            messages += _lookup_noise_notes(measurement.wavelength_nm, from_counts, cov_log)
     values, cov = log_to_linear(x[:, :2], cov_log[:, :2, :2])
     model_covariance = None
     if family in ("diffusion", "mc-slab"):
@@ -471,6 +474,30 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
                 "model": mu_full.reshape(W, R, K_full), "window": full_windows.reshape(W, R, K_full),
                 "irf_time_ps": measurement.irf_time_ps, "irf": irf, "geometry": geometry},
     )
+
+
+#: A note when the Monte Carlo lookup's own noise makes a fitted SD (relative) larger than
+#: this and more than :data:`LOOKUP_NOISE_SHARE` times what the counts alone allow: the data
+#: could say more than the baseline lets them (common practice, no source: the acceptance's
+#: 3 % and a lookup variance three times the counts').
+LOOKUP_NOISE_NOTE_SD = 0.03
+LOOKUP_NOISE_SHARE = 2.0
+
+
+def _lookup_noise_notes(wavelength_nm, from_counts, total) -> list[str]:
+    """Notes where the lookup's own noise, not the counts, sets μa's or μs′'s SD (log-space covariances (W, P, P))."""
+    notes = []
+    for p, name in ((1, "musp"), (0, "mua")):
+        counts_sd = np.sqrt(np.clip(from_counts[:, p, p], 0.0, None))
+        total_sd = np.sqrt(np.clip(total[:, p, p], 0.0, None))
+        mostly = np.isfinite(total_sd) & (total_sd > LOOKUP_NOISE_NOTE_SD) & (total_sd > LOOKUP_NOISE_SHARE * counts_sd)
+        if mostly.any():
+            worst = int(np.flatnonzero(mostly)[np.argmax(total_sd[mostly])])
+            notes.append(f"at {_bands(wavelength_nm, mostly)} the SD of {name} (up to {100 * total_sd[worst]:.2g} %) is "
+                         f"mostly the Monte Carlo lookup's own photon noise (the counts alone allow "
+                         f"{100 * counts_sd[worst]:.2g} %): a baseline with more photons narrows it (phantomlab "
+                         "baseline build OUT.npz ... --photons P, then fit with --baseline OUT.npz)")
+    return notes
 
 
 def _check_lookup_reach(lookup, measurement, musp_fit, shifts_ps, windows, irf, irf_of_curve, R) -> None:

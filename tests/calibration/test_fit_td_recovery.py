@@ -224,3 +224,14 @@ def test_a_fit_that_stops_on_the_edge_of_the_lookups_photons_says_so_and_keeps_a
     assert fit.musp_sd_per_mm[0] / MUSP > 0.01, fit.musp_sd_per_mm  # the lookup's noise here: several per cent
     assert abs(fit.musp_per_mm[0] - MUSP) < 2 * fit.musp_sd_per_mm[0]
     assert abs(fit.mua_per_mm[0] - MUSP / 20.0) < 2 * fit.mua_sd_per_mm[0]
+    # the SD here is the lookup's, not the counts': said, with what a larger baseline would give
+    assert any("mostly the Monte Carlo lookup's own photon noise" in w and "--photons" in w for w in fit.warnings)
+
+
+def test_the_lookup_noise_note_stays_away_where_the_counts_set_the_sd(run, baseline):
+    """μs′/μa = 300 at 15 mm (IRF 150 ps, 10⁶ counts): SDs under 2 %, no note."""
+    ratio, rho, fwhm, shift, peak = CASES[1]
+    curve = fixture.instrument_curve(run, mua_per_mm=MUSP / ratio, rho_mm=rho, fwhm_ps=fwhm, shift_ps=shift,
+                                     peak_counts=peak, window_ps=(0.0, 5000.0))
+    fit = _fit(_measurement(curve, [(rho, curve.lam)]), "mc", baseline)
+    assert not any("own photon noise" in w for w in fit.warnings), fit.warnings
