@@ -41,6 +41,7 @@ import weakref
 import numpy as np
 from scipy.interpolate import RectBivariateSpline
 
+from phantomlab.calibration._lookup_kernels import read_rows
 from phantomlab.calibration.mc_lookup_time_table import (
     BANDWIDTH_LOG_TAU,
     BANDWIDTH_LOG_TAU_LATE,
@@ -206,38 +207,6 @@ class TimeResolvedLookup:
             out += wx[..., a] * row
         return out
 
-    def _bicubic_rows(self, table, lu_row, lt, lu0, lt0, du, dt):
-        """:meth:`_bicubic` where every row has one log u (``lu_row`` (N,), ``lt`` (N, L)).
-
-        The table is first interpolated across u once per row (a profile in s), then each
-        point reads its row's profile: 4 gathers per point instead of 16, the same numbers.
-        """
-        rows, cols = table.shape
-        x = np.clip((lu_row - lu0) / du, 1.0, rows - 2.000001)
-        i = x.astype(np.int64)
-        wx = self._cubic_weights(x - i)  # (N, 4)
-        profile = sum(wx[:, a, None] * table[i - 1 + a] for a in range(4))  # (N, cols)
-        y = np.clip((lt - lt0) / dt, 1.0, cols - 2.000001)
-        j = y.astype(np.int64)
-        wy = self._cubic_weights(y - j)
-        flat = profile.ravel()
-        base = np.arange(lu_row.size)[:, None] * cols + (j - 1)
-        return (flat[base] * wy[..., 0] + flat[base + 1] * wy[..., 1] + flat[base + 2] * wy[..., 2]
-                + flat[base + 3] * wy[..., 3])
-
-    def _bilinear_rows(self, table, lu_row, lt, lu0, lt0, du, dt):
-        """:meth:`_bilinear` where every row has one log u (the table read across u once per row)."""
-        x = np.clip((lu_row - lu0) / du, 0.0, table.shape[0] - 1.000001)
-        i = x.astype(np.int64)
-        fx = (x - i)[:, None]
-        profile = table[i] * (1 - fx) + table[i + 1] * fx  # (N, cols)
-        y = np.clip((lt - lt0) / dt, 0.0, table.shape[1] - 1.000001)
-        j = y.astype(np.int64)
-        fy = y - j
-        flat = profile.ravel()
-        base = np.arange(lu_row.size)[:, None] * table.shape[1] + j
-        return flat[base] * (1 - fy) + flat[base + 1] * fy
-
     def _coordinates(self, u, tau):
         """(log u, s = log τ − 2 log u) of the table, and where both are positive."""
         live = (tau > 0) & (u > 0)
@@ -250,16 +219,16 @@ class TimeResolvedLookup:
         live, lu, ls = self._coordinates(u, tau)
         ds, du = self._fine_step
         origin = (self._fine_log_u[0], self._fine_s[0])
-        if lu.ndim == 2 and np.all(u == u[:, :1]):  # one distance per row (every curve): the fast path
+        if lu.ndim == 2 and np.all(u == u[:, :1]):  # one distance per row (every curve): the compiled path
             lu_row = np.log(np.where(u[:, 0] > 0, u[:, 0], 1.0))  # lu is 0 where τ <= 0: not from it
-            values = np.exp(np.clip(self._bicubic_rows(self._fine_smooth, lu_row, ls, origin[0], origin[1], du, ds),
-                                    -700, 700))
-            inside = self._bilinear_rows(self._fine_inside, lu_row, ls, origin[0], origin[1], du, ds) > 0.5
+            values = np.empty(ls.shape)
+            read_rows(self._fine_smooth, self._fine_inside, lu_row, np.ascontiguousarray(ls, dtype=float),
+                      float(origin[0]), float(origin[1]), float(du), float(ds), values)
         else:
             values = np.exp(np.clip(self._bicubic(self._fine_smooth, lu, ls, origin[0], origin[1], du, ds),
                                     -700, 700))
             inside = self._bilinear(self._fine_inside, lu, ls, origin[0], origin[1], du, ds) > 0.5
-        values = np.where(inside, values, 0.0)
+            values = np.where(inside, values, 0.0)
         within = live & (u >= self.u_nodes[0]) & (u <= self.u_nodes[-1]) & (tau <= self.tau_max) & (
             ls >= self.s_nodes[0]) & (ls <= self.s_nodes[-1])
         return np.where(within, values, 0.0)
