@@ -70,8 +70,8 @@ from typing import Any
 import numpy as np
 
 from phantomlab.calibration.fit_result import FitResult
-from phantomlab.calibration.fitting import _invert_normal, fit_blocks, log_to_linear, step_aware_jacobian
-from phantomlab.calibration.identifiability import _bands, outcome_warnings
+from phantomlab.calibration.fitting import fit_blocks, log_to_linear, off_step_covariance
+from phantomlab.calibration.identifiability import _bands, outcome_warnings, step_warnings
 from phantomlab.calibration.td_checks import td_design_warnings
 from phantomlab.calibration.td_curves import (
     SHIFT_UNIT_PS,
@@ -337,20 +337,9 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         sd = np.sqrt(np.maximum(mu, 1e-12))
     # a solution on a step of the model (the lookup read up to its first photons): the SD from
     # the smooth side's derivative, and said (a difference across the step claimed SDs of 0.01 %)
-    jacobian, stepped = step_aware_jacobian(lambda x_rows, rows: np.where(mask[rows], residual_fn(x_rows, rows), 0.0),
-                                            x, np.where(mask, outcome.residuals, 0.0), outcome.jacobian)
-    cov_log = outcome.covariance
-    if stepped.any():
-        on_step = np.flatnonzero(stepped.any(axis=1))
-        cov_log = cov_log.copy()
-        cov_log[on_step] = _invert_normal(jacobian[on_step])
-        names = ["mua", "musp"] + ["t0"] * R
-        changed = ", ".join(dict.fromkeys(names[p] for p in np.flatnonzero(stepped.any(axis=0))))
-        messages.append(f"at {_bands(measurement.wavelength_nm, stepped.any(axis=1))} the fit stops on a step of the "
-                        f"model (in {changed}): "
-                        + ("the Monte Carlo lookup is read at the edge of its photons; " if family == "mc" else "")
-                        + "the SDs come from the smooth side and may understate the spread; a baseline with more "
-                          "photons or a shorter distance avoids it")
+    jacobian, cov_log, stepped = off_step_covariance(residual_fn, outcome, mask)
+    messages += step_warnings(wavelength_nm=measurement.wavelength_nm, stepped=stepped,
+                              names=["mua", "musp"] + ["t0"] * R, lookup=family == "mc")
     model_sd = getattr(shape, "relative_sd", None)
     # each bin holds the response over the IRF's width: a model error's size and its time are
     # the response-weighted means over what the bin holds (one convolution for all of them)

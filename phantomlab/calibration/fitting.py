@@ -27,7 +27,7 @@ import numpy as np
 from scipy.optimize import least_squares
 
 __all__ = ["BlockOutcome", "JointOutcome", "far_worse_than_data_allow", "with_rows", "fit_blocks", "fit_joint", "finite_jacobian",
-           "stacked_jacobian", "step_aware_jacobian", "log_to_linear",
+           "stacked_jacobian", "step_aware_jacobian", "off_step_covariance", "log_to_linear",
            "propagated_error_covariance"]
 
 #: Relative step of the forward-difference Jacobian in log-parameters.
@@ -259,6 +259,34 @@ def step_aware_jacobian(row_fn: Callable[[np.ndarray, np.ndarray], np.ndarray], 
     stepped = np.isfinite(larger) & (larger > STEP_DISAGREEMENT * smaller)
     keep_backward = stepped & (size_backward < size_forward)
     return np.where(keep_backward[:, None, :], backward, forward), stepped
+
+
+def off_step_covariance(residual_fn: Callable[[np.ndarray, np.ndarray], np.ndarray], outcome: "BlockOutcome",
+                        mask: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """A row-aware fit's Jacobian and covariance at its solution, each step of the model taken from its smooth side.
+
+    Parameters
+    ----------
+    residual_fn : callable
+        The fit's ``residual_fn(x_rows, rows)`` (rows may repeat).
+    outcome : BlockOutcome
+        Its outcome (``jacobian`` the forward differences at ``x``).
+    mask : ndarray of bool (W, M)
+
+    Returns
+    -------
+    (jacobian (W, M, P), covariance (W, P, P), stepped (W, P) bool)
+        See :func:`step_aware_jacobian`; rows with a step get (JᵀJ)⁻¹ of the smooth side.
+    """
+    jacobian, stepped = step_aware_jacobian(lambda x_rows, rows: np.where(mask[rows], residual_fn(x_rows, rows), 0.0),
+                                            outcome.x, np.where(mask, np.nan_to_num(outcome.residuals), 0.0),
+                                            outcome.jacobian)
+    covariance = outcome.covariance
+    on_step = np.flatnonzero(stepped.any(axis=1))
+    if on_step.size:
+        covariance = covariance.copy()
+        covariance[on_step] = _invert_normal(jacobian[on_step])
+    return jacobian, covariance, stepped
 
 
 def _invert_normal(jac: np.ndarray) -> np.ndarray:

@@ -27,6 +27,7 @@ __all__ = [
     "sfdi_design_warnings",
     "outcome_warnings",
     "slab_edge_warnings",
+    "step_warnings",
 ]
 
 #: Smallest span of source–detector distances, in transport mean free paths 1/μt′, over which
@@ -58,6 +59,19 @@ def _bands(wavelength_nm, flags) -> str:
     if wl.size == 1:
         return f"{wl[0]:g} nm"
     return f"{wl.min():g}-{wl.max():g} nm ({wl.size} of {np.size(wavelength_nm)} wavelengths)"
+
+
+def step_warnings(*, wavelength_nm, stepped, names, lookup: bool) -> list[str]:
+    """The note of a fit that stops on a step of its model (``stepped`` (W, P) from
+    :func:`~phantomlab.calibration.fitting.off_step_covariance`, ``names`` one per parameter)."""
+    stepped = np.asarray(stepped, bool)
+    if not stepped.any():
+        return []
+    changed = ", ".join(dict.fromkeys(names[p] for p in np.flatnonzero(stepped.any(axis=0))))
+    return [f"at {_bands(wavelength_nm, stepped.any(axis=1))} the fit stops on a step of the model (in {changed}): "
+            + ("the Monte Carlo lookup is read at the edge of its photons; " if lookup else "")
+            + "the SDs come from the smooth side and may understate the spread; a baseline with more photons or a "
+              "shorter distance avoids it"]
 
 
 def srdr_design_warnings(*, rho_mm, wavelength_nm, mua_per_mm, musp_per_mm, relative: bool) -> list[str]:
