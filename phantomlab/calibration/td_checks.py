@@ -53,8 +53,8 @@ def td_design_warnings(measurement, signal, windows, fwhm, irf_wider, family, ge
                         "3 IRF widths; lower window_tail_fraction or measure longer")
     if wide.any():
         messages.append(f"the IRF is wider than the curve's rise (10 % to peak) at {_bands(wl, wide)}: musp rests on "
-                        "the IRF's exact shape there, and its SD, a linear estimate, can understate the spread at low "
-                        "counts (1.6 times measured through a slab at 1e5 counts)")
+                        "the IRF's exact shape there (measure the IRF with many counts, on the same system); its SD "
+                        "grows accordingly")
     if low.any():
         messages.append(f"fewer than {MIN_PEAK_COUNTS:g} counts at the peak at {_bands(wl, low)}: the SDs assume "
                         "Poisson counts; measure longer")
