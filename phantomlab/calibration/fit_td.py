@@ -18,7 +18,7 @@ estimate for Poisson counts (iteratively reweighted least squares; McCullagh & N
 *Generalized Linear Models*, 2nd ed., §2.5).  χ²_red is Pearson's χ² over the degrees of
 freedom (window bins − fitted parameters, amplitudes included); its SDs are the (JᵀJ)⁻¹ of the
 last pass.  The Monte Carlo lookup's own error enters as a model error of each bin, propagated
-to the parameters (:func:`_lookup_covariance`): its photon noise, averaged over the bin's spread
+to the parameters (:func:`~phantomlab.calibration.td_model_errors.model_error_covariance`): its photon noise, averaged over the bin's spread
 in ln t (variance × h/√(h² + s²), correlation widened to √(h² + s²), h the smoothing kernel's
 width, s the spread of ln t the bin's response holds; for the half-space lookup kept
 unaveraged where the IRF is wider than the curve's rise, where the fit is far from linear), and
@@ -71,8 +71,9 @@ import numpy as np
 
 from phantomlab.calibration.fit_result import FitResult
 from phantomlab.calibration.fitting import fit_blocks, log_to_linear, off_step_covariance
-from phantomlab.calibration.identifiability import _bands, outcome_warnings, step_warnings
+from phantomlab.calibration.identifiability import outcome_warnings, step_warnings
 from phantomlab.calibration.td_checks import td_design_warnings
+from phantomlab.calibration.td_model_errors import check_lookup_reach, lookup_noise_notes, model_error_covariance
 from phantomlab.calibration.td_curves import (
     SHIFT_UNIT_PS,
     background_level,
@@ -397,12 +398,12 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         rel = np.where(resolved, rel * np.sqrt(width / widened), rel)
         # with the smoothing's own bias (TimeResolvedLookup.relative_bias), correlated as the noise
         from_counts = cov_log
-        cov_log = cov_log + _lookup_covariance(
+        cov_log = cov_log + model_error_covariance(
             jacobian, mask,
             [((amplitude[:, None] * c * rel) / sd, np.where(resolved, widened, width)),
              ((amplitude[:, None] * c * bias) / sd, widened)], log_time, W, R, K)
         if family == "mc":
-            messages += _lookup_noise_notes(measurement.wavelength_nm, from_counts, cov_log)
+            messages += lookup_noise_notes(measurement.wavelength_nm, from_counts, cov_log)
     values, cov = log_to_linear(x[:, :2], cov_log[:, :2, :2])
     model_covariance = None
     if family in ("diffusion", "mc-slab"):
@@ -410,7 +411,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         # model's between its runs, propagated like the lookup's noise; assess_fit adds it to
         # the SDs (diffusion_model_error, slab_model_error)
         relative, width = DIFFUSION_SHAPE_ERROR if family == "diffusion" else SLAB_SHAPE_ERROR
-        shape_cov = _lookup_covariance(jacobian, mask,
+        shape_cov = model_error_covariance(jacobian, mask,
                                        [(relative * amplitude[:, None] * c / sd, np.full(log_time.shape, width))],
                                        log_time, W, R, K)[:, :2, :2]
         model_covariance = values[:, :, None] * shape_cov * values[:, None, :]
@@ -444,7 +445,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
                                  mua_sd_per_mm=mua_sd, musp_sd_per_mm=musp_sd, correlation=correlation)
     lookup = getattr(shape, "lookup", None)
     if lookup is not None:
-        _check_lookup_reach(lookup, measurement, musp_fit, x[:, 2:] * SHIFT_UNIT_PS, full_windows, irf,
+        check_lookup_reach(lookup, measurement, musp_fit, x[:, 2:] * SHIFT_UNIT_PS, full_windows, irf,
                             irf_of_curve, R)
     messages = list(dict.fromkeys(messages))
     for message in messages:
@@ -463,85 +464,3 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
                 "model": mu_full.reshape(W, R, K_full), "window": full_windows.reshape(W, R, K_full),
                 "irf_time_ps": measurement.irf_time_ps, "irf": irf, "geometry": geometry},
     )
-
-
-#: A note when the Monte Carlo lookup's own noise makes a fitted SD (relative) larger than
-#: this and more than :data:`LOOKUP_NOISE_SHARE` times what the counts alone allow: the data
-#: could say more than the baseline lets them (common practice, no source: the acceptance's
-#: 3 % and a lookup variance three times the counts').
-LOOKUP_NOISE_NOTE_SD = 0.03
-LOOKUP_NOISE_SHARE = 2.0
-
-
-def _lookup_noise_notes(wavelength_nm, from_counts, total) -> list[str]:
-    """Notes where the lookup's own noise, not the counts, sets μa's or μs′'s SD (log-space covariances (W, P, P))."""
-    notes = []
-    for p, name in ((1, "musp"), (0, "mua")):
-        counts_sd = np.sqrt(np.clip(from_counts[:, p, p], 0.0, None))
-        total_sd = np.sqrt(np.clip(total[:, p, p], 0.0, None))
-        mostly = np.isfinite(total_sd) & (total_sd > LOOKUP_NOISE_NOTE_SD) & (total_sd > LOOKUP_NOISE_SHARE * counts_sd)
-        if mostly.any():
-            worst = int(np.flatnonzero(mostly)[np.argmax(total_sd[mostly])])
-            notes.append(f"at {_bands(wavelength_nm, mostly)} the SD of {name} (up to {100 * total_sd[worst]:.2g} %) is "
-                         f"mostly the Monte Carlo lookup's own photon noise (the counts alone allow "
-                         f"{100 * counts_sd[worst]:.2g} %): a baseline with more photons narrows it (phantomlab "
-                         "baseline build OUT.npz ... --photons P, then fit with --baseline OUT.npz)")
-    return notes
-
-
-def _check_lookup_reach(lookup, measurement, musp_fit, shifts_ps, windows, irf, irf_of_curve, R) -> None:
-    """Refuse (LookupReachError) a lookup fit whose windows reach beyond the lookup's photons.
-
-    The latest response time a curve's window needs is its last bin less the IRF's peak time
-    and the fitted shift t0; :meth:`TimeResolvedLookup.serves` says whether the lookup holds
-    enough photons there at the fitted μs.
-    """
-    from phantomlab.calibration.mc_lookup_time import SERVED_MAX_RELATIVE_SD, LookupReachError
-
-    time = measurement.time_ps
-    last = np.array([time[np.flatnonzero(row)[-1]] for row in windows])
-    irf_peak = measurement.irf_time_ps[np.argmax(irf, axis=1)][irf_of_curve]
-    latest = last - irf_peak - shifts_ps.ravel()
-    mus = np.repeat(musp_fit, R) / (1.0 - lookup.g)
-    rho = np.tile(measurement.rho_mm, musp_fit.size)
-    served = lookup.serves(mus_per_mm=mus, rho_mm=rho, latest_time_ps=latest)
-    if not np.all(served):
-        c = int(np.flatnonzero(~served)[0])
-        w, r = divmod(c, R)
-        raise LookupReachError(
-            f"at {measurement.wavelength_nm[w]:g} nm and {measurement.rho_mm[r]:g} mm the fit window reaches "
-            f"{latest[c]:.0f} ps after the pulse, beyond what its photons cover (relative error at most "
-            f"{SERVED_MAX_RELATIVE_SD:g}, {lookup.u_max / mus[c]:.3g} mm at most)")
-
-
-def _lookup_covariance(jac, mask, errors, log_delay, W, R, K) -> np.ndarray:
-    """Covariance of the fitted parameters from model errors of each bin, (W, P, P).
-
-    A model error δμ moves the normalised residuals by δμ/σ and the solution by
-    δx = −(JᵀJ)⁻¹Jᵀ(δμ/σ) (linearised at the fit, the amplitudes re-projected inside J; J
-    computed once for every term).  ``errors`` holds independent terms (e, h), each
-    e_k = σ_rel,k μ_k / σ_k of shape (W·R, K), correlated between bins as Gaussian kernels of
-    width h_k in ln t overlap:
-    ρ_kl = √(2 h_k h_l/(h_k² + h_l²)) exp(−(ln τ_k − ln τ_l)²/(2 (h_k² + h_l²)))
-    (a shift of u moves every bin of a curve together, so bins of one curve share the radial
-    smoothing fully; curves are independent).  ``jac`` (W, M, P) is the fit's own Jacobian at
-    the solution (:attr:`~phantomlab.calibration.fitting.BlockOutcome.jacobian`).
-    """
-    from phantomlab.calibration.fitting import propagated_error_covariance
-
-    P = jac.shape[2]
-    out = np.zeros((W, P, P))
-    for w in range(W):
-        m = mask[w]
-        j = jac[w][m]
-        lt = np.asarray(log_delay).reshape(W, R * K)[w][m]
-        curve = np.repeat(np.arange(R), K)[m]
-        same = curve[:, None] == curve[None, :]
-        gap = (lt[:, None] - lt[None, :]) ** 2
-        for relative_error, bandwidth in errors:
-            e = np.asarray(relative_error).reshape(W, R * K)[w][m]
-            h = np.asarray(bandwidth).reshape(W, R * K)[w][m]
-            pair = h[:, None] ** 2 + h[None, :] ** 2
-            corr = np.where(same, np.sqrt(2 * h[:, None] * h[None, :] / pair) * np.exp(-gap / (2 * pair)), 0.0)
-            out[w] += propagated_error_covariance(j, e, corr)
-    return out

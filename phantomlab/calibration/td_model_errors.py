@@ -1,0 +1,101 @@
+"""The model errors of a td fit and the lookup's limits (layer 3), for :mod:`~phantomlab.calibration.fit_td`.
+
+* :func:`model_error_covariance` — a model error δμ of each bin (the Monte Carlo lookup's
+  photon noise and smoothing bias, diffusion's or the slab model's shape error), correlated
+  along a curve as Gaussian kernels in ln t overlap, carried to the fitted parameters by the
+  fit's own Jacobian: δx = −(JᵀJ)⁻¹Jᵀ(δμ/σ) (linearised at the solution; the sandwich of
+  :func:`~phantomlab.calibration.fitting.propagated_error_covariance`).
+* :func:`lookup_noise_notes` — a note where the lookup's noise, not the counts, sets an SD.
+* :func:`check_lookup_reach` — a lookup fit whose windows reach beyond its photons, refused.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from phantomlab.calibration.identifiability import _bands
+
+__all__ = ["LOOKUP_NOISE_NOTE_SD", "LOOKUP_NOISE_SHARE", "lookup_noise_notes", "check_lookup_reach",
+           "model_error_covariance"]
+
+
+#: A note when the Monte Carlo lookup's own noise makes a fitted SD (relative) larger than
+#: this and more than :data:`LOOKUP_NOISE_SHARE` times what the counts alone allow: the data
+#: could say more than the baseline lets them (common practice, no source: the acceptance's
+#: 3 % and a lookup variance three times the counts').
+LOOKUP_NOISE_NOTE_SD = 0.03
+LOOKUP_NOISE_SHARE = 2.0
+
+
+def lookup_noise_notes(wavelength_nm, from_counts, total) -> list[str]:
+    """Notes where the lookup's own noise, not the counts, sets μa's or μs′'s SD (log-space covariances (W, P, P))."""
+    notes = []
+    for p, name in ((1, "musp"), (0, "mua")):
+        counts_sd = np.sqrt(np.clip(from_counts[:, p, p], 0.0, None))
+        total_sd = np.sqrt(np.clip(total[:, p, p], 0.0, None))
+        mostly = np.isfinite(total_sd) & (total_sd > LOOKUP_NOISE_NOTE_SD) & (total_sd > LOOKUP_NOISE_SHARE * counts_sd)
+        if mostly.any():
+            worst = int(np.flatnonzero(mostly)[np.argmax(total_sd[mostly])])
+            notes.append(f"at {_bands(wavelength_nm, mostly)} the SD of {name} (up to {100 * total_sd[worst]:.2g} %) is "
+                         f"mostly the Monte Carlo lookup's own photon noise (the counts alone allow "
+                         f"{100 * counts_sd[worst]:.2g} %): a baseline with more photons narrows it (phantomlab "
+                         "baseline build OUT.npz ... --photons P, then fit with --baseline OUT.npz)")
+    return notes
+
+
+def check_lookup_reach(lookup, measurement, musp_fit, shifts_ps, windows, irf, irf_of_curve, R) -> None:
+    """Refuse (LookupReachError) a lookup fit whose windows reach beyond the lookup's photons.
+
+    The latest response time a curve's window needs is its last bin less the IRF's peak time
+    and the fitted shift t0; :meth:`TimeResolvedLookup.serves` says whether the lookup holds
+    enough photons there at the fitted μs.
+    """
+    from phantomlab.calibration.mc_lookup_time import SERVED_MAX_RELATIVE_SD, LookupReachError
+
+    time = measurement.time_ps
+    last = np.array([time[np.flatnonzero(row)[-1]] for row in windows])
+    irf_peak = measurement.irf_time_ps[np.argmax(irf, axis=1)][irf_of_curve]
+    latest = last - irf_peak - shifts_ps.ravel()
+    mus = np.repeat(musp_fit, R) / (1.0 - lookup.g)
+    rho = np.tile(measurement.rho_mm, musp_fit.size)
+    served = lookup.serves(mus_per_mm=mus, rho_mm=rho, latest_time_ps=latest)
+    if not np.all(served):
+        c = int(np.flatnonzero(~served)[0])
+        w, r = divmod(c, R)
+        raise LookupReachError(
+            f"at {measurement.wavelength_nm[w]:g} nm and {measurement.rho_mm[r]:g} mm the fit window reaches "
+            f"{latest[c]:.0f} ps after the pulse, beyond what its photons cover (relative error at most "
+            f"{SERVED_MAX_RELATIVE_SD:g}, {lookup.u_max / mus[c]:.3g} mm at most)")
+
+
+def model_error_covariance(jac, mask, errors, log_delay, W, R, K) -> np.ndarray:
+    """Covariance of the fitted parameters from model errors of each bin, (W, P, P).
+
+    A model error δμ moves the normalised residuals by δμ/σ and the solution by
+    δx = −(JᵀJ)⁻¹Jᵀ(δμ/σ) (linearised at the fit, the amplitudes re-projected inside J; J
+    computed once for every term).  ``errors`` holds independent terms (e, h), each
+    e_k = σ_rel,k μ_k / σ_k of shape (W·R, K), correlated between bins as Gaussian kernels of
+    width h_k in ln t overlap:
+    ρ_kl = √(2 h_k h_l/(h_k² + h_l²)) exp(−(ln τ_k − ln τ_l)²/(2 (h_k² + h_l²)))
+    (a shift of u moves every bin of a curve together, so bins of one curve share the radial
+    smoothing fully; curves are independent).  ``jac`` (W, M, P) is the fit's own Jacobian at
+    the solution (:attr:`~phantomlab.calibration.fitting.BlockOutcome.jacobian`).
+    """
+    from phantomlab.calibration.fitting import propagated_error_covariance
+
+    P = jac.shape[2]
+    out = np.zeros((W, P, P))
+    for w in range(W):
+        m = mask[w]
+        j = jac[w][m]
+        lt = np.asarray(log_delay).reshape(W, R * K)[w][m]
+        curve = np.repeat(np.arange(R), K)[m]
+        same = curve[:, None] == curve[None, :]
+        gap = (lt[:, None] - lt[None, :]) ** 2
+        for relative_error, bandwidth in errors:
+            e = np.asarray(relative_error).reshape(W, R * K)[w][m]
+            h = np.asarray(bandwidth).reshape(W, R * K)[w][m]
+            pair = h[:, None] ** 2 + h[None, :] ** 2
+            corr = np.where(same, np.sqrt(2 * h[:, None] * h[None, :] / pair) * np.exp(-gap / (2 * pair)), 0.0)
+            out[w] += propagated_error_covariance(j, e, corr)
+    return out
