@@ -18,13 +18,13 @@ estimate for Poisson counts (iteratively reweighted least squares; McCullagh & N
 *Generalized Linear Models*, 2nd ed., §2.5).  χ²_red is Pearson's χ² over the degrees of
 freedom (window bins − fitted parameters, amplitudes included); its SDs are the (JᵀJ)⁻¹ of the
 last pass.  The Monte Carlo lookup's own error enters as a model error of each bin, propagated
-to the parameters (:func:`~phantomlab.calibration.td_model_errors.model_error_covariance`): its photon noise, averaged over the bin's spread
-in ln t (variance × h/√(h² + s²), correlation widened to √(h² + s²), h the smoothing kernel's
-width, s the spread of ln t the bin's response holds; for the half-space lookup kept
-unaveraged where the IRF is wider than the curve's rise, where the fit is far from linear), and
-its smoothing bias
+to the parameters (:func:`~phantomlab.calibration.td_model_errors.model_error_covariance`): its
+photon noise, averaged over the bin's spread in ln t (variance × h/√(h² + s²), correlation
+widened to √(h² + s²), h the smoothing kernel's width, s the spread of ln t the bin's response
+holds; for the half-space lookup kept unaveraged where the IRF is wider than the curve's rise,
+where the fit is far from linear), and its smoothing bias
 (:meth:`~phantomlab.calibration.mc_lookup_time.TimeResolvedLookup.relative_bias`).  On
-independent lookups the SDs cover the errors (tests/calibration/test_td_lookup_sd.py).
+independent lookups the SDs cover the errors (tests/calibration/test_lookup_sds.py).
 
 **Background** B: the mean count of the bins before the pulse (earlier than two IRF widths
 before the curve first reaches 5 % of its peak; at least 10 bins), or the sidecar's
@@ -283,8 +283,9 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         use = shape if using is None else using
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", PhantomlabWarning)
-            c = (response if through is None else through).counts(lambda times: use(mua_c, musp_c, rho_curve[curves], times), shift_c,
-                                irf_rows=irf_of_curve[curves], smooth_start=True)
+            c = (response if through is None else through).counts(
+                lambda times: use(mua_c, musp_c, rho_curve[curves], times), shift_c, irf_rows=irf_of_curve[curves],
+                smooth_start=True)
         data = counts[curves] - background[curves][:, None]
         if absolute is not None:
             amplitude = np.full(curves.size, float(absolute))
@@ -313,7 +314,8 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
 
         if model == "mc" and DIFFUSION_START_STEPS:  # a few steps of diffusion first (mc-slab is smooth)
             start = fit_blocks(smooth_residual, start, mask=mask, lower=lower, upper=upper, row_aware=True,
-                               max_nfev=DIFFUSION_START_STEPS, tolerance=1e-3, step_tolerance=_STEP_TOLERANCE).x  # a start only
+                               max_nfev=DIFFUSION_START_STEPS, tolerance=1e-3,
+                               step_tolerance=_STEP_TOLERANCE).x  # a start only
     outcome = None
     x = start
     for attempt in range(IRLS_PASSES):
