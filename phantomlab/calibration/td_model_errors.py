@@ -38,8 +38,9 @@ def lookup_noise_notes(wavelength_nm, from_counts, total) -> list[str]:
             worst = int(np.flatnonzero(mostly)[np.argmax(total_sd[mostly])])
             notes.append(f"at {_bands(wavelength_nm, mostly)} the SD of {name} (up to {100 * total_sd[worst]:.2g} %) is "
                          f"mostly the Monte Carlo lookup's own photon noise (the counts alone allow "
-                         f"{100 * counts_sd[worst]:.2g} %): a baseline with more photons narrows it (phantomlab "
-                         "baseline build OUT.npz ... --photons P, then fit with --baseline OUT.npz)")
+                         f"{100 * counts_sd[worst]:.2g} %): a baseline with more photons narrows it (command line: "
+                         "phantomlab baseline build OUT.npz ... --photons P, then fit with --baseline OUT.npz; page: "
+                         "'Use a baseline file of this workspace', then 'Build the baseline' with more photons)")
     return notes
 
 
