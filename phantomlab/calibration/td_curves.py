@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from phantomlab.calibration._scan_kernels import shift_scan_chi2
 from phantomlab.calibration.fitting import far_worse_than_data_allow, fit_blocks, with_rows
 
 __all__ = ["MIN_BACKGROUND_BINS", "SHIFT_UNIT_PS", "background_level", "fit_window", "clean_irf", "running_mean",
@@ -115,6 +116,16 @@ def _shifted(time, curves, shifts):
     return flat[row_start + lo] * (1 - frac) + flat[row_start + hi] * frac
 
 
+def _shifted_chi2(time, c, shifts, data, weight):
+    """χ² of each curve moved by each shift with its best amplitude, (N, S): the numpy form of the kernel."""
+    moved = _shifted(time, c, shifts)  # (N, S, K)
+    weight = weight[:, None, :]
+    data = data[:, None, :]
+    amp = np.maximum(np.sum(weight * moved * data, 2) / np.maximum(np.sum(weight * moved**2, 2), 1e-300), 0)
+    chi2 = np.sum(weight * (amp[:, :, None] * moved - data) ** 2, axis=2)
+    return np.where(np.isfinite(chi2), chi2, np.inf)
+
+
 def start_values(expected, counts, background, windows, time, W, R) -> np.ndarray:
     """Starting point per wavelength from a grid of (μa, μs′), each with its best t0.
 
@@ -133,11 +144,14 @@ def start_values(expected, counts, background, windows, time, W, R) -> np.ndarra
         c, _, _ = expected(np.tile(mua_g, R), np.tile(musp_g, R), np.zeros(rows.size), rows)
         data = (counts[rows] - background[rows][:, None])[:, None, :]
         shifts = (_half_rise(time, data[:, 0]) - _half_rise(time, c))[:, None] + offsets[None, :]
-        moved = _shifted(time, c, shifts)  # (rows, S, K)
-        weight = (windows[rows] / np.maximum(counts[rows], 1.0))[:, None, :]
-        amp = np.maximum(np.sum(weight * moved * data, 2) / np.maximum(np.sum(weight * moved**2, 2), 1e-300), 0)
-        chi2 = np.sum(weight * (amp[:, :, None] * moved - data) ** 2, axis=2)  # (rows, S)
-        chi2 = np.where(np.isfinite(chi2), chi2, np.inf).reshape(R, G, offsets.size)
+        # each model moved by each shift, its amplitude projected, scored (one compiled pass;
+        # the numpy form is _shifted_chi2)
+        weight = windows[rows] / np.maximum(counts[rows], 1.0)
+        chi2 = np.empty(shifts.shape)
+        shift_scan_chi2(np.ascontiguousarray(c, dtype=float), shifts / (time[1] - time[0]),
+                        np.ascontiguousarray(data[:, 0], dtype=float), np.ascontiguousarray(weight, dtype=float),
+                        chi2)
+        chi2 = chi2.reshape(R, G, offsets.size)
         best_shift = np.argmin(chi2, axis=2)  # per curve and grid pair
         total = np.min(chi2, axis=2).sum(axis=0)
         best = int(np.argmin(total))
