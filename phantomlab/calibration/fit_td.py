@@ -428,7 +428,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     residuals[:, :, crop] = outcome.residuals.reshape(W, R, K)
     # the model on the whole histogram, for the plots
     whole = prepare_irf(time_ps=measurement.time_ps, irf_time_ps=measurement.irf_time_ps[irf_span],
-                        irf=irf[:, irf_span], matrix=False)
+                        irf=irf[:, irf_span], direct=False)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", PhantomlabWarning)
         c_full = whole.counts(lambda times: shape(np.repeat(mua_fit, R), np.repeat(musp_fit, R), rho_curve, times),

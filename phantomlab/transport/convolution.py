@@ -33,14 +33,16 @@ import numpy as np
 from scipy.signal import fftconvolve
 
 from phantomlab.errors import InputError
+from phantomlab.transport._convolution_kernel import banded_counts
 
 __all__ = ["uniform_step_ps", "prepare_irf", "irf_fwhm_ps", "InstrumentResponse", "irf_convolved_counts", "TRIANGLE_NODES"]
 
 #: Gauss–Legendre nodes on each half of the triangle Λ (the lattice points next to t0).
 TRIANGLE_NODES = 4
-#: Largest convolution matrix (IRF rows × lattice × bins) kept for the matrix product; beyond
-#: it each call convolves by FFT (same numbers, less memory).
-MAX_MATRIX_ELEMENTS = 4_000_000
+#: Most terms (IRF sub-bins × data bins) for which each curve's convolution is added directly
+#: over its band (about 1 ms a curve here); beyond, each call convolves by FFT (same numbers
+#: to rounding, faster for long IRFs on long histograms).
+MAX_BAND_TERMS = 2_000_000
 #: Relative tolerance of "the same time step" (bin centres from instruments print rounded).
 STEP_TOLERANCE = 1e-3
 
@@ -137,6 +139,11 @@ class InstrumentResponse:
         The normalised IRF on the sub-bins (rows: one IRF per curve, or one for all).
     lattice_ps : ndarray (M,) [ps]
         Every difference of a data sub-bin centre and an IRF sub-bin centre.
+    irf_fwhm_ps : ndarray (N or 1,) [ps]
+        Full width at half maximum of each IRF row.
+    moving : ndarray (N or 1, J·s + s − 1), optional
+        The fine IRF's moving sums over s sub-bins, for the direct (banded) convolution;
+        None: by FFT.
     """
 
     time_ps: np.ndarray
@@ -145,7 +152,7 @@ class InstrumentResponse:
     fine_irf: np.ndarray
     lattice_ps: np.ndarray
     irf_fwhm_ps: np.ndarray
-    matrices: np.ndarray | None = None
+    moving: np.ndarray | None = None
 
     def counts(self, model: Callable[[np.ndarray], np.ndarray], shift_ps, irf_rows=None,
                smooth_start: bool = False) -> np.ndarray:
@@ -171,13 +178,12 @@ class InstrumentResponse:
         h = np.broadcast_to(irf, (rows, irf.shape[1]))
         fine_step = self.step_ps / self.subdivisions
         values = _lattice_values(model, self.lattice_ps, fine_step, shift, smooth_start)  # (N, M)
-        if self.matrices is not None:  # one matrix product per IRF row (small problems: faster than FFTs)
-            which = np.zeros(rows, dtype=int) if irf_rows is None and self.fine_irf.shape[0] == 1 else (
-                np.arange(rows) if irf_rows is None else np.asarray(irf_rows, dtype=int))
+        if self.moving is not None:  # the band of the convolution, added directly (small problems)
+            which = np.zeros(rows, dtype=np.int64) if irf_rows is None and self.fine_irf.shape[0] == 1 else (
+                np.arange(rows, dtype=np.int64) if irf_rows is None else np.asarray(irf_rows, dtype=np.int64))
             out = np.empty((rows, self.time_ps.size))
-            for g in np.unique(which):
-                chosen = which == g
-                out[chosen] = values[chosen] @ self.matrices[g]
+            banded_counts(np.ascontiguousarray(values), self.moving, which, self.subdivisions,
+                          self.moving.shape[1] - 1, out)
             return out
         full = fftconvolve(values, h, axes=-1)
         J = h.shape[1]
@@ -210,7 +216,7 @@ def irf_fwhm_ps(time_ps: np.ndarray, values: np.ndarray) -> np.ndarray:
     return out
 
 
-def prepare_irf(*, time_ps, irf_time_ps, irf, subdivisions: int = 3, matrix: bool = True) -> InstrumentResponse:
+def prepare_irf(*, time_ps, irf_time_ps, irf, subdivisions: int = 3, direct: bool = True) -> InstrumentResponse:
     """Check and normalise a measured IRF for the data grid ``time_ps``.
 
     Parameters
@@ -223,9 +229,9 @@ def prepare_irf(*, time_ps, irf_time_ps, irf, subdivisions: int = 3, matrix: boo
         IRF histogram, background removed, >= 0 (rows: one per curve).
     subdivisions : int
         Sub-bins per bin (1 takes each IRF bin as a rectangle).
-    matrix : bool
-        Keep the convolution as a matrix (fast for repeated calls; up to
-        :data:`MAX_MATRIX_ELEMENTS`), else convolve by FFT at each call.
+    direct : bool
+        Add each curve's convolution directly over its band (fast for the repeated calls of a
+        fit; up to :data:`MAX_BAND_TERMS`), else convolve by FFT at each call.
 
     Returns
     -------
@@ -265,26 +271,19 @@ def prepare_irf(*, time_ps, irf_time_ps, irf, subdivisions: int = 3, matrix: boo
     fine_t0 = t[0] - 0.5 * step + 0.5 * fine_step
     fine_tau_last = tau[-1] + 0.5 * step - 0.5 * fine_step
     lattice = (fine_t0 - fine_tau_last) + fine_step * np.arange(t.size * s + tau.size * s - 1)
-    matrices = None
-    if matrix and fine.shape[0] * lattice.size * t.size <= MAX_MATRIX_ELEMENTS:
+    moving = None
+    if direct and fine.shape[1] * t.size <= MAX_BAND_TERMS:
         # counts_k = Σ_m S_m Σ_i h[k s + i + J' − 1 − m]: the convolution and the sum over sub-bins
-        # = Σ_m S_m c[k s + J' − 1 − m] with c[b] = Σ_i h[b + i] (h zero outside its J' sub-bins):
-        # the moving sum c once, then one gather
+        # = Σ_m S_m c[k s + J' − 1 − m] with c[b] = Σ_i h[b + i] (h zero outside its J' sub-bins),
+        # b = −(s−1) … J' − 1 stored at b + s − 1: a band of J' + s − 1 terms per bin
         J = fine.shape[1]
-        m = np.arange(lattice.size)[:, None]
-        k = np.arange(t.size)[None, :]
-        rows = fine.shape[0]
-        wide = np.concatenate([np.zeros((rows, s - 1)), fine, np.zeros((rows, s - 1))], axis=1)
-        moving = sum(wide[:, i:i + J + s - 1] for i in range(s))  # c[b] at b + s − 1, b = −(s−1) … J − 1
-        moving = np.concatenate([moving, np.zeros((rows, 1))], axis=1)  # the zero slot
-        index = k * s + J - 1 - m + (s - 1)
-        index = np.where((index >= 0) & (index < J + s - 1), index, J + s - 1)
-        matrices = moving[:, index]
-        matrices.setflags(write=False)
+        wide = np.concatenate([np.zeros((fine.shape[0], s - 1)), fine, np.zeros((fine.shape[0], s - 1))], axis=1)
+        moving = np.ascontiguousarray(sum(wide[:, i:i + J + s - 1] for i in range(s)))
+        moving.setflags(write=False)
     for array in (fine, lattice):
         array.setflags(write=False)
     return InstrumentResponse(time_ps=t, step_ps=step, subdivisions=s, fine_irf=fine, lattice_ps=lattice,
-                              irf_fwhm_ps=irf_fwhm_ps(tau, h), matrices=matrices)
+                              irf_fwhm_ps=irf_fwhm_ps(tau, h), moving=moving)
 
 
 def irf_convolved_counts(*, model: Callable[[np.ndarray], np.ndarray], time_ps, irf_time_ps, irf,
