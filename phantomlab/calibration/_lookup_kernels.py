@@ -15,7 +15,7 @@ import math
 
 from numba import njit
 
-__all__ = ["read_rows"]
+__all__ = ["read_rows", "read_curves"]
 
 
 @njit(cache=True)
@@ -68,5 +68,73 @@ def read_rows(smooth, inside, lu_row, ls, lu0, s0, du, ds, out):
             bottom = inside[ib + 1, jb] * (1 - fy) + inside[ib + 1, jb + 1] * fy
             if top * (1 - fx) + bottom * fx > 0.5:
                 out[n, k] = math.exp(min(max(value, -700.0), 700.0))
+            else:
+                out[n, k] = 0.0
+
+
+@njit(cache=True)
+def read_curves(smooth, inside, lu0, s0, du, ds, v, mua, mus, rho, t, u_range, tau_max, s_range, out):
+    """R(ρ, t) = μs³ v F(ρμs, v t μs) e^(−μa v t) of whole curves, one distance per row, in one pass.
+
+    The arithmetic of :meth:`TimeResolvedLookup.point` (its scaling, the table's reach, the
+    read of :func:`read_rows` and the Beer–Lambert weight) point by point, in the same order.
+
+    Parameters
+    ----------
+    smooth, inside : float64 (U, S)
+        As for :func:`read_rows`.
+    lu0, s0, du, ds : float
+        Origins and steps of the grid in ln u and s.
+    v : float [mm/ps]
+        Speed of light in the medium.
+    mua, mus, rho : float64 (N,) [1/mm], [1/mm], [mm]
+        Each row's absorption, scattering and distance.
+    t : float64 (N, L) [ps]
+        Each row's times.
+    u_range : (float, float)
+        The table's first and last node in u (no light reported beyond).
+    tau_max : float
+        The longest stored path in scattering lengths.
+    s_range : (float, float)
+        The table's first and last node in s.
+    out : float64 (N, L)
+        Filled with R [1/(mm² ps)] (0 outside the table's reach and for t <= 0).
+    """
+    rows, cols = smooth.shape
+    for n in range(rho.shape[0]):
+        u = rho[n] * mus[n]
+        if not (u > 0.0 and u_range[0] <= u <= u_range[1]):
+            for k in range(t.shape[1]):
+                out[n, k] = 0.0
+            continue
+        lu = math.log(u)
+        x = min(max((lu - lu0) / du, 1.0), rows - 2.000001)
+        i = int(x)
+        w0, w1, w2, w3 = _keys(x - i)
+        xb = min(max((lu - lu0) / du, 0.0), rows - 1.000001)
+        ib = int(xb)
+        fx = xb - ib
+        scale = mus[n] ** 3 * v
+        for k in range(t.shape[1]):
+            tau = v * t[n, k] * mus[n]
+            ls = math.log(tau) - 2.0 * lu if tau > 0.0 else 0.0
+            if not (tau > 0.0 and tau <= tau_max and s_range[0] <= ls <= s_range[1]):
+                out[n, k] = 0.0
+                continue
+            y = min(max((ls - s0) / ds, 1.0), cols - 2.000001)
+            j = int(y)
+            v0, v1, v2, v3 = _keys(y - j)
+            p0 = w0 * smooth[i - 1, j - 1] + w1 * smooth[i, j - 1] + w2 * smooth[i + 1, j - 1] + w3 * smooth[i + 2, j - 1]
+            p1 = w0 * smooth[i - 1, j] + w1 * smooth[i, j] + w2 * smooth[i + 1, j] + w3 * smooth[i + 2, j]
+            p2 = w0 * smooth[i - 1, j + 1] + w1 * smooth[i, j + 1] + w2 * smooth[i + 1, j + 1] + w3 * smooth[i + 2, j + 1]
+            p3 = w0 * smooth[i - 1, j + 2] + w1 * smooth[i, j + 2] + w2 * smooth[i + 1, j + 2] + w3 * smooth[i + 2, j + 2]
+            value = p0 * v0 + p1 * v1 + p2 * v2 + p3 * v3
+            yb = min(max((ls - s0) / ds, 0.0), cols - 1.000001)
+            jb = int(yb)
+            fy = yb - jb
+            top = inside[ib, jb] * (1 - fy) + inside[ib, jb + 1] * fy
+            bottom = inside[ib + 1, jb] * (1 - fy) + inside[ib + 1, jb + 1] * fy
+            if top * (1 - fx) + bottom * fx > 0.5:
+                out[n, k] = scale * math.exp(min(max(value, -700.0), 700.0)) * math.exp(-mua[n] * v * t[n, k])
             else:
                 out[n, k] = 0.0

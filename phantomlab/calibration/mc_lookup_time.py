@@ -41,7 +41,7 @@ import weakref
 import numpy as np
 from scipy.interpolate import RectBivariateSpline
 
-from phantomlab.calibration._lookup_kernels import read_rows
+from phantomlab.calibration._lookup_kernels import read_curves, read_rows
 from phantomlab.calibration.mc_lookup_time_table import (
     BANDWIDTH_LOG_TAU,
     BANDWIDTH_LOG_TAU_LATE,
@@ -117,6 +117,8 @@ class TimeResolvedLookup:
         #: width of the smoothing kernel in log τ (the fit's correlation length of the lookup error)
         self.tau_bandwidth = BANDWIDTH_LOG_TAU
         self.tau_max = table.tau_max
+        self._u_range = (float(self.u_nodes[0]), float(self.u_nodes[-1]))
+        self._s_range = (float(self.s_nodes[0]), float(self.s_nodes[-1]))
         self.u_max = table.u_max
 
     def tau_bandwidth_at(self, *, mus_per_mm, rho_mm, time_ps) -> np.ndarray:
@@ -158,6 +160,31 @@ class TimeResolvedLookup:
         values = self._f(u, tau)
         shape = (-1,) + (1,) * (u.ndim - 1)
         return mus.reshape(shape) ** 3 * self.v * values * np.exp(-mua.reshape(shape) * self.v * np.clip(t, 0, None))
+
+    def curves(self, *, mua_per_mm, mus_per_mm, rho_mm, time_ps) -> np.ndarray:
+        """:meth:`point` for whole curves, one distance per row, in one compiled pass.
+
+        Parameters
+        ----------
+        mua_per_mm, mus_per_mm, rho_mm : array (N,) [1/mm], [1/mm], [mm]
+        time_ps : array (N, L) [ps]
+
+        Returns
+        -------
+        ndarray (N, L)
+            The values of :meth:`point` (to rounding; tests/calibration/test_mc_lookup_time.py).
+        """
+        t = np.ascontiguousarray(np.atleast_2d(time_ps), dtype=float)
+        mua, mus, rho = (np.ascontiguousarray(np.broadcast_to(np.asarray(a, dtype=float).ravel(), t.shape[:1]))
+                         for a in (mua_per_mm, mus_per_mm, rho_mm))
+        if np.any(~np.isfinite(mus)) or np.any(mus <= 0) or np.any(mua < 0):
+            raise InputError("Monte Carlo lookup: mus_per_mm must be > 0 and mua_per_mm >= 0")
+        out = np.empty(t.shape)
+        ds, du = self._fine_step
+        read_curves(self._fine_smooth, self._fine_inside, float(self._fine_log_u[0]), float(self._fine_s[0]),
+                    float(du), float(ds), float(self.v), mua, mus, rho, t, self._u_range, float(self.tau_max),
+                    self._s_range, out)
+        return out
 
     @staticmethod
     def _bilinear(table, lu, lt, lu0, lt0, du, dt):

@@ -41,8 +41,7 @@ def td_curve_model(*, model: str, geometry: str, thickness_mm, n: float, n_outsi
 
         def shape(mua, musp, rho, times):
             mus = np.asarray(musp, float) / (1.0 - lookup.g)
-            return lookup.point(mua_per_mm=mua, mus_per_mm=mus, rho_mm=np.broadcast_to(np.asarray(rho)[:, None],
-                                                                                        times.shape), time_ps=times)
+            return lookup.curves(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho, time_ps=times)
 
         def at(method):
             def evaluate(musp, rho, times):

@@ -17,6 +17,7 @@ import numpy as np
 import pytest
 
 from phantomlab.calibration.mc_lookup_time import time_resolved_lookup
+from phantomlab.errors import InputError
 from phantomlab.transport.montecarlo import load_baseline
 from phantomlab.transport.time_domain import time_resolved
 from phantomlab.transport.time_domain_images import SPEED_OF_LIGHT_MM_PER_PS
@@ -165,3 +166,25 @@ def test_the_compiled_read_of_whole_curves_equals_the_general_cubic_convolution(
     assert np.array_equal(curves[:, :-1] > 0, general[:, :-1] > 0)
     assert np.count_nonzero(curves) > rows * points // 3
     np.testing.assert_allclose(curves[:, :-1], general[:, :-1], rtol=1e-12, atol=0)
+
+
+def test_the_compiled_whole_curve_read_equals_point(lookup):
+    """``curves`` (the fit's read: scaling, reach, table and Beer–Lambert in one compiled pass)
+    against ``point`` (numpy, itself held to the general cubic convolution above): equal to
+    rounding, zero at the same points, and refusing the same bad input."""
+    rng = np.random.default_rng(5)
+    rows, points = 11, 600
+    mus = rng.uniform(2.0, 12.0, rows)
+    rho = rng.uniform(2.0, 30.0, rows)
+    rho[0] = 1e-3  # nearer than the table's first node: no light
+    rho[1] = 500.0  # beyond its last
+    times = np.sort(rng.uniform(-100.0, 6000.0, (rows, points)), axis=1)
+    mua = rng.uniform(0.0, 0.05, rows)
+    fast = lookup.curves(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho, time_ps=times)
+    slow = lookup.point(mua_per_mm=mua, mus_per_mm=mus, rho_mm=np.repeat(rho[:, None], points, axis=1),
+                        time_ps=times)
+    assert np.array_equal(fast > 0, slow > 0)
+    assert not fast[:2].any() and np.count_nonzero(fast) > rows * points // 3
+    np.testing.assert_allclose(fast, slow, rtol=1e-12, atol=0)
+    with pytest.raises(InputError, match="mus_per_mm must be > 0"):
+        lookup.curves(mua_per_mm=mua, mus_per_mm=-mus, rho_mm=rho, time_ps=times)
