@@ -295,10 +295,22 @@ class SlabCorrection:
         rho_over_d = np.broadcast_to(rho_over_d, shape)
         if len(self.tables) == 1:
             return self.tables[0].at(rho_over_d, log_y, parts)
-        t = np.broadcast_to(np.log(musp * thickness_mm), shape)
+        # the bracketing nodes depend on μs′ alone: found on its own (small) shape
+        t = np.log(musp * thickness_mm)
         k = np.clip(np.searchsorted(self.log_tau, t) - 1, 0, len(self.tables) - 2)
         f = np.clip((t - self.log_tau[k]) / (self.log_tau[k + 1] - self.log_tau[k]), -0.5, 1.5)
         sums = {part: np.zeros(shape) for part in parts}
+        if np.all(k == k.flat[0]):  # every point between the same two nodes (a fit's usual case)
+            j = int(k.flat[0])
+            f = np.broadcast_to(f, shape)
+            for node, share in ((j, 1.0 - f), (j + 1, f)):
+                values = self.tables[node].at(rho_over_d, log_y, parts)
+                for part, value in zip(parts, values):
+                    sums[part] += (share * value) ** 2 if part == "sd" else share * value
+            if "sd" in sums:
+                sums["sd"] = np.sqrt(sums["sd"])
+            return tuple(sums[part] for part in parts)
+        k, f = np.broadcast_to(k, shape), np.broadcast_to(f, shape)
         for j in np.unique(k):  # each point reads its two bracketing nodes only
             here = k == j
             for node, share in ((j, 1.0 - f[here]), (j + 1, f[here])):

@@ -187,26 +187,36 @@ def image_series_terms(*, d, v, mua, z0, zb, r, t, thickness, geometry, pairs):
     live = t > 0
     safe_t = np.where(live, t, 1.0)
     four_dvt = 4.0 * d * v * safe_t
+    if thickness is None:  # the half-space: the one pair m = 0, formed on the broadcast shape
+        positive, negative = z0, -2.0 * zb - z0
+        if geometry == "transmittance":
+            raise InputError("transmittance needs a slab thickness")
+        e_pos = np.exp(-positive**2 / four_dvt)
+        e_neg = np.exp(-negative**2 / four_dvt)
+        sum_fluence = np.broadcast_to(e_pos - e_neg, depth_shape)
+        sum_flux = np.broadcast_to((positive * e_pos - negative * e_neg) / (2.0 * safe_t), depth_shape)
+        return _with_lateral(sum_fluence, sum_flux, four_dvt, v, mua, r, safe_t, live, depth_shape)
     sum_fluence = np.zeros(depth_shape)
     sum_flux = np.zeros(depth_shape)
-    if thickness is None:
-        image = np.ones(depth_shape, dtype=bool)
-    else:
-        length = float(thickness) + 2.0 * zb
-        diffusion_time = np.broadcast_to(np.pi**2 * d * v * safe_t / length**2, depth_shape)
-        image = diffusion_time < SINE_SERIES_FROM
+    length = float(thickness) + 2.0 * zb
+    diffusion_time = np.broadcast_to(np.pi**2 * d * v * safe_t / length**2, depth_shape)
+    image = diffusion_time < SINE_SERIES_FROM
     args = [np.broadcast_to(x, depth_shape) for x in (d, v, z0, zb, safe_t)]
     if np.any(image):
         picked = [x[image] for x in args]
-        pairs_here = pairs
-        if thickness is not None:  # the early times need fewer pairs than the latest one
-            spread = np.sqrt(4.0 * picked[0] * picked[1] * picked[4] * SERIES_EXPONENT).max()
-            pairs_here = min(pairs, int(np.ceil(spread / (2.0 * float(thickness)))) + 1)
+        # the early times need fewer pairs than the latest one
+        spread = np.sqrt(4.0 * picked[0] * picked[1] * picked[4] * SERIES_EXPONENT).max()
+        pairs_here = min(pairs, int(np.ceil(spread / (2.0 * float(thickness)))) + 1)
         sum_fluence[image], sum_flux[image] = _image_sums(*picked, thickness=thickness, geometry=geometry,
                                                           pairs=pairs_here)
     if not np.all(image):
         sum_fluence[~image], sum_flux[~image] = _sine_sums(d, v, z0, zb, safe_t, diffusion_time, ~image,
                                                            thickness=float(thickness), geometry=geometry)
+    return _with_lateral(sum_fluence, sum_flux, four_dvt, v, mua, r, safe_t, live, depth_shape)
+
+
+def _with_lateral(sum_fluence, sum_flux, four_dvt, v, mua, r, safe_t, live, depth_shape):
+    """Φ and J from the depth sums: times (4π D v t)^(−3/2) e^(−μa v t − ρ²/(4Dvt)), 0 for t <= 0."""
     if depth_shape == (1,):
         sum_fluence, sum_flux = sum_fluence.reshape(np.shape(four_dvt)), sum_flux.reshape(np.shape(four_dvt))
     # log of (4π D v t)^(−3/2) e^(−μa v t − ρ²/(4Dvt)): kept in logs so that t → 0 gives 0, not inf·0
