@@ -257,6 +257,10 @@ def _every_page_at(browser, url, widths, shots) -> dict[int, dict[str, list]]:
             page.get_by_text(name, exact=True).first.click()
             page.get_by_role("heading", name=name).first.wait_for()
             _settle(page)
+            if name != "Fit and correct":  # these pages hold tables: wait until one is drawn (on a
+                # loaded machine the script can still be computing after the first settle)
+                page.locator('[data-testid="stDataFrame"] .dvn-scroller').first.wait_for(state="visible")
+                _settle(page)
             _no_exception(page, f"on the page {name!r}")
             for width in widths:
                 _shoot(page, shots / f"{width}-{name.replace(' ', '-')}.png", width=width, settle_ms=600)
