@@ -113,6 +113,45 @@ def wide_shares(g: float, log_u, s):
     return far, late
 
 
+def _bin_of(values: np.ndarray, edges: np.ndarray) -> np.ndarray:
+    """``np.searchsorted(edges, values, side='right')`` for evenly spaced ``edges``, found by arithmetic.
+
+    The guess from the step is corrected against the edges themselves, so the result is
+    exactly the search's (a value on an edge goes to the bin on its right).
+    """
+    step = (edges[-1] - edges[0]) / (edges.size - 1)
+    with np.errstate(invalid="ignore"):
+        guess = np.floor((values - edges[0]) / step) + 1.0
+    index = np.clip(np.nan_to_num(guess, nan=float(edges.size)), 0, edges.size).astype(np.int64)
+    index[np.isnan(values)] = edges.size  # where the search puts NaN
+    for _ in range(4):  # the guess is off by at most one bin; correct until the search agrees
+        low = (index > 0) & (edges[np.maximum(index - 1, 0)] > values)
+        high = (index < edges.size) & (edges[np.minimum(index, edges.size - 1)] <= values)
+        if not (low.any() or high.any()):
+            break
+        index = index - low + high
+    return index
+
+
+def cell_sums(x: np.ndarray, y: np.ndarray, x_edges: np.ndarray, y_edges: np.ndarray, weights) -> list[np.ndarray]:
+    """``np.histogram2d(x, y, bins=(x_edges, y_edges), weights=w)[0]`` for each ``w`` in ``weights`` (None: counts).
+
+    The same numbers to the bit (the same bins, a value on the last edge in the last bin, and
+    the same order of summation), with the cells found once for all the histograms and by
+    arithmetic on the evenly spaced edges rather than by binary search (for ten million
+    photons, 5.5 s → well under 1 s).
+    """
+    i = _bin_of(x, x_edges)
+    j = _bin_of(y, y_edges)
+    i[x == x_edges[-1]] -= 1
+    j[y == y_edges[-1]] -= 1
+    inside = (i >= 1) & (i < x_edges.size) & (j >= 1) & (j < y_edges.size)
+    shape = (x_edges.size - 1, y_edges.size - 1)
+    flat = (i[inside] - 1) * shape[1] + (j[inside] - 1)
+    return [np.bincount(flat, None if w is None else w[inside], minlength=shape[0] * shape[1]).astype(float)
+            .reshape(shape) for w in weights]
+
+
 @dataclass(frozen=True, eq=False)
 class TimeTable:
     """The smoothed table of one baseline on its nodes (log u, s) = (ln(ρμs), ln(τ/u²)).
@@ -167,9 +206,7 @@ def smoothed_time_table(baseline) -> TimeTable:
     s_low = math.log(_TAU_MIN) - 2.0 * lu_edges[-1]
     s_high = math.log(tau_max) - 2.0 * lu_edges[0]
     s_edges = s_low + _TAU_STEP * np.arange(int(math.ceil((s_high - s_low) / _TAU_STEP)) + 1)
-    counts, _, _ = np.histogram2d(log_u_photon, s_photon, bins=(lu_edges, s_edges))
-    sums, _, _ = np.histogram2d(log_u_photon, s_photon, bins=(lu_edges, s_edges), weights=weight)
-    squares, _, _ = np.histogram2d(log_u_photon, s_photon, bins=(lu_edges, s_edges), weights=weight * weight)
+    counts, sums, squares = cell_sums(log_u_photon, s_photon, lu_edges, s_edges, (None, weight, weight * weight))
     launched = float(baseline.photons)
     launch = float(baseline.launch_weight)
     # expected weight of each cell under the control: ∫∫ 2π u F_c du dτ, du dτ = u τ dx ds

@@ -188,3 +188,23 @@ def test_the_compiled_whole_curve_read_equals_point(lookup):
     np.testing.assert_allclose(fast, slow, rtol=1e-12, atol=0)
     with pytest.raises(InputError, match="mus_per_mm must be > 0"):
         lookup.curves(mua_per_mm=mua, mus_per_mm=-mus, rho_mm=rho, time_ps=times)
+
+
+def test_the_table_cells_are_numpys_two_dimensional_histograms_to_the_bit():
+    """The table's cells (photon counts, weight sums and squares) are found once, by arithmetic
+    on the evenly spaced edges; numpy's histogram2d (binary search per histogram) is the
+    reference: the same bins for values on edges, on the last edge and outside, the same sums."""
+    from phantomlab.calibration.mc_lookup_time_table import cell_sums
+
+    rng = np.random.default_rng(8)
+    x_edges = np.arange(math.log(0.5), math.log(400.0) + math.log(1.1), math.log(1.1))
+    y_edges = -12.0 + math.log(1.04) * np.arange(300)
+    x = rng.uniform(x_edges[0] - 0.3, x_edges[-1] + 0.3, 20_000)
+    y = rng.uniform(y_edges[0] - 0.3, y_edges[-1] + 0.3, 20_000)
+    x[:200] = x_edges[rng.integers(0, x_edges.size, 200)]  # exactly on edges, the last one among them
+    y[:200] = y_edges[rng.integers(0, y_edges.size, 200)]
+    x[200], y[200] = x_edges[-1], y_edges[-1]
+    w = rng.exponential(1.0, x.size)
+    got = cell_sums(x, y, x_edges, y_edges, (None, w, w * w))
+    for mine, weights in zip(got, (None, w, w * w)):
+        assert np.array_equal(mine, np.histogram2d(x, y, bins=(x_edges, y_edges), weights=weights)[0])
