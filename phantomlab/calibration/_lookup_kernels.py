@@ -11,11 +11,12 @@ along s), so its values equal the numpy path's to rounding.
 
 from __future__ import annotations
 
+import cmath
 import math
 
 from numba import njit
 
-__all__ = ["read_rows", "read_curves"]
+__all__ = ["read_rows", "read_curves", "transform_rows"]
 
 
 @njit(cache=True)
@@ -138,3 +139,55 @@ def read_curves(smooth, inside, lu0, s0, du, ds, v, mua, mus, rho, t, u_range, t
                 out[n, k] = scale * math.exp(min(max(value, -700.0), 700.0)) * math.exp(-mua[n] * v * t[n, k])
             else:
                 out[n, k] = 0.0
+
+
+@njit(cache=True)
+def transform_rows(smooth, inside, lu0, du, s_nodes, weights, tau_max, u_range, v, mua, mus, u, omega, out):
+    """The lookup's Fourier transform R̃ = μs² Σ_c F(u, τ_c) e^(−(μa + iω/v) τ_c/μs) τ_c w_c, one pass.
+
+    The arithmetic of :meth:`TimeResolvedLookup.frequency_domain` (a row of the fine table at
+    each u by cubic convolution in ln u, the photons' reach cut by the mask and by the longest
+    path, the trapezoid in ln τ) point by point.
+
+    Parameters
+    ----------
+    smooth, inside : float64 (U, C)
+        ln F and the 0/1 reach mask on the columns that hold light.
+    lu0, du : float
+        Origin and step of the fine grid in ln u.
+    s_nodes, weights : float64 (C,)
+        The columns' s = ln(τ/u²) and their trapezoid weights in ln τ.
+    tau_max : float
+        The longest stored path in scattering lengths.
+    u_range : (float, float)
+        The table's first and last node in u.
+    v : float [mm/ps]
+    mua, mus : float64 (N,) [1/mm]
+    u : float64 (N, G)
+        ρμs of each output.
+    omega : float64 (G,) [rad/ps]
+    out : complex128 (N, G)
+    """
+    rows = smooth.shape[0]
+    for n in range(u.shape[0]):
+        for g in range(u.shape[1]):
+            uu = u[n, g]
+            if not (u_range[0] <= uu <= u_range[1]):
+                out[n, g] = 0.0
+                continue
+            log_u = math.log(uu)
+            x = min(max((log_u - lu0) / du, 1.0), rows - 2.000001)
+            i = int(x)
+            fx = x - i
+            w0, w1, w2, w3 = _keys(fx)
+            rate = complex(mua[n], omega[g] / v) / mus[n]
+            total = 0.0j
+            for c in range(s_nodes.shape[0]):
+                if (1.0 - fx) * inside[i, c] + fx * inside[i + 1, c] <= 0.5:
+                    continue
+                tau = math.exp(s_nodes[c] + 2.0 * log_u)
+                if tau > tau_max:
+                    continue
+                value = w0 * smooth[i - 1, c] + w1 * smooth[i, c] + w2 * smooth[i + 1, c] + w3 * smooth[i + 2, c]
+                total += math.exp(min(max(value, -700.0), 700.0)) * cmath.exp(-rate * tau) * tau * weights[c]
+            out[n, g] = mus[n] ** 2 * total

@@ -41,7 +41,7 @@ import weakref
 import numpy as np
 from scipy.interpolate import RectBivariateSpline
 
-from phantomlab.calibration._lookup_kernels import read_curves, read_rows
+from phantomlab.calibration._lookup_kernels import read_curves, read_rows, transform_rows
 from phantomlab.calibration.mc_lookup_time_table import (
     BANDWIDTH_LOG_TAU,
     BANDWIDTH_LOG_TAU_LATE,
@@ -401,26 +401,47 @@ class TimeResolvedLookup:
         mua_per_mm, mus_per_mm : array (N,) [1/mm]
         rho_mm, frequency_mhz : arrays broadcast together to (G,) [mm], [MHz]
         """
+        mua = np.ascontiguousarray(np.atleast_1d(np.asarray(mua_per_mm, float)))
+        mus = np.ascontiguousarray(np.atleast_1d(np.asarray(mus_per_mm, float)))
+        rho, freq = np.broadcast_arrays(np.atleast_1d(np.asarray(rho_mm, float)),
+                                        np.atleast_1d(np.asarray(frequency_mhz, float)))
+        omega = np.ascontiguousarray(2.0 * math.pi * freq * 1e-6)  # rad/ps
+        smooth, mask, s_nodes, weights = self._transform_columns()
+        u = np.ascontiguousarray(rho[None, :] * mus[:, None])  # (N, G)
+        out = np.empty(u.shape, dtype=complex)
+        # each (N, G) needs a whole row of the table at its u: cubic convolution in log u over
+        # four rows (smooth in μs), the photons' reach cut by the mask; compiled (_numpy_transform
+        # is the same sum in numpy)
+        transform_rows(smooth, mask, float(self._fine_log_u[0]), float(self._fine_step[1]), s_nodes, weights,
+                       float(self.tau_max), self._u_range, float(self.v), mua, mus, u, omega, out)
+        return out
+
+    def _transform_columns(self):
+        """The fine table's columns that hold light, with their s and trapezoid weights in ln τ (made once)."""
+        if getattr(self, "_columns", None) is None:
+            live = np.flatnonzero(np.any(self._fine_log_f > -700.0, axis=0))  # s columns holding light
+            columns = slice(int(live[0]), int(live[-1]) + 1) if live.size else slice(0, 0)
+            s_nodes = np.ascontiguousarray(self._fine_s[columns])
+            weights = np.full(s_nodes.size, self._fine_step[0])  # trapezoid in log τ = s + 2 log u: dτ = τ ds
+            if s_nodes.size:
+                weights[[0, -1]] *= 0.5
+            self._columns = (np.ascontiguousarray(self._fine_smooth[:, columns]),
+                             np.ascontiguousarray(self._fine_inside[:, columns]), s_nodes, weights)
+        return self._columns
+
+    def _numpy_transform(self, *, mua_per_mm, mus_per_mm, rho_mm, frequency_mhz) -> np.ndarray:
+        """:meth:`frequency_domain` in numpy (the compiled kernel's reference in the tests)."""
         mua = np.atleast_1d(np.asarray(mua_per_mm, float))
         mus = np.atleast_1d(np.asarray(mus_per_mm, float))
         rho, freq = np.broadcast_arrays(np.atleast_1d(np.asarray(rho_mm, float)),
                                         np.atleast_1d(np.asarray(frequency_mhz, float)))
         omega = 2.0 * math.pi * freq * 1e-6  # rad/ps
-        live = np.flatnonzero(np.any(self._fine_log_f > -700.0, axis=0))  # s columns holding light
-        columns = slice(int(live[0]), int(live[-1]) + 1) if live.size else slice(0, 0)
-        s_nodes = self._fine_s[columns]
-        weights = np.full(s_nodes.size, self._fine_step[0])  # trapezoid in log τ = s + 2 log u: dτ = τ ds
-        if s_nodes.size:
-            weights[[0, -1]] *= 0.5
+        smooth, mask, s_nodes, weights = self._transform_columns()
         u = rho[None, :] * mus[:, None]  # (N, G)
-        # each (N, G) needs a whole row of the table at its u: cubic convolution in log u over
-        # four rows (smooth in μs), the photons' reach cut by the mask
         rows = self._fine_log_u.size
         x = np.clip((np.log(u) - self._fine_log_u[0]) / self._fine_step[1], 1.0, rows - 2.000001)
         i = x.astype(np.int64)
         wx = self._cubic_weights(x - i)  # (N, G, 4)
-        smooth = self._fine_smooth[:, columns]
-        mask = self._fine_inside[:, columns]
         log_values = sum(wx[..., a, None] * smooth[i - 1 + a] for a in range(4))
         fx = (x - i)[..., None]
         reached = ((1.0 - fx) * mask[i] + fx * mask[i + 1]) > 0.5

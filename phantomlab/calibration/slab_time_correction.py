@@ -291,10 +291,8 @@ class SlabCorrection:
         v = SPEED_OF_LIGHT_MM_PER_PS / self.n
         log_y = np.log(np.maximum(times, 1e-3) * v / (3.0 * musp * thickness_mm**2))
         shape = np.broadcast_shapes(np.shape(log_y), np.shape(rho_over_d))
-        log_y = np.broadcast_to(log_y, shape)
-        rho_over_d = np.broadcast_to(rho_over_d, shape)
         if len(self.tables) == 1:
-            return self.tables[0].at(rho_over_d, log_y, parts)
+            return tuple(np.broadcast_to(value, shape) for value in self.tables[0].at(rho_over_d, log_y, parts))
         # the bracketing nodes depend on μs′ alone: found on its own (small) shape
         t = np.log(musp * thickness_mm)
         k = np.clip(np.searchsorted(self.log_tau, t) - 1, 0, len(self.tables) - 2)
@@ -311,6 +309,7 @@ class SlabCorrection:
                 sums["sd"] = np.sqrt(sums["sd"])
             return tuple(sums[part] for part in parts)
         k, f = np.broadcast_to(k, shape), np.broadcast_to(f, shape)
+        log_y, rho_over_d = np.broadcast_to(log_y, shape), np.broadcast_to(rho_over_d, shape)
         for j in np.unique(k):  # each point reads its two bracketing nodes only
             here = k == j
             for node, share in ((j, 1.0 - f[here]), (j + 1, f[here])):
