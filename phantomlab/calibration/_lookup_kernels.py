@@ -27,6 +27,28 @@ def _keys(f):
     return (-0.5 * f3 + f2 - 0.5 * f, 1.5 * f3 - 2.5 * f2 + 1.0, -1.5 * f3 + 2.0 * f2 + 0.5 * f, 0.5 * f3 - 0.5 * f2)
 
 
+@njit(cache=True, inline="always")
+def _read_point(smooth, inside, i, w0, w1, w2, w3, ib, fx, ls, s0, ds):
+    """ln F at one point of a row (u's node i with Keys weights w, mask node ib with fraction fx) and
+    whether the photons reach it: cubic convolution across u first (the numpy path's per-row
+    profile), then along s; the mask bilinear, kept where it exceeds one half."""
+    cols = smooth.shape[1]
+    y = min(max((ls - s0) / ds, 1.0), cols - 2.000001)
+    j = int(y)
+    v0, v1, v2, v3 = _keys(y - j)
+    p0 = w0 * smooth[i - 1, j - 1] + w1 * smooth[i, j - 1] + w2 * smooth[i + 1, j - 1] + w3 * smooth[i + 2, j - 1]
+    p1 = w0 * smooth[i - 1, j] + w1 * smooth[i, j] + w2 * smooth[i + 1, j] + w3 * smooth[i + 2, j]
+    p2 = w0 * smooth[i - 1, j + 1] + w1 * smooth[i, j + 1] + w2 * smooth[i + 1, j + 1] + w3 * smooth[i + 2, j + 1]
+    p3 = w0 * smooth[i - 1, j + 2] + w1 * smooth[i, j + 2] + w2 * smooth[i + 1, j + 2] + w3 * smooth[i + 2, j + 2]
+    value = p0 * v0 + p1 * v1 + p2 * v2 + p3 * v3
+    yb = min(max((ls - s0) / ds, 0.0), cols - 1.000001)
+    jb = int(yb)
+    fy = yb - jb
+    top = inside[ib, jb] * (1 - fy) + inside[ib, jb + 1] * fy
+    bottom = inside[ib + 1, jb] * (1 - fy) + inside[ib + 1, jb + 1] * fy
+    return value, top * (1 - fx) + bottom * fx > 0.5
+
+
 @njit(cache=True)
 def read_rows(smooth, inside, lu_row, ls, lu0, s0, du, ds, out):
     """exp(ln F) at (ln u of each row, s of each point), 0 where the mask says no photons.
@@ -44,7 +66,7 @@ def read_rows(smooth, inside, lu_row, ls, lu0, s0, du, ds, out):
     out : float64 (N, L)
         Filled with F (ln F clipped to ±700 before the exponential).
     """
-    rows, cols = smooth.shape
+    rows = smooth.shape[0]
     for n in range(lu_row.shape[0]):
         x = min(max((lu_row[n] - lu0) / du, 1.0), rows - 2.000001)
         i = int(x)
@@ -53,21 +75,8 @@ def read_rows(smooth, inside, lu_row, ls, lu0, s0, du, ds, out):
         ib = int(xb)
         fx = xb - ib
         for k in range(ls.shape[1]):
-            y = min(max((ls[n, k] - s0) / ds, 1.0), cols - 2.000001)
-            j = int(y)
-            v0, v1, v2, v3 = _keys(y - j)
-            # across u first (the numpy path's per-row profile), then along s
-            p0 = w0 * smooth[i - 1, j - 1] + w1 * smooth[i, j - 1] + w2 * smooth[i + 1, j - 1] + w3 * smooth[i + 2, j - 1]
-            p1 = w0 * smooth[i - 1, j] + w1 * smooth[i, j] + w2 * smooth[i + 1, j] + w3 * smooth[i + 2, j]
-            p2 = w0 * smooth[i - 1, j + 1] + w1 * smooth[i, j + 1] + w2 * smooth[i + 1, j + 1] + w3 * smooth[i + 2, j + 1]
-            p3 = w0 * smooth[i - 1, j + 2] + w1 * smooth[i, j + 2] + w2 * smooth[i + 1, j + 2] + w3 * smooth[i + 2, j + 2]
-            value = p0 * v0 + p1 * v1 + p2 * v2 + p3 * v3
-            yb = min(max((ls[n, k] - s0) / ds, 0.0), cols - 1.000001)
-            jb = int(yb)
-            fy = yb - jb
-            top = inside[ib, jb] * (1 - fy) + inside[ib, jb + 1] * fy
-            bottom = inside[ib + 1, jb] * (1 - fy) + inside[ib + 1, jb + 1] * fy
-            if top * (1 - fx) + bottom * fx > 0.5:
+            value, lit = _read_point(smooth, inside, i, w0, w1, w2, w3, ib, fx, ls[n, k], s0, ds)
+            if lit:
                 out[n, k] = math.exp(min(max(value, -700.0), 700.0))
             else:
                 out[n, k] = 0.0
@@ -101,7 +110,7 @@ def read_curves(smooth, inside, lu0, s0, du, ds, v, mua, mus, rho, t, u_range, t
     out : float64 (N, L)
         Filled with R [1/(mm² ps)] (0 outside the table's reach and for t <= 0).
     """
-    rows, cols = smooth.shape
+    rows = smooth.shape[0]
     for n in range(rho.shape[0]):
         u = rho[n] * mus[n]
         if not (u > 0.0 and u_range[0] <= u <= u_range[1]):
@@ -122,20 +131,8 @@ def read_curves(smooth, inside, lu0, s0, du, ds, v, mua, mus, rho, t, u_range, t
             if not (tau > 0.0 and tau <= tau_max and s_range[0] <= ls <= s_range[1]):
                 out[n, k] = 0.0
                 continue
-            y = min(max((ls - s0) / ds, 1.0), cols - 2.000001)
-            j = int(y)
-            v0, v1, v2, v3 = _keys(y - j)
-            p0 = w0 * smooth[i - 1, j - 1] + w1 * smooth[i, j - 1] + w2 * smooth[i + 1, j - 1] + w3 * smooth[i + 2, j - 1]
-            p1 = w0 * smooth[i - 1, j] + w1 * smooth[i, j] + w2 * smooth[i + 1, j] + w3 * smooth[i + 2, j]
-            p2 = w0 * smooth[i - 1, j + 1] + w1 * smooth[i, j + 1] + w2 * smooth[i + 1, j + 1] + w3 * smooth[i + 2, j + 1]
-            p3 = w0 * smooth[i - 1, j + 2] + w1 * smooth[i, j + 2] + w2 * smooth[i + 1, j + 2] + w3 * smooth[i + 2, j + 2]
-            value = p0 * v0 + p1 * v1 + p2 * v2 + p3 * v3
-            yb = min(max((ls - s0) / ds, 0.0), cols - 1.000001)
-            jb = int(yb)
-            fy = yb - jb
-            top = inside[ib, jb] * (1 - fy) + inside[ib, jb + 1] * fy
-            bottom = inside[ib + 1, jb] * (1 - fy) + inside[ib + 1, jb + 1] * fy
-            if top * (1 - fx) + bottom * fx > 0.5:
+            value, lit = _read_point(smooth, inside, i, w0, w1, w2, w3, ib, fx, ls, s0, ds)
+            if lit:
                 out[n, k] = scale * math.exp(min(max(value, -700.0), 700.0)) * math.exp(-mua[n] * v * t[n, k])
             else:
                 out[n, k] = 0.0
