@@ -161,13 +161,14 @@ def _against_target(result, target: dict | None) -> list[Chart]:
         rows[f"fitted_{quantity}_sd_per_mm"] = sd
         series = [Series(f"fitted {symbol}", wavelength, value, sd=np.where(np.isfinite(sd), sd, 0.0),
                          mode="lines+markers")]
+        title = f"Fitted {symbol}"  # a file not attached to a batch has no target to show
         if target:
             wanted = np.asarray([np.nan if v is None else v for v in target.get(f"{quantity}_per_mm", [])], float)
             if wanted.size and np.any(np.isfinite(wanted)):
                 has = np.isfinite(wanted)
                 series.append(target_series(f"target {symbol}", np.asarray(target["wavelength_nm"], float)[has],
                                             wanted[has]))
-        figure = line_figure(series, x_label="wavelength [nm]", y_label=f"{symbol} [1/mm]",
-                             title=f"Fitted {symbol} against target")
+                title = f"Fitted {symbol} against target"
+        figure = line_figure(series, x_label="wavelength [nm]", y_label=f"{symbol} [1/mm]", title=title)
         charts.append(Chart(figure, pd.DataFrame(rows), f"fitted-{quantity}", f"refit.fitted.{quantity}"))
     return charts
