@@ -351,39 +351,56 @@ def time_cache_file_name(*, g, n, n_outside=1.0) -> str:
 
 
 def obtain_photon_baseline(*, g, n, n_outside=1.0, folder=None, rebuild=False, progress=None) -> CachedBaseline:
-    """The cached td/fd baseline for (g, n, n_outside) with its photons: read, or built once when missing.
+    """The cached td/fd baseline for (g, n, n_outside), tabulated: read, or built once when missing.
 
     The time- and frequency-domain lookups (:mod:`phantomlab.calibration.mc_lookup_time`) use
     every stored photon's exit radius and path length and need more photons than the srdr
     table (:data:`TIME_CACHE_PHOTONS`; measured on independent Monte Carlo data: with the
     srdr cache's million photons the td fit's own lookup noise moved μa by up to 5 % at
     μs′/μa = 1000).  A cached file with fewer photons (made before the count was raised) is
-    used, with a warning that names ``--rebuild``.  Kept in the same folder as ``NAME-time.npz`` (:func:`time_cache_file_name`).
+    used, with a warning that names ``--rebuild``.  Kept in the same folder as ``NAME-time.npz``
+    (:func:`time_cache_file_name`), and its smoothed table beside it as ``NAME-time.lookup.npz``
+    (:mod:`phantomlab.calibration.time_table_store`): a fit reads the photons only when that
+    table is missing, damaged, made by other code or from other photons.
 
     Returns
     -------
     CachedBaseline
-        ``baseline`` is the :class:`~phantomlab.transport.montecarlo.Baseline` itself.
+        ``baseline`` is a :class:`~phantomlab.calibration.time_table_store.TimeTabulatedBaseline`
+        (the inputs and the table, no photons).
 
     Raises
     ------
     CachedBaselineError, InputError
         As :func:`obtain_baseline`.
     """
+    from phantomlab.calibration.time_table_store import read_time_table, tabulate_time_baseline, time_table_path
+
     settings = time_cache_settings(g=g, n=n, n_outside=n_outside)
     path = baseline_folder(folder) / time_cache_file_name(g=g, n=n, n_outside=n_outside)
     if path.is_file() and not rebuild:
-        baseline = _read_photons(path, settings)
-        if int(baseline.photons) < settings["photons"]:
-            warnings.warn(f"the cached td/fd baseline {path.name} holds {int(baseline.photons):,} photons, fewer than "
+        from phantomlab.transport.montecarlo import load_baseline_inputs
+
+        try:
+            inputs = load_baseline_inputs(path)
+        except InputError as exc:
+            raise CachedBaselineError(path, _reason(exc, path)) from None
+        _check_made_for(path, inputs, settings)
+        tabulated = read_time_table(path, inputs)
+        if tabulated is None:
+            tabulated = tabulate_time_baseline(_read_photons(path, settings), path)
+        if int(tabulated.photons) < settings["photons"]:
+            warnings.warn(f"the cached td/fd baseline {path.name} holds {int(tabulated.photons):,} photons, fewer than "
                           f"the {settings['photons']:,} a new one gets: the Monte Carlo lookup's own noise (in the "
                           f"SDs) is larger; give --rebuild to replace it (several minutes)", PhantomlabWarning,
                           stacklevel=2)
-        return CachedBaseline(baseline=baseline, path=path, built=False)
+        return CachedBaseline(baseline=tabulated, path=path, built=False)
     _writable_folder(path.parent)  # before the minutes of work, not after
     start = time.perf_counter()
     baseline = _build_and_save(settings, path, progress)
-    return CachedBaseline(baseline=baseline, path=path, built=True, seconds=time.perf_counter() - start)
+    time_table_path(path).unlink(missing_ok=True)
+    tabulated = tabulate_time_baseline(baseline, path)
+    return CachedBaseline(baseline=tabulated, path=path, built=True, seconds=time.perf_counter() - start)
 
 
 def _build_and_save(settings: dict, target: Path, progress):
