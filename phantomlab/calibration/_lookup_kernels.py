@@ -1,4 +1,4 @@
-"""numba kernel that reads the time-resolved lookup's fine table (layer 3).
+"""numba kernels that read the time-resolved lookup's fine table (layer 3).
 
 :meth:`phantomlab.calibration.mc_lookup_time.TimeResolvedLookup.point` reads ln F on a fine
 uniform grid in (ln u, s) by Keys's cubic convolution (Keys 1981, IEEE Trans ASSP 29:1153,
@@ -14,9 +14,10 @@ from __future__ import annotations
 import cmath
 import math
 
+import numpy as np
 from numba import njit
 
-__all__ = ["read_rows", "read_curves", "transform_rows"]
+__all__ = ["read_rows", "read_curves", "transform_rows", "error_pair_block"]
 
 
 @njit(cache=True)
@@ -188,3 +189,46 @@ def transform_rows(smooth, inside, lu0, du, s_nodes, weights, tau_max, u_range, 
                 value = w0 * smooth[i - 1, c] + w1 * smooth[i, c] + w2 * smooth[i + 1, c] + w3 * smooth[i + 2, c]
                 total += math.exp(min(max(value, -700.0), 700.0)) * cmath.exp(-rate * tau) * tau * weights[c]
             out[n, g] = mus[n] ** 2 * total
+
+
+#: Kernel products below e^(−40) of their peak are left out of :func:`error_pair_block`
+#: (4e-18: nothing a float64 sum of order one keeps).
+_PAIR_CUT = 80.0
+
+
+@njit(cache=True)
+def error_pair_block(noise_a, bias_a, noise_b, bias_b, log_t, width_a, width_b, shift, out):
+    """One distance pair's block of the fd lookup's error covariance, (M, M) into ``out``.
+
+    Σᵢⱼ noise_a[:, i] Kᵢⱼ noise_b[:, j]ᵀ + the same for the bias rows, with Kᵢⱼ the overlap of
+    two Gaussian smoothing kernels of widths aᵢ, bⱼ a distance d = ln tᵢ − ln tⱼ − ``shift``
+    apart in s, √(2aᵢbⱼ/(aᵢ² + bⱼ²)) exp(−d²/(2(aᵢ² + bⱼ²)))
+    (:meth:`~phantomlab.calibration.mc_lookup_time.TimeResolvedLookup.transform_error_covariance`;
+    the dense (T, T) matrix in numpy is the reference of tests/calibration/test_mc_lookup_time.py).
+    Pairs whose kernel is below e^(−40) of its peak are skipped.
+    """
+    m_rows, times = noise_a.shape
+    widest_b = 0.0
+    for j in range(times):
+        widest_b = max(widest_b, width_b[j])
+    carried_noise = np.zeros((times, m_rows))
+    carried_bias = np.zeros((times, m_rows))
+    for i in range(times):
+        a = width_a[i]
+        reach = _PAIR_CUT * (a * a + widest_b * widest_b)
+        for j in range(times):
+            d = log_t[i] - log_t[j] - shift
+            if d * d > reach:
+                continue
+            b = width_b[j]
+            pair = a * a + b * b
+            k = math.sqrt(2.0 * a * b / pair) * math.exp(-d * d / (2.0 * pair))
+            for q in range(m_rows):
+                carried_noise[i, q] += k * noise_b[q, j]
+                carried_bias[i, q] += k * bias_b[q, j]
+    for p in range(m_rows):
+        for q in range(m_rows):
+            total = 0.0
+            for i in range(times):
+                total += noise_a[p, i] * carried_noise[i, q] + bias_a[p, i] * carried_bias[i, q]
+            out[p, q] = total

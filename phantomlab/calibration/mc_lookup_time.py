@@ -41,7 +41,7 @@ import weakref
 import numpy as np
 from scipy.interpolate import RectBivariateSpline
 
-from phantomlab.calibration._lookup_kernels import read_curves, read_rows, transform_rows
+from phantomlab.calibration._lookup_kernels import error_pair_block, read_curves, read_rows, transform_rows
 from phantomlab.calibration.mc_lookup_time_table import (
     BANDWIDTH_LOG_TAU,
     BANDWIDTH_LOG_TAU_LATE,
@@ -381,16 +381,15 @@ class TimeResolvedLookup:
         corr_u = np.sqrt(2 * width_u[:, None] * width_u[None, :] / pair_u) * np.exp(
             -((np.log(rho)[:, None] - np.log(rho)[None, :]) ** 2) / (2 * pair_u))
         out = np.zeros((R, 2 * F, R, 2 * F))
+        block = np.empty((2 * F, 2 * F))
         for a in range(R):
             for b in range(a, R):
                 # the table is smoothed in s = ln(τ/u²): at two distances the same table nodes
-                # hold the times whose s agree, t_b = t_a (ρ_b/ρ_a)²
-                pair = widths[a][:, None] ** 2 + widths[b][None, :] ** 2
-                gap_s = (log_t[:, None] - log_t[None, :]) - 2.0 * (math.log(rho[a]) - math.log(rho[b]))
-                corr_t = np.sqrt(2 * widths[a][:, None] * widths[b][None, :] / pair) * np.exp(-(gap_s**2) / (2 * pair))
-                block = corr_u[a, b] * (rows_noise[a] @ corr_t @ rows_noise[b].T + rows_bias[a] @ corr_t @ rows_bias[b].T)
-                out[a, :, b, :] = block
-                out[b, :, a, :] = block.T
+                # hold the times whose s agree, t_b = t_a (ρ_b/ρ_a)² (compiled: error_pair_block)
+                error_pair_block(rows_noise[a], rows_bias[a], rows_noise[b], rows_bias[b], log_t, widths[a],
+                                 widths[b], 2.0 * (math.log(rho[a]) - math.log(rho[b])), block)
+                out[a, :, b, :] = corr_u[a, b] * block
+                out[b, :, a, :] = corr_u[a, b] * block.T
         # reorder (R, [amp F, lag F]) to ([amp (R, F)], [lag (R, F)])
         order = np.concatenate([np.arange(R)[:, None] * 2 * F + np.arange(F)[None, :],
                                 np.arange(R)[:, None] * 2 * F + F + np.arange(F)[None, :]]).ravel()

@@ -223,3 +223,26 @@ def test_the_compiled_transform_equals_its_numpy_form(lookup):
     slow = lookup._numpy_transform(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho, frequency_mhz=freq)
     assert np.count_nonzero(fast) > fast.size // 2 and np.all(fast[:, -1] == 0)
     np.testing.assert_allclose(fast, slow, rtol=1e-12, atol=0)
+
+
+def test_the_compiled_error_pair_block_equals_the_dense_kernel_products():
+    """A block of the fd lookup's error covariance (transform_error_covariance) is summed by a
+    numba kernel that skips kernel overlaps below e^(−40); the reference is the dense (T, T)
+    overlap matrix in numpy, as the covariance was first written: equal to 1e-12 of the
+    block's largest entry, for kernels of varying width and a shift between distances."""
+    from phantomlab.calibration._lookup_kernels import error_pair_block
+
+    rng = np.random.default_rng(8)
+    times, rows = 300, 6
+    log_t = np.log(np.geomspace(10.0, 6e4, times))
+    for shift in (0.0, 0.81, -1.6):
+        noise_a, bias_a, noise_b, bias_b = (rng.standard_normal((rows, times)) for _ in range(4))
+        width_a = rng.uniform(0.06, 0.2, times)
+        width_b = np.sort(rng.uniform(0.06, 0.2, times))
+        pair = width_a[:, None] ** 2 + width_b[None, :] ** 2
+        gap = log_t[:, None] - log_t[None, :] - shift
+        overlap = np.sqrt(2 * width_a[:, None] * width_b[None, :] / pair) * np.exp(-(gap**2) / (2 * pair))
+        dense = noise_a @ overlap @ noise_b.T + bias_a @ overlap @ bias_b.T
+        block = np.empty((rows, rows))
+        error_pair_block(noise_a, bias_a, noise_b, bias_b, log_t, width_a, width_b, shift, block)
+        assert np.max(np.abs(block - dense)) <= 1e-12 * np.max(np.abs(dense))
