@@ -181,6 +181,14 @@ def assess_fit(result: FitResult, *, sd_parts=("measurement_sd",)) -> FitResult:
     with np.errstate(invalid="ignore"):
         mua_sd = np.sqrt(np.diagonal(covariance, axis1=1, axis2=2)[:, 0])
         musp_sd = np.sqrt(np.diagonal(covariance, axis1=1, axis2=2)[:, 1])
+    shift_sd = np.asarray(getattr(result, "time_shift_sd_ps", np.zeros((0, 0))), float)
+    if shift_sd.ndim == 2 and shift_sd.shape[0] == W and shift_sd.size:
+        # td: the delay t0's SD as μa's and μs′'s (misfit scale, the model's own error)
+        variance = shift_sd**2 * factor[:, None]
+        model_sd = np.asarray(getattr(result, "time_shift_model_sd_ps", np.zeros((0, 0))), float)
+        if model_sd.shape == shift_sd.shape:
+            variance = variance + np.nan_to_num(model_sd, nan=0.0) ** 2
+        changes["time_shift_sd_ps"] = np.sqrt(variance)
     result = replace(result, covariance=covariance, mua_sd_per_mm=mua_sd, musp_sd_per_mm=musp_sd, **changes)
     quality, reason = _verdict(result)
     return replace(result, sd_includes=tuple(parts), fit_quality=quality, fit_quality_reason=reason)

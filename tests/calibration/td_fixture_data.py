@@ -12,7 +12,9 @@ its own (none of the fit's convolution or lookup):
   derivatives from central differences of the neighbouring rings;
 * **the instrument**: an IRF shaped as an exponentially modified Gaussian (a Gaussian of the
   chosen FWHM with a 40 ps exponential tail, common practice, no source), convolved with the
-  curve by a plain sum on the 5-ps grid, delayed by t0, summed into 10-ps bins, scaled to the
+  curve by a plain sum on the 5-ps grid (the midpoint rule at each bin's centre; checked
+  against the continuous convolution, its best delay is t0 to 0.1 ps), delayed by t0, summed
+  into 10-ps bins, scaled to the
   chosen counts at the peak, plus a flat background, and Poisson noise (numpy's generator).
 
 The expected counts λ carry the Monte Carlo run's own standard error (``lam_sd``); tests use
@@ -118,15 +120,21 @@ def instrument_from_response(time_ps, point, point_sd, *, fwhm_ps, shift_ps, pea
     """:func:`instrument_curve` from a response R(t) [per ps] and its SE on the run's bins."""
     fine_step = float(time_ps[1] - time_ps[0])
     fine_t = np.arange(window_ps[0], window_ps[1], fine_step) + fine_step / 2
-    irf_fine = irf_shape(fine_t, fwhm_ps, irf_centre_ps) * fine_step  # probability per fine bin
+    irf_fine = irf_shape(fine_t, fwhm_ps, irf_centre_ps) * fine_step  # probability per fine bin (the IRF file)
+    # the convolution's kernel: the IRF at the bins' starts.  A response bin (centre c) and an
+    # IRF bin (centre c') land at c + c', half a fine bin after the centre of the output bin
+    # they are summed into; sampled at the starts, the sum is the midpoint rule of the
+    # continuous convolution at each output bin's centre (with the IRF at the centres, the
+    # recorded delay was shift_ps − 2.5 ps: the fits' t0 came out 2.5 ps "early")
+    kernel = irf_shape(fine_t - fine_step / 2, fwhm_ps, irf_centre_ps) * fine_step
     k = int(round(shift_ps / fine_step))
     response = np.zeros(fine_t.size)
     response_var = np.zeros(fine_t.size)
     n = min(point.size, fine_t.size - k)
     response[k:k + n] = point[:n] * fine_step  # per fine bin
     response_var[k:k + n] = (point_sd[:n] * fine_step) ** 2
-    lam = np.convolve(response, irf_fine)[:fine_t.size]
-    var = np.convolve(response_var, irf_fine**2)[:fine_t.size]  # bins of the MC run are independent
+    lam = np.convolve(response, kernel)[:fine_t.size]
+    var = np.convolve(response_var, kernel**2)[:fine_t.size]  # bins of the MC run are independent
     per = int(round(DATA_STEP_PS / fine_step))
     usable = (fine_t.size // per) * per
     lam = lam[:usable].reshape(-1, per).sum(axis=1)
