@@ -33,6 +33,7 @@ from typing import Any
 import numpy as np
 
 from phantomlab.calibration.fd_measurements import FrequencyDomainMeasurement
+from phantomlab.calibration.fd_offsets import phase_offset_sds
 from phantomlab.calibration.fit_result import FitResult
 from phantomlab.calibration.fitting import (
     far_worse_than_data_allow,
@@ -68,7 +69,11 @@ class FrequencyDomainFit(FitResult):
     Attributes (besides FitResult's)
     --------------------------------
     phase_offset_deg, phase_offset_sd_deg : ndarray (W, F) or None [degrees]
-        The fitted system phase (None when the sidecar gave it).
+        The fitted system phase (None when the sidecar gave it) and its SD (the data's, through
+        μa and μs′ too; :func:`~phantomlab.calibration.fit_quality.assess_fit` scales it by
+        the misfit and adds ``phase_offset_model_sd_deg``; :mod:`~phantomlab.calibration.fd_offsets`).
+    phase_offset_model_sd_deg : ndarray (W, F) or None [degrees]
+        The part of the offset's SD from the model's own error (the lookup's, diffusion's).
     amplitude_scale_factor : ndarray (W, F) or None
         Fitted scale of a relative amplitude (data = factor · model).
     curves : dict
@@ -78,6 +83,7 @@ class FrequencyDomainFit(FitResult):
 
     phase_offset_deg: np.ndarray | None = None
     phase_offset_sd_deg: np.ndarray | None = None
+    phase_offset_model_sd_deg: np.ndarray | None = None
     amplitude_scale_factor: np.ndarray | None = None
     curves: dict = field(default_factory=dict, compare=False)
 
@@ -297,8 +303,10 @@ def fit_fd(measurement: FrequencyDomainMeasurement, *, model: str = "kienle1997"
                               lookup=model == "mc")
     if not with_sd:  # SDs from the scatter about the model
         covariance = covariance * np.where(np.isfinite(chi2_w), chi2_w, np.inf)[:, None, None]
+    model_in_data = None  # the model's own error in ln amplitude and phase, per wavelength
     if model == "mc" and with_sd:
-        covariance = covariance + _lookup_covariance(jacobian, outcome.x, mask, rho, freq, sd_log, sd_lag, baseline)
+        from_lookup, model_in_data = _lookup_covariance(jacobian, outcome.x, mask, rho, freq, sd_log, sd_lag, baseline)
+        covariance = covariance + from_lookup
     values, cov = log_to_linear(outcome.x, covariance)
     mua, musp = values[:, 0], values[:, 1]
     every = np.arange(W)
@@ -306,15 +314,16 @@ def fit_fd(measurement: FrequencyDomainMeasurement, *, model: str = "kienle1997"
     model_covariance = None
     if model in ("kienle1997", "contini1997") and with_sd:
         # the phase error as a fraction of the fitted phase, system offset included (as set)
-        shape_cov = _diffusion_covariance(jacobian, mask, rho, np.abs(model_lag), sd_log, sd_lag)
+        shape_cov, model_in_data = _diffusion_covariance(jacobian, mask, rho, np.abs(model_lag), sd_log, sd_lag)
         model_covariance = values[:, :, None] * shape_cov * values[:, None, :]
     if model == "mc":
         _check_lookup_reach(baseline, mua, musp, rho, measurement.wavelength_nm)
     sds = np.sqrt(np.diagonal(cov, axis1=1, axis2=2))
-    # the offsets' SDs: of a weighted mean of the phase residuals (their own scatter when no SDs)
-    wl = finite / sd_lag**2
-    offset_sd = np.sqrt(1.0 / np.maximum(np.sum(wl, axis=1), 1e-300)) * (
-        1.0 if with_sd else np.sqrt(np.where(np.isfinite(chi2_w), chi2_w, np.nan))[:, None])
+    offset_sd = offset_model_sd = None
+    if not offset_known:  # their own scatter when no SDs
+        offset_sd, offset_model_sd = phase_offset_sds(
+            forward, outcome.x, jacobian, mask, finite, sd_log, sd_lag, model_in_data,
+            scatter=None if with_sd else np.where(np.isfinite(chi2_w), chi2_w, np.nan))
     total_dof = float(dof[dof > 0].sum())
     chi2_all = float(chi2[dof > 0].sum() / total_dof) if total_dof > 0 else float("nan")
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -337,6 +346,7 @@ def fit_fd(measurement: FrequencyDomainMeasurement, *, model: str = "kienle1997"
         parameters={"amplitude": measurement.amplitude_scale},
         phase_offset_deg=None if offset_known else np.degrees(offset),
         phase_offset_sd_deg=None if offset_known else np.degrees(offset_sd),
+        phase_offset_model_sd_deg=None if offset_known else np.degrees(offset_model_sd),
         curves={"rho_mm": rho, "frequency_mhz": freq, "amplitude": measurement.amplitude / (
                     np.exp(shift)[:, None, :] if relative else 1.0),
                 "phase_deg": phase - (np.degrees(offset)[:, None, :] if not offset_known else 0.0),
@@ -345,8 +355,9 @@ def fit_fd(measurement: FrequencyDomainMeasurement, *, model: str = "kienle1997"
     )
 
 
-def _diffusion_covariance(jac, mask, rho, lag, sd_log, sd_lag) -> np.ndarray:
-    """Covariance of (log μa, log μs′) from diffusion's own error against Monte Carlo, (W, 2, 2).
+def _diffusion_covariance(jac, mask, rho, lag, sd_log, sd_lag) -> tuple[np.ndarray, list]:
+    """Covariance of (log μa, log μs′) from diffusion's own error against Monte Carlo, (W, 2, 2),
+    and per wavelength that error's covariance in ln amplitude and phase [rad], (2RF, 2RF).
 
     An empirical error model (:data:`DIFFUSION_FD_ERROR`): ln amplitude off by σ_A and the
     phase by a fraction σ_φ of itself, fully correlated across the frequencies of a distance
@@ -364,17 +375,19 @@ def _diffusion_covariance(jac, mask, rho, lag, sd_log, sd_lag) -> np.ndarray:
     block = np.kron(corr_rho, np.ones((F, F)))
     corr = np.block([[block, np.zeros_like(block)], [np.zeros_like(block), block]])
     out = np.zeros((W, 2, 2))
+    in_data = []
     for w in range(W):
-        e = np.concatenate([(amp_error / sd_log[w]).ravel(), (phase_error * lag[w] / sd_lag[w]).ravel()])
+        raw = np.nan_to_num(np.concatenate([np.full(lag[w].size, amp_error), (phase_error * lag[w]).ravel()]))
+        in_data.append(raw[:, None] * corr * raw[None, :])
+        e = raw / np.concatenate([np.ravel(sd_log[w]), np.ravel(sd_lag[w])])
         m = mask[w]
-        j = jac[w][m]
-        ee = np.nan_to_num(e[m])
-        out[w] = propagated_error_covariance(j, ee, corr[np.ix_(m, m)])
-    return out
+        out[w] = propagated_error_covariance(jac[w][m], np.nan_to_num(e[m]), corr[np.ix_(m, m)])
+    return out, in_data
 
 
-def _lookup_covariance(jac, x, mask, rho, freq, sd_log, sd_lag, baseline) -> np.ndarray:
-    """Covariance of (log μa, log μs′) from the Monte Carlo lookup's own error, (W, 2, 2).
+def _lookup_covariance(jac, x, mask, rho, freq, sd_log, sd_lag, baseline) -> tuple[np.ndarray, list]:
+    """Covariance of (log μa, log μs′) from the Monte Carlo lookup's own error, (W, 2, 2), and
+    per wavelength that error's covariance in ln amplitude and phase [rad], (2RF, 2RF).
 
     Each distance's transform integrates the lookup over the whole curve: the covariance of
     its error in ln amplitude and phase over every distance and frequency comes from
@@ -389,16 +402,18 @@ def _lookup_covariance(jac, x, mask, rho, freq, sd_log, sd_lag, baseline) -> np.
     lookup = time_resolved_lookup(baseline)
     W = x.shape[0]
     out = np.zeros((W, 2, 2))
+    in_data = []
     for w in range(W):
         mua, mus = math.exp(x[w, 0]), math.exp(x[w, 1]) / (1.0 - lookup.g)
         covariance = lookup.transform_error_covariance(mua_per_mm=mua, mus_per_mm=mus, rho_mm=rho, frequency_mhz=freq)
+        in_data.append(covariance)
         scale = np.concatenate([np.ravel(sd_log[w]), np.ravel(sd_lag[w])])  # the residuals' units
         size = np.sqrt(np.clip(np.diag(covariance), 0.0, None))
         with np.errstate(invalid="ignore", divide="ignore"):
             corr = np.where(np.outer(size, size) > 0, covariance / np.outer(size, size), 0.0)
         m = mask[w]
         out[w] = propagated_error_covariance(jac[w][m], (size / scale)[m], corr[np.ix_(m, m)])
-    return out
+    return out, in_data
 
 
 #: Largest response-weighted relative SD of the lookup over a curve for the fd lookup to

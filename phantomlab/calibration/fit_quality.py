@@ -181,14 +181,17 @@ def assess_fit(result: FitResult, *, sd_parts=("measurement_sd",)) -> FitResult:
     with np.errstate(invalid="ignore"):
         mua_sd = np.sqrt(np.diagonal(covariance, axis1=1, axis2=2)[:, 0])
         musp_sd = np.sqrt(np.diagonal(covariance, axis1=1, axis2=2)[:, 1])
-    shift_sd = np.asarray(getattr(result, "time_shift_sd_ps", np.zeros((0, 0))), float)
-    if shift_sd.ndim == 2 and shift_sd.shape[0] == W and shift_sd.size:
-        # td: the delay t0's SD as μa's and μs′'s (misfit scale, the model's own error)
-        variance = shift_sd**2 * factor[:, None]
-        model_sd = np.asarray(getattr(result, "time_shift_model_sd_ps", np.zeros((0, 0))), float)
-        if model_sd.shape == shift_sd.shape:
-            variance = variance + np.nan_to_num(model_sd, nan=0.0) ** 2
-        changes["time_shift_sd_ps"] = np.sqrt(variance)
+    for name, model_name in (("time_shift_sd_ps", "time_shift_model_sd_ps"),  # td: the delay t0
+                             ("phase_offset_sd_deg", "phase_offset_model_sd_deg")):  # fd: the system phase
+        # a nuisance parameter's SD as μa's and μs′'s: the misfit scale, the model's own error
+        nuisance_sd = getattr(result, name, None)
+        nuisance_sd = np.zeros((0, 0)) if nuisance_sd is None else np.asarray(nuisance_sd, float)
+        if nuisance_sd.ndim == 2 and nuisance_sd.shape[0] == W and nuisance_sd.size:
+            variance = nuisance_sd**2 * factor[:, None]
+            model_sd = getattr(result, model_name, None)
+            if model_sd is not None and np.shape(model_sd) == nuisance_sd.shape:
+                variance = variance + np.nan_to_num(np.asarray(model_sd, float), nan=0.0) ** 2
+            changes[name] = np.sqrt(variance)
     result = replace(result, covariance=covariance, mua_sd_per_mm=mua_sd, musp_sd_per_mm=musp_sd, **changes)
     quality, reason = _verdict(result)
     return replace(result, sd_includes=tuple(parts), fit_quality=quality, fit_quality_reason=reason)

@@ -82,6 +82,14 @@ def test_fd_recovery_on_the_transform_of_direct_runs(run, model, ratio):
         # as measured (μa 2–3 % low, μs′ within +2.2 %)
         assert -0.04 < np.median(mua_err) < 0.0 and abs(np.median(musp_err)) < 0.03
     assert np.all(np.abs(np.median(fit.phase_offset_deg, axis=0) - 17.0) < 1.0)
+    # the system phase's SD (fd_offsets.py), as the page and the command line print it: measured
+    # (8 copies, μs′/μa 30–1000): 92–100 % within 2 SD with the lookup, 100 % with diffusion; the
+    # mean's own SD alone (0.082°) held 42–75 % and 12–54 %
+    from phantomlab.calibration.fit_quality import assess_fit
+
+    assessed = assess_fit(fit)
+    z = (assessed.phase_offset_deg - 17.0) / assessed.phase_offset_sd_deg
+    assert np.mean(np.abs(z) <= 2) >= 0.9, (assessed.phase_offset_deg, assessed.phase_offset_sd_deg)
 
 
 @pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")
@@ -131,3 +139,29 @@ def test_an_fd_lookup_fit_in_a_far_basin_is_started_again():
     # side's, and the fit says so
     assert np.all(fit.musp_sd_per_mm / MUSP > 0.01), fit.musp_sd_per_mm
     assert any("step of the model" in w for w in fit.warnings)
+
+
+@pytest.mark.filterwarnings("ignore::phantomlab.errors.PhantomlabWarning")
+def test_the_phase_offset_sd_matches_the_spread_of_its_fits():
+    """The linear algebra of fd_offsets.py, on data the model describes exactly (kienle1997 data
+    fitted with kienle1997, 0.5 % and 0.2° noise, 64 copies, offset 17°): the offsets' spread is
+    their SD (ratio 0.8–1.25), which the mean's own SD (1/√Σw, without the offset's share of μa
+    and μs′) understates 1.5–3-fold here (100–300 MHz)."""
+    from phantomlab.transport.frequency_domain import amplitude_and_phase
+
+    rng = np.random.default_rng(64)
+    rho = np.array([10.0, 12.0, 14.0, 16.0, 18.0, 20.0])
+    amp, phase = amplitude_and_phase(mua_per_mm=0.012, musp_per_mm=1.2, rho_mm=rho[:, None],
+                                     frequency_mhz=np.array(FREQ)[None, :], n=1.4)
+    rows = ["wavelength_nm,rho_mm,frequency_mhz,amplitude,phase_deg,amplitude_sd,phase_sd_deg"]
+    for copy in range(64):
+        noisy_amp = 2.0 * amp * (1 + 0.005 * rng.standard_normal(amp.shape))
+        noisy_phase = phase + 17.0 + 0.2 * rng.standard_normal(phase.shape)
+        rows += [f"{700 + copy},{r:g},{f:g},{a:.8e},{p:.5f},{0.005 * a:.4e},0.2"
+                 for r, ar, pr in zip(rho, noisy_amp, noisy_phase) for f, a, p in zip(FREQ, ar, pr)]
+    fit = fit_fd(read_fd("\n".join(rows) + "\n", sidecar={"n": 1.4, "amplitude": "relative"}), model="kienle1997")
+    spread = np.std(fit.phase_offset_deg, axis=0, ddof=1)
+    sd = np.median(fit.phase_offset_sd_deg, axis=0)
+    assert np.all((0.8 < spread / sd) & (spread / sd < 1.25)), (spread, sd)
+    mean_only = 0.2 / math.sqrt(rho.size)
+    assert np.all(spread > 1.4 * mean_only), (spread, mean_only)
