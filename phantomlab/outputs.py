@@ -3,7 +3,8 @@
 :func:`write_text_atomically` writes to a temporary file beside the target and renames it
 into place (``os.replace`` is atomic on one file system), so a run killed while writing
 leaves the old file, or none, never a half-written one.  :func:`check_writable_folder`
-refuses an unwritable destination before any work is recorded.
+refuses an unwritable destination before any work is recorded.  :func:`save_npz_atomically`
+does the same for numpy archives (baselines and their tables).
 """
 
 from __future__ import annotations
@@ -12,9 +13,11 @@ import os
 import tempfile
 from pathlib import Path
 
+import numpy as np
+
 from phantomlab.errors import InputError
 
-__all__ = ["check_writable_folder", "write_text_atomically", "write_bytes_atomically"]
+__all__ = ["check_writable_folder", "write_text_atomically", "write_bytes_atomically", "save_npz_atomically"]
 
 
 def check_writable_folder(path, *, what: str) -> Path:
@@ -60,3 +63,23 @@ def write_bytes_atomically(path, data: bytes, *, what: str) -> Path:
 def write_text_atomically(path, text: str, *, what: str) -> Path:
     """:func:`write_bytes_atomically` for UTF-8 text."""
     return write_bytes_atomically(path, text.encode("utf-8"), what=what)
+
+
+def save_npz_atomically(path, *, compressed: bool, **arrays) -> Path:
+    """Write numpy ``arrays`` as an ``.npz`` archive at ``path``, whole or not at all.
+
+    Through a temporary ``.NAME.*.part`` file beside it, renamed into place.  An ``OSError``
+    (folder not writable, disk full) reaches the caller, who decides what it means; nothing
+    half-written is left either way.
+    """
+    destination = Path(path)
+    handle, temporary = tempfile.mkstemp(prefix=f".{destination.name}.", suffix=".part",
+                                         dir=destination.parent if str(destination.parent) else ".")
+    try:
+        with os.fdopen(handle, "wb") as stream:
+            (np.savez_compressed if compressed else np.savez)(stream, **arrays)
+        os.replace(temporary, destination)
+    except BaseException:
+        Path(temporary).unlink(missing_ok=True)
+        raise
+    return destination

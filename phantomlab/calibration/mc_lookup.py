@@ -46,8 +46,6 @@ Gauss–Legendre quadrature of the smooth point values.
 from __future__ import annotations
 
 import json
-import os
-import tempfile
 import warnings
 import zipfile
 from dataclasses import dataclass, field
@@ -58,8 +56,9 @@ from scipy.interpolate import RectBivariateSpline
 
 from phantomlab.calibration.lookup_smoothing import smooth_rows
 from phantomlab.errors import InputError, PhantomlabWarning
+from phantomlab.outputs import save_npz_atomically
 
-__all__ = ["SmoothLookup", "TabulatedBaseline", "LOOKUP_VERSION"]
+__all__ = ["SmoothLookup", "TabulatedBaseline", "BaselineInputs", "LOOKUP_VERSION"]
 
 #: Tag and version of a saved lookup table (a table of another version is made again from
 #: its baseline; raise the version whenever the table's construction changes).
@@ -209,17 +208,8 @@ class SmoothLookup:
                   **{key: getattr(self, key) for key in self._SCALARS},
                   "baseline": {key: (int(getattr(source, key)) if key in ("photons", "detected", "seed")
                                      else float(getattr(source, key))) for key in _SOURCE_KEYS}}
-        destination = Path(path)
-        handle, temporary = tempfile.mkstemp(prefix=f".{destination.name}.", suffix=".part", dir=destination.parent)
-        try:
-            with os.fdopen(handle, "wb") as stream:
-                np.savez_compressed(stream, header_json=np.array(json.dumps(header)),
-                                    **{key: getattr(self, key) for key in self._ARRAYS})
-            os.replace(temporary, destination)
-        except BaseException:
-            Path(temporary).unlink(missing_ok=True)
-            raise
-        return destination
+        return save_npz_atomically(path, compressed=True, header_json=np.array(json.dumps(header)),
+                                   **{key: getattr(self, key) for key in self._ARRAYS})
 
     @classmethod
     def load(cls, path) -> "TabulatedBaseline":
@@ -409,13 +399,9 @@ class SmoothLookup:
 
 
 @dataclass(frozen=True, eq=False)
-class TabulatedBaseline:
-    """What a fit needs of a baseline: the inputs that made it and its :class:`SmoothLookup`.
-
-    Read from a saved table (:meth:`SmoothLookup.load`) without the photons, so a fit with a
-    baseline already tabulated starts in milliseconds.  The fits accept it wherever they
-    accept a :class:`~phantomlab.transport.montecarlo.Baseline`.
-    """
+class BaselineInputs:
+    """The inputs that made a Monte Carlo baseline: g, the indices, μa_ref and μs_ref [1/mm],
+    the photons launched and the seed (what a table kept without the photons still knows)."""
 
     g: float
     n: float
@@ -423,8 +409,19 @@ class TabulatedBaseline:
     mua_per_mm: float
     mus_per_mm: float
     photons: int
-    detected: int
     seed: int
+
+
+@dataclass(frozen=True, eq=False)
+class TabulatedBaseline(BaselineInputs):
+    """What a fit needs of a baseline: the inputs that made it and its :class:`SmoothLookup`.
+
+    Read from a saved table (:meth:`SmoothLookup.load`) without the photons, so a fit with a
+    baseline already tabulated starts in milliseconds.  The fits accept it wherever they
+    accept a :class:`~phantomlab.transport.montecarlo.Baseline`.
+    """
+
+    detected: int
     lookup: SmoothLookup = field(repr=False)
 
     @property

@@ -25,16 +25,16 @@ from __future__ import annotations
 
 import hashlib
 import json
-import os
-import tempfile
 import zipfile
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
 
+from phantomlab.calibration.mc_lookup import BaselineInputs
 from phantomlab.calibration.mc_lookup_time_table import TimeTable, smoothed_time_table
+from phantomlab.outputs import save_npz_atomically
 
 __all__ = ["TimeTabulatedBaseline", "tabulate_time_baseline", "read_time_table", "time_table_path",
            "table_code_key"]
@@ -48,23 +48,15 @@ _INPUT_KEYS = ("g", "n", "n_outside", "mua_per_mm", "mus_per_mm", "photons", "se
 _ARRAYS = ("u_nodes", "s_nodes", "log_f", "inside", "relative_sd", "relative_bias", "counts")
 
 
-@dataclass(frozen=True)
-class TimeTabulatedBaseline:
+@dataclass(frozen=True, eq=False)
+class TimeTabulatedBaseline(BaselineInputs):
     """A time baseline's inputs with its smoothed table, without the photons.
 
     Used by the td and fd fits wherever a :class:`~phantomlab.transport.montecarlo.Baseline`
-    is (they read ``g``, ``n``, ``n_outside`` and the table).  μa, μs in 1/mm; ``photons``
-    launched.
+    is (they read ``g``, ``n``, ``n_outside`` and the table).
     """
 
-    g: float
-    n: float
-    n_outside: float
-    mua_per_mm: float
-    mus_per_mm: float
-    photons: int
-    seed: int
-    time_table: TimeTable
+    time_table: TimeTable = field(repr=False)
 
 
 @lru_cache(maxsize=1)
@@ -115,16 +107,8 @@ def _write(tabulated: TimeTabulatedBaseline, baseline_path: Path) -> None:
               "baseline": {key: getattr(tabulated, key) for key in _INPUT_KEYS},
               "baseline_bytes": baseline_path.stat().st_size,
               "tau_max": float(table.tau_max), "u_max": float(table.u_max)}
-    destination = time_table_path(baseline_path)
-    handle, temporary = tempfile.mkstemp(prefix=f".{destination.name}.", suffix=".part", dir=destination.parent)
-    try:
-        with os.fdopen(handle, "wb") as stream:
-            np.savez(stream, header_json=np.array(json.dumps(header)),
-                     **{key: getattr(table, key) for key in _ARRAYS})
-        os.replace(temporary, destination)
-    except BaseException:
-        Path(temporary).unlink(missing_ok=True)
-        raise
+    save_npz_atomically(time_table_path(baseline_path), compressed=False, header_json=np.array(json.dumps(header)),
+                        **{key: getattr(table, key) for key in _ARRAYS})
 
 
 def read_time_table(baseline_path, inputs: dict) -> TimeTabulatedBaseline | None:

@@ -12,14 +12,13 @@ arrays' dtypes and lengths and every input, and refuses a bad file with one
 from __future__ import annotations
 
 import json
-import os
-import tempfile
 import zipfile
 from pathlib import Path
 
 import numpy as np
 
 from phantomlab.errors import InputError
+from phantomlab.outputs import save_npz_atomically
 from phantomlab.transport.montecarlo.baseline import (
     INPUT_KEYS,
     PHOTON_ARRAYS,
@@ -52,23 +51,10 @@ def save_baseline(baseline: Baseline, path) -> Path:
     -------
     Path
     """
-    destination = Path(path)
     header = {"format": BASELINE_FORMAT, "version": BASELINE_VERSION, **baseline.inputs()}
-    # write beside the destination, then rename: an interrupted save leaves no half file
-    handle, temporary = tempfile.mkstemp(prefix=f".{destination.name}.", suffix=".part",
-                                         dir=destination.parent if str(destination.parent) else ".")
-    try:
-        with os.fdopen(handle, "wb") as stream:
-            np.savez_compressed(
-                stream,
-                inputs_json=np.array(json.dumps(header)),
-                **{name: getattr(baseline, name) for name in PHOTON_ARRAYS},
-            )
-        os.replace(temporary, destination)
-    except BaseException:
-        Path(temporary).unlink(missing_ok=True)
-        raise
-    return destination
+    # written beside the destination, then renamed: an interrupted save leaves no half file
+    return save_npz_atomically(path, compressed=True, inputs_json=np.array(json.dumps(header)),
+                               **{name: getattr(baseline, name) for name in PHOTON_ARRAYS})
 
 
 def _inputs_from_record(source: Path, record) -> dict:
