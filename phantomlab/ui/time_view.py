@@ -44,6 +44,7 @@ def show_td_fit(result, shown_wavelengths) -> None:
             irf_row = irf[w if irf.shape[0] > 1 else 0]
             scale = data.max() / max(irf_row.max(), 1e-300)
             shift = float(np.asarray(result.time_shift_ps)[w, r])
+            shift_sd = float(np.asarray(result.time_shift_sd_ps)[w, r])
             series = [
                 Series("data (counts)", time[live & (data > 0)], data[live & (data > 0)], mode="markers",
                        colour=COLOURS[0]),
@@ -52,7 +53,8 @@ def show_td_fit(result, shown_wavelengths) -> None:
                        scale * irf_row[(irf_time > 0) & (irf_row > 0)], dash="dash", colour=COLOURS[5]),
             ]
             title = (f"{wavelength[w]:g} nm, {'ρ' if curves.get('geometry') == 'reflectance' else 'offset'} "
-                     f"{distance:g} mm: time shift {shift:.1f} ps")
+                     f"{distance:g} mm: time shift {shift:.1f}"
+                     + (f" ± {shift_sd:.2g}" if np.isfinite(shift_sd) else "") + " ps")
             figure = line_figure(series, x_label="time [ps] (log)", y_label="counts per bin (log)", log_y=True,
                                  log_x=True, title=title, height=360)
             if window.any():
