@@ -222,6 +222,8 @@ def test_mc_lookup_sd_covers_the_truth_on_long_reach_data(reach_cases, baseline,
                        model="mc", baseline=baseline)
         z_all.append((fit.mua_per_mm - reach_cases["mua_per_mm"][case]) / fit.mua_sd_per_mm)
         z_all.append((fit.musp_per_mm - 1.0) / fit.musp_sd_per_mm)
+        if relative:  # the printed instrument scale's SD too (measured alone: 0.75 / 0.945 / 1.0)
+            z_all.append((fit.scale_factor - factor) / fit.scale_factor_sd)
     z = np.abs(np.concatenate(z_all))
     assert 0.55 < np.mean(z < 1) < 0.85, np.mean(z < 1)
     assert np.mean(z < 2) > 0.88, np.mean(z < 2)
