@@ -47,6 +47,8 @@ from phantomlab.calibration.mc_lookup_time_table import (
     BANDWIDTH_LOG_TAU_LATE,
     BANDWIDTH_LOG_U,
     BANDWIDTH_LOG_U_FAR,
+    BANDWIDTH_LOG_U_FRONT,
+    front_share,
     smoothed_time_table,
     wide_shares,
 )
@@ -320,11 +322,12 @@ class TimeResolvedLookup:
         return out
 
     def _log_u_bandwidth_at(self, *, mus_per_mm, rho_mm, time_ps) -> np.ndarray:
-        """Width (Gaussian SD in log u) of the smoothing kernel at each point (wider far out, after the peak)."""
+        """Width (Gaussian SD in log u) of the smoothing kernel at each point (the blend of the table's kernels)."""
         _, _, u, tau, _ = self._scaled(np.zeros(np.size(mus_per_mm)), mus_per_mm, rho_mm, time_ps)
         _, lu, ls = self._coordinates(u, tau)
-        far, _ = wide_shares(self.g, lu, ls)
-        return BANDWIDTH_LOG_U + far * (BANDWIDTH_LOG_U_FAR - BANDWIDTH_LOG_U)
+        far, late = wide_shares(self.g, lu, ls)
+        early = (1 - late) * front_share(lu, ls)
+        return (1 - far) * (early * BANDWIDTH_LOG_U_FRONT + (1 - early) * BANDWIDTH_LOG_U) + far * BANDWIDTH_LOG_U_FAR
 
     def transform_error_covariance(self, *, mua_per_mm: float, mus_per_mm: float, rho_mm, frequency_mhz,
                                    times: int = 300) -> np.ndarray:
