@@ -118,40 +118,49 @@ def smooth_near(out, out_sd, row, y_row, positive_row, sd_row, log_u, log_contro
         out_sd[row, j] = float(np.sqrt(np.sum(weights**2 * sd**2)))
 
 
-def local_linear_2d(y, weights, x_step, y_step):
-    """Local-linear regression of ``y`` on a 2-D grid with a separable Gaussian kernel.
-
-    ``weights`` are inverse variances (0 where no data); kernel SDs in grid units
-    (``x_step``, ``y_step``).  Returns the fitted values and the effective inverse variance
-    of each fit (Σw)²/Σw² scaled by the kernel, for its standard error.
-    """
-    rows, cols = y.shape
-    gx = np.arange(rows, dtype=float)[:, None] * np.ones((1, cols))
-    gy = np.ones((rows, 1)) * np.arange(cols, dtype=float)[None, :]
-    yz = np.where(weights > 0, y, 0.0)
-
-    def smooth(a):
-        a = gaussian_filter1d(a, x_step, axis=0, mode="constant", truncate=3.0)
-        return gaussian_filter1d(a, y_step, axis=1, mode="constant", truncate=3.0)
-
+def _centred_moments(weights, gx, gy, smooth):
+    """Σ K w (x_i − x_j)^a (y_i − y_j)^b about each node j for a + b ≤ 2, as a (…, 3, 3) matrix."""
     w = weights
     s = {name: smooth(arr) for name, arr in {
-        "1": w, "x": w * gx, "y": w * gy, "xx": w * gx * gx, "xy": w * gx * gy, "yy": w * gy * gy,
-        "z": w * yz, "xz": w * gx * yz, "yz": w * gy * yz}.items()}
-    # moments about each node: Σ K w (x_i − x_j)^a (y_i − y_j)^b
+        "1": w, "x": w * gx, "y": w * gy, "xx": w * gx * gx, "xy": w * gx * gy, "yy": w * gy * gy}.items()}
     m1 = s["1"]
     mx = s["x"] - gx * m1
     my = s["y"] - gy * m1
     mxx = s["xx"] - 2 * gx * s["x"] + gx * gx * m1
     mxy = s["xy"] - gx * s["y"] - gy * s["x"] + gx * gy * m1
     myy = s["yy"] - 2 * gy * s["y"] + gy * gy * m1
-    mz = s["z"]
-    mxz = s["xz"] - gx * mz
-    myz = s["yz"] - gy * mz
-    matrix = np.stack([np.stack([m1, mx, my], -1), np.stack([mx, mxx, mxy], -1),
-                       np.stack([my, mxy, myy], -1)], -2)
+    return np.stack([np.stack([m1, mx, my], -1), np.stack([mx, mxx, mxy], -1), np.stack([my, mxy, myy], -1)], -2)
+
+
+def local_linear_2d(y, weights, x_step, y_step, *, with_variance=False):
+    """Local-linear regression of ``y`` on a 2-D grid with a separable Gaussian kernel.
+
+    ``weights`` are inverse variances (0 where no data); kernel SDs in grid units
+    (``x_step``, ``y_step``).  Returns the fitted values and Σ K w (the kernel's mass at each
+    node, with the unit-area kernel); with ``with_variance``, also the variance of each fitted
+    value, the sandwich e₁ᵀ M⁻¹ (Σ K² w X Xᵀ) M⁻¹ e₁ of the weighted least-squares fit with
+    M = Σ K w X Xᵀ and X = (1, x − x_j, y − y_j) (Fan & Gijbels 1996, ch. 3): near the edge
+    of the data, where the local line extrapolates, it is several times the local-constant
+    Σ K² w/(Σ K w)² (K² of a Gaussian is the Gaussian of half its variance).
+    """
+    rows, cols = y.shape
+    gx = np.arange(rows, dtype=float)[:, None] * np.ones((1, cols))
+    gy = np.ones((rows, 1)) * np.arange(cols, dtype=float)[None, :]
+    yz = np.where(weights > 0, y, 0.0)
+
+    def smooth(a, scale=1.0):
+        a = gaussian_filter1d(a, x_step * scale, axis=0, mode="constant", truncate=3.0)
+        return gaussian_filter1d(a, y_step * scale, axis=1, mode="constant", truncate=3.0)
+
+    w = weights
+    matrix = _centred_moments(w, gx, gy, smooth)
+    m1 = matrix[..., 0, 0]
+    mz = smooth(w * yz)
+    mxz = smooth(w * gx * yz) - gx * mz
+    myz = smooth(w * gy * yz) - gy * mz
     rhs = np.stack([mz, mxz, myz], -1)
     fitted = np.full(y.shape, np.nan)
+    variance = np.full(y.shape, np.inf)
     ok = m1 > 0
     with np.errstate(invalid="ignore", divide="ignore"):
         det = np.linalg.det(matrix[ok])
@@ -163,7 +172,20 @@ def local_linear_2d(y, weights, x_step, y_step):
         constant = mz[ok] / m1[ok]  # local-constant where the linear fit is singular (edges)
         solved = np.where(good, solved, constant)
     fitted[ok] = solved
-    return fitted, m1
+    if not with_variance:
+        return fitted, m1
+    # the kernel with peak 1 is Z·G (G the unit-area filter, Z = 2π σx σy in cells) and its
+    # square (Z/2)·G of half the variance: Var = e₁ᵀ M_G⁻¹ M_H M_G⁻¹ e₁ / (4π σx σy)
+    half = _centred_moments(w, gx, gy, lambda a: smooth(a, 1.0 / np.sqrt(2.0)))
+    z = 4.0 * np.pi * x_step * y_step
+    with np.errstate(invalid="ignore", divide="ignore"):
+        local_constant = half[ok][:, 0, 0] / (z * m1[ok] ** 2)
+        values = local_constant.copy()
+        if np.any(good):
+            row = np.linalg.solve(np.swapaxes(matrix[ok][good], -1, -2), np.eye(3)[0][None, :, None].repeat(good.sum(), 0))
+            values[good] = np.einsum("ni,nij,nj->n", row[..., 0], half[ok][good], row[..., 0]) / z
+    variance[ok] = np.where(np.isfinite(values) & (values > 0), values, local_constant)
+    return fitted, m1, variance
 
 
 def fill_rows(values: np.ndarray) -> np.ndarray:

@@ -40,7 +40,11 @@ Measured on quarters of a 3-million-photon baseline fitted to independent Monte 
 at μs′/μa = 1000 (20 mm) from 5.6 to 3.9 %.
 
 Beside log F the table keeps, per node, the relative standard error of the smoothed value
-(counting statistics through the kernel weights) and the size of its smoothing bias, the
+(counting statistics through the local-linear fit's own variance, which near the edge of
+the photons, where the local line extrapolates, is several times the local-constant one: on
+quarters of the 10-million-photon baseline the nodes' SDs match the quarters' spread within
+a factor 0.5–1.5 on the whole rise and after it, where the local-constant SD was up to 2.3
+times too small at the front) and the size of its smoothing bias, the
 plug-in ½ h² f'' of a local-linear Gaussian-kernel fit (Fan & Gijbels 1996, *Local Polynomial
 Modelling and Its Applications*, eq. 3.10) with f'' from second differences of the smoothed
 table: a few per cent on the earliest rise, 0.1–0.3 % after the peak.  The fits add both to
@@ -61,7 +65,6 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.ndimage import gaussian_filter1d
 
 from phantomlab.calibration.lookup_smoothing import fill_rows, local_linear_2d
 from phantomlab.errors import PhantomlabWarning
@@ -310,7 +313,7 @@ def _kernel_fit(cells: _Cells, sx, sy, *, twice: bool = False):
 
     for _ in range(_SCORING_STEPS):
         eta, step, weights = scoring()
-        fitted, mass = local_linear_2d(eta + step, weights, sx, sy)
+        fitted, mass, variance = local_linear_2d(eta + step, weights, sx, sy, with_variance=True)
     inflation = 1.0
     if twice:
         _, step, weights = scoring()
@@ -318,14 +321,10 @@ def _kernel_fit(cells: _Cells, sx, sy, *, twice: bool = False):
         fitted = fitted + np.nan_to_num(correction)
         # the twiced kernel 2K − K∗K of Gaussians: ∫(2K − K∗K)² = (11/6)∫K² in any dimension
         inflation = math.sqrt(11.0 / 6.0)
-    # standard error of a node (local-constant approximation of the kernel fit):
-    # Var = Σ K² w / (Σ K w)², K the Gaussian kernel with peak 1; K² is the Gaussian of
-    # half the variance, so with the unit-area filters above Σ K w = Z·f(w) and
-    # Σ K² w = (Z/2)·f_half(w), Z = 2π σ_u σ_s in cells
-    half = gaussian_filter1d(gaussian_filter1d(weights, sx / math.sqrt(2), axis=0, mode="constant"),
-                             sy / math.sqrt(2), axis=1, mode="constant")
-    with np.errstate(divide="ignore", invalid="ignore"):
-        node_sd = inflation * np.sqrt(np.where(mass > 0, half / (4 * math.pi * sx * sy * mass**2), np.inf))
+    # standard error of a node: the local-linear fit's own variance (the sandwich of
+    # lookup_smoothing.local_linear_2d), several times the local-constant Σ K² w/(Σ K w)² at
+    # the edges of the photons (the front) where the local line extrapolates
+    node_sd = inflation * np.sqrt(np.where(mass > 0, variance, np.inf))
     # the kernel's bias, ½ h² f'' per axis (local-linear regression with a Gaussian
     # kernel; Fan & Gijbels 1996, Local Polynomial Modelling, eq. 3.10), with f'' from
     # second differences two cells wide of the fitted values themselves
