@@ -200,8 +200,10 @@ def test_strong_absorption_is_recovered_without_bias_and_covered(baseline):
     within 2 SD (with the reference run's own noise, SD_ref, as in :func:`_check`).  Single
     copies reach μs′ −3 to −4 % here: the copies' own spread is 0.75–1.8 % (the counts'
     information at this albedo), so a per-copy 2 % is out of reach at 10⁶ counts; the SDs
-    cover them, and are wide (9–44 % for μs′: the lookup's noise on the steep rise is kept
-    unaveraged where the IRF is about as wide as the rise, fit_td.py).
+    cover them, and are wide where the IRF is about as wide as the rise (μs′ 21 % at 10 mm and
+    62 % at 11 mm against 4 % at 12 mm: there the lookup's noise is kept unaveraged, fit_td.py,
+    because the fit is far from linear; averaged, two of four independent lookups' fits at
+    IRF 300 ps lay 7–10 SD off).
     """
     run = fixture.half_space_early()
     inside = total = 0
