@@ -139,9 +139,10 @@ def local_linear_2d(y, weights, x_step, y_step, *, with_variance=False):
     (``x_step``, ``y_step``).  Returns the fitted values and Σ K w (the kernel's mass at each
     node, with the unit-area kernel); with ``with_variance``, also the variance of each fitted
     value, the sandwich e₁ᵀ M⁻¹ (Σ K² w X Xᵀ) M⁻¹ e₁ of the weighted least-squares fit with
-    M = Σ K w X Xᵀ and X = (1, x − x_j, y − y_j) (Fan & Gijbels 1996, ch. 3): near the edge
-    of the data, where the local line extrapolates, it is several times the local-constant
-    Σ K² w/(Σ K w)² (K² of a Gaussian is the Gaussian of half its variance).
+    M = Σ K w X Xᵀ and X = (1, x − x_j, y − y_j) (Fan & Gijbels 1996, ch. 3): at the edge
+    of the data, where the local line extrapolates, it is about twice the local-constant
+    Σ K² w/(Σ K w)² (K² of a Gaussian is the Gaussian of half its variance;
+    tests/calibration/test_lookup_smoothing_variance.py).
     """
     rows, cols = y.shape
     gx = np.arange(rows, dtype=float)[:, None] * np.ones((1, cols))

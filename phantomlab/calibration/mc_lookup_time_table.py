@@ -326,8 +326,8 @@ def _kernel_fit(cells: _Cells, sx, sy, *, twice: bool = False):
         # the twiced kernel 2K − K∗K of Gaussians: ∫(2K − K∗K)² = (11/6)∫K² in any dimension
         inflation = math.sqrt(11.0 / 6.0)
     # standard error of a node: the local-linear fit's own variance (the sandwich of
-    # lookup_smoothing.local_linear_2d), several times the local-constant Σ K² w/(Σ K w)² at
-    # the edges of the photons (the front) where the local line extrapolates
+    # lookup_smoothing.local_linear_2d), up to about twice the local-constant Σ K² w/(Σ K w)²
+    # at the edges of the photons (the front) where the local line extrapolates
     node_sd = inflation * np.sqrt(np.where(mass > 0, variance, np.inf))
     # the kernel's bias, ½ h² f'' per axis (local-linear regression with a Gaussian
     # kernel; Fan & Gijbels 1996, Local Polynomial Modelling, eq. 3.10), with f'' from
