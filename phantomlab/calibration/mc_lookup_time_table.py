@@ -19,7 +19,8 @@ the earliest times, and is smoothed by a local-linear kernel regression in (log 
 (Cleveland 1979) with weights from the photon counts, followed by local scoring steps of the
 Poisson likelihood that count the empty cells as well (Tibshirani & Hastie 1987).
 
-**Before the peak** the kernel runs along constant r = log(τ/u) instead: the path's excess
+**On the rise** (up to τ/u = 4, blended into the fit at fixed s by τ/u = 8: :func:`front_share`)
+the kernel runs along constant r = log(τ/u) instead: the path's excess
 over the straight line, the similarity of the early photons, which travel not far from it.
 There the ratio to diffusion changes fast along constant s (diffusion's light arrives too
 early, and by how much depends on u at fixed s) and slowly along constant r.  The photons are
@@ -30,9 +31,10 @@ Measured against the gated direct run of tests/calibration/fixtures/mc_td_half_s
 kernel at fixed s (0.12 × 0.06) left the rise 3–9 % low at 10–12 mm (the run's own SE 0.4–1.6 %)
 and the fitted μs′ −3.2 % (10 mm), −3.7 % (12 mm) and −12 % (15 mm); along r, with the scoring
 steps and twicing, the rise is within 1 % at 10 mm and 1.3–5.5 % low at 12 mm (SE 0.6–3.3 %) and
-μs′ comes out −1.8 %, −0.5 % and −5.8 % (at 15 mm the run's own noise spreads μs′ by 2.4 %).
+μs′ comes out −1.9 %, −0.2 % and −5.7 % (at 15 mm the run’s own noise spreads μs′ by 2.4 %;
+at 14 mm, where it spreads μs′ by 0.9 %, −6.3 %: the photons thin out at the front there).
 
-**After the peak** the kernel is 0.12 wide in log u and 0.06 in s, and wider where the ratio is
+**After it** the kernel is 0.12 wide in log u and 0.06 in s, and wider where the ratio is
 smooth: 0.3 in log u beyond 10 transport lengths once the curve has peaked (0.12 nearer than
 3, blended between), and 0.2 in s from six times the peak time on (0.06 before twice it).
 Measured on quarters of a 3-million-photon baseline fitted to independent Monte Carlo data
