@@ -85,7 +85,7 @@ class TimeResolvedLookup:
 
     Notes
     -----
-    Built once per baseline (see :func:`time_resolved_lookup`); about 0.5 s for two million
+    Built once per baseline (see :func:`time_resolved_lookup`); 3–4 s for two million
     stored photons.
     """
 

@@ -3,7 +3,7 @@
 The time- and frequency-domain lookups (:mod:`phantomlab.calibration.mc_lookup_time`) read a
 smoothed table F(u, τ) made from every stored photon of a baseline
 (:func:`~phantomlab.calibration.mc_lookup_time_table.smoothed_time_table`).  For the cache's
-ten-million-photon baseline, reading the photons and making the table takes 8–12 s, in every
+ten-million-photon baseline, reading the photons and making the table takes 9–14 s, in every
 process.  The table itself is about 2 MB; this module writes it beside the baseline as
 ``NAME-time.lookup.npz`` and reads it back, so a later fit needs neither the photons nor the
 smoothing.
