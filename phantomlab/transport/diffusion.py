@@ -340,7 +340,8 @@ SRDR_MODELS: dict[str, Callable] = {
     "kienle1997": srdr_diffusion_Kienle1997,
 }
 
-#: The arithmetic of each model once its inputs are checked (name → function of medium, grid).
+#: The arithmetic of each model once its inputs are checked (name → function of medium, grid),
+#: for :func:`srdr_model`; a model missing here is evaluated there through :data:`SRDR_MODELS`.
 _SRDR_VALUES: dict[str, Callable] = {
     "farrell1992": _flux_reflectance,
     "kienle1997": _fluence_flux_reflectance,
@@ -419,9 +420,10 @@ def srdr_model(*, rho_mm, n, n_outside=1.0, model="kienle1997", boundary=None) -
     method = DEFAULT_BOUNDARY[model] if boundary is None else boundary
     rho = as_length_grid(rho_mm, "rho_mm")
     n_value, outside_value = as_index(n, "n"), as_index(n_outside, "n_outside")
+    values = _SRDR_VALUES.get(model)
     single = (n_value.ndim == 0 and outside_value.ndim == 0 and bool(np.isfinite(n_value))
               and bool(np.isfinite(outside_value)) and n_value >= outside_value)
-    if not single:  # the general route, checks and all, on every call
+    if not single or values is None:  # the general route, checks and all, on every call
         def reflectance(mua_per_mm, musp_per_mm):
             return function(mua_per_mm=mua_per_mm, musp_per_mm=musp_per_mm, rho_mm=rho, n=n_value,
                             n_outside=outside_value, boundary=method)
@@ -430,7 +432,6 @@ def srdr_model(*, rho_mm, n, n_outside=1.0, model="kienle1997", boundary=None) -
     # n, n_outside, A, C1, C2, T: spread to each call's shape in one block
     constants = np.array([float(n_value), float(outside_value),
                           *_surface_of_pair(float(n_value), float(outside_value), method)])
-    values = _SRDR_VALUES[model]
 
     def reflectance(mua_per_mm, musp_per_mm):
         mua, musp = np.broadcast_arrays(np.asarray(mua_per_mm, dtype=float), np.asarray(musp_per_mm, dtype=float))
