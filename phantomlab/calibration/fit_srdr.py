@@ -196,11 +196,13 @@ def srdr_forward(*, model: str, rho_mm, n: float, n_outside: float = 1.0, baseli
         return forward
     if model not in SRDR_FIT_MODELS:
         raise InputError(f"unknown srdr fit model {model!r}; accepted: {', '.join(SRDR_FIT_MODELS)}")
-    from phantomlab.transport.diffusion import srdr_reflectance
+    from phantomlab.transport.diffusion import srdr_model
+
+    # the grid, the indices and the surface checked and computed once, not on every call of the fit
+    reflectance = srdr_model(rho_mm=rho, n=n, n_outside=n_outside, model=model)
 
     def forward(mua, musp):
-        return srdr_reflectance(mua_per_mm=np.asarray(mua, float), musp_per_mm=np.asarray(musp, float),
-                                rho_mm=rho, n=n, n_outside=n_outside, model=model)
+        return reflectance(np.asarray(mua, float), np.asarray(musp, float))
 
     return forward
 

@@ -16,7 +16,11 @@ So:
 
 from __future__ import annotations
 
+import hashlib
+import pickle
+import threading
 import warnings
+from collections import OrderedDict
 from dataclasses import dataclass, replace
 from pathlib import Path
 
@@ -129,15 +133,52 @@ def first_nodes(measurement, *, n=None, n_outside=None, thickness_mm=None) -> li
     if widest > MAX_RHO_OVER_D * d:
         raise SlabModelOutOfRange(f"a lateral offset of {widest:g} mm is beyond its {MAX_RHO_OVER_D:g} of the "
                                   f"thickness ({MAX_RHO_OVER_D * d:.3g} mm here)")
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", PhantomlabWarning)  # the final fit warns for itself
-        first = fit_td(measurement, model="contini1997", n=n, n_outside=n_outside, thickness_mm=thickness_mm)
-    tau = first.musp_per_mm * d
+    tau = _diffusion_tau_prime(measurement, n=n, n_outside=n_outside, thickness_mm=thickness_mm)
     if np.any(tau < TAU_PRIME_RANGE[0]) or np.any(tau > TAU_PRIME_RANGE[1] / UPWARD):
         raise SlabModelOutOfRange(f"the slab is {float(np.min(tau)):.3g}–{float(np.max(tau)):.3g} transport lengths "
                                   f"thick by diffusion, and its runs cover {TAU_PRIME_RANGE[0]:g}–"
                                   f"{TAU_PRIME_RANGE[1] / UPWARD:.3g}")
     return node_grid(float(np.min(tau)), float(np.max(tau)) * UPWARD)
+
+
+#: The diffusion fits' τ′ of the last few measurements, by the digest of what was fitted
+#: (:func:`_diffusion_tau_prime`).
+_TAU_PRIME_MEMO: OrderedDict[str, np.ndarray] = OrderedDict()
+_TAU_PRIME_MEMO_SIZE = 8
+_TAU_PRIME_LOCK = threading.Lock()  # the page's sessions run in threads
+
+
+def _diffusion_tau_prime(measurement, *, n, n_outside, thickness_mm) -> np.ndarray:
+    """τ′ = μs′ d per wavelength from the contini1997 fit, fitted once per measurement.
+
+    The page asks for the first nodes before the fit to run the missing ones with a progress
+    bar, then the fit asks again (and the page again on every rerun): the same fit of the same
+    data, 0.1–0.3 s each.  The answer is kept under a SHA-256 of the whole measurement
+    (pickled: every array and metadata field) with the options, so only identical inputs share
+    it; a measurement that cannot be pickled is fitted every time.
+    """
+    try:
+        digest = hashlib.sha256(pickle.dumps((measurement, n, n_outside, thickness_mm),
+                                             protocol=pickle.HIGHEST_PROTOCOL)).hexdigest()
+    except (pickle.PicklingError, TypeError, AttributeError):
+        digest = None
+    if digest is not None:
+        with _TAU_PRIME_LOCK:
+            kept = _TAU_PRIME_MEMO.get(digest)
+            if kept is not None:
+                _TAU_PRIME_MEMO.move_to_end(digest)
+                return kept.copy()
+    d = float(measurement.thickness_mm if thickness_mm is None else thickness_mm)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PhantomlabWarning)  # the final fit warns for itself
+        first = fit_td(measurement, model="contini1997", n=n, n_outside=n_outside, thickness_mm=thickness_mm)
+    tau = first.musp_per_mm * d
+    if digest is not None:
+        with _TAU_PRIME_LOCK:
+            _TAU_PRIME_MEMO[digest] = tau.copy()
+            while len(_TAU_PRIME_MEMO) > _TAU_PRIME_MEMO_SIZE:
+                _TAU_PRIME_MEMO.popitem(last=False)
+    return tau
 
 
 def _reach_messages(fit, correction, measurement, d) -> list[str]:

@@ -437,6 +437,7 @@ def _batched_levenberg_marquardt(row_fn, x, lo, hi, *, max_iterations=60, tolera
     active = np.ones(W, bool)
     last_drop = np.full(W, np.inf)
     nfev = 1
+    identity = np.eye(P)[None]  # the damping's diagonal, built once
     for _ in range(max_iterations):
         rows = np.flatnonzero(active)
         if rows.size == 0:
@@ -453,18 +454,21 @@ def _batched_levenberg_marquardt(row_fn, x, lo, hi, *, max_iterations=60, tolera
         pending = np.ones(rows.size, bool)  # rows still looking for an accepted step
         for _inner in range(8):
             sub = rows[pending]
-            damped = normal[pending] + (lam[sub][:, None] * diag[pending])[:, :, None] * np.eye(P)[None]
+            damped = normal[pending] + (lam[sub][:, None] * diag[pending])[:, :, None] * identity
             try:
                 step = -np.linalg.solve(damped, grad[pending][..., None])[..., 0]
             except np.linalg.LinAlgError:
                 step = -np.einsum("wpq,wq->wp", np.linalg.pinv(damped), grad[pending])
-            trial = np.clip(x[sub] + np.nan_to_num(step), lo[sub], hi[sub])
+            # nan_to_num costs more than the rest of the step: only where a step is not finite;
+            # the array methods below (.clip, .sum, .max, .any) are numpy's functions without
+            # their dispatch, which cost more than the arithmetic on these small blocks
+            trial = (x[sub] + (step if np.isfinite(step).all() else np.nan_to_num(step))).clip(lo[sub], hi[sub])
             r_trial = row_fn(trial, sub)
             nfev += 1
-            cost_trial = np.sum(r_trial**2, axis=1)
+            cost_trial = (r_trial**2).sum(axis=1)
             better = np.isfinite(cost_trial) & (cost_trial <= cost[sub])
             change = np.abs(cost[sub] - cost_trial) / np.maximum(cost[sub], 1e-300)
-            moved = np.max(np.abs(trial - x[sub]), axis=1)
+            moved = np.abs(trial - x[sub]).max(axis=1)
             # converged: an accepted step that changes little, or a refused one whose cost differs
             # from the current by less than the tolerance (no decrease left to find)
             done = (change < tolerance) & ((better & (moved < step_tolerance)) | ~better)
@@ -481,7 +485,7 @@ def _batched_levenberg_marquardt(row_fn, x, lo, hi, *, max_iterations=60, tolera
             still = pending.copy()
             still[pending] = ~better & (lam[sub] <= 1e10)
             pending = still
-            if not np.any(pending):
+            if not pending.any():
                 break
     unit = np.maximum(1.0, cost / max(r.shape[1], 1))
     return x, r, nfev, ~(active & (last_drop > _SETTLED_CHI2 * unit))

@@ -17,13 +17,17 @@ import sys
 import threading
 import time
 
-__all__ = ["add_baseline_options", "ProgressBar"]
+__all__ = ["add_baseline_options", "ProgressBar", "BASELINE_DIR_ENV"]
+
+#: The environment variable naming the baseline cache folder, for the options' help.  The same
+#: name as :data:`phantomlab.calibration.baseline_cache.BASELINE_DIR_ENV` (a test holds them
+#: equal), written here so that registering the options does not load the Monte Carlo engine
+#: that module imports (numba, about 0.3 s of every ``phantomlab --help``).
+BASELINE_DIR_ENV = "PHANTOMLAB_BASELINE_DIR"
 
 
 def add_baseline_options(parser) -> None:
     """``--rebuild`` and ``--baseline-dir`` (the cache folder; the environment variable otherwise)."""
-    from phantomlab.calibration.baseline_cache import BASELINE_DIR_ENV
-
     parser.add_argument("--rebuild", action="store_true",
                         help="build the cached Monte Carlo baseline again, replacing one that is refused "
                         "(damaged, another version, other indices)")

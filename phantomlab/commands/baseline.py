@@ -30,7 +30,7 @@ import argparse
 from pathlib import Path
 
 from phantomlab.cli import CommandResult, add_json_option
-from phantomlab.commands._baseline_options import ProgressBar
+from phantomlab.commands._baseline_options import BASELINE_DIR_ENV, ProgressBar
 from phantomlab.errors import InputError
 
 __all__ = ["register"]
@@ -92,8 +92,6 @@ def register(subparsers) -> None:
 
 
 def add_baseline_options_folder(parser) -> None:
-    from phantomlab.calibration.baseline_cache import BASELINE_DIR_ENV
-
     parser.add_argument("--baseline-dir", default=None, metavar="FOLDER",
                         help=f"the cache folder (default: ${BASELINE_DIR_ENV}, else the user cache folder)")
 

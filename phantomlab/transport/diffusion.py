@@ -69,6 +69,7 @@ __all__ = [
     "SRDR_MODELS",
     "DEFAULT_BOUNDARY",
     "srdr_reflectance",
+    "srdr_model",
     "srdr_diffusion_Farrell1992",
     "srdr_diffusion_Kienle1997",
     "total_diffuse_reflectance",
@@ -140,8 +141,13 @@ def _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary: str) -> _Medium:
     mua, musp, n, n_outside = as_spectral(
         mua_per_mm=mua, musp_per_mm=musp, n=n, n_outside=n_outside
     )
-    a_coef, c1, c2, entry = _surface(n, n_outside, boundary)
-    warn_scattering_dominance(mua, musp)
+    return _derived(mua, musp, n, n_outside, _surface(n, n_outside, boundary), stacklevel=5)
+
+
+def _derived(mua, musp, n, n_outside, surface, *, stacklevel: int) -> _Medium:
+    """The medium's diffusion quantities from checked arrays of one shape and its surface (A, C1, C2, T)."""
+    a_coef, c1, c2, entry = surface
+    warn_scattering_dominance(mua, musp, stacklevel=stacklevel)
     mutp = mua + musp
     d = 1.0 / (3.0 * mutp)
     return _Medium(
@@ -161,7 +167,7 @@ def _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary: str) -> _Medium:
     )
 
 
-def _warn_close_to_source(rho: np.ndarray, medium: _Medium) -> None:
+def _warn_close_to_source(rho: np.ndarray, medium: _Medium, *, stacklevel: int = 4) -> None:
     mfp = medium.z0[np.isfinite(medium.z0)]
     near = rho[np.isfinite(rho)]
     if mfp.size and near.size and near.min() < mfp.max():
@@ -169,7 +175,7 @@ def _warn_close_to_source(rho: np.ndarray, medium: _Medium) -> None:
             f"diffusion R(rho) is poor within one transport mean free path of the source:"
             f" rho_mm = {near.min():.3g} < 1/(mua+musp) = {mfp.max():.3g} mm",
             PhantomlabWarning,
-            stacklevel=4,
+            stacklevel=stacklevel,
         )
 
 
@@ -255,10 +261,7 @@ def srdr_diffusion_Farrell1992(
     medium = _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary)
     rho = as_length_grid(rho_mm, "rho_mm")
     _warn_close_to_source(rho, medium)
-    _, flux = _dipole_terms(medium, rho)
-    spread, _ = _expand(medium, rho)
-    value = spread(medium.entry) * flux
-    return value[()] if value.ndim == 0 else value
+    return _flux_reflectance(medium, rho)
 
 
 def srdr_diffusion_Kienle1997(
@@ -312,6 +315,19 @@ def srdr_diffusion_Kienle1997(
     medium = _medium(mua_per_mm, musp_per_mm, n, n_outside, boundary)
     rho = as_length_grid(rho_mm, "rho_mm")
     _warn_close_to_source(rho, medium)
+    return _fluence_flux_reflectance(medium, rho)
+
+
+def _flux_reflectance(medium: _Medium, rho: np.ndarray):
+    """T j(ρ, 0): Farrell et al.'s R(ρ) per unit incident power (shape S + G)."""
+    _, flux = _dipole_terms(medium, rho)
+    spread, _ = _expand(medium, rho)
+    value = spread(medium.entry) * flux
+    return value[()] if value.ndim == 0 else value
+
+
+def _fluence_flux_reflectance(medium: _Medium, rho: np.ndarray):
+    """T [C1 Φ(ρ, 0) + C2 j(ρ, 0)]: Kienle & Patterson's R(ρ) per unit incident power (shape S + G)."""
     fluence, flux = _dipole_terms(medium, rho)
     spread, _ = _expand(medium, rho)
     value = spread(medium.entry) * (spread(medium.c1) * fluence + spread(medium.c2) * flux)
@@ -322,6 +338,13 @@ def srdr_diffusion_Kienle1997(
 SRDR_MODELS: dict[str, Callable] = {
     "farrell1992": srdr_diffusion_Farrell1992,
     "kienle1997": srdr_diffusion_Kienle1997,
+}
+
+#: The arithmetic of each model once its inputs are checked (name → function of medium, grid),
+#: for :func:`srdr_model`; a model missing here is evaluated there through :data:`SRDR_MODELS`.
+_SRDR_VALUES: dict[str, Callable] = {
+    "farrell1992": _flux_reflectance,
+    "kienle1997": _fluence_flux_reflectance,
 }
 
 
@@ -364,6 +387,61 @@ def srdr_reflectance(
         n_outside=n_outside,
         boundary=method,
     )
+
+
+def srdr_model(*, rho_mm, n, n_outside=1.0, model="kienle1997", boundary=None) -> Callable:
+    """:func:`srdr_reflectance` on one grid and one surface, as ``R(mua_per_mm, musp_per_mm)``.
+
+    For a fit, which evaluates the model hundreds of times with only μa and μs′ changing:
+    the model name, the grid ``rho_mm``, the indices and the boundary method are checked
+    once here and the surface's A, C1, C2 and T computed once; each call then broadcasts μa
+    and μs′ and runs the same arithmetic as :func:`srdr_reflectance` (the same numbers to the
+    last bit, the same warnings).  μa and μs′ are *not* checked on each call: the caller
+    hands over μa >= 0 and μs′ > 0 (a fit's exponentials of its bounded parameters; NaN
+    gives NaN as in :func:`srdr_reflectance`).  Indices per wavelength (arrays), a NaN index
+    or a medium less dense than its surroundings take :func:`srdr_reflectance` on every call.
+
+    Parameters
+    ----------
+    rho_mm : float or array (G) [mm]
+        Source–detector distances (>= 0).
+    n, n_outside : float [dimensionless]
+        Refractive index of the medium and of what is outside.
+    model, boundary
+        As :func:`srdr_reflectance`.
+
+    Returns
+    -------
+    callable
+        ``R(mua_per_mm, musp_per_mm)`` with μa, μs′ [1/mm] of one broadcast shape S, giving
+        R(ρ) [1/mm²] of shape S + G per unit incident power.
+    """
+    function = choose(SRDR_MODELS, model, "srdr model")
+    method = DEFAULT_BOUNDARY[model] if boundary is None else boundary
+    rho = as_length_grid(rho_mm, "rho_mm")
+    n_value, outside_value = as_index(n, "n"), as_index(n_outside, "n_outside")
+    values = _SRDR_VALUES.get(model)
+    single = (n_value.ndim == 0 and outside_value.ndim == 0 and bool(np.isfinite(n_value))
+              and bool(np.isfinite(outside_value)) and n_value >= outside_value)
+    if not single or values is None:  # the general route, checks and all, on every call
+        def reflectance(mua_per_mm, musp_per_mm):
+            return function(mua_per_mm=mua_per_mm, musp_per_mm=musp_per_mm, rho_mm=rho, n=n_value,
+                            n_outside=outside_value, boundary=method)
+
+        return reflectance
+    # n, n_outside, A, C1, C2, T: spread to each call's shape in one block
+    constants = np.array([float(n_value), float(outside_value),
+                          *_surface_of_pair(float(n_value), float(outside_value), method)])
+
+    def reflectance(mua_per_mm, musp_per_mm):
+        mua, musp = np.broadcast_arrays(np.asarray(mua_per_mm, dtype=float), np.asarray(musp_per_mm, dtype=float))
+        block = np.empty(constants.shape + mua.shape)
+        block[...] = constants.reshape(constants.shape + (1,) * mua.ndim)
+        medium = _derived(mua, musp, block[0], block[1], tuple(block[2:]), stacklevel=4)
+        _warn_close_to_source(rho, medium, stacklevel=3)
+        return values(medium, rho)
+
+    return reflectance
 
 
 def total_diffuse_reflectance(

@@ -21,6 +21,8 @@ __all__ = ["MIN_MUSP_TO_MUA_RATIO", "warn_scattering_dominance"]
 #: Below this μs′/μa the diffusion approximation is flagged as poor.
 #: common practice, no source (diffusion texts ask for μs′ ≫ μa; a factor 10 is the usual line)
 MIN_MUSP_TO_MUA_RATIO = 10.0
+#: The line widened by one part in a million, for the quick test of :func:`warn_scattering_dominance`.
+_HAIR_WIDER = MIN_MUSP_TO_MUA_RATIO * (1.0 + 1e-6)
 
 
 def warn_scattering_dominance(mua: np.ndarray, musp: np.ndarray, *, stacklevel: int = 4) -> None:
@@ -35,6 +37,11 @@ def warn_scattering_dominance(mua: np.ndarray, musp: np.ndarray, *, stacklevel: 
         As :func:`warnings.warn`, counted from this function: the caller's frame the warning
         names.
     """
+    # A cheap test first (a fit calls this on every evaluation): no μs′ within a hair of the
+    # line means no warning; anywhere near it, the ratio below decides as always.  Rounding
+    # is monotone, so a ratio rounded below the line has μs′ <= its hair-wider product.
+    if not (np.asarray(musp) <= _HAIR_WIDER * np.asarray(mua)).any():
+        return
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = np.where(mua > 0, musp / mua, np.inf)
     finite = ratio[np.isfinite(ratio)]

@@ -329,7 +329,10 @@ def _fit_section(workspace: Workspace, store) -> None:
         from phantomlab.ui.baseline_build import page_slab_nodes
 
         options["g"] = float(sidecar.get("g", DEFAULT_G))
-        if not page_slab_nodes(measurement=read.value, g=options["g"], key="refit.slab"):
+        # read as the fit reads it (g among the options): the slab runs' first nodes come from
+        # the contini1997 fit of this measurement, which the fit then finds already made
+        read = call_layer("Reading the measurement", _read, text, kind, sidecar, options, show=False)
+        if read.ok and not page_slab_nodes(measurement=read.value, g=options["g"], key="refit.slab"):
             return
         model = None  # the default fit reads the cached runs (or falls back to diffusion, said)
     elif model == "mc" and kind in ("td", "fd") and not lookup_applies:

@@ -24,9 +24,11 @@ from phantomlab.errors import InputError, PhantomlabWarning
 from phantomlab.transport.boundary import boundary_coefficient
 from phantomlab.transport.diffusion import (
     SRDR_MODELS,
+    srdr_model,
     srdr_reflectance,
     total_diffuse_reflectance,
 )
+from phantomlab.transport.diffusion_validity import MIN_MUSP_TO_MUA_RATIO, warn_scattering_dominance
 
 MODELS = sorted(SRDR_MODELS)
 BOUNDARIES = ["groenhuis1983", "haskell1994"]
@@ -174,6 +176,61 @@ def test_warns_close_to_source():
 def test_warns_when_scattering_does_not_dominate():
     with pytest.warns(PhantomlabWarning, match=r"musp/mua = 2 here, wanted >= 10"):
         total_diffuse_reflectance(mua_per_mm=0.5, musp_per_mm=1.0, n=1.4)
+
+
+def _caught(function, *args, **kwargs):
+    import warnings
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", PhantomlabWarning)
+        value = function(*args, **kwargs)
+    return value, [str(w.message) for w in caught]
+
+
+@pytest.mark.parametrize("model", MODELS)
+@pytest.mark.parametrize("n, n_outside", [(1.4, 1.0), (1.33, 1.0), (1.0, 1.0), (1.0, 1.33), (np.nan, 1.0)])
+def test_prepared_model_is_srdr_reflectance_to_the_last_bit(model, n, n_outside):
+    # what a fit evaluates (the grid and surface checked once) against the checked function
+    # above, on values that cross both warnings and a NaN row
+    rng = np.random.default_rng(3)
+    rho = np.array([0.2, 1.0, 3.0, 8.0, 15.0])
+    mua = np.concatenate([rng.uniform(0.001, 0.3, 40), [np.nan, 0.0, 0.5]])
+    musp = np.concatenate([rng.uniform(0.3, 3.0, 40), [1.0, 1.0, 1.0]])
+    prepared = srdr_model(rho_mm=rho, n=n, n_outside=n_outside, model=model)
+    for a, s in ((mua, musp), (mua[:5], musp[:5]), (mua[:1], musp[:1]), (mua[7], musp[7]), (mua[:3], 1.2)):
+        got, got_warnings = _caught(prepared, a, s)
+        want, want_warnings = _caught(srdr_reflectance, mua_per_mm=a, musp_per_mm=s, rho_mm=rho, n=n,
+                                      n_outside=n_outside, model=model)
+        np.testing.assert_array_equal(got, want)  # NaN where NaN, every other bit equal
+        assert got_warnings == want_warnings
+
+
+def test_prepared_model_refuses_bad_settings_at_once():
+    with pytest.raises(InputError, match=r"rho_mm must be finite and >= 0"):
+        srdr_model(rho_mm=[-1.0, 2.0], n=1.4)
+    with pytest.raises(InputError, match=r"n \(refractive index\) must be >= 1"):
+        srdr_model(rho_mm=[1.0, 2.0], n=0.8)
+    with pytest.raises(InputError, match=r"unknown srdr model 'dipole'"):
+        srdr_model(rho_mm=[1.0, 2.0], n=1.4, model="dipole")
+    with pytest.raises(InputError, match=r"unknown boundary method 'x'"):
+        srdr_model(rho_mm=[1.0, 2.0], n=1.4, boundary="x")
+
+
+def test_scattering_dominance_warns_exactly_below_the_line():
+    # its quick test lets through every case the ratio itself decides (one ulp either side
+    # of musp/mua = 10, zero and NaN absorption, infinite absorption)
+    line = MIN_MUSP_TO_MUA_RATIO
+    mua = 0.01
+    below, at = np.nextafter(line * mua, 0.0), line * mua
+    assert below / mua < line <= at / mua  # the ratio as the function forms it
+    cases = [(below, True), (at, False), (np.array([1.0, below]), True), (np.array([1.0, at]), False)]
+    for musp, warns in cases:
+        _, messages = _caught(warn_scattering_dominance, np.full(np.shape(musp), mua), np.asarray(musp))
+        assert bool(messages) is warns, (musp, messages)
+    for mua_value, musp_value, warns in ((0.0, 0.5, False), (np.nan, 0.5, False), (np.inf, 1.0, True),
+                                         (0.1, np.nan, False), (0.1, np.inf, False)):
+        _, messages = _caught(warn_scattering_dominance, np.array([mua_value]), np.array([musp_value]))
+        assert bool(messages) is warns, (mua_value, musp_value)
 
 
 @pytest.mark.parametrize(
