@@ -14,8 +14,7 @@ once: it shares its name with its sub-module, which would otherwise shadow it on
 
 from __future__ import annotations
 
-import importlib
-
+from phantomlab.lazy_names import lazy_names
 from phantomlab.materials.refractive_index import refractive_index
 
 #: Public name -> the sub-module that defines it.
@@ -109,17 +108,4 @@ __all__ = [
 ]
 
 
-def __getattr__(name: str):
-    """Load a public name from its sub-module on first use (then it is a plain attribute)."""
-    source = _SOURCES.get(name)
-    if source is None:
-        # AttributeError, so that ``from phantomlab.materials import some_module`` goes on
-        # to import the sub-module.
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-    value = getattr(importlib.import_module(f"{__name__}.{source}"), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__() -> list[str]:
-    return sorted(set(globals()) | set(__all__))
+__getattr__, __dir__ = lazy_names(__name__, _SOURCES, globals())
