@@ -101,21 +101,24 @@ def _no_action(args: argparse.Namespace):
 
 
 def _list(args: argparse.Namespace) -> CommandResult:
-    from phantomlab.calibration.baseline_cache import baseline_folder, list_cached
+    from phantomlab.calibration.baseline_cache import baseline_folder, list_cached, table_path
 
     from phantomlab.calibration.slab_time_nodes import list_nodes
 
     folder = baseline_folder(args.baseline_dir)
     rows = list_cached(folder)
     slabs = list_nodes(folder)
-    total = round(sum(r["megabytes"] for r in rows + slabs), 3)
+    # the lookup tables kept beside the baselines are on disk too (a td/fd table 1.6 MB)
+    tables = {r["file"]: table_path(Path(r["file"])).stat().st_size / 1e6 for r in rows if r["lookup_table"]}
+    total = round(sum(r["megabytes"] for r in rows + slabs) + sum(tables.values()), 3)
     lines = [f"cached Monte Carlo baselines in {folder}: {len(rows)}"
              + (f", and {len(slabs)} slab runs" if slabs else "") + f" ({total:.1f} MB)"]
     for r in rows:
         made = (f"g {r['g']:g}, n {r['n']:g} / {r['n_outside']:g}, {r['photons']:,} photons"
                 if r["g"] is not None else "inputs unreadable")
         state = "usable" if r["usable"] is True else f"refused: {r['usable']}"
-        lines.append(f"  {Path(r['file']).name}  {made}, {r['megabytes']:.1f} MB, {r['modified']}  ({state})")
+        kept = f", its lookup table beside it ({tables[r['file']]:.1f} MB)" if r["file"] in tables else ""
+        lines.append(f"  {Path(r['file']).name}  {made}, {r['megabytes']:.1f} MB{kept}, {r['modified']}  ({state})")
     if not rows:
         lines.append("  none yet: the first default srdr/sfdi fit builds the one it needs")
     if slabs:

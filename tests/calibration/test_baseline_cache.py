@@ -142,8 +142,13 @@ def test_the_command_line_builds_with_a_progress_bar_lists_and_clears(small_buil
     assert main(["baseline", "list", "--json"]) == 0
     listed = json.loads(capsys.readouterr().out)
     assert [b["file"] for b in listed["baselines"]] == [payload["baseline"]]
+    # the total counts the lookup table kept beside the baseline, and the text says it is there
+    table_mb = baseline_cache.table_path(baseline_cache.Path(payload["baseline"])).stat().st_size / 1e6
+    assert listed["baselines"][0]["lookup_table"] is True
+    assert listed["megabytes"] == pytest.approx(listed["baselines"][0]["megabytes"] + table_mb, abs=2e-3)
     assert main(["baseline", "list"]) == 0
-    assert "baseline-g0.80-n1.400-out1.000.npz" in capsys.readouterr().out
+    text = capsys.readouterr().out
+    assert "baseline-g0.80-n1.400-out1.000.npz" in text and "its lookup table beside it" in text
     # a damaged cache file: refused in one line, rebuilt with --rebuild
     with open(payload["baseline"], "wb") as stream:
         stream.write(b"damaged")
