@@ -159,7 +159,7 @@ def wide_shares(g: float, log_u, s):
 def front_share(log_u, s):
     """Share (0–1) of the fit along the front, in (log u, r), at table coordinates (log u, s).
 
-    1 up to τ/u = :data:`_FRONT_TO`\[0], 0 from :data:`_FRONT_TO`\[1] on, linear in log(τ/u) between.
+    1 up to τ/u = _FRONT_TO[0], 0 from _FRONT_TO[1] on, linear in log(τ/u) between.
     """
     r = np.asarray(s) + np.asarray(log_u)
     a, b = (math.log(x) for x in _FRONT_TO)
