@@ -41,6 +41,12 @@ Choices made here (all vectorised over the wavelength axis W with numpy):
   through the slab with its inter-face reflections, computed exactly with the *unscaled*
   μa + μs) are returned apart; ``total_reflectance`` includes the specular part and
   ``total_transmittance`` includes the unscattered part, as an integrating sphere sees them.
+  Under diffuse light the streams resolve poorly the Fresnel rise at grazing incidence when
+  n is close to n_outside (5e-4 of the power missed at n/n_outside = 1.00125): the
+  unscattered light, the specular part included, comes from an exact angular rule
+  (:mod:`phantomlab.transport.slab_direct`), and the streams' scattered light is scaled to
+  the power that rule says the unscattered light gives up (so R + T = 1 still holds
+  without absorption).
 
 References
 ----------
@@ -69,8 +75,9 @@ from phantomlab.transport.arguments import (
 from phantomlab.transport.discrete_ordinates import faces_and_layer_response
 from phantomlab.transport.fresnel import critical_cosine
 from phantomlab.transport.phase_function import hg_redistribution
-from phantomlab.transport.quadrature import gauss_rule, slab_quadrature, uses_split_rule
+from phantomlab.transport.quadrature import slab_quadrature, uses_split_rule
 from phantomlab.transport.slab_boundary import Face, face_response
+from phantomlab.transport.slab_direct import diffuse_entry_rule, direct_light
 
 __all__ = [
     "SlabResult",
@@ -111,8 +118,9 @@ INCIDENCE = ("collimated", "diffuse")
 #: Leak given to totally reflected streams so that the adding equations stay regular.
 _TRAPPED_LEAK = 1e-12
 
-#: Gauss nodes for the exact angular integral of the unscattered part under diffuse light.
-_UNSCATTERED_NODES = 128
+#: Below this power given up by the unscattered light (of 1 incident) the scattered part is
+#: not rescaled (it is then as small, and the ratio would be rounding noise).
+_GIVEN_UP_FLOOR = 1e-12
 
 
 @dataclass(frozen=True)
@@ -413,9 +421,8 @@ def _solve(mua, mus, g, d, n, n_out, top: Face, bottom: Face, incidence: str, co
     tau = mut_scaled * d
     with np.errstate(invalid="ignore", divide="ignore"):
         albedo = np.where(mut_scaled > 0, mus_scaled / mut_scaled, 0.0)
-    top_in, top_out, top_t = face_response(top, mu)
+    top_in, _, top_t = face_response(top, mu)
     bottom_in, _, bottom_t = face_response(bottom, mu)
-    ratio2 = (n / n_out) ** 2
     if incidence == "collimated":
         incoming = np.zeros_like(mu)
         incoming[:, -1] = 1.0  # all power along μ = 1
@@ -423,55 +430,55 @@ def _solve(mua, mus, g, d, n, n_out, top: Face, bottom: Face, incidence: str, co
         # Lambertian light outside maps, by n² μ dμ = n_out² μ0 dμ0, onto the streams inside
         # that can reach outside; what cannot enter (n < n_out) is turned back at the face.
         reachable = mu >= mu_c[:, None]
-        incoming = np.where(reachable, ratio2[:, None] * 2.0 * mu * w, 0.0)
-    specular = np.sum(incoming * top_out, axis=1) + (1.0 - np.sum(incoming, axis=1))
+        incoming = np.where(reachable, ((n / n_out) ** 2)[:, None] * 2.0 * mu * w, 0.0)
+    layer = (mu, w, albedo, tau, h_same, h_opposite, top_in, top_t, bottom_in, bottom_t, incoming * top_t)
     if method == "eigen":
-        escaped_top, transmitted = faces_and_layer_response(
-            mu, w, albedo, tau, h_same, h_opposite, top_in, top_t, bottom_in, bottom_t, incoming * top_t)
+        escaped_top, transmitted, resolved = faces_and_layer_response(*layer)
+        if not np.all(resolved):  # modes the decomposition cannot resolve: doubling there
+            rows = np.flatnonzero(~resolved)
+            escaped_top[rows], transmitted[rows] = _doubling_response(*(part[rows] for part in layer))
     else:
-        tau_max = float(np.max(tau)) if tau.size else 0.0
-        doublings = 0
-        if tau_max > THIN_LAYER_OPTICAL_THICKNESS:
-            doublings = int(np.ceil(np.log2(tau_max / THIN_LAYER_OPTICAL_THICKNESS)))
-        r, t = _thin_layer(mu, w, albedo, tau / 2.0**doublings, h_same, h_opposite)
-        r, t = _double(r, t, doublings)
-        escaped_top, transmitted = _between_faces(
-            r, t, top_in, top_t, bottom_in, bottom_t, incoming * top_t
-        )
-    reflected = specular + escaped_top
+        escaped_top, transmitted = _doubling_response(*layer)
 
-    unscattered_t, unscattered_r = _unscattered(mua + mus, d, n, n_out, mu_c, top, bottom, incidence)
+    # The unscattered light: with the streams' own directions (part of the solution above)
+    # and with the exact angular rule (slab_direct), scaled (column 0) and true μt (column 1).
+    unscaled_tau = (mua + mus) * d
+    if incidence == "collimated":
+        exact = direct_light(np.stack([tau, unscaled_tau], axis=1), mu[:, -1:], incoming[:, -1:], top, bottom)
+        reflected = exact.specular + escaped_top
+    else:
+        # The streams resolve the Fresnel rise at grazing incidence poorly where n is close to
+        # n_out: the unscattered part is replaced by the exact rule's, and the scattered part
+        # is scaled to the power the exact rule says the unscattered light gives up, so that
+        # a clear layer is exact and a non-absorbing one still returns every photon.
+        on_streams = direct_light(tau[:, None], mu, incoming, top, bottom)
+        exact = direct_light(np.stack([tau, unscaled_tau], axis=1), *diffuse_entry_rule(mu_c, n, n_out),
+                             top, bottom)
+        given_up = 1.0 - on_streams.specular - on_streams.reflected[:, 0] - on_streams.transmitted[:, 0]
+        exact_given_up = 1.0 - exact.specular - exact.reflected[:, 0] - exact.transmitted[:, 0]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            factor = np.where(given_up > _GIVEN_UP_FLOOR, exact_given_up / given_up, 1.0)
+        escaped_top = exact.reflected[:, 0] + factor * (escaped_top - on_streams.reflected[:, 0])
+        transmitted = exact.transmitted[:, 0] + factor * (transmitted - on_streams.transmitted[:, 0])
+        reflected = exact.specular + escaped_top
     return {
         "total_reflectance": reflected,
-        "specular_reflectance": specular,
-        "diffuse_reflectance": reflected - specular,
-        "unscattered_reflectance": unscattered_r,
+        "specular_reflectance": exact.specular,
+        "diffuse_reflectance": reflected - exact.specular,
+        "unscattered_reflectance": exact.reflected[:, 1],
         "total_transmittance": transmitted,
-        "unscattered_transmittance": unscattered_t,
-        "diffuse_transmittance": transmitted - unscattered_t,
+        "unscattered_transmittance": exact.transmitted[:, 1],
+        "diffuse_transmittance": transmitted - exact.transmitted[:, 1],
         "absorbed_fraction": 1.0 - reflected - transmitted,
     }
 
 
-def _unscattered(mut, d, n, n_out, mu_c, top: Face, bottom: Face, incidence: str):
-    """Exact unscattered transmission and far-face reflection (true μt, no delta-M)."""
-    if incidence == "collimated":
-        mu = np.ones((mut.shape[0], 1))
-        weight = np.ones_like(mu)
-    else:
-        s, ws = gauss_rule(_UNSCATTERED_NODES)
-        span = (1.0 - mu_c)[:, None]
-        mu = mu_c[:, None] + span * s[None, :] ** 2  # μ = μc + (1 − μc) s² (kink at μc)
-        jac = span * 2.0 * s[None, :] * ws[None, :]
-        weight = ((n / n_out) ** 2)[:, None] * 2.0 * mu * jac
-    top_in, _, top_t = face_response(top, mu)
-    bottom_in, _, bottom_t = face_response(bottom, mu)
-    attenuation = np.exp(-(mut * d)[:, None] / mu)
-    loop = 1.0 - top_in * bottom_in * attenuation**2
-    # A clear layer between two totally reflecting faces (loop = 0) is entered by nothing:
-    # its face transmission is 0 too, so the 0/0 is 0.
-    trapped = loop <= 1e-300
-    safe_loop = np.where(trapped, 1.0, loop)
-    through = np.where(trapped, 0.0, top_t * attenuation * bottom_t / safe_loop)
-    back = np.where(trapped, 0.0, top_t * attenuation**2 * bottom_in * top_t / safe_loop)
-    return np.sum(weight * through, axis=1), np.sum(weight * back, axis=1)
+def _doubling_response(mu, w, albedo, tau, h_same, h_opposite, top_in, top_t, bottom_in, bottom_t, entering):
+    """Light leaving the top face (from inside) and the bottom face, the layer built by doubling."""
+    tau_max = float(np.max(tau)) if tau.size else 0.0
+    doublings = 0
+    if tau_max > THIN_LAYER_OPTICAL_THICKNESS:
+        doublings = int(np.ceil(np.log2(tau_max / THIN_LAYER_OPTICAL_THICKNESS)))
+    r, t = _thin_layer(mu, w, albedo, tau / 2.0**doublings, h_same, h_opposite)
+    r, t = _double(r, t, doublings)
+    return _between_faces(r, t, top_in, top_t, bottom_in, bottom_t, entering)
