@@ -135,8 +135,9 @@ def mc_lookup() -> None:
               f"{plain.interactions / (2 * (30 - rest)):.3g} per core-second)")
         from mc import reference_rate  # bench/mc.py: the arithmetic of an interaction and nothing else
 
-        reference = reference_rate()
-        print(f"  reference tight loop (bench/mc.py, one thread, same process): {reference:.3g} interactions/s; the "
+        reference = reference_rate(clock=time.process_time)
+        print(f"  reference tight loop (bench/mc.py, one thread, same process): {reference:.3g} interactions per "
+              f"CPU-second; the "
               f"kernel's interactions per CPU-second are {plain.interactions / plain_cpu / reference:.2f} of it "
               f"(a slower machine lowers both, slower code only the kernel's)")
         rng = np.random.default_rng(3)
