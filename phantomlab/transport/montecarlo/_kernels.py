@@ -387,9 +387,11 @@ def run_3d(
 
     Each batch draws from a private copy of its generator state, written back at the end (the
     same numbers): the states of neighbouring batches (16 bytes each) share a cache line, and
-    a baseline build runs neighbours side by side, two at a time on two threads; both writing
-    that line at every draw cost 1.1 times the CPU time on a shared machine and 1.5 times when
-    both threads ran at once (100 000 and 200 000 photons, g 0.8, μs′/μa 1500).
+    a baseline build runs neighbours side by side, two at a time on two threads.  Both writing
+    that line at every draw cost 1.1 times the CPU time with the threads sharing one busy core
+    (100 000 photons, g 0.8, μs′/μa 1500, against states 64 bytes apart), and 1.1–1.5 times
+    that of ``simulate`` of the same photons with both threads running (200 000 photons; now
+    about equal to it).
     """
     for batch in prange(photons_per_batch.shape[0]):
         unused_t = np.zeros(rho_weights.shape[1])
