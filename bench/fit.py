@@ -7,7 +7,12 @@
   spectrum fitted the plain way (one scipy least_squares call per wavelength) in the same
   process, as the ratio's baseline;
 * a new cached baseline of the default fit, a million photons (target <= 30 s on 2 cores),
-  beside the same photons through ``simulate`` without keeping exits;
+  beside the same photons (the cache's seed: the same histories) through ``simulate`` without
+  keeping exits, run first in the same process as the ratio's baseline; wall and CPU time of
+  both, the cores each had, the simulation's share of the build and the interactions per
+  CPU-second against bench/mc.py's reference tight loop in the same process (the build is the
+  simulation's work and a second or two of table and writing, so its wall time follows the
+  cores free and the machine's speed: read the CPU ratio and the kernel / reference ratio);
 * the default fit (Monte Carlo lookup) of a 601-wavelength file once the baseline exists
   (target <= 1 s), beside the same file fitted with diffusion;
 * a Monte Carlo lookup fit per wavelength once the baseline exists (target < 50 ms), beside
@@ -103,19 +108,38 @@ def mc_lookup() -> None:
     from phantomlab.calibration.baseline_cache import CACHE_PHOTONS, build_cached_baseline, cache_settings
     from phantomlab.transport.montecarlo import simulate, warm_up
 
-    warm_up()  # compilation is not part of either figure
+    warm_up()  # compilation is not part of either figure ...
+    with tempfile.TemporaryDirectory() as folder:  # ... nor is the table's (its kernels compile on first use)
+        build_cached_baseline(g=0.8, n=1.4, folder=folder, photons=2000)
     settings = cache_settings(g=0.8, n=1.4)
-    start = time.perf_counter()
-    simulate(mua_per_mm=settings["mua_per_mm"], mus_per_mm=settings["mus_per_mm"], g=0.8, n=1.4,
-             photons=CACHE_PHOTONS, seed=5, estimator="analog")
-    plain = time.perf_counter() - start
+    start, cpu = time.perf_counter(), time.process_time()
+    plain = simulate(mua_per_mm=settings["mua_per_mm"], mus_per_mm=settings["mus_per_mm"], g=0.8, n=1.4,
+                     photons=CACHE_PHOTONS, seed=settings["seed"], estimator="analog")
+    plain_wall, plain_cpu = time.perf_counter() - start, time.process_time() - cpu
     with tempfile.TemporaryDirectory() as folder:
-        start = time.perf_counter()
-        built = build_cached_baseline(g=0.8, n=1.4, folder=folder)
-        seconds = time.perf_counter() - start
+        simulated = []  # the clock when the last photons were done: the rest is the table and the writing
+        start, cpu = time.perf_counter(), time.process_time()
+        built = build_cached_baseline(g=0.8, n=1.4, folder=folder,
+                                      progress=lambda done, total: simulated.append(time.perf_counter()))
+        seconds, seconds_cpu = time.perf_counter() - start, time.process_time() - cpu
+        rest = start + seconds - simulated[-1]
         print(f"new cached baseline, {CACHE_PHOTONS:,} photons (g 0.8, n 1.4, mus'/mua up to 1500): {seconds:.1f} s "
-              f"(target <= 30 s on 2 cores; simulation {built.baseline.detected:,} exits kept + lookup table); "
-              f"the same photons through simulate() without keeping exits: {plain:.1f} s; ratio {seconds / plain:.2f}")
+              f"(target <= 30 s on 2 cores), {seconds_cpu:.1f} s CPU on {seconds_cpu / seconds:.2f} cores; "
+              f"simulation {seconds - rest:.1f} s ({built.baseline.detected:,} exits kept), table and writing "
+              f"{rest:.1f} s\n"
+              f"  the same photons through simulate() without keeping exits, before it in this process: "
+              f"{plain_wall:.1f} s, {plain_cpu:.1f} s CPU on {plain_cpu / plain_wall:.2f} cores; ratio "
+              f"{seconds / plain_wall:.2f} wall, {seconds_cpu / plain_cpu:.2f} CPU; {plain.interactions / 1e6:.0f} "
+              f"million interactions at {plain.interactions / plain_cpu:.3g} per CPU-second: on two free cores "
+              f"this machine needs at least about {seconds_cpu / 2:.0f} s for the build (the 30 s target needs "
+              f"{plain.interactions / (2 * (30 - rest)):.3g} per core-second)")
+        from mc import reference_rate  # bench/mc.py: the arithmetic of an interaction and nothing else
+
+        reference = reference_rate(clock=time.process_time)
+        print(f"  reference tight loop (bench/mc.py, one thread, same process): {reference:.3g} interactions per "
+              f"CPU-second; the "
+              f"kernel's interactions per CPU-second are {plain.interactions / plain_cpu / reference:.2f} of it "
+              f"(a slower machine lowers both, slower code only the kernel's)")
         rng = np.random.default_rng(3)
         wl = np.linspace(400.0, 1000.0, 601)
         rho = np.geomspace(1.0, 15.0, 20)

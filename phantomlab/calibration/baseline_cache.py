@@ -47,8 +47,11 @@ __all__ = [
 #: Environment variable naming the cache folder (the ``--baseline-dir`` option wins over it).
 BASELINE_DIR_ENV = "PHANTOMLAB_BASELINE_DIR"
 #: Photons launched for a cached baseline: the lookup's own noise stays at or below about 1 %
-#: out to 20–50 transport lengths at μs′/μa ≥ 30 (tests/calibration/test_mc_lookup.py), and
-#: a build takes about half a minute on two cores (bench/fit.py).
+#: out to 20–50 transport lengths at μs′/μa ≥ 30 (tests/calibration/test_mc_lookup.py).  A
+#: build (g 0.8, n 1.4) is about 0.9 billion photon interactions: 72–79 CPU-seconds on the
+#: project's two-core machine (1.15–1.3e7 interactions per CPU-second), so about 40 s on two
+#: free cores and more on shared ones, plus 2 s for its table and file (bench/fit.py prints
+#: these beside ``simulate`` of the same photons).
 CACHE_PHOTONS = 1_000_000
 #: Reference scattering of a cached baseline [1/mm] (the lookup scales it to every μs).
 CACHE_MUS_REF_PER_MM = 10.0
