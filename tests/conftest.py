@@ -1,7 +1,7 @@
 """Suite-wide set-up: the default fits' Monte Carlo baselines come from a stored test cache.
 
 The default srdr/sfdi fit builds a million-photon baseline into the user's cache when it has
-none (half a minute or more).  The suite never does that: ``PHANTOMLAB_BASELINE_DIR`` points
+none (a minute or more).  The suite never does that: ``PHANTOMLAB_BASELINE_DIR`` points
 every test (and every command the tests start) at a session copy of
 ``tests/calibration/fixtures/baseline-cache/`` (lookup tables of the baselines the tests
 need, made by ``make_default_fit_fixtures.py baselines``), and a build inside the test

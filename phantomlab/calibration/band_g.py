@@ -32,7 +32,7 @@ __all__ = ["G_STEP", "g_steps", "wavelength_groups", "measurement_part", "merge_
 #: half a transport length, 0.025 at 1–4, G_SENSITIVITY_PER_0_1), a quarter or less of a
 #: probe's usual 1 % reading noise (common practice, no source) and below the cached
 #: baseline's own photon noise (about 1 %, baseline_cache.CACHE_PHOTONS).  A band from g
-#: 0.64 to 0.51 takes seven baselines at most, each built once (about half a minute).
+#: 0.64 to 0.51 takes seven baselines at most, each built once (about a minute).
 G_STEP = 0.02
 
 

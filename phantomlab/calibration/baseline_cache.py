@@ -97,7 +97,7 @@ class CachedBaselineError(InputError):
         self.path = Path(path)
         self.reason = reason
         super().__init__(f"cached baseline {self.path} cannot be used: {reason}; give --rebuild to build it again "
-                         f"(about half a minute)")
+                         f"(about a minute)")
 
 
 @dataclass(frozen=True, eq=False)

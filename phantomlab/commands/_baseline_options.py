@@ -1,7 +1,7 @@
 """The baseline-cache options of ``fit`` and ``batch measure``, and the build's progress bar (layer 5).
 
 The default srdr/sfdi fit builds the cached Monte Carlo baseline it needs on first use
-(``phantomlab.calibration.baseline_cache``): about half a minute, shown as a progress bar on
+(``phantomlab.calibration.baseline_cache``): about a minute, shown as a progress bar on
 stderr (stdout keeps the table or the one JSON object).  Ctrl-C stops the build between two
 groups of photons; nothing is written (``phantomlab.cli`` prints one line and exits 130).
 

@@ -2,7 +2,7 @@
 
 The default srdr/sfdi fit (the Monte Carlo lookup) needs a baseline for (g, n, n_outside)
 from the per-user cache (``phantomlab.calibration.baseline_cache``).  When there is none, the
-page builds it once (about half a minute) with a progress bar and a "Stop the build" button:
+page builds it once (about a minute) with a progress bar and a "Stop the build" button:
 pressing it makes Streamlit rerun the page, which ends the build at its next progress step,
 and nothing is written.  A cached file that is refused (damaged, another version, other
 indices) is named, and built again only when the user presses the button that says so.
@@ -85,7 +85,7 @@ def page_baseline(*, g: float, n: float, n_outside: float, key: str, offer_rebui
         if not offer_rebuild:
             st.info("Build it again on the page “Fit and correct” (it asks first), or fit with a diffusion model.")
             return None
-        took = "5–15 minutes" if time_resolved else "about half a minute"
+        took = "5–15 minutes" if time_resolved else "about a minute"
         if not st.button(f"Build it again ({took})", key=f"{key}.rebuild"):
             return None
         found, rebuild = None, True

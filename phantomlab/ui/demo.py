@@ -17,7 +17,7 @@ On first use the page seeds a database file of its own (never a lab's database, 
   with invented "true" stock potencies, plus a fixed invented noise, and their stored fits
   are diffusion fits (``kienle1997``, the model that made them), not the default Monte
   Carlo lookup: a lookup fit needs the Monte Carlo baseline for the batch's g, whose first
-  build (half a minute) the first start must not wait for.  Each file's ``# source:`` line
+  build (about a minute) the first start must not wait for.  Each file's ``# source:`` line
   and each fit's model say so; refitting one on the page with the default model is
   possible (it builds the baseline once).  The first batch is measured twice (day 1 and
   day 15) so the page can show drift with phantom age.
