@@ -421,8 +421,10 @@ def _solve(mua, mus, g, d, n, n_out, top: Face, bottom: Face, incidence: str, co
     tau = mut_scaled * d
     with np.errstate(invalid="ignore", divide="ignore"):
         albedo = np.where(mut_scaled > 0, mus_scaled / mut_scaled, 0.0)
-    top_in, _, top_t = face_response(top, mu)
-    bottom_in, _, bottom_t = face_response(bottom, mu)
+    top_response = face_response(top, mu)
+    bottom_response = face_response(bottom, mu)
+    top_in, _, top_t = top_response
+    bottom_in, _, bottom_t = bottom_response
     if incidence == "collimated":
         incoming = np.zeros_like(mu)
         incoming[:, -1] = 1.0  # all power along μ = 1
@@ -444,14 +446,16 @@ def _solve(mua, mus, g, d, n, n_out, top: Face, bottom: Face, incidence: str, co
     # and with the exact angular rule (slab_direct), scaled (column 0) and true μt (column 1).
     unscaled_tau = (mua + mus) * d
     if incidence == "collimated":
-        exact = direct_light(np.stack([tau, unscaled_tau], axis=1), mu[:, -1:], incoming[:, -1:], top, bottom)
+        normal = tuple(response[:, -1:] for response in (*top_response, *bottom_response))
+        exact = direct_light(np.stack([tau, unscaled_tau], axis=1), mu[:, -1:], incoming[:, -1:], normal[:3],
+                             normal[3:])
         reflected = exact.specular + escaped_top
     else:
         # The streams resolve the Fresnel rise at grazing incidence poorly where n is close to
         # n_out: the unscattered part is replaced by the exact rule's, and the scattered part
         # is scaled to the power the exact rule says the unscattered light gives up, so that
         # a clear layer is exact and a non-absorbing one still returns every photon.
-        on_streams = direct_light(tau[:, None], mu, incoming, top, bottom)
+        on_streams = direct_light(tau[:, None], mu, incoming, top_response, bottom_response)
         exact = direct_light(np.stack([tau, unscaled_tau], axis=1), *diffuse_entry_rule(mu_c, n, n_out),
                              top, bottom)
         given_up = 1.0 - on_streams.specular - on_streams.reflected[:, 0] - on_streams.transmitted[:, 0]

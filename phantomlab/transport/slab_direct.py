@@ -76,7 +76,7 @@ def diffuse_entry_rule(mu_critical: np.ndarray, n: np.ndarray, n_outside: np.nda
 
 
 def direct_light(optical_thickness: np.ndarray, mu: np.ndarray, weight: np.ndarray,
-                 top: Face, bottom: Face) -> DirectLight:
+                 top: Face | tuple, bottom: Face | tuple) -> DirectLight:
     """The unscattered light for power ``weight`` arriving along directions ``mu``.
 
     Parameters
@@ -85,15 +85,15 @@ def direct_light(optical_thickness: np.ndarray, mu: np.ndarray, weight: np.ndarr
         τ of the sample, one column per case wanted (e.g. with and without delta-M scaling).
     mu, weight : ndarrays (W, M)
         Directions inside the sample and the incident power along each (summing to at most 1).
-    top, bottom : Face
-        The illuminated face and the far face.
+    top, bottom : Face, or its :func:`~phantomlab.transport.slab_boundary.face_response` along ``mu``
+        The illuminated face and the far face (the responses, when the caller has them already).
 
     Returns
     -------
     DirectLight
     """
-    top_in, top_out, top_t = face_response(top, mu)
-    bottom_in, _, bottom_t = face_response(bottom, mu)
+    top_in, top_out, top_t = face_response(top, mu) if isinstance(top, Face) else top
+    bottom_in, _, bottom_t = face_response(bottom, mu) if isinstance(bottom, Face) else bottom
     specular = np.sum(weight * top_out, axis=1) + (1.0 - np.sum(weight, axis=1))
     attenuation = np.exp(-optical_thickness[:, :, None] / mu[:, None, :])  # (W, K, M)
     loop = 1.0 - (top_in * bottom_in)[:, None, :] * attenuation**2
