@@ -8,6 +8,9 @@
   least_squares over μa, μs′, t0 and the amplitude, a numerical convolution by np.convolve at
   every call) as the ratio's baseline;
 * 20 wavelengths in one file (target <= 1 s);
+* 20 wavelengths where the IRF (300 ps) is wider than the curve's rise (μs′/μa 10 at 11 mm):
+  there the lookup's noise is carried by 24 refits a wavelength (td_lookup_refits.py); the
+  same fit with the refits left out, in the same process, is the ratio's baseline;
 * an fd file (5 distances, 3 frequencies, 20 wavelengths);
 * transmittance through a 15 mm slab with the Monte Carlo slab model (``mc-slab``) once its
   slab runs exist (the test cache, tests/calibration/fixtures/slab-cache), point detector and
@@ -58,16 +61,17 @@ def _baseline():
     return made, f"built in {time.perf_counter() - start:.1f} s"
 
 
-def _td_text(lookup, wavelengths, rng):
+def _td_text(lookup, wavelengths, rng, *, irf=IRF, rho=15.0, ratio=None):
     rows = ["wavelength_nm,rho_mm,time_ps,counts"]
     for i, wl in enumerate(wavelengths):
         mua, musp = 0.005 + 0.0005 * i, 1.0 + 0.01 * i
+        mua = mua if ratio is None else musp / ratio
         counts = irf_convolved_counts(
             model=lambda t: lookup.point(mua_per_mm=np.full(t.shape[0], mua), mus_per_mm=np.full(t.shape[0], musp / 0.2),
-                                         rho_mm=np.full(t.shape, 15.0), time_ps=t),
-            time_ps=TIME, irf_time_ps=IRF_TIME, irf=IRF, shift_ps=80.0)[0]
+                                         rho_mm=np.full(t.shape, rho), time_ps=t),
+            time_ps=TIME, irf_time_ps=IRF_TIME, irf=irf, shift_ps=80.0)[0]
         noisy = rng.poisson(counts / counts.max() * 1e5 + 3.0)
-        rows += [f"{wl:g},15,{t:g},{c}" for t, c in zip(TIME, noisy)]
+        rows += [f"{wl:g},{rho:g},{t:g},{c}" for t, c in zip(TIME, noisy)]
     return "\n".join(rows) + "\n"
 
 
@@ -106,6 +110,30 @@ def td_fits(baseline) -> None:
     loop = time.process_time() - cpu
     print(f"plain least_squares of the same curve (diffusion, np.convolve, {plain.nfev} calls, started near the "
           f"answer): {1000 * loop:.0f} ms CPU; ratio plain/ours (diffusion) {loop / single_cpu:.1f}x")
+
+
+def td_wide_irf_fits(baseline) -> None:
+    import phantomlab.calibration.fit_td as fit_td_module
+
+    lookup = time_resolved_lookup(baseline)
+    wide = np.exp(-0.5 * ((IRF_TIME - 300.0) / (300.0 / 2.3548)) ** 2)
+    sidecar = {"n": 1.4, "irf": irf_table(IRF_TIME, np.round(wide * 1e7))}
+    twenty = read_td(_td_text(lookup, np.linspace(650, 900, 20), np.random.default_rng(3), irf=wide, rho=11.0,
+                              ratio=10.0), sidecar=sidecar)
+    cpu = time.process_time()
+    fit = fit_td(twenty, model="mc", baseline=baseline)
+    with_refits = time.process_time() - cpu
+    refits = fit_td_module.refit_covariance
+    fit_td_module.refit_covariance = lambda *a, rows, x, **k: np.zeros((len(rows), x.shape[1], x.shape[1]))
+    try:
+        cpu = time.process_time()
+        fit_td(twenty, model="mc", baseline=baseline)
+        without = time.process_time() - cpu
+    finally:
+        fit_td_module.refit_covariance = refits
+    print(f"td fit, IRF wider than the rise (mu_s'/mu_a 10, 11 mm, IRF 300 ps), 20 wavelengths: {with_refits:.2f} s CPU "
+          f"with the refits, {without:.2f} s without; ratio {with_refits / without:.1f}x "
+          f"(median mu_s' SD {100 * np.median(fit.musp_sd_per_mm / fit.musp_per_mm):.1f} %)")
 
 
 def fd_fits(baseline) -> None:
@@ -183,6 +211,7 @@ def main() -> None:
     print(f"baseline ({how}): {baseline.detected} photons; time-resolved lookup table built in "
           f"{time.perf_counter() - start:.1f} s (once per baseline)")
     td_fits(baseline)
+    td_wide_irf_fits(baseline)
     fd_fits(baseline)
     slab_fits()
 

@@ -21,8 +21,9 @@ last pass.  The Monte Carlo lookup's own error enters as a model error of each b
 to the parameters (:func:`~phantomlab.calibration.td_model_errors.model_error_covariance`): its
 photon noise, averaged over the bin's spread in ln t (variance × h/√(h² + s²), correlation
 widened to √(h² + s²), h the smoothing kernel's width, s the spread of ln t the bin's response
-holds; for the half-space lookup kept unaveraged where the IRF is wider than the curve's rise,
-where the fit is far from linear), and its smoothing bias
+holds; where the IRF is wider than the curve's rise the fit is far from linear, and the half-space
+lookup's noise is carried by refits with its errors drawn instead,
+:mod:`~phantomlab.calibration.td_lookup_refits`), and its smoothing bias
 (:meth:`~phantomlab.calibration.mc_lookup_time.TimeResolvedLookup.relative_bias`).  On
 independent lookups the SDs cover the errors (tests/calibration/test_lookup_sds.py).
 
@@ -73,6 +74,7 @@ from phantomlab.calibration.fit_result import FitResult
 from phantomlab.calibration.fitting import fit_blocks, log_to_linear, off_step_covariance
 from phantomlab.calibration.identifiability import outcome_warnings, step_warnings
 from phantomlab.calibration.td_checks import td_design_warnings
+from phantomlab.calibration.td_lookup_refits import refit_covariance
 from phantomlab.calibration.td_model_errors import check_lookup_reach, lookup_noise_notes, model_error_covariance
 from phantomlab.calibration.td_curves import (
     SHIFT_UNIT_PS,
@@ -271,7 +273,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     time = measurement.time_ps[crop]
     full_counts, full_windows = counts, windows
     # curves whose IRF is wider than their rise (10 % to the peak): warned, and their lookup
-    # error is kept unaveraged (below)
+    # error carried by refits (below)
     irf_wider = np.array([fwhm[k] > rise_time_ps(counts[k] - background[k], measurement.step_ps)
                           for k in range(W * R)])
     counts, windows = counts[:, crop], windows[:, crop]
@@ -403,20 +405,42 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         # a bin holds the response over a spread of ln t (the IRF and the bin): the lookup's
         # noise, correlated over ``width`` in ln t, is averaged over that spread, which lowers
         # its variance by width/√(width² + spread²) and widens its correlation to
-        # √(width² + spread²) (Gaussian kernels).  Not where the IRF is wider than the curve's
-        # rise: the fit is far from linear there (t0 and μs′ trade) and the error unaveraged
-        # is kept.  For the lookup only: for mc-slab that claimed μs′ SDs of 50–260 % at
-        # μs′/μa 10 (IRF 200–300 ps) where the copies spread by 1.4–12 %; averaged, 6–14 %
-        # (tests/calibration/test_fit_td_slab.py)
-        resolved = ~irf_wider[:, None] if family == "mc" else np.ones_like(irf_wider[:, None])
+        # √(width² + spread²) (Gaussian kernels)
         widened = np.sqrt(width**2 + log_time_spread**2)
-        rel = np.where(resolved, rel * np.sqrt(width / widened), rel)
+        noise_cov = model_error_covariance(
+            jacobian, mask, [((amplitude[:, None] * c * rel * np.sqrt(width / widened)) / sd, widened)], log_time, W, R, K)
         # with the smoothing's own bias (TimeResolvedLookup.relative_bias), correlated as the noise
+        bias_cov = model_error_covariance(jacobian, mask, [((amplitude[:, None] * c * bias) / sd, widened)],
+                                          log_time, W, R, K)
+        if family == "mc" and np.any(irf_wider):
+            # where the IRF is wider than the curve's rise the fit is far from linear (t0 and μs′
+            # trade): the noise's share by refits with the lookup's errors drawn
+            # (td_lookup_refits; the linear share, averaged or not, was 0.1–30 times the spread of
+            # independent lookups there).  A fit stopped on a step of the lookup (at the edge of
+            # its photons) sticks there when refitted: it keeps the linear share unaveraged, which
+            # is wider than any spread measured there
+            wide_rows = irf_wider.reshape(W, R).any(axis=1)
+            stuck = wide_rows & stepped.any(axis=1)
+            if stuck.any():
+                noise_cov[stuck] = model_error_covariance(
+                    jacobian, mask, [((amplitude[:, None] * c * rel) / sd, width)], log_time, W, R, K)[stuck]
+            wide = np.flatnonzero(wide_rows & ~stuck)
+
+            def perturbed_residual(x_rows, curves_of_rows, model):
+                curves = curves_of_rows.ravel()
+                _, _, mu = expected(np.repeat(np.exp(x_rows[:, 0]), R), np.repeat(np.exp(x_rows[:, 1]), R),
+                                    x_rows[:, 2:].ravel() * SHIFT_UNIT_PS, curves, sd[curves], using=model)
+                return ((mu - counts[curves]) / sd[curves]).reshape(x_rows.shape[0], R * K)
+
+            if wide.size:
+                noise_cov[wide] = refit_covariance(
+                    perturbed_residual, shape, x=x, rows=wide, curves_per_row=R, musp_per_mm=musp_c,
+                    rho_mm=rho_curve, mask=mask, lower=lower, upper=upper, tolerance=_COST_TOLERANCE,
+                    step_tolerance=_STEP_TOLERANCE,
+                    tau_range_ps=(1.0, float(time[-1] - time[0] + measurement.irf_time_ps[irf_span][-1]
+                                               - measurement.irf_time_ps[irf_span][0] + np.abs(shifts).max() + 100.0)))
         from_counts = cov_log
-        cov_log = cov_log + model_error_covariance(
-            jacobian, mask,
-            [((amplitude[:, None] * c * rel) / sd, np.where(resolved, widened, width)),
-             ((amplitude[:, None] * c * bias) / sd, widened)], log_time, W, R, K)
+        cov_log = cov_log + noise_cov + bias_cov
         if family == "mc":
             messages += lookup_noise_notes(measurement.wavelength_nm, from_counts, cov_log)
     values, cov = log_to_linear(x[:, :2], cov_log[:, :2, :2])

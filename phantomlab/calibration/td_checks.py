@@ -29,7 +29,7 @@ def td_design_warnings(measurement, signal, windows, fwhm, irf_wider, family, ge
     """Identifiability and model-range checks of a td fit (each message names values and limits).
 
     ``irf_wider`` (W, R): the curves whose IRF FWHM exceeds their rise from 10 % to the peak
-    (the fit decides it once: it also keeps their lookup error unaveraged).
+    (the fit decides it once: it also carries their lookup error by refits).
     """
     messages = []
     wl = measurement.wavelength_nm
