@@ -131,7 +131,8 @@ def td_wide_irf_fits(baseline) -> None:
         without = time.process_time() - cpu
     finally:
         fit_td_module.refit_covariance = refits
-    print(f"td fit, IRF wider than the rise (mu_s'/mu_a 10, 11 mm, IRF 300 ps), 20 wavelengths: {with_refits:.2f} s CPU "
+    print("td fit, IRF wider than the rise (mu_s'/mu_a 10, 11 mm, IRF 300 ps), 20 wavelengths: "
+          f"{with_refits:.2f} s CPU "
           f"with the refits, {without:.2f} s without; ratio {with_refits / without:.1f}x "
           f"(median mu_s' SD {100 * np.median(fit.musp_sd_per_mm / fit.musp_per_mm):.1f} %)")
 

@@ -408,7 +408,8 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         # √(width² + spread²) (Gaussian kernels)
         widened = np.sqrt(width**2 + log_time_spread**2)
         noise_cov = model_error_covariance(
-            jacobian, mask, [((amplitude[:, None] * c * rel * np.sqrt(width / widened)) / sd, widened)], log_time, W, R, K)
+            jacobian, mask, [((amplitude[:, None] * c * rel * np.sqrt(width / widened)) / sd, widened)],
+            log_time, W, R, K)
         # with the smoothing's own bias (TimeResolvedLookup.relative_bias), correlated as the noise
         bias_cov = model_error_covariance(jacobian, mask, [((amplitude[:, None] * c * bias) / sd, widened)],
                                           log_time, W, R, K)

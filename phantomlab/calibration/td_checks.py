@@ -52,9 +52,11 @@ def td_design_warnings(measurement, signal, windows, fwhm, irf_wider, family, ge
         messages.append(f"fit window short at {_bands(wl, short)}: fewer than {MIN_WINDOW_BINS} bins or less than "
                         "3 IRF widths; lower window_tail_fraction or measure longer")
     if wide.any():
+        refits = ("; the lookup's share of the SDs comes from refits with its errors drawn (the fit is far from "
+                  "linear there), unless it stops on a step of the lookup") if family == "mc" else ""
         messages.append(f"the IRF is wider than the curve's rise (10 % to peak) at {_bands(wl, wide)}: musp rests on "
                         "the IRF's exact shape there (measure the IRF with many counts, on the same system); its SD "
-                        "grows accordingly")
+                        "grows accordingly" + refits)
     if low.any():
         messages.append(f"fewer than {MIN_PEAK_COUNTS:g} counts at the peak at {_bands(wl, low)}: the SDs assume "
                         "Poisson counts; measure longer")

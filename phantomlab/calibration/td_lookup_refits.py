@@ -2,11 +2,13 @@
 
 Where the IRF is wider than the curve's rise, t0 and μs′ trade along a long, curved valley of
 χ², and a small error in the model's rise moves the solution far along it and not in
-proportion: the linear sandwich of :func:`~phantomlab.calibration.td_model_errors.model_error_covariance`
-then misjudges the lookup's share of the SDs (averaged over the IRF's width it claimed too
-little: two of four independent quarter lookups lay 7–10 SD off; unaveraged, it claimed 10–75
-times the spread of fits by independent lookups of Poisson copies).  Here the share is found by doing what the error does (a parametric bootstrap of the
-model error; Efron B, Tibshirani RJ 1993, *An Introduction to the Bootstrap*, ch. 6):
+proportion: the linear sandwich of
+:func:`~phantomlab.calibration.td_model_errors.model_error_covariance` then misjudges the
+lookup's share of the SDs (averaged over the IRF's width it claimed too little: two of four
+independent quarter lookups lay 7–10 SD off; unaveraged, it claimed 10–75 times the spread of
+fits by independent lookups of Poisson copies).  Here the share is found by doing what the
+error does (a parametric bootstrap of the model error; Efron B, Tibshirani RJ 1993, *An
+Introduction to the Bootstrap*, ch. 6):
 
 1. For each curve draw ``draws`` relative model errors δ_d(ln τ) from the lookup's own error
    model: SD σ(τ) (``relative_sd``) and a Gaussian correlation in ln τ whose width h(τ)
@@ -22,6 +24,14 @@ model error; Efron B, Tibshirani RJ 1993, *An Introduction to the Bootstrap*, ch
 
 The draws use a fixed seed: the same data give the same SDs.  With 24 draws the SD itself is
 known to about ±15 % (1/√(2·24)).
+
+Measured (quarters of the 10-million-photon baseline, each fitting Poisson copies of the
+independent gated run; μs′/μa 10–20, 10–13 mm, IRF 200–300 ps, 10⁵–10⁶ counts at the peak):
+92–100 % of errors within 2 SD per case, 95–98 % over all, z rms 0.76–0.88; the median SD
+0.4–4 times the rms error (widest at μs′/μa 10, 12 mm, IRF 200 ps, where the copies' fits
+cluster on the lookup's step, below).  A fit that stops on a step of the lookup (where its photons begin,
+the response jumps from 0 to 2–4 % of its peak at μs′/μa 10, 12 mm) sticks there when
+refitted; fit_td keeps the linear share unaveraged for it, and says it stopped on the step.
 """
 
 from __future__ import annotations

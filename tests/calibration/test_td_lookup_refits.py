@@ -4,8 +4,8 @@ Two checks against independent computation:
 
 - the drawn model errors have the covariance they claim: a stationary Gaussian correlation
   exp(−Δ²/(4h²)) for a constant width, and Gibbs's non-stationary kernel for a varying one,
-  written here in the form of Paciorek CJ & Schervish MJ 2004 (NIPS 16, eq. 6, one dimension:
-  C(x₁, x₂) = √(2ℓ₁ℓ₂/(ℓ₁² + ℓ₂²)) exp(−(x₁ − x₂)²/(ℓ₁² + ℓ₂²)), here with ℓ² = 2h²);
+  written here in the form of Paciorek CJ & Schervish MJ 2004 (NIPS 16, eq. 6, one
+  dimension: C(x₁, x₂) = √(2ℓ₁ℓ₂/(ℓ₁² + ℓ₂²)) exp(−(x₁ − x₂)²/(ℓ₁² + ℓ₂²)), with ℓ² = 2h²);
 - where the fit is linear (small errors) the refits' covariance equals the linear sandwich
   (JᵀJ)⁻¹JᵀΣJ(JᵀJ)⁻¹, computed here by hand with the analytic Jacobian of a two-parameter
   exponential decay.
@@ -96,7 +96,8 @@ def test_refits_equal_the_linear_sandwich_where_the_fit_is_linear():
     sd = 0.01 * data
 
     def residual(x_rows, curves, model):
-        values = model(np.exp(x_rows[:, 0]), np.exp(x_rows[:, 1]), None, np.broadcast_to(times, (x_rows.shape[0], times.size)))
+        grid = np.broadcast_to(times, (x_rows.shape[0], times.size))
+        values = model(np.exp(x_rows[:, 0]), np.exp(x_rows[:, 1]), None, grid)
         return (values - data) / sd
 
     draws = 600
