@@ -331,15 +331,17 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
             start = fit_blocks(smooth_residual, start, mask=mask, lower=lower, upper=upper, row_aware=True,
                                max_nfev=DIFFUSION_START_STEPS, tolerance=1e-3,
                                step_tolerance=_STEP_TOLERANCE).x  # a start only
+    def curve_residual(x_rows, curves, sd, using=None):
+        """Normalised residuals (rows, R·K) of the given curves (R a row) at parameters x_rows."""
+        _, _, mu = expected(np.repeat(np.exp(x_rows[:, 0]), R), np.repeat(np.exp(x_rows[:, 1]), R),
+                            x_rows[:, 2:].ravel() * SHIFT_UNIT_PS, curves, sd[curves], using=using)
+        return ((mu - counts[curves]) / sd[curves]).reshape(x_rows.shape[0], R * K)
+
     outcome = None
     x = start
     for attempt in range(IRLS_PASSES):
         def residual_fn(x_rows, rows, sd=sd):
-            curves = (rows[:, None] * R + np.arange(R)[None, :]).ravel()
-            mua_c = np.repeat(np.exp(x_rows[:, 0]), R)
-            musp_c = np.repeat(np.exp(x_rows[:, 1]), R)
-            _, _, mu = expected(mua_c, musp_c, x_rows[:, 2:].ravel() * SHIFT_UNIT_PS, curves, sd[curves])
-            return ((mu - counts[curves]) / sd[curves]).reshape(rows.size, R * K)
+            return curve_residual(x_rows, (rows[:, None] * R + np.arange(R)[None, :]).ravel(), sd)
 
         # later passes start at the previous solution and only follow the new weights: a few steps
         outcome = fit_blocks(residual_fn, x, mask=mask, lower=lower, upper=upper, row_aware=True,
@@ -416,27 +418,24 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         if family == "mc" and np.any(irf_wider):
             # where the IRF is wider than the curve's rise the fit is far from linear (t0 and μs′
             # trade): the noise's share by refits with the lookup's errors drawn
-            # (td_lookup_refits; the linear share, averaged or not, was 0.1–30 times the spread of
-            # independent lookups there).  A fit stopped on a step of the lookup (at the edge of
+            # (td_lookup_refits; linear, averaged, independent lookups lay 7–10 SD off; unaveraged
+            # it claimed 10–75 times their spread).  A fit stopped on a step of the lookup (at the edge of
             # its photons) sticks there when refitted: it keeps the linear share unaveraged, which
             # is wider than any spread measured there
             wide_rows = irf_wider.reshape(W, R).any(axis=1)
             stuck = wide_rows & stepped.any(axis=1)
             if stuck.any():
+                def of_stuck(values):  # (W·R, K) -> the stuck rows' curves
+                    return values.reshape(W, R, K)[stuck].reshape(-1, K)
+
                 noise_cov[stuck] = model_error_covariance(
-                    jacobian, mask, [((amplitude[:, None] * c * rel) / sd, width)], log_time, W, R, K)[stuck]
+                    jacobian[stuck], mask[stuck], [(of_stuck((amplitude[:, None] * c * rel) / sd), of_stuck(width))],
+                    of_stuck(log_time), int(stuck.sum()), R, K)
             wide = np.flatnonzero(wide_rows & ~stuck)
-
-            def perturbed_residual(x_rows, curves_of_rows, model):
-                curves = curves_of_rows.ravel()
-                _, _, mu = expected(np.repeat(np.exp(x_rows[:, 0]), R), np.repeat(np.exp(x_rows[:, 1]), R),
-                                    x_rows[:, 2:].ravel() * SHIFT_UNIT_PS, curves, sd[curves], using=model)
-                return ((mu - counts[curves]) / sd[curves]).reshape(x_rows.shape[0], R * K)
-
             if wide.size:
                 noise_cov[wide] = refit_covariance(
-                    perturbed_residual, shape, x=x, rows=wide, curves_per_row=R, musp_per_mm=musp_c,
-                    rho_mm=rho_curve, mask=mask, lower=lower, upper=upper, tolerance=_COST_TOLERANCE,
+                    lambda x_rows, curves, model: curve_residual(x_rows, curves.ravel(), sd, using=model), shape,
+                    x=x, rows=wide, curves_per_row=R, musp_per_mm=musp_c, rho_mm=rho_curve, mask=mask, lower=lower, upper=upper, tolerance=_COST_TOLERANCE,
                     step_tolerance=_STEP_TOLERANCE,
                     tau_range_ps=(1.0, float(time[-1] - time[0] + measurement.irf_time_ps[irf_span][-1]
                                                - measurement.irf_time_ps[irf_span][0] + np.abs(shifts).max() + 100.0)))
