@@ -75,7 +75,12 @@ from phantomlab.calibration.fitting import fit_blocks, log_to_linear, off_step_c
 from phantomlab.calibration.identifiability import outcome_warnings, step_warnings
 from phantomlab.calibration.td_checks import td_design_warnings
 from phantomlab.calibration.td_lookup_refits import refit_covariance
-from phantomlab.calibration.td_model_errors import check_lookup_reach, lookup_noise_notes, model_error_covariance
+from phantomlab.calibration.td_model_errors import (
+    check_lookup_reach,
+    lookup_noise_notes,
+    model_error_covariance,
+    sparse_front_notes,
+)
 from phantomlab.calibration.td_curves import (
     SHIFT_UNIT_PS,
     background_level,
@@ -492,6 +497,7 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
     if lookup is not None:
         check_lookup_reach(lookup, measurement, musp_fit, x[:, 2:] * SHIFT_UNIT_PS, full_windows, irf,
                             irf_of_curve, R)
+        messages += sparse_front_notes(measurement.wavelength_nm, measurement.rho_mm, mua_fit, musp_fit, lookup.g)
     messages = list(dict.fromkeys(messages))
     for message in messages:
         warnings.warn(message, PhantomlabWarning, stacklevel=2)

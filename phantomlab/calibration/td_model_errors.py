@@ -7,6 +7,8 @@
   :func:`~phantomlab.calibration.fitting.propagated_error_covariance`).
 * :func:`lookup_noise_notes` — a note where the lookup's noise, not the counts, sets an SD.
 * :func:`check_lookup_reach` — a lookup fit whose windows reach beyond its photons, refused.
+* :func:`sparse_front_notes` — a warning where the lookup's earliest photons far out carry a
+  strongly absorbed curve, where fits of independent data came out low beyond their SDs.
 """
 
 from __future__ import annotations
@@ -15,8 +17,8 @@ import numpy as np
 
 from phantomlab.calibration.identifiability import _bands
 
-__all__ = ["LOOKUP_NOISE_NOTE_SD", "LOOKUP_NOISE_SHARE", "lookup_noise_notes", "check_lookup_reach",
-           "model_error_covariance"]
+__all__ = ["LOOKUP_NOISE_NOTE_SD", "LOOKUP_NOISE_SHARE", "SPARSE_FRONT_U", "SPARSE_FRONT_RATIO", "lookup_noise_notes",
+           "check_lookup_reach", "model_error_covariance", "sparse_front_notes"]
 
 
 #: A note when the Monte Carlo lookup's own noise makes a fitted SD (relative) larger than
@@ -25,6 +27,17 @@ __all__ = ["LOOKUP_NOISE_NOTE_SD", "LOOKUP_NOISE_SHARE", "lookup_noise_notes", "
 #: 3 % and a lookup variance three times the counts').
 LOOKUP_NOISE_NOTE_SD = 0.03
 LOOKUP_NOISE_SHARE = 2.0
+#: The lookup's front far out: a strongly absorbed curve (μs′/μa at most
+#: :data:`SPARSE_FRONT_RATIO`) at u = ρμs of at least this is read mostly from the baseline's
+#: earliest photons far from the source, where they are few.  Measured there with the gated,
+#: independent half-space run (tests/calibration/fixtures/mc_td_half_space_early.npz; its
+#: expected counts, IRF 100 ps): μs′ −6.3 % (μa −1.9 %) at μs′/μa 10 and −6.1 % at 15, 14 mm
+#: (u = 79 from the fitted μs′, 84 from the true one), against SDs of 1.9–2.4 % with the
+#: 10-million-photon baseline (−5.6 / −6.4 % with the 2.3-million test baseline, whose SDs of
+#: 4.6–6.9 % cover it); −0.2 to −2.2 % at 12–13 mm (u 71–76); −0.6 % at μs′/μa 20, 15 mm.  The
+#: smoothing's bias term does not reach that far.  u is taken from the fitted μs′.
+SPARSE_FRONT_U = 78.0
+SPARSE_FRONT_RATIO = 15.0
 
 
 def lookup_noise_notes(wavelength_nm, from_counts, total) -> list[str]:
@@ -42,6 +55,27 @@ def lookup_noise_notes(wavelength_nm, from_counts, total) -> list[str]:
                          "phantomlab baseline build OUT.npz ... --photons P, then fit with --baseline OUT.npz; page: "
                          "'Use a baseline file of this workspace', then 'Build the baseline' with more photons)")
     return notes
+
+
+def sparse_front_notes(wavelength_nm, rho_mm, mua_per_mm, musp_per_mm, g) -> list[str]:
+    """A warning where a strongly absorbed curve lies at u = ρμs ≥ :data:`SPARSE_FRONT_U` (see there).
+
+    ``rho_mm`` (R,) [mm]; ``mua_per_mm``, ``musp_per_mm`` (W,) [1/mm] the fitted values; g the
+    lookup's anisotropy (μs = μs′/(1 − g)).
+    """
+    rho = np.asarray(rho_mm, float)
+    musp, mua = np.asarray(musp_per_mm, float), np.asarray(mua_per_mm, float)
+    far = rho.max() * musp / (1.0 - g) >= SPARSE_FRONT_U
+    with np.errstate(divide="ignore", invalid="ignore"):
+        strong = musp / mua <= SPARSE_FRONT_RATIO
+    flagged = far & strong
+    if not flagged.any():
+        return []
+    reach = SPARSE_FRONT_U * (1.0 - g) / musp[flagged].max()
+    return [f"at {_bands(wavelength_nm, flagged)} a strongly absorbed curve (musp/mua at most {SPARSE_FRONT_RATIO:g}) "
+            f"lies far out (rho*mus {rho.max() * musp[flagged].max() / (1.0 - g):.0f}, above {SPARSE_FRONT_U:g}), where "
+            "the Monte Carlo lookup reads few early photons: on independent Monte Carlo data musp came out up to 6 % low "
+            f"there (mua 2 %), beyond its SD; fit the distances up to {reach:.3g} mm where you have them"]
 
 
 def check_lookup_reach(lookup, measurement, musp_fit, shifts_ps, windows, irf, irf_of_curve, R) -> None:
