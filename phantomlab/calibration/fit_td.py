@@ -424,25 +424,26 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
             # where the IRF is wider than the curve's rise the fit is far from linear (t0 and μs′
             # trade): the noise's share by refits with the lookup's errors drawn
             # (td_lookup_refits; linear, averaged, independent lookups lay 7–10 SD off; unaveraged
-            # it claimed 10–75 times their spread).  A fit stopped on a step of the lookup (at the edge of
-            # its photons) sticks there when refitted: it keeps the linear share unaveraged, which
-            # covers (on quarters of the test baseline its fits lay 18 % off, refits claimed 7–9 %)
-            # but can be far too wide (35 % against a spread of 0.8 %, 10 M baseline, μs′/μa 10, 12 mm)
+            # it claimed 10–75 times their spread).  A fit stopped on a step of the lookup (at the
+            # edge of its photons) sticks there when refitted: it keeps the linear share
+            # unaveraged, which covers (on quarters of the test baseline its fits lay 18 % off,
+            # refits claimed 7–9 %) but can be far too wide (35 % against a spread of 0.8 %, 10 M
+            # baseline, μs′/μa 10, 12 mm)
             wide_rows = irf_wider.reshape(W, R).any(axis=1)
             stuck = wide_rows & stepped.any(axis=1)
             if stuck.any():
                 def of_stuck(values):  # (W·R, K) -> the stuck rows' curves
                     return values.reshape(W, R, K)[stuck].reshape(-1, K)
 
-                noise_cov[stuck] = model_error_covariance(
-                    jacobian[stuck], mask[stuck], [(of_stuck((amplitude[:, None] * c * rel) / sd), of_stuck(width))],
-                    of_stuck(log_time), int(stuck.sum()), R, K)
+                unaveraged = [(of_stuck((amplitude[:, None] * c * rel) / sd), of_stuck(width))]
+                noise_cov[stuck] = model_error_covariance(jacobian[stuck], mask[stuck], unaveraged, of_stuck(log_time),
+                                                          int(stuck.sum()), R, K)
             wide = np.flatnonzero(wide_rows & ~stuck)
             if wide.size:
                 noise_cov[wide] = refit_covariance(
                     lambda x_rows, curves, model: curve_residual(x_rows, curves.ravel(), sd, using=model), shape,
-                    x=x, rows=wide, curves_per_row=R, musp_per_mm=musp_c, rho_mm=rho_curve, mask=mask, lower=lower, upper=upper, tolerance=_COST_TOLERANCE,
-                    step_tolerance=_STEP_TOLERANCE,
+                    x=x, rows=wide, curves_per_row=R, musp_per_mm=musp_c, rho_mm=rho_curve, mask=mask, lower=lower,
+                    upper=upper, tolerance=_COST_TOLERANCE, step_tolerance=_STEP_TOLERANCE,
                     tau_range_ps=(1.0, float(time[-1] - time[0] + measurement.irf_time_ps[irf_span][-1]
                                                - measurement.irf_time_ps[irf_span][0] + np.abs(shifts).max() + 100.0)))
         from_counts = cov_log
