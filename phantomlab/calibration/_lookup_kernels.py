@@ -2,8 +2,9 @@
 
 :meth:`phantomlab.calibration.mc_lookup_time.TimeResolvedLookup.point` reads ln F on a fine
 uniform grid in (ln u, s) by Keys's cubic convolution (Keys 1981, IEEE Trans ASSP 29:1153,
-a = −1/2) and cuts it where the baseline's photons do not reach (a 0/1 mask read bilinearly,
-kept where it exceeds one half).  A fit reads a few hundred points per curve at every step;
+a = −1/2) and weighs it by where the baseline's photons reach (a weight table read
+bilinearly: 1 where they reach, 0 where they do not, and a smooth ramp from 0 to 1 before a
+distance's first photons, :func:`~phantomlab.calibration.mc_lookup_time.front_ramp`).  A fit reads a few hundred points per curve at every step;
 in numpy that is some twenty array operations whose fixed cost dominates.  This kernel does
 the same arithmetic point by point, in the same order (across u first, once per row, then
 along s), so its values equal the numpy path's to rounding.
@@ -30,9 +31,9 @@ def _keys(f):
 
 @njit(cache=True, inline="always")
 def _read_point(smooth, inside, i, w0, w1, w2, w3, ib, fx, ls, s0, ds):
-    """ln F at one point of a row (u's node i with Keys weights w, mask node ib with fraction fx) and
-    whether the photons reach it: cubic convolution across u first (the numpy path's per-row
-    profile), then along s; the mask bilinear, kept where it exceeds one half."""
+    """ln F at one point of a row (u's node i with Keys weights w, weight node ib with fraction fx) and
+    the weight of the photons' reach there: cubic convolution across u first (the numpy path's
+    per-row profile), then along s; the weight bilinear."""
     cols = smooth.shape[1]
     y = min(max((ls - s0) / ds, 1.0), cols - 2.000001)
     j = int(y)
@@ -47,17 +48,17 @@ def _read_point(smooth, inside, i, w0, w1, w2, w3, ib, fx, ls, s0, ds):
     fy = yb - jb
     top = inside[ib, jb] * (1 - fy) + inside[ib, jb + 1] * fy
     bottom = inside[ib + 1, jb] * (1 - fy) + inside[ib + 1, jb + 1] * fy
-    return value, top * (1 - fx) + bottom * fx > 0.5
+    return value, top * (1 - fx) + bottom * fx
 
 
 @njit(cache=True)
 def read_rows(smooth, inside, lu_row, ls, lu0, s0, du, ds, out):
-    """exp(ln F) at (ln u of each row, s of each point), 0 where the mask says no photons.
+    """exp(ln F) times the reach weight at (ln u of each row, s of each point), 0 where the photons do not reach.
 
     Parameters
     ----------
     smooth, inside : float64 (U, S)
-        ln F (smooth continuation beyond the photons) and the 0/1 mask of where they reach.
+        ln F (smooth continuation beyond the photons) and the weight of where they reach (0–1).
     lu_row : float64 (N,)
         ln u of each row (one distance and μs per row).
     ls : float64 (N, L)
@@ -77,8 +78,8 @@ def read_rows(smooth, inside, lu_row, ls, lu0, s0, du, ds, out):
         fx = xb - ib
         for k in range(ls.shape[1]):
             value, lit = _read_point(smooth, inside, i, w0, w1, w2, w3, ib, fx, ls[n, k], s0, ds)
-            if lit:
-                out[n, k] = math.exp(min(max(value, -700.0), 700.0))
+            if lit > 0.0:
+                out[n, k] = lit * math.exp(min(max(value, -700.0), 700.0))
             else:
                 out[n, k] = 0.0
 
@@ -133,8 +134,8 @@ def read_curves(smooth, inside, lu0, s0, du, ds, v, mua, mus, rho, t, u_range, t
                 out[n, k] = 0.0
                 continue
             value, lit = _read_point(smooth, inside, i, w0, w1, w2, w3, ib, fx, ls, s0, ds)
-            if lit:
-                out[n, k] = scale * math.exp(min(max(value, -700.0), 700.0)) * math.exp(-mua[n] * v * t[n, k])
+            if lit > 0.0:
+                out[n, k] = lit * scale * math.exp(min(max(value, -700.0), 700.0)) * math.exp(-mua[n] * v * t[n, k])
             else:
                 out[n, k] = 0.0
 
@@ -144,13 +145,13 @@ def transform_rows(smooth, inside, lu0, du, s_nodes, weights, tau_max, u_range, 
     """The lookup's Fourier transform R̃ = μs² Σ_c F(u, τ_c) e^(−(μa + iω/v) τ_c/μs) τ_c w_c, one pass.
 
     The arithmetic of :meth:`TimeResolvedLookup.frequency_domain` (a row of the fine table at
-    each u by cubic convolution in ln u, the photons' reach cut by the mask and by the longest
-    path, the trapezoid in ln τ) point by point.
+    each u by cubic convolution in ln u, weighed by the photons' reach (linear in ln u) and cut
+    at the longest path, the trapezoid in ln τ) point by point.
 
     Parameters
     ----------
     smooth, inside : float64 (U, C)
-        ln F and the 0/1 reach mask on the columns that hold light.
+        ln F and the reach weight (0–1) on the columns that hold light.
     lu0, du : float
         Origin and step of the fine grid in ln u.
     s_nodes, weights : float64 (C,)
@@ -181,13 +182,14 @@ def transform_rows(smooth, inside, lu0, du, s_nodes, weights, tau_max, u_range, 
             rate = complex(mua[n], omega[g] / v) / mus[n]
             total = 0.0j
             for c in range(s_nodes.shape[0]):
-                if (1.0 - fx) * inside[i, c] + fx * inside[i + 1, c] <= 0.5:
+                lit = (1.0 - fx) * inside[i, c] + fx * inside[i + 1, c]
+                if lit <= 0.0:
                     continue
                 tau = math.exp(s_nodes[c] + 2.0 * log_u)
                 if tau > tau_max:
                     continue
                 value = w0 * smooth[i - 1, c] + w1 * smooth[i, c] + w2 * smooth[i + 1, c] + w3 * smooth[i + 2, c]
-                total += math.exp(min(max(value, -700.0), 700.0)) * cmath.exp(-rate * tau) * tau * weights[c]
+                total += lit * math.exp(min(max(value, -700.0), 700.0)) * cmath.exp(-rate * tau) * tau * weights[c]
             out[n, g] = mus[n] ** 2 * total
 
 

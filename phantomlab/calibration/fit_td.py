@@ -360,8 +360,9 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         c, amplitude, mu = expected(np.repeat(np.exp(x[:, 0]), R), np.repeat(np.exp(x[:, 1]), R), x[:, 2:].ravel() * SHIFT_UNIT_PS,
                                     curves, sd)
         sd = np.sqrt(np.maximum(mu, 1e-12))
-    # a solution on a step of the model (the lookup read up to its first photons): the SD from
-    # the smooth side's derivative, and said (a difference across the step claimed SDs of 0.01 %)
+    # a solution on a step of the model (the lookup, before its light rose over a ramp where its
+    # photons begin): the SD from the smooth side's derivative, and said (a difference across
+    # the step claimed SDs of 0.01 %)
     jacobian, cov_log, stepped = off_step_covariance(residual_fn, outcome, mask)
     messages += step_warnings(wavelength_nm=measurement.wavelength_nm, stepped=stepped,
                               names=["mua", "musp"] + ["t0"] * R, lookup=family == "mc")
@@ -424,11 +425,10 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
             # where the IRF is wider than the curve's rise the fit is far from linear (t0 and μs′
             # trade): the noise's share by refits with the lookup's errors drawn
             # (td_lookup_refits; linear, averaged, independent lookups lay 7–10 SD off; unaveraged
-            # it claimed 10–75 times their spread).  A fit stopped on a step of the lookup (at the
-            # edge of its photons) sticks there when refitted: it keeps the linear share
-            # unaveraged, which covers (on quarters of the test baseline its fits lay 18 % off,
-            # refits claimed 7–9 %) but can be far too wide (35 % against a spread of 0.8 %, 10 M
-            # baseline, μs′/μa 10, 12 mm)
+            # it claimed 10–75 times their spread).  A fit stopped on a step of its model sticks
+            # there when refitted: it keeps the linear share unaveraged, which covers but can be
+            # far too wide (35 % against a spread of 0.8 % when the lookup had a step where its
+            # photons begin, 10 M baseline, μs′/μa 10, 12 mm; td_lookup_refits)
             wide_rows = irf_wider.reshape(W, R).any(axis=1)
             stuck = wide_rows & stepped.any(axis=1)
             if stuck.any():

@@ -69,7 +69,7 @@ def step_warnings(*, wavelength_nm, stepped, names, lookup: bool) -> list[str]:
         return []
     changed = ", ".join(dict.fromkeys(names[p] for p in np.flatnonzero(stepped.any(axis=0))))
     return [f"at {_bands(wavelength_nm, stepped.any(axis=1))} the fit stops on a step of the model (in {changed}): "
-            + ("the Monte Carlo lookup is read at the edge of its photons; " if lookup else "")
+            + ("the Monte Carlo lookup is read at the edge of its reach; " if lookup else "")
             + "the SDs come from the smooth side and may understate the spread; a baseline with more photons or a "
               "shorter distance avoids it"]
 

@@ -48,6 +48,7 @@ from phantomlab.calibration.mc_lookup_time_table import (
     BANDWIDTH_LOG_U,
     BANDWIDTH_LOG_U_FAR,
     BANDWIDTH_LOG_U_FRONT,
+    front_ramp,
     front_share,
     smoothed_time_table,
     wide_shares,
@@ -106,17 +107,18 @@ class TimeResolvedLookup:
         self._inside_spline = RectBivariateSpline(self.log_u, self.s_nodes, inside.astype(float), kx=1, ky=1)
         # the evaluation table: log F on a grid 4× finer in log u and s (from the bicubic spline,
         # once), read by cubic convolution (smooth: no kinks for the fit's Jacobian to find), the
-        # spline's own smooth continuation beyond the photons' reach cut by the mask
+        # spline's own smooth continuation beyond the photons' reach weighed by where they reach
+        # (read bilinearly: 1 inside, 0 beyond, a smooth ramp before a distance's first photons)
         self._fine_s = np.linspace(self.s_nodes[0], self.s_nodes[-1], 4 * (self.s_nodes.size - 1) + 1)
         self._fine_log_u = np.linspace(self.log_u[0], self.log_u[-1], 4 * (self.log_u.size - 1) + 1)
         # (evaluated on the grid: the same numbers to the bit as point by point, 30× sooner)
         fine = np.clip(self._spline(self._fine_log_u, self._fine_s), -700.0, 700.0)
-        fine_inside = self._inside_spline(self._fine_log_u, self._fine_s) > 0.5
-        self._fine_log_f = np.where(fine_inside, fine, -700.0)
-        self._fine_smooth = fine
-        self._fine_inside = fine_inside.astype(float)
         self._fine_step = (float(self._fine_s[1] - self._fine_s[0]),
                            float(self._fine_log_u[1] - self._fine_log_u[0]))
+        fine_lit = front_ramp(self._inside_spline(self._fine_log_u, self._fine_s) > 0.5, self._fine_step[0])
+        self._fine_log_f = np.where(fine_lit > 0, fine, -700.0)
+        self._fine_smooth = fine
+        self._fine_lit = fine_lit
         self._log_sd = np.log(np.clip(np.where(inside, table.relative_sd, 1.0), 1e-6, 1.0))
         self._log_bias = np.log(np.clip(np.where(inside, table.relative_bias, 1.0), 1e-6, 1.0))
         self.counts = table.counts
@@ -187,7 +189,7 @@ class TimeResolvedLookup:
             raise InputError("Monte Carlo lookup: mus_per_mm must be > 0 and mua_per_mm >= 0")
         out = np.empty(t.shape)
         ds, du = self._fine_step
-        read_curves(self._fine_smooth, self._fine_inside, float(self._fine_log_u[0]), float(self._fine_s[0]),
+        read_curves(self._fine_smooth, self._fine_lit, float(self._fine_log_u[0]), float(self._fine_s[0]),
                     float(du), float(ds), float(self.v), mua, mus, rho, t, self._u_range, float(self.tau_max),
                     self._s_range, out)
         return out
@@ -255,13 +257,12 @@ class TimeResolvedLookup:
         if lu.ndim == 2 and np.all(u == u[:, :1]):  # one distance per row (every curve): the compiled path
             lu_row = np.log(np.where(u[:, 0] > 0, u[:, 0], 1.0))  # lu is 0 where τ <= 0: not from it
             values = np.empty(ls.shape)
-            read_rows(self._fine_smooth, self._fine_inside, lu_row, np.ascontiguousarray(ls, dtype=float),
+            read_rows(self._fine_smooth, self._fine_lit, lu_row, np.ascontiguousarray(ls, dtype=float),
                       float(origin[0]), float(origin[1]), float(du), float(ds), values)
         else:
             values = np.exp(np.clip(self._bicubic(self._fine_smooth, lu, ls, origin[0], origin[1], du, ds),
                                     -700, 700))
-            inside = self._bilinear(self._fine_inside, lu, ls, origin[0], origin[1], du, ds) > 0.5
-            values = np.where(inside, values, 0.0)
+            values = values * self._bilinear(self._fine_lit, lu, ls, origin[0], origin[1], du, ds)
         within = live & (u >= self.u_nodes[0]) & (u <= self.u_nodes[-1]) & (tau <= self.tau_max) & (
             ls >= self.s_nodes[0]) & (ls <= self.s_nodes[-1])
         return np.where(within, values, 0.0)
@@ -416,7 +417,7 @@ class TimeResolvedLookup:
         u = np.ascontiguousarray(rho[None, :] * mus[:, None])  # (N, G)
         out = np.empty(u.shape, dtype=complex)
         # each (N, G) needs a whole row of the table at its u: cubic convolution in log u over
-        # four rows (smooth in μs), the photons' reach cut by the mask; compiled (_numpy_transform
+        # four rows (smooth in μs), weighed by the photons' reach; compiled (_numpy_transform
         # is the same sum in numpy)
         transform_rows(smooth, mask, float(self._fine_log_u[0]), float(self._fine_step[1]), s_nodes, weights,
                        float(self.tau_max), self._u_range, float(self.v), mua, mus, u, omega, out)
@@ -432,7 +433,7 @@ class TimeResolvedLookup:
             if s_nodes.size:
                 weights[[0, -1]] *= 0.5
             self._columns = (np.ascontiguousarray(self._fine_smooth[:, columns]),
-                             np.ascontiguousarray(self._fine_inside[:, columns]), s_nodes, weights)
+                             np.ascontiguousarray(self._fine_lit[:, columns]), s_nodes, weights)
         return self._columns
 
     def _numpy_transform(self, *, mua_per_mm, mus_per_mm, rho_mm, frequency_mhz) -> np.ndarray:
@@ -450,10 +451,10 @@ class TimeResolvedLookup:
         wx = self._cubic_weights(x - i)  # (N, G, 4)
         log_values = sum(wx[..., a, None] * smooth[i - 1 + a] for a in range(4))
         fx = (x - i)[..., None]
-        reached = ((1.0 - fx) * mask[i] + fx * mask[i + 1]) > 0.5
+        lit = (1.0 - fx) * mask[i] + fx * mask[i + 1]
         tau = np.exp(s_nodes[None, None, :] + 2.0 * np.log(u)[..., None])  # (N, G, T)
-        reached &= tau <= self.tau_max
-        values = np.where(reached, np.exp(np.clip(log_values, -700.0, 700.0)), 0.0)  # (N, G, T)
+        lit = np.where(tau <= self.tau_max, lit, 0.0)
+        values = lit * np.exp(np.clip(log_values, -700.0, 700.0))  # (N, G, T)
         inside = (u >= self.u_nodes[0]) & (u <= self.u_nodes[-1])
         values = np.where(inside[..., None], values, 0.0)
         rate = (mua[:, None] + 1j * omega[None, :] / self.v) / mus[:, None]  # per unit τ

@@ -53,8 +53,7 @@ def td_design_warnings(measurement, signal, windows, fwhm, irf_wider, family, ge
                         "3 IRF widths; lower window_tail_fraction or measure longer")
     if wide.any():
         refits = ("; the lookup's share of the SDs comes from refits with its errors drawn (the fit is far from "
-                  "linear there), unless the fit stops on a step of the lookup: there that share is kept linear and "
-                  "unaveraged, which covers but can be many times the real spread") if family == "mc" else ""
+                  "linear there)") if family == "mc" else ""
         messages.append(f"the IRF is wider than the curve's rise (10 % to peak) at {_bands(wl, wide)}: musp rests on "
                         "the IRF's exact shape there (measure the IRF with many counts, on the same system); its SD "
                         "grows accordingly" + refits)

@@ -30,14 +30,18 @@ LOOKUP_NOISE_SHARE = 2.0
 #: The lookup's front far out: a strongly absorbed curve (μs′/μa at most
 #: :data:`SPARSE_FRONT_RATIO`) at u = ρμs of at least this is read mostly from the baseline's
 #: earliest photons far from the source, where they are few.  Measured there with the gated,
-#: independent half-space run (tests/calibration/fixtures/mc_td_half_space_early.npz; its
-#: expected counts, IRF 100 ps): μs′ −6.3 % (μa −1.9 %) at μs′/μa 10 and −6.1 % at 15, 14 mm
-#: (u = 79 from the fitted μs′, 84 from the true one), against SDs of 1.9–2.4 % with the
-#: 10-million-photon baseline (−5.6 / −6.4 % with the 2.3-million test baseline, whose SDs of
-#: 4.6–6.9 % cover it); −0.2 to −2.2 % at 12–13 mm (u 71–76); −0.6 % at μs′/μa 20, 15 mm.  The
-#: smoothing's bias term does not reach that far.  u is taken from the fitted μs′.
+#: independent half-space run (tests/calibration/fixtures/mc_td_half_space_early.npz) and the
+#: 10-million-photon baseline: from its expected counts (IRF 100 ps) μs′ −6.5 % (μa −1.8 %)
+#: at μs′/μa 10, 14 mm (u = 79 from the fitted μs′, 84 from the true one) and −5.8 % at 15 mm;
+#: from 12 Poisson copies μs′ −5.6 % at μs′/μa 15 and −3.6 to −4.7 % at 20 (14 mm, IRF
+#: 100–150 ps), against SDs of 1.5–1.7 % (0–42 % of the copies within 2 SD); −1.2 % at
+#: μs′/μa 30 (14 mm) and −0.8 % at 20 (15 mm), both covered; −1 to −2.4 % at 12–13 mm (u 71–77,
+#: μs′/μa 10).  With the 2.3-million test baseline, at μs′/μa 10 and 15 mm, nine of ten
+#: copies landed in a false basin at μs′ +60 % (lower χ² than the true one's).  The
+#: smoothing's bias term does not reach that far.  u and μs′/μa are taken from the fitted values
+#: (the ratio's limit 20 with a margin of 10 % for their own error).
 SPARSE_FRONT_U = 78.0
-SPARSE_FRONT_RATIO = 15.0
+SPARSE_FRONT_RATIO = 22.0
 
 
 def lookup_noise_notes(wavelength_nm, from_counts, total) -> list[str]:
@@ -74,8 +78,9 @@ def sparse_front_notes(wavelength_nm, rho_mm, mua_per_mm, musp_per_mm, g) -> lis
     reach = SPARSE_FRONT_U * (1.0 - g) / musp[flagged].max()
     return [f"at {_bands(wavelength_nm, flagged)} a strongly absorbed curve (musp/mua at most {SPARSE_FRONT_RATIO:g}) "
             f"lies far out (rho*mus {rho.max() * musp[flagged].max() / (1.0 - g):.0f}, above {SPARSE_FRONT_U:g}), where "
-            "the Monte Carlo lookup reads few early photons: on independent Monte Carlo data musp came out up to 6 % low "
-            f"there (mua 2 %), beyond its SD; fit the distances up to {reach:.3g} mm where you have them"]
+            "the Monte Carlo lookup reads few early photons: on independent Monte Carlo data musp came out up to 7 % low "
+            "there (mua 2 %), beyond its SD, and with a smaller baseline it could land far off (+60 %); fit the distances "
+            f"up to {reach:.3g} mm where you have them"]
 
 
 def check_lookup_reach(lookup, measurement, musp_fit, shifts_ps, windows, irf, irf_of_curve, R) -> None:

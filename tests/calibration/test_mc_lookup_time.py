@@ -246,3 +246,42 @@ def test_the_compiled_error_pair_block_equals_the_dense_kernel_products():
         block = np.empty((rows, rows))
         error_pair_block(noise_a, bias_a, noise_b, bias_b, log_t, width_a, width_b, shift, block)
         assert np.max(np.abs(block - dense)) <= 1e-12 * np.max(np.abs(dense))
+
+
+def test_the_front_ramp_is_a_centred_smoothstep_that_keeps_the_light_of_the_step():
+    """front_ramp against the smoothstep 3x² − 2x³ written out here, on a row with eight
+    columns to the ramp: the weight rises from 0 to 1 over the ramp centred half a column before
+    the first reached column (where the table's read, bilinear and kept above one half, had its
+    step), the trapezoid sum of each row equals that of the step (3x² − 2x³ plus its mirror is 1),
+    nothing lights after the last photon or in a row without photons, and a row reached over
+    fewer columns than half the ramp is not lit beyond them."""
+    from phantomlab.calibration.mc_lookup_time_table import FRONT_RAMP_LOG_TAU, front_ramp
+
+    reached = np.zeros((3, 60), bool)
+    reached[0, 20:45] = True
+    reached[1, 30:32] = True
+    weight = front_ramp(reached, FRONT_RAMP_LOG_TAU / 8)
+    columns = np.arange(60)
+    x = np.clip((columns - 19.5) / 8 + 0.5, 0.0, 1.0)
+    expected = np.where(columns < 45, x * x * (3 - 2 * x), 0.0)
+    assert np.allclose(weight[0], expected, atol=1e-12)
+    assert weight[0, 15] == 0.0 and weight[0, 24] == 1.0  # the ramp spans 15.5 .. 23.5
+    # the bilinear read of the step (0 before column 20, 1 from it) holds 24.5 columns of light
+    # from 19.5 on when cut above one half; the ramp's trapezoid sum holds the same
+    assert abs(np.sum(weight[0]) - 25.0) < 1e-12
+    assert np.all(weight[1, 32:] == 0.0) and np.all(weight[1, :26] == 0.0) and weight[1, 31] < 1.0
+    assert np.all(weight[2] == 0.0)
+
+
+def test_the_lookup_is_continuous_in_mus_where_its_photons_begin(lookup):
+    """At μs′/μa 10, 12 mm the table's first photons arrive at 3–5 % of the curve's peak.  The
+    read at one time near there, as μs moves in steps of 1e-4, used to jump by that much (the
+    step of the reach mask); the ramp makes it move by at most a fraction of a per cent."""
+    mus = 6.0 * (1 + 1e-4 * np.arange(-400, 401))
+    t = np.linspace(60.0, 100.0, 41)
+    rows = lookup.curves(mua_per_mm=np.full(mus.size, 0.12), mus_per_mm=mus, rho_mm=np.full(mus.size, 12.0),
+                         time_ps=np.broadcast_to(t, (mus.size, t.size)))
+    peak = lookup.curves(mua_per_mm=[0.12], mus_per_mm=[6.0], rho_mm=[12.0],
+                         time_ps=np.linspace(20.0, 400.0, 400)[None, :]).max()
+    steps = np.abs(np.diff(rows, axis=0)) / peak
+    assert steps.max() < 0.003, steps.max()
