@@ -79,6 +79,7 @@ from phantomlab.calibration.td_model_errors import (
     check_lookup_reach,
     lookup_noise_notes,
     model_error_covariance,
+    false_basin_notes,
     sparse_front_notes,
 )
 from phantomlab.calibration.td_curves import (
@@ -360,6 +361,10 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         c, amplitude, mu = expected(np.repeat(np.exp(x[:, 0]), R), np.repeat(np.exp(x[:, 1]), R), x[:, 2:].ravel() * SHIFT_UNIT_PS,
                                     curves, sd)
         sd = np.sqrt(np.maximum(mu, 1e-12))
+    reference = None  # the smooth diffusion model fitted to the same counts: a false basin's witness
+    if family == "mc" and smooth_shape is not shape:
+        reference = fit_blocks(smooth_residual, start, mask=mask, lower=lower, upper=upper, row_aware=True,
+                               tolerance=_COST_TOLERANCE, step_tolerance=_STEP_TOLERANCE)
     # a solution on a step of the model (the lookup, before its light rose over a ramp where its
     # photons begin): the SD from the smooth side's derivative, and said (a difference across
     # the step claimed SDs of 0.01 %)
@@ -500,6 +505,8 @@ def fit_td(measurement: TimeDomainMeasurement, *, model: str = "kienle1997", n: 
         check_lookup_reach(lookup, measurement, musp_fit, x[:, 2:] * SHIFT_UNIT_PS, full_windows, irf,
                             irf_of_curve, R)
         messages += sparse_front_notes(measurement.wavelength_nm, measurement.rho_mm, mua_fit, musp_fit, lookup.g)
+        if reference is not None:
+            messages += false_basin_notes(measurement.wavelength_nm, musp_fit, np.exp(reference.x[:, 1]))
     messages = list(dict.fromkeys(messages))
     for message in messages:
         warnings.warn(message, PhantomlabWarning, stacklevel=2)

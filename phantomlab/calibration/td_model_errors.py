@@ -18,7 +18,8 @@ import numpy as np
 from phantomlab.calibration.identifiability import _bands
 
 __all__ = ["LOOKUP_NOISE_NOTE_SD", "LOOKUP_NOISE_SHARE", "SPARSE_FRONT_U", "SPARSE_FRONT_RATIO", "lookup_noise_notes",
-           "check_lookup_reach", "model_error_covariance", "sparse_front_notes"]
+           "check_lookup_reach", "model_error_covariance", "sparse_front_notes", "DIFFUSION_DISAGREEMENT",
+           "false_basin_notes"]
 
 
 #: A note when the Monte Carlo lookup's own noise makes a fitted SD (relative) larger than
@@ -81,6 +82,30 @@ def sparse_front_notes(wavelength_nm, rho_mm, mua_per_mm, musp_per_mm, g) -> lis
             "the Monte Carlo lookup reads few early photons: on independent Monte Carlo data musp came out up to 7 % low "
             "there (mua 2 %), beyond its SD, and with a smaller baseline it could land far off (+60 %); fit the distances "
             f"up to {reach:.3g} mm where you have them"]
+
+
+#: A lookup fit whose μs′ lies more than this factor from that of the smooth diffusion model
+#: (kienle1997, fitted to the same counts from the same start) has most likely settled in a
+#: false basin of the lookup's objective.  Measured on Poisson copies of the independent runs
+#: (tests/calibration/fixtures, quarters of the 10-million-photon baseline, μs′/μa 10–1000,
+#: 10–20 mm, IRF 100–300 ps): 1.0–1.55 where the fit was right (diffusion reads μs′ low on
+#: strongly absorbed curves), 4.2 for a copy at μs′ +238 % (μs′/μa 10, 11 mm, IRF 300 ps,
+#: whose SD read 5 %) and 2.4 at +60 % (15 mm, the 2.3-million test baseline).
+DIFFUSION_DISAGREEMENT = 2.0
+
+
+def false_basin_notes(wavelength_nm, musp_lookup, musp_diffusion) -> list[str]:
+    """A warning where the lookup's μs′ and diffusion's differ by more than :data:`DIFFUSION_DISAGREEMENT` (W,) [1/mm]."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_ratio = np.log(np.asarray(musp_lookup, float) / np.asarray(musp_diffusion, float))
+    off = np.isfinite(log_ratio) & (np.abs(log_ratio) > np.log(DIFFUSION_DISAGREEMENT))
+    if not off.any():
+        return []
+    worst = float(np.exp(log_ratio[off][np.argmax(np.abs(log_ratio[off]))]))
+    return [f"at {_bands(wavelength_nm, off)} the lookup's musp is {worst:.2g} times that of the diffusion model fitted "
+            "to the same counts (kienle1997; on independent data 1.0-1.6 times): the fit has most likely settled in a "
+            "false basin, which its SD does not show; more distances or a narrower IRF pin it, and --model kienle1997 "
+            "shows the other answer"]
 
 
 def check_lookup_reach(lookup, measurement, musp_fit, shifts_ps, windows, irf, irf_of_curve, R) -> None:

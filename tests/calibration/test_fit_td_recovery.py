@@ -289,7 +289,9 @@ def test_at_fifteen_mm_a_strongly_absorbed_curve_is_flagged_on_every_copy(baseli
     ten copies land there, one within 0.3 %.  (The lookup's old step at its first photons kept
     them in the true basin; the 10-million-photon baseline lands all ten at −4.9 to −6.5 %.)
     No restart can mend a model that prefers the wrong answer: the fit must say so, and does,
-    on every copy, whichever basin it lands in.
+    on every copy, whichever basin it lands in; and the copies in the false basin, whose SD
+    (15 %) does not reach the truth, are told apart by the diffusion model fitted to the same
+    counts (μs′ −34 % here: 2.4 times below the lookup's, td_model_errors.DIFFUSION_DISAGREEMENT).
     """
     run = fixture.half_space_early()
     curve = fixture.instrument_curve(run, mua_per_mm=MUSP / 10.0, rho_mm=15.0, fwhm_ps=100.0, shift_ps=60.0,
@@ -298,6 +300,14 @@ def test_at_fifteen_mm_a_strongly_absorbed_curve_is_flagged_on_every_copy(baseli
     fit = _fit(_measurement(curve, [(15.0, rng.poisson(curve.lam)) for _ in range(10)]), "mc", baseline)
     far = [w for w in fit.warnings if "lies far out" in w]
     assert far and "(10 of 10 wavelengths)" in far[0] and "far off" in far[0], fit.warnings
+    off = np.abs(fit.musp_per_mm / MUSP - 1) > 0.3
+    basin = [w for w in fit.warnings if "false basin" in w]
+    assert off.any() == bool(basin), (fit.musp_per_mm, fit.warnings)
+    if basin:  # the note names exactly the copies that lie far off
+        wavelengths = fit.wavelength_nm[off]
+        named = f"{wavelengths[0]:g} nm" if wavelengths.size == 1 else (
+            f"{wavelengths.min():g}-{wavelengths.max():g} nm ({wavelengths.size} of 10 wavelengths)")
+        assert basin[0].startswith(f"at {named} "), (basin, fit.musp_per_mm)
 
 
 def test_the_lookup_rises_without_a_step_where_its_photons_begin(baseline):
