@@ -3,8 +3,9 @@
 :meth:`phantomlab.calibration.mc_lookup_time.TimeResolvedLookup.point` reads ln F on a fine
 uniform grid in (ln u, s) by Keys's cubic convolution (Keys 1981, IEEE Trans ASSP 29:1153,
 a = −1/2) and weighs it by where the baseline's photons reach (a weight table read
-bilinearly: 1 where they reach, 0 where they do not, and a smooth ramp from 0 to 1 before a
-distance's first photons, :func:`~phantomlab.calibration.mc_lookup_time.front_ramp`).  A fit reads a few hundred points per curve at every step;
+bilinearly: 1 where they reach, 0 where they do not, and a smooth ramp from 0 to 1 about a
+distance's first photons, :func:`~phantomlab.calibration.mc_lookup_time_table.front_ramp`).
+A fit reads a few hundred points per curve at every step;
 in numpy that is some twenty array operations whose fixed cost dominates.  This kernel does
 the same arithmetic point by point, in the same order (across u first, once per row, then
 along s), so its values equal the numpy path's to rounding.

@@ -116,8 +116,9 @@ _WIDE_U_FROM_PEAK = 0.5
 #: (mc_td_half_space_early.npz, μs′/μa 10 at 10–14 mm) the light rises from under 1 % of its
 #: peak to the table's first value within 6–15 % of the path; a step at the first photons (what
 #: the table held before) left the fit's χ² rough where it crossed a time sample.  Centred,
-#: the expected counts' μs′ at 10–14 mm (IRF 100 ps) moved by −0.1 to +0.7 %; set entirely
-#: before the first photons (adding light) it moved by −0.3 to −2.2 %.
+#: the expected counts' μs′ at 10–14 mm (IRF 100 ps, the 2.3-million-photon test baseline)
+#: moved by −0.2 to +0.7 %; set entirely before the first photons (adding light) by −0.3 to
+#: −2.2 %.
 FRONT_RAMP_LOG_TAU = 2 * _TAU_STEP
 #: Cells with fewer photons than this do not take part in the first (log-ratio) fit as data.
 _MIN_PHOTONS = 1.0
@@ -456,14 +457,14 @@ def smoothed_time_table(baseline) -> TimeTable:
 
 
 def front_ramp(reached: np.ndarray, s_step: float) -> np.ndarray:
-    """Weight (0–1) of the lookup's light on a grid (U, S): 1 where ``reached``, a ramp before each row's first photons.
+    """Weight (0–1) of the lookup's light on a grid (U, S): 1 where ``reached``, a ramp about a row's first photons.
 
     Where a finite baseline's first photons at a distance lie is known to about a cell, and a
     medium's light rises from nothing over a short span of path, not in a step.  About each
     row's first reached column the weight rises over :data:`FRONT_RAMP_LOG_TAU` in s (centred
-    where the step stood, so the ramp spreads the light the step held) by the cubic smoothstep 3x² − 2x³
-    (continuous in value and slope), which makes the lookup continuous in μs and t0 where the
-    step had made the fit's χ² jump.  After a row's last photon, and in rows without photons,
+    where the step stood, so the ramp spreads the light the step held) by the cubic smoothstep
+    3x² − 2x³ (continuous in value and slope), which makes the lookup continuous in μs and t0
+    where the step had made the fit's χ² jump.  After a row's last photon, and in rows without photons,
     the weight is 0.
 
     Parameters

@@ -79,9 +79,9 @@ def sparse_front_notes(wavelength_nm, rho_mm, mua_per_mm, musp_per_mm, g) -> lis
     reach = SPARSE_FRONT_U * (1.0 - g) / musp[flagged].max()
     return [f"at {_bands(wavelength_nm, flagged)} a strongly absorbed curve (musp/mua at most {SPARSE_FRONT_RATIO:g}) "
             f"lies far out (rho*mus {rho.max() * musp[flagged].max() / (1.0 - g):.0f}, above {SPARSE_FRONT_U:g}), where "
-            "the Monte Carlo lookup reads few early photons: on independent Monte Carlo data musp came out up to 7 % low "
-            "there (mua 2 %), beyond its SD, and with a smaller baseline it could land far off (+60 %); fit the distances "
-            f"up to {reach:.3g} mm where you have them"]
+            "the Monte Carlo lookup reads few early photons: on independent Monte Carlo data musp came out up to "
+            "7 % low there (mua 2 %), beyond its SD, and with a smaller baseline it could land far off (+60 %); "
+            f"fit the distances up to {reach:.3g} mm where you have them"]
 
 
 #: A lookup fit whose μs′ lies more than this factor from that of the smooth diffusion model
@@ -95,17 +95,18 @@ DIFFUSION_DISAGREEMENT = 2.0
 
 
 def false_basin_notes(wavelength_nm, musp_lookup, musp_diffusion) -> list[str]:
-    """A warning where the lookup's μs′ and diffusion's differ by more than :data:`DIFFUSION_DISAGREEMENT` (W,) [1/mm]."""
+    """A warning where the lookup's μs′ and diffusion's (W,) [1/mm] differ by more than the factor
+    :data:`DIFFUSION_DISAGREEMENT`."""
     with np.errstate(divide="ignore", invalid="ignore"):
         log_ratio = np.log(np.asarray(musp_lookup, float) / np.asarray(musp_diffusion, float))
     off = np.isfinite(log_ratio) & (np.abs(log_ratio) > np.log(DIFFUSION_DISAGREEMENT))
     if not off.any():
         return []
     worst = float(np.exp(log_ratio[off][np.argmax(np.abs(log_ratio[off]))]))
-    return [f"at {_bands(wavelength_nm, off)} the lookup's musp is {worst:.2g} times that of the diffusion model fitted "
-            "to the same counts (kienle1997; on independent data 1.0-1.6 times): the fit has most likely settled in a "
-            "false basin, which its SD does not show; more distances or a narrower IRF pin it, and --model kienle1997 "
-            "shows the other answer"]
+    return [f"at {_bands(wavelength_nm, off)} the lookup's musp is {worst:.2g} times that of the diffusion model "
+            "fitted to the same counts (kienle1997; on independent data 1.0-1.6 times): the fit has most likely "
+            "settled in a false basin, which its SD does not show; more distances or a narrower IRF pin it, and "
+            "--model kienle1997 shows the other answer"]
 
 
 def check_lookup_reach(lookup, measurement, musp_fit, shifts_ps, windows, irf, irf_of_curve, R) -> None:
